@@ -1,0 +1,276 @@
+"""The numerical model of a plan: arrays built once from the validated plan, and the prediction of
+every tube (speciation, ionic strength, absorbance and its photometric sd).
+
+This is the bridge between :mod:`planner.plan` (names, units) and the pure numerical modules
+(:mod:`planner.chemistry`, :mod:`planner.activity`, :mod:`planner.optics`).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import activity, chemistry, optics
+from .plan import Plan, ion_charge
+
+IONIC_STRENGTH_WARN_M = 0.5  # Davies is poor above this [source: domain.md §1, Davies 1962]
+ACTIVITY_ITERATIONS = 4  # fixed-point passes I -> constants -> speciation -> I; converges in 2–3
+
+
+@dataclass(frozen=True)
+class Model:
+    """Everything the numerics need from a plan, as arrays.
+
+    Attributes
+    ----------
+    species : names of the S species (complexes, protonated and hydroxo forms).
+    stoich : (S, 3) int, columns p, q, r of M_p L_q H_r.
+    log_beta, log_beta_sd : (S,) guessed overall constants (log10, in the plan's medium) and their sd.
+    pH : buffered pH, or None when protons are not a component.
+    charges : (3,) charges of M, L, H.
+    sizes_angstrom : (2 + S,) ion-size parameters of M, L and each species (extended Debye–Hückel).
+    absorbers : names of the 2 + S absorbing candidates: "M", "L", then the species.
+    epsilon_M_cm, epsilon_rsd : (2 + S,) molar absorptivities (L mol⁻¹ cm⁻¹) and relative sd.
+    path_cm, stray_light, noise_k : path length, stray-light fraction, (k1, k2, k3).
+    display_step : absorbance display resolution.
+    linear_range : (lo, hi) absorbance window.
+    stock_ids : the K stock ids in plan order.
+    stock_conc_M : (K, 2) M and L in each stock, mol/L.
+    stock_conc_rsd : (K,) relative standard uncertainty of each stock's concentration.
+    ion_names, ion_charges : the other ions named in stocks; stock_ion_M (K, n_ions) their concentrations.
+    activity_model : "davies" | "extended-dh" | "none".
+    reference_ionic_strength_M : ionic strength the constants refer to, or None (no correction).
+    temperature_C : temperature of the study.
+    """
+
+    species: tuple[str, ...]
+    stoich: np.ndarray
+    log_beta: np.ndarray
+    log_beta_sd: np.ndarray
+    pH: float | None
+    charges: np.ndarray
+    sizes_angstrom: np.ndarray
+    absorbers: tuple[str, ...]
+    epsilon_M_cm: np.ndarray
+    epsilon_rsd: np.ndarray
+    path_cm: float
+    stray_light: float
+    noise_k: tuple[float, float, float]
+    display_step: float
+    linear_range: tuple[float, float]
+    stock_ids: tuple[str, ...]
+    stock_conc_M: np.ndarray
+    stock_conc_rsd: np.ndarray
+    ion_names: tuple[str, ...]
+    ion_charges: np.ndarray
+    stock_ion_M: np.ndarray
+    activity_model: str
+    reference_ionic_strength_M: float | None
+    temperature_C: float
+
+    def __repr__(self) -> str:
+        return (f"Model(species={list(self.species)}, stocks={list(self.stock_ids)}, "
+                f"absorbers={[a for a, e in zip(self.absorbers, self.epsilon_M_cm, strict=True) if e > 0]})")
+
+    @property
+    def stoich_pq(self) -> np.ndarray:
+        return self.stoich[:, :2]
+
+    @property
+    def species_charges(self) -> np.ndarray:
+        return self.stoich @ self.charges
+
+    @property
+    def complex_mask(self) -> np.ndarray:
+        """(S,) True for species holding both M and L (what 'bound' means for saturation)."""
+        return (self.stoich[:, 0] > 0) & (self.stoich[:, 1] > 0)
+
+    def index(self, species: str) -> int:
+        return self.species.index(species)
+
+
+def build_model(plan: Plan) -> Model:
+    """Turn a validated plan into arrays (a pure function of the plan)."""
+    sp = plan.species
+    stoich = np.array([[s.formula.get("M", 0), s.formula.get("L", 0), s.formula.get("H", 0)] for s in sp],
+                      dtype=int)
+    comps = plan.components
+    charges = np.array([comps.M.charge, comps.L.charge, 1], dtype=float)
+    absorbers = ("M", "L", *(s.name for s in sp))
+    band_ratio = {}
+    eps = np.zeros(len(absorbers))
+    rsd = np.zeros(len(absorbers))
+    for j, name in enumerate(absorbers):
+        e = plan.optics.epsilon.get(name)
+        if e is not None:
+            band = plan.optics.bands.get(name)
+            factor = optics.bandwidth_factor(plan.optics.bandwidth_nm, band.fwhm_nm if band else None)
+            band_ratio[name] = factor
+            eps[j] = e.value * factor
+            rsd[j] = e.rsd
+    default_size = 4.0  # Å, a middling Kielland size when the plan gives none [common practice]
+    sizes = np.array(
+        [comps.M.size_angstrom or default_size, comps.L.size_angstrom or default_size]
+        + [s.size_angstrom or default_size for s in sp]
+    )
+    ion_names = sorted({ion for s in plan.stock for ion in s.ions})
+    ion_z = np.array([ion_charge(i) for i in ion_names], dtype=float)
+    stock_ion = np.array([[s.ions.get(i, 0.0) for i in ion_names] for s in plan.stock], dtype=float)
+    stock_ion = stock_ion.reshape(len(plan.stock), len(ion_names))
+    n = plan.optics.noise
+    return Model(
+        species=tuple(s.name for s in sp),
+        stoich=stoich,
+        log_beta=np.array([s.log_beta for s in sp], dtype=float),
+        log_beta_sd=np.array([s.log_beta_sd for s in sp], dtype=float),
+        pH=comps.H.pH if comps.H is not None else None,
+        charges=charges,
+        sizes_angstrom=sizes,
+        absorbers=absorbers,
+        epsilon_M_cm=eps,
+        epsilon_rsd=rsd,
+        path_cm=plan.optics.path_cm,
+        stray_light=plan.optics.stray_light,
+        noise_k=(n.k1, n.k2, n.k3),
+        display_step=plan.optics.display_step,
+        linear_range=tuple(plan.optics.linear_range),
+        stock_ids=tuple(s.id for s in plan.stock),
+        stock_conc_M=np.array([[s.conc.get("M", 0.0), s.conc.get("L", 0.0)] for s in plan.stock], dtype=float),
+        stock_conc_rsd=np.array([s.conc_rsd for s in plan.stock], dtype=float),
+        ion_names=tuple(ion_names),
+        ion_charges=ion_z,
+        stock_ion_M=stock_ion,
+        activity_model=plan.medium.activity_model,
+        reference_ionic_strength_M=plan.medium.reference_ionic_strength_M,
+        temperature_C=plan.temperature_C,
+    )
+
+
+@dataclass(frozen=True)
+class TubeState:
+    """What each tube is expected to hold and read.
+
+    Attributes
+    ----------
+    totals_M : (..., n, 2) total M and L, mol/L.
+    free_M, free_L : (..., n) free concentrations, mol/L.
+    species_M : (..., n, S) concentration of every species, mol/L.
+    log_beta : (..., n, S) constants in force in each tube (after any ionic-strength correction).
+    ionic_strength_M : (..., n).
+    absorbance_true : (..., n) Beer–Lambert absorbance.
+    absorbance : (..., n) expected reading (stray light included).
+    absorbance_sd : (..., n) photometric sd of one reading.
+    saturation : (..., n) fraction of the limiting component bound in complexes (M and L both present).
+    """
+
+    totals_M: np.ndarray
+    free_M: np.ndarray
+    free_L: np.ndarray
+    species_M: np.ndarray
+    log_beta: np.ndarray
+    ionic_strength_M: np.ndarray
+    absorbance_true: np.ndarray
+    absorbance: np.ndarray
+    absorbance_sd: np.ndarray
+    saturation: np.ndarray
+
+    def __repr__(self) -> str:
+        return f"TubeState({self.absorbance.shape[-1]} tubes, A = {np.round(self.absorbance, 3).tolist()})"
+
+    def absorber_conc_M(self) -> np.ndarray:
+        """(..., n, 2 + S) concentrations in the order of Model.absorbers."""
+        return np.concatenate([self.free_M[..., None], self.free_L[..., None], self.species_M], axis=-1)
+
+
+def ionic_strength_M(model: Model, free_M, free_L, species_M, ion_M) -> np.ndarray:
+    """I = ½ Σ c z² over free components, species and the stocks' other ions."""
+    zM, zL = model.charges[0], model.charges[1]
+    zs = model.species_charges
+    i2 = zM**2 * free_M + zL**2 * free_L + np.sum(species_M * zs**2, axis=-1)
+    if len(model.ion_names):
+        i2 = i2 + np.sum(ion_M * model.ion_charges**2, axis=-1)
+    return 0.5 * i2
+
+
+def tube_ions_M(model: Model, volumes_mL: np.ndarray, total_volume_mL: np.ndarray) -> np.ndarray:
+    """(n, n_ions) concentrations of the stocks' other ions in each tube."""
+    return (volumes_mL @ model.stock_ion_M) / total_volume_mL[..., None]
+
+
+def predict(model: Model, totals: np.ndarray, ion_M: np.ndarray | None = None, *,
+            log_beta: np.ndarray | None = None, epsilon_M_cm: np.ndarray | None = None,
+            warn: bool = True) -> TubeState:
+    """Speciation, ionic strength and absorbance of every tube.
+
+    Parameters
+    ----------
+    totals : (..., n, 2) total M and L, mol/L.
+    ion_M : (..., n, n_ions) other ions, mol/L (None: none).
+    log_beta : (..., S) or (..., n, S) constants to use instead of the guess (e.g. a Monte-Carlo draw).
+    epsilon_M_cm : (..., 2 + S) absorptivities instead of the guess.
+    """
+    totals = np.asarray(totals, dtype=float)
+    M0, L0 = totals[..., 0], totals[..., 1]
+    lb = model.log_beta if log_beta is None else np.asarray(log_beta, dtype=float)
+    if lb.ndim == totals.ndim - 1:  # (..., S): one set of constants for every tube
+        lb = lb[..., None, :]
+    if ion_M is None:
+        ion_M = np.zeros(totals.shape[:-1] + (len(model.ion_names),))
+    correct = model.activity_model != "none" and model.reference_ionic_strength_M is not None
+    lb_tube = np.broadcast_to(lb, totals.shape[:-1] + (len(model.species),))
+    if correct:
+        lb0 = activity.log_beta_to_zero_ionic_strength(
+            lb, model.stoich, model.charges, model.reference_ionic_strength_M,
+            model=model.activity_model, sizes_angstrom=model.sizes_angstrom, temperature_C=model.temperature_C)
+        # start from the ions alone, then iterate I -> constants -> speciation -> I
+        I = ionic_strength_M(model, M0, L0, np.zeros(lb_tube.shape), ion_M)
+        for _ in range(ACTIVITY_ITERATIONS):
+            lb_tube = activity.log_beta_at_ionic_strength(
+                lb0, model.stoich, model.charges, I,
+                model=model.activity_model, sizes_angstrom=model.sizes_angstrom,
+                temperature_C=model.temperature_C)
+            spec = chemistry.speciate(M0, L0, model.stoich_pq,
+                                      chemistry.conditional_log_beta(lb_tube, model.stoich, model.pH))
+            I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
+    else:
+        spec = chemistry.speciate(M0, L0, model.stoich_pq,
+                                  chemistry.conditional_log_beta(lb_tube, model.stoich, model.pH))
+        I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
+    if warn and model.activity_model == "davies" and np.any(I > IONIC_STRENGTH_WARN_M):
+        warnings.warn(
+            f"ionic strength reaches {float(np.max(I)):.2f} M: the Davies equation is poor above "
+            f"{IONIC_STRENGTH_WARN_M} M; treat activity corrections as rough",
+            activity.ActivityWarning, stacklevel=2)
+    eps = model.epsilon_M_cm if epsilon_M_cm is None else np.asarray(epsilon_M_cm, dtype=float)
+    if eps.ndim > 1:
+        eps = eps[..., None, :]
+    conc = np.concatenate([spec.free_M[..., None], spec.free_L[..., None], spec.species_M], axis=-1)
+    a_true = optics.beer_lambert(conc, eps, model.path_cm)
+    a_obs = optics.with_stray_light(a_true, model.stray_light)
+    sd = optics.photometric_sd(a_obs, *model.noise_k, display_step=model.display_step)
+    return TubeState(
+        totals_M=totals,
+        free_M=spec.free_M,
+        free_L=spec.free_L,
+        species_M=spec.species_M,
+        log_beta=lb_tube,
+        ionic_strength_M=I,
+        absorbance_true=a_true,
+        absorbance=a_obs,
+        absorbance_sd=sd,
+        saturation=saturation(model, totals, spec.species_M),
+    )
+
+
+def saturation(model: Model, totals: np.ndarray, species_M: np.ndarray) -> np.ndarray:
+    """Fraction of the limiting component (the smaller total) bound in M–L complexes."""
+    mask = model.complex_mask
+    bound_M = np.sum(species_M[..., mask] * model.stoich[mask, 0], axis=-1)
+    bound_L = np.sum(species_M[..., mask] * model.stoich[mask, 1], axis=-1)
+    M0, L0 = totals[..., 0], totals[..., 1]
+    metal_limits = M0 <= L0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = np.where(metal_limits, bound_M / np.where(M0 > 0, M0, 1.0), bound_L / np.where(L0 > 0, L0, 1.0))
+    return np.where(np.minimum(M0, L0) > 0, np.clip(frac, 0.0, 1.0), 0.0)

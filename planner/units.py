@@ -1,0 +1,66 @@
+"""Quantity parsing at the edge of the program (pint), nowhere else.
+
+Plan files give quantities as strings ("20.0 mM", "250 uL"); a bare number means mol/L for
+concentrations and mL for volumes. Everything past this module is a plain float in mol/L or mL.
+"""
+
+from __future__ import annotations
+
+from functools import cache
+
+import pint
+
+
+class UnitError(ValueError):
+    """A quantity string that cannot be read, or has the wrong dimension."""
+
+
+@cache
+def _registry() -> pint.UnitRegistry:
+    ureg = pint.UnitRegistry()
+    # pint knows "M" as molar; "µ" and "u" prefixes both work. Add the common "mol/dm3" spelling.
+    return ureg
+
+
+_DIMENSIONS = {
+    "concentration": ("mol/L", "[substance] / [length] ** 3", "20 mM"),
+    "volume": ("mL", "[length] ** 3", "10.00 mL"),
+    "mass": ("g", "[mass]", "0.250 g"),
+}
+
+
+def parse_quantity(value: object, kind: str) -> float:
+    """Return ``value`` in the base unit of ``kind`` (mol/L, mL or g).
+
+    Parameters
+    ----------
+    value : str | float | int
+        "20.0 mM", "0.020 mol/L", "10 mL", "250 uL", or a bare number in the base unit.
+    kind : {"concentration", "volume", "mass"}
+    """
+    base, dim, example = _DIMENSIONS[kind]
+    if isinstance(value, bool):
+        raise UnitError(f"expected a {kind} such as '{example}', got {value!r}")
+    if isinstance(value, (int, float)):
+        return float(value)
+    if not isinstance(value, str):
+        raise UnitError(f"expected a {kind} such as '{example}', got {value!r}")
+    text = value.strip().replace("µ", "u").replace("μ", "u")
+    ureg = _registry()
+    try:
+        q = ureg.Quantity(text)
+    except (pint.UndefinedUnitError, pint.errors.DefinitionSyntaxError) as exc:
+        unit = getattr(exc, "unit_names", None) or getattr(exc, "args", [""])[0]
+        if isinstance(unit, (tuple, list)):
+            unit = ", ".join(str(u) for u in unit)
+        raise UnitError(f"unknown unit '{unit}' in {value!r}: write a {kind} such as '{example}'") from None
+    except Exception:
+        raise UnitError(f"cannot read {value!r} as a {kind}: write e.g. '{example}'") from None
+    if not isinstance(q, pint.Quantity):  # a bare number inside a string
+        return float(q)
+    if q.dimensionless:
+        return float(q.magnitude)
+    try:
+        return float(q.to(base).magnitude)
+    except pint.DimensionalityError:
+        raise UnitError(f"{value!r} is not a {kind}: write e.g. '{example}'") from None
