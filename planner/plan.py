@@ -8,6 +8,7 @@ single :class:`PlanError` naming the key path, what was wrong and how to fix it.
 from __future__ import annotations
 
 import difflib
+import re
 import tomllib
 from pathlib import Path
 from typing import Annotated, Any, Literal
@@ -169,18 +170,21 @@ class Stock(_Strict):
     def _conc_keys(cls, v: dict[str, float]) -> dict[str, float]:
         for comp, c in v.items():
             if comp not in ("M", "L"):
-                raise ValueError(f"conc names '{comp}': a stock's conc lists components M and L only")
+                raise PlanError(comp, "unknown component: a stock's conc lists components M and L only")
             if not c > 0:
-                raise ValueError(f"conc.{comp} = {c} M: concentrations must be positive (or leave it out)")
+                raise PlanError(comp, f"{c:g} M: concentrations must be positive (or leave it out)")
         return v
 
     @field_validator("ions")
     @classmethod
     def _ions(cls, v: dict[str, float]) -> dict[str, float]:
         for ion, c in v.items():
-            ion_charge(ion)  # raises ValueError naming the ion
+            try:
+                ion_charge(ion)
+            except ValueError as exc:
+                raise PlanError(ion, str(exc)) from None
             if not c > 0:
-                raise ValueError(f"ions.{ion} = {c} M: concentrations must be positive (or leave it out)")
+                raise PlanError(ion, f"{c:g} M: concentrations must be positive (or leave it out)")
         return v
 
     @field_validator("on_hand")
@@ -279,10 +283,10 @@ class Plan(_Strict):
         absorbers = set(names) | {"M", "L"}
         for key in self.optics.epsilon:
             if key not in absorbers:
-                raise PlanError(f"optics.epsilon.{key}", _unknown("species", key, sorted(absorbers)))
+                raise PlanError(f"optics.epsilon.{key}", unknown_name("species", key, sorted(absorbers)))
         for key in self.optics.bands:
             if key not in absorbers:
-                raise PlanError(f"optics.bands.{key}", _unknown("species", key, sorted(absorbers)))
+                raise PlanError(f"optics.bands.{key}", unknown_name("species", key, sorted(absorbers)))
         ids = [s.id for s in self.stock]
         for i, s in enumerate(self.stock):
             if ids.count(s.id) > 1:
@@ -298,10 +302,10 @@ class Plan(_Strict):
         for j, d in enumerate(self.glassware.dispenser):
             for k, sid in enumerate(d.stocks):
                 if sid not in ids:
-                    raise PlanError(f"glassware.dispenser[{j}].stocks[{k}]", _unknown("stock id", sid, ids))
+                    raise PlanError(f"glassware.dispenser[{j}].stocks[{k}]", unknown_name("stock id", sid, ids))
         for sid in self.design.fixed:
             if sid not in ids:
-                raise PlanError(f"design.fixed.{sid}", _unknown("stock id", sid, ids))
+                raise PlanError(f"design.fixed.{sid}", unknown_name("stock id", sid, ids))
         for sid, v in self.design.fixed.items():
             if v < 0:
                 raise PlanError(f"design.fixed.{sid}", f"{v} mL is negative")
@@ -313,7 +317,7 @@ class Plan(_Strict):
                 f"{self.glassware.tube_volume_mL:g} mL: reduce them or use a larger tube",
             )
         if self.design.target is not None and self.design.target not in names:
-            raise PlanError("design.target", _unknown("species", self.design.target, names))
+            raise PlanError("design.target", unknown_name("species", self.design.target, names))
         if not any(s.conc.get("M") for s in self.stock):
             raise PlanError("stock", "no stock contains the metal M: give one stock conc = { M = '...' }")
         if not any(s.conc.get("L") for s in self.stock):
@@ -339,30 +343,57 @@ class Plan(_Strict):
         for s in self.stock:
             if s.id == sid:
                 return s
-        raise PlanError("stock", _unknown("stock id", sid, [s.id for s in self.stock]))
+        raise PlanError("stock", unknown_name("stock id", sid, [s.id for s in self.stock]))
 
     def dispenser_for(self, sid: str) -> Dispenser | None:
         return next((d for d in self.glassware.dispenser if sid in d.stocks), None)
 
 
 def ion_charge(ion: str) -> int:
-    """Charge of an ion written like 'K+', 'NO3-', 'SO4 2-', 'SO4-2', 'Ca2+', 'Ca+2' or 'PO4 3-'."""
-    s = ion.strip().replace(" ", "")
-    import re
+    """Charge of an ion written like 'K+', 'NO3-', 'Cu2+', 'SO4 2-', 'SO4-2', 'Ca+2', 'Ca++' or '[SO4]2-'.
 
-    m = re.fullmatch(r"(.*?)(\d*)([+-])(\d*)", s)
-    if not m or not m.group(1):
-        raise ValueError(f"ion '{ion}' has no charge: write it like 'K+', 'NO3-' or 'SO4 2-'")
-    body, n1, sign, n2 = m.groups()
-    if n1 and n2:
-        raise ValueError(f"ion '{ion}': write the charge once, like 'SO4 2-'")
-    # 'Ca2+' is ambiguous with a subscript (e.g. 'Cu2+' vs 'H2'): a digit right before the sign is the charge
-    n = int(n1 or n2 or 1)
-    return n if sign == "+" else -n
+    Digits right before the sign are read as a charge only after a bare element symbol ('Cu2+',
+    'Al3+'); otherwise they are a subscript ('NO3-'). Write 'CO3 2-' (with a space) where both meet.
+    """
+    s = ion.strip()
+    bad = f"ion '{ion}' has no readable charge: write it like 'K+', 'NO3-', 'Cu2+' or 'SO4 2-'"
+    m = re.fullmatch(r"(\S+)\s+(\d*)([+-])", s)           # 'SO4 2-'
+    if m:
+        n = int(m.group(2) or 1)
+        return n if m.group(3) == "+" else -n
+    m = re.fullmatch(r"\[(.+)\](\d*)([+-])", s)           # '[SO4]2-'
+    if m:
+        n = int(m.group(2) or 1)
+        return n if m.group(3) == "+" else -n
+    m = re.fullmatch(r"(.*?[A-Za-z\])])([+-])(\d+)", s)      # 'SO4-2' has a digit before: see below
+    if m and not m.group(1)[-1].isdigit():
+        n = int(m.group(3))
+        return n if m.group(2) == "+" else -n
+    m = re.fullmatch(r"(.*?\d)([+-])(\d+)", s)              # 'SO4-2', 'PO4-3'
+    if m:
+        n = int(m.group(3))
+        return n if m.group(2) == "+" else -n
+    m = re.fullmatch(r"(.+?)(\++|-+)", s)                   # 'K+', 'Ca++', 'NO3-', 'Cu2+'
+    if not m:
+        raise ValueError(bad)
+    body, signs = m.groups()
+    sign = 1 if signs[0] == "+" else -1
+    if len(signs) > 1:
+        return sign * len(signs)
+    el = re.fullmatch(r"([A-Z][a-z]?)(\d+)", body)
+    if el:
+        if len(el.group(2)) > 1:
+            raise ValueError(f"ion '{ion}' is ambiguous: write the charge apart, e.g. '{el.group(1)} 2+'")
+        return sign * int(el.group(2))
+    tail = re.search(r"\d+$", body)
+    if tail and len(tail.group()) > 1:
+        raise ValueError(f"ion '{ion}' is ambiguous: write the charge apart, e.g. 'CO3 2-'")
+    return sign
 
 
-def _unknown(what: str, name: str, known: list[str]) -> str:
-    near = difflib.get_close_matches(name, known, n=1)
+def unknown_name(what: str, name: str, known: list[str]) -> str:
+    """Message for a name not among ``known``, suggesting the nearest one."""
+    near = difflib.get_close_matches(name, known, n=1, cutoff=0.4)
     hint = f"; did you mean '{near[0]}'?" if near else ""
     return f"unknown {what} '{name}'{hint} (known: {', '.join(known) or 'none'})"
 

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .plan import Plan
+from .plan import Plan, unknown_name
 
 VOLUME_DECIMALS = 4  # mL; far below any dispenser's resolution, so round trips are exact
 
@@ -118,7 +118,7 @@ def make_recipe(plan: Plan, volumes: dict[str, np.ndarray] | np.ndarray, tubes: 
                 f"tube {tubes[i]}",
                 f"stocks add up to {others[i]:g} mL, more than the {tube_mL:g} mL tube: reduce them",
             )
-        vol[:, j] = np.round(np.maximum(tube_mL - others, 0.0), VOLUME_DECIMALS + 4)
+        vol[:, j] = np.maximum(tube_mL - others, 0.0)
         total = np.full(n, tube_mL)
     else:
         total = vol.sum(axis=1)
@@ -156,11 +156,7 @@ def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
     ids = [s.id for s in plan.stock]
     for h in header[1:]:
         if h not in ids:
-            import difflib
-
-            near = difflib.get_close_matches(h, ids, n=1)
-            hint = f"; did you mean '{near[0]}'?" if near else ""
-            raise RecipeError(f"{source} column '{h}'", f"unknown stock{hint} (plan stocks: {', '.join(ids)})")
+            raise RecipeError(f"{source} column '{h}'", unknown_name("stock", h, ids))
     if len(set(header)) != len(header):
         raise RecipeError(f"{source} header", "a column appears twice")
     tubes, data = [], []

@@ -1,0 +1,237 @@
+"""The `kplan` command line: parse arguments, call one core function, print or write the result."""
+
+from __future__ import annotations
+
+import json
+import sys
+import warnings
+from importlib import resources
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from . import fmt
+from .plan import PlanError, load_plan, parse_plan_text
+from .recipe import RecipeError, read_recipe_csv
+
+app = typer.Typer(
+    name="kplan",
+    help="Plan, check and fit absorbance experiments that measure metal–ligand formation constants.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+out = Console()
+err = Console(stderr=True)
+
+SCENARIOS = ("teaching", "stepwise", "proton")
+DEMO_SCENARIO = "teaching"
+
+
+class UserError(Exception):
+    """Raised by the shell for bad input that is not a plan or recipe problem."""
+
+
+def _user_errors() -> tuple[type[BaseException], ...]:
+    from .chemistry import EquilibriumError
+
+    extra: list[type[BaseException]] = [EquilibriumError]
+    for mod, name in (("glassware", "GlasswareError"), ("stocks", "StockError")):
+        try:
+            extra.append(getattr(__import__(f"planner.{mod}", fromlist=[name]), name))
+        except (ImportError, AttributeError):
+            pass
+    return (PlanError, RecipeError, UserError, *extra)
+
+
+def scenario_text(name: str) -> str:
+    """Text of a built-in scenario plan."""
+    if name not in SCENARIOS:
+        raise UserError(f"--scenario: unknown scenario '{name}'; choose one of {', '.join(SCENARIOS)}")
+    return resources.files("planner.data").joinpath("scenarios", f"{name}.toml").read_text(encoding="utf-8")
+
+
+# ----------------------------------------------------------------------------------------------------
+@app.command()
+def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> None:
+    """Validate a plan and show what was understood: species, constants, stocks, glassware."""
+    p = load_plan(plan)
+    out.print(f"[bold]{p.title}[/bold]  ({plan})")
+    t = Table(title="Components")
+    for c in ("component", "label", "charge / pH"):
+        t.add_column(c)
+    t.add_row("M", p.components.M.label, f"{p.components.M.charge:+d}")
+    t.add_row("L", p.components.L.label, f"{p.components.L.charge:+d}")
+    if p.components.H is not None:
+        t.add_row("H", "H+", f"pH {p.components.H.pH:.2f} (buffered)")
+    out.print(t)
+    t = Table(title="Species and constants")
+    for c in ("species", "formula", "log β (guess)", "± sd", "ε / L mol⁻¹ cm⁻¹", "fitted?"):
+        t.add_column(c)
+    for s in p.species:
+        f = " ".join(f"{k}{v if v != 1 else ''}" for k, v in s.formula.items() if v)
+        e = p.optics.epsilon.get(s.name)
+        t.add_row(s.name, f, f"{s.log_beta:.2f}", f"{s.log_beta_sd:.2f}",
+                  f"{e.value:g} ± {e.rsd:.0%}" if e else "—",
+                  "yes" if s.log_beta_sd > 0 else "held fixed")
+    for comp in ("M", "L"):
+        e = p.optics.epsilon.get(comp)
+        if e:
+            t.add_row(f"{comp} (free)", comp, "—", "—", f"{e.value:g} ± {e.rsd:.0%}", "—")
+    out.print(t)
+    o = p.optics
+    out.print(f"Optics: {o.wavelength_nm:g} nm, path {o.path_cm:g} cm, linear range "
+              f"{o.linear_range[0]:g}–{o.linear_range[1]:g}, stray light {o.stray_light:g}, "
+              f"noise k1={o.noise.k1:g} k2={o.noise.k2:g} k3={o.noise.k3:g}")
+    t = Table(title="Stocks")
+    for c in ("id", "label", "M", "L", "other ions", "rsd", "on hand", "dispenser"):
+        t.add_column(c)
+    for s in p.stock:
+        d = p.dispenser_for(s.id)
+        disp = f"{d.kind} {d.capacity_mL:g} mL ({d.cls})" if d else ("diluent" if s.diluent else "none")
+        t.add_row(s.id, s.label, fmt.conc(s.conc["M"]) if "M" in s.conc else "",
+                  fmt.conc(s.conc["L"]) if "L" in s.conc else "",
+                  ", ".join(f"{k} {fmt.conc(v)}" for k, v in s.ions.items()),
+                  f"{s.conc_rsd:.1%}", f"{s.on_hand:g} mL" if s.on_hand else "—", disp)
+    out.print(t)
+    g = p.glassware
+    flask = f", flask {g.flask.capacity_mL:g} mL class {g.flask.cls}" if g.flask else ""
+    out.print(f"Glassware: tube {g.tube_volume_mL:g} mL, make-up {g.make_up}{flask}, grid {g.step_mL:g} mL, "
+              f"min {g.min_volume_mL:g} mL")
+    d = p.design
+    out.print(f"Design: {d.tubes} tubes, target {p.target}, criterion {d.criterion}, "
+              f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
+              + (f", fixed {', '.join(f'{k} {v:g} mL' for k, v in d.fixed.items())}" if d.fixed else ""))
+    out.print("[green]plan OK[/green]")
+
+
+@app.command()
+def new(
+    path: Annotated[Path, typer.Argument(help="where to write the starter plan")],
+    scenario: Annotated[str, typer.Option(help=f"built-in scenario: {', '.join(SCENARIOS)}")] = DEMO_SCENARIO,
+    force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
+) -> None:
+    """Write a commented starter plan from a built-in scenario."""
+    from .files import write_atomic
+
+    text = scenario_text(scenario)
+    if path.exists() and not force:
+        raise UserError(f"{path} exists: choose another path or pass --force")
+    parse_plan_text(text)  # the shipped scenarios must always validate
+    write_atomic(path, text)
+    out.print(f"wrote {path} (scenario '{scenario}'); edit it, then run: kplan check {path}")
+
+
+@app.command()
+def assess(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    recipe: Annotated[Path, typer.Argument(help="recipe CSV: tube, then one column per stock (mL)")],
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+) -> None:
+    """Judge a recipe: each tube's contents, expected absorbance and sd, saturation, checks."""
+    from .assess import assess_recipe
+
+    p = load_plan(plan)
+    r = read_recipe_csv(recipe, p)
+    a = assess_recipe(p, r)
+    if as_json:
+        print(json.dumps(a.summary(), indent=2))
+        return
+    print_assessment(a, p)
+
+
+def print_assessment(a, p) -> None:
+    """Rich tables of an assessment (verdict and checks first)."""
+    out.print(f"[bold]{a.title}[/bold]")
+    if a.verdict:
+        out.print(f"Verdict: [bold]{a.verdict}[/bold]")
+    colour = {"pass": "green", "warn": "yellow", "fail": "red"}
+    t = Table(title="Checks")
+    for c in ("check", "status", "what to do"):
+        t.add_column(c)
+    for c in a.checks:
+        t.add_row(c.id, f"[{colour[c.status]}]{c.status}[/]", c.message)
+    out.print(t)
+    m = a.model
+    r = a.recipe
+    dispensed = r.dispensed_ids(p)
+    t = Table(title="Tubes")
+    for c in ("tube", *(f"{s} / mL" for s in dispensed), "M tot", "L tot",
+              *(m.species), "A ± sd", "saturation", "I / M"):
+        t.add_column(c, justify="right")
+    st = a.state
+    lo, hi = m.linear_range
+    step = p.glassware.step_mL
+    for i, tube in enumerate(r.tubes):
+        A = st.absorbance[i]
+        a_txt = f"{A:.3f} ± {st.absorbance_sd[i]:.3f}"
+        if not lo <= A <= hi:
+            a_txt = f"[red]{a_txt} out[/red]"
+        t.add_row(tube, *(fmt.volume(r.column(s)[i], step) for s in dispensed),
+                  fmt.conc(st.totals_M[i, 0]), fmt.conc(st.totals_M[i, 1]),
+                  *(fmt.conc(st.species_M[i, k]) for k in range(len(m.species))),
+                  a_txt, f"{st.saturation[i]:.2f}", f"{st.ionic_strength_M[i]:.3g}")
+    out.print(t)
+    if a.parameters:
+        t = Table(title="Parameters")
+        for c in ("parameter", "guess", "SE (Cramér–Rao)", "MC sd", "MC bias", "MC 95 %"):
+            t.add_column(c, justify="right")
+        for q in a.parameters:
+            ci = q.get("mc_ci95")
+            t.add_row(q["name"], fmt.sig(q["guess"], 4), fmt.sig(q["se"], 2), fmt.sig(q.get("mc_sd"), 2),
+                      fmt.sig(q.get("mc_bias"), 2), f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci else "—")
+        out.print(t)
+
+
+@app.command()
+def demo(
+    out_dir: Annotated[Path, typer.Option("--out", help="folder for the demo's files")] = Path("kplan-demo"),
+) -> None:
+    """Run the built-in scenario through everything the tool does and say what it wrote."""
+    from .assess import assess_recipe
+    from .demo import demo_recipe_csv
+    from .files import write_atomic
+    from .recipe import parse_recipe_csv
+
+    text = scenario_text(DEMO_SCENARIO)
+    p = parse_plan_text(text, source=f"scenario {DEMO_SCENARIO}")
+    written = []
+    written.append(write_atomic(out_dir / "plan.toml", text))
+    csv_text = demo_recipe_csv(p)
+    written.append(write_atomic(out_dir / "recipe.csv", csv_text))
+    r = parse_recipe_csv(csv_text, p)
+    a = assess_recipe(p, r)
+    print_assessment(a, p)
+    written.append(write_atomic(out_dir / "assessment.json", json.dumps(a.summary(), indent=2) + "\n"))
+    out.print("\n[bold]Wrote[/bold]")
+    for w in written:
+        out.print(f"  {w}")
+    out.print(f"Try: kplan check {out_dir / 'plan.toml'}   kplan assess {out_dir / 'plan.toml'} "
+              f"{out_dir / 'recipe.csv'}")
+
+
+def main() -> None:
+    """Console entry point: user errors become one line on stderr and exit code 2."""
+    errors = _user_errors()
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("default")
+            app(standalone_mode=False)
+    except errors as exc:
+        err.print(f"[red]error:[/red] {exc}", highlight=False, soft_wrap=True)
+        sys.exit(2)
+    except typer.Exit as exc:
+        sys.exit(exc.exit_code)
+    except typer.Abort:
+        err.print("aborted")
+        sys.exit(1)
+    except __import__("click").ClickException as exc:
+        exc.show()
+        sys.exit(exc.exit_code)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,12 @@
+"""The built-in demo's recipe: the plain evenly spaced series a hand-made plan would use."""
+
+from __future__ import annotations
+
+from .plan import Plan
+from .recipe import recipe_to_csv
+from .series import even_series
+
+
+def demo_recipe_csv(plan: Plan) -> str:
+    """CSV text of the evenly spaced series for ``plan``."""
+    return recipe_to_csv(even_series(plan), plan)

@@ -1,0 +1,41 @@
+"""Shared fixtures: the built-in scenarios as text and as validated plans."""
+
+from __future__ import annotations
+
+import os
+from importlib import resources
+from pathlib import Path
+
+import pytest
+
+from planner.plan import parse_plan_text
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def scenario_text(name: str) -> str:
+    return resources.files("planner.data").joinpath("scenarios", f"{name}.toml").read_text(encoding="utf-8")
+
+
+@pytest.fixture
+def teaching_text() -> str:
+    return scenario_text("teaching")
+
+
+@pytest.fixture
+def teaching_plan():
+    return parse_plan_text(scenario_text("teaching"))
+
+
+@pytest.fixture(params=["teaching", "stepwise", "proton"])
+def any_scenario(request):
+    return parse_plan_text(scenario_text(request.param))
+
+
+def shared_data_dir() -> Path | None:
+    """../shared/data (or $KPLAN_SHARED_DATA) if present."""
+    env = os.environ.get("KPLAN_SHARED_DATA")
+    for cand in ([Path(env)] if env else []) + [ROOT.parent / "shared" / "data"]:
+        if cand.is_dir():
+            return cand
+    return None

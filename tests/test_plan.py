@@ -1,0 +1,130 @@
+"""Plan loading and validation: every bad input gives one PlanError naming the key and the fix."""
+
+from __future__ import annotations
+
+import pytest
+
+from planner.plan import PlanError, ion_charge, load_plan, parse_plan_text
+
+
+def _err(text: str) -> PlanError:
+    with pytest.raises(PlanError) as exc:
+        parse_plan_text(text)
+    return exc.value
+
+
+def test_scenarios_load(any_scenario):
+    p = any_scenario
+    assert p.species and p.stock and p.glassware.tube_volume_mL > 0
+
+
+def test_units_are_resolved(teaching_plan):
+    cu = teaching_plan.stock_by_id("CU")
+    assert cu.conc["M"] == pytest.approx(0.010)            # "10.0 mM"
+    assert cu.on_hand == pytest.approx(100.0)              # "100 mL"
+    assert teaching_plan.glassware.step_mL == pytest.approx(0.05)
+
+
+def test_microlitres(teaching_text):
+    p = parse_plan_text(teaching_text.replace('step = "0.05 mL"', 'step = "50 uL"'))
+    assert p.glassware.step_mL == pytest.approx(0.05)
+
+
+def test_toml_syntax_error_names_line(teaching_text):
+    bad = teaching_text.replace('wavelength_nm = 580', 'wavelength_nm = = 580')
+    e = _err(bad)
+    assert "TOML syntax error" in str(e) and "line" in str(e)
+
+
+def test_unknown_key_suggests_nearest(teaching_text):
+    e = _err(teaching_text.replace("wavelength_nm = 580", "wavelenght_nm = 580\nwavelength_nm = 580"))
+    assert e.key == "optics.wavelenght_nm"
+    assert "did you mean 'wavelength_nm'" in e.message
+
+
+def test_unknown_key_in_list_item(teaching_text):
+    e = _err(teaching_text.replace('conc_rsd = 0.005', 'conc_rds = 0.005'))
+    assert e.key == "stock[0].conc_rds" and "conc_rsd" in e.message
+
+
+@pytest.mark.parametrize("value", ['"-10 mM"', '"0 mM"', "0", "-0.01"])
+def test_non_positive_concentration(teaching_text, value):
+    e = _err(teaching_text.replace('conc = { M = "10.0 mM" }', f"conc = {{ M = {value} }}"))
+    assert e.key == "stock[0].conc.M" and "positive" in e.message
+
+
+def test_unknown_unit(teaching_text):
+    e = _err(teaching_text.replace('conc = { M = "10.0 mM" }', 'conc = { M = "10.0 mQ" }'))
+    assert e.key == "stock[0].conc.M" and "unknown unit" in e.message
+
+
+def test_wrong_dimension(teaching_text):
+    e = _err(teaching_text.replace('tube_volume = "10.00 mL"', 'tube_volume = "10 mM"'))
+    assert e.key == "glassware.tube_volume" and "not a volume" in e.message
+
+
+def test_undefined_stock_in_dispenser(teaching_text):
+    e = _err(teaching_text.replace('stocks = ["CU", "DY"]', 'stocks = ["CU", "DX"]'))
+    assert e.key == "glassware.dispenser[0].stocks[1]"
+    assert "unknown stock id 'DX'" in e.message and "did you mean 'DY'" in e.message
+
+
+def test_undefined_stock_in_fixed(teaching_text):
+    e = _err(teaching_text.replace("goal_se = 0.05", 'goal_se = 0.05\nfixed = { CX = "1 mL" }'))
+    assert e.key == "design.fixed.CX"
+
+
+def test_formula_with_unknown_component(teaching_text):
+    e = _err(teaching_text.replace("formula = { M = 1, L = 1 }", "formula = { M = 1, X = 1 }"))
+    assert e.key == "species[0].formula" and "unknown component 'X'" in e.message
+
+
+def test_formula_with_H_but_no_pH(teaching_text):
+    e = _err(teaching_text.replace("formula = { M = 1, L = 1 }", "formula = { M = 1, L = 1, H = 1 }"))
+    assert e.key == "species[0].formula" and "components.H" in e.message
+
+
+def test_species_without_constant(teaching_text):
+    e = _err(teaching_text.replace("log_beta = 3.30 ", "# no constant "))
+    assert e.key == "species[0].log_beta" and "missing" in e.message
+
+
+def test_linear_range_inverted(teaching_text):
+    e = _err(teaching_text.replace("linear_range = [0.10, 1.00]", "linear_range = [1.0, 0.1]"))
+    assert e.key == "optics.linear_range" and "below" in e.message
+
+
+def test_fixed_volumes_exceed_tube(teaching_text):
+    e = _err(teaching_text.replace("goal_se = 0.05", 'goal_se = 0.05\nfixed = { CU = "6 mL", DY = "5 mL" }'))
+    assert e.key == "design.fixed" and "more than tube_volume" in e.message
+
+
+def test_epsilon_for_unknown_species(teaching_text):
+    e = _err(teaching_text.replace("ML = { value = 950.0", "MX = { value = 950.0"))
+    assert e.key == "optics.epsilon.MX" and "did you mean" in e.message and "ML" in e.message
+
+
+def test_to_mark_needs_diluent(teaching_text):
+    e = _err(teaching_text.replace("diluent = true", "diluent = false"))
+    assert e.key == "stock" and "diluent" in e.message
+
+
+def test_unknown_make_up(teaching_text):
+    e = _err(teaching_text.replace('make_up = "to-mark"', 'make_up = "to-the-brim"'))
+    assert e.key == "glassware.make_up" and "to-mark" in e.message
+
+
+def test_missing_file(tmp_path):
+    with pytest.raises(PlanError, match="not found"):
+        load_plan(tmp_path / "nope.toml")
+
+
+@pytest.mark.parametrize("ion,z", [("K+", 1), ("NO3-", -1), ("SO4 2-", -2), ("SO4-2", -2), ("Ca2+", 2), ("[SO4]2-", -2), ("Ca++", 2), ("Al3+", 3),
+                                   ("Ca+2", 2), ("PO4 3-", -3), ("OAc-", -1)])
+def test_ion_charge(ion, z):
+    assert ion_charge(ion) == z
+
+
+def test_ion_without_charge(teaching_text):
+    e = _err(teaching_text.replace('"Na+" = "10.0 mM"', '"Na" = "10.0 mM"'))
+    assert e.key == "stock[1].ions.Na" and "no readable charge" in e.message
