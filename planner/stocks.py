@@ -1,0 +1,591 @@
+"""Stock preparation: masses to weigh, dilution chains, and the stock's concentration uncertainty.
+
+The concentration of a weighed stock is ``c = m·P / (M·V)`` (mass, purity as a mass fraction, molar
+mass, flask volume); its relative standard uncertainty combines the relative uncertainties of the
+factors in quadrature [source: EURACHEM/CITAC QUAM, 3rd ed. 2012, example A1]. A stock's error is
+shared by every tube made from it (systematic); see :mod:`planner.glassware` for per-delivery errors.
+
+When the mass to weigh falls below the balance's minimum weight (USP <41>: ``m ≥ 2000·s``), a
+dilution chain is proposed: weigh a more concentrated stock, then take aliquots with one-mark
+pipettes into volumetric flasks. Every step's pipette and flask add to the uncertainty.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from planner.glassware import (
+    REPEATABILITY_PER_U_CALIBRATION,
+    GlasswareError,
+    GlasswareItem,
+    catalogue,
+    delivery_uncertainty,
+    flask_volume_uncertainty,
+    lookup,
+    u_rectangular,
+    u_triangular,
+)
+
+__all__ = [
+    "ACS_REAGENT_ASSAY_HALF_WIDTH",
+    "CHAIN_U_SLACK",
+    "PURITY_HALF_WIDTH_FLOOR",
+    "USP41_FACTOR",
+    "DilutionStep",
+    "StockError",
+    "StockPreparation",
+    "conc_from_weighing_M",
+    "flask_for_volume",
+    "formula_weight_g_mol",
+    "mass_for_conc_g",
+    "minimum_weight_g",
+    "prepare_stock",
+    "volume_needed_mL",
+]
+
+USP41_FACTOR = 2000.0
+"""USP <41>: repeatability is satisfactory when 2·s/m ≤ 0.10 %, i.e. m ≥ 2000·s [source: USP <41>]."""
+
+USP41_READABILITY_FACTOR = 0.41
+"""USP <41>: a repeatability sd below 0.41·d (d the scale interval) is replaced by 0.41·d
+[from memory: USP <41>, 2013 revision]. 0.41 ≈ √2/√12, the sd of the difference of two readings
+rounded to d (GUM F.2.2.1) [derived]."""
+
+ACS_REAGENT_ASSAY_HALF_WIDTH = 0.02
+"""Reagent-grade salts assay 98–102 % [source: ACS Reagent Chemicals]: ±0.02 as a mass fraction."""
+
+PURITY_HALF_WIDTH_FLOOR = 1e-4
+"""Smallest purity half-width used by default (0.01 %, the QUAM A1 certificate's ±0.0001)."""
+
+MAX_PURITY = 1.05
+"""Upper bound accepted for an assay (hydrates can assay above 100 %, e.g. ACS 98–102 %)."""
+
+PIPETTE_DRAW_FRACTION = 0.5
+"""An aliquot may use at most half of the solution it is drawn from, leaving enough to rinse the
+pipette with that solution first [common practice]."""
+
+CHAIN_U_SLACK = 0.01
+"""Dilution chains whose relative uncertainty is within 1 % (relative) of the best are treated as
+equally precise, and the one weighing the least reagent is chosen [design choice: a 1 % change in a
+stock's u is invisible next to the other terms of a fit]."""
+
+
+class StockError(ValueError):
+    """A stock cannot be prepared as asked; the message names what was wrong and a fix."""
+
+
+# --------------------------------------------------------------------------------------------------
+# formula weights and weighing
+# --------------------------------------------------------------------------------------------------
+_HYDRATE_DOTS = ("·", "•", "∙", "⋅", "*")
+
+
+@functools.lru_cache(maxsize=512)
+def formula_weight_g_mol(formula: str) -> float:
+    """Molar mass (average, from standard atomic weights) of a formula, g/mol.
+
+    Computed by the ``molmass`` library. Hydrates may be written ``"Cu(NO3)2.3H2O"`` or
+    ``"CuSO4·5H2O"`` (also ``•``, ``∙``, ``⋅``, ``*``); the number after the dot multiplies the
+    group that follows it.
+
+    Raises
+    ------
+    StockError
+        Empty formula, or one molmass cannot parse (the message carries its diagnosis).
+    """
+    from molmass import Formula, FormulaError
+
+    if not isinstance(formula, str) or not formula.strip():
+        raise StockError(f"formula must be a non-empty string such as 'CuSO4.5H2O', got {formula!r}")
+    text = formula.strip()
+    for dot in _HYDRATE_DOTS:
+        text = text.replace(dot, ".")
+    text = text.replace(" ", "")
+    try:
+        mass = float(Formula(text).mass)
+    except FormulaError as exc:
+        first = str(exc).splitlines()[0]
+        raise StockError(
+            f"cannot read the formula {formula!r}: {first}. Write it with element symbols, "
+            "e.g. 'Fe(NO3)3.9H2O' or 'CuSO4·5H2O'"
+        ) from None
+    if not mass > 0:
+        raise StockError(f"formula {formula!r} has no mass; write it with element symbols, e.g. 'KSCN'")
+    return mass
+
+
+def minimum_weight_g(repeatability_g: float, factor: float = USP41_FACTOR, *,
+                     readability_g: float | None = None) -> float:
+    """Smallest net mass a balance weighs accurately enough, ``m_min = factor · s``, g.
+
+    USP <41>: repeatability is satisfactory when ``2·s / m ≤ 0.10 %``, so ``m ≥ 2000·s``; when
+    ``readability_g`` (the scale interval d) is given, ``s`` is raised to at least ``0.41·d``
+    [source: USP <41>; the 0.41·d floor from memory].
+    """
+    s = _effective_repeatability_g(repeatability_g, readability_g)
+    if not (math.isfinite(factor) and factor > 0):
+        raise StockError(f"minimum-weight factor must be positive, got {factor!r}")
+    return factor * s
+
+
+def _effective_repeatability_g(repeatability_g: float, readability_g: float | None) -> float:
+    s = float(repeatability_g)
+    if not (math.isfinite(s) and s >= 0):
+        raise StockError(f"balance repeatability must be ≥ 0 g, got {repeatability_g!r}")
+    if readability_g is not None:
+        d = float(readability_g)
+        if not (math.isfinite(d) and d >= 0):
+            raise StockError(f"balance readability must be ≥ 0 g, got {readability_g!r}")
+        s = max(s, USP41_READABILITY_FACTOR * d)
+    return s
+
+
+def mass_for_conc_g(conc_M: float, volume_mL: float, formula_weight_g_mol: float,
+                    purity: float = 1.0) -> float:
+    """Mass of reagent to weigh for ``conc_M`` in ``volume_mL``, corrected for purity, g.
+
+    ``m = c·V·M / P`` (V in L).
+    """
+    return conc_M * volume_mL * 1e-3 * formula_weight_g_mol / purity
+
+
+def conc_from_weighing_M(mass_g: float, formula_weight_g_mol: float, volume_mL: float,
+                         purity: float = 1.0) -> float:
+    """Concentration of a weighed stock, ``c = m·P / (M·V)``, mol/L [source: QUAM example A1]."""
+    return mass_g * purity / (formula_weight_g_mol * volume_mL * 1e-3)
+
+
+# --------------------------------------------------------------------------------------------------
+# results
+# --------------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class DilutionStep:
+    """One aliquot: ``pipette`` of ``from_conc_M`` made up to the mark of ``flask``.
+
+    Attributes
+    ----------
+    pipette : GlasswareItem
+        One-mark pipette delivering the aliquot.
+    flask : GlasswareItem
+        Volumetric flask the aliquot is made up in.
+    from_conc_M, to_conc_M : float
+        Concentration drawn from and obtained, mol/L.
+    u_rel : float
+        Relative standard uncertainty of this step's dilution factor (pipette and flask, combined).
+    """
+
+    pipette: GlasswareItem
+    flask: GlasswareItem
+    from_conc_M: float
+    to_conc_M: float
+    u_rel: float
+
+    @property
+    def factor(self) -> float:
+        """Dilution factor, flask / pipette volume."""
+        return self.flask.capacity_mL / self.pipette.capacity_mL
+
+    def summary(self) -> dict:
+        """Plain JSON-safe description."""
+        return {
+            "pipette_mL": self.pipette.capacity_mL,
+            "flask_mL": self.flask.capacity_mL,
+            "pipette": self.pipette.label,
+            "flask": self.flask.label,
+            "factor": self.factor,
+            "from_conc_M": self.from_conc_M,
+            "to_conc_M": self.to_conc_M,
+            "u_rel": self.u_rel,
+        }
+
+
+@dataclass(frozen=True)
+class StockPreparation:
+    """How to make a stock, and how well its concentration is known.
+
+    Attributes
+    ----------
+    conc_M : float
+        Final concentration, mol/L.
+    flask : GlasswareItem
+        Volumetric flask holding the final stock.
+    formula : str
+        Formula as given.
+    formula_weight_g_mol : float
+        Molar mass, g/mol.
+    mass_g : float
+        Mass to weigh, g, corrected for purity (into ``weighed_flask``).
+    u_conc_M : float
+        Combined standard uncertainty of ``conc_M``, mol/L.
+    u_parts : dict
+        Relative standard uncertainties (u/value) of each factor: "balance", "purity", "flask" (the
+        flask the solid is dissolved in) and, for a chain, "dilution_1", "dilution_2", ...;
+        ``u_conc_M / conc_M = √Σ parts²``.
+    min_weight_g : float
+        USP <41> minimum weight of the balance, g.
+    steps : tuple of DilutionStep
+        () for direct weighing; otherwise the chain from the weighed stock to the final one.
+    weighed_flask : GlasswareItem
+        Flask the solid is dissolved in (``flask`` itself for direct weighing).
+    weighed_conc_M : float
+        Concentration of the weighed stock, mol/L.
+    purity, purity_half_width : float
+        Assay (mass fraction) and the half-width of its rectangular distribution.
+    u_mass_g : float
+        Standard uncertainty of the weighed mass, g.
+    """
+
+    conc_M: float
+    flask: GlasswareItem
+    formula: str
+    formula_weight_g_mol: float
+    mass_g: float
+    u_conc_M: float
+    u_parts: dict = field(hash=False)
+    min_weight_g: float
+    steps: tuple
+    weighed_flask: GlasswareItem
+    weighed_conc_M: float
+    purity: float
+    purity_half_width: float
+    u_mass_g: float
+
+    @property
+    def u_rel(self) -> float:
+        """Relative standard uncertainty of the final concentration."""
+        return self.u_conc_M / self.conc_M
+
+    def summary(self) -> dict:
+        """Plain JSON-safe description (what ``--json`` and the prep-sheet templates read)."""
+        return {
+            "conc_M": self.conc_M,
+            "formula": self.formula,
+            "formula_weight_g_mol": self.formula_weight_g_mol,
+            "flask": self.flask.summary(),
+            "weighed_flask": self.weighed_flask.summary(),
+            "weighed_conc_M": self.weighed_conc_M,
+            "mass_g": self.mass_g,
+            "u_mass_g": self.u_mass_g,
+            "min_weight_g": self.min_weight_g,
+            "purity": self.purity,
+            "purity_half_width": self.purity_half_width,
+            "u_conc_M": self.u_conc_M,
+            "u_rel": self.u_rel,
+            "u_parts": {k: float(v) for k, v in self.u_parts.items()},
+            "steps": [s.summary() for s in self.steps],
+        }
+
+    def __repr__(self) -> str:
+        chain = " → ".join(f"{s.pipette.capacity_mL:g}→{s.flask.capacity_mL:g} mL" for s in self.steps)
+        how = f"; dilute {chain}" if chain else ""
+        return (
+            f"StockPreparation({self.conc_M:.6g} M {self.formula} in {self.flask.label}: weigh "
+            f"{self.mass_g:.4f} g into {self.weighed_flask.capacity_mL:g} mL{how}; "
+            f"u = {self.u_conc_M:.3g} M ({100 * self.u_rel:.3g} %))"
+        )
+
+
+# --------------------------------------------------------------------------------------------------
+# preparation
+# --------------------------------------------------------------------------------------------------
+def _single_volume_u_rel(item: GlasswareItem, repeatability_mL: float | None = None,
+                         delta_T_C: float = 0.0) -> float:
+    """Relative combined u of one fill (flask) or one delivery (one-mark pipette)."""
+    if item.kind == "flask":
+        rep = (REPEATABILITY_PER_U_CALIBRATION * float(u_triangular(item.tolerance_mL))
+               if repeatability_mL is None else repeatability_mL)
+        return flask_volume_uncertainty(item, delta_T_C=delta_T_C, repeatability_mL=rep) / item.capacity_mL
+    d = delivery_uncertainty(item, item.capacity_mL, delta_T_C=delta_T_C, repeatability_mL=repeatability_mL)
+    return float(d.combined_mL) / item.capacity_mL
+
+
+def _as_flask(flask) -> GlasswareItem:
+    if isinstance(flask, GlasswareItem):
+        if flask.kind != "flask":
+            raise StockError(f"a stock is made up in a volumetric flask, got a {flask.kind} ({flask.label})")
+        return flask
+    try:
+        return lookup("flask", float(flask))
+    except (GlasswareError, TypeError, ValueError) as exc:
+        raise StockError(f"cannot use {flask!r} as the stock's flask: {exc}") from None
+
+
+def _chain_items(kind: str, cls: str, capacities: Sequence[float] | None) -> list[GlasswareItem]:
+    if capacities is None:
+        caps = [it.capacity_mL for it in catalogue() if it.kind == kind]
+    else:
+        caps = sorted(float(c) for c in capacities)
+    try:
+        return [lookup(kind, c, cls) for c in caps]
+    except GlasswareError as exc:
+        raise StockError(f"dilution-chain glassware: {exc}") from None
+
+
+def _purity_half_width(purity: float, purity_half_width: float | None) -> float:
+    """Default half-width: ACS 98–102 % when the assay is not stated (purity 1.0), otherwise
+    |1 − purity| (the certificate's distance from 100 %), at least 1e-4."""
+    if purity_half_width is not None:
+        hw = float(purity_half_width)
+        if not (math.isfinite(hw) and 0 <= hw < purity):
+            raise StockError(f"purity_half_width must be ≥ 0 and below the purity, got {purity_half_width!r}")
+        return hw
+    if purity == 1.0:
+        return ACS_REAGENT_ASSAY_HALF_WIDTH
+    return max(abs(1.0 - purity), PURITY_HALF_WIDTH_FLOOR)
+
+
+def prepare_stock(
+    conc_M: float,
+    flask,
+    formula: str,
+    *,
+    purity: float = 1.0,
+    purity_half_width: float | None = None,
+    balance_readability_g: float = 1e-4,
+    balance_repeatability_g: float = 1e-4,
+    delta_T_C: float = 0.0,
+    max_chain: int = 3,
+    u_mass_g: float | None = None,
+    flask_repeatability_mL: float | None = None,
+    flasks_mL: Sequence[float] | None = None,
+    pipettes_mL: Sequence[float] | None = None,
+) -> StockPreparation:
+    """Plan the weighing (and, if needed, the dilutions) for a stock of ``conc_M`` in ``flask``.
+
+    Uncertainty model [source: EURACHEM/CITAC QUAM, 3rd ed. 2012, example A1]:
+    ``(u_c/c)² = (u_m/m)² + (u_P/P)² + (u_V/V)² + Σ_steps [(u_v/v)² + (u_V/V)²]``.
+
+    - mass: ``u_m = max(s, 0.41·d)`` (USP <41> repeatability, floored by the readability of a net
+      weighing); give ``u_mass_g`` to use a calibration-certificate value instead (QUAM A1 does).
+    - purity: rectangular, ``u_P = h/√3`` (GUM 4.3.7). Default ``h``: when ``purity`` is left at 1.0
+      the assay is taken as not stated, ACS reagent grade 98–102 % (``h = 0.02``); otherwise
+      ``h = max(|1 − purity|, 1e-4)``, reading a certificate value such as 0.9999 as 0.9999 ± 0.0001.
+    - weighed flask: :func:`planner.glassware.flask_volume_uncertainty` with ``delta_T_C`` and
+      ``flask_repeatability_mL`` (default: the QUAM A1 repeatability ratio).
+    - dilution steps: each one-mark pipette and flask, calibration + repeatability. No temperature
+      term: aliquot and flask are filled at the same temperature, so the liquid's expansion cancels
+      in their ratio [derived]; it is counted once, at the weighed flask.
+    - the molar mass's uncertainty (standard atomic weights, ≲ 1e-5 relative) is neglected.
+
+    Dilution chain: proposed only when the direct mass is below the USP <41> minimum weight. Fewest
+    steps first; among chains of that length whose weighed mass reaches the minimum weight, those
+    whose ``u_c/c`` is within :data:`CHAIN_U_SLACK` (1 %) of the best, and of these the one that
+    weighs the least reagent (ties: smaller ``u_c/c``). Each aliquot is at most half of the solution
+    it is drawn from (room to rinse the pipette) and is diluted at least twofold.
+
+    Parameters
+    ----------
+    conc_M : float
+        Final concentration, mol/L.
+    flask : GlasswareItem or float
+        Final volumetric flask (a number is a class A catalogue capacity in mL).
+    formula : str
+        Reagent formula as weighed, hydrate water included (e.g. ``"CuSO4·5H2O"``).
+    purity : float
+        Assay as a mass fraction (0 < purity ≤ 1.05).
+    purity_half_width : float, optional
+        Half-width of the purity's rectangular distribution; default as above.
+    balance_readability_g, balance_repeatability_g : float
+        Scale interval d and repeatability sd s of the balance, g.
+    delta_T_C : float
+        Half-width of the lab temperature band around 20 °C, °C.
+    max_chain : int
+        Most dilution steps allowed (0: never dilute).
+    u_mass_g : float, optional
+        Standard uncertainty of the weighed mass, g, replacing the balance model.
+    flask_repeatability_mL : float, optional
+        Fill-to-mark sd of the flask the solid is dissolved in, mL.
+    flasks_mL, pipettes_mL : sequence of float, optional
+        Capacities available for a chain (default: every catalogue flask / one-mark pipette), of the
+        same class as ``flask``.
+
+    Returns
+    -------
+    StockPreparation
+
+    Raises
+    ------
+    StockError
+        Bad inputs, an unreadable formula, or no chain within ``max_chain`` steps that reaches the
+        minimum weight.
+    """
+    final = _as_flask(flask)
+    conc = float(conc_M)
+    if not (math.isfinite(conc) and conc > 0):
+        raise StockError(f"stock concentration must be a positive number of mol/L, got {conc_M!r}")
+    p = float(purity)
+    if not (math.isfinite(p) and 0 < p <= MAX_PURITY):
+        raise StockError(f"purity is a mass fraction in (0, {MAX_PURITY}], got {purity!r} (write 99.5 % as 0.995)")
+    if not (isinstance(max_chain, (int, np.integer)) and max_chain >= 0):
+        raise StockError(f"max_chain must be a whole number ≥ 0, got {max_chain!r}")
+    hw = _purity_half_width(p, purity_half_width)
+    fw = formula_weight_g_mol(formula)
+    s_eff = _effective_repeatability_g(balance_repeatability_g, balance_readability_g)
+    min_wt = minimum_weight_g(balance_repeatability_g, readability_g=balance_readability_g)
+    if u_mass_g is not None:
+        if not (math.isfinite(u_mass_g) and u_mass_g >= 0):
+            raise StockError(f"u_mass_g must be ≥ 0 g, got {u_mass_g!r}")
+        u_m = float(u_mass_g)
+    else:
+        u_m = s_eff
+    u_purity_rel = float(u_rectangular(hw)) / p
+
+    try:
+        weighed_u_rel_final = _single_volume_u_rel(final, flask_repeatability_mL, delta_T_C)
+    except GlasswareError as exc:
+        raise StockError(str(exc)) from None
+
+    mass_direct = mass_for_conc_g(conc, final.capacity_mL, fw, p)
+    common = dict(conc_M=conc, flask=final, formula=formula, formula_weight_g_mol=fw, min_weight_g=min_wt,
+                  purity=p, purity_half_width=hw, u_mass_g=u_m)
+    if mass_direct >= min_wt:
+        parts = {"balance": u_m / mass_direct, "purity": u_purity_rel, "flask": weighed_u_rel_final}
+        u_rel = math.sqrt(sum(v * v for v in parts.values()))
+        return StockPreparation(mass_g=mass_direct, u_conc_M=u_rel * conc, u_parts=parts, steps=(),
+                                weighed_flask=final, weighed_conc_M=conc, **common)
+
+    cls = final.cls or "A"
+    flasks = _chain_items("flask", cls, flasks_mL)
+    pipettes = _chain_items("pipette", cls, pipettes_mL)
+    chain = _best_chain(conc, final, fw, p, u_m, min_wt, u_purity_rel, delta_T_C, flask_repeatability_mL,
+                        flasks, pipettes, max_chain)
+    if chain is None:
+        raise StockError(
+            f"{mass_direct * 1e3:.3g} mg of {formula} for {conc:g} M in {final.label} is below the balance's "
+            f"minimum weight ({min_wt * 1e3:.3g} mg, USP <41>), and no dilution chain of at most {max_chain} "
+            "steps reaches it; raise max_chain, use a larger flask or a balance with better repeatability"
+        )
+    return StockPreparation(**chain, **common)
+
+
+def _best_chain(conc, final, fw, purity, u_m, min_wt, u_purity_rel, delta_T_C, flask_rep, flasks, pipettes,
+                max_chain):
+    """Search every chain of 1..max_chain steps, vectorised per chain length; None if none fits."""
+    V = np.array([f.capacity_mL for f in flasks])
+    v = np.array([q.capacity_mL for q in pipettes])
+    # Per-item relative uncertainties, computed once (temperature only at the weighed flask).
+    u_weighed = np.array([_single_volume_u_rel(f, flask_rep, delta_T_C) for f in flasks])
+    u_flask = np.array([_single_volume_u_rel(f) for f in flasks])
+    u_pip = np.array([_single_volume_u_rel(q) for q in pipettes])
+    u_final = _single_volume_u_rel(final)
+    V_final = final.capacity_mL
+    nF, nP = len(flasks), len(pipettes)
+
+    for k in range(1, max_chain + 1):
+        # Axes: V0 (weighed flask), then (pipette, flask) for each of the k-1 intermediate steps, then
+        # the last pipette into the final flask. Broadcast index grids keep this a handful of arrays.
+        shape = (nF,) + (nP, nF) * (k - 1) + (nP,)
+        idx = np.indices(shape, sparse=True)
+        i_flasks = [idx[0]] + [idx[2 + 2 * j] for j in range(k - 1)]        # V0, V1..V_{k-1}
+        i_pips = [idx[1 + 2 * j] for j in range(k - 1)] + [idx[-1]]        # v1..vk
+        vols_from = [V[i] for i in i_flasks]                                # solution each aliquot comes from
+        vols_to = [V[i] for i in i_flasks[1:]] + [np.asarray(V_final)]      # flask each aliquot goes into
+        vols_pip = [v[i] for i in i_pips]
+
+        ok = np.ones(shape, dtype=bool)
+        log_factor = np.zeros(shape)
+        u2 = np.broadcast_to(u_weighed[idx[0]] ** 2 + u_purity_rel**2 + u_final**2, shape).copy()
+        for j in range(k):
+            ok &= vols_pip[j] <= PIPETTE_DRAW_FRACTION * vols_from[j]
+            ok &= vols_to[j] >= 2.0 * vols_pip[j]
+            log_factor = log_factor + np.log(vols_to[j] / vols_pip[j])
+            u2 = u2 + u_pip[i_pips[j]] ** 2
+        for j in range(1, k):
+            u2 = u2 + u_flask[i_flasks[j]] ** 2
+        weighed_conc = conc * np.exp(log_factor)
+        mass = weighed_conc * V[idx[0]] * 1e-3 * fw / purity
+        ok &= mass >= min_wt
+        if not ok.any():
+            continue
+        u_rel = np.sqrt(u2 + (u_m / mass) ** 2).ravel()
+        flat = np.flatnonzero(ok)
+        # Chains within CHAIN_U_SLACK of the best u are equally good in practice: of those, weigh the
+        # least reagent (less waste, less exposure); then the smaller u.
+        near = flat[u_rel[flat] <= (1.0 + CHAIN_U_SLACK) * u_rel[flat].min()]
+        order = np.lexsort((u_rel[near], mass.ravel()[near]))
+        best = np.unravel_index(near[order[0]], shape)
+        return _build_chain(best, k, conc, final, fw, purity, u_m, u_purity_rel, flasks, pipettes,
+                            u_weighed, u_flask, u_pip, u_final)
+    return None
+
+
+def _build_chain(best, k, conc, final, fw, purity, u_m, u_purity_rel, flasks, pipettes, u_weighed, u_flask,
+                 u_pip, u_final) -> dict:
+    i_flasks = [int(best[0])] + [int(best[2 + 2 * j]) for j in range(k - 1)]
+    i_pips = [int(best[1 + 2 * j]) for j in range(k - 1)] + [int(best[-1])]
+    to_items = [flasks[i] for i in i_flasks[1:]] + [final]
+    to_u = [u_flask[i] for i in i_flasks[1:]] + [u_final]
+    # Work backwards from the final concentration so the chain's last step lands exactly on conc_M.
+    concs = [conc]
+    for j in reversed(range(k)):
+        concs.insert(0, concs[0] * to_items[j].capacity_mL / pipettes[i_pips[j]].capacity_mL)
+    steps = tuple(
+        DilutionStep(pipette=pipettes[i_pips[j]], flask=to_items[j], from_conc_M=concs[j],
+                     to_conc_M=concs[j + 1], u_rel=math.hypot(u_pip[i_pips[j]], to_u[j]))
+        for j in range(k)
+    )
+    weighed_flask = flasks[i_flasks[0]]
+    mass = mass_for_conc_g(concs[0], weighed_flask.capacity_mL, fw, purity)
+    parts = {"balance": u_m / mass, "purity": u_purity_rel, "flask": float(u_weighed[i_flasks[0]])}
+    parts.update({f"dilution_{j + 1}": s.u_rel for j, s in enumerate(steps)})
+    u_rel = math.sqrt(sum(x * x for x in parts.values()))
+    return dict(mass_g=mass, u_conc_M=u_rel * conc, u_parts=parts, steps=steps, weighed_flask=weighed_flask,
+                weighed_conc_M=concs[0])
+
+
+# --------------------------------------------------------------------------------------------------
+# how much to make
+# --------------------------------------------------------------------------------------------------
+def volume_needed_mL(recipe_total_mL, n_deliveries, *, rinse_mL: float = 2.0, dead_volume_mL: float = 1.0,
+                     per_delivery_mL: float = 0.0):
+    """Volume of a stock to have on hand for a recipe, mL.
+
+    ``need = recipe total + rinse + dead volume + n_deliveries · per_delivery``:
+
+    - ``rinse_mL``: the delivering device is rinsed with the stock before use (two or three small
+      portions for a pipette or burette) [common practice];
+    - ``dead_volume_mL``: what the device or its reservoir keeps and cannot deliver (a burette's tip
+      below the last mark, the film left in a beaker) [common practice];
+    - ``per_delivery_mL``: losses repeated at every delivery, such as a micropipette's pre-wetting
+      aspiration [common practice].
+
+    Vectorised over ``recipe_total_mL`` and ``n_deliveries`` (e.g. one entry per stock).
+    """
+    total = np.asarray(recipe_total_mL, dtype=float)
+    n = np.asarray(n_deliveries)
+    for name, value in (("recipe_total_mL", total), ("rinse_mL", rinse_mL), ("dead_volume_mL", dead_volume_mL),
+                        ("per_delivery_mL", per_delivery_mL)):
+        arr = np.asarray(value, dtype=float)
+        if not np.all(np.isfinite(arr)) or np.any(arr < 0):
+            raise StockError(f"{name} must be finite and ≥ 0 mL, got {value!r}")
+    if not np.all(np.isfinite(n.astype(float))) or np.any(n < 0) or np.any(n != np.round(n)):
+        raise StockError(f"n_deliveries must be whole numbers ≥ 0, got {n_deliveries!r}")
+    return total + rinse_mL + dead_volume_mL + n * per_delivery_mL
+
+
+def flask_for_volume(volume_mL: float, cls: str = "A") -> GlasswareItem:
+    """Smallest catalogue volumetric flask holding at least ``volume_mL``.
+
+    Raises
+    ------
+    StockError
+        If even the largest flask is too small (the message says how many fills are needed).
+    """
+    need = float(volume_mL)
+    if not (math.isfinite(need) and need > 0):
+        raise StockError(f"volume needed must be a positive number of mL, got {volume_mL!r}")
+    caps = [it.capacity_mL for it in catalogue() if it.kind == "flask"]
+    for cap in caps:
+        if cap >= need:
+            return lookup("flask", cap, cls)
+    fills = math.ceil(need / caps[-1])
+    raise StockError(
+        f"{need:g} mL is more than the largest flask in the catalogue ({caps[-1]:g} mL); "
+        f"prepare {fills} batches or use a larger vessel"
+    )
+
