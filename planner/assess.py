@@ -1,32 +1,44 @@
-"""Assessment of a recipe: what each tube holds and reads, and the checks that can fail.
+"""Assessment of a recipe: can it resolve K, and which assumptions of the planned analysis fail?
 
-The assessment is a frozen dataclass with a JSON-safe :meth:`Assessment.summary` following the
-baseline keys of the plan format (``title``, ``verdict``, ``parameters``, ``tubes``, ``checks``).
+Puts together the expected tube contents (:mod:`planner.model`), the error budget
+(:mod:`planner.errors`), the precision of the fitted parameters (:mod:`planner.precision`) and the
+checks (:mod:`planner.checks`) into a frozen :class:`Assessment` whose :meth:`Assessment.summary` has
+the baseline JSON keys (``title``, ``verdict``, ``parameters``, ``tubes``, ``checks``).
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import checks as chk
+from .checks import Check
+from .errors import ErrorBudget, error_budget, glassware_problems, plan_devices
 from .model import Model, TubeState, build_model, predict, tube_ions_M
-from .plan import Plan
+from .plan import Plan, PlanError, unknown_name
+from .precision import (
+    MC_AGREEMENT,
+    CramerRao,
+    MonteCarlo,
+    Parameters,
+    Profile,
+    ReadingModel,
+    cramer_rao,
+    free_parameters,
+    monte_carlo,
+    pack,
+    profile,
+    whitening,
+)
 from .recipe import Recipe, totals_M
 
 STATUSES = ("pass", "warn", "fail")
+VERDICTS = ("resolved", "bounded", "unresolved")
+DEFAULT_TRIALS = 2000
 
-
-@dataclass(frozen=True)
-class Check:
-    """One check of a recipe: id, "pass" | "warn" | "fail", and a message that says what to change."""
-
-    id: str
-    status: str
-    message: str
-
-    def summary(self) -> dict:
-        return {"id": self.id, "status": self.status, "message": self.message}
+__all__ = ["Assessment", "Check", "assess", "assess_recipe", "expected_state"]
 
 
 @dataclass(frozen=True)
@@ -38,10 +50,17 @@ class Assessment:
     title : the plan's title.
     recipe : the recipe assessed.
     model : the plan's numerical model.
-    state : expected contents and readings of every tube (:class:`planner.model.TubeState`).
+    state : expected contents and readings of every tube at the assumed truth.
+    budget : the error budget (covariance of the readings by source), or None.
     checks : the checks, worst first.
-    parameters : per-parameter precision entries (filled by the precision assessment).
-    verdict : "resolved" | "bounded" | "unresolved", or None while precision is not assessed.
+    params : the fitted parameters (names, guesses), or None.
+    true_theta : (P,) the values assumed true (the guess, or the ``--at`` values).
+    cramer_rao : Fisher information, SE and correlations at the truth, or None.
+    mc : Monte-Carlo results, or None when no trials were run.
+    profile : χ² profile of the target's log β, or None.
+    verdict : "resolved" | "bounded" | "unresolved", or None without a precision analysis.
+    verdict_reason : one sentence explaining the verdict.
+    goal_se : the plan's goal for SE(log β[target]).
     """
 
     title: str
@@ -49,85 +68,241 @@ class Assessment:
     model: Model
     state: TubeState
     checks: tuple[Check, ...]
-    parameters: tuple[dict, ...] = field(default=())
+    budget: ErrorBudget | None = None
+    params: Parameters | None = None
+    true_theta: np.ndarray | None = None
+    cramer_rao: CramerRao | None = None
+    mc: MonteCarlo | None = None
+    profile: Profile | None = None
     verdict: str | None = None
+    verdict_reason: str = ""
+    goal_se: float | None = None
+    extra: dict = field(default_factory=dict, hash=False)
 
     def __repr__(self) -> str:
         worst = max((STATUSES.index(c.status) for c in self.checks), default=0)
         return f"Assessment({self.recipe.n_tubes} tubes, verdict={self.verdict}, worst check={STATUSES[worst]})"
 
+    @property
+    def target_se(self) -> float | None:
+        if self.params is None or self.cramer_rao is None or self.params.target < 0:
+            return None
+        return float(self.cramer_rao.se[self.params.target])
+
+    @property
+    def parameters(self) -> tuple[dict, ...]:
+        """Per-parameter entries with the baseline keys (name, guess, se, mc_sd, mc_bias, mc_ci95)."""
+        if self.params is None or self.cramer_rao is None:
+            return ()
+        out = []
+        for p, name in enumerate(self.params.names):
+            mc = self.mc
+            out.append({
+                "name": name,
+                "guess": float(self.params.guess[p]),
+                "true": float(self.true_theta[p]),
+                "se": _f(self.cramer_rao.se[p]),
+                "mc_sd": _f(mc.sd[p]) if mc else None,
+                "mc_bias": _f(mc.bias[p]) if mc else None,
+                "mc_ci95": [_f(mc.ci95[p, 0]), _f(mc.ci95[p, 1])] if mc else None,
+            })
+        return tuple(out)
+
     def tube_rows(self) -> list[dict]:
         st, r, m = self.state, self.recipe, self.model
+        parts = self.budget.sd_parts() if self.budget is not None else None
+        total_sd = np.sqrt(np.diag(self.budget.total)) if self.budget is not None else st.absorbance_sd
         rows = []
         for i, t in enumerate(r.tubes):
-            rows.append({
+            row = {
                 "tube": t,
                 "volumes_mL": {sid: float(r.volumes_mL[i, j]) for j, sid in enumerate(r.stock_ids)},
                 "total_M": {"M": float(st.totals_M[i, 0]), "L": float(st.totals_M[i, 1])},
                 "species_M": {"M": float(st.free_M[i]), "L": float(st.free_L[i]),
                               **{s: float(st.species_M[i, k]) for k, s in enumerate(m.species)}},
                 "absorbance": float(st.absorbance[i]),
-                "absorbance_sd": float(st.absorbance_sd[i]),
+                "absorbance_sd": float(total_sd[i]),
                 "saturation": float(st.saturation[i]),
                 "ionic_strength_M": float(st.ionic_strength_M[i]),
                 "in_linear_range": bool(m.linear_range[0] <= st.absorbance[i] <= m.linear_range[1]),
-            })
+            }
+            if parts is not None:
+                row["absorbance_sd_parts"] = {k: float(v[i]) for k, v in parts.items()}
+            rows.append(row)
         return rows
 
     def summary(self) -> dict:
-        """JSON-safe dict with the baseline keys of the plan format."""
-        return {
+        """JSON-safe dict with the baseline keys of the plan format (and a few more)."""
+        out = {
             "title": self.title,
             "verdict": self.verdict,
+            "verdict_reason": self.verdict_reason,
+            "goal_se": self.goal_se,
             "parameters": list(self.parameters),
             "tubes": self.tube_rows(),
             "checks": [c.summary() for c in self.checks],
         }
+        if self.cramer_rao is not None and self.params is not None:
+            out["correlation"] = {"names": list(self.params.names),
+                                  "matrix": [[_f(x) for x in row] for row in self.cramer_rao.corr]}
+        if self.mc is not None:
+            out["monte_carlo"] = {"trials": int(self.mc.estimates.shape[0]),
+                                  "failed_fraction": self.mc.failed_fraction}
+        if self.profile is not None:
+            out["profile"] = {"log_beta": [float(x) for x in self.profile.log_beta],
+                              "delta_chi2": [_f(x) for x in self.profile.delta_chi2],
+                              "low_unbounded": self.profile.low_unbounded,
+                              "high_unbounded": self.profile.high_unbounded}
+        out.update(self.extra)
+        return out
+
+
+def _f(x) -> float | None:
+    x = float(x)
+    return x if np.isfinite(x) else None
 
 
 def expected_state(plan: Plan, recipe: Recipe, model: Model | None = None, **kw) -> TubeState:
-    """Speciation and readings of every tube of ``recipe`` at the plan's guesses."""
+    """Speciation and readings of every tube of ``recipe`` (at the guesses unless overridden)."""
     model = model or build_model(plan)
     tot = totals_M(recipe, model.stock_conc_M)
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     return predict(model, tot, ions, **kw)
 
 
-def check_linear_range(model: Model, state: TubeState, tubes: tuple[str, ...]) -> Check:
-    """Every tube's expected absorbance inside the instrument's linear window."""
-    lo, hi = model.linear_range
-    a = state.absorbance
-    low = [t for t, x in zip(tubes, a, strict=True) if x < lo]
-    high = [t for t, x in zip(tubes, a, strict=True) if x > hi]
-    if not low and not high:
-        return Check("linear-range", "pass",
-                     f"all {len(tubes)} tubes read between {lo:g} and {hi:g} "
-                     f"(A = {a.min():.3f}–{a.max():.3f})")
-    parts = []
-    if high:
-        parts.append(f"{', '.join(high)} above {hi:g}: use less of the absorbing stock, a shorter path "
-                     f"or a wavelength off the band maximum")
-    if low:
-        parts.append(f"{', '.join(low)} below {lo:g}: use more of the absorbing stock or a longer path")
-    return Check("linear-range", "fail", "; ".join(parts))
-
-
-def check_ionic_strength(state: TubeState) -> Check:
-    """Spread of ionic strength across tubes: constants are conditional on the medium."""
-    I = state.ionic_strength_M
-    mean = float(np.mean(I))
-    spread = float((I.max() - I.min()) / mean) if mean > 0 else 0.0
-    if spread <= 0.05:  # a few percent keeps activity coefficients constant [common practice]
-        return Check("ionic-strength", "pass", f"I = {I.min():.3g}–{I.max():.3g} M (spread {spread:.1%})")
-    return Check("ionic-strength", "warn",
-                 f"I varies {spread:.0%} across tubes ({I.min():.3g}–{I.max():.3g} M): add background "
-                 f"electrolyte so every tube has the same ionic strength")
+def true_constants(plan: Plan, model: Model, at: Mapping[str, float] | None) -> np.ndarray:
+    """log β with the ``--at NAME=LOGBETA`` overrides applied."""
+    lb = model.log_beta.copy()
+    for name, value in (at or {}).items():
+        if name not in model.species:
+            raise PlanError(f"--at {name}", unknown_name("species", name, list(model.species)))
+        lb[model.index(name)] = float(value)
+    return lb
 
 
 def assess_recipe(plan: Plan, recipe: Recipe) -> Assessment:
-    """Expected tube contents and the checks that need no precision analysis."""
+    """Expected tube contents and the checks, without the precision analysis (fast)."""
+    return assess(plan, recipe, trials=0, precision=False)
+
+
+def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: int = 0,
+           at: Mapping[str, float] | None = None, precision: bool = True,
+           progress: Callable[[int, int], None] | None = None) -> Assessment:
+    """Judge ``recipe``: expected tubes, error budget, precision of log K, checks and verdict.
+
+    Parameters
+    ----------
+    trials : Monte-Carlo experiments (0: Cramér–Rao only).
+    seed : seed of the numpy Generator for the Monte Carlo.
+    at : assumed true log β per species name (default: the plan's guesses).
+    precision : False skips Fisher information, Monte Carlo and profile.
+    progress : callback(done, total) for long Monte-Carlo runs.
+    """
     model = build_model(plan)
-    state = expected_state(plan, recipe, model)
-    checks = [check_linear_range(model, state, recipe.tubes), check_ionic_strength(state)]
-    checks.sort(key=lambda c: -STATUSES.index(c.status))
-    return Assessment(plan.title, recipe, model, state, tuple(checks))
+    lb_true = true_constants(plan, model, at)
+    state = expected_state(plan, recipe, model, log_beta=lb_true)
+    devices = plan_devices(plan)
+    budget = error_budget(plan, model, recipe, state, devices)
+    target = plan.target
+    check_list: list[Check] = []
+    params = free_parameters(plan, model)
+    true_theta = pack(model, params, log_beta=lb_true)
+    cr = mc = prof = None
+    band_sd = None
+    if precision and params.size:
+        ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+        reading = ReadingModel(model, params, state.totals_M, ions)
+        J = reading.jac(true_theta[None, :])[0]
+        cov_A = budget.total
+        cr = cramer_rao(J, cov_A)
+        band_sd = np.sqrt(np.sum((J * params.prior_sd) ** 2, axis=1))
+        W = whitening(cov_A)
+        if trials > 0:
+            mc = monte_carlo(plan, model, recipe, devices, reading, W, np.random.default_rng(seed), trials,
+                             true_theta, progress=progress)
+        if params.target >= 0:
+            prof = profile(reading, W, true_theta)
+    check_list.append(chk.linear_range(model, state, recipe.tubes, band_sd))
+    check_list.append(chk.saturation(state, recipe.tubes))
+    if model.complex_mask[model.index(target)]:
+        check_list.append(chk.conversion(model, state, recipe.tubes, target))
+    if plan.design.analysis == "double-reciprocal":
+        check_list.append(chk.double_reciprocal(state, recipe.tubes))
+    if plan.design.analysis in ("one-to-one", "double-reciprocal"):
+        check_list.append(chk.second_complex(model, state, recipe.tubes, target))
+    check_list.append(chk.ionic_strength(state))
+    check_list.extend(chk.side_reactions(model, state, recipe.tubes))
+    check_list.extend(_stock_and_glassware_checks(plan, recipe, devices))
+    if cr is not None:
+        check_list.append(_identifiability_check(params, cr, model, state))
+    verdict, reason = _verdict(plan, params, cr, mc, prof)
+    check_list.sort(key=lambda c: -STATUSES.index(c.status))
+    return Assessment(plan.title, recipe, model, state, tuple(check_list), budget, params, true_theta, cr, mc,
+                      prof, verdict, reason, plan.design.goal_se)
+
+
+def _stock_and_glassware_checks(plan: Plan, recipe: Recipe, devices) -> list[Check]:
+    from .preparation import stock_needs
+
+    out = []
+    short = [n for n in stock_needs(plan, recipe) if n.enough is False]
+    if short:
+        out.append(Check("stock-budget", "fail", "; ".join(
+            f"{n.id}: needs {n.needed_mL:.1f} mL (recipe {n.recipe_mL:.1f} + rinse and dead volume), "
+            f"{n.on_hand_mL:g} mL on hand — make more or use less" for n in short)))
+    else:
+        out.append(Check("stock-budget", "pass", "every stock on hand covers the recipe with its rinse allowance"))
+    probs = glassware_problems(plan, recipe, devices)
+    if probs:
+        out.append(Check("glassware", "fail", "; ".join(f"{k}: {m}" for k, m in probs)))
+    else:
+        out.append(Check("glassware", "pass", "every volume is on the grid, above the minimum and within its device"))
+    return out
+
+
+def _identifiability_check(params: Parameters, cr: CramerRao, model: Model, state: TubeState) -> Check:
+    """Person (1965): with K·[L] ≪ 1 in every tube only K·ε is determined — |corr(log K, ε)| → 1."""
+    t = params.target
+    if t < 0:
+        return Check("correlation", "pass", "the target constant is held fixed")
+    eps_idx = [p for p in range(params.size) if params.kind[p] == 1]
+    if not eps_idx or not np.all(np.isfinite(cr.corr)):
+        if not np.all(np.isfinite(cr.se)):
+            return Check("correlation", "fail", "the parameters cannot all be determined from these tubes "
+                         "(singular information): widen the range of concentrations")
+        return Check("correlation", "pass", "no absorptivity is fitted alongside the target")
+    r = max(abs(cr.corr[t, p]) for p in eps_idx)
+    name = params.names[max(eps_idx, key=lambda p: abs(cr.corr[t, p]))]
+    if r < 0.95:
+        return Check("correlation", "pass", f"|corr({params.names[t]}, {name})| = {r:.2f}")
+    return Check("correlation", "warn" if r < 0.995 else "fail",
+                 f"|corr({params.names[t]}, {name})| = {r:.3f}: the data fix little more than K·ε (Person 1965); "
+                 f"add tubes nearer saturation (more of the excess reagent)")
+
+
+def _verdict(plan: Plan, params: Parameters, cr, mc, prof) -> tuple[str | None, str]:
+    if cr is None:
+        return None, ""
+    t = params.target
+    if t < 0:
+        return None, f"log_beta[{plan.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
+    goal = plan.design.goal_se
+    se = float(cr.se[t])
+    if prof is not None and prof.low_unbounded and prof.high_unbounded:
+        return "unresolved", "the data cannot tell the constant from either limit (K → 0 or K → ∞)"
+    if prof is not None and prof.high_unbounded:
+        return "bounded", "only a lower bound: the data cannot tell K from K → ∞ (every tube near saturation)"
+    if prof is not None and prof.low_unbounded:
+        return "bounded", "only an upper bound: the data cannot tell K from K → 0 (too little complex forms)"
+    if not np.isfinite(se):
+        return "unresolved", "the information matrix is singular: the parameters are not all identifiable"
+    if mc is not None:
+        mc_sd = float(mc.sd[t])
+        if mc.failed_fraction > 0.05:
+            return "unresolved", f"{mc.failed_fraction:.0%} of simulated fits failed"
+        if not np.isfinite(mc_sd) or abs(mc_sd / se - 1.0) > MC_AGREEMENT:
+            return "unresolved", (f"Monte Carlo (sd {mc_sd:.3g}) does not confirm the Cramér–Rao SE {se:.3g} "
+                                  f"within {MC_AGREEMENT:.0%}: the asymptotic SE is not trustworthy here")
+    if se <= goal:
+        return "resolved", f"SE(log β) = {se:.3g} ≤ goal {goal:g}"
+    return "unresolved", f"SE(log β) = {se:.3g} > goal {goal:g}"

@@ -11,6 +11,7 @@ from typing import Annotated
 
 import typer
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from . import fmt
@@ -130,30 +131,94 @@ def assess(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     recipe: Annotated[Path, typer.Argument(help="recipe CSV: tube, then one column per stock (mL)")],
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments (0: Cramér–Rao only)", min=0)] = 2000,
+    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers")] = 0,
+    at: Annotated[list[str] | None, typer.Option(
+        "--at", help="assess as if the true constant were different: NAME=LOGBETA (repeatable)")] = None,
 ) -> None:
-    """Judge a recipe: each tube's contents, expected absorbance and sd, saturation, checks."""
-    from .assess import assess_recipe
+    """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading."""
+    from .assess import assess as run_assess
 
     p = load_plan(plan)
     r = read_recipe_csv(recipe, p)
-    a = assess_recipe(p, r)
+    at_values = parse_at(at or [])
+    a = _with_progress(lambda prog: run_assess(p, r, trials=trials, seed=seed, at=at_values, progress=prog),
+                       trials, quiet=as_json)
     if as_json:
         print(json.dumps(a.summary(), indent=2))
         return
     print_assessment(a, p)
 
 
+def parse_at(items: list[str]) -> dict[str, float]:
+    """'ML=4.3' pairs from repeated --at options."""
+    out = {}
+    for item in items:
+        name, sep, value = item.partition("=")
+        try:
+            if not sep:
+                raise ValueError
+            out[name.strip()] = float(value)
+        except ValueError:
+            raise UserError(f"--at {item}: write NAME=LOGBETA, e.g. --at ML=4.3") from None
+    return out
+
+
+def _with_progress(run, trials: int, quiet: bool):
+    """Run ``run(progress)`` with a rich progress bar on long Monte-Carlo runs."""
+    if quiet or trials < 5000 or not err.is_terminal:
+        return run(None)
+    from rich.progress import Progress
+
+    with Progress(console=err, transient=True) as bar:
+        task = bar.add_task("Monte Carlo", total=trials)
+        return run(lambda done, total: bar.update(task, completed=done))
+
+
 def print_assessment(a, p) -> None:
-    """Rich tables of an assessment (verdict and checks first)."""
-    out.print(f"[bold]{a.title}[/bold]")
+    """Rich tables of an assessment: verdict first, then parameters, checks and tubes."""
+    out.print(f"[bold]{escape(a.title)}[/bold]")
+    vcol = {"resolved": "green", "bounded": "yellow", "unresolved": "red"}
     if a.verdict:
-        out.print(f"Verdict: [bold]{a.verdict}[/bold]")
+        out.print(f"Verdict: [bold {vcol[a.verdict]}]{a.verdict}[/] — {escape(a.verdict_reason)}")
+    elif a.verdict_reason:
+        out.print(escape(a.verdict_reason))
+    if a.parameters:
+        t = Table(title="Parameters")
+        for c in ("parameter", "guess", "assumed true", "SE (Cramér–Rao)", "MC sd", "MC bias", "MC 95 %"):
+            t.add_column(c, justify="right")
+        for q in a.parameters:
+            ci = q.get("mc_ci95")
+            t.add_row(q["name"], fmt.sig(q["guess"], 4), fmt.sig(q["true"], 4), fmt.sig(q["se"], 2),
+                      fmt.sig(q.get("mc_sd"), 2), fmt.sig(q.get("mc_bias"), 2),
+                      f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—")
+        out.print(t)
+        if a.cramer_rao is not None and len(a.parameters) > 1:
+            t = Table(title="Correlations")
+            t.add_column("")
+            for n in a.params.names:
+                t.add_column(n, justify="right")
+            for i, n in enumerate(a.params.names):
+                t.add_row(n, *(fmt.sig(x, 2) for x in a.cramer_rao.corr[i]))
+            out.print(t)
+        if a.mc is not None and a.mc.failed_fraction > 0:
+            out.print(f"Monte Carlo: {a.mc.failed_fraction:.1%} of fits failed")
+    if a.profile is not None:
+        pr = a.profile
+        side = []
+        if pr.low_unbounded:
+            side.append("cannot be told from K → 0")
+        if pr.high_unbounded:
+            side.append("cannot be told from K → ∞")
+        out.print(f"χ² profile of log β[{p.target}]: Δχ² = {fmt.sig(pr.delta_chi2[0], 3)} towards K → 0 and "
+                  f"{fmt.sig(pr.delta_chi2[-1], 3)} towards K → ∞ (threshold 3.84)"
+                  + (f" — {'; '.join(side)}" if side else ""))
     colour = {"pass": "green", "warn": "yellow", "fail": "red"}
     t = Table(title="Checks")
-    for c in ("check", "status", "what to do"):
+    for c in ("check", "status", "what was found / what to do"):
         t.add_column(c)
     for c in a.checks:
-        t.add_row(c.id, f"[{colour[c.status]}]{c.status}[/]", c.message)
+        t.add_row(c.id, f"[{colour[c.status]}]{c.status}[/]", escape(c.message))
     out.print(t)
     m = a.model
     r = a.recipe
@@ -162,27 +227,76 @@ def print_assessment(a, p) -> None:
     for c in ("tube", *(f"{s} / mL" for s in dispensed), "M tot", "L tot",
               *(m.species), "A ± sd", "saturation", "I / M"):
         t.add_column(c, justify="right")
-    st = a.state
+    rows = a.tube_rows()
     lo, hi = m.linear_range
     step = p.glassware.step_mL
+    st = a.state
     for i, tube in enumerate(r.tubes):
-        A = st.absorbance[i]
-        a_txt = f"{A:.3f} ± {st.absorbance_sd[i]:.3f}"
+        A = rows[i]["absorbance"]
+        a_txt = f"{A:.3f} ± {rows[i]['absorbance_sd']:.3f}"
         if not lo <= A <= hi:
             a_txt = f"[red]{a_txt} out[/red]"
-        t.add_row(tube, *(fmt.volume(r.column(s)[i], step) for s in dispensed),
+        t.add_row(escape(tube), *(fmt.volume(r.column(s)[i], step) for s in dispensed),
                   fmt.conc(st.totals_M[i, 0]), fmt.conc(st.totals_M[i, 1]),
                   *(fmt.conc(st.species_M[i, k]) for k in range(len(m.species))),
                   a_txt, f"{st.saturation[i]:.2f}", f"{st.ionic_strength_M[i]:.3g}")
     out.print(t)
-    if a.parameters:
-        t = Table(title="Parameters")
-        for c in ("parameter", "guess", "SE (Cramér–Rao)", "MC sd", "MC bias", "MC 95 %"):
-            t.add_column(c, justify="right")
-        for q in a.parameters:
-            ci = q.get("mc_ci95")
-            t.add_row(q["name"], fmt.sig(q["guess"], 4), fmt.sig(q["se"], 2), fmt.sig(q.get("mc_sd"), 2),
-                      fmt.sig(q.get("mc_bias"), 2), f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci else "—")
+
+
+@app.command()
+def stocks(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    recipe: Annotated[Path | None, typer.Argument(help="recipe CSV, for the volumes needed")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+) -> None:
+    """How to make each stock (mass to weigh, flask, uncertainty) and how much a recipe needs."""
+    from .preparation import stock_needs
+
+    p = load_plan(plan)
+    r = read_recipe_csv(recipe, p) if recipe else None
+    needs = stock_needs(p, r)
+    if as_json:
+        print(json.dumps({"title": p.title, "stocks": [n.summary() for n in needs]}, indent=2))
+        return
+    print_stock_needs(p, needs, r is not None)
+
+
+def print_stock_needs(p, needs, with_recipe: bool) -> None:
+    out.print(f"[bold]{p.title}[/bold] — stocks")
+    t = Table(title="Preparation")
+    for c in ("stock", "concentration", "how to make it", "u (rel.)", "plan assumes"):
+        t.add_column(c)
+    for n in needs:
+        s = p.stock_by_id(n.id)
+        conc = ", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—"
+        if n.preparation is not None:
+            pr = n.preparation
+            how = (f"weigh {pr.mass_g:.4f} g {pr.formula} (FW {pr.formula_weight_g_mol:.2f}), dissolve and make up "
+                   f"to {pr.weighed_flask.capacity_mL:g} mL")
+            for st in pr.steps:
+                how += (f"; then {st.pipette.capacity_mL:g} mL of it to {st.flask.capacity_mL:g} mL "
+                        f"({fmt.conc(st.to_conc_M)})")
+            how = escape(how)
+            if pr.mass_g < pr.min_weight_g:
+                how += f" [red](below the {pr.min_weight_g:.3f} g minimum weight)[/red]"
+            u = f"{pr.u_rel:.2%}"
+            flag = "" if n.plan_rsd >= pr.u_rel * 0.999 else " [yellow](below what weighing gives)[/yellow]"
+            assumed = f"{n.plan_rsd:.2%}{flag}"
+        else:
+            how = escape(n.problem or ("diluent" if s.diluent else
+                                       "no formula given: add formula = '...' to compute the mass"))
+            u, assumed = "—", f"{n.plan_rsd:.2%}"
+        t.add_row(n.id, conc, how, u, assumed)
+    out.print(t)
+    if with_recipe:
+        t = Table(title="Volumes needed (recipe + rinse + dead volume)")
+        for c in ("stock", "recipe / mL", "tubes", "needed / mL", "on hand / mL", ""):
+            t.add_column(c)
+        for n in needs:
+            ok = n.enough
+            mark = "" if ok is None else ("[green]enough[/green]" if ok else "[red]NOT ENOUGH: make more[/red]")
+            t.add_row(n.id, f"{n.recipe_mL:.2f}", str(n.deliveries), f"{n.needed_mL:.1f}",
+                      f"{n.on_hand_mL:g}" if n.on_hand_mL is not None else "—", mark)
         out.print(t)
 
 
@@ -219,18 +333,10 @@ def main() -> None:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("default")
-            app(standalone_mode=False)
+            app()  # standalone: usage errors already exit 2 with a message
     except errors as exc:
-        err.print(f"[red]error:[/red] {exc}", highlight=False, soft_wrap=True)
+        err.print(f"[red]error:[/red] {escape(str(exc))}", highlight=False, soft_wrap=True)
         sys.exit(2)
-    except typer.Exit as exc:
-        sys.exit(exc.exit_code)
-    except typer.Abort:
-        err.print("aborted")
-        sys.exit(1)
-    except __import__("click").ClickException as exc:
-        exc.show()
-        sys.exit(exc.exit_code)
 
 
 if __name__ == "__main__":  # pragma: no cover

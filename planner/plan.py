@@ -9,10 +9,10 @@ from __future__ import annotations
 
 import difflib
 import re
-import tomllib
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
+import tomllib
 from pydantic import (
     BaseModel,
     BeforeValidator,
@@ -63,8 +63,16 @@ def _vol(v: Any) -> float:
         raise ValueError(str(exc)) from None
 
 
+def _mass(v: Any) -> float:
+    try:
+        return parse_quantity(v, "mass")
+    except UnitError as exc:
+        raise ValueError(str(exc)) from None
+
+
 Conc = Annotated[float, BeforeValidator(_conc)]
 Volume = Annotated[float, BeforeValidator(_vol)]
+Mass = Annotated[float, BeforeValidator(_mass)]
 
 
 class _Strict(BaseModel):
@@ -163,6 +171,7 @@ class Stock(_Strict):
     reagent: str | None = None
     formula: str | None = None
     purity: float | None = Field(default=None, gt=0, le=1)
+    flask_mL: Volume | None = Field(default=None, alias="flask")
     diluent: bool = False
 
     @field_validator("conc")
@@ -201,6 +210,17 @@ class Flask(_Strict):
     tolerance_mL: Volume | None = Field(default=None, alias="tolerance")
 
 
+class Balance(_Strict):
+    readability_g: Mass = Field(default=1e-4, alias="readability")
+    repeatability_g: Mass = Field(default=1e-4, alias="repeatability")
+
+    @model_validator(mode="after")
+    def _positive(self) -> Balance:
+        if not (self.readability_g > 0 and self.repeatability_g > 0):
+            raise ValueError("readability and repeatability must be positive masses, e.g. '0.1 mg'")
+        return self
+
+
 class Dispenser(_Strict):
     kind: Literal["burette", "pipette", "graduated-pipette", "micropipette"]
     capacity_mL: Volume = Field(alias="capacity")
@@ -223,6 +243,9 @@ class Glassware(_Strict):
     step_mL: Volume = Field(default=0.05, alias="step")
     min_volume_mL: Volume = Field(default=0.0, alias="min_volume")
     rinse_mL: Volume = Field(default=2.0, alias="rinse")
+    dead_volume_mL: Volume = Field(default=1.0, alias="dead_volume")
+    delta_T_C: float = Field(default=0.0, ge=-30, le=30)
+    balance: Balance = Balance()
     dispenser: list[Dispenser] = Field(default_factory=list)
 
     @model_validator(mode="after")

@@ -1,0 +1,270 @@
+"""The error budget: covariance of the tubes' absorbances from every source, kept apart.
+
+Sources (domain.md §3):
+- photometric noise of each reading (three-term model), independent per tube;
+- each delivery's random error (reading, repeatability), independent per tube and delivery;
+- each device's calibration error, shared by every delivery from that device (burette, pipette);
+- the make-up volume (one flask per tube under ``to-mark``), independent per tube;
+- each stock's concentration error, systematic: shared by every tube made from that stock.
+
+They are pushed through the model linearly, with the analytic derivatives of
+:func:`planner.information.absorbance_derivatives` and the chain rule to volumes and stock
+concentrations (GUM JCGM 100:2008 §5, law of propagation of uncertainty).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import glassware
+from .information import absorbance_derivatives
+from .model import Model, TubeState
+from .plan import Plan, PlanError
+from .recipe import Recipe, RecipeError
+
+PARTS = ("photometric", "delivery", "stock")
+
+
+@dataclass(frozen=True)
+class Devices:
+    """The glassware that delivers each stock and makes up each tube.
+
+    Attributes
+    ----------
+    items : one GlasswareItem per dispenser in the plan (plan order).
+    stock_device : (k,) index into ``items`` for every stock, −1 for none (e.g. a to-mark diluent).
+    flask : the flask each tube is made up in, or None under ``make_up = "added"``.
+    """
+
+    items: tuple[glassware.GlasswareItem, ...]
+    stock_device: np.ndarray
+    flask: glassware.GlasswareItem | None
+
+
+def plan_devices(plan: Plan) -> Devices:
+    """Look every dispenser (and the make-up flask) up in the glassware catalogue.
+
+    Raises
+    ------
+    PlanError
+        When the catalogue has no such device (naming the dispenser and the sizes it has).
+    """
+    items = []
+    for j, d in enumerate(plan.glassware.dispenser):
+        try:
+            items.append(glassware.lookup(d.kind, d.capacity_mL, d.cls, d.tolerance_mL))
+        except glassware.GlasswareError as exc:
+            raise PlanError(f"glassware.dispenser[{j}]", f"{exc}; or give tolerance = '...' to describe it") from None
+    dev = np.full(len(plan.stock), -1, dtype=int)
+    for k, s in enumerate(plan.stock):
+        for j, d in enumerate(plan.glassware.dispenser):
+            if s.id in d.stocks:
+                dev[k] = j
+                break
+    flask = None
+    if plan.glassware.make_up == "to-mark":
+        f = plan.glassware.flask
+        cap = f.capacity_mL if f else plan.glassware.tube_volume_mL
+        try:
+            flask = glassware.lookup("flask", cap, f.cls if f else "A", f.tolerance_mL if f else None)
+        except glassware.GlasswareError as exc:
+            raise PlanError("glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}") from None
+        if abs(flask.capacity_mL - plan.glassware.tube_volume_mL) > 1e-9 * flask.capacity_mL:
+            raise PlanError("glassware.flask",
+                            f"a {flask.capacity_mL:g} mL flask cannot make up {plan.glassware.tube_volume_mL:g} mL "
+                            f"tubes: make tube_volume and the flask capacity equal")
+    return Devices(tuple(items), dev, flask)
+
+
+def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = None) -> list[tuple[str, str]]:
+    """Every way the recipe does not fit the glassware: (key, message) pairs, empty if it fits.
+
+    Checks: a dispensed stock with no dispenser, volumes off the plan's grid, below ``min_volume``,
+    more than the device's capacity in one delivery, or a one-mark pipette asked for another volume.
+    """
+    devices = devices or plan_devices(plan)
+    g = plan.glassware
+    out: list[tuple[str, str]] = []
+    for sid in recipe.dispensed_ids(plan):
+        k = recipe.stock_ids.index(sid)
+        v = recipe.volumes_mL[:, k]
+        used = v > 0
+        if not used.any():
+            continue
+        tubes = [t for t, u in zip(recipe.tubes, used, strict=True) if u]
+        j = devices.stock_device[k]
+        if j < 0:
+            out.append((f"stock {sid}", "no dispenser delivers it: add its id to a [[glassware.dispenser]] stocks list"))
+            continue
+        item = devices.items[j]
+        off = used & ~glassware.on_grid(v, g.step_mL)
+        if off.any():
+            bad = [f"{t} ({x:g} mL)" for t, x, o in zip(recipe.tubes, v, off, strict=True) if o]
+            out.append((f"stock {sid}", f"volumes off the {g.step_mL:g} mL grid in {', '.join(bad[:4])}"
+                        f"{' …' if len(bad) > 4 else ''}: round them to the grid"))
+        small = used & (v < g.min_volume_mL - 1e-12)
+        if small.any():
+            bad = [t for t, s in zip(recipe.tubes, small, strict=True) if s]
+            out.append((f"stock {sid}", f"below min_volume = {g.min_volume_mL:g} mL in {', '.join(bad[:4])}: "
+                        f"use a more dilute stock or a smaller dispenser"))
+        over = used & (v > item.capacity_mL * (1 + 1e-9))
+        if over.any():
+            bad = [t for t, o in zip(recipe.tubes, over, strict=True) if o]
+            out.append((f"stock {sid}", f"more than the {item.label} holds ({item.capacity_mL:g} mL) in "
+                        f"{', '.join(bad[:4])}: use a larger device or a more concentrated stock"))
+        if item.kind == "pipette":
+            wrong = used & (np.abs(v - item.capacity_mL) > 1e-9 * item.capacity_mL)
+            if wrong.any():
+                bad = [t for t, w in zip(recipe.tubes, wrong, strict=True) if w]
+                out.append((f"stock {sid}", f"a one-mark pipette delivers only {item.capacity_mL:g} mL "
+                            f"(asked otherwise in {', '.join(bad[:4])}): use a burette or graduated pipette"))
+        del tubes
+    return out
+
+
+def require_glassware_fits(plan: Plan, recipe: Recipe, devices: Devices | None = None) -> None:
+    """Raise :class:`RecipeError` for the first glassware problem of the recipe."""
+    problems = glassware_problems(plan, recipe, devices)
+    if problems:
+        raise RecipeError(*problems[0])
+
+
+@dataclass(frozen=True)
+class ErrorBudget:
+    """Covariance of the n absorbance readings, by source.
+
+    Attributes
+    ----------
+    photometric : (n, n) diagonal: photometric noise of each reading.
+    delivery_random : (n, n) diagonal: random delivery errors and the make-up flask.
+    delivery_systematic : (n, n) rank ≤ number of devices: calibration errors shared per device.
+    stock : (n, n) rank ≤ number of stocks: stock concentration errors shared across tubes.
+    J_stock : (n, k) dA_i per 1-sd error of stock k's concentration (the stock factors).
+    J_device : (n, d) dA_i per 1-sd calibration error of device d.
+    """
+
+    photometric: np.ndarray
+    delivery_random: np.ndarray
+    delivery_systematic: np.ndarray
+    stock: np.ndarray
+    J_stock: np.ndarray
+    J_device: np.ndarray
+
+    @property
+    def delivery(self) -> np.ndarray:
+        return self.delivery_random + self.delivery_systematic
+
+    @property
+    def total(self) -> np.ndarray:
+        return self.photometric + self.delivery + self.stock
+
+    @property
+    def independent(self) -> np.ndarray:
+        """The per-tube (diagonal) part: photometric + random delivery."""
+        return self.photometric + self.delivery_random
+
+    def sd_parts(self) -> dict[str, np.ndarray]:
+        """(n,) sd of each tube's absorbance from each part (their squares add up to the total)."""
+        return {"photometric": np.sqrt(np.diag(self.photometric)),
+                "delivery": np.sqrt(np.diag(self.delivery)),
+                "stock": np.sqrt(np.diag(self.stock))}
+
+    def __repr__(self) -> str:
+        sd = self.sd_parts()
+        return "ErrorBudget(" + ", ".join(f"{k} sd ≤ {v.max():.2g}" for k, v in sd.items()) + ")"
+
+
+def volume_derivatives(plan: Plan, recipe: Recipe, dA_dtotals: np.ndarray, stock_conc_M: np.ndarray):
+    """dA_i/dV_ik for every stock (n, k) and dA_i/dV_total,i (n,) (make-up volume).
+
+    Under ``to-mark`` the total volume is the flask's; under ``added`` it is the sum of the volumes, so a
+    delivery also dilutes everything else.
+    """
+    V = recipe.total_volume_mL
+    tot = (recipe.volumes_mL @ stock_conc_M) / V[:, None]                     # (n, 2)
+    dA_dV = (dA_dtotals @ stock_conc_M.T) / V[:, None]                          # (n, k)
+    dA_dVtot = -np.sum(dA_dtotals * tot, axis=-1) / V                           # (n,)
+    if plan.glassware.make_up == "added":
+        dA_dV = dA_dV + dA_dVtot[:, None]
+    return dA_dV, dA_dVtot
+
+
+@dataclass(frozen=True)
+class DeliverySds:
+    """Standard uncertainties of every volume in a recipe.
+
+    Attributes
+    ----------
+    random_mL : (n, k) independent per tube and delivery.
+    systematic_mL : (n, k) calibration part, fully correlated across deliveries of the same device.
+    flask_mL : sd of each tube's make-up volume (0 under ``added``).
+    """
+
+    random_mL: np.ndarray
+    systematic_mL: np.ndarray
+    flask_mL: float
+
+
+def delivery_sds(plan: Plan, recipe: Recipe, devices: Devices, *, delta_T_C: float | None = None) -> DeliverySds:
+    """Random and systematic sd of every (tube, stock) volume, and of the make-up volume."""
+    dT = plan.glassware.delta_T_C if delta_T_C is None else delta_T_C
+    n, k = recipe.volumes_mL.shape
+    u_rand = np.zeros((n, k))
+    u_sys = np.zeros((n, k))
+    dispensed = recipe.dispensed_ids(plan)
+    for kk, sid in enumerate(recipe.stock_ids):  # a handful of stocks; each vectorised over tubes
+        j = devices.stock_device[kk]
+        if sid not in dispensed or j < 0:
+            continue
+        item = devices.items[j]
+        v = recipe.volumes_mL[:, kk]
+        if item.kind == "pipette":
+            # a one-mark pipette may be used several times for a multiple of its volume
+            reps = np.round(v / item.capacity_mL)
+            du = glassware.delivery_uncertainty(item, np.where(reps > 0, item.capacity_mL, 0.0), delta_T_C=dT)
+            u_rand[:, kk] = du.random_mL * np.sqrt(reps)
+            u_sys[:, kk] = du.systematic_mL * reps
+            continue
+        one = np.minimum(v, item.capacity_mL)
+        du = glassware.delivery_uncertainty(item, one, delta_T_C=dT)
+        # a volume beyond capacity needs refills: each refill is another delivery
+        refills = np.maximum(np.ceil(v / item.capacity_mL - 1e-9), 1.0)
+        u_rand[:, kk] = np.where(v > 0, du.random_mL * np.sqrt(refills), 0.0)
+        u_sys[:, kk] = np.where(v > 0, du.systematic_mL * v / np.where(one > 0, one, 1.0), 0.0)
+    u_flask = 0.0
+    if devices.flask is not None:
+        u_flask = float(glassware.flask_volume_uncertainty(devices.flask, delta_T_C=dT))
+    return DeliverySds(u_rand, u_sys, u_flask)
+
+
+def error_budget(plan: Plan, model: Model, recipe: Recipe, state: TubeState,
+                 devices: Devices | None = None, *, delta_T_C: float | None = None) -> ErrorBudget:
+    """Propagate every error source to the covariance of the tubes' absorbances.
+
+    Parameters
+    ----------
+    delta_T_C : lab temperature minus the glassware's calibration temperature (default: the plan's).
+    """
+    devices = devices or plan_devices(plan)
+    n, k = recipe.volumes_mL.shape
+    der = absorbance_derivatives(model, state)
+    dA_dV, dA_dVtot = volume_derivatives(plan, recipe, der.dA_dtotals, model.stock_conc_M)
+    sds = delivery_sds(plan, recipe, devices, delta_T_C=delta_T_C)
+    var_rand = np.sum((dA_dV * sds.random_mL) ** 2, axis=1) + (dA_dVtot * sds.flask_mL) ** 2
+    # one column per device: its calibration error is common to all its deliveries
+    nd = len(devices.items)
+    onehot = (devices.stock_device[:, None] == np.arange(nd)[None, :]).astype(float)   # (k, d)
+    J_dev = (dA_dV * sds.systematic_mL) @ onehot
+    # stock concentration factors: dA/dC_k · C_k · rsd_k
+    J_stock = (der.dA_dtotals @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T) \
+        * recipe.volumes_mL / recipe.total_volume_mL[:, None]
+    return ErrorBudget(
+        photometric=np.diag(state.absorbance_sd**2),
+        delivery_random=np.diag(var_rand),
+        delivery_systematic=J_dev @ J_dev.T,
+        stock=J_stock @ J_stock.T,
+        J_stock=J_stock,
+        J_device=J_dev,
+    )
