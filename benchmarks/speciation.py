@@ -1,0 +1,121 @@
+"""Speed of planner.chemistry.speciate against plain per-tube scipy root finding, measured in one run.
+
+System: M + L with ML (log beta1 = 4) and ML2 (log beta2 = 7); totals log-uniform over 1e-7..1e-1 M,
+seeded. The vectorised solver does 1e6 tubes; the baselines loop over the first 1e3 tubes:
+
+* ``scipy.optimize.root`` (MINPACK hybrd) on the two mass balances in (ln[M], ln[L]), written as log
+  ratios ln(computed/given total) so the default tolerance means a relative accuracy;
+* ``scipy.optimize.brentq`` on the one-dimensional free-ligand balance (possible here because every
+  species has p <= 1, so [M] = M_tot / (1 + beta1 [L] + beta2 [L]^2)), a stricter baseline.
+
+Prints time per tube for each, the ratios, and the largest relative difference of [ML] and [ML2]
+between the solver and each baseline. Run: ``python benchmarks/speciation.py [--tubes N]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import time
+
+import numpy as np
+from scipy import optimize
+
+from planner.chemistry import speciate
+
+STOICH = np.array([[1, 1], [1, 2]])
+LOG_BETA = np.array([4.0, 7.0])
+
+
+def totals(n_tubes: int, rng: np.random.Generator):
+    M = 10.0 ** rng.uniform(-7.0, -1.0, n_tubes)
+    L = 10.0 ** rng.uniform(-7.0, -1.0, n_tubes)
+    return M, L
+
+
+def _lse(*terms: float) -> float:
+    top = max(terms)
+    return top + math.log(sum(math.exp(t - top) for t in terms))
+
+
+def species_root(M: float, L: float) -> np.ndarray:
+    b1, b2 = 10.0 ** LOG_BETA
+    lb1, lb2 = LOG_BETA * math.log(10.0)
+    lnM, lnL, ln2 = math.log(M), math.log(L), math.log(2.0)
+
+    def resid(u):
+        x, y = float(u[0]), float(u[1])
+        # log-sum-exp keeps trial points far from the root finite
+        return [_lse(x, lb1 + x + y, lb2 + x + 2.0 * y) - lnM, _lse(y, lb1 + x + y, ln2 + lb2 + x + 2.0 * y) - lnL]
+
+    sol = optimize.root(resid, [math.log(M), math.log(L)], method="hybr", options={"xtol": 1e-13})
+    m, lf = math.exp(sol.x[0]), math.exp(sol.x[1])
+    return np.array([b1 * m * lf, b2 * m * lf * lf])
+
+
+def species_brentq(M: float, L: float) -> np.ndarray:
+    b1, b2 = 10.0 ** LOG_BETA
+
+    def h(lnl):
+        lf = math.exp(lnl)
+        m = M / (1.0 + b1 * lf + b2 * lf * lf)
+        return lf + b1 * m * lf + 2.0 * b2 * m * lf * lf - L
+
+    lnl = optimize.brentq(h, math.log(L) - 60.0, math.log(L), xtol=1e-14, rtol=1e-15)
+    lf = math.exp(lnl)
+    m = M / (1.0 + b1 * lf + b2 * lf * lf)
+    return np.array([b1 * m * lf, b2 * m * lf * lf])
+
+
+def best_time(fn, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return min(times)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--tubes", type=int, default=1_000_000)
+    parser.add_argument("--baseline-tubes", type=int, default=1_000)
+    parser.add_argument("--repeats", type=int, default=3)
+    args = parser.parse_args()
+
+    rng = np.random.default_rng(20240611)
+    M, L = totals(args.tubes, rng)
+    nb = min(args.baseline_tubes, args.tubes)
+
+    speciate(M[:1000], L[:1000], STOICH, LOG_BETA)  # warm-up (imports, caches)
+    result = {}
+
+    def run_vectorised():
+        result["spec"] = speciate(M, L, STOICH, LOG_BETA)
+
+    t_vec = best_time(run_vectorised, args.repeats)
+    ours = result["spec"].species_M[:nb]
+
+    t0 = time.perf_counter()
+    ref_root = np.array([species_root(M[i], L[i]) for i in range(nb)])
+    t_root = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    ref_brentq = np.array([species_brentq(M[i], L[i]) for i in range(nb)])
+    t_brentq = time.perf_counter() - t0
+
+    per_vec = t_vec / args.tubes
+    per_root = t_root / nb
+    per_brentq = t_brentq / nb
+    print(f"speciate, {args.tubes} tubes: {t_vec:.3f} s total, {per_vec * 1e6:.3f} us per tube "
+          f"(best of {args.repeats})")
+    print(f"scipy.optimize.root loop, {nb} tubes: {per_root * 1e6:.1f} us per tube; "
+          f"speed-up {per_root / per_vec:.0f}x")
+    print(f"scipy.optimize.brentq loop, {nb} tubes: {per_brentq * 1e6:.1f} us per tube; "
+          f"speed-up {per_brentq / per_vec:.0f}x")
+    for name, ref in (("root", ref_root), ("brentq", ref_brentq)):
+        rel = np.max(np.abs(ours - ref) / np.maximum(ref, 1e-300))
+        print(f"max relative difference of [ML], [ML2] vs {name}: {rel:.2e}")
+
+
+if __name__ == "__main__":
+    main()
