@@ -113,7 +113,8 @@ def conversion(model: Model, state: TubeState, tubes, target: str) -> Check:
     limiting_is_L = L0 < M0
     frac = np.where(limiting_is_L, q * state.species_M[:, j] / np.where(L0 > 0, L0, 1),
                     p * state.species_M[:, j] / np.where(M0 > 0, M0, 1))
-    worst = int(np.flatnonzero(cand)[np.argmin(frac[cand])])
+    # the hand analysis calibrates on the tube with the largest excess
+    worst = int(np.flatnonzero(cand)[np.argmax(ratio[cand])])
     f = float(frac[worst])
     if f >= CONVERSION_WANTED:
         return Check("conversion", "pass", f"calibration tube {tubes[worst]} is {f:.1%} converted")

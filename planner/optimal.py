@@ -487,9 +487,10 @@ def _grad_hess(prob: _Problem, Linv: np.ndarray, S: np.ndarray):
     b = (y * y).reshape(G, m, R).sum(axis=2)
     d = n * ((prob.nu / v) @ b)
     yKy = (y[:, :, None] * K * y[:, None, :]).reshape(G, m, R, m, R).sum(axis=(2, 4))
-    H = n * n * (
-        np.einsum("g,gab->ab", 2.0 * prob.nu / v, yKy)
-        - np.einsum("g,ga,gb->ab", prob.nu / v**2, b, b)
+    H = (
+        n
+        * n
+        * (np.einsum("g,gab->ab", 2.0 * prob.nu / v, yKy) - np.einsum("g,ga,gb->ab", prob.nu / v**2, b, b))
     )
     return -d, H
 
@@ -791,8 +792,10 @@ class _State:
             return -np.einsum("g,gmc->mc", nu, _small_logdet(np.concatenate([top, bottom], axis=3)))
         bottom = np.concatenate([Aji.transpose(0, 1, 2, 4, 3), Aii - eye], axis=4)
         K = np.concatenate([top, bottom], axis=3)
-        beta = np.concatenate([np.broadcast_to(bj[:, None], (G, m, c, R)),
-                               np.broadcast_to(bi[:, :, None], (G, m, c, R))], axis=3)
+        beta = np.concatenate(
+            [np.broadcast_to(bj[:, None], (G, m, c, R)), np.broadcast_to(bi[:, :, None], (G, m, c, R))],
+            axis=3,
+        )
         ok = np.isfinite(_small_logdet(eye - Aii))
         v_new = np.where(ok, self.v[:, None, None] - _small_quad_inv(K, beta), np.inf)
         return np.einsum("g,gmc->mc", nu, self._log_ratio(v_new))
@@ -922,15 +925,23 @@ def approximate_design(
     -------
     ApproximateDesign
     """
-    prob = _problem(F, criterion, target, M0, node_weights, 1.0 if n_tubes is None else float(n_tubes),
-                    n_tubes is not None)
+    prob = _problem(
+        F,
+        criterion,
+        target,
+        M0,
+        node_weights,
+        1.0 if n_tubes is None else float(n_tubes),
+        n_tubes is not None,
+    )
     if not (isinstance(max_iter, (int, np.integer)) and max_iter >= 1):
         raise DesignError(f"max_iter must be a positive integer (got {max_iter!r})")
     if not (tol > 0):
         raise DesignError(f"tol must be positive (got {tol!r})")
     w, loss, max_d, bound, it, conv, Linv = _approximate(prob, int(max_iter), float(tol))
-    return ApproximateDesign(w, _value(prob, loss, Linv), max_d, bound, it, conv, criterion, prob.target,
-                             prob.n, prob.P)
+    return ApproximateDesign(
+        w, _value(prob, loss, Linv), max_d, bound, it, conv, criterion, prob.target, prob.n, prob.P
+    )
 
 
 def sensitivity(
@@ -966,8 +977,9 @@ def sensitivity(
     return _sens(prob, Linv)
 
 
-def criterion_of_counts(F, counts, *, criterion: str, target: int | None = None, M0=None,
-                        node_weights=None) -> float:
+def criterion_of_counts(
+    F, counts, *, criterion: str, target: int | None = None, M0=None, node_weights=None
+) -> float:
     """Per-tube criterion value of a design of ``n = Σ counts`` tubes (module docstring).
 
     ``counts`` may be real (an approximate design scaled to n tubes), e.g. ``n · weights``.
@@ -1034,23 +1046,31 @@ def exact_design(
     n = int(n_tubes)
     prob = _problem(F, criterion, target, M0, node_weights, float(n), True)
     if criterion == "all":
-        rank0 = 0 if not prob.has_prior else int(np.linalg.matrix_rank(np.asarray(M0, dtype=float)
-                                                                       .reshape(-1, prob.P, prob.P)).min())
+        rank0 = (
+            0
+            if not prob.has_prior
+            else int(np.linalg.matrix_rank(np.asarray(M0, dtype=float).reshape(-1, prob.P, prob.P)).min())
+        )
         if rank0 + n * prob.R < prob.P:
             raise DesignError(
                 f"{n} tubes × {prob.R} reading(s) cannot determine {prob.P} parameters; use at least "
                 f"{-(-(prob.P - rank0) // prob.R)} tubes or add prior information M0"
             )
     if approx is None:
-        approx = approximate_design(F, criterion=criterion, target=target, M0=M0, node_weights=node_weights,
-                                    n_tubes=n)
+        approx = approximate_design(
+            F, criterion=criterion, target=target, M0=M0, node_weights=node_weights, n_tubes=n
+        )
     else:
         if approx.weights.shape != (prob.C,) or approx.criterion != criterion or approx.target != prob.target:
-            raise DesignError("approx was computed for another problem; pass the approximate design of this "
-                              "F, criterion and target (or omit it)")
+            raise DesignError(
+                "approx was computed for another problem; pass the approximate design of this "
+                "F, criterion and target (or omit it)"
+            )
         if prob.has_prior and not np.isclose(approx.n_tubes, n):
-            raise DesignError(f"approx was computed for {approx.n_tubes:g} tubes but n_tubes={n}; with M0 the "
-                              f"optimum depends on n: recompute it with n_tubes={n}")
+            raise DesignError(
+                f"approx was computed for {approx.n_tubes:g} tubes but n_tubes={n}; with M0 the "
+                f"optimum depends on n: recompute it with n_tubes={n}"
+            )
     w = approx.weights
     # Reference: the approximate design's loss at this n (identical scaling and ridge).
     sup_w = np.flatnonzero(w)

@@ -26,6 +26,7 @@ from .simulate import simulate
 CHI2_95_1DOF = 3.841458820694124  # source: χ²(1) 95 % quantile (scipy.stats.chi2.ppf(0.95, 1))
 PROFILE_SPAN = 10.0  # log10 units each side of the guess taken as "K -> 0" and "K -> ∞"
 MC_AGREEMENT = 0.20  # Monte-Carlo sd must be within 20 % of the Cramér–Rao SE to confirm it
+LOG_BETA_RANGE = (-20.0, 45.0)  # beyond these no absorbance experiment tells constants apart
 
 
 @dataclass(frozen=True)
@@ -124,21 +125,37 @@ class ReadingModel:
     totals_M: np.ndarray
     ions_M: np.ndarray
 
+    def bounds(self) -> tuple[np.ndarray, np.ndarray]:
+        """Box for the fit: log β within LOG_BETA_RANGE, ε ≥ 0."""
+        lo = np.full(self.params.size, -np.inf)
+        hi = np.full(self.params.size, np.inf)
+        k = self.params.kind
+        lo[k == 0] = LOG_BETA_RANGE[0]
+        hi[k == 0] = LOG_BETA_RANGE[1]
+        lo[k == 1] = 0.0
+        return lo, hi
+
     def _state(self, theta):
         T = theta.shape[0]
+        # trial points outside the box (wild LM steps) are evaluated at the guess and returned as NaN,
+        # which the fit rejects, instead of asking the equilibrium solver for absurd constants
+        lo, hi = self.bounds()
+        wild = np.any((theta < lo) | (theta > hi) | ~np.isfinite(theta), axis=1)
+        if wild.any():
+            theta = np.where(wild[:, None], self.params.guess, theta)
         lb, eps, blank = unpack(self.model, self.params, theta)
         tot = np.broadcast_to(self.totals_M, (T,) + self.totals_M.shape)
         ions = np.broadcast_to(self.ions_M, (T,) + self.ions_M.shape)
         st = predict(self.model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False)
-        return st, eps, blank
+        return st, eps, blank, wild
 
     def f(self, theta: np.ndarray) -> np.ndarray:
-        st, _, blank = self._state(np.atleast_2d(theta))
-        return st.absorbance + blank[:, None]
+        st, _, blank, wild = self._state(np.atleast_2d(theta))
+        return np.where(wild[:, None], np.nan, st.absorbance + blank[:, None])
 
     def jac(self, theta: np.ndarray) -> np.ndarray:
         theta = np.atleast_2d(theta)
-        st, eps, _ = self._state(theta)
+        st, eps, _, _ = self._state(theta)
         der = absorbance_derivatives(self.model, st, eps)
         cols = []
         for p in range(self.params.size):
@@ -235,7 +252,9 @@ def monte_carlo(plan: Plan, model: Model, recipe: Recipe, devices: Devices, read
         m = min(chunk, n_trials - done)
         sim = simulate(plan, model, recipe, devices, rng, m, log_beta=lb, epsilon_M_cm=eps)
         theta0 = np.broadcast_to(params.guess, (m, params.size)).copy()
-        res = fit_many(reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False)
+        lo, hi = reading.bounds()
+        res = fit_many(reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False,
+                       lower=lo, upper=hi)
         est[done:done + m] = np.where(res.converged[:, None], res.theta, np.nan)
         ok[done:done + m] = res.converged & np.all(np.isfinite(res.theta), axis=1)
         done += m
@@ -300,7 +319,9 @@ def profile(reading: ReadingModel, W: np.ndarray, true_theta: np.ndarray, *, n_g
             return reading.jac(full(theta_sub))[..., others]
 
         theta0 = np.broadcast_to(true_theta[others], (G, len(others))).copy()
-        res = fit_many(f, theta0, np.broadcast_to(y0, (G, y0.size)), jac=jac, whiten=W, scale_cov=False)
+        lo, hi = reading.bounds()
+        res = fit_many(f, theta0, np.broadcast_to(y0, (G, y0.size)), jac=jac, whiten=W, scale_cov=False,
+                       lower=lo[others], upper=hi[others])
         chi2 = np.where(np.isfinite(res.chi2), res.chi2, np.inf)
     # noise-free data: χ² at the truth is 0, so χ² itself is the Δχ² of the profile
     return Profile(grid, chi2, bool(chi2[0] < CHI2_95_1DOF), bool(chi2[-1] < CHI2_95_1DOF))

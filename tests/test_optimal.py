@@ -465,8 +465,8 @@ def test_known_parameter_via_prior_gives_single_point_design():
     F = hyperbolic(GRID)
     M0 = np.diag([1e10, 0.0])  # a known amplitude a
     ad = approximate_design(F, criterion="all", M0=M0, n_tubes=10)
-    # derived: with a known, the information on K is ∝ (x/(1 + Kx))², largest at x = 1/K ... on [0, X]
-    # the maximiser of x/(1 + Kx)² is x = 1/K = 0.005 M
+    # derived: with a known, the information on K is (∂y/∂K)² = (a x/(1 + Kx)²)², whose maximiser on
+    # [0, X] is x = 1/K = 0.005 M, so the D-optimal design is a single point there
     w_near, mean = weight_near(GRID, ad.weights, 1 / K_M, H)
     assert w_near == pytest.approx(1.0, abs=1e-3)
     assert abs(mean - 1 / K_M) <= H

@@ -1,0 +1,133 @@
+"""The command line as a user meets it: exit codes, one-line errors, files written atomically."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import pytest
+
+from planner import cli
+from planner.files import write_atomic
+
+from .conftest import ROOT
+
+
+def run(capsys, monkeypatch, *args) -> tuple[int, str, str]:
+    monkeypatch.setattr(sys, "argv", ["kplan", *map(str, args)])
+    monkeypatch.setenv("COLUMNS", "200")
+    code = 0
+    try:
+        cli.main()
+    except SystemExit as exc:
+        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+    cap = capsys.readouterr()
+    return code, cap.out, cap.err
+
+
+def test_help(capsys, monkeypatch):
+    code, out, _ = run(capsys, monkeypatch, "--help")
+    assert code == 0 and "assess" in out and "demo" in out
+
+
+def test_demo_writes_files(tmp_path, capsys, monkeypatch):
+    code, out, err = run(capsys, monkeypatch, "demo", "--out", tmp_path / "d")
+    assert code == 0, err
+    for name in ("plan.toml", "recipe.csv", "assessment.json"):
+        assert (tmp_path / "d" / name).is_file()
+    data = json.loads((tmp_path / "d" / "assessment.json").read_text())
+    assert data["tubes"] and data["verdict"] in ("resolved", "bounded", "unresolved")
+    assert "Wrote" in out
+
+
+def test_new_then_check(tmp_path, capsys, monkeypatch):
+    for name in cli.SCENARIOS:
+        path = tmp_path / f"{name}.toml"
+        code, out, err = run(capsys, monkeypatch, "new", path, "--scenario", name)
+        assert code == 0, err
+        code, out, err = run(capsys, monkeypatch, "check", path)
+        assert code == 0 and "plan OK" in out, err
+    code, _, err = run(capsys, monkeypatch, "new", tmp_path / "teaching.toml")
+    assert code == 2 and "exists" in err
+
+
+def test_new_unknown_scenario(tmp_path, capsys, monkeypatch):
+    code, _, err = run(capsys, monkeypatch, "new", tmp_path / "x.toml", "--scenario", "nope")
+    assert code == 2 and "unknown scenario" in err and not (tmp_path / "x.toml").exists()
+
+
+@pytest.mark.parametrize("old,new,needle", [
+    ('wavelength_nm = 580', 'wavelength_nm = = 580', "TOML syntax error"),
+    ('conc = { M = "10.0 mM" }', 'conc = { M = "10.0 mQ" }', "stock[0].conc.M"),
+    ('stocks = ["CU", "DY"]', 'stocks = ["CU", "DX"]', "glassware.dispenser[0].stocks[1]"),
+    ("wavelength_nm = 580", "wavelenght_nm = 580\nwavelength_nm = 580", "did you mean 'wavelength_nm'"),
+])
+def test_bad_plan_one_line_exit_2(tmp_path, capsys, monkeypatch, teaching_text, old, new, needle):
+    plan = tmp_path / "bad.toml"
+    plan.write_text(teaching_text.replace(old, new))
+    code, out, err = run(capsys, monkeypatch, "check", plan)
+    assert code == 2
+    assert needle in err and "Traceback" not in err and len(err.strip().splitlines()) <= 3
+
+
+def test_assess_json(tmp_path, capsys, monkeypatch):
+    code, out, err = run(capsys, monkeypatch, "assess", ROOT / "examples" / "cuvette-1to1.toml",
+                         ROOT / "examples" / "cuvette-1to1.csv", "--json", "--trials", "100")
+    assert code == 0, err
+    data = json.loads(out)
+    assert {"title", "verdict", "parameters", "tubes", "checks"} <= data.keys()
+
+
+def test_assess_bad_recipe(tmp_path, capsys, monkeypatch):
+    bad = tmp_path / "r.csv"
+    bad.write_text("tube,CU,DX\nT1,1,1\n")
+    code, _, err = run(capsys, monkeypatch, "assess", ROOT / "planner/data/scenarios/teaching.toml", bad)
+    assert code == 2 and "unknown stock 'DX'" in err
+
+
+def test_assess_bad_at(capsys, monkeypatch, tmp_path):
+    code, _, err = run(capsys, monkeypatch, "assess", ROOT / "examples/cuvette-1to1.toml",
+                       ROOT / "examples/cuvette-1to1.csv", "--at", "MX=3")
+    assert code == 2 and "unknown species 'MX'" in err
+    code, _, err = run(capsys, monkeypatch, "assess", ROOT / "examples/cuvette-1to1.toml",
+                       ROOT / "examples/cuvette-1to1.csv", "--at", "ML")
+    assert code == 2 and "NAME=LOGBETA" in err
+
+
+def test_stocks_command(capsys, monkeypatch):
+    code, out, err = run(capsys, monkeypatch, "stocks", ROOT / "planner/data/scenarios/teaching.toml")
+    assert code == 0, err
+    assert "Cu(NO3)2.3H2O" in out and "weigh" in out
+
+
+def test_atomic_write_leaves_nothing_on_failure(tmp_path, monkeypatch):
+    target = tmp_path / "out.txt"
+    target.write_text("old")
+
+    def boom(*a, **k):
+        raise OSError("disk full")
+
+    monkeypatch.setattr("planner.files.os.replace", boom)
+    with pytest.raises(OSError):
+        write_atomic(target, "new")
+    assert target.read_text() == "old"
+    assert [p.name for p in tmp_path.iterdir()] == ["out.txt"]
+
+
+def test_module_entry_point():
+    import subprocess
+
+    res = subprocess.run([sys.executable, "-m", "planner", "--help"], capture_output=True, text=True, timeout=120)
+    assert res.returncode == 0 and "kplan" in res.stdout.lower() or "Usage" in res.stdout
+
+
+def test_examples_are_checked_and_assessed(capsys, monkeypatch):
+    plans = sorted((ROOT / "examples").glob("*.toml"))
+    assert len(plans) >= 3
+    for p in plans:
+        csv = p.with_suffix(".csv")
+        code, out, err = run(capsys, monkeypatch, "assess", p, csv, "--trials", "100", "--json")
+        assert code == 0, (p, err)
+        data = json.loads(out)
+        assert len(data["tubes"]) == len(Path(csv).read_text().strip().splitlines()) - 1
