@@ -21,6 +21,7 @@ __all__ = [
     "ActivityWarning",
     "DAVIES_A_25C",
     "DAVIES_MAX_I_M",
+    "H_SIZE_ANGSTROM",
     "MODELS",
     "debye_huckel_A",
     "debye_huckel_B",
@@ -37,7 +38,9 @@ DAVIES_A_25C = 0.509
 # 0.1-0.5 M); a warning is raised.
 DAVIES_MAX_I_M = 0.5
 # the activity models accepted by log_beta_at_ionic_strength / log_beta_to_zero_ionic_strength
-MODELS = ("davies", "extended_dh")
+MODELS = ("davies", "extended-dh", "none")
+# ion size of H+ in Kielland's table (Kielland 1937, JACS 59:1675), used when no size is given for it
+H_SIZE_ANGSTROM = 9.0
 
 # CODATA 2018 exact / recommended values (SI)
 _E_C = 1.602176634e-19  # elementary charge, C
@@ -200,7 +203,7 @@ def extended_dh_log_gamma(z, I_M, a_angstrom, A=0.5085, B=0.3281) -> np.ndarray:
     return -A * z * z * sI / (1.0 + B * a * sI)
 
 
-def _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, a_angstrom):
+def _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, sizes_angstrom):
     """p log g_M + q log g_L + r log g_H - log g_s, shape I_M.shape + (S,)."""
     st = np.asarray(stoich_pqr)
     if st.ndim != 2 or st.shape[1] != 3:
@@ -219,32 +222,44 @@ def _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, a_angs
     z_all = np.concatenate([zs, z_species])  # M, L, H, then each species
     I_M = _check_I(I_M)
     Ib = I_M[..., None]
+    S = st.shape[0]
+    if model == "none":
+        return np.zeros(I_M.shape + (S,))
     if model == "davies":
         lg = davies_log_gamma(z_all, Ib, A=A, temperature_C=temperature_C)
-    elif model == "extended_dh":
-        if a_angstrom is None:
-            raise ValueError(
-                "model='extended_dh' needs a_angstrom: one ion size (Angstrom) for all, or 3 + S values "
-                "in the order M, L, H, then each species"
-            )
-        a = np.broadcast_to(np.asarray(a_angstrom, dtype=float), z_all.shape) if np.ndim(a_angstrom) == 0 \
-            else np.asarray(a_angstrom, dtype=float)
-        if a.shape != z_all.shape:
-            raise ValueError(
-                f"a_angstrom must be a scalar or have 3 + S = {z_all.size} entries (M, L, H, species); "
-                f"got shape {a.shape}"
-            )
+    elif model == "extended-dh":
         lg = extended_dh_log_gamma(
-            z_all, Ib, a, A=0.5085 if A is None else A, B=0.3281 if B is None else B
+            z_all, Ib, _sizes(sizes_angstrom, S), A=0.5085 if A is None else A, B=0.3281 if B is None else B
         )
     else:
         raise ValueError(f"unknown activity model {model!r}; choose one of {', '.join(MODELS)}")
+    # a species' correction: sum of its components' log g (weights p, q, r) minus its own
     return lg[..., :3] @ st.T - lg[..., 3:]
+
+
+def _sizes(sizes_angstrom, S):
+    """Ion sizes in the order M, L, H, species from a scalar, 2 + S (no H) or 3 + S values."""
+    if sizes_angstrom is None:
+        raise ValueError(
+            "model='extended-dh' needs sizes_angstrom: one ion size (Angstrom) for all, 2 + S values "
+            "(M, L, then each species; H+ takes Kielland's 9 A) or 3 + S values (M, L, H, species)"
+        )
+    a = np.asarray(sizes_angstrom, dtype=float)
+    if a.ndim == 0:
+        return np.full(3 + S, float(a))
+    if a.shape == (2 + S,):
+        return np.concatenate([a[:2], [H_SIZE_ANGSTROM], a[2:]])
+    if a.shape == (3 + S,):
+        return a
+    raise ValueError(
+        f"sizes_angstrom must be a scalar, 2 + S = {2 + S} values (M, L, species) or 3 + S = {3 + S} "
+        f"values (M, L, H, species); got shape {a.shape}"
+    )
 
 
 def log_beta_at_ionic_strength(
     log_beta0, stoich_pqr, charges_MLH, I_M, model="davies", *, A=None, B=None, temperature_C=25.0,
-    a_angstrom=None,
+    sizes_angstrom=None,
 ) -> np.ndarray:
     """Convert thermodynamic (I -> 0) constants to a medium of ionic strength I.
 
@@ -262,29 +277,32 @@ def log_beta_at_ionic_strength(
         (z_M, z_L) or (z_M, z_L, z_H); z_H defaults to +1.
     I_M : array_like, shape (...)
         Ionic strength of each tube, mol/L.
-    model : {"davies", "extended_dh"}
+    model : {"davies", "extended-dh", "none"}
+        "none" applies no correction (constants used as given).
     A, B : float, optional
         Override the Debye-Hueckel constants (Davies uses A only).
     temperature_C : float
         For the default Davies A.
-    a_angstrom : float or array_like, optional
-        Ion sizes for "extended_dh": one for all ions, or 3 + S values (M, L, H, species...).
+    sizes_angstrom : float or array_like, optional
+        Ion sizes (Angstrom) for "extended-dh": one for all ions, 2 + S values (M, L, then each
+        species; H+ takes Kielland's 9 A) or 3 + S values (M, L, H, then each species). Ignored by
+        the other models.
 
     Returns
     -------
     numpy.ndarray, shape broadcast(log_beta0.shape, I_M.shape + (S,))
     """
-    corr = _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, a_angstrom)
+    corr = _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, sizes_angstrom)
     return np.asarray(log_beta0, dtype=float) + corr
 
 
 def log_beta_to_zero_ionic_strength(
     log_beta_I, stoich_pqr, charges_MLH, I_M, model="davies", *, A=None, B=None, temperature_C=25.0,
-    a_angstrom=None,
+    sizes_angstrom=None,
 ) -> np.ndarray:
     """The inverse of :func:`log_beta_at_ionic_strength`: constants measured at I back to I -> 0.
 
     log beta0 = log beta(I) - (p log g_M + q log g_L + r log g_H - log g_s); same parameters.
     """
-    corr = _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, a_angstrom)
+    corr = _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, sizes_angstrom)
     return np.asarray(log_beta_I, dtype=float) - corr

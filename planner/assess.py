@@ -224,7 +224,8 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
             prof = profile(reading, W, true_theta)
     check_list.append(chk.linear_range(model, state, recipe.tubes, band_sd))
     check_list.append(chk.saturation(state, recipe.tubes))
-    if model.complex_mask[model.index(target)]:
+    if model.complex_mask[model.index(target)] and model.complex_mask.sum() == 1:
+        # the 'complete conversion' shortcut only makes sense with a single M–L complex
         check_list.append(chk.conversion(model, state, recipe.tubes, target))
     if plan.design.analysis == "double-reciprocal":
         check_list.append(chk.double_reciprocal(state, recipe.tubes))

@@ -15,6 +15,7 @@ from rich.markup import escape
 from rich.table import Table
 
 from . import fmt
+from .optimal import CRITERIA as DESIGN_CRITERIA
 from .plan import PlanError, load_plan, parse_plan_text
 from .recipe import RecipeError, read_recipe_csv
 
@@ -29,6 +30,7 @@ out = Console()
 err = Console(stderr=True)
 
 SCENARIOS = ("teaching", "stepwise", "proton")
+
 DEMO_SCENARIO = "teaching"
 
 
@@ -40,7 +42,8 @@ def _user_errors() -> tuple[type[BaseException], ...]:
     from .chemistry import EquilibriumError
 
     extra: list[type[BaseException]] = [EquilibriumError]
-    for mod, name in (("glassware", "GlasswareError"), ("stocks", "StockError")):
+    for mod, name in (("glassware", "GlasswareError"), ("stocks", "StockError"), ("optimal", "DesignError"),
+                      ("fitting", "FitError")):
         try:
             extra.append(getattr(__import__(f"planner.{mod}", fromlist=[name]), name))
         except (ImportError, AttributeError):
@@ -241,6 +244,72 @@ def print_assessment(a, p) -> None:
                   *(fmt.conc(st.species_M[i, k]) for k in range(len(m.species))),
                   a_txt, f"{st.saturation[i]:.2f}", f"{st.ionic_strength_M[i]:.3g}")
     out.print(t)
+
+
+@app.command()
+def design(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and design.json")] = None,
+    tubes: Annotated[int | None, typer.Option(help="number of tubes (overrides design.tubes)", min=1)] = None,
+    criterion: Annotated[str | None, typer.Option(
+        help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)")] = None,
+    robust: Annotated[bool | None, typer.Option(
+        "--robust/--no-robust", help="average over the guesses' uncertainty (overrides design.robust)")] = None,
+    seed: Annotated[int, typer.Option(help="seed of the exchange algorithm's random starts")] = 0,
+    as_json: Annotated[bool, typer.Option("--json", help="print the design summary as JSON")] = False,
+) -> None:
+    """Choose tube volumes on the glassware's grid that resolve K as precisely as possible."""
+    from .design import design as run_design
+    from .files import write_atomic
+    from .recipe import recipe_to_csv
+
+    if criterion is not None and criterion not in DESIGN_CRITERIA:
+        raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
+    p = load_plan(plan)
+    d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
+    summary = d.summary()
+    if out_dir is not None:
+        write_atomic(out_dir / "recipe.csv", recipe_to_csv(d.recipe, p))
+        write_atomic(out_dir / "design.json", json.dumps(summary, indent=2) + "\n")
+    if as_json:
+        print(json.dumps(summary, indent=2))
+        return
+    print_design(d, p)
+    if out_dir is not None:
+        out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'design.json'}")
+
+
+def print_design(d, p) -> None:
+    """The designed recipe, its promise and the comparison with an evenly spaced series."""
+    s = d.summary()
+    out.print(f"[bold]{escape(p.title)}[/bold] — design")
+    out.print(f"criterion {d.criterion}, {'robust over the guess' if d.robust else 'at the guess only'}, "
+              f"{d.recipe.n_tubes} tubes, seed {d.seed}; {d.n_candidates} candidate tubes on the grid, "
+              f"{d.n_feasible} inside the linear range over the guess's range")
+    for note in d.notes:
+        out.print(f"[yellow]note:[/yellow] {escape(note)}")
+    t = Table(title="Designed recipe")
+    dispensed = d.recipe.dispensed_ids(p)
+    for c in ("tube", *(f"{x} / mL" for x in dispensed), "A ± sd", "saturation"):
+        t.add_column(c, justify="right")
+    for i, row in enumerate(s["tubes"]):
+        t.add_row(row["tube"], *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
+                  f"{row['absorbance']:.3f} ± {row['absorbance_sd']:.3f}", f"{row['saturation']:.2f}")
+    out.print(t)
+    target = p.target
+    out.print(f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
+              f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} (×{fmt.sig(d.se_ratio_vs_even, 2)} better); "
+              f"efficiency ≥ {d.efficiency_bound:.3f} of the best possible on these candidates")
+    if d.se_across:
+        t = Table(title=f"SE(log β[{target}]) if the truth differs from the guess")
+        for c in (f"true log β[{target}]", "designed", "evenly spaced"):
+            t.add_column(c, justify="right")
+        for a, b, c in d.se_across:
+            t.add_row(f"{a:.2f}", fmt.sig(b, 2), fmt.sig(c, 2))
+        out.print(t)
+    bad = [c for c in s["checks"] if c["status"] != "pass"]
+    for c in bad:
+        out.print(f"[yellow]{c['id']}[/yellow]: {escape(c['message'])}")
 
 
 @app.command()

@@ -239,6 +239,45 @@ def delivery_sds(plan: Plan, recipe: Recipe, devices: Devices, *, delta_T_C: flo
     return DeliverySds(u_rand, u_sys, u_flask)
 
 
+@dataclass(frozen=True)
+class ErrorFactors:
+    """The error budget without n × n matrices (for many candidate tubes at once).
+
+    Attributes
+    ----------
+    photometric_var : (n,) photometric variance of each reading.
+    delivery_random_var : (n,) random delivery and make-up variance of each reading.
+    J_stock : (n, k) dA per 1-sd concentration error of each stock (shared across tubes).
+    J_device : (n, d) dA per 1-sd calibration error of each device (shared across its deliveries).
+    """
+
+    photometric_var: np.ndarray
+    delivery_random_var: np.ndarray
+    J_stock: np.ndarray
+    J_device: np.ndarray
+
+    @property
+    def independent_var(self) -> np.ndarray:
+        return self.photometric_var + self.delivery_random_var
+
+
+def error_factors(plan: Plan, model: Model, recipe: Recipe, state: TubeState, devices: Devices,
+                  *, delta_T_C: float | None = None, dA_dtotals: np.ndarray | None = None) -> ErrorFactors:
+    """Per-tube variances and shared-error factors (see :class:`ErrorFactors`); vectorised over tubes."""
+    if dA_dtotals is None:
+        dA_dtotals = absorbance_derivatives(model, state).dA_dtotals
+    dA_dV, dA_dVtot = volume_derivatives(plan, recipe, dA_dtotals, model.stock_conc_M)
+    sds = delivery_sds(plan, recipe, devices, delta_T_C=delta_T_C)
+    var_rand = np.sum((dA_dV * sds.random_mL) ** 2, axis=-1) + (dA_dVtot * sds.flask_mL) ** 2
+    nd = len(devices.items)
+    onehot = (devices.stock_device[:, None] == np.arange(nd)[None, :]).astype(float)   # (k, d)
+    J_dev = (dA_dV * sds.systematic_mL) @ onehot
+    # stock concentration factors: dA/dC_k · C_k · rsd_k
+    J_stock = (dA_dtotals @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T) \
+        * recipe.volumes_mL / recipe.total_volume_mL[:, None]
+    return ErrorFactors(state.absorbance_sd**2, var_rand, J_stock, J_dev)
+
+
 def error_budget(plan: Plan, model: Model, recipe: Recipe, state: TubeState,
                  devices: Devices | None = None, *, delta_T_C: float | None = None) -> ErrorBudget:
     """Propagate every error source to the covariance of the tubes' absorbances.
@@ -248,23 +287,12 @@ def error_budget(plan: Plan, model: Model, recipe: Recipe, state: TubeState,
     delta_T_C : lab temperature minus the glassware's calibration temperature (default: the plan's).
     """
     devices = devices or plan_devices(plan)
-    n, k = recipe.volumes_mL.shape
-    der = absorbance_derivatives(model, state)
-    dA_dV, dA_dVtot = volume_derivatives(plan, recipe, der.dA_dtotals, model.stock_conc_M)
-    sds = delivery_sds(plan, recipe, devices, delta_T_C=delta_T_C)
-    var_rand = np.sum((dA_dV * sds.random_mL) ** 2, axis=1) + (dA_dVtot * sds.flask_mL) ** 2
-    # one column per device: its calibration error is common to all its deliveries
-    nd = len(devices.items)
-    onehot = (devices.stock_device[:, None] == np.arange(nd)[None, :]).astype(float)   # (k, d)
-    J_dev = (dA_dV * sds.systematic_mL) @ onehot
-    # stock concentration factors: dA/dC_k · C_k · rsd_k
-    J_stock = (der.dA_dtotals @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T) \
-        * recipe.volumes_mL / recipe.total_volume_mL[:, None]
+    f = error_factors(plan, model, recipe, state, devices, delta_T_C=delta_T_C)
     return ErrorBudget(
-        photometric=np.diag(state.absorbance_sd**2),
-        delivery_random=np.diag(var_rand),
-        delivery_systematic=J_dev @ J_dev.T,
-        stock=J_stock @ J_stock.T,
-        J_stock=J_stock,
-        J_device=J_dev,
+        photometric=np.diag(f.photometric_var),
+        delivery_random=np.diag(f.delivery_random_var),
+        delivery_systematic=f.J_device @ f.J_device.T,
+        stock=f.J_stock @ f.J_stock.T,
+        J_stock=f.J_stock,
+        J_device=f.J_device,
     )

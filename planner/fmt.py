@@ -41,3 +41,41 @@ def volume(v_mL: float, step_mL: float = 0.01) -> str:
     """A volume written to the dispenser's reading precision (the decimals of ``step_mL``)."""
     decimals = max(0, -int(math.floor(math.log10(step_mL) + 1e-9))) if step_mL > 0 else 2
     return f"{v_mL:.{decimals}f}"
+
+
+# -- printed sheets (added for the prep sheet and the design report) -------------------------------
+_CONC_UNITS = (("M", 1.0), ("mM", 1e3), ("µM", 1e6), ("nM", 1e9), ("pM", 1e12))
+
+
+def conc_with_uncertainty(c_M: float, u_M: float | None) -> str:
+    """A concentration and its standard uncertainty in one readable unit, e.g. ``10.000 ± 0.059 mM``.
+
+    The unit is chosen from ``c_M`` as in :func:`conc`; the digits follow :func:`with_uncertainty`
+    (two significant figures of the uncertainty, the value rounded to match) [source: GUM JCGM
+    100:2008 §7.2.6].
+    """
+    if not (u_M is not None and u_M > 0 and math.isfinite(u_M)):
+        return conc(c_M)
+    unit, f = _CONC_UNITS[-1]
+    for unit_i, f_i in _CONC_UNITS:
+        if abs(c_M) * f_i >= 1:
+            unit, f = unit_i, f_i
+            break
+    return f"{with_uncertainty(c_M * f, u_M * f)} {unit}"
+
+
+def mass(m_g: float, readability_g: float = 1e-4) -> str:
+    """A mass to weigh, written to the balance's readability (``0.2440 g`` on a 0.1 mg balance)."""
+    return f"{volume(m_g, readability_g)} g"
+
+
+def percent(x: float | None, digits: int = 2) -> str:
+    """A fraction as a percentage to ``digits`` significant figures (``0.0059`` → ``0.59 %``)."""
+    if x is None or not math.isfinite(x):
+        return "—"
+    return f"{sig(100.0 * x, digits)} %"
+
+
+def band(x: float, half_width: float) -> str:
+    """An expected value with its band ``x ± half_width`` (for example A ± 2 sd), digits matched."""
+    return with_uncertainty(x, half_width)

@@ -192,14 +192,34 @@ def test_log_beta_conversion_is_vectorised_over_tubes_and_trials():
 
 
 def test_extended_dh_model_in_conversion():
-    out = log_beta_at_ionic_strength([8.0], CuL, (2, -2), 0.01, model="extended_dh", a_angstrom=6.0)
+    out = log_beta_at_ionic_strength([8.0], CuL, (2, -2), 0.01, model="extended-dh", sizes_angstrom=6.0)
     lg2 = extended_dh_log_gamma(2, 0.01, 6.0)
     # neutral complex: log g = 0 for z = 0 in the extended Debye-Hueckel equation  # derived
     assert out[0] == pytest.approx(8.0 + 2 * lg2, abs=1e-14)
-    with pytest.raises(ValueError, match="a_angstrom"):
-        log_beta_at_ionic_strength([8.0], CuL, (2, -2), 0.01, model="extended_dh")
+    with pytest.raises(ValueError, match="sizes_angstrom"):
+        log_beta_at_ionic_strength([8.0], CuL, (2, -2), 0.01, model="extended-dh")
     with pytest.raises(ValueError, match="3 \\+ S"):
-        log_beta_at_ionic_strength([8.0], CuL, (2, -2), 0.01, model="extended_dh", a_angstrom=[4.0, 5.0])
+        log_beta_at_ionic_strength([8.0], CuL, (2, -2), 0.01, model="extended-dh", sizes_angstrom=[4.0, 5.0])
+
+
+def test_extended_dh_sizes_per_ion_and_the_proton_default():
+    # HL (z 0) from L- (4 A) and H+: 2 + S sizes give H+ Kielland's 9 A; 3 + S sizes set it
+    stoich = np.array([[1, 1, 0], [0, 1, 1]])  # ML+ (M2+, L-), HL
+    I = 0.05
+    lg = {(z, a): extended_dh_log_gamma(z, I, a) for z in (1, 2) for a in (4.0, 5.0, 6.0, 9.0, 3.0)}
+    two = log_beta_at_ionic_strength([0.0, 0.0], stoich, (2, -1), I, model="extended-dh",
+                                     sizes_angstrom=[6.0, 4.0, 5.0, 3.0])
+    # ML: log g_M(6) + log g_L(4) - log g_ML(z 1, 5); HL: log g_L(4) + log g_H(9) - 0  # derived
+    np.testing.assert_allclose(two, [lg[2, 6.0] + lg[1, 4.0] - lg[1, 5.0], lg[1, 4.0] + lg[1, 9.0]], atol=1e-15)
+    three = log_beta_at_ionic_strength([0.0, 0.0], stoich, (2, -1), I, model="extended-dh",
+                                       sizes_angstrom=[6.0, 4.0, 9.0, 5.0, 3.0])
+    np.testing.assert_allclose(three, two, atol=1e-15)
+
+
+def test_model_none_applies_no_correction():
+    out = log_beta_at_ionic_strength([8.0, 3.0], np.array([[1, 1, 0], [0, 1, 1]]), (2, -2), [0.0, 0.3],
+                                     model="none")
+    np.testing.assert_array_equal(out, [[8.0, 3.0], [8.0, 3.0]])
 
 
 def test_unknown_model_and_bad_charges_are_rejected():
@@ -221,11 +241,11 @@ def test_species_equal_to_a_free_component_gets_no_correction():
     I=st.lists(st.floats(0.0, 0.5), min_size=1, max_size=6),
     zM=st.integers(1, 3),
     zL=st.integers(-3, 0),
-    model=st.sampled_from(["davies", "extended_dh"]),
+    model=st.sampled_from(["davies", "extended-dh"]),
 )
 def test_round_trip_through_zero_ionic_strength(logb, I, zM, zL, model):
     stoich = np.array([[1, 1, 0], [1, 2, 0], [0, 1, 1]])
-    kw = {"model": model, "a_angstrom": 4.5}
+    kw = {"model": model, "sizes_angstrom": 4.5}
     lb0 = np.array(logb)
     at_I = log_beta_at_ionic_strength(lb0, stoich, (zM, zL), np.array(I), **kw)
     back = log_beta_to_zero_ionic_strength(at_I, stoich, (zM, zL), np.array(I), **kw)

@@ -21,7 +21,11 @@ from planner.chemistry import (
     stepwise_from_overall,
 )
 
-mpmath = pytest.importorskip("mpmath")
+try:
+    import mpmath
+except ImportError:  # the reference-value tests below need it; the rest of the file does not
+    mpmath = None
+needs_mpmath = pytest.mark.skipif(mpmath is None, reason="mpmath (test extra) not installed")
 
 
 def rel_residuals(spec, stoich_pq):
@@ -92,11 +96,14 @@ def mp_one_to_one(M0, L0, K):
 
 
 def test_one_to_one_hand_worked():
-    # M0 = L0 = 1 mM, K = 1000 /M: x^2 - 3e-3 x + 1e-6 = 0, x = 1e-3 (3 - sqrt 5)/2 = 3.8196601125e-4 M
-    # derived by hand from the quadratic (domain.md section 1)
-    assert one_to_one(1e-3, 1e-3, 1e3) == pytest.approx(3.8196601125010515e-4, rel=1e-14)
+    # M0 = L0 = 1 mM, K = 1000 /M: K x^2 - (K M0 + K L0 + 1) x + K M0 L0 = 0 is x^2 - 3e-3 x + 1e-6 = 0,
+    # x = 1e-3 (3 - sqrt 5) / 2 = 3.8197e-4 M  # derived by hand from the quadratic (domain.md section 1)
+    expected = 1e-3 * (3.0 - 5.0**0.5) / 2.0
+    assert one_to_one(1e-3, 1e-3, 1e3) == pytest.approx(expected, rel=1e-14)
+    assert expected == pytest.approx(3.8197e-4, rel=1e-4)
 
 
+@needs_mpmath
 def test_one_to_one_against_mpmath_where_the_textbook_form_fails():
     # M0 = L0 = 1e-6 M, K = 1e-3 /M: [ML] ~ K M0 L0 = 1e-15 M; in double precision s^2 - 4 M0 L0 rounds
     # to s^2, so the textbook form returns 0 (every digit lost)  # derived
@@ -110,6 +117,7 @@ def test_one_to_one_against_mpmath_where_the_textbook_form_fails():
     assert abs(textbook - exact) / exact > 0.5
 
 
+@needs_mpmath
 def test_one_to_one_grid_against_mpmath():
     K = 10.0 ** np.arange(-3, 31, 3)
     tot = 10.0 ** np.arange(-10, 1, 2)
@@ -122,6 +130,7 @@ def test_one_to_one_grid_against_mpmath():
     assert np.max(np.abs(ours - exact) / exact) <= 1e-12
 
 
+@needs_mpmath
 def test_one_to_one_zero_totals_and_broadcasting():
     assert one_to_one(0.0, 1e-3, 1e5) == 0.0
     assert one_to_one(1e-3, 0.0, 1e5) == 0.0
@@ -197,18 +206,44 @@ def test_solver_random_sweep(species):
 
 
 def test_solver_matches_closed_form_on_a_1_to_1_system():
-    # a second species with beta = 0 makes the system 1:1 but sends it through the Newton solver
+    # a second species with beta = 0 makes the system 1:1 but sends it through the iterative solver
     rng = np.random.default_rng(3)
     M = 10.0 ** rng.uniform(-10, 0, 2000)
     L = 10.0 ** rng.uniform(-10, 0, 2000)
     logK = rng.uniform(-3, 30, 2000)
     ref = one_to_one(M, L, 10.0**logK)
     spec = speciate(M, L, [[1, 1], [1, 2]], np.column_stack([logK, np.full(2000, -np.inf)]))
-    # the solver is converged to a relative residual 2e-14; [ML] inherits it relative to the
-    # larger of the totals wherever ML is a small part of it  # derived
+    # the solver is converged to a relative residual 2e-14 of each total, so [ML] may be off by about
+    # that much of the smaller total where ML is a small part of it  # derived
     err = np.abs(spec.species_M[:, 0] - ref)
     assert np.all(err <= 1e-12 * ref + 1e-13 * np.minimum(M, L))
     np.testing.assert_array_equal(spec.species_M[:, 1], 0.0)
+
+
+def test_reduced_and_two_variable_solvers_agree(monkeypatch):
+    # p <= 1 systems take the one-variable path; forcing them through the two-variable Newton must give
+    # the same equilibrium (both converge to a relative residual 2e-14)
+    rng = np.random.default_rng(13)
+    n = 5000
+    species = [(1, 1), (1, 2), (1, 3), (0, 1), (1, 0)]
+    M = 10.0 ** rng.uniform(-10, 0, n)
+    L = 10.0 ** rng.uniform(-10, 0, n)
+    M[:50] = 0.0
+    L[50:100] = 0.0
+    lb = rng.uniform(-3, 30, (n, len(species)))
+    reduced = speciate(M, L, species, lb)
+    calls = []
+
+    def refuse(lnb, sy, M_, L_):
+        calls.append(M_.size)
+        return (np.zeros(M_.size, dtype=bool), np.zeros((sy.S, M_.size)), np.zeros(M_.size), np.zeros(M_.size))
+
+    monkeypatch.setattr(chemistry, "_solve_p1", refuse)
+    general = speciate(M, L, species, lb)
+    assert sum(calls) == n
+    # both satisfy the balances to 2e-14; 1e-9 leaves room for the conditioning of the free species
+    np.testing.assert_allclose(reduced.species_M, general.species_M, rtol=1e-9, atol=0)
+    np.testing.assert_allclose(reduced.free_L, general.free_L, rtol=1e-9)
 
 
 def test_one_to_one_path_returns_consistent_free_concentrations():
@@ -254,20 +289,29 @@ def test_permutation_equivariance(seed, n):
     np.testing.assert_allclose(b.free_L, a.free_L[perm], rtol=1e-12, atol=0)
 
 
-def test_results_do_not_depend_on_batching_shape():
-    rng = np.random.default_rng(11)
-    species = [(1, 1), (1, 2)]
-    trials, tubes = 4, 9
+@settings(max_examples=25, deadline=None)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    trials=st.integers(1, 4),
+    tubes=st.integers(1, 12),
+    species=st.sampled_from([[(1, 1), (1, 2)], [(1, 1), (2, 1), (0, 1)]]),
+)
+def test_results_do_not_depend_on_batching_shape(seed, trials, tubes, species):
+    rng = np.random.default_rng(seed)
     M = 10.0 ** rng.uniform(-6, -2, (trials, tubes))
     L = 10.0 ** rng.uniform(-6, -2, (trials, tubes))
-    lb = np.array([4.0, 7.0]) + rng.normal(0, 0.3, (trials, 1, 2))  # one constant set per trial
+    S = len(species)
+    lb = rng.uniform(2.0, 12.0, S) + rng.normal(0, 0.3, (trials, 1, S))  # one constant set per trial
     spec = speciate(M, L, species, lb)
-    assert spec.species_M.shape == (trials, tubes, 2) and spec.free_M.shape == (trials, tubes)
+    assert spec.species_M.shape == (trials, tubes, S) and spec.free_M.shape == (trials, tubes)
     for t in range(trials):
         one = speciate(M[t], L[t], species, lb[t, 0])
         np.testing.assert_allclose(spec.species_M[t], one.species_M, rtol=1e-12, atol=0)
-    flat = speciate(M.ravel(), L.ravel(), species, np.broadcast_to(lb, (trials, tubes, 2)).reshape(-1, 2))
-    np.testing.assert_allclose(spec.species_M.reshape(-1, 2), flat.species_M, rtol=1e-12, atol=0)
+    flat = speciate(M.ravel(), L.ravel(), species, np.broadcast_to(lb, (trials, tubes, S)).reshape(-1, S))
+    np.testing.assert_allclose(spec.species_M.reshape(-1, S), flat.species_M, rtol=1e-12, atol=0)
+    # transposed batch: tubes along the first axis
+    tr = speciate(M.T, L.T, species, np.swapaxes(lb, 0, 1))
+    np.testing.assert_allclose(tr.species_M, np.swapaxes(spec.species_M, 0, 1), rtol=1e-12, atol=0)
 
 
 def test_results_do_not_depend_on_block_position():
@@ -345,6 +389,7 @@ def test_non_convergence_is_reported_with_the_tubes(monkeypatch):
         speciate([1e-3, 1e-4], [1e-3, 1e-3], [[1, 1], [1, 2]], [8.0, 12.0])
 
 
+@needs_mpmath
 def test_solver_against_mpmath_for_a_polynuclear_system():
     # 50-digit solution by mpmath.findroot of the two mass balances in log variables (independent of the
     # solver's algorithm); well-conditioned tubes  # source: computed here with mpmath
@@ -473,6 +518,12 @@ def test_sensitivities_at_zero_totals_are_one_sided_limits():
     fd = (up_M.free_L[0] - spec.free_L[0]) / eps
     assert sens.dfree_L_dMtot[0] == pytest.approx(fd, rel=1e-5)
     assert sens.dlnfree_L_dMtot[0] * spec.free_L[0] == pytest.approx(fd, rel=1e-5)
+    # and the free metal of the ligand-free tube loses what a trace of ligand binds
+    fd = (up_L.free_M[1] - spec.free_M[1]) / eps
+    assert sens.dfree_M_dLtot[1] == pytest.approx(fd, rel=1e-5)
+    assert sens.dlnfree_M_dLtot[1] * spec.free_M[1] == pytest.approx(fd, rel=1e-5)
+    # log derivatives of identically zero quantities are reported as 0 (documented convention)
+    assert sens.dlnfree_M_dMtot[0] == 0.0 and np.all(sens.dlnc_dlnbeta[2] == 0.0)
 
 
 def test_sensitivities_shape_follows_the_batch():
@@ -484,6 +535,7 @@ def test_sensitivities_shape_follows_the_batch():
     assert sens.dlnc_dlnbeta.shape == (3, 4, 2, 2)
     assert sens.dlnc_dMtot.shape == (3, 4, 2)
     assert sens.dlnfree_L_dLtot.shape == (3, 4)
+    assert set(sens.summary()) == set(vars(sens)) and len(sens.summary()["dc_dMtot"]) == 3
     flat = sensitivities(speciate(M.ravel(), L.ravel(), [[1, 1], [1, 2]], lb), [[1, 1], [1, 2]], lb)
     np.testing.assert_allclose(sens.dlnc_dlnbeta.reshape(12, 2, 2), flat.dlnc_dlnbeta, rtol=1e-13)
     with pytest.raises(EquilibriumError, match="broadcast"):

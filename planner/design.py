@@ -1,0 +1,445 @@
+"""Design of recipes that maximise the information about K, on the glassware's real volume grid.
+
+Candidates are every combination of dispensed volumes on the plan's grid; each carries the whitened
+Jacobian of its reading. Errors shared across tubes (stock concentrations, device calibration) enter as
+nuisance parameters with a unit Gaussian prior, which keeps the information additive over tubes and is
+exactly equivalent to the full-covariance Fisher information for the target criterion (Woodbury
+identity). The exact design comes from :func:`planner.optimal.exact_design` (Fedorov exchange), the bound
+from :func:`planner.optimal.approximate_design` (checked by the equivalence theorem). Robust designs
+average the criterion over quadrature nodes of the guesses' uncertainty (Chaloner & Larntz 1989,
+J. Stat. Plan. Inference 21:191).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import optimal
+from .assess import assess
+from .errors import Devices, error_factors, plan_devices
+from .information import absorbance_derivatives
+from .model import Model, build_model, predict, tube_ions_M
+from .optimal import CRITERIA, DesignError
+from .plan import Plan
+from .precision import Parameters, ReadingModel, free_parameters
+from .recipe import Recipe, make_recipe, totals_M
+from .series import even_series
+
+__all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
+
+MAX_CANDIDATES = 40000  # above this the grid is searched coarsely first, then refined locally
+RANGE_RISK = 0.05  # a candidate may leave the linear range for at most 5 % of the prior weight
+GH3 = (np.array([-math.sqrt(3.0), 0.0, math.sqrt(3.0)]), np.array([1 / 6, 2 / 3, 1 / 6]))
+# source: Gauss–Hermite (probabilists') 3-point rule, nodes 0, ±√3 with weights 2/3, 1/6 — exact to degree 5
+GH5 = (np.array([-2.856970013872806, -1.355626179974266, 0.0, 1.355626179974266, 2.856970013872806]),
+       np.array([0.011257411327721, 0.222075922005613, 0.533333333333333, 0.222075922005613,
+                 0.011257411327721]))
+# source: Gauss–Hermite (probabilists') 5-point rule (Abramowitz & Stegun 1964, table 25.10, rescaled)
+
+
+@dataclass(frozen=True)
+class Candidates:
+    """Every tube the glassware can make.
+
+    Attributes
+    ----------
+    recipe : all candidates as one recipe (C tubes).
+    designed_ids : the stock ids whose volumes are chosen.
+    n_grid : number of grid combinations (before the linear-range screen).
+    step_mL : the grid step used.
+    """
+
+    recipe: Recipe
+    designed_ids: tuple[str, ...]
+    n_grid: int
+    step_mL: float
+
+
+def _levels(lo: float, hi: float, step: float, allow_zero: bool) -> np.ndarray:
+    k0 = max(int(math.ceil(lo / step - 1e-9)), 1)
+    k1 = int(math.floor(hi / step + 1e-9))
+    lv = np.round(np.arange(k0, k1 + 1) * step, 10)
+    return np.concatenate([[0.0], lv]) if allow_zero else lv
+
+
+def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = None,
+                    caps_mL: dict[str, float] | None = None) -> Candidates:
+    """All combinations of designed volumes on the grid that fit the tube (before the range screen).
+
+    Parameters
+    ----------
+    step_mL : grid step (default the plan's; a multiple of it for a coarse search).
+    caps_mL : per-stock upper limits on one tube's volume (e.g. from the stock budget).
+    """
+    g = plan.glassware
+    step = step_mL or g.step_mL
+    dil = plan.diluent
+    fixed = plan.design.fixed
+    designed = [s.id for s in plan.stock if not s.diluent and s.id not in fixed]
+    if not designed:
+        raise DesignError("design.fixed fixes every stock: nothing is left to vary; remove a stock from fixed")
+    room = g.tube_volume_mL - sum(fixed.values())
+    levels = []
+    for sid in designed:
+        k = plan.stock.index(plan.stock_by_id(sid))
+        cap = room
+        j = devices.stock_device[k]
+        if j >= 0:
+            cap = min(cap, devices.items[j].capacity_mL)
+        if caps_mL and sid in caps_mL:
+            cap = min(cap, caps_mL[sid])
+        levels.append(_levels(max(g.min_volume_mL, step), cap, step, allow_zero=True))
+    # cartesian product, then keep what fits (vectorised over the grid)
+    mesh = np.stack([m.ravel() for m in np.meshgrid(*levels, indexing="ij")], axis=1)
+    fits = mesh.sum(axis=1) <= room + 1e-9
+    mesh = mesh[fits]
+    # a tube needs metal and ligand both, except a blank when a blank offset is fitted
+    vols = {sid: mesh[:, j] for j, sid in enumerate(designed)}
+    for sid, v in fixed.items():
+        vols[sid] = np.full(mesh.shape[0], v)
+    if g.make_up == "added" and dil is not None:
+        rest = g.tube_volume_mL - sum(vols.values())
+        ok = (rest <= 1e-9) | (rest >= g.min_volume_mL - 1e-9)
+        vols = {k: v[ok] for k, v in vols.items()}
+        vols[dil.id] = np.maximum(rest[ok], 0.0)
+    n = len(next(iter(vols.values())))
+    if n == 0:
+        raise DesignError("no tube fits: the fixed volumes and min_volume leave no room in tube_volume")
+    rec = make_recipe(plan, vols, [f"c{i}" for i in range(n)])
+    return Candidates(rec, tuple(designed), int(n), step)
+
+
+@dataclass(frozen=True)
+class Nodes:
+    """Quadrature nodes over the guesses' uncertainty: theta (G, P) and weights (G,)."""
+
+    theta: np.ndarray
+    weights: np.ndarray
+
+
+def prior_nodes(params: Parameters, robust: bool) -> Nodes:
+    """Nodes over the uncertain log β (ε enters linearly and stays at its guess).
+
+    One uncertain constant: 5-point Gauss–Hermite; two: the 3 × 3 product rule; more: the centre and
+    ±√3 sd along each axis (a degree-3 rule, Stroud 1971).
+    """
+    g = params.guess
+    if not robust:
+        return Nodes(g[None, :].copy(), np.ones(1))
+    axes = [p for p in range(params.size) if params.kind[p] == 0 and params.prior_sd[p] > 0]
+    if not axes:
+        return Nodes(g[None, :].copy(), np.ones(1))
+    if len(axes) == 1:
+        x, w = GH5
+        th = np.repeat(g[None, :], x.size, axis=0)
+        th[:, axes[0]] += x * params.prior_sd[axes[0]]
+        return Nodes(th, w)
+    if len(axes) == 2:
+        x, w = GH3
+        rows, ws = [], []
+        for (i, xi), (j, xj) in itertools.product(enumerate(x), enumerate(x)):
+            t = g.copy()
+            t[axes[0]] += xi * params.prior_sd[axes[0]]
+            t[axes[1]] += xj * params.prior_sd[axes[1]]
+            rows.append(t)
+            ws.append(w[i] * w[j])
+        return Nodes(np.array(rows), np.array(ws))
+    d = len(axes)
+    rows, ws = [g.copy()], [1.0 - d / 3.0]
+    for a in axes:
+        for sgn in (-1.0, 1.0):
+            t = g.copy()
+            t[a] += sgn * math.sqrt(3.0) * params.prior_sd[a]
+            rows.append(t)
+            ws.append(1.0 / 6.0)
+    w = np.array(ws)
+    if w[0] < 0:  # d > 3: keep the weights positive (a slightly less exact, positive rule)
+        w[0] = 0.0
+    return Nodes(np.array(rows), w / w.sum())
+
+
+@dataclass(frozen=True)
+class Design:
+    """A designed recipe and how good it is.
+
+    Attributes
+    ----------
+    recipe : the designed tubes.
+    criterion, robust, seed : what was optimised.
+    n_candidates, n_feasible : candidates on the grid and those inside the linear range robustly.
+    exact : the exact design on the candidates (counts).
+    approx : the best approximate design (the bound).
+    efficiency_bound : lower bound on the exact design's efficiency against the best approximate
+        design over all designs on the candidates (exact efficiency × equivalence-theorem bound).
+    se_target : SE(log β[target]) of the design at the guess (Cramér–Rao, full error budget).
+    se_even : the same for the evenly spaced series of the same size.
+    se_across : list of (true log β, SE of design, SE of even series) across the guess's range.
+    notes : what the optimiser did that the user should know (coarse search, budget caps...).
+    """
+
+    recipe: Recipe
+    criterion: str
+    robust: bool
+    seed: int
+    n_candidates: int
+    n_feasible: int
+    exact: optimal.ExactDesign
+    approx: optimal.ApproximateDesign
+    efficiency_bound: float
+    se_target: float
+    se_even: float
+    se_across: tuple[tuple[float, float, float], ...]
+    target: str
+    notes: tuple[str, ...] = field(default=())
+    assessment_summary: dict = field(default_factory=dict, hash=False)
+
+    def __repr__(self) -> str:
+        return (f"Design({self.recipe.n_tubes} tubes, {self.criterion}, robust={self.robust}, "
+                f"SE={self.se_target:.3g} vs even {self.se_even:.3g}, efficiency ≥ {self.efficiency_bound:.3f})")
+
+    @property
+    def se_ratio_vs_even(self) -> float:
+        return self.se_even / self.se_target if self.se_target > 0 else float("nan")
+
+    def summary(self) -> dict:
+        """The design JSON: the assessment's baseline keys plus criterion and efficiency_bound."""
+        out = dict(self.assessment_summary)
+        out.update({
+            "criterion": self.criterion,
+            "robust": self.robust,
+            "seed": self.seed,
+            "target": self.target,
+            "efficiency_bound": self.efficiency_bound,
+            "exact_efficiency": float(self.exact.efficiency),
+            "candidates": self.n_candidates,
+            "candidates_feasible": self.n_feasible,
+            "se_target": self.se_target,
+            "se_even_series": self.se_even,
+            "se_ratio_vs_even": self.se_ratio_vs_even,
+            "se_across_guess": [{"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across],
+            "notes": list(self.notes),
+        })
+        return out
+
+
+def _information_rows(plan: Plan, model: Model, params: Parameters, cand: Candidates, devices: Devices,
+                      nodes: Nodes, criterion: str, *, volumetric: bool = True):
+    """Whitened Jacobian rows F (G, C, 1, P') and prior M0 (P', P') for every candidate and node."""
+    rec = cand.recipe
+    tot = totals_M(rec, model.stock_conc_M)
+    ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
+    reading = ReadingModel(model, params, tot, ions)
+    G = nodes.theta.shape[0]
+    from .precision import unpack
+
+    lb, eps, _ = unpack(model, params, nodes.theta)
+    st = predict(model, np.broadcast_to(tot, (G,) + tot.shape), np.broadcast_to(ions, (G,) + ions.shape),
+                 log_beta=lb, epsilon_M_cm=eps, warn=False)
+    J = reading.jac(nodes.theta)                                            # (G, C, P)
+    der = absorbance_derivatives(model, st, eps)
+    var = np.empty(st.absorbance.shape)
+    shared = []
+    for gi in range(G):  # a handful of nodes; each vectorised over candidates
+        sub = _take_state(st, gi)
+        f = error_factors(plan, model, rec, sub, devices, dA_dtotals=der.dA_dtotals[gi])
+        var[gi] = f.photometric_var + (f.delivery_random_var if volumetric else 0.0)
+        shared.append(np.concatenate([f.J_stock, f.J_device], axis=1) if volumetric else
+                      np.zeros((rec.n_tubes, 0)))
+    sd = np.sqrt(var)
+    Fth = J / sd[..., None]
+    S = np.stack(shared)                                                    # (G, C, k + d)
+    keep = np.any(S != 0, axis=(0, 1)) if S.size else np.zeros(0, dtype=bool)
+    if criterion == "target" and keep.any():
+        Fs = S[..., keep] / sd[..., None]
+        F = np.concatenate([Fth, Fs], axis=-1)
+        P = Fth.shape[-1]
+        M0 = np.zeros((F.shape[-1],) * 2)
+        M0[P:, P:] = np.eye(F.shape[-1] - P)  # each shared error: a unit-sd nuisance factor
+    else:
+        F = Fth
+        M0 = None
+    return F[:, :, None, :], M0, st
+
+
+def _take_state(st, g):
+    from .model import TubeState
+
+    return TubeState(*(getattr(st, f)[g] for f in TubeState.__dataclass_fields__))
+
+
+def _range_mask(model: Model, st, weights: np.ndarray) -> np.ndarray:
+    """Candidates inside the linear range at nodes carrying ≥ 95 % of the prior weight."""
+    lo, hi = model.linear_range
+    inside = (st.absorbance >= lo) & (st.absorbance <= hi)                  # (G, C)
+    return (weights @ inside) >= 1.0 - RANGE_RISK - 1e-12
+
+
+def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None, robust: bool | None = None,
+           seed: int = 0, volumetric: bool = True, starts: int = 8) -> Design:
+    """Choose each tube's volumes to resolve the target constant as precisely as possible.
+
+    Parameters
+    ----------
+    tubes, criterion, robust : override the plan's design keys.
+    seed : seed of the random starts of the exchange algorithm.
+    volumetric : include delivery and stock errors (False: photometric noise only — for analytic checks).
+    """
+    n = int(tubes or plan.design.tubes)
+    crit = criterion or plan.design.criterion
+    if crit not in CRITERIA:
+        raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
+    rob = plan.design.robust if robust is None else bool(robust)
+    model = build_model(plan)
+    devices = plan_devices(plan)
+    params = free_parameters(plan, model)
+    if params.size == 0:
+        raise DesignError("nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)")
+    if crit == "target" and params.target < 0:
+        raise DesignError(f"the target {plan.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0")
+    nodes = prior_nodes(params, rob)
+    notes: list[str] = []
+    caps: dict[str, float] = {}
+    for _attempt in range(4):
+        rec, ex, ap, n_grid, n_feas, coarse = _solve(plan, model, params, devices, nodes, crit, n, seed, caps,
+                                                      volumetric, starts)
+        if coarse:
+            notes.append(coarse)
+        over = _budget_overruns(plan, rec)
+        if not over:
+            break
+        for sid, (used, avail) in over.items():
+            per_tube = max(avail, 0.0) / n
+            caps[sid] = min(caps.get(sid, math.inf), per_tube)
+            notes.append(f"stock {sid}: the first design used {used:.1f} mL but only {avail:.1f} mL is usable "
+                         f"(on hand less rinse and dead volume); capped at {per_tube:.2f} mL per tube")
+    else:
+        raise DesignError("the stock budget cannot be met: make more of "
+                          + ", ".join(_budget_overruns(plan, rec)) + " (on_hand) or use fewer tubes")
+    a = assess(plan, rec, trials=0)
+    even = even_series(plan, n)
+    se_d = float(a.target_se) if a.target_se is not None else float("nan")
+    ae = assess(plan, even, trials=0, precision=True)
+    se_e = float(ae.target_se) if ae.target_se is not None else float("nan")
+    across = []
+    t = plan.target
+    j = model.index(t)
+    sd = float(model.log_beta_sd[j])
+    if sd > 0:
+        for k in (-2, -1, 0, 1, 2):
+            val = float(model.log_beta[j] + k * sd)
+            sa = assess(plan, rec, trials=0, at={t: val}).target_se
+            sb = assess(plan, even, trials=0, at={t: val}).target_se
+            across.append((val, float(sa), float(sb)))
+    eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
+    return Design(rec, crit, rob, seed, n_grid, n_feas, ex, ap, min(eff, 1.0), se_d, se_e, tuple(across), t,
+                  tuple(notes), a.summary())
+
+
+def _solve(plan, model, params, devices, nodes, crit, n, seed, caps, volumetric, starts):
+    g = plan.glassware
+    cand = candidate_tubes(plan, devices, caps_mL=caps)
+    coarse_note = ""
+    factor = 1
+    if cand.n_grid > MAX_CANDIDATES:
+        d = len(cand.designed_ids)
+        factor = int(math.ceil((cand.n_grid / MAX_CANDIDATES) ** (1.0 / d)))
+        cand = candidate_tubes(plan, devices, step_mL=g.step_mL * factor, caps_mL=caps)
+        coarse_note = (f"searched a {g.step_mL * factor:g} mL grid first ({cand.n_grid} candidates), then refined "
+                       f"on the {g.step_mL:g} mL grid near the chosen tubes")
+    ex, ap, rec, n_feas = _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetric, starts)
+    n_grid = cand.n_grid
+    if factor > 1:
+        fine = _neighbourhood(plan, devices, cand, ex.counts, factor, caps)
+        ex, ap, rec, n_feas2 = _exact_on(plan, model, params, devices, nodes, crit, n, seed, fine, volumetric, starts)
+        n_grid = cand.n_grid + fine.n_grid
+        n_feas = n_feas + n_feas2
+    return rec, ex, ap, n_grid, n_feas, coarse_note
+
+
+def _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetric, starts):
+    F, M0, st = _information_rows(plan, model, params, cand, devices, nodes, crit, volumetric=volumetric)
+    ok = _range_mask(model, st, nodes.weights)
+    if not ok.any():
+        lo, hi = model.linear_range
+        raise DesignError(
+            f"no candidate tube keeps the absorbance inside optics.linear_range [{lo:g}, {hi:g}] over the "
+            f"guess's range: use more dilute stocks or a shorter path (if too high), more concentrated stocks "
+            f"or a longer path (if too low), or widen linear_range")
+    idx = np.flatnonzero(ok)
+    Fk = F[:, idx]
+    target = params.target if crit == "target" else None
+    kw = dict(criterion=crit, target=target, M0=M0, node_weights=nodes.weights)
+    try:
+        ap = optimal.approximate_design(Fk, n_tubes=n, **kw)
+        ex = optimal.exact_design(Fk, n, rng=np.random.default_rng(seed), starts=starts, approx=ap, **kw)
+    except DesignError as exc:
+        raise DesignError(f"{exc} — the candidates inside the linear range cannot determine every fitted "
+                          f"parameter; widen the volume range or fix more parameters") from None
+    chosen = np.repeat(idx, ex.counts)
+    rec = cand.recipe
+    vols = {sid: rec.column(sid)[chosen] for sid in rec.stock_ids if not (
+        plan.glassware.make_up == "to-mark" and plan.diluent is not None and sid == plan.diluent.id)}
+    # order tubes by the designed stock volumes, the way a bench series is laid out
+    order = np.lexsort([vols[s] for s in reversed(cand.designed_ids)])
+    vols = {k: v[order] for k, v in vols.items()}
+    out = make_recipe(plan, vols)
+    return ex, ap, out, int(ok.sum())
+
+
+def _neighbourhood(plan, devices, coarse: Candidates, counts, factor, caps) -> Candidates:
+    """Fine-grid candidates within ±factor steps of the coarse support."""
+    g = plan.glassware
+    support = coarse.recipe.volumes_mL[np.flatnonzero(counts)]
+    ids = coarse.designed_ids
+    cols = [coarse.recipe.stock_ids.index(s) for s in ids]
+    rows = []
+    offs = np.arange(-factor, factor + 1) * g.step_mL
+    for sup in support:
+        centre = sup[cols]
+        grids = [np.maximum(c + offs, 0.0) for c in centre]
+        mesh = np.stack([m.ravel() for m in np.meshgrid(*grids, indexing="ij")], axis=1)
+        rows.append(mesh)
+    mesh = np.unique(np.round(np.concatenate(rows), 10), axis=0)
+    room = g.tube_volume_mL - sum(plan.design.fixed.values())
+    ok = mesh.sum(axis=1) <= room + 1e-9
+    ok &= np.all((mesh == 0) | (mesh >= g.min_volume_mL - 1e-9), axis=1)
+    for j, sid in enumerate(ids):
+        k = plan.stock.index(plan.stock_by_id(sid))
+        dv = devices.stock_device[k]
+        if dv >= 0:
+            ok &= mesh[:, j] <= devices.items[dv].capacity_mL + 1e-9
+        if caps and sid in caps:
+            ok &= mesh[:, j] <= caps[sid] + 1e-9
+    mesh = mesh[ok]
+    vols = {sid: mesh[:, j] for j, sid in enumerate(ids)}
+    for sid, v in plan.design.fixed.items():
+        vols[sid] = np.full(mesh.shape[0], v)
+    dil = plan.diluent
+    if g.make_up == "added" and dil is not None:
+        rest = g.tube_volume_mL - sum(vols.values())
+        keep = (rest <= 1e-9) | (rest >= g.min_volume_mL - 1e-9)
+        vols = {k: v[keep] for k, v in vols.items()}
+        vols[dil.id] = np.maximum(rest[keep], 0.0)
+    nrow = len(next(iter(vols.values())))
+    rec = make_recipe(plan, vols, [f"f{i}" for i in range(nrow)])
+    return Candidates(rec, ids, nrow, g.step_mL)
+
+
+def _budget_overruns(plan: Plan, rec: Recipe) -> dict[str, tuple[float, float]]:
+    """Stocks whose recipe use exceeds on_hand less rinse and dead volume: id -> (used, usable)."""
+    g = plan.glassware
+    out = {}
+    for k, s in enumerate(plan.stock):
+        if s.on_hand is None or s.diluent:
+            continue
+        used = float(rec.volumes_mL[:, k].sum())
+        if used <= 0:
+            continue
+        usable = s.on_hand - g.rinse_mL - g.dead_volume_mL
+        if used > usable + 1e-9:
+            out[s.id] = (used, usable)
+    return out
