@@ -96,21 +96,25 @@ def main() -> None:
     t_vec = best_time(run_vectorised, args.repeats)
     ours = result["spec"].species_M[:nb]
 
-    t0 = time.perf_counter()
-    ref_root = np.array([species_root(M[i], L[i]) for i in range(nb)])
-    t_root = time.perf_counter() - t0
-    t0 = time.perf_counter()
-    ref_brentq = np.array([species_brentq(M[i], L[i]) for i in range(nb)])
-    t_brentq = time.perf_counter() - t0
+    def run_root():
+        result["root"] = np.array([species_root(M[i], L[i]) for i in range(nb)])
+
+    def run_brentq():
+        result["brentq"] = np.array([species_brentq(M[i], L[i]) for i in range(nb)])
+
+    # every timing is the best of the same number of repeats, measured in this run
+    t_root = best_time(run_root, args.repeats)
+    t_brentq = best_time(run_brentq, args.repeats)
+    ref_root, ref_brentq = result["root"], result["brentq"]
 
     per_vec = t_vec / args.tubes
     per_root = t_root / nb
     per_brentq = t_brentq / nb
     print(f"speciate, {args.tubes} tubes: {t_vec:.3f} s total, {per_vec * 1e6:.3f} us per tube "
           f"(best of {args.repeats})")
-    print(f"scipy.optimize.root loop, {nb} tubes: {per_root * 1e6:.1f} us per tube; "
+    print(f"scipy.optimize.root loop, {nb} tubes: {per_root * 1e6:.1f} us per tube (best of {args.repeats}); "
           f"speed-up {per_root / per_vec:.0f}x")
-    print(f"scipy.optimize.brentq loop, {nb} tubes: {per_brentq * 1e6:.1f} us per tube; "
+    print(f"scipy.optimize.brentq loop, {nb} tubes: {per_brentq * 1e6:.1f} us per tube (best of {args.repeats}); "
           f"speed-up {per_brentq / per_vec:.0f}x")
     for name, ref in (("root", ref_root), ("brentq", ref_brentq)):
         rel = np.max(np.abs(ours - ref) / np.maximum(ref, 1e-300))
