@@ -355,8 +355,8 @@ def _solve(plan, model, params, devices, nodes, crit, n, seed, caps, volumetric,
     if factor > 1:
         fine = _neighbourhood(plan, devices, cand, ex.counts, factor, caps)
         ex, ap, rec, n_feas2 = _exact_on(plan, model, params, devices, nodes, crit, n, seed, fine, volumetric, starts)
-        n_grid = cand.n_grid + fine.n_grid
-        n_feas = n_feas + n_feas2
+        n_grid = fine.n_grid
+        n_feas = n_feas2
     return rec, ex, ap, n_grid, n_feas, coarse_note
 
 
@@ -391,7 +391,8 @@ def _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetr
 
 
 def _neighbourhood(plan, devices, coarse: Candidates, counts, factor, caps) -> Candidates:
-    """Fine-grid candidates within ±factor steps of the coarse support."""
+    """Fine-grid candidates within ±factor steps of the coarse support, plus the coarse candidates
+    themselves (so the refined search can always keep the coarse solution)."""
     g = plan.glassware
     support = coarse.recipe.volumes_mL[np.flatnonzero(counts)]
     ids = coarse.designed_ids
@@ -403,6 +404,7 @@ def _neighbourhood(plan, devices, coarse: Candidates, counts, factor, caps) -> C
         grids = [np.maximum(c + offs, 0.0) for c in centre]
         mesh = np.stack([m.ravel() for m in np.meshgrid(*grids, indexing="ij")], axis=1)
         rows.append(mesh)
+    rows.append(coarse.recipe.volumes_mL[:, cols])
     mesh = np.unique(np.round(np.concatenate(rows), 10), axis=0)
     room = g.tube_volume_mL - sum(plan.design.fixed.values())
     ok = mesh.sum(axis=1) <= room + 1e-9
