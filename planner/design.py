@@ -79,7 +79,8 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
     step = step_mL or g.step_mL
     dil = plan.diluent
     fixed = plan.design.fixed
-    designed = [s.id for s in plan.stock if not s.diluent and s.id not in fixed]
+    bg = plan.background
+    designed = [s.id for s in plan.stock if not s.diluent and s.id not in fixed and not s.background]
     if not designed:
         raise DesignError("design.fixed fixes every stock: nothing is left to vary; remove a stock from fixed")
     room = g.tube_volume_mL - sum(fixed.values())
@@ -101,6 +102,8 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
     vols = {sid: mesh[:, j] for j, sid in enumerate(designed)}
     for sid, v in fixed.items():
         vols[sid] = np.full(mesh.shape[0], v)
+    if bg is not None and bg.id not in fixed:
+        vols = level_ionic_strength(plan, vols)
     if g.make_up == "added" and dil is not None:
         rest = g.tube_volume_mL - sum(vols.values())
         ok = (rest <= 1e-9) | (rest >= g.min_volume_mL - 1e-9)
@@ -111,6 +114,52 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
         raise DesignError("no tube fits: the fixed volumes and min_volume leave no room in tube_volume")
     rec = make_recipe(plan, vols, [f"c{i}" for i in range(n)])
     return Candidates(rec, tuple(designed), int(n), step)
+
+
+def level_ionic_strength(plan: Plan, vols: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Add the background-electrolyte volume that brings every tube to the same ionic strength.
+
+    The target is ``design.ionic_strength`` (default: the highest ionic strength among the tubes
+    without background electrolyte, so every tube can be raised to it). With the diluent filling the
+    rest, I = I₀ + V_bg (I_bg − I_dil)/V_tube, I₀ the tube's ionic strength with no background stock
+    (from the full speciation, so complexation's change of charges counts). The volume is rounded to the
+    grid; tubes that cannot reach the target within ``design.ionic_strength_tolerance`` (no room, or
+    volume below min_volume) are dropped.
+    """
+    from .model import ionic_strength_M
+
+    g = plan.glassware
+    bg = plan.background
+    model = build_model(plan)
+    n = len(next(iter(vols.values())))
+    tube = g.tube_volume_mL
+    rec0 = make_recipe(plan, {**vols, bg.id: np.zeros(n)} if g.make_up == "to-mark" else
+                       {**vols, bg.id: np.zeros(n), plan.diluent.id: np.maximum(tube - sum(vols.values()), 0.0)})
+    tot = totals_M(rec0, model.stock_conc_M)
+    ions = tube_ions_M(model, rec0.volumes_mL, rec0.total_volume_mL)
+    st = predict(model, tot, ions, warn=False)
+    I0 = st.ionic_strength_M
+    k_bg = model.stock_ids.index(bg.id)
+    i_bg = 0.5 * float(model.stock_ion_M[k_bg] @ model.ion_charges**2)
+    dil = plan.diluent
+    i_dil = 0.5 * float(model.stock_ion_M[model.stock_ids.index(dil.id)] @ model.ion_charges**2) if dil else 0.0
+    if not i_bg > i_dil:
+        raise DesignError(f"stock {bg.id}: the background electrolyte ({i_bg:.3g} M ionic strength) must be "
+                          f"stronger than the diluent ({i_dil:.3g} M) to level the tubes")
+    target = plan.design.ionic_strength_M or float(I0.max())
+    v_bg = np.round(np.maximum(target - I0, 0.0) * tube / (i_bg - i_dil) / g.step_mL) * g.step_mL
+    v_bg = np.round(v_bg, 10)
+    I = I0 + v_bg * (i_bg - i_dil) / tube
+    room = tube - sum(vols.values())
+    ok = (np.abs(I - target) <= plan.design.ionic_strength_tolerance * target) & (v_bg <= room + 1e-9)
+    ok &= (v_bg == 0) | (v_bg >= g.min_volume_mL - 1e-9)
+    if not ok.any():
+        raise DesignError(f"no tube can be brought to I = {target:.3g} M with stock {bg.id}: set "
+                          f"design.ionic_strength lower, use a more concentrated background stock, or widen "
+                          f"design.ionic_strength_tolerance")
+    out = {k: v[ok] for k, v in vols.items()}
+    out[bg.id] = v_bg[ok]
+    return out
 
 
 @dataclass(frozen=True)
@@ -420,6 +469,9 @@ def _neighbourhood(plan, devices, coarse: Candidates, counts, factor, caps) -> C
     vols = {sid: mesh[:, j] for j, sid in enumerate(ids)}
     for sid, v in plan.design.fixed.items():
         vols[sid] = np.full(mesh.shape[0], v)
+    bg = plan.background
+    if bg is not None and bg.id not in plan.design.fixed:
+        vols = level_ionic_strength(plan, vols)
     dil = plan.diluent
     if g.make_up == "added" and dil is not None:
         rest = g.tube_volume_mL - sum(vols.values())

@@ -79,3 +79,8 @@ def percent(x: float | None, digits: int = 2) -> str:
 def band(x: float, half_width: float) -> str:
     """An expected value with its band ``x ± half_width`` (for example A ± 2 sd), digits matched."""
     return with_uncertainty(x, half_width)
+
+
+def fixed(x: float, step: float = 0.01) -> str:
+    """``x`` with the decimals of ``step`` (a reading resolution), e.g. ``fixed(0.1, 0.01)`` → ``0.10``."""
+    return volume(x, step)

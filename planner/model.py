@@ -238,7 +238,7 @@ def predict(model: Model, totals: np.ndarray, ion_M: np.ndarray | None = None, *
         spec = chemistry.speciate(M0, L0, model.stoich_pq,
                                   chemistry.conditional_log_beta(lb_tube, model.stoich, model.pH))
         I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
-    if warn and model.activity_model == "davies" and np.any(I > IONIC_STRENGTH_WARN_M):
+    if warn and correct and model.activity_model == "davies" and np.any(I > IONIC_STRENGTH_WARN_M):
         warnings.warn(
             f"ionic strength reaches {float(np.max(I)):.2f} M: the Davies equation is poor above "
             f"{IONIC_STRENGTH_WARN_M} M; treat activity corrections as rough",

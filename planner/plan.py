@@ -173,6 +173,7 @@ class Stock(_Strict):
     purity: float | None = Field(default=None, gt=0, le=1)
     flask_mL: Volume | None = Field(default=None, alias="flask")
     diluent: bool = False
+    background: bool = False
 
     @field_validator("conc")
     @classmethod
@@ -272,6 +273,8 @@ class Design(_Strict):
     goal_se: float = Field(default=0.05, gt=0)
     fixed: dict[str, Volume] = Field(default_factory=dict)
     blank_offset: bool = False
+    ionic_strength_M: Conc | None = Field(default=None, alias="ionic_strength")
+    ionic_strength_tolerance: float = Field(default=0.02, gt=0, lt=1)
     analysis: Literal["global", "double-reciprocal", "one-to-one"] = "global"
 
 
@@ -314,6 +317,15 @@ class Plan(_Strict):
         for i, s in enumerate(self.stock):
             if ids.count(s.id) > 1:
                 raise PlanError(f"stock[{i}].id", f"stock id '{s.id}' is defined twice")
+        for i, s in enumerate(self.stock):
+            if s.background and s.diluent:
+                raise PlanError(f"stock[{i}].background", "a stock cannot be both the diluent and the background "
+                                "electrolyte: the diluent fills the tube, the background stock levels I")
+            if s.background and (s.conc or not s.ions):
+                raise PlanError(f"stock[{i}].background", "a background-electrolyte stock holds only inert ions: "
+                                "give it ions = { ... } and no conc")
+        if sum(s.background for s in self.stock) > 1:
+            raise PlanError("stock", "more than one stock has background = true: keep one")
         diluents = [s.id for s in self.stock if s.diluent]
         if len(diluents) > 1:
             raise PlanError("stock", f"more than one stock has diluent = true ({', '.join(diluents)}): keep one")
@@ -367,6 +379,10 @@ class Plan(_Strict):
             if s.id == sid:
                 return s
         raise PlanError("stock", unknown_name("stock id", sid, [s.id for s in self.stock]))
+
+    @property
+    def background(self) -> Stock | None:
+        return next((s for s in self.stock if s.background), None)
 
     def dispenser_for(self, sid: str) -> Dispenser | None:
         return next((d for d in self.glassware.dispenser if sid in d.stocks), None)

@@ -198,3 +198,25 @@ def test_even_series_baseline_is_what_is_compared(teaching_plan):
     d = design(teaching_plan, seed=0)
     e = assess(teaching_plan, even_series(teaching_plan, d.recipe.n_tubes), trials=0)
     assert d.se_even == pytest.approx(e.target_se, rel=1e-12)
+
+
+def test_ionic_strength_levelling():
+    # a background-electrolyte stock lets the optimiser give every tube the same ionic strength
+    text = scenario_text("stepwise").replace('[[stock]]\nid = "W"', '''[[stock]]
+id = "NA"
+label = "2.00 M sodium nitrate"
+ions = { "Na+" = "2.00 M", "NO3-" = "2.00 M" }
+background = true
+on_hand = "500 mL"
+
+[[stock]]
+id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').replace(
+        "goal_se = 0.05", 'goal_se = 0.05\nionic_strength = "0.40 M"')
+    plan = parse_plan_text(text)
+    d = design(plan, seed=0, starts=3)
+    a = assess(plan, d.recipe, trials=0, precision=False)
+    I = a.state.ionic_strength_M
+    assert np.all(np.abs(I - 0.4) <= 0.02 * 0.4 + 1e-12), I
+    assert d.recipe.column("NA").min() >= 0 and glassware_problems(plan, d.recipe) == []
+    ion_check = next(c for c in a.checks if c.id == "ionic-strength")
+    assert ion_check.status == "pass"

@@ -1,0 +1,450 @@
+"""What goes on the printed prep sheet and design report, as plain strings (no HTML, no chemistry).
+
+These functions turn the plan, the recipe and the JSON summaries of the assessment and of the stock
+needs into template contexts. Every number is formatted here, by :mod:`planner.fmt`, from the
+values of the summaries, so the paper and ``--json`` agree digit for digit. The templates only lay
+the strings out.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+from . import fmt, safety
+from .checks import SATURATION_WINDOW
+from .plan import Plan
+from .recipe import Recipe
+
+__all__ = [
+    "DEFAULT_ADDITION",
+    "RenderError",
+    "addition_order",
+    "blank_text",
+    "checklist",
+    "prep_context",
+    "report_context",
+    "safety_context",
+    "stock_role",
+]
+
+DEFAULT_ADDITION = ("medium", "ligand", "other", "metal")
+"""Default order of addition by role: buffer or diluent first, then ligand, then metal last, so the
+metal never meets a concentrated reagent in an undiluted drop, where it could precipitate or
+hydrolyse [common practice]."""
+
+PREFILL_FRACTION = 0.5  # put in about half of the smallest diluent share first [common practice]
+MIX_INVERSIONS = 10  # inversions to mix a stoppered volumetric flask [common practice]
+
+
+class RenderError(ValueError):
+    """A sheet cannot be made as asked; the message names the argument and the fix."""
+
+
+@dataclass(frozen=True)
+class Step:
+    """One line of the order of addition: what to add and a short reason (may be "")."""
+
+    text: str
+    why: str = ""
+
+
+# --------------------------------------------------------------------------------------------------
+# order of addition
+# --------------------------------------------------------------------------------------------------
+def stock_role(plan: Plan, sid: str) -> str:
+    """'metal' (holds M), 'ligand' (holds L only), 'medium' (buffer/diluent: neither) or 'other'."""
+    s = plan.stock_by_id(sid)
+    if "M" in s.conc:
+        return "metal"
+    if "L" in s.conc:
+        return "ligand"
+    if s.diluent or not s.conc:
+        return "medium"
+    return "other"  # pragma: no cover - a stock's conc only holds M or L today
+
+
+def addition_order(plan: Plan, recipe: Recipe, order: Sequence[str] | None = None) -> tuple[str, ...]:
+    """The dispensed stocks in the order they go into each tube.
+
+    ``order`` (stock ids, e.g. from a future plan key) overrides the default; it must list every
+    dispensed stock once. The default sorts by :data:`DEFAULT_ADDITION`, plan order within a role.
+
+    Raises
+    ------
+    RenderError
+        When ``order`` misses, repeats or invents a stock.
+    """
+    dispensed = recipe.dispensed_ids(plan)
+    if order is not None:
+        order = tuple(order)
+        unknown = [s for s in order if s not in dispensed]
+        missing = [s for s in dispensed if s not in order]
+        if unknown or missing or len(set(order)) != len(order):
+            raise RenderError(
+                f"order = {list(order)}: list every dispensed stock once ({', '.join(dispensed)})"
+                + (f"; unknown: {', '.join(unknown)}" if unknown else "")
+                + (f"; missing: {', '.join(missing)}" if missing else ""))
+        return order
+    rank = {r: i for i, r in enumerate(DEFAULT_ADDITION)}
+    return tuple(sorted(dispensed, key=lambda s: (rank[stock_role(plan, s)], dispensed.index(s))))
+
+
+def _nice_floor(x: float) -> float:
+    """Largest 1, 2 or 5 × 10^k not above ``x`` (a round volume to pour by eye)."""
+    if not x > 0:
+        return 0.0
+    e = math.floor(math.log10(x))
+    for m in (5.0, 2.0, 1.0):
+        if m * 10.0**e <= x * (1 + 1e-12):
+            return m * 10.0**e
+    return 10.0 ** (e - 1) * 5.0  # pragma: no cover - unreachable: 1 × 10^e ≤ x always
+
+
+def addition_steps(plan: Plan, recipe: Recipe, order: tuple[str, ...], custom: bool) -> list[Step]:
+    """The order of addition as sentences, stated once above the tube table."""
+    g = plan.glassware
+    dil = plan.diluent
+    steps: list[Step] = []
+    to_mark = g.make_up == "to-mark" and dil is not None
+    if to_mark:
+        least = float(recipe.column(dil.id).min())
+        prefill = _nice_floor(PREFILL_FRACTION * least)
+        if prefill >= 0.1 * g.tube_volume_mL:
+            steps.append(Step(f"about {fmt.sig(prefill, 2)} mL of {dil.id} first (by eye)",
+                              "nothing is added to an empty flask"))
+        else:
+            steps.append(Step(f"a little {dil.id} first where there is room",
+                              "nothing is added to an empty flask"))
+    for sid in order:
+        role = stock_role(plan, sid)
+        d = plan.dispenser_for(sid)
+        how = f" from the {_dispenser_text(d)}" if d else ""
+        why = ""
+        if not custom and role == "metal" and sid == order[-1]:
+            why = "last, into the diluted medium, so it cannot precipitate or hydrolyse"
+        label = {"metal": "metal", "ligand": "ligand", "medium": "medium", "other": "stock"}[role]
+        steps.append(Step(f"{sid} ({label}){how}", why))
+    if to_mark:
+        steps.append(Step(f"{dil.id} to the mark; stopper and invert {MIX_INVERSIONS} times",
+                          "mix only once the volume is complete"))
+    else:
+        steps.append(Step("cap and mix by inverting (or draw up and expel a few times in the cuvette)"))
+    return steps
+
+
+# --------------------------------------------------------------------------------------------------
+# small texts
+# --------------------------------------------------------------------------------------------------
+def _dispenser_text(d) -> str:
+    cap = f"{fmt.sig(d.capacity_mL * 1000, 3)} µL" if d.capacity_mL < 1 else f"{fmt.sig(d.capacity_mL, 3)} mL"
+    if d.kind == "micropipette":
+        return f"{cap} micropipette"
+    return f"{cap} {d.kind} (class {d.cls})"
+
+
+def blank_text(plan: Plan) -> tuple[str, str]:
+    """(short name, full sentence) of the blank to zero the instrument on."""
+    dil = plan.diluent
+    if dil is None:
+        media = [s for s in plan.stock if not s.conc]
+        if len(media) == 1:
+            dil = media[0]
+    if dil is not None:
+        name = f"{dil.id} ({dil.label})" if dil.label else dil.id
+        return name, f"zero the instrument on a tube of {name}"
+    name = "the medium without metal or ligand"
+    return name, ("zero the instrument on a tube made like the others with the metal and ligand stocks "
+                  "left out (their volume replaced by water or the medium)")
+
+
+def checklist(plan: Plan, blank: str) -> list[str]:
+    """The measurement steps, in our own words."""
+    o = plan.optics
+    wl = f"{fmt.sig(o.wavelength_nm, 3)} nm"
+    lo, hi = (fmt.fixed(x, 0.01) for x in o.linear_range)
+    return [
+        "Switch the spectrophotometer on early so the lamp is warm and stable before the first reading.",
+        f"Set the wavelength to {wl}.",
+        f"Fill a clean cuvette with the blank, {blank}, and zero the instrument on it at {wl}.",
+        "For each tube: rinse the cuvette twice with a little of that tube's solution, fill it, wipe the "
+        "clear faces with lens tissue, and put it in the holder the same way round every time.",
+        "Read each tube and write the value in the empty “measured A” column of the tube table.",
+        f"Re-read the blank every few tubes; re-zero if it has drifted. A reading outside {lo}–{hi} "
+        "is outside the linear range: note it rather than dilute the tube.",
+    ]
+
+
+# --------------------------------------------------------------------------------------------------
+# safety
+# --------------------------------------------------------------------------------------------------
+def safety_context(plan: Plan) -> dict:
+    """Cards for every reagent of the plan, the CMR alert, clashes and the usual cautions."""
+    reagents = safety.hazards_for(plan)
+    cards, cmr = [], []
+    for r in reagents:
+        hz = r.hazards
+        card = {"name": r.name, "stocks": ", ".join(r.stock_ids), "inferred": r.inferred,
+                "message": r.message, "known": hz is not None}
+        if hz is not None:
+            card.update({
+                "formula": hz.formula,
+                "signal": hz.signal_word or "not classified",
+                "danger": hz.signal_word == "Danger",
+                "pictograms": [{"code": p, "name": safety.PICTOGRAMS[p]} for p in hz.pictograms],
+                "statements": [{"code": c, "text": t} for c, t in hz.statements()],
+                "cmr": hz.cmr, "cmr_codes": ", ".join(hz.cmr_codes),
+                "incompatible": list(hz.incompatible), "ppe": list(hz.ppe),
+                "waste": hz.waste, "notes": hz.notes,
+                "provenance": (f"library entry {'recalled from memory' if hz.from_memory else 'from '}"
+                               f"{'' if hz.from_memory else hz.source}, checked {hz.checked}"
+                               + (f" ({hz.source})" if hz.from_memory else "")),
+            })
+            if hz.cmr:
+                cmr.append({"name": hz.name, "codes": ", ".join(hz.cmr_codes), "stocks": card["stocks"]})
+        cards.append(card)
+    return {
+        "cards": cards,
+        "cmr": cmr,
+        "cmr_advice": ("Use the least that resolves the constant (fewer or smaller tubes, a lower "
+                       "concentration) or substitute a less hazardous reagent; weigh solids in a fume "
+                       "hood or ventilated enclosure, and follow your institution's rules for CMR "
+                       "substances (some require prior approval or a register of use)."),
+        "clashes": [c.advice for c in safety.clashes(reagents)],
+        "cautions": list(safety.GENERAL_CAUTIONS),
+        "always": safety.ALWAYS,
+    }
+
+
+# --------------------------------------------------------------------------------------------------
+# prep sheet
+# --------------------------------------------------------------------------------------------------
+def _conc_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], str | None]:
+    s = plan.stock_by_id(sid)
+    prep = need.get("preparation")
+    rsd = s.conc_rsd if s.conc_rsd > 0 else (prep["u_rel"] if prep else 0.0)
+    lines = []
+    for comp, c in s.conc.items():
+        who = getattr(plan.components, comp).label or comp
+        lines.append(f"{who}: {fmt.conc_with_uncertainty(c, rsd * c)}")
+    basis = None
+    if lines:
+        basis = ("u from the plan's conc_rsd" if s.conc_rsd > 0 else
+                 "u from the weighing" if prep else "uncertainty not stated")
+    return lines, basis
+
+
+def _prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
+    """(instructions, warnings) for making one stock."""
+    s = plan.stock_by_id(sid)
+    g = plan.glassware
+    prep = need.get("preparation")
+    if prep:
+        assay = f", assay {fmt.percent(prep['purity'], 3)}" if prep["purity"] < 1 else ""
+        lines = [f"Weigh {fmt.mass(prep['mass_g'], g.balance.readability_g)} of {prep['formula']} "
+                 f"(M = {fmt.sig(prep['formula_weight_g_mol'], 5)} g/mol{assay}); dissolve and make up to "
+                 f"the mark of a {prep['weighed_flask']['label']}"
+                 + (f" ({fmt.conc(prep['weighed_conc_M'])})." if prep["steps"] else ".")]
+        for st in prep["steps"]:
+            lines.append(f"Pipette {fmt.sig(st['pipette_mL'], 3)} mL ({st['pipette']}) into a {st['flask']} "
+                         f"and make up to the mark: {fmt.conc(st['to_conc_M'])}.")
+        warns = []
+        if prep["mass_g"] < prep["min_weight_g"]:
+            warns.append(f"{fmt.mass(prep['mass_g'], g.balance.readability_g)} is below the balance's "
+                         f"minimum weight of {fmt.mass(prep['min_weight_g'], g.balance.readability_g)} "
+                         f"(USP <41>): weigh more into a larger flask and dilute.")
+        u = prep["u_rel"]
+        lines.append(f"Weighing and glassware give u = {fmt.percent(u)}.")
+        if s.conc_rsd < u * 0.999:
+            warns.append(f"The plan assumes {fmt.percent(s.conc_rsd)}, less than the weighing gives: "
+                         f"raise conc_rsd or standardise the stock.")
+        return lines, warns
+    if need.get("problem"):
+        return [], [str(need["problem"])]
+    if s.diluent:
+        return ["Make up as its description says; it is also the blank."], []
+    return ["Make up as its description says (no formula in the plan, so no mass is computed)."], []
+
+
+def _needed(need: dict, step: float) -> tuple[str, str, bool | None]:
+    if need.get("needed_mL") is None:
+        return "—", "—", None
+    used, total = need["recipe_mL"], need["needed_mL"]
+    txt = f"{fmt.fixed(total, 0.1)} mL"
+    sub = f"{fmt.fixed(used, 0.1)} in tubes + {fmt.fixed(total - used, 0.1)} rinse" if total > used else ""
+    return txt, sub, need.get("enough")
+
+
+def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict], *, date: str,
+                 paper: str, order: Sequence[str] | None = None) -> dict:
+    """Template context of the prep sheet from the assessment and stock-need summaries."""
+    g, o = plan.glassware, plan.optics
+    step = g.step_mL
+    dil = plan.diluent
+    to_mark = g.make_up == "to-mark" and dil is not None
+    seq = addition_order(plan, recipe, order)
+    steps = addition_steps(plan, recipe, seq, custom=order is not None)
+    blank_name, blank_sentence = blank_text(plan)
+    by_id = {n["id"]: n for n in needs}
+    missing = [s.id for s in plan.stock if s.id not in by_id]
+    if missing:
+        raise RenderError(f"needs: no entry for stock(s) {', '.join(missing)}: pass stock_needs(plan, recipe)")
+
+    stocks = []
+    for s in plan.stock:
+        n = by_id[s.id]
+        conc_lines, basis = _conc_lines(plan, s.id, n)
+        how, warns = _prep_lines(plan, s.id, n)
+        needed, needed_sub, enough = _needed(n, step)
+        d = plan.dispenser_for(s.id)
+        if d is not None:
+            disp = _dispenser_text(d)
+        elif s.diluent and to_mark:
+            disp = "to the mark of each flask"
+        else:
+            disp = "not dispensed" if n.get("deliveries", 0) == 0 else "no dispenser in the plan"
+        on_hand = f"{fmt.sig(n['on_hand_mL'], 3)} mL" if n.get("on_hand_mL") is not None else "—"
+        if enough is False:
+            warns = [f"NOT ENOUGH on hand: make at least {needed}.", *warns]
+        stocks.append({"id": s.id, "label": s.label, "diluent": s.diluent, "conc": conc_lines,
+                       "conc_basis": basis, "needed": needed, "needed_sub": needed_sub, "enough": enough,
+                       "on_hand": on_hand, "dispenser": disp, "how": how, "warnings": warns})
+
+    target = plan.target
+    lo, hi = o.linear_range
+    rows = []
+    for t in summary["tubes"]:
+        vols = t["volumes_mL"]
+        cells = [("—" if vols[sid] == 0 else fmt.volume(vols[sid], step)) for sid in seq]
+        a, sd = t["absorbance"], t["absorbance_sd"]
+        rows.append({"tube": t["tube"], "cells": cells, "absorbance": fmt.band(a, 2 * sd),
+                     "out": not (lo <= a <= hi), "complex": fmt.conc(t["species_M"][target])})
+    failing = [c for c in summary.get("checks", []) if c["status"] == "fail"]
+    verdict = summary.get("verdict")
+    return {
+        "kind": "prep",
+        "paper": paper,
+        "title": plan.title,
+        "date": date,
+        "facts": [
+            ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"),
+            ("Path length", f"{fmt.fixed(o.path_cm, 0.001)} cm"),
+            ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
+            ("Tubes", f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL"
+                      + (" volumetric flasks" if to_mark else ", every volume added")),
+            ("Temperature", f"{fmt.sig(plan.temperature_C, 3)} °C"),
+        ],
+        "blank": blank_sentence,
+        "blank_name": blank_name,
+        "verdict": verdict,
+        "verdict_reason": summary.get("verdict_reason", ""),
+        "failing": [c["id"] for c in failing],
+        "stocks": stocks,
+        "steps": [{"text": s.text, "why": s.why} for s in steps],
+        "columns": [f"{sid}" for sid in seq],
+        "column_units": "mL",
+        "step_text": fmt.sig(step, 2),
+        "makeup": f"to the mark with {dil.id}" if to_mark else None,
+        "target": target,
+        "rows": rows,
+        "checklist": checklist(plan, blank_name),
+        "safety": safety_context(plan),
+        "cmr": bool(safety_context(plan)["cmr"]),
+    }
+
+
+# --------------------------------------------------------------------------------------------------
+# design report
+# --------------------------------------------------------------------------------------------------
+_DESIGN_KEYS = (("criterion", "criterion"), ("efficiency_bound", "efficiency bound (vs the best approximate design)"),
+                ("se_ratio_vs_even", "SE ratio against the evenly spaced series"))
+
+
+def _design_rows(design: dict | None) -> list[tuple[str, str]]:
+    if not design:
+        return []
+    rows = []
+    for key, label in _DESIGN_KEYS:
+        if key in design and design[key] is not None:
+            v = design[key]
+            rows.append((label, fmt.sig(float(v), 3) if isinstance(v, int | float) else str(v)))
+    return rows
+
+
+def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, paper: str,
+                   figures: dict[str, str], design: dict | None = None) -> dict:
+    """Template context of the design report (verdict first) from the assessment summary."""
+    g = plan.glassware
+    step = g.step_mL
+    seq = addition_order(plan, recipe)
+    target = plan.target
+    lo, hi = plan.optics.linear_range
+    rows = []
+    for t in summary["tubes"]:
+        a, sd = t["absorbance"], t["absorbance_sd"]
+        rows.append({
+            "tube": t["tube"],
+            "cells": [("—" if t["volumes_mL"][s] == 0 else fmt.volume(t["volumes_mL"][s], step)) for s in seq],
+            "M": fmt.conc(t["total_M"]["M"]), "L": fmt.conc(t["total_M"]["L"]),
+            "complex": fmt.conc(t["species_M"][target]),
+            "saturation": fmt.sig(t["saturation"], 2),
+            "sat_out": not (SATURATION_WINDOW[0] <= t["saturation"] <= SATURATION_WINDOW[1]),
+            "absorbance": fmt.band(a, 2 * sd), "out": not (lo <= a <= hi),
+        })
+    params = []
+    for p in summary.get("parameters", []):
+        se, true = p.get("se"), p["true"]
+        ci = p.get("mc_ci95")
+        params.append({
+            "name": p["name"],
+            "guess": fmt.sig(p["guess"], 4),
+            "true": fmt.sig(true, 4),
+            "se": fmt.sig(se, 2),
+            "rel": fmt.percent(se / abs(true)) if se is not None and true else "—",
+            "mc_sd": fmt.sig(p.get("mc_sd"), 2),
+            "mc_bias": fmt.sig(p.get("mc_bias"), 2),
+            "ci": (f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—"),
+        })
+    corr = summary.get("correlation")
+    corr_rows = []
+    if corr and len(corr["names"]) > 1:
+        corr_rows = [{"name": n, "cells": [fmt.sig(x, 2) for x in row]}
+                     for n, row in zip(corr["names"], corr["matrix"], strict=True)]
+    prof = summary.get("profile")
+    prof_text = None
+    if prof:
+        d = prof["delta_chi2"]
+        prof_text = (f"Δχ² = {fmt.sig(d[0], 3)} towards K → 0 and {fmt.sig(d[-1], 3)} towards K → ∞ "
+                     f"(3.84 marks the 95 % limit)")
+    mc = summary.get("monte_carlo")
+    o = plan.optics
+    return {
+        "kind": "report",
+        "paper": paper,
+        "title": plan.title,
+        "date": date,
+        "verdict": summary.get("verdict"),
+        "verdict_reason": summary.get("verdict_reason", ""),
+        "goal_se": fmt.sig(summary.get("goal_se"), 2),
+        "target": target,
+        "facts": [
+            ("Target", f"log β[{target}], goal SE ≤ {fmt.sig(summary.get('goal_se'), 2)}"),
+            ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm, path {fmt.fixed(o.path_cm, 0.001)} cm"),
+            ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
+            ("Tubes", f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL, make-up {g.make_up}"),
+            ("Monte Carlo", f"{mc['trials']} simulated experiments, {fmt.percent(mc['failed_fraction'])} "
+                            f"failed fits" if mc else "not run"),
+        ],
+        "columns": list(seq),
+        "rows": rows,
+        "figures": figures,
+        "checks": [{"id": c["id"], "status": c["status"], "message": c["message"]}
+                   for c in summary.get("checks", [])],
+        "params": params,
+        "corr_names": corr["names"] if corr_rows else [],
+        "corr_rows": corr_rows,
+        "profile": prof_text,
+        "design": _design_rows(design),
+        "window": f"{fmt.sig(SATURATION_WINDOW[0], 1)}–{fmt.sig(SATURATION_WINDOW[1], 1)}",
+    }
