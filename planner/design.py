@@ -126,7 +126,6 @@ def level_ionic_strength(plan: Plan, vols: dict[str, np.ndarray]) -> dict[str, n
     grid; tubes that cannot reach the target within ``design.ionic_strength_tolerance`` (no room, or
     volume below min_volume) are dropped.
     """
-    from .model import ionic_strength_M
 
     g = plan.glassware
     bg = plan.background

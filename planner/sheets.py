@@ -197,9 +197,8 @@ def safety_context(plan: Plan) -> dict:
                 "cmr": hz.cmr, "cmr_codes": ", ".join(hz.cmr_codes),
                 "incompatible": list(hz.incompatible), "ppe": list(hz.ppe),
                 "waste": hz.waste, "notes": hz.notes,
-                "provenance": (f"library entry {'recalled from memory' if hz.from_memory else 'from '}"
-                               f"{'' if hz.from_memory else hz.source}, checked {hz.checked}"
-                               + (f" ({hz.source})" if hz.from_memory else "")),
+                "provenance": (f"Library entry recalled from memory ({hz.source}); checked {hz.checked}."
+                               if hz.from_memory else f"Library entry from {hz.source}; checked {hz.checked}."),
             })
             if hz.cmr:
                 cmr.append({"name": hz.name, "codes": ", ".join(hz.cmr_codes), "stocks": card["stocks"]})
@@ -267,7 +266,7 @@ def _prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]
     return ["Make up as its description says (no formula in the plan, so no mass is computed)."], []
 
 
-def _needed(need: dict, step: float) -> tuple[str, str, bool | None]:
+def _needed(need: dict) -> tuple[str, str, bool | None]:
     if need.get("needed_mL") is None:
         return "—", "—", None
     used, total = need["recipe_mL"], need["needed_mL"]
@@ -296,7 +295,7 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         n = by_id[s.id]
         conc_lines, basis = _conc_lines(plan, s.id, n)
         how, warns = _prep_lines(plan, s.id, n)
-        needed, needed_sub, enough = _needed(n, step)
+        needed, needed_sub, enough = _needed(n)
         d = plan.dispenser_for(s.id)
         if d is not None:
             disp = _dispenser_text(d)
@@ -322,6 +321,7 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
                      "out": not (lo <= a <= hi), "complex": fmt.conc(t["species_M"][target])})
     failing = [c for c in summary.get("checks", []) if c["status"] == "fail"]
     verdict = summary.get("verdict")
+    safe = safety_context(plan)
     return {
         "kind": "prep",
         "paper": paper,
@@ -349,8 +349,8 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         "target": target,
         "rows": rows,
         "checklist": checklist(plan, blank_name),
-        "safety": safety_context(plan),
-        "cmr": bool(safety_context(plan)["cmr"]),
+        "safety": safe,
+        "cmr": bool(safe["cmr"]),
     }
 
 

@@ -14,8 +14,6 @@ from planner.model import build_model, predict
 from planner.plan import parse_plan_text
 from planner.recipe import make_recipe
 
-from .conftest import scenario_text
-
 
 def test_ionic_strength_by_hand(teaching_plan):
     # derived: I = ½ Σ c z². A tube of BG only: 0.10 M KNO3 → 0.10 M. Every ion comes from its stock,
