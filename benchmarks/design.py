@@ -62,9 +62,9 @@ def score(plan, vols: np.ndarray, ids: tuple[str, ...]) -> np.ndarray:
     rec = make_recipe(plan, {sid: flat[:, j] for j, sid in enumerate(ids)})
     cand = Candidates(rec, ids, rec.n_tubes, g.step_mL)
     nodes = prior_nodes(params, True)
-    F, M0, st = _information_rows(plan, model, params, cand, plan_devices(plan), nodes, "target")
+    F, M0, st, band = _information_rows(plan, model, params, cand, plan_devices(plan), nodes, "target")
     # the same robust linear-range screen the design uses
-    inside = _range_mask(model, st, nodes.weights).reshape(D, n)
+    inside = _range_mask(model, st, nodes.weights, band).reshape(D, n)
     outside = ~inside.all(axis=1)
     out = np.empty(D)
     for k in range(D):  # baseline only: the general optimiser's population

@@ -13,6 +13,7 @@ import numpy as np
 from . import chemistry
 from .model import Model, TubeState
 
+RANGE_RISK = 0.05  # a tube may leave the linear range for at most 5 % of the guess's uncertainty [common practice]
 SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1; domain.md §4
 CALIBRATION_EXCESS = 20.0  # a tube with ≥ 20-fold excess is a "complete conversion" candidate [common practice]
 CONVERSION_WANTED = 0.99  # [common practice]
@@ -39,11 +40,23 @@ def _tubes(labels, mask) -> str:
     return ", ".join(sel[:6]) + (" …" if len(sel) > 6 else "")
 
 
+def range_risk(absorbance: np.ndarray, sd: np.ndarray, lo: float, hi: float) -> np.ndarray:
+    """Probability that a reading expected at ``absorbance`` ± ``sd`` (normal) falls outside [lo, hi]."""
+    from scipy.special import ndtr
+
+    a = np.asarray(absorbance, dtype=float)
+    sd = np.broadcast_to(np.asarray(sd, dtype=float), a.shape)
+    s = np.where(sd > 0, sd, 1.0)
+    smooth = ndtr((lo - a) / s) + ndtr((a - hi) / s)
+    sharp = ((a < lo) | (a > hi)).astype(float)  # no spread: inside (edges included) or out
+    return np.where(sd > 0, smooth, sharp)
+
+
 def linear_range(model: Model, state: TubeState, tubes, band_sd: np.ndarray | None = None) -> Check:
     """Every tube's absorbance, with its band over the guess's uncertainty, inside the window.
 
-    ``band_sd`` (n,) is the sd of the expected absorbance from the guesses' uncertainty (log β, ε);
-    the band is ±2 sd.
+    ``band_sd`` (n,) is the sd of the expected absorbance from the guesses' uncertainty (log β, ε); a
+    tube is at risk when the chance of leaving the window exceeds RANGE_RISK (the band is ±2 sd).
     """
     lo, hi = model.linear_range
     a = state.absorbance
@@ -58,11 +71,12 @@ def linear_range(model: Model, state: TubeState, tubes, band_sd: np.ndarray | No
         return Check("linear-range", "fail", "; ".join(parts))
     if band_sd is not None:
         top, bottom = a + 2 * band_sd, a - 2 * band_sd
-        risky = (top > hi) | (bottom < lo)
+        risky = range_risk(a, band_sd, lo, hi) > RANGE_RISK
         if risky.any():
             return Check("linear-range", "warn",
                          f"inside {lo:g}–{hi:g} at the guess, but {_tubes(tubes, risky)} may leave it if the "
-                         f"guess is off by 2 sd (band {bottom.min():.3f}–{top.max():.3f}): move those tubes "
+                         f"guess is off (more than {RANGE_RISK:.0%} risk; 2-sd band {bottom.min():.3f}–"
+                         f"{top.max():.3f}): move those tubes "
                          f"towards the middle of the range")
     return Check("linear-range", "pass", f"all {len(tubes)} tubes read between {lo:g} and {hi:g} "
                  f"(A = {a.min():.3f}–{a.max():.3f})")

@@ -376,24 +376,40 @@ def demo(
     """Run the built-in scenario through everything the tool does and say what it wrote."""
     from .assess import assess as run_assess
     from .demo import demo_recipe_csv
+    from .design import design as run_design
     from .files import write_atomic
-    from .recipe import parse_recipe_csv
+    from .recipe import parse_recipe_csv, recipe_to_csv
 
     text = scenario_text(DEMO_SCENARIO)
     p = parse_plan_text(text, source=f"scenario {DEMO_SCENARIO}")
-    written = []
-    written.append(write_atomic(out_dir / "plan.toml", text))
+    written = [write_atomic(out_dir / "plan.toml", text)]
+    out.rule("1. the usual hand-made recipe: constant metal, evenly spaced ligand")
     csv_text = demo_recipe_csv(p)
-    written.append(write_atomic(out_dir / "recipe.csv", csv_text))
-    r = parse_recipe_csv(csv_text, p)
-    a = run_assess(p, r, trials=2000, seed=0)
+    written.append(write_atomic(out_dir / "recipe-even.csv", csv_text))
+    r_even = parse_recipe_csv(csv_text, p)
+    a_even = run_assess(p, r_even, trials=2000, seed=0)
+    print_assessment(a_even, p)
+    written.append(write_atomic(out_dir / "assessment-even.json", json.dumps(a_even.summary(), indent=2) + "\n"))
+    out.rule("2. the designed recipe")
+    d = run_design(p, seed=0)
+    print_design(d, p)
+    written.append(write_atomic(out_dir / "recipe.csv", recipe_to_csv(d.recipe, p)))
+    written.append(write_atomic(out_dir / "design.json", json.dumps(d.summary(), indent=2) + "\n"))
+    out.rule("3. the designed recipe, assessed with Monte Carlo")
+    a = run_assess(p, d.recipe, trials=2000, seed=0)
     print_assessment(a, p)
     written.append(write_atomic(out_dir / "assessment.json", json.dumps(a.summary(), indent=2) + "\n"))
+    written.extend(_demo_paper(p, d, a, out_dir))
     out.print("\n[bold]Wrote[/bold]")
     for w in written:
         out.print(f"  {w}")
     out.print(f"Try: kplan check {out_dir / 'plan.toml'}   kplan assess {out_dir / 'plan.toml'} "
               f"{out_dir / 'recipe.csv'}")
+
+
+def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
+    """Prep sheet and report for the demo (when the rendering layer is available)."""
+    return []
 
 
 def main() -> None:

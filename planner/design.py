@@ -20,6 +20,7 @@ import numpy as np
 
 from . import optimal
 from .assess import assess
+from .checks import RANGE_RISK, range_risk
 from .errors import Devices, error_factors, plan_devices
 from .information import absorbance_derivatives
 from .model import Model, build_model, predict, tube_ions_M
@@ -32,7 +33,6 @@ from .series import even_series
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
 
 MAX_CANDIDATES = 40000  # above this the grid is searched coarsely first, then refined locally
-RANGE_RISK = 0.05  # a candidate may leave the linear range for at most 5 % of the prior weight
 GH3 = (np.array([-math.sqrt(3.0), 0.0, math.sqrt(3.0)]), np.array([1 / 6, 2 / 3, 1 / 6]))
 # source: Gauss–Hermite (probabilists') 3-point rule, nodes 0, ±√3 with weights 2/3, 1/6 — exact to degree 5
 GH5 = (np.array([-2.856970013872806, -1.355626179974266, 0.0, 1.355626179974266, 2.856970013872806]),
@@ -298,6 +298,9 @@ def _information_rows(plan: Plan, model: Model, params: Parameters, cand: Candid
         shared.append(np.concatenate([f.J_stock, f.J_device], axis=1) if volumetric else
                       np.zeros((rec.n_tubes, 0)))
     sd = np.sqrt(var)
+    # spread of each reading from the absorptivities' uncertainty (they enter linearly), for the screen
+    eps_sd = model.epsilon_M_cm * model.epsilon_rsd
+    band = np.sqrt(np.sum((der.dA_depsilon * eps_sd) ** 2, axis=-1))          # (G, C)
     Fth = J / sd[..., None]
     S = np.stack(shared)                                                    # (G, C, k + d)
     keep = np.any(S != 0, axis=(0, 1)) if S.size else np.zeros(0, dtype=bool)
@@ -310,7 +313,7 @@ def _information_rows(plan: Plan, model: Model, params: Parameters, cand: Candid
     else:
         F = Fth
         M0 = None
-    return F[:, :, None, :], M0, st
+    return F[:, :, None, :], M0, st, band
 
 
 def _take_state(st, g):
@@ -319,11 +322,15 @@ def _take_state(st, g):
     return TubeState(*(getattr(st, f)[g] for f in TubeState.__dataclass_fields__))
 
 
-def _range_mask(model: Model, st, weights: np.ndarray) -> np.ndarray:
-    """Candidates inside the linear range at nodes carrying ≥ 95 % of the prior weight."""
+def _range_mask(model: Model, st, weights: np.ndarray, band: np.ndarray) -> np.ndarray:
+    """Candidates that leave the linear range for at most RANGE_RISK of the guesses' uncertainty.
+
+    Log β uncertainty by the quadrature nodes; ε uncertainty as a normal band around each node's
+    reading (ε enters the absorbance linearly).
+    """
     lo, hi = model.linear_range
-    inside = (st.absorbance >= lo) & (st.absorbance <= hi)                  # (G, C)
-    return (weights @ inside) >= 1.0 - RANGE_RISK - 1e-12
+    risk = range_risk(st.absorbance, band, lo, hi)                          # (G, C)
+    return weights @ risk <= RANGE_RISK + 1e-12
 
 
 def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None, robust: bool | None = None,
@@ -409,8 +416,8 @@ def _solve(plan, model, params, devices, nodes, crit, n, seed, caps, volumetric,
 
 
 def _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetric, starts):
-    F, M0, st = _information_rows(plan, model, params, cand, devices, nodes, crit, volumetric=volumetric)
-    ok = _range_mask(model, st, nodes.weights)
+    F, M0, st, band = _information_rows(plan, model, params, cand, devices, nodes, crit, volumetric=volumetric)
+    ok = _range_mask(model, st, nodes.weights, band)
     if not ok.any():
         lo, hi = model.linear_range
         raise DesignError(

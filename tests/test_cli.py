@@ -34,7 +34,7 @@ def test_help(capsys, monkeypatch):
 def test_demo_writes_files(tmp_path, capsys, monkeypatch):
     code, out, err = run(capsys, monkeypatch, "demo", "--out", tmp_path / "d")
     assert code == 0, err
-    for name in ("plan.toml", "recipe.csv", "assessment.json"):
+    for name in ("plan.toml", "recipe.csv", "recipe-even.csv", "design.json", "assessment.json"):
         assert (tmp_path / "d" / name).is_file()
     data = json.loads((tmp_path / "d" / "assessment.json").read_text())
     assert data["tubes"] and data["verdict"] in ("resolved", "bounded", "unresolved")

@@ -130,7 +130,7 @@ def test_nuisance_factor_information_equals_full_covariance(teaching_plan):
     from planner.design import Candidates
 
     cand = Candidates(d.recipe, ("CU", "DY"), d.recipe.n_tubes, 0.05)
-    F, M0, _ = _information_rows(teaching_plan, model, params, cand, plan_devices(teaching_plan),
+    F, M0, _, _ = _information_rows(teaching_plan, model, params, cand, plan_devices(teaching_plan),
                                  prior_nodes(params, False), "target")
     log_n_var = criterion_of_counts(F, np.ones(d.recipe.n_tubes, dtype=int), criterion="target",
                                     target=params.target, M0=M0)

@@ -21,8 +21,8 @@ def test_ionic_strength_by_hand(teaching_plan):
     r = make_recipe(teaching_plan, {"CU": np.array([0.0, 1.0]), "DY": np.array([0.0, 0.0])})
     st = expected_state(teaching_plan, r)
     assert st.ionic_strength_M[0] == pytest.approx(0.10, rel=1e-12)
-    # CU stock: Cu2+ 10 mM, K+ 0.10 M, NO3- 0.12 M → I = ½(0.01·4 + 0.10 + 0.12) = 0.13 M; 1:10 with BG
-    expected = 0.1 * 0.13 + 0.9 * 0.10
+    # CU stock: Cu2+ 10 mM, K+ 0.070 M, NO3- 0.090 M → I = ½(0.01·4 + 0.07 + 0.09) = 0.10 M
+    expected = 0.1 * 0.10 + 0.9 * 0.10
     assert st.ionic_strength_M[1] == pytest.approx(expected, rel=1e-12)
 
 
