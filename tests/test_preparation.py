@@ -21,6 +21,8 @@ def test_mass_to_weigh_follows_the_formula(teaching_plan):
     # USP <41>: with 0.1 mg repeatability the minimum weight is 2000 × 0.1 mg = 0.2 g; 0.244 g is above it
     assert cu.min_weight_g == pytest.approx(0.2)
     assert cu.mass_g >= cu.min_weight_g and not cu.steps
+    assert needs["DY"].preparation is None  # no formula given: nothing to weigh
+    assert needs["BG"].preparation is None
 
 
 def test_dilution_chain_below_minimum_weight(teaching_text):
@@ -31,8 +33,6 @@ def test_dilution_chain_below_minimum_weight(teaching_text):
     # 1 mM in 100 mL would need 24 mg, below the 0.2 g minimum weight: weigh a concentrate and dilute
     assert cu.steps and cu.mass_g >= cu.min_weight_g
     assert cu.steps[-1].to_conc_M == pytest.approx(1.0e-3, rel=1e-12)
-    assert needs["DY"].preparation is None  # no formula given: nothing to weigh
-    assert needs["BG"].preparation is None
 
 
 def test_volumes_needed_with_allowance(teaching_plan):
