@@ -208,21 +208,21 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
     params = free_parameters(plan, model)
     true_theta = pack(model, params, log_beta=lb_true)
     cr = mc = prof = None
-    band_sd = None
+    risk = spread = None
     if precision and params.size:
         ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
         reading = ReadingModel(model, params, state.totals_M, ions)
         J = reading.jac(true_theta[None, :])[0]
         cov_A = budget.total
         cr = cramer_rao(J, cov_A)
-        band_sd = np.sqrt(np.sum((J * params.prior_sd) ** 2, axis=1))
+        risk, spread = _range_risk_over_prior(model, params, reading)
         W = whitening(cov_A)
         if trials > 0:
             mc = monte_carlo(plan, model, recipe, devices, reading, W, np.random.default_rng(seed), trials,
                              true_theta, progress=progress)
         if params.target >= 0:
             prof = profile(reading, W, true_theta)
-    check_list.append(chk.linear_range(model, state, recipe.tubes, band_sd))
+    check_list.append(chk.linear_range(model, state, recipe.tubes, risk, spread))
     check_list.append(chk.saturation(state, recipe.tubes))
     if model.complex_mask[model.index(target)] and model.complex_mask.sum() == 1:
         # the 'complete conversion' shortcut only makes sense with a single M–L complex
@@ -240,6 +240,29 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
     check_list.sort(key=lambda c: -STATUSES.index(c.status))
     return Assessment(plan.title, recipe, model, state, tuple(check_list), budget, params, true_theta, cr, mc,
                       prof, verdict, reason, plan.design.goal_se)
+
+
+def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingModel):
+    """Each tube's chance of leaving the linear range over the guesses' uncertainty (as the design
+    screens its candidates), and the lowest/highest reading over ±2 sd."""
+    from .information import absorbance_derivatives
+    from .precision import unpack
+    from .priors import prior_nodes
+
+    nodes = prior_nodes(params, robust=True)
+    lb, eps, _ = unpack(model, params, nodes.theta)
+    G = nodes.theta.shape[0]
+    tot = np.broadcast_to(reading.totals_M, (G,) + reading.totals_M.shape)
+    ions = np.broadcast_to(reading.ions_M, (G,) + reading.ions_M.shape)
+    st = predict(model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False)
+    der = absorbance_derivatives(model, st, eps)
+    band = np.sqrt(np.sum((der.dA_depsilon * model.epsilon_M_cm * model.epsilon_rsd) ** 2, axis=-1))
+    lo, hi = model.linear_range
+    risk = chk.prior_range_risk(st.absorbance, band, nodes.weights, lo, hi)
+    inner = np.abs(nodes.theta - params.guess).max(axis=1) <= 2.0 * params.prior_sd.max() + 1e-12
+    a_lo = float(np.min((st.absorbance - 2 * band)[inner]))
+    a_hi = float(np.max((st.absorbance + 2 * band)[inner]))
+    return risk, (max(a_lo, 0.0), a_hi)
 
 
 def _stock_and_glassware_checks(plan: Plan, recipe: Recipe, devices) -> list[Check]:

@@ -52,11 +52,24 @@ def range_risk(absorbance: np.ndarray, sd: np.ndarray, lo: float, hi: float) -> 
     return np.where(sd > 0, smooth, sharp)
 
 
-def linear_range(model: Model, state: TubeState, tubes, band_sd: np.ndarray | None = None) -> Check:
+def prior_range_risk(absorbance: np.ndarray, band: np.ndarray, weights: np.ndarray, lo: float,
+                     hi: float) -> np.ndarray:
+    """Chance of leaving [lo, hi] over the guesses' uncertainty.
+
+    ``absorbance`` and ``band`` are (G, ...) at the quadrature nodes of the uncertain log β (weights
+    (G,)); ``band`` is the sd from the absorptivities' uncertainty at each node (they enter linearly).
+    """
+    risk = range_risk(absorbance, band, lo, hi)
+    return np.tensordot(weights, risk, axes=(0, 0))
+
+
+def linear_range(model: Model, state: TubeState, tubes, risk: np.ndarray | None = None,
+                 spread: tuple[float, float] | None = None) -> Check:
     """Every tube's absorbance, with its band over the guess's uncertainty, inside the window.
 
-    ``band_sd`` (n,) is the sd of the expected absorbance from the guesses' uncertainty (log β, ε); a
-    tube is at risk when the chance of leaving the window exceeds RANGE_RISK (the band is ±2 sd).
+    ``risk`` (n,) is each tube's chance of leaving the window over the guesses' uncertainty
+    (:func:`prior_range_risk`); a tube is at risk above RANGE_RISK. ``spread`` is the lowest and
+    highest reading over that uncertainty (about ±2 sd), for the message.
     """
     lo, hi = model.linear_range
     a = state.absorbance
@@ -69,23 +82,24 @@ def linear_range(model: Model, state: TubeState, tubes, band_sd: np.ndarray | No
         if out_lo.any():
             parts.append(f"{_tubes(tubes, out_lo)} below {lo:g}: use more of the absorbing stock or a longer path")
         return Check("linear-range", "fail", "; ".join(parts))
-    if band_sd is not None:
-        top, bottom = a + 2 * band_sd, a - 2 * band_sd
-        risky = range_risk(a, band_sd, lo, hi) > RANGE_RISK
+    if risk is not None:
+        risky = risk > RANGE_RISK
         if risky.any():
+            band = f"; readings {spread[0]:.3f}–{spread[1]:.3f} over the guess's range" if spread else ""
             return Check("linear-range", "warn",
                          f"inside {lo:g}–{hi:g} at the guess, but {_tubes(tubes, risky)} may leave it if the "
-                         f"guess is off (more than {RANGE_RISK:.0%} risk; 2-sd band {bottom.min():.3f}–"
-                         f"{top.max():.3f}): move those tubes "
-                         f"towards the middle of the range")
+                         f"guess is off (up to {risk.max():.0%} risk{band}): move those tubes towards the "
+                         f"middle of the range")
     return Check("linear-range", "pass", f"all {len(tubes)} tubes read between {lo:g} and {hi:g} "
                  f"(A = {a.min():.3f}–{a.max():.3f})")
 
 
 def saturation(state: TubeState, tubes) -> Check:
-    """Coverage of the binding curve: tubes inside the 0.2–0.8 window, and a span at least that wide.
+    """Coverage of the binding curve: at least two tubes inside the 0.2–0.8 window and a span of at
+    least half of it.
 
-    Weber (1975) asks for the 0.2–0.8 window; Deranleau (1969, JACS 91:4044) for ~75 % of the curve.
+    Weber (1975) asks for the 0.2–0.8 window; Deranleau (1969, JACS 91:4044) for ~75 % of the curve;
+    Bowser & Chen (1998, J. Phys. Chem. A 102:8063) find the central-to-upper part the most informative.
     """
     s = state.saturation
     lo, hi = SATURATION_WINDOW
@@ -96,7 +110,9 @@ def saturation(state: TubeState, tubes) -> Check:
     if inside.sum() == 0:
         fix = ("raise the ligand (or metal) excess" if s.max() < lo else "lower the excess")
         return Check("saturation", "fail", f"{msg}: no tube where the data determine K best; {fix}")
-    if span < (hi - lo) - 1e-12 or inside.sum() < 2:
+    # two tubes inside the window are enough when the optimiser has placed them there on purpose: the
+    # informative part of the curve is its middle-to-upper range (Bowser & Chen 1998), not its whole span
+    if inside.sum() < 2 or span < 0.5 * (hi - lo):
         if s.max() < hi:
             fix = "add tubes with more of the excess reagent to reach the upper part of the curve"
         elif s.min() > lo:

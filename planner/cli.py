@@ -9,6 +9,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Annotated
 
+import numpy as np
 import typer
 from rich.console import Console
 from rich.markup import escape
@@ -213,9 +214,16 @@ def print_assessment(a, p) -> None:
             side.append("cannot be told from K → 0")
         if pr.high_unbounded:
             side.append("cannot be told from K → ∞")
-        out.print(f"χ² profile of log β[{p.target}]: Δχ² = {fmt.sig(pr.delta_chi2[0], 3)} towards K → 0 and "
-                  f"{fmt.sig(pr.delta_chi2[-1], 3)} towards K → ∞ (threshold 3.84)"
+        out.print(f"χ² profile of log β[{p.target}] (other parameters refitted; 3.84 = 95 % threshold)"
                   + (f" — {'; '.join(side)}" if side else ""))
+        t = Table(show_header=True, box=None, pad_edge=False)
+        picks = np.unique(np.linspace(0, pr.log_beta.size - 1, 9).round().astype(int))
+        t.add_column("log β", justify="right")
+        for k in picks:
+            t.add_column(("K→0 " if k == 0 else "K→∞ " if k == pr.log_beta.size - 1 else "")
+                         + f"{pr.log_beta[k]:.2f}", justify="right")
+        t.add_row("Δχ²", *(fmt.sig(float(pr.delta_chi2[k]), 3) for k in picks))
+        out.print(t)
     colour = {"pass": "green", "warn": "yellow", "fail": "red"}
     t = Table(title="Checks")
     for c in ("check", "status", "what was found / what to do"):
