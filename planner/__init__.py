@@ -1,3 +1,52 @@
-"""kplan: plan, check and fit absorbance experiments that measure formation constants."""
+"""kplan: plan, check and fit absorbance experiments that measure metal–ligand formation constants.
+
+The public API, in the order data flows: plan → model → assessment / design.
+
+>>> from planner import load_plan, even_series, assess, design
+>>> plan = load_plan("plan.toml")                      # doctest: +SKIP
+>>> a = assess(plan, even_series(plan), trials=500)    # doctest: +SKIP
+>>> d = design(plan)                                   # doctest: +SKIP
+"""
+
+from .assess import Assessment, assess
+from .chemistry import EquilibriumError, Speciation, one_to_one, speciate
+from .design import Design, DesignError, design
+from .errors import ErrorBudget, error_budget, plan_devices
+from .fitting import FitResult, fit_many
+from .model import Model, TubeState, build_model, predict
+from .plan import Plan, PlanError, load_plan, parse_plan_text
+from .recipe import Recipe, RecipeError, make_recipe, read_recipe_csv, recipe_to_csv
+from .series import even_series
 
 __version__ = "0.1.0"
+
+__all__ = [
+    "Assessment",
+    "Design",
+    "DesignError",
+    "EquilibriumError",
+    "ErrorBudget",
+    "FitResult",
+    "Model",
+    "Plan",
+    "PlanError",
+    "Recipe",
+    "RecipeError",
+    "Speciation",
+    "TubeState",
+    "assess",
+    "build_model",
+    "design",
+    "error_budget",
+    "even_series",
+    "fit_many",
+    "load_plan",
+    "make_recipe",
+    "one_to_one",
+    "parse_plan_text",
+    "plan_devices",
+    "predict",
+    "read_recipe_csv",
+    "recipe_to_csv",
+    "speciate",
+]
