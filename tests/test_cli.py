@@ -131,3 +131,14 @@ def test_examples_are_checked_and_assessed(capsys, monkeypatch):
         assert code == 0, (p, err)
         data = json.loads(out)
         assert len(data["tubes"]) == len(Path(csv).read_text().strip().splitlines()) - 1
+
+
+def test_fit_command(tmp_path, capsys, monkeypatch):
+    csv = tmp_path / "readings.csv"
+    csv.write_text("tube,CU,DY,absorbance\nT1,1.00,0.50,0.290\nT2,1.00,1.00,0.452\nT3,1.00,1.50,0.560\n"
+                   "T4,1.00,2.00,0.629\nT5,1.00,3.00,0.712\nT6,1.00,4.00,0.760\n")
+    code, out, err = run(capsys, monkeypatch, "fit", ROOT / "planner/data/scenarios/teaching.toml", csv, "--json")
+    assert code == 0, err
+    data = json.loads(out)
+    assert data["parameters"][0]["name"] == "log_beta[ML]" and data["dof"] == 4
+    assert 2.5 < data["parameters"][0]["estimate"] < 4.5
