@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import optimal
+from . import glassware, optimal
 from .assess import assess
 from .checks import RANGE_RISK, prior_range_risk
 from .errors import Devices, error_factors, plan_devices
@@ -80,12 +80,14 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
     for sid in designed:
         k = plan.stock.index(plan.stock_by_id(sid))
         cap = room
+        low = max(g.min_volume_mL, step)
         j = devices.stock_device[k]
         if j >= 0:
             cap = min(cap, devices.items[j].capacity_mL)
+            low = max(low, glassware.smallest_delivery_mL(devices.items[j]))
         if caps_mL and sid in caps_mL:
             cap = min(cap, caps_mL[sid])
-        levels.append(_levels(max(g.min_volume_mL, step), cap, step, allow_zero=True))
+        levels.append(_levels(low, cap, step, allow_zero=True))
     # cartesian product, then keep what fits (vectorised over the grid)
     mesh = np.stack([m.ravel() for m in np.meshgrid(*levels, indexing="ij")], axis=1)
     fits = mesh.sum(axis=1) <= room + 1e-9
@@ -407,6 +409,8 @@ def _neighbourhood(plan, devices, coarse: Candidates, counts, factor, caps) -> C
         dv = devices.stock_device[k]
         if dv >= 0:
             ok &= mesh[:, j] <= devices.items[dv].capacity_mL + 1e-9
+            vmin = glassware.smallest_delivery_mL(devices.items[dv])
+            ok &= (mesh[:, j] == 0) | (mesh[:, j] >= vmin - 1e-9)
         if caps and sid in caps:
             ok &= mesh[:, j] <= caps[sid] + 1e-9
     mesh = mesh[ok]

@@ -109,6 +109,11 @@ def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = Non
             bad = [t for t, s in zip(recipe.tubes, small, strict=True) if s]
             out.append((f"stock {sid}", f"below min_volume = {g.min_volume_mL:g} mL in {', '.join(bad[:4])}: "
                         f"use a more dilute stock or a smaller dispenser"))
+        vmin = glassware.smallest_delivery_mL(item)
+        tiny = used & (v < vmin * (1 - 1e-9))
+        if tiny.any():
+            out.append((f"stock {sid}", f"below the smallest volume the {item.label} delivers ({vmin:g} mL) in "
+                        f"{_tubes(recipe.tubes, tiny)}: use a smaller device or a more dilute stock"))
         over = used & (v > item.capacity_mL * (1 + 1e-9))
         if over.any():
             bad = [t for t, o in zip(recipe.tubes, over, strict=True) if o]
@@ -122,6 +127,11 @@ def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = Non
                             f"(asked otherwise in {', '.join(bad[:4])}): use a burette or graduated pipette"))
         del tubes
     return out
+
+
+def _tubes(labels, mask) -> str:
+    sel = [t for t, m in zip(labels, mask, strict=True) if m]
+    return ", ".join(sel[:4]) + (" …" if len(sel) > 4 else "")
 
 
 def require_glassware_fits(plan: Plan, recipe: Recipe, devices: Devices | None = None) -> None:
@@ -228,7 +238,10 @@ def delivery_sds(plan: Plan, recipe: Recipe, devices: Devices, *, delta_T_C: flo
             u_sys[:, kk] = du.systematic_mL * reps
             continue
         one = np.minimum(v, item.capacity_mL)
-        du = glassware.delivery_uncertainty(item, one, delta_T_C=dT)
+        # below the device's smallest volume its specification does not hold (flagged by the glassware
+        # check); take the uncertainty at that smallest volume instead of refusing to assess
+        vmin = glassware.smallest_delivery_mL(item)
+        du = glassware.delivery_uncertainty(item, np.where(v > 0, np.maximum(one, vmin), 0.0), delta_T_C=dT)
         # a volume beyond capacity needs refills: each refill is another delivery
         refills = np.maximum(np.ceil(v / item.capacity_mL - 1e-9), 1.0)
         u_rand[:, kk] = np.where(v > 0, du.random_mL * np.sqrt(refills), 0.0)

@@ -526,6 +526,12 @@ def _shown(values: np.ndarray, limit: int = 5) -> str:
     return ", ".join(vals) + more
 
 
+def smallest_delivery_mL(item: GlasswareItem) -> float:
+    """Smallest volume the device is specified to deliver (10 % of nominal for a micropipette,
+    ISO 8655-2 — from memory; 0 for glassware, whose limit is the plan's min_volume)."""
+    return MICROPIPETTE_MIN_FRACTION * item.capacity_mL if item.kind == "micropipette" else 0.0
+
+
 def check_volume(item: GlasswareItem, volume_mL, *, step_mL: float | None = None,
                  min_volume_mL: float | None = None) -> None:
     """Refuse volumes a device cannot deliver.
