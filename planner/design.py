@@ -69,9 +69,7 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
     """
     g = plan.glassware
     step = step_mL or g.step_mL
-    dil = plan.diluent
     fixed = plan.design.fixed
-    bg = plan.background
     designed = [s.id for s in plan.stock if not s.diluent and s.id not in fixed and not s.background]
     if not designed:
         raise DesignError("design.fixed fixes every stock: nothing is left to vary; remove a stock from fixed")
@@ -92,12 +90,21 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
     mesh = np.stack([m.ravel() for m in np.meshgrid(*levels, indexing="ij")], axis=1)
     fits = mesh.sum(axis=1) <= room + 1e-9
     mesh = mesh[fits]
-    # a tube needs metal and ligand both, except a blank when a blank offset is fitted
+    rec = _complete(plan, designed, mesh, "c")
+    return Candidates(rec, tuple(designed), rec.n_tubes, step)
+
+
+def _complete(plan: Plan, designed, mesh: np.ndarray, prefix: str) -> Recipe:
+    """Candidate recipe from designed volumes (C, d): fixed volumes, the background electrolyte that
+    levels the ionic strength, and the diluent remainder under ``make_up = "added"``."""
+    g = plan.glassware
     vols = {sid: mesh[:, j] for j, sid in enumerate(designed)}
-    for sid, v in fixed.items():
+    for sid, v in plan.design.fixed.items():
         vols[sid] = np.full(mesh.shape[0], v)
-    if bg is not None and bg.id not in fixed:
+    bg = plan.background
+    if bg is not None and bg.id not in plan.design.fixed:
         vols = level_ionic_strength(plan, vols)
+    dil = plan.diluent
     if g.make_up == "added" and dil is not None:
         rest = g.tube_volume_mL - sum(vols.values())
         ok = (rest <= 1e-9) | (rest >= g.min_volume_mL - 1e-9)
@@ -106,8 +113,7 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
     n = len(next(iter(vols.values())))
     if n == 0:
         raise DesignError("no tube fits: the fixed volumes and min_volume leave no room in tube_volume")
-    rec = make_recipe(plan, vols, [f"c{i}" for i in range(n)])
-    return Candidates(rec, tuple(designed), int(n), step)
+    return make_recipe(plan, vols, [f"{prefix}{i}" for i in range(n)])
 
 
 def level_ionic_strength(plan: Plan, vols: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
@@ -413,22 +419,8 @@ def _neighbourhood(plan, devices, coarse: Candidates, counts, factor, caps) -> C
             ok &= (mesh[:, j] == 0) | (mesh[:, j] >= vmin - 1e-9)
         if caps and sid in caps:
             ok &= mesh[:, j] <= caps[sid] + 1e-9
-    mesh = mesh[ok]
-    vols = {sid: mesh[:, j] for j, sid in enumerate(ids)}
-    for sid, v in plan.design.fixed.items():
-        vols[sid] = np.full(mesh.shape[0], v)
-    bg = plan.background
-    if bg is not None and bg.id not in plan.design.fixed:
-        vols = level_ionic_strength(plan, vols)
-    dil = plan.diluent
-    if g.make_up == "added" and dil is not None:
-        rest = g.tube_volume_mL - sum(vols.values())
-        keep = (rest <= 1e-9) | (rest >= g.min_volume_mL - 1e-9)
-        vols = {k: v[keep] for k, v in vols.items()}
-        vols[dil.id] = np.maximum(rest[keep], 0.0)
-    nrow = len(next(iter(vols.values())))
-    rec = make_recipe(plan, vols, [f"f{i}" for i in range(nrow)])
-    return Candidates(rec, ids, nrow, g.step_mL)
+    rec = _complete(plan, ids, mesh[ok], "f")
+    return Candidates(rec, ids, rec.n_tubes, g.step_mL)
 
 
 def _budget_overruns(plan: Plan, rec: Recipe) -> dict[str, tuple[float, float]]:

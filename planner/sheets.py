@@ -9,6 +9,7 @@ the strings out.
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -34,6 +35,7 @@ DEFAULT_ADDITION = ("medium", "ligand", "other", "metal")
 metal never meets a concentrated reagent in an undiluted drop, where it could precipitate or
 hydrolyse [common practice]."""
 
+LN10 = math.log(10.0)
 PREFILL_FRACTION = 0.5  # put in about half of the smallest diluent share first [common practice]
 MIX_INVERSIONS = 10  # inversions to mix a stoppered volumetric flask [common practice]
 
@@ -137,10 +139,23 @@ def addition_steps(plan: Plan, recipe: Recipe, order: tuple[str, ...], custom: b
 # --------------------------------------------------------------------------------------------------
 # small texts
 # --------------------------------------------------------------------------------------------------
+_SUBSCRIPT = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
+
+
+def pretty_formula(formula: str) -> str:
+    """A formula as printed: counts as subscripts, hydrate dot as '·' ("CuSO4.5H2O" → "CuSO₄·5H₂O")."""
+    parts = re.split(r"[.·•∙⋅*](?=\d*[A-Z(\[])", formula.strip())
+    out = []
+    for part in parts:
+        coef, rest = re.match(r"(\d*)(.*)", part, flags=re.S).groups()
+        out.append(coef + re.sub(r"(?<=[A-Za-z)\]])\d+", lambda m: m.group(0).translate(_SUBSCRIPT), rest))
+    return "·".join(out)
+
+
 def _dispenser_text(d) -> str:
+    if d.kind == "micropipette":  # read in µL, as their dials are
+        return f"{fmt.sig(d.capacity_mL * 1000, 3)} µL micropipette"
     cap = f"{fmt.sig(d.capacity_mL * 1000, 3)} µL" if d.capacity_mL < 1 else f"{fmt.sig(d.capacity_mL, 3)} mL"
-    if d.kind == "micropipette":
-        return f"{cap} micropipette"
     return f"{cap} {d.kind} (class {d.cls})"
 
 
@@ -189,7 +204,7 @@ def safety_context(plan: Plan) -> dict:
                 "message": r.message, "known": hz is not None}
         if hz is not None:
             card.update({
-                "formula": hz.formula,
+                "formula": pretty_formula(hz.formula),
                 "signal": hz.signal_word or "not classified",
                 "danger": hz.signal_word == "Danger",
                 "pictograms": [{"code": p, "name": safety.PICTOGRAMS[p]} for p in hz.pictograms],
@@ -241,7 +256,7 @@ def _prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]
     prep = need.get("preparation")
     if prep:
         assay = f", assay {fmt.percent(prep['purity'], 3)}" if prep["purity"] < 1 else ""
-        lines = [f"Weigh {fmt.mass(prep['mass_g'], g.balance.readability_g)} of {prep['formula']} "
+        lines = [f"Weigh {fmt.mass(prep['mass_g'], g.balance.readability_g)} of {pretty_formula(prep['formula'])} "
                  f"(M = {fmt.sig(prep['formula_weight_g_mol'], 5)} g/mol{assay}); dissolve and make up to "
                  f"the mark of a {prep['weighed_flask']['label']}"
                  + (f" ({fmt.conc(prep['weighed_conc_M'])})." if prep["steps"] else ".")]
@@ -344,7 +359,7 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         "steps": [{"text": s.text, "why": s.why} for s in steps],
         "columns": [f"{sid}" for sid in seq],
         "column_units": "mL",
-        "step_text": fmt.sig(step, 2),
+        "step_text": fmt.sig(step, 1),
         "makeup": f"to the mark with {dil.id}" if to_mark else None,
         "target": target,
         "rows": rows,
@@ -370,6 +385,15 @@ def _design_rows(design: dict | None) -> list[tuple[str, str]]:
             v = design[key]
             rows.append((label, fmt.sig(float(v), 3) if isinstance(v, int | float) else str(v)))
     return rows
+
+
+def _relative_se(name: str, true: float, se: float | None) -> str:
+    """Relative SE of the quantity itself: of K for a log β (ln 10 · SE, first order), else SE/|value|."""
+    if se is None:
+        return "—"
+    if name.startswith("log_beta["):
+        return f"{fmt.percent(LN10 * se)} of K"
+    return fmt.percent(se / abs(true)) if true else "—"
 
 
 def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, paper: str,
@@ -401,7 +425,7 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
             "guess": fmt.sig(p["guess"], 4),
             "true": fmt.sig(true, 4),
             "se": fmt.sig(se, 2),
-            "rel": fmt.percent(se / abs(true)) if se is not None and true else "—",
+            "rel": _relative_se(p["name"], true, se),
             "mc_sd": fmt.sig(p.get("mc_sd"), 2),
             "mc_bias": fmt.sig(p.get("mc_bias"), 2),
             "ci": (f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—"),
