@@ -44,7 +44,7 @@ def _user_errors() -> tuple[type[BaseException], ...]:
 
     extra: list[type[BaseException]] = [EquilibriumError]
     for mod, name in (("glassware", "GlasswareError"), ("stocks", "StockError"), ("optimal", "DesignError"),
-                      ("fitting", "FitError")):
+                      ("fitting", "FitError"), ("render", "RenderError")):
         try:
             extra.append(getattr(__import__(f"planner.{mod}", fromlist=[name]), name))
         except (ImportError, AttributeError):
@@ -356,6 +356,71 @@ def fit(
     out.print(t)
 
 
+PAPER_CHOICES = ("A4", "Letter")  # the same keys as planner.render.PAPERS (checked in the tests)
+
+
+def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: bool, paper: str, trials: int,
+                  seed: int, design_json: Path | None = None) -> None:
+    from .assess import assess as run_assess
+    from .errors import require_glassware_fits
+    from .files import write_atomic_bytes
+    from .preparation import stock_needs
+    from .render import PAPERS
+    from .render import prep_sheet as render_sheet
+    from .render import report as render_report
+
+    if paper not in PAPERS:
+        raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
+    fmt_ = "html" if html else "pdf"
+    p = load_plan(plan)
+    r = read_recipe_csv(recipe, p)
+    if kind == "sheet":
+        require_glassware_fits(p, r)  # a sheet is followed at the bench: every volume must be deliverable
+    a = _with_progress(lambda prog: run_assess(p, r, trials=trials, seed=seed, progress=prog), trials, quiet=False)
+    if kind == "sheet":
+        data = render_sheet(p, r, a, stock_needs(p, r), paper=paper, fmt=fmt_)
+    else:
+        design_summary = None
+        if design_json is not None:
+            try:
+                design_summary = json.loads(design_json.read_text(encoding="utf-8"))
+            except (OSError, json.JSONDecodeError) as exc:
+                raise UserError(f"--design {design_json}: cannot read it as the JSON from kplan design ({exc})") from None
+        data = render_report(p, r, a, design=design_summary, paper=paper, fmt=fmt_)
+    write_atomic_bytes(out_path, data)
+    out.print(f"wrote {out_path} ({len(data) / 1024:.0f} kB, {paper})")
+
+
+@app.command()
+def sheet(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    recipe: Annotated[Path, typer.Argument(help="recipe CSV")],
+    out_path: Annotated[Path, typer.Option("--out", help="where to write the prep sheet")] = Path("prep.pdf"),
+    html: Annotated[bool, typer.Option("--html", help="write HTML instead of PDF")] = False,
+    paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}")] = "A4",
+    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments behind the bands", min=0)] = 500,
+    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers")] = 0,
+) -> None:
+    """Print the prep sheet: stocks and how to make them, each tube's volumes in order, expected
+    absorbance with its band, a measurement checklist and the safety notes."""
+    _paper_output("sheet", plan, recipe, out_path, html, paper, trials, seed)
+
+
+@app.command()
+def report(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    recipe: Annotated[Path, typer.Argument(help="recipe CSV")],
+    out_path: Annotated[Path, typer.Option("--out", help="where to write the report")] = Path("report.pdf"),
+    html: Annotated[bool, typer.Option("--html", help="write HTML instead of PDF")] = False,
+    paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}")] = "A4",
+    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments", min=0)] = 2000,
+    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers")] = 0,
+    design_json: Annotated[Path | None, typer.Option("--design", help="design.json from kplan design")] = None,
+) -> None:
+    """Print the design report: verdict, recipe, plots, checks with fixes, parameters and correlations."""
+    _paper_output("report", plan, recipe, out_path, html, paper, trials, seed, design_json)
+
+
 @app.command()
 def stocks(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
@@ -452,8 +517,15 @@ def demo(
 
 
 def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
-    """Prep sheet and report for the demo (when the rendering layer is available)."""
-    return []
+    """Prep sheet and report of the designed recipe."""
+    from .files import write_atomic_bytes
+    from .preparation import stock_needs
+    from .render import prep_sheet as render_sheet
+    from .render import report as render_report
+
+    sheet_pdf = write_atomic_bytes(out_dir / "prep.pdf", render_sheet(p, d.recipe, a, stock_needs(p, d.recipe)))
+    report_pdf = write_atomic_bytes(out_dir / "report.pdf", render_report(p, d.recipe, a, design=d.summary()))
+    return [sheet_pdf, report_pdf]
 
 
 def main() -> None:

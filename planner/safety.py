@@ -11,13 +11,15 @@ from __future__ import annotations
 
 import functools
 import re
-import tomllib
 from collections.abc import Iterable
 from dataclasses import dataclass
 from importlib import resources
 
+import tomllib
+
 __all__ = [
     "ALWAYS",
+    "CLASSES",
     "CMR_CODES",
     "GENERAL_CAUTIONS",
     "H_STATEMENTS",
@@ -30,6 +32,7 @@ __all__ = [
     "SafetyDataError",
     "clashes",
     "hazards_for",
+    "infer_from_label",
     "is_cmr_code",
     "library",
     "lookup",

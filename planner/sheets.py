@@ -25,6 +25,7 @@ __all__ = [
     "blank_text",
     "checklist",
     "prep_context",
+    "pretty_formula",
     "report_context",
     "safety_context",
     "stock_role",
@@ -213,7 +214,7 @@ def safety_context(plan: Plan) -> dict:
                 "incompatible": list(hz.incompatible), "ppe": list(hz.ppe),
                 "waste": hz.waste, "notes": hz.notes,
                 "provenance": (f"Library entry recalled from memory ({hz.source}); checked {hz.checked}."
-                               if hz.from_memory else f"Library entry from {hz.source}; checked {hz.checked}."),
+                               if hz.from_memory else f"Library entry: {hz.source}; checked {hz.checked}."),
             })
             if hz.cmr:
                 cmr.append({"name": hz.name, "codes": ", ".join(hz.cmr_codes), "stocks": card["stocks"]})
@@ -433,7 +434,7 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
     corr = summary.get("correlation")
     corr_rows = []
     if corr and len(corr["names"]) > 1:
-        corr_rows = [{"name": n, "cells": [fmt.sig(x, 2) for x in row]}
+        corr_rows = [{"name": n, "cells": [fmt.fixed(x, 0.01) if x is not None else "—" for x in row]}
                      for n, row in zip(corr["names"], corr["matrix"], strict=True)]
     prof = summary.get("profile")
     prof_text = None

@@ -34,7 +34,8 @@ def test_help(capsys, monkeypatch):
 def test_demo_writes_files(tmp_path, capsys, monkeypatch):
     code, out, err = run(capsys, monkeypatch, "demo", "--out", tmp_path / "d")
     assert code == 0, err
-    for name in ("plan.toml", "recipe.csv", "recipe-even.csv", "design.json", "assessment.json"):
+    for name in ("plan.toml", "recipe.csv", "recipe-even.csv", "design.json", "assessment.json", "prep.pdf",
+                 "report.pdf"):
         assert (tmp_path / "d" / name).is_file()
     data = json.loads((tmp_path / "d" / "assessment.json").read_text())
     assert data["tubes"] and data["verdict"] in ("resolved", "bounded", "unresolved")
@@ -142,3 +143,29 @@ def test_fit_command(tmp_path, capsys, monkeypatch):
     data = json.loads(out)
     assert data["parameters"][0]["name"] == "log_beta[ML]" and data["dof"] == 4
     assert 2.5 < data["parameters"][0]["estimate"] < 4.5
+
+
+def test_sheet_and_report_commands(tmp_path, capsys, monkeypatch):
+    from planner.render import PAPERS
+
+    assert tuple(PAPERS) == cli.PAPER_CHOICES
+    plan = ROOT / "planner/data/scenarios/teaching.toml"
+    rec = tmp_path / "r.csv"
+    rec.write_text("tube,CU,DY\nT1,1.00,0.50\nT2,1.00,1.00\nT3,1.00,2.00\nT4,1.00,3.00\n")
+    code, out, err = run(capsys, monkeypatch, "sheet", plan, rec, "--out", tmp_path / "prep.pdf", "--trials", "100")
+    assert code == 0, err
+    assert (tmp_path / "prep.pdf").read_bytes()[:5] == b"%PDF-"
+    code, out, err = run(capsys, monkeypatch, "report", plan, rec, "--out", tmp_path / "rep.html", "--html",
+                         "--trials", "100", "--paper", "Letter")
+    assert code == 0, err
+    assert "<html" in (tmp_path / "rep.html").read_text().lower()
+    code, _, err = run(capsys, monkeypatch, "sheet", plan, rec, "--paper", "A5", "--out", tmp_path / "x.pdf")
+    assert code == 2 and "A5" in err and not (tmp_path / "x.pdf").exists()
+
+
+def test_sheet_refuses_undeliverable_volumes(tmp_path, capsys, monkeypatch):
+    plan = ROOT / "planner/data/scenarios/teaching.toml"
+    rec = tmp_path / "r.csv"
+    rec.write_text("tube,CU,DY\nT1,1.00,0.52\n")
+    code, _, err = run(capsys, monkeypatch, "sheet", plan, rec, "--out", tmp_path / "prep.pdf")
+    assert code == 2 and "grid" in err and not (tmp_path / "prep.pdf").exists()

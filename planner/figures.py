@@ -1,0 +1,335 @@
+"""Figures of the design report: matplotlib (no display, no pyplot state) drawn to inline SVG text.
+
+Two kinds of functions: ``*_data`` compute what a figure shows (the smooth binding curve from
+:func:`planner.model.predict`, the SE scan from :func:`planner.assess.assess`), and ``*_svg`` draw
+it. The SVGs are deterministic (fixed hash salt, no date) and their element ids are prefixed so that
+several can share one HTML page.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import fmt
+from .checks import SATURATION_WINDOW
+from .plan import Plan
+from .recipe import Recipe
+
+__all__ = [
+    "BindingCurve",
+    "SeScan",
+    "absorbance_svg",
+    "binding_curve_data",
+    "binding_svg",
+    "mc_histogram_svg",
+    "cramer_rao_se",
+    "se_scan_data",
+    "se_scan_svg",
+]
+
+WIDTH_IN, HEIGHT_IN = 3.45, 2.45  # two figures side by side on A4 or Letter
+INK, ACCENT, BAND, WARN = "#1f2933", "#1d5fa7", "#dbe7f3", "#b42318"
+_RC = {
+    "svg.fonttype": "none",        # text stays text: small files, searchable PDFs
+    "svg.hashsalt": "kplan",       # ids from a fixed salt: same input, same bytes
+    "font.family": "DejaVu Sans",
+    "font.size": 7.5,
+    "axes.titlesize": 8.0,
+    "axes.labelsize": 7.5,
+    "axes.edgecolor": "#52606d",
+    "axes.linewidth": 0.6,
+    "xtick.major.width": 0.6,
+    "ytick.major.width": 0.6,
+    "xtick.labelsize": 6.8,
+    "ytick.labelsize": 6.8,
+    "legend.fontsize": 6.5,
+    "legend.frameon": False,
+    "lines.linewidth": 1.2,
+}
+
+
+def _figure():
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(WIDTH_IN, HEIGHT_IN))
+    ax = fig.add_subplot()
+    ax.spines[["top", "right"]].set_visible(False)
+    return fig, ax
+
+
+def _plain(label: str) -> str:
+    """A user's label as literal text for matplotlib (no mathtext)."""
+    return str(label).replace("$", r"\$")
+
+
+def _svg(fig, prefix: str) -> str:
+    """The figure as an ``<svg>`` element (no XML prolog), element ids prefixed with ``prefix``."""
+    import matplotlib
+
+    buf = io.StringIO()
+    with matplotlib.rc_context(_RC):
+        fig.tight_layout(pad=0.4)
+        fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
+    text = buf.getvalue()
+    text = text[text.index("<svg"):]
+    text = re.sub(r'\bid="([^"]+)"', rf'id="{prefix}-\1"', text)
+    text = re.sub(r"url\(#([^)]+)\)", rf"url(#{prefix}-\1)", text)
+    text = re.sub(r'xlink:href="#([^"]+)"', rf'xlink:href="#{prefix}-\1"', text)
+    return text
+
+
+def _draw(prefix: str, paint) -> str:
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        fig, ax = _figure()
+        paint(fig, ax)
+        return _svg(fig, prefix)
+
+
+# --------------------------------------------------------------------------------------------------
+# expected absorbance of each tube in the linear range
+# --------------------------------------------------------------------------------------------------
+def absorbance_svg(tubes: list[dict], linear_range: tuple[float, float], *, prefix: str = "fa") -> str:
+    """Each tube's expected absorbance with a ±2 sd bar, over the linear-range band.
+
+    ``tubes`` are the assessment summary's tube rows (keys "tube", "absorbance", "absorbance_sd").
+    """
+    labels = [_plain(t["tube"]) for t in tubes]
+    a = np.array([t["absorbance"] for t in tubes], dtype=float)
+    sd = np.array([t["absorbance_sd"] for t in tubes], dtype=float)
+    lo, hi = linear_range
+    x = np.arange(len(a))
+    inside = (a >= lo) & (a <= hi)
+
+    def paint(fig, ax):
+        ax.axhspan(lo, hi, color=BAND, lw=0, label=f"linear range {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}")
+        ax.errorbar(x[inside], a[inside], yerr=2 * sd[inside], fmt="o", ms=3.5, color=ACCENT, ecolor=ACCENT,
+                    elinewidth=0.9, capsize=2, label="expected A ± 2 sd")
+        if (~inside).any():
+            ax.errorbar(x[~inside], a[~inside], yerr=2 * sd[~inside], fmt="s", ms=3.5, color=WARN,
+                        ecolor=WARN, elinewidth=0.9, capsize=2, label="outside the range")
+        ax.set_xticks(x, labels, rotation=0 if len(x) <= 12 else 90)
+        top = max(hi, float(np.max(a + 2 * sd))) if a.size else hi
+        ax.set_ylim(0, top * 1.08)
+        ax.set_xlim(-0.6, len(x) - 0.4)
+        ax.set_xlabel("tube")
+        ax.set_ylabel("absorbance")
+        ax.legend(loc="upper left")
+
+    return _draw(prefix, paint)
+
+
+# --------------------------------------------------------------------------------------------------
+# binding curve
+# --------------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class BindingCurve:
+    """Fraction of the metal bound in complexes against free ligand, smooth and at the tubes.
+
+    Attributes
+    ----------
+    metal_total_M : metal total the curve is computed at (the recipe's; the median if it varies), mol/L.
+    free_L_M, fraction_bound : (N,) the smooth curve.
+    tube_free_L_M, tube_fraction : (n,) each tube (from the assessment's tube rows).
+    tubes : tube labels.
+    """
+
+    metal_total_M: float
+    free_L_M: np.ndarray
+    fraction_bound: np.ndarray
+    tube_free_L_M: np.ndarray
+    tube_fraction: np.ndarray
+    tubes: tuple[str, ...]
+
+
+def binding_curve_data(plan: Plan, recipe: Recipe, summary: dict, *, n_points: int = 240) -> BindingCurve:
+    """Speciate a fine log-spaced series of ligand totals at the recipe's metal total.
+
+    The constants are the ones the assessment assumed true (its parameters' "true" values); the
+    other ions are the tubes' average, so activity corrections match the tubes'. The curve is the
+    classical binding isotherm, fraction of metal in M–L complexes against free ligand [source:
+    Weber 1975, Adv. Protein Chem. 29:1, for the 0.2–0.8 window drawn with it].
+    """
+    from .model import build_model, predict, tube_ions_M
+    from .recipe import totals_M
+
+    model = build_model(plan)
+    lb = model.log_beta.copy()
+    for p in summary.get("parameters", []):
+        m = re.fullmatch(r"log_beta\[(.+)\]", p["name"])
+        if m and m.group(1) in model.species:
+            lb[model.index(m.group(1))] = p["true"]
+    tot = totals_M(recipe, model.stock_conc_M)
+    M0 = float(np.median(tot[:, 0][tot[:, 0] > 0])) if np.any(tot[:, 0] > 0) else 0.0
+    L_pos = tot[:, 1][tot[:, 1] > 0]
+    lo, hi = (float(L_pos.min()) / 20, float(L_pos.max()) * 20) if L_pos.size else (1e-7, 1e-1)
+    L_series = np.geomspace(lo, hi, n_points)
+    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL).mean(axis=0)
+    totals = np.column_stack([np.full(n_points, M0), L_series])
+    st = predict(model, totals, np.broadcast_to(ions, (n_points, ions.size)), log_beta=lb, warn=False)
+    mask = model.complex_mask
+    p_metal = model.stoich[mask, 0]
+
+    def frac(species_M, metal_M):
+        bound = np.sum(species_M[..., mask] * p_metal, axis=-1)
+        return np.divide(bound, metal_M, out=np.zeros_like(bound), where=metal_M > 0)
+
+    rows = summary["tubes"]
+    sp_names = [s for s in model.species]
+    tube_sp = np.array([[t["species_M"][s] for s in sp_names] for t in rows], dtype=float)
+    tube_M = np.array([t["total_M"]["M"] for t in rows], dtype=float)
+    tube_L = np.array([t["species_M"]["L"] for t in rows], dtype=float)
+    return BindingCurve(M0, st.free_L, frac(st.species_M, np.full(n_points, M0)), tube_L,
+                        frac(tube_sp.reshape(len(rows), len(sp_names)), tube_M),
+                        tuple(t["tube"] for t in rows))
+
+
+def binding_svg(curve: BindingCurve, *, prefix: str = "fb") -> str:
+    """The binding curve on a log free-ligand axis with the 0.2–0.8 window shaded and the tubes on it."""
+    lo, hi = SATURATION_WINDOW
+
+    def paint(fig, ax):
+        ax.axhspan(lo, hi, color=BAND, lw=0, label=f"window {fmt.sig(lo, 1)}–{fmt.sig(hi, 1)}")
+        ok = curve.free_L_M > 0
+        ax.plot(curve.free_L_M[ok], curve.fraction_bound[ok], color=INK, lw=1.1,
+                label="model at the recipe's metal total")
+        t_ok = curve.tube_free_L_M > 0
+        ax.plot(curve.tube_free_L_M[t_ok], curve.tube_fraction[t_ok], "o", ms=4, color=ACCENT, mec="white",
+                mew=0.5, label="tubes", zorder=3)
+        if len(curve.tubes) <= 12:
+            for x, y, lab in zip(curve.tube_free_L_M[t_ok], curve.tube_fraction[t_ok],
+                                 np.array(curve.tubes)[t_ok], strict=True):
+                ax.annotate(_plain(lab), (x, y), xytext=(3, -7), textcoords="offset points", fontsize=5.8,
+                            color="#52606d")
+        ax.set_xscale("log")
+        ax.set_ylim(-0.02, 1.02)
+        ax.set_xlabel("free ligand / M")
+        ax.set_ylabel("fraction of metal bound")
+        ax.legend(loc="upper left")
+
+    return _draw(prefix, paint)
+
+
+# --------------------------------------------------------------------------------------------------
+# Monte Carlo against Cramér–Rao
+# --------------------------------------------------------------------------------------------------
+def mc_histogram_svg(estimates: np.ndarray, true: float, se: float, *, name: str = "log K",
+                     prefix: str = "fm") -> str:
+    """Histogram of the Monte-Carlo estimates with the Cramér–Rao normal density N(true, se²) over it.
+
+    The Cramér–Rao bound is the asymptotic covariance of an efficient estimator [source: Cramér
+    1946, Mathematical Methods of Statistics; Rao 1945, Bull. Calcutta Math. Soc. 37:81]; agreement
+    of the two shapes says the asymptotic SE can be trusted.
+    """
+    est = np.asarray(estimates, dtype=float)
+    est = est[np.isfinite(est)]
+
+    def paint(fig, ax):
+        if est.size:
+            bins = int(np.clip(np.sqrt(est.size), 10, 40))
+            ax.hist(est, bins=bins, density=True, color=BAND, edgecolor=ACCENT, lw=0.5,
+                    label=f"Monte Carlo ({est.size} fits)")
+        if np.isfinite(se) and se > 0:
+            span = max(4 * se, float(np.max(np.abs(est - true))) if est.size else 0.0)
+            x = np.linspace(true - span, true + span, 300)
+            ax.plot(x, np.exp(-0.5 * ((x - true) / se) ** 2) / (se * np.sqrt(2 * np.pi)), color=INK,
+                    label=f"Cramér–Rao, SE {fmt.sig(se, 2)}")
+        ax.axvline(true, color=WARN, lw=0.8, ls="--", label="assumed true")
+        ax.set_ylim(0, ax.get_ylim()[1] * 1.3)  # headroom for the legend above the bars
+        ax.set_xlabel(_plain(name))
+        ax.set_ylabel("density")
+        ax.legend(loc="upper left")
+
+    return _draw(prefix, paint)
+
+
+# --------------------------------------------------------------------------------------------------
+# SE against the true constant
+# --------------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class SeScan:
+    """Cramér–Rao SE of the target's log β at several assumed true values.
+
+    Attributes
+    ----------
+    target : species name.
+    log_beta : (m,) assumed true values (the guess ± 2 log_beta_sd).
+    se : (m,) SE(log β) of the recipe at each (NaN where singular).
+    guess, goal_se : the plan's guess and goal.
+    """
+
+    target: str
+    log_beta: np.ndarray
+    se: np.ndarray
+    guess: float
+    goal_se: float
+
+
+def se_scan_data(plan: Plan, recipe: Recipe, *, n_values: int = 9, width_sd: float = 2.0) -> SeScan | None:
+    """Cramér–Rao SE of the target over the guess's range (guess ± ``width_sd`` log_beta_sd).
+
+    Each value is what ``assess(plan, recipe, trials=0, at={target: v}).target_se`` returns (a test
+    holds the two equal); the χ² profile that ``assess`` also computes, and which costs ~99 % of its
+    time, is skipped, and the Jacobians of all values are computed in one batch.
+    Returns None when the target is held fixed (log_beta_sd = 0): there is nothing to scan.
+    """
+    target = plan.target
+    sp = next(s for s in plan.species if s.name == target)
+    if not sp.log_beta_sd > 0:
+        return None
+    values = sp.log_beta + np.linspace(-width_sd, width_sd, n_values) * sp.log_beta_sd
+    return SeScan(target, values, cramer_rao_se(plan, recipe, [{target: float(v)} for v in values]),
+                  sp.log_beta, plan.design.goal_se)
+
+
+def cramer_rao_se(plan: Plan, recipe: Recipe, truths) -> np.ndarray:
+    """SE of the target's log β at each ``at``-mapping of ``truths``, along the path of ``assess``.
+
+    The Fisher information F = Jᵀ Σ⁻¹ J uses the error budget at each assumed truth; SE = √(F⁻¹)_tt
+    [source: Cramér 1946; Rao 1945]. NaN where the information is singular or the target is fixed.
+    """
+    from .assess import expected_state, true_constants
+    from .errors import error_budget, plan_devices
+    from .model import build_model, tube_ions_M
+    from .precision import ReadingModel, cramer_rao, free_parameters, pack
+
+    model = build_model(plan)
+    params = free_parameters(plan, model)
+    devices = plan_devices(plan)
+    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    thetas, covs, state = [], [], None
+    for at in truths:  # a handful of assumed truths, not tubes or trials
+        lb = true_constants(plan, model, at)
+        state = expected_state(plan, recipe, model, log_beta=lb)
+        covs.append(error_budget(plan, model, recipe, state, devices).total)
+        thetas.append(pack(model, params, log_beta=lb))
+    t = params.target
+    if state is None or t < 0 or not params.size:
+        return np.full(len(thetas), np.nan)
+    J = ReadingModel(model, params, state.totals_M, ions).jac(np.array(thetas))
+    se = np.array([cramer_rao(J[k], covs[k]).se[t] for k in range(len(thetas))], dtype=float)
+    return np.where(np.isfinite(se), se, np.nan)
+
+
+def se_scan_svg(scan: SeScan, *, prefix: str = "fs") -> str:
+    """SE(log β) against the assumed true log β, with the goal and the guess marked."""
+
+    def paint(fig, ax):
+        ok = np.isfinite(scan.se)
+        ax.plot(scan.log_beta[ok], scan.se[ok], "o-", ms=3.5, color=ACCENT, label="SE (Cramér–Rao)")
+        ax.axhline(scan.goal_se, color=WARN, lw=0.8, ls="--", label=f"goal {fmt.sig(scan.goal_se, 2)}")
+        ax.axvline(scan.guess, color="#7b8794", lw=0.8, ls=":", label="guess")
+        if ok.any() and np.nanmax(scan.se) / max(np.nanmin(scan.se[ok]), 1e-300) > 20:
+            ax.set_yscale("log")
+        else:
+            ax.set_ylim(0, max(float(np.nanmax(scan.se[ok])) if ok.any() else 0.0, scan.goal_se) * 1.15)
+        ax.set_xlabel(f"assumed true log β[{_plain(scan.target)}]")
+        ax.set_ylabel(f"SE of log β[{_plain(scan.target)}]")
+        ax.legend(loc="upper left")
+
+    return _draw(prefix, paint)

@@ -1,0 +1,205 @@
+"""Printed output: the prep sheet and the design report as HTML or PDF.
+
+Jinja2 templates (``templates/*.html.j2``, shipped as the package ``planner.templates``) lay out
+the strings :mod:`planner.sheets` prepares; WeasyPrint turns the HTML into PDF. Autoescaping is on,
+so a title or label holding markup prints as the characters typed. WeasyPrint gets a URL fetcher
+that refuses everything but ``data:`` URLs: the stylesheet is inlined and figures are inline SVG,
+so nothing is read from the network or the file system while a sheet is made.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as _dt
+import functools
+import logging
+import urllib.parse
+from collections.abc import Sequence
+from importlib import resources
+
+from .sheets import RenderError, prep_context, report_context
+
+__all__ = ["FORMATS", "PAPERS", "DataOnlyFetcher", "FetchRefused", "RenderError", "html_to_pdf", "prep_sheet",
+           "render_html", "report"]
+
+PAPERS = {"A4": "A4", "Letter": "letter"}
+"""Paper names accepted (CSS page sizes: ISO 216 A4, 210 × 297 mm; US Letter, 8.5 × 11 in)."""
+
+FORMATS = ("pdf", "html")
+
+_log = logging.getLogger(__name__)
+
+
+class FetchRefused(ValueError):
+    """A sheet asked for a resource that is not inline data (refused by design)."""
+
+
+def _fetcher_base():
+    from weasyprint.urls import URLFetcher
+
+    return URLFetcher
+
+
+@functools.lru_cache(maxsize=1)
+def _fetcher_class():
+    base = _fetcher_base()
+
+    class _DataOnly(base):
+        """WeasyPrint URL fetcher that serves ``data:`` URLs and refuses everything else."""
+
+        def fetch(self, url, headers=None):
+            return _serve_data_url(url)
+
+    return _DataOnly
+
+
+def DataOnlyFetcher():  # noqa: N802 - reads as a class at the call site
+    """A WeasyPrint URL fetcher that decodes ``data:`` URLs (RFC 2397) and raises on any other URL."""
+    return _fetcher_class()()
+
+
+def _serve_data_url(url: str):
+    from weasyprint.urls import URLFetcherResponse
+
+    scheme = url.split(":", 1)[0].lower() if ":" in url else ""
+    if scheme != "data":
+        _log.warning("refused to fetch %s: sheets use inline data only", url[:200])
+        raise FetchRefused(f"refused to fetch {url[:200]!r}: sheets may only use inline data: URLs")
+    head, sep, payload = url[5:].partition(",")
+    if not sep:
+        raise FetchRefused("malformed data: URL (no comma): write data:<type>[;base64],<data>")
+    params = head.split(";")
+    mime = params[0] or "text/plain"
+    body = base64.b64decode(payload) if "base64" in params[1:] else urllib.parse.unquote_to_bytes(payload)
+    return URLFetcherResponse(url, body, {"Content-Type": mime})
+
+
+@functools.lru_cache(maxsize=1)
+def _environment():
+    import jinja2
+
+    env = jinja2.Environment(
+        loader=jinja2.PackageLoader("planner.templates", "."),  # templates/ ships as planner.templates
+        autoescape=True,  # every template, whatever its extension: user text is text
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
+    return env
+
+
+@functools.lru_cache(maxsize=1)
+def _stylesheet() -> str:
+    return resources.files("planner.templates").joinpath("style.css").read_text(encoding="utf-8")
+
+
+def _check(paper: str, fmt: str) -> None:
+    if paper not in PAPERS:
+        raise RenderError(f"paper = {paper!r}: choose one of {', '.join(PAPERS)}")
+    if fmt not in FORMATS:
+        raise RenderError(f"fmt = {fmt!r}: choose one of {', '.join(FORMATS)}")
+
+
+def _date_text(date) -> str:
+    if date is None:
+        date = _dt.date.today()
+    if isinstance(date, _dt.date):
+        return date.isoformat()
+    if isinstance(date, str) and date.strip():
+        return date.strip()
+    raise RenderError(f"date = {date!r}: pass a datetime.date or a text such as '2026-12-01'")
+
+
+def render_html(template: str, context: dict) -> str:
+    """Render ``template`` (a file in ``templates/``) with the stylesheet and page size added."""
+    from markupsafe import Markup
+
+    ctx = dict(context)
+    ctx["css"] = Markup(_stylesheet())  # our own file, inlined so WeasyPrint fetches nothing
+    ctx["page_size"] = PAPERS[ctx["paper"]]
+    return _environment().get_template(template).render(**ctx)
+
+
+def html_to_pdf(html: str, *, fetcher=None) -> bytes:
+    """PDF bytes of ``html``; ``fetcher`` defaults to :func:`DataOnlyFetcher` (data: URLs only)."""
+    import weasyprint
+
+    doc = weasyprint.HTML(string=html, base_url=None, url_fetcher=fetcher or DataOnlyFetcher())
+    return doc.write_pdf()
+
+
+def _out(html: str, fmt: str) -> bytes:
+    return html.encode("utf-8") if fmt == "html" else html_to_pdf(html)
+
+
+def prep_sheet(plan, recipe, assessment, needs, *, paper: str = "A4", fmt: str = "pdf", date=None,
+               order: Sequence[str] | None = None) -> bytes:
+    """The bench sheet: header, stocks and how to make them, tubes, checklist and safety box.
+
+    Parameters
+    ----------
+    plan, recipe : the validated plan and its recipe.
+    assessment : ``planner.assess.assess(plan, recipe, ...)``; its ``summary()`` supplies every number.
+    needs : ``planner.preparation.stock_needs(plan, recipe)``.
+    paper : "A4" or "Letter".
+    fmt : "pdf" (bytes of the PDF) or "html" (UTF-8 bytes of the HTML).
+    date : printed date (datetime.date or text); default today.
+    order : stock ids in the order of addition (default: medium, ligand, then metal last).
+
+    Raises
+    ------
+    RenderError
+        For an unknown paper or format, a bad date, or an order that does not list the stocks.
+    """
+    _check(paper, fmt)
+    ctx = prep_context(plan, recipe, assessment.summary(), [n.summary() for n in needs],
+                       date=_date_text(date), paper=paper, order=order)
+    return _out(render_html("prep_sheet.html.j2", ctx), fmt)
+
+
+def report(plan, recipe, assessment, *, design: dict | None = None, paper: str = "A4", fmt: str = "pdf",
+           date=None) -> bytes:
+    """The design report: verdict first, recipe, figures, checks, parameters and correlations.
+
+    Parameters
+    ----------
+    design : optional summary of a design run; its "criterion", "efficiency_bound" and
+        "se_ratio_vs_even" are shown when present.
+    paper, fmt, date : as in :func:`prep_sheet`.
+    """
+    from . import figures as fig
+
+    _check(paper, fmt)
+    summary = assessment.summary()
+    figs = _report_figures(plan, recipe, assessment, summary, fig)
+    ctx = report_context(plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design)
+    return _out(render_html("report.html.j2", ctx), fmt)
+
+
+def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
+    from markupsafe import Markup
+
+    out = [{"svg": Markup(fig.absorbance_svg(summary["tubes"], tuple(plan.optics.linear_range))),
+            "caption": "Expected absorbance of each tube (bars: ±2 sd of one reading, every error source) "
+                       "inside the instrument's linear range."}]
+    curve = fig.binding_curve_data(plan, recipe, summary)
+    out.append({"svg": Markup(fig.binding_svg(curve)),
+                "caption": "Tubes on the binding curve: fraction of the metal bound against free ligand "
+                           "(the saturation check uses the limiting reagent; it differs where the metal is "
+                           "in excess)."})
+    params = assessment.params
+    t = params.target if params is not None else -1
+    if assessment.mc is not None and t >= 0 and assessment.cramer_rao is not None:
+        out.append({"svg": Markup(fig.mc_histogram_svg(assessment.mc.estimates[:, t],
+                                                         float(assessment.true_theta[t]),
+                                                         float(assessment.cramer_rao.se[t]),
+                                                         name=params.names[t])),
+                    "caption": "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal "
+                               "curve: matching shapes mean the asymptotic SE holds."})
+    if t >= 0:
+        scan = fig.se_scan_data(plan, recipe)
+        if scan is not None:
+            out.append({"svg": Markup(fig.se_scan_svg(scan)),
+                        "caption": "How the SE of the target would change if the true constant were "
+                                   "elsewhere in the guess's range (±2 sd)."})
+    return out

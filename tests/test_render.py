@@ -1,0 +1,426 @@
+"""Tests for the printed sheets: planner.render, planner.sheets, planner.figures and the fmt helpers
+they use. PDFs are read back with pypdf; page 1 is rasterised with pdftoppm where it exists."""
+
+from __future__ import annotations
+
+import io
+import math
+import re
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+import tomllib
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from planner import figures, fmt, render, safety, sheets
+from planner.assess import assess, assess_recipe
+from planner.demo import demo_recipe_csv
+from planner.plan import load_plan, parse_plan
+from planner.preparation import stock_needs
+from planner.recipe import make_recipe, parse_recipe_csv, read_recipe_csv
+
+from .conftest import ROOT, scenario_text
+
+pypdf = pytest.importorskip("pypdf")
+
+DATE = "2026-12-01"
+TRIALS = 200
+
+
+def norm(text: str) -> str:
+    return re.sub(r"\s+", " ", text)
+
+
+def pdf_text(pdf: bytes) -> str:
+    return norm("\n".join(p.extract_text() for p in pypdf.PdfReader(io.BytesIO(pdf)).pages))
+
+
+def setup(plan):
+    recipe = parse_recipe_csv(demo_recipe_csv(plan), plan)
+    return plan, recipe, assess(plan, recipe, trials=TRIALS, seed=0), stock_needs(plan, recipe)
+
+
+def patched_plan(top: dict | None = None, stocks: dict[str, dict] | None = None):
+    data = tomllib.loads(scenario_text("teaching"))
+    data.update(top or {})
+    for s in data["stock"]:
+        s.update((stocks or {}).get(s["id"], {}))
+    return parse_plan(data)
+
+
+@pytest.fixture(scope="module")
+def teaching():
+    return setup(patched_plan())
+
+
+@pytest.fixture(scope="module")
+def prep_pdf(teaching):
+    return render.prep_sheet(*teaching, date=DATE)
+
+
+@pytest.fixture(scope="module")
+def prep_txt(prep_pdf):
+    return pdf_text(prep_pdf)
+
+
+@pytest.fixture(scope="module")
+def report_pdf(teaching):
+    plan, recipe, a, _ = teaching
+    return render.report(plan, recipe, a, date=DATE,
+                         design={"criterion": "target", "efficiency_bound": 0.93, "se_ratio_vs_even": 0.71})
+
+
+# --------------------------------------------------------------------------------------------------
+# prep sheet: the numbers on paper are the recipe's and the JSON's
+# --------------------------------------------------------------------------------------------------
+def test_tube_rows_carry_volumes_band_and_complex(teaching, prep_txt):
+    plan, recipe, a, _ = teaching
+    summary = a.summary()
+    order = sheets.addition_order(plan, recipe)
+    assert order == ("DY", "CU")  # common practice: ligand before the metal, diluent first and last
+    step = plan.glassware.step_mL
+    for i, row in enumerate(summary["tubes"]):
+        vols = " ".join(fmt.volume(recipe.column(s)[i], step) for s in order)
+        band = fmt.band(row["absorbance"], 2 * row["absorbance_sd"])
+        cplx = fmt.conc(row["species_M"][plan.target])
+        assert f"{row['tube']} {vols} dilute to the mark with BG {band}" in prep_txt, row["tube"]
+        assert cplx in prep_txt
+
+
+def test_printed_absorbance_rounds_the_json_value(teaching, prep_txt):
+    _, _, a, _ = teaching
+    for row in a.summary()["tubes"]:
+        m = re.search(rf"{re.escape(row['tube'])} [\d. —]+dilute to the mark with BG (\d+\.\d+) ± (\d+\.\d+)", prep_txt)
+        assert m, row["tube"]
+        x, u = m.group(1), m.group(2)
+        half_ulp = 0.5 * 10.0 ** -len(x.split(".")[1])  # derived: rounding moves a value ≤ half a digit
+        assert abs(float(x) - row["absorbance"]) <= half_ulp + 1e-12
+        assert abs(float(u) - 2 * row["absorbance_sd"]) <= half_ulp + 1e-12
+        assert len(u.replace("0.", "").lstrip("0")) == 2  # GUM 7.2.6: two significant figures
+
+
+def test_volumes_on_the_dispenser_grid(teaching, prep_txt):
+    plan, recipe, _, _ = teaching
+    # derived: step 0.05 mL → two decimals on paper, e.g. the first DY volume of the demo series
+    assert fmt.volume(recipe.column("DY")[0], plan.glassware.step_mL) == f"{recipe.column('DY')[0]:.2f}"
+    assert re.search(r"T1 \d+\.\d{2} \d+\.\d{2} dilute", prep_txt)
+
+
+def test_stock_table(teaching, prep_txt):
+    plan, _, _, needs = teaching
+    for n in needs:
+        assert f"{fmt.fixed(n.needed_mL, 0.1)} mL" in prep_txt, n.id
+    cu = next(n for n in needs if n.id == "CU")
+    # derived: m = c·V·M/P = 0.0100 M × 0.100 L × 241.60 g/mol / 0.99 = 0.2440 g (0.1 mg balance)
+    assert math.isclose(cu.preparation.mass_g, 0.0100 * 0.100 * 241.60 / 0.99, rel_tol=2e-4)
+    assert "Weigh 0.2440 g" in prep_txt
+    assert "Cu2+: 10.000 ± 0.050 mM" in prep_txt  # derived: conc_rsd 0.005 of 10.0 mM = 0.050 mM
+    assert "10.0 mL burette (class A)" in prep_txt  # the plan's dispenser for CU and DY
+    assert "to the mark of each flask" in prep_txt  # BG under make_up = "to-mark"
+
+
+def test_header_blank_and_order(teaching, prep_txt):
+    plan, _, _, _ = teaching
+    assert "zero the instrument on a tube of BG (0.10 M potassium nitrate)" in prep_txt
+    assert "580 nm" in prep_txt and "1.000 cm" in prep_txt and "A 0.10–1.00" in prep_txt
+    assert DATE in prep_txt and plan.title in prep_txt
+    i_bg, i_dy, i_cu = (prep_txt.index(s) for s in ("of BG first", "DY (ligand)", "CU (metal)"))
+    assert i_bg < i_dy < i_cu and "BG to the mark" in prep_txt
+
+
+def test_measuring_checklist(prep_txt):
+    for phrase in ("zero the instrument on it at 580 nm", "rinse the cuvette", "Read each tube",
+                   "“measured A” column"):
+        assert phrase in prep_txt
+
+
+def test_safety_box_matches_the_library(teaching, prep_txt):
+    plan = teaching[0]
+    reagents = safety.hazards_for(plan)
+    assert any(r.hazards is not None for r in reagents)
+    for r in reagents:
+        if r.hazards is None:
+            assert norm(r.message) in prep_txt
+            continue
+        assert r.hazards.name in prep_txt
+        for code, text in r.hazards.statements():
+            assert f"{code} {text}" in prep_txt, code
+        for p in r.hazards.pictograms:
+            assert f"{p} {safety.PICTOGRAMS[p]}" in prep_txt
+        assert r.hazards.signal_word.upper() in prep_txt
+    assert safety.ALWAYS in prep_txt
+    assert safety.NO_DATA in prep_txt  # the dye ligand is not in the library
+    for caution in ("eye protection", "add acid to water", "metal waste"):
+        assert caution in prep_txt
+
+
+def test_cmr_reagent_is_flagged():
+    plan, recipe, a, needs = setup(patched_plan(stocks={"CU": {"reagent": "nickel(II) sulfate hexahydrate"}}))
+    txt = pdf_text(render.prep_sheet(plan, recipe, a, needs, date=DATE))
+    assert "CMR reagent in this plan" in txt
+    assert "CMR: H341, H350i, H360D" in txt  # from memory (domain.md §6): nickel salts
+    assert "substitute" in txt and "May cause cancer by inhalation." in txt
+
+
+def test_not_enough_stock_is_flagged():
+    plan, recipe, a, needs = setup(patched_plan(stocks={"CU": {"on_hand": "5 mL"}}))
+    html = render.prep_sheet(plan, recipe, a, needs, date=DATE, fmt="html").decode("utf-8")
+    assert "NOT ENOUGH on hand" in html
+
+
+def test_added_make_up_lists_the_buffer_and_no_mark():
+    plan = load_plan(ROOT / "examples" / "cuvette-1to1.toml")
+    recipe = read_recipe_csv(ROOT / "examples" / "cuvette-1to1.csv", plan)
+    html = render.prep_sheet(plan, recipe, assess_recipe(plan, recipe), stock_needs(plan, recipe),
+                             date=DATE, fmt="html").decode("utf-8")
+    assert "dilute to the mark" not in html and "Make up</th>" not in html
+    assert sheets.addition_order(plan, recipe) == ("BUF", "ZC", "ZN")  # common practice: metal last
+    assert "zero the instrument on a tube of BUF" in html
+    assert "1000 µL micropipette" in html and "5000 µL micropipette" in html  # the plan's dispensers
+
+
+def test_custom_order_and_bad_order(teaching):
+    plan, recipe, _, _ = teaching
+    assert sheets.addition_order(plan, recipe, ["CU", "DY"]) == ("CU", "DY")
+    with pytest.raises(sheets.RenderError, match="missing: DY"):
+        sheets.addition_order(plan, recipe, ["CU"])
+    with pytest.raises(sheets.RenderError, match="unknown: XX"):
+        sheets.addition_order(plan, recipe, ["CU", "DY", "XX"])
+    html = render.prep_sheet(*teaching, date=DATE, fmt="html", order=["CU", "DY"]).decode("utf-8")
+    assert html.index("CU / mL") < html.index("DY / mL")
+    assert "cannot precipitate" not in html  # the metal-last reason belongs to the default order only
+
+
+def test_bad_arguments_raise_clear_errors(teaching):
+    with pytest.raises(render.RenderError, match="paper = 'B5'.*A4, Letter"):
+        render.prep_sheet(*teaching, paper="B5")
+    with pytest.raises(render.RenderError, match="fmt = 'docx'.*pdf, html"):
+        render.prep_sheet(*teaching, fmt="docx")
+    with pytest.raises(render.RenderError, match="date"):
+        render.prep_sheet(*teaching, date=20261201, fmt="html")
+
+
+# --------------------------------------------------------------------------------------------------
+# paper, determinism, image
+# --------------------------------------------------------------------------------------------------
+def _page_size_pt(pdf: bytes) -> tuple[float, float]:
+    box = pypdf.PdfReader(io.BytesIO(pdf)).pages[0].mediabox
+    return float(box.width), float(box.height)
+
+
+def test_paper_sizes(teaching, prep_pdf):
+    # source: ISO 216 A4 = 210 × 297 mm; US Letter = 8.5 × 11 in (72 pt per inch)
+    w, h = _page_size_pt(prep_pdf)
+    assert w == pytest.approx(210 / 25.4 * 72, abs=0.5) and h == pytest.approx(297 / 25.4 * 72, abs=0.5)
+    w, h = _page_size_pt(render.prep_sheet(*teaching, date=DATE, paper="Letter"))
+    assert (w, h) == (pytest.approx(612, abs=0.5), pytest.approx(792, abs=0.5))
+
+
+def test_same_input_same_bytes(teaching, prep_pdf):
+    assert render.prep_sheet(*teaching, date=DATE) == prep_pdf
+    html = render.prep_sheet(*teaching, date=DATE, fmt="html")
+    assert html == render.prep_sheet(*teaching, date=DATE, fmt="html")
+    assert html.decode("utf-8").startswith("<!DOCTYPE html>")
+
+
+@pytest.mark.skipif(shutil.which("pdftoppm") is None, reason="pdftoppm (poppler-utils) not installed")
+def test_page_one_renders_as_a_printed_page(prep_pdf, tmp_path):
+    Image = pytest.importorskip("PIL.Image")
+    src = tmp_path / "sheet.pdf"
+    src.write_bytes(prep_pdf)
+    subprocess.run(["pdftoppm", "-r", "30", "-f", "1", "-l", "1", "-png", str(src), str(tmp_path / "p")],
+                   check=True, capture_output=True, timeout=60)
+    png = next(tmp_path.glob("p*.png"))
+    img = np.asarray(Image.open(png).convert("L"), dtype=float)
+    h, w = img.shape
+    assert h / w == pytest.approx(297 / 210, rel=0.03)  # source: ISO 216
+    ink = img < 200
+    assert 0.02 < ink.mean() < 0.5  # a page of text and rules: neither blank nor black
+    assert ink[: h // 4].mean() > 0.01  # the header sits at the top
+    margin = int(w * 10 / 210)  # 10 mm: inside the 13 mm page margins nothing is printed
+    assert ink[:, :margin].mean() < 0.002 and ink[:, -margin:].mean() < 0.002
+
+
+# --------------------------------------------------------------------------------------------------
+# nothing is fetched; user text stays text
+# --------------------------------------------------------------------------------------------------
+HOSTILE_TITLE = 'Cu <img src="file:///etc/passwd"> & <b>bold</b> study'
+HOSTILE_LABEL = '<img src="file:///etc/hostname">copper nitrate'
+
+
+@pytest.fixture
+def fetch_log(monkeypatch):
+    asked: list[str] = []
+    real = render._serve_data_url
+
+    def recording(url):
+        asked.append(url)
+        return real(url)
+
+    monkeypatch.setattr(render, "_serve_data_url", recording)
+    return asked
+
+
+def test_markup_in_plan_text_prints_as_text(fetch_log):
+    plan = patched_plan(top={"title": HOSTILE_TITLE}, stocks={"CU": {"label": HOSTILE_LABEL}})
+    recipe0 = parse_recipe_csv(demo_recipe_csv(plan), plan)
+    tubes = ["<i>T1</i>", *recipe0.tubes[1:]]
+    recipe = make_recipe(plan, {s: recipe0.column(s) for s in recipe0.dispensed_ids(plan)}, tubes)
+    a = assess(plan, recipe, trials=TRIALS, seed=0)
+    needs = stock_needs(plan, recipe)
+    txt = pdf_text(render.prep_sheet(plan, recipe, a, needs, date=DATE))
+    squeeze = txt.replace(" ", "")  # a narrow cell may wrap the label after a '/'
+    assert HOSTILE_TITLE in txt and HOSTILE_LABEL.replace(" ", "") in squeeze and "<i>T1</i>" in txt
+    rtxt = pdf_text(render.report(plan, recipe, a, date=DATE))
+    assert HOSTILE_TITLE in rtxt
+    assert not any(u.lower().startswith("file:") for u in fetch_log)
+    assert fetch_log == []  # nothing at all is fetched: stylesheet and figures are inline
+    html = render.prep_sheet(plan, recipe, a, needs, date=DATE, fmt="html").decode("utf-8")
+    assert '<img src="file:' not in html and "&lt;img src=&#34;file:///etc/passwd&#34;&gt;" in html
+
+
+def test_fetcher_refuses_everything_but_data_urls():
+    f = render.DataOnlyFetcher()
+    assert f.fetch("data:text/plain;base64,aGk=").read() == b"hi"  # RFC 2397 base64
+    assert f.fetch("data:,a%20b").read() == b"a b"  # RFC 2397 percent-encoded
+    for url in ("file:///etc/passwd", "http://example.com/a.png", "https://example.com/x.css", "/etc/passwd",
+                "FILE:///etc/passwd"):
+        with pytest.raises(render.FetchRefused, match="refused"):
+            f.fetch(url)
+
+
+def test_hostile_html_cannot_read_files(fetch_log):
+    html = ('<p>plain text</p><img src="file:///etc/passwd">'
+            '<link rel="stylesheet" href="http://example.com/evil.css">'
+            '<img src="data:image/svg+xml;base64,PHN2ZyB4bWxucz0naHR0cDovL3d3dy53My5vcmcvMjAwMC9zdmcnIHdpZHRoPScxJyBoZWlnaHQ9JzEnLz4=">')
+    txt = pdf_text(render.html_to_pdf(html))
+    assert "plain text" in txt and "root:" not in txt
+    schemes = {u.split(":", 1)[0].lower() for u in fetch_log}
+    assert {"file", "http", "data"} <= schemes  # asked, and only the data: URL was served
+
+
+# --------------------------------------------------------------------------------------------------
+# design report
+# --------------------------------------------------------------------------------------------------
+def test_report_verdict_first_then_sections(teaching, report_pdf):
+    _, _, a, _ = teaching
+    s = a.summary()
+    txt = pdf_text(report_pdf)
+    assert txt.index(s["verdict"].upper()) < txt.index("Recipe") < txt.index("Checks") < txt.index("Parameters")
+    assert norm(s["verdict_reason"]) in txt
+    for c in s["checks"]:
+        assert c["id"] in txt
+        assert norm(c["message"])[:60] in txt
+    for p in s["parameters"]:
+        assert p["name"] in txt
+    corr = s["correlation"]["matrix"][0][1]
+    assert fmt.fixed(corr, 0.01) in txt  # correlations to two decimals
+    assert "0.930" in txt and "0.710" in txt  # the design keys, three significant figures
+
+
+def test_report_rows_match_json(teaching, report_pdf):
+    _, _, a, _ = teaching
+    txt = pdf_text(report_pdf)
+    for row in a.summary()["tubes"]:
+        assert fmt.band(row["absorbance"], 2 * row["absorbance_sd"]) in txt
+        assert fmt.sig(row["saturation"], 2) in txt
+
+
+def test_report_html_has_inline_svg_with_unique_ids(teaching):
+    plan, recipe, a, _ = teaching
+    html = render.report(plan, recipe, a, date=DATE, fmt="html").decode("utf-8")
+    assert html.count("<svg") >= 4  # absorbance, binding curve, Monte Carlo, SE scan (+ no pictograms here)
+    ids = re.findall(r'\bid="([^"]+)"', html)
+    assert len(ids) == len(set(ids))
+    for ref in re.findall(r"url\(#([^)]+)\)", html):
+        assert ref in ids
+    assert "evenly spaced" not in html  # no design given
+    assert re.search(r'(src|href)="(?!#|data:)', html) is None  # nothing external to fetch
+
+
+def test_report_without_precision(teaching):
+    plan, recipe, _, _ = teaching
+    html = render.report(plan, recipe, assess_recipe(plan, recipe), date=DATE, fmt="html").decode("utf-8")
+    assert html.count("<svg") == 3  # no Monte-Carlo histogram without a Monte Carlo
+    assert "Parameters" not in html
+
+
+# --------------------------------------------------------------------------------------------------
+# figures
+# --------------------------------------------------------------------------------------------------
+def test_binding_curve_is_the_one_to_one_isotherm(teaching):
+    plan, recipe, a, _ = teaching
+    curve = figures.binding_curve_data(plan, recipe, a.summary())
+    K = 10.0 ** 3.3  # the teaching scenario's guess; no ionic-strength correction is configured
+    # derived: for M + L ⇌ ML, [ML]/M_tot = K[L]/(1 + K[L]) at any metal total
+    np.testing.assert_allclose(curve.fraction_bound, K * curve.free_L_M / (1 + K * curve.free_L_M), rtol=1e-6)
+    np.testing.assert_allclose(curve.tube_fraction, K * curve.tube_free_L_M / (1 + K * curve.tube_free_L_M),
+                               rtol=1e-6)
+    assert np.all(np.diff(curve.free_L_M) > 0)  # a monotone series of ligand totals gives monotone free L
+    assert curve.metal_total_M == pytest.approx(1.0e-3)  # 1.00 mL of 10.0 mM into 10.00 mL
+
+
+def test_se_scan_equals_assess(teaching):
+    plan, recipe, _, _ = teaching
+    scan = figures.se_scan_data(plan, recipe)
+    sd = plan.species[0].log_beta_sd
+    np.testing.assert_allclose(scan.log_beta[[0, -1]], [3.3 - 2 * sd, 3.3 + 2 * sd])
+    for k in (0, 4, 8):
+        ref = assess(plan, recipe, trials=0, at={"ML": float(scan.log_beta[k])}).target_se
+        assert scan.se[k] == pytest.approx(ref, rel=1e-9)
+
+
+def test_se_scan_none_when_target_fixed():
+    data = tomllib.loads(scenario_text("teaching"))
+    data["species"][0]["log_beta_sd"] = 0.0
+    plan = parse_plan(data)
+    assert figures.se_scan_data(plan, parse_recipe_csv(demo_recipe_csv(plan), plan)) is None
+
+
+def test_svg_is_deterministic_and_literal():
+    tubes = [{"tube": "$x^2$ & <b>", "absorbance": 0.5, "absorbance_sd": 0.01}]
+    a = figures.absorbance_svg(tubes, (0.1, 1.0))
+    assert a == figures.absorbance_svg(tubes, (0.1, 1.0))
+    assert "&lt;b&gt;" in a and "<b>" not in a  # matplotlib escapes, and no mathtext on user labels
+    assert a.startswith("<svg") and "<?xml" not in a
+
+
+def test_mc_histogram_skips_failed_fits():
+    est = np.array([3.2, 3.3, np.nan, 3.4, 3.31, 3.29])
+    svg = figures.mc_histogram_svg(est, 3.3, 0.05, name="log_beta[ML]")
+    assert "Monte Carlo (5 fits)" in svg
+
+
+# --------------------------------------------------------------------------------------------------
+# fmt helpers used on paper
+# --------------------------------------------------------------------------------------------------
+@settings(max_examples=60, deadline=None)
+@given(x=st.floats(1e-9, 10.0), rel=st.floats(1e-4, 0.3))
+def test_conc_with_uncertainty_round_trip(x, rel):
+    text = fmt.conc_with_uncertainty(x, rel * x)
+    m = re.fullmatch(r"(-?\d+(?:\.\d+)?) ± (\d+(?:\.\d+)?) (M|mM|µM|nM|pM)", text)
+    assert m, text
+    f = {"M": 1, "mM": 1e3, "µM": 1e6, "nM": 1e9, "pM": 1e12}[m.group(3)]
+    assert 1 <= x * f < 1000 * (1 + 1e-9) or m.group(3) in ("M", "pM")
+    # derived: value and uncertainty rounded at the same digit, the uncertainty's second significant one
+    unit = 10.0 ** (math.floor(math.log10(rel * x * f)) - 1)
+    assert abs(float(m.group(1)) - x * f) <= 0.5 * unit * (1 + 1e-9)
+    assert abs(float(m.group(2)) - rel * x * f) <= 0.5 * unit * (1 + 1e-9)
+
+
+def test_fmt_reference_values():
+    assert fmt.conc_with_uncertainty(0.0100, 5.0e-5) == "10.000 ± 0.050 mM"  # derived: GUM 7.2.6 style
+    assert fmt.conc_with_uncertainty(0.0100, 0.0) == fmt.conc(0.0100) == "10.0 mM"
+    assert fmt.mass(0.244042, 1e-4) == "0.2440 g" and fmt.mass(0.244042, 1e-3) == "0.244 g"
+    assert fmt.percent(0.005857) == "0.59 %" and fmt.percent(None) == "—"
+    assert fmt.band(0.28802, 0.011192) == "0.288 ± 0.011"
+    assert fmt.fixed(0.1, 0.01) == "0.10"
+
+
+def test_pretty_formula():
+    assert sheets.pretty_formula("Cu(NO3)2.3H2O") == "Cu(NO₃)₂·3H₂O"
+    assert sheets.pretty_formula("CuSO4·5H2O") == "CuSO₄·5H₂O"
+    assert sheets.pretty_formula("HNO3 (aq, ≈ 6 %)") == "HNO₃ (aq, ≈ 6 %)"
