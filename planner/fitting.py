@@ -9,7 +9,7 @@ Algorithm
 ---------
 Levenberg (1944, Q. Appl. Math. 2:164) and Marquardt (1963, J. SIAM 11:431), in the trust-region
 form with adaptive diagonal scaling of Moré (1978, "The Levenberg–Marquardt algorithm:
-implementation and theory", Lecture Notes in Mathematics 630:105): the damping parameter λ of each
+implementation and theory", Springer LNM 630:105): the damping parameter λ of each
 trial is chosen so that the scaled step ``‖D p‖`` matches the trust radius Δ (Moré's safeguarded
 Newton iteration, §5), Δ is updated from the ratio of actual to predicted reduction, and the
 convergence tests are those of Moré's implementation (ftol, xtol, gtol). Where Moré factorises
