@@ -480,7 +480,7 @@ def fit_many(
     """Fit T independent nonlinear least-squares problems at once by Levenberg–Marquardt.
 
     Minimises ``‖W (y_t − f_t(θ_t))‖²`` for every trial t, with the trust-region
-    Levenberg–Marquardt method and adaptive scaling of Moré (1978, Lecture Notes in Mathematics
+    Levenberg–Marquardt method and adaptive scaling of Moré (1978, Springer LNM
     630:105), after Levenberg (1944) and Marquardt (1963). Each trial has its own damping, trust
     radius and stopping; a trial that has stopped no longer changes.
 
