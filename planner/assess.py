@@ -217,10 +217,11 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
         cr = cramer_rao(J, cov_A)
         risk, spread = _range_risk_over_prior(model, params, reading)
         W = whitening(cov_A)
-        if trials > 0:
+        enough = recipe.n_tubes >= params.size
+        if trials > 0 and enough:
             mc = monte_carlo(plan, model, recipe, devices, reading, W, np.random.default_rng(seed), trials,
                              true_theta, progress=progress)
-        if params.target >= 0:
+        if params.target >= 0 and recipe.n_tubes >= params.size - 1 and recipe.n_tubes > 0:
             prof = profile(reading, W, true_theta)
     check_list.append(chk.linear_range(model, state, recipe.tubes, risk, spread))
     check_list.append(chk.saturation(state, recipe.tubes))
@@ -310,6 +311,9 @@ def _verdict(plan: Plan, params: Parameters, cr, mc, prof) -> tuple[str | None, 
     t = params.target
     if t < 0:
         return None, f"log_beta[{plan.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
+    if cr.jacobian.shape[0] < params.size:
+        return "unresolved", (f"{cr.jacobian.shape[0]} tubes cannot determine {params.size} fitted parameters: "
+                              f"add tubes")
     goal = plan.design.goal_se
     se = float(cr.se[t])
     if prof is not None and prof.low_unbounded and prof.high_unbounded:

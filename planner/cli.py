@@ -378,7 +378,7 @@ def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: boo
         require_glassware_fits(p, r)  # a sheet is followed at the bench: every volume must be deliverable
     a = _with_progress(lambda prog: run_assess(p, r, trials=trials, seed=seed, progress=prog), trials, quiet=False)
     if kind == "sheet":
-        data = render_sheet(p, r, a, stock_needs(p, r), paper=paper, fmt=fmt_)
+        data = render_sheet(p, r, a, stock_needs(p, r), paper=paper, fmt=fmt_, order=p.glassware.order)
     else:
         design_summary = None
         if design_json is not None:
@@ -523,7 +523,8 @@ def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
     from .render import prep_sheet as render_sheet
     from .render import report as render_report
 
-    sheet_pdf = write_atomic_bytes(out_dir / "prep.pdf", render_sheet(p, d.recipe, a, stock_needs(p, d.recipe)))
+    sheet_pdf = write_atomic_bytes(out_dir / "prep.pdf", render_sheet(p, d.recipe, a, stock_needs(p, d.recipe),
+                                                                      order=p.glassware.order))
     report_pdf = write_atomic_bytes(out_dir / "report.pdf", render_report(p, d.recipe, a, design=d.summary()))
     return [sheet_pdf, report_pdf]
 

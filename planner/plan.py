@@ -247,6 +247,7 @@ class Glassware(_Strict):
     dead_volume_mL: Volume = Field(default=1.0, alias="dead_volume")
     delta_T_C: float = Field(default=0.0, ge=-30, le=30)
     balance: Balance = Balance()
+    order: list[str] | None = None
     dispenser: list[Dispenser] = Field(default_factory=list)
 
     @model_validator(mode="after")
@@ -338,6 +339,12 @@ class Plan(_Strict):
             for k, sid in enumerate(d.stocks):
                 if sid not in ids:
                     raise PlanError(f"glassware.dispenser[{j}].stocks[{k}]", unknown_name("stock id", sid, ids))
+        if self.glassware.order is not None:
+            for k, sid in enumerate(self.glassware.order):
+                if sid not in ids:
+                    raise PlanError(f"glassware.order[{k}]", unknown_name("stock id", sid, ids))
+            if len(set(self.glassware.order)) != len(self.glassware.order):
+                raise PlanError("glassware.order", "a stock is listed twice: name each stock once")
         for sid in self.design.fixed:
             if sid not in ids:
                 raise PlanError(f"design.fixed.{sid}", unknown_name("stock id", sid, ids))

@@ -291,6 +291,18 @@ def _needed(need: dict) -> tuple[str, str, bool | None]:
     return txt, sub, need.get("enough")
 
 
+def _levelling_fact(plan: Plan, summary: dict) -> list[tuple[str, str]]:
+    """Header line saying the background-electrolyte volumes level the ionic strength (when they do)."""
+    bg = plan.background
+    if bg is None:
+        return []
+    values = [t["ionic_strength_M"] for t in summary["tubes"] if t.get("ionic_strength_M") is not None]
+    if not values:
+        return []
+    lo, hi = min(values), max(values)
+    return [("Ionic strength", f"{fmt.sig(lo, 3)}–{fmt.sig(hi, 3)} M: the {bg.id} volumes level it")]
+
+
 def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict], *, date: str,
                  paper: str, order: Sequence[str] | None = None) -> dict:
     """Template context of the prep sheet from the assessment and stock-need summaries."""
@@ -350,6 +362,7 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
             ("Tubes", f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL"
                       + (" volumetric flasks" if to_mark else ", every volume added")),
             ("Temperature", f"{fmt.sig(plan.temperature_C, 3)} °C"),
+            *_levelling_fact(plan, summary),
         ],
         "blank": blank_sentence,
         "blank_name": blank_name,

@@ -156,3 +156,9 @@ def test_stock_budget_shortfall(teaching_text):
     a = assess(plan, even_series(plan), trials=0, precision=False)
     sb = next(c for c in a.checks if c.id == "stock-budget")
     assert sb.status == "fail" and "CU" in sb.message
+
+
+def test_too_few_tubes_is_unresolved_not_a_crash(teaching_plan):
+    r = make_recipe(teaching_plan, {"CU": np.array([1.0]), "DY": np.array([1.0])})
+    a = assess(teaching_plan, r, trials=100)
+    assert a.verdict == "unresolved" and "add tubes" in a.verdict_reason

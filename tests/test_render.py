@@ -424,3 +424,32 @@ def test_pretty_formula():
     assert sheets.pretty_formula("Cu(NO3)2.3H2O") == "Cu(NO₃)₂·3H₂O"
     assert sheets.pretty_formula("CuSO4·5H2O") == "CuSO₄·5H₂O"
     assert sheets.pretty_formula("HNO3 (aq, ≈ 6 %)") == "HNO₃ (aq, ≈ 6 %)"
+
+
+def test_plan_order_and_levelling_reach_the_sheet(tmp_path):
+    """The plan's glassware.order sets the order of addition; a background stock is named in the header."""
+    from planner.assess import assess as run_assess
+    from planner.plan import parse_plan_text
+    from planner.preparation import stock_needs
+    from planner.recipe import make_recipe
+    from planner.render import prep_sheet
+
+    from .conftest import scenario_text
+
+    text = scenario_text("stepwise").replace('[[stock]]\nid = "W"', '''[[stock]]
+id = "NA"
+label = "2.00 M sodium nitrate"
+ions = { "Na+" = "2.00 M", "NO3-" = "2.00 M" }
+background = true
+
+[[stock]]
+id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').replace(
+        'min_volume = "0.50 mL"', 'min_volume = "0.50 mL"\norder = ["NA", "CU", "AM"]')
+    plan = parse_plan_text(text)
+    r = make_recipe(plan, {"CU": np.full(5, 2.0), "AM": np.array([1.0, 2.0, 4.0, 8.0, 12.0]), "NA": np.full(5, 5.0)})
+    a = run_assess(plan, r, trials=0)
+    html = prep_sheet(plan, r, a, stock_needs(plan, r), fmt="html", order=plan.glassware.order).decode()
+    assert "the NA volumes level it" in html
+    steps = html[html.index("Order of addition"):]
+    steps = steps[: steps.index("</ol>")]
+    assert steps.index("NA") < steps.index("CU") < steps.index("AM")
