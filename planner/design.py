@@ -378,8 +378,12 @@ def _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetr
         ap = optimal.approximate_design(Fk, n_tubes=n, **kw)
         ex = optimal.exact_design(Fk, n, rng=np.random.default_rng(seed), starts=starts, approx=ap, **kw)
     except DesignError as exc:
-        raise DesignError(f"{exc} — the candidates inside the linear range cannot determine every fitted "
-                          f"parameter; widen the volume range or fix more parameters") from None
+        lo, hi = model.linear_range
+        raise DesignError(
+            f"only {idx.size} of {cand.n_grid} candidate tubes stay inside optics.linear_range [{lo:g}, {hi:g}] "
+            f"over the guess's range, and they cannot determine every fitted parameter ({exc}). Use more "
+            f"dilute stocks or smaller fixed volumes if readings run high, a longer path if they run low, "
+            f"or hold more parameters fixed (rsd = 0)") from None
     chosen = np.repeat(idx, ex.counts)
     rec = cand.recipe
     vols = {sid: rec.column(sid)[chosen] for sid in rec.stock_ids if not (
