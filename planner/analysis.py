@@ -22,7 +22,7 @@ from .fitting import fit_many
 from .model import build_model, tube_ions_M
 from .plan import Plan
 from .precision import ReadingModel, cramer_rao, free_parameters, whitening
-from .recipe import Recipe, RecipeError, parse_recipe_csv
+from .recipe import Recipe, RecipeError, parse_recipe_csv, read_text_file
 
 ABSORBANCE_COLUMNS = ("absorbance", "A", "measured_A")
 N_STARTS = 7  # starts spread over ±3 sd of the target's guess
@@ -61,12 +61,8 @@ def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Rea
 
 
 def read_readings_csv(path: str | Path, plan: Plan) -> Readings:
-    p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise RecipeError("", f"readings file '{p}' not found: check the path") from None
-    return parse_readings_csv(text, plan, str(p))
+    """Read a readings CSV (see :func:`parse_readings_csv`)."""
+    return parse_readings_csv(read_text_file(path, "readings"), plan, str(path))
 
 
 @dataclass(frozen=True)

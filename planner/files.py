@@ -8,22 +8,12 @@ from pathlib import Path
 
 
 def write_atomic(path: str | Path, text: str) -> Path:
-    """Write ``text`` to ``path`` through a temporary file and a rename: no half-written output."""
-    p = Path(path)
-    p.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=p.parent, prefix=f".{p.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
-        _publish(tmp, p)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return p
+    """Write ``text`` (UTF-8) to ``path`` through a temporary file and a rename: no half-written output."""
+    return write_atomic_bytes(path, text.encode("utf-8"))
 
 
 def write_atomic_bytes(path: str | Path, data: bytes) -> Path:
-    """Binary twin of :func:`write_atomic`."""
+    """Write ``data`` to ``path`` through a temporary file in the same folder and a rename."""
     p = Path(path)
     p.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=p.parent, prefix=f".{p.name}.", suffix=".tmp")

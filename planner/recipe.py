@@ -135,14 +135,20 @@ def make_recipe(plan: Plan, volumes: dict[str, np.ndarray] | np.ndarray, tubes: 
     return Recipe(tuple(tubes), ids, vol, total)
 
 
-def read_recipe_csv(path: str | Path, plan: Plan) -> Recipe:
-    """Read a recipe CSV: column ``tube`` then one column per dispensed stock (mL)."""
+def read_text_file(path: str | Path, what: str) -> str:
+    """Text of a CSV the user named, or a RecipeError saying the file is missing or unreadable."""
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8-sig")
+        return p.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
-        raise RecipeError("", f"recipe file '{p}' not found: check the path") from None
-    return parse_recipe_csv(text, plan, source=str(p))
+        raise RecipeError("", f"{what} file '{p}' not found: check the path") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise RecipeError("", f"cannot read {what} file '{p}': {exc}") from None
+
+
+def read_recipe_csv(path: str | Path, plan: Plan) -> Recipe:
+    """Read a recipe CSV: column ``tube`` then one column per dispensed stock (mL)."""
+    return parse_recipe_csv(read_text_file(path, "recipe"), plan, source=str(path))
 
 
 def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
