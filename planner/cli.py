@@ -103,9 +103,26 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
                   f"{s.conc_rsd:.1%}", f"{s.on_hand:g} mL" if s.on_hand else "—", disp)
     out.print(t)
     g = p.glassware
-    flask = f", flask {g.flask.capacity_mL:g} mL class {g.flask.cls}" if g.flask else ""
-    out.print(f"Glassware: tube {g.tube_volume_mL:g} mL, make-up {g.make_up}{flask}, grid {g.step_mL:g} mL, "
-              f"min {g.min_volume_mL:g} mL")
+    out.print(f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL, "
+              f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL")
+    from .errors import plan_devices
+    from .glassware import delivery_uncertainty, flask_volume_uncertainty
+
+    devices = plan_devices(p)
+    t = Table(title="Glassware (from the catalogue)")
+    for c in ("device", "tolerance", "u, full delivery", "source", "delivers"):
+        t.add_column(c)
+    for j, (d, item) in enumerate(zip(p.glassware.dispenser, devices.items, strict=True)):
+        du = delivery_uncertainty(item, np.array([item.capacity_mL]))
+        src = item.source + (" (from memory)" if item.from_memory else "")
+        t.add_row(item.label, f"± {item.tolerance_mL:g} mL", f"{float(du.combined_mL[0]):.3g} mL", src,
+                  ", ".join(d.stocks))
+    if devices.flask is not None:
+        fl = devices.flask
+        src = fl.source + (" (from memory)" if fl.from_memory else "")
+        t.add_row(fl.label, f"± {fl.tolerance_mL:g} mL", f"{flask_volume_uncertainty(fl):.3g} mL", src,
+                  "make-up of every tube")
+    out.print(t)
     d = p.design
     out.print(f"Design: {d.tubes} tubes, target {p.target}, criterion {d.criterion}, "
               f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
