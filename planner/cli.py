@@ -112,7 +112,7 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     t = Table(title="Glassware (from the catalogue)")
     for c in ("device", "tolerance", "u, full delivery", "source", "delivers"):
         t.add_column(c)
-    for j, (d, item) in enumerate(zip(p.glassware.dispenser, devices.items, strict=True)):
+    for d, item in zip(p.glassware.dispenser, devices.items, strict=True):
         du = delivery_uncertainty(item, np.array([item.capacity_mL]))
         src = item.source + (" (from memory)" if item.from_memory else "")
         t.add_row(item.label, f"± {item.tolerance_mL:g} mL", f"{float(du.combined_mL[0]):.3g} mL", src,
