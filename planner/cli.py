@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import sys
 import warnings
 from importlib import resources
@@ -324,7 +325,7 @@ def print_design(d, p) -> None:
     target = p.target
     out.print(f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
               f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} (×{fmt.sig(d.se_ratio_vs_even, 2)} better); "
-              f"efficiency ≥ {d.efficiency_bound:.3f} of the best possible on these candidates")
+              f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these candidates")
     if d.se_across:
         t = Table(title=f"SE(log β[{target}]) if the truth differs from the guess")
         for c in (f"true log β[{target}]", "designed", "evenly spaced"):
