@@ -351,13 +351,21 @@ def _solve(plan, model, params, devices, nodes, crit, n, seed, caps, volumetric,
         cand = candidate_tubes(plan, devices, step_mL=g.step_mL * factor, caps_mL=caps)
         coarse_note = (f"searched a {g.step_mL * factor:g} mL grid first ({cand.n_grid} candidates), then refined "
                        f"on the {g.step_mL:g} mL grid near the chosen tubes")
-    ex, ap, rec, n_feas = _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetric, starts)
+    ex, ap, rec, n_feas, support = _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetric,
+                                             starts)
     n_grid = cand.n_grid
     if factor > 1:
-        fine = _neighbourhood(plan, devices, cand, ex.counts, factor, caps)
-        ex, ap, rec, n_feas2 = _exact_on(plan, model, params, devices, nodes, crit, n, seed, fine, volumetric, starts)
-        n_grid = fine.n_grid
-        n_feas = n_feas2
+        # refine on the fine grid around the chosen tubes, re-centring until the support settles
+        base = cand
+        for _ in range(3):
+            fine = _neighbourhood(plan, devices, base, support, factor, caps)
+            ex, ap, rec, n_feas, new_support = _exact_on(plan, model, params, devices, nodes, crit, n, seed, fine,
+                                                         volumetric, starts)
+            n_grid = fine.n_grid
+            moved = not np.array_equal(fine.recipe.volumes_mL[new_support], base.recipe.volumes_mL[support])
+            base, support = fine, new_support
+            if not moved:
+                break
     return rec, ex, ap, n_grid, n_feas, coarse_note
 
 
@@ -392,14 +400,14 @@ def _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetr
     order = np.lexsort([vols[s] for s in reversed(cand.designed_ids)])
     vols = {k: v[order] for k, v in vols.items()}
     out = make_recipe(plan, vols)
-    return ex, ap, out, int(ok.sum())
+    return ex, ap, out, int(ok.sum()), idx[np.flatnonzero(ex.counts)]
 
 
-def _neighbourhood(plan, devices, coarse: Candidates, counts, factor, caps) -> Candidates:
+def _neighbourhood(plan, devices, coarse: Candidates, support: np.ndarray, factor, caps) -> Candidates:
     """Fine-grid candidates within ±factor steps of the coarse support, plus the coarse candidates
     themselves (so the refined search can always keep the coarse solution)."""
     g = plan.glassware
-    support = coarse.recipe.volumes_mL[np.flatnonzero(counts)]
+    support = coarse.recipe.volumes_mL[support]
     ids = coarse.designed_ids
     cols = [coarse.recipe.stock_ids.index(s) for s in ids]
     rows = []

@@ -220,3 +220,36 @@ id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').rep
     assert d.recipe.column("NA").min() >= 0 and glassware_problems(plan, d.recipe) == []
     ion_check = next(c for c in a.checks if c.id == "ionic-strength")
     assert ion_check.status == "pass"
+
+
+def test_coarse_then_fine_search_loses_nothing(teaching_text):
+    # derived: adding a second (concentrated) ligand stock only adds candidates, so the robust criterion of
+    # the three-stock design (searched coarse-then-fine) cannot be worse than the two-stock design's
+    from planner.design import _information_rows
+    from planner.model import build_model
+    from planner.optimal import criterion_of_counts
+    from planner.precision import free_parameters
+    from planner.priors import prior_nodes
+
+    extra = ('[[stock]]\nid = "DYC"\nlabel = "dye ligand Dy, 100 mM"\nconc = { L = "100 mM" }\n'
+             'ions = { "Na+" = "100 mM", "K+" = "0.10 M", "NO3-" = "0.10 M" }\nconc_rsd = 0.01\n'
+             'on_hand = "100 mL"\n\n[[stock]]\nid = "BG"')
+    three = parse_plan_text(teaching_text.replace('[[stock]]\nid = "BG"', extra).replace(
+        'stocks = ["CU", "DY"]', 'stocks = ["CU", "DY", "DYC"]'))
+    two = parse_plan_text(teaching_text)
+
+    def value(plan, d):
+        from planner.design import Candidates
+
+        model = build_model(plan)
+        params = free_parameters(plan, model)
+        ids = d.recipe.dispensed_ids(plan)
+        cand = Candidates(d.recipe, ids, d.recipe.n_tubes, 0.05)
+        nodes = prior_nodes(params, True)
+        F, M0, _, _ = _information_rows(plan, model, params, cand, plan_devices(plan), nodes, "target")
+        return criterion_of_counts(F, np.ones(d.recipe.n_tubes, dtype=int), criterion="target",
+                                   target=params.target, M0=M0, node_weights=nodes.weights)
+
+    d3 = design(three, seed=0)
+    assert any("refined" in n for n in d3.notes)
+    assert value(three, d3) <= value(two, design(two, seed=0)) + 1e-6
