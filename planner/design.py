@@ -4,7 +4,8 @@ Candidates are every combination of dispensed volumes on the plan's grid; each c
 Jacobian of its reading. Errors shared across tubes (stock concentrations, device calibration) enter as
 nuisance parameters with a unit Gaussian prior, which keeps the information additive over tubes and is
 exactly equivalent to the full-covariance Fisher information for the target criterion (Woodbury
-identity). The exact design comes from :func:`planner.optimal.exact_design` (Fedorov exchange), the bound
+identity). The "all" (D-optimal) criterion uses the independent errors only, since adding the nuisance
+factors would make it a Ds criterion over more parameters; the reported SEs always use the full budget. The exact design comes from :func:`planner.optimal.exact_design` (Fedorov exchange), the bound
 from :func:`planner.optimal.approximate_design` (checked by the equivalence theorem). Robust designs
 average the criterion over quadrature nodes of the guesses' uncertainty (Chaloner & Larntz 1989,
 J. Stat. Plan. Inference 21:191).
