@@ -93,7 +93,6 @@ def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = Non
         used = v > 0
         if not used.any():
             continue
-        tubes = [t for t, u in zip(recipe.tubes, used, strict=True) if u]
         j = devices.stock_device[k]
         if j < 0:
             out.append((f"stock {sid}", "no dispenser delivers it: add its id to a [[glassware.dispenser]] stocks list"))
@@ -125,7 +124,6 @@ def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = Non
                 bad = [t for t, w in zip(recipe.tubes, wrong, strict=True) if w]
                 out.append((f"stock {sid}", f"a one-mark pipette delivers only {item.capacity_mL:g} mL "
                             f"(asked otherwise in {', '.join(bad[:4])}): use a burette or graduated pipette"))
-        del tubes
     return out
 
 
