@@ -2,7 +2,7 @@
 
 Scenario: the built-in teaching scenario and its evenly spaced 8-tube recipe. 10,000 whole experiments
 are simulated (stock errors once per experiment, deliveries per tube, photometric noise per reading) and
-fitted by planner.fitting.fit_many with the full-covariance weighting, through the same code
+fitted by planner.inference.lm.fit_many with the full-covariance weighting, through the same code
 `kplan assess` runs. The baseline fits 200 of the same simulated experiments one at a time with
 scipy.optimize.least_squares (method "lm") on the same model functions, in the same run. Prints the
 time per fit for both, the ratio, and the largest difference in fitted log K on the common 200.
@@ -18,14 +18,14 @@ from importlib import resources
 import numpy as np
 from scipy.optimize import least_squares
 
-from planner.assess import expected_state
-from planner.errors import error_budget, plan_devices
-from planner.fitting import fit_many
-from planner.model import build_model, tube_ions_M
-from planner.plan import parse_plan_text
-from planner.precision import ReadingModel, free_parameters, whitening
-from planner.series import even_series
-from planner.simulate import simulate
+from planner.inference.lm import fit_many
+from planner.inference.precision import ReadingModel, free_parameters, whitening
+from planner.inference.simulate import simulate
+from planner.inputs.plan import parse_plan_text
+from planner.jobs.assess import expected_state
+from planner.jobs.series import even_series
+from planner.model.compiled import build_model, tube_ions_M
+from planner.uncertainty.budget import error_budget, plan_devices
 
 
 def main(n_trials: int = 10000, n_baseline: int = 200) -> None:

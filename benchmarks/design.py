@@ -19,13 +19,13 @@ from importlib import resources
 import numpy as np
 from scipy.optimize import differential_evolution
 
-from planner.design import Candidates, _information_rows, _range_mask, design, prior_nodes
-from planner.errors import plan_devices
-from planner.model import build_model
-from planner.optimal import criterion_of_counts
-from planner.plan import parse_plan_text
-from planner.precision import free_parameters
-from planner.recipe import make_recipe
+from planner.inference.design_criteria import criterion_of_counts
+from planner.inference.precision import free_parameters
+from planner.inputs.plan import parse_plan_text
+from planner.inputs.recipe import make_recipe
+from planner.jobs.design import Candidates, _information_rows, _range_mask, design, prior_nodes
+from planner.model.compiled import build_model
+from planner.uncertainty.budget import plan_devices
 
 
 def teaching_text() -> str:

@@ -1,4 +1,4 @@
-"""Benchmark: batched Levenberg–Marquardt (planner.fitting.fit_many) vs one-by-one scipy fits.
+"""Benchmark: batched Levenberg–Marquardt (planner.inference.lm.fit_many) vs one-by-one scipy fits.
 
 Scenario: 10,000 simulated 8-tube 1:1 titrations (metal total fixed at 1e-4 M, ligand totals
 log-spaced across the binding curve, K = 1e4 M⁻¹, ε(ML) = 5000 L mol⁻¹ cm⁻¹, path 1 cm, photometric
@@ -19,10 +19,10 @@ import time
 import numpy as np
 from scipy.optimize import least_squares
 
-from planner.fitting import fit_many
+from planner.inference.lm import fit_many
 
 try:  # the project's cancellation-free 1:1 solver, when present
-    from planner.chemistry import one_to_one
+    from planner.model.closed_forms import one_to_one
 except ImportError:  # pragma: no cover - early in the project's life
 
     def one_to_one(M_tot_M, L_tot_M, K):

@@ -19,8 +19,9 @@ import time
 
 import numpy as np
 
-from planner import optimal
-from planner.optimal import approximate_design, exact_design
+from planner.inference import design_criteria, exchange
+from planner.inference.approximate import approximate_design
+from planner.inference.exchange import exact_design
 
 SIGMA_A = 0.003  # absorbance noise, for whitening
 
@@ -68,31 +69,31 @@ def best_of(fn, repeat=3):
 
 
 def multiplicative_baseline(F, M0, n, criterion, target, iterations):
-    prob = optimal._problem(F, criterion, target, M0, None, float(n), True)
+    prob = design_criteria._problem(F, criterion, target, M0, None, float(n), True)
     rho = 1.0 if criterion == "all" else 0.5
     idx = np.arange(prob.C)
     w = np.full(prob.C, 1.0 / prob.C)
     for _ in range(iterations):
-        Linv, _ = optimal._factor(optimal._moment(prob, n * w, idx))
-        d = optimal._sens(prob, Linv)
+        Linv, _ = design_criteria._factor(design_criteria._moment(prob, n * w, idx))
+        d = design_criteria._sens(prob, Linv)
         w = w * (d / (w @ d)) ** rho
         w /= w.sum()
-    Linv, _ = optimal._factor(optimal._moment(prob, n * w, idx))
-    d = optimal._sens(prob, Linv)
+    Linv, _ = design_criteria._factor(design_criteria._moment(prob, n * w, idx))
+    d = design_criteria._sens(prob, Linv)
     return (d.max() - w @ d) / prob.k
 
 
 def full_pool_baseline(F, M0, n, criterion, target, approx, seed, starts):
-    prob = optimal._problem(F, criterion, target, M0, None, float(n), True)
+    prob = design_criteria._problem(F, criterion, target, M0, None, float(n), True)
     rng = np.random.default_rng(seed)
     best = None
     for s in range(starts):
         x0 = (
-            optimal._efficient_rounding(approx.weights, n)
+            exchange._efficient_rounding(approx.weights, n)
             if s == 0
             else np.bincount(rng.integers(0, prob.C, size=n), minlength=prob.C).astype(np.int64)
         )
-        st = optimal._exchange(prob, x0, 100 * n)
+        st = exchange._exchange(prob, x0, 100 * n)
         best = st if best is None or st.loss < best.loss else best
     return best
 
@@ -112,10 +113,10 @@ def run_case(F, M0, criterion, target, n, iters=200):
         )
     )
     t_full, st = best_of(lambda: full_pool_baseline(F, M0, n, criterion, target, ad, 1, 8), repeat=1)
-    prob = optimal._problem(F, criterion, target, M0, None, float(n), True)
+    prob = design_criteria._problem(F, criterion, target, M0, None, float(n), True)
     sup = np.flatnonzero(ad.weights)
-    Linv, logdet = optimal._factor(optimal._moment(prob, n * ad.weights[sup], sup))
-    eff_full = float(np.exp((optimal._loss(prob, Linv, logdet) - st.loss) / prob.k))
+    Linv, logdet = design_criteria._factor(design_criteria._moment(prob, n * ad.weights[sup], sup))
+    eff_full = float(np.exp((design_criteria._loss(prob, Linv, logdet) - st.loss) / prob.k))
     print(
         f"[{criterion:6s} n={n}] exact:       {t_ex * 1e3:7.1f} ms, efficiency {ex.efficiency:.5f}"
         f" | full-pool exchange: {t_full * 1e3:7.1f} ms, efficiency {eff_full:.5f}"

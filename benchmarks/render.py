@@ -40,12 +40,12 @@ def main() -> None:
     ap.add_argument("--trials", type=int, default=2000)
     args = ap.parse_args()
 
-    from planner import render
-    from planner.assess import assess
-    from planner.demo import demo_recipe_csv
-    from planner.plan import load_plan, parse_plan_text
-    from planner.preparation import stock_needs
-    from planner.recipe import parse_recipe_csv, read_recipe_csv
+    from planner.inputs.plan import load_plan, parse_plan_text
+    from planner.inputs.recipe import parse_recipe_csv, read_recipe_csv
+    from planner.jobs.assess import assess
+    from planner.jobs.demo import demo_recipe_csv
+    from planner.jobs.stock_needs import stock_needs
+    from planner.paper import render
 
     if args.plan:
         plan = load_plan(args.plan)

@@ -1,4 +1,4 @@
-"""Speed of planner.chemistry.speciate against plain per-tube scipy root finding, measured in one run.
+"""Speed of planner.model.speciation.speciate against plain per-tube scipy root finding, measured in one run.
 
 System: M + L with ML (log beta1 = 4) and ML2 (log beta2 = 7); totals log-uniform over 1e-7..1e-1 M,
 seeded. The vectorised solver does 1e6 tubes; the baselines loop over the first 1e3 tubes:
@@ -21,7 +21,7 @@ import time
 import numpy as np
 from scipy import optimize
 
-from planner.chemistry import speciate
+from planner.model.speciation import speciate
 
 STOICH = np.array([[1, 1], [1, 2]])
 LOG_BETA = np.array([4.0, 7.0])

@@ -8,15 +8,17 @@ The public API, in the order data flows: plan → model → assessment / design.
 >>> d = design(plan)                                   # doctest: +SKIP
 """
 
-from .assess import Assessment, assess
-from .chemistry import EquilibriumError, Speciation, one_to_one, speciate
-from .design import Design, DesignError, design
-from .errors import ErrorBudget, error_budget, plan_devices
-from .fitting import FitResult, fit_many
-from .model import Model, TubeState, build_model, predict
-from .plan import Plan, PlanError, load_plan, parse_plan_text
-from .recipe import Recipe, RecipeError, make_recipe, read_recipe_csv, recipe_to_csv
-from .series import even_series
+from .inference.fit_result import FitResult
+from .inference.lm import fit_many
+from .inputs.plan import Plan, PlanError, load_plan, parse_plan_text
+from .inputs.recipe import Recipe, RecipeError, make_recipe, read_recipe_csv, recipe_to_csv
+from .jobs.assess import Assessment, assess
+from .jobs.design import Design, DesignError, design
+from .jobs.series import even_series
+from .model.closed_forms import EquilibriumError, one_to_one
+from .model.compiled import Model, TubeState, build_model, predict
+from .model.speciation import Speciation, speciate
+from .uncertainty.budget import ErrorBudget, error_budget, plan_devices
 
 __version__ = "0.1.0"
 

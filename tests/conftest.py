@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from planner.plan import parse_plan_text
+from planner.inputs.plan import parse_plan_text
 
 ROOT = Path(__file__).resolve().parents[1]
 

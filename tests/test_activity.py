@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from planner.activity import (
+from planner.model.activity import (
     DAVIES_A_25C,
     ActivityWarning,
     davies_log_gamma,

@@ -5,11 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from planner.analysis import Readings, fit_readings, parse_readings_csv
-from planner.errors import plan_devices
-from planner.model import build_model
-from planner.recipe import RecipeError, make_recipe
-from planner.simulate import simulate
+from planner.inference.simulate import simulate
+from planner.inputs.recipe import RecipeError, make_recipe
+from planner.jobs.fit import Readings, fit_readings, parse_readings_csv
+from planner.model.compiled import build_model
+from planner.uncertainty.budget import plan_devices
 
 
 def _recipe(plan):

@@ -7,11 +7,11 @@ import math
 import numpy as np
 import pytest
 
-from planner.assess import assess
-from planner.checks import fraction_converted
-from planner.plan import parse_plan_text
-from planner.recipe import make_recipe
-from planner.series import even_series
+from planner.inputs.plan import parse_plan_text
+from planner.inputs.recipe import make_recipe
+from planner.jobs.assess import assess
+from planner.jobs.checks import fraction_converted
+from planner.jobs.series import even_series
 
 from .conftest import scenario_text
 

@@ -9,17 +9,16 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from planner import chemistry
-from planner.chemistry import (
+from planner.model import newton
+from planner.model.closed_forms import (
     EquilibriumError,
-    Speciation,
     conditional_log_beta,
     one_to_one,
     overall_from_stepwise,
-    sensitivities,
-    speciate,
     stepwise_from_overall,
 )
+from planner.model.sensitivities import sensitivities
+from planner.model.speciation import Speciation, speciate
 
 try:
     import mpmath
@@ -238,7 +237,7 @@ def test_reduced_and_two_variable_solvers_agree(monkeypatch):
         calls.append(M_.size)
         return (np.zeros(M_.size, dtype=bool), np.zeros((sy.S, M_.size)), np.zeros(M_.size), np.zeros(M_.size))
 
-    monkeypatch.setattr(chemistry, "_solve_p1", refuse)
+    monkeypatch.setattr(newton, "_solve_p1", refuse)
     general = speciate(M, L, species, lb)
     assert sum(calls) == n
     # both satisfy the balances to 2e-14; 1e-9 leaves room for the conditioning of the free species
@@ -317,7 +316,7 @@ def test_results_do_not_depend_on_batching_shape(seed, trials, tubes, species):
 def test_results_do_not_depend_on_block_position():
     # batches larger than one solver block: each tube's result equals its result alone
     rng = np.random.default_rng(5)
-    n = chemistry._BLOCK * 2 + 17
+    n = newton._BLOCK * 2 + 17
     species = [(1, 1), (1, 2), (1, 0)]
     M = 10.0 ** rng.uniform(-10, 0, n)
     L = 10.0 ** rng.uniform(-10, 0, n)
@@ -364,15 +363,15 @@ def test_fallback_solves_tubes_newton_gives_up_on(monkeypatch):
     lb = rng.uniform(-3, 30, (n, 4))
     reference = speciate(M, L, species, lb)
     calls = []
-    real_nested = chemistry._nested
+    real_nested = newton._nested
 
     def spy(lnb, sy, M_, L_):
         calls.append(M_.size)
         return real_nested(lnb, sy, M_, L_)
 
-    monkeypatch.setattr(chemistry, "_MAX_NEWTON", 2)
-    monkeypatch.setattr(chemistry, "_nested", spy)
-    monkeypatch.setattr(chemistry, "_initial_guess", lambda lnb, sy, M_, L_: (np.log(M_) + 40, np.log(L_) - 40))
+    monkeypatch.setattr(newton, "_MAX_NEWTON", 2)
+    monkeypatch.setattr(newton, "_nested", spy)
+    monkeypatch.setattr(newton, "_initial_guess", lambda lnb, sy, M_, L_: (np.log(M_) + 40, np.log(L_) - 40))
     spec = speciate(M, L, species, lb)
     assert calls and calls[0] > n // 2
     rM, rL = rel_residuals(spec, species)
@@ -382,9 +381,9 @@ def test_fallback_solves_tubes_newton_gives_up_on(monkeypatch):
 
 def test_non_convergence_is_reported_with_the_tubes(monkeypatch):
     bad_start = lambda lnb, sy, M_, L_: (np.log(M_) + 40, np.log(L_) - 40)  # noqa: E731
-    monkeypatch.setattr(chemistry, "_MAX_NEWTON", 0)
-    monkeypatch.setattr(chemistry, "_initial_guess", bad_start)
-    monkeypatch.setattr(chemistry, "_nested", bad_start)
+    monkeypatch.setattr(newton, "_MAX_NEWTON", 0)
+    monkeypatch.setattr(newton, "_initial_guess", bad_start)
+    monkeypatch.setattr(newton, "_nested", bad_start)
     with pytest.raises(EquilibriumError, match=r"did not converge in tubes \[0, 1\]"):
         speciate([1e-3, 1e-4], [1e-3, 1e-3], [[1, 1], [1, 2]], [8.0, 12.0])
 

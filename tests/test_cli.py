@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 from planner import cli
-from planner.files import write_atomic
+from planner.inputs.files import write_atomic
 
 from .conftest import ROOT
 
@@ -109,7 +109,7 @@ def test_atomic_write_leaves_nothing_on_failure(tmp_path, monkeypatch):
     def boom(*a, **k):
         raise OSError("disk full")
 
-    monkeypatch.setattr("planner.files.os.replace", boom)
+    monkeypatch.setattr("planner.inputs.files.os.replace", boom)
     with pytest.raises(OSError):
         write_atomic(target, "new")
     assert target.read_text() == "old"
@@ -146,7 +146,7 @@ def test_fit_command(tmp_path, capsys, monkeypatch):
 
 
 def test_sheet_and_report_commands(tmp_path, capsys, monkeypatch):
-    from planner.render import PAPERS
+    from planner.paper.render import PAPERS
 
     assert tuple(PAPERS) == cli.PAPER_CHOICES
     plan = ROOT / "planner/data/scenarios/teaching.toml"

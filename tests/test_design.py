@@ -7,12 +7,12 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from planner.assess import assess
-from planner.design import DesignError, candidate_tubes, design
-from planner.errors import glassware_problems, plan_devices
-from planner.glassware import on_grid
-from planner.plan import parse_plan_text
-from planner.series import even_series
+from planner.inputs.plan import parse_plan_text
+from planner.jobs.assess import assess
+from planner.jobs.design import DesignError, candidate_tubes, design
+from planner.jobs.series import even_series
+from planner.uncertainty.budget import glassware_problems, plan_devices
+from planner.uncertainty.delivery import on_grid
 
 from .conftest import scenario_text
 
@@ -119,15 +119,15 @@ def test_design_then_assess_agree(teaching_plan):
 def test_nuisance_factor_information_equals_full_covariance(teaching_plan):
     # derived (Woodbury identity): shared errors as unit-prior nuisance factors give the same
     # Var(log β) as the full-covariance Fisher information that assess uses
-    from planner.design import _information_rows, prior_nodes
-    from planner.model import build_model
-    from planner.optimal import criterion_of_counts
-    from planner.precision import free_parameters
+    from planner.inference.design_criteria import criterion_of_counts
+    from planner.inference.precision import free_parameters
+    from planner.jobs.design import _information_rows, prior_nodes
+    from planner.model.compiled import build_model
 
     d = design(teaching_plan, seed=3, robust=False)
     model = build_model(teaching_plan)
     params = free_parameters(teaching_plan, model)
-    from planner.design import Candidates
+    from planner.jobs.design import Candidates
 
     cand = Candidates(d.recipe, ("CU", "DY"), d.recipe.n_tubes, 0.05)
     F, M0, _, _ = _information_rows(teaching_plan, model, params, cand, plan_devices(teaching_plan),
@@ -225,11 +225,11 @@ id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').rep
 def test_coarse_then_fine_search_loses_nothing(teaching_text):
     # derived: adding a second (concentrated) ligand stock only adds candidates, so the robust criterion of
     # the three-stock design (searched coarse-then-fine) cannot be worse than the two-stock design's
-    from planner.design import _information_rows
-    from planner.model import build_model
-    from planner.optimal import criterion_of_counts
-    from planner.precision import free_parameters
-    from planner.priors import prior_nodes
+    from planner.inference.design_criteria import criterion_of_counts
+    from planner.inference.precision import free_parameters
+    from planner.inference.priors import prior_nodes
+    from planner.jobs.design import _information_rows
+    from planner.model.compiled import build_model
 
     extra = ('[[stock]]\nid = "DYC"\nlabel = "dye ligand Dy, 100 mM"\nconc = { L = "100 mM" }\n'
              'ions = { "Na+" = "100 mM", "K+" = "0.10 M", "NO3-" = "0.10 M" }\nconc_rsd = 0.01\n'
@@ -239,7 +239,7 @@ def test_coarse_then_fine_search_loses_nothing(teaching_text):
     two = parse_plan_text(teaching_text)
 
     def value(plan, d):
-        from planner.design import Candidates
+        from planner.jobs.design import Candidates
 
         model = build_model(plan)
         params = free_parameters(plan, model)

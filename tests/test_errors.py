@@ -5,14 +5,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from planner.assess import expected_state
-from planner.errors import error_budget, glassware_problems, plan_devices, require_glassware_fits
-from planner.information import absorbance_derivatives
-from planner.model import build_model, predict
-from planner.plan import parse_plan_text
-from planner.recipe import RecipeError, make_recipe, parse_recipe_csv
-from planner.series import even_series
-from planner.simulate import simulate
+from planner.inference.simulate import simulate
+from planner.inputs.plan import parse_plan_text
+from planner.inputs.recipe import RecipeError, make_recipe, parse_recipe_csv
+from planner.jobs.assess import expected_state
+from planner.jobs.series import even_series
+from planner.model.compiled import build_model, predict
+from planner.model.jacobians import absorbance_derivatives
+from planner.uncertainty.budget import error_budget, glassware_problems, plan_devices, require_glassware_fits
 
 from .conftest import scenario_text
 

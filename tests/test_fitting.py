@@ -22,8 +22,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import least_squares
 
-from planner import fitting
-from planner.fitting import STATUS_MESSAGES, FitError, FitResult, fit_many, fit_one
+from planner.inference import lm
+from planner.inference.fit_result import STATUS_MESSAGES, FitError, FitResult
+from planner.inference.lm import fit_many, fit_one
 
 # ------------------------------------------------------------------------------------------------
 # NIST StRD: locating and parsing the files
@@ -705,7 +706,7 @@ def test_factorisation_matches_lapack_svd(n_obs, n_params):
     rng = np.random.default_rng(n_params)
     js = rng.normal(size=(50, n_obs, n_params)) * np.logspace(0, -6, n_params)  # cond up to ~1e6
     r = rng.normal(size=(50, n_obs))
-    s, vt, b = fitting._factorise(js, r)
+    s, vt, b = lm._factorise(js, r)
     u_ref, s_ref, _ = np.linalg.svd(js, full_matrices=False)
     np.testing.assert_allclose(np.sort(s, axis=1), np.sort(s_ref, axis=1), rtol=1e-9)
     # Vᵀ is orthogonal and reproduces JsᵀJs and Jsᵀr

@@ -7,15 +7,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from planner.glassware import (
-    CLASS_B_FACTOR,
-    KINDS,
-    GlasswareError,
-    catalogue,
+from planner.uncertainty.catalogue import CLASS_B_FACTOR, KINDS, GlasswareError, catalogue, lookup
+from planner.uncertainty.delivery import (
     check_volume,
     delivery_uncertainty,
     flask_volume_uncertainty,
-    lookup,
     on_grid,
     snap_to_grid,
     u_reading,
@@ -111,7 +107,7 @@ def test_micropipettes_have_no_class():
 
 
 def test_catalogue_rejects_duplicates_and_classes():
-    from planner.glassware import _parse_catalogue
+    from planner.uncertainty.catalogue import _parse_catalogue
 
     entry = {"kind": "flask", "capacity_mL": 10.0, "class": "A", "tolerance_mL": 0.02, "source": "x"}
     with pytest.raises(GlasswareError, match="twice"):

@@ -8,11 +8,11 @@ import warnings
 import numpy as np
 import pytest
 
-from planner.activity import ActivityWarning
-from planner.assess import expected_state
-from planner.model import build_model, predict
-from planner.plan import parse_plan_text
-from planner.recipe import make_recipe
+from planner.inputs.plan import parse_plan_text
+from planner.inputs.recipe import make_recipe
+from planner.jobs.assess import expected_state
+from planner.model.activity import ActivityWarning
+from planner.model.compiled import build_model, predict
 
 
 def test_ionic_strength_by_hand(teaching_plan):
@@ -63,7 +63,7 @@ def test_bandwidth_correction(teaching_text):
 
 
 def test_prediction_is_tube_order_independent(any_scenario):
-    from planner.series import even_series
+    from planner.jobs.series import even_series
 
     r = even_series(any_scenario)
     st = expected_state(any_scenario, r)

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import minimize_scalar
 
-from planner import optics
+from planner.model import optics
 
 
 def test_beer_lambert_sums_absorbers():

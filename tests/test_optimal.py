@@ -7,17 +7,10 @@ import pytest
 from hypothesis import HealthCheck, given, reject, settings
 from hypothesis import strategies as st
 
-from planner import optimal
-from planner.optimal import (
-    CRITERIA,
-    ApproximateDesign,
-    DesignError,
-    ExactDesign,
-    approximate_design,
-    criterion_of_counts,
-    exact_design,
-    sensitivity,
-)
+from planner.inference import design_criteria, exchange
+from planner.inference.approximate import ApproximateDesign, approximate_design, sensitivity
+from planner.inference.design_criteria import CRITERIA, DesignError, criterion_of_counts
+from planner.inference.exchange import ExactDesign, exact_design
 
 # --------------------------------------------------------------------------------------------------
 # Models (Jacobians written out by hand, independent of the module)
@@ -490,8 +483,8 @@ def test_update_formulas_match_direct_evaluation():
         F = g.normal(size=(2, 7, R, 3))
         x = np.array([2, 0, 1, 0, 1, 1, 0])
         for criterion, target in (("all", None), ("target", 1)):
-            prob = optimal._problem(F, criterion, target, None, None, float(x.sum()), True)
-            state = optimal._State(prob, x.astype(np.int64))
+            prob = design_criteria._problem(F, criterion, target, None, None, float(x.sum()), True)
+            state = exchange._State(prob, x.astype(np.int64))
             parts = state.parts()
             sup = np.flatnonzero(x)
             pair = state.pair_delta(parts, state.parts(sup))

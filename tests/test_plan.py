@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from planner.plan import PlanError, ion_charge, load_plan, parse_plan_text
+from planner.inputs.plan import PlanError, ion_charge, load_plan, parse_plan_text
 
 
 def _err(text: str) -> PlanError:

@@ -5,9 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from planner.preparation import stock_needs
-from planner.recipe import make_recipe
-from planner.stocks import formula_weight_g_mol
+from planner.inputs.recipe import make_recipe
+from planner.jobs.stock_needs import stock_needs
+from planner.uncertainty.stocks import formula_weight_g_mol
 
 
 def test_mass_to_weigh_follows_the_formula(teaching_plan):
@@ -26,7 +26,7 @@ def test_mass_to_weigh_follows_the_formula(teaching_plan):
 
 
 def test_dilution_chain_below_minimum_weight(teaching_text):
-    from planner.plan import parse_plan_text
+    from planner.inputs.plan import parse_plan_text
 
     plan = parse_plan_text(teaching_text.replace('conc = { M = "10.0 mM" }', 'conc = { M = "1.00 mM" }'))
     cu = {n.id: n for n in stock_needs(plan)}["CU"].preparation
@@ -46,7 +46,7 @@ def test_volumes_needed_with_allowance(teaching_plan):
 
 
 def test_not_enough_on_hand(teaching_text):
-    from planner.plan import parse_plan_text
+    from planner.inputs.plan import parse_plan_text
 
     plan = parse_plan_text(teaching_text.replace('on_hand = "100 mL"\nreagent = "copper', 'on_hand = "9 mL"\nreagent = "copper'))
     r = make_recipe(plan, {"CU": np.full(8, 1.0), "DY": np.full(8, 1.0)})

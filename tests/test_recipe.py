@@ -7,8 +7,15 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from planner.plan import parse_plan_text
-from planner.recipe import RecipeError, make_recipe, parse_recipe_csv, recipe_to_csv, stock_matrix, totals_M
+from planner.inputs.plan import parse_plan_text
+from planner.inputs.recipe import (
+    RecipeError,
+    make_recipe,
+    parse_recipe_csv,
+    recipe_to_csv,
+    stock_matrix,
+    totals_M,
+)
 
 from .conftest import scenario_text  # noqa: E402
 

@@ -15,12 +15,12 @@ import tomllib
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from planner import figures, fmt, render, safety, sheets
-from planner.assess import assess, assess_recipe
-from planner.demo import demo_recipe_csv
-from planner.plan import load_plan, parse_plan
-from planner.preparation import stock_needs
-from planner.recipe import make_recipe, parse_recipe_csv, read_recipe_csv
+from planner.inputs.plan import load_plan, parse_plan
+from planner.inputs.recipe import make_recipe, parse_recipe_csv, read_recipe_csv
+from planner.jobs.assess import assess, assess_recipe
+from planner.jobs.demo import demo_recipe_csv
+from planner.jobs.stock_needs import stock_needs
+from planner.paper import figures, fmt, render, safety, sheets
 
 from .conftest import ROOT, scenario_text
 
@@ -428,11 +428,11 @@ def test_pretty_formula():
 
 def test_plan_order_and_levelling_reach_the_sheet(tmp_path):
     """The plan's glassware.order sets the order of addition; a background stock is named in the header."""
-    from planner.assess import assess as run_assess
-    from planner.plan import parse_plan_text
-    from planner.preparation import stock_needs
-    from planner.recipe import make_recipe
-    from planner.render import prep_sheet
+    from planner.inputs.plan import parse_plan_text
+    from planner.inputs.recipe import make_recipe
+    from planner.jobs.assess import assess as run_assess
+    from planner.jobs.stock_needs import stock_needs
+    from planner.paper.render import prep_sheet
 
     from .conftest import scenario_text
 

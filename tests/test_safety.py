@@ -11,9 +11,9 @@ import tomllib
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from planner import safety
-from planner.plan import parse_plan
-from planner.safety import (
+from planner.inputs.plan import parse_plan
+from planner.paper import safety
+from planner.paper.safety import (
     ALWAYS,
     CMR_CODES,
     H_STATEMENTS,

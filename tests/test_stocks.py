@@ -8,8 +8,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from planner.glassware import lookup
-from planner.stocks import (
+from planner.uncertainty.catalogue import lookup
+from planner.uncertainty.stocks import (
     ACS_REAGENT_ASSAY_HALF_WIDTH,
     StockError,
     conc_from_weighing_M,

@@ -18,17 +18,18 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import glassware, optimal
+from ..inference import approximate, exchange
+from ..inference.design_criteria import CRITERIA, DesignError
+from ..inference.precision import Parameters, ReadingModel, free_parameters
+from ..inference.priors import Nodes, prior_nodes
+from ..inputs.plan import Plan
+from ..inputs.recipe import Recipe, make_recipe, totals_M
+from ..model.compiled import Model, build_model, predict, tube_ions_M
+from ..model.jacobians import absorbance_derivatives
+from ..uncertainty import delivery
+from ..uncertainty.budget import Devices, error_factors, plan_devices
 from .assess import assess
 from .checks import RANGE_RISK, prior_range_risk
-from .errors import Devices, error_factors, plan_devices
-from .information import absorbance_derivatives
-from .model import Model, build_model, predict, tube_ions_M
-from .optimal import CRITERIA, DesignError
-from .plan import Plan
-from .precision import Parameters, ReadingModel, free_parameters
-from .priors import Nodes, prior_nodes
-from .recipe import Recipe, make_recipe, totals_M
 from .series import even_series
 
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
@@ -83,7 +84,7 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
         j = devices.stock_device[k]
         if j >= 0:
             cap = min(cap, devices.items[j].capacity_mL)
-            low = max(low, glassware.smallest_delivery_mL(devices.items[j]))
+            low = max(low, delivery.smallest_delivery_mL(devices.items[j]))
         if caps_mL and sid in caps_mL:
             cap = min(cap, caps_mL[sid])
         levels.append(_levels(low, cap, step, allow_zero=True))
@@ -187,8 +188,8 @@ class Design:
     seed: int
     n_candidates: int
     n_feasible: int
-    exact: optimal.ExactDesign
-    approx: optimal.ApproximateDesign
+    exact: exchange.ExactDesign
+    approx: approximate.ApproximateDesign
     efficiency_bound: float
     se_target: float
     se_even: float
@@ -234,7 +235,7 @@ def _information_rows(plan: Plan, model: Model, params: Parameters, cand: Candid
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
     reading = ReadingModel(model, params, tot, ions)
     G = nodes.theta.shape[0]
-    from .precision import unpack
+    from ..inference.precision import unpack
 
     lb, eps, _ = unpack(model, params, nodes.theta)
     st = predict(model, np.broadcast_to(tot, (G,) + tot.shape), np.broadcast_to(ions, (G,) + ions.shape),
@@ -269,7 +270,7 @@ def _information_rows(plan: Plan, model: Model, params: Parameters, cand: Candid
 
 
 def _take_state(st, g):
-    from .model import TubeState
+    from ..model.compiled import TubeState
 
     return TubeState(*(getattr(st, f)[g] for f in TubeState.__dataclass_fields__))
 
@@ -384,8 +385,8 @@ def _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetr
     target = params.target if crit == "target" else None
     kw = dict(criterion=crit, target=target, M0=M0, node_weights=nodes.weights)
     try:
-        ap = optimal.approximate_design(Fk, n_tubes=n, **kw)
-        ex = optimal.exact_design(Fk, n, rng=np.random.default_rng(seed), starts=starts, approx=ap, **kw)
+        ap = approximate.approximate_design(Fk, n_tubes=n, **kw)
+        ex = exchange.exact_design(Fk, n, rng=np.random.default_rng(seed), starts=starts, approx=ap, **kw)
     except DesignError as exc:
         lo, hi = model.linear_range
         raise DesignError(
@@ -428,7 +429,7 @@ def _neighbourhood(plan, devices, coarse: Candidates, support: np.ndarray, facto
         dv = devices.stock_device[k]
         if dv >= 0:
             ok &= mesh[:, j] <= devices.items[dv].capacity_mL + 1e-9
-            vmin = glassware.smallest_delivery_mL(devices.items[dv])
+            vmin = delivery.smallest_delivery_mL(devices.items[dv])
             ok &= (mesh[:, j] == 0) | (mesh[:, j] >= vmin - 1e-9)
         if caps and sid in caps:
             ok &= mesh[:, j] <= caps[sid] + 1e-9

@@ -8,8 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .plan import Plan
-from .recipe import Recipe, make_recipe
+from ..inputs.plan import Plan
+from ..inputs.recipe import Recipe, make_recipe
 
 
 def _snap(v: np.ndarray, step: float) -> np.ndarray:

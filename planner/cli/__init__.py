@@ -16,10 +16,10 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
-from . import fmt
-from .optimal import CRITERIA as DESIGN_CRITERIA
-from .plan import PlanError, load_plan, parse_plan_text
-from .recipe import RecipeError, read_recipe_csv
+from ..inference.design_criteria import CRITERIA as DESIGN_CRITERIA
+from ..inputs.plan import PlanError, load_plan, parse_plan_text
+from ..inputs.recipe import RecipeError, read_recipe_csv
+from ..paper import fmt
 
 app = typer.Typer(
     name="kplan",
@@ -41,16 +41,15 @@ class UserError(Exception):
 
 
 def _user_errors() -> tuple[type[BaseException], ...]:
-    from .chemistry import EquilibriumError
+    from ..inference.design_criteria import DesignError
+    from ..inference.fit_result import FitError
+    from ..model.closed_forms import EquilibriumError
+    from ..paper.sheets import RenderError
+    from ..uncertainty.catalogue import GlasswareError
+    from ..uncertainty.stocks import StockError
 
-    extra: list[type[BaseException]] = [EquilibriumError]
-    for mod, name in (("glassware", "GlasswareError"), ("stocks", "StockError"), ("optimal", "DesignError"),
-                      ("fitting", "FitError"), ("render", "RenderError")):
-        try:
-            extra.append(getattr(__import__(f"planner.{mod}", fromlist=[name]), name))
-        except (ImportError, AttributeError):
-            pass
-    return (PlanError, RecipeError, UserError, *extra)
+    return (PlanError, RecipeError, UserError, EquilibriumError, GlasswareError, StockError, DesignError,
+            FitError, RenderError)
 
 
 def scenario_text(name: str) -> str:
@@ -106,8 +105,8 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     g = p.glassware
     out.print(f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL, "
               f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL")
-    from .errors import plan_devices
-    from .glassware import delivery_uncertainty, flask_volume_uncertainty
+    from ..uncertainty.budget import plan_devices
+    from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
 
     devices = plan_devices(p)
     t = Table(title="Glassware (from the catalogue)")
@@ -138,7 +137,7 @@ def new(
     force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
 ) -> None:
     """Write a commented starter plan from a built-in scenario."""
-    from .files import write_atomic
+    from ..inputs.files import write_atomic
 
     text = scenario_text(scenario)
     if path.exists() and not force:
@@ -159,7 +158,7 @@ def assess(
         "--at", help="assess as if the true constant were different: NAME=LOGBETA (repeatable)")] = None,
 ) -> None:
     """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading."""
-    from .assess import assess as run_assess
+    from ..jobs.assess import assess as run_assess
 
     p = load_plan(plan)
     r = read_recipe_csv(recipe, p)
@@ -285,9 +284,9 @@ def design(
     as_json: Annotated[bool, typer.Option("--json", help="print the design summary as JSON")] = False,
 ) -> None:
     """Choose tube volumes on the glassware's grid that resolve K as precisely as possible."""
-    from .design import design as run_design
-    from .files import write_atomic
-    from .recipe import recipe_to_csv
+    from ..inputs.files import write_atomic
+    from ..inputs.recipe import recipe_to_csv
+    from ..jobs.design import design as run_design
 
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
@@ -345,7 +344,7 @@ def fit(
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
 ) -> None:
     """Fit measured readings with the plan's model, and compare the result with the plan's promise."""
-    from .analysis import fit_readings, read_readings_csv
+    from ..jobs.fit import fit_readings, read_readings_csv
 
     p = load_plan(plan)
     f = fit_readings(p, read_readings_csv(readings, p))
@@ -379,13 +378,13 @@ PAPER_CHOICES = ("A4", "Letter")  # the same keys as planner.render.PAPERS (chec
 
 def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: bool, paper: str, trials: int,
                   seed: int, design_json: Path | None = None) -> None:
-    from .assess import assess as run_assess
-    from .errors import require_glassware_fits
-    from .files import write_atomic_bytes
-    from .preparation import stock_needs
-    from .render import PAPERS
-    from .render import prep_sheet as render_sheet
-    from .render import report as render_report
+    from ..inputs.files import write_atomic_bytes
+    from ..jobs.assess import assess as run_assess
+    from ..jobs.stock_needs import stock_needs
+    from ..paper.render import PAPERS
+    from ..paper.render import prep_sheet as render_sheet
+    from ..paper.render import report as render_report
+    from ..uncertainty.budget import require_glassware_fits
 
     if paper not in PAPERS:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
@@ -446,7 +445,7 @@ def stocks(
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
 ) -> None:
     """How to make each stock (mass to weigh, flask, uncertainty) and how much a recipe needs."""
-    from .preparation import stock_needs
+    from ..jobs.stock_needs import stock_needs
 
     p = load_plan(plan)
     r = read_recipe_csv(recipe, p) if recipe else None
@@ -501,11 +500,11 @@ def demo(
     out_dir: Annotated[Path, typer.Option("--out", help="folder for the demo's files")] = Path("kplan-demo"),
 ) -> None:
     """Run the built-in scenario through everything the tool does and say what it wrote."""
-    from .assess import assess as run_assess
-    from .demo import demo_recipe_csv
-    from .design import design as run_design
-    from .files import write_atomic
-    from .recipe import parse_recipe_csv, recipe_to_csv
+    from ..inputs.files import write_atomic
+    from ..inputs.recipe import parse_recipe_csv, recipe_to_csv
+    from ..jobs.assess import assess as run_assess
+    from ..jobs.demo import demo_recipe_csv
+    from ..jobs.design import design as run_design
 
     text = scenario_text(DEMO_SCENARIO)
     p = parse_plan_text(text, source=f"scenario {DEMO_SCENARIO}")
@@ -536,10 +535,10 @@ def demo(
 
 def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
     """Prep sheet and report of the designed recipe."""
-    from .files import write_atomic_bytes
-    from .preparation import stock_needs
-    from .render import prep_sheet as render_sheet
-    from .render import report as render_report
+    from ..inputs.files import write_atomic_bytes
+    from ..jobs.stock_needs import stock_needs
+    from ..paper.render import prep_sheet as render_sheet
+    from ..paper.render import report as render_report
 
     sheet_pdf = write_atomic_bytes(out_dir / "prep.pdf", render_sheet(p, d.recipe, a, stock_needs(p, d.recipe),
                                                                       order=p.glassware.order))

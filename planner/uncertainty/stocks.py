@@ -19,17 +19,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from planner.glassware import (
-    REPEATABILITY_PER_U_CALIBRATION,
-    GlasswareError,
-    GlasswareItem,
-    catalogue,
-    delivery_uncertainty,
-    flask_volume_uncertainty,
-    lookup,
-    u_rectangular,
-    u_triangular,
-)
+from .catalogue import REPEATABILITY_PER_U_CALIBRATION, GlasswareError, GlasswareItem, catalogue, lookup
+from .delivery import delivery_uncertainty, flask_volume_uncertainty, u_rectangular, u_triangular
 
 __all__ = [
     "ACS_REAGENT_ASSAY_HALF_WIDTH",

@@ -1,8 +1,5 @@
-"""Glassware catalogue, tolerances turned into standard uncertainties, and volume grids.
+"""Standard uncertainty of a delivered volume, and volume grids.
 
-The catalogue (``planner/data/glassware.toml``) stores class A tolerances; class B is computed as
-twice class A (ASTM E287 §1.1.2, ASTM E288 §1.1.2). Micropipettes have no class and carry the
-ISO 8655-2:2002 systematic and random limits instead.
 
 Tolerance → standard uncertainty follows EURACHEM/CITAC QUAM (3rd ed., 2012): a triangular
 distribution for a glassware tolerance, ``a/√6``; a rectangular one when nothing else is known,
@@ -16,318 +13,29 @@ differently in a fit: replicates average the first, never the second.
 
 from __future__ import annotations
 
-import functools
 import math
-from dataclasses import dataclass, replace
-from importlib import resources
+from dataclasses import dataclass
 
 import numpy as np
 
-try:  # Python ≥ 3.11
-    import tomllib
-except ModuleNotFoundError:  # pragma: no cover - Python 3.10 fallback
-    import tomli as tomllib
-
-__all__ = [
-    "CLASSES",
-    "CLASS_B_FACTOR",
-    "KINDS",
-    "SINGLE_VOLUME_KINDS",
-    "WATER_EXPANSION_PER_C",
-    "DeliveryUncertainty",
-    "GlasswareError",
-    "GlasswareItem",
-    "catalogue",
-    "check_volume",
-    "delivery_uncertainty",
-    "flask_volume_uncertainty",
-    "lookup",
-    "on_grid",
-    "snap_to_grid",
-    "u_reading",
-    "u_rectangular",
-    "u_temperature",
-    "u_triangular",
-    "volume_grid",
-]
-
-KINDS = ("burette", "pipette", "graduated-pipette", "flask", "micropipette")
-"""Kind names, as the plan file spells them ("pipette" is one-mark, "flask" volumetric)."""
-
-CLASSES = ("A", "B")
-"""Glassware classes; micropipettes have none."""
-
-CLASS_B_FACTOR = 2.0
-"""Class B tolerance / class A tolerance [source: ASTM E287 §1.1.2, ASTM E288 §1.1.2]."""
-
-SINGLE_VOLUME_KINDS = ("pipette", "flask")
-"""Kinds that hold or deliver only their capacity."""
-
-WATER_EXPANSION_PER_C = 2.1e-4
-"""Volume expansion coefficient of water near 20 °C, 1/°C [source: EURACHEM/CITAC QUAM, example A1]."""
-
-READING_FRACTION_OF_GRADUATION = 0.2
-"""A meniscus is read to ±1/5 of the smallest subdivision [common practice]: ±0.02 mL on a 0.1 mL
-scale, ±0.01 mL on a 0.05 mL scale, the ±0.01–0.02 mL that domain.md quotes for a burette reading."""
-
-DEFAULT_READING_HALF_WIDTH_mL = 0.02
-"""Reading half-width when an item has no recorded graduation [common practice, domain.md §3]."""
-
-MICROPIPETTE_MIN_FRACTION = 0.1
-"""Lower end of a variable micropipette's usable range, fraction of nominal [from memory: ISO 8655-2]."""
-
-REPEATABILITY_PER_U_CALIBRATION = 0.02 / (0.1 / math.sqrt(6.0))
-"""Fill-to-mark repeatability (sd) per triangular calibration uncertainty, used when none is given.
-
-Derived from EURACHEM/CITAC QUAM example A1 (100 mL flask, ±0.1 mL, repeatability 0.02 mL), i.e.
-about 0.49: the one published pair we have for class A glassware [derived]."""
-
-MIN_STEP_mL = 1e-6
-"""Smallest grid step accepted (1 nL): below any real device; keeps 10-decimal rounding exact."""
-
-_GRID_DECIMALS = 10
-_GRID_ATOL_mL = 1e-10  # the resolution of the 10-decimal rounding
-_MAX_GRID_POINTS = 1_000_000
+from .catalogue import (
+    _GRID_DECIMALS,
+    _MAX_GRID_POINTS,
+    KINDS,
+    MICROPIPETTE_MIN_FRACTION,
+    READING_FRACTION_OF_GRADUATION,
+    REPEATABILITY_PER_U_CALIBRATION,
+    SINGLE_VOLUME_KINDS,
+    WATER_EXPANSION_PER_C,
+    DEFAULT_READING_HALF_WIDTH_mL,
+    GlasswareError,
+    GlasswareItem,
+    MIN_STEP_mL,
+    _fmt,
+    _GRID_ATOL_mL,
+)
 
 
-class GlasswareError(ValueError):
-    """A glassware choice or a volume the user asked for cannot be honoured; the message says why."""
-
-
-@dataclass(frozen=True)
-class GlasswareItem:
-    """One device of the catalogue (or a user-supplied one).
-
-    Attributes
-    ----------
-    kind : str
-        One of :data:`KINDS`.
-    capacity_mL : float
-        Nominal capacity, mL (a micropipette's nominal, i.e. largest selectable, volume).
-    cls : str or None
-        "A" or "B"; None for micropipettes, which have no class.
-    tolerance_mL : float
-        ± limit of error at capacity, mL; for a micropipette the ISO 8655-2 maximum permissible
-        systematic error.
-    graduation_mL : float or None
-        Smallest subdivision, mL, for kinds that have one.
-    random_mL : float or None
-        Micropipettes: ISO 8655-2 maximum permissible random error (a standard deviation), mL.
-    source : str
-        Standard the tolerance comes from.
-    from_memory : bool
-        True when the tolerance is recalled rather than read from the cited table.
-    note : str
-        Anything else worth knowing (for example, a recalled graduation).
-    """
-
-    kind: str
-    capacity_mL: float
-    cls: str | None
-    tolerance_mL: float
-    graduation_mL: float | None
-    random_mL: float | None
-    source: str
-    from_memory: bool
-    note: str = ""
-
-    @property
-    def label(self) -> str:
-        """Human name for prep sheets, e.g. ``"class A 50 mL burette"``."""
-        if self.kind == "micropipette":
-            return f"{_fmt(self.capacity_mL * 1000.0)} µL micropipette"
-        names = {"pipette": "one-mark pipette", "flask": "volumetric flask"}
-        return f"class {self.cls} {_fmt(self.capacity_mL)} mL {names.get(self.kind, self.kind)}"
-
-    def summary(self) -> dict:
-        """Plain JSON-safe description."""
-        return {
-            "kind": self.kind,
-            "capacity_mL": float(self.capacity_mL),
-            "class": self.cls,
-            "tolerance_mL": float(self.tolerance_mL),
-            "graduation_mL": None if self.graduation_mL is None else float(self.graduation_mL),
-            "random_mL": None if self.random_mL is None else float(self.random_mL),
-            "source": self.source,
-            "from_memory": bool(self.from_memory),
-            "note": self.note,
-            "label": self.label,
-        }
-
-
-def _fmt(x: float) -> str:
-    return f"{x:g}"
-
-
-# --------------------------------------------------------------------------------------------------
-# catalogue
-# --------------------------------------------------------------------------------------------------
-def _parse_catalogue(data: dict) -> tuple[GlasswareItem, ...]:
-    """Validate the TOML table and build items, sorted by kind (in :data:`KINDS` order) and capacity."""
-    entries = data.get("item")
-    if not isinstance(entries, list) or not entries:
-        raise GlasswareError("glassware catalogue has no [[item]] entries")
-    items = []
-    for i, e in enumerate(entries):
-        where = f"glassware catalogue entry {i + 1}"
-        kind = e.get("kind")
-        if kind not in KINDS:
-            raise GlasswareError(f"{where}: kind {kind!r} is not one of {', '.join(KINDS)}")
-        cls = e.get("class")
-        if kind == "micropipette":
-            if cls is not None:
-                raise GlasswareError(f"{where}: micropipettes have no class; remove 'class'")
-            if e.get("random_mL") is None:
-                raise GlasswareError(f"{where}: a micropipette needs random_mL (ISO 8655-2 random limit)")
-        elif cls != "A":
-            raise GlasswareError(f"{where}: store class 'A' only (class B is computed as 2 × A)")
-        for key in ("capacity_mL", "tolerance_mL"):
-            value = e.get(key)
-            if not isinstance(value, (int, float)) or not value > 0:
-                raise GlasswareError(f"{where}: {key} must be a positive number, got {value!r}")
-        items.append(
-            GlasswareItem(
-                kind=kind,
-                capacity_mL=float(e["capacity_mL"]),
-                cls=cls,
-                tolerance_mL=float(e["tolerance_mL"]),
-                graduation_mL=None if e.get("graduation_mL") is None else float(e["graduation_mL"]),
-                random_mL=None if e.get("random_mL") is None else float(e["random_mL"]),
-                source=str(e.get("source", "")),
-                from_memory=bool(e.get("from_memory", True)),
-                note=str(e.get("note", "")),
-            )
-        )
-    seen = set()
-    for it in items:
-        key = (it.kind, round(it.capacity_mL, 9))
-        if key in seen:
-            raise GlasswareError(f"glassware catalogue lists the {it.label} twice; keep one entry")
-        seen.add(key)
-    items.sort(key=lambda it: (KINDS.index(it.kind), it.capacity_mL))
-    return tuple(items)
-
-
-@functools.cache
-def catalogue() -> tuple[GlasswareItem, ...]:
-    """All catalogue items (class A, or class-free micropipettes), loaded once from the package data.
-
-    Returns
-    -------
-    tuple of GlasswareItem
-        Sorted by kind (in :data:`KINDS` order), then capacity.
-    """
-    text = resources.files("planner.data").joinpath("glassware.toml").read_text(encoding="utf-8")
-    return _parse_catalogue(tomllib.loads(text))
-
-
-def _capacities(kind: str) -> list[float]:
-    return [it.capacity_mL for it in catalogue() if it.kind == kind]
-
-
-def _describe_capacities(kind: str) -> str:
-    caps = _capacities(kind)
-    if kind == "micropipette":
-        return ", ".join(_fmt(c * 1000.0) for c in caps) + " µL"
-    return ", ".join(_fmt(c) for c in caps) + " mL"
-
-
-def lookup(
-    kind: str,
-    capacity_mL: float,
-    cls: str | None = "A",
-    tolerance_mL: float | None = None,
-    *,
-    graduation_mL: float | None = None,
-    random_mL: float | None = None,
-) -> GlasswareItem:
-    """Find a device in the catalogue, or describe one the user owns.
-
-    Parameters
-    ----------
-    kind : str
-        One of :data:`KINDS`.
-    capacity_mL : float
-        Capacity, mL (micropipettes: nominal volume in mL, e.g. 0.2 for a 200 µL pipette).
-    cls : {"A", "B"} or None
-        Glassware class; class B tolerance = 2 × class A (ASTM E287 §1.1.2, E288 §1.1.2). Ignored for
-        micropipettes when "A" or None (they have no class); "B" is refused for them.
-    tolerance_mL : float, optional
-        Override the tolerance (± mL; a micropipette's systematic limit), e.g. from a calibration
-        certificate. With it, a capacity missing from the catalogue becomes a user-supplied item.
-    graduation_mL, random_mL : float, optional
-        For a user-supplied item: its smallest subdivision, its random limit (micropipettes).
-
-    Returns
-    -------
-    GlasswareItem
-
-    Raises
-    ------
-    GlasswareError
-        Unknown kind or class, bad numbers, or a capacity the catalogue lacks (the message lists
-        the capacities it has).
-    """
-    if kind not in KINDS:
-        raise GlasswareError(f"unknown glassware kind {kind!r}; use one of: {', '.join(KINDS)}")
-    if kind == "micropipette":
-        if cls not in (None, "A"):
-            raise GlasswareError(
-                f"micropipettes have no class (got cls={cls!r}); omit the class, they carry ISO 8655-2 "
-                "systematic and random limits instead"
-            )
-        cls = None
-    elif cls not in CLASSES:
-        raise GlasswareError(f"unknown glassware class {cls!r} for a {kind}; use 'A' or 'B'")
-    if not (isinstance(capacity_mL, (int, float, np.floating, np.integer)) and math.isfinite(capacity_mL)
-            and capacity_mL > 0):
-        raise GlasswareError(f"{kind} capacity must be a positive number of mL, got {capacity_mL!r}")
-    for name, value in (("tolerance_mL", tolerance_mL), ("graduation_mL", graduation_mL),
-                        ("random_mL", random_mL)):
-        if value is not None and not (math.isfinite(value) and value > 0):
-            raise GlasswareError(f"{kind} {name} must be a positive number of mL, got {value!r}")
-
-    base = next(
-        (it for it in catalogue() if it.kind == kind and math.isclose(it.capacity_mL, capacity_mL,
-                                                                      rel_tol=1e-9)),
-        None,
-    )
-    if base is None:
-        if tolerance_mL is None:
-            shown = f"{_fmt(capacity_mL * 1000.0)} µL" if kind == "micropipette" else f"{_fmt(capacity_mL)} mL"
-            raise GlasswareError(
-                f"no {kind} of {shown} in the glassware catalogue; it has {_describe_capacities(kind)}. "
-                "Pick one of those, or give tolerance_mL for your own device"
-            )
-        # A user-supplied device: the user vouches for the tolerance at the class asked for.
-        return GlasswareItem(
-            kind=kind, capacity_mL=float(capacity_mL), cls=cls, tolerance_mL=float(tolerance_mL),
-            graduation_mL=graduation_mL, random_mL=random_mL, source="user-supplied tolerance",
-            from_memory=False,
-        )
-
-    item = base
-    if cls == "B":
-        item = replace(
-            item,
-            cls="B",
-            tolerance_mL=CLASS_B_FACTOR * item.tolerance_mL,
-            source=f"{item.source}; class B = 2 × class A (ASTM E287 §1.1.2, E288 §1.1.2)",
-        )
-    changes = {}
-    if tolerance_mL is not None:
-        changes.update(tolerance_mL=float(tolerance_mL), from_memory=False,
-                       source=f"user-supplied tolerance (catalogue: {item.source})")
-    if graduation_mL is not None:
-        changes["graduation_mL"] = float(graduation_mL)
-    if random_mL is not None:
-        changes["random_mL"] = float(random_mL)
-    return replace(item, **changes) if changes else item
-
-
-# --------------------------------------------------------------------------------------------------
-# standard uncertainties
-# --------------------------------------------------------------------------------------------------
 def _nonnegative(x, name: str) -> np.ndarray:
     arr = np.asarray(x, dtype=float)
     if not np.all(np.isfinite(arr)) or np.any(arr < 0):

@@ -15,12 +15,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import Devices, ErrorBudget
-from .fitting import fit_many
-from .information import absorbance_derivatives
-from .model import Model, predict
-from .plan import Plan
-from .recipe import Recipe
+from ..inputs.plan import Plan
+from ..inputs.recipe import Recipe
+from ..model.compiled import Model, predict
+from ..model.jacobians import absorbance_derivatives
+from ..uncertainty.budget import Devices, ErrorBudget
+from .lm import fit_many
 from .simulate import simulate
 
 CHI2_95_1DOF = 3.841458820694124  # source: χ²(1) 95 % quantile (scipy.stats.chi2.ppf(0.95, 1))

@@ -14,10 +14,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..inputs.plan import Plan
+from ..inputs.recipe import Recipe
+from ..jobs.checks import SATURATION_WINDOW
 from . import fmt
-from .checks import SATURATION_WINDOW
-from .plan import Plan
-from .recipe import Recipe
 
 __all__ = [
     "BindingCurve",
@@ -155,8 +155,8 @@ def binding_curve_data(plan: Plan, recipe: Recipe, summary: dict, *, n_points: i
     classical binding isotherm, fraction of metal in M–L complexes against free ligand [source:
     Weber 1975, Adv. Protein Chem. 29:1, for the 0.2–0.8 window drawn with it].
     """
-    from .model import build_model, predict, tube_ions_M
-    from .recipe import totals_M
+    from ..inputs.recipe import totals_M
+    from ..model.compiled import build_model, predict, tube_ions_M
 
     model = build_model(plan)
     lb = model.log_beta.copy()
@@ -293,10 +293,10 @@ def cramer_rao_se(plan: Plan, recipe: Recipe, truths) -> np.ndarray:
     The Fisher information F = Jᵀ Σ⁻¹ J uses the error budget at each assumed truth; SE = √(F⁻¹)_tt
     [source: Cramér 1946; Rao 1945]. NaN where the information is singular or the target is fixed.
     """
-    from .assess import expected_state, true_constants
-    from .errors import error_budget, plan_devices
-    from .model import build_model, tube_ions_M
-    from .precision import ReadingModel, cramer_rao, free_parameters, pack
+    from ..inference.precision import ReadingModel, cramer_rao, free_parameters, pack
+    from ..jobs.assess import expected_state, true_constants
+    from ..model.compiled import build_model, tube_ions_M
+    from ..uncertainty.budget import error_budget, plan_devices
 
     model = build_model(plan)
     params = free_parameters(plan, model)

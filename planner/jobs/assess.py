@@ -13,12 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import checks as chk
-from .checks import Check
-from .errors import ErrorBudget, error_budget, glassware_problems, plan_devices
-from .model import Model, TubeState, build_model, predict, tube_ions_M
-from .plan import Plan, PlanError, unknown_name
-from .precision import (
+from ..inference.precision import (
     MC_AGREEMENT,
     CramerRao,
     MonteCarlo,
@@ -32,7 +27,12 @@ from .precision import (
     profile,
     whitening,
 )
-from .recipe import Recipe, totals_M
+from ..inputs.plan import Plan, PlanError, unknown_name
+from ..inputs.recipe import Recipe, totals_M
+from ..model.compiled import Model, TubeState, build_model, predict, tube_ions_M
+from ..uncertainty.budget import ErrorBudget, error_budget, glassware_problems, plan_devices
+from . import checks as chk
+from .checks import Check
 
 STATUSES = ("pass", "warn", "fail")
 VERDICTS = ("resolved", "bounded", "unresolved")
@@ -246,9 +246,9 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
 def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingModel):
     """Each tube's chance of leaving the linear range over the guesses' uncertainty (as the design
     screens its candidates), and the lowest/highest reading over ±2 sd."""
-    from .information import absorbance_derivatives
-    from .precision import unpack
-    from .priors import prior_nodes
+    from ..inference.precision import unpack
+    from ..inference.priors import prior_nodes
+    from ..model.jacobians import absorbance_derivatives
 
     nodes = prior_nodes(params, robust=True)
     lb, eps, _ = unpack(model, params, nodes.theta)
@@ -267,7 +267,7 @@ def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingMod
 
 
 def _stock_and_glassware_checks(plan: Plan, recipe: Recipe, devices) -> list[Check]:
-    from .preparation import stock_needs
+    from .stock_needs import stock_needs
 
     out = []
     short = [n for n in stock_needs(plan, recipe) if n.enough is False]

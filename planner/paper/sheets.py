@@ -13,10 +13,10 @@ import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+from ..inputs.plan import Plan
+from ..inputs.recipe import Recipe
+from ..jobs.checks import SATURATION_WINDOW
 from . import fmt, safety
-from .checks import SATURATION_WINDOW
-from .plan import Plan
-from .recipe import Recipe
 
 __all__ = [
     "DEFAULT_ADDITION",

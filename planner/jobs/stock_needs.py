@@ -10,10 +10,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import stocks as stk
-from .glassware import GlasswareError
-from .plan import Plan, PlanError
-from .recipe import Recipe
+from ..inputs.plan import Plan, PlanError
+from ..inputs.recipe import Recipe
+from ..uncertainty import stocks as stk
+from ..uncertainty.catalogue import GlasswareError
 
 
 @dataclass(frozen=True)

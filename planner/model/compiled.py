@@ -12,8 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import activity, chemistry, optics
-from .plan import Plan, ion_charge
+from ..inputs.plan import Plan, ion_charge
+from . import activity, closed_forms, optics, speciation
 
 IONIC_STRENGTH_WARN_M = 0.5  # Davies is poor above this [source: domain.md §1, Davies 1962]
 ACTIVITY_ITERATIONS = 4  # fixed-point passes I -> constants -> speciation -> I; converges in 2–3
@@ -231,12 +231,12 @@ def predict(model: Model, totals: np.ndarray, ion_M: np.ndarray | None = None, *
                 lb0, model.stoich, model.charges, I,
                 model=model.activity_model, sizes_angstrom=model.sizes_angstrom,
                 temperature_C=model.temperature_C)
-            spec = chemistry.speciate(M0, L0, model.stoich_pq,
-                                      chemistry.conditional_log_beta(lb_tube, model.stoich, model.pH))
+            spec = speciation.speciate(M0, L0, model.stoich_pq,
+                                      closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH))
             I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
     else:
-        spec = chemistry.speciate(M0, L0, model.stoich_pq,
-                                  chemistry.conditional_log_beta(lb_tube, model.stoich, model.pH))
+        spec = speciation.speciate(M0, L0, model.stoich_pq,
+                                  closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH))
         I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
     if warn and correct and model.activity_model == "davies" and np.any(I > IONIC_STRENGTH_WARN_M):
         warnings.warn(

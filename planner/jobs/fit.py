@@ -16,13 +16,13 @@ from pathlib import Path
 import numpy as np
 from scipy.stats import chi2 as chi2_dist
 
+from ..inference.lm import fit_many
+from ..inference.precision import ReadingModel, cramer_rao, free_parameters, whitening
+from ..inputs.plan import Plan
+from ..inputs.recipe import Recipe, RecipeError, parse_recipe_csv, read_text_file
+from ..model.compiled import build_model, tube_ions_M
+from ..uncertainty.budget import error_budget, plan_devices
 from .assess import expected_state
-from .errors import error_budget, plan_devices
-from .fitting import fit_many
-from .model import build_model, tube_ions_M
-from .plan import Plan
-from .precision import ReadingModel, cramer_rao, free_parameters, whitening
-from .recipe import Recipe, RecipeError, parse_recipe_csv, read_text_file
 
 ABSORBANCE_COLUMNS = ("absorbance", "A", "measured_A")
 N_STARTS = 7  # starts spread over ±3 sd of the target's guess
@@ -137,7 +137,7 @@ def fit_readings(plan: Plan, readings: Readings) -> Fit:
     best = int(np.argmin(chi2)) if np.isfinite(chi2).any() else int(np.argmin(res.chi2))
     theta = res.theta[best]
     # the photometric part of the error model depends on the readings: re-weight at the fit, refit once
-    from .precision import unpack
+    from ..inference.precision import unpack
 
     lb, eps, _ = unpack(model, params, theta)
     state_fit = expected_state(plan, rec, model, log_beta=lb, epsilon_M_cm=eps)

@@ -11,10 +11,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import Devices, delivery_sds
-from .model import Model, TubeState, predict, tube_ions_M
-from .plan import Plan
-from .recipe import Recipe
+from ..inputs.plan import Plan
+from ..inputs.recipe import Recipe
+from ..model.compiled import Model, TubeState, predict, tube_ions_M
+from ..uncertainty.budget import Devices, delivery_sds
 
 
 @dataclass(frozen=True)

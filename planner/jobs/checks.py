@@ -10,8 +10,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import chemistry
-from .model import Model, TubeState
+from ..model import closed_forms
+from ..model.compiled import Model, TubeState
 
 RANGE_RISK = 0.05  # a tube may leave the linear range for at most 5 % of the guess's uncertainty [common practice]
 SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1; domain.md §4
@@ -258,7 +258,7 @@ def side_reactions(model: Model, state: TubeState, tubes) -> list[Check]:
 
 def conditional_log_k(model: Model, target: str) -> float:
     """Conditional log β of the target at the plan's pH with ligand protonation folded in [derived]."""
-    cond = chemistry.conditional_log_beta(model.log_beta, model.stoich, model.pH)
+    cond = closed_forms.conditional_log_beta(model.log_beta, model.stoich, model.pH)
     p, q = model.stoich[:, 0], model.stoich[:, 1]
     prot = (p == 0) & (q == 1)
     alpha_L = 1.0 + np.sum(10.0 ** cond[prot]) if prot.any() else 1.0

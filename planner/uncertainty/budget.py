@@ -18,11 +18,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import glassware
-from .information import absorbance_derivatives
-from .model import Model, TubeState
-from .plan import Plan, PlanError
-from .recipe import Recipe, RecipeError
+from ..inputs.plan import Plan, PlanError
+from ..inputs.recipe import Recipe, RecipeError
+from ..model.compiled import Model, TubeState
+from ..model.jacobians import absorbance_derivatives
+from . import catalogue, delivery
 
 PARTS = ("photometric", "delivery", "stock")
 
@@ -38,9 +38,9 @@ class Devices:
     flask : the flask each tube is made up in, or None under ``make_up = "added"``.
     """
 
-    items: tuple[glassware.GlasswareItem, ...]
+    items: tuple[catalogue.GlasswareItem, ...]
     stock_device: np.ndarray
-    flask: glassware.GlasswareItem | None
+    flask: catalogue.GlasswareItem | None
 
 
 def plan_devices(plan: Plan) -> Devices:
@@ -54,8 +54,8 @@ def plan_devices(plan: Plan) -> Devices:
     items = []
     for j, d in enumerate(plan.glassware.dispenser):
         try:
-            items.append(glassware.lookup(d.kind, d.capacity_mL, d.cls, d.tolerance_mL))
-        except glassware.GlasswareError as exc:
+            items.append(catalogue.lookup(d.kind, d.capacity_mL, d.cls, d.tolerance_mL))
+        except catalogue.GlasswareError as exc:
             raise PlanError(f"glassware.dispenser[{j}]", f"{exc}; or give tolerance = '...' to describe it") from None
     dev = np.full(len(plan.stock), -1, dtype=int)
     for k, s in enumerate(plan.stock):
@@ -68,8 +68,8 @@ def plan_devices(plan: Plan) -> Devices:
         f = plan.glassware.flask
         cap = f.capacity_mL if f else plan.glassware.tube_volume_mL
         try:
-            flask = glassware.lookup("flask", cap, f.cls if f else "A", f.tolerance_mL if f else None)
-        except glassware.GlasswareError as exc:
+            flask = catalogue.lookup("flask", cap, f.cls if f else "A", f.tolerance_mL if f else None)
+        except catalogue.GlasswareError as exc:
             raise PlanError("glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}") from None
         if abs(flask.capacity_mL - plan.glassware.tube_volume_mL) > 1e-9 * flask.capacity_mL:
             raise PlanError("glassware.flask",
@@ -98,7 +98,7 @@ def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = Non
             out.append((f"stock {sid}", "no dispenser delivers it: add its id to a [[glassware.dispenser]] stocks list"))
             continue
         item = devices.items[j]
-        off = used & ~glassware.on_grid(v, g.step_mL)
+        off = used & ~delivery.on_grid(v, g.step_mL)
         if off.any():
             bad = [f"{t} ({x:g} mL)" for t, x, o in zip(recipe.tubes, v, off, strict=True) if o]
             out.append((f"stock {sid}", f"volumes off the {g.step_mL:g} mL grid in {', '.join(bad[:4])}"
@@ -108,7 +108,7 @@ def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = Non
             bad = [t for t, s in zip(recipe.tubes, small, strict=True) if s]
             out.append((f"stock {sid}", f"below min_volume = {g.min_volume_mL:g} mL in {', '.join(bad[:4])}: "
                         f"use a more dilute stock or a smaller dispenser"))
-        vmin = glassware.smallest_delivery_mL(item)
+        vmin = delivery.smallest_delivery_mL(item)
         tiny = used & (v < vmin * (1 - 1e-9))
         if tiny.any():
             out.append((f"stock {sid}", f"below the smallest volume the {item.label} delivers ({vmin:g} mL) in "
@@ -231,22 +231,22 @@ def delivery_sds(plan: Plan, recipe: Recipe, devices: Devices, *, delta_T_C: flo
         if item.kind == "pipette":
             # a one-mark pipette may be used several times for a multiple of its volume
             reps = np.round(v / item.capacity_mL)
-            du = glassware.delivery_uncertainty(item, np.where(reps > 0, item.capacity_mL, 0.0), delta_T_C=dT)
+            du = delivery.delivery_uncertainty(item, np.where(reps > 0, item.capacity_mL, 0.0), delta_T_C=dT)
             u_rand[:, kk] = du.random_mL * np.sqrt(reps)
             u_sys[:, kk] = du.systematic_mL * reps
             continue
         one = np.minimum(v, item.capacity_mL)
         # below the device's smallest volume its specification does not hold (flagged by the glassware
         # check); take the uncertainty at that smallest volume instead of refusing to assess
-        vmin = glassware.smallest_delivery_mL(item)
-        du = glassware.delivery_uncertainty(item, np.where(v > 0, np.maximum(one, vmin), 0.0), delta_T_C=dT)
+        vmin = delivery.smallest_delivery_mL(item)
+        du = delivery.delivery_uncertainty(item, np.where(v > 0, np.maximum(one, vmin), 0.0), delta_T_C=dT)
         # a volume beyond capacity needs refills: each refill is another delivery
         refills = np.maximum(np.ceil(v / item.capacity_mL - 1e-9), 1.0)
         u_rand[:, kk] = np.where(v > 0, du.random_mL * np.sqrt(refills), 0.0)
         u_sys[:, kk] = np.where(v > 0, du.systematic_mL * v / np.where(one > 0, one, 1.0), 0.0)
     u_flask = 0.0
     if devices.flask is not None:
-        u_flask = float(glassware.flask_volume_uncertainty(devices.flask, delta_T_C=dT))
+        u_flask = float(delivery.flask_volume_uncertainty(devices.flask, delta_T_C=dT))
     return DeliverySds(u_rand, u_sys, u_flask)
 
 

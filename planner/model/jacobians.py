@@ -1,7 +1,7 @@
 """Jacobians of the expected absorbances and the Fisher information they carry.
 
 Derivatives are analytic: the equilibrium's sensitivities come from the implicit function theorem
-(:func:`planner.chemistry.sensitivities`), then the chain rule through Beer–Lambert and the stray-light
+(:func:`planner.sensitivities.sensitivities`), then the chain rule through Beer–Lambert and the stray-light
 curve. All functions are vectorised over tubes (and any leading batch axes).
 """
 
@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import chemistry, optics
-from .model import Model, TubeState
+from . import closed_forms, optics, sensitivities, speciation
+from .compiled import Model, TubeState
 
 LN10 = float(np.log(10.0))
 
@@ -36,10 +36,10 @@ class AbsorbanceDerivatives:
 def absorbance_derivatives(model: Model, state: TubeState,
                            epsilon_M_cm: np.ndarray | None = None) -> AbsorbanceDerivatives:
     """Analytic dA/d(totals, log β, ε) for every tube of ``state``."""
-    cond = chemistry.conditional_log_beta(state.log_beta, model.stoich, model.pH)
-    spec = chemistry.Speciation(state.free_M, state.free_L, state.species_M,
+    cond = closed_forms.conditional_log_beta(state.log_beta, model.stoich, model.pH)
+    spec = speciation.Speciation(state.free_M, state.free_L, state.species_M,
                                 state.totals_M[..., 0], state.totals_M[..., 1])
-    sens = chemistry.sensitivities(spec, model.stoich_pq, cond)
+    sens = sensitivities.sensitivities(spec, model.stoich_pq, cond)
     eps = model.epsilon_M_cm if epsilon_M_cm is None else np.asarray(epsilon_M_cm, dtype=float)
     if eps.ndim > 1:
         eps = eps[..., None, :]

@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from .plan import Plan
-from .recipe import recipe_to_csv
+from ..inputs.plan import Plan
+from ..inputs.recipe import recipe_to_csv
 from .series import even_series
 
 
