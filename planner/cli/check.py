@@ -1,0 +1,84 @@
+"""``kplan check``: validate a plan and show what was understood."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import numpy as np
+import typer
+from rich.table import Table
+
+from ..inputs.plan import load_plan
+from ..paper import fmt
+from .app import app, out
+
+
+@app.command()
+def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> None:
+    """Validate a plan and show what was understood: species, constants, stocks, glassware."""
+    p = load_plan(plan)
+    out.print(f"[bold]{p.title}[/bold]  ({plan})")
+    t = Table(title="Components")
+    for c in ("component", "label", "charge / pH"):
+        t.add_column(c)
+    t.add_row("M", p.components.M.label, f"{p.components.M.charge:+d}")
+    t.add_row("L", p.components.L.label, f"{p.components.L.charge:+d}")
+    if p.components.H is not None:
+        t.add_row("H", "H+", f"pH {p.components.H.pH:.2f} (buffered)")
+    out.print(t)
+    t = Table(title="Species and constants")
+    for c in ("species", "formula", "log β (guess)", "± sd", "ε / L mol⁻¹ cm⁻¹", "fitted?"):
+        t.add_column(c)
+    for s in p.species:
+        f = " ".join(f"{k}{v if v != 1 else ''}" for k, v in s.formula.items() if v)
+        e = p.optics.epsilon.get(s.name)
+        t.add_row(s.name, f, f"{s.log_beta:.2f}", f"{s.log_beta_sd:.2f}",
+                  f"{e.value:g} ± {e.rsd:.0%}" if e else "—",
+                  "yes" if s.log_beta_sd > 0 else "held fixed")
+    for comp in ("M", "L"):
+        e = p.optics.epsilon.get(comp)
+        if e:
+            t.add_row(f"{comp} (free)", comp, "—", "—", f"{e.value:g} ± {e.rsd:.0%}", "—")
+    out.print(t)
+    o = p.optics
+    out.print(f"Optics: {o.wavelength_nm:g} nm, path {o.path_cm:g} cm, linear range "
+              f"{o.linear_range[0]:g}–{o.linear_range[1]:g}, stray light {o.stray_light:g}, "
+              f"noise k1={o.noise.k1:g} k2={o.noise.k2:g} k3={o.noise.k3:g}")
+    t = Table(title="Stocks")
+    for c in ("id", "label", "M", "L", "other ions", "rsd", "on hand", "dispenser"):
+        t.add_column(c)
+    for s in p.stock:
+        d = p.dispenser_for(s.id)
+        disp = f"{d.kind} {d.capacity_mL:g} mL ({d.cls})" if d else ("diluent" if s.diluent else "none")
+        t.add_row(s.id, s.label, fmt.conc(s.conc["M"]) if "M" in s.conc else "",
+                  fmt.conc(s.conc["L"]) if "L" in s.conc else "",
+                  ", ".join(f"{k} {fmt.conc(v)}" for k, v in s.ions.items()),
+                  f"{s.conc_rsd:.1%}", f"{s.on_hand:g} mL" if s.on_hand else "—", disp)
+    out.print(t)
+    g = p.glassware
+    out.print(f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL, "
+              f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL")
+    from ..uncertainty.budget import plan_devices
+    from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
+
+    devices = plan_devices(p)
+    t = Table(title="Glassware (from the catalogue)")
+    for c in ("device", "tolerance", "u, full delivery", "source", "delivers"):
+        t.add_column(c)
+    for d, item in zip(p.glassware.dispenser, devices.items, strict=True):
+        du = delivery_uncertainty(item, np.array([item.capacity_mL]))
+        src = item.source + (" (from memory)" if item.from_memory else "")
+        t.add_row(item.label, f"± {item.tolerance_mL:g} mL", f"{float(du.combined_mL[0]):.3g} mL", src,
+                  ", ".join(d.stocks))
+    if devices.flask is not None:
+        fl = devices.flask
+        src = fl.source + (" (from memory)" if fl.from_memory else "")
+        t.add_row(fl.label, f"± {fl.tolerance_mL:g} mL", f"{flask_volume_uncertainty(fl):.3g} mL", src,
+                  "make-up of every tube")
+    out.print(t)
+    d = p.design
+    out.print(f"Design: {d.tubes} tubes, target {p.target}, criterion {d.criterion}, "
+              f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
+              + (f", fixed {', '.join(f'{k} {v:g} mL' for k, v in d.fixed.items())}" if d.fixed else ""))
+    out.print("[green]plan OK[/green]")

@@ -1,0 +1,64 @@
+"""``kplan demo``: the built-in scenario through everything the tool does."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from ..inputs.plan import parse_plan_text
+from .app import DEMO_SCENARIO, app, out, scenario_text
+from .show import print_assessment, print_design
+
+
+@app.command()
+def demo(
+    out_dir: Annotated[Path, typer.Option("--out", help="folder for the demo's files")] = Path("kplan-demo"),
+) -> None:
+    """Run the built-in scenario through everything the tool does and say what it wrote."""
+    from ..inputs.files import write_atomic
+    from ..inputs.recipe import parse_recipe_csv, recipe_to_csv
+    from ..jobs.assess import assess as run_assess
+    from ..jobs.demo import demo_recipe_csv
+    from ..jobs.design import design as run_design
+
+    text = scenario_text(DEMO_SCENARIO)
+    p = parse_plan_text(text, source=f"scenario {DEMO_SCENARIO}")
+    written = [write_atomic(out_dir / "plan.toml", text)]
+    out.rule("1. the usual hand-made recipe: constant metal, evenly spaced ligand")
+    csv_text = demo_recipe_csv(p)
+    written.append(write_atomic(out_dir / "recipe-even.csv", csv_text))
+    r_even = parse_recipe_csv(csv_text, p)
+    a_even = run_assess(p, r_even, trials=2000, seed=0)
+    print_assessment(a_even, p)
+    written.append(write_atomic(out_dir / "assessment-even.json", json.dumps(a_even.summary(), indent=2) + "\n"))
+    out.rule("2. the designed recipe")
+    d = run_design(p, seed=0)
+    print_design(d, p)
+    written.append(write_atomic(out_dir / "recipe.csv", recipe_to_csv(d.recipe, p)))
+    written.append(write_atomic(out_dir / "design.json", json.dumps(d.summary(), indent=2) + "\n"))
+    out.rule("3. the designed recipe, assessed with Monte Carlo")
+    a = run_assess(p, d.recipe, trials=2000, seed=0)
+    print_assessment(a, p)
+    written.append(write_atomic(out_dir / "assessment.json", json.dumps(a.summary(), indent=2) + "\n"))
+    written.extend(_demo_paper(p, d, a, out_dir))
+    out.print("\n[bold]Wrote[/bold]")
+    for w in written:
+        out.print(f"  {w}")
+    out.print(f"Try: kplan check {out_dir / 'plan.toml'}   kplan assess {out_dir / 'plan.toml'} "
+              f"{out_dir / 'recipe.csv'}")
+
+
+def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
+    """Prep sheet and report of the designed recipe."""
+    from ..inputs.files import write_atomic_bytes
+    from ..jobs.stock_needs import stock_needs
+    from ..paper.render import prep_sheet as render_sheet
+    from ..paper.render import report as render_report
+
+    sheet_pdf = write_atomic_bytes(out_dir / "prep.pdf", render_sheet(p, d.recipe, a, stock_needs(p, d.recipe),
+                                                                      order=p.glassware.order))
+    report_pdf = write_atomic_bytes(out_dir / "report.pdf", render_report(p, d.recipe, a, design=d.summary()))
+    return [sheet_pdf, report_pdf]

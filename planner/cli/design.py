@@ -1,0 +1,47 @@
+"""``kplan design``: choose tube volumes on the glassware's grid."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from ..inference.design_criteria import CRITERIA as DESIGN_CRITERIA
+from ..inputs.plan import load_plan
+from .app import UserError, app, out
+from .show import print_design
+
+
+@app.command()
+def design(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and design.json")] = None,
+    tubes: Annotated[int | None, typer.Option(help="number of tubes (overrides design.tubes)", min=1)] = None,
+    criterion: Annotated[str | None, typer.Option(
+        help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)")] = None,
+    robust: Annotated[bool | None, typer.Option(
+        "--robust/--no-robust", help="average over the guesses' uncertainty (overrides design.robust)")] = None,
+    seed: Annotated[int, typer.Option(help="seed of the exchange algorithm's random starts")] = 0,
+    as_json: Annotated[bool, typer.Option("--json", help="print the design summary as JSON")] = False,
+) -> None:
+    """Choose tube volumes on the glassware's grid that resolve K as precisely as possible."""
+    from ..inputs.files import write_atomic
+    from ..inputs.recipe import recipe_to_csv
+    from ..jobs.design import design as run_design
+
+    if criterion is not None and criterion not in DESIGN_CRITERIA:
+        raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
+    p = load_plan(plan)
+    d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
+    summary = d.summary()
+    if out_dir is not None:
+        write_atomic(out_dir / "recipe.csv", recipe_to_csv(d.recipe, p))
+        write_atomic(out_dir / "design.json", json.dumps(summary, indent=2) + "\n")
+    if as_json:
+        print(json.dumps(summary, indent=2))
+        return
+    print_design(d, p)
+    if out_dir is not None:
+        out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'design.json'}")

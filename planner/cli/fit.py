@@ -1,0 +1,51 @@
+"""``kplan fit``: fit measured readings with the plan's model."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.markup import escape
+from rich.table import Table
+
+from ..inputs.plan import load_plan
+from ..paper import fmt
+from .app import app, out
+
+
+@app.command()
+def fit(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    readings: Annotated[Path, typer.Argument(help="CSV: the recipe columns plus an 'absorbance' column")],
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+) -> None:
+    """Fit measured readings with the plan's model, and compare the result with the plan's promise."""
+    from ..jobs.fit import fit_readings, read_readings_csv
+
+    p = load_plan(plan)
+    f = fit_readings(p, read_readings_csv(readings, p))
+    if as_json:
+        print(json.dumps(f.summary(), indent=2))
+        return
+    out.print(f"[bold]{escape(f.title)}[/bold] — fit of {f.recipe.n_tubes} readings")
+    if not f.converged:
+        out.print("[red]the fit did not converge: check the readings and the plan's guesses[/red]")
+    t = Table(title="Fitted parameters")
+    for c in ("parameter", "estimate", "SE", "SE the plan promised"):
+        t.add_column(c, justify="right")
+    for n, e, se_, pr in zip(f.names, f.estimate, f.se, f.promised_se, strict=True):
+        t.add_row(n, fmt.sig(float(e), 4), fmt.sig(float(se_), 2), fmt.sig(float(pr), 2))
+    out.print(t)
+    verdict = ("the scatter matches the error model" if f.p_value > 0.05 else
+               "the scatter is larger than the error model predicts: look for a bad tube, drift or a wrong model")
+    out.print(f"χ² = {f.chi2:.2f} on {f.dof} degrees of freedom (p = {f.p_value:.2f}): {verdict}")
+    t = Table(title="Residuals")
+    for c in ("tube", "measured A", "fitted A", "residual", "standardised"):
+        t.add_column(c, justify="right")
+    for i, tube in enumerate(f.recipe.tubes):
+        z = float(f.standardised[i])
+        zt = f"{z:+.2f}" if abs(z) < 3 else f"[red]{z:+.2f}[/red]"
+        t.add_row(escape(tube), f"{f.absorbance[i]:.3f}", f"{f.fitted[i]:.3f}", f"{f.residual[i]:+.4f}", zt)
+    out.print(t)

@@ -1,0 +1,26 @@
+"""``kplan report``: the design report."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from .app import app
+from .paper_output import PAPER_CHOICES, _paper_output
+
+
+@app.command()
+def report(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    recipe: Annotated[Path, typer.Argument(help="recipe CSV")],
+    out_path: Annotated[Path, typer.Option("--out", help="where to write the report")] = Path("report.pdf"),
+    html: Annotated[bool, typer.Option("--html", help="write HTML instead of PDF")] = False,
+    paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}")] = "A4",
+    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments", min=0)] = 2000,
+    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers")] = 0,
+    design_json: Annotated[Path | None, typer.Option("--design", help="design.json from kplan design")] = None,
+) -> None:
+    """Print the design report: verdict, recipe, plots, checks with fixes, parameters and correlations."""
+    _paper_output("report", plan, recipe, out_path, html, paper, trials, seed, design_json)

@@ -1,0 +1,32 @@
+"""``kplan stocks``: how to make each stock and how much a recipe needs."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from ..inputs.plan import load_plan
+from ..inputs.recipe import read_recipe_csv
+from .app import app
+from .show import print_stock_needs
+
+
+@app.command()
+def stocks(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    recipe: Annotated[Path | None, typer.Argument(help="recipe CSV, for the volumes needed")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+) -> None:
+    """How to make each stock (mass to weigh, flask, uncertainty) and how much a recipe needs."""
+    from ..jobs.stock_needs import stock_needs
+
+    p = load_plan(plan)
+    r = read_recipe_csv(recipe, p) if recipe else None
+    needs = stock_needs(p, r)
+    if as_json:
+        print(json.dumps({"title": p.title, "stocks": [n.summary() for n in needs]}, indent=2))
+        return
+    print_stock_needs(p, needs, r is not None)
