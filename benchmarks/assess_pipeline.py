@@ -19,27 +19,27 @@ import numpy as np
 from scipy.optimize import least_squares
 
 from planner.inference.lm import fit_many
-from planner.inference.precision import ReadingModel, free_parameters, whitening
+from planner.inference.precision import ReadingModel, whitening
 from planner.inference.simulate import simulate
 from planner.inputs.plan import parse_plan_text
 from planner.jobs.assess import expected_state
+from planner.jobs.compile import compile_study
 from planner.jobs.series import even_series
-from planner.model.compiled import build_model, tube_ions_M
-from planner.uncertainty.budget import error_budget, plan_devices
+from planner.model.compiled import tube_ions_M
+from planner.uncertainty.budget import error_budget
 
 
 def main(n_trials: int = 10000, n_baseline: int = 200) -> None:
     text = resources.files("planner.data").joinpath("scenarios", "teaching.toml").read_text(encoding="utf-8")
     plan = parse_plan_text(text)
-    model = build_model(plan)
+    study = compile_study(plan)
+    model, params, bench = study.model, study.params, study.bench
     recipe = even_series(plan)
-    devices = plan_devices(plan)
-    state = expected_state(plan, recipe, model)
-    W = whitening(error_budget(plan, model, recipe, state, devices).total)
-    params = free_parameters(plan, model)
+    state = expected_state(model, recipe)
+    W = whitening(error_budget(bench, model, recipe, state).total)
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     reading = ReadingModel(model, params, state.totals_M, ions)
-    sim = simulate(plan, model, recipe, devices, np.random.default_rng(1), n_trials)
+    sim = simulate(bench, model, recipe, np.random.default_rng(1), n_trials)
     lo, hi = reading.bounds()
 
     t0 = time.perf_counter()

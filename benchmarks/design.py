@@ -20,12 +20,10 @@ import numpy as np
 from scipy.optimize import differential_evolution
 
 from planner.inference.design_criteria import criterion_of_counts
-from planner.inference.precision import free_parameters
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import make_recipe
-from planner.jobs.design import Candidates, _information_rows, _range_mask, design, prior_nodes
-from planner.model.compiled import build_model
-from planner.uncertainty.budget import plan_devices
+from planner.jobs.compile import compile_study
+from planner.jobs.design import Candidates, _information_rows, _range_mask, design
 
 
 def teaching_text() -> str:
@@ -57,12 +55,12 @@ def score(plan, vols: np.ndarray, ids: tuple[str, ...]) -> np.ndarray:
     over = flat.sum(axis=1) > g.tube_volume_mL
     flat[over] *= g.tube_volume_mL / flat[over].sum(axis=1, keepdims=True) * 0.999
     flat = np.floor(flat / g.step_mL + 1e-9) * g.step_mL
-    model = build_model(plan)
-    params = free_parameters(plan, model)
+    study = compile_study(plan)
+    model, params = study.model, study.params
     rec = make_recipe(plan, {sid: flat[:, j] for j, sid in enumerate(ids)})
     cand = Candidates(rec, ids, rec.n_tubes, g.step_mL)
-    nodes = prior_nodes(params, True)
-    F, M0, st, band = _information_rows(plan, model, params, cand, plan_devices(plan), nodes, "target")
+    nodes = study.nodes(True)
+    F, M0, st, band = _information_rows(study, cand, nodes, "target")
     # the same robust linear-range screen the design uses
     inside = _range_mask(model, st, nodes.weights, band).reshape(D, n)
     outside = ~inside.all(axis=1)

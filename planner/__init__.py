@@ -13,12 +13,13 @@ from .inference.lm import fit_many
 from .inputs.plan import Plan, PlanError, load_plan, parse_plan_text
 from .inputs.recipe import Recipe, RecipeError, make_recipe, read_recipe_csv, recipe_to_csv
 from .jobs.assess import Assessment, assess
+from .jobs.compile import build_model, error_budget, plan_devices
 from .jobs.design import Design, DesignError, design
 from .jobs.series import even_series
 from .model.closed_forms import EquilibriumError, one_to_one
-from .model.compiled import Model, TubeState, build_model, predict
+from .model.compiled import Model, TubeState, predict
 from .model.speciation import Speciation, speciate
-from .uncertainty.budget import ErrorBudget, error_budget, plan_devices
+from .uncertainty.budget import ErrorBudget
 
 __version__ = "0.1.0"
 

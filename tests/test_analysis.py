@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 
 from planner.inference.simulate import simulate
+from planner.inputs.readings import Readings, parse_readings_csv
 from planner.inputs.recipe import RecipeError, make_recipe
-from planner.jobs.fit import Readings, fit_readings, parse_readings_csv
-from planner.model.compiled import build_model
-from planner.uncertainty.budget import plan_devices
+from planner.jobs.compile import compile_study
+from planner.jobs.fit import fit_readings
 
 
 def _recipe(plan):
@@ -20,10 +20,11 @@ def test_fit_recovers_a_different_truth(teaching_plan):
     # derived: data simulated at log β = 3.6 (the plan guesses 3.3) are fitted back within ~3 SE, and the
     # χ² of many such fits follows χ²(dof) on average (its mean is dof)
     r = _recipe(teaching_plan)
-    model = build_model(teaching_plan)
+    study = compile_study(teaching_plan)
+    model = study.model
     lb = model.log_beta.copy()
     lb[0] = 3.6
-    sim = simulate(teaching_plan, model, r, plan_devices(teaching_plan), np.random.default_rng(4), 40, log_beta=lb)
+    sim = simulate(study.bench, model, r, np.random.default_rng(4), 40, log_beta=lb)
     chis, z = [], []
     for k in range(40):
         f = fit_readings(teaching_plan, Readings(r, sim.absorbance[k]))

@@ -9,9 +9,10 @@ from hypothesis import strategies as st
 
 from planner.inputs.plan import parse_plan_text
 from planner.jobs.assess import assess
+from planner.jobs.compile import compile_bench, compile_study
 from planner.jobs.design import DesignError, candidate_tubes, design
 from planner.jobs.series import even_series
-from planner.uncertainty.budget import glassware_problems, plan_devices
+from planner.uncertainty.budget import glassware_problems
 from planner.uncertainty.delivery import on_grid
 
 from .conftest import scenario_text
@@ -120,18 +121,13 @@ def test_nuisance_factor_information_equals_full_covariance(teaching_plan):
     # derived (Woodbury identity): shared errors as unit-prior nuisance factors give the same
     # Var(log β) as the full-covariance Fisher information that assess uses
     from planner.inference.design_criteria import criterion_of_counts
-    from planner.inference.precision import free_parameters
-    from planner.jobs.design import _information_rows, prior_nodes
-    from planner.model.compiled import build_model
+    from planner.jobs.design import Candidates, _information_rows
 
     d = design(teaching_plan, seed=3, robust=False)
-    model = build_model(teaching_plan)
-    params = free_parameters(teaching_plan, model)
-    from planner.jobs.design import Candidates
-
+    study = compile_study(teaching_plan)
+    params = study.params
     cand = Candidates(d.recipe, ("CU", "DY"), d.recipe.n_tubes, 0.05)
-    F, M0, _, _ = _information_rows(teaching_plan, model, params, cand, plan_devices(teaching_plan),
-                                 prior_nodes(params, False), "target")
+    F, M0, _, _ = _information_rows(study, cand, study.nodes(False), "target")
     log_n_var = criterion_of_counts(F, np.ones(d.recipe.n_tubes, dtype=int), criterion="target",
                                     target=params.target, M0=M0)
     var = np.exp(log_n_var) / d.recipe.n_tubes
@@ -140,7 +136,7 @@ def test_nuisance_factor_information_equals_full_covariance(teaching_plan):
 
 def test_designed_tubes_fit_the_glassware(teaching_plan):
     d = design(teaching_plan, seed=4)
-    assert glassware_problems(teaching_plan, d.recipe) == []
+    assert glassware_problems(compile_bench(teaching_plan), d.recipe) == []
     for sid in d.recipe.dispensed_ids(teaching_plan):
         assert np.all(on_grid(d.recipe.column(sid), teaching_plan.glassware.step_mL))
     a = assess(teaching_plan, d.recipe, trials=0, precision=False)
@@ -158,7 +154,7 @@ def test_design_invariants(seed, tubes, robust):
     assert d1.recipe.n_tubes == tubes
     assert np.all(d1.recipe.volumes_mL >= 0)
     assert np.allclose(d1.recipe.volumes_mL.sum(axis=1), plan.glassware.tube_volume_mL)
-    assert glassware_problems(plan, d1.recipe) == []
+    assert glassware_problems(compile_bench(plan), d1.recipe) == []
     lo, hi = plan.optics.linear_range
     a = assess(plan, d1.recipe, trials=0, precision=False)
     assert np.all((a.state.absorbance >= lo) & (a.state.absorbance <= hi))
@@ -185,7 +181,7 @@ def test_fixed_leaves_nothing(teaching_text):
 
 
 def test_candidates_cover_the_grid(teaching_plan):
-    c = candidate_tubes(teaching_plan, plan_devices(teaching_plan))
+    c = candidate_tubes(compile_study(teaching_plan))
     v = c.recipe.volumes_mL
     assert np.all(v >= 0) and np.allclose(v.sum(axis=1), 10.0)
     # 0 or 0.50–10.00 mL in 0.05 steps for each of two stocks, summing to ≤ 10 mL [derived count]
@@ -217,7 +213,7 @@ id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').rep
     a = assess(plan, d.recipe, trials=0, precision=False)
     I = a.state.ionic_strength_M
     assert np.all(np.abs(I - 0.4) <= 0.02 * 0.4 + 1e-12), I
-    assert d.recipe.column("NA").min() >= 0 and glassware_problems(plan, d.recipe) == []
+    assert d.recipe.column("NA").min() >= 0 and glassware_problems(compile_bench(plan), d.recipe) == []
     ion_check = next(c for c in a.checks if c.id == "ionic-strength")
     assert ion_check.status == "pass"
 
@@ -226,10 +222,7 @@ def test_coarse_then_fine_search_loses_nothing(teaching_text):
     # derived: adding a second (concentrated) ligand stock only adds candidates, so the robust criterion of
     # the three-stock design (searched coarse-then-fine) cannot be worse than the two-stock design's
     from planner.inference.design_criteria import criterion_of_counts
-    from planner.inference.precision import free_parameters
-    from planner.inference.priors import prior_nodes
     from planner.jobs.design import _information_rows
-    from planner.model.compiled import build_model
 
     extra = ('[[stock]]\nid = "DYC"\nlabel = "dye ligand Dy, 100 mM"\nconc = { L = "100 mM" }\n'
              'ions = { "Na+" = "100 mM", "K+" = "0.10 M", "NO3-" = "0.10 M" }\nconc_rsd = 0.01\n'
@@ -241,12 +234,12 @@ def test_coarse_then_fine_search_loses_nothing(teaching_text):
     def value(plan, d):
         from planner.jobs.design import Candidates
 
-        model = build_model(plan)
-        params = free_parameters(plan, model)
+        study = compile_study(plan)
+        params = study.params
         ids = d.recipe.dispensed_ids(plan)
         cand = Candidates(d.recipe, ids, d.recipe.n_tubes, 0.05)
-        nodes = prior_nodes(params, True)
-        F, M0, _, _ = _information_rows(plan, model, params, cand, plan_devices(plan), nodes, "target")
+        nodes = study.nodes(True)
+        F, M0, _, _ = _information_rows(study, cand, nodes, "target")
         return criterion_of_counts(F, np.ones(d.recipe.n_tubes, dtype=int), criterion="target",
                                    target=params.target, M0=M0, node_weights=nodes.weights)
 

@@ -9,10 +9,11 @@ from planner.inference.simulate import simulate
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import RecipeError, make_recipe, parse_recipe_csv
 from planner.jobs.assess import expected_state
+from planner.jobs.compile import build_model, compile_bench, error_budget
 from planner.jobs.series import even_series
-from planner.model.compiled import build_model, predict
+from planner.model.compiled import predict
 from planner.model.jacobians import absorbance_derivatives
-from planner.uncertainty.budget import error_budget, glassware_problems, plan_devices, require_glassware_fits
+from planner.uncertainty.budget import glassware_problems, require_glassware_fits
 
 from .conftest import scenario_text
 
@@ -20,7 +21,7 @@ from .conftest import scenario_text
 def _fd_check(plan):
     model = build_model(plan)
     r = even_series(plan)
-    st = expected_state(plan, r, model)
+    st = expected_state(model, r)
     der = absorbance_derivatives(model, st)
     tot = st.totals_M
     for c in range(2):
@@ -53,7 +54,7 @@ def test_derivatives_match_finite_differences(any_scenario):
 def test_parts_add_up(teaching_plan):
     model = build_model(teaching_plan)
     r = even_series(teaching_plan)
-    st = expected_state(teaching_plan, r, model)
+    st = expected_state(model, r)
     b = error_budget(teaching_plan, model, r, st)
     parts = b.sd_parts()
     np.testing.assert_allclose(sum(v**2 for v in parts.values()), np.diag(b.total), rtol=1e-12)
@@ -74,11 +75,11 @@ def test_covariance_against_monte_carlo(name):
     plan = parse_plan_text(_exaggerated(scenario_text(name)))
     model = build_model(plan)
     r = even_series(plan)
-    st = expected_state(plan, r, model)
-    dev = plan_devices(plan)
-    b = error_budget(plan, model, r, st, dev)
+    st = expected_state(model, r)
+    dev = compile_bench(plan)
+    b = error_budget(plan, model, r, st, dev.devices)
     T = 40000
-    sim = simulate(plan, model, r, dev, np.random.default_rng(7), T)
+    sim = simulate(dev, model, r, np.random.default_rng(7), T)
     S = np.cov(sim.absorbance, rowvar=False)
     C = b.total
     rel = np.diag(S) / np.diag(C)
@@ -95,14 +96,14 @@ def test_covariance_against_monte_carlo(name):
 def test_monte_carlo_parts_separately(teaching_plan):
     model = build_model(teaching_plan)
     r = even_series(teaching_plan)
-    st = expected_state(teaching_plan, r, model)
-    dev = plan_devices(teaching_plan)
-    b = error_budget(teaching_plan, model, r, st, dev)
+    st = expected_state(model, r)
+    dev = compile_bench(teaching_plan)
+    b = error_budget(teaching_plan, model, r, st, dev.devices)
     T = 40000
-    only_stock = simulate(teaching_plan, model, r, dev, np.random.default_rng(1), T, photometric=False,
+    only_stock = simulate(dev, model, r, np.random.default_rng(1), T, photometric=False,
                           delivery=False)
     np.testing.assert_allclose(np.var(only_stock.absorbance, axis=0), np.diag(b.stock), rtol=0.05)
-    only_delivery = simulate(teaching_plan, model, r, dev, np.random.default_rng(2), T, photometric=False,
+    only_delivery = simulate(dev, model, r, np.random.default_rng(2), T, photometric=False,
                              stock=False)
     np.testing.assert_allclose(np.var(only_delivery.absorbance, axis=0), np.diag(b.delivery), rtol=0.05)
 
@@ -110,30 +111,30 @@ def test_monte_carlo_parts_separately(teaching_plan):
 def test_same_seed_same_experiments(teaching_plan):
     model = build_model(teaching_plan)
     r = even_series(teaching_plan)
-    dev = plan_devices(teaching_plan)
-    a = simulate(teaching_plan, model, r, dev, np.random.default_rng(3), 50).absorbance
-    b = simulate(teaching_plan, model, r, dev, np.random.default_rng(3), 50).absorbance
+    dev = compile_bench(teaching_plan)
+    a = simulate(dev, model, r, np.random.default_rng(3), 50).absorbance
+    b = simulate(dev, model, r, np.random.default_rng(3), 50).absorbance
     np.testing.assert_array_equal(a, b)
 
 
 def test_glassware_problems(teaching_plan):
     r = parse_recipe_csv("tube,CU,DY\nT1,1.00,0.52\nT2,0.20,1.00\nT3,1.00,1.00\n", teaching_plan)
-    probs = dict(glassware_problems(teaching_plan, r))
+    probs = dict(glassware_problems(compile_bench(teaching_plan), r))
     assert "off the 0.05 mL grid in T1" in probs["stock DY"]
     assert "below min_volume" in probs["stock CU"]
     with pytest.raises(RecipeError):
-        require_glassware_fits(teaching_plan, r)
+        require_glassware_fits(compile_bench(teaching_plan), r)
     ok = parse_recipe_csv("tube,CU,DY\nT1,1.00,0.50\n", teaching_plan)
-    assert glassware_problems(teaching_plan, ok) == []
+    assert glassware_problems(compile_bench(teaching_plan), ok) == []
 
 
 def test_capacity_and_missing_dispenser(teaching_text):
     plan = parse_plan_text(teaching_text.replace('stocks = ["CU", "DY"]', 'stocks = ["CU"]'))
     r = make_recipe(plan, {"CU": np.array([1.0]), "DY": np.array([1.0])})
-    probs = dict(glassware_problems(plan, r))
+    probs = dict(glassware_problems(compile_bench(plan), r))
     assert "no dispenser" in probs["stock DY"]
     small = parse_plan_text(teaching_text.replace('kind = "burette"\ncapacity = "10 mL"',
                                                   'kind = "graduated-pipette"\ncapacity = "1 mL"'))
     r2 = make_recipe(small, {"CU": np.array([1.0]), "DY": np.array([2.0])})
-    probs2 = dict(glassware_problems(small, r2))
+    probs2 = dict(glassware_problems(compile_bench(small), r2))
     assert "more than" in probs2["stock DY"] and "stock CU" not in probs2

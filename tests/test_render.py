@@ -17,7 +17,9 @@ from hypothesis import strategies as st
 
 from planner.inputs.plan import load_plan, parse_plan
 from planner.inputs.recipe import make_recipe, parse_recipe_csv, read_recipe_csv
+from planner.jobs import curves
 from planner.jobs.assess import assess, assess_recipe
+from planner.jobs.compile import compile_study
 from planner.jobs.demo import demo_recipe_csv
 from planner.jobs.stock_needs import stock_needs
 from planner.paper import figures, fmt, render, safety, sheets
@@ -353,7 +355,7 @@ def test_report_without_precision(teaching):
 # --------------------------------------------------------------------------------------------------
 def test_binding_curve_is_the_one_to_one_isotherm(teaching):
     plan, recipe, a, _ = teaching
-    curve = figures.binding_curve_data(plan, recipe, a.summary())
+    curve = curves.binding_curve_data(compile_study(plan), recipe, a.summary())
     K = 10.0 ** 3.3  # the teaching scenario's guess; no ionic-strength correction is configured
     # derived: for M + L ⇌ ML, [ML]/M_tot = K[L]/(1 + K[L]) at any metal total
     np.testing.assert_allclose(curve.fraction_bound, K * curve.free_L_M / (1 + K * curve.free_L_M), rtol=1e-6)
@@ -365,7 +367,7 @@ def test_binding_curve_is_the_one_to_one_isotherm(teaching):
 
 def test_se_scan_equals_assess(teaching):
     plan, recipe, _, _ = teaching
-    scan = figures.se_scan_data(plan, recipe)
+    scan = curves.se_scan_data(compile_study(plan), recipe)
     sd = plan.species[0].log_beta_sd
     np.testing.assert_allclose(scan.log_beta[[0, -1]], [3.3 - 2 * sd, 3.3 + 2 * sd])
     for k in (0, 4, 8):
@@ -377,7 +379,7 @@ def test_se_scan_none_when_target_fixed():
     data = tomllib.loads(scenario_text("teaching"))
     data["species"][0]["log_beta_sd"] = 0.0
     plan = parse_plan(data)
-    assert figures.se_scan_data(plan, parse_recipe_csv(demo_recipe_csv(plan), plan)) is None
+    assert curves.se_scan_data(compile_study(plan), parse_recipe_csv(demo_recipe_csv(plan), plan)) is None
 
 
 def test_svg_is_deterministic_and_literal():

@@ -59,7 +59,7 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     g = p.glassware
     out.print(f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL, "
               f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL")
-    from ..uncertainty.budget import plan_devices
+    from ..jobs.compile import plan_devices
     from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
 
     devices = plan_devices(p)

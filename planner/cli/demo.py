@@ -20,27 +20,29 @@ def demo(
     """Run the built-in scenario through everything the tool does and say what it wrote."""
     from ..inputs.files import write_atomic
     from ..inputs.recipe import parse_recipe_csv, recipe_to_csv
-    from ..jobs.assess import assess as run_assess
+    from ..jobs.assess import assess_study
+    from ..jobs.compile import compile_study
     from ..jobs.demo import demo_recipe_csv
-    from ..jobs.design import design as run_design
+    from ..jobs.design import design_study
 
     text = scenario_text(DEMO_SCENARIO)
     p = parse_plan_text(text, source=f"scenario {DEMO_SCENARIO}")
+    study = compile_study(p)  # once for every step of the demo
     written = [write_atomic(out_dir / "plan.toml", text)]
     out.rule("1. the usual hand-made recipe: constant metal, evenly spaced ligand")
     csv_text = demo_recipe_csv(p)
     written.append(write_atomic(out_dir / "recipe-even.csv", csv_text))
     r_even = parse_recipe_csv(csv_text, p)
-    a_even = run_assess(p, r_even, trials=2000, seed=0)
+    a_even = assess_study(study, r_even, trials=2000, seed=0)
     print_assessment(a_even, p)
     written.append(write_atomic(out_dir / "assessment-even.json", json.dumps(a_even.summary(), indent=2) + "\n"))
     out.rule("2. the designed recipe")
-    d = run_design(p, seed=0)
+    d = design_study(study, seed=0)
     print_design(d, p)
     written.append(write_atomic(out_dir / "recipe.csv", recipe_to_csv(d.recipe, p)))
     written.append(write_atomic(out_dir / "design.json", json.dumps(d.summary(), indent=2) + "\n"))
     out.rule("3. the designed recipe, assessed with Monte Carlo")
-    a = run_assess(p, d.recipe, trials=2000, seed=0)
+    a = assess_study(study, d.recipe, trials=2000, seed=0)
     print_assessment(a, p)
     written.append(write_atomic(out_dir / "assessment.json", json.dumps(a.summary(), indent=2) + "\n"))
     written.extend(_demo_paper(p, d, a, out_dir))

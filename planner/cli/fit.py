@@ -22,7 +22,8 @@ def fit(
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
 ) -> None:
     """Fit measured readings with the plan's model, and compare the result with the plan's promise."""
-    from ..jobs.fit import fit_readings, read_readings_csv
+    from ..inputs.readings import read_readings_csv
+    from ..jobs.fit import fit_readings
 
     p = load_plan(plan)
     f = fit_readings(p, read_readings_csv(readings, p))

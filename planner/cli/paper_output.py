@@ -16,7 +16,8 @@ PAPER_CHOICES = ("A4", "Letter")  # the same keys as planner.render.PAPERS (chec
 def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: bool, paper: str, trials: int,
                   seed: int, design_json: Path | None = None) -> None:
     from ..inputs.files import write_atomic_bytes
-    from ..jobs.assess import assess as run_assess
+    from ..jobs.assess import assess_study
+    from ..jobs.compile import compile_study
     from ..jobs.stock_needs import stock_needs
     from ..paper.render import PAPERS
     from ..paper.render import prep_sheet as render_sheet
@@ -28,9 +29,11 @@ def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: boo
     fmt_ = "html" if html else "pdf"
     p = load_plan(plan)
     r = read_recipe_csv(recipe, p)
+    study = compile_study(p)
     if kind == "sheet":
-        require_glassware_fits(p, r)  # a sheet is followed at the bench: every volume must be deliverable
-    a = _with_progress(lambda prog: run_assess(p, r, trials=trials, seed=seed, progress=prog), trials, quiet=False)
+        require_glassware_fits(study.bench, r)  # followed at the bench: every volume must be deliverable
+    a = _with_progress(lambda prog: assess_study(study, r, trials=trials, seed=seed, progress=prog), trials,
+                       quiet=False)
     if kind == "sheet":
         data = render_sheet(p, r, a, stock_needs(p, r), paper=paper, fmt=fmt_, order=p.glassware.order)
     else:

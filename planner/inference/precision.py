@@ -15,11 +15,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..inputs.plan import Plan
 from ..inputs.recipe import Recipe
 from ..model.compiled import Model, predict
 from ..model.jacobians import absorbance_derivatives
-from ..uncertainty.budget import Devices, ErrorBudget
+from ..uncertainty.bench import Bench
+from ..uncertainty.budget import ErrorBudget
 from .lm import fit_many
 from .simulate import simulate
 
@@ -55,8 +55,14 @@ class Parameters:
         return len(self.names)
 
 
-def free_parameters(plan: Plan, model: Model) -> Parameters:
-    """The parameters a fit of this plan's data would estimate."""
+def free_parameters(model: Model, target: str, *, blank_offset: bool = False) -> Parameters:
+    """The parameters a fit of this plan's data would estimate.
+
+    Parameters
+    ----------
+    target : the species whose log β must be resolved.
+    blank_offset : fit an unknown blank offset as well.
+    """
     names, kind, idx, guess, sd = [], [], [], [], []
     for j, s in enumerate(model.species):
         if model.log_beta_sd[j] > 0:
@@ -72,13 +78,13 @@ def free_parameters(plan: Plan, model: Model) -> Parameters:
             idx.append(j)
             guess.append(model.epsilon_M_cm[j])
             sd.append(model.epsilon_rsd[j] * model.epsilon_M_cm[j])
-    if plan.design.blank_offset:
+    if blank_offset:
         names.append("blank")
         kind.append(2)
         idx.append(0)
         guess.append(0.0)
         sd.append(0.01)  # a blank mismatch of about 0.01 A [common practice]
-    t = f"log_beta[{plan.target}]"
+    t = f"log_beta[{target}]"
     return Parameters(tuple(names), np.array(kind, dtype=int), np.array(idx, dtype=int),
                       np.array(guess, dtype=float), np.array(sd, dtype=float),
                       names.index(t) if t in names else -1)
@@ -239,7 +245,7 @@ class MonteCarlo:
     failed_fraction: float
 
 
-def monte_carlo(plan: Plan, model: Model, recipe: Recipe, devices: Devices, reading: ReadingModel,
+def monte_carlo(bench: Bench, model: Model, recipe: Recipe, reading: ReadingModel,
                 W: np.ndarray, rng: np.random.Generator, n_trials: int, true_theta: np.ndarray,
                 *, chunk: int = 2000, progress=None) -> MonteCarlo:
     """Simulate ``n_trials`` experiments at ``true_theta`` and fit each (in chunks, all at once)."""
@@ -250,7 +256,7 @@ def monte_carlo(plan: Plan, model: Model, recipe: Recipe, devices: Devices, read
     done = 0
     while done < n_trials:
         m = min(chunk, n_trials - done)
-        sim = simulate(plan, model, recipe, devices, rng, m, log_beta=lb, epsilon_M_cm=eps)
+        sim = simulate(bench, model, recipe, rng, m, log_beta=lb, epsilon_M_cm=eps)
         theta0 = np.broadcast_to(params.guess, (m, params.size)).copy()
         lo, hi = reading.bounds()
         res = fit_many(reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False,

@@ -11,10 +11,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..inputs.plan import Plan
 from ..inputs.recipe import Recipe
 from ..model.compiled import Model, TubeState, predict, tube_ions_M
-from ..uncertainty.budget import Devices, delivery_sds
+from ..uncertainty.bench import Bench
+from ..uncertainty.budget import delivery_sds
 
 
 @dataclass(frozen=True)
@@ -33,7 +33,7 @@ class Experiments:
     state: TubeState
 
 
-def simulate(plan: Plan, model: Model, recipe: Recipe, devices: Devices, rng: np.random.Generator,
+def simulate(bench: Bench, model: Model, recipe: Recipe, rng: np.random.Generator,
              n_trials: int, *, log_beta: np.ndarray | None = None, epsilon_M_cm: np.ndarray | None = None,
              photometric: bool = True, delivery: bool = True, stock: bool = True) -> Experiments:
     """Draw ``n_trials`` whole experiments of ``recipe``.
@@ -46,7 +46,8 @@ def simulate(plan: Plan, model: Model, recipe: Recipe, devices: Devices, rng: np
     """
     T = int(n_trials)
     n, k = recipe.volumes_mL.shape
-    sds = delivery_sds(plan, recipe, devices)
+    sds = delivery_sds(bench, recipe)
+    devices = bench.devices
     V = np.broadcast_to(recipe.volumes_mL, (T, n, k)).copy()
     C = np.broadcast_to(model.stock_conc_M, (T, k, 2)).copy()
     # draw in a fixed order so each source's stream does not depend on the others' switches
@@ -62,7 +63,7 @@ def simulate(plan: Plan, model: Model, recipe: Recipe, devices: Devices, rng: np
         z_sys = np.where(dev[None, :] >= 0, z_dev[:, np.maximum(dev, 0)], 0.0)        # (T, k)
         V = V + sds.random_mL * z_del + sds.systematic_mL * z_sys[:, None, :]
         V = np.where(recipe.volumes_mL > 0, np.maximum(V, 0.0), 0.0)
-    if plan.glassware.make_up == "to-mark":
+    if bench.to_mark:
         Vtot = np.broadcast_to(recipe.total_volume_mL, (T, n)).copy()
         if delivery:
             Vtot = Vtot + sds.flask_mL * z_flask

@@ -80,19 +80,29 @@ def make_recipe(plan: Plan, volumes: dict[str, np.ndarray] | np.ndarray, tubes: 
     ----------
     volumes : dict stock id -> (n,) mL, or an (n, d) array in the order of ``dispensed_ids``.
     """
-    ids = tuple(s.id for s in plan.stock)
     dil = plan.diluent
-    to_mark = plan.glassware.make_up == "to-mark"
+    return assemble_recipe(tuple(s.id for s in plan.stock), volumes, tubes, dispensed_ids=dispensed_ids,
+                           diluent_id=dil.id if dil is not None else None,
+                           to_mark=plan.glassware.make_up == "to-mark",
+                           tube_volume_mL=plan.glassware.tube_volume_mL, fixed_mL=plan.design.fixed)
+
+
+def assemble_recipe(ids: tuple[str, ...], volumes: dict[str, np.ndarray] | np.ndarray,
+                    tubes: list[str] | None = None, *, dispensed_ids: tuple[str, ...] | None = None,
+                    diluent_id: str | None, to_mark: bool, tube_volume_mL: float,
+                    fixed_mL: dict[str, float]) -> Recipe:
+    """:func:`make_recipe` from the plan's numbers: stock ids in plan order, the diluent, the make-up
+    mode, the tube volume and the fixed volumes."""
     if isinstance(volumes, dict):
         cols = {k: np.asarray(v, dtype=float) for k, v in volumes.items()}
     else:
         arr = np.atleast_2d(np.asarray(volumes, dtype=float))
-        order = dispensed_ids or tuple(s for s in ids if not (to_mark and dil is not None and s == dil.id))
+        order = dispensed_ids or tuple(s for s in ids if not (to_mark and s == diluent_id))
         cols = {sid: arr[:, j] for j, sid in enumerate(order)}
     n = len(next(iter(cols.values()))) if cols else 0
     if tubes is None:
         tubes = [f"T{i + 1}" for i in range(n)]
-    for sid, v in plan.design.fixed.items():
+    for sid, v in fixed_mL.items():
         if sid not in cols:
             cols[sid] = np.full(n, v)
     vol = np.zeros((n, len(ids)))
@@ -106,10 +116,10 @@ def make_recipe(plan: Plan, volumes: dict[str, np.ndarray] | np.ndarray, tubes: 
     if bad.size:
         i, j = bad[0]
         raise RecipeError(f"tube {tubes[i]}, {ids[j]}", f"negative volume {vol[i, j]:g} mL")
-    tube_mL = plan.glassware.tube_volume_mL
+    tube_mL = tube_volume_mL
     tol = 1e-9 * tube_mL
     if to_mark:
-        j = ids.index(dil.id)
+        j = ids.index(diluent_id)
         others = vol.sum(axis=1) - vol[:, j]
         over = np.flatnonzero(others > tube_mL + tol)
         if over.size:

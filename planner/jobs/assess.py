@@ -21,24 +21,27 @@ from ..inference.precision import (
     Profile,
     ReadingModel,
     cramer_rao,
-    free_parameters,
     monte_carlo,
     pack,
     profile,
     whitening,
 )
+from ..inference.study import Study
 from ..inputs.plan import Plan, PlanError, unknown_name
 from ..inputs.recipe import Recipe, totals_M
-from ..model.compiled import Model, TubeState, build_model, predict, tube_ions_M
-from ..uncertainty.budget import ErrorBudget, error_budget, glassware_problems, plan_devices
+from ..model.compiled import Model, TubeState, predict, tube_ions_M
+from ..uncertainty.bench import Bench
+from ..uncertainty.budget import ErrorBudget, error_budget, glassware_problems
+from ..uncertainty.stocks import volume_needed_mL
 from . import checks as chk
 from .checks import Check
+from .compile import compile_study
 
 STATUSES = ("pass", "warn", "fail")
 VERDICTS = ("resolved", "bounded", "unresolved")
 DEFAULT_TRIALS = 2000
 
-__all__ = ["Assessment", "Check", "assess", "assess_recipe", "expected_state"]
+__all__ = ["Assessment", "Check", "assess", "assess_recipe", "assess_study", "expected_state"]
 
 
 @dataclass(frozen=True)
@@ -61,6 +64,7 @@ class Assessment:
     verdict : "resolved" | "bounded" | "unresolved", or None without a precision analysis.
     verdict_reason : one sentence explaining the verdict.
     goal_se : the plan's goal for SE(log β[target]).
+    study : the compiled plan the recipe was judged against.
     """
 
     title: str
@@ -78,6 +82,7 @@ class Assessment:
     verdict_reason: str = ""
     goal_se: float | None = None
     extra: dict = field(default_factory=dict, hash=False)
+    study: Study | None = field(default=None, repr=False, compare=False)
 
     def __repr__(self) -> str:
         worst = max((STATUSES.index(c.status) for c in self.checks), default=0)
@@ -162,15 +167,14 @@ def _f(x) -> float | None:
     return x if np.isfinite(x) else None
 
 
-def expected_state(plan: Plan, recipe: Recipe, model: Model | None = None, **kw) -> TubeState:
+def expected_state(model: Model, recipe: Recipe, **kw) -> TubeState:
     """Speciation and readings of every tube of ``recipe`` (at the guesses unless overridden)."""
-    model = model or build_model(plan)
     tot = totals_M(recipe, model.stock_conc_M)
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     return predict(model, tot, ions, **kw)
 
 
-def true_constants(plan: Plan, model: Model, at: Mapping[str, float] | None) -> np.ndarray:
+def true_constants(model: Model, at: Mapping[str, float] | None) -> np.ndarray:
     """log β with the ``--at NAME=LOGBETA`` overrides applied."""
     lb = model.log_beta.copy()
     for name, value in (at or {}).items():
@@ -197,15 +201,25 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
     at : assumed true log β per species name (default: the plan's guesses).
     precision : False skips Fisher information, Monte Carlo and profile.
     progress : callback(done, total) for long Monte-Carlo runs.
+
+    The plan is compiled once (:func:`planner.jobs.compile.compile_study`); see :func:`assess_study`.
     """
-    model = build_model(plan)
-    lb_true = true_constants(plan, model, at)
-    state = expected_state(plan, recipe, model, log_beta=lb_true)
-    devices = plan_devices(plan)
-    budget = error_budget(plan, model, recipe, state, devices)
-    target = plan.target
+    return assess_study(compile_study(plan), recipe, trials=trials, seed=seed, at=at, precision=precision,
+                        progress=progress)
+
+
+def assess_study(study: Study, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: int = 0,
+                 at: Mapping[str, float] | None = None, precision: bool = True, profile_chi2: bool = True,
+                 progress: Callable[[int, int], None] | None = None) -> Assessment:
+    """:func:`assess` on a compiled plan (``profile_chi2=False`` skips the χ² profile, e.g. for the
+    design's comparisons, which use only the Cramér–Rao SE)."""
+    model, bench = study.model, study.bench
+    lb_true = true_constants(model, at)
+    state = expected_state(model, recipe, log_beta=lb_true)
+    budget = error_budget(bench, model, recipe, state)
+    target = study.target
     check_list: list[Check] = []
-    params = free_parameters(plan, model)
+    params = study.params
     true_theta = pack(model, params, log_beta=lb_true)
     cr = mc = prof = None
     risk = spread = None
@@ -219,28 +233,28 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
         W = whitening(cov_A)
         enough = recipe.n_tubes >= params.size
         if trials > 0 and enough:
-            mc = monte_carlo(plan, model, recipe, devices, reading, W, np.random.default_rng(seed), trials,
+            mc = monte_carlo(bench, model, recipe, reading, W, np.random.default_rng(seed), trials,
                              true_theta, progress=progress)
-        if params.target >= 0 and recipe.n_tubes >= params.size - 1 and recipe.n_tubes > 0:
+        if profile_chi2 and params.target >= 0 and recipe.n_tubes >= params.size - 1 and recipe.n_tubes > 0:
             prof = profile(reading, W, true_theta)
     check_list.append(chk.linear_range(model, state, recipe.tubes, risk, spread))
     check_list.append(chk.saturation(state, recipe.tubes))
     if model.complex_mask[model.index(target)] and model.complex_mask.sum() == 1:
         # the 'complete conversion' shortcut only makes sense with a single M–L complex
         check_list.append(chk.conversion(model, state, recipe.tubes, target))
-    if plan.design.analysis == "double-reciprocal":
+    if study.analysis == "double-reciprocal":
         check_list.append(chk.double_reciprocal(state, recipe.tubes))
-    if plan.design.analysis in ("one-to-one", "double-reciprocal"):
+    if study.analysis in ("one-to-one", "double-reciprocal"):
         check_list.append(chk.second_complex(model, state, recipe.tubes, target))
     check_list.append(chk.ionic_strength(state))
     check_list.extend(chk.side_reactions(model, state, recipe.tubes))
-    check_list.extend(_stock_and_glassware_checks(plan, recipe, devices))
+    check_list.extend(_stock_and_glassware_checks(bench, recipe))
     if cr is not None:
         check_list.append(_identifiability_check(params, cr, model, state))
-    verdict, reason = _verdict(plan, params, cr, mc, prof)
+    verdict, reason = _verdict(study, params, cr, mc, prof)
     check_list.sort(key=lambda c: -STATUSES.index(c.status))
-    return Assessment(plan.title, recipe, model, state, tuple(check_list), budget, params, true_theta, cr, mc,
-                      prof, verdict, reason, plan.design.goal_se)
+    return Assessment(study.title, recipe, model, state, tuple(check_list), budget, params, true_theta, cr, mc,
+                      prof, verdict, reason, study.goal_se, study=study)
 
 
 def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingModel):
@@ -266,18 +280,28 @@ def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingMod
     return risk, (max(a_lo, 0.0), a_hi)
 
 
-def _stock_and_glassware_checks(plan: Plan, recipe: Recipe, devices) -> list[Check]:
-    from .stock_needs import stock_needs
+def stock_shortfalls(bench: Bench, recipe: Recipe) -> list[tuple[str, float, float, float]]:
+    """Stocks whose recipe use plus rinse and dead volume exceeds what is on hand:
+    (id, recipe mL, needed mL, on hand mL), in plan order."""
+    used = recipe.volumes_mL.sum(axis=0)
+    n_del = np.count_nonzero(recipe.volumes_mL > 0, axis=0)
+    allowance = np.where(n_del > 0, bench.rinse_mL + bench.dead_volume_mL, 0.0)
+    need = volume_needed_mL(used, n_del, rinse_mL=0.0, dead_volume_mL=0.0) + allowance
+    on_hand = bench.on_hand_mL
+    short = np.isfinite(on_hand) & (on_hand < need)
+    return [(bench.stock_ids[k], float(used[k]), float(need[k]), float(on_hand[k])) for k in np.flatnonzero(short)]
 
+
+def _stock_and_glassware_checks(bench: Bench, recipe: Recipe) -> list[Check]:
     out = []
-    short = [n for n in stock_needs(plan, recipe) if n.enough is False]
+    short = stock_shortfalls(bench, recipe)
     if short:
         out.append(Check("stock-budget", "fail", "; ".join(
-            f"{n.id}: needs {n.needed_mL:.1f} mL (recipe {n.recipe_mL:.1f} + rinse and dead volume), "
-            f"{n.on_hand_mL:g} mL on hand — make more or use less" for n in short)))
+            f"{sid}: needs {need:.1f} mL (recipe {used:.1f} + rinse and dead volume), "
+            f"{have:g} mL on hand — make more or use less" for sid, used, need, have in short)))
     else:
         out.append(Check("stock-budget", "pass", "every stock on hand covers the recipe with its rinse allowance"))
-    probs = glassware_problems(plan, recipe, devices)
+    probs = glassware_problems(bench, recipe)
     if probs:
         out.append(Check("glassware", "fail", "; ".join(f"{k}: {m}" for k, m in probs)))
     else:
@@ -305,16 +329,16 @@ def _identifiability_check(params: Parameters, cr: CramerRao, model: Model, stat
                  f"add tubes nearer saturation (more of the excess reagent)")
 
 
-def _verdict(plan: Plan, params: Parameters, cr, mc, prof) -> tuple[str | None, str]:
+def _verdict(study: Study, params: Parameters, cr, mc, prof) -> tuple[str | None, str]:
     if cr is None:
         return None, ""
     t = params.target
     if t < 0:
-        return None, f"log_beta[{plan.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
+        return None, f"log_beta[{study.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
     if cr.jacobian.shape[0] < params.size:
         return "unresolved", (f"{cr.jacobian.shape[0]} tubes cannot determine {params.size} fitted parameters: "
                               f"add tubes")
-    goal = plan.design.goal_se
+    goal = study.goal_se
     se = float(cr.se[t])
     if prof is not None and prof.low_unbounded and prof.high_unbounded:
         return "unresolved", "the data cannot tell the constant from either limit (K → 0 or K → ∞)"

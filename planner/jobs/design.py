@@ -20,17 +20,19 @@ import numpy as np
 
 from ..inference import approximate, exchange
 from ..inference.design_criteria import CRITERIA, DesignError
-from ..inference.precision import Parameters, ReadingModel, free_parameters
-from ..inference.priors import Nodes, prior_nodes
+from ..inference.precision import ReadingModel
+from ..inference.priors import Nodes
+from ..inference.study import Study
 from ..inputs.plan import Plan
-from ..inputs.recipe import Recipe, make_recipe, totals_M
-from ..model.compiled import Model, build_model, predict, tube_ions_M
+from ..inputs.recipe import Recipe, totals_M
+from ..model.compiled import Model, TubeState, predict, tube_ions_M
 from ..model.jacobians import absorbance_derivatives
 from ..uncertainty import delivery
-from ..uncertainty.budget import Devices, error_factors, plan_devices
-from .assess import assess
+from ..uncertainty.budget import error_factors
+from .assess import assess_study
 from .checks import RANGE_RISK, prior_range_risk
-from .series import even_series
+from .compile import compile_study
+from .series import even_series_for
 
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
 
@@ -60,7 +62,7 @@ def _levels(lo: float, hi: float, step: float, allow_zero: bool) -> np.ndarray:
     return np.concatenate([[0.0], lv]) if allow_zero else lv
 
 
-def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = None,
+def candidate_tubes(study: Study, *, step_mL: float | None = None,
                     caps_mL: dict[str, float] | None = None) -> Candidates:
     """All combinations of designed volumes on the grid that fit the tube (before the range screen).
 
@@ -69,16 +71,17 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
     step_mL : grid step (default the plan's; a multiple of it for a coarse search).
     caps_mL : per-stock upper limits on one tube's volume (e.g. from the stock budget).
     """
-    g = plan.glassware
+    g = study.bench
+    devices = g.devices
     step = step_mL or g.step_mL
-    fixed = plan.design.fixed
-    designed = [s.id for s in plan.stock if not s.diluent and s.id not in fixed and not s.background]
+    fixed = g.fixed_mL
+    designed = [s for s in g.stock_ids if s not in (g.diluent_id, g.background_id) and s not in fixed]
     if not designed:
         raise DesignError("design.fixed fixes every stock: nothing is left to vary; remove a stock from fixed")
     room = g.tube_volume_mL - sum(fixed.values())
     levels = []
     for sid in designed:
-        k = plan.stock.index(plan.stock_by_id(sid))
+        k = g.stock_index(sid)
         cap = room
         low = max(g.min_volume_mL, step)
         j = devices.stock_device[k]
@@ -92,33 +95,31 @@ def candidate_tubes(plan: Plan, devices: Devices, *, step_mL: float | None = Non
     mesh = np.stack([m.ravel() for m in np.meshgrid(*levels, indexing="ij")], axis=1)
     fits = mesh.sum(axis=1) <= room + 1e-9
     mesh = mesh[fits]
-    rec = _complete(plan, designed, mesh, "c")
+    rec = _complete(study, designed, mesh, "c")
     return Candidates(rec, tuple(designed), rec.n_tubes, step)
 
 
-def _complete(plan: Plan, designed, mesh: np.ndarray, prefix: str) -> Recipe:
+def _complete(study: Study, designed, mesh: np.ndarray, prefix: str) -> Recipe:
     """Candidate recipe from designed volumes (C, d): fixed volumes, the background electrolyte that
     levels the ionic strength, and the diluent remainder under ``make_up = "added"``."""
-    g = plan.glassware
+    g = study.bench
     vols = {sid: mesh[:, j] for j, sid in enumerate(designed)}
-    for sid, v in plan.design.fixed.items():
+    for sid, v in g.fixed_mL.items():
         vols[sid] = np.full(mesh.shape[0], v)
-    bg = plan.background
-    if bg is not None and bg.id not in plan.design.fixed:
-        vols = level_ionic_strength(plan, vols)
-    dil = plan.diluent
-    if g.make_up == "added" and dil is not None:
+    if g.background_id is not None and g.background_id not in g.fixed_mL:
+        vols = level_ionic_strength(study, vols)
+    if not g.to_mark and g.diluent_id is not None:
         rest = g.tube_volume_mL - sum(vols.values())
         ok = (rest <= 1e-9) | (rest >= g.min_volume_mL - 1e-9)
         vols = {k: v[ok] for k, v in vols.items()}
-        vols[dil.id] = np.maximum(rest[ok], 0.0)
+        vols[g.diluent_id] = np.maximum(rest[ok], 0.0)
     n = len(next(iter(vols.values())))
     if n == 0:
         raise DesignError("no tube fits: the fixed volumes and min_volume leave no room in tube_volume")
-    return make_recipe(plan, vols, [f"{prefix}{i}" for i in range(n)])
+    return g.make_recipe(vols, [f"{prefix}{i}" for i in range(n)])
 
 
-def level_ionic_strength(plan: Plan, vols: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+def level_ionic_strength(study: Study, vols: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
     """Add the background-electrolyte volume that brings every tube to the same ionic strength.
 
     The target is ``design.ionic_strength`` (default: the highest ionic strength among the tubes
@@ -129,37 +130,37 @@ def level_ionic_strength(plan: Plan, vols: dict[str, np.ndarray]) -> dict[str, n
     volume below min_volume) are dropped.
     """
 
-    g = plan.glassware
-    bg = plan.background
-    model = build_model(plan)
+    g = study.bench
+    bg = g.background_id
+    model = study.model
     n = len(next(iter(vols.values())))
     tube = g.tube_volume_mL
-    rec0 = make_recipe(plan, {**vols, bg.id: np.zeros(n)} if g.make_up == "to-mark" else
-                       {**vols, bg.id: np.zeros(n), plan.diluent.id: np.maximum(tube - sum(vols.values()), 0.0)})
+    rec0 = g.make_recipe({**vols, bg: np.zeros(n)} if g.to_mark else
+                         {**vols, bg: np.zeros(n), g.diluent_id: np.maximum(tube - sum(vols.values()), 0.0)})
     tot = totals_M(rec0, model.stock_conc_M)
     ions = tube_ions_M(model, rec0.volumes_mL, rec0.total_volume_mL)
     st = predict(model, tot, ions, warn=False)
     I0 = st.ionic_strength_M
-    k_bg = model.stock_ids.index(bg.id)
+    k_bg = model.stock_ids.index(bg)
     i_bg = 0.5 * float(model.stock_ion_M[k_bg] @ model.ion_charges**2)
-    dil = plan.diluent
-    i_dil = 0.5 * float(model.stock_ion_M[model.stock_ids.index(dil.id)] @ model.ion_charges**2) if dil else 0.0
+    dil = g.diluent_id
+    i_dil = 0.5 * float(model.stock_ion_M[model.stock_ids.index(dil)] @ model.ion_charges**2) if dil else 0.0
     if not i_bg > i_dil:
-        raise DesignError(f"stock {bg.id}: the background electrolyte ({i_bg:.3g} M ionic strength) must be "
+        raise DesignError(f"stock {bg}: the background electrolyte ({i_bg:.3g} M ionic strength) must be "
                           f"stronger than the diluent ({i_dil:.3g} M) to level the tubes")
-    target = plan.design.ionic_strength_M or float(I0.max())
+    target = study.ionic_strength_M or float(I0.max())
     v_bg = np.round(np.maximum(target - I0, 0.0) * tube / (i_bg - i_dil) / g.step_mL) * g.step_mL
     v_bg = np.round(v_bg, 10)
     I = I0 + v_bg * (i_bg - i_dil) / tube
     room = tube - sum(vols.values())
-    ok = (np.abs(I - target) <= plan.design.ionic_strength_tolerance * target) & (v_bg <= room + 1e-9)
+    ok = (np.abs(I - target) <= study.ionic_strength_tolerance * target) & (v_bg <= room + 1e-9)
     ok &= (v_bg == 0) | (v_bg >= g.min_volume_mL - 1e-9)
     if not ok.any():
-        raise DesignError(f"no tube can be brought to I = {target:.3g} M with stock {bg.id}: set "
+        raise DesignError(f"no tube can be brought to I = {target:.3g} M with stock {bg}: set "
                           f"design.ionic_strength lower, use a more concentrated background stock, or widen "
                           f"design.ionic_strength_tolerance")
     out = {k: v[ok] for k, v in vols.items()}
-    out[bg.id] = v_bg[ok]
+    out[bg] = v_bg[ok]
     return out
 
 
@@ -227,9 +228,9 @@ class Design:
         return out
 
 
-def _information_rows(plan: Plan, model: Model, params: Parameters, cand: Candidates, devices: Devices,
-                      nodes: Nodes, criterion: str, *, volumetric: bool = True):
+def _information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: str, *, volumetric: bool = True):
     """Whitened Jacobian rows F (G, C, 1, P') and prior M0 (P', P') for every candidate and node."""
+    model, params = study.model, study.params
     rec = cand.recipe
     tot = totals_M(rec, model.stock_conc_M)
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
@@ -246,7 +247,7 @@ def _information_rows(plan: Plan, model: Model, params: Parameters, cand: Candid
     shared = []
     for gi in range(G):  # a handful of nodes; each vectorised over candidates
         sub = _take_state(st, gi)
-        f = error_factors(plan, model, rec, sub, devices, dA_dtotals=der.dA_dtotals[gi])
+        f = error_factors(study.bench, model, rec, sub, dA_dtotals=der.dA_dtotals[gi])
         var[gi] = f.photometric_var + (f.delivery_random_var if volumetric else 0.0)
         shared.append(np.concatenate([f.J_stock, f.J_device], axis=1) if volumetric else
                       np.zeros((rec.n_tubes, 0)))
@@ -270,8 +271,6 @@ def _information_rows(plan: Plan, model: Model, params: Parameters, cand: Candid
 
 
 def _take_state(st, g):
-    from ..model.compiled import TubeState
-
     return TubeState(*(getattr(st, f)[g] for f in TubeState.__dataclass_fields__))
 
 
@@ -290,28 +289,34 @@ def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None
     tubes, criterion, robust : override the plan's design keys.
     seed : seed of the random starts of the exchange algorithm.
     volumetric : include delivery and stock errors (False: photometric noise only — for analytic checks).
+
+    The plan is compiled once (:func:`planner.jobs.compile.compile_study`); see :func:`design_study`.
     """
-    n = int(tubes or plan.design.tubes)
-    crit = criterion or plan.design.criterion
+    return design_study(compile_study(plan), tubes=tubes, criterion=criterion, robust=robust, seed=seed,
+                        volumetric=volumetric, starts=starts)
+
+
+def design_study(study: Study, *, tubes: int | None = None, criterion: str | None = None,
+                 robust: bool | None = None, seed: int = 0, volumetric: bool = True, starts: int = 8) -> Design:
+    """:func:`design` on a compiled plan."""
+    n = int(tubes or study.tubes)
+    crit = criterion or study.criterion
     if crit not in CRITERIA:
         raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
-    rob = plan.design.robust if robust is None else bool(robust)
-    model = build_model(plan)
-    devices = plan_devices(plan)
-    params = free_parameters(plan, model)
+    rob = study.robust if robust is None else bool(robust)
+    model, params = study.model, study.params
     if params.size == 0:
         raise DesignError("nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)")
     if crit == "target" and params.target < 0:
-        raise DesignError(f"the target {plan.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0")
-    nodes = prior_nodes(params, rob)
+        raise DesignError(f"the target {study.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0")
+    nodes = study.nodes(rob)
     notes: list[str] = []
     caps: dict[str, float] = {}
     for _attempt in range(4):
-        rec, ex, ap, n_grid, n_feas, coarse = _solve(plan, model, params, devices, nodes, crit, n, seed, caps,
-                                                      volumetric, starts)
+        rec, ex, ap, n_grid, n_feas, coarse = _solve(study, nodes, crit, n, seed, caps, volumetric, starts)
         if coarse:
             notes.append(coarse)
-        over = _budget_overruns(plan, rec)
+        over = _budget_overruns(study, rec)
         if not over:
             break
         for sid, (used, avail) in over.items():
@@ -321,48 +326,47 @@ def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None
                          f"(on hand less rinse and dead volume); capped at {per_tube:.2f} mL per tube")
     else:
         raise DesignError("the stock budget cannot be met: make more of "
-                          + ", ".join(_budget_overruns(plan, rec)) + " (on_hand) or use fewer tubes")
-    a = assess(plan, rec, trials=0)
-    even = even_series(plan, n)
+                          + ", ".join(_budget_overruns(study, rec)) + " (on_hand) or use fewer tubes")
+    a = assess_study(study, rec, trials=0)
+    even = even_series_for(study, n)
     se_d = float(a.target_se) if a.target_se is not None else float("nan")
-    ae = assess(plan, even, trials=0, precision=True)
+    # the comparisons need only the Cramér–Rao SE: skip their χ² profiles
+    ae = assess_study(study, even, trials=0, profile_chi2=False)
     se_e = float(ae.target_se) if ae.target_se is not None else float("nan")
     across = []
-    t = plan.target
+    t = study.target
     j = model.index(t)
     sd = float(model.log_beta_sd[j])
     if sd > 0:
         for k in (-2, -1, 0, 1, 2):
             val = float(model.log_beta[j] + k * sd)
-            sa = assess(plan, rec, trials=0, at={t: val}).target_se
-            sb = assess(plan, even, trials=0, at={t: val}).target_se
+            sa = assess_study(study, rec, trials=0, at={t: val}, profile_chi2=False).target_se
+            sb = assess_study(study, even, trials=0, at={t: val}, profile_chi2=False).target_se
             across.append((val, float(sa), float(sb)))
     eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
     return Design(rec, crit, rob, seed, n_grid, n_feas, ex, ap, min(eff, 1.0), se_d, se_e, tuple(across), t,
                   tuple(notes), a.summary())
 
 
-def _solve(plan, model, params, devices, nodes, crit, n, seed, caps, volumetric, starts):
-    g = plan.glassware
-    cand = candidate_tubes(plan, devices, caps_mL=caps)
+def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts):
+    g = study.bench
+    cand = candidate_tubes(study, caps_mL=caps)
     coarse_note = ""
     factor = 1
     if cand.n_grid > MAX_CANDIDATES:
         d = len(cand.designed_ids)
         factor = int(math.ceil((cand.n_grid / MAX_CANDIDATES) ** (1.0 / d)))
-        cand = candidate_tubes(plan, devices, step_mL=g.step_mL * factor, caps_mL=caps)
+        cand = candidate_tubes(study, step_mL=g.step_mL * factor, caps_mL=caps)
         coarse_note = (f"searched a {g.step_mL * factor:g} mL grid first ({cand.n_grid} candidates), then refined "
                        f"on the {g.step_mL:g} mL grid near the chosen tubes")
-    ex, ap, rec, n_feas, support = _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetric,
-                                             starts)
+    ex, ap, rec, n_feas, support = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts)
     n_grid = cand.n_grid
     if factor > 1:
         # refine on the fine grid around the chosen tubes, re-centring until the support settles
         base = cand
         for _ in range(3):
-            fine = _neighbourhood(plan, devices, base, support, factor, caps)
-            ex, ap, rec, n_feas, new_support = _exact_on(plan, model, params, devices, nodes, crit, n, seed, fine,
-                                                         volumetric, starts)
+            fine = _neighbourhood(study, base, support, factor, caps)
+            ex, ap, rec, n_feas, new_support = _exact_on(study, nodes, crit, n, seed, fine, volumetric, starts)
             n_grid = fine.n_grid
             moved = not np.array_equal(fine.recipe.volumes_mL[new_support], base.recipe.volumes_mL[support])
             base, support = fine, new_support
@@ -371,8 +375,9 @@ def _solve(plan, model, params, devices, nodes, crit, n, seed, caps, volumetric,
     return rec, ex, ap, n_grid, n_feas, coarse_note
 
 
-def _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetric, starts):
-    F, M0, st, band = _information_rows(plan, model, params, cand, devices, nodes, crit, volumetric=volumetric)
+def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts):
+    model, params = study.model, study.params
+    F, M0, st, band = _information_rows(study, cand, nodes, crit, volumetric=volumetric)
     ok = _range_mask(model, st, nodes.weights, band)
     if not ok.any():
         lo, hi = model.linear_range
@@ -396,19 +401,19 @@ def _exact_on(plan, model, params, devices, nodes, crit, n, seed, cand, volumetr
             f"or hold more parameters fixed (rsd = 0)") from None
     chosen = np.repeat(idx, ex.counts)
     rec = cand.recipe
-    vols = {sid: rec.column(sid)[chosen] for sid in rec.stock_ids if not (
-        plan.glassware.make_up == "to-mark" and plan.diluent is not None and sid == plan.diluent.id)}
+    vols = {sid: rec.column(sid)[chosen] for sid in study.bench.dispensed_ids(rec)}
     # order tubes by the designed stock volumes, the way a bench series is laid out
     order = np.lexsort([vols[s] for s in reversed(cand.designed_ids)])
     vols = {k: v[order] for k, v in vols.items()}
-    out = make_recipe(plan, vols)
+    out = study.bench.make_recipe(vols)
     return ex, ap, out, int(ok.sum()), idx[np.flatnonzero(ex.counts)]
 
 
-def _neighbourhood(plan, devices, coarse: Candidates, support: np.ndarray, factor, caps) -> Candidates:
+def _neighbourhood(study: Study, coarse: Candidates, support: np.ndarray, factor, caps) -> Candidates:
     """Fine-grid candidates within ±factor steps of the coarse support, plus the coarse candidates
     themselves (so the refined search can always keep the coarse solution)."""
-    g = plan.glassware
+    g = study.bench
+    devices = g.devices
     support = coarse.recipe.volumes_mL[support]
     ids = coarse.designed_ids
     cols = [coarse.recipe.stock_ids.index(s) for s in ids]
@@ -421,33 +426,32 @@ def _neighbourhood(plan, devices, coarse: Candidates, support: np.ndarray, facto
         rows.append(mesh)
     rows.append(coarse.recipe.volumes_mL[:, cols])
     mesh = np.unique(np.round(np.concatenate(rows), 10), axis=0)
-    room = g.tube_volume_mL - sum(plan.design.fixed.values())
+    room = g.tube_volume_mL - sum(g.fixed_mL.values())
     ok = mesh.sum(axis=1) <= room + 1e-9
     ok &= np.all((mesh == 0) | (mesh >= g.min_volume_mL - 1e-9), axis=1)
     for j, sid in enumerate(ids):
-        k = plan.stock.index(plan.stock_by_id(sid))
-        dv = devices.stock_device[k]
+        dv = devices.stock_device[g.stock_index(sid)]
         if dv >= 0:
             ok &= mesh[:, j] <= devices.items[dv].capacity_mL + 1e-9
             vmin = delivery.smallest_delivery_mL(devices.items[dv])
             ok &= (mesh[:, j] == 0) | (mesh[:, j] >= vmin - 1e-9)
         if caps and sid in caps:
             ok &= mesh[:, j] <= caps[sid] + 1e-9
-    rec = _complete(plan, ids, mesh[ok], "f")
+    rec = _complete(study, ids, mesh[ok], "f")
     return Candidates(rec, ids, rec.n_tubes, g.step_mL)
 
 
-def _budget_overruns(plan: Plan, rec: Recipe) -> dict[str, tuple[float, float]]:
+def _budget_overruns(study: Study, rec: Recipe) -> dict[str, tuple[float, float]]:
     """Stocks whose recipe use exceeds on_hand less rinse and dead volume: id -> (used, usable)."""
-    g = plan.glassware
+    g = study.bench
     out = {}
-    for k, s in enumerate(plan.stock):
-        if s.on_hand is None or s.diluent:
+    for k, sid in enumerate(g.stock_ids):  # a handful of stocks
+        if not np.isfinite(g.on_hand_mL[k]) or sid == g.diluent_id:
             continue
         used = float(rec.volumes_mL[:, k].sum())
         if used <= 0:
             continue
-        usable = s.on_hand - g.rinse_mL - g.dead_volume_mL
+        usable = float(g.on_hand_mL[k]) - g.rinse_mL - g.dead_volume_mL
         if used > usable + 1e-9:
-            out[s.id] = (used, usable)
+            out[sid] = (used, usable)
     return out

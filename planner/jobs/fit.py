@@ -8,61 +8,22 @@ solution. χ²/dof tells whether the scatter matches the error model (a χ² tes
 
 from __future__ import annotations
 
-import csv
-import io
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 from scipy.stats import chi2 as chi2_dist
 
 from ..inference.lm import fit_many
-from ..inference.precision import ReadingModel, cramer_rao, free_parameters, whitening
+from ..inference.precision import ReadingModel, cramer_rao, unpack, whitening
 from ..inputs.plan import Plan
-from ..inputs.recipe import Recipe, RecipeError, parse_recipe_csv, read_text_file
-from ..model.compiled import build_model, tube_ions_M
-from ..uncertainty.budget import error_budget, plan_devices
+from ..inputs.readings import Readings
+from ..inputs.recipe import Recipe, RecipeError
+from ..model.compiled import tube_ions_M
+from ..uncertainty.budget import error_budget
 from .assess import expected_state
+from .compile import compile_study
 
-ABSORBANCE_COLUMNS = ("absorbance", "A", "measured_A")
 N_STARTS = 7  # starts spread over ±3 sd of the target's guess
-
-
-@dataclass(frozen=True)
-class Readings:
-    """A recipe with one measured absorbance per tube."""
-
-    recipe: Recipe
-    absorbance: np.ndarray
-
-
-def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Readings:
-    """Readings CSV: the recipe columns (tube, stock volumes in mL) plus an ``absorbance`` column."""
-    rows = list(csv.reader(io.StringIO(text)))
-    rows = [r for r in rows if r and any(c.strip() for c in r) and not r[0].lstrip().startswith("#")]
-    if not rows:
-        raise RecipeError(source, "empty: expected a header 'tube,<stock>,...,absorbance'")
-    header = [h.strip() for h in rows[0]]
-    col = next((h for h in header if h in ABSORBANCE_COLUMNS), None)
-    if col is None:
-        raise RecipeError(f"{source} header", f"no absorbance column: add one named {' or '.join(ABSORBANCE_COLUMNS)}")
-    j = header.index(col)
-    a = []
-    for ln, r in enumerate(rows[1:], start=2):
-        if len(r) != len(header):
-            raise RecipeError(f"{source} line {ln}", f"expected {len(header)} fields, got {len(r)}")
-        try:
-            a.append(float(r[j]))
-        except ValueError:
-            raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is not an absorbance; leave no blanks") from None
-    recipe_text = "\n".join(",".join(c for k, c in enumerate(r) if k != j) for r in rows)
-    rec = parse_recipe_csv(recipe_text, plan, source)
-    return Readings(rec, np.array(a))
-
-
-def read_readings_csv(path: str | Path, plan: Plan) -> Readings:
-    """Read a readings CSV (see :func:`parse_readings_csv`)."""
-    return parse_readings_csv(read_text_file(path, "readings"), plan, str(path))
 
 
 @dataclass(frozen=True)
@@ -114,16 +75,15 @@ class Fit:
 
 def fit_readings(plan: Plan, readings: Readings) -> Fit:
     """Fit measured readings with the plan's model and full error budget."""
-    model = build_model(plan)
-    params = free_parameters(plan, model)
+    study = compile_study(plan)
+    model, params, bench = study.model, study.params, study.bench
     rec = readings.recipe
     if params.size == 0:
         raise RecipeError("plan", "nothing to fit: give the target log_beta_sd > 0 (or ε an rsd)")
     if rec.n_tubes < params.size:
         raise RecipeError("readings", f"{rec.n_tubes} tubes cannot determine {params.size} parameters: add tubes")
-    state = expected_state(plan, rec, model)
-    devices = plan_devices(plan)
-    cov = error_budget(plan, model, rec, state, devices).total
+    state = expected_state(model, rec)
+    cov = error_budget(bench, model, rec, state).total
     W = whitening(cov)
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
     reading = ReadingModel(model, params, state.totals_M, ions)
@@ -137,11 +97,9 @@ def fit_readings(plan: Plan, readings: Readings) -> Fit:
     best = int(np.argmin(chi2)) if np.isfinite(chi2).any() else int(np.argmin(res.chi2))
     theta = res.theta[best]
     # the photometric part of the error model depends on the readings: re-weight at the fit, refit once
-    from ..inference.precision import unpack
-
     lb, eps, _ = unpack(model, params, theta)
-    state_fit = expected_state(plan, rec, model, log_beta=lb, epsilon_M_cm=eps)
-    W = whitening(error_budget(plan, model, rec, state_fit, devices).total)
+    state_fit = expected_state(model, rec, log_beta=lb, epsilon_M_cm=eps)
+    W = whitening(error_budget(bench, model, rec, state_fit).total)
     res = fit_many(reading.f, theta, readings.absorbance, jac=reading.jac, whiten=W, scale_cov=False,
                    lower=lo, upper=hi)
     best = 0
@@ -151,6 +109,6 @@ def fit_readings(plan: Plan, readings: Readings) -> Fit:
     dof = rec.n_tubes - params.size
     c2 = float(res.chi2[best])
     promised = cramer_rao(reading.jac(params.guess[None, :])[0], cov).se
-    return Fit(plan.title, rec, readings.absorbance, params.names, theta, res.se[best], promised, c2, dof,
+    return Fit(study.title, rec, readings.absorbance, params.names, theta, res.se[best], promised, c2, dof,
                float(chi2_dist.sf(c2, dof)) if dof > 0 else float("nan"), fitted, resid, W @ resid,
-               bool(res.converged[best]), plan.target)
+               bool(res.converged[best]), study.target)

@@ -1,8 +1,8 @@
-"""The numerical model of a plan: arrays built once from the validated plan, and the prediction of
-every tube (speciation, ionic strength, absorbance and its photometric sd).
+"""The numerical model of a plan (arrays built once by :func:`planner.jobs.compile.build_model`) and the
+prediction of every tube: speciation, ionic strength, absorbance and its photometric sd.
 
-This is the bridge between :mod:`planner.plan` (names, units) and the pure numerical modules
-(:mod:`planner.chemistry`, :mod:`planner.activity`, :mod:`planner.optics`).
+It puts together the pure numerical modules of this layer (:mod:`planner.model.speciation`,
+:mod:`planner.model.activity`, :mod:`planner.model.optics`).
 """
 
 from __future__ import annotations
@@ -12,7 +12,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..inputs.plan import Plan, ion_charge
 from . import activity, closed_forms, optics, speciation
 
 IONIC_STRENGTH_WARN_M = 0.5  # Davies is poor above this [source: domain.md §1, Davies 1962]
@@ -89,63 +88,6 @@ class Model:
 
     def index(self, species: str) -> int:
         return self.species.index(species)
-
-
-def build_model(plan: Plan) -> Model:
-    """Turn a validated plan into arrays (a pure function of the plan)."""
-    sp = plan.species
-    stoich = np.array([[s.formula.get("M", 0), s.formula.get("L", 0), s.formula.get("H", 0)] for s in sp],
-                      dtype=int)
-    comps = plan.components
-    charges = np.array([comps.M.charge, comps.L.charge, 1], dtype=float)
-    absorbers = ("M", "L", *(s.name for s in sp))
-    band_ratio = {}
-    eps = np.zeros(len(absorbers))
-    rsd = np.zeros(len(absorbers))
-    for j, name in enumerate(absorbers):
-        e = plan.optics.epsilon.get(name)
-        if e is not None:
-            band = plan.optics.bands.get(name)
-            factor = optics.bandwidth_factor(plan.optics.bandwidth_nm, band.fwhm_nm if band else None)
-            band_ratio[name] = factor
-            eps[j] = e.value * factor
-            rsd[j] = e.rsd
-    default_size = 4.0  # Å, a middling Kielland size when the plan gives none [common practice]
-    sizes = np.array(
-        [comps.M.size_angstrom or default_size, comps.L.size_angstrom or default_size]
-        + [s.size_angstrom or default_size for s in sp]
-    )
-    ion_names = sorted({ion for s in plan.stock for ion in s.ions})
-    ion_z = np.array([ion_charge(i) for i in ion_names], dtype=float)
-    stock_ion = np.array([[s.ions.get(i, 0.0) for i in ion_names] for s in plan.stock], dtype=float)
-    stock_ion = stock_ion.reshape(len(plan.stock), len(ion_names))
-    n = plan.optics.noise
-    return Model(
-        species=tuple(s.name for s in sp),
-        stoich=stoich,
-        log_beta=np.array([s.log_beta for s in sp], dtype=float),
-        log_beta_sd=np.array([s.log_beta_sd for s in sp], dtype=float),
-        pH=comps.H.pH if comps.H is not None else None,
-        charges=charges,
-        sizes_angstrom=sizes,
-        absorbers=absorbers,
-        epsilon_M_cm=eps,
-        epsilon_rsd=rsd,
-        path_cm=plan.optics.path_cm,
-        stray_light=plan.optics.stray_light,
-        noise_k=(n.k1, n.k2, n.k3),
-        display_step=plan.optics.display_step,
-        linear_range=tuple(plan.optics.linear_range),
-        stock_ids=tuple(s.id for s in plan.stock),
-        stock_conc_M=np.array([[s.conc.get("M", 0.0), s.conc.get("L", 0.0)] for s in plan.stock], dtype=float),
-        stock_conc_rsd=np.array([s.conc_rsd for s in plan.stock], dtype=float),
-        ion_names=tuple(ion_names),
-        ion_charges=ion_z,
-        stock_ion_M=stock_ion,
-        activity_model=plan.medium.activity_model,
-        reference_ionic_strength_M=plan.medium.reference_ionic_strength_M,
-        temperature_C=plan.temperature_C,
-    )
 
 
 @dataclass(frozen=True)

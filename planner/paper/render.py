@@ -179,10 +179,16 @@ def report(plan, recipe, assessment, *, design: dict | None = None, paper: str =
 def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
     from markupsafe import Markup
 
+    from ..jobs import curves
+    from ..jobs.compile import compile_study
+
+    # the assessment carries the plan compiled for it; compile only for one built elsewhere
+    study = assessment.study if assessment.study is not None else compile_study(plan)
+
     out = [{"svg": Markup(fig.absorbance_svg(summary["tubes"], tuple(plan.optics.linear_range))),
             "caption": "Expected absorbance of each tube (bars: ±2 sd of one reading, every error source) "
                        "inside the instrument's linear range."}]
-    curve = fig.binding_curve_data(plan, recipe, summary)
+    curve = curves.binding_curve_data(study, recipe, summary)
     out.append({"svg": Markup(fig.binding_svg(curve)),
                 "caption": "Tubes on the binding curve: fraction of the metal bound against free ligand "
                            "(the saturation check uses the limiting reagent; it differs where the metal is "
@@ -197,7 +203,7 @@ def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
                     "caption": "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal "
                                "curve: matching shapes mean the asymptotic SE holds."})
     if t >= 0:
-        scan = fig.se_scan_data(plan, recipe)
+        scan = curves.se_scan_data(study, recipe)
         if scan is not None:
             out.append({"svg": Markup(fig.se_scan_svg(scan)),
                         "caption": "How the SE of the target would change if the true constant were "

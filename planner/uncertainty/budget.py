@@ -18,76 +18,24 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..inputs.plan import Plan, PlanError
 from ..inputs.recipe import Recipe, RecipeError
 from ..model.compiled import Model, TubeState
 from ..model.jacobians import absorbance_derivatives
-from . import catalogue, delivery
+from . import delivery
+from .bench import Bench
 
 PARTS = ("photometric", "delivery", "stock")
 
 
-@dataclass(frozen=True)
-class Devices:
-    """The glassware that delivers each stock and makes up each tube.
-
-    Attributes
-    ----------
-    items : one GlasswareItem per dispenser in the plan (plan order).
-    stock_device : (k,) index into ``items`` for every stock, −1 for none (e.g. a to-mark diluent).
-    flask : the flask each tube is made up in, or None under ``make_up = "added"``.
-    """
-
-    items: tuple[catalogue.GlasswareItem, ...]
-    stock_device: np.ndarray
-    flask: catalogue.GlasswareItem | None
-
-
-def plan_devices(plan: Plan) -> Devices:
-    """Look every dispenser (and the make-up flask) up in the glassware catalogue.
-
-    Raises
-    ------
-    PlanError
-        When the catalogue has no such device (naming the dispenser and the sizes it has).
-    """
-    items = []
-    for j, d in enumerate(plan.glassware.dispenser):
-        try:
-            items.append(catalogue.lookup(d.kind, d.capacity_mL, d.cls, d.tolerance_mL))
-        except catalogue.GlasswareError as exc:
-            raise PlanError(f"glassware.dispenser[{j}]", f"{exc}; or give tolerance = '...' to describe it") from None
-    dev = np.full(len(plan.stock), -1, dtype=int)
-    for k, s in enumerate(plan.stock):
-        for j, d in enumerate(plan.glassware.dispenser):
-            if s.id in d.stocks:
-                dev[k] = j
-                break
-    flask = None
-    if plan.glassware.make_up == "to-mark":
-        f = plan.glassware.flask
-        cap = f.capacity_mL if f else plan.glassware.tube_volume_mL
-        try:
-            flask = catalogue.lookup("flask", cap, f.cls if f else "A", f.tolerance_mL if f else None)
-        except catalogue.GlasswareError as exc:
-            raise PlanError("glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}") from None
-        if abs(flask.capacity_mL - plan.glassware.tube_volume_mL) > 1e-9 * flask.capacity_mL:
-            raise PlanError("glassware.flask",
-                            f"a {flask.capacity_mL:g} mL flask cannot make up {plan.glassware.tube_volume_mL:g} mL "
-                            f"tubes: make tube_volume and the flask capacity equal")
-    return Devices(tuple(items), dev, flask)
-
-
-def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = None) -> list[tuple[str, str]]:
+def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
     """Every way the recipe does not fit the glassware: (key, message) pairs, empty if it fits.
 
     Checks: a dispensed stock with no dispenser, volumes off the plan's grid, below ``min_volume``,
     more than the device's capacity in one delivery, or a one-mark pipette asked for another volume.
     """
-    devices = devices or plan_devices(plan)
-    g = plan.glassware
+    devices = bench.devices
     out: list[tuple[str, str]] = []
-    for sid in recipe.dispensed_ids(plan):
+    for sid in bench.dispensed_ids(recipe):
         k = recipe.stock_ids.index(sid)
         v = recipe.volumes_mL[:, k]
         used = v > 0
@@ -98,15 +46,15 @@ def glassware_problems(plan: Plan, recipe: Recipe, devices: Devices | None = Non
             out.append((f"stock {sid}", "no dispenser delivers it: add its id to a [[glassware.dispenser]] stocks list"))
             continue
         item = devices.items[j]
-        off = used & ~delivery.on_grid(v, g.step_mL)
+        off = used & ~delivery.on_grid(v, bench.step_mL)
         if off.any():
             bad = [f"{t} ({x:g} mL)" for t, x, o in zip(recipe.tubes, v, off, strict=True) if o]
-            out.append((f"stock {sid}", f"volumes off the {g.step_mL:g} mL grid in {', '.join(bad[:4])}"
+            out.append((f"stock {sid}", f"volumes off the {bench.step_mL:g} mL grid in {', '.join(bad[:4])}"
                         f"{' …' if len(bad) > 4 else ''}: round them to the grid"))
-        small = used & (v < g.min_volume_mL - 1e-12)
+        small = used & (v < bench.min_volume_mL - 1e-12)
         if small.any():
             bad = [t for t, s in zip(recipe.tubes, small, strict=True) if s]
-            out.append((f"stock {sid}", f"below min_volume = {g.min_volume_mL:g} mL in {', '.join(bad[:4])}: "
+            out.append((f"stock {sid}", f"below min_volume = {bench.min_volume_mL:g} mL in {', '.join(bad[:4])}: "
                         f"use a more dilute stock or a smaller dispenser"))
         vmin = delivery.smallest_delivery_mL(item)
         tiny = used & (v < vmin * (1 - 1e-9))
@@ -132,9 +80,9 @@ def _tubes(labels, mask) -> str:
     return ", ".join(sel[:4]) + (" …" if len(sel) > 4 else "")
 
 
-def require_glassware_fits(plan: Plan, recipe: Recipe, devices: Devices | None = None) -> None:
+def require_glassware_fits(bench: Bench, recipe: Recipe) -> None:
     """Raise :class:`RecipeError` for the first glassware problem of the recipe."""
-    problems = glassware_problems(plan, recipe, devices)
+    problems = glassware_problems(bench, recipe)
     if problems:
         raise RecipeError(*problems[0])
 
@@ -184,7 +132,7 @@ class ErrorBudget:
         return "ErrorBudget(" + ", ".join(f"{k} sd ≤ {v.max():.2g}" for k, v in sd.items()) + ")"
 
 
-def volume_derivatives(plan: Plan, recipe: Recipe, dA_dtotals: np.ndarray, stock_conc_M: np.ndarray):
+def volume_derivatives(bench: Bench, recipe: Recipe, dA_dtotals: np.ndarray, stock_conc_M: np.ndarray):
     """dA_i/dV_ik for every stock (n, k) and dA_i/dV_total,i (n,) (make-up volume).
 
     Under ``to-mark`` the total volume is the flask's; under ``added`` it is the sum of the volumes, so a
@@ -194,7 +142,7 @@ def volume_derivatives(plan: Plan, recipe: Recipe, dA_dtotals: np.ndarray, stock
     tot = (recipe.volumes_mL @ stock_conc_M) / V[:, None]                     # (n, 2)
     dA_dV = (dA_dtotals @ stock_conc_M.T) / V[:, None]                          # (n, k)
     dA_dVtot = -np.sum(dA_dtotals * tot, axis=-1) / V                           # (n,)
-    if plan.glassware.make_up == "added":
+    if not bench.to_mark:
         dA_dV = dA_dV + dA_dVtot[:, None]
     return dA_dV, dA_dVtot
 
@@ -215,13 +163,14 @@ class DeliverySds:
     flask_mL: float
 
 
-def delivery_sds(plan: Plan, recipe: Recipe, devices: Devices, *, delta_T_C: float | None = None) -> DeliverySds:
+def delivery_sds(bench: Bench, recipe: Recipe, *, delta_T_C: float | None = None) -> DeliverySds:
     """Random and systematic sd of every (tube, stock) volume, and of the make-up volume."""
-    dT = plan.glassware.delta_T_C if delta_T_C is None else delta_T_C
+    devices = bench.devices
+    dT = bench.delta_T_C if delta_T_C is None else delta_T_C
     n, k = recipe.volumes_mL.shape
     u_rand = np.zeros((n, k))
     u_sys = np.zeros((n, k))
-    dispensed = recipe.dispensed_ids(plan)
+    dispensed = bench.dispensed_ids(recipe)
     for kk, sid in enumerate(recipe.stock_ids):  # a handful of stocks; each vectorised over tubes
         j = devices.stock_device[kk]
         if sid not in dispensed or j < 0:
@@ -272,13 +221,14 @@ class ErrorFactors:
         return self.photometric_var + self.delivery_random_var
 
 
-def error_factors(plan: Plan, model: Model, recipe: Recipe, state: TubeState, devices: Devices,
+def error_factors(bench: Bench, model: Model, recipe: Recipe, state: TubeState,
                   *, delta_T_C: float | None = None, dA_dtotals: np.ndarray | None = None) -> ErrorFactors:
     """Per-tube variances and shared-error factors (see :class:`ErrorFactors`); vectorised over tubes."""
     if dA_dtotals is None:
         dA_dtotals = absorbance_derivatives(model, state).dA_dtotals
-    dA_dV, dA_dVtot = volume_derivatives(plan, recipe, dA_dtotals, model.stock_conc_M)
-    sds = delivery_sds(plan, recipe, devices, delta_T_C=delta_T_C)
+    dA_dV, dA_dVtot = volume_derivatives(bench, recipe, dA_dtotals, model.stock_conc_M)
+    sds = delivery_sds(bench, recipe, delta_T_C=delta_T_C)
+    devices = bench.devices
     var_rand = np.sum((dA_dV * sds.random_mL) ** 2, axis=-1) + (dA_dVtot * sds.flask_mL) ** 2
     nd = len(devices.items)
     onehot = (devices.stock_device[:, None] == np.arange(nd)[None, :]).astype(float)   # (k, d)
@@ -289,16 +239,15 @@ def error_factors(plan: Plan, model: Model, recipe: Recipe, state: TubeState, de
     return ErrorFactors(state.absorbance_sd**2, var_rand, J_stock, J_dev)
 
 
-def error_budget(plan: Plan, model: Model, recipe: Recipe, state: TubeState,
-                 devices: Devices | None = None, *, delta_T_C: float | None = None) -> ErrorBudget:
+def error_budget(bench: Bench, model: Model, recipe: Recipe, state: TubeState,
+                 *, delta_T_C: float | None = None) -> ErrorBudget:
     """Propagate every error source to the covariance of the tubes' absorbances.
 
     Parameters
     ----------
     delta_T_C : lab temperature minus the glassware's calibration temperature (default: the plan's).
     """
-    devices = devices or plan_devices(plan)
-    f = error_factors(plan, model, recipe, state, devices, delta_T_C=delta_T_C)
+    f = error_factors(bench, model, recipe, state, delta_T_C=delta_T_C)
     return ErrorBudget(
         photometric=np.diag(f.photometric_var),
         delivery_random=np.diag(f.delivery_random_var),

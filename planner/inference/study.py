@@ -1,0 +1,58 @@
+"""A plan compiled for the numerics: one frozen object that every layer below the jobs works from.
+
+The jobs (``planner.jobs``) turn the validated plan into a :class:`Study` once
+(:func:`planner.jobs.compile.compile_study`); the model, the error budget, the precision analysis and
+the design optimiser take the study (or its parts), never the plan itself.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from ..model.compiled import Model
+from ..uncertainty.bench import Bench
+from .precision import Parameters
+from .priors import Nodes, prior_nodes
+
+ANALYSES = ("global", "double-reciprocal", "one-to-one")
+
+
+@dataclass(frozen=True)
+class Study:
+    """Everything a job needs from a plan, as numbers.
+
+    Attributes
+    ----------
+    title : the study's name, printed on every output.
+    model : chemistry and optics (:class:`planner.model.compiled.Model`).
+    bench : glassware, make-up and allowances (:class:`planner.uncertainty.bench.Bench`).
+    params : the parameters a fit estimates (free log β, ε and optionally a blank offset).
+    target : the species whose constant must be resolved.
+    goal_se : "resolved" means SE(log β[target]) ≤ goal_se (log10 units).
+    analysis : the analysis the plan intends ("global", "double-reciprocal", "one-to-one").
+    tubes : the plan's number of tubes for a design.
+    criterion : "target" or "all" (the design criterion).
+    robust : whether designs average over the guesses' uncertainty.
+    ionic_strength_M : the ionic strength designed tubes are levelled to (None: the highest candidate's).
+    ionic_strength_tolerance : allowed relative deviation from it.
+    """
+
+    title: str
+    model: Model
+    bench: Bench
+    params: Parameters
+    target: str
+    goal_se: float
+    analysis: str
+    tubes: int
+    criterion: str
+    robust: bool
+    ionic_strength_M: float | None
+    ionic_strength_tolerance: float
+
+    def __repr__(self) -> str:
+        return f"Study({self.title!r}, target={self.target}, params={list(self.params.names)}, {self.bench!r})"
+
+    def nodes(self, robust: bool | None = None) -> Nodes:
+        """Quadrature nodes over the guesses' uncertainty (the guess alone when not robust)."""
+        return prior_nodes(self.params, self.robust if robust is None else robust)

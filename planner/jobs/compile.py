@@ -1,0 +1,170 @@
+"""Compile a validated plan, once per job, into the numbers every layer below the jobs works from.
+
+:func:`compile_study` is the one place where the pydantic :class:`~planner.inputs.plan.Plan` becomes
+arrays: the :class:`~planner.model.compiled.Model` (chemistry and optics), the
+:class:`~planner.uncertainty.bench.Bench` (glassware, make-up, allowances) and the free parameters,
+together a :class:`~planner.inference.study.Study`. Nothing below this layer takes a ``Plan``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..inference.precision import free_parameters
+from ..inference.study import Study
+from ..inputs.plan import Plan, PlanError, ion_charge
+from ..inputs.recipe import Recipe
+from ..model import optics
+from ..model.compiled import Model, TubeState
+from ..uncertainty import budget as _budget
+from ..uncertainty import catalogue
+from ..uncertainty.bench import Bench, Devices
+
+__all__ = ["build_model", "compile_bench", "compile_study", "error_budget", "plan_devices"]
+
+
+def build_model(plan: Plan) -> Model:
+    """Turn a validated plan into arrays (a pure function of the plan)."""
+    sp = plan.species
+    stoich = np.array([[s.formula.get("M", 0), s.formula.get("L", 0), s.formula.get("H", 0)] for s in sp],
+                      dtype=int)
+    comps = plan.components
+    charges = np.array([comps.M.charge, comps.L.charge, 1], dtype=float)
+    absorbers = ("M", "L", *(s.name for s in sp))
+    band_ratio = {}
+    eps = np.zeros(len(absorbers))
+    rsd = np.zeros(len(absorbers))
+    for j, name in enumerate(absorbers):
+        e = plan.optics.epsilon.get(name)
+        if e is not None:
+            band = plan.optics.bands.get(name)
+            factor = optics.bandwidth_factor(plan.optics.bandwidth_nm, band.fwhm_nm if band else None)
+            band_ratio[name] = factor
+            eps[j] = e.value * factor
+            rsd[j] = e.rsd
+    default_size = 4.0  # Å, a middling Kielland size when the plan gives none [common practice]
+    sizes = np.array(
+        [comps.M.size_angstrom or default_size, comps.L.size_angstrom or default_size]
+        + [s.size_angstrom or default_size for s in sp]
+    )
+    ion_names = sorted({ion for s in plan.stock for ion in s.ions})
+    ion_z = np.array([ion_charge(i) for i in ion_names], dtype=float)
+    stock_ion = np.array([[s.ions.get(i, 0.0) for i in ion_names] for s in plan.stock], dtype=float)
+    stock_ion = stock_ion.reshape(len(plan.stock), len(ion_names))
+    n = plan.optics.noise
+    return Model(
+        species=tuple(s.name for s in sp),
+        stoich=stoich,
+        log_beta=np.array([s.log_beta for s in sp], dtype=float),
+        log_beta_sd=np.array([s.log_beta_sd for s in sp], dtype=float),
+        pH=comps.H.pH if comps.H is not None else None,
+        charges=charges,
+        sizes_angstrom=sizes,
+        absorbers=absorbers,
+        epsilon_M_cm=eps,
+        epsilon_rsd=rsd,
+        path_cm=plan.optics.path_cm,
+        stray_light=plan.optics.stray_light,
+        noise_k=(n.k1, n.k2, n.k3),
+        display_step=plan.optics.display_step,
+        linear_range=tuple(plan.optics.linear_range),
+        stock_ids=tuple(s.id for s in plan.stock),
+        stock_conc_M=np.array([[s.conc.get("M", 0.0), s.conc.get("L", 0.0)] for s in plan.stock], dtype=float),
+        stock_conc_rsd=np.array([s.conc_rsd for s in plan.stock], dtype=float),
+        ion_names=tuple(ion_names),
+        ion_charges=ion_z,
+        stock_ion_M=stock_ion,
+        activity_model=plan.medium.activity_model,
+        reference_ionic_strength_M=plan.medium.reference_ionic_strength_M,
+        temperature_C=plan.temperature_C,
+    )
+
+
+
+def plan_devices(plan: Plan) -> Devices:
+    """Look every dispenser (and the make-up flask) up in the glassware catalogue.
+
+    Raises
+    ------
+    PlanError
+        When the catalogue has no such device (naming the dispenser and the sizes it has).
+    """
+    items = []
+    for j, d in enumerate(plan.glassware.dispenser):
+        try:
+            items.append(catalogue.lookup(d.kind, d.capacity_mL, d.cls, d.tolerance_mL))
+        except catalogue.GlasswareError as exc:
+            raise PlanError(f"glassware.dispenser[{j}]", f"{exc}; or give tolerance = '...' to describe it") from None
+    dev = np.full(len(plan.stock), -1, dtype=int)
+    for k, s in enumerate(plan.stock):
+        for j, d in enumerate(plan.glassware.dispenser):
+            if s.id in d.stocks:
+                dev[k] = j
+                break
+    flask = None
+    if plan.glassware.make_up == "to-mark":
+        f = plan.glassware.flask
+        cap = f.capacity_mL if f else plan.glassware.tube_volume_mL
+        try:
+            flask = catalogue.lookup("flask", cap, f.cls if f else "A", f.tolerance_mL if f else None)
+        except catalogue.GlasswareError as exc:
+            raise PlanError("glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}") from None
+        if abs(flask.capacity_mL - plan.glassware.tube_volume_mL) > 1e-9 * flask.capacity_mL:
+            raise PlanError("glassware.flask",
+                            f"a {flask.capacity_mL:g} mL flask cannot make up {plan.glassware.tube_volume_mL:g} mL "
+                            f"tubes: make tube_volume and the flask capacity equal")
+    return Devices(tuple(items), dev, flask)
+
+
+
+def compile_bench(plan: Plan) -> Bench:
+    """The plan's glassware as numbers (dispensers looked up in the catalogue once)."""
+    g = plan.glassware
+    dil, bg = plan.diluent, plan.background
+    return Bench(
+        stock_ids=tuple(s.id for s in plan.stock),
+        devices=plan_devices(plan),
+        make_up=g.make_up,
+        tube_volume_mL=g.tube_volume_mL,
+        step_mL=g.step_mL,
+        min_volume_mL=g.min_volume_mL,
+        rinse_mL=g.rinse_mL,
+        dead_volume_mL=g.dead_volume_mL,
+        delta_T_C=g.delta_T_C,
+        diluent_id=dil.id if dil is not None else None,
+        background_id=bg.id if bg is not None else None,
+        fixed_mL=dict(plan.design.fixed),
+        on_hand_mL=np.array([np.nan if s.on_hand is None else s.on_hand for s in plan.stock], dtype=float),
+    )
+
+
+def compile_study(plan: Plan) -> Study:
+    """Compile ``plan`` into a :class:`Study` (model, bench, free parameters, design settings)."""
+    model = build_model(plan)
+    d = plan.design
+    return Study(
+        title=plan.title,
+        model=model,
+        bench=compile_bench(plan),
+        params=free_parameters(model, plan.target, blank_offset=d.blank_offset),
+        target=plan.target,
+        goal_se=d.goal_se,
+        analysis=d.analysis,
+        tubes=d.tubes,
+        criterion=d.criterion,
+        robust=d.robust,
+        ionic_strength_M=d.ionic_strength_M,
+        ionic_strength_tolerance=d.ionic_strength_tolerance,
+    )
+
+
+def error_budget(plan: Plan, model: Model, recipe: Recipe, state: TubeState,
+                 devices: Devices | None = None, *, delta_T_C: float | None = None) -> _budget.ErrorBudget:
+    """The error budget of ``recipe`` from a plan (public entry point; see
+    :func:`planner.uncertainty.budget.error_budget`, which takes the compiled bench)."""
+    bench = compile_bench(plan)
+    if devices is not None:
+        from dataclasses import replace
+
+        bench = replace(bench, devices=devices)
+    return _budget.error_budget(bench, model, recipe, state, delta_T_C=delta_T_C)
