@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 from importlib import resources
 from pathlib import Path
 
@@ -30,12 +29,3 @@ def teaching_plan():
 @pytest.fixture(params=["teaching", "stepwise", "proton"])
 def any_scenario(request):
     return parse_plan_text(scenario_text(request.param))
-
-
-def shared_data_dir() -> Path | None:
-    """../shared/data (or $KPLAN_SHARED_DATA) if present."""
-    env = os.environ.get("KPLAN_SHARED_DATA")
-    for cand in ([Path(env)] if env else []) + [ROOT.parent / "shared" / "data"]:
-        if cand.is_dir():
-            return cand
-    return None

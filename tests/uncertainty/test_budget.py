@@ -15,7 +15,7 @@ from planner.model.compiled import predict
 from planner.model.jacobians import absorbance_derivatives
 from planner.uncertainty.budget import glassware_problems, require_glassware_fits
 
-from .conftest import scenario_text
+from ..conftest import scenario_text
 
 
 def _fd_check(plan):

@@ -30,7 +30,7 @@ from planner.paper.safety import (
     validate_library,
 )
 
-from .conftest import scenario_text
+from ..conftest import scenario_text
 
 LIB = library()
 ALL_CODES = sorted({c for e in LIB for c in e.hazard_codes})

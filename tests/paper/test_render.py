@@ -24,7 +24,7 @@ from planner.jobs.demo import demo_recipe_csv
 from planner.jobs.stock_needs import stock_needs
 from planner.paper import figures, fmt, render, safety, sheets
 
-from .conftest import ROOT, scenario_text
+from ..conftest import ROOT, scenario_text
 
 pypdf = pytest.importorskip("pypdf")
 
@@ -436,7 +436,7 @@ def test_plan_order_and_levelling_reach_the_sheet(tmp_path):
     from planner.jobs.stock_needs import stock_needs
     from planner.paper.render import prep_sheet
 
-    from .conftest import scenario_text
+    from ..conftest import scenario_text
 
     text = scenario_text("stepwise").replace('[[stock]]\nid = "W"', '''[[stock]]
 id = "NA"

@@ -13,7 +13,7 @@ from planner.jobs.assess import assess
 from planner.jobs.checks import fraction_converted
 from planner.jobs.series import even_series
 
-from .conftest import scenario_text
+from ..conftest import scenario_text
 
 BASELINE_KEYS = {"title", "verdict", "parameters", "tubes", "checks"}
 TUBE_KEYS = {"tube", "volumes_mL", "total_M", "species_M", "absorbance", "absorbance_sd", "saturation",

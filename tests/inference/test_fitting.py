@@ -32,12 +32,13 @@ from planner.inference.lm import fit_many, fit_one
 
 
 def _nist_dir() -> Path:
-    """KPLAN_SHARED_DATA (the shared data folder, or the nist-strd folder itself), else ../shared/data."""
+    """The NIST StRD files shipped with the tests (tests/data/nist-strd, certification headers kept);
+    KPLAN_SHARED_DATA points elsewhere (the shared data folder, or the nist-strd folder itself)."""
     env = os.environ.get("KPLAN_SHARED_DATA")
     if env:
         base = Path(env)
         return base / "nist-strd" if (base / "nist-strd").is_dir() else base
-    return Path(__file__).resolve().parents[2] / "shared" / "data" / "nist-strd"
+    return Path(__file__).resolve().parents[1] / "data" / "nist-strd"
 
 
 @dataclass(frozen=True)

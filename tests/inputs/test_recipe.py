@@ -17,7 +17,7 @@ from planner.inputs.recipe import (
     totals_M,
 )
 
-from .conftest import scenario_text  # noqa: E402
+from ..conftest import scenario_text  # noqa: E402
 
 CSV = "tube,CU,DY\nT1,1.00,0.50\nT2,1.00,1.25\n"
 

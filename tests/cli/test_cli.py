@@ -11,7 +11,7 @@ import pytest
 from planner import cli
 from planner.inputs.files import write_atomic
 
-from .conftest import ROOT
+from ..conftest import ROOT
 
 
 def run(capsys, monkeypatch, *args) -> tuple[int, str, str]:

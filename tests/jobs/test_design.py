@@ -15,7 +15,7 @@ from planner.jobs.series import even_series
 from planner.uncertainty.budget import glassware_problems
 from planner.uncertainty.delivery import on_grid
 
-from .conftest import scenario_text
+from ..conftest import scenario_text
 
 # A trace of metal with the ligand in large excess, constant photometric noise (k3 only), no volumetric
 # or stock error: the hyperbolic model A = ε b M0 K x/(1 + K x) of Duggleby (1979). Invented numbers.
