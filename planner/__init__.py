@@ -8,18 +8,55 @@ The public API, in the order data flows: plan → model → assessment / design.
 >>> d = design(plan)                                   # doctest: +SKIP
 """
 
-from .inference.fit_result import FitResult
-from .inference.lm import fit_many
-from .inputs.plan import Plan, PlanError, load_plan, parse_plan_text
-from .inputs.recipe import Recipe, RecipeError, make_recipe, read_recipe_csv, recipe_to_csv
-from .jobs.assess import Assessment, assess
-from .jobs.compile import build_model, error_budget, plan_devices
-from .jobs.design import Design, DesignError, design
-from .jobs.series import even_series
-from .model.closed_forms import EquilibriumError, one_to_one
-from .model.compiled import Model, TubeState, predict
-from .model.speciation import Speciation, speciate
-from .uncertainty.budget import ErrorBudget
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING
+
+# Names are imported on first use (PEP 562), so that `kplan --help` and the light commands do not pay for
+# the whole numerical stack at start-up; `from planner import assess` works as usual.
+_WHERE = {
+    "FitResult": "inference.fit_result",
+    "fit_many": "inference.lm",
+    "Plan": "inputs.plan", "PlanError": "inputs.plan", "load_plan": "inputs.plan", "parse_plan_text": "inputs.plan",
+    "Recipe": "inputs.recipe", "RecipeError": "inputs.recipe", "make_recipe": "inputs.recipe",
+    "read_recipe_csv": "inputs.recipe", "recipe_to_csv": "inputs.recipe",
+    "Assessment": "jobs.assess", "assess": "jobs.assess",
+    "build_model": "jobs.compile", "error_budget": "jobs.compile", "plan_devices": "jobs.compile",
+    "Design": "jobs.design", "DesignError": "jobs.design", "design": "jobs.design",
+    "even_series": "jobs.series",
+    "EquilibriumError": "model.closed_forms", "one_to_one": "model.closed_forms",
+    "Model": "model.compiled", "TubeState": "model.compiled", "predict": "model.compiled",
+    "Speciation": "model.speciation", "speciate": "model.speciation",
+    "ErrorBudget": "uncertainty.budget",
+}
+
+if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs
+    from .inference.fit_result import FitResult
+    from .inference.lm import fit_many
+    from .inputs.plan import Plan, PlanError, load_plan, parse_plan_text
+    from .inputs.recipe import Recipe, RecipeError, make_recipe, read_recipe_csv, recipe_to_csv
+    from .jobs.assess import Assessment, assess
+    from .jobs.compile import build_model, error_budget, plan_devices
+    from .jobs.design import Design, DesignError, design
+    from .jobs.series import even_series
+    from .model.closed_forms import EquilibriumError, one_to_one
+    from .model.compiled import Model, TubeState, predict
+    from .model.speciation import Speciation, speciate
+    from .uncertainty.budget import ErrorBudget
+
+
+def __getattr__(name: str):
+    if name in _WHERE:
+        value = getattr(importlib.import_module(f".{_WHERE[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'planner' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_WHERE))
+
 
 __version__ = "0.1.0"
 
