@@ -213,7 +213,7 @@ def cramer_rao(J: np.ndarray, cov_A: np.ndarray) -> CramerRao:
     # a pseudo-inverse via SVD of WJ, so an unidentifiable direction shows as a huge SE, not a crash
     u, s, vt = np.linalg.svd(WJ, full_matrices=False)
     tol = s.max() * max(WJ.shape) * np.finfo(float).eps if s.size else 0.0
-    if np.any(s <= tol):
+    if s.size < P or np.any(s <= tol):  # fewer readings than parameters, or a flat direction
         cov = np.full((P, P), np.nan)
         se = np.full(P, np.inf)
         corr = np.full((P, P), np.nan)
@@ -284,7 +284,8 @@ class Profile:
 
     Attributes
     ----------
-    log_beta : (G,) grid of the target's log β (the guess ± PROFILE_SPAN included at the ends).
+    log_beta : (G,) grid of the target's log β, the "K → 0" and "K → ∞" ends included (see
+        :func:`_limit_ends`).
     delta_chi2 : (G,) Δχ² against the true value.
     low_unbounded, high_unbounded : True when the data cannot tell the truth from K -> 0 / K -> ∞
         (Δχ² below the 95 % threshold at the grid's end): K is then only bounded on the other side.
@@ -296,13 +297,42 @@ class Profile:
     high_unbounded: bool
 
 
+def _limit_ends(reading: ReadingModel, true_theta: np.ndarray) -> tuple[float, float]:
+    """log β of the target standing for "K → 0" and "K → ∞" in these tubes.
+
+    The guess ± PROFILE_SPAN, widened where that is not yet a limit at these concentrations: at the low
+    end the complex must be negligible in every tube, β_c C_max^(p+q−1) ≤ 1e-4, and at the high end
+    the limiting reagent bound in every tube, β_c C_min^(p+q−1) ≥ 1e6 (β_c the conditional constant,
+    C the larger / smaller positive total) [derived: the bound fraction of M + qL ⇌ MLq is about
+    β_c C^(p+q−1) when small and 1 − O((β_c C^(p+q−1))^(-1/2)) when large]. So a strong constant is
+    reported as bounded below, never as "cannot be told from K → 0" because guess − 10 still saturates.
+    """
+    from ..model.closed_forms import conditional_log_beta
+
+    params, model = reading.params, reading.model
+    t = params.target
+    j = params.index[t]
+    centre = float(true_theta[t])
+    low, high = centre - PROFILE_SPAN, centre + PROFILE_SPAN
+    p, q = model.stoich[j, 0], model.stoich[j, 1]
+    tot = np.asarray(reading.totals_M, dtype=float)
+    pos = tot[tot > 0]
+    if p + q >= 2 and pos.size:
+        shift = float(conditional_log_beta(model.log_beta, model.stoich, model.pH)[j] - model.log_beta[j])
+        order = p + q - 1
+        low = min(low, -4.0 - order * float(np.log10(pos.max())) - shift)
+        high = max(high, 6.0 - order * float(np.log10(pos.min())) - shift)
+    return max(low, LOG_BETA_RANGE[0]), min(high, LOG_BETA_RANGE[1])
+
+
 def profile(reading: ReadingModel, W: np.ndarray, true_theta: np.ndarray, *, n_grid: int = 25) -> Profile:
     """Profile Δχ² over the target's log β; nuisance parameters refitted at every grid point."""
     params = reading.params
     t = params.target
     centre = true_theta[t]
     inner = centre + np.linspace(-3.0, 3.0, n_grid)
-    grid = np.concatenate([[centre - PROFILE_SPAN], inner, [centre + PROFILE_SPAN]])
+    low, high = _limit_ends(reading, true_theta)
+    grid = np.concatenate([[low], inner, [high]])
     y0 = reading.f(true_theta[None, :])[0]
     others = [p for p in range(params.size) if p != t]
     G = grid.size

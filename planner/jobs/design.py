@@ -309,6 +309,9 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
         raise DesignError("nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)")
     if crit == "target" and params.target < 0:
         raise DesignError(f"the target {study.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0")
+    if n < params.size:
+        raise DesignError(f"{n} tubes cannot determine the {params.size} fitted parameters "
+                          f"({', '.join(params.names)}): ask for at least {params.size} tubes")
     nodes = study.nodes(rob)
     notes: list[str] = []
     caps: dict[str, float] = {}

@@ -246,3 +246,9 @@ def test_coarse_then_fine_search_loses_nothing(teaching_text):
     d3 = design(three, seed=0)
     assert any("refined" in n for n in d3.notes)
     assert value(three, d3) <= value(two, design(two, seed=0)) + 1e-6
+
+
+def test_too_few_tubes_for_the_parameters(teaching_plan):
+    # one tube cannot determine log β and ε together (the assessment calls it undeterminable): refuse
+    with pytest.raises(DesignError, match="cannot determine the 2 fitted parameters"):
+        design(teaching_plan, tubes=1)
