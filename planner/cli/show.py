@@ -115,6 +115,17 @@ def print_design(d, p) -> None:
         for a, b, c in d.se_across:
             t.add_row(f"{a:.2f}", fmt.sig(b, 2), fmt.sig(c, 2))
         out.print(t)
+    mc = d.model_check
+    if mc is not None:
+        t = Table(title=f"Model check (weight {mc.weight:g}): would the data reveal a left-out complex?")
+        for c in ("if the system also formed", "designed recipe", "target-only design"):
+            t.add_column(c, justify="right")
+        for g, tonly in mc.detection:
+            t.add_row(escape(g.alternative), f"{g.power:.0%}", f"{tonly.power:.0%}")
+        out.print(t)
+        out.print(f"share of simulated experiments whose χ² test rejects the main model; the check costs "
+                  f"×{fmt.sig(mc.se_cost_ratio, 3)} in SE(log β[{target}]) "
+                  f"({fmt.sig(mc.se_target_only, 2)} → {fmt.sig(mc.se_guarded, 2)}), {mc.moves} tubes moved")
     bad = [c for c in s["checks"] if c["status"] != "pass"]
     for c in bad:
         out.print(f"[yellow]{c['id']}[/yellow]: {escape(c['message'])}")

@@ -35,6 +35,9 @@ class Study:
     robust : whether designs average over the guesses' uncertainty.
     ionic_strength_M : the ionic strength designed tubes are levelled to (None: the highest candidate's).
     ionic_strength_tolerance : allowed relative deviation from it.
+    alternatives : (name, model) pairs: the main model with one more species each, which a recipe's data
+        should be able to tell from the main model (empty: no model check).
+    check_weight : weight of the model check in the design criterion (0: precision of the target only).
     """
 
     title: str
@@ -49,6 +52,8 @@ class Study:
     robust: bool
     ionic_strength_M: float | None
     ionic_strength_tolerance: float
+    alternatives: tuple[tuple[str, Model], ...] = ()
+    check_weight: float = 0.0
 
     def __repr__(self) -> str:
         return f"Study({self.title!r}, target={self.target}, params={list(self.params.names)}, {self.bench!r})"

@@ -122,6 +122,17 @@ class Species(_Strict):
         return v
 
 
+class Alternative(_Strict):
+    """A species the main model leaves out, which the design should be able to detect (e.g. ML2)."""
+
+    name: str = Field(min_length=1)
+    formula: dict[str, int]
+    log_beta: float
+    epsilon: float | None = Field(default=None, ge=0)
+
+    _formula = field_validator("formula")(Species._formula.__func__)
+
+
 class Epsilon(_Strict):
     value: float = Field(ge=0)
     rsd: float = Field(default=0.0, ge=0)
@@ -277,6 +288,9 @@ class Design(_Strict):
     ionic_strength_M: Conc | None = Field(default=None, alias="ionic_strength")
     ionic_strength_tolerance: float = Field(default=0.02, gt=0, lt=1)
     analysis: Literal["global", "double-reciprocal", "one-to-one"] = "global"
+    check: Literal["auto", "none"] = "auto"
+    check_weight: float = Field(default=0.25, ge=0, lt=1)
+    alternative: list[Alternative] = Field(default_factory=list)
 
 
 class Plan(_Strict):
@@ -307,6 +321,14 @@ class Plan(_Strict):
                     f"species[{i}].formula",
                     "uses H but the plan has no [components.H]: add H = { pH = ... } under [components]",
                 )
+        alt_names = [a.name for a in self.design.alternative]
+        for i, alt in enumerate(self.design.alternative):
+            key = f"design.alternative[{i}]"
+            if alt.name in reserved or alt.name in names or alt_names.count(alt.name) > 1:
+                raise PlanError(f"{key}.name", f"'{alt.name}' is already a component or species: give the "
+                                "alternative species a name of its own, e.g. 'ML2'")
+            if alt.formula.get("H", 0) and self.components.H is None:
+                raise PlanError(f"{key}.formula", "uses H but the plan has no [components.H]")
         absorbers = set(names) | {"M", "L"}
         for key in self.optics.epsilon:
             if key not in absorbers:

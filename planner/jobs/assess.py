@@ -210,9 +210,10 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
 
 def assess_study(study: Study, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: int = 0,
                  at: Mapping[str, float] | None = None, precision: bool = True, profile_chi2: bool = True,
-                 progress: Callable[[int, int], None] | None = None) -> Assessment:
-    """:func:`assess` on a compiled plan (``profile_chi2=False`` skips the χ² profile, e.g. for the
-    design's comparisons, which use only the Cramér–Rao SE)."""
+                 model_check: bool = True, progress: Callable[[int, int], None] | None = None) -> Assessment:
+    """:func:`assess` on a compiled plan (``profile_chi2=False`` skips the χ² profile and
+    ``model_check=False`` the detection power of the plan's alternative models, e.g. for the design's
+    comparisons, which use only the Cramér–Rao SE)."""
     model, bench = study.model, study.bench
     lb_true = true_constants(model, at)
     state = expected_state(model, recipe, log_beta=lb_true)
@@ -251,10 +252,17 @@ def assess_study(study: Study, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, 
     check_list.extend(_stock_and_glassware_checks(bench, recipe))
     if cr is not None:
         check_list.append(_identifiability_check(params, cr, model, state))
+    extra = {}
+    if model_check and precision and study.alternatives and params.size and params.target >= 0:
+        from .model_check import POWER_TRIALS, model_check_result, recipe_detection
+
+        det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), min(trials, POWER_TRIALS))
+        check_list.append(model_check_result(det))
+        extra["model_check"] = [d.summary() for d in det]
     verdict, reason = _verdict(study, params, cr, mc, prof)
     check_list.sort(key=lambda c: -STATUSES.index(c.status))
     return Assessment(study.title, recipe, model, state, tuple(check_list), budget, params, true_theta, cr, mc,
-                      prof, verdict, reason, study.goal_se, study=study)
+                      prof, verdict, reason, study.goal_se, extra, study=study)
 
 
 def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingModel):

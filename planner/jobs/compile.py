@@ -16,6 +16,7 @@ from ..inputs.plan import Plan, PlanError, ion_charge
 from ..inputs.recipe import Recipe
 from ..model import optics
 from ..model.compiled import Model, TubeState
+from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
 from ..uncertainty import catalogue
 from ..uncertainty.bench import Bench, Devices
@@ -155,7 +156,23 @@ def compile_study(plan: Plan) -> Study:
         robust=d.robust,
         ionic_strength_M=d.ionic_strength_M,
         ionic_strength_tolerance=d.ionic_strength_tolerance,
+        alternatives=compile_alternatives(plan, model),
+        check_weight=d.check_weight if d.check != "none" else 0.0,
     )
+
+
+def compile_alternatives(plan: Plan, model: Model) -> tuple[tuple[str, Model], ...]:
+    """The models the design should be able to tell from the main one: the plan's
+    ``[[design.alternative]]`` entries, else (``check = "auto"``) a 1:2 and a 2:1 complex beside a single
+    1:1 complex (:func:`planner.model.variants.default_alternatives`)."""
+    d = plan.design
+    if d.check == "none":
+        return ()
+    target_eps = float(model.epsilon_M_cm[2 + model.index(plan.target)])
+    listed = [(a.name, (a.formula.get("M", 0), a.formula.get("L", 0), a.formula.get("H", 0)), a.log_beta,
+               target_eps if a.epsilon is None else a.epsilon) for a in d.alternative]
+    specs = listed or default_alternatives(model, plan.target)
+    return tuple((name, with_species(model, name, st, lb, eps)) for name, st, lb, eps in specs)
 
 
 def error_budget(plan: Plan, model: Model, recipe: Recipe, state: TubeState,

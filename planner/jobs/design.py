@@ -181,6 +181,7 @@ class Design:
     se_even : the same for the evenly spaced series of the same size.
     se_across : list of (true log β, SE of design, SE of even series) across the guess's range.
     notes : what the optimiser did that the user should know (coarse search, budget caps...).
+    model_check : the model check (:class:`planner.jobs.model_check.ModelCheck`), or None without one.
     """
 
     recipe: Recipe
@@ -198,6 +199,7 @@ class Design:
     target: str
     notes: tuple[str, ...] = field(default=())
     assessment_summary: dict = field(default_factory=dict, hash=False)
+    model_check: object | None = field(default=None, compare=False)
 
     def __repr__(self) -> str:
         return (f"Design({self.recipe.n_tubes} tubes, {self.criterion}, robust={self.robust}, "
@@ -225,11 +227,15 @@ class Design:
             "se_across_guess": [{"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across],
             "notes": list(self.notes),
         })
+        if self.model_check is not None:
+            out["model_check"] = self.model_check.summary()
         return out
 
 
-def _information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: str, *, volumetric: bool = True):
-    """Whitened Jacobian rows F (G, C, 1, P') and prior M0 (P', P') for every candidate and node."""
+def _information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: str, *, volumetric: bool = True,
+                      with_sd: bool = False):
+    """Whitened Jacobian rows F (G, C, 1, P') and prior M0 (P', P') for every candidate and node (and,
+    with ``with_sd``, the independent sd (G, C) each row was whitened by)."""
     model, params = study.model, study.params
     rec = cand.recipe
     tot = totals_M(rec, model.stock_conc_M)
@@ -267,6 +273,8 @@ def _information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: s
     else:
         F = Fth
         M0 = None
+    if with_sd:
+        return F[:, :, None, :], M0, st, band, sd
     return F[:, :, None, :], M0, st, band
 
 
@@ -281,7 +289,7 @@ def _range_mask(model: Model, st, weights: np.ndarray, band: np.ndarray) -> np.n
 
 
 def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None, robust: bool | None = None,
-           seed: int = 0, volumetric: bool = True, starts: int = 8) -> Design:
+           seed: int = 0, volumetric: bool = True, starts: int = 8, check_model: bool | None = None) -> Design:
     """Choose each tube's volumes to resolve the target constant as precisely as possible.
 
     Parameters
@@ -289,16 +297,19 @@ def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None
     tubes, criterion, robust : override the plan's design keys.
     seed : seed of the random starts of the exchange algorithm.
     volumetric : include delivery and stock errors (False: photometric noise only — for analytic checks).
+    check_model : guard against the plan's alternative models (default: the plan's ``design.check``);
+        False gives the target-optimal design alone.
 
     The plan is compiled once (:func:`planner.jobs.compile.compile_study`); see :func:`design_study`.
     """
     return design_study(compile_study(plan), tubes=tubes, criterion=criterion, robust=robust, seed=seed,
-                        volumetric=volumetric, starts=starts)
+                        volumetric=volumetric, starts=starts, check_model=check_model)
 
 
 def design_study(study: Study, *, tubes: int | None = None, criterion: str | None = None,
-                 robust: bool | None = None, seed: int = 0, volumetric: bool = True, starts: int = 8) -> Design:
-    """:func:`design` on a compiled plan."""
+                 robust: bool | None = None, seed: int = 0, volumetric: bool = True, starts: int = 8,
+                 check_model: bool | None = None) -> Design:
+    """:func:`design` on a compiled plan (``check_model`` overrides the plan's model check)."""
     n = int(tubes or study.tubes)
     crit = criterion or study.criterion
     if crit not in CRITERIA:
@@ -316,7 +327,8 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
     notes: list[str] = []
     caps: dict[str, float] = {}
     for _attempt in range(4):
-        rec, ex, ap, n_grid, n_feas, coarse = _solve(study, nodes, crit, n, seed, caps, volumetric, starts)
+        rec, ex, ap, n_grid, n_feas, coarse, final = _solve(study, nodes, crit, n, seed, caps, volumetric,
+                                                             starts)
         if coarse:
             notes.append(coarse)
         over = _budget_overruns(study, rec)
@@ -330,11 +342,21 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
     else:
         raise DesignError("the stock budget cannot be met: make more of "
                           + ", ".join(_budget_overruns(study, rec)) + " (on_hand) or use fewer tubes")
+    check = None
+    use_check = study.check_weight > 0 if check_model is None else bool(check_model)
+    if use_check and study.alternatives and crit == "target":
+        from .model_check import guard
+
+        check = guard(study, *final, rec, volumetric=volumetric, seed=seed)
+        if _budget_overruns(study, check.recipe):
+            notes.append("the model-check design would overrun a stock on hand: kept the target-only design")
+        else:
+            rec = check.recipe
     a = assess_study(study, rec, trials=0)
     even = even_series_for(study, n)
     se_d = float(a.target_se) if a.target_se is not None else float("nan")
     # the comparisons need only the Cramér–Rao SE: skip their χ² profiles
-    ae = assess_study(study, even, trials=0, profile_chi2=False)
+    ae = assess_study(study, even, trials=0, profile_chi2=False, model_check=False)
     se_e = float(ae.target_se) if ae.target_se is not None else float("nan")
     across = []
     t = study.target
@@ -343,12 +365,14 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
     if sd > 0:
         for k in (-2, -1, 0, 1, 2):
             val = float(model.log_beta[j] + k * sd)
-            sa = assess_study(study, rec, trials=0, at={t: val}, profile_chi2=False).target_se
-            sb = assess_study(study, even, trials=0, at={t: val}, profile_chi2=False).target_se
+            sa = assess_study(study, rec, trials=0, at={t: val}, profile_chi2=False,
+                              model_check=False).target_se
+            sb = assess_study(study, even, trials=0, at={t: val}, profile_chi2=False,
+                              model_check=False).target_se
             across.append((val, float(sa), float(sb)))
     eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
     return Design(rec, crit, rob, seed, n_grid, n_feas, ex, ap, min(eff, 1.0), se_d, se_e, tuple(across), t,
-                  tuple(notes), a.summary())
+                  tuple(notes), a.summary(), check)
 
 
 def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts):
@@ -362,20 +386,21 @@ def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts):
         cand = candidate_tubes(study, step_mL=g.step_mL * factor, caps_mL=caps)
         coarse_note = (f"searched a {g.step_mL * factor:g} mL grid first ({cand.n_grid} candidates), then refined "
                        f"on the {g.step_mL:g} mL grid near the chosen tubes")
-    ex, ap, rec, n_feas, support = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts)
+    ex, ap, rec, n_feas, support, final = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts)
     n_grid = cand.n_grid
     if factor > 1:
         # refine on the fine grid around the chosen tubes, re-centring until the support settles
         base = cand
         for _ in range(3):
             fine = _neighbourhood(study, base, support, factor, caps)
-            ex, ap, rec, n_feas, new_support = _exact_on(study, nodes, crit, n, seed, fine, volumetric, starts)
+            ex, ap, rec, n_feas, new_support, final = _exact_on(study, nodes, crit, n, seed, fine, volumetric,
+                                                                starts)
             n_grid = fine.n_grid
             moved = not np.array_equal(fine.recipe.volumes_mL[new_support], base.recipe.volumes_mL[support])
             base, support = fine, new_support
             if not moved:
                 break
-    return rec, ex, ap, n_grid, n_feas, coarse_note
+    return rec, ex, ap, n_grid, n_feas, coarse_note, final
 
 
 def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts):
@@ -402,14 +427,18 @@ def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts):
             f"over the guess's range, and they cannot determine every fitted parameter ({exc}). Use more "
             f"dilute stocks or smaller fixed volumes if readings run high, a longer path if they run low, "
             f"or hold more parameters fixed (rsd = 0)") from None
-    chosen = np.repeat(idx, ex.counts)
+    out = recipe_from_counts(study, cand, idx, ex.counts)
+    return ex, ap, out, int(ok.sum()), idx[np.flatnonzero(ex.counts)], (cand, idx, ex.counts)
+
+
+def recipe_from_counts(study: Study, cand: Candidates, idx: np.ndarray, counts: np.ndarray) -> Recipe:
+    """The recipe of ``counts`` tubes at candidates ``idx``, ordered the way a bench series is laid out."""
+    chosen = np.repeat(idx, counts)
     rec = cand.recipe
     vols = {sid: rec.column(sid)[chosen] for sid in study.bench.dispensed_ids(rec)}
-    # order tubes by the designed stock volumes, the way a bench series is laid out
     order = np.lexsort([vols[s] for s in reversed(cand.designed_ids)])
     vols = {k: v[order] for k, v in vols.items()}
-    out = study.bench.make_recipe(vols)
-    return ex, ap, out, int(ok.sum()), idx[np.flatnonzero(ex.counts)]
+    return study.bench.make_recipe(vols)
 
 
 def _neighbourhood(study: Study, coarse: Candidates, support: np.ndarray, factor, caps) -> Candidates:
