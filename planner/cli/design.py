@@ -25,8 +25,11 @@ def design(
         "--robust/--no-robust", help="average over the guesses' uncertainty (overrides design.robust)")] = None,
     seed: Annotated[int, typer.Option(help="seed of the exchange algorithm's random starts")] = 0,
     as_json: Annotated[bool, typer.Option("--json", help="print the design summary as JSON")] = False,
+    after: Annotated[Path | None, typer.Option(
+        "--after", help="readings so far (recipe CSV + absorbance): fit them and design the next tubes")] = None,
 ) -> None:
-    """Choose tube volumes on the glassware's grid that resolve K as precisely as possible."""
+    """Choose tube volumes on the glassware's grid that resolve K as precisely as possible
+    (with --after: the next tubes, given what the readings so far taught)."""
     from ..inputs.files import write_atomic
     from ..inputs.recipe import recipe_to_csv
     from ..jobs.design import design as run_design
@@ -34,6 +37,8 @@ def design(
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
     p = load_plan(plan)
+    if after is not None:
+        return _next_batch(p, after, out_dir, tubes, robust, seed, as_json)
     d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
     summary = d.summary()
     if out_dir is not None:
@@ -43,5 +48,39 @@ def design(
         print(json.dumps(summary, indent=2))
         return
     print_design(d, p)
+    if out_dir is not None:
+        out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'design.json'}")
+
+
+def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, as_json: bool) -> None:
+    """``kplan design --after``: fit the readings so far, then design the next tubes or say to stop."""
+    from rich.markup import escape
+
+    from ..inputs.files import write_atomic
+    from ..inputs.readings import read_readings_csv
+    from ..inputs.recipe import recipe_to_csv
+    from ..jobs.compile import compile_study
+    from ..jobs.sequential import next_batch
+    from ..paper import fmt
+
+    study = compile_study(p)
+    nb = next_batch(study, read_readings_csv(after, p), tubes=tubes, seed=seed, robust=robust)
+    summary = nb.design.summary() if nb.design is not None and not nb.stop else {}
+    summary["sequential"] = nb.summary()
+    if out_dir is not None and nb.design is not None and not nb.stop:
+        write_atomic(out_dir / "recipe.csv", recipe_to_csv(nb.design.recipe, p))
+        write_atomic(out_dir / "design.json", json.dumps(summary, indent=2) + "\n")
+    if as_json:
+        print(json.dumps(summary, indent=2))
+        return
+    out.print(f"[bold]{escape(p.title)}[/bold] — after {nb.fit.recipe.n_tubes} readings")
+    for n, e, se_ in zip(nb.fit.names, nb.fit.estimate, nb.fit.se, strict=True):
+        out.print(f"  {escape(n)} = {fmt.sig(float(e), 4)} ± {fmt.sig(float(se_), 2)}")
+    if nb.stop:
+        out.print(f"[yellow]stop:[/yellow] {escape(nb.reason)}")
+        return
+    out.print(f"[bold]{escape(nb.reason)}[/bold]")
+    out.rule(f"the next {nb.design.recipe.n_tubes} tubes")
+    print_design(nb.design, p)
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'design.json'}")

@@ -308,8 +308,13 @@ def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None
 
 def design_study(study: Study, *, tubes: int | None = None, criterion: str | None = None,
                  robust: bool | None = None, seed: int = 0, volumetric: bool = True, starts: int = 8,
-                 check_model: bool | None = None) -> Design:
-    """:func:`design` on a compiled plan (``check_model`` overrides the plan's model check)."""
+                 check_model: bool | None = None, prior_tubes: Recipe | None = None) -> Design:
+    """:func:`design` on a compiled plan (``check_model`` overrides the plan's model check).
+
+    ``prior_tubes`` are tubes measured before: their information (whitened rows in the same parameters
+    and nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete
+    it (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.sequential`.
+    """
     n = int(tubes or study.tubes)
     crit = criterion or study.criterion
     if crit not in CRITERIA:
@@ -328,7 +333,7 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
     caps: dict[str, float] = {}
     for _attempt in range(4):
         rec, ex, ap, n_grid, n_feas, coarse, final = _solve(study, nodes, crit, n, seed, caps, volumetric,
-                                                             starts)
+                                                             starts, prior_tubes)
         if coarse:
             notes.append(coarse)
         over = _budget_overruns(study, rec)
@@ -347,7 +352,7 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
     if use_check and study.alternatives and crit == "target":
         from .model_check import guard
 
-        check = guard(study, *final, rec, volumetric=volumetric, seed=seed)
+        check = guard(study, *final, rec, volumetric=volumetric, seed=seed, prior=prior_tubes)
         if _budget_overruns(study, check.recipe):
             notes.append("the model-check design would overrun a stock on hand: kept the target-only design")
         else:
@@ -375,7 +380,7 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
                   tuple(notes), a.summary(), check)
 
 
-def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts):
+def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts, prior=None):
     g = study.bench
     cand = candidate_tubes(study, caps_mL=caps)
     coarse_note = ""
@@ -386,7 +391,7 @@ def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts):
         cand = candidate_tubes(study, step_mL=g.step_mL * factor, caps_mL=caps)
         coarse_note = (f"searched a {g.step_mL * factor:g} mL grid first ({cand.n_grid} candidates), then refined "
                        f"on the {g.step_mL:g} mL grid near the chosen tubes")
-    ex, ap, rec, n_feas, support, final = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts)
+    ex, ap, rec, n_feas, support, final = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts, prior)
     n_grid = cand.n_grid
     if factor > 1:
         # refine on the fine grid around the chosen tubes, re-centring until the support settles
@@ -394,7 +399,7 @@ def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts):
         for _ in range(3):
             fine = _neighbourhood(study, base, support, factor, caps)
             ex, ap, rec, n_feas, new_support, final = _exact_on(study, nodes, crit, n, seed, fine, volumetric,
-                                                                starts)
+                                                                starts, prior)
             n_grid = fine.n_grid
             moved = not np.array_equal(fine.recipe.volumes_mL[new_support], base.recipe.volumes_mL[support])
             base, support = fine, new_support
@@ -403,9 +408,9 @@ def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts):
     return rec, ex, ap, n_grid, n_feas, coarse_note, final
 
 
-def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts):
+def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts, prior=None):
     model, params = study.model, study.params
-    F, M0, st, band = _information_rows(study, cand, nodes, crit, volumetric=volumetric)
+    F, M0, st, band = rows_with_prior(study, cand, prior, nodes, crit, volumetric=volumetric)
     ok = _range_mask(model, st, nodes.weights, band)
     if not ok.any():
         lo, hi = model.linear_range
@@ -429,6 +434,32 @@ def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts):
             f"or hold more parameters fixed (rsd = 0)") from None
     out = recipe_from_counts(study, cand, idx, ex.counts)
     return ex, ap, out, int(ok.sum()), idx[np.flatnonzero(ex.counts)], (cand, idx, ex.counts)
+
+
+def rows_with_prior(study: Study, cand: Candidates, prior: Recipe | None, nodes: Nodes, crit: str, *,
+                    volumetric: bool = True, with_sd: bool = False):
+    """:func:`_information_rows` of the candidates, with the information of tubes measured before
+    (``prior``) added to M0. Both are computed in one call, so they share the nuisance columns."""
+    if prior is None:
+        return _information_rows(study, cand, nodes, crit, volumetric=volumetric, with_sd=with_sd)
+    C = cand.recipe.n_tubes
+    r = cand.recipe
+    union = Recipe((*r.tubes, *(f"prior {t}" for t in prior.tubes)), r.stock_ids,
+                   np.vstack([r.volumes_mL, prior.volumes_mL]), np.concatenate([r.total_volume_mL,
+                                                                               prior.total_volume_mL]))
+    out = _information_rows(study, Candidates(union, cand.designed_ids, union.n_tubes, cand.step_mL), nodes, crit,
+                            volumetric=volumetric, with_sd=True)
+    F, M0, st, band, sd = out
+    Fp = F[:, C:, 0, :]
+    info = np.einsum("gnp,gnq->gpq", Fp, Fp)                                # (G, P', P')
+    M0 = info + (0.0 if M0 is None else M0)
+    st = _take_rows(st, C)
+    res = (F[:, :C], M0, st, band[:, :C])
+    return (*res, sd[:, :C]) if with_sd else res
+
+
+def _take_rows(st: TubeState, C: int) -> TubeState:
+    return TubeState(*(getattr(st, f)[:, :C] for f in TubeState.__dataclass_fields__))
 
 
 def recipe_from_counts(study: Study, cand: Candidates, idx: np.ndarray, counts: np.ndarray) -> Recipe:

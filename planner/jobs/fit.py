@@ -15,6 +15,7 @@ from scipy.stats import chi2 as chi2_dist
 
 from ..inference.lm import fit_many
 from ..inference.precision import ReadingModel, cramer_rao, unpack, whitening
+from ..inference.study import Study
 from ..inputs.plan import Plan
 from ..inputs.readings import Readings
 from ..inputs.recipe import Recipe, RecipeError
@@ -75,7 +76,11 @@ class Fit:
 
 def fit_readings(plan: Plan, readings: Readings) -> Fit:
     """Fit measured readings with the plan's model and full error budget."""
-    study = compile_study(plan)
+    return fit_study(compile_study(plan), readings)
+
+
+def fit_study(study: Study, readings: Readings) -> Fit:
+    """:func:`fit_readings` on a compiled plan."""
     model, params, bench = study.model, study.params, study.bench
     rec = readings.recipe
     if params.size == 0:

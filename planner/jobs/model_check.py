@@ -97,18 +97,22 @@ def recipe_detection(study: Study, recipe: Recipe, rng: np.random.Generator, tri
 
 
 def guard(study: Study, cand, idx: np.ndarray, counts: np.ndarray, target_recipe: Recipe, *,
-          volumetric: bool = True, seed: int = 0, trials: int = POWER_TRIALS) -> ModelCheck:
+          volumetric: bool = True, seed: int = 0, trials: int = POWER_TRIALS,
+          prior: Recipe | None = None) -> ModelCheck:
     """Move tubes of the target-optimal design (``counts`` at candidates ``idx`` of ``cand``) to the
     compound criterion, and report what it bought and cost."""
-    from .design import Candidates, _information_rows, recipe_from_counts
+    from .design import Candidates, recipe_from_counts, rows_with_prior
 
     model, params = study.model, study.params
     sub = Candidates(cand.recipe.__class__(
         tuple(cand.recipe.tubes[i] for i in idx), cand.recipe.stock_ids, cand.recipe.volumes_mL[idx],
         cand.recipe.total_volume_mL[idx]), cand.designed_ids, idx.size, cand.step_mL)
-    F, M0, _, _, sd = _information_rows(study, sub, study.nodes(False), "target", volumetric=volumetric,
-                                        with_sd=True)
+    # tubes measured before count towards precision (their misfit is not tracked)
+    F, M0, _, _, sd = rows_with_prior(study, sub, prior, study.nodes(False), "target", volumetric=volumetric,
+                                      with_sd=True)
     F, sd = F[0, :, 0, :], sd[0]
+    if M0 is not None and M0.ndim == 3:
+        M0 = M0[0]
     rec = sub.recipe
     tot = totals_M(rec, model.stock_conc_M)
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
