@@ -6,6 +6,7 @@ import json
 from pathlib import Path
 from typing import Annotated
 
+import numpy as np
 import typer
 from rich.markup import escape
 from rich.table import Table
@@ -20,33 +21,60 @@ def fit(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     readings: Annotated[Path, typer.Argument(help="CSV: the recipe columns plus an 'absorbance' column")],
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+    exclude: Annotated[str | None, typer.Option(
+        "--exclude", metavar="TUBES", help="tubes to leave out, comma-separated, e.g. T3,T7")] = None,
+    keep_out_of_range: Annotated[bool, typer.Option(
+        "--keep-out-of-range", help="fit readings outside the linear range too (left out by default)")] = False,
 ) -> None:
-    """Fit measured readings with the plan's model, and compare the result with the plan's promise."""
+    """Fit measured readings with the plan's model, and compare the result with the plan's promise.
+    Exit code 1 when the readings do not determine the constants."""
     from ..inputs.readings import read_readings_csv
     from ..jobs.fit import fit_readings
 
     p = load_plan(plan)
-    f = fit_readings(p, read_readings_csv(readings, p))
+    skip = tuple(x.strip() for x in (exclude or "").split(",") if x.strip())
+    f = fit_readings(p, read_readings_csv(readings, p), exclude=skip, keep_out_of_range=keep_out_of_range)
     if as_json:
         print(json.dumps(f.summary(), indent=2))
-        return
-    out.print(f"[bold]{escape(f.title)}[/bold] — fit of {f.recipe.n_tubes} readings")
-    if not f.converged:
-        out.print("[red]the fit did not converge: check the readings and the plan's guesses[/red]")
+    else:
+        _print_fit(f)
+    if not f.determined:
+        raise typer.Exit(1)
+
+
+def _print_fit(f) -> None:
+    out.print(f"[bold]{escape(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
+    for tube, why in f.excluded:
+        out.print(f"[yellow]left out[/yellow] {escape(tube)}: {escape(why)}")
+    if not f.determined:
+        out.print(f"[red]not determined:[/red] {escape(f.reason)}")
     t = Table(title="Fitted parameters")
-    for c in ("parameter", "estimate", "SE", "SE the plan promised"):
+    for c in ("parameter", "estimate", "SE", "95 % interval (profile)", "SE the plan promised"):
         t.add_column(c, justify="right")
     for n, e, se_, pr in zip(f.names, f.estimate, f.se, f.promised_se, strict=True):
-        t.add_row(n, fmt.sig(float(e), 4), fmt.sig(float(se_), 2), fmt.sig(float(pr), 2))
+        ci = "—"
+        if n == f"log_beta[{f.target}]" and f.profile_ci95 is not None:
+            lo, hi = f.profile_ci95
+            ci = f"{fmt.sig(lo, 4) if lo is not None else '(open)'} – {fmt.sig(hi, 4) if hi is not None else '(open)'}"
+        t.add_row(escape(n), fmt.sig(float(e), 4), fmt.sig(float(se_), 2), ci, fmt.sig(float(pr), 2))
     out.print(t)
-    verdict = ("the scatter matches the error model" if f.p_value > 0.05 else
-               "the scatter is larger than the error model predicts: look for a bad tube, drift or a wrong model")
-    out.print(f"χ² = {f.chi2:.2f} on {f.dof} degrees of freedom (p = {f.p_value:.2f}): {verdict}")
+    if f.dof >= 1 and f.determined:
+        out.print(f"χ² = {f.chi2:.2f} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, lower "
+                  f"tail p = {f.p_low:.2f}): {f.chi2_verdict}")
+    elif f.determined:
+        out.print(f.chi2_verdict)
     t = Table(title="Residuals")
     for c in ("tube", "measured A", "fitted A", "residual", "standardised"):
         t.add_column(c, justify="right")
     for i, tube in enumerate(f.recipe.tubes):
         z = float(f.standardised[i])
-        zt = f"{z:+.2f}" if abs(z) < 3 else f"[red]{z:+.2f}[/red]"
-        t.add_row(escape(tube), f"{f.absorbance[i]:.3f}", f"{f.fitted[i]:.3f}", f"{f.residual[i]:+.4f}", zt)
+        if not f.used[i]:
+            zt = "left out"
+        elif not np.isfinite(z):
+            zt = "—"
+        else:
+            zt = f"{z:+.2f}" if abs(z) <= 3 else f"[red]{z:+.2f} outlier[/red]"
+        fa = f"{f.fitted[i]:.3f}" if np.isfinite(f.fitted[i]) else "—"
+        rs = f"{f.residual[i]:+.4f}" if np.isfinite(f.residual[i]) else "—"
+        t.add_row(escape(tube), f"{f.absorbance[i]:.3f}", fa, rs, zt)
     out.print(t)

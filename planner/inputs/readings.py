@@ -23,9 +23,33 @@ class Readings:
     absorbance: np.ndarray
 
 
+NOTE_COLUMNS = ("note", "notes", "comment", "comments")
+
+
+def _dialect(text: str, source: str) -> tuple[str, bool]:
+    """The field separator and whether numbers use a decimal comma.
+
+    A spreadsheet set to a decimal-comma locale writes ``;`` between fields and ``0,512`` for numbers;
+    such a file is read as it was meant. A ``,``-separated file with ``;`` in its header is ambiguous
+    and refused.
+    """
+    first = next((ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")), "")
+    if ";" in first and "," not in first:
+        return ";", True
+    if ";" in first:
+        raise RecipeError(f"{source} header", "mixes ';' and ',' between fields: save the file as CSV with "
+                          "',' between fields and '.' as the decimal point")
+    return ",", False
+
+
 def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Readings:
-    """Readings CSV: the recipe columns (tube, stock volumes in mL) plus an ``absorbance`` column."""
-    rows = list(csv.reader(io.StringIO(text)))
+    """Readings CSV: the recipe columns (tube, stock volumes in mL) plus an ``absorbance`` column.
+
+    A ``note`` column (free text) is allowed and ignored; a ``;``-separated file with decimal commas (as
+    spreadsheets write in such locales) is read as such.
+    """
+    delim, decimal_comma = _dialect(text, source)
+    rows = list(csv.reader(io.StringIO(text), delimiter=delim))
     rows = [r for r in rows if r and any(c.strip() for c in r) and not r[0].lstrip().startswith("#")]
     if not rows:
         raise RecipeError(source, "empty: expected a header 'tube,<stock>,...,absorbance'")
@@ -34,17 +58,28 @@ def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Rea
     if col is None:
         raise RecipeError(f"{source} header", f"no absorbance column: add one named {' or '.join(ABSORBANCE_COLUMNS)}")
     j = header.index(col)
+    drop = {k for k, h in enumerate(header) if h.lower() in NOTE_COLUMNS} | {j}
     a = []
+    body = []
     for ln, r in enumerate(rows[1:], start=2):
         if len(r) != len(header):
             raise RecipeError(f"{source} line {ln}", f"expected {len(header)} fields, got {len(r)}")
+        if decimal_comma:
+            r = [r[0]] + [c.replace(",", ".") if k not in drop - {j} else c for k, c in enumerate(r) if k > 0]
         try:
-            a.append(float(r[j]))
+            value = float(r[j])
         except ValueError:
             raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is not an absorbance; leave no blanks") from None
-    recipe_text = "\n".join(",".join(c for k, c in enumerate(r) if k != j) for r in rows)
-    rec = parse_recipe_csv(recipe_text, plan, source)
-    return Readings(rec, np.array(a))
+        if not np.isfinite(value):
+            raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is not a finite absorbance")
+        a.append(value)
+        body.append([c for k, c in enumerate(r) if k not in drop])
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow([h for k, h in enumerate(header) if k not in drop])
+    w.writerows(body)
+    rec = parse_recipe_csv(buf.getvalue(), plan, source)
+    return Readings(rec, np.array(a, dtype=float))
 
 
 def read_readings_csv(path: str | Path, plan: Plan) -> Readings:
