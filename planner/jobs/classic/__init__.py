@@ -1,0 +1,20 @@
+"""Classic hand-made series (Job's method, complete-conversion calibration, mole-ratio), planned on the
+plan's glassware and judged by the same model and error budget as every other job."""
+
+from __future__ import annotations
+
+from ...inputs.plan import Plan
+from .common import SeriesResult
+from .job import continuous_variation
+
+# the methods ``kplan series --method`` offers; a method is listed only when it is finished
+METHODS = ("job",)
+
+__all__ = ["METHODS", "SeriesResult", "continuous_variation", "run_series"]
+
+
+def run_series(plan: Plan, method: str, *, points: int | None = None, total_M: float | None = None) -> SeriesResult:
+    """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
+    if method == "job":
+        return continuous_variation(plan, points=points, total_M=total_M)
+    raise ValueError(f"unknown method {method!r}")
