@@ -132,6 +132,20 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
     return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
 
 
+def corrected_curve(model, total_M: float, x: np.ndarray) -> np.ndarray:
+    """Corrected absorbance Y(x) at total ``total_M`` for metal mole fractions ``x`` (no other ions),
+    vectorised over x; the physics of the curve without the glassware."""
+    x = np.asarray(x, dtype=float)
+    tot = np.stack([x * total_M, (1 - x) * total_M], axis=-1)
+    return corrected(model, predict(model, tot, warn=False))
+
+
+def extremum_at(model, total_M: float, n: int = 999) -> float:
+    """Metal mole fraction of the curve's extremum at total ``total_M`` (fine grid + parabola)."""
+    x = np.linspace(0.5 / n, 1 - 0.5 / n, n)
+    return _extremum(x, corrected_curve(model, total_M, x))[0]
+
+
 def _require_equimolar(plan: Plan, m_id: str, cM: float, l_id: str, cL: float) -> None:
     if abs(cM / cL - 1.0) <= EQUIMOLAR_RTOL:
         return

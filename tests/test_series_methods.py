@@ -1,0 +1,180 @@
+"""kplan series: the classic hand-made series checked against published results and closed forms.
+
+Every plan here is an invented scenario (metal "Q", ligand "Z"); numbers are chosen for the checks.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+
+import numpy as np
+import pytest
+
+from planner import cli
+from planner.inputs.files import write_atomic
+from planner.inputs.plan import PlanError, parse_plan_text
+from planner.inputs.recipe import parse_recipe_csv
+from planner.jobs.classic import common, job
+from planner.jobs.classic import rivals as rv
+
+PLAN = """
+title = "Invented metal Q with invented ligand Z (test scenario)"
+[components]
+M = {{ label = "Q2+", charge = 2 }}
+L = {{ label = "Z", charge = 0 }}
+{species}
+[medium]
+activity_model = "none"
+[optics]
+wavelength_nm = 500
+path_cm = 1.0
+linear_range = [0.05, 1.2]
+noise = {{ k1 = 0.002, k2 = 0.0, k3 = 0.001 }}
+[optics.epsilon]
+{epsilon}
+[[stock]]
+id = "MS"
+conc = {{ M = "{cM}" }}
+conc_rsd = 0.002
+on_hand = "500 mL"
+[[stock]]
+id = "LS"
+conc = {{ L = "{cL}" }}
+conc_rsd = 0.002
+on_hand = "500 mL"
+[[stock]]
+id = "W"
+diluent = true
+[glassware]
+tube_volume = "10.00 mL"
+flask = {{ capacity = "10 mL", class = "A" }}
+step = "0.05 mL"
+min_volume = "0.50 mL"
+[[glassware.dispenser]]
+kind = "burette"
+capacity = "10 mL"
+stocks = ["MS", "LS"]
+"""
+
+
+def species(*items: tuple[str, int, int, float, float]) -> str:
+    return "\n".join(f'[[species]]\nname = "{n}"\nformula = {{ M = {p}, L = {q} }}\nlog_beta = {lb}\n'
+                     f"log_beta_sd = {sd}" for n, p, q, lb, sd in items)
+
+
+def make_plan(spec: str, eps: str, cM: str = "2.0 mM", cL: str = "2.0 mM"):
+    return parse_plan_text(PLAN.format(species=spec, epsilon=eps, cM=cM, cL=cL))
+
+
+def run(capsys, monkeypatch, *args) -> tuple[int, str, str]:
+    monkeypatch.setattr(sys, "argv", ["kplan", *map(str, args)])
+    monkeypatch.setenv("COLUMNS", "200")
+    code = 0
+    try:
+        cli.main()
+    except SystemExit as exc:
+        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+    cap = capsys.readouterr()
+    return code, cap.out, cap.err
+
+
+def strict_json(text: str):
+    def bad(name):
+        raise ValueError(f"non-standard JSON constant {name}")
+    return json.loads(text, parse_constant=bad)
+
+
+# -- Job's method ---------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("n", [1, 2, 3])
+@pytest.mark.parametrize("eps", ['X = {{ value = 800.0 }}', 'X = {{ value = 3000.0 }}\nL = {{ value = 400.0 }}\nM = {{ value = 50.0 }}'])
+def test_job_extremum_at_one_over_n_plus_one(n, eps):
+    # source: Job 1928, Ann. Chim. 9:113 — a single ML_n puts the extremum at x_M = 1/(n+1); with the free
+    # reagents' absorbance subtracted (corrected Y) this holds for any ε
+    name = "ML" if n == 1 else f"ML{n}"
+    plan = make_plan(species((name, 1, n, 6.0 * n, 0.3)), eps.format().replace("X", name))
+    model = common.plan_model(plan)
+    x = job.extremum_at(model, 2e-3)  # K·C ≫ 1: β·C^n = 10^(6n)·(2e-3)^n ≥ 10^(3.3 n)
+    assert x == pytest.approx(1 / (n + 1), abs=0.004)
+
+
+def test_job_extremum_moves_to_half_as_concentration_falls_for_stepwise_ml2():
+    # derived: with ML and ML2 (stepwise K1, K2), at low C [ML] ≈ K1·M0·L0 and [ML2]/[ML] ≈ K2·L0 → 0, so
+    # Y ∝ x(1 − x) and the extremum → 0.5; as C rises ML2 takes over on the ligand side and the extremum moves
+    # toward 1/3 (a single ML2 keeps it at 1/3 for every K: the shift needs both complexes)
+    plan = make_plan(species(("ML", 1, 1, 4.0, 0.3), ("ML2", 1, 2, 8.0, 0.3)),
+                     "ML = { value = 500.0 }\nML2 = { value = 1500.0 }")
+    model = common.plan_model(plan)
+    totals = [1e-1, 1e-2, 1e-3, 1e-4, 1e-5, 1e-6]
+    xs = [job.extremum_at(model, c) for c in totals]
+    assert np.all(np.diff(xs) >= -1e-4)                         # moves toward 0.5 as C falls
+    assert xs[-1] == pytest.approx(0.5, abs=0.01)                # derived limit K·C → 0
+    assert xs[0] < 0.36                                         # near 1/3 when ML2 dominates (derived)
+
+
+def test_job_series_on_grid_with_rivals_separated():
+    plan = make_plan(species(("ML", 1, 1, 6.0, 0.3)), "ML = { value = 1000.0, rsd = 0.2 }")
+    r = job.continuous_variation(plan, points=9)
+    s = r.summary()
+    vols = r.recipe.volumes_mL[:, :2]
+    assert np.allclose(np.round(vols / 0.05), vols / 0.05)                    # on the 0.05 mL grid
+    assert np.ptp(vols.sum(axis=1)) < 1e-9                                    # constant total
+    assert s["extremum_mole_fraction"] == pytest.approx(0.5, abs=0.01)        # source: Job 1928
+    seps = {d["model"]: d["separation_sd"] for d in s["discrimination"]}
+    assert set(seps) == {"1:2", "2:1", "1:1+1:2"}
+    assert seps["1:2"] > 10 and seps["2:1"] > 10                              # a sharp 1:1 triangle
+    assert max(t["absorbance"] for t in s["tubes"]) <= 1.2                    # default total stays in range
+
+
+def test_rival_fit_recovers_own_model():
+    # derived: fitting the plan's own stoichiometry to its own noise-free readings leaves no residual
+    plan = make_plan(species(("ML", 1, 1, 4.5, 0.3)), "ML = { value = 1000.0 }\nL = { value = 100.0 }")
+    model = common.plan_model(plan)
+    x = np.linspace(0.1, 0.9, 9)
+    tot = np.stack([x * 2e-3, (1 - x) * 2e-3], axis=1)
+    st = common.predict(model, tot, warn=False)
+    W = np.diag(1 / np.full(9, 0.003))
+    fit = rv.fit_rival(model, "1:1", ((1, 1),), tot, np.zeros((9, 0)), st.absorbance_true, W)
+    assert fit.separation_sd < 0.05
+    assert fit.log_beta[0] == pytest.approx(4.5, abs=0.01)
+    assert fit.epsilon_M_cm[0] == pytest.approx(1000.0, rel=1e-3)
+
+
+def test_job_needs_equimolar_stocks_exit_2(tmp_path, capsys, monkeypatch):
+    plan = tmp_path / "p.toml"
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 5.0, 0.3)), epsilon="ML = { value = 900.0 }",
+                                   cM="2.0 mM", cL="4.0 mM"))
+    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "job")
+    assert code == 2 and "equimolar" in err and "dilute LS" in err and "50.00 mL" in err
+    assert len(err.strip().splitlines()) == 1
+    with pytest.raises(PlanError):
+        job.continuous_variation(parse_plan_text(plan.read_text()))
+
+
+def test_job_cli_writes_recipe_that_assess_accepts(tmp_path, capsys, monkeypatch):
+    plan = tmp_path / "p.toml"
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 6.0, 0.3)),
+                                   epsilon="ML = { value = 1000.0, rsd = 0.2 }", cM="2.0 mM", cL="2.0 mM"))
+    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--out", tmp_path / "o", "--json")
+    data = strict_json(out)
+    assert code == (0 if data["answers"] else 1), err
+    assert data["method"] == "job" and len(data["tubes"]) == 9
+    assert {"tube", "volumes_mL", "absorbance", "absorbance_sd"} <= set(data["tubes"][0])
+    assert strict_json((tmp_path / "o" / "series.json").read_text()) == data
+    text = (tmp_path / "o" / "recipe.csv").read_text()
+    assert parse_recipe_csv(text, parse_plan_text(plan.read_text())).n_tubes == 9
+    code, out, err = run(capsys, monkeypatch, "assess", plan, tmp_path / "o" / "recipe.csv", "--trials", "0")
+    assert code == 0, err
+
+
+def test_series_bad_method_and_total_exit_2(tmp_path, capsys, monkeypatch):
+    plan = tmp_path / "p.toml"
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 6.0, 0.3)), epsilon="ML = { value = 1000.0 }",
+                                   cM="2.0 mM", cL="2.0 mM"))
+    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "nope")
+    assert code == 2 and "--method" in err
+    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--total", "3 furlongs")
+    assert code == 2 and "--total" in err
+    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--total", "50 mM")
+    assert code == 2 and "--total" in err and len(err.strip().splitlines()) == 1
