@@ -6,6 +6,7 @@ Every plan here is an invented scenario (metal "Q", ligand "Z"); numbers are cho
 from __future__ import annotations
 
 import json
+import math
 import sys
 
 import numpy as np
@@ -15,7 +16,7 @@ from planner import cli
 from planner.inputs.files import write_atomic
 from planner.inputs.plan import PlanError, parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv
-from planner.jobs.classic import common, job
+from planner.jobs.classic import calibration, common, job
 from planner.jobs.classic import rivals as rv
 
 PLAN = """
@@ -178,3 +179,71 @@ def test_series_bad_method_and_total_exit_2(tmp_path, capsys, monkeypatch):
     assert code == 2 and "--total" in err
     code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--total", "50 mM")
     assert code == 2 and "--total" in err and len(err.strip().splitlines()) == 1
+
+
+# -- the "complete conversion" calibration tube ------------------------------------------------------
+
+def weak_plan(log_k: float = 2.5, sd: float = 0.2, cM: str = "0.5 M"):
+    return make_plan(species(("ML", 1, 1, log_k, sd)), "ML = { value = 1000.0, rsd = 0.1 }\nM = { value = 1.0 }",
+                     cM=cM, cL="2 mM")
+
+
+def test_fraction_converted_matches_closed_form():
+    plan = weak_plan()
+    r = calibration.conversion_tube(plan)
+    s = r.summary()
+    M0, L0, K = s["excess_conc_M"], s["limiting_conc_M"], 10**2.5
+    # derived: f = ((M+L+1/K) − sqrt((M+L+1/K)² − 4ML))/(2L), ligand limiting
+    sq = M0 + L0 + 1 / K
+    f = (sq - math.sqrt(sq * sq - 4 * M0 * L0)) / (2 * L0)
+    assert s["fraction_converted"]["at_guess"] == pytest.approx(f, rel=1e-6)
+    assert calibration.fraction_converted_1to1(M0, L0, K) == pytest.approx(f, rel=1e-12)
+    # the worst case is the weak end of the guess's range, log K − 2 sd (derived: f rises with K)
+    K_lo = 10 ** (2.5 - 2 * 0.2)
+    assert s["fraction_converted"]["worst"] == pytest.approx(calibration.fraction_converted_1to1(M0, L0, K_lo),
+                                                             rel=1e-6)
+
+
+def test_excess_needed_over_the_guess_range_closed_form():
+    plan = weak_plan()
+    s = calibration.conversion_tube(plan).summary()
+    L0 = s["limiting_conc_M"]
+    K_lo = 10 ** (2.5 - 2 * 0.2)
+    for f in (0.99, 0.999):
+        # derived from K = [ML]/([M][L]): M0 = f/((1 − f)·K) + f·L0, at the weakest K of the range
+        want = f / ((1 - f) * K_lo) + f * L0
+        assert s["excess_needed_M"][f"{f:g}"] == pytest.approx(want, rel=1e-4)
+
+
+def test_domain_worked_case_and_hand_bias():
+    # domain notes §5 (derived there from the 1:1 formula): K = 140 M⁻¹ with 0.1 M excess metal converts ~93 %
+    f = calibration.fraction_converted_1to1(0.1, 1e-5, 140.0)
+    assert f == pytest.approx(14 / 15, abs=2e-4)                 # derived: K·x/(1 + K·x) in the excess limit
+    b = calibration._hand_bias(f)
+    assert b["epsilon"] == pytest.approx(f - 1)                  # derived: ε_hand = f·ε
+    assert b["K_dilute"] == pytest.approx(1 / f - 1)             # derived: K_hand/K → 1/f as y → 0
+    y = 0.2
+    assert (1 - y) / (f - y) - 1 == pytest.approx(0.09, abs=0.01)  # "about +9 %" [domain notes §5, derived]
+
+
+def test_calibration_strong_complex_answers_and_weak_one_does_not(tmp_path, capsys, monkeypatch):
+    strong = make_plan(species(("ML", 1, 1, 6.0, 0.3)), "ML = { value = 1000.0, rsd = 0.1 }",
+                       cM="20 mM", cL="2 mM")
+    r = calibration.conversion_tube(strong)
+    assert r.answers and r.summary()["fraction_converted"]["worst"] >= 0.99
+    weak = calibration.conversion_tube(weak_plan(log_k=1.5, sd=0.3, cM="0.1 M"))
+    assert not weak.answers
+    ids = {c.id: c for c in weak.checks}
+    assert ids["conversion"].status == "fail" and "global" in ids["global-fit"].message
+    plan = tmp_path / "w.toml"
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 1.5, 0.3)),
+                                   epsilon="ML = { value = 1000.0 }\nM = { value = 1.0 }", cM="0.1 M", cL="2 mM"))
+    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "calibration", "--json",
+                         "--out", tmp_path / "c")
+    data = strict_json(out)
+    assert code == 1 and data["method"] == "calibration"
+    assert set(data["excess_needed_M"]) == {"0.99", "0.999"} and "fraction_converted" in data
+    code, _, err = run(capsys, monkeypatch, "assess", plan, tmp_path / "c" / "recipe.csv", "--trials", "0")
+    assert code == 0, err
+    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "calibration", "--limiting", "X")
+    assert code == 2 and "--limiting" in err

@@ -24,11 +24,20 @@ def series(
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
     points: Annotated[int | None, typer.Option(help="job: number of mole fractions (default 9)", min=1)] = None,
     total: Annotated[str | None, typer.Option(
-        help="job: total [M]0 + [L]0 per tube, e.g. '2 mM' (default: the largest that stays in the linear range)")
+        help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest in the "
+             "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range)")
     ] = None,
+    limiting: Annotated[str | None, typer.Option(
+        help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)")] = None,
+    excess: Annotated[str | None, typer.Option(
+        help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts 99.9 %, "
+             "else 99 %, over the guess's range)")] = None,
+    tubes: Annotated[int | None, typer.Option(help="calibration: replicate calibration tubes (default 1)", min=1)
+                     ] = None,
 ) -> None:
-    """Plan a classic series (Job's continuous variation, …) on the plan's glassware; exit 0 when it can
-    answer its question, 1 when it cannot."""
+    """Plan a classic series on the plan's glassware — Job's continuous variation (job), the 'complete
+    conversion' tube (calibration) — and say whether it can answer its question: exit 0 when it can, 1 when
+    it cannot."""
     from ..inputs.files import write_atomic
     from ..inputs.recipe import recipe_to_csv
     from ..inputs.units import UnitError, parse_quantity
@@ -36,14 +45,17 @@ def series(
 
     if method not in METHODS:
         raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
-    total_M = None
-    if total is not None:
+    def conc(name: str, value: str | None) -> float | None:
+        if value is None:
+            return None
         try:
-            total_M = parse_quantity(total, "concentration")
+            return parse_quantity(value, "concentration")
         except UnitError as exc:
-            raise UserError(f"--total {total}: {exc}") from None
+            raise UserError(f"{name} {value}: {exc}") from None
+
+    total_M, excess_M = conc("--total", total), conc("--excess", excess)
     p = load_plan(plan)
-    r = run_series(p, method, points=points, total_M=total_M)
+    r = run_series(p, method, points=points, total_M=total_M, tubes=tubes, limiting=limiting, excess_M=excess_M)
     summary = r.summary()
     text = json.dumps(summary, indent=2, allow_nan=False)
     if out_dir is not None:

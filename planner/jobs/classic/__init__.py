@@ -4,17 +4,22 @@ plan's glassware and judged by the same model and error budget as every other jo
 from __future__ import annotations
 
 from ...inputs.plan import Plan
+from .calibration import conversion_tube
 from .common import SeriesResult
 from .job import continuous_variation
 
 # the methods ``kplan series --method`` offers; a method is listed only when it is finished
-METHODS = ("job",)
+METHODS = ("job", "calibration")
 
-__all__ = ["METHODS", "SeriesResult", "continuous_variation", "run_series"]
+__all__ = ["METHODS", "SeriesResult", "continuous_variation", "conversion_tube", "run_series"]
 
 
-def run_series(plan: Plan, method: str, *, points: int | None = None, total_M: float | None = None) -> SeriesResult:
+def run_series(plan: Plan, method: str, *, points: int | None = None, total_M: float | None = None,
+               tubes: int | None = None, limiting: str | None = None, excess_M: float | None = None,
+               ) -> SeriesResult:
     """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
     if method == "job":
         return continuous_variation(plan, points=points, total_M=total_M)
+    if method == "calibration":
+        return conversion_tube(plan, limiting=limiting, total_M=total_M, excess_M=excess_M, tubes=tubes or 1)
     raise ValueError(f"unknown method {method!r}")

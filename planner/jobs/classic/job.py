@@ -95,16 +95,18 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
     # rivals at the planned total, then (if needed) the total that would separate them
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     fits = _rival_fits(model, st.totals_M, ions, st.absorbance_true, a.budget.total)
-    worst = min(fits, key=lambda f: f.separation_sd) if fits else None
     needed = None
-    if worst is not None and worst.separation_sd < rv.SEPARATION_WANTED:
-        needed = _total_that_separates(plan, model, recipe, ions, C)
+    close = [f for f in fits if f.separation_sd < rv.SEPARATION_WANTED]
+    if close:
+        # search for the stoichiometric rivals first: the nested one may never separate at one wavelength
+        nested = all(f.nested for f in close)
+        needed = _total_that_separates(plan, model, recipe, ions, C, nested)
 
     checks = [Check("equimolar", "pass", f"{m_id} and {l_id} are both {fmt_conc(cM)}: equimolar"),
               range_check(model, st, recipe.tubes, low_is_warning=True, fix_high=_fix_high(plan, n, vs, cM)),
               _extremum_check(model, x_ext, C)]
-    if worst is not None:
-        checks.append(_discrimination_check(model, fits, worst, C, needed))
+    if fits:
+        checks.append(_discrimination_check(model, fits, C, needed))
     extra = {
         "stocks": {"metal": m_id, "ligand": l_id, "conc_M": cM},
         "total_M": C,
@@ -121,8 +123,10 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
         "curve": {"mole_fraction": xf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
     }
     columns = {"x_M": xm, "Y": y, "±2sd": 2 * sd}
-    ok = (f"the curve tells {rv.plan_label(model)} from every rival by ≥ {rv.SEPARATION_WANTED:g} sd "
-          f"at C = {fmt_conc(C)}; extremum at x_M = {x_ext:.3f}")
+    far = [f for f in fits if not f.nested]
+    ok = (f"the curve tells {rv.plan_label(model)} from "
+          + (", ".join(f.model for f in far) or "its rivals")
+          + f" by ≥ {rv.SEPARATION_WANTED:g} sd at C = {fmt_conc(C)}; extremum at x_M = {x_ext:.3f}")
     notes = [f"total concentration C = [M]0 + [L]0 = {fmt_conc(C)} in every tube ({vs:g} mL of stock)",
              f"extremum of the corrected absorbance at x_M = {x_ext:.3f} (Y = {y_ext:.3f})",
              "separation from rival models (whitened residual of their best fit): "
@@ -209,28 +213,30 @@ def _rival_fits(model, totals, ions, data, cov) -> list[rv.RivalFit]:
     return [rv.fit_rival(model, lab, pq, totals, ions, data, W) for lab, pq in rv.rivals_for(model)]
 
 
-def _separation_at(plan, model, recipe, ions, scale: float, devices) -> tuple[float, float]:
-    """Smallest rival separation and highest reading with both stocks ``scale`` times as concentrated."""
+def _separation_at(plan, model, recipe, ions, scale: float, devices, nested: bool) -> tuple[float, float]:
+    """Smallest separation of the (non-)nested rivals and the highest reading with both stocks ``scale``
+    times as concentrated."""
     ms = scaled_model(model, scale)
     tot = totals_M(recipe, ms.stock_conc_M)
     st = predict(ms, tot, ions, warn=False)
     cov = error_budget(plan, ms, recipe, st, devices).total
-    fits = _rival_fits(ms, tot, ions, st.absorbance_true, cov)
-    return min(f.separation_sd for f in fits), float(st.absorbance.max())
+    W = whitening(cov)
+    fits = [rv.fit_rival(ms, lab, pq, tot, ions, st.absorbance_true, W) for lab, pq in rv.rivals_for(ms)]
+    return min(f.separation_sd for f in fits if f.nested == nested), float(st.absorbance.max())
 
 
-def _total_that_separates(plan, model, recipe, ions, C: float) -> tuple[float, float] | None:
-    """Smallest total (×2 steps, then bisection in log) at which every rival is ≥ SEPARATION_WANTED sd
-    away; None when even ×128 does not do it."""
+def _total_that_separates(plan, model, recipe, ions, C: float, nested: bool) -> tuple[float, float] | None:
+    """Smallest total (×2 steps, then bisection in log) at which every rival of the kind (nested or
+    not) is ≥ SEPARATION_WANTED sd away; None when even ×128 does not do it."""
     devices = plan_devices(plan)
     lo = 1.0
     for s in SEARCH_SCALES:
-        sep, amax = _separation_at(plan, model, recipe, ions, float(s), devices)
+        sep, amax = _separation_at(plan, model, recipe, ions, float(s), devices, nested)
         if sep >= rv.SEPARATION_WANTED:
             hi, hi_a = float(s), amax
             for _ in range(3):
                 mid = float(np.sqrt(lo * hi))
-                sep_m, a_m = _separation_at(plan, model, recipe, ions, mid, devices)
+                sep_m, a_m = _separation_at(plan, model, recipe, ions, mid, devices, nested)
                 if sep_m >= rv.SEPARATION_WANTED:
                     hi, hi_a = mid, a_m
                 else:
@@ -252,22 +258,31 @@ def _extremum_check(model, x_ext: float, C: float) -> Check:
                  f"read the stoichiometry from the fit, not from the peak")
 
 
-def _discrimination_check(model, fits, worst, C, needed) -> Check:
+def _discrimination_check(model, fits, C, needed) -> Check:
+    """Fail when a rival of another stoichiometry stays within SEPARATION_WANTED sd; warn when only a
+    nested rival (the plan's complexes plus a material extra one) does."""
     seps = ", ".join(f"{f.model} {f.separation_sd:.1f} sd" for f in fits)
     own = rv.plan_label(model)
-    if worst.separation_sd >= rv.SEPARATION_WANTED:
+    close = [f for f in fits if f.separation_sd < rv.SEPARATION_WANTED]
+    if not close:
         return Check("discrimination", "pass", f"at C = {fmt_conc(C)} the curve tells {own} from its rivals "
                      f"above the noise: {seps} (≥ {rv.SEPARATION_WANTED:g} sd wanted)")
-    msg = (f"at C = {fmt_conc(C)} the curve cannot tell {own} from {worst.model} ({seps}; "
-           f"{rv.SEPARATION_WANTED:g} sd wanted)")
+    names = " or ".join(f.model for f in close)
+    msg = f"at C = {fmt_conc(C)} the curve cannot tell {own} from {names} ({seps}; {rv.SEPARATION_WANTED:g} sd wanted)"
     if needed is None:
-        msg += ("; no total up to 128× the planned one does: fit all complexes globally over a designed "
-                "series (kplan design) instead")
+        msg += "; no total up to 128× the planned one does"
+        alt = ": fit all complexes globally over a designed series (kplan design) instead of reading the stoichiometry off this curve"
     else:
+        alt = " — or fit all complexes globally over a designed series (kplan design)"
         c_need, a_max = needed
         msg += f"; a total of {fmt_conc(c_need)} would (readings up to A = {a_max:.2f}"
         hi = model.linear_range[1]
         if a_max > hi:
             msg += f", above the linear range: use a {model.path_cm * hi / a_max:.2g} cm path or another wavelength"
         msg += ")"
-    return Check("discrimination", "fail", msg)
+    if all(f.nested for f in close):
+        return Check("discrimination", "warn", msg + (
+            f". The rival only adds a complex holding ≥ {rv.MATERIAL_SHARE:.0%} of the metal somewhere, and one "
+            f"that absorbs like {own} per metal hides in any single-wavelength curve: read a second wavelength "
+            f"or fit a designed series with both complexes (kplan design) before excluding it"))
+    return Check("discrimination", "fail", msg + alt)

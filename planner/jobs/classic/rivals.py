@@ -7,9 +7,13 @@ Golub & Pereyra 1973, SIAM J. Numer. Anal. 10:413). The separation is the smalle
 norm ‖W (A_plan − A_rival)‖ with Wᵀ W = Σ⁻¹, Σ the readings' covariance from the whole error budget:
 the noncentrality (in sd) of a test of the plan's model against the rival, computed on noise-free data.
 
-A rival that contains every complex of the plan plus more would fit the plan's data exactly by letting
-the extra complexes vanish; such a rival only counts while each extra complex holds at least
-``MATERIAL_SHARE`` of the metal in some tube (below that the two models are the same for practice).
+A rival that contains every complex of the plan plus more (a *nested* rival) would fit the plan's data
+exactly by letting the extra complexes vanish; such a rival only counts while each extra complex holds at
+least ``MATERIAL_SHARE`` of the metal in some tube (below that the two models are the same for practice).
+Even so, an extra complex that absorbs like the plan's per metal (ML2 beside ML on the metal-limited
+side) changes a single-wavelength curve very little: a nested rival that stays close is a limit of the
+measurement, reported as a warning, while a rival of another stoichiometry that stays close means the
+series cannot answer its question.
 """
 
 from __future__ import annotations
@@ -44,15 +48,17 @@ class RivalFit:
     separation_sd : whitened residual norm of the best fit (sd units).
     log_beta : best constants of the rival's complexes (log10).
     epsilon_M_cm : their absorptivities at the best fit.
+    nested : the rival holds every complex of the plan and more (its extras held to ≥ MATERIAL_SHARE).
     """
 
     model: str
     separation_sd: float
     log_beta: tuple[float, ...]
     epsilon_M_cm: tuple[float, ...]
+    nested: bool = False
 
     def summary(self) -> dict:
-        return {"model": self.model, "separation_sd": self.separation_sd,
+        return {"model": self.model, "separation_sd": self.separation_sd, "nested": self.nested,
                 "log_beta": list(self.log_beta), "epsilon_M_cm": list(self.epsilon_M_cm)}
 
 
@@ -103,7 +109,8 @@ def fit_rival(model: Model, label: str, pq, totals_M: np.ndarray, ions_M: np.nda
         if cand[0] <= best[0]:
             best = cand
     sep, lb, eps = best
-    return RivalFit(label, float(sep), tuple(float(x) for x in lb), tuple(float(x) for x in eps))
+    return RivalFit(label, float(sep), tuple(float(x) for x in lb), tuple(float(x) for x in eps),
+                    bool(extra.any()))
 
 
 def _grid_pass(rm: Model, pq, axes, totals_M, ions_M, data, W, extra):
