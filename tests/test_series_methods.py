@@ -16,7 +16,7 @@ from planner import cli
 from planner.inputs.files import write_atomic
 from planner.inputs.plan import PlanError, parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv
-from planner.jobs.classic import calibration, common, job
+from planner.jobs.classic import calibration, common, job, mole_ratio
 from planner.jobs.classic import rivals as rv
 
 PLAN = """
@@ -247,3 +247,58 @@ def test_calibration_strong_complex_answers_and_weak_one_does_not(tmp_path, caps
     assert code == 0, err
     code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "calibration", "--limiting", "X")
     assert code == 2 and "--limiting" in err
+
+
+# -- mole-ratio -------------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("name,q,log_beta", [("ML", 1, 7.0), ("ML2", 2, 13.0)])
+def test_mole_ratio_break_at_stoichiometric_ratio_for_strong_k(name, q, log_beta):
+    # source: the mole-ratio method's premise — for a strong complex ML_q the two lines meet at L/M = q
+    plan = make_plan(species((name, 1, q, log_beta, 0.2)), f"{name} = {{ value = 1000.0 }}\nL = {{ value = 30.0 }}",
+                     cM="2 mM", cL=f"{2 * q} mM")
+    s = mole_ratio.mole_ratio_series(plan).summary()
+    assert s["break_ratio"] == pytest.approx(q, rel=0.02)
+    assert s["break_ratio_expected"] == q and s["resolvable"] is True and s["answers"] is True
+
+
+def test_mole_ratio_shortfall_matches_one_over_sqrt_kc():
+    # derived: for 1:1 at fixed metal C the curve at L/M = 1 falls short of the complete-conversion corner
+    # H = b·Δε·C by x/C with K·x² = C − x, i.e. (√(1 + 4KC) − 1)/(2KC) ≈ 1/√(KC). The code measures against
+    # the curve's own tangents: the initial one has slope H·KC/(1 + KC) (at r → 0 the metal is all free), the
+    # final one is the plateau H far past the break, so its corner is H·KC/(1 + KC) at r = 1.
+    K, C = 10**5.0, 1e-3
+    plan = make_plan(species(("ML", 1, 1, 5.0, 0.2)), "ML = { value = 1000.0 }")
+    model = common.plan_model(plan)
+    rf = np.linspace(0, 50, 50001)         # far past the break: the end tangent is the plateau
+    tot = np.stack([np.full(rf.size, C), rf * C], axis=1)
+    yf = common.corrected(model, common.predict(model, tot, warn=False))
+    frac, _ = mole_ratio._shortfall(rf, yf, 1.0, 0.001)
+    short = (math.sqrt(1 + 4 * K * C) - 1) / (2 * K * C)
+    assert short == pytest.approx(1 / math.sqrt(K * C), rel=0.1)
+    corner = K * C / (1 + K * C)
+    assert frac == pytest.approx((corner - (1 - short)) / corner, rel=2e-3)
+
+
+def test_mole_ratio_weak_complex_not_resolvable_and_concentration_offered():
+    plan = make_plan(species(("ML", 1, 1, 3.5, 0.2)), "ML = { value = 1000.0 }", cM="2 mM", cL="2 mM")
+    r = mole_ratio.mole_ratio_series(plan)
+    s = r.summary()
+    assert not r.answers and s["resolvable"] is False and s["shortfall_fraction"] > 0.1
+    # the concentration offered makes K·C of order 100 (derived: shortfall ≤ 10 % ⟺ K·C ≳ 80 for 1:1)
+    kc = 10**3.5 * s["conc_needed_M"]
+    assert 30 < kc < 300
+
+
+def test_mole_ratio_cli_reverse_and_recipe(tmp_path, capsys, monkeypatch):
+    plan = tmp_path / "p.toml"
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 7.0, 0.3)), epsilon="ML = { value = 1000.0 }",
+                                   cM="2.0 mM", cL="2.0 mM"))
+    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "mole-ratio", "--vary", "M", "--json",
+                         "--out", tmp_path / "m")
+    data = strict_json(out)
+    assert code == 0, err
+    assert data["fixed_reagent"] == "L" and data["break_ratio"] == pytest.approx(1.0, rel=0.02)
+    code, _, err = run(capsys, monkeypatch, "assess", plan, tmp_path / "m" / "recipe.csv", "--trials", "0")
+    assert code == 0, err
+    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "mole-ratio", "--vary", "Q")
+    assert code == 2 and "--vary" in err

@@ -22,10 +22,12 @@ def series(
     method: Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}")],
     out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and series.json")] = None,
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
-    points: Annotated[int | None, typer.Option(help="job: number of mole fractions (default 9)", min=1)] = None,
+    points: Annotated[int | None, typer.Option(
+        help="job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", min=1)] = None,
     total: Annotated[str | None, typer.Option(
         help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest in the "
-             "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range)")
+             "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range); "
+             "mole-ratio — the fixed reagent's (default: the largest in the linear range)")
     ] = None,
     limiting: Annotated[str | None, typer.Option(
         help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)")] = None,
@@ -34,10 +36,14 @@ def series(
              "else 99 %, over the guess's range)")] = None,
     tubes: Annotated[int | None, typer.Option(help="calibration: replicate calibration tubes (default 1)", min=1)
                      ] = None,
+    vary: Annotated[str | None, typer.Option(
+        help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)")] = None,
+    max_ratio: Annotated[float | None, typer.Option(
+        help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)")] = None,
 ) -> None:
     """Plan a classic series on the plan's glassware — Job's continuous variation (job), the 'complete
-    conversion' tube (calibration) — and say whether it can answer its question: exit 0 when it can, 1 when
-    it cannot."""
+    conversion' tube (calibration), the mole-ratio series (mole-ratio) — and say whether it can answer its
+    question: exit 0 when it can, 1 when it cannot."""
     from ..inputs.files import write_atomic
     from ..inputs.recipe import recipe_to_csv
     from ..inputs.units import UnitError, parse_quantity
@@ -55,7 +61,8 @@ def series(
 
     total_M, excess_M = conc("--total", total), conc("--excess", excess)
     p = load_plan(plan)
-    r = run_series(p, method, points=points, total_M=total_M, tubes=tubes, limiting=limiting, excess_M=excess_M)
+    r = run_series(p, method, points=points, total_M=total_M, tubes=tubes, limiting=limiting, excess_M=excess_M,
+                   vary=vary, max_ratio=max_ratio)
     summary = r.summary()
     text = json.dumps(summary, indent=2, allow_nan=False)
     if out_dir is not None:

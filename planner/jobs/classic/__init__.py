@@ -7,19 +7,22 @@ from ...inputs.plan import Plan
 from .calibration import conversion_tube
 from .common import SeriesResult
 from .job import continuous_variation
+from .mole_ratio import mole_ratio_series
 
 # the methods ``kplan series --method`` offers; a method is listed only when it is finished
-METHODS = ("job", "calibration")
+METHODS = ("job", "calibration", "mole-ratio")
 
-__all__ = ["METHODS", "SeriesResult", "continuous_variation", "conversion_tube", "run_series"]
+__all__ = ["METHODS", "SeriesResult", "continuous_variation", "conversion_tube", "mole_ratio_series", "run_series"]
 
 
 def run_series(plan: Plan, method: str, *, points: int | None = None, total_M: float | None = None,
                tubes: int | None = None, limiting: str | None = None, excess_M: float | None = None,
-               ) -> SeriesResult:
+               vary: str | None = None, max_ratio: float | None = None) -> SeriesResult:
     """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
     if method == "job":
         return continuous_variation(plan, points=points, total_M=total_M)
     if method == "calibration":
         return conversion_tube(plan, limiting=limiting, total_M=total_M, excess_M=excess_M, tubes=tubes or 1)
+    if method == "mole-ratio":
+        return mole_ratio_series(plan, vary=vary or "L", points=points, total_M=total_M, max_ratio=max_ratio)
     raise ValueError(f"unknown method {method!r}")

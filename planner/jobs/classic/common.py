@@ -204,6 +204,22 @@ def scaled_model(model: Model, scale: float, comps=(0, 1)) -> Model:
     return replace(model, stock_conc_M=conc)
 
 
+def scaled_in_range(model: Model, recipe: Recipe, scale: float) -> tuple[Model, TubeState]:
+    """The recipe with both reagents ``scale`` times as concentrated and, where its readings would pass
+    the top of the linear range, the path shortened so the highest one sits at the top (absorbance is
+    proportional to the path; the noise then stays that of readings inside the range)."""
+    ms = scaled_model(model, scale)
+    tot = (recipe.volumes_mL @ ms.stock_conc_M) / recipe.total_volume_mL[:, None]
+    ions = tube_ions_M(ms, recipe.volumes_mL, recipe.total_volume_mL)
+    st = predict(ms, tot, ions, warn=False)
+    hi = model.linear_range[1]
+    top = float(st.absorbance_true.max())
+    if top > hi:
+        ms = replace(ms, path_cm=ms.path_cm * hi / top)
+        st = predict(ms, tot, ions, warn=False)
+    return ms, st
+
+
 def range_check(model: Model, state: TubeState, tubes, *, low_is_warning: bool,
                 fix_high: str = "lower the total concentration (--total) or use a shorter path") -> Check:
     """Readings inside the linear range: above it always fails (the curve's shape is bent); below it

@@ -16,7 +16,6 @@ import numpy as np
 
 from ...inference.precision import whitening
 from ...inputs.plan import Plan, PlanError
-from ...inputs.recipe import totals_M
 from ...model.compiled import predict, tube_ions_M
 from ...uncertainty.budget import error_budget, plan_devices
 from ..checks import Check
@@ -32,7 +31,7 @@ from .common import (
     predict_volumes,
     pure_stock,
     range_check,
-    scaled_model,
+    scaled_in_range,
     series_recipe,
     snap,
 )
@@ -116,7 +115,7 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
         "discrimination": [f.summary() for f in fits],
         "separation_wanted_sd": rv.SEPARATION_WANTED,
         "total_needed_M": needed[0] if needed else None,
-        "absorbance_max_at_total_needed": needed[1] if needed else None,
+        "path_cm_at_total_needed": needed[1] if needed else None,
         "series": [{"tube": t, "mole_fraction": float(xm[i]), "corrected_absorbance": float(y[i]),
                     "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])]}
                    for i, t in enumerate(recipe.tubes)],
@@ -214,34 +213,33 @@ def _rival_fits(model, totals, ions, data, cov) -> list[rv.RivalFit]:
 
 
 def _separation_at(plan, model, recipe, ions, scale: float, devices, nested: bool) -> tuple[float, float]:
-    """Smallest separation of the (non-)nested rivals and the highest reading with both stocks ``scale``
-    times as concentrated."""
-    ms = scaled_model(model, scale)
-    tot = totals_M(recipe, ms.stock_conc_M)
-    st = predict(ms, tot, ions, warn=False)
+    """Smallest separation of the (non-)nested rivals with both stocks ``scale`` times as concentrated
+    (path shortened where the readings would pass the linear range), and that path."""
+    ms, st = scaled_in_range(model, recipe, scale)
     cov = error_budget(plan, ms, recipe, st, devices).total
     W = whitening(cov)
-    fits = [rv.fit_rival(ms, lab, pq, tot, ions, st.absorbance_true, W) for lab, pq in rv.rivals_for(ms)]
-    return min(f.separation_sd for f in fits if f.nested == nested), float(st.absorbance.max())
+    fits = [rv.fit_rival(ms, lab, pq, st.totals_M, ions, st.absorbance_true, W) for lab, pq in rv.rivals_for(ms)]
+    return min(f.separation_sd for f in fits if f.nested == nested), float(ms.path_cm)
 
 
 def _total_that_separates(plan, model, recipe, ions, C: float, nested: bool) -> tuple[float, float] | None:
     """Smallest total (×2 steps, then bisection in log) at which every rival of the kind (nested or
-    not) is ≥ SEPARATION_WANTED sd away; None when even ×128 does not do it."""
+    not) is ≥ SEPARATION_WANTED sd away, with the path that keeps the readings in range; None when even
+    ×128 does not do it."""
     devices = plan_devices(plan)
     lo = 1.0
     for s in SEARCH_SCALES:
-        sep, amax = _separation_at(plan, model, recipe, ions, float(s), devices, nested)
+        sep, path = _separation_at(plan, model, recipe, ions, float(s), devices, nested)
         if sep >= rv.SEPARATION_WANTED:
-            hi, hi_a = float(s), amax
+            hi, hi_path = float(s), path
             for _ in range(3):
                 mid = float(np.sqrt(lo * hi))
-                sep_m, a_m = _separation_at(plan, model, recipe, ions, mid, devices, nested)
+                sep_m, path_m = _separation_at(plan, model, recipe, ions, mid, devices, nested)
                 if sep_m >= rv.SEPARATION_WANTED:
-                    hi, hi_a = mid, a_m
+                    hi, hi_path = mid, path_m
                 else:
                     lo = mid
-            return hi * C, hi_a
+            return hi * C, hi_path
         lo = float(s)
     return None
 
@@ -274,12 +272,10 @@ def _discrimination_check(model, fits, C, needed) -> Check:
         alt = ": fit all complexes globally over a designed series (kplan design) instead of reading the stoichiometry off this curve"
     else:
         alt = " — or fit all complexes globally over a designed series (kplan design)"
-        c_need, a_max = needed
-        msg += f"; a total of {fmt_conc(c_need)} would (readings up to A = {a_max:.2f}"
-        hi = model.linear_range[1]
-        if a_max > hi:
-            msg += f", above the linear range: use a {model.path_cm * hi / a_max:.2g} cm path or another wavelength"
-        msg += ")"
+        c_need, path = needed
+        msg += f"; a total of {fmt_conc(c_need)} would"
+        if path < model.path_cm * 0.999:
+            msg += f" (in a {path:.2g} cm cell, to keep the readings in the linear range)"
     if all(f.nested for f in close):
         return Check("discrimination", "warn", msg + (
             f". The rival only adds a complex holding ≥ {rv.MATERIAL_SHARE:.0%} of the metal somewhere, and one "
