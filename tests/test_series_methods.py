@@ -16,7 +16,7 @@ from planner import cli
 from planner.inputs.files import write_atomic
 from planner.inputs.plan import PlanError, parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv
-from planner.jobs.classic import calibration, common, job, mole_ratio
+from planner.jobs.classic import calibration, common, job, mole_ratio, survey
 from planner.jobs.classic import rivals as rv
 
 PLAN = """
@@ -302,3 +302,51 @@ def test_mole_ratio_cli_reverse_and_recipe(tmp_path, capsys, monkeypatch):
     assert code == 0, err
     code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "mole-ratio", "--vary", "Q")
     assert code == 2 and "--vary" in err
+
+
+# -- wavelength survey --------------------------------------------------------------------------------
+
+def band_plan(extra_bands: str = "", eps_ml: float = 1500.0):
+    eps = (f"ML = {{ value = {eps_ml}, rsd = 0.2 }}\n[optics.bands]\n"
+           f"ML = {{ peak_nm = 520, fwhm_nm = 100, epsilon_max = {eps_ml} }}\n" + extra_bands)
+    return make_plan(species(("ML", 1, 1, 3.0, 0.3)), eps, cM="2 mM", cL="20 mM")
+
+
+def test_survey_picks_band_maximum_when_readings_are_small():
+    # derived: with only the complex absorbing and every reading well below 0.434 (where σ_A/A is smallest,
+    # Ringbom 1939), SE(log β) ∝ σ_A/ε falls as ε rises, so the band maximum carries the most information
+    r = survey.wavelength_survey(band_plan())
+    s = r.summary()
+    assert s["wavelength_nm"] == pytest.approx(520, abs=1)
+    assert max(t["absorbance"] for t in s["tubes"]) < 0.434
+    assert r.answers
+
+
+def test_survey_moves_away_from_a_free_ligand_band():
+    # derived: a free ligand absorbing on the short side adds readings (noise) without information about K,
+    # and pushes the tubes out of the linear range there, so the best wavelength moves to the long side
+    r = survey.wavelength_survey(band_plan('L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n'))
+    s = r.summary()
+    assert s["wavelength_nm"] > 525
+    best = min((d for d in s["se_by_wavelength"] if d["in_range"]), key=lambda d: d["se"])
+    assert best["wavelength_nm"] == s["wavelength_nm"]
+
+
+def test_survey_without_bands_exit_2_and_cli_json(tmp_path, capsys, monkeypatch):
+    plan = tmp_path / "p.toml"
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 3.0, 0.3)), epsilon="ML = { value = 150.0 }",
+                                   cM="2 mM", cL="20 mM"))
+    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "survey")
+    assert code == 2 and "optics.bands" in err and len(err.strip().splitlines()) == 1
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 3.0, 0.3)), cM="2 mM", cL="20 mM",
+                                   epsilon="ML = { value = 1500.0, rsd = 0.2 }\n[optics.bands]\n"
+                                           "ML = { peak_nm = 520, fwhm_nm = 100, epsilon_max = 1500.0 }"))
+    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "survey", "--json", "--out", tmp_path / "s")
+    data = strict_json(out)
+    assert code == 0, err
+    assert data["method"] == "survey" and data["se_by_wavelength"] and "wavelength_nm" in data
+    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "survey", "--recipe",
+                         tmp_path / "s" / "recipe.csv", "--json")
+    assert code == 0 and strict_json(out)["wavelength_nm"] == data["wavelength_nm"]
+    code, _, err = run(capsys, monkeypatch, "assess", plan, tmp_path / "s" / "recipe.csv", "--trials", "0")
+    assert code == 0, err

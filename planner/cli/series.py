@@ -40,10 +40,13 @@ def series(
         help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)")] = None,
     max_ratio: Annotated[float | None, typer.Option(
         help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)")] = None,
+    recipe: Annotated[Path | None, typer.Option(
+        help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)")] = None,
 ) -> None:
     """Plan a classic series on the plan's glassware — Job's continuous variation (job), the 'complete
-    conversion' tube (calibration), the mole-ratio series (mole-ratio) — and say whether it can answer its
-    question: exit 0 when it can, 1 when it cannot."""
+    conversion' tube (calibration), the mole-ratio series (mole-ratio), the wavelength survey over the
+    plan's bands (survey) — and say whether it can answer its question: exit 0 when it can, 1 when it
+    cannot."""
     from ..inputs.files import write_atomic
     from ..inputs.recipe import recipe_to_csv
     from ..inputs.units import UnitError, parse_quantity
@@ -61,8 +64,15 @@ def series(
 
     total_M, excess_M = conc("--total", total), conc("--excess", excess)
     p = load_plan(plan)
+    given = None
+    if recipe is not None:
+        if method != "survey":
+            raise UserError(f"--recipe: only --method survey takes a recipe (this is --method {method})")
+        from ..inputs.recipe import read_recipe_csv
+
+        given = read_recipe_csv(recipe, p)
     r = run_series(p, method, points=points, total_M=total_M, tubes=tubes, limiting=limiting, excess_M=excess_M,
-                   vary=vary, max_ratio=max_ratio)
+                   vary=vary, max_ratio=max_ratio, recipe=given)
     summary = r.summary()
     text = json.dumps(summary, indent=2, allow_nan=False)
     if out_dir is not None:
