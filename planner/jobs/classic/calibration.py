@@ -33,6 +33,7 @@ from ..checks import Check
 from .common import (
     SeriesResult,
     assess_tubes,
+    capacity_mL,
     fill_volumes,
     finish,
     fmt_conc,
@@ -92,7 +93,8 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     # the limiting reagent: full conversion reads in the middle of the linear range unless told
     if total_M is None:
         want = 0.5 * (lo + hi) * nu_lim / (b * eps_t)
-        v_lim = float(np.clip(snap(want * V / c_lim_stock, step), vmin, snap(V / 2, step)))
+        v_lim = float(np.clip(snap(want * V / c_lim_stock, step), vmin,
+                              min(snap(V / 2, step), capacity_mL(plan, lim_id))))
     else:
         v_lim = float(snap(total_M * V / c_lim_stock, step))
         if v_lim < vmin or v_lim > V:
@@ -132,8 +134,8 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
 
     # the planned tube's excess: the smallest grid volume converting 99.9 % (else 99 %) at every node
     # with the reading in range; else the most that stays in range
-    cap = _capacity_mL(plan, exc_id)
-    room = min(V - v_lim, cap) if cap else V - v_lim
+    cap = capacity_mL(plan, exc_id)
+    room = min(V - v_lim, cap)
     if excess_M is not None:
         v_exc = float(snap(excess_M * V / c_exc_stock, step))
         if v_exc < vmin or v_exc > V - v_lim + 1e-9:
@@ -241,11 +243,6 @@ def _smallest_excess(fraction, xs, f_grid, lb, f_want) -> float | None:
     return float(np.exp(hi).max())
 
 
-def _capacity_mL(plan: Plan, sid: str) -> float | None:
-    d = plan.dispenser_for(sid)
-    return float(d.capacity_mL) if d is not None else None
-
-
 def _hand_bias(f: float) -> dict:
     """Relative biases of the 'complete conversion' hand analysis of a 1:1 complex [derived, see above]."""
     y = 0.5
@@ -284,7 +281,7 @@ def _fits_check(plan, model, needed, lim_id, exc_id, v_lim, c_exc_stock, tubes, 
         if v + v_lim > V + 1e-9:
             why.append(f"{v:.3g} mL of {exc_id} does not fit the {V:g} mL tube beside {v_lim:g} mL of {lim_id}: "
                        f"use a more concentrated {exc_id}")
-        if cap is not None and v > cap + 1e-9:
+        if v > cap + 1e-9:
             why.append(f"{v:.3g} mL is more than the {cap:g} mL dispenser delivers at once")
         if stock.on_hand is not None:
             need = v * (tubes + 1) + g.rinse_mL + g.dead_volume_mL

@@ -144,6 +144,12 @@ def pure_stock(plan: Plan, comp: str) -> tuple[int, str, float]:
                     f"conc = {{ {comp} = '...' }} and no {other}")
 
 
+def capacity_mL(plan: Plan, sid: str) -> float:
+    """Largest single delivery of the dispenser that delivers ``sid`` (inf when none is named)."""
+    d = plan.dispenser_for(sid)
+    return float(d.capacity_mL) if d is not None else float("inf")
+
+
 def fill_volumes(plan: Plan, dispensed: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     """(…, k) volumes of every stock (diluent filled under ``to-mark``) and (…,) total volumes, for
     arbitrary (unsnapped, batched) compositions; used for curves between the tubes."""

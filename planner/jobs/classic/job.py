@@ -23,6 +23,7 @@ from . import rivals as rv
 from .common import (
     SeriesResult,
     assess_tubes,
+    capacity_mL,
     corrected,
     fill_volumes,
     finish,
@@ -171,18 +172,20 @@ def _fix_high(plan: Plan, n: int, vs: float, c: float) -> str:
     return "lower the total concentration (--total) or use a shorter path"
 
 
-def _valid(vs: np.ndarray, x: np.ndarray, step: float, vmin: float) -> np.ndarray:
-    """Which sums of volumes put every mole fraction on the grid, distinct and above min_volume."""
+def _valid(vs: np.ndarray, x: np.ndarray, step: float, vmin: float, caps=(np.inf, np.inf)) -> np.ndarray:
+    """Which sums of volumes put every mole fraction on the grid, distinct, above min_volume and within
+    each dispenser's capacity."""
     vm = snap(x[None, :] * vs[:, None], step)
     vl = snap(vs[:, None] - vm, step)
     distinct = np.all(np.diff(vm, axis=1) > step / 2, axis=1)
-    return distinct & (vm.min(axis=1) >= vmin - 1e-9) & (vl.min(axis=1) >= vmin - 1e-9)
+    return (distinct & (vm.min(axis=1) >= vmin - 1e-9) & (vl.min(axis=1) >= vmin - 1e-9)
+            & (vm.max(axis=1) <= caps[0] + 1e-9) & (vl.max(axis=1) <= caps[1] + 1e-9))
 
 
 def _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n) -> float:
     """The largest sum of stock volumes whose curve stays below the top of the linear range."""
     cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
-    cand = cand[_valid(cand, x, step, vmin)]
+    cand = cand[_valid(cand, x, step, vmin, (capacity_mL(plan, m_id), capacity_mL(plan, l_id)))]
     if cand.size == 0:
         raise PlanError("--points", f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube "
                         f"on the {step:g} mL grid above min_volume {vmin:g} mL: use fewer --points")

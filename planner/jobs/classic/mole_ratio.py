@@ -35,6 +35,7 @@ from ..checks import Check
 from .common import (
     SeriesResult,
     assess_tubes,
+    capacity_mL,
     corrected,
     fill_volumes,
     finish,
@@ -87,13 +88,18 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
     expected = float(model.stoich[j, vi] / model.stoich[j, fi])
     mask = model.complex_mask
     highest = float(np.max(model.stoich[mask, vi] / model.stoich[mask, fi]))
-    r_max = RATIO_SPAN * highest if max_ratio is None else float(max_ratio)
-    if r_max <= expected * (1 + LINE_MARGIN):
-        raise PlanError("--max-ratio", f"{r_max:g} does not reach past the break at {expected:g}: use at least "
-                        f"{2 * expected:g}")
     n = DEFAULT_POINTS if points is None else int(points)
     if n < 5:
         raise PlanError("--points", f"{n} tubes cannot give two lines of at least two tubes: use 8–12")
+    if max_ratio is None:
+        # 2.5 × the richest complex's ratio, but low enough to leave two tubes before the break (with 5 %
+        # to spare for the rounding of volumes to the grid)
+        r_max = min(RATIO_SPAN * highest, 0.95 * (1 - LINE_MARGIN) * expected * n / 2)
+    else:
+        r_max = float(max_ratio)
+    if r_max <= expected * (1 + LINE_MARGIN):
+        raise PlanError("--max-ratio", f"{r_max:g} does not reach past the break at {expected:g}: use at least "
+                        f"{2 * expected:g}")
     g = plan.glassware
     step, vmin, V = g.step_mL, max(g.min_volume_mL, g.step_mL), g.tube_volume_mL
     r = r_max * np.arange(1, n + 1) / n
@@ -217,16 +223,19 @@ def _shortfall(rf, yf, expected, sd) -> tuple[float, float]:
     return float(gap / abs(corner)) if corner else float("nan"), float(gap / sd) if sd > 0 else float("nan")
 
 
-def _valid(v_fix: np.ndarray, r, c_fix, c_var, step, vmin, avail) -> np.ndarray:
+def _valid(v_fix: np.ndarray, r, c_fix, c_var, step, vmin, avail, caps=(np.inf, np.inf)) -> np.ndarray:
+    """Which fixed volumes give distinct rising volumes on the grid, above min_volume, inside the tube and
+    within each dispenser's capacity."""
     vv = snap(r[None, :] * (v_fix[:, None] * c_fix / c_var), step)
     distinct = np.all(np.diff(vv, axis=1) > step / 2, axis=1)
-    return distinct & (vv[:, 0] >= vmin - 1e-9) & (v_fix + vv[:, -1] <= avail + 1e-9) & (v_fix >= vmin - 1e-9)
+    return (distinct & (vv[:, 0] >= vmin - 1e-9) & (v_fix + vv[:, -1] <= avail + 1e-9) & (v_fix >= vmin - 1e-9)
+            & (v_fix <= caps[0] + 1e-9) & (vv[:, -1] <= caps[1] + 1e-9))
 
 
 def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n) -> float:
     """The largest fixed volume whose series fits the tube and stays below the top of the linear range."""
     cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
-    cand = cand[_valid(cand, r, c_fix, c_var, step, vmin, avail)]
+    cand = cand[_valid(cand, r, c_fix, c_var, step, vmin, avail, (capacity_mL(plan, fix_id), capacity_mL(plan, var_id)))]
     if cand.size == 0:
         raise PlanError("--points", f"{n} rising volumes do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
                         f"the {step:g} mL grid above min_volume: use fewer --points, a lower --max-ratio or a "
@@ -270,7 +279,12 @@ def _break_check(hand, expected, C, needed, model, fix) -> Check:
     if hand["resolvable"]:
         return Check("break", "pass", msg + f": resolvable within {BREAK_TOLERANCE:.0%}")
     msg += f": not resolvable within {BREAK_TOLERANCE:.0%} at {fix} = {fmt_conc(C)}"
-    if needed is None:
+    others = [n for n, m in zip(model.species, model.complex_mask, strict=True) if m][1:]
+    if needed is None and len(others):
+        names = ", ".join(n for n, m in zip(model.species, model.complex_mask, strict=True) if m)
+        msg += (f"; no concentration up to 1000× does it — with {names} all forming, the lines need not meet at "
+                f"{expected:g}: fit all complexes globally (kplan design) instead")
+    elif needed is None:
         msg += ("; no concentration up to 1000× does it — the complex is too weak for a break: fit all tubes "
                 "globally (kplan design) instead")
     else:

@@ -46,8 +46,9 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> SeriesResult:
     """
     bands = plan.optics.bands
     if not bands:
-        raise PlanError("optics.bands", "the wavelength survey needs a Gaussian band per absorbing species: add "
-                        "[optics.bands] with e.g. ML = { peak_nm = 600, fwhm_nm = 120, epsilon_max = 950 }")
+        t = plan.target
+        raise PlanError("optics.bands", f"the wavelength survey needs a Gaussian band per absorbing species: add "
+                        f"[optics.bands] with e.g. {t} = {{ peak_nm = 600, fwhm_nm = 120, epsilon_max = 950 }}")
     model = plan_model(plan)
     recipe = recipe if recipe is not None else even_series(plan)
     lam = _grid(plan)
