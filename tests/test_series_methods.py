@@ -350,3 +350,39 @@ def test_survey_without_bands_exit_2_and_cli_json(tmp_path, capsys, monkeypatch)
     assert code == 0 and strict_json(out)["wavelength_nm"] == data["wavelength_nm"]
     code, _, err = run(capsys, monkeypatch, "assess", plan, tmp_path / "s" / "recipe.csv", "--trials", "0")
     assert code == 0, err
+
+
+def test_survey_se_equals_one_cramer_rao_per_wavelength():
+    # derived: the vectorised survey must give the SE of the ordinary path (model, error budget, Jacobian,
+    # F⁻¹) on the plan moved to each wavelength
+    from planner.inference.precision import ReadingModel, cramer_rao, free_parameters, pack
+    from planner.uncertainty.budget import error_budget
+
+    plan = band_plan('L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n')
+    model = common.plan_model(plan)
+    recipe = survey.even_series(plan)
+    lam = np.array([480.0, 520.0, 575.0])
+    eps = survey._epsilon_by_wavelength(plan, model, lam)
+    ours = survey._se_by_wavelength(plan, model, recipe, eps)[0]
+    for k, w in enumerate(lam):
+        p = survey._plan_at(plan, model, float(w), eps[k])
+        m = common.plan_model(p)
+        st = common.predict_volumes(m, recipe.volumes_mL, recipe.total_volume_mL)
+        cov = error_budget(p, m, recipe, st).total
+        params = free_parameters(p, m)
+        reading = ReadingModel(m, params, st.totals_M, common.tube_ions_M(m, recipe.volumes_mL,
+                                                                          recipe.total_volume_mL))
+        cr = cramer_rao(reading.jac(pack(m, params)[None, :])[0], cov)
+        assert ours[k] == pytest.approx(cr.se[params.target], rel=1e-9)
+
+
+def test_job_total_offered_does_separate():
+    # the total the search offers, planned again, separates the non-nested rivals by ≥ 3 sd (derived: the
+    # search and the verdict use the same fit; 10 % margin for the volume grid)
+    plan = make_plan(species(("ML", 1, 1, 3.0, 0.3)), "ML = { value = 1000.0, rsd = 0.2 }", cM="0.2 mM", cL="0.2 mM")
+    s = job.continuous_variation(plan, total_M=1e-4).summary()
+    assert any(d["separation_sd"] < rv.SEPARATION_WANTED and not d["nested"] for d in s["discrimination"])
+    need = s["total_needed_M"]
+    assert need is not None and need > 1e-4
+    again = job.continuous_variation(plan, total_M=1.1 * need).summary()
+    assert all(d["separation_sd"] >= rv.SEPARATION_WANTED for d in again["discrimination"] if not d["nested"])
