@@ -16,8 +16,9 @@ from planner import cli
 from planner.inputs.files import write_atomic
 from planner.inputs.plan import PlanError, parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv
-from planner.jobs.classic import calibration, common, job, mole_ratio, survey
+from planner.jobs.classic import calibration, common, job, mole_ratio, plan_model, survey
 from planner.jobs.classic import rivals as rv
+from planner.model.compiled import predict, tube_ions_M
 
 PLAN = """
 title = "Invented metal Q with invented ligand Z (test scenario)"
@@ -95,7 +96,7 @@ def test_job_extremum_at_one_over_n_plus_one(n, eps):
     # reagents' absorbance subtracted (corrected Y) this holds for any ε
     name = "ML" if n == 1 else f"ML{n}"
     plan = make_plan(species((name, 1, n, 6.0 * n, 0.3)), eps.format().replace("X", name))
-    model = common.plan_model(plan)
+    model = plan_model(plan)
     x = job.extremum_at(model, 2e-3)  # K·C ≫ 1: β·C^n = 10^(6n)·(2e-3)^n ≥ 10^(3.3 n)
     assert x == pytest.approx(1 / (n + 1), abs=0.004)
 
@@ -106,7 +107,7 @@ def test_job_extremum_moves_to_half_as_concentration_falls_for_stepwise_ml2():
     # toward 1/3 (a single ML2 keeps it at 1/3 for every K: the shift needs both complexes)
     plan = make_plan(species(("ML", 1, 1, 4.0, 0.3), ("ML2", 1, 2, 8.0, 0.3)),
                      "ML = { value = 500.0 }\nML2 = { value = 1500.0 }")
-    model = common.plan_model(plan)
+    model = plan_model(plan)
     totals = [1e-1, 1e-2, 1e-3, 1e-4, 1e-5, 1e-6]
     xs = [job.extremum_at(model, c) for c in totals]
     assert np.all(np.diff(xs) >= -1e-4)                         # moves toward 0.5 as C falls
@@ -131,10 +132,10 @@ def test_job_series_on_grid_with_rivals_separated():
 def test_rival_fit_recovers_own_model():
     # derived: fitting the plan's own stoichiometry to its own noise-free readings leaves no residual
     plan = make_plan(species(("ML", 1, 1, 4.5, 0.3)), "ML = { value = 1000.0 }\nL = { value = 100.0 }")
-    model = common.plan_model(plan)
+    model = plan_model(plan)
     x = np.linspace(0.1, 0.9, 9)
     tot = np.stack([x * 2e-3, (1 - x) * 2e-3], axis=1)
-    st = common.predict(model, tot, warn=False)
+    st = predict(model, tot, warn=False)
     W = np.diag(1 / np.full(9, 0.003))
     fit = rv.fit_rival(model, "1:1", ((1, 1),), tot, np.zeros((9, 0)), st.absorbance_true, W)
     assert fit.separation_sd < 0.05
@@ -268,10 +269,10 @@ def test_mole_ratio_shortfall_matches_one_over_sqrt_kc():
     # final one is the plateau H far past the break, so its corner is H·KC/(1 + KC) at r = 1.
     K, C = 10**5.0, 1e-3
     plan = make_plan(species(("ML", 1, 1, 5.0, 0.2)), "ML = { value = 1000.0 }")
-    model = common.plan_model(plan)
+    model = plan_model(plan)
     rf = np.linspace(0, 50, 50001)         # far past the break: the end tangent is the plateau
     tot = np.stack([np.full(rf.size, C), rf * C], axis=1)
-    yf = common.corrected(model, common.predict(model, tot, warn=False))
+    yf = common.corrected(model, predict(model, tot, warn=False))
     frac, _ = mole_ratio._shortfall(rf, yf, 1.0, 0.001)
     short = (math.sqrt(1 + 4 * K * C) - 1) / (2 * K * C)
     assert short == pytest.approx(1 / math.sqrt(K * C), rel=0.1)
@@ -359,18 +360,18 @@ def test_survey_se_equals_one_cramer_rao_per_wavelength():
     from planner.uncertainty.budget import error_budget
 
     plan = band_plan('L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n')
-    model = common.plan_model(plan)
+    model = plan_model(plan)
     recipe = survey.even_series(plan)
     lam = np.array([480.0, 520.0, 575.0])
     eps = survey._epsilon_by_wavelength(plan, model, lam)
     ours = survey._se_by_wavelength(plan, model, recipe, eps)[0]
     for k, w in enumerate(lam):
         p = survey._plan_at(plan, model, float(w), eps[k])
-        m = common.plan_model(p)
+        m = plan_model(p)
         st = common.predict_volumes(m, recipe.volumes_mL, recipe.total_volume_mL)
         cov = error_budget(p, m, recipe, st).total
         params = free_parameters(p, m)
-        reading = ReadingModel(m, params, st.totals_M, common.tube_ions_M(m, recipe.volumes_mL,
+        reading = ReadingModel(m, params, st.totals_M, tube_ions_M(m, recipe.volumes_mL,
                                                                           recipe.total_volume_mL))
         cr = cramer_rao(reading.jac(pack(m, params)[None, :])[0], cov)
         assert ours[k] == pytest.approx(cr.se[params.target], rel=1e-9)

@@ -3,7 +3,7 @@ survey, planned on the plan's glassware and judged by the same model and error b
 
 from __future__ import annotations
 
-from ...inputs.plan import Plan
+from ._deps import Plan, plan_model
 from .calibration import conversion_tube
 from .common import SeriesResult
 from .job import continuous_variation
@@ -13,7 +13,7 @@ from .survey import wavelength_survey
 # the methods ``kplan series --method`` offers; a method is listed only when it is finished
 METHODS = ("job", "calibration", "mole-ratio", "survey")
 
-__all__ = ["METHODS", "SeriesResult", "continuous_variation", "conversion_tube", "mole_ratio_series", "run_series",
+__all__ = ["METHODS", "SeriesResult", "continuous_variation", "conversion_tube", "mole_ratio_series", "plan_model", "run_series",
            "wavelength_survey"]
 
 

@@ -27,17 +27,21 @@ from __future__ import annotations
 
 import numpy as np
 
-from ...inputs.plan import Plan, PlanError
-from ...model.compiled import predict, tube_ions_M
-from ..checks import Check
+from ._deps import (
+    Check,
+    Plan,
+    PlanError,
+    assess_tubes,
+    plan_model,
+    predict,
+    tube_ions_M,
+)
 from .common import (
     SeriesResult,
-    assess_tubes,
     capacity_mL,
     fill_volumes,
     finish,
     fmt_conc,
-    plan_model,
     predict_volumes,
     pure_stock,
     series_recipe,

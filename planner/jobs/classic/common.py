@@ -1,8 +1,8 @@
-"""What every classic series shares: the plan's compiled model, the expected tubes with their error
-budget, the corrected absorbance, grid snapping and the result object that ``kplan series`` prints.
+"""What every classic series shares: the corrected absorbance, grid snapping, curves between the tubes,
+scaled stocks, the range check and the result object that ``kplan series`` prints.
 
-All imports of ``build_model`` and ``assess`` for the classic series live here, in
-:func:`plan_model` and :func:`assess_tubes`, so a move of either is a one-line change.
+Names from the rest of the package come through :mod:`._deps` (``plan_model`` and ``assess_tubes``
+included), so a move elsewhere in the package changes that one file.
 """
 
 from __future__ import annotations
@@ -12,30 +12,23 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from ...inputs.plan import Plan, PlanError
-from ...inputs.recipe import Recipe, make_recipe
-from ...model.compiled import Model, TubeState, predict, tube_ions_M
-from ..assess import Assessment
-from ..checks import Check
+from ._deps import (
+    Assessment,
+    Check,
+    Model,
+    Plan,
+    PlanError,
+    Recipe,
+    TubeState,
+    make_recipe,
+    predict,
+    tube_ions_M,
+)
 
 STATUSES = ("pass", "warn", "fail")
 # checks of kplan assess that keep their meaning for every classic series; the others (saturation
 # window, conversion, …) judge a binding-curve design and would mislead here
 KEPT_ASSESS_CHECKS = ("glassware", "stock-budget", "ionic-strength", "hydrolysis", "protonation")
-
-
-def plan_model(plan: Plan) -> Model:
-    """The plan's numerical model (the one place the classic series import ``build_model``)."""
-    from ...model.compiled import build_model
-
-    return build_model(plan)
-
-
-def assess_tubes(plan: Plan, recipe: Recipe) -> Assessment:
-    """Expected tubes, error budget and checks of ``recipe`` without the precision analysis."""
-    from ..assess import assess
-
-    return assess(plan, recipe, trials=0, precision=False)
 
 
 @dataclass(frozen=True)

@@ -28,19 +28,24 @@ from __future__ import annotations
 
 import numpy as np
 
-from ...inputs.plan import Plan, PlanError
-from ...model.compiled import predict, tube_ions_M
-from ...uncertainty.budget import error_budget, plan_devices
-from ..checks import Check
+from ._deps import (
+    Check,
+    Plan,
+    PlanError,
+    assess_tubes,
+    error_budget,
+    plan_devices,
+    plan_model,
+    predict,
+    tube_ions_M,
+)
 from .common import (
     SeriesResult,
-    assess_tubes,
     capacity_mL,
     corrected,
     fill_volumes,
     finish,
     fmt_conc,
-    plan_model,
     predict_volumes,
     pure_stock,
     range_check,

@@ -22,7 +22,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from ...model.compiled import Model, predict
+from ._deps import Model, predict
 
 MATERIAL_SHARE = 0.2  # an extra complex with < 20 % of the metal in every tube is "absent" [common practice]
 # 3 sd: a χ² difference of 9, which a 5 %-level test detects with ~90 % power (z 1.64 + 1.28 ≈ 2.9) [derived]

@@ -16,14 +16,29 @@ from __future__ import annotations
 
 import numpy as np
 
-from ...inputs.plan import Epsilon, Plan, PlanError
-from ...inputs.recipe import Recipe, totals_M
-from ...model.compiled import predict, tube_ions_M
-from ...model.jacobians import absorbance_derivatives
-from ...uncertainty.budget import error_factors, plan_devices
-from ..checks import Check
-from ..series import even_series
-from .common import SeriesResult, assess_tubes, finish, plan_model, range_check
+from ._deps import (
+    Check,
+    Epsilon,
+    Plan,
+    PlanError,
+    Recipe,
+    absorbance_derivatives,
+    assess_tubes,
+    bandwidth_factor,
+    error_factors,
+    even_series,
+    free_parameters,
+    plan_devices,
+    plan_model,
+    predict,
+    totals_M,
+    tube_ions_M,
+)
+from .common import (
+    SeriesResult,
+    finish,
+    range_check,
+)
 
 METHOD = "survey"
 STEP_NM = 1.0
@@ -107,8 +122,6 @@ def _grid(plan: Plan) -> np.ndarray:
 
 def _epsilon_by_wavelength(plan: Plan, model, lam: np.ndarray) -> np.ndarray:
     """(Λ, 2 + S) ε of every absorber at every wavelength (bandwidth factor applied; no band: flat)."""
-    from ...model.optics import bandwidth_factor
-
     eps = np.broadcast_to(model.epsilon_M_cm, (lam.size, model.epsilon_M_cm.size)).copy()
     for j, name in enumerate(model.absorbers):
         band = plan.optics.bands.get(name)
@@ -120,8 +133,6 @@ def _epsilon_by_wavelength(plan: Plan, model, lam: np.ndarray) -> np.ndarray:
 
 def _se_by_wavelength(plan: Plan, model, recipe: Recipe, eps: np.ndarray):
     """SE(log β[target]), highest and lowest reading at every wavelength, vectorised over wavelengths."""
-    from ...inference.precision import free_parameters
-
     L = eps.shape[0]
     tot = totals_M(recipe, model.stock_conc_M)
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
@@ -161,8 +172,6 @@ def _se_at(plan: Plan, model, recipe: Recipe, wavelength_nm: float) -> float:
 def _plan_at(plan: Plan, model, wavelength_nm: float, eps_row: np.ndarray) -> Plan:
     """The plan moved to ``wavelength_nm``: ε guesses from the bands (before the bandwidth factor, which
     the model applies again), the same relative uncertainties."""
-    from ...model.optics import bandwidth_factor
-
     new_eps = {}
     for j, name in enumerate(model.absorbers):
         old = plan.optics.epsilon.get(name)
