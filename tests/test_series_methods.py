@@ -387,3 +387,11 @@ def test_job_total_offered_does_separate():
     assert need is not None and need > 1e-4
     again = job.continuous_variation(plan, total_M=1.1 * need).summary()
     assert all(d["separation_sd"] >= rv.SEPARATION_WANTED for d in again["discrimination"] if not d["nested"])
+
+
+def test_option_of_another_method_exit_2(tmp_path, capsys, monkeypatch):
+    plan = tmp_path / "p.toml"
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 6.0, 0.3)), epsilon="ML = { value = 1000.0 }",
+                                   cM="2.0 mM", cL="2.0 mM"))
+    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--vary", "M")
+    assert code == 2 and "--vary applies to --method mole-ratio" in err

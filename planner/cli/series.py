@@ -12,7 +12,7 @@ from rich.markup import escape
 from rich.table import Table
 
 from ..inputs.plan import load_plan
-from ..jobs.classic import METHODS
+from ..jobs.classic import METHOD_OPTIONS, METHODS
 from .app import UserError, app, out
 
 
@@ -54,6 +54,12 @@ def series(
 
     if method not in METHODS:
         raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
+    given_opts = {"points": points, "total": total, "limiting": limiting, "excess": excess, "tubes": tubes,
+                  "vary": vary, "max-ratio": max_ratio, "recipe": recipe}
+    for name, value in given_opts.items():
+        if value is not None and method not in METHOD_OPTIONS[name]:
+            raise UserError(f"--{name} applies to --method {' / '.join(METHOD_OPTIONS[name])}, not to {method}: "
+                            f"leave it out")
     def conc(name: str, value: str | None) -> float | None:
         if value is None:
             return None
@@ -66,8 +72,6 @@ def series(
     p = load_plan(plan)
     given = None
     if recipe is not None:
-        if method != "survey":
-            raise UserError(f"--recipe: only --method survey takes a recipe (this is --method {method})")
         from ..inputs.recipe import read_recipe_csv
 
         given = read_recipe_csv(recipe, p)

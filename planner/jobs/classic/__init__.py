@@ -12,8 +12,19 @@ from .survey import wavelength_survey
 
 # the methods ``kplan series --method`` offers; a method is listed only when it is finished
 METHODS = ("job", "calibration", "mole-ratio", "survey")
+# which options each method takes (the command refuses the others rather than ignore them)
+METHOD_OPTIONS = {
+    "points": ("job", "mole-ratio"),
+    "total": ("job", "calibration", "mole-ratio"),
+    "limiting": ("calibration",),
+    "excess": ("calibration",),
+    "tubes": ("calibration",),
+    "vary": ("mole-ratio",),
+    "max-ratio": ("mole-ratio",),
+    "recipe": ("survey",),
+}
 
-__all__ = ["METHODS", "SeriesResult", "continuous_variation", "conversion_tube", "mole_ratio_series", "plan_model", "run_series",
+__all__ = ["METHODS", "METHOD_OPTIONS", "SeriesResult", "continuous_variation", "conversion_tube", "mole_ratio_series", "plan_model", "run_series",
            "wavelength_survey"]
 
 

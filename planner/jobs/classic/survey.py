@@ -107,6 +107,7 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> SeriesResult:
              f"(at the plan's {plan.optics.wavelength_nm:g} nm: {_num(here)})",
              f"readings there {a_min[k]:.3f}–{a_max[k]:.3f}; "
              + (f"the {t} band peaks at {peak_nm:g} nm" if peak_nm is not None else f"{t} has no band"),
+             "SE by wavelength (readings in range): " + _se_line(lam, se, feasible),
              f"set optics.wavelength_nm = {best:g} and the ε guesses at that wavelength in the plan"]
     ok = f"{best:g} nm gives SE(log β[{t}]) = {se[k]:.3g} with every reading inside {lo:g}–{hi:g}"
     return finish(METHOD, surveyed, QUESTION, recipe, a, checks, extra, {}, ok, notes=tuple(notes))
@@ -182,6 +183,14 @@ def _plan_at(plan: Plan, model, wavelength_nm: float, eps_row: np.ndarray) -> Pl
         new_eps[name] = Epsilon(value=value, rsd=old.rsd if old is not None else 0.0)
     optics = plan.optics.model_copy(update={"wavelength_nm": wavelength_nm, "epsilon": new_eps})
     return plan.model_copy(update={"optics": optics})
+
+
+def _se_line(lam, se, feasible, n: int = 7) -> str:
+    idx = np.flatnonzero(feasible)
+    if idx.size == 0:
+        return "none"
+    pick = idx[np.unique(np.linspace(0, idx.size - 1, min(n, idx.size)).round().astype(int))]
+    return ", ".join(f"{lam[k]:g} nm {se[k]:.3g}" for k in pick)
 
 
 def _num(x) -> str:
