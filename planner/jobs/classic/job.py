@@ -137,7 +137,10 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
              "separation from rival models (whitened residual of their best fit): "
              + (", ".join(f"{f.model} {f.separation_sd:.1f} sd" for f in fits) or "none")]
     if needed:
-        notes.append(f"a total of {fmt_conc(needed[0])} would separate every rival by ≥ {rv.SEPARATION_WANTED:g} sd")
+        cell = f" in a {needed[1]:.2g} cm cell" if needed[1] < model.path_cm * 0.999 else ""
+        kind = "nested" if all(f.nested for f in close) else "stoichiometric"
+        notes.append(f"a total of {fmt_conc(needed[0])}{cell} would separate the {kind} rivals by "
+                     f"≥ {rv.SEPARATION_WANTED:g} sd")
     return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
 
 

@@ -111,10 +111,13 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
     avail = V - sum(v for k, v in plan.design.fixed.items() if k not in (fix_id, var_id))
     if total_M is not None:
         v_fix = float(snap(total_M * V / c_fix, step))
-        if not _valid(np.array([v_fix]), r, c_fix, c_var, step, vmin, avail)[0]:
-            raise PlanError("--total", f"{fmt_conc(total_M)} of {fix} ({v_fix:g} mL of {fix_id}) leaves no room for "
-                            f"{n} rising volumes of {var_id} up to ratio {r_max:g} on the {step:g} mL grid: "
-                            f"choose another --total, fewer --points or a lower --max-ratio")
+        caps = (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
+        if not _valid(np.array([v_fix]), r, c_fix, c_var, step, vmin, avail, caps)[0]:
+            vv = snap(r * v_fix * c_fix / c_var, step)
+            raise PlanError("--total", f"{fmt_conc(total_M)} of {fix} is {v_fix:g} mL of {fix_id}; the {n} volumes "
+                            f"of {var_id} up to ratio {r_max:g} would run {vv[0]:g}–{vv[-1]:g} mL, which must be "
+                            f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most {min(caps[1], avail - v_fix):g} mL: "
+                            f"choose another --total, fewer --points or another --max-ratio")
     else:
         v_fix = _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n)
     v_var = snap(r * v_fix * c_fix / c_var, step)
@@ -164,7 +167,8 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
              f"(expected {expected:g} for {target}); the curve falls {hand['shortfall_fraction']:.1%} "
              f"({hand['shortfall_sd']:.1f} sd) short of the asymptotes' corner there"]
     if needed:
-        notes.append(f"a fixed concentration of {fmt_conc(needed[0])} would make the break resolvable")
+        cell = f" in a {needed[1]:.2g} cm cell" if needed[1] < model.path_cm * 0.999 else ""
+        notes.append(f"a fixed concentration of {fmt_conc(needed[0])}{cell} would make the break resolvable")
     ok = (f"the break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} reads the {target} ratio "
           f"{expected:g} within {BREAK_TOLERANCE:.0%}")
     columns = {"ratio": ratio, "Y": y, "±2sd": 2 * sd}
