@@ -395,3 +395,19 @@ def test_option_of_another_method_exit_2(tmp_path, capsys, monkeypatch):
                                    cM="2.0 mM", cL="2.0 mM"))
     code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--vary", "M")
     assert code == 2 and "--vary applies to --method mole-ratio" in err
+
+
+def test_series_recipes_feed_sheet_and_report(tmp_path, capsys, monkeypatch):
+    plan = tmp_path / "p.toml"
+    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 5.0, 0.3)),
+                                   epsilon="ML = { value = 1000.0, rsd = 0.2 }\nM = { value = 2.0 }",
+                                   cM="20 mM", cL="2 mM"))
+    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "calibration", "--out", tmp_path / "c")
+    assert code in (0, 1), err
+    recipe = tmp_path / "c" / "recipe.csv"
+    code, _, err = run(capsys, monkeypatch, "sheet", plan, recipe, "--html", "--out", tmp_path / "c" / "prep.html",
+                       "--trials", "0")
+    assert code == 0, err
+    code, _, err = run(capsys, monkeypatch, "report", plan, recipe, "--html", "--out", tmp_path / "c" / "r.html")
+    assert code == 0, err
+    assert (tmp_path / "c" / "prep.html").is_file() and (tmp_path / "c" / "r.html").is_file()
