@@ -10,6 +10,7 @@ from __future__ import annotations
 from ...inference.precision import free_parameters, whitening
 from ...inputs.plan import Epsilon, Plan, PlanError
 from ...inputs.recipe import Recipe, make_recipe, totals_M
+from ...model.activity import ActivityWarning
 from ...model.compiled import Model, TubeState, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
 from ...model.optics import bandwidth_factor
@@ -19,7 +20,7 @@ from ..checks import Check
 from ..series import even_series
 
 __all__ = [
-    "Assessment", "Check", "Epsilon", "Model", "Plan", "PlanError", "Recipe", "TubeState", "absorbance_derivatives",
+    "ActivityWarning", "Assessment", "Check", "Epsilon", "Model", "Plan", "PlanError", "Recipe", "TubeState", "absorbance_derivatives",
     "assess_tubes", "bandwidth_factor", "error_budget", "error_factors", "even_series", "free_parameters",
     "make_recipe", "plan_devices", "plan_model", "predict", "totals_M", "tube_ions_M", "whitening",
 ]

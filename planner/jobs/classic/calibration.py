@@ -42,6 +42,7 @@ from .common import (
     fill_volumes,
     finish,
     fmt_conc,
+    hypothetical,
     predict_volumes,
     pure_stock,
     series_recipe,
@@ -114,14 +115,16 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     vol0, tot0 = fill_volumes(plan, {lim_id: np.array([v_lim])})
     ions0 = tube_ions_M(model, vol0, tot0)            # the medium the tube is made in (background ions)
 
-    def fraction(x_M, lbs):
-        """Fraction of the limiting reagent in the target at excess x_M (…,), constants lbs (…, S)."""
+    def fraction(x_M, lbs, ions_row=ions0[0]):
+        """Fraction of the limiting reagent in the target at excess x_M (…,), constants lbs (…, S), in a
+        medium with the other ions ``ions_row`` (default: the tube before the excess is added)."""
         x_M = np.asarray(x_M, dtype=float)
         tot = np.zeros(x_M.shape + (2,))
         tot[..., 0 if lim == "M" else 1] = c_lim
         tot[..., 0 if exc == "M" else 1] = x_M
-        ions = np.broadcast_to(ions0[0], x_M.shape + ions0.shape[1:])
-        st = predict(model, tot, ions, log_beta=lbs, warn=False)
+        ions = np.broadcast_to(ions_row, x_M.shape + ions0.shape[1:])
+        with hypothetical():
+            st = predict(model, tot, ions, log_beta=lbs, warn=False)
         return nu_lim * st.species_M[..., j] / c_lim
 
     x0 = c_lim * nu_exc / nu_lim
@@ -158,8 +161,9 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     a = assess_tubes(plan, recipe)
     st = a.state
     x_plan = float(st.totals_M[0, 0 if exc == "M" else 1])
-    f_nodes = fraction(np.full(nodes.size, x_plan), lb)
-    f_guess = float(fraction(np.array([x_plan]), model.log_beta[None, :])[0])
+    ions_plan = tube_ions_M(model, recipe.volumes_mL[:1], recipe.total_volume_mL[:1])[0]
+    f_nodes = fraction(np.full(nodes.size, x_plan), lb, ions_plan)
+    f_guess = float(nu_lim * st.species_M[0, j] / st.totals_M[0, 0 if lim == "M" else 1])
     f_worst = float(f_nodes.min())
 
     checks = [_conversion_check(f_nodes, f_guess, names[0], nodes, x_plan, c_lim),

@@ -8,11 +8,14 @@ included), so a move elsewhere in the package changes that one file.
 from __future__ import annotations
 
 import math
+import warnings
+from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from ._deps import (
+    ActivityWarning,
     Assessment,
     Check,
     Model,
@@ -178,11 +181,21 @@ def series_recipe(plan: Plan, dispensed: dict[str, np.ndarray], tubes: list[str]
     return make_recipe(plan, cols, tubes)
 
 
+@contextmanager
+def hypothetical():
+    """Silence activity-model warnings while exploring hypothetical tubes (a 10 M excess, a 1000-fold
+    stock): the planned tubes are assessed, and warned about, without it."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ActivityWarning)
+        yield
+
+
 def predict_volumes(model: Model, vol: np.ndarray, total: np.ndarray, **kw) -> TubeState:
     """Tube states for (…, n, k) volumes, vectorised over every leading axis."""
     tot = (vol @ model.stock_conc_M) / total[..., None]
     ions = tube_ions_M(model, vol, total)
-    return predict(model, tot, ions, warn=False, **kw)
+    with hypothetical():
+        return predict(model, tot, ions, warn=False, **kw)
 
 
 def free_absorbance(model: Model, totals_M: np.ndarray) -> np.ndarray:
@@ -210,12 +223,13 @@ def scaled_in_range(model: Model, recipe: Recipe, scale: float) -> tuple[Model, 
     ms = scaled_model(model, scale)
     tot = (recipe.volumes_mL @ ms.stock_conc_M) / recipe.total_volume_mL[:, None]
     ions = tube_ions_M(ms, recipe.volumes_mL, recipe.total_volume_mL)
-    st = predict(ms, tot, ions, warn=False)
-    hi = model.linear_range[1]
-    top = float(st.absorbance_true.max())
-    if top > hi:
-        ms = replace(ms, path_cm=ms.path_cm * hi / top)
+    with hypothetical():
         st = predict(ms, tot, ions, warn=False)
+        hi = model.linear_range[1]
+        top = float(st.absorbance_true.max())
+        if top > hi:
+            ms = replace(ms, path_cm=ms.path_cm * hi / top)
+            st = predict(ms, tot, ions, warn=False)
     return ms, st
 
 

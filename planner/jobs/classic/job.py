@@ -77,9 +77,11 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
         if vs > avail + 1e-9:
             raise PlanError("--total", f"{fmt_conc(total_M)} needs {vs:g} mL of stock per tube, more than the "
                             f"{avail:g} mL available: lower --total or use more concentrated stocks")
-        if not _valid(np.array([vs]), x, step, vmin)[0]:
-            raise PlanError("--total", f"at {fmt_conc(total_M)} the {n} mole fractions do not fit the "
-                            f"{step:g} mL grid above min_volume {vmin:g} mL: raise --total or use fewer --points")
+        caps = (capacity_mL(plan, m_id), capacity_mL(plan, l_id))
+        if not _valid(np.array([vs]), x, step, vmin, caps)[0]:
+            raise PlanError("--total", f"at {fmt_conc(total_M)} ({vs:g} mL of stock per tube) the {n} mole fractions "
+                            f"do not fit the {step:g} mL grid between min_volume {vmin:g} mL and the dispensers' "
+                            f"capacity: change --total or use fewer --points")
     else:
         vs = _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n)
     vm = snap(x * vs, step)

@@ -46,6 +46,7 @@ from .common import (
     fill_volumes,
     finish,
     fmt_conc,
+    hypothetical,
     predict_volumes,
     pure_stock,
     range_check,
@@ -264,7 +265,8 @@ def _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_tota
     for s in SEARCH_SCALES:
         ms, st = scaled_in_range(model, recipe, float(s))
         cov = error_budget(plan, ms, recipe, st, devices).total
-        yf = corrected(ms, predict(ms, s * curve_totals, curve_ions, warn=False))
+        with hypothetical():
+            yf = corrected(ms, predict(ms, s * curve_totals, curve_ions, warn=False))
         tot = st.totals_M
         hand = judge_break(tot[:, vi] / tot[:, fi], corrected(ms, st), cov, rf, yf, expected)
         if hand["resolvable"]:

@@ -23,6 +23,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ._deps import Model, predict
+from .common import hypothetical
 
 MATERIAL_SHARE = 0.2  # an extra complex with < 20 % of the metal in every tube is "absent" [common practice]
 # 3 sd: a χ² difference of 9, which a 5 %-level test detects with ~90 % power (z 1.64 + 1.28 ≈ 2.9) [derived]
@@ -120,7 +121,8 @@ def _grid_pass(rm: Model, pq, axes, totals_M, ions_M, data, W, extra):
     lb = np.concatenate([np.broadcast_to(rm.log_beta[:n_side], (G, n_side)), mesh], axis=1)
     tot = np.broadcast_to(totals_M, (G,) + totals_M.shape)
     ions = np.broadcast_to(ions_M, (G,) + ions_M.shape)
-    st = predict(rm, tot, ions, log_beta=lb, warn=False)
+    with hypothetical():
+        st = predict(rm, tot, ions, log_beta=lb, warn=False)
     conc = st.absorber_conc_M()                                           # (G, n, 2 + S)
     known = rm.path_cm * conc @ rm.epsilon_M_cm                           # free reagents and side species
     X = rm.path_cm * st.species_M[..., n_side:]                           # (G, n, k)
