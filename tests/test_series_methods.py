@@ -115,6 +115,13 @@ def test_job_extremum_moves_to_half_as_concentration_falls_for_stepwise_ml2():
     assert xs[0] < 0.36                                         # near 1/3 when ML2 dominates (derived)
 
 
+def test_job_single_ml2_keeps_one_third_when_weak():
+    # derived: for a single ML2 at K·C ≪ 1, [ML2] ≈ β·M0·L0² ∝ x(1 − x)², whose maximum is at x = 1/3 — the
+    # shift toward 0.5 of the previous test needs ML beside ML2 (Job 1928: one complex, any K)
+    plan = make_plan(species(("ML2", 1, 2, 2.0, 0.3)), "ML2 = { value = 1500.0 }")
+    assert job.extremum_at(plan_model(plan), 1e-3) == pytest.approx(1 / 3, abs=0.003)
+
+
 def test_job_series_on_grid_with_rivals_separated():
     plan = make_plan(species(("ML", 1, 1, 6.0, 0.3)), "ML = { value = 1000.0, rsd = 0.2 }")
     r = job.continuous_variation(plan, points=9)
