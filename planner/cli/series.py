@@ -1,0 +1,128 @@
+"""``kplan series``: plan a classic hand-made series and say whether it can answer its question."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.markup import escape
+from rich.table import Table
+
+from ..inputs.plan import load_plan
+from ..jobs.classic import METHOD_OPTIONS, METHODS
+from .app import UserError, app, out
+
+
+@app.command()
+def series(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    method: Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}")],
+    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and series.json")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+    points: Annotated[int | None, typer.Option(
+        help="job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", min=1)] = None,
+    total: Annotated[str | None, typer.Option(
+        help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest in the "
+             "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range); "
+             "mole-ratio — the fixed reagent's (default: the largest in the linear range)")
+    ] = None,
+    limiting: Annotated[str | None, typer.Option(
+        help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)")] = None,
+    excess: Annotated[str | None, typer.Option(
+        help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts 99.9 %, "
+             "else 99 %, over the guess's range)")] = None,
+    tubes: Annotated[int | None, typer.Option(help="calibration: replicate calibration tubes (default 1)", min=1)
+                     ] = None,
+    vary: Annotated[str | None, typer.Option(
+        help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)")] = None,
+    max_ratio: Annotated[float | None, typer.Option(
+        help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)")] = None,
+    recipe: Annotated[Path | None, typer.Option(
+        help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)")] = None,
+) -> None:
+    """Plan a classic series on the plan's glassware — Job's continuous variation (job), the 'complete
+    conversion' tube (calibration), the mole-ratio series (mole-ratio), the wavelength survey over the
+    plan's bands (survey) — and say whether it can answer its question: exit 0 when it can, 1 when it
+    cannot."""
+    from ..inputs.files import write_atomic
+    from ..inputs.recipe import recipe_to_csv
+    from ..inputs.units import UnitError, parse_quantity
+    from ..jobs.classic import run_series
+
+    if method not in METHODS:
+        raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
+    given_opts = {"points": points, "total": total, "limiting": limiting, "excess": excess, "tubes": tubes,
+                  "vary": vary, "max-ratio": max_ratio, "recipe": recipe}
+    for name, value in given_opts.items():
+        if value is not None and method not in METHOD_OPTIONS[name]:
+            raise UserError(f"--{name} applies to --method {' / '.join(METHOD_OPTIONS[name])}, not to {method}: "
+                            f"leave it out")
+    def conc(name: str, value: str | None) -> float | None:
+        if value is None:
+            return None
+        try:
+            return parse_quantity(value, "concentration")
+        except UnitError as exc:
+            raise UserError(f"{name} {value}: {exc}") from None
+
+    total_M, excess_M = conc("--total", total), conc("--excess", excess)
+    p = load_plan(plan)
+    given = None
+    if recipe is not None:
+        from ..inputs.recipe import read_recipe_csv
+
+        given = read_recipe_csv(recipe, p)
+    r = run_series(p, method, points=points, total_M=total_M, tubes=tubes, limiting=limiting, excess_M=excess_M,
+                   vary=vary, max_ratio=max_ratio, recipe=given)
+    summary = r.summary()
+    text = json.dumps(summary, indent=2, allow_nan=False)
+    if out_dir is not None:
+        write_atomic(out_dir / "recipe.csv", recipe_to_csv(r.recipe, p))
+        write_atomic(out_dir / "series.json", text + "\n")
+    if as_json:
+        print(text)
+    else:
+        print_series(r, p)
+        if out_dir is not None:
+            out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'series.json'}")
+    sys.exit(r.exit_code)
+
+
+def print_series(r, p) -> None:
+    """Verdict, the method's findings, the tubes and the checks."""
+    from ..paper import fmt
+
+    out.print(f"[bold]{escape(r.title)}[/bold] — {r.method} series")
+    out.print(f"Question: {escape(r.question)}")
+    colour = "green" if r.answers else "red"
+    out.print(f"Verdict: [bold {colour}]{'answers it' if r.answers else 'cannot answer it'}[/] — "
+              f"{escape(r.verdict_reason)}")
+    for line in r.notes:
+        out.print(f"  • {escape(line)}")
+    a = r.assessment
+    rows = a.tube_rows()
+    dispensed = r.recipe.dispensed_ids(p)
+    step = p.glassware.step_mL
+    t = Table(title="Tubes")
+    for c in ("tube", *(f"{s} / mL" for s in dispensed), "M tot", "L tot", "A ± sd", *r.columns):
+        t.add_column(c, justify="right")
+    lo, hi = a.model.linear_range
+    for i, tube in enumerate(r.recipe.tubes):
+        A = rows[i]["absorbance"]
+        a_txt = f"{A:.3f} ± {rows[i]['absorbance_sd']:.3f}"
+        if not lo <= A <= hi:
+            a_txt = f"[red]{a_txt} out[/red]"
+        t.add_row(escape(tube), *(fmt.volume(r.recipe.column(s)[i], step) for s in dispensed),
+                  fmt.conc(a.state.totals_M[i, 0]), fmt.conc(a.state.totals_M[i, 1]), a_txt,
+                  *(f"{float(v[i]):.3f}" for v in r.columns.values()))
+    out.print(t)
+    col = {"pass": "green", "warn": "yellow", "fail": "red"}
+    t = Table(title="Checks")
+    for c in ("check", "status", "what was found / what to do"):
+        t.add_column(c)
+    for c in r.checks:
+        t.add_row(c.id, f"[{col[c.status]}]{c.status}[/]", escape(c.message))
+    out.print(t)

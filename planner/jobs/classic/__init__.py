@@ -1,0 +1,43 @@
+"""Classic hand-made series (Job's method, complete-conversion calibration, mole-ratio) and the wavelength
+survey, planned on the plan's glassware and judged by the same model and error budget as every other job."""
+
+from __future__ import annotations
+
+from ._deps import Plan, plan_model
+from .calibration import conversion_tube
+from .common import SeriesResult
+from .job import continuous_variation
+from .mole_ratio import mole_ratio_series
+from .survey import wavelength_survey
+
+# the methods ``kplan series --method`` offers; a method is listed only when it is finished
+METHODS = ("job", "calibration", "mole-ratio", "survey")
+# which options each method takes (the command refuses the others rather than ignore them)
+METHOD_OPTIONS = {
+    "points": ("job", "mole-ratio"),
+    "total": ("job", "calibration", "mole-ratio"),
+    "limiting": ("calibration",),
+    "excess": ("calibration",),
+    "tubes": ("calibration",),
+    "vary": ("mole-ratio",),
+    "max-ratio": ("mole-ratio",),
+    "recipe": ("survey",),
+}
+
+__all__ = ["METHODS", "METHOD_OPTIONS", "SeriesResult", "continuous_variation", "conversion_tube", "mole_ratio_series", "plan_model", "run_series",
+           "wavelength_survey"]
+
+
+def run_series(plan: Plan, method: str, *, points: int | None = None, total_M: float | None = None,
+               tubes: int | None = None, limiting: str | None = None, excess_M: float | None = None,
+               vary: str | None = None, max_ratio: float | None = None, recipe=None) -> SeriesResult:
+    """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
+    if method == "job":
+        return continuous_variation(plan, points=points, total_M=total_M)
+    if method == "calibration":
+        return conversion_tube(plan, limiting=limiting, total_M=total_M, excess_M=excess_M, tubes=tubes or 1)
+    if method == "mole-ratio":
+        return mole_ratio_series(plan, vary=vary or "L", points=points, total_M=total_M, max_ratio=max_ratio)
+    if method == "survey":
+        return wavelength_survey(plan, recipe)
+    raise ValueError(f"unknown method {method!r}")

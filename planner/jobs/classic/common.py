@@ -1,0 +1,263 @@
+"""What every classic series shares: the corrected absorbance, grid snapping, curves between the tubes,
+scaled stocks, the range check and the result object that ``kplan series`` prints.
+
+Names from the rest of the package come through :mod:`._deps` (``plan_model`` and ``assess_tubes``
+included), so a move elsewhere in the package changes that one file.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from contextlib import contextmanager
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from ._deps import (
+    ActivityWarning,
+    Assessment,
+    Check,
+    Model,
+    Plan,
+    PlanError,
+    Recipe,
+    TubeState,
+    make_recipe,
+    predict,
+    tube_ions_M,
+)
+
+STATUSES = ("pass", "warn", "fail")
+# checks of kplan assess that keep their meaning for every classic series; the others (saturation
+# window, conversion, …) judge a binding-curve design and would mislead here
+KEPT_ASSESS_CHECKS = ("glassware", "stock-budget", "ionic-strength", "hydrolysis", "protonation")
+
+
+@dataclass(frozen=True)
+class SeriesResult:
+    """A classic series planned and judged.
+
+    Attributes
+    ----------
+    method : "job" | "calibration" | "mole-ratio" | "survey".
+    title : the plan's title.
+    question : what the series is meant to answer, one sentence.
+    recipe : the tubes (volumes in mL on the plan's grid).
+    assessment : expected tubes and error budget of the recipe (no precision analysis).
+    checks : method checks followed by the kept checks of ``kplan assess``, worst first.
+    answers : True when the series can answer its question (no check fails).
+    verdict_reason : one sentence.
+    extra : method-specific JSON-safe values (``extremum_mole_fraction``, ``discrimination``, …).
+    columns : per-tube values shown beside the volumes: name -> (n,) array.
+    notes : the method's findings, one line each, for people (the JSON carries the numbers).
+    """
+
+    method: str
+    title: str
+    question: str
+    recipe: Recipe
+    assessment: Assessment
+    checks: tuple[Check, ...]
+    answers: bool
+    verdict_reason: str
+    extra: dict = field(default_factory=dict, hash=False)
+    columns: dict = field(default_factory=dict, hash=False)
+    notes: tuple[str, ...] = ()
+
+    def __repr__(self) -> str:
+        return f"SeriesResult({self.method}, {self.recipe.n_tubes} tubes, answers={self.answers})"
+
+    @property
+    def exit_code(self) -> int:
+        return 0 if self.answers else 1
+
+    def summary(self) -> dict:
+        """JSON-safe dict: ``method``, ``tubes`` (as ``kplan assess --json``), ``checks`` and the extras."""
+        out = {
+            "title": self.title,
+            "method": self.method,
+            "question": self.question,
+            "answers": self.answers,
+            "verdict_reason": self.verdict_reason,
+            "tubes": self.assessment.tube_rows(),
+            "checks": [c.summary() for c in self.checks],
+        }
+        out.update(self.extra)
+        return json_safe(out)
+
+
+def json_safe(x):
+    """Replace NaN/±inf by None and numpy scalars/arrays by plain Python values, recursively."""
+    if isinstance(x, dict):
+        return {str(k): json_safe(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [json_safe(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return json_safe(x.tolist())
+    if isinstance(x, (bool, np.bool_)):
+        return bool(x)
+    if isinstance(x, (int, np.integer)):
+        return int(x)
+    if isinstance(x, (float, np.floating)):
+        x = float(x)
+        return x if math.isfinite(x) else None
+    return x
+
+
+def finish(method: str, plan: Plan, question: str, recipe: Recipe, a: Assessment, own: list[Check],
+           extra: dict, columns: dict, reason_ok: str, reason_bad: str | None = None,
+           notes: tuple[str, ...] = ()) -> SeriesResult:
+    """Merge the method's checks with the kept assess checks, sort worst first and decide the verdict."""
+    kept = [c for c in a.checks if c.id in KEPT_ASSESS_CHECKS]
+    checks = sorted(own + kept, key=lambda c: -STATUSES.index(c.status))
+    failed = [c for c in checks if c.status == "fail"]
+    answers = not failed
+    if answers:
+        reason = reason_ok
+    else:
+        reason = reason_bad or f"check '{failed[0].id}' fails: {failed[0].message}"
+    return SeriesResult(method, plan.title, question, recipe, a, tuple(checks), answers, reason, extra, columns,
+                        tuple(notes))
+
+
+# ----------------------------------------------------------------------------------------------------
+# numbers shared by the methods
+
+def snap(v, step: float) -> np.ndarray:
+    """Round volumes to the grid (and to 10 decimals so 0.1 + 0.2 prints as 0.3)."""
+    return np.round(np.round(np.asarray(v, dtype=float) / step) * step, 10)
+
+
+def pure_stock(plan: Plan, comp: str) -> tuple[int, str, float]:
+    """(index, id, concentration) of the first stock that holds ``comp`` ("M" or "L") and not the other."""
+    other = "L" if comp == "M" else "M"
+    for k, s in enumerate(plan.stock):
+        if s.conc.get(comp) and not s.conc.get(other):
+            return k, s.id, float(s.conc[comp])
+    name = "metal" if comp == "M" else "ligand"
+    raise PlanError("stock", f"a classic series needs a stock of the {name} alone: add a [[stock]] with "
+                    f"conc = {{ {comp} = '...' }} and no {other}")
+
+
+def capacity_mL(plan: Plan, sid: str) -> float:
+    """Largest single delivery of the dispenser that delivers ``sid`` (inf when none is named)."""
+    d = plan.dispenser_for(sid)
+    return float(d.capacity_mL) if d is not None else float("inf")
+
+
+def fill_volumes(plan: Plan, dispensed: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """(…, k) volumes of every stock (diluent filled under ``to-mark``) and (…,) total volumes, for
+    arbitrary (unsnapped, batched) compositions; used for curves between the tubes."""
+    ids = [s.id for s in plan.stock]
+    shape = np.broadcast(*dispensed.values()).shape
+    vol = np.zeros(shape + (len(ids),))
+    for sid, v in dispensed.items():
+        vol[..., ids.index(sid)] = v
+    for sid, v in plan.design.fixed.items():
+        if sid not in dispensed:
+            vol[..., ids.index(sid)] = v
+    tube = plan.glassware.tube_volume_mL
+    dil = plan.diluent
+    if dil is not None and dil.id not in dispensed:
+        j = ids.index(dil.id)
+        vol[..., j] = 0.0
+        vol[..., j] = np.maximum(tube - vol.sum(axis=-1), 0.0)
+        total = np.full(shape, tube)
+    else:
+        total = vol.sum(axis=-1)
+    return vol, total
+
+
+def series_recipe(plan: Plan, dispensed: dict[str, np.ndarray], tubes: list[str]) -> Recipe:
+    """A recipe from the dispensed volumes; under ``make_up = "added"`` the diluent (if the plan has one)
+    is dispensed too, so every tube has the tube volume."""
+    cols = dict(dispensed)
+    dil = plan.diluent
+    if plan.glassware.make_up == "added" and dil is not None and dil.id not in cols:
+        others = sum(np.asarray(v, dtype=float) for v in cols.values())
+        others = others + sum(v for k, v in plan.design.fixed.items() if k not in cols and k != dil.id)
+        cols[dil.id] = snap(np.maximum(plan.glassware.tube_volume_mL - others, 0.0), plan.glassware.step_mL)
+    return make_recipe(plan, cols, tubes)
+
+
+@contextmanager
+def hypothetical():
+    """Silence activity-model warnings while exploring hypothetical tubes (a 10 M excess, a 1000-fold
+    stock): the planned tubes are assessed, and warned about, without it."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ActivityWarning)
+        yield
+
+
+def predict_volumes(model: Model, vol: np.ndarray, total: np.ndarray, **kw) -> TubeState:
+    """Tube states for (…, n, k) volumes, vectorised over every leading axis."""
+    tot = (vol @ model.stock_conc_M) / total[..., None]
+    ions = tube_ions_M(model, vol, total)
+    with hypothetical():
+        return predict(model, tot, ions, warn=False, **kw)
+
+
+def free_absorbance(model: Model, totals_M: np.ndarray) -> np.ndarray:
+    """b·(ε_M·[M]₀ + ε_L·[L]₀): what the free reagents would read if nothing bound."""
+    eM, eL = model.epsilon_M_cm[0], model.epsilon_M_cm[1]
+    return model.path_cm * (eM * totals_M[..., 0] + eL * totals_M[..., 1])
+
+
+def corrected(model: Model, state: TubeState) -> np.ndarray:
+    """Corrected absorbance Y = A − ε_M·[M]₀·b − ε_L·[L]₀·b (the reading less the free reagents')."""
+    return state.absorbance - free_absorbance(model, state.totals_M)
+
+
+def scaled_model(model: Model, scale: float, comps=(0, 1)) -> Model:
+    """The model with the M and/or L content of every stock multiplied by ``scale`` (other ions kept)."""
+    conc = model.stock_conc_M.copy()
+    conc[:, list(comps)] *= scale
+    return replace(model, stock_conc_M=conc)
+
+
+def scaled_in_range(model: Model, recipe: Recipe, scale: float) -> tuple[Model, TubeState]:
+    """The recipe with both reagents ``scale`` times as concentrated and, where its readings would pass
+    the top of the linear range, the path shortened so the highest one sits at the top (absorbance is
+    proportional to the path; the noise then stays that of readings inside the range)."""
+    ms = scaled_model(model, scale)
+    tot = (recipe.volumes_mL @ ms.stock_conc_M) / recipe.total_volume_mL[:, None]
+    ions = tube_ions_M(ms, recipe.volumes_mL, recipe.total_volume_mL)
+    with hypothetical():
+        st = predict(ms, tot, ions, warn=False)
+        hi = model.linear_range[1]
+        top = float(st.absorbance_true.max())
+        if top > hi:
+            ms = replace(ms, path_cm=ms.path_cm * hi / top)
+            st = predict(ms, tot, ions, warn=False)
+    return ms, st
+
+
+def range_check(model: Model, state: TubeState, tubes, *, low_is_warning: bool,
+                fix_high: str = "lower the total concentration (--total) or use a shorter path") -> Check:
+    """Readings inside the linear range: above it always fails (the curve's shape is bent); below it
+    fails or, where small readings are inherent to the method (the ends of a Job series), warns."""
+    lo, hi = model.linear_range
+    a = state.absorbance
+    over, under = a > hi, a < lo
+    names = lambda m: ", ".join([t for t, x in zip(tubes, m, strict=True) if x][:6])  # noqa: E731
+    if over.any():
+        return Check("linear-range", "fail",
+                     f"{names(over)} read above {hi:g} (A up to {a.max():.3f}): {fix_high}")
+    if under.any():
+        return Check("linear-range", "warn" if low_is_warning else "fail",
+                     f"{names(under)} read below {lo:g} (A down to {a.min():.3f}): their relative precision is "
+                     f"poor; raise the total concentration if the upper end allows")
+    return Check("linear-range", "pass", f"all {len(tubes)} tubes read between {lo:g} and {hi:g} "
+                 f"(A = {a.min():.3f}–{a.max():.3f})")
+
+
+def fmt_conc(c_M: float) -> str:
+    """A concentration for a message: mM or µM as fits."""
+    if not np.isfinite(c_M):
+        return "—"
+    if c_M >= 0.1:
+        return f"{c_M:.3g} M"
+    if c_M >= 1e-4:
+        return f"{c_M * 1e3:.3g} mM"
+    return f"{c_M * 1e6:.3g} µM"

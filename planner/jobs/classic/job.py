@@ -1,0 +1,297 @@
+"""Job's method of continuous variation (Job 1928, Ann. Chim. 9:113).
+
+Equimolar metal and ligand stocks are mixed at a constant sum of volumes, so every tube has the same
+total concentration C = [M]₀ + [L]₀ while the metal's mole fraction x = [M]₀/C runs across (0, 1). The
+corrected absorbance Y = A − b·(ε_M·[M]₀ + ε_L·[L]₀) equals b·Σ_s (ε_s − p_s·ε_M − q_s·ε_L)·[s], so for a
+single complex M_pL_q it is proportional to [M_pL_q], whose maximum lies at x = p/(p + q) for any K and
+any ε (Job 1928). With two complexes (ML + ML2) the extremum lands between and moves with C; for weak
+binding the curve is flat. The series is judged by whether it tells the plan's stoichiometry from its
+rivals (1:1, 1:2, 2:1, 1:1+1:2) above the noise (:mod:`.rivals`), and if not, which total would
+[source: Hibbert & Thordarson 2016, Chem. Commun. 52:12792; Ulatowski et al. 2016, J. Org. Chem. 81:1746].
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from . import rivals as rv
+from ._deps import (
+    Check,
+    Plan,
+    PlanError,
+    assess_tubes,
+    error_budget,
+    plan_devices,
+    plan_model,
+    predict,
+    tube_ions_M,
+    whitening,
+)
+from .common import (
+    SeriesResult,
+    capacity_mL,
+    corrected,
+    fill_volumes,
+    finish,
+    fmt_conc,
+    predict_volumes,
+    pure_stock,
+    range_check,
+    scaled_in_range,
+    series_recipe,
+    snap,
+)
+
+METHOD = "job"
+DEFAULT_POINTS = 9
+EQUIMOLAR_RTOL = 0.005  # stocks within 0.5 % count as equimolar [common practice: within their stated rsd]
+CURVE_POINTS = 199
+SEARCH_SCALES = 2.0 ** np.arange(1, 8)  # totals tried when the planned one cannot separate: ×2 … ×128
+QUESTION = "which stoichiometry: does the curve tell the plan's complexes from 1:1, 1:2, 2:1 and 1:1+1:2?"
+
+
+def continuous_variation(plan: Plan, *, points: int | None = None, total_M: float | None = None) -> SeriesResult:
+    """Plan and judge a continuous-variation series.
+
+    Parameters
+    ----------
+    points : number of tubes (mole fractions i/(points + 1), i = 1 … points, on the volume grid).
+    total_M : total concentration [M]₀ + [L]₀ in each tube, mol/L (default: the largest on the grid
+        that keeps every reading inside the linear range).
+    """
+    model = plan_model(plan)
+    _, m_id, cM = pure_stock(plan, "M")
+    _, l_id, cL = pure_stock(plan, "L")
+    _require_equimolar(plan, m_id, cM, l_id, cL)
+    n = DEFAULT_POINTS if points is None else int(points)
+    if n < 3:
+        raise PlanError("--points", f"{n} points cannot show an extremum: use at least 3 (9–11 is usual)")
+    g = plan.glassware
+    step, vmin = g.step_mL, max(g.min_volume_mL, g.step_mL)
+    avail = g.tube_volume_mL - sum(v for k, v in plan.design.fixed.items() if k not in (m_id, l_id))
+    x = np.arange(1, n + 1) / (n + 1)
+    if total_M is not None:
+        if total_M <= 0:
+            raise PlanError("--total", "the total concentration must be positive, e.g. --total '2 mM'")
+        vs = float(snap(total_M * g.tube_volume_mL / cM, step))
+        if vs > avail + 1e-9:
+            raise PlanError("--total", f"{fmt_conc(total_M)} needs {vs:g} mL of stock per tube, more than the "
+                            f"{avail:g} mL available: lower --total or use more concentrated stocks")
+        caps = (capacity_mL(plan, m_id), capacity_mL(plan, l_id))
+        if not _valid(np.array([vs]), x, step, vmin, caps)[0]:
+            raise PlanError("--total", f"at {fmt_conc(total_M)} ({vs:g} mL of stock per tube) the {n} mole fractions "
+                            f"do not fit the {step:g} mL grid between min_volume {vmin:g} mL and the dispensers' "
+                            f"capacity: change --total or use fewer --points")
+    else:
+        vs = _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n)
+    vm = snap(x * vs, step)
+    recipe = series_recipe(plan, {m_id: vm, l_id: snap(vs - vm, step)}, [f"J{i + 1}" for i in range(n)])
+    a = assess_tubes(plan, recipe)
+    st = a.state
+    C = float(np.median(st.totals_M.sum(axis=1)))
+    xm = st.totals_M[:, 0] / st.totals_M.sum(axis=1)
+    sd = np.sqrt(np.diag(a.budget.total))
+    y = corrected(model, st)
+
+    # the curve between the tubes at the same total
+    xf = np.linspace(0.005, 0.995, CURVE_POINTS)
+    vol, tot = fill_volumes(plan, {m_id: xf * vs, l_id: (1 - xf) * vs})
+    yf = corrected(model, predict_volumes(model, vol, tot))
+    x_ext, y_ext = _extremum(xf, yf)
+
+    # rivals at the planned total, then (if needed) the total that would separate them
+    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    fits = _rival_fits(model, st.totals_M, ions, st.absorbance_true, a.budget.total)
+    needed = None
+    close = [f for f in fits if f.separation_sd < rv.SEPARATION_WANTED]
+    if close:
+        # search for the stoichiometric rivals first: the nested one may never separate at one wavelength
+        nested = all(f.nested for f in close)
+        needed = _total_that_separates(plan, model, recipe, ions, C, nested)
+
+    checks = [Check("equimolar", "pass", f"{m_id} and {l_id} are both {fmt_conc(cM)}: equimolar"),
+              range_check(model, st, recipe.tubes, low_is_warning=True, fix_high=_fix_high(plan, n, vs, cM)),
+              _extremum_check(model, x_ext, C)]
+    if fits:
+        checks.append(_discrimination_check(model, fits, C, needed))
+    extra = {
+        "stocks": {"metal": m_id, "ligand": l_id, "conc_M": cM},
+        "total_M": C,
+        "extremum_mole_fraction": x_ext,
+        "extremum_corrected_absorbance": y_ext,
+        "plan_model": rv.plan_label(model),
+        "discrimination": [f.summary() for f in fits],
+        "separation_wanted_sd": rv.SEPARATION_WANTED,
+        "total_needed_M": needed[0] if needed else None,
+        "path_cm_at_total_needed": needed[1] if needed else None,
+        "series": [{"tube": t, "mole_fraction": float(xm[i]), "corrected_absorbance": float(y[i]),
+                    "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])]}
+                   for i, t in enumerate(recipe.tubes)],
+        "curve": {"mole_fraction": xf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
+    }
+    columns = {"x_M": xm, "Y": y, "±2sd": 2 * sd}
+    far = [f for f in fits if not f.nested]
+    ok = (f"the curve tells {rv.plan_label(model)} from "
+          + (", ".join(f.model for f in far) or "its rivals")
+          + f" by ≥ {rv.SEPARATION_WANTED:g} sd at C = {fmt_conc(C)}; extremum at x_M = {x_ext:.3f}")
+    notes = [f"total concentration C = [M]0 + [L]0 = {fmt_conc(C)} in every tube ({vs:g} mL of stock)",
+             f"extremum of the corrected absorbance at x_M = {x_ext:.3f} (Y = {y_ext:.3f})",
+             "separation from rival models (whitened residual of their best fit): "
+             + (", ".join(f"{f.model} {f.separation_sd:.1f} sd" for f in fits) or "none")]
+    if needed:
+        cell = f" in a {needed[1]:.2g} cm cell" if needed[1] < model.path_cm * 0.999 else ""
+        kind = "nested" if all(f.nested for f in close) else "stoichiometric"
+        notes.append(f"a total of {fmt_conc(needed[0])}{cell} would separate the {kind} rivals by "
+                     f"≥ {rv.SEPARATION_WANTED:g} sd")
+    return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
+
+
+def corrected_curve(model, total_M: float, x: np.ndarray) -> np.ndarray:
+    """Corrected absorbance Y(x) at total ``total_M`` for metal mole fractions ``x`` (no other ions),
+    vectorised over x; the physics of the curve without the glassware."""
+    x = np.asarray(x, dtype=float)
+    tot = np.stack([x * total_M, (1 - x) * total_M], axis=-1)
+    return corrected(model, predict(model, tot, warn=False))
+
+
+def extremum_at(model, total_M: float, n: int = 999) -> float:
+    """Metal mole fraction of the curve's extremum at total ``total_M`` (fine grid + parabola)."""
+    x = np.linspace(0.5 / n, 1 - 0.5 / n, n)
+    return _extremum(x, corrected_curve(model, total_M, x))[0]
+
+
+def _require_equimolar(plan: Plan, m_id: str, cM: float, l_id: str, cL: float) -> None:
+    if abs(cM / cL - 1.0) <= EQUIMOLAR_RTOL:
+        return
+    hi_id, hi_c, lo_c, comp = (m_id, cM, cL, "M") if cM > cL else (l_id, cL, cM, "L")
+    k = [s.id for s in plan.stock].index(hi_id)
+    flask = 100.0
+    take = flask * lo_c / hi_c
+    dil = plan.diluent.id if plan.diluent is not None else "the medium"
+    raise PlanError(f"stock[{k}].conc.{comp}",
+                    f"continuous variation needs equimolar stocks, but {m_id} is {fmt_conc(cM)} and {l_id} "
+                    f"{fmt_conc(cL)}: dilute {hi_id} — {take:.2f} mL made up to {flask:.0f} mL with {dil} gives "
+                    f"{fmt_conc(lo_c)} — and give that stock in the plan")
+
+
+def _fix_high(plan: Plan, n: int, vs: float, c: float) -> str:
+    lowest = max(plan.glassware.min_volume_mL, plan.glassware.step_mL) * (n + 1)
+    if vs <= lowest + 1e-9:
+        return (f"this is already the lowest total the grid allows with {n} points ({vs:g} mL of stock per "
+                f"tube): use fewer --points, dilute both stocks alike, or a shorter path")
+    return "lower the total concentration (--total) or use a shorter path"
+
+
+def _valid(vs: np.ndarray, x: np.ndarray, step: float, vmin: float, caps=(np.inf, np.inf)) -> np.ndarray:
+    """Which sums of volumes put every mole fraction on the grid, distinct, above min_volume and within
+    each dispenser's capacity."""
+    vm = snap(x[None, :] * vs[:, None], step)
+    vl = snap(vs[:, None] - vm, step)
+    distinct = np.all(np.diff(vm, axis=1) > step / 2, axis=1)
+    return (distinct & (vm.min(axis=1) >= vmin - 1e-9) & (vl.min(axis=1) >= vmin - 1e-9)
+            & (vm.max(axis=1) <= caps[0] + 1e-9) & (vl.max(axis=1) <= caps[1] + 1e-9))
+
+
+def _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n) -> float:
+    """The largest sum of stock volumes whose curve stays below the top of the linear range."""
+    cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
+    cand = cand[_valid(cand, x, step, vmin, (capacity_mL(plan, m_id), capacity_mL(plan, l_id)))]
+    if cand.size == 0:
+        raise PlanError("--points", f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube "
+                        f"on the {step:g} mL grid above min_volume {vmin:g} mL: use fewer --points")
+    xf = np.linspace(0.02, 0.98, 49)
+    vol, tot = fill_volumes(plan, {m_id: cand[:, None] * xf, l_id: cand[:, None] * (1 - xf)})
+    peak = predict_volumes(model, vol, tot).absorbance.max(axis=1)
+    inside = np.flatnonzero(peak <= model.linear_range[1])
+    return float(cand[inside[-1]] if inside.size else cand[0])
+
+
+def _extremum(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """Position and value of the largest |Y|, refined by a parabola through the three nearest points."""
+    j = int(np.argmax(np.abs(y)))
+    if 0 < j < x.size - 1:
+        y0, y1, y2 = y[j - 1], y[j], y[j + 1]
+        den = y0 - 2 * y1 + y2
+        if den != 0:
+            d = 0.5 * (y0 - y2) / den
+            if abs(d) <= 1:
+                h = x[1] - x[0]
+                return float(x[j] + d * h), float(y1 - 0.25 * (y0 - y2) * d)
+    return float(x[j]), float(y[j])
+
+
+def _rival_fits(model, totals, ions, data, cov) -> list[rv.RivalFit]:
+    W = whitening(cov)
+    return [rv.fit_rival(model, lab, pq, totals, ions, data, W) for lab, pq in rv.rivals_for(model)]
+
+
+def _separation_at(plan, model, recipe, ions, scale: float, devices, nested: bool) -> tuple[float, float]:
+    """Smallest separation of the (non-)nested rivals with both stocks ``scale`` times as concentrated
+    (path shortened where the readings would pass the linear range), and that path."""
+    ms, st = scaled_in_range(model, recipe, scale)
+    cov = error_budget(plan, ms, recipe, st, devices).total
+    W = whitening(cov)
+    fits = [rv.fit_rival(ms, lab, pq, st.totals_M, ions, st.absorbance_true, W) for lab, pq in rv.rivals_for(ms)]
+    return min(f.separation_sd for f in fits if f.nested == nested), float(ms.path_cm)
+
+
+def _total_that_separates(plan, model, recipe, ions, C: float, nested: bool) -> tuple[float, float] | None:
+    """Smallest total (×2 steps, then bisection in log) at which every rival of the kind (nested or
+    not) is ≥ SEPARATION_WANTED sd away, with the path that keeps the readings in range; None when even
+    ×128 does not do it."""
+    devices = plan_devices(plan)
+    lo = 1.0
+    for s in SEARCH_SCALES:
+        sep, path = _separation_at(plan, model, recipe, ions, float(s), devices, nested)
+        if sep >= rv.SEPARATION_WANTED:
+            hi, hi_path = float(s), path
+            for _ in range(3):
+                mid = float(np.sqrt(lo * hi))
+                sep_m, path_m = _separation_at(plan, model, recipe, ions, mid, devices, nested)
+                if sep_m >= rv.SEPARATION_WANTED:
+                    hi, hi_path = mid, path_m
+                else:
+                    lo = mid
+            return hi * C, hi_path
+        lo = float(s)
+    return None
+
+
+def _extremum_check(model, x_ext: float, C: float) -> Check:
+    pq = [(int(p), int(q)) for (p, q, _), m in zip(model.stoich, model.complex_mask, strict=True) if m]
+    if len(pq) == 1:
+        p, q = pq[0]
+        want = p / (p + q)
+        return Check("extremum", "pass", f"extremum at x_M = {x_ext:.3f}; a single {p}:{q} complex puts it at "
+                     f"{want:.3f} (Job 1928) whatever K and ε")
+    return Check("extremum", "pass", f"extremum at x_M = {x_ext:.3f} at C = {fmt_conc(C)}: with "
+                 f"{rv.plan_label(model)} it lies between the single complexes' positions and moves with C — "
+                 f"read the stoichiometry from the fit, not from the peak")
+
+
+def _discrimination_check(model, fits, C, needed) -> Check:
+    """Fail when a rival of another stoichiometry stays within SEPARATION_WANTED sd; warn when only a
+    nested rival (the plan's complexes plus a material extra one) does."""
+    seps = ", ".join(f"{f.model} {f.separation_sd:.1f} sd" for f in fits)
+    own = rv.plan_label(model)
+    close = [f for f in fits if f.separation_sd < rv.SEPARATION_WANTED]
+    if not close:
+        return Check("discrimination", "pass", f"at C = {fmt_conc(C)} the curve tells {own} from its rivals "
+                     f"above the noise: {seps} (≥ {rv.SEPARATION_WANTED:g} sd wanted)")
+    names = " or ".join(f.model for f in close)
+    msg = f"at C = {fmt_conc(C)} the curve cannot tell {own} from {names} ({seps}; {rv.SEPARATION_WANTED:g} sd wanted)"
+    if needed is None:
+        msg += "; no total up to 128× the planned one does"
+        alt = ": fit all complexes globally over a designed series (kplan design) instead of reading the stoichiometry off this curve"
+    else:
+        alt = " — or fit all complexes globally over a designed series (kplan design)"
+        c_need, path = needed
+        msg += f"; a total of {fmt_conc(c_need)} would"
+        if path < model.path_cm * 0.999:
+            msg += f" (in a {path:.2g} cm cell, to keep the readings in the linear range)"
+    if all(f.nested for f in close):
+        return Check("discrimination", "warn", msg + (
+            f". The rival only adds a complex holding ≥ {rv.MATERIAL_SHARE:.0%} of the metal somewhere, and one "
+            f"that absorbs like {own} per metal hides in any single-wavelength curve: read a second wavelength "
+            f"or fit a designed series with both complexes (kplan design) before excluding it"))
+    return Check("discrimination", "fail", msg + alt)

@@ -1,0 +1,307 @@
+"""The mole-ratio method: one reagent held fixed, the other rising; the corrected absorbance climbs
+and levels off, and the break — where the initial line meets the plateau — sits at the complex's
+ratio when the complex is strong.
+
+How sharp is the break? For a 1:1 complex at fixed metal C, at the equivalence point free metal and
+free ligand are equal, x, with K·x² = C − x, so the curve falls short of the asymptotes' corner by the
+fraction x/C = (√(1 + 4KC) − 1)/(2KC) ≈ 1/√(KC) [derived]: 10 % at K·C = 100, the usual "sharp break"
+rule. (Measured, as here, against the curve's own tangents — the initial one has slope KC/(1 + KC) of the
+complete-conversion line — the shortfall is a little smaller: 8.6 % at K·C = 100.) What the user reads, though, is the intersection of two straight lines drawn through the tubes
+well before and well after the break (the hand analysis). This module computes that intersection from
+the noise-free prediction of the planned tubes — its offset from the complex's ratio is the bias the
+curvature causes — and its sd from the readings' covariance (whole error budget) by linear propagation
+through the two least-squares lines. The break is *resolvable* when
+
+1. |bias| + 2 sd ≤ ``BREAK_TOLERANCE`` × the ratio (so 1:1 is not read as 2:3 or 3:2), and
+2. the lines are really straight: the curve at the ratio falls short of the corner of its asymptotes
+   (the tangents at the start and the end of the curve) by at most ``SHARP_SHORTFALL`` of the corner's
+   height — K·C ≥ ~100 for 1:1, derived above — or by less than ``INVISIBLE_SD`` reading sd, so that
+   the readings cannot see the rounding at all. (A two-line intersection through a rounded curve can
+   land near the ratio by chance of the tube spacing; this second condition keeps that from counting.)
+
+Both the bias (through K·C) and the sd (through the signal) improve with the fixed concentration, so the
+concentration that makes the break resolvable is searched upward; readings leaving the linear range
+are reported with it.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ._deps import (
+    Check,
+    Plan,
+    PlanError,
+    assess_tubes,
+    error_budget,
+    plan_devices,
+    plan_model,
+    predict,
+    tube_ions_M,
+)
+from .common import (
+    SeriesResult,
+    capacity_mL,
+    corrected,
+    fill_volumes,
+    finish,
+    fmt_conc,
+    hypothetical,
+    predict_volumes,
+    pure_stock,
+    range_check,
+    scaled_in_range,
+    series_recipe,
+    snap,
+)
+
+METHOD = "mole-ratio"
+DEFAULT_POINTS = 10
+RATIO_SPAN = 2.5  # the series runs to 2.5 × the highest complex ratio [common practice: well past the break]
+LINE_MARGIN = 0.25  # the hand lines use tubes at ≤ 0.75 and ≥ 1.25 × the expected ratio [common practice]
+BREAK_TOLERANCE = 0.10  # |bias| + 2 sd ≤ 10 % of the ratio: 1:1 is not mistaken for 2:3 or 3:2 [derived]
+SHARP_SHORTFALL = 0.10  # ≤ 10 % short of the corner: K·C ≥ ~100 for 1:1 [derived: shortfall ≈ 1/√(KC)]
+INVISIBLE_SD = 2.0  # a rounding under 2 reading sd is invisible in the data [common practice: 2-sd band]
+SEARCH_SCALES = np.geomspace(1.0, 1000.0, 31)[1:]
+CURVE_POINTS = 201
+QUESTION = "where is the break, and is it sharp enough to read the complex's ratio from two straight lines?"
+
+
+def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None, total_M: float | None = None,
+               max_ratio: float | None = None) -> SeriesResult:
+    """Plan and judge a mole-ratio series.
+
+    Parameters
+    ----------
+    vary : the rising reagent, "L" (metal fixed, the usual way) or "M" (ligand fixed).
+    points : number of tubes (ratios max_ratio·i/points, i = 1 … points, on the volume grid).
+    total_M : the fixed reagent's concentration in every tube (default: the largest whose readings stay in
+        the linear range).
+    max_ratio : the highest ratio varied/fixed (default: 2.5 × the highest ratio among the complexes).
+    """
+    if vary not in ("L", "M"):
+        raise PlanError("--vary", f"'{vary}': write L (metal fixed, ligand rising) or M (ligand fixed, metal rising)")
+    model = plan_model(plan)
+    fix = "M" if vary == "L" else "L"
+    fi, vi = (0, 1) if fix == "M" else (1, 0)
+    _, fix_id, c_fix = pure_stock(plan, fix)
+    _, var_id, c_var = pure_stock(plan, vary)
+    target = plan.target
+    j = model.index(target)
+    if not model.complex_mask[j]:
+        raise PlanError("design.target", f"'{target}' is not a metal–ligand complex: name the complex whose "
+                        f"ratio the series should find")
+    expected = float(model.stoich[j, vi] / model.stoich[j, fi])
+    mask = model.complex_mask
+    highest = float(np.max(model.stoich[mask, vi] / model.stoich[mask, fi]))
+    n = DEFAULT_POINTS if points is None else int(points)
+    if n < 5:
+        raise PlanError("--points", f"{n} tubes cannot give two lines of at least two tubes: use 8–12")
+    if max_ratio is None:
+        # 2.5 × the richest complex's ratio, but low enough to leave two tubes before the break (with 5 %
+        # to spare for the rounding of volumes to the grid)
+        r_max = min(RATIO_SPAN * highest, 0.95 * (1 - LINE_MARGIN) * expected * n / 2)
+    else:
+        r_max = float(max_ratio)
+    if r_max <= expected * (1 + LINE_MARGIN):
+        raise PlanError("--max-ratio", f"{r_max:g} does not reach past the break at {expected:g}: use at least "
+                        f"{2 * expected:g}")
+    g = plan.glassware
+    step, vmin, V = g.step_mL, max(g.min_volume_mL, g.step_mL), g.tube_volume_mL
+    r = r_max * np.arange(1, n + 1) / n
+    avail = V - sum(v for k, v in plan.design.fixed.items() if k not in (fix_id, var_id))
+    if total_M is not None:
+        v_fix = float(snap(total_M * V / c_fix, step))
+        caps = (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
+        if not _valid(np.array([v_fix]), r, c_fix, c_var, step, vmin, avail, caps)[0]:
+            vv = snap(r * v_fix * c_fix / c_var, step)
+            raise PlanError("--total", f"{fmt_conc(total_M)} of {fix} is {v_fix:g} mL of {fix_id}; the {n} volumes "
+                            f"of {var_id} up to ratio {r_max:g} would run {vv[0]:g}–{vv[-1]:g} mL, which must be "
+                            f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most {min(caps[1], avail - v_fix):g} mL: "
+                            f"choose another --total, fewer --points or another --max-ratio")
+    else:
+        v_fix = _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n)
+    v_var = snap(r * v_fix * c_fix / c_var, step)
+    recipe = series_recipe(plan, {fix_id: np.full(n, v_fix), var_id: v_var}, [f"R{i + 1}" for i in range(n)])
+    a = assess_tubes(plan, recipe)
+    st = a.state
+    ratio = st.totals_M[:, vi] / st.totals_M[:, fi]
+    C = float(np.median(st.totals_M[:, fi]))
+    cov = a.budget.total
+    y = corrected(model, st)
+    sd = np.sqrt(np.diag(cov))
+    rf = np.linspace(0.0, r_max, CURVE_POINTS)
+    vol, tot = fill_volumes(plan, {fix_id: np.full(rf.size, v_fix), var_id: rf * v_fix * c_fix / c_var})
+    curve_totals = (vol @ model.stock_conc_M) / tot[:, None]
+    curve_ions = tube_ions_M(model, vol, tot)
+    yf = corrected(model, predict(model, curve_totals, curve_ions, warn=False))
+    hand = judge_break(ratio, y, cov, rf, yf, expected)
+
+    needed = None
+    if not hand["resolvable"]:
+        needed = _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions)
+    checks = [range_check(model, st, recipe.tubes, low_is_warning=True),
+              _break_check(hand, expected, C, needed, model, fix)]
+    extra = {
+        "fixed_reagent": fix, "varied_reagent": vary, "stocks": {"fixed": fix_id, "varied": var_id},
+        "fixed_conc_M": C,
+        "break_ratio": hand["break_ratio"],
+        "break_ratio_sd": hand["break_ratio_sd"],
+        "break_ratio_expected": expected,
+        "break_bias": hand["bias"],
+        "break_tolerance": BREAK_TOLERANCE,
+        "resolvable": hand["resolvable"],
+        "shortfall_fraction": hand["shortfall_fraction"],
+        "shortfall_sd": hand["shortfall_sd"],
+        "lines_tubes": {"before": [t for t, m in zip(recipe.tubes, hand["before"], strict=True) if m],
+                        "after": [t for t, m in zip(recipe.tubes, hand["after"], strict=True) if m]},
+        "conc_needed_M": needed[0] if needed else None,
+        "path_cm_at_conc_needed": needed[1] if needed else None,
+        "series": [{"tube": t, "ratio": float(ratio[i]), "corrected_absorbance": float(y[i]),
+                    "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])]}
+                   for i, t in enumerate(recipe.tubes)],
+        "curve": {"ratio": rf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
+    }
+    notes = [f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {fix_id}); {vary} rising to {r_max:g}× "
+             f"({v_var.min():g}–{v_var.max():g} mL {var_id})",
+             f"two-line break at {vary}/{fix} = {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} "
+             f"(expected {expected:g} for {target}); the curve falls {hand['shortfall_fraction']:.1%} "
+             f"({hand['shortfall_sd']:.1f} sd) short of the asymptotes' corner there"]
+    if needed:
+        cell = f" in a {needed[1]:.2g} cm cell" if needed[1] < model.path_cm * 0.999 else ""
+        notes.append(f"a fixed concentration of {fmt_conc(needed[0])}{cell} would make the break resolvable")
+    ok = (f"the break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} reads the {target} ratio "
+          f"{expected:g} within {BREAK_TOLERANCE:.0%}")
+    columns = {"ratio": ratio, "Y": y, "±2sd": 2 * sd}
+    return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
+
+
+def judge_break(ratio, y, cov, rf, yf, expected) -> dict:
+    """The hand two-line break of the tubes and the sharpness of the curve, with the verdict."""
+    hand = two_line_break(ratio, y, cov, expected)
+    frac, in_sd = _shortfall(rf, yf, expected, float(np.median(np.sqrt(np.diag(cov)))))
+    sharp = bool(frac <= SHARP_SHORTFALL or in_sd <= INVISIBLE_SD)
+    hand.update(shortfall_fraction=frac, shortfall_sd=in_sd, sharp=sharp,
+                resolvable=bool(hand["resolvable"] and sharp))
+    return hand
+
+
+def two_line_break(ratio: np.ndarray, y: np.ndarray, cov: np.ndarray, expected: float) -> dict:
+    """Intersection of the least-squares lines through the tubes before (≤ (1 − margin)·expected) and
+    after (≥ (1 + margin)·expected) the expected break, its sd by linear propagation of ``cov`` and
+    whether |bias| + 2 sd ≤ BREAK_TOLERANCE·expected."""
+    before = ratio <= expected * (1 - LINE_MARGIN) + 1e-12
+    after = ratio >= expected * (1 + LINE_MARGIN) - 1e-12
+    out = {"before": before, "after": after, "break_ratio": float("nan"), "break_ratio_sd": float("nan"),
+           "bias": float("nan"), "resolvable": False}
+    if before.sum() < 2 or after.sum() < 2:
+        out["why"] = (f"fewer than two tubes on a side of the break (before: {int(before.sum())}, after: "
+                      f"{int(after.sum())}): add tubes")
+        return out
+    P1 = _line_projector(ratio, before)            # (2, n): [a, b] = P @ y
+    P2 = _line_projector(ratio, after)
+    a1, b1 = P1 @ y
+    a2, b2 = P2 @ y
+    if abs(b1 - b2) <= 1e-12 * (abs(b1) + abs(b2) + 1e-300):
+        out["why"] = "the two lines are parallel: no break"
+        return out
+    rb = (a2 - a1) / (b1 - b2)
+    d = b1 - b2
+    grad = (-P1[0] + P2[0]) / d - rb * (P1[1] - P2[1]) / d   # ∂rb/∂y [derived: quotient rule]
+    sd = float(np.sqrt(max(grad @ cov @ grad, 0.0)))
+    bias = float(rb - expected)
+    out.update(break_ratio=float(rb), break_ratio_sd=sd, bias=bias,
+               resolvable=bool(abs(bias) + 2 * sd <= BREAK_TOLERANCE * expected))
+    return out
+
+
+def _line_projector(x: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """(2, n) matrix giving intercept and slope of the least-squares line through the tubes in ``m``."""
+    X = np.stack([np.ones(x.size), x], axis=1) * m[:, None]
+    return np.linalg.pinv(X)
+
+
+def _shortfall(rf, yf, expected, sd) -> tuple[float, float]:
+    """How far the curve at the expected ratio falls short of the corner of its two asymptotes (tangents
+    at the start and the end), as a fraction of the corner's height and in reading sd."""
+    s0 = (yf[1] - yf[0]) / (rf[1] - rf[0])
+    s1 = (yf[-1] - yf[-2]) / (rf[-1] - rf[-2])
+    corner = min(yf[0] + s0 * expected, yf[-1] + s1 * (expected - rf[-1]), key=abs) if s0 * s1 >= 0 else \
+        yf[0] + s0 * expected
+    at = float(np.interp(expected, rf, yf))
+    gap = abs(corner - at)
+    return float(gap / abs(corner)) if corner else float("nan"), float(gap / sd) if sd > 0 else float("nan")
+
+
+def _valid(v_fix: np.ndarray, r, c_fix, c_var, step, vmin, avail, caps=(np.inf, np.inf)) -> np.ndarray:
+    """Which fixed volumes give distinct rising volumes on the grid, above min_volume, inside the tube and
+    within each dispenser's capacity."""
+    vv = snap(r[None, :] * (v_fix[:, None] * c_fix / c_var), step)
+    distinct = np.all(np.diff(vv, axis=1) > step / 2, axis=1)
+    return (distinct & (vv[:, 0] >= vmin - 1e-9) & (v_fix + vv[:, -1] <= avail + 1e-9) & (v_fix >= vmin - 1e-9)
+            & (v_fix <= caps[0] + 1e-9) & (vv[:, -1] <= caps[1] + 1e-9))
+
+
+def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n) -> float:
+    """The largest fixed volume whose series fits the tube and stays below the top of the linear range."""
+    cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
+    cand = cand[_valid(cand, r, c_fix, c_var, step, vmin, avail, (capacity_mL(plan, fix_id), capacity_mL(plan, var_id)))]
+    if cand.size == 0:
+        raise PlanError("--points", f"{n} rising volumes do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
+                        f"the {step:g} mL grid above min_volume: use fewer --points, a lower --max-ratio or a "
+                        f"more concentrated {var_id}")
+    vol, tot = fill_volumes(plan, {fix_id: np.broadcast_to(cand[:, None], (cand.size, r.size)),
+                                   var_id: cand[:, None] * r * c_fix / c_var})
+    peak = predict_volumes(model, vol, tot).absorbance.max(axis=1)
+    inside = np.flatnonzero(peak <= model.linear_range[1])
+    return float(cand[inside[-1]] if inside.size else cand[0])
+
+
+def _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions
+                        ) -> tuple[float, float] | None:
+    """Smallest scale of both stocks (same volumes) at which the break is resolvable, with the path that
+    keeps the readings in range: (fixed concentration, path_cm), or None up to 1000×."""
+    devices = plan_devices(plan)
+    for s in SEARCH_SCALES:
+        ms, st = scaled_in_range(model, recipe, float(s))
+        cov = error_budget(plan, ms, recipe, st, devices).total
+        with hypothetical():
+            yf = corrected(ms, predict(ms, s * curve_totals, curve_ions, warn=False))
+        tot = st.totals_M
+        hand = judge_break(tot[:, vi] / tot[:, fi], corrected(ms, st), cov, rf, yf, expected)
+        if hand["resolvable"]:
+            return float(s) * C, float(ms.path_cm)
+    return None
+
+
+def _num(x) -> str:
+    return "—" if x is None or not np.isfinite(x) else f"{x:.3g}"
+
+
+def _break_check(hand, expected, C, needed, model, fix) -> Check:
+    if "why" in hand:
+        return Check("break", "fail", hand["why"])
+    msg = (f"two-line break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} against the "
+           f"expected {expected:g} (bias {hand['bias']:+.3f}); the curve falls {hand['shortfall_fraction']:.1%} "
+           f"({hand['shortfall_sd']:.1f} sd) short of its asymptotes' corner")
+    if not hand["sharp"]:
+        msg += (f" — a rounded break (sharp means ≤ {SHARP_SHORTFALL:.0%}, K·C ≥ ~100 for 1:1), whatever the "
+                f"lines happen to give")
+    if hand["resolvable"]:
+        return Check("break", "pass", msg + f": resolvable within {BREAK_TOLERANCE:.0%}")
+    msg += f": not resolvable within {BREAK_TOLERANCE:.0%} at {fix} = {fmt_conc(C)}"
+    others = [n for n, m in zip(model.species, model.complex_mask, strict=True) if m][1:]
+    if needed is None and len(others):
+        names = ", ".join(n for n, m in zip(model.species, model.complex_mask, strict=True) if m)
+        msg += (f"; no concentration up to 1000× does it — with {names} all forming, the lines need not meet at "
+                f"{expected:g}: fit all complexes globally (kplan design) instead")
+    elif needed is None:
+        msg += ("; no concentration up to 1000× does it — the complex is too weak for a break: fit all tubes "
+                "globally (kplan design) instead")
+    else:
+        c, path = needed
+        msg += f"; {fmt_conc(c)} would"
+        if path < model.path_cm * 0.999:
+            msg += f" (in a {path:.2g} cm cell, to keep the readings in the linear range)"
+        msg += " — or fit all tubes globally"
+    return Check("break", "fail", msg)
