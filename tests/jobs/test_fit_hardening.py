@@ -90,7 +90,7 @@ def test_decimal_comma_semicolon_file_reads_the_same(plan):
     rd = _readings(plan)
     lines = recipe_to_csv(rd.recipe, plan).splitlines()
     comma = "\n".join([lines[0] + ",absorbance,note"]
-                      + [f"{ln},{a:.4f},ok" for ln, a in zip(lines[1:], rd.absorbance)]) + "\n"
+                      + [f"{ln},{a:.4f},ok" for ln, a in zip(lines[1:], rd.absorbance, strict=True)]) + "\n"
     semi = comma.replace(",", ";").replace(".", ",")
     a = parse_readings_csv(comma, plan)
     b = parse_readings_csv(semi, plan)

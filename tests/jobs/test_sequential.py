@@ -13,7 +13,7 @@ from planner.inputs.readings import Readings
 from planner.jobs.assess import assess_study
 from planner.jobs.compile import compile_study
 from planner.jobs.design import Candidates, _information_rows, design_study, rows_with_prior
-from planner.jobs.sequential import _together, learned_study, next_batch
+from planner.jobs.sequential import _together, next_batch
 from planner.jobs.series import even_series_for
 
 from ..conftest import scenario_text

@@ -7,16 +7,20 @@ model, uncertainty or inference layers) is a change to this file only.
 
 from __future__ import annotations
 
-from ...inference.precision import free_parameters, whitening
+from dataclasses import replace
+
+from ...inference.precision import free_parameters as _free_parameters
+from ...inference.precision import whitening
 from ...inputs.plan import Epsilon, Plan, PlanError
 from ...inputs.recipe import Recipe, make_recipe, totals_M
 from ...model.activity import ActivityWarning
 from ...model.compiled import Model, TubeState, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
 from ...model.optics import bandwidth_factor
-from ...uncertainty.budget import error_budget, error_factors, plan_devices
+from ...uncertainty import budget as _budget
 from ..assess import Assessment
 from ..checks import Check
+from ..compile import build_model, compile_bench, error_budget, plan_devices
 from ..series import even_series
 
 __all__ = [
@@ -28,9 +32,17 @@ __all__ = [
 
 def plan_model(plan: Plan) -> Model:
     """The plan's numerical model (the one place the classic series import ``build_model``)."""
-    from ...model.compiled import build_model
-
     return build_model(plan)
+
+
+def free_parameters(plan: Plan, model: Model):
+    """The parameters a fit of the plan's data estimates (for ``model``, which may be a variant)."""
+    return _free_parameters(model, plan.target, blank_offset=plan.design.blank_offset)
+
+
+def error_factors(plan: Plan, model: Model, recipe: Recipe, state: TubeState, devices, **kw):
+    """Per-tube variances and shared-error factors of ``recipe`` (the plan's glassware, ``devices``)."""
+    return _budget.error_factors(replace(compile_bench(plan), devices=devices), model, recipe, state, **kw)
 
 
 def assess_tubes(plan: Plan, recipe: Recipe) -> Assessment:

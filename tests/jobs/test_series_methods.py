@@ -364,7 +364,7 @@ def test_survey_se_equals_one_cramer_rao_per_wavelength():
     # derived: the vectorised survey must give the SE of the ordinary path (model, error budget, Jacobian,
     # F⁻¹) on the plan moved to each wavelength
     from planner.inference.precision import ReadingModel, cramer_rao, free_parameters, pack
-    from planner.uncertainty.budget import error_budget
+    from planner.jobs.compile import error_budget
 
     plan = band_plan('L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n')
     model = plan_model(plan)
@@ -377,7 +377,7 @@ def test_survey_se_equals_one_cramer_rao_per_wavelength():
         m = plan_model(p)
         st = common.predict_volumes(m, recipe.volumes_mL, recipe.total_volume_mL)
         cov = error_budget(p, m, recipe, st).total
-        params = free_parameters(p, m)
+        params = free_parameters(m, p.target, blank_offset=p.design.blank_offset)
         reading = ReadingModel(m, params, st.totals_M, tube_ions_M(m, recipe.volumes_mL,
                                                                           recipe.total_volume_mL))
         cr = cramer_rao(reading.jac(pack(m, params)[None, :])[0], cov)
