@@ -38,6 +38,10 @@ from ..uncertainty.budget import error_budget
 from .assess import expected_state
 
 DECISIVE = 10.0  # 2 ln B ≥ 10: very strong evidence (Kass & Raftery 1995)
+# alternatives the readings cannot decisively rule out against the best (Δ < DECISIVE) are named with it:
+# one reading per tube often cannot tell a delivery 1 mL too large from a tube not made up to the mark
+TIE = DECISIVE
+MAX_TIES = 3
 MISREAD_STEPS_ML = (1.0, -1.0, 0.1, -0.1)
 STOCK_FACTORS = (10.0, 0.1)
 MAKE_UP_FRACTIONS = np.linspace(0.1, 0.9, 9)  # share of the diluent actually added (grid for the fit)
@@ -73,6 +77,9 @@ class Diagnosis:
     Attributes
     ----------
     best : the decisive explanation (score ≥ DECISIVE), or None ("unexplained").
+    ties : up to ``MAX_TIES`` other explanations the readings cannot decisively rule out against the best
+        (within ``TIE``): one reading per tube often cannot tell, say, a delivery 1 mL too large from a tube
+        not made up to the mark.
     ranked : the top explanations, best first.
     chi2 : χ² of the readings against the recipe's expectations (the full covariance).
     """
@@ -80,6 +87,15 @@ class Diagnosis:
     best: Explanation | None
     ranked: tuple[Explanation, ...]
     chi2: float
+    ties: tuple[Explanation, ...] = ()
+
+    @property
+    def text(self) -> str:
+        if self.best is None:
+            return "unexplained"
+        if not self.ties:
+            return self.best.text
+        return self.best.text + "; the readings cannot rule out: " + "; ".join(e.text for e in self.ties)
 
     @property
     def evidence(self) -> str:
@@ -90,8 +106,9 @@ class Diagnosis:
         return f"evidence 2Δln L − penalties = {self.best.score:.1f} ≥ {DECISIVE:g} against no mix-up"
 
     def summary(self) -> dict:
-        return {"explanation": self.best.text if self.best else "unexplained",
+        return {"explanation": self.text,
                 "kind": self.best.kind if self.best else None, "evidence": self.evidence,
+                "as_likely": [e.summary() for e in self.ties],
                 "chi2": float(self.chi2), "ranked": [e.summary() for e in self.ranked]}
 
 
@@ -247,4 +264,65 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
         expl.append(Explanation(kind, text, dl, 2 * dl - np.log(n)))
     expl.sort(key=lambda e: -e.score)
     best = expl[0] if expl and expl[0].score >= DECISIVE else None
-    return Diagnosis(best, tuple(expl[:top]), chi0)
+    ties = tuple(e for e in expl[1:] if best is not None and e.score >= best.score - TIE)[:MAX_TIES]
+    return Diagnosis(best, tuple(expl[:top]), chi0, ties)
+
+
+def inject(study: Study, recipe: Recipe, kind: str | None, rng: np.random.Generator
+           ) -> tuple[np.ndarray, str, float]:
+    """Simulated readings of ``recipe`` with one slip of ``kind`` (None: a clean student), for tests and
+    benchmarks; returns (readings, a fragment the right explanation's text contains, the slip's size: the
+    whitened norm of the change it makes to the noise-free readings — below ~3 it hides in the noise)."""
+    from ..inference.simulate import simulate
+
+    model, bench = study.model, study.bench
+    n = recipe.n_tubes
+    V, Vt, C = recipe.volumes_mL.copy(), recipe.total_volume_mL.copy(), model.stock_conc_M.copy()
+    used = [recipe.stock_ids.index(s) for s in bench.dispensed_ids(recipe) if np.any(recipe.column(s) > 0)]
+    i = int(rng.integers(n))
+    j = used[int(rng.integers(len(used)))]
+    tag = ""
+    if kind == "wrong-stock":
+        fac = STOCK_FACTORS[int(rng.integers(len(STOCK_FACTORS)))]
+        C[j] = C[j] * fac
+        tag = f"{recipe.stock_ids[j]} taken from a bottle {fac:g}×"
+    elif kind == "misread-volume":
+        d = MISREAD_STEPS_ML[int(rng.integers(2))]  # the 1 mL slips (0.1 mL ones hide in the noise)
+        if V[i, j] + d < 0:
+            d = -d
+        V[i, j] += d
+        tag = f"{recipe.tubes[i]}: {recipe.stock_ids[j]} {_fmt_mL(V[i, j])}"
+    elif kind == "not-made-up":
+        jd = recipe.stock_ids.index(bench.diluent_id)
+        i = int(np.argmax(V[:, jd] * (1 + 0.01 * rng.random(n))))  # a tube with water to leave out
+        Vt[i] -= 0.5 * V[i, jd]
+        tag = f"{recipe.tubes[i]} not made up"
+    m = model if kind != "wrong-stock" else _with_stocks(model, C)
+    rec = Recipe(recipe.tubes, recipe.stock_ids, V, Vt)
+    sim = simulate(bench, m, rec, rng, 1)
+    a = sim.absorbance[0]
+    clean = expected_state(model, recipe)
+    W = whitening(error_budget(bench, model, recipe, clean).total)
+    shifted = expected_state(m, rec).absorbance
+    if kind == "swapped-tubes":
+        k = (i + 1 + int(rng.integers(n - 1))) % n
+        a[[i, k]] = a[[k, i]]
+        shifted = clean.absorbance.copy()
+        shifted[[i, k]] = shifted[[k, i]]
+        lo, hi = sorted((i, k))
+        tag = f"{recipe.tubes[lo]} and {recipe.tubes[hi]} swapped"
+    elif kind == "wavelength":
+        a = a * 0.85
+        shifted = clean.absorbance * 0.85
+        tag = "scaled"
+    elif kind == "blank":
+        a = a + 0.05
+        shifted = clean.absorbance + 0.05
+        tag = "shifted"
+    return a, tag, float(np.linalg.norm(W @ (shifted - clean.absorbance)))
+
+
+def _with_stocks(model, conc):
+    from dataclasses import replace
+
+    return replace(model, stock_conc_M=conc)
