@@ -182,10 +182,19 @@ def _weighting(sigma, whiten, n_trials: int, n_obs: int):
         return weigh_res, weigh_jac
     if whiten is not None:
         w = np.array(whiten, dtype=float)
-        if w.shape != (n_obs, n_obs):
-            raise FitError(f"whiten must be an ({n_obs}, {n_obs}) matrix; got {w.shape}.")
+        if w.shape not in ((n_obs, n_obs), (n_trials, n_obs, n_obs)):
+            raise FitError(f"whiten must be an ({n_obs}, {n_obs}) matrix, or one per trial "
+                           f"({n_trials}, {n_obs}, {n_obs}); got {w.shape}.")
         if not np.all(np.isfinite(w)):
             raise FitError("whiten contains NaN or inf; pass e.g. the inverse Cholesky factor of Σ.")
+        if w.ndim == 3:  # a different weighting for each trial (e.g. each student's own tubes)
+            def weigh_res(res, rows):
+                return np.einsum("kij,kj->ki", w.take(rows, axis=0), res)
+
+            def weigh_jac(jac, rows):
+                return np.matmul(w.take(rows, axis=0), jac)
+
+            return weigh_res, weigh_jac
 
         def weigh_res(res, rows):
             return res @ w.T

@@ -122,8 +122,8 @@ def pack(model: Model, params: Parameters, log_beta=None, epsilon_M_cm=None) -> 
 class ReadingModel:
     """Expected readings of a fixed set of tubes as a function of the parameters (batched).
 
-    ``f(theta (T, P)) -> (T, n)`` and ``jac(theta) -> (T, n, P)``; ``fixed`` optionally pins one
-    parameter per trial (for the profile): ``fixed = (p, values (T,))``.
+    ``f(theta (T, P)) -> (T, n)`` and ``jac(theta) -> (T, n, P)``. ``totals_M`` is (n, 2) for the same
+    tubes in every trial, or (T, n, 2) (with ``ions_M`` (T, n, k)) for different tubes in each trial.
     """
 
     model: Model
@@ -150,8 +150,11 @@ class ReadingModel:
         if wild.any():
             theta = np.where(wild[:, None], self.params.guess, theta)
         lb, eps, blank = unpack(self.model, self.params, theta)
-        tot = np.broadcast_to(self.totals_M, (T,) + self.totals_M.shape)
-        ions = np.broadcast_to(self.ions_M, (T,) + self.ions_M.shape)
+        if self.totals_M.ndim == 3:  # one set of tubes per trial (T, n, 2): e.g. each student's own recipe
+            tot, ions = self.totals_M, self.ions_M
+        else:
+            tot = np.broadcast_to(self.totals_M, (T,) + self.totals_M.shape)
+            ions = np.broadcast_to(self.ions_M, (T,) + self.ions_M.shape)
         st = predict(self.model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False)
         return st, eps, blank, wild
 
