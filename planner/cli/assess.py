@@ -9,16 +9,16 @@ from typing import Annotated
 import typer
 
 from ..inputs.plan import load_plan
-from ..inputs.recipe import read_recipe_csv
 from .app import app
-from .options import _with_progress, parse_at
+from .options import _with_progress, parse_at, read_points
 from .show import print_assessment
 
 
 @app.command()
 def assess(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
-    recipe: Annotated[Path, typer.Argument(help="recipe CSV: tube, then one column per stock (mL)")],
+    recipe: Annotated[Path, typer.Argument(
+        help="recipe CSV: tube, then one column per stock (mL); for a titration: step, aliquot_mL")],
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
     trials: Annotated[int, typer.Option(help="Monte-Carlo experiments (0: Cramér–Rao only)", min=0)] = 2000,
     seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers")] = 0,
@@ -26,12 +26,14 @@ def assess(
         "--at", help="assess as if the true constant were different: NAME=LOGBETA (repeatable)")] = None,
 ) -> None:
     """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading."""
-    from ..jobs.assess import assess as run_assess
+    from ..jobs.assess import assess_study
+    from ..jobs.compile import compile_study
 
     p = load_plan(plan)
-    r = read_recipe_csv(recipe, p)
+    study = compile_study(p)
+    r = read_points(recipe, p, study)
     at_values = parse_at(at or [])
-    a = _with_progress(lambda prog: run_assess(p, r, trials=trials, seed=seed, at=at_values, progress=prog),
+    a = _with_progress(lambda prog: assess_study(study, r, trials=trials, seed=seed, at=at_values, progress=prog),
                        trials, quiet=as_json)
     if as_json:
         print(json.dumps(a.summary(), indent=2))

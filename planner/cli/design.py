@@ -37,6 +37,8 @@ def design(
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
     p = load_plan(plan)
+    if p.titration is not None:
+        return _titration(p, out_dir, tubes, robust, as_json)
     if after is not None:
         return _next_batch(p, after, out_dir, tubes, robust, seed, as_json)
     d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
@@ -84,3 +86,44 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
     print_design(nb.design, p)
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'design.json'}")
+
+
+def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> None:
+    """``kplan design`` for a plan with [titration]: the aliquot schedule."""
+    from rich.markup import escape
+    from rich.table import Table
+
+    from ..inputs.files import write_atomic
+    from ..inputs.schedule import schedule_to_csv
+    from ..jobs.compile import compile_study
+    from ..jobs.titrate import design_titration
+    from ..paper import fmt
+
+    d = design_titration(compile_study(p), additions=additions, robust=robust)
+    summary = d.summary()
+    if out_dir is not None:
+        write_atomic(out_dir / "schedule.csv", schedule_to_csv(d.schedule))
+        write_atomic(out_dir / "design.json", json.dumps(summary, indent=2) + "\n")
+    if as_json:
+        print(json.dumps(summary, indent=2))
+        return
+    t = d.study.bench.titration
+    out.print(f"[bold]{escape(p.title)}[/bold] — titration schedule")
+    out.print(f"cell: {t.start_volume_mL:g} mL of {escape(t.cell)}; titrant {escape(d.titrant)}; "
+              f"{d.schedule.aliquot_mL.size} additions; {d.candidates} schedules tried, {d.feasible} inside the "
+              f"linear range over the guess's range")
+    tab = Table(title="Designed schedule")
+    for c in ("step", "aliquot / mL", "added so far / mL", "cell / mL", "A ± sd"):
+        tab.add_column(c, justify="right")
+    rows = summary["tubes"]
+    for i, step in enumerate(d.schedule.steps):
+        tab.add_row(escape(step), f"{d.schedule.aliquot_mL[i]:.3f}", f"{d.schedule.added_mL[i]:.3f}",
+                    f"{t.start_volume_mL + d.schedule.added_mL[i]:.3f}",
+                    f"{rows[i]['absorbance']:.3f} ± {rows[i]['absorbance_sd']:.3f}")
+    out.print(tab)
+    ratio = d.se_ratio_vs_equal
+    word = "better" if ratio >= 1 else "worse"
+    out.print(f"SE(log β[{escape(d.study.target)}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; equal "
+              f"aliquots: {fmt.sig(d.se_equal, 2)} (×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})")
+    if out_dir is not None:
+        out.print(f"wrote {out_dir / 'schedule.csv'} and {out_dir / 'design.json'}")

@@ -28,12 +28,15 @@ def fit(
 ) -> None:
     """Fit measured readings with the plan's model, and compare the result with the plan's promise.
     Exit code 1 when the readings do not determine the constants."""
-    from ..inputs.readings import read_readings_csv
-    from ..jobs.fit import fit_readings
+    from ..jobs.compile import compile_study
+    from ..jobs.fit import fit_study
+    from .options import read_points
 
     p = load_plan(plan)
+    study = compile_study(p)
     skip = tuple(x.strip() for x in (exclude or "").split(",") if x.strip())
-    f = fit_readings(p, read_readings_csv(readings, p), exclude=skip, keep_out_of_range=keep_out_of_range)
+    f = fit_study(study, read_points(readings, p, study, readings=True), exclude=skip,
+                  keep_out_of_range=keep_out_of_range)
     if as_json:
         print(json.dumps(f.summary(), indent=2))
     else:

@@ -1,4 +1,5 @@
-"""Helpers shared by the commands: ``--at`` parsing and the Monte-Carlo progress bar."""
+"""Helpers shared by the commands: ``--at`` parsing, reading a recipe or a titration schedule, and the
+Monte-Carlo progress bar."""
 
 from __future__ import annotations
 
@@ -28,3 +29,18 @@ def _with_progress(run, trials: int, quiet: bool):
     with Progress(console=err, transient=True) as bar:
         task = bar.add_task("Monte Carlo", total=trials)
         return run(lambda done, total: bar.update(task, completed=done))
+
+
+def read_points(path, plan, study, *, readings: bool = False):
+    """The recipe of PATH for ``plan``: a tube recipe CSV, or (for a plan with [titration]) a titration
+    schedule CSV (step, aliquot_mL[, absorbance]). With ``readings``: a Readings object (absorbance needed)."""
+    from ..inputs.readings import Readings, read_readings_csv
+    from ..inputs.recipe import read_recipe_csv
+    from ..inputs.schedule import read_schedule_csv
+    from ..jobs.titrate import schedule_points
+
+    if plan.titration is None:
+        return read_readings_csv(path, plan) if readings else read_recipe_csv(path, plan)
+    schedule = read_schedule_csv(path, need_absorbance=readings)
+    rec = schedule_points(study, schedule)
+    return Readings(rec, schedule.absorbance) if readings else rec

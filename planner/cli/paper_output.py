@@ -6,9 +6,8 @@ import json
 from pathlib import Path
 
 from ..inputs.plan import load_plan
-from ..inputs.recipe import read_recipe_csv
 from .app import UserError, out
-from .options import _with_progress
+from .options import _with_progress, read_points
 
 PAPER_CHOICES = ("A4", "Letter")  # the same keys as planner.render.PAPERS (checked in the tests)
 
@@ -28,13 +27,17 @@ def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: boo
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
     fmt_ = "html" if html else "pdf"
     p = load_plan(plan)
-    r = read_recipe_csv(recipe, p)
     study = compile_study(p)
+    r = read_points(recipe, p, study)
     if kind == "sheet":
         require_glassware_fits(study.bench, r)  # followed at the bench: every volume must be deliverable
     a = _with_progress(lambda prog: assess_study(study, r, trials=trials, seed=seed, progress=prog), trials,
                        quiet=False)
-    if kind == "sheet":
+    if kind == "sheet" and p.titration is not None:
+        from ..paper.titration_sheet import titration_sheet
+
+        data = titration_sheet(p, r, a, paper=paper, fmt_=fmt_)
+    elif kind == "sheet":
         data = render_sheet(p, r, a, stock_needs(p, r), paper=paper, fmt=fmt_, order=p.glassware.order)
     else:
         design_summary = None

@@ -58,12 +58,16 @@ def simulate(bench: Bench, model: Model, recipe: Recipe, rng: np.random.Generato
     z_read = rng.standard_normal((T, n))
     if stock:
         C = C * (1.0 + model.stock_conc_rsd[None, :, None] * z_stock[:, :, None])
-    if delivery:
+    if bench.titration is not None:  # one titration per trial: accumulated aliquots, one start volume
+        from ..uncertainty.titration import titration_volumes
+
+        V, _ = titration_volumes(bench, recipe, rng, T, delivery_errors=delivery)
+    elif delivery:
         dev = devices.stock_device
         z_sys = np.where(dev[None, :] >= 0, z_dev[:, np.maximum(dev, 0)], 0.0)        # (T, k)
         V = V + sds.random_mL * z_del + sds.systematic_mL * z_sys[:, None, :]
         V = np.where(recipe.volumes_mL > 0, np.maximum(V, 0.0), 0.0)
-    if bench.to_mark:
+    if bench.to_mark and bench.titration is None:
         Vtot = np.broadcast_to(recipe.total_volume_mL, (T, n)).copy()
         if delivery:
             Vtot = Vtot + sds.flask_mL * z_flask

@@ -8,7 +8,6 @@ single :class:`PlanError` naming the key path, what was wrong and how to fix it.
 from __future__ import annotations
 
 import difflib
-import re
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -23,6 +22,7 @@ from pydantic import (
     model_validator,
 )
 
+from .names import ion_charge, unknown_name
 from .units import UnitError, parse_quantity
 
 COMPONENTS = ("M", "L", "H")
@@ -272,6 +272,29 @@ class Glassware(_Strict):
         return self
 
 
+class Titration(_Strict):
+    """An in-cuvette titration: a start volume of one stock in the cell, aliquots of another added to it."""
+
+    cell: str = Field(min_length=1)
+    titrant: str = Field(min_length=1)
+    start_volume_mL: Volume = Field(alias="start_volume")
+    max_volume_mL: Volume = Field(alias="max_volume")
+    additions: int = Field(default=12, ge=1, le=60)
+    step_mL: Volume | None = Field(default=None, alias="step")
+    equilibrate: str = Field(default="mix, then wait 1 min before reading", max_length=200)
+
+    @model_validator(mode="after")
+    def _volumes(self) -> Titration:
+        if not self.start_volume_mL > 0:
+            raise ValueError(f"start_volume = {self.start_volume_mL} mL must be positive")
+        if not self.max_volume_mL > self.start_volume_mL:
+            raise ValueError(f"max_volume = {self.max_volume_mL} mL must exceed start_volume = "
+                             f"{self.start_volume_mL} mL: leave room for the additions")
+        if self.step_mL is not None and not self.step_mL > 0:
+            raise ValueError(f"step = {self.step_mL} mL must be positive, e.g. step = '0.005 mL'")
+        return self
+
+
 class Medium(_Strict):
     activity_model: Literal["davies", "extended-dh", "none"] = "davies"
     reference_ionic_strength_M: Conc | None = Field(default=None, alias="reference_ionic_strength")
@@ -305,6 +328,7 @@ class Plan(_Strict):
     glassware: Glassware
     medium: Medium = Medium()
     design: Design = Design()
+    titration: Titration | None = None
 
     # -- cross-field checks, each naming its key ---------------------------------------------------
     @model_validator(mode="after")
@@ -386,6 +410,16 @@ class Plan(_Strict):
             raise PlanError("stock", "no stock contains the metal M: give one stock conc = { M = '...' }")
         if not any(s.conc.get("L") for s in self.stock):
             raise PlanError("stock", "no stock contains the ligand L: give one stock conc = { L = '...' }")
+        if self.titration is not None:
+            t = self.titration
+            for key, sid in (("cell", t.cell), ("titrant", t.titrant)):
+                if sid not in ids:
+                    raise PlanError(f"titration.{key}", unknown_name("stock id", sid, ids))
+            if t.cell == t.titrant:
+                raise PlanError("titration.titrant", "the titrant must be another stock than the cell's")
+            if self.glassware.make_up != "added":
+                raise PlanError("glassware.make_up", "an in-cuvette titration adds every volume: set "
+                                "make_up = 'added'")
         return self
 
     # -- convenience -------------------------------------------------------------------------------
@@ -415,55 +449,6 @@ class Plan(_Strict):
 
     def dispenser_for(self, sid: str) -> Dispenser | None:
         return next((d for d in self.glassware.dispenser if sid in d.stocks), None)
-
-
-def ion_charge(ion: str) -> int:
-    """Charge of an ion written like 'K+', 'NO3-', 'Cu2+', 'SO4 2-', 'SO4-2', 'Ca+2', 'Ca++' or '[SO4]2-'.
-
-    Digits right before the sign are read as a charge only after a bare element symbol ('Cu2+',
-    'Al3+'); otherwise they are a subscript ('NO3-'). Write 'CO3 2-' (with a space) where both meet.
-    """
-    s = ion.strip()
-    bad = f"ion '{ion}' has no readable charge: write it like 'K+', 'NO3-', 'Cu2+' or 'SO4 2-'"
-    m = re.fullmatch(r"(\S+)\s+(\d*)([+-])", s)           # 'SO4 2-'
-    if m:
-        n = int(m.group(2) or 1)
-        return n if m.group(3) == "+" else -n
-    m = re.fullmatch(r"\[(.+)\](\d*)([+-])", s)           # '[SO4]2-'
-    if m:
-        n = int(m.group(2) or 1)
-        return n if m.group(3) == "+" else -n
-    m = re.fullmatch(r"(.*?[A-Za-z\])])([+-])(\d+)", s)      # 'SO4-2' has a digit before: see below
-    if m and not m.group(1)[-1].isdigit():
-        n = int(m.group(3))
-        return n if m.group(2) == "+" else -n
-    m = re.fullmatch(r"(.*?\d)([+-])(\d+)", s)              # 'SO4-2', 'PO4-3'
-    if m:
-        n = int(m.group(3))
-        return n if m.group(2) == "+" else -n
-    m = re.fullmatch(r"(.+?)(\++|-+)", s)                   # 'K+', 'Ca++', 'NO3-', 'Cu2+'
-    if not m:
-        raise ValueError(bad)
-    body, signs = m.groups()
-    sign = 1 if signs[0] == "+" else -1
-    if len(signs) > 1:
-        return sign * len(signs)
-    el = re.fullmatch(r"([A-Z][a-z]?)(\d+)", body)
-    if el:
-        if len(el.group(2)) > 1:
-            raise ValueError(f"ion '{ion}' is ambiguous: write the charge apart, e.g. '{el.group(1)} 2+'")
-        return sign * int(el.group(2))
-    tail = re.search(r"\d+$", body)
-    if tail and len(tail.group()) > 1:
-        raise ValueError(f"ion '{ion}' is ambiguous: write the charge apart, e.g. 'CO3 2-'")
-    return sign
-
-
-def unknown_name(what: str, name: str, known: list[str]) -> str:
-    """Message for a name not among ``known``, suggesting the nearest one."""
-    near = difflib.get_close_matches(name, known, n=1, cutoff=0.4)
-    hint = f"; did you mean '{near[0]}'?" if near else ""
-    return f"unknown {what} '{name}'{hint} (known: {', '.join(known) or 'none'})"
 
 
 def _loc_to_path(loc: tuple, root: type[BaseModel]) -> str:

@@ -291,8 +291,12 @@ def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingMod
 def stock_shortfalls(bench: Bench, recipe: Recipe) -> list[tuple[str, float, float, float]]:
     """Stocks whose recipe use plus rinse and dead volume exceeds what is on hand:
     (id, recipe mL, needed mL, on hand mL), in plan order."""
-    used = recipe.volumes_mL.sum(axis=0)
-    n_del = np.count_nonzero(recipe.volumes_mL > 0, axis=0)
+    if bench.titration is not None:  # one titration: the start volume once, the titrant added up to the last point
+        used = recipe.volumes_mL.max(axis=0)
+        n_del = (used > 0).astype(int)
+    else:
+        used = recipe.volumes_mL.sum(axis=0)
+        n_del = np.count_nonzero(recipe.volumes_mL > 0, axis=0)
     allowance = np.where(n_del > 0, bench.rinse_mL + bench.dead_volume_mL, 0.0)
     need = volume_needed_mL(used, n_del, rinse_mL=0.0, dead_volume_mL=0.0) + allowance
     on_hand = bench.on_hand_mL

@@ -19,7 +19,7 @@ from ..model.compiled import Model, TubeState
 from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
 from ..uncertainty import catalogue
-from ..uncertainty.bench import Bench, Devices
+from ..uncertainty.bench import Bench, Devices, TitrationSetup
 
 __all__ = ["build_model", "compile_bench", "compile_study", "error_budget", "plan_devices"]
 
@@ -126,7 +126,7 @@ def compile_bench(plan: Plan) -> Bench:
         stock_ids=tuple(s.id for s in plan.stock),
         devices=plan_devices(plan),
         make_up=g.make_up,
-        tube_volume_mL=g.tube_volume_mL,
+        tube_volume_mL=g.tube_volume_mL if plan.titration is None else plan.titration.max_volume_mL,
         step_mL=g.step_mL,
         min_volume_mL=g.min_volume_mL,
         rinse_mL=g.rinse_mL,
@@ -136,6 +136,10 @@ def compile_bench(plan: Plan) -> Bench:
         background_id=bg.id if bg is not None else None,
         fixed_mL=dict(plan.design.fixed),
         on_hand_mL=np.array([np.nan if s.on_hand is None else s.on_hand for s in plan.stock], dtype=float),
+        titration=None if plan.titration is None else TitrationSetup(
+            plan.titration.cell, plan.titration.titrant, plan.titration.start_volume_mL,
+            plan.titration.max_volume_mL, plan.titration.step_mL or g.step_mL, plan.titration.additions,
+            plan.titration.equilibrate),
     )
 
 

@@ -31,6 +31,22 @@ class Devices:
 
 
 @dataclass(frozen=True)
+class TitrationSetup:
+    """An in-cuvette titration: ``start_volume_mL`` of stock ``cell`` in the cuvette, aliquots of stock
+    ``titrant`` added; the cell never holds more than ``max_volume_mL``; aliquots on a ``step_mL`` grid.
+    Each reading is a point of the titration, written as a recipe row: the start volume in the cell's column,
+    the titrant added so far in the titrant's column (``make_up = "added"``)."""
+
+    cell: str
+    titrant: str
+    start_volume_mL: float
+    max_volume_mL: float
+    step_mL: float
+    additions: int
+    equilibrate: str
+
+
+@dataclass(frozen=True)
 class Bench:
     """Glassware, make-up and allowances of a plan, in the units the numerics use.
 
@@ -48,6 +64,7 @@ class Bench:
     background_id : the inert-electrolyte stock that levels the ionic strength, or None.
     fixed_mL : stock id -> the same volume in every tube (the plan's design.fixed).
     on_hand_mL : (k,) volume available of each stock, NaN where unstated.
+    titration : the in-cuvette titration, or None for separately made tubes.
     """
 
     stock_ids: tuple[str, ...]
@@ -63,6 +80,7 @@ class Bench:
     background_id: str | None
     fixed_mL: dict[str, float] = field(default_factory=dict, hash=False)
     on_hand_mL: np.ndarray = field(default_factory=lambda: np.zeros(0), hash=False)
+    titration: TitrationSetup | None = None
 
     def __repr__(self) -> str:
         return (f"Bench({len(self.stock_ids)} stocks, {len(self.devices.items)} dispensers, "

@@ -35,6 +35,8 @@ def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
     """
     devices = bench.devices
     out: list[tuple[str, str]] = []
+    if bench.titration is not None:  # a titration's points were checked when the schedule was read
+        return out
     for sid in bench.dispensed_ids(recipe):
         k = recipe.stock_ids.index(sid)
         v = recipe.volumes_mL[:, k]
@@ -247,6 +249,10 @@ def error_budget(bench: Bench, model: Model, recipe: Recipe, state: TubeState,
     ----------
     delta_T_C : lab temperature minus the glassware's calibration temperature (default: the plan's).
     """
+    if bench.titration is not None:  # cumulative additions: correlated along the titration
+        from .titration import titration_budget
+
+        return titration_budget(bench, model, recipe, state, delta_T_C=delta_T_C)
     f = error_factors(bench, model, recipe, state, delta_T_C=delta_T_C)
     return ErrorBudget(
         photometric=np.diag(f.photometric_var),

@@ -131,7 +131,8 @@ def test_examples_are_checked_and_assessed(capsys, monkeypatch):
         code, out, err = run(capsys, monkeypatch, "assess", p, csv, "--trials", "100", "--json")
         assert code == 0, (p, err)
         data = json.loads(out)
-        assert len(data["tubes"]) == len(Path(csv).read_text().strip().splitlines()) - 1
+        lines = [ln for ln in Path(csv).read_text().strip().splitlines() if not ln.startswith("#")]
+        assert len(data["tubes"]) == len(lines) - 1
 
 
 def test_fit_command(tmp_path, capsys, monkeypatch):
