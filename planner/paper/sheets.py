@@ -345,7 +345,10 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         vols = t["volumes_mL"]
         cells = [("—" if vols[sid] == 0 else fmt.volume(vols[sid], step)) for sid in seq]
         a, sd = t["absorbance"], t["absorbance_sd"]
-        rows.append({"tube": t["tube"], "cells": cells, "absorbance": fmt.band(a, 2 * sd),
+        # under to-mark the diluent is the remainder: say how much to expect, so a flask already
+        # full before the diluent goes in is noticed at the bench
+        rest = fmt.volume(vols[dil.id], step) if to_mark else ""
+        rows.append({"tube": t["tube"], "cells": cells, "makeup": rest, "absorbance": fmt.band(a, 2 * sd),
                      "out": not (lo <= a <= hi), "complex": fmt.conc(t["species_M"][target])})
     failing = [c for c in summary.get("checks", []) if c["status"] == "fail"]
     verdict = summary.get("verdict")
@@ -374,7 +377,7 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         "columns": [f"{sid}" for sid in seq],
         "column_units": "mL",
         "step_text": fmt.sig(step, 1),
-        "makeup": f"to the mark with {dil.id}" if to_mark else None,
+        "makeup": f"{dil.id} to the mark / mL" if to_mark else None,
         "target": target,
         "rows": rows,
         "checklist": checklist(plan, blank_name),

@@ -53,6 +53,7 @@ tube_volume = "10.00 mL"
 flask = { capacity = "10 mL" }
 step = "0.05 mL"
 min_volume = "0.05 mL"
+make_up_min = "0 mL"   # the analytic designs use the whole tube: X = 9.5 mL of ligand
 [[glassware.dispenser]]
 kind = "burette"
 capacity = "10 mL"
@@ -184,9 +185,10 @@ def test_candidates_cover_the_grid(teaching_plan):
     c = candidate_tubes(compile_study(teaching_plan))
     v = c.recipe.volumes_mL
     assert np.all(v >= 0) and np.allclose(v.sum(axis=1), 10.0)
-    # 0 or 0.50–10.00 mL in 0.05 steps for each of two stocks, summing to ≤ 10 mL [derived count]
-    levels = np.concatenate([[0.0], np.arange(10, 201) * 0.05])
-    expected = int(np.sum(levels[:, None] + levels[None, :] <= 10.0 + 1e-9))
+    # 0 or 0.50–9.50 mL in 0.05 steps for each of two stocks, summing to ≤ 9.50 mL: the 10 mL flask
+    # keeps the default make_up_min (5 %, 0.50 mL) for the diluent [derived count]
+    levels = np.concatenate([[0.0], np.arange(10, 191) * 0.05])
+    expected = int(np.sum(levels[:, None] + levels[None, :] <= 9.5 + 1e-9))
     assert c.n_grid == expected
 
 

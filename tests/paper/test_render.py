@@ -88,14 +88,15 @@ def test_tube_rows_carry_volumes_band_and_complex(teaching, prep_txt):
         vols = " ".join(fmt.volume(recipe.column(s)[i], step) for s in order)
         band = fmt.band(row["absorbance"], 2 * row["absorbance_sd"])
         cplx = fmt.conc(row["species_M"][plan.target])
-        assert f"{row['tube']} {vols} dilute to the mark with BG {band}" in prep_txt, row["tube"]
+        rest = fmt.volume(recipe.column("BG")[i], step)  # the diluent each flask should take
+        assert f"{row['tube']} {vols} ≈ {rest} {band}" in prep_txt, row["tube"]
         assert cplx in prep_txt
 
 
 def test_printed_absorbance_rounds_the_json_value(teaching, prep_txt):
     _, _, a, _ = teaching
     for row in a.summary()["tubes"]:
-        m = re.search(rf"{re.escape(row['tube'])} [\d. —]+dilute to the mark with BG (\d+\.\d+) ± (\d+\.\d+)", prep_txt)
+        m = re.search(rf"{re.escape(row['tube'])} [\d. —]+≈ [\d.]+ (\d+\.\d+) ± (\d+\.\d+)", prep_txt)
         assert m, row["tube"]
         x, u = m.group(1), m.group(2)
         half_ulp = 0.5 * 10.0 ** -len(x.split(".")[1])  # derived: rounding moves a value ≤ half a digit
@@ -108,7 +109,7 @@ def test_volumes_on_the_dispenser_grid(teaching, prep_txt):
     plan, recipe, _, _ = teaching
     # derived: step 0.05 mL → two decimals on paper, e.g. the first DY volume of the demo series
     assert fmt.volume(recipe.column("DY")[0], plan.glassware.step_mL) == f"{recipe.column('DY')[0]:.2f}"
-    assert re.search(r"T1 \d+\.\d{2} \d+\.\d{2} dilute", prep_txt)
+    assert re.search(r"T1 \d+\.\d{2} \d+\.\d{2} ≈ \d+\.\d{2}", prep_txt)
 
 
 def test_stock_table(teaching, prep_txt):
@@ -178,7 +179,7 @@ def test_added_make_up_lists_the_buffer_and_no_mark():
     recipe = read_recipe_csv(ROOT / "examples" / "cuvette-1to1.csv", plan)
     html = render.prep_sheet(plan, recipe, assess_recipe(plan, recipe), stock_needs(plan, recipe),
                              date=DATE, fmt="html").decode("utf-8")
-    assert "dilute to the mark" not in html and "Make up</th>" not in html
+    assert "to the mark / mL" not in html and "≈ " not in html
     assert sheets.addition_order(plan, recipe) == ("BUF", "ZC", "ZN")  # common practice: metal last
     assert "zero the instrument on a tube of BUF" in html
     assert "1000 µL micropipette" in html and "5000 µL micropipette" in html  # the plan's dispensers
