@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 
 
 def sig(x: float | None, digits: int = 3) -> str:
@@ -84,3 +85,25 @@ def band(x: float, half_width: float) -> str:
 def fixed(x: float, step: float = 0.01) -> str:
     """``x`` with the decimals of ``step`` (a reading resolution), e.g. ``fixed(0.1, 0.01)`` → ``0.10``."""
     return volume(x, step)
+
+
+_SUB = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
+
+
+def species(name: str) -> str:
+    """A species name in chemical notation: stoichiometric counts as subscripts ("ML2" → "ML₂")."""
+    return re.sub(r"(?<=[A-Za-z)\]])\d+", lambda m: m.group(0).translate(_SUB), str(name))
+
+
+def param_label(name: str) -> str:
+    """A fitted parameter's JSON name in chemical notation: "log_beta[ML]" → "log β(ML)",
+    "epsilon[ML2]" → "ε(ML₂)"; other names are returned unchanged."""
+    for key, sym in (("log_beta[", "log β("), ("epsilon[", "ε(")):
+        if name.startswith(key) and name.endswith("]"):
+            return f"{sym}{species(name[len(key):-1])})"
+    return name
+
+
+def chem_text(text: str) -> str:
+    """Every parameter name in a sentence written in chemical notation (see :func:`param_label`)."""
+    return re.sub(r"(?:log_beta|epsilon)\[[^\]\s]+\]", lambda m: param_label(m.group(0)), str(text))

@@ -421,6 +421,7 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
     seq = addition_order(plan, recipe)
     target = plan.target
     lo, hi = plan.optics.linear_range
+    sat_flag = any(c["id"] == "saturation" and c["status"] != "pass" for c in summary.get("checks", []))
     rows = []
     for t in summary["tubes"]:
         a, sd = t["absorbance"], t["absorbance_sd"]
@@ -430,7 +431,9 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
             "M": fmt.conc(t["total_M"]["M"]), "L": fmt.conc(t["total_M"]["L"]),
             "complex": fmt.conc(t["species_M"][target]),
             "saturation": fmt.sig(t["saturation"], 2),
-            "sat_out": not (SATURATION_WINDOW[0] <= t["saturation"] <= SATURATION_WINDOW[1]),
+            # coloured only when the saturation check itself is not passed: tubes near 0 or 1 are
+            # part of a good design (they fix ε and the ends of the curve)
+            "sat_out": sat_flag and not (SATURATION_WINDOW[0] <= t["saturation"] <= SATURATION_WINDOW[1]),
             "absorbance": fmt.band(a, 2 * sd), "out": not (lo <= a <= hi),
         })
     params = []
@@ -438,7 +441,7 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
         se, true = p.get("se"), p["true"]
         ci = p.get("mc_ci95")
         params.append({
-            "name": p["name"],
+            "name": fmt.param_label(p["name"]),
             "guess": fmt.sig(p["guess"], 4),
             "true": fmt.sig(true, 4),
             "se": fmt.sig(se, 2),
@@ -450,7 +453,7 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
     corr = summary.get("correlation")
     corr_rows = []
     if corr and len(corr["names"]) > 1:
-        corr_rows = [{"name": n, "cells": [fmt.fixed(x, 0.01) if x is not None else "—" for x in row]}
+        corr_rows = [{"name": fmt.param_label(n), "cells": [fmt.fixed(x, 0.01) if x is not None else "—" for x in row]}
                      for n, row in zip(corr["names"], corr["matrix"], strict=True)]
     prof = summary.get("profile")
     prof_text = None
@@ -466,11 +469,12 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
         "title": plan.title,
         "date": date,
         "verdict": summary.get("verdict"),
-        "verdict_reason": summary.get("verdict_reason", ""),
+        "verdict_reason": fmt.chem_text(summary.get("verdict_reason", "")),
         "goal_se": fmt.sig(summary.get("goal_se"), 2),
         "target": target,
+        "target_label": fmt.species(target),
         "facts": [
-            ("Target", f"log β[{target}], goal SE ≤ {fmt.sig(summary.get('goal_se'), 2)}"),
+            ("Target", f"{fmt.param_label(f'log_beta[{target}]')}, goal SE ≤ {fmt.sig(summary.get('goal_se'), 2)}"),
             ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm, path {fmt.fixed(o.path_cm, 0.001)} cm"),
             ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
             ("Tubes", f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL, make-up {g.make_up}"),
@@ -480,12 +484,13 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
         "columns": list(seq),
         "rows": rows,
         "figures": figures,
-        "checks": [{"id": c["id"], "status": c["status"], "message": c["message"]}
+        "checks": [{"id": c["id"], "status": c["status"], "message": fmt.chem_text(c["message"])}
                    for c in summary.get("checks", [])],
         "params": params,
-        "corr_names": corr["names"] if corr_rows else [],
+        "corr_names": [fmt.param_label(n) for n in corr["names"]] if corr_rows else [],
         "corr_rows": corr_rows,
         "profile": prof_text,
         "design": _design_rows(design),
         "window": f"{fmt.sig(SATURATION_WINDOW[0], 1)}–{fmt.sig(SATURATION_WINDOW[1], 1)}",
+        "sat_flag": sat_flag,
     }

@@ -313,12 +313,12 @@ def test_report_verdict_first_then_sections(teaching, report_pdf):
     s = a.summary()
     txt = pdf_text(report_pdf)
     assert txt.index(s["verdict"].upper()) < txt.index("Recipe") < txt.index("Checks") < txt.index("Parameters")
-    assert norm(s["verdict_reason"]) in txt
+    assert norm(fmt.chem_text(s["verdict_reason"])) in txt
     for c in s["checks"]:
         assert c["id"] in txt
-        assert norm(c["message"])[:60] in txt
+        assert norm(fmt.chem_text(c["message"]))[:60] in txt  # parameter names in chemical notation
     for p in s["parameters"]:
-        assert p["name"] in txt
+        assert fmt.param_label(p["name"]) in txt
     corr = s["correlation"]["matrix"][0][1]
     assert fmt.fixed(corr, 0.01) in txt  # correlations to two decimals
     assert "0.930" in txt and "0.710" in txt  # the design keys, three significant figures
@@ -358,12 +358,59 @@ def test_binding_curve_is_the_one_to_one_isotherm(teaching):
     plan, recipe, a, _ = teaching
     curve = curves.binding_curve_data(compile_study(plan), recipe, a.summary())
     K = 10.0 ** 3.3  # the teaching scenario's guess; no ionic-strength correction is configured
-    # derived: for M + L ⇌ ML, [ML]/M_tot = K[L]/(1 + K[L]) at any metal total
-    np.testing.assert_allclose(curve.fraction_bound, K * curve.free_L_M / (1 + K * curve.free_L_M), rtol=1e-6)
-    np.testing.assert_allclose(curve.tube_fraction, K * curve.tube_free_L_M / (1 + K * curve.tube_free_L_M),
-                               rtol=1e-6)
-    assert np.all(np.diff(curve.free_L_M) > 0)  # a monotone series of ligand totals gives monotone free L
-    assert curve.metal_total_M == pytest.approx(1.0e-3)  # 1.00 mL of 10.0 mM into 10.00 mL
+    # derived: for M + L ⇌ ML the limiting reagent's fraction bound is K·x/(1 + K·x), x the free excess
+    # reagent, at any limiting total: every curve and every tube lie on the same isotherm
+    for ln in curve.lines:
+        np.testing.assert_allclose(ln.saturation, K * ln.free_excess_M / (1 + K * ln.free_excess_M), rtol=1e-6)
+        assert np.all(np.diff(ln.free_excess_M) >= 0)
+    x = curve.tube_free_excess_M
+    np.testing.assert_allclose(curve.tube_saturation, K * x / (1 + K * x), rtol=1e-6)
+    # derived: 1:1 curves at different limiting totals coincide, so one curve per limiting component
+    # (the demo series keeps the metal at 1.00 mM and raises the ligand past it)
+    assert sorted(ln.limiting for ln in curve.lines) == sorted(set(curve.tube_limiting))
+
+
+def test_saturation_is_one_number_in_table_check_and_figure():
+    # a recipe with both kinds of tubes: metal limiting (T1) and ligand limiting with metal in excess
+    # (T2), where the fraction of metal bound (≈ 0.07) and of ligand bound (≈ 0.95) differ
+    plan = patched_plan()
+    recipe = parse_recipe_csv("tube,CU,DY\nT1,0.70,0.65\nT2,8.80,0.70\nT3,8.80,0.70\n", plan)
+    a = assess(plan, recipe, trials=0)
+    summ = a.summary()
+    curve = curves.binding_curve_data(compile_study(plan), recipe, summ)
+    table = [t["saturation"] for t in summ["tubes"]]
+    np.testing.assert_allclose(curve.tube_saturation, table)
+    t2 = summ["tubes"][1]
+    bound = t2["species_M"]["ML"]
+    assert t2["saturation"] == pytest.approx(bound / t2["total_M"]["L"])  # derived: ligand is limiting
+    assert t2["saturation"] > 0.9 and bound / t2["total_M"]["M"] < 0.1
+    check = next(c for c in summ["checks"] if c["id"] == "saturation")
+    assert f"{max(table):.2f}" in check["message"]  # the check quotes the same numbers
+    assert ("T2", "T3") in curve.replicates  # replicates are one point with one label
+    svg = figures.binding_svg(curve, {"M": "Cu2+", "L": "Dy-"})
+    assert svg.count(">T2, T3<") == 1 and ">T2<" not in svg
+    assert "free Cu2+ / M" in svg and "log_beta" not in svg
+
+
+def test_report_uses_chemical_notation_and_no_colour_beside_a_pass(teaching):
+    plan, recipe, a, _ = teaching
+    html = render.report(plan, recipe, a, date=DATE, fmt="html").decode("utf-8")
+    assert "log β(ML)" in html and "ε(ML)" in html
+    assert "log_beta[" not in html.split("<body")[1]
+    if next(c for c in a.summary()["checks"] if c["id"] == "saturation")["status"] == "pass":
+        assert 'class="num warn"' not in html  # a pass is not contradicted by coloured saturations
+
+
+def test_binding_labels_do_not_overlap():
+    # ten distinct tubes crowded on one stretch of the curve: every label box must be distinct
+    n = 10
+    x = np.geomspace(1e-4, 2e-4, n)
+    line = curves.CurveLine("M", (1e-3,), np.geomspace(1e-6, 1e-1, 50), np.linspace(0, 1, 50))
+    curve = curves.BindingCurve((line,), ("M",) * n, x, np.linspace(0.40, 0.5, n),
+                                tuple(f"T{i + 1}" for i in range(n)), tuple((f"T{i + 1}",) for i in range(n)))
+    svg = figures.binding_svg(curve)
+    assert all(f">T{i + 1}<" in svg for i in range(n))
+    assert svg == figures.binding_svg(curve)  # deterministic
 
 
 def test_se_scan_equals_assess(teaching):
@@ -456,3 +503,10 @@ id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').rep
     steps = html[html.index("Order of addition"):]
     steps = steps[: steps.index("</ol>")]
     assert steps.index("NA") < steps.index("CU") < steps.index("AM")
+
+
+def test_parameter_names_in_chemical_notation():
+    assert fmt.param_label("log_beta[ML2]") == "log β(ML₂)"  # common practice: counts as subscripts
+    assert fmt.param_label("epsilon[ML]") == "ε(ML)"
+    assert fmt.param_label("blank") == "blank"
+    assert fmt.chem_text("|corr(log_beta[ML], epsilon[ML])| = 0.63") == "|corr(log β(ML), ε(ML))| = 0.63"
