@@ -107,3 +107,24 @@ def param_label(name: str) -> str:
 def chem_text(text: str) -> str:
     """Every parameter name in a sentence written in chemical notation (see :func:`param_label`)."""
     return re.sub(r"(?:log_beta|epsilon)\[[^\]\s]+\]", lambda m: param_label(m.group(0)), str(text))
+
+
+# -- table columns: one precision rule per column ----------------------------------------------------
+def band_column(values, half_widths, step: float = 0.001) -> list[str]:
+    """``x ± h`` for a whole column with the same decimals, those of ``step`` (the meter's display:
+    0.001 A by default), so the column reads like the instrument does."""
+    return [f"{volume(x, step)} ± {volume(h, step)}" for x, h in zip(values, half_widths, strict=True)]
+
+
+def conc_column(values_M, digits: int = 3) -> tuple[str, list[str]]:
+    """(unit, texts) for a column of concentrations: one unit (that of the largest value) and the same
+    decimals throughout (``digits`` significant figures of the largest)."""
+    vals = [float(v) for v in values_M]
+    big = max((abs(v) for v in vals), default=0.0)
+    unit, f = "M", 1.0
+    for unit_i, f_i in _CONC_UNITS:
+        if big * f_i >= 1:
+            unit, f = unit_i, f_i
+            break
+    decimals = max(digits - 1 - int(math.floor(math.log10(big * f))), 0) if big > 0 else 0
+    return unit, [f"{v * f:.{decimals}f}" for v in vals]

@@ -18,7 +18,7 @@ from collections.abc import Sequence
 from importlib import resources
 
 from . import fmt as _fmt
-from .sheets import RenderError, prep_context, report_context
+from .sheets import RenderError, plan_notes, prep_context, report_context
 
 __all__ = ["FORMATS", "PAPERS", "DataOnlyFetcher", "FetchRefused", "RenderError", "html_to_pdf", "prep_sheet",
            "render_html", "report"]
@@ -171,9 +171,13 @@ def report(plan, recipe, assessment, *, design: dict | None = None, paper: str =
     from . import figures as fig
 
     _check(paper, fmt)
+    from ..jobs.stock_needs import stock_needs
+
     summary = assessment.summary()
     figs = _report_figures(plan, recipe, assessment, summary, fig)
-    ctx = report_context(plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design)
+    notes = plan_notes(plan, [n.summary() for n in stock_needs(plan, recipe)])
+    ctx = report_context(plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design,
+                         notes=notes)
     return _out(render_html("report.html.j2", ctx), fmt)
 
 

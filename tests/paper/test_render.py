@@ -84,13 +84,16 @@ def test_tube_rows_carry_volumes_band_and_complex(teaching, prep_txt):
     order = sheets.addition_order(plan, recipe)
     assert order == ("DY", "CU")  # common practice: ligand before the metal, diluent first and last
     step = plan.glassware.step_mL
-    for i, row in enumerate(summary["tubes"]):
+    tubes = summary["tubes"]
+    unit, cplx = fmt.conc_column([t["species_M"][plan.target] for t in tubes])
+    assert f"[ML] expected / {unit}" in prep_txt  # one unit for the whole column
+    for i, row in enumerate(tubes):
         vols = " ".join(fmt.volume(recipe.column(s)[i], step) for s in order)
-        band = fmt.band(row["absorbance"], 2 * row["absorbance_sd"])
-        cplx = fmt.conc(row["species_M"][plan.target])
+        # derived: the display step 0.001 sets three decimals for every expected A and its band
+        band = f"{row['absorbance']:.3f} ± {2 * row['absorbance_sd']:.3f}"
         rest = fmt.volume(recipe.column("BG")[i], step)  # the diluent each flask should take
-        assert f"{row['tube']} {vols} ≈ {rest} {band}" in prep_txt, row["tube"]
-        assert cplx in prep_txt
+        flag = "" if 0.1 <= row["absorbance"] <= 1.0 else " (out of range)"  # the plan's linear range
+        assert f"{row['tube']} {vols} ≈ {rest} {band}{flag} {cplx[i]}" in prep_txt, row["tube"]
 
 
 def test_printed_absorbance_rounds_the_json_value(teaching, prep_txt):
@@ -102,7 +105,7 @@ def test_printed_absorbance_rounds_the_json_value(teaching, prep_txt):
         half_ulp = 0.5 * 10.0 ** -len(x.split(".")[1])  # derived: rounding moves a value ≤ half a digit
         assert abs(float(x) - row["absorbance"]) <= half_ulp + 1e-12
         assert abs(float(u) - 2 * row["absorbance_sd"]) <= half_ulp + 1e-12
-        assert len(u.replace("0.", "").lstrip("0")) == 2  # GUM 7.2.6: two significant figures
+        assert len(x.split(".")[1]) == len(u.split(".")[1]) == 3  # one rule per column: the 0.001 display
 
 
 def test_volumes_on_the_dispenser_grid(teaching, prep_txt):
@@ -328,8 +331,9 @@ def test_report_rows_match_json(teaching, report_pdf):
     _, _, a, _ = teaching
     txt = pdf_text(report_pdf)
     for row in a.summary()["tubes"]:
-        assert fmt.band(row["absorbance"], 2 * row["absorbance_sd"]) in txt
-        assert fmt.sig(row["saturation"], 2) in txt
+        # one precision rule per column: A to the 0.001 display, saturation to 0.01 [derived]
+        assert f"{row['absorbance']:.3f} ± {2 * row['absorbance_sd']:.3f}" in txt
+        assert f"{row['saturation']:.2f}" in txt
 
 
 def test_report_html_has_inline_svg_with_unique_ids(teaching):
