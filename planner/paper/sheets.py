@@ -12,10 +12,13 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+from markupsafe import Markup
+
 from ..inputs.plan import Plan
 from ..inputs.recipe import Recipe
 from ..jobs.checks import SATURATION_WINDOW
 from . import fmt, safety
+from .pictograms import pictogram_svg
 from .stock_text import conc_lines, needed_text, plan_notes, prep_lines, pretty_formula
 
 __all__ = [
@@ -196,7 +199,8 @@ def safety_context(plan: Plan) -> dict:
                 "formula": pretty_formula(hz.formula),
                 "signal": hz.signal_word or "not classified",
                 "danger": hz.signal_word == "Danger",
-                "pictograms": [{"code": p, "name": safety.PICTOGRAMS[p]} for p in hz.pictograms],
+                "pictograms": [{"code": p, "name": safety.PICTOGRAMS[p], "svg": Markup(pictogram_svg(p))}
+                               for p in hz.pictograms],
                 "statements": [{"code": c, "text": t} for c, t in hz.statements()],
                 "cmr": hz.cmr, "cmr_codes": ", ".join(hz.cmr_codes),
                 "incompatible": list(hz.incompatible), "ppe": list(hz.ppe),
