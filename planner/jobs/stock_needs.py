@@ -151,7 +151,7 @@ def stock_solutes(components: dict[str, tuple[float, int, str]], ions: dict[str,
             eq[n] -= use
             need -= use
             taken.append(n)
-        out.append(Solute("component", formula or "", f"{label} salt", c, (label, *taken)))
+        out.append(Solute("component", formula or "", f"{label} salt" if z else label, c, (label, *taken)))
         if need > tol:
             eq[("-" if z > 0 else "+") + "gap"] = need
     cations = [n for n, (_, z) in ions.items() if z > 0]
