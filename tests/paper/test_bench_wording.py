@@ -78,3 +78,21 @@ def test_charge_gap_is_said_at_the_bench():
     body = _body(sheet)
     assert "do not balance in charge" in body and "NO3-" in body
     assert "add NO3-" in rep
+
+
+@pytest.mark.parametrize("n", range(3, 9))
+def test_footnotes_stay_with_their_tables(n):
+    # tables of 3–8 tubes: for some length the table ends at the foot of a page, where its note used
+    # to start the next page on its own
+    pypdf = pytest.importorskip("pypdf")
+    import io
+
+    plan = parse_plan_text(scenario_text("teaching"))
+    recipe = parse_recipe_csv("tube,CU,DY\n" + "".join(f"T{i + 1},0.70,{0.50 + 0.05 * i:.2f}\n" for i in range(n)),
+                              plan)
+    pdf = render.prep_sheet(plan, recipe, assess(plan, recipe, trials=0), stock_needs(plan, recipe),
+                            date="2026-12-01")
+    pages = [re.sub(r"\s+", " ", p.extract_text()) for p in pypdf.PdfReader(io.BytesIO(pdf)).pages]
+    for note, last_row in (("Volumes in mL, read to", f"T{n} "), ("Needed: what the tubes take", "BG ")):
+        page = next(i for i, t in enumerate(pages) if note in t)
+        assert last_row in pages[page].split(note)[0], note  # the table's last row is on the note's page
