@@ -20,6 +20,7 @@ __all__ = [
     "absorbance_svg",
     "binding_svg",
     "mc_histogram_svg",
+    "place_labels",
     "se_scan_svg",
 ]
 
@@ -195,40 +196,48 @@ _OFFSETS = ((5, -10), (5, 4), (-5, 4), (-5, -10), (5, 13), (5, -19), (-5, 13), (
 """Candidate label offsets from a point (points; negative x puts the label to the left)."""
 
 
-def _label_points(fig, ax, points) -> None:
-    """Annotate each point at the first candidate offset whose text box overlaps no earlier label, no
-    point and stays inside the axes (the first candidate when none is free). Boxes are estimated from
-    the label length (DejaVu Sans averages ≈ 0.6 em per character), so the result is deterministic."""
-    pos = ax.get_position()
-    w_pt, h_pt = pos.width * fig.get_figwidth() * 72, pos.height * fig.get_figheight() * 72
-    to_axes = ax.transData + ax.transAxes.inverted()
-    centres = to_axes.transform(np.array([[x, y] for x, y, _ in points])) * [w_pt, h_pt]   # in points
-    marks = [(cx - 3, cy - 3, cx + 3, cy + 3) for cx, cy in centres]
-    placed: list[tuple[float, float, float, float]] = []
+def place_labels(centres_pt: np.ndarray, labels: list[str], width_pt: float, height_pt: float):
+    """Offsets (dx, dy) in points and text boxes for labels of points at ``centres_pt`` (n, 2).
+
+    Each label takes the first candidate offset whose box overlaps no earlier label and no other point
+    and stays inside the axes (the first candidate when none is free); points are taken left to
+    right. Boxes are estimated from the label length (DejaVu Sans averages ≈ 0.6 em per character),
+    so the placement is deterministic.
+    """
+    marks = [(cx - 3, cy - 3, cx + 3, cy + 3) for cx, cy in centres_pt]
+    placed: dict[int, tuple] = {}
 
     def clash(b, others):
         return any(b[0] < o[2] and o[0] < b[2] and b[1] < o[3] and o[1] < b[3] for o in others)
 
-    order = np.argsort(centres[:, 0], kind="stable")
-    for i in order:
-        (cx, cy), label = centres[i], points[i][2]
-        width = 0.6 * LABEL_PT * len(label)
+    for i in np.argsort(centres_pt[:, 0], kind="stable"):
+        cx, cy = centres_pt[i]
+        width = 0.6 * LABEL_PT * len(labels[i])
         choice = None
         for dx, dy in _OFFSETS:
             x0 = cx + dx if dx >= 0 else cx + dx - width
             box = (x0, cy + dy, x0 + width, cy + dy + LABEL_PT)
-            inside = box[0] >= 0 and box[2] <= w_pt and box[1] >= 0 and box[3] <= h_pt
-            if inside and not clash(box, placed) and not clash(box, marks[:i] + marks[i + 1:]):
+            inside = box[0] >= 0 and box[2] <= width_pt and box[1] >= 0 and box[3] <= height_pt
+            if inside and not clash(box, [c[2] for c in placed.values()]) and not clash(box, marks[:i] + marks[i + 1:]):
                 choice = (dx, dy, box)
                 break
         if choice is None:
             dx, dy = _OFFSETS[0]
-            x0 = cx + dx
-            choice = (dx, dy, (x0, cy + dy, x0 + width, cy + dy + LABEL_PT))
-        dx, dy, box = choice
-        placed.append(box)
-        ax.annotate(label, (points[i][0], points[i][1]), xytext=(dx, dy), textcoords="offset points",
-                    fontsize=LABEL_PT, color="#52606d", ha="left" if dx >= 0 else "right", va="bottom")
+            choice = (dx, dy, (cx + dx, cy + dy, cx + dx + width, cy + dy + LABEL_PT))
+        placed[int(i)] = choice
+    return [placed[i] for i in range(len(labels))]
+
+
+def _label_points(fig, ax, points) -> None:
+    """Annotate each point where :func:`place_labels` puts its label."""
+    pos = ax.get_position()
+    w_pt, h_pt = pos.width * fig.get_figwidth() * 72, pos.height * fig.get_figheight() * 72
+    to_axes = ax.transData + ax.transAxes.inverted()
+    centres = to_axes.transform(np.array([[x, y] for x, y, _ in points])) * [w_pt, h_pt]   # in points
+    for (x, y, label), (dx, dy, _box) in zip(points, place_labels(centres, [p[2] for p in points], w_pt, h_pt),
+                                               strict=True):
+        ax.annotate(label, (x, y), xytext=(dx, dy), textcoords="offset points", fontsize=LABEL_PT,
+                    color="#52606d", ha="left" if dx >= 0 else "right", va="bottom")
 
 
 # --------------------------------------------------------------------------------------------------

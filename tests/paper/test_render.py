@@ -415,6 +415,13 @@ def test_binding_labels_do_not_overlap():
     svg = figures.binding_svg(curve)
     assert all(f">T{i + 1}<" in svg for i in range(n))
     assert svg == figures.binding_svg(curve)  # deterministic
+    # the label boxes themselves: on a crowded stretch no two overlap
+    centres = np.column_stack([np.linspace(60, 90, n), np.linspace(50, 60, n)])   # points, 3 pt apart
+    boxes = [b for _, _, b in figures.place_labels(centres, [f"T{i + 1}" for i in range(n)], 200, 130)]
+    for i in range(n):
+        for j in range(i):
+            a, b = boxes[i], boxes[j]
+            assert not (a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]), (i, j)
 
 
 def test_se_scan_equals_assess(teaching):
