@@ -57,13 +57,13 @@ def test_glassware_check_flags_a_full_flask():
 
 
 def test_added_mode_has_no_reserve():
-    text = scenario_text("teaching").replace('make_up = "to-mark"', 'make_up = "added"')
-    text = text.replace("diluent = true", "diluent = true\n") if "diluent = true" in text else text
-    try:
-        plan = parse_plan_text(text)
-    except PlanError:
-        pytest.skip("the teaching scenario needs to-mark")
-    assert compile_bench(plan).make_up_min_mL == 0.0
+    # every volume is dispensed into the cuvette: nothing is made up to a mark
+    from planner.inputs.plan import load_plan
+
+    from ..conftest import ROOT
+
+    bench = compile_bench(load_plan(ROOT / "examples" / "cuvette-1to1.toml"))
+    assert bench.make_up == "added" and bench.make_up_min_mL == 0.0 and bench.room_mL == bench.tube_volume_mL
 
 
 def test_sheet_shows_the_diluent_to_expect():
