@@ -128,3 +128,25 @@ def conc_column(values_M, digits: int = 3) -> tuple[str, list[str]]:
             break
     decimals = max(digits - 1 - int(math.floor(math.log10(big * f))), 0) if big > 0 else 0
     return unit, [f"{v * f:.{decimals}f}" for v in vals]
+
+
+_SUP = str.maketrans("0123456789+-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁺⁻")
+
+
+def ion(label: str) -> str:
+    """An ion label in chemical notation: counts as subscripts, the charge as a superscript
+    ("Cu2+" → "Cu²⁺", "SO4 2-" → "SO₄²⁻", "NO3-" → "NO₃⁻"). Digits right before the sign are a charge
+    only after a bare element symbol, as the plan's ion names are read; other text is kept."""
+    s = str(label).strip()
+    m = re.fullmatch(r"(.+?)\s+(\d*[+-])", s) or re.fullmatch(r"\[(.+)\](\d*[+-])", s)
+    if m is None:
+        m = re.fullmatch(r"(.+?)(\++|-+)", s)
+        if m is None:
+            return species(s)
+        body, charge = m.groups()
+        bare = re.fullmatch(r"([A-Z][a-z]?)(\d+)", body)
+        if bare and len(charge) == 1:  # "Cu2+": the digits are the charge
+            body, charge = bare.group(1), bare.group(2) + charge
+    else:
+        body, charge = m.groups()
+    return species(body) + charge.translate(_SUP)

@@ -194,7 +194,7 @@ def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
             "caption": "Expected absorbance of each tube (bars: ±2 sd of one reading, every error source) "
                        "inside the instrument's linear range."}]
     curve = curves.binding_curve_data(study, recipe, summary)
-    names = {"M": plan.components.M.label or "M", "L": plan.components.L.label or "L"}
+    names = {"M": _fmt.ion(plan.components.M.label or "M"), "L": _fmt.ion(plan.components.L.label or "L")}
     out.append({"svg": Markup(fig.binding_svg(curve, names)),
                 "caption": "Tubes on the binding curve: saturation (the fraction of each tube's limiting "
                            "reagent bound, as in the recipe table and the saturation check) against the "

@@ -521,3 +521,11 @@ def test_parameter_names_in_chemical_notation():
     assert fmt.param_label("epsilon[ML]") == "ε(ML)"
     assert fmt.param_label("blank") == "blank"
     assert fmt.chem_text("|corr(log_beta[ML], epsilon[ML])| = 0.63") == "|corr(log β(ML), ε(ML))| = 0.63"
+
+
+def test_ion_labels_in_chemical_notation():
+    # common practice: counts as subscripts, charge as a superscript; digits before the sign are a
+    # charge only after a bare element symbol (the rule the plan's ion names are read by)
+    for text, shown in (("Cu2+", "Cu²⁺"), ("NO3-", "NO₃⁻"), ("SO4 2-", "SO₄²⁻"), ("[SO4]2-", "SO₄²⁻"),
+                        ("K+", "K⁺"), ("Am", "Am")):
+        assert fmt.ion(text) == shown, text
