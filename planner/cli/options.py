@@ -32,15 +32,7 @@ def _with_progress(run, trials: int, quiet: bool):
 
 
 def read_points(path, plan, study, *, readings: bool = False):
-    """The recipe of PATH for ``plan``: a tube recipe CSV, or (for a plan with [titration]) a titration
-    schedule CSV (step, aliquot_mL[, absorbance]). With ``readings``: a Readings object (absorbance needed)."""
-    from ..inputs.readings import Readings, read_readings_csv
-    from ..inputs.recipe import read_recipe_csv
-    from ..inputs.schedule import read_schedule_csv
-    from ..jobs.titrate import schedule_points
+    """The recipe (or readings) in PATH for ``plan``: see :func:`planner.jobs.titrate.read_points`."""
+    from ..jobs.titrate import read_points as _read
 
-    if plan.titration is None:
-        return read_readings_csv(path, plan) if readings else read_recipe_csv(path, plan)
-    schedule = read_schedule_csv(path, need_absorbance=readings)
-    rec = schedule_points(study, schedule)
-    return Readings(rec, schedule.absorbance) if readings else rec
+    return _read(path, plan, study, readings=readings)

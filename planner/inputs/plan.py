@@ -256,6 +256,7 @@ class Glassware(_Strict):
     min_volume_mL: Volume = Field(default=0.0, alias="min_volume")
     rinse_mL: Volume = Field(default=2.0, alias="rinse")
     dead_volume_mL: Volume = Field(default=1.0, alias="dead_volume")
+    make_up_min_mL: Volume | None = Field(default=None, alias="make_up_min")
     delta_T_C: float = Field(default=0.0, ge=-30, le=30)
     balance: Balance = Balance()
     order: list[str] | None = None
@@ -269,6 +270,9 @@ class Glassware(_Strict):
             raise ValueError(f"step = {self.step_mL} mL must be positive, e.g. step = '0.05 mL'")
         if self.min_volume_mL < 0:
             raise ValueError(f"min_volume = {self.min_volume_mL} mL must not be negative")
+        if self.make_up_min_mL is not None and not 0 <= self.make_up_min_mL < self.tube_volume_mL:
+            raise ValueError(f"make_up_min = {self.make_up_min_mL} mL must be ≥ 0 and below tube_volume "
+                             f"({self.tube_volume_mL} mL), e.g. make_up_min = '0.5 mL'")
         return self
 
 

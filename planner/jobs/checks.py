@@ -96,7 +96,8 @@ def linear_range(model: Model, state: TubeState, tubes, risk: np.ndarray | None 
 
 def saturation(state: TubeState, tubes) -> Check:
     """Coverage of the binding curve: at least two tubes inside the 0.2–0.8 window and a span of at
-    least half of it.
+    least half of it. The saturation is :func:`planner.model.compiled.saturation` (the fraction of each
+    tube's limiting reagent bound), the number the tube tables print and the binding figure plots.
 
     Weber (1975) asks for the 0.2–0.8 window; Deranleau (1969, JACS 91:4044) for ~75 % of the curve;
     Bowser & Chen (1998, J. Phys. Chem. A 102:8063) find the central-to-upper part the most informative.

@@ -21,7 +21,8 @@ from ..uncertainty import budget as _budget
 from ..uncertainty import catalogue
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
 
-__all__ = ["build_model", "compile_bench", "compile_study", "error_budget", "plan_devices"]
+__all__ = ["MAKE_UP_MIN_FRACTION", "build_model", "compile_bench", "compile_study", "error_budget", "make_up_min_mL",
+           "plan_devices"]
 
 
 def build_model(plan: Plan) -> Model:
@@ -140,7 +141,21 @@ def compile_bench(plan: Plan) -> Bench:
             plan.titration.cell, plan.titration.titrant, plan.titration.start_volume_mL,
             plan.titration.max_volume_mL, plan.titration.step_mL or g.step_mL, plan.titration.additions,
             plan.titration.equilibrate),
+        make_up_min_mL=make_up_min_mL(plan),
     )
+
+
+MAKE_UP_MIN_FRACTION = 0.05
+"""Default least diluent per flask under ``to-mark``: 5 % of the tube volume, enough to rinse the neck
+and bring the meniscus to the mark by dropper [common practice]."""
+
+
+def make_up_min_mL(plan: Plan) -> float:
+    """The plan's ``glassware.make_up_min`` (default 5 % of the tube), 0 when nothing is made up to a mark."""
+    g = plan.glassware
+    if g.make_up != "to-mark" or plan.diluent is None:
+        return 0.0
+    return g.make_up_min_mL if g.make_up_min_mL is not None else MAKE_UP_MIN_FRACTION * g.tube_volume_mL
 
 
 def compile_study(plan: Plan) -> Study:

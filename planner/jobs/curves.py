@@ -12,41 +12,68 @@ import numpy as np
 
 from ..inference.precision import ReadingModel, cramer_rao, pack
 from ..inference.study import Study
-from ..inputs.recipe import Recipe, totals_M
-from ..model.compiled import predict, tube_ions_M
+from ..inputs.recipe import Recipe
+from ..model.compiled import predict, saturation, tube_ions_M
 from ..uncertainty.budget import error_budget
 from .assess import expected_state, true_constants
 
-__all__ = ["BindingCurve", "SeScan", "binding_curve_data", "cramer_rao_se", "se_scan_data"]
+__all__ = ["SAME_CURVE", "BindingCurve", "CurveLine", "SeScan", "binding_curve_data", "cramer_rao_se", "se_scan_data"]
+
+
+@dataclass(frozen=True)
+class CurveLine:
+    """One smooth binding curve: saturation of ``limiting`` against the free excess reagent.
+
+    Attributes
+    ----------
+    limiting : "M" or "L", the component whose fraction bound is drawn.
+    totals_M : the limiting totals (mol/L) of the tubes this curve stands for; the curve is computed at
+        the first, and the others' curves coincide with it within :data:`SAME_CURVE` (merged).
+    free_excess_M, saturation : (N,) the curve.
+    """
+
+    limiting: str
+    totals_M: tuple[float, ...]
+    free_excess_M: np.ndarray
+    saturation: np.ndarray
 
 
 @dataclass(frozen=True)
 class BindingCurve:
-    """Fraction of the metal bound in complexes against free ligand, smooth and at the tubes.
+    """Saturation (fraction of the limiting reagent bound) against the free reagent in excess.
+
+    The saturation is :func:`planner.model.compiled.saturation`, the number in the tube tables and the
+    saturation check, so every tube sits on its own curve.
 
     Attributes
     ----------
-    metal_total_M : metal total the curve is computed at (the recipe's; the median if it varies), mol/L.
-    free_L_M, fraction_bound : (N,) the smooth curve.
-    tube_free_L_M, tube_fraction : (n,) each tube (from the assessment's tube rows).
+    lines : one curve per (limiting component, distinct limiting total), coinciding ones merged.
+    tube_limiting : (n,) "M" or "L" per tube.
+    tube_free_excess_M, tube_saturation : (n,) each tube (from the assessment's tube rows).
     tubes : tube labels.
+    replicates : tube labels grouped by identical composition (each group is one point).
     """
 
-    metal_total_M: float
-    free_L_M: np.ndarray
-    fraction_bound: np.ndarray
-    tube_free_L_M: np.ndarray
-    tube_fraction: np.ndarray
+    lines: tuple[CurveLine, ...]
+    tube_limiting: tuple[str, ...]
+    tube_free_excess_M: np.ndarray
+    tube_saturation: np.ndarray
     tubes: tuple[str, ...]
+    replicates: tuple[tuple[str, ...], ...]
+
+
+SAME_CURVE = 0.01
+"""Curves whose saturations differ by less than this everywhere are drawn as one (for a 1:1 complex
+the saturation against the free excess reagent does not depend on the limiting total at all)."""
 
 
 def binding_curve_data(study: Study, recipe: Recipe, summary: dict, *, n_points: int = 240) -> BindingCurve:
-    """Speciate a fine log-spaced series of ligand totals at the recipe's metal total.
+    """Speciate, for each distinct limiting total of the recipe, a log-spaced series of excess totals.
 
-    The constants are the ones the assessment assumed true (its parameters' "true" values); the
-    other ions are the tubes' average, so activity corrections match the tubes'. The curve is the
-    classical binding isotherm, fraction of metal in M–L complexes against free ligand [source:
-    Weber 1975, Adv. Protein Chem. 29:1, for the 0.2–0.8 window drawn with it].
+    The constants are the ones the assessment assumed true (its parameters' "true" values); the other
+    ions are the average of the tubes of that curve, so activity corrections match theirs. Each curve
+    is the binding isotherm of the limiting reagent [source: Weber 1975, Adv. Protein Chem. 29:1, for
+    the 0.2–0.8 window drawn with it].
     """
     model = study.model
     lb = model.log_beta.copy()
@@ -54,29 +81,50 @@ def binding_curve_data(study: Study, recipe: Recipe, summary: dict, *, n_points:
         m = re.fullmatch(r"log_beta\[(.+)\]", p["name"])
         if m and m.group(1) in model.species:
             lb[model.index(m.group(1))] = p["true"]
-    tot = totals_M(recipe, model.stock_conc_M)
-    M0 = float(np.median(tot[:, 0][tot[:, 0] > 0])) if np.any(tot[:, 0] > 0) else 0.0
-    L_pos = tot[:, 1][tot[:, 1] > 0]
-    lo, hi = (float(L_pos.min()) / 20, float(L_pos.max()) * 20) if L_pos.size else (1e-7, 1e-1)
-    L_series = np.geomspace(lo, hi, n_points)
-    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL).mean(axis=0)
-    totals = np.column_stack([np.full(n_points, M0), L_series])
-    st = predict(model, totals, np.broadcast_to(ions, (n_points, ions.size)), log_beta=lb, warn=False)
-    mask = model.complex_mask
-    p_metal = model.stoich[mask, 0]
-
-    def frac(species_M, metal_M):
-        bound = np.sum(species_M[..., mask] * p_metal, axis=-1)
-        return np.divide(bound, metal_M, out=np.zeros_like(bound), where=metal_M > 0)
-
     rows = summary["tubes"]
-    sp_names = [s for s in model.species]
-    tube_sp = np.array([[t["species_M"][s] for s in sp_names] for t in rows], dtype=float)
-    tube_M = np.array([t["total_M"]["M"] for t in rows], dtype=float)
-    tube_L = np.array([t["species_M"]["L"] for t in rows], dtype=float)
-    return BindingCurve(M0, st.free_L, frac(st.species_M, np.full(n_points, M0)), tube_L,
-                        frac(tube_sp.reshape(len(rows), len(sp_names)), tube_M),
-                        tuple(t["tube"] for t in rows))
+    tot = np.array([[t["total_M"]["M"], t["total_M"]["L"]] for t in rows], dtype=float).reshape(len(rows), 2)
+    free = np.array([[t["species_M"]["M"], t["species_M"]["L"]] for t in rows], dtype=float).reshape(len(rows), 2)
+    lim = np.where(tot[:, 0] <= tot[:, 1], 0, 1)               # the same rule as saturation()
+    ions_all = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    lines: list[CurveLine] = []
+    groups: dict[tuple[int, float], list[int]] = {}
+    for i in range(len(rows)):  # a handful of tubes
+        if np.all(tot[i] > 0):
+            groups.setdefault((int(lim[i]), float(f"{tot[i, lim[i]]:.4g}")), []).append(i)
+    for (c, total), idx in sorted(groups.items()):
+        e = 1 - c
+        ex = tot[idx, e]
+        series = np.geomspace(max(float(ex.min()), total) / 30, float(ex.max()) * 30, n_points)
+        totals = np.empty((n_points, 2))
+        totals[:, c], totals[:, e] = total, series
+        ions = ions_all[idx].mean(axis=0)
+        st = predict(model, totals, np.broadcast_to(ions, (n_points, ions.size)), log_beta=lb, warn=False)
+        sat = saturation(model, totals, st.species_M, of="ML"[c])
+        x = st.free_L if e == 1 else st.free_M
+        same = next((k for k, ln in enumerate(lines) if ln.limiting == "ML"[c] and _coincide(ln, x, sat)), None)
+        if same is None:
+            lines.append(CurveLine("ML"[c], (total,), x, sat))
+        else:  # one curve drawn over the union of both ranges
+            ln = lines[same]
+            xs = np.concatenate([ln.free_excess_M, x])
+            order = np.argsort(xs, kind="stable")
+            lines[same] = CurveLine(ln.limiting, (*ln.totals_M, total), xs[order],
+                                    np.concatenate([ln.saturation, sat])[order])
+    reps: dict[tuple, list[str]] = {}
+    for i, t in enumerate(rows):
+        reps.setdefault(tuple(np.round(recipe.volumes_mL[i], 9)), []).append(t["tube"])
+    return BindingCurve(tuple(lines), tuple("ML"[c] for c in lim), free[np.arange(len(rows)), 1 - lim],
+                        np.array([t["saturation"] for t in rows], dtype=float), tuple(t["tube"] for t in rows),
+                        tuple(tuple(g) for g in reps.values()))
+
+
+def _coincide(line: CurveLine, x: np.ndarray, sat: np.ndarray) -> bool:
+    """True when (x, sat) follows ``line`` within :data:`SAME_CURVE` where their free ranges overlap."""
+    ok = (x > 0) & (x >= line.free_excess_M[line.free_excess_M > 0].min()) & (x <= line.free_excess_M.max())
+    if ok.sum() < 2:
+        return False
+    ref = np.interp(np.log(x[ok]), np.log(line.free_excess_M), line.saturation)
+    return bool(np.max(np.abs(ref - sat[ok])) < SAME_CURVE)
 
 
 @dataclass(frozen=True)

@@ -66,6 +66,9 @@ def candidate_tubes(study: Study, *, step_mL: float | None = None,
                     caps_mL: dict[str, float] | None = None) -> Candidates:
     """All combinations of designed volumes on the grid that fit the tube (before the range screen).
 
+    Under ``make_up = "to-mark"`` the dispensed volumes (fixed and background ones included) add up to
+    at most the tube less ``glassware.make_up_min``, so every flask still takes diluent to its mark.
+
     Parameters
     ----------
     step_mL : grid step (default the plan's; a multiple of it for a coarse search).
@@ -78,7 +81,8 @@ def candidate_tubes(study: Study, *, step_mL: float | None = None,
     designed = [s for s in g.stock_ids if s not in (g.diluent_id, g.background_id) and s not in fixed]
     if not designed:
         raise DesignError("design.fixed fixes every stock: nothing is left to vary; remove a stock from fixed")
-    room = g.tube_volume_mL - sum(fixed.values())
+    # under to-mark the flask keeps make_up_min of room for the diluent (Bench.room_mL)
+    room = g.room_mL - sum(fixed.values())
     levels = []
     for sid in designed:
         k = g.stock_index(sid)
@@ -152,7 +156,7 @@ def level_ionic_strength(study: Study, vols: dict[str, np.ndarray]) -> dict[str,
     v_bg = np.round(np.maximum(target - I0, 0.0) * tube / (i_bg - i_dil) / g.step_mL) * g.step_mL
     v_bg = np.round(v_bg, 10)
     I = I0 + v_bg * (i_bg - i_dil) / tube
-    room = tube - sum(vols.values())
+    room = g.room_mL - sum(vols.values())
     ok = (np.abs(I - target) <= study.ionic_strength_tolerance * target) & (v_bg <= room + 1e-9)
     ok &= (v_bg == 0) | (v_bg >= g.min_volume_mL - 1e-9)
     if not ok.any():
@@ -489,7 +493,7 @@ def _neighbourhood(study: Study, coarse: Candidates, support: np.ndarray, factor
         rows.append(mesh)
     rows.append(coarse.recipe.volumes_mL[:, cols])
     mesh = np.unique(np.round(np.concatenate(rows), 10), axis=0)
-    room = g.tube_volume_mL - sum(g.fixed_mL.values())
+    room = g.room_mL - sum(g.fixed_mL.values())
     ok = mesh.sum(axis=1) <= room + 1e-9
     ok &= np.all((mesh == 0) | (mesh >= g.min_volume_mL - 1e-9), axis=1)
     for j, sid in enumerate(ids):

@@ -84,6 +84,21 @@ def schedule_points(study: Study, schedule: Schedule) -> Recipe:
     return titration_recipe(study.bench, schedule)
 
 
+def read_points(path, plan, study: Study, *, readings: bool = False):
+    """The recipe in PATH for ``plan``: a tube recipe CSV, or (for a plan with [titration]) a titration
+    schedule CSV (step, aliquot_mL[, absorbance]) turned into its points. With ``readings``: a Readings
+    object (an absorbance column is then required)."""
+    from ..inputs.readings import Readings, read_readings_csv
+    from ..inputs.recipe import read_recipe_csv
+    from ..inputs.schedule import read_schedule_csv
+
+    if plan.titration is None:
+        return read_readings_csv(path, plan) if readings else read_recipe_csv(path, plan)
+    schedule = read_schedule_csv(path, need_absorbance=readings)
+    rec = schedule_points(study, schedule)
+    return Readings(rec, schedule.absorbance) if readings else rec
+
+
 def equal_schedule(study: Study, additions: int | None = None) -> Schedule:
     """The usual schedule: equal aliquots on the dispenser's grid filling the cell's room."""
     t = study.bench.titration

@@ -206,13 +206,33 @@ def predict(model: Model, totals: np.ndarray, ion_M: np.ndarray | None = None, *
     )
 
 
-def saturation(model: Model, totals: np.ndarray, species_M: np.ndarray) -> np.ndarray:
-    """Fraction of the limiting component (the smaller total) bound in M–L complexes."""
+def saturation(model: Model, totals: np.ndarray, species_M: np.ndarray, *, of: str | None = None) -> np.ndarray:
+    """Saturation of each tube: the fraction of its limiting reagent bound in M–L complexes.
+
+    This is the one definition used by the tube tables, the saturation check and the binding-curve
+    figure. The limiting reagent is the component with the smaller total (M when the totals are
+    equal); "bound" counts it in every species holding both M and L, weighted by its stoichiometry.
+    It is the fractional saturation of binding studies, whose 0.2–0.8 span is where the data fix K
+    best [source: Weber 1975, Adv. Protein Chem. 29:1; Deranleau 1969, JACS 91:4044]. Taking the
+    limiting reagent (not always the metal) keeps the number meaningful in tubes with the metal in
+    excess, where the fraction of metal bound stays near 0 however complete the binding is.
+
+    Parameters
+    ----------
+    totals : (..., n, 2) total M and L, mol/L.
+    species_M : (..., n, S) species concentrations, mol/L.
+    of : "M" or "L" to take that component instead of the limiting one (for a smooth curve along
+        which the excess reagent falls below the other); None for the limiting reagent.
+
+    Returns
+    -------
+    (..., n) fraction in [0, 1]; 0 where M or L is absent.
+    """
     mask = model.complex_mask
     bound_M = np.sum(species_M[..., mask] * model.stoich[mask, 0], axis=-1)
     bound_L = np.sum(species_M[..., mask] * model.stoich[mask, 1], axis=-1)
     M0, L0 = totals[..., 0], totals[..., 1]
-    metal_limits = M0 <= L0
+    metal_limits = M0 <= L0 if of is None else np.full(np.shape(M0), of == "M")
     with np.errstate(invalid="ignore", divide="ignore"):
         frac = np.where(metal_limits, bound_M / np.where(M0 > 0, M0, 1.0), bound_L / np.where(L0 > 0, L0, 1.0))
     return np.where(np.minimum(M0, L0) > 0, np.clip(frac, 0.0, 1.0), 0.0)

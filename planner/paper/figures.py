@@ -20,6 +20,7 @@ __all__ = [
     "absorbance_svg",
     "binding_svg",
     "mc_histogram_svg",
+    "place_labels",
     "se_scan_svg",
 ]
 
@@ -119,30 +120,124 @@ def absorbance_svg(tubes: list[dict], linear_range: tuple[float, float], *, pref
 # --------------------------------------------------------------------------------------------------
 # binding curve
 # --------------------------------------------------------------------------------------------------
-def binding_svg(curve: BindingCurve, *, prefix: str = "fb") -> str:
-    """The binding curve on a log free-ligand axis with the 0.2–0.8 window shaded and the tubes on it."""
+def binding_svg(curve: BindingCurve, names: dict[str, str] | None = None, *, prefix: str = "fb") -> str:
+    """Saturation against the free reagent in excess (log axis), the 0.2–0.8 window shaded, the tubes on it.
+
+    One curve per distinct limiting total (coinciding ones merged, the legend says at which totals);
+    replicate tubes are one point with one label, and labels are placed so they do not overlap.
+    ``names`` maps "M" and "L" to the components' labels (e.g. {"M": "Cu2+", "L": "Dy-"}).
+    """
     lo, hi = SATURATION_WINDOW
+    names = {"M": "metal", "L": "ligand", **(names or {})}
+    excess = {("L" if ln.limiting == "M" else "M") for ln in curve.lines}
+    styles = ("-", "--", ":", "-.")
 
     def paint(fig, ax):
         ax.axhspan(lo, hi, color=BAND, lw=0, label=f"window {fmt.sig(lo, 1)}–{fmt.sig(hi, 1)}")
-        ok = curve.free_L_M > 0
-        ax.plot(curve.free_L_M[ok], curve.fraction_bound[ok], color=INK, lw=1.1,
-                label="model at the recipe's metal total")
-        t_ok = curve.tube_free_L_M > 0
-        ax.plot(curve.tube_free_L_M[t_ok], curve.tube_fraction[t_ok], "o", ms=4, color=ACCENT, mec="white",
-                mew=0.5, label="tubes", zorder=3)
-        if len(curve.tubes) <= 12:
-            for x, y, lab in zip(curve.tube_free_L_M[t_ok], curve.tube_fraction[t_ok],
-                                 np.array(curve.tubes)[t_ok], strict=True):
-                ax.annotate(_plain(lab), (x, y), xytext=(3, -7), textcoords="offset points", fontsize=5.8,
-                            color="#52606d")
+        for k, ln in enumerate(curve.lines):
+            ok = ln.free_excess_M > 0
+            tots = sorted(ln.totals_M)
+            at = fmt.conc(tots[0]) if len(tots) == 1 else f"{fmt.conc(tots[0])}–{fmt.conc(tots[-1])}"
+            ax.plot(ln.free_excess_M[ok], ln.saturation[ok], color=INK, lw=1.1, ls=styles[k % len(styles)],
+                    label=_plain(f"{names[ln.limiting]} limiting, {at}"))
+        points = _replicate_points(curve)
+        if points:
+            xs = np.array([p[0] for p in points])
+            ys = np.array([p[1] for p in points])
+            ax.plot(xs, ys, "o", ms=4, color=ACCENT, mec="white", mew=0.5, label="tubes", zorder=3)
         ax.set_xscale("log")
         ax.set_ylim(-0.02, 1.02)
-        ax.set_xlabel("free ligand / M")
-        ax.set_ylabel("fraction of metal bound")
+        if points:
+            ax.set_xlim(*_log_limits([*(ln.free_excess_M[ln.free_excess_M > 0] for ln in curve.lines), xs]))
+            _label_points(fig, ax, points)
+        who = names[next(iter(excess))] if len(excess) == 1 else "reagent in excess"
+        ax.set_xlabel(_plain(f"free {who} / M"))
+        ax.set_ylabel("saturation (limiting reagent bound)")
         ax.legend(loc="upper left")
 
     return _draw(prefix, paint)
+
+
+def _replicate_points(curve: BindingCurve) -> list[tuple[float, float, str]]:
+    """(x, y, label) per distinct composition with x > 0; replicates share one label ("T1–T3")."""
+    where = {t: i for i, t in enumerate(curve.tubes)}
+    out = []
+    for group in curve.replicates:
+        i = where[group[0]]
+        x, y = float(curve.tube_free_excess_M[i]), float(curve.tube_saturation[i])
+        if x > 0:
+            out.append((x, y, _tube_range([where[t] for t in group], curve.tubes)))
+    return out
+
+
+def _tube_range(idx: list[int], labels) -> str:
+    """Consecutive runs of tubes written as "T1–T4", others listed: "T1–T3, T6"."""
+    runs: list[list[int]] = []
+    for i in sorted(idx):
+        if runs and i == runs[-1][-1] + 1:
+            runs[-1].append(i)
+        else:
+            runs.append([i])
+    parts = []
+    for r in runs:
+        first, last = _plain(labels[r[0]]), _plain(labels[r[-1]])
+        parts.append(first if len(r) == 1 else f"{first}, {last}" if len(r) == 2 else f"{first}–{last}")
+    return ", ".join(parts)
+
+
+def _log_limits(arrays) -> tuple[float, float]:
+    vals = np.concatenate([np.asarray(a, dtype=float).ravel() for a in arrays])
+    vals = vals[vals > 0]
+    return float(vals.min()) / 1.5, float(vals.max()) * 1.5
+
+
+LABEL_PT = 5.8  # label font size, pt
+_OFFSETS = ((5, -10), (5, 4), (-5, 4), (-5, -10), (5, 13), (5, -19), (-5, 13), (-5, -19))
+"""Candidate label offsets from a point (points; negative x puts the label to the left)."""
+
+
+def place_labels(centres_pt: np.ndarray, labels: list[str], width_pt: float, height_pt: float):
+    """Offsets (dx, dy) in points and text boxes for labels of points at ``centres_pt`` (n, 2).
+
+    Each label takes the first candidate offset whose box overlaps no earlier label and no other point
+    and stays inside the axes (the first candidate when none is free); points are taken left to
+    right. Boxes are estimated from the label length (DejaVu Sans averages ≈ 0.6 em per character),
+    so the placement is deterministic.
+    """
+    marks = [(cx - 3, cy - 3, cx + 3, cy + 3) for cx, cy in centres_pt]
+    placed: dict[int, tuple] = {}
+
+    def clash(b, others):
+        return any(b[0] < o[2] and o[0] < b[2] and b[1] < o[3] and o[1] < b[3] for o in others)
+
+    for i in np.argsort(centres_pt[:, 0], kind="stable"):
+        cx, cy = centres_pt[i]
+        width = 0.6 * LABEL_PT * len(labels[i])
+        choice = None
+        for dx, dy in _OFFSETS:
+            x0 = cx + dx if dx >= 0 else cx + dx - width
+            box = (x0, cy + dy, x0 + width, cy + dy + LABEL_PT)
+            inside = box[0] >= 0 and box[2] <= width_pt and box[1] >= 0 and box[3] <= height_pt
+            if inside and not clash(box, [c[2] for c in placed.values()]) and not clash(box, marks[:i] + marks[i + 1:]):
+                choice = (dx, dy, box)
+                break
+        if choice is None:
+            dx, dy = _OFFSETS[0]
+            choice = (dx, dy, (cx + dx, cy + dy, cx + dx + width, cy + dy + LABEL_PT))
+        placed[int(i)] = choice
+    return [placed[i] for i in range(len(labels))]
+
+
+def _label_points(fig, ax, points) -> None:
+    """Annotate each point where :func:`place_labels` puts its label."""
+    pos = ax.get_position()
+    w_pt, h_pt = pos.width * fig.get_figwidth() * 72, pos.height * fig.get_figheight() * 72
+    to_axes = ax.transData + ax.transAxes.inverted()
+    centres = to_axes.transform(np.array([[x, y] for x, y, _ in points])) * [w_pt, h_pt]   # in points
+    for (x, y, label), (dx, dy, _box) in zip(points, place_labels(centres, [p[2] for p in points], w_pt, h_pt),
+                                               strict=True):
+        ax.annotate(label, (x, y), xytext=(dx, dy), textcoords="offset points", fontsize=LABEL_PT,
+                    color="#52606d", ha="left" if dx >= 0 else "right", va="bottom")
 
 
 # --------------------------------------------------------------------------------------------------
@@ -193,8 +288,9 @@ def se_scan_svg(scan: SeScan, *, prefix: str = "fs") -> str:
             ax.set_yscale("log")
         else:
             ax.set_ylim(0, max(float(np.nanmax(scan.se[ok])) if ok.any() else 0.0, scan.goal_se) * 1.15)
-        ax.set_xlabel(f"assumed true log β[{_plain(scan.target)}]")
-        ax.set_ylabel(f"SE of log β[{_plain(scan.target)}]")
+        label = _plain(fmt.param_label(f"log_beta[{scan.target}]"))
+        ax.set_xlabel(f"assumed true {label}")
+        ax.set_ylabel(f"SE of {label}")
         ax.legend(loc="upper left")
 
     return _draw(prefix, paint)

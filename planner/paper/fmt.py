@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 
 
 def sig(x: float | None, digits: int = 3) -> str:
@@ -84,3 +85,68 @@ def band(x: float, half_width: float) -> str:
 def fixed(x: float, step: float = 0.01) -> str:
     """``x`` with the decimals of ``step`` (a reading resolution), e.g. ``fixed(0.1, 0.01)`` → ``0.10``."""
     return volume(x, step)
+
+
+_SUB = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
+
+
+def species(name: str) -> str:
+    """A species name in chemical notation: stoichiometric counts as subscripts ("ML2" → "ML₂")."""
+    return re.sub(r"(?<=[A-Za-z)\]])\d+", lambda m: m.group(0).translate(_SUB), str(name))
+
+
+def param_label(name: str) -> str:
+    """A fitted parameter's JSON name in chemical notation: "log_beta[ML]" → "log β(ML)",
+    "epsilon[ML2]" → "ε(ML₂)"; other names are returned unchanged."""
+    for key, sym in (("log_beta[", "log β("), ("epsilon[", "ε(")):
+        if name.startswith(key) and name.endswith("]"):
+            return f"{sym}{species(name[len(key):-1])})"
+    return name
+
+
+def chem_text(text: str) -> str:
+    """Every parameter name in a sentence written in chemical notation (see :func:`param_label`)."""
+    return re.sub(r"(?:log_beta|epsilon)\[[^\]\s]+\]", lambda m: param_label(m.group(0)), str(text))
+
+
+# -- table columns: one precision rule per column ----------------------------------------------------
+def band_column(values, half_widths, step: float = 0.001) -> list[str]:
+    """``x ± h`` for a whole column with the same decimals, those of ``step`` (the meter's display:
+    0.001 A by default), so the column reads like the instrument does."""
+    return [f"{volume(x, step)} ± {volume(h, step)}" for x, h in zip(values, half_widths, strict=True)]
+
+
+def conc_column(values_M, digits: int = 3) -> tuple[str, list[str]]:
+    """(unit, texts) for a column of concentrations: one unit (that of the largest value) and the same
+    decimals throughout (``digits`` significant figures of the largest)."""
+    vals = [float(v) for v in values_M]
+    big = max((abs(v) for v in vals), default=0.0)
+    unit, f = "M", 1.0
+    for unit_i, f_i in _CONC_UNITS:
+        if big * f_i >= 1:
+            unit, f = unit_i, f_i
+            break
+    decimals = max(digits - 1 - int(math.floor(math.log10(big * f))), 0) if big > 0 else 0
+    return unit, [f"{v * f:.{decimals}f}" for v in vals]
+
+
+_SUP = str.maketrans("0123456789+-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁺⁻")
+
+
+def ion(label: str) -> str:
+    """An ion label in chemical notation: counts as subscripts, the charge as a superscript
+    ("Cu2+" → "Cu²⁺", "SO4 2-" → "SO₄²⁻", "NO3-" → "NO₃⁻"). Digits right before the sign are a charge
+    only after a bare element symbol, as the plan's ion names are read; other text is kept."""
+    s = str(label).strip()
+    m = re.fullmatch(r"(.+?)\s+(\d*[+-])", s) or re.fullmatch(r"\[(.+)\](\d*[+-])", s)
+    if m is None:
+        m = re.fullmatch(r"(.+?)(\++|-+)", s)
+        if m is None:
+            return species(s)
+        body, charge = m.groups()
+        bare = re.fullmatch(r"([A-Z][a-z]?)(\d+)", body)
+        if bare and len(charge) == 1:  # "Cu2+": the digits are the charge
+            body, charge = bare.group(1), bare.group(2) + charge
+    else:
+        body, charge = m.groups()
+    return species(body) + charge.translate(_SUP)

@@ -17,7 +17,8 @@ import urllib.parse
 from collections.abc import Sequence
 from importlib import resources
 
-from .sheets import RenderError, prep_context, report_context
+from . import fmt as _fmt
+from .sheets import RenderError, plan_notes, prep_context, report_context
 
 __all__ = ["FORMATS", "PAPERS", "DataOnlyFetcher", "FetchRefused", "RenderError", "html_to_pdf", "prep_sheet",
            "render_html", "report"]
@@ -170,9 +171,13 @@ def report(plan, recipe, assessment, *, design: dict | None = None, paper: str =
     from . import figures as fig
 
     _check(paper, fmt)
+    from ..jobs.stock_needs import stock_needs
+
     summary = assessment.summary()
     figs = _report_figures(plan, recipe, assessment, summary, fig)
-    ctx = report_context(plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design)
+    notes = plan_notes(plan, [n.summary() for n in stock_needs(plan, recipe)])
+    ctx = report_context(plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design,
+                         notes=notes)
     return _out(render_html("report.html.j2", ctx), fmt)
 
 
@@ -189,17 +194,18 @@ def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
             "caption": "Expected absorbance of each tube (bars: ±2 sd of one reading, every error source) "
                        "inside the instrument's linear range."}]
     curve = curves.binding_curve_data(study, recipe, summary)
-    out.append({"svg": Markup(fig.binding_svg(curve)),
-                "caption": "Tubes on the binding curve: fraction of the metal bound against free ligand "
-                           "(the saturation check uses the limiting reagent; it differs where the metal is "
-                           "in excess)."})
+    names = {"M": _fmt.ion(plan.components.M.label or "M"), "L": _fmt.ion(plan.components.L.label or "L")}
+    out.append({"svg": Markup(fig.binding_svg(curve, names)),
+                "caption": "Tubes on the binding curve: saturation (the fraction of each tube's limiting "
+                           "reagent bound, as in the recipe table and the saturation check) against the "
+                           "free reagent in excess; one curve per distinct limiting total."})
     params = assessment.params
     t = params.target if params is not None else -1
     if assessment.mc is not None and t >= 0 and assessment.cramer_rao is not None:
         out.append({"svg": Markup(fig.mc_histogram_svg(assessment.mc.estimates[:, t],
                                                          float(assessment.true_theta[t]),
                                                          float(assessment.cramer_rao.se[t]),
-                                                         name=params.names[t])),
+                                                         name=_fmt.param_label(params.names[t]))),
                     "caption": "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal "
                                "curve: matching shapes mean the asymptotic SE holds."})
     if t >= 0:

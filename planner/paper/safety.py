@@ -426,7 +426,7 @@ def hazards_for(plan) -> list[PlanReagent]:
         if uncovered or not found:
             what = " and ".join({"M": "the metal", "L": "the ligand"}[c] for c in uncovered) or "it"
             add("#" + s.id, s.label or s.id, s.id, None, False,
-                f"stock {s.id}: no reagent named for {what} (add reagent = '...' to the stock); {NO_DATA}")
+                f"stock {s.id}: no reagent named for {what}; {NO_DATA}")  # plan keys: report notes
     return [PlanReagent(g["name"], tuple(g["ids"]), g["hz"], g["inferred"], g["msg"]) for g in groups.values()]
 
 

@@ -9,14 +9,17 @@ the strings out.
 from __future__ import annotations
 
 import math
-import re
 from collections.abc import Sequence
 from dataclasses import dataclass
+
+from markupsafe import Markup
 
 from ..inputs.plan import Plan
 from ..inputs.recipe import Recipe
 from ..jobs.checks import SATURATION_WINDOW
 from . import fmt, safety
+from .pictograms import pictogram_svg
+from .stock_text import conc_lines, needed_text, plan_notes, prep_lines, pretty_formula
 
 __all__ = [
     "DEFAULT_ADDITION",
@@ -25,6 +28,7 @@ __all__ = [
     "blank_text",
     "checklist",
     "prep_context",
+    "plan_notes",
     "pretty_formula",
     "report_context",
     "safety_context",
@@ -140,19 +144,6 @@ def addition_steps(plan: Plan, recipe: Recipe, order: tuple[str, ...], custom: b
 # --------------------------------------------------------------------------------------------------
 # small texts
 # --------------------------------------------------------------------------------------------------
-_SUBSCRIPT = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
-
-
-def pretty_formula(formula: str) -> str:
-    """A formula as printed: counts as subscripts, hydrate dot as '·' ("CuSO4.5H2O" → "CuSO₄·5H₂O")."""
-    parts = re.split(r"[.·•∙⋅*](?=\d*[A-Z(\[])", formula.strip())
-    out = []
-    for part in parts:
-        coef, rest = re.match(r"(\d*)(.*)", part, flags=re.S).groups()
-        out.append(coef + re.sub(r"(?<=[A-Za-z)\]])\d+", lambda m: m.group(0).translate(_SUBSCRIPT), rest))
-    return "·".join(out)
-
-
 def _dispenser_text(d) -> str:
     if d.kind == "micropipette":  # read in µL, as their dials are
         return f"{fmt.sig(d.capacity_mL * 1000, 3)} µL micropipette"
@@ -208,7 +199,8 @@ def safety_context(plan: Plan) -> dict:
                 "formula": pretty_formula(hz.formula),
                 "signal": hz.signal_word or "not classified",
                 "danger": hz.signal_word == "Danger",
-                "pictograms": [{"code": p, "name": safety.PICTOGRAMS[p]} for p in hz.pictograms],
+                "pictograms": [{"code": p, "name": safety.PICTOGRAMS[p], "svg": Markup(pictogram_svg(p))}
+                               for p in hz.pictograms],
                 "statements": [{"code": c, "text": t} for c, t in hz.statements()],
                 "cmr": hz.cmr, "cmr_codes": ", ".join(hz.cmr_codes),
                 "incompatible": list(hz.incompatible), "ppe": list(hz.ppe),
@@ -235,62 +227,6 @@ def safety_context(plan: Plan) -> dict:
 # --------------------------------------------------------------------------------------------------
 # prep sheet
 # --------------------------------------------------------------------------------------------------
-def _conc_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], str | None]:
-    s = plan.stock_by_id(sid)
-    prep = need.get("preparation")
-    rsd = s.conc_rsd if s.conc_rsd > 0 else (prep["u_rel"] if prep else 0.0)
-    lines = []
-    for comp, c in s.conc.items():
-        who = getattr(plan.components, comp).label or comp
-        lines.append(f"{who}: {fmt.conc_with_uncertainty(c, rsd * c)}")
-    basis = None
-    if lines:
-        basis = ("u from the plan's conc_rsd" if s.conc_rsd > 0 else
-                 "u from the weighing" if prep else "uncertainty not stated")
-    return lines, basis
-
-
-def _prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
-    """(instructions, warnings) for making one stock."""
-    s = plan.stock_by_id(sid)
-    g = plan.glassware
-    prep = need.get("preparation")
-    if prep:
-        assay = f", assay {fmt.percent(prep['purity'], 3)}" if prep["purity"] < 1 else ""
-        lines = [f"Weigh {fmt.mass(prep['mass_g'], g.balance.readability_g)} of {pretty_formula(prep['formula'])} "
-                 f"(M = {fmt.sig(prep['formula_weight_g_mol'], 5)} g/mol{assay}); dissolve and make up to "
-                 f"the mark of a {prep['weighed_flask']['label']}"
-                 + (f" ({fmt.conc(prep['weighed_conc_M'])})." if prep["steps"] else ".")]
-        for st in prep["steps"]:
-            lines.append(f"Pipette {fmt.sig(st['pipette_mL'], 3)} mL ({st['pipette']}) into a {st['flask']} "
-                         f"and make up to the mark: {fmt.conc(st['to_conc_M'])}.")
-        warns = []
-        if prep["mass_g"] < prep["min_weight_g"]:
-            warns.append(f"{fmt.mass(prep['mass_g'], g.balance.readability_g)} is below the balance's "
-                         f"minimum weight of {fmt.mass(prep['min_weight_g'], g.balance.readability_g)} "
-                         f"(USP <41>): weigh more into a larger flask and dilute.")
-        u = prep["u_rel"]
-        lines.append(f"Weighing and glassware give u = {fmt.percent(u)}.")
-        if s.conc_rsd < u * 0.999:
-            warns.append(f"The plan assumes {fmt.percent(s.conc_rsd)}, less than the weighing gives: "
-                         f"raise conc_rsd or standardise the stock.")
-        return lines, warns
-    if need.get("problem"):
-        return [], [str(need["problem"])]
-    if s.diluent:
-        return ["Make up as its description says; it is also the blank."], []
-    return ["Make up as its description says (no formula in the plan, so no mass is computed)."], []
-
-
-def _needed(need: dict) -> tuple[str, str, bool | None]:
-    if need.get("needed_mL") is None:
-        return "—", "—", None
-    used, total = need["recipe_mL"], need["needed_mL"]
-    txt = f"{fmt.fixed(total, 0.1)} mL"
-    sub = f"{fmt.fixed(used, 0.1)} in tubes + {fmt.fixed(total - used, 0.1)} rinse" if total > used else ""
-    return txt, sub, need.get("enough")
-
-
 def _levelling_fact(plan: Plan, summary: dict) -> list[tuple[str, str]]:
     """Header line saying the background-electrolyte volumes level the ionic strength (when they do)."""
     bg = plan.background
@@ -321,9 +257,9 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
     stocks = []
     for s in plan.stock:
         n = by_id[s.id]
-        conc_lines, basis = _conc_lines(plan, s.id, n)
-        how, warns = _prep_lines(plan, s.id, n)
-        needed, needed_sub, enough = _needed(n)
+        c_lines, basis = conc_lines(plan, s.id, n)
+        how, warns = prep_lines(plan, s.id, n)
+        needed, needed_sub, enough = needed_text(plan, n)
         d = plan.dispenser_for(s.id)
         if d is not None:
             disp = _dispenser_text(d)
@@ -334,19 +270,26 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         on_hand = f"{fmt.sig(n['on_hand_mL'], 3)} mL" if n.get("on_hand_mL") is not None else "—"
         if enough is False:
             warns = [f"NOT ENOUGH on hand: make at least {needed}.", *warns]
-        stocks.append({"id": s.id, "label": s.label, "diluent": s.diluent, "conc": conc_lines,
+        stocks.append({"id": s.id, "label": s.label, "diluent": s.diluent, "conc": c_lines,
                        "conc_basis": basis, "needed": needed, "needed_sub": needed_sub, "enough": enough,
                        "on_hand": on_hand, "dispenser": disp, "how": how, "warnings": warns})
 
     target = plan.target
     lo, hi = o.linear_range
     rows = []
-    for t in summary["tubes"]:
+    tubes = summary["tubes"]
+    a_step = o.display_step if o.display_step > 0 else 0.001
+    bands = fmt.band_column([t["absorbance"] for t in tubes], [2 * t["absorbance_sd"] for t in tubes], a_step)
+    c_unit, c_txt = fmt.conc_column([t["species_M"][target] for t in tubes])
+    for i, t in enumerate(tubes):
         vols = t["volumes_mL"]
         cells = [("—" if vols[sid] == 0 else fmt.volume(vols[sid], step)) for sid in seq]
-        a, sd = t["absorbance"], t["absorbance_sd"]
-        rows.append({"tube": t["tube"], "cells": cells, "absorbance": fmt.band(a, 2 * sd),
-                     "out": not (lo <= a <= hi), "complex": fmt.conc(t["species_M"][target])})
+        a = t["absorbance"]
+        # under to-mark the diluent is the remainder: say how much to expect, so a flask already
+        # full before the diluent goes in is noticed at the bench
+        rest = fmt.volume(vols[dil.id], step) if to_mark else ""
+        rows.append({"tube": t["tube"], "cells": cells, "makeup": rest, "absorbance": bands[i],
+                     "out": not (lo <= a <= hi), "complex": c_txt[i]})
     failing = [c for c in summary.get("checks", []) if c["status"] == "fail"]
     verdict = summary.get("verdict")
     safe = safety_context(plan)
@@ -374,8 +317,11 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         "columns": [f"{sid}" for sid in seq],
         "column_units": "mL",
         "step_text": fmt.sig(step, 1),
-        "makeup": f"to the mark with {dil.id}" if to_mark else None,
+        "makeup": f"{dil.id} to the mark / mL" if to_mark else None,
         "target": target,
+        "target_label": fmt.species(target),
+        "conc_unit": c_unit,
+        "a_step": fmt.sig(a_step, 1),
         "rows": rows,
         "checklist": checklist(plan, blank_name),
         "safety": safe,
@@ -411,31 +357,41 @@ def _relative_se(name: str, true: float, se: float | None) -> str:
 
 
 def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, paper: str,
-                   figures: dict[str, str], design: dict | None = None) -> dict:
+                   figures: dict[str, str], design: dict | None = None, notes: Sequence[str] = ()) -> dict:
     """Template context of the design report (verdict first) from the assessment summary."""
     g = plan.glassware
     step = g.step_mL
     seq = addition_order(plan, recipe)
     target = plan.target
     lo, hi = plan.optics.linear_range
+    sat_flag = any(c["id"] == "saturation" and c["status"] != "pass" for c in summary.get("checks", []))
     rows = []
-    for t in summary["tubes"]:
-        a, sd = t["absorbance"], t["absorbance_sd"]
+    tubes = summary["tubes"]
+    o = plan.optics
+    bands = fmt.band_column([t["absorbance"] for t in tubes], [2 * t["absorbance_sd"] for t in tubes],
+                            o.display_step if o.display_step > 0 else 0.001)
+    units, cols = {}, {}
+    for key, get in (("M", lambda t: t["total_M"]["M"]), ("L", lambda t: t["total_M"]["L"]),
+                     ("complex", lambda t: t["species_M"][target])):
+        units[key], cols[key] = fmt.conc_column([get(t) for t in tubes])
+    for i, t in enumerate(tubes):
+        a = t["absorbance"]
         rows.append({
             "tube": t["tube"],
             "cells": [("—" if t["volumes_mL"][s] == 0 else fmt.volume(t["volumes_mL"][s], step)) for s in seq],
-            "M": fmt.conc(t["total_M"]["M"]), "L": fmt.conc(t["total_M"]["L"]),
-            "complex": fmt.conc(t["species_M"][target]),
-            "saturation": fmt.sig(t["saturation"], 2),
-            "sat_out": not (SATURATION_WINDOW[0] <= t["saturation"] <= SATURATION_WINDOW[1]),
-            "absorbance": fmt.band(a, 2 * sd), "out": not (lo <= a <= hi),
+            "M": cols["M"][i], "L": cols["L"][i], "complex": cols["complex"][i],
+            "saturation": fmt.fixed(t["saturation"], 0.01),
+            # coloured only when the saturation check itself is not passed: tubes near 0 or 1 are
+            # part of a good design (they fix ε and the ends of the curve)
+            "sat_out": sat_flag and not (SATURATION_WINDOW[0] <= t["saturation"] <= SATURATION_WINDOW[1]),
+            "absorbance": bands[i], "out": not (lo <= a <= hi),
         })
     params = []
     for p in summary.get("parameters", []):
         se, true = p.get("se"), p["true"]
         ci = p.get("mc_ci95")
         params.append({
-            "name": p["name"],
+            "name": fmt.param_label(p["name"]),
             "guess": fmt.sig(p["guess"], 4),
             "true": fmt.sig(true, 4),
             "se": fmt.sig(se, 2),
@@ -447,7 +403,7 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
     corr = summary.get("correlation")
     corr_rows = []
     if corr and len(corr["names"]) > 1:
-        corr_rows = [{"name": n, "cells": [fmt.fixed(x, 0.01) if x is not None else "—" for x in row]}
+        corr_rows = [{"name": fmt.param_label(n), "cells": [fmt.fixed(x, 0.01) if x is not None else "—" for x in row]}
                      for n, row in zip(corr["names"], corr["matrix"], strict=True)]
     prof = summary.get("profile")
     prof_text = None
@@ -456,18 +412,20 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
         prof_text = (f"Δχ² = {fmt.sig(d[0], 3)} towards K → 0 and {fmt.sig(d[-1], 3)} towards K → ∞ "
                      f"(3.84 marks the 95 % limit)")
     mc = summary.get("monte_carlo")
-    o = plan.optics
     return {
         "kind": "report",
         "paper": paper,
         "title": plan.title,
         "date": date,
         "verdict": summary.get("verdict"),
-        "verdict_reason": summary.get("verdict_reason", ""),
+        "verdict_reason": fmt.chem_text(summary.get("verdict_reason", "")),
         "goal_se": fmt.sig(summary.get("goal_se"), 2),
         "target": target,
+        "target_label": fmt.species(target),
+        "units": units,
+        "notes": list(notes),
         "facts": [
-            ("Target", f"log β[{target}], goal SE ≤ {fmt.sig(summary.get('goal_se'), 2)}"),
+            ("Target", f"{fmt.param_label(f'log_beta[{target}]')}, goal SE ≤ {fmt.sig(summary.get('goal_se'), 2)}"),
             ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm, path {fmt.fixed(o.path_cm, 0.001)} cm"),
             ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
             ("Tubes", f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL, make-up {g.make_up}"),
@@ -477,12 +435,13 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
         "columns": list(seq),
         "rows": rows,
         "figures": figures,
-        "checks": [{"id": c["id"], "status": c["status"], "message": c["message"]}
+        "checks": [{"id": c["id"], "status": c["status"], "message": fmt.chem_text(c["message"])}
                    for c in summary.get("checks", [])],
         "params": params,
-        "corr_names": corr["names"] if corr_rows else [],
+        "corr_names": [fmt.param_label(n) for n in corr["names"]] if corr_rows else [],
         "corr_rows": corr_rows,
         "profile": prof_text,
         "design": _design_rows(design),
         "window": f"{fmt.sig(SATURATION_WINDOW[0], 1)}–{fmt.sig(SATURATION_WINDOW[1], 1)}",
+        "sat_flag": sat_flag,
     }

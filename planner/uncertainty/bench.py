@@ -65,6 +65,8 @@ class Bench:
     fixed_mL : stock id -> the same volume in every tube (the plan's design.fixed).
     on_hand_mL : (k,) volume available of each stock, NaN where unstated.
     titration : the in-cuvette titration, or None for separately made tubes.
+    make_up_min_mL : under "to-mark", the least diluent each flask must still take, so that it can be
+        made up to the mark (the plan's ``glassware.make_up_min``); 0 under "added".
     """
 
     stock_ids: tuple[str, ...]
@@ -81,6 +83,7 @@ class Bench:
     fixed_mL: dict[str, float] = field(default_factory=dict, hash=False)
     on_hand_mL: np.ndarray = field(default_factory=lambda: np.zeros(0), hash=False)
     titration: TitrationSetup | None = None
+    make_up_min_mL: float = 0.0
 
     def __repr__(self) -> str:
         return (f"Bench({len(self.stock_ids)} stocks, {len(self.devices.items)} dispensers, "
@@ -89,6 +92,11 @@ class Bench:
     @property
     def to_mark(self) -> bool:
         return self.make_up == "to-mark"
+
+    @property
+    def room_mL(self) -> float:
+        """Most a tube's dispensed volumes may add up to: the tube less the make-up reserve."""
+        return self.tube_volume_mL - (self.make_up_min_mL if self.to_mark and self.diluent_id else 0.0)
 
     def stock_index(self, sid: str) -> int:
         return self.stock_ids.index(sid)

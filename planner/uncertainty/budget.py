@@ -31,12 +31,22 @@ def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
     """Every way the recipe does not fit the glassware: (key, message) pairs, empty if it fits.
 
     Checks: a dispensed stock with no dispenser, volumes off the plan's grid, below ``min_volume``,
-    more than the device's capacity in one delivery, or a one-mark pipette asked for another volume.
+    more than the device's capacity in one delivery, a one-mark pipette asked for another volume, or
+    (under ``make_up = "to-mark"``) a flask left with less than ``make_up_min`` for the diluent, where
+    it could not be made up to the mark.
     """
     devices = bench.devices
     out: list[tuple[str, str]] = []
     if bench.titration is not None:  # a titration's points were checked when the schedule was read
         return out
+    if bench.to_mark and bench.diluent_id is not None and bench.diluent_id in recipe.stock_ids:
+        rest = recipe.volumes_mL[:, recipe.stock_ids.index(bench.diluent_id)]
+        short = rest < bench.make_up_min_mL - 1e-9
+        if short.any():
+            out.append(("glassware.make_up_min",
+                        f"{_tubes(recipe.tubes, short)} leave {rest[short].min():g} mL of {bench.diluent_id} to "
+                        f"make up to the mark, less than make_up_min = {bench.make_up_min_mL:g} mL: dispense at "
+                        f"most {bench.room_mL:g} mL in all (more concentrated stocks or fewer mL of each)"))
     for sid in bench.dispensed_ids(recipe):
         k = recipe.stock_ids.index(sid)
         v = recipe.volumes_mL[:, k]

@@ -53,6 +53,7 @@ tube_volume = "10.00 mL"
 flask = { capacity = "10 mL" }
 step = "0.05 mL"
 min_volume = "0.05 mL"
+make_up_min = "0 mL"   # the analytic designs use the whole tube: X = 9.5 mL of ligand
 [[glassware.dispenser]]
 kind = "burette"
 capacity = "10 mL"
@@ -184,14 +185,18 @@ def test_candidates_cover_the_grid(teaching_plan):
     c = candidate_tubes(compile_study(teaching_plan))
     v = c.recipe.volumes_mL
     assert np.all(v >= 0) and np.allclose(v.sum(axis=1), 10.0)
-    # 0 or 0.50–10.00 mL in 0.05 steps for each of two stocks, summing to ≤ 10 mL [derived count]
-    levels = np.concatenate([[0.0], np.arange(10, 201) * 0.05])
-    expected = int(np.sum(levels[:, None] + levels[None, :] <= 10.0 + 1e-9))
+    # 0 or 0.50–9.50 mL in 0.05 steps for each of two stocks, summing to ≤ 9.50 mL: the 10 mL flask
+    # keeps the default make_up_min (5 %, 0.50 mL) for the diluent [derived count]
+    levels = np.concatenate([[0.0], np.arange(10, 191) * 0.05])
+    expected = int(np.sum(levels[:, None] + levels[None, :] <= 9.5 + 1e-9))
     assert c.n_grid == expected
 
 
 def test_even_series_baseline_is_what_is_compared(teaching_plan):
     d = design(teaching_plan, seed=0)
+    # the designed flasks keep room to be made up to the mark (default make_up_min: 5 % of 10 mL)
+    assert d.recipe.column("BG").min() >= 0.5 - 1e-9  # derived
+    assert glassware_problems(compile_bench(teaching_plan), d.recipe) == []
     e = assess(teaching_plan, even_series(teaching_plan, d.recipe.n_tubes), trials=0)
     assert d.se_even == pytest.approx(e.target_se, rel=1e-12)
 

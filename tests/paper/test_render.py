@@ -84,31 +84,35 @@ def test_tube_rows_carry_volumes_band_and_complex(teaching, prep_txt):
     order = sheets.addition_order(plan, recipe)
     assert order == ("DY", "CU")  # common practice: ligand before the metal, diluent first and last
     step = plan.glassware.step_mL
-    for i, row in enumerate(summary["tubes"]):
+    tubes = summary["tubes"]
+    unit, cplx = fmt.conc_column([t["species_M"][plan.target] for t in tubes])
+    assert f"[ML] expected / {unit}" in prep_txt  # one unit for the whole column
+    for i, row in enumerate(tubes):
         vols = " ".join(fmt.volume(recipe.column(s)[i], step) for s in order)
-        band = fmt.band(row["absorbance"], 2 * row["absorbance_sd"])
-        cplx = fmt.conc(row["species_M"][plan.target])
-        assert f"{row['tube']} {vols} dilute to the mark with BG {band}" in prep_txt, row["tube"]
-        assert cplx in prep_txt
+        # derived: the display step 0.001 sets three decimals for every expected A and its band
+        band = f"{row['absorbance']:.3f} ± {2 * row['absorbance_sd']:.3f}"
+        rest = fmt.volume(recipe.column("BG")[i], step)  # the diluent each flask should take
+        flag = "" if 0.1 <= row["absorbance"] <= 1.0 else " (out of range)"  # the plan's linear range
+        assert f"{row['tube']} {vols} ≈ {rest} {band}{flag} {cplx[i]}" in prep_txt, row["tube"]
 
 
 def test_printed_absorbance_rounds_the_json_value(teaching, prep_txt):
     _, _, a, _ = teaching
     for row in a.summary()["tubes"]:
-        m = re.search(rf"{re.escape(row['tube'])} [\d. —]+dilute to the mark with BG (\d+\.\d+) ± (\d+\.\d+)", prep_txt)
+        m = re.search(rf"{re.escape(row['tube'])} [\d. —]+≈ [\d.]+ (\d+\.\d+) ± (\d+\.\d+)", prep_txt)
         assert m, row["tube"]
         x, u = m.group(1), m.group(2)
         half_ulp = 0.5 * 10.0 ** -len(x.split(".")[1])  # derived: rounding moves a value ≤ half a digit
         assert abs(float(x) - row["absorbance"]) <= half_ulp + 1e-12
         assert abs(float(u) - 2 * row["absorbance_sd"]) <= half_ulp + 1e-12
-        assert len(u.replace("0.", "").lstrip("0")) == 2  # GUM 7.2.6: two significant figures
+        assert len(x.split(".")[1]) == len(u.split(".")[1]) == 3  # one rule per column: the 0.001 display
 
 
 def test_volumes_on_the_dispenser_grid(teaching, prep_txt):
     plan, recipe, _, _ = teaching
     # derived: step 0.05 mL → two decimals on paper, e.g. the first DY volume of the demo series
     assert fmt.volume(recipe.column("DY")[0], plan.glassware.step_mL) == f"{recipe.column('DY')[0]:.2f}"
-    assert re.search(r"T1 \d+\.\d{2} \d+\.\d{2} dilute", prep_txt)
+    assert re.search(r"T1 \d+\.\d{2} \d+\.\d{2} ≈ \d+\.\d{2}", prep_txt)
 
 
 def test_stock_table(teaching, prep_txt):
@@ -178,7 +182,7 @@ def test_added_make_up_lists_the_buffer_and_no_mark():
     recipe = read_recipe_csv(ROOT / "examples" / "cuvette-1to1.csv", plan)
     html = render.prep_sheet(plan, recipe, assess_recipe(plan, recipe), stock_needs(plan, recipe),
                              date=DATE, fmt="html").decode("utf-8")
-    assert "dilute to the mark" not in html and "Make up</th>" not in html
+    assert "to the mark / mL" not in html and "≈ " not in html
     assert sheets.addition_order(plan, recipe) == ("BUF", "ZC", "ZN")  # common practice: metal last
     assert "zero the instrument on a tube of BUF" in html
     assert "1000 µL micropipette" in html and "5000 µL micropipette" in html  # the plan's dispensers
@@ -312,12 +316,12 @@ def test_report_verdict_first_then_sections(teaching, report_pdf):
     s = a.summary()
     txt = pdf_text(report_pdf)
     assert txt.index(s["verdict"].upper()) < txt.index("Recipe") < txt.index("Checks") < txt.index("Parameters")
-    assert norm(s["verdict_reason"]) in txt
+    assert norm(fmt.chem_text(s["verdict_reason"])) in txt
     for c in s["checks"]:
         assert c["id"] in txt
-        assert norm(c["message"])[:60] in txt
+        assert norm(fmt.chem_text(c["message"]))[:60] in txt  # parameter names in chemical notation
     for p in s["parameters"]:
-        assert p["name"] in txt
+        assert fmt.param_label(p["name"]) in txt
     corr = s["correlation"]["matrix"][0][1]
     assert fmt.fixed(corr, 0.01) in txt  # correlations to two decimals
     assert "0.930" in txt and "0.710" in txt  # the design keys, three significant figures
@@ -327,8 +331,9 @@ def test_report_rows_match_json(teaching, report_pdf):
     _, _, a, _ = teaching
     txt = pdf_text(report_pdf)
     for row in a.summary()["tubes"]:
-        assert fmt.band(row["absorbance"], 2 * row["absorbance_sd"]) in txt
-        assert fmt.sig(row["saturation"], 2) in txt
+        # one precision rule per column: A to the 0.001 display, saturation to 0.01 [derived]
+        assert f"{row['absorbance']:.3f} ± {2 * row['absorbance_sd']:.3f}" in txt
+        assert f"{row['saturation']:.2f}" in txt
 
 
 def test_report_html_has_inline_svg_with_unique_ids(teaching):
@@ -357,12 +362,66 @@ def test_binding_curve_is_the_one_to_one_isotherm(teaching):
     plan, recipe, a, _ = teaching
     curve = curves.binding_curve_data(compile_study(plan), recipe, a.summary())
     K = 10.0 ** 3.3  # the teaching scenario's guess; no ionic-strength correction is configured
-    # derived: for M + L ⇌ ML, [ML]/M_tot = K[L]/(1 + K[L]) at any metal total
-    np.testing.assert_allclose(curve.fraction_bound, K * curve.free_L_M / (1 + K * curve.free_L_M), rtol=1e-6)
-    np.testing.assert_allclose(curve.tube_fraction, K * curve.tube_free_L_M / (1 + K * curve.tube_free_L_M),
-                               rtol=1e-6)
-    assert np.all(np.diff(curve.free_L_M) > 0)  # a monotone series of ligand totals gives monotone free L
-    assert curve.metal_total_M == pytest.approx(1.0e-3)  # 1.00 mL of 10.0 mM into 10.00 mL
+    # derived: for M + L ⇌ ML the limiting reagent's fraction bound is K·x/(1 + K·x), x the free excess
+    # reagent, at any limiting total: every curve and every tube lie on the same isotherm
+    for ln in curve.lines:
+        np.testing.assert_allclose(ln.saturation, K * ln.free_excess_M / (1 + K * ln.free_excess_M), rtol=1e-6)
+        assert np.all(np.diff(ln.free_excess_M) >= 0)
+    x = curve.tube_free_excess_M
+    np.testing.assert_allclose(curve.tube_saturation, K * x / (1 + K * x), rtol=1e-6)
+    # derived: 1:1 curves at different limiting totals coincide, so one curve per limiting component
+    # (the demo series keeps the metal at 1.00 mM and raises the ligand past it)
+    assert sorted(ln.limiting for ln in curve.lines) == sorted(set(curve.tube_limiting))
+
+
+def test_saturation_is_one_number_in_table_check_and_figure():
+    # a recipe with both kinds of tubes: metal limiting (T1) and ligand limiting with metal in excess
+    # (T2), where the fraction of metal bound (≈ 0.07) and of ligand bound (≈ 0.95) differ
+    plan = patched_plan()
+    recipe = parse_recipe_csv("tube,CU,DY\nT1,0.70,0.65\nT2,8.80,0.70\nT3,8.80,0.70\n", plan)
+    a = assess(plan, recipe, trials=0)
+    summ = a.summary()
+    curve = curves.binding_curve_data(compile_study(plan), recipe, summ)
+    table = [t["saturation"] for t in summ["tubes"]]
+    np.testing.assert_allclose(curve.tube_saturation, table)
+    t2 = summ["tubes"][1]
+    bound = t2["species_M"]["ML"]
+    assert t2["saturation"] == pytest.approx(bound / t2["total_M"]["L"])  # derived: ligand is limiting
+    assert t2["saturation"] > 0.9 and bound / t2["total_M"]["M"] < 0.1
+    check = next(c for c in summ["checks"] if c["id"] == "saturation")
+    assert f"{max(table):.2f}" in check["message"]  # the check quotes the same numbers
+    assert ("T2", "T3") in curve.replicates  # replicates are one point with one label
+    svg = figures.binding_svg(curve, {"M": "Cu2+", "L": "Dy-"})
+    assert svg.count(">T2, T3<") == 1 and ">T2<" not in svg
+    assert "free Cu2+ / M" in svg and "log_beta" not in svg
+
+
+def test_report_uses_chemical_notation_and_no_colour_beside_a_pass(teaching):
+    plan, recipe, a, _ = teaching
+    html = render.report(plan, recipe, a, date=DATE, fmt="html").decode("utf-8")
+    assert "log β(ML)" in html and "ε(ML)" in html
+    assert "log_beta[" not in html.split("<body")[1]
+    if next(c for c in a.summary()["checks"] if c["id"] == "saturation")["status"] == "pass":
+        assert 'class="num warn"' not in html  # a pass is not contradicted by coloured saturations
+
+
+def test_binding_labels_do_not_overlap():
+    # ten distinct tubes crowded on one stretch of the curve: every label box must be distinct
+    n = 10
+    x = np.geomspace(1e-4, 2e-4, n)
+    line = curves.CurveLine("M", (1e-3,), np.geomspace(1e-6, 1e-1, 50), np.linspace(0, 1, 50))
+    curve = curves.BindingCurve((line,), ("M",) * n, x, np.linspace(0.40, 0.5, n),
+                                tuple(f"T{i + 1}" for i in range(n)), tuple((f"T{i + 1}",) for i in range(n)))
+    svg = figures.binding_svg(curve)
+    assert all(f">T{i + 1}<" in svg for i in range(n))
+    assert svg == figures.binding_svg(curve)  # deterministic
+    # the label boxes themselves: on a crowded stretch no two overlap
+    centres = np.column_stack([np.linspace(60, 90, n), np.linspace(50, 60, n)])   # points, 3 pt apart
+    boxes = [b for _, _, b in figures.place_labels(centres, [f"T{i + 1}" for i in range(n)], 200, 130)]
+    for i in range(n):
+        for j in range(i):
+            a, b = boxes[i], boxes[j]
+            assert not (a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]), (i, j)
 
 
 def test_se_scan_equals_assess(teaching):
@@ -455,3 +514,18 @@ id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').rep
     steps = html[html.index("Order of addition"):]
     steps = steps[: steps.index("</ol>")]
     assert steps.index("NA") < steps.index("CU") < steps.index("AM")
+
+
+def test_parameter_names_in_chemical_notation():
+    assert fmt.param_label("log_beta[ML2]") == "log β(ML₂)"  # common practice: counts as subscripts
+    assert fmt.param_label("epsilon[ML]") == "ε(ML)"
+    assert fmt.param_label("blank") == "blank"
+    assert fmt.chem_text("|corr(log_beta[ML], epsilon[ML])| = 0.63") == "|corr(log β(ML), ε(ML))| = 0.63"
+
+
+def test_ion_labels_in_chemical_notation():
+    # common practice: counts as subscripts, charge as a superscript; digits before the sign are a
+    # charge only after a bare element symbol (the rule the plan's ion names are read by)
+    for text, shown in (("Cu2+", "Cu²⁺"), ("NO3-", "NO₃⁻"), ("SO4 2-", "SO₄²⁻"), ("[SO4]2-", "SO₄²⁻"),
+                        ("K+", "K⁺"), ("Am", "Am")):
+        assert fmt.ion(text) == shown, text

@@ -20,13 +20,13 @@ from ...model.optics import bandwidth_factor
 from ...uncertainty import budget as _budget
 from ..assess import Assessment
 from ..checks import Check
-from ..compile import build_model, compile_bench, error_budget, plan_devices
+from ..compile import build_model, compile_bench, error_budget, make_up_min_mL, plan_devices
 from ..series import even_series
 
 __all__ = [
     "ActivityWarning", "Assessment", "Check", "Epsilon", "Model", "Plan", "PlanError", "Recipe", "TubeState", "absorbance_derivatives",
     "assess_tubes", "bandwidth_factor", "error_budget", "error_factors", "even_series", "free_parameters",
-    "make_recipe", "plan_devices", "plan_model", "predict", "totals_M", "tube_ions_M", "whitening",
+    "make_recipe", "make_up_min_mL", "plan_devices", "plan_model", "predict", "totals_M", "tube_ions_M", "whitening",
 ]
 
 

@@ -32,6 +32,7 @@ from ._deps import (
     Plan,
     PlanError,
     assess_tubes,
+    make_up_min_mL,
     plan_model,
     predict,
     tube_ions_M,
@@ -142,7 +143,7 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     # the planned tube's excess: the smallest grid volume converting 99.9 % (else 99 %) at every node
     # with the reading in range; else the most that stays in range
     cap = capacity_mL(plan, exc_id)
-    room = min(V - v_lim, cap)
+    room = min(V - v_lim - make_up_min_mL(plan), cap)
     if excess_M is not None:
         v_exc = float(snap(excess_M * V / c_exc_stock, step))
         if v_exc < vmin or v_exc > V - v_lim + 1e-9:

@@ -21,6 +21,7 @@ from ._deps import (
     PlanError,
     assess_tubes,
     error_budget,
+    make_up_min_mL,
     plan_devices,
     plan_model,
     predict,
@@ -68,7 +69,8 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
         raise PlanError("--points", f"{n} points cannot show an extremum: use at least 3 (9–11 is usual)")
     g = plan.glassware
     step, vmin = g.step_mL, max(g.min_volume_mL, g.step_mL)
-    avail = g.tube_volume_mL - sum(v for k, v in plan.design.fixed.items() if k not in (m_id, l_id))
+    avail = g.tube_volume_mL - make_up_min_mL(plan) - sum(v for k, v in plan.design.fixed.items()
+                                                          if k not in (m_id, l_id))
     x = np.arange(1, n + 1) / (n + 1)
     if total_M is not None:
         if total_M <= 0:

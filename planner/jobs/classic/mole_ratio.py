@@ -34,6 +34,7 @@ from ._deps import (
     PlanError,
     assess_tubes,
     error_budget,
+    make_up_min_mL,
     plan_devices,
     plan_model,
     predict,
@@ -109,7 +110,7 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
     g = plan.glassware
     step, vmin, V = g.step_mL, max(g.min_volume_mL, g.step_mL), g.tube_volume_mL
     r = r_max * np.arange(1, n + 1) / n
-    avail = V - sum(v for k, v in plan.design.fixed.items() if k not in (fix_id, var_id))
+    avail = V - make_up_min_mL(plan) - sum(v for k, v in plan.design.fixed.items() if k not in (fix_id, var_id))
     if total_M is not None:
         v_fix = float(snap(total_M * V / c_fix, step))
         caps = (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
