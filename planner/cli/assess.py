@@ -25,7 +25,8 @@ def assess(
     at: Annotated[list[str] | None, typer.Option(
         "--at", help="assess as if the true constant were different: NAME=LOGBETA (repeatable)")] = None,
 ) -> None:
-    """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading."""
+    """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading.
+    Exit code 0 resolved, 1 unresolved or only bounded, 2 bad input."""
     from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
 
@@ -37,5 +38,7 @@ def assess(
                        trials, quiet=as_json)
     if as_json:
         print(json.dumps(a.summary(), indent=2))
-        return
-    print_assessment(a, p)
+    else:
+        print_assessment(a, p)
+    if a.verdict is not None and a.verdict != "resolved":
+        raise typer.Exit(1)  # the recipe fails: unresolved or only bounded (exit codes in the README)

@@ -260,6 +260,15 @@ def assess_study(study: Study, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, 
         check_list.append(model_check_result(det))
         extra["model_check"] = [d.summary() for d in det]
     verdict, reason = _verdict(study, params, cr, mc, prof)
+    failed = [c.id for c in check_list if c.status == "fail"]
+    if failed and verdict is not None:
+        # a precise constant from a recipe that breaks an assumption (readings outside the linear range,
+        # volumes the glassware cannot deliver, not enough stock) is not a result to trust
+        if verdict == "resolved":
+            verdict = "unresolved"
+            reason = f"{reason}, but failed checks: {', '.join(failed)} — fix them and assess again"
+        else:
+            reason = f"{reason}; failed checks: {', '.join(failed)}"
     check_list.sort(key=lambda c: -STATUSES.index(c.status))
     return Assessment(study.title, recipe, model, state, tuple(check_list), budget, params, true_theta, cr, mc,
                       prof, verdict, reason, study.goal_se, extra, study=study)

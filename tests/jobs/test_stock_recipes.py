@@ -78,8 +78,13 @@ def test_ion_cores():
         assert ion_core(name, z) == core, name
 
 
-def test_shipped_scenarios_flag_their_real_gaps():
-    # the proton scenario lists Na+ only for its acetate buffer: the ligand salt's cation is missing
-    plan = parse_plan_text(scenario_text("proton"))
-    ox = _by_id(plan)["OX"]
+def test_shipped_scenarios_balance_their_charges():
+    # the proton scenario's ligand stock now lists the sodium of its salt beside the acetate buffer's
+    # (0.102 M Na+ against 0.100 M acetate and 2.00 mM Ox-): no stock of a shipped scenario has a charge gap
+    for name in ("teaching", "stepwise", "proton"):
+        plan = parse_plan_text(scenario_text(name))
+        assert all(n.charge_gap is None for n in _by_id(plan).values()), name
+    # and an unbalanced copy is still caught
+    text = scenario_text("proton").replace('"Na+" = "0.102 M"', '"Na+" = "0.10 M"')
+    ox = _by_id(parse_plan_text(text))["OX"]
     assert ox.charge_gap is not None and ox.charge_gap.conc_M == pytest.approx(0.002)
