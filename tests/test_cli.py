@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 from planner import cli
-from planner.inputs.files import write_atomic
+from planner.inputs.files import OutputError, write_atomic
 
 from .conftest import ROOT
 
@@ -110,7 +110,7 @@ def test_atomic_write_leaves_nothing_on_failure(tmp_path, monkeypatch):
         raise OSError("disk full")
 
     monkeypatch.setattr("planner.inputs.files.os.replace", boom)
-    with pytest.raises(OSError):
+    with pytest.raises(OutputError, match="disk full"):
         write_atomic(target, "new")
     assert target.read_text() == "old"
     assert [p.name for p in tmp_path.iterdir()] == ["out.txt"]

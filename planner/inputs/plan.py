@@ -3,17 +3,46 @@
 A plan describes one metal–ligand study (components, species and their guessed constants, optics,
 stocks, glassware, design goals). :func:`load_plan` reads and validates it; every problem becomes a
 single :class:`PlanError` naming the key path, what was wrong and how to fix it.
+
+Every number is checked at the schema: finite, not a boolean, and inside a physically generous range
+(the range is stated in the message). The ranges:
+
+=============================================  ===========================  ============================
+key                                            range                        unit
+=============================================  ===========================  ============================
+``temperature_C``                              −20 … 150                    °C
+``stock.conc``, ``stock.ions``                 1e-12 … 20                   mol/L
+``medium.reference_ionic_strength``            0 … 5                        mol/L
+``design.ionic_strength``                      0 (excluded) … 5             mol/L
+``species.log_beta``                           −50 … 60                     log10 units
+``species.log_beta_sd``                        0 … 10                       log10 units
+``optics.wavelength_nm``, ``bands.peak_nm``    100 … 2000                   nm
+``optics.path_cm``                             0 (excluded) … 100           cm
+``optics.epsilon.value``, ``epsilon_max``      0 … 1e6                      L mol⁻¹ cm⁻¹
+``optics.noise.k1/k2/k3``                      0 … 1                        transmittance
+``optics.linear_range``                        0 … 10                       absorbance
+volumes (tube, step, flask, capacity, …)       0 … 10 000 (10 L)            mL
+``glassware.step``                             at most 20 000 levels up to ``tube_volume``
+``design.goal_se``                             0 (excluded) … 5             log10 units
+``design.tubes``                               1 … 200
+=============================================  ===========================  ============================
+
+Limits on the input itself: a plan file of at most :data:`MAX_PLAN_BYTES` bytes, nested at most
+:data:`MAX_DEPTH` levels deep; titles and labels of at most 200 characters; identifiers (stock ids,
+species and ion names) of at most 40 printable characters (see :mod:`planner.inputs.text`).
 """
 
 from __future__ import annotations
 
 import difflib
+import math
 import re
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
 import tomllib
 from pydantic import (
+    AfterValidator,
     BaseModel,
     BeforeValidator,
     ConfigDict,
@@ -23,6 +52,7 @@ from pydantic import (
     model_validator,
 )
 
+from .text import check_identifier, check_text
 from .units import UnitError, parse_quantity
 
 COMPONENTS = ("M", "L", "H")
@@ -30,6 +60,11 @@ DISPENSER_KINDS = ("burette", "pipette", "graduated-pipette", "micropipette")
 MAKE_UP_MODES = ("to-mark", "added")
 CRITERIA = ("target", "all")
 ACTIVITY_MODELS = ("davies", "extended-dh", "none")
+
+MAX_PLAN_BYTES = 1_000_000  # a plan is a page of TOML; anything this large is not one
+MAX_DEPTH = 50              # nesting levels of tables and arrays; a plan needs about 4
+MAX_GRID_LEVELS = 20_000    # grid volumes per stock (tube_volume / step); the design enumerates them
+MAX_VOLUME_ML = 10_000.0    # 10 L: larger than any flask, burette or tube a plan describes
 
 
 class PlanError(ValueError):
@@ -49,30 +84,78 @@ class PlanError(ValueError):
         super().__init__(f"{key}: {message}" if key else message)
 
 
-def _conc(v: Any) -> float:
-    try:
-        return parse_quantity(v, "concentration")
-    except UnitError as exc:
-        raise ValueError(str(exc)) from None
+def _no_bool(v: Any) -> Any:
+    # TOML has true/false, and pydantic would read them as 1 and 0: a boolean is never a number here
+    if isinstance(v, bool):
+        raise ValueError(f"expected a number, got {str(v).lower()}")
+    return v
 
 
-def _vol(v: Any) -> float:
-    try:
-        return parse_quantity(v, "volume")
-    except UnitError as exc:
-        raise ValueError(str(exc)) from None
+def _range(lo: float, hi: float, unit: str = "", *, lo_open: bool = False, hi_open: bool = False,
+           what: str = "", hint: str = "") -> AfterValidator:
+    """A validator refusing non-finite values and values outside [lo, hi] (open ends as asked)."""
+    u = f" {unit}" if unit else ""
+    if lo_open:
+        where = f"above {lo:g} and at most {hi:g}{u}"
+    elif hi_open:
+        where = f"at least {lo:g} and below {hi:g}{u}"
+    else:
+        where = f"between {lo:g} and {hi:g}{u}"
+
+    def check(v: float) -> float:
+        ok = math.isfinite(v) and (v > lo if lo_open else v >= lo) and (v < hi if hi_open else v <= hi)
+        if not ok:
+            raise ValueError(f"must be {what}{where}, got {v:g}{u}{hint}")
+        return v
+
+    return AfterValidator(check)
 
 
-def _mass(v: Any) -> float:
-    try:
-        return parse_quantity(v, "mass")
-    except UnitError as exc:
-        raise ValueError(str(exc)) from None
+def _quantity(kind: str) -> BeforeValidator:
+    def parse(v: Any) -> float:
+        try:
+            return parse_quantity(v, kind)
+        except UnitError as exc:
+            raise ValueError(str(exc)) from None
+
+    return BeforeValidator(parse)
 
 
-Conc = Annotated[float, BeforeValidator(_conc)]
-Volume = Annotated[float, BeforeValidator(_vol)]
-Mass = Annotated[float, BeforeValidator(_mass)]
+def _num(lo: float, hi: float, unit: str = "", **kw: Any) -> Any:
+    return Annotated[float, BeforeValidator(_no_bool), _range(lo, hi, unit, **kw)]
+
+
+def _int(lo: int, hi: int) -> Any:
+    return Annotated[int, BeforeValidator(_no_bool), _range(lo, hi)]
+
+
+def _ident(what: str) -> AfterValidator:
+    return AfterValidator(lambda v: check_identifier(v, what))
+
+
+_conc = _quantity("concentration")
+_vol = _quantity("volume")
+
+Conc = Annotated[float, _conc, _range(1e-12, 20, "mol/L", what="a positive concentration ",
+                                               hint="; leave it out if the stock has none")]
+IonicStrength = Annotated[float, _conc, _range(0, 5, "mol/L")]
+IonicStrengthTarget = Annotated[float, _conc, _range(0, 5, "mol/L", lo_open=True)]
+Volume = Annotated[float, _vol, _range(0, MAX_VOLUME_ML, "mL", lo_open=True)]
+VolumeOrZero = Annotated[float, _vol, _range(0, MAX_VOLUME_ML, "mL")]
+Mass = Annotated[float, _quantity("mass"), _range(0, 1000, "g", lo_open=True)]
+Fraction = _num(0, 1)
+FractionBelow1 = _num(0, 1, hi_open=True)
+RelSD = _num(0, 5)
+SizeA = _num(0, 50, "Å", lo_open=True)
+Wavelength = _num(100, 2000, "nm")
+Epsilon_ = _num(0, 1e6, "L/mol/cm")
+Absorbance = _num(0, 10)
+LogBeta = _num(-50, 60)
+Stoich = _int(-20, 20)
+Charge = _int(-10, 10)
+Text = Annotated[str, AfterValidator(check_text)]
+SpeciesName = Annotated[str, _ident("species name")]
+StockId = Annotated[str, _ident("stock id")]
 
 
 class _Strict(BaseModel):
@@ -82,16 +165,16 @@ class _Strict(BaseModel):
 class Component(_Strict):
     """A metal or ligand component: a label for people and its charge (for ionic strength)."""
 
-    label: str = ""
-    charge: int = 0
-    size_angstrom: float | None = Field(default=None, alias="size_A", gt=0)
+    label: Text = ""
+    charge: Charge = 0
+    size_angstrom: SizeA | None = Field(default=None, alias="size_A")
 
 
 class Protons(_Strict):
     """Protons held at a buffered pH: folded into conditional constants."""
 
-    pH: float = Field(ge=-2, le=16)
-    size_angstrom: float = Field(default=9.0, alias="size_A", gt=0)
+    pH: _num(-2, 16)
+    size_angstrom: SizeA = Field(default=9.0, alias="size_A")
 
 
 class Components(_Strict):
@@ -101,11 +184,11 @@ class Components(_Strict):
 
 
 class Species(_Strict):
-    name: str = Field(min_length=1)
-    formula: dict[str, int]
-    log_beta: float
-    log_beta_sd: float = Field(default=0.0, ge=0)
-    size_angstrom: float | None = Field(default=None, alias="size_A", gt=0)
+    name: SpeciesName
+    formula: dict[str, Stoich]
+    log_beta: LogBeta
+    log_beta_sd: _num(0, 10) = 0.0
+    size_angstrom: SizeA | None = Field(default=None, alias="size_A")
 
     @field_validator("formula")
     @classmethod
@@ -123,30 +206,30 @@ class Species(_Strict):
 
 
 class Epsilon(_Strict):
-    value: float = Field(ge=0)
-    rsd: float = Field(default=0.0, ge=0)
+    value: Epsilon_
+    rsd: RelSD = 0.0
 
 
 class Noise(_Strict):
-    k1: float = Field(default=0.003, ge=0)
-    k2: float = Field(default=0.0, ge=0)
-    k3: float = Field(default=0.0, ge=0)
+    k1: Fraction = 0.003
+    k2: Fraction = 0.0
+    k3: Fraction = 0.0
 
 
 class Band(_Strict):
-    peak_nm: float = Field(gt=0)
-    fwhm_nm: float = Field(gt=0)
-    epsilon_max: float = Field(ge=0)
+    peak_nm: Wavelength
+    fwhm_nm: _num(0, 2000, "nm", lo_open=True)
+    epsilon_max: Epsilon_
 
 
 class Optics(_Strict):
-    wavelength_nm: float = Field(gt=0)
-    path_cm: float = Field(default=1.0, gt=0)
-    linear_range: tuple[float, float] = (0.1, 1.0)
-    stray_light: float = Field(default=0.0, ge=0, lt=1)
+    wavelength_nm: Wavelength
+    path_cm: _num(0, 100, "cm", lo_open=True) = 1.0
+    linear_range: tuple[Absorbance, Absorbance] = (0.1, 1.0)
+    stray_light: FractionBelow1 = 0.0
     noise: Noise = Noise()
-    display_step: float = Field(default=0.0, ge=0)
-    bandwidth_nm: float | None = Field(default=None, gt=0)
+    display_step: _num(0, 1) = 0.0
+    bandwidth_nm: _num(0, 500, "nm", lo_open=True) | None = None
     epsilon: dict[str, Epsilon] = Field(default_factory=dict)
     bands: dict[str, Band] = Field(default_factory=dict)
 
@@ -162,15 +245,15 @@ class Optics(_Strict):
 
 
 class Stock(_Strict):
-    id: str = Field(min_length=1)
-    label: str = ""
+    id: StockId
+    label: Text = ""
     conc: dict[str, Conc] = Field(default_factory=dict)
     ions: dict[str, Conc] = Field(default_factory=dict)
-    conc_rsd: float = Field(default=0.0, ge=0, lt=1)
+    conc_rsd: FractionBelow1 = 0.0
     on_hand: Volume | None = None
-    reagent: str | None = None
-    formula: str | None = None
-    purity: float | None = Field(default=None, gt=0, le=1)
+    reagent: Text | None = None
+    formula: Text | None = None
+    purity: _num(0, 1, lo_open=True) | None = None
     flask_mL: Volume | None = Field(default=None, alias="flask")
     diluent: bool = False
     background: bool = False
@@ -190,6 +273,7 @@ class Stock(_Strict):
     def _ions(cls, v: dict[str, float]) -> dict[str, float]:
         for ion, c in v.items():
             try:
+                check_identifier(ion, "ion name")
                 ion_charge(ion)
             except ValueError as exc:
                 raise PlanError(ion, str(exc)) from None
@@ -197,18 +281,11 @@ class Stock(_Strict):
                 raise PlanError(ion, f"{c:g} M: concentrations must be positive (or leave it out)")
         return v
 
-    @field_validator("on_hand")
-    @classmethod
-    def _on_hand(cls, v: float | None) -> float | None:
-        if v is not None and not v > 0:
-            raise ValueError(f"on_hand = {v} mL must be positive")
-        return v
-
 
 class Flask(_Strict):
     capacity_mL: Volume = Field(alias="capacity")
     cls: Literal["A", "B"] = Field(default="A", alias="class")
-    tolerance_mL: Volume | None = Field(default=None, alias="tolerance")
+    tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
 
 
 class Balance(_Strict):
@@ -226,15 +303,8 @@ class Dispenser(_Strict):
     kind: Literal["burette", "pipette", "graduated-pipette", "micropipette"]
     capacity_mL: Volume = Field(alias="capacity")
     cls: Literal["A", "B"] = Field(default="A", alias="class")
-    tolerance_mL: Volume | None = Field(default=None, alias="tolerance")
+    tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
     stocks: list[str] = Field(min_length=1)
-
-    @field_validator("capacity_mL")
-    @classmethod
-    def _cap(cls, v: float) -> float:
-        if not v > 0:
-            raise ValueError(f"capacity = {v} mL must be positive")
-        return v
 
 
 class Glassware(_Strict):
@@ -242,48 +312,49 @@ class Glassware(_Strict):
     make_up: Literal["to-mark", "added"] = "to-mark"
     flask: Flask | None = None
     step_mL: Volume = Field(default=0.05, alias="step")
-    min_volume_mL: Volume = Field(default=0.0, alias="min_volume")
-    rinse_mL: Volume = Field(default=2.0, alias="rinse")
-    dead_volume_mL: Volume = Field(default=1.0, alias="dead_volume")
-    delta_T_C: float = Field(default=0.0, ge=-30, le=30)
+    min_volume_mL: VolumeOrZero = Field(default=0.0, alias="min_volume")
+    rinse_mL: VolumeOrZero = Field(default=2.0, alias="rinse")
+    dead_volume_mL: VolumeOrZero = Field(default=1.0, alias="dead_volume")
+    delta_T_C: _num(-30, 30, "°C") = 0.0
     balance: Balance = Balance()
     order: list[str] | None = None
     dispenser: list[Dispenser] = Field(default_factory=list)
 
     @model_validator(mode="after")
-    def _positive(self) -> Glassware:
-        if not self.tube_volume_mL > 0:
-            raise ValueError(f"tube_volume = {self.tube_volume_mL} mL must be positive")
-        if not self.step_mL > 0:
-            raise ValueError(f"step = {self.step_mL} mL must be positive, e.g. step = '0.05 mL'")
-        if self.min_volume_mL < 0:
-            raise ValueError(f"min_volume = {self.min_volume_mL} mL must not be negative")
+    def _grid(self) -> Glassware:
+        # the design enumerates every grid volume of every stock: a step far below the tube volume
+        # would ask for millions of levels (and as many candidate tubes per stock)
+        levels = self.tube_volume_mL / self.step_mL
+        if levels > MAX_GRID_LEVELS:
+            raise PlanError("step", f"{self.step_mL:g} mL gives {levels:.3g} grid levels up to tube_volume = "
+                            f"{self.tube_volume_mL:g} mL; at most {MAX_GRID_LEVELS}: use a step of at least "
+                            f"{self.tube_volume_mL / MAX_GRID_LEVELS:.2g} mL")
         return self
 
 
 class Medium(_Strict):
     activity_model: Literal["davies", "extended-dh", "none"] = "davies"
-    reference_ionic_strength_M: Conc | None = Field(default=None, alias="reference_ionic_strength")
+    reference_ionic_strength_M: IonicStrength | None = Field(default=None, alias="reference_ionic_strength")
 
 
 class Design(_Strict):
-    tubes: int = Field(default=8, ge=1, le=200)
+    tubes: _int(1, 200) = 8
     target: str | None = None
     criterion: Literal["target", "all"] = "target"
     robust: bool = True
-    goal_se: float = Field(default=0.05, gt=0)
-    fixed: dict[str, Volume] = Field(default_factory=dict)
+    goal_se: _num(0, 5, lo_open=True) = 0.05
+    fixed: dict[str, VolumeOrZero] = Field(default_factory=dict)
     blank_offset: bool = False
-    ionic_strength_M: Conc | None = Field(default=None, alias="ionic_strength")
-    ionic_strength_tolerance: float = Field(default=0.02, gt=0, lt=1)
+    ionic_strength_M: IonicStrengthTarget | None = Field(default=None, alias="ionic_strength")
+    ionic_strength_tolerance: _num(0, 1, lo_open=True, hi_open=True) = 0.02
     analysis: Literal["global", "double-reciprocal", "one-to-one"] = "global"
 
 
 class Plan(_Strict):
     """A validated plan; quantities are floats in mol/L and mL (names carry the unit)."""
 
-    title: str = "untitled study"
-    temperature_C: float = Field(default=25.0, ge=0, le=100)
+    title: Text = "untitled study"
+    temperature_C: _num(-20, 150, "°C") = 25.0
     components: Components
     species: list[Species] = Field(min_length=1)
     optics: Optics
@@ -348,9 +419,10 @@ class Plan(_Strict):
         for sid in self.design.fixed:
             if sid not in ids:
                 raise PlanError(f"design.fixed.{sid}", unknown_name("stock id", sid, ids))
-        for sid, v in self.design.fixed.items():
-            if v < 0:
-                raise PlanError(f"design.fixed.{sid}", f"{v} mL is negative")
+        dil = self.diluent
+        if dil is not None and self.glassware.make_up == "to-mark" and dil.id in self.design.fixed:
+            raise PlanError(f"design.fixed.{dil.id}", "the diluent fills each tube to the mark under "
+                            "make_up = 'to-mark', so its volume cannot be fixed: remove it from design.fixed")
         fixed_total = sum(self.design.fixed.values())
         if fixed_total > self.glassware.tube_volume_mL * (1 + 1e-12):
             raise PlanError(
@@ -485,8 +557,8 @@ def _inner_model(ann: Any) -> Any:
     return None
 
 
-def _first_error(exc: ValidationError) -> PlanError:
-    err = exc.errors()[0]
+def _first_error_of(err: Any) -> PlanError:
+    """One pydantic error (a dict) as a PlanError with the key path and a readable message."""
     loc = tuple(err.get("loc", ()))
     path = _loc_to_path(loc, Plan)
     kind = err.get("type", "")
@@ -498,7 +570,7 @@ def _first_error(exc: ValidationError) -> PlanError:
         return PlanError(path, f"unknown key{hint} (allowed here: {', '.join(allowed)})")
     if kind == "missing":
         return PlanError(path, "is required but missing: add it (see the README's plan-file keys)")
-    if kind in ("greater_than", "greater_than_equal") and "0" in msg:
+    if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
         return PlanError(path, f"{msg.lower()}, got {err.get('input')!r}")
     for prefix in ("Value error, ", "Assertion failed, "):
         if msg.startswith(prefix):
@@ -515,15 +587,22 @@ def parse_plan(data: dict[str, Any]) -> Plan:
     except PlanError:
         raise
     except ValidationError as exc:
+        errors = exc.errors()
+        # an unknown key first: a misspelt required key also shows up as "missing" under its real name,
+        # and the key the user actually wrote (with the nearest allowed one) is what helps
+        for err in errors:
+            if err.get("type") == "extra_forbidden":
+                raise _first_error_of(err) from None
         # a PlanError raised inside a validator arrives wrapped; keep its key path
-        for err in exc.errors():
+        for err in errors:
             ctx = err.get("ctx", {}) or {}
             inner = ctx.get("error")
             if isinstance(inner, PlanError):
                 return_path = _loc_to_path(tuple(err.get("loc", ())), Plan)
                 key = ".".join(p for p in (return_path, inner.key) if p)
                 raise PlanError(key, inner.message) from None
-        raise _first_error(exc) from None
+        present = [e for e in errors if e.get("type") != "missing"]
+        raise _first_error_of((present or errors)[0]) from None
 
 
 def load_plan(path: str | Path) -> Plan:
@@ -536,17 +615,51 @@ def load_plan(path: str | Path) -> Plan:
     """
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        with p.open("rb") as fh:
+            # read one byte past the limit rather than trusting stat(): /dev/zero and pipes have no size
+            raw = fh.read(MAX_PLAN_BYTES + 1)
     except FileNotFoundError:
         raise PlanError("", f"plan file '{p}' not found: check the path, or make one with 'kplan new'") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise PlanError("", f"cannot read plan file '{p}': {exc}") from None
+    except IsADirectoryError:
+        raise PlanError("", f"plan file '{p}' is a folder: give the path of a .toml file") from None
+    except OSError as exc:
+        raise PlanError("", f"cannot read plan file '{p}': {exc.strerror or exc}") from None
+    if len(raw) > MAX_PLAN_BYTES:
+        raise PlanError("", f"plan file '{p}' is larger than {MAX_PLAN_BYTES // 1_000_000} MB: "
+                        "a plan is a short TOML file; check that this is the right file")
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise PlanError("", f"plan file '{p}' is not UTF-8 text (byte {exc.start}): save it as UTF-8") from None
     return parse_plan_text(text, source=str(p))
 
 
 def parse_plan_text(text: str, source: str = "<plan>") -> Plan:
+    """Parse and validate the text of a plan; ``source`` names it in messages."""
+    # editors on some systems start UTF-8 files with a byte-order mark, which TOML does not allow
+    text = text.removeprefix("\ufeff")
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise PlanError("", f"{source}: TOML syntax error: {exc} — fix the line shown") from None
+    except RecursionError:
+        raise PlanError("", f"{source}: arrays or tables nested too deeply to read (at most {MAX_DEPTH} "
+                        "levels): a plan needs only a few") from None
+    depth = _depth(data)
+    if depth > MAX_DEPTH:
+        raise PlanError("", f"{source}: arrays or tables nested {depth} levels deep; at most {MAX_DEPTH}: "
+                        "a plan needs only a few")
     return parse_plan(data)
+
+
+def _depth(data: Any) -> int:
+    """Nesting depth of a parsed TOML document (iterative: a deep document must not exhaust the stack)."""
+    deepest, todo = 0, [(data, 1)]
+    while todo:
+        item, d = todo.pop()
+        deepest = max(deepest, d)
+        if isinstance(item, dict):
+            todo.extend((v, d + 1) for v in item.values())
+        elif isinstance(item, list):
+            todo.extend((v, d + 1) for v in item)
+    return deepest
