@@ -37,16 +37,19 @@ def read_design_json(path: Path) -> dict:
         data = json.loads(raw.decode("utf-8-sig"))
     except (UnicodeDecodeError, json.JSONDecodeError, RecursionError) as exc:
         why = f"line {exc.lineno}: {exc.msg}" if isinstance(exc, json.JSONDecodeError) else "not UTF-8 JSON"
-        raise UserError(f"{where}: not readable as JSON ({why}): give the design.json kplan design wrote") from None
+        raise UserError(f"{where}: not readable as JSON ({why}): "
+                        "give the design.json kplan design wrote") from None
     if not isinstance(data, dict):
-        kind = {list: "an array", str: "a string", bool: "a boolean", type(None): "null"}.get(type(data), "a number")
+        kinds = {list: "an array", str: "a string", bool: "a boolean", type(None): "null"}
+        kind = kinds.get(type(data), "a number")
         raise UserError(f"{where}: holds {kind}, not the JSON object kplan design writes: "
                         "give the design.json from 'kplan design --out DIR'")
     for key, types in _DESIGN_KEYS.items():
         v = data.get(key)
         if v is not None and (isinstance(v, bool) or not isinstance(v, types)):
             raise UserError(f"{where}: key '{key}' holds {json.dumps(v)[:40]}, not a "
-                            f"{'string' if types == (str,) else 'number'}: give the design.json kplan design wrote")
+                            f"{'string' if types == (str,) else 'number'}: "
+                            "give the design.json kplan design wrote")
     return data
 
 PAPER_CHOICES = ("A4", "Letter")  # the same keys as planner.render.PAPERS (checked in the tests)

@@ -101,7 +101,8 @@ def print_design(d, p) -> None:
     for c in ("tube", *(f"{S(x)} / mL" for x in dispensed), "A ± sd", "saturation"):
         t.add_column(c, justify="right")
     for i, row in enumerate(s["tubes"]):
-        t.add_row(S(row["tube"]), *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
+        t.add_row(S(row["tube"]),
+                  *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
                   f"{row['absorbance']:.3f} ± {row['absorbance_sd']:.3f}", f"{row['saturation']:.2f}")
     out.print(t)
     target = S(p.target)

@@ -630,7 +630,8 @@ def load_plan(path: str | Path) -> Plan:
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
-        raise PlanError("", f"plan file '{p}' is not UTF-8 text (byte {exc.start}): save it as UTF-8") from None
+        raise PlanError("", f"plan file '{p}' is not UTF-8 text (byte {exc.start}): "
+                        "save it as UTF-8") from None
     return parse_plan_text(text, source=str(p))
 
 

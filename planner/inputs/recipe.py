@@ -178,7 +178,8 @@ def read_text_file(path: str | Path, what: str) -> str:
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        raise RecipeError("", f"{what} file '{p}' is not UTF-8 text (byte {exc.start}): save it as UTF-8 CSV") from None
+        raise RecipeError("", f"{what} file '{p}' is not UTF-8 text (byte {exc.start}): "
+                          "save it as UTF-8 CSV") from None
 
 
 def read_recipe_csv(path: str | Path, plan: Plan) -> Recipe:
@@ -212,7 +213,8 @@ def csv_rows(text: str, source: str) -> list[tuple[int, list[str]]]:
                                   "(an unclosed quote?): close the quote on that line")
             rows.append((skip + start, r))
             if len(rows) > MAX_ROWS + 1:
-                raise RecipeError(source, f"more than {MAX_ROWS} tubes: a recipe holds at most {MAX_ROWS} rows")
+                raise RecipeError(source, f"more than {MAX_ROWS} tubes: a recipe holds at most "
+                                  f"{MAX_ROWS} rows")
     except csv.Error as exc:
         line = skip + reader.line_num
         if "field larger" in str(exc):
@@ -271,7 +273,8 @@ def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
         except ValueError as exc:
             raise RecipeError(f"{source} line {ln}, tube", str(exc)) from None
         tubes.append(label)
-        data.append([parse_volume_cell(c, f"{source} line {ln}, {h}") for h, c in zip(header[1:], r[1:], strict=True)])
+        data.append([parse_volume_cell(c, f"{source} line {ln}, {h}")
+                     for h, c in zip(header[1:], r[1:], strict=True)])
     if not tubes:
         raise RecipeError(source, "no tubes: add one row per tube")
     if len(set(tubes)) != len(tubes):
