@@ -225,15 +225,28 @@ def test_bad_recipe(workdir, capsys, monkeypatch, name, text, needle):
     assert listing(workdir) == before
 
 
-@pytest.mark.parametrize("cell", ["nan", "1e400", "-inf", "25"])
-def test_bad_reading(workdir, capsys, monkeypatch, cell):
+@pytest.mark.parametrize("cell,needle", [("nan", "readings.csv line 3, absorbance: 'nan' is not an absorbance"),
+                                         ("1e400", "readings.csv line 3, absorbance: '1e400' is out of range"),
+                                         ("-inf", "readings.csv line 3, absorbance"),
+                                         ("25", "readings.csv, tube C2: absorbance 25")])
+def test_bad_reading(workdir, capsys, monkeypatch, cell, needle):
     rec = workdir / "readings.csv"
     rec.write_text(f"tube,ZN,ZC,BUF,absorbance\nC1,0.2,0.15,2.65,0.31\nC2,0.2,0.3,2.5,{cell}\n"
                    "C3,0.2,0.45,2.35,0.52\n")
     before = listing(workdir)
     code, _, err = run(capsys, monkeypatch, "fit", PLAN, rec)
-    assert_refused(code, err, "readings.csv, tube C2: absorbance")
+    assert_refused(code, err, needle)
     assert listing(workdir) == before
+
+
+def test_readings_follow_the_recipe_rules(workdir, capsys, monkeypatch):
+    # a quoted label with a comma and a tube labelled '#3' are tubes, in readings as in recipes
+    rec = workdir / "readings.csv"
+    rec.write_text("# measured on the bench\ntube,ZN,ZC,BUF,absorbance\n\"P,3\",0.2,0.15,2.65,0.31\n"
+                   "#3,0.2,0.3,2.5,0.45\nC3,0.2,0.45,2.35,0.52\nC4,0.2,0.6,2.2,0.57\n")
+    code, out, err = run(capsys, monkeypatch, "fit", PLAN, rec, "--json")
+    assert code == 0, err
+    assert [t["tube"] for t in json.loads(out)["tubes"]] == ["P,3", "#3", "C3", "C4"]
 
 
 def test_recipe_over_1MB_and_not_utf8(workdir, capsys, monkeypatch):

@@ -22,10 +22,14 @@ def fit(
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
 ) -> None:
     """Fit measured readings with the plan's model, and compare the result with the plan's promise."""
-    from ..jobs.fit import fit_readings, read_readings_csv
+    from ..inputs.recipe import parse_recipe_with_column, read_text_file
+    from ..jobs.fit import ABSORBANCE_COLUMNS, Readings, fit_readings
 
     p = load_plan(plan)
-    data = read_readings_csv(readings, p)
+    # read here by the recipe CSV's own rules (quoted labels, comments only above the header, limits)
+    recipe, absorbance = parse_recipe_with_column(read_text_file(readings, "readings"), p, ABSORBANCE_COLUMNS,
+                                                  str(readings))
+    data = Readings(recipe, absorbance)
     _check_absorbances(data, readings)
     f = fit_readings(p, data)
     if as_json:

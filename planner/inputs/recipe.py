@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import csv
 import io
+import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -239,14 +240,62 @@ def parse_volume_cell(cell: str, where: str, what: str = "a volume in mL") -> fl
         hint = ("; write a decimal point (1.50, not 1,50)" if re.fullmatch(r"[+-]?\d*,\d+", c)
                 else "; leave no blanks" if not c else "")
         raise RecipeError(where, f"'{visible(c)}' is not {what}{hint}")
-    return float(c)
+    v = float(c)
+    if not math.isfinite(v):  # '1e400' is a plain decimal, but past the largest float
+        raise RecipeError(where, f"'{c}' is out of range for {what}")
+    return v
 
 
 def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
     """Parse recipe CSV text (see the module docstring for the rules)."""
     rows = csv_rows(text, source)
     if not rows:
-        raise RecipeError(source, "the recipe is empty: expected a header 'tube,<stock>,...' and one row per tube")
+        raise RecipeError(source, "the recipe is empty: expected a header 'tube,<stock>,...' "
+                          "and one row per tube")
+    return _recipe_from_rows(rows, plan, source)
+
+
+def parse_recipe_with_column(text: str, plan: Plan, columns: tuple[str, ...], source: str = "<readings>",
+                             what: str = "an absorbance") -> tuple[Recipe, np.ndarray]:
+    """A recipe CSV with one more numeric column (e.g. the measured absorbance), by the same rules.
+
+    Parameters
+    ----------
+    columns : names the extra column may have; the first is the one suggested in messages.
+    what : what a value of that column is, for messages ("an absorbance").
+
+    Returns
+    -------
+    recipe : the recipe of the other columns.
+    values : (n,) the extra column, in tube order.
+    """
+    rows = csv_rows(text, source)
+    if not rows:
+        raise RecipeError(source, f"empty: expected a header 'tube,<stock>,...,{columns[0]}' and one row per tube")
+    header = [h.strip() for h in rows[0][1]]
+    col = next((h for h in header if h in columns), None)
+    if col is None:
+        raise RecipeError(f"{source} header", f"no {columns[0]} column: add one named {' or '.join(columns)}")
+    j = header.index(col)
+    values = []
+    for ln, r in rows[1:]:
+        _check_width(r, len(header), f"{source} line {ln}")
+        values.append(parse_volume_cell(r[j], f"{source} line {ln}, {col}", what=what))
+    rest = [(ln, [c for k, c in enumerate(r) if k != j]) for ln, r in rows]
+    return _recipe_from_rows(rest, plan, source), np.array(values, dtype=float)
+
+
+def _check_width(row: list[str], width: int, where: str) -> None:
+    if len(row) != width:
+        hint = ""
+        if len(row) > width:
+            hint = ("; a decimal comma? write volumes with a decimal point (1.50, not 1,50), and quote "
+                    "labels that contain commas")
+        raise RecipeError(where, f"expected {width} fields, got {len(row)}{hint}")
+
+
+def _recipe_from_rows(rows: list[tuple[int, list[str]]], plan: Plan, source: str) -> Recipe:
+    """A recipe from :func:`csv_rows` output: the header row, then one row per tube."""
     header = [h.strip() for h in rows[0][1]]
     ids = [s.id for s in plan.stock]
     if header[0].lower() != "tube":
@@ -261,12 +310,7 @@ def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
         raise RecipeError(f"{source} header", "a column appears twice")
     tubes, data = [], []
     for ln, r in rows[1:]:
-        if len(r) != len(header):
-            hint = ""
-            if len(r) > len(header):
-                hint = ("; a decimal comma? write volumes with a decimal point (1.50, not 1,50), and quote "
-                        "labels that contain commas")
-            raise RecipeError(f"{source} line {ln}", f"expected {len(header)} fields, got {len(r)}{hint}")
+        _check_width(r, len(header), f"{source} line {ln}")
         label = r[0].strip()
         try:
             check_identifier(label, "tube label")
