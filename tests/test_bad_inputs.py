@@ -438,3 +438,22 @@ def test_design_files_are_one_unit(tmp_path, monkeypatch):
     write_atomic_many({out / "recipe.csv": "new recipe", out / "design.json": "{}"})
     assert (out / "recipe.csv").read_text() == "new recipe" and (out / "design.json").read_text() == "{}"
     assert sorted(p.name for p in out.iterdir()) == ["design.json", "recipe.csv"]
+
+
+@pytest.mark.parametrize("ch", ["\x00", "\x07", "\t", "\n", "\x1b", "\x7f", "\x85", "\x9b", "\u200e", "\u2028",
+                                "\u202a", "\u202e", "\u2066", "\u2069"])
+def test_visible_escapes_every_unsafe_character(ch):
+    from planner.cli.app import safe_text
+    from planner.inputs.text import check_identifier, visible
+
+    assert visible(f"a{ch}b") == f"a\\u{ord(ch):04x}b"
+    assert ch not in safe_text(f"[b]{ch}")
+    with pytest.raises(ValueError, match=f"U\\+{ord(ch):04X}"):
+        check_identifier(f"a{ch}b", "stock id")
+
+
+def test_visible_keeps_ordinary_unicode():
+    from planner.inputs.text import visible
+
+    text = "Cu²⁺ · log β ± 0.05 — µL, Å, é"
+    assert visible(text) == text

@@ -91,9 +91,12 @@ def _check_folder(folder: Path, shown: Path) -> None:
 
 
 def _check_name(name: str, shown: Path) -> None:
+    anc = shown.parent  # the limit belongs to the file system the name will live on
+    while not anc.exists() and anc != anc.parent:
+        anc = anc.parent
     try:
-        limit = os.pathconf(".", "PC_NAME_MAX")
-    except (OSError, ValueError, AttributeError):
+        limit = os.pathconf(anc, "PC_NAME_MAX")
+    except (OSError, ValueError, AttributeError):  # no pathconf (Windows) or not answered: the common limit
         limit = 255
     if len(os.fsencode(name)) > limit:
         raise OutputError(shown, f"the name is {len(os.fsencode(name))} bytes long, more than the {limit} "

@@ -7,25 +7,40 @@ single :class:`PlanError` naming the key path, what was wrong and how to fix it.
 Every number is checked at the schema: finite, not a boolean, and inside a physically generous range
 (the range is stated in the message). The ranges:
 
-=============================================  ===========================  ============================
-key                                            range                        unit
-=============================================  ===========================  ============================
-``temperature_C``                              −20 … 150                    °C
-``stock.conc``, ``stock.ions``                 1e-12 … 20                   mol/L
-``medium.reference_ionic_strength``            0 … 5                        mol/L
-``design.ionic_strength``                      0 (excluded) … 5             mol/L
-``species.log_beta``                           −50 … 60                     log10 units
-``species.log_beta_sd``                        0 … 10                       log10 units
-``optics.wavelength_nm``, ``bands.peak_nm``    100 … 2000                   nm
-``optics.path_cm``                             0 (excluded) … 100           cm
-``optics.epsilon.value``, ``epsilon_max``      0 … 1e6                      L mol⁻¹ cm⁻¹
-``optics.noise.k1/k2/k3``                      0 … 1                        transmittance
-``optics.linear_range``                        0 … 10                       absorbance
-volumes (tube, step, flask, capacity, …)       0 … 10 000 (10 L)            mL
-``glassware.step``                             at most 20 000 levels up to ``tube_volume``
-``design.goal_se``                             0 (excluded) … 5             log10 units
-``design.tubes``                               1 … 200
-=============================================  ===========================  ============================
+===========================================  ==============================  =============
+key                                          range                           unit
+===========================================  ==============================  =============
+``temperature_C``                            −20 … 150                       °C
+``stock.conc``, ``stock.ions``               1e-12 … 20                      mol/L
+``medium.reference_ionic_strength``          0 … 5                           mol/L
+``design.ionic_strength``                    0 (excluded) … 5                mol/L
+``species.log_beta``                         −50 … 60                        log10 units
+``species.log_beta_sd``                      0 … 10                          log10 units
+``species.formula`` counts                   −20 … 20                        integer
+``components.M/L.charge``                    −10 … 10                        integer
+``components.H.pH``                          −2 … 16
+``size_A``                                   0 (excluded) … 50               Å
+``optics.wavelength_nm``, ``bands.peak_nm``  100 … 2000                      nm
+``optics.bandwidth_nm``                      0 (excluded) … 500              nm
+``bands.fwhm_nm``                            0 (excluded) … 2000             nm
+``optics.path_cm``                           0 (excluded) … 100              cm
+``optics.epsilon.value``, ``epsilon_max``    0 … 1e6                         L mol⁻¹ cm⁻¹
+``optics.epsilon.rsd``                       0 … 5                           relative
+``optics.noise.k1/k2/k3``                    0 … 1                           transmittance
+``optics.linear_range``                      0 … 10                          absorbance
+``optics.stray_light``                       0 … 1 (excluded)                fraction
+``optics.display_step``                      0 … 1                           absorbance
+``stock.conc_rsd``                           0 … 1 (excluded)                relative
+``stock.purity``                             0 (excluded) … 1                fraction
+tube_volume, step, flask, capacity, on_hand  0 (excluded) … 10 000           mL
+min_volume, rinse, dead_volume, fixed        0 … 10 000                      mL
+``glassware.step``                           ≤ 20 000 levels to tube_volume
+``glassware.delta_T_C``                      −30 … 30                        °C
+``glassware.balance`` masses                 0 (excluded) … 1000             g
+``design.goal_se``                           0 (excluded) … 5                log10 units
+``design.ionic_strength_tolerance``          0 … 1 (both excluded)           relative
+``design.tubes``                             1 … 200                         integer
+===========================================  ==============================  =============
 
 Limits on the input itself: a plan file of at most :data:`MAX_PLAN_BYTES` bytes, nested at most
 :data:`MAX_DEPTH` levels deep; titles and labels of at most 200 characters; identifiers (stock ids,
