@@ -112,6 +112,9 @@ PLAN_CASES = [
     ("fixed-negative", ADDED, "goal_se = 0.05", 'goal_se = 0.05\nfixed = { ZN = "-1 mL" }',
      "design.fixed.ZN"),
     ("on-hand-inf", ADDED, 'on_hand = "20 mL"', "on_hand = inf", "stock[0].on_hand"),
+    ("fixed-denormal", ADDED, "goal_se = 0.05", "goal_se = 0.05\nfixed = { ZN = 1e-300 }", "design.fixed.ZN"),
+    ("tube-volume-denormal", ADDED, 'tube_volume = "3.000 mL"', 'tube_volume = "1e-300 mL"',
+     "glassware.tube_volume"),
     ("on-hand-zero", ADDED, 'on_hand = "20 mL"', 'on_hand = "0 mL"', "stock[0].on_hand"),
     ("flask-negative", ADDED, 'formula = "ZnSO4.7H2O"', 'formula = "ZnSO4.7H2O"\nflask = "-5 mL"',
      "stock[0].flask"),
@@ -198,6 +201,8 @@ CSV_CASES = [
     ("decimal-comma-quoted", ADDED, 'tube,ZN,ZC,BUF\nC1,"0,2",0.1,2.5\n', "line 2, ZN"),
     ("nan-volume", ADDED, "tube,ZN,ZC,BUF\nC1,nan,0.1,2.5\n", "line 2, ZN"),
     ("inf-volume", ADDED, "tube,ZN,ZC,BUF\nC1,0.2,inf,2.5\n", "line 2, ZC"),
+    ("denormal-volume", ADDED, "tube,ZN,ZC,BUF\nC1,1e-300,0.1,2.5\n", "line 2, ZN: 1e-300 mL"),
+    ("huge-volume", ADDED, "tube,ZN,ZC,BUF\nC1,0.2,0.1,1e6\n", "line 2, BUF: 1e+06 mL"),
     ("blank-volume", ADDED, "tube,ZN,ZC,BUF\nC1,0.2,,2.5\n", "line 2, ZC"),
     ("too-many-rows", ADDED, "tube,ZN,ZC,BUF\n" + "".join(f"C{i},0.2,0.1,2.5\n" for i in range(1001)),
      "1000"),
@@ -225,10 +230,12 @@ def test_bad_recipe(workdir, capsys, monkeypatch, name, text, needle):
     assert listing(workdir) == before
 
 
-@pytest.mark.parametrize("cell,needle", [("nan", "readings.csv line 3, absorbance: 'nan' is not an absorbance"),
-                                         ("1e400", "readings.csv line 3, absorbance: '1e400' is out of range"),
-                                         ("-inf", "readings.csv line 3, absorbance"),
-                                         ("25", "readings.csv, tube C2: absorbance 25")])
+@pytest.mark.parametrize("cell,needle", [
+    ("nan", "readings.csv line 3, absorbance: 'nan' is not an absorbance"),
+    ("1e400", "readings.csv line 3, absorbance: '1e400' is out of range"),
+    ("-inf", "readings.csv line 3, absorbance"),
+    ("25", "readings.csv, tube C2: absorbance 25"),
+])
 def test_bad_reading(workdir, capsys, monkeypatch, cell, needle):
     rec = workdir / "readings.csv"
     rec.write_text(f"tube,ZN,ZC,BUF,absorbance\nC1,0.2,0.15,2.65,0.31\nC2,0.2,0.3,2.5,{cell}\n"
@@ -440,8 +447,8 @@ def test_design_files_are_one_unit(tmp_path, monkeypatch):
     assert sorted(p.name for p in out.iterdir()) == ["design.json", "recipe.csv"]
 
 
-@pytest.mark.parametrize("ch", ["\x00", "\x07", "\t", "\n", "\x1b", "\x7f", "\x85", "\x9b", "\u200e", "\u2028",
-                                "\u202a", "\u202e", "\u2066", "\u2069"])
+@pytest.mark.parametrize("ch", ["\x00", "\x07", "\t", "\n", "\x1b", "\x7f", "\x85", "\x9b", "\u200e",
+                                "\u2028", "\u202a", "\u202e", "\u2066", "\u2069"])
 def test_visible_escapes_every_unsafe_character(ch):
     from planner.cli.app import safe_text
     from planner.inputs.text import check_identifier, visible

@@ -32,8 +32,8 @@ key                                          range                           uni
 ``optics.display_step``                      0 … 1                           absorbance
 ``stock.conc_rsd``                           0 … 1 (excluded)                relative
 ``stock.purity``                             0 (excluded) … 1                fraction
-tube_volume, step, flask, capacity, on_hand  0 (excluded) … 10 000           mL
-min_volume, rinse, dead_volume, fixed        0 … 10 000                      mL
+tube_volume, step, flask, capacity, on_hand  1e-6 … 10 000                   mL
+min_volume, rinse, dead_volume, fixed        0, or 1e-6 … 10 000             mL
 ``glassware.step``                           ≤ 20 000 levels to tube_volume
 ``glassware.delta_T_C``                      −30 … 30                        °C
 ``glassware.balance`` masses                 0 (excluded) … 1000             g
@@ -80,6 +80,7 @@ MAX_PLAN_BYTES = 1_000_000  # a plan is a page of TOML; anything this large is n
 MAX_DEPTH = 50              # nesting levels of tables and arrays; a plan needs about 4
 MAX_GRID_LEVELS = 20_000    # grid volumes per stock (tube_volume / step); the design enumerates them
 MAX_VOLUME_ML = 10_000.0    # 10 L: larger than any flask, burette or tube a plan describes
+MIN_VOLUME_ML = 1e-6        # 1 nL: far below any dispenser; smaller non-zero volumes only break the numerics
 
 
 class PlanError(ValueError):
@@ -155,8 +156,17 @@ Conc = Annotated[float, _conc, _range(1e-12, 20, "mol/L", what="a positive conce
                                                hint="; leave it out if the stock has none")]
 IonicStrength = Annotated[float, _conc, _range(0, 5, "mol/L")]
 IonicStrengthTarget = Annotated[float, _conc, _range(0, 5, "mol/L", lo_open=True)]
-Volume = Annotated[float, _vol, _range(0, MAX_VOLUME_ML, "mL", lo_open=True)]
-VolumeOrZero = Annotated[float, _vol, _range(0, MAX_VOLUME_ML, "mL")]
+def _zero_or(v: float) -> float:
+    # 0 means "none" (no rinse, no minimum); any other volume must be one a dispenser could deliver
+    if v == 0:
+        return v
+    if not (math.isfinite(v) and MIN_VOLUME_ML <= v <= MAX_VOLUME_ML):
+        raise ValueError(f"must be 0 or between {MIN_VOLUME_ML:g} and {MAX_VOLUME_ML:g} mL, got {v:g} mL")
+    return v
+
+
+Volume = Annotated[float, _vol, _range(MIN_VOLUME_ML, MAX_VOLUME_ML, "mL")]
+VolumeOrZero = Annotated[float, _vol, AfterValidator(_zero_or)]
 Mass = Annotated[float, _quantity("mass"), _range(0, 1000, "g", lo_open=True)]
 Fraction = _num(0, 1)
 FractionBelow1 = _num(0, 1, hi_open=True)

@@ -18,7 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .plan import Plan, unknown_name
+from .plan import MAX_VOLUME_ML, MIN_VOLUME_ML, Plan, unknown_name
 from .text import check_identifier, visible
 
 VOLUME_DECIMALS = 4  # mL; far below any dispenser's resolution, so round trips are exact
@@ -246,6 +246,15 @@ def parse_volume_cell(cell: str, where: str, what: str = "a volume in mL") -> fl
     return v
 
 
+def _volume(cell: str, where: str) -> float:
+    """A recipe volume: 0, or a volume a dispenser could deliver (the plan's volume bounds)."""
+    v = parse_volume_cell(cell, where)
+    if v != 0 and not MIN_VOLUME_ML <= abs(v) <= MAX_VOLUME_ML:  # negatives get their own message later
+        raise RecipeError(where, f"{v:g} mL: write 0 or a volume between {MIN_VOLUME_ML:g} and "
+                          f"{MAX_VOLUME_ML:g} mL")
+    return v
+
+
 def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
     """Parse recipe CSV text (see the module docstring for the rules)."""
     rows = csv_rows(text, source)
@@ -271,7 +280,8 @@ def parse_recipe_with_column(text: str, plan: Plan, columns: tuple[str, ...], so
     """
     rows = csv_rows(text, source)
     if not rows:
-        raise RecipeError(source, f"empty: expected a header 'tube,<stock>,...,{columns[0]}' and one row per tube")
+        raise RecipeError(source, f"empty: expected a header 'tube,<stock>,...,{columns[0]}' "
+                          "and one row per tube")
     header = [h.strip() for h in rows[0][1]]
     col = next((h for h in header if h in columns), None)
     if col is None:
@@ -317,8 +327,7 @@ def _recipe_from_rows(rows: list[tuple[int, list[str]]], plan: Plan, source: str
         except ValueError as exc:
             raise RecipeError(f"{source} line {ln}, tube", str(exc)) from None
         tubes.append(label)
-        data.append([parse_volume_cell(c, f"{source} line {ln}, {h}")
-                     for h, c in zip(header[1:], r[1:], strict=True)])
+        data.append([_volume(c, f"{source} line {ln}, {h}") for h, c in zip(header[1:], r[1:], strict=True)])
     if not tubes:
         raise RecipeError(source, "no tubes: add one row per tube")
     if len(set(tubes)) != len(tubes):
