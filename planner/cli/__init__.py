@@ -1,6 +1,9 @@
 """The `kplan` command line: one module per command; each parses, calls one job, and prints or writes.
 
 Importing this package registers every command on :data:`app` (see :mod:`planner.cli.app`).
+
+Exit codes: 0 fine; 1 the recipe or data fail; 2 bad input (one line on stderr naming the key or path
+and the fix, no traceback, no file written); 130 interrupted (Ctrl-C).
 """
 
 from __future__ import annotations
@@ -8,25 +11,58 @@ from __future__ import annotations
 import sys
 import warnings
 
-from rich.markup import escape
+import typer
 
 from . import assess, check, demo, design, fit, grade, new, report, series, sheet, stocks  # noqa: F401  (register commands)
-from .app import SCENARIOS, UserError, _user_errors, app, err
+from .app import SCENARIOS, UserError, _user_errors, app, err, one_line
 from .paper_output import PAPER_CHOICES
 
 __all__ = ["PAPER_CHOICES", "SCENARIOS", "UserError", "app", "main"]
 
+EXIT_INTERRUPTED = 130  # the shell's convention for a process ended by SIGINT
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Show the tool's own warnings as one clean line; drop warnings raised inside libraries.
+
+    A library's DeprecationWarning or RuntimeWarning says nothing the user can act on; the tool's own
+    warning classes (defined in :mod:`planner`) say what to check, so they are shown.
+    """
+    if getattr(category, "__module__", "").startswith("planner."):
+        err.print(f"[yellow]warning:[/yellow] {one_line(message)}", highlight=False, soft_wrap=True)
+
 
 def main() -> None:
-    """Console entry point: user errors become one line on stderr and exit code 2."""
+    """Console entry point: user errors become one line on stderr and exit code 2; Ctrl-C exits 130."""
     errors = _user_errors()
     try:
         with warnings.catch_warnings():
-            warnings.simplefilter("default")
-            app()  # standalone: usage errors already exit 2 with a message
+            warnings.simplefilter("default")  # each warning once per place it is raised
+            warnings.showwarning = _show_warning
+            # not standalone: usage errors, Ctrl-C and exit codes are handled below, in one place
+            code = app(standalone_mode=False)
     except errors as exc:
-        err.print(f"[red]error:[/red] {escape(str(exc))}", highlight=False, soft_wrap=True)
-        sys.exit(2)
+        _fail(str(exc), 2)
+    except typer.TyperException as exc:  # click's usage errors (exit 2) and other command-line errors
+        ctx = getattr(exc, "ctx", None)
+        if type(exc).__name__ == "NoArgsIsHelpError":
+            print(exc.format_message())  # bare `kplan`: the help, as before
+            sys.exit(exc.exit_code)
+        where = f" (see '{ctx.command_path} --help')" if ctx is not None else ""
+        _fail(exc.format_message() + where, exc.exit_code)
+    except (KeyboardInterrupt, typer.Abort):
+        sys.exit(EXIT_INTERRUPTED)
+    except OSError as exc:
+        # the environment, not the input's content: a file that vanished, a full disk, a closed pipe
+        where = f"{exc.filename}: " if exc.filename else ""
+        _fail(f"{where}{exc.strerror or exc}", 2)
+    if isinstance(code, int) and code:
+        sys.exit(code)
+
+
+def _fail(message: str, code: int) -> None:
+    err.print(f"[red]error:[/red] {one_line(message)}", highlight=False, soft_wrap=True)
+    sys.exit(code)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -2,13 +2,20 @@
 
 from __future__ import annotations
 
+import json
+import math
 from importlib import resources
+from typing import Any
 
+import numpy as np
 import typer
 from rich.console import Console
+from rich.markup import escape
 
+from ..inputs.files import OutputError
 from ..inputs.plan import PlanError
 from ..inputs.recipe import RecipeError
+from ..inputs.text import visible
 
 app = typer.Typer(
     name="kplan",
@@ -17,8 +24,9 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-out = Console()
-err = Console(stderr=True)
+# emoji codes (":warning:") in a title would otherwise be replaced by pictures
+out = Console(emoji=False)
+err = Console(stderr=True, emoji=False)
 
 SCENARIOS = ("teaching", "stepwise", "proton")
 
@@ -37,8 +45,48 @@ def _user_errors() -> tuple[type[BaseException], ...]:
     from ..uncertainty.catalogue import GlasswareError
     from ..uncertainty.stocks import StockError
 
-    return (PlanError, RecipeError, UserError, EquilibriumError, GlasswareError, StockError, DesignError,
-            FitError, RenderError)
+    return (PlanError, RecipeError, OutputError, UserError, EquilibriumError, GlasswareError, StockError,
+            DesignError, FitError, RenderError)
+
+
+def safe_text(text: object) -> str:
+    """User-supplied text made safe to pass to a rich console as markup: shown as written.
+
+    Control and bidirectional-formatting characters become visible ``\\uXXXX`` escapes (they could
+    recolour the terminal, open links or reverse a line) and rich markup (``[bold]``, ``[link=...]``) is
+    escaped, so a title like ``"x [/bold] y"`` prints as is instead of failing or styling the output.
+    Every user-supplied string a command prints goes through here.
+    """
+    return escape(visible(text))
+
+
+def one_line(text: object) -> str:
+    """:func:`safe_text` of a message, on one line (an error is always exactly one line on stderr)."""
+    return safe_text(" ".join(str(text).replace("\r\n", "\n").split("\n")))
+
+
+def json_safe(obj: Any) -> Any:
+    """``obj`` with numpy scalars and arrays made plain and every NaN or ±inf replaced by None (null).
+
+    JSON has no NaN or Infinity; Python's json would write them as bare tokens that strict readers
+    refuse, so every JSON the command line prints or writes goes through :func:`dump_json`.
+    """
+    if isinstance(obj, dict):
+        return {str(k): json_safe(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [json_safe(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return json_safe(obj.tolist())
+    if isinstance(obj, np.generic):
+        obj = obj.item()
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    return obj
+
+
+def dump_json(obj: Any) -> str:
+    """Strict JSON text (no NaN/Infinity, non-ASCII escaped) of a command's summary, indented."""
+    return json.dumps(json_safe(obj), indent=2, allow_nan=False)
 
 
 def scenario_text(name: str) -> str:

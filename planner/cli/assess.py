@@ -2,15 +2,14 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Annotated
 
 import typer
 
 from ..inputs.plan import load_plan
-from .app import app
-from .options import _with_progress, parse_at, read_points
+from .app import app, dump_json
+from .options import MAX_TRIALS, _with_progress, parse_at, read_points
 from .show import print_assessment
 
 
@@ -20,8 +19,9 @@ def assess(
     recipe: Annotated[Path, typer.Argument(
         help="recipe CSV: tube, then one column per stock (mL); for a titration: step, aliquot_mL")],
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
-    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments (0: Cramér–Rao only)", min=0)] = 2000,
-    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers")] = 0,
+    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments (0: Cramér–Rao only)", min=0,
+                                        max=MAX_TRIALS)] = 2000,
+    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0)] = 0,
     at: Annotated[list[str] | None, typer.Option(
         "--at", help="assess as if the true constant were different: NAME=LOGBETA (repeatable)")] = None,
 ) -> None:
@@ -37,7 +37,7 @@ def assess(
     a = _with_progress(lambda prog: assess_study(study, r, trials=trials, seed=seed, at=at_values, progress=prog),
                        trials, quiet=as_json)
     if as_json:
-        print(json.dumps(a.summary(), indent=2))
+        print(dump_json(a.summary()))
     else:
         print_assessment(a, p)
     if a.verdict is not None and a.verdict != "resolved":

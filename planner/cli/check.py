@@ -12,18 +12,19 @@ from rich.table import Table
 from ..inputs.plan import load_plan
 from ..paper import fmt
 from .app import app, out
+from .app import safe_text as S
 
 
 @app.command()
 def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> None:
     """Validate a plan and show what was understood: species, constants, stocks, glassware."""
     p = load_plan(plan)
-    out.print(f"[bold]{p.title}[/bold]  ({plan})")
+    out.print(f"[bold]{S(p.title)}[/bold]  ({S(plan)})")
     t = Table(title="Components")
     for c in ("component", "label", "charge / pH"):
         t.add_column(c)
-    t.add_row("M", p.components.M.label, f"{p.components.M.charge:+d}")
-    t.add_row("L", p.components.L.label, f"{p.components.L.charge:+d}")
+    t.add_row("M", S(p.components.M.label), f"{p.components.M.charge:+d}")
+    t.add_row("L", S(p.components.L.label), f"{p.components.L.charge:+d}")
     if p.components.H is not None:
         t.add_row("H", "H+", f"pH {p.components.H.pH:.2f} (buffered)")
     out.print(t)
@@ -33,7 +34,7 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     for s in p.species:
         f = " ".join(f"{k}{v if v != 1 else ''}" for k, v in s.formula.items() if v)
         e = p.optics.epsilon.get(s.name)
-        t.add_row(s.name, f, f"{s.log_beta:.2f}", f"{s.log_beta_sd:.2f}",
+        t.add_row(S(s.name), S(f), f"{s.log_beta:.2f}", f"{s.log_beta_sd:.2f}",
                   f"{e.value:g} ± {e.rsd:.0%}" if e else "—",
                   "yes" if s.log_beta_sd > 0 else "held fixed")
     for comp in ("M", "L"):
@@ -51,9 +52,9 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     for s in p.stock:
         d = p.dispenser_for(s.id)
         disp = f"{d.kind} {d.capacity_mL:g} mL ({d.cls})" if d else ("diluent" if s.diluent else "none")
-        t.add_row(s.id, s.label, fmt.conc(s.conc["M"]) if "M" in s.conc else "",
+        t.add_row(S(s.id), S(s.label), fmt.conc(s.conc["M"]) if "M" in s.conc else "",
                   fmt.conc(s.conc["L"]) if "L" in s.conc else "",
-                  ", ".join(f"{k} {fmt.conc(v)}" for k, v in s.ions.items()),
+                  S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.ions.items())),
                   f"{s.conc_rsd:.1%}", f"{s.on_hand:g} mL" if s.on_hand else "—", disp)
     out.print(t)
     g = p.glassware
@@ -69,16 +70,16 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     for d, item in zip(p.glassware.dispenser, devices.items, strict=True):
         du = delivery_uncertainty(item, np.array([item.capacity_mL]))
         src = item.source + (" (from memory)" if item.from_memory else "")
-        t.add_row(item.label, f"± {item.tolerance_mL:g} mL", f"{float(du.combined_mL[0]):.3g} mL", src,
-                  ", ".join(d.stocks))
+        t.add_row(S(item.label), f"± {item.tolerance_mL:g} mL", f"{float(du.combined_mL[0]):.3g} mL", S(src),
+                  S(", ".join(d.stocks)))
     if devices.flask is not None:
         fl = devices.flask
         src = fl.source + (" (from memory)" if fl.from_memory else "")
-        t.add_row(fl.label, f"± {fl.tolerance_mL:g} mL", f"{flask_volume_uncertainty(fl):.3g} mL", src,
+        t.add_row(S(fl.label), f"± {fl.tolerance_mL:g} mL", f"{flask_volume_uncertainty(fl):.3g} mL", S(src),
                   "make-up of every tube")
     out.print(t)
     d = p.design
-    out.print(f"Design: {d.tubes} tubes, target {p.target}, criterion {d.criterion}, "
+    out.print(f"Design: {d.tubes} tubes, target {S(p.target)}, criterion {d.criterion}, "
               f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
-              + (f", fixed {', '.join(f'{k} {v:g} mL' for k, v in d.fixed.items())}" if d.fixed else ""))
+              + (f", fixed {S(', '.join(f'{k} {v:g} mL' for k, v in d.fixed.items()))}" if d.fixed else ""))
     out.print("[green]plan OK[/green]")

@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Annotated
 
 import typer
 
 from ..inputs.plan import parse_plan_text
-from .app import DEMO_SCENARIO, app, out, scenario_text
+from .app import DEMO_SCENARIO, app, dump_json, out, scenario_text
+from .app import safe_text as S
 from .show import print_assessment, print_design
 
 
@@ -18,13 +18,14 @@ def demo(
     out_dir: Annotated[Path, typer.Option("--out", help="folder for the demo's files")] = Path("kplan-demo"),
 ) -> None:
     """Run the built-in scenario through everything the tool does and say what it wrote."""
-    from ..inputs.files import write_atomic
+    from ..inputs.files import check_output_folder, write_atomic
     from ..inputs.recipe import parse_recipe_csv, recipe_to_csv
     from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
     from ..jobs.demo import demo_recipe_csv
     from ..jobs.design import design_study
 
+    check_output_folder(out_dir)  # before a minute of work, not after it
     text = scenario_text(DEMO_SCENARIO)
     p = parse_plan_text(text, source=f"scenario {DEMO_SCENARIO}")
     study = compile_study(p)  # once for every step of the demo
@@ -35,22 +36,22 @@ def demo(
     r_even = parse_recipe_csv(csv_text, p)
     a_even = assess_study(study, r_even, trials=2000, seed=0)
     print_assessment(a_even, p)
-    written.append(write_atomic(out_dir / "assessment-even.json", json.dumps(a_even.summary(), indent=2) + "\n"))
+    written.append(write_atomic(out_dir / "assessment-even.json", dump_json(a_even.summary()) + "\n"))
     out.rule("2. the designed recipe")
     d = design_study(study, seed=0)
     print_design(d, p)
     written.append(write_atomic(out_dir / "recipe.csv", recipe_to_csv(d.recipe, p)))
-    written.append(write_atomic(out_dir / "design.json", json.dumps(d.summary(), indent=2) + "\n"))
+    written.append(write_atomic(out_dir / "design.json", dump_json(d.summary()) + "\n"))
     out.rule("3. the designed recipe, assessed with Monte Carlo")
     a = assess_study(study, d.recipe, trials=2000, seed=0)
     print_assessment(a, p)
-    written.append(write_atomic(out_dir / "assessment.json", json.dumps(a.summary(), indent=2) + "\n"))
+    written.append(write_atomic(out_dir / "assessment.json", dump_json(a.summary()) + "\n"))
     written.extend(_demo_paper(p, d, a, out_dir))
     out.print("\n[bold]Wrote[/bold]")
     for w in written:
-        out.print(f"  {w}")
-    out.print(f"Try: kplan check {out_dir / 'plan.toml'}   kplan assess {out_dir / 'plan.toml'} "
-              f"{out_dir / 'recipe.csv'}")
+        out.print(f"  {S(w)}")
+    out.print(f"Try: kplan check {S(out_dir / 'plan.toml')}   kplan assess {S(out_dir / 'plan.toml')} "
+              f"{S(out_dir / 'recipe.csv')}")
 
 
 def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Annotated
 
@@ -10,7 +9,9 @@ import typer
 
 from ..inference.design_criteria import CRITERIA as DESIGN_CRITERIA
 from ..inputs.plan import load_plan
-from .app import UserError, app, out
+from .app import UserError, app, dump_json, out
+from .app import safe_text as S
+from .options import MAX_TUBES
 from .show import print_design
 
 
@@ -18,24 +19,27 @@ from .show import print_design
 def design(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and design.json")] = None,
-    tubes: Annotated[int | None, typer.Option(help="number of tubes (overrides design.tubes)", min=1)] = None,
+    tubes: Annotated[int | None, typer.Option(help="number of tubes (overrides design.tubes)", min=1,
+                                              max=MAX_TUBES)] = None,
     criterion: Annotated[str | None, typer.Option(
         help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)")] = None,
     robust: Annotated[bool | None, typer.Option(
         "--robust/--no-robust", help="average over the guesses' uncertainty (overrides design.robust)")] = None,
-    seed: Annotated[int, typer.Option(help="seed of the exchange algorithm's random starts")] = 0,
+    seed: Annotated[int, typer.Option(help="seed of the exchange algorithm's random starts", min=0)] = 0,
     as_json: Annotated[bool, typer.Option("--json", help="print the design summary as JSON")] = False,
     after: Annotated[Path | None, typer.Option(
         "--after", help="readings so far (recipe CSV + absorbance): fit them and design the next tubes")] = None,
 ) -> None:
     """Choose tube volumes on the glassware's grid that resolve K as precisely as possible
     (with --after: the next tubes, given what the readings so far taught)."""
-    from ..inputs.files import write_atomic
+    from ..inputs.files import check_output_folder, write_atomic_many
     from ..inputs.recipe import recipe_to_csv
     from ..jobs.design import design as run_design
 
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
+    if out_dir is not None:
+        check_output_folder(out_dir)  # before the search, not after it
     p = load_plan(plan)
     if p.titration is not None:
         return _titration(p, out_dir, tubes, robust, as_json)
@@ -44,21 +48,20 @@ def design(
     d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
     summary = d.summary()
     if out_dir is not None:
-        write_atomic(out_dir / "recipe.csv", recipe_to_csv(d.recipe, p))
-        write_atomic(out_dir / "design.json", json.dumps(summary, indent=2) + "\n")
+        # one unit: a recipe.csv beside a design.json from another run would be worse than neither
+        write_atomic_many({out_dir / "recipe.csv": recipe_to_csv(d.recipe, p),
+                           out_dir / "design.json": dump_json(summary) + "\n"})
     if as_json:
-        print(json.dumps(summary, indent=2))
+        print(dump_json(summary))
         return
     print_design(d, p)
     if out_dir is not None:
-        out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'design.json'}")
+        out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
 
 
 def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, as_json: bool) -> None:
     """``kplan design --after``: fit the readings so far, then design the next tubes or say to stop."""
-    from rich.markup import escape
-
-    from ..inputs.files import write_atomic
+    from ..inputs.files import write_atomic_many
     from ..inputs.readings import read_readings_csv
     from ..inputs.recipe import recipe_to_csv
     from ..jobs.compile import compile_study
@@ -70,18 +73,18 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
     summary = nb.design.summary() if nb.design is not None and not nb.stop else {}
     summary["sequential"] = nb.summary()
     if out_dir is not None and nb.design is not None and not nb.stop:
-        write_atomic(out_dir / "recipe.csv", recipe_to_csv(nb.design.recipe, p))
-        write_atomic(out_dir / "design.json", json.dumps(summary, indent=2) + "\n")
+        write_atomic_many({out_dir / "recipe.csv": recipe_to_csv(nb.design.recipe, p),
+                           out_dir / "design.json": dump_json(summary) + "\n"})
     if as_json:
-        print(json.dumps(summary, indent=2))
+        print(dump_json(summary))
         return
-    out.print(f"[bold]{escape(p.title)}[/bold] — after {nb.fit.recipe.n_tubes} readings")
+    out.print(f"[bold]{S(p.title)}[/bold] — after {nb.fit.recipe.n_tubes} readings")
     for n, e, se_ in zip(nb.fit.names, nb.fit.estimate, nb.fit.se, strict=True):
-        out.print(f"  {escape(n)} = {fmt.sig(float(e), 4)} ± {fmt.sig(float(se_), 2)}")
+        out.print(f"  {S(n)} = {fmt.sig(float(e), 4)} ± {fmt.sig(float(se_), 2)}")
     if nb.stop:
-        out.print(f"[yellow]stop:[/yellow] {escape(nb.reason)}")
+        out.print(f"[yellow]stop:[/yellow] {S(nb.reason)}")
         return
-    out.print(f"[bold]{escape(nb.reason)}[/bold]")
+    out.print(f"[bold]{S(nb.reason)}[/bold]")
     out.rule(f"the next {nb.design.recipe.n_tubes} tubes")
     print_design(nb.design, p)
     if out_dir is not None:
@@ -90,10 +93,9 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
 
 def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> None:
     """``kplan design`` for a plan with [titration]: the aliquot schedule."""
-    from rich.markup import escape
     from rich.table import Table
 
-    from ..inputs.files import write_atomic
+    from ..inputs.files import write_atomic_many
     from ..inputs.schedule import schedule_to_csv
     from ..jobs.compile import compile_study
     from ..jobs.titrate import design_titration
@@ -102,14 +104,14 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
     d = design_titration(compile_study(p), additions=additions, robust=robust)
     summary = d.summary()
     if out_dir is not None:
-        write_atomic(out_dir / "schedule.csv", schedule_to_csv(d.schedule))
-        write_atomic(out_dir / "design.json", json.dumps(summary, indent=2) + "\n")
+        write_atomic_many({out_dir / "schedule.csv": schedule_to_csv(d.schedule),
+                           out_dir / "design.json": dump_json(summary) + "\n"})
     if as_json:
-        print(json.dumps(summary, indent=2))
+        print(dump_json(summary))
         return
     t = d.study.bench.titration
-    out.print(f"[bold]{escape(p.title)}[/bold] — titration schedule")
-    out.print(f"cell: {t.start_volume_mL:g} mL of {escape(t.cell)}; titrant {escape(d.titrant)}; "
+    out.print(f"[bold]{S(p.title)}[/bold] — titration schedule")
+    out.print(f"cell: {t.start_volume_mL:g} mL of {S(t.cell)}; titrant {S(d.titrant)}; "
               f"{d.schedule.aliquot_mL.size} additions; {d.candidates} schedules tried, {d.feasible} inside the "
               f"linear range over the guess's range")
     tab = Table(title="Designed schedule")
@@ -117,13 +119,13 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
         tab.add_column(c, justify="right")
     rows = summary["tubes"]
     for i, step in enumerate(d.schedule.steps):
-        tab.add_row(escape(step), f"{d.schedule.aliquot_mL[i]:.3f}", f"{d.schedule.added_mL[i]:.3f}",
+        tab.add_row(S(step), f"{d.schedule.aliquot_mL[i]:.3f}", f"{d.schedule.added_mL[i]:.3f}",
                     f"{t.start_volume_mL + d.schedule.added_mL[i]:.3f}",
                     f"{rows[i]['absorbance']:.3f} ± {rows[i]['absorbance_sd']:.3f}")
     out.print(tab)
     ratio = d.se_ratio_vs_equal
     word = "better" if ratio >= 1 else "worse"
-    out.print(f"SE(log β[{escape(d.study.target)}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; equal "
+    out.print(f"SE(log β[{S(d.study.target)}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; equal "
               f"aliquots: {fmt.sig(d.se_equal, 2)} (×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})")
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'schedule.csv'} and {out_dir / 'design.json'}")

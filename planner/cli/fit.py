@@ -2,18 +2,17 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Annotated
 
 import numpy as np
 import typer
-from rich.markup import escape
 from rich.table import Table
 
 from ..inputs.plan import load_plan
 from ..paper import fmt
-from .app import app, out
+from .app import UserError, app, dump_json, out
+from .app import safe_text as S
 
 
 @app.command()
@@ -35,10 +34,11 @@ def fit(
     p = load_plan(plan)
     study = compile_study(p)
     skip = tuple(x.strip() for x in (exclude or "").split(",") if x.strip())
-    f = fit_study(study, read_points(readings, p, study, readings=True), exclude=skip,
-                  keep_out_of_range=keep_out_of_range)
+    data = read_points(readings, p, study, readings=True)
+    _check_absorbances(data, readings)
+    f = fit_study(study, data, exclude=skip, keep_out_of_range=keep_out_of_range)
     if as_json:
-        print(json.dumps(f.summary(), indent=2))
+        print(dump_json(f.summary()))
     else:
         _print_fit(f)
     if not f.determined:
@@ -46,11 +46,11 @@ def fit(
 
 
 def _print_fit(f) -> None:
-    out.print(f"[bold]{escape(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
+    out.print(f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
     for tube, why in f.excluded:
-        out.print(f"[yellow]left out[/yellow] {escape(tube)}: {escape(why)}")
+        out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}")
     if not f.determined:
-        out.print(f"[red]not determined:[/red] {escape(f.reason)}")
+        out.print(f"[red]not determined:[/red] {S(f.reason)}")
     t = Table(title="Fitted parameters")
     for c in ("parameter", "estimate", "SE", "95 % interval (profile)", "SE the plan promised"):
         t.add_column(c, justify="right")
@@ -59,7 +59,7 @@ def _print_fit(f) -> None:
         if n == f"log_beta[{f.target}]" and f.profile_ci95 is not None:
             lo, hi = f.profile_ci95
             ci = f"{fmt.sig(lo, 4) if lo is not None else '(open)'} – {fmt.sig(hi, 4) if hi is not None else '(open)'}"
-        t.add_row(escape(n), fmt.sig(float(e), 4), fmt.sig(float(se_), 2), ci, fmt.sig(float(pr), 2))
+        t.add_row(S(n), fmt.sig(float(e), 4), fmt.sig(float(se_), 2), ci, fmt.sig(float(pr), 2))
     out.print(t)
     if f.dof >= 1 and f.determined:
         out.print(f"χ² = {f.chi2:.2f} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, lower "
@@ -79,5 +79,18 @@ def _print_fit(f) -> None:
             zt = f"{z:+.2f}" if abs(z) <= 3 else f"[red]{z:+.2f} outlier[/red]"
         fa = f"{f.fitted[i]:.3f}" if np.isfinite(f.fitted[i]) else "—"
         rs = f"{f.residual[i]:+.4f}" if np.isfinite(f.residual[i]) else "—"
-        t.add_row(escape(tube), f"{f.absorbance[i]:.3f}", fa, rs, zt)
+        t.add_row(S(tube), f"{f.absorbance[i]:.3f}", fa, rs, zt)
     out.print(t)
+
+
+MAX_ABSORBANCE = 10.0  # no photometer reads beyond this; a larger number is a typo or another quantity
+
+
+def _check_absorbances(data, source: Path) -> None:
+    """Refuse a reading that is not a finite absorbance within ±MAX_ABSORBANCE, naming its tube."""
+    a = np.asarray(data.absorbance, dtype=float)
+    bad = np.flatnonzero(~np.isfinite(a) | (np.abs(a) > MAX_ABSORBANCE))
+    if bad.size:
+        i = int(bad[0])
+        raise UserError(f"{source}, tube {data.recipe.tubes[i]}: absorbance {a[i]:g} is not a reading: "
+                        f"write a finite number between {-MAX_ABSORBANCE:g} and {MAX_ABSORBANCE:g}")

@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Annotated
 
 import typer
 
 from ..inputs.plan import load_plan
-from .app import UserError, app, out
+from .app import UserError, app, dump_json, out
+from .app import safe_text as S
 
 
 @app.command()
@@ -25,7 +25,6 @@ def grade(
 ) -> None:
     """Grade a class: each student's readings against the key's bands, the pooled constant from every
     student not flagged, and the likely mix-up behind each flagged student."""
-    from rich.markup import escape
     from rich.table import Table
 
     from ..inputs.files import write_atomic, write_atomic_bytes
@@ -48,25 +47,25 @@ def grade(
         write_atomic_bytes(out_dir / "grades.xlsx", grades_xlsx(summary))
         write_atomic_bytes(out_dir / report_name, grade_report(summary, paper=paper, fmt_="html" if html else "pdf"))
     if as_json:
-        print(json.dumps(summary, indent=2, allow_nan=False))
+        print(dump_json(summary))
         return
-    out.print(f"[bold]{escape(g.title)}[/bold] — {len(g.students)} students")
+    out.print(f"[bold]{S(g.title)}[/bold] — {len(g.students)} students")
     pooled = summary["pooled"]
     if pooled is not None:
         for prm in pooled["parameters"]:
             ci = prm.get("profile_ci95")
-            out.print(f"pooled {escape(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
+            out.print(f"pooled {S(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
                       + (f" (95 % {fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)})" if ci and None not in ci else "")
-                      + f" from {pooled['students']} students; {escape(pooled['chi2_verdict'])}")
+                      + f" from {pooled['students']} students; {S(pooled['chi2_verdict'])}")
     t = Table(title="Students")
     for c in ("student", "name", "verdict", "in band", "own log β", "likely mix-up"):
         t.add_column(c)
     for s in summary["students"]:
         own = s["own_fit"]
         verdict = s["verdict"] if s["verdict"] != "flagged" else "[red]flagged[/red]"
-        t.add_row(escape(s["student"]), escape(s["name"]), verdict, f"{s['tubes_in_band']}/{s['tubes']}",
+        t.add_row(S(s["student"]), S(s["name"]), verdict, f"{s['tubes_in_band']}/{s['tubes']}",
                   f"{fmt.sig(own['log_beta'], 4)} ± {fmt.sig(own['se'], 2)}" if own else "—",
-                  escape(s["explanation"] or ""))
+                  S(s["explanation"] or ""))
     out.print(t)
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'grades.csv'}, {out_dir / 'grades.xlsx'} and the class report")

@@ -9,6 +9,7 @@ import typer
 
 from ..inputs.plan import parse_plan_text
 from .app import DEMO_SCENARIO, SCENARIOS, UserError, app, out, scenario_text
+from .app import safe_text as S
 
 
 @app.command()
@@ -18,11 +19,12 @@ def new(
     force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
 ) -> None:
     """Write a commented starter plan from a built-in scenario."""
-    from ..inputs.files import write_atomic
+    from ..inputs.files import check_output_file, write_atomic
 
     text = scenario_text(scenario)
+    check_output_file(path)
     if path.exists() and not force:
         raise UserError(f"{path} exists: choose another path or pass --force")
     parse_plan_text(text)  # the shipped scenarios must always validate
     write_atomic(path, text)
-    out.print(f"wrote {path} (scenario '{scenario}'); edit it, then run: kplan check {path}")
+    out.print(f"wrote {S(path)} (scenario '{scenario}'); edit it, then run: kplan check {S(path)}")

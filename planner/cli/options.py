@@ -1,9 +1,15 @@
-"""Helpers shared by the commands: ``--at`` parsing, reading a recipe or a titration schedule, and the
-Monte-Carlo progress bar."""
+"""Helpers shared by the commands: ``--at`` parsing, option limits, reading a recipe or a titration
+schedule, and the Monte-Carlo progress bar."""
 
 from __future__ import annotations
 
+import math
+
 from .app import UserError, err
+
+MAX_TRIALS = 100_000  # Monte-Carlo experiments: 2000 give an SE to a few per cent; far more only takes hours
+MAX_TUBES = 200       # tubes a design may have (the plan's design.tubes has the same limit)
+LOG_BETA_RANGE = (-50.0, 60.0)  # the plan's bound on log_beta
 
 
 def parse_at(items: list[str]) -> dict[str, float]:
@@ -14,9 +20,13 @@ def parse_at(items: list[str]) -> dict[str, float]:
         try:
             if not sep:
                 raise ValueError
-            out[name.strip()] = float(value)
+            x = float(value)
         except ValueError:
             raise UserError(f"--at {item}: write NAME=LOGBETA, e.g. --at ML=4.3") from None
+        lo, hi = LOG_BETA_RANGE
+        if not (math.isfinite(x) and lo <= x <= hi):
+            raise UserError(f"--at {item}: log β must be a finite number between {lo:g} and {hi:g}")
+        out[name.strip()] = x
     return out
 
 

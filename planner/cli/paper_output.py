@@ -7,14 +7,56 @@ from pathlib import Path
 
 from ..inputs.plan import load_plan
 from .app import UserError, out
+from .app import safe_text as S
 from .options import _with_progress, read_points
+
+MAX_DESIGN_JSON_BYTES = 1_000_000  # a design.json is a few kB
+# what the report shows of a design.json, with the JSON types each key may hold
+_DESIGN_KEYS = {"criterion": (str,), "efficiency_bound": (int, float), "se_ratio_vs_even": (int, float)}
+
+
+def read_design_json(path: Path) -> dict:
+    """The summary written by ``kplan design --out``, checked for what the report shows of it.
+
+    Raises
+    ------
+    UserError
+        For a file that cannot be read, is not JSON, is not a JSON object, or holds a shown key of the
+        wrong type.
+    """
+    where = f"--design {path}"
+    try:
+        with Path(path).open("rb") as fh:
+            raw = fh.read(MAX_DESIGN_JSON_BYTES + 1)
+    except OSError as exc:
+        raise UserError(f"{where}: cannot read it ({exc.strerror or exc}): check the path") from None
+    if len(raw) > MAX_DESIGN_JSON_BYTES:
+        raise UserError(f"{where}: larger than 1 MB, so not a design.json from kplan design")
+    try:
+        data = json.loads(raw.decode("utf-8-sig"))
+    except (UnicodeDecodeError, json.JSONDecodeError, RecursionError) as exc:
+        why = f"line {exc.lineno}: {exc.msg}" if isinstance(exc, json.JSONDecodeError) else "not UTF-8 JSON"
+        raise UserError(f"{where}: not readable as JSON ({why}): "
+                        "give the design.json kplan design wrote") from None
+    if not isinstance(data, dict):
+        kinds = {list: "an array", str: "a string", bool: "a boolean", type(None): "null"}
+        kind = kinds.get(type(data), "a number")
+        raise UserError(f"{where}: holds {kind}, not the JSON object kplan design writes: "
+                        "give the design.json from 'kplan design --out DIR'")
+    for key, types in _DESIGN_KEYS.items():
+        v = data.get(key)
+        if v is not None and (isinstance(v, bool) or not isinstance(v, types)):
+            raise UserError(f"{where}: key '{key}' holds {json.dumps(v)[:40]}, not a "
+                            f"{'string' if types == (str,) else 'number'}: "
+                            "give the design.json kplan design wrote")
+    return data
 
 PAPER_CHOICES = ("A4", "Letter")  # the same keys as planner.render.PAPERS (checked in the tests)
 
 
 def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: bool, paper: str, trials: int,
                   seed: int, design_json: Path | None = None) -> None:
-    from ..inputs.files import write_atomic_bytes
+    from ..inputs.files import check_output_file, write_atomic_bytes
     from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
     from ..jobs.stock_needs import stock_needs
@@ -26,6 +68,9 @@ def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: boo
     if paper not in PAPERS:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
     fmt_ = "html" if html else "pdf"
+    # every input and the output path are checked before the Monte Carlo, which may take a while
+    check_output_file(out_path)
+    design_summary = read_design_json(design_json) if design_json is not None else None
     p = load_plan(plan)
     study = compile_study(p)
     r = read_points(recipe, p, study)
@@ -40,12 +85,6 @@ def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: boo
     elif kind == "sheet":
         data = render_sheet(p, r, a, stock_needs(p, r), paper=paper, fmt=fmt_, order=p.glassware.order)
     else:
-        design_summary = None
-        if design_json is not None:
-            try:
-                design_summary = json.loads(design_json.read_text(encoding="utf-8"))
-            except (OSError, json.JSONDecodeError) as exc:
-                raise UserError(f"--design {design_json}: cannot read it as the JSON from kplan design ({exc})") from None
         data = render_report(p, r, a, design=design_summary, paper=paper, fmt=fmt_)
     write_atomic_bytes(out_path, data)
-    out.print(f"wrote {out_path} ({len(data) / 1024:.0f} kB, {paper})")
+    out.print(f"wrote {S(out_path)} ({len(data) / 1024:.0f} kB, {paper})")

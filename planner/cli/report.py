@@ -8,6 +8,7 @@ from typing import Annotated
 import typer
 
 from .app import app
+from .options import MAX_TRIALS
 from .paper_output import PAPER_CHOICES, _paper_output
 
 
@@ -18,8 +19,8 @@ def report(
     out_path: Annotated[Path, typer.Option("--out", help="where to write the report")] = Path("report.pdf"),
     html: Annotated[bool, typer.Option("--html", help="write HTML instead of PDF")] = False,
     paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}")] = "A4",
-    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments", min=0)] = 2000,
-    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers")] = 0,
+    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments", min=0, max=MAX_TRIALS)] = 2000,
+    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0)] = 0,
     design_json: Annotated[Path | None, typer.Option("--design", help="design.json from kplan design")] = None,
 ) -> None:
     """Print the design report: verdict, recipe, plots, checks with fixes, parameters and correlations."""

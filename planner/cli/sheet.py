@@ -8,6 +8,7 @@ from typing import Annotated
 import typer
 
 from .app import app
+from .options import MAX_TRIALS
 from .paper_output import PAPER_CHOICES, _paper_output
 
 
@@ -18,8 +19,9 @@ def sheet(
     out_path: Annotated[Path, typer.Option("--out", help="where to write the prep sheet")] = Path("prep.pdf"),
     html: Annotated[bool, typer.Option("--html", help="write HTML instead of PDF")] = False,
     paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}")] = "A4",
-    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments behind the bands", min=0)] = 500,
-    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers")] = 0,
+    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments behind the bands", min=0,
+                                        max=MAX_TRIALS)] = 500,
+    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0)] = 0,
 ) -> None:
     """Print the prep sheet: stocks and how to make them, each tube's volumes in order, expected
     absorbance with its band, a measurement checklist and the safety notes."""

@@ -5,28 +5,28 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from rich.markup import escape
 from rich.table import Table
 
 from ..paper import fmt
 from .app import out
+from .app import safe_text as S
 
 
 def print_assessment(a, p) -> None:
     """Rich tables of an assessment: verdict first, then parameters, checks and tubes."""
-    out.print(f"[bold]{escape(a.title)}[/bold]")
+    out.print(f"[bold]{S(a.title)}[/bold]")
     vcol = {"resolved": "green", "bounded": "yellow", "unresolved": "red"}
     if a.verdict:
-        out.print(f"Verdict: [bold {vcol[a.verdict]}]{a.verdict}[/] — {escape(a.verdict_reason)}")
+        out.print(f"Verdict: [bold {vcol[a.verdict]}]{a.verdict}[/] — {S(a.verdict_reason)}")
     elif a.verdict_reason:
-        out.print(escape(a.verdict_reason))
+        out.print(S(a.verdict_reason))
     if a.parameters:
         t = Table(title="Parameters")
         for c in ("parameter", "guess", "assumed true", "SE (Cramér–Rao)", "MC sd", "MC bias", "MC 95 %"):
             t.add_column(c, justify="right")
         for q in a.parameters:
             ci = q.get("mc_ci95")
-            t.add_row(q["name"], fmt.sig(q["guess"], 4), fmt.sig(q["true"], 4), fmt.sig(q["se"], 2),
+            t.add_row(S(q["name"]), fmt.sig(q["guess"], 4), fmt.sig(q["true"], 4), fmt.sig(q["se"], 2),
                       fmt.sig(q.get("mc_sd"), 2), fmt.sig(q.get("mc_bias"), 2),
                       f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—")
         out.print(t)
@@ -34,9 +34,9 @@ def print_assessment(a, p) -> None:
             t = Table(title="Correlations")
             t.add_column("")
             for n in a.params.names:
-                t.add_column(n, justify="right")
+                t.add_column(S(n), justify="right")
             for i, n in enumerate(a.params.names):
-                t.add_row(n, *(fmt.sig(x, 2) for x in a.cramer_rao.corr[i]))
+                t.add_row(S(n), *(fmt.sig(x, 2) for x in a.cramer_rao.corr[i]))
             out.print(t)
         if a.mc is not None and a.mc.failed_fraction > 0:
             out.print(f"Monte Carlo: {a.mc.failed_fraction:.1%} of fits failed")
@@ -47,7 +47,7 @@ def print_assessment(a, p) -> None:
             side.append("cannot be told from K → 0")
         if pr.high_unbounded:
             side.append("cannot be told from K → ∞")
-        out.print(f"χ² profile of log β[{p.target}] (other parameters refitted; 3.84 = 95 % threshold)"
+        out.print(f"χ² profile of log β[{S(p.target)}] (other parameters refitted; 3.84 = 95 % threshold)"
                   + (f" — {'; '.join(side)}" if side else ""))
         t = Table(show_header=True, box=None, pad_edge=False)
         picks = np.unique(np.linspace(0, pr.log_beta.size - 1, 9).round().astype(int))
@@ -62,14 +62,14 @@ def print_assessment(a, p) -> None:
     for c in ("check", "status", "what was found / what to do"):
         t.add_column(c)
     for c in a.checks:
-        t.add_row(c.id, f"[{colour[c.status]}]{c.status}[/]", escape(c.message))
+        t.add_row(S(c.id), f"[{colour[c.status]}]{c.status}[/]", S(c.message))
     out.print(t)
     m = a.model
     r = a.recipe
     dispensed = r.dispensed_ids(p)
     t = Table(title="Tubes")
-    for c in ("tube", *(f"{s} / mL" for s in dispensed), "M tot", "L tot",
-              *(m.species), "A ± sd", "saturation", "I / M"):
+    for c in ("tube", *(f"{S(s)} / mL" for s in dispensed), "M tot", "L tot",
+              *(S(x) for x in m.species), "A ± sd", "saturation", "I / M"):
         t.add_column(c, justify="right")
     rows = a.tube_rows()
     lo, hi = m.linear_range
@@ -80,7 +80,7 @@ def print_assessment(a, p) -> None:
         a_txt = f"{A:.3f} ± {rows[i]['absorbance_sd']:.3f}"
         if not lo <= A <= hi:
             a_txt = f"[red]{a_txt} out[/red]"
-        t.add_row(escape(tube), *(fmt.volume(r.column(s)[i], step) for s in dispensed),
+        t.add_row(S(tube), *(fmt.volume(r.column(s)[i], step) for s in dispensed),
                   fmt.conc(st.totals_M[i, 0]), fmt.conc(st.totals_M[i, 1]),
                   *(fmt.conc(st.species_M[i, k]) for k in range(len(m.species))),
                   a_txt, f"{st.saturation[i]:.2f}", f"{st.ionic_strength_M[i]:.3g}")
@@ -90,21 +90,22 @@ def print_assessment(a, p) -> None:
 def print_design(d, p) -> None:
     """The designed recipe, its promise and the comparison with an evenly spaced series."""
     s = d.summary()
-    out.print(f"[bold]{escape(p.title)}[/bold] — design")
+    out.print(f"[bold]{S(p.title)}[/bold] — design")
     out.print(f"criterion {d.criterion}, {'robust over the guess' if d.robust else 'at the guess only'}, "
               f"{d.recipe.n_tubes} tubes, seed {d.seed}; {d.n_candidates} candidate tubes on the grid, "
               f"{d.n_feasible} inside the linear range over the guess's range")
     for note in d.notes:
-        out.print(f"[yellow]note:[/yellow] {escape(note)}")
+        out.print(f"[yellow]note:[/yellow] {S(note)}")
     t = Table(title="Designed recipe")
     dispensed = d.recipe.dispensed_ids(p)
-    for c in ("tube", *(f"{x} / mL" for x in dispensed), "A ± sd", "saturation"):
+    for c in ("tube", *(f"{S(x)} / mL" for x in dispensed), "A ± sd", "saturation"):
         t.add_column(c, justify="right")
     for i, row in enumerate(s["tubes"]):
-        t.add_row(row["tube"], *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
+        t.add_row(S(row["tube"]),
+                  *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
                   f"{row['absorbance']:.3f} ± {row['absorbance_sd']:.3f}", f"{row['saturation']:.2f}")
     out.print(t)
-    target = p.target
+    target = S(p.target)
     out.print(f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
               f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} (×{fmt.sig(d.se_ratio_vs_even, 2)} better); "
               f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these candidates")
@@ -121,24 +122,24 @@ def print_design(d, p) -> None:
         for c in ("if the system also formed", "designed recipe", "target-only design"):
             t.add_column(c, justify="right")
         for g, tonly in mc.detection:
-            t.add_row(escape(g.alternative), f"{g.power:.0%}", f"{tonly.power:.0%}")
+            t.add_row(S(g.alternative), f"{g.power:.0%}", f"{tonly.power:.0%}")
         out.print(t)
         out.print(f"share of simulated experiments whose χ² test rejects the main model; the check costs "
                   f"×{fmt.sig(mc.se_cost_ratio, 3)} in SE(log β[{target}]) "
                   f"({fmt.sig(mc.se_target_only, 2)} → {fmt.sig(mc.se_guarded, 2)}), {mc.moves} tubes moved")
     bad = [c for c in s["checks"] if c["status"] != "pass"]
     for c in bad:
-        out.print(f"[yellow]{c['id']}[/yellow]: {escape(c['message'])}")
+        out.print(f"[yellow]{S(c['id'])}[/yellow]: {S(c['message'])}")
 
 
 def print_stock_needs(p, needs, with_recipe: bool) -> None:
-    out.print(f"[bold]{p.title}[/bold] — stocks")
+    out.print(f"[bold]{S(p.title)}[/bold] — stocks")
     t = Table(title="Preparation")
     for c in ("stock", "concentration", "how to make it", "u (rel.)", "plan assumes"):
         t.add_column(c)
     for n in needs:
         s = p.stock_by_id(n.id)
-        conc = ", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—"
+        conc = S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—")
         if n.preparation is not None:
             pr = n.preparation
             how = (f"weigh {pr.mass_g:.4f} g {pr.formula} (FW {pr.formula_weight_g_mol:.2f}), dissolve and make up "
@@ -146,17 +147,17 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
             for st in pr.steps:
                 how += (f"; then {st.pipette.capacity_mL:g} mL of it to {st.flask.capacity_mL:g} mL "
                         f"({fmt.conc(st.to_conc_M)})")
-            how = escape(how)
+            how = S(how)
             if pr.mass_g < pr.min_weight_g:
                 how += f" [red](below the {pr.min_weight_g:.3f} g minimum weight)[/red]"
             u = f"{pr.u_rel:.2%}"
             flag = "" if n.plan_rsd >= pr.u_rel * 0.999 else " [yellow](below what weighing gives)[/yellow]"
             assumed = f"{n.plan_rsd:.2%}{flag}"
         else:
-            how = escape(n.problem or ("diluent" if s.diluent else
+            how = S(n.problem or ("diluent" if s.diluent else
                                        "no formula given: add formula = '...' to compute the mass"))
             u, assumed = "—", f"{n.plan_rsd:.2%}"
-        t.add_row(n.id, conc, how, u, assumed)
+        t.add_row(S(n.id), conc, how, u, assumed)
     out.print(t)
     if with_recipe:
         t = Table(title="Volumes needed (recipe + rinse + dead volume)")
@@ -165,6 +166,6 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
         for n in needs:
             ok = n.enough
             mark = "" if ok is None else ("[green]enough[/green]" if ok else "[red]NOT ENOUGH: make more[/red]")
-            t.add_row(n.id, f"{n.recipe_mL:.2f}", str(n.deliveries), f"{n.needed_mL:.1f}",
+            t.add_row(S(n.id), f"{n.recipe_mL:.2f}", str(n.deliveries), f"{n.needed_mL:.1f}",
                       f"{n.on_hand_mL:g}" if n.on_hand_mL is not None else "—", mark)
         out.print(t)

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Annotated
 
@@ -10,7 +9,7 @@ import typer
 
 from ..inputs.plan import load_plan
 from ..inputs.recipe import read_recipe_csv
-from .app import app
+from .app import app, dump_json
 from .show import print_stock_needs
 
 
@@ -27,6 +26,6 @@ def stocks(
     r = read_recipe_csv(recipe, p) if recipe else None
     needs = stock_needs(p, r)
     if as_json:
-        print(json.dumps({"title": p.title, "stocks": [n.summary() for n in needs]}, indent=2))
+        print(dump_json({"title": p.title, "stocks": [n.summary() for n in needs]}))
         return
     print_stock_needs(p, needs, r is not None)

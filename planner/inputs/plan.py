@@ -3,19 +3,24 @@
 A plan describes one metal–ligand study (components, species and their guessed constants, optics,
 stocks, glassware, design goals). :func:`load_plan` reads and validates it; every problem becomes a
 single :class:`PlanError` naming the key path, what was wrong and how to fix it.
+
+Every number is checked at the schema: finite, not a boolean, and inside a physically generous range
+(the range is stated in the message); the table of ranges is in :mod:`planner.inputs.plan_fields`.
+
+Limits on the input itself: a plan file of at most :data:`MAX_PLAN_BYTES` bytes, nested at most
+:data:`MAX_DEPTH` levels deep; titles and labels of at most 200 characters; identifiers (stock ids,
+species and ion names) of at most 40 printable characters (see :mod:`planner.inputs.text`).
 """
 
 from __future__ import annotations
 
 import difflib
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import Any, Literal
 
 import tomllib
 from pydantic import (
     BaseModel,
-    BeforeValidator,
-    ConfigDict,
     Field,
     ValidationError,
     field_validator,
@@ -23,13 +28,41 @@ from pydantic import (
 )
 
 from .names import ion_charge, unknown_name
-from .units import UnitError, parse_quantity
+from .plan_fields import (
+    Absorbance,
+    Charge,
+    Conc,
+    Epsilon_,
+    Fraction,
+    FractionBelow1,
+    IonicStrength,
+    IonicStrengthTarget,
+    LogBeta,
+    Mass,
+    RelSD,
+    SizeA,
+    SpeciesName,
+    StockId,
+    Stoich,
+    Text,
+    Volume,
+    VolumeOrZero,
+    Wavelength,
+    _int,
+    _num,
+    _Strict,
+)
+from .text import check_identifier
 
 COMPONENTS = ("M", "L", "H")
 DISPENSER_KINDS = ("burette", "pipette", "graduated-pipette", "micropipette")
 MAKE_UP_MODES = ("to-mark", "added")
 CRITERIA = ("target", "all")
 ACTIVITY_MODELS = ("davies", "extended-dh", "none")
+
+MAX_PLAN_BYTES = 1_000_000  # a plan is a page of TOML; anything this large is not one
+MAX_DEPTH = 50              # nesting levels of tables and arrays; a plan needs about 4
+MAX_GRID_LEVELS = 20_000    # grid volumes per stock (tube_volume / step); the design enumerates them
 
 
 class PlanError(ValueError):
@@ -49,49 +82,19 @@ class PlanError(ValueError):
         super().__init__(f"{key}: {message}" if key else message)
 
 
-def _conc(v: Any) -> float:
-    try:
-        return parse_quantity(v, "concentration")
-    except UnitError as exc:
-        raise ValueError(str(exc)) from None
-
-
-def _vol(v: Any) -> float:
-    try:
-        return parse_quantity(v, "volume")
-    except UnitError as exc:
-        raise ValueError(str(exc)) from None
-
-
-def _mass(v: Any) -> float:
-    try:
-        return parse_quantity(v, "mass")
-    except UnitError as exc:
-        raise ValueError(str(exc)) from None
-
-
-Conc = Annotated[float, BeforeValidator(_conc)]
-Volume = Annotated[float, BeforeValidator(_vol)]
-Mass = Annotated[float, BeforeValidator(_mass)]
-
-
-class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
-
-
 class Component(_Strict):
     """A metal or ligand component: a label for people and its charge (for ionic strength)."""
 
-    label: str = ""
-    charge: int = 0
-    size_angstrom: float | None = Field(default=None, alias="size_A", gt=0)
+    label: Text = ""
+    charge: Charge = 0
+    size_angstrom: SizeA | None = Field(default=None, alias="size_A")
 
 
 class Protons(_Strict):
     """Protons held at a buffered pH: folded into conditional constants."""
 
-    pH: float = Field(ge=-2, le=16)
-    size_angstrom: float = Field(default=9.0, alias="size_A", gt=0)
+    pH: _num(-2, 16)
+    size_angstrom: SizeA = Field(default=9.0, alias="size_A")
 
 
 class Components(_Strict):
@@ -101,11 +104,11 @@ class Components(_Strict):
 
 
 class Species(_Strict):
-    name: str = Field(min_length=1)
-    formula: dict[str, int]
-    log_beta: float
-    log_beta_sd: float = Field(default=0.0, ge=0)
-    size_angstrom: float | None = Field(default=None, alias="size_A", gt=0)
+    name: SpeciesName
+    formula: dict[str, Stoich]
+    log_beta: LogBeta
+    log_beta_sd: _num(0, 10) = 0.0
+    size_angstrom: SizeA | None = Field(default=None, alias="size_A")
 
     @field_validator("formula")
     @classmethod
@@ -125,39 +128,39 @@ class Species(_Strict):
 class Alternative(_Strict):
     """A species the main model leaves out, which the design should be able to detect (e.g. ML2)."""
 
-    name: str = Field(min_length=1)
-    formula: dict[str, int]
-    log_beta: float
-    epsilon: float | None = Field(default=None, ge=0)
+    name: SpeciesName
+    formula: dict[str, Stoich]
+    log_beta: LogBeta
+    epsilon: Epsilon_ | None = None
 
     _formula = field_validator("formula")(Species._formula.__func__)
 
 
 class Epsilon(_Strict):
-    value: float = Field(ge=0)
-    rsd: float = Field(default=0.0, ge=0)
+    value: Epsilon_
+    rsd: RelSD = 0.0
 
 
 class Noise(_Strict):
-    k1: float = Field(default=0.003, ge=0)
-    k2: float = Field(default=0.0, ge=0)
-    k3: float = Field(default=0.0, ge=0)
+    k1: Fraction = 0.003
+    k2: Fraction = 0.0
+    k3: Fraction = 0.0
 
 
 class Band(_Strict):
-    peak_nm: float = Field(gt=0)
-    fwhm_nm: float = Field(gt=0)
-    epsilon_max: float = Field(ge=0)
+    peak_nm: Wavelength
+    fwhm_nm: _num(0, 2000, "nm", lo_open=True)
+    epsilon_max: Epsilon_
 
 
 class Optics(_Strict):
-    wavelength_nm: float = Field(gt=0)
-    path_cm: float = Field(default=1.0, gt=0)
-    linear_range: tuple[float, float] = (0.1, 1.0)
-    stray_light: float = Field(default=0.0, ge=0, lt=1)
+    wavelength_nm: Wavelength
+    path_cm: _num(0, 100, "cm", lo_open=True) = 1.0
+    linear_range: tuple[Absorbance, Absorbance] = (0.1, 1.0)
+    stray_light: FractionBelow1 = 0.0
     noise: Noise = Noise()
-    display_step: float = Field(default=0.0, ge=0)
-    bandwidth_nm: float | None = Field(default=None, gt=0)
+    display_step: _num(0, 1) = 0.0
+    bandwidth_nm: _num(0, 500, "nm", lo_open=True) | None = None
     epsilon: dict[str, Epsilon] = Field(default_factory=dict)
     bands: dict[str, Band] = Field(default_factory=dict)
 
@@ -173,15 +176,15 @@ class Optics(_Strict):
 
 
 class Stock(_Strict):
-    id: str = Field(min_length=1)
-    label: str = ""
+    id: StockId
+    label: Text = ""
     conc: dict[str, Conc] = Field(default_factory=dict)
     ions: dict[str, Conc] = Field(default_factory=dict)
-    conc_rsd: float = Field(default=0.0, ge=0, lt=1)
+    conc_rsd: FractionBelow1 = 0.0
     on_hand: Volume | None = None
-    reagent: str | None = None
-    formula: str | None = None
-    purity: float | None = Field(default=None, gt=0, le=1)
+    reagent: Text | None = None
+    formula: Text | None = None
+    purity: _num(0, 1, lo_open=True) | None = None
     flask_mL: Volume | None = Field(default=None, alias="flask")
     diluent: bool = False
     background: bool = False
@@ -201,6 +204,7 @@ class Stock(_Strict):
     def _ions(cls, v: dict[str, float]) -> dict[str, float]:
         for ion, c in v.items():
             try:
+                check_identifier(ion, "ion name")
                 ion_charge(ion)
             except ValueError as exc:
                 raise PlanError(ion, str(exc)) from None
@@ -208,18 +212,11 @@ class Stock(_Strict):
                 raise PlanError(ion, f"{c:g} M: concentrations must be positive (or leave it out)")
         return v
 
-    @field_validator("on_hand")
-    @classmethod
-    def _on_hand(cls, v: float | None) -> float | None:
-        if v is not None and not v > 0:
-            raise ValueError(f"on_hand = {v} mL must be positive")
-        return v
-
 
 class Flask(_Strict):
     capacity_mL: Volume = Field(alias="capacity")
     cls: Literal["A", "B"] = Field(default="A", alias="class")
-    tolerance_mL: Volume | None = Field(default=None, alias="tolerance")
+    tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
 
 
 class Balance(_Strict):
@@ -237,15 +234,8 @@ class Dispenser(_Strict):
     kind: Literal["burette", "pipette", "graduated-pipette", "micropipette"]
     capacity_mL: Volume = Field(alias="capacity")
     cls: Literal["A", "B"] = Field(default="A", alias="class")
-    tolerance_mL: Volume | None = Field(default=None, alias="tolerance")
+    tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
     stocks: list[str] = Field(min_length=1)
-
-    @field_validator("capacity_mL")
-    @classmethod
-    def _cap(cls, v: float) -> float:
-        if not v > 0:
-            raise ValueError(f"capacity = {v} mL must be positive")
-        return v
 
 
 class Glassware(_Strict):
@@ -253,78 +243,75 @@ class Glassware(_Strict):
     make_up: Literal["to-mark", "added"] = "to-mark"
     flask: Flask | None = None
     step_mL: Volume = Field(default=0.05, alias="step")
-    min_volume_mL: Volume = Field(default=0.0, alias="min_volume")
-    rinse_mL: Volume = Field(default=2.0, alias="rinse")
-    dead_volume_mL: Volume = Field(default=1.0, alias="dead_volume")
-    make_up_min_mL: Volume | None = Field(default=None, alias="make_up_min")
-    delta_T_C: float = Field(default=0.0, ge=-30, le=30)
+    min_volume_mL: VolumeOrZero = Field(default=0.0, alias="min_volume")
+    rinse_mL: VolumeOrZero = Field(default=2.0, alias="rinse")
+    dead_volume_mL: VolumeOrZero = Field(default=1.0, alias="dead_volume")
+    make_up_min_mL: VolumeOrZero | None = Field(default=None, alias="make_up_min")
+    delta_T_C: _num(-30, 30, "°C") = 0.0
     balance: Balance = Balance()
     order: list[str] | None = None
     dispenser: list[Dispenser] = Field(default_factory=list)
 
     @model_validator(mode="after")
-    def _positive(self) -> Glassware:
-        if not self.tube_volume_mL > 0:
-            raise ValueError(f"tube_volume = {self.tube_volume_mL} mL must be positive")
-        if not self.step_mL > 0:
-            raise ValueError(f"step = {self.step_mL} mL must be positive, e.g. step = '0.05 mL'")
-        if self.min_volume_mL < 0:
-            raise ValueError(f"min_volume = {self.min_volume_mL} mL must not be negative")
-        if self.make_up_min_mL is not None and not 0 <= self.make_up_min_mL < self.tube_volume_mL:
-            raise ValueError(f"make_up_min = {self.make_up_min_mL} mL must be ≥ 0 and below tube_volume "
-                             f"({self.tube_volume_mL} mL), e.g. make_up_min = '0.5 mL'")
+    def _grid(self) -> Glassware:
+        # the design enumerates every grid volume of every stock: a step far below the tube volume
+        # would ask for millions of levels (and as many candidate tubes per stock)
+        levels = self.tube_volume_mL / self.step_mL
+        if levels > MAX_GRID_LEVELS:
+            raise PlanError("step", f"{self.step_mL:g} mL gives {levels:.3g} grid levels up to tube_volume = "
+                            f"{self.tube_volume_mL:g} mL; at most {MAX_GRID_LEVELS}: use a step of at least "
+                            f"{self.tube_volume_mL / MAX_GRID_LEVELS:.2g} mL")
+        if self.make_up_min_mL is not None and not self.make_up_min_mL < self.tube_volume_mL:
+            raise PlanError("make_up_min", f"{self.make_up_min_mL:g} mL must be below tube_volume "
+                            f"({self.tube_volume_mL:g} mL), e.g. make_up_min = '0.5 mL'")
         return self
 
 
 class Titration(_Strict):
     """An in-cuvette titration: a start volume of one stock in the cell, aliquots of another added to it."""
 
-    cell: str = Field(min_length=1)
-    titrant: str = Field(min_length=1)
+    cell: StockId
+    titrant: StockId
     start_volume_mL: Volume = Field(alias="start_volume")
     max_volume_mL: Volume = Field(alias="max_volume")
-    additions: int = Field(default=12, ge=1, le=60)
+    additions: _int(1, 60) = 12
     step_mL: Volume | None = Field(default=None, alias="step")
-    equilibrate: str = Field(default="mix, then wait 1 min before reading", max_length=200)
+    equilibrate: Text = "mix, then wait 1 min before reading"
 
     @model_validator(mode="after")
     def _volumes(self) -> Titration:
-        if not self.start_volume_mL > 0:
-            raise ValueError(f"start_volume = {self.start_volume_mL} mL must be positive")
         if not self.max_volume_mL > self.start_volume_mL:
-            raise ValueError(f"max_volume = {self.max_volume_mL} mL must exceed start_volume = "
-                             f"{self.start_volume_mL} mL: leave room for the additions")
-        if self.step_mL is not None and not self.step_mL > 0:
-            raise ValueError(f"step = {self.step_mL} mL must be positive, e.g. step = '0.005 mL'")
+            raise PlanError("max_volume", f"{self.max_volume_mL:g} mL must exceed start_volume = "
+                            f"{self.start_volume_mL:g} mL: leave room for the additions")
         return self
 
 
 class Medium(_Strict):
     activity_model: Literal["davies", "extended-dh", "none"] = "davies"
-    reference_ionic_strength_M: Conc | None = Field(default=None, alias="reference_ionic_strength")
+    reference_ionic_strength_M: IonicStrength | None = Field(default=None, alias="reference_ionic_strength")
 
 
 class Design(_Strict):
-    tubes: int = Field(default=8, ge=1, le=200)
+    tubes: _int(1, 200) = 8
     target: str | None = None
     criterion: Literal["target", "all"] = "target"
     robust: bool = True
-    goal_se: float = Field(default=0.05, gt=0)
-    fixed: dict[str, Volume] = Field(default_factory=dict)
+    goal_se: _num(0, 5, lo_open=True) = 0.05
+    fixed: dict[str, VolumeOrZero] = Field(default_factory=dict)
     blank_offset: bool = False
-    ionic_strength_M: Conc | None = Field(default=None, alias="ionic_strength")
-    ionic_strength_tolerance: float = Field(default=0.02, gt=0, lt=1)
+    ionic_strength_M: IonicStrengthTarget | None = Field(default=None, alias="ionic_strength")
+    ionic_strength_tolerance: _num(0, 1, lo_open=True, hi_open=True) = 0.02
     analysis: Literal["global", "double-reciprocal", "one-to-one"] = "global"
     check: Literal["auto", "none"] = "auto"
-    check_weight: float = Field(default=0.25, ge=0, lt=1)
+    check_weight: _num(0, 1, hi_open=True) = 0.25
     alternative: list[Alternative] = Field(default_factory=list)
 
 
 class Plan(_Strict):
     """A validated plan; quantities are floats in mol/L and mL (names carry the unit)."""
 
-    title: str = "untitled study"
-    temperature_C: float = Field(default=25.0, ge=0, le=100)
+    title: Text = "untitled study"
+    temperature_C: _num(-20, 150, "°C") = 25.0
     components: Components
     species: list[Species] = Field(min_length=1)
     optics: Optics
@@ -349,14 +336,6 @@ class Plan(_Strict):
                     f"species[{i}].formula",
                     "uses H but the plan has no [components.H]: add H = { pH = ... } under [components]",
                 )
-        alt_names = [a.name for a in self.design.alternative]
-        for i, alt in enumerate(self.design.alternative):
-            key = f"design.alternative[{i}]"
-            if alt.name in reserved or alt.name in names or alt_names.count(alt.name) > 1:
-                raise PlanError(f"{key}.name", f"'{alt.name}' is already a component or species: give the "
-                                "alternative species a name of its own, e.g. 'ML2'")
-            if alt.formula.get("H", 0) and self.components.H is None:
-                raise PlanError(f"{key}.formula", "uses H but the plan has no [components.H]")
         absorbers = set(names) | {"M", "L"}
         for key in self.optics.epsilon:
             if key not in absorbers:
@@ -398,9 +377,10 @@ class Plan(_Strict):
         for sid in self.design.fixed:
             if sid not in ids:
                 raise PlanError(f"design.fixed.{sid}", unknown_name("stock id", sid, ids))
-        for sid, v in self.design.fixed.items():
-            if v < 0:
-                raise PlanError(f"design.fixed.{sid}", f"{v} mL is negative")
+        dil = self.diluent
+        if dil is not None and self.glassware.make_up == "to-mark" and dil.id in self.design.fixed:
+            raise PlanError(f"design.fixed.{dil.id}", "the diluent fills each tube to the mark under "
+                            "make_up = 'to-mark', so its volume cannot be fixed: remove it from design.fixed")
         fixed_total = sum(self.design.fixed.values())
         if fixed_total > self.glassware.tube_volume_mL * (1 + 1e-12):
             raise PlanError(
@@ -414,8 +394,22 @@ class Plan(_Strict):
             raise PlanError("stock", "no stock contains the metal M: give one stock conc = { M = '...' }")
         if not any(s.conc.get("L") for s in self.stock):
             raise PlanError("stock", "no stock contains the ligand L: give one stock conc = { L = '...' }")
+        self._cross_extras(names, reserved)
+        return self
+
+    def _cross_extras(self, names: list[str], reserved: set[str]) -> None:
+        """Alternative species of the model check and the titration table, each naming its key."""
+        alt_names = [a.name for a in self.design.alternative]
+        for i, alt in enumerate(self.design.alternative):
+            key = f"design.alternative[{i}]"
+            if alt.name in reserved or alt.name in names or alt_names.count(alt.name) > 1:
+                raise PlanError(f"{key}.name", f"'{alt.name}' is already a component or species: give the "
+                                "alternative species a name of its own, e.g. 'ML2'")
+            if alt.formula.get("H", 0) and self.components.H is None:
+                raise PlanError(f"{key}.formula", "uses H but the plan has no [components.H]")
         if self.titration is not None:
             t = self.titration
+            ids = [s.id for s in self.stock]
             for key, sid in (("cell", t.cell), ("titrant", t.titrant)):
                 if sid not in ids:
                     raise PlanError(f"titration.{key}", unknown_name("stock id", sid, ids))
@@ -424,7 +418,6 @@ class Plan(_Strict):
             if self.glassware.make_up != "added":
                 raise PlanError("glassware.make_up", "an in-cuvette titration adds every volume: set "
                                 "make_up = 'added'")
-        return self
 
     # -- convenience -------------------------------------------------------------------------------
     @property
@@ -496,8 +489,8 @@ def _inner_model(ann: Any) -> Any:
     return None
 
 
-def _first_error(exc: ValidationError) -> PlanError:
-    err = exc.errors()[0]
+def _first_error_of(err: Any) -> PlanError:
+    """One pydantic error (a dict) as a PlanError with the key path and a readable message."""
     loc = tuple(err.get("loc", ()))
     path = _loc_to_path(loc, Plan)
     kind = err.get("type", "")
@@ -509,7 +502,7 @@ def _first_error(exc: ValidationError) -> PlanError:
         return PlanError(path, f"unknown key{hint} (allowed here: {', '.join(allowed)})")
     if kind == "missing":
         return PlanError(path, "is required but missing: add it (see the README's plan-file keys)")
-    if kind in ("greater_than", "greater_than_equal") and "0" in msg:
+    if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
         return PlanError(path, f"{msg.lower()}, got {err.get('input')!r}")
     for prefix in ("Value error, ", "Assertion failed, "):
         if msg.startswith(prefix):
@@ -526,15 +519,22 @@ def parse_plan(data: dict[str, Any]) -> Plan:
     except PlanError:
         raise
     except ValidationError as exc:
+        errors = exc.errors()
+        # an unknown key first: a misspelt required key also shows up as "missing" under its real name,
+        # and the key the user actually wrote (with the nearest allowed one) is what helps
+        for err in errors:
+            if err.get("type") == "extra_forbidden":
+                raise _first_error_of(err) from None
         # a PlanError raised inside a validator arrives wrapped; keep its key path
-        for err in exc.errors():
+        for err in errors:
             ctx = err.get("ctx", {}) or {}
             inner = ctx.get("error")
             if isinstance(inner, PlanError):
                 return_path = _loc_to_path(tuple(err.get("loc", ())), Plan)
                 key = ".".join(p for p in (return_path, inner.key) if p)
                 raise PlanError(key, inner.message) from None
-        raise _first_error(exc) from None
+        present = [e for e in errors if e.get("type") != "missing"]
+        raise _first_error_of((present or errors)[0]) from None
 
 
 def load_plan(path: str | Path) -> Plan:
@@ -547,17 +547,52 @@ def load_plan(path: str | Path) -> Plan:
     """
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        with p.open("rb") as fh:
+            # read one byte past the limit rather than trusting stat(): /dev/zero and pipes have no size
+            raw = fh.read(MAX_PLAN_BYTES + 1)
     except FileNotFoundError:
         raise PlanError("", f"plan file '{p}' not found: check the path, or make one with 'kplan new'") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise PlanError("", f"cannot read plan file '{p}': {exc}") from None
+    except IsADirectoryError:
+        raise PlanError("", f"plan file '{p}' is a folder: give the path of a .toml file") from None
+    except OSError as exc:
+        raise PlanError("", f"cannot read plan file '{p}': {exc.strerror or exc}") from None
+    if len(raw) > MAX_PLAN_BYTES:
+        raise PlanError("", f"plan file '{p}' is larger than {MAX_PLAN_BYTES // 1_000_000} MB: "
+                        "a plan is a short TOML file; check that this is the right file")
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise PlanError("", f"plan file '{p}' is not UTF-8 text (byte {exc.start}): "
+                        "save it as UTF-8") from None
     return parse_plan_text(text, source=str(p))
 
 
 def parse_plan_text(text: str, source: str = "<plan>") -> Plan:
+    """Parse and validate the text of a plan; ``source`` names it in messages."""
+    # editors on some systems start UTF-8 files with a byte-order mark, which TOML does not allow
+    text = text.removeprefix("\ufeff")
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise PlanError("", f"{source}: TOML syntax error: {exc} — fix the line shown") from None
+    except RecursionError:
+        raise PlanError("", f"{source}: arrays or tables nested too deeply to read (at most {MAX_DEPTH} "
+                        "levels): a plan needs only a few") from None
+    depth = _depth(data)
+    if depth > MAX_DEPTH:
+        raise PlanError("", f"{source}: arrays or tables nested {depth} levels deep; at most {MAX_DEPTH}: "
+                        "a plan needs only a few")
     return parse_plan(data)
+
+
+def _depth(data: Any) -> int:
+    """Nesting depth of a parsed TOML document (iterative: a deep document must not exhaust the stack)."""
+    deepest, todo = 0, [(data, 1)]
+    while todo:
+        item, d = todo.pop()
+        deepest = max(deepest, d)
+        if isinstance(item, dict):
+            todo.extend((v, d + 1) for v in item.values())
+        elif isinstance(item, list):
+            todo.extend((v, d + 1) for v in item)
+    return deepest

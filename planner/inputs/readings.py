@@ -49,8 +49,13 @@ def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Rea
     spreadsheets write in such locales) is read as such.
     """
     delim, decimal_comma = _dialect(text, source)
-    rows = list(csv.reader(io.StringIO(text), delimiter=delim))
-    rows = [r for r in rows if r and any(c.strip() for c in r) and not r[0].lstrip().startswith("#")]
+    try:
+        rows = [r for r in csv.reader(io.StringIO(text), delimiter=delim) if r and any(c.strip() for c in r)]
+    except csv.Error as exc:
+        raise RecipeError(source, f"not a readable CSV ({exc})") from None
+    # as in a recipe CSV: '#' lines are comments only above the header; below it a tube may be called '#3'
+    while rows and rows[0][0].lstrip().startswith("#"):
+        rows = rows[1:]
     if not rows:
         raise RecipeError(source, "empty: expected a header 'tube,<stock>,...,absorbance'")
     header = [h.strip() for h in rows[0]]
@@ -70,8 +75,10 @@ def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Rea
             value = float(r[j])
         except ValueError:
             raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is not an absorbance; leave no blanks") from None
+        if np.isnan(value):
+            raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is not an absorbance; leave no blanks")
         if not np.isfinite(value):
-            raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is not a finite absorbance")
+            raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is out of range for an absorbance")
         a.append(value)
         body.append([c for k, c in enumerate(r) if k not in drop])
     buf = io.StringIO()

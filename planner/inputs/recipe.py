@@ -1,17 +1,34 @@
-"""Recipes: tube × stock volumes, CSV in and out, and the totals in each tube after dilution."""
+"""Recipes: tube × stock volumes, CSV in and out, and the totals in each tube after dilution.
+
+Recipe CSV rules (the same for readings): comma-separated, decimal point, UTF-8 (a byte-order mark is
+accepted); the first line that is neither blank nor a comment is the header ``tube,<stock id>,...``.
+Comments are lines starting with ``#`` at column 0 *above the header* only: below it every non-blank
+line is a tube, so a tube may be labelled ``#3``. Limits: :data:`MAX_CSV_BYTES` bytes, :data:`MAX_ROWS`
+tubes, and cells of at most the csv module's field limit.
+"""
 
 from __future__ import annotations
 
 import csv
 import io
+import math
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from .plan import Plan, unknown_name
+from .names import unknown_name
+from .plan import Plan
+from .plan_fields import MAX_VOLUME_ML, MIN_VOLUME_ML
+from .text import check_identifier, visible
 
 VOLUME_DECIMALS = 4  # mL; far below any dispenser's resolution, so round trips are exact
+MAX_ROWS = 1000  # tubes in a recipe or readings file; a design has at most 200
+MAX_CSV_BYTES = 1_000_000
+DILUENT_TOLERANCE_ML = 1e-6  # a supplied to-mark diluent volume must equal the remainder this closely
+# a plain decimal number with a point: no 'nan', 'inf', '1_000' or hex, which float() would take
+_NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 
 
 class RecipeError(ValueError):
@@ -128,7 +145,18 @@ def assemble_recipe(ids: tuple[str, ...], volumes: dict[str, np.ndarray] | np.nd
                 f"tube {tubes[i]}",
                 f"stocks add up to {others[i]:g} mL, more than the {tube_mL:g} mL tube: reduce them",
             )
-        vol[:, j] = np.maximum(tube_mL - others, 0.0)
+        remainder = np.maximum(tube_mL - others, 0.0)
+        if diluent_id in cols:
+            # the diluent fills to the mark: a written volume is only a cross-check, never silently replaced
+            off = np.flatnonzero(np.abs(vol[:, j] - remainder) > DILUENT_TOLERANCE_ML)
+            if off.size:
+                i = off[0]
+                raise RecipeError(
+                    f"tube {tubes[i]}, {diluent_id}",
+                    f"{vol[i, j]:g} mL, but under make_up = 'to-mark' the diluent is what fills the "
+                    f"{tube_mL:g} mL mark: {remainder[i]:g} mL; correct it or leave the {diluent_id} column out",
+                )
+        vol[:, j] = remainder
         total = np.full(n, tube_mL)
     else:
         total = vol.sum(axis=1)
@@ -146,14 +174,25 @@ def assemble_recipe(ids: tuple[str, ...], volumes: dict[str, np.ndarray] | np.nd
 
 
 def read_text_file(path: str | Path, what: str) -> str:
-    """Text of a CSV the user named, or a RecipeError saying the file is missing or unreadable."""
+    """Text of a CSV the user named, or a RecipeError saying the file is missing, too large or unreadable."""
     p = Path(path)
     try:
-        return p.read_text(encoding="utf-8-sig")
+        with p.open("rb") as fh:
+            raw = fh.read(MAX_CSV_BYTES + 1)  # one byte past the limit: pipes and devices have no size
     except FileNotFoundError:
         raise RecipeError("", f"{what} file '{p}' not found: check the path") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise RecipeError("", f"cannot read {what} file '{p}': {exc}") from None
+    except IsADirectoryError:
+        raise RecipeError("", f"{what} file '{p}' is a folder: give the path of a .csv file") from None
+    except OSError as exc:
+        raise RecipeError("", f"cannot read {what} file '{p}': {exc.strerror or exc}") from None
+    if len(raw) > MAX_CSV_BYTES:
+        raise RecipeError("", f"{what} file '{p}' is larger than {MAX_CSV_BYTES // 1_000_000} MB; a {what} "
+                          f"holds at most {MAX_ROWS} tubes: check that this is the right file")
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise RecipeError("", f"{what} file '{p}' is not UTF-8 text (byte {exc.start}): "
+                          "save it as UTF-8 CSV") from None
 
 
 def read_recipe_csv(path: str | Path, plan: Plan) -> Recipe:
@@ -161,36 +200,151 @@ def read_recipe_csv(path: str | Path, plan: Plan) -> Recipe:
     return parse_recipe_csv(read_text_file(path, "recipe"), plan, source=str(path))
 
 
+def csv_rows(text: str, source: str) -> list[tuple[int, list[str]]]:
+    """The header and data rows of a CSV text as (line number, cells), by the module's rules.
+
+    Raises
+    ------
+    RecipeError
+        For more than :data:`MAX_ROWS` data rows, an over-long cell, or a semicolon- or tab-separated file.
+    """
+    text = text.removeprefix("\ufeff")
+    lines = text.splitlines(keepends=True)
+    skip = 0
+    while skip < len(lines) and (not lines[skip].strip() or lines[skip].startswith("#")):
+        skip += 1  # blank lines and comments above the header
+    reader = csv.reader(io.StringIO("".join(lines[skip:])))
+    rows: list[tuple[int, list[str]]] = []
+    last = 0  # the line the previous row ended on: a quoted cell may span lines
+    try:
+        for r in reader:
+            start, last = last + 1, reader.line_num
+            if not r or not any(c.strip() for c in r):
+                continue
+            if any("\n" in c or "\r" in c for c in r):
+                raise RecipeError(f"{source} line {skip + start}", "a quoted cell runs over several lines "
+                                  "(an unclosed quote?): close the quote on that line")
+            rows.append((skip + start, r))
+            if len(rows) > MAX_ROWS + 1:
+                raise RecipeError(source, f"more than {MAX_ROWS} tubes: a recipe holds at most "
+                                  f"{MAX_ROWS} rows")
+    except csv.Error as exc:
+        line = skip + reader.line_num
+        if "field larger" in str(exc):
+            raise RecipeError(f"{source} line {line}", f"a cell is longer than {csv.field_size_limit()} "
+                              "characters (an unclosed quote?): check the quotes on that line") from None
+        raise RecipeError(f"{source} line {line}", f"not readable as CSV ({exc}): check the quotes") from None
+    if rows:
+        first = rows[0][1]
+        if len(first) == 1:
+            for sep, name in ((";", "semicolon"), ("\t", "tab")):
+                if sep in first[0]:
+                    raise RecipeError(f"{source} header", f"the file looks {name}-separated: kplan reads "
+                                      "comma-separated values with a decimal point, e.g. 'tube,CU,DY' and "
+                                      "'T1,1.50,0.25'; export it as CSV with commas")
+    return rows
+
+
+def parse_volume_cell(cell: str, where: str, what: str = "a volume in mL") -> float:
+    """A finite decimal number from a CSV cell, or a RecipeError naming ``where``."""
+    c = cell.strip()
+    if not _NUMBER.fullmatch(c):
+        hint = ("; write a decimal point (1.50, not 1,50)" if re.fullmatch(r"[+-]?\d*,\d+", c)
+                else "; leave no blanks" if not c else "")
+        raise RecipeError(where, f"'{visible(c)}' is not {what}{hint}")
+    v = float(c)
+    if not math.isfinite(v):  # '1e400' is a plain decimal, but past the largest float
+        raise RecipeError(where, f"'{c}' is out of range for {what}")
+    return v
+
+
+def _volume(cell: str, where: str) -> float:
+    """A recipe volume: 0, or a volume a dispenser could deliver (the plan's volume bounds)."""
+    v = parse_volume_cell(cell, where)
+    if v != 0 and not MIN_VOLUME_ML <= abs(v) <= MAX_VOLUME_ML:  # negatives get their own message later
+        raise RecipeError(where, f"{v:g} mL: write 0 or a volume between {MIN_VOLUME_ML:g} and "
+                          f"{MAX_VOLUME_ML:g} mL")
+    return v
+
+
 def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
-    rows = [r for r in csv.reader(io.StringIO(text)) if r and any(c.strip() for c in r)]
-    rows = [r for r in rows if not r[0].lstrip().startswith("#")]
+    """Parse recipe CSV text (see the module docstring for the rules)."""
+    rows = csv_rows(text, source)
     if not rows:
-        raise RecipeError(source, "the recipe is empty: expected a header 'tube,<stock>,...' and one row per tube")
-    header = [h.strip() for h in rows[0]]
-    if header[0].lower() != "tube":
-        raise RecipeError(f"{source} header", f"first column must be 'tube', got '{header[0]}'")
+        raise RecipeError(source, "the recipe is empty: expected a header 'tube,<stock>,...' "
+                          "and one row per tube")
+    return _recipe_from_rows(rows, plan, source)
+
+
+def parse_recipe_with_column(text: str, plan: Plan, columns: tuple[str, ...], source: str = "<readings>",
+                             what: str = "an absorbance") -> tuple[Recipe, np.ndarray]:
+    """A recipe CSV with one more numeric column (e.g. the measured absorbance), by the same rules.
+
+    Parameters
+    ----------
+    columns : names the extra column may have; the first is the one suggested in messages.
+    what : what a value of that column is, for messages ("an absorbance").
+
+    Returns
+    -------
+    recipe : the recipe of the other columns.
+    values : (n,) the extra column, in tube order.
+    """
+    rows = csv_rows(text, source)
+    if not rows:
+        raise RecipeError(source, f"empty: expected a header 'tube,<stock>,...,{columns[0]}' "
+                          "and one row per tube")
+    header = [h.strip() for h in rows[0][1]]
+    col = next((h for h in header if h in columns), None)
+    if col is None:
+        raise RecipeError(f"{source} header", f"no {columns[0]} column: add one named {' or '.join(columns)}")
+    j = header.index(col)
+    values = []
+    for ln, r in rows[1:]:
+        _check_width(r, len(header), f"{source} line {ln}")
+        values.append(parse_volume_cell(r[j], f"{source} line {ln}, {col}", what=what))
+    rest = [(ln, [c for k, c in enumerate(r) if k != j]) for ln, r in rows]
+    return _recipe_from_rows(rest, plan, source), np.array(values, dtype=float)
+
+
+def _check_width(row: list[str], width: int, where: str) -> None:
+    if len(row) != width:
+        hint = ""
+        if len(row) > width:
+            hint = ("; a decimal comma? write volumes with a decimal point (1.50, not 1,50), and quote "
+                    "labels that contain commas")
+        raise RecipeError(where, f"expected {width} fields, got {len(row)}{hint}")
+
+
+def _recipe_from_rows(rows: list[tuple[int, list[str]]], plan: Plan, source: str) -> Recipe:
+    """A recipe from :func:`csv_rows` output: the header row, then one row per tube."""
+    header = [h.strip() for h in rows[0][1]]
     ids = [s.id for s in plan.stock]
+    if header[0].lower() != "tube":
+        raise RecipeError(f"{source} header", f"first column must be 'tube', got '{visible(header[0])}'")
+    if len(header) == 1:
+        raise RecipeError(f"{source} header", f"only a 'tube' column: add one column per dispensed stock "
+                          f"({', '.join(ids)}), volumes in mL")
     for h in header[1:]:
         if h not in ids:
-            raise RecipeError(f"{source} column '{h}'", unknown_name("stock", h, ids))
+            raise RecipeError(f"{source} column '{visible(h)}'", unknown_name("stock", visible(h), ids))
     if len(set(header)) != len(header):
         raise RecipeError(f"{source} header", "a column appears twice")
     tubes, data = [], []
-    for ln, r in enumerate(rows[1:], start=2):
-        if len(r) != len(header):
-            raise RecipeError(f"{source} line {ln}", f"expected {len(header)} fields, got {len(r)}")
-        tubes.append(r[0].strip())
-        vals = []
-        for h, c in zip(header[1:], r[1:], strict=True):
-            try:
-                vals.append(float(c))
-            except ValueError:
-                raise RecipeError(f"{source} line {ln}, {h}", f"'{c}' is not a volume in mL") from None
-        data.append(vals)
+    for ln, r in rows[1:]:
+        _check_width(r, len(header), f"{source} line {ln}")
+        label = r[0].strip()
+        try:
+            check_identifier(label, "tube label")
+        except ValueError as exc:
+            raise RecipeError(f"{source} line {ln}, tube", str(exc)) from None
+        tubes.append(label)
+        data.append([_volume(c, f"{source} line {ln}, {h}") for h, c in zip(header[1:], r[1:], strict=True)])
     if not tubes:
         raise RecipeError(source, "no tubes: add one row per tube")
     if len(set(tubes)) != len(tubes):
-        raise RecipeError(source, "tube labels must be unique")
+        dup = next(t for t in tubes if tubes.count(t) > 1)
+        raise RecipeError(source, f"tube label '{visible(dup)}' appears twice: tube labels must be unique")
     arr = np.array(data, dtype=float).reshape(len(tubes), len(header) - 1)
     return make_recipe(plan, {h: arr[:, j] for j, h in enumerate(header[1:])}, tubes)
 

@@ -10,6 +10,8 @@ from functools import cache
 
 import pint
 
+MAX_QUANTITY_CHARS = 60  # "0.0200 mol/L" is 12; pint's expression parser need not see a page of text
+
 
 class UnitError(ValueError):
     """A quantity string that cannot be read, or has the wrong dimension."""
@@ -45,6 +47,9 @@ def parse_quantity(value: object, kind: str) -> float:
         return float(value)
     if not isinstance(value, str):
         raise UnitError(f"expected a {kind} such as '{example}', got {value!r}")
+    if len(value) > MAX_QUANTITY_CHARS:
+        raise UnitError(f"{value[:20]!r}... is {len(value)} characters long; a {kind} such as '{example}' "
+                        f"needs at most {MAX_QUANTITY_CHARS}")
     text = value.strip().replace("µ", "u").replace("μ", "u")
     ureg = _registry()
     try:

@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 from planner import cli
-from planner.inputs.files import write_atomic
+from planner.inputs.files import OutputError, write_atomic
 
 from ..conftest import ROOT
 
@@ -110,7 +110,7 @@ def test_atomic_write_leaves_nothing_on_failure(tmp_path, monkeypatch):
         raise OSError("disk full")
 
     monkeypatch.setattr("planner.inputs.files.os.replace", boom)
-    with pytest.raises(OSError):
+    with pytest.raises(OutputError, match="disk full"):
         write_atomic(target, "new")
     assert target.read_text() == "old"
     assert [p.name for p in tmp_path.iterdir()] == ["out.txt"]
@@ -171,3 +171,14 @@ def test_sheet_refuses_undeliverable_volumes(tmp_path, capsys, monkeypatch):
     rec.write_text("tube,CU,DY\nT1,1.00,0.52\n")
     code, _, err = run(capsys, monkeypatch, "sheet", plan, rec, "--out", tmp_path / "prep.pdf")
     assert code == 2 and "grid" in err and not (tmp_path / "prep.pdf").exists()
+
+
+def test_bare_command_prints_help(capsys, monkeypatch):
+    code, out, err = run(capsys, monkeypatch)
+    assert code == 2 and "assess" in out and "Traceback" not in err
+
+
+def test_usage_error_is_one_line(capsys, monkeypatch):
+    code, _, err = run(capsys, monkeypatch, "design", ROOT / "examples/cuvette-1to1.toml", "--tubes", "0")
+    lines = [ln for ln in err.splitlines() if ln.strip()]
+    assert code == 2 and len(lines) == 1 and "--tubes" in lines[0] and "kplan design --help" in lines[0]

@@ -128,3 +128,75 @@ def test_ion_charge(ion, z):
 def test_ion_without_charge(teaching_text):
     e = _err(teaching_text.replace('"Na+" = "10.0 mM"', '"Na" = "10.0 mM"'))
     assert e.key == "stock[1].ions.Na" and "no readable charge" in e.message
+
+
+# -- values past validation, limits, and messages that name the key written ------------------------------
+def test_byte_order_mark_is_accepted(tmp_path, teaching_text):
+    path = tmp_path / "bom.toml"
+    path.write_bytes(b"\xef\xbb\xbf" + teaching_text.encode("utf-8"))
+    assert load_plan(path).title.startswith("Copper(II)")
+    assert parse_plan_text("\ufeff" + teaching_text).title.startswith("Copper(II)")
+
+
+@pytest.mark.parametrize("old,new,key", [
+    ("temperature_C = 25.0", "temperature_C = true", "temperature_C"),
+    ("temperature_C = 25.0", "temperature_C = -inf", "temperature_C"),
+    ("log_beta = 3.30 ", "log_beta = nan ", "species[0].log_beta"),
+    ("path_cm = 1.000", "path_cm = true", "optics.path_cm"),
+    ('on_hand = "100 mL"', "on_hand = inf", "stock[0].on_hand"),
+    ("formula = { M = 1, L = 1 }", "formula = { M = true, L = 1 }", "species[0].formula.M"),
+    ("tubes = 8", "tubes = 201", "design.tubes"),
+])
+def test_non_finite_bool_and_out_of_range_numbers(teaching_text, old, new, key):
+    e = _err(teaching_text.replace(old, new))
+    assert e.key == key
+
+
+def test_bounds_are_generous_enough_for_real_plans(teaching_text):
+    # derived: the edges of each documented range are accepted
+    text = (teaching_text.replace("temperature_C = 25.0", "temperature_C = 150")
+            .replace("log_beta = 3.30 ", "log_beta = -50 ").replace("path_cm = 1.000", "path_cm = 100")
+            .replace("wavelength_nm = 580", "wavelength_nm = 2000").replace("goal_se = 0.05", "goal_se = 5"))
+    p = parse_plan_text(text)
+    assert p.temperature_C == 150 and p.optics.path_cm == 100 and p.design.goal_se == 5
+
+
+def test_misspelt_required_key_names_what_was_written(teaching_text):
+    e = _err(teaching_text.replace("wavelength_nm = 580", "wavelenght_nm = 580"))
+    assert e.key == "optics.wavelenght_nm" and "did you mean 'wavelength_nm'" in e.message
+
+
+def test_grid_level_limit(teaching_text):
+    ok = parse_plan_text(teaching_text.replace('step = "0.05 mL"', 'step = "0.0005 mL"'))  # 20 000 levels
+    assert ok.glassware.step_mL == pytest.approx(5e-4)
+    e = _err(teaching_text.replace('step = "0.05 mL"', 'step = "0.0001 mL"'))
+    assert e.key == "glassware.step" and "20000" in e.message
+
+
+def test_plan_file_size_and_depth_limits(tmp_path, teaching_text):
+    from planner.inputs.plan import MAX_DEPTH, MAX_PLAN_BYTES
+
+    big = tmp_path / "big.toml"
+    big.write_text(teaching_text + "#" * MAX_PLAN_BYTES)
+    with pytest.raises(PlanError, match="larger than 1 MB"):
+        load_plan(big)
+    ok = teaching_text.replace("temperature_C", "x = " + "[" * (MAX_DEPTH - 2) + "]" * (MAX_DEPTH - 2)
+                               + "\ntemperature_C")
+    assert "unknown key" in _err(ok).message  # deep but within the limit: reaches the schema
+    e = _err(teaching_text.replace("temperature_C", "x = " + "[" * 5000 + "]" * 5000 + "\ntemperature_C"))
+    assert "nested too deeply" in str(e)
+
+
+def test_identifiers_refuse_control_and_bidi_characters(teaching_text):
+    e = _err(teaching_text.replace('id = "CU"', 'id = "C\\u202eU"'))
+    assert e.key == "stock[0].id" and "U+202E" in e.message
+    e = _err(teaching_text.replace('name = "ML"', 'name = "M\\u0000L"'))
+    assert e.key == "species[0].name" and "U+0000" in e.message
+
+
+def test_free_text_keeps_unicode_but_is_shown_visibly(teaching_text):
+    from planner.inputs.text import visible
+
+    p = parse_plan_text(teaching_text.replace('title = "Copper(II)', 'title = "Cu\\u202e(II) ±'))
+    assert "\u202e" in p.title                       # stored as written
+    assert visible(p.title).startswith("Cu\\u202e(II) ±")  # shown as a visible escape, ± kept

@@ -76,3 +76,53 @@ def test_dilution_is_exact(vols):
     np.testing.assert_allclose(tot[:, 1] * 10.0, 0.010 * v[:, 1], rtol=1e-13, atol=1e-18)
     assert np.all(r.volumes_mL >= 0)
     np.testing.assert_allclose(r.volumes_mL.sum(axis=1), 10.0, rtol=1e-12)
+
+
+# -- CSV edge cases: see the rules in planner.inputs.recipe's docstring ---------------------------------
+def test_quoted_label_with_comma_round_trips(teaching_plan):
+    r = parse_recipe_csv('tube,CU,DY\n"P,3",1.00,0.50\n', teaching_plan)
+    assert r.tubes == ("P,3",)
+    text = recipe_to_csv(r, teaching_plan)
+    assert '"P,3"' in text
+    assert parse_recipe_csv(text, teaching_plan).tubes == ("P,3",)
+
+
+def test_hash_label_below_header_is_a_tube_comments_above_are_comments(teaching_plan):
+    text = "# made for the teaching lab\n\n#,another comment\ntube,CU,DY\n#3,1.00,0.50\nT4,1.00,1.00\n"
+    r = parse_recipe_csv(text, teaching_plan)
+    assert r.tubes == ("#3", "T4")
+
+
+def test_byte_order_mark_and_crlf(teaching_plan):
+    r = parse_recipe_csv("\ufefftube,CU,DY\r\nT1,1.00,0.50\r\n", teaching_plan)
+    assert r.tubes == ("T1",)
+
+
+def test_diluent_column_under_to_mark_is_checked(teaching_plan):
+    r = parse_recipe_csv("tube,CU,DY,BG\nT1,1.00,0.50,8.50\n", teaching_plan)  # 10 - 1.5 = 8.5: consistent
+    np.testing.assert_allclose(r.column("BG"), [8.5])
+    with pytest.raises(RecipeError, match="under make_up = 'to-mark' the diluent") as exc:
+        parse_recipe_csv("tube,CU,DY,BG\nT1,1.00,0.50,8.00\n", teaching_plan)
+    assert exc.value.key == "tube T1, BG" and "8.5 mL" in exc.value.message
+
+
+def test_only_tube_column(teaching_plan):
+    with pytest.raises(RecipeError, match="only a 'tube' column: add one column per dispensed stock"):
+        parse_recipe_csv("tube\nT1\n", teaching_plan)
+
+
+def test_volume_cells_are_plain_decimals(teaching_plan):
+    for cell in ("nan", "inf", "1_0", "0x1", "1,5"):
+        with pytest.raises(RecipeError, match="is not a volume in mL"):
+            parse_recipe_csv(f'tube,CU,DY\nT1,1.00,"{cell}"\n', teaching_plan)
+    r = parse_recipe_csv("tube,CU,DY\nT1,+1.0e0,.5\n", teaching_plan)
+    np.testing.assert_allclose(r.column("DY"), [0.5])
+
+
+def test_row_limit(teaching_plan):
+    from planner.inputs.recipe import MAX_ROWS
+
+    rows = "".join(f"T{i},1.00,0.50\n" for i in range(MAX_ROWS))
+    assert parse_recipe_csv("tube,CU,DY\n" + rows, teaching_plan).n_tubes == MAX_ROWS
+    with pytest.raises(RecipeError, match=f"more than {MAX_ROWS} tubes"):
+        parse_recipe_csv("tube,CU,DY\n" + rows + "X,1,1\n", teaching_plan)
