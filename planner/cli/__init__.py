@@ -34,15 +34,12 @@ def _show_warning(message, category, filename, lineno, file=None, line=None) -> 
 
 def main() -> None:
     """Console entry point: user errors become one line on stderr and exit code 2; Ctrl-C exits 130."""
-    errors = _user_errors()
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("default")  # each warning once per place it is raised
             warnings.showwarning = _show_warning
             # not standalone: usage errors, Ctrl-C and exit codes are handled below, in one place
             code = app(standalone_mode=False)
-    except errors as exc:
-        _fail(str(exc), 2)
     except typer.TyperException as exc:  # click's usage errors (exit 2) and other command-line errors
         ctx = getattr(exc, "ctx", None)
         if type(exc).__name__ == "NoArgsIsHelpError":
@@ -52,10 +49,15 @@ def main() -> None:
         _fail(exc.format_message() + where, exc.exit_code)
     except (KeyboardInterrupt, typer.Abort):
         sys.exit(EXIT_INTERRUPTED)
-    except OSError as exc:
-        # the environment, not the input's content: a file that vanished, a full disk, a closed pipe
-        where = f"{exc.filename}: " if exc.filename else ""
-        _fail(f"{where}{exc.strerror or exc}", 2)
+    except Exception as exc:
+        # the error classes are imported only now, so that `kplan --help` does not load the numerics
+        if isinstance(exc, _user_errors()):
+            _fail(str(exc), 2)
+        if isinstance(exc, OSError):
+            # the environment, not the input's content: a file that vanished, a full disk, a closed pipe
+            where = f"{exc.filename}: " if exc.filename else ""
+            _fail(f"{where}{exc.strerror or exc}", 2)
+        raise
     if isinstance(code, int) and code:
         sys.exit(code)
 

@@ -7,14 +7,10 @@ import math
 from importlib import resources
 from typing import Any
 
-import numpy as np
 import typer
 from rich.console import Console
 from rich.markup import escape
 
-from ..inputs.files import OutputError
-from ..inputs.plan import PlanError
-from ..inputs.recipe import RecipeError
 from ..inputs.text import visible
 
 app = typer.Typer(
@@ -38,8 +34,12 @@ class UserError(Exception):
 
 
 def _user_errors() -> tuple[type[BaseException], ...]:
+    # imported here, not at the top, so that `kplan --help` does not load pydantic, pint and numpy
     from ..inference.design_criteria import DesignError
     from ..inference.fit_result import FitError
+    from ..inputs.files import OutputError
+    from ..inputs.plan import PlanError
+    from ..inputs.recipe import RecipeError
     from ..model.closed_forms import EquilibriumError
     from ..paper.sheets import RenderError
     from ..uncertainty.catalogue import GlasswareError
@@ -71,6 +71,8 @@ def json_safe(obj: Any) -> Any:
     JSON has no NaN or Infinity; Python's json would write them as bare tokens that strict readers
     refuse, so every JSON the command line prints or writes goes through :func:`dump_json`.
     """
+    import numpy as np
+
     if isinstance(obj, dict):
         return {str(k): json_safe(v) for k, v in obj.items()}
     if isinstance(obj, list | tuple):

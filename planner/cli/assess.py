@@ -7,10 +7,8 @@ from typing import Annotated
 
 import typer
 
-from ..inputs.plan import load_plan
 from .app import app, dump_json
 from .options import MAX_TRIALS, _with_progress, parse_at, read_points
-from .show import print_assessment
 
 
 @app.command()
@@ -27,8 +25,10 @@ def assess(
 ) -> None:
     """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading.
     Exit code 0 resolved, 1 unresolved or only bounded, 2 bad input."""
+    from ..inputs.plan import load_plan
     from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
+    from .show import print_assessment
 
     p = load_plan(plan)
     study = compile_study(p)

@@ -5,12 +5,8 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Annotated
 
-import numpy as np
 import typer
-from rich.table import Table
 
-from ..inputs.plan import load_plan
-from ..paper import fmt
 from .app import app, out
 from .app import safe_text as S
 
@@ -18,6 +14,11 @@ from .app import safe_text as S
 @app.command()
 def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> None:
     """Validate a plan and show what was understood: species, constants, stocks, glassware."""
+    import numpy as np
+    from rich.table import Table
+
+    from ..inputs.plan import load_plan
+    from ..paper import fmt
     p = load_plan(plan)
     out.print(f"[bold]{S(p.title)}[/bold]  ({S(plan)})")
     t = Table(title="Components")

@@ -7,10 +7,8 @@ from typing import Annotated
 
 import typer
 
-from ..inputs.plan import parse_plan_text
 from .app import DEMO_SCENARIO, app, dump_json, out, scenario_text
 from .app import safe_text as S
-from .show import print_assessment, print_design
 
 
 @app.command()
@@ -19,11 +17,13 @@ def demo(
 ) -> None:
     """Run the built-in scenario through everything the tool does and say what it wrote."""
     from ..inputs.files import check_output_folder, write_atomic
+    from ..inputs.plan import parse_plan_text
     from ..inputs.recipe import parse_recipe_csv, recipe_to_csv
     from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
     from ..jobs.demo import demo_recipe_csv
     from ..jobs.design import design_study
+    from .show import print_assessment, print_design
 
     check_output_folder(out_dir)  # before a minute of work, not after it
     text = scenario_text(DEMO_SCENARIO)

@@ -7,12 +7,10 @@ from typing import Annotated
 
 import typer
 
-from ..inference.design_criteria import CRITERIA as DESIGN_CRITERIA
-from ..inputs.plan import load_plan
+from ..inputs.choices import CRITERIA as DESIGN_CRITERIA
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 from .options import MAX_TUBES
-from .show import print_design
 
 
 @app.command()
@@ -32,9 +30,12 @@ def design(
 ) -> None:
     """Choose tube volumes on the glassware's grid that resolve K as precisely as possible
     (with --after: the next tubes, given what the readings so far taught)."""
+    from ..inference.design_criteria import CRITERIA as DESIGN_CRITERIA
     from ..inputs.files import check_output_folder, write_atomic_many
+    from ..inputs.plan import load_plan
     from ..inputs.recipe import recipe_to_csv
     from ..jobs.design import design as run_design
+    from .show import print_design
 
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
@@ -67,6 +68,7 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
     from ..jobs.compile import compile_study
     from ..jobs.sequential import next_batch
     from ..paper import fmt
+    from .show import print_design
 
     study = compile_study(p)
     nb = next_batch(study, read_readings_csv(after, p), tubes=tubes, seed=seed, robust=robust)

@@ -5,12 +5,8 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Annotated
 
-import numpy as np
 import typer
-from rich.table import Table
 
-from ..inputs.plan import load_plan
-from ..paper import fmt
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 
@@ -27,6 +23,7 @@ def fit(
 ) -> None:
     """Fit measured readings with the plan's model, and compare the result with the plan's promise.
     Exit code 1 when the readings do not determine the constants."""
+    from ..inputs.plan import load_plan
     from ..jobs.compile import compile_study
     from ..jobs.fit import fit_study
     from .options import read_points
@@ -46,6 +43,10 @@ def fit(
 
 
 def _print_fit(f) -> None:
+    import numpy as np
+    from rich.table import Table
+
+    from ..paper import fmt
     out.print(f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
     for tube, why in f.excluded:
         out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}")
@@ -88,6 +89,7 @@ MAX_ABSORBANCE = 10.0  # no photometer reads beyond this; a larger number is a t
 
 def _check_absorbances(data, source: Path) -> None:
     """Refuse a reading that is not a finite absorbance within ±MAX_ABSORBANCE, naming its tube."""
+    import numpy as np
     a = np.asarray(data.absorbance, dtype=float)
     bad = np.flatnonzero(~np.isfinite(a) | (np.abs(a) > MAX_ABSORBANCE))
     if bad.size:

@@ -7,7 +7,6 @@ from typing import Annotated
 
 import typer
 
-from ..inputs.plan import load_plan
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 
@@ -29,6 +28,7 @@ def grade(
 
     from ..inputs.files import write_atomic, write_atomic_bytes
     from ..inputs.gradebook import read_key, read_results
+    from ..inputs.plan import load_plan
     from ..jobs.compile import compile_study
     from ..jobs.grade import grade_class
     from ..paper import fmt

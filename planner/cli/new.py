@@ -7,7 +7,6 @@ from typing import Annotated
 
 import typer
 
-from ..inputs.plan import parse_plan_text
 from .app import DEMO_SCENARIO, SCENARIOS, UserError, app, out, scenario_text
 from .app import safe_text as S
 
@@ -20,6 +19,7 @@ def new(
 ) -> None:
     """Write a commented starter plan from a built-in scenario."""
     from ..inputs.files import check_output_file, write_atomic
+    from ..inputs.plan import parse_plan_text
 
     text = scenario_text(scenario)
     check_output_file(path)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from ..inputs.plan import load_plan
+from ..inputs.choices import PAPERS
 from .app import UserError, out
 from .app import safe_text as S
 from .options import _with_progress, read_points
@@ -51,12 +51,13 @@ def read_design_json(path: Path) -> dict:
                             "give the design.json kplan design wrote")
     return data
 
-PAPER_CHOICES = ("A4", "Letter")  # the same keys as planner.render.PAPERS (checked in the tests)
+PAPER_CHOICES = tuple(PAPERS)  # the same keys as planner.paper.render.PAPERS (one definition)
 
 
 def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: bool, paper: str, trials: int,
                   seed: int, design_json: Path | None = None) -> None:
     from ..inputs.files import check_output_file, write_atomic_bytes
+    from ..inputs.plan import load_plan
     from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
     from ..jobs.stock_needs import stock_needs

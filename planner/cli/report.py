@@ -7,9 +7,9 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.choices import PAPERS as PAPER_CHOICES
 from .app import app
 from .options import MAX_TRIALS
-from .paper_output import PAPER_CHOICES, _paper_output
 
 
 @app.command()
@@ -24,4 +24,5 @@ def report(
     design_json: Annotated[Path | None, typer.Option("--design", help="design.json from kplan design")] = None,
 ) -> None:
     """Print the design report: verdict, recipe, plots, checks with fixes, parameters and correlations."""
+    from .paper_output import _paper_output
     _paper_output("report", plan, recipe, out_path, html, paper, trials, seed, design_json)

@@ -8,11 +8,8 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.markup import escape
-from rich.table import Table
 
-from ..inputs.plan import load_plan
-from ..jobs.classic import METHOD_OPTIONS, METHODS
+from ..inputs.choices import SERIES_METHODS as METHODS
 from .app import UserError, app, out
 
 
@@ -48,9 +45,10 @@ def series(
     plan's bands (survey) — and say whether it can answer its question: exit 0 when it can, 1 when it
     cannot."""
     from ..inputs.files import write_atomic
+    from ..inputs.plan import load_plan
     from ..inputs.recipe import recipe_to_csv
     from ..inputs.units import UnitError, parse_quantity
-    from ..jobs.classic import run_series
+    from ..jobs.classic import METHOD_OPTIONS, METHODS, run_series
 
     if method not in METHODS:
         raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
@@ -93,6 +91,9 @@ def series(
 
 def print_series(r, p) -> None:
     """Verdict, the method's findings, the tubes and the checks."""
+    from rich.markup import escape
+    from rich.table import Table
+
     from ..paper import fmt
 
     out.print(f"[bold]{escape(r.title)}[/bold] — {r.method} series")

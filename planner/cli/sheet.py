@@ -7,9 +7,9 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.choices import PAPERS as PAPER_CHOICES
 from .app import app
 from .options import MAX_TRIALS
-from .paper_output import PAPER_CHOICES, _paper_output
 
 
 @app.command()
@@ -25,4 +25,5 @@ def sheet(
 ) -> None:
     """Print the prep sheet: stocks and how to make them, each tube's volumes in order, expected
     absorbance with its band, a measurement checklist and the safety notes."""
+    from .paper_output import _paper_output
     _paper_output("sheet", plan, recipe, out_path, html, paper, trials, seed)

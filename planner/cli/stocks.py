@@ -7,10 +7,7 @@ from typing import Annotated
 
 import typer
 
-from ..inputs.plan import load_plan
-from ..inputs.recipe import read_recipe_csv
 from .app import app, dump_json
-from .show import print_stock_needs
 
 
 @app.command()
@@ -20,7 +17,10 @@ def stocks(
     as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
 ) -> None:
     """How to make each stock (mass to weigh, flask, uncertainty) and how much a recipe needs."""
+    from ..inputs.plan import load_plan
+    from ..inputs.recipe import read_recipe_csv
     from ..jobs.stock_needs import stock_needs
+    from .show import print_stock_needs
 
     p = load_plan(plan)
     r = read_recipe_csv(recipe, p) if recipe else None

@@ -68,7 +68,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-CRITERIA = ("target", "all")
+from ..inputs.choices import CRITERIA  # noqa: E402  (defined once, light for the command line)
 
 # Ridge per tube, relative to the average per-tube information of each parameter (module docstring).
 _RIDGE = 1e-10

@@ -23,8 +23,7 @@ from .sheets import RenderError, plan_notes, prep_context, report_context
 __all__ = ["FORMATS", "PAPERS", "DataOnlyFetcher", "FetchRefused", "RenderError", "html_to_pdf", "prep_sheet",
            "render_html", "report"]
 
-PAPERS = {"A4": "A4", "Letter": "letter"}
-"""Paper names accepted (CSS page sizes: ISO 216 A4, 210 × 297 mm; US Letter, 8.5 × 11 in)."""
+from ..inputs.choices import PAPERS  # noqa: E402  (defined once, light for the command line)
 
 FORMATS = ("pdf", "html")
 

@@ -393,10 +393,10 @@ def test_json_has_no_nan(capsys, monkeypatch):
 
 
 def test_library_warnings_hidden_own_warnings_one_line(capsys, monkeypatch):
-    from planner.cli import check as check_cmd
+    from planner.inputs import plan as plan_module  # the command imports load_plan when it runs
     from planner.model.activity import ActivityWarning
 
-    real = check_cmd.load_plan
+    real = plan_module.load_plan
 
     def noisy(path):
         warnings.warn("some library detail", DeprecationWarning, stacklevel=1)
@@ -405,7 +405,7 @@ def test_library_warnings_hidden_own_warnings_one_line(capsys, monkeypatch):
                       stacklevel=1)
         return real(path)
 
-    monkeypatch.setattr(check_cmd, "load_plan", noisy)
+    monkeypatch.setattr(plan_module, "load_plan", noisy)
     code, out, err = run(capsys, monkeypatch, "check", PLAN)
     assert code == 0 and "plan OK" in out
     lines = [ln for ln in err.splitlines() if ln.strip()]

@@ -3,6 +3,7 @@ survey, planned on the plan's glassware and judged by the same model and error b
 
 from __future__ import annotations
 
+from ...inputs.choices import SERIES_METHOD_OPTIONS, SERIES_METHODS
 from ._deps import Plan, plan_model
 from .calibration import conversion_tube
 from .common import SeriesResult
@@ -10,19 +11,9 @@ from .job import continuous_variation
 from .mole_ratio import mole_ratio_series
 from .survey import wavelength_survey
 
-# the methods ``kplan series --method`` offers; a method is listed only when it is finished
-METHODS = ("job", "calibration", "mole-ratio", "survey")
-# which options each method takes (the command refuses the others rather than ignore them)
-METHOD_OPTIONS = {
-    "points": ("job", "mole-ratio"),
-    "total": ("job", "calibration", "mole-ratio"),
-    "limiting": ("calibration",),
-    "excess": ("calibration",),
-    "tubes": ("calibration",),
-    "vary": ("mole-ratio",),
-    "max-ratio": ("mole-ratio",),
-    "recipe": ("survey",),
-}
+# the methods ``kplan series --method`` offers and their options, defined once in planner.inputs.choices
+METHODS = SERIES_METHODS
+METHOD_OPTIONS = SERIES_METHOD_OPTIONS
 
 __all__ = ["METHODS", "METHOD_OPTIONS", "SeriesResult", "continuous_variation", "conversion_tube", "mole_ratio_series", "plan_model", "run_series",
            "wavelength_survey"]
