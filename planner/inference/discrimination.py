@@ -20,8 +20,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import chi2 as chi2_dist
-from scipy.stats import ncx2
 
 from ..inputs.recipe import Recipe
 from ..model.compiled import Model, predict, tube_ions_M
@@ -29,6 +27,7 @@ from ..uncertainty.bench import Bench
 from .lm import fit_many
 from .precision import Parameters, ReadingModel, unpack, whitening
 from .simulate import simulate
+from .tails import chi2_ppf, ncx2_sf
 
 LEVEL = 0.05  # the χ² test's level [common practice]
 POWER_GOAL = 0.80  # a check that finds a real effect four times in five [common practice]
@@ -57,8 +56,8 @@ def power_from_noncentrality(lam: np.ndarray, dof: int, level: float = LEVEL) ->
     lam = np.asarray(lam, dtype=float)
     if dof < 1:
         return np.zeros_like(lam)
-    crit = chi2_dist.ppf(1.0 - level, dof)
-    return ncx2.sf(crit, dof, np.maximum(lam, 1e-300))
+    crit = chi2_ppf(1.0 - level, dof)
+    return ncx2_sf(crit, dof, np.maximum(lam, 1e-300))
 
 
 @dataclass(frozen=True)
@@ -128,7 +127,7 @@ def detection_power(bench: Bench, model: Model, params: Parameters, recipe: Reci
         res = fit_many(reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False,
                        lower=lo, upper=hi)
         ok = res.converged & np.isfinite(res.chi2)
-        crit = chi2_dist.ppf(1.0 - level, dof)
+        crit = chi2_ppf(1.0 - level, dof)
         # a fit that fails on the alternative's data is itself a sign the model is wrong: count it as caught
         power = float(np.mean(np.where(ok, res.chi2 > crit, True)))
     elif dof < 1:

@@ -24,11 +24,11 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.stats import chi2 as chi2_dist
 
 from ..inference.lm import fit_many
 from ..inference.precision import CHI2_95_1DOF, LOG_BETA_RANGE, ReadingModel, cramer_rao, unpack, whitening
 from ..inference.study import Study
+from ..inference.tails import chi2_cdf, chi2_sf
 from ..inputs.plan import Plan
 from ..inputs.readings import Readings
 from ..inputs.recipe import Recipe, RecipeError
@@ -209,8 +209,8 @@ def fit_study(study: Study, readings: Readings, *, exclude: tuple[str, ...] = ()
     z[keep] = W @ (y - fitted_all[keep])
     dof = rec.n_tubes - params.size
     c2 = float(res.chi2[0])
-    p_hi = float(chi2_dist.sf(c2, dof)) if dof > 0 else float("nan")
-    p_lo = float(chi2_dist.cdf(c2, dof)) if dof > 0 else float("nan")
+    p_hi = float(chi2_sf(c2, dof)) if dof > 0 else float("nan")
+    p_lo = float(chi2_cdf(c2, dof)) if dof > 0 else float("nan")
     ci = None
     if reason is None and params.target >= 0:
         ci = profile_interval(reading, W, y, theta, se, c2)

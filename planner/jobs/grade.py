@@ -15,10 +15,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import chi2 as chi2_dist
 
 from ..inference.precision import unpack, whitening
 from ..inference.study import Study
+from ..inference.tails import chi2_sf
 from ..inputs.gradebook import KeyCard
 from ..inputs.readings import Readings
 from ..inputs.recipe import Recipe, RecipeError
@@ -187,7 +187,7 @@ def grade_class(study: Study, cards: tuple[KeyCard, ...], results: dict[str, dic
         if i not in W:
             verdicts.append("incomplete")
         else:
-            verdicts.append("flagged" if chi2_dist.sf(chi2[i], a.size) < FLAG_LEVEL else "ok")
+            verdicts.append("flagged" if chi2_sf(chi2[i], a.size) < FLAG_LEVEL else "ok")
     ok_idx = [i for i, v in enumerate(verdicts) if v == "ok"]
     excluded = tuple((rows[i][0].student, "readings do not match the recipe (χ² test)" if v == "flagged" else
                       "not every tube was reported") for i, v in enumerate(verdicts) if v != "ok")
@@ -205,7 +205,7 @@ def grade_class(study: Study, cards: tuple[KeyCard, ...], results: dict[str, dic
         if verdicts[i] == "flagged" and diagnose_flagged:
             diag = diagnose(study, card.recipe, a, log_beta=lb, epsilon_M_cm=eps)
         n = a.size if i in W else 0
-        p = float(chi2_dist.sf(chi2[i], n)) if n else float("nan")
+        p = float(chi2_sf(chi2[i], n)) if n else float("nan")
         in_band = (a >= card.band_low) & (a <= card.band_high)
         students.append(StudentGrade(card, a, in_band, float(chi2[i]), n, p, verdicts[i], own.get(i), diag))
     return ClassGrade(study.title, study.target, tuple(students), pooled, excluded, unknown)
