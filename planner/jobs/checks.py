@@ -42,7 +42,7 @@ def _tubes(labels, mask) -> str:
 
 def range_risk(absorbance: np.ndarray, sd: np.ndarray, lo: float, hi: float) -> np.ndarray:
     """Probability that a reading expected at ``absorbance`` ± ``sd`` (normal) falls outside [lo, hi]."""
-    from scipy.special import ndtr
+    from ..inference.tails import norm_cdf as ndtr
 
     a = np.asarray(absorbance, dtype=float)
     sd = np.broadcast_to(np.asarray(sd, dtype=float), a.shape)

@@ -21,3 +21,12 @@ def test_tails_match_scipy_stats(dof):
 def test_known_quantile():
     # source: the 95 % point of χ²(1) is 3.841 (any χ² table, e.g. NIST/SEMATECH e-Handbook §1.3.6.7.4)
     assert float(chi2_ppf(0.95, 1)) == pytest.approx(3.841458820694124, rel=1e-12)
+
+
+def test_normal_cdf_matches_scipy():
+    from scipy.stats import norm
+
+    from planner.inference.tails import norm_cdf
+
+    x = np.linspace(-8, 8, 33)
+    np.testing.assert_allclose(norm_cdf(x), norm.cdf(x), rtol=1e-12, atol=1e-300)
