@@ -92,13 +92,14 @@ class Detection:
 
 
 def detection_power(bench: Bench, model: Model, params: Parameters, recipe: Recipe, name: str, alt: Model,
-                    cov_A: np.ndarray, rng: np.random.Generator, trials: int, *, level: float = LEVEL) -> Detection:
+                    cov_A: np.ndarray | None, rng: np.random.Generator, trials: int, *, level: float = LEVEL,
+                    W=None) -> Detection:
     """Detection power of ``recipe`` against the alternative ``alt`` (see the module docstring).
 
     Parameters
     ----------
     cov_A : (n, n) covariance of the readings under the main model at the guess (the error budget), the
-        weighting a fit of real data would use.
+        weighting a fit of real data would use; or ``W``, its whitening (e.g. from :func:`whitening_of`).
     trials : simulated experiments (0: the noise-free power only).
     """
     n = recipe.n_tubes
@@ -108,7 +109,7 @@ def detection_power(bench: Bench, model: Model, params: Parameters, recipe: Reci
     tot = (recipe.volumes_mL @ model.stock_conc_M) / recipe.total_volume_mL[:, None]
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     reading = ReadingModel(model, params, tot, ions)
-    W = whitening(cov_A)
+    W = whitening(cov_A) if W is None else W
     lo, hi = reading.bounds()
     y0 = predict(alt, tot, ions, warn=False).absorbance
     # exact noise-free misfit: the best the main model can do on the alternative's readings

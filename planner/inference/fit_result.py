@@ -180,6 +180,14 @@ def _weighting(sigma, whiten, n_trials: int, n_obs: int):
             return jac * (inv.take(rows, axis=0) if inv.ndim == 2 else inv)[..., None]
 
         return weigh_res, weigh_jac
+    if whiten is not None and hasattr(whiten, "apply_jac"):  # a structured whitening (e.g. diagonal + low rank)
+        def weigh_res(res, rows):
+            return whiten.apply(res)
+
+        def weigh_jac(jac, rows):
+            return whiten.apply_jac(jac)
+
+        return weigh_res, weigh_jac
     if whiten is not None:
         w = np.array(whiten, dtype=float)
         if w.shape not in ((n_obs, n_obs), (n_trials, n_obs, n_obs)):

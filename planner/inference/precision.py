@@ -185,6 +185,79 @@ def whitening(cov: np.ndarray) -> np.ndarray:
 
 
 @dataclass(frozen=True)
+class Whitening:
+    """W with WᵀW = Σ⁻¹ for Σ = D + S Sᵀ (diagonal plus low rank), applied in O(n k), never stored n × n.
+
+    With B = D^(−½) S = U diag(s) Vᵀ (thin SVD), Σ = D^(½) (I + BBᵀ) D^(½), and the symmetric
+    W = [I + U (diag((1 + s²)^(−½)) − I) Uᵀ] D^(−½) has WᵀW = D^(−½) (I + BBᵀ)⁻¹ D^(−½) = Σ⁻¹ (Woodbury).
+    The readings of separately made tubes have exactly this covariance: independent photometric and
+    delivery errors (D) plus the errors every tube shares, one column of S per stock and per device.
+
+    Attributes
+    ----------
+    d : (n,) D^(−½).
+    U : (n, k) left singular vectors of B.
+    shrink : (k,) (1 + s²)^(−½) − 1.
+    """
+
+    d: np.ndarray
+    U: np.ndarray
+    shrink: np.ndarray
+    __array_ufunc__ = None  # so that ``array @ W`` defers to this class instead of making an object array
+
+    @classmethod
+    def of(cls, var: np.ndarray, S: np.ndarray) -> Whitening:
+        d = 1.0 / np.sqrt(np.asarray(var, dtype=float))
+        B = d[:, None] * np.asarray(S, dtype=float)
+        if B.shape[1] == 0:
+            return cls(d, np.zeros((d.size, 0)), np.zeros(0))
+        U, sv, _ = np.linalg.svd(B, full_matrices=False)
+        return cls(d, U, 1.0 / np.sqrt(1.0 + sv**2) - 1.0)
+
+    def apply(self, x: np.ndarray) -> np.ndarray:
+        """W x along the last axis: x (..., n) -> (..., n)."""
+        y = np.asarray(x, dtype=float) * self.d
+        return y + ((y @ self.U) * self.shrink) @ self.U.T
+
+    def apply_jac(self, J: np.ndarray) -> np.ndarray:
+        """W J for Jacobians (..., n, P)."""
+        y = np.asarray(J, dtype=float) * self.d[:, None]
+        return y + self.U @ (self.shrink[:, None] * (self.U.T @ y))
+
+    def __matmul__(self, x):
+        x = np.asarray(x, dtype=float)
+        return self.apply(x) if x.ndim == 1 else self.apply_jac(x)
+
+    @property
+    def T(self) -> _WhiteningT:  # noqa: N802 - reads as the transpose, as for an array
+        return _WhiteningT(self)
+
+    def dense(self) -> np.ndarray:
+        return self.apply_jac(np.eye(self.d.size))
+
+
+@dataclass(frozen=True)
+class _WhiteningT:
+    """``x @ W.T`` for rows x (..., n): the rows whitened."""
+
+    w: Whitening
+    __array_ufunc__ = None
+
+    def __rmatmul__(self, x):
+        return self.w.apply(x)
+
+
+def whitening_of(budget: ErrorBudget):
+    """The whitening of a budget's covariance: :class:`Whitening` (O(n k)) where the independent part is
+    diagonal, as for separately made tubes; the dense inverse Cholesky factor otherwise (a titration,
+    whose aliquot errors accumulate along the points)."""
+    indep = budget.independent
+    if np.count_nonzero(indep - np.diag(np.diag(indep))) == 0:
+        return Whitening.of(np.diag(indep), np.concatenate([budget.J_stock, budget.J_device], axis=1))
+    return whitening(budget.total)
+
+
+@dataclass(frozen=True)
 class CramerRao:
     """Fisher information and its inverse at the guess.
 
@@ -204,9 +277,10 @@ class CramerRao:
     jacobian: np.ndarray
 
 
-def cramer_rao(J: np.ndarray, cov_A: np.ndarray) -> CramerRao:
-    """Cramér–Rao bound for a linearised model with absorbance covariance ``cov_A``."""
-    W = whitening(cov_A)
+def cramer_rao(J: np.ndarray, cov_A: np.ndarray | None = None, *, W=None) -> CramerRao:
+    """Cramér–Rao bound for a linearised model with absorbance covariance ``cov_A`` (or its whitening
+    ``W``, e.g. :func:`whitening_of` a budget)."""
+    W = whitening(cov_A) if W is None else W
     WJ = W @ J
     F = WJ.T @ WJ
     P = F.shape[0]

@@ -24,7 +24,7 @@ from ..inference.precision import (
     monte_carlo,
     pack,
     profile,
-    whitening,
+    whitening_of,
 )
 from ..inference.study import Study
 from ..inputs.plan import Plan, PlanError, unknown_name
@@ -228,10 +228,9 @@ def assess_study(study: Study, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, 
         ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
         reading = ReadingModel(model, params, state.totals_M, ions)
         J = reading.jac(true_theta[None, :])[0]
-        cov_A = budget.total
-        cr = cramer_rao(J, cov_A)
+        W = whitening_of(budget)  # diagonal + low rank for tubes: never an n × n matrix per trial
+        cr = cramer_rao(J, W=W)
         risk, spread = _range_risk_over_prior(model, params, reading)
-        W = whitening(cov_A)
         enough = recipe.n_tubes >= params.size
         if trials > 0 and enough:
             mc = monte_carlo(bench, model, recipe, reading, W, np.random.default_rng(seed), trials,

@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..inference.lm import fit_many
-from ..inference.precision import CHI2_95_1DOF, LOG_BETA_RANGE, ReadingModel, cramer_rao, unpack, whitening
+from ..inference.precision import CHI2_95_1DOF, LOG_BETA_RANGE, ReadingModel, cramer_rao, unpack, whitening_of
 from ..inference.study import Study
 from ..inference.tails import chi2_cdf, chi2_sf
 from ..inputs.plan import Plan
@@ -179,8 +179,7 @@ def fit_study(study: Study, readings: Readings, *, exclude: tuple[str, ...] = ()
         return _undetermined(study, readings, keep, excluded, nan,
                              f"{rec.n_tubes} tubes left cannot determine {params.size} parameters: add tubes")
     state = expected_state(model, rec)
-    cov = error_budget(bench, model, rec, state).total
-    W = whitening(cov)
+    W0 = W = whitening_of(error_budget(bench, model, rec, state))
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
     reading = ReadingModel(model, params, state.totals_M, ions)
     starts = np.repeat(params.guess[None, :], N_STARTS, axis=0)
@@ -194,11 +193,11 @@ def fit_study(study: Study, readings: Readings, *, exclude: tuple[str, ...] = ()
     # the photometric part of the error model depends on the readings: re-weight at the fit, refit once
     lb, eps, _ = unpack(model, params, theta)
     state_fit = expected_state(model, rec, log_beta=lb, epsilon_M_cm=eps)
-    W = whitening(error_budget(bench, model, rec, state_fit).total)
+    W = whitening_of(error_budget(bench, model, rec, state_fit))
     res = fit_many(reading.f, theta, y, jac=reading.jac, whiten=W, scale_cov=False, lower=lo, upper=hi)
     theta, se = res.theta[0], res.se[0]
     converged = bool(res.converged[0])
-    promised = cramer_rao(reading.jac(params.guess[None, :])[0], cov).se
+    promised = cramer_rao(reading.jac(params.guess[None, :])[0], W=W0).se
     reason = _not_determined(params, theta, se, converged, lo, hi)
     # every tube's fitted reading (those left out too, from the same constants)
     ions_all = tube_ions_M(model, full.volumes_mL, full.total_volume_mL)

@@ -17,6 +17,7 @@ import numpy as np
 
 from ..inference.discrimination import POWER_GOAL, Detection, detection_power, misfit_rows
 from ..inference.guard import guarded_design
+from ..inference.precision import whitening_of
 from ..inference.study import Study
 from ..inputs.recipe import Recipe, totals_M
 from ..model.compiled import tube_ions_M
@@ -91,8 +92,8 @@ def recipe_detection(study: Study, recipe: Recipe, rng: np.random.Generator, tri
     if not study.alternatives or params.size == 0:
         return ()
     state = expected_state(model, recipe)
-    cov = error_budget(study.bench, model, recipe, state).total
-    return tuple(detection_power(study.bench, model, params, recipe, name, alt, cov, rng, trials)
+    W = whitening_of(error_budget(study.bench, model, recipe, state))
+    return tuple(detection_power(study.bench, model, params, recipe, name, alt, None, rng, trials, W=W)
                  for name, alt in study.alternatives)
 
 

@@ -49,3 +49,24 @@ def test_profile_ends_unchanged_for_an_ordinary_constant():
     plan = parse_plan_text(scenario_text("teaching"))
     a = assess(plan, even_series(plan), trials=0)
     np.testing.assert_allclose(a.profile.log_beta[[0, -1]], [3.3 - 10.0, 3.3 + 10.0])
+
+
+def test_low_rank_whitening_is_a_whitening():
+    # derived (Woodbury): for Σ = D + S Sᵀ the structured W has WᵀW = Σ⁻¹, and applies to rows and columns
+    from planner.inference.precision import Whitening, whitening
+
+    rng = np.random.default_rng(0)
+    n, k = 30, 4
+    var = rng.uniform(1e-6, 4e-6, n)
+    S = rng.normal(0, 1e-3, (n, k))
+    cov = np.diag(var) + S @ S.T
+    W = Whitening.of(var, S)
+    Wd = W.dense()
+    np.testing.assert_allclose(Wd.T @ Wd, np.linalg.inv(cov), rtol=1e-8)
+    x = rng.normal(size=(5, n))
+    np.testing.assert_allclose(x @ W.T, x @ Wd.T, rtol=1e-12)
+    J = rng.normal(size=(n, 3))
+    np.testing.assert_allclose(W @ J, Wd @ J, rtol=1e-12)
+    # the same quadratic forms as the inverse Cholesky factor
+    L = whitening(cov)
+    np.testing.assert_allclose(np.sum((x @ W.T) ** 2, axis=1), np.sum((x @ L.T) ** 2, axis=1), rtol=1e-9)
