@@ -33,15 +33,18 @@ def chi2_sf(x, dof):
     """P(χ²_dof > x) for a whole number of degrees of freedom."""
     k = _whole(dof)
     y = np.maximum(np.asarray(x, dtype=float), 0.0) / 2.0
-    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-        ly = np.log(np.where(y > 0, y, 1.0))
+    yy = y[..., None]
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore", under="ignore"):
+        ly = np.log(np.where(yy > 0, yy, 1.0))
         if k % 2 == 0:
-            terms = [np.exp(i * ly - y - math.lgamma(i + 1)) for i in range(k // 2)]
-            q = np.sum(terms, axis=0) if terms else np.zeros_like(y)
+            i = np.arange(k // 2)
+            lgam = np.concatenate([[0.0], np.cumsum(np.log(np.arange(1, max(k // 2, 1))))])[: i.size]  # log i!
+            q = np.sum(np.exp(i * ly - yy - lgam), axis=-1)
         else:
-            q = _erfc(np.sqrt(y))
-            for i in range((k - 1) // 2):
-                q = q + np.where(y > 0, np.exp((i + 0.5) * ly - y - math.lgamma(i + 1.5)), 0.0)
+            i = np.arange((k - 1) // 2)
+            # log Γ(i + 3/2) = log Γ(3/2) + Σ_{j=1..i} log(j + 1/2)
+            lgam = math.lgamma(1.5) + np.concatenate([[0.0], np.cumsum(np.log(np.arange(1, i.size) + 0.5))])[: i.size]
+            q = _erfc(np.sqrt(y)) + np.sum(np.where(yy > 0, np.exp((i + 0.5) * ly - yy - lgam), 0.0), axis=-1)
     return np.clip(np.where(y > 0, q, 1.0), 0.0, 1.0)
 
 
