@@ -10,7 +10,7 @@ import warnings
 
 from rich.markup import escape
 
-from . import assess, check, demo, design, fit, new, report, sheet, stocks  # noqa: F401  (register commands)
+from . import assess, cards, check, demo, design, fit, new, report, sheet, stocks  # noqa: F401  (register commands)
 from .app import SCENARIOS, UserError, _user_errors, app, err
 from .paper_output import PAPER_CHOICES
 
