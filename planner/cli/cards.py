@@ -61,23 +61,9 @@ def cards(
     roster = read_roster_csv(roster_path) if roster_path is not None else roster_of_count(count)
     roster = _sections(roster, sections)
 
-    from ..jobs.class_stocks import class_stocks
-    from ..jobs.classes import class_set
-    from ..paper import cards as paper_cards
-
     show = err.is_terminal and not as_json
     with _Bar(show, len(roster)) as bar:
-        cs = class_set(p, roster, tubes=tubes, seed=seed, progress=bar.assessed)
-        stocks = class_stocks(p, [c.recipe for c in cs.cards], roster)
-        bar.stage("cards.pdf")
-        files = {"cards.pdf": paper_cards.cards_document(p, cs, paper=paper)}
-        bar.stage("key.pdf")
-        files["key.pdf"] = paper_cards.key_document(p, cs, stocks, paper=paper)
-        files["key.csv"] = paper_cards.key_csv(p, cs).encode("utf-8")
-        files["key.xlsx"] = paper_cards.key_xlsx(p, cs)
-        bar.stage("stocks.pdf")
-        files["stocks.pdf"] = paper_cards.stocks_document(p, cs, stocks, paper=paper)
-        files["stocks.csv"] = paper_cards.stocks_csv(p, stocks).encode("utf-8")
+        cs, stocks, files = make_class_files(p, roster, tubes=tubes, seed=seed, paper=paper, bar=bar)
     for name in OUTPUTS:
         write_atomic_bytes(out_dir / name, files[name])
     summary = cs.summary()
@@ -89,6 +75,30 @@ def cards(
         _print(cs, stocks, out_dir)
     if not cs.sound:
         raise typer.Exit(1)
+
+
+def make_class_files(p, roster, *, tubes: int | None, seed: int, paper: str, bar=None):
+    """The class set, its stock list and every output file's bytes (what ``kplan cards`` writes; the
+    benchmark times this)."""
+    from ..jobs.class_stocks import class_stocks
+    from ..jobs.classes import class_set
+    from ..paper import cards as paper_cards
+
+    bar = bar or _Bar(False, 0)
+    with _CardsPrinter(p, paper) as printer:
+        cs = class_set(p, roster, tubes=tubes, seed=seed, progress=bar.assessed, drafted=printer.drafted)
+        stocks = class_stocks(p, [c.recipe for c in cs.cards], roster)
+        files: dict[str, bytes] = {}
+        bar.stage("key.pdf")
+        files["key.pdf"] = paper_cards.key_document(p, cs, stocks, paper=paper)
+        files["key.csv"] = paper_cards.key_csv(p, cs).encode("utf-8")
+        files["key.xlsx"] = paper_cards.key_xlsx(p, cs)
+        bar.stage("stocks.pdf")
+        files["stocks.pdf"] = paper_cards.stocks_document(p, cs, stocks, paper=paper)
+        files["stocks.csv"] = paper_cards.stocks_csv(p, stocks).encode("utf-8")
+        bar.stage("cards.pdf")
+        files["cards.pdf"] = printer.result(cs)
+    return cs, stocks, files
 
 
 def _print(cs, stocks, out_dir: Path) -> None:
@@ -120,6 +130,61 @@ def _print(cs, stocks, out_dir: Path) -> None:
         err.print("[red]the class set is not sound[/red]: use more tubes per student (--tubes), a looser "
                   "design.goal_se, or fewer students per recipe grid")
     out.print(f"wrote {', '.join(OUTPUTS)} in {escape(str(out_dir))}")
+
+
+def _print_cards(plan, drafts, paper: str) -> bytes:
+    from ..paper.cards import cards_document
+
+    return cards_document(plan, drafts, paper=paper)
+
+
+class _CardsPrinter:
+    """Prints the students' cards in a second process while this one assesses them and prints the key
+    (the cards need only the recipes). Where the assessment replaced a drafted card, or the system
+    cannot fork, the cards are printed here instead; the bytes are the same either way."""
+
+    MIN_CARDS = 8  # below this the second process is not worth starting
+
+    def __init__(self, plan, paper: str):
+        self.plan, self.paper = plan, paper
+        self.drafts = None
+        self.pool = None
+        self.job = None
+
+    def drafted(self, drafts) -> None:
+        import multiprocessing
+
+        self.drafts = drafts
+        if len(drafts) < self.MIN_CARDS or "fork" not in multiprocessing.get_all_start_methods():
+            return
+        self.pool = multiprocessing.get_context("fork").Pool(1)
+        self.job = self.pool.apply_async(_print_cards, (self.plan, drafts, self.paper))
+
+    def result(self, cs) -> bytes:
+        import numpy as np
+
+        same = self.drafts is not None and len(self.drafts) == len(cs.cards) and all(
+            d.recipe.tubes == c.recipe.tubes and np.array_equal(d.recipe.volumes_mL, c.recipe.volumes_mL)
+            for d, c in zip(self.drafts, cs.cards, strict=True))
+        if self.job is not None and same:
+            data = self.job.get()
+            self._close()
+            return data
+        self._close()
+        return _print_cards(self.plan, cs, self.paper)
+
+    def _close(self) -> None:
+        if self.pool is not None:
+            self.pool.terminate()
+            self.pool.join()
+            self.pool = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self._close()
+        return False
 
 
 class _Bar:

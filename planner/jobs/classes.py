@@ -55,12 +55,23 @@ from .compile import compile_study
 from .design import MAX_CANDIDATES, candidate_tubes
 from .series import even_series_for
 
-__all__ = ["Card", "ClassSet", "card_problems", "class_set", "class_set_study"]
+__all__ = ["Card", "ClassSet", "Draft", "card_problems", "class_set", "class_set_study"]
 
 PROPOSALS = 12  # jittered proposals per student and radius
 MAX_RADIUS = 8  # grid steps a tube may move from its pooled composition
 FALLBACKS = 4  # proposals tried per student when assess fails a card
 STARTS = 8  # exchange starts for the single best recipe (as kplan design)
+
+
+@dataclass(frozen=True)
+class Draft:
+    """A card before its assessment: who and the recipe (what a student's card prints)."""
+
+    student: str
+    name: str
+    section: str
+    bench: str
+    recipe: Recipe
 
 
 @dataclass(frozen=True)
@@ -180,9 +191,11 @@ def _composition_key(recipe: Recipe) -> bytes:
 
 
 def class_set(plan: Plan, roster: Roster, *, tubes: int | None = None, seed: int = 0,
-              progress: Callable[[int, int], None] | None = None) -> ClassSet:
+              progress: Callable[[int, int], None] | None = None,
+              drafted: Callable[[tuple[Draft, ...]], None] | None = None) -> ClassSet:
     """Cards for every student of ``roster`` (the plan compiled once; see :func:`class_set_study`)."""
-    return class_set_study(compile_study(plan), roster, tubes=tubes, seed=seed, progress=progress)
+    return class_set_study(compile_study(plan), roster, tubes=tubes, seed=seed, progress=progress,
+                           drafted=drafted)
 
 
 @dataclass(frozen=True)
@@ -282,7 +295,8 @@ def _recipe(study: Study, grid: _Grid, tubes_idx: np.ndarray) -> Recipe:
 
 
 def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, seed: int = 0,
-                    progress: Callable[[int, int], None] | None = None) -> ClassSet:
+                    progress: Callable[[int, int], None] | None = None,
+                    drafted: Callable[[tuple[Draft, ...]], None] | None = None) -> ClassSet:
     """:func:`class_set` on a compiled plan (module docstring: how the students are spread).
 
     Parameters
@@ -290,6 +304,8 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
     tubes : tubes per student (default the plan's design.tubes).
     seed : seeds the exchange starts and the jitter; same seed and roster → the same cards.
     progress : callback(done, total) while the cards are assessed.
+    drafted : callback given the drafted cards before they are assessed (so the printing of the
+        students' cards can start meanwhile); a card the assessment replaces differs from its draft.
 
     Raises
     ------
@@ -360,9 +376,13 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
         for s in pending:
             chosen[s] = alloc[s]
     # 4. judge every card with the assessment itself
+    recipes = [_recipe(study, grid, chosen[s]) for s in range(N)]
+    if drafted is not None:
+        drafted(tuple(Draft(roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s], recipes[s])
+                      for s in range(N)))
     cards = []
     for s in range(N):
-        rec = _recipe(study, grid, chosen[s])
+        rec = recipes[s]
         a = assess_study(study, rec, trials=0)
         if card_problems(a) and s not in unplaced:
             for alt in spare[s]:  # the student's next proposals, while assess fails the card

@@ -86,9 +86,9 @@ def _student_safety(plan: Plan) -> dict:
             "clashes": [c.advice for c in safety.clashes(safety.hazards_for(plan))]}
 
 
-def _card_shared(plan: Plan, cs: ClassSet) -> dict:
+def _card_shared(plan: Plan, cards) -> dict:
     g, o = plan.glassware, plan.optics
-    rec0 = cs.cards[0].recipe
+    rec0 = cards[0].recipe
     seq = addition_order(plan, rec0, g.order)
     to_mark = g.make_up == "to-mark" and plan.diluent is not None
     blank_name, _ = blank_text(plan)
@@ -120,12 +120,14 @@ def _card_shared(plan: Plan, cs: ClassSet) -> dict:
     }
 
 
-def cards_context(plan: Plan, cs: ClassSet, *, paper: str = "A4") -> dict:
-    """Template context of ``cards.pdf`` (one page per student)."""
-    shared = _card_shared(plan, cs)
+def cards_context(plan: Plan, cs, *, paper: str = "A4") -> dict:
+    """Template context of ``cards.pdf`` (one page per student); ``cs`` is a :class:`ClassSet` or the
+    drafted cards (anything with student, name, section, bench and recipe)."""
+    drafts = cs.cards if isinstance(cs, ClassSet) else tuple(cs)
+    shared = _card_shared(plan, drafts)
     step = plan.glassware.step_mL
     cards = []
-    for c in cs.cards:
+    for c in drafts:
         steps = addition_steps(plan, c.recipe, shared["seq"], custom=shared["custom_order"])
         rows = [{"tube": t, "cells": [("—" if c.recipe.column(sid)[i] == 0 else fmt.volume(c.recipe.column(sid)[i], step))
                                        for sid in shared["seq"]]}
@@ -135,8 +137,9 @@ def cards_context(plan: Plan, cs: ClassSet, *, paper: str = "A4") -> dict:
     return {"kind": "cards", "paper": paper, **shared, "cards": cards}
 
 
-def cards_document(plan: Plan, cs: ClassSet, *, paper: str = "A4", fmt_: str = "pdf") -> bytes:
-    """``cards.pdf``: one page per student (or the HTML with ``fmt_="html"``)."""
+def cards_document(plan: Plan, cs, *, paper: str = "A4", fmt_: str = "pdf") -> bytes:
+    """``cards.pdf``: one page per student (or the HTML with ``fmt_="html"``); ``cs`` as in
+    :func:`cards_context`."""
     _check(paper, fmt_)
     return _out(render_html("cards.html.j2", cards_context(plan, cs, paper=paper)), fmt_)
 
