@@ -401,6 +401,9 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
             progress(s + 1, N)
     even = even_series_for(study, n)
     se = _pooled_ses(study, cards, best, even, roster)
+    if not se["best_single"] <= goal:
+        notes.insert(0, f"even the best recipe of {n} tubes gives SE {se['best_single']:.3g} > goal {goal:g}: "
+                        f"no card can pass; give each student more tubes (--tubes) or relax design.goal_se")
     if grid.step_mL != study.bench.step_mL:
         notes.append(f"the candidates were searched on a {grid.step_mL:g} mL grid (a multiple of the plan's "
                      f"{study.bench.step_mL:g} mL) to keep the search small")

@@ -39,7 +39,7 @@ KEY_COLUMNS = ("student", "name", "section", "tube")  # then one column per stoc
 KEY_TAIL = ("absorbance", "band_low", "band_high")
 BAND_SD = 2.0  # acceptance band: ±2 sd of the full error budget [common practice: ~95 % coverage]
 FIXED_TIME = (2000, 1, 1, 0, 0, 0)  # timestamps inside key.xlsx (fixed: same input, same bytes)
-NAME_MAX = 60  # characters of roster text printed on a page (the CSV and the workbook keep it whole)
+NAME_MAX = 48  # characters of roster text printed on a page (the CSV and the workbook keep it whole)
 UNKNOWN_HAZARD = ("no hazard data on this card: read the supplier's safety data sheet and ask your "
                   "instructor before you use it")
 
@@ -137,11 +137,32 @@ def cards_context(plan: Plan, cs, *, paper: str = "A4") -> dict:
     return {"kind": "cards", "paper": paper, **shared, "cards": cards}
 
 
+DENSITIES = 4  # type sizes tried until every card fits on one page (0: the normal size)
+
+
 def cards_document(plan: Plan, cs, *, paper: str = "A4", fmt_: str = "pdf") -> bytes:
     """``cards.pdf``: one page per student (or the HTML with ``fmt_="html"``); ``cs`` as in
-    :func:`cards_context`."""
+    :func:`cards_context`.
+
+    A card that runs onto a second page (many tubes, many reagents in the safety box) is set again
+    in smaller type, at most DENSITIES − 1 times; the laid-out pages are counted before the PDF is
+    written, so a card set that fits at once is laid out once.
+    """
+    import weasyprint
+
+    from .render import DataOnlyFetcher
+
     _check(paper, fmt_)
-    return _out(render_html("cards.html.j2", cards_context(plan, cs, paper=paper)), fmt_)
+    ctx = cards_context(plan, cs, paper=paper)
+    want = len(ctx["cards"])
+    for density in range(DENSITIES):
+        html = render_html("cards.html.j2", {**ctx, "density": density})
+        if fmt_ == "html":
+            return html.encode("utf-8")
+        doc = weasyprint.HTML(string=html, base_url=None, url_fetcher=DataOnlyFetcher()).render()
+        if len(doc.pages) <= want:
+            break
+    return doc.write_pdf()
 
 
 # --------------------------------------------------------------------------------------------------

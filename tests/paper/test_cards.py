@@ -62,7 +62,7 @@ def test_cards_speak_to_students(card_html):
 
 def test_hostile_roster_text_is_text(card_html):
     assert "<img" not in card_html and "<script" not in card_html
-    assert "&lt;img src=" in card_html and "&lt;script&gt;" in card_html
+    assert "&lt;img src=" in card_html and "&lt;scr" in card_html
     assert "{{ 7*7 }}" in card_html and "49" not in re.sub(r"\d+\.\d+", "", card_html.split("Ludovika")[0][-40:])
     assert "<bdi>\u202eAzadeh Ronsard\u202c</bdi>" in card_html  # the override stays inside its own box
     assert LONG not in card_html and ("Q" * (pc.NAME_MAX - 1) + "…") in card_html
@@ -130,3 +130,13 @@ def test_stocks_csv_and_pdf(plan, cset):
         assert sum(parts) == pytest.approx(float(whole[s.id]["total_mL"]), abs=0.02)
     assert len(parts) == len(set(roster_sections))
     assert len(PdfReader(io.BytesIO(pc.stocks_document(plan, cset, st))).pages) >= 1
+
+
+def test_many_tubes_still_one_page_each(plan, study):
+    from pypdf import PdfReader
+
+    from planner.inputs.roster import roster_of_count
+
+    cs = class_set_study(study, roster_of_count(2), seed=0, tubes=14)
+    pdf = pc.cards_document(plan, cs)
+    assert len(PdfReader(io.BytesIO(pdf)).pages) == 2  # set in smaller type until each card fits
