@@ -85,7 +85,7 @@ def make_class_files(p, roster, *, tubes: int | None, seed: int, paper: str, bar
     from ..paper import cards as paper_cards
 
     bar = bar or _Bar(False, 0)
-    with _CardsPrinter(p, paper) as printer:
+    with _CardsPrinter(p, paper, len(roster)) as printer:
         cs = class_set(p, roster, tubes=tubes, seed=seed, progress=bar.assessed, drafted=printer.drafted)
         stocks = class_stocks(p, [c.recipe for c in cs.cards], roster)
         files: dict[str, bytes] = {}
@@ -132,6 +132,13 @@ def _print(cs, stocks, out_dir: Path) -> None:
     out.print(f"wrote {', '.join(OUTPUTS)} in {escape(str(out_dir))}")
 
 
+def _warm_up() -> None:
+    """Load WeasyPrint and the fonts in the printing process while the class set is designed."""
+    from ..paper.render import html_to_pdf
+
+    html_to_pdf("<p>kplan</p>")
+
+
 def _print_cards(plan, drafts, paper: str) -> bytes:
     from ..paper.cards import cards_document
 
@@ -145,20 +152,21 @@ class _CardsPrinter:
 
     MIN_CARDS = 8  # below this the second process is not worth starting
 
-    def __init__(self, plan, paper: str):
+    def __init__(self, plan, paper: str, students: int):
+        import multiprocessing
+
         self.plan, self.paper = plan, paper
         self.drafts = None
         self.pool = None
         self.job = None
+        if students >= self.MIN_CARDS and "fork" in multiprocessing.get_all_start_methods():
+            self.pool = multiprocessing.get_context("fork").Pool(1)
+            self.pool.apply_async(_warm_up)
 
     def drafted(self, drafts) -> None:
-        import multiprocessing
-
         self.drafts = drafts
-        if len(drafts) < self.MIN_CARDS or "fork" not in multiprocessing.get_all_start_methods():
-            return
-        self.pool = multiprocessing.get_context("fork").Pool(1)
-        self.job = self.pool.apply_async(_print_cards, (self.plan, drafts, self.paper))
+        if self.pool is not None:
+            self.job = self.pool.apply_async(_print_cards, (self.plan, drafts, self.paper))
 
     def result(self, cs) -> bytes:
         import numpy as np
