@@ -340,15 +340,7 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
     pending = np.arange(N)
     notes: list[str] = []
     while pending.size and radius <= MAX_RADIUS:
-        sup = np.unique(alloc[pending])
-        table, count = _neighbours(grid, sup, radius)
-        where = np.searchsorted(sup, alloc[pending])                          # (m, n) rows of the table
-        K = 1 if radius == 0 else PROPOSALS
-        u = rng.random((pending.size, K, n))
-        pick = np.minimum((u * count[where][:, None, :]).astype(int), count[where][:, None, :] - 1)
-        props = table[where[:, None, :], pick]                               # (m, K, n) feasible indices
-        se, loss = _score(grid, props.reshape(-1, n), t)
-        se, loss = se.reshape(pending.size, K), loss.reshape(pending.size, K)
+        props, se, loss = _proposals(grid, alloc[pending], radius, 1 if radius == 0 else PROPOSALS, rng, t)
         rank = np.argsort(np.where(se <= goal, loss, np.inf), axis=1, kind="stable")
         left = []
         for i, s in enumerate(pending):  # one entry per student and proposal: hashing, not arithmetic
@@ -381,6 +373,7 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
         drafted(tuple(Draft(roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s], recipes[s])
                       for s in range(N)))
     cards = []
+    rescued = 0
     for s in range(N):
         rec = recipes[s]
         a = assess_study(study, rec, trials=0)
@@ -396,9 +389,18 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
                     used.add(key_new)
                     chosen[s], rec, a = alt, rec2, a2
                     break
+        if card_problems(a) and s not in unplaced:
+            found = _rescue(study, grid, alloc[s], goal, used, rng, t)
+            if found is not None:
+                used.discard(_set_key(grid, chosen[s]))
+                used.add(_set_key(grid, found[0]))
+                chosen[s], rec, a = found
+                rescued += 1
         cards.append(Card(roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s], rec, a))
         if progress is not None:
             progress(s + 1, N)
+    if rescued:
+        notes.append(f"{rescued} card(s) failed a check of the assessment and were drawn again")
     even = even_series_for(study, n)
     se = _pooled_ses(study, cards, best, even, roster)
     if not se["best_single"] <= goal:
@@ -409,6 +411,43 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
                      f"{study.bench.step_mL:g} mL) to keep the search small")
     return ClassSet(study.title, study.target, goal, tuple(cards), best, even, seed, radius_used, grid.step_mL,
                     se, tuple(notes))
+
+
+def _proposals(grid: _Grid, alloc: np.ndarray, radius: int, K: int, rng: np.random.Generator, t: int):
+    """K jittered proposals for each row of ``alloc`` (m, n): every tube moved to a uniformly drawn
+    feasible grid neighbour within ±radius steps, all at once. Returns the proposals (m, K, n) and
+    their SE at the guess and robust loss (m, K)."""
+    m, n = alloc.shape
+    sup = np.unique(alloc)
+    table, count = _neighbours(grid, sup, radius)
+    where = np.searchsorted(sup, alloc)                                       # (m, n) rows of the table
+    cnt = count[where][:, None, :]
+    pick = np.minimum((rng.random((m, K, n)) * cnt).astype(int), cnt - 1)
+    props = table[where[:, None, :], pick]                                   # (m, K, n) feasible indices
+    se, loss = _score(grid, props.reshape(-1, n), t)
+    return props, se.reshape(m, K), loss.reshape(m, K)
+
+
+RESCUE_TRIES = 3  # assessments per radius for a card that failed a check
+
+
+def _rescue(study: Study, grid: _Grid, alloc_row: np.ndarray, goal: float, used: set, rng, t: int):
+    """Fresh proposals for one student whose card failed a check (a check the range screen and the
+    SE cannot foresee, such as a hand-analysis shortcut): growing radius, best first, each assessed."""
+    for radius in range(1, MAX_RADIUS + 1):
+        props, se, loss = _proposals(grid, alloc_row[None, :], radius, PROPOSALS, rng, t)
+        tried = 0
+        for k in np.argsort(np.where(se[0] <= goal, loss[0], np.inf), kind="stable"):
+            if not se[0, k] <= goal or tried >= RESCUE_TRIES:
+                break
+            if _set_key(grid, props[0, k]) in used:
+                continue
+            tried += 1
+            rec = _recipe(study, grid, props[0, k])
+            a = assess_study(study, rec, trials=0)
+            if not card_problems(a):
+                return props[0, k], rec, a
+    return None
 
 
 def _set_key(grid: _Grid, tubes_idx: np.ndarray) -> bytes:
