@@ -24,8 +24,9 @@ of tubes grows, the best exact design of N × n tubes converges to N·n times it
 4. every card is then judged by :func:`planner.jobs.assess.assess_study` itself (checks, verdict,
    χ² profile): a card passes when the verdict is ``resolved``, no check fails and the linear-range
    check passes outright (every tube inside the range over the guess's uncertainty). A failing card
-   falls back to that student's next proposal; a class that still has failing cards is reported as
-   not sound.
+   (a check neither the range screen nor the SE foresees, such as the complete-conversion shortcut)
+   falls back to that student's next proposals, then to fresh proposals at growing radius, each
+   assessed; a class that still has failing cards is reported as not sound.
 
 The comparison baselines are N copies of the single best recipe (the exact design of n tubes by the
 exchange algorithm, as ``kplan design`` makes it) and N copies of the evenly spaced series

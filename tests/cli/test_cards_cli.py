@@ -84,3 +84,17 @@ def test_unsound_class_exits_1(tmp_path, capsys, monkeypatch):
     code, out, err = run(capsys, monkeypatch, "cards", plan, "--count", 2, "--out", tmp_path / "o")
     assert code == 1
     assert "fails" in err and "not sound" in err
+
+
+def test_cards_printed_in_a_second_process_are_the_same_bytes(tmp_path, capsys, monkeypatch):
+    # eight cards or more: cards.pdf comes from the printing process; it must equal printing here
+    from planner.inputs.plan import load_plan
+    from planner.inputs.roster import roster_of_count
+    from planner.jobs.classes import class_set
+    from planner.paper.cards import cards_document
+
+    code, _, err = run(capsys, monkeypatch, "cards", PLAN, "--count", 8, "--tubes", 5, "--out", tmp_path)
+    assert code == 0, err
+    plan = load_plan(PLAN)
+    here = cards_document(plan, class_set(plan, roster_of_count(8), tubes=5, seed=0))
+    assert (tmp_path / "cards.pdf").read_bytes() == here
