@@ -103,6 +103,11 @@ def test_key_csv_is_not_a_formula(plan, study):
     text = pc.key_csv(plan, cs)
     names = {r["name"] for r in csv.DictReader(io.StringIO(text))}
     assert names == {"'=HYPERLINK(\"x\")", "Maelle Orsk"}  # source: OWASP, CSV injection (quote the cell)
+    from openpyxl import load_workbook
+
+    ws = load_workbook(io.BytesIO(pc.key_xlsx(plan, cs)))["key"]
+    cell = ws.cell(row=2, column=2)
+    assert cell.value == '=HYPERLINK("x")' and cell.data_type == "s"  # stored as text, not a formula
 
 
 def test_key_xlsx_deterministic_and_readable(plan, cset):
