@@ -283,7 +283,14 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
         ("the class pooled, stock errors left out (stocks standardised)", se["pooled_without_stock"], None),
     ]
     notes = list(cs.notes)
+    for r in safety.hazards_for(plan):  # what the cards could not say to students goes to the instructor
+        if r.hazards is None and r.message:
+            notes.append(f"safety: {r.message}")
     for s in stocks:
+        st = plan.stock_by_id(s.id)
+        if s.preparation is not None and st.conc_rsd < s.preparation.u_rel * 0.999:
+            notes.append(f"stock {s.id}: the weighing gives u = {fmt.percent(s.preparation.u_rel)} but the plan "
+                         f"assumes conc_rsd = {fmt.percent(st.conc_rsd)}: raise conc_rsd or standardise the stock")
         if s.enough is False:
             notes.append(f"stock {s.id}: the class needs {fmt.fixed(s.total_mL, 0.1)} mL but on_hand is "
                          f"{fmt.sig(s.on_hand_mL, 3)} mL: make {fmt.fixed(s.shortfall_mL, 0.1)} mL more "

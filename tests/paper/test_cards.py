@@ -145,3 +145,10 @@ def test_many_tubes_still_one_page_each(plan, study):
     cs = class_set_study(study, roster_of_count(2), seed=0, tubes=14)
     pdf = pc.cards_document(plan, cs)
     assert len(PdfReader(io.BytesIO(pdf)).pages) == 2  # set in smaller type until each card fits
+
+
+def test_plan_advice_goes_to_the_instructors_key(plan, cset, card_html):
+    st = class_stocks(plan, [c.recipe for c in cset.cards], parse_roster_csv(HOSTILE))
+    key = pc.key_document(plan, cset, st, fmt_="html").decode("utf-8")
+    assert "raise conc_rsd" in key and "add reagent = " in key  # the teaching plan leaves both to fix
+    assert "raise conc_rsd" not in card_html and "add reagent" not in card_html
