@@ -29,7 +29,8 @@ of tubes grows, the best exact design of N × n tubes converges to N·n times it
    assessed; a class that still has failing cards is reported as not sound.
 
 The comparison baselines are N copies of the single best recipe (the exact design of n tubes by the
-exchange algorithm, as ``kplan design`` makes it) and N copies of the evenly spaced series
+exchange algorithm on the same candidates, as ``kplan design`` makes it, without its per-recipe stock
+caps: the class stock list sizes the stocks instead) and N copies of the evenly spaced series
 (:func:`planner.jobs.series.even_series_for`); how the class's shared errors are pooled is described
 in :mod:`planner.jobs.class_pooled`.
 """
@@ -395,7 +396,8 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
             if found is not None:
                 used.discard(_set_key(grid, chosen[s]))
                 used.add(_set_key(grid, found[0]))
-                chosen[s], rec, a = found
+                chosen[s], rec, a, r_found = found
+                radius_used = max(radius_used, r_found)
                 rescued += 1
         cards.append(Card(roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s], rec, a))
         if progress is not None:
@@ -447,7 +449,7 @@ def _rescue(study: Study, grid: _Grid, alloc_row: np.ndarray, goal: float, used:
             rec = _recipe(study, grid, props[0, k])
             a = assess_study(study, rec, trials=0)
             if not card_problems(a):
-                return props[0, k], rec, a
+                return props[0, k], rec, a, radius
     return None
 
 
