@@ -112,7 +112,7 @@ def student_target_var(rows: Rows, t: int) -> np.ndarray:
 
 
 def pooled_target_se(theta: np.ndarray, stock: np.ndarray, device: np.ndarray, bench: np.ndarray, t: int,
-                     *, stock_shared: bool = True) -> float:
+                     *, stock_shared: bool = True, stock_group: np.ndarray | None = None) -> float:
     """SE of the target when every student's tubes are fitted together.
 
     Parameters
@@ -122,6 +122,9 @@ def pooled_target_se(theta: np.ndarray, stock: np.ndarray, device: np.ndarray, b
     t : index of the target among the fitted parameters.
     stock_shared : True: one set of stock factors for the class (one bottle of each stock);
         False: the stock errors left out (stocks standardised, or known exactly), for comparison.
+    stock_group : (N,) optional group of each student whose stocks are made separately (e.g. the
+        section): one set of stock factors per group, marginalised group by group. Benches must nest
+        in the groups (a bench belongs to one group).
     """
     N, n, P = theta.shape
     k = stock.shape[-1] if stock_shared else 0
@@ -141,6 +144,15 @@ def pooled_target_se(theta: np.ndarray, stock: np.ndarray, device: np.ndarray, b
     if d:
         Cb = Cb + np.eye(d)
         Ab = Ab - Bb @ np.linalg.solve(Cb, np.swapaxes(Bb, 1, 2))
-    M = Ab.sum(axis=0)
-    M[np.arange(P, P + k), np.arange(P, P + k)] += 1.0
+    if stock_group is None or not k:
+        M = Ab.sum(axis=0)
+        M[np.arange(P, P + k), np.arange(P, P + k)] += 1.0
+        return float(np.sqrt(_target_var(M, t)))
+    _, grp = np.unique(np.asarray(stock_group), return_inverse=True)
+    bench_grp = np.zeros(nb, dtype=int)
+    bench_grp[b] = grp
+    Ms = np.zeros((int(grp.max()) + 1,) + Ab.shape[1:])
+    np.add.at(Ms, bench_grp, Ab)
+    tt, ts, ss = Ms[:, :P, :P], Ms[:, :P, P:], Ms[:, P:, P:] + np.eye(k)
+    M = (tt - ts @ np.linalg.solve(ss, np.swapaxes(ts, 1, 2))).sum(axis=0)
     return float(np.sqrt(_target_var(M, t)))

@@ -123,8 +123,9 @@ class ClassSet:
     seed : the seed used.
     radius_steps : largest grid move any tube needed (0: no jitter was needed).
     se : SEs of the target: "best_single", "even_single", "cards_median", "cards_max",
-        "pooled" (all cards fitted together), "pooled_best_copies", "pooled_even_copies",
-        "pooled_without_stock" (the same, stock errors left out).
+        "pooled" (all cards fitted together, one bottle of each stock for the class),
+        "pooled_best_copies", "pooled_even_copies", "pooled_stock_per_section" (each section makes
+        its own stocks), "pooled_without_stock" (stock errors left out: standardised stocks).
     notes : what the builder did that the instructor should know.
     """
 
@@ -472,12 +473,12 @@ def _pooled_ses(study: Study, cards: list[Card], best: Recipe, even: Recipe, ros
         big = Recipe(tuple(f"x{i}" for i in range(vols.shape[0])), recipes[0].stock_ids, vols, tot)
         return recipe_rows(study, big, guess)
 
-    def pooled(rows: Rows, copies: bool, shared: bool = True) -> float:
+    def pooled(rows: Rows, copies: bool, shared: bool = True, group=None) -> float:
         def shape(a):
             a = a[0]
             return np.broadcast_to(a, (N,) + a.shape) if copies else a.reshape(N, n, -1)
         return pooled_target_se(shape(rows.theta), shape(rows.stock), shape(rows.device), bench, t,
-                                stock_shared=shared)
+                                stock_shared=shared, stock_group=group)
 
     rc = stacked([c.recipe for c in cards])
     rb = stacked([best])
@@ -491,5 +492,6 @@ def _pooled_ses(study: Study, cards: list[Card], best: Recipe, even: Recipe, ros
         "pooled": pooled(rc, False),
         "pooled_best_copies": pooled(rb, True),
         "pooled_even_copies": pooled(re_, True),
+        "pooled_stock_per_section": pooled(rc, False, group=np.array(roster.sections)),
         "pooled_without_stock": pooled(rc, False, shared=False),
     }

@@ -280,6 +280,7 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
         (f"the whole class pooled ({len(cs.cards)} cards, stocks shared)", se["pooled"], None),
         (f"{len(cs.cards)} copies of the best single recipe", se["pooled_best_copies"], se["pooled_best_copies"] / se["pooled"]),
         (f"{len(cs.cards)} copies of the evenly spaced series", se["pooled_even_copies"], se["pooled_even_copies"] / se["pooled"]),
+        ("the class pooled, each section making its own stocks", se["pooled_stock_per_section"], None),
         ("the class pooled, stock errors left out (stocks standardised)", se["pooled_without_stock"], None),
     ]
     notes = list(cs.notes)

@@ -152,3 +152,12 @@ def test_unreachable_goal_is_not_sound(study):
 
     cs = class_set_study(replace(study, goal_se=0.001), roster_of_count(2), seed=0)
     assert not cs.sound and "no card can pass" in cs.notes[0]
+
+
+def test_stocks_per_section_average_between_sections(study, roster, cset):
+    se = cset.se
+    # derived: separate bottles per section make the stock errors partly average out; one section
+    # (or one bottle for the class) is the shared case
+    assert se["pooled_without_stock"] <= se["pooled_stock_per_section"] <= se["pooled"] * (1 + 1e-9)
+    one = class_set_study(study, roster_of_count(3), seed=0)
+    assert one.se["pooled_stock_per_section"] == pytest.approx(one.se["pooled"], rel=1e-9)
