@@ -43,6 +43,8 @@ class ClassStock:
     preparation : how to make it (None without a formula), for ``batches`` × the flask.
     batches : how many flasks of the preparation make the class total.
     problem : why no preparation was computed (None if fine or not asked).
+    section_preparations : per section, (preparation, batches) when each section makes its own, or
+        None (no formula, or nothing to make).
     """
 
     id: str
@@ -56,6 +58,7 @@ class ClassStock:
     preparation: stk.StockPreparation | None
     batches: int
     problem: str | None
+    section_preparations: tuple = ()
 
     @property
     def enough(self) -> bool | None:
@@ -78,6 +81,8 @@ class ClassStock:
             "on_hand_mL": self.on_hand_mL, "enough": self.enough, "shortfall_mL": self.shortfall_mL,
             "preparation": self.preparation.summary() if self.preparation else None,
             "batches": self.batches, "problem": self.problem,
+            "section_preparations": [None if sp is None else {"preparation": sp[0].summary(), "batches": sp[1]}
+                                     for sp in self.section_preparations],
         }
 
 
@@ -109,14 +114,16 @@ def class_stocks(plan: Plan, recipes: list[Recipe], roster: Roster) -> tuple[Cla
         allow = nbk * per_tube_allow
         total = tubes + allow
         prep, problem, batches = None, None, 1
+        sec_preps: list = []
         comp = "M" if "M" in s.conc else ("L" if "L" in s.conc else None)
         if s.formula and comp is not None and total > 0:
             try:
                 prep, batches = _prepare(plan, s, comp, total)
+                sec_preps = [_prepare(plan, s, comp, t) if t > 0 else None for _, _, _, t in sec_rows]
             except (stk.StockError, GlasswareError) as exc:
                 problem = str(exc)
         out.append(ClassStock(s.id, s.label, tubes, nbk, allow, total, tuple(sec_rows), s.on_hand, prep, batches,
-                              problem))
+                              problem, tuple(sec_preps)))
     return tuple(out)
 
 

@@ -352,8 +352,12 @@ def stocks_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, 
             "on_hand": f"{fmt.sig(s.on_hand_mL, 4)} mL" if s.on_hand_mL is not None else "—",
             "enough": s.enough, "short": fmt.fixed(s.shortfall_mL, 0.1),
             "how": _how(plan, s),
-            "sections": [{"name": name or "—", "tubes": fmt.fixed(v, 0.1), "benches": b, "total": fmt.fixed(t, 0.1)}
-                         for name, v, b, t in s.sections],
+            "sections": [{"name": name or "—", "tubes": fmt.fixed(v, 0.1), "benches": b, "total": fmt.fixed(t, 0.1),
+                          "weigh": None if sp is None else
+                          (f"{sp[1]} × " if sp[1] > 1 else "") + f"{fmt.mass(sp[0].mass_g, g.balance.readability_g)} "
+                          f"in {sp[0].flask.capacity_mL:g} mL"}
+                         for (name, v, b, t), sp in zip(s.sections, s.section_preparations or (None,) * len(s.sections),
+                                                        strict=True)],
         })
     return {"kind": "stocks", "paper": paper, "title": plan.title, "count": len(cs.cards),
             "rinse": fmt.sig(g.rinse_mL, 3), "dead": fmt.sig(g.dead_volume_mL, 3), "rows": rows,
@@ -386,7 +390,10 @@ def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
                     "" if p is None else f"{p.mass_g:.4f}", "" if p is None else f"{p.flask.capacity_mL:g}",
                     s.batches if p is not None else ""])
     for s in stocks:
-        for name, v, b, t in s.sections:
+        preps = s.section_preparations or (None,) * len(s.sections)
+        for (name, v, b, t), sp in zip(s.sections, preps, strict=True):
             w.writerow([s.id, f"section {_csv_safe(name)}" if name else "section", f"{v:.2f}", b,
-                        f"{b * allow:.2f}", f"{t:.2f}", "", "", "", "", ""])
+                        f"{b * allow:.2f}", f"{t:.2f}", "", "",
+                        "" if sp is None else f"{sp[0].mass_g:.4f}", "" if sp is None else f"{sp[0].flask.capacity_mL:g}",
+                        "" if sp is None else sp[1]])
     return buf.getvalue()

@@ -130,6 +130,8 @@ def test_class_stock_list_is_the_sum_over_benches(plan, roster, cset):
     cu = stocks[0]
     assert cu.preparation is not None and cu.enough is False  # 100 mL on hand cannot serve five students
     assert cu.preparation.flask.capacity_mL * cu.batches >= cu.total_mL
+    for (_, _, _, total), (prep, batches) in zip(cu.sections, cu.section_preparations, strict=True):
+        assert prep.flask.capacity_mL * batches >= total  # each section's own batch covers its need
 
 
 def test_a_card_failing_a_check_is_drawn_again():
