@@ -13,7 +13,7 @@ import warnings
 
 import typer
 
-from . import assess, check, demo, design, fit, grade, new, report, series, sheet, stocks  # noqa: F401  (register commands)
+from . import assess, cards, check, demo, design, fit, grade, new, report, series, sheet, stocks  # noqa: F401  (register commands)
 from .app import SCENARIOS, UserError, _user_errors, app, err, one_line
 from .paper_output import PAPER_CHOICES
 

@@ -1,0 +1,227 @@
+"""``kplan cards``: a class set — one recipe card per student, the instructor's key and the class stock list."""
+
+from __future__ import annotations
+
+import string
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from ..inputs.choices import PAPERS as PAPER_CHOICES
+from .app import UserError, app, dump_json, err, out
+from .app import safe_text as S
+
+OUTPUTS = ("cards.pdf", "key.pdf", "key.csv", "key.xlsx", "stocks.pdf", "stocks.csv")
+
+
+def _sections(roster, k: int | None):
+    """The roster with ``k`` sections in contiguous blocks (A, B, …) when asked for."""
+    if k is None:
+        return roster
+    from dataclasses import replace
+
+    if k < 1 or k > len(roster):
+        raise UserError(f"--sections {k}: give between 1 and the number of students ({len(roster)})")
+    if any(roster.sections):
+        raise UserError("--sections: the roster already has a section column; leave --sections out")
+    names = list(string.ascii_uppercase) if k <= 26 else [str(i + 1) for i in range(k)]
+    size = -(-len(roster) // k)
+    return replace(roster, sections=tuple(names[i // size] for i in range(len(roster))))
+
+
+@app.command()
+def cards(
+    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    roster_path: Annotated[Path | None, typer.Option(
+        "--roster", help="class roster CSV: id, name (optional section, bench)")] = None,
+    count: Annotated[int | None, typer.Option(help="number of students, without a roster (ids S01, S02, …)",
+                                              min=1)] = None,
+    out_dir: Annotated[Path, typer.Option("--out", help="folder for the cards, the key and the stock list")] = Path(
+        "kplan-cards"),
+    seed: Annotated[int, typer.Option(help="seed: the same seed and roster give the same files")] = 0,
+    tubes: Annotated[int | None, typer.Option(help="tubes per student (overrides design.tubes)", min=1)] = None,
+    sections: Annotated[int | None, typer.Option(
+        help="split the class into K sections (A, B, …) in roster order", min=1)] = None,
+    paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}")] = "A4",
+    as_json: Annotated[bool, typer.Option("--json", help="print the class summary as JSON")] = False,
+) -> None:
+    """One recipe card per student — every card a different, individually sound recipe, together a good
+    pooled design — with the instructor's key (expected readings and acceptance bands) and the class
+    stock list. Exit 0 when every card passes, 1 when the class set cannot be made sound."""
+    from ..inputs.files import check_output_folder, write_atomic_many
+    from ..inputs.plan import load_plan
+    from ..inputs.roster import read_roster_csv, roster_of_count
+
+    if (roster_path is None) == (count is None):
+        raise UserError("give either --roster FILE or --count N (one of them)")
+    if paper not in PAPER_CHOICES:
+        raise UserError(f"--paper {paper}: choose one of {', '.join(PAPER_CHOICES)}")
+    check_output_folder(out_dir)  # before the work, not after it
+    p = load_plan(plan)
+    roster = read_roster_csv(roster_path) if roster_path is not None else roster_of_count(count)
+    roster = _sections(roster, sections)
+
+    show = err.is_terminal and not as_json
+    with _Bar(show, len(roster)) as bar:
+        cs, stocks, files = make_class_files(p, roster, tubes=tubes, seed=seed, paper=paper, bar=bar)
+    # the cards, the key and the stock list belong together: all of them or none
+    write_atomic_many({out_dir / name: files[name] for name in OUTPUTS})
+    summary = cs.summary()
+    summary["stocks"] = [s.summary() for s in stocks]
+    summary["files"] = [str(out_dir / n) for n in OUTPUTS]
+    if as_json:
+        print(dump_json(summary))
+    else:
+        _print(cs, stocks, out_dir)
+    if not cs.sound:
+        raise typer.Exit(1)
+
+
+def make_class_files(p, roster, *, tubes: int | None, seed: int, paper: str, bar=None):
+    """The class set, its stock list and every output file's bytes (what ``kplan cards`` writes; the
+    benchmark times this)."""
+    from ..jobs.class_stocks import class_stocks
+    from ..jobs.classes import class_set
+    from ..paper import cards as paper_cards
+
+    bar = bar or _Bar(False, 0)
+    with _CardsPrinter(p, paper, len(roster)) as printer:
+        cs = class_set(p, roster, tubes=tubes, seed=seed, progress=bar.assessed, drafted=printer.drafted)
+        stocks = class_stocks(p, [c.recipe for c in cs.cards], roster)
+        files: dict[str, bytes] = {}
+        bar.stage("key.pdf")
+        files["key.pdf"] = paper_cards.key_document(p, cs, stocks, paper=paper)
+        files["key.csv"] = paper_cards.key_csv(p, cs).encode("utf-8")
+        files["key.xlsx"] = paper_cards.key_xlsx(p, cs)
+        bar.stage("stocks.pdf")
+        files["stocks.pdf"] = paper_cards.stocks_document(p, cs, stocks, paper=paper)
+        files["stocks.csv"] = paper_cards.stocks_csv(p, stocks).encode("utf-8")
+        bar.stage("cards.pdf")
+        files["cards.pdf"] = printer.result(cs)
+    return cs, stocks, files
+
+
+def _print(cs, stocks, out_dir: Path) -> None:
+
+    from ..paper import fmt
+
+    se = cs.se
+    n = len(cs.cards)
+    out.print(f"[bold]{S(cs.title)}[/bold]: {n} cards of {cs.best.n_tubes} tubes, seed {cs.seed}")
+    out.print(f"  SE of log β[{cs.target}]: one card {fmt.sig(se['cards_median'], 2)} (median; worst "
+              f"{fmt.sig(se['cards_max'], 2)}, goal {fmt.sig(cs.goal_se, 2)})")
+    out.print(f"  class pooled {fmt.sig(se['pooled'], 2)}; {n} copies of the best recipe "
+              f"{fmt.sig(se['pooled_best_copies'], 2)}; {n} copies of the even series "
+              f"{fmt.sig(se['pooled_even_copies'], 2)}; stock errors left out {fmt.sig(se['pooled_without_stock'], 2)}")
+    for s in stocks:
+        if s.enough is False:
+            out.print(f"  [yellow]stock {s.id}: the class needs {s.total_mL:.1f} mL, {s.on_hand_mL:g} mL on hand: "
+                      f"make {s.shortfall_mL:.1f} mL more[/yellow]")
+    for note in cs.notes:
+        out.print(f"  note: {S(note)}")
+    if cs.sound:
+        out.print("  [green]every card passes the assessment; no two cards share a set of tubes[/green]")
+    else:
+        if not cs.distinct:
+            err.print("[red]not sound:[/red] two cards share the same set of tubes")
+        for sid, problems in cs.failing():
+            err.print(f"[red]card {S(sid)} fails:[/red] {S('; '.join(problems))}", soft_wrap=True)
+        err.print("[red]the class set is not sound[/red]: use more tubes per student (--tubes), a looser "
+                  "design.goal_se, or fewer students per recipe grid")
+    out.print(f"wrote {', '.join(OUTPUTS)} in {S(str(out_dir))}")
+
+
+def _warm_up() -> None:
+    """Load WeasyPrint and the fonts in the printing process while the class set is designed."""
+    from ..paper.render import html_to_pdf
+
+    html_to_pdf("<p>kplan</p>")
+
+
+def _print_cards(plan, drafts, paper: str) -> bytes:
+    from ..paper.cards import cards_document
+
+    return cards_document(plan, drafts, paper=paper)
+
+
+class _CardsPrinter:
+    """Prints the students' cards in a second process while this one assesses them and prints the key
+    (the cards need only the recipes). Where the assessment replaced a drafted card, or the system
+    cannot fork, the cards are printed here instead; the bytes are the same either way."""
+
+    MIN_CARDS = 8  # below this the second process is not worth starting
+
+    def __init__(self, plan, paper: str, students: int):
+        import multiprocessing
+
+        self.plan, self.paper = plan, paper
+        self.drafts = None
+        self.pool = None
+        self.job = None
+        if students >= self.MIN_CARDS and "fork" in multiprocessing.get_all_start_methods():
+            self.pool = multiprocessing.get_context("fork").Pool(1)
+            self.pool.apply_async(_warm_up)
+
+    def drafted(self, drafts) -> None:
+        self.drafts = drafts
+        if self.pool is not None:
+            self.job = self.pool.apply_async(_print_cards, (self.plan, drafts, self.paper))
+
+    def result(self, cs) -> bytes:
+        import numpy as np
+
+        same = self.drafts is not None and len(self.drafts) == len(cs.cards) and all(
+            d.recipe.tubes == c.recipe.tubes and np.array_equal(d.recipe.volumes_mL, c.recipe.volumes_mL)
+            for d, c in zip(self.drafts, cs.cards, strict=True))
+        if self.job is not None and same:
+            data = self.job.get()
+            self._close()
+            return data
+        self._close()
+        return _print_cards(self.plan, cs, self.paper)
+
+    def _close(self) -> None:
+        if self.pool is not None:
+            self.pool.terminate()
+            self.pool.join()
+            self.pool = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self._close()
+        return False
+
+
+class _Bar:
+    """A rich progress bar on stderr for long runs (assessing the cards, then printing)."""
+
+    def __init__(self, show: bool, total: int):
+        self.show = show and total >= 10
+        self.total = total
+        self.bar = None
+        self.task = None
+
+    def __enter__(self):
+        if self.show:
+            from rich.progress import Progress
+
+            self.bar = Progress(console=err, transient=True)
+            self.bar.__enter__()
+            self.task = self.bar.add_task("assessing the cards", total=self.total + 3)
+        return self
+
+    def assessed(self, done: int, total: int) -> None:
+        if self.bar is not None:
+            self.bar.update(self.task, completed=done)
+
+    def stage(self, name: str) -> None:
+        if self.bar is not None:
+            self.bar.update(self.task, description=f"printing {name}", advance=1)
+
+    def __exit__(self, *exc):
+        if self.bar is not None:
+            self.bar.__exit__(*exc)
+        return False

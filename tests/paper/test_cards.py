@@ -1,0 +1,154 @@
+"""Cards, key and stock list on paper: students' words only, the key equal to the assessment, hostile
+roster text printed as text, deterministic bytes."""
+
+from __future__ import annotations
+
+import csv
+import io
+import re
+
+import pytest
+
+from planner.inputs.plan import parse_plan_text
+from planner.inputs.roster import parse_roster_csv
+from planner.jobs.assess import assess_study
+from planner.jobs.class_stocks import class_stocks
+from planner.jobs.classes import class_set_study
+from planner.jobs.compile import compile_study
+from planner.paper import cards as pc
+
+from ..conftest import scenario_text
+
+LONG = "Q" * 10000
+# invented roster, hostile on purpose: markup, template syntax, a right-to-left override, 10k characters
+HOSTILE = (
+    "id,name,section\n"
+    "h1,\"<img src='http://example.invalid/x.png'><script>alert(1)</script>\",A\n"
+    "h2,\"{{ 7*7 }} {% raw %}Ludovika{% endraw %}\",A\n"
+    "h3,\"\u202eAzadeh Ronsard\u202c\",B\n"
+    f"h4,{LONG},B\n"
+)
+PLAN_KEYS = ("conc_rsd", "reagent =", "on_hand", "goal_se", "log_beta", "linear_range", "min_volume",
+             "dead_volume", "epsilon")
+
+
+@pytest.fixture(scope="module")
+def plan():
+    return parse_plan_text(scenario_text("teaching"))
+
+
+@pytest.fixture(scope="module")
+def study(plan):
+    return compile_study(plan)
+
+
+@pytest.fixture(scope="module")
+def cset(study):
+    return class_set_study(study, parse_roster_csv(HOSTILE), seed=1)
+
+
+@pytest.fixture(scope="module")
+def card_html(plan, cset):
+    return pc.cards_document(plan, cset, fmt_="html").decode("utf-8")
+
+
+def test_cards_speak_to_students(card_html):
+    low = card_html.lower()
+    for key in PLAN_KEYS:
+        assert key not in low, key
+    assert "expected" not in low and "band" not in low  # no expected absorbances on a student's card
+    assert "Measured A" in card_html and card_html.count('class="write"') == 4 * 8
+
+
+def test_hostile_roster_text_is_text(card_html):
+    assert "<img" not in card_html and "<script" not in card_html
+    assert "&lt;img src=" in card_html and "&lt;scr" in card_html
+    assert "{{ 7*7 }}" in card_html and "49" not in re.sub(r"\d+\.\d+", "", card_html.split("Ludovika")[0][-40:])
+    assert "<bdi>\u202eAzadeh Ronsard\u202c</bdi>" in card_html  # the override stays inside its own box
+    assert LONG not in card_html and ("Q" * (pc.NAME_MAX - 1) + "…") in card_html
+
+
+def test_cards_pdf_one_page_per_student(plan, cset):
+    from pypdf import PdfReader
+
+    pdf = pc.cards_document(plan, cset)
+    assert len(PdfReader(io.BytesIO(pdf)).pages) == len(cset.cards)
+    assert b"example.invalid" not in pdf
+
+
+def test_key_equals_the_assessment(plan, study, cset):
+    rows = list(csv.DictReader(io.StringIO(pc.key_csv(plan, cset))))
+    ids = [s.id for s in plan.stock]
+    assert list(rows[0].keys()) == ["student", "name", "section", "tube", *ids, "absorbance", "band_low",
+                                    "band_high"]
+    assert len(rows) == sum(c.recipe.n_tubes for c in cset.cards)
+    assert rows[-1]["name"] == LONG  # the key keeps the roster text whole
+    i = 0
+    for c in cset.cards:
+        a = assess_study(study, c.recipe, trials=0)
+        for t in a.tube_rows():
+            r = rows[i]
+            assert r["student"] == c.student and r["tube"] == t["tube"]
+            assert float(r["absorbance"]) == pytest.approx(t["absorbance"], abs=5e-5)
+            # derived: the band is ±2 sd of the tube's full error budget
+            assert float(r["band_low"]) == pytest.approx(t["absorbance"] - 2 * t["absorbance_sd"], abs=5e-5)
+            assert float(r["band_high"]) == pytest.approx(t["absorbance"] + 2 * t["absorbance_sd"], abs=5e-5)
+            for s in ids:
+                assert float(r[s]) == pytest.approx(t["volumes_mL"][s], abs=5e-5)
+            i += 1
+
+
+def test_key_csv_is_not_a_formula(plan, study):
+    cs = class_set_study(study, parse_roster_csv("id,name\nf1,=HYPERLINK(\"x\")\nf2,Maelle Orsk\n"), seed=0)
+    text = pc.key_csv(plan, cs)
+    names = {r["name"] for r in csv.DictReader(io.StringIO(text))}
+    assert names == {"'=HYPERLINK(\"x\")", "Maelle Orsk"}  # source: OWASP, CSV injection (quote the cell)
+    from openpyxl import load_workbook
+
+    ws = load_workbook(io.BytesIO(pc.key_xlsx(plan, cs)))["key"]
+    cell = ws.cell(row=2, column=2)
+    assert cell.value == '=HYPERLINK("x")' and cell.data_type == "s"  # stored as text, not a formula
+
+
+def test_key_xlsx_deterministic_and_readable(plan, cset):
+    from openpyxl import load_workbook
+
+    a = pc.key_xlsx(plan, cset)
+    b = pc.key_xlsx(plan, cset)
+    assert a == b
+    ws = load_workbook(io.BytesIO(a))["key"]
+    head = [c.value for c in next(ws.iter_rows(max_row=1))]
+    assert head[:4] == ["student", "name", "section", "tube"] and head[-3:] == ["absorbance", "band_low", "band_high"]
+    assert ws.cell(row=2, column=2).value.startswith("<img")  # text, as typed
+
+
+def test_stocks_csv_and_pdf(plan, cset):
+    from pypdf import PdfReader
+
+    roster_sections = [c.section for c in cset.cards]
+    st = class_stocks(plan, [c.recipe for c in cset.cards], parse_roster_csv(HOSTILE))
+    rows = list(csv.DictReader(io.StringIO(pc.stocks_csv(plan, st))))
+    whole = {r["stock"]: r for r in rows if r["scope"] == "class"}
+    assert set(whole) == {s.id for s in plan.stock}
+    for s in plan.stock:
+        parts = [float(r["total_mL"]) for r in rows if r["stock"] == s.id and r["scope"] != "class"]
+        assert sum(parts) == pytest.approx(float(whole[s.id]["total_mL"]), abs=0.02)
+    assert len(parts) == len(set(roster_sections))
+    assert len(PdfReader(io.BytesIO(pc.stocks_document(plan, cset, st))).pages) >= 1
+
+
+def test_many_tubes_still_one_page_each(plan, study):
+    from pypdf import PdfReader
+
+    from planner.inputs.roster import roster_of_count
+
+    cs = class_set_study(study, roster_of_count(2), seed=0, tubes=14)
+    pdf = pc.cards_document(plan, cs)
+    assert len(PdfReader(io.BytesIO(pdf)).pages) == 2  # set in smaller type until each card fits
+
+
+def test_plan_advice_goes_to_the_instructors_key(plan, cset, card_html):
+    st = class_stocks(plan, [c.recipe for c in cset.cards], parse_roster_csv(HOSTILE))
+    key = pc.key_document(plan, cset, st, fmt_="html").decode("utf-8")
+    assert "raise conc_rsd" in key and "reagent = " in key  # the teaching plan leaves both to fix
+    assert "raise conc_rsd" not in card_html and "add reagent" not in card_html
