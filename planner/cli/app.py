@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 from importlib import resources
 from typing import Any
 
@@ -17,12 +18,44 @@ app = typer.Typer(
     name="kplan",
     help="Plan, check and fit absorbance experiments that measure metal–ligand formation constants.",
     no_args_is_help=True,
-    add_completion=False,
+    add_completion=True,  # --install-completion / --show-completion for bash, zsh, fish, PowerShell
     pretty_exceptions_enable=False,
 )
-# emoji codes (":warning:") in a title would otherwise be replaced by pictures
-out = Console(emoji=False)
-err = Console(stderr=True, emoji=False)
+
+PIPED_WIDTH = 160  # tables written to a file or a pipe: wide enough that names are not cut
+
+
+def _console(stderr: bool = False) -> Console:
+    # emoji codes (":warning:") in a title would otherwise be replaced by pictures; a pipe or a file
+    # gets a wide table instead of rich's 80 columns, unless COLUMNS says otherwise
+    c = Console(emoji=False, stderr=stderr)
+    if not c.is_terminal and "COLUMNS" not in os.environ:
+        c = Console(emoji=False, stderr=stderr, width=PIPED_WIDTH)
+    return c
+
+
+out = _console()
+err = _console(stderr=True)
+
+
+def _version(value: bool) -> None:
+    if value:
+        from importlib.metadata import PackageNotFoundError, version
+
+        try:
+            v = version("kplan")
+        except PackageNotFoundError:  # pragma: no cover - running from a source tree without install
+            from .. import __version__ as v
+        print(f"kplan {v}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    show_version: bool = typer.Option(False, "--version", help="print the version and exit", is_eager=True,
+                                      callback=_version),
+) -> None:
+    """Plan, check and fit absorbance experiments that measure metal–ligand formation constants."""
 
 SCENARIOS = ("teaching", "stepwise", "proton")
 

@@ -16,12 +16,12 @@ def assess(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     recipe: Annotated[Path, typer.Argument(
         help="recipe CSV: tube, then one column per stock (mL); for a titration: step, aliquot_mL")],
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
     trials: Annotated[int, typer.Option(help="Monte-Carlo experiments (0: Cramér–Rao only)", min=0,
-                                        max=MAX_TRIALS)] = 2000,
-    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0)] = 0,
+                                        max=MAX_TRIALS, metavar="INTEGER")] = 2000,
+    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0, metavar="INTEGER")] = 0,
     at: Annotated[list[str] | None, typer.Option(
-        "--at", help="assess as if the true constant were different: NAME=LOGBETA (repeatable)")] = None,
+        "--at", help="assess as if the true constant were different: NAME=LOGBETA (repeatable)", metavar="NAME=LOGBETA")] = None,
 ) -> None:
     """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading.
     Exit code 0 resolved, 1 unresolved or only bounded, 2 bad input."""

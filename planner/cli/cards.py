@@ -34,17 +34,17 @@ def _sections(roster, k: int | None):
 def cards(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     roster_path: Annotated[Path | None, typer.Option(
-        "--roster", help="class roster CSV: id, name (optional section, bench)")] = None,
+        "--roster", help="class roster CSV: id, name (optional section, bench)", metavar="PATH")] = None,
     count: Annotated[int | None, typer.Option(help="number of students, without a roster (ids S01, S02, …)",
-                                              min=1)] = None,
-    out_dir: Annotated[Path, typer.Option("--out", help="folder for the cards, the key and the stock list")] = Path(
+                                              min=1, metavar="INTEGER")] = None,
+    out_dir: Annotated[Path, typer.Option("--out", help="folder for the cards, the key and the stock list", metavar="PATH")] = Path(
         "kplan-cards"),
-    seed: Annotated[int, typer.Option(help="seed: the same seed and roster give the same files")] = 0,
-    tubes: Annotated[int | None, typer.Option(help="tubes per student (overrides design.tubes)", min=1)] = None,
+    seed: Annotated[int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")] = 0,
+    tubes: Annotated[int | None, typer.Option(help="tubes per student (overrides design.tubes)", min=1, metavar="INTEGER")] = None,
     sections: Annotated[int | None, typer.Option(
-        help="split the class into K sections (A, B, …) in roster order", min=1)] = None,
-    paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}")] = "A4",
-    as_json: Annotated[bool, typer.Option("--json", help="print the class summary as JSON")] = False,
+        help="split the class into K sections (A, B, …) in roster order", min=1, metavar="INTEGER")] = None,
+    paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}", metavar="TEXT")] = "A4",
+    as_json: Annotated[bool, typer.Option("--json", help="print the class summary as JSON", metavar="")] = False,
 ) -> None:
     """One recipe card per student — every card a different, individually sound recipe, together a good
     pooled design — with the instructor's key (expected readings and acceptance bands) and the class

@@ -52,7 +52,9 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
         t.add_column(c)
     for s in p.stock:
         d = p.dispenser_for(s.id)
-        disp = f"{d.kind} {d.capacity_mL:g} mL ({d.cls})" if d else ("diluent" if s.diluent else "none")
+        # a micropipette has no class (ISO 8655 limits instead of class A/B tolerances)
+        cls = f" ({d.cls})" if d and d.kind != "micropipette" else ""
+        disp = f"{d.kind} {d.capacity_mL:g} mL{cls}" if d else ("diluent" if s.diluent else "[yellow]none[/yellow]")
         t.add_row(S(s.id), S(s.label), fmt.conc(s.conc["M"]) if "M" in s.conc else "",
                   fmt.conc(s.conc["L"]) if "L" in s.conc else "",
                   S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.ions.items())),
@@ -83,4 +85,14 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     out.print(f"Design: {d.tubes} tubes, target {S(p.target)}, criterion {d.criterion}, "
               f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
               + (f", fixed {S(', '.join(f'{k} {v:g} mL' for k, v in d.fixed.items()))}" if d.fixed else ""))
+    # a stock that is measured out needs a dispenser (the diluent under to-mark is poured to the mark;
+    # a titration's cell and titrant are checked by the schedule)
+    missing = [st.id for st in p.stock if p.dispenser_for(st.id) is None
+               and not (st.diluent and g.make_up == "to-mark")]
+    if missing:
+        out.print(f"[yellow]warning:[/yellow] no dispenser delivers {S(', '.join(missing))}: add "
+                  f"{'it' if len(missing) == 1 else 'them'} to a [[glassware.dispenser]] stocks list "
+                  "before designing or printing")
+        out.print("[yellow]plan OK, with the warning above[/yellow]")
+        return
     out.print("[green]plan OK[/green]")

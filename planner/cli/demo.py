@@ -13,7 +13,7 @@ from .app import safe_text as S
 
 @app.command()
 def demo(
-    out_dir: Annotated[Path, typer.Option("--out", help="folder for the demo's files")] = Path("kplan-demo"),
+    out_dir: Annotated[Path, typer.Option("--out", help="folder for the demo's files", metavar="PATH")] = Path("kplan-demo"),
 ) -> None:
     """Run the built-in scenario through everything the tool does and say what it wrote."""
     from ..inputs.files import check_output_folder, write_atomic

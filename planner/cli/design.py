@@ -16,17 +16,17 @@ from .options import MAX_TUBES
 @app.command()
 def design(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
-    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and design.json")] = None,
+    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")] = None,
     tubes: Annotated[int | None, typer.Option(help="number of tubes (overrides design.tubes)", min=1,
-                                              max=MAX_TUBES)] = None,
+                                              max=MAX_TUBES, metavar="INTEGER")] = None,
     criterion: Annotated[str | None, typer.Option(
-        help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)")] = None,
+        help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)", metavar="TEXT")] = None,
     robust: Annotated[bool | None, typer.Option(
-        "--robust/--no-robust", help="average over the guesses' uncertainty (overrides design.robust)")] = None,
-    seed: Annotated[int, typer.Option(help="seed of the exchange algorithm's random starts", min=0)] = 0,
-    as_json: Annotated[bool, typer.Option("--json", help="print the design summary as JSON")] = False,
+        "--robust/--no-robust", help="average over the guesses' uncertainty (overrides design.robust)", metavar="")] = None,
+    seed: Annotated[int, typer.Option(help="seed of the exchange algorithm's random starts", min=0, metavar="INTEGER")] = 0,
+    as_json: Annotated[bool, typer.Option("--json", help="print the design summary as JSON", metavar="")] = False,
     after: Annotated[Path | None, typer.Option(
-        "--after", help="readings so far (recipe CSV + absorbance): fit them and design the next tubes")] = None,
+        "--after", help="readings so far (recipe CSV + absorbance): fit them and design the next tubes", metavar="PATH")] = None,
 ) -> None:
     """Choose tube volumes on the glassware's grid that resolve K as precisely as possible
     (with --after: the next tubes, given what the readings so far taught)."""

@@ -15,11 +15,11 @@ from .app import safe_text as S
 def fit(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     readings: Annotated[Path, typer.Argument(help="CSV: the recipe columns plus an 'absorbance' column")],
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
     exclude: Annotated[str | None, typer.Option(
         "--exclude", metavar="TUBES", help="tubes to leave out, comma-separated, e.g. T3,T7")] = None,
     keep_out_of_range: Annotated[bool, typer.Option(
-        "--keep-out-of-range", help="fit readings outside the linear range too (left out by default)")] = False,
+        "--keep-out-of-range", help="fit readings outside the linear range too (left out by default)", metavar="")] = False,
 ) -> None:
     """Fit measured readings with the plan's model, and compare the result with the plan's promise.
     Exit code 1 when the readings do not determine the constants."""

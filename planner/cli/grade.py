@@ -16,11 +16,11 @@ def grade(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     key_dir: Annotated[Path, typer.Argument(metavar="KEYDIR", help="the folder kplan cards wrote (its key.csv)")],
     results: Annotated[Path, typer.Argument(help="CSV: student, tube, absorbance")],
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
     out_dir: Annotated[Path | None, typer.Option(
-        "--out", help="folder for grades.csv, grades.xlsx and the class report")] = None,
-    html: Annotated[bool, typer.Option("--html", help="write the class report as HTML instead of PDF")] = False,
-    paper: Annotated[str, typer.Option(help="paper size of the class report: A4 | Letter")] = "A4",
+        "--out", help="folder for grades.csv, grades.xlsx and the class report", metavar="PATH")] = None,
+    html: Annotated[bool, typer.Option("--html", help="write the class report as HTML instead of PDF", metavar="")] = False,
+    paper: Annotated[str, typer.Option(help="paper size of the class report: A4 | Letter", metavar="TEXT")] = "A4",
 ) -> None:
     """Grade a class: each student's readings against the key's bands, the pooled constant from every
     student not flagged, and the likely mix-up behind each flagged student."""

@@ -14,8 +14,8 @@ from .app import safe_text as S
 @app.command()
 def new(
     path: Annotated[Path, typer.Argument(help="where to write the starter plan")],
-    scenario: Annotated[str, typer.Option(help=f"built-in scenario: {', '.join(SCENARIOS)}")] = DEMO_SCENARIO,
-    force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
+    scenario: Annotated[str, typer.Option(help=f"built-in scenario: {', '.join(SCENARIOS)}", metavar="TEXT")] = DEMO_SCENARIO,
+    force: Annotated[bool, typer.Option(help="overwrite an existing file", metavar="")] = False,
 ) -> None:
     """Write a commented starter plan from a built-in scenario."""
     from ..inputs.files import check_output_file, write_atomic

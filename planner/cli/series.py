@@ -16,29 +16,29 @@ from .app import UserError, app, out
 @app.command()
 def series(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
-    method: Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}")],
-    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and series.json")] = None,
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables")] = False,
+    method: Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}", metavar="TEXT")],
+    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and series.json", metavar="PATH")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
     points: Annotated[int | None, typer.Option(
-        help="job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", min=1)] = None,
+        help="job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", min=1, metavar="INTEGER")] = None,
     total: Annotated[str | None, typer.Option(
         help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest in the "
              "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range); "
-             "mole-ratio — the fixed reagent's (default: the largest in the linear range)")
+             "mole-ratio — the fixed reagent's (default: the largest in the linear range)", metavar="TEXT")
     ] = None,
     limiting: Annotated[str | None, typer.Option(
-        help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)")] = None,
+        help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)", metavar="TEXT")] = None,
     excess: Annotated[str | None, typer.Option(
         help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts 99.9 %, "
-             "else 99 %, over the guess's range)")] = None,
-    tubes: Annotated[int | None, typer.Option(help="calibration: replicate calibration tubes (default 1)", min=1)
+             "else 99 %, over the guess's range)", metavar="TEXT")] = None,
+    tubes: Annotated[int | None, typer.Option(help="calibration: replicate calibration tubes (default 1)", min=1, metavar="INTEGER")
                      ] = None,
     vary: Annotated[str | None, typer.Option(
-        help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)")] = None,
+        help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)", metavar="TEXT")] = None,
     max_ratio: Annotated[float | None, typer.Option(
-        help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)")] = None,
+        help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)", metavar="FLOAT")] = None,
     recipe: Annotated[Path | None, typer.Option(
-        help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)")] = None,
+        help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)", metavar="PATH")] = None,
 ) -> None:
     """Plan a classic series on the plan's glassware — Job's continuous variation (job), the 'complete
     conversion' tube (calibration), the mole-ratio series (mole-ratio), the wavelength survey over the

@@ -106,8 +106,11 @@ def print_design(d, p) -> None:
                   f"{row['absorbance']:.3f} ± {row['absorbance_sd']:.3f}", f"{row['saturation']:.2f}")
     out.print(t)
     target = S(p.target)
+    ratio = d.se_ratio_vs_even
+    compare = (f"×{fmt.sig(ratio, 2)} better" if ratio >= 1 else f"×{fmt.sig(1 / ratio, 2)} worse: the even series "
+               "wins here") if ratio == ratio else "no comparison"
     out.print(f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
-              f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} (×{fmt.sig(d.se_ratio_vs_even, 2)} better); "
+              f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} ({compare}); "
               f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these candidates")
     if d.se_across:
         t = Table(title=f"SE(log β[{target}]) if the truth differs from the guess")
@@ -133,6 +136,8 @@ def print_design(d, p) -> None:
 
 
 def print_stock_needs(p, needs, with_recipe: bool) -> None:
+    from ..paper.stock_text import prep_lines
+
     out.print(f"[bold]{S(p.title)}[/bold] — stocks")
     t = Table(title="Preparation")
     for c in ("stock", "concentration", "how to make it", "u (rel.)", "plan assumes"):
@@ -140,22 +145,19 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
     for n in needs:
         s = p.stock_by_id(n.id)
         conc = S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—")
+        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask
+        lines, _ = prep_lines(p, n.id, n.summary())
+        how = S(" ".join(lines))
         if n.preparation is not None:
             pr = n.preparation
-            how = (f"weigh {pr.mass_g:.4f} g {pr.formula} (FW {pr.formula_weight_g_mol:.2f}), dissolve and make up "
-                   f"to {pr.weighed_flask.capacity_mL:g} mL")
-            for st in pr.steps:
-                how += (f"; then {st.pipette.capacity_mL:g} mL of it to {st.flask.capacity_mL:g} mL "
-                        f"({fmt.conc(st.to_conc_M)})")
-            how = S(how)
             if pr.mass_g < pr.min_weight_g:
                 how += f" [red](below the {pr.min_weight_g:.3f} g minimum weight)[/red]"
             u = f"{pr.u_rel:.2%}"
             flag = "" if n.plan_rsd >= pr.u_rel * 0.999 else " [yellow](below what weighing gives)[/yellow]"
             assumed = f"{n.plan_rsd:.2%}{flag}"
         else:
-            how = S(n.problem or ("diluent" if s.diluent else
-                                       "no formula given: add formula = '...' to compute the mass"))
+            if n.problem:
+                how += f" [yellow]({S(n.problem)})[/yellow]"
             u, assumed = "—", f"{n.plan_rsd:.2%}"
         t.add_row(S(n.id), conc, how, u, assumed)
     out.print(t)

@@ -336,8 +336,17 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
     notes: list[str] = []
     caps: dict[str, float] = {}
     for _attempt in range(4):
-        rec, ex, ap, n_grid, n_feas, coarse, final = _solve(study, nodes, crit, n, seed, caps, volumetric,
-                                                             starts, prior_tubes)
+        try:
+            rec, ex, ap, n_grid, n_feas, coarse, final = _solve(study, nodes, crit, n, seed, caps, volumetric,
+                                                                 starts, prior_tubes)
+        except DesignError as exc:
+            if not caps:
+                raise
+            # the caps came from the stock on hand: that is what binds, not the linear range
+            limits = ", ".join(f"{k} at most {v:.2f} mL per tube" for k, v in caps.items())
+            raise DesignError(f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
+                              f"{n} tubes) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
+                              f"fewer tubes") from None
         if coarse:
             notes.append(coarse)
         over = _budget_overruns(study, rec)

@@ -99,7 +99,7 @@ def test_assess_bad_at(capsys, monkeypatch, tmp_path):
 def test_stocks_command(capsys, monkeypatch):
     code, out, err = run(capsys, monkeypatch, "stocks", ROOT / "planner/data/scenarios/teaching.toml")
     assert code == 0, err
-    assert "Cu(NO3)2.3H2O" in out and "weigh" in out
+    assert "Cu(NO₃)₂·3H₂O" in out and "Weigh" in out and "KNO₃" in out  # every solute, as on the prep sheet
 
 
 def test_atomic_write_leaves_nothing_on_failure(tmp_path, monkeypatch):
