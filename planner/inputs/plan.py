@@ -39,6 +39,7 @@ from .plan_fields import (
     IonicStrengthTarget,
     LogBeta,
     Mass,
+    PlanError,
     RelSD,
     SizeA,
     SpeciesName,
@@ -52,6 +53,7 @@ from .plan_fields import (
     _num,
     _Strict,
 )
+from .plan_parts import Alternative, Titration, check_formula
 from .text import check_identifier
 
 COMPONENTS = ("M", "L", "H")
@@ -62,24 +64,9 @@ ACTIVITY_MODELS = ("davies", "extended-dh", "none")
 
 MAX_PLAN_BYTES = 1_000_000  # a plan is a page of TOML; anything this large is not one
 MAX_DEPTH = 50              # nesting levels of tables and arrays; a plan needs about 4
+MICROPIPETTE_RINSE_ML = 0.2  # pre-wetting the tip two or three times [common practice]
+MICROPIPETTE_DEAD_ML = 0.1   # what a vial keeps below a micropipette tip's reach [common practice]
 MAX_GRID_LEVELS = 20_000    # grid volumes per stock (tube_volume / step); the design enumerates them
-
-
-class PlanError(ValueError):
-    """A plan that cannot be used, with the key path and a hint for the fix.
-
-    Parameters
-    ----------
-    key : str
-        Dotted key path inside the plan (``stock[2].conc.M``), or "" for the whole file.
-    message : str
-        What was wrong and how to fix it.
-    """
-
-    def __init__(self, key: str, message: str):
-        self.key = key
-        self.message = message
-        super().__init__(f"{key}: {message}" if key else message)
 
 
 class Component(_Strict):
@@ -110,30 +97,7 @@ class Species(_Strict):
     log_beta_sd: _num(0, 10) = 0.0
     size_angstrom: SizeA | None = Field(default=None, alias="size_A")
 
-    @field_validator("formula")
-    @classmethod
-    def _formula(cls, v: dict[str, int]) -> dict[str, int]:
-        for comp, n in v.items():
-            if comp not in COMPONENTS:
-                raise ValueError(
-                    f"formula names unknown component '{comp}': use M, L and (with [components.H]) H"
-                )
-            if comp in ("M", "L") and n < 0:
-                raise ValueError(f"formula {comp} = {n}: only H may be negative (hydroxo species)")
-        if not any(v.get(c, 0) for c in ("M", "L")):
-            raise ValueError("formula must contain M or L, e.g. { M = 1, L = 1 }")
-        return v
-
-
-class Alternative(_Strict):
-    """A species the main model leaves out, which the design should be able to detect (e.g. ML2)."""
-
-    name: SpeciesName
-    formula: dict[str, Stoich]
-    log_beta: LogBeta
-    epsilon: Epsilon_ | None = None
-
-    _formula = field_validator("formula")(Species._formula.__func__)
+    _formula = field_validator("formula")(lambda v: check_formula(v))
 
 
 class Epsilon(_Strict):
@@ -252,6 +216,21 @@ class Glassware(_Strict):
     order: list[str] | None = None
     dispenser: list[Dispenser] = Field(default_factory=list)
 
+    @model_validator(mode="before")
+    @classmethod
+    def _allowances_by_kind(cls, data: Any) -> Any:
+        # rinse and dead volume a dispenser needs depend on its kind: a burette is rinsed with a few mL and
+        # keeps about 1 mL below its last mark; a micropipette tip is pre-wetted with a fraction of a mL
+        # and the vial keeps a little [common practice]. Unset, they follow the plan's largest kind.
+        if not isinstance(data, dict) or not isinstance(data.get("dispenser"), list):
+            return data
+        kinds = {d.get("kind") for d in data["dispenser"] if isinstance(d, dict)}
+        if kinds and kinds <= {"micropipette"}:
+            data = dict(data)
+            data.setdefault("rinse", MICROPIPETTE_RINSE_ML)
+            data.setdefault("dead_volume", MICROPIPETTE_DEAD_ML)
+        return data
+
     @model_validator(mode="after")
     def _grid(self) -> Glassware:
         # the design enumerates every grid volume of every stock: a step far below the tube volume
@@ -264,25 +243,6 @@ class Glassware(_Strict):
         if self.make_up_min_mL is not None and not self.make_up_min_mL < self.tube_volume_mL:
             raise PlanError("make_up_min", f"{self.make_up_min_mL:g} mL must be below tube_volume "
                             f"({self.tube_volume_mL:g} mL), e.g. make_up_min = '0.5 mL'")
-        return self
-
-
-class Titration(_Strict):
-    """An in-cuvette titration: a start volume of one stock in the cell, aliquots of another added to it."""
-
-    cell: StockId
-    titrant: StockId
-    start_volume_mL: Volume = Field(alias="start_volume")
-    max_volume_mL: Volume = Field(alias="max_volume")
-    additions: _int(1, 60) = 12
-    step_mL: Volume | None = Field(default=None, alias="step")
-    equilibrate: Text = "mix, then wait 1 min before reading"
-
-    @model_validator(mode="after")
-    def _volumes(self) -> Titration:
-        if not self.max_volume_mL > self.start_volume_mL:
-            raise PlanError("max_volume", f"{self.max_volume_mL:g} mL must exceed start_volume = "
-                            f"{self.start_volume_mL:g} mL: leave room for the additions")
         return self
 
 

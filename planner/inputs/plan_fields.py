@@ -53,6 +53,24 @@ from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict
 from .text import check_identifier, check_text
 from .units import UnitError, parse_quantity
 
+
+class PlanError(ValueError):
+    """A plan that cannot be used, with the key path and a hint for the fix.
+
+    Parameters
+    ----------
+    key : str
+        Dotted key path inside the plan (``stock[2].conc.M``), or "" for the whole file.
+    message : str
+        What was wrong and how to fix it.
+    """
+
+    def __init__(self, key: str, message: str):
+        self.key = key
+        self.message = message
+        super().__init__(f"{key}: {message}" if key else message)
+
+
 MAX_VOLUME_ML = 10_000.0    # 10 L: larger than any flask, burette or tube a plan describes
 MIN_VOLUME_ML = 1e-6        # 1 nL: far below any dispenser; smaller non-zero volumes only break the numerics
 
