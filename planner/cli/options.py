@@ -30,9 +30,12 @@ def parse_at(items: list[str]) -> dict[str, float]:
     return out
 
 
-def _with_progress(run, trials: int, quiet: bool):
-    """Run ``run(progress)`` with a rich progress bar on long Monte-Carlo runs."""
-    if quiet or trials < 5000 or not err.is_terminal:
+PROGRESS_WORK = 40_000  # simulated tube readings above which a Monte Carlo takes about a second or more
+
+
+def _with_progress(run, trials: int, quiet: bool, tubes: int = 8):
+    """Run ``run(progress)`` with a rich progress bar when the Monte Carlo is long (trials × tubes)."""
+    if quiet or trials * max(tubes, 1) < PROGRESS_WORK or not err.is_terminal:
         return run(None)
     from rich.progress import Progress
 

@@ -78,7 +78,7 @@ def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: boo
     if kind == "sheet":
         require_glassware_fits(study.bench, r)  # followed at the bench: every volume must be deliverable
     a = _with_progress(lambda prog: assess_study(study, r, trials=trials, seed=seed, progress=prog), trials,
-                       quiet=False)
+                       quiet=False, tubes=r.n_tubes)
     if kind == "sheet" and p.titration is not None:
         from ..paper.titration_sheet import titration_sheet
 
