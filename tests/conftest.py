@@ -29,3 +29,21 @@ def teaching_plan():
 @pytest.fixture(params=["teaching", "stepwise", "proton"])
 def any_scenario(request):
     return parse_plan_text(scenario_text(request.param))
+
+
+def run_cli(capsys, monkeypatch, *args) -> tuple[int, str, str]:
+    """Run ``kplan *args`` through the console entry point (as installed); return (exit code, stdout,
+    stderr). Tables are laid out 200 columns wide so that names are not wrapped."""
+    import sys
+
+    from planner import cli
+
+    monkeypatch.setattr(sys, "argv", ["kplan", *map(str, args)])
+    monkeypatch.setenv("COLUMNS", "200")
+    code = 0
+    try:
+        cli.main()
+    except SystemExit as exc:
+        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+    cap = capsys.readouterr()
+    return code, cap.out, cap.err

@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import csv
 import io
-import zipfile
 
 from ..inputs.plan import Plan
 from ..jobs.class_stocks import ClassStock
@@ -31,6 +30,7 @@ from .sheets import (
     checklist,
     pretty_formula,
 )
+from .workbook import stable_xlsx
 
 __all__ = ["KEY_COLUMNS", "cards_document", "key_csv", "key_document", "key_rows", "key_xlsx",
            "stocks_csv", "stocks_document"]
@@ -38,7 +38,6 @@ __all__ = ["KEY_COLUMNS", "cards_document", "key_csv", "key_document", "key_rows
 KEY_COLUMNS = ("student", "name", "section", "tube")  # then one column per stock, then the three below
 KEY_TAIL = ("absorbance", "band_low", "band_high")
 BAND_SD = 2.0  # acceptance band: ±2 sd of the full error budget [common practice: ~95 % coverage]
-FIXED_TIME = (2000, 1, 1, 0, 0, 0)  # timestamps inside key.xlsx (fixed: same input, same bytes)
 NAME_MAX = 48  # characters of roster text printed on a page (the CSV and the workbook keep it whole)
 UNKNOWN_HAZARD = ("no hazard data on this card: read the supplier's safety data sheet and ask your "
                   "instructor before you use it")
@@ -202,7 +201,6 @@ def key_csv(plan: Plan, cs: ClassSet) -> str:
 def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
     """``key.xlsx``: the key as a workbook (numbers as numbers), its timestamps fixed so the bytes
     depend on the class set only."""
-    import datetime as dt
 
     from openpyxl import Workbook
 
@@ -223,38 +221,7 @@ def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
     info.append(["title", plan.title])
     info.append(["seed", cs.seed])
     info.append(["band", f"±{BAND_SD:g} sd of each tube's full error budget (photometric, delivery, stock)"])
-    stamp = dt.datetime(*FIXED_TIME)
-    wb.properties.created = stamp
-    wb.properties.modified = stamp
-    wb.properties.creator = "kplan"
-    raw = io.BytesIO()
-    wb.save(raw)
-    return _fixed_zip(raw.getvalue())
-
-
-def _fixed_zip(data: bytes) -> bytes:
-    """The same zip with every member's timestamp fixed (zip entries carry the time they were written)."""
-    src = zipfile.ZipFile(io.BytesIO(data))
-    out = io.BytesIO()
-    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
-        for info in src.infolist():
-            body = src.read(info.filename)
-            if info.filename == "docProps/core.xml":  # openpyxl stamps the save time: put ours back
-                body = _fixed_core(body)
-            zi = zipfile.ZipInfo(info.filename, date_time=FIXED_TIME)
-            zi.compress_type = zipfile.ZIP_DEFLATED
-            zi.external_attr = 0o600 << 16
-            dst.writestr(zi, body)
-    return out.getvalue()
-
-
-def _fixed_core(body: bytes) -> bytes:
-    import re
-
-    y, mo, d, h, mi, sec = FIXED_TIME
-    stamp = f"{y:04d}-{mo:02d}-{d:02d}T{h:02d}:{mi:02d}:{sec:02d}Z"
-    return re.sub(rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*(<)", lambda m: m.group(1) + stamp.encode() + m.group(2),
-                  body)
+    return stable_xlsx(wb)
 
 
 def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4") -> dict:

@@ -9,16 +9,15 @@ from __future__ import annotations
 
 import csv
 import io
-import zipfile
 
 import numpy as np
 
 from . import fmt
 from .figures import ACCENT, BAND, INK, WARN, _draw
+from .workbook import stable_xlsx
 
 GRADE_COLUMNS = ("student", "name", "section", "verdict", "tubes_in_band", "tubes", "chi2", "p_value",
                  "own_log_beta", "own_se", "explanation")
-FIXED_TIME = (2000, 1, 1, 0, 0, 0)  # zip entry time of the XLSX parts (a fixed date keeps the bytes stable)
 
 
 def grade_rows(summary: dict) -> list[list]:
@@ -56,8 +55,6 @@ def _safe_cell(v):
 
 def grades_xlsx(summary: dict) -> bytes:
     """The grade book as an XLSX workbook (sheet "grades", and "pooled" with the class's constants)."""
-    import datetime as _dt
-
     from openpyxl import Workbook
 
     wb = Workbook()
@@ -71,29 +68,7 @@ def grades_xlsx(summary: dict) -> bytes:
     for p in (summary.get("pooled") or {}).get("parameters", []):
         ci = p.get("profile_ci95") or [None, None]
         ps.append([p["name"], p["estimate"], p["se"], ci[0], ci[1]])
-    stamp = _dt.datetime(*FIXED_TIME)
-    wb.properties.created = stamp
-    wb.properties.modified = stamp
-    wb.properties.creator = "kplan"
-    raw = io.BytesIO()
-    wb.save(raw)
-    # rewrite the zip with fixed entry times and the fixed modification date (openpyxl stamps "now")
-    out = io.BytesIO()
-    with zipfile.ZipFile(raw) as zin, zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as zout:
-        for info in sorted(zin.infolist(), key=lambda i: i.filename):
-            data = zin.read(info.filename)
-            if info.filename == "docProps/core.xml":
-                text = data.decode("utf-8")
-                start = text.find("<dcterms:modified")
-                if start >= 0:
-                    end = text.find("</dcterms:modified>", start)
-                    head = text[start:text.find(">", start) + 1]
-                    text = text[:start] + head + stamp.strftime("%Y-%m-%dT%H:%M:%SZ") + text[end:]
-                data = text.encode("utf-8")
-            zi = zipfile.ZipInfo(info.filename, date_time=FIXED_TIME)
-            zi.compress_type = zipfile.ZIP_DEFLATED
-            zout.writestr(zi, data)
-    return out.getvalue()
+    return stable_xlsx(wb)
 
 
 def readings_svg(summary: dict, *, prefix: str = "fg") -> str:

@@ -16,10 +16,10 @@ from pathlib import Path
 
 import pytest
 
-from planner import cli
 from planner.inputs.files import OutputError, write_atomic_many
 
 from ..conftest import ROOT
+from ..conftest import run_cli as run
 
 EXAMPLES = ROOT / "examples"
 ADDED = "cuvette-1to1"      # make_up = "added": stocks ZN, ZC, BUF (the diluent, dispensed)
@@ -27,18 +27,6 @@ TO_MARK = "stepwise-weak"   # make_up = "to-mark": stocks CU, BD and the diluent
 PLAN = EXAMPLES / f"{ADDED}.toml"
 RECIPE = EXAMPLES / f"{ADDED}.csv"
 
-
-def run(capsys, monkeypatch, *args) -> tuple[int, str, str]:
-    """Run ``kplan *args`` through the console entry point; return (exit code, stdout, stderr)."""
-    monkeypatch.setattr(sys, "argv", ["kplan", *map(str, args)])
-    monkeypatch.setenv("COLUMNS", "200")
-    code = 0
-    try:
-        cli.main()
-    except SystemExit as exc:
-        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
-    cap = capsys.readouterr()
-    return code, cap.out, cap.err
 
 
 def example(name: str) -> str:

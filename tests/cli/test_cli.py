@@ -12,18 +12,7 @@ from planner import cli
 from planner.inputs.files import OutputError, write_atomic
 
 from ..conftest import ROOT
-
-
-def run(capsys, monkeypatch, *args) -> tuple[int, str, str]:
-    monkeypatch.setattr(sys, "argv", ["kplan", *map(str, args)])
-    monkeypatch.setenv("COLUMNS", "200")
-    code = 0
-    try:
-        cli.main()
-    except SystemExit as exc:
-        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
-    cap = capsys.readouterr()
-    return code, cap.out, cap.err
+from ..conftest import run_cli as run
 
 
 def test_help(capsys, monkeypatch):

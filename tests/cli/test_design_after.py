@@ -3,29 +3,17 @@
 from __future__ import annotations
 
 import json
-import sys
 
 import numpy as np
 
-from planner import cli
 from planner.inference.simulate import simulate
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv, recipe_to_csv
 from planner.jobs.compile import compile_study
 from planner.jobs.series import even_series_for
 
+from ..conftest import run_cli as run
 from ..conftest import scenario_text
-
-
-def run(capsys, monkeypatch, *args) -> tuple[int, str, str]:
-    monkeypatch.setattr(sys, "argv", ["kplan", *map(str, args)])
-    try:
-        cli.main()
-        code = 0
-    except SystemExit as exc:
-        code = int(exc.code or 0)
-    o = capsys.readouterr()
-    return code, o.out, o.err
 
 
 def test_design_after_readings(tmp_path, capsys, monkeypatch):

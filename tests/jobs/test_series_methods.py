@@ -7,18 +7,18 @@ from __future__ import annotations
 
 import json
 import math
-import sys
 
 import numpy as np
 import pytest
 
-from planner import cli
 from planner.inputs.files import write_atomic
 from planner.inputs.plan import PlanError, parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv
 from planner.jobs.classic import calibration, common, job, mole_ratio, plan_model, survey
 from planner.jobs.classic import rivals as rv
 from planner.model.compiled import predict, tube_ions_M
+
+from ..conftest import run_cli as run
 
 PLAN = """
 title = "Invented metal Q with invented ligand Z (test scenario)"
@@ -68,17 +68,6 @@ def species(*items: tuple[str, int, int, float, float]) -> str:
 def make_plan(spec: str, eps: str, cM: str = "2.0 mM", cL: str = "2.0 mM"):
     return parse_plan_text(PLAN.format(species=spec, epsilon=eps, cM=cM, cL=cL))
 
-
-def run(capsys, monkeypatch, *args) -> tuple[int, str, str]:
-    monkeypatch.setattr(sys, "argv", ["kplan", *map(str, args)])
-    monkeypatch.setenv("COLUMNS", "200")
-    code = 0
-    try:
-        cli.main()
-    except SystemExit as exc:
-        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
-    cap = capsys.readouterr()
-    return code, cap.out, cap.err
 
 
 def strict_json(text: str):

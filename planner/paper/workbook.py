@@ -1,0 +1,40 @@
+"""Spreadsheets that are the same bytes for the same input: openpyxl stamps the save time into the
+workbook's properties and its zip entries; :func:`stable_xlsx` saves with fixed ones instead."""
+
+from __future__ import annotations
+
+import datetime as dt
+import io
+import re
+import zipfile
+
+FIXED_TIME = (2000, 1, 1, 0, 0, 0)  # the timestamps written (fixed: same input, same bytes)
+
+
+def stable_xlsx(wb) -> bytes:
+    """The bytes of an openpyxl workbook with fixed created/modified times and zip entry times."""
+    stamp = dt.datetime(*FIXED_TIME)
+    wb.properties.created = stamp
+    wb.properties.modified = stamp
+    wb.properties.creator = "kplan"
+    raw = io.BytesIO()
+    wb.save(raw)
+    src = zipfile.ZipFile(io.BytesIO(raw.getvalue()))
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            body = src.read(info.filename)
+            if info.filename == "docProps/core.xml":  # openpyxl stamps the save time: put ours back
+                body = _fixed_core(body)
+            zi = zipfile.ZipInfo(info.filename, date_time=FIXED_TIME)
+            zi.compress_type = zipfile.ZIP_DEFLATED
+            zi.external_attr = 0o600 << 16
+            dst.writestr(zi, body)
+    return out.getvalue()
+
+
+def _fixed_core(body: bytes) -> bytes:
+    y, mo, d, h, mi, sec = FIXED_TIME
+    stamp = f"{y:04d}-{mo:02d}-{d:02d}T{h:02d}:{mi:02d}:{sec:02d}Z"
+    return re.sub(rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*(<)", lambda m: m.group(1) + stamp.encode() + m.group(2),
+                  body)
