@@ -9,6 +9,7 @@ from importlib import resources
 from typing import Any
 
 import typer
+import typer.core
 from rich.console import Console
 from rich.markup import escape
 
@@ -21,6 +22,28 @@ app = typer.Typer(
     add_completion=True,  # --install-completion / --show-completion for bash, zsh, fish, PowerShell
     pretty_exceptions_enable=False,
 )
+
+_TYPE_NAMES = {"<path>": "PATH", "<int>": "INTEGER", "<str>": "TEXT", "<float>": "FLOAT", "<bool>": ""}
+
+
+def _plain_type_names() -> None:
+    """Help shows value types the usual way (PATH, INTEGER, TEXT; nothing for flags) instead of typer's
+    ``<path>``, ``<int>``, ``<bool>``: typer offers no setting for it, so its label is mapped once here."""
+    core = getattr(typer, "core", None)
+    base = getattr(core, "_TyperParameter", None)
+    original = getattr(base, "display_type", None)
+    if original is None or getattr(original, "_kplan", False):
+        return
+
+    def display_type(self, ctx):
+        label = original(self, ctx)
+        return _TYPE_NAMES.get(label, label) if isinstance(label, str) else label
+
+    display_type._kplan = True
+    base.display_type = display_type
+
+
+_plain_type_names()
 
 PIPED_WIDTH = 160  # tables written to a file or a pipe: wide enough that names are not cut
 
