@@ -22,10 +22,11 @@ import numpy as np
 from planner.inference.simulate import simulate
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.readings import Readings
+from planner.inputs.recipe import concat_recipes
 from planner.jobs.assess import assess_study
 from planner.jobs.compile import compile_study
 from planner.jobs.design import design_study
-from planner.jobs.sequential import _together, next_batch
+from planner.jobs.sequential import next_batch
 
 TRUTH = 5.3
 GOAL = 0.09
@@ -56,7 +57,7 @@ def main(seeds: int) -> None:
             if nb.design is None:
                 break
             new = replace(nb.design.recipe, tubes=tuple(f"B{rec.n_tubes}-{k}" for k in range(BATCH)))
-            rec = _together(rec, new)
+            rec = concat_recipes([rec, new])
             A = np.concatenate([A, simulate(study.bench, study.model, new, rng, 1, log_beta=lb).absorbance[0]])
         elapsed = time.perf_counter() - t0
         one = se_at_truth(study, design_study(study, tubes=rec.n_tubes, seed=seed).recipe)

@@ -209,3 +209,33 @@ def _keep_old(target: Path, backup: str) -> str | None:
     except OSError:
         shutil.copy2(target, backup)  # file systems without hard links
     return backup
+
+
+def read_user_text(path: str | Path, *, what: str, limit_bytes: int, error, kind: str, missing_hint: str = "",
+                   too_large_hint: str = "check that this is the right file", encoding: str = "utf-8") -> str:
+    """The text of a file the user named, read at most ``limit_bytes`` (one byte past it, rather than
+    trusting stat(): pipes and devices have no size). Every problem is one ``error("", message)``.
+
+    Parameters
+    ----------
+    what : what the file is, for messages ("plan", "recipe", ...).
+    kind : what it should be, e.g. "a .toml file" or "a .csv file".
+    missing_hint, too_large_hint : the fix suggested when it is missing or too large.
+    encoding : "utf-8", or "utf-8-sig" to drop a byte-order mark.
+    """
+    p = Path(path)
+    try:
+        with p.open("rb") as fh:
+            raw = fh.read(limit_bytes + 1)
+    except FileNotFoundError:
+        raise error("", f"{what} file '{p}' not found: check the path{missing_hint}") from None
+    except IsADirectoryError:
+        raise error("", f"{what} file '{p}' is a folder: give the path of {kind}") from None
+    except OSError as exc:
+        raise error("", f"cannot read {what} file '{p}': {exc.strerror or exc}") from None
+    if len(raw) > limit_bytes:
+        raise error("", f"{what} file '{p}' is larger than {limit_bytes // 1_000_000} MB; {too_large_hint}")
+    try:
+        return raw.decode(encoding)
+    except UnicodeDecodeError as exc:
+        raise error("", f"{what} file '{p}' is not UTF-8 text (byte {exc.start}): save it as UTF-8") from None

@@ -27,6 +27,7 @@ from pydantic import (
     model_validator,
 )
 
+from .files import read_user_text
 from .names import ion_charge, unknown_name
 from .plan_fields import (
     Absorbance,
@@ -506,24 +507,9 @@ def load_plan(path: str | Path) -> Plan:
         For a missing file, a TOML syntax error (with its line) or any schema problem.
     """
     p = Path(path)
-    try:
-        with p.open("rb") as fh:
-            # read one byte past the limit rather than trusting stat(): /dev/zero and pipes have no size
-            raw = fh.read(MAX_PLAN_BYTES + 1)
-    except FileNotFoundError:
-        raise PlanError("", f"plan file '{p}' not found: check the path, or make one with 'kplan new'") from None
-    except IsADirectoryError:
-        raise PlanError("", f"plan file '{p}' is a folder: give the path of a .toml file") from None
-    except OSError as exc:
-        raise PlanError("", f"cannot read plan file '{p}': {exc.strerror or exc}") from None
-    if len(raw) > MAX_PLAN_BYTES:
-        raise PlanError("", f"plan file '{p}' is larger than {MAX_PLAN_BYTES // 1_000_000} MB: "
-                        "a plan is a short TOML file; check that this is the right file")
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        raise PlanError("", f"plan file '{p}' is not UTF-8 text (byte {exc.start}): "
-                        "save it as UTF-8") from None
+    text = read_user_text(p, what="plan", limit_bytes=MAX_PLAN_BYTES, error=PlanError, kind="a .toml file",
+                          missing_hint=", or make one with 'kplan new'",
+                          too_large_hint="a plan is a short TOML file; check that this is the right file")
     return parse_plan_text(text, source=str(p))
 
 

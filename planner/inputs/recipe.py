@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .files import read_user_text
 from .names import unknown_name
 from .plan import Plan
 from .plan_fields import MAX_VOLUME_ML, MIN_VOLUME_ML
@@ -72,6 +73,12 @@ class Recipe:
     def column(self, sid: str) -> np.ndarray:
         return self.volumes_mL[:, self.stock_ids.index(sid)]
 
+    def take(self, index) -> Recipe:
+        """The tubes at ``index`` (integer indices or a boolean mask), in that order."""
+        idx = np.flatnonzero(index) if np.asarray(index).dtype == bool else np.asarray(index, dtype=int)
+        return Recipe(tuple(self.tubes[i] for i in idx), self.stock_ids, self.volumes_mL[idx],
+                      self.total_volume_mL[idx])
+
     def dispensed_ids(self, plan: Plan) -> tuple[str, ...]:
         """Stocks that are measured out (the diluent is not, under to-mark)."""
         dil = plan.diluent
@@ -82,6 +89,17 @@ class Recipe:
 def stock_matrix(plan: Plan) -> np.ndarray:
     """(k, 2) concentrations of M and L in each stock, mol/L, plan order."""
     return np.array([[s.conc.get("M", 0.0), s.conc.get("L", 0.0)] for s in plan.stock], dtype=float)
+
+
+def concat_recipes(recipes, prefixes=None) -> Recipe:
+    """One recipe of all the tubes of ``recipes`` (same stocks), labels prefixed "prefix/" when given."""
+    recipes = list(recipes)
+    if prefixes is None:
+        tubes = tuple(t for r in recipes for t in r.tubes)
+    else:
+        tubes = tuple(f"{p}/{t}" for r, p in zip(recipes, prefixes, strict=True) for t in r.tubes)
+    return Recipe(tubes, recipes[0].stock_ids, np.vstack([r.volumes_mL for r in recipes]),
+                  np.concatenate([r.total_volume_mL for r in recipes]))
 
 
 def totals_M(recipe: Recipe, stock_conc_M: np.ndarray) -> np.ndarray:
@@ -175,24 +193,9 @@ def assemble_recipe(ids: tuple[str, ...], volumes: dict[str, np.ndarray] | np.nd
 
 def read_text_file(path: str | Path, what: str) -> str:
     """Text of a CSV the user named, or a RecipeError saying the file is missing, too large or unreadable."""
-    p = Path(path)
-    try:
-        with p.open("rb") as fh:
-            raw = fh.read(MAX_CSV_BYTES + 1)  # one byte past the limit: pipes and devices have no size
-    except FileNotFoundError:
-        raise RecipeError("", f"{what} file '{p}' not found: check the path") from None
-    except IsADirectoryError:
-        raise RecipeError("", f"{what} file '{p}' is a folder: give the path of a .csv file") from None
-    except OSError as exc:
-        raise RecipeError("", f"cannot read {what} file '{p}': {exc.strerror or exc}") from None
-    if len(raw) > MAX_CSV_BYTES:
-        raise RecipeError("", f"{what} file '{p}' is larger than {MAX_CSV_BYTES // 1_000_000} MB; a {what} "
-                          f"holds at most {MAX_ROWS} tubes: check that this is the right file")
-    try:
-        return raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise RecipeError("", f"{what} file '{p}' is not UTF-8 text (byte {exc.start}): "
-                          "save it as UTF-8 CSV") from None
+    return read_user_text(path, what=what, limit_bytes=MAX_CSV_BYTES, error=RecipeError, kind="a .csv file",
+                          too_large_hint=f"a {what} holds at most {MAX_ROWS} tubes: check that this is the right "
+                                         "file", encoding="utf-8-sig")
 
 
 def read_recipe_csv(path: str | Path, plan: Plan) -> Recipe:

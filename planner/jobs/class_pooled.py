@@ -29,7 +29,7 @@ from ..inference.precision import ReadingModel, unpack
 from ..inference.priors import Nodes
 from ..inference.study import Study
 from ..inputs.recipe import Recipe, totals_M
-from ..model.compiled import TubeState, predict, tube_ions_M
+from ..model.compiled import predict, tube_ions_M
 from ..model.jacobians import absorbance_derivatives
 from ..uncertainty.budget import error_factors
 
@@ -61,10 +61,6 @@ class Rows:
                     self.band[:, idx])
 
 
-def _take_state(st: TubeState, g: int) -> TubeState:
-    return TubeState(*(getattr(st, f)[g] for f in TubeState.__dataclass_fields__))
-
-
 def recipe_rows(study: Study, recipe: Recipe, nodes: Nodes) -> Rows:
     """Information rows of every tube of ``recipe`` at every node (vectorised over tubes)."""
     model, params = study.model, study.params
@@ -78,7 +74,7 @@ def recipe_rows(study: Study, recipe: Recipe, nodes: Nodes) -> Rows:
     der = absorbance_derivatives(model, st, eps)
     th, sk, dv = [], [], []
     for g in range(G):  # a handful of nodes, each vectorised over the tubes
-        f = error_factors(study.bench, model, recipe, _take_state(st, g), dA_dtotals=der.dA_dtotals[g])
+        f = error_factors(study.bench, model, recipe, st[g], dA_dtotals=der.dA_dtotals[g])
         sd = np.sqrt(f.independent_var)[:, None]
         th.append(J[g] / sd)
         sk.append(f.J_stock / sd)

@@ -48,7 +48,7 @@ from ..inference.design_criteria import DesignError
 from ..inference.priors import Nodes, prior_nodes
 from ..inference.study import Study
 from ..inputs.plan import Plan
-from ..inputs.recipe import Recipe
+from ..inputs.recipe import Recipe, concat_recipes
 from ..inputs.roster import Roster
 from .assess import Assessment, assess_study
 from .checks import RANGE_RISK, prior_range_risk
@@ -468,10 +468,7 @@ def _pooled_ses(study: Study, cards: list[Card], best: Recipe, even: Recipe, ros
     _, bench = np.unique(np.array([f"{a}\x1f{b}" for a, b in roster.bench_keys()]), return_inverse=True)
 
     def stacked(recipes: list[Recipe]) -> Rows:
-        vols = np.concatenate([r.volumes_mL for r in recipes])
-        tot = np.concatenate([r.total_volume_mL for r in recipes])
-        big = Recipe(tuple(f"x{i}" for i in range(vols.shape[0])), recipes[0].stock_ids, vols, tot)
-        return recipe_rows(study, big, guess)
+        return recipe_rows(study, concat_recipes(recipes, [f"x{i}" for i in range(len(recipes))]), guess)
 
     def pooled(rows: Rows, copies: bool, shared: bool = True, group=None) -> float:
         def shape(a):

@@ -24,12 +24,12 @@ from ..inference.precision import ReadingModel
 from ..inference.priors import Nodes
 from ..inference.study import Study
 from ..inputs.plan import Plan
-from ..inputs.recipe import Recipe, totals_M
-from ..model.compiled import Model, TubeState, predict, tube_ions_M
+from ..inputs.recipe import Recipe, concat_recipes, totals_M
+from ..model.compiled import Model, predict, tube_ions_M
 from ..model.jacobians import absorbance_derivatives
 from ..uncertainty import delivery
 from ..uncertainty.budget import error_factors
-from .assess import assess_study
+from .assess import assess_study, stock_shortfalls
 from .checks import RANGE_RISK, prior_range_risk
 from .compile import compile_study
 from .series import even_series_for
@@ -256,7 +256,7 @@ def _information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: s
     var = np.empty(st.absorbance.shape)
     shared = []
     for gi in range(G):  # a handful of nodes; each vectorised over candidates
-        sub = _take_state(st, gi)
+        sub = st[gi]
         f = error_factors(study.bench, model, rec, sub, dA_dtotals=der.dA_dtotals[gi])
         var[gi] = f.photometric_var + (f.delivery_random_var if volumetric else 0.0)
         shared.append(np.concatenate([f.J_stock, f.J_device], axis=1) if volumetric else
@@ -280,10 +280,6 @@ def _information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: s
     if with_sd:
         return F[:, :, None, :], M0, st, band, sd
     return F[:, :, None, :], M0, st, band
-
-
-def _take_state(st, g):
-    return TubeState(*(getattr(st, f)[g] for f in TubeState.__dataclass_fields__))
 
 
 def _range_mask(model: Model, st, weights: np.ndarray, band: np.ndarray) -> np.ndarray:
@@ -457,22 +453,17 @@ def rows_with_prior(study: Study, cand: Candidates, prior: Recipe | None, nodes:
         return _information_rows(study, cand, nodes, crit, volumetric=volumetric, with_sd=with_sd)
     C = cand.recipe.n_tubes
     r = cand.recipe
-    union = Recipe((*r.tubes, *(f"prior {t}" for t in prior.tubes)), r.stock_ids,
-                   np.vstack([r.volumes_mL, prior.volumes_mL]), np.concatenate([r.total_volume_mL,
-                                                                               prior.total_volume_mL]))
+    union = concat_recipes([r, prior], ["candidate", "prior"])
     out = _information_rows(study, Candidates(union, cand.designed_ids, union.n_tubes, cand.step_mL), nodes, crit,
                             volumetric=volumetric, with_sd=True)
     F, M0, st, band, sd = out
     Fp = F[:, C:, 0, :]
     info = np.einsum("gnp,gnq->gpq", Fp, Fp)                                # (G, P', P')
     M0 = info + (0.0 if M0 is None else M0)
-    st = _take_rows(st, C)
+    st = st[:, :C]
     res = (F[:, :C], M0, st, band[:, :C])
     return (*res, sd[:, :C]) if with_sd else res
 
-
-def _take_rows(st: TubeState, C: int) -> TubeState:
-    return TubeState(*(getattr(st, f)[:, :C] for f in TubeState.__dataclass_fields__))
 
 
 def recipe_from_counts(study: Study, cand: Candidates, idx: np.ndarray, counts: np.ndarray) -> Recipe:
@@ -518,16 +509,7 @@ def _neighbourhood(study: Study, coarse: Candidates, support: np.ndarray, factor
 
 
 def _budget_overruns(study: Study, rec: Recipe) -> dict[str, tuple[float, float]]:
-    """Stocks whose recipe use exceeds on_hand less rinse and dead volume: id -> (used, usable)."""
-    g = study.bench
-    out = {}
-    for k, sid in enumerate(g.stock_ids):  # a handful of stocks
-        if not np.isfinite(g.on_hand_mL[k]) or sid == g.diluent_id:
-            continue
-        used = float(rec.volumes_mL[:, k].sum())
-        if used <= 0:
-            continue
-        usable = float(g.on_hand_mL[k]) - g.rinse_mL - g.dead_volume_mL
-        if used > usable + 1e-9:
-            out[sid] = (used, usable)
-    return out
+    """Stocks whose recipe use exceeds on_hand less rinse and dead volume: id -> (used, usable). The
+    diluent fills the rest of each tube and is not capped."""
+    return {sid: (used, have - (need - used)) for sid, used, need, have in stock_shortfalls(study.bench, rec)
+            if sid != study.bench.diluent_id}

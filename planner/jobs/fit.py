@@ -44,12 +44,6 @@ SE_LIMIT = 5.0  # log10 units: an SE beyond this is no determination at all
 PROFILE_HALF_WIDTH_SE = 5.0  # the profile grid spans the estimate ± 5 SE (at least ± 0.5)
 
 
-def _subset(recipe: Recipe, keep: np.ndarray) -> Recipe:
-    idx = np.flatnonzero(keep)
-    return Recipe(tuple(recipe.tubes[i] for i in idx), recipe.stock_ids, recipe.volumes_mL[idx],
-                  recipe.total_volume_mL[idx])
-
-
 @dataclass(frozen=True)
 class Fit:
     """The fitted constants and how they compare with the plan.
@@ -172,7 +166,7 @@ def fit_study(study: Study, readings: Readings, *, exclude: tuple[str, ...] = ()
     if params.size == 0:
         raise RecipeError("plan", "nothing to fit: give the target log_beta_sd > 0 (or ε an rsd)")
     keep, excluded = _selection(study, readings, exclude, keep_out_of_range)
-    rec = _subset(full, keep)
+    rec = full.take(keep)
     y = readings.absorbance[keep]
     nan = np.full(params.size, np.nan)
     if rec.n_tubes < params.size:

@@ -21,7 +21,7 @@ from ..inference.study import Study
 from ..inference.tails import chi2_sf
 from ..inputs.gradebook import KeyCard
 from ..inputs.readings import Readings
-from ..inputs.recipe import Recipe, RecipeError
+from ..inputs.recipe import Recipe, RecipeError, concat_recipes
 from ..uncertainty.budget import error_budget
 from .assess import expected_state
 from .fit import Fit, fit_study
@@ -110,12 +110,6 @@ class ClassGrade:
                 "unknown_students": list(self.unknown)}
 
 
-def _concat(recipes: list[Recipe], prefixes: list[str]) -> Recipe:
-    tubes = tuple(f"{p}/{t}" for r, p in zip(recipes, prefixes, strict=True) for t in r.tubes)
-    return Recipe(tubes, recipes[0].stock_ids, np.vstack([r.volumes_mL for r in recipes]),
-                  np.concatenate([r.total_volume_mL for r in recipes]))
-
-
 def own_fits(study: Study, recipes: list[Recipe], absorbance: np.ndarray, whiten: np.ndarray
              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Each student's own fit, all at once: recipes with the same number of tubes n, readings (S, n),
@@ -194,7 +188,7 @@ def grade_class(study: Study, cards: tuple[KeyCard, ...], results: dict[str, dic
     pooled = None
     lb, eps = model.log_beta, model.epsilon_M_cm
     if ok_idx:
-        rec = _concat([rows[i][0].recipe for i in ok_idx], [rows[i][0].student for i in ok_idx])
+        rec = concat_recipes([rows[i][0].recipe for i in ok_idx], [rows[i][0].student for i in ok_idx])
         pooled = fit_study(study, Readings(rec, np.concatenate([rows[i][1] for i in ok_idx])),
                            keep_out_of_range=True)
         if pooled.determined:

@@ -105,9 +105,7 @@ def guard(study: Study, cand, idx: np.ndarray, counts: np.ndarray, target_recipe
     from .design import Candidates, recipe_from_counts, rows_with_prior
 
     model, params = study.model, study.params
-    sub = Candidates(cand.recipe.__class__(
-        tuple(cand.recipe.tubes[i] for i in idx), cand.recipe.stock_ids, cand.recipe.volumes_mL[idx],
-        cand.recipe.total_volume_mL[idx]), cand.designed_ids, idx.size, cand.step_mL)
+    sub = Candidates(cand.recipe.take(idx), cand.designed_ids, idx.size, cand.step_mL)
     # tubes measured before count towards precision (their misfit is not tracked)
     F, M0, _, _, sd = rows_with_prior(study, sub, prior, study.nodes(False), "target", volumetric=volumetric,
                                       with_sd=True)

@@ -18,7 +18,7 @@ import numpy as np
 from ..inference.precision import free_parameters
 from ..inference.study import Study
 from ..inputs.readings import Readings
-from ..inputs.recipe import Recipe, RecipeError
+from ..inputs.recipe import RecipeError, concat_recipes
 from .assess import assess_study
 from .design import Design, design_study
 from .fit import Fit, fit_study
@@ -83,11 +83,6 @@ def learned_study(study: Study, fit: Fit) -> Study:
                                       for n, a in study.alternatives))
 
 
-def _together(a: Recipe, b: Recipe) -> Recipe:
-    return Recipe((*a.tubes, *b.tubes), a.stock_ids, np.vstack([a.volumes_mL, b.volumes_mL]),
-                  np.concatenate([a.total_volume_mL, b.total_volume_mL]))
-
-
 def next_batch(study: Study, readings: Readings, *, tubes: int | None = None, seed: int = 0,
                robust: bool | None = None, check_model: bool = False) -> NextBatch:
     """Fit the readings so far, update the guess, and design the next ``tubes`` (default the plan's).
@@ -109,7 +104,7 @@ def next_batch(study: Study, readings: Readings, *, tubes: int | None = None, se
                          f"SE(log β) = {se_now:.3g} already meets the goal {study.goal_se:g}: no more tubes needed")
     d = design_study(learned, tubes=tubes, seed=seed, robust=robust, check_model=check_model,
                      prior_tubes=readings.recipe)
-    both = _together(readings.recipe, replace(d.recipe, tubes=tuple(f"N{k + 1}" for k in range(d.recipe.n_tubes))))
+    both = concat_recipes([readings.recipe, replace(d.recipe, tubes=tuple(f"N{k + 1}" for k in range(d.recipe.n_tubes)))])
     se_after = float(assess_study(learned, both, trials=0, profile_chi2=False, model_check=False).target_se)
     if se_after > (1.0 - MIN_GAIN) * se_now:
         return NextBatch(fit, learned, d, se_now, se_after, True,

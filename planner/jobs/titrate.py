@@ -176,7 +176,7 @@ def _score(study: Study, schedules: list[np.ndarray], robust: bool) -> tuple[np.
     for g in range(G):  # a handful of nodes
         states = predict(model, tot, ions, log_beta=lb[g], epsilon_M_cm=eps[g], warn=False)
         for s in np.flatnonzero(feasible):  # per schedule: an n×n covariance and a P×P inverse
-            st = type(states)(*(getattr(states, f)[s] for f in states.__dataclass_fields__))
+            st = states[s]
             cov = titration_budget(study.bench, model, recipes[s], st).total
             se = cramer_rao(J[g, s], cov).se[t]
             log_se[g, s] = np.log(se) if np.isfinite(se) else np.inf

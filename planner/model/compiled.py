@@ -121,6 +121,11 @@ class TubeState:
     def __repr__(self) -> str:
         return f"TubeState({self.absorbance.shape[-1]} tubes, A = {np.round(self.absorbance, 3).tolist()})"
 
+    def __getitem__(self, index) -> TubeState:
+        """The state of a part of the batch: every field indexed alike along its leading axes, e.g.
+        ``state[g]`` for prior node g or ``state[:, :C]`` for the first C tubes of every node."""
+        return TubeState(*(getattr(self, f)[index] for f in TubeState.__dataclass_fields__))
+
     def absorber_conc_M(self) -> np.ndarray:
         """(..., n, 2 + S) concentrations in the order of Model.absorbers."""
         return np.concatenate([self.free_M[..., None], self.free_L[..., None], self.species_M], axis=-1)

@@ -10,10 +10,11 @@ import pytest
 from planner.inference.simulate import simulate
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.readings import Readings
+from planner.inputs.recipe import concat_recipes
 from planner.jobs.assess import assess_study
 from planner.jobs.compile import compile_study
 from planner.jobs.design import Candidates, _information_rows, design_study, rows_with_prior
-from planner.jobs.sequential import _together, next_batch
+from planner.jobs.sequential import next_batch
 from planner.jobs.series import even_series_for
 
 from ..conftest import scenario_text
@@ -53,7 +54,7 @@ def test_learned_study_takes_the_fit_as_the_new_guess():
     assert nb.study.params.guess[0] == pytest.approx(nb.fit.estimate[0])
     assert not nb.stop and nb.design is not None
     assert nb.se_after < nb.se_now
-    both = _together(first, replace(nb.design.recipe, tubes=tuple(f"N{k}" for k in range(4))))
+    both = concat_recipes([first, replace(nb.design.recipe, tubes=tuple(f"N{k}" for k in range(4)))])
     alone = assess_study(nb.study, nb.design.recipe, trials=0, profile_chi2=False, model_check=False).target_se
     assert nb.se_after < alone  # the tubes in hand count
     assert nb.se_after == pytest.approx(
@@ -82,7 +83,7 @@ def test_sequential_beats_one_shot_from_a_guess_two_decades_off():
             break
         nb = next_batch(st, Readings(rec, A), tubes=4, seed=rec.n_tubes)
         new = replace(nb.design.recipe, tubes=tuple(f"B{rec.n_tubes}-{k}" for k in range(nb.design.recipe.n_tubes)))
-        rec, A = _together(rec, new), np.concatenate([A, _read(st, new, truth, rng)])
+        rec, A = concat_recipes([rec, new]), np.concatenate([A, _read(st, new, truth, rng)])
     n_seq = rec.n_tubes
     one_shot = design_study(st, tubes=n_seq, seed=0).recipe
     se_one = assess_study(st, one_shot, trials=0, at={"ML": truth}, profile_chi2=False, model_check=False).target_se
