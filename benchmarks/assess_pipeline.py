@@ -22,9 +22,8 @@ from planner.inference.lm import fit_many
 from planner.inference.precision import ReadingModel, whitening
 from planner.inference.simulate import simulate
 from planner.inputs.plan import parse_plan_text
-from planner.jobs.assess import expected_state
-from planner.jobs.compile import compile_study
-from planner.jobs.series import even_series
+from planner.jobs.compile import compile_study, expected_state
+from planner.jobs.plan.even import even_series
 from planner.model.compiled import tube_ions_M
 from planner.uncertainty.budget import error_budget
 

@@ -41,10 +41,10 @@ def main() -> None:
     from planner.cli.cards import make_class_files
     from planner.inputs.plan import parse_plan_text
     from planner.inputs.roster import roster_of_count
-    from planner.jobs.assess import assess_study
     from planner.jobs.compile import compile_study
-    from planner.jobs.design import design_study
-    from planner.jobs.stock_needs import stock_needs
+    from planner.jobs.plan.assess import assess_study
+    from planner.jobs.plan.design import design_study
+    from planner.jobs.stocks.needs import stock_needs
     from planner.paper import render
 
     plan = parse_plan_text(resources.files("planner.data").joinpath("scenarios", "teaching.toml")

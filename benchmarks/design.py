@@ -23,7 +23,8 @@ from planner.inference.design_criteria import criterion_of_counts
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import make_recipe
 from planner.jobs.compile import compile_study
-from planner.jobs.design import Candidates, _information_rows, _range_mask, design
+from planner.jobs.plan.candidates import Candidates, information_rows, range_mask
+from planner.jobs.plan.design import design
 
 
 def teaching_text() -> str:
@@ -60,9 +61,9 @@ def score(plan, vols: np.ndarray, ids: tuple[str, ...]) -> np.ndarray:
     rec = make_recipe(plan, {sid: flat[:, j] for j, sid in enumerate(ids)})
     cand = Candidates(rec, ids, rec.n_tubes, g.step_mL)
     nodes = study.nodes(True)
-    F, M0, st, band = _information_rows(study, cand, nodes, "target")
+    F, M0, st, band = information_rows(study, cand, nodes, "target")
     # the same robust linear-range screen the design uses
-    inside = _range_mask(model, st, nodes.weights, band).reshape(D, n)
+    inside = range_mask(model, st, nodes.weights, band).reshape(D, n)
     outside = ~inside.all(axis=1)
     out = np.empty(D)
     for k in range(D):  # baseline only: the general optimiser's population

@@ -1,4 +1,4 @@
-"""Recovery of injected bench mix-ups by :func:`planner.jobs.mixup.diagnose`, per kind, and the rate at which
+"""Recovery of injected bench mix-ups by :func:`planner.jobs.classroom.mixup.diagnose`, per kind, and the rate at which
 clean readings are given an explanation.
 
 Scenario: the teaching plan's evenly spaced 8-tube series; each trial simulates one student's readings
@@ -22,9 +22,9 @@ from importlib import resources
 import numpy as np
 
 from planner.inputs.plan import parse_plan_text
+from planner.jobs.classroom.mixup import KINDS, diagnose, inject
 from planner.jobs.compile import compile_study
-from planner.jobs.mixup import KINDS, diagnose, inject
-from planner.jobs.series import even_series_for
+from planner.jobs.plan.even import even_series_for
 
 
 def main(trials: int) -> None:

@@ -42,9 +42,9 @@ def main() -> None:
 
     from planner.inputs.plan import load_plan, parse_plan_text
     from planner.inputs.recipe import parse_recipe_csv, read_recipe_csv
-    from planner.jobs.assess import assess
     from planner.jobs.demo import demo_recipe_csv
-    from planner.jobs.stock_needs import stock_needs
+    from planner.jobs.plan.assess import assess
+    from planner.jobs.stocks.needs import stock_needs
     from planner.paper import render
 
     if args.plan:

@@ -23,10 +23,10 @@ from planner.inference.simulate import simulate
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.readings import Readings
 from planner.inputs.recipe import concat_recipes
-from planner.jobs.assess import assess_study
 from planner.jobs.compile import compile_study
-from planner.jobs.design import design_study
-from planner.jobs.sequential import next_batch
+from planner.jobs.plan.assess import assess_study
+from planner.jobs.plan.design import design_study
+from planner.jobs.plan.sequential import next_batch
 
 TRUTH = 5.3
 GOAL = 0.09

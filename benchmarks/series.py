@@ -21,10 +21,10 @@ import numpy as np
 
 from planner.inference.precision import ReadingModel, cramer_rao, free_parameters, pack
 from planner.inputs.plan import parse_plan_text
-from planner.jobs.assess import expected_state
 from planner.jobs.classic import plan_model, run_series
 from planner.jobs.classic.survey import _epsilon_by_wavelength, _grid, _plan_at, _se_by_wavelength
-from planner.jobs.series import even_series
+from planner.jobs.compile import expected_state
+from planner.jobs.plan.even import even_series
 from planner.model.compiled import tube_ions_M
 from planner.uncertainty.budget import error_budget
 

@@ -15,7 +15,7 @@ from pathlib import Path
 
 from planner.inputs.plan import load_plan
 from planner.jobs.compile import compile_study
-from planner.jobs.titrate import design_titration
+from planner.jobs.titration.titrate import design_titration
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "titration-cuvette.toml"
 

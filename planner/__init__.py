@@ -21,10 +21,10 @@ _WHERE = {
     "Plan": "inputs.plan", "PlanError": "inputs.plan", "load_plan": "inputs.plan", "parse_plan_text": "inputs.plan",
     "Recipe": "inputs.recipe", "RecipeError": "inputs.recipe", "make_recipe": "inputs.recipe",
     "read_recipe_csv": "inputs.recipe", "recipe_to_csv": "inputs.recipe",
-    "Assessment": "jobs.assess", "assess": "jobs.assess",
+    "Assessment": "jobs.plan.assess", "assess": "jobs.plan.assess",
     "build_model": "jobs.compile", "error_budget": "jobs.compile", "plan_devices": "jobs.compile",
-    "Design": "jobs.design", "DesignError": "jobs.design", "design": "jobs.design",
-    "even_series": "jobs.series",
+    "Design": "jobs.plan.design", "DesignError": "jobs.plan.design", "design": "jobs.plan.design",
+    "even_series": "jobs.plan.even",
     "EquilibriumError": "model.closed_forms", "one_to_one": "model.closed_forms",
     "Model": "model.compiled", "TubeState": "model.compiled", "predict": "model.compiled",
     "Speciation": "model.speciation", "speciate": "model.speciation",
@@ -36,10 +36,10 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs
     from .inference.lm import fit_many
     from .inputs.plan import Plan, PlanError, load_plan, parse_plan_text
     from .inputs.recipe import Recipe, RecipeError, make_recipe, read_recipe_csv, recipe_to_csv
-    from .jobs.assess import Assessment, assess
     from .jobs.compile import build_model, error_budget, plan_devices
-    from .jobs.design import Design, DesignError, design
-    from .jobs.series import even_series
+    from .jobs.plan.assess import Assessment, assess
+    from .jobs.plan.design import Design, DesignError, design
+    from .jobs.plan.even import even_series
     from .model.closed_forms import EquilibriumError, one_to_one
     from .model.compiled import Model, TubeState, predict
     from .model.speciation import Speciation, speciate

@@ -26,8 +26,8 @@ def assess(
     """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading.
     Exit code 0 resolved, 1 unresolved or only bounded, 2 bad input."""
     from ..inputs.plan import load_plan
-    from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
+    from ..jobs.plan.assess import assess_study
     from .show import print_assessment
 
     p = load_plan(plan)

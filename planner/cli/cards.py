@@ -81,8 +81,8 @@ def cards(
 def make_class_files(p, roster, *, tubes: int | None, seed: int, paper: str, bar=None):
     """The class set, its stock list and every output file's bytes (what ``kplan cards`` writes; the
     benchmark times this)."""
-    from ..jobs.class_stocks import class_stocks
-    from ..jobs.classes import class_set
+    from ..jobs.classroom.cards import class_set
+    from ..jobs.classroom.stock_list import class_stocks
     from ..paper import cards as paper_cards
 
     bar = bar or _Bar(False, 0)

@@ -19,10 +19,10 @@ def demo(
     from ..inputs.files import check_output_folder, write_atomic
     from ..inputs.plan import parse_plan_text
     from ..inputs.recipe import parse_recipe_csv, recipe_to_csv
-    from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
     from ..jobs.demo import demo_recipe_csv
-    from ..jobs.design import design_study
+    from ..jobs.plan.assess import assess_study
+    from ..jobs.plan.design import design_study
     from .show import print_assessment, print_design
 
     check_output_folder(out_dir)  # before a minute of work, not after it
@@ -57,7 +57,7 @@ def demo(
 def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
     """Prep sheet and report of the designed recipe."""
     from ..inputs.files import write_atomic_bytes
-    from ..jobs.stock_needs import stock_needs
+    from ..jobs.stocks.needs import stock_needs
     from ..paper.render import prep_sheet as render_sheet
     from ..paper.render import report as render_report
 

@@ -34,7 +34,7 @@ def design(
     from ..inputs.files import check_output_folder, write_atomic_many
     from ..inputs.plan import load_plan
     from ..inputs.recipe import recipe_to_csv
-    from ..jobs.design import design as run_design
+    from ..jobs.plan.design import design as run_design
     from .show import print_design
 
     if criterion is not None and criterion not in DESIGN_CRITERIA:
@@ -66,7 +66,7 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
     from ..inputs.readings import read_readings_csv
     from ..inputs.recipe import recipe_to_csv
     from ..jobs.compile import compile_study
-    from ..jobs.sequential import next_batch
+    from ..jobs.plan.sequential import next_batch
     from ..paper import fmt
     from .show import print_design
 
@@ -100,7 +100,7 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
     from ..inputs.files import write_atomic_many
     from ..inputs.schedule import schedule_to_csv
     from ..jobs.compile import compile_study
-    from ..jobs.titrate import design_titration
+    from ..jobs.titration.titrate import design_titration
     from ..paper import fmt
 
     d = design_titration(compile_study(p), additions=additions, robust=robust)

@@ -25,7 +25,7 @@ def fit(
     Exit code 1 when the readings do not determine the constants."""
     from ..inputs.plan import load_plan
     from ..jobs.compile import compile_study
-    from ..jobs.fit import fit_study
+    from ..jobs.measure.fit import fit_study
     from .options import read_points
 
     p = load_plan(plan)

@@ -29,8 +29,8 @@ def grade(
     from ..inputs.files import write_atomic, write_atomic_bytes
     from ..inputs.gradebook import read_key, read_results
     from ..inputs.plan import load_plan
+    from ..jobs.classroom.grade import grade_class
     from ..jobs.compile import compile_study
-    from ..jobs.grade import grade_class
     from ..paper import fmt
     from ..paper.grades import grade_report, grades_csv, grades_xlsx
     from ..paper.render import PAPERS

@@ -58,9 +58,9 @@ def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: boo
                   seed: int, design_json: Path | None = None) -> None:
     from ..inputs.files import check_output_file, write_atomic_bytes
     from ..inputs.plan import load_plan
-    from ..jobs.assess import assess_study
     from ..jobs.compile import compile_study
-    from ..jobs.stock_needs import stock_needs
+    from ..jobs.plan.assess import assess_study
+    from ..jobs.stocks.needs import stock_needs
     from ..paper.render import PAPERS
     from ..paper.render import prep_sheet as render_sheet
     from ..paper.render import report as render_report

@@ -19,7 +19,7 @@ def stocks(
     """How to make each stock (mass to weigh, flask, uncertainty) and how much a recipe needs."""
     from ..inputs.plan import load_plan
     from ..inputs.recipe import read_recipe_csv
-    from ..jobs.stock_needs import stock_needs
+    from ..jobs.stocks.needs import stock_needs
     from .show import print_stock_needs
 
     p = load_plan(plan)

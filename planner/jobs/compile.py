@@ -8,21 +8,23 @@ together a :class:`~planner.inference.study.Study`. Nothing below this layer tak
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+
 import numpy as np
 
 from ..inference.precision import free_parameters
 from ..inference.study import Study
-from ..inputs.plan import Plan, PlanError, ion_charge
-from ..inputs.recipe import Recipe
+from ..inputs.plan import Plan, PlanError, ion_charge, unknown_name
+from ..inputs.recipe import Recipe, totals_M
 from ..model import optics
-from ..model.compiled import Model, TubeState
+from ..model.compiled import Model, TubeState, predict, tube_ions_M
 from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
 from ..uncertainty import catalogue
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
 
-__all__ = ["MAKE_UP_MIN_FRACTION", "build_model", "compile_bench", "compile_study", "error_budget", "make_up_min_mL",
-           "plan_devices"]
+__all__ = ["MAKE_UP_MIN_FRACTION", "build_model", "compile_bench", "compile_study", "error_budget", "expected_state", "make_up_min_mL",
+           "plan_devices", "true_constants"]
 
 
 def build_model(plan: Plan) -> Model:
@@ -204,3 +206,20 @@ def error_budget(plan: Plan, model: Model, recipe: Recipe, state: TubeState,
 
         bench = replace(bench, devices=devices)
     return _budget.error_budget(bench, model, recipe, state, delta_T_C=delta_T_C)
+
+
+def expected_state(model: Model, recipe: Recipe, **kw) -> TubeState:
+    """Speciation and readings of every tube of ``recipe`` (at the guesses unless overridden)."""
+    tot = totals_M(recipe, model.stock_conc_M)
+    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    return predict(model, tot, ions, **kw)
+
+
+def true_constants(model: Model, at: Mapping[str, float] | None) -> np.ndarray:
+    """log β with the ``--at NAME=LOGBETA`` overrides applied."""
+    lb = model.log_beta.copy()
+    for name, value in (at or {}).items():
+        if name not in model.species:
+            raise PlanError(f"--at {name}", unknown_name("species", name, list(model.species)))
+        lb[model.index(name)] = float(value)
+    return lb

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from ..inputs.plan import Plan
 from ..inputs.recipe import recipe_to_csv
-from .series import even_series
+from .plan.even import even_series
 
 
 def demo_recipe_csv(plan: Plan) -> str:

@@ -17,8 +17,8 @@ import csv
 import io
 
 from ..inputs.plan import Plan
-from ..jobs.class_stocks import ClassStock
-from ..jobs.classes import ClassSet
+from ..jobs.classroom.cards import ClassSet
+from ..jobs.classroom.stock_list import ClassStock
 from . import fmt, safety
 from .render import PAPERS, html_to_pdf, render_html
 from .sheets import (
@@ -253,7 +253,7 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
     notes = list(cs.notes)
     # what the cards do not say to students goes to the instructor: the plan author's notes (plan keys
     # named) and the reagents without hazard data
-    from ..jobs.stock_needs import stock_needs
+    from ..jobs.stocks.needs import stock_needs
     from .stock_text import plan_notes
 
     notes.extend(plan_notes(plan, [n.summary() for n in stock_needs(plan)]))

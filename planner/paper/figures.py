@@ -1,6 +1,6 @@
 """Figures of the design report: matplotlib (no display, no pyplot state) drawn to inline SVG text.
 
-What a figure shows is computed in the jobs layer (:mod:`planner.jobs.curves`); the ``*_svg``
+What a figure shows is computed in the jobs layer (:mod:`planner.jobs.plan.curves`); the ``*_svg``
 functions here only draw it. The SVGs are deterministic (fixed hash salt, no date) and their element ids are prefixed so that
 several can share one HTML page.
 """
@@ -12,8 +12,8 @@ import re
 
 import numpy as np
 
-from ..jobs.checks import SATURATION_WINDOW
-from ..jobs.curves import BindingCurve, SeScan
+from ..jobs.plan.checks import SATURATION_WINDOW
+from ..jobs.plan.curves import BindingCurve, SeScan
 from . import fmt
 
 __all__ = [

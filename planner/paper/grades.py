@@ -1,6 +1,6 @@
 """What grading puts on paper: the class report (HTML/PDF) and the grade book (CSV and XLSX).
 
-Every number comes from :class:`planner.jobs.grade.ClassGrade`; this module only formats and draws.
+Every number comes from :class:`planner.jobs.classroom.grade.ClassGrade`; this module only formats and draws.
 Outputs are deterministic: the report carries the date it is given, and the XLSX file is rewritten with
 fixed zip and document timestamps, so the same inputs give the same bytes.
 """

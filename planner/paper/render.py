@@ -170,7 +170,7 @@ def report(plan, recipe, assessment, *, design: dict | None = None, paper: str =
     from . import figures as fig
 
     _check(paper, fmt)
-    from ..jobs.stock_needs import stock_needs
+    from ..jobs.stocks.needs import stock_needs
 
     summary = assessment.summary()
     figs = _report_figures(plan, recipe, assessment, summary, fig)
@@ -183,8 +183,8 @@ def report(plan, recipe, assessment, *, design: dict | None = None, paper: str =
 def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
     from markupsafe import Markup
 
-    from ..jobs import curves
     from ..jobs.compile import compile_study
+    from ..jobs.plan import curves
 
     # the assessment carries the plan compiled for it; compile only for one built elsewhere
     study = assessment.study if assessment.study is not None else compile_study(plan)

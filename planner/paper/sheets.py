@@ -16,7 +16,7 @@ from markupsafe import Markup
 
 from ..inputs.plan import Plan
 from ..inputs.recipe import Recipe
-from ..jobs.checks import SATURATION_WINDOW
+from ..jobs.plan.checks import SATURATION_WINDOW
 from . import fmt, safety
 from .pictograms import pictogram_svg
 from .stock_text import conc_lines, needed_text, plan_notes, prep_lines, pretty_formula

@@ -1,7 +1,7 @@
 """What the prep sheet says about each stock, for the bench, and the notes for the plan's author.
 
 Every solute of a stock (its M or L salt, the salts its other ions pair into, an acid added from a
-standardised solution), the solvent and the flask, from :func:`planner.jobs.stock_needs.stock_needs`'s
+standardised solution), the solvent and the flask, from :func:`planner.jobs.stocks.needs.stock_needs`'s
 summaries. Bench text never names a plan key; :func:`plan_notes` (printed on the report) does.
 """
 

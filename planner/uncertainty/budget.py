@@ -23,6 +23,11 @@ from ..model.compiled import Model, TubeState
 from ..model.jacobians import absorbance_derivatives
 from . import delivery
 from .bench import Bench
+from .covariance import ErrorBudget, volume_derivatives
+from .titration import titration_budget
+
+__all__ = ["PARTS", "ErrorBudget", "error_budget", "error_factors", "glassware_problems", "require_glassware_fits",
+           "volume_derivatives"]
 
 PARTS = ("photometric", "delivery", "stock")
 
@@ -97,66 +102,6 @@ def require_glassware_fits(bench: Bench, recipe: Recipe) -> None:
     problems = glassware_problems(bench, recipe)
     if problems:
         raise RecipeError(*problems[0])
-
-
-@dataclass(frozen=True)
-class ErrorBudget:
-    """Covariance of the n absorbance readings, by source.
-
-    Attributes
-    ----------
-    photometric : (n, n) diagonal: photometric noise of each reading.
-    delivery_random : (n, n) diagonal: random delivery errors and the make-up flask.
-    delivery_systematic : (n, n) rank ≤ number of devices: calibration errors shared per device.
-    stock : (n, n) rank ≤ number of stocks: stock concentration errors shared across tubes.
-    J_stock : (n, k) dA_i per 1-sd error of stock k's concentration (the stock factors).
-    J_device : (n, d) dA_i per 1-sd calibration error of device d.
-    """
-
-    photometric: np.ndarray
-    delivery_random: np.ndarray
-    delivery_systematic: np.ndarray
-    stock: np.ndarray
-    J_stock: np.ndarray
-    J_device: np.ndarray
-
-    @property
-    def delivery(self) -> np.ndarray:
-        return self.delivery_random + self.delivery_systematic
-
-    @property
-    def total(self) -> np.ndarray:
-        return self.photometric + self.delivery + self.stock
-
-    @property
-    def independent(self) -> np.ndarray:
-        """The per-tube (diagonal) part: photometric + random delivery."""
-        return self.photometric + self.delivery_random
-
-    def sd_parts(self) -> dict[str, np.ndarray]:
-        """(n,) sd of each tube's absorbance from each part (their squares add up to the total)."""
-        return {"photometric": np.sqrt(np.diag(self.photometric)),
-                "delivery": np.sqrt(np.diag(self.delivery)),
-                "stock": np.sqrt(np.diag(self.stock))}
-
-    def __repr__(self) -> str:
-        sd = self.sd_parts()
-        return "ErrorBudget(" + ", ".join(f"{k} sd ≤ {v.max():.2g}" for k, v in sd.items()) + ")"
-
-
-def volume_derivatives(bench: Bench, recipe: Recipe, dA_dtotals: np.ndarray, stock_conc_M: np.ndarray):
-    """dA_i/dV_ik for every stock (n, k) and dA_i/dV_total,i (n,) (make-up volume).
-
-    Under ``to-mark`` the total volume is the flask's; under ``added`` it is the sum of the volumes, so a
-    delivery also dilutes everything else.
-    """
-    V = recipe.total_volume_mL
-    tot = (recipe.volumes_mL @ stock_conc_M) / V[:, None]                     # (n, 2)
-    dA_dV = (dA_dtotals @ stock_conc_M.T) / V[:, None]                          # (n, k)
-    dA_dVtot = -np.sum(dA_dtotals * tot, axis=-1) / V                           # (n,)
-    if not bench.to_mark:
-        dA_dV = dA_dV + dA_dVtot[:, None]
-    return dA_dV, dA_dVtot
 
 
 @dataclass(frozen=True)
@@ -260,8 +205,6 @@ def error_budget(bench: Bench, model: Model, recipe: Recipe, state: TubeState,
     delta_T_C : lab temperature minus the glassware's calibration temperature (default: the plan's).
     """
     if bench.titration is not None:  # cumulative additions: correlated along the titration
-        from .titration import titration_budget
-
         return titration_budget(bench, model, recipe, state, delta_T_C=delta_T_C)
     f = error_factors(bench, model, recipe, state, delta_T_C=delta_T_C)
     return ErrorBudget(

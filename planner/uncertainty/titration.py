@@ -23,7 +23,7 @@ from ..model.compiled import Model, TubeState
 from ..model.jacobians import absorbance_derivatives
 from . import delivery
 from .bench import Bench
-from .budget import ErrorBudget, volume_derivatives
+from .covariance import ErrorBudget, volume_derivatives
 
 
 def _devices(bench: Bench):

@@ -404,7 +404,7 @@ def test_ctrl_c_exits_130_quietly(capsys, monkeypatch):
     def interrupted(*a, **k):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr("planner.jobs.stock_needs.stock_needs", interrupted)
+    monkeypatch.setattr("planner.jobs.stocks.needs.stock_needs", interrupted)
     code, out, err = run(capsys, monkeypatch, "stocks", PLAN)
     assert code == 130
     assert "Traceback" not in err and "KeyboardInterrupt" not in err and "Aborted" not in err

@@ -90,7 +90,7 @@ def test_cards_printed_in_a_second_process_are_the_same_bytes(tmp_path, capsys, 
     # eight cards or more: cards.pdf comes from the printing process; it must equal printing here
     from planner.inputs.plan import load_plan
     from planner.inputs.roster import roster_of_count
-    from planner.jobs.classes import class_set
+    from planner.jobs.classroom.cards import class_set
     from planner.paper.cards import cards_document
 
     code, _, err = run(capsys, monkeypatch, "cards", PLAN, "--count", 8, "--tubes", 5, "--out", tmp_path)

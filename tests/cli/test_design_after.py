@@ -10,7 +10,7 @@ from planner.inference.simulate import simulate
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv, recipe_to_csv
 from planner.jobs.compile import compile_study
-from planner.jobs.series import even_series_for
+from planner.jobs.plan.even import even_series_for
 
 from ..conftest import run_cli as run
 from ..conftest import scenario_text

@@ -6,8 +6,8 @@ import numpy as np
 
 from planner.inference.precision import cramer_rao
 from planner.inputs.plan import parse_plan_text
-from planner.jobs.assess import assess
-from planner.jobs.series import even_series
+from planner.jobs.plan.assess import assess
+from planner.jobs.plan.even import even_series
 
 from ..conftest import scenario_text
 

@@ -10,8 +10,7 @@ import pytest
 
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import make_recipe
-from planner.jobs.assess import expected_state
-from planner.jobs.compile import build_model
+from planner.jobs.compile import build_model, expected_state
 from planner.model.activity import ActivityWarning
 from planner.model.compiled import predict
 
@@ -64,7 +63,7 @@ def test_bandwidth_correction(teaching_text):
 
 
 def test_prediction_is_tube_order_independent(any_scenario):
-    from planner.jobs.series import even_series
+    from planner.jobs.plan.even import even_series
 
     r = even_series(any_scenario)
     st = expected_state(build_model(any_scenario), r)

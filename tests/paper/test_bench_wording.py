@@ -9,9 +9,9 @@ import pytest
 
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv
-from planner.jobs.assess import assess
 from planner.jobs.demo import demo_recipe_csv
-from planner.jobs.stock_needs import stock_needs
+from planner.jobs.plan.assess import assess
+from planner.jobs.stocks.needs import stock_needs
 from planner.paper import render
 from planner.uncertainty.stocks import formula_weight_g_mol
 

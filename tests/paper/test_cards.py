@@ -11,10 +11,10 @@ import pytest
 
 from planner.inputs.plan import parse_plan_text
 from planner.inputs.roster import parse_roster_csv
-from planner.jobs.assess import assess_study
-from planner.jobs.class_stocks import class_stocks
-from planner.jobs.classes import class_set_study
+from planner.jobs.classroom.cards import class_set_study
+from planner.jobs.classroom.stock_list import class_stocks
 from planner.jobs.compile import compile_study
+from planner.jobs.plan.assess import assess_study
 from planner.paper import cards as pc
 
 from ..conftest import scenario_text

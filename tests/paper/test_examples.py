@@ -7,10 +7,10 @@ import pytest
 from markupsafe import escape
 
 from planner.inputs.plan import load_plan
-from planner.jobs.assess import assess_study
 from planner.jobs.compile import compile_study
-from planner.jobs.stock_needs import stock_needs
-from planner.jobs.titrate import read_points
+from planner.jobs.plan.assess import assess_study
+from planner.jobs.stocks.needs import stock_needs
+from planner.jobs.titration.titrate import read_points
 from planner.paper import render, safety
 from planner.paper.titration_sheet import titration_sheet
 from planner.uncertainty.budget import glassware_problems

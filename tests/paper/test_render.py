@@ -17,11 +17,11 @@ from hypothesis import strategies as st
 
 from planner.inputs.plan import load_plan, parse_plan
 from planner.inputs.recipe import make_recipe, parse_recipe_csv, read_recipe_csv
-from planner.jobs import curves
-from planner.jobs.assess import assess, assess_recipe
 from planner.jobs.compile import compile_study
 from planner.jobs.demo import demo_recipe_csv
-from planner.jobs.stock_needs import stock_needs
+from planner.jobs.plan import curves
+from planner.jobs.plan.assess import assess, assess_recipe
+from planner.jobs.stocks.needs import stock_needs
 from planner.paper import figures, fmt, render, safety, sheets
 
 from ..conftest import ROOT, scenario_text
@@ -491,8 +491,8 @@ def test_plan_order_and_levelling_reach_the_sheet(tmp_path):
     """The plan's glassware.order sets the order of addition; a background stock is named in the header."""
     from planner.inputs.plan import parse_plan_text
     from planner.inputs.recipe import make_recipe
-    from planner.jobs.assess import assess as run_assess
-    from planner.jobs.stock_needs import stock_needs
+    from planner.jobs.plan.assess import assess as run_assess
+    from planner.jobs.stocks.needs import stock_needs
     from planner.paper.render import prep_sheet
 
     from ..conftest import scenario_text

@@ -9,8 +9,8 @@ from planner.inference.simulate import simulate
 from planner.inputs.plan import load_plan, parse_plan_text
 from planner.inputs.recipe import RecipeError
 from planner.inputs.schedule import Schedule, parse_schedule_csv
-from planner.jobs.assess import assess_study, expected_state
-from planner.jobs.compile import compile_study
+from planner.jobs.compile import compile_study, expected_state
+from planner.jobs.plan.assess import assess_study
 from planner.uncertainty.budget import error_budget
 from planner.uncertainty.titration import titration_recipe
 

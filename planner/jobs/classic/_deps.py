@@ -18,10 +18,10 @@ from ...model.compiled import Model, TubeState, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
 from ...model.optics import bandwidth_factor
 from ...uncertainty import budget as _budget
-from ..assess import Assessment
-from ..checks import Check
 from ..compile import build_model, compile_bench, error_budget, make_up_min_mL, plan_devices
-from ..series import even_series
+from ..plan.assess import Assessment
+from ..plan.checks import Check
+from ..plan.even import even_series
 
 __all__ = [
     "ActivityWarning", "Assessment", "Check", "Epsilon", "Model", "Plan", "PlanError", "Recipe", "TubeState", "absorbance_derivatives",
@@ -48,6 +48,6 @@ def error_factors(plan: Plan, model: Model, recipe: Recipe, state: TubeState, de
 def assess_tubes(plan: Plan, recipe: Recipe) -> Assessment:
     """Expected tubes, error budget and checks of ``recipe`` without the precision analysis (the one place
     the classic series import ``assess``)."""
-    from ..assess import assess
+    from ..plan.assess import assess
 
     return assess(plan, recipe, trials=0, precision=False)

@@ -1,0 +1,1 @@
+"""planner.jobs.plan"""

@@ -1,0 +1,267 @@
+"""Checks of a recipe's assumptions, each pass / warn / fail with a message that says what to change.
+
+Every check is a pure function of the plan, the model and the expected tube state (plus, for some,
+the parameter uncertainty); thresholds carry their source.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ...model import closed_forms
+from ...model.compiled import Model, TubeState
+
+RANGE_RISK = 0.05  # a tube may leave the linear range for at most 5 % of the guess's uncertainty [common practice]
+SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1; domain.md §4
+CALIBRATION_EXCESS = 20.0  # a tube with ≥ 20-fold excess is a "complete conversion" candidate [common practice]
+CONVERSION_WANTED = 0.99  # [common practice]
+DOUBLE_RECIPROCAL_EXCESS = 100.0  # source: Wang & Yu 2007, Acta Phys.-Chim. Sin. 23:1353
+SECOND_COMPLEX_SHARE = 0.05  # share of metal in other complexes that a 1:1 analysis can ignore [common practice]
+IONIC_STRENGTH_SPREAD = 0.05  # a few percent keeps activity coefficients constant [common practice]
+SIDE_REACTION_SHARE = 0.05  # hydrolysis / protonation share worth a warning [common practice]
+
+
+@dataclass(frozen=True)
+class Check:
+    """One check of a recipe: id, "pass" | "warn" | "fail", and a message that says what to change."""
+
+    id: str
+    status: str
+    message: str
+
+    def summary(self) -> dict:
+        return {"id": self.id, "status": self.status, "message": self.message}
+
+
+def _tubes(labels, mask) -> str:
+    sel = [t for t, m in zip(labels, mask, strict=True) if m]
+    return ", ".join(sel[:6]) + (" …" if len(sel) > 6 else "")
+
+
+def range_risk(absorbance: np.ndarray, sd: np.ndarray, lo: float, hi: float) -> np.ndarray:
+    """Probability that a reading expected at ``absorbance`` ± ``sd`` (normal) falls outside [lo, hi]."""
+    from ...inference.tails import norm_cdf as ndtr
+
+    a = np.asarray(absorbance, dtype=float)
+    sd = np.broadcast_to(np.asarray(sd, dtype=float), a.shape)
+    s = np.where(sd > 0, sd, 1.0)
+    smooth = ndtr((lo - a) / s) + ndtr((a - hi) / s)
+    sharp = ((a < lo) | (a > hi)).astype(float)  # no spread: inside (edges included) or out
+    return np.where(sd > 0, smooth, sharp)
+
+
+def prior_range_risk(absorbance: np.ndarray, band: np.ndarray, weights: np.ndarray, lo: float,
+                     hi: float) -> np.ndarray:
+    """Chance of leaving [lo, hi] over the guesses' uncertainty.
+
+    ``absorbance`` and ``band`` are (G, ...) at the quadrature nodes of the uncertain log β (weights
+    (G,)); ``band`` is the sd from the absorptivities' uncertainty at each node (they enter linearly).
+    """
+    risk = range_risk(absorbance, band, lo, hi)
+    return np.tensordot(weights, risk, axes=(0, 0))
+
+
+def linear_range(model: Model, state: TubeState, tubes, risk: np.ndarray | None = None,
+                 spread: tuple[float, float] | None = None) -> Check:
+    """Every tube's absorbance, with its band over the guess's uncertainty, inside the window.
+
+    ``risk`` (n,) is each tube's chance of leaving the window over the guesses' uncertainty
+    (:func:`prior_range_risk`); a tube is at risk above RANGE_RISK. ``spread`` is the lowest and
+    highest reading over that uncertainty (about ±2 sd), for the message.
+    """
+    lo, hi = model.linear_range
+    a = state.absorbance
+    out_hi, out_lo = a > hi, a < lo
+    if out_hi.any() or out_lo.any():
+        parts = []
+        if out_hi.any():
+            parts.append(f"{_tubes(tubes, out_hi)} above {hi:g}: use less of the absorbing stock, a shorter path "
+                         f"or a wavelength off the band maximum")
+        if out_lo.any():
+            parts.append(f"{_tubes(tubes, out_lo)} below {lo:g}: use more of the absorbing stock or a longer path")
+        return Check("linear-range", "fail", "; ".join(parts))
+    if risk is not None:
+        risky = risk > RANGE_RISK
+        if risky.any():
+            band = f"; readings {spread[0]:.3f}–{spread[1]:.3f} over the guess's range" if spread else ""
+            return Check("linear-range", "warn",
+                         f"inside {lo:g}–{hi:g} at the guess, but {_tubes(tubes, risky)} may leave it if the "
+                         f"guess is off (up to {risk.max():.0%} risk{band}): move those tubes towards the "
+                         f"middle of the range")
+    return Check("linear-range", "pass", f"all {len(tubes)} tubes read between {lo:g} and {hi:g} "
+                 f"(A = {a.min():.3f}–{a.max():.3f})")
+
+
+def saturation(state: TubeState, tubes) -> Check:
+    """Coverage of the binding curve: at least two tubes inside the 0.2–0.8 window and a span of at
+    least half of it. The saturation is :func:`planner.model.compiled.saturation` (the fraction of each
+    tube's limiting reagent bound), the number the tube tables print and the binding figure plots.
+
+    Weber (1975) asks for the 0.2–0.8 window; Deranleau (1969, JACS 91:4044) for ~75 % of the curve;
+    Bowser & Chen (1998, J. Phys. Chem. A 102:8063) find the central-to-upper part the most informative.
+    """
+    s = state.saturation
+    lo, hi = SATURATION_WINDOW
+    inside = (s >= lo) & (s <= hi)
+    span = float(s.max() - s.min()) if s.size else 0.0
+    msg = (f"saturation {s.min():.2f}–{s.max():.2f} ({span:.0%} of the curve); {int(inside.sum())} of "
+           f"{s.size} tubes inside {lo}–{hi}")
+    if inside.sum() == 0:
+        fix = ("raise the ligand (or metal) excess" if s.max() < lo else "lower the excess")
+        return Check("saturation", "fail", f"{msg}: no tube where the data determine K best; {fix}")
+    # two tubes inside the window are enough when the optimiser has placed them there on purpose: the
+    # informative part of the curve is its middle-to-upper range (Bowser & Chen 1998), not its whole span
+    if inside.sum() < 2 or span < 0.5 * (hi - lo):
+        if s.max() < hi:
+            fix = "add tubes with more of the excess reagent to reach the upper part of the curve"
+        elif s.min() > lo:
+            fix = "add tubes with less of the excess reagent to reach the lower part of the curve"
+        else:
+            fix = "spread the tubes over the curve"
+        return Check("saturation", "warn", f"{msg}: {fix}")
+    return Check("saturation", "pass", msg)
+
+
+def conversion(model: Model, state: TubeState, tubes, target: str) -> Check:
+    """'Complete conversion' calibration tubes: the fraction converted and the bias of assuming 100 %.
+
+    A tube where one reagent is in ≥ 20-fold excess is what a hand analysis takes as fully complexed
+    to get ε. For a 1:1 target the hand analysis then takes ε_hand = A/(b·c_limiting) and computes
+    K in every other tube from [ML] = A/(b·ε_hand); the bias in K is the mean over those tubes,
+    computed from the model [derived].
+    """
+    tot = state.totals_M
+    M0, L0 = tot[:, 0], tot[:, 1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.maximum(M0 / L0, L0 / M0)
+    cand = np.isfinite(ratio) & (ratio >= CALIBRATION_EXCESS) & (np.minimum(M0, L0) > 0)
+    if not cand.any():
+        return Check("conversion", "pass", "no 'complete conversion' tube (none with a 20-fold excess)")
+    j = model.index(target)
+    p, q = model.stoich[j, 0], model.stoich[j, 1]
+    limiting_is_L = L0 < M0
+    frac = np.where(limiting_is_L, q * state.species_M[:, j] / np.where(L0 > 0, L0, 1),
+                    p * state.species_M[:, j] / np.where(M0 > 0, M0, 1))
+    # the hand analysis calibrates on the tube with the largest excess
+    worst = int(np.flatnonzero(cand)[np.argmax(ratio[cand])])
+    f = float(frac[worst])
+    if f >= CONVERSION_WANTED:
+        return Check("conversion", "pass", f"calibration tube {tubes[worst]} is {f:.1%} converted")
+    msg = f"tube {tubes[worst]} (×{ratio[worst]:.0f} excess) is only {f:.1%} converted"
+    if (p, q) == (1, 1):
+        bias = hand_analysis_bias(model, state, worst, j)
+        K = 10.0 ** state.log_beta[worst, j]
+        c_lim = min(M0[worst], L0[worst])
+        excess_needed = CONVERSION_WANTED / ((1 - CONVERSION_WANTED) * K) + CONVERSION_WANTED * c_lim
+        if np.isfinite(bias):
+            msg += f"; a hand analysis assuming complete conversion biases K by {bias:+.1%}"
+        msg += (f"; an excess of {excess_needed:.3g} M would give {CONVERSION_WANTED:.0%} — or fit all tubes "
+                f"globally instead")
+    return Check("conversion", "warn" if f >= 0.95 else "fail", msg)
+
+
+def hand_analysis_bias(model: Model, state: TubeState, calib: int, j: int) -> float:
+    """Relative bias of K from the 'complete conversion' hand analysis of a 1:1 complex [derived].
+
+    ε_hand = A_calib/(b·c_lim) (absorbance of the complex alone), then in each other tube
+    [ML]_hand = A_ML/(b·ε_hand), K_hand = [ML]/(([M]0 − [ML])([L]0 − [ML])); the bias is
+    mean(K_hand)/K − 1 over tubes where the hand formula is defined.
+    """
+    tot = state.totals_M
+    M0, L0 = tot[:, 0], tot[:, 1]
+    c = state.species_M[:, j]
+    c_lim = min(M0[calib], L0[calib])
+    f = c[calib] / c_lim
+    ml_hand = c / f  # [ML] the hand analysis infers: absorbance of the complex / ε_hand
+    others = np.ones(M0.size, dtype=bool)
+    others[calib] = False
+    with np.errstate(divide="ignore", invalid="ignore"):
+        k_hand = ml_hand / ((M0 - ml_hand) * (L0 - ml_hand))
+    K = 10.0 ** state.log_beta[:, j]
+    ok = others & (ml_hand > 0) & (M0 > ml_hand) & (L0 > ml_hand) & np.isfinite(k_hand)
+    if not ok.any():
+        return float("nan")
+    return float(np.mean(k_hand[ok] / K[ok]) - 1.0)
+
+
+def fraction_converted(K: float, excess_free_M: float) -> float:
+    """Fraction of the limiting reagent complexed at a given free excess: K·x/(1 + K·x) [derived]."""
+    return K * excess_free_M / (1.0 + K * excess_free_M)
+
+
+def double_reciprocal(state: TubeState, tubes) -> Check:
+    """Benesi–Hildebrand analysis needs the excess reagent at ≥ 100× the other in every tube."""
+    tot = state.totals_M
+    M0, L0 = tot[:, 0], tot[:, 1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(M0 > 0, L0 / M0, np.inf)
+    low = ratio < DOUBLE_RECIPROCAL_EXCESS
+    if not low.any():
+        return Check("double-reciprocal", "pass", f"ligand excess ≥ {DOUBLE_RECIPROCAL_EXCESS:.0f}× in every tube")
+    status = "fail" if np.any(ratio < 10) else "warn"
+    return Check("double-reciprocal", status,
+                 f"ligand excess only {np.min(ratio):.0f}× in {_tubes(tubes, low)}; a double-reciprocal "
+                 f"plot needs about 100× (not 10×): lower the metal or raise the ligand, or fit globally")
+
+
+def second_complex(model: Model, state: TubeState, tubes, target: str) -> Check:
+    """Share of the metal in complexes other than the target, where a 1:1 analysis is intended."""
+    mask = model.complex_mask.copy()
+    mask[model.index(target)] = False
+    if not mask.any():
+        return Check("second-complex", "pass", "the plan has no other complex")
+    M0 = state.totals_M[:, 0]
+    share = np.sum(state.species_M[:, mask] * model.stoich[mask, 0], axis=1) / np.where(M0 > 0, M0, 1)
+    k = int(np.argmax(share))
+    names = ", ".join(s for s, m in zip(model.species, mask, strict=True) if m)
+    if share[k] <= SECOND_COMPLEX_SHARE:
+        return Check("second-complex", "pass", f"{names} hold at most {share[k]:.1%} of the metal")
+    return Check("second-complex", "warn" if share[k] < 0.2 else "fail",
+                 f"{names} hold up to {share[k]:.0%} of the metal (tube {tubes[k]}): a 1:1 analysis will be "
+                 f"biased; lower the ligand excess or fit all complexes")
+
+
+def ionic_strength(state: TubeState) -> Check:
+    """Spread of ionic strength across tubes: constants are conditional on the medium."""
+    I = state.ionic_strength_M
+    mean = float(np.mean(I))
+    spread = float((I.max() - I.min()) / mean) if mean > 0 else 0.0
+    if spread <= IONIC_STRENGTH_SPREAD:
+        return Check("ionic-strength", "pass", f"I = {I.min():.3g}–{I.max():.3g} M (spread {spread:.1%})")
+    return Check("ionic-strength", "warn",
+                 f"I varies {spread:.0%} across tubes ({I.min():.3g}–{I.max():.3g} M): add background "
+                 f"electrolyte so every tube has the same ionic strength")
+
+
+def side_reactions(model: Model, state: TubeState, tubes) -> list[Check]:
+    """Hydrolysis (M–H species without L) and ligand protonation (L–H species without M) shares."""
+    out = []
+    p, q = model.stoich[:, 0], model.stoich[:, 1]
+    hyd = (p > 0) & (q == 0)
+    prot = (p == 0) & (q > 0)
+    M0, L0 = state.totals_M[:, 0], state.totals_M[:, 1]
+    if hyd.any():
+        share = np.sum(state.species_M[:, hyd] * p[hyd], axis=1) / np.where(M0 > 0, M0, 1)
+        k = int(np.argmax(share))
+        status = "pass" if share[k] <= SIDE_REACTION_SHARE else "warn"
+        fix = "" if status == "pass" else ": lower the pH (more acid) or include the hydroxo species in the fit"
+        out.append(Check("hydrolysis", status, f"up to {share[k]:.1%} of the metal hydrolysed (tube {tubes[k]}){fix}"))
+    if prot.any():
+        share = np.sum(state.species_M[:, prot] * q[prot], axis=1) / np.where(L0 > 0, L0, 1)
+        alpha = float(np.max(share))
+        out.append(Check("protonation", "pass",
+                         f"up to {alpha:.1%} of the ligand is protonated: the fit uses the conditional "
+                         f"constants at this pH (the pH must be held by the buffer)"))
+    return out
+
+
+def conditional_log_k(model: Model, target: str) -> float:
+    """Conditional log β of the target at the plan's pH with ligand protonation folded in [derived]."""
+    cond = closed_forms.conditional_log_beta(model.log_beta, model.stoich, model.pH)
+    p, q = model.stoich[:, 0], model.stoich[:, 1]
+    prot = (p == 0) & (q == 1)
+    alpha_L = 1.0 + np.sum(10.0 ** cond[prot]) if prot.any() else 1.0
+    j = model.index(target)
+    return float(cond[j] - model.stoich[j, 1] * np.log10(alpha_L))

@@ -1,0 +1,268 @@
+"""Design of recipes that maximise the information about K, on the glassware's real volume grid.
+
+Candidates are every combination of dispensed volumes on the plan's grid; each carries the whitened
+Jacobian of its reading. Errors shared across tubes (stock concentrations, device calibration) enter as
+nuisance parameters with a unit Gaussian prior, which keeps the information additive over tubes and is
+exactly equivalent to the full-covariance Fisher information for the target criterion (Woodbury
+identity). The "all" (D-optimal) criterion uses the independent errors only, since adding the nuisance
+factors would make it a Ds criterion over more parameters; the reported SEs always use the full budget. The exact design comes from :func:`planner.optimal.exact_design` (Fedorov exchange), the bound
+from :func:`planner.optimal.approximate_design` (checked by the equivalence theorem). Robust designs
+average the criterion over quadrature nodes of the guesses' uncertainty (Chaloner & Larntz 1989,
+J. Stat. Plan. Inference 21:191).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ...inference import approximate, exchange
+from ...inference.design_criteria import CRITERIA, DesignError
+from ...inference.study import Study
+from ...inputs.plan import Plan
+from ...inputs.recipe import Recipe
+from ..compile import compile_study
+from .assess import assess_study, stock_shortfalls
+from .candidates import (
+    MAX_CANDIDATES,
+    candidate_tubes,
+    neighbourhood,
+    range_mask,
+    recipe_from_counts,
+    rows_with_prior,
+)
+from .even import even_series_for
+from .model_check import guard
+
+__all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
+
+@dataclass(frozen=True)
+class Design:
+    """A designed recipe and how good it is.
+
+    Attributes
+    ----------
+    recipe : the designed tubes.
+    criterion, robust, seed : what was optimised.
+    n_candidates, n_feasible : candidates on the grid and those inside the linear range robustly.
+    exact : the exact design on the candidates (counts).
+    approx : the best approximate design (the bound).
+    efficiency_bound : lower bound on the exact design's efficiency against the best approximate
+        design over all designs on the candidates (exact efficiency × equivalence-theorem bound).
+    se_target : SE(log β[target]) of the design at the guess (Cramér–Rao, full error budget).
+    se_even : the same for the evenly spaced series of the same size.
+    se_across : list of (true log β, SE of design, SE of even series) across the guess's range.
+    notes : what the optimiser did that the user should know (coarse search, budget caps...).
+    model_check : the model check (:class:`planner.jobs.plan.model_check.ModelCheck`), or None without one.
+    """
+
+    recipe: Recipe
+    criterion: str
+    robust: bool
+    seed: int
+    n_candidates: int
+    n_feasible: int
+    exact: exchange.ExactDesign
+    approx: approximate.ApproximateDesign
+    efficiency_bound: float
+    se_target: float
+    se_even: float
+    se_across: tuple[tuple[float, float, float], ...]
+    target: str
+    notes: tuple[str, ...] = field(default=())
+    assessment_summary: dict = field(default_factory=dict, hash=False)
+    model_check: object | None = field(default=None, compare=False)
+
+    def __repr__(self) -> str:
+        return (f"Design({self.recipe.n_tubes} tubes, {self.criterion}, robust={self.robust}, "
+                f"SE={self.se_target:.3g} vs even {self.se_even:.3g}, efficiency ≥ {self.efficiency_bound:.3f})")
+
+    @property
+    def se_ratio_vs_even(self) -> float:
+        return self.se_even / self.se_target if self.se_target > 0 else float("nan")
+
+    def summary(self) -> dict:
+        """The design JSON: the assessment's baseline keys plus criterion and efficiency_bound."""
+        out = dict(self.assessment_summary)
+        out.update({
+            "criterion": self.criterion,
+            "robust": self.robust,
+            "seed": self.seed,
+            "target": self.target,
+            "efficiency_bound": self.efficiency_bound,
+            "exact_efficiency": float(self.exact.efficiency),
+            "candidates": self.n_candidates,
+            "candidates_feasible": self.n_feasible,
+            "se_target": self.se_target,
+            "se_even_series": self.se_even,
+            "se_ratio_vs_even": self.se_ratio_vs_even,
+            "se_across_guess": [{"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across],
+            "notes": list(self.notes),
+        })
+        if self.model_check is not None:
+            out["model_check"] = self.model_check.summary()
+        return out
+
+
+def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None, robust: bool | None = None,
+           seed: int = 0, volumetric: bool = True, starts: int = 8, check_model: bool | None = None) -> Design:
+    """Choose each tube's volumes to resolve the target constant as precisely as possible.
+
+    Parameters
+    ----------
+    tubes, criterion, robust : override the plan's design keys.
+    seed : seed of the random starts of the exchange algorithm.
+    volumetric : include delivery and stock errors (False: photometric noise only — for analytic checks).
+    check_model : guard against the plan's alternative models (default: the plan's ``design.check``);
+        False gives the target-optimal design alone.
+
+    The plan is compiled once (:func:`planner.jobs.compile.compile_study`); see :func:`design_study`.
+    """
+    return design_study(compile_study(plan), tubes=tubes, criterion=criterion, robust=robust, seed=seed,
+                        volumetric=volumetric, starts=starts, check_model=check_model)
+
+
+def design_study(study: Study, *, tubes: int | None = None, criterion: str | None = None,
+                 robust: bool | None = None, seed: int = 0, volumetric: bool = True, starts: int = 8,
+                 check_model: bool | None = None, prior_tubes: Recipe | None = None) -> Design:
+    """:func:`design` on a compiled plan (``check_model`` overrides the plan's model check).
+
+    ``prior_tubes`` are tubes measured before: their information (whitened rows in the same parameters
+    and nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete
+    it (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.plan.sequential`.
+    """
+    n = int(tubes or study.tubes)
+    crit = criterion or study.criterion
+    if crit not in CRITERIA:
+        raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
+    rob = study.robust if robust is None else bool(robust)
+    model, params = study.model, study.params
+    if params.size == 0:
+        raise DesignError("nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)")
+    if crit == "target" and params.target < 0:
+        raise DesignError(f"the target {study.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0")
+    if n < params.size:
+        raise DesignError(f"{n} tubes cannot determine the {params.size} fitted parameters "
+                          f"({', '.join(params.names)}): ask for at least {params.size} tubes")
+    nodes = study.nodes(rob)
+    notes: list[str] = []
+    caps: dict[str, float] = {}
+    for _attempt in range(4):
+        try:
+            rec, ex, ap, n_grid, n_feas, coarse, final = _solve(study, nodes, crit, n, seed, caps, volumetric,
+                                                                 starts, prior_tubes)
+        except DesignError as exc:
+            if not caps:
+                raise
+            # the caps came from the stock on hand: that is what binds, not the linear range
+            limits = ", ".join(f"{k} at most {v:.2f} mL per tube" for k, v in caps.items())
+            raise DesignError(f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
+                              f"{n} tubes) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
+                              f"fewer tubes") from None
+        if coarse:
+            notes.append(coarse)
+        over = _budget_overruns(study, rec)
+        if not over:
+            break
+        for sid, (used, avail) in over.items():
+            per_tube = max(avail, 0.0) / n
+            caps[sid] = min(caps.get(sid, math.inf), per_tube)
+            notes.append(f"stock {sid}: the first design used {used:.1f} mL but only {avail:.1f} mL is usable "
+                         f"(on hand less rinse and dead volume); capped at {per_tube:.2f} mL per tube")
+    else:
+        raise DesignError("the stock budget cannot be met: make more of "
+                          + ", ".join(_budget_overruns(study, rec)) + " (on_hand) or use fewer tubes")
+    check = None
+    use_check = study.check_weight > 0 if check_model is None else bool(check_model)
+    if use_check and study.alternatives and crit == "target":
+        check = guard(study, *final, rec, volumetric=volumetric, seed=seed, prior=prior_tubes)
+        if _budget_overruns(study, check.recipe):
+            notes.append("the model-check design would overrun a stock on hand: kept the target-only design")
+        else:
+            rec = check.recipe
+    a = assess_study(study, rec, trials=0)
+    even = even_series_for(study, n)
+    se_d = float(a.target_se) if a.target_se is not None else float("nan")
+    # the comparisons need only the Cramér–Rao SE: skip their χ² profiles
+    ae = assess_study(study, even, trials=0, profile_chi2=False, model_check=False)
+    se_e = float(ae.target_se) if ae.target_se is not None else float("nan")
+    across = []
+    t = study.target
+    j = model.index(t)
+    sd = float(model.log_beta_sd[j])
+    if sd > 0:
+        for k in (-2, -1, 0, 1, 2):
+            val = float(model.log_beta[j] + k * sd)
+            sa = assess_study(study, rec, trials=0, at={t: val}, profile_chi2=False,
+                              model_check=False).target_se
+            sb = assess_study(study, even, trials=0, at={t: val}, profile_chi2=False,
+                              model_check=False).target_se
+            across.append((val, float(sa), float(sb)))
+    eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
+    return Design(rec, crit, rob, seed, n_grid, n_feas, ex, ap, min(eff, 1.0), se_d, se_e, tuple(across), t,
+                  tuple(notes), a.summary(), check)
+
+
+def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts, prior=None):
+    g = study.bench
+    cand = candidate_tubes(study, caps_mL=caps)
+    coarse_note = ""
+    factor = 1
+    if cand.n_grid > MAX_CANDIDATES:
+        d = len(cand.designed_ids)
+        factor = int(math.ceil((cand.n_grid / MAX_CANDIDATES) ** (1.0 / d)))
+        cand = candidate_tubes(study, step_mL=g.step_mL * factor, caps_mL=caps)
+        coarse_note = (f"searched a {g.step_mL * factor:g} mL grid first ({cand.n_grid} candidates), then refined "
+                       f"on the {g.step_mL:g} mL grid near the chosen tubes")
+    ex, ap, rec, n_feas, support, final = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts, prior)
+    n_grid = cand.n_grid
+    if factor > 1:
+        # refine on the fine grid around the chosen tubes, re-centring until the support settles
+        base = cand
+        for _ in range(3):
+            fine = neighbourhood(study, base, support, factor, caps)
+            ex, ap, rec, n_feas, new_support, final = _exact_on(study, nodes, crit, n, seed, fine, volumetric,
+                                                                starts, prior)
+            n_grid = fine.n_grid
+            moved = not np.array_equal(fine.recipe.volumes_mL[new_support], base.recipe.volumes_mL[support])
+            base, support = fine, new_support
+            if not moved:
+                break
+    return rec, ex, ap, n_grid, n_feas, coarse_note, final
+
+
+def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts, prior=None):
+    model, params = study.model, study.params
+    F, M0, st, band = rows_with_prior(study, cand, prior, nodes, crit, volumetric=volumetric)
+    ok = range_mask(model, st, nodes.weights, band)
+    if not ok.any():
+        lo, hi = model.linear_range
+        raise DesignError(
+            f"no candidate tube keeps the absorbance inside optics.linear_range [{lo:g}, {hi:g}] over the "
+            f"guess's range: use more dilute stocks or a shorter path (if too high), more concentrated stocks "
+            f"or a longer path (if too low), or widen linear_range")
+    idx = np.flatnonzero(ok)
+    Fk = F[:, idx]
+    target = params.target if crit == "target" else None
+    kw = dict(criterion=crit, target=target, M0=M0, node_weights=nodes.weights)
+    try:
+        ap = approximate.approximate_design(Fk, n_tubes=n, **kw)
+        ex = exchange.exact_design(Fk, n, rng=np.random.default_rng(seed), starts=starts, approx=ap, **kw)
+    except DesignError as exc:
+        lo, hi = model.linear_range
+        raise DesignError(
+            f"only {idx.size} of {cand.n_grid} candidate tubes stay inside optics.linear_range [{lo:g}, {hi:g}] "
+            f"over the guess's range, and they cannot determine every fitted parameter ({exc}). Use more "
+            f"dilute stocks or smaller fixed volumes if readings run high, a longer path if they run low, "
+            f"or hold more parameters fixed (rsd = 0)") from None
+    out = recipe_from_counts(study, cand, idx, ex.counts)
+    return ex, ap, out, int(ok.sum()), idx[np.flatnonzero(ex.counts)], (cand, idx, ex.counts)
+
+
+def _budget_overruns(study: Study, rec: Recipe) -> dict[str, tuple[float, float]]:
+    """Stocks whose recipe use exceeds on_hand less rinse and dead volume: id -> (used, usable). The
+    diluent fills the rest of each tube and is not capped."""
+    return {sid: (used, have - (need - used)) for sid, used, need, have in stock_shortfalls(study.bench, rec)
+            if sid != study.bench.diluent_id}
