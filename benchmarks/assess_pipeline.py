@@ -42,23 +42,37 @@ def main(n_trials: int = 10000, n_baseline: int = 200) -> None:
     lo, hi = reading.bounds()
 
     t0 = time.perf_counter()
-    res = fit_many(reading.f, params.guess, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False,
-                   lower=lo, upper=hi)
+    res = fit_many(
+        reading.f,
+        params.guess,
+        sim.absorbance,
+        jac=reading.jac,
+        whiten=W,
+        scale_cov=False,
+        lower=lo,
+        upper=hi,
+    )
     t_ours = (time.perf_counter() - t0) / n_trials
 
     est = np.empty((n_baseline, params.size))
     t0 = time.perf_counter()
     for i in range(n_baseline):  # the plain baseline: one problem at a time
         y = sim.absorbance[i]
-        r = least_squares(lambda th, y=y: W @ (reading.f(th[None, :])[0] - y), params.guess,
-                          jac=lambda th: W @ reading.jac(th[None, :])[0], method="lm")
+        r = least_squares(
+            lambda th, y=y: W @ (reading.f(th[None, :])[0] - y),
+            params.guess,
+            jac=lambda th: W @ reading.jac(th[None, :])[0],
+            method="lm",
+        )
         est[i] = r.x
     t_base = (time.perf_counter() - t0) / n_baseline
     t = params.target
     diff = np.max(np.abs(res.theta[:n_baseline, t] - est[:, t]))
-    print(f"{n_trials} experiments: vectorised {t_ours * 1e6:.1f} µs/fit ({t_ours * n_trials:.2f} s total, "
-          f"{res.converged.mean():.1%} converged); scipy one by one {t_base * 1e6:.0f} µs/fit; "
-          f"ratio {t_base / t_ours:.0f}×; max |Δ log K| on the common {n_baseline}: {diff:.1e}")
+    print(
+        f"{n_trials} experiments: vectorised {t_ours * 1e6:.1f} µs/fit ({t_ours * n_trials:.2f} s total, "
+        f"{res.converged.mean():.1%} converged); scipy one by one {t_base * 1e6:.0f} µs/fit; "
+        f"ratio {t_base / t_ours:.0f}×; max |Δ log K| on the common {n_baseline}: {diff:.1e}"
+    )
 
 
 if __name__ == "__main__":

@@ -47,8 +47,9 @@ def main() -> None:
     from planner.jobs.stocks.needs import stock_needs
     from planner.paper import render
 
-    plan = parse_plan_text(resources.files("planner.data").joinpath("scenarios", "teaching.toml")
-                           .read_text(encoding="utf-8"))
+    plan = parse_plan_text(
+        resources.files("planner.data").joinpath("scenarios", "teaching.toml").read_text(encoding="utf-8")
+    )
     study = compile_study(plan)
     recipe = design_study(study, seed=args.seed).recipe
     render.html_to_pdf("<p>warm-up</p>")
@@ -70,12 +71,16 @@ def main() -> None:
 
         t, _ = timed(run, args.repeats)
         se = parts["se"]
-        print(f"{n:4d} cards: {t:6.2f} s = "
-              f"{t / t_sheet:5.1f} prep sheets = {t / n:.3f} s per card; budget {BUDGET_S.get(n, float('nan')):g} s; "
-              f"sound={parts['sound']}")
-        print(f"      SE log β: card median {se['cards_median']:.4f}, pooled {se['pooled']:.4f}, "
-              f"{n} × best {se['pooled_best_copies']:.4f}, {n} × even {se['pooled_even_copies']:.4f}, "
-              f"pooled without stock errors {se['pooled_without_stock']:.4f}")
+        print(
+            f"{n:4d} cards: {t:6.2f} s = "
+            f"{t / t_sheet:5.1f} prep sheets = {t / n:.3f} s per card; budget {BUDGET_S.get(n, float('nan')):g} s; "
+            f"sound={parts['sound']}"
+        )
+        print(
+            f"      SE log β: card median {se['cards_median']:.4f}, pooled {se['pooled']:.4f}, "
+            f"{n} × best {se['pooled_best_copies']:.4f}, {n} × even {se['pooled_even_copies']:.4f}, "
+            f"pooled without stock errors {se['pooled_without_stock']:.4f}"
+        )
 
 
 if __name__ == "__main__":

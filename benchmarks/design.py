@@ -33,7 +33,7 @@ def teaching_text() -> str:
 
 def three_stock_text() -> str:
     text = teaching_text()
-    extra = '''
+    extra = """
 [[stock]]
 id = "DYC"
 label = "dye ligand Dy, 100 mM in 0.10 M KNO3"
@@ -41,7 +41,7 @@ conc = { L = "100 mM" }
 ions = { "Na+" = "100 mM", "K+" = "0.10 M", "NO3-" = "0.10 M" }
 conc_rsd = 0.01
 on_hand = "100 mL"
-'''
+"""
     text = text.replace('[[stock]]\nid = "BG"', extra.strip() + '\n\n[[stock]]\nid = "BG"')
     return text.replace('stocks = ["CU", "DY"]', 'stocks = ["CU", "DY", "DYC"]')
 
@@ -68,10 +68,11 @@ def score(plan, vols: np.ndarray, ids: tuple[str, ...]) -> np.ndarray:
     out = np.empty(D)
     for k in range(D):  # baseline only: the general optimiser's population
         counts = np.zeros(D * n, dtype=int)
-        counts[k * n:(k + 1) * n] = 1
+        counts[k * n : (k + 1) * n] = 1
         try:
-            out[k] = criterion_of_counts(F, counts, criterion="target", target=params.target, M0=M0,
-                                         node_weights=nodes.weights)
+            out[k] = criterion_of_counts(
+                F, counts, criterion="target", target=params.target, M0=M0, node_weights=nodes.weights
+            )
         except Exception as exc:  # a degenerate design the criterion refuses
             print("criterion refused:", exc) if k == 0 and D == 1 else None
             out[k] = np.inf
@@ -102,12 +103,24 @@ def run(text: str, label: str, de_maxiter: int) -> None:
         return score(plan, v, ids)
 
     t0 = time.perf_counter()
-    res = differential_evolution(f, bounds, maxiter=de_maxiter, popsize=10, seed=0, vectorized=True,
-                                 updating="deferred", polish=False, tol=0, atol=-1)
+    res = differential_evolution(
+        f,
+        bounds,
+        maxiter=de_maxiter,
+        popsize=10,
+        seed=0,
+        vectorized=True,
+        updating="deferred",
+        polish=False,
+        tol=0,
+        atol=-1,
+    )
     t_de = time.perf_counter() - t0
-    print(f"{label}: ours {t_ours:.2f} s, criterion {c_ours:.4f} | differential evolution {t_de:.2f} s, "
-          f"criterion {float(res.fun):.4f} | time ratio DE/ours {t_de / t_ours:.1f}; "
-          f"ours {'at least as good' if c_ours <= res.fun + 1e-9 else 'WORSE'}")
+    print(
+        f"{label}: ours {t_ours:.2f} s, criterion {c_ours:.4f} | differential evolution {t_de:.2f} s, "
+        f"criterion {float(res.fun):.4f} | time ratio DE/ours {t_de / t_ours:.1f}; "
+        f"ours {'at least as good' if c_ours <= res.fun + 1e-9 else 'WORSE'}"
+    )
 
 
 if __name__ == "__main__":

@@ -56,7 +56,9 @@ def main(trials: int) -> None:
         n_diag += 1
     elapsed = time.perf_counter() - t0
     print(f"{'clean, explained':>16} {false / trials:>10.0%}")
-    print(f"{n_diag} diagnoses in {elapsed:.2f} s ({elapsed / n_diag * 1e3:.1f} ms each, simulation included)")
+    print(
+        f"{n_diag} diagnoses in {elapsed:.2f} s ({elapsed / n_diag * 1e3:.1f} ms each, simulation included)"
+    )
 
 
 if __name__ == "__main__":

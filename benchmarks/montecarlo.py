@@ -73,7 +73,7 @@ def plain_batched_lm(f, jac, theta0, y, sd, max_iter: int = 100, tol: float = 1e
     eye = np.eye(P)
     for _ in range(max_iter):
         th, ra = theta[act], r[act]
-        J = jac(th) / sd                                        # (t, N, P)
+        J = jac(th) / sd  # (t, N, P)
         A = np.einsum("tnp,tnq->tpq", J, J)
         g = np.einsum("tnp,tn->tp", J, ra)
         damp = lam[act, None, None] * np.einsum("tpp->tp", A)[:, :, None] * eye
@@ -82,8 +82,10 @@ def plain_batched_lm(f, jac, theta0, y, sd, max_iter: int = 100, tol: float = 1e
         r_new = (f(trial) - y[act]) / sd
         chi2_new = np.sum(r_new * r_new, axis=1)
         better = np.isfinite(chi2_new) & (chi2_new < chi2[act])
-        done = better & ((chi2[act] - chi2_new <= tol * chi2_new)
-                         | (np.max(np.abs(step) / (np.abs(th) + 1e-12), axis=1) < tol))
+        done = better & (
+            (chi2[act] - chi2_new <= tol * chi2_new)
+            | (np.max(np.abs(step) / (np.abs(th) + 1e-12), axis=1) < tol)
+        )
         ok = act[better]
         theta[ok], r[ok], chi2[ok] = trial[better], r_new[better], chi2_new[better]
         lam[act] = np.where(better, lam[act] / 10.0, lam[act] * 10.0)
@@ -140,19 +142,27 @@ def main(n_trials: int, n_baseline: int, seed: int, repeats: int) -> None:
     both = batch.converged & np.all(np.isfinite(plain), axis=1)
     max_dplain = float(np.max(np.abs(batch.theta[both, 0] - plain[both, 0])))
 
-    print(f"fit_many : {n_trials} fits in {t_batch:.3f} s  -> {per_batch * 1e6:9.1f} us/fit "
-          f"({batch.converged.mean():.2%} converged, median {np.median(batch.n_iter):.0f} steps, "
-          f"max {batch.n_iter.max()})")
-    print(f"scipy lm : {n_baseline} fits in {t_ref:.3f} s  -> {per_ref * 1e6:9.1f} us/fit "
-          f"({ref_ok.mean():.2%} converged)")
-    print(f"plain batched numpy LM (fair baseline): {n_trials} fits in {t_plain:.3f} s -> "
-          f"{per_plain * 1e6:9.1f} us/fit; ratio plain / fit_many: {per_plain / per_batch:.2f}x; "
-          f"max |Δ log10 K| {max_dplain:.1e}")
+    print(
+        f"fit_many : {n_trials} fits in {t_batch:.3f} s  -> {per_batch * 1e6:9.1f} us/fit "
+        f"({batch.converged.mean():.2%} converged, median {np.median(batch.n_iter):.0f} steps, "
+        f"max {batch.n_iter.max()})"
+    )
+    print(
+        f"scipy lm : {n_baseline} fits in {t_ref:.3f} s  -> {per_ref * 1e6:9.1f} us/fit "
+        f"({ref_ok.mean():.2%} converged)"
+    )
+    print(
+        f"plain batched numpy LM (fair baseline): {n_trials} fits in {t_plain:.3f} s -> "
+        f"{per_plain * 1e6:9.1f} us/fit; ratio plain / fit_many: {per_plain / per_batch:.2f}x; "
+        f"max |Δ log10 K| {max_dplain:.1e}"
+    )
     print(f"speed-up per fit against the naive loop (scipy / fit_many): {per_ref / per_batch:.1f}x")
     print(f"10,000-fit budget: {t_batch * 1e4 / n_trials:.3f} s   (goal <= 3 s)")
     print(f"max |log10 K (fit_many) - log10 K (scipy)| on {int(common.sum())} common fits: {max_dlogk:.2e}")
-    print(f"MC sd of log10 K: {batch.theta[batch.converged, 0].std(ddof=1):.4f}; "
-          f"median asymptotic se: {np.median(batch.se[batch.converged, 0]):.4f}")
+    print(
+        f"MC sd of log10 K: {batch.theta[batch.converged, 0].std(ddof=1):.4f}; "
+        f"median asymptotic se: {np.median(batch.se[batch.converged, 0]):.4f}"
+    )
 
 
 if __name__ == "__main__":

@@ -52,9 +52,12 @@ def main() -> None:
     else:
         from importlib import resources
 
-        plan = parse_plan_text(resources.files("planner.data").joinpath("scenarios", "teaching.toml")
-                               .read_text(encoding="utf-8"))
-    recipe = read_recipe_csv(args.recipe, plan) if args.recipe else parse_recipe_csv(demo_recipe_csv(plan), plan)
+        plan = parse_plan_text(
+            resources.files("planner.data").joinpath("scenarios", "teaching.toml").read_text(encoding="utf-8")
+        )
+    recipe = (
+        read_recipe_csv(args.recipe, plan) if args.recipe else parse_recipe_csv(demo_recipe_csv(plan), plan)
+    )
     a = assess(plan, recipe, trials=args.trials, seed=0)
     needs = stock_needs(plan, recipe)
     date = "2026-12-01"
@@ -66,9 +69,11 @@ def main() -> None:
     t = time.perf_counter()
     render.report(plan, recipe, a, date=date)
     t_cold_rep = time.perf_counter() - t
-    print(f"first calls (load WeasyPrint and fonts, then matplotlib): prep sheet {t_cold_prep:.2f} s "
-          f"[{'within' if t_cold_prep <= BUDGET_PREP_S else 'OVER'} budget], report {t_cold_rep:.2f} s "
-          f"[{'within' if t_cold_rep <= BUDGET_REPORT_S else 'OVER'} budget]")
+    print(
+        f"first calls (load WeasyPrint and fonts, then matplotlib): prep sheet {t_cold_prep:.2f} s "
+        f"[{'within' if t_cold_prep <= BUDGET_PREP_S else 'OVER'} budget], report {t_cold_rep:.2f} s "
+        f"[{'within' if t_cold_rep <= BUDGET_REPORT_S else 'OVER'} budget]"
+    )
 
     prep_html = render.prep_sheet(plan, recipe, a, needs, date=date, fmt="html").decode("utf-8")
     report_html = render.report(plan, recipe, a, date=date, fmt="html").decode("utf-8")
@@ -87,7 +92,9 @@ def main() -> None:
     print(f"\nmedian of {args.repeats} runs")
     print(f"{'':28s}{'time / s':>10s}{'baseline / s':>14s}{'ratio':>8s}{'budget / s':>12s}  ok")
     for name, tx, tb, budget in rows:
-        print(f"{name:28s}{tx:10.3f}{tb:14.3f}{tx / tb:8.2f}{budget:12.1f}  {'yes' if tx <= budget else 'NO'}")
+        print(
+            f"{name:28s}{tx:10.3f}{tb:14.3f}{tx / tb:8.2f}{budget:12.1f}  {'yes' if tx <= budget else 'NO'}"
+        )
     print(f"  of which figures + scan (report HTML alone): {t_rep_html:.3f} s")
     print("baseline: the same HTML to PDF without figures (prep sheet: its own HTML)")
 

@@ -35,8 +35,11 @@ MAX_TUBES = 40
 
 
 def se_at_truth(study, recipe) -> float:
-    return float(assess_study(study, recipe, trials=0, at={"ML": TRUTH}, profile_chi2=False,
-                              model_check=False).target_se)
+    return float(
+        assess_study(
+            study, recipe, trials=0, at={"ML": TRUTH}, profile_chi2=False, model_check=False
+        ).target_se
+    )
 
 
 def main(seeds: int) -> None:
@@ -44,7 +47,9 @@ def main(seeds: int) -> None:
     study = compile_study(parse_plan_text(text.replace("goal_se = 0.05", f"goal_se = {GOAL}")))
     lb = study.model.log_beta.copy()
     lb[0] = TRUTH
-    print(f"truth log β = {TRUTH}, guess {study.model.log_beta[0]} ± {study.model.log_beta_sd[0]}, goal SE {GOAL}")
+    print(
+        f"truth log β = {TRUTH}, guess {study.model.log_beta[0]} ± {study.model.log_beta_sd[0]}, goal SE {GOAL}"
+    )
     print(f"{'seed':>4} {'tubes':>5} {'SE seq':>8} {'SE one-shot':>11} {'s':>6}")
     wins = 0
     for seed in range(seeds):
@@ -58,13 +63,17 @@ def main(seeds: int) -> None:
                 break
             new = replace(nb.design.recipe, tubes=tuple(f"B{rec.n_tubes}-{k}" for k in range(BATCH)))
             rec = concat_recipes([rec, new])
-            A = np.concatenate([A, simulate(study.bench, study.model, new, rng, 1, log_beta=lb).absorbance[0]])
+            A = np.concatenate(
+                [A, simulate(study.bench, study.model, new, rng, 1, log_beta=lb).absorbance[0]]
+            )
         elapsed = time.perf_counter() - t0
         one = se_at_truth(study, design_study(study, tubes=rec.n_tubes, seed=seed).recipe)
         seq = se_at_truth(study, rec)
         wins += one > GOAL >= seq
         print(f"{seed:>4} {rec.n_tubes:>5} {seq:>8.4f} {one:>11.4f} {elapsed:>6.1f}")
-    print(f"sequential met the goal where a one-shot design of the same size did not in {wins} of {seeds} runs")
+    print(
+        f"sequential met the goal where a one-shot design of the same size did not in {wins} of {seeds} runs"
+    )
 
 
 if __name__ == "__main__":

@@ -50,7 +50,8 @@ def best_of(fn, repeat: int = 3) -> tuple[float, object]:
 def describe(method: str, s: dict) -> str:
     if method == "job":
         return f"extremum x_M = {s['extremum_mole_fraction']:.3f}; " + ", ".join(
-            f"{d['model']} {d['separation_sd']:.1f} sd" for d in s["discrimination"])
+            f"{d['model']} {d['separation_sd']:.1f} sd" for d in s["discrimination"]
+        )
     if method == "calibration":
         f = s["fraction_converted"]
         return f"converted {f['at_guess']:.3f} at the guess, {f['worst']:.3f} at worst"
@@ -84,9 +85,11 @@ def main() -> None:
     ours = _se_by_wavelength(banded, model, recipe, eps)[0][pick]
     ok = np.isfinite(plain) & np.isfinite(ours)
     diff = float(np.max(np.abs(np.asarray(plain)[ok] / ours[ok] - 1))) if ok.any() else float("nan")
-    print(f"survey over {lam.size} wavelengths: vectorised {t_ours:.3f} s; one Cramér–Rao per wavelength "
-          f"{per * lam.size:.2f} s (scaled from {pick.size}); ratio {per * lam.size / t_ours:.0f}×; "
-          f"largest relative SE difference {diff:.1e}")
+    print(
+        f"survey over {lam.size} wavelengths: vectorised {t_ours:.3f} s; one Cramér–Rao per wavelength "
+        f"{per * lam.size:.2f} s (scaled from {pick.size}); ratio {per * lam.size / t_ours:.0f}×; "
+        f"largest relative SE difference {diff:.1e}"
+    )
 
 
 def one_wavelength_se(p, recipe) -> float:

@@ -41,14 +41,17 @@ def _lse(*terms: float) -> float:
 
 
 def species_root(M: float, L: float) -> np.ndarray:
-    b1, b2 = 10.0 ** LOG_BETA
+    b1, b2 = 10.0**LOG_BETA
     lb1, lb2 = LOG_BETA * math.log(10.0)
     lnM, lnL, ln2 = math.log(M), math.log(L), math.log(2.0)
 
     def resid(u):
         x, y = float(u[0]), float(u[1])
         # log-sum-exp keeps trial points far from the root finite
-        return [_lse(x, lb1 + x + y, lb2 + x + 2.0 * y) - lnM, _lse(y, lb1 + x + y, ln2 + lb2 + x + 2.0 * y) - lnL]
+        return [
+            _lse(x, lb1 + x + y, lb2 + x + 2.0 * y) - lnM,
+            _lse(y, lb1 + x + y, ln2 + lb2 + x + 2.0 * y) - lnL,
+        ]
 
     sol = optimize.root(resid, [math.log(M), math.log(L)], method="hybr", options={"xtol": 1e-13})
     m, lf = math.exp(sol.x[0]), math.exp(sol.x[1])
@@ -56,7 +59,7 @@ def species_root(M: float, L: float) -> np.ndarray:
 
 
 def species_brentq(M: float, L: float) -> np.ndarray:
-    b1, b2 = 10.0 ** LOG_BETA
+    b1, b2 = 10.0**LOG_BETA
 
     def h(lnl):
         lf = math.exp(lnl)
@@ -71,10 +74,10 @@ def species_brentq(M: float, L: float) -> np.ndarray:
 
 def species_bisection(M: np.ndarray, L: np.ndarray, tol: float = 1e-14) -> np.ndarray:
     """Vectorised bisection on ln[L] of the free-ligand balance (every species has p <= 1 here)."""
-    b1, b2 = 10.0 ** LOG_BETA
-    lo = np.log(L) - 60.0            # h(lo) < 0: almost no free ligand
-    hi = np.log(L)                   # h(hi) >= 0: all ligand free
-    for _ in range(200):             # 60 / 2^k < tol after ~53 halvings
+    b1, b2 = 10.0**LOG_BETA
+    lo = np.log(L) - 60.0  # h(lo) < 0: almost no free ligand
+    hi = np.log(L)  # h(hi) >= 0: all ligand free
+    for _ in range(200):  # 60 / 2^k < tol after ~53 halvings
         mid = 0.5 * (lo + hi)
         lf = np.exp(mid)
         m = M / (1.0 + b1 * lf + b2 * lf * lf)
@@ -136,16 +139,24 @@ def main() -> None:
     per_vec = t_vec / args.tubes
     per_root = t_root / nb
     per_brentq = t_brentq / nb
-    print(f"speciate, {args.tubes} tubes: {t_vec:.3f} s total, {per_vec * 1e6:.3f} us per tube "
-          f"(best of {args.repeats})")
+    print(
+        f"speciate, {args.tubes} tubes: {t_vec:.3f} s total, {per_vec * 1e6:.3f} us per tube "
+        f"(best of {args.repeats})"
+    )
     per_bis = t_bis / args.tubes
-    print(f"fair baseline, vectorised numpy bisection, {args.tubes} tubes: {per_bis * 1e6:.3f} us per tube; "
-          f"speed-up {per_bis / per_vec:.1f}x")
+    print(
+        f"fair baseline, vectorised numpy bisection, {args.tubes} tubes: {per_bis * 1e6:.3f} us per tube; "
+        f"speed-up {per_bis / per_vec:.1f}x"
+    )
     print("naive baselines (per-tube Python loops):")
-    print(f"scipy.optimize.root loop, {nb} tubes: {per_root * 1e6:.1f} us per tube (best of {args.repeats}); "
-          f"speed-up {per_root / per_vec:.0f}x")
-    print(f"scipy.optimize.brentq loop, {nb} tubes: {per_brentq * 1e6:.1f} us per tube (best of {args.repeats}); "
-          f"speed-up {per_brentq / per_vec:.0f}x")
+    print(
+        f"scipy.optimize.root loop, {nb} tubes: {per_root * 1e6:.1f} us per tube (best of {args.repeats}); "
+        f"speed-up {per_root / per_vec:.0f}x"
+    )
+    print(
+        f"scipy.optimize.brentq loop, {nb} tubes: {per_brentq * 1e6:.1f} us per tube (best of {args.repeats}); "
+        f"speed-up {per_brentq / per_vec:.0f}x"
+    )
     for name, ref in (("bisection", result["bisection"][:nb]), ("root", ref_root), ("brentq", ref_brentq)):
         rel = np.max(np.abs(ours - ref) / np.maximum(ref, 1e-300))
         print(f"max relative difference of [ML], [ML2] vs {name}: {rel:.2e}")

@@ -45,8 +45,9 @@ def main(repeats: int) -> None:
         bare = Path(tmp) / "bare.py"
         bare.write_text(BARE_TYPER, encoding="utf-8")
         recipe = Path(tmp) / "even.csv"
-        subprocess.run([*kplan, "demo", "--out", tmp], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-                       check=True)
+        subprocess.run(
+            [*kplan, "demo", "--out", tmp], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, check=True
+        )
         recipe = Path(tmp) / "recipe-even.csv"
         base_typer = best([py, str(bare), "--help"], repeats)
         base_numpy = best([py, "-c", "import numpy"], repeats)
@@ -56,12 +57,16 @@ def main(repeats: int) -> None:
             ("kplan assess", [*kplan, "assess", teaching, str(recipe)], 1.0),
             ("kplan design", [*kplan, "design", teaching], 1.0),
         ]
-        print(f"baselines: bare typer app --help {base_typer:.3f} s; python -c 'import numpy' {base_numpy:.3f} s")
+        print(
+            f"baselines: bare typer app --help {base_typer:.3f} s; python -c 'import numpy' {base_numpy:.3f} s"
+        )
         print(f"{'command':<14} {'s':>6} {'goal':>5} {'× typer':>8} {'× numpy':>8}")
         for name, cmd, goal in rows:
             t = best(cmd, repeats)
-            print(f"{name:<14} {t:>6.3f} {goal:>5.1f} {t / base_typer:>8.1f} {t / base_numpy:>8.1f}"
-                  + ("" if t <= goal else "   over the goal"))
+            print(
+                f"{name:<14} {t:>6.3f} {goal:>5.1f} {t / base_typer:>8.1f} {t / base_numpy:>8.1f}"
+                + ("" if t <= goal else "   over the goal")
+            )
 
 
 if __name__ == "__main__":

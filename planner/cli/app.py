@@ -75,10 +75,12 @@ def _version(value: bool) -> None:
 
 @app.callback()
 def _root(
-    show_version: bool = typer.Option(False, "--version", help="print the version and exit", is_eager=True,
-                                      callback=_version),
+    show_version: bool = typer.Option(
+        False, "--version", help="print the version and exit", is_eager=True, callback=_version
+    ),
 ) -> None:
     """Plan, check and fit absorbance experiments that measure metal–ligand formation constants."""
+
 
 SCENARIOS = ("teaching", "stepwise", "proton")
 
@@ -101,8 +103,18 @@ def _user_errors() -> tuple[type[BaseException], ...]:
     from ..uncertainty.catalogue import GlasswareError
     from ..uncertainty.stocks import StockError
 
-    return (PlanError, RecipeError, OutputError, UserError, EquilibriumError, GlasswareError, StockError,
-            DesignError, FitError, RenderError)
+    return (
+        PlanError,
+        RecipeError,
+        OutputError,
+        UserError,
+        EquilibriumError,
+        GlasswareError,
+        StockError,
+        DesignError,
+        FitError,
+        RenderError,
+    )
 
 
 def safe_text(text: object) -> str:

@@ -14,14 +14,32 @@ from .options import MAX_TRIALS, _with_progress, parse_at, read_points
 @app.command()
 def assess(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
-    recipe: Annotated[Path, typer.Argument(
-        help="recipe CSV: tube, then one column per stock (mL); for a titration: step, aliquot_mL")],
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
-    trials: Annotated[int, typer.Option(help="Monte-Carlo experiments (0: Cramér–Rao only)", min=0,
-                                        max=MAX_TRIALS, metavar="INTEGER")] = 2000,
-    seed: Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0, metavar="INTEGER")] = 0,
-    at: Annotated[list[str] | None, typer.Option(
-        "--at", help="assess as if the true constant were different: NAME=LOGBETA (repeatable)", metavar="NAME=LOGBETA")] = None,
+    recipe: Annotated[
+        Path,
+        typer.Argument(
+            help="recipe CSV: tube, then one column per stock (mL); for a titration: step, aliquot_mL"
+        ),
+    ],
+    as_json: Annotated[
+        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
+    ] = False,
+    trials: Annotated[
+        int,
+        typer.Option(
+            help="Monte-Carlo experiments (0: Cramér–Rao only)", min=0, max=MAX_TRIALS, metavar="INTEGER"
+        ),
+    ] = 2000,
+    seed: Annotated[
+        int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0, metavar="INTEGER")
+    ] = 0,
+    at: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--at",
+            help="assess as if the true constant were different: NAME=LOGBETA (repeatable)",
+            metavar="NAME=LOGBETA",
+        ),
+    ] = None,
 ) -> None:
     """Judge a recipe: can it resolve K? Precision, checks with fixes, and every tube's expected reading.
     Exit code 0 resolved, 1 unresolved or only bounded, 2 bad input."""
@@ -34,8 +52,12 @@ def assess(
     study = compile_study(p)
     r = read_points(recipe, p, study)
     at_values = parse_at(at or [])
-    a = _with_progress(lambda prog: assess_study(study, r, trials=trials, seed=seed, at=at_values, progress=prog),
-                       trials, quiet=as_json, tubes=r.n_tubes)
+    a = _with_progress(
+        lambda prog: assess_study(study, r, trials=trials, seed=seed, at=at_values, progress=prog),
+        trials,
+        quiet=as_json,
+        tubes=r.n_tubes,
+    )
     if as_json:
         print(dump_json(a.summary()))
     else:

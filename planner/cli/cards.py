@@ -33,18 +33,35 @@ def _sections(roster, k: int | None):
 @app.command()
 def cards(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
-    roster_path: Annotated[Path | None, typer.Option(
-        "--roster", help="class roster CSV: id, name (optional section, bench)", metavar="PATH")] = None,
-    count: Annotated[int | None, typer.Option(help="number of students, without a roster (ids S01, S02, …)",
-                                              min=1, metavar="INTEGER")] = None,
-    out_dir: Annotated[Path, typer.Option("--out", help="folder for the cards, the key and the stock list", metavar="PATH")] = Path(
-        "kplan-cards"),
-    seed: Annotated[int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")] = 0,
-    tubes: Annotated[int | None, typer.Option(help="tubes per student (overrides design.tubes)", min=1, metavar="INTEGER")] = None,
-    sections: Annotated[int | None, typer.Option(
-        help="split the class into K sections (A, B, …) in roster order", min=1, metavar="INTEGER")] = None,
-    paper: Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}", metavar="TEXT")] = "A4",
-    as_json: Annotated[bool, typer.Option("--json", help="print the class summary as JSON", metavar="")] = False,
+    roster_path: Annotated[
+        Path | None,
+        typer.Option("--roster", help="class roster CSV: id, name (optional section, bench)", metavar="PATH"),
+    ] = None,
+    count: Annotated[
+        int | None,
+        typer.Option(help="number of students, without a roster (ids S01, S02, …)", min=1, metavar="INTEGER"),
+    ] = None,
+    out_dir: Annotated[
+        Path, typer.Option("--out", help="folder for the cards, the key and the stock list", metavar="PATH")
+    ] = Path("kplan-cards"),
+    seed: Annotated[
+        int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")
+    ] = 0,
+    tubes: Annotated[
+        int | None, typer.Option(help="tubes per student (overrides design.tubes)", min=1, metavar="INTEGER")
+    ] = None,
+    sections: Annotated[
+        int | None,
+        typer.Option(
+            help="split the class into K sections (A, B, …) in roster order", min=1, metavar="INTEGER"
+        ),
+    ] = None,
+    paper: Annotated[
+        str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}", metavar="TEXT")
+    ] = "A4",
+    as_json: Annotated[
+        bool, typer.Option("--json", help="print the class summary as JSON", metavar="")
+    ] = False,
 ) -> None:
     """One recipe card per student — every card a different, individually sound recipe, together a good
     pooled design — with the instructor's key (expected readings and acceptance bands) and the class
@@ -109,15 +126,21 @@ def _print(cs, stocks, out_dir: Path) -> None:
     se = cs.se
     n = len(cs.cards)
     out.print(f"[bold]{S(cs.title)}[/bold]: {n} cards of {cs.best.n_tubes} tubes, seed {cs.seed}")
-    out.print(f"  SE of log β[{cs.target}]: one card {fmt.sig(se['cards_median'], 2)} (median; worst "
-              f"{fmt.sig(se['cards_max'], 2)}, goal {fmt.sig(cs.goal_se, 2)})")
-    out.print(f"  class pooled {fmt.sig(se['pooled'], 2)}; {n} copies of the best recipe "
-              f"{fmt.sig(se['pooled_best_copies'], 2)}; {n} copies of the even series "
-              f"{fmt.sig(se['pooled_even_copies'], 2)}; stock errors left out {fmt.sig(se['pooled_without_stock'], 2)}")
+    out.print(
+        f"  SE of log β[{cs.target}]: one card {fmt.sig(se['cards_median'], 2)} (median; worst "
+        f"{fmt.sig(se['cards_max'], 2)}, goal {fmt.sig(cs.goal_se, 2)})"
+    )
+    out.print(
+        f"  class pooled {fmt.sig(se['pooled'], 2)}; {n} copies of the best recipe "
+        f"{fmt.sig(se['pooled_best_copies'], 2)}; {n} copies of the even series "
+        f"{fmt.sig(se['pooled_even_copies'], 2)}; stock errors left out {fmt.sig(se['pooled_without_stock'], 2)}"
+    )
     for s in stocks:
         if s.enough is False:
-            out.print(f"  [yellow]stock {s.id}: the class needs {s.total_mL:.1f} mL, {s.on_hand_mL:g} mL on hand: "
-                      f"make {s.shortfall_mL:.1f} mL more[/yellow]")
+            out.print(
+                f"  [yellow]stock {s.id}: the class needs {s.total_mL:.1f} mL, {s.on_hand_mL:g} mL on hand: "
+                f"make {s.shortfall_mL:.1f} mL more[/yellow]"
+            )
     for note in cs.notes:
         out.print(f"  note: {S(note)}")
     if cs.sound:
@@ -127,8 +150,10 @@ def _print(cs, stocks, out_dir: Path) -> None:
             err.print("[red]not sound:[/red] two cards share the same set of tubes")
         for sid, problems in cs.failing():
             err.print(f"[red]card {S(sid)} fails:[/red] {S('; '.join(problems))}", soft_wrap=True)
-        err.print("[red]the class set is not sound[/red]: use more tubes per student (--tubes), a looser "
-                  "design.goal_se, or fewer students per recipe grid")
+        err.print(
+            "[red]the class set is not sound[/red]: use more tubes per student (--tubes), a looser "
+            "design.goal_se, or fewer students per recipe grid"
+        )
     out.print(f"wrote {', '.join(OUTPUTS)} in {S(str(out_dir))}")
 
 
@@ -171,9 +196,14 @@ class _CardsPrinter:
     def result(self, cs) -> bytes:
         import numpy as np
 
-        same = self.drafts is not None and len(self.drafts) == len(cs.cards) and all(
-            d.recipe.tubes == c.recipe.tubes and np.array_equal(d.recipe.volumes_mL, c.recipe.volumes_mL)
-            for d, c in zip(self.drafts, cs.cards, strict=True))
+        same = (
+            self.drafts is not None
+            and len(self.drafts) == len(cs.cards)
+            and all(
+                d.recipe.tubes == c.recipe.tubes and np.array_equal(d.recipe.volumes_mL, c.recipe.volumes_mL)
+                for d, c in zip(self.drafts, cs.cards, strict=True)
+            )
+        )
         if self.job is not None and same:
             data = self.job.get()
             self._close()

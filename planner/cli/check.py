@@ -19,6 +19,7 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
 
     from ..inputs.plan import load_plan
     from ..paper import fmt
+
     p = load_plan(plan)
     out.print(f"[bold]{S(p.title)}[/bold]  ({S(plan)})")
     t = Table(title="Components")
@@ -35,18 +36,25 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     for s in p.species:
         f = " ".join(f"{k}{v if v != 1 else ''}" for k, v in s.formula.items() if v)
         e = p.optics.epsilon.get(s.name)
-        t.add_row(S(s.name), S(f), f"{s.log_beta:.2f}", f"{s.log_beta_sd:.2f}",
-                  f"{e.value:g} ± {e.rsd:.0%}" if e else "—",
-                  "yes" if s.log_beta_sd > 0 else "held fixed")
+        t.add_row(
+            S(s.name),
+            S(f),
+            f"{s.log_beta:.2f}",
+            f"{s.log_beta_sd:.2f}",
+            f"{e.value:g} ± {e.rsd:.0%}" if e else "—",
+            "yes" if s.log_beta_sd > 0 else "held fixed",
+        )
     for comp in ("M", "L"):
         e = p.optics.epsilon.get(comp)
         if e:
             t.add_row(f"{comp} (free)", comp, "—", "—", f"{e.value:g} ± {e.rsd:.0%}", "—")
     out.print(t)
     o = p.optics
-    out.print(f"Optics: {o.wavelength_nm:g} nm, path {o.path_cm:g} cm, linear range "
-              f"{o.linear_range[0]:g}–{o.linear_range[1]:g}, stray light {o.stray_light:g}, "
-              f"noise k1={o.noise.k1:g} k2={o.noise.k2:g} k3={o.noise.k3:g}")
+    out.print(
+        f"Optics: {o.wavelength_nm:g} nm, path {o.path_cm:g} cm, linear range "
+        f"{o.linear_range[0]:g}–{o.linear_range[1]:g}, stray light {o.stray_light:g}, "
+        f"noise k1={o.noise.k1:g} k2={o.noise.k2:g} k3={o.noise.k3:g}"
+    )
     t = Table(title="Stocks")
     for c in ("id", "label", "M", "L", "other ions", "rsd", "on hand", "dispenser"):
         t.add_column(c)
@@ -54,15 +62,27 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
         d = p.dispenser_for(s.id)
         # a micropipette has no class (ISO 8655 limits instead of class A/B tolerances)
         cls = f" ({d.cls})" if d and d.kind != "micropipette" else ""
-        disp = f"{d.kind} {d.capacity_mL:g} mL{cls}" if d else ("diluent" if s.diluent else "[yellow]none[/yellow]")
-        t.add_row(S(s.id), S(s.label), fmt.conc(s.conc["M"]) if "M" in s.conc else "",
-                  fmt.conc(s.conc["L"]) if "L" in s.conc else "",
-                  S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.ions.items())),
-                  f"{s.conc_rsd:.1%}", f"{s.on_hand:g} mL" if s.on_hand else "—", disp)
+        disp = (
+            f"{d.kind} {d.capacity_mL:g} mL{cls}"
+            if d
+            else ("diluent" if s.diluent else "[yellow]none[/yellow]")
+        )
+        t.add_row(
+            S(s.id),
+            S(s.label),
+            fmt.conc(s.conc["M"]) if "M" in s.conc else "",
+            fmt.conc(s.conc["L"]) if "L" in s.conc else "",
+            S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.ions.items())),
+            f"{s.conc_rsd:.1%}",
+            f"{s.on_hand:g} mL" if s.on_hand else "—",
+            disp,
+        )
     out.print(t)
     g = p.glassware
-    out.print(f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL, "
-              f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL")
+    out.print(
+        f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL, "
+        f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL"
+    )
     from ..jobs.compile import plan_devices
     from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
 
@@ -73,26 +93,43 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     for d, item in zip(p.glassware.dispenser, devices.items, strict=True):
         du = delivery_uncertainty(item, np.array([item.capacity_mL]))
         src = item.source + (" (from memory)" if item.from_memory else "")
-        t.add_row(S(item.label), f"± {item.tolerance_mL:g} mL", f"{float(du.combined_mL[0]):.3g} mL", S(src),
-                  S(", ".join(d.stocks)))
+        t.add_row(
+            S(item.label),
+            f"± {item.tolerance_mL:g} mL",
+            f"{float(du.combined_mL[0]):.3g} mL",
+            S(src),
+            S(", ".join(d.stocks)),
+        )
     if devices.flask is not None:
         fl = devices.flask
         src = fl.source + (" (from memory)" if fl.from_memory else "")
-        t.add_row(S(fl.label), f"± {fl.tolerance_mL:g} mL", f"{flask_volume_uncertainty(fl):.3g} mL", S(src),
-                  "make-up of every tube")
+        t.add_row(
+            S(fl.label),
+            f"± {fl.tolerance_mL:g} mL",
+            f"{flask_volume_uncertainty(fl):.3g} mL",
+            S(src),
+            "make-up of every tube",
+        )
     out.print(t)
     d = p.design
-    out.print(f"Design: {d.tubes} tubes, target {S(p.target)}, criterion {d.criterion}, "
-              f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
-              + (f", fixed {S(', '.join(f'{k} {v:g} mL' for k, v in d.fixed.items()))}" if d.fixed else ""))
+    out.print(
+        f"Design: {d.tubes} tubes, target {S(p.target)}, criterion {d.criterion}, "
+        f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
+        + (f", fixed {S(', '.join(f'{k} {v:g} mL' for k, v in d.fixed.items()))}" if d.fixed else "")
+    )
     # a stock that is measured out needs a dispenser (the diluent under to-mark is poured to the mark;
     # a titration's cell and titrant are checked by the schedule)
-    missing = [st.id for st in p.stock if p.dispenser_for(st.id) is None
-               and not (st.diluent and g.make_up == "to-mark")]
+    missing = [
+        st.id
+        for st in p.stock
+        if p.dispenser_for(st.id) is None and not (st.diluent and g.make_up == "to-mark")
+    ]
     if missing:
-        out.print(f"[yellow]warning:[/yellow] no dispenser delivers {S(', '.join(missing))}: add "
-                  f"{'it' if len(missing) == 1 else 'them'} to a [[glassware.dispenser]] stocks list "
-                  "before designing or printing")
+        out.print(
+            f"[yellow]warning:[/yellow] no dispenser delivers {S(', '.join(missing))}: add "
+            f"{'it' if len(missing) == 1 else 'them'} to a [[glassware.dispenser]] stocks list "
+            "before designing or printing"
+        )
         out.print("[yellow]plan OK, with the warning above[/yellow]")
         return
     out.print("[green]plan OK[/green]")

@@ -13,7 +13,9 @@ from .app import safe_text as S
 
 @app.command()
 def demo(
-    out_dir: Annotated[Path, typer.Option("--out", help="folder for the demo's files", metavar="PATH")] = Path("kplan-demo"),
+    out_dir: Annotated[
+        Path, typer.Option("--out", help="folder for the demo's files", metavar="PATH")
+    ] = Path("kplan-demo"),
 ) -> None:
     """Run the built-in scenario through everything the tool does and say what it wrote."""
     from ..inputs.files import check_output_folder, write_atomic
@@ -50,8 +52,10 @@ def demo(
     out.print("\n[bold]Wrote[/bold]")
     for w in written:
         out.print(f"  {S(w)}")
-    out.print(f"Try: kplan check {S(out_dir / 'plan.toml')}   kplan assess {S(out_dir / 'plan.toml')} "
-              f"{S(out_dir / 'recipe.csv')}")
+    out.print(
+        f"Try: kplan check {S(out_dir / 'plan.toml')}   kplan assess {S(out_dir / 'plan.toml')} "
+        f"{S(out_dir / 'recipe.csv')}"
+    )
 
 
 def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
@@ -61,7 +65,8 @@ def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
     from ..paper.render import prep_sheet as render_sheet
     from ..paper.render import report as render_report
 
-    sheet_pdf = write_atomic_bytes(out_dir / "prep.pdf", render_sheet(p, d.recipe, a, stock_needs(p, d.recipe),
-                                                                      order=p.glassware.order))
+    sheet_pdf = write_atomic_bytes(
+        out_dir / "prep.pdf", render_sheet(p, d.recipe, a, stock_needs(p, d.recipe), order=p.glassware.order)
+    )
     report_pdf = write_atomic_bytes(out_dir / "report.pdf", render_report(p, d.recipe, a, design=d.summary()))
     return [sheet_pdf, report_pdf]

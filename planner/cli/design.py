@@ -16,17 +16,44 @@ from .options import MAX_TUBES
 @app.command()
 def design(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
-    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")] = None,
-    tubes: Annotated[int | None, typer.Option(help="number of tubes (overrides design.tubes)", min=1,
-                                              max=MAX_TUBES, metavar="INTEGER")] = None,
-    criterion: Annotated[str | None, typer.Option(
-        help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)", metavar="TEXT")] = None,
-    robust: Annotated[bool | None, typer.Option(
-        "--robust/--no-robust", help="average over the guesses' uncertainty (overrides design.robust)", metavar="")] = None,
-    seed: Annotated[int, typer.Option(help="seed of the exchange algorithm's random starts", min=0, metavar="INTEGER")] = 0,
-    as_json: Annotated[bool, typer.Option("--json", help="print the design summary as JSON", metavar="")] = False,
-    after: Annotated[Path | None, typer.Option(
-        "--after", help="readings so far (recipe CSV + absorbance): fit them and design the next tubes", metavar="PATH")] = None,
+    out_dir: Annotated[
+        Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")
+    ] = None,
+    tubes: Annotated[
+        int | None,
+        typer.Option(
+            help="number of tubes (overrides design.tubes)", min=1, max=MAX_TUBES, metavar="INTEGER"
+        ),
+    ] = None,
+    criterion: Annotated[
+        str | None,
+        typer.Option(
+            help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)",
+            metavar="TEXT",
+        ),
+    ] = None,
+    robust: Annotated[
+        bool | None,
+        typer.Option(
+            "--robust/--no-robust",
+            help="average over the guesses' uncertainty (overrides design.robust)",
+            metavar="",
+        ),
+    ] = None,
+    seed: Annotated[
+        int, typer.Option(help="seed of the exchange algorithm's random starts", min=0, metavar="INTEGER")
+    ] = 0,
+    as_json: Annotated[
+        bool, typer.Option("--json", help="print the design summary as JSON", metavar="")
+    ] = False,
+    after: Annotated[
+        Path | None,
+        typer.Option(
+            "--after",
+            help="readings so far (recipe CSV + absorbance): fit them and design the next tubes",
+            metavar="PATH",
+        ),
+    ] = None,
 ) -> None:
     """Choose tube volumes on the glassware's grid that resolve K as precisely as possible
     (with --after: the next tubes, given what the readings so far taught)."""
@@ -50,8 +77,12 @@ def design(
     summary = d.summary()
     if out_dir is not None:
         # one unit: a recipe.csv beside a design.json from another run would be worse than neither
-        write_atomic_many({out_dir / "recipe.csv": recipe_to_csv(d.recipe, p),
-                           out_dir / "design.json": dump_json(summary) + "\n"})
+        write_atomic_many(
+            {
+                out_dir / "recipe.csv": recipe_to_csv(d.recipe, p),
+                out_dir / "design.json": dump_json(summary) + "\n",
+            }
+        )
     if as_json:
         print(dump_json(summary))
         return
@@ -75,8 +106,12 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
     summary = nb.design.summary() if nb.design is not None and not nb.stop else {}
     summary["sequential"] = nb.summary()
     if out_dir is not None and nb.design is not None and not nb.stop:
-        write_atomic_many({out_dir / "recipe.csv": recipe_to_csv(nb.design.recipe, p),
-                           out_dir / "design.json": dump_json(summary) + "\n"})
+        write_atomic_many(
+            {
+                out_dir / "recipe.csv": recipe_to_csv(nb.design.recipe, p),
+                out_dir / "design.json": dump_json(summary) + "\n",
+            }
+        )
     if as_json:
         print(dump_json(summary))
         return
@@ -106,28 +141,40 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
     d = design_titration(compile_study(p), additions=additions, robust=robust)
     summary = d.summary()
     if out_dir is not None:
-        write_atomic_many({out_dir / "schedule.csv": schedule_to_csv(d.schedule),
-                           out_dir / "design.json": dump_json(summary) + "\n"})
+        write_atomic_many(
+            {
+                out_dir / "schedule.csv": schedule_to_csv(d.schedule),
+                out_dir / "design.json": dump_json(summary) + "\n",
+            }
+        )
     if as_json:
         print(dump_json(summary))
         return
     t = d.study.bench.titration
     out.print(f"[bold]{S(p.title)}[/bold] — titration schedule")
-    out.print(f"cell: {t.start_volume_mL:g} mL of {S(t.cell)}; titrant {S(d.titrant)}; "
-              f"{d.schedule.aliquot_mL.size} additions; {d.candidates} schedules tried, {d.feasible} inside the "
-              f"linear range over the guess's range")
+    out.print(
+        f"cell: {t.start_volume_mL:g} mL of {S(t.cell)}; titrant {S(d.titrant)}; "
+        f"{d.schedule.aliquot_mL.size} additions; {d.candidates} schedules tried, {d.feasible} inside the "
+        f"linear range over the guess's range"
+    )
     tab = Table(title="Designed schedule")
     for c in ("step", "aliquot / mL", "added so far / mL", "cell / mL", "A ± sd"):
         tab.add_column(c, justify="right")
     rows = summary["tubes"]
     for i, step in enumerate(d.schedule.steps):
-        tab.add_row(S(step), f"{d.schedule.aliquot_mL[i]:.3f}", f"{d.schedule.added_mL[i]:.3f}",
-                    f"{t.start_volume_mL + d.schedule.added_mL[i]:.3f}",
-                    f"{rows[i]['absorbance']:.3f} ± {rows[i]['absorbance_sd']:.3f}")
+        tab.add_row(
+            S(step),
+            f"{d.schedule.aliquot_mL[i]:.3f}",
+            f"{d.schedule.added_mL[i]:.3f}",
+            f"{t.start_volume_mL + d.schedule.added_mL[i]:.3f}",
+            f"{rows[i]['absorbance']:.3f} ± {rows[i]['absorbance_sd']:.3f}",
+        )
     out.print(tab)
     ratio = d.se_ratio_vs_equal
     word = "better" if ratio >= 1 else "worse"
-    out.print(f"SE(log β[{S(d.study.target)}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; equal "
-              f"aliquots: {fmt.sig(d.se_equal, 2)} (×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})")
+    out.print(
+        f"SE(log β[{S(d.study.target)}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; equal "
+        f"aliquots: {fmt.sig(d.se_equal, 2)} (×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})"
+    )
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'schedule.csv'} and {out_dir / 'design.json'}")

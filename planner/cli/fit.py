@@ -15,11 +15,21 @@ from .app import safe_text as S
 def fit(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     readings: Annotated[Path, typer.Argument(help="CSV: the recipe columns plus an 'absorbance' column")],
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
-    exclude: Annotated[str | None, typer.Option(
-        "--exclude", metavar="TUBES", help="tubes to leave out, comma-separated, e.g. T3,T7")] = None,
-    keep_out_of_range: Annotated[bool, typer.Option(
-        "--keep-out-of-range", help="fit readings outside the linear range too (left out by default)", metavar="")] = False,
+    as_json: Annotated[
+        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
+    ] = False,
+    exclude: Annotated[
+        str | None,
+        typer.Option("--exclude", metavar="TUBES", help="tubes to leave out, comma-separated, e.g. T3,T7"),
+    ] = None,
+    keep_out_of_range: Annotated[
+        bool,
+        typer.Option(
+            "--keep-out-of-range",
+            help="fit readings outside the linear range too (left out by default)",
+            metavar="",
+        ),
+    ] = False,
 ) -> None:
     """Fit measured readings with the plan's model, and compare the result with the plan's promise.
     Exit code 1 when the readings do not determine the constants."""
@@ -47,6 +57,7 @@ def _print_fit(f) -> None:
     from rich.table import Table
 
     from ..paper import fmt
+
     out.print(f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
     for tube, why in f.excluded:
         out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}")
@@ -63,8 +74,10 @@ def _print_fit(f) -> None:
         t.add_row(S(n), fmt.sig(float(e), 4), fmt.sig(float(se_), 2), ci, fmt.sig(float(pr), 2))
     out.print(t)
     if f.dof >= 1 and f.determined:
-        out.print(f"χ² = {f.chi2:.2f} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, lower "
-                  f"tail p = {f.p_low:.2f}): {f.chi2_verdict}")
+        out.print(
+            f"χ² = {f.chi2:.2f} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, lower "
+            f"tail p = {f.p_low:.2f}): {f.chi2_verdict}"
+        )
     elif f.determined:
         out.print(f.chi2_verdict)
     t = Table(title="Residuals")
@@ -90,9 +103,12 @@ MAX_ABSORBANCE = 10.0  # no photometer reads beyond this; a larger number is a t
 def _check_absorbances(data, source: Path) -> None:
     """Refuse a reading that is not a finite absorbance within ±MAX_ABSORBANCE, naming its tube."""
     import numpy as np
+
     a = np.asarray(data.absorbance, dtype=float)
     bad = np.flatnonzero(~np.isfinite(a) | (np.abs(a) > MAX_ABSORBANCE))
     if bad.size:
         i = int(bad[0])
-        raise UserError(f"{source}, tube {data.recipe.tubes[i]}: absorbance {a[i]:g} is not a reading: "
-                        f"write a finite number between {-MAX_ABSORBANCE:g} and {MAX_ABSORBANCE:g}")
+        raise UserError(
+            f"{source}, tube {data.recipe.tubes[i]}: absorbance {a[i]:g} is not a reading: "
+            f"write a finite number between {-MAX_ABSORBANCE:g} and {MAX_ABSORBANCE:g}"
+        )

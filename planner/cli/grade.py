@@ -14,13 +14,23 @@ from .app import safe_text as S
 @app.command()
 def grade(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
-    key_dir: Annotated[Path, typer.Argument(metavar="KEYDIR", help="the folder kplan cards wrote (its key.csv)")],
+    key_dir: Annotated[
+        Path, typer.Argument(metavar="KEYDIR", help="the folder kplan cards wrote (its key.csv)")
+    ],
     results: Annotated[Path, typer.Argument(help="CSV: student, tube, absorbance")],
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
-    out_dir: Annotated[Path | None, typer.Option(
-        "--out", help="folder for grades.csv, grades.xlsx and the class report", metavar="PATH")] = None,
-    html: Annotated[bool, typer.Option("--html", help="write the class report as HTML instead of PDF", metavar="")] = False,
-    paper: Annotated[str, typer.Option(help="paper size of the class report: A4 | Letter", metavar="TEXT")] = "A4",
+    as_json: Annotated[
+        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
+    ] = False,
+    out_dir: Annotated[
+        Path | None,
+        typer.Option("--out", help="folder for grades.csv, grades.xlsx and the class report", metavar="PATH"),
+    ] = None,
+    html: Annotated[
+        bool, typer.Option("--html", help="write the class report as HTML instead of PDF", metavar="")
+    ] = False,
+    paper: Annotated[
+        str, typer.Option(help="paper size of the class report: A4 | Letter", metavar="TEXT")
+    ] = "A4",
 ) -> None:
     """Grade a class: each student's readings against the key's bands, the pooled constant from every
     student not flagged, and the likely mix-up behind each flagged student."""
@@ -45,7 +55,9 @@ def grade(
         report_name = "grades.html" if html else "grades.pdf"
         write_atomic(out_dir / "grades.csv", grades_csv(summary))
         write_atomic_bytes(out_dir / "grades.xlsx", grades_xlsx(summary))
-        write_atomic_bytes(out_dir / report_name, grade_report(summary, paper=paper, fmt_="html" if html else "pdf"))
+        write_atomic_bytes(
+            out_dir / report_name, grade_report(summary, paper=paper, fmt_="html" if html else "pdf")
+        )
     if as_json:
         print(dump_json(summary))
         return
@@ -54,18 +66,25 @@ def grade(
     if pooled is not None:
         for prm in pooled["parameters"]:
             ci = prm.get("profile_ci95")
-            out.print(f"pooled {S(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
-                      + (f" (95 % {fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)})" if ci and None not in ci else "")
-                      + f" from {pooled['students']} students; {S(pooled['chi2_verdict'])}")
+            out.print(
+                f"pooled {S(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
+                + (f" (95 % {fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)})" if ci and None not in ci else "")
+                + f" from {pooled['students']} students; {S(pooled['chi2_verdict'])}"
+            )
     t = Table(title="Students")
     for c in ("student", "name", "verdict", "in band", "own log β", "likely mix-up"):
         t.add_column(c)
     for s in summary["students"]:
         own = s["own_fit"]
         verdict = s["verdict"] if s["verdict"] != "flagged" else "[red]flagged[/red]"
-        t.add_row(S(s["student"]), S(s["name"]), verdict, f"{s['tubes_in_band']}/{s['tubes']}",
-                  f"{fmt.sig(own['log_beta'], 4)} ± {fmt.sig(own['se'], 2)}" if own else "—",
-                  S(s["explanation"] or ""))
+        t.add_row(
+            S(s["student"]),
+            S(s["name"]),
+            verdict,
+            f"{s['tubes_in_band']}/{s['tubes']}",
+            f"{fmt.sig(own['log_beta'], 4)} ± {fmt.sig(own['se'], 2)}" if own else "—",
+            S(s["explanation"] or ""),
+        )
     out.print(t)
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'grades.csv'}, {out_dir / 'grades.xlsx'} and the class report")

@@ -14,7 +14,9 @@ from .app import safe_text as S
 @app.command()
 def new(
     path: Annotated[Path, typer.Argument(help="where to write the starter plan")],
-    scenario: Annotated[str, typer.Option(help=f"built-in scenario: {', '.join(SCENARIOS)}", metavar="TEXT")] = DEMO_SCENARIO,
+    scenario: Annotated[
+        str, typer.Option(help=f"built-in scenario: {', '.join(SCENARIOS)}", metavar="TEXT")
+    ] = DEMO_SCENARIO,
     force: Annotated[bool, typer.Option(help="overwrite an existing file", metavar="")] = False,
 ) -> None:
     """Write a commented starter plan from a built-in scenario."""

@@ -36,26 +36,41 @@ def read_design_json(path: Path) -> dict:
         data = json.loads(raw.decode("utf-8-sig"))
     except (UnicodeDecodeError, json.JSONDecodeError, RecursionError) as exc:
         why = f"line {exc.lineno}: {exc.msg}" if isinstance(exc, json.JSONDecodeError) else "not UTF-8 JSON"
-        raise UserError(f"{where}: not readable as JSON ({why}): "
-                        "give the design.json kplan design wrote") from None
+        raise UserError(
+            f"{where}: not readable as JSON ({why}): give the design.json kplan design wrote"
+        ) from None
     if not isinstance(data, dict):
         kinds = {list: "an array", str: "a string", bool: "a boolean", type(None): "null"}
         kind = kinds.get(type(data), "a number")
-        raise UserError(f"{where}: holds {kind}, not the JSON object kplan design writes: "
-                        "give the design.json from 'kplan design --out DIR'")
+        raise UserError(
+            f"{where}: holds {kind}, not the JSON object kplan design writes: "
+            "give the design.json from 'kplan design --out DIR'"
+        )
     for key, types in _DESIGN_KEYS.items():
         v = data.get(key)
         if v is not None and (isinstance(v, bool) or not isinstance(v, types)):
-            raise UserError(f"{where}: key '{key}' holds {json.dumps(v)[:40]}, not a "
-                            f"{'string' if types == (str,) else 'number'}: "
-                            "give the design.json kplan design wrote")
+            raise UserError(
+                f"{where}: key '{key}' holds {json.dumps(v)[:40]}, not a "
+                f"{'string' if types == (str,) else 'number'}: "
+                "give the design.json kplan design wrote"
+            )
     return data
+
 
 PAPER_CHOICES = tuple(PAPERS)  # the same keys as planner.paper.render.PAPERS (one definition)
 
 
-def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: bool, paper: str, trials: int,
-                  seed: int, design_json: Path | None = None) -> None:
+def _paper_output(
+    kind: str,
+    plan: Path,
+    recipe: Path,
+    out_path: Path,
+    html: bool,
+    paper: str,
+    trials: int,
+    seed: int,
+    design_json: Path | None = None,
+) -> None:
     from ..inputs.files import check_output_file, write_atomic_bytes
     from ..inputs.plan import load_plan
     from ..jobs.compile import compile_study
@@ -77,8 +92,12 @@ def _paper_output(kind: str, plan: Path, recipe: Path, out_path: Path, html: boo
     r = read_points(recipe, p, study)
     if kind == "sheet":
         require_glassware_fits(study.bench, r)  # followed at the bench: every volume must be deliverable
-    a = _with_progress(lambda prog: assess_study(study, r, trials=trials, seed=seed, progress=prog), trials,
-                       quiet=False, tubes=r.n_tubes)
+    a = _with_progress(
+        lambda prog: assess_study(study, r, trials=trials, seed=seed, progress=prog),
+        trials,
+        quiet=False,
+        tubes=r.n_tubes,
+    )
     if kind == "sheet" and p.titration is not None:
         from ..paper.titration_sheet import titration_sheet
 

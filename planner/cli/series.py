@@ -17,28 +17,69 @@ from .app import UserError, app, out
 def series(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     method: Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}", metavar="TEXT")],
-    out_dir: Annotated[Path | None, typer.Option("--out", help="folder for recipe.csv and series.json", metavar="PATH")] = None,
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
-    points: Annotated[int | None, typer.Option(
-        help="job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", min=1, metavar="INTEGER")] = None,
-    total: Annotated[str | None, typer.Option(
-        help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest in the "
-             "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range); "
-             "mole-ratio — the fixed reagent's (default: the largest in the linear range)", metavar="TEXT")
+    out_dir: Annotated[
+        Path | None, typer.Option("--out", help="folder for recipe.csv and series.json", metavar="PATH")
     ] = None,
-    limiting: Annotated[str | None, typer.Option(
-        help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)", metavar="TEXT")] = None,
-    excess: Annotated[str | None, typer.Option(
-        help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts 99.9 %, "
-             "else 99 %, over the guess's range)", metavar="TEXT")] = None,
-    tubes: Annotated[int | None, typer.Option(help="calibration: replicate calibration tubes (default 1)", min=1, metavar="INTEGER")
-                     ] = None,
-    vary: Annotated[str | None, typer.Option(
-        help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)", metavar="TEXT")] = None,
-    max_ratio: Annotated[float | None, typer.Option(
-        help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)", metavar="FLOAT")] = None,
-    recipe: Annotated[Path | None, typer.Option(
-        help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)", metavar="PATH")] = None,
+    as_json: Annotated[
+        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
+    ] = False,
+    points: Annotated[
+        int | None,
+        typer.Option(
+            help="job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)",
+            min=1,
+            metavar="INTEGER",
+        ),
+    ] = None,
+    total: Annotated[
+        str | None,
+        typer.Option(
+            help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest in the "
+            "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range); "
+            "mole-ratio — the fixed reagent's (default: the largest in the linear range)",
+            metavar="TEXT",
+        ),
+    ] = None,
+    limiting: Annotated[
+        str | None,
+        typer.Option(
+            help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)",
+            metavar="TEXT",
+        ),
+    ] = None,
+    excess: Annotated[
+        str | None,
+        typer.Option(
+            help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts 99.9 %, "
+            "else 99 %, over the guess's range)",
+            metavar="TEXT",
+        ),
+    ] = None,
+    tubes: Annotated[
+        int | None,
+        typer.Option(help="calibration: replicate calibration tubes (default 1)", min=1, metavar="INTEGER"),
+    ] = None,
+    vary: Annotated[
+        str | None,
+        typer.Option(
+            help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)",
+            metavar="TEXT",
+        ),
+    ] = None,
+    max_ratio: Annotated[
+        float | None,
+        typer.Option(
+            help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)",
+            metavar="FLOAT",
+        ),
+    ] = None,
+    recipe: Annotated[
+        Path | None,
+        typer.Option(
+            help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)",
+            metavar="PATH",
+        ),
+    ] = None,
 ) -> None:
     """Plan a classic series on the plan's glassware — Job's continuous variation (job), the 'complete
     conversion' tube (calibration), the mole-ratio series (mole-ratio), the wavelength survey over the
@@ -52,12 +93,23 @@ def series(
 
     if method not in METHODS:
         raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
-    given_opts = {"points": points, "total": total, "limiting": limiting, "excess": excess, "tubes": tubes,
-                  "vary": vary, "max-ratio": max_ratio, "recipe": recipe}
+    given_opts = {
+        "points": points,
+        "total": total,
+        "limiting": limiting,
+        "excess": excess,
+        "tubes": tubes,
+        "vary": vary,
+        "max-ratio": max_ratio,
+        "recipe": recipe,
+    }
     for name, value in given_opts.items():
         if value is not None and method not in METHOD_OPTIONS[name]:
-            raise UserError(f"--{name} applies to --method {' / '.join(METHOD_OPTIONS[name])}, not to {method}: "
-                            f"leave it out")
+            raise UserError(
+                f"--{name} applies to --method {' / '.join(METHOD_OPTIONS[name])}, not to {method}: "
+                f"leave it out"
+            )
+
     def conc(name: str, value: str | None) -> float | None:
         if value is None:
             return None
@@ -73,8 +125,18 @@ def series(
         from ..inputs.recipe import read_recipe_csv
 
         given = read_recipe_csv(recipe, p)
-    r = run_series(p, method, points=points, total_M=total_M, tubes=tubes, limiting=limiting, excess_M=excess_M,
-                   vary=vary, max_ratio=max_ratio, recipe=given)
+    r = run_series(
+        p,
+        method,
+        points=points,
+        total_M=total_M,
+        tubes=tubes,
+        limiting=limiting,
+        excess_M=excess_M,
+        vary=vary,
+        max_ratio=max_ratio,
+        recipe=given,
+    )
     summary = r.summary()
     text = json.dumps(summary, indent=2, allow_nan=False)
     if out_dir is not None:
@@ -99,8 +161,10 @@ def print_series(r, p) -> None:
     out.print(f"[bold]{escape(r.title)}[/bold] — {r.method} series")
     out.print(f"Question: {escape(r.question)}")
     colour = "green" if r.answers else "red"
-    out.print(f"Verdict: [bold {colour}]{'answers it' if r.answers else 'cannot answer it'}[/] — "
-              f"{escape(r.verdict_reason)}")
+    out.print(
+        f"Verdict: [bold {colour}]{'answers it' if r.answers else 'cannot answer it'}[/] — "
+        f"{escape(r.verdict_reason)}"
+    )
     for line in r.notes:
         out.print(f"  • {escape(line)}")
     a = r.assessment
@@ -116,9 +180,14 @@ def print_series(r, p) -> None:
         a_txt = f"{A:.3f} ± {rows[i]['absorbance_sd']:.3f}"
         if not lo <= A <= hi:
             a_txt = f"[red]{a_txt} out[/red]"
-        t.add_row(escape(tube), *(fmt.volume(r.recipe.column(s)[i], step) for s in dispensed),
-                  fmt.conc(a.state.totals_M[i, 0]), fmt.conc(a.state.totals_M[i, 1]), a_txt,
-                  *(f"{float(v[i]):.3f}" for v in r.columns.values()))
+        t.add_row(
+            escape(tube),
+            *(fmt.volume(r.recipe.column(s)[i], step) for s in dispensed),
+            fmt.conc(a.state.totals_M[i, 0]),
+            fmt.conc(a.state.totals_M[i, 1]),
+            a_txt,
+            *(f"{float(v[i]):.3f}" for v in r.columns.values()),
+        )
     out.print(t)
     col = {"pass": "green", "warn": "yellow", "fail": "red"}
     t = Table(title="Checks")

@@ -26,9 +26,15 @@ def print_assessment(a, p) -> None:
             t.add_column(c, justify="right")
         for q in a.parameters:
             ci = q.get("mc_ci95")
-            t.add_row(S(q["name"]), fmt.sig(q["guess"], 4), fmt.sig(q["true"], 4), fmt.sig(q["se"], 2),
-                      fmt.sig(q.get("mc_sd"), 2), fmt.sig(q.get("mc_bias"), 2),
-                      f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—")
+            t.add_row(
+                S(q["name"]),
+                fmt.sig(q["guess"], 4),
+                fmt.sig(q["true"], 4),
+                fmt.sig(q["se"], 2),
+                fmt.sig(q.get("mc_sd"), 2),
+                fmt.sig(q.get("mc_bias"), 2),
+                f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—",
+            )
         out.print(t)
         if a.cramer_rao is not None and len(a.parameters) > 1:
             t = Table(title="Correlations")
@@ -47,14 +53,18 @@ def print_assessment(a, p) -> None:
             side.append("cannot be told from K → 0")
         if pr.high_unbounded:
             side.append("cannot be told from K → ∞")
-        out.print(f"χ² profile of log β[{S(p.target)}] (other parameters refitted; 3.84 = 95 % threshold)"
-                  + (f" — {'; '.join(side)}" if side else ""))
+        out.print(
+            f"χ² profile of log β[{S(p.target)}] (other parameters refitted; 3.84 = 95 % threshold)"
+            + (f" — {'; '.join(side)}" if side else "")
+        )
         t = Table(show_header=True, box=None, pad_edge=False)
         picks = np.unique(np.linspace(0, pr.log_beta.size - 1, 9).round().astype(int))
         t.add_column("log β", justify="right")
         for k in picks:
-            t.add_column(("K→0 " if k == 0 else "K→∞ " if k == pr.log_beta.size - 1 else "")
-                         + f"{pr.log_beta[k]:.2f}", justify="right")
+            t.add_column(
+                ("K→0 " if k == 0 else "K→∞ " if k == pr.log_beta.size - 1 else "") + f"{pr.log_beta[k]:.2f}",
+                justify="right",
+            )
         t.add_row("Δχ²", *(fmt.sig(float(pr.delta_chi2[k]), 3) for k in picks))
         out.print(t)
     colour = {"pass": "green", "warn": "yellow", "fail": "red"}
@@ -68,8 +78,16 @@ def print_assessment(a, p) -> None:
     r = a.recipe
     dispensed = r.dispensed_ids(p)
     t = Table(title="Tubes")
-    for c in ("tube", *(f"{S(s)} / mL" for s in dispensed), "M tot", "L tot",
-              *(S(x) for x in m.species), "A ± sd", "saturation", "I / M"):
+    for c in (
+        "tube",
+        *(f"{S(s)} / mL" for s in dispensed),
+        "M tot",
+        "L tot",
+        *(S(x) for x in m.species),
+        "A ± sd",
+        "saturation",
+        "I / M",
+    ):
         t.add_column(c, justify="right")
     rows = a.tube_rows()
     lo, hi = m.linear_range
@@ -80,10 +98,16 @@ def print_assessment(a, p) -> None:
         a_txt = f"{A:.3f} ± {rows[i]['absorbance_sd']:.3f}"
         if not lo <= A <= hi:
             a_txt = f"[red]{a_txt} out[/red]"
-        t.add_row(S(tube), *(fmt.volume(r.column(s)[i], step) for s in dispensed),
-                  fmt.conc(st.totals_M[i, 0]), fmt.conc(st.totals_M[i, 1]),
-                  *(fmt.conc(st.species_M[i, k]) for k in range(len(m.species))),
-                  a_txt, f"{st.saturation[i]:.2f}", f"{st.ionic_strength_M[i]:.3g}")
+        t.add_row(
+            S(tube),
+            *(fmt.volume(r.column(s)[i], step) for s in dispensed),
+            fmt.conc(st.totals_M[i, 0]),
+            fmt.conc(st.totals_M[i, 1]),
+            *(fmt.conc(st.species_M[i, k]) for k in range(len(m.species))),
+            a_txt,
+            f"{st.saturation[i]:.2f}",
+            f"{st.ionic_strength_M[i]:.3g}",
+        )
     out.print(t)
 
 
@@ -91,9 +115,11 @@ def print_design(d, p) -> None:
     """The designed recipe, its promise and the comparison with an evenly spaced series."""
     s = d.summary()
     out.print(f"[bold]{S(p.title)}[/bold] — design")
-    out.print(f"criterion {d.criterion}, {'robust over the guess' if d.robust else 'at the guess only'}, "
-              f"{d.recipe.n_tubes} tubes, seed {d.seed}; {d.n_candidates} candidate tubes on the grid, "
-              f"{d.n_feasible} inside the linear range over the guess's range")
+    out.print(
+        f"criterion {d.criterion}, {'robust over the guess' if d.robust else 'at the guess only'}, "
+        f"{d.recipe.n_tubes} tubes, seed {d.seed}; {d.n_candidates} candidate tubes on the grid, "
+        f"{d.n_feasible} inside the linear range over the guess's range"
+    )
     for note in d.notes:
         out.print(f"[yellow]note:[/yellow] {S(note)}")
     t = Table(title="Designed recipe")
@@ -101,17 +127,29 @@ def print_design(d, p) -> None:
     for c in ("tube", *(f"{S(x)} / mL" for x in dispensed), "A ± sd", "saturation"):
         t.add_column(c, justify="right")
     for i, row in enumerate(s["tubes"]):
-        t.add_row(S(row["tube"]),
-                  *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
-                  f"{row['absorbance']:.3f} ± {row['absorbance_sd']:.3f}", f"{row['saturation']:.2f}")
+        t.add_row(
+            S(row["tube"]),
+            *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
+            f"{row['absorbance']:.3f} ± {row['absorbance_sd']:.3f}",
+            f"{row['saturation']:.2f}",
+        )
     out.print(t)
     target = S(p.target)
     ratio = d.se_ratio_vs_even
-    compare = (f"×{fmt.sig(ratio, 2)} better" if ratio >= 1 else f"×{fmt.sig(1 / ratio, 2)} worse: the even series "
-               "wins here") if ratio == ratio else "no comparison"
-    out.print(f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
-              f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} ({compare}); "
-              f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these candidates")
+    compare = (
+        (
+            f"×{fmt.sig(ratio, 2)} better"
+            if ratio >= 1
+            else f"×{fmt.sig(1 / ratio, 2)} worse: the even series wins here"
+        )
+        if ratio == ratio
+        else "no comparison"
+    )
+    out.print(
+        f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
+        f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} ({compare}); "
+        f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these candidates"
+    )
     if d.se_across:
         t = Table(title=f"SE(log β[{target}]) if the truth differs from the guess")
         for c in (f"true log β[{target}]", "designed", "evenly spaced"):
@@ -127,9 +165,11 @@ def print_design(d, p) -> None:
         for g, tonly in mc.detection:
             t.add_row(S(g.alternative), f"{g.power:.0%}", f"{tonly.power:.0%}")
         out.print(t)
-        out.print(f"share of simulated experiments whose χ² test rejects the main model; the check costs "
-                  f"×{fmt.sig(mc.se_cost_ratio, 3)} in SE(log β[{target}]) "
-                  f"({fmt.sig(mc.se_target_only, 2)} → {fmt.sig(mc.se_guarded, 2)}), {mc.moves} tubes moved")
+        out.print(
+            f"share of simulated experiments whose χ² test rejects the main model; the check costs "
+            f"×{fmt.sig(mc.se_cost_ratio, 3)} in SE(log β[{target}]) "
+            f"({fmt.sig(mc.se_target_only, 2)} → {fmt.sig(mc.se_guarded, 2)}), {mc.moves} tubes moved"
+        )
     bad = [c for c in s["checks"] if c["status"] != "pass"]
     for c in bad:
         out.print(f"[yellow]{S(c['id'])}[/yellow]: {S(c['message'])}")
@@ -167,7 +207,15 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
             t.add_column(c)
         for n in needs:
             ok = n.enough
-            mark = "" if ok is None else ("[green]enough[/green]" if ok else "[red]NOT ENOUGH: make more[/red]")
-            t.add_row(S(n.id), f"{n.recipe_mL:.2f}", str(n.deliveries), f"{n.needed_mL:.1f}",
-                      f"{n.on_hand_mL:g}" if n.on_hand_mL is not None else "—", mark)
+            mark = (
+                "" if ok is None else ("[green]enough[/green]" if ok else "[red]NOT ENOUGH: make more[/red]")
+            )
+            t.add_row(
+                S(n.id),
+                f"{n.recipe_mL:.2f}",
+                str(n.deliveries),
+                f"{n.needed_mL:.1f}",
+                f"{n.on_hand_mL:g}" if n.on_hand_mL is not None else "—",
+                mark,
+            )
         out.print(t)

@@ -14,7 +14,9 @@ from .app import app, dump_json
 def stocks(
     plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
     recipe: Annotated[Path | None, typer.Argument(help="recipe CSV, for the volumes needed")] = None,
-    as_json: Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")] = False,
+    as_json: Annotated[
+        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
+    ] = False,
 ) -> None:
     """How to make each stock (mass to weigh, flask, uncertainty) and how much a recipe needs."""
     from ..inputs.plan import load_plan

@@ -116,7 +116,6 @@ class ApproximateDesign:
         )
 
 
-
 def _grad_hess(prob: _Problem, Linv: np.ndarray, S: np.ndarray):
     """Gradient and Hessian of the loss w.r.t. the weights on the active set S (Newton phase)."""
     G, _, R, P = prob.F.shape
@@ -226,7 +225,6 @@ def _newton(prob: _Problem, S: np.ndarray, w: np.ndarray, budget: int):
     return S[keep], w[keep] / w[keep].sum(), it
 
 
-
 def _vertex_newton(prob: _Problem, S: np.ndarray, w: np.ndarray, budget: int, tol: float):
     """Newton on the active set S, adding the candidates of largest sensitivity until the
     equivalence gap on ``prob``'s candidates is at most ``tol · k``. Returns (S, w, iterations)."""
@@ -298,7 +296,6 @@ def _approximate(prob: _Problem, max_iter: int, tol: float):
     weights = np.zeros(C)
     weights[S] = w
     return weights, _loss(prob, Linv, logdet), float(d.max()), bound, it, bool(converged), Linv
-
 
 
 def approximate_design(

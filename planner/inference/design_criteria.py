@@ -103,7 +103,6 @@ class DesignError(ValueError):
 # --------------------------------------------------------------------------------------------------
 
 
-
 # --------------------------------------------------------------------------------------------------
 # Problem set-up and validation
 # --------------------------------------------------------------------------------------------------
@@ -327,7 +326,6 @@ def _sens(prob: _Problem, Linv: np.ndarray, idx=None) -> np.ndarray:
     return prob.n * ((prob.nu / v) @ b)
 
 
-
 def _restrict(prob: _Problem, idx: np.ndarray) -> _Problem:
     """The same problem on the candidates ``idx`` only (rows copied once, contiguous)."""
     return replace(prob, F=np.ascontiguousarray(prob.F[:, idx]))
@@ -339,7 +337,6 @@ def _top(values: np.ndarray, k: int) -> np.ndarray:
         return np.argsort(-values, kind="stable")
     part = np.argpartition(-values, k - 1)[:k]
     return part[np.lexsort((part, -values[part]))]
-
 
 
 # --------------------------------------------------------------------------------------------------
@@ -354,7 +351,6 @@ def _design_vector(design, C: int, name: str) -> np.ndarray:
     if np.any(~np.isfinite(x)) or np.any(x < 0) or x.sum() <= 0:
         raise DesignError(f"{name} must be non-negative with a positive sum")
     return x
-
 
 
 def criterion_of_counts(

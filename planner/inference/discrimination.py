@@ -33,7 +33,9 @@ LEVEL = 0.05  # the χ² test's level [common practice]
 POWER_GOAL = 0.80  # a check that finds a real effect four times in five [common practice]
 
 
-def linear_noncentrality(F: np.ndarray, R: np.ndarray, M0: np.ndarray | None, counts: np.ndarray) -> np.ndarray:
+def linear_noncentrality(
+    F: np.ndarray, R: np.ndarray, M0: np.ndarray | None, counts: np.ndarray
+) -> np.ndarray:
     """λ of each alternative for a design given as tube counts on the candidates.
 
     Parameters
@@ -45,9 +47,9 @@ def linear_noncentrality(F: np.ndarray, R: np.ndarray, M0: np.ndarray | None, co
     """
     x = np.asarray(counts, dtype=float)
     M = (F * x[:, None]).T @ F + (0.0 if M0 is None else M0)
-    b = (R * x) @ F                                                         # (A, P')
-    s = (R**2) @ x                                                          # (A,)
-    sol = np.linalg.lstsq(M, b.T, rcond=None)[0]                            # (P', A)
+    b = (R * x) @ F  # (A, P')
+    s = (R**2) @ x  # (A,)
+    sol = np.linalg.lstsq(M, b.T, rcond=None)[0]  # (P', A)
     return np.maximum(s - np.einsum("ap,pa->a", b, sol), 0.0)
 
 
@@ -86,14 +88,30 @@ class Detection:
         def f(x):
             return float(x) if np.isfinite(x) else None
 
-        return {"alternative": self.alternative, "power": f(self.power),
-                "power_noise_free": f(self.power_noise_free), "noncentrality": f(self.noncentrality),
-                "dof": self.dof, "trials": self.trials}
+        return {
+            "alternative": self.alternative,
+            "power": f(self.power),
+            "power_noise_free": f(self.power_noise_free),
+            "noncentrality": f(self.noncentrality),
+            "dof": self.dof,
+            "trials": self.trials,
+        }
 
 
-def detection_power(bench: Bench, model: Model, params: Parameters, recipe: Recipe, name: str, alt: Model,
-                    cov_A: np.ndarray | None, rng: np.random.Generator, trials: int, *, level: float = LEVEL,
-                    W=None) -> Detection:
+def detection_power(
+    bench: Bench,
+    model: Model,
+    params: Parameters,
+    recipe: Recipe,
+    name: str,
+    alt: Model,
+    cov_A: np.ndarray | None,
+    rng: np.random.Generator,
+    trials: int,
+    *,
+    level: float = LEVEL,
+    W=None,
+) -> Detection:
     """Detection power of ``recipe`` against the alternative ``alt`` (see the module docstring).
 
     Parameters
@@ -116,8 +134,16 @@ def detection_power(bench: Bench, model: Model, params: Parameters, recipe: Reci
     starts = np.repeat(params.guess[None, :], 3, axis=0)
     if params.target >= 0:
         starts[:, params.target] += np.array([-1.0, 0.0, 1.0]) * max(params.prior_sd[params.target], 0.5)
-    res0 = fit_many(reading.f, starts, np.broadcast_to(y0, (3, n)), jac=reading.jac, whiten=W, scale_cov=False,
-                    lower=lo, upper=hi)
+    res0 = fit_many(
+        reading.f,
+        starts,
+        np.broadcast_to(y0, (3, n)),
+        jac=reading.jac,
+        whiten=W,
+        scale_cov=False,
+        lower=lo,
+        upper=hi,
+    )
     chi0 = res0.chi2[np.isfinite(res0.chi2)]
     lam = float(chi0.min()) if chi0.size else float("nan")
     p_nf = float(power_from_noncentrality(lam, dof, level)) if np.isfinite(lam) else float("nan")
@@ -125,8 +151,9 @@ def detection_power(bench: Bench, model: Model, params: Parameters, recipe: Reci
     if trials > 0 and dof >= 1:
         sim = simulate(bench, alt, recipe, rng, trials)
         theta0 = np.broadcast_to(params.guess, (trials, params.size)).copy()
-        res = fit_many(reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False,
-                       lower=lo, upper=hi)
+        res = fit_many(
+            reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False, lower=lo, upper=hi
+        )
         ok = res.converged & np.isfinite(res.chi2)
         crit = chi2_ppf(1.0 - level, dof)
         # a fit that fails on the alternative's data is itself a sign the model is wrong: count it as caught
@@ -136,8 +163,9 @@ def detection_power(bench: Bench, model: Model, params: Parameters, recipe: Reci
     return Detection(name, power, p_nf, lam, dof, int(trials if dof >= 1 else 0))
 
 
-def misfit_rows(model: Model, params: Parameters, alt: Model, totals_M: np.ndarray, ions_M: np.ndarray,
-                sd: np.ndarray) -> np.ndarray:
+def misfit_rows(
+    model: Model, params: Parameters, alt: Model, totals_M: np.ndarray, ions_M: np.ndarray, sd: np.ndarray
+) -> np.ndarray:
     """(C,) whitened misfit (alternative − main) of candidate tubes at the guess."""
     lb, eps, _ = unpack(model, params, params.guess)
     a_main = predict(model, totals_M, ions_M, log_beta=lb, epsilon_M_cm=eps, warn=False).absorbance

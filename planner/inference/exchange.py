@@ -77,7 +77,6 @@ class ExactDesign:
         )
 
 
-
 # --------------------------------------------------------------------------------------------------
 # Exact designs
 # --------------------------------------------------------------------------------------------------
@@ -281,7 +280,6 @@ def _efficient_rounding(w: np.ndarray, n: int) -> np.ndarray:
     x = np.zeros(w.size, dtype=np.int64)
     x[sup] = c
     return x
-
 
 
 def exact_design(

@@ -23,7 +23,6 @@ STATUS_MESSAGES: dict[int, str] = {
 _CONVERGED_CODES = (1, 2, 3, 4, 6, 7, 8)
 
 
-
 class FitError(ValueError):
     """Invalid input to :func:`fit_many` / :func:`fit_one`; the message names the fix."""
 
@@ -180,7 +179,10 @@ def _weighting(sigma, whiten, n_trials: int, n_obs: int):
             return jac * (inv.take(rows, axis=0) if inv.ndim == 2 else inv)[..., None]
 
         return weigh_res, weigh_jac
-    if whiten is not None and hasattr(whiten, "apply_jac"):  # a structured whitening (e.g. diagonal + low rank)
+    if whiten is not None and hasattr(
+        whiten, "apply_jac"
+    ):  # a structured whitening (e.g. diagonal + low rank)
+
         def weigh_res(res, rows):
             return whiten.apply(res)
 
@@ -191,11 +193,14 @@ def _weighting(sigma, whiten, n_trials: int, n_obs: int):
     if whiten is not None:
         w = np.array(whiten, dtype=float)
         if w.shape not in ((n_obs, n_obs), (n_trials, n_obs, n_obs)):
-            raise FitError(f"whiten must be an ({n_obs}, {n_obs}) matrix, or one per trial "
-                           f"({n_trials}, {n_obs}, {n_obs}); got {w.shape}.")
+            raise FitError(
+                f"whiten must be an ({n_obs}, {n_obs}) matrix, or one per trial "
+                f"({n_trials}, {n_obs}, {n_obs}); got {w.shape}."
+            )
         if not np.all(np.isfinite(w)):
             raise FitError("whiten contains NaN or inf; pass e.g. the inverse Cholesky factor of Σ.")
         if w.ndim == 3:  # a different weighting for each trial (e.g. each student's own tubes)
+
             def weigh_res(res, rows):
                 return np.einsum("kij,kj->ki", w.take(rows, axis=0), res)
 

@@ -50,8 +50,9 @@ class GuardedDesign:
 def _parts(M: np.ndarray, b: np.ndarray, s: np.ndarray, t: int):
     """Var_t and λ (..., A) for information M (..., P, P), b (..., A, P), s (..., A)."""
     P = M.shape[-1]
-    rhs = np.concatenate([np.eye(P)[t][..., None] * np.ones(M.shape[:-2] + (1, 1)),
-                          np.swapaxes(b, -1, -2)], axis=-1)                   # (..., P, 1 + A)
+    rhs = np.concatenate(
+        [np.eye(P)[t][..., None] * np.ones(M.shape[:-2] + (1, 1)), np.swapaxes(b, -1, -2)], axis=-1
+    )  # (..., P, 1 + A)
     sol = np.linalg.solve(M, rhs)
     var = sol[..., t, 0]
     lam = s - np.einsum("...ap,...pa->...a", b, sol[..., 1:])
@@ -64,8 +65,16 @@ def _psi(var, lam, w: float):
     return np.where(np.isfinite(v) & (var > 0), v, np.inf)
 
 
-def guarded_design(F: np.ndarray, R: np.ndarray, M0: np.ndarray | None, target: int, counts0: np.ndarray,
-                   weight: float, *, ridge: float = 1e-10) -> GuardedDesign:
+def guarded_design(
+    F: np.ndarray,
+    R: np.ndarray,
+    M0: np.ndarray | None,
+    target: int,
+    counts0: np.ndarray,
+    weight: float,
+    *,
+    ridge: float = 1e-10,
+) -> GuardedDesign:
     """Exchange from ``counts0`` (same number of tubes) to a local minimum of Ψ.
 
     Parameters
@@ -86,8 +95,8 @@ def guarded_design(F: np.ndarray, R: np.ndarray, M0: np.ndarray | None, target: 
     base = np.zeros((P, P)) if M0 is None else np.asarray(M0, dtype=float)
     scale = max(float(np.mean(np.einsum("cp,cp->p", F, F))), 1e-300)
     base = base + ridge * scale * np.eye(P)
-    FF = np.einsum("cp,cq->cpq", F, F)                                      # (C, P, P)
-    RF = R[:, :, None] * F[None, :, :]                                      # (A, C, P)
+    FF = np.einsum("cp,cq->cpq", F, F)  # (C, P, P)
+    RF = R[:, :, None] * F[None, :, :]  # (A, C, P)
 
     def state(xc):
         M = base + np.tensordot(xc.astype(float), FF, axes=1)
@@ -107,9 +116,9 @@ def guarded_design(F: np.ndarray, R: np.ndarray, M0: np.ndarray | None, target: 
             Mi = M - FF[i]
             bi = b - RF[:, i, :]
             si = s - R[:, i] ** 2
-            Mc = Mi[None] + FF                                              # (C, P, P)
-            bc = bi[None] + np.swapaxes(RF, 0, 1)                            # (C, A, P)
-            sc = si[None] + (R**2).T                                        # (C, A)
+            Mc = Mi[None] + FF  # (C, P, P)
+            bc = bi[None] + np.swapaxes(RF, 0, 1)  # (C, A, P)
+            sc = si[None] + (R**2).T  # (C, A)
             vc, lc = _parts(Mc, bc, sc, target)
             psi = _psi(vc, lc, weight)
             psi[i] = np.inf

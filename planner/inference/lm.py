@@ -50,6 +50,7 @@ _ACCEPT_RATIO = 1e-4
 _LAMBDA_SIGMA = 0.1
 _LAMBDA_MAX_ITER = 10
 
+
 def _finite_difference_jac(call_model, theta, f0, lo, hi, central: bool) -> np.ndarray:
     """Forward (2-point) or central (3-point) differences, P or 2P model calls on the whole batch.
 
@@ -364,13 +365,41 @@ def fit_many(
 
     with np.errstate(all="ignore"):  # wild trial points may overflow; such steps are rejected
         return _drive(
-            call_model, call_jac, theta, yy, weigh_res, weigh_jac, lo, hi, dof, bool(scale_cov),
-            int(max_iter), float(xtol), float(ftol), float(gtol), rcond,
+            call_model,
+            call_jac,
+            theta,
+            yy,
+            weigh_res,
+            weigh_jac,
+            lo,
+            hi,
+            dof,
+            bool(scale_cov),
+            int(max_iter),
+            float(xtol),
+            float(ftol),
+            float(gtol),
+            rcond,
         )
 
 
-def _drive(call_model, call_jac, theta, yy, weigh_res, weigh_jac, lo, hi, dof, scale_cov,
-           max_iter, xtol, ftol, gtol, rcond) -> FitResult:
+def _drive(
+    call_model,
+    call_jac,
+    theta,
+    yy,
+    weigh_res,
+    weigh_jac,
+    lo,
+    hi,
+    dof,
+    scale_cov,
+    max_iter,
+    xtol,
+    ftol,
+    gtol,
+    rcond,
+) -> FitResult:
     """The batched Moré (1978) iteration; every per-trial quantity is an array over trials."""
     n_trials, n_params = theta.shape
     all_rows = np.arange(n_trials)
@@ -405,7 +434,9 @@ def _drive(call_model, call_jac, theta, yy, weigh_res, weigh_jac, lo, hi, dof, s
                 rows, jw, colnorm = rows[~bad], jw[~bad], colnorm[~bad]
         if rows.size:
             new = _take(first, rows)
-            d = np.where(new[:, None], np.where(colnorm > 0, colnorm, 1.0), np.maximum(_take(diag, rows), colnorm))
+            d = np.where(
+                new[:, None], np.where(colnorm > 0, colnorm, 1.0), np.maximum(_take(diag, rows), colnorm)
+            )
             _put(diag, rows, d)
             js = jw / d[:, None, :]
             if bounded:
@@ -534,8 +565,14 @@ def _drive(call_model, call_jac, theta, yy, weigh_res, weigh_jac, lo, hi, dof, s
     se = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))
     converged = np.isin(status, _CONVERGED_CODES) & finite & _all_p(np.isfinite(se))
     return FitResult(
-        theta=_frozen(theta), cov=_frozen(cov), se=_frozen(se), chi2=_frozen(chi2), dof=int(dof),
-        n_iter=_frozen(n_iter), converged=_frozen(converged), status=_frozen(status),
+        theta=_frozen(theta),
+        cov=_frozen(cov),
+        se=_frozen(se),
+        chi2=_frozen(chi2),
+        dof=int(dof),
+        n_iter=_frozen(n_iter),
+        converged=_frozen(converged),
+        status=_frozen(status),
     )
 
 
@@ -571,7 +608,12 @@ def fit_one(model, theta0, y, **kwargs) -> FitResult:
 
     res = fit_many(model1, theta[None, :], y1[None, :], jac=jac, **kwargs)
     return FitResult(
-        theta=_frozen(res.theta[0]), cov=_frozen(res.cov[0]), se=_frozen(res.se[0]),
-        chi2=_frozen(res.chi2[0]), dof=res.dof, n_iter=_frozen(res.n_iter[0]),
-        converged=_frozen(res.converged[0]), status=_frozen(res.status[0]),
+        theta=_frozen(res.theta[0]),
+        cov=_frozen(res.cov[0]),
+        se=_frozen(res.se[0]),
+        chi2=_frozen(res.chi2[0]),
+        dof=res.dof,
+        n_iter=_frozen(res.n_iter[0]),
+        converged=_frozen(res.converged[0]),
+        status=_frozen(res.status[0]),
     )

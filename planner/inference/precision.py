@@ -85,9 +85,14 @@ def free_parameters(model: Model, target: str, *, blank_offset: bool = False) ->
         guess.append(0.0)
         sd.append(0.01)  # a blank mismatch of about 0.01 A [common practice]
     t = f"log_beta[{target}]"
-    return Parameters(tuple(names), np.array(kind, dtype=int), np.array(idx, dtype=int),
-                      np.array(guess, dtype=float), np.array(sd, dtype=float),
-                      names.index(t) if t in names else -1)
+    return Parameters(
+        tuple(names),
+        np.array(kind, dtype=int),
+        np.array(idx, dtype=int),
+        np.array(guess, dtype=float),
+        np.array(sd, dtype=float),
+        names.index(t) if t in names else -1,
+    )
 
 
 def unpack(model: Model, params: Parameters, theta: np.ndarray):
@@ -113,8 +118,11 @@ def pack(model: Model, params: Parameters, log_beta=None, epsilon_M_cm=None) -> 
     eps = model.epsilon_M_cm if epsilon_M_cm is None else np.asarray(epsilon_M_cm, dtype=float)
     out = np.zeros(params.size)
     for p in range(params.size):
-        out[p] = lb[params.index[p]] if params.kind[p] == 0 else (eps[params.index[p]] if params.kind[p] == 1
-                                                                   else 0.0)
+        out[p] = (
+            lb[params.index[p]]
+            if params.kind[p] == 0
+            else (eps[params.index[p]] if params.kind[p] == 1 else 0.0)
+        )
     return out
 
 
@@ -322,9 +330,19 @@ class MonteCarlo:
     failed_fraction: float
 
 
-def monte_carlo(bench: Bench, model: Model, recipe: Recipe, reading: ReadingModel,
-                W: np.ndarray, rng: np.random.Generator, n_trials: int, true_theta: np.ndarray,
-                *, chunk: int = 2000, progress=None) -> MonteCarlo:
+def monte_carlo(
+    bench: Bench,
+    model: Model,
+    recipe: Recipe,
+    reading: ReadingModel,
+    W: np.ndarray,
+    rng: np.random.Generator,
+    n_trials: int,
+    true_theta: np.ndarray,
+    *,
+    chunk: int = 2000,
+    progress=None,
+) -> MonteCarlo:
     """Simulate ``n_trials`` experiments at ``true_theta`` and fit each (in chunks, all at once)."""
     params = reading.params
     lb, eps, _ = unpack(model, params, true_theta)
@@ -336,10 +354,11 @@ def monte_carlo(bench: Bench, model: Model, recipe: Recipe, reading: ReadingMode
         sim = simulate(bench, model, recipe, rng, m, log_beta=lb, epsilon_M_cm=eps)
         theta0 = np.broadcast_to(params.guess, (m, params.size)).copy()
         lo, hi = reading.bounds()
-        res = fit_many(reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False,
-                       lower=lo, upper=hi)
-        est[done:done + m] = np.where(res.converged[:, None], res.theta, np.nan)
-        ok[done:done + m] = res.converged & np.all(np.isfinite(res.theta), axis=1)
+        res = fit_many(
+            reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False, lower=lo, upper=hi
+        )
+        est[done : done + m] = np.where(res.converged[:, None], res.theta, np.nan)
+        ok[done : done + m] = res.converged & np.all(np.isfinite(res.theta), axis=1)
         done += m
         if progress is not None:
             progress(done, n_trials)
@@ -419,6 +438,7 @@ def profile(reading: ReadingModel, W: np.ndarray, true_theta: np.ndarray, *, n_g
         r = (reading.f(theta) - y0) @ W.T
         chi2 = np.sum(r**2, axis=1)
     else:
+
         def full(theta_sub):  # fit_many always passes the whole batch: row g is grid point g
             th = np.empty((G, params.size))
             th[:, others] = theta_sub
@@ -433,8 +453,16 @@ def profile(reading: ReadingModel, W: np.ndarray, true_theta: np.ndarray, *, n_g
 
         theta0 = np.broadcast_to(true_theta[others], (G, len(others))).copy()
         lo, hi = reading.bounds()
-        res = fit_many(f, theta0, np.broadcast_to(y0, (G, y0.size)), jac=jac, whiten=W, scale_cov=False,
-                       lower=lo[others], upper=hi[others])
+        res = fit_many(
+            f,
+            theta0,
+            np.broadcast_to(y0, (G, y0.size)),
+            jac=jac,
+            whiten=W,
+            scale_cov=False,
+            lower=lo[others],
+            upper=hi[others],
+        )
         chi2 = np.where(np.isfinite(res.chi2), res.chi2, np.inf)
     # noise-free data: χ² at the truth is 0, so χ² itself is the Δχ² of the profile
     return Profile(grid, chi2, bool(chi2[0] < CHI2_95_1DOF), bool(chi2[-1] < CHI2_95_1DOF))

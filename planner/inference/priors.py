@@ -14,9 +14,10 @@ from .precision import Parameters
 
 GH3 = (np.array([-math.sqrt(3.0), 0.0, math.sqrt(3.0)]), np.array([1 / 6, 2 / 3, 1 / 6]))
 # source: Gauss–Hermite (probabilists') 3-point rule, nodes 0, ±√3 with weights 2/3, 1/6 — exact to degree 5
-GH5 = (np.array([-2.856970013872806, -1.355626179974266, 0.0, 1.355626179974266, 2.856970013872806]),
-       np.array([0.011257411327721, 0.222075922005613, 0.533333333333333, 0.222075922005613,
-                 0.011257411327721]))
+GH5 = (
+    np.array([-2.856970013872806, -1.355626179974266, 0.0, 1.355626179974266, 2.856970013872806]),
+    np.array([0.011257411327721, 0.222075922005613, 0.533333333333333, 0.222075922005613, 0.011257411327721]),
+)
 # source: Gauss–Hermite (probabilists') 5-point rule (Abramowitz & Stegun 1964, table 25.10, rescaled)
 
 
@@ -67,5 +68,3 @@ def prior_nodes(params: Parameters, robust: bool) -> Nodes:
     if w[0] < 0:  # d > 3: keep the weights positive (a slightly less exact, positive rule)
         w[0] = 0.0
     return Nodes(np.array(rows), w / w.sum())
-
-

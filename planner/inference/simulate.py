@@ -33,9 +33,19 @@ class Experiments:
     state: TubeState
 
 
-def simulate(bench: Bench, model: Model, recipe: Recipe, rng: np.random.Generator,
-             n_trials: int, *, log_beta: np.ndarray | None = None, epsilon_M_cm: np.ndarray | None = None,
-             photometric: bool = True, delivery: bool = True, stock: bool = True) -> Experiments:
+def simulate(
+    bench: Bench,
+    model: Model,
+    recipe: Recipe,
+    rng: np.random.Generator,
+    n_trials: int,
+    *,
+    log_beta: np.ndarray | None = None,
+    epsilon_M_cm: np.ndarray | None = None,
+    photometric: bool = True,
+    delivery: bool = True,
+    stock: bool = True,
+) -> Experiments:
     """Draw ``n_trials`` whole experiments of ``recipe``.
 
     Parameters
@@ -64,7 +74,7 @@ def simulate(bench: Bench, model: Model, recipe: Recipe, rng: np.random.Generato
         V, _ = titration_volumes(bench, recipe, rng, T, delivery_errors=delivery)
     elif delivery:
         dev = devices.stock_device
-        z_sys = np.where(dev[None, :] >= 0, z_dev[:, np.maximum(dev, 0)], 0.0)        # (T, k)
+        z_sys = np.where(dev[None, :] >= 0, z_dev[:, np.maximum(dev, 0)], 0.0)  # (T, k)
         V = V + sds.random_mL * z_del + sds.systematic_mL * z_sys[:, None, :]
         V = np.where(recipe.volumes_mL > 0, np.maximum(V, 0.0), 0.0)
     if bench.to_mark and bench.titration is None:

@@ -56,7 +56,9 @@ class Study:
     check_weight: float = 0.0
 
     def __repr__(self) -> str:
-        return f"Study({self.title!r}, target={self.target}, params={list(self.params.names)}, {self.bench!r})"
+        return (
+            f"Study({self.title!r}, target={self.target}, params={list(self.params.names)}, {self.bench!r})"
+        )
 
     def nodes(self, robust: bool | None = None) -> Nodes:
         """Quadrature nodes over the guesses' uncertainty (the guess alone when not robust)."""

@@ -38,12 +38,17 @@ def chi2_sf(x, dof):
         ly = np.log(np.where(yy > 0, yy, 1.0))
         if k % 2 == 0:
             i = np.arange(k // 2)
-            lgam = np.concatenate([[0.0], np.cumsum(np.log(np.arange(1, max(k // 2, 1))))])[: i.size]  # log i!
+            lgam = np.concatenate([[0.0], np.cumsum(np.log(np.arange(1, max(k // 2, 1))))])[
+                : i.size
+            ]  # log i!
             q = np.sum(np.exp(i * ly - yy - lgam), axis=-1)
         else:
             i = np.arange((k - 1) // 2)
             # log Γ(i + 3/2) = log Γ(3/2) + Σ_{j=1..i} log(j + 1/2)
-            lgam = math.lgamma(1.5) + np.concatenate([[0.0], np.cumsum(np.log(np.arange(1, i.size) + 0.5))])[: i.size]
+            lgam = (
+                math.lgamma(1.5)
+                + np.concatenate([[0.0], np.cumsum(np.log(np.arange(1, i.size) + 0.5))])[: i.size]
+            )
             q = _erfc(np.sqrt(y)) + np.sum(np.where(yy > 0, np.exp((i + 0.5) * ly - yy - lgam), 0.0), axis=-1)
     return np.clip(np.where(y > 0, q, 1.0), 0.0, 1.0)
 

@@ -99,8 +99,11 @@ def _check_name(name: str, shown: Path) -> None:
     except (OSError, ValueError, AttributeError):  # no pathconf (Windows) or not answered: the common limit
         limit = 255
     if len(os.fsencode(name)) > limit:
-        raise OutputError(shown, f"the name is {len(os.fsencode(name))} bytes long, more than the {limit} "
-                          "the file system allows: shorten it")
+        raise OutputError(
+            shown,
+            f"the name is {len(os.fsencode(name))} bytes long, more than the {limit} "
+            "the file system allows: shorten it",
+        )
 
 
 def write_atomic(path: str | Path, text: str) -> Path:
@@ -211,8 +214,17 @@ def _keep_old(target: Path, backup: str) -> str | None:
     return backup
 
 
-def read_user_text(path: str | Path, *, what: str, limit_bytes: int, error, kind: str, missing_hint: str = "",
-                   too_large_hint: str = "check that this is the right file", encoding: str = "utf-8") -> str:
+def read_user_text(
+    path: str | Path,
+    *,
+    what: str,
+    limit_bytes: int,
+    error,
+    kind: str,
+    missing_hint: str = "",
+    too_large_hint: str = "check that this is the right file",
+    encoding: str = "utf-8",
+) -> str:
     """The text of a file the user named, read at most ``limit_bytes`` (one byte past it, rather than
     trusting stat(): pipes and devices have no size). Every problem is one ``error("", message)``.
 

@@ -73,8 +73,10 @@ def parse_key_csv(text: str, plan: Plan, source: str = "key.csv") -> tuple[KeyCa
     header, rows = _rows(text, source)
     missing = [c for c in (*KEY_FIXED, *KEY_TAIL) if c not in header]
     if missing:
-        raise RecipeError(f"{source} header", f"missing column(s) {', '.join(missing)}: is this the key.csv that "
-                          "kplan cards wrote?")
+        raise RecipeError(
+            f"{source} header",
+            f"missing column(s) {', '.join(missing)}: is this the key.csv that kplan cards wrote?",
+        )
     stocks = [h for h in header if h not in KEY_FIXED and h not in KEY_TAIL]
     ids = [s.id for s in plan.stock]
     for s in stocks:
@@ -98,8 +100,17 @@ def parse_key_csv(text: str, plan: Plan, source: str = "key.csv") -> tuple[KeyCa
         rec = make_recipe(plan, vols, tubes)
         nums = {c: np.array([_number(r[col[c]], source, ln, c) for ln, r in items]) for c in KEY_TAIL}
         first = items[0][1]
-        cards.append(KeyCard(sid, first[col["name"]], first[col["section"]], rec, nums["absorbance"],
-                             nums["band_low"], nums["band_high"]))
+        cards.append(
+            KeyCard(
+                sid,
+                first[col["name"]],
+                first[col["section"]],
+                rec,
+                nums["absorbance"],
+                nums["band_low"],
+                nums["band_high"],
+            )
+        )
     return tuple(cards)
 
 
@@ -108,8 +119,9 @@ def parse_results_csv(text: str, source: str = "results.csv") -> dict[str, dict[
     header, rows = _rows(text, source)
     missing = [c for c in ("student", "tube", "absorbance") if c not in header]
     if missing:
-        raise RecipeError(f"{source} header", f"missing column(s) {', '.join(missing)}: expected student, tube, "
-                          "absorbance")
+        raise RecipeError(
+            f"{source} header", f"missing column(s) {', '.join(missing)}: expected student, tube, absorbance"
+        )
     col = {h: k for k, h in enumerate(header)}
     out: dict[str, dict[str, float]] = {}
     for ln, r in enumerate(rows, start=2):

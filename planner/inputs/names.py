@@ -14,23 +14,23 @@ def ion_charge(ion: str) -> int:
     """
     s = ion.strip()
     bad = f"ion '{ion}' has no readable charge: write it like 'K+', 'NO3-', 'Cu2+' or 'SO4 2-'"
-    m = re.fullmatch(r"(\S+)\s+(\d*)([+-])", s)           # 'SO4 2-'
+    m = re.fullmatch(r"(\S+)\s+(\d*)([+-])", s)  # 'SO4 2-'
     if m:
         n = int(m.group(2) or 1)
         return n if m.group(3) == "+" else -n
-    m = re.fullmatch(r"\[(.+)\](\d*)([+-])", s)           # '[SO4]2-'
+    m = re.fullmatch(r"\[(.+)\](\d*)([+-])", s)  # '[SO4]2-'
     if m:
         n = int(m.group(2) or 1)
         return n if m.group(3) == "+" else -n
-    m = re.fullmatch(r"(.*?[A-Za-z\])])([+-])(\d+)", s)      # 'SO4-2' has a digit before: see below
+    m = re.fullmatch(r"(.*?[A-Za-z\])])([+-])(\d+)", s)  # 'SO4-2' has a digit before: see below
     if m and not m.group(1)[-1].isdigit():
         n = int(m.group(3))
         return n if m.group(2) == "+" else -n
-    m = re.fullmatch(r"(.*?\d)([+-])(\d+)", s)              # 'SO4-2', 'PO4-3'
+    m = re.fullmatch(r"(.*?\d)([+-])(\d+)", s)  # 'SO4-2', 'PO4-3'
     if m:
         n = int(m.group(3))
         return n if m.group(2) == "+" else -n
-    m = re.fullmatch(r"(.+?)(\++|-+)", s)                   # 'K+', 'Ca++', 'NO3-', 'Cu2+'
+    m = re.fullmatch(r"(.+?)(\++|-+)", s)  # 'K+', 'Ca++', 'NO3-', 'Cu2+'
     if not m:
         raise ValueError(bad)
     body, signs = m.groups()

@@ -64,10 +64,10 @@ CRITERIA = ("target", "all")
 ACTIVITY_MODELS = ("davies", "extended-dh", "none")
 
 MAX_PLAN_BYTES = 1_000_000  # a plan is a page of TOML; anything this large is not one
-MAX_DEPTH = 50              # nesting levels of tables and arrays; a plan needs about 4
+MAX_DEPTH = 50  # nesting levels of tables and arrays; a plan needs about 4
 MICROPIPETTE_RINSE_ML = 0.2  # pre-wetting the tip two or three times [common practice]
-MICROPIPETTE_DEAD_ML = 0.1   # what a vial keeps below a micropipette tip's reach [common practice]
-MAX_GRID_LEVELS = 20_000    # grid volumes per stock (tube_volume / step); the design enumerates them
+MICROPIPETTE_DEAD_ML = 0.1  # what a vial keeps below a micropipette tip's reach [common practice]
+MAX_GRID_LEVELS = 20_000  # grid volumes per stock (tube_volume / step); the design enumerates them
 
 
 class Component(_Strict):
@@ -238,12 +238,18 @@ class Glassware(_Strict):
         # would ask for millions of levels (and as many candidate tubes per stock)
         levels = self.tube_volume_mL / self.step_mL
         if levels > MAX_GRID_LEVELS:
-            raise PlanError("step", f"{self.step_mL:g} mL gives {levels:.3g} grid levels up to tube_volume = "
-                            f"{self.tube_volume_mL:g} mL; at most {MAX_GRID_LEVELS}: use a step of at least "
-                            f"{self.tube_volume_mL / MAX_GRID_LEVELS:.2g} mL")
+            raise PlanError(
+                "step",
+                f"{self.step_mL:g} mL gives {levels:.3g} grid levels up to tube_volume = "
+                f"{self.tube_volume_mL:g} mL; at most {MAX_GRID_LEVELS}: use a step of at least "
+                f"{self.tube_volume_mL / MAX_GRID_LEVELS:.2g} mL",
+            )
         if self.make_up_min_mL is not None and not self.make_up_min_mL < self.tube_volume_mL:
-            raise PlanError("make_up_min", f"{self.make_up_min_mL:g} mL must be below tube_volume "
-                            f"({self.tube_volume_mL:g} mL), e.g. make_up_min = '0.5 mL'")
+            raise PlanError(
+                "make_up_min",
+                f"{self.make_up_min_mL:g} mL must be below tube_volume "
+                f"({self.tube_volume_mL:g} mL), e.g. make_up_min = '0.5 mL'",
+            )
         return self
 
 
@@ -289,7 +295,9 @@ class Plan(_Strict):
         reserved = {"M", "L", "H"}
         for i, s in enumerate(self.species):
             if s.name in reserved:
-                raise PlanError(f"species[{i}].name", f"'{s.name}' is a component; name the species e.g. 'ML'")
+                raise PlanError(
+                    f"species[{i}].name", f"'{s.name}' is a component; name the species e.g. 'ML'"
+                )
             if names.count(s.name) > 1:
                 raise PlanError(f"species[{i}].name", f"species '{s.name}' is defined twice")
             if s.formula.get("H", 0) and self.components.H is None:
@@ -310,16 +318,24 @@ class Plan(_Strict):
                 raise PlanError(f"stock[{i}].id", f"stock id '{s.id}' is defined twice")
         for i, s in enumerate(self.stock):
             if s.background and s.diluent:
-                raise PlanError(f"stock[{i}].background", "a stock cannot be both the diluent and the background "
-                                "electrolyte: the diluent fills the tube, the background stock levels I")
+                raise PlanError(
+                    f"stock[{i}].background",
+                    "a stock cannot be both the diluent and the background "
+                    "electrolyte: the diluent fills the tube, the background stock levels I",
+                )
             if s.background and (s.conc or not s.ions):
-                raise PlanError(f"stock[{i}].background", "a background-electrolyte stock holds only inert ions: "
-                                "give it ions = { ... } and no conc")
+                raise PlanError(
+                    f"stock[{i}].background",
+                    "a background-electrolyte stock holds only inert ions: "
+                    "give it ions = { ... } and no conc",
+                )
         if sum(s.background for s in self.stock) > 1:
             raise PlanError("stock", "more than one stock has background = true: keep one")
         diluents = [s.id for s in self.stock if s.diluent]
         if len(diluents) > 1:
-            raise PlanError("stock", f"more than one stock has diluent = true ({', '.join(diluents)}): keep one")
+            raise PlanError(
+                "stock", f"more than one stock has diluent = true ({', '.join(diluents)}): keep one"
+            )
         if self.glassware.make_up == "to-mark" and not diluents:
             raise PlanError(
                 "stock",
@@ -328,7 +344,9 @@ class Plan(_Strict):
         for j, d in enumerate(self.glassware.dispenser):
             for k, sid in enumerate(d.stocks):
                 if sid not in ids:
-                    raise PlanError(f"glassware.dispenser[{j}].stocks[{k}]", unknown_name("stock id", sid, ids))
+                    raise PlanError(
+                        f"glassware.dispenser[{j}].stocks[{k}]", unknown_name("stock id", sid, ids)
+                    )
         if self.glassware.order is not None:
             for k, sid in enumerate(self.glassware.order):
                 if sid not in ids:
@@ -340,8 +358,11 @@ class Plan(_Strict):
                 raise PlanError(f"design.fixed.{sid}", unknown_name("stock id", sid, ids))
         dil = self.diluent
         if dil is not None and self.glassware.make_up == "to-mark" and dil.id in self.design.fixed:
-            raise PlanError(f"design.fixed.{dil.id}", "the diluent fills each tube to the mark under "
-                            "make_up = 'to-mark', so its volume cannot be fixed: remove it from design.fixed")
+            raise PlanError(
+                f"design.fixed.{dil.id}",
+                "the diluent fills each tube to the mark under "
+                "make_up = 'to-mark', so its volume cannot be fixed: remove it from design.fixed",
+            )
         fixed_total = sum(self.design.fixed.values())
         if fixed_total > self.glassware.tube_volume_mL * (1 + 1e-12):
             raise PlanError(
@@ -364,8 +385,11 @@ class Plan(_Strict):
         for i, alt in enumerate(self.design.alternative):
             key = f"design.alternative[{i}]"
             if alt.name in reserved or alt.name in names or alt_names.count(alt.name) > 1:
-                raise PlanError(f"{key}.name", f"'{alt.name}' is already a component or species: give the "
-                                "alternative species a name of its own, e.g. 'ML2'")
+                raise PlanError(
+                    f"{key}.name",
+                    f"'{alt.name}' is already a component or species: give the "
+                    "alternative species a name of its own, e.g. 'ML2'",
+                )
             if alt.formula.get("H", 0) and self.components.H is None:
                 raise PlanError(f"{key}.formula", "uses H but the plan has no [components.H]")
         if self.titration is not None:
@@ -377,8 +401,9 @@ class Plan(_Strict):
             if t.cell == t.titrant:
                 raise PlanError("titration.titrant", "the titrant must be another stock than the cell's")
             if self.glassware.make_up != "added":
-                raise PlanError("glassware.make_up", "an in-cuvette titration adds every volume: set "
-                                "make_up = 'added'")
+                raise PlanError(
+                    "glassware.make_up", "an in-cuvette titration adds every volume: set make_up = 'added'"
+                )
 
     # -- convenience -------------------------------------------------------------------------------
     @property
@@ -427,9 +452,7 @@ def _fields_at(loc: tuple) -> list[str]:
             continue
         if not (isinstance(model, type) and issubclass(model, BaseModel)):
             return []
-        field = next(
-            (f for n, f in model.model_fields.items() if (f.alias or n) == item or n == item), None
-        )
+        field = next((f for n, f in model.model_fields.items() if (f.alias or n) == item or n == item), None)
         if field is None:
             return []
         model = _inner_model(field.annotation)
@@ -467,7 +490,7 @@ def _first_error_of(err: Any) -> PlanError:
         return PlanError(path, f"{msg.lower()}, got {err.get('input')!r}")
     for prefix in ("Value error, ", "Assertion failed, "):
         if msg.startswith(prefix):
-            msg = msg[len(prefix):]
+            msg = msg[len(prefix) :]
     if kind == "literal_error":
         msg = msg.replace("Input should be", "must be one of")
     return PlanError(path, msg)
@@ -507,9 +530,15 @@ def load_plan(path: str | Path) -> Plan:
         For a missing file, a TOML syntax error (with its line) or any schema problem.
     """
     p = Path(path)
-    text = read_user_text(p, what="plan", limit_bytes=MAX_PLAN_BYTES, error=PlanError, kind="a .toml file",
-                          missing_hint=", or make one with 'kplan new'",
-                          too_large_hint="a plan is a short TOML file; check that this is the right file")
+    text = read_user_text(
+        p,
+        what="plan",
+        limit_bytes=MAX_PLAN_BYTES,
+        error=PlanError,
+        kind="a .toml file",
+        missing_hint=", or make one with 'kplan new'",
+        too_large_hint="a plan is a short TOML file; check that this is the right file",
+    )
     return parse_plan_text(text, source=str(p))
 
 
@@ -522,12 +551,18 @@ def parse_plan_text(text: str, source: str = "<plan>") -> Plan:
     except tomllib.TOMLDecodeError as exc:
         raise PlanError("", f"{source}: TOML syntax error: {exc} — fix the line shown") from None
     except RecursionError:
-        raise PlanError("", f"{source}: arrays or tables nested too deeply to read (at most {MAX_DEPTH} "
-                        "levels): a plan needs only a few") from None
+        raise PlanError(
+            "",
+            f"{source}: arrays or tables nested too deeply to read (at most {MAX_DEPTH} "
+            "levels): a plan needs only a few",
+        ) from None
     depth = _depth(data)
     if depth > MAX_DEPTH:
-        raise PlanError("", f"{source}: arrays or tables nested {depth} levels deep; at most {MAX_DEPTH}: "
-                        "a plan needs only a few")
+        raise PlanError(
+            "",
+            f"{source}: arrays or tables nested {depth} levels deep; at most {MAX_DEPTH}: "
+            "a plan needs only a few",
+        )
     return parse_plan(data)
 
 

@@ -71,8 +71,8 @@ class PlanError(ValueError):
         super().__init__(f"{key}: {message}" if key else message)
 
 
-MAX_VOLUME_ML = 10_000.0    # 10 L: larger than any flask, burette or tube a plan describes
-MIN_VOLUME_ML = 1e-6        # 1 nL: far below any dispenser; smaller non-zero volumes only break the numerics
+MAX_VOLUME_ML = 10_000.0  # 10 L: larger than any flask, burette or tube a plan describes
+MIN_VOLUME_ML = 1e-6  # 1 nL: far below any dispenser; smaller non-zero volumes only break the numerics
 
 
 def _no_bool(v: Any) -> Any:
@@ -82,8 +82,16 @@ def _no_bool(v: Any) -> Any:
     return v
 
 
-def _range(lo: float, hi: float, unit: str = "", *, lo_open: bool = False, hi_open: bool = False,
-           what: str = "", hint: str = "") -> AfterValidator:
+def _range(
+    lo: float,
+    hi: float,
+    unit: str = "",
+    *,
+    lo_open: bool = False,
+    hi_open: bool = False,
+    what: str = "",
+    hint: str = "",
+) -> AfterValidator:
     """A validator refusing non-finite values and values outside [lo, hi] (open ends as asked)."""
     u = f" {unit}" if unit else ""
     if lo_open:
@@ -127,10 +135,15 @@ def _ident(what: str) -> AfterValidator:
 _conc = _quantity("concentration")
 _vol = _quantity("volume")
 
-Conc = Annotated[float, _conc, _range(1e-12, 20, "mol/L", what="a positive concentration ",
-                                               hint="; leave it out if the stock has none")]
+Conc = Annotated[
+    float,
+    _conc,
+    _range(1e-12, 20, "mol/L", what="a positive concentration ", hint="; leave it out if the stock has none"),
+]
 IonicStrength = Annotated[float, _conc, _range(0, 5, "mol/L")]
 IonicStrengthTarget = Annotated[float, _conc, _range(0, 5, "mol/L", lo_open=True)]
+
+
 def _zero_or(v: float) -> float:
     # 0 means "none" (no rinse, no minimum); any other volume must be one a dispenser could deliver
     if v == 0:

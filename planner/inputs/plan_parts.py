@@ -60,6 +60,9 @@ class Titration(_Strict):
     @model_validator(mode="after")
     def _volumes(self) -> Titration:
         if not self.max_volume_mL > self.start_volume_mL:
-            raise PlanError("max_volume", f"{self.max_volume_mL:g} mL must exceed start_volume = "
-                            f"{self.start_volume_mL:g} mL: leave room for the additions")
+            raise PlanError(
+                "max_volume",
+                f"{self.max_volume_mL:g} mL must exceed start_volume = "
+                f"{self.start_volume_mL:g} mL: leave room for the additions",
+            )
         return self

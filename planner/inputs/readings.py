@@ -37,8 +37,11 @@ def _dialect(text: str, source: str) -> tuple[str, bool]:
     if ";" in first and "," not in first:
         return ";", True
     if ";" in first:
-        raise RecipeError(f"{source} header", "mixes ';' and ',' between fields: save the file as CSV with "
-                          "',' between fields and '.' as the decimal point")
+        raise RecipeError(
+            f"{source} header",
+            "mixes ';' and ',' between fields: save the file as CSV with "
+            "',' between fields and '.' as the decimal point",
+        )
     return ",", False
 
 
@@ -61,7 +64,9 @@ def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Rea
     header = [h.strip() for h in rows[0]]
     col = next((h for h in header if h in ABSORBANCE_COLUMNS), None)
     if col is None:
-        raise RecipeError(f"{source} header", f"no absorbance column: add one named {' or '.join(ABSORBANCE_COLUMNS)}")
+        raise RecipeError(
+            f"{source} header", f"no absorbance column: add one named {' or '.join(ABSORBANCE_COLUMNS)}"
+        )
     j = header.index(col)
     drop = {k for k, h in enumerate(header) if h.lower() in NOTE_COLUMNS} | {j}
     a = []
@@ -74,7 +79,9 @@ def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Rea
         try:
             value = float(r[j])
         except ValueError:
-            raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is not an absorbance; leave no blanks") from None
+            raise RecipeError(
+                f"{source} line {ln}, {col}", f"'{r[j]}' is not an absorbance; leave no blanks"
+            ) from None
         if np.isnan(value):
             raise RecipeError(f"{source} line {ln}, {col}", f"'{r[j]}' is not an absorbance; leave no blanks")
         if not np.isfinite(value):

@@ -76,8 +76,9 @@ class Recipe:
     def take(self, index) -> Recipe:
         """The tubes at ``index`` (integer indices or a boolean mask), in that order."""
         idx = np.flatnonzero(index) if np.asarray(index).dtype == bool else np.asarray(index, dtype=int)
-        return Recipe(tuple(self.tubes[i] for i in idx), self.stock_ids, self.volumes_mL[idx],
-                      self.total_volume_mL[idx])
+        return Recipe(
+            tuple(self.tubes[i] for i in idx), self.stock_ids, self.volumes_mL[idx], self.total_volume_mL[idx]
+        )
 
     def dispensed_ids(self, plan: Plan) -> tuple[str, ...]:
         """Stocks that are measured out (the diluent is not, under to-mark)."""
@@ -98,8 +99,12 @@ def concat_recipes(recipes, prefixes=None) -> Recipe:
         tubes = tuple(t for r in recipes for t in r.tubes)
     else:
         tubes = tuple(f"{p}/{t}" for r, p in zip(recipes, prefixes, strict=True) for t in r.tubes)
-    return Recipe(tubes, recipes[0].stock_ids, np.vstack([r.volumes_mL for r in recipes]),
-                  np.concatenate([r.total_volume_mL for r in recipes]))
+    return Recipe(
+        tubes,
+        recipes[0].stock_ids,
+        np.vstack([r.volumes_mL for r in recipes]),
+        np.concatenate([r.total_volume_mL for r in recipes]),
+    )
 
 
 def totals_M(recipe: Recipe, stock_conc_M: np.ndarray) -> np.ndarray:
@@ -107,8 +112,13 @@ def totals_M(recipe: Recipe, stock_conc_M: np.ndarray) -> np.ndarray:
     return (recipe.volumes_mL @ stock_conc_M) / recipe.total_volume_mL[:, None]
 
 
-def make_recipe(plan: Plan, volumes: dict[str, np.ndarray] | np.ndarray, tubes: list[str] | None = None,
-                *, dispensed_ids: tuple[str, ...] | None = None) -> Recipe:
+def make_recipe(
+    plan: Plan,
+    volumes: dict[str, np.ndarray] | np.ndarray,
+    tubes: list[str] | None = None,
+    *,
+    dispensed_ids: tuple[str, ...] | None = None,
+) -> Recipe:
     """Build a :class:`Recipe` from dispensed volumes, filling the diluent and checking the tube.
 
     Parameters
@@ -116,16 +126,29 @@ def make_recipe(plan: Plan, volumes: dict[str, np.ndarray] | np.ndarray, tubes: 
     volumes : dict stock id -> (n,) mL, or an (n, d) array in the order of ``dispensed_ids``.
     """
     dil = plan.diluent
-    return assemble_recipe(tuple(s.id for s in plan.stock), volumes, tubes, dispensed_ids=dispensed_ids,
-                           diluent_id=dil.id if dil is not None else None,
-                           to_mark=plan.glassware.make_up == "to-mark",
-                           tube_volume_mL=plan.glassware.tube_volume_mL, fixed_mL=plan.design.fixed)
+    return assemble_recipe(
+        tuple(s.id for s in plan.stock),
+        volumes,
+        tubes,
+        dispensed_ids=dispensed_ids,
+        diluent_id=dil.id if dil is not None else None,
+        to_mark=plan.glassware.make_up == "to-mark",
+        tube_volume_mL=plan.glassware.tube_volume_mL,
+        fixed_mL=plan.design.fixed,
+    )
 
 
-def assemble_recipe(ids: tuple[str, ...], volumes: dict[str, np.ndarray] | np.ndarray,
-                    tubes: list[str] | None = None, *, dispensed_ids: tuple[str, ...] | None = None,
-                    diluent_id: str | None, to_mark: bool, tube_volume_mL: float,
-                    fixed_mL: dict[str, float]) -> Recipe:
+def assemble_recipe(
+    ids: tuple[str, ...],
+    volumes: dict[str, np.ndarray] | np.ndarray,
+    tubes: list[str] | None = None,
+    *,
+    dispensed_ids: tuple[str, ...] | None = None,
+    diluent_id: str | None,
+    to_mark: bool,
+    tube_volume_mL: float,
+    fixed_mL: dict[str, float],
+) -> Recipe:
     """:func:`make_recipe` from the plan's numbers: stock ids in plan order, the diluent, the make-up
     mode, the tube volume and the fixed volumes."""
     if isinstance(volumes, dict):
@@ -193,9 +216,15 @@ def assemble_recipe(ids: tuple[str, ...], volumes: dict[str, np.ndarray] | np.nd
 
 def read_text_file(path: str | Path, what: str) -> str:
     """Text of a CSV the user named, or a RecipeError saying the file is missing, too large or unreadable."""
-    return read_user_text(path, what=what, limit_bytes=MAX_CSV_BYTES, error=RecipeError, kind="a .csv file",
-                          too_large_hint=f"a {what} holds at most {MAX_ROWS} tubes: check that this is the right "
-                                         "file", encoding="utf-8-sig")
+    return read_user_text(
+        path,
+        what=what,
+        limit_bytes=MAX_CSV_BYTES,
+        error=RecipeError,
+        kind="a .csv file",
+        too_large_hint=f"a {what} holds at most {MAX_ROWS} tubes: check that this is the right file",
+        encoding="utf-8-sig",
+    )
 
 
 def read_recipe_csv(path: str | Path, plan: Plan) -> Recipe:
@@ -225,26 +254,36 @@ def csv_rows(text: str, source: str) -> list[tuple[int, list[str]]]:
             if not r or not any(c.strip() for c in r):
                 continue
             if any("\n" in c or "\r" in c for c in r):
-                raise RecipeError(f"{source} line {skip + start}", "a quoted cell runs over several lines "
-                                  "(an unclosed quote?): close the quote on that line")
+                raise RecipeError(
+                    f"{source} line {skip + start}",
+                    "a quoted cell runs over several lines "
+                    "(an unclosed quote?): close the quote on that line",
+                )
             rows.append((skip + start, r))
             if len(rows) > MAX_ROWS + 1:
-                raise RecipeError(source, f"more than {MAX_ROWS} tubes: a recipe holds at most "
-                                  f"{MAX_ROWS} rows")
+                raise RecipeError(
+                    source, f"more than {MAX_ROWS} tubes: a recipe holds at most {MAX_ROWS} rows"
+                )
     except csv.Error as exc:
         line = skip + reader.line_num
         if "field larger" in str(exc):
-            raise RecipeError(f"{source} line {line}", f"a cell is longer than {csv.field_size_limit()} "
-                              "characters (an unclosed quote?): check the quotes on that line") from None
+            raise RecipeError(
+                f"{source} line {line}",
+                f"a cell is longer than {csv.field_size_limit()} "
+                "characters (an unclosed quote?): check the quotes on that line",
+            ) from None
         raise RecipeError(f"{source} line {line}", f"not readable as CSV ({exc}): check the quotes") from None
     if rows:
         first = rows[0][1]
         if len(first) == 1:
             for sep, name in ((";", "semicolon"), ("\t", "tab")):
                 if sep in first[0]:
-                    raise RecipeError(f"{source} header", f"the file looks {name}-separated: kplan reads "
-                                      "comma-separated values with a decimal point, e.g. 'tube,CU,DY' and "
-                                      "'T1,1.50,0.25'; export it as CSV with commas")
+                    raise RecipeError(
+                        f"{source} header",
+                        f"the file looks {name}-separated: kplan reads "
+                        "comma-separated values with a decimal point, e.g. 'tube,CU,DY' and "
+                        "'T1,1.50,0.25'; export it as CSV with commas",
+                    )
     return rows
 
 
@@ -252,8 +291,13 @@ def parse_volume_cell(cell: str, where: str, what: str = "a volume in mL") -> fl
     """A finite decimal number from a CSV cell, or a RecipeError naming ``where``."""
     c = cell.strip()
     if not _NUMBER.fullmatch(c):
-        hint = ("; write a decimal point (1.50, not 1,50)" if re.fullmatch(r"[+-]?\d*,\d+", c)
-                else "; leave no blanks" if not c else "")
+        hint = (
+            "; write a decimal point (1.50, not 1,50)"
+            if re.fullmatch(r"[+-]?\d*,\d+", c)
+            else "; leave no blanks"
+            if not c
+            else ""
+        )
         raise RecipeError(where, f"'{visible(c)}' is not {what}{hint}")
     v = float(c)
     if not math.isfinite(v):  # '1e400' is a plain decimal, but past the largest float
@@ -265,8 +309,9 @@ def _volume(cell: str, where: str) -> float:
     """A recipe volume: 0, or a volume a dispenser could deliver (the plan's volume bounds)."""
     v = parse_volume_cell(cell, where)
     if v != 0 and not MIN_VOLUME_ML <= abs(v) <= MAX_VOLUME_ML:  # negatives get their own message later
-        raise RecipeError(where, f"{v:g} mL: write 0 or a volume between {MIN_VOLUME_ML:g} and "
-                          f"{MAX_VOLUME_ML:g} mL")
+        raise RecipeError(
+            where, f"{v:g} mL: write 0 or a volume between {MIN_VOLUME_ML:g} and {MAX_VOLUME_ML:g} mL"
+        )
     return v
 
 
@@ -274,13 +319,15 @@ def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
     """Parse recipe CSV text (see the module docstring for the rules)."""
     rows = csv_rows(text, source)
     if not rows:
-        raise RecipeError(source, "the recipe is empty: expected a header 'tube,<stock>,...' "
-                          "and one row per tube")
+        raise RecipeError(
+            source, "the recipe is empty: expected a header 'tube,<stock>,...' and one row per tube"
+        )
     return _recipe_from_rows(rows, plan, source)
 
 
-def parse_recipe_with_column(text: str, plan: Plan, columns: tuple[str, ...], source: str = "<readings>",
-                             what: str = "an absorbance") -> tuple[Recipe, np.ndarray]:
+def parse_recipe_with_column(
+    text: str, plan: Plan, columns: tuple[str, ...], source: str = "<readings>", what: str = "an absorbance"
+) -> tuple[Recipe, np.ndarray]:
     """A recipe CSV with one more numeric column (e.g. the measured absorbance), by the same rules.
 
     Parameters
@@ -295,8 +342,9 @@ def parse_recipe_with_column(text: str, plan: Plan, columns: tuple[str, ...], so
     """
     rows = csv_rows(text, source)
     if not rows:
-        raise RecipeError(source, f"empty: expected a header 'tube,<stock>,...,{columns[0]}' "
-                          "and one row per tube")
+        raise RecipeError(
+            source, f"empty: expected a header 'tube,<stock>,...,{columns[0]}' and one row per tube"
+        )
     header = [h.strip() for h in rows[0][1]]
     col = next((h for h in header if h in columns), None)
     if col is None:
@@ -314,8 +362,10 @@ def _check_width(row: list[str], width: int, where: str) -> None:
     if len(row) != width:
         hint = ""
         if len(row) > width:
-            hint = ("; a decimal comma? write volumes with a decimal point (1.50, not 1,50), and quote "
-                    "labels that contain commas")
+            hint = (
+                "; a decimal comma? write volumes with a decimal point (1.50, not 1,50), and quote "
+                "labels that contain commas"
+            )
         raise RecipeError(where, f"expected {width} fields, got {len(row)}{hint}")
 
 
@@ -326,8 +376,10 @@ def _recipe_from_rows(rows: list[tuple[int, list[str]]], plan: Plan, source: str
     if header[0].lower() != "tube":
         raise RecipeError(f"{source} header", f"first column must be 'tube', got '{visible(header[0])}'")
     if len(header) == 1:
-        raise RecipeError(f"{source} header", f"only a 'tube' column: add one column per dispensed stock "
-                          f"({', '.join(ids)}), volumes in mL")
+        raise RecipeError(
+            f"{source} header",
+            f"only a 'tube' column: add one column per dispensed stock ({', '.join(ids)}), volumes in mL",
+        )
     for h in header[1:]:
         if h not in ids:
             raise RecipeError(f"{source} column '{visible(h)}'", unknown_name("stock", visible(h), ids))

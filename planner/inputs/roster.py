@@ -16,8 +16,15 @@ from pathlib import Path
 
 from .plan import PlanError
 
-__all__ = ["MAX_FIELD", "MAX_STUDENTS", "Roster", "RosterError", "parse_roster_csv", "read_roster_csv",
-           "roster_of_count"]
+__all__ = [
+    "MAX_FIELD",
+    "MAX_STUDENTS",
+    "Roster",
+    "RosterError",
+    "parse_roster_csv",
+    "read_roster_csv",
+    "roster_of_count",
+]
 
 REQUIRED = ("id", "name")
 OPTIONAL = ("section", "bench")
@@ -57,8 +64,10 @@ class Roster:
     def bench_keys(self) -> tuple[tuple[str, str], ...]:
         """Each student's bench as (section, bench): a bench is set up once per section that meets
         at it; a student without a bench has one of their own."""
-        return tuple((sec, b if b else f"\x00{sid}") for sid, sec, b in
-                     zip(self.ids, self.sections, self.benches, strict=True))
+        return tuple(
+            (sec, b if b else f"\x00{sid}")
+            for sid, sec, b in zip(self.ids, self.sections, self.benches, strict=True)
+        )
 
 
 def _clean(value: str) -> str:
@@ -84,14 +93,22 @@ def parse_roster_csv(text: str, source: str = "<roster>") -> Roster:
     if text.startswith("\ufeff"):
         text = text[1:]
     if not text.strip():
-        raise RosterError(source, "the roster is empty: write a header line 'id,name' and one line per student")
+        raise RosterError(
+            source, "the roster is empty: write a header line 'id,name' and one line per student"
+        )
     first = text.splitlines()[0]
     if ";" in first and "," not in first:
-        raise RosterError(f"{source} row 1", "the columns are separated by semicolons: save the roster as "
-                          "comma-separated CSV (id,name,section,bench)")
+        raise RosterError(
+            f"{source} row 1",
+            "the columns are separated by semicolons: save the roster as "
+            "comma-separated CSV (id,name,section,bench)",
+        )
     if "\t" in first and "," not in first:
-        raise RosterError(f"{source} row 1", "the columns are separated by tabs: save the roster as "
-                          "comma-separated CSV (id,name,section,bench)")
+        raise RosterError(
+            f"{source} row 1",
+            "the columns are separated by tabs: save the roster as "
+            "comma-separated CSV (id,name,section,bench)",
+        )
     try:
         rows = list(csv.reader(io.StringIO(text, newline="")))
     except csv.Error as exc:
@@ -99,12 +116,17 @@ def parse_roster_csv(text: str, source: str = "<roster>") -> Roster:
     header = [_clean(h).lower() for h in rows[0]]
     for col in REQUIRED:
         if col not in header:
-            raise RosterError(f"{source} column '{col}'", f"missing: the header must name the columns "
-                              f"id and name (optional: section, bench); it has {', '.join(header) or 'nothing'}")
+            raise RosterError(
+                f"{source} column '{col}'",
+                f"missing: the header must name the columns "
+                f"id and name (optional: section, bench); it has {', '.join(header) or 'nothing'}",
+            )
     unknown = [h for h in header if h and h not in REQUIRED + OPTIONAL]
     if unknown:
-        raise RosterError(f"{source} column '{unknown[0]}'", "unknown column: use id, name, section and bench "
-                          "(rename or delete the others)")
+        raise RosterError(
+            f"{source} column '{unknown[0]}'",
+            "unknown column: use id, name, section and bench (rename or delete the others)",
+        )
     dup_cols = sorted({h for h in header if h and header.count(h) > 1})
     if dup_cols:
         raise RosterError(f"{source} column '{dup_cols[0]}'", "appears twice in the header: keep one")
@@ -118,24 +140,35 @@ def parse_roster_csv(text: str, source: str = "<roster>") -> Roster:
         if not any(_clean(c) for c in row):
             continue  # blank line
         if len(row) > len(header):
-            raise RosterError(f"{source} row {r}", f"has {len(row)} cells but the header has {len(header)}: "
-                              f"a name with a comma must be quoted (\"Surname, Given\")")
+            raise RosterError(
+                f"{source} row {r}",
+                f"has {len(row)} cells but the header has {len(header)}: "
+                f'a name with a comma must be quoted ("Surname, Given")',
+            )
         cells = {h: (_clean(row[j]) if j < len(row) else "") for h, j in col.items()}
         for h, v in cells.items():
             if len(v) > MAX_FIELD:
-                raise RosterError(f"{source} row {r} column '{h}'", f"{len(v)} characters: shorten it to at "
-                                  f"most {MAX_FIELD}")
+                raise RosterError(
+                    f"{source} row {r} column '{h}'",
+                    f"{len(v)} characters: shorten it to at most {MAX_FIELD}",
+                )
         sid, name = cells["id"], cells["name"]
         if not sid:
             raise RosterError(f"{source} row {r} column 'id'", "empty: give every student an id")
         if len(sid) > ID_MAX or _has_controls(sid):
-            raise RosterError(f"{source} row {r} column 'id'", f"use a plain id of at most {ID_MAX} characters "
-                              "without control or direction characters")
+            raise RosterError(
+                f"{source} row {r} column 'id'",
+                f"use a plain id of at most {ID_MAX} characters without control or direction characters",
+            )
         if not name:
-            raise RosterError(f"{source} row {r} column 'name'", f"empty for id {sid}: write the student's name")
+            raise RosterError(
+                f"{source} row {r} column 'name'", f"empty for id {sid}: write the student's name"
+            )
         if sid in seen:
-            raise RosterError(f"{source} row {r} column 'id'", f"'{sid}' is already used in row {seen[sid]}: "
-                              "give every student a different id")
+            raise RosterError(
+                f"{source} row {r} column 'id'",
+                f"'{sid}' is already used in row {seen[sid]}: give every student a different id",
+            )
         seen[sid] = r
         ids.append(sid)
         names.append(name)

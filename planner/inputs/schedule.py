@@ -58,10 +58,14 @@ def parse_schedule_csv(text: str, source: str = "<schedule>", *, need_absorbance
         raise RecipeError(source, "empty: expected a header 'step,aliquot_mL[,absorbance]'")
     header = [h.strip() for h in rows[0]]
     if header[:2] != ["step", "aliquot_mL"]:
-        raise RecipeError(f"{source} header", f"a titration schedule starts 'step,aliquot_mL'; got '{','.join(header)}'")
+        raise RecipeError(
+            f"{source} header", f"a titration schedule starts 'step,aliquot_mL'; got '{','.join(header)}'"
+        )
     has_a = "absorbance" in header
     if need_absorbance and not has_a:
-        raise RecipeError(f"{source} header", "no absorbance column: add one with the reading after each step")
+        raise RecipeError(
+            f"{source} header", "no absorbance column: add one with the reading after each step"
+        )
     if len(rows) - 1 > MAX_STEPS:
         raise RecipeError(source, f"{len(rows) - 1} steps: at most {MAX_STEPS} are read")
     ja = header.index("absorbance") if has_a else -1
@@ -76,7 +80,9 @@ def parse_schedule_csv(text: str, source: str = "<schedule>", *, need_absorbance
             try:
                 x = float(r[col])
             except ValueError:
-                raise RecipeError(f"{source} line {ln}, {header[col]}", f"'{r[col]}' is not a number") from None
+                raise RecipeError(
+                    f"{source} line {ln}, {header[col]}", f"'{r[col]}' is not a number"
+                ) from None
             if not math.isfinite(x):
                 raise RecipeError(f"{source} line {ln}, {header[col]}", f"'{r[col]}' is not a finite number")
             out.append(x)
@@ -86,7 +92,9 @@ def parse_schedule_csv(text: str, source: str = "<schedule>", *, need_absorbance
         raise RecipeError(source, "no steps: add one row per addition")
     if len(set(steps)) != len(steps):
         raise RecipeError(source, "step labels must be unique")
-    return Schedule(tuple(steps), np.array(vols, dtype=float), np.array(reads, dtype=float) if has_a else None)
+    return Schedule(
+        tuple(steps), np.array(vols, dtype=float), np.array(reads, dtype=float) if has_a else None
+    )
 
 
 def read_schedule_csv(path: str | Path, *, need_absorbance: bool = False) -> Schedule:

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import re
 
-MAX_TEXT = 200       # characters in a title, label, reagent name or formula
+MAX_TEXT = 200  # characters in a title, label, reagent name or formula
 MAX_IDENTIFIER = 40  # characters in a stock id, species name, ion name or tube label
 
 # C0 and C1 control characters (ESC starts terminal escape sequences, OSC 8 makes links), DEL, the
@@ -49,8 +49,10 @@ def check_identifier(text: str, what: str) -> str:
         raise ValueError(f"{what} '{visible(text)}' starts or ends with a space: remove it")
     bad = first_unsafe(text)
     if bad:
-        raise ValueError(f"{what} '{visible(text)}' contains the control or text-direction character {bad}: "
-                         "use letters, digits and punctuation only")
+        raise ValueError(
+            f"{what} '{visible(text)}' contains the control or text-direction character {bad}: "
+            "use letters, digits and punctuation only"
+        )
     if len(text) > MAX_IDENTIFIER:
         raise ValueError(f"{what} is {len(text)} characters long; at most {MAX_IDENTIFIER}: shorten it")
     return text

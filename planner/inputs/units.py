@@ -67,8 +67,10 @@ def parse_quantity(value: object, kind: str) -> float:
     if not isinstance(value, str):
         raise UnitError(f"expected a {kind} such as '{example}', got {value!r}")
     if len(value) > MAX_QUANTITY_CHARS:
-        raise UnitError(f"{value[:20]!r}... is {len(value)} characters long; a {kind} such as '{example}' "
-                        f"needs at most {MAX_QUANTITY_CHARS}")
+        raise UnitError(
+            f"{value[:20]!r}... is {len(value)} characters long; a {kind} such as '{example}' "
+            f"needs at most {MAX_QUANTITY_CHARS}"
+        )
     text = value.strip().replace("µ", "u").replace("μ", "u")
     ureg = _registry()
     try:

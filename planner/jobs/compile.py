@@ -23,15 +23,25 @@ from ..uncertainty import budget as _budget
 from ..uncertainty import catalogue
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
 
-__all__ = ["MAKE_UP_MIN_FRACTION", "build_model", "compile_bench", "compile_study", "error_budget", "expected_state", "make_up_min_mL",
-           "plan_devices", "true_constants"]
+__all__ = [
+    "MAKE_UP_MIN_FRACTION",
+    "build_model",
+    "compile_bench",
+    "compile_study",
+    "error_budget",
+    "expected_state",
+    "make_up_min_mL",
+    "plan_devices",
+    "true_constants",
+]
 
 
 def build_model(plan: Plan) -> Model:
     """Turn a validated plan into arrays (a pure function of the plan)."""
     sp = plan.species
-    stoich = np.array([[s.formula.get("M", 0), s.formula.get("L", 0), s.formula.get("H", 0)] for s in sp],
-                      dtype=int)
+    stoich = np.array(
+        [[s.formula.get("M", 0), s.formula.get("L", 0), s.formula.get("H", 0)] for s in sp], dtype=int
+    )
     comps = plan.components
     charges = np.array([comps.M.charge, comps.L.charge, 1], dtype=float)
     absorbers = ("M", "L", *(s.name for s in sp))
@@ -73,7 +83,9 @@ def build_model(plan: Plan) -> Model:
         display_step=plan.optics.display_step,
         linear_range=tuple(plan.optics.linear_range),
         stock_ids=tuple(s.id for s in plan.stock),
-        stock_conc_M=np.array([[s.conc.get("M", 0.0), s.conc.get("L", 0.0)] for s in plan.stock], dtype=float),
+        stock_conc_M=np.array(
+            [[s.conc.get("M", 0.0), s.conc.get("L", 0.0)] for s in plan.stock], dtype=float
+        ),
         stock_conc_rsd=np.array([s.conc_rsd for s in plan.stock], dtype=float),
         ion_names=tuple(ion_names),
         ion_charges=ion_z,
@@ -82,7 +94,6 @@ def build_model(plan: Plan) -> Model:
         reference_ionic_strength_M=plan.medium.reference_ionic_strength_M,
         temperature_C=plan.temperature_C,
     )
-
 
 
 def plan_devices(plan: Plan) -> Devices:
@@ -98,7 +109,9 @@ def plan_devices(plan: Plan) -> Devices:
         try:
             items.append(catalogue.lookup(d.kind, d.capacity_mL, d.cls, d.tolerance_mL))
         except catalogue.GlasswareError as exc:
-            raise PlanError(f"glassware.dispenser[{j}]", f"{exc}; or give tolerance = '...' to describe it") from None
+            raise PlanError(
+                f"glassware.dispenser[{j}]", f"{exc}; or give tolerance = '...' to describe it"
+            ) from None
     dev = np.full(len(plan.stock), -1, dtype=int)
     for k, s in enumerate(plan.stock):
         for j, d in enumerate(plan.glassware.dispenser):
@@ -112,13 +125,16 @@ def plan_devices(plan: Plan) -> Devices:
         try:
             flask = catalogue.lookup("flask", cap, f.cls if f else "A", f.tolerance_mL if f else None)
         except catalogue.GlasswareError as exc:
-            raise PlanError("glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}") from None
+            raise PlanError(
+                "glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}"
+            ) from None
         if abs(flask.capacity_mL - plan.glassware.tube_volume_mL) > 1e-9 * flask.capacity_mL:
-            raise PlanError("glassware.flask",
-                            f"a {flask.capacity_mL:g} mL flask cannot make up {plan.glassware.tube_volume_mL:g} mL "
-                            f"tubes: make tube_volume and the flask capacity equal")
+            raise PlanError(
+                "glassware.flask",
+                f"a {flask.capacity_mL:g} mL flask cannot make up {plan.glassware.tube_volume_mL:g} mL "
+                f"tubes: make tube_volume and the flask capacity equal",
+            )
     return Devices(tuple(items), dev, flask)
-
 
 
 def compile_bench(plan: Plan) -> Bench:
@@ -139,10 +155,17 @@ def compile_bench(plan: Plan) -> Bench:
         background_id=bg.id if bg is not None else None,
         fixed_mL=dict(plan.design.fixed),
         on_hand_mL=np.array([np.nan if s.on_hand is None else s.on_hand for s in plan.stock], dtype=float),
-        titration=None if plan.titration is None else TitrationSetup(
-            plan.titration.cell, plan.titration.titrant, plan.titration.start_volume_mL,
-            plan.titration.max_volume_mL, plan.titration.step_mL or g.step_mL, plan.titration.additions,
-            plan.titration.equilibrate),
+        titration=None
+        if plan.titration is None
+        else TitrationSetup(
+            plan.titration.cell,
+            plan.titration.titrant,
+            plan.titration.start_volume_mL,
+            plan.titration.max_volume_mL,
+            plan.titration.step_mL or g.step_mL,
+            plan.titration.additions,
+            plan.titration.equilibrate,
+        ),
         make_up_min_mL=make_up_min_mL(plan),
     )
 
@@ -190,14 +213,28 @@ def compile_alternatives(plan: Plan, model: Model) -> tuple[tuple[str, Model], .
     if d.check == "none":
         return ()
     target_eps = float(model.epsilon_M_cm[2 + model.index(plan.target)])
-    listed = [(a.name, (a.formula.get("M", 0), a.formula.get("L", 0), a.formula.get("H", 0)), a.log_beta,
-               target_eps if a.epsilon is None else a.epsilon) for a in d.alternative]
+    listed = [
+        (
+            a.name,
+            (a.formula.get("M", 0), a.formula.get("L", 0), a.formula.get("H", 0)),
+            a.log_beta,
+            target_eps if a.epsilon is None else a.epsilon,
+        )
+        for a in d.alternative
+    ]
     specs = listed or default_alternatives(model, plan.target)
     return tuple((name, with_species(model, name, st, lb, eps)) for name, st, lb, eps in specs)
 
 
-def error_budget(plan: Plan, model: Model, recipe: Recipe, state: TubeState,
-                 devices: Devices | None = None, *, delta_T_C: float | None = None) -> _budget.ErrorBudget:
+def error_budget(
+    plan: Plan,
+    model: Model,
+    recipe: Recipe,
+    state: TubeState,
+    devices: Devices | None = None,
+    *,
+    delta_T_C: float | None = None,
+) -> _budget.ErrorBudget:
     """The error budget of ``recipe`` from a plan (public entry point; see
     :func:`planner.uncertainty.budget.error_budget`, which takes the compiled bench)."""
     bench = compile_bench(plan)

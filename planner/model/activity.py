@@ -90,7 +90,11 @@ def _water_density_kg_m3(temperature_C):
     """Density of air-free water at 1 atm, Kell 1975, J. Chem. Eng. Data 20:97 (0-150 C)."""
     t = temperature_C
     num = (
-        999.83952 + 16.945176 * t - 7.9870401e-3 * t**2 - 46.170461e-6 * t**3 + 105.56302e-9 * t**4
+        999.83952
+        + 16.945176 * t
+        - 7.9870401e-3 * t**2
+        - 46.170461e-6 * t**3
+        + 105.56302e-9 * t**4
         - 280.54253e-12 * t**5
     )
     return num / (1.0 + 16.879850e-3 * t)
@@ -215,9 +219,7 @@ def _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, sizes_
     if zs.shape == (2,):
         zs = np.append(zs, 1.0)  # the proton's charge
     if zs.shape != (3,):
-        raise ValueError(
-            f"charges_MLH must be (z_M, z_L) or (z_M, z_L, z_H); got shape {zs.shape}"
-        )
+        raise ValueError(f"charges_MLH must be (z_M, z_L) or (z_M, z_L, z_H); got shape {zs.shape}")
     z_species = st @ zs
     z_all = np.concatenate([zs, z_species])  # M, L, H, then each species
     I_M = _check_I(I_M)
@@ -258,7 +260,15 @@ def _sizes(sizes_angstrom, S):
 
 
 def log_beta_at_ionic_strength(
-    log_beta0, stoich_pqr, charges_MLH, I_M, model="davies", *, A=None, B=None, temperature_C=25.0,
+    log_beta0,
+    stoich_pqr,
+    charges_MLH,
+    I_M,
+    model="davies",
+    *,
+    A=None,
+    B=None,
+    temperature_C=25.0,
     sizes_angstrom=None,
 ) -> np.ndarray:
     """Convert thermodynamic (I -> 0) constants to a medium of ionic strength I.
@@ -297,7 +307,15 @@ def log_beta_at_ionic_strength(
 
 
 def log_beta_to_zero_ionic_strength(
-    log_beta_I, stoich_pqr, charges_MLH, I_M, model="davies", *, A=None, B=None, temperature_C=25.0,
+    log_beta_I,
+    stoich_pqr,
+    charges_MLH,
+    I_M,
+    model="davies",
+    *,
+    A=None,
+    B=None,
+    temperature_C=25.0,
     sizes_angstrom=None,
 ) -> np.ndarray:
     """The inverse of :func:`log_beta_at_ionic_strength`: constants measured at I back to I -> 0.

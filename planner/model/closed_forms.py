@@ -11,7 +11,6 @@ class EquilibriumError(ValueError):
     """Raised when mass balances cannot be solved: invalid totals or constants, or non-convergence."""
 
 
-
 def _as_int(values, what, error=ValueError):
     arr = np.asarray(values)
     if arr.dtype.kind not in "iu":
@@ -20,14 +19,12 @@ def _as_int(values, what, error=ValueError):
     return arr.astype(np.int64)
 
 
-
 def _where(bad):
     """Readable index list of the bad entries (at most 10)."""
     idx = np.argwhere(np.atleast_1d(bad))
     shown = [tuple(int(i) for i in row) if row.size > 1 else int(row[0]) for row in idx[:10]]
     more = f" and {len(idx) - 10} more" if len(idx) > 10 else ""
     return f"{shown}{more}"
-
 
 
 # ----------------------------------------------------------------------------------------------------

@@ -70,8 +70,10 @@ class Model:
     temperature_C: float
 
     def __repr__(self) -> str:
-        return (f"Model(species={list(self.species)}, stocks={list(self.stock_ids)}, "
-                f"absorbers={[a for a, e in zip(self.absorbers, self.epsilon_M_cm, strict=True) if e > 0]})")
+        return (
+            f"Model(species={list(self.species)}, stocks={list(self.stock_ids)}, "
+            f"absorbers={[a for a, e in zip(self.absorbers, self.epsilon_M_cm, strict=True) if e > 0]})"
+        )
 
     @property
     def stoich_pq(self) -> np.ndarray:
@@ -146,9 +148,15 @@ def tube_ions_M(model: Model, volumes_mL: np.ndarray, total_volume_mL: np.ndarra
     return (volumes_mL @ model.stock_ion_M) / total_volume_mL[..., None]
 
 
-def predict(model: Model, totals: np.ndarray, ion_M: np.ndarray | None = None, *,
-            log_beta: np.ndarray | None = None, epsilon_M_cm: np.ndarray | None = None,
-            warn: bool = True) -> TubeState:
+def predict(
+    model: Model,
+    totals: np.ndarray,
+    ion_M: np.ndarray | None = None,
+    *,
+    log_beta: np.ndarray | None = None,
+    epsilon_M_cm: np.ndarray | None = None,
+    warn: bool = True,
+) -> TubeState:
     """Speciation, ionic strength and absorbance of every tube.
 
     Parameters
@@ -169,27 +177,42 @@ def predict(model: Model, totals: np.ndarray, ion_M: np.ndarray | None = None, *
     lb_tube = np.broadcast_to(lb, totals.shape[:-1] + (len(model.species),))
     if correct:
         lb0 = activity.log_beta_to_zero_ionic_strength(
-            lb, model.stoich, model.charges, model.reference_ionic_strength_M,
-            model=model.activity_model, sizes_angstrom=model.sizes_angstrom, temperature_C=model.temperature_C)
+            lb,
+            model.stoich,
+            model.charges,
+            model.reference_ionic_strength_M,
+            model=model.activity_model,
+            sizes_angstrom=model.sizes_angstrom,
+            temperature_C=model.temperature_C,
+        )
         # start from the ions alone, then iterate I -> constants -> speciation -> I
         I = ionic_strength_M(model, M0, L0, np.zeros(lb_tube.shape), ion_M)
         for _ in range(ACTIVITY_ITERATIONS):
             lb_tube = activity.log_beta_at_ionic_strength(
-                lb0, model.stoich, model.charges, I,
-                model=model.activity_model, sizes_angstrom=model.sizes_angstrom,
-                temperature_C=model.temperature_C)
-            spec = speciation.speciate(M0, L0, model.stoich_pq,
-                                      closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH))
+                lb0,
+                model.stoich,
+                model.charges,
+                I,
+                model=model.activity_model,
+                sizes_angstrom=model.sizes_angstrom,
+                temperature_C=model.temperature_C,
+            )
+            spec = speciation.speciate(
+                M0, L0, model.stoich_pq, closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH)
+            )
             I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
     else:
-        spec = speciation.speciate(M0, L0, model.stoich_pq,
-                                  closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH))
+        spec = speciation.speciate(
+            M0, L0, model.stoich_pq, closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH)
+        )
         I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
     if warn and correct and model.activity_model == "davies" and np.any(I > IONIC_STRENGTH_WARN_M):
         warnings.warn(
             f"ionic strength reaches {float(np.max(I)):.2f} M: the Davies equation is poor above "
             f"{IONIC_STRENGTH_WARN_M} M; treat activity corrections as rough",
-            activity.ActivityWarning, stacklevel=2)
+            activity.ActivityWarning,
+            stacklevel=2,
+        )
     eps = model.epsilon_M_cm if epsilon_M_cm is None else np.asarray(epsilon_M_cm, dtype=float)
     if eps.ndim > 1:
         eps = eps[..., None, :]
@@ -211,7 +234,9 @@ def predict(model: Model, totals: np.ndarray, ion_M: np.ndarray | None = None, *
     )
 
 
-def saturation(model: Model, totals: np.ndarray, species_M: np.ndarray, *, of: str | None = None) -> np.ndarray:
+def saturation(
+    model: Model, totals: np.ndarray, species_M: np.ndarray, *, of: str | None = None
+) -> np.ndarray:
     """Saturation of each tube: the fraction of its limiting reagent bound in M–L complexes.
 
     This is the one definition used by the tube tables, the saturation check and the binding-curve
@@ -239,5 +264,7 @@ def saturation(model: Model, totals: np.ndarray, species_M: np.ndarray, *, of: s
     M0, L0 = totals[..., 0], totals[..., 1]
     metal_limits = M0 <= L0 if of is None else np.full(np.shape(M0), of == "M")
     with np.errstate(invalid="ignore", divide="ignore"):
-        frac = np.where(metal_limits, bound_M / np.where(M0 > 0, M0, 1.0), bound_L / np.where(L0 > 0, L0, 1.0))
+        frac = np.where(
+            metal_limits, bound_M / np.where(M0 > 0, M0, 1.0), bound_L / np.where(L0 > 0, L0, 1.0)
+        )
     return np.where(np.minimum(M0, L0) > 0, np.clip(frac, 0.0, 1.0), 0.0)

@@ -33,12 +33,14 @@ class AbsorbanceDerivatives:
     dA_depsilon: np.ndarray
 
 
-def absorbance_derivatives(model: Model, state: TubeState,
-                           epsilon_M_cm: np.ndarray | None = None) -> AbsorbanceDerivatives:
+def absorbance_derivatives(
+    model: Model, state: TubeState, epsilon_M_cm: np.ndarray | None = None
+) -> AbsorbanceDerivatives:
     """Analytic dA/d(totals, log β, ε) for every tube of ``state``."""
     cond = closed_forms.conditional_log_beta(state.log_beta, model.stoich, model.pH)
-    spec = speciation.Speciation(state.free_M, state.free_L, state.species_M,
-                                state.totals_M[..., 0], state.totals_M[..., 1])
+    spec = speciation.Speciation(
+        state.free_M, state.free_L, state.species_M, state.totals_M[..., 0], state.totals_M[..., 1]
+    )
     sens = sensitivities.sensitivities(spec, model.stoich_pq, cond)
     eps = model.epsilon_M_cm if epsilon_M_cm is None else np.asarray(epsilon_M_cm, dtype=float)
     if eps.ndim > 1:
@@ -56,10 +58,11 @@ def absorbance_derivatives(model: Model, state: TubeState,
     dA_dM = slope * (eps_M * dm_dM + eps_L * dl_dM + np.sum(eps_s * dc_dM, axis=-1))
     dA_dL = slope * (eps_M * dm_dL + eps_L * dl_dL + np.sum(eps_s * dc_dL, axis=-1))
     # d ln c / d log10 β = ln10 · d ln c / d ln β
-    dc_db = state.species_M[..., :, None] * sens.dlnc_dlnbeta * LN10          # (..., n, S, S)
-    dm_db = state.free_M[..., None] * sens.dlnfree_M_dlnbeta * LN10            # (..., n, S)
+    dc_db = state.species_M[..., :, None] * sens.dlnc_dlnbeta * LN10  # (..., n, S, S)
+    dm_db = state.free_M[..., None] * sens.dlnfree_M_dlnbeta * LN10  # (..., n, S)
     dl_db = state.free_L[..., None] * sens.dlnfree_L_dlnbeta * LN10
-    dA_db = slope[..., None] * (eps_M[..., None] * dm_db + eps_L[..., None] * dl_db
-                                + np.einsum("...s,...sj->...j", eps_s, dc_db))
+    dA_db = slope[..., None] * (
+        eps_M[..., None] * dm_db + eps_L[..., None] * dl_db + np.einsum("...s,...sj->...j", eps_s, dc_db)
+    )
     dA_de = slope[..., None] * state.absorber_conc_M()
     return AbsorbanceDerivatives(np.stack([dA_dM, dA_dL], axis=-1), dA_db, dA_de)

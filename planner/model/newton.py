@@ -400,9 +400,14 @@ def _newton(lnb, sy, M, L, x, y):
             t[pending] *= 0.5
             tp = t[pending]
             trial = _state(
-                _take(lnb, pending), sy, xa[pending] + tp * dx[pending], ya[pending] + tp * dy[pending],
-                Mh[pending], Lh[pending],
-                None if fixM is None else fixM[pending], None if fixL is None else fixL[pending],
+                _take(lnb, pending),
+                sy,
+                xa[pending] + tp * dx[pending],
+                ya[pending] + tp * dy[pending],
+                Mh[pending],
+                Lh[pending],
+                None if fixM is None else fixM[pending],
+                None if fixL is None else fixL[pending],
             )
             good = np.flatnonzero(trial[9] <= psi[pending] * (1.0 - 2.0 * _ARMIJO * tp))
             gi = pending[good]

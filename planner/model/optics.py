@@ -64,8 +64,9 @@ def stray_light_limit(stray_fraction: float, deviation: float = 0.01) -> float:
     return 0.5 * (lo + hi)
 
 
-def photometric_sd(absorbance: np.ndarray, k1: float, k2: float = 0.0, k3: float = 0.0,
-                   display_step: float = 0.0) -> np.ndarray:
+def photometric_sd(
+    absorbance: np.ndarray, k1: float, k2: float = 0.0, k3: float = 0.0, display_step: float = 0.0
+) -> np.ndarray:
     """Standard deviation of one absorbance reading.
 
     σ_A² = 0.4343² [k1² 10^(2A) + k2² (1 + 10^A) + k3²] + (display_step/√12)²
@@ -73,7 +74,7 @@ def photometric_sd(absorbance: np.ndarray, k1: float, k2: float = 0.0, k3: float
     k1: readout/dark noise (σ_T constant); k2: shot noise; k3: flicker / cell positioning (σ_T ∝ T).
     """
     a = np.asarray(absorbance, dtype=float)
-    p = 10.0 ** a
+    p = 10.0**a
     var = LOG10E**2 * (k1**2 * p**2 + k2**2 * (1.0 + p) + k3**2) + display_step**2 / 12.0
     return np.sqrt(var)
 

@@ -1,5 +1,4 @@
-"""Analytic derivatives of the equilibrium (implicit function theorem), batched over tubes.
-"""
+"""Analytic derivatives of the equilibrium (implicit function theorem), batched over tubes."""
 
 from __future__ import annotations
 
@@ -65,8 +64,6 @@ class Sensitivity:
 
     def __repr__(self) -> str:
         return f"Sensitivity(batch shape {np.shape(self.dlnfree_M_dMtot)}, {np.shape(self.dc_dMtot)[-1]} species)"
-
-
 
 
 def sensitivities(spec: Speciation, stoich_pq, log_beta_cond) -> Sensitivity:

@@ -78,7 +78,6 @@ class Speciation:
         return f"Speciation(batch shape {shape}, {n_species} species)"
 
 
-
 # General solver
 
 
@@ -149,7 +148,6 @@ def speciate(M_tot_M, L_tot_M, stoich_pq, log_beta_cond) -> Speciation:
     )
 
 
-
 def _as_stoich_pq(stoich_pq):
     st = np.asarray(stoich_pq)
     if st.ndim != 2 or st.shape[1] != 2 or st.shape[0] == 0:
@@ -160,7 +158,9 @@ def _as_stoich_pq(stoich_pq):
     if np.any(st < 0):
         raise EquilibriumError(f"stoich_pq entries must be >= 0; got rows {st[(st < 0).any(1)].tolist()}")
     if np.any(st.sum(1) == 0):
-        raise EquilibriumError("a species with p = q = 0 contains neither M nor L; remove that row of stoich_pq")
+        raise EquilibriumError(
+            "a species with p = q = 0 contains neither M nor L; remove that row of stoich_pq"
+        )
     return st[:, 0].astype(float), st[:, 1].astype(float)
 
 

@@ -12,8 +12,9 @@ from .compiled import Model
 DEFAULT_SIZE_ANGSTROM = 4.0  # Å, as for the plan's own species without a size [common practice]
 
 
-def with_species(model: Model, name: str, stoich: tuple[int, int, int], log_beta: float,
-                 epsilon_M_cm: float) -> Model:
+def with_species(
+    model: Model, name: str, stoich: tuple[int, int, int], log_beta: float, epsilon_M_cm: float
+) -> Model:
     """``model`` with one more species M_p L_q H_r (its constant held at ``log_beta``, not fitted).
 
     Parameters

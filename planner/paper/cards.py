@@ -32,15 +32,25 @@ from .sheets import (
 )
 from .workbook import stable_xlsx
 
-__all__ = ["KEY_COLUMNS", "cards_document", "key_csv", "key_document", "key_rows", "key_xlsx",
-           "stocks_csv", "stocks_document"]
+__all__ = [
+    "KEY_COLUMNS",
+    "cards_document",
+    "key_csv",
+    "key_document",
+    "key_rows",
+    "key_xlsx",
+    "stocks_csv",
+    "stocks_document",
+]
 
 KEY_COLUMNS = ("student", "name", "section", "tube")  # then one column per stock, then the three below
 KEY_TAIL = ("absorbance", "band_low", "band_high")
 BAND_SD = 2.0  # acceptance band: ±2 sd of the full error budget [common practice: ~95 % coverage]
 NAME_MAX = 48  # characters of roster text printed on a page (the CSV and the workbook keep it whole)
-UNKNOWN_HAZARD = ("no hazard data on this card: read the supplier's safety data sheet and ask your "
-                  "instructor before you use it")
+UNKNOWN_HAZARD = (
+    "no hazard data on this card: read the supplier's safety data sheet and ask your "
+    "instructor before you use it"
+)
 
 
 def short(text: str, limit: int = NAME_MAX) -> str:
@@ -72,17 +82,28 @@ def _student_safety(plan: Plan) -> dict:
         if hz is None:
             cards.append({"name": r.name, "known": False, "message": UNKNOWN_HAZARD})
             continue
-        cards.append({
-            "name": hz.name, "known": True, "formula": pretty_formula(hz.formula),
-            "signal": hz.signal_word or "not classified",
-            "pictograms": [f"{p} {safety.PICTOGRAMS[p]}" for p in hz.pictograms],
-            "statements": [f"{c} {t}" for c, t in hz.statements()],
-            "ppe": list(hz.ppe), "waste": hz.waste, "incompatible": list(hz.incompatible),
-        })
+        cards.append(
+            {
+                "name": hz.name,
+                "known": True,
+                "formula": pretty_formula(hz.formula),
+                "signal": hz.signal_word or "not classified",
+                "pictograms": [f"{p} {safety.PICTOGRAMS[p]}" for p in hz.pictograms],
+                "statements": [f"{c} {t}" for c, t in hz.statements()],
+                "ppe": list(hz.ppe),
+                "waste": hz.waste,
+                "incompatible": list(hz.incompatible),
+            }
+        )
         if hz.cmr:
             cmr.append(hz.name)
-    return {"cards": cards, "cmr": cmr, "cautions": list(safety.GENERAL_CAUTIONS), "always": safety.ALWAYS,
-            "clashes": [c.advice for c in safety.clashes(safety.hazards_for(plan))]}
+    return {
+        "cards": cards,
+        "cmr": cmr,
+        "cautions": list(safety.GENERAL_CAUTIONS),
+        "always": safety.ALWAYS,
+        "clashes": [c.advice for c in safety.clashes(safety.hazards_for(plan))],
+    }
 
 
 def _card_shared(plan: Plan, cards) -> dict:
@@ -95,22 +116,35 @@ def _card_shared(plan: Plan, cards) -> dict:
     for sid in seq:
         s = plan.stock_by_id(sid)
         d = plan.dispenser_for(sid)
-        stocks.append({"id": sid, "label": s.label, "dispenser": _dispenser_text(d) if d else "as your instructor shows"})
+        stocks.append(
+            {
+                "id": sid,
+                "label": s.label,
+                "dispenser": _dispenser_text(d) if d else "as your instructor shows",
+            }
+        )
     if to_mark:
         dil = plan.diluent
-        stocks.append({"id": dil.id, "label": dil.label, "dispenser": "wash bottle, to the mark of each flask"})
+        stocks.append(
+            {"id": dil.id, "label": dil.label, "dispenser": "wash bottle, to the mark of each flask"}
+        )
     return {
         "title": plan.title,
         "facts": [
             ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"),
             ("Cuvette path", f"{fmt.fixed(o.path_cm, 0.001)} cm"),
-            ("Tubes", f"{rec0.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL"
-                      + (" volumetric flasks" if to_mark else ", every volume added")),
+            (
+                "Tubes",
+                f"{rec0.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL"
+                + (" volumetric flasks" if to_mark else ", every volume added"),
+            ),
         ],
         "seq": seq,
         "stocks": stocks,
-        "columns": [{"id": sid, "how": _dispenser_text(plan.dispenser_for(sid)) if plan.dispenser_for(sid) else ""}
-                    for sid in seq],
+        "columns": [
+            {"id": sid, "how": _dispenser_text(plan.dispenser_for(sid)) if plan.dispenser_for(sid) else ""}
+            for sid in seq
+        ],
         "makeup": f"{plan.diluent.id} to the mark" if to_mark else None,
         "step_text": fmt.sig(g.step_mL, 1),
         "checklist": checklist(plan, blank_name),
@@ -128,11 +162,26 @@ def cards_context(plan: Plan, cs, *, paper: str = "A4") -> dict:
     cards = []
     for c in drafts:
         steps = addition_steps(plan, c.recipe, shared["seq"], custom=shared["custom_order"])
-        rows = [{"tube": t, "cells": [("—" if c.recipe.column(sid)[i] == 0 else fmt.volume(c.recipe.column(sid)[i], step))
-                                       for sid in shared["seq"]]}
-                for i, t in enumerate(c.recipe.tubes)]
-        cards.append({"student": short(c.student), "name": short(c.name), "section": short(c.section),
-                      "bench": short(c.bench), "steps": [{"text": s.text, "why": s.why} for s in steps], "rows": rows})
+        rows = [
+            {
+                "tube": t,
+                "cells": [
+                    ("—" if c.recipe.column(sid)[i] == 0 else fmt.volume(c.recipe.column(sid)[i], step))
+                    for sid in shared["seq"]
+                ],
+            }
+            for i, t in enumerate(c.recipe.tubes)
+        ]
+        cards.append(
+            {
+                "student": short(c.student),
+                "name": short(c.name),
+                "section": short(c.section),
+                "bench": short(c.bench),
+                "steps": [{"text": s.text, "why": s.why} for s in steps],
+                "rows": rows,
+            }
+        )
     return {"kind": "cards", "paper": paper, **shared, "cards": cards}
 
 
@@ -174,9 +223,18 @@ def key_rows(plan: Plan, cs: ClassSet) -> list[dict]:
     for c in cs.cards:
         for t in c.assessment.tube_rows():
             a, sd = t["absorbance"], t["absorbance_sd"]
-            rows.append({"student": c.student, "name": c.name, "section": c.section, "tube": t["tube"],
-                         "volumes_mL": t["volumes_mL"], "absorbance": a, "band_low": a - BAND_SD * sd,
-                         "band_high": a + BAND_SD * sd})
+            rows.append(
+                {
+                    "student": c.student,
+                    "name": c.name,
+                    "section": c.section,
+                    "tube": t["tube"],
+                    "volumes_mL": t["volumes_mL"],
+                    "absorbance": a,
+                    "band_low": a - BAND_SD * sd,
+                    "band_high": a + BAND_SD * sd,
+                }
+            )
     return rows
 
 
@@ -192,9 +250,18 @@ def key_csv(plan: Plan, cs: ClassSet) -> str:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow([*KEY_COLUMNS, *ids, *KEY_TAIL])
     for r in key_rows(plan, cs):
-        w.writerow([_csv_safe(r["student"]), _csv_safe(r["name"]), _csv_safe(r["section"]), r["tube"],
-                    *(f"{r['volumes_mL'][s]:.4f}" for s in ids),
-                    f"{r['absorbance']:.4f}", f"{r['band_low']:.4f}", f"{r['band_high']:.4f}"])
+        w.writerow(
+            [
+                _csv_safe(r["student"]),
+                _csv_safe(r["name"]),
+                _csv_safe(r["section"]),
+                r["tube"],
+                *(f"{r['volumes_mL'][s]:.4f}" for s in ids),
+                f"{r['absorbance']:.4f}",
+                f"{r['band_low']:.4f}",
+                f"{r['band_high']:.4f}",
+            ]
+        )
     return buf.getvalue()
 
 
@@ -210,9 +277,18 @@ def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
     ws.title = "key"
     ws.append([*KEY_COLUMNS, *ids, *KEY_TAIL])
     for r in key_rows(plan, cs):
-        ws.append([r["student"], r["name"], r["section"], r["tube"],
-                   *(round(r["volumes_mL"][s], 4) for s in ids),
-                   round(r["absorbance"], 4), round(r["band_low"], 4), round(r["band_high"], 4)])
+        ws.append(
+            [
+                r["student"],
+                r["name"],
+                r["section"],
+                r["tube"],
+                *(round(r["volumes_mL"][s], 4) for s in ids),
+                round(r["absorbance"], 4),
+                round(r["band_low"], 4),
+                round(r["band_high"], 4),
+            ]
+        )
     for row in ws.iter_rows(min_row=2, max_col=3):  # names as text, never formulas
         for cell in row:
             cell.data_type = "s"
@@ -234,19 +310,40 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
         cells = []
         for t in c.assessment.tube_rows():
             a, sd = t["absorbance"], t["absorbance_sd"]
-            cells.append({"a": fmt.fixed(a, 0.001),
-                          "band": f"{fmt.fixed(a - BAND_SD * sd, 0.001)}–{fmt.fixed(a + BAND_SD * sd, 0.001)}"})
-        students.append({"student": short(c.student), "name": short(c.name, 40), "section": short(c.section, 20),
-                         "bench": short(c.bench, 20),
-                         "se": fmt.sig(c.assessment.target_se, 2), "verdict": c.assessment.verdict or "—",
-                         "passes": c.passes, "problems": c.problems, "cells": cells})
+            cells.append(
+                {
+                    "a": fmt.fixed(a, 0.001),
+                    "band": f"{fmt.fixed(a - BAND_SD * sd, 0.001)}–{fmt.fixed(a + BAND_SD * sd, 0.001)}",
+                }
+            )
+        students.append(
+            {
+                "student": short(c.student),
+                "name": short(c.name, 40),
+                "section": short(c.section, 20),
+                "bench": short(c.bench, 20),
+                "se": fmt.sig(c.assessment.target_se, 2),
+                "verdict": c.assessment.verdict or "—",
+                "passes": c.passes,
+                "problems": c.problems,
+                "cells": cells,
+            }
+        )
     rows = [
         ("one student, this class's median card", se["cards_median"], None),
         ("one student, the best single recipe", se["best_single"], None),
         ("one student, the evenly spaced series", se["even_single"], None),
         (f"the whole class pooled ({len(cs.cards)} cards, stocks shared)", se["pooled"], None),
-        (f"{len(cs.cards)} copies of the best single recipe", se["pooled_best_copies"], se["pooled_best_copies"] / se["pooled"]),
-        (f"{len(cs.cards)} copies of the evenly spaced series", se["pooled_even_copies"], se["pooled_even_copies"] / se["pooled"]),
+        (
+            f"{len(cs.cards)} copies of the best single recipe",
+            se["pooled_best_copies"],
+            se["pooled_best_copies"] / se["pooled"],
+        ),
+        (
+            f"{len(cs.cards)} copies of the evenly spaced series",
+            se["pooled_even_copies"],
+            se["pooled_even_copies"] / se["pooled"],
+        ),
         ("the class pooled, each section making its own stocks", se["pooled_stock_per_section"], None),
         ("the class pooled, stock errors left out (stocks standardised)", se["pooled_without_stock"], None),
     ]
@@ -263,20 +360,36 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
     for s in stocks:
         st = plan.stock_by_id(s.id)
         if s.preparation is not None and st.conc_rsd < s.preparation.u_rel * 0.999:
-            notes.append(f"stock {s.id}: the weighing gives u = {fmt.percent(s.preparation.u_rel)} but the plan "
-                         f"assumes conc_rsd = {fmt.percent(st.conc_rsd)}: raise conc_rsd or standardise the stock")
+            notes.append(
+                f"stock {s.id}: the weighing gives u = {fmt.percent(s.preparation.u_rel)} but the plan "
+                f"assumes conc_rsd = {fmt.percent(st.conc_rsd)}: raise conc_rsd or standardise the stock"
+            )
         if s.enough is False:
-            notes.append(f"stock {s.id}: the class needs {fmt.fixed(s.total_mL, 0.1)} mL but on_hand is "
-                         f"{fmt.sig(s.on_hand_mL, 3)} mL: make {fmt.fixed(s.shortfall_mL, 0.1)} mL more "
-                         f"(or raise on_hand in the plan)")
+            notes.append(
+                f"stock {s.id}: the class needs {fmt.fixed(s.total_mL, 0.1)} mL but on_hand is "
+                f"{fmt.sig(s.on_hand_mL, 3)} mL: make {fmt.fixed(s.shortfall_mL, 0.1)} mL more "
+                f"(or raise on_hand in the plan)"
+            )
     return {
-        "kind": "key", "paper": paper, "title": plan.title, "target": cs.target,
-        "goal": fmt.sig(cs.goal_se, 2), "seed": cs.seed, "n": n, "count": len(cs.cards),
-        "sound": cs.sound, "passing": sum(c.passes for c in cs.cards),
+        "kind": "key",
+        "paper": paper,
+        "title": plan.title,
+        "target": cs.target,
+        "goal": fmt.sig(cs.goal_se, 2),
+        "seed": cs.seed,
+        "n": n,
+        "count": len(cs.cards),
+        "sound": cs.sound,
+        "passing": sum(c.passes for c in cs.cards),
         "jitter": f"±{cs.radius_steps} grid step(s) (±{fmt.sig(cs.radius_steps * cs.step_mL, 2)} mL)",
-        "se_rows": [(label, fmt.sig(v, 2), fmt.sig(r, 3) if r is not None else "") for label, v, r in se_rows_filter(rows)],
+        "se_rows": [
+            (label, fmt.sig(v, 2), fmt.sig(r, 3) if r is not None else "")
+            for label, v, r in se_rows_filter(rows)
+        ],
         "efficiency": fmt.percent((se["pooled_best_copies"] / se["pooled"]) ** 2, 3),
-        "notes": notes, "students": students, "tubes": [f"T{i + 1}" for i in range(n)],
+        "notes": notes,
+        "students": students,
+        "tubes": [f"T{i + 1}" for i in range(n)],
     }
 
 
@@ -284,8 +397,9 @@ def se_rows_filter(rows):
     return [r for r in rows if r[1] is not None]
 
 
-def key_document(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4",
-                 fmt_: str = "pdf") -> bytes:
+def key_document(
+    plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
+) -> bytes:
     """``key.pdf``: the instructor's key."""
     _check(paper, fmt_)
     return _out(render_html("key.html.j2", key_context(plan, cs, stocks, paper=paper)), fmt_)
@@ -302,13 +416,19 @@ def _how(plan: Plan, s: ClassStock) -> list[str]:
             return [s.problem]
         return ["make up as its description says (no formula in the plan, so no mass is computed)"]
     times = f"{s.batches} × " if s.batches > 1 else ""
-    lines = [f"{times}weigh {fmt.mass(p.mass_g, g.balance.readability_g)} of {pretty_formula(p.formula)} "
-             f"(M = {fmt.sig(p.formula_weight_g_mol, 5)} g/mol) and make up to the mark of a {p.weighed_flask.label}"]
+    lines = [
+        f"{times}weigh {fmt.mass(p.mass_g, g.balance.readability_g)} of {pretty_formula(p.formula)} "
+        f"(M = {fmt.sig(p.formula_weight_g_mol, 5)} g/mol) and make up to the mark of a {p.weighed_flask.label}"
+    ]
     for st in p.steps:
-        lines.append(f"pipette {fmt.sig(st.pipette.capacity_mL, 3)} mL into a {st.flask.label} and make up to the mark")
+        lines.append(
+            f"pipette {fmt.sig(st.pipette.capacity_mL, 3)} mL into a {st.flask.label} and make up to the mark"
+        )
     if p.mass_g < p.min_weight_g:
-        lines.append(f"{fmt.mass(p.mass_g, g.balance.readability_g)} is below the balance's minimum weight "
-                     f"(USP <41>): weigh more into a larger flask and dilute")
+        lines.append(
+            f"{fmt.mass(p.mass_g, g.balance.readability_g)} is below the balance's minimum weight "
+            f"(USP <41>): weigh more into a larger flask and dilute"
+        )
     return lines
 
 
@@ -318,34 +438,71 @@ def stocks_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, 
     rows = []
     for s in stocks:
         made = (s.preparation.flask.capacity_mL * s.batches) if s.preparation else None
-        rows.append({
-            "id": s.id, "label": s.label, "tubes": fmt.fixed(s.tubes_mL, 0.1), "benches": s.benches,
-            "allowance": fmt.fixed(s.allowance_mL, 0.1), "total": fmt.fixed(s.total_mL, 0.1),
-            "made": f"{fmt.sig(made, 4)} mL" if made else "—",
-            "on_hand": f"{fmt.sig(s.on_hand_mL, 4)} mL" if s.on_hand_mL is not None else "—",
-            "enough": s.enough, "short": fmt.fixed(s.shortfall_mL, 0.1),
-            "how": _how(plan, s),
-            "sections": [{"name": name or "—", "tubes": fmt.fixed(v, 0.1), "benches": b, "total": fmt.fixed(t, 0.1),
-                          "weigh": None if sp is None else
-                          (f"{sp[1]} × " if sp[1] > 1 else "") + f"{fmt.mass(sp[0].mass_g, g.balance.readability_g)} "
-                          f"in {sp[0].flask.capacity_mL:g} mL"}
-                         for (name, v, b, t), sp in zip(s.sections, s.section_preparations or (None,) * len(s.sections),
-                                                        strict=True)],
-        })
-    return {"kind": "stocks", "paper": paper, "title": plan.title, "count": len(cs.cards),
-            "rinse": fmt.sig(g.rinse_mL, 3), "dead": fmt.sig(g.dead_volume_mL, 3), "rows": rows,
-            "sections": [s or "—" for s in sections], "many_sections": len(sections) > 1}
+        rows.append(
+            {
+                "id": s.id,
+                "label": s.label,
+                "tubes": fmt.fixed(s.tubes_mL, 0.1),
+                "benches": s.benches,
+                "allowance": fmt.fixed(s.allowance_mL, 0.1),
+                "total": fmt.fixed(s.total_mL, 0.1),
+                "made": f"{fmt.sig(made, 4)} mL" if made else "—",
+                "on_hand": f"{fmt.sig(s.on_hand_mL, 4)} mL" if s.on_hand_mL is not None else "—",
+                "enough": s.enough,
+                "short": fmt.fixed(s.shortfall_mL, 0.1),
+                "how": _how(plan, s),
+                "sections": [
+                    {
+                        "name": name or "—",
+                        "tubes": fmt.fixed(v, 0.1),
+                        "benches": b,
+                        "total": fmt.fixed(t, 0.1),
+                        "weigh": None
+                        if sp is None
+                        else (f"{sp[1]} × " if sp[1] > 1 else "")
+                        + f"{fmt.mass(sp[0].mass_g, g.balance.readability_g)} "
+                        f"in {sp[0].flask.capacity_mL:g} mL",
+                    }
+                    for (name, v, b, t), sp in zip(
+                        s.sections, s.section_preparations or (None,) * len(s.sections), strict=True
+                    )
+                ],
+            }
+        )
+    return {
+        "kind": "stocks",
+        "paper": paper,
+        "title": plan.title,
+        "count": len(cs.cards),
+        "rinse": fmt.sig(g.rinse_mL, 3),
+        "dead": fmt.sig(g.dead_volume_mL, 3),
+        "rows": rows,
+        "sections": [s or "—" for s in sections],
+        "many_sections": len(sections) > 1,
+    }
 
 
-def stocks_document(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4",
-                    fmt_: str = "pdf") -> bytes:
+def stocks_document(
+    plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
+) -> bytes:
     """``stocks.pdf``: the class stock list."""
     _check(paper, fmt_)
     return _out(render_html("class_stocks.html.j2", stocks_context(plan, cs, stocks, paper=paper)), fmt_)
 
 
-STOCK_COLUMNS = ("stock", "scope", "tubes_mL", "benches", "allowance_mL", "total_mL", "on_hand_mL", "enough",
-                 "mass_g", "flask_mL", "batches")
+STOCK_COLUMNS = (
+    "stock",
+    "scope",
+    "tubes_mL",
+    "benches",
+    "allowance_mL",
+    "total_mL",
+    "on_hand_mL",
+    "enough",
+    "mass_g",
+    "flask_mL",
+    "batches",
+)
 
 
 def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
@@ -357,16 +514,37 @@ def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
     w.writerow(STOCK_COLUMNS)
     for s in stocks:
         p = s.preparation
-        w.writerow([s.id, "class", f"{s.tubes_mL:.2f}", s.benches, f"{s.allowance_mL:.2f}", f"{s.total_mL:.2f}",
-                    "" if s.on_hand_mL is None else f"{s.on_hand_mL:.2f}",
-                    "" if s.enough is None else ("yes" if s.enough else "no"),
-                    "" if p is None else f"{p.mass_g:.4f}", "" if p is None else f"{p.flask.capacity_mL:g}",
-                    s.batches if p is not None else ""])
+        w.writerow(
+            [
+                s.id,
+                "class",
+                f"{s.tubes_mL:.2f}",
+                s.benches,
+                f"{s.allowance_mL:.2f}",
+                f"{s.total_mL:.2f}",
+                "" if s.on_hand_mL is None else f"{s.on_hand_mL:.2f}",
+                "" if s.enough is None else ("yes" if s.enough else "no"),
+                "" if p is None else f"{p.mass_g:.4f}",
+                "" if p is None else f"{p.flask.capacity_mL:g}",
+                s.batches if p is not None else "",
+            ]
+        )
     for s in stocks:
         preps = s.section_preparations or (None,) * len(s.sections)
         for (name, v, b, t), sp in zip(s.sections, preps, strict=True):
-            w.writerow([s.id, f"section {_csv_safe(name)}" if name else "section", f"{v:.2f}", b,
-                        f"{b * allow:.2f}", f"{t:.2f}", "", "",
-                        "" if sp is None else f"{sp[0].mass_g:.4f}", "" if sp is None else f"{sp[0].flask.capacity_mL:g}",
-                        "" if sp is None else sp[1]])
+            w.writerow(
+                [
+                    s.id,
+                    f"section {_csv_safe(name)}" if name else "section",
+                    f"{v:.2f}",
+                    b,
+                    f"{b * allow:.2f}",
+                    f"{t:.2f}",
+                    "",
+                    "",
+                    "" if sp is None else f"{sp[0].mass_g:.4f}",
+                    "" if sp is None else f"{sp[0].flask.capacity_mL:g}",
+                    "" if sp is None else sp[1],
+                ]
+            )
     return buf.getvalue()

@@ -27,8 +27,8 @@ __all__ = [
 WIDTH_IN, HEIGHT_IN = 3.45, 2.45  # two figures side by side on A4 or Letter
 INK, ACCENT, BAND, WARN = "#1f2933", "#1d5fa7", "#dbe7f3", "#b42318"
 _RC = {
-    "svg.fonttype": "none",        # text stays text: small files, searchable PDFs
-    "svg.hashsalt": "kplan",       # ids from a fixed salt: same input, same bytes
+    "svg.fonttype": "none",  # text stays text: small files, searchable PDFs
+    "svg.hashsalt": "kplan",  # ids from a fixed salt: same input, same bytes
     "font.family": "DejaVu Sans",
     "font.size": 7.5,
     "axes.titlesize": 8.0,
@@ -68,7 +68,7 @@ def _svg(fig, prefix: str) -> str:
         fig.tight_layout(pad=0.4)
         fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
     text = buf.getvalue()
-    text = text[text.index("<svg"):]
+    text = text[text.index("<svg") :]
     text = re.sub(r'\bid="([^"]+)"', rf'id="{prefix}-\1"', text)
     text = re.sub(r"url\(#([^)]+)\)", rf"url(#{prefix}-\1)", text)
     text = re.sub(r'xlink:href="#([^"]+)"', rf'xlink:href="#{prefix}-\1"', text)
@@ -100,12 +100,34 @@ def absorbance_svg(tubes: list[dict], linear_range: tuple[float, float], *, pref
     inside = (a >= lo) & (a <= hi)
 
     def paint(fig, ax):
-        ax.axhspan(lo, hi, color=BAND, lw=0, label=f"linear range {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}")
-        ax.errorbar(x[inside], a[inside], yerr=2 * sd[inside], fmt="o", ms=3.5, color=ACCENT, ecolor=ACCENT,
-                    elinewidth=0.9, capsize=2, label="expected A ± 2 sd")
+        ax.axhspan(
+            lo, hi, color=BAND, lw=0, label=f"linear range {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"
+        )
+        ax.errorbar(
+            x[inside],
+            a[inside],
+            yerr=2 * sd[inside],
+            fmt="o",
+            ms=3.5,
+            color=ACCENT,
+            ecolor=ACCENT,
+            elinewidth=0.9,
+            capsize=2,
+            label="expected A ± 2 sd",
+        )
         if (~inside).any():
-            ax.errorbar(x[~inside], a[~inside], yerr=2 * sd[~inside], fmt="s", ms=3.5, color=WARN,
-                        ecolor=WARN, elinewidth=0.9, capsize=2, label="outside the range")
+            ax.errorbar(
+                x[~inside],
+                a[~inside],
+                yerr=2 * sd[~inside],
+                fmt="s",
+                ms=3.5,
+                color=WARN,
+                ecolor=WARN,
+                elinewidth=0.9,
+                capsize=2,
+                label="outside the range",
+            )
         ax.set_xticks(x, labels, rotation=0 if len(x) <= 12 else 90)
         top = max(hi, float(np.max(a + 2 * sd))) if a.size else hi
         ax.set_ylim(0, top * 1.08)
@@ -138,8 +160,14 @@ def binding_svg(curve: BindingCurve, names: dict[str, str] | None = None, *, pre
             ok = ln.free_excess_M > 0
             tots = sorted(ln.totals_M)
             at = fmt.conc(tots[0]) if len(tots) == 1 else f"{fmt.conc(tots[0])}–{fmt.conc(tots[-1])}"
-            ax.plot(ln.free_excess_M[ok], ln.saturation[ok], color=INK, lw=1.1, ls=styles[k % len(styles)],
-                    label=_plain(f"{names[ln.limiting]} limiting, {at}"))
+            ax.plot(
+                ln.free_excess_M[ok],
+                ln.saturation[ok],
+                color=INK,
+                lw=1.1,
+                ls=styles[k % len(styles)],
+                label=_plain(f"{names[ln.limiting]} limiting, {at}"),
+            )
         points = _replicate_points(curve)
         if points:
             xs = np.array([p[0] for p in points])
@@ -218,7 +246,11 @@ def place_labels(centres_pt: np.ndarray, labels: list[str], width_pt: float, hei
             x0 = cx + dx if dx >= 0 else cx + dx - width
             box = (x0, cy + dy, x0 + width, cy + dy + LABEL_PT)
             inside = box[0] >= 0 and box[2] <= width_pt and box[1] >= 0 and box[3] <= height_pt
-            if inside and not clash(box, [c[2] for c in placed.values()]) and not clash(box, marks[:i] + marks[i + 1:]):
+            if (
+                inside
+                and not clash(box, [c[2] for c in placed.values()])
+                and not clash(box, marks[:i] + marks[i + 1 :])
+            ):
                 choice = (dx, dy, box)
                 break
         if choice is None:
@@ -233,18 +265,28 @@ def _label_points(fig, ax, points) -> None:
     pos = ax.get_position()
     w_pt, h_pt = pos.width * fig.get_figwidth() * 72, pos.height * fig.get_figheight() * 72
     to_axes = ax.transData + ax.transAxes.inverted()
-    centres = to_axes.transform(np.array([[x, y] for x, y, _ in points])) * [w_pt, h_pt]   # in points
-    for (x, y, label), (dx, dy, _box) in zip(points, place_labels(centres, [p[2] for p in points], w_pt, h_pt),
-                                               strict=True):
-        ax.annotate(label, (x, y), xytext=(dx, dy), textcoords="offset points", fontsize=LABEL_PT,
-                    color="#52606d", ha="left" if dx >= 0 else "right", va="bottom")
+    centres = to_axes.transform(np.array([[x, y] for x, y, _ in points])) * [w_pt, h_pt]  # in points
+    for (x, y, label), (dx, dy, _box) in zip(
+        points, place_labels(centres, [p[2] for p in points], w_pt, h_pt), strict=True
+    ):
+        ax.annotate(
+            label,
+            (x, y),
+            xytext=(dx, dy),
+            textcoords="offset points",
+            fontsize=LABEL_PT,
+            color="#52606d",
+            ha="left" if dx >= 0 else "right",
+            va="bottom",
+        )
 
 
 # --------------------------------------------------------------------------------------------------
 # Monte Carlo against Cramér–Rao
 # --------------------------------------------------------------------------------------------------
-def mc_histogram_svg(estimates: np.ndarray, true: float, se: float, *, name: str = "log K",
-                     prefix: str = "fm") -> str:
+def mc_histogram_svg(
+    estimates: np.ndarray, true: float, se: float, *, name: str = "log K", prefix: str = "fm"
+) -> str:
     """Histogram of the Monte-Carlo estimates with the Cramér–Rao normal density N(true, se²) over it.
 
     The Cramér–Rao bound is the asymptotic covariance of an efficient estimator [source: Cramér
@@ -257,13 +299,24 @@ def mc_histogram_svg(estimates: np.ndarray, true: float, se: float, *, name: str
     def paint(fig, ax):
         if est.size:
             bins = int(np.clip(np.sqrt(est.size), 10, 40))
-            ax.hist(est, bins=bins, density=True, color=BAND, edgecolor=ACCENT, lw=0.5,
-                    label=f"Monte Carlo ({est.size} fits)")
+            ax.hist(
+                est,
+                bins=bins,
+                density=True,
+                color=BAND,
+                edgecolor=ACCENT,
+                lw=0.5,
+                label=f"Monte Carlo ({est.size} fits)",
+            )
         if np.isfinite(se) and se > 0:
             span = max(4 * se, float(np.max(np.abs(est - true))) if est.size else 0.0)
             x = np.linspace(true - span, true + span, 300)
-            ax.plot(x, np.exp(-0.5 * ((x - true) / se) ** 2) / (se * np.sqrt(2 * np.pi)), color=INK,
-                    label=f"Cramér–Rao, SE {fmt.sig(se, 2)}")
+            ax.plot(
+                x,
+                np.exp(-0.5 * ((x - true) / se) ** 2) / (se * np.sqrt(2 * np.pi)),
+                color=INK,
+                label=f"Cramér–Rao, SE {fmt.sig(se, 2)}",
+            )
         ax.axvline(true, color=WARN, lw=0.8, ls="--", label="assumed true")
         ax.set_ylim(0, ax.get_ylim()[1] * 1.3)  # headroom for the legend above the bars
         ax.set_xlabel(_plain(name))

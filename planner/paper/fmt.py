@@ -100,7 +100,7 @@ def param_label(name: str) -> str:
     "epsilon[ML2]" → "ε(ML₂)"; other names are returned unchanged."""
     for key, sym in (("log_beta[", "log β("), ("epsilon[", "ε(")):
         if name.startswith(key) and name.endswith("]"):
-            return f"{sym}{species(name[len(key):-1])})"
+            return f"{sym}{species(name[len(key) : -1])})"
     return name
 
 

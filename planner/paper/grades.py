@@ -16,8 +16,19 @@ from . import fmt
 from .figures import ACCENT, BAND, INK, WARN, _draw
 from .workbook import stable_xlsx
 
-GRADE_COLUMNS = ("student", "name", "section", "verdict", "tubes_in_band", "tubes", "chi2", "p_value",
-                 "own_log_beta", "own_se", "explanation")
+GRADE_COLUMNS = (
+    "student",
+    "name",
+    "section",
+    "verdict",
+    "tubes_in_band",
+    "tubes",
+    "chi2",
+    "p_value",
+    "own_log_beta",
+    "own_se",
+    "explanation",
+)
 
 
 def grade_rows(summary: dict) -> list[list]:
@@ -25,9 +36,21 @@ def grade_rows(summary: dict) -> list[list]:
     out = []
     for s in summary["students"]:
         own = s["own_fit"] or {}
-        out.append([s["student"], s["name"], s["section"], s["verdict"], s["tubes_in_band"], s["tubes"],
-                    s["chi2"] if s["chi2"] is not None else "", s["p_value"] if s["p_value"] is not None else "",
-                    own.get("log_beta", ""), own.get("se", ""), s["explanation"] or ""])
+        out.append(
+            [
+                s["student"],
+                s["name"],
+                s["section"],
+                s["verdict"],
+                s["tubes_in_band"],
+                s["tubes"],
+                s["chi2"] if s["chi2"] is not None else "",
+                s["p_value"] if s["p_value"] is not None else "",
+                own.get("log_beta", ""),
+                own.get("se", ""),
+                s["explanation"] or "",
+            ]
+        )
     return out
 
 
@@ -108,30 +131,53 @@ def grade_context(summary: dict, *, date: str, paper: str) -> dict:
 
     pooled = summary.get("pooled")
     target = summary["target"]
-    facts = [("Students", str(len(summary["students"]))),
-             ("Flagged", str(sum(s["verdict"] == "flagged" for s in summary["students"]))),
-             ("Incomplete", str(sum(s["verdict"] == "incomplete" for s in summary["students"])))]
+    facts = [
+        ("Students", str(len(summary["students"]))),
+        ("Flagged", str(sum(s["verdict"] == "flagged" for s in summary["students"]))),
+        ("Incomplete", str(sum(s["verdict"] == "incomplete" for s in summary["students"]))),
+    ]
     pooled_rows = []
     if pooled is not None:
         facts.append(("Pooled from", f"{pooled['students']} students, {pooled['tubes']} tubes"))
         for p in pooled["parameters"]:
             ci = p.get("profile_ci95")
-            pooled_rows.append({"name": p["name"].replace("log_beta", "log β").replace("epsilon", "ε"),
-                                "estimate": fmt.sig(p["estimate"], 5), "se": fmt.sig(p["se"], 2),
-                                "ci": (f"{fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)}" if ci and None not in ci else "—")})
+            pooled_rows.append(
+                {
+                    "name": p["name"].replace("log_beta", "log β").replace("epsilon", "ε"),
+                    "estimate": fmt.sig(p["estimate"], 5),
+                    "se": fmt.sig(p["se"], 2),
+                    "ci": (f"{fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)}" if ci and None not in ci else "—"),
+                }
+            )
     rows = []
     for s in summary["students"]:
         own = s["own_fit"]
-        rows.append({"student": s["student"], "name": s["name"], "section": s["section"], "verdict": s["verdict"],
-                     "band": f"{s['tubes_in_band']} / {s['tubes']}",
-                     "chi2": fmt.sig(s["chi2"], 3) if s["chi2"] is not None else "—",
-                     "own": (f"{fmt.sig(own['log_beta'], 4)} ± {fmt.sig(own['se'], 2)}" if own else "—"),
-                     "explanation": s["explanation"] or ""})
-    return {"title": summary["title"], "date": date, "paper": paper, "target": target, "facts": facts,
-            "pooled": pooled, "pooled_rows": pooled_rows,
-            "pooled_verdict": (pooled or {}).get("chi2_verdict", ""),
-            "excluded": summary["excluded"], "unknown": summary["unknown_students"], "rows": rows,
-            "figure": Markup(readings_svg(summary))}
+        rows.append(
+            {
+                "student": s["student"],
+                "name": s["name"],
+                "section": s["section"],
+                "verdict": s["verdict"],
+                "band": f"{s['tubes_in_band']} / {s['tubes']}",
+                "chi2": fmt.sig(s["chi2"], 3) if s["chi2"] is not None else "—",
+                "own": (f"{fmt.sig(own['log_beta'], 4)} ± {fmt.sig(own['se'], 2)}" if own else "—"),
+                "explanation": s["explanation"] or "",
+            }
+        )
+    return {
+        "title": summary["title"],
+        "date": date,
+        "paper": paper,
+        "target": target,
+        "facts": facts,
+        "pooled": pooled,
+        "pooled_rows": pooled_rows,
+        "pooled_verdict": (pooled or {}).get("chi2_verdict", ""),
+        "excluded": summary["excluded"],
+        "unknown": summary["unknown_students"],
+        "rows": rows,
+        "figure": Markup(readings_svg(summary)),
+    }
 
 
 def grade_report(summary: dict, *, paper: str = "A4", fmt_: str = "pdf", date=None) -> bytes:

@@ -19,8 +19,10 @@ BORDER_RED = "#e3000f"
 INK = "#000000"
 
 # Flame outline (a path in the 100 × 100 box), reused by GHS02 and GHS03 at different places.
-_FLAME = ("M50 22 C58 33 67 40 64 54 C62 62 56 66 50 66 C42 66 36 60 37 51 C38 44 44 41 44 33 "
-          "C48 37 50 41 49 46 C53 42 54 32 50 22 Z")
+_FLAME = (
+    "M50 22 C58 33 67 40 64 54 C62 62 56 66 50 66 C42 66 36 60 37 51 C38 44 44 41 44 33 "
+    "C48 37 50 41 49 46 C53 42 54 32 50 22 Z"
+)
 
 SYMBOLS: dict[str, str] = {
     # exploding bomb: a round bomb blowing apart, with fragments and rays
@@ -35,8 +37,7 @@ SYMBOLS: dict[str, str] = {
     ),
     # flame over a horizontal bar
     "GHS02": (
-        f'<path d="{_FLAME}" fill="{{ink}}"/>'
-        '<rect x="34" y="69" width="32" height="4" fill="{ink}"/>'
+        f'<path d="{_FLAME}" fill="{{ink}}"/><rect x="34" y="69" width="32" height="4" fill="{{ink}}"/>'
     ),
     # flame over circle: a flame rising out of a ring, over a bar
     "GHS03": (
@@ -71,8 +72,7 @@ SYMBOLS: dict[str, str] = {
     ),
     # exclamation mark
     "GHS07": (
-        '<path d="M45 26 L55 26 L53 60 L47 60 Z" fill="{ink}"/>'
-        '<circle cx="50" cy="68" r="4.5" fill="{ink}"/>'
+        '<path d="M45 26 L55 26 L53 60 L47 60 Z" fill="{ink}"/><circle cx="50" cy="68" r="4.5" fill="{ink}"/>'
     ),
     # health hazard: a bust with a star burst on the chest
     "GHS08": (
@@ -104,7 +104,9 @@ def pictogram_svg(code: str, size_px: int = 30) -> str:
         For a code outside GHS01–GHS09.
     """
     symbol = SYMBOLS[code].format(ink=INK)
-    return (f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 100 100" width="{size_px}" height="{size_px}" '
-            f'role="img"><title>{code}</title>'
-            f'<polygon points="50,4 96,50 50,96 4,50" fill="#ffffff" stroke="{BORDER_RED}" stroke-width="7" '
-            f'stroke-linejoin="miter"/><g transform="translate(50 50) scale(1.2) translate(-50 -50)">{symbol}</g></svg>')
+    return (
+        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 100 100" width="{size_px}" height="{size_px}" '
+        f'role="img"><title>{code}</title>'
+        f'<polygon points="50,4 96,50 50,96 4,50" fill="#ffffff" stroke="{BORDER_RED}" stroke-width="7" '
+        f'stroke-linejoin="miter"/><g transform="translate(50 50) scale(1.2) translate(-50 -50)">{symbol}</g></svg>'
+    )

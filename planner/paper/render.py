@@ -20,8 +20,17 @@ from importlib import resources
 from . import fmt as _fmt
 from .sheets import RenderError, plan_notes, prep_context, report_context
 
-__all__ = ["FORMATS", "PAPERS", "DataOnlyFetcher", "FetchRefused", "RenderError", "html_to_pdf", "prep_sheet",
-           "render_html", "report"]
+__all__ = [
+    "FORMATS",
+    "PAPERS",
+    "DataOnlyFetcher",
+    "FetchRefused",
+    "RenderError",
+    "html_to_pdf",
+    "prep_sheet",
+    "render_html",
+    "report",
+]
 
 from ..inputs.choices import PAPERS  # noqa: E402  (defined once, light for the command line)
 
@@ -132,8 +141,17 @@ def _out(html: str, fmt: str) -> bytes:
     return html.encode("utf-8") if fmt == "html" else html_to_pdf(html)
 
 
-def prep_sheet(plan, recipe, assessment, needs, *, paper: str = "A4", fmt: str = "pdf", date=None,
-               order: Sequence[str] | None = None) -> bytes:
+def prep_sheet(
+    plan,
+    recipe,
+    assessment,
+    needs,
+    *,
+    paper: str = "A4",
+    fmt: str = "pdf",
+    date=None,
+    order: Sequence[str] | None = None,
+) -> bytes:
     """The bench sheet: header, stocks and how to make them, tubes, checklist and safety box.
 
     Parameters
@@ -152,13 +170,21 @@ def prep_sheet(plan, recipe, assessment, needs, *, paper: str = "A4", fmt: str =
         For an unknown paper or format, a bad date, or an order that does not list the stocks.
     """
     _check(paper, fmt)
-    ctx = prep_context(plan, recipe, assessment.summary(), [n.summary() for n in needs],
-                       date=_date_text(date), paper=paper, order=order)
+    ctx = prep_context(
+        plan,
+        recipe,
+        assessment.summary(),
+        [n.summary() for n in needs],
+        date=_date_text(date),
+        paper=paper,
+        order=order,
+    )
     return _out(render_html("prep_sheet.html.j2", ctx), fmt)
 
 
-def report(plan, recipe, assessment, *, design: dict | None = None, paper: str = "A4", fmt: str = "pdf",
-           date=None) -> bytes:
+def report(
+    plan, recipe, assessment, *, design: dict | None = None, paper: str = "A4", fmt: str = "pdf", date=None
+) -> bytes:
     """The design report: verdict first, recipe, figures, checks, parameters and correlations.
 
     Parameters
@@ -175,8 +201,9 @@ def report(plan, recipe, assessment, *, design: dict | None = None, paper: str =
     summary = assessment.summary()
     figs = _report_figures(plan, recipe, assessment, summary, fig)
     notes = plan_notes(plan, [n.summary() for n in stock_needs(plan, recipe)])
-    ctx = report_context(plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design,
-                         notes=notes)
+    ctx = report_context(
+        plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design, notes=notes
+    )
     return _out(render_html("report.html.j2", ctx), fmt)
 
 
@@ -189,28 +216,48 @@ def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
     # the assessment carries the plan compiled for it; compile only for one built elsewhere
     study = assessment.study if assessment.study is not None else compile_study(plan)
 
-    out = [{"svg": Markup(fig.absorbance_svg(summary["tubes"], tuple(plan.optics.linear_range))),
+    out = [
+        {
+            "svg": Markup(fig.absorbance_svg(summary["tubes"], tuple(plan.optics.linear_range))),
             "caption": "Expected absorbance of each tube (bars: ±2 sd of one reading, every error source) "
-                       "inside the instrument's linear range."}]
+            "inside the instrument's linear range.",
+        }
+    ]
     curve = curves.binding_curve_data(study, recipe, summary)
     names = {"M": _fmt.ion(plan.components.M.label or "M"), "L": _fmt.ion(plan.components.L.label or "L")}
-    out.append({"svg": Markup(fig.binding_svg(curve, names)),
-                "caption": "Tubes on the binding curve: saturation (the fraction of each tube's limiting "
-                           "reagent bound, as in the recipe table and the saturation check) against the "
-                           "free reagent in excess; one curve per distinct limiting total."})
+    out.append(
+        {
+            "svg": Markup(fig.binding_svg(curve, names)),
+            "caption": "Tubes on the binding curve: saturation (the fraction of each tube's limiting "
+            "reagent bound, as in the recipe table and the saturation check) against the "
+            "free reagent in excess; one curve per distinct limiting total.",
+        }
+    )
     params = assessment.params
     t = params.target if params is not None else -1
     if assessment.mc is not None and t >= 0 and assessment.cramer_rao is not None:
-        out.append({"svg": Markup(fig.mc_histogram_svg(assessment.mc.estimates[:, t],
-                                                         float(assessment.true_theta[t]),
-                                                         float(assessment.cramer_rao.se[t]),
-                                                         name=_fmt.param_label(params.names[t]))),
-                    "caption": "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal "
-                               "curve: matching shapes mean the asymptotic SE holds."})
+        out.append(
+            {
+                "svg": Markup(
+                    fig.mc_histogram_svg(
+                        assessment.mc.estimates[:, t],
+                        float(assessment.true_theta[t]),
+                        float(assessment.cramer_rao.se[t]),
+                        name=_fmt.param_label(params.names[t]),
+                    )
+                ),
+                "caption": "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal "
+                "curve: matching shapes mean the asymptotic SE holds.",
+            }
+        )
     if t >= 0:
         scan = curves.se_scan_data(study, recipe)
         if scan is not None:
-            out.append({"svg": Markup(fig.se_scan_svg(scan)),
-                        "caption": "How the SE of the target would change if the true constant were "
-                                   "elsewhere in the guess's range (±2 sd)."})
+            out.append(
+                {
+                    "svg": Markup(fig.se_scan_svg(scan)),
+                    "caption": "How the SE of the target would change if the true constant were "
+                    "elsewhere in the guess's range (±2 sd).",
+                }
+            )
     return out

@@ -117,24 +117,42 @@ CLASSES = ("acid", "base", "oxidiser", "perchlorate", "thiocyanate", "reducer", 
 
 _CLASH_RULES: tuple[tuple[str, str, str], ...] = (
     # (class a, class b, what to do) — wording ours; the chemistry is standard laboratory practice
-    ("thiocyanate", "acid",
-     "Thiocyanate with acid: acid on the solid or a concentrated thiocyanate solution releases a very "
-     "toxic gas (EUH032). Dilute the thiocyanate first and add it to the diluted acid medium, never the "
-     "other way round; keep thiocyanate and acid waste apart."),
-    ("oxidiser", "organic",
-     "Oxidising salt or acid with organic material: keep the solids and concentrates apart, away from "
-     "paper and solvents; wipe spills up while wet."),
-    ("perchlorate", "organic",
-     "Perchlorate with organic compounds: dried residues can explode. Never evaporate or heat "
-     "perchlorate solutions that contain organic matter; rinse glassware before it dries."),
-    ("perchlorate", "reducer",
-     "Perchlorate with a reducing agent: keep the solids apart; mix only as dilute solutions."),
-    ("acid", "base",
-     "Acid with ammonia or an amine: neutralising the concentrates is strongly exothermic. Dilute each "
-     "first, add slowly with stirring, in a fume hood."),
-    ("oxidiser", "reducer",
-     "Oxidiser with a reducing agent (e.g. nitrate or nitric acid with thiocyanate): mix only as dilute "
-     "solutions; never combine the solids or concentrates."),
+    (
+        "thiocyanate",
+        "acid",
+        "Thiocyanate with acid: acid on the solid or a concentrated thiocyanate solution releases a very "
+        "toxic gas (EUH032). Dilute the thiocyanate first and add it to the diluted acid medium, never the "
+        "other way round; keep thiocyanate and acid waste apart.",
+    ),
+    (
+        "oxidiser",
+        "organic",
+        "Oxidising salt or acid with organic material: keep the solids and concentrates apart, away from "
+        "paper and solvents; wipe spills up while wet.",
+    ),
+    (
+        "perchlorate",
+        "organic",
+        "Perchlorate with organic compounds: dried residues can explode. Never evaporate or heat "
+        "perchlorate solutions that contain organic matter; rinse glassware before it dries.",
+    ),
+    (
+        "perchlorate",
+        "reducer",
+        "Perchlorate with a reducing agent: keep the solids apart; mix only as dilute solutions.",
+    ),
+    (
+        "acid",
+        "base",
+        "Acid with ammonia or an amine: neutralising the concentrates is strongly exothermic. Dilute each "
+        "first, add slowly with stirring, in a fume hood.",
+    ),
+    (
+        "oxidiser",
+        "reducer",
+        "Oxidiser with a reducing agent (e.g. nitrate or nitric acid with thiocyanate): mix only as dilute "
+        "solutions; never combine the solids or concentrates.",
+    ),
 )
 
 GENERAL_CAUTIONS: tuple[str, ...] = (
@@ -208,12 +226,20 @@ class ReagentHazards:
 
     def summary(self) -> dict:
         return {
-            "name": self.name, "formula": self.formula, "signal_word": self.signal_word,
+            "name": self.name,
+            "formula": self.formula,
+            "signal_word": self.signal_word,
             "statements": [{"code": c, "text": t} for c, t in self.statements()],
             "pictograms": [{"code": p, "name": PICTOGRAMS[p]} for p in self.pictograms],
-            "cmr": self.cmr, "cmr_codes": list(self.cmr_codes), "classes": list(self.classes),
-            "incompatible": list(self.incompatible), "ppe": list(self.ppe), "waste": self.waste,
-            "notes": self.notes, "source": self.source, "from_memory": self.from_memory,
+            "cmr": self.cmr,
+            "cmr_codes": list(self.cmr_codes),
+            "classes": list(self.classes),
+            "incompatible": list(self.incompatible),
+            "ppe": list(self.ppe),
+            "waste": self.waste,
+            "notes": self.notes,
+            "source": self.source,
+            "from_memory": self.from_memory,
             "checked": self.checked,
         }
 
@@ -238,8 +264,13 @@ class PlanReagent:
     message: str | None = None
 
     def summary(self) -> dict:
-        return {"name": self.name, "stock_ids": list(self.stock_ids), "inferred": self.inferred,
-                "message": self.message, "hazards": self.hazards.summary() if self.hazards else None}
+        return {
+            "name": self.name,
+            "stock_ids": list(self.stock_ids),
+            "inferred": self.inferred,
+            "message": self.message,
+            "hazards": self.hazards.summary() if self.hazards else None,
+        }
 
 
 @dataclass(frozen=True)
@@ -317,7 +348,9 @@ def validate_library(entries: Iterable[ReagentHazards]) -> None:
     seen: dict[str, str] = {}
     for e in entries:
         if e.signal_word not in SIGNAL_WORDS:
-            raise SafetyDataError(f"{e.name}: signal_word {e.signal_word!r} must be 'Danger', 'Warning' or ''")
+            raise SafetyDataError(
+                f"{e.name}: signal_word {e.signal_word!r} must be 'Danger', 'Warning' or ''"
+            )
         for c in e.hazard_codes:
             try:
                 statement_text(c)
@@ -421,13 +454,24 @@ def hazards_for(plan) -> list[PlanReagent]:
             add(hz.name, hz.name, s.id, hz, True, None)
         # the label may name only the medium ("… in 0.10 M KNO3"): the metal or ligand it carries
         # still needs data of its own unless an inferred entry is that component's salt
-        uncovered = [c for c in ("M", "L") if c in s.conc
-                     and not any(_carries(hz, getattr(plan.components, c).label) for hz in found)]
+        uncovered = [
+            c
+            for c in ("M", "L")
+            if c in s.conc and not any(_carries(hz, getattr(plan.components, c).label) for hz in found)
+        ]
         if uncovered or not found:
             what = " and ".join({"M": "the metal", "L": "the ligand"}[c] for c in uncovered) or "it"
-            add("#" + s.id, s.label or s.id, s.id, None, False,
-                f"stock {s.id}: no reagent named for {what}; {NO_DATA}")  # plan keys: report notes
-    return [PlanReagent(g["name"], tuple(g["ids"]), g["hz"], g["inferred"], g["msg"]) for g in groups.values()]
+            add(
+                "#" + s.id,
+                s.label or s.id,
+                s.id,
+                None,
+                False,
+                f"stock {s.id}: no reagent named for {what}; {NO_DATA}",
+            )  # plan keys: report notes
+    return [
+        PlanReagent(g["name"], tuple(g["ids"]), g["hz"], g["inferred"], g["msg"]) for g in groups.values()
+    ]
 
 
 def _carries(hz: ReagentHazards, component_label: str) -> bool:

@@ -92,7 +92,8 @@ def addition_order(plan: Plan, recipe: Recipe, order: Sequence[str] | None = Non
             raise RenderError(
                 f"order = {list(order)}: list every dispensed stock once ({', '.join(dispensed)})"
                 + (f"; unknown: {', '.join(unknown)}" if unknown else "")
-                + (f"; missing: {', '.join(missing)}" if missing else ""))
+                + (f"; missing: {', '.join(missing)}" if missing else "")
+            )
         return order
     rank = {r: i for i, r in enumerate(DEFAULT_ADDITION)}
     return tuple(sorted(dispensed, key=lambda s: (rank[stock_role(plan, s)], dispensed.index(s))))
@@ -119,11 +120,16 @@ def addition_steps(plan: Plan, recipe: Recipe, order: tuple[str, ...], custom: b
         least = float(recipe.column(dil.id).min())
         prefill = _nice_floor(PREFILL_FRACTION * least)
         if prefill >= 0.1 * g.tube_volume_mL:
-            steps.append(Step(f"about {fmt.sig(prefill, 2)} mL of {dil.id} first (by eye)",
-                              "nothing is added to an empty flask"))
+            steps.append(
+                Step(
+                    f"about {fmt.sig(prefill, 2)} mL of {dil.id} first (by eye)",
+                    "nothing is added to an empty flask",
+                )
+            )
         else:
-            steps.append(Step(f"a little {dil.id} first where there is room",
-                              "nothing is added to an empty flask"))
+            steps.append(
+                Step(f"a little {dil.id} first where there is room", "nothing is added to an empty flask")
+            )
     for sid in order:
         role = stock_role(plan, sid)
         d = plan.dispenser_for(sid)
@@ -134,8 +140,12 @@ def addition_steps(plan: Plan, recipe: Recipe, order: tuple[str, ...], custom: b
         label = {"metal": "metal", "ligand": "ligand", "medium": "medium", "other": "stock"}[role]
         steps.append(Step(f"{sid} ({label}){how}", why))
     if to_mark:
-        steps.append(Step(f"{dil.id} to the mark; stopper and invert {MIX_INVERSIONS} times",
-                          "mix only once the volume is complete"))
+        steps.append(
+            Step(
+                f"{dil.id} to the mark; stopper and invert {MIX_INVERSIONS} times",
+                "mix only once the volume is complete",
+            )
+        )
     else:
         steps.append(Step("cap and mix by inverting (or draw up and expel a few times in the cuvette)"))
     return steps
@@ -162,8 +172,10 @@ def blank_text(plan: Plan) -> tuple[str, str]:
         name = f"{dil.id} ({dil.label})" if dil.label else dil.id
         return name, f"zero the instrument on a tube of {name}"
     name = "the medium without metal or ligand"
-    return name, ("zero the instrument on a tube made like the others with the metal and ligand stocks "
-                  "left out (their volume replaced by water or the medium)")
+    return name, (
+        "zero the instrument on a tube made like the others with the metal and ligand stocks "
+        "left out (their volume replaced by water or the medium)"
+    )
 
 
 def checklist(plan: Plan, blank: str) -> list[str]:
@@ -192,32 +204,49 @@ def safety_context(plan: Plan) -> dict:
     cards, cmr = [], []
     for r in reagents:
         hz = r.hazards
-        card = {"name": r.name, "stocks": ", ".join(r.stock_ids), "inferred": r.inferred,
-                "message": r.message, "known": hz is not None}
+        card = {
+            "name": r.name,
+            "stocks": ", ".join(r.stock_ids),
+            "inferred": r.inferred,
+            "message": r.message,
+            "known": hz is not None,
+        }
         if hz is not None:
-            card.update({
-                "formula": pretty_formula(hz.formula),
-                "signal": hz.signal_word or "not classified",
-                "danger": hz.signal_word == "Danger",
-                "pictograms": [{"code": p, "name": safety.PICTOGRAMS[p], "svg": Markup(pictogram_svg(p))}
-                               for p in hz.pictograms],
-                "statements": [{"code": c, "text": t} for c, t in hz.statements()],
-                "cmr": hz.cmr, "cmr_codes": ", ".join(hz.cmr_codes),
-                "incompatible": list(hz.incompatible), "ppe": list(hz.ppe),
-                "waste": hz.waste, "notes": hz.notes,
-                "provenance": (f"Library entry recalled from memory ({hz.source}); checked {hz.checked}."
-                               if hz.from_memory else f"Library entry: {hz.source}; checked {hz.checked}."),
-            })
+            card.update(
+                {
+                    "formula": pretty_formula(hz.formula),
+                    "signal": hz.signal_word or "not classified",
+                    "danger": hz.signal_word == "Danger",
+                    "pictograms": [
+                        {"code": p, "name": safety.PICTOGRAMS[p], "svg": Markup(pictogram_svg(p))}
+                        for p in hz.pictograms
+                    ],
+                    "statements": [{"code": c, "text": t} for c, t in hz.statements()],
+                    "cmr": hz.cmr,
+                    "cmr_codes": ", ".join(hz.cmr_codes),
+                    "incompatible": list(hz.incompatible),
+                    "ppe": list(hz.ppe),
+                    "waste": hz.waste,
+                    "notes": hz.notes,
+                    "provenance": (
+                        f"Library entry recalled from memory ({hz.source}); checked {hz.checked}."
+                        if hz.from_memory
+                        else f"Library entry: {hz.source}; checked {hz.checked}."
+                    ),
+                }
+            )
             if hz.cmr:
                 cmr.append({"name": hz.name, "codes": ", ".join(hz.cmr_codes), "stocks": card["stocks"]})
         cards.append(card)
     return {
         "cards": cards,
         "cmr": cmr,
-        "cmr_advice": ("Use the least that resolves the constant (fewer or smaller tubes, a lower "
-                       "concentration) or substitute a less hazardous reagent; weigh solids in a fume "
-                       "hood or ventilated enclosure, and follow your institution's rules for CMR "
-                       "substances (some require prior approval or a register of use)."),
+        "cmr_advice": (
+            "Use the least that resolves the constant (fewer or smaller tubes, a lower "
+            "concentration) or substitute a less hazardous reagent; weigh solids in a fume "
+            "hood or ventilated enclosure, and follow your institution's rules for CMR "
+            "substances (some require prior approval or a register of use)."
+        ),
         "clashes": [c.advice for c in safety.clashes(reagents)],
         "cautions": list(safety.GENERAL_CAUTIONS),
         "always": safety.ALWAYS,
@@ -239,8 +268,16 @@ def _levelling_fact(plan: Plan, summary: dict) -> list[tuple[str, str]]:
     return [("Ionic strength", f"{fmt.sig(lo, 3)}–{fmt.sig(hi, 3)} M: the {bg.id} volumes level it")]
 
 
-def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict], *, date: str,
-                 paper: str, order: Sequence[str] | None = None) -> dict:
+def prep_context(
+    plan: Plan,
+    recipe: Recipe,
+    summary: dict,
+    needs: Sequence[dict],
+    *,
+    date: str,
+    paper: str,
+    order: Sequence[str] | None = None,
+) -> dict:
     """Template context of the prep sheet from the assessment and stock-need summaries."""
     g, o = plan.glassware, plan.optics
     step = g.step_mL
@@ -252,7 +289,9 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
     by_id = {n["id"]: n for n in needs}
     missing = [s.id for s in plan.stock if s.id not in by_id]
     if missing:
-        raise RenderError(f"needs: no entry for stock(s) {', '.join(missing)}: pass stock_needs(plan, recipe)")
+        raise RenderError(
+            f"needs: no entry for stock(s) {', '.join(missing)}: pass stock_needs(plan, recipe)"
+        )
 
     stocks = []
     for s in plan.stock:
@@ -270,9 +309,22 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         on_hand = f"{fmt.sig(n['on_hand_mL'], 3)} mL" if n.get("on_hand_mL") is not None else "—"
         if enough is False:
             warns = [f"NOT ENOUGH on hand: make at least {needed}.", *warns]
-        stocks.append({"id": s.id, "label": s.label, "diluent": s.diluent, "conc": c_lines,
-                       "conc_basis": basis, "needed": needed, "needed_sub": needed_sub, "enough": enough,
-                       "on_hand": on_hand, "dispenser": disp, "how": how, "warnings": warns})
+        stocks.append(
+            {
+                "id": s.id,
+                "label": s.label,
+                "diluent": s.diluent,
+                "conc": c_lines,
+                "conc_basis": basis,
+                "needed": needed,
+                "needed_sub": needed_sub,
+                "enough": enough,
+                "on_hand": on_hand,
+                "dispenser": disp,
+                "how": how,
+                "warnings": warns,
+            }
+        )
 
     target = plan.target
     lo, hi = o.linear_range
@@ -288,8 +340,16 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
         # under to-mark the diluent is the remainder: say how much to expect, so a flask already
         # full before the diluent goes in is noticed at the bench
         rest = fmt.volume(vols[dil.id], step) if to_mark else ""
-        rows.append({"tube": t["tube"], "cells": cells, "makeup": rest, "absorbance": bands[i],
-                     "out": not (lo <= a <= hi), "complex": c_txt[i]})
+        rows.append(
+            {
+                "tube": t["tube"],
+                "cells": cells,
+                "makeup": rest,
+                "absorbance": bands[i],
+                "out": not (lo <= a <= hi),
+                "complex": c_txt[i],
+            }
+        )
     failing = [c for c in summary.get("checks", []) if c["status"] == "fail"]
     verdict = summary.get("verdict")
     safe = safety_context(plan)
@@ -302,8 +362,11 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
             ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"),
             ("Path length", f"{fmt.fixed(o.path_cm, 0.001)} cm"),
             ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
-            ("Tubes", f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL"
-                      + (" volumetric flasks" if to_mark else ", every volume added")),
+            (
+                "Tubes",
+                f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL"
+                + (" volumetric flasks" if to_mark else ", every volume added"),
+            ),
             ("Temperature", f"{fmt.sig(plan.temperature_C, 3)} °C"),
             *_levelling_fact(plan, summary),
         ],
@@ -332,8 +395,11 @@ def prep_context(plan: Plan, recipe: Recipe, summary: dict, needs: Sequence[dict
 # --------------------------------------------------------------------------------------------------
 # design report
 # --------------------------------------------------------------------------------------------------
-_DESIGN_KEYS = (("criterion", "criterion"), ("efficiency_bound", "efficiency bound (vs the best approximate design)"),
-                ("se_ratio_vs_even", "SE ratio against the evenly spaced series"))
+_DESIGN_KEYS = (
+    ("criterion", "criterion"),
+    ("efficiency_bound", "efficiency bound (vs the best approximate design)"),
+    ("se_ratio_vs_even", "SE ratio against the evenly spaced series"),
+)
 
 
 def _design_rows(design: dict | None) -> list[tuple[str, str]]:
@@ -356,8 +422,17 @@ def _relative_se(name: str, true: float, se: float | None) -> str:
     return fmt.percent(se / abs(true)) if true else "—"
 
 
-def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, paper: str,
-                   figures: dict[str, str], design: dict | None = None, notes: Sequence[str] = ()) -> dict:
+def report_context(
+    plan: Plan,
+    recipe: Recipe,
+    summary: dict,
+    *,
+    date: str,
+    paper: str,
+    figures: dict[str, str],
+    design: dict | None = None,
+    notes: Sequence[str] = (),
+) -> dict:
     """Template context of the design report (verdict first) from the assessment summary."""
     g = plan.glassware
     step = g.step_mL
@@ -368,49 +443,68 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
     rows = []
     tubes = summary["tubes"]
     o = plan.optics
-    bands = fmt.band_column([t["absorbance"] for t in tubes], [2 * t["absorbance_sd"] for t in tubes],
-                            o.display_step if o.display_step > 0 else 0.001)
+    bands = fmt.band_column(
+        [t["absorbance"] for t in tubes],
+        [2 * t["absorbance_sd"] for t in tubes],
+        o.display_step if o.display_step > 0 else 0.001,
+    )
     units, cols = {}, {}
-    for key, get in (("M", lambda t: t["total_M"]["M"]), ("L", lambda t: t["total_M"]["L"]),
-                     ("complex", lambda t: t["species_M"][target])):
+    for key, get in (
+        ("M", lambda t: t["total_M"]["M"]),
+        ("L", lambda t: t["total_M"]["L"]),
+        ("complex", lambda t: t["species_M"][target]),
+    ):
         units[key], cols[key] = fmt.conc_column([get(t) for t in tubes])
     for i, t in enumerate(tubes):
         a = t["absorbance"]
-        rows.append({
-            "tube": t["tube"],
-            "cells": [("—" if t["volumes_mL"][s] == 0 else fmt.volume(t["volumes_mL"][s], step)) for s in seq],
-            "M": cols["M"][i], "L": cols["L"][i], "complex": cols["complex"][i],
-            "saturation": fmt.fixed(t["saturation"], 0.01),
-            # coloured only when the saturation check itself is not passed: tubes near 0 or 1 are
-            # part of a good design (they fix ε and the ends of the curve)
-            "sat_out": sat_flag and not (SATURATION_WINDOW[0] <= t["saturation"] <= SATURATION_WINDOW[1]),
-            "absorbance": bands[i], "out": not (lo <= a <= hi),
-        })
+        rows.append(
+            {
+                "tube": t["tube"],
+                "cells": [
+                    ("—" if t["volumes_mL"][s] == 0 else fmt.volume(t["volumes_mL"][s], step)) for s in seq
+                ],
+                "M": cols["M"][i],
+                "L": cols["L"][i],
+                "complex": cols["complex"][i],
+                "saturation": fmt.fixed(t["saturation"], 0.01),
+                # coloured only when the saturation check itself is not passed: tubes near 0 or 1 are
+                # part of a good design (they fix ε and the ends of the curve)
+                "sat_out": sat_flag and not (SATURATION_WINDOW[0] <= t["saturation"] <= SATURATION_WINDOW[1]),
+                "absorbance": bands[i],
+                "out": not (lo <= a <= hi),
+            }
+        )
     params = []
     for p in summary.get("parameters", []):
         se, true = p.get("se"), p["true"]
         ci = p.get("mc_ci95")
-        params.append({
-            "name": fmt.param_label(p["name"]),
-            "guess": fmt.sig(p["guess"], 4),
-            "true": fmt.sig(true, 4),
-            "se": fmt.sig(se, 2),
-            "rel": _relative_se(p["name"], true, se),
-            "mc_sd": fmt.sig(p.get("mc_sd"), 2),
-            "mc_bias": fmt.sig(p.get("mc_bias"), 2),
-            "ci": (f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—"),
-        })
+        params.append(
+            {
+                "name": fmt.param_label(p["name"]),
+                "guess": fmt.sig(p["guess"], 4),
+                "true": fmt.sig(true, 4),
+                "se": fmt.sig(se, 2),
+                "rel": _relative_se(p["name"], true, se),
+                "mc_sd": fmt.sig(p.get("mc_sd"), 2),
+                "mc_bias": fmt.sig(p.get("mc_bias"), 2),
+                "ci": (f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—"),
+            }
+        )
     corr = summary.get("correlation")
     corr_rows = []
     if corr and len(corr["names"]) > 1:
-        corr_rows = [{"name": fmt.param_label(n), "cells": [fmt.fixed(x, 0.01) if x is not None else "—" for x in row]}
-                     for n, row in zip(corr["names"], corr["matrix"], strict=True)]
+        corr_rows = [
+            {"name": fmt.param_label(n), "cells": [fmt.fixed(x, 0.01) if x is not None else "—" for x in row]}
+            for n, row in zip(corr["names"], corr["matrix"], strict=True)
+        ]
     prof = summary.get("profile")
     prof_text = None
     if prof:
         d = prof["delta_chi2"]
-        prof_text = (f"Δχ² = {fmt.sig(d[0], 3)} towards K → 0 and {fmt.sig(d[-1], 3)} towards K → ∞ "
-                     f"(3.84 marks the 95 % limit)")
+        prof_text = (
+            f"Δχ² = {fmt.sig(d[0], 3)} towards K → 0 and {fmt.sig(d[-1], 3)} towards K → ∞ "
+            f"(3.84 marks the 95 % limit)"
+        )
     mc = summary.get("monte_carlo")
     return {
         "kind": "report",
@@ -425,18 +519,27 @@ def report_context(plan: Plan, recipe: Recipe, summary: dict, *, date: str, pape
         "units": units,
         "notes": list(notes),
         "facts": [
-            ("Target", f"{fmt.param_label(f'log_beta[{target}]')}, goal SE ≤ {fmt.sig(summary.get('goal_se'), 2)}"),
+            (
+                "Target",
+                f"{fmt.param_label(f'log_beta[{target}]')}, goal SE ≤ {fmt.sig(summary.get('goal_se'), 2)}",
+            ),
             ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm, path {fmt.fixed(o.path_cm, 0.001)} cm"),
             ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
             ("Tubes", f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL, make-up {g.make_up}"),
-            ("Monte Carlo", f"{mc['trials']} simulated experiments, {fmt.percent(mc['failed_fraction'])} "
-                            f"failed fits" if mc else "not run"),
+            (
+                "Monte Carlo",
+                f"{mc['trials']} simulated experiments, {fmt.percent(mc['failed_fraction'])} failed fits"
+                if mc
+                else "not run",
+            ),
         ],
         "columns": list(seq),
         "rows": rows,
         "figures": figures,
-        "checks": [{"id": c["id"], "status": c["status"], "message": fmt.chem_text(c["message"])}
-                   for c in summary.get("checks", [])],
+        "checks": [
+            {"id": c["id"], "status": c["status"], "message": fmt.chem_text(c["message"])}
+            for c in summary.get("checks", [])
+        ],
         "params": params,
         "corr_names": [fmt.param_label(n) for n in corr["names"]] if corr_rows else [],
         "corr_rows": corr_rows,

@@ -39,18 +39,27 @@ def conc_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], str | None]
         lines.append(f"{who}: {fmt.conc_with_uncertainty(c, rsd * c)}")
     basis = None
     if lines:  # said for the bench: where the ± comes from, without the plan's key names
-        basis = ("± as stated in the plan" if s.conc_rsd > 0 else
-                 "± from the weighing and glassware" if prep else "uncertainty not stated")
+        basis = (
+            "± as stated in the plan"
+            if s.conc_rsd > 0
+            else "± from the weighing and glassware"
+            if prep
+            else "uncertainty not stated"
+        )
     return lines, basis
 
 
 def _salt_text(x: dict, readability_g: float) -> str:
     """One weighed salt or added acid of a stock, as said at the bench."""
     if x["role"] == "solution":
-        return (f"{fmt.sig(x['conc_M'] * 1e3, 3)} mmol/L of {pretty_formula(x['formula'])} ({x['name']}), "
-                f"from a standardised solution")
-    return (f"{fmt.mass(x['mass_g'], readability_g)} of {pretty_formula(x['formula'])} "
-            f"({x['name']}, M = {fmt.sig(x['formula_weight_g_mol'], 5)} g/mol)")
+        return (
+            f"{fmt.sig(x['conc_M'] * 1e3, 3)} mmol/L of {pretty_formula(x['formula'])} ({x['name']}), "
+            f"from a standardised solution"
+        )
+    return (
+        f"{fmt.mass(x['mass_g'], readability_g)} of {pretty_formula(x['formula'])} "
+        f"({x['name']}, M = {fmt.sig(x['formula_weight_g_mol'], 5)} g/mol)"
+    )
 
 
 def prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
@@ -68,33 +77,47 @@ def prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
     lines: list[str] = []
     if prep:
         assay = f", assay {fmt.percent(prep['purity'], 3)}" if prep["purity"] < 1 else ""
-        head = (f"Weigh {fmt.mass(prep['mass_g'], d)} of {pretty_formula(prep['formula'])} "
-                f"(M = {fmt.sig(prep['formula_weight_g_mol'], 5)} g/mol{assay})")
+        head = (
+            f"Weigh {fmt.mass(prep['mass_g'], d)} of {pretty_formula(prep['formula'])} "
+            f"(M = {fmt.sig(prep['formula_weight_g_mol'], 5)} g/mol{assay})"
+        )
         if prep["steps"]:
-            lines.append(f"{head}; dissolve in {solvent} and make up to the mark of a "
-                         f"{prep['weighed_flask']['label']} ({fmt.conc(prep['weighed_conc_M'])}).")
+            lines.append(
+                f"{head}; dissolve in {solvent} and make up to the mark of a "
+                f"{prep['weighed_flask']['label']} ({fmt.conc(prep['weighed_conc_M'])})."
+            )
             for j, st in enumerate(prep["steps"]):
                 last = j == len(prep["steps"]) - 1
                 add = f", add {extra_txt}," if last and extra_txt else ""
-                lines.append(f"Pipette {fmt.sig(st['pipette_mL'], 3)} mL ({st['pipette']}) into a {st['flask']}"
-                             f"{add} and make up to the mark with {solvent}: {fmt.conc(st['to_conc_M'])}.")
+                lines.append(
+                    f"Pipette {fmt.sig(st['pipette_mL'], 3)} mL ({st['pipette']}) into a {st['flask']}"
+                    f"{add} and make up to the mark with {solvent}: {fmt.conc(st['to_conc_M'])}."
+                )
         else:
-            lines.append(f"{head}{' and ' + extra_txt if extra_txt else ''}; dissolve in {solvent} and make up "
-                         f"to the mark of a {prep['weighed_flask']['label']}.")
+            lines.append(
+                f"{head}{' and ' + extra_txt if extra_txt else ''}; dissolve in {solvent} and make up "
+                f"to the mark of a {prep['weighed_flask']['label']}."
+            )
         if prep["mass_g"] < prep["min_weight_g"]:
-            warns.append(f"{fmt.mass(prep['mass_g'], d)} is below the balance's minimum weight of "
-                         f"{fmt.mass(prep['min_weight_g'], d)} (USP <41>): weigh more into a larger flask and dilute.")
+            warns.append(
+                f"{fmt.mass(prep['mass_g'], d)} is below the balance's minimum weight of "
+                f"{fmt.mass(prep['min_weight_g'], d)} (USP <41>): weigh more into a larger flask and dilute."
+            )
         lines.append(f"Weighing and glassware give u = {fmt.percent(prep['u_rel'])}.")
     else:
         comp = [x for x in solutes if x["role"] == "component"]
-        parts = [f"the {x['name']}{' (with ' + ', '.join(x['ions'][1:]) + ')' if len(x['ions']) > 1 else ''} "
-                 f"for {fmt.conc(x['conc_M'])} (no formula given, so weigh it as its supplier or your notes say)"
-                 for x in comp]
+        parts = [
+            f"the {x['name']}{' (with ' + ', '.join(x['ions'][1:]) + ')' if len(x['ions']) > 1 else ''} "
+            f"for {fmt.conc(x['conc_M'])} (no formula given, so weigh it as its supplier or your notes say)"
+            for x in comp
+        ]
         if extra_txt:
             parts.append(extra_txt)
         if parts and flask:
             verb = "Weigh" if extra and not comp else "Take"
-            lines.append(f"{verb} {' and '.join(parts)}; dissolve in {solvent} and make up to the mark of a {flask}.")
+            lines.append(
+                f"{verb} {' and '.join(parts)}; dissolve in {solvent} and make up to the mark of a {flask}."
+            )
         elif flask and not solutes:
             lines.append(f"{solvent[0].upper()}{solvent[1:]}, nothing dissolved.")
         if need.get("problem"):
@@ -102,16 +125,22 @@ def prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
     min_wt = _min_weight_g(plan)
     for x in extra:
         if x["role"] == "salt" and x["mass_g"] < min_wt:
-            warns.append(f"{fmt.mass(x['mass_g'], d)} of {pretty_formula(x['formula'])} is below the balance's minimum "
-                         f"weight ({fmt.mass(min_wt, d)}, USP <41>): add it from a more concentrated solution instead.")
+            warns.append(
+                f"{fmt.mass(x['mass_g'], d)} of {pretty_formula(x['formula'])} is below the balance's minimum "
+                f"weight ({fmt.mass(min_wt, d)}, USP <41>): add it from a more concentrated solution instead."
+            )
     for x in solutes:
         if x["role"] == "unpaired":
-            warns.append(f"{', '.join(x['ions'])}: no common salt pairs these ions; make them up as the label says.")
+            warns.append(
+                f"{', '.join(x['ions'])}: no common salt pairs these ions; make them up as the label says."
+            )
     gap = need.get("charge_gap")
     if gap:
-        warns.append(f"The ions listed for this stock do not balance in charge: {gap['ion']} "
-                     f"({fmt.conc(gap['conc_M'])}) is missing, so the planned ionic strength is "
-                     f"{fmt.percent(gap['ionic_strength_low'])} low. Ask whoever wrote the plan before making it.")
+        warns.append(
+            f"The ions listed for this stock do not balance in charge: {gap['ion']} "
+            f"({fmt.conc(gap['conc_M'])}) is missing, so the planned ionic strength is "
+            f"{fmt.percent(gap['ionic_strength_low'])} low. Ask whoever wrote the plan before making it."
+        )
     if s.diluent:
         lines.append("It is also the blank.")
     return lines, warns
@@ -133,8 +162,11 @@ def needed_text(plan: Plan, need: dict) -> tuple[str, list[str], bool | None]:
     txt = f"{fmt.fixed(total, 0.1)} mL"
     sub: list[str] = []
     if total > used:  # the allowance is the rinse plus what the dispenser keeps: say both
-        sub = [f"{fmt.fixed(used, 0.1)} in tubes", f"+ {fmt.fixed(g.rinse_mL, 0.1)} rinse",
-               f"+ {fmt.fixed(g.dead_volume_mL, 0.1)} dead volume"]
+        sub = [
+            f"{fmt.fixed(used, 0.1)} in tubes",
+            f"+ {fmt.fixed(g.rinse_mL, 0.1)} rinse",
+            f"+ {fmt.fixed(g.dead_volume_mL, 0.1)} dead volume",
+        ]
     return txt, sub, need.get("enough")
 
 
@@ -145,22 +177,30 @@ def plan_notes(plan: Plan, needs: Sequence[dict]) -> list[str]:
         s = plan.stock_by_id(n["id"])
         prep = n.get("preparation")
         if prep and s.conc_rsd < prep["u_rel"] * 0.999:
-            notes.append(f"stock {s.id}: weighing and glassware give u = {fmt.percent(prep['u_rel'])}, more than "
-                         f"conc_rsd = {fmt.sig(s.conc_rsd, 2)} assumes: raise conc_rsd to "
-                         f"{fmt.sig(prep['u_rel'], 2)} or standardise the stock")
+            notes.append(
+                f"stock {s.id}: weighing and glassware give u = {fmt.percent(prep['u_rel'])}, more than "
+                f"conc_rsd = {fmt.sig(s.conc_rsd, 2)} assumes: raise conc_rsd to "
+                f"{fmt.sig(prep['u_rel'], 2)} or standardise the stock"
+            )
         gap = n.get("charge_gap")
         if gap:
             ion = gap["ion"] if not gap["ion"].startswith("a") else "the counter-ion"
-            notes.append(f"stock {s.id}: its ions do not balance in charge; add {ion} "
-                         f"({fmt.conc(gap['conc_M'])}) to its ions, or the ionic strength is "
-                         f"{fmt.percent(gap['ionic_strength_low'])} low")
+            notes.append(
+                f"stock {s.id}: its ions do not balance in charge; add {ion} "
+                f"({fmt.conc(gap['conc_M'])}) to its ions, or the ionic strength is "
+                f"{fmt.percent(gap['ionic_strength_low'])} low"
+            )
         comp = [c for c in ("M", "L") if c in s.conc]
         if comp and not s.formula:
-            notes.append(f"stock {s.id}: give formula = '...' of its "
-                         f"{' and '.join({'M': 'metal', 'L': 'ligand'}[c] for c in comp)} salt so the sheet "
-                         f"can say how much to weigh")
+            notes.append(
+                f"stock {s.id}: give formula = '...' of its "
+                f"{' and '.join({'M': 'metal', 'L': 'ligand'}[c] for c in comp)} salt so the sheet "
+                f"can say how much to weigh"
+            )
     for r in safety.hazards_for(plan):
         if r.hazards is None and not r.message.startswith(safety.NO_DATA):
-            notes.append(f"stock {', '.join(r.stock_ids)}: name its reagent (reagent = '...') so the safety box "
-                         f"can list its hazards")
+            notes.append(
+                f"stock {', '.join(r.stock_ids)}: name its reagent (reagent = '...') so the safety box "
+                f"can list its hazards"
+            )
     return notes

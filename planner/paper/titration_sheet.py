@@ -22,17 +22,24 @@ def titration_context(plan, recipe, summary: dict, *, date: str, paper: str) -> 
         aliquot = added[i] - prev
         prev = added[i]
         a, sd = row["absorbance"], row["absorbance_sd"]
-        rows.append({"step": recipe.tubes[i], "aliquot": fmt.fixed(aliquot * 1000.0, 1),
-                     "added": fmt.fixed(added[i] * 1000.0, 1),
-                     "cell": fmt.fixed(t.start_volume_mL + added[i], 0.001),
-                     "expected": f"{fmt.fixed(a, 0.001)} ± {fmt.fixed(2 * sd, 0.001)}", "out": not lo <= a <= hi})
+        rows.append(
+            {
+                "step": recipe.tubes[i],
+                "aliquot": fmt.fixed(aliquot * 1000.0, 1),
+                "added": fmt.fixed(added[i] * 1000.0, 1),
+                "cell": fmt.fixed(t.start_volume_mL + added[i], 0.001),
+                "expected": f"{fmt.fixed(a, 0.001)} ± {fmt.fixed(2 * sd, 0.001)}",
+                "out": not lo <= a <= hi,
+            }
+        )
     disp = plan.dispenser_for(t.titrant)
     start_disp = plan.dispenser_for(t.cell)
     steps = [
         "Switch the spectrophotometer on early so the lamp is stable; set the wavelength to "
         f"{fmt.sig(o.wavelength_nm, 3)} nm and zero it on a cuvette of the medium the stocks are made in.",
         f"Deliver {fmt.fixed(t.start_volume_mL, 0.001)} mL of {cell.label or cell.id} into the clean, dry cuvette"
-        + (f" with the {start_disp.capacity_mL:g} mL {start_disp.kind}" if start_disp else "") + ".",
+        + (f" with the {start_disp.capacity_mL:g} mL {start_disp.kind}" if start_disp else "")
+        + ".",
         f"For each step below: add the aliquot of {tit.label or tit.id}"
         + (f" with the {fmt.sig(disp.capacity_mL * 1000, 3)} µL {disp.kind}" if disp else "")
         + f" below the surface, {t.equilibrate}, then write the reading in the empty column.",
@@ -40,12 +47,22 @@ def titration_context(plan, recipe, summary: dict, *, date: str, paper: str) -> 
         "(the instrument's linear range) or is far outside its expected band, if the cell would hold more than "
         f"{fmt.fixed(t.max_volume_mL, 0.001)} mL, or if the solution turns cloudy.",
     ]
-    return {"title": plan.title, "date": date, "paper": paper, "rows": rows, "steps": steps,
-            "facts": [("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"), ("Path", f"{o.path_cm:g} cm"),
-                      ("Cell at start", f"{fmt.fixed(t.start_volume_mL, 0.001)} mL"),
-                      ("Cell at most", f"{fmt.fixed(t.max_volume_mL, 0.001)} mL"),
-                      ("Titrant", tit.label or tit.id), ("Additions", str(len(rows)))],
-            "safety": safety_context(plan)}
+    return {
+        "title": plan.title,
+        "date": date,
+        "paper": paper,
+        "rows": rows,
+        "steps": steps,
+        "facts": [
+            ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"),
+            ("Path", f"{o.path_cm:g} cm"),
+            ("Cell at start", f"{fmt.fixed(t.start_volume_mL, 0.001)} mL"),
+            ("Cell at most", f"{fmt.fixed(t.max_volume_mL, 0.001)} mL"),
+            ("Titrant", tit.label or tit.id),
+            ("Additions", str(len(rows))),
+        ],
+        "safety": safety_context(plan),
+    }
 
 
 def titration_sheet(plan, recipe, assessment, *, paper: str = "A4", fmt_: str = "pdf", date=None) -> bytes:

@@ -36,5 +36,8 @@ def stable_xlsx(wb) -> bytes:
 def _fixed_core(body: bytes) -> bytes:
     y, mo, d, h, mi, sec = FIXED_TIME
     stamp = f"{y:04d}-{mo:02d}-{d:02d}T{h:02d}:{mi:02d}:{sec:02d}Z"
-    return re.sub(rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*(<)", lambda m: m.group(1) + stamp.encode() + m.group(2),
-                  body)
+    return re.sub(
+        rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*(<)",
+        lambda m: m.group(1) + stamp.encode() + m.group(2),
+        body,
+    )

@@ -86,8 +86,10 @@ class Bench:
     make_up_min_mL: float = 0.0
 
     def __repr__(self) -> str:
-        return (f"Bench({len(self.stock_ids)} stocks, {len(self.devices.items)} dispensers, "
-                f"{self.tube_volume_mL:g} mL tubes {self.make_up}, grid {self.step_mL:g} mL)")
+        return (
+            f"Bench({len(self.stock_ids)} stocks, {len(self.devices.items)} dispensers, "
+            f"{self.tube_volume_mL:g} mL tubes {self.make_up}, grid {self.step_mL:g} mL)"
+        )
 
     @property
     def to_mark(self) -> bool:
@@ -107,10 +109,22 @@ class Bench:
         skip = self.diluent_id if self.to_mark else None
         return tuple(s for s in ids if s != skip)
 
-    def make_recipe(self, volumes: dict[str, np.ndarray] | np.ndarray, tubes: list[str] | None = None,
-                    *, dispensed_ids: tuple[str, ...] | None = None) -> Recipe:
+    def make_recipe(
+        self,
+        volumes: dict[str, np.ndarray] | np.ndarray,
+        tubes: list[str] | None = None,
+        *,
+        dispensed_ids: tuple[str, ...] | None = None,
+    ) -> Recipe:
         """A :class:`Recipe` from dispensed volumes (diluent filled, fixed volumes added, tube checked);
         see :func:`planner.inputs.recipe.make_recipe`."""
-        return assemble_recipe(self.stock_ids, volumes, tubes, dispensed_ids=dispensed_ids,
-                               diluent_id=self.diluent_id, to_mark=self.to_mark,
-                               tube_volume_mL=self.tube_volume_mL, fixed_mL=self.fixed_mL)
+        return assemble_recipe(
+            self.stock_ids,
+            volumes,
+            tubes,
+            dispensed_ids=dispensed_ids,
+            diluent_id=self.diluent_id,
+            to_mark=self.to_mark,
+            tube_volume_mL=self.tube_volume_mL,
+            fixed_mL=self.fixed_mL,
+        )

@@ -26,8 +26,15 @@ from .bench import Bench
 from .covariance import ErrorBudget, volume_derivatives
 from .titration import titration_budget
 
-__all__ = ["PARTS", "ErrorBudget", "error_budget", "error_factors", "glassware_problems", "require_glassware_fits",
-           "volume_derivatives"]
+__all__ = [
+    "PARTS",
+    "ErrorBudget",
+    "error_budget",
+    "error_factors",
+    "glassware_problems",
+    "require_glassware_fits",
+    "volume_derivatives",
+]
 
 PARTS = ("photometric", "delivery", "stock")
 
@@ -48,10 +55,14 @@ def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
         rest = recipe.volumes_mL[:, recipe.stock_ids.index(bench.diluent_id)]
         short = rest < bench.make_up_min_mL - 1e-9
         if short.any():
-            out.append(("glassware.make_up_min",
-                        f"{_tubes(recipe.tubes, short)} leave {rest[short].min():g} mL of {bench.diluent_id} to "
-                        f"make up to the mark, less than make_up_min = {bench.make_up_min_mL:g} mL: dispense at "
-                        f"most {bench.room_mL:g} mL in all (more concentrated stocks or fewer mL of each)"))
+            out.append(
+                (
+                    "glassware.make_up_min",
+                    f"{_tubes(recipe.tubes, short)} leave {rest[short].min():g} mL of {bench.diluent_id} to "
+                    f"make up to the mark, less than make_up_min = {bench.make_up_min_mL:g} mL: dispense at "
+                    f"most {bench.room_mL:g} mL in all (more concentrated stocks or fewer mL of each)",
+                )
+            )
     for sid in bench.dispensed_ids(recipe):
         k = recipe.stock_ids.index(sid)
         v = recipe.volumes_mL[:, k]
@@ -60,35 +71,65 @@ def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
             continue
         j = devices.stock_device[k]
         if j < 0:
-            out.append((f"stock {sid}", "no dispenser delivers it: add its id to a [[glassware.dispenser]] stocks list"))
+            out.append(
+                (
+                    f"stock {sid}",
+                    "no dispenser delivers it: add its id to a [[glassware.dispenser]] stocks list",
+                )
+            )
             continue
         item = devices.items[j]
         off = used & ~delivery.on_grid(v, bench.step_mL)
         if off.any():
             bad = [f"{t} ({x:g} mL)" for t, x, o in zip(recipe.tubes, v, off, strict=True) if o]
-            out.append((f"stock {sid}", f"volumes off the {bench.step_mL:g} mL grid in {', '.join(bad[:4])}"
-                        f"{' …' if len(bad) > 4 else ''}: round them to the grid"))
+            out.append(
+                (
+                    f"stock {sid}",
+                    f"volumes off the {bench.step_mL:g} mL grid in {', '.join(bad[:4])}"
+                    f"{' …' if len(bad) > 4 else ''}: round them to the grid",
+                )
+            )
         small = used & (v < bench.min_volume_mL - 1e-12)
         if small.any():
             bad = [t for t, s in zip(recipe.tubes, small, strict=True) if s]
-            out.append((f"stock {sid}", f"below min_volume = {bench.min_volume_mL:g} mL in {', '.join(bad[:4])}: "
-                        f"use a more dilute stock or a smaller dispenser"))
+            out.append(
+                (
+                    f"stock {sid}",
+                    f"below min_volume = {bench.min_volume_mL:g} mL in {', '.join(bad[:4])}: "
+                    f"use a more dilute stock or a smaller dispenser",
+                )
+            )
         vmin = delivery.smallest_delivery_mL(item)
         tiny = used & (v < vmin * (1 - 1e-9))
         if tiny.any():
-            out.append((f"stock {sid}", f"below the smallest volume the {item.label} delivers ({vmin:g} mL) in "
-                        f"{_tubes(recipe.tubes, tiny)}: use a smaller device or a more dilute stock"))
+            out.append(
+                (
+                    f"stock {sid}",
+                    f"below the smallest volume the {item.label} delivers ({vmin:g} mL) in "
+                    f"{_tubes(recipe.tubes, tiny)}: use a smaller device or a more dilute stock",
+                )
+            )
         over = used & (v > item.capacity_mL * (1 + 1e-9))
         if over.any():
             bad = [t for t, o in zip(recipe.tubes, over, strict=True) if o]
-            out.append((f"stock {sid}", f"more than the {item.label} holds ({item.capacity_mL:g} mL) in "
-                        f"{', '.join(bad[:4])}: use a larger device or a more concentrated stock"))
+            out.append(
+                (
+                    f"stock {sid}",
+                    f"more than the {item.label} holds ({item.capacity_mL:g} mL) in "
+                    f"{', '.join(bad[:4])}: use a larger device or a more concentrated stock",
+                )
+            )
         if item.kind == "pipette":
             wrong = used & (np.abs(v - item.capacity_mL) > 1e-9 * item.capacity_mL)
             if wrong.any():
                 bad = [t for t, w in zip(recipe.tubes, wrong, strict=True) if w]
-                out.append((f"stock {sid}", f"a one-mark pipette delivers only {item.capacity_mL:g} mL "
-                            f"(asked otherwise in {', '.join(bad[:4])}): use a burette or graduated pipette"))
+                out.append(
+                    (
+                        f"stock {sid}",
+                        f"a one-mark pipette delivers only {item.capacity_mL:g} mL "
+                        f"(asked otherwise in {', '.join(bad[:4])}): use a burette or graduated pipette",
+                    )
+                )
     return out
 
 
@@ -178,8 +219,15 @@ class ErrorFactors:
         return self.photometric_var + self.delivery_random_var
 
 
-def error_factors(bench: Bench, model: Model, recipe: Recipe, state: TubeState,
-                  *, delta_T_C: float | None = None, dA_dtotals: np.ndarray | None = None) -> ErrorFactors:
+def error_factors(
+    bench: Bench,
+    model: Model,
+    recipe: Recipe,
+    state: TubeState,
+    *,
+    delta_T_C: float | None = None,
+    dA_dtotals: np.ndarray | None = None,
+) -> ErrorFactors:
     """Per-tube variances and shared-error factors (see :class:`ErrorFactors`); vectorised over tubes."""
     if dA_dtotals is None:
         dA_dtotals = absorbance_derivatives(model, state).dA_dtotals
@@ -188,16 +236,20 @@ def error_factors(bench: Bench, model: Model, recipe: Recipe, state: TubeState,
     devices = bench.devices
     var_rand = np.sum((dA_dV * sds.random_mL) ** 2, axis=-1) + (dA_dVtot * sds.flask_mL) ** 2
     nd = len(devices.items)
-    onehot = (devices.stock_device[:, None] == np.arange(nd)[None, :]).astype(float)   # (k, d)
+    onehot = (devices.stock_device[:, None] == np.arange(nd)[None, :]).astype(float)  # (k, d)
     J_dev = (dA_dV * sds.systematic_mL) @ onehot
     # stock concentration factors: dA/dC_k · C_k · rsd_k
-    J_stock = (dA_dtotals @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T) \
-        * recipe.volumes_mL / recipe.total_volume_mL[:, None]
+    J_stock = (
+        (dA_dtotals @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T)
+        * recipe.volumes_mL
+        / recipe.total_volume_mL[:, None]
+    )
     return ErrorFactors(state.absorbance_sd**2, var_rand, J_stock, J_dev)
 
 
-def error_budget(bench: Bench, model: Model, recipe: Recipe, state: TubeState,
-                 *, delta_T_C: float | None = None) -> ErrorBudget:
+def error_budget(
+    bench: Bench, model: Model, recipe: Recipe, state: TubeState, *, delta_T_C: float | None = None
+) -> ErrorBudget:
     """Propagate every error source to the covariance of the tubes' absorbances.
 
     Parameters

@@ -247,30 +247,46 @@ def lookup(
         cls = None
     elif cls not in CLASSES:
         raise GlasswareError(f"unknown glassware class {cls!r} for a {kind}; use 'A' or 'B'")
-    if not (isinstance(capacity_mL, (int, float, np.floating, np.integer)) and math.isfinite(capacity_mL)
-            and capacity_mL > 0):
+    if not (
+        isinstance(capacity_mL, (int, float, np.floating, np.integer))
+        and math.isfinite(capacity_mL)
+        and capacity_mL > 0
+    ):
         raise GlasswareError(f"{kind} capacity must be a positive number of mL, got {capacity_mL!r}")
-    for name, value in (("tolerance_mL", tolerance_mL), ("graduation_mL", graduation_mL),
-                        ("random_mL", random_mL)):
+    for name, value in (
+        ("tolerance_mL", tolerance_mL),
+        ("graduation_mL", graduation_mL),
+        ("random_mL", random_mL),
+    ):
         if value is not None and not (math.isfinite(value) and value > 0):
             raise GlasswareError(f"{kind} {name} must be a positive number of mL, got {value!r}")
 
     base = next(
-        (it for it in catalogue() if it.kind == kind and math.isclose(it.capacity_mL, capacity_mL,
-                                                                      rel_tol=1e-9)),
+        (
+            it
+            for it in catalogue()
+            if it.kind == kind and math.isclose(it.capacity_mL, capacity_mL, rel_tol=1e-9)
+        ),
         None,
     )
     if base is None:
         if tolerance_mL is None:
-            shown = f"{_fmt(capacity_mL * 1000.0)} µL" if kind == "micropipette" else f"{_fmt(capacity_mL)} mL"
+            shown = (
+                f"{_fmt(capacity_mL * 1000.0)} µL" if kind == "micropipette" else f"{_fmt(capacity_mL)} mL"
+            )
             raise GlasswareError(
                 f"no {kind} of {shown} in the glassware catalogue; it has {_describe_capacities(kind)}. "
                 "Pick one of those, or give tolerance_mL for your own device"
             )
         # A user-supplied device: the user vouches for the tolerance at the class asked for.
         return GlasswareItem(
-            kind=kind, capacity_mL=float(capacity_mL), cls=cls, tolerance_mL=float(tolerance_mL),
-            graduation_mL=graduation_mL, random_mL=random_mL, source="user-supplied tolerance",
+            kind=kind,
+            capacity_mL=float(capacity_mL),
+            cls=cls,
+            tolerance_mL=float(tolerance_mL),
+            graduation_mL=graduation_mL,
+            random_mL=random_mL,
+            source="user-supplied tolerance",
             from_memory=False,
         )
 
@@ -284,8 +300,11 @@ def lookup(
         )
     changes = {}
     if tolerance_mL is not None:
-        changes.update(tolerance_mL=float(tolerance_mL), from_memory=False,
-                       source=f"user-supplied tolerance (catalogue: {item.source})")
+        changes.update(
+            tolerance_mL=float(tolerance_mL),
+            from_memory=False,
+            source=f"user-supplied tolerance (catalogue: {item.source})",
+        )
     if graduation_mL is not None:
         changes["graduation_mL"] = float(graduation_mL)
     if random_mL is not None:

@@ -50,9 +50,11 @@ class ErrorBudget:
 
     def sd_parts(self) -> dict[str, np.ndarray]:
         """(n,) sd of each tube's absorbance from each part (their squares add up to the total)."""
-        return {"photometric": np.sqrt(np.diag(self.photometric)),
-                "delivery": np.sqrt(np.diag(self.delivery)),
-                "stock": np.sqrt(np.diag(self.stock))}
+        return {
+            "photometric": np.sqrt(np.diag(self.photometric)),
+            "delivery": np.sqrt(np.diag(self.delivery)),
+            "stock": np.sqrt(np.diag(self.stock)),
+        }
 
     def __repr__(self) -> str:
         sd = self.sd_parts()
@@ -66,9 +68,9 @@ def volume_derivatives(bench: Bench, recipe: Recipe, dA_dtotals: np.ndarray, sto
     delivery also dilutes everything else.
     """
     V = recipe.total_volume_mL
-    tot = (recipe.volumes_mL @ stock_conc_M) / V[:, None]                     # (n, 2)
-    dA_dV = (dA_dtotals @ stock_conc_M.T) / V[:, None]                          # (n, k)
-    dA_dVtot = -np.sum(dA_dtotals * tot, axis=-1) / V                           # (n,)
+    tot = (recipe.volumes_mL @ stock_conc_M) / V[:, None]  # (n, 2)
+    dA_dV = (dA_dtotals @ stock_conc_M.T) / V[:, None]  # (n, k)
+    dA_dVtot = -np.sum(dA_dtotals * tot, axis=-1) / V  # (n,)
     if not bench.to_mark:
         dA_dV = dA_dV + dA_dVtot[:, None]
     return dA_dV, dA_dVtot

@@ -123,8 +123,9 @@ def _reading_u_mL(item: GlasswareItem) -> float:
     return float(u_rectangular(half))
 
 
-def delivery_uncertainty(item: GlasswareItem, volume_mL, *, delta_T_C: float = 0.0,
-                         repeatability_mL: float | None = None) -> DeliveryUncertainty:
+def delivery_uncertainty(
+    item: GlasswareItem, volume_mL, *, delta_T_C: float = 0.0, repeatability_mL: float | None = None
+) -> DeliveryUncertainty:
     """Random and systematic standard uncertainty of each delivered volume.
 
     Vectorised over ``volume_mL``; a volume of 0 means "not delivered" and carries no uncertainty.
@@ -205,8 +206,9 @@ def delivery_uncertainty(item: GlasswareItem, volume_mL, *, delta_T_C: float = 0
     )
 
 
-def flask_volume_uncertainty(item: GlasswareItem, *, delta_T_C: float = 0.0,
-                             repeatability_mL: float = 0.0) -> float:
+def flask_volume_uncertainty(
+    item: GlasswareItem, *, delta_T_C: float = 0.0, repeatability_mL: float = 0.0
+) -> float:
     """Combined standard uncertainty of the volume of a filled volumetric flask, mL.
 
     ``u(V) = √((a/√6)² + s² + (V·α·ΔT/√3)²)``: calibration (triangular), fill repeatability ``s``
@@ -217,11 +219,13 @@ def flask_volume_uncertainty(item: GlasswareItem, *, delta_T_C: float = 0.0,
             f"flask_volume_uncertainty needs a volumetric flask, got a {item.kind}; "
             "use delivery_uncertainty for delivering devices"
         )
-    parts = np.array([
-        float(u_triangular(item.tolerance_mL)),
-        float(_nonnegative(repeatability_mL, "repeatability_mL")),
-        float(u_temperature(item.capacity_mL, delta_T_C)),
-    ])
+    parts = np.array(
+        [
+            float(u_triangular(item.tolerance_mL)),
+            float(_nonnegative(repeatability_mL, "repeatability_mL")),
+            float(u_temperature(item.capacity_mL, delta_T_C)),
+        ]
+    )
     return float(np.sqrt(np.sum(parts**2)))
 
 
@@ -240,8 +244,9 @@ def smallest_delivery_mL(item: GlasswareItem) -> float:
     return MICROPIPETTE_MIN_FRACTION * item.capacity_mL if item.kind == "micropipette" else 0.0
 
 
-def check_volume(item: GlasswareItem, volume_mL, *, step_mL: float | None = None,
-                 min_volume_mL: float | None = None) -> None:
+def check_volume(
+    item: GlasswareItem, volume_mL, *, step_mL: float | None = None, min_volume_mL: float | None = None
+) -> None:
     """Refuse volumes a device cannot deliver.
 
     A volume of 0 means "this device is not used for that tube" and always passes.
@@ -340,7 +345,9 @@ def volume_grid(min_mL: float, max_mL: float, step_mL: float) -> np.ndarray:
     step = _check_step(step_mL)
     lo, hi = float(min_mL), float(max_mL)
     if not (math.isfinite(lo) and math.isfinite(hi)) or lo < 0 or hi < lo:
-        raise GlasswareError(f"volume grid needs 0 ≤ min_mL ≤ max_mL, got min_mL={min_mL!r}, max_mL={max_mL!r}")
+        raise GlasswareError(
+            f"volume grid needs 0 ≤ min_mL ≤ max_mL, got min_mL={min_mL!r}, max_mL={max_mL!r}"
+        )
     if (hi - lo) / step > _MAX_GRID_POINTS:
         raise GlasswareError(
             f"volume grid {_fmt(lo)}–{_fmt(hi)} mL in steps of {_fmt(step)} mL has more than "

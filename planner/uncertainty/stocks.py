@@ -110,8 +110,9 @@ def formula_weight_g_mol(formula: str) -> float:
     return mass
 
 
-def minimum_weight_g(repeatability_g: float, factor: float = USP41_FACTOR, *,
-                     readability_g: float | None = None) -> float:
+def minimum_weight_g(
+    repeatability_g: float, factor: float = USP41_FACTOR, *, readability_g: float | None = None
+) -> float:
     """Smallest net mass a balance weighs accurately enough, ``m_min = factor · s``, g.
 
     USP <41>: repeatability is satisfactory when ``2·s / m ≤ 0.10 %``, so ``m ≥ 2000·s``; when
@@ -136,8 +137,9 @@ def _effective_repeatability_g(repeatability_g: float, readability_g: float | No
     return s
 
 
-def mass_for_conc_g(conc_M: float, volume_mL: float, formula_weight_g_mol: float,
-                    purity: float = 1.0) -> float:
+def mass_for_conc_g(
+    conc_M: float, volume_mL: float, formula_weight_g_mol: float, purity: float = 1.0
+) -> float:
     """Mass of reagent to weigh for ``conc_M`` in ``volume_mL``, corrected for purity, g.
 
     ``m = c·V·M / P`` (V in L).
@@ -145,8 +147,9 @@ def mass_for_conc_g(conc_M: float, volume_mL: float, formula_weight_g_mol: float
     return conc_M * volume_mL * 1e-3 * formula_weight_g_mol / purity
 
 
-def conc_from_weighing_M(mass_g: float, formula_weight_g_mol: float, volume_mL: float,
-                         purity: float = 1.0) -> float:
+def conc_from_weighing_M(
+    mass_g: float, formula_weight_g_mol: float, volume_mL: float, purity: float = 1.0
+) -> float:
     """Concentration of a weighed stock, ``c = m·P / (M·V)``, mol/L [source: QUAM example A1]."""
     return mass_g * purity / (formula_weight_g_mol * volume_mL * 1e-3)
 
@@ -284,12 +287,16 @@ class StockPreparation:
 # --------------------------------------------------------------------------------------------------
 # preparation
 # --------------------------------------------------------------------------------------------------
-def _single_volume_u_rel(item: GlasswareItem, repeatability_mL: float | None = None,
-                         delta_T_C: float = 0.0) -> float:
+def _single_volume_u_rel(
+    item: GlasswareItem, repeatability_mL: float | None = None, delta_T_C: float = 0.0
+) -> float:
     """Relative combined u of one fill (flask) or one delivery (one-mark pipette)."""
     if item.kind == "flask":
-        rep = (REPEATABILITY_PER_U_CALIBRATION * float(u_triangular(item.tolerance_mL))
-               if repeatability_mL is None else repeatability_mL)
+        rep = (
+            REPEATABILITY_PER_U_CALIBRATION * float(u_triangular(item.tolerance_mL))
+            if repeatability_mL is None
+            else repeatability_mL
+        )
         return flask_volume_uncertainty(item, delta_T_C=delta_T_C, repeatability_mL=rep) / item.capacity_mL
     d = delivery_uncertainty(item, item.capacity_mL, delta_T_C=delta_T_C, repeatability_mL=repeatability_mL)
     return float(d.combined_mL) / item.capacity_mL
@@ -411,7 +418,9 @@ def prepare_stock(
         raise StockError(f"stock concentration must be a positive number of mol/L, got {conc_M!r}")
     p = float(purity)
     if not (math.isfinite(p) and 0 < p <= MAX_PURITY):
-        raise StockError(f"purity is a mass fraction in (0, {MAX_PURITY}], got {purity!r} (write 99.5 % as 0.995)")
+        raise StockError(
+            f"purity is a mass fraction in (0, {MAX_PURITY}], got {purity!r} (write 99.5 % as 0.995)"
+        )
     if not (isinstance(max_chain, (int, np.integer)) and max_chain >= 0):
         raise StockError(f"max_chain must be a whole number ≥ 0, got {max_chain!r}")
     hw = _purity_half_width(p, purity_half_width)
@@ -432,19 +441,46 @@ def prepare_stock(
         raise StockError(str(exc)) from None
 
     mass_direct = mass_for_conc_g(conc, final.capacity_mL, fw, p)
-    common = dict(conc_M=conc, flask=final, formula=formula, formula_weight_g_mol=fw, min_weight_g=min_wt,
-                  purity=p, purity_half_width=hw, u_mass_g=u_m)
+    common = dict(
+        conc_M=conc,
+        flask=final,
+        formula=formula,
+        formula_weight_g_mol=fw,
+        min_weight_g=min_wt,
+        purity=p,
+        purity_half_width=hw,
+        u_mass_g=u_m,
+    )
     if mass_direct >= min_wt:
         parts = {"balance": u_m / mass_direct, "purity": u_purity_rel, "flask": weighed_u_rel_final}
         u_rel = math.sqrt(sum(v * v for v in parts.values()))
-        return StockPreparation(mass_g=mass_direct, u_conc_M=u_rel * conc, u_parts=parts, steps=(),
-                                weighed_flask=final, weighed_conc_M=conc, **common)
+        return StockPreparation(
+            mass_g=mass_direct,
+            u_conc_M=u_rel * conc,
+            u_parts=parts,
+            steps=(),
+            weighed_flask=final,
+            weighed_conc_M=conc,
+            **common,
+        )
 
     cls = final.cls or "A"
     flasks = _chain_items("flask", cls, flasks_mL)
     pipettes = _chain_items("pipette", cls, pipettes_mL)
-    chain = _best_chain(conc, final, fw, p, u_m, min_wt, u_purity_rel, delta_T_C, flask_repeatability_mL,
-                        flasks, pipettes, max_chain)
+    chain = _best_chain(
+        conc,
+        final,
+        fw,
+        p,
+        u_m,
+        min_wt,
+        u_purity_rel,
+        delta_T_C,
+        flask_repeatability_mL,
+        flasks,
+        pipettes,
+        max_chain,
+    )
     if chain is None:
         raise StockError(
             f"{mass_direct * 1e3:.3g} mg of {formula} for {conc:g} M in {final.label} is below the balance's "
@@ -454,8 +490,9 @@ def prepare_stock(
     return StockPreparation(**chain, **common)
 
 
-def _best_chain(conc, final, fw, purity, u_m, min_wt, u_purity_rel, delta_T_C, flask_rep, flasks, pipettes,
-                max_chain):
+def _best_chain(
+    conc, final, fw, purity, u_m, min_wt, u_purity_rel, delta_T_C, flask_rep, flasks, pipettes, max_chain
+):
     """Search every chain of 1..max_chain steps, vectorised per chain length; None if none fits."""
     V = np.array([f.capacity_mL for f in flasks])
     v = np.array([q.capacity_mL for q in pipettes])
@@ -472,10 +509,10 @@ def _best_chain(conc, final, fw, purity, u_m, min_wt, u_purity_rel, delta_T_C, f
         # the last pipette into the final flask. Broadcast index grids keep this a handful of arrays.
         shape = (nF,) + (nP, nF) * (k - 1) + (nP,)
         idx = np.indices(shape, sparse=True)
-        i_flasks = [idx[0]] + [idx[2 + 2 * j] for j in range(k - 1)]        # V0, V1..V_{k-1}
-        i_pips = [idx[1 + 2 * j] for j in range(k - 1)] + [idx[-1]]        # v1..vk
-        vols_from = [V[i] for i in i_flasks]                                # solution each aliquot comes from
-        vols_to = [V[i] for i in i_flasks[1:]] + [np.asarray(V_final)]      # flask each aliquot goes into
+        i_flasks = [idx[0]] + [idx[2 + 2 * j] for j in range(k - 1)]  # V0, V1..V_{k-1}
+        i_pips = [idx[1 + 2 * j] for j in range(k - 1)] + [idx[-1]]  # v1..vk
+        vols_from = [V[i] for i in i_flasks]  # solution each aliquot comes from
+        vols_to = [V[i] for i in i_flasks[1:]] + [np.asarray(V_final)]  # flask each aliquot goes into
         vols_pip = [v[i] for i in i_pips]
 
         ok = np.ones(shape, dtype=bool)
@@ -500,13 +537,28 @@ def _best_chain(conc, final, fw, purity, u_m, min_wt, u_purity_rel, delta_T_C, f
         near = flat[u_rel[flat] <= (1.0 + CHAIN_U_SLACK) * u_rel[flat].min()]
         order = np.lexsort((u_rel[near], mass.ravel()[near]))
         best = np.unravel_index(near[order[0]], shape)
-        return _build_chain(best, k, conc, final, fw, purity, u_m, u_purity_rel, flasks, pipettes,
-                            u_weighed, u_flask, u_pip, u_final)
+        return _build_chain(
+            best,
+            k,
+            conc,
+            final,
+            fw,
+            purity,
+            u_m,
+            u_purity_rel,
+            flasks,
+            pipettes,
+            u_weighed,
+            u_flask,
+            u_pip,
+            u_final,
+        )
     return None
 
 
-def _build_chain(best, k, conc, final, fw, purity, u_m, u_purity_rel, flasks, pipettes, u_weighed, u_flask,
-                 u_pip, u_final) -> dict:
+def _build_chain(
+    best, k, conc, final, fw, purity, u_m, u_purity_rel, flasks, pipettes, u_weighed, u_flask, u_pip, u_final
+) -> dict:
     i_flasks = [int(best[0])] + [int(best[2 + 2 * j]) for j in range(k - 1)]
     i_pips = [int(best[1 + 2 * j]) for j in range(k - 1)] + [int(best[-1])]
     to_items = [flasks[i] for i in i_flasks[1:]] + [final]
@@ -516,8 +568,13 @@ def _build_chain(best, k, conc, final, fw, purity, u_m, u_purity_rel, flasks, pi
     for j in reversed(range(k)):
         concs.insert(0, concs[0] * to_items[j].capacity_mL / pipettes[i_pips[j]].capacity_mL)
     steps = tuple(
-        DilutionStep(pipette=pipettes[i_pips[j]], flask=to_items[j], from_conc_M=concs[j],
-                     to_conc_M=concs[j + 1], u_rel=math.hypot(u_pip[i_pips[j]], to_u[j]))
+        DilutionStep(
+            pipette=pipettes[i_pips[j]],
+            flask=to_items[j],
+            from_conc_M=concs[j],
+            to_conc_M=concs[j + 1],
+            u_rel=math.hypot(u_pip[i_pips[j]], to_u[j]),
+        )
         for j in range(k)
     )
     weighed_flask = flasks[i_flasks[0]]
@@ -525,15 +582,27 @@ def _build_chain(best, k, conc, final, fw, purity, u_m, u_purity_rel, flasks, pi
     parts = {"balance": u_m / mass, "purity": u_purity_rel, "flask": float(u_weighed[i_flasks[0]])}
     parts.update({f"dilution_{j + 1}": s.u_rel for j, s in enumerate(steps)})
     u_rel = math.sqrt(sum(x * x for x in parts.values()))
-    return dict(mass_g=mass, u_conc_M=u_rel * conc, u_parts=parts, steps=steps, weighed_flask=weighed_flask,
-                weighed_conc_M=concs[0])
+    return dict(
+        mass_g=mass,
+        u_conc_M=u_rel * conc,
+        u_parts=parts,
+        steps=steps,
+        weighed_flask=weighed_flask,
+        weighed_conc_M=concs[0],
+    )
 
 
 # --------------------------------------------------------------------------------------------------
 # how much to make
 # --------------------------------------------------------------------------------------------------
-def volume_needed_mL(recipe_total_mL, n_deliveries, *, rinse_mL: float = 2.0, dead_volume_mL: float = 1.0,
-                     per_delivery_mL: float = 0.0):
+def volume_needed_mL(
+    recipe_total_mL,
+    n_deliveries,
+    *,
+    rinse_mL: float = 2.0,
+    dead_volume_mL: float = 1.0,
+    per_delivery_mL: float = 0.0,
+):
     """Volume of a stock to have on hand for a recipe, mL.
 
     ``need = recipe total + rinse + dead volume + n_deliveries · per_delivery``:
@@ -549,8 +618,12 @@ def volume_needed_mL(recipe_total_mL, n_deliveries, *, rinse_mL: float = 2.0, de
     """
     total = np.asarray(recipe_total_mL, dtype=float)
     n = np.asarray(n_deliveries)
-    for name, value in (("recipe_total_mL", total), ("rinse_mL", rinse_mL), ("dead_volume_mL", dead_volume_mL),
-                        ("per_delivery_mL", per_delivery_mL)):
+    for name, value in (
+        ("recipe_total_mL", total),
+        ("rinse_mL", rinse_mL),
+        ("dead_volume_mL", dead_volume_mL),
+        ("per_delivery_mL", per_delivery_mL),
+    ):
         arr = np.asarray(value, dtype=float)
         if not np.all(np.isfinite(arr)) or np.any(arr < 0):
             raise StockError(f"{name} must be finite and ≥ 0 mL, got {value!r}")
@@ -579,4 +652,3 @@ def flask_for_volume(volume_mL: float, cls: str = "A") -> GlasswareItem:
         f"{need:g} mL is more than the largest flask in the catalogue ({caps[-1]:g} mL); "
         f"prepare {fills} batches or use a larger vessel"
     )
-

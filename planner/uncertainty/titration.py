@@ -30,7 +30,12 @@ def _devices(bench: Bench):
     t = bench.titration
     ks, kt = bench.stock_index(t.cell), bench.stock_index(t.titrant)
     js, jt = bench.devices.stock_device[ks], bench.devices.stock_device[kt]
-    return ks, kt, (bench.devices.items[js] if js >= 0 else None), (bench.devices.items[jt] if jt >= 0 else None)
+    return (
+        ks,
+        kt,
+        (bench.devices.items[js] if js >= 0 else None),
+        (bench.devices.items[jt] if jt >= 0 else None),
+    )
 
 
 def titration_recipe(bench: Bench, schedule: Schedule) -> Recipe:
@@ -44,40 +49,59 @@ def titration_recipe(bench: Bench, schedule: Schedule) -> Recipe:
     """
     t = bench.titration
     if t is None:
-        raise RecipeError("schedule", "the plan has no [titration] table: a schedule needs one (cell, titrant, "
-                          "start_volume, max_volume)")
+        raise RecipeError(
+            "schedule",
+            "the plan has no [titration] table: a schedule needs one (cell, titrant, "
+            "start_volume, max_volume)",
+        )
     ks, kt, cell_dev, tit_dev = _devices(bench)
     if cell_dev is None:
-        raise RecipeError(f"stock {t.cell}", "no dispenser delivers the start volume: add it to a "
-                          "[[glassware.dispenser]] stocks list")
+        raise RecipeError(
+            f"stock {t.cell}",
+            "no dispenser delivers the start volume: add it to a [[glassware.dispenser]] stocks list",
+        )
     if tit_dev is None:
-        raise RecipeError(f"stock {t.titrant}", "no dispenser delivers the aliquots: add it to a "
-                          "[[glassware.dispenser]] stocks list (a micropipette or a syringe burette)")
+        raise RecipeError(
+            f"stock {t.titrant}",
+            "no dispenser delivers the aliquots: add it to a "
+            "[[glassware.dispenser]] stocks list (a micropipette or a syringe burette)",
+        )
     v = schedule.aliquot_mL
     added = np.cumsum(v)
     room = t.max_volume_mL - t.start_volume_mL
     over = np.flatnonzero(added > room * (1 + 1e-9))
     if over.size:
         k = over[0]
-        raise RecipeError(f"schedule step {schedule.steps[k]}", f"the cell would hold {t.start_volume_mL + added[k]:g} "
-                          f"mL, more than max_volume = {t.max_volume_mL:g} mL: use fewer or smaller aliquots")
+        raise RecipeError(
+            f"schedule step {schedule.steps[k]}",
+            f"the cell would hold {t.start_volume_mL + added[k]:g} "
+            f"mL, more than max_volume = {t.max_volume_mL:g} mL: use fewer or smaller aliquots",
+        )
     used = v > 0
     vmin = delivery.smallest_delivery_mL(tit_dev)
     small = np.flatnonzero(used & (v < vmin * (1 - 1e-9)))
     if small.size:
         k = small[0]
-        raise RecipeError(f"schedule step {schedule.steps[k]}", f"aliquot {v[k]:g} mL is below the smallest volume the "
-                          f"{tit_dev.label} delivers ({vmin:g} mL): use a more dilute titrant or a smaller dispenser")
+        raise RecipeError(
+            f"schedule step {schedule.steps[k]}",
+            f"aliquot {v[k]:g} mL is below the smallest volume the "
+            f"{tit_dev.label} delivers ({vmin:g} mL): use a more dilute titrant or a smaller dispenser",
+        )
     big = np.flatnonzero(v > tit_dev.capacity_mL * (1 + 1e-9))
     if big.size:
         k = big[0]
-        raise RecipeError(f"schedule step {schedule.steps[k]}", f"aliquot {v[k]:g} mL is more than the {tit_dev.label} "
-                          f"holds ({tit_dev.capacity_mL:g} mL): split it or use a larger dispenser")
+        raise RecipeError(
+            f"schedule step {schedule.steps[k]}",
+            f"aliquot {v[k]:g} mL is more than the {tit_dev.label} "
+            f"holds ({tit_dev.capacity_mL:g} mL): split it or use a larger dispenser",
+        )
     off = np.flatnonzero(used & ~delivery.on_grid(v, t.step_mL))
     if off.size:
         k = off[0]
-        raise RecipeError(f"schedule step {schedule.steps[k]}", f"aliquot {v[k]:g} mL is off the {t.step_mL:g} mL grid "
-                          f"of the titrant's dispenser: round it")
+        raise RecipeError(
+            f"schedule step {schedule.steps[k]}",
+            f"aliquot {v[k]:g} mL is off the {t.step_mL:g} mL grid of the titrant's dispenser: round it",
+        )
     n = v.size
     vols = np.zeros((n, len(bench.stock_ids)))
     vols[:, ks] = t.start_volume_mL
@@ -97,31 +121,36 @@ def _parts(bench: Bench, recipe: Recipe, delta_T_C: float | None):
     dT = bench.delta_T_C if delta_T_C is None else delta_T_C
     _, _, cell_dev, tit_dev = _devices(bench)
     v = aliquots_of(bench, recipe)
-    du = delivery.delivery_uncertainty(tit_dev, np.where(v > 0, np.maximum(v, delivery.smallest_delivery_mL(tit_dev)),
-                                                         0.0), delta_T_C=dT)
+    du = delivery.delivery_uncertainty(
+        tit_dev, np.where(v > 0, np.maximum(v, delivery.smallest_delivery_mL(tit_dev)), 0.0), delta_T_C=dT
+    )
     r = np.where(v > 0, du.random_mL, 0.0)
     s = np.where(v > 0, du.systematic_mL, 0.0)
     d0 = delivery.delivery_uncertainty(cell_dev, np.array([t.start_volume_mL]), delta_T_C=dT)
     return r, s, float(d0.random_mL[0]), float(d0.systematic_mL[0])
 
 
-def titration_budget(bench: Bench, model: Model, recipe: Recipe, state: TubeState, *,
-                     delta_T_C: float | None = None) -> ErrorBudget:
+def titration_budget(
+    bench: Bench, model: Model, recipe: Recipe, state: TubeState, *, delta_T_C: float | None = None
+) -> ErrorBudget:
     """Covariance of a titration's readings by source (see the module docstring)."""
     t = bench.titration
     ks, kt = bench.stock_index(t.cell), bench.stock_index(t.titrant)
     dA_dtot = absorbance_derivatives(model, state).dA_dtotals
-    dA_dV, _ = volume_derivatives(bench, recipe, dA_dtot, model.stock_conc_M)   # "added": dilution included
+    dA_dV, _ = volume_derivatives(bench, recipe, dA_dtot, model.stock_conc_M)  # "added": dilution included
     d_start, d_tit = dA_dV[:, ks], dA_dV[:, kt]
     r, s, r0, s0 = _parts(bench, recipe, delta_T_C)
     n = recipe.n_tubes
     walk = np.cumsum(r**2)
-    cov_rand_V = walk[np.minimum.outer(np.arange(n), np.arange(n))]               # Σ_{j ≤ min(k,l)} σ_j²
+    cov_rand_V = walk[np.minimum.outer(np.arange(n), np.arange(n))]  # Σ_{j ≤ min(k,l)} σ_j²
     S = np.cumsum(s)
     delivery_random = np.outer(d_tit, d_tit) * cov_rand_V + np.outer(d_start, d_start) * r0**2
-    J_dev = np.column_stack([d_tit * S, d_start * s0])                            # calibration factors
-    J_stock = (dA_dtot @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T) \
-        * recipe.volumes_mL / recipe.total_volume_mL[:, None]
+    J_dev = np.column_stack([d_tit * S, d_start * s0])  # calibration factors
+    J_stock = (
+        (dA_dtot @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T)
+        * recipe.volumes_mL
+        / recipe.total_volume_mL[:, None]
+    )
     return ErrorBudget(
         photometric=np.diag(state.absorbance_sd**2),
         delivery_random=delivery_random,
@@ -132,8 +161,15 @@ def titration_budget(bench: Bench, model: Model, recipe: Recipe, state: TubeStat
     )
 
 
-def titration_volumes(bench: Bench, recipe: Recipe, rng: np.random.Generator, T: int, *, delivery_errors: bool,
-                      z_start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+def titration_volumes(
+    bench: Bench,
+    recipe: Recipe,
+    rng: np.random.Generator,
+    T: int,
+    *,
+    delivery_errors: bool,
+    z_start: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
     """T simulated titrations' volumes (T, n, k) and totals (T, n): one start volume and one calibration
     error per titration, every aliquot's random error, accumulated along the points."""
     t = bench.titration

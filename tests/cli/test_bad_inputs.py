@@ -22,11 +22,10 @@ from ..conftest import ROOT
 from ..conftest import run_cli as run
 
 EXAMPLES = ROOT / "examples"
-ADDED = "cuvette-1to1"      # make_up = "added": stocks ZN, ZC, BUF (the diluent, dispensed)
-TO_MARK = "stepwise-weak"   # make_up = "to-mark": stocks CU, BD and the diluent NA
+ADDED = "cuvette-1to1"  # make_up = "added": stocks ZN, ZC, BUF (the diluent, dispensed)
+TO_MARK = "stepwise-weak"  # make_up = "to-mark": stocks CU, BD and the diluent NA
 PLAN = EXAMPLES / f"{ADDED}.toml"
 RECIPE = EXAMPLES / f"{ADDED}.csv"
-
 
 
 def example(name: str) -> str:
@@ -65,8 +64,13 @@ def listing(folder: Path) -> set[str]:
 TITLE = 'title = "Zinc(II) with chromogenic ligand Zc in the cuvette (1:1)"'
 PLAN_CASES = [
     # values past validation: NaN, ±inf, booleans and absurd magnitudes, refused with the bound
-    ("temperature-bool", ADDED, "temperature_C = 22.0", "temperature_C = true",
-     "temperature_C: expected a number"),
+    (
+        "temperature-bool",
+        ADDED,
+        "temperature_C = 22.0",
+        "temperature_C = true",
+        "temperature_C: expected a number",
+    ),
     ("temperature-nan", ADDED, "temperature_C = 22.0", "temperature_C = nan", "temperature_C"),
     ("temperature-hot", ADDED, "temperature_C = 22.0", "temperature_C = 500", "150"),
     ("conc-huge", ADDED, 'conc = { M = "0.500 mM" }', 'conc = { M = "1e3 M" }', "stock[0].conc.M"),
@@ -82,52 +86,112 @@ PLAN_CASES = [
     ("noise-negative", ADDED, "k1 = 0.002", "k1 = -0.1", "optics.noise.k1"),
     ("noise-huge", ADDED, "k3 = 0.001", "k3 = 2", "optics.noise.k3"),
     ("stray-light-one", ADDED, "stray_light = 0.0005", "stray_light = 1", "optics.stray_light"),
-    ("linear-range-inf", ADDED, "linear_range = [0.08, 1.20]", "linear_range = [0.08, inf]",
-     "optics.linear_range[1]"),
+    (
+        "linear-range-inf",
+        ADDED,
+        "linear_range = [0.08, 1.20]",
+        "linear_range = [0.08, inf]",
+        "optics.linear_range[1]",
+    ),
     ("log-beta-nan", ADDED, "log_beta = 4.60", "log_beta = nan", "species[0].log_beta"),
     ("log-beta-huge", ADDED, "log_beta = 4.60", "log_beta = 1e300", "60"),
     ("log-beta-sd-negative", ADDED, "log_beta_sd = 0.40", "log_beta_sd = -1", "species[0].log_beta_sd"),
     ("log-beta-sd-huge", ADDED, "log_beta_sd = 0.40", "log_beta_sd = 50", "species[0].log_beta_sd"),
-    ("reference-I-high", ADDED, "[optics]", '[medium]\nreference_ionic_strength = "9 M"\n\n[optics]',
-     "medium.reference_ionic_strength"),
-    ("reference-I-negative", ADDED, "[optics]", '[medium]\nreference_ionic_strength = -0.1\n\n[optics]',
-     "medium.reference_ionic_strength"),
-    ("design-I-zero", ADDED, "goal_se = 0.05", 'goal_se = 0.05\nionic_strength = "0 M"',
-     "design.ionic_strength"),
+    (
+        "reference-I-high",
+        ADDED,
+        "[optics]",
+        '[medium]\nreference_ionic_strength = "9 M"\n\n[optics]',
+        "medium.reference_ionic_strength",
+    ),
+    (
+        "reference-I-negative",
+        ADDED,
+        "[optics]",
+        "[medium]\nreference_ionic_strength = -0.1\n\n[optics]",
+        "medium.reference_ionic_strength",
+    ),
+    (
+        "design-I-zero",
+        ADDED,
+        "goal_se = 0.05",
+        'goal_se = 0.05\nionic_strength = "0 M"',
+        "design.ionic_strength",
+    ),
     ("min-volume-negative", ADDED, 'min_volume = "0.020 mL"', 'min_volume = "-1 mL"', "glassware.min_volume"),
     ("tube-volume-huge", ADDED, 'tube_volume = "3.000 mL"', 'tube_volume = "100 L"', "10000 mL"),
     ("tube-volume-inf", ADDED, 'tube_volume = "3.000 mL"', "tube_volume = inf", "glassware.tube_volume"),
-    ("fixed-negative", ADDED, "goal_se = 0.05", 'goal_se = 0.05\nfixed = { ZN = "-1 mL" }',
-     "design.fixed.ZN"),
+    (
+        "fixed-negative",
+        ADDED,
+        "goal_se = 0.05",
+        'goal_se = 0.05\nfixed = { ZN = "-1 mL" }',
+        "design.fixed.ZN",
+    ),
     ("on-hand-inf", ADDED, 'on_hand = "20 mL"', "on_hand = inf", "stock[0].on_hand"),
     ("fixed-denormal", ADDED, "goal_se = 0.05", "goal_se = 0.05\nfixed = { ZN = 1e-300 }", "design.fixed.ZN"),
-    ("tube-volume-denormal", ADDED, 'tube_volume = "3.000 mL"', 'tube_volume = "1e-300 mL"',
-     "glassware.tube_volume"),
+    (
+        "tube-volume-denormal",
+        ADDED,
+        'tube_volume = "3.000 mL"',
+        'tube_volume = "1e-300 mL"',
+        "glassware.tube_volume",
+    ),
     ("on-hand-zero", ADDED, 'on_hand = "20 mL"', 'on_hand = "0 mL"', "stock[0].on_hand"),
-    ("flask-negative", ADDED, 'formula = "ZnSO4.7H2O"', 'formula = "ZnSO4.7H2O"\nflask = "-5 mL"',
-     "stock[0].flask"),
+    (
+        "flask-negative",
+        ADDED,
+        'formula = "ZnSO4.7H2O"',
+        'formula = "ZnSO4.7H2O"\nflask = "-5 mL"',
+        "stock[0].flask",
+    ),
     ("step-zero", ADDED, 'step = "0.010 mL"', "step = 0", "glassware.step"),
     ("rinse-huge", ADDED, 'rinse = "0.5 mL"', 'rinse = "1e9 mL"', "glassware.rinse"),
-    ("dead-volume-negative", ADDED, 'rinse = "0.5 mL"', 'rinse = "0.5 mL"\ndead_volume = -1',
-     "glassware.dead_volume"),
+    (
+        "dead-volume-negative",
+        ADDED,
+        'rinse = "0.5 mL"',
+        'rinse = "0.5 mL"\ndead_volume = -1',
+        "glassware.dead_volume",
+    ),
     ("capacity-nan", ADDED, 'capacity = "1000 uL"', 'capacity = "nan uL"', "glassware.dispenser[0].capacity"),
     ("wavelength-low", ADDED, "wavelength_nm = 520", "wavelength_nm = 50", "100 and 2000 nm"),
     ("wavelength-nan", ADDED, "wavelength_nm = 520", "wavelength_nm = nan", "optics.wavelength_nm"),
     ("goal-se-zero", ADDED, "goal_se = 0.05", "goal_se = 0", "design.goal_se"),
     ("goal-se-inf", ADDED, "goal_se = 0.05", "goal_se = inf", "design.goal_se"),
-    ("charge-bool", ADDED, 'label = "Zn2+", charge = 2', 'label = "Zn2+", charge = true',
-     "components.M.charge"),
+    (
+        "charge-bool",
+        ADDED,
+        'label = "Zn2+", charge = 2',
+        'label = "Zn2+", charge = true',
+        "components.M.charge",
+    ),
     ("tubes-bool", ADDED, "tubes = 8", "tubes = true", "design.tubes"),
-    ("species-no-metal-no-ligand", ADDED, "formula = { M = 1, L = 1 }", "formula = { M = 0, L = 0 }",
-     "species[0].formula"),
-    ("diluent-fixed-under-to-mark", TO_MARK, 'fixed = { CU = "2.50 mL" }',
-     'fixed = { CU = "2.50 mL", NA = "1 mL" }', "design.fixed.NA"),
+    (
+        "species-no-metal-no-ligand",
+        ADDED,
+        "formula = { M = 1, L = 1 }",
+        "formula = { M = 0, L = 0 }",
+        "species[0].formula",
+    ),
+    (
+        "diluent-fixed-under-to-mark",
+        TO_MARK,
+        'fixed = { CU = "2.50 mL" }',
+        'fixed = { CU = "2.50 mL", NA = "1 mL" }',
+        "design.fixed.NA",
+    ),
     # resource limits at the input edge
     ("step-too-fine", ADDED, 'step = "0.010 mL"', 'step = "0.0001 mL"', "20000"),
     ("title-too-long", ADDED, TITLE, f'title = "{"x" * 300}"', "title"),
     ("label-too-long", ADDED, 'label = "zinc(II) sulfate', f'label = "{"y" * 300}', "stock[0].label"),
-    ("quantity-too-long", ADDED, 'conc = { M = "0.500 mM" }', f'conc = {{ M = "{"1" * 100} mM" }}',
-     "stock[0].conc.M"),
+    (
+        "quantity-too-long",
+        ADDED,
+        'conc = { M = "0.500 mM" }',
+        f'conc = {{ M = "{"1" * 100} mM" }}',
+        "stock[0].conc.M",
+    ),
     ("nested-deep", ADDED, TITLE, TITLE + "\nx = " + "[" * 5000 + "]" * 5000, "nested"),
     ("nested-moderately", ADDED, TITLE, TITLE + "\nx = " + "[" * 60 + "]" * 60, "at most 50"),
     # identifiers with control or text-direction characters; text limits
@@ -137,8 +201,13 @@ PLAN_CASES = [
     ("species-name-long", ADDED, 'name = "ML"', f'name = "{"M" * 41}"', "species[0].name"),
     ("ion-name-control", ADDED, '"Na+" = "25 mM", "HEPES-"', '"Na\\u0007+" = "25 mM", "HEPES-"', "ion name"),
     # messages name the key that was written
-    ("misspelt-required", ADDED, "wavelength_nm = 520", "wavelenght_nm = 520",
-     "did you mean 'wavelength_nm'"),
+    (
+        "misspelt-required",
+        ADDED,
+        "wavelength_nm = 520",
+        "wavelenght_nm = 520",
+        "did you mean 'wavelength_nm'",
+    ),
     ("misspelt-tube-volume", ADDED, "tube_volume =", "tube_volum =", "glassware.tube_volum"),
     ("misspelt-in-list", ADDED, "conc_rsd = 0.004", "conc_rds = 0.004", "stock[0].conc_rds"),
 ]
@@ -161,8 +230,15 @@ def _plan_files(workdir: Path) -> list[tuple[str, bytes]]:
     ]
 
 
-@pytest.mark.parametrize("case,needle", [("plan-over-1MB", "1 MB"), ("plan-not-utf8", "UTF-8"),
-                                         ("plan-is-folder", "folder"), ("plan-missing", "not found")])
+@pytest.mark.parametrize(
+    "case,needle",
+    [
+        ("plan-over-1MB", "1 MB"),
+        ("plan-not-utf8", "UTF-8"),
+        ("plan-is-folder", "folder"),
+        ("plan-missing", "not found"),
+    ],
+)
 def test_bad_plan_file(workdir, capsys, monkeypatch, case, needle):
     plan = workdir / "plan.toml"
     if case == "plan-is-folder":
@@ -192,8 +268,12 @@ CSV_CASES = [
     ("denormal-volume", ADDED, "tube,ZN,ZC,BUF\nC1,1e-300,0.1,2.5\n", "line 2, ZN: 1e-300 mL"),
     ("huge-volume", ADDED, "tube,ZN,ZC,BUF\nC1,0.2,0.1,1e6\n", "line 2, BUF: 1e+06 mL"),
     ("blank-volume", ADDED, "tube,ZN,ZC,BUF\nC1,0.2,,2.5\n", "line 2, ZC"),
-    ("too-many-rows", ADDED, "tube,ZN,ZC,BUF\n" + "".join(f"C{i},0.2,0.1,2.5\n" for i in range(1001)),
-     "1000"),
+    (
+        "too-many-rows",
+        ADDED,
+        "tube,ZN,ZC,BUF\n" + "".join(f"C{i},0.2,0.1,2.5\n" for i in range(1001)),
+        "1000",
+    ),
     ("empty", ADDED, "# only a comment\n\n", "empty"),
     ("no-tubes", ADDED, "tube,ZN,ZC,BUF\n", "no tubes"),
     ("unknown-column", ADDED, "tube,ZN,ZX,BUF\nC1,0.2,0.1,2.5\n", "column 'ZX'"),
@@ -218,16 +298,20 @@ def test_bad_recipe(workdir, capsys, monkeypatch, name, text, needle):
     assert listing(workdir) == before
 
 
-@pytest.mark.parametrize("cell,needle", [
-    ("nan", "readings.csv line 3, absorbance: 'nan' is not an absorbance"),
-    ("1e400", "readings.csv line 3, absorbance: '1e400' is out of range"),
-    ("-inf", "readings.csv line 3, absorbance"),
-    ("25", "readings.csv, tube C2: absorbance 25"),
-])
+@pytest.mark.parametrize(
+    "cell,needle",
+    [
+        ("nan", "readings.csv line 3, absorbance: 'nan' is not an absorbance"),
+        ("1e400", "readings.csv line 3, absorbance: '1e400' is out of range"),
+        ("-inf", "readings.csv line 3, absorbance"),
+        ("25", "readings.csv, tube C2: absorbance 25"),
+    ],
+)
 def test_bad_reading(workdir, capsys, monkeypatch, cell, needle):
     rec = workdir / "readings.csv"
-    rec.write_text(f"tube,ZN,ZC,BUF,absorbance\nC1,0.2,0.15,2.65,0.31\nC2,0.2,0.3,2.5,{cell}\n"
-                   "C3,0.2,0.45,2.35,0.52\n")
+    rec.write_text(
+        f"tube,ZN,ZC,BUF,absorbance\nC1,0.2,0.15,2.65,0.31\nC2,0.2,0.3,2.5,{cell}\nC3,0.2,0.45,2.35,0.52\n"
+    )
     before = listing(workdir)
     code, _, err = run(capsys, monkeypatch, "fit", PLAN, rec)
     assert_refused(code, err, needle)
@@ -237,8 +321,10 @@ def test_bad_reading(workdir, capsys, monkeypatch, cell, needle):
 def test_readings_follow_the_recipe_rules(workdir, capsys, monkeypatch):
     # a quoted label with a comma and a tube labelled '#3' are tubes, in readings as in recipes
     rec = workdir / "readings.csv"
-    rec.write_text("# measured on the bench\ntube,ZN,ZC,BUF,absorbance\n\"P,3\",0.2,0.15,2.65,0.31\n"
-                   "#3,0.2,0.3,2.5,0.45\nC3,0.2,0.45,2.35,0.52\nC4,0.2,0.6,2.2,0.57\n")
+    rec.write_text(
+        '# measured on the bench\ntube,ZN,ZC,BUF,absorbance\n"P,3",0.2,0.15,2.65,0.31\n'
+        "#3,0.2,0.3,2.5,0.45\nC3,0.2,0.45,2.35,0.52\nC4,0.2,0.6,2.2,0.57\n"
+    )
     code, out, err = run(capsys, monkeypatch, "fit", PLAN, rec, "--json")
     assert code == 0, err
     assert [t["tube"] for t in json.loads(out)["tubes"]] == ["P,3", "#3", "C3", "C4"]
@@ -275,12 +361,21 @@ OPTION_CASES = [
     ("demo-out-is-file", ["demo", "--out", "afile"], "afile: it is a file"),
     ("report-design-list", ["report", PLAN, RECIPE, "--out", "r.pdf", "--design", "list.json"], "an array"),
     ("report-design-string", ["report", PLAN, RECIPE, "--out", "r.pdf", "--design", "str.json"], "a string"),
-    ("report-design-not-json", ["report", PLAN, RECIPE, "--out", "r.pdf", "--design", "afile"],
-     "--design afile"),
-    ("report-design-bad-key", ["report", PLAN, RECIPE, "--out", "r.pdf", "--design", "bad.json"],
-     "criterion"),
-    ("report-design-missing", ["report", PLAN, RECIPE, "--out", "r.pdf", "--design", "nope.json"],
-     "--design"),
+    (
+        "report-design-not-json",
+        ["report", PLAN, RECIPE, "--out", "r.pdf", "--design", "afile"],
+        "--design afile",
+    ),
+    (
+        "report-design-bad-key",
+        ["report", PLAN, RECIPE, "--out", "r.pdf", "--design", "bad.json"],
+        "criterion",
+    ),
+    (
+        "report-design-missing",
+        ["report", PLAN, RECIPE, "--out", "r.pdf", "--design", "nope.json"],
+        "--design",
+    ),
     ("design-too-many-tubes", ["design", PLAN, "--tubes", "500"], "--tubes"),
     ("assess-too-many-trials", ["assess", PLAN, RECIPE, "--trials", "100000000"], "--trials"),
     ("assess-negative-seed", ["assess", PLAN, RECIPE, "--seed", "-1"], "--seed"),
@@ -313,15 +408,23 @@ def test_corpus_size():
 # ---------------------------------------------------------------------------------------------------
 # the same path through the installed console script's module entry (a separate interpreter)
 # ---------------------------------------------------------------------------------------------------
-@pytest.mark.parametrize("mutation,needle", [
-    (("temperature_C = 22.0", "temperature_C = false"), "temperature_C"),
-    (("wavelength_nm = 520", "wavelenght_nm = 520"), "did you mean 'wavelength_nm'"),
-])
+@pytest.mark.parametrize(
+    "mutation,needle",
+    [
+        (("temperature_C = 22.0", "temperature_C = false"), "temperature_C"),
+        (("wavelength_nm = 520", "wavelenght_nm = 520"), "did you mean 'wavelength_nm'"),
+    ],
+)
 def test_subprocess_one_line(tmp_path, mutation, needle):
     plan = tmp_path / "plan.toml"
     plan.write_text(mutate(ADDED, *mutation), encoding="utf-8")
-    res = subprocess.run([sys.executable, "-m", "planner", "check", str(plan)],
-                         capture_output=True, text=True, timeout=120, env={**os.environ, "COLUMNS": "200"})
+    res = subprocess.run(
+        [sys.executable, "-m", "planner", "check", str(plan)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        env={**os.environ, "COLUMNS": "200"},
+    )
     assert_refused(res.returncode, res.stderr, needle)
     assert res.stdout == ""
 
@@ -335,8 +438,12 @@ HOSTILE = "x [/bold] y [link=file:///etc/passwd]z[/link] \\u202e\\u001b]8;;http:
 @pytest.mark.parametrize("command", ["check", "stocks"])
 def test_markup_and_controls_in_title_print_as_text(workdir, capsys, monkeypatch, command):
     plan = workdir / "plan.toml"
-    plan.write_text(mutate(ADDED, TITLE, f'title = "{HOSTILE}"').replace(
-        'label = "zinc(II) sulfate', 'label = "[red]zinc\\u2066(II) sulfate'), encoding="utf-8")
+    plan.write_text(
+        mutate(ADDED, TITLE, f'title = "{HOSTILE}"').replace(
+            'label = "zinc(II) sulfate', 'label = "[red]zinc\\u2066(II) sulfate'
+        ),
+        encoding="utf-8",
+    )
     code, out, err = run(capsys, monkeypatch, command, plan)
     assert code == 0, err
     assert "[/bold] y [link=file:///etc/passwd]z[/link]" in out and ":warning:" in out
@@ -389,8 +496,11 @@ def test_library_warnings_hidden_own_warnings_one_line(capsys, monkeypatch):
     def noisy(path):
         warnings.warn("some library detail", DeprecationWarning, stacklevel=1)
         warnings.warn("overflow in a library", RuntimeWarning, stacklevel=1)
-        warnings.warn("ionic strength reaches 2.00 M: treat activity corrections as rough", ActivityWarning,
-                      stacklevel=1)
+        warnings.warn(
+            "ionic strength reaches 2.00 M: treat activity corrections as rough",
+            ActivityWarning,
+            stacklevel=1,
+        )
         return real(path)
 
     monkeypatch.setattr(plan_module, "load_plan", noisy)
@@ -435,8 +545,25 @@ def test_design_files_are_one_unit(tmp_path, monkeypatch):
     assert sorted(p.name for p in out.iterdir()) == ["design.json", "recipe.csv"]
 
 
-@pytest.mark.parametrize("ch", ["\x00", "\x07", "\t", "\n", "\x1b", "\x7f", "\x85", "\x9b", "\u200e",
-                                "\u2028", "\u202a", "\u202e", "\u2066", "\u2069"])
+@pytest.mark.parametrize(
+    "ch",
+    [
+        "\x00",
+        "\x07",
+        "\t",
+        "\n",
+        "\x1b",
+        "\x7f",
+        "\x85",
+        "\x9b",
+        "\u200e",
+        "\u2028",
+        "\u202a",
+        "\u202e",
+        "\u2066",
+        "\u2069",
+    ],
+)
 def test_visible_escapes_every_unsafe_character(ch):
     from planner.cli.app import safe_text
     from planner.inputs.text import check_identifier, visible

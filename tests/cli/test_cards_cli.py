@@ -20,8 +20,9 @@ def test_count_writes_every_file_and_reruns_identically(tmp_path, capsys, monkey
     outs = []
     for k in (1, 2):
         d = tmp_path / f"run{k}"
-        code, out, err = run(capsys, monkeypatch, "cards", PLAN, "--count", 4, "--sections", 2, "--out", d,
-                             "--seed", 5)
+        code, out, err = run(
+            capsys, monkeypatch, "cards", PLAN, "--count", 4, "--sections", 2, "--out", d, "--seed", 5
+        )
         assert code == 0, err
         outs.append({n: (d / n).read_bytes() for n in FILES})
     assert outs[0] == outs[1]  # derived: same seed and roster -> byte-identical files
@@ -33,8 +34,9 @@ def test_count_writes_every_file_and_reruns_identically(tmp_path, capsys, monkey
 
 
 def test_json(tmp_path, capsys, monkeypatch):
-    code, out, err = run(capsys, monkeypatch, "cards", PLAN, "--count", 3, "--tubes", 6, "--out", tmp_path,
-                         "--json")
+    code, out, err = run(
+        capsys, monkeypatch, "cards", PLAN, "--count", 3, "--tubes", 6, "--out", tmp_path, "--json"
+    )
     assert code == 0, err
     data = json.loads(out)
     assert data["students"] == 3 and data["tubes_per_student"] == 6 and data["sound"] is True
@@ -42,14 +44,17 @@ def test_json(tmp_path, capsys, monkeypatch):
     assert {s["id"] for s in data["stocks"]} == {"CU", "DY", "BG"}
 
 
-@pytest.mark.parametrize("text, needle", [
-    ("id,name\nx1,Ama Oduya\nx1,Bertil Sand\n", "row 3 column 'id'"),          # duplicate id
-    ("id,name\nx1,\n", "row 2 column 'name'"),                                 # empty name
-    ("id,section\nx1,A\n", "column 'name'"),                                   # missing column
-    ("id;name\nx1;Ama Oduya\n", "semicolons"),                                 # semicolons
-    ("id,name,colour\nx1,Ama Oduya,red\n", "column 'colour'"),                 # unknown column
-    ("id,name\n", "no students"),                                              # header only
-])
+@pytest.mark.parametrize(
+    "text, needle",
+    [
+        ("id,name\nx1,Ama Oduya\nx1,Bertil Sand\n", "row 3 column 'id'"),  # duplicate id
+        ("id,name\nx1,\n", "row 2 column 'name'"),  # empty name
+        ("id,section\nx1,A\n", "column 'name'"),  # missing column
+        ("id;name\nx1;Ama Oduya\n", "semicolons"),  # semicolons
+        ("id,name,colour\nx1,Ama Oduya,red\n", "column 'colour'"),  # unknown column
+        ("id,name\n", "no students"),  # header only
+    ],
+)
 def test_bad_roster_one_line_exit_2(tmp_path, capsys, monkeypatch, text, needle):
     path = tmp_path / "roster.csv"
     path.write_text(text, encoding="utf-8")
@@ -62,7 +67,9 @@ def test_bad_roster_one_line_exit_2(tmp_path, capsys, monkeypatch, text, needle)
 def test_bom_roster_is_read(tmp_path, capsys, monkeypatch):
     path = tmp_path / "roster.csv"
     path.write_bytes("\ufeffid,name,bench\nb1,Ingrid Vasquez-Ohlin,3\nb2,Teodor Malik,3\n".encode())
-    code, out, err = run(capsys, monkeypatch, "cards", PLAN, "--roster", path, "--out", tmp_path / "o", "--json")
+    code, out, err = run(
+        capsys, monkeypatch, "cards", PLAN, "--roster", path, "--out", tmp_path / "o", "--json"
+    )
     assert code == 0, err
     data = json.loads(out)
     assert [c["student"] for c in data["cards"]] == ["b1", "b2"]

@@ -29,4 +29,6 @@ def test_cards_key_grades_a_class(tmp_path, capsys, monkeypatch):
     assert verdicts == {"S01": "ok", "S02": "flagged", "S03": "ok", "S04": "ok"}
     s02 = next(s for s in g["students"] if s["student"] == "S02")
     assert "blank" in s02["explanation"]
-    assert abs(g["pooled"]["parameters"][0]["estimate"] - 3.3) < 1e-3  # noise-free readings give the guess back
+    assert (
+        abs(g["pooled"]["parameters"][0]["estimate"] - 3.3) < 1e-3
+    )  # noise-free readings give the guess back

@@ -23,8 +23,15 @@ def test_help(capsys, monkeypatch):
 def test_demo_writes_files(tmp_path, capsys, monkeypatch):
     code, out, err = run(capsys, monkeypatch, "demo", "--out", tmp_path / "d")
     assert code == 0, err
-    for name in ("plan.toml", "recipe.csv", "recipe-even.csv", "design.json", "assessment.json", "prep.pdf",
-                 "report.pdf"):
+    for name in (
+        "plan.toml",
+        "recipe.csv",
+        "recipe-even.csv",
+        "design.json",
+        "assessment.json",
+        "prep.pdf",
+        "report.pdf",
+    ):
         assert (tmp_path / "d" / name).is_file()
     data = json.loads((tmp_path / "d" / "assessment.json").read_text())
     assert data["tubes"] and data["verdict"] in ("resolved", "bounded", "unresolved")
@@ -47,12 +54,15 @@ def test_new_unknown_scenario(tmp_path, capsys, monkeypatch):
     assert code == 2 and "unknown scenario" in err and not (tmp_path / "x.toml").exists()
 
 
-@pytest.mark.parametrize("old,new,needle", [
-    ('wavelength_nm = 580', 'wavelength_nm = = 580', "TOML syntax error"),
-    ('conc = { M = "10.0 mM" }', 'conc = { M = "10.0 mQ" }', "stock[0].conc.M"),
-    ('stocks = ["CU", "DY"]', 'stocks = ["CU", "DX"]', "glassware.dispenser[0].stocks[1]"),
-    ("wavelength_nm = 580", "wavelenght_nm = 580\nwavelength_nm = 580", "did you mean 'wavelength_nm'"),
-])
+@pytest.mark.parametrize(
+    "old,new,needle",
+    [
+        ("wavelength_nm = 580", "wavelength_nm = = 580", "TOML syntax error"),
+        ('conc = { M = "10.0 mM" }', 'conc = { M = "10.0 mQ" }', "stock[0].conc.M"),
+        ('stocks = ["CU", "DY"]', 'stocks = ["CU", "DX"]', "glassware.dispenser[0].stocks[1]"),
+        ("wavelength_nm = 580", "wavelenght_nm = 580\nwavelength_nm = 580", "did you mean 'wavelength_nm'"),
+    ],
+)
 def test_bad_plan_one_line_exit_2(tmp_path, capsys, monkeypatch, teaching_text, old, new, needle):
     plan = tmp_path / "bad.toml"
     plan.write_text(teaching_text.replace(old, new))
@@ -62,8 +72,16 @@ def test_bad_plan_one_line_exit_2(tmp_path, capsys, monkeypatch, teaching_text, 
 
 
 def test_assess_json(tmp_path, capsys, monkeypatch):
-    code, out, err = run(capsys, monkeypatch, "assess", ROOT / "examples" / "cuvette-1to1.toml",
-                         ROOT / "examples" / "cuvette-1to1.csv", "--json", "--trials", "100")
+    code, out, err = run(
+        capsys,
+        monkeypatch,
+        "assess",
+        ROOT / "examples" / "cuvette-1to1.toml",
+        ROOT / "examples" / "cuvette-1to1.csv",
+        "--json",
+        "--trials",
+        "100",
+    )
     data = json.loads(out)
     assert code == (0 if data["verdict"] == "resolved" else 1), err  # 1: the recipe does not resolve K
     assert {"title", "verdict", "parameters", "tubes", "checks"} <= data.keys()
@@ -77,11 +95,25 @@ def test_assess_bad_recipe(tmp_path, capsys, monkeypatch):
 
 
 def test_assess_bad_at(capsys, monkeypatch, tmp_path):
-    code, _, err = run(capsys, monkeypatch, "assess", ROOT / "examples/cuvette-1to1.toml",
-                       ROOT / "examples/cuvette-1to1.csv", "--at", "MX=3")
+    code, _, err = run(
+        capsys,
+        monkeypatch,
+        "assess",
+        ROOT / "examples/cuvette-1to1.toml",
+        ROOT / "examples/cuvette-1to1.csv",
+        "--at",
+        "MX=3",
+    )
     assert code == 2 and "unknown species 'MX'" in err
-    code, _, err = run(capsys, monkeypatch, "assess", ROOT / "examples/cuvette-1to1.toml",
-                       ROOT / "examples/cuvette-1to1.csv", "--at", "ML")
+    code, _, err = run(
+        capsys,
+        monkeypatch,
+        "assess",
+        ROOT / "examples/cuvette-1to1.toml",
+        ROOT / "examples/cuvette-1to1.csv",
+        "--at",
+        "ML",
+    )
     assert code == 2 and "NAME=LOGBETA" in err
 
 
@@ -108,7 +140,9 @@ def test_atomic_write_leaves_nothing_on_failure(tmp_path, monkeypatch):
 def test_module_entry_point():
     import subprocess
 
-    res = subprocess.run([sys.executable, "-m", "planner", "--help"], capture_output=True, text=True, timeout=120)
+    res = subprocess.run(
+        [sys.executable, "-m", "planner", "--help"], capture_output=True, text=True, timeout=120
+    )
     assert res.returncode == 0 and "kplan" in res.stdout.lower() or "Usage" in res.stdout
 
 
@@ -127,9 +161,13 @@ def test_examples_are_checked_and_assessed(capsys, monkeypatch):
 
 def test_fit_command(tmp_path, capsys, monkeypatch):
     csv = tmp_path / "readings.csv"
-    csv.write_text("tube,CU,DY,absorbance\nT1,1.00,0.50,0.290\nT2,1.00,1.00,0.452\nT3,1.00,1.50,0.560\n"
-                   "T4,1.00,2.00,0.629\nT5,1.00,3.00,0.712\nT6,1.00,4.00,0.760\n")
-    code, out, err = run(capsys, monkeypatch, "fit", ROOT / "planner/data/scenarios/teaching.toml", csv, "--json")
+    csv.write_text(
+        "tube,CU,DY,absorbance\nT1,1.00,0.50,0.290\nT2,1.00,1.00,0.452\nT3,1.00,1.50,0.560\n"
+        "T4,1.00,2.00,0.629\nT5,1.00,3.00,0.712\nT6,1.00,4.00,0.760\n"
+    )
+    code, out, err = run(
+        capsys, monkeypatch, "fit", ROOT / "planner/data/scenarios/teaching.toml", csv, "--json"
+    )
     assert code == 0, err
     data = json.loads(out)
     assert data["parameters"][0]["name"] == "log_beta[ML]" and data["dof"] == 4
@@ -143,11 +181,25 @@ def test_sheet_and_report_commands(tmp_path, capsys, monkeypatch):
     plan = ROOT / "planner/data/scenarios/teaching.toml"
     rec = tmp_path / "r.csv"
     rec.write_text("tube,CU,DY\nT1,1.00,0.50\nT2,1.00,1.00\nT3,1.00,2.00\nT4,1.00,3.00\n")
-    code, out, err = run(capsys, monkeypatch, "sheet", plan, rec, "--out", tmp_path / "prep.pdf", "--trials", "100")
+    code, out, err = run(
+        capsys, monkeypatch, "sheet", plan, rec, "--out", tmp_path / "prep.pdf", "--trials", "100"
+    )
     assert code == 0, err
     assert (tmp_path / "prep.pdf").read_bytes()[:5] == b"%PDF-"
-    code, out, err = run(capsys, monkeypatch, "report", plan, rec, "--out", tmp_path / "rep.html", "--html",
-                         "--trials", "100", "--paper", "Letter")
+    code, out, err = run(
+        capsys,
+        monkeypatch,
+        "report",
+        plan,
+        rec,
+        "--out",
+        tmp_path / "rep.html",
+        "--html",
+        "--trials",
+        "100",
+        "--paper",
+        "Letter",
+    )
     assert code == 0, err
     assert "<html" in (tmp_path / "rep.html").read_text().lower()
     code, _, err = run(capsys, monkeypatch, "sheet", plan, rec, "--paper", "A5", "--out", tmp_path / "x.pdf")

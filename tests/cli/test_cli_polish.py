@@ -31,7 +31,12 @@ def test_check_warns_about_a_stock_without_dispenser(tmp_path, capsys, monkeypat
 def test_piped_tables_keep_their_names(tmp_path):
     # a file or a pipe gets wide tables, not rich's 80 columns that cut the stock recipes into slivers
     env = {k: v for k, v in __import__("os").environ.items() if k != "COLUMNS"}
-    res = subprocess.run([sys.executable, "-m", "planner", "stocks", str(ROOT / "planner/data/scenarios/teaching.toml")],
-                         capture_output=True, text=True, env=env, check=True)
+    res = subprocess.run(
+        [sys.executable, "-m", "planner", "stocks", str(ROOT / "planner/data/scenarios/teaching.toml")],
+        capture_output=True,
+        text=True,
+        env=env,
+        check=True,
+    )
     assert max(len(line) for line in res.stdout.splitlines()) > 100
     assert "Weigh 0.2440 g of Cu(NO₃)₂·3H₂O" in res.stdout

@@ -28,11 +28,25 @@ def test_design_after_readings(tmp_path, capsys, monkeypatch):
     A = simulate(st.bench, st.model, first, np.random.default_rng(1), 1, log_beta=lb).absorbance[0]
     lines = recipe_to_csv(first, plan).splitlines()
     readings = tmp_path / "first.csv"
-    readings.write_text("\n".join([lines[0] + ",absorbance"] + [f"{r},{a:.4f}" for r, a in zip(lines[1:], A, strict=True)])
-                        + "\n", encoding="utf-8")
+    readings.write_text(
+        "\n".join([lines[0] + ",absorbance"] + [f"{r},{a:.4f}" for r, a in zip(lines[1:], A, strict=True)])
+        + "\n",
+        encoding="utf-8",
+    )
     out_dir = tmp_path / "next"
-    code, out, err = run(capsys, monkeypatch, "design", plan_path, "--after", readings, "--tubes", "4",
-                         "--json", "--out", out_dir)
+    code, out, err = run(
+        capsys,
+        monkeypatch,
+        "design",
+        plan_path,
+        "--after",
+        readings,
+        "--tubes",
+        "4",
+        "--json",
+        "--out",
+        out_dir,
+    )
     assert code == 0, err
     summary = json.loads(out)
     seq = summary["sequential"]

@@ -26,8 +26,11 @@ def _write(tmp_path, log_beta: float):
     a = simulate(st.bench, st.model, r, np.random.default_rng(0), 1, log_beta=lb).absorbance[0]
     lines = recipe_to_csv(r, plan).splitlines()
     path = tmp_path / "readings.csv"
-    path.write_text("\n".join([lines[0] + ",absorbance"] + [f"{ln},{x:.4f}" for ln, x in zip(lines[1:], a, strict=True)]) + "\n",
-                    encoding="utf-8")
+    path.write_text(
+        "\n".join([lines[0] + ",absorbance"] + [f"{ln},{x:.4f}" for ln, x in zip(lines[1:], a, strict=True)])
+        + "\n",
+        encoding="utf-8",
+    )
     return tmp_path / "plan.toml", path
 
 

@@ -13,8 +13,8 @@ from planner.inference.guard import guarded_design
 
 def _line_and_curvature(n_points: int = 21, size: float = 2.0):
     x = np.linspace(0.0, 1.0, n_points)
-    F = np.column_stack([np.ones_like(x), x])        # main model: straight line, σ = 1 (whitened)
-    R = (size * x**2)[None, :]                       # alternative: the same plus a quadratic term
+    F = np.column_stack([np.ones_like(x), x])  # main model: straight line, σ = 1 (whitened)
+    R = (size * x**2)[None, :]  # alternative: the same plus a quadratic term
     return x, F, R
 
 

@@ -227,7 +227,9 @@ for _name in NIST_MODELS:
                 _marks = [pytest.mark.xfail(strict=True, reason=_BOXBOD_1)]
             elif _name == "MGH09" and _start == 1 and _jac == "2-point":
                 _marks = [pytest.mark.xfail(strict=True, reason=_MGH09_1_FD)]
-            NIST_CASES.append(pytest.param(_name, _start, _jac, marks=_marks, id=f"{_name}-start{_start}-{_jac}"))
+            NIST_CASES.append(
+                pytest.param(_name, _start, _jac, marks=_marks, id=f"{_name}-start{_start}-{_jac}")
+            )
 
 
 @pytest.mark.parametrize(("name", "start", "jac_kind"), NIST_CASES)
@@ -263,7 +265,9 @@ def test_nist_misra1d_default_tolerances():
     # source: NIST StRD Misra1d header. The 1:1 isotherm y = b1 b2 x / (1 + b2 x), with the
     # solver's default tolerances and iteration cap, from both starts.
     prob = load_nist("Misra1d")
-    res = fit_many(lambda th: misra1d(th, prob.x)[0], prob.starts, prob.y, jac=lambda th: misra1d(th, prob.x)[1])
+    res = fit_many(
+        lambda th: misra1d(th, prob.x)[0], prob.starts, prob.y, jac=lambda th: misra1d(th, prob.x)[1]
+    )
     assert res.converged.all()
     assert lre(res.theta, prob.certified).min() >= PARAM_DIGITS
     assert lre(res.se, prob.certified_sd).min() >= SD_DIGITS
@@ -275,8 +279,13 @@ def test_nist_absolute_sigma_convention():
     # s² = RSS/dof (source: NIST StRD Misra1a header for sd, RSS and dof)
     prob = load_nist("Misra1a")
     res = fit_many(
-        lambda th: exp_rise(th, prob.x)[0], prob.starts[1], prob.y, jac=lambda th: exp_rise(th, prob.x)[1],
-        sigma=np.ones(prob.y.size), scale_cov=False, **NIST_SOLVER,
+        lambda th: exp_rise(th, prob.x)[0],
+        prob.starts[1],
+        prob.y,
+        jac=lambda th: exp_rise(th, prob.x)[1],
+        sigma=np.ones(prob.y.size),
+        scale_cov=False,
+        **NIST_SOLVER,
     )
     assert lre(res.se[0], prob.certified_sd / np.sqrt(prob.rss / prob.dof)).min() >= SD_DIGITS
 
@@ -388,8 +397,11 @@ def test_matches_scipy_least_squares_lm(kind):
     assert res.converged.all()
     for t in range(y.shape[0]):
         ref = least_squares(
-            lambda th, t=t: model(th[None])[0] - y[t], start[t], jac=lambda th: jac(th[None])[0],
-            method="lm", **TIGHT,
+            lambda th, t=t: model(th[None])[0] - y[t],
+            start[t],
+            jac=lambda th: jac(th[None])[0],
+            method="lm",
+            **TIGHT,
         )
         assert ref.status > 0
         cov_ref = np.linalg.inv(ref.jac.T @ ref.jac) * (2 * ref.cost / res.dof)
@@ -488,8 +500,14 @@ def test_whiten_equals_closed_form_gls_on_a_line():
     def line(theta):
         return theta @ design.T
 
-    res = fit_many(line, [0.0, 1.0], y, jac=lambda th: np.broadcast_to(design, (th.shape[0], *design.shape)),
-                   whiten=np.linalg.inv(chol), scale_cov=False)
+    res = fit_many(
+        line,
+        [0.0, 1.0],
+        y,
+        jac=lambda th: np.broadcast_to(design, (th.shape[0], *design.shape)),
+        whiten=np.linalg.inv(chol),
+        scale_cov=False,
+    )
     prec = design.T @ np.linalg.solve(sigma_ar, design)
     beta = np.linalg.solve(prec, design.T @ np.linalg.solve(sigma_ar, y.T)).T
     np.testing.assert_allclose(res.theta, beta, rtol=1e-10, atol=1e-12)
@@ -544,8 +562,12 @@ def test_linear_models_give_ordinary_least_squares(n_obs, n_params, seed):
     rng = np.random.default_rng(seed)
     design = rng.normal(size=(n_obs, n_params))
     y = rng.normal(size=(3, n_obs))
-    res = fit_many(lambda th: th @ design.T, np.zeros(n_params), y,
-                   jac=lambda th: np.broadcast_to(design, (th.shape[0], n_obs, n_params)))
+    res = fit_many(
+        lambda th: th @ design.T,
+        np.zeros(n_params),
+        y,
+        jac=lambda th: np.broadcast_to(design, (th.shape[0], n_obs, n_params)),
+    )
     beta, *_ = np.linalg.lstsq(design, y.T, rcond=None)
     resid = y - beta.T @ design.T
     s2 = np.einsum("tn,tn->t", resid, resid) / (n_obs - n_params)
@@ -582,8 +604,13 @@ def test_singular_jacobian_marks_trial_not_converged():
 
 def test_max_iter_reached_is_not_converged():
     prob = load_nist("MGH09")  # source: NIST StRD MGH09, needs hundreds of steps from start 1
-    res = fit_many(lambda th: mgh09(th, prob.x)[0], prob.starts[0], prob.y,
-                   jac=lambda th: mgh09(th, prob.x)[1], max_iter=5)
+    res = fit_many(
+        lambda th: mgh09(th, prob.x)[0],
+        prob.starts[0],
+        prob.y,
+        jac=lambda th: mgh09(th, prob.x)[1],
+        max_iter=5,
+    )
     assert res.n_iter[0] == 5 and res.status[0] == 5 and not res.converged[0]
 
 
@@ -597,8 +624,13 @@ def test_bounds_project_steps():
     assert capped.theta[0, 0] == 400.0
     assert capped.chi2[0] > free.chi2[0]
     # b2 is then the best value given b1 = 400: a 1-parameter fit must agree
-    fixed = fit_many(lambda th: misra1d(np.column_stack([np.full(len(th), 400.0), th]), prob.x)[0],
-                     [prob.starts[1, 1]], prob.y, xtol=1e-14, ftol=1e-14)
+    fixed = fit_many(
+        lambda th: misra1d(np.column_stack([np.full(len(th), 400.0), th]), prob.x)[0],
+        [prob.starts[1, 1]],
+        prob.y,
+        xtol=1e-14,
+        ftol=1e-14,
+    )
     assert capped.theta[0, 1] == pytest.approx(fixed.theta[0, 0], rel=1e-6)
     loose = fit_many(model, prob.starts[1], prob.y, jac=jac, lower=[0.0, 0.0], upper=[1e4, 1.0])
     np.testing.assert_allclose(loose.theta, free.theta, rtol=1e-12)
@@ -711,7 +743,9 @@ def test_factorisation_matches_lapack_svd(n_obs, n_params):
     u_ref, s_ref, _ = np.linalg.svd(js, full_matrices=False)
     np.testing.assert_allclose(np.sort(s, axis=1), np.sort(s_ref, axis=1), rtol=1e-9)
     # Vᵀ is orthogonal and reproduces JsᵀJs and Jsᵀr
-    np.testing.assert_allclose(vt @ np.swapaxes(vt, 1, 2), np.broadcast_to(np.eye(n_params), vt.shape), atol=1e-12)
+    np.testing.assert_allclose(
+        vt @ np.swapaxes(vt, 1, 2), np.broadcast_to(np.eye(n_params), vt.shape), atol=1e-12
+    )
     gram = np.einsum("kip,ki,kiq->kpq", vt, s**2, vt)
     np.testing.assert_allclose(gram, np.swapaxes(js, 1, 2) @ js, rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(np.einsum("kij,ki->kj", vt, b), np.einsum("knp,kn->kp", js, r), atol=1e-10)

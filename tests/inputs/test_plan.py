@@ -20,8 +20,8 @@ def test_scenarios_load(any_scenario):
 
 def test_units_are_resolved(teaching_plan):
     cu = teaching_plan.stock_by_id("CU")
-    assert cu.conc["M"] == pytest.approx(0.010)            # "10.0 mM"
-    assert cu.on_hand == pytest.approx(100.0)              # "100 mL"
+    assert cu.conc["M"] == pytest.approx(0.010)  # "10.0 mM"
+    assert cu.on_hand == pytest.approx(100.0)  # "100 mL"
     assert teaching_plan.glassware.step_mL == pytest.approx(0.05)
 
 
@@ -31,7 +31,7 @@ def test_microlitres(teaching_text):
 
 
 def test_toml_syntax_error_names_line(teaching_text):
-    bad = teaching_text.replace('wavelength_nm = 580', 'wavelength_nm = = 580')
+    bad = teaching_text.replace("wavelength_nm = 580", "wavelength_nm = = 580")
     e = _err(bad)
     assert "TOML syntax error" in str(e) and "line" in str(e)
 
@@ -43,7 +43,7 @@ def test_unknown_key_suggests_nearest(teaching_text):
 
 
 def test_unknown_key_in_list_item(teaching_text):
-    e = _err(teaching_text.replace('conc_rsd = 0.005', 'conc_rds = 0.005'))
+    e = _err(teaching_text.replace("conc_rsd = 0.005", "conc_rds = 0.005"))
     assert e.key == "stock[0].conc_rds" and "conc_rsd" in e.message
 
 
@@ -119,8 +119,22 @@ def test_missing_file(tmp_path):
         load_plan(tmp_path / "nope.toml")
 
 
-@pytest.mark.parametrize("ion,z", [("K+", 1), ("NO3-", -1), ("SO4 2-", -2), ("SO4-2", -2), ("Ca2+", 2), ("[SO4]2-", -2), ("Ca++", 2), ("Al3+", 3),
-                                   ("Ca+2", 2), ("PO4 3-", -3), ("OAc-", -1)])
+@pytest.mark.parametrize(
+    "ion,z",
+    [
+        ("K+", 1),
+        ("NO3-", -1),
+        ("SO4 2-", -2),
+        ("SO4-2", -2),
+        ("Ca2+", 2),
+        ("[SO4]2-", -2),
+        ("Ca++", 2),
+        ("Al3+", 3),
+        ("Ca+2", 2),
+        ("PO4 3-", -3),
+        ("OAc-", -1),
+    ],
+)
 def test_ion_charge(ion, z):
     assert ion_charge(ion) == z
 
@@ -138,15 +152,18 @@ def test_byte_order_mark_is_accepted(tmp_path, teaching_text):
     assert parse_plan_text("\ufeff" + teaching_text).title.startswith("Copper(II)")
 
 
-@pytest.mark.parametrize("old,new,key", [
-    ("temperature_C = 25.0", "temperature_C = true", "temperature_C"),
-    ("temperature_C = 25.0", "temperature_C = -inf", "temperature_C"),
-    ("log_beta = 3.30 ", "log_beta = nan ", "species[0].log_beta"),
-    ("path_cm = 1.000", "path_cm = true", "optics.path_cm"),
-    ('on_hand = "100 mL"', "on_hand = inf", "stock[0].on_hand"),
-    ("formula = { M = 1, L = 1 }", "formula = { M = true, L = 1 }", "species[0].formula.M"),
-    ("tubes = 8", "tubes = 201", "design.tubes"),
-])
+@pytest.mark.parametrize(
+    "old,new,key",
+    [
+        ("temperature_C = 25.0", "temperature_C = true", "temperature_C"),
+        ("temperature_C = 25.0", "temperature_C = -inf", "temperature_C"),
+        ("log_beta = 3.30 ", "log_beta = nan ", "species[0].log_beta"),
+        ("path_cm = 1.000", "path_cm = true", "optics.path_cm"),
+        ('on_hand = "100 mL"', "on_hand = inf", "stock[0].on_hand"),
+        ("formula = { M = 1, L = 1 }", "formula = { M = true, L = 1 }", "species[0].formula.M"),
+        ("tubes = 8", "tubes = 201", "design.tubes"),
+    ],
+)
 def test_non_finite_bool_and_out_of_range_numbers(teaching_text, old, new, key):
     e = _err(teaching_text.replace(old, new))
     assert e.key == key
@@ -154,9 +171,13 @@ def test_non_finite_bool_and_out_of_range_numbers(teaching_text, old, new, key):
 
 def test_bounds_are_generous_enough_for_real_plans(teaching_text):
     # derived: the edges of each documented range are accepted
-    text = (teaching_text.replace("temperature_C = 25.0", "temperature_C = 150")
-            .replace("log_beta = 3.30 ", "log_beta = -50 ").replace("path_cm = 1.000", "path_cm = 100")
-            .replace("wavelength_nm = 580", "wavelength_nm = 2000").replace("goal_se = 0.05", "goal_se = 5"))
+    text = (
+        teaching_text.replace("temperature_C = 25.0", "temperature_C = 150")
+        .replace("log_beta = 3.30 ", "log_beta = -50 ")
+        .replace("path_cm = 1.000", "path_cm = 100")
+        .replace("wavelength_nm = 580", "wavelength_nm = 2000")
+        .replace("goal_se = 0.05", "goal_se = 5")
+    )
     p = parse_plan_text(text)
     assert p.temperature_C == 150 and p.optics.path_cm == 100 and p.design.goal_se == 5
 
@@ -180,8 +201,9 @@ def test_plan_file_size_and_depth_limits(tmp_path, teaching_text):
     big.write_text(teaching_text + "#" * MAX_PLAN_BYTES)
     with pytest.raises(PlanError, match="larger than 1 MB"):
         load_plan(big)
-    ok = teaching_text.replace("temperature_C", "x = " + "[" * (MAX_DEPTH - 2) + "]" * (MAX_DEPTH - 2)
-                               + "\ntemperature_C")
+    ok = teaching_text.replace(
+        "temperature_C", "x = " + "[" * (MAX_DEPTH - 2) + "]" * (MAX_DEPTH - 2) + "\ntemperature_C"
+    )
     assert "unknown key" in _err(ok).message  # deep but within the limit: reaches the schema
     e = _err(teaching_text.replace("temperature_C", "x = " + "[" * 5000 + "]" * 5000 + "\ntemperature_C"))
     assert "nested too deeply" in str(e)
@@ -198,5 +220,5 @@ def test_free_text_keeps_unicode_but_is_shown_visibly(teaching_text):
     from planner.inputs.text import visible
 
     p = parse_plan_text(teaching_text.replace('title = "Copper(II)', 'title = "Cu\\u202e(II) ±'))
-    assert "\u202e" in p.title                       # stored as written
+    assert "\u202e" in p.title  # stored as written
     assert visible(p.title).startswith("Cu\\u202e(II) ±")  # shown as a visible escape, ± kept

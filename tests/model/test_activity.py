@@ -171,12 +171,14 @@ def test_log_beta_correction_with_protons_and_charged_species():
     I = 0.05
     lg = {z: davies_log_gamma(z, I) for z in (0, 1, 2)}
     # species charges: ML 2-1 = +1, ML2 0, HL 0, MOH 2-1 = +1 (r = -1 releases a proton)  # derived
-    expected = np.array([
-        lg[2] + lg[1] - lg[1],
-        lg[2] + 2 * lg[1] - lg[0],
-        lg[1] + lg[1] - lg[0],
-        lg[2] - lg[1] - lg[1],
-    ])
+    expected = np.array(
+        [
+            lg[2] + lg[1] - lg[1],
+            lg[2] + 2 * lg[1] - lg[0],
+            lg[1] + lg[1] - lg[0],
+            lg[2] - lg[1] - lg[1],
+        ]
+    )
     out = log_beta_at_ionic_strength(np.zeros(4), stoich, (2, -1), I)
     np.testing.assert_allclose(out, expected, rtol=0, atol=1e-15)
 
@@ -207,18 +209,23 @@ def test_extended_dh_sizes_per_ion_and_the_proton_default():
     stoich = np.array([[1, 1, 0], [0, 1, 1]])  # ML+ (M2+, L-), HL
     I = 0.05
     lg = {(z, a): extended_dh_log_gamma(z, I, a) for z in (1, 2) for a in (4.0, 5.0, 6.0, 9.0, 3.0)}
-    two = log_beta_at_ionic_strength([0.0, 0.0], stoich, (2, -1), I, model="extended-dh",
-                                     sizes_angstrom=[6.0, 4.0, 5.0, 3.0])
+    two = log_beta_at_ionic_strength(
+        [0.0, 0.0], stoich, (2, -1), I, model="extended-dh", sizes_angstrom=[6.0, 4.0, 5.0, 3.0]
+    )
     # ML: log g_M(6) + log g_L(4) - log g_ML(z 1, 5); HL: log g_L(4) + log g_H(9) - 0  # derived
-    np.testing.assert_allclose(two, [lg[2, 6.0] + lg[1, 4.0] - lg[1, 5.0], lg[1, 4.0] + lg[1, 9.0]], atol=1e-15)
-    three = log_beta_at_ionic_strength([0.0, 0.0], stoich, (2, -1), I, model="extended-dh",
-                                       sizes_angstrom=[6.0, 4.0, 9.0, 5.0, 3.0])
+    np.testing.assert_allclose(
+        two, [lg[2, 6.0] + lg[1, 4.0] - lg[1, 5.0], lg[1, 4.0] + lg[1, 9.0]], atol=1e-15
+    )
+    three = log_beta_at_ionic_strength(
+        [0.0, 0.0], stoich, (2, -1), I, model="extended-dh", sizes_angstrom=[6.0, 4.0, 9.0, 5.0, 3.0]
+    )
     np.testing.assert_allclose(three, two, atol=1e-15)
 
 
 def test_model_none_applies_no_correction():
-    out = log_beta_at_ionic_strength([8.0, 3.0], np.array([[1, 1, 0], [0, 1, 1]]), (2, -2), [0.0, 0.3],
-                                     model="none")
+    out = log_beta_at_ionic_strength(
+        [8.0, 3.0], np.array([[1, 1, 0], [0, 1, 1]]), (2, -2), [0.0, 0.3], model="none"
+    )
     np.testing.assert_array_equal(out, [[8.0, 3.0], [8.0, 3.0]])
 
 

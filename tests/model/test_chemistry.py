@@ -174,8 +174,9 @@ totals_strategy = st.lists(
 def test_solver_is_robust_over_the_whole_range(species, data):
     """log beta -3..30, totals 1e-10..1 M or 0: residual <= 1e-10, no NaN, nothing negative (brief)."""
     M = np.array(data.draw(totals_strategy))
-    L = np.array(data.draw(st.lists(st.sampled_from(list(M) + [0.0, 1e-10, 1.0]), min_size=M.size,
-                                    max_size=M.size)))
+    L = np.array(
+        data.draw(st.lists(st.sampled_from(list(M) + [0.0, 1e-10, 1.0]), min_size=M.size, max_size=M.size))
+    )
     lb = np.array(data.draw(st.lists(st.floats(-3, 30), min_size=len(species), max_size=len(species))))
     spec = speciate(M, L, species, lb)
     for arr in (spec.free_M, spec.free_L, spec.species_M):
@@ -186,8 +187,12 @@ def test_solver_is_robust_over_the_whole_range(species, data):
 
 @pytest.mark.parametrize(
     "species",
-    [[(1, 1), (1, 2)], [(1, 1), (1, 2), (1, 3), (0, 1), (1, 0)], [(1, 1), (2, 1), (2, 2), (1, 2)],
-     [(1, 1), (2, 0), (0, 2), (1, 2)]],
+    [
+        [(1, 1), (1, 2)],
+        [(1, 1), (1, 2), (1, 3), (0, 1), (1, 0)],
+        [(1, 1), (2, 1), (2, 2), (1, 2)],
+        [(1, 1), (2, 0), (0, 2), (1, 2)],
+    ],
 )
 def test_solver_random_sweep(species):
     # a large seeded sweep complements the hypothesis search with volume
@@ -235,7 +240,12 @@ def test_reduced_and_two_variable_solvers_agree(monkeypatch):
 
     def refuse(lnb, sy, M_, L_):
         calls.append(M_.size)
-        return (np.zeros(M_.size, dtype=bool), np.zeros((sy.S, M_.size)), np.zeros(M_.size), np.zeros(M_.size))
+        return (
+            np.zeros(M_.size, dtype=bool),
+            np.zeros((sy.S, M_.size)),
+            np.zeros(M_.size),
+            np.zeros(M_.size),
+        )
 
     monkeypatch.setattr(newton, "_solve_p1", refuse)
     general = speciate(M, L, species, lb)

@@ -41,13 +41,15 @@ def test_constants_converted_to_each_tube(teaching_text):
 
 def test_davies_warning_above_half_molar(teaching_text):
     text = teaching_text.replace('# reference_ionic_strength = "0.10 M"', 'reference_ionic_strength = "0 M"')
-    text = text.replace('ions = { "K+" = "0.10 M", "NO3-" = "0.10 M" }\ndiluent = true',
-                        'ions = { "K+" = "0.80 M", "NO3-" = "0.80 M" }\ndiluent = true')
+    text = text.replace(
+        'ions = { "K+" = "0.10 M", "NO3-" = "0.10 M" }\ndiluent = true',
+        'ions = { "K+" = "0.80 M", "NO3-" = "0.80 M" }\ndiluent = true',
+    )
     plan = parse_plan_text(text)
     r = make_recipe(plan, {"CU": np.array([1.0]), "DY": np.array([1.0])})
     with pytest.warns(ActivityWarning, match="Davies"):
         expected_state(build_model(plan), r)
-    plain = parse_plan_text(text.replace('reference_ionic_strength = "0 M"', ''))
+    plain = parse_plan_text(text.replace('reference_ionic_strength = "0 M"', ""))
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         expected_state(build_model(plain), make_recipe(plain, {"CU": np.array([1.0]), "DY": np.array([1.0])}))
@@ -56,7 +58,10 @@ def test_davies_warning_above_half_molar(teaching_text):
 def test_bandwidth_correction(teaching_text):
     # derived (domain.md §2): ε_app = ε/√(1 + (bandwidth/fwhm)²)
     text = teaching_text.replace("display_step = 0.001", "display_step = 0.001\nbandwidth_nm = 20").replace(
-        "[[stock]]", "[optics.bands]\nML = { peak_nm = 580, fwhm_nm = 80, epsilon_max = 950.0 }\n\n[[stock]]", 1)
+        "[[stock]]",
+        "[optics.bands]\nML = { peak_nm = 580, fwhm_nm = 80, epsilon_max = 950.0 }\n\n[[stock]]",
+        1,
+    )
     m = build_model(parse_plan_text(text))
     j = m.absorbers.index("ML")
     assert m.epsilon_M_cm[j] == pytest.approx(950.0 / math.sqrt(1 + (20 / 80) ** 2), rel=1e-12)

@@ -45,8 +45,12 @@ def test_stray_light_slope_matches_numeric():
 
 
 def _rel_error_minimum(**k) -> float:
-    res = minimize_scalar(lambda a: optics.photometric_sd(a, **k) / a, bounds=(0.05, 3.0), method="bounded",
-                          options={"xatol": 1e-9})
+    res = minimize_scalar(
+        lambda a: optics.photometric_sd(a, **k) / a,
+        bounds=(0.05, 3.0),
+        method="bounded",
+        options={"xatol": 1e-9},
+    )
     return res.x
 
 

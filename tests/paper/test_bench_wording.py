@@ -88,10 +88,12 @@ def test_footnotes_stay_with_their_tables(n):
     import io
 
     plan = parse_plan_text(scenario_text("teaching"))
-    recipe = parse_recipe_csv("tube,CU,DY\n" + "".join(f"T{i + 1},0.70,{0.50 + 0.05 * i:.2f}\n" for i in range(n)),
-                              plan)
-    pdf = render.prep_sheet(plan, recipe, assess(plan, recipe, trials=0), stock_needs(plan, recipe),
-                            date="2026-12-01")
+    recipe = parse_recipe_csv(
+        "tube,CU,DY\n" + "".join(f"T{i + 1},0.70,{0.50 + 0.05 * i:.2f}\n" for i in range(n)), plan
+    )
+    pdf = render.prep_sheet(
+        plan, recipe, assess(plan, recipe, trials=0), stock_needs(plan, recipe), date="2026-12-01"
+    )
     pages = [re.sub(r"\s+", " ", p.extract_text()) for p in pypdf.PdfReader(io.BytesIO(pdf)).pages]
     for note, last_row in (("Volumes in mL, read to", f"T{n} "), ("Needed: what the tubes take", "BG ")):
         page = next(i for i, t in enumerate(pages) if note in t)

@@ -24,12 +24,21 @@ LONG = "Q" * 10000
 HOSTILE = (
     "id,name,section\n"
     "h1,\"<img src='http://example.invalid/x.png'><script>alert(1)</script>\",A\n"
-    "h2,\"{{ 7*7 }} {% raw %}Ludovika{% endraw %}\",A\n"
-    "h3,\"\u202eAzadeh Ronsard\u202c\",B\n"
+    'h2,"{{ 7*7 }} {% raw %}Ludovika{% endraw %}",A\n'
+    'h3,"\u202eAzadeh Ronsard\u202c",B\n'
     f"h4,{LONG},B\n"
 )
-PLAN_KEYS = ("conc_rsd", "reagent =", "on_hand", "goal_se", "log_beta", "linear_range", "min_volume",
-             "dead_volume", "epsilon")
+PLAN_KEYS = (
+    "conc_rsd",
+    "reagent =",
+    "on_hand",
+    "goal_se",
+    "log_beta",
+    "linear_range",
+    "min_volume",
+    "dead_volume",
+    "epsilon",
+)
 
 
 @pytest.fixture(scope="module")
@@ -63,7 +72,9 @@ def test_cards_speak_to_students(card_html):
 def test_hostile_roster_text_is_text(card_html):
     assert "<img" not in card_html and "<script" not in card_html
     assert "&lt;img src=" in card_html and "&lt;scr" in card_html
-    assert "{{ 7*7 }}" in card_html and "49" not in re.sub(r"\d+\.\d+", "", card_html.split("Ludovika")[0][-40:])
+    assert "{{ 7*7 }}" in card_html and "49" not in re.sub(
+        r"\d+\.\d+", "", card_html.split("Ludovika")[0][-40:]
+    )
     assert "<bdi>\u202eAzadeh Ronsard\u202c</bdi>" in card_html  # the override stays inside its own box
     assert LONG not in card_html and ("Q" * (pc.NAME_MAX - 1) + "…") in card_html
 
@@ -79,8 +90,16 @@ def test_cards_pdf_one_page_per_student(plan, cset):
 def test_key_equals_the_assessment(plan, study, cset):
     rows = list(csv.DictReader(io.StringIO(pc.key_csv(plan, cset))))
     ids = [s.id for s in plan.stock]
-    assert list(rows[0].keys()) == ["student", "name", "section", "tube", *ids, "absorbance", "band_low",
-                                    "band_high"]
+    assert list(rows[0].keys()) == [
+        "student",
+        "name",
+        "section",
+        "tube",
+        *ids,
+        "absorbance",
+        "band_low",
+        "band_high",
+    ]
     assert len(rows) == sum(c.recipe.n_tubes for c in cset.cards)
     assert rows[-1]["name"] == LONG  # the key keeps the roster text whole
     i = 0
@@ -99,10 +118,10 @@ def test_key_equals_the_assessment(plan, study, cset):
 
 
 def test_key_csv_is_not_a_formula(plan, study):
-    cs = class_set_study(study, parse_roster_csv("id,name\nf1,=HYPERLINK(\"x\")\nf2,Maelle Orsk\n"), seed=0)
+    cs = class_set_study(study, parse_roster_csv('id,name\nf1,=HYPERLINK("x")\nf2,Maelle Orsk\n'), seed=0)
     text = pc.key_csv(plan, cs)
     names = {r["name"] for r in csv.DictReader(io.StringIO(text))}
-    assert names == {"'=HYPERLINK(\"x\")", "Maelle Orsk"}  # source: OWASP, CSV injection (quote the cell)
+    assert names == {'\'=HYPERLINK("x")', "Maelle Orsk"}  # source: OWASP, CSV injection (quote the cell)
     from openpyxl import load_workbook
 
     ws = load_workbook(io.BytesIO(pc.key_xlsx(plan, cs)))["key"]
@@ -118,7 +137,11 @@ def test_key_xlsx_deterministic_and_readable(plan, cset):
     assert a == b
     ws = load_workbook(io.BytesIO(a))["key"]
     head = [c.value for c in next(ws.iter_rows(max_row=1))]
-    assert head[:4] == ["student", "name", "section", "tube"] and head[-3:] == ["absorbance", "band_low", "band_high"]
+    assert head[:4] == ["student", "name", "section", "tube"] and head[-3:] == [
+        "absorbance",
+        "band_low",
+        "band_high",
+    ]
     assert ws.cell(row=2, column=2).value.startswith("<img")  # text, as typed
 
 

@@ -39,8 +39,9 @@ def test_example_assesses_and_prints(plan_path):
     if plan.titration is not None:
         sheet = titration_sheet(plan, recipe, a, fmt_="html", date="2026-12-01").decode("utf-8")
     else:
-        sheet = render.prep_sheet(plan, recipe, a, stock_needs(plan, recipe), fmt="html",
-                                  date="2026-12-01").decode("utf-8")
+        sheet = render.prep_sheet(
+            plan, recipe, a, stock_needs(plan, recipe), fmt="html", date="2026-12-01"
+        ).decode("utf-8")
     assert str(escape(plan.title)) in sheet and str(escape(safety.ALWAYS)) in sheet  # the safety box stays
     rep = render.report(plan, recipe, a, fmt="html", date="2026-12-01").decode("utf-8")
     assert "<svg" in rep and a.summary()["verdict"] in rep and str(escape(plan.title)) in rep

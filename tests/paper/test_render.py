@@ -71,8 +71,13 @@ def prep_txt(prep_pdf):
 @pytest.fixture(scope="module")
 def report_pdf(teaching):
     plan, recipe, a, _ = teaching
-    return render.report(plan, recipe, a, date=DATE,
-                         design={"criterion": "target", "efficiency_bound": 0.93, "se_ratio_vs_even": 0.71})
+    return render.report(
+        plan,
+        recipe,
+        a,
+        date=DATE,
+        design={"criterion": "target", "efficiency_bound": 0.93, "se_ratio_vs_even": 0.71},
+    )
 
 
 # --------------------------------------------------------------------------------------------------
@@ -138,8 +143,12 @@ def test_header_blank_and_order(teaching, prep_txt):
 
 
 def test_measuring_checklist(prep_txt):
-    for phrase in ("zero the instrument on it at 580 nm", "rinse the cuvette", "Read each tube",
-                   "“measured A” column"):
+    for phrase in (
+        "zero the instrument on it at 580 nm",
+        "rinse the cuvette",
+        "Read each tube",
+        "“measured A” column",
+    ):
         assert phrase in prep_txt
 
 
@@ -180,8 +189,9 @@ def test_not_enough_stock_is_flagged():
 def test_added_make_up_lists_the_buffer_and_no_mark():
     plan = load_plan(ROOT / "examples" / "cuvette-1to1.toml")
     recipe = read_recipe_csv(ROOT / "examples" / "cuvette-1to1.csv", plan)
-    html = render.prep_sheet(plan, recipe, assess_recipe(plan, recipe), stock_needs(plan, recipe),
-                             date=DATE, fmt="html").decode("utf-8")
+    html = render.prep_sheet(
+        plan, recipe, assess_recipe(plan, recipe), stock_needs(plan, recipe), date=DATE, fmt="html"
+    ).decode("utf-8")
     assert "to the mark / mL" not in html and "≈ " not in html
     assert sheets.addition_order(plan, recipe) == ("BUF", "ZC", "ZN")  # common practice: metal last
     assert "zero the instrument on a tube of BUF" in html
@@ -237,8 +247,12 @@ def test_page_one_renders_as_a_printed_page(prep_pdf, tmp_path):
     Image = pytest.importorskip("PIL.Image")
     src = tmp_path / "sheet.pdf"
     src.write_bytes(prep_pdf)
-    subprocess.run(["pdftoppm", "-r", "30", "-f", "1", "-l", "1", "-png", str(src), str(tmp_path / "p")],
-                   check=True, capture_output=True, timeout=60)
+    subprocess.run(
+        ["pdftoppm", "-r", "30", "-f", "1", "-l", "1", "-png", str(src), str(tmp_path / "p")],
+        check=True,
+        capture_output=True,
+        timeout=60,
+    )
     png = next(tmp_path.glob("p*.png"))
     img = np.asarray(Image.open(png).convert("L"), dtype=float)
     h, w = img.shape
@@ -292,16 +306,23 @@ def test_fetcher_refuses_everything_but_data_urls():
     f = render.DataOnlyFetcher()
     assert f.fetch("data:text/plain;base64,aGk=").read() == b"hi"  # RFC 2397 base64
     assert f.fetch("data:,a%20b").read() == b"a b"  # RFC 2397 percent-encoded
-    for url in ("file:///etc/passwd", "http://example.com/a.png", "https://example.com/x.css", "/etc/passwd",
-                "FILE:///etc/passwd"):
+    for url in (
+        "file:///etc/passwd",
+        "http://example.com/a.png",
+        "https://example.com/x.css",
+        "/etc/passwd",
+        "FILE:///etc/passwd",
+    ):
         with pytest.raises(render.FetchRefused, match="refused"):
             f.fetch(url)
 
 
 def test_hostile_html_cannot_read_files(fetch_log):
-    html = ('<p>plain text</p><img src="file:///etc/passwd">'
-            '<link rel="stylesheet" href="http://example.com/evil.css">'
-            '<img src="data:image/svg+xml;base64,PHN2ZyB4bWxucz0naHR0cDovL3d3dy53My5vcmcvMjAwMC9zdmcnIHdpZHRoPScxJyBoZWlnaHQ9JzEnLz4=">')
+    html = (
+        '<p>plain text</p><img src="file:///etc/passwd">'
+        '<link rel="stylesheet" href="http://example.com/evil.css">'
+        '<img src="data:image/svg+xml;base64,PHN2ZyB4bWxucz0naHR0cDovL3d3dy53My5vcmcvMjAwMC9zdmcnIHdpZHRoPScxJyBoZWlnaHQ9JzEnLz4=">'
+    )
     txt = pdf_text(render.html_to_pdf(html))
     assert "plain text" in txt and "root:" not in txt
     schemes = {u.split(":", 1)[0].lower() for u in fetch_log}
@@ -315,7 +336,9 @@ def test_report_verdict_first_then_sections(teaching, report_pdf):
     _, _, a, _ = teaching
     s = a.summary()
     txt = pdf_text(report_pdf)
-    assert txt.index(s["verdict"].upper()) < txt.index("Recipe") < txt.index("Checks") < txt.index("Parameters")
+    assert (
+        txt.index(s["verdict"].upper()) < txt.index("Recipe") < txt.index("Checks") < txt.index("Parameters")
+    )
     assert norm(fmt.chem_text(s["verdict_reason"])) in txt
     for c in s["checks"]:
         assert c["id"] in txt
@@ -361,11 +384,13 @@ def test_report_without_precision(teaching):
 def test_binding_curve_is_the_one_to_one_isotherm(teaching):
     plan, recipe, a, _ = teaching
     curve = curves.binding_curve_data(compile_study(plan), recipe, a.summary())
-    K = 10.0 ** 3.3  # the teaching scenario's guess; no ionic-strength correction is configured
+    K = 10.0**3.3  # the teaching scenario's guess; no ionic-strength correction is configured
     # derived: for M + L ⇌ ML the limiting reagent's fraction bound is K·x/(1 + K·x), x the free excess
     # reagent, at any limiting total: every curve and every tube lie on the same isotherm
     for ln in curve.lines:
-        np.testing.assert_allclose(ln.saturation, K * ln.free_excess_M / (1 + K * ln.free_excess_M), rtol=1e-6)
+        np.testing.assert_allclose(
+            ln.saturation, K * ln.free_excess_M / (1 + K * ln.free_excess_M), rtol=1e-6
+        )
         assert np.all(np.diff(ln.free_excess_M) >= 0)
     x = curve.tube_free_excess_M
     np.testing.assert_allclose(curve.tube_saturation, K * x / (1 + K * x), rtol=1e-6)
@@ -410,13 +435,19 @@ def test_binding_labels_do_not_overlap():
     n = 10
     x = np.geomspace(1e-4, 2e-4, n)
     line = curves.CurveLine("M", (1e-3,), np.geomspace(1e-6, 1e-1, 50), np.linspace(0, 1, 50))
-    curve = curves.BindingCurve((line,), ("M",) * n, x, np.linspace(0.40, 0.5, n),
-                                tuple(f"T{i + 1}" for i in range(n)), tuple((f"T{i + 1}",) for i in range(n)))
+    curve = curves.BindingCurve(
+        (line,),
+        ("M",) * n,
+        x,
+        np.linspace(0.40, 0.5, n),
+        tuple(f"T{i + 1}" for i in range(n)),
+        tuple((f"T{i + 1}",) for i in range(n)),
+    )
     svg = figures.binding_svg(curve)
     assert all(f">T{i + 1}<" in svg for i in range(n))
     assert svg == figures.binding_svg(curve)  # deterministic
     # the label boxes themselves: on a crowded stretch no two overlap
-    centres = np.column_stack([np.linspace(60, 90, n), np.linspace(50, 60, n)])   # points, 3 pt apart
+    centres = np.column_stack([np.linspace(60, 90, n), np.linspace(50, 60, n)])  # points, 3 pt apart
     boxes = [b for _, _, b in figures.place_labels(centres, [f"T{i + 1}" for i in range(n)], 200, 130)]
     for i in range(n):
         for j in range(i):
@@ -497,21 +528,30 @@ def test_plan_order_and_levelling_reach_the_sheet(tmp_path):
 
     from ..conftest import scenario_text
 
-    text = scenario_text("stepwise").replace('[[stock]]\nid = "W"', '''[[stock]]
+    text = (
+        scenario_text("stepwise")
+        .replace(
+            '[[stock]]\nid = "W"',
+            '''[[stock]]
 id = "NA"
 label = "2.00 M sodium nitrate"
 ions = { "Na+" = "2.00 M", "NO3-" = "2.00 M" }
 background = true
 
 [[stock]]
-id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').replace(
-        'min_volume = "0.50 mL"', 'min_volume = "0.50 mL"\norder = ["NA", "CU", "AM"]')
+id = "W"''',
+        )
+        .replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]')
+        .replace('min_volume = "0.50 mL"', 'min_volume = "0.50 mL"\norder = ["NA", "CU", "AM"]')
+    )
     plan = parse_plan_text(text)
-    r = make_recipe(plan, {"CU": np.full(5, 2.0), "AM": np.array([1.0, 2.0, 4.0, 8.0, 12.0]), "NA": np.full(5, 5.0)})
+    r = make_recipe(
+        plan, {"CU": np.full(5, 2.0), "AM": np.array([1.0, 2.0, 4.0, 8.0, 12.0]), "NA": np.full(5, 5.0)}
+    )
     a = run_assess(plan, r, trials=0)
     html = prep_sheet(plan, r, a, stock_needs(plan, r), fmt="html", order=plan.glassware.order).decode()
     assert "the NA volumes level it" in html
-    steps = html[html.index("Order of addition"):]
+    steps = html[html.index("Order of addition") :]
     steps = steps[: steps.index("</ol>")]
     assert steps.index("NA") < steps.index("CU") < steps.index("AM")
 
@@ -526,6 +566,12 @@ def test_parameter_names_in_chemical_notation():
 def test_ion_labels_in_chemical_notation():
     # common practice: counts as subscripts, charge as a superscript; digits before the sign are a
     # charge only after a bare element symbol (the rule the plan's ion names are read by)
-    for text, shown in (("Cu2+", "Cu²⁺"), ("NO3-", "NO₃⁻"), ("SO4 2-", "SO₄²⁻"), ("[SO4]2-", "SO₄²⁻"),
-                        ("K+", "K⁺"), ("Am", "Am")):
+    for text, shown in (
+        ("Cu2+", "Cu²⁺"),
+        ("NO3-", "NO₃⁻"),
+        ("SO4 2-", "SO₄²⁻"),
+        ("[SO4]2-", "SO₄²⁻"),
+        ("K+", "K⁺"),
+        ("Am", "Am"),
+    ):
         assert fmt.ion(text) == shown, text

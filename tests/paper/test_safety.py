@@ -138,8 +138,10 @@ def test_signal_word_matches_codes(entry):
 # --------------------------------------------------------------------------------------------------
 # CMR flag
 # --------------------------------------------------------------------------------------------------
-@pytest.mark.parametrize("code", ["H340", "H341", "H350", "H350i", "H351", "H360", "H360D", "H360Fd",
-                                  "H361", "H361d", "H361fd", "H362"])
+@pytest.mark.parametrize(
+    "code",
+    ["H340", "H341", "H350", "H350i", "H351", "H360", "H360D", "H360Fd", "H361", "H361d", "H361fd", "H362"],
+)
 def test_cmr_codes_and_variants(code):
     assert is_cmr_code(code)  # source: CLP Annex I parts 3.5–3.7
 
@@ -151,8 +153,12 @@ def test_not_cmr(code):
 
 def test_cmr_entries():
     # source: domain.md §6 — nickel(II) salts are CMR; salicylic acid carries H361d
-    for name in ("nickel(II) sulfate hexahydrate", "nickel(II) nitrate hexahydrate",
-                 "nickel(II) chloride hexahydrate", "salicylic acid"):
+    for name in (
+        "nickel(II) sulfate hexahydrate",
+        "nickel(II) nitrate hexahydrate",
+        "nickel(II) chloride hexahydrate",
+        "salicylic acid",
+    ):
         assert lookup(name).cmr, name
     assert lookup("nickel(II) sulfate").cmr_codes == ("H341", "H350i", "H360D")
     assert lookup("salicylic acid").cmr_codes == ("H361d",)
@@ -164,15 +170,21 @@ def test_cmr_entries():
 # --------------------------------------------------------------------------------------------------
 # the library against domain.md §6, and its provenance
 # --------------------------------------------------------------------------------------------------
-@pytest.mark.parametrize(("name", "codes"), [
-    ("potassium thiocyanate", {"H302+H312+H332", "H412", "EUH032"}),  # source: CLP Annex VI 615-030-00-5
-    ("iron(III) nitrate nonahydrate", {"H272", "H315", "H319"}),      # from memory (domain.md §6)
-    ("nitric acid", {"H290", "H314"}),                                # from memory (domain.md §6)
-    ("copper(II) sulfate pentahydrate", {"H302", "H315", "H319", "H410"}),  # from memory (domain.md §6)
-    ("ethylenediamine", {"H226", "H302", "H312", "H314", "H317", "H334"}),  # source: supplier SDS 2018 (domain.md §6)
-    ("ammonia solution", {"H314", "H335", "H400"}),                   # from memory (domain.md §6)
-    ("salicylic acid", {"H302", "H318", "H361d"}),                    # from memory (domain.md §6)
-])
+@pytest.mark.parametrize(
+    ("name", "codes"),
+    [
+        ("potassium thiocyanate", {"H302+H312+H332", "H412", "EUH032"}),  # source: CLP Annex VI 615-030-00-5
+        ("iron(III) nitrate nonahydrate", {"H272", "H315", "H319"}),  # from memory (domain.md §6)
+        ("nitric acid", {"H290", "H314"}),  # from memory (domain.md §6)
+        ("copper(II) sulfate pentahydrate", {"H302", "H315", "H319", "H410"}),  # from memory (domain.md §6)
+        (
+            "ethylenediamine",
+            {"H226", "H302", "H312", "H314", "H317", "H334"},
+        ),  # source: supplier SDS 2018 (domain.md §6)
+        ("ammonia solution", {"H314", "H335", "H400"}),  # from memory (domain.md §6)
+        ("salicylic acid", {"H302", "H318", "H361d"}),  # from memory (domain.md §6)
+    ],
+)
 def test_library_matches_domain_primer(name, codes):
     assert set(lookup(name).hazard_codes) == codes
 
@@ -185,11 +197,23 @@ def test_nickel_salts_carry_the_domain_cmr_set():
 
 
 REQUIRED = [  # the reagents our scenarios and examples name (brief "sheets")
-    "copper(II) nitrate trihydrate", "copper(II) sulfate pentahydrate", "copper(II) chloride dihydrate",
-    "copper(II) perchlorate hexahydrate", "zinc sulfate heptahydrate", "potassium nitrate",
-    "sodium perchlorate", "sodium acetate", "acetic acid", "nitric acid", "potassium thiocyanate",
-    "iron(III) nitrate nonahydrate", "nickel(II) sulfate", "ethylenediamine", "ammonia solution",
-    "salicylic acid", "HEPES",
+    "copper(II) nitrate trihydrate",
+    "copper(II) sulfate pentahydrate",
+    "copper(II) chloride dihydrate",
+    "copper(II) perchlorate hexahydrate",
+    "zinc sulfate heptahydrate",
+    "potassium nitrate",
+    "sodium perchlorate",
+    "sodium acetate",
+    "acetic acid",
+    "nitric acid",
+    "potassium thiocyanate",
+    "iron(III) nitrate nonahydrate",
+    "nickel(II) sulfate",
+    "ethylenediamine",
+    "ammonia solution",
+    "salicylic acid",
+    "HEPES",
 ]
 
 
@@ -220,7 +244,13 @@ def test_scenario_reagents_are_found():
 # --------------------------------------------------------------------------------------------------
 def test_lookup_aliases_case_and_hydrate_dots():
     cu = lookup("copper(II) sulfate pentahydrate")
-    for alias in ("CuSO4·5H2O", "cuso4.5h2o", "CuSO4*5H2O", "  Copper (II)   Sulfate ", "COPPER(II) SULPHATE"):
+    for alias in (
+        "CuSO4·5H2O",
+        "cuso4.5h2o",
+        "CuSO4*5H2O",
+        "  Copper (II)   Sulfate ",
+        "COPPER(II) SULPHATE",
+    ):
         assert lookup(alias) is cu, alias
     assert lookup("KSCN") is lookup("potassium thiocyanate")
     assert lookup("unobtainium chloride") is None
@@ -228,8 +258,11 @@ def test_lookup_aliases_case_and_hydrate_dots():
 
 
 @settings(max_examples=40, deadline=None)
-@given(i=st.integers(0, 10_000), flips=st.lists(st.booleans(), min_size=1, max_size=60),
-       pad=st.sampled_from(["", " ", "  ", "\t"]))
+@given(
+    i=st.integers(0, 10_000),
+    flips=st.lists(st.booleans(), min_size=1, max_size=60),
+    pad=st.sampled_from(["", " ", "  ", "\t"]),
+)
 def test_lookup_ignores_case_and_outer_space(i, flips, pad):
     e = LIB[i % len(LIB)]
     keys = (e.name, *e.aliases)
@@ -239,8 +272,11 @@ def test_lookup_ignores_case_and_outer_space(i, flips, pad):
 
 
 @settings(max_examples=30, deadline=None)
-@given(i=st.integers(0, 10_000), before=st.sampled_from(["", "0.10 M ", "stock of ", "a "]),
-       after=st.sampled_from(["", ", 10.0 mM", " in water", " (fresh)"]))
+@given(
+    i=st.integers(0, 10_000),
+    before=st.sampled_from(["", "0.10 M ", "stock of ", "a "]),
+    after=st.sampled_from(["", ", 10.0 mM", " in water", " (fresh)"]),
+)
 def test_label_names_its_reagent(i, before, after):
     e = LIB[i % len(LIB)]
     assert e in infer_from_label(before + e.name + after)
@@ -309,8 +345,13 @@ def test_clash_thiocyanate_with_acid():
 
 
 def test_no_clash_within_one_reagent_or_inert_plan():
-    plan = plan_with({"CU": {"reagent": "copper(II) sulfate pentahydrate"}, "BG": {"reagent": "acetic acid"},
-                      "DY": {"label": "dye ligand Dy, 10.0 mM in water"}})
+    plan = plan_with(
+        {
+            "CU": {"reagent": "copper(II) sulfate pentahydrate"},
+            "BG": {"reagent": "acetic acid"},
+            "DY": {"label": "dye ligand Dy, 10.0 mM in water"},
+        }
+    )
     # acetic acid is both acid and organic: that alone is no clash; copper sulfate has no classes
     # (the DY label no longer names KNO3, an oxidiser that would clash with the organic acid)
     assert clashes(hazards_for(plan)) == []

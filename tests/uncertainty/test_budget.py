@@ -34,7 +34,9 @@ def _fd_check(plan):
         up, dn = model.log_beta.copy(), model.log_beta.copy()
         up[j] += 1e-6
         dn[j] -= 1e-6
-        num = (predict(model, tot, log_beta=up).absorbance - predict(model, tot, log_beta=dn).absorbance) / 2e-6
+        num = (
+            predict(model, tot, log_beta=up).absorbance - predict(model, tot, log_beta=dn).absorbance
+        ) / 2e-6
         np.testing.assert_allclose(der.dA_dlog_beta[:, j], num, rtol=2e-5, atol=1e-9)
     for j in range(len(model.absorbers)):
         h = 1e-4 * max(model.epsilon_M_cm[j], 1.0)
@@ -94,7 +96,9 @@ def test_covariance_against_monte_carlo(name):
     corr_mc = S / np.outer(sds, sds)
     np.testing.assert_allclose(corr_mc, corr_pred, atol=0.03)
     # and the mean reading is unbiased to first order
-    np.testing.assert_allclose(sim.absorbance.mean(axis=0), st.absorbance, atol=5 * sd.max() / np.sqrt(T) + 1e-3)
+    np.testing.assert_allclose(
+        sim.absorbance.mean(axis=0), st.absorbance, atol=5 * sd.max() / np.sqrt(T) + 1e-3
+    )
 
 
 def test_monte_carlo_parts_separately(teaching_plan):
@@ -104,11 +108,9 @@ def test_monte_carlo_parts_separately(teaching_plan):
     dev = compile_bench(teaching_plan)
     b = error_budget(teaching_plan, model, r, st, dev.devices)
     T = 40000
-    only_stock = simulate(dev, model, r, np.random.default_rng(1), T, photometric=False,
-                          delivery=False)
+    only_stock = simulate(dev, model, r, np.random.default_rng(1), T, photometric=False, delivery=False)
     np.testing.assert_allclose(np.var(only_stock.absorbance, axis=0), np.diag(b.stock), rtol=0.05)
-    only_delivery = simulate(dev, model, r, np.random.default_rng(2), T, photometric=False,
-                             stock=False)
+    only_delivery = simulate(dev, model, r, np.random.default_rng(2), T, photometric=False, stock=False)
     np.testing.assert_allclose(np.var(only_delivery.absorbance, axis=0), np.diag(b.delivery), rtol=0.05)
 
 
@@ -137,8 +139,11 @@ def test_capacity_and_missing_dispenser(teaching_text):
     r = make_recipe(plan, {"CU": np.array([1.0]), "DY": np.array([1.0])})
     probs = dict(glassware_problems(compile_bench(plan), r))
     assert "no dispenser" in probs["stock DY"]
-    small = parse_plan_text(teaching_text.replace('kind = "burette"\ncapacity = "10 mL"',
-                                                  'kind = "graduated-pipette"\ncapacity = "1 mL"'))
+    small = parse_plan_text(
+        teaching_text.replace(
+            'kind = "burette"\ncapacity = "10 mL"', 'kind = "graduated-pipette"\ncapacity = "1 mL"'
+        )
+    )
     r2 = make_recipe(small, {"CU": np.array([1.0]), "DY": np.array([2.0])})
     probs2 = dict(glassware_problems(compile_bench(small), r2))
     assert "more than" in probs2["stock DY"] and "stock CU" not in probs2

@@ -54,13 +54,17 @@ def test_catalogue_matches_domain_table(kind, capacity_mL, tolerance_mL, from_me
 
 
 def test_burette_subdivisions_from_domain_table():
-    assert lookup("burette", 10).graduation_mL == pytest.approx(0.05)  # from memory: domain.md §3 (10 mL, 0.05)
+    assert lookup("burette", 10).graduation_mL == pytest.approx(
+        0.05
+    )  # from memory: domain.md §3 (10 mL, 0.05)
     assert lookup("burette", 50).graduation_mL == pytest.approx(0.1)  # from memory: domain.md §3 (50 mL, 0.1)
 
 
 def test_micropipette_random_limit_from_iso_8655():
     item = lookup("micropipette", 1.0)
-    assert item.random_mL == pytest.approx(0.003)  # source: ISO 8655-2:2002, 1000 µL random 3 µL (domain.md §3)
+    assert item.random_mL == pytest.approx(
+        0.003
+    )  # source: ISO 8655-2:2002, 1000 µL random 3 µL (domain.md §3)
     assert item.cls is None
 
 
@@ -213,7 +217,9 @@ def test_temperature_goes_to_systematic_only():
 def test_one_mark_pipette_only_its_capacity():
     item = lookup("pipette", 10)
     d = delivery_uncertainty(item, [10.0, 0.0])
-    assert d.systematic_mL[0] == pytest.approx(0.02 / math.sqrt(6))  # from memory: E969 10 mL ±0.02, triangular
+    assert d.systematic_mL[0] == pytest.approx(
+        0.02 / math.sqrt(6)
+    )  # from memory: E969 10 mL ±0.02, triangular
     assert d.random_mL[1] == 0 and d.systematic_mL[1] == 0  # derived: volume 0 = not used
     with pytest.raises(GlasswareError, match="only its capacity"):
         delivery_uncertainty(item, [5.0])
@@ -301,12 +307,13 @@ def test_volume_grid_on_grid_within_bounds(lo, width, step):
     assert np.all(np.diff(grid) > 0)
 
 
-items = st.sampled_from([it for it in catalogue() if it.kind in ("burette", "graduated-pipette", "micropipette")])
+items = st.sampled_from(
+    [it for it in catalogue() if it.kind in ("burette", "graduated-pipette", "micropipette")]
+)
 
 
 @settings(max_examples=100, deadline=None)
-@given(item=items, fractions=st.lists(st.floats(0.1, 1.0), min_size=2, max_size=20),
-       dT=st.floats(0.0, 10.0))
+@given(item=items, fractions=st.lists(st.floats(0.1, 1.0), min_size=2, max_size=20), dT=st.floats(0.0, 10.0))
 def test_delivery_uncertainty_nonnegative_and_monotone(item, fractions, dT):
     v = np.sort(np.asarray(fractions)) * item.capacity_mL
     d = delivery_uncertainty(item, v, delta_T_C=dT)

@@ -100,9 +100,13 @@ def test_quam_a1_stock_uncertainty():
     assert prep.steps == ()
     assert prep.mass_g * 1e3 == pytest.approx(100.28, abs=0.005)  # source: QUAM A1, 100.28 mg
     assert round(prep.u_conc_M * fw * 1e3, 2) == pytest.approx(0.84)  # source: QUAM A1, u = 0.84 mg/L
-    assert prep.u_parts["purity"] == pytest.approx(0.0001 / math.sqrt(3) / 0.9999)  # source: QUAM A1, rectangular
+    assert prep.u_parts["purity"] == pytest.approx(
+        0.0001 / math.sqrt(3) / 0.9999
+    )  # source: QUAM A1, rectangular
     assert prep.u_parts["balance"] == pytest.approx(0.05 / 100.28, rel=1e-3)  # derived from QUAM A1's u(m)
-    assert round(prep.u_parts["flask"] * 100.0, 4) == pytest.approx(0.0665)  # source: QUAM A1, u(V) = 0.0665 mL
+    assert round(prep.u_parts["flask"] * 100.0, 4) == pytest.approx(
+        0.0665
+    )  # source: QUAM A1, u(V) = 0.0665 mL
 
 
 def test_summary_is_json_safe_and_parts_add_up():
@@ -169,7 +173,9 @@ def _check_chain(prep):
     assert steps[-1].flask == prep.flask
     # derived: the weighed mass makes the weighed stock, and it reaches the USP <41> minimum weight
     assert prep.mass_g == pytest.approx(
-        mass_for_conc_g(prep.weighed_conc_M, prep.weighed_flask.capacity_mL, prep.formula_weight_g_mol, prep.purity)
+        mass_for_conc_g(
+            prep.weighed_conc_M, prep.weighed_flask.capacity_mL, prep.formula_weight_g_mol, prep.purity
+        )
     )
     assert prep.mass_g >= prep.min_weight_g
     # common practice: each aliquot leaves enough solution behind to rinse the pipette
@@ -218,8 +224,11 @@ def test_dilution_adds_uncertainty():
 
 
 @settings(max_examples=30, deadline=None)
-@given(log_c=st.floats(-6.5, 0.0), cap=st.sampled_from([10, 25, 50, 100, 250, 500, 1000]),
-       purity=st.sampled_from([1.0, 0.999, 0.9999]))
+@given(
+    log_c=st.floats(-6.5, 0.0),
+    cap=st.sampled_from([10, 25, 50, 100, 250, 500, 1000]),
+    purity=st.sampled_from([1.0, 0.999, 0.9999]),
+)
 def test_prepare_stock_invariants(log_c, cap, purity):
     conc = 10.0**log_c
     prep = prepare_stock(conc, cap, "CuSO4·5H2O", purity=purity)

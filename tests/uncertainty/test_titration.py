@@ -44,7 +44,9 @@ def test_delivery_covariance_matches_simulated_additions(study):
     rec = titration_recipe(study.bench, _sched(*([0.05] * 10)))
     st = expected_state(study.model, rec)
     b = error_budget(study.bench, study.model, rec, st)
-    sim = simulate(study.bench, study.model, rec, np.random.default_rng(5), 40_000, photometric=False, stock=False)
+    sim = simulate(
+        study.bench, study.model, rec, np.random.default_rng(5), 40_000, photometric=False, stock=False
+    )
     emp = np.cov(sim.absorbance.T)
     pred = b.delivery
     assert np.max(np.abs(pred - pred.T)) < 1e-15
@@ -60,7 +62,7 @@ def test_break_at_equivalence_for_a_strong_complex():
     # derived: for log β = 9 every added ligand binds until L = M, then the absorbance stops rising: the two
     # straight lines of the titration curve cross at the equivalence ratio L/M = 1
     text = EXAMPLE.read_text(encoding="utf-8").replace("log_beta = 4.00", "log_beta = 9.00")
-    text = text.replace('L  = { value = 300.0, rsd = 0.0 }', 'L  = { value = 0.0, rsd = 0.0 }')
+    text = text.replace("L  = { value = 300.0, rsd = 0.0 }", "L  = { value = 0.0, rsd = 0.0 }")
     text = text.replace('conc = { L = "5.00 mM" }', 'conc = { L = "0.500 mM" }')
     st = compile_study(parse_plan_text(text))
     rec = titration_recipe(st.bench, _sched(*([0.010] * 80)))

@@ -15,13 +15,32 @@ from .survey import wavelength_survey
 METHODS = SERIES_METHODS
 METHOD_OPTIONS = SERIES_METHOD_OPTIONS
 
-__all__ = ["METHODS", "METHOD_OPTIONS", "SeriesResult", "continuous_variation", "conversion_tube", "mole_ratio_series", "plan_model", "run_series",
-           "wavelength_survey"]
+__all__ = [
+    "METHODS",
+    "METHOD_OPTIONS",
+    "SeriesResult",
+    "continuous_variation",
+    "conversion_tube",
+    "mole_ratio_series",
+    "plan_model",
+    "run_series",
+    "wavelength_survey",
+]
 
 
-def run_series(plan: Plan, method: str, *, points: int | None = None, total_M: float | None = None,
-               tubes: int | None = None, limiting: str | None = None, excess_M: float | None = None,
-               vary: str | None = None, max_ratio: float | None = None, recipe=None) -> SeriesResult:
+def run_series(
+    plan: Plan,
+    method: str,
+    *,
+    points: int | None = None,
+    total_M: float | None = None,
+    tubes: int | None = None,
+    limiting: str | None = None,
+    excess_M: float | None = None,
+    vary: str | None = None,
+    max_ratio: float | None = None,
+    recipe=None,
+) -> SeriesResult:
     """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
     if method == "job":
         return continuous_variation(plan, points=points, total_M=total_M)

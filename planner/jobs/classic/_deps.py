@@ -24,9 +24,30 @@ from ..plan.checks import Check
 from ..plan.even import even_series
 
 __all__ = [
-    "ActivityWarning", "Assessment", "Check", "Epsilon", "Model", "Plan", "PlanError", "Recipe", "TubeState", "absorbance_derivatives",
-    "assess_tubes", "bandwidth_factor", "error_budget", "error_factors", "even_series", "free_parameters",
-    "make_recipe", "make_up_min_mL", "plan_devices", "plan_model", "predict", "totals_M", "tube_ions_M", "whitening",
+    "ActivityWarning",
+    "Assessment",
+    "Check",
+    "Epsilon",
+    "Model",
+    "Plan",
+    "PlanError",
+    "Recipe",
+    "TubeState",
+    "absorbance_derivatives",
+    "assess_tubes",
+    "bandwidth_factor",
+    "error_budget",
+    "error_factors",
+    "even_series",
+    "free_parameters",
+    "make_recipe",
+    "make_up_min_mL",
+    "plan_devices",
+    "plan_model",
+    "predict",
+    "totals_M",
+    "tube_ions_M",
+    "whitening",
 ]
 
 

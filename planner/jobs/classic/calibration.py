@@ -56,11 +56,19 @@ WARN_BELOW = 0.95  # under 95 % converted the calibration is wrong by > 5 %: fai
 RANGE_SD = 2.0  # the guess's range: log β ± 2 sd
 RANGE_NODES = 9
 X_GRID = 600  # excess concentrations tried between the stoichiometric amount and 10 M (log spaced)
-QUESTION = "is the 'complete conversion' tube really complete over the guess's range, and what excess does it take?"
+QUESTION = (
+    "is the 'complete conversion' tube really complete over the guess's range, and what excess does it take?"
+)
 
 
-def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float | None = None,
-                excess_M: float | None = None, tubes: int = 1) -> SeriesResult:
+def conversion_tube(
+    plan: Plan,
+    *,
+    limiting: str | None = None,
+    total_M: float | None = None,
+    excess_M: float | None = None,
+    tubes: int = 1,
+) -> SeriesResult:
     """Plan and judge a "complete conversion" calibration tube (and its reagent blank).
 
     Parameters
@@ -76,8 +84,11 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     j = model.index(target)
     p, q = int(model.stoich[j, 0]), int(model.stoich[j, 1])
     if not model.complex_mask[j]:
-        raise PlanError("design.target", f"'{target}' is not a metal–ligand complex: name the complex whose ε "
-                        f"the calibration tube should give")
+        raise PlanError(
+            "design.target",
+            f"'{target}' is not a metal–ligand complex: name the complex whose ε "
+            f"the calibration tube should give",
+        )
     lim = limiting or ("L" if p >= q else "M")
     if lim not in ("M", "L"):
         raise PlanError("--limiting", f"'{lim}': write M (metal limiting) or L (ligand limiting)")
@@ -85,8 +96,10 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     nu_lim, nu_exc = (q, p) if lim == "L" else (p, q)
     eps_t = float(model.epsilon_M_cm[2 + j])
     if eps_t <= 0:
-        raise PlanError(f"optics.epsilon.{target}", f"'{target}' has no absorptivity: give its ε guess "
-                        f"(a calibration tube reads the complex)")
+        raise PlanError(
+            f"optics.epsilon.{target}",
+            f"'{target}' has no absorptivity: give its ε guess (a calibration tube reads the complex)",
+        )
     if tubes < 1:
         raise PlanError("--tubes", "at least one calibration tube")
     _, lim_id, c_lim_stock = pure_stock(plan, lim)
@@ -99,13 +112,19 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     # the limiting reagent: full conversion reads in the middle of the linear range unless told
     if total_M is None:
         want = 0.5 * (lo + hi) * nu_lim / (b * eps_t)
-        v_lim = float(np.clip(snap(want * V / c_lim_stock, step), vmin,
-                              min(snap(V / 2, step), capacity_mL(plan, lim_id))))
+        v_lim = float(
+            np.clip(
+                snap(want * V / c_lim_stock, step), vmin, min(snap(V / 2, step), capacity_mL(plan, lim_id))
+            )
+        )
     else:
         v_lim = float(snap(total_M * V / c_lim_stock, step))
         if v_lim < vmin or v_lim > V:
-            raise PlanError("--total", f"{fmt_conc(total_M)} of {lim} needs {v_lim:g} mL of {lim_id}, outside "
-                            f"{vmin:g}–{V:g} mL: choose another --total")
+            raise PlanError(
+                "--total",
+                f"{fmt_conc(total_M)} of {lim} needs {v_lim:g} mL of {lim_id}, outside "
+                f"{vmin:g}–{V:g} mL: choose another --total",
+            )
     c_lim = c_lim_stock * v_lim / V
 
     # the excess that converts 99 % / 99.9 % at every node of the guess's range
@@ -114,7 +133,7 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     lb = np.repeat(model.log_beta[None, :], nodes.size, axis=0)
     lb[:, j] = nodes
     vol0, tot0 = fill_volumes(plan, {lim_id: np.array([v_lim])})
-    ions0 = tube_ions_M(model, vol0, tot0)            # the medium the tube is made in (background ions)
+    ions0 = tube_ions_M(model, vol0, tot0)  # the medium the tube is made in (background ions)
 
     def fraction(x_M, lbs, ions_row=ions0[0]):
         """Fraction of the limiting reagent in the target at excess x_M (…,), constants lbs (…, S), in a
@@ -137,8 +156,11 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     # why a fraction is out of reach: still rising at the top of the grid (needs more than any stock) or
     # falling (other complexes take the reagent)
     rising = bool(np.all(f_grid[:, -1] >= f_grid[:, -2] - 1e-12))
-    unreachable = (f"more than {fmt_conc(xs[-1])} of {exc}" if rising
-                   else "not reachable: other complexes take the reagent as the excess grows")
+    unreachable = (
+        f"more than {fmt_conc(xs[-1])} of {exc}"
+        if rising
+        else "not reachable: other complexes take the reagent as the excess grows"
+    )
 
     # the planned tube's excess: the smallest grid volume converting 99.9 % (else 99 %) at every node
     # with the reading in range; else the most that stays in range
@@ -147,8 +169,11 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     if excess_M is not None:
         v_exc = float(snap(excess_M * V / c_exc_stock, step))
         if v_exc < vmin or v_exc > V - v_lim + 1e-9:
-            raise PlanError("--excess", f"{fmt_conc(excess_M)} of {exc} needs {v_exc:g} mL of {exc_id}, outside "
-                            f"{vmin:g}–{V - v_lim:g} mL (the tube holds {V:g} mL): choose another --excess")
+            raise PlanError(
+                "--excess",
+                f"{fmt_conc(excess_M)} of {exc} needs {v_exc:g} mL of {exc_id}, outside "
+                f"{vmin:g}–{V - v_lim:g} mL (the tube holds {V:g} mL): choose another --excess",
+            )
     else:
         v_exc = _default_excess(plan, model, fraction, lb, lim_id, exc_id, v_lim, c_exc_stock, vmin, room)
     v_exc = float(snap(v_exc, step))
@@ -167,10 +192,23 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
     f_guess = float(nu_lim * st.species_M[0, j] / st.totals_M[0, 0 if lim == "M" else 1])
     f_worst = float(f_nodes.min())
 
-    checks = [_conversion_check(f_nodes, f_guess, names[0], nodes, x_plan, c_lim),
-              _fits_check(plan, model, needed, lim_id, exc_id, v_lim, c_exc_stock, tubes, cap, unreachable,
-                          optics_info=(b, eps_t, nu_lim, c_lim, exc)),
-              _range_check(st.absorbance[:tubes], names[0], lo, hi)]
+    checks = [
+        _conversion_check(f_nodes, f_guess, names[0], nodes, x_plan, c_lim),
+        _fits_check(
+            plan,
+            model,
+            needed,
+            lim_id,
+            exc_id,
+            v_lim,
+            c_exc_stock,
+            tubes,
+            cap,
+            unreachable,
+            optics_info=(b, eps_t, nu_lim, c_lim, exc),
+        ),
+        _range_check(st.absorbance[:tubes], names[0], lo, hi),
+    ]
     bias = _hand_bias(f_guess) if (p, q) == (1, 1) else None
     bias_worst = _hand_bias(f_worst) if (p, q) == (1, 1) else None
     checks.append(_bias_check(bias, bias_worst, f_guess, f_worst, p, q))
@@ -184,30 +222,50 @@ def conversion_tube(plan: Plan, *, limiting: str | None = None, total_M: float |
         "excess_ratio": x_plan / c_lim,
         "log_beta_range": [float(nodes.min()), float(nodes.max())],
         "excess_needed_M": {f"{f:g}": needed[f] for f in CONVERSIONS},
-        "excess_needed_mL": {f"{f:g}": (needed[f] * V / c_exc_stock if needed[f] is not None else None)
-                             for f in CONVERSIONS},
-        "fraction_converted": {"at_guess": f_guess, "low_log_beta": float(f_nodes[0]),
-                               "high_log_beta": float(f_nodes[-1]), "worst": f_worst},
+        "excess_needed_mL": {
+            f"{f:g}": (needed[f] * V / c_exc_stock if needed[f] is not None else None) for f in CONVERSIONS
+        },
+        "fraction_converted": {
+            "at_guess": f_guess,
+            "low_log_beta": float(f_nodes[0]),
+            "high_log_beta": float(f_nodes[-1]),
+            "worst": f_worst,
+        },
         "hand_bias": bias,
         "hand_bias_worst": bias_worst,
     }
-    notes = [f"{names[0]}: {lim} at {fmt_conc(c_lim)} ({v_lim:g} mL {lim_id}), {exc} at {fmt_conc(x_plan)} "
-             f"({v_exc:g} mL {exc_id}, {x_plan / c_lim:.0f}-fold)",
-             f"fraction of {lim} converted to {target}: {f_guess:.2%} at the guess, {f_worst:.2%} at "
-             f"log β = {nodes.min():.2f} (guess − {RANGE_SD:g} sd)"]
+    notes = [
+        f"{names[0]}: {lim} at {fmt_conc(c_lim)} ({v_lim:g} mL {lim_id}), {exc} at {fmt_conc(x_plan)} "
+        f"({v_exc:g} mL {exc_id}, {x_plan / c_lim:.0f}-fold)",
+        f"fraction of {lim} converted to {target}: {f_guess:.2%} at the guess, {f_worst:.2%} at "
+        f"log β = {nodes.min():.2f} (guess − {RANGE_SD:g} sd)",
+    ]
     for f in CONVERSIONS:
         x = needed[f]
-        notes.append(f"excess for ≥ {f:.1%} over the whole range: "
-                     + (f"{fmt_conc(x)} ({x * V / c_exc_stock:.3g} mL of {exc_id})" if x is not None
-                        else unreachable))
+        notes.append(
+            f"excess for ≥ {f:.1%} over the whole range: "
+            + (f"{fmt_conc(x)} ({x * V / c_exc_stock:.3g} mL of {exc_id})" if x is not None else unreachable)
+        )
     if bias is not None:
-        notes.append(f"treating it as complete biases ε by {bias['epsilon']:+.2%} and K by "
-                     f"{bias['K_dilute']:+.2%} (dilute tubes) to {bias['K_half_saturated']:+.2%} (half-saturated)")
+        notes.append(
+            f"treating it as complete biases ε by {bias['epsilon']:+.2%} and K by "
+            f"{bias['K_dilute']:+.2%} (dilute tubes) to {bias['K_half_saturated']:+.2%} (half-saturated)"
+        )
     if blank:
         notes.append(f"B1 is the reagent blank: the same {exc_id} without {lim_id}, read and subtracted")
     ok = f"{names[0]} converts ≥ {f_worst:.2%} of {lim} over the whole range of the guess"
-    return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, {"fraction": np.append(
-        np.full(tubes, f_guess), [0.0] if blank else [])}, ok, notes=tuple(notes))
+    return finish(
+        METHOD,
+        plan,
+        QUESTION,
+        recipe,
+        a,
+        checks,
+        extra,
+        {"fraction": np.append(np.full(tubes, f_guess), [0.0] if blank else [])},
+        ok,
+        notes=tuple(notes),
+    )
 
 
 def fraction_converted_1to1(M0: float, L0: float, K: float) -> float:
@@ -219,13 +277,18 @@ def fraction_converted_1to1(M0: float, L0: float, K: float) -> float:
 def _default_excess(plan, model, fraction, lb, lim_id, exc_id, v_lim, c_exc_stock, vmin, room) -> float:
     """Grid volume of the excess stock for the planned tube (vectorised over every candidate volume)."""
     step, V = plan.glassware.step_mL, plan.glassware.tube_volume_mL
-    cand = snap(np.arange(int(np.ceil(vmin / step - 1e-9)), int(np.floor(room / step + 1e-9)) + 1) * step, step)
+    cand = snap(
+        np.arange(int(np.ceil(vmin / step - 1e-9)), int(np.floor(room / step + 1e-9)) + 1) * step, step
+    )
     if cand.size == 0:
-        raise PlanError("--total", f"no room for the excess stock {exc_id} beside {v_lim:g} mL of {lim_id}: "
-                        f"lower --total")
+        raise PlanError(
+            "--total", f"no room for the excess stock {exc_id} beside {v_lim:g} mL of {lim_id}: lower --total"
+        )
     vol, tot = fill_volumes(plan, {lim_id: np.full(cand.size, v_lim), exc_id: cand})
     a = predict_volumes(model, vol, tot).absorbance
-    f_worst = fraction(np.broadcast_to(cand * c_exc_stock / V, (lb.shape[0], cand.size)), lb[:, None, :]).min(axis=0)
+    f_worst = fraction(np.broadcast_to(cand * c_exc_stock / V, (lb.shape[0], cand.size)), lb[:, None, :]).min(
+        axis=0
+    )
     inside = a <= model.linear_range[1]
     for f_want in reversed(CONVERSIONS):
         ok = np.flatnonzero(inside & (f_worst >= f_want))
@@ -241,7 +304,7 @@ def _smallest_excess(fraction, xs, f_grid, lb, f_want) -> float | None:
     reach = f_grid >= f_want
     if not np.all(reach.any(axis=1)):
         return None
-    k = reach.argmax(axis=1)                                   # first crossing per node
+    k = reach.argmax(axis=1)  # first crossing per node
     lo = np.log(xs[np.maximum(k - 1, 0)])
     hi = np.log(xs[k])
     for _ in range(40):
@@ -255,23 +318,33 @@ def _smallest_excess(fraction, xs, f_grid, lb, f_want) -> float | None:
 def _hand_bias(f: float) -> dict:
     """Relative biases of the 'complete conversion' hand analysis of a 1:1 complex [derived, see above]."""
     y = 0.5
-    return {"epsilon": f - 1.0, "K_dilute": 1.0 / f - 1.0,
-            "K_half_saturated": (1 - y) / (f - y) - 1.0 if f > y else None}
+    return {
+        "epsilon": f - 1.0,
+        "K_dilute": 1.0 / f - 1.0,
+        "K_half_saturated": (1 - y) / (f - y) - 1.0 if f > y else None,
+    }
 
 
 def _conversion_check(f_nodes, f_guess, tube, nodes, x_plan, c_lim) -> Check:
     worst = float(f_nodes.min())
-    msg = (f"{tube} ({x_plan / c_lim:.0f}-fold excess) converts {f_guess:.2%} at the guess and {worst:.2%} "
-           f"at the weak end of its range (log β {nodes.min():.2f})")
+    msg = (
+        f"{tube} ({x_plan / c_lim:.0f}-fold excess) converts {f_guess:.2%} at the guess and {worst:.2%} "
+        f"at the weak end of its range (log β {nodes.min():.2f})"
+    )
     if worst >= CONVERSIONS[0]:
         return Check("conversion", "pass", msg)
     status = "warn" if worst >= WARN_BELOW else "fail"
-    return Check("conversion", status, msg + f": below {CONVERSIONS[0]:.0%}, ε from this tube is low by "
-                 f"{1 - worst:.1%}; raise the excess (see excess-fits) or fit all tubes globally")
+    return Check(
+        "conversion",
+        status,
+        msg + f": below {CONVERSIONS[0]:.0%}, ε from this tube is low by "
+        f"{1 - worst:.1%}; raise the excess (see excess-fits) or fit all tubes globally",
+    )
 
 
-def _fits_check(plan, model, needed, lim_id, exc_id, v_lim, c_exc_stock, tubes, cap, unreachable,
-                optics_info) -> Check:
+def _fits_check(
+    plan, model, needed, lim_id, exc_id, v_lim, c_exc_stock, tubes, cap, unreachable, optics_info
+) -> Check:
     """Does the excess for 99.9 % (else 99 %) fit the tube, the dispenser, the stock on hand and the range?"""
     b, eps_t, nu_lim, c_lim, exc = optics_info
     g = plan.glassware
@@ -288,14 +361,18 @@ def _fits_check(plan, model, needed, lim_id, exc_id, v_lim, c_exc_stock, tubes, 
         v = x * V / c_exc_stock
         why = []
         if v + v_lim > V + 1e-9:
-            why.append(f"{v:.3g} mL of {exc_id} does not fit the {V:g} mL tube beside {v_lim:g} mL of {lim_id}: "
-                       f"use a more concentrated {exc_id}")
+            why.append(
+                f"{v:.3g} mL of {exc_id} does not fit the {V:g} mL tube beside {v_lim:g} mL of {lim_id}: "
+                f"use a more concentrated {exc_id}"
+            )
         if v > cap + 1e-9:
             why.append(f"{v:.3g} mL is more than the {cap:g} mL dispenser delivers at once")
         if stock.on_hand is not None:
             need = v * (tubes + 1) + g.rinse_mL + g.dead_volume_mL
             if need > stock.on_hand:
-                why.append(f"needs {need:.3g} mL of {exc_id} (tubes, blank, rinse), {stock.on_hand:g} mL on hand")
+                why.append(
+                    f"needs {need:.3g} mL of {exc_id} (tubes, blank, rinse), {stock.on_hand:g} mL on hand"
+                )
         a = b * (eps_t * f * c_lim / nu_lim + eps_exc * x)
         if a > hi:
             why.append(f"reads A ≈ {a:.2f}, above {hi:g} (the excess reagent absorbs): use a shorter path")
@@ -303,17 +380,28 @@ def _fits_check(plan, model, needed, lim_id, exc_id, v_lim, c_exc_stock, tubes, 
     fits = {f: not why for f, why in verdicts}
     detail = "; ".join(f"{f:.1%}: " + ("fits" if not why else "; ".join(why)) for f, why in verdicts)
     if fits[CONVERSIONS[-1]]:
-        return Check("excess-fits", "pass", f"the excess for {CONVERSIONS[-1]:.1%} fits the stock, tube and range ({detail})")
+        return Check(
+            "excess-fits",
+            "pass",
+            f"the excess for {CONVERSIONS[-1]:.1%} fits the stock, tube and range ({detail})",
+        )
     if fits[CONVERSIONS[0]]:
         return Check("excess-fits", "warn", f"only the excess for {CONVERSIONS[0]:.0%} fits ({detail})")
-    return Check("excess-fits", "fail", f"no excess giving {CONVERSIONS[0]:.0%} fits ({detail}): a 'complete "
-                 f"conversion' tube cannot be made with these stocks — fit all tubes globally instead")
+    return Check(
+        "excess-fits",
+        "fail",
+        f"no excess giving {CONVERSIONS[0]:.0%} fits ({detail}): a 'complete "
+        f"conversion' tube cannot be made with these stocks — fit all tubes globally instead",
+    )
 
 
 def _range_check(a, tube, lo, hi) -> Check:
     if a.max() > hi:
-        return Check("linear-range", "fail", f"{tube} reads {a.max():.3f}, above {hi:g}: lower --total or use a "
-                     f"shorter path")
+        return Check(
+            "linear-range",
+            "fail",
+            f"{tube} reads {a.max():.3f}, above {hi:g}: lower --total or use a shorter path",
+        )
     if a.min() < lo:
         return Check("linear-range", "fail", f"{tube} reads {a.min():.3f}, below {lo:g}: raise --total")
     return Check("linear-range", "pass", f"{tube} reads {a.max():.3f}, inside {lo:g}–{hi:g}")
@@ -321,14 +409,19 @@ def _range_check(a, tube, lo, hi) -> Check:
 
 def _bias_check(bias, bias_worst, f_guess, f_worst, p, q) -> Check:
     if bias is None:
-        return Check("hand-bias", "pass" if f_worst >= CONVERSIONS[0] else "warn",
-                     f"ε from this tube is biased by {f_guess - 1:+.2%} at the guess ({f_worst - 1:+.2%} at worst); "
-                     f"the bias in β for a {p}:{q} complex follows from the fit, not from a hand formula")
+        return Check(
+            "hand-bias",
+            "pass" if f_worst >= CONVERSIONS[0] else "warn",
+            f"ε from this tube is biased by {f_guess - 1:+.2%} at the guess ({f_worst - 1:+.2%} at worst); "
+            f"the bias in β for a {p}:{q} complex follows from the fit, not from a hand formula",
+        )
     k_half = bias_worst["K_half_saturated"]
-    msg = (f"a hand analysis treating the tube as complete biases ε by {bias['epsilon']:+.2%} and K by "
-           f"{bias['K_dilute']:+.2%} in dilute tubes, {_pct(bias['K_half_saturated'])} in half-saturated ones "
-           f"(at the guess); at the weak end of the range {bias_worst['K_dilute']:+.2%} to {_pct(k_half)} "
-           f"(K_hand/K = (1 − y)/(f − y), y the tube's saturation)")
+    msg = (
+        f"a hand analysis treating the tube as complete biases ε by {bias['epsilon']:+.2%} and K by "
+        f"{bias['K_dilute']:+.2%} in dilute tubes, {_pct(bias['K_half_saturated'])} in half-saturated ones "
+        f"(at the guess); at the weak end of the range {bias_worst['K_dilute']:+.2%} to {_pct(k_half)} "
+        f"(K_hand/K = (1 − y)/(f − y), y the tube's saturation)"
+    )
     status = "pass" if f_worst >= CONVERSIONS[-1] else "warn" if f_worst >= WARN_BELOW else "fail"
     return Check("hand-bias", status, msg)
 
@@ -338,7 +431,9 @@ def _pct(x) -> str:
 
 
 def _global_fit_check(f_worst: float) -> Check:
-    msg = ("better: do not assume complete conversion at all — fit every tube, this one included, with ε free "
-           "(kplan design chooses the tubes, kplan fit fits the readings); the global fit needs no calibration "
-           "tube and carries none of its bias")
+    msg = (
+        "better: do not assume complete conversion at all — fit every tube, this one included, with ε free "
+        "(kplan design chooses the tubes, kplan fit fits the readings); the global fit needs no calibration "
+        "tube and carries none of its bias"
+    )
     return Check("global-fit", "pass" if f_worst >= CONVERSIONS[-1] else "warn", msg)

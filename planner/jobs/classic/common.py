@@ -105,9 +105,19 @@ def json_safe(x):
     return x
 
 
-def finish(method: str, plan: Plan, question: str, recipe: Recipe, a: Assessment, own: list[Check],
-           extra: dict, columns: dict, reason_ok: str, reason_bad: str | None = None,
-           notes: tuple[str, ...] = ()) -> SeriesResult:
+def finish(
+    method: str,
+    plan: Plan,
+    question: str,
+    recipe: Recipe,
+    a: Assessment,
+    own: list[Check],
+    extra: dict,
+    columns: dict,
+    reason_ok: str,
+    reason_bad: str | None = None,
+    notes: tuple[str, ...] = (),
+) -> SeriesResult:
     """Merge the method's checks with the kept assess checks, sort worst first and decide the verdict."""
     kept = [c for c in a.checks if c.id in KEPT_ASSESS_CHECKS]
     checks = sorted(own + kept, key=lambda c: -STATUSES.index(c.status))
@@ -117,12 +127,14 @@ def finish(method: str, plan: Plan, question: str, recipe: Recipe, a: Assessment
         reason = reason_ok
     else:
         reason = reason_bad or f"check '{failed[0].id}' fails: {failed[0].message}"
-    return SeriesResult(method, plan.title, question, recipe, a, tuple(checks), answers, reason, extra, columns,
-                        tuple(notes))
+    return SeriesResult(
+        method, plan.title, question, recipe, a, tuple(checks), answers, reason, extra, columns, tuple(notes)
+    )
 
 
 # ----------------------------------------------------------------------------------------------------
 # numbers shared by the methods
+
 
 def snap(v, step: float) -> np.ndarray:
     """Round volumes to the grid (and to 10 decimals so 0.1 + 0.2 prints as 0.3)."""
@@ -136,8 +148,11 @@ def pure_stock(plan: Plan, comp: str) -> tuple[int, str, float]:
         if s.conc.get(comp) and not s.conc.get(other):
             return k, s.id, float(s.conc[comp])
     name = "metal" if comp == "M" else "ligand"
-    raise PlanError("stock", f"a classic series needs a stock of the {name} alone: add a [[stock]] with "
-                    f"conc = {{ {comp} = '...' }} and no {other}")
+    raise PlanError(
+        "stock",
+        f"a classic series needs a stock of the {name} alone: add a [[stock]] with "
+        f"conc = {{ {comp} = '...' }} and no {other}",
+    )
 
 
 def capacity_mL(plan: Plan, sid: str) -> float:
@@ -233,8 +248,14 @@ def scaled_in_range(model: Model, recipe: Recipe, scale: float) -> tuple[Model, 
     return ms, st
 
 
-def range_check(model: Model, state: TubeState, tubes, *, low_is_warning: bool,
-                fix_high: str = "lower the total concentration (--total) or use a shorter path") -> Check:
+def range_check(
+    model: Model,
+    state: TubeState,
+    tubes,
+    *,
+    low_is_warning: bool,
+    fix_high: str = "lower the total concentration (--total) or use a shorter path",
+) -> Check:
     """Readings inside the linear range: above it always fails (the curve's shape is bent); below it
     fails or, where small readings are inherent to the method (the ends of a Job series), warns."""
     lo, hi = model.linear_range
@@ -242,14 +263,21 @@ def range_check(model: Model, state: TubeState, tubes, *, low_is_warning: bool,
     over, under = a > hi, a < lo
     names = lambda m: ", ".join([t for t, x in zip(tubes, m, strict=True) if x][:6])  # noqa: E731
     if over.any():
-        return Check("linear-range", "fail",
-                     f"{names(over)} read above {hi:g} (A up to {a.max():.3f}): {fix_high}")
+        return Check(
+            "linear-range", "fail", f"{names(over)} read above {hi:g} (A up to {a.max():.3f}): {fix_high}"
+        )
     if under.any():
-        return Check("linear-range", "warn" if low_is_warning else "fail",
-                     f"{names(under)} read below {lo:g} (A down to {a.min():.3f}): their relative precision is "
-                     f"poor; raise the total concentration if the upper end allows")
-    return Check("linear-range", "pass", f"all {len(tubes)} tubes read between {lo:g} and {hi:g} "
-                 f"(A = {a.min():.3f}–{a.max():.3f})")
+        return Check(
+            "linear-range",
+            "warn" if low_is_warning else "fail",
+            f"{names(under)} read below {lo:g} (A down to {a.min():.3f}): their relative precision is "
+            f"poor; raise the total concentration if the upper end allows",
+        )
+    return Check(
+        "linear-range",
+        "pass",
+        f"all {len(tubes)} tubes read between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
+    )
 
 
 def fmt_conc(c_M: float) -> str:

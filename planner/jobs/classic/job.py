@@ -51,7 +51,9 @@ SEARCH_SCALES = 2.0 ** np.arange(1, 8)  # totals tried when the planned one cann
 QUESTION = "which stoichiometry: does the curve tell the plan's complexes from 1:1, 1:2, 2:1 and 1:1+1:2?"
 
 
-def continuous_variation(plan: Plan, *, points: int | None = None, total_M: float | None = None) -> SeriesResult:
+def continuous_variation(
+    plan: Plan, *, points: int | None = None, total_M: float | None = None
+) -> SeriesResult:
     """Plan and judge a continuous-variation series.
 
     Parameters
@@ -69,21 +71,30 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
         raise PlanError("--points", f"{n} points cannot show an extremum: use at least 3 (9–11 is usual)")
     g = plan.glassware
     step, vmin = g.step_mL, max(g.min_volume_mL, g.step_mL)
-    avail = g.tube_volume_mL - make_up_min_mL(plan) - sum(v for k, v in plan.design.fixed.items()
-                                                          if k not in (m_id, l_id))
+    avail = (
+        g.tube_volume_mL
+        - make_up_min_mL(plan)
+        - sum(v for k, v in plan.design.fixed.items() if k not in (m_id, l_id))
+    )
     x = np.arange(1, n + 1) / (n + 1)
     if total_M is not None:
         if total_M <= 0:
             raise PlanError("--total", "the total concentration must be positive, e.g. --total '2 mM'")
         vs = float(snap(total_M * g.tube_volume_mL / cM, step))
         if vs > avail + 1e-9:
-            raise PlanError("--total", f"{fmt_conc(total_M)} needs {vs:g} mL of stock per tube, more than the "
-                            f"{avail:g} mL available: lower --total or use more concentrated stocks")
+            raise PlanError(
+                "--total",
+                f"{fmt_conc(total_M)} needs {vs:g} mL of stock per tube, more than the "
+                f"{avail:g} mL available: lower --total or use more concentrated stocks",
+            )
         caps = (capacity_mL(plan, m_id), capacity_mL(plan, l_id))
         if not _valid(np.array([vs]), x, step, vmin, caps)[0]:
-            raise PlanError("--total", f"at {fmt_conc(total_M)} ({vs:g} mL of stock per tube) the {n} mole fractions "
-                            f"do not fit the {step:g} mL grid between min_volume {vmin:g} mL and the dispensers' "
-                            f"capacity: change --total or use fewer --points")
+            raise PlanError(
+                "--total",
+                f"at {fmt_conc(total_M)} ({vs:g} mL of stock per tube) the {n} mole fractions "
+                f"do not fit the {step:g} mL grid between min_volume {vmin:g} mL and the dispensers' "
+                f"capacity: change --total or use fewer --points",
+            )
     else:
         vs = _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n)
     vm = snap(x * vs, step)
@@ -111,9 +122,11 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
         nested = all(f.nested for f in close)
         needed = _total_that_separates(plan, model, recipe, ions, C, nested)
 
-    checks = [Check("equimolar", "pass", f"{m_id} and {l_id} are both {fmt_conc(cM)}: equimolar"),
-              range_check(model, st, recipe.tubes, low_is_warning=True, fix_high=_fix_high(plan, n, vs, cM)),
-              _extremum_check(model, x_ext, C)]
+    checks = [
+        Check("equimolar", "pass", f"{m_id} and {l_id} are both {fmt_conc(cM)}: equimolar"),
+        range_check(model, st, recipe.tubes, low_is_warning=True, fix_high=_fix_high(plan, n, vs, cM)),
+        _extremum_check(model, x_ext, C),
+    ]
     if fits:
         checks.append(_discrimination_check(model, fits, C, needed))
     extra = {
@@ -126,25 +139,37 @@ def continuous_variation(plan: Plan, *, points: int | None = None, total_M: floa
         "separation_wanted_sd": rv.SEPARATION_WANTED,
         "total_needed_M": needed[0] if needed else None,
         "path_cm_at_total_needed": needed[1] if needed else None,
-        "series": [{"tube": t, "mole_fraction": float(xm[i]), "corrected_absorbance": float(y[i]),
-                    "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])]}
-                   for i, t in enumerate(recipe.tubes)],
+        "series": [
+            {
+                "tube": t,
+                "mole_fraction": float(xm[i]),
+                "corrected_absorbance": float(y[i]),
+                "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])],
+            }
+            for i, t in enumerate(recipe.tubes)
+        ],
         "curve": {"mole_fraction": xf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
     }
     columns = {"x_M": xm, "Y": y, "±2sd": 2 * sd}
     far = [f for f in fits if not f.nested]
-    ok = (f"the curve tells {rv.plan_label(model)} from "
-          + (", ".join(f.model for f in far) or "its rivals")
-          + f" by ≥ {rv.SEPARATION_WANTED:g} sd at C = {fmt_conc(C)}; extremum at x_M = {x_ext:.3f}")
-    notes = [f"total concentration C = [M]0 + [L]0 = {fmt_conc(C)} in every tube ({vs:g} mL of stock)",
-             f"extremum of the corrected absorbance at x_M = {x_ext:.3f} (Y = {y_ext:.3f})",
-             "separation from rival models (whitened residual of their best fit): "
-             + (", ".join(f"{f.model} {f.separation_sd:.1f} sd" for f in fits) or "none")]
+    ok = (
+        f"the curve tells {rv.plan_label(model)} from "
+        + (", ".join(f.model for f in far) or "its rivals")
+        + f" by ≥ {rv.SEPARATION_WANTED:g} sd at C = {fmt_conc(C)}; extremum at x_M = {x_ext:.3f}"
+    )
+    notes = [
+        f"total concentration C = [M]0 + [L]0 = {fmt_conc(C)} in every tube ({vs:g} mL of stock)",
+        f"extremum of the corrected absorbance at x_M = {x_ext:.3f} (Y = {y_ext:.3f})",
+        "separation from rival models (whitened residual of their best fit): "
+        + (", ".join(f"{f.model} {f.separation_sd:.1f} sd" for f in fits) or "none"),
+    ]
     if needed:
         cell = f" in a {needed[1]:.2g} cm cell" if needed[1] < model.path_cm * 0.999 else ""
         kind = "nested" if all(f.nested for f in close) else "stoichiometric"
-        notes.append(f"a total of {fmt_conc(needed[0])}{cell} would separate the {kind} rivals by "
-                     f"≥ {rv.SEPARATION_WANTED:g} sd")
+        notes.append(
+            f"a total of {fmt_conc(needed[0])}{cell} would separate the {kind} rivals by "
+            f"≥ {rv.SEPARATION_WANTED:g} sd"
+        )
     return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
 
 
@@ -170,17 +195,21 @@ def _require_equimolar(plan: Plan, m_id: str, cM: float, l_id: str, cL: float) -
     flask = 100.0
     take = flask * lo_c / hi_c
     dil = plan.diluent.id if plan.diluent is not None else "the medium"
-    raise PlanError(f"stock[{k}].conc.{comp}",
-                    f"continuous variation needs equimolar stocks, but {m_id} is {fmt_conc(cM)} and {l_id} "
-                    f"{fmt_conc(cL)}: dilute {hi_id} — {take:.2f} mL made up to {flask:.0f} mL with {dil} gives "
-                    f"{fmt_conc(lo_c)} — and give that stock in the plan")
+    raise PlanError(
+        f"stock[{k}].conc.{comp}",
+        f"continuous variation needs equimolar stocks, but {m_id} is {fmt_conc(cM)} and {l_id} "
+        f"{fmt_conc(cL)}: dilute {hi_id} — {take:.2f} mL made up to {flask:.0f} mL with {dil} gives "
+        f"{fmt_conc(lo_c)} — and give that stock in the plan",
+    )
 
 
 def _fix_high(plan: Plan, n: int, vs: float, c: float) -> str:
     lowest = max(plan.glassware.min_volume_mL, plan.glassware.step_mL) * (n + 1)
     if vs <= lowest + 1e-9:
-        return (f"this is already the lowest total the grid allows with {n} points ({vs:g} mL of stock per "
-                f"tube): use fewer --points, dilute both stocks alike, or a shorter path")
+        return (
+            f"this is already the lowest total the grid allows with {n} points ({vs:g} mL of stock per "
+            f"tube): use fewer --points, dilute both stocks alike, or a shorter path"
+        )
     return "lower the total concentration (--total) or use a shorter path"
 
 
@@ -190,8 +219,13 @@ def _valid(vs: np.ndarray, x: np.ndarray, step: float, vmin: float, caps=(np.inf
     vm = snap(x[None, :] * vs[:, None], step)
     vl = snap(vs[:, None] - vm, step)
     distinct = np.all(np.diff(vm, axis=1) > step / 2, axis=1)
-    return (distinct & (vm.min(axis=1) >= vmin - 1e-9) & (vl.min(axis=1) >= vmin - 1e-9)
-            & (vm.max(axis=1) <= caps[0] + 1e-9) & (vl.max(axis=1) <= caps[1] + 1e-9))
+    return (
+        distinct
+        & (vm.min(axis=1) >= vmin - 1e-9)
+        & (vl.min(axis=1) >= vmin - 1e-9)
+        & (vm.max(axis=1) <= caps[0] + 1e-9)
+        & (vl.max(axis=1) <= caps[1] + 1e-9)
+    )
 
 
 def _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n) -> float:
@@ -199,8 +233,11 @@ def _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n) -> float:
     cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
     cand = cand[_valid(cand, x, step, vmin, (capacity_mL(plan, m_id), capacity_mL(plan, l_id)))]
     if cand.size == 0:
-        raise PlanError("--points", f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube "
-                        f"on the {step:g} mL grid above min_volume {vmin:g} mL: use fewer --points")
+        raise PlanError(
+            "--points",
+            f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube "
+            f"on the {step:g} mL grid above min_volume {vmin:g} mL: use fewer --points",
+        )
     xf = np.linspace(0.02, 0.98, 49)
     vol, tot = fill_volumes(plan, {m_id: cand[:, None] * xf, l_id: cand[:, None] * (1 - xf)})
     peak = predict_volumes(model, vol, tot).absorbance.max(axis=1)
@@ -233,7 +270,9 @@ def _separation_at(plan, model, recipe, ions, scale: float, devices, nested: boo
     ms, st = scaled_in_range(model, recipe, scale)
     cov = error_budget(plan, ms, recipe, st, devices).total
     W = whitening(cov)
-    fits = [rv.fit_rival(ms, lab, pq, st.totals_M, ions, st.absorbance_true, W) for lab, pq in rv.rivals_for(ms)]
+    fits = [
+        rv.fit_rival(ms, lab, pq, st.totals_M, ions, st.absorbance_true, W) for lab, pq in rv.rivals_for(ms)
+    ]
     return min(f.separation_sd for f in fits if f.nested == nested), float(ms.path_cm)
 
 
@@ -264,11 +303,19 @@ def _extremum_check(model, x_ext: float, C: float) -> Check:
     if len(pq) == 1:
         p, q = pq[0]
         want = p / (p + q)
-        return Check("extremum", "pass", f"extremum at x_M = {x_ext:.3f}; a single {p}:{q} complex puts it at "
-                     f"{want:.3f} (Job 1928) whatever K and ε")
-    return Check("extremum", "pass", f"extremum at x_M = {x_ext:.3f} at C = {fmt_conc(C)}: with "
-                 f"{rv.plan_label(model)} it lies between the single complexes' positions and moves with C — "
-                 f"read the stoichiometry from the fit, not from the peak")
+        return Check(
+            "extremum",
+            "pass",
+            f"extremum at x_M = {x_ext:.3f}; a single {p}:{q} complex puts it at "
+            f"{want:.3f} (Job 1928) whatever K and ε",
+        )
+    return Check(
+        "extremum",
+        "pass",
+        f"extremum at x_M = {x_ext:.3f} at C = {fmt_conc(C)}: with "
+        f"{rv.plan_label(model)} it lies between the single complexes' positions and moves with C — "
+        f"read the stoichiometry from the fit, not from the peak",
+    )
 
 
 def _discrimination_check(model, fits, C, needed) -> Check:
@@ -278,8 +325,12 @@ def _discrimination_check(model, fits, C, needed) -> Check:
     own = rv.plan_label(model)
     close = [f for f in fits if f.separation_sd < rv.SEPARATION_WANTED]
     if not close:
-        return Check("discrimination", "pass", f"at C = {fmt_conc(C)} the curve tells {own} from its rivals "
-                     f"above the noise: {seps} (≥ {rv.SEPARATION_WANTED:g} sd wanted)")
+        return Check(
+            "discrimination",
+            "pass",
+            f"at C = {fmt_conc(C)} the curve tells {own} from its rivals "
+            f"above the noise: {seps} (≥ {rv.SEPARATION_WANTED:g} sd wanted)",
+        )
     names = " or ".join(f.model for f in close)
     msg = f"at C = {fmt_conc(C)} the curve cannot tell {own} from {names} ({seps}; {rv.SEPARATION_WANTED:g} sd wanted)"
     if needed is None:
@@ -292,8 +343,14 @@ def _discrimination_check(model, fits, C, needed) -> Check:
         if path < model.path_cm * 0.999:
             msg += f" (in a {path:.2g} cm cell, to keep the readings in the linear range)"
     if all(f.nested for f in close):
-        return Check("discrimination", "warn", msg + (
-            f". The rival only adds a complex holding ≥ {rv.MATERIAL_SHARE:.0%} of the metal somewhere, and one "
-            f"that absorbs like {own} per metal hides in any single-wavelength curve: read a second wavelength "
-            f"or fit a designed series with both complexes (kplan design) before excluding it"))
+        return Check(
+            "discrimination",
+            "warn",
+            msg
+            + (
+                f". The rival only adds a complex holding ≥ {rv.MATERIAL_SHARE:.0%} of the metal somewhere, and one "
+                f"that absorbs like {own} per metal hides in any single-wavelength curve: read a second wavelength "
+                f"or fit a designed series with both complexes (kplan design) before excluding it"
+            ),
+        )
     return Check("discrimination", "fail", msg + alt)

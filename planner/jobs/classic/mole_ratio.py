@@ -68,8 +68,14 @@ CURVE_POINTS = 201
 QUESTION = "where is the break, and is it sharp enough to read the complex's ratio from two straight lines?"
 
 
-def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None, total_M: float | None = None,
-               max_ratio: float | None = None) -> SeriesResult:
+def mole_ratio_series(
+    plan: Plan,
+    *,
+    vary: str = "L",
+    points: int | None = None,
+    total_M: float | None = None,
+    max_ratio: float | None = None,
+) -> SeriesResult:
     """Plan and judge a mole-ratio series.
 
     Parameters
@@ -81,7 +87,9 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
     max_ratio : the highest ratio varied/fixed (default: 2.5 × the highest ratio among the complexes).
     """
     if vary not in ("L", "M"):
-        raise PlanError("--vary", f"'{vary}': write L (metal fixed, ligand rising) or M (ligand fixed, metal rising)")
+        raise PlanError(
+            "--vary", f"'{vary}': write L (metal fixed, ligand rising) or M (ligand fixed, metal rising)"
+        )
     model = plan_model(plan)
     fix = "M" if vary == "L" else "L"
     fi, vi = (0, 1) if fix == "M" else (1, 0)
@@ -90,8 +98,10 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
     target = plan.target
     j = model.index(target)
     if not model.complex_mask[j]:
-        raise PlanError("design.target", f"'{target}' is not a metal–ligand complex: name the complex whose "
-                        f"ratio the series should find")
+        raise PlanError(
+            "design.target",
+            f"'{target}' is not a metal–ligand complex: name the complex whose ratio the series should find",
+        )
     expected = float(model.stoich[j, vi] / model.stoich[j, fi])
     mask = model.complex_mask
     highest = float(np.max(model.stoich[mask, vi] / model.stoich[mask, fi]))
@@ -105,21 +115,28 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
     else:
         r_max = float(max_ratio)
     if r_max <= expected * (1 + LINE_MARGIN):
-        raise PlanError("--max-ratio", f"{r_max:g} does not reach past the break at {expected:g}: use at least "
-                        f"{2 * expected:g}")
+        raise PlanError(
+            "--max-ratio",
+            f"{r_max:g} does not reach past the break at {expected:g}: use at least {2 * expected:g}",
+        )
     g = plan.glassware
     step, vmin, V = g.step_mL, max(g.min_volume_mL, g.step_mL), g.tube_volume_mL
     r = r_max * np.arange(1, n + 1) / n
-    avail = V - make_up_min_mL(plan) - sum(v for k, v in plan.design.fixed.items() if k not in (fix_id, var_id))
+    avail = (
+        V - make_up_min_mL(plan) - sum(v for k, v in plan.design.fixed.items() if k not in (fix_id, var_id))
+    )
     if total_M is not None:
         v_fix = float(snap(total_M * V / c_fix, step))
         caps = (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
         if not _valid(np.array([v_fix]), r, c_fix, c_var, step, vmin, avail, caps)[0]:
             vv = snap(r * v_fix * c_fix / c_var, step)
-            raise PlanError("--total", f"{fmt_conc(total_M)} of {fix} is {v_fix:g} mL of {fix_id}; the {n} volumes "
-                            f"of {var_id} up to ratio {r_max:g} would run {vv[0]:g}–{vv[-1]:g} mL, which must be "
-                            f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most {min(caps[1], avail - v_fix):g} mL: "
-                            f"choose another --total, fewer --points or another --max-ratio")
+            raise PlanError(
+                "--total",
+                f"{fmt_conc(total_M)} of {fix} is {v_fix:g} mL of {fix_id}; the {n} volumes "
+                f"of {var_id} up to ratio {r_max:g} would run {vv[0]:g}–{vv[-1]:g} mL, which must be "
+                f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most {min(caps[1], avail - v_fix):g} mL: "
+                f"choose another --total, fewer --points or another --max-ratio",
+            )
     else:
         v_fix = _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n)
     v_var = snap(r * v_fix * c_fix / c_var, step)
@@ -141,10 +158,14 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
     needed = None
     if not hand["resolvable"]:
         needed = _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions)
-    checks = [range_check(model, st, recipe.tubes, low_is_warning=True),
-              _break_check(hand, expected, C, needed, model, fix)]
+    checks = [
+        range_check(model, st, recipe.tubes, low_is_warning=True),
+        _break_check(hand, expected, C, needed, model, fix),
+    ]
     extra = {
-        "fixed_reagent": fix, "varied_reagent": vary, "stocks": {"fixed": fix_id, "varied": var_id},
+        "fixed_reagent": fix,
+        "varied_reagent": vary,
+        "stocks": {"fixed": fix_id, "varied": var_id},
         "fixed_conc_M": C,
         "break_ratio": hand["break_ratio"],
         "break_ratio_sd": hand["break_ratio_sd"],
@@ -154,25 +175,37 @@ def mole_ratio_series(plan: Plan, *, vary: str = "L", points: int | None = None,
         "resolvable": hand["resolvable"],
         "shortfall_fraction": hand["shortfall_fraction"],
         "shortfall_sd": hand["shortfall_sd"],
-        "lines_tubes": {"before": [t for t, m in zip(recipe.tubes, hand["before"], strict=True) if m],
-                        "after": [t for t, m in zip(recipe.tubes, hand["after"], strict=True) if m]},
+        "lines_tubes": {
+            "before": [t for t, m in zip(recipe.tubes, hand["before"], strict=True) if m],
+            "after": [t for t, m in zip(recipe.tubes, hand["after"], strict=True) if m],
+        },
         "conc_needed_M": needed[0] if needed else None,
         "path_cm_at_conc_needed": needed[1] if needed else None,
-        "series": [{"tube": t, "ratio": float(ratio[i]), "corrected_absorbance": float(y[i]),
-                    "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])]}
-                   for i, t in enumerate(recipe.tubes)],
+        "series": [
+            {
+                "tube": t,
+                "ratio": float(ratio[i]),
+                "corrected_absorbance": float(y[i]),
+                "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])],
+            }
+            for i, t in enumerate(recipe.tubes)
+        ],
         "curve": {"ratio": rf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
     }
-    notes = [f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {fix_id}); {vary} rising to {r_max:g}× "
-             f"({v_var.min():g}–{v_var.max():g} mL {var_id})",
-             f"two-line break at {vary}/{fix} = {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} "
-             f"(expected {expected:g} for {target}); the curve falls {hand['shortfall_fraction']:.1%} "
-             f"({hand['shortfall_sd']:.1f} sd) short of the asymptotes' corner there"]
+    notes = [
+        f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {fix_id}); {vary} rising to {r_max:g}× "
+        f"({v_var.min():g}–{v_var.max():g} mL {var_id})",
+        f"two-line break at {vary}/{fix} = {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} "
+        f"(expected {expected:g} for {target}); the curve falls {hand['shortfall_fraction']:.1%} "
+        f"({hand['shortfall_sd']:.1f} sd) short of the asymptotes' corner there",
+    ]
     if needed:
         cell = f" in a {needed[1]:.2g} cm cell" if needed[1] < model.path_cm * 0.999 else ""
         notes.append(f"a fixed concentration of {fmt_conc(needed[0])}{cell} would make the break resolvable")
-    ok = (f"the break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} reads the {target} ratio "
-          f"{expected:g} within {BREAK_TOLERANCE:.0%}")
+    ok = (
+        f"the break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} reads the {target} ratio "
+        f"{expected:g} within {BREAK_TOLERANCE:.0%}"
+    )
     columns = {"ratio": ratio, "Y": y, "±2sd": 2 * sd}
     return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
 
@@ -182,8 +215,12 @@ def judge_break(ratio, y, cov, rf, yf, expected) -> dict:
     hand = two_line_break(ratio, y, cov, expected)
     frac, in_sd = _shortfall(rf, yf, expected, float(np.median(np.sqrt(np.diag(cov)))))
     sharp = bool(frac <= SHARP_SHORTFALL or in_sd <= INVISIBLE_SD)
-    hand.update(shortfall_fraction=frac, shortfall_sd=in_sd, sharp=sharp,
-                resolvable=bool(hand["resolvable"] and sharp))
+    hand.update(
+        shortfall_fraction=frac,
+        shortfall_sd=in_sd,
+        sharp=sharp,
+        resolvable=bool(hand["resolvable"] and sharp),
+    )
     return hand
 
 
@@ -193,13 +230,21 @@ def two_line_break(ratio: np.ndarray, y: np.ndarray, cov: np.ndarray, expected: 
     whether |bias| + 2 sd ≤ BREAK_TOLERANCE·expected."""
     before = ratio <= expected * (1 - LINE_MARGIN) + 1e-12
     after = ratio >= expected * (1 + LINE_MARGIN) - 1e-12
-    out = {"before": before, "after": after, "break_ratio": float("nan"), "break_ratio_sd": float("nan"),
-           "bias": float("nan"), "resolvable": False}
+    out = {
+        "before": before,
+        "after": after,
+        "break_ratio": float("nan"),
+        "break_ratio_sd": float("nan"),
+        "bias": float("nan"),
+        "resolvable": False,
+    }
     if before.sum() < 2 or after.sum() < 2:
-        out["why"] = (f"fewer than two tubes on a side of the break (before: {int(before.sum())}, after: "
-                      f"{int(after.sum())}): add tubes")
+        out["why"] = (
+            f"fewer than two tubes on a side of the break (before: {int(before.sum())}, after: "
+            f"{int(after.sum())}): add tubes"
+        )
         return out
-    P1 = _line_projector(ratio, before)            # (2, n): [a, b] = P @ y
+    P1 = _line_projector(ratio, before)  # (2, n): [a, b] = P @ y
     P2 = _line_projector(ratio, after)
     a1, b1 = P1 @ y
     a2, b2 = P2 @ y
@@ -208,11 +253,15 @@ def two_line_break(ratio: np.ndarray, y: np.ndarray, cov: np.ndarray, expected: 
         return out
     rb = (a2 - a1) / (b1 - b2)
     d = b1 - b2
-    grad = (-P1[0] + P2[0]) / d - rb * (P1[1] - P2[1]) / d   # ∂rb/∂y [derived: quotient rule]
+    grad = (-P1[0] + P2[0]) / d - rb * (P1[1] - P2[1]) / d  # ∂rb/∂y [derived: quotient rule]
     sd = float(np.sqrt(max(grad @ cov @ grad, 0.0)))
     bias = float(rb - expected)
-    out.update(break_ratio=float(rb), break_ratio_sd=sd, bias=bias,
-               resolvable=bool(abs(bias) + 2 * sd <= BREAK_TOLERANCE * expected))
+    out.update(
+        break_ratio=float(rb),
+        break_ratio_sd=sd,
+        bias=bias,
+        resolvable=bool(abs(bias) + 2 * sd <= BREAK_TOLERANCE * expected),
+    )
     return out
 
 
@@ -227,8 +276,11 @@ def _shortfall(rf, yf, expected, sd) -> tuple[float, float]:
     at the start and the end), as a fraction of the corner's height and in reading sd."""
     s0 = (yf[1] - yf[0]) / (rf[1] - rf[0])
     s1 = (yf[-1] - yf[-2]) / (rf[-1] - rf[-2])
-    corner = min(yf[0] + s0 * expected, yf[-1] + s1 * (expected - rf[-1]), key=abs) if s0 * s1 >= 0 else \
-        yf[0] + s0 * expected
+    corner = (
+        min(yf[0] + s0 * expected, yf[-1] + s1 * (expected - rf[-1]), key=abs)
+        if s0 * s1 >= 0
+        else yf[0] + s0 * expected
+    )
     at = float(np.interp(expected, rf, yf))
     gap = abs(corner - at)
     return float(gap / abs(corner)) if corner else float("nan"), float(gap / sd) if sd > 0 else float("nan")
@@ -239,27 +291,46 @@ def _valid(v_fix: np.ndarray, r, c_fix, c_var, step, vmin, avail, caps=(np.inf, 
     within each dispenser's capacity."""
     vv = snap(r[None, :] * (v_fix[:, None] * c_fix / c_var), step)
     distinct = np.all(np.diff(vv, axis=1) > step / 2, axis=1)
-    return (distinct & (vv[:, 0] >= vmin - 1e-9) & (v_fix + vv[:, -1] <= avail + 1e-9) & (v_fix >= vmin - 1e-9)
-            & (v_fix <= caps[0] + 1e-9) & (vv[:, -1] <= caps[1] + 1e-9))
+    return (
+        distinct
+        & (vv[:, 0] >= vmin - 1e-9)
+        & (v_fix + vv[:, -1] <= avail + 1e-9)
+        & (v_fix >= vmin - 1e-9)
+        & (v_fix <= caps[0] + 1e-9)
+        & (vv[:, -1] <= caps[1] + 1e-9)
+    )
 
 
 def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n) -> float:
     """The largest fixed volume whose series fits the tube and stays below the top of the linear range."""
     cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
-    cand = cand[_valid(cand, r, c_fix, c_var, step, vmin, avail, (capacity_mL(plan, fix_id), capacity_mL(plan, var_id)))]
+    cand = cand[
+        _valid(
+            cand, r, c_fix, c_var, step, vmin, avail, (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
+        )
+    ]
     if cand.size == 0:
-        raise PlanError("--points", f"{n} rising volumes do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
-                        f"the {step:g} mL grid above min_volume: use fewer --points, a lower --max-ratio or a "
-                        f"more concentrated {var_id}")
-    vol, tot = fill_volumes(plan, {fix_id: np.broadcast_to(cand[:, None], (cand.size, r.size)),
-                                   var_id: cand[:, None] * r * c_fix / c_var})
+        raise PlanError(
+            "--points",
+            f"{n} rising volumes do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
+            f"the {step:g} mL grid above min_volume: use fewer --points, a lower --max-ratio or a "
+            f"more concentrated {var_id}",
+        )
+    vol, tot = fill_volumes(
+        plan,
+        {
+            fix_id: np.broadcast_to(cand[:, None], (cand.size, r.size)),
+            var_id: cand[:, None] * r * c_fix / c_var,
+        },
+    )
     peak = predict_volumes(model, vol, tot).absorbance.max(axis=1)
     inside = np.flatnonzero(peak <= model.linear_range[1])
     return float(cand[inside[-1]] if inside.size else cand[0])
 
 
-def _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions
-                        ) -> tuple[float, float] | None:
+def _conc_that_resolves(
+    plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions
+) -> tuple[float, float] | None:
     """Smallest scale of both stocks (same volumes) at which the break is resolvable, with the path that
     keeps the readings in range: (fixed concentration, path_cm), or None up to 1000×."""
     devices = plan_devices(plan)
@@ -282,23 +353,31 @@ def _num(x) -> str:
 def _break_check(hand, expected, C, needed, model, fix) -> Check:
     if "why" in hand:
         return Check("break", "fail", hand["why"])
-    msg = (f"two-line break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} against the "
-           f"expected {expected:g} (bias {hand['bias']:+.3f}); the curve falls {hand['shortfall_fraction']:.1%} "
-           f"({hand['shortfall_sd']:.1f} sd) short of its asymptotes' corner")
+    msg = (
+        f"two-line break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} against the "
+        f"expected {expected:g} (bias {hand['bias']:+.3f}); the curve falls {hand['shortfall_fraction']:.1%} "
+        f"({hand['shortfall_sd']:.1f} sd) short of its asymptotes' corner"
+    )
     if not hand["sharp"]:
-        msg += (f" — a rounded break (sharp means ≤ {SHARP_SHORTFALL:.0%}, K·C ≥ ~100 for 1:1), whatever the "
-                f"lines happen to give")
+        msg += (
+            f" — a rounded break (sharp means ≤ {SHARP_SHORTFALL:.0%}, K·C ≥ ~100 for 1:1), whatever the "
+            f"lines happen to give"
+        )
     if hand["resolvable"]:
         return Check("break", "pass", msg + f": resolvable within {BREAK_TOLERANCE:.0%}")
     msg += f": not resolvable within {BREAK_TOLERANCE:.0%} at {fix} = {fmt_conc(C)}"
     others = [n for n, m in zip(model.species, model.complex_mask, strict=True) if m][1:]
     if needed is None and len(others):
         names = ", ".join(n for n, m in zip(model.species, model.complex_mask, strict=True) if m)
-        msg += (f"; no concentration up to 1000× does it — with {names} all forming, the lines need not meet at "
-                f"{expected:g}: fit all complexes globally (kplan design) instead")
+        msg += (
+            f"; no concentration up to 1000× does it — with {names} all forming, the lines need not meet at "
+            f"{expected:g}: fit all complexes globally (kplan design) instead"
+        )
     elif needed is None:
-        msg += ("; no concentration up to 1000× does it — the complex is too weak for a break: fit all tubes "
-                "globally (kplan design) instead")
+        msg += (
+            "; no concentration up to 1000× does it — the complex is too weak for a break: fit all tubes "
+            "globally (kplan design) instead"
+        )
     else:
         c, path = needed
         msg += f"; {fmt_conc(c)} would"

@@ -59,13 +59,20 @@ class RivalFit:
     nested: bool = False
 
     def summary(self) -> dict:
-        return {"model": self.model, "separation_sd": self.separation_sd, "nested": self.nested,
-                "log_beta": list(self.log_beta), "epsilon_M_cm": list(self.epsilon_M_cm)}
+        return {
+            "model": self.model,
+            "separation_sd": self.separation_sd,
+            "nested": self.nested,
+            "log_beta": list(self.log_beta),
+            "epsilon_M_cm": list(self.epsilon_M_cm),
+        }
 
 
 def plan_label(model: Model) -> str:
     """'1:1', '1:1+1:2', … for the plan's M–L complexes (metal first)."""
-    pq = sorted({(int(p), int(q)) for (p, q, _), m in zip(model.stoich, model.complex_mask, strict=True) if m})
+    pq = sorted(
+        {(int(p), int(q)) for (p, q, _), m in zip(model.stoich, model.complex_mask, strict=True) if m}
+    )
     return "+".join(f"{p}:{q}" for p, q in pq)
 
 
@@ -83,12 +90,22 @@ def rival_model(model: Model, pq: tuple[tuple[int, int], ...]) -> Model:
     eps = np.concatenate([model.epsilon_M_cm[:2], model.epsilon_M_cm[2:][keep], np.zeros(len(pq))])
     rsd = np.zeros_like(eps)
     sizes = np.concatenate([model.sizes_angstrom[:2], model.sizes_angstrom[2:][keep], np.full(len(pq), 4.0)])
-    return replace(model, species=tuple(names), stoich=stoich, log_beta=lb, log_beta_sd=np.zeros(len(lb)),
-                   absorbers=("M", "L", *names), epsilon_M_cm=eps, epsilon_rsd=rsd, sizes_angstrom=sizes)
+    return replace(
+        model,
+        species=tuple(names),
+        stoich=stoich,
+        log_beta=lb,
+        log_beta_sd=np.zeros(len(lb)),
+        absorbers=("M", "L", *names),
+        epsilon_M_cm=eps,
+        epsilon_rsd=rsd,
+        sizes_angstrom=sizes,
+    )
 
 
-def fit_rival(model: Model, label: str, pq, totals_M: np.ndarray, ions_M: np.ndarray, data: np.ndarray,
-              W: np.ndarray) -> RivalFit:
+def fit_rival(
+    model: Model, label: str, pq, totals_M: np.ndarray, ions_M: np.ndarray, data: np.ndarray, W: np.ndarray
+) -> RivalFit:
     """Fit rival ``pq`` to ``data`` (Beer–Lambert absorbances of the tubes) by weighted least squares.
 
     Parameters
@@ -110,12 +127,13 @@ def fit_rival(model: Model, label: str, pq, totals_M: np.ndarray, ions_M: np.nda
         if cand[0] <= best[0]:
             best = cand
     sep, lb, eps = best
-    return RivalFit(label, float(sep), tuple(float(x) for x in lb), tuple(float(x) for x in eps),
-                    bool(extra.any()))
+    return RivalFit(
+        label, float(sep), tuple(float(x) for x in lb), tuple(float(x) for x in eps), bool(extra.any())
+    )
 
 
 def _grid_pass(rm: Model, pq, axes, totals_M, ions_M, data, W, extra):
-    mesh = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, len(pq))   # (G, k)
+    mesh = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, len(pq))  # (G, k)
     G, k = mesh.shape
     n_side = len(rm.species) - k
     lb = np.concatenate([np.broadcast_to(rm.log_beta[:n_side], (G, n_side)), mesh], axis=1)
@@ -123,16 +141,16 @@ def _grid_pass(rm: Model, pq, axes, totals_M, ions_M, data, W, extra):
     ions = np.broadcast_to(ions_M, (G,) + ions_M.shape)
     with hypothetical():
         st = predict(rm, tot, ions, log_beta=lb, warn=False)
-    conc = st.absorber_conc_M()                                           # (G, n, 2 + S)
-    known = rm.path_cm * conc @ rm.epsilon_M_cm                           # free reagents and side species
-    X = rm.path_cm * st.species_M[..., n_side:]                           # (G, n, k)
-    r0 = (data - known) @ W.T                                             # (G, n)
+    conc = st.absorber_conc_M()  # (G, n, 2 + S)
+    known = rm.path_cm * conc @ rm.epsilon_M_cm  # free reagents and side species
+    X = rm.path_cm * st.species_M[..., n_side:]  # (G, n, k)
+    r0 = (data - known) @ W.T  # (G, n)
     Xw = np.einsum("ij,gjk->gik", W, X)
     res, eps = _nonneg_lsq(Xw, r0)
     if extra.any():
         M0 = np.where(totals_M[:, 0] > 0, totals_M[:, 0], 1.0)
         p = np.array([a for a, _ in pq], dtype=float)
-        share = (st.species_M[..., n_side:] * p / M0[:, None]).max(axis=1)   # (G, k) best tube
+        share = (st.species_M[..., n_side:] * p / M0[:, None]).max(axis=1)  # (G, k) best tube
         res = np.where(np.all(share[:, extra] >= MATERIAL_SHARE, axis=1), res, np.inf)
     g = int(np.argmin(res))
     return float(res[g]), mesh[g], eps[g]
@@ -141,11 +159,11 @@ def _grid_pass(rm: Model, pq, axes, totals_M, ions_M, data, W, extra):
 def _nonneg_lsq(Xw: np.ndarray, r0: np.ndarray):
     """Residual norms and coefficients of min ‖r0 − Xw·e‖, e ≥ 0, batched over G; k ≤ 2 by active sets."""
     G, n, k = Xw.shape
-    best_res = np.linalg.norm(r0, axis=1)                                 # e = 0
+    best_res = np.linalg.norm(r0, axis=1)  # e = 0
     best_e = np.zeros((G, k))
     subsets = [(j,) for j in range(k)] + ([tuple(range(k))] if k > 1 else [])
     for sub in subsets:
-        A = Xw[..., list(sub)]                                            # (G, n, s)
+        A = Xw[..., list(sub)]  # (G, n, s)
         AtA = np.einsum("gni,gnj->gij", A, A)
         Atb = np.einsum("gni,gn->gi", A, r0)
         s = len(sub)

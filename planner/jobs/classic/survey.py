@@ -62,12 +62,15 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> SeriesResult:
     bands = plan.optics.bands
     if not bands:
         t = plan.target
-        raise PlanError("optics.bands", f"the wavelength survey needs a Gaussian band per absorbing species: add "
-                        f"[optics.bands] with e.g. {t} = {{ peak_nm = 600, fwhm_nm = 120, epsilon_max = 950 }}")
+        raise PlanError(
+            "optics.bands",
+            f"the wavelength survey needs a Gaussian band per absorbing species: add "
+            f"[optics.bands] with e.g. {t} = {{ peak_nm = 600, fwhm_nm = 120, epsilon_max = 950 }}",
+        )
     model = plan_model(plan)
     recipe = recipe if recipe is not None else even_series(plan)
     lam = _grid(plan)
-    eps = _epsilon_by_wavelength(plan, model, lam)                      # (Λ, 2 + S)
+    eps = _epsilon_by_wavelength(plan, model, lam)  # (Λ, 2 + S)
     se, a_max, a_min = _se_by_wavelength(plan, model, recipe, eps)
     lo, hi = model.linear_range
     feasible = np.isfinite(se) & (a_max <= hi) & (a_max >= lo)
@@ -82,13 +85,26 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> SeriesResult:
 
     surveyed = _plan_at(plan, model, best, eps[k])
     a = assess_tubes(surveyed, recipe)
-    checks = [_wavelength_check(feasible, best, se[k], here, plan, t, peak_nm),
-              range_check(model, a.state, recipe.tubes, low_is_warning=False,
-                          fix_high="use fewer absorbing reagent or a wavelength off the band maximum")]
+    checks = [
+        _wavelength_check(feasible, best, se[k], here, plan, t, peak_nm),
+        range_check(
+            model,
+            a.state,
+            recipe.tubes,
+            low_is_warning=False,
+            fix_high="use fewer absorbing reagent or a wavelength off the band maximum",
+        ),
+    ]
     flat = [n for n, e in zip(model.absorbers, model.epsilon_M_cm, strict=True) if e > 0 and n not in bands]
     if flat:
-        checks.append(Check("bands", "warn", f"{', '.join(flat)} absorb but have no band: taken as flat at "
-                            f"their ε at {plan.optics.wavelength_nm:g} nm — add their bands to [optics.bands]"))
+        checks.append(
+            Check(
+                "bands",
+                "warn",
+                f"{', '.join(flat)} absorb but have no band: taken as flat at "
+                f"their ε at {plan.optics.wavelength_nm:g} nm — add their bands to [optics.bands]",
+            )
+        )
     else:
         checks.append(Check("bands", "pass", f"every absorber has a band ({', '.join(bands)})"))
     extra = {
@@ -98,17 +114,26 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> SeriesResult:
         "plan_wavelength_nm": float(plan.optics.wavelength_nm),
         "se_at_plan_wavelength": here,
         "target_band_peak_nm": peak_nm,
-        "se_by_wavelength": [{"wavelength_nm": float(w), "se": float(s), "absorbance_max": float(x),
-                              "absorbance_min": float(y), "in_range": bool(f)}
-                             for w, s, x, y, f in zip(lam, se, a_max, a_min, feasible, strict=True)],
+        "se_by_wavelength": [
+            {
+                "wavelength_nm": float(w),
+                "se": float(s),
+                "absorbance_max": float(x),
+                "absorbance_min": float(y),
+                "in_range": bool(f),
+            }
+            for w, s, x, y, f in zip(lam, se, a_max, a_min, feasible, strict=True)
+        ],
         "epsilon_at_wavelength": {n: float(e) for n, e in zip(model.absorbers, eps[k], strict=True) if e > 0},
     }
-    notes = [f"recommended wavelength {best:g} nm: SE(log β[{t}]) = {se[k]:.3g} for these {recipe.n_tubes} tubes "
-             f"(at the plan's {plan.optics.wavelength_nm:g} nm: {_num(here)})",
-             f"readings there {a_min[k]:.3f}–{a_max[k]:.3f}; "
-             + (f"the {t} band peaks at {peak_nm:g} nm" if peak_nm is not None else f"{t} has no band"),
-             "SE by wavelength (readings in range): " + _se_line(lam, se, feasible),
-             f"set optics.wavelength_nm = {best:g} and the ε guesses at that wavelength in the plan"]
+    notes = [
+        f"recommended wavelength {best:g} nm: SE(log β[{t}]) = {se[k]:.3g} for these {recipe.n_tubes} tubes "
+        f"(at the plan's {plan.optics.wavelength_nm:g} nm: {_num(here)})",
+        f"readings there {a_min[k]:.3f}–{a_max[k]:.3f}; "
+        + (f"the {t} band peaks at {peak_nm:g} nm" if peak_nm is not None else f"{t} has no band"),
+        "SE by wavelength (readings in range): " + _se_line(lam, se, feasible),
+        f"set optics.wavelength_nm = {best:g} and the ε guesses at that wavelength in the plan",
+    ]
     ok = f"{best:g} nm gives SE(log β[{t}]) = {se[k]:.3g} with every reading inside {lo:g}–{hi:g}"
     return finish(METHOD, surveyed, QUESTION, recipe, a, checks, extra, {}, ok, notes=tuple(notes))
 
@@ -137,23 +162,38 @@ def _se_by_wavelength(plan: Plan, model, recipe: Recipe, eps: np.ndarray):
     L = eps.shape[0]
     tot = totals_M(recipe, model.stock_conc_M)
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-    st = predict(model, np.broadcast_to(tot, (L,) + tot.shape), np.broadcast_to(ions, (L,) + ions.shape),
-                 epsilon_M_cm=eps, warn=False)
+    st = predict(
+        model,
+        np.broadcast_to(tot, (L,) + tot.shape),
+        np.broadcast_to(ions, (L,) + ions.shape),
+        epsilon_M_cm=eps,
+        warn=False,
+    )
     der = absorbance_derivatives(model, st, eps)
     params = free_parameters(plan, model)
     if params.target < 0:
-        raise PlanError(f"species.{plan.target}.log_beta_sd", "the target constant is held fixed (log_beta_sd = 0): "
-                        "give its uncertainty so the survey has something to resolve")
+        raise PlanError(
+            f"species.{plan.target}.log_beta_sd",
+            "the target constant is held fixed (log_beta_sd = 0): "
+            "give its uncertainty so the survey has something to resolve",
+        )
     cols = []
     for p in range(params.size):
         k = params.kind[p]
-        cols.append(der.dA_dlog_beta[..., params.index[p]] if k == 0 else
-                    der.dA_depsilon[..., params.index[p]] if k == 1 else np.ones(st.absorbance.shape))
-    J = np.stack(cols, axis=-1)                                           # (Λ, n, P)
+        cols.append(
+            der.dA_dlog_beta[..., params.index[p]]
+            if k == 0
+            else der.dA_depsilon[..., params.index[p]]
+            if k == 1
+            else np.ones(st.absorbance.shape)
+        )
+    J = np.stack(cols, axis=-1)  # (Λ, n, P)
     f = error_factors(plan, model, recipe, st, plan_devices(plan), dA_dtotals=der.dA_dtotals)
-    cov = (np.einsum("...i,ij->...ij", f.independent_var, np.eye(recipe.n_tubes))
-           + np.einsum("...ik,...jk->...ij", f.J_stock, f.J_stock)
-           + np.einsum("...ik,...jk->...ij", f.J_device, f.J_device))
+    cov = (
+        np.einsum("...i,ij->...ij", f.independent_var, np.eye(recipe.n_tubes))
+        + np.einsum("...ik,...jk->...ij", f.J_stock, f.J_stock)
+        + np.einsum("...ik,...jk->...ij", f.J_device, f.J_device)
+    )
     F = np.einsum("...ni,...nj->...ij", J, np.linalg.solve(cov, J))
     t = params.target
     se = np.full(L, np.inf)
@@ -179,7 +219,9 @@ def _plan_at(plan: Plan, model, wavelength_nm: float, eps_row: np.ndarray) -> Pl
         band = plan.optics.bands.get(name)
         if band is None and old is None:
             continue
-        value = float(eps_row[j]) / (bandwidth_factor(plan.optics.bandwidth_nm, band.fwhm_nm) if band else 1.0)
+        value = float(eps_row[j]) / (
+            bandwidth_factor(plan.optics.bandwidth_nm, band.fwhm_nm) if band else 1.0
+        )
         new_eps[name] = Epsilon(value=value, rsd=old.rsd if old is not None else 0.0)
     optics = plan.optics.model_copy(update={"wavelength_nm": wavelength_nm, "epsilon": new_eps})
     return plan.model_copy(update={"optics": optics})
@@ -200,14 +242,25 @@ def _num(x) -> str:
 def _wavelength_check(feasible, best, se_best, here, plan: Plan, t: str, peak_nm) -> Check:
     lo, hi = plan.optics.linear_range
     if not feasible.any():
-        return Check("wavelength", "fail", f"no wavelength keeps every reading inside {lo:g}–{hi:g}: change the "
-                     f"tubes (kplan design) or the path length")
+        return Check(
+            "wavelength",
+            "fail",
+            f"no wavelength keeps every reading inside {lo:g}–{hi:g}: change the "
+            f"tubes (kplan design) or the path length",
+        )
     goal = plan.design.goal_se
-    msg = (f"{best:g} nm gives SE(log β[{t}]) = {se_best:.3g} (plan's {plan.optics.wavelength_nm:g} nm: "
-           f"{_num(here)})")
+    msg = (
+        f"{best:g} nm gives SE(log β[{t}]) = {se_best:.3g} (plan's {plan.optics.wavelength_nm:g} nm: "
+        f"{_num(here)})"
+    )
     if peak_nm is not None and abs(best - peak_nm) >= 1:
-        msg += f"; off the {t} band maximum ({peak_nm:g} nm), where the readings or the free reagents cost more"
+        msg += (
+            f"; off the {t} band maximum ({peak_nm:g} nm), where the readings or the free reagents cost more"
+        )
     if se_best > goal:
-        return Check("wavelength", "warn", msg + f"; above the goal {goal:g} at every wavelength: change the tubes "
-                     f"too (kplan design)")
+        return Check(
+            "wavelength",
+            "warn",
+            msg + f"; above the goal {goal:g} at every wavelength: change the tubes too (kplan design)",
+        )
     return Check("wavelength", "pass", msg)

@@ -57,8 +57,13 @@ class Rows:
 
     def take(self, idx: np.ndarray) -> Rows:
         """Rows of the tubes ``idx`` (any shape; the tube axes replace C)."""
-        return Rows(self.theta[:, idx], self.stock[:, idx], self.device[:, idx], self.absorbance[:, idx],
-                    self.band[:, idx])
+        return Rows(
+            self.theta[:, idx],
+            self.stock[:, idx],
+            self.device[:, idx],
+            self.absorbance[:, idx],
+            self.band[:, idx],
+        )
 
 
 def recipe_rows(study: Study, recipe: Recipe, nodes: Nodes) -> Rows:
@@ -68,9 +73,15 @@ def recipe_rows(study: Study, recipe: Recipe, nodes: Nodes) -> Rows:
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     G = nodes.theta.shape[0]
     lb, eps, _ = unpack(model, params, nodes.theta)
-    st = predict(model, np.broadcast_to(tot, (G,) + tot.shape), np.broadcast_to(ions, (G,) + ions.shape),
-                 log_beta=lb, epsilon_M_cm=eps, warn=False)
-    J = ReadingModel(model, params, tot, ions).jac(nodes.theta)                  # (G, C, P)
+    st = predict(
+        model,
+        np.broadcast_to(tot, (G,) + tot.shape),
+        np.broadcast_to(ions, (G,) + ions.shape),
+        log_beta=lb,
+        epsilon_M_cm=eps,
+        warn=False,
+    )
+    J = ReadingModel(model, params, tot, ions).jac(nodes.theta)  # (G, C, P)
     der = absorbance_derivatives(model, st, eps)
     th, sk, dv = [], [], []
     for g in range(G):  # a handful of nodes, each vectorised over the tubes
@@ -99,7 +110,7 @@ def student_target_var(rows: Rows, t: int) -> np.ndarray:
     """Variance of the target for recipes whose tubes are ``rows`` (G, B, n, ·): each recipe alone,
     with its own stock and device factors as unit-prior nuisance (what :func:`assess_study` computes
     from the full covariance). Returns (G, B)."""
-    X = np.concatenate([rows.theta, rows.stock, rows.device], axis=-1)          # (G, B, n, Q)
+    X = np.concatenate([rows.theta, rows.stock, rows.device], axis=-1)  # (G, B, n, Q)
     M = np.einsum("gbnp,gbnq->gbpq", X, X)
     P = rows.theta.shape[-1]
     Q = X.shape[-1]
@@ -107,8 +118,16 @@ def student_target_var(rows: Rows, t: int) -> np.ndarray:
     return _target_var(M, t)
 
 
-def pooled_target_se(theta: np.ndarray, stock: np.ndarray, device: np.ndarray, bench: np.ndarray, t: int,
-                     *, stock_shared: bool = True, stock_group: np.ndarray | None = None) -> float:
+def pooled_target_se(
+    theta: np.ndarray,
+    stock: np.ndarray,
+    device: np.ndarray,
+    bench: np.ndarray,
+    t: int,
+    *,
+    stock_shared: bool = True,
+    stock_group: np.ndarray | None = None,
+) -> float:
     """SE of the target when every student's tubes are fitted together.
 
     Parameters
@@ -124,7 +143,7 @@ def pooled_target_se(theta: np.ndarray, stock: np.ndarray, device: np.ndarray, b
     """
     N, n, P = theta.shape
     k = stock.shape[-1] if stock_shared else 0
-    X = np.concatenate([theta, stock], axis=-1) if stock_shared else theta     # (N, n, P + k)
+    X = np.concatenate([theta, stock], axis=-1) if stock_shared else theta  # (N, n, P + k)
     A = np.einsum("snp,snq->spq", X, X)
     B = np.einsum("snp,snd->spd", X, device)
     C = np.einsum("snd,sne->sde", device, device)

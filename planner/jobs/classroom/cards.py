@@ -142,9 +142,11 @@ class ClassSet:
     notes: tuple[str, ...] = ()
 
     def __repr__(self) -> str:
-        return (f"ClassSet({len(self.cards)} cards, {sum(c.passes for c in self.cards)} pass, "
-                f"pooled SE {self.se['pooled']:.3g} vs best copies {self.se['pooled_best_copies']:.3g}, "
-                f"even copies {self.se['pooled_even_copies']:.3g})")
+        return (
+            f"ClassSet({len(self.cards)} cards, {sum(c.passes for c in self.cards)} pass, "
+            f"pooled SE {self.se['pooled']:.3g} vs best copies {self.se['pooled_best_copies']:.3g}, "
+            f"even copies {self.se['pooled_even_copies']:.3g})"
+        )
 
     @property
     def sound(self) -> bool:
@@ -174,9 +176,18 @@ class ClassSet:
             "se": {k: _f(v) for k, v in self.se.items()},
             "efficiency_vs_best_copies": _f((self.se["pooled_best_copies"] / self.se["pooled"]) ** 2),
             "se_ratio_even_copies_vs_pooled": _f(self.se["pooled_even_copies"] / self.se["pooled"]),
-            "cards": [{"student": c.student, "section": c.section, "bench": c.bench,
-                       "passes": c.passes, "problems": c.problems,
-                       "verdict": c.assessment.verdict, "se": _f(c.assessment.target_se)} for c in self.cards],
+            "cards": [
+                {
+                    "student": c.student,
+                    "section": c.section,
+                    "bench": c.bench,
+                    "passes": c.passes,
+                    "problems": c.problems,
+                    "verdict": c.assessment.verdict,
+                    "se": _f(c.assessment.target_se),
+                }
+                for c in self.cards
+            ],
             "failing": [s for s, _ in self.failing()],
             "notes": list(self.notes),
         }
@@ -193,27 +204,34 @@ def _composition_key(recipe: Recipe) -> bytes:
     return np.unique(v, axis=0).tobytes()
 
 
-def class_set(plan: Plan, roster: Roster, *, tubes: int | None = None, seed: int = 0,
-              progress: Callable[[int, int], None] | None = None,
-              drafted: Callable[[tuple[Draft, ...]], None] | None = None) -> ClassSet:
+def class_set(
+    plan: Plan,
+    roster: Roster,
+    *,
+    tubes: int | None = None,
+    seed: int = 0,
+    progress: Callable[[int, int], None] | None = None,
+    drafted: Callable[[tuple[Draft, ...]], None] | None = None,
+) -> ClassSet:
     """Cards for every student of ``roster`` (the plan compiled once; see :func:`class_set_study`)."""
-    return class_set_study(compile_study(plan), roster, tubes=tubes, seed=seed, progress=progress,
-                           drafted=drafted)
+    return class_set_study(
+        compile_study(plan), roster, tubes=tubes, seed=seed, progress=progress, drafted=drafted
+    )
 
 
 @dataclass(frozen=True)
 class _Grid:
     """The feasible candidates and their grid coordinates."""
 
-    recipe: Recipe           # all candidates
+    recipe: Recipe  # all candidates
     designed: tuple[str, ...]
-    idx: np.ndarray          # (C',) feasible candidate indices
-    coords: np.ndarray       # (C', d) integer grid coordinates of the designed volumes
+    idx: np.ndarray  # (C',) feasible candidate indices
+    coords: np.ndarray  # (C', d) integer grid coordinates of the designed volumes
     step_mL: float
-    rows: Rows               # rows of the feasible candidates at the robust nodes
+    rows: Rows  # rows of the feasible candidates at the robust nodes
     nodes: Nodes
-    guess: int               # index of the guess among the nodes
-    crit: np.ndarray         # node weights of the design criterion (robust or the guess alone)
+    guess: int  # index of the guess among the nodes
+    crit: np.ndarray  # node weights of the design criterion (robust or the guess alone)
 
 
 def _grid(study: Study) -> _Grid:
@@ -230,9 +248,11 @@ def _grid(study: Study) -> _Grid:
     a0 = rows.absorbance[gi]
     ok = (risk <= RANGE_RISK + 1e-12) & (a0 >= lo) & (a0 <= hi)
     if not ok.any():
-        raise DesignError(f"no candidate tube keeps the absorbance inside optics.linear_range [{lo:g}, {hi:g}] "
-                          f"over the guess's range: use more dilute or more concentrated stocks, or widen "
-                          f"linear_range")
+        raise DesignError(
+            f"no candidate tube keeps the absorbance inside optics.linear_range [{lo:g}, {hi:g}] "
+            f"over the guess's range: use more dilute or more concentrated stocks, or widen "
+            f"linear_range"
+        )
     idx = np.flatnonzero(ok)
     cols = [cand.recipe.stock_ids.index(s) for s in cand.designed_ids]
     coords = np.rint(cand.recipe.volumes_mL[np.ix_(idx, cols)] / cand.step_mL).astype(np.int64)
@@ -261,27 +281,28 @@ def _neighbours(grid: _Grid, support: np.ndarray, radius: int) -> tuple[np.ndarr
     """Feasible grid neighbours (within ±radius steps per designed stock) of each support point:
     a padded table (S, O) of feasible indices, valid entries first, and their counts (S,)."""
     d = grid.coords.shape[1]
-    off = np.stack([m.ravel() for m in np.meshgrid(*([np.arange(-radius, radius + 1)] * d), indexing="ij")],
-                   axis=1)
-    off = off[np.argsort(np.abs(off).sum(axis=1), kind="stable")]          # nearest first
+    off = np.stack(
+        [m.ravel() for m in np.meshgrid(*([np.arange(-radius, radius + 1)] * d), indexing="ij")], axis=1
+    )
+    off = off[np.argsort(np.abs(off).sum(axis=1), kind="stable")]  # nearest first
     shift = grid.coords.min(axis=0) - radius
     span = grid.coords.max(axis=0) - shift + radius + 1
     mult = np.concatenate([[1], np.cumprod(span[:-1])]).astype(np.int64)
     keys = (grid.coords - shift) @ mult
     order = np.argsort(keys)
     skeys = keys[order]
-    want = ((grid.coords[support][:, None, :] + off[None, :, :]) - shift) @ mult   # (S, O)
+    want = ((grid.coords[support][:, None, :] + off[None, :, :]) - shift) @ mult  # (S, O)
     pos = np.clip(np.searchsorted(skeys, want), 0, skeys.size - 1)
     found = skeys[pos] == want
     table = np.where(found, order[pos], -1)
-    first = np.argsort(~found, axis=1, kind="stable")                      # valid entries first
+    first = np.argsort(~found, axis=1, kind="stable")  # valid entries first
     table = np.take_along_axis(table, first, axis=1)
     return table, found.sum(axis=1)
 
 
 def _score(grid: _Grid, props: np.ndarray, t: int) -> tuple[np.ndarray, np.ndarray]:
     """(SE at the guess, robust loss) of proposals (B, n) of feasible indices."""
-    v = student_target_var(grid.rows.take(props), t)                       # (G, B)
+    v = student_target_var(grid.rows.take(props), t)  # (G, B)
     se = np.sqrt(v[grid.guess])
     with np.errstate(divide="ignore"):
         loss = grid.crit @ np.log(v)
@@ -297,9 +318,15 @@ def _recipe(study: Study, grid: _Grid, tubes_idx: np.ndarray) -> Recipe:
     return study.bench.make_recipe({k: v[order] for k, v in vols.items()})
 
 
-def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, seed: int = 0,
-                    progress: Callable[[int, int], None] | None = None,
-                    drafted: Callable[[tuple[Draft, ...]], None] | None = None) -> ClassSet:
+def class_set_study(
+    study: Study,
+    roster: Roster,
+    *,
+    tubes: int | None = None,
+    seed: int = 0,
+    progress: Callable[[int, int], None] | None = None,
+    drafted: Callable[[tuple[Draft, ...]], None] | None = None,
+) -> ClassSet:
     """:func:`class_set` on a compiled plan (module docstring: how the students are spread).
 
     Parameters
@@ -320,10 +347,14 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
     params = study.params
     t = params.target
     if params.size == 0 or t < 0:
-        raise DesignError(f"the target {study.target} is held fixed (log_beta_sd = 0): give it log_beta_sd > 0")
+        raise DesignError(
+            f"the target {study.target} is held fixed (log_beta_sd = 0): give it log_beta_sd > 0"
+        )
     if n < params.size:
-        raise DesignError(f"{n} tubes cannot determine the {params.size} fitted parameters "
-                          f"({', '.join(params.names)}): ask for at least {params.size} tubes per student")
+        raise DesignError(
+            f"{n} tubes cannot determine the {params.size} fitted parameters "
+            f"({', '.join(params.names)}): ask for at least {params.size} tubes per student"
+        )
     rng = np.random.default_rng(seed)
     grid = _grid(study)
     F, M0, nu = _design_inputs(grid)
@@ -333,7 +364,7 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
     best = _recipe(study, grid, np.repeat(np.arange(ex.counts.size), ex.counts))
     # 1. the pooled design, dealt out: tube i of the sorted list goes to student i mod N
     pooled = exchange._efficient_rounding(ap.weights, N * n)
-    alloc = np.repeat(np.arange(pooled.size), pooled).reshape(n, N).T        # (N, n)
+    alloc = np.repeat(np.arange(pooled.size), pooled).reshape(n, N).T  # (N, n)
     # 2–3. jittered proposals, scored, the best distinct sound one per student
     goal = study.goal_se
     chosen: list[np.ndarray | None] = [None] * N
@@ -366,15 +397,21 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
     radius_used = radius
     unplaced = {int(s) for s in pending}
     if pending.size:
-        notes.append(f"{pending.size} student(s) got no distinct recipe meeting goal_se within ±{MAX_RADIUS} "
-                     f"grid steps: their cards repeat the pooled allocation and are marked as failing")
+        notes.append(
+            f"{pending.size} student(s) got no distinct recipe meeting goal_se within ±{MAX_RADIUS} "
+            f"grid steps: their cards repeat the pooled allocation and are marked as failing"
+        )
         for s in pending:
             chosen[s] = alloc[s]
     # 4. judge every card with the assessment itself
     recipes = [_recipe(study, grid, chosen[s]) for s in range(N)]
     if drafted is not None:
-        drafted(tuple(Draft(roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s], recipes[s])
-                      for s in range(N)))
+        drafted(
+            tuple(
+                Draft(roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s], recipes[s])
+                for s in range(N)
+            )
+        )
     cards = []
     rescued = 0
     for s in range(N):
@@ -408,13 +445,29 @@ def class_set_study(study: Study, roster: Roster, *, tubes: int | None = None, s
     even = even_series_for(study, n)
     se = _pooled_ses(study, cards, best, even, roster)
     if not se["best_single"] <= goal:
-        notes.insert(0, f"even the best recipe of {n} tubes gives SE {se['best_single']:.3g} > goal {goal:g}: "
-                        f"no card can pass; give each student more tubes (--tubes) or relax design.goal_se")
+        notes.insert(
+            0,
+            f"even the best recipe of {n} tubes gives SE {se['best_single']:.3g} > goal {goal:g}: "
+            f"no card can pass; give each student more tubes (--tubes) or relax design.goal_se",
+        )
     if grid.step_mL != study.bench.step_mL:
-        notes.append(f"the candidates were searched on a {grid.step_mL:g} mL grid (a multiple of the plan's "
-                     f"{study.bench.step_mL:g} mL) to keep the search small")
-    return ClassSet(study.title, study.target, goal, tuple(cards), best, even, seed, radius_used, grid.step_mL,
-                    se, tuple(notes))
+        notes.append(
+            f"the candidates were searched on a {grid.step_mL:g} mL grid (a multiple of the plan's "
+            f"{study.bench.step_mL:g} mL) to keep the search small"
+        )
+    return ClassSet(
+        study.title,
+        study.target,
+        goal,
+        tuple(cards),
+        best,
+        even,
+        seed,
+        radius_used,
+        grid.step_mL,
+        se,
+        tuple(notes),
+    )
 
 
 def _proposals(grid: _Grid, alloc: np.ndarray, radius: int, K: int, rng: np.random.Generator, t: int):
@@ -424,10 +477,10 @@ def _proposals(grid: _Grid, alloc: np.ndarray, radius: int, K: int, rng: np.rand
     m, n = alloc.shape
     sup = np.unique(alloc)
     table, count = _neighbours(grid, sup, radius)
-    where = np.searchsorted(sup, alloc)                                       # (m, n) rows of the table
+    where = np.searchsorted(sup, alloc)  # (m, n) rows of the table
     cnt = count[where][:, None, :]
     pick = np.minimum((rng.random((m, K, n)) * cnt).astype(int), cnt - 1)
-    props = table[where[:, None, :], pick]                                   # (m, K, n) feasible indices
+    props = table[where[:, None, :], pick]  # (m, K, n) feasible indices
     se, loss = _score(grid, props.reshape(-1, n), t)
     return props, se.reshape(m, K), loss.reshape(m, K)
 
@@ -474,8 +527,16 @@ def _pooled_ses(study: Study, cards: list[Card], best: Recipe, even: Recipe, ros
         def shape(a):
             a = a[0]
             return np.broadcast_to(a, (N,) + a.shape) if copies else a.reshape(N, n, -1)
-        return pooled_target_se(shape(rows.theta), shape(rows.stock), shape(rows.device), bench, t,
-                                stock_shared=shared, stock_group=group)
+
+        return pooled_target_se(
+            shape(rows.theta),
+            shape(rows.stock),
+            shape(rows.device),
+            bench,
+            t,
+            stock_shared=shared,
+            stock_group=group,
+        )
 
     rc = stacked([c.recipe for c in cards])
     rb = stacked([best])

@@ -62,18 +62,37 @@ class StudentGrade:
 
         own = {"log_beta": f(self.own[0]), "se": f(self.own[1])} if self.own is not None else None
         return {
-            "student": self.card.student, "name": self.card.name, "section": self.card.section,
+            "student": self.card.student,
+            "name": self.card.name,
+            "section": self.card.section,
             "verdict": self.verdict,
             "explanation": self.diagnosis.text if self.diagnosis else None,
             "evidence": self.diagnosis.evidence if self.diagnosis else None,
-            "chi2": f(self.chi2), "dof": self.dof, "p_value": f(self.p_value),
-            "tubes_in_band": int(np.sum(self.in_band)), "tubes": int(self.in_band.size),
+            "chi2": f(self.chi2),
+            "dof": self.dof,
+            "p_value": f(self.p_value),
+            "tubes_in_band": int(np.sum(self.in_band)),
+            "tubes": int(self.in_band.size),
             "own_fit": own,
-            "readings": [{"tube": t, "absorbance": f(a), "expected": f(e), "band_low": f(lo), "band_high": f(hi),
-                          "in_band": bool(ib)}
-                         for t, a, e, lo, hi, ib in zip(self.card.recipe.tubes, self.absorbance, self.card.expected,
-                                                        self.card.band_low, self.card.band_high, self.in_band,
-                                                        strict=True)],
+            "readings": [
+                {
+                    "tube": t,
+                    "absorbance": f(a),
+                    "expected": f(e),
+                    "band_low": f(lo),
+                    "band_high": f(hi),
+                    "in_band": bool(ib),
+                }
+                for t, a, e, lo, hi, ib in zip(
+                    self.card.recipe.tubes,
+                    self.absorbance,
+                    self.card.expected,
+                    self.card.band_low,
+                    self.card.band_high,
+                    self.in_band,
+                    strict=True,
+                )
+            ],
         }
 
 
@@ -100,18 +119,30 @@ class ClassGrade:
         pooled = None
         if self.pooled is not None:
             p = self.pooled.summary()
-            pooled = {"students": len(self.students) - len(self.excluded), "tubes": int(self.pooled.used.sum()),
-                      "determined": p["determined"], "reason": p["reason"], "parameters": p["parameters"],
-                      "chi2": p["chi2"], "dof": p["dof"], "p_value": p["p_value"], "chi2_verdict": p["chi2_verdict"]}
-        return {"title": self.title, "target": self.target,
-                "students": [s.summary(self.target) for s in self.students],
-                "pooled": pooled,
-                "excluded": [{"student": s, "reason": r} for s, r in self.excluded],
-                "unknown_students": list(self.unknown)}
+            pooled = {
+                "students": len(self.students) - len(self.excluded),
+                "tubes": int(self.pooled.used.sum()),
+                "determined": p["determined"],
+                "reason": p["reason"],
+                "parameters": p["parameters"],
+                "chi2": p["chi2"],
+                "dof": p["dof"],
+                "p_value": p["p_value"],
+                "chi2_verdict": p["chi2_verdict"],
+            }
+        return {
+            "title": self.title,
+            "target": self.target,
+            "students": [s.summary(self.target) for s in self.students],
+            "pooled": pooled,
+            "excluded": [{"student": s, "reason": r} for s, r in self.excluded],
+            "unknown_students": list(self.unknown),
+        }
 
 
-def own_fits(study: Study, recipes: list[Recipe], absorbance: np.ndarray, whiten: np.ndarray
-             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def own_fits(
+    study: Study, recipes: list[Recipe], absorbance: np.ndarray, whiten: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Each student's own fit, all at once: recipes with the same number of tubes n, readings (S, n),
     whitening matrices (S, n, n). Returns estimates and SEs (S, P) and whether each is determined (S,)."""
     from ...inference.lm import fit_many
@@ -130,8 +161,16 @@ def own_fits(study: Study, recipes: list[Recipe], absorbance: np.ndarray, whiten
     if params.target >= 0:
         starts[:, params.target] += np.tile(np.linspace(-3, 3, k), S) * params.prior_sd[params.target]
     lo, hi = reading.bounds()
-    res = fit_many(reading.f, starts, np.repeat(absorbance, k, axis=0), jac=reading.jac,
-                   whiten=np.repeat(whiten, k, axis=0), scale_cov=False, lower=lo, upper=hi)
+    res = fit_many(
+        reading.f,
+        starts,
+        np.repeat(absorbance, k, axis=0),
+        jac=reading.jac,
+        whiten=np.repeat(whiten, k, axis=0),
+        scale_cov=False,
+        lower=lo,
+        upper=hi,
+    )
     chi = np.where(res.converged, res.chi2, np.inf).reshape(S, k)
     best = np.argmin(chi, axis=1) + np.arange(S) * k
     theta, se, conv = res.theta[best], res.se[best], res.converged[best]
@@ -139,8 +178,13 @@ def own_fits(study: Study, recipes: list[Recipe], absorbance: np.ndarray, whiten
     return theta, se, ok
 
 
-def grade_class(study: Study, cards: tuple[KeyCard, ...], results: dict[str, dict[str, float]], *,
-                diagnose_flagged: bool = True) -> ClassGrade:
+def grade_class(
+    study: Study,
+    cards: tuple[KeyCard, ...],
+    results: dict[str, dict[str, float]],
+    *,
+    diagnose_flagged: bool = True,
+) -> ClassGrade:
     """Grade every student of the key against their readings (see the module docstring)."""
     model, params = study.model, study.params
     known = {c.student for c in cards}
@@ -150,8 +194,10 @@ def grade_class(study: Study, cards: tuple[KeyCard, ...], results: dict[str, dic
         got = results.get(card.student, {})
         for t in got:
             if t not in card.recipe.tubes:
-                raise RecipeError(f"results, student {card.student}", f"tube '{t}' is not on their card "
-                                  f"({', '.join(card.recipe.tubes)})")
+                raise RecipeError(
+                    f"results, student {card.student}",
+                    f"tube '{t}' is not on their card ({', '.join(card.recipe.tubes)})",
+                )
         a = np.array([got.get(t, np.nan) for t in card.recipe.tubes], dtype=float)
         rows.append((card, a))
     complete = [i for i, (_, a) in enumerate(rows) if np.all(np.isfinite(a))]
@@ -171,8 +217,12 @@ def grade_class(study: Study, cards: tuple[KeyCard, ...], results: dict[str, dic
         if rows[i][1].size > params.size:
             by_n.setdefault(rows[i][1].size, []).append(i)
     for _n, idx in by_n.items():
-        theta, se, ok = own_fits(study, [rows[i][0].recipe for i in idx], np.stack([rows[i][1] for i in idx]),
-                                 np.stack([W[i] for i in idx]))
+        theta, se, ok = own_fits(
+            study,
+            [rows[i][0].recipe for i in idx],
+            np.stack([rows[i][1] for i in idx]),
+            np.stack([W[i] for i in idx]),
+        )
         t = params.target
         for j, i in enumerate(idx):
             own[i] = (float(theta[j, t]), float(se[j, t])) if ok[j] and t >= 0 else None
@@ -183,14 +233,21 @@ def grade_class(study: Study, cards: tuple[KeyCard, ...], results: dict[str, dic
         else:
             verdicts.append("flagged" if chi2_sf(chi2[i], a.size) < FLAG_LEVEL else "ok")
     ok_idx = [i for i, v in enumerate(verdicts) if v == "ok"]
-    excluded = tuple((rows[i][0].student, "readings do not match the recipe (χ² test)" if v == "flagged" else
-                      "not every tube was reported") for i, v in enumerate(verdicts) if v != "ok")
+    excluded = tuple(
+        (
+            rows[i][0].student,
+            "readings do not match the recipe (χ² test)" if v == "flagged" else "not every tube was reported",
+        )
+        for i, v in enumerate(verdicts)
+        if v != "ok"
+    )
     pooled = None
     lb, eps = model.log_beta, model.epsilon_M_cm
     if ok_idx:
         rec = concat_recipes([rows[i][0].recipe for i in ok_idx], [rows[i][0].student for i in ok_idx])
-        pooled = fit_study(study, Readings(rec, np.concatenate([rows[i][1] for i in ok_idx])),
-                           keep_out_of_range=True)
+        pooled = fit_study(
+            study, Readings(rec, np.concatenate([rows[i][1] for i in ok_idx])), keep_out_of_range=True
+        )
         if pooled.determined:
             lb, eps, _ = unpack(model, params, pooled.estimate)
     students = []

@@ -66,8 +66,12 @@ class Explanation:
     score: float
 
     def summary(self) -> dict:
-        return {"kind": self.kind, "text": self.text, "delta_loglik": float(self.delta_loglik),
-                "score": float(self.score)}
+        return {
+            "kind": self.kind,
+            "text": self.text,
+            "delta_loglik": float(self.delta_loglik),
+            "score": float(self.score),
+        }
 
 
 @dataclass(frozen=True)
@@ -101,15 +105,20 @@ class Diagnosis:
     def evidence(self) -> str:
         if self.best is None:
             top = self.ranked[0] if self.ranked else None
-            return ("no single slip explains the readings decisively"
-                    + (f" (best: {top.text}, evidence {top.score:.1f} < {DECISIVE:g})" if top else ""))
+            return "no single slip explains the readings decisively" + (
+                f" (best: {top.text}, evidence {top.score:.1f} < {DECISIVE:g})" if top else ""
+            )
         return f"evidence 2Δln L − penalties = {self.best.score:.1f} ≥ {DECISIVE:g} against no mix-up"
 
     def summary(self) -> dict:
-        return {"explanation": self.text,
-                "kind": self.best.kind if self.best else None, "evidence": self.evidence,
-                "as_likely": [e.summary() for e in self.ties],
-                "chi2": float(self.chi2), "ranked": [e.summary() for e in self.ranked]}
+        return {
+            "explanation": self.text,
+            "kind": self.best.kind if self.best else None,
+            "evidence": self.evidence,
+            "as_likely": [e.summary() for e in self.ties],
+            "chi2": float(self.chi2),
+            "ranked": [e.summary() for e in self.ranked],
+        }
 
 
 def _fmt_mL(v: float) -> str:
@@ -127,8 +136,15 @@ def _transposed(v: float) -> float | None:
     return float(txt[:-2] + "." + txt[-2:])
 
 
-def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: np.ndarray | None = None,
-             epsilon_M_cm: np.ndarray | None = None, top: int = 5) -> Diagnosis:
+def diagnose(
+    study: Study,
+    recipe: Recipe,
+    absorbance: np.ndarray,
+    *,
+    log_beta: np.ndarray | None = None,
+    epsilon_M_cm: np.ndarray | None = None,
+    top: int = 5,
+) -> Diagnosis:
     """Rank the explanations of ``absorbance`` read from tubes meant to follow ``recipe``.
 
     Parameters
@@ -152,10 +168,10 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
     k = V.shape[1]
     dispensed = [recipe.stock_ids.index(s) for s in bench.dispensed_ids(recipe)]
     used = [j for j in dispensed if np.any(V[:, j] > 0)]
-    texts: list[tuple[str, str, int, int]] = []   # (kind, text, k params, N variants)
-    vols: list[np.ndarray] = []                   # (n, k) volumes per hypothesis
-    concs: list[np.ndarray] = []                  # (k, 2) stock concentrations per hypothesis
-    totals_vol: list[np.ndarray] = []             # (n,) total volume per hypothesis
+    texts: list[tuple[str, str, int, int]] = []  # (kind, text, k params, N variants)
+    vols: list[np.ndarray] = []  # (n, k) volumes per hypothesis
+    concs: list[np.ndarray] = []  # (k, 2) stock concentrations per hypothesis
+    totals_vol: list[np.ndarray] = []  # (n,) total volume per hypothesis
 
     # wrong stock: the same wrong bottle in every tube
     subs = []
@@ -164,7 +180,9 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
             if j2 != j and not np.allclose(C[j2], C[j]):
                 subs.append((j, C[j2], f"{recipe.stock_ids[j2]} taken instead of {recipe.stock_ids[j]}"))
         for fac in STOCK_FACTORS:
-            subs.append((j, C[j] * fac, f"{recipe.stock_ids[j]} taken from a bottle {fac:g}× as concentrated"))
+            subs.append(
+                (j, C[j] * fac, f"{recipe.stock_ids[j]} taken from a bottle {fac:g}× as concentrated")
+            )
     for j, row, text in subs:
         Cj = C.copy()
         Cj[j] = row
@@ -177,12 +195,23 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
     for i in range(n):
         for j in used:
             v = V[i, j]
-            cands = [(v + d, f"{recipe.tubes[i]}: {recipe.stock_ids[j]} {_fmt_mL(v + d)} delivered instead of "
-                      f"{_fmt_mL(v)}") for d in MISREAD_STEPS_ML]
+            cands = [
+                (
+                    v + d,
+                    f"{recipe.tubes[i]}: {recipe.stock_ids[j]} {_fmt_mL(v + d)} delivered instead of "
+                    f"{_fmt_mL(v)}",
+                )
+                for d in MISREAD_STEPS_ML
+            ]
             tv = _transposed(v) if v > 0 else None
             if tv is not None:
-                cands.append((tv, f"{recipe.tubes[i]}: {recipe.stock_ids[j]} {_fmt_mL(tv)} delivered instead of "
-                              f"{_fmt_mL(v)} (digits transposed)"))
+                cands.append(
+                    (
+                        tv,
+                        f"{recipe.tubes[i]}: {recipe.stock_ids[j]} {_fmt_mL(tv)} delivered instead of "
+                        f"{_fmt_mL(v)} (digits transposed)",
+                    )
+                )
             for new, text in cands:
                 if new < 0:
                     continue
@@ -191,8 +220,11 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
                 tot = Vt.copy()
                 if not bench.to_mark:
                     tot[i] = Vi[i].sum()
-                elif Vi[i].sum() - (Vi[i, recipe.stock_ids.index(bench.diluent_id)] if bench.diluent_id else 0.0) \
-                        > bench.tube_volume_mL:
+                elif (
+                    Vi[i].sum()
+                    - (Vi[i, recipe.stock_ids.index(bench.diluent_id)] if bench.diluent_id else 0.0)
+                    > bench.tube_volume_mL
+                ):
                     continue
                 mis.append((Vi, tot, text))
     for Vi, tot, text in mis:
@@ -214,8 +246,14 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
                 tot[i] = Vt[i] - (1.0 - fr) * rest
                 short.append((i, tot, fr))
     for i, tot, fr in short:
-        texts.append(("not-made-up", f"{recipe.tubes[i]} not made up to the mark (about {fr:.0%} of the water "
-                      f"added)", 1, n))
+        texts.append(
+            (
+                "not-made-up",
+                f"{recipe.tubes[i]} not made up to the mark (about {fr:.0%} of the water added)",
+                1,
+                n,
+            )
+        )
         vols.append(V)
         concs.append(C)
         totals_vol.append(tot)
@@ -223,9 +261,9 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
     H = len(vols)
     mu = np.empty((H, n))
     if H:
-        Vh = np.stack(vols)                                                 # (H, n, k)
-        Ch = np.stack(concs)                                                # (H, k, 2)
-        Th = np.stack(totals_vol)                                           # (H, n)
+        Vh = np.stack(vols)  # (H, n, k)
+        Ch = np.stack(concs)  # (H, k, 2)
+        Th = np.stack(totals_vol)  # (H, n)
         tot = np.einsum("hnk,hkc->hnc", Vh, Ch) / Th[..., None]
         ions = tube_ions_M(model, Vh, Th)
         mu = predict(model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False).absorbance
@@ -257,9 +295,10 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
     chi_s = float(np.sum((Wa - scale * Wm) ** 2))
     off = float(W1 @ (Wa - Wm) / (W1 @ W1))
     chi_b = float(np.sum((Wa - Wm - off * W1) ** 2))
-    for kind, text, c in (("wavelength", f"every reading scaled by {scale:.3f} (wrong or uncalibrated wavelength)",
-                           chi_s),
-                          ("blank", f"every reading shifted by {off:+.3f} (missing or wrong blank)", chi_b)):
+    for kind, text, c in (
+        ("wavelength", f"every reading scaled by {scale:.3f} (wrong or uncalibrated wavelength)", chi_s),
+        ("blank", f"every reading shifted by {off:+.3f} (missing or wrong blank)", chi_b),
+    ):
         dl = 0.5 * (chi0 - c)
         expl.append(Explanation(kind, text, dl, 2 * dl - np.log(n)))
     expl.sort(key=lambda e: -e.score)
@@ -268,8 +307,9 @@ def diagnose(study: Study, recipe: Recipe, absorbance: np.ndarray, *, log_beta: 
     return Diagnosis(best, tuple(expl[:top]), chi0, ties)
 
 
-def inject(study: Study, recipe: Recipe, kind: str | None, rng: np.random.Generator
-           ) -> tuple[np.ndarray, str, float]:
+def inject(
+    study: Study, recipe: Recipe, kind: str | None, rng: np.random.Generator
+) -> tuple[np.ndarray, str, float]:
     """Simulated readings of ``recipe`` with one slip of ``kind`` (None: a clean student), for tests and
     benchmarks; returns (readings, a fragment the right explanation's text contains, the slip's size: the
     whitened norm of the change it makes to the noise-free readings — below ~3 it hides in the noise)."""

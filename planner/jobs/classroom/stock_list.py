@@ -74,15 +74,25 @@ class ClassStock:
 
     def summary(self) -> dict:
         return {
-            "id": self.id, "label": self.label, "tubes_mL": self.tubes_mL, "benches": self.benches,
-            "allowance_mL": self.allowance_mL, "total_mL": self.total_mL,
-            "sections": [{"section": s, "tubes_mL": v, "benches": b, "total_mL": t}
-                         for s, v, b, t in self.sections],
-            "on_hand_mL": self.on_hand_mL, "enough": self.enough, "shortfall_mL": self.shortfall_mL,
+            "id": self.id,
+            "label": self.label,
+            "tubes_mL": self.tubes_mL,
+            "benches": self.benches,
+            "allowance_mL": self.allowance_mL,
+            "total_mL": self.total_mL,
+            "sections": [
+                {"section": s, "tubes_mL": v, "benches": b, "total_mL": t} for s, v, b, t in self.sections
+            ],
+            "on_hand_mL": self.on_hand_mL,
+            "enough": self.enough,
+            "shortfall_mL": self.shortfall_mL,
             "preparation": self.preparation.summary() if self.preparation else None,
-            "batches": self.batches, "problem": self.problem,
-            "section_preparations": [None if sp is None else {"preparation": sp[0].summary(), "batches": sp[1]}
-                                     for sp in self.section_preparations],
+            "batches": self.batches,
+            "problem": self.problem,
+            "section_preparations": [
+                None if sp is None else {"preparation": sp[0].summary(), "batches": sp[1]}
+                for sp in self.section_preparations
+            ],
         }
 
 
@@ -90,8 +100,8 @@ def class_stocks(plan: Plan, recipes: list[Recipe], roster: Roster) -> tuple[Cla
     """The class stock list for the cards' ``recipes`` (one per student, roster order)."""
     g = plan.glassware
     per_tube_allow = g.rinse_mL + g.dead_volume_mL
-    used = np.stack([r.volumes_mL.sum(axis=0) for r in recipes])                  # (N, k)
-    uses = np.stack([(r.volumes_mL > 0).any(axis=0) for r in recipes])            # (N, k)
+    used = np.stack([r.volumes_mL.sum(axis=0) for r in recipes])  # (N, k)
+    uses = np.stack([(r.volumes_mL > 0).any(axis=0) for r in recipes])  # (N, k)
     keys = roster.bench_keys()
     _, bench = np.unique(np.array([f"{a}\x1f{b}" for a, b in keys]), return_inverse=True)
     sections = list(dict.fromkeys(roster.sections))
@@ -122,8 +132,22 @@ def class_stocks(plan: Plan, recipes: list[Recipe], roster: Roster) -> tuple[Cla
                 sec_preps = [_prepare(plan, s, comp, t) if t > 0 else None for _, _, _, t in sec_rows]
             except (stk.StockError, GlasswareError) as exc:
                 problem = str(exc)
-        out.append(ClassStock(s.id, s.label, tubes, nbk, allow, total, tuple(sec_rows), s.on_hand, prep, batches,
-                              problem, tuple(sec_preps)))
+        out.append(
+            ClassStock(
+                s.id,
+                s.label,
+                tubes,
+                nbk,
+                allow,
+                total,
+                tuple(sec_rows),
+                s.on_hand,
+                prep,
+                batches,
+                problem,
+                tuple(sec_preps),
+            )
+        )
     return tuple(out)
 
 
@@ -136,7 +160,13 @@ def _prepare(plan: Plan, s, comp: str, total_mL: float) -> tuple[stk.StockPrepar
         caps = [it.capacity_mL for it in catalogue() if it.kind == "flask"]
         flask_mL = caps[-1]
         batches = math.ceil(total_mL / flask_mL - 1e-9)
-    prep = stk.prepare_stock(s.conc[comp], flask_mL, s.formula, purity=s.purity or 1.0,
-                             balance_readability_g=g.balance.readability_g,
-                             balance_repeatability_g=g.balance.repeatability_g, delta_T_C=g.delta_T_C)
+    prep = stk.prepare_stock(
+        s.conc[comp],
+        flask_mL,
+        s.formula,
+        purity=s.purity or 1.0,
+        balance_readability_g=g.balance.readability_g,
+        balance_repeatability_g=g.balance.repeatability_g,
+        delta_T_C=g.delta_T_C,
+    )
     return prep, batches

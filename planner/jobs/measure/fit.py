@@ -100,11 +100,15 @@ class Fit:
         if self.dof < 1 or not np.isfinite(self.chi2):
             return "no degrees of freedom left: χ² cannot test the fit (add tubes)"
         if self.p_value < CHI2_TAIL:
-            return ("the scatter is larger than the error model predicts: look for a bad tube, drift or a "
-                    "wrong model")
+            return (
+                "the scatter is larger than the error model predicts: look for a bad tube, drift or a "
+                "wrong model"
+            )
         if self.p_low < CHI2_TAIL:
-            return ("the scatter is suspiciously small for the error model: it may be too pessimistic, or the "
-                    "readings are not independent (copied or smoothed)")
+            return (
+                "the scatter is suspiciously small for the error model: it may be too pessimistic, or the "
+                "readings are not independent (copied or smoothed)"
+            )
         return "the scatter matches the error model"
 
     def summary(self) -> dict:
@@ -114,7 +118,9 @@ class Fit:
 
         t = self.names.index(f"log_beta[{self.target}]") if f"log_beta[{self.target}]" in self.names else -1
         params = []
-        for k, (n, e, s, p) in enumerate(zip(self.names, self.estimate, self.se, self.promised_se, strict=True)):
+        for k, (n, e, s, p) in enumerate(
+            zip(self.names, self.estimate, self.se, self.promised_se, strict=True)
+        ):
             row = {"name": n, "estimate": f(e), "se": f(s), "promised_se": f(p)}
             if k == t:
                 ci = self.profile_ci95
@@ -127,18 +133,39 @@ class Fit:
             "determined": self.determined,
             "reason": self.reason,
             "parameters": params,
-            "chi2": f(self.chi2), "dof": self.dof, "p_value": f(self.p_value), "p_low": f(self.p_low),
+            "chi2": f(self.chi2),
+            "dof": self.dof,
+            "p_value": f(self.p_value),
+            "p_low": f(self.p_low),
             "chi2_verdict": self.chi2_verdict,
             "excluded": [{"tube": tb, "reason": r} for tb, r in self.excluded],
-            "tubes": [{"tube": tb, "absorbance": f(a), "fitted": f(m), "residual": f(r), "standardised": f(z),
-                       "used": bool(u), "outlier": bool(o)}
-                      for tb, a, m, r, z, u, o in zip(self.recipe.tubes, self.absorbance, self.fitted, self.residual,
-                                                      self.standardised, self.used, self.outliers, strict=True)],
+            "tubes": [
+                {
+                    "tube": tb,
+                    "absorbance": f(a),
+                    "fitted": f(m),
+                    "residual": f(r),
+                    "standardised": f(z),
+                    "used": bool(u),
+                    "outlier": bool(o),
+                }
+                for tb, a, m, r, z, u, o in zip(
+                    self.recipe.tubes,
+                    self.absorbance,
+                    self.fitted,
+                    self.residual,
+                    self.standardised,
+                    self.used,
+                    self.outliers,
+                    strict=True,
+                )
+            ],
         }
 
 
-def fit_readings(plan: Plan, readings: Readings, *, exclude: tuple[str, ...] = (),
-                 keep_out_of_range: bool = False) -> Fit:
+def fit_readings(
+    plan: Plan, readings: Readings, *, exclude: tuple[str, ...] = (), keep_out_of_range: bool = False
+) -> Fit:
     """Fit measured readings with the plan's model and full error budget (see the module docstring)."""
     return fit_study(compile_study(plan), readings, exclude=exclude, keep_out_of_range=keep_out_of_range)
 
@@ -149,8 +176,12 @@ def _selection(study: Study, readings: Readings, exclude, keep_out_of_range: boo
     why: dict[int, str] = {}
     for label in exclude:
         if label not in rec.tubes:
-            raise RecipeError(f"--exclude {label}", f"no tube '{label}' in the readings; tubes are "
-                              + ", ".join(rec.tubes[:12]) + (" …" if rec.n_tubes > 12 else ""))
+            raise RecipeError(
+                f"--exclude {label}",
+                f"no tube '{label}' in the readings; tubes are "
+                + ", ".join(rec.tubes[:12])
+                + (" …" if rec.n_tubes > 12 else ""),
+            )
         i = rec.tubes.index(label)
         keep[i] = False
         why[i] = "excluded by request"
@@ -158,14 +189,17 @@ def _selection(study: Study, readings: Readings, exclude, keep_out_of_range: boo
         lo, hi = study.model.linear_range
         out = (readings.absorbance < lo) | (readings.absorbance > hi)
         for i in np.flatnonzero(out & keep):
-            why[int(i)] = (f"reading {readings.absorbance[i]:.3f} outside the linear range {lo:g}–{hi:g} "
-                           f"(keep it with --keep-out-of-range)")
+            why[int(i)] = (
+                f"reading {readings.absorbance[i]:.3f} outside the linear range {lo:g}–{hi:g} "
+                f"(keep it with --keep-out-of-range)"
+            )
         keep &= ~out
     return keep, tuple((rec.tubes[i], why[i]) for i in sorted(why))
 
 
-def fit_study(study: Study, readings: Readings, *, exclude: tuple[str, ...] = (),
-              keep_out_of_range: bool = False) -> Fit:
+def fit_study(
+    study: Study, readings: Readings, *, exclude: tuple[str, ...] = (), keep_out_of_range: bool = False
+) -> Fit:
     """:func:`fit_readings` on a compiled plan."""
     model, params, bench = study.model, study.params, study.bench
     full = readings.recipe
@@ -176,8 +210,14 @@ def fit_study(study: Study, readings: Readings, *, exclude: tuple[str, ...] = ()
     y = readings.absorbance[keep]
     nan = np.full(params.size, np.nan)
     if rec.n_tubes < params.size:
-        return _undetermined(study, readings, keep, excluded, nan,
-                             f"{rec.n_tubes} tubes left cannot determine {params.size} parameters: add tubes")
+        return _undetermined(
+            study,
+            readings,
+            keep,
+            excluded,
+            nan,
+            f"{rec.n_tubes} tubes left cannot determine {params.size} parameters: add tubes",
+        )
     state = expected_state(model, rec)
     W0 = W = whitening_of(error_budget(bench, model, rec, state))
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
@@ -217,40 +257,93 @@ def fit_study(study: Study, readings: Readings, *, exclude: tuple[str, ...] = ()
         theta_out, se_out = theta, np.full(params.size, np.nan)
     else:
         theta_out, se_out = theta, se
-    return Fit(study.title, full, readings.absorbance, params.names, theta_out, se_out, promised, c2, dof, p_hi,
-               fitted_all, resid_all, z, converged, study.target, keep, excluded, reason is None, reason or "",
-               p_lo, ci)
+    return Fit(
+        study.title,
+        full,
+        readings.absorbance,
+        params.names,
+        theta_out,
+        se_out,
+        promised,
+        c2,
+        dof,
+        p_hi,
+        fitted_all,
+        resid_all,
+        z,
+        converged,
+        study.target,
+        keep,
+        excluded,
+        reason is None,
+        reason or "",
+        p_lo,
+        ci,
+    )
 
 
 def _not_determined(params, theta, se, converged: bool, lo, hi) -> str | None:
     """Why the fit determines nothing, or None when it does."""
     if not converged:
         return "the fit did not converge: check the readings and the plan's guesses"
-    at_edge = (np.abs(theta - lo) < 1e-6 * np.maximum(1.0, np.abs(lo))) | (np.abs(theta - hi) < 1e-6 * np.maximum(
-        1.0, np.abs(hi)))
+    at_edge = (np.abs(theta - lo) < 1e-6 * np.maximum(1.0, np.abs(lo))) | (
+        np.abs(theta - hi) < 1e-6 * np.maximum(1.0, np.abs(hi))
+    )
     for p in np.flatnonzero(at_edge & np.isfinite(lo + hi) | (at_edge & (params.kind == 1))):
-        return (f"{params.names[p]} ran to the edge of its range ({theta[p]:.4g}): the readings do not "
-                f"determine it (all tubes saturated, or no complex formed)")
+        return (
+            f"{params.names[p]} ran to the edge of its range ({theta[p]:.4g}): the readings do not "
+            f"determine it (all tubes saturated, or no complex formed)"
+        )
     if not np.all(np.isfinite(se)):
         return "the information matrix is singular: the readings do not determine every parameter"
     lb_se = se[params.kind == 0]
     if lb_se.size and np.max(lb_se) > SE_LIMIT:
         p = int(np.flatnonzero(params.kind == 0)[np.argmax(lb_se)])
-        return (f"SE({params.names[p]}) = {se[p]:.3g} log units: the information is near singular and the "
-                f"readings do not determine it")
+        return (
+            f"SE({params.names[p]}) = {se[p]:.3g} log units: the information is near singular and the "
+            f"readings do not determine it"
+        )
     return None
 
 
 def _undetermined(study: Study, readings: Readings, keep, excluded, nan, reason: str) -> Fit:
     n = readings.recipe.n_tubes
     empty = np.full(n, np.nan)
-    return Fit(study.title, readings.recipe, readings.absorbance, study.params.names, nan, nan, nan,
-               float("nan"), int(keep.sum()) - study.params.size, float("nan"), empty, empty, empty, False,
-               study.target, keep, excluded, False, reason, float("nan"), None)
+    return Fit(
+        study.title,
+        readings.recipe,
+        readings.absorbance,
+        study.params.names,
+        nan,
+        nan,
+        nan,
+        float("nan"),
+        int(keep.sum()) - study.params.size,
+        float("nan"),
+        empty,
+        empty,
+        empty,
+        False,
+        study.target,
+        keep,
+        excluded,
+        False,
+        reason,
+        float("nan"),
+        None,
+    )
 
 
-def profile_interval(reading: ReadingModel, W: np.ndarray, y: np.ndarray, theta: np.ndarray, se: np.ndarray,
-                     chi2_min: float, *, n_grid: int = 41) -> tuple[float | None, float | None]:
+def profile_interval(
+    reading: ReadingModel,
+    W: np.ndarray,
+    y: np.ndarray,
+    theta: np.ndarray,
+    se: np.ndarray,
+    chi2_min: float,
+    *,
+    n_grid: int = 41,
+) -> tuple[float | None, float | None]:
     """Profile-likelihood 95 % interval of the target's log β: where χ²(log β, others refitted) − χ²_min
     crosses 3.84 (linear interpolation between grid points); None on a side where it never does."""
     params = reading.params
@@ -260,6 +353,7 @@ def profile_interval(reading: ReadingModel, W: np.ndarray, y: np.ndarray, theta:
     others = [p for p in range(params.size) if p != t]
     G = grid.size
     if others:
+
         def full(sub):
             th = np.empty((G, params.size))
             th[:, others] = sub
@@ -267,9 +361,16 @@ def profile_interval(reading: ReadingModel, W: np.ndarray, y: np.ndarray, theta:
             return th
 
         lo, hi = reading.bounds()
-        res = fit_many(lambda s: reading.f(full(s)), np.broadcast_to(theta[others], (G, len(others))).copy(),
-                       np.broadcast_to(y, (G, y.size)), jac=lambda s: reading.jac(full(s))[..., others],
-                       whiten=W, scale_cov=False, lower=lo[others], upper=hi[others])
+        res = fit_many(
+            lambda s: reading.f(full(s)),
+            np.broadcast_to(theta[others], (G, len(others))).copy(),
+            np.broadcast_to(y, (G, y.size)),
+            jac=lambda s: reading.jac(full(s))[..., others],
+            whiten=W,
+            scale_cov=False,
+            lower=lo[others],
+            upper=hi[others],
+        )
         chi2 = np.where(np.isfinite(res.chi2), res.chi2, np.inf)
     else:
         th = np.broadcast_to(theta, (G, params.size)).copy()

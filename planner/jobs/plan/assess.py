@@ -86,7 +86,9 @@ class Assessment:
 
     def __repr__(self) -> str:
         worst = max((STATUSES.index(c.status) for c in self.checks), default=0)
-        return f"Assessment({self.recipe.n_tubes} tubes, verdict={self.verdict}, worst check={STATUSES[worst]})"
+        return (
+            f"Assessment({self.recipe.n_tubes} tubes, verdict={self.verdict}, worst check={STATUSES[worst]})"
+        )
 
     @property
     def target_se(self) -> float | None:
@@ -102,15 +104,17 @@ class Assessment:
         out = []
         for p, name in enumerate(self.params.names):
             mc = self.mc
-            out.append({
-                "name": name,
-                "guess": float(self.params.guess[p]),
-                "true": float(self.true_theta[p]),
-                "se": _f(self.cramer_rao.se[p]),
-                "mc_sd": _f(mc.sd[p]) if mc else None,
-                "mc_bias": _f(mc.bias[p]) if mc else None,
-                "mc_ci95": [_f(mc.ci95[p, 0]), _f(mc.ci95[p, 1])] if mc else None,
-            })
+            out.append(
+                {
+                    "name": name,
+                    "guess": float(self.params.guess[p]),
+                    "true": float(self.true_theta[p]),
+                    "se": _f(self.cramer_rao.se[p]),
+                    "mc_sd": _f(mc.sd[p]) if mc else None,
+                    "mc_bias": _f(mc.bias[p]) if mc else None,
+                    "mc_ci95": [_f(mc.ci95[p, 0]), _f(mc.ci95[p, 1])] if mc else None,
+                }
+            )
         return tuple(out)
 
     def tube_rows(self) -> list[dict]:
@@ -123,8 +127,11 @@ class Assessment:
                 "tube": t,
                 "volumes_mL": {sid: float(r.volumes_mL[i, j]) for j, sid in enumerate(r.stock_ids)},
                 "total_M": {"M": float(st.totals_M[i, 0]), "L": float(st.totals_M[i, 1])},
-                "species_M": {"M": float(st.free_M[i]), "L": float(st.free_L[i]),
-                              **{s: float(st.species_M[i, k]) for k, s in enumerate(m.species)}},
+                "species_M": {
+                    "M": float(st.free_M[i]),
+                    "L": float(st.free_L[i]),
+                    **{s: float(st.species_M[i, k]) for k, s in enumerate(m.species)},
+                },
                 "absorbance": float(st.absorbance[i]),
                 "absorbance_sd": float(total_sd[i]),
                 "saturation": float(st.saturation[i]),
@@ -148,16 +155,22 @@ class Assessment:
             "checks": [c.summary() for c in self.checks],
         }
         if self.cramer_rao is not None and self.params is not None:
-            out["correlation"] = {"names": list(self.params.names),
-                                  "matrix": [[_f(x) for x in row] for row in self.cramer_rao.corr]}
+            out["correlation"] = {
+                "names": list(self.params.names),
+                "matrix": [[_f(x) for x in row] for row in self.cramer_rao.corr],
+            }
         if self.mc is not None:
-            out["monte_carlo"] = {"trials": int(self.mc.estimates.shape[0]),
-                                  "failed_fraction": self.mc.failed_fraction}
+            out["monte_carlo"] = {
+                "trials": int(self.mc.estimates.shape[0]),
+                "failed_fraction": self.mc.failed_fraction,
+            }
         if self.profile is not None:
-            out["profile"] = {"log_beta": [float(x) for x in self.profile.log_beta],
-                              "delta_chi2": [_f(x) for x in self.profile.delta_chi2],
-                              "low_unbounded": self.profile.low_unbounded,
-                              "high_unbounded": self.profile.high_unbounded}
+            out["profile"] = {
+                "log_beta": [float(x) for x in self.profile.log_beta],
+                "delta_chi2": [_f(x) for x in self.profile.delta_chi2],
+                "low_unbounded": self.profile.low_unbounded,
+                "high_unbounded": self.profile.high_unbounded,
+            }
         out.update(self.extra)
         return out
 
@@ -172,9 +185,16 @@ def assess_recipe(plan: Plan, recipe: Recipe) -> Assessment:
     return assess(plan, recipe, trials=0, precision=False)
 
 
-def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: int = 0,
-           at: Mapping[str, float] | None = None, precision: bool = True,
-           progress: Callable[[int, int], None] | None = None) -> Assessment:
+def assess(
+    plan: Plan,
+    recipe: Recipe,
+    *,
+    trials: int = DEFAULT_TRIALS,
+    seed: int = 0,
+    at: Mapping[str, float] | None = None,
+    precision: bool = True,
+    progress: Callable[[int, int], None] | None = None,
+) -> Assessment:
     """Judge ``recipe``: expected tubes, error budget, precision of log K, checks and verdict.
 
     Parameters
@@ -187,13 +207,23 @@ def assess(plan: Plan, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: in
 
     The plan is compiled once (:func:`planner.jobs.compile.compile_study`); see :func:`assess_study`.
     """
-    return assess_study(compile_study(plan), recipe, trials=trials, seed=seed, at=at, precision=precision,
-                        progress=progress)
+    return assess_study(
+        compile_study(plan), recipe, trials=trials, seed=seed, at=at, precision=precision, progress=progress
+    )
 
 
-def assess_study(study: Study, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, seed: int = 0,
-                 at: Mapping[str, float] | None = None, precision: bool = True, profile_chi2: bool = True,
-                 model_check: bool = True, progress: Callable[[int, int], None] | None = None) -> Assessment:
+def assess_study(
+    study: Study,
+    recipe: Recipe,
+    *,
+    trials: int = DEFAULT_TRIALS,
+    seed: int = 0,
+    at: Mapping[str, float] | None = None,
+    precision: bool = True,
+    profile_chi2: bool = True,
+    model_check: bool = True,
+    progress: Callable[[int, int], None] | None = None,
+) -> Assessment:
     """:func:`assess` on a compiled plan (``profile_chi2=False`` skips the χ² profile and
     ``model_check=False`` the detection power of the plan's alternative models, e.g. for the design's
     comparisons, which use only the Cramér–Rao SE)."""
@@ -216,8 +246,17 @@ def assess_study(study: Study, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, 
         risk, spread = _range_risk_over_prior(model, params, reading)
         enough = recipe.n_tubes >= params.size
         if trials > 0 and enough:
-            mc = monte_carlo(bench, model, recipe, reading, W, np.random.default_rng(seed), trials,
-                             true_theta, progress=progress)
+            mc = monte_carlo(
+                bench,
+                model,
+                recipe,
+                reading,
+                W,
+                np.random.default_rng(seed),
+                trials,
+                true_theta,
+                progress=progress,
+            )
         if profile_chi2 and params.target >= 0 and recipe.n_tubes >= params.size - 1 and recipe.n_tubes > 0:
             prof = profile(reading, W, true_theta)
     check_list.append(chk.linear_range(model, state, recipe.tubes, risk, spread))
@@ -252,8 +291,24 @@ def assess_study(study: Study, recipe: Recipe, *, trials: int = DEFAULT_TRIALS, 
         else:
             reason = f"{reason}; failed checks: {', '.join(failed)}"
     check_list.sort(key=lambda c: -STATUSES.index(c.status))
-    return Assessment(study.title, recipe, model, state, tuple(check_list), budget, params, true_theta, cr, mc,
-                      prof, verdict, reason, study.goal_se, extra, study=study)
+    return Assessment(
+        study.title,
+        recipe,
+        model,
+        state,
+        tuple(check_list),
+        budget,
+        params,
+        true_theta,
+        cr,
+        mc,
+        prof,
+        verdict,
+        reason,
+        study.goal_se,
+        extra,
+        study=study,
+    )
 
 
 def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingModel):
@@ -282,7 +337,9 @@ def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingMod
 def stock_shortfalls(bench: Bench, recipe: Recipe) -> list[tuple[str, float, float, float]]:
     """Stocks whose recipe use plus rinse and dead volume exceeds what is on hand:
     (id, recipe mL, needed mL, on hand mL), in plan order."""
-    if bench.titration is not None:  # one titration: the start volume once, the titrant added up to the last point
+    if (
+        bench.titration is not None
+    ):  # one titration: the start volume once, the titrant added up to the last point
         used = recipe.volumes_mL.max(axis=0)
         n_del = (used > 0).astype(int)
     else:
@@ -292,23 +349,37 @@ def stock_shortfalls(bench: Bench, recipe: Recipe) -> list[tuple[str, float, flo
     need = volume_needed_mL(used, n_del, rinse_mL=0.0, dead_volume_mL=0.0) + allowance
     on_hand = bench.on_hand_mL
     short = np.isfinite(on_hand) & (on_hand < need)
-    return [(bench.stock_ids[k], float(used[k]), float(need[k]), float(on_hand[k])) for k in np.flatnonzero(short)]
+    return [
+        (bench.stock_ids[k], float(used[k]), float(need[k]), float(on_hand[k])) for k in np.flatnonzero(short)
+    ]
 
 
 def _stock_and_glassware_checks(bench: Bench, recipe: Recipe) -> list[Check]:
     out = []
     short = stock_shortfalls(bench, recipe)
     if short:
-        out.append(Check("stock-budget", "fail", "; ".join(
-            f"{sid}: needs {need:.1f} mL (recipe {used:.1f} + rinse and dead volume), "
-            f"{have:g} mL on hand — make more or use less" for sid, used, need, have in short)))
+        out.append(
+            Check(
+                "stock-budget",
+                "fail",
+                "; ".join(
+                    f"{sid}: needs {need:.1f} mL (recipe {used:.1f} + rinse and dead volume), "
+                    f"{have:g} mL on hand — make more or use less"
+                    for sid, used, need, have in short
+                ),
+            )
+        )
     else:
-        out.append(Check("stock-budget", "pass", "every stock on hand covers the recipe with its rinse allowance"))
+        out.append(
+            Check("stock-budget", "pass", "every stock on hand covers the recipe with its rinse allowance")
+        )
     probs = glassware_problems(bench, recipe)
     if probs:
         out.append(Check("glassware", "fail", "; ".join(f"{k}: {m}" for k, m in probs)))
     else:
-        out.append(Check("glassware", "pass", "every volume is on the grid, above the minimum and within its device"))
+        out.append(
+            Check("glassware", "pass", "every volume is on the grid, above the minimum and within its device")
+        )
     return out
 
 
@@ -320,16 +391,23 @@ def _identifiability_check(params: Parameters, cr: CramerRao, model: Model, stat
     eps_idx = [p for p in range(params.size) if params.kind[p] == 1]
     if not eps_idx or not np.all(np.isfinite(cr.corr)):
         if not np.all(np.isfinite(cr.se)):
-            return Check("correlation", "fail", "the parameters cannot all be determined from these tubes "
-                         "(singular information): widen the range of concentrations")
+            return Check(
+                "correlation",
+                "fail",
+                "the parameters cannot all be determined from these tubes "
+                "(singular information): widen the range of concentrations",
+            )
         return Check("correlation", "pass", "no absorptivity is fitted alongside the target")
     r = max(abs(cr.corr[t, p]) for p in eps_idx)
     name = params.names[max(eps_idx, key=lambda p: abs(cr.corr[t, p]))]
     if r < 0.95:
         return Check("correlation", "pass", f"|corr({params.names[t]}, {name})| = {r:.2f}")
-    return Check("correlation", "warn" if r < 0.995 else "fail",
-                 f"|corr({params.names[t]}, {name})| = {r:.3f}: the data fix little more than K·ε (Person 1965); "
-                 f"add tubes nearer saturation (more of the excess reagent)")
+    return Check(
+        "correlation",
+        "warn" if r < 0.995 else "fail",
+        f"|corr({params.names[t]}, {name})| = {r:.3f}: the data fix little more than K·ε (Person 1965); "
+        f"add tubes nearer saturation (more of the excess reagent)",
+    )
 
 
 def _verdict(study: Study, params: Parameters, cr, mc, prof) -> tuple[str | None, str]:
@@ -339,8 +417,9 @@ def _verdict(study: Study, params: Parameters, cr, mc, prof) -> tuple[str | None
     if t < 0:
         return None, f"log_beta[{study.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
     if cr.jacobian.shape[0] < params.size:
-        return "unresolved", (f"{cr.jacobian.shape[0]} tubes cannot determine {params.size} fitted parameters: "
-                              f"add tubes")
+        return "unresolved", (
+            f"{cr.jacobian.shape[0]} tubes cannot determine {params.size} fitted parameters: add tubes"
+        )
     goal = study.goal_se
     se = float(cr.se[t])
     if prof is not None and prof.low_unbounded and prof.high_unbounded:
@@ -356,8 +435,10 @@ def _verdict(study: Study, params: Parameters, cr, mc, prof) -> tuple[str | None
         if mc.failed_fraction > 0.05:
             return "unresolved", f"{mc.failed_fraction:.0%} of simulated fits failed"
         if not np.isfinite(mc_sd) or abs(mc_sd / se - 1.0) > MC_AGREEMENT:
-            return "unresolved", (f"Monte Carlo (sd {mc_sd:.3g}) does not confirm the Cramér–Rao SE {se:.3g} "
-                                  f"within {MC_AGREEMENT:.0%}: the asymptotic SE is not trustworthy here")
+            return "unresolved", (
+                f"Monte Carlo (sd {mc_sd:.3g}) does not confirm the Cramér–Rao SE {se:.3g} "
+                f"within {MC_AGREEMENT:.0%}: the asymptotic SE is not trustworthy here"
+            )
     if se <= goal:
         return "resolved", f"SE(log β) = {se:.3g} ≤ goal {goal:g}"
     return "unresolved", f"SE(log β) = {se:.3g} > goal {goal:g}"

@@ -27,10 +27,21 @@ from ...uncertainty import delivery
 from ...uncertainty.budget import error_factors
 from .checks import RANGE_RISK, prior_range_risk
 
-__all__ = ["MAX_CANDIDATES", "Candidates", "candidate_tubes", "information_rows", "level_ionic_strength",
-           "neighbourhood", "range_mask", "recipe_from_counts", "rows_with_prior"]
+__all__ = [
+    "MAX_CANDIDATES",
+    "Candidates",
+    "candidate_tubes",
+    "information_rows",
+    "level_ionic_strength",
+    "neighbourhood",
+    "range_mask",
+    "recipe_from_counts",
+    "rows_with_prior",
+]
 
 MAX_CANDIDATES = 40000  # above this the grid is searched coarsely first, then refined locally
+
+
 @dataclass(frozen=True)
 class Candidates:
     """Every tube the glassware can make.
@@ -56,8 +67,9 @@ def _levels(lo: float, hi: float, step: float, allow_zero: bool) -> np.ndarray:
     return np.concatenate([[0.0], lv]) if allow_zero else lv
 
 
-def candidate_tubes(study: Study, *, step_mL: float | None = None,
-                    caps_mL: dict[str, float] | None = None) -> Candidates:
+def candidate_tubes(
+    study: Study, *, step_mL: float | None = None, caps_mL: dict[str, float] | None = None
+) -> Candidates:
     """All combinations of designed volumes on the grid that fit the tube (before the range screen).
 
     Under ``make_up = "to-mark"`` the dispensed volumes (fixed and background ones included) add up to
@@ -74,7 +86,9 @@ def candidate_tubes(study: Study, *, step_mL: float | None = None,
     fixed = g.fixed_mL
     designed = [s for s in g.stock_ids if s not in (g.diluent_id, g.background_id) and s not in fixed]
     if not designed:
-        raise DesignError("design.fixed fixes every stock: nothing is left to vary; remove a stock from fixed")
+        raise DesignError(
+            "design.fixed fixes every stock: nothing is left to vary; remove a stock from fixed"
+        )
     # under to-mark the flask keeps make_up_min of room for the diluent (Bench.room_mL)
     room = g.room_mL - sum(fixed.values())
     levels = []
@@ -133,8 +147,11 @@ def level_ionic_strength(study: Study, vols: dict[str, np.ndarray]) -> dict[str,
     model = study.model
     n = len(next(iter(vols.values())))
     tube = g.tube_volume_mL
-    rec0 = g.make_recipe({**vols, bg: np.zeros(n)} if g.to_mark else
-                         {**vols, bg: np.zeros(n), g.diluent_id: np.maximum(tube - sum(vols.values()), 0.0)})
+    rec0 = g.make_recipe(
+        {**vols, bg: np.zeros(n)}
+        if g.to_mark
+        else {**vols, bg: np.zeros(n), g.diluent_id: np.maximum(tube - sum(vols.values()), 0.0)}
+    )
     tot = totals_M(rec0, model.stock_conc_M)
     ions = tube_ions_M(model, rec0.volumes_mL, rec0.total_volume_mL)
     st = predict(model, tot, ions, warn=False)
@@ -144,8 +161,10 @@ def level_ionic_strength(study: Study, vols: dict[str, np.ndarray]) -> dict[str,
     dil = g.diluent_id
     i_dil = 0.5 * float(model.stock_ion_M[model.stock_ids.index(dil)] @ model.ion_charges**2) if dil else 0.0
     if not i_bg > i_dil:
-        raise DesignError(f"stock {bg}: the background electrolyte ({i_bg:.3g} M ionic strength) must be "
-                          f"stronger than the diluent ({i_dil:.3g} M) to level the tubes")
+        raise DesignError(
+            f"stock {bg}: the background electrolyte ({i_bg:.3g} M ionic strength) must be "
+            f"stronger than the diluent ({i_dil:.3g} M) to level the tubes"
+        )
     target = study.ionic_strength_M or float(I0.max())
     v_bg = np.round(np.maximum(target - I0, 0.0) * tube / (i_bg - i_dil) / g.step_mL) * g.step_mL
     v_bg = np.round(v_bg, 10)
@@ -154,16 +173,25 @@ def level_ionic_strength(study: Study, vols: dict[str, np.ndarray]) -> dict[str,
     ok = (np.abs(I - target) <= study.ionic_strength_tolerance * target) & (v_bg <= room + 1e-9)
     ok &= (v_bg == 0) | (v_bg >= g.min_volume_mL - 1e-9)
     if not ok.any():
-        raise DesignError(f"no tube can be brought to I = {target:.3g} M with stock {bg}: set "
-                          f"design.ionic_strength lower, use a more concentrated background stock, or widen "
-                          f"design.ionic_strength_tolerance")
+        raise DesignError(
+            f"no tube can be brought to I = {target:.3g} M with stock {bg}: set "
+            f"design.ionic_strength lower, use a more concentrated background stock, or widen "
+            f"design.ionic_strength_tolerance"
+        )
     out = {k: v[ok] for k, v in vols.items()}
     out[bg] = v_bg[ok]
     return out
 
 
-def information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: str, *, volumetric: bool = True,
-                      with_sd: bool = False):
+def information_rows(
+    study: Study,
+    cand: Candidates,
+    nodes: Nodes,
+    criterion: str,
+    *,
+    volumetric: bool = True,
+    with_sd: bool = False,
+):
     """Whitened Jacobian rows F (G, C, 1, P') and prior M0 (P', P') for every candidate and node (and,
     with ``with_sd``, the independent sd (G, C) each row was whitened by)."""
     model, params = study.model, study.params
@@ -173,9 +201,15 @@ def information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: st
     reading = ReadingModel(model, params, tot, ions)
     G = nodes.theta.shape[0]
     lb, eps, _ = unpack(model, params, nodes.theta)
-    st = predict(model, np.broadcast_to(tot, (G,) + tot.shape), np.broadcast_to(ions, (G,) + ions.shape),
-                 log_beta=lb, epsilon_M_cm=eps, warn=False)
-    J = reading.jac(nodes.theta)                                            # (G, C, P)
+    st = predict(
+        model,
+        np.broadcast_to(tot, (G,) + tot.shape),
+        np.broadcast_to(ions, (G,) + ions.shape),
+        log_beta=lb,
+        epsilon_M_cm=eps,
+        warn=False,
+    )
+    J = reading.jac(nodes.theta)  # (G, C, P)
     der = absorbance_derivatives(model, st, eps)
     var = np.empty(st.absorbance.shape)
     shared = []
@@ -183,14 +217,15 @@ def information_rows(study: Study, cand: Candidates, nodes: Nodes, criterion: st
         sub = st[gi]
         f = error_factors(study.bench, model, rec, sub, dA_dtotals=der.dA_dtotals[gi])
         var[gi] = f.photometric_var + (f.delivery_random_var if volumetric else 0.0)
-        shared.append(np.concatenate([f.J_stock, f.J_device], axis=1) if volumetric else
-                      np.zeros((rec.n_tubes, 0)))
+        shared.append(
+            np.concatenate([f.J_stock, f.J_device], axis=1) if volumetric else np.zeros((rec.n_tubes, 0))
+        )
     sd = np.sqrt(var)
     # spread of each reading from the absorptivities' uncertainty (they enter linearly), for the screen
     eps_sd = model.epsilon_M_cm * model.epsilon_rsd
-    band = np.sqrt(np.sum((der.dA_depsilon * eps_sd) ** 2, axis=-1))          # (G, C)
+    band = np.sqrt(np.sum((der.dA_depsilon * eps_sd) ** 2, axis=-1))  # (G, C)
     Fth = J / sd[..., None]
-    S = np.stack(shared)                                                    # (G, C, k + d)
+    S = np.stack(shared)  # (G, C, k + d)
     keep = np.any(S != 0, axis=(0, 1)) if S.size else np.zeros(0, dtype=bool)
     if criterion == "target" and keep.any():
         Fs = S[..., keep] / sd[..., None]
@@ -212,8 +247,16 @@ def range_mask(model: Model, st, weights: np.ndarray, band: np.ndarray) -> np.nd
     return prior_range_risk(st.absorbance, band, weights, lo, hi) <= RANGE_RISK + 1e-12
 
 
-def rows_with_prior(study: Study, cand: Candidates, prior: Recipe | None, nodes: Nodes, crit: str, *,
-                    volumetric: bool = True, with_sd: bool = False):
+def rows_with_prior(
+    study: Study,
+    cand: Candidates,
+    prior: Recipe | None,
+    nodes: Nodes,
+    crit: str,
+    *,
+    volumetric: bool = True,
+    with_sd: bool = False,
+):
     """:func:`information_rows` of the candidates, with the information of tubes measured before
     (``prior``) added to M0. Both are computed in one call, so they share the nuisance columns."""
     if prior is None:
@@ -221,16 +264,21 @@ def rows_with_prior(study: Study, cand: Candidates, prior: Recipe | None, nodes:
     C = cand.recipe.n_tubes
     r = cand.recipe
     union = concat_recipes([r, prior], ["candidate", "prior"])
-    out = information_rows(study, Candidates(union, cand.designed_ids, union.n_tubes, cand.step_mL), nodes, crit,
-                            volumetric=volumetric, with_sd=True)
+    out = information_rows(
+        study,
+        Candidates(union, cand.designed_ids, union.n_tubes, cand.step_mL),
+        nodes,
+        crit,
+        volumetric=volumetric,
+        with_sd=True,
+    )
     F, M0, st, band, sd = out
     Fp = F[:, C:, 0, :]
-    info = np.einsum("gnp,gnq->gpq", Fp, Fp)                                # (G, P', P')
+    info = np.einsum("gnp,gnq->gpq", Fp, Fp)  # (G, P', P')
     M0 = info + (0.0 if M0 is None else M0)
     st = st[:, :C]
     res = (F[:, :C], M0, st, band[:, :C])
     return (*res, sd[:, :C]) if with_sd else res
-
 
 
 def recipe_from_counts(study: Study, cand: Candidates, idx: np.ndarray, counts: np.ndarray) -> Recipe:

@@ -13,12 +13,18 @@ import numpy as np
 from ...model import closed_forms
 from ...model.compiled import Model, TubeState
 
-RANGE_RISK = 0.05  # a tube may leave the linear range for at most 5 % of the guess's uncertainty [common practice]
+RANGE_RISK = (
+    0.05  # a tube may leave the linear range for at most 5 % of the guess's uncertainty [common practice]
+)
 SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1; domain.md §4
-CALIBRATION_EXCESS = 20.0  # a tube with ≥ 20-fold excess is a "complete conversion" candidate [common practice]
+CALIBRATION_EXCESS = (
+    20.0  # a tube with ≥ 20-fold excess is a "complete conversion" candidate [common practice]
+)
 CONVERSION_WANTED = 0.99  # [common practice]
 DOUBLE_RECIPROCAL_EXCESS = 100.0  # source: Wang & Yu 2007, Acta Phys.-Chim. Sin. 23:1353
-SECOND_COMPLEX_SHARE = 0.05  # share of metal in other complexes that a 1:1 analysis can ignore [common practice]
+SECOND_COMPLEX_SHARE = (
+    0.05  # share of metal in other complexes that a 1:1 analysis can ignore [common practice]
+)
 IONIC_STRENGTH_SPREAD = 0.05  # a few percent keeps activity coefficients constant [common practice]
 SIDE_REACTION_SHARE = 0.05  # hydrolysis / protonation share worth a warning [common practice]
 
@@ -52,8 +58,9 @@ def range_risk(absorbance: np.ndarray, sd: np.ndarray, lo: float, hi: float) -> 
     return np.where(sd > 0, smooth, sharp)
 
 
-def prior_range_risk(absorbance: np.ndarray, band: np.ndarray, weights: np.ndarray, lo: float,
-                     hi: float) -> np.ndarray:
+def prior_range_risk(
+    absorbance: np.ndarray, band: np.ndarray, weights: np.ndarray, lo: float, hi: float
+) -> np.ndarray:
     """Chance of leaving [lo, hi] over the guesses' uncertainty.
 
     ``absorbance`` and ``band`` are (G, ...) at the quadrature nodes of the uncertain log β (weights
@@ -63,8 +70,13 @@ def prior_range_risk(absorbance: np.ndarray, band: np.ndarray, weights: np.ndarr
     return np.tensordot(weights, risk, axes=(0, 0))
 
 
-def linear_range(model: Model, state: TubeState, tubes, risk: np.ndarray | None = None,
-                 spread: tuple[float, float] | None = None) -> Check:
+def linear_range(
+    model: Model,
+    state: TubeState,
+    tubes,
+    risk: np.ndarray | None = None,
+    spread: tuple[float, float] | None = None,
+) -> Check:
     """Every tube's absorbance, with its band over the guess's uncertainty, inside the window.
 
     ``risk`` (n,) is each tube's chance of leaving the window over the guesses' uncertainty
@@ -77,21 +89,31 @@ def linear_range(model: Model, state: TubeState, tubes, risk: np.ndarray | None 
     if out_hi.any() or out_lo.any():
         parts = []
         if out_hi.any():
-            parts.append(f"{_tubes(tubes, out_hi)} above {hi:g}: use less of the absorbing stock, a shorter path "
-                         f"or a wavelength off the band maximum")
+            parts.append(
+                f"{_tubes(tubes, out_hi)} above {hi:g}: use less of the absorbing stock, a shorter path "
+                f"or a wavelength off the band maximum"
+            )
         if out_lo.any():
-            parts.append(f"{_tubes(tubes, out_lo)} below {lo:g}: use more of the absorbing stock or a longer path")
+            parts.append(
+                f"{_tubes(tubes, out_lo)} below {lo:g}: use more of the absorbing stock or a longer path"
+            )
         return Check("linear-range", "fail", "; ".join(parts))
     if risk is not None:
         risky = risk > RANGE_RISK
         if risky.any():
             band = f"; readings {spread[0]:.3f}–{spread[1]:.3f} over the guess's range" if spread else ""
-            return Check("linear-range", "warn",
-                         f"inside {lo:g}–{hi:g} at the guess, but {_tubes(tubes, risky)} may leave it if the "
-                         f"guess is off (up to {risk.max():.0%} risk{band}): move those tubes towards the "
-                         f"middle of the range")
-    return Check("linear-range", "pass", f"all {len(tubes)} tubes read between {lo:g} and {hi:g} "
-                 f"(A = {a.min():.3f}–{a.max():.3f})")
+            return Check(
+                "linear-range",
+                "warn",
+                f"inside {lo:g}–{hi:g} at the guess, but {_tubes(tubes, risky)} may leave it if the "
+                f"guess is off (up to {risk.max():.0%} risk{band}): move those tubes towards the "
+                f"middle of the range",
+            )
+    return Check(
+        "linear-range",
+        "pass",
+        f"all {len(tubes)} tubes read between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
+    )
 
 
 def saturation(state: TubeState, tubes) -> Check:
@@ -106,10 +128,12 @@ def saturation(state: TubeState, tubes) -> Check:
     lo, hi = SATURATION_WINDOW
     inside = (s >= lo) & (s <= hi)
     span = float(s.max() - s.min()) if s.size else 0.0
-    msg = (f"saturation {s.min():.2f}–{s.max():.2f} ({span:.0%} of the curve); {int(inside.sum())} of "
-           f"{s.size} tubes inside {lo}–{hi}")
+    msg = (
+        f"saturation {s.min():.2f}–{s.max():.2f} ({span:.0%} of the curve); {int(inside.sum())} of "
+        f"{s.size} tubes inside {lo}–{hi}"
+    )
     if inside.sum() == 0:
-        fix = ("raise the ligand (or metal) excess" if s.max() < lo else "lower the excess")
+        fix = "raise the ligand (or metal) excess" if s.max() < lo else "lower the excess"
         return Check("saturation", "fail", f"{msg}: no tube where the data determine K best; {fix}")
     # two tubes inside the window are enough when the optimiser has placed them there on purpose: the
     # informative part of the curve is its middle-to-upper range (Bowser & Chen 1998), not its whole span
@@ -142,8 +166,11 @@ def conversion(model: Model, state: TubeState, tubes, target: str) -> Check:
     j = model.index(target)
     p, q = model.stoich[j, 0], model.stoich[j, 1]
     limiting_is_L = L0 < M0
-    frac = np.where(limiting_is_L, q * state.species_M[:, j] / np.where(L0 > 0, L0, 1),
-                    p * state.species_M[:, j] / np.where(M0 > 0, M0, 1))
+    frac = np.where(
+        limiting_is_L,
+        q * state.species_M[:, j] / np.where(L0 > 0, L0, 1),
+        p * state.species_M[:, j] / np.where(M0 > 0, M0, 1),
+    )
     # the hand analysis calibrates on the tube with the largest excess
     worst = int(np.flatnonzero(cand)[np.argmax(ratio[cand])])
     f = float(frac[worst])
@@ -157,8 +184,10 @@ def conversion(model: Model, state: TubeState, tubes, target: str) -> Check:
         excess_needed = CONVERSION_WANTED / ((1 - CONVERSION_WANTED) * K) + CONVERSION_WANTED * c_lim
         if np.isfinite(bias):
             msg += f"; a hand analysis assuming complete conversion biases K by {bias:+.1%}"
-        msg += (f"; an excess of {excess_needed:.3g} M would give {CONVERSION_WANTED:.0%} — or fit all tubes "
-                f"globally instead")
+        msg += (
+            f"; an excess of {excess_needed:.3g} M would give {CONVERSION_WANTED:.0%} — or fit all tubes "
+            f"globally instead"
+        )
     return Check("conversion", "warn" if f >= 0.95 else "fail", msg)
 
 
@@ -199,11 +228,16 @@ def double_reciprocal(state: TubeState, tubes) -> Check:
         ratio = np.where(M0 > 0, L0 / M0, np.inf)
     low = ratio < DOUBLE_RECIPROCAL_EXCESS
     if not low.any():
-        return Check("double-reciprocal", "pass", f"ligand excess ≥ {DOUBLE_RECIPROCAL_EXCESS:.0f}× in every tube")
+        return Check(
+            "double-reciprocal", "pass", f"ligand excess ≥ {DOUBLE_RECIPROCAL_EXCESS:.0f}× in every tube"
+        )
     status = "fail" if np.any(ratio < 10) else "warn"
-    return Check("double-reciprocal", status,
-                 f"ligand excess only {np.min(ratio):.0f}× in {_tubes(tubes, low)}; a double-reciprocal "
-                 f"plot needs about 100× (not 10×): lower the metal or raise the ligand, or fit globally")
+    return Check(
+        "double-reciprocal",
+        status,
+        f"ligand excess only {np.min(ratio):.0f}× in {_tubes(tubes, low)}; a double-reciprocal "
+        f"plot needs about 100× (not 10×): lower the metal or raise the ligand, or fit globally",
+    )
 
 
 def second_complex(model: Model, state: TubeState, tubes, target: str) -> Check:
@@ -218,9 +252,12 @@ def second_complex(model: Model, state: TubeState, tubes, target: str) -> Check:
     names = ", ".join(s for s, m in zip(model.species, mask, strict=True) if m)
     if share[k] <= SECOND_COMPLEX_SHARE:
         return Check("second-complex", "pass", f"{names} hold at most {share[k]:.1%} of the metal")
-    return Check("second-complex", "warn" if share[k] < 0.2 else "fail",
-                 f"{names} hold up to {share[k]:.0%} of the metal (tube {tubes[k]}): a 1:1 analysis will be "
-                 f"biased; lower the ligand excess or fit all complexes")
+    return Check(
+        "second-complex",
+        "warn" if share[k] < 0.2 else "fail",
+        f"{names} hold up to {share[k]:.0%} of the metal (tube {tubes[k]}): a 1:1 analysis will be "
+        f"biased; lower the ligand excess or fit all complexes",
+    )
 
 
 def ionic_strength(state: TubeState) -> Check:
@@ -230,9 +267,12 @@ def ionic_strength(state: TubeState) -> Check:
     spread = float((I.max() - I.min()) / mean) if mean > 0 else 0.0
     if spread <= IONIC_STRENGTH_SPREAD:
         return Check("ionic-strength", "pass", f"I = {I.min():.3g}–{I.max():.3g} M (spread {spread:.1%})")
-    return Check("ionic-strength", "warn",
-                 f"I varies {spread:.0%} across tubes ({I.min():.3g}–{I.max():.3g} M): add background "
-                 f"electrolyte so every tube has the same ionic strength")
+    return Check(
+        "ionic-strength",
+        "warn",
+        f"I varies {spread:.0%} across tubes ({I.min():.3g}–{I.max():.3g} M): add background "
+        f"electrolyte so every tube has the same ionic strength",
+    )
 
 
 def side_reactions(model: Model, state: TubeState, tubes) -> list[Check]:
@@ -246,14 +286,25 @@ def side_reactions(model: Model, state: TubeState, tubes) -> list[Check]:
         share = np.sum(state.species_M[:, hyd] * p[hyd], axis=1) / np.where(M0 > 0, M0, 1)
         k = int(np.argmax(share))
         status = "pass" if share[k] <= SIDE_REACTION_SHARE else "warn"
-        fix = "" if status == "pass" else ": lower the pH (more acid) or include the hydroxo species in the fit"
-        out.append(Check("hydrolysis", status, f"up to {share[k]:.1%} of the metal hydrolysed (tube {tubes[k]}){fix}"))
+        fix = (
+            "" if status == "pass" else ": lower the pH (more acid) or include the hydroxo species in the fit"
+        )
+        out.append(
+            Check(
+                "hydrolysis", status, f"up to {share[k]:.1%} of the metal hydrolysed (tube {tubes[k]}){fix}"
+            )
+        )
     if prot.any():
         share = np.sum(state.species_M[:, prot] * q[prot], axis=1) / np.where(L0 > 0, L0, 1)
         alpha = float(np.max(share))
-        out.append(Check("protonation", "pass",
-                         f"up to {alpha:.1%} of the ligand is protonated: the fit uses the conditional "
-                         f"constants at this pH (the pH must be held by the buffer)"))
+        out.append(
+            Check(
+                "protonation",
+                "pass",
+                f"up to {alpha:.1%} of the ligand is protonated: the fit uses the conditional "
+                f"constants at this pH (the pH must be held by the buffer)",
+            )
+        )
     return out
 
 

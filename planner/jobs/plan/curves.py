@@ -17,7 +17,15 @@ from ...model.compiled import predict, saturation, tube_ions_M
 from ...uncertainty.budget import error_budget
 from ..compile import expected_state, true_constants
 
-__all__ = ["SAME_CURVE", "BindingCurve", "CurveLine", "SeScan", "binding_curve_data", "cramer_rao_se", "se_scan_data"]
+__all__ = [
+    "SAME_CURVE",
+    "BindingCurve",
+    "CurveLine",
+    "SeScan",
+    "binding_curve_data",
+    "cramer_rao_se",
+    "se_scan_data",
+]
 
 
 @dataclass(frozen=True)
@@ -83,8 +91,10 @@ def binding_curve_data(study: Study, recipe: Recipe, summary: dict, *, n_points:
             lb[model.index(m.group(1))] = p["true"]
     rows = summary["tubes"]
     tot = np.array([[t["total_M"]["M"], t["total_M"]["L"]] for t in rows], dtype=float).reshape(len(rows), 2)
-    free = np.array([[t["species_M"]["M"], t["species_M"]["L"]] for t in rows], dtype=float).reshape(len(rows), 2)
-    lim = np.where(tot[:, 0] <= tot[:, 1], 0, 1)               # the same rule as saturation()
+    free = np.array([[t["species_M"]["M"], t["species_M"]["L"]] for t in rows], dtype=float).reshape(
+        len(rows), 2
+    )
+    lim = np.where(tot[:, 0] <= tot[:, 1], 0, 1)  # the same rule as saturation()
     ions_all = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     lines: list[CurveLine] = []
     groups: dict[tuple[int, float], list[int]] = {}
@@ -101,21 +111,29 @@ def binding_curve_data(study: Study, recipe: Recipe, summary: dict, *, n_points:
         st = predict(model, totals, np.broadcast_to(ions, (n_points, ions.size)), log_beta=lb, warn=False)
         sat = saturation(model, totals, st.species_M, of="ML"[c])
         x = st.free_L if e == 1 else st.free_M
-        same = next((k for k, ln in enumerate(lines) if ln.limiting == "ML"[c] and _coincide(ln, x, sat)), None)
+        same = next(
+            (k for k, ln in enumerate(lines) if ln.limiting == "ML"[c] and _coincide(ln, x, sat)), None
+        )
         if same is None:
             lines.append(CurveLine("ML"[c], (total,), x, sat))
         else:  # one curve drawn over the union of both ranges
             ln = lines[same]
             xs = np.concatenate([ln.free_excess_M, x])
             order = np.argsort(xs, kind="stable")
-            lines[same] = CurveLine(ln.limiting, (*ln.totals_M, total), xs[order],
-                                    np.concatenate([ln.saturation, sat])[order])
+            lines[same] = CurveLine(
+                ln.limiting, (*ln.totals_M, total), xs[order], np.concatenate([ln.saturation, sat])[order]
+            )
     reps: dict[tuple, list[str]] = {}
     for i, t in enumerate(rows):
         reps.setdefault(tuple(np.round(recipe.volumes_mL[i], 9)), []).append(t["tube"])
-    return BindingCurve(tuple(lines), tuple("ML"[c] for c in lim), free[np.arange(len(rows)), 1 - lim],
-                        np.array([t["saturation"] for t in rows], dtype=float), tuple(t["tube"] for t in rows),
-                        tuple(tuple(g) for g in reps.values()))
+    return BindingCurve(
+        tuple(lines),
+        tuple("ML"[c] for c in lim),
+        free[np.arange(len(rows)), 1 - lim],
+        np.array([t["saturation"] for t in rows], dtype=float),
+        tuple(t["tube"] for t in rows),
+        tuple(tuple(g) for g in reps.values()),
+    )
 
 
 def _coincide(line: CurveLine, x: np.ndarray, sat: np.ndarray) -> bool:
@@ -160,8 +178,13 @@ def se_scan_data(study: Study, recipe: Recipe, *, n_values: int = 9, width_sd: f
     if not sd > 0:
         return None
     values = guess + np.linspace(-width_sd, width_sd, n_values) * sd
-    return SeScan(target, values, cramer_rao_se(study, recipe, [{target: float(v)} for v in values]),
-                  guess, study.goal_se)
+    return SeScan(
+        target,
+        values,
+        cramer_rao_se(study, recipe, [{target: float(v)} for v in values]),
+        guess,
+        study.goal_se,
+    )
 
 
 def cramer_rao_se(study: Study, recipe: Recipe, truths) -> np.ndarray:

@@ -38,6 +38,7 @@ from .model_check import guard
 
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
 
+
 @dataclass(frozen=True)
 class Design:
     """A designed recipe and how good it is.
@@ -76,8 +77,10 @@ class Design:
     model_check: object | None = field(default=None, compare=False)
 
     def __repr__(self) -> str:
-        return (f"Design({self.recipe.n_tubes} tubes, {self.criterion}, robust={self.robust}, "
-                f"SE={self.se_target:.3g} vs even {self.se_even:.3g}, efficiency ≥ {self.efficiency_bound:.3f})")
+        return (
+            f"Design({self.recipe.n_tubes} tubes, {self.criterion}, robust={self.robust}, "
+            f"SE={self.se_target:.3g} vs even {self.se_even:.3g}, efficiency ≥ {self.efficiency_bound:.3f})"
+        )
 
     @property
     def se_ratio_vs_even(self) -> float:
@@ -86,28 +89,41 @@ class Design:
     def summary(self) -> dict:
         """The design JSON: the assessment's baseline keys plus criterion and efficiency_bound."""
         out = dict(self.assessment_summary)
-        out.update({
-            "criterion": self.criterion,
-            "robust": self.robust,
-            "seed": self.seed,
-            "target": self.target,
-            "efficiency_bound": self.efficiency_bound,
-            "exact_efficiency": float(self.exact.efficiency),
-            "candidates": self.n_candidates,
-            "candidates_feasible": self.n_feasible,
-            "se_target": self.se_target,
-            "se_even_series": self.se_even,
-            "se_ratio_vs_even": self.se_ratio_vs_even,
-            "se_across_guess": [{"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across],
-            "notes": list(self.notes),
-        })
+        out.update(
+            {
+                "criterion": self.criterion,
+                "robust": self.robust,
+                "seed": self.seed,
+                "target": self.target,
+                "efficiency_bound": self.efficiency_bound,
+                "exact_efficiency": float(self.exact.efficiency),
+                "candidates": self.n_candidates,
+                "candidates_feasible": self.n_feasible,
+                "se_target": self.se_target,
+                "se_even_series": self.se_even,
+                "se_ratio_vs_even": self.se_ratio_vs_even,
+                "se_across_guess": [
+                    {"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across
+                ],
+                "notes": list(self.notes),
+            }
+        )
         if self.model_check is not None:
             out["model_check"] = self.model_check.summary()
         return out
 
 
-def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None, robust: bool | None = None,
-           seed: int = 0, volumetric: bool = True, starts: int = 8, check_model: bool | None = None) -> Design:
+def design(
+    plan: Plan,
+    *,
+    tubes: int | None = None,
+    criterion: str | None = None,
+    robust: bool | None = None,
+    seed: int = 0,
+    volumetric: bool = True,
+    starts: int = 8,
+    check_model: bool | None = None,
+) -> Design:
     """Choose each tube's volumes to resolve the target constant as precisely as possible.
 
     Parameters
@@ -120,13 +136,30 @@ def design(plan: Plan, *, tubes: int | None = None, criterion: str | None = None
 
     The plan is compiled once (:func:`planner.jobs.compile.compile_study`); see :func:`design_study`.
     """
-    return design_study(compile_study(plan), tubes=tubes, criterion=criterion, robust=robust, seed=seed,
-                        volumetric=volumetric, starts=starts, check_model=check_model)
+    return design_study(
+        compile_study(plan),
+        tubes=tubes,
+        criterion=criterion,
+        robust=robust,
+        seed=seed,
+        volumetric=volumetric,
+        starts=starts,
+        check_model=check_model,
+    )
 
 
-def design_study(study: Study, *, tubes: int | None = None, criterion: str | None = None,
-                 robust: bool | None = None, seed: int = 0, volumetric: bool = True, starts: int = 8,
-                 check_model: bool | None = None, prior_tubes: Recipe | None = None) -> Design:
+def design_study(
+    study: Study,
+    *,
+    tubes: int | None = None,
+    criterion: str | None = None,
+    robust: bool | None = None,
+    seed: int = 0,
+    volumetric: bool = True,
+    starts: int = 8,
+    check_model: bool | None = None,
+    prior_tubes: Recipe | None = None,
+) -> Design:
     """:func:`design` on a compiled plan (``check_model`` overrides the plan's model check).
 
     ``prior_tubes`` are tubes measured before: their information (whitened rows in the same parameters
@@ -140,27 +173,36 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
     rob = study.robust if robust is None else bool(robust)
     model, params = study.model, study.params
     if params.size == 0:
-        raise DesignError("nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)")
+        raise DesignError(
+            "nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)"
+        )
     if crit == "target" and params.target < 0:
-        raise DesignError(f"the target {study.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0")
+        raise DesignError(
+            f"the target {study.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0"
+        )
     if n < params.size:
-        raise DesignError(f"{n} tubes cannot determine the {params.size} fitted parameters "
-                          f"({', '.join(params.names)}): ask for at least {params.size} tubes")
+        raise DesignError(
+            f"{n} tubes cannot determine the {params.size} fitted parameters "
+            f"({', '.join(params.names)}): ask for at least {params.size} tubes"
+        )
     nodes = study.nodes(rob)
     notes: list[str] = []
     caps: dict[str, float] = {}
     for _attempt in range(4):
         try:
-            rec, ex, ap, n_grid, n_feas, coarse, final = _solve(study, nodes, crit, n, seed, caps, volumetric,
-                                                                 starts, prior_tubes)
+            rec, ex, ap, n_grid, n_feas, coarse, final = _solve(
+                study, nodes, crit, n, seed, caps, volumetric, starts, prior_tubes
+            )
         except DesignError as exc:
             if not caps:
                 raise
             # the caps came from the stock on hand: that is what binds, not the linear range
             limits = ", ".join(f"{k} at most {v:.2f} mL per tube" for k, v in caps.items())
-            raise DesignError(f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
-                              f"{n} tubes) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
-                              f"fewer tubes") from None
+            raise DesignError(
+                f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
+                f"{n} tubes) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
+                f"fewer tubes"
+            ) from None
         if coarse:
             notes.append(coarse)
         over = _budget_overruns(study, rec)
@@ -169,11 +211,16 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
         for sid, (used, avail) in over.items():
             per_tube = max(avail, 0.0) / n
             caps[sid] = min(caps.get(sid, math.inf), per_tube)
-            notes.append(f"stock {sid}: the first design used {used:.1f} mL but only {avail:.1f} mL is usable "
-                         f"(on hand less rinse and dead volume); capped at {per_tube:.2f} mL per tube")
+            notes.append(
+                f"stock {sid}: the first design used {used:.1f} mL but only {avail:.1f} mL is usable "
+                f"(on hand less rinse and dead volume); capped at {per_tube:.2f} mL per tube"
+            )
     else:
-        raise DesignError("the stock budget cannot be met: make more of "
-                          + ", ".join(_budget_overruns(study, rec)) + " (on_hand) or use fewer tubes")
+        raise DesignError(
+            "the stock budget cannot be met: make more of "
+            + ", ".join(_budget_overruns(study, rec))
+            + " (on_hand) or use fewer tubes"
+        )
     check = None
     use_check = study.check_weight > 0 if check_model is None else bool(check_model)
     if use_check and study.alternatives and crit == "target":
@@ -195,14 +242,32 @@ def design_study(study: Study, *, tubes: int | None = None, criterion: str | Non
     if sd > 0:
         for k in (-2, -1, 0, 1, 2):
             val = float(model.log_beta[j] + k * sd)
-            sa = assess_study(study, rec, trials=0, at={t: val}, profile_chi2=False,
-                              model_check=False).target_se
-            sb = assess_study(study, even, trials=0, at={t: val}, profile_chi2=False,
-                              model_check=False).target_se
+            sa = assess_study(
+                study, rec, trials=0, at={t: val}, profile_chi2=False, model_check=False
+            ).target_se
+            sb = assess_study(
+                study, even, trials=0, at={t: val}, profile_chi2=False, model_check=False
+            ).target_se
             across.append((val, float(sa), float(sb)))
     eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
-    return Design(rec, crit, rob, seed, n_grid, n_feas, ex, ap, min(eff, 1.0), se_d, se_e, tuple(across), t,
-                  tuple(notes), a.summary(), check)
+    return Design(
+        rec,
+        crit,
+        rob,
+        seed,
+        n_grid,
+        n_feas,
+        ex,
+        ap,
+        min(eff, 1.0),
+        se_d,
+        se_e,
+        tuple(across),
+        t,
+        tuple(notes),
+        a.summary(),
+        check,
+    )
 
 
 def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts, prior=None):
@@ -214,17 +279,22 @@ def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts, prior=N
         d = len(cand.designed_ids)
         factor = int(math.ceil((cand.n_grid / MAX_CANDIDATES) ** (1.0 / d)))
         cand = candidate_tubes(study, step_mL=g.step_mL * factor, caps_mL=caps)
-        coarse_note = (f"searched a {g.step_mL * factor:g} mL grid first ({cand.n_grid} candidates), then refined "
-                       f"on the {g.step_mL:g} mL grid near the chosen tubes")
-    ex, ap, rec, n_feas, support, final = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts, prior)
+        coarse_note = (
+            f"searched a {g.step_mL * factor:g} mL grid first ({cand.n_grid} candidates), then refined "
+            f"on the {g.step_mL:g} mL grid near the chosen tubes"
+        )
+    ex, ap, rec, n_feas, support, final = _exact_on(
+        study, nodes, crit, n, seed, cand, volumetric, starts, prior
+    )
     n_grid = cand.n_grid
     if factor > 1:
         # refine on the fine grid around the chosen tubes, re-centring until the support settles
         base = cand
         for _ in range(3):
             fine = neighbourhood(study, base, support, factor, caps)
-            ex, ap, rec, n_feas, new_support, final = _exact_on(study, nodes, crit, n, seed, fine, volumetric,
-                                                                starts, prior)
+            ex, ap, rec, n_feas, new_support, final = _exact_on(
+                study, nodes, crit, n, seed, fine, volumetric, starts, prior
+            )
             n_grid = fine.n_grid
             moved = not np.array_equal(fine.recipe.volumes_mL[new_support], base.recipe.volumes_mL[support])
             base, support = fine, new_support
@@ -242,7 +312,8 @@ def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts, prio
         raise DesignError(
             f"no candidate tube keeps the absorbance inside optics.linear_range [{lo:g}, {hi:g}] over the "
             f"guess's range: use more dilute stocks or a shorter path (if too high), more concentrated stocks "
-            f"or a longer path (if too low), or widen linear_range")
+            f"or a longer path (if too low), or widen linear_range"
+        )
     idx = np.flatnonzero(ok)
     Fk = F[:, idx]
     target = params.target if crit == "target" else None
@@ -256,7 +327,8 @@ def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts, prio
             f"only {idx.size} of {cand.n_grid} candidate tubes stay inside optics.linear_range [{lo:g}, {hi:g}] "
             f"over the guess's range, and they cannot determine every fitted parameter ({exc}). Use more "
             f"dilute stocks or smaller fixed volumes if readings run high, a longer path if they run low, "
-            f"or hold more parameters fixed (rsd = 0)") from None
+            f"or hold more parameters fixed (rsd = 0)"
+        ) from None
     out = recipe_from_counts(study, cand, idx, ex.counts)
     return ex, ap, out, int(ok.sum()), idx[np.flatnonzero(ex.counts)], (cand, idx, ex.counts)
 
@@ -264,5 +336,8 @@ def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts, prio
 def _budget_overruns(study: Study, rec: Recipe) -> dict[str, tuple[float, float]]:
     """Stocks whose recipe use exceeds on_hand less rinse and dead volume: id -> (used, usable). The
     diluent fills the rest of each tube and is not capped."""
-    return {sid: (used, have - (need - used)) for sid, used, need, have in stock_shortfalls(study.bench, rec)
-            if sid != study.bench.diluent_id}
+    return {
+        sid: (used, have - (need - used))
+        for sid, used, need, have in stock_shortfalls(study.bench, rec)
+        if sid != study.bench.diluent_id
+    }

@@ -27,20 +27,33 @@ def model_check_result(det: tuple[Detection, ...]) -> Check:
     power = [d.power if np.isfinite(d.power) else d.power_noise_free for d in det]
     weak = [(d, p) for d, p in zip(det, power, strict=True) if not p >= POWER_GOAL]
     if not weak:
-        return Check("model-check", "pass", "the data would reveal " + ", ".join(
-            f"{d.alternative} ({p:.0%} of experiments)" for d, p in zip(det, power, strict=True)))
-    return Check("model-check", "warn", "if the system also formed a complex the plan leaves out, the fit "
-                 "would reveal it in only " + "; ".join(f"{p:.0%} of experiments ({d.alternative})" for d, p in weak)
-                 + f" (goal {POWER_GOAL:.0%}): spread the tubes over more compositions, or let kplan design "
-                 "guard against it")
+        return Check(
+            "model-check",
+            "pass",
+            "the data would reveal "
+            + ", ".join(f"{d.alternative} ({p:.0%} of experiments)" for d, p in zip(det, power, strict=True)),
+        )
+    return Check(
+        "model-check",
+        "warn",
+        "if the system also formed a complex the plan leaves out, the fit "
+        "would reveal it in only "
+        + "; ".join(f"{p:.0%} of experiments ({d.alternative})" for d, p in weak)
+        + f" (goal {POWER_GOAL:.0%}): spread the tubes over more compositions, or let kplan design "
+        "guard against it",
+    )
 
 
-def recipe_detection(study: Study, recipe: Recipe, rng: np.random.Generator, trials: int) -> tuple[Detection, ...]:
+def recipe_detection(
+    study: Study, recipe: Recipe, rng: np.random.Generator, trials: int
+) -> tuple[Detection, ...]:
     """Detection power of ``recipe`` against each of the study's alternatives (main model at the guess)."""
     model, params = study.model, study.params
     if not study.alternatives or params.size == 0:
         return ()
     state = expected_state(model, recipe)
     W = whitening_of(error_budget(study.bench, model, recipe, state))
-    return tuple(detection_power(study.bench, model, params, recipe, name, alt, None, rng, trials, W=W)
-                 for name, alt in study.alternatives)
+    return tuple(
+        detection_power(study.bench, model, params, recipe, name, alt, None, rng, trials, W=W)
+        for name, alt in study.alternatives
+    )

@@ -57,22 +57,37 @@ class ModelCheck:
             "se_guarded": _f(self.se_guarded),
             "se_cost_ratio": _f(self.se_cost_ratio),
             "power_goal": POWER_GOAL,
-            "alternatives": [{**g.summary(), "power_target_only": _f(t.power),
-                              "power_noise_free_target_only": _f(t.power_noise_free)}
-                             for g, t in self.detection],
+            "alternatives": [
+                {
+                    **g.summary(),
+                    "power_target_only": _f(t.power),
+                    "power_noise_free_target_only": _f(t.power_noise_free),
+                }
+                for g, t in self.detection
+            ],
         }
 
 
-def guard(study: Study, cand, idx: np.ndarray, counts: np.ndarray, target_recipe: Recipe, *,
-          volumetric: bool = True, seed: int = 0, trials: int = POWER_TRIALS,
-          prior: Recipe | None = None) -> ModelCheck:
+def guard(
+    study: Study,
+    cand,
+    idx: np.ndarray,
+    counts: np.ndarray,
+    target_recipe: Recipe,
+    *,
+    volumetric: bool = True,
+    seed: int = 0,
+    trials: int = POWER_TRIALS,
+    prior: Recipe | None = None,
+) -> ModelCheck:
     """Move tubes of the target-optimal design (``counts`` at candidates ``idx`` of ``cand``) to the
     compound criterion, and report what it bought and cost."""
     model, params = study.model, study.params
     sub = Candidates(cand.recipe.take(idx), cand.designed_ids, idx.size, cand.step_mL)
     # tubes measured before count towards precision (their misfit is not tracked)
-    F, M0, _, _, sd = rows_with_prior(study, sub, prior, study.nodes(False), "target", volumetric=volumetric,
-                                      with_sd=True)
+    F, M0, _, _, sd = rows_with_prior(
+        study, sub, prior, study.nodes(False), "target", volumetric=volumetric, with_sd=True
+    )
     F, sd = F[0, :, 0, :], sd[0]
     if M0 is not None and M0.ndim == 3:
         M0 = M0[0]
@@ -86,5 +101,6 @@ def guard(study: Study, cand, idx: np.ndarray, counts: np.ndarray, target_recipe
     se_g = assess_study(study, guarded, trials=0, profile_chi2=False, model_check=False).target_se
     det_g = recipe_detection(study, guarded, np.random.default_rng(seed), trials)
     det_t = recipe_detection(study, target_recipe, np.random.default_rng(seed), trials)
-    return ModelCheck(guarded, study.check_weight, float(se_t), float(se_g), tuple(zip(det_g, det_t, strict=True)),
-                      g.moves)
+    return ModelCheck(
+        guarded, study.check_weight, float(se_t), float(se_g), tuple(zip(det_g, det_t, strict=True)), g.moves
+    )

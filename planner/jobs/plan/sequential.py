@@ -55,8 +55,10 @@ class NextBatch:
 
         return {
             "tubes_measured": self.fit.recipe.n_tubes,
-            "fitted": [{"name": n, "estimate": f(e), "se": f(s)}
-                       for n, e, s in zip(self.fit.names, self.fit.estimate, self.fit.se, strict=True)],
+            "fitted": [
+                {"name": n, "estimate": f(e), "se": f(s)}
+                for n, e, s in zip(self.fit.names, self.fit.estimate, self.fit.se, strict=True)
+            ],
             "se_now": f(self.se_now),
             "se_after": f(self.se_after),
             "stop": self.stop,
@@ -77,14 +79,31 @@ def learned_study(study: Study, fit: Fit) -> Study:
             eps[params.index[p]], eps_rsd[params.index[p]] = est, se / est
     new_model = replace(model, log_beta=lb, log_beta_sd=lb_sd, epsilon_M_cm=eps, epsilon_rsd=eps_rsd)
     blank = bool(np.any(params.kind == 2))
-    return replace(study, model=new_model, params=free_parameters(new_model, study.target, blank_offset=blank),
-                   alternatives=tuple((n, replace(a, log_beta=np.append(lb, a.log_beta[-1]),
-                                                  epsilon_M_cm=np.append(eps, a.epsilon_M_cm[-1])))
-                                      for n, a in study.alternatives))
+    return replace(
+        study,
+        model=new_model,
+        params=free_parameters(new_model, study.target, blank_offset=blank),
+        alternatives=tuple(
+            (
+                n,
+                replace(
+                    a, log_beta=np.append(lb, a.log_beta[-1]), epsilon_M_cm=np.append(eps, a.epsilon_M_cm[-1])
+                ),
+            )
+            for n, a in study.alternatives
+        ),
+    )
 
 
-def next_batch(study: Study, readings: Readings, *, tubes: int | None = None, seed: int = 0,
-               robust: bool | None = None, check_model: bool = False) -> NextBatch:
+def next_batch(
+    study: Study,
+    readings: Readings,
+    *,
+    tubes: int | None = None,
+    seed: int = 0,
+    robust: bool | None = None,
+    check_model: bool = False,
+) -> NextBatch:
     """Fit the readings so far, update the guess, and design the next ``tubes`` (default the plan's).
 
     The model check is off by default here: the readings in hand test the model directly (the fit's χ²),
@@ -93,24 +112,48 @@ def next_batch(study: Study, readings: Readings, *, tubes: int | None = None, se
     fit = fit_study(study, readings)
     t = fit.names.index(f"log_beta[{study.target}]") if f"log_beta[{study.target}]" in fit.names else -1
     if t < 0:
-        raise RecipeError("plan", f"log_beta[{study.target}] is held fixed: nothing to learn from the readings")
+        raise RecipeError(
+            "plan", f"log_beta[{study.target}] is held fixed: nothing to learn from the readings"
+        )
     se_now = float(fit.se[t])
     if not fit.converged or not np.all(np.isfinite(fit.se)):
-        raise RecipeError("readings", "the readings so far do not determine the constants (the fit did not "
-                          "converge or its information is singular): check them with kplan fit before planning more")
+        raise RecipeError(
+            "readings",
+            "the readings so far do not determine the constants (the fit did not "
+            "converge or its information is singular): check them with kplan fit before planning more",
+        )
     learned = learned_study(study, fit)
     if se_now <= study.goal_se:
-        return NextBatch(fit, learned, None, se_now, float("nan"), True,
-                         f"SE(log β) = {se_now:.3g} already meets the goal {study.goal_se:g}: no more tubes needed")
-    d = design_study(learned, tubes=tubes, seed=seed, robust=robust, check_model=check_model,
-                     prior_tubes=readings.recipe)
-    both = concat_recipes([readings.recipe, replace(d.recipe, tubes=tuple(f"N{k + 1}" for k in range(d.recipe.n_tubes)))])
+        return NextBatch(
+            fit,
+            learned,
+            None,
+            se_now,
+            float("nan"),
+            True,
+            f"SE(log β) = {se_now:.3g} already meets the goal {study.goal_se:g}: no more tubes needed",
+        )
+    d = design_study(
+        learned, tubes=tubes, seed=seed, robust=robust, check_model=check_model, prior_tubes=readings.recipe
+    )
+    both = concat_recipes(
+        [readings.recipe, replace(d.recipe, tubes=tuple(f"N{k + 1}" for k in range(d.recipe.n_tubes)))]
+    )
     se_after = float(assess_study(learned, both, trials=0, profile_chi2=False, model_check=False).target_se)
     if se_after > (1.0 - MIN_GAIN) * se_now:
-        return NextBatch(fit, learned, d, se_now, se_after, True,
-                         f"the next {d.recipe.n_tubes} tubes would lower SE(log β) only from {se_now:.3g} to "
-                         f"{se_after:.3g}: more tubes would not help (errors every tube shares, such as the "
-                         f"stock concentrations, set the floor)")
-    reason = (f"SE(log β) {se_now:.3g} now, {se_after:.3g} expected after the next {d.recipe.n_tubes} tubes"
-              + ("" if se_after <= study.goal_se else f" (goal {study.goal_se:g}: plan another batch after)"))
+        return NextBatch(
+            fit,
+            learned,
+            d,
+            se_now,
+            se_after,
+            True,
+            f"the next {d.recipe.n_tubes} tubes would lower SE(log β) only from {se_now:.3g} to "
+            f"{se_after:.3g}: more tubes would not help (errors every tube shares, such as the "
+            f"stock concentrations, set the floor)",
+        )
+    reason = (
+        f"SE(log β) {se_now:.3g} now, {se_after:.3g} expected after the next {d.recipe.n_tubes} tubes"
+        + ("" if se_after <= study.goal_se else f" (goal {study.goal_se:g}: plan another batch after)")
+    )
     return NextBatch(fit, learned, d, se_now, se_after, False, reason)

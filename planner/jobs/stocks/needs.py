@@ -27,15 +27,26 @@ SOLVENT = "deionised water"
 # Ions of the small salt table: core (as written in plans, lower case) -> (formula group, charge, name).
 # Formula weights come from molmass, never from this table.
 _CATIONS = {
-    "h": ("H", 1, "hydrogen"), "li": ("Li", 1, "lithium"), "na": ("Na", 1, "sodium"),
-    "k": ("K", 1, "potassium"), "nh4": ("NH4", 1, "ammonium"), "mg": ("Mg", 2, "magnesium"),
+    "h": ("H", 1, "hydrogen"),
+    "li": ("Li", 1, "lithium"),
+    "na": ("Na", 1, "sodium"),
+    "k": ("K", 1, "potassium"),
+    "nh4": ("NH4", 1, "ammonium"),
+    "mg": ("Mg", 2, "magnesium"),
     "ca": ("Ca", 2, "calcium"),
 }
 _ANIONS = {
-    "cl": ("Cl", -1, "chloride"), "br": ("Br", -1, "bromide"), "no3": ("NO3", -1, "nitrate"),
-    "clo4": ("ClO4", -1, "perchlorate"), "so4": ("SO4", -2, "sulfate"), "oh": ("OH", -1, "hydroxide"),
-    "oac": ("CH3COO", -1, "acetate"), "ac": ("CH3COO", -1, "acetate"), "ch3coo": ("CH3COO", -1, "acetate"),
-    "clac": ("ClCH2COO", -1, "chloroacetate"), "clch2coo": ("ClCH2COO", -1, "chloroacetate"),
+    "cl": ("Cl", -1, "chloride"),
+    "br": ("Br", -1, "bromide"),
+    "no3": ("NO3", -1, "nitrate"),
+    "clo4": ("ClO4", -1, "perchlorate"),
+    "so4": ("SO4", -2, "sulfate"),
+    "oh": ("OH", -1, "hydroxide"),
+    "oac": ("CH3COO", -1, "acetate"),
+    "ac": ("CH3COO", -1, "acetate"),
+    "ch3coo": ("CH3COO", -1, "acetate"),
+    "clac": ("ClCH2COO", -1, "chloroacetate"),
+    "clch2coo": ("ClCH2COO", -1, "chloroacetate"),
     "hepes": ("C8H17N2O4S", -1, "HEPES"),
 }
 _AS_SOLD = {("Na", "ClO4"): "NaClO4.H2O"}
@@ -67,9 +78,15 @@ class Solute:
     mass_g: float | None = None
 
     def summary(self) -> dict:
-        return {"role": self.role, "formula": self.formula, "name": self.name, "conc_M": self.conc_M,
-                "ions": list(self.ions), "formula_weight_g_mol": self.formula_weight_g_mol,
-                "mass_g": self.mass_g}
+        return {
+            "role": self.role,
+            "formula": self.formula,
+            "name": self.name,
+            "conc_M": self.conc_M,
+            "ions": list(self.ions),
+            "formula_weight_g_mol": self.formula_weight_g_mol,
+            "mass_g": self.mass_g,
+        }
 
 
 @dataclass(frozen=True)
@@ -112,15 +129,24 @@ def _salt(cat: str, an: str) -> tuple[str, str, int, int]:
     formula = _AS_SOLD.get((cf, af), part(af, na) + part(cf, nc) if organic else part(cf, nc) + part(af, na))
     name = f"{'HEPES sodium salt' if af.startswith('C8') and cf == 'Na' else f'{cn} {anm}'}"
     if cf == "H":
-        name = {"Cl": "hydrochloric acid", "NO3": "nitric acid", "ClO4": "perchloric acid",
-                "SO4": "sulfuric acid", "CH3COO": "acetic acid"}.get(af, f"the acid of {anm}")
+        name = {
+            "Cl": "hydrochloric acid",
+            "NO3": "nitric acid",
+            "ClO4": "perchloric acid",
+            "SO4": "sulfuric acid",
+            "CH3COO": "acetic acid",
+        }.get(af, f"the acid of {anm}")
     elif af == "OH":
         name = f"{cn} hydroxide"
     return formula, name, nc, na
 
 
-def stock_solutes(components: dict[str, tuple[float, int, str]], ions: dict[str, tuple[float, int]],
-                  formula: str | None, flask_mL: float | None) -> tuple[tuple[Solute, ...], ChargeGap | None]:
+def stock_solutes(
+    components: dict[str, tuple[float, int, str]],
+    ions: dict[str, tuple[float, int]],
+    formula: str | None,
+    flask_mL: float | None,
+) -> tuple[tuple[Solute, ...], ChargeGap | None]:
     """Every solute a stock's concentrations imply, with masses for ``flask_mL``, and its charge gap.
 
     Parameters
@@ -135,11 +161,11 @@ def stock_solutes(components: dict[str, tuple[float, int, str]], ions: dict[str,
     neutral salts from a small table (K+ with NO3- → KNO3), largest amounts first; what is left of one
     sign is a charge gap, named after the ion the formula implies when it names one.
     """
-    eq = {n: c * abs(z) for n, (c, z) in ions.items()}        # charge equivalents still unassigned, mol/L
+    eq = {n: c * abs(z) for n, (c, z) in ions.items()}  # charge equivalents still unassigned, mol/L
     # amounts below this are rounding residues of the subtractions, not ions
     tol = 1e-9 * max([*eq.values(), *(c * abs(z) for c, z, _ in components.values()), 1e-12])
     out: list[Solute] = []
-    for _comp, (c, z, label) in components.items():           # at most M and L
+    for _comp, (c, z, label) in components.items():  # at most M and L
         need, taken = c * abs(z), []
         opp = [n for n, (_, zz) in ions.items() if zz * z < 0]
         named = [n for n in opp if formula and _names(formula, ion_core(n, ions[n][1]))]
@@ -156,7 +182,7 @@ def stock_solutes(components: dict[str, tuple[float, int, str]], ions: dict[str,
             eq[("-" if z > 0 else "+") + "gap"] = need
     cations = [n for n, (_, z) in ions.items() if z > 0]
     anions = [n for n, (_, z) in ions.items() if z < 0]
-    for cat in sorted(cations, key=lambda n: -eq[n]):        # a handful of ions
+    for cat in sorted(cations, key=lambda n: -eq[n]):  # a handful of ions
         for an in sorted(anions, key=lambda n: -eq[n]):
             kc, ka = ion_core(cat, ions[cat][1]), ion_core(an, ions[an][1])
             if eq[cat] <= tol or eq[an] <= tol or kc not in _CATIONS or ka not in _ANIONS:
@@ -172,7 +198,7 @@ def stock_solutes(components: dict[str, tuple[float, int, str]], ions: dict[str,
         # (one sign alone lacks its counter-ion: that is the charge gap, reported once)
         out.append(Solute("unpaired", "", "no common salt in the table", 0.0, tuple(left)))
     if not components and formula and sum(s.role == "salt" for s in out) == 1:
-        k = next(i for i, s in enumerate(out) if s.role == "salt")   # the plan names the salt it weighs
+        k = next(i for i, s in enumerate(out) if s.role == "salt")  # the plan names the salt it weighs
         out[k] = replace(out[k], formula=formula)
     if flask_mL:
         out = [_with_mass(s, flask_mL) for s in out]
@@ -194,8 +220,10 @@ def _with_mass(s: Solute, flask_mL: float) -> Solute:
 
 def _charge_gap(components, ions, eq, formula) -> ChargeGap | None:
     gaps = {k: v for k, v in eq.items() if k.endswith("gap")}
-    spare = {+1: sum(v for n, v in eq.items() if not n.endswith("gap") and ions[n][1] > 0),
-             -1: sum(v for n, v in eq.items() if not n.endswith("gap") and ions[n][1] < 0)}
+    spare = {
+        +1: sum(v for n, v in eq.items() if not n.endswith("gap") and ions[n][1] > 0),
+        -1: sum(v for n, v in eq.items() if not n.endswith("gap") and ions[n][1] < 0),
+    }
     # missing charge: a component left without counter-ion, or listed ions of one sign left over
     sign, amount = None, 0.0
     if gaps:
@@ -215,8 +243,9 @@ def _charge_gap(components, ions, eq, formula) -> ChargeGap | None:
             ion = f"{group}{'' if z == 1 else f' {z}'}{'-' if sign < 0 else '+'}"
             break
     c = amount / z
-    I_listed = 0.5 * (sum(c_ * z_ * z_ for c_, z_ in ions.values())
-                      + sum(c_ * z_ * z_ for c_, z_, _ in components.values()))
+    I_listed = 0.5 * (
+        sum(c_ * z_ * z_ for c_, z_ in ions.values()) + sum(c_ * z_ * z_ for c_, z_, _ in components.values())
+    )
     I_full = I_listed + 0.5 * c * z * z
     return ChargeGap(ion, c, 1.0 - I_listed / I_full if I_full > 0 else 0.0)
 
@@ -266,12 +295,20 @@ class StockNeed:
 
     def summary(self) -> dict:
         return {
-            "id": self.id, "label": self.label, "component": self.component,
+            "id": self.id,
+            "label": self.label,
+            "component": self.component,
             "preparation": self.preparation.summary() if self.preparation else None,
-            "problem": self.problem, "recipe_mL": self.recipe_mL, "deliveries": self.deliveries,
-            "needed_mL": self.needed_mL, "on_hand_mL": self.on_hand_mL, "enough": self.enough,
+            "problem": self.problem,
+            "recipe_mL": self.recipe_mL,
+            "deliveries": self.deliveries,
+            "needed_mL": self.needed_mL,
+            "on_hand_mL": self.on_hand_mL,
+            "enough": self.enough,
             "plan_rsd": self.plan_rsd,
-            "solutes": [x.summary() for x in self.solutes], "solvent": self.solvent, "flask_mL": self.flask_mL,
+            "solutes": [x.summary() for x in self.solutes],
+            "solvent": self.solvent,
+            "flask_mL": self.flask_mL,
             "charge_gap": self.charge_gap.summary() if self.charge_gap else None,
             "flask_label": _flask_label(self.flask_mL),
         }
@@ -299,16 +336,27 @@ def stock_needs(plan: Plan, recipe: Recipe | None = None) -> tuple[StockNeed, ..
             v = recipe.volumes_mL[:, k]
             used = float(v.sum())
             n_del = int(np.count_nonzero(v > 0))
-            need = float(stk.volume_needed_mL(used, n_del, rinse_mL=g.rinse_mL if n_del else 0.0,
-                                              dead_volume_mL=g.dead_volume_mL if n_del else 0.0))
+            need = float(
+                stk.volume_needed_mL(
+                    used,
+                    n_del,
+                    rinse_mL=g.rinse_mL if n_del else 0.0,
+                    dead_volume_mL=g.dead_volume_mL if n_del else 0.0,
+                )
+            )
         prep, problem = None, None
         if s.formula and comp is not None:
             try:
                 flask_mL = _flask_choice(s, need)
                 prep = stk.prepare_stock(
-                    s.conc[comp], flask_mL, s.formula, purity=s.purity or 1.0,
+                    s.conc[comp],
+                    flask_mL,
+                    s.formula,
+                    purity=s.purity or 1.0,
                     balance_readability_g=g.balance.readability_g,
-                    balance_repeatability_g=g.balance.repeatability_g, delta_T_C=g.delta_T_C)
+                    balance_repeatability_g=g.balance.repeatability_g,
+                    delta_T_C=g.delta_T_C,
+                )
             except (stk.StockError, GlasswareError) as exc:
                 problem = str(exc)
         flask, solutes, gap = None, (), None
@@ -316,15 +364,35 @@ def stock_needs(plan: Plan, recipe: Recipe | None = None) -> tuple[StockNeed, ..
             flask = prep.flask.capacity_mL if prep is not None else _flask_choice(s, need)
         except PlanError as exc:
             problem = problem or str(exc)
-        comps = {c: (s.conc[c], getattr(plan.components, c).charge, getattr(plan.components, c).label or c)
-                 for c in ("M", "L") if c in s.conc}
+        comps = {
+            c: (s.conc[c], getattr(plan.components, c).charge, getattr(plan.components, c).label or c)
+            for c in ("M", "L")
+            if c in s.conc
+        }
         try:
-            solutes, gap = stock_solutes(comps, {n: (c, ion_charge(n)) for n, c in s.ions.items()},
-                                         s.formula, flask)
+            solutes, gap = stock_solutes(
+                comps, {n: (c, ion_charge(n)) for n, c in s.ions.items()}, s.formula, flask
+            )
         except stk.StockError as exc:  # a formula molmass cannot read
             problem = problem or str(exc)
-        out.append(StockNeed(s.id, s.label, comp, prep, problem, used, n_del, need, s.on_hand, s.conc_rsd,
-                             solutes, SOLVENT, flask, gap))
+        out.append(
+            StockNeed(
+                s.id,
+                s.label,
+                comp,
+                prep,
+                problem,
+                used,
+                n_del,
+                need,
+                s.on_hand,
+                s.conc_rsd,
+                solutes,
+                SOLVENT,
+                flask,
+                gap,
+            )
+        )
     return tuple(out)
 
 

@@ -68,13 +68,19 @@ class TitrationDesign:
         out = dict(self.assessment_summary)
         t = self.study.bench.titration
         out["titration"] = {
-            "cell": t.cell, "titrant": self.titrant, "start_volume_mL": t.start_volume_mL,
-            "max_volume_mL": t.max_volume_mL, "additions": int(self.schedule.steps.__len__()),
+            "cell": t.cell,
+            "titrant": self.titrant,
+            "start_volume_mL": t.start_volume_mL,
+            "max_volume_mL": t.max_volume_mL,
+            "additions": int(self.schedule.steps.__len__()),
             "aliquots_mL": [float(x) for x in self.schedule.aliquot_mL],
             "added_mL": [float(x) for x in self.schedule.added_mL],
-            "se_target": f(self.se_target), "se_equal_aliquots": f(self.se_equal),
-            "se_ratio_vs_equal": f(self.se_ratio_vs_equal), "robust": self.robust,
-            "candidates": self.candidates, "candidates_feasible": self.feasible,
+            "se_target": f(self.se_target),
+            "se_equal_aliquots": f(self.se_equal),
+            "se_ratio_vs_equal": f(self.se_ratio_vs_equal),
+            "robust": self.robust,
+            "candidates": self.candidates,
+            "candidates_feasible": self.feasible,
         }
         return out
 
@@ -110,7 +116,11 @@ def equal_schedule(study: Study, additions: int | None = None) -> Schedule:
 
 def _with_titrant(study: Study, sid: str) -> Study:
     t = study.bench.titration
-    return study if sid == t.titrant else replace(study, bench=replace(study.bench, titration=replace(t, titrant=sid)))
+    return (
+        study
+        if sid == t.titrant
+        else replace(study, bench=replace(study.bench, titration=replace(t, titrant=sid)))
+    )
 
 
 def _titrant_options(study: Study) -> list[str]:
@@ -157,14 +167,16 @@ def _score(study: Study, schedules: list[np.ndarray], robust: bool) -> tuple[np.
     """Mean log SE over the prior nodes (inf where infeasible) and the SE at the guess, per schedule."""
     model, params = study.model, study.params
     lo, hi = model.linear_range
-    recipes = [titration_recipe(study.bench, Schedule(tuple(str(k + 1) for k in range(v.size)), v))
-               for v in schedules]
+    recipes = [
+        titration_recipe(study.bench, Schedule(tuple(str(k + 1) for k in range(v.size)), v))
+        for v in schedules
+    ]
     S, n = len(recipes), recipes[0].n_tubes
     tot = np.stack([(r.volumes_mL @ model.stock_conc_M) / r.total_volume_mL[:, None] for r in recipes])
     ions = np.stack([tube_ions_M(model, r.volumes_mL, r.total_volume_mL) for r in recipes])
     nodes = study.nodes(robust)
     G = nodes.theta.shape[0]
-    theta = np.repeat(nodes.theta, S, axis=0)                                    # (G·S, P): node-major
+    theta = np.repeat(nodes.theta, S, axis=0)  # (G·S, P): node-major
     reading = ReadingModel(model, params, np.tile(tot, (G, 1, 1)), np.tile(ions, (G, 1, 1)))
     A = reading.f(theta).reshape(G, S, n)
     J = reading.jac(theta).reshape(G, S, n, params.size)
@@ -184,7 +196,9 @@ def _score(study: Study, schedules: list[np.ndarray], robust: bool) -> tuple[np.
     return nodes.weights @ np.where(np.isfinite(log_se), log_se, 1e6), np.exp(log_se[centre])
 
 
-def design_titration(study: Study, *, additions: int | None = None, robust: bool | None = None) -> TitrationDesign:
+def design_titration(
+    study: Study, *, additions: int | None = None, robust: bool | None = None
+) -> TitrationDesign:
     """Choose the aliquot schedule (and titrant stock) that resolves the target constant best."""
     t = study.bench.titration
     if t is None:
@@ -193,7 +207,9 @@ def design_titration(study: Study, *, additions: int | None = None, robust: bool
         raise RecipeError("design.target", f"the target {study.target} is held fixed (log_beta_sd = 0)")
     n = int(additions or t.additions)
     if n < study.params.size:
-        raise RecipeError("titration.additions", f"{n} additions cannot determine {study.params.size} parameters")
+        raise RecipeError(
+            "titration.additions", f"{n} additions cannot determine {study.params.size} parameters"
+        )
     rob = study.robust if robust is None else bool(robust)
     best = None
     n_cand = n_feas = 0
@@ -210,18 +226,34 @@ def design_titration(study: Study, *, additions: int | None = None, robust: bool
             best = (crit[k], st, cands[k], float(se0[k]))
     if best is None:
         lo, hi = study.model.linear_range
-        raise RecipeError("titration", f"no aliquot schedule keeps every reading inside the linear range "
-                          f"[{lo:g}, {hi:g}] over the guess's range: change the cell's or the titrant's "
-                          f"concentration, the start volume or the path")
+        raise RecipeError(
+            "titration",
+            f"no aliquot schedule keeps every reading inside the linear range "
+            f"[{lo:g}, {hi:g}] over the guess's range: change the cell's or the titrant's "
+            f"concentration, the start volume or the path",
+        )
     _, st, v, se = best
     sched = Schedule(tuple(str(k + 1) for k in range(v.size)), v)
     rec = titration_recipe(st.bench, sched)
     a = assess_study(st, rec, trials=0, model_check=False)
     eq = equal_schedule(st, n)
     try:
-        se_eq = float(assess_study(st, titration_recipe(st.bench, eq), trials=0, profile_chi2=False,
-                                   model_check=False).target_se)
+        se_eq = float(
+            assess_study(
+                st, titration_recipe(st.bench, eq), trials=0, profile_chi2=False, model_check=False
+            ).target_se
+        )
     except RecipeError:
         se_eq = float("nan")
-    return TitrationDesign(sched, rec, st.bench.titration.titrant, float(a.target_se), se_eq, rob, n_cand, n_feas,
-                           st, a.summary())
+    return TitrationDesign(
+        sched,
+        rec,
+        st.bench.titration.titrant,
+        float(a.target_se),
+        se_eq,
+        rob,
+        n_cand,
+        n_feas,
+        st,
+        a.summary(),
+    )

@@ -61,25 +61,31 @@ stocks = ["MS", "LS"]
 
 
 def species(*items: tuple[str, int, int, float, float]) -> str:
-    return "\n".join(f'[[species]]\nname = "{n}"\nformula = {{ M = {p}, L = {q} }}\nlog_beta = {lb}\n'
-                     f"log_beta_sd = {sd}" for n, p, q, lb, sd in items)
+    return "\n".join(
+        f'[[species]]\nname = "{n}"\nformula = {{ M = {p}, L = {q} }}\nlog_beta = {lb}\nlog_beta_sd = {sd}'
+        for n, p, q, lb, sd in items
+    )
 
 
 def make_plan(spec: str, eps: str, cM: str = "2.0 mM", cL: str = "2.0 mM"):
     return parse_plan_text(PLAN.format(species=spec, epsilon=eps, cM=cM, cL=cL))
 
 
-
 def strict_json(text: str):
     def bad(name):
         raise ValueError(f"non-standard JSON constant {name}")
+
     return json.loads(text, parse_constant=bad)
 
 
 # -- Job's method ---------------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("n", [1, 2, 3])
-@pytest.mark.parametrize("eps", ['X = {{ value = 800.0 }}', 'X = {{ value = 3000.0 }}\nL = {{ value = 400.0 }}\nM = {{ value = 50.0 }}'])
+@pytest.mark.parametrize(
+    "eps",
+    ["X = {{ value = 800.0 }}", "X = {{ value = 3000.0 }}\nL = {{ value = 400.0 }}\nM = {{ value = 50.0 }}"],
+)
 def test_job_extremum_at_one_over_n_plus_one(n, eps):
     # source: Job 1928, Ann. Chim. 9:113 — a single ML_n puts the extremum at x_M = 1/(n+1); with the free
     # reagents' absorbance subtracted (corrected Y) this holds for any ε
@@ -94,14 +100,16 @@ def test_job_extremum_moves_to_half_as_concentration_falls_for_stepwise_ml2():
     # derived: with ML and ML2 (stepwise K1, K2), at low C [ML] ≈ K1·M0·L0 and [ML2]/[ML] ≈ K2·L0 → 0, so
     # Y ∝ x(1 − x) and the extremum → 0.5; as C rises ML2 takes over on the ligand side and the extremum moves
     # toward 1/3 (a single ML2 keeps it at 1/3 for every K: the shift needs both complexes)
-    plan = make_plan(species(("ML", 1, 1, 4.0, 0.3), ("ML2", 1, 2, 8.0, 0.3)),
-                     "ML = { value = 500.0 }\nML2 = { value = 1500.0 }")
+    plan = make_plan(
+        species(("ML", 1, 1, 4.0, 0.3), ("ML2", 1, 2, 8.0, 0.3)),
+        "ML = { value = 500.0 }\nML2 = { value = 1500.0 }",
+    )
     model = plan_model(plan)
     totals = [1e-1, 1e-2, 1e-3, 1e-4, 1e-5, 1e-6]
     xs = [job.extremum_at(model, c) for c in totals]
-    assert np.all(np.diff(xs) >= -1e-4)                         # moves toward 0.5 as C falls
-    assert xs[-1] == pytest.approx(0.5, abs=0.01)                # derived limit K·C → 0
-    assert xs[0] < 0.36                                         # near 1/3 when ML2 dominates (derived)
+    assert np.all(np.diff(xs) >= -1e-4)  # moves toward 0.5 as C falls
+    assert xs[-1] == pytest.approx(0.5, abs=0.01)  # derived limit K·C → 0
+    assert xs[0] < 0.36  # near 1/3 when ML2 dominates (derived)
 
 
 def test_job_single_ml2_keeps_one_third_when_weak():
@@ -116,13 +124,13 @@ def test_job_series_on_grid_with_rivals_separated():
     r = job.continuous_variation(plan, points=9)
     s = r.summary()
     vols = r.recipe.volumes_mL[:, :2]
-    assert np.allclose(np.round(vols / 0.05), vols / 0.05)                    # on the 0.05 mL grid
-    assert np.ptp(vols.sum(axis=1)) < 1e-9                                    # constant total
-    assert s["extremum_mole_fraction"] == pytest.approx(0.5, abs=0.01)        # source: Job 1928
+    assert np.allclose(np.round(vols / 0.05), vols / 0.05)  # on the 0.05 mL grid
+    assert np.ptp(vols.sum(axis=1)) < 1e-9  # constant total
+    assert s["extremum_mole_fraction"] == pytest.approx(0.5, abs=0.01)  # source: Job 1928
     seps = {d["model"]: d["separation_sd"] for d in s["discrimination"]}
     assert set(seps) == {"1:2", "2:1", "1:1+1:2"}
-    assert seps["1:2"] > 10 and seps["2:1"] > 10                              # a sharp 1:1 triangle
-    assert max(t["absorbance"] for t in s["tubes"]) <= 1.2                    # default total stays in range
+    assert seps["1:2"] > 10 and seps["2:1"] > 10  # a sharp 1:1 triangle
+    assert max(t["absorbance"] for t in s["tubes"]) <= 1.2  # default total stays in range
 
 
 def test_rival_fit_recovers_own_model():
@@ -141,8 +149,15 @@ def test_rival_fit_recovers_own_model():
 
 def test_job_needs_equimolar_stocks_exit_2(tmp_path, capsys, monkeypatch):
     plan = tmp_path / "p.toml"
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 5.0, 0.3)), epsilon="ML = { value = 900.0 }",
-                                   cM="2.0 mM", cL="4.0 mM"))
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 5.0, 0.3)),
+            epsilon="ML = { value = 900.0 }",
+            cM="2.0 mM",
+            cL="4.0 mM",
+        ),
+    )
     code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "job")
     assert code == 2 and "equimolar" in err and "dilute LS" in err and "50.00 mL" in err
     assert len(err.strip().splitlines()) == 1
@@ -152,9 +167,18 @@ def test_job_needs_equimolar_stocks_exit_2(tmp_path, capsys, monkeypatch):
 
 def test_job_cli_writes_recipe_that_assess_accepts(tmp_path, capsys, monkeypatch):
     plan = tmp_path / "p.toml"
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 6.0, 0.3)),
-                                   epsilon="ML = { value = 1000.0, rsd = 0.2 }", cM="2.0 mM", cL="2.0 mM"))
-    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--out", tmp_path / "o", "--json")
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 6.0, 0.3)),
+            epsilon="ML = { value = 1000.0, rsd = 0.2 }",
+            cM="2.0 mM",
+            cL="2.0 mM",
+        ),
+    )
+    code, out, err = run(
+        capsys, monkeypatch, "series", plan, "--method", "job", "--out", tmp_path / "o", "--json"
+    )
     data = strict_json(out)
     assert code == (0 if data["answers"] else 1), err
     assert data["method"] == "job" and len(data["tubes"]) == 9
@@ -168,8 +192,15 @@ def test_job_cli_writes_recipe_that_assess_accepts(tmp_path, capsys, monkeypatch
 
 def test_series_bad_method_and_total_exit_2(tmp_path, capsys, monkeypatch):
     plan = tmp_path / "p.toml"
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 6.0, 0.3)), epsilon="ML = { value = 1000.0 }",
-                                   cM="2.0 mM", cL="2.0 mM"))
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 6.0, 0.3)),
+            epsilon="ML = { value = 1000.0 }",
+            cM="2.0 mM",
+            cL="2.0 mM",
+        ),
+    )
     code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "nope")
     assert code == 2 and "--method" in err
     code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--total", "3 furlongs")
@@ -180,9 +211,14 @@ def test_series_bad_method_and_total_exit_2(tmp_path, capsys, monkeypatch):
 
 # -- the "complete conversion" calibration tube ------------------------------------------------------
 
+
 def weak_plan(log_k: float = 2.5, sd: float = 0.2, cM: str = "0.5 M"):
-    return make_plan(species(("ML", 1, 1, log_k, sd)), "ML = { value = 1000.0, rsd = 0.1 }\nM = { value = 1.0 }",
-                     cM=cM, cL="2 mM")
+    return make_plan(
+        species(("ML", 1, 1, log_k, sd)),
+        "ML = { value = 1000.0, rsd = 0.1 }\nM = { value = 1.0 }",
+        cM=cM,
+        cL="2 mM",
+    )
 
 
 def test_fraction_converted_matches_closed_form():
@@ -197,8 +233,9 @@ def test_fraction_converted_matches_closed_form():
     assert calibration.fraction_converted_1to1(M0, L0, K) == pytest.approx(f, rel=1e-12)
     # the worst case is the weak end of the guess's range, log K − 2 sd (derived: f rises with K)
     K_lo = 10 ** (2.5 - 2 * 0.2)
-    assert s["fraction_converted"]["worst"] == pytest.approx(calibration.fraction_converted_1to1(M0, L0, K_lo),
-                                                             rel=1e-6)
+    assert s["fraction_converted"]["worst"] == pytest.approx(
+        calibration.fraction_converted_1to1(M0, L0, K_lo), rel=1e-6
+    )
 
 
 def test_excess_needed_over_the_guess_range_closed_form():
@@ -215,17 +252,18 @@ def test_excess_needed_over_the_guess_range_closed_form():
 def test_domain_worked_case_and_hand_bias():
     # domain notes §5 (derived there from the 1:1 formula): K = 140 M⁻¹ with 0.1 M excess metal converts ~93 %
     f = calibration.fraction_converted_1to1(0.1, 1e-5, 140.0)
-    assert f == pytest.approx(14 / 15, abs=2e-4)                 # derived: K·x/(1 + K·x) in the excess limit
+    assert f == pytest.approx(14 / 15, abs=2e-4)  # derived: K·x/(1 + K·x) in the excess limit
     b = calibration._hand_bias(f)
-    assert b["epsilon"] == pytest.approx(f - 1)                  # derived: ε_hand = f·ε
-    assert b["K_dilute"] == pytest.approx(1 / f - 1)             # derived: K_hand/K → 1/f as y → 0
+    assert b["epsilon"] == pytest.approx(f - 1)  # derived: ε_hand = f·ε
+    assert b["K_dilute"] == pytest.approx(1 / f - 1)  # derived: K_hand/K → 1/f as y → 0
     y = 0.2
     assert (1 - y) / (f - y) - 1 == pytest.approx(0.09, abs=0.01)  # "about +9 %" [domain notes §5, derived]
 
 
 def test_calibration_strong_complex_answers_and_weak_one_does_not(tmp_path, capsys, monkeypatch):
-    strong = make_plan(species(("ML", 1, 1, 6.0, 0.3)), "ML = { value = 1000.0, rsd = 0.1 }",
-                       cM="20 mM", cL="2 mM")
+    strong = make_plan(
+        species(("ML", 1, 1, 6.0, 0.3)), "ML = { value = 1000.0, rsd = 0.1 }", cM="20 mM", cL="2 mM"
+    )
     r = calibration.conversion_tube(strong)
     assert r.answers and r.summary()["fraction_converted"]["worst"] >= 0.99
     weak = calibration.conversion_tube(weak_plan(log_k=1.5, sd=0.3, cM="0.1 M"))
@@ -233,10 +271,18 @@ def test_calibration_strong_complex_answers_and_weak_one_does_not(tmp_path, caps
     ids = {c.id: c for c in weak.checks}
     assert ids["conversion"].status == "fail" and "global" in ids["global-fit"].message
     plan = tmp_path / "w.toml"
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 1.5, 0.3)),
-                                   epsilon="ML = { value = 1000.0 }\nM = { value = 1.0 }", cM="0.1 M", cL="2 mM"))
-    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "calibration", "--json",
-                         "--out", tmp_path / "c")
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 1.5, 0.3)),
+            epsilon="ML = { value = 1000.0 }\nM = { value = 1.0 }",
+            cM="0.1 M",
+            cL="2 mM",
+        ),
+    )
+    code, out, err = run(
+        capsys, monkeypatch, "series", plan, "--method", "calibration", "--json", "--out", tmp_path / "c"
+    )
     data = strict_json(out)
     assert code == 1 and data["method"] == "calibration"
     assert set(data["excess_needed_M"]) == {"0.99", "0.999"} and "fraction_converted" in data
@@ -248,11 +294,16 @@ def test_calibration_strong_complex_answers_and_weak_one_does_not(tmp_path, caps
 
 # -- mole-ratio -------------------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("name,q,log_beta", [("ML", 1, 7.0), ("ML2", 2, 13.0)])
 def test_mole_ratio_break_at_stoichiometric_ratio_for_strong_k(name, q, log_beta):
     # source: the mole-ratio method's premise — for a strong complex ML_q the two lines meet at L/M = q
-    plan = make_plan(species((name, 1, q, log_beta, 0.2)), f"{name} = {{ value = 1000.0 }}\nL = {{ value = 30.0 }}",
-                     cM="2 mM", cL=f"{2 * q} mM")
+    plan = make_plan(
+        species((name, 1, q, log_beta, 0.2)),
+        f"{name} = {{ value = 1000.0 }}\nL = {{ value = 30.0 }}",
+        cM="2 mM",
+        cL=f"{2 * q} mM",
+    )
     s = mole_ratio.mole_ratio_series(plan).summary()
     assert s["break_ratio"] == pytest.approx(q, rel=0.02)
     assert s["break_ratio_expected"] == q and s["resolvable"] is True and s["answers"] is True
@@ -266,7 +317,7 @@ def test_mole_ratio_shortfall_matches_one_over_sqrt_kc():
     K, C = 10**5.0, 1e-3
     plan = make_plan(species(("ML", 1, 1, 5.0, 0.2)), "ML = { value = 1000.0 }")
     model = plan_model(plan)
-    rf = np.linspace(0, 50, 50001)         # far past the break: the end tangent is the plateau
+    rf = np.linspace(0, 50, 50001)  # far past the break: the end tangent is the plateau
     tot = np.stack([np.full(rf.size, C), rf * C], axis=1)
     yf = common.corrected(model, predict(model, tot, warn=False))
     frac, _ = mole_ratio._shortfall(rf, yf, 1.0, 0.001)
@@ -288,10 +339,28 @@ def test_mole_ratio_weak_complex_not_resolvable_and_concentration_offered():
 
 def test_mole_ratio_cli_reverse_and_recipe(tmp_path, capsys, monkeypatch):
     plan = tmp_path / "p.toml"
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 7.0, 0.3)), epsilon="ML = { value = 1000.0 }",
-                                   cM="2.0 mM", cL="2.0 mM"))
-    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "mole-ratio", "--vary", "M", "--json",
-                         "--out", tmp_path / "m")
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 7.0, 0.3)),
+            epsilon="ML = { value = 1000.0 }",
+            cM="2.0 mM",
+            cL="2.0 mM",
+        ),
+    )
+    code, out, err = run(
+        capsys,
+        monkeypatch,
+        "series",
+        plan,
+        "--method",
+        "mole-ratio",
+        "--vary",
+        "M",
+        "--json",
+        "--out",
+        tmp_path / "m",
+    )
     data = strict_json(out)
     assert code == 0, err
     assert data["fixed_reagent"] == "L" and data["break_ratio"] == pytest.approx(1.0, rel=0.02)
@@ -303,9 +372,12 @@ def test_mole_ratio_cli_reverse_and_recipe(tmp_path, capsys, monkeypatch):
 
 # -- wavelength survey --------------------------------------------------------------------------------
 
+
 def band_plan(extra_bands: str = "", eps_ml: float = 1500.0):
-    eps = (f"ML = {{ value = {eps_ml}, rsd = 0.2 }}\n[optics.bands]\n"
-           f"ML = {{ peak_nm = 520, fwhm_nm = 100, epsilon_max = {eps_ml} }}\n" + extra_bands)
+    eps = (
+        f"ML = {{ value = {eps_ml}, rsd = 0.2 }}\n[optics.bands]\n"
+        f"ML = {{ peak_nm = 520, fwhm_nm = 100, epsilon_max = {eps_ml} }}\n" + extra_bands
+    )
     return make_plan(species(("ML", 1, 1, 3.0, 0.3)), eps, cM="2 mM", cL="20 mM")
 
 
@@ -322,7 +394,7 @@ def test_survey_picks_band_maximum_when_readings_are_small():
 def test_survey_moves_away_from_a_free_ligand_band():
     # derived: a free ligand absorbing on the short side adds readings (noise) without information about K,
     # and pushes the tubes out of the linear range there, so the best wavelength moves to the long side
-    r = survey.wavelength_survey(band_plan('L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n'))
+    r = survey.wavelength_survey(band_plan("L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n"))
     s = r.summary()
     assert s["wavelength_nm"] > 525
     best = min((d for d in s["se_by_wavelength"] if d["in_range"]), key=lambda d: d["se"])
@@ -331,19 +403,41 @@ def test_survey_moves_away_from_a_free_ligand_band():
 
 def test_survey_without_bands_exit_2_and_cli_json(tmp_path, capsys, monkeypatch):
     plan = tmp_path / "p.toml"
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 3.0, 0.3)), epsilon="ML = { value = 150.0 }",
-                                   cM="2 mM", cL="20 mM"))
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 3.0, 0.3)), epsilon="ML = { value = 150.0 }", cM="2 mM", cL="20 mM"
+        ),
+    )
     code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "survey")
     assert code == 2 and "optics.bands" in err and len(err.strip().splitlines()) == 1
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 3.0, 0.3)), cM="2 mM", cL="20 mM",
-                                   epsilon="ML = { value = 1500.0, rsd = 0.2 }\n[optics.bands]\n"
-                                           "ML = { peak_nm = 520, fwhm_nm = 100, epsilon_max = 1500.0 }"))
-    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "survey", "--json", "--out", tmp_path / "s")
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 3.0, 0.3)),
+            cM="2 mM",
+            cL="20 mM",
+            epsilon="ML = { value = 1500.0, rsd = 0.2 }\n[optics.bands]\n"
+            "ML = { peak_nm = 520, fwhm_nm = 100, epsilon_max = 1500.0 }",
+        ),
+    )
+    code, out, err = run(
+        capsys, monkeypatch, "series", plan, "--method", "survey", "--json", "--out", tmp_path / "s"
+    )
     data = strict_json(out)
     assert code == 0, err
     assert data["method"] == "survey" and data["se_by_wavelength"] and "wavelength_nm" in data
-    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "survey", "--recipe",
-                         tmp_path / "s" / "recipe.csv", "--json")
+    code, out, err = run(
+        capsys,
+        monkeypatch,
+        "series",
+        plan,
+        "--method",
+        "survey",
+        "--recipe",
+        tmp_path / "s" / "recipe.csv",
+        "--json",
+    )
     assert code == 0 and strict_json(out)["wavelength_nm"] == data["wavelength_nm"]
     code, _, err = run(capsys, monkeypatch, "assess", plan, tmp_path / "s" / "recipe.csv", "--trials", "0")
     assert code in (0, 1), err  # accepted (1: it does not resolve K on its own, as a series need not)
@@ -355,7 +449,7 @@ def test_survey_se_equals_one_cramer_rao_per_wavelength():
     from planner.inference.precision import ReadingModel, cramer_rao, free_parameters, pack
     from planner.jobs.compile import error_budget
 
-    plan = band_plan('L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n')
+    plan = band_plan("L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n")
     model = plan_model(plan)
     recipe = survey.even_series(plan)
     lam = np.array([480.0, 520.0, 575.0])
@@ -367,8 +461,9 @@ def test_survey_se_equals_one_cramer_rao_per_wavelength():
         st = common.predict_volumes(m, recipe.volumes_mL, recipe.total_volume_mL)
         cov = error_budget(p, m, recipe, st).total
         params = free_parameters(m, p.target, blank_offset=p.design.blank_offset)
-        reading = ReadingModel(m, params, st.totals_M, tube_ions_M(m, recipe.volumes_mL,
-                                                                          recipe.total_volume_mL))
+        reading = ReadingModel(
+            m, params, st.totals_M, tube_ions_M(m, recipe.volumes_mL, recipe.total_volume_mL)
+        )
         cr = cramer_rao(reading.jac(pack(m, params)[None, :])[0], cov)
         assert ours[k] == pytest.approx(cr.se[params.target], rel=1e-9)
 
@@ -376,7 +471,9 @@ def test_survey_se_equals_one_cramer_rao_per_wavelength():
 def test_job_total_offered_does_separate():
     # the total the search offers, planned again, separates the non-nested rivals by ≥ 3 sd (derived: the
     # search and the verdict use the same fit; 10 % margin for the volume grid)
-    plan = make_plan(species(("ML", 1, 1, 3.0, 0.3)), "ML = { value = 1000.0, rsd = 0.2 }", cM="0.2 mM", cL="0.2 mM")
+    plan = make_plan(
+        species(("ML", 1, 1, 3.0, 0.3)), "ML = { value = 1000.0, rsd = 0.2 }", cM="0.2 mM", cL="0.2 mM"
+    )
     s = job.continuous_variation(plan, total_M=1e-4).summary()
     assert any(d["separation_sd"] < rv.SEPARATION_WANTED and not d["nested"] for d in s["discrimination"])
     need = s["total_needed_M"]
@@ -387,23 +484,50 @@ def test_job_total_offered_does_separate():
 
 def test_option_of_another_method_exit_2(tmp_path, capsys, monkeypatch):
     plan = tmp_path / "p.toml"
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 6.0, 0.3)), epsilon="ML = { value = 1000.0 }",
-                                   cM="2.0 mM", cL="2.0 mM"))
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 6.0, 0.3)),
+            epsilon="ML = { value = 1000.0 }",
+            cM="2.0 mM",
+            cL="2.0 mM",
+        ),
+    )
     code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--vary", "M")
     assert code == 2 and "--vary applies to --method mole-ratio" in err
 
 
 def test_series_recipes_feed_sheet_and_report(tmp_path, capsys, monkeypatch):
     plan = tmp_path / "p.toml"
-    write_atomic(plan, PLAN.format(species=species(("ML", 1, 1, 5.0, 0.3)),
-                                   epsilon="ML = { value = 1000.0, rsd = 0.2 }\nM = { value = 2.0 }",
-                                   cM="20 mM", cL="2 mM"))
-    code, _, err = run(capsys, monkeypatch, "series", plan, "--method", "calibration", "--out", tmp_path / "c")
+    write_atomic(
+        plan,
+        PLAN.format(
+            species=species(("ML", 1, 1, 5.0, 0.3)),
+            epsilon="ML = { value = 1000.0, rsd = 0.2 }\nM = { value = 2.0 }",
+            cM="20 mM",
+            cL="2 mM",
+        ),
+    )
+    code, _, err = run(
+        capsys, monkeypatch, "series", plan, "--method", "calibration", "--out", tmp_path / "c"
+    )
     assert code in (0, 1), err
     recipe = tmp_path / "c" / "recipe.csv"
-    code, _, err = run(capsys, monkeypatch, "sheet", plan, recipe, "--html", "--out", tmp_path / "c" / "prep.html",
-                       "--trials", "0")
+    code, _, err = run(
+        capsys,
+        monkeypatch,
+        "sheet",
+        plan,
+        recipe,
+        "--html",
+        "--out",
+        tmp_path / "c" / "prep.html",
+        "--trials",
+        "0",
+    )
     assert code == 0, err
-    code, _, err = run(capsys, monkeypatch, "report", plan, recipe, "--html", "--out", tmp_path / "c" / "r.html")
+    code, _, err = run(
+        capsys, monkeypatch, "report", plan, recipe, "--html", "--out", tmp_path / "c" / "r.html"
+    )
     assert code == 0, err
     assert (tmp_path / "c" / "prep.html").is_file() and (tmp_path / "c" / "r.html").is_file()

@@ -87,12 +87,21 @@ def test_pooled_of_one_student_is_the_assessment(study, cset):
 def test_pooled_at_one_bench_is_the_assessment_of_all_tubes(study, cset):
     # derived: one bench shares its dispensers and the stocks; the class's tubes then form one recipe
     recs = [c.recipe for c in cset.cards]
-    big = Recipe(tuple(f"x{i}" for i in range(sum(r.n_tubes for r in recs))), recs[0].stock_ids,
-                 np.concatenate([r.volumes_mL for r in recs]), np.concatenate([r.total_volume_mL for r in recs]))
+    big = Recipe(
+        tuple(f"x{i}" for i in range(sum(r.n_tubes for r in recs))),
+        recs[0].stock_ids,
+        np.concatenate([r.volumes_mL for r in recs]),
+        np.concatenate([r.total_volume_mL for r in recs]),
+    )
     rows = recipe_rows(study, big, Nodes(study.params.guess[None, :].copy(), np.ones(1)))
     N, n = len(recs), recs[0].n_tubes
-    se = pooled_target_se(rows.theta[0].reshape(N, n, -1)[None][0], rows.stock[0].reshape(N, n, -1),
-                          rows.device[0].reshape(N, n, -1), np.zeros(N, dtype=int), study.params.target)
+    se = pooled_target_se(
+        rows.theta[0].reshape(N, n, -1)[None][0],
+        rows.stock[0].reshape(N, n, -1),
+        rows.device[0].reshape(N, n, -1),
+        np.zeros(N, dtype=int),
+        study.params.target,
+    )
     a = assess_study(study, big, trials=0, profile_chi2=False)
     assert se == pytest.approx(a.target_se, rel=1e-6)
 

@@ -40,9 +40,18 @@ def make_class(study, plan, kinds, seed=0):
         sid = f"S{k:02d}"
         x, _, _ = inject(study, rec, kind, rng)
         for i, t in enumerate(rec.tubes):
-            kw.writerow([sid, f"Student {k}", "A" if k % 2 else "B", t, *(f"{rec.column(s)[i]:.2f}" for s in dispensed),
-                         f"{a.state.absorbance[i]:.4f}", f"{a.state.absorbance[i] - 2 * sd[i]:.4f}",
-                         f"{a.state.absorbance[i] + 2 * sd[i]:.4f}"])
+            kw.writerow(
+                [
+                    sid,
+                    f"Student {k}",
+                    "A" if k % 2 else "B",
+                    t,
+                    *(f"{rec.column(s)[i]:.2f}" for s in dispensed),
+                    f"{a.state.absorbance[i]:.4f}",
+                    f"{a.state.absorbance[i] - 2 * sd[i]:.4f}",
+                    f"{a.state.absorbance[i] + 2 * sd[i]:.4f}",
+                ]
+            )
             rw.writerow([sid, t, f"{x[i]:.4f}"])
     return key.getvalue(), res.getvalue()
 
@@ -105,9 +114,21 @@ def test_grade_command_writes_the_grade_book(tmp_path, capsys, monkeypatch):
     (tmp_path / "results.csv").write_text(res, encoding="utf-8")
     outs = []
     for run in range(2):
-        monkeypatch.setattr(sys, "argv", ["kplan", "grade", str(tmp_path / "plan.toml"), str(keydir),
-                                          str(tmp_path / "results.csv"), "--json", "--out", str(tmp_path / f"o{run}"),
-                                          "--html"])
+        monkeypatch.setattr(
+            sys,
+            "argv",
+            [
+                "kplan",
+                "grade",
+                str(tmp_path / "plan.toml"),
+                str(keydir),
+                str(tmp_path / "results.csv"),
+                "--json",
+                "--out",
+                str(tmp_path / f"o{run}"),
+                "--html",
+            ],
+        )
         try:
             cli.main()
         except SystemExit as exc:

@@ -48,8 +48,9 @@ def test_injected_slips_are_recovered(setup, kind):
 def test_clean_readings_are_unexplained(setup):
     study, recipe = setup
     rng = np.random.default_rng(12)
-    explained = sum(diagnose(study, recipe, inject(study, recipe, None, rng)[0]).best is not None
-                    for _ in range(40))
+    explained = sum(
+        diagnose(study, recipe, inject(study, recipe, None, rng)[0]).best is not None for _ in range(40)
+    )
     assert explained <= 2
     d = diagnose(study, recipe, inject(study, recipe, None, rng)[0])
     assert d.summary()["explanation"] == "unexplained"

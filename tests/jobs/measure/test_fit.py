@@ -13,7 +13,9 @@ from planner.jobs.measure.fit import fit_readings
 
 
 def _recipe(plan):
-    return make_recipe(plan, {"CU": np.full(8, 1.0), "DY": np.array([0.5, 0.75, 1.0, 1.5, 2.0, 2.5, 3.0, 3.5])})
+    return make_recipe(
+        plan, {"CU": np.full(8, 1.0), "DY": np.array([0.5, 0.75, 1.0, 1.5, 2.0, 2.5, 3.0, 3.5])}
+    )
 
 
 def test_fit_recovers_a_different_truth(teaching_plan):

@@ -28,8 +28,17 @@ def _readings(plan, log_beta=3.3, seed=4, noise=True):
     st = compile_study(plan)
     lb = st.model.log_beta.copy()
     lb[0] = log_beta
-    sim = simulate(st.bench, st.model, r, np.random.default_rng(seed), 1, log_beta=lb, photometric=noise,
-                   delivery=noise, stock=noise)
+    sim = simulate(
+        st.bench,
+        st.model,
+        r,
+        np.random.default_rng(seed),
+        1,
+        log_beta=lb,
+        photometric=noise,
+        delivery=noise,
+        stock=noise,
+    )
     return Readings(r, sim.absorbance[0].copy())
 
 
@@ -89,8 +98,13 @@ def test_profile_interval_brackets_the_estimate_like_the_se(plan):
 def test_decimal_comma_semicolon_file_reads_the_same(plan):
     rd = _readings(plan)
     lines = recipe_to_csv(rd.recipe, plan).splitlines()
-    comma = "\n".join([lines[0] + ",absorbance,note"]
-                      + [f"{ln},{a:.4f},ok" for ln, a in zip(lines[1:], rd.absorbance, strict=True)]) + "\n"
+    comma = (
+        "\n".join(
+            [lines[0] + ",absorbance,note"]
+            + [f"{ln},{a:.4f},ok" for ln, a in zip(lines[1:], rd.absorbance, strict=True)]
+        )
+        + "\n"
+    )
     semi = comma.replace(",", ";").replace(".", ",")
     a = parse_readings_csv(comma, plan)
     b = parse_readings_csv(semi, plan)

@@ -16,14 +16,24 @@ from planner.jobs.plan.even import even_series
 from ...conftest import scenario_text
 
 BASELINE_KEYS = {"title", "verdict", "parameters", "tubes", "checks"}
-TUBE_KEYS = {"tube", "volumes_mL", "total_M", "species_M", "absorbance", "absorbance_sd", "saturation",
-             "ionic_strength_M"}
+TUBE_KEYS = {
+    "tube",
+    "volumes_mL",
+    "total_M",
+    "species_M",
+    "absorbance",
+    "absorbance_sd",
+    "saturation",
+    "ionic_strength_M",
+}
 PARAM_KEYS = {"name", "guess", "se", "mc_sd", "mc_bias", "mc_ci95"}
 
 
 def _well_posed_recipe(plan):
     # metal fixed, ligand spread over the binding curve and inside the linear range
-    return make_recipe(plan, {"CU": np.full(8, 1.0), "DY": np.array([0.5, 0.75, 1.0, 1.5, 2.0, 2.5, 3.0, 3.5])})
+    return make_recipe(
+        plan, {"CU": np.full(8, 1.0), "DY": np.array([0.5, 0.75, 1.0, 1.5, 2.0, 2.5, 3.0, 3.5])}
+    )
 
 
 def test_summary_has_baseline_keys(teaching_plan):
@@ -98,7 +108,7 @@ def test_calibration_tube_fraction_converted():
     # K[M]/(1 + K[M]) = 14/15 of the ligand, not all of it
     plan = _calibration_plan()
     L0 = 1e-4
-    M0 = 0.1 + L0 * 14 / 15          # total metal that leaves exactly 0.10 M free
+    M0 = 0.1 + L0 * 14 / 15  # total metal that leaves exactly 0.10 M free
     r = make_recipe(plan, {"CU": np.array([0.01, M0 * 10.0]), "DY": np.array([1.0, 1.0])})
     a = assess(plan, r, trials=0, precision=False)
     frac = a.state.species_M[1, 0] / a.state.totals_M[1, 1]
@@ -123,7 +133,9 @@ def test_calibration_bias_limit():
 
 
 def test_double_reciprocal_excess(teaching_text):
-    plan = parse_plan_text(teaching_text.replace('criterion = "target"', 'criterion = "target"\nanalysis = "double-reciprocal"'))
+    plan = parse_plan_text(
+        teaching_text.replace('criterion = "target"', 'criterion = "target"\nanalysis = "double-reciprocal"')
+    )
     a = assess(plan, even_series(plan), trials=0, precision=False)
     dr = next(c for c in a.checks if c.id == "double-reciprocal")
     # source: Wang & Yu 2007 — about 100× excess is needed, not 10×
@@ -131,7 +143,9 @@ def test_double_reciprocal_excess(teaching_text):
 
 
 def test_second_complex_share():
-    plan = parse_plan_text(scenario_text("stepwise").replace('criterion = "all"', 'criterion = "all"\nanalysis = "one-to-one"'))
+    plan = parse_plan_text(
+        scenario_text("stepwise").replace('criterion = "all"', 'criterion = "all"\nanalysis = "one-to-one"')
+    )
     a = assess(plan, even_series(plan), trials=0, precision=False)
     sc = next(c for c in a.checks if c.id == "second-complex")
     assert sc.status in ("warn", "fail") and "ML2" in sc.message
@@ -152,7 +166,9 @@ def test_at_changes_the_truth(teaching_plan):
 
 
 def test_stock_budget_shortfall(teaching_text):
-    plan = parse_plan_text(teaching_text.replace('on_hand = "100 mL"\nreagent = "copper', 'on_hand = "5 mL"\nreagent = "copper'))
+    plan = parse_plan_text(
+        teaching_text.replace('on_hand = "100 mL"\nreagent = "copper', 'on_hand = "5 mL"\nreagent = "copper')
+    )
     a = assess(plan, even_series(plan), trials=0, precision=False)
     sb = next(c for c in a.checks if c.id == "stock-budget")
     assert sb.status == "fail" and "CU" in sb.message

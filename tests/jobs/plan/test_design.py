@@ -78,17 +78,19 @@ def test_duggleby_half_at_max_half_at_x1():
     d = design(plan, volumetric=False, seed=1)
     lv = np.sort(d.recipe.column("LS"))
     X_mL = 9.5
-    x1 = _x1_volume(50.0, 0.100 * X_mL / 10, 0.100, 10.0)   # 1.407 mL
+    x1 = _x1_volume(50.0, 0.100 * X_mL / 10, 0.100, 10.0)  # 1.407 mL
     assert np.sum(np.isclose(lv, X_mL)) == 5
     low = lv[~np.isclose(lv, X_mL)]
     assert low.size == 5
-    assert np.all(np.abs(low - x1) <= 0.05 + 1e-9), (low, x1)   # the lattice points next to x1
+    assert np.all(np.abs(low - x1) <= 0.05 + 1e-9), (low, x1)  # the lattice points next to x1
 
 
 def test_dette_thirds_with_blank_offset():
     # source: Dette, Kiss, Bevanda & Bretz 2010, Biometrika 97:513 — with an unknown baseline, thirds at
     # {lowest, x1, X}
-    plan = parse_plan_text(TRACE.replace("fixed = {", "blank_offset = true\nfixed = {").replace("tubes = 10", "tubes = 9"))
+    plan = parse_plan_text(
+        TRACE.replace("fixed = {", "blank_offset = true\nfixed = {").replace("tubes = 10", "tubes = 9")
+    )
     d = design(plan, volumetric=False, seed=2)
     lv = np.sort(d.recipe.column("LS"))
     X_mL = 9.5
@@ -130,8 +132,9 @@ def test_nuisance_factor_information_equals_full_covariance(teaching_plan):
     params = study.params
     cand = Candidates(d.recipe, ("CU", "DY"), d.recipe.n_tubes, 0.05)
     F, M0, _, _ = information_rows(study, cand, study.nodes(False), "target")
-    log_n_var = criterion_of_counts(F, np.ones(d.recipe.n_tubes, dtype=int), criterion="target",
-                                    target=params.target, M0=M0)
+    log_n_var = criterion_of_counts(
+        F, np.ones(d.recipe.n_tubes, dtype=int), criterion="target", target=params.target, M0=M0
+    )
     var = np.exp(log_n_var) / d.recipe.n_tubes
     assert np.sqrt(var) == pytest.approx(d.se_target, rel=1e-6)
 
@@ -152,7 +155,7 @@ def test_design_invariants(seed, tubes, robust):
     plan = parse_plan_text(scenario_text("teaching"))
     d1 = design(plan, tubes=tubes, robust=robust, seed=seed, starts=3)
     d2 = design(plan, tubes=tubes, robust=robust, seed=seed, starts=3)
-    np.testing.assert_array_equal(d1.recipe.volumes_mL, d2.recipe.volumes_mL)   # same seed, same recipe
+    np.testing.assert_array_equal(d1.recipe.volumes_mL, d2.recipe.volumes_mL)  # same seed, same recipe
     assert d1.recipe.n_tubes == tubes
     assert np.all(d1.recipe.volumes_mL >= 0)
     assert np.allclose(d1.recipe.volumes_mL.sum(axis=1), plan.glassware.tube_volume_mL)
@@ -163,7 +166,9 @@ def test_design_invariants(seed, tubes, robust):
 
 
 def test_stock_budget_is_respected(teaching_text):
-    plan = parse_plan_text(teaching_text.replace('on_hand = "100 mL"\nreagent = "copper', 'on_hand = "25 mL"\nreagent = "copper'))
+    plan = parse_plan_text(
+        teaching_text.replace('on_hand = "100 mL"\nreagent = "copper', 'on_hand = "25 mL"\nreagent = "copper')
+    )
     d = design(plan, seed=0)
     used = d.recipe.column("CU").sum()
     assert used <= 25 - plan.glassware.rinse_mL - plan.glassware.dead_volume_mL + 1e-9
@@ -177,7 +182,9 @@ def test_infeasible_linear_range(teaching_text):
 
 
 def test_fixed_leaves_nothing(teaching_text):
-    plan = parse_plan_text(teaching_text.replace("goal_se = 0.05", 'goal_se = 0.05\nfixed = { CU = "1 mL", DY = "1 mL" }'))
+    plan = parse_plan_text(
+        teaching_text.replace("goal_se = 0.05", 'goal_se = 0.05\nfixed = { CU = "1 mL", DY = "1 mL" }')
+    )
     with pytest.raises(DesignError, match="nothing is left to vary"):
         design(plan)
 
@@ -204,7 +211,11 @@ def test_even_series_baseline_is_what_is_compared(teaching_plan):
 
 def test_ionic_strength_levelling():
     # a background-electrolyte stock lets the optimiser give every tube the same ionic strength
-    text = scenario_text("stepwise").replace('[[stock]]\nid = "W"', '''[[stock]]
+    text = (
+        scenario_text("stepwise")
+        .replace(
+            '[[stock]]\nid = "W"',
+            '''[[stock]]
 id = "NA"
 label = "2.00 M sodium nitrate"
 ions = { "Na+" = "2.00 M", "NO3-" = "2.00 M" }
@@ -212,8 +223,11 @@ background = true
 on_hand = "500 mL"
 
 [[stock]]
-id = "W"''').replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]').replace(
-        "goal_se = 0.05", 'goal_se = 0.05\nionic_strength = "0.40 M"')
+id = "W"''',
+        )
+        .replace('stocks = ["CU", "AM"]', 'stocks = ["CU", "AM", "NA"]')
+        .replace("goal_se = 0.05", 'goal_se = 0.05\nionic_strength = "0.40 M"')
+    )
     plan = parse_plan_text(text)
     d = design(plan, seed=0, starts=3)
     a = assess(plan, d.recipe, trials=0, precision=False)
@@ -230,11 +244,16 @@ def test_coarse_then_fine_search_loses_nothing(teaching_text):
     from planner.inference.design_criteria import criterion_of_counts
     from planner.jobs.plan.candidates import information_rows
 
-    extra = ('[[stock]]\nid = "DYC"\nlabel = "dye ligand Dy, 100 mM"\nconc = { L = "100 mM" }\n'
-             'ions = { "Na+" = "100 mM", "K+" = "0.10 M", "NO3-" = "0.10 M" }\nconc_rsd = 0.01\n'
-             'on_hand = "100 mL"\n\n[[stock]]\nid = "BG"')
-    three = parse_plan_text(teaching_text.replace('[[stock]]\nid = "BG"', extra).replace(
-        'stocks = ["CU", "DY"]', 'stocks = ["CU", "DY", "DYC"]'))
+    extra = (
+        '[[stock]]\nid = "DYC"\nlabel = "dye ligand Dy, 100 mM"\nconc = { L = "100 mM" }\n'
+        'ions = { "Na+" = "100 mM", "K+" = "0.10 M", "NO3-" = "0.10 M" }\nconc_rsd = 0.01\n'
+        'on_hand = "100 mL"\n\n[[stock]]\nid = "BG"'
+    )
+    three = parse_plan_text(
+        teaching_text.replace('[[stock]]\nid = "BG"', extra).replace(
+            'stocks = ["CU", "DY"]', 'stocks = ["CU", "DY", "DYC"]'
+        )
+    )
     two = parse_plan_text(teaching_text)
 
     def value(plan, d):
@@ -246,8 +265,14 @@ def test_coarse_then_fine_search_loses_nothing(teaching_text):
         cand = Candidates(d.recipe, ids, d.recipe.n_tubes, 0.05)
         nodes = study.nodes(True)
         F, M0, _, _ = information_rows(study, cand, nodes, "target")
-        return criterion_of_counts(F, np.ones(d.recipe.n_tubes, dtype=int), criterion="target",
-                                   target=params.target, M0=M0, node_weights=nodes.weights)
+        return criterion_of_counts(
+            F,
+            np.ones(d.recipe.n_tubes, dtype=int),
+            criterion="target",
+            target=params.target,
+            M0=M0,
+            node_weights=nodes.weights,
+        )
 
     # the target criterion alone (no model check), which is what the coarse-then-fine search optimises
     d3 = design(three, seed=0, check_model=False)

@@ -41,7 +41,9 @@ def test_guarded_design_catches_a_left_out_complex_at_a_small_cost(designs):
     assert 1.0 <= mc.se_cost_ratio < 1.35
     assert mc.se_target_only == pytest.approx(plain.se_target, rel=1e-9)
     assert guarded.se_target == pytest.approx(mc.se_guarded, rel=1e-9)
-    assert len({tuple(row) for row in guarded.recipe.volumes_mL}) > len({tuple(r) for r in plain.recipe.volumes_mL})
+    assert len({tuple(row) for row in guarded.recipe.volumes_mL}) > len(
+        {tuple(r) for r in plain.recipe.volumes_mL}
+    )
 
 
 def test_zero_weight_gives_the_target_optimal_design():
@@ -63,12 +65,17 @@ def test_assess_reports_detection_power_for_any_recipe():
 
 def test_listed_alternative_and_no_check():
     base = scenario_text("teaching")
-    listed = base.replace("goal_se = 0.05", 'goal_se = 0.05\n\n[[design.alternative]]\nname = "ML3"\n'
-                          'formula = { M = 1, L = 3 }\nlog_beta = 8.0\nepsilon = 15000')
+    listed = base.replace(
+        "goal_se = 0.05",
+        'goal_se = 0.05\n\n[[design.alternative]]\nname = "ML3"\n'
+        "formula = { M = 1, L = 3 }\nlog_beta = 8.0\nepsilon = 15000",
+    )
     assert [n for n, _ in compile_study(parse_plan_text(listed)).alternatives] == ["ML3"]
     none = base.replace("goal_se = 0.05", 'goal_se = 0.05\ncheck = "none"')
     assert compile_study(parse_plan_text(none)).alternatives == ()
-    clash = base.replace("goal_se = 0.05", 'goal_se = 0.05\n\n[[design.alternative]]\nname = "ML"\n'
-                         'formula = { M = 1, L = 2 }\nlog_beta = 6.0')
+    clash = base.replace(
+        "goal_se = 0.05",
+        'goal_se = 0.05\n\n[[design.alternative]]\nname = "ML"\nformula = { M = 1, L = 2 }\nlog_beta = 6.0',
+    )
     with pytest.raises(PlanError, match=r"design.alternative\[0\].name"):
         parse_plan_text(clash)

@@ -56,10 +56,13 @@ def test_learned_study_takes_the_fit_as_the_new_guess():
     assert not nb.stop and nb.design is not None
     assert nb.se_after < nb.se_now
     both = concat_recipes([first, replace(nb.design.recipe, tubes=tuple(f"N{k}" for k in range(4)))])
-    alone = assess_study(nb.study, nb.design.recipe, trials=0, profile_chi2=False, model_check=False).target_se
+    alone = assess_study(
+        nb.study, nb.design.recipe, trials=0, profile_chi2=False, model_check=False
+    ).target_se
     assert nb.se_after < alone  # the tubes in hand count
     assert nb.se_after == pytest.approx(
-        assess_study(nb.study, both, trials=0, profile_chi2=False, model_check=False).target_se, rel=1e-9)
+        assess_study(nb.study, both, trials=0, profile_chi2=False, model_check=False).target_se, rel=1e-9
+    )
 
 
 def test_stops_when_the_goal_is_met():
@@ -79,14 +82,20 @@ def test_sequential_beats_one_shot_from_a_guess_two_decades_off():
     rec = design_study(st, tubes=4, seed=0).recipe
     A = _read(st, rec, truth, rng)
     while rec.n_tubes < 24:
-        se = assess_study(st, rec, trials=0, at={"ML": truth}, profile_chi2=False, model_check=False).target_se
+        se = assess_study(
+            st, rec, trials=0, at={"ML": truth}, profile_chi2=False, model_check=False
+        ).target_se
         if se <= st.goal_se:
             break
         nb = next_batch(st, Readings(rec, A), tubes=4, seed=rec.n_tubes)
-        new = replace(nb.design.recipe, tubes=tuple(f"B{rec.n_tubes}-{k}" for k in range(nb.design.recipe.n_tubes)))
+        new = replace(
+            nb.design.recipe, tubes=tuple(f"B{rec.n_tubes}-{k}" for k in range(nb.design.recipe.n_tubes))
+        )
         rec, A = concat_recipes([rec, new]), np.concatenate([A, _read(st, new, truth, rng)])
     n_seq = rec.n_tubes
     one_shot = design_study(st, tubes=n_seq, seed=0).recipe
-    se_one = assess_study(st, one_shot, trials=0, at={"ML": truth}, profile_chi2=False, model_check=False).target_se
+    se_one = assess_study(
+        st, one_shot, trials=0, at={"ML": truth}, profile_chi2=False, model_check=False
+    ).target_se
     assert n_seq <= 12
     assert se_one > st.goal_se

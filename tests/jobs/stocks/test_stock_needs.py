@@ -17,7 +17,9 @@ def test_mass_to_weigh_follows_the_formula(teaching_plan):
     # derived: m = c·V·FW/purity, FW from molmass (no hand-typed atomic weights)
     fw = formula_weight_g_mol("Cu(NO3)2.3H2O")
     assert cu.conc_M == pytest.approx(0.010)
-    assert cu.mass_g == pytest.approx(cu.weighed_conc_M * cu.weighed_flask.capacity_mL / 1000 * fw / 0.99, rel=1e-9)
+    assert cu.mass_g == pytest.approx(
+        cu.weighed_conc_M * cu.weighed_flask.capacity_mL / 1000 * fw / 0.99, rel=1e-9
+    )
     # USP <41>: with 0.1 mg repeatability the minimum weight is 2000 × 0.1 mg = 0.2 g; 0.244 g is above it
     assert cu.min_weight_g == pytest.approx(0.2)
     assert cu.mass_g >= cu.min_weight_g and not cu.steps
@@ -48,7 +50,9 @@ def test_volumes_needed_with_allowance(teaching_plan):
 def test_not_enough_on_hand(teaching_text):
     from planner.inputs.plan import parse_plan_text
 
-    plan = parse_plan_text(teaching_text.replace('on_hand = "100 mL"\nreagent = "copper', 'on_hand = "9 mL"\nreagent = "copper'))
+    plan = parse_plan_text(
+        teaching_text.replace('on_hand = "100 mL"\nreagent = "copper', 'on_hand = "9 mL"\nreagent = "copper')
+    )
     r = make_recipe(plan, {"CU": np.full(8, 1.0), "DY": np.full(8, 1.0)})
     needs = {n.id: n for n in stock_needs(plan, r)}
     assert needs["CU"].enough is False

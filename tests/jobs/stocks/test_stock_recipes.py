@@ -39,7 +39,9 @@ def test_demo_stocks_name_every_solute(teaching_plan):
 
 
 def test_background_stock_with_its_own_formula(teaching_text):
-    text = teaching_text.replace('reagent = "potassium nitrate"', 'reagent = "potassium nitrate"\nformula = "KNO3"')
+    text = teaching_text.replace(
+        'reagent = "potassium nitrate"', 'reagent = "potassium nitrate"\nformula = "KNO3"'
+    )
     bg = _by_id(parse_plan_text(text))["BG"]
     assert bg.problem is None  # was "holds neither M nor L: its mass is not computed"
     assert [x.formula for x in bg.solutes] == ["KNO3"] and bg.solutes[0].mass_g > 0
@@ -56,12 +58,15 @@ def test_unbalanced_stock_names_the_missing_counter_ion():
 
 
 def test_balanced_stocks_have_no_gap_and_pair_organic_salts():
-    solutes, gap = stock_solutes({"L": (0.0003, -2, "Zc2-")}, {"Na+": (0.0256, 1), "HEPES-": (0.025, -1)},
-                                 None, 50.0)
+    solutes, gap = stock_solutes(
+        {"L": (0.0003, -2, "Zc2-")}, {"Na+": (0.0256, 1), "HEPES-": (0.025, -1)}, None, 50.0
+    )
     assert gap is None
     salt = next(x for x in solutes if x.role == "salt")
     assert salt.name == "HEPES sodium salt" and salt.conc_M == pytest.approx(0.025)
-    assert salt.formula_weight_g_mol == pytest.approx(260.29, abs=0.02)  # from memory: HEPES Na salt 260.3 g/mol
+    assert salt.formula_weight_g_mol == pytest.approx(
+        260.29, abs=0.02
+    )  # from memory: HEPES Na salt 260.3 g/mol
     solutes, gap = stock_solutes({}, {"Na+": (0.10, 1), "OAc-": (0.10, -1)}, None, 50.0)
     assert gap is None and solutes[0].formula == "CH3COONa"
 
@@ -73,8 +78,14 @@ def test_acid_is_added_from_a_solution_not_weighed():
 
 
 def test_ion_cores():
-    for name, z, core in (("Cu2+", 2, "cu"), ("NO3-", -1, "no3"), ("SO4 2-", -2, "so4"),
-                          ("[SO4]2-", -2, "so4"), ("SO4-2", -2, "so4"), ("Ca++", 2, "ca")):
+    for name, z, core in (
+        ("Cu2+", 2, "cu"),
+        ("NO3-", -1, "no3"),
+        ("SO4 2-", -2, "so4"),
+        ("[SO4]2-", -2, "so4"),
+        ("SO4-2", -2, "so4"),
+        ("Ca++", 2, "ca"),
+    ):
         assert ion_core(name, z) == core, name
 
 

@@ -61,12 +61,15 @@ def test_titration_through_the_command_line(tmp_path, capsys, monkeypatch):
     f = json.loads(out)
     p = f["parameters"][0]
     assert abs(p["estimate"] - 4.3) < 4 * p["se"]
-    code, out, err = run(capsys, monkeypatch, "sheet", EXAMPLE, sched, "--html", "--out", tmp_path / "s.html",
-                         "--trials", "0")
+    code, out, err = run(
+        capsys, monkeypatch, "sheet", EXAMPLE, sched, "--html", "--out", tmp_path / "s.html", "--trials", "0"
+    )
     assert code == 0, err
     html = (tmp_path / "s.html").read_text(encoding="utf-8")
     assert "Titration sheet" in html and "Added so far" in html and "safety data sheet" in html.lower()
     over = tmp_path / "over.csv"
-    over.write_text("step,aliquot_mL\n1,0.1\n" * 1 + "".join(f"{k},0.1\n" for k in range(2, 12)), encoding="utf-8")
+    over.write_text(
+        "step,aliquot_mL\n1,0.1\n" * 1 + "".join(f"{k},0.1\n" for k in range(2, 12)), encoding="utf-8"
+    )
     code, _, err = run(capsys, monkeypatch, "assess", EXAMPLE, over)
     assert code == 2 and "max_volume" in err and len(err.strip().splitlines()) == 1
