@@ -73,7 +73,8 @@ def main() -> None:
         se = parts["se"]
         print(
             f"{n:4d} cards: {t:6.2f} s = "
-            f"{t / t_sheet:5.1f} prep sheets = {t / n:.3f} s per card; budget {BUDGET_S.get(n, float('nan')):g} s; "
+            f"{t / t_sheet:5.1f} prep sheets = {t / n:.3f} s per card; budget "
+            f"{BUDGET_S.get(n, float('nan')):g} s; "
             f"sound={parts['sound']}"
         )
         print(

@@ -1,4 +1,5 @@
-"""Recovery of injected bench mix-ups by :func:`planner.jobs.classroom.mixup.diagnose`, per kind, and the rate at which
+"""Recovery of injected bench mix-ups by :func:`planner.jobs.classroom.mixup.diagnose`, per kind, and the rate
+at which
 clean readings are given an explanation.
 
 Scenario: the teaching plan's evenly spaced 8-tube series; each trial simulates one student's readings

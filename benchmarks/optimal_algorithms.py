@@ -103,7 +103,8 @@ def run_case(F, M0, criterion, target, n, iters=200):
     t_ours, ad = best_of(lambda: approximate_design(F, criterion=criterion, target=target, M0=M0, n_tubes=n))
     t_base, gap_base = best_of(lambda: multiplicative_baseline(F, M0, n, criterion, target, iters), repeat=1)
     print(
-        f"[{criterion:6s} n={n}] approximate: {t_ours * 1e3:7.1f} ms, gap {(ad.max_sensitivity - ad.bound) / k:.1e}"
+        f"[{criterion:6s} n={n}] approximate: {t_ours * 1e3:7.1f} ms, gap "
+        f"{(ad.max_sensitivity - ad.bound) / k:.1e}"
         f" | multiplicative x{iters}: {t_base * 1e3:7.1f} ms, gap {gap_base:.1e}"
         f" | time ratio baseline/ours {t_base / t_ours:5.1f}"
     )

@@ -48,7 +48,8 @@ def main(seeds: int) -> None:
     lb = study.model.log_beta.copy()
     lb[0] = TRUTH
     print(
-        f"truth log β = {TRUTH}, guess {study.model.log_beta[0]} ± {study.model.log_beta_sd[0]}, goal SE {GOAL}"
+        f"truth log β = {TRUTH}, guess {study.model.log_beta[0]} ± {study.model.log_beta_sd[0]}, goal SE "
+        f"{GOAL}"
     )
     print(f"{'seed':>4} {'tubes':>5} {'SE seq':>8} {'SE one-shot':>11} {'s':>6}")
     wins = 0

@@ -154,7 +154,8 @@ def main() -> None:
         f"speed-up {per_root / per_vec:.0f}x"
     )
     print(
-        f"scipy.optimize.brentq loop, {nb} tubes: {per_brentq * 1e6:.1f} us per tube (best of {args.repeats}); "
+        f"scipy.optimize.brentq loop, {nb} tubes: {per_brentq * 1e6:.1f} us per tube (best of "
+        f"{args.repeats}); "
         f"speed-up {per_brentq / per_vec:.0f}x"
     )
     for name, ref in (("bisection", result["bisection"][:nb]), ("root", ref_root), ("brentq", ref_brentq)):

@@ -58,7 +58,8 @@ def main(repeats: int) -> None:
             ("kplan design", [*kplan, "design", teaching], 1.0),
         ]
         print(
-            f"baselines: bare typer app --help {base_typer:.3f} s; python -c 'import numpy' {base_numpy:.3f} s"
+            f"baselines: bare typer app --help {base_typer:.3f} s; python -c 'import numpy' "
+            f"{base_numpy:.3f} s"
         )
         print(f"{'command':<14} {'s':>6} {'goal':>5} {'× typer':>8} {'× numpy':>8}")
         for name, cmd, goal in rows:

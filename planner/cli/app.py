@@ -1,4 +1,5 @@
-"""The typer application, the consoles and the errors the shell raises; every command module registers on ``app``."""
+"""The typer application, the consoles and the errors the shell raises; every command module registers on
+``app``."""
 
 from __future__ import annotations
 

@@ -1,4 +1,5 @@
-"""``kplan cards``: a class set — one recipe card per student, the instructor's key and the class stock list."""
+"""``kplan cards``: a class set — one recipe card per student, the instructor's key and the class stock
+list."""
 
 from __future__ import annotations
 
@@ -133,7 +134,8 @@ def _print(cs, stocks, out_dir: Path) -> None:
     out.print(
         f"  class pooled {fmt.sig(se['pooled'], 2)}; {n} copies of the best recipe "
         f"{fmt.sig(se['pooled_best_copies'], 2)}; {n} copies of the even series "
-        f"{fmt.sig(se['pooled_even_copies'], 2)}; stock errors left out {fmt.sig(se['pooled_without_stock'], 2)}"
+        f"{fmt.sig(se['pooled_even_copies'], 2)}; stock errors left out "
+        f"{fmt.sig(se['pooled_without_stock'], 2)}"
     )
     for s in stocks:
         if s.enough is False:

@@ -70,7 +70,10 @@ def _print_fit(f) -> None:
         ci = "—"
         if n == f"log_beta[{f.target}]" and f.profile_ci95 is not None:
             lo, hi = f.profile_ci95
-            ci = f"{fmt.sig(lo, 4) if lo is not None else '(open)'} – {fmt.sig(hi, 4) if hi is not None else '(open)'}"
+            ci = (
+                f"{fmt.sig(lo, 4) if lo is not None else '(open)'} – "
+                f"{fmt.sig(hi, 4) if hi is not None else '(open)'}"
+            )
         t.add_row(S(n), fmt.sig(float(e), 4), fmt.sig(float(se_), 2), ci, fmt.sig(float(pr), 2))
     out.print(t)
     if f.dof >= 1 and f.determined:

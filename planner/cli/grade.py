@@ -1,4 +1,5 @@
-"""``kplan grade``: every student's readings against the key, the class's pooled constant, the likely mix-up."""
+"""``kplan grade``: every student's readings against the key, the class's pooled constant, the likely
+mix-up."""
 
 from __future__ import annotations
 

@@ -45,7 +45,10 @@ def _with_progress(run, trials: int, quiet: bool, tubes: int = 8):
 
 
 def read_points(path, plan, study, *, readings: bool = False):
-    """The recipe (or readings) in PATH for ``plan``: see :func:`planner.jobs.titration.titrate.read_points`."""
+    """The recipe (or readings) in PATH for ``plan``.
+
+    See :func:`planner.jobs.titration.titrate.read_points`.
+    """
     from ..jobs.titration.titrate import read_points as _read
 
     return _read(path, plan, study, readings=readings)

@@ -12,7 +12,7 @@ from .app import out
 from .app import safe_text as S
 
 
-def print_assessment(a, p) -> None:
+def print_assessment(a, p) -> None:  # noqa: C901
     """Rich tables of an assessment: verdict first, then parameters, checks and tubes."""
     out.print(f"[bold]{S(a.title)}[/bold]")
     vcol = {"resolved": "green", "bounded": "yellow", "unresolved": "red"}
@@ -148,7 +148,8 @@ def print_design(d, p) -> None:
     out.print(
         f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
         f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} ({compare}); "
-        f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these candidates"
+        f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these "
+        f"candidates"
     )
     if d.se_across:
         t = Table(title=f"SE(log β[{target}]) if the truth differs from the guess")

@@ -171,7 +171,7 @@ def _check_criterion(criterion: str, target, P: int) -> int | None:
     return None
 
 
-def _problem(F, criterion, target, M0, node_weights, n, n_given: bool) -> _Problem:
+def _problem(F, criterion, target, M0, node_weights, n, n_given: bool) -> _Problem:  # noqa: C901
     F = _as_F(F)
     G, C, R, P = F.shape
     t = _check_criterion(criterion, target, P)

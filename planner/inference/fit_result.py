@@ -160,7 +160,7 @@ def _batch_shapes(theta0, y) -> tuple[np.ndarray, np.ndarray]:
     return theta, yy
 
 
-def _weighting(sigma, whiten, n_trials: int, n_obs: int):
+def _weighting(sigma, whiten, n_trials: int, n_obs: int):  # noqa: C901
     """Return (weigh_res, weigh_jac): maps of residuals (k, N) and Jacobians (k, N, P) of ``rows``."""
     if sigma is not None and whiten is not None:
         raise FitError("give either sigma (standard deviations) or whiten (a matrix), not both.")

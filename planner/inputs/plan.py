@@ -290,7 +290,7 @@ class Plan(_Strict):
 
     # -- cross-field checks, each naming its key ---------------------------------------------------
     @model_validator(mode="after")
-    def _cross(self) -> Plan:
+    def _cross(self) -> Plan:  # noqa: C901
         names = [s.name for s in self.species]
         reserved = {"M", "L", "H"}
         for i, s in enumerate(self.species):

@@ -195,7 +195,8 @@ def assemble_recipe(
                 raise RecipeError(
                     f"tube {tubes[i]}, {diluent_id}",
                     f"{vol[i, j]:g} mL, but under make_up = 'to-mark' the diluent is what fills the "
-                    f"{tube_mL:g} mL mark: {remainder[i]:g} mL; correct it or leave the {diluent_id} column out",
+                    f"{tube_mL:g} mL mark: {remainder[i]:g} mL; correct it or leave the {diluent_id} "
+                    f"column out",
                 )
         vol[:, j] = remainder
         total = np.full(n, tube_mL)

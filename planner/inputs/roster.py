@@ -80,7 +80,7 @@ def _has_controls(text: str) -> bool:
     return any(unicodedata.category(ch) in ("Cc", "Cf") for ch in text)
 
 
-def parse_roster_csv(text: str, source: str = "<roster>") -> Roster:
+def parse_roster_csv(text: str, source: str = "<roster>") -> Roster:  # noqa: C901
     """Parse a roster CSV (UTF-8; a byte-order mark is accepted).
 
     Raises

@@ -72,7 +72,8 @@ def ionic_strength(conc_M, charges) -> np.ndarray:
     z = np.asarray(charges, dtype=float)
     if z.ndim != 1 or conc.shape[-1:] != z.shape:
         raise ValueError(
-            f"conc_M has last axis {conc.shape[-1:]} but charges has shape {z.shape}: give one charge per ion "
+            f"conc_M has last axis {conc.shape[-1:]} but charges has shape {z.shape}: give one charge "
+            f"per ion "
             "(last axis of conc_M)"
         )
     if np.any(~np.isfinite(conc)) or np.any(conc < 0.0):

@@ -63,7 +63,10 @@ class Sensitivity:
         return {name: np.asarray(value).tolist() for name, value in vars(self).items()}
 
     def __repr__(self) -> str:
-        return f"Sensitivity(batch shape {np.shape(self.dlnfree_M_dMtot)}, {np.shape(self.dc_dMtot)[-1]} species)"
+        return (
+            f"Sensitivity(batch shape {np.shape(self.dlnfree_M_dMtot)}, {np.shape(self.dc_dMtot)[-1]} "
+            f"species)"
+        )
 
 
 def sensitivities(spec: Speciation, stoich_pq, log_beta_cond) -> Sensitivity:

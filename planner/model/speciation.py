@@ -108,7 +108,8 @@ def speciate(M_tot_M, L_tot_M, stoich_pq, log_beta_cond) -> Speciation:
     is linear in [M] and is eliminated, leaving one monotone equation in ln[L] solved by bracketed,
     bisection-safeguarded Newton. Otherwise (and for any tube that reduced solve leaves) damped Newton
     on the log ratios of computed to given totals, in (ln[M], ln[L]), with batched 2x2 solves and an
-    Armijo backtracking line search on their squared norm; the 2x2 determinant is formed as a sum of non-negative terms
+    Armijo backtracking line search on their squared norm; the 2x2 determinant is formed as a sum of
+    non-negative terms
     (Lagrange's identity), so it keeps full relative accuracy when the Jacobian is nearly singular
     (strong complexes near equivalence). The start is the best, by the same merit, of the weak-binding
     point and one stoichiometric limiting solution per complex (each complex taken alone, with the

@@ -244,7 +244,8 @@ def _csv_safe(text: str) -> str:
 
 
 def key_csv(plan: Plan, cs: ClassSet) -> str:
-    """``key.csv``: student, name, section, tube, one column per stock (mL), absorbance, band_low, band_high."""
+    """``key.csv``: student, name, section, tube, one column per stock (mL), absorbance, band_low,
+    band_high."""
     ids = [s.id for s in plan.stock]
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
@@ -418,7 +419,8 @@ def _how(plan: Plan, s: ClassStock) -> list[str]:
     times = f"{s.batches} × " if s.batches > 1 else ""
     lines = [
         f"{times}weigh {fmt.mass(p.mass_g, g.balance.readability_g)} of {pretty_formula(p.formula)} "
-        f"(M = {fmt.sig(p.formula_weight_g_mol, 5)} g/mol) and make up to the mark of a {p.weighed_flask.label}"
+        f"(M = {fmt.sig(p.formula_weight_g_mol, 5)} g/mol) and make up to the mark of a "
+        f"{p.weighed_flask.label}"
     ]
     for st in p.steps:
         lines.append(

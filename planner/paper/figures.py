@@ -1,7 +1,8 @@
 """Figures of the design report: matplotlib (no display, no pyplot state) drawn to inline SVG text.
 
 What a figure shows is computed in the jobs layer (:mod:`planner.jobs.plan.curves`); the ``*_svg``
-functions here only draw it. The SVGs are deterministic (fixed hash salt, no date) and their element ids are prefixed so that
+functions here only draw it. The SVGs are deterministic (fixed hash salt, no date) and their element ids are
+prefixed so that
 several can share one HTML page.
 """
 

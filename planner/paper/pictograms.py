@@ -108,5 +108,6 @@ def pictogram_svg(code: str, size_px: int = 30) -> str:
         f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 100 100" width="{size_px}" height="{size_px}" '
         f'role="img"><title>{code}</title>'
         f'<polygon points="50,4 96,50 50,96 4,50" fill="#ffffff" stroke="{BORDER_RED}" stroke-width="7" '
-        f'stroke-linejoin="miter"/><g transform="translate(50 50) scale(1.2) translate(-50 -50)">{symbol}</g></svg>'
+        f'stroke-linejoin="miter"/><g transform="translate(50 50) scale(1.2) translate(-50 '
+        f'-50)">{symbol}</g></svg>'
     )

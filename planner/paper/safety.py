@@ -205,7 +205,10 @@ class ReagentHazards:
     checked: str
 
     def __repr__(self) -> str:
-        return f"ReagentHazards({self.name!r}: {self.signal_word or 'not classified'}, {', '.join(self.hazard_codes)})"
+        return (
+            f"ReagentHazards({self.name!r}: {self.signal_word or 'not classified'}, "
+            f"{', '.join(self.hazard_codes)})"
+        )
 
     @property
     def cmr_codes(self) -> tuple[str, ...]:

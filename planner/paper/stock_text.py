@@ -126,7 +126,8 @@ def prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
     for x in extra:
         if x["role"] == "salt" and x["mass_g"] < min_wt:
             warns.append(
-                f"{fmt.mass(x['mass_g'], d)} of {pretty_formula(x['formula'])} is below the balance's minimum "
+                f"{fmt.mass(x['mass_g'], d)} of {pretty_formula(x['formula'])} is below the balance's "
+                f"minimum "
                 f"weight ({fmt.mass(min_wt, d)}, USP <41>): add it from a more concentrated solution instead."
             )
     for x in solutes:

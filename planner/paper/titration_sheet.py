@@ -37,14 +37,17 @@ def titration_context(plan, recipe, summary: dict, *, date: str, paper: str) -> 
     steps = [
         "Switch the spectrophotometer on early so the lamp is stable; set the wavelength to "
         f"{fmt.sig(o.wavelength_nm, 3)} nm and zero it on a cuvette of the medium the stocks are made in.",
-        f"Deliver {fmt.fixed(t.start_volume_mL, 0.001)} mL of {cell.label or cell.id} into the clean, dry cuvette"
+        f"Deliver {fmt.fixed(t.start_volume_mL, 0.001)} mL of {cell.label or cell.id} into the clean, "
+        f"dry cuvette"
         + (f" with the {start_disp.capacity_mL:g} mL {start_disp.kind}" if start_disp else "")
         + ".",
         f"For each step below: add the aliquot of {tit.label or tit.id}"
         + (f" with the {fmt.sig(disp.capacity_mL * 1000, 3)} µL {disp.kind}" if disp else "")
         + f" below the surface, {t.equilibrate}, then write the reading in the empty column.",
-        f"Stop, and tell the person in charge, if a reading falls outside {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)} "
-        "(the instrument's linear range) or is far outside its expected band, if the cell would hold more than "
+        f"Stop, and tell the person in charge, if a reading falls outside "
+        f"{fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)} "
+        "(the instrument's linear range) or is far outside its expected band, if the cell would hold "
+        "more than "
         f"{fmt.fixed(t.max_volume_mL, 0.001)} mL, or if the solution turns cloudy.",
     ]
     return {

@@ -53,11 +53,13 @@ def test_ionic_strength_rejects_mismatched_charges_and_negative_conc():
 @pytest.mark.parametrize(
     ("z", "I", "expected"),
     [
-        # sqrt(0.01) = 0.1; 0.1/1.1 - 0.3*0.01 = 0.0879091; * 0.509 = 0.0447457  # derived by hand, Davies 1962
+        # sqrt(0.01) = 0.1; 0.1/1.1 - 0.3*0.01 = 0.0879091; * 0.509 = 0.0447457  # derived by hand, Davies
+        # 1962
         (1, 0.01, -0.0447457),
         # sqrt(0.1) = 0.316228; 0.316228/1.316228 - 0.03 = 0.210253; * 0.509 * 4 = 0.428075  # derived by hand
         (2, 0.1, -0.428075),
-        # sqrt(0.05) = 0.223607; 0.223607/1.223607 - 0.015 = 0.167744; * 0.509 * 9 = 0.768435  # derived by hand
+        # sqrt(0.05) = 0.223607; 0.223607/1.223607 - 0.015 = 0.167744; * 0.509 * 9 = 0.768435  # derived by
+        # hand
         (3, 0.05, -0.768435),
         (-2, 0.1, -0.428075),  # the sign of z does not matter (z^2)  # derived
         (0, 0.3, 0.0),  # neutral species: log g = 0 in the Davies equation  # derived

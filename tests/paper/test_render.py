@@ -321,7 +321,7 @@ def test_hostile_html_cannot_read_files(fetch_log):
     html = (
         '<p>plain text</p><img src="file:///etc/passwd">'
         '<link rel="stylesheet" href="http://example.com/evil.css">'
-        '<img src="data:image/svg+xml;base64,PHN2ZyB4bWxucz0naHR0cDovL3d3dy53My5vcmcvMjAwMC9zdmcnIHdpZHRoPScxJyBoZWlnaHQ9JzEnLz4=">'
+        '<img src="data:image/svg+xml;base64,PHN2ZyB4bWxucz0naHR0cDovL3d3dy53My5vcmcvMjAwMC9zdmcnIHdpZHRoPScxJyBoZWlnaHQ9JzEnLz4=">'  # noqa: E501  (one data URL)
     )
     txt = pdf_text(render.html_to_pdf(html))
     assert "plain text" in txt and "root:" not in txt

@@ -332,10 +332,16 @@ def _discrimination_check(model, fits, C, needed) -> Check:
             f"above the noise: {seps} (≥ {rv.SEPARATION_WANTED:g} sd wanted)",
         )
     names = " or ".join(f.model for f in close)
-    msg = f"at C = {fmt_conc(C)} the curve cannot tell {own} from {names} ({seps}; {rv.SEPARATION_WANTED:g} sd wanted)"
+    msg = (
+        f"at C = {fmt_conc(C)} the curve cannot tell {own} from {names} ({seps}; "
+        f"{rv.SEPARATION_WANTED:g} sd wanted)"
+    )
     if needed is None:
         msg += "; no total up to 128× the planned one does"
-        alt = ": fit all complexes globally over a designed series (kplan design) instead of reading the stoichiometry off this curve"
+        alt = (
+            ": fit all complexes globally over a designed series (kplan design) instead of reading the "
+            "stoichiometry off this curve"
+        )
     else:
         alt = " — or fit all complexes globally over a designed series (kplan design)"
         c_need, path = needed
@@ -348,8 +354,10 @@ def _discrimination_check(model, fits, C, needed) -> Check:
             "warn",
             msg
             + (
-                f". The rival only adds a complex holding ≥ {rv.MATERIAL_SHARE:.0%} of the metal somewhere, and one "
-                f"that absorbs like {own} per metal hides in any single-wavelength curve: read a second wavelength "
+                f". The rival only adds a complex holding ≥ {rv.MATERIAL_SHARE:.0%} of the metal "
+                f"somewhere, and one "
+                f"that absorbs like {own} per metal hides in any single-wavelength curve: read a second "
+                f"wavelength "
                 f"or fit a designed series with both complexes (kplan design) before excluding it"
             ),
         )

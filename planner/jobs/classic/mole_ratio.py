@@ -6,7 +6,8 @@ How sharp is the break? For a 1:1 complex at fixed metal C, at the equivalence p
 free ligand are equal, x, with K·x² = C − x, so the curve falls short of the asymptotes' corner by the
 fraction x/C = (√(1 + 4KC) − 1)/(2KC) ≈ 1/√(KC) [derived]: 10 % at K·C = 100, the usual "sharp break"
 rule. (Measured, as here, against the curve's own tangents — the initial one has slope KC/(1 + KC) of the
-complete-conversion line — the shortfall is a little smaller: 8.6 % at K·C = 100.) What the user reads, though, is the intersection of two straight lines drawn through the tubes
+complete-conversion line — the shortfall is a little smaller: 8.6 % at K·C = 100.) What the user reads,
+though, is the intersection of two straight lines drawn through the tubes
 well before and well after the break (the hand analysis). This module computes that intersection from
 the noise-free prediction of the planned tubes — its offset from the complex's ratio is the bias the
 curvature causes — and its sd from the readings' covariance (whole error budget) by linear propagation
@@ -134,7 +135,8 @@ def mole_ratio_series(
                 "--total",
                 f"{fmt_conc(total_M)} of {fix} is {v_fix:g} mL of {fix_id}; the {n} volumes "
                 f"of {var_id} up to ratio {r_max:g} would run {vv[0]:g}–{vv[-1]:g} mL, which must be "
-                f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most {min(caps[1], avail - v_fix):g} mL: "
+                f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most "
+                f"{min(caps[1], avail - v_fix):g} mL: "
                 f"choose another --total, fewer --points or another --max-ratio",
             )
     else:

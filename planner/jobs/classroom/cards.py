@@ -318,7 +318,7 @@ def _recipe(study: Study, grid: _Grid, tubes_idx: np.ndarray) -> Recipe:
     return study.bench.make_recipe({k: v[order] for k, v in vols.items()})
 
 
-def class_set_study(
+def class_set_study(  # noqa: C901
     study: Study,
     roster: Roster,
     *,

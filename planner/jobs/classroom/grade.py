@@ -7,7 +7,8 @@ point of χ²(n) (so a clean student is flagged 5 % of the time — the test's n
 tubes they read); the key's per-tube bands are shown beside it. Each student's own constant is fitted
 where their tubes determine it. The class's constant comes from one global fit of every student not
 flagged (their tubes share the stock bottles, so the stock errors are shared in the fit's covariance).
-Flagged students get the likely mix-up (:mod:`planner.jobs.classroom.mixup`), judged with the pooled constants.
+Flagged students get the likely mix-up (:mod:`planner.jobs.classroom.mixup`), judged with the pooled
+constants.
 """
 
 from __future__ import annotations

@@ -136,7 +136,7 @@ def _transposed(v: float) -> float | None:
     return float(txt[:-2] + "." + txt[-2:])
 
 
-def diagnose(
+def diagnose(  # noqa: C901
     study: Study,
     recipe: Recipe,
     absorbance: np.ndarray,

@@ -1,14 +1,12 @@
 """Design of recipes that maximise the information about K, on the glassware's real volume grid.
 
-Candidates are every combination of dispensed volumes on the plan's grid; each carries the whitened
-Jacobian of its reading. Errors shared across tubes (stock concentrations, device calibration) enter as
-nuisance parameters with a unit Gaussian prior, which keeps the information additive over tubes and is
-exactly equivalent to the full-covariance Fisher information for the target criterion (Woodbury
-identity). The "all" (D-optimal) criterion uses the independent errors only, since adding the nuisance
-factors would make it a Ds criterion over more parameters; the reported SEs always use the full budget. The exact design comes from :func:`planner.optimal.exact_design` (Fedorov exchange), the bound
-from :func:`planner.optimal.approximate_design` (checked by the equivalence theorem). Robust designs
-average the criterion over quadrature nodes of the guesses' uncertainty (Chaloner & Larntz 1989,
-J. Stat. Plan. Inference 21:191).
+The candidate tubes and their information rows come from :mod:`planner.jobs.plan.candidates`. The
+"all" (D-optimal) criterion uses the independent errors only, since adding the nuisance factors would
+make it a Ds criterion over more parameters; the reported SEs always use the full budget. The exact
+design comes from :func:`planner.inference.exchange.exact_design` (Fedorov exchange), the bound from
+:func:`planner.inference.approximate.approximate_design` (checked by the equivalence theorem). Robust
+designs average the criterion over quadrature nodes of the guesses' uncertainty (Chaloner & Larntz
+1989, J. Stat. Plan. Inference 21:191).
 """
 
 from __future__ import annotations
@@ -311,7 +309,8 @@ def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts, prio
         lo, hi = model.linear_range
         raise DesignError(
             f"no candidate tube keeps the absorbance inside optics.linear_range [{lo:g}, {hi:g}] over the "
-            f"guess's range: use more dilute stocks or a shorter path (if too high), more concentrated stocks "
+            f"guess's range: use more dilute stocks or a shorter path (if too high), more concentrated "
+            f"stocks "
             f"or a longer path (if too low), or widen linear_range"
         )
     idx = np.flatnonzero(ok)
@@ -324,7 +323,8 @@ def _exact_on(study: Study, nodes, crit, n, seed, cand, volumetric, starts, prio
     except DesignError as exc:
         lo, hi = model.linear_range
         raise DesignError(
-            f"only {idx.size} of {cand.n_grid} candidate tubes stay inside optics.linear_range [{lo:g}, {hi:g}] "
+            f"only {idx.size} of {cand.n_grid} candidate tubes stay inside optics.linear_range [{lo:g}, "
+            f"{hi:g}] "
             f"over the guess's range, and they cannot determine every fitted parameter ({exc}). Use more "
             f"dilute stocks or smaller fixed volumes if readings run high, a longer path if they run low, "
             f"or hold more parameters fixed (rsd = 0)"

@@ -124,7 +124,8 @@ def _with_titrant(study: Study, sid: str) -> Study:
 
 
 def _titrant_options(study: Study) -> list[str]:
-    """Stocks that could be the titrant: they hold what the plan's titrant holds (M or L) and have a dispenser."""
+    """Stocks that could be the titrant: they hold what the plan's titrant holds (M or L) and have a '
+    'dispenser."""
     b, m = study.bench, study.model
     t = b.titration
     comp = m.stock_conc_M[b.stock_index(t.titrant)] > 0

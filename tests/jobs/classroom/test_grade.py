@@ -26,7 +26,8 @@ KINDS = (None,) * 40 + ("swapped-tubes", "wrong-stock", "blank", "not-made-up")
 
 
 def make_class(study, plan, kinds, seed=0):
-    """A key.csv (as kplan cards writes it: ±2 sd bands of the full budget) and results with injected slips."""
+    """A key.csv (as kplan cards writes it: ±2 sd bands of the full budget) and results with injected
+    slips."""
     rec = even_series_for(study, 8)
     a = assess_study(study, rec, trials=0, precision=False)
     sd = np.sqrt(np.diag(a.budget.total))
