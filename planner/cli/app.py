@@ -14,6 +14,7 @@ import typer.core
 from rich.console import Console
 from rich.markup import escape
 
+from ..inputs.errors import InputError
 from ..inputs.text import visible
 
 app = typer.Typer(
@@ -88,34 +89,16 @@ SCENARIOS = ("teaching", "stepwise", "proton")
 DEMO_SCENARIO = "teaching"
 
 
-class UserError(Exception):
+class UserError(InputError):
     """Raised by the shell for bad input that is not a plan or recipe problem."""
 
 
 def _user_errors() -> tuple[type[BaseException], ...]:
-    # imported here, not at the top, so that `kplan --help` does not load pydantic, pint and numpy
-    from ..inference.design_criteria import DesignError
-    from ..inference.fit_result import FitError
-    from ..inputs.files import OutputError
-    from ..inputs.plan import PlanError
-    from ..inputs.recipe import RecipeError
-    from ..model.closed_forms import EquilibriumError
-    from ..paper.sheets import RenderError
-    from ..uncertainty.catalogue import GlasswareError
-    from ..uncertainty.stocks import StockError
+    # every error the tool raises for its user derives from KplanError (planner.inputs.errors, which
+    # imports nothing heavy, so `kplan --help` stays fast)
+    from ..inputs.errors import KplanError
 
-    return (
-        PlanError,
-        RecipeError,
-        OutputError,
-        UserError,
-        EquilibriumError,
-        GlasswareError,
-        StockError,
-        DesignError,
-        FitError,
-        RenderError,
-    )
+    return (KplanError,)
 
 
 def safe_text(text: object) -> str:

@@ -135,7 +135,7 @@ def print_design(d, p) -> None:
         )
     out.print(t)
     target = S(p.target)
-    ratio = d.se_ratio_vs_even
+    ratio = d.se_even_over_design
     compare = (
         (
             f"×{fmt.sig(ratio, 2)} better"
@@ -168,7 +168,7 @@ def print_design(d, p) -> None:
         out.print(t)
         out.print(
             f"share of simulated experiments whose χ² test rejects the main model; the check costs "
-            f"×{fmt.sig(mc.se_cost_ratio, 3)} in SE(log β[{target}]) "
+            f"×{fmt.sig(mc.se_guarded_over_target_only, 3)} in SE(log β[{target}]) "
             f"({fmt.sig(mc.se_target_only, 2)} → {fmt.sig(mc.se_guarded, 2)}), {mc.moves} tubes moved"
         )
     bad = [c for c in s["checks"] if c["status"] != "pass"]

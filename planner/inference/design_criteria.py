@@ -69,6 +69,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..inputs.choices import CRITERIA  # noqa: E402  (defined once, light for the command line)
+from ..inputs.errors import KplanError
 
 # Ridge per tube, relative to the average per-tube information of each parameter (module docstring).
 _RIDGE = 1e-10
@@ -94,7 +95,7 @@ _POOL_PER_TUBE = 40
 _IMPROVE = 1e-11
 
 
-class DesignError(ValueError):
+class DesignError(KplanError):
     """Invalid input to the optimal-design functions; the message names the fix."""
 
 

@@ -53,7 +53,7 @@ def linear_noncentrality(
     return np.maximum(s - np.einsum("ap,pa->a", b, sol), 0.0)
 
 
-def power_from_noncentrality(lam: np.ndarray, dof: int, level: float = LEVEL) -> np.ndarray:
+def power_from_noncentrality(lam: float | np.ndarray, dof: int, level: float = LEVEL) -> np.ndarray:
     """P(χ²_dof(λ) > χ²_{dof, 1−level}); 0 when dof < 1 (no test is possible)."""
     lam = np.asarray(lam, dtype=float)
     if dof < 1:
@@ -127,7 +127,9 @@ def detection_power(
     tot = (recipe.volumes_mL @ model.stock_conc_M) / recipe.total_volume_mL[:, None]
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     reading = ReadingModel(model, params, tot, ions)
-    W = whitening(cov_A) if W is None else W
+    if W is None:
+        assert cov_A is not None, "give cov_A or its whitening W"
+        W = whitening(cov_A)
     lo, hi = reading.bounds()
     y0 = predict(alt, tot, ions, warn=False).absorbance
     # exact noise-free misfit: the best the main model can do on the alternative's readings

@@ -384,6 +384,7 @@ def exact_design(
         st = _exchange(sub, x0, max_steps)
         if best is None or st.loss < best.loss - _IMPROVE:
             best = st
+    assert best is not None  # starts >= 1
     x = np.zeros(prob.C, dtype=np.int64)
     x[pool] = best.x
     if pool.size < prob.C:

@@ -8,6 +8,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..inputs.errors import KplanError
+
 STATUS_MESSAGES: dict[int, str] = {
     1: "converged: relative reduction of chi2 (actual and predicted) below ftol",
     2: "converged: relative step size below xtol",
@@ -23,7 +25,7 @@ STATUS_MESSAGES: dict[int, str] = {
 _CONVERGED_CODES = (1, 2, 3, 4, 6, 7, 8)
 
 
-class FitError(ValueError):
+class FitError(KplanError):
     """Invalid input to :func:`fit_many` / :func:`fit_one`; the message names the fix."""
 
 

@@ -111,8 +111,8 @@ def guarded_design(
     if weight <= 0.0:
         return GuardedDesign(x, float(var), lam, value, 0)
     for _ in range(MAX_MOVES):
-        best = (value - IMPROVE, None, None)
-        for i in np.flatnonzero(x):  # the design's distinct tubes (a handful); each move batched over C
+        best: tuple[float, int | None, int | None] = (value - IMPROVE, None, None)
+        for i in np.flatnonzero(x).tolist():  # the design's distinct tubes (a handful); each move batched over C
             Mi = M - FF[i]
             bi = b - RF[:, i, :]
             si = s - R[:, i] ** 2
@@ -127,7 +127,9 @@ def guarded_design(
                 best = (float(psi[c]), int(i), c)
         if best[1] is None:
             break
-        _, i, c = best
+        _, i_best, c_best = best
+        assert i_best is not None and c_best is not None
+        i, c = int(i_best), int(c_best)
         x[i] -= 1
         x[c] += 1
         moves += 1

@@ -426,6 +426,7 @@ def _drive(
         # --- factorise the Jacobian of trials that moved (or just started) ---
         rows = np.flatnonzero(fresh & (status == 0))
         if rows.size:
+            assert jac_raw is not None  # computed whenever a trial is still running
             jw = weigh_jac(_take(jac_raw, rows), rows)
             colnorm = np.sqrt(np.einsum("knp,knp->kp", jw, jw))  # NaN/inf if any entry is
             bad = ~_all_p(np.isfinite(colnorm))
@@ -607,6 +608,7 @@ def fit_one(model, theta0, y, **kwargs) -> FitResult:
             return out[None] if out.ndim == 2 else out
 
     res = fit_many(model1, theta[None, :], y1[None, :], jac=jac, **kwargs)
+    assert res.cov is not None and res.status is not None  # fit_many fills them
     return FitResult(
         theta=_frozen(res.theta[0]),
         cov=_frozen(res.cov[0]),

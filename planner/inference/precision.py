@@ -288,7 +288,9 @@ class CramerRao:
 def cramer_rao(J: np.ndarray, cov_A: np.ndarray | None = None, *, W=None) -> CramerRao:
     """Cramér–Rao bound for a linearised model with absorbance covariance ``cov_A`` (or its whitening
     ``W``, e.g. :func:`whitening_of` a budget)."""
-    W = whitening(cov_A) if W is None else W
+    if W is None:
+        assert cov_A is not None, "give cov_A or its whitening W"
+        W = whitening(cov_A)
     WJ = W @ J
     F = WJ.T @ WJ
     P = F.shape[0]

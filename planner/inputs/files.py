@@ -13,10 +13,12 @@ import shutil
 import tempfile
 from pathlib import Path
 
+from .errors import InputError
+
 _TEMP_STEM = 24  # characters of the output's name kept in the temporary name (a long name must still fit)
 
 
-class OutputError(ValueError):
+class OutputError(InputError):
     """An output path that cannot be written; ``key`` is the path."""
 
     def __init__(self, path: str | Path, message: str):

@@ -258,7 +258,7 @@ class Medium(_Strict):
     reference_ionic_strength_M: IonicStrength | None = Field(default=None, alias="reference_ionic_strength")
 
 
-class Design(_Strict):
+class DesignSettings(_Strict):
     tubes: _int(1, 200) = 8
     target: str | None = None
     criterion: Literal["target", "all"] = "target"
@@ -285,7 +285,7 @@ class Plan(_Strict):
     stock: list[Stock] = Field(min_length=1)
     glassware: Glassware
     medium: Medium = Medium()
-    design: Design = Design()
+    design: DesignSettings = DesignSettings()
     titration: Titration | None = None
 
     # -- cross-field checks, each naming its key ---------------------------------------------------

@@ -50,11 +50,12 @@ from typing import Annotated, Any
 
 from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict
 
+from .errors import InputError
 from .text import check_identifier, check_text
 from .units import UnitError, parse_quantity
 
 
-class PlanError(ValueError):
+class PlanError(InputError):
     """A plan that cannot be used, with the key path and a hint for the fix.
 
     Parameters

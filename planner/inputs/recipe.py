@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .errors import InputError
 from .files import read_user_text
 from .names import unknown_name
 from .plan import Plan
@@ -32,7 +33,7 @@ DILUENT_TOLERANCE_ML = 1e-6  # a supplied to-mark diluent volume must equal the 
 _NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 
 
-class RecipeError(ValueError):
+class RecipeError(InputError):
     """A recipe that does not fit the plan; ``key`` names the row/column."""
 
     def __init__(self, key: str, message: str):

@@ -10,10 +10,12 @@ from functools import cache
 
 import pint
 
+from .errors import InputError
+
 MAX_QUANTITY_CHARS = 60  # "0.0200 mol/L" is 12; pint's expression parser need not see a page of text
 
 
-class UnitError(ValueError):
+class UnitError(InputError):
     """A quantity string that cannot be read, or has the wrong dimension."""
 
 

@@ -6,8 +6,10 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..inputs.errors import KplanError
 
-class EquilibriumError(ValueError):
+
+class EquilibriumError(KplanError):
     """Raised when mass balances cannot be solved: invalid totals or constants, or non-convergence."""
 
 

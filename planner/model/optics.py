@@ -19,7 +19,7 @@ def beer_lambert(conc_M: np.ndarray, epsilon_M_cm: np.ndarray, path_cm: float) -
     return path_cm * np.sum(np.asarray(conc_M) * np.asarray(epsilon_M_cm), axis=-1)
 
 
-def with_stray_light(absorbance: np.ndarray, stray_fraction: float) -> np.ndarray:
+def with_stray_light(absorbance: float | np.ndarray, stray_fraction: float) -> np.ndarray:
     """Observed absorbance with a stray-light fraction s of the incident light.
 
     A_obs = −log10((10^−A + s) / (1 + s))  [source: ASTM E387; domain.md §2].

@@ -17,6 +17,7 @@ import urllib.parse
 from collections.abc import Sequence
 from importlib import resources
 
+from ..inputs.errors import KplanError
 from . import fmt as _fmt
 from .sheets import RenderError, plan_notes, prep_context, report_context
 
@@ -39,7 +40,7 @@ FORMATS = ("pdf", "html")
 _log = logging.getLogger(__name__)
 
 
-class FetchRefused(ValueError):
+class FetchRefused(KplanError):
     """A sheet asked for a resource that is not inline data (refused by design)."""
 
 

@@ -17,6 +17,8 @@ from importlib import resources
 
 import tomllib
 
+from ..inputs.errors import InputError
+
 __all__ = [
     "ALWAYS",
     "CLASSES",
@@ -167,7 +169,7 @@ GENERAL_CAUTIONS: tuple[str, ...] = (
 )
 
 
-class SafetyDataError(ValueError):
+class SafetyDataError(InputError):
     """The reagent library is malformed; the message names the entry, the key and the fix."""
 
 

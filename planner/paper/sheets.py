@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 from markupsafe import Markup
 
+from ..inputs.errors import KplanError
 from ..inputs.plan import Plan
 from ..inputs.recipe import Recipe
 from ..jobs.plan.checks import SATURATION_WINDOW
@@ -45,7 +46,7 @@ PREFILL_FRACTION = 0.5  # put in about half of the smallest diluent share first 
 MIX_INVERSIONS = 10  # inversions to mix a stoppered volumetric flask [common practice]
 
 
-class RenderError(ValueError):
+class RenderError(KplanError):
     """A sheet cannot be made as asked; the message names the argument and the fix."""
 
 

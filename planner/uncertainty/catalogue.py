@@ -9,14 +9,18 @@ from __future__ import annotations
 
 import functools
 import math
+import sys
 from dataclasses import dataclass, replace
 from importlib import resources
+from typing import Any
 
 import numpy as np
 
-try:  # Python ≥ 3.11
+from ..inputs.errors import InputError
+
+if sys.version_info >= (3, 11):
     import tomllib
-except ModuleNotFoundError:  # pragma: no cover - Python 3.10 fallback
+else:  # pragma: no cover - Python 3.10 fallback
     import tomli as tomllib
 
 KINDS = ("burette", "pipette", "graduated-pipette", "flask", "micropipette")
@@ -58,7 +62,7 @@ _GRID_ATOL_mL = 1e-10  # the resolution of the 10-decimal rounding
 _MAX_GRID_POINTS = 1_000_000
 
 
-class GlasswareError(ValueError):
+class GlasswareError(InputError):
     """A glassware choice or a volume the user asked for cannot be honoured; the message says why."""
 
 
@@ -166,12 +170,12 @@ def _parse_catalogue(data: dict) -> tuple[GlasswareItem, ...]:
                 note=str(e.get("note", "")),
             )
         )
-    seen = set()
+    seen: set[tuple[str, float]] = set()
     for it in items:
-        key = (it.kind, round(it.capacity_mL, 9))
-        if key in seen:
+        ident = (it.kind, round(it.capacity_mL, 9))
+        if ident in seen:
             raise GlasswareError(f"glassware catalogue lists the {it.label} twice; keep one entry")
-        seen.add(key)
+        seen.add(ident)
     items.sort(key=lambda it: (KINDS.index(it.kind), it.capacity_mL))
     return tuple(items)
 
@@ -298,7 +302,7 @@ def lookup(
             tolerance_mL=CLASS_B_FACTOR * item.tolerance_mL,
             source=f"{item.source}; class B = 2 × class A (ASTM E287 §1.1.2, E288 §1.1.2)",
         )
-    changes = {}
+    changes: dict[str, Any] = {}
     if tolerance_mL is not None:
         changes.update(
             tolerance_mL=float(tolerance_mL),

@@ -189,7 +189,9 @@ def delivery_uncertainty(
             raise GlasswareError(
                 f"{item.label} has no random limit; pass repeatability_mL or random_mL to lookup()"
             )
-        random = item.random_mL if repeatability_mL is None else repeatability_mL
+        r = item.random_mL if repeatability_mL is None else repeatability_mL
+        assert r is not None  # checked above
+        random = r
         calibration = np.full_like(v, float(u_rectangular(item.tolerance_mL)))
     else:  # pragma: no cover - lookup() guards kinds
         raise GlasswareError(f"unknown glassware kind {item.kind!r}; use one of: {', '.join(KINDS)}")

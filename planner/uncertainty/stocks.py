@@ -16,9 +16,11 @@ import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
+from ..inputs.errors import InputError
 from .catalogue import REPEATABILITY_PER_U_CALIBRATION, GlasswareError, GlasswareItem, catalogue, lookup
 from .delivery import delivery_uncertainty, flask_volume_uncertainty, u_rectangular, u_triangular
 
@@ -66,7 +68,7 @@ equally precise, and the one weighing the least reagent is chosen [design choice
 stock's u is invisible next to the other terms of a fit]."""
 
 
-class StockError(ValueError):
+class StockError(InputError):
     """A stock cannot be prepared as asked; the message names what was wrong and a fix."""
 
 
@@ -441,7 +443,7 @@ def prepare_stock(
         raise StockError(str(exc)) from None
 
     mass_direct = mass_for_conc_g(conc, final.capacity_mL, fw, p)
-    common = dict(
+    common: dict[str, Any] = dict(
         conc_M=conc,
         flask=final,
         formula=formula,

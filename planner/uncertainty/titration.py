@@ -22,12 +22,18 @@ from ..inputs.schedule import Schedule
 from ..model.compiled import Model, TubeState
 from ..model.jacobians import absorbance_derivatives
 from . import delivery
-from .bench import Bench
+from .bench import Bench, TitrationSetup
 from .covariance import ErrorBudget, volume_derivatives
 
 
+def _setup(bench: Bench) -> TitrationSetup:
+    """The bench's titration (the callers are reached only for titration plans)."""
+    assert bench.titration is not None, "not a titration plan"
+    return bench.titration
+
+
 def _devices(bench: Bench):
-    t = bench.titration
+    t = _setup(bench)
     ks, kt = bench.stock_index(t.cell), bench.stock_index(t.titrant)
     js, jt = bench.devices.stock_device[ks], bench.devices.stock_device[kt]
     return (
@@ -111,13 +117,13 @@ def titration_recipe(bench: Bench, schedule: Schedule) -> Recipe:
 
 def aliquots_of(bench: Bench, recipe: Recipe) -> np.ndarray:
     """(n,) the aliquot added before each point (the recipe rows are points of one titration)."""
-    kt = bench.stock_index(bench.titration.titrant)
+    kt = bench.stock_index(_setup(bench).titrant)
     return np.diff(np.concatenate([[0.0], recipe.volumes_mL[:, kt]]))
 
 
 def _parts(bench: Bench, recipe: Recipe, delta_T_C: float | None):
     """(random sd, systematic sd) of each aliquot (n,) and of the start volume (scalars)."""
-    t = bench.titration
+    t = _setup(bench)
     dT = bench.delta_T_C if delta_T_C is None else delta_T_C
     _, _, cell_dev, tit_dev = _devices(bench)
     v = aliquots_of(bench, recipe)
@@ -134,7 +140,7 @@ def titration_budget(
     bench: Bench, model: Model, recipe: Recipe, state: TubeState, *, delta_T_C: float | None = None
 ) -> ErrorBudget:
     """Covariance of a titration's readings by source (see the module docstring)."""
-    t = bench.titration
+    t = _setup(bench)
     ks, kt = bench.stock_index(t.cell), bench.stock_index(t.titrant)
     dA_dtot = absorbance_derivatives(model, state).dA_dtotals
     dA_dV, _ = volume_derivatives(bench, recipe, dA_dtot, model.stock_conc_M)  # "added": dilution included
@@ -172,7 +178,7 @@ def titration_volumes(
 ) -> tuple[np.ndarray, np.ndarray]:
     """T simulated titrations' volumes (T, n, k) and totals (T, n): one start volume and one calibration
     error per titration, every aliquot's random error, accumulated along the points."""
-    t = bench.titration
+    t = _setup(bench)
     ks, kt = bench.stock_index(t.cell), bench.stock_index(t.titrant)
     n, k = recipe.volumes_mL.shape
     r, s, r0, s0 = _parts(bench, recipe, None)

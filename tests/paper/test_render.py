@@ -26,7 +26,7 @@ from planner.paper import figures, fmt, render, safety, sheets
 
 from ..conftest import ROOT, scenario_text
 
-pypdf = pytest.importorskip("pypdf")
+import pypdf
 
 DATE = "2026-12-01"
 TRIALS = 200

@@ -6,7 +6,7 @@ from __future__ import annotations
 from ...inputs.choices import SERIES_METHOD_OPTIONS, SERIES_METHODS
 from ._deps import Plan, plan_model
 from .calibration import conversion_tube
-from .common import SeriesResult
+from .common import ClassicSeries
 from .job import continuous_variation
 from .mole_ratio import mole_ratio_series
 from .survey import wavelength_survey
@@ -18,7 +18,7 @@ METHOD_OPTIONS = SERIES_METHOD_OPTIONS
 __all__ = [
     "METHODS",
     "METHOD_OPTIONS",
-    "SeriesResult",
+    "ClassicSeries",
     "continuous_variation",
     "conversion_tube",
     "mole_ratio_series",
@@ -40,7 +40,7 @@ def run_series(
     vary: str | None = None,
     max_ratio: float | None = None,
     recipe=None,
-) -> SeriesResult:
+) -> ClassicSeries:
     """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
     if method == "job":
         return continuous_variation(plan, points=points, total_M=total_M)

@@ -38,7 +38,7 @@ from ._deps import (
     tube_ions_M,
 )
 from .common import (
-    SeriesResult,
+    ClassicSeries,
     capacity_mL,
     fill_volumes,
     finish,
@@ -68,7 +68,7 @@ def conversion_tube(
     total_M: float | None = None,
     excess_M: float | None = None,
     tubes: int = 1,
-) -> SeriesResult:
+) -> ClassicSeries:
     """Plan and judge a "complete conversion" calibration tube (and its reagent blank).
 
     Parameters

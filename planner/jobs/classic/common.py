@@ -35,7 +35,7 @@ KEPT_ASSESS_CHECKS = ("glassware", "stock-budget", "ionic-strength", "hydrolysis
 
 
 @dataclass(frozen=True)
-class SeriesResult:
+class ClassicSeries:
     """A classic series planned and judged.
 
     Attributes
@@ -66,7 +66,7 @@ class SeriesResult:
     notes: tuple[str, ...] = ()
 
     def __repr__(self) -> str:
-        return f"SeriesResult({self.method}, {self.recipe.n_tubes} tubes, answers={self.answers})"
+        return f"ClassicSeries({self.method}, {self.recipe.n_tubes} tubes, answers={self.answers})"
 
     @property
     def exit_code(self) -> int:
@@ -117,7 +117,7 @@ def finish(
     reason_ok: str,
     reason_bad: str | None = None,
     notes: tuple[str, ...] = (),
-) -> SeriesResult:
+) -> ClassicSeries:
     """Merge the method's checks with the kept assess checks, sort worst first and decide the verdict."""
     kept = [c for c in a.checks if c.id in KEPT_ASSESS_CHECKS]
     checks = sorted(own + kept, key=lambda c: -STATUSES.index(c.status))
@@ -127,7 +127,7 @@ def finish(
         reason = reason_ok
     else:
         reason = reason_bad or f"check '{failed[0].id}' fails: {failed[0].message}"
-    return SeriesResult(
+    return ClassicSeries(
         method, plan.title, question, recipe, a, tuple(checks), answers, reason, extra, columns, tuple(notes)
     )
 

@@ -29,7 +29,7 @@ from ._deps import (
     whitening,
 )
 from .common import (
-    SeriesResult,
+    ClassicSeries,
     capacity_mL,
     corrected,
     fill_volumes,
@@ -53,7 +53,7 @@ QUESTION = "which stoichiometry: does the curve tell the plan's complexes from 1
 
 def continuous_variation(
     plan: Plan, *, points: int | None = None, total_M: float | None = None
-) -> SeriesResult:
+) -> ClassicSeries:
     """Plan and judge a continuous-variation series.
 
     Parameters

@@ -42,7 +42,7 @@ from ._deps import (
     tube_ions_M,
 )
 from .common import (
-    SeriesResult,
+    ClassicSeries,
     capacity_mL,
     corrected,
     fill_volumes,
@@ -76,7 +76,7 @@ def mole_ratio_series(
     points: int | None = None,
     total_M: float | None = None,
     max_ratio: float | None = None,
-) -> SeriesResult:
+) -> ClassicSeries:
     """Plan and judge a mole-ratio series.
 
     Parameters

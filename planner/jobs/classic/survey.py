@@ -35,7 +35,7 @@ from ._deps import (
     tube_ions_M,
 )
 from .common import (
-    SeriesResult,
+    ClassicSeries,
     finish,
     range_check,
 )
@@ -52,7 +52,7 @@ def band_epsilon(wavelength_nm: np.ndarray, peak_nm: float, fwhm_nm: float, epsi
     return epsilon_max * np.exp(-0.5 * ((np.asarray(wavelength_nm, dtype=float) - peak_nm) / sigma) ** 2)
 
 
-def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> SeriesResult:
+def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> ClassicSeries:
     """Survey the bands for the wavelength where SE(log β[target]) of ``recipe`` is smallest.
 
     Parameters

@@ -81,7 +81,7 @@ class Design:
         )
 
     @property
-    def se_ratio_vs_even(self) -> float:
+    def se_even_over_design(self) -> float:
         return self.se_even / self.se_target if self.se_target > 0 else float("nan")
 
     def summary(self) -> dict:
@@ -99,7 +99,7 @@ class Design:
                 "candidates_feasible": self.n_feasible,
                 "se_target": self.se_target,
                 "se_even_series": self.se_even,
-                "se_ratio_vs_even": self.se_ratio_vs_even,
+                "se_ratio_vs_even": self.se_even_over_design,
                 "se_across_guess": [
                     {"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across
                 ],

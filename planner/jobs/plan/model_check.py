@@ -46,7 +46,7 @@ class ModelCheck:
     moves: int
 
     @property
-    def se_cost_ratio(self) -> float:
+    def se_guarded_over_target_only(self) -> float:
         return self.se_guarded / self.se_target_only if self.se_target_only > 0 else float("nan")
 
     def summary(self) -> dict:
@@ -55,7 +55,7 @@ class ModelCheck:
             "tubes_moved": self.moves,
             "se_target_only": _f(self.se_target_only),
             "se_guarded": _f(self.se_guarded),
-            "se_cost_ratio": _f(self.se_cost_ratio),
+            "se_cost_ratio": _f(self.se_guarded_over_target_only),
             "power_goal": POWER_GOAL,
             "alternatives": [
                 {

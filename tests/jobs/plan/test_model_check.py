@@ -38,7 +38,7 @@ def test_guarded_design_catches_a_left_out_complex_at_a_small_cost(designs):
         assert t.power < 0.2, (g.alternative, t.power)
         assert g.power >= 0.8, (g.alternative, g.power)
         assert abs(g.power - g.power_noise_free) < 0.1  # simulation and noncentral χ² agree
-    assert 1.0 <= mc.se_cost_ratio < 1.35
+    assert 1.0 <= mc.se_guarded_over_target_only < 1.35
     assert mc.se_target_only == pytest.approx(plain.se_target, rel=1e-9)
     assert guarded.se_target == pytest.approx(mc.se_guarded, rel=1e-9)
     assert len({tuple(row) for row in guarded.recipe.volumes_mL}) > len(
