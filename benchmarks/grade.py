@@ -44,7 +44,7 @@ def make_class(study, n_students: int, rng: np.random.Generator):
 
     from planner.inputs.gradebook import KeyCard
     from planner.inputs.recipe import Recipe
-    from planner.jobs.classroom.mixup import inject
+    from planner.jobs.classroom.practice import inject
     from planner.jobs.compile import expected_state
     from planner.jobs.plan.even import even_series_for
     from planner.uncertainty.budget import error_budget
@@ -59,7 +59,6 @@ def make_class(study, n_students: int, rng: np.random.Generator):
     eps = model.epsilon_M_cm.copy()
     eps[model.absorbers.index("ML")] *= OFFSET[1]
     truth = replace(model, stock_conc_M=true_conc, log_beta=lb, epsilon_M_cm=eps)
-    true_study = replace(study, model=truth)
     cards, results = [], {}
     for s in range(n_students):
         V = base.volumes_mL.copy()
@@ -82,7 +81,7 @@ def make_class(study, n_students: int, rng: np.random.Generator):
             )
         )
         kind = SLIPS[(s // 10) % len(SLIPS)] if s % 10 == 9 else None
-        a, _, _ = inject(true_study, rec, kind, rng)
+        a, _, _ = inject(study, rec, kind, rng, truth=truth)
         results[sid] = {t: float(x) for t, x in zip(rec.tubes, np.round(a, 4), strict=True)}
     return tuple(cards), results
 

@@ -23,7 +23,8 @@ from importlib import resources
 import numpy as np
 
 from planner.inputs.plan import parse_plan_text
-from planner.jobs.classroom.mixup import KINDS, diagnose, inject
+from planner.jobs.classroom.mixup import KINDS, diagnose
+from planner.jobs.classroom.practice import inject
 from planner.jobs.compile import compile_study
 from planner.jobs.plan.even import even_series_for
 

@@ -149,7 +149,7 @@ def fit_batch(study: Study, recipe: Recipe, Y: np.ndarray, *, interval: bool = T
     fit = _refit(reading, theta1, Y, W)
     dof = n - params.size
     det = determined_mask(params, fit.theta, fit.se, np.asarray(fit.converged), lo, hi)
-    p_high, p_low, scale = _tails(fit.chi2, dof)
+    p_high, p_low, scale = chi2_tails(fit.chi2, dof)
     X = W @ reading.jac(fit.theta)
     e = np.einsum("tij,tj->ti", W, Y - reading.f(fit.theta))
     cap = max(0, min(n - params.size - 1, n // 3))
@@ -213,7 +213,7 @@ def _refit(reading: ReadingModel, theta: np.ndarray, Y: np.ndarray, W: np.ndarra
     return fit_many(reading.f, theta, Y, jac=reading.jac, whiten=w, scale_cov=False, lower=lo, upper=hi)
 
 
-def _tails(chi2: np.ndarray, dof) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def chi2_tails(chi2: np.ndarray, dof) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Upper and lower tails of χ²(dof) and the widening s = √(χ²/dof) where the upper tail fails
     (``dof`` a whole number, or one per experiment)."""
     chi2 = np.asarray(chi2, dtype=float)
@@ -261,7 +261,7 @@ def _without(study: Study, recipe: Recipe, reading: ReadingModel, Y, fit, rows, 
     np.add.at(cov, (np.broadcast_to(R, taken.shape)[hit], idx[hit], idx[hit]), boost[hit])
     W = np.linalg.solve(np.linalg.cholesky(cov), np.broadcast_to(np.eye(cov.shape[-1]), cov.shape))
     res = _refit(reading, theta, Y, W)
-    _, _, scale = _tails(res.chi2, Y.shape[1] - reading.params.size - hit.sum(axis=1))
+    _, _, scale = chi2_tails(res.chi2, Y.shape[1] - reading.params.size - hit.sum(axis=1))
     return _interval(reading, W, Y, res, np.arange(rows.size), scale)
 
 
