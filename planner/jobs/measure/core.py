@@ -26,7 +26,7 @@ from ...inference.precision import ReadingModel, unpack, whitening
 from ...inference.study import Study
 from ...inference.tails import chi2_cdf, chi2_sf
 from ...inputs.recipe import Recipe
-from ...model.compiled import predict, tube_ions_M
+from ...model.compiled import tube_ions_M
 from ...uncertainty.budget import error_budget, error_factors
 from ..compile import expected_state
 from .outliers import suspects
@@ -93,17 +93,7 @@ def covariance_at(study: Study, recipe: Recipe, theta: np.ndarray) -> np.ndarray
                 for k in range(theta.shape[0])
             ]
         )
-    T = theta.shape[0]
-    tot = expected_state(model, recipe).totals_M
-    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-    state = predict(
-        model,
-        np.broadcast_to(tot, (T,) + tot.shape),
-        np.broadcast_to(ions, (T,) + ions.shape),
-        log_beta=lb,
-        epsilon_M_cm=eps,
-        warn=False,
-    )
+    state = expected_state(model, recipe, batch=theta.shape[0], log_beta=lb, epsilon_M_cm=eps, warn=False)
     f = error_factors(bench, model, recipe, state)
     shared = np.concatenate([f.J_stock, f.J_device], axis=-1)
     cov = shared @ np.swapaxes(shared, -1, -2)
