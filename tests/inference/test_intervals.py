@@ -85,7 +85,16 @@ def test_a_side_that_never_crosses_is_open():
     y = np.full((1, 4), 0.999)
     theta = np.array([[np.log(0.999 / 0.001)]])
     lo, hi = profile_interval(
-        f, jac, np.eye(4) / 0.01, y, theta, 0, se=np.array([5.0]), chi2_min=np.zeros(1), lower=[-20], upper=[20]
+        f,
+        jac,
+        np.eye(4) / 0.01,
+        y,
+        theta,
+        0,
+        se=np.array([5.0]),
+        chi2_min=np.zeros(1),
+        lower=[-20],
+        upper=[20],
     )
     assert np.isfinite(lo[0]) and lo[0] < theta[0, 0] and np.isnan(hi[0])
     # the low end is where 4 readings of 0.999 ± 0.01 would rise Δχ² = 3.84: 4 (0.999 − s)² / 0.01² = 3.84
