@@ -10,6 +10,7 @@ from __future__ import annotations
 import errno
 import os
 import shutil
+import stat
 import tempfile
 from pathlib import Path
 
@@ -216,6 +217,23 @@ def _keep_old(target: Path, backup: str) -> str | None:
     return backup
 
 
+class _NotRegular(OSError):
+    """The path names a pipe, socket or device: reading it could block forever or never end."""
+
+
+def _read_regular(p: Path, limit_bytes: int) -> bytes:
+    """At most ``limit_bytes + 1`` bytes of the regular file ``p``. Opened without blocking (a FIFO
+    with no writer would otherwise wait forever) and checked to be a regular file before any read."""
+    fd = os.open(p, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0))
+    with os.fdopen(fd, "rb") as fh:
+        mode = os.fstat(fd).st_mode
+        if stat.S_ISDIR(mode):
+            raise IsADirectoryError(errno.EISDIR, "is a folder", str(p))
+        if not stat.S_ISREG(mode):
+            raise _NotRegular(errno.EINVAL, "not a regular file", str(p))
+        return fh.read(limit_bytes + 1)
+
+
 def read_user_text(
     path: str | Path,
     *,
@@ -239,12 +257,17 @@ def read_user_text(
     """
     p = Path(path)
     try:
-        with p.open("rb") as fh:
-            raw = fh.read(limit_bytes + 1)
+        raw = _read_regular(p, limit_bytes)
     except FileNotFoundError:
         raise error("", f"{what} file '{p}' not found: check the path{missing_hint}") from None
     except IsADirectoryError:
         raise error("", f"{what} file '{p}' is a folder: give the path of {kind}") from None
+    except _NotRegular:
+        raise error(
+            "",
+            f"{what} file '{p}' is not a regular file (a pipe, socket or device): save it as a file and "
+            "give that file's path",
+        ) from None
     except OSError as exc:
         raise error("", f"cannot read {what} file '{p}': {exc.strerror or exc}") from None
     if len(raw) > limit_bytes:
