@@ -50,12 +50,12 @@ from typing import Annotated, Any
 
 from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict
 
-from .errors import InputError
+from .errors import LocatedError
 from .text import check_identifier, check_text
 from .units import UnitError, parse_quantity
 
 
-class PlanError(InputError):
+class PlanError(LocatedError):
     """A plan that cannot be used, with the key path and a hint for the fix.
 
     Parameters
@@ -65,11 +65,6 @@ class PlanError(InputError):
     message : str
         What was wrong and how to fix it.
     """
-
-    def __init__(self, key: str, message: str):
-        self.key = key
-        self.message = message
-        super().__init__(f"{key}: {message}" if key else message)
 
 
 MAX_VOLUME_ML = 10_000.0  # 10 L: larger than any flask, burette or tube a plan describes

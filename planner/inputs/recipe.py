@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
+from .errors import LocatedError
 from .limits import MAX_CSV_BYTES as MAX_CSV_BYTES  # re-exported: the limits live in limits.py
 from .limits import MAX_ROWS as MAX_ROWS
 from .names import unknown_name
@@ -25,13 +25,8 @@ VOLUME_DECIMALS = 4  # mL; far below any dispenser's resolution, so round trips 
 DILUENT_TOLERANCE_ML = 1e-6  # a supplied to-mark diluent volume must equal the remainder this closely
 
 
-class RecipeError(InputError):
+class RecipeError(LocatedError):
     """A recipe that does not fit the plan; ``key`` names the row/column."""
-
-    def __init__(self, key: str, message: str):
-        self.key = key
-        self.message = message
-        super().__init__(f"{key}: {message}" if key else message)
 
 
 @dataclass(frozen=True)

@@ -30,7 +30,7 @@ from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from .errors import InputError
+from .errors import LocatedError
 from .files import read_user_text
 from .limits import MAX_CELL_CHARS, MAX_CSV_BYTES, MAX_ROWS
 from .text import first_unsafe, visible
@@ -43,13 +43,8 @@ NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 FORMULA_TRIGGERS = frozenset("=+-@\t\r\0")
 
 
-class TableError(InputError):
+class TableError(LocatedError):
     """A table that cannot be read; ``key`` names the file, line and column."""
-
-    def __init__(self, key: str, message: str):
-        self.key = key
-        self.message = message
-        super().__init__(f"{key}: {message}" if key else message)
 
 
 @dataclass(frozen=True)
