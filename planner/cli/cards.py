@@ -10,6 +10,7 @@ from typing import Annotated
 import typer
 
 from ..inputs.choices import PAPERS as PAPER_CHOICES
+from ..inputs.limits import MAX_CARDS, MAX_TUBES
 from .app import UserError, app, dump_json, err, out
 from .app import safe_text as S
 
@@ -40,7 +41,12 @@ def cards(
     ] = None,
     count: Annotated[
         int | None,
-        typer.Option(help="number of students, without a roster (ids S01, S02, …)", min=1, metavar="INTEGER"),
+        typer.Option(
+            help=f"number of students, without a roster (ids S01, S02, …; at most {MAX_CARDS})",
+            min=1,
+            max=MAX_CARDS,
+            metavar="INTEGER",
+        ),
     ] = None,
     out_dir: Annotated[
         Path, typer.Option("--out", help="folder for the cards, the key and the stock list", metavar="PATH")
@@ -49,7 +55,10 @@ def cards(
         int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")
     ] = 0,
     tubes: Annotated[
-        int | None, typer.Option(help="tubes per student (overrides design.tubes)", min=1, metavar="INTEGER")
+        int | None,
+        typer.Option(
+            help="tubes per student's card (overrides design.tubes)", min=1, max=MAX_TUBES, metavar="INTEGER"
+        ),
     ] = None,
     sections: Annotated[
         int | None,
@@ -75,7 +84,7 @@ def cards(
         raise UserError("give either --roster FILE or --count N (one of them)")
     if paper not in PAPER_CHOICES:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPER_CHOICES)}")
-    check_output_folder(out_dir)  # before the work, not after it
+    check_output_folder(out_dir, OUTPUTS, (plan, roster_path))  # before the work, not after it
     p = load_plan(plan)
     roster = read_roster_csv(roster_path) if roster_path is not None else roster_of_count(count)
     roster = _sections(roster, sections)

@@ -30,6 +30,7 @@ MAX_SPECIES = 40  # species in a plan (complexes, protonated ligands, hydroxo sp
 MAX_STOCKS = 20  # stocks in a plan
 MAX_DISPENSERS = 20  # dispensers in a plan
 MAX_ALTERNATIVES = 10  # alternative species of the model check
+MAX_IONS = 20  # ions listed in one stock
 MAX_GRID_LEVELS = 20_000  # grid volumes per stock (tube_volume / step); the design enumerates them
 MAX_QUANTITY_CHARS = 60  # "0.0200 mol/L" is 12; no quantity needs a page of text
 MAX_TEXT = 200  # characters in a title, label, name, reagent name or formula
@@ -69,4 +70,19 @@ def check_count(value: object, name: str, limit: int, *, least: int = 1, fix: st
     return n
 
 
-__all__ = [name for name in dir() if name.startswith("MAX_")] + ["check_count"]
+def check_class_size(students: int, tubes: object) -> tuple[int, int]:
+    """(tubes per card, students) of a class set, or a :class:`LimitError`: at most :data:`MAX_TUBES`
+    tubes per card, :data:`MAX_CARDS` cards and :data:`MAX_CLASS_TUBES` tubes on all of them."""
+    n = check_count(tubes, "tubes (per card)", MAX_TUBES)
+    cards = check_count(
+        students, "students", MAX_CARDS, fix="make one class set per section (a roster per section)"
+    )
+    if n * cards > MAX_CLASS_TUBES:
+        raise LimitError(
+            f"{cards} students × {n} tubes = {n * cards} tubes: a class set has at most {MAX_CLASS_TUBES}; "
+            "use fewer tubes per card or make one class set per section"
+        )
+    return n, cards
+
+
+__all__ = [name for name in dir() if name.startswith("MAX_")] + ["check_class_size", "check_count"]

@@ -98,9 +98,15 @@ def _range(
         where = f"between {lo:g} and {hi:g}{u}"
 
     def check(v: float) -> float:
-        ok = math.isfinite(v) and (v > lo if lo_open else v >= lo) and (v < hi if hi_open else v <= hi)
+        finite = isinstance(v, int) or math.isfinite(v)  # an int of 400 digits is finite but not a float
+        ok = finite and (v > lo if lo_open else v >= lo) and (v < hi if hi_open else v <= hi)
         if not ok:
-            raise ValueError(f"must be {what}{where}, got {v:g}{u}{hint}")
+            shown = (
+                f"{v:g}"
+                if not isinstance(v, int) or abs(v) < 10**15
+                else f"a {len(str(abs(v)))}-digit number"
+            )
+            raise ValueError(f"must be {what}{where}, got {shown}{u}{hint}")
         return v
 
     return AfterValidator(check)
