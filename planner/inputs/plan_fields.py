@@ -20,15 +20,15 @@ key                                          range                           uni
 ``optics.wavelength_nm``, ``bands.peak_nm``  100 … 2000                      nm
 ``optics.bandwidth_nm``                      0 (excluded) … 500              nm
 ``bands.fwhm_nm``                            0 (excluded) … 2000             nm
-``optics.path_cm``                           0 (excluded) … 100              cm
+``optics.path_cm``                           0.001 … 100                     cm
 ``optics.epsilon.value``, ``epsilon_max``    0 … 1e6                         L mol⁻¹ cm⁻¹
 ``optics.epsilon.rsd``                       0 … 5                           relative
 ``optics.noise.k1/k2/k3``                    0 … 1                           transmittance
-``optics.linear_range``                      0 … 10                          absorbance
+``optics.linear_range``                      0 … 10, ≥ 0.05 wide             absorbance
 ``optics.stray_light``                       0 … 1 (excluded)                fraction
 ``optics.display_step``                      0 … 1                           absorbance
 ``stock.conc_rsd``                           0 … 1 (excluded)                relative
-``stock.purity``                             0 (excluded) … 1                fraction
+``stock.purity``                             0.5 … 1                         fraction
 tube_volume, step, flask, capacity, on_hand  1e-6 … 10 000                   mL
 min_volume, rinse, dead_volume, fixed        0, or 1e-6 … 10 000             mL
 ``glassware.step``                           ≤ 20 000 levels to tube_volume
@@ -37,6 +37,7 @@ min_volume, rinse, dead_volume, fixed        0, or 1e-6 … 10 000             m
 ``design.goal_se``                           0 (excluded) … 5                log10 units
 ``design.ionic_strength_tolerance``          0 … 1 (both excluded)           relative
 ``design.tubes``                             1 … 200                         integer
+``species``, ``stock`` (counts)              ≤ 40, ≤ 20                      entries
 ``design.check_weight``                      0 … 1 (excluded)                weight
 ``titration`` volumes                        1e-6 … 10 000                   mL
 ``titration.additions``                      1 … 60                          integer
