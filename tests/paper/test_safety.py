@@ -370,3 +370,16 @@ def test_summary_is_json_safe():
     assert {p["code"] for p in s["pictograms"]} == {"GHS07", "GHS08", "GHS09"}
     assert all(st_["text"] for st_ in s["statements"])
     assert safety.PlanReagent("x", ("A",), None, message=NO_DATA).summary()["message"] == NO_DATA
+
+
+def test_printed_provenance_cites_no_developer_document():
+    # the library's provenance is printed in the safety box of every prep sheet and card: it names
+    # public sources (CLP, a supplier SDS) or says "recalled", never the project's own notes
+    from importlib import resources
+
+    text = resources.files("planner.data").joinpath("reagents.toml").read_text(encoding="utf-8")
+    data = tomllib.loads(text)
+    for entry in data.get("reagent", []):
+        for key in ("source", "notes", "waste"):
+            value = str(entry.get(key, ""))
+            assert ".md" not in value and "domain" not in value.lower(), (entry.get("name"), key, value)
