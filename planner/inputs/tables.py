@@ -38,6 +38,11 @@ from .text import first_unsafe, visible
 # A plain decimal number with a point: no 'nan', 'inf', '1_000' or hex, which float() would take.
 NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 
+# a control or text-direction character other than the line break (which ends a row, not a cell)
+_UNSAFE_IN_LINE = re.compile(
+    "[\x00-\x09\x0b-\x1f\x7f-\x9f\u061c\u200e\u200f\u2028\u2029\u202a-\u202e\u2066-\u2069]"
+)
+
 # Characters that make a spreadsheet read a cell as a formula when they come first. source: OWASP,
 # "CSV Injection" (= + - @ tab CR) and ASVS 4.0 requirement 5.3.x / 5.0 1.2.10 (also NUL).
 FORMULA_TRIGGERS = frozenset("=+-@\t\r\0")
@@ -120,8 +125,13 @@ class Table:
 
     def number(self, row: Row, j: int, what: str = "a number") -> float:
         """The number in cell ``j`` of ``row`` (decimal comma in a ``;`` file), or an error naming it."""
+        c = row.cells[j]
+        if not self.decimal_comma and NUMBER.fullmatch(c):  # the common case, without building a message
+            v = float(c)
+            if math.isfinite(v):
+                return v
         return parse_number(
-            row.cells[j],
+            c,
             self.where(row.line, self.header[j]),
             what,
             error=self.spec.error,
@@ -207,8 +217,11 @@ def write_csv(header: Sequence[object], rows: Iterable[Sequence[object]]) -> str
     import io
 
     buf = io.StringIO()
+    head = [csv_cell(h) for h in header]
+    # a ';' or a tab in a column name would make the header look like another separator's: quote it
+    odd = any(";" in h or "\t" in h for h in head)
+    csv.writer(buf, lineterminator="\n", quoting=csv.QUOTE_ALL if odd else csv.QUOTE_MINIMAL).writerow(head)
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow([csv_cell(h) for h in header])
     for r in rows:
         w.writerow([csv_cell(c) for c in r])
     return buf.getvalue()
@@ -252,48 +265,68 @@ def parse_table(text: str, spec: TableSpec, source: str = "<table>") -> Table:
     delimiter, decimal_comma = _dialect(lines[h], spec, f"{source} line {h + 1}")
     records = _records(lines, h, delimiter, spec, source)
     header_line, header = records[0]
-    header = tuple(_clean(c, spec, f"{source} header") for c in header)
+    header = tuple(_clean(c, spec, source, None, "") for c in header)
     _check_header(header, spec, source)
-    rows = []
-    for line, cells in records[1:]:
-        if len(cells) != len(header):
-            raise spec.error(f"{source} line {line}", _width_message(len(header), len(cells), spec))
-        where = f"{source} line {line}"
-        rows.append(
-            Row(
-                line,
-                tuple(_clean(c, spec, f"{where}, {visible(n)}") for c, n in zip(cells, header, strict=True)),
-            )
-        )
+    width = len(header)
+    if _UNSAFE_IN_LINE.search(text) is None:  # the common case: no cell can hold a control character
+        rows = [Row(line, _clean_row(cells, header, spec, source, line)) for line, cells in records[1:]]
+    else:
+        rows = [
+            Row(line, tuple(_clean(c, spec, source, line, n) for c, n in zip(cells, header, strict=True)))
+            if len(cells) == width
+            else _clean_row(cells, header, spec, source, line)  # raises the width error
+            for line, cells in records[1:]
+        ]
     return Table(source, header, header_line, tuple(rows), decimal_comma, spec)
 
 
+def _clean_row(
+    cells: list[str], header: tuple[str, ...], spec: TableSpec, source: str, line: int
+) -> tuple[str, ...]:
+    """A row of a text known to hold no control character: trimmed, length-checked, guard removed."""
+    if len(cells) != len(header):
+        raise spec.error(f"{source} line {line}", _width_message(len(header), len(cells), spec))
+    out = tuple(c.strip() for c in cells)
+    if max(map(len, out)) > MAX_CELL_CHARS:
+        return tuple(_clean(c, spec, source, line, n) for c, n in zip(cells, header, strict=True))  # raises
+    return tuple(unguard_cell(c) if c[:1] == "'" else c for c in out)
+
+
 def _dialect(first: str, spec: TableSpec, where: str) -> tuple[str, bool]:
-    """The field separator from the header line, and whether numbers have decimal commas."""
-    if "\t" in first and "," not in first and ";" not in first:
+    """The field separator from the header line (the one that splits it, quotes respected), and
+    whether numbers have decimal commas."""
+    comma = _split(first, ",")
+    if len(comma) > 1:
+        if spec.decimal_comma and any(";" in c for c in comma):
+            raise spec.error(
+                where,
+                "mixes ';' and ',' between fields: save the file as CSV with ',' between fields and '.' "
+                "as the decimal point",
+            )
+        return ",", False
+    if len(_split(first, ";")) > 1:
+        if spec.decimal_comma:
+            return ";", True
+        raise spec.error(
+            where,
+            f"the file looks semicolon-separated (semicolons between fields): kplan reads the {spec.what} "
+            f"as comma-separated values with a decimal point, e.g. '{spec.header_example}'; export it as "
+            "CSV with commas",
+        )
+    if len(_split(first, "\t")) > 1:
         raise spec.error(
             where,
             f"the file looks tab-separated: kplan reads the {spec.what} as comma-separated values "
             f"(header '{spec.header_example}'); export it as CSV with commas",
         )
-    if ";" not in first:
-        return ",", False
-    if "," in first and spec.decimal_comma:
-        raise spec.error(
-            where,
-            "mixes ';' and ',' between fields: save the file as CSV with ',' between fields and '.' as "
-            "the decimal point",
-        )
-    if "," in first:
-        return ",", False  # a ';' inside a comma-separated header is the column names' problem
-    if spec.decimal_comma:
-        return ";", True
-    raise spec.error(
-        where,
-        f"the file looks semicolon-separated (semicolons between fields): kplan reads the {spec.what} "
-        f"as comma-separated values with a decimal point, e.g. '{spec.header_example}'; export it as CSV "
-        "with commas",
-    )
+    return ",", False
+
+
+def _split(line: str, delimiter: str) -> list[str]:
+    try:
+        return next(csv.reader([line], delimiter=delimiter))
+    except (csv.Error, StopIteration):
+        return [line]
 
 
 def _records(lines: list[str], h: int, delimiter: str, spec: TableSpec, source: str):
@@ -335,8 +368,9 @@ def _records(lines: list[str], h: int, delimiter: str, spec: TableSpec, source: 
     return out
 
 
-def _clean(cell: str, spec: TableSpec, where: str) -> str:
+def _clean(cell: str, spec: TableSpec, source: str, line: int | None, column: str) -> str:
     """A cell trimmed and checked (length, control and text-direction characters), guard removed."""
+    where = f"{source} header" if line is None else f"{source} line {line}, {visible(column)}"
     c = cell.strip()
     if len(c) > MAX_CELL_CHARS:
         raise spec.error(where, f"a cell of {len(c)} characters; at most {MAX_CELL_CHARS}: shorten it")
