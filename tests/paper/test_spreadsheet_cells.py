@@ -112,3 +112,27 @@ def test_recipe_and_schedule_cells_are_values(plan, labels):
     rec = make_recipe(plan, {"CU": np.full(n, 1.0), "DY": np.full(n, 0.5)}, labels)
     assert_csv_values(recipe_to_csv(rec, plan))
     assert_csv_values(schedule_to_csv(Schedule(tuple(labels), np.full(n, 0.01), np.full(n, -0.002))))
+
+
+# text a key holds: printable, no control or direction characters, trimmed, not empty
+TEXT = st.text(
+    alphabet=st.characters(blacklist_categories=("Cc", "Cs", "Cf", "Zl", "Zp"))
+    | st.sampled_from(list("=+-@',\"")),
+    min_size=1,
+    max_size=30,
+).filter(lambda s: s == s.strip())
+
+
+@given(st.lists(st.tuples(TEXT, TEXT, TEXT), min_size=2, max_size=2, unique_by=lambda p: p[0]))
+@settings(max_examples=60, deadline=None)
+def test_the_key_reads_back_identically(plan, cset, people):
+    from planner.inputs.gradebook import parse_key_csv
+
+    cards = tuple(
+        replace(c, student=s, name=n, section=sec) for c, (s, n, sec) in zip(cset.cards, people, strict=True)
+    )
+    back = parse_key_csv(pc.key_csv(plan, replace(cset, cards=cards)), plan)
+    assert [(k.student, k.name, k.section) for k in back] == list(people)
+    for k, c in zip(back, cards, strict=True):
+        assert k.recipe.tubes == c.recipe.tubes
+        np.testing.assert_allclose(k.recipe.volumes_mL, c.recipe.volumes_mL, atol=5e-5)
