@@ -22,6 +22,7 @@ from ...inference.precision import ReadingModel, cramer_rao, unpack
 from ...inference.study import Study
 from ...inputs.recipe import Recipe, RecipeError
 from ...inputs.schedule import Schedule
+from ...inputs.text import plural
 from ...model.compiled import predict, tube_ions_M
 from ...uncertainty import delivery
 from ...uncertainty.titration import titration_budget, titration_recipe
@@ -209,7 +210,7 @@ def design_titration(
     n = int(additions or t.additions)
     if n < study.params.size:
         raise RecipeError(
-            "titration.additions", f"{n} additions cannot determine {study.params.size} parameters"
+            "titration.additions", f"{plural(n, 'addition')} cannot determine {study.params.size} parameters"
         )
     rob = study.robust if robust is None else bool(robust)
     best = None
