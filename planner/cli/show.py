@@ -181,7 +181,7 @@ def print_design(d, p) -> None:
 
 
 def print_stock_needs(p, needs, with_recipe: bool) -> None:
-    from ..paper.stock_text import prep_lines
+    from ..paper.stock_text import mass_advice_text, prep_lines
 
     out.print(f"[bold]{S(p.title)}[/bold] — stocks")
     t = Table(title="Preparation")
@@ -190,9 +190,16 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
     for n in needs:
         s = p.stock_by_id(n.id)
         conc = S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—")
-        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask
-        lines, _ = prep_lines(p, n.id, n.summary())
+        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask,
+        # what sets the mass; then, for the author, how to weigh less
+        summary = n.summary()
+        lines, _ = prep_lines(p, n.id, summary)
         how = S(" ".join(lines))
+        advice = mass_advice_text(summary)
+        if advice:
+            how += f" [cyan]{S(advice)}[/cyan]"
+        if n.scarce:
+            how = "[bold](scarce)[/bold] " + how
         if n.preparation is not None:
             pr = n.preparation
             if pr.mass_g < pr.min_weight_g:

@@ -154,6 +154,7 @@ class Stock(_Strict):
     flask_mL: Volume | None = Field(default=None, alias="flask")
     diluent: bool = False
     background: bool = False
+    scarce: bool = False  # make the least of it: the smallest flask and the least reagent weighed
 
     @field_validator("conc")
     @classmethod
