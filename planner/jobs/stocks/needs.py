@@ -384,7 +384,12 @@ def catalogue_flasks_mL() -> list[float]:
     return [it.capacity_mL for it in catalogue.catalogue() if it.kind == "flask"]
 
 
-def _prepare(plan: Plan, s, flask_mL: float, comp: str, *, scarce: bool = False) -> stk.StockPreparation:
+def prepare_plan_stock(
+    plan: Plan, s, flask_mL: float, comp: str, *, scarce: bool = False
+) -> stk.StockPreparation:
+    """:func:`planner.uncertainty.stocks.prepare_stock` for the plan's stock ``s`` (its component ``comp``)
+    in ``flask_mL``, with the plan's balance and temperature; ``scarce`` chooses a chain for the least
+    reagent. (The class stock list can make its stocks the same way.)"""
     g = plan.glassware
     return stk.prepare_stock(
         s.conc[comp],
@@ -404,9 +409,9 @@ def _least_reagent(plan: Plan, s, comp: str, need: float | None, upto_mL: float)
     :data:`planner.uncertainty.stocks.SCARCE_MASS_SLACK`: fewer dilution steps, then the better u)."""
     first = choose_flask(s.flask_mL, need, s.on_hand, scarce=True)
     if first.reason == "plan":
-        return _prepare(plan, s, first.flask_mL, comp, scarce=True), first
+        return prepare_plan_stock(plan, s, first.flask_mL, comp, scarce=True), first
     sizes = [c for c in catalogue_flasks_mL() if first.flask_mL <= c <= max(upto_mL, first.flask_mL)]
-    preps = [(_prepare(plan, s, c, comp, scarce=True), c) for c in sizes]  # a handful of flasks
+    preps = [(prepare_plan_stock(plan, s, c, comp, scarce=True), c) for c in sizes]  # a handful of flasks
     least = min(p.mass_g for p, _ in preps)
     near = [(p, c) for p, c in preps if p.mass_g <= (1 + stk.SCARCE_MASS_SLACK) * least]
     prep, cap = min(near, key=lambda pc: (len(pc[0].steps), pc[0].u_rel))
@@ -423,7 +428,9 @@ def _weighing(plan: Plan, s, comp: str | None, need: float | None, scarce: bool)
         return None, None, choose_flask(s.flask_mL, need, s.on_hand, scarce=scarce), None
     try:
         least, least_choice = _least_reagent(plan, s, comp, need, usual.flask_mL)
-        prep, choice = (least, least_choice) if scarce else (_prepare(plan, s, usual.flask_mL, comp), usual)
+        prep, choice = (
+            (least, least_choice) if scarce else (prepare_plan_stock(plan, s, usual.flask_mL, comp), usual)
+        )
     except (stk.StockError, GlasswareError) as exc:
         return None, None, usual, str(exc)
     return prep, mass_basis(prep, choice, need, scarce=scarce, scarce_prep=least), choice, None
