@@ -1,5 +1,6 @@
-"""Optimal exact designs (tube counts on the candidates): exchange with rank-one updates, started from
-the efficient rounding of the approximate design and from random starts (see :mod:`planner.design_criteria`).
+"""Optimal exact designs (tube counts on the candidates): exchange with rank-one updates, started from the
+efficient rounding of the approximate design and from random starts (see
+:mod:`planner.inference.design_criteria`).
 """
 
 from __future__ import annotations

@@ -1,7 +1,7 @@
 """What goes on the printed prep sheet and design report, as plain strings (no HTML, no chemistry).
 
 These functions turn the plan, the recipe and the JSON summaries of the assessment and of the stock
-needs into template contexts. Every number is formatted here, by :mod:`planner.fmt`, from the
+needs into template contexts. Every number is formatted here, by :mod:`planner.paper.fmt`, from the
 values of the summaries, so the paper and ``--json`` agree digit for digit. The templates only lay
 the strings out.
 """

@@ -54,10 +54,10 @@ WATER_EXPANSION_PER_C = 2.1e-4
 
 READING_FRACTION_OF_GRADUATION = 0.2
 """A meniscus is read to ±1/5 of the smallest subdivision [common practice]: ±0.02 mL on a 0.1 mL
-scale, ±0.01 mL on a 0.05 mL scale, the ±0.01–0.02 mL that domain.md quotes for a burette reading."""
+scale, ±0.01 mL on a 0.05 mL scale, the ±0.01–0.02 mL commonly quoted for a burette reading."""
 
 DEFAULT_READING_HALF_WIDTH_mL = 0.02
-"""Reading half-width when an item has no recorded graduation [common practice, domain.md §3]."""
+"""Reading half-width when an item has no recorded graduation [common practice]."""
 
 MICROPIPETTE_MIN_FRACTION = 0.1
 """Lower end of a variable micropipette's usable range, fraction of nominal [from memory: ISO 8655-2]."""

@@ -1,9 +1,9 @@
 """Stock preparation: masses to weigh, dilution chains, and the stock's concentration uncertainty.
 
-The concentration of a weighed stock is ``c = m·P / (M·V)`` (mass, purity as a mass fraction, molar
-mass, flask volume); its relative standard uncertainty combines the relative uncertainties of the
-factors in quadrature [source: EURACHEM/CITAC QUAM, 3rd ed. 2012, example A1]. A stock's error is
-shared by every tube made from it (systematic); see :mod:`planner.glassware` for per-delivery errors.
+The concentration of a weighed stock is ``c = m·P / (M·V)`` (mass, purity as a mass fraction, molar mass,
+flask volume); its relative standard uncertainty combines the relative uncertainties of the factors in
+quadrature [source: EURACHEM/CITAC QUAM, 3rd ed. 2012, example A1]. A stock's error is shared by every tube
+made from it (systematic); see :mod:`planner.uncertainty.delivery` for per-delivery errors.
 
 When the mass to weigh falls below the balance's minimum weight (USP <41>: ``m ≥ 2000·s``), a
 dilution chain is proposed: weigh a more concentrated stock, then take aliquots with one-mark
@@ -380,7 +380,7 @@ def prepare_stock(
     - purity: rectangular, ``u_P = h/√3`` (GUM 4.3.7). Default ``h``: when ``purity`` is left at 1.0
       the assay is taken as not stated, ACS reagent grade 98–102 % (``h = 0.02``); otherwise
       ``h = max(|1 − purity|, 1e-4)``, reading a certificate value such as 0.9999 as 0.9999 ± 0.0001.
-    - weighed flask: :func:`planner.glassware.flask_volume_uncertainty` with ``delta_T_C`` and
+    - weighed flask: :func:`planner.uncertainty.delivery.flask_volume_uncertainty` with ``delta_T_C`` and
       ``flask_repeatability_mL`` (default: the QUAM A1 repeatability ratio).
     - dilution steps: each one-mark pipette and flask, calibration + repeatability. No temperature
       term: aliquot and flask are filled at the same temperature, so the liquid's expansion cancels

@@ -1,5 +1,5 @@
-"""Tests for the printed sheets: planner.render, planner.sheets, planner.figures and the fmt helpers
-they use. PDFs are read back with pypdf; page 1 is rasterised with pdftoppm where it exists."""
+"""Tests for the printed sheets: planner.paper.render, planner.paper.sheets, planner.paper.figures and the
+fmt helpers they use. PDFs are read back with pypdf; page 1 is rasterised with pdftoppm where it exists."""
 
 from __future__ import annotations
 
@@ -10,6 +10,7 @@ import shutil
 import subprocess
 
 import numpy as np
+import pypdf
 import pytest
 import tomllib
 from hypothesis import given, settings
@@ -25,8 +26,6 @@ from planner.jobs.stocks.needs import stock_needs
 from planner.paper import figures, fmt, render, safety, sheets
 
 from ..conftest import ROOT, scenario_text
-
-import pypdf
 
 DATE = "2026-12-01"
 TRIALS = 200
@@ -176,7 +175,7 @@ def test_cmr_reagent_is_flagged():
     plan, recipe, a, needs = setup(patched_plan(stocks={"CU": {"reagent": "nickel(II) sulfate hexahydrate"}}))
     txt = pdf_text(render.prep_sheet(plan, recipe, a, needs, date=DATE))
     assert "CMR reagent in this plan" in txt
-    assert "CMR: H341, H350i, H360D" in txt  # from memory (domain.md §6): nickel salts
+    assert "CMR: H341, H350i, H360D" in txt  # from memory: nickel salts
     assert "substitute" in txt and "May cause cancer by inhalation." in txt
 
 

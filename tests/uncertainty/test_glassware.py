@@ -1,4 +1,5 @@
-"""Tests for planner.glassware: catalogue values, tolerance → uncertainty, deliveries, grids."""
+"""Tests for planner.uncertainty.catalogue and delivery: catalogue values, tolerance → uncertainty,
+deliveries, grids."""
 
 import math
 
@@ -22,26 +23,26 @@ from planner.uncertainty.delivery import (
 )
 
 # --------------------------------------------------------------------------------------------------
-# catalogue against domain.md §3 (kind, capacity_mL, tolerance_mL, from_memory as domain.md tags it)
+# catalogue against the standards (kind, capacity_mL, tolerance_mL, from_memory where recalled)
 # --------------------------------------------------------------------------------------------------
 DOMAIN_TABLE = [
-    ("pipette", 1.0, 0.006, False),  # source: ASTM E969 (domain.md §3)
-    ("pipette", 2.0, 0.006, False),  # source: ASTM E969 (domain.md §3)
-    ("pipette", 5.0, 0.01, False),  # source: ASTM E969 (domain.md §3)
-    ("pipette", 10.0, 0.02, True),  # from memory: ASTM E969 (domain.md §3)
-    ("pipette", 25.0, 0.03, True),  # from memory: ASTM E969 (domain.md §3)
-    ("flask", 25.0, 0.03, False),  # source: ASTM E288 (domain.md §3)
-    ("flask", 50.0, 0.05, False),  # source: ASTM E288 (domain.md §3)
-    ("flask", 100.0, 0.08, False),  # source: ASTM E288 (domain.md §3)
-    ("flask", 250.0, 0.12, False),  # source: ASTM E288 (domain.md §3)
-    ("flask", 10.0, 0.02, True),  # from memory: ASTM E288 (domain.md §3)
-    ("burette", 10.0, 0.02, True),  # from memory: ASTM E287 / ISO 385 (domain.md §3)
-    ("burette", 25.0, 0.03, True),  # from memory: ASTM E287 / ISO 385 (domain.md §3)
-    ("burette", 50.0, 0.05, False),  # source: ISO 385 50 mL class A ±0.05 (domain.md §3)
-    ("graduated-pipette", 2.0, 0.010, False),  # source: USP <31> (domain.md §3)
-    ("graduated-pipette", 5.0, 0.020, False),  # source: USP <31> (domain.md §3)
-    ("graduated-pipette", 10.0, 0.030, False),  # source: USP <31> (domain.md §3)
-    ("micropipette", 1.0, 0.008, False),  # source: ISO 8655-2:2002, 1000 µL systematic ±8 µL (domain.md §3)
+    ("pipette", 1.0, 0.006, False),  # source: ASTM E969
+    ("pipette", 2.0, 0.006, False),  # source: ASTM E969
+    ("pipette", 5.0, 0.01, False),  # source: ASTM E969
+    ("pipette", 10.0, 0.02, True),  # from memory: ASTM E969
+    ("pipette", 25.0, 0.03, True),  # from memory: ASTM E969
+    ("flask", 25.0, 0.03, False),  # source: ASTM E288
+    ("flask", 50.0, 0.05, False),  # source: ASTM E288
+    ("flask", 100.0, 0.08, False),  # source: ASTM E288
+    ("flask", 250.0, 0.12, False),  # source: ASTM E288
+    ("flask", 10.0, 0.02, True),  # from memory: ASTM E288
+    ("burette", 10.0, 0.02, True),  # from memory: ASTM E287 / ISO 385
+    ("burette", 25.0, 0.03, True),  # from memory: ASTM E287 / ISO 385
+    ("burette", 50.0, 0.05, False),  # source: ISO 385 50 mL class A ±0.05
+    ("graduated-pipette", 2.0, 0.010, False),  # source: USP <31>
+    ("graduated-pipette", 5.0, 0.020, False),  # source: USP <31>
+    ("graduated-pipette", 10.0, 0.030, False),  # source: USP <31>
+    ("micropipette", 1.0, 0.008, False),  # source: ISO 8655-2:2002, 1000 µL systematic ±8 µL
 ]
 
 
@@ -56,15 +57,15 @@ def test_catalogue_matches_domain_table(kind, capacity_mL, tolerance_mL, from_me
 def test_burette_subdivisions_from_domain_table():
     assert lookup("burette", 10).graduation_mL == pytest.approx(
         0.05
-    )  # from memory: domain.md §3 (10 mL, 0.05)
-    assert lookup("burette", 50).graduation_mL == pytest.approx(0.1)  # from memory: domain.md §3 (50 mL, 0.1)
+    )  # from memory: 10 mL burette graduated in 0.05 mL
+    assert lookup("burette", 50).graduation_mL == pytest.approx(
+        0.1
+    )  # from memory: 50 mL burette graduated in 0.1 mL
 
 
 def test_micropipette_random_limit_from_iso_8655():
     item = lookup("micropipette", 1.0)
-    assert item.random_mL == pytest.approx(
-        0.003
-    )  # source: ISO 8655-2:2002, 1000 µL random 3 µL (domain.md §3)
+    assert item.random_mL == pytest.approx(0.003)  # source: ISO 8655-2:2002, 1000 µL random 3 µL
     assert item.cls is None
 
 
@@ -157,7 +158,7 @@ def test_tolerance_override_and_user_item():
 def test_distribution_divisors():
     assert u_triangular(0.1) == pytest.approx(0.1 / math.sqrt(6))  # source: QUAM 3rd ed. A1 (a/√6)
     assert u_rectangular(0.1) == pytest.approx(0.1 / math.sqrt(3))  # source: GUM JCGM 100:2008 4.3.7
-    assert u_reading(0.001) == pytest.approx(0.001 / math.sqrt(12))  # source: GUM F.2.2.1 (domain.md §2)
+    assert u_reading(0.001) == pytest.approx(0.001 / math.sqrt(12))  # source: GUM F.2.2.1
     assert u_triangular(0.1) == pytest.approx(0.041, abs=5e-4)  # source: QUAM A1, 0.1/√6 = 0.04 mL
     with pytest.raises(GlasswareError):
         u_triangular(-1.0)
@@ -173,7 +174,7 @@ def test_temperature_term_quam_a1():
 def test_flask_volume_uncertainty_quam_a1():
     flask = lookup("flask", 100, tolerance_mL=0.1)  # source: QUAM A1, 100 mL flask ±0.1 mL
     u = flask_volume_uncertainty(flask, delta_T_C=4.0, repeatability_mL=0.02)  # source: QUAM A1
-    assert round(u, 4) == pytest.approx(0.0665)  # source: QUAM A1, u(V) = 0.0665 mL (domain.md §3)
+    assert round(u, 4) == pytest.approx(0.0665)  # source: QUAM A1, u(V) = 0.0665 mL
 
 
 def test_flask_volume_uncertainty_rejects_other_kinds():
@@ -185,7 +186,7 @@ def test_flask_volume_uncertainty_rejects_other_kinds():
 # deliveries
 # --------------------------------------------------------------------------------------------------
 def test_burette_reading_within_common_practice_range():
-    # common practice (domain.md §3): a burette reading is good to about ±0.01–0.02 mL; random part of
+    # common practice: a burette reading is good to about ±0.01–0.02 mL; random part of
     # a delivery is √2 × the rectangular u of that half-width (difference of two readings).
     for cap in (10, 25, 50):
         item = lookup("burette", cap)

@@ -1,9 +1,10 @@
 """Assessment of a recipe: can it resolve K, and which assumptions of the planned analysis fail?
 
 Puts together the expected tube contents (:mod:`planner.model`), the error budget
-(:mod:`planner.errors`), the precision of the fitted parameters (:mod:`planner.precision`) and the
-checks (:mod:`planner.checks`) into a frozen :class:`Assessment` whose :meth:`Assessment.summary` has
-the baseline JSON keys (``title``, ``verdict``, ``parameters``, ``tubes``, ``checks``).
+(:mod:`planner.uncertainty.budget`), the precision of the fitted parameters
+(:mod:`planner.inference.precision`) and the checks (:mod:`planner.jobs.plan.checks`) into a frozen
+:class:`Assessment` whose :meth:`Assessment.summary` has the baseline JSON keys (``title``, ``verdict``,
+``parameters``, ``tubes``, ``checks``).
 """
 
 from __future__ import annotations

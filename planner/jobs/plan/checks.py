@@ -17,7 +17,7 @@ from ...model.compiled import Model, TubeState
 RANGE_RISK = (
     0.05  # a tube may leave the linear range for at most 5 % of the guess's uncertainty [common practice]
 )
-SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1; domain.md §4
+SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1
 CALIBRATION_EXCESS = (
     20.0  # a tube with ≥ 20-fold excess is a "complete conversion" candidate [common practice]
 )

@@ -1,7 +1,7 @@
 """Stocks for a plan: how to make each one, how much a recipe needs, and whether there is enough.
 
-Plan-level glue over :mod:`planner.stocks` (weighing, dilution chains, uncertainty) and
-:mod:`planner.glassware`.
+Plan-level glue over :mod:`planner.uncertainty.stocks` (weighing, dilution chains, uncertainty) and
+:mod:`planner.uncertainty.catalogue`.
 """
 
 from __future__ import annotations
