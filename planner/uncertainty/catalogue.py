@@ -264,8 +264,8 @@ def _check_figures(kind: str, capacity_mL, tolerance_mL, graduation_mL, random_m
             raise GlasswareError(f"{kind} {name} must be a positive number of mL, got {value!r}")
     if graduation_mL is not None and graduation_mL > capacity_mL * (1 + 1e-9):
         raise GlasswareError(
-            f"{kind} graduation_mL {_fmt(graduation_mL)} is more than its {_fmt(float(capacity_mL))} mL capacity; "
-            "give its smallest subdivision"
+            f"{kind} graduation_mL {_fmt(graduation_mL)} is more than its {_fmt(float(capacity_mL))} mL "
+            "capacity; give its smallest subdivision"
         )
 
 
