@@ -128,7 +128,7 @@ def test_stock_table(teaching, prep_txt):
     assert math.isclose(cu.preparation.mass_g, 0.0100 * 0.100 * 241.60 / 0.99, rel_tol=2e-4)
     assert "Weigh 0.2440 g" in prep_txt
     assert "Cu2+: 10.000 ± 0.050 mM" in prep_txt  # derived: conc_rsd 0.005 of 10.0 mM = 0.050 mM
-    assert "10.0 mL burette (class A)" in prep_txt  # the plan's dispenser for CU and DY
+    assert "class A 10 mL burette" in prep_txt  # the plan's dispenser for CU and DY
     assert "to the mark of each flask" in prep_txt  # BG under make_up = "to-mark"
 
 

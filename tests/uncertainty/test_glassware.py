@@ -73,10 +73,11 @@ def test_catalogue_sizes_the_brief_asks_for():
     sizes = {
         "burette": {10, 25, 50},
         "pipette": {1, 2, 5, 10, 25},
-        "flask": {10, 25, 50, 100, 250, 500, 1000},
+        "flask": {1, 2, 5, 10, 25, 50, 100, 250, 500, 1000},
         "graduated-pipette": {1, 2, 5, 10},
         "micropipette": {0.01, 0.02, 0.1, 0.2, 1.0, 5.0},
-    }  # source: the task brief's list of common sizes
+        "piston-burette": {1, 5, 10, 25, 50},
+    }  # source: the task brief's list of common sizes (issue 20 adds the 1, 2 and 5 mL flasks)
     have = {k: {it.capacity_mL for it in catalogue() if it.kind == k} for k in KINDS}
     for kind, caps in sizes.items():
         assert {round(c, 6) for c in have[kind]} == {round(float(c), 6) for c in caps}
@@ -329,3 +330,69 @@ def test_delivery_uncertainty_nonnegative_and_monotone(item, fractions, dT):
 def test_standard_uncertainties_nonnegative(a, V, dT):
     for u in (u_triangular(a), u_rectangular(a), u_reading(a), u_temperature(V, dT)):
         assert u >= 0
+
+
+# --------------------------------------------------------------------------------------------------
+# devices described by the plan (issue 20): no class without one, the lab's own figures
+# --------------------------------------------------------------------------------------------------
+def test_a_device_given_by_its_tolerance_alone_has_no_class():
+    flask = lookup("flask", 2.0, None, 0.02)
+    assert flask.cls is None and flask.label == "2 mL volumetric flask" and "class" not in flask.label
+    own = lookup("burette", 7.0, None, 0.02, graduation_mL=0.02)
+    assert own.cls is None and own.label == "7 mL burette"
+    assert (
+        lookup("flask", 2.0, None).label == "class A 2 mL volumetric flask"
+    )  # nothing stated: the catalogue's
+    assert lookup("flask", 2.0, "A", 0.02).cls == "A"  # a class the user names is kept
+
+
+def test_small_flasks_are_in_the_catalogue():
+    # from memory: ASTM E288 / E237 class A 1 mL ±0.010, 2 mL ±0.015, 5 mL ±0.020 (recalled, flagged so)
+    for cap, tol in ((1.0, 0.010), (2.0, 0.015), (5.0, 0.020)):
+        it = lookup("flask", cap)
+        assert it.tolerance_mL == pytest.approx(tol) and it.from_memory and "E288" in it.source
+
+
+def test_piston_burettes_have_no_class_and_read_to_their_display():
+    from planner.uncertainty.catalogue import reading_resolution_mL
+
+    it = lookup("piston-burette", 10.0)
+    assert it.cls is None and it.label == "10 mL piston burette" and it.from_memory
+    assert reading_resolution_mL(it) == it.graduation_mL
+    with pytest.raises(GlasswareError, match="no class"):
+        lookup("piston-burette", 10.0, "B")
+    # a piston burette's limit is a maximum permissible error: rectangular (GUM 4.3.7), scaled along
+    # the stroke like a burette's; its random limit is the sd of one delivery (ISO 8655)
+    du = delivery_uncertainty(it, np.array([5.0]))
+    assert du.calibration_mL[0] == pytest.approx(it.tolerance_mL / math.sqrt(3.0) * 0.5)
+    assert du.random_mL[0] == pytest.approx(it.random_mL)
+
+
+def test_measured_repeatability_replaces_the_reading_model():
+    from planner.uncertainty.delivery import reading_u_mL
+
+    plain = lookup("burette", 10.0)
+    # source: GUM 4.3.7 — read to ±1/5 of the 0.05 mL subdivision, rectangular: u = 0.01/√3
+    assert reading_u_mL(plain) == pytest.approx(0.01 / math.sqrt(3.0))
+    own = lookup("burette", 10.0, repeatability_mL=0.004)
+    # derived: a delivery is the difference of two readings, so one reading carries s/√2
+    assert reading_u_mL(own) == pytest.approx(0.004 / math.sqrt(2.0))
+    assert delivery_uncertainty(own, np.array([3.0])).random_mL[0] == pytest.approx(0.004)
+    mp = lookup("micropipette", 1.0, None, 0.004, repeatability_mL=0.0015)
+    du = delivery_uncertainty(mp, np.array([0.5]))
+    assert du.random_mL[0] == pytest.approx(0.0015)
+    assert du.calibration_mL[0] == pytest.approx(0.004 / math.sqrt(3.0))  # rectangular, GUM 4.3.7
+
+
+def test_the_plans_figures_reach_the_budget():
+    from planner.inputs.plan import parse_plan_text
+    from planner.jobs.compile import compile_study
+
+    from ..conftest import scenario_text
+
+    text = scenario_text("teaching").replace(
+        'kind = "burette"\ncapacity = "10 mL"\nclass = "A"\n',
+        'kind = "burette"\ncapacity = "10 mL"\nrepeatability = "0.004 mL"\ngraduation = "0.02 mL"\n',
+    )
+    item = compile_study(parse_plan_text(text)).bench.devices.items[0]
+    assert (item.repeatability_mL, item.graduation_mL, item.cls) == (0.004, 0.02, "A")

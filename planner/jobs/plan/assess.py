@@ -31,6 +31,7 @@ from ...inference.study import Study
 from ...inputs.limits import MAX_TRIALS, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
+from ...inputs.text import plural
 from ...model.compiled import Model, TubeState, predict, tube_ions_M
 from ...uncertainty.bench import Bench
 from ...uncertainty.budget import ErrorBudget, error_budget, glassware_problems
@@ -427,7 +428,8 @@ def _verdict(study: Study, params: Parameters, cr, mc, prof, precision: bool) ->
         return None, ""
     if cr.jacobian.shape[0] < params.size:
         return "unresolved", (
-            f"{cr.jacobian.shape[0]} tubes cannot determine {params.size} fitted parameters: add tubes"
+            f"{plural(cr.jacobian.shape[0], 'tube')} cannot determine {params.size} fitted parameters: "
+            "add tubes"
         )
     goal = study.goal_se
     se = float(cr.se[t])
