@@ -14,6 +14,7 @@ from ..inputs.limits import MAX_CARDS, MAX_TUBES
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, err, out
 from .app import safe_text as S
+from .options import count_option
 
 OUTPUTS = ("cards.pdf", "key.pdf", "key.csv", "key.xlsx", "stocks.pdf", "stocks.csv")
 
@@ -42,11 +43,8 @@ def cards(
     ] = None,
     count: Annotated[
         int | None,
-        typer.Option(
-            help=f"number of students, without a roster (ids S01, S02, …; at most {MAX_CARDS})",
-            min=1,
-            max=MAX_CARDS,
-            metavar="INTEGER",
+        count_option(
+            f"number of students, without a roster (ids S01, S02, …; at most {MAX_CARDS})", MAX_CARDS
         ),
     ] = None,
     out_dir: Annotated[
@@ -56,10 +54,7 @@ def cards(
         int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")
     ] = 0,
     tubes: Annotated[
-        int | None,
-        typer.Option(
-            help="tubes per student's card (overrides design.tubes)", min=1, max=MAX_TUBES, metavar="INTEGER"
-        ),
+        int | None, count_option("tubes per student's card (overrides design.tubes)", MAX_TUBES)
     ] = None,
     sections: Annotated[
         int | None,

@@ -12,7 +12,7 @@ from ..inputs.limits import MAX_ADDITIONS
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import MAX_TUBES
+from .options import MAX_TUBES, count_option
 
 
 @app.command()
@@ -21,20 +21,10 @@ def design(
     out_dir: Annotated[
         Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")
     ] = None,
-    tubes: Annotated[
-        int | None,
-        typer.Option(
-            help="number of tubes (overrides design.tubes)", min=1, max=MAX_TUBES, metavar="INTEGER"
-        ),
-    ] = None,
+    tubes: Annotated[int | None, count_option("number of tubes (overrides design.tubes)", MAX_TUBES)] = None,
     additions: Annotated[
         int | None,
-        typer.Option(
-            help="titration plans: number of additions (overrides titration.additions)",
-            min=1,
-            max=MAX_ADDITIONS,
-            metavar="INTEGER",
-        ),
+        count_option("titration plans: number of additions (overrides titration.additions)", MAX_ADDITIONS),
     ] = None,
     criterion: Annotated[
         str | None,

@@ -9,6 +9,14 @@ from ..inputs.limits import MAX_TRIALS as MAX_TRIALS  # the limits are defined o
 from ..inputs.limits import MAX_TUBES as MAX_TUBES
 from .app import UserError, err
 
+
+def count_option(help: str, limit: int, *, hidden: bool = False):
+    """A whole-number option from 1 to ``limit`` (a bound from :mod:`planner.inputs.limits`)."""
+    import typer
+
+    return typer.Option(help=help, min=1, max=limit, metavar="INTEGER", hidden=hidden)
+
+
 LOG_BETA_RANGE = (-50.0, 60.0)  # the plan's bound on log_beta
 
 

@@ -12,6 +12,7 @@ from ..inputs.choices import SERIES_METHODS as METHODS
 from ..inputs.limits import MAX_REPLICATES, MAX_TUBES
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
+from .options import count_option
 
 
 @app.command()
@@ -26,11 +27,8 @@ def series(
     ] = False,
     points: Annotated[
         int | None,
-        typer.Option(
-            help="job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)",
-            min=1,
-            max=MAX_TUBES,
-            metavar="INTEGER",
+        count_option(
+            "job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", MAX_TUBES
         ),
     ] = None,
     total: Annotated[
@@ -60,17 +58,10 @@ def series(
         ),
     ] = None,
     replicates: Annotated[
-        int | None,
-        typer.Option(
-            help="calibration: replicate calibration tubes (default 1)",
-            min=1,
-            max=MAX_REPLICATES,
-            metavar="INTEGER",
-        ),
+        int | None, count_option("calibration: replicate calibration tubes (default 1)", MAX_REPLICATES)
     ] = None,
     tubes: Annotated[
-        int | None,
-        typer.Option(hidden=True, min=1, max=MAX_REPLICATES, help="older spelling of --replicates"),
+        int | None, count_option("older spelling of --replicates", MAX_REPLICATES, hidden=True)
     ] = None,
     vary: Annotated[
         str | None,

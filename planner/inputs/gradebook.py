@@ -10,7 +10,7 @@ read back without it, so it matches the same student in the results.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -54,15 +54,7 @@ KEY = TableSpec(
     decimal_comma=True,
     error=RecipeError,
 )
-RESULTS = TableSpec(
-    what="results",
-    header_example="student,tube,absorbance",
-    row_word="reading",
-    max_rows=MAX_CLASS_ROWS,
-    max_bytes=MAX_CLASS_CSV_BYTES,
-    decimal_comma=True,
-    error=RecipeError,
-)
+RESULTS = replace(KEY, what="results", header_example="student,tube,absorbance", row_word="reading")
 
 
 def _student(table: Table, row: Row, j: int) -> str:
