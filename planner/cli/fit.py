@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.text import plural
 from .app import app, dump_json, out
 from .app import safe_text as S
 
@@ -57,7 +58,9 @@ def _print_fit(f, plan: Path, readings: Path, skip: tuple[str, ...]) -> None:
 
     from ..paper import fmt
 
-    out.print(f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
+    out.print(
+        f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {plural(f.recipe.n_tubes, 'reading')}"
+    )
     for tube, why in f.excluded:
         hint = " (--keep-out-of-range keeps it)" if "linear range" in why else ""
         out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}{hint}")

@@ -8,6 +8,7 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 
@@ -45,10 +46,12 @@ def grade(
 
     if paper not in PAPERS:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
-    if out_dir is not None:
+    if out_dir is not None:  # before the work; the outputs may not overwrite an input
         from ..inputs.files import check_output_folder
 
-        check_output_folder(out_dir)
+        names = ("grades.csv", "grades.xlsx", "grades.html" if html else "grades.pdf")
+        key_file = key_dir / "key.csv" if key_dir.is_dir() else key_dir
+        check_output_folder(out_dir, names, (plan, key_file, results))
     p = load_plan(plan)
     study = compile_study(p)
     g = grade_class(study, read_key(key_dir, p), read_results(results))
@@ -77,7 +80,7 @@ def _print_grade(g, summary: dict) -> None:
 
     from ..paper import fmt
 
-    out.print(f"[bold]{S(g.title)}[/bold] — {len(g.students)} students")
+    out.print(f"[bold]{S(g.title)}[/bold] — {plural(len(g.students), 'student')}")
     pooled = summary["pooled"]
     if pooled is not None:
         for prm in pooled["parameters"]:
@@ -87,7 +90,7 @@ def _print_grade(g, summary: dict) -> None:
                 + (f" (95 % {fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)})" if ci and None not in ci else "")
                 + f"; the plan guessed {fmt.sig(prm['guess'], 4)}"
             )
-        out.print(f"from {pooled['students']} students; {S(pooled['chi2_verdict'])}")
+        out.print(f"from {plural(pooled['students'], 'student')}; {S(pooled['chi2_verdict'])}")
         if summary["key_note"]:
             out.print(f"[yellow]{S(summary['key_note'])}[/yellow]")
     else:

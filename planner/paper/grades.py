@@ -7,14 +7,13 @@ fixed zip and document timestamps, so the same inputs give the same bytes.
 
 from __future__ import annotations
 
-import csv
-import io
-
 import numpy as np
 
+from ..inputs.tables import write_csv
+from ..inputs.text import plural
 from . import fmt
 from .figures import ACCENT, BAND, INK, WARN, _draw
-from .workbook import stable_xlsx
+from .workbook import append_row, stable_xlsx
 
 NOT_ABSORBANCE = 10.0  # numbers above this are not absorbances (%T or typos): left out of the figures
 
@@ -69,47 +68,52 @@ def _cell(v) -> str:
 
 
 def grades_csv(summary: dict) -> str:
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(GRADE_COLUMNS)
-    for row in grade_rows(summary):
-        w.writerow([_cell(v) for v in row])
-    return buf.getvalue()
+    """``grades.csv``: one row per student; every text cell is data, never a spreadsheet formula."""
+    return write_csv(GRADE_COLUMNS, ([_cell(v) for v in row] for row in grade_rows(summary)))
 
 
-def _safe_cell(v):
-    """Text that a spreadsheet would run as a formula is stored as text (a leading apostrophe)."""
-    if isinstance(v, str) and v[:1] in ("=", "+", "-", "@"):
-        return "'" + v
-    return v
+POOLED_COLUMNS = (
+    "parameter",
+    "estimate",
+    "se",
+    "profile_ci95_low",
+    "profile_ci95_high",
+    "guess",
+    "guess_sd",
+    "off_by",
+)
+READING_COLUMNS = (
+    "student",
+    "tube",
+    "absorbance",
+    "key_expected",
+    "key_band_low",
+    "key_band_high",
+    "class_expected",
+    "class_band_low",
+    "class_band_high",
+    "in_class_band",
+)
 
 
 def grades_xlsx(summary: dict) -> bytes:
-    """The grade book as an XLSX workbook (sheet "grades", and "pooled" with the class's constants)."""
+    """The grade book as an XLSX workbook: sheet "grades", "pooled" with the class's constants beside the
+    guess, and "readings" with every reading against the key's band and the class's; numbers as numbers,
+    every text as text (never a formula)."""
     from openpyxl import Workbook
 
     wb = Workbook()
     ws = wb.active
     ws.title = "grades"
-    ws.append(list(GRADE_COLUMNS))
+    append_row(ws, list(GRADE_COLUMNS))
     for row in grade_rows(summary):
-        ws.append([_safe_cell(v) for v in row])
+        append_row(ws, row)
     ps = wb.create_sheet("pooled")
-    ps.append(
-        [
-            "parameter",
-            "estimate",
-            "se",
-            "profile_ci95_low",
-            "profile_ci95_high",
-            "guess",
-            "guess_sd",
-            "off_by",
-        ]
-    )
+    append_row(ps, list(POOLED_COLUMNS))
     for p in (summary.get("pooled") or {}).get("parameters", []):
         ci = p.get("profile_ci95") or [None, None]
-        ps.append(
+        append_row(
+            ps,
             [
                 p["name"],
                 p["estimate"],
@@ -119,38 +123,16 @@ def grades_xlsx(summary: dict) -> bytes:
                 p.get("guess"),
                 p.get("guess_sd"),
                 p.get("off_by"),
-            ]
+            ],
         )
     rs = wb.create_sheet("readings")
-    rs.append(
-        [
-            "student",
-            "tube",
-            "absorbance",
-            "key_expected",
-            "key_band_low",
-            "key_band_high",
-            "class_expected",
-            "class_band_low",
-            "class_band_high",
-            "in_class_band",
-        ]
-    )
+    append_row(rs, list(READING_COLUMNS))
     for s in summary["students"]:
         for r in s["readings"]:
-            rs.append(
-                [
-                    _safe_cell(s["student"]),
-                    _safe_cell(r["tube"]),
-                    r["absorbance"],
-                    r["expected"],
-                    r["band_low"],
-                    r["band_high"],
-                    r["class_expected"],
-                    r["class_band_low"],
-                    r["class_band_high"],
-                    r["in_class_band"],
-                ]
+            append_row(
+                rs,
+                [s["student"], r["tube"], r["absorbance"], r["expected"], r["band_low"], r["band_high"]]
+                + [r["class_expected"], r["class_band_low"], r["class_band_high"], r["in_class_band"]],
             )
     return stable_xlsx(wb)
 
@@ -259,7 +241,9 @@ def grade_context(summary: dict, *, date: str, paper: str) -> dict:
         ("Incomplete", str(sum(s["verdict"] == "incomplete" for s in summary["students"]))),
     ]
     if pooled is not None:
-        facts.append(("Class fit from", f"{pooled['students']} students, {pooled['tubes']} tubes"))
+        facts.append(
+            ("Class fit from", f"{plural(pooled['students'], 'student')}, {plural(pooled['tubes'], 'tube')}")
+        )
     judged = summary.get("judged_against") == "class"
     return {
         "title": summary["title"],

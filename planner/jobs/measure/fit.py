@@ -33,6 +33,7 @@ from ...inputs.errors import InputError
 from ...inputs.plan import Plan
 from ...inputs.readings import Readings
 from ...inputs.recipe import Recipe, RecipeError
+from ...inputs.text import plural
 from ...uncertainty.budget import error_budget
 from ..compile import compile_study, expected_state
 from .core import CHI2_TAIL, N_STARTS, SE_LIMIT, covariance_at, fit_batch, reading_model
@@ -249,7 +250,7 @@ def fit_study(
             readings,
             keep,
             excluded,
-            f"{rec.n_tubes} tubes left cannot determine {params.size} parameters: add tubes",
+            f"{plural(rec.n_tubes, 'tube')} left cannot determine {params.size} parameters: add tubes",
         )
     b = fit_batch(study, rec, y[None, :])
     theta, se = b.theta[0], b.se[0]

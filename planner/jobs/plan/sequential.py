@@ -27,6 +27,7 @@ from ...inference.precision import ReadingModel, free_parameters
 from ...inference.study import Study
 from ...inputs.readings import Readings
 from ...inputs.recipe import Recipe, RecipeError, concat_recipes
+from ...inputs.text import plural
 from ...model.compiled import tube_ions_M
 from ...uncertainty.budget import error_budget
 from ..compile import expected_state
@@ -236,7 +237,8 @@ def next_batch(
     stop = se_after > (1.0 - MIN_GAIN) * se_now
     if stop:
         reason = (
-            f"{learned_text}; the next {new.n_tubes} tubes would lower SE(log β) only from {se_now:.3g} to "
+            f"{learned_text}; the next {plural(new.n_tubes, 'tube')} would lower SE(log β) only from "
+            f"{se_now:.3g} to "
             f"{se_after:.3g}: more tubes would not help (errors every tube shares, such as the stock "
             f"concentrations, set the floor)"
         )
