@@ -165,7 +165,7 @@ def test_bad_results_are_refused():
         parse_results_csv("student,absorbance\nS1,0.3\n")
     with pytest.raises(RecipeError, match="read twice"):
         parse_results_csv("student,tube,absorbance\nS1,T1,0.3\nS1,T1,0.4\n")
-    with pytest.raises(RecipeError, match="not a finite number"):
+    with pytest.raises(RecipeError, match="nan. is not an absorbance"):
         parse_results_csv("student,tube,absorbance\nS1,T1,nan\n")
 
 
