@@ -53,9 +53,9 @@ def grade_rows(summary: dict) -> list[list]:
                 own.get("log_beta", ""),
                 own.get("se", ""),
                 s["explanation"] or "",
-                s["tubes_in_class_band"],
-                s["judged_against"] or "",
-                s["candidate"] or "",
+                s.get("tubes_in_class_band", ""),
+                s.get("judged_against") or "",
+                s.get("candidate") or "",
             ]
         )
     return out
@@ -128,7 +128,7 @@ def grades_xlsx(summary: dict) -> bytes:
     rs = wb.create_sheet("readings")
     append_row(rs, list(READING_COLUMNS))
     for s in summary["students"]:
-        for r in s["readings"]:
+        for r in s.get("readings", []):
             append_row(
                 rs,
                 [s["student"], r["tube"], r["absorbance"], r["expected"], r["band_low"], r["band_high"]]
