@@ -70,6 +70,45 @@ def prior_range_risk(
     return np.tensordot(weights, risk, axes=(0, 0))
 
 
+def range_band(model: Model, params, totals_M: np.ndarray, ions_M: np.ndarray):
+    """Each tube's chance of leaving the linear range over the guesses' uncertainty, and its lowest and
+    highest reading over ±2 sd of it — the one screen ``assess``, ``design`` and every classic series use.
+
+    The uncertain log β are integrated by the quadrature nodes of :func:`planner.inference.priors.prior_nodes`
+    (as the design screens its candidates); the absorptivities enter linearly, as a normal band of
+    sd Σ ∂A/∂ε · ε · rsd at each node (:func:`prior_range_risk`).
+
+    Parameters
+    ----------
+    params : the fitted parameters (:class:`planner.inference.precision.Parameters`).
+    totals_M : (N, 2) the tubes' totals; ions_M : (N, n_ions) their other ions.
+
+    Returns
+    -------
+    risk : (N,) chance of a reading outside the window.
+    low, high : (N,) lowest and highest reading over ±2 sd of the guesses (the band included).
+    """
+    from ...inference.precision import unpack
+    from ...inference.priors import prior_nodes
+    from ...model.compiled import predict
+    from ...model.jacobians import absorbance_derivatives
+
+    nodes = prior_nodes(params, robust=True)
+    lb, eps, _ = unpack(model, params, nodes.theta)
+    G = nodes.theta.shape[0]
+    tot = np.broadcast_to(totals_M, (G,) + np.shape(totals_M))
+    ions = np.broadcast_to(ions_M, (G,) + np.shape(ions_M))
+    st = predict(model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False)
+    der = absorbance_derivatives(model, st, eps)
+    band = np.sqrt(np.sum((der.dA_depsilon * model.epsilon_M_cm * model.epsilon_rsd) ** 2, axis=-1))
+    lo, hi = model.linear_range
+    risk = prior_range_risk(st.absorbance, band, nodes.weights, lo, hi)
+    inner = np.all(np.abs(nodes.theta - params.guess) <= 2.0 * params.prior_sd + 1e-12, axis=1)
+    low = np.maximum(np.min((st.absorbance - 2 * band)[inner], axis=0), 0.0)
+    high = np.max((st.absorbance + 2 * band)[inner], axis=0)
+    return risk, low, high
+
+
 def linear_range(
     model: Model,
     state: TubeState,
