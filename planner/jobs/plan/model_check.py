@@ -330,8 +330,9 @@ def _advice(study: Study, exact, best_power, best_cost, cap, tot, n) -> tuple[st
         best = best_power[k] if k < len(best_power) else float("nan")
         if best >= POWER_GOAL or best - p >= MARGIN:
             out.append(
-                f"{name}: a design on these candidates reaches {best:.0%} at ×{best_cost:.3g} in the SE, more "
-                f"than the ×{cap:.3g} allowed — set design.check_weight = {best_cost - 1:.2f} to accept it"
+                f"{name}: a design on these candidates reaches {best:.0%} at ×{best_cost:.3g} in the SE, "
+                f"more than the ×{cap:.3g} allowed — set design.check_weight = {best_cost - 1:.2f} to "
+                f"accept it"
             )
             continue
         a_ = alt.index(name)
