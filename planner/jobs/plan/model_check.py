@@ -296,9 +296,9 @@ def _reason(study, replaced, guarded, pays, within, exact_g, exact_t, cost, cap,
             f"SE(log β[{t}]), more than the ×{cap:.3g} the plan allows (design.check_weight)"
         )
     return (
-        f"the target-only design stands: within ×{cap:.3g} in SE(log β[{t}]) the best guarded design "
-        f"raises the power only from {gains.replace(', ', '; ')} — less than {MARGIN:.0%} more and short of "
-        f"the {POWER_GOAL:.0%} goal"
+        f"the target-only design stands: within ×{cap:.3g} in SE(log β[{t}]) the best guarded design would "
+        f"raise the power to reveal {gains} — less than {MARGIN * 100:.0f} points more and short of the "
+        f"{POWER_GOAL:.0%} goal"
     )
 
 
