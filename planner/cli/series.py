@@ -142,14 +142,17 @@ def series(
     summary = r.summary()
     text = json.dumps(summary, indent=2, allow_nan=False)
     if out_dir is not None:
-        write_atomic(out_dir / "recipe.csv", recipe_to_csv(r.recipe, p))
+        if r.recipe.n_tubes:
+            write_atomic(out_dir / "recipe.csv", recipe_to_csv(r.recipe, p))
         write_atomic(out_dir / "series.json", text + "\n")
     if as_json:
         print(text)
     else:
         print_series(r, p)
-        if out_dir is not None:
+        if out_dir is not None and r.recipe.n_tubes:
             out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'series.json'}")
+        elif out_dir is not None:
+            out.print(f"wrote {out_dir / 'series.json'} (no tubes: the series cannot be made)")
     sys.exit(r.exit_code)
 
 
@@ -170,6 +173,11 @@ def print_series(r, p) -> None:
     for line in r.notes:
         out.print(f"  • {escape(line)}")
     a = r.assessment
+    col = {"pass": "green", "warn": "yellow", "fail": "red"}
+    if a is None:
+        for c in r.checks:
+            out.print(f"[{col[c.status]}]{c.id}[/]: {escape(c.message)}")
+        return
     rows = a.tube_rows()
     dispensed = r.recipe.dispensed_ids(p)
     step = p.glassware.step_mL
@@ -191,7 +199,6 @@ def print_series(r, p) -> None:
             *(f"{float(v[i]):.3f}" for v in r.columns.values()),
         )
     out.print(t)
-    col = {"pass": "green", "warn": "yellow", "fail": "red"}
     t = Table(title="Checks")
     for c in ("check", "status", "what was found / what to do"):
         t.add_column(c)

@@ -6,7 +6,7 @@ from __future__ import annotations
 from ...inputs.choices import SERIES_METHOD_OPTIONS, SERIES_METHODS
 from ._deps import Plan, plan_model
 from .calibration import conversion_tube
-from .common import ClassicSeries
+from .common import ClassicSeries, SeriesInfeasible, infeasible
 from .job import continuous_variation
 from .mole_ratio import mole_ratio_series
 from .survey import wavelength_survey
@@ -19,6 +19,7 @@ __all__ = [
     "METHODS",
     "METHOD_OPTIONS",
     "ClassicSeries",
+    "SeriesInfeasible",
     "continuous_variation",
     "conversion_tube",
     "mole_ratio_series",
@@ -41,7 +42,23 @@ def run_series(
     max_ratio: float | None = None,
     recipe=None,
 ) -> ClassicSeries:
-    """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
+    """Plan and judge the classic series ``method`` (one of :data:`METHODS`).
+
+    A series the stocks and glassware cannot make at the method's defaults comes back with no tubes and a
+    failing "feasible" check saying what would (not as an input error: the plan is not wrong)."""
+    try:
+        return _run(plan, method, points, total_M, tubes, limiting, excess_M, vary, max_ratio, recipe)
+    except SeriesInfeasible as exc:
+        from .calibration import QUESTION as Q_CAL
+        from .job import QUESTION as Q_JOB
+        from .mole_ratio import QUESTION as Q_MR
+        from .survey import QUESTION as Q_SURVEY
+
+        q = {"job": Q_JOB, "calibration": Q_CAL, "mole-ratio": Q_MR, "survey": Q_SURVEY}[method]
+        return infeasible(method, plan, q, exc)
+
+
+def _run(plan, method, points, total_M, tubes, limiting, excess_M, vary, max_ratio, recipe) -> ClassicSeries:
     if method == "job":
         return continuous_variation(plan, points=points, total_M=total_M)
     if method == "calibration":

@@ -42,19 +42,23 @@ from ._deps import (
     tube_ions_M,
 )
 from .common import (
+    RANGE_RISK,
     ClassicSeries,
+    SeriesInfeasible,
     capacity_mL,
     corrected,
     fill_volumes,
     finish,
     fmt_conc,
     hypothetical,
-    predict_volumes,
+    pick,
     pure_stock,
-    range_check,
     scaled_in_range,
+    screen,
     series_recipe,
     snap,
+    status_of,
+    what_would_fit,
 )
 
 METHOD = "mole-ratio"
@@ -139,8 +143,26 @@ def mole_ratio_series(
                 f"{min(caps[1], avail - v_fix):g} mL: "
                 f"choose another --total, fewer --points or another --max-ratio",
             )
+        cand = np.array([v_fix])
     else:
-        v_fix = _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n)
+        v_fix, cand = _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n)
+    worst, _ = screen(plan, model, *_volumes(plan, fix_id, var_id, r, c_fix / c_var, np.array([v_fix]), step))
+    range_fix = ""
+    if not worst[0] <= RANGE_RISK + 1e-12:
+        caps = (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
+
+        def fits(m, scale: float) -> str:  # the rising stock diluted by ``scale``: its volumes change
+            c = _valid(cand_all, r, c_fix, c_var * scale, step, vmin, avail, caps)
+            if not c.any():
+                return "fail"
+            return status_of(
+                *screen(
+                    plan, m, *_volumes(plan, fix_id, var_id, r, c_fix / (c_var * scale), cand_all[c], step)
+                )
+            )
+
+        cand_all = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
+        range_fix = what_would_fit(model, fits, f"the {var_id} stock", comps=(vi,))
     v_var = snap(r * v_fix * c_fix / c_var, step)
     recipe = series_recipe(plan, {fix_id: np.full(n, v_fix), var_id: v_var}, [f"R{i + 1}" for i in range(n)])
     a = assess_tubes(plan, recipe)
@@ -161,7 +183,6 @@ def mole_ratio_series(
     if not hand["resolvable"]:
         needed = _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions)
     checks = [
-        range_check(model, st, recipe.tubes, low_is_warning=True),
         _break_check(hand, expected, C, needed, model, fix),
     ]
     extra = {
@@ -209,7 +230,9 @@ def mole_ratio_series(
         f"{expected:g} within {BREAK_TOLERANCE:.0%}"
     )
     columns = {"ratio": ratio, "Y": y, "±2sd": 2 * sd}
-    return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
+    return finish(
+        METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=range_fix
+    )
 
 
 def judge_break(ratio, y, cov, rf, yf, expected) -> dict:
@@ -303,8 +326,16 @@ def _valid(v_fix: np.ndarray, r, c_fix, c_var, step, vmin, avail, caps=(np.inf, 
     )
 
 
-def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n) -> float:
-    """The largest fixed volume whose series fits the tube and stays below the top of the linear range."""
+def _volumes(plan, fix_id, var_id, r, ratio_c, v_fix, step):
+    """(B, n, k) volumes and (B, n) tube volumes of the series at each fixed volume ``v_fix`` (B,)."""
+    vv = snap(v_fix[:, None] * r[None, :] * ratio_c, step)
+    return fill_volumes(plan, {fix_id: np.broadcast_to(v_fix[:, None], vv.shape), var_id: vv})
+
+
+def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n):
+    """(fixed volume, the volumes tried): the largest fixed volume whose series fits the tube and keeps
+    every reading in the linear range over the guess's uncertainty (assess's own screen); else the
+    least risky one, which the linear-range check flags with what would work."""
     cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
     cand = cand[
         _valid(
@@ -312,22 +343,15 @@ def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, ava
         )
     ]
     if cand.size == 0:
-        raise PlanError(
-            "--points",
-            f"{n} rising volumes do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
-            f"the {step:g} mL grid above min_volume: use fewer --points, a lower --max-ratio or a "
-            f"more concentrated {var_id}",
+        raise SeriesInfeasible(
+            "points",
+            f"{n} rising volumes of {var_id} do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
+            f"the {step:g} mL grid above min_volume {vmin:g} mL beside the fixed {fix_id}: use fewer "
+            f"points, a lower max_ratio, or a {var_id} stock nearer {fmt_conc(c_fix)} (the fixed stock's "
+            f"concentration) so that its volumes are on the grid",
         )
-    vol, tot = fill_volumes(
-        plan,
-        {
-            fix_id: np.broadcast_to(cand[:, None], (cand.size, r.size)),
-            var_id: cand[:, None] * r * c_fix / c_var,
-        },
-    )
-    peak = predict_volumes(model, vol, tot).absorbance.max(axis=1)
-    inside = np.flatnonzero(peak <= model.linear_range[1])
-    return float(cand[inside[-1]] if inside.size else cand[0])
+    k, _ = pick(*screen(plan, model, *_volumes(plan, fix_id, var_id, r, c_fix / c_var, cand, step)))
+    return float(cand[k]), cand
 
 
 def _conc_that_resolves(

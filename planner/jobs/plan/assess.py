@@ -279,7 +279,8 @@ def assess_study(
     check_list.append(chk.saturation(state, recipe.tubes))
     if model.complex_mask[model.index(target)] and model.complex_mask.sum() == 1:
         # the 'complete conversion' shortcut only makes sense with a single M–L complex
-        check_list.append(chk.conversion(model, state, recipe.tubes, target))
+        hand = study.analysis in ("one-to-one", "double-reciprocal")
+        check_list.append(chk.conversion(model, state, recipe.tubes, target, hand_analysis=hand))
     if study.analysis == "double-reciprocal":
         check_list.append(chk.double_reciprocal(state, recipe.tubes))
     if study.analysis in ("one-to-one", "double-reciprocal"):
