@@ -241,7 +241,7 @@ def series_recipe(plan: Plan, dispensed: dict[str, np.ndarray], tubes: list[str]
 def hypothetical():
     """Silence activity-model warnings while exploring hypothetical tubes (a 10 M excess, a 1000-fold
     stock): the planned tubes are assessed, and warned about, without it."""
-    with warnings.catch_warnings():
+    with warnings.catch_warnings(), np.errstate(over="ignore", invalid="ignore"):
         warnings.simplefilter("ignore", ActivityWarning)
         yield
 

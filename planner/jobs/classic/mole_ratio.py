@@ -30,6 +30,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._deps import (
+    SECOND_COMPLEX_SHARE,
     Check,
     Plan,
     PlanError,
@@ -185,6 +186,12 @@ def mole_ratio_series(
     checks = [
         _break_check(hand, expected, C, needed, model, fix),
     ]
+    ions_t = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    other = _other_complex_effect(
+        model, j, fi, (st.totals_M, ions_t, ratio, cov), (rf, curve_totals, curve_ions)
+    )
+    if other is not None:
+        checks.append(_other_check(other, hand, expected, target, fix))
     extra = {
         "fixed_reagent": fix,
         "varied_reagent": vary,
@@ -214,6 +221,7 @@ def mole_ratio_series(
             for i, t in enumerate(recipe.tubes)
         ],
         "curve": {"ratio": rf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
+        "other_complexes": other,
     }
     notes = [
         f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {fix_id}); {vary} rising to {r_max:g}× "
@@ -232,6 +240,52 @@ def mole_ratio_series(
     columns = {"ratio": ratio, "Y": y, "±2sd": 2 * sd}
     return finish(
         METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=range_fix
+    )
+
+
+def _other_complex_effect(model, j, fi, tubes, curve) -> dict | None:
+    """What the plan's other complexes of the fixed reagent do to the break: the break the same tubes
+    would give with the target complex alone (the others' constants set to nothing), and the share of
+    the fixed reagent in them at the expected ratio. None without such complexes."""
+    others = [
+        k for k in range(len(model.species)) if k != j and model.complex_mask[k] and model.stoich[k, fi] > 0
+    ]
+    if not others:
+        return None
+    totals, ions, ratio, cov = tubes
+    rf, curve_totals, curve_ions = curve
+    expected = float(model.stoich[j, 1 - fi] / model.stoich[j, fi])
+    lb = model.log_beta.copy()
+    lb[others] = -30.0  # not formed at any concentration a tube holds
+    with hypothetical():
+        y_alone = corrected(model, predict(model, totals, ions, log_beta=lb, warn=False))
+        yf_alone = corrected(model, predict(model, curve_totals, curve_ions, log_beta=lb, warn=False))
+        at = predict(model, curve_totals, curve_ions, warn=False)
+    alone = judge_break(ratio, y_alone, cov, rf, yf_alone, expected)
+    k = int(np.argmin(np.abs(rf - expected)))
+    share = float((at.species_M[k, others] * model.stoich[others, fi]).sum() / curve_totals[k, fi])
+    return {
+        "species": [model.species[i] for i in others],
+        "break_ratio_target_alone": alone["break_ratio"],
+        "share_at_expected_ratio": share,
+    }
+
+
+def _other_check(other: dict, hand: dict, expected: float, target: str, fix: str) -> Check:
+    names = ", ".join(other["species"])
+    share = other["share_at_expected_ratio"]
+    shift = hand["break_ratio"] - other["break_ratio_target_alone"]
+    here, alone = _num(hand["break_ratio"]), _num(other["break_ratio_target_alone"])
+    msg = (
+        f"at the ratio {expected:g} of {target}, {share:.0%} of {fix} is in {names}; with {names} forming "
+        f"the two-line break lands at {here} instead of {alone} with {target} alone"
+    )
+    if share <= SECOND_COMPLEX_SHARE and not abs(shift) > BREAK_TOLERANCE * expected / 2:
+        return Check("other-complexes", "pass", msg)
+    return Check(
+        "other-complexes",
+        "warn",
+        msg + ": the break reads neither complex's ratio cleanly — fit all complexes globally (kplan design)",
     )
 
 
