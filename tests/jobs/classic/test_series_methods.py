@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from planner.inputs.files import write_atomic
-from planner.inputs.plan import PlanError, parse_plan_text
+from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv
 from planner.jobs.classic import (
     SeriesInfeasible,
