@@ -302,9 +302,10 @@ def assess_study(
     limits = None
     if cr is not None and params.target >= 0 and study.goal_se is not None:
         se_t = float(cr.se[params.target])
-        shares = precision_shares(study, recipe, state, budget, cr.jacobian, params)
-        limits = Limits(study.target, se_t, float(study.goal_se), shares)
-        if suggest and shares:
+        limits = precision_shares(
+            study, recipe, state, budget, cr.jacobian, params, se_t, float(study.goal_se)
+        )
+        if suggest and limits is not None:
             limits = what_would_help(study, recipe, limits, lb_true)
     verdict, reason = _verdict(study, params, cr, mc, prof)
     failed = [c.id for c in check_list if c.status == "fail"]

@@ -1,9 +1,10 @@
 """What limits the precision of a recipe, and the one change that would help most.
 
 The variance of the target's log β is split by source — the photometer, each dispenser (its random
-errors and calibration), the make-up flask, each stock's concentration, and the absorptivities the fit
-must estimate alongside the constant — by the exact sandwich decomposition of
-:mod:`planner.inference.shares` (the shares sum to 1). Then a short list of changes a chemist can make
+errors and calibration), the make-up flask, each stock's concentration — by the exact sandwich
+decomposition of :mod:`planner.inference.shares` (the shares sum to 1), in the fit as it will be made.
+Beside them: how much having to fit the absorptivities (the guess's ε is only a guess) multiplies that
+variance, and the SE were they known. Then a short list of changes a chemist can make
 is priced by assessing the same recipe again with each (the Cramér–Rao SE, full error budget): another
 dispenser from the glassware catalogue for each device, a longer cuvette that keeps every reading in the
 linear range, more tubes (the recipe made several times), a standardised stock. The best is reported,
@@ -39,8 +40,7 @@ DEVICE_KINDS = ("burette", "graduated-pipette", "micropipette")  # deliver any v
 
 @dataclass(frozen=True)
 class Share:
-    """One source's share of Var(log β[target]); ``kind`` as in :mod:`planner.uncertainty.sources`, or
-    "epsilon" for the absorptivities fitted alongside."""
+    """One source's share of Var(log β[target]); ``kind`` as in :mod:`planner.uncertainty.sources`."""
 
     source: str
     share: float
@@ -74,7 +74,8 @@ class Limits:
     goal : the plan's goal_se.
     shares : by source, largest first (they sum to 1).
     changes : the changes priced, best first (empty unless asked for).
-    reaches_goal : the changes that bring the SE to the goal.
+    epsilon_factor : Var / Var with the fitted absorptivities known (1 when none is fitted).
+    epsilon_names : the fitted absorptivities.
     """
 
     target: str
@@ -82,6 +83,8 @@ class Limits:
     goal: float
     shares: tuple[Share, ...]
     changes: tuple[Change, ...] = ()
+    epsilon_factor: float = 1.0
+    epsilon_names: tuple[str, ...] = ()
 
     @property
     def best(self) -> Change | None:
@@ -93,6 +96,12 @@ class Limits:
 
     def summary(self) -> dict:
         out: dict = {"error_shares": [s.summary() for s in self.shares]}
+        if self.epsilon_names:
+            out["epsilon_fitted"] = {
+                "parameters": list(self.epsilon_names),
+                "variance_factor": float(self.epsilon_factor),
+                "se_if_known": float(self.se / np.sqrt(self.epsilon_factor)),
+            }
         if self.changes:
             out["best_change"] = {**self.changes[0].summary(), "se_now": float(self.se)}
             out["changes"] = [c.summary() for c in self.changes]
@@ -105,6 +114,11 @@ class Limits:
             f"what limits SE(log β[{self.target}]) = {self.se:.3g} (shares of its variance): "
             + ", ".join(f"{s.source} {s.share:.0%}" for s in shown)
         ]
+        if self.epsilon_names and self.epsilon_factor > 1.0 + 1e-9:
+            out.append(
+                f"fitting {', '.join(self.epsilon_names)} alongside the constant multiplies its variance by "
+                f"×{self.epsilon_factor:.3g} (SE {self.se / np.sqrt(self.epsilon_factor):.3g} were ε known)"
+            )
         best = self.best
         if best is not None:
             others = ", ".join(f"{c.change}: {c.se:.3g}" for c in self.changes[1:4])
@@ -118,30 +132,41 @@ class Limits:
 
 
 def precision_shares(
-    study: Study, recipe: Recipe, state, budget: ErrorBudget, J: np.ndarray, params: Parameters
-) -> tuple[Share, ...]:
-    """Shares of Var(log β[target]) by source (empty when the target is not fitted), largest first."""
+    study: Study,
+    recipe: Recipe,
+    state,
+    budget: ErrorBudget,
+    J: np.ndarray,
+    params: Parameters,
+    se: float,
+    goal: float,
+) -> Limits | None:
+    """Shares of Var(log β[target]) by source, largest first, and the factor fitting ε costs; None when the
+    target is not fitted or the information is singular."""
     t = params.target
     if t < 0 or J.shape[0] < params.size:
-        return ()
+        return None
     sources = error_sources(study.bench, study.model, recipe, state, budget)
     eps = [p for p in range(params.size) if params.kind[p] == 1]
     try:
         vs = variance_shares(J, [s.cov for s in sources], t, eps)
     except np.linalg.LinAlgError:
-        return ()
+        return None
     if not np.isfinite(vs.variance) or vs.variance <= 0:
-        return ()
+        return None
     shares = [
         Share(s.label, float(v), s.kind, recipe.stock_ids[s.index] if s.kind == "stock" else "")
-        for s, v in zip(sources, vs.shares[:-1], strict=True)
+        for s, v in zip(sources, vs.shares, strict=True)
     ]
-    if eps:
-        names = ", ".join(params.names[p].replace("epsilon", "ε") for p in eps)
-        shares.append(
-            Share(f"ε not known, fitted with the constant ({names})", float(vs.shares[-1]), "epsilon")
-        )
-    return tuple(sorted(shares, key=lambda s: -s.share))
+    names = tuple(params.names[p].replace("epsilon", "ε") for p in eps)
+    return Limits(
+        study.target,
+        se,
+        goal,
+        tuple(sorted(shares, key=lambda s: -s.share)),
+        epsilon_factor=float(vs.nuisance_factor),
+        epsilon_names=names,
+    )
 
 
 def target_se(study: Study, recipe: Recipe, log_beta: np.ndarray | None = None) -> float:
