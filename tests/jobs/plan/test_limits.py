@@ -77,6 +77,14 @@ def _simulate_one_source(study, recipe, source: str, k: int | None, rng, T: int)
     return a
 
 
+def _refit(reading: ReadingModel, data: np.ndarray, W):
+    """Every simulated experiment fitted at once, weighted as the real fit (the whole budget)."""
+    lo, hi = reading.bounds()
+    T = data.shape[0]
+    guess = np.tile(reading.params.guess, (T, 1))
+    return fit_many(reading.f, guess, data, jac=reading.jac, whiten=W, scale_cov=False, lower=lo, upper=hi)
+
+
 def test_shares_agree_with_a_monte_carlo_one_source_at_a_time():
     # each source's share of Var(log β) against the variance of refits (ε free, as the real fit) of
     # experiments with that one source switched on; and the factor fitting ε costs against the same draws
@@ -100,17 +108,7 @@ def test_shares_agree_with_a_monte_carlo_one_source_at_a_time():
     data = np.concatenate(
         [_simulate_one_source(study, recipe, kind, idx, rng, T) for _, kind, idx in runs], axis=0
     )
-    lo, hi = reading.bounds()
-    res = fit_many(
-        reading.f,
-        np.tile(full.guess, (data.shape[0], 1)),
-        data,
-        jac=reading.jac,
-        whiten=W,
-        scale_cov=False,
-        lower=lo,
-        upper=hi,
-    )
+    res = _refit(reading, data, W)
     assert res.converged.all()
     est = res.theta[:, full.target].reshape(len(runs), T)
     for (label, _, _), e in zip(runs, est, strict=True):
@@ -127,27 +125,7 @@ def test_shares_agree_with_a_monte_carlo_one_source_at_a_time():
     mix = state.absorbance + sum(
         _simulate_one_source(study, recipe, kind, idx, rng_mix, T) - state.absorbance for _, kind, idx in runs
     )
-    r_free = fit_many(
-        reading.f,
-        np.tile(full.guess, (T, 1)),
-        mix,
-        jac=reading.jac,
-        whiten=W,
-        scale_cov=False,
-        lower=lo,
-        upper=hi,
-    )
-    l0, h0 = reading0.bounds()
-    r_known = fit_many(
-        reading0.f,
-        np.tile(known.guess, (T, 1)),
-        mix,
-        jac=reading0.jac,
-        whiten=W,
-        scale_cov=False,
-        lower=l0,
-        upper=h0,
-    )
+    r_free, r_known = _refit(reading, mix, W), _refit(reading0, mix, W)
     v_free = np.var(r_free.theta[:, full.target], ddof=1)
     v_known = np.var(r_known.theta[:, known.target], ddof=1)
     assert v_free == pytest.approx(var, rel=0.11)
