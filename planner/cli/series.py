@@ -12,6 +12,17 @@ import typer
 from ..inputs.choices import SERIES_METHODS as METHODS
 from .app import UserError, app, out
 
+# the series' parameters, as the options that set them
+OPTION_OF = {
+    "points": "--points",
+    "total": "--total",
+    "excess": "--excess",
+    "limiting": "--limiting",
+    "tubes": "--tubes",
+    "vary": "--vary",
+    "max_ratio": "--max-ratio",
+}
+
 
 @app.command()
 def series(
@@ -88,7 +99,7 @@ def series(
     plan's bands (survey) — and say whether it can answer its question: exit 0 when it can, 1 when it
     cannot."""
     from ..inputs.files import write_atomic
-    from ..inputs.plan import load_plan
+    from ..inputs.plan import PlanError, load_plan
     from ..inputs.recipe import recipe_to_csv
     from ..inputs.units import UnitError, parse_quantity
     from ..jobs.classic import METHOD_OPTIONS, METHODS, run_series
@@ -127,18 +138,23 @@ def series(
         from ..inputs.recipe import read_recipe_csv
 
         given = read_recipe_csv(recipe, p)
-    r = run_series(
-        p,
-        method,
-        points=points,
-        total_M=total_M,
-        tubes=tubes,
-        limiting=limiting,
-        excess_M=excess_M,
-        vary=vary,
-        max_ratio=max_ratio,
-        recipe=given,
-    )
+    try:
+        r = run_series(
+            p,
+            method,
+            points=points,
+            total_M=total_M,
+            tubes=tubes,
+            limiting=limiting,
+            excess_M=excess_M,
+            vary=vary,
+            max_ratio=max_ratio,
+            recipe=given,
+        )
+    except PlanError as exc:  # the series' parameters are this command's options
+        if exc.key in OPTION_OF:
+            raise UserError(f"{OPTION_OF[exc.key]}: {exc.message}") from None
+        raise
     summary = r.summary()
     text = json.dumps(summary, indent=2, allow_nan=False)
     if out_dir is not None:

@@ -95,7 +95,7 @@ def conversion_tube(
         )
     lim = limiting or ("L" if p >= q else "M")
     if lim not in ("M", "L"):
-        raise PlanError("--limiting", f"'{lim}': write M (metal limiting) or L (ligand limiting)")
+        raise PlanError("limiting", f"'{lim}': write M (metal limiting) or L (ligand limiting)")
     exc = "M" if lim == "L" else "L"
     nu_lim, nu_exc = (q, p) if lim == "L" else (p, q)
     eps_t = float(model.epsilon_M_cm[2 + j])
@@ -105,7 +105,7 @@ def conversion_tube(
             f"'{target}' has no absorptivity: give its ε guess (a calibration tube reads the complex)",
         )
     if tubes < 1:
-        raise PlanError("--tubes", "at least one calibration tube")
+        raise PlanError("tubes", "at least one calibration tube")
     _, lim_id, c_lim_stock = pure_stock(plan, lim)
     _, exc_id, c_exc_stock = pure_stock(plan, exc)
     g = plan.glassware

@@ -74,9 +74,7 @@ def continuous_variation(
     _, l_id, cL = pure_stock(plan, "L")
     _require_equimolar(plan, m_id, cM, l_id, cL)
     if points is not None and int(points) < 3:
-        raise PlanError(
-            "--points", f"{points} points cannot show an extremum: use at least 3 (9–11 is usual)"
-        )
+        raise PlanError("points", f"{points} points cannot show an extremum: use at least 3 (9–11 is usual)")
     g = plan.glassware
     step, vmin = g.step_mL, max(g.min_volume_mL, g.step_mL)
     avail = (
@@ -226,22 +224,22 @@ def _valid(vs: np.ndarray, x: np.ndarray, step: float, vmin: float, caps=(np.inf
 
 
 def _given_sum(total_M, cM, x, n, step, vmin, avail, caps, tube_mL) -> float:
-    """The sum of stock volumes per tube for ``--total`` (checked against the grid and the tube)."""
+    """The sum of stock volumes per tube for ``total`` (checked against the grid and the tube)."""
     if total_M <= 0:
-        raise PlanError("--total", "the total concentration must be positive, e.g. --total '2 mM'")
+        raise PlanError("total", "the total concentration must be positive, e.g. total = '2 mM'")
     vs = float(snap(total_M * tube_mL / cM, step))
     if vs > avail + 1e-9:
         raise PlanError(
-            "--total",
+            "total",
             f"{fmt_conc(total_M)} needs {vs:g} mL of stock per tube, more than the "
-            f"{avail:g} mL available: lower --total or use more concentrated stocks",
+            f"{avail:g} mL available: lower total or use more concentrated stocks",
         )
     if not _valid(np.array([vs]), x, step, vmin, caps)[0]:
         raise PlanError(
-            "--total",
+            "total",
             f"at {fmt_conc(total_M)} ({vs:g} mL of stock per tube) the {n} mole fractions "
             f"do not fit the {step:g} mL grid between min_volume {vmin:g} mL and the dispensers' "
-            f"capacity: change --total or use fewer --points",
+            f"capacity: change total or use fewer points",
         )
     return vs
 
@@ -278,9 +276,9 @@ def _choose_sum(plan, model, m_id, l_id, points, step, vmin, avail, caps):
     if fallback is None:
         n = ns[-1]
         raise SeriesInfeasible(
-            "--points",
+            "points",
             f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube on the {step:g} mL "
-            f"grid above min_volume {vmin:g} mL within the dispensers' capacity: use fewer --points, a "
+            f"grid above min_volume {vmin:g} mL within the dispensers' capacity: use fewer points, a "
             f"smaller min_volume or a larger tube",
         )
     return fallback[:3]

@@ -94,7 +94,7 @@ def mole_ratio_series(
     """
     if vary not in ("L", "M"):
         raise PlanError(
-            "--vary", f"'{vary}': write L (metal fixed, ligand rising) or M (ligand fixed, metal rising)"
+            "vary", f"'{vary}': write L (metal fixed, ligand rising) or M (ligand fixed, metal rising)"
         )
     model = plan_model(plan)
     fix = "M" if vary == "L" else "L"
@@ -113,7 +113,7 @@ def mole_ratio_series(
     highest = float(np.max(model.stoich[mask, vi] / model.stoich[mask, fi]))
     n = DEFAULT_POINTS if points is None else int(points)
     if n < 5:
-        raise PlanError("--points", f"{n} tubes cannot give two lines of at least two tubes: use 8–12")
+        raise PlanError("points", f"{n} tubes cannot give two lines of at least two tubes: use 8–12")
     if max_ratio is None:
         # 2.5 × the richest complex's ratio, but low enough to leave two tubes before the break (with 5 %
         # to spare for the rounding of volumes to the grid)
@@ -122,7 +122,7 @@ def mole_ratio_series(
         r_max = float(max_ratio)
     if r_max <= expected * (1 + LINE_MARGIN):
         raise PlanError(
-            "--max-ratio",
+            "max_ratio",
             f"{r_max:g} does not reach past the break at {expected:g}: use at least {2 * expected:g}",
         )
     g = plan.glassware
@@ -137,12 +137,12 @@ def mole_ratio_series(
         if not _valid(np.array([v_fix]), r, c_fix, c_var, step, vmin, avail, caps)[0]:
             vv = snap(r * v_fix * c_fix / c_var, step)
             raise PlanError(
-                "--total",
+                "total",
                 f"{fmt_conc(total_M)} of {fix} is {v_fix:g} mL of {fix_id}; the {n} volumes "
                 f"of {var_id} up to ratio {r_max:g} would run {vv[0]:g}–{vv[-1]:g} mL, which must be "
                 f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most "
                 f"{min(caps[1], avail - v_fix):g} mL: "
-                f"choose another --total, fewer --points or another --max-ratio",
+                f"choose another total, fewer points or another max_ratio",
             )
         cand = np.array([v_fix])
     else:
