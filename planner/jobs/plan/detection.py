@@ -21,7 +21,7 @@ def _f(x) -> float | None:
 
 
 ASSESS_FIX = "spread the tubes over more compositions, or let kplan design guard against it"
-DESIGN_FIX = "the model check below says why this design stands and what would reveal it"
+DESIGN_FIX = "the model check above says how far any design on these candidates gets and what would reveal it"
 
 
 def model_check_result(det: tuple[Detection, ...], fix: str = ASSESS_FIX) -> Check:

@@ -182,16 +182,30 @@ def guard(
     n = int(counts.sum())
     dof = n - params.size
     lam_cap = noncentrality_for_power(POWER_SATURATED, dof)
-    g = guarded_design(F, R, M0, params.target, counts, cap, lam_cap=lam_cap)
     free = guarded_design(F, R, M0, params.target, counts, np.inf, lam_cap=lam_cap)
     best_power = tuple(float(power_from_noncentrality(lam, dof)) for lam in free.noncentrality)
     se_t = _se(study, target_recipe)
     exact_t = _exact(study, target_recipe)
-    guarded = recipe_from_counts(study, cand, idx, g.counts) if g.moves else None
-    if guarded is None:
-        se_g, exact_g, moved = se_t, exact_t, 0
+
+    def search(rows):
+        g = guarded_design(F, R[rows], M0, params.target, counts, cap, lam_cap=lam_cap)
+        if not g.moves:
+            return None
+        rec_g = recipe_from_counts(study, cand, idx, g.counts)
+        return rec_g, _se(study, rec_g), _exact(study, rec_g), tubes_moved(g.counts, counts)
+
+    found = search(np.arange(len(study.alternatives)))
+    if found is not None:
+        # spend the allowed cost only on the alternatives that pay: refocus on them alone
+        paying = [k for k, (g_, t_) in enumerate(zip(found[2], exact_t, strict=True)) if _pays((g_,), (t_,))]
+        if 0 < len(paying) < len(study.alternatives):
+            focused = search(np.array(paying))
+            if focused is not None and _pays(focused[2], exact_t) and focused[1] < found[1]:
+                found = focused
+    if found is None:
+        guarded, se_g, exact_g, moved = None, se_t, exact_t, 0
     else:
-        se_g, exact_g, moved = _se(study, guarded), _exact(study, guarded), tubes_moved(g.counts, counts)
+        guarded, se_g, exact_g, moved = found
     pays = _pays(exact_g, exact_t)
     within = se_g <= cap * se_t * (1.0 + 1e-9)
     replaced = guarded is not None and pays and within
