@@ -10,6 +10,7 @@ from typing import Annotated
 import typer
 
 from ..inputs.choices import PAPERS as PAPER_CHOICES
+from ..inputs.text import plural
 from .app import UserError, app, dump_json, err, out
 from .app import safe_text as S
 
@@ -126,14 +127,17 @@ def _print(cs, stocks, out_dir: Path) -> None:
 
     se = cs.se
     n = len(cs.cards)
-    out.print(f"[bold]{S(cs.title)}[/bold]: {n} cards of {cs.best.n_tubes} tubes, seed {cs.seed}")
+    out.print(
+        f"[bold]{S(cs.title)}[/bold]: {plural(n, 'card')} of {plural(cs.best.n_tubes, 'tube')}, "
+        f"seed {cs.seed}"
+    )
     out.print(
         f"  SE of log β[{cs.target}]: one card {fmt.sig(se['cards_median'], 2)} (median; worst "
         f"{fmt.sig(se['cards_max'], 2)}, goal {fmt.sig(cs.goal_se, 2)})"
     )
     out.print(
-        f"  class pooled {fmt.sig(se['pooled'], 2)}; {n} copies of the best recipe "
-        f"{fmt.sig(se['pooled_best_copies'], 2)}; {n} copies of the even series "
+        f"  class pooled {fmt.sig(se['pooled'], 2)}; {plural(n, 'copy', 'copies')} of the best recipe "
+        f"{fmt.sig(se['pooled_best_copies'], 2)}; {plural(n, 'copy', 'copies')} of the even series "
         f"{fmt.sig(se['pooled_even_copies'], 2)}; stock errors left out "
         f"{fmt.sig(se['pooled_without_stock'], 2)}"
     )

@@ -8,6 +8,7 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 
@@ -62,7 +63,7 @@ def grade(
     if as_json:
         print(dump_json(summary))
         return
-    out.print(f"[bold]{S(g.title)}[/bold] — {len(g.students)} students")
+    out.print(f"[bold]{S(g.title)}[/bold] — {plural(len(g.students), 'student')}")
     pooled = summary["pooled"]
     if pooled is not None:
         for prm in pooled["parameters"]:
@@ -70,7 +71,7 @@ def grade(
             out.print(
                 f"pooled {S(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
                 + (f" (95 % {fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)})" if ci and None not in ci else "")
-                + f" from {pooled['students']} students; {S(pooled['chi2_verdict'])}"
+                + f" from {plural(pooled['students'], 'student')}; {S(pooled['chi2_verdict'])}"
             )
     t = Table(title="Students")
     for c in ("student", "name", "verdict", "in band", "own log β", "likely mix-up"):

@@ -7,7 +7,9 @@ import math
 import numpy as np
 from rich.table import Table
 
+from ..inputs.text import plural
 from ..paper import fmt
+from ..paper.bench_volumes import volume_step_mL
 from .app import out
 from .app import safe_text as S
 
@@ -94,7 +96,7 @@ def print_assessment(a, p) -> None:  # noqa: C901
         t.add_column(c, justify="right")
     rows = a.tube_rows()
     lo, hi = m.linear_range
-    step = p.glassware.step_mL
+    step = volume_step_mL(p)
     st = a.state
     for i, tube in enumerate(r.tubes):
         A = rows[i]["absorbance"]
@@ -123,7 +125,8 @@ def print_design(d, p) -> None:
         out.print(f"Verdict: [bold {vcol[d.verdict]}]{d.verdict}[/] — {S(d.verdict_reason)}")
     out.print(
         f"criterion {d.criterion}, {'robust over the guess' if d.robust else 'at the guess only'}, "
-        f"{d.recipe.n_tubes} tubes, seed {d.seed}; {d.n_candidates} candidate tubes on the grid, "
+        f"{plural(d.recipe.n_tubes, 'tube')}, seed {d.seed}; "
+        f"{plural(d.n_candidates, 'candidate tube')} on the grid, "
         f"{d.n_feasible} inside the linear range over the guess's range"
     )
     for note in d.notes:
@@ -153,7 +156,7 @@ def print_design(d, p) -> None:
     )
     out.print(
         f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
-        f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} ({compare}); "
+        f"of {plural(d.recipe.n_tubes, 'tube')}: {fmt.sig(d.se_even, 2)} ({compare}); "
         f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these "
         f"candidates"
     )
@@ -209,7 +212,7 @@ def _pct(x) -> str:
 
 
 def print_stock_needs(p, needs, with_recipe: bool) -> None:
-    from ..paper.stock_text import prep_lines
+    from ..paper.stock_text import mass_advice_text, prep_lines
 
     out.print(f"[bold]{S(p.title)}[/bold] — stocks")
     t = Table(title="Preparation")
@@ -218,9 +221,16 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
     for n in needs:
         s = p.stock_by_id(n.id)
         conc = S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—")
-        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask
-        lines, _ = prep_lines(p, n.id, n.summary())
+        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask,
+        # what sets the mass; then, for the author, how to weigh less
+        summary = n.summary()
+        lines, _ = prep_lines(p, n.id, summary)
         how = S(" ".join(lines))
+        advice = mass_advice_text(summary)
+        if advice:
+            how += f" [cyan]{S(advice)}[/cyan]"
+        if n.scarce:
+            how = "[bold](scarce)[/bold] " + how
         if n.preparation is not None:
             pr = n.preparation
             if pr.mass_g < pr.min_weight_g:

@@ -58,7 +58,8 @@ from .plan_parts import Alternative, Titration, check_formula
 from .text import check_identifier
 
 COMPONENTS = ("M", "L", "H")
-DISPENSER_KINDS = ("burette", "pipette", "graduated-pipette", "micropipette")
+DISPENSER_KINDS = ("burette", "pipette", "graduated-pipette", "micropipette", "piston-burette")
+PISTON_DISPENSERS = ("micropipette", "piston-burette")  # ISO 8655 devices: no class, a systematic limit
 MAKE_UP_MODES = ("to-mark", "added")
 CRITERIA = ("target", "all")
 ACTIVITY_MODELS = ("davies", "extended-dh", "none")
@@ -153,6 +154,7 @@ class Stock(_Strict):
     flask_mL: Volume | None = Field(default=None, alias="flask")
     diluent: bool = False
     background: bool = False
+    scarce: bool = False  # make the least of it: the smallest flask and the least reagent weighed
 
     @field_validator("conc")
     @classmethod
@@ -180,7 +182,8 @@ class Stock(_Strict):
 
 class Flask(_Strict):
     capacity_mL: Volume = Field(alias="capacity")
-    cls: Literal["A", "B"] = Field(default="A", alias="class")
+    # unset: the catalogue's class A, or no class when the flask is described by its tolerance alone
+    cls: Literal["A", "B"] | None = Field(default=None, alias="class")
     tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
 
 
@@ -195,12 +198,60 @@ class Balance(_Strict):
         return self
 
 
+REPEATABILITY_MAX_FRACTION = 0.1  # a delivery's sd above 10 % of capacity is a unit slip, not a device
+
+
 class Dispenser(_Strict):
-    kind: Literal["burette", "pipette", "graduated-pipette", "micropipette"]
+    kind: Literal["burette", "pipette", "graduated-pipette", "micropipette", "piston-burette"]
     capacity_mL: Volume = Field(alias="capacity")
-    cls: Literal["A", "B"] = Field(default="A", alias="class")
+    # unset: the catalogue's class A, or no class when the device is described by its tolerance alone
+    cls: Literal["A", "B"] | None = Field(default=None, alias="class")
     tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
+    graduation_mL: Volume | None = Field(default=None, alias="graduation")
+    repeatability_mL: Volume | None = Field(default=None, alias="repeatability")
+    systematic_mL: Volume | None = Field(default=None, alias="systematic")
     stocks: list[str] = Field(min_length=1)
+
+    @model_validator(mode="after")
+    def _figures(self) -> Dispenser:
+        piston = self.kind in PISTON_DISPENSERS
+        if piston and self.cls is not None:
+            raise PlanError(
+                "class", f"a {self.kind} has no class: remove it (give systematic = '...' instead)"
+            )
+        if self.systematic_mL is not None and not piston:
+            raise PlanError(
+                "systematic",
+                f"only a micropipette or piston burette states a systematic error; a {self.kind} gives its "
+                "tolerance = '...'",
+            )
+        if self.systematic_mL is not None and self.tolerance_mL is not None:
+            raise PlanError("systematic", "give systematic or tolerance, not both (they are the same limit)")
+        if self.graduation_mL is not None:
+            if self.kind == "pipette":
+                raise PlanError("graduation", "a one-mark pipette has no graduation: remove it")
+            if self.graduation_mL > self.capacity_mL:
+                raise PlanError(
+                    "graduation",
+                    f"{self.graduation_mL:g} mL is more than the {self.capacity_mL:g} mL capacity: give the "
+                    "smallest subdivision, e.g. graduation = '0.05 mL'",
+                )
+        if (
+            self.repeatability_mL is not None
+            and self.repeatability_mL > REPEATABILITY_MAX_FRACTION * self.capacity_mL
+        ):
+            raise PlanError(
+                "repeatability",
+                f"{self.repeatability_mL:g} mL is more than {REPEATABILITY_MAX_FRACTION:.0%} of the "
+                f"{self.capacity_mL:g} mL capacity: give the standard deviation of one delivery, e.g. "
+                "repeatability = '0.003 mL'",
+            )
+        return self
+
+    @property
+    def limit_mL(self) -> float | None:
+        """The stated tolerance, or a piston device's measured systematic error (the same limit)."""
+        return self.systematic_mL if self.systematic_mL is not None else self.tolerance_mL
 
 
 class Glassware(_Strict):

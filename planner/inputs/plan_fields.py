@@ -30,6 +30,8 @@ key                                          range                           uni
 ``stock.conc_rsd``                           0 … 1 (excluded)                relative
 ``stock.purity``                             0 (excluded) … 1                fraction
 tube_volume, step, flask, capacity, on_hand  1e-6 … 10 000                   mL
+dispenser graduation, repeatability,         1e-6 … 10 000 (graduation ≤       mL
+systematic                                   capacity, repeatability ≤ 10 %)
 min_volume, rinse, dead_volume, fixed        0, or 1e-6 … 10 000             mL
 ``glassware.step``                           ≤ 20 000 levels to tube_volume
 ``glassware.delta_T_C``                      −30 … 30                        °C

@@ -63,3 +63,10 @@ def check_text(text: str, what: str = "text") -> str:
     if len(text) > MAX_TEXT:
         raise ValueError(f"{what} is {len(text)} characters long; at most {MAX_TEXT}: shorten it")
     return text
+
+
+def plural(n: int | float, word: str, many: str | None = None) -> str:
+    """``n`` with ``word`` in the number it takes: ``plural(1, "tube")`` → "1 tube", ``plural(3, "tube")``
+    → "3 tubes", ``plural(2, "copy", "copies")`` → "2 copies". Counts print as integers."""
+    k = int(n) if float(n) == int(n) else n
+    return f"{k} {word if k == 1 else (many or word + 's')}"

@@ -17,9 +17,11 @@ import csv
 import io
 
 from ..inputs.plan import Plan
+from ..inputs.text import plural
 from ..jobs.classroom.cards import ClassSet
 from ..jobs.classroom.stock_list import ClassStock
 from . import fmt, safety
+from .bench_volumes import reading_note
 from .render import PAPERS, html_to_pdf, render_html
 from .sheets import (
     RenderError,
@@ -146,7 +148,8 @@ def _card_shared(plan: Plan, cards) -> dict:
             for sid in seq
         ],
         "makeup": f"{plan.diluent.id} to the mark" if to_mark else None,
-        "step_text": fmt.sig(g.step_mL, 1),
+        "step_text": fmt.volume(g.step_mL, g.step_mL),
+        "reading_note": reading_note(plan, seq),
         "checklist": checklist(plan, blank_name),
         "safety": _student_safety(plan),
         "custom_order": g.order is not None,
@@ -334,14 +337,14 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
         ("one student, this class's median card", se["cards_median"], None),
         ("one student, the best single recipe", se["best_single"], None),
         ("one student, the evenly spaced series", se["even_single"], None),
-        (f"the whole class pooled ({len(cs.cards)} cards, stocks shared)", se["pooled"], None),
+        (f"the whole class pooled ({plural(len(cs.cards), 'card')}, stocks shared)", se["pooled"], None),
         (
-            f"{len(cs.cards)} copies of the best single recipe",
+            f"{plural(len(cs.cards), 'copy', 'copies')} of the best single recipe",
             se["pooled_best_copies"],
             se["pooled_best_copies"] / se["pooled"],
         ),
         (
-            f"{len(cs.cards)} copies of the evenly spaced series",
+            f"{plural(len(cs.cards), 'copy', 'copies')} of the evenly spaced series",
             se["pooled_even_copies"],
             se["pooled_even_copies"] / se["pooled"],
         ),

@@ -12,6 +12,7 @@ import io
 
 import numpy as np
 
+from ..inputs.text import plural
 from . import fmt
 from .figures import ACCENT, BAND, INK, WARN, _draw
 from .workbook import stable_xlsx
@@ -138,7 +139,9 @@ def grade_context(summary: dict, *, date: str, paper: str) -> dict:
     ]
     pooled_rows = []
     if pooled is not None:
-        facts.append(("Pooled from", f"{pooled['students']} students, {pooled['tubes']} tubes"))
+        facts.append(
+            ("Pooled from", f"{plural(pooled['students'], 'student')}, {plural(pooled['tubes'], 'tube')}")
+        )
         for p in pooled["parameters"]:
             ci = p.get("profile_ci95")
             pooled_rows.append(

@@ -24,6 +24,7 @@ from ._deps import (
     make_up_min_mL,
     plan_devices,
     plan_model,
+    plural,
     predict,
     tube_ions_M,
     whitening,
@@ -74,7 +75,8 @@ def continuous_variation(
     _, l_id, cL = pure_stock(plan, "L")
     _require_equimolar(plan, m_id, cM, l_id, cL)
     if points is not None and int(points) < 3:
-        raise PlanError("points", f"{points} points cannot show an extremum: use at least 3 (9–11 is usual)")
+        n_pts = plural(int(points), "point")
+        raise PlanError("points", f"{n_pts} cannot show an extremum: use at least 3 (9–11 is usual)")
     g = plan.glassware
     step, vmin = g.step_mL, max(g.min_volume_mL, g.step_mL)
     avail = (

@@ -1,9 +1,10 @@
 """Assessment of a recipe: can it resolve K, and which assumptions of the planned analysis fail?
 
 Puts together the expected tube contents (:mod:`planner.model`), the error budget
-(:mod:`planner.errors`), the precision of the fitted parameters (:mod:`planner.precision`) and the
-checks (:mod:`planner.checks`) into a frozen :class:`Assessment` whose :meth:`Assessment.summary` has
-the baseline JSON keys (``title``, ``verdict``, ``parameters``, ``tubes``, ``checks``).
+(:mod:`planner.uncertainty.budget`), the precision of the fitted parameters
+(:mod:`planner.inference.precision`) and the checks (:mod:`planner.jobs.plan.checks`) into a frozen
+:class:`Assessment` whose :meth:`Assessment.summary` has the baseline JSON keys (``title``, ``verdict``,
+``parameters``, ``tubes``, ``checks``).
 """
 
 from __future__ import annotations
@@ -29,6 +30,7 @@ from ...inference.precision import (
 from ...inference.study import Study
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
+from ...inputs.text import plural
 from ...model.compiled import Model, TubeState, tube_ions_M
 from ...uncertainty.bench import Bench
 from ...uncertainty.budget import ErrorBudget, error_budget, glassware_problems
@@ -424,7 +426,8 @@ def _verdict(study: Study, params: Parameters, cr, mc, prof) -> tuple[str | None
         return None, f"log_beta[{study.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
     if cr.jacobian.shape[0] < params.size:
         return "unresolved", (
-            f"{cr.jacobian.shape[0]} tubes cannot determine {params.size} fitted parameters: add tubes"
+            f"{plural(cr.jacobian.shape[0], 'tube')} cannot determine {params.size} fitted parameters: "
+            "add tubes"
         )
     goal = study.goal_se
     se = float(cr.se[t])

@@ -21,6 +21,7 @@ from ...inference.design_criteria import CRITERIA, DesignError
 from ...inference.study import Study
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
+from ...inputs.text import plural
 from ..compile import compile_study
 from .assess import assess_study, stock_shortfalls
 from .candidates import (
@@ -190,7 +191,7 @@ def design_study(
         )
     if n < params.size:
         raise DesignError(
-            f"{n} tubes cannot determine the {params.size} fitted parameters "
+            f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
             f"({', '.join(params.names)}): ask for at least {params.size} tubes"
         )
     nodes = study.nodes(rob)
@@ -208,7 +209,7 @@ def design_study(
             limits = ", ".join(f"{k} at most {v:.2f} mL per tube" for k, v in caps.items())
             raise DesignError(
                 f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
-                f"{n} tubes) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
+                f"{plural(n, 'tube')}) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
                 f"fewer tubes"
             ) from None
         if coarse:

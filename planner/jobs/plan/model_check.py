@@ -37,6 +37,7 @@ from ...inference.precision import whitening_of
 from ...inference.study import Study
 from ...inference.tails import ncx2_sf
 from ...inputs.recipe import Recipe, totals_M
+from ...inputs.text import plural
 from ...model.compiled import tube_ions_M
 from ...uncertainty.budget import error_budget
 from ..compile import expected_state
@@ -297,7 +298,7 @@ def _reason(study, replaced, guarded, pays, within, exact_g, exact_t, cost, cap,
     if replaced:
         return (
             f"the guarded design replaces the target-only one: it raises the power to reveal {gains} at "
-            f"×{cost:.3g} in SE(log β[{t}]) (allowed ×{cap:.3g}); {moved} of {n} {_tubes(n)} moved"
+            f"×{cost:.3g} in SE(log β[{t}]) (allowed ×{cap:.3g}); {moved} of {plural(n, 'tube')} moved"
         )
     if guarded is None:
         return (
@@ -314,10 +315,6 @@ def _reason(study, replaced, guarded, pays, within, exact_g, exact_t, cost, cap,
         f"raise the power to reveal {gains} — less than {MARGIN * 100:.0f} points more and short of the "
         f"{POWER_GOAL:.0%} goal"
     )
-
-
-def _tubes(n: int) -> str:
-    return "tube" if n == 1 else "tubes"
 
 
 def _advice(study: Study, exact, best_power, best_cost, cap, tot, n) -> tuple[str, ...]:
@@ -337,7 +334,7 @@ def _advice(study: Study, exact, best_power, best_cost, cap, tot, n) -> tuple[st
             continue
         if n - params.size < 1:
             out.append(
-                f"{name}: {n} {_tubes(n)} for {params.size} fitted parameters leave no degree of freedom for "
+                f"{name}: {plural(n, 'tube')} for {params.size} fitted parameters leave no degree of freedom for "
                 f"a χ² test — add tubes"
             )
             continue
@@ -364,7 +361,7 @@ def _advice(study: Study, exact, best_power, best_cost, cap, tot, n) -> tuple[st
         if abs(eps_a - eps_t) <= SAME_EPSILON * max(abs(eps_t), 1e-300):
             ways.append(f"another wavelength, where {name} and {study.target} absorb differently per metal")
         out.append(
-            f"{name}: no design of {n} {_tubes(n)} on these candidates reveals it (at best {best:.0%} of "
+            f"{name}: no design of {plural(n, 'tube')} on these candidates reveals it (at best {best:.0%} of "
             f"experiments); what would: " + "; ".join(ways or ["more tubes or a wider range of compositions"])
         )
     return tuple(out)
