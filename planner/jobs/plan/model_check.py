@@ -334,8 +334,8 @@ def _advice(study: Study, exact, best_power, best_cost, cap, tot, n) -> tuple[st
             continue
         if n - params.size < 1:
             out.append(
-                f"{name}: {plural(n, 'tube')} for {params.size} fitted parameters leave no degree of freedom for "
-                f"a χ² test — add tubes"
+                f"{name}: {plural(n, 'tube')} for {params.size} fitted parameters leave no degree of "
+                f"freedom for a χ² test — add tubes"
             )
             continue
         best = best_power[k] if k < len(best_power) else float("nan")
