@@ -237,7 +237,8 @@ def design_study(
     se_d = float(a.target_se) if a.target_se is not None else float("nan")
     se_e = target_se(study, even)
     eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
-    verdict, reason = _design_verdict(study, a, n)
+    # with tubes in hand the new batch is judged together with them (planner.jobs.plan.sequential)
+    verdict, reason = _design_verdict(study, a, n) if prior_tubes is None else (None, "")
     return Design(
         rec,
         crit,
@@ -257,7 +258,7 @@ def design_study(
         check,
         verdict,
         reason,
-        a.limits,
+        a.limits if prior_tubes is None else None,
     )
 
 
@@ -279,7 +280,7 @@ def _check_and_assess(study: Study, rec, final, crit, check_model, volumetric, s
         seed=seed,
         detection_trials=POWER_TRIALS if outcome is not None else 0,
         model_check_fix=DESIGN_FIX if outcome is not None else None,
-        suggest=True,
+        suggest=prior is None,
     )
     check = (
         finish_check(study, outcome, a.detection) if outcome is not None and rec is outcome.recipe else None

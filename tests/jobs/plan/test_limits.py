@@ -20,6 +20,7 @@ from planner.jobs.plan.design import design
 from planner.jobs.plan.even import even_series, even_series_for
 from planner.jobs.plan.limits import target_se
 from planner.model.compiled import predict, tube_ions_M
+from planner.uncertainty import catalogue
 from planner.uncertainty.budget import delivery_sds
 from planner.uncertainty.sources import error_sources
 
@@ -164,15 +165,15 @@ def test_a_coarse_pipette_is_named_and_the_better_device_priced_by_assessing_aga
     recipe = even_series_for(study, 8)
     a = assess_study(study, recipe, trials=0, suggest=True)
     top = a.limits.shares[0]
-    assert top.kind == "device" and "5 mL graduated-pipette (CU)" in top.source
+    assert top.kind == "device" and "5 mL" in top.source and top.source.endswith("(CU)")
     dev = [c for c in a.limits.changes if c.kind == "device" and "CU" in c.change]
     assert dev and dev[0].se < a.limits.se
-    # priced by assessing again: the plan with that device gives the same SE
-    label = dev[0].change.split(" with a ")[1].split(" instead")[0]  # e.g. "class A 1 mL graduated-pipette"
-    cap, kind = label.split(" mL ")[0].split()[-1], label.split(" mL ")[1]
+    # priced by assessing again: the plan with that device from the catalogue gives the same SE
+    item = next(it for it in catalogue.catalogue() if f"with a {it.label} instead" in dev[0].change)
     text = PIPETTE_PLAN.replace(
         'kind = "graduated-pipette"\ncapacity = "5 mL"\nclass = "B"',
-        f'kind = "{kind}"\ncapacity = "{cap} mL"\nclass = "A"',
+        f'kind = "{item.kind}"\ncapacity = "{item.capacity_mL:g} mL"'
+        + (f'\nclass = "{item.cls}"' if item.cls else ""),
     )
     again = assess_study(compile_study(parse_plan_text(text)), recipe, trials=0)
     assert again.target_se == pytest.approx(dev[0].se, rel=1e-9)
