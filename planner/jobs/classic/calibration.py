@@ -177,7 +177,7 @@ def conversion_tube(
     f_worst = float(f_nodes.min())
 
     checks = [
-        _conversion_check(f_nodes, f_guess, names[0], nodes, x_plan, c_lim),
+        _conversion_check(f_nodes, f_guess, names[0], nodes, x_plan / c_lim, rising),
         _fits_check(
             plan,
             model,
@@ -398,10 +398,10 @@ def _smallest_excess(fraction, xs, f_grid, lb, f_want) -> float | None:
     return float(np.exp(hi).max())
 
 
-def _conversion_check(f_nodes, f_guess, tube, nodes, x_plan, c_lim) -> Check:
+def _conversion_check(f_nodes, f_guess, tube, nodes, fold: float, rising: bool) -> Check:
     worst = float(f_nodes.min())
     msg = (
-        f"{tube} ({x_plan / c_lim:.3g}-fold excess) converts {f_guess:.2%} at the guess and {worst:.2%} "
+        f"{tube} ({fold:.3g}-fold excess) converts {f_guess:.2%} at the guess and {worst:.2%} "
         f"at the weak end of its range (log β {nodes.min():.2f})"
     )
     if worst >= CONVERSIONS[0]:
@@ -410,8 +410,13 @@ def _conversion_check(f_nodes, f_guess, tube, nodes, x_plan, c_lim) -> Check:
     return Check(
         "conversion",
         status,
-        msg + f": below {CONVERSIONS[0]:.0%}, ε from this tube is low by "
-        f"{1 - worst:.1%}; raise the excess (see excess-fits) or fit all tubes globally",
+        msg
+        + f": below {CONVERSIONS[0]:.0%}, ε from this tube is low by {1 - worst:.1%}; "
+        + (
+            "raise the excess (see excess-fits) or fit all tubes globally"
+            if rising
+            else "more excess does not help (other complexes take the reagent): fit all tubes globally"
+        ),
     )
 
 
