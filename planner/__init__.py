@@ -20,6 +20,8 @@ _WHERE = {
     "KplanError": "inputs.errors",
     "InputError": "inputs.errors",
     "LimitError": "inputs.errors",
+    "LocatedError": "inputs.errors",
+    "TableError": "inputs.tables",
     "PlanError": "inputs.plan",
     "RecipeError": "inputs.recipe",
     "DesignError": "jobs.plan.design",
@@ -40,6 +42,8 @@ _WHERE = {
     "roster_of_count": "inputs.roster",
     "read_key": "inputs.gradebook",
     "read_results": "inputs.gradebook",
+    "read_table": "inputs.tables",
+    "write_csv": "inputs.tables",
     # the compiled plan
     "Study": "inference.study",
     "compile_study": "jobs.compile",
@@ -90,13 +94,14 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs
     from .inference.fit_result import FitError, FitResult
     from .inference.lm import fit_many
     from .inference.study import Study
-    from .inputs.errors import InputError, KplanError, LimitError
+    from .inputs.errors import InputError, KplanError, LimitError, LocatedError
     from .inputs.gradebook import read_key, read_results
     from .inputs.plan import Plan, PlanError, load_plan, parse_plan_text
     from .inputs.readings import Readings, read_readings_csv
     from .inputs.recipe import Recipe, RecipeError, make_recipe, read_recipe_csv, recipe_to_csv
     from .inputs.roster import read_roster_csv, roster_of_count
     from .inputs.schedule import read_schedule_csv
+    from .inputs.tables import TableError, read_table, write_csv
     from .jobs.classic import ClassicSeries, run_series
     from .jobs.classroom.cards import ClassSet, class_set, class_set_study
     from .jobs.classroom.grade import ClassGrade, grade_class
@@ -143,6 +148,7 @@ __all__ = [
     "InputError",
     "KplanError",
     "LimitError",
+    "LocatedError",
     "Model",
     "NextBatch",
     "Plan",
@@ -153,6 +159,7 @@ __all__ = [
     "Speciation",
     "StockNeed",
     "Study",
+    "TableError",
     "TitrationDesign",
     "TubeState",
     "assess",
@@ -184,9 +191,11 @@ __all__ = [
     "read_results",
     "read_roster_csv",
     "read_schedule_csv",
+    "read_table",
     "recipe_to_csv",
     "roster_of_count",
     "run_series",
     "speciate",
     "stock_needs",
+    "write_csv",
 ]

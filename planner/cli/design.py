@@ -8,10 +8,11 @@ from typing import Annotated
 import typer
 
 from ..inputs.choices import CRITERIA as DESIGN_CRITERIA
+from ..inputs.limits import MAX_ADDITIONS
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import MAX_TUBES
+from .options import MAX_TUBES, count_option
 
 
 @app.command()
@@ -20,11 +21,10 @@ def design(
     out_dir: Annotated[
         Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")
     ] = None,
-    tubes: Annotated[
+    tubes: Annotated[int | None, count_option("number of tubes (overrides design.tubes)", MAX_TUBES)] = None,
+    additions: Annotated[
         int | None,
-        typer.Option(
-            help="number of tubes (overrides design.tubes)", min=1, max=MAX_TUBES, metavar="INTEGER"
-        ),
+        count_option("titration plans: number of additions (overrides titration.additions)", MAX_ADDITIONS),
     ] = None,
     criterion: Annotated[
         str | None,
@@ -68,10 +68,16 @@ def design(
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
     if out_dir is not None:
-        check_output_folder(out_dir)  # before the search, not after it
+        # before the search, not after it; the outputs may not overwrite the plan or the readings
+        check_output_folder(out_dir, ("recipe.csv", "schedule.csv", "design.json"), (plan, after))
     p = load_plan(plan)
     if p.titration is not None:
-        return _titration(p, out_dir, tubes, robust, as_json)
+        if tubes is not None and additions is not None:
+            raise UserError("--tubes and --additions: a titration plan takes --additions only")
+        # --tubes is the older spelling of --additions on a titration plan (the points are additions)
+        return _titration(p, out_dir, additions if additions is not None else tubes, robust, as_json)
+    if additions is not None:
+        raise UserError("--additions applies to titration plans ([titration]); use --tubes for tubes")
     if after is not None:
         return _next_batch(p, after, out_dir, tubes, robust, seed, as_json)
     d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)

@@ -38,7 +38,7 @@ def grade(
     student not flagged, and the likely mix-up behind each flagged student."""
     from rich.table import Table
 
-    from ..inputs.files import write_atomic, write_atomic_bytes
+    from ..inputs.files import check_output_folder, write_atomic, write_atomic_bytes
     from ..inputs.gradebook import read_key, read_results
     from ..inputs.plan import load_plan
     from ..jobs.classroom.grade import grade_class
@@ -49,6 +49,10 @@ def grade(
 
     if paper not in PAPERS:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
+    if out_dir is not None:  # before the work; the outputs may not overwrite an input
+        names = ("grades.csv", "grades.xlsx", "grades.html" if html else "grades.pdf")
+        key_file = key_dir / "key.csv" if key_dir.is_dir() else key_dir
+        check_output_folder(out_dir, names, (plan, key_file, results))
     p = load_plan(plan)
     study = compile_study(p)
     g = grade_class(study, read_key(key_dir, p), read_results(results))

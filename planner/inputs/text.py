@@ -14,8 +14,7 @@ from __future__ import annotations
 
 import re
 
-MAX_TEXT = 200  # characters in a title, label, reagent name or formula
-MAX_IDENTIFIER = 40  # characters in a stock id, species name, ion name or tube label
+from .limits import MAX_IDENTIFIER, MAX_TEXT
 
 # C0 and C1 control characters (ESC starts terminal escape sequences, OSC 8 makes links), DEL, the
 # bidirectional embeddings/overrides/isolates and marks (they reorder what is shown, U+202E reverses a

@@ -21,6 +21,7 @@ from typing import Any
 import numpy as np
 
 from ..inputs.errors import InputError
+from ..inputs.formulas import formula_mass_g_mol
 from .catalogue import REPEATABILITY_PER_U_CALIBRATION, GlasswareError, GlasswareItem, catalogue, lookup
 from .delivery import delivery_uncertainty, flask_volume_uncertainty, u_rectangular, u_triangular
 
@@ -85,7 +86,6 @@ class StockError(InputError):
 # --------------------------------------------------------------------------------------------------
 # formula weights and weighing
 # --------------------------------------------------------------------------------------------------
-_HYDRATE_DOTS = ("·", "•", "∙", "⋅", "*")
 
 
 @functools.lru_cache(maxsize=512)
@@ -101,25 +101,10 @@ def formula_weight_g_mol(formula: str) -> float:
     StockError
         Empty formula, or one molmass cannot parse (the message carries its diagnosis).
     """
-    from molmass import Formula, FormulaError
-
-    if not isinstance(formula, str) or not formula.strip():
-        raise StockError(f"formula must be a non-empty string such as 'CuSO4.5H2O', got {formula!r}")
-    text = formula.strip()
-    for dot in _HYDRATE_DOTS:
-        text = text.replace(dot, ".")
-    text = text.replace(" ", "")
     try:
-        mass = float(Formula(text).mass)
-    except FormulaError as exc:
-        first = str(exc).splitlines()[0]
-        raise StockError(
-            f"cannot read the formula {formula!r}: {first}. Write it with element symbols, "
-            "e.g. 'Fe(NO3)3.9H2O' or 'CuSO4·5H2O'"
-        ) from None
-    if not mass > 0:
-        raise StockError(f"formula {formula!r} has no mass; write it with element symbols, e.g. 'KSCN'")
-    return mass
+        return formula_mass_g_mol(formula)
+    except ValueError as exc:
+        raise StockError(str(exc)) from None
 
 
 def minimum_weight_g(

@@ -232,6 +232,7 @@ def test_a_random_walk_would_overstate_the_burette_titrations_se():
 def test_a_burette_titration_must_fit_one_filling():
     # a burette is read along one filling: refilling mid-titration would start a new pair of readings
     text = BURETTE.read_text(encoding="utf-8").replace('max_volume = "35.00 mL"', 'max_volume = "40.00 mL"')
+    text = text.replace('tube_volume = "35.00 mL"', 'tube_volume = "40.00 mL"')  # max_volume ≤ the vessel
     st = compile_study(parse_plan_text(text))
     with pytest.raises(RecipeError, match="in one filling"):
         titration_recipe(st.bench, _sched(*([1.0] * 10), 0.5))

@@ -4,6 +4,7 @@ survey, planned on the plan's glassware and judged by the same model and error b
 from __future__ import annotations
 
 from ...inputs.choices import SERIES_METHOD_OPTIONS, SERIES_METHODS
+from ...inputs.limits import MAX_REPLICATES, MAX_TUBES, check_count
 from ._deps import Plan, plan_model
 from .calibration import conversion_tube
 from .common import ClassicSeries, SeriesInfeasible, infeasible
@@ -44,8 +45,15 @@ def run_series(
 ) -> ClassicSeries:
     """Plan and judge the classic series ``method`` (one of :data:`METHODS`).
 
-    A series the stocks and glassware cannot make at the method's defaults comes back with no tubes and a
-    failing "feasible" check saying what would (not as an input error: the plan is not wrong)."""
+    ``points`` (tubes of a Job or mole-ratio series) and ``tubes`` (the calibration series' replicate
+    tubes) are checked against :data:`planner.inputs.limits.MAX_TUBES` and ``MAX_REPLICATES``. A series the
+    stocks and glassware cannot make at the method's defaults comes back with no tubes and a failing
+    "feasible" check saying what would (not as an input error: the plan is not wrong).
+    """
+    if points is not None:
+        points = check_count(points, "points", MAX_TUBES)
+    if tubes is not None:
+        tubes = check_count(tubes, "replicates", MAX_REPLICATES)
     try:
         return _run(plan, method, points, total_M, tubes, limiting, excess_M, vary, max_ratio, recipe)
     except SeriesInfeasible as exc:

@@ -47,6 +47,7 @@ from ...inference import approximate, exchange
 from ...inference.design_criteria import DesignError
 from ...inference.priors import Nodes, prior_nodes
 from ...inference.study import Study
+from ...inputs.limits import check_class_size
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe, concat_recipes
 from ...inputs.roster import Roster
@@ -343,8 +344,7 @@ def class_set_study(  # noqa: C901
     DesignError
         When nothing can be designed (nothing fitted, no tube inside the linear range, too few tubes).
     """
-    n = int(tubes or study.tubes)
-    N = len(roster)
+    n, N = check_class_size(len(roster), tubes or study.tubes)
     params = study.params
     t = params.target
     if params.size == 0 or t < 0:

@@ -28,6 +28,7 @@ from ...inference.precision import (
     whitening_of,
 )
 from ...inference.study import Study
+from ...inputs.limits import MAX_TRIALS, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
 from ...inputs.text import plural
@@ -242,6 +243,7 @@ def assess_study(
     comparisons, which use only the Cramér–Rao SE). ``detection_trials`` simulated experiments per
     alternative (default min(trials, 400)); ``model_check_fix`` what the model-check check advises;
     ``suggest`` prices the changes that would improve the precision (:mod:`planner.jobs.plan.limits`)."""
+    trials = check_count(trials, "trials", MAX_TRIALS, least=0)
     model, bench = study.model, study.bench
     lb_true = true_constants(model, at)
     state = expected_state(model, recipe, log_beta=lb_true)
@@ -309,7 +311,7 @@ def assess_study(
         )
         if suggest and limits is not None:
             limits = what_would_help(study, recipe, limits, lb_true)
-    verdict, reason = _verdict(study, params, cr, mc, prof)
+    verdict, reason = _verdict(study, params, cr, mc, prof, precision)
     failed = [c.id for c in check_list if c.status == "fail"]
     if failed and verdict is not None:
         # a precise constant from a recipe that breaks an assumption (readings outside the linear range,
@@ -418,12 +420,18 @@ def _identifiability_check(params: Parameters, cr: CramerRao, model: Model, stat
     )
 
 
-def _verdict(study: Study, params: Parameters, cr, mc, prof) -> tuple[str | None, str]:
+def _verdict(study: Study, params: Parameters, cr, mc, prof, precision: bool) -> tuple[str | None, str]:
+    t = params.target
+    if precision and (params.size == 0 or t < 0):
+        # nothing the target depends on is fitted: no recipe resolves a constant it does not estimate
+        i = study.model.index(study.target)
+        return "unresolved", (
+            f"log_beta[{study.target}] is held fixed (species[{i}].log_beta_sd = 0), so the readings "
+            "would not estimate it: give the guess its uncertainty (log_beta_sd > 0) to assess a recipe "
+            "for it"
+        )
     if cr is None:
         return None, ""
-    t = params.target
-    if t < 0:
-        return None, f"log_beta[{study.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
     if cr.jacobian.shape[0] < params.size:
         return "unresolved", (
             f"{plural(cr.jacobian.shape[0], 'tube')} cannot determine {params.size} fitted parameters: "

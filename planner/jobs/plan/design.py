@@ -19,6 +19,7 @@ import numpy as np
 from ...inference import approximate, exchange
 from ...inference.design_criteria import CRITERIA, DesignError
 from ...inference.study import Study
+from ...inputs.limits import MAX_TUBES, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
 from ...inputs.text import plural
@@ -175,7 +176,7 @@ def design_study(
     and nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete
     it (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.plan.sequential`.
     """
-    n = int(tubes or study.tubes)
+    n = check_count(tubes or study.tubes, "tubes", MAX_TUBES)
     crit = criterion or study.criterion
     if crit not in CRITERIA:
         raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")

@@ -20,6 +20,7 @@ import numpy as np
 
 from ...inference.precision import ReadingModel, cramer_rao, unpack
 from ...inference.study import Study
+from ...inputs.limits import MAX_ADDITIONS, check_count
 from ...inputs.recipe import Recipe, RecipeError
 from ...inputs.schedule import Schedule
 from ...inputs.text import plural
@@ -212,7 +213,7 @@ def design_titration(
         raise RecipeError("titration", "the plan has no [titration] table")
     if study.params.target < 0:
         raise RecipeError("design.target", f"the target {study.target} is held fixed (log_beta_sd = 0)")
-    n = int(additions or t.additions)
+    n = check_count(additions or t.additions, "additions", MAX_ADDITIONS)
     if n < study.params.size:
         raise RecipeError(
             "titration.additions", f"{plural(n, 'addition')} cannot determine {study.params.size} parameters"

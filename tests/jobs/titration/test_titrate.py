@@ -81,6 +81,7 @@ def test_a_burette_titration_is_designed_within_one_filling():
     from planner.inputs.plan import parse_plan_text
 
     text = (ROOT / "examples" / "titration-burette.toml").read_text(encoding="utf-8")
+    text = text.replace('tube_volume = "35.00 mL"', 'tube_volume = "45.00 mL"')  # max_volume ≤ the vessel
     st = compile_study(parse_plan_text(text.replace('max_volume = "35.00 mL"', 'max_volume = "45.00 mL"')))
     d = design_titration(st)
     assert d.schedule.added_mL[-1] <= 10.0 + 1e-9
