@@ -183,8 +183,8 @@ def _what_was_learned(study: Study, post: Posterior, censored: tuple[str, ...]) 
     if censored:
         hi = study.model.linear_range[1]
         words += (
-            f"; {plural(len(censored), 'reading')} above the linear range ({', '.join(censored)}) count as 'at least "
-            f"{hi:.2f}': the complex is stronger, or absorbs more, than the plan guessed"
+            f"; {plural(len(censored), 'reading')} above the linear range ({', '.join(censored)}) count as "
+            f"'at least {hi:.2f}': the complex is stronger, or absorbs more, than the plan guessed"
         )
     return words
 
