@@ -8,7 +8,7 @@ from typing import Annotated
 import typer
 
 from ..inputs.text import plural
-from .app import UserError, app, dump_json, out
+from .app import app, dump_json, out
 from .app import safe_text as S
 
 
@@ -36,25 +36,24 @@ def fit(
     Exit code 1 when the readings do not determine the constants."""
     from ..inputs.plan import load_plan
     from ..jobs.compile import compile_study
-    from ..jobs.measure.fit import fit_study
+    from ..jobs.measure.fit import check_absorbances, fit_study
     from .options import read_points
 
     p = load_plan(plan)
     study = compile_study(p)
     skip = tuple(x.strip() for x in (exclude or "").split(",") if x.strip())
     data = read_points(readings, p, study, readings=True)
-    _check_absorbances(data, readings)
+    check_absorbances(data.absorbance, data.recipe.tubes, str(readings))
     f = fit_study(study, data, exclude=skip, keep_out_of_range=keep_out_of_range)
     if as_json:
         print(dump_json(f.summary()))
     else:
-        _print_fit(f)
+        _print_fit(f, plan, readings, skip)
     if not f.determined:
         raise typer.Exit(1)
 
 
-def _print_fit(f) -> None:
-    import numpy as np
+def _print_fit(f, plan: Path, readings: Path, skip: tuple[str, ...]) -> None:
     from rich.table import Table
 
     from ..paper import fmt
@@ -63,7 +62,8 @@ def _print_fit(f) -> None:
         f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {plural(f.recipe.n_tubes, 'reading')}"
     )
     for tube, why in f.excluded:
-        out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}")
+        hint = " (--keep-out-of-range keeps it)" if "linear range" in why else ""
+        out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}{hint}")
     if not f.determined:
         out.print(f"[red]not determined:[/red] {S(f.reason)}")
     t = Table(title="Fitted parameters")
@@ -86,35 +86,32 @@ def _print_fit(f) -> None:
         )
     elif f.determined:
         out.print(f.chi2_verdict)
+    if f.interval_note:
+        out.print(f"[yellow]{S(f.interval_note)}[/yellow]")
+    for tube, z, shift in f.suspects:
+        cmd = f"kplan fit {plan} {readings} --exclude {','.join((*skip, tube))}"
+        out.print(
+            f"[red]suspect[/red] {S(tube)}: its reading lies {shift:+.3f} from what the other tubes predict "
+            f"(z = {z:+.1f}); to leave it out: {S(cmd)}"
+        )
+    _print_residuals(f)
+
+
+def _print_residuals(f) -> None:
+    import numpy as np
+    from rich.table import Table
+
     t = Table(title="Residuals")
     for c in ("tube", "measured A", "fitted A", "residual", "standardised"):
         t.add_column(c, justify="right")
     for i, tube in enumerate(f.recipe.tubes):
         z = float(f.standardised[i])
+        zt = "—" if not np.isfinite(z) else f"{z:+.2f}"
         if not f.used[i]:
-            zt = "left out"
-        elif not np.isfinite(z):
-            zt = "—"
-        else:
-            zt = f"{z:+.2f}" if abs(z) <= 3 else f"[red]{z:+.2f} outlier[/red]"
+            zt = f"{zt} (left out)"
+        elif f.outliers[i]:
+            zt = f"[red]{zt} suspect[/red]"
         fa = f"{f.fitted[i]:.3f}" if np.isfinite(f.fitted[i]) else "—"
         rs = f"{f.residual[i]:+.4f}" if np.isfinite(f.residual[i]) else "—"
         t.add_row(S(tube), f"{f.absorbance[i]:.3f}", fa, rs, zt)
     out.print(t)
-
-
-MAX_ABSORBANCE = 10.0  # no photometer reads beyond this; a larger number is a typo or another quantity
-
-
-def _check_absorbances(data, source: Path) -> None:
-    """Refuse a reading that is not a finite absorbance within ±MAX_ABSORBANCE, naming its tube."""
-    import numpy as np
-
-    a = np.asarray(data.absorbance, dtype=float)
-    bad = np.flatnonzero(~np.isfinite(a) | (np.abs(a) > MAX_ABSORBANCE))
-    if bad.size:
-        i = int(bad[0])
-        raise UserError(
-            f"{source}, tube {data.recipe.tubes[i]}: absorbance {a[i]:g} is not a reading: "
-            f"write a finite number between {-MAX_ABSORBANCE:g} and {MAX_ABSORBANCE:g}"
-        )

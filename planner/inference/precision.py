@@ -236,9 +236,8 @@ class Whitening:
         x = np.asarray(x, dtype=float)
         return self.apply(x) if x.ndim == 1 else self.apply_jac(x)
 
-    @property
-    def T(self) -> _WhiteningT:  # noqa: N802 - reads as the transpose, as for an array
-        return _WhiteningT(self)
+    # ``x @ W.T`` reads as for an array: the rows whitened
+    T = property(lambda self: _WhiteningT(self))
 
     def dense(self) -> np.ndarray:
         return self.apply_jac(np.eye(self.d.size))

@@ -270,10 +270,14 @@ def error_budget(
     return _budget.error_budget(bench, model, recipe, state, delta_T_C=delta_T_C)
 
 
-def expected_state(model: Model, recipe: Recipe, **kw) -> TubeState:
-    """Speciation and readings of every tube of ``recipe`` (at the guesses unless overridden)."""
+def expected_state(model: Model, recipe: Recipe, *, batch: int | None = None, **kw) -> TubeState:
+    """Speciation and readings of every tube of ``recipe`` (at the guesses unless overridden); with
+    ``batch``, the same tubes at ``batch`` sets of constants at once (``log_beta`` (batch, S), …)."""
     tot = totals_M(recipe, model.stock_conc_M)
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    if batch is not None:
+        tot = np.broadcast_to(tot, (batch,) + tot.shape)
+        ions = np.broadcast_to(ions, (batch,) + ions.shape)
     return predict(model, tot, ions, **kw)
 
 
