@@ -52,8 +52,8 @@ def teaching_drafts(study: Study, grid: Grid, n: int, N: int, kind: str, rng: np
     worst = int(cand.tier[chosen].max())
     if kind == "binding-curve" and worst > 0:
         notes.append(
-            f"only {int(np.count_nonzero(cand.tier < worst))} distinct cards {TIERS[worst - 1]}; "
-            f"the others {TIERS[worst]}"
+            f"{int(np.count_nonzero(cand.tier < worst))} distinct cards {TIERS[worst - 1]}: the class's "
+            f"other cards only {TIERS[worst]}"
         )
     unplaced = set(range(len(cards), N))
     if unplaced:

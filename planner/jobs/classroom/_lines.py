@@ -18,7 +18,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...inference.study import Study
 from ._grid import Grid
 
 __all__ = ["MAX_COPIES", "Lines", "axis_lines", "diagonal_lines", "draw", "ends_between", "snap"]
@@ -34,8 +33,9 @@ class Lines:
     ----------
     line, pos, idx : (L,) line number, position and feasible grid index of each point.
     start, count : (nl,) first point and number of points of each line.
-    varied, partner : (nl,) designed-axis index of the stock that steps (Job: the metal) and of the stock
-        it is read against (binding, mole-ratio: the reagent held constant; Job: the ligand).
+    varied, partner : (nl,) index of the stock that steps (Job: the metal; a designed axis) and of the
+        stock it is read against (binding, mole-ratio: the reagent held constant, a designed axis or a
+        stock the plan holds at a fixed volume; Job: the ligand).
     ref : (nl,) a reference position per line: the varied level at the complex's ratio (mole-ratio),
         the diagonal's sum of levels (Job), the line's top level (binding).
     """
@@ -76,7 +76,7 @@ def _flat(keys: np.ndarray, pos: np.ndarray, idx: np.ndarray, min_points: int):
     order = np.lexsort((p, line))
     line, p, ix = line[order], p[order], ix[order]
     cnt = count[keep]
-    start = np.concatenate([[0], np.cumsum(cnt)[:-1]]).astype(np.int64)
+    start = (np.cumsum(cnt) - cnt).astype(np.int64)
     return ukeys[keep], line, p, ix, start, cnt
 
 
@@ -123,7 +123,7 @@ def _join(parts) -> Lines:
         refs.append(np.asarray(ref, dtype=float)[wide])
         base += int(wide.sum())
     count = np.concatenate(counts).astype(np.int64)
-    start = np.concatenate([[0], np.cumsum(count)[:-1]]).astype(np.int64)
+    start = (np.cumsum(count) - count).astype(np.int64)
     return Lines(
         np.concatenate(lines),
         np.concatenate(poss),
@@ -183,11 +183,3 @@ def ends_between(lines: Lines, li: np.ndarray, lo_max, hi_min, hi_max, rng, low_
     b0 = np.minimum(b0, b1 - 1)
     b = b0 + np.minimum((rng.random(li.size) * (b1 - b0)).astype(np.int64), b1 - b0 - 1)
     return lo, lines.at(li, b)
-
-
-def study_axes(study: Study, grid: Grid) -> tuple[list[int], list[int]]:
-    """Designed axes whose stock holds the metal, and those holding the ligand (a stock may hold both)."""
-    conc = study.model.stock_conc_M
-    ids = study.model.stock_ids
-    rows = [conc[ids.index(s)] for s in grid.designed]
-    return [j for j, r in enumerate(rows) if r[0] > 0], [j for j, r in enumerate(rows) if r[1] > 0]

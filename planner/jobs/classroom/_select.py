@@ -56,9 +56,11 @@ def _target_solve(M: np.ndarray, t: int) -> tuple[np.ndarray, np.ndarray]:
     d = np.sqrt(np.maximum(np.einsum("...ii->...i", M), 1e-300))
     Ms = M / (d[..., :, None] * d[..., None, :]) + 1e-12 * np.eye(M.shape[-1])
     e = np.zeros(M.shape[:-1])
-    e[..., t] = 1.0 / d[..., t]
-    b = np.linalg.solve(Ms, e[..., None])[..., 0] / d
-    return b, b[..., t]
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        e[..., t] = 1.0 / d[..., t]
+        b = np.linalg.solve(Ms, e[..., None])[..., 0] / d
+    ok = np.all(np.isfinite(b), axis=-1) & (b[..., t] > 0)  # not estimable: infinite variance, no gain
+    return np.where(ok[..., None], b, 0.0), np.where(ok, b[..., t], np.inf)
 
 
 def sequential_selection(

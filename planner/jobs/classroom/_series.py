@@ -38,7 +38,7 @@ from ..classic.job import EQUIMOLAR_RTOL
 from ..classic.mole_ratio import LINE_MARGIN
 from ..plan.checks import SATURATION_WINDOW
 from ._grid import Grid
-from ._lines import Lines, axis_lines, diagonal_lines, draw, ends_between, snap, study_axes
+from ._lines import Lines, axis_lines, diagonal_lines, draw, ends_between, snap
 from ._pooled import student_target_var
 
 __all__ = ["MIN_DISTINCT", "RATIO_SPAN", "Series", "Spread", "spreads", "teaching_candidates"]
@@ -52,9 +52,9 @@ DRAWS_MAX = 80000
 NEAREST = 1.25  # when no card reaches goal_se: the cards within 25 % of the best SE [our choice]
 CHUNK = 4096  # cards scored at once (bounds the memory of the information rows)
 TIERS = (
-    "covers the binding curve at the guess and at log β ± 1 sd",
-    "covers the binding curve at the guess and reaches it at log β ± 1 sd",
-    "covers the binding curve at the guess",
+    "cover the binding curve at the guess and at log β ± 1 sd",
+    "cover the binding curve at the guess and reach it at log β ± 1 sd",
+    "cover the binding curve at the guess",
 )
 
 
@@ -137,10 +137,24 @@ def spreads(study: Study, recipes: list[Recipe]) -> list[Spread]:
 # --------------------------------------------------------------------------------------------------
 # drawing the candidate cards of each kind
 # --------------------------------------------------------------------------------------------------
+def _names(study: Study, grid: Grid) -> tuple[str, ...]:
+    """The grid's designed stocks, then the stocks the plan holds at a fixed volume (design.fixed)."""
+    return tuple(grid.designed) + tuple(s for s in study.bench.fixed_mL if s not in grid.designed)
+
+
+def _holding(study: Study, grid: Grid, comp: int, pure: bool = False) -> list[int]:
+    """Indices (into :func:`_names`) of the stocks holding component ``comp`` (0 metal, 1 ligand), or
+    holding it alone with ``pure``."""
+    conc, ids = study.model.stock_conc_M, study.model.stock_ids
+    rows = [conc[ids.index(s)] for s in _names(study, grid)]
+    return [j for j, r in enumerate(rows) if r[comp] > 0 and not (pure and r[1 - comp] > 0)]
+
+
 def _draw_binding(study: Study, grid: Grid, n: int, K: int, rng) -> tuple[Lines, np.ndarray, np.ndarray]:
-    m_ax, l_ax = study_axes(study, grid)
-    varied = sorted(set(m_ax) | set(l_ax))
-    partner = {v: next((w for w in (l_ax if v in m_ax else m_ax) if w != v), v) for v in varied}
+    d = len(grid.designed)
+    m_all, l_all = _holding(study, grid, 0), _holding(study, grid, 1)
+    varied = sorted(j for j in set(m_all) | set(l_all) if j < d)
+    partner = {v: next((w for w in (l_all if v in m_all else m_all) if w != v), v) for v in varied}
     lines = axis_lines(grid, varied, partner, min(MIN_DISTINCT, n), RATIO_SPAN)
     if lines.n_lines == 0:
         raise DesignError(
@@ -166,35 +180,34 @@ def _complex_ratio(study: Study) -> tuple[float, float]:
     return q / p, p / (p + q)
 
 
-def _pure_axis(study: Study, grid: Grid, comp: int) -> int:
-    conc = study.model.stock_conc_M
-    ids = study.model.stock_ids
-    for j, s in enumerate(grid.designed):
-        row = conc[ids.index(s)]
-        if row[comp] > 0 and row[1 - comp] == 0:
+def _pure(study: Study, grid: Grid, comp: int, designed: bool) -> int:
+    """The first stock of component ``comp`` alone (a designed one when ``designed``)."""
+    for j in _holding(study, grid, comp, pure=True):
+        if j < len(grid.designed) or not designed:
             return j
     name = ("metal", "ligand")[comp]
-    raise DesignError(
-        f"a mole-ratio or Job series needs a designed stock of the {name} alone: add one, or remove it "
-        f"from design.fixed"
-    )
+    where = "whose volume varies (not in design.fixed)" if designed else "in the plan"
+    raise DesignError(f"a mole-ratio or Job series needs a stock of the {name} alone {where}: add one")
+
+
+def _conc(study: Study, grid: Grid, j: int, comp: int) -> float:
+    return float(study.model.stock_conc_M[study.model.stock_ids.index(_names(study, grid)[j]), comp])
 
 
 def _draw_mole_ratio(study: Study, grid: Grid, n: int, K: int, rng):
     rho, _ = _complex_ratio(study)
-    m, lg = _pure_axis(study, grid, 0), _pure_axis(study, grid, 1)
+    lg, m = _pure(study, grid, 1, designed=True), _pure(study, grid, 0, designed=False)
     lines = axis_lines(grid, [lg], {lg: m}, min(MIN_DISTINCT, n), RATIO_SPAN)
     if lines.n_lines == 0:
         raise DesignError(
             "no mole-ratio series keeps every reading inside optics.linear_range: use a wider "
             "linear_range or other stock concentrations"
         )
-    conc = study.model.stock_conc_M
-    ids = study.model.stock_ids
-    cm, cl = conc[ids.index(grid.designed[m]), 0], conc[ids.index(grid.designed[lg]), 1]
-    first = lines.start
-    held = grid.coords[lines.idx[first], m].astype(float)  # the metal level of each line
-    ref = rho * held * cm / cl  # the ligand level at the complex's ratio
+    if m < len(grid.designed):  # the metal level of each line
+        held = grid.coords[lines.idx[lines.start], m].astype(float)
+    else:  # the plan holds the metal at a fixed volume
+        held = np.full(lines.n_lines, study.bench.fixed_mL[_names(study, grid)[m]] / grid.step_mL)
+    ref = rho * held * _conc(study, grid, m, 0) / _conc(study, grid, lg, 1)  # ligand level at the ratio
     li = rng.integers(0, lines.n_lines, K)
     r = ref[li]
     lo, hi = ends_between(lines, li, 0.5 * r, lambda lo: np.maximum(RATIO_SPAN * lo, 2.0 * r), 3.0 * r, rng)
@@ -202,10 +215,8 @@ def _draw_mole_ratio(study: Study, grid: Grid, n: int, K: int, rng):
 
 
 def _draw_job(study: Study, grid: Grid, n: int, K: int, rng):
-    m, lg = _pure_axis(study, grid, 0), _pure_axis(study, grid, 1)
-    conc = study.model.stock_conc_M
-    ids = study.model.stock_ids
-    cm, cl = conc[ids.index(grid.designed[m]), 0], conc[ids.index(grid.designed[lg]), 1]
+    m, lg = _pure(study, grid, 0, designed=True), _pure(study, grid, 1, designed=True)
+    cm, cl = _conc(study, grid, m, 0), _conc(study, grid, lg, 1)
     if abs(cm / cl - 1.0) > EQUIMOLAR_RTOL:
         raise DesignError(
             f"a Job series needs equimolar stocks, but {grid.designed[m]} holds {cm * 1e3:.4g} mM of metal "
@@ -315,10 +326,10 @@ def teaching_candidates(study: Study, grid: Grid, n: int, students: int, kind: s
     lines, li, cards = _DRAW[kind](study, grid, n, K, rng)
     cards, li, distinct = _unique_sets(cards, li)
     funnel = [(f"distinct series of {n} tubes drawn", np.ones(len(cards), dtype=bool))]
-    ok, tier = _shape_filters(study, grid, lines, li, cards, distinct, n, kind, funnel)
+    ok, tier, strong = _shape_filters(study, grid, lines, li, cards, distinct, n, kind, funnel)
     cards, li, tier = cards[ok], li[ok], tier[ok]
     if not ok.any():
-        _refuse(kind, n, funnel)
+        _refuse(kind, n, funnel, strong)
     se = _own_se(grid, cards, study.params.target)
     good = se <= study.goal_se
     note = None
@@ -331,20 +342,23 @@ def teaching_candidates(study: Study, grid: Grid, n: int, students: int, kind: s
     cards, li, tier, se = cards[good], li[good], tier[good], se[good]
     use = _tiers_needed(tier, students)
     pick = np.flatnonzero(use)[np.argsort(tier[use], kind="stable")]
-    names = grid.designed
+    names = _names(study, grid)
     series = tuple(Series(kind, names[lines.varied[j]], names[lines.partner[j]]) for j in li[pick])
     return Candidates(cards[pick], series, tier[pick], se[pick], K, note)
 
 
-def _shape_filters(study, grid, lines, li, cards, distinct, n, kind, funnel) -> tuple[np.ndarray, np.ndarray]:
-    """The filters on a card's shape (module docstring), each recorded in ``funnel`` as (what, passes)."""
+def _shape_filters(study, grid, lines, li, cards, distinct, n, kind, funnel):
+    """The filters on a card's shape (module docstring), each recorded in ``funnel`` as (what, passes);
+    returns (passes, tier, whether most feasible tubes are past the window at the guess)."""
     sat, lr = _state3(study, grid.recipe.take(grid.idx))
+    strong = bool(np.median(sat[1]) > SATURATION_WINDOW[1])
     lrc = lr[cards]
     finite = np.all(np.isfinite(lrc), axis=1)
     z = np.where(finite[:, None], lrc, 0.0)
     span = np.where(finite, np.exp(z.max(axis=1) - z.min(axis=1)), 0.0)
     c = grid.coords
-    m_ax, l_ax = lines.varied[li][:, None], lines.partner[li][:, None]
+    m_ax = lines.varied[li][:, None]
+    l_ax = np.minimum(lines.partner[li], c.shape[1] - 1)[:, None]  # Job: both are designed axes
     frac_M = c[cards, m_ax] / np.maximum(c[cards, m_ax] + c[cards, l_ax], 1)
     ok = distinct >= min(MIN_DISTINCT, n)
     funnel.append((f"with at least {min(MIN_DISTINCT, n)} distinct compositions", ok.copy()))
@@ -353,11 +367,11 @@ def _shape_filters(study, grid, lines, li, cards, distinct, n, kind, funnel) -> 
     if kind != "binding-curve":
         ok &= _kind_ok(kind, study, lrc, frac_M)
         funnel.append((_KIND_NEED[kind], ok.copy()))
-        return ok, np.zeros(len(cards), dtype=int)
+        return ok, np.zeros(len(cards), dtype=int), strong
     tier = _saturation_tiers(sat[:, cards])
     ok &= tier < len(TIERS)
     funnel.append(("whose saturation covers the binding curve at the guess", ok.copy()))
-    return ok, tier
+    return ok, tier, strong
 
 
 _KIND_NEED = {
@@ -366,9 +380,17 @@ _KIND_NEED = {
 }
 
 
-def _refuse(kind: str, n: int, funnel) -> None:
-    """No card passes: say how many passed each filter."""
+def _refuse(kind: str, n: int, funnel, strong: bool) -> None:
+    """No card passes: say how many passed each filter (and, for a complex too strong to spread over the
+    binding curve at these concentrations, what does work)."""
     steps = "; ".join(f"{int(m.sum())} {what}" for what, m in funnel)
+    if kind == "binding-curve" and strong and funnel[-1][1].sum() == 0:
+        raise DesignError(
+            f"no {kind} card of {n} tubes fits the glassware: {steps}. Most tubes the glassware can make "
+            f"are more than 80 % saturated at the guess (the complex is strong at these concentrations): "
+            f'a mole-ratio series (design.card_series = "mole-ratio") shows its break instead, or make '
+            f"the cards for the pooled fit alone"
+        )
     raise DesignError(
         f"no {kind} card of {n} tubes fits the glassware: {steps}. Give each student more tubes, widen "
         f"optics.linear_range, choose other stock concentrations or another design.card_series, or make "

@@ -328,6 +328,11 @@ def _sizes(study: Study, roster: Roster, tubes: int | None) -> tuple[int, int]:
     """Tubes per student and students, refusing what cannot be designed."""
     n = int(tubes or study.tubes)
     params = study.params
+    if study.bench.titration is not None:
+        raise DesignError(
+            "this plan is an in-cuvette titration ([titration]): a class set gives each student a series "
+            "of tubes; remove [titration] to make tube cards"
+        )
     if params.size == 0 or params.target < 0:
         raise DesignError(
             f"the target {study.target} is held fixed (log_beta_sd = 0): give it log_beta_sd > 0"

@@ -13,6 +13,7 @@ from planner.inputs.readings import Readings
 from planner.inputs.recipe import stock_matrix
 from planner.inputs.roster import roster_of_count
 from planner.jobs.classroom.cards import class_set_study
+from planner.jobs.compile import compile_study
 from planner.jobs.measure.fit import fit_study
 from planner.jobs.plan.assess import assess_study
 
@@ -168,3 +169,27 @@ def test_job_refuses_stocks_that_are_not_equimolar(study):
     other = replace(study, model=replace(study.model, stock_conc_M=conc))
     with pytest.raises(DesignError, match="equimolar"):
         class_set_study(other, roster_of_count(3), series="job")
+
+
+def test_strong_complex_is_pointed_to_the_mole_ratio_series():
+    # the shipped proton scenario: conditional log K ≈ 5.3 at its pH, every tube above 80 % saturated
+    from planner.inference.design_criteria import DesignError
+
+    study = compile_study(parse_plan_text(scenario_text("proton")))
+    with pytest.raises(DesignError, match='card_series = "mole-ratio"'):
+        class_set_study(study, roster_of_count(4))
+    cs = class_set_study(study, roster_of_count(4), series="mole-ratio", tubes=12)
+    assert cs.lab == "mole-ratio"
+    for c in cs.cards:  # the plan holds the metal by design.fixed: the ligand rises past the ratio
+        assert np.ptp(c.recipe.column("CU")) == 0 and c.series.partner == "CU"
+
+
+def test_titration_plans_are_refused():
+    from planner.inference.design_criteria import DesignError
+    from planner.inputs.plan import load_plan
+
+    from ...conftest import ROOT
+
+    study = compile_study(load_plan(ROOT / "examples" / "titration-cuvette.toml"))
+    with pytest.raises(DesignError, match="in-cuvette titration"):
+        class_set_study(study, roster_of_count(2))
