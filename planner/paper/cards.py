@@ -13,14 +13,14 @@ WeasyPrint fetches nothing but inline ``data:`` URLs (:func:`planner.paper.rende
 
 from __future__ import annotations
 
-import csv
-import io
-
 from ..inputs.plan import Plan
+from ..inputs.tables import write_csv
+from ..inputs.text import plural
 from ..jobs.classroom.cards import ClassSet
 from ..jobs.classroom.stock_list import ClassStock
 from . import fmt, safety
-from .class_stocks import csv_safe, stocks_csv, stocks_page
+from .bench_volumes import reading_note
+from .class_stocks import stocks_csv, stocks_page
 from .render import PAPERS, html_to_pdf, render_html
 from .sheets import (
     RenderError,
@@ -31,11 +31,10 @@ from .sheets import (
     checklist,
     pretty_formula,
 )
-from .workbook import stable_xlsx
+from .workbook import append_row, stable_xlsx
 
 __all__ = [
     "KEY_COLUMNS",
-    "csv_safe",
     "card_layout",
     "cards_document",
     "key_csv",
@@ -149,7 +148,8 @@ def _card_shared(plan: Plan, cards) -> dict:
         "stocks": stocks,
         "columns": [{"id": sid, "label": short(plan.stock_by_id(sid).label, LABEL_MAX)} for sid in seq],
         "makeup": f"{plan.diluent.id} to the mark" if to_mark else None,
-        "step_text": fmt.sig(g.step_mL, 1),
+        "step_text": fmt.volume(g.step_mL, g.step_mL),
+        "reading_note": reading_note(plan, seq),
         "checklist": checklist(plan, blank_name),
         "safety": _student_safety(plan),
         "custom_order": g.order is not None,
@@ -270,30 +270,29 @@ def key_rows(plan: Plan, cs: ClassSet) -> list[dict]:
 
 def key_csv(plan: Plan, cs: ClassSet) -> str:
     """``key.csv``: student, name, section, tube, one column per stock (mL), absorbance, band_low,
-    band_high."""
+    band_high; every text cell is data, never a spreadsheet formula (and reads back as written)."""
     ids = [s.id for s in plan.stock]
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow([*KEY_COLUMNS, *ids, *KEY_TAIL])
-    for r in key_rows(plan, cs):
-        w.writerow(
+    return write_csv(
+        [*KEY_COLUMNS, *ids, *KEY_TAIL],
+        (
             [
-                csv_safe(r["student"]),
-                csv_safe(r["name"]),
-                csv_safe(r["section"]),
+                r["student"],
+                r["name"],
+                r["section"],
                 r["tube"],
                 *(f"{r['volumes_mL'][s]:.4f}" for s in ids),
                 f"{r['absorbance']:.4f}",
                 f"{r['band_low']:.4f}",
                 f"{r['band_high']:.4f}",
             ]
-        )
-    return buf.getvalue()
+            for r in key_rows(plan, cs)
+        ),
+    )
 
 
 def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
-    """``key.xlsx``: the key as a workbook (numbers as numbers), its timestamps fixed so the bytes
-    depend on the class set only."""
+    """``key.xlsx``: the key as a workbook (numbers as numbers, text as text), its timestamps fixed so
+    the bytes depend on the class set only."""
 
     from openpyxl import Workbook
 
@@ -301,9 +300,10 @@ def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
     wb = Workbook()
     ws = wb.active
     ws.title = "key"
-    ws.append([*KEY_COLUMNS, *ids, *KEY_TAIL])
+    append_row(ws, [*KEY_COLUMNS, *ids, *KEY_TAIL])
     for r in key_rows(plan, cs):
-        ws.append(
+        append_row(
+            ws,
             [
                 r["student"],
                 r["name"],
@@ -313,16 +313,15 @@ def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
                 round(r["absorbance"], 4),
                 round(r["band_low"], 4),
                 round(r["band_high"], 4),
-            ]
+            ],
         )
-    for row in ws.iter_rows(min_row=2, max_col=3):  # names as text, never formulas
-        for cell in row:
-            cell.data_type = "s"
     ws.freeze_panes = "E2"
     info = wb.create_sheet("about")
-    info.append(["title", plan.title])
-    info.append(["seed", cs.seed])
-    info.append(["band", f"±{BAND_SD:g} sd of each tube's full error budget (photometric, delivery, stock)"])
+    append_row(info, ["title", plan.title])
+    append_row(info, ["seed", cs.seed])
+    append_row(
+        info, ["band", f"±{BAND_SD:g} sd of each tube's full error budget (photometric, delivery, stock)"]
+    )
     return stable_xlsx(wb)
 
 
@@ -371,21 +370,21 @@ def _se_rows(cs: ClassSet) -> list[tuple[str, str, str]]:
         ("one student, this class's median card", se["cards_median"], None),
         ("one student, the best single recipe", se["best_single"], None),
         ("one student, the evenly spaced series", se["even_single"], None),
-        (f"the whole class pooled ({N} cards, stocks shared)", se["pooled"], None),
+        (f"the whole class pooled ({plural(N, 'card')}, stocks shared)", se["pooled"], None),
         (
-            f"{N} copies of the best single recipe",
+            f"{plural(N, 'copy', 'copies')} of the best single recipe",
             se["pooled_best_copies"],
             se["pooled_best_copies"] / se["pooled"],
         ),
         (
-            f"{N} copies of the evenly spaced series",
+            f"{plural(N, 'copy', 'copies')} of the evenly spaced series",
             se["pooled_even_copies"],
             se["pooled_even_copies"] / se["pooled"],
         ),
         ("the class pooled, each section making its own stocks", se["pooled_stock_per_section"], None),
         ("the class pooled, stock errors left out (stocks standardised)", se["pooled_without_stock"], None),
         (
-            f"{N} copies of the best single recipe, stock errors left out",
+            f"{plural(N, 'copy', 'copies')} of the best single recipe, stock errors left out",
             se["pooled_best_copies_without_stock"],
             se["pooled_best_copies_without_stock"] / se["pooled_without_stock"],
         ),

@@ -8,28 +8,33 @@ outputs.
 
 from __future__ import annotations
 
-import csv
-import io
-
 from ..inputs.plan import Plan
+from ..inputs.tables import write_csv
 from ..jobs.classroom.stock_list import ClassStock
 from . import fmt
 from .render import render_html
-from .stock_text import prep_lines, pretty_formula
+from .stock_text import mass_basis_text, prep_lines, pretty_formula
 
-__all__ = ["STOCK_COLUMNS", "csv_safe", "solute_masses", "stocks_csv", "stocks_context", "stocks_page"]
-
-
-def csv_safe(text: str) -> str:
-    """Text a spreadsheet will not run as a formula (OWASP CSV injection: a leading = + - @ tab or CR)."""
-    return "'" + text if text[:1] in ("=", "+", "-", "@", "\t", "\r") else text
+__all__ = ["STOCK_COLUMNS", "solute_masses", "stocks_csv", "stocks_context", "stocks_page"]
 
 
 def _how(plan: Plan, s: ClassStock) -> tuple[list[str], list[str]]:
     """(instructions, warnings) for the class's batch: the prep sheet's own sentences."""
     if s.need is None:
         return ["not used by any card"], []
-    lines, warns = prep_lines(plan, s.id, s.need.summary())
+    need = s.need.summary()
+    lines, warns = prep_lines(plan, s.id, need)
+    basis = need.get("mass_set_by")
+    if basis and basis["set_by"] in ("flask", "recipe"):  # the class's flask, not the plan's recipe
+        said = mass_basis_text(need)
+        whole = f"{s.batches} × {s.need.flask_mL:g} mL" if s.batches > 1 else f"{s.need.flask_mL:g} mL"
+        lines = [
+            f"Mass set by the flask that holds what the class needs ({fmt.fixed(s.total_mL, 0.1)} mL in "
+            f"{whole})."
+            if x == said
+            else x
+            for x in lines
+        ]
     if s.batches > 1:
         lines = [f"Make {s.batches} batches, each as follows.", *lines]
     return lines, warns
@@ -152,16 +157,14 @@ def _csv_row(sid: str, scope: str, v, b, allow, t, need, batches, extra=("", "")
 def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
     """``stocks.csv``: one row per stock for the class (scope ``class``), then one per stock and section.
     ``mass_g`` is the metal or ligand salt's mass per batch; ``solutes`` every solute of one batch with its
-    mass (g, 4 decimals)."""
+    mass (g, 4 decimals). Every text cell is data, never a spreadsheet formula."""
     g = plan.glassware
     allow = g.rinse_mL + g.dead_volume_mL
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(STOCK_COLUMNS)
+    rows = []
     for s in stocks:
         on_hand = "" if s.on_hand_mL is None else f"{s.on_hand_mL:.2f}"
         enough = "" if s.enough is None else ("yes" if s.enough else "no")
-        w.writerow(
+        rows.append(
             _csv_row(
                 s.id,
                 "class",
@@ -177,7 +180,7 @@ def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
     for s in stocks:
         needs = s.section_needs or (None,) * len(s.sections)
         for (name, v, b, t), sn in zip(s.sections, needs, strict=True):
-            scope = f"section {csv_safe(name)}" if name else "section"
+            scope = f"section {name}" if name else "section"
             need, batches = sn if sn is not None else (None, "")
-            w.writerow(_csv_row(s.id, scope, v, b, b * allow, t, need, batches))
-    return buf.getvalue()
+            rows.append(_csv_row(s.id, scope, v, b, b * allow, t, need, batches))
+    return write_csv(STOCK_COLUMNS, rows)

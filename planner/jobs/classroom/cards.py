@@ -40,9 +40,11 @@ from ...inference import approximate, exchange
 from ...inference.design_criteria import DesignError
 from ...inference.priors import Nodes
 from ...inference.study import Study
+from ...inputs.limits import check_class_size
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe, concat_recipes
 from ...inputs.roster import Roster
+from ...inputs.text import plural
 from ..compile import compile_study
 from ..plan.assess import Assessment, assess_study
 from ..plan.even import even_series_for
@@ -326,7 +328,7 @@ def class_set_study(
 
 def _sizes(study: Study, roster: Roster, tubes: int | None) -> tuple[int, int]:
     """Tubes per student and students, refusing what cannot be designed."""
-    n = int(tubes or study.tubes)
+    n, N = check_class_size(len(roster), tubes or study.tubes)
     params = study.params
     if study.bench.titration is not None:
         raise DesignError(
@@ -339,10 +341,10 @@ def _sizes(study: Study, roster: Roster, tubes: int | None) -> tuple[int, int]:
         )
     if n < params.size:
         raise DesignError(
-            f"{n} tubes cannot determine the {params.size} fitted parameters "
+            f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
             f"({', '.join(params.names)}): ask for at least {params.size} tubes per student"
         )
-    return n, len(roster)
+    return n, N
 
 
 def _best_recipe(study: Study, grid: Grid, n: int, seed: int):
@@ -412,8 +414,8 @@ def _class_notes(study: Study, grid: Grid, se: dict, n: int, notes: list[str]) -
     if not se["best_single"] <= goal:
         notes.insert(
             0,
-            f"even the best recipe of {n} tubes gives SE {se['best_single']:.3g} > goal {goal:g}: "
-            f"no card can pass; give each student more tubes (--tubes) or relax design.goal_se",
+            f"even the best recipe of {plural(n, 'tube')} gives SE {se['best_single']:.3g} > goal "
+            f"{goal:g}: no card can pass; give each student more tubes (--tubes) or relax design.goal_se",
         )
     if grid.step_mL != study.bench.step_mL:
         notes.append(
