@@ -178,7 +178,7 @@ def test_strong_complex_is_pointed_to_the_mole_ratio_series():
     study = compile_study(parse_plan_text(scenario_text("proton")))
     with pytest.raises(DesignError, match='card_series = "mole-ratio"'):
         class_set_study(study, roster_of_count(4))
-    cs = class_set_study(study, roster_of_count(4), series="mole-ratio", tubes=12)
+    cs = class_set_study(study, roster_of_count(2), series="mole-ratio")
     assert cs.lab == "mole-ratio"
     for c in cs.cards:  # the plan holds the metal by design.fixed: the ligand rises past the ratio
         assert np.ptp(c.recipe.column("CU")) == 0 and c.series.partner == "CU"
