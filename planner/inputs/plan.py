@@ -347,6 +347,7 @@ class DesignSettings(_Strict):
     check: Literal["auto", "none"] = "auto"
     check_weight: _num(0, 1, hi_open=True) = 0.25
     alternative: list[Alternative] = Field(default_factory=list, max_length=MAX_ALTERNATIVES)
+    card_series: Literal["binding-curve", "mole-ratio", "job"] = "binding-curve"
 
 
 class Plan(_Strict):
