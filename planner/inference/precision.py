@@ -139,6 +139,12 @@ class ReadingModel:
     totals_M: np.ndarray
     ions_M: np.ndarray
 
+    @property
+    def rowwise(self) -> bool:
+        """True when every trial reads the same tubes: ``f`` and ``jac`` then take any subset of the
+        trials' rows (see :func:`planner.inference.lm.fit_many`)."""
+        return self.totals_M.ndim == 2
+
     def bounds(self) -> tuple[np.ndarray, np.ndarray]:
         """Box for the fit: log β within LOG_BETA_RANGE, ε ≥ 0."""
         lo = np.full(self.params.size, -np.inf)
@@ -357,7 +363,15 @@ def monte_carlo(
         theta0 = np.broadcast_to(params.guess, (m, params.size)).copy()
         lo, hi = reading.bounds()
         res = fit_many(
-            reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False, lower=lo, upper=hi
+            reading.f,
+            theta0,
+            sim.absorbance,
+            jac=reading.jac,
+            whiten=W,
+            scale_cov=False,
+            lower=lo,
+            upper=hi,
+            rowwise=reading.rowwise,
         )
         est[done : done + m] = np.where(res.converged[:, None], res.theta, np.nan)
         ok[done : done + m] = res.converged & np.all(np.isfinite(res.theta), axis=1)
