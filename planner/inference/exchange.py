@@ -422,14 +422,17 @@ def exact_design(
 
 
 def _variants(pts: np.ndarray, move, levels, shifts) -> np.ndarray:
-    """Every point's variants along one move: coordinate j at each of its levels, or coordinates j and k
-    shifted together (k by ``sign`` times the shift), point after point."""
+    """Every point's variants along one move, point after point: coordinate j at each of its levels (with
+    "swap", the other coordinates of its group at 0), or coordinates j and k shifted together (k by
+    ``sign`` times the shift)."""
     n = pts.shape[0]
-    if move[0] == "set":
+    if move[0] in ("set", "swap"):
         j = move[1]
         lv = np.asarray(levels[j], dtype=float)
         var = np.repeat(pts, lv.size, axis=0)
         var[:, j] = np.tile(lv, n)
+        if move[0] == "swap":  # the coordinates j stands in for go to 0
+            var[:, [o for o in move[2] if o != j]] = 0.0
         return var
     _, j, k, sign = move
     var = np.repeat(pts, shifts.size, axis=0)
@@ -448,6 +451,7 @@ def coordinate_exchange(
     M0=None,
     node_weights=None,
     shifts=None,
+    groups=None,
     max_sweeps: int = 20,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Improve an exact design one coordinate of one point at a time (Meyer & Nachtsheim 1995,
@@ -458,8 +462,11 @@ def coordinate_exchange(
     variant when that lowers the loss (the rank-2R exchange update of :class:`_State`, the same scores
     as :func:`exact_design`). With ``shifts``, a sweep also shifts neighbouring coordinates together
     (j and j+1, cyclically; by the same amount, or by opposite amounts), diagonal moves a single
-    coordinate cannot make, as along a constraint on the total volume. Sweeps repeat until none moves a point. A
-    sweep's work grows linearly with the number of coordinates and of levels, not with their product.
+    coordinate cannot make, as along a constraint on the total volume. With ``groups`` (coordinates that
+    stand in for one another), a sweep also tries each coordinate in place of the others of its group
+    (those set to 0, it at each of its levels). Sweeps repeat until none moves a
+    point. A sweep's work grows linearly with the number of coordinates and of levels, not with their
+    product.
 
     Parameters
     ----------
@@ -474,6 +481,9 @@ def coordinate_exchange(
         As in :func:`exact_design`.
     shifts : array_like, optional
         Amounts by which neighbouring coordinates are shifted together (none: coordinate moves only).
+    groups : sequence of sequences of int, optional
+        Coordinates that can replace one another (e.g. stocks of the same reagent at other
+        concentrations).
     max_sweeps : int
         Cap on sweeps.
 
@@ -491,32 +501,36 @@ def coordinate_exchange(
     if sh is not None and d >= 2:
         pairs = [(j, (j + 1) % d) for j in range(d if d > 2 else 1)]
         moves += [("move", j, k, sign) for j, k in pairs for sign in (-1.0, 1.0)]
-    x_cur = np.ones(n, dtype=np.int64)
+    for group in groups or ():
+        if len(group) > 1:
+            moves += [("swap", j, tuple(group)) for j in group]
     for _ in range(int(max_sweeps)):
         moved = False
         for mv in moves:
             var = _variants(pts, mv, levels, sh)
             m = var.shape[0] // n
             Fv, okv = info(var)
+            # one problem holds the design's points and every variant; the design is counts on it
+            prob = _problem(
+                np.concatenate([F_pts, Fv], axis=1), criterion, target, M0, node_weights, float(n), True
+            )
+            at = np.arange(n)  # where each point of the design sits among the problem's rows
+            x = np.zeros(prob.C, dtype=np.int64)
+            x[:n] = 1
+            st = _State(prob, x)
             for i in range(n):
-                block = slice(i * m, (i + 1) * m)
-                prob = _problem(
-                    np.concatenate([F_pts, Fv[:, block]], axis=1),
-                    criterion,
-                    target,
-                    M0,
-                    node_weights,
-                    float(n),
-                    True,
-                )
-                st = _State(prob, np.concatenate([x_cur, np.zeros(m, dtype=np.int64)]))
-                delta = st.pair_delta(st.parts(np.arange(n, n + m)), st.parts(np.array([i])))[0]
-                delta = np.where(okv[block], delta, np.inf)
+                block = np.arange(n + i * m, n + (i + 1) * m)
+                delta = st.pair_delta(st.parts(block), st.parts(at[[i]]))[0]
+                delta = np.where(okv[i * m : (i + 1) * m], delta, np.inf)
                 b = int(np.argmin(delta))
                 if delta[b] < -_IMPROVE:
-                    pts[i] = var[i * m + b]
-                    F_pts[:, i] = Fv[:, i * m + b]
+                    x[at[i]] -= 1
+                    at[i] = block[b]
+                    x[at[i]] += 1
+                    st = _State(prob, x)
                     moved = True
+            pts = np.where((at >= n)[:, None], var[np.maximum(at - n, 0)], pts)
+            F_pts = np.where((at >= n)[None, :, None, None], Fv[:, np.maximum(at - n, 0)], F_pts)
         if not moved:
             break
     return pts, F_pts

@@ -179,17 +179,23 @@ class ReadingModel:
     def jac(self, theta: np.ndarray) -> np.ndarray:
         theta = np.atleast_2d(theta)
         st, eps, _, _ = self._state(theta)
-        der = absorbance_derivatives(self.model, st, eps)
-        cols = []
-        for p in range(self.params.size):
-            k = self.params.kind[p]
-            if k == 0:
-                cols.append(der.dA_dlog_beta[..., self.params.index[p]])
-            elif k == 1:
-                cols.append(der.dA_depsilon[..., self.params.index[p]])
-            else:
-                cols.append(np.ones(st.absorbance.shape))
-        return np.stack(cols, axis=-1)
+        return parameter_jacobian(self.params, absorbance_derivatives(self.model, st, eps))
+
+
+def parameter_jacobian(params: Parameters, der) -> np.ndarray:
+    """dA/dθ (..., n, P) of the fitted parameters, from the absorbance derivatives ``der``
+    (:func:`planner.model.jacobians.absorbance_derivatives`) of the same state."""
+    shape = der.dA_dlog_beta.shape[:-1]
+    cols = []
+    for p in range(params.size):
+        k = params.kind[p]
+        if k == 0:
+            cols.append(der.dA_dlog_beta[..., params.index[p]])
+        elif k == 1:
+            cols.append(der.dA_depsilon[..., params.index[p]])
+        else:
+            cols.append(np.ones(shape))
+    return np.stack(cols, axis=-1) if cols else np.zeros(shape + (0,))
 
 
 def whitening(cov: np.ndarray) -> np.ndarray:

@@ -22,14 +22,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from ...inference.design_criteria import DesignError
-from ...inference.precision import ReadingModel, unpack
+from ...inference.precision import parameter_jacobian, unpack
 from ...inference.priors import Nodes
 from ...inference.study import Study
 from ...inputs.recipe import Recipe, concat_recipes, totals_M
 from ...model.compiled import Model, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
 from ...uncertainty import delivery
-from ...uncertainty.budget import error_factors
+from ...uncertainty.budget import delivery_sds, error_factors
 from .checks import RANGE_RISK, prior_range_risk
 
 __all__ = [
@@ -187,17 +187,17 @@ def sampled_candidates(
 ) -> Candidates:
     """A spread sample of the tubes the grid allows, for grids too large to list.
 
-    Volumes uniform over the simplex Σ v ≤ room (normalised exponentials; Devroye 1986, Non-Uniform
-    Random Variate Generation, §V.2), each stock left out with probability 1/2 (optimal designs often
-    use only some stocks in a tube), rounded to each stock's levels; duplicates dropped."""
+    Optimal tubes use few stocks each (one metal and one ligand stock, say), so each sampled tube takes
+    one to three of the stocks (a third each), picked at random, with volumes uniform over the simplex
+    Σ v ≤ room (normalised exponentials; Devroye 1986, Non-Uniform Random Variate Generation, §V.2),
+    rounded to each stock's levels; duplicates dropped."""
     room = _room_mL(study)
     levels = [stock_levels(study, sid, study.bench.step_mL, caps_mL) for sid in ids]
     d = len(ids)
-    e = rng.exponential(size=(size, d + 1))
+    k = rng.integers(1, min(d, 3) + 1, size=size)  # stocks per tube
+    pick = np.argsort(rng.random((size, d)), axis=1) < k[:, None]  # k of the d stocks, at random
+    e = rng.exponential(size=(size, d + 1)) * np.concatenate([pick, np.ones((size, 1), bool)], axis=1)
     v = room * e[:, :d] / e.sum(axis=1, keepdims=True)
-    v *= rng.random((size, d)) < 0.5
-    empty = np.flatnonzero(~v.any(axis=1))  # never an empty tube: one stock at a random volume
-    v[empty, rng.integers(0, d, size=empty.size)] = room * rng.random(empty.size)
     pts = np.column_stack([_nearest(lv, v[:, j]) for j, lv in enumerate(levels)])
     pts = np.unique(pts[pts.sum(axis=1) <= room + 1e-9], axis=0)
     rec = _complete(study, ids, pts, "s")
@@ -320,7 +320,6 @@ def information_rows(
     rec = cand.recipe
     tot = totals_M(rec, model.stock_conc_M)
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
-    reading = ReadingModel(model, params, tot, ions)
     G = nodes.theta.shape[0]
     lb, eps, _ = unpack(model, params, nodes.theta)
     st = predict(
@@ -331,13 +330,14 @@ def information_rows(
         epsilon_M_cm=eps,
         warn=False,
     )
-    J = reading.jac(nodes.theta)  # (G, C, P)
     der = absorbance_derivatives(model, st, eps)
+    J = parameter_jacobian(params, der)  # (G, C, P), as reading.jac(nodes.theta) without a second solve
     var = np.empty(st.absorbance.shape)
     shared = []
+    sds = delivery_sds(study.bench, rec)  # the volumes' uncertainties: the same at every node
     for gi in range(G):  # a handful of nodes; each vectorised over candidates
         sub = st[gi]
-        f = error_factors(study.bench, model, rec, sub, dA_dtotals=der.dA_dtotals[gi])
+        f = error_factors(study.bench, model, rec, sub, dA_dtotals=der.dA_dtotals[gi], sds=sds)
         var[gi] = f.photometric_var + (f.delivery_random_var if volumetric else 0.0)
         shared.append(
             np.concatenate([f.J_stock, f.J_device], axis=1) if volumetric else np.zeros((rec.n_tubes, 0))

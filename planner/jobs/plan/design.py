@@ -25,6 +25,7 @@ from ..compile import compile_study
 from .assess import assess_study, stock_shortfalls
 from .candidates import (
     MAX_CANDIDATES,
+    MAX_SAMPLED,
     Candidates,
     candidate_tubes,
     complete_rows,
@@ -407,27 +408,49 @@ def _solve_tubes(study: Study, nodes, crit, n, seed, caps, volumetric, starts, p
     return rec, ex, ap, n_grid, n_feas, coarse_note, final
 
 
+# Rounds of the sampled search: each samples the grid anew (MAX_SAMPLED / rounds tubes) and refines its
+# design; the rounds start apart, so one that settles in a poor local optimum does not decide alone.
+_ROUNDS = 3
+
+
 def _solve_sampled(study, nodes, crit, n, seed, caps, volumetric, starts, prior, levels, count):
-    """Three or more stocks chosen tube by tube: an exact design on a sample of the grid, each tube then
-    refined one stock at a time over that stock's whole grid (coordinate exchange, Meyer & Nachtsheim
-    1995), and a last exchange over the sample and the refined tubes together."""
+    """Three or more stocks chosen tube by tube, in ``_ROUNDS`` rounds: an exact design on a sample of the
+    grid, each tube then refined over each stock's whole grid (coordinate exchange, Meyer & Nachtsheim
+    1995); last, one exchange over the samples and the refined tubes together, started from the best
+    refined design (so it can only improve on it)."""
+    from ...inference.design_criteria import criterion_of_counts
+
     g = study.bench
     chem, _ = designed_stocks(study)
-    cand = sampled_candidates(study, chem, np.random.default_rng(seed), caps_mL=caps)
-    _, _, _, _, _, (_, idx, counts) = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts, prior)
-    cols = [cand.recipe.stock_ids.index(s) for s in chem]
-    chosen = np.flatnonzero(counts)
-    start = np.repeat(cand.recipe.volumes_mL[idx[chosen]][:, cols], counts[chosen], axis=0)
-    info, M0 = _tube_information(study, chem, nodes, crit, volumetric, prior, start, levels)
     target = study.params.target if crit == "target" else None
+    # diagonal moves refine locally: 1 to 8 grid steps, then doubling up to the longest grid
     top = max(lv.size for lv in levels)
-    shifts = g.step_mL * np.concatenate([-np.arange(top, 0, -1), np.arange(1, top + 1)])
-    pts, _ = exchange.coordinate_exchange(
-        info, levels, start, criterion=crit, target=target, M0=M0, node_weights=nodes.weights, shifts=shifts
-    )
-    # the sample and the refined tubes together: the last exchange can only improve on the refined design
-    sample = cand.recipe.volumes_mL[:, cols]
-    union, where = np.unique(np.round(np.concatenate([sample, pts]), 10), axis=0, return_inverse=True)
+    steps = np.unique(np.concatenate([np.arange(1, 9), 2 ** np.arange(4, max(int(np.log2(top)) + 1, 4))]))
+    shifts = g.step_mL * np.concatenate([-steps[::-1], steps])
+    # stocks of the same reagent (M only, L only, or both) at other concentrations stand in for each other
+    conc = study.model.stock_conc_M[[study.model.stock_ids.index(s) for s in chem]] > 0
+    kinds = [tuple(row) for row in conc]
+    groups = [[j for j, kd in enumerate(kinds) if kd == k] for k in sorted(set(kinds))]
+    samples, best, best_value, n_sampled = [], None, np.inf, 0
+    for r in range(_ROUNDS):
+        rng = np.random.default_rng([seed, r])
+        cand = sampled_candidates(study, chem, rng, size=MAX_SAMPLED // _ROUNDS, caps_mL=caps)
+        n_sampled += cand.n_grid
+        *_, (_, idx, counts) = _exact_on(study, nodes, crit, n, seed, cand, volumetric, starts, prior)
+        cols = [cand.recipe.stock_ids.index(s) for s in chem]
+        chosen = np.flatnonzero(counts)
+        start = np.repeat(cand.recipe.volumes_mL[idx[chosen]][:, cols], counts[chosen], axis=0)
+        info, M0 = _tube_information(study, chem, nodes, crit, volumetric, prior, start, levels)
+        kw = dict(criterion=crit, target=target, M0=M0, node_weights=nodes.weights)
+        pts, F_pts = exchange.coordinate_exchange(info, levels, start, shifts=shifts, groups=groups, **kw)
+        value = criterion_of_counts(F_pts, np.ones(n, dtype=int), **kw) * (1.0 if crit == "target" else -1.0)
+        samples.append(cand.recipe.volumes_mL[:, cols])
+        if value < best_value:
+            best, best_value = pts, value
+    assert best is not None
+    # the samples and the best refined tubes together: the last exchange can only improve on them
+    sample = np.concatenate(samples)
+    union, where = np.unique(np.round(np.concatenate([sample, best]), 10), axis=0, return_inverse=True)
     rec_u, kept = complete_rows(study, chem, union, "s")
     pos = np.full(union.shape[0], -1)
     pos[kept] = np.arange(kept.size)
@@ -437,7 +460,7 @@ def _solve_sampled(study, nodes, crit, n, seed, caps, volumetric, starts, prior,
         study, nodes, crit, n, seed, final_cand, volumetric, starts, prior, initial=initial
     )
     note = (
-        f"the {len(chem)} stocks' grid has {count:.3g} combinations: searched {cand.n_grid} sampled tubes, "
+        f"the {len(chem)} stocks' grid has {count:.3g} combinations: searched {n_sampled} sampled tubes, "
         f"then refined each tube one stock at a time on the {g.step_mL:g} mL grid (coordinate exchange)"
     )
     return rec, ex, ap, count, n_feas, note, final
@@ -462,7 +485,11 @@ def _tube_information(study: Study, chem, nodes, crit, volumetric, prior, start,
         m = points.shape[0]
         on_grid = np.all([_on_levels(points[:, j], lv) for j, lv in enumerate(levels)], axis=0)
         fits = np.flatnonzero(on_grid & (points.sum(axis=1) <= room + 1e-9))
-        rec, kept = complete_rows(study, chem, points[fits], "x")
+        try:
+            rec, kept = complete_rows(study, chem, points[fits], "x")
+        except DesignError:  # none of these tubes can be made (no room, or not levelled)
+            G = nodes.theta.shape[0]
+            return np.zeros((G, m, 1, prior_info["width"])), np.zeros(m, dtype=bool)
         cand = Candidates(rec, tuple(chem), rec.n_tubes, g.step_mL)
         F, M0, st, band = rows_with_prior(
             study, cand, prior, nodes, crit, volumetric=volumetric, all_nuisance=True
@@ -472,7 +499,7 @@ def _tube_information(study: Study, chem, nodes, crit, volumetric, prior, start,
         full[:, rows] = F
         ok = np.zeros(m, dtype=bool)
         ok[rows] = range_mask(study.model, st, nodes.weights, band)
-        prior_info["M0"] = M0
+        prior_info["M0"], prior_info["width"] = M0, F.shape[-1]
         return full, ok
 
     info(start)
