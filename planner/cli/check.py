@@ -83,7 +83,7 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
         f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL, "
         f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL"
     )
-    from ..jobs.compile import plan_devices
+    from ..jobs.devices import plan_devices
     from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
 
     devices = plan_devices(p)
