@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 
@@ -58,7 +59,9 @@ def _print_fit(f) -> None:
 
     from ..paper import fmt
 
-    out.print(f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
+    out.print(
+        f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {plural(f.recipe.n_tubes, 'reading')}"
+    )
     for tube, why in f.excluded:
         out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}")
     if not f.determined:

@@ -7,7 +7,9 @@ import math
 import numpy as np
 from rich.table import Table
 
+from ..inputs.text import plural
 from ..paper import fmt
+from ..paper.bench_volumes import volume_step_mL
 from .app import out
 from .app import safe_text as S
 
@@ -91,7 +93,7 @@ def print_assessment(a, p) -> None:  # noqa: C901
         t.add_column(c, justify="right")
     rows = a.tube_rows()
     lo, hi = m.linear_range
-    step = p.glassware.step_mL
+    step = volume_step_mL(p)
     st = a.state
     for i, tube in enumerate(r.tubes):
         A = rows[i]["absorbance"]
@@ -117,7 +119,8 @@ def print_design(d, p) -> None:
     out.print(f"[bold]{S(p.title)}[/bold] — design")
     out.print(
         f"criterion {d.criterion}, {'robust over the guess' if d.robust else 'at the guess only'}, "
-        f"{d.recipe.n_tubes} tubes, seed {d.seed}; {d.n_candidates} candidate tubes on the grid, "
+        f"{plural(d.recipe.n_tubes, 'tube')}, seed {d.seed}; "
+        f"{plural(d.n_candidates, 'candidate tube')} on the grid, "
         f"{d.n_feasible} inside the linear range over the guess's range"
     )
     for note in d.notes:
@@ -147,7 +150,7 @@ def print_design(d, p) -> None:
     )
     out.print(
         f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
-        f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} ({compare}); "
+        f"of {plural(d.recipe.n_tubes, 'tube')}: {fmt.sig(d.se_even, 2)} ({compare}); "
         f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these "
         f"candidates"
     )
@@ -169,7 +172,8 @@ def print_design(d, p) -> None:
         out.print(
             f"share of simulated experiments whose χ² test rejects the main model; the check costs "
             f"×{fmt.sig(mc.se_guarded_over_target_only, 3)} in SE(log β[{target}]) "
-            f"({fmt.sig(mc.se_target_only, 2)} → {fmt.sig(mc.se_guarded, 2)}), {mc.moves} tubes moved"
+            f"({fmt.sig(mc.se_target_only, 2)} → {fmt.sig(mc.se_guarded, 2)}), "
+            f"{plural(mc.moves, 'tube')} moved"
         )
     bad = [c for c in s["checks"] if c["status"] != "pass"]
     for c in bad:
@@ -177,7 +181,7 @@ def print_design(d, p) -> None:
 
 
 def print_stock_needs(p, needs, with_recipe: bool) -> None:
-    from ..paper.stock_text import prep_lines
+    from ..paper.stock_text import mass_advice_text, prep_lines
 
     out.print(f"[bold]{S(p.title)}[/bold] — stocks")
     t = Table(title="Preparation")
@@ -186,9 +190,16 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
     for n in needs:
         s = p.stock_by_id(n.id)
         conc = S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—")
-        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask
-        lines, _ = prep_lines(p, n.id, n.summary())
+        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask,
+        # what sets the mass; then, for the author, how to weigh less
+        summary = n.summary()
+        lines, _ = prep_lines(p, n.id, summary)
         how = S(" ".join(lines))
+        advice = mass_advice_text(summary)
+        if advice:
+            how += f" [cyan]{S(advice)}[/cyan]"
+        if n.scarce:
+            how = "[bold](scarce)[/bold] " + how
         if n.preparation is not None:
             pr = n.preparation
             if pr.mass_g < pr.min_weight_g:

@@ -21,13 +21,14 @@ from ..model.compiled import Model, TubeState, predict, tube_ions_M
 from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
-from .devices import plan_devices
+from .devices import dispenser_item, plan_devices
 
 __all__ = [
     "MAKE_UP_MIN_FRACTION",
     "build_model",
     "compile_bench",
     "compile_study",
+    "dispenser_item",
     "error_budget",
     "expected_state",
     "make_up_min_mL",

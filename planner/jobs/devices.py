@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
-from ..inputs.plan import Plan, PlanError
+from ..inputs.plan import PISTON_DISPENSERS, Dispenser, Plan, PlanError
 from ..uncertainty import catalogue
 from ..uncertainty.bench import Devices
 
@@ -20,11 +22,12 @@ def plan_devices(plan: Plan) -> Devices:
     items = []
     for j, d in enumerate(plan.glassware.dispenser):
         try:
-            items.append(catalogue.lookup(d.kind, d.capacity_mL, d.cls, d.tolerance_mL))
+            items.append(dispenser_item(d))
         except catalogue.GlasswareError as exc:
-            raise PlanError(
-                f"glassware.dispenser[{j}]", f"{exc}; or give tolerance = '...' to describe it"
-            ) from None
+            what = (
+                "systematic = '...' and repeatability = '...'" if d.kind in PISTON_DISPENSERS else "tolerance"
+            )
+            raise PlanError(f"glassware.dispenser[{j}]", f"{exc}; or give {what} to describe it") from None
     dev = np.full(len(plan.stock), -1, dtype=int)
     for k, s in enumerate(plan.stock):
         for j, d in enumerate(plan.glassware.dispenser):
@@ -36,7 +39,7 @@ def plan_devices(plan: Plan) -> Devices:
         f = plan.glassware.flask
         cap = f.capacity_mL if f else plan.glassware.tube_volume_mL
         try:
-            flask = catalogue.lookup("flask", cap, f.cls if f else "A", f.tolerance_mL if f else None)
+            flask = catalogue.lookup("flask", cap, f.cls if f else None, f.tolerance_mL if f else None)
         except catalogue.GlasswareError as exc:
             raise PlanError(
                 "glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}"
@@ -48,3 +51,25 @@ def plan_devices(plan: Plan) -> Devices:
                 f"tubes: make tube_volume and the flask capacity equal",
             )
     return Devices(tuple(items), dev, flask)
+
+
+def dispenser_item(d: Dispenser) -> catalogue.GlasswareItem:
+    """A plan's ``[[glassware.dispenser]]`` as a catalogue item, with the figures the plan states (its
+    graduation, a measured repeatability, a micropipette's or piston burette's systematic error).
+
+    Raises
+    ------
+    catalogue.GlasswareError
+        A size the catalogue lacks and the plan does not describe, or figures it cannot use.
+    """
+    item = catalogue.lookup(
+        d.kind,
+        d.capacity_mL,
+        d.cls,
+        d.limit_mL,
+        graduation_mL=d.graduation_mL,
+        repeatability_mL=d.repeatability_mL,
+    )
+    if d.systematic_mL is not None:  # the lab's own figure, not a catalogue or certificate tolerance
+        item = replace(item, source="systematic error measured by the lab (plan)")
+    return item

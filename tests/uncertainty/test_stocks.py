@@ -1,4 +1,5 @@
-"""Tests for planner.stocks: formula weights, USP <41>, QUAM A1, dilution chains, volumes on hand."""
+"""Tests for planner.uncertainty.stocks: formula weights, USP <41>, QUAM A1, dilution chains, volumes on
+hand."""
 
 import json
 import math
@@ -39,6 +40,7 @@ from planner.uncertainty.stocks import (
 )
 def test_formula_weight_against_periodictable(ours, theirs):
     import periodictable
+
     # source: periodictable's own atomic-weight table; the two libraries use different IUPAC
     # editions, so agreement to 1e-4 relative is what to expect [derived: differences ≈ 3e-5].
     assert formula_weight_g_mol(ours) == pytest.approx(periodictable.formula(theirs).mass, rel=1e-4)
@@ -123,7 +125,7 @@ def test_summary_is_json_safe_and_parts_add_up():
 # --------------------------------------------------------------------------------------------------
 def test_purity_defaults():
     unstated = prepare_stock(0.1, 100, "KSCN")
-    # source: ACS Reagent Chemicals, 98–102 % assay → ±0.02, rectangular (domain.md §3)
+    # source: ACS Reagent Chemicals, 98–102 % assay → ±0.02, rectangular
     assert unstated.purity_half_width == ACS_REAGENT_ASSAY_HALF_WIDTH == 0.02
     assert unstated.u_parts["purity"] == pytest.approx(0.02 / math.sqrt(3))
     certified = prepare_stock(0.1, 100, "KSCN", purity=0.995)

@@ -4,6 +4,7 @@ survey, planned on the plan's glassware and judged by the same model and error b
 from __future__ import annotations
 
 from ...inputs.choices import SERIES_METHOD_OPTIONS, SERIES_METHODS
+from ...inputs.limits import MAX_REPLICATES, MAX_TUBES, check_count
 from ._deps import Plan, plan_model
 from .calibration import conversion_tube
 from .common import ClassicSeries
@@ -41,7 +42,15 @@ def run_series(
     max_ratio: float | None = None,
     recipe=None,
 ) -> ClassicSeries:
-    """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
+    """Plan and judge the classic series ``method`` (one of :data:`METHODS`).
+
+    ``points`` (tubes of a Job or mole-ratio series) and ``tubes`` (the calibration series' replicate
+    tubes) are checked against :data:`planner.inputs.limits.MAX_TUBES` and ``MAX_REPLICATES``.
+    """
+    if points is not None:
+        points = check_count(points, "points", MAX_TUBES)
+    if tubes is not None:
+        tubes = check_count(tubes, "replicates", MAX_REPLICATES)
     if method == "job":
         return continuous_variation(plan, points=points, total_M=total_M)
     if method == "calibration":

@@ -13,6 +13,7 @@ from ...inference.precision import free_parameters as _free_parameters
 from ...inference.precision import whitening
 from ...inputs.plan import Epsilon, Plan, PlanError
 from ...inputs.recipe import Recipe, make_recipe, totals_M
+from ...inputs.text import plural
 from ...model.activity import ActivityWarning
 from ...model.compiled import Model, TubeState, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
@@ -44,6 +45,7 @@ __all__ = [
     "make_up_min_mL",
     "plan_devices",
     "plan_model",
+    "plural",
     "predict",
     "totals_M",
     "tube_ions_M",

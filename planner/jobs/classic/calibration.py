@@ -101,7 +101,7 @@ def conversion_tube(
             f"'{target}' has no absorptivity: give its ε guess (a calibration tube reads the complex)",
         )
     if tubes < 1:
-        raise PlanError("--tubes", "at least one calibration tube")
+        raise PlanError("replicates", "at least one calibration tube")
     _, lim_id, c_lim_stock = pure_stock(plan, lim)
     _, exc_id, c_exc_stock = pure_stock(plan, exc)
     g = plan.glassware

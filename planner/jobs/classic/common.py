@@ -24,6 +24,7 @@ from ._deps import (
     Recipe,
     TubeState,
     make_recipe,
+    plural,
     predict,
     tube_ions_M,
 )
@@ -276,7 +277,7 @@ def range_check(
     return Check(
         "linear-range",
         "pass",
-        f"all {len(tubes)} tubes read between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
+        f"all {plural(len(tubes), 'tube')} read between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
     )
 
 

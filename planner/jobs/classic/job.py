@@ -24,6 +24,7 @@ from ._deps import (
     make_up_min_mL,
     plan_devices,
     plan_model,
+    plural,
     predict,
     tube_ions_M,
     whitening,
@@ -68,7 +69,9 @@ def continuous_variation(
     _require_equimolar(plan, m_id, cM, l_id, cL)
     n = DEFAULT_POINTS if points is None else int(points)
     if n < 3:
-        raise PlanError("--points", f"{n} points cannot show an extremum: use at least 3 (9–11 is usual)")
+        raise PlanError(
+            "--points", f"{plural(n, 'point')} cannot show an extremum: use at least 3 (9–11 is usual)"
+        )
     g = plan.glassware
     step, vmin = g.step_mL, max(g.min_volume_mL, g.step_mL)
     avail = (
@@ -207,7 +210,8 @@ def _fix_high(plan: Plan, n: int, vs: float, c: float) -> str:
     lowest = max(plan.glassware.min_volume_mL, plan.glassware.step_mL) * (n + 1)
     if vs <= lowest + 1e-9:
         return (
-            f"this is already the lowest total the grid allows with {n} points ({vs:g} mL of stock per "
+            f"this is already the lowest total the grid allows with {plural(n, 'point')} "
+            f"({vs:g} mL of stock per "
             f"tube): use fewer --points, dilute both stocks alike, or a shorter path"
         )
     return "lower the total concentration (--total) or use a shorter path"

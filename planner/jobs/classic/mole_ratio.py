@@ -38,6 +38,7 @@ from ._deps import (
     make_up_min_mL,
     plan_devices,
     plan_model,
+    plural,
     predict,
     tube_ions_M,
 )
@@ -108,7 +109,9 @@ def mole_ratio_series(
     highest = float(np.max(model.stoich[mask, vi] / model.stoich[mask, fi]))
     n = DEFAULT_POINTS if points is None else int(points)
     if n < 5:
-        raise PlanError("--points", f"{n} tubes cannot give two lines of at least two tubes: use 8–12")
+        raise PlanError(
+            "--points", f"{plural(n, 'tube')} cannot give two lines of at least two tubes: use 8–12"
+        )
     if max_ratio is None:
         # 2.5 × the richest complex's ratio, but low enough to leave two tubes before the break (with 5 %
         # to spare for the rounding of volumes to the grid)

@@ -9,7 +9,8 @@ stays fitted at every wavelength, a known one stays known). Free metal and ligan
 through the readings (they add noise and no information), and a wavelength whose readings leave the
 linear range is not recommended: so the answer is not simply the complex's band maximum.
 
-Reference: Cramér 1946 / Rao 1945 for the bound; the band shape and bandwidth factor as in domain.md §2.
+Reference: Cramér 1946 / Rao 1945 for the bound; the Gaussian band shape and the bandwidth factor are
+derived in planner.model.optics.
 """
 
 from __future__ import annotations

@@ -1,9 +1,10 @@
 """Assessment of a recipe: can it resolve K, and which assumptions of the planned analysis fail?
 
 Puts together the expected tube contents (:mod:`planner.model`), the error budget
-(:mod:`planner.errors`), the precision of the fitted parameters (:mod:`planner.precision`) and the
-checks (:mod:`planner.checks`) into a frozen :class:`Assessment` whose :meth:`Assessment.summary` has
-the baseline JSON keys (``title``, ``verdict``, ``parameters``, ``tubes``, ``checks``).
+(:mod:`planner.uncertainty.budget`), the precision of the fitted parameters
+(:mod:`planner.inference.precision`) and the checks (:mod:`planner.jobs.plan.checks`) into a frozen
+:class:`Assessment` whose :meth:`Assessment.summary` has the baseline JSON keys (``title``, ``verdict``,
+``parameters``, ``tubes``, ``checks``).
 """
 
 from __future__ import annotations
@@ -27,8 +28,10 @@ from ...inference.precision import (
     whitening_of,
 )
 from ...inference.study import Study
+from ...inputs.limits import MAX_TRIALS, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
+from ...inputs.text import plural
 from ...model.compiled import Model, TubeState, predict, tube_ions_M
 from ...uncertainty.bench import Bench
 from ...uncertainty.budget import ErrorBudget, error_budget, glassware_problems
@@ -227,6 +230,7 @@ def assess_study(
     """:func:`assess` on a compiled plan (``profile_chi2=False`` skips the χ² profile and
     ``model_check=False`` the detection power of the plan's alternative models, e.g. for the design's
     comparisons, which use only the Cramér–Rao SE)."""
+    trials = check_count(trials, "trials", MAX_TRIALS, least=0)
     model, bench = study.model, study.bench
     lb_true = true_constants(model, at)
     state = expected_state(model, recipe, log_beta=lb_true)
@@ -280,7 +284,7 @@ def assess_study(
         det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), min(trials, POWER_TRIALS))
         check_list.append(model_check_result(det))
         extra["model_check"] = [d.summary() for d in det]
-    verdict, reason = _verdict(study, params, cr, mc, prof)
+    verdict, reason = _verdict(study, params, cr, mc, prof, precision)
     failed = [c.id for c in check_list if c.status == "fail"]
     if failed and verdict is not None:
         # a precise constant from a recipe that breaks an assumption (readings outside the linear range,
@@ -410,15 +414,22 @@ def _identifiability_check(params: Parameters, cr: CramerRao, model: Model, stat
     )
 
 
-def _verdict(study: Study, params: Parameters, cr, mc, prof) -> tuple[str | None, str]:
+def _verdict(study: Study, params: Parameters, cr, mc, prof, precision: bool) -> tuple[str | None, str]:
+    t = params.target
+    if precision and (params.size == 0 or t < 0):
+        # nothing the target depends on is fitted: no recipe resolves a constant it does not estimate
+        i = study.model.index(study.target)
+        return "unresolved", (
+            f"log_beta[{study.target}] is held fixed (species[{i}].log_beta_sd = 0), so the readings "
+            "would not estimate it: give the guess its uncertainty (log_beta_sd > 0) to assess a recipe "
+            "for it"
+        )
     if cr is None:
         return None, ""
-    t = params.target
-    if t < 0:
-        return None, f"log_beta[{study.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
     if cr.jacobian.shape[0] < params.size:
         return "unresolved", (
-            f"{cr.jacobian.shape[0]} tubes cannot determine {params.size} fitted parameters: add tubes"
+            f"{plural(cr.jacobian.shape[0], 'tube')} cannot determine {params.size} fitted parameters: "
+            "add tubes"
         )
     goal = study.goal_se
     se = float(cr.se[t])

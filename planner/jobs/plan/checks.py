@@ -10,13 +10,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ...inputs.text import plural
 from ...model import closed_forms
 from ...model.compiled import Model, TubeState
 
 RANGE_RISK = (
     0.05  # a tube may leave the linear range for at most 5 % of the guess's uncertainty [common practice]
 )
-SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1; domain.md §4
+SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1
 CALIBRATION_EXCESS = (
     20.0  # a tube with ≥ 20-fold excess is a "complete conversion" candidate [common practice]
 )
@@ -112,7 +113,7 @@ def linear_range(
     return Check(
         "linear-range",
         "pass",
-        f"all {len(tubes)} tubes read between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
+        f"all {plural(len(tubes), 'tube')} read between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
     )
 
 
@@ -130,7 +131,7 @@ def saturation(state: TubeState, tubes) -> Check:
     span = float(s.max() - s.min()) if s.size else 0.0
     msg = (
         f"saturation {s.min():.2f}–{s.max():.2f} ({span:.0%} of the curve); {int(inside.sum())} of "
-        f"{s.size} tubes inside {lo}–{hi}"
+        f"{plural(s.size, 'tube')} inside {lo}–{hi}"
     )
     if inside.sum() == 0:
         fix = "raise the ligand (or metal) excess" if s.max() < lo else "lower the excess"

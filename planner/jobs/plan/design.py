@@ -19,8 +19,10 @@ import numpy as np
 from ...inference import approximate, exchange
 from ...inference.design_criteria import CRITERIA, DesignError
 from ...inference.study import Study
+from ...inputs.limits import MAX_TUBES, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
+from ...inputs.text import plural
 from ..compile import compile_study
 from .assess import assess_study, stock_shortfalls
 from .candidates import (
@@ -171,7 +173,7 @@ def design_study(
     and nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete
     it (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.plan.sequential`.
     """
-    n = int(tubes or study.tubes)
+    n = check_count(tubes or study.tubes, "tubes", MAX_TUBES)
     crit = criterion or study.criterion
     if crit not in CRITERIA:
         raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
@@ -187,7 +189,7 @@ def design_study(
         )
     if n < params.size:
         raise DesignError(
-            f"{n} tubes cannot determine the {params.size} fitted parameters "
+            f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
             f"({', '.join(params.names)}): ask for at least {params.size} tubes"
         )
     nodes = study.nodes(rob)
@@ -205,7 +207,7 @@ def design_study(
             limits = ", ".join(f"{k} at most {v:.2f} mL per tube" for k, v in caps.items())
             raise DesignError(
                 f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
-                f"{n} tubes) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
+                f"{plural(n, 'tube')}) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
                 f"fewer tubes"
             ) from None
         if coarse:

@@ -104,7 +104,7 @@ def _calibration_plan():
 
 
 def test_calibration_tube_fraction_converted():
-    # source: domain.md §5 (derived from the 1:1 formula): K = 140 M⁻¹ with 0.10 M free metal converts
+    # derived from the 1:1 closed form: K = 140 M⁻¹ with 0.10 M free metal converts
     # K[M]/(1 + K[M]) = 14/15 of the ligand, not all of it
     plan = _calibration_plan()
     L0 = 1e-4
