@@ -94,9 +94,7 @@ def main(max_stocks: int) -> None:
             n_designed, count = int(lines[0]), int(lines[1])
             listed_gib = count * n_designed * 8 / 2**30
             rows.append((n_stocks, t, rss, listed_gib, float(lines[2])))
-    print(
-        f"{'stocks':>6} {'CPU s':>9} {'peak MiB':>9} {'× floor':>8} {'full grid would take':>22} {'SE':>8}"
-    )
+    print(f"{'stocks':>6} {'CPU s':>9} {'peak MiB':>9} {'× floor':>8} {'full grid would take':>22} {'SE':>8}")
     for n_stocks, t, rss, listed, se in rows:
         print(f"{n_stocks:>6} {t:>9.2f} {rss:>9.0f} {rss / rss_floor:>8.2f} {listed:>18.3g} GiB {se:>8.4f}")
     # linear growth: the time each added stock costs stays about the same along the series
