@@ -412,7 +412,7 @@ def _solve_tubes(study: Study, nodes, crit, n, seed, caps, volumetric, starts, p
 
 # Rounds of the sampled search: each samples the grid anew (MAX_SAMPLED / rounds tubes) and refines its
 # design; the rounds start apart, so one that settles in a poor local optimum does not decide alone.
-_ROUNDS = 3
+_ROUNDS = 2
 
 
 def _solve_sampled(study, nodes, crit, n, seed, caps, volumetric, starts, prior, levels, count):
