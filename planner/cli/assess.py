@@ -53,7 +53,9 @@ def assess(
     r = read_points(recipe, p, study)
     at_values = parse_at(at or [])
     a = _with_progress(
-        lambda prog: assess_study(study, r, trials=trials, seed=seed, at=at_values, progress=prog),
+        lambda prog: assess_study(
+            study, r, trials=trials, seed=seed, at=at_values, suggest=True, progress=prog
+        ),
         trials,
         quiet=as_json,
         tubes=r.n_tubes,

@@ -92,10 +92,12 @@ def design(
         )
     if as_json:
         print(dump_json(summary))
-        return
-    print_design(d, p)
-    if out_dir is not None:
-        out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
+    else:
+        print_design(d, p)
+        if out_dir is not None:
+            out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
+    if d.verdict is not None and d.verdict != "resolved":
+        raise typer.Exit(1)  # the best design cannot reach goal_se (or fails a check): README, exit codes
 
 
 def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, as_json: bool) -> None:

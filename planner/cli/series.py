@@ -14,6 +14,17 @@ from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 from .options import count_option
 
+# the series' parameters, as the options that set them
+OPTION_OF = {
+    "points": "--points",
+    "total": "--total",
+    "excess": "--excess",
+    "limiting": "--limiting",
+    "replicates": "--replicates",
+    "vary": "--vary",
+    "max_ratio": "--max-ratio",
+}
+
 
 @app.command()
 def series(
@@ -89,11 +100,10 @@ def series(
     conversion' tube (calibration), the mole-ratio series (mole-ratio), the wavelength survey over the
     plan's bands (survey) — and say whether it can answer its question: exit 0 when it can, 1 when it
     cannot."""
-    from ..inputs.files import check_output_folder, write_atomic_many
+    from ..inputs.files import check_output_folder
     from ..inputs.plan import load_plan
-    from ..inputs.recipe import recipe_to_csv
     from ..inputs.units import UnitError, parse_quantity
-    from ..jobs.classic import METHOD_OPTIONS, METHODS, run_series
+    from ..jobs.classic import METHOD_OPTIONS, METHODS
 
     if method not in METHODS:
         raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
@@ -134,30 +144,57 @@ def series(
         from ..inputs.recipe import read_recipe_csv
 
         given = read_recipe_csv(recipe, p)
-    r = run_series(
-        p,
-        method,
-        points=points,
-        total_M=total_M,
-        tubes=replicates,
-        limiting=limiting,
-        excess_M=excess_M,
-        vary=vary,
-        max_ratio=max_ratio,
-        recipe=given,
-    )
+    r = _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given)
     text = dump_json(r.summary())
-    if out_dir is not None:  # one unit: a recipe.csv beside a series.json of another run would mislead
-        write_atomic_many(
-            {out_dir / "recipe.csv": recipe_to_csv(r.recipe, p), out_dir / "series.json": text + "\n"}
-        )
+    if out_dir is not None:
+        _write(out_dir, r, p, text)
     if as_json:
         print(text)
     else:
         print_series(r, p)
-        if out_dir is not None:
+        if out_dir is not None and r.recipe.n_tubes:
             out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'series.json')}")
+        elif out_dir is not None:
+            out.print(f"wrote {S(out_dir / 'series.json')} (no tubes: the series cannot be made)")
     sys.exit(r.exit_code)
+
+
+def _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given):
+    """The series job, its parameter errors named by this command's options."""
+    from ..inputs.plan import PlanError
+    from ..jobs.classic import run_series
+
+    try:
+        return run_series(
+            p,
+            method,
+            points=points,
+            total_M=total_M,
+            tubes=replicates,
+            limiting=limiting,
+            excess_M=excess_M,
+            vary=vary,
+            max_ratio=max_ratio,
+            recipe=given,
+        )
+    except PlanError as exc:  # the series' parameters are this command's options
+        if exc.key in OPTION_OF:
+            raise UserError(f"{OPTION_OF[exc.key]}: {exc.message}") from None
+        raise
+
+
+def _write(out_dir: Path, r, p, text: str) -> None:
+    """recipe.csv and series.json as one unit (a recipe beside the JSON of another run would mislead);
+    a series that cannot be made has no recipe, only its series.json."""
+    from ..inputs.files import write_atomic, write_atomic_many
+    from ..inputs.recipe import recipe_to_csv
+
+    if r.recipe.n_tubes:
+        write_atomic_many(
+            {out_dir / "recipe.csv": recipe_to_csv(r.recipe, p), out_dir / "series.json": text + "\n"}
+        )
+    else:
+        write_atomic(out_dir / "series.json", text + "\n")
 
 
 def print_series(r, p) -> None:
@@ -176,6 +213,11 @@ def print_series(r, p) -> None:
     for line in r.notes:
         out.print(f"  • {S(line)}")
     a = r.assessment
+    col = {"pass": "green", "warn": "yellow", "fail": "red"}
+    if a is None:
+        for c in r.checks:
+            out.print(f"[{col[c.status]}]{S(c.id)}[/]: {S(c.message)}")
+        return
     rows = a.tube_rows()
     dispensed = r.recipe.dispensed_ids(p)
     step = p.glassware.step_mL
@@ -197,7 +239,6 @@ def print_series(r, p) -> None:
             *(f"{float(v[i]):.3f}" for v in r.columns.values()),
         )
     out.print(t)
-    col = {"pass": "green", "warn": "yellow", "fail": "red"}
     t = Table(title="Checks")
     for c in ("check", "status", "what was found / what to do"):
         t.add_column(c)

@@ -40,7 +40,8 @@ class Study:
     ionic_strength_tolerance : allowed relative deviation from it.
     alternatives : (name, model) pairs: the main model with one more species each, which a recipe's data
         should be able to tell from the main model (empty: no model check).
-    check_weight : weight of the model check in the design criterion (0: precision of the target only).
+    check_weight : the SE cost the model check may spend: the guarded design's SE of the target at most
+        ×(1 + check_weight) the target-only design's (0: no guard).
     """
 
     title: str

@@ -32,13 +32,14 @@ from ...inputs.limits import MAX_TRIALS, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
 from ...inputs.text import plural
-from ...model.compiled import Model, TubeState, predict, tube_ions_M
+from ...model.compiled import Model, TubeState, tube_ions_M
 from ...uncertainty.bench import Bench
 from ...uncertainty.budget import ErrorBudget, error_budget, glassware_problems
 from ...uncertainty.stocks import volume_needed_mL
 from ..compile import compile_study, expected_state, true_constants
 from . import checks as chk
 from .checks import Check
+from .limits import Limits, precision_shares, what_would_help
 
 STATUSES = ("pass", "warn", "fail")
 VERDICTS = ("resolved", "bounded", "unresolved")
@@ -68,6 +69,9 @@ class Assessment:
     verdict_reason : one sentence explaining the verdict.
     goal_se : the plan's goal for SE(log β[target]).
     study : the compiled plan the recipe was judged against.
+    detection : per alternative model, how often the recipe's data would reveal it (model check).
+    limits : what limits the precision (shares of the target's variance by source, and the changes
+        priced when asked for), or None without a precision analysis.
     """
 
     title: str
@@ -86,6 +90,8 @@ class Assessment:
     goal_se: float | None = None
     extra: dict = field(default_factory=dict, hash=False)
     study: Study | None = field(default=None, repr=False, compare=False)
+    detection: tuple = field(default=(), repr=False, compare=False)
+    limits: Limits | None = field(default=None, repr=False, compare=False)
 
     def __repr__(self) -> str:
         worst = max((STATUSES.index(c.status) for c in self.checks), default=0)
@@ -174,6 +180,8 @@ class Assessment:
                 "low_unbounded": self.profile.low_unbounded,
                 "high_unbounded": self.profile.high_unbounded,
             }
+        if self.limits is not None:
+            out.update(self.limits.summary())
         out.update(self.extra)
         return out
 
@@ -225,11 +233,16 @@ def assess_study(
     precision: bool = True,
     profile_chi2: bool = True,
     model_check: bool = True,
+    detection_trials: int | None = None,
+    model_check_fix: str | None = None,
+    suggest: bool = False,
     progress: Callable[[int, int], None] | None = None,
 ) -> Assessment:
     """:func:`assess` on a compiled plan (``profile_chi2=False`` skips the χ² profile and
     ``model_check=False`` the detection power of the plan's alternative models, e.g. for the design's
-    comparisons, which use only the Cramér–Rao SE)."""
+    comparisons, which use only the Cramér–Rao SE). ``detection_trials`` simulated experiments per
+    alternative (default min(trials, 400)); ``model_check_fix`` what the model-check check advises;
+    ``suggest`` prices the changes that would improve the precision (:mod:`planner.jobs.plan.limits`)."""
     trials = check_count(trials, "trials", MAX_TRIALS, least=0)
     model, bench = study.model, study.bench
     lb_true = true_constants(model, at)
@@ -247,7 +260,6 @@ def assess_study(
         J = reading.jac(true_theta[None, :])[0]
         W = whitening_of(budget)  # diagonal + low rank for tubes: never an n × n matrix per trial
         cr = cramer_rao(J, W=W)
-        risk, spread = _range_risk_over_prior(model, params, reading)
         enough = recipe.n_tubes >= params.size
         if trials > 0 and enough:
             mc = monte_carlo(
@@ -263,11 +275,16 @@ def assess_study(
             )
         if profile_chi2 and params.target >= 0 and recipe.n_tubes >= params.size - 1 and recipe.n_tubes > 0:
             prof = profile(reading, W, true_theta)
+    if params.size and recipe.n_tubes:
+        ions_r = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+        risk, low, high = chk.range_band(model, params, state.totals_M, ions_r)
+        spread = (float(low.min()), float(high.max()))
     check_list.append(chk.linear_range(model, state, recipe.tubes, risk, spread))
     check_list.append(chk.saturation(state, recipe.tubes))
     if model.complex_mask[model.index(target)] and model.complex_mask.sum() == 1:
         # the 'complete conversion' shortcut only makes sense with a single M–L complex
-        check_list.append(chk.conversion(model, state, recipe.tubes, target))
+        hand = study.analysis in ("one-to-one", "double-reciprocal")
+        check_list.append(chk.conversion(model, state, recipe.tubes, target, hand_analysis=hand))
     if study.analysis == "double-reciprocal":
         check_list.append(chk.double_reciprocal(state, recipe.tubes))
     if study.analysis in ("one-to-one", "double-reciprocal"):
@@ -278,12 +295,22 @@ def assess_study(
     if cr is not None:
         check_list.append(_identifiability_check(params, cr, model, state))
     extra = {}
+    det: tuple = ()
     if model_check and precision and study.alternatives and params.size and params.target >= 0:
-        from .detection import POWER_TRIALS, model_check_result, recipe_detection
+        from .detection import ASSESS_FIX, POWER_TRIALS, model_check_result, recipe_detection
 
-        det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), min(trials, POWER_TRIALS))
-        check_list.append(model_check_result(det))
+        n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
+        det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), n_det)
+        check_list.append(model_check_result(det, model_check_fix or ASSESS_FIX))
         extra["model_check"] = [d.summary() for d in det]
+    limits = None
+    if cr is not None and params.target >= 0 and study.goal_se is not None:
+        se_t = float(cr.se[params.target])
+        limits = precision_shares(
+            study, recipe, state, budget, cr.jacobian, params, se_t, float(study.goal_se)
+        )
+        if suggest and limits is not None:
+            limits = what_would_help(study, recipe, limits, lb_true)
     verdict, reason = _verdict(study, params, cr, mc, prof, precision)
     failed = [c.id for c in check_list if c.status == "fail"]
     if failed and verdict is not None:
@@ -312,30 +339,9 @@ def assess_study(
         study.goal_se,
         extra,
         study=study,
+        detection=det,
+        limits=limits,
     )
-
-
-def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingModel):
-    """Each tube's chance of leaving the linear range over the guesses' uncertainty (as the design
-    screens its candidates), and the lowest/highest reading over ±2 sd."""
-    from ...inference.precision import unpack
-    from ...inference.priors import prior_nodes
-    from ...model.jacobians import absorbance_derivatives
-
-    nodes = prior_nodes(params, robust=True)
-    lb, eps, _ = unpack(model, params, nodes.theta)
-    G = nodes.theta.shape[0]
-    tot = np.broadcast_to(reading.totals_M, (G,) + reading.totals_M.shape)
-    ions = np.broadcast_to(reading.ions_M, (G,) + reading.ions_M.shape)
-    st = predict(model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False)
-    der = absorbance_derivatives(model, st, eps)
-    band = np.sqrt(np.sum((der.dA_depsilon * model.epsilon_M_cm * model.epsilon_rsd) ** 2, axis=-1))
-    lo, hi = model.linear_range
-    risk = chk.prior_range_risk(st.absorbance, band, nodes.weights, lo, hi)
-    inner = np.abs(nodes.theta - params.guess).max(axis=1) <= 2.0 * params.prior_sd.max() + 1e-12
-    a_lo = float(np.min((st.absorbance - 2 * band)[inner]))
-    a_hi = float(np.max((st.absorbance + 2 * band)[inner]))
-    return risk, (max(a_lo, 0.0), a_hi)
 
 
 def stock_shortfalls(bench: Bench, recipe: Recipe) -> list[tuple[str, float, float, float]]:

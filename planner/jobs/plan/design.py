@@ -40,8 +40,10 @@ from .candidates import (
     sampled_candidates,
     stock_levels,
 )
+from .detection import DESIGN_FIX, POWER_TRIALS
 from .even import even_series_for
-from .model_check import guard
+from .limits import target_se
+from .model_check import finish_check, guard
 
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
 
@@ -64,6 +66,9 @@ class Design:
     se_across : list of (true log β, SE of design, SE of even series) across the guess's range.
     notes : what the optimiser did that the user should know (coarse search, budget caps...).
     model_check : the model check (:class:`planner.jobs.plan.model_check.ModelCheck`), or None without one.
+    verdict, verdict_reason : the assessment's verdict on the design (Cramér–Rao), with, when it misses
+        ``goal_se``, by how much and what would reach it.
+    limits : what limits the precision and the changes priced (:class:`planner.jobs.plan.limits.Limits`).
     """
 
     recipe: Recipe
@@ -82,6 +87,9 @@ class Design:
     notes: tuple[str, ...] = field(default=())
     assessment_summary: dict = field(default_factory=dict, hash=False)
     model_check: object | None = field(default=None, compare=False)
+    verdict: str | None = None
+    verdict_reason: str = ""
+    limits: object | None = field(default=None, compare=False)
 
     def __repr__(self) -> str:
         return (
@@ -113,6 +121,8 @@ class Design:
                     {"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across
                 ],
                 "notes": list(self.notes),
+                "verdict": self.verdict,
+                "verdict_reason": self.verdict_reason,
             }
         )
         if self.model_check is not None:
@@ -178,7 +188,7 @@ def design_study(
     if crit not in CRITERIA:
         raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
     rob = study.robust if robust is None else bool(robust)
-    model, params = study.model, study.params
+    params = study.params
     if params.size == 0:
         raise DesignError(
             "nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)"
@@ -228,35 +238,15 @@ def design_study(
             + ", ".join(_budget_overruns(study, rec))
             + " (on_hand) or use fewer tubes"
         )
-    check = None
-    use_check = study.check_weight > 0 if check_model is None else bool(check_model)
-    if use_check and study.alternatives and crit == "target":
-        check = guard(study, *final, rec, volumetric=volumetric, seed=seed, prior=prior_tubes)
-        if _budget_overruns(study, check.recipe):
-            notes.append("the model-check design would overrun a stock on hand: kept the target-only design")
-        else:
-            rec = check.recipe
-    a = assess_study(study, rec, trials=0)
+    rec, check, a = _check_and_assess(
+        study, rec, final, crit, check_model, volumetric, seed, prior_tubes, notes
+    )
     even = even_series_for(study, n)
     se_d = float(a.target_se) if a.target_se is not None else float("nan")
-    # the comparisons need only the Cramér–Rao SE: skip their χ² profiles
-    ae = assess_study(study, even, trials=0, profile_chi2=False, model_check=False)
-    se_e = float(ae.target_se) if ae.target_se is not None else float("nan")
-    across = []
-    t = study.target
-    j = model.index(t)
-    sd = float(model.log_beta_sd[j])
-    if sd > 0:
-        for k in (-2, -1, 0, 1, 2):
-            val = float(model.log_beta[j] + k * sd)
-            sa = assess_study(
-                study, rec, trials=0, at={t: val}, profile_chi2=False, model_check=False
-            ).target_se
-            sb = assess_study(
-                study, even, trials=0, at={t: val}, profile_chi2=False, model_check=False
-            ).target_se
-            across.append((val, float(sa), float(sb)))
+    se_e = target_se(study, even)
     eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
+    # with tubes in hand the new batch is judged together with them (planner.jobs.plan.sequential)
+    verdict, reason = _design_verdict(study, a, n) if prior_tubes is None else (None, "")
     return Design(
         rec,
         crit,
@@ -269,12 +259,77 @@ def design_study(
         min(eff, 1.0),
         se_d,
         se_e,
-        tuple(across),
-        t,
+        _se_across(study, rec, even),
+        study.target,
         tuple(notes),
         a.summary(),
         check,
+        verdict,
+        reason,
+        a.limits if prior_tubes is None else None,
     )
+
+
+def _check_and_assess(study: Study, rec, final, crit, check_model, volumetric, seed, prior, notes):
+    """The model check (when the plan asks for it) and the assessment of the recipe it leaves: the
+    assessment simulates the detection power of that recipe only, and prices what would help."""
+    use_check = study.check_weight > 0 if check_model is None else bool(check_model)
+    outcome = None
+    if use_check and study.alternatives and crit == "target":
+        outcome = guard(study, *final, rec, volumetric=volumetric, prior=prior)
+        if outcome.replaced and _budget_overruns(study, outcome.recipe):
+            notes.append("the model-check design would overrun a stock on hand: kept the target-only design")
+        else:
+            rec = outcome.recipe
+    a = assess_study(
+        study,
+        rec,
+        trials=0,
+        seed=seed,
+        detection_trials=POWER_TRIALS if outcome is not None else 0,
+        model_check_fix=DESIGN_FIX if outcome is not None else None,
+        suggest=prior is None,
+    )
+    check = (
+        finish_check(study, outcome, a.detection) if outcome is not None and rec is outcome.recipe else None
+    )
+    return rec, check, a
+
+
+def _se_across(study: Study, rec: Recipe, even: Recipe) -> tuple[tuple[float, float, float], ...]:
+    """SE of the design and of the even series if the target's true log β is the guess ± 1, 2 sd."""
+    model = study.model
+    j = model.index(study.target)
+    sd = float(model.log_beta_sd[j])
+    out = []
+    if sd > 0:
+        for k in (-2, -1, 0, 1, 2):
+            lb = model.log_beta.copy()
+            lb[j] = float(model.log_beta[j] + k * sd)
+            out.append((float(lb[j]), target_se(study, rec, lb), target_se(study, even, lb)))
+    return tuple(out)
+
+
+def _design_verdict(study: Study, a, n: int) -> tuple[str | None, str]:
+    """The assessment's verdict; when the SE misses the goal, by how much and what would reach it."""
+    if a.verdict is None or a.verdict == "resolved":
+        return a.verdict, a.verdict_reason
+    se, goal = a.target_se, study.goal_se
+    reason = a.verdict_reason
+    if se is not None and np.isfinite(se) and se > goal:
+        reason += f": the best design of {n} tubes on these candidates misses the goal by ×{se / goal:.3g}"
+        lim = a.limits
+        reach = lim.reaches_goal if lim is not None else ()
+        if reach:
+            reason += "; what would reach it: " + "; ".join(f"{c.change} (SE {c.se:.3g})" for c in reach[:3])
+        elif lim is not None and lim.best is not None:
+            reason += (
+                f"; no single change on the list reaches it — the best, {lim.best.change}, gives "
+                f"SE {lim.best.se:.3g}: combine changes, or relax design.goal_se"
+            )
+        else:
+            reason += "; no change on the list helps: relax design.goal_se or change the stocks"
+    return a.verdict, reason
 
 
 def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts, prior=None):
