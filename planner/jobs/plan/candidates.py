@@ -51,7 +51,7 @@ __all__ = [
 ]
 
 MAX_CANDIDATES = 40000  # above this the grid is searched coarsely first, then refined locally
-MAX_SAMPLED = 3000  # candidates sampled from a grid too large to list (three or more searched stocks)
+MAX_SAMPLED = 2000  # candidates sampled from a grid too large to list (three or more searched stocks)
 
 
 @dataclass(frozen=True)

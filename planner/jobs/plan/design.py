@@ -480,9 +480,9 @@ def _solve_sampled(study, nodes, crit, n, seed, caps, volumetric, starts, prior,
     g = study.bench
     chem, _ = designed_stocks(study)
     target = study.params.target if crit == "target" else None
-    # diagonal moves refine locally: 1 to 8 grid steps, then doubling up to the longest grid
+    # diagonal moves refine locally: 1 to 4 grid steps, then doubling up to the longest grid
     top = max(lv.size for lv in levels)
-    steps = np.unique(np.concatenate([np.arange(1, 9), 2 ** np.arange(4, max(int(np.log2(top)) + 1, 4))]))
+    steps = np.unique(np.concatenate([np.arange(1, 5), 2 ** np.arange(3, max(int(np.log2(top)) + 1, 3))]))
     shifts = g.step_mL * np.concatenate([-steps[::-1], steps])
     # stocks of the same reagent (M only, L only, or both) at other concentrations stand in for each other
     conc = study.model.stock_conc_M[[study.model.stock_ids.index(s) for s in chem]] > 0
