@@ -7,6 +7,11 @@ design comes from :func:`planner.inference.exchange.exact_design` (Fedorov excha
 :func:`planner.inference.approximate.approximate_design` (checked by the equivalence theorem). Robust
 designs average the criterion over quadrature nodes of the guesses' uncertainty (Chaloner & Larntz
 1989, J. Stat. Plan. Inference 21:191).
+
+The grid is never listed whole when it is large: stocks without M or L get one volume in every tube
+(:func:`_solve`); two searched stocks go coarse-then-fine; three or more start from sampled tubes and are
+refined by coordinate exchange (Meyer & Nachtsheim 1995, Technometrics 37:60; :func:`_solve_sampled`), so
+memory stays flat and time grows about linearly with the number of stocks.
 """
 
 from __future__ import annotations
