@@ -59,7 +59,7 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     t = Table(title="Stocks")
     for c in ("id", "label", "M", "L", "other ions", "rsd", "on hand", "dispenser"):
         t.add_column(c)
-    from ..jobs.compile import plan_devices
+    from ..jobs.devices import plan_devices
     from ..paper.bench_volumes import grid_finer_than_reading
     from ..uncertainty.catalogue import reading_resolution_mL
     from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
