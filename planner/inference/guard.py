@@ -112,7 +112,9 @@ def guarded_design(
         return GuardedDesign(x, float(var), lam, value, 0)
     for _ in range(MAX_MOVES):
         best: tuple[float, int | None, int | None] = (value - IMPROVE, None, None)
-        for i in np.flatnonzero(x).tolist():  # the design's distinct tubes (a handful); each move batched over C
+        for i in np.flatnonzero(
+            x
+        ).tolist():  # the design's distinct tubes (a handful); each move batched over C
             Mi = M - FF[i]
             bi = b - RF[:, i, :]
             si = s - R[:, i] ** 2

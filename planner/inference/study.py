@@ -10,6 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from ..model.compiled import Model
+from ..model.spectra import Spectra
 from ..uncertainty.bench import Bench
 from .precision import Parameters
 from .priors import Nodes, prior_nodes
@@ -38,6 +39,8 @@ class Study:
     alternatives : (name, model) pairs: the main model with one more species each, which a recipe's data
         should be able to tell from the main model (empty: no model check).
     check_weight : weight of the model check in the design criterion (0: precision of the target only).
+    spectra : the species' spectra and the instrument over the window when the plan records whole
+        spectra (:class:`planner.model.spectra.Spectra`), else None (one wavelength).
     """
 
     title: str
@@ -54,6 +57,7 @@ class Study:
     ionic_strength_tolerance: float
     alternatives: tuple[tuple[str, Model], ...] = ()
     check_weight: float = 0.0
+    spectra: Spectra | None = None
 
     def __repr__(self) -> str:
         return (

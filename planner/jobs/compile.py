@@ -22,6 +22,7 @@ from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
 from ..uncertainty import catalogue
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
+from .compile_spectra import build_spectra, table_epsilon_at
 
 __all__ = [
     "MAKE_UP_MIN_FRACTION",
@@ -50,7 +51,10 @@ def build_model(plan: Plan) -> Model:
     rsd = np.zeros(len(absorbers))
     for j, name in enumerate(absorbers):
         e = plan.optics.epsilon.get(name)
-        if e is not None:
+        from_table = table_epsilon_at(plan, name) if e is None else None
+        if from_table is not None:  # a plan with an ε table reads it at wavelength_nm for one wavelength
+            eps[j], rsd[j] = from_table
+        elif e is not None:
             band = plan.optics.bands.get(name)
             factor = optics.bandwidth_factor(plan.optics.bandwidth_nm, band.fwhm_nm if band else None)
             band_ratio[name] = factor
@@ -202,6 +206,7 @@ def compile_study(plan: Plan) -> Study:
         ionic_strength_tolerance=d.ionic_strength_tolerance,
         alternatives=compile_alternatives(plan, model),
         check_weight=d.check_weight if d.check != "none" else 0.0,
+        spectra=build_spectra(plan, model),
     )
 
 
