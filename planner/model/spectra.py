@@ -68,6 +68,25 @@ class Spectra:
     def index_nearest(self, wavelength_nm: float) -> int:
         return int(np.argmin(np.abs(self.wavelength_nm - wavelength_nm)))
 
+    def at(self, wavelength_nm: np.ndarray) -> Spectra:
+        """The same spectra and instrument at other wavelengths inside the window (linear
+        interpolation: the readings of an instrument whose grid differs from the plan's step)."""
+        x = np.asarray(wavelength_nm, dtype=float)
+        w = self.wavelength_nm
+
+        def interp(a: np.ndarray) -> np.ndarray:
+            return np.stack([np.interp(x, w, a[:, j]) for j in range(a.shape[1])], axis=-1)
+
+        return Spectra(
+            x,
+            interp(self.epsilon_M_cm),
+            interp(self.epsilon_rsd),
+            self.free,
+            np.interp(x, w, self.stray_light),
+            interp(self.noise_k),
+            self.display_step,
+        )
+
 
 def throughput(wavelength_nm: np.ndarray, edge_rise: float) -> np.ndarray:
     """Relative light throughput τ(λ) over the window (1 at its centre, 1/edge_rise at its ends)."""

@@ -25,6 +25,7 @@ __all__ = [
     "FORMATS",
     "PAPERS",
     "DataOnlyFetcher",
+    "fit_report",
     "FetchRefused",
     "RenderError",
     "html_to_pdf",
@@ -200,12 +201,31 @@ def report(
     from ..jobs.stocks.needs import stock_needs
 
     summary = assessment.summary()
-    figs = _report_figures(plan, recipe, assessment, summary, fig)
+    if "spectra" in summary:
+        from .spectra_report import report_facts, report_figures
+
+        figs = report_figures(assessment, summary)
+    else:
+        figs = _report_figures(plan, recipe, assessment, summary, fig)
     notes = plan_notes(plan, [n.summary() for n in stock_needs(plan, recipe)])
     ctx = report_context(
         plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design, notes=notes
     )
+    if "spectra" in summary:
+        ctx["facts"] = report_facts(plan, ctx["facts"])
+        ctx["a_heading"] = "Highest A in the window (±2 sd)"
     return _out(render_html("report.html.j2", ctx), fmt)
+
+
+def fit_report(plan, fit, *, kind: str = "pdf", paper: str = "A4", date=None) -> bytes:
+    """The fit report of whole spectra: fitted constants, the fitted spectra with their bands, the
+    singular values and each tube's residuals; ``kind`` "pdf" (bytes of the PDF) or "html"."""
+    from .spectra_report import fit_context
+
+    _check(paper, kind)
+    return _out(
+        render_html("spectra_fit.html.j2", fit_context(plan, fit, paper=paper, date=_date_text(date))), kind
+    )
 
 
 def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:

@@ -548,4 +548,5 @@ def report_context(
         "design": _design_rows(design),
         "window": f"{fmt.sig(SATURATION_WINDOW[0], 1)}–{fmt.sig(SATURATION_WINDOW[1], 1)}",
         "sat_flag": sat_flag,
+        "a_heading": "Expected A (±2 sd)",
     }

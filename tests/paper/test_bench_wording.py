@@ -84,8 +84,9 @@ def test_charge_gap_is_said_at_the_bench():
 def test_footnotes_stay_with_their_tables(n):
     # tables of 3–8 tubes: for some length the table ends at the foot of a page, where its note used
     # to start the next page on its own
-    import pypdf
     import io
+
+    import pypdf
 
     plan = parse_plan_text(scenario_text("teaching"))
     recipe = parse_recipe_csv(

@@ -10,6 +10,7 @@ import shutil
 import subprocess
 
 import numpy as np
+import pypdf
 import pytest
 import tomllib
 from hypothesis import given, settings
@@ -25,8 +26,6 @@ from planner.jobs.stocks.needs import stock_needs
 from planner.paper import figures, fmt, render, safety, sheets
 
 from ..conftest import ROOT, scenario_text
-
-import pypdf
 
 DATE = "2026-12-01"
 TRIALS = 200

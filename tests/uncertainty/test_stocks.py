@@ -39,6 +39,7 @@ from planner.uncertainty.stocks import (
 )
 def test_formula_weight_against_periodictable(ours, theirs):
     import periodictable
+
     # source: periodictable's own atomic-weight table; the two libraries use different IUPAC
     # editions, so agreement to 1e-4 relative is what to expect [derived: differences ≈ 3e-5].
     assert formula_weight_g_mol(ours) == pytest.approx(periodictable.formula(theirs).mass, rel=1e-4)

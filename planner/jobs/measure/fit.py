@@ -377,6 +377,15 @@ def profile_interval(
         th[:, t] = grid
         r = (reading.f(th) - y) @ W.T
         chi2 = np.sum(r * r, axis=1)
+    return profile_crossings(grid, chi2, chi2_min)
+
+
+def profile_crossings(
+    grid: np.ndarray, chi2: np.ndarray, chi2_min: float
+) -> tuple[float | None, float | None]:
+    """Where χ²(grid) − χ²_min crosses 3.84 on each side of its minimum (linear interpolation between
+    grid points); None on a side where it never does."""
+    G = grid.size
     d = np.minimum(chi2 - min(chi2_min, float(np.min(chi2))), 1e300)
     k0 = int(np.argmin(d))
 

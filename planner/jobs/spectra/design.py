@@ -153,6 +153,8 @@ def design_spectra(
             val = float(study.model.log_beta[j] + k * sd)
             across.append((val, _se(study, rec, {study.target: val}), _se(study, even, {study.target: val})))
     eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
+    summary = a.summary()
+    summary["spectra"].update(_single_wavelength_design(study, n, crit, rob, seed))
     return Design(
         rec,
         crit,
@@ -168,9 +170,21 @@ def design_spectra(
         tuple(across),
         study.target,
         tuple(notes),
-        a.summary(),
+        summary,
         None,
     )
+
+
+def _single_wavelength_design(study: Study, n: int, crit: str, rob: bool, seed: int) -> dict:
+    """What designing for the working wavelength alone would give (the plan's ``optics.wavelength_nm``,
+    the single-wavelength design without the model check): its SE there, for the comparison."""
+    from ..plan.design import design_study
+
+    try:
+        d = design_study(study, tubes=n, criterion=crit, robust=rob, seed=seed, check_model=False)
+    except DesignError:
+        return {"se_single_wavelength_design": None}
+    return {"se_single_wavelength_design": d.se_target if np.isfinite(d.se_target) else None}
 
 
 def _exact(study: Study, cand: Candidates, nodes, crit: str, n: int, seed: int, starts: int):

@@ -142,13 +142,21 @@ class Expected:
     weights: Weights
 
 
-def expected(study: Study, recipe: Recipe, sm: SpectraModel, log_beta: np.ndarray | None = None) -> Expected:
-    """Expected readings, budget and weights of ``recipe`` at ``log_beta`` (default: the guesses)."""
+def expected(
+    study: Study,
+    recipe: Recipe,
+    sm: SpectraModel,
+    log_beta: np.ndarray | None = None,
+    used: np.ndarray | None = None,
+) -> Expected:
+    """Expected readings, budget and weights of ``recipe`` at ``log_beta`` (default: the guesses);
+    ``used`` (n, W) overrides which readings enter the fit (default: those below the linear range's top)."""
     model = study.model
     st = predict(model, sm.totals_M, sm.ions_M, log_beta=log_beta, warn=False)
     rd = spectra_readings(sm.spectra, st.absorber_conc_M(), model.path_cm)
     dct = concentration_derivatives(model, st).dc_dtotals  # (n, A, 2)
     dA_dt = model.path_cm * np.einsum("nac,wa->nwc", dct, sm.spectra.epsilon_M_cm)
     budget = spectra_budget(totals_errors(study.bench, model, recipe), dA_dt, rd.linear_sd)
-    used = rd.absorbance <= model.linear_range[1]
+    if used is None:
+        used = rd.absorbance <= model.linear_range[1]
     return Expected(st, rd, budget, used, Weights.of(rd.linear_sd, budget.loadings, budget.mixing, used))
