@@ -93,7 +93,7 @@ def _paper_output(
     if kind == "sheet":
         require_glassware_fits(study.bench, r)  # followed at the bench: every volume must be deliverable
     job = assess_study
-    if kind == "report" and study.spectra is not None:
+    if study.spectra is not None:  # the sheet's design check and expected bands come from whole spectra
         from ..jobs.spectra.assess import assess_spectra as job
     a = _with_progress(
         lambda prog: job(study, r, trials=trials, seed=seed, progress=prog),
