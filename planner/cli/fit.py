@@ -124,17 +124,7 @@ def _print_spectra_fit(f) -> None:
         out.print(f"[yellow]left out[/yellow] {f.wavelengths_left_out} wavelengths outside the plan's window")
     if not f.determined:
         out.print(f"[red]not determined:[/red] {S(f.reason)}")
-    t = Table(title="Fitted constants")
-    for c in ("parameter", "estimate", "SE", "95 % interval (profile)", "SE the plan promised"):
-        t.add_column(c, justify="right")
-    for n, e, se_, pr in zip(f.names, f.estimate, f.se, f.promised_se, strict=True):
-        ci = "—"
-        if n == f"log_beta[{f.target}]" and f.profile_ci95 is not None:
-            lo, hi = f.profile_ci95
-            lo_t = fmt.sig(lo, 4) if lo is not None else "(open)"
-            ci = f"{lo_t} – {fmt.sig(hi, 4) if hi is not None else '(open)'}"
-        t.add_row(S(n), fmt.sig(float(e), 4), fmt.sig(float(se_), 2), ci, fmt.sig(float(pr), 2))
-    out.print(t)
+    out.print(_parameter_table(f, "Fitted constants"))
     if f.dof >= 1 and f.determined:
         out.print(
             f"χ² = {f.chi2:.1f} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, lower tail "
@@ -157,18 +147,13 @@ def _print_spectra_fit(f) -> None:
     out.print(t)
 
 
-def _print_fit(f) -> None:
-    import numpy as np
+def _parameter_table(f, title: str):
+    """Each fitted parameter with its SE, the target's profile interval and the SE the plan promised."""
     from rich.table import Table
 
     from ..paper import fmt
 
-    out.print(f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
-    for tube, why in f.excluded:
-        out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}")
-    if not f.determined:
-        out.print(f"[red]not determined:[/red] {S(f.reason)}")
-    t = Table(title="Fitted parameters")
+    t = Table(title=title)
     for c in ("parameter", "estimate", "SE", "95 % interval (profile)", "SE the plan promised"):
         t.add_column(c, justify="right")
     for n, e, se_, pr in zip(f.names, f.estimate, f.se, f.promised_se, strict=True):
@@ -180,7 +165,19 @@ def _print_fit(f) -> None:
                 f"{fmt.sig(hi, 4) if hi is not None else '(open)'}"
             )
         t.add_row(S(n), fmt.sig(float(e), 4), fmt.sig(float(se_), 2), ci, fmt.sig(float(pr), 2))
-    out.print(t)
+    return t
+
+
+def _print_fit(f) -> None:
+    import numpy as np
+    from rich.table import Table
+
+    out.print(f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
+    for tube, why in f.excluded:
+        out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}")
+    if not f.determined:
+        out.print(f"[red]not determined:[/red] {S(f.reason)}")
+    out.print(_parameter_table(f, "Fitted parameters"))
     if f.dof >= 1 and f.determined:
         out.print(
             f"χ² = {f.chi2:.2f} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, lower "

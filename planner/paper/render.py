@@ -256,21 +256,13 @@ def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
     )
     params = assessment.params
     t = params.target if params is not None else -1
-    if assessment.mc is not None and t >= 0 and assessment.cramer_rao is not None:
-        out.append(
-            {
-                "svg": Markup(
-                    fig.mc_histogram_svg(
-                        assessment.mc.estimates[:, t],
-                        float(assessment.true_theta[t]),
-                        float(assessment.cramer_rao.se[t]),
-                        name=_fmt.param_label(params.names[t]),
-                    )
-                ),
-                "caption": "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal "
-                "curve: matching shapes mean the asymptotic SE holds.",
-            }
-        )
+    mc = fig.assessment_mc_figure(
+        assessment,
+        "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal curve: matching shapes "
+        "mean the asymptotic SE holds.",
+    )
+    if mc is not None:
+        out.append(mc)
     if t >= 0:
         scan = curves.se_scan_data(study, recipe)
         if scan is not None:

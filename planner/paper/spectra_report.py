@@ -45,24 +45,11 @@ def report_figures(assessment, summary: dict) -> list[dict]:
             "caption": "Each tube's expected spectrum; readings above the linear range would be left out.",
         },
     ]
-    params = assessment.params
-    t = params.target if params is not None else -1
-    if assessment.mc is not None and t >= 0 and assessment.cramer_rao is not None:
-        out.append(
-            {
-                "svg": Markup(
-                    fig.mc_histogram_svg(
-                        assessment.mc.estimates[:, t],
-                        float(assessment.true_theta[t]),
-                        float(assessment.cramer_rao.se[t]),
-                        name=fmt.param_label(params.names[t]),
-                    )
-                ),
-                "caption": "Monte-Carlo fits of simulated whole-spectrum experiments against the Cramér–Rao "
-                "normal curve.",
-            }
-        )
-    return out
+    mc = fig.assessment_mc_figure(
+        assessment,
+        "Monte-Carlo fits of simulated whole-spectrum experiments against the Cramér–Rao normal curve.",
+    )
+    return out + ([mc] if mc is not None else [])
 
 
 def report_facts(plan, facts: list) -> list:

@@ -169,7 +169,7 @@ def design_study(
     if crit not in CRITERIA:
         raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
     rob = study.robust if robust is None else bool(robust)
-    model, params = study.model, study.params
+    params = study.params
     if params.size == 0:
         raise DesignError(
             "nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)"
@@ -233,20 +233,14 @@ def design_study(
     # the comparisons need only the Cramér–Rao SE: skip their χ² profiles
     ae = assess_study(study, even, trials=0, profile_chi2=False, model_check=False)
     se_e = float(ae.target_se) if ae.target_se is not None else float("nan")
-    across = []
     t = study.target
-    j = model.index(t)
-    sd = float(model.log_beta_sd[j])
-    if sd > 0:
-        for k in (-2, -1, 0, 1, 2):
-            val = float(model.log_beta[j] + k * sd)
-            sa = assess_study(
-                study, rec, trials=0, at={t: val}, profile_chi2=False, model_check=False
-            ).target_se
-            sb = assess_study(
-                study, even, trials=0, at={t: val}, profile_chi2=False, model_check=False
-            ).target_se
-            across.append((val, float(sa), float(sb)))
+
+    def se_at(recipe: Recipe, at: dict) -> float:
+        return float(
+            assess_study(study, recipe, trials=0, at=at, profile_chi2=False, model_check=False).target_se
+        )
+
+    across = se_across_guess(study, se_at, rec, even)
     eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
     return Design(
         rec,
@@ -266,6 +260,21 @@ def design_study(
         a.summary(),
         check,
     )
+
+
+def se_across_guess(study: Study, se_at, *recipes: Recipe) -> list[tuple[float, ...]]:
+    """(true log β, the SE of each recipe) with the target's true constant at the guess and ±1, ±2 sd
+    from it; ``se_at(recipe, {target: log β})`` gives one SE. Empty when the target is held fixed."""
+    model, t = study.model, study.target
+    j = model.index(t)
+    sd = float(model.log_beta_sd[j])
+    if sd <= 0:
+        return []
+    out = []
+    for k in (-2, -1, 0, 1, 2):
+        val = float(model.log_beta[j] + k * sd)
+        out.append((val, *(float(se_at(r, {t: val})) for r in recipes)))
+    return out
 
 
 def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts, prior=None):

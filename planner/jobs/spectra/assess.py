@@ -25,7 +25,14 @@ from ...model.compiled import TubeState
 from ...model.spectra import spectra_readings
 from ..compile import true_constants
 from ..plan import checks as chk
-from ..plan.assess import DEFAULT_TRIALS, STATUSES, Assessment, _stock_and_glassware_checks, _verdict
+from ..plan.assess import (
+    DEFAULT_TRIALS,
+    STATUSES,
+    Assessment,
+    _stock_and_glassware_checks,
+    _verdict,
+    with_failed_checks,
+)
 from .precision import (
     information_by_wavelength,
     spectra_cramer_rao,
@@ -77,15 +84,7 @@ def assess_spectra(
     if factors:
         fa = factor_check(study, recipe, sm, ex, lb_true, np.random.default_rng(seed + 2))
         checks.append(fa[0])
-    verdict, reason = _verdict(study, params, cr, mc, prof)
-    failed = [c.id for c in checks if c.status == "fail"]
-    if failed and verdict == "resolved":
-        verdict, reason = (
-            "unresolved",
-            f"{reason}, but failed checks: {', '.join(failed)} — fix them and assess again",
-        )
-    elif failed and verdict is not None:
-        reason = f"{reason}; failed checks: {', '.join(failed)}"
+    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof), checks)
     checks.sort(key=lambda c: -STATUSES.index(c.status))
     extra = {"spectra": spectra_summary(sm, ex, cr, single, fa[1] if fa else None)}
     return Assessment(

@@ -33,7 +33,7 @@ from ...model.spectra import spectra_readings
 from ...uncertainty.spectra_budget import totals_errors
 from ..plan import checks as chk
 from ..plan.candidates import Candidates, candidate_tubes, neighbourhood, recipe_from_counts
-from ..plan.design import Design
+from ..plan.design import Design, se_across_guess
 from ..plan.even import even_series_for
 from .assess import assess_spectra
 from .precision import spectra_cramer_rao
@@ -145,13 +145,7 @@ def design_spectra(
     even = even_series_for(study, n)
     se_d = _se(study, rec)
     se_e = _se(study, even)
-    across = []
-    j = study.model.index(study.target)
-    sd = float(study.model.log_beta_sd[j])
-    if sd > 0:
-        for k in (-2, -1, 0, 1, 2):
-            val = float(study.model.log_beta[j] + k * sd)
-            across.append((val, _se(study, rec, {study.target: val}), _se(study, even, {study.target: val})))
+    across = se_across_guess(study, lambda r, at: _se(study, r, at), rec, even)
     eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
     summary = a.summary()
     summary["spectra"].update(_single_wavelength_design(study, n, crit, rob, seed))

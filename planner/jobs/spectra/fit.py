@@ -31,9 +31,17 @@ from ...inputs.recipe import RecipeError, totals_M
 from ...inputs.spectra_readings import SpectraReadings
 from ...model.compiled import tube_ions_M
 from ...model.spectra import linearise
-from ..measure.fit import CHI2_TAIL, N_STARTS, PROFILE_HALF_WIDTH_SE, _not_determined, profile_crossings
+from ..measure.fit import (
+    N_STARTS,
+    PROFILE_HALF_WIDTH_SE,
+    _not_determined,
+    chi2_verdict,
+    fit_summary_head,
+    json_float,
+    profile_crossings,
+)
 from .assess import expected_factors
-from .precision import bounds, spectra_cramer_rao
+from .precision import bounds, profile_chi2, spectra_cramer_rao
 from .reading import Expected, SpectraModel, expected, spectral_parameters
 
 TUBE_OUTLIER_P = 0.001  # a tube whose readings' χ² is this improbable is marked [common practice]
@@ -88,19 +96,7 @@ class SpectraFit:
 
     @property
     def chi2_verdict(self) -> str:
-        if self.dof < 1 or not np.isfinite(self.chi2):
-            return "no degrees of freedom left: χ² cannot test the fit (add tubes)"
-        if self.p_value < CHI2_TAIL:
-            return (
-                "the scatter is larger than the error model predicts: look for a bad tube, drift or a wrong "
-                "model"
-            )
-        if self.p_low < CHI2_TAIL:
-            return (
-                "the scatter is suspiciously small for the error model: it may be too pessimistic, or the "
-                "readings were smoothed"
-            )
-        return "the scatter matches the error model"
+        return chi2_verdict(self)
 
     @property
     def factor_verdict(self) -> str:
@@ -130,34 +126,10 @@ class SpectraFit:
         return self.tube_p < TUBE_OUTLIER_P
 
     def summary(self) -> dict:
-        def f(x):
-            x = float(x) if x is not None else float("nan")
-            return x if np.isfinite(x) else None
-
-        t = self.names.index(f"log_beta[{self.target}]") if f"log_beta[{self.target}]" in self.names else -1
-        params = []
-        for k, (n, e, s, p) in enumerate(
-            zip(self.names, self.estimate, self.se, self.promised_se, strict=True)
-        ):
-            row = {"name": n, "estimate": f(e), "se": f(s), "promised_se": f(p)}
-            if k == t:
-                ci = self.profile_ci95
-                row["profile_ci95"] = [f(ci[0]), f(ci[1])] if ci is not None else None
-            params.append(row)
+        f = json_float
         fa = self.factors
         return {
-            "title": self.title,
-            "target": self.target,
-            "converged": self.converged,
-            "determined": self.determined,
-            "reason": self.reason,
-            "parameters": params,
-            "chi2": f(self.chi2),
-            "dof": self.dof,
-            "p_value": f(self.p_value),
-            "p_low": f(self.p_low),
-            "chi2_verdict": self.chi2_verdict,
-            "excluded": [{"tube": tb, "reason": r} for tb, r in self.excluded],
+            **fit_summary_head(self),
             "tubes": [
                 {"tube": tb, "rms_standardised": f(rms), "p_value": f(p), "outlier": bool(o)}
                 for tb, rms, p, o in zip(
@@ -348,37 +320,8 @@ def _spectra_with_se(prob: SeparableProblem, theta: np.ndarray, cov_theta: np.nd
 
 def _profile_interval(sm: SpectraModel, Y: np.ndarray, ex: Expected, theta, se, chi2_min: float):
     """Profile-likelihood 95 % interval of the target (Venzon & Moolgavkar 1988, Appl. Stat. 37:87)."""
-    params = sm.params
-    t = params.target
+    t = sm.params.target
     half = max(PROFILE_HALF_WIDTH_SE * float(se[t]), 0.5)
-    lo, hi = bounds(params)
+    lo, hi = bounds(sm.params)
     grid = np.clip(theta[t] + np.linspace(-half, half, 41), lo[t], hi[t])
-    G = grid.size
-    others = [p for p in range(params.size) if p != t]
-
-    def full(sub):
-        th = np.empty((G, params.size))
-        th[:, others] = sub
-        th[:, t] = grid
-        return th
-
-    def basis(sub):
-        C, dC, K, dK = sm.basis(full(sub))
-        return C, dC[..., others], K, dK[..., others]
-
-    prob = SeparableProblem(basis, np.broadcast_to(Y, (G,) + Y.shape), ex.weights)
-    sub0 = np.broadcast_to(theta[others], (G, len(others))).copy()
-    if others:
-        res = fit_many(
-            prob.f,
-            sub0,
-            prob.y(len(others)),
-            jac=prob.jac,
-            scale_cov=False,
-            lower=lo[others],
-            upper=hi[others],
-        )
-        chi2 = np.where(np.isfinite(res.chi2), res.chi2, np.inf)
-    else:
-        chi2 = prob.evaluate(sub0)["chi2"]
-    return profile_crossings(grid, chi2, chi2_min)
+    return profile_crossings(grid, profile_chi2(sm, ex.weights, Y, theta, grid), chi2_min)

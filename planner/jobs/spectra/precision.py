@@ -129,18 +129,12 @@ def _summary(est: np.ndarray, ok: np.ndarray, true_theta: np.ndarray) -> MonteCa
     return MonteCarlo(est, np.asarray(true_theta, dtype=float), sd, bias, ci, float(1.0 - ok.mean()))
 
 
-def spectra_profile(
-    sm: SpectraModel, weights: Weights, true_theta: np.ndarray, *, n_grid: int = 25
-) -> Profile:
-    """Δχ² of the noise-free spectra over the target's log β, the other constants and every spectrum
-    refitted (Raue et al. 2009, Bioinformatics 25:1923, as :func:`planner.inference.precision.profile`)."""
+def profile_chi2(sm: SpectraModel, weights: Weights, Y: np.ndarray, theta: np.ndarray, grid: np.ndarray):
+    """(G,) χ² of the spectra Y (n, W) with the target's log β at each ``grid`` value, the other
+    constants and every spectrum refitted (all grid points in one batch)."""
     params = sm.params
     t = params.target
-    inner = true_theta[t] + np.linspace(-3.0, 3.0, n_grid)
-    low, high = _limit_ends(_Reading(sm), true_theta)
-    grid = np.concatenate([[low], inner, [high]])
     G = grid.size
-    Y0 = np.broadcast_to(sm.linear_readings(true_theta[None]), (G,) + (sm.totals_M.shape[0], sm.spectra.size))
     others = [p for p in range(params.size) if p != t]
 
     def full(sub):
@@ -153,22 +147,27 @@ def spectra_profile(
         C, dC, K, dK = sm.basis(full(sub))
         return C, dC[..., others], K, dK[..., others]
 
-    prob = SeparableProblem(basis, Y0, weights)
-    sub0 = np.broadcast_to(true_theta[others], (G, len(others))).copy()
-    if others:
-        lo, hi = bounds(params)
-        res = fit_many(
-            prob.f,
-            sub0,
-            prob.y(len(others)),
-            jac=prob.jac,
-            scale_cov=False,
-            lower=lo[others],
-            upper=hi[others],
-        )
-        chi2 = np.where(np.isfinite(res.chi2), res.chi2, np.inf)
-    else:
-        chi2 = prob.evaluate(sub0)["chi2"]
+    prob = SeparableProblem(basis, np.broadcast_to(Y, (G,) + Y.shape), weights)
+    sub0 = np.broadcast_to(theta[others], (G, len(others))).copy()
+    if not others:
+        return prob.evaluate(sub0)["chi2"]
+    lo, hi = bounds(params)
+    res = fit_many(
+        prob.f, sub0, prob.y(len(others)), jac=prob.jac, scale_cov=False, lower=lo[others], upper=hi[others]
+    )
+    return np.where(np.isfinite(res.chi2), res.chi2, np.inf)
+
+
+def spectra_profile(
+    sm: SpectraModel, weights: Weights, true_theta: np.ndarray, *, n_grid: int = 25
+) -> Profile:
+    """Δχ² of the noise-free spectra over the target's log β, the other constants and every spectrum
+    refitted (Raue et al. 2009, Bioinformatics 25:1923, as :func:`planner.inference.precision.profile`)."""
+    t = sm.params.target
+    inner = true_theta[t] + np.linspace(-3.0, 3.0, n_grid)
+    low, high = _limit_ends(_Reading(sm), true_theta)
+    grid = np.concatenate([[low], inner, [high]])
+    chi2 = profile_chi2(sm, weights, sm.linear_readings(true_theta[None])[0], true_theta, grid)
     return Profile(grid, chi2, bool(chi2[0] < CHI2_95_1DOF), bool(chi2[-1] < CHI2_95_1DOF))
 
 
