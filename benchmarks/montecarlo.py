@@ -29,7 +29,7 @@ try:  # the project's cancellation-free 1:1 solver, when present
 except ImportError:  # pragma: no cover - early in the project's life
 
     def one_to_one(M_tot_M, L_tot_M, K):
-        """Exact [ML] of a 1:1 complex, cancellation-free root of K(M0−c)(L0−c) = c (domain.md §1)."""
+        """Exact [ML] of a 1:1 complex, cancellation-free root of K(M0−c)(L0−c) = c."""
         m0, l0, k = np.asarray(M_tot_M), np.asarray(L_tot_M), np.asarray(K)
         s = m0 + l0 + 1.0 / k
         disc = (m0 - l0) ** 2 + (2.0 * (m0 + l0) + 1.0 / k) / k

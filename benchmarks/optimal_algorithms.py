@@ -1,4 +1,5 @@
-"""Benchmark of planner.optimal on a tube-design-sized problem, against textbook baselines run here.
+"""Benchmark of planner.inference.approximate and exchange on a tube-design-sized problem, against textbook
+baselines run here.
 
 Problem: a 1:1 complex, 6 parameters (log10 K, ε_ML, ε_L, blank, metal and ligand stock factors with
 a 1 % prior), 20,000 candidate tubes (100 metal × 200 ligand concentrations), 9 prior nodes over

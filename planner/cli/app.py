@@ -18,35 +18,42 @@ from rich.markup import escape
 from ..inputs.errors import InputError
 from ..inputs.text import visible
 
+_TYPE_NAMES = {"<path>": "PATH", "<int>": "INTEGER", "<str>": "TEXT", "<float>": "FLOAT", "<bool>": ""}
+
+
+def _plain_type_name(param) -> None:
+    """Help shows a parameter's value type the usual way (PATH, INTEGER, TEXT; nothing for a flag) instead
+    of typer's ``<path>``, ``<int>``, ``<bool>``. Set on our own parameter objects (typer has no setting
+    for it); no typer class is changed."""
+    shown = param.display_type_rich
+
+    def display_type_rich(ctx):
+        label = shown(ctx)
+        return _TYPE_NAMES.get(label, label) if isinstance(label, str) else label
+
+    param.display_type_rich = display_type_rich
+
+
+class _Commands(typer.core.TyperGroup):
+    """The command group: each command it hands out shows plain value types in its help."""
+
+    def get_command(self, ctx, cmd_name):
+        cmd = super().get_command(ctx, cmd_name)
+        if cmd is not None and not getattr(cmd, "_kplan_plain", False):
+            for param in cmd.get_params(ctx):
+                _plain_type_name(param)
+            cmd._kplan_plain = True
+        return cmd
+
+
 app = typer.Typer(
     name="kplan",
+    cls=_Commands,
     help="Plan, check and fit absorbance experiments that measure metal–ligand formation constants.",
     no_args_is_help=True,
     add_completion=True,  # --install-completion / --show-completion for bash, zsh, fish, PowerShell
     pretty_exceptions_enable=False,
 )
-
-_TYPE_NAMES = {"<path>": "PATH", "<int>": "INTEGER", "<str>": "TEXT", "<float>": "FLOAT", "<bool>": ""}
-
-
-def _plain_type_names() -> None:
-    """Help shows value types the usual way (PATH, INTEGER, TEXT; nothing for flags) instead of typer's
-    ``<path>``, ``<int>``, ``<bool>``: typer offers no setting for it, so its label is mapped once here."""
-    core = getattr(typer, "core", None)
-    base = getattr(core, "_TyperParameter", None)
-    original = getattr(base, "display_type", None)
-    if original is None or getattr(original, "_kplan", False):
-        return
-
-    def display_type(self, ctx):
-        label = original(self, ctx)
-        return _TYPE_NAMES.get(label, label) if isinstance(label, str) else label
-
-    display_type._kplan = True
-    base.display_type = display_type
-
-
-_plain_type_names()
 
 PIPED_WIDTH = 160  # tables written to a file or a pipe: wide enough that names are not cut
 

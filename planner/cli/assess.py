@@ -54,8 +54,9 @@ def assess(
     r = read_points(recipe, p, study)
     at_values = parse_at(at or [])
     job = assess_spectra if study.spectra is not None else assess_study
+    extra = {} if study.spectra is not None else {"suggest": True}  # what would help: one wavelength
     a = _with_progress(
-        lambda prog: job(study, r, trials=trials, seed=seed, at=at_values, progress=prog),
+        lambda prog: job(study, r, trials=trials, seed=seed, at=at_values, progress=prog, **extra),
         trials,
         quiet=as_json,
         tubes=r.n_tubes * (study.spectra.size // 20 + 1 if study.spectra is not None else 1),

@@ -10,8 +10,11 @@ from typing import Annotated
 import typer
 
 from ..inputs.choices import PAPERS as PAPER_CHOICES
+from ..inputs.limits import MAX_CARDS, MAX_TUBES
+from ..inputs.text import plural
 from .app import UserError, app, dump_json, err, out
 from .app import safe_text as S
+from .options import count_option
 
 OUTPUTS = ("cards.pdf", "key.pdf", "key.csv", "key.xlsx", "stocks.pdf", "stocks.csv")
 
@@ -40,7 +43,9 @@ def cards(
     ] = None,
     count: Annotated[
         int | None,
-        typer.Option(help="number of students, without a roster (ids S01, S02, …)", min=1, metavar="INTEGER"),
+        count_option(
+            f"number of students, without a roster (ids S01, S02, …; at most {MAX_CARDS})", MAX_CARDS
+        ),
     ] = None,
     out_dir: Annotated[
         Path, typer.Option("--out", help="folder for the cards, the key and the stock list", metavar="PATH")
@@ -49,7 +54,7 @@ def cards(
         int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")
     ] = 0,
     tubes: Annotated[
-        int | None, typer.Option(help="tubes per student (overrides design.tubes)", min=1, metavar="INTEGER")
+        int | None, count_option("tubes per student's card (overrides design.tubes)", MAX_TUBES)
     ] = None,
     sections: Annotated[
         int | None,
@@ -75,7 +80,7 @@ def cards(
         raise UserError("give either --roster FILE or --count N (one of them)")
     if paper not in PAPER_CHOICES:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPER_CHOICES)}")
-    check_output_folder(out_dir)  # before the work, not after it
+    check_output_folder(out_dir, OUTPUTS, (plan, roster_path))  # before the work, not after it
     p = load_plan(plan)
     roster = read_roster_csv(roster_path) if roster_path is not None else roster_of_count(count)
     roster = _sections(roster, sections)
@@ -126,14 +131,17 @@ def _print(cs, stocks, out_dir: Path) -> None:
 
     se = cs.se
     n = len(cs.cards)
-    out.print(f"[bold]{S(cs.title)}[/bold]: {n} cards of {cs.best.n_tubes} tubes, seed {cs.seed}")
+    out.print(
+        f"[bold]{S(cs.title)}[/bold]: {plural(n, 'card')} of {plural(cs.best.n_tubes, 'tube')}, "
+        f"seed {cs.seed}"
+    )
     out.print(
         f"  SE of log β[{cs.target}]: one card {fmt.sig(se['cards_median'], 2)} (median; worst "
         f"{fmt.sig(se['cards_max'], 2)}, goal {fmt.sig(cs.goal_se, 2)})"
     )
     out.print(
-        f"  class pooled {fmt.sig(se['pooled'], 2)}; {n} copies of the best recipe "
-        f"{fmt.sig(se['pooled_best_copies'], 2)}; {n} copies of the even series "
+        f"  class pooled {fmt.sig(se['pooled'], 2)}; {plural(n, 'copy', 'copies')} of the best recipe "
+        f"{fmt.sig(se['pooled_best_copies'], 2)}; {plural(n, 'copy', 'copies')} of the even series "
         f"{fmt.sig(se['pooled_even_copies'], 2)}; stock errors left out "
         f"{fmt.sig(se['pooled_without_stock'], 2)}"
     )

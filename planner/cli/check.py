@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.text import plural
 from .app import app, out
 from .app import safe_text as S
 
@@ -60,15 +61,19 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     t = Table(title="Stocks")
     for c in ("id", "label", "M", "L", "other ions", "rsd", "on hand", "dispenser"):
         t.add_column(c)
+    from ..jobs.compile import plan_devices
+    from ..paper.bench_volumes import grid_finer_than_reading
+    from ..uncertainty.catalogue import reading_resolution_mL
+    from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
+
+    devices = plan_devices(p)
+    by_stock = {
+        st.id: devices.items[j] for st, j in zip(p.stock, devices.stock_device, strict=True) if j >= 0
+    }
     for s in p.stock:
-        d = p.dispenser_for(s.id)
-        # a micropipette has no class (ISO 8655 limits instead of class A/B tolerances)
-        cls = f" ({d.cls})" if d and d.kind != "micropipette" else ""
-        disp = (
-            f"{d.kind} {d.capacity_mL:g} mL{cls}"
-            if d
-            else ("diluent" if s.diluent else "[yellow]none[/yellow]")
-        )
+        # the catalogue's name: no class for piston devices or a device given by its tolerance alone
+        item = by_stock.get(s.id)
+        disp = S(item.label) if item else ("diluent" if s.diluent else "[yellow]none[/yellow]")
         t.add_row(
             S(s.id),
             S(s.label),
@@ -82,22 +87,23 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     out.print(t)
     g = p.glassware
     out.print(
-        f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL, "
+        f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL "
+        f"(volumes printed with {fmt.step_decimals(g.step_mL)} decimals), "
         f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL"
     )
-    from ..jobs.compile import plan_devices
-    from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
-
-    devices = plan_devices(p)
-    t = Table(title="Glassware (from the catalogue)")
-    for c in ("device", "tolerance", "u, full delivery", "source", "delivers"):
+    t = Table(title="Glassware (from the catalogue and the plan)")
+    for c in ("device", "tolerance", "read to", "random sd", "u, full delivery", "source", "delivers"):
         t.add_column(c)
     for d, item in zip(p.glassware.dispenser, devices.items, strict=True):
         du = delivery_uncertainty(item, np.array([item.capacity_mL]))
         src = item.source + (" (from memory)" if item.from_memory else "")
+        res = reading_resolution_mL(item)
+        rand = f"{float(du.random_mL[0]):.2g} mL" + (" (measured)" if item.repeatability_mL else "")
         t.add_row(
             S(item.label),
             f"± {item.tolerance_mL:g} mL",
+            f"{res:g} mL" if res else ("the mark" if item.kind == "pipette" else "—"),
+            rand,
             f"{float(du.combined_mL[0]):.3g} mL",
             S(src),
             S(", ".join(d.stocks)),
@@ -108,16 +114,28 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
         t.add_row(
             S(fl.label),
             f"± {fl.tolerance_mL:g} mL",
+            "the mark",
+            "—",
             f"{flask_volume_uncertainty(fl):.3g} mL",
             S(src),
             "make-up of every tube",
         )
     out.print(t)
+    for label, step, res in grid_finer_than_reading(p):
+        out.print(
+            f"[yellow]warning:[/yellow] the grid (step = {step:g} mL) is finer than the {S(label)} is read "
+            f"({res:g} mL): the sheet's volumes ask for more than the device shows; use a step of at least "
+            f"{res:g} mL or state the device's graduation"
+        )
     d = p.design
     out.print(
-        f"Design: {d.tubes} tubes, target {S(p.target)}, criterion {d.criterion}, "
+        f"Design: {plural(d.tubes, 'tube')}, target {S(p.target)}, criterion {d.criterion}, "
         f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
-        + (f", fixed {S(', '.join(f'{k} {v:g} mL' for k, v in d.fixed.items()))}" if d.fixed else "")
+        + (
+            f", fixed {S(', '.join(f'{k} {fmt.volume(v, g.step_mL)} mL' for k, v in d.fixed.items()))}"
+            if d.fixed
+            else ""
+        )
     )
     # a stock that is measured out needs a dispenser (the diluent under to-mark is poured to the mark;
     # a titration's cell and titrant are checked by the schedule)

@@ -8,9 +8,11 @@ from typing import Annotated
 import typer
 
 from ..inputs.choices import CRITERIA as DESIGN_CRITERIA
+from ..inputs.limits import MAX_ADDITIONS
+from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import MAX_TUBES
+from .options import MAX_TUBES, count_option
 
 
 @app.command()
@@ -19,11 +21,10 @@ def design(
     out_dir: Annotated[
         Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")
     ] = None,
-    tubes: Annotated[
+    tubes: Annotated[int | None, count_option("number of tubes (overrides design.tubes)", MAX_TUBES)] = None,
+    additions: Annotated[
         int | None,
-        typer.Option(
-            help="number of tubes (overrides design.tubes)", min=1, max=MAX_TUBES, metavar="INTEGER"
-        ),
+        count_option("titration plans: number of additions (overrides titration.additions)", MAX_ADDITIONS),
     ] = None,
     criterion: Annotated[
         str | None,
@@ -67,10 +68,16 @@ def design(
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
     if out_dir is not None:
-        check_output_folder(out_dir)  # before the search, not after it
+        # before the search, not after it; the outputs may not overwrite the plan or the readings
+        check_output_folder(out_dir, ("recipe.csv", "schedule.csv", "design.json"), (plan, after))
     p = load_plan(plan)
     if p.titration is not None:
-        return _titration(p, out_dir, tubes, robust, as_json)
+        if tubes is not None and additions is not None:
+            raise UserError("--tubes and --additions: a titration plan takes --additions only")
+        # --tubes is the older spelling of --additions on a titration plan (the points are additions)
+        return _titration(p, out_dir, additions if additions is not None else tubes, robust, as_json)
+    if additions is not None:
+        raise UserError("--additions applies to titration plans ([titration]); use --tubes for tubes")
     if after is not None:
         return _next_batch(p, after, out_dir, tubes, robust, seed, as_json)
     if p.optics.has_spectra:
@@ -91,11 +98,13 @@ def design(
         )
     if as_json:
         print(dump_json(summary))
-        return
-    print_design(d, p)
-    print_spectra(summary, p.target, p.optics.wavelength_nm)
-    if out_dir is not None:
-        out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
+    else:
+        print_design(d, p)
+        print_spectra(summary, p.target, p.optics.wavelength_nm)
+        if out_dir is not None:
+            out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
+    if d.verdict is not None and d.verdict != "resolved":
+        raise typer.Exit(1)  # the best design cannot reach goal_se (or fails a check): README, exit codes
 
 
 def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, as_json: bool) -> None:
@@ -122,14 +131,14 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
     if as_json:
         print(dump_json(summary))
         return
-    out.print(f"[bold]{S(p.title)}[/bold] — after {nb.fit.recipe.n_tubes} readings")
+    out.print(f"[bold]{S(p.title)}[/bold] — after {plural(nb.fit.recipe.n_tubes, 'reading')}")
     for n, e, se_ in zip(nb.fit.names, nb.fit.estimate, nb.fit.se, strict=True):
         out.print(f"  {S(n)} = {fmt.sig(float(e), 4)} ± {fmt.sig(float(se_), 2)}")
     if nb.stop:
         out.print(f"[yellow]stop:[/yellow] {S(nb.reason)}")
         return
     out.print(f"[bold]{S(nb.reason)}[/bold]")
-    out.rule(f"the next {nb.design.recipe.n_tubes} tubes")
+    out.rule(f"the next {plural(nb.design.recipe.n_tubes, 'tube')}")
     print_design(nb.design, p)
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'design.json'}")
@@ -161,19 +170,21 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
     out.print(f"[bold]{S(p.title)}[/bold] — titration schedule")
     out.print(
         f"cell: {t.start_volume_mL:g} mL of {S(t.cell)}; titrant {S(d.titrant)}; "
-        f"{d.schedule.aliquot_mL.size} additions; {d.candidates} schedules tried, {d.feasible} inside the "
+        f"{plural(d.schedule.aliquot_mL.size, 'addition')}; {plural(d.candidates, 'schedule')} tried, "
+        f"{d.feasible} inside the "
         f"linear range over the guess's range"
     )
     tab = Table(title="Designed schedule")
     for c in ("step", "aliquot / mL", "added so far / mL", "cell / mL", "A ± sd"):
         tab.add_column(c, justify="right")
     rows = summary["tubes"]
+    cell_dec = max(fmt.step_decimals(t.step_mL), fmt.step_decimals(t.start_volume_mL))
     for i, step in enumerate(d.schedule.steps):
         tab.add_row(
             S(step),
-            f"{d.schedule.aliquot_mL[i]:.3f}",
-            f"{d.schedule.added_mL[i]:.3f}",
-            f"{t.start_volume_mL + d.schedule.added_mL[i]:.3f}",
+            fmt.volume(d.schedule.aliquot_mL[i], t.step_mL),
+            fmt.volume(d.schedule.added_mL[i], t.step_mL),
+            f"{t.start_volume_mL + d.schedule.added_mL[i]:.{cell_dec}f}",
             f"{rows[i]['absorbance']:.3f} ± {rows[i]['absorbance_sd']:.3f}",
         )
     out.print(tab)

@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 
@@ -57,7 +58,7 @@ def fit(
     study = compile_study(p)
     skip = tuple(x.strip() for x in (exclude or "").split(",") if x.strip())
     if study.spectra is not None:
-        return _fit_spectra(p, study, readings, recipe, skip, keep_out_of_range, as_json, report)
+        return _fit_spectra(p, study, (plan, readings), recipe, skip, keep_out_of_range, as_json, report)
     if recipe is not None or report is not None:
         raise UserError(
             "--recipe and --report are for plans with whole spectra (optics.spectra or window_nm)"
@@ -73,15 +74,16 @@ def fit(
         raise typer.Exit(1)
 
 
-def _fit_spectra(p, study, readings: Path, recipe: Path | None, skip, keep, as_json: bool, report) -> None:
+def _fit_spectra(p, study, paths: tuple[Path, Path], recipe: Path | None, skip, keep, as_json: bool, report):
     """``kplan fit`` of whole spectra: the constants, the fitted spectra and the factor analysis."""
     from ..inputs.files import check_output_file, write_atomic_bytes
     from ..inputs.recipe import read_recipe_csv
     from ..inputs.spectra_readings import read_spectra_readings
     from ..jobs.spectra.fit import fit_spectra
 
+    readings = paths[1]
     if report is not None:
-        check_output_file(report)
+        check_output_file(report, inputs=(*paths, recipe))
     data = read_spectra_readings(readings, p)
     if recipe is not None:
         data = data.with_recipe(read_recipe_csv(recipe, p), str(recipe))
@@ -172,7 +174,9 @@ def _print_fit(f) -> None:
     import numpy as np
     from rich.table import Table
 
-    out.print(f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {f.recipe.n_tubes} readings")
+    out.print(
+        f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {plural(f.recipe.n_tubes, 'reading')}"
+    )
     for tube, why in f.excluded:
         out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}")
     if not f.determined:

@@ -8,6 +8,7 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 
@@ -37,7 +38,7 @@ def grade(
     student not flagged, and the likely mix-up behind each flagged student."""
     from rich.table import Table
 
-    from ..inputs.files import write_atomic, write_atomic_bytes
+    from ..inputs.files import check_output_folder, write_atomic, write_atomic_bytes
     from ..inputs.gradebook import read_key, read_results
     from ..inputs.plan import load_plan
     from ..jobs.classroom.grade import grade_class
@@ -48,6 +49,10 @@ def grade(
 
     if paper not in PAPERS:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
+    if out_dir is not None:  # before the work; the outputs may not overwrite an input
+        names = ("grades.csv", "grades.xlsx", "grades.html" if html else "grades.pdf")
+        key_file = key_dir / "key.csv" if key_dir.is_dir() else key_dir
+        check_output_folder(out_dir, names, (plan, key_file, results))
     p = load_plan(plan)
     study = compile_study(p)
     g = grade_class(study, read_key(key_dir, p), read_results(results))
@@ -62,7 +67,7 @@ def grade(
     if as_json:
         print(dump_json(summary))
         return
-    out.print(f"[bold]{S(g.title)}[/bold] — {len(g.students)} students")
+    out.print(f"[bold]{S(g.title)}[/bold] — {plural(len(g.students), 'student')}")
     pooled = summary["pooled"]
     if pooled is not None:
         for prm in pooled["parameters"]:
@@ -70,7 +75,7 @@ def grade(
             out.print(
                 f"pooled {S(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
                 + (f" (95 % {fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)})" if ci and None not in ci else "")
-                + f" from {pooled['students']} students; {S(pooled['chi2_verdict'])}"
+                + f" from {plural(pooled['students'], 'student')}; {S(pooled['chi2_verdict'])}"
             )
     t = Table(title="Students")
     for c in ("student", "name", "verdict", "in band", "own log β", "likely mix-up"):

@@ -5,10 +5,18 @@ from __future__ import annotations
 
 import math
 
+from ..inputs.limits import MAX_TRIALS as MAX_TRIALS  # the limits are defined once, in inputs/limits
+from ..inputs.limits import MAX_TUBES as MAX_TUBES
 from .app import UserError, err
 
-MAX_TRIALS = 100_000  # Monte-Carlo experiments: 2000 give an SE to a few per cent; far more only takes hours
-MAX_TUBES = 200  # tubes a design may have (the plan's design.tubes has the same limit)
+
+def count_option(help: str, limit: int, *, hidden: bool = False):
+    """A whole-number option from 1 to ``limit`` (a bound from :mod:`planner.inputs.limits`)."""
+    import typer
+
+    return typer.Option(help=help, min=1, max=limit, metavar="INTEGER", hidden=hidden)
+
+
 LOG_BETA_RANGE = (-50.0, 60.0)  # the plan's bound on log_beta
 
 

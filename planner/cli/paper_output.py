@@ -85,7 +85,7 @@ def _paper_output(
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
     fmt_ = "html" if html else "pdf"
     # every input and the output path are checked before the Monte Carlo, which may take a while
-    check_output_file(out_path)
+    check_output_file(out_path, inputs=(plan, recipe, design_json))
     design_summary = read_design_json(design_json) if design_json is not None else None
     p = load_plan(plan)
     study = compile_study(p)

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import sys
 from pathlib import Path
 from typing import Annotated
@@ -10,7 +9,21 @@ from typing import Annotated
 import typer
 
 from ..inputs.choices import SERIES_METHODS as METHODS
-from .app import UserError, app, out
+from ..inputs.limits import MAX_REPLICATES, MAX_TUBES
+from .app import UserError, app, dump_json, out
+from .app import safe_text as S
+from .options import count_option
+
+# the series' parameters, as the options that set them
+OPTION_OF = {
+    "points": "--points",
+    "total": "--total",
+    "excess": "--excess",
+    "limiting": "--limiting",
+    "replicates": "--replicates",
+    "vary": "--vary",
+    "max_ratio": "--max-ratio",
+}
 
 
 @app.command()
@@ -25,10 +38,8 @@ def series(
     ] = False,
     points: Annotated[
         int | None,
-        typer.Option(
-            help="job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)",
-            min=1,
-            metavar="INTEGER",
+        count_option(
+            "job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", MAX_TUBES
         ),
     ] = None,
     total: Annotated[
@@ -57,9 +68,11 @@ def series(
             metavar="TEXT",
         ),
     ] = None,
+    replicates: Annotated[
+        int | None, count_option("calibration: replicate calibration tubes (default 1)", MAX_REPLICATES)
+    ] = None,
     tubes: Annotated[
-        int | None,
-        typer.Option(help="calibration: replicate calibration tubes (default 1)", min=1, metavar="INTEGER"),
+        int | None, count_option("older spelling of --replicates", MAX_REPLICATES, hidden=True)
     ] = None,
     vary: Annotated[
         str | None,
@@ -87,20 +100,22 @@ def series(
     conversion' tube (calibration), the mole-ratio series (mole-ratio), the wavelength survey over the
     plan's bands (survey) — and say whether it can answer its question: exit 0 when it can, 1 when it
     cannot."""
-    from ..inputs.files import write_atomic
+    from ..inputs.files import check_output_folder
     from ..inputs.plan import load_plan
-    from ..inputs.recipe import recipe_to_csv
     from ..inputs.units import UnitError, parse_quantity
-    from ..jobs.classic import METHOD_OPTIONS, METHODS, run_series
+    from ..jobs.classic import METHOD_OPTIONS, METHODS
 
     if method not in METHODS:
         raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
+    if tubes is not None and replicates is not None:
+        raise UserError("--tubes is the older spelling of --replicates: give one of them")
+    replicates = replicates if replicates is not None else tubes
     given_opts = {
         "points": points,
         "total": total,
         "limiting": limiting,
         "excess": excess,
-        "tubes": tubes,
+        "replicates": replicates,
         "vary": vary,
         "max-ratio": max_ratio,
         "recipe": recipe,
@@ -121,60 +136,93 @@ def series(
             raise UserError(f"{name} {value}: {exc}") from None
 
     total_M, excess_M = conc("--total", total), conc("--excess", excess)
+    if out_dir is not None:  # before the work; the outputs may not overwrite the plan or the recipe
+        check_output_folder(out_dir, ("recipe.csv", "series.json"), (plan, recipe))
     p = load_plan(plan)
     given = None
     if recipe is not None:
         from ..inputs.recipe import read_recipe_csv
 
         given = read_recipe_csv(recipe, p)
-    r = run_series(
-        p,
-        method,
-        points=points,
-        total_M=total_M,
-        tubes=tubes,
-        limiting=limiting,
-        excess_M=excess_M,
-        vary=vary,
-        max_ratio=max_ratio,
-        recipe=given,
-    )
-    summary = r.summary()
-    text = json.dumps(summary, indent=2, allow_nan=False)
+    r = _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given)
+    text = dump_json(r.summary())
     if out_dir is not None:
-        write_atomic(out_dir / "recipe.csv", recipe_to_csv(r.recipe, p))
-        write_atomic(out_dir / "series.json", text + "\n")
+        _write(out_dir, r, p, text)
     if as_json:
         print(text)
     else:
         print_series(r, p)
-        if out_dir is not None:
-            out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'series.json'}")
+        if out_dir is not None and r.recipe.n_tubes:
+            out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'series.json')}")
+        elif out_dir is not None:
+            out.print(f"wrote {S(out_dir / 'series.json')} (no tubes: the series cannot be made)")
     sys.exit(r.exit_code)
 
 
+def _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given):
+    """The series job, its parameter errors named by this command's options."""
+    from ..inputs.plan import PlanError
+    from ..jobs.classic import run_series
+
+    try:
+        return run_series(
+            p,
+            method,
+            points=points,
+            total_M=total_M,
+            tubes=replicates,
+            limiting=limiting,
+            excess_M=excess_M,
+            vary=vary,
+            max_ratio=max_ratio,
+            recipe=given,
+        )
+    except PlanError as exc:  # the series' parameters are this command's options
+        if exc.key in OPTION_OF:
+            raise UserError(f"{OPTION_OF[exc.key]}: {exc.message}") from None
+        raise
+
+
+def _write(out_dir: Path, r, p, text: str) -> None:
+    """recipe.csv and series.json as one unit (a recipe beside the JSON of another run would mislead);
+    a series that cannot be made has no recipe, only its series.json."""
+    from ..inputs.files import write_atomic, write_atomic_many
+    from ..inputs.recipe import recipe_to_csv
+
+    if r.recipe.n_tubes:
+        write_atomic_many(
+            {out_dir / "recipe.csv": recipe_to_csv(r.recipe, p), out_dir / "series.json": text + "\n"}
+        )
+    else:
+        write_atomic(out_dir / "series.json", text + "\n")
+
+
 def print_series(r, p) -> None:
-    """Verdict, the method's findings, the tubes and the checks."""
-    from rich.markup import escape
+    """Verdict, the method's findings, the tubes and the checks (every text through safe_text)."""
     from rich.table import Table
 
     from ..paper import fmt
 
-    out.print(f"[bold]{escape(r.title)}[/bold] — {r.method} series")
-    out.print(f"Question: {escape(r.question)}")
+    out.print(f"[bold]{S(r.title)}[/bold] — {S(r.method)} series")
+    out.print(f"Question: {S(r.question)}")
     colour = "green" if r.answers else "red"
     out.print(
         f"Verdict: [bold {colour}]{'answers it' if r.answers else 'cannot answer it'}[/] — "
-        f"{escape(r.verdict_reason)}"
+        f"{S(r.verdict_reason)}"
     )
     for line in r.notes:
-        out.print(f"  • {escape(line)}")
+        out.print(f"  • {S(line)}")
     a = r.assessment
+    col = {"pass": "green", "warn": "yellow", "fail": "red"}
+    if a is None:
+        for c in r.checks:
+            out.print(f"[{col[c.status]}]{S(c.id)}[/]: {S(c.message)}")
+        return
     rows = a.tube_rows()
     dispensed = r.recipe.dispensed_ids(p)
     step = p.glassware.step_mL
     t = Table(title="Tubes")
-    for c in ("tube", *(f"{s} / mL" for s in dispensed), "M tot", "L tot", "A ± sd", *r.columns):
+    for c in ("tube", *(f"{S(s)} / mL" for s in dispensed), "M tot", "L tot", "A ± sd", *map(S, r.columns)):
         t.add_column(c, justify="right")
     lo, hi = a.model.linear_range
     for i, tube in enumerate(r.recipe.tubes):
@@ -183,7 +231,7 @@ def print_series(r, p) -> None:
         if not lo <= A <= hi:
             a_txt = f"[red]{a_txt} out[/red]"
         t.add_row(
-            escape(tube),
+            S(tube),
             *(fmt.volume(r.recipe.column(s)[i], step) for s in dispensed),
             fmt.conc(a.state.totals_M[i, 0]),
             fmt.conc(a.state.totals_M[i, 1]),
@@ -191,10 +239,9 @@ def print_series(r, p) -> None:
             *(f"{float(v[i]):.3f}" for v in r.columns.values()),
         )
     out.print(t)
-    col = {"pass": "green", "warn": "yellow", "fail": "red"}
     t = Table(title="Checks")
     for c in ("check", "status", "what was found / what to do"):
         t.add_column(c)
     for c in r.checks:
-        t.add_row(c.id, f"[{col[c.status]}]{c.status}[/]", escape(c.message))
+        t.add_row(S(c.id), f"[{col[c.status]}]{c.status}[/]", S(c.message))
     out.print(t)

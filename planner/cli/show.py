@@ -7,7 +7,9 @@ import math
 import numpy as np
 from rich.table import Table
 
+from ..inputs.text import plural
 from ..paper import fmt
+from ..paper.bench_volumes import volume_step_mL
 from .app import out
 from .app import safe_text as S
 
@@ -67,6 +69,9 @@ def print_assessment(a, p) -> None:  # noqa: C901
             )
         t.add_row("Δχ²", *(fmt.sig(float(pr.delta_chi2[k]), 3) for k in picks))
         out.print(t)
+    if a.limits is not None:
+        for line in a.limits.lines():
+            out.print(S(line))
     colour = {"pass": "green", "warn": "yellow", "fail": "red"}
     t = Table(title="Checks")
     for c in ("check", "status", "what was found / what to do"):
@@ -91,7 +96,7 @@ def print_assessment(a, p) -> None:  # noqa: C901
         t.add_column(c, justify="right")
     rows = a.tube_rows()
     lo, hi = m.linear_range
-    step = p.glassware.step_mL
+    step = volume_step_mL(p)
     st = a.state
     for i, tube in enumerate(r.tubes):
         A = rows[i]["absorbance"]
@@ -115,9 +120,13 @@ def print_design(d, p) -> None:
     """The designed recipe, its promise and the comparison with an evenly spaced series."""
     s = d.summary()
     out.print(f"[bold]{S(p.title)}[/bold] — design")
+    vcol = {"resolved": "green", "bounded": "yellow", "unresolved": "red"}
+    if d.verdict:
+        out.print(f"Verdict: [bold {vcol[d.verdict]}]{d.verdict}[/] — {S(d.verdict_reason)}")
     out.print(
         f"criterion {d.criterion}, {'robust over the guess' if d.robust else 'at the guess only'}, "
-        f"{d.recipe.n_tubes} tubes, seed {d.seed}; {d.n_candidates} candidate tubes on the grid, "
+        f"{plural(d.recipe.n_tubes, 'tube')}, seed {d.seed}; "
+        f"{plural(d.n_candidates, 'candidate tube')} on the grid, "
         f"{d.n_feasible} inside the linear range over the guess's range"
     )
     for note in d.notes:
@@ -147,7 +156,7 @@ def print_design(d, p) -> None:
     )
     out.print(
         f"SE(log β[{target}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; evenly spaced series "
-        f"of {d.recipe.n_tubes} tubes: {fmt.sig(d.se_even, 2)} ({compare}); "
+        f"of {plural(d.recipe.n_tubes, 'tube')}: {fmt.sig(d.se_even, 2)} ({compare}); "
         f"efficiency ≥ {math.floor(d.efficiency_bound * 1000) / 1000:.3f} of the best possible on these "
         f"candidates"
     )
@@ -158,26 +167,52 @@ def print_design(d, p) -> None:
         for a, b, c in d.se_across:
             t.add_row(f"{a:.2f}", fmt.sig(b, 2), fmt.sig(c, 2))
         out.print(t)
+    if d.limits is not None:
+        for line in d.limits.lines():
+            out.print(S(line))
     mc = d.model_check
     if mc is not None:
-        t = Table(title=f"Model check (weight {mc.weight:g}): would the data reveal a left-out complex?")
-        for c in ("if the system also formed", "designed recipe", "target-only design"):
-            t.add_column(c, justify="right")
-        for g, tonly in mc.detection:
-            t.add_row(S(g.alternative), f"{g.power:.0%}", f"{tonly.power:.0%}")
-        out.print(t)
-        out.print(
-            f"share of simulated experiments whose χ² test rejects the main model; the check costs "
-            f"×{fmt.sig(mc.se_guarded_over_target_only, 3)} in SE(log β[{target}]) "
-            f"({fmt.sig(mc.se_target_only, 2)} → {fmt.sig(mc.se_guarded, 2)}), {mc.moves} tubes moved"
-        )
+        _print_model_check(mc, target)
     bad = [c for c in s["checks"] if c["status"] != "pass"]
     for c in bad:
         out.print(f"[yellow]{S(c['id'])}[/yellow]: {S(c['message'])}")
 
 
+def _print_model_check(mc, target: str) -> None:
+    """The model check of a design: the chosen design's simulated power beside the other design's."""
+    from ..jobs.plan.model_check import POWER_SATURATED
+
+    t = Table(
+        title=f"Model check (SE may cost up to ×{mc.cost_cap:.3g}): would the data reveal a left-out complex?"
+    )
+    other = (
+        "target-only design"
+        if mc.replaced
+        else f"best guarded design (×{fmt.sig(mc.se_guarded_over_target_only, 3)})"
+    )
+    for c in ("if the system also formed", "this design", other, "best on these candidates"):
+        t.add_column(c, justify="right")
+    for k, (g, o) in enumerate(mc.detection):
+        best = mc.best_power[k] if k < len(mc.best_power) else float("nan")
+        # the search stops adding noncentrality at 95 % power (it buys precision instead): "at least"
+        best_txt = f"≥ {_pct(best)}" if best >= POWER_SATURATED - 5e-3 else _pct(best)
+        t.add_row(S(g.alternative), _pct(g.power), _pct(o.power_noise_free), best_txt)
+    out.print(t)
+    out.print(
+        "share of experiments whose χ² test (5 % level) rejects the main model: this design simulated, the "
+        "others from the exact noncentrality"
+    )
+    out.print(S(mc.reason))
+    for line in mc.advice:
+        out.print(f"[yellow]note:[/yellow] {S(line)}")
+
+
+def _pct(x) -> str:
+    return "—" if x is None or not math.isfinite(x) else f"{x:.0%}"
+
+
 def print_stock_needs(p, needs, with_recipe: bool) -> None:
-    from ..paper.stock_text import prep_lines
+    from ..paper.stock_text import mass_advice_text, prep_lines
 
     out.print(f"[bold]{S(p.title)}[/bold] — stocks")
     t = Table(title="Preparation")
@@ -186,9 +221,16 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
     for n in needs:
         s = p.stock_by_id(n.id)
         conc = S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—")
-        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask
-        lines, _ = prep_lines(p, n.id, n.summary())
+        # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask,
+        # what sets the mass; then, for the author, how to weigh less
+        summary = n.summary()
+        lines, _ = prep_lines(p, n.id, summary)
         how = S(" ".join(lines))
+        advice = mass_advice_text(summary)
+        if advice:
+            how += f" [cyan]{S(advice)}[/cyan]"
+        if n.scarce:
+            how = "[bold](scarce)[/bold] " + how
         if n.preparation is not None:
             pr = n.preparation
             if pr.mass_g < pr.min_weight_g:

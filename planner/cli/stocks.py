@@ -17,8 +17,18 @@ def stocks(
     as_json: Annotated[
         bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
     ] = False,
+    scarce: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--scarce",
+            help="plan this stock as scarce: the smallest flask that holds what the recipe needs and the "
+            "least reagent the balance allows (repeatable)",
+            metavar="ID",
+        ),
+    ] = None,
 ) -> None:
-    """How to make each stock (mass to weigh, flask, uncertainty) and how much a recipe needs."""
+    """How to make each stock (mass to weigh, flask, uncertainty, what sets the mass) and how much a
+    recipe needs."""
     from ..inputs.plan import load_plan
     from ..inputs.recipe import read_recipe_csv
     from ..jobs.stocks.needs import stock_needs
@@ -26,7 +36,7 @@ def stocks(
 
     p = load_plan(plan)
     r = read_recipe_csv(recipe, p) if recipe else None
-    needs = stock_needs(p, r)
+    needs = stock_needs(p, r, scarce=tuple(scarce or ()))
     if as_json:
         print(dump_json({"title": p.title, "stocks": [n.summary() for n in needs]}))
         return

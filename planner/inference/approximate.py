@@ -1,5 +1,5 @@
-"""Optimal approximate designs (weights on the candidates): multiplicative seeding, vertex-direction
-additions and simplex Newton steps, certified by the equivalence theorem (see :mod:`planner.design_criteria`).
+"""Optimal approximate designs (weights on the candidates): multiplicative seeding, vertex-direction additions
+and simplex Newton steps, certified by the equivalence theorem (see :mod:`planner.inference.design_criteria`).
 """
 
 from __future__ import annotations

@@ -1,5 +1,6 @@
-"""Optimal exact designs (tube counts on the candidates): exchange with rank-one updates, started from
-the efficient rounding of the approximate design and from random starts (see :mod:`planner.design_criteria`).
+"""Optimal exact designs (tube counts on the candidates): exchange with rank-one updates, started from the
+efficient rounding of the approximate design and from random starts (see
+:mod:`planner.inference.design_criteria`).
 """
 
 from __future__ import annotations
@@ -8,6 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..inputs.text import plural
 from .approximate import ApproximateDesign, approximate_design
 from .design_criteria import (
     _IMPROVE,
@@ -343,8 +345,9 @@ def exact_design(
         )
         if rank0 + n * prob.R < prob.P:
             raise DesignError(
-                f"{n} tubes × {prob.R} reading(s) cannot determine {prob.P} parameters; use at least "
-                f"{-(-(prob.P - rank0) // prob.R)} tubes or add prior information M0"
+                f"{plural(n, 'tube')} × {plural(prob.R, 'reading')} cannot determine {prob.P} parameters; "
+                "use at least "
+                f"{plural(-(-(prob.P - rank0) // prob.R), 'tube')} or add prior information M0"
             )
     if approx is None:
         approx = approximate_design(

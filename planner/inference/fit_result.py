@@ -1,5 +1,5 @@
 """The result of a batched least-squares fit, and the checks and weighting of its inputs
-(see :mod:`planner.lm` for the algorithm).
+(see :mod:`planner.inference.lm` for the algorithm).
 """
 
 from __future__ import annotations

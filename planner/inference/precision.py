@@ -4,7 +4,7 @@ Free parameters: log β of every species with ``log_beta_sd > 0``, ε of every a
 and optionally a blank offset. The Fisher information uses the full absorbance covariance of the error
 budget (systematic stock and calibration errors included), F = Jᵀ Σ⁻¹ J, and Cov(θ̂) ≥ F⁻¹
 (Cramér 1946; Rao 1945). The Monte Carlo fits whole simulated experiments with the same generalised
-least-squares weighting (all trials at once, :func:`planner.fitting.fit_many`). The profile follows
+least-squares weighting (all trials at once, :func:`planner.inference.lm.fit_many`). The profile follows
 Raue et al. 2009 (Bioinformatics 25:1923): a profile that stays below the χ² threshold towards a limit
 means the constant is only bounded on that side.
 """

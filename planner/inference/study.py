@@ -7,7 +7,10 @@ the design optimiser take the study (or its parts), never the plan itself.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
+
+import numpy as np
 
 from ..model.compiled import Model
 from ..model.spectra import Spectra
@@ -38,7 +41,8 @@ class Study:
     ionic_strength_tolerance : allowed relative deviation from it.
     alternatives : (name, model) pairs: the main model with one more species each, which a recipe's data
         should be able to tell from the main model (empty: no model check).
-    check_weight : weight of the model check in the design criterion (0: precision of the target only).
+    check_weight : the SE cost the model check may spend: the guarded design's SE of the target at most
+        ×(1 + check_weight) the target-only design's (0: no guard).
     spectra : the species' spectra and the instrument over the window when the plan records whole
         spectra (:class:`planner.model.spectra.Spectra`), else None (one wavelength).
     """
@@ -59,6 +63,11 @@ class Study:
     check_weight: float = 0.0
     spectra: Spectra | None = None
 
+    def __post_init__(self) -> None:
+        # "frozen" holds for the arrays too: a job that changed the model in place would silently change
+        # every later result computed from the same study
+        _read_only(self, set())
+
     def __repr__(self) -> str:
         return (
             f"Study({self.title!r}, target={self.target}, params={list(self.params.names)}, {self.bench!r})"
@@ -67,3 +76,21 @@ class Study:
     def nodes(self, robust: bool | None = None) -> Nodes:
         """Quadrature nodes over the guesses' uncertainty (the guess alone when not robust)."""
         return prior_nodes(self.params, self.robust if robust is None else robust)
+
+
+def _read_only(obj: object, seen: set[int]) -> None:
+    """Make every numpy array reachable through dataclass fields, tuples and dicts read-only."""
+    if id(obj) in seen:
+        return
+    seen.add(id(obj))
+    if isinstance(obj, np.ndarray):
+        obj.flags.writeable = False
+    elif dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        for f in dataclasses.fields(obj):
+            _read_only(getattr(obj, f.name), seen)
+    elif isinstance(obj, tuple | list):
+        for x in obj:
+            _read_only(x, seen)
+    elif isinstance(obj, dict):
+        for x in obj.values():
+            _read_only(x, seen)

@@ -14,7 +14,7 @@ SERIES_METHOD_OPTIONS = {
     "total": ("job", "calibration", "mole-ratio"),
     "limiting": ("calibration",),
     "excess": ("calibration",),
-    "tubes": ("calibration",),
+    "replicates": ("calibration",),
     "vary": ("mole-ratio",),
     "max-ratio": ("mole-ratio",),
     "recipe": ("survey",),

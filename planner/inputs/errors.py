@@ -21,4 +21,14 @@ class LimitError(InputError):
     """A request beyond the tool's stated limits (rows, tubes, trials, students, file size)."""
 
 
-__all__ = ["InputError", "KplanError", "LimitError"]
+class LocatedError(InputError):
+    """Input that cannot be used, with where it is: ``key`` (a plan key path, a file's line and column,
+    a path; "" for the whole input) and ``message`` (what was wrong and the fix)."""
+
+    def __init__(self, key: str, message: str):
+        self.key = key
+        self.message = message
+        super().__init__(f"{key}: {message}" if key else message)
+
+
+__all__ = ["InputError", "KplanError", "LimitError", "LocatedError"]

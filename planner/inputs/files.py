@@ -10,7 +10,9 @@ from __future__ import annotations
 import errno
 import os
 import shutil
+import stat
 import tempfile
+from collections.abc import Iterable
 from pathlib import Path
 
 from .errors import InputError
@@ -43,14 +45,19 @@ def _reason(exc: OSError) -> str:
     return fixes.get(exc.errno or 0, f"{exc.strerror or exc}: choose another path")
 
 
-def check_output_file(path: str | Path) -> Path:
+def check_output_file(path: str | Path, inputs: Iterable[str | Path | None] = ()) -> Path:
     """Refuse an output file path that cannot work, before any time is spent computing its content.
+
+    Parameters
+    ----------
+    inputs : the files the command reads: the output may not be one of them.
 
     Raises
     ------
     OutputError
-        For an empty name, an existing folder, a parent that is a file, a name too long for the file
-        system, or a folder without write permission.
+        For an empty name, an existing folder, a device, pipe or socket, one of the command's input
+        files, a parent that is a file, a name too long for the file system, or a folder without write
+        permission.
     """
     p = Path(path)
     if str(path) == "" or p.name in ("", ".", ".."):
@@ -59,14 +66,18 @@ def check_output_file(path: str | Path) -> Path:
         _check_name(p.name, p)
         if p.is_dir():
             raise OutputError(p, f"it is a folder: give a file name inside it, e.g. '{p / 'out.pdf'}'")
+        _check_target(p, inputs)
         _check_folder(p.parent, p)
     except OSError as exc:  # stat() itself can fail: a path too long, a folder without search permission
         raise OutputError(p, _reason(exc)) from None
     return p
 
 
-def check_output_folder(path: str | Path) -> Path:
-    """Refuse an output folder that is a file, sits under a file or cannot be written."""
+def check_output_folder(
+    path: str | Path, names: Iterable[str] = (), inputs: Iterable[str | Path | None] = ()
+) -> Path:
+    """Refuse an output folder that is a file, sits under a file or cannot be written, and output files
+    ``names`` in it that are devices or one of the command's ``inputs``."""
     p = Path(path)
     if str(path) == "":
         raise OutputError(path, "no folder name: give a folder such as 'out'")
@@ -75,9 +86,34 @@ def check_output_folder(path: str | Path) -> Path:
         if p.exists() and not p.is_dir():
             raise OutputError(p, "it is a file, not a folder: give a folder for the output files")
         _check_folder(p, p)
+        inputs = tuple(inputs)
+        for name in names:
+            _check_target(p / name, inputs)
     except OSError as exc:
         raise OutputError(p, _reason(exc)) from None
     return p
+
+
+def _check_target(p: Path, inputs: Iterable[str | Path | None]) -> None:
+    """Refuse writing over a device, pipe or socket, or over one of the command's input files."""
+    if p.exists() and not p.is_file() and not p.is_dir():
+        raise OutputError(p, "it is a device, pipe or socket, not a file: give the path of an ordinary file")
+    for q in inputs:
+        if q is not None and _same_file(p, Path(q)):
+            raise OutputError(
+                p,
+                f"it is an input of this command ('{q}'): writing there would overwrite it; choose "
+                "another path",
+            )
+
+
+def _same_file(a: Path, b: Path) -> bool:
+    try:
+        if a.exists() and b.exists():
+            return os.path.samefile(a, b)
+    except OSError:
+        return False
+    return a.resolve() == b.resolve()
 
 
 def _check_folder(folder: Path, shown: Path) -> None:
@@ -161,6 +197,7 @@ def _stage(p: Path, data: bytes) -> str:
     """Write ``data`` to a temporary file beside ``p``; return its name."""
     if p.is_dir():
         raise IsADirectoryError(errno.EISDIR, "is a folder", str(p))
+    _check_target(p, ())  # the rename would replace a device node or a pipe with a file
     p.parent.mkdir(parents=True, exist_ok=True)
     # the temporary name keeps only the start of the output's name, so a name near the file system's
     # limit fails (if at all) on the name itself, not on the longer temporary one
@@ -216,6 +253,23 @@ def _keep_old(target: Path, backup: str) -> str | None:
     return backup
 
 
+class _NotRegular(OSError):
+    """The path names a pipe, socket or device: reading it could block forever or never end."""
+
+
+def _read_regular(p: Path, limit_bytes: int) -> bytes:
+    """At most ``limit_bytes + 1`` bytes of the regular file ``p``. Opened without blocking (a FIFO
+    with no writer would otherwise wait forever) and checked to be a regular file before any read."""
+    fd = os.open(p, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0))
+    with os.fdopen(fd, "rb") as fh:
+        mode = os.fstat(fd).st_mode
+        if stat.S_ISDIR(mode):
+            raise IsADirectoryError(errno.EISDIR, "is a folder", str(p))
+        if not stat.S_ISREG(mode):
+            raise _NotRegular(errno.EINVAL, "not a regular file", str(p))
+        return fh.read(limit_bytes + 1)
+
+
 def read_user_text(
     path: str | Path,
     *,
@@ -239,12 +293,17 @@ def read_user_text(
     """
     p = Path(path)
     try:
-        with p.open("rb") as fh:
-            raw = fh.read(limit_bytes + 1)
+        raw = _read_regular(p, limit_bytes)
     except FileNotFoundError:
         raise error("", f"{what} file '{p}' not found: check the path{missing_hint}") from None
     except IsADirectoryError:
         raise error("", f"{what} file '{p}' is a folder: give the path of {kind}") from None
+    except _NotRegular:
+        raise error(
+            "",
+            f"{what} file '{p}' is not a regular file (a pipe, socket or device): save it as a file and "
+            "give that file's path",
+        ) from None
     except OSError as exc:
         raise error("", f"cannot read {what} file '{p}': {exc.strerror or exc}") from None
     if len(raw) > limit_bytes:

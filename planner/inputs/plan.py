@@ -29,6 +29,18 @@ from pydantic import (
 )
 
 from .files import read_user_text
+from .formulas import formula_mass_g_mol
+from .limits import (
+    MAX_ALTERNATIVES,
+    MAX_DEPTH,
+    MAX_DISPENSERS,
+    MAX_GRID_LEVELS,
+    MAX_IONS,
+    MAX_PLAN_BYTES,
+    MAX_SPECIES,
+    MAX_STOCKS,
+    MAX_TUBES,
+)
 from .names import ion_charge, unknown_name
 from .plan_fields import (
     Absorbance,
@@ -60,16 +72,17 @@ from .spectra_table import SpectraTable, attach_spectra_table
 from .text import check_identifier
 
 COMPONENTS = ("M", "L", "H")
-DISPENSER_KINDS = ("burette", "pipette", "graduated-pipette", "micropipette")
+DISPENSER_KINDS = ("burette", "pipette", "graduated-pipette", "micropipette", "piston-burette")
+PISTON_DISPENSERS = ("micropipette", "piston-burette")  # ISO 8655 devices: no class, a systematic limit
 MAKE_UP_MODES = ("to-mark", "added")
 CRITERIA = ("target", "all")
 ACTIVITY_MODELS = ("davies", "extended-dh", "none")
 
-MAX_PLAN_BYTES = 1_000_000  # a plan is a page of TOML; anything this large is not one
-MAX_DEPTH = 50  # nesting levels of tables and arrays; a plan needs about 4
+MIN_PATH_CM = 0.001  # 10 µm: thinner than any cuvette or demountable cell
+MIN_LINEAR_WIDTH = 0.05  # absorbance units: a narrower linear range is a typo
+MIN_PURITY = 0.5  # an assay below 50 % is not a reagent the stocks are made from
 MICROPIPETTE_RINSE_ML = 0.2  # pre-wetting the tip two or three times [common practice]
 MICROPIPETTE_DEAD_ML = 0.1  # what a vial keeps below a micropipette tip's reach [common practice]
-MAX_GRID_LEVELS = 20_000  # grid volumes per stock (tube_volume / step); the design enumerates them
 
 
 class Component(_Strict):
@@ -122,7 +135,7 @@ class Band(_Strict):
 
 class Optics(_Strict):
     wavelength_nm: Wavelength
-    path_cm: _num(0, 100, "cm", lo_open=True) = 1.0
+    path_cm: _num(MIN_PATH_CM, 100, "cm") = 1.0
     linear_range: tuple[Absorbance, Absorbance] = (0.1, 1.0)
     stray_light: FractionBelow1 = 0.0
     noise: Noise = Noise()
@@ -157,6 +170,11 @@ class Optics(_Strict):
             raise ValueError(f"lo = {lo} must be below hi = {hi}, e.g. linear_range = [0.05, 1.00]")
         if lo < 0:
             raise ValueError(f"lo = {lo} is negative: absorbance windows start at 0 or above")
+        if hi - lo < MIN_LINEAR_WIDTH:
+            raise ValueError(
+                f"[{lo:g}, {hi:g}] is {hi - lo:.3g} wide; a photometer's linear range is at least "
+                f"{MIN_LINEAR_WIDTH:g} absorbance units wide, e.g. linear_range = [0.1, 1.0]"
+            )
         return v
 
 
@@ -164,15 +182,23 @@ class Stock(_Strict):
     id: StockId
     label: Text = ""
     conc: dict[str, Conc] = Field(default_factory=dict)
-    ions: dict[str, Conc] = Field(default_factory=dict)
+    ions: dict[str, Conc] = Field(default_factory=dict, max_length=MAX_IONS)
     conc_rsd: FractionBelow1 = 0.0
     on_hand: Volume | None = None
     reagent: Text | None = None
     formula: Text | None = None
-    purity: _num(0, 1, lo_open=True) | None = None
+    purity: _num(MIN_PURITY, 1, what="an assay fraction ") | None = None
     flask_mL: Volume | None = Field(default=None, alias="flask")
     diluent: bool = False
     background: bool = False
+    scarce: bool = False  # make the least of it: the smallest flask and the least reagent weighed
+
+    @field_validator("formula")
+    @classmethod
+    def _solid(cls, v: str | None) -> str | None:
+        if v is not None:
+            formula_mass_g_mol(v)  # a formula molmass cannot read is refused now, not at the weighing
+        return v
 
     @field_validator("conc")
     @classmethod
@@ -200,7 +226,8 @@ class Stock(_Strict):
 
 class Flask(_Strict):
     capacity_mL: Volume = Field(alias="capacity")
-    cls: Literal["A", "B"] = Field(default="A", alias="class")
+    # unset: the catalogue's class A, or no class when the flask is described by its tolerance alone
+    cls: Literal["A", "B"] | None = Field(default=None, alias="class")
     tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
 
 
@@ -215,12 +242,60 @@ class Balance(_Strict):
         return self
 
 
+REPEATABILITY_MAX_FRACTION = 0.1  # a delivery's sd above 10 % of capacity is a unit slip, not a device
+
+
 class Dispenser(_Strict):
-    kind: Literal["burette", "pipette", "graduated-pipette", "micropipette"]
+    kind: Literal["burette", "pipette", "graduated-pipette", "micropipette", "piston-burette"]
     capacity_mL: Volume = Field(alias="capacity")
-    cls: Literal["A", "B"] = Field(default="A", alias="class")
+    # unset: the catalogue's class A, or no class when the device is described by its tolerance alone
+    cls: Literal["A", "B"] | None = Field(default=None, alias="class")
     tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
-    stocks: list[str] = Field(min_length=1)
+    graduation_mL: Volume | None = Field(default=None, alias="graduation")
+    repeatability_mL: Volume | None = Field(default=None, alias="repeatability")
+    systematic_mL: Volume | None = Field(default=None, alias="systematic")
+    stocks: list[str] = Field(min_length=1, max_length=MAX_STOCKS)
+
+    @model_validator(mode="after")
+    def _figures(self) -> Dispenser:
+        piston = self.kind in PISTON_DISPENSERS
+        if piston and self.cls is not None:
+            raise PlanError(
+                "class", f"a {self.kind} has no class: remove it (give systematic = '...' instead)"
+            )
+        if self.systematic_mL is not None and not piston:
+            raise PlanError(
+                "systematic",
+                f"only a micropipette or piston burette states a systematic error; a {self.kind} gives its "
+                "tolerance = '...'",
+            )
+        if self.systematic_mL is not None and self.tolerance_mL is not None:
+            raise PlanError("systematic", "give systematic or tolerance, not both (they are the same limit)")
+        if self.graduation_mL is not None:
+            if self.kind == "pipette":
+                raise PlanError("graduation", "a one-mark pipette has no graduation: remove it")
+            if self.graduation_mL > self.capacity_mL:
+                raise PlanError(
+                    "graduation",
+                    f"{self.graduation_mL:g} mL is more than the {self.capacity_mL:g} mL capacity: give the "
+                    "smallest subdivision, e.g. graduation = '0.05 mL'",
+                )
+        if (
+            self.repeatability_mL is not None
+            and self.repeatability_mL > REPEATABILITY_MAX_FRACTION * self.capacity_mL
+        ):
+            raise PlanError(
+                "repeatability",
+                f"{self.repeatability_mL:g} mL is more than {REPEATABILITY_MAX_FRACTION:.0%} of the "
+                f"{self.capacity_mL:g} mL capacity: give the standard deviation of one delivery, e.g. "
+                "repeatability = '0.003 mL'",
+            )
+        return self
+
+    @property
+    def limit_mL(self) -> float | None:
+        """The stated tolerance, or a piston device's measured systematic error (the same limit)."""
+        return self.systematic_mL if self.systematic_mL is not None else self.tolerance_mL
 
 
 class Glassware(_Strict):
@@ -235,7 +310,7 @@ class Glassware(_Strict):
     delta_T_C: _num(-30, 30, "°C") = 0.0
     balance: Balance = Balance()
     order: list[str] | None = None
-    dispenser: list[Dispenser] = Field(default_factory=list)
+    dispenser: list[Dispenser] = Field(default_factory=list, max_length=MAX_DISPENSERS)
 
     @model_validator(mode="before")
     @classmethod
@@ -279,7 +354,7 @@ class Medium(_Strict):
 
 
 class DesignSettings(_Strict):
-    tubes: _int(1, 200) = 8
+    tubes: _int(1, MAX_TUBES) = 8
     target: str | None = None
     criterion: Literal["target", "all"] = "target"
     robust: bool = True
@@ -291,7 +366,7 @@ class DesignSettings(_Strict):
     analysis: Literal["global", "double-reciprocal", "one-to-one"] = "global"
     check: Literal["auto", "none"] = "auto"
     check_weight: _num(0, 1, hi_open=True) = 0.25
-    alternative: list[Alternative] = Field(default_factory=list)
+    alternative: list[Alternative] = Field(default_factory=list, max_length=MAX_ALTERNATIVES)
 
 
 class Plan(_Strict):
@@ -300,9 +375,9 @@ class Plan(_Strict):
     title: Text = "untitled study"
     temperature_C: _num(-20, 150, "°C") = 25.0
     components: Components
-    species: list[Species] = Field(min_length=1)
+    species: list[Species] = Field(min_length=1, max_length=MAX_SPECIES)
     optics: Optics
-    stock: list[Stock] = Field(min_length=1)
+    stock: list[Stock] = Field(min_length=1, max_length=MAX_STOCKS)
     glassware: Glassware
     medium: Medium = Medium()
     design: DesignSettings = DesignSettings()
@@ -316,9 +391,19 @@ class Plan(_Strict):
 
     # -- cross-field checks, each naming its key ---------------------------------------------------
     @model_validator(mode="after")
-    def _cross(self) -> Plan:  # noqa: C901
+    def _cross(self) -> Plan:
         names = [s.name for s in self.species]
         reserved = {"M", "L", "H"}
+        self._cross_species(names, reserved)
+        ids = [s.id for s in self.stock]
+        self._cross_stocks(ids)
+        self._cross_glassware(ids)
+        self._cross_design(ids, names)
+        self._cross_extras(names, reserved)
+        return self
+
+    def _cross_species(self, names: list[str], reserved: set[str]) -> None:
+        """Species names unique and not components; H only with [components.H]; optics keys known."""
         for i, s in enumerate(self.species):
             if s.name in reserved:
                 raise PlanError(
@@ -332,17 +417,17 @@ class Plan(_Strict):
                     "uses H but the plan has no [components.H]: add H = { pH = ... } under [components]",
                 )
         absorbers = set(names) | {"M", "L"}
-        for key in self.optics.epsilon:
-            if key not in absorbers:
-                raise PlanError(f"optics.epsilon.{key}", unknown_name("species", key, sorted(absorbers)))
-        for key in self.optics.bands:
-            if key not in absorbers:
-                raise PlanError(f"optics.bands.{key}", unknown_name("species", key, sorted(absorbers)))
-        ids = [s.id for s in self.stock]
+        for table, keys in (("epsilon", self.optics.epsilon), ("bands", self.optics.bands)):
+            for key in keys:
+                if key not in absorbers:
+                    raise PlanError(f"optics.{table}.{key}", unknown_name("species", key, sorted(absorbers)))
+
+    def _cross_stocks(self, ids: list[str]) -> None:
+        """Stock ids unique; one diluent at most (one needed under to-mark), one background stock at
+        most and holding ions only; some stock holds the metal and some the ligand."""
         for i, s in enumerate(self.stock):
             if ids.count(s.id) > 1:
                 raise PlanError(f"stock[{i}].id", f"stock id '{s.id}' is defined twice")
-        for i, s in enumerate(self.stock):
             if s.background and s.diluent:
                 raise PlanError(
                     f"stock[{i}].background",
@@ -352,8 +437,8 @@ class Plan(_Strict):
             if s.background and (s.conc or not s.ions):
                 raise PlanError(
                     f"stock[{i}].background",
-                    "a background-electrolyte stock holds only inert ions: "
-                    "give it ions = { ... } and no conc",
+                    "a background-electrolyte stock holds only inert ions: give it ions = { ... } and "
+                    "no conc",
                 )
         if sum(s.background for s in self.stock) > 1:
             raise PlanError("stock", "more than one stock has background = true: keep one")
@@ -364,9 +449,17 @@ class Plan(_Strict):
             )
         if self.glassware.make_up == "to-mark" and not diluents:
             raise PlanError(
-                "stock",
-                "make_up = 'to-mark' needs a diluent: mark one stock with diluent = true",
+                "stock", "make_up = 'to-mark' needs a diluent: mark one stock with diluent = true"
             )
+        for comp, what in (("M", "metal"), ("L", "ligand")):
+            if not any(s.conc.get(comp) for s in self.stock):
+                raise PlanError(
+                    "stock",
+                    f"no stock contains the {what} {comp}: give one stock conc = {{ {comp} = '...' }}",
+                )
+
+    def _cross_glassware(self, ids: list[str]) -> None:
+        """Dispensers and the order of addition name stocks of the plan, each once."""
         for j, d in enumerate(self.glassware.dispenser):
             for k, sid in enumerate(d.stocks):
                 if sid not in ids:
@@ -379,6 +472,9 @@ class Plan(_Strict):
                     raise PlanError(f"glassware.order[{k}]", unknown_name("stock id", sid, ids))
             if len(set(self.glassware.order)) != len(self.glassware.order):
                 raise PlanError("glassware.order", "a stock is listed twice: name each stock once")
+
+    def _cross_design(self, ids: list[str], names: list[str]) -> None:
+        """Fixed volumes name dispensed stocks and fit in a tube; the target is a species."""
         for sid in self.design.fixed:
             if sid not in ids:
                 raise PlanError(f"design.fixed.{sid}", unknown_name("stock id", sid, ids))
@@ -398,12 +494,6 @@ class Plan(_Strict):
             )
         if self.design.target is not None and self.design.target not in names:
             raise PlanError("design.target", unknown_name("species", self.design.target, names))
-        if not any(s.conc.get("M") for s in self.stock):
-            raise PlanError("stock", "no stock contains the metal M: give one stock conc = { M = '...' }")
-        if not any(s.conc.get("L") for s in self.stock):
-            raise PlanError("stock", "no stock contains the ligand L: give one stock conc = { L = '...' }")
-        self._cross_extras(names, reserved)
-        return self
 
     def _cross_extras(self, names: list[str], reserved: set[str]) -> None:
         """Alternative species of the model check and the titration table, each naming its key."""
@@ -429,6 +519,12 @@ class Plan(_Strict):
             if self.glassware.make_up != "added":
                 raise PlanError(
                     "glassware.make_up", "an in-cuvette titration adds every volume: set make_up = 'added'"
+                )
+            if t.max_volume_mL > self.glassware.tube_volume_mL * (1 + 1e-12):
+                raise PlanError(
+                    "titration.max_volume",
+                    f"{t.max_volume_mL:g} mL is more than the cuvette holds (glassware.tube_volume = "
+                    f"{self.glassware.tube_volume_mL:g} mL): at most the tube volume",
                 )
         check_spectra_keys(self, set(names) | reserved - {"H"})
 
@@ -513,6 +609,13 @@ def _first_error_of(err: Any) -> PlanError:
         return PlanError(path, f"unknown key{hint} (allowed here: {', '.join(allowed)})")
     if kind == "missing":
         return PlanError(path, "is required but missing: add it (see the README's plan-file keys)")
+    if kind == "too_long":
+        ctx = err.get("ctx") or {}
+        return PlanError(
+            path,
+            f"{ctx.get('actual_length', 'too many')} entries; at most {ctx.get('max_length')}: "
+            "a plan describes one study (see the README's limits)",
+        )
     if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
         return PlanError(path, f"{msg.lower()}, got {err.get('input')!r}")
     for prefix in ("Value error, ", "Assertion failed, "):

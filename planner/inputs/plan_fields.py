@@ -20,16 +20,18 @@ key                                          range                           uni
 ``optics.wavelength_nm``, ``bands.peak_nm``  100 … 2000                      nm
 ``optics.bandwidth_nm``                      0 (excluded) … 500              nm
 ``bands.fwhm_nm``                            0 (excluded) … 2000             nm
-``optics.path_cm``                           0 (excluded) … 100              cm
+``optics.path_cm``                           0.001 … 100                     cm
 ``optics.epsilon.value``, ``epsilon_max``    0 … 1e6                         L mol⁻¹ cm⁻¹
 ``optics.epsilon.rsd``                       0 … 5                           relative
 ``optics.noise.k1/k2/k3``                    0 … 1                           transmittance
-``optics.linear_range``                      0 … 10                          absorbance
+``optics.linear_range``                      0 … 10, ≥ 0.05 wide             absorbance
 ``optics.stray_light``                       0 … 1 (excluded)                fraction
 ``optics.display_step``                      0 … 1                           absorbance
 ``stock.conc_rsd``                           0 … 1 (excluded)                relative
-``stock.purity``                             0 (excluded) … 1                fraction
+``stock.purity``                             0.5 … 1                         fraction
 tube_volume, step, flask, capacity, on_hand  1e-6 … 10 000                   mL
+dispenser graduation, repeatability,         1e-6 … 10 000 (graduation ≤       mL
+systematic                                   capacity, repeatability ≤ 10 %)
 min_volume, rinse, dead_volume, fixed        0, or 1e-6 … 10 000             mL
 ``glassware.step``                           ≤ 20 000 levels to tube_volume
 ``glassware.delta_T_C``                      −30 … 30                        °C
@@ -37,6 +39,7 @@ min_volume, rinse, dead_volume, fixed        0, or 1e-6 … 10 000             m
 ``design.goal_se``                           0 (excluded) … 5                log10 units
 ``design.ionic_strength_tolerance``          0 … 1 (both excluded)           relative
 ``design.tubes``                             1 … 200                         integer
+``species``, ``stock`` (counts)              ≤ 40, ≤ 20                      entries
 ``design.check_weight``                      0 … 1 (excluded)                weight
 ``titration`` volumes                        1e-6 … 10 000                   mL
 ``titration.additions``                      1 … 60                          integer
@@ -50,12 +53,12 @@ from typing import Annotated, Any
 
 from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict
 
-from .errors import InputError
+from .errors import LocatedError
 from .text import check_identifier, check_text
 from .units import UnitError, parse_quantity
 
 
-class PlanError(InputError):
+class PlanError(LocatedError):
     """A plan that cannot be used, with the key path and a hint for the fix.
 
     Parameters
@@ -65,11 +68,6 @@ class PlanError(InputError):
     message : str
         What was wrong and how to fix it.
     """
-
-    def __init__(self, key: str, message: str):
-        self.key = key
-        self.message = message
-        super().__init__(f"{key}: {message}" if key else message)
 
 
 MAX_VOLUME_ML = 10_000.0  # 10 L: larger than any flask, burette or tube a plan describes
@@ -103,9 +101,15 @@ def _range(
         where = f"between {lo:g} and {hi:g}{u}"
 
     def check(v: float) -> float:
-        ok = math.isfinite(v) and (v > lo if lo_open else v >= lo) and (v < hi if hi_open else v <= hi)
+        finite = isinstance(v, int) or math.isfinite(v)  # an int of 400 digits is finite but not a float
+        ok = finite and (v > lo if lo_open else v >= lo) and (v < hi if hi_open else v <= hi)
         if not ok:
-            raise ValueError(f"must be {what}{where}, got {v:g}{u}{hint}")
+            shown = (
+                f"{v:g}"
+                if not isinstance(v, int) or abs(v) < 10**15
+                else f"a {len(str(abs(v)))}-digit number"
+            )
+            raise ValueError(f"must be {what}{where}, got {shown}{u}{hint}")
         return v
 
     return AfterValidator(check)

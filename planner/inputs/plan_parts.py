@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from pydantic import Field, field_validator, model_validator
 
+from .limits import MAX_ADDITIONS, MAX_WAVELENGTHS
 from .plan_fields import (
     Epsilon_,
     LogBeta,
@@ -32,6 +33,13 @@ def check_formula(v: dict[str, int]) -> dict[str, int]:
             raise ValueError(f"formula {comp} = {n}: only H may be negative (hydroxo species)")
     if not any(v.get(c, 0) for c in ("M", "L")):
         raise ValueError("formula must contain M or L, e.g. { M = 1, L = 1 }")
+    nonzero = {c: n for c, n in v.items() if n}
+    if nonzero in ({"M": 1}, {"L": 1}):
+        comp = next(iter(nonzero))
+        raise ValueError(
+            f"formula {{ {comp} = 1 }} is the free component {comp} itself, not a species: give the "
+            "complex's stoichiometry, e.g. { M = 1, L = 1 }"
+        )
     return v
 
 
@@ -53,7 +61,7 @@ class Titration(_Strict):
     titrant: StockId
     start_volume_mL: Volume = Field(alias="start_volume")
     max_volume_mL: Volume = Field(alias="max_volume")
-    additions: _int(1, 60) = 12
+    additions: _int(1, MAX_ADDITIONS) = 12
     step_mL: Volume | None = Field(default=None, alias="step")
     equilibrate: Text = "mix, then wait 1 min before reading"
 
@@ -66,9 +74,6 @@ class Titration(_Strict):
                 f"{self.start_volume_mL:g} mL: leave room for the additions",
             )
         return self
-
-
-MAX_WAVELENGTHS = 4001  # points of a spectrum: 400 nm at 0.1 nm, or 100–2000 nm at about 0.5 nm
 
 
 def check_spectra_keys(plan, absorbers: set[str]) -> None:

@@ -1,45 +1,32 @@
 """Recipes: tube × stock volumes, CSV in and out, and the totals in each tube after dilution.
 
-Recipe CSV rules (the same for readings): comma-separated, decimal point, UTF-8 (a byte-order mark is
-accepted); the first line that is neither blank nor a comment is the header ``tube,<stock id>,...``.
-Comments are lines starting with ``#`` at column 0 *above the header* only: below it every non-blank
-line is a tube, so a tube may be labelled ``#3``. Limits: :data:`MAX_CSV_BYTES` bytes, :data:`MAX_ROWS`
-tubes, and cells of at most the csv module's field limit.
+A recipe CSV has the header ``tube,<stock id>,...`` and one row per tube, volumes in mL; it is read by
+the rules every table follows (:mod:`planner.inputs.tables`), comma-separated with a decimal point (a
+``;``-separated file is refused with the fix). Limits: :data:`MAX_CSV_BYTES` bytes, :data:`MAX_ROWS` tubes.
 """
 
 from __future__ import annotations
 
-import csv
-import io
-import math
-import re
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
-from .files import read_user_text
+from .errors import LocatedError
+from .limits import MAX_CSV_BYTES as MAX_CSV_BYTES  # re-exported: the limits live in limits.py
+from .limits import MAX_ROWS as MAX_ROWS
 from .names import unknown_name
 from .plan import Plan
 from .plan_fields import MAX_VOLUME_ML, MIN_VOLUME_ML
+from .tables import Row, Table, TableSpec, parse_number, parse_table, read_table_text, write_csv
 from .text import check_identifier, visible
 
 VOLUME_DECIMALS = 4  # mL; far below any dispenser's resolution, so round trips are exact
-MAX_ROWS = 1000  # tubes in a recipe or readings file; a design has at most 200
-MAX_CSV_BYTES = 1_000_000
 DILUENT_TOLERANCE_ML = 1e-6  # a supplied to-mark diluent volume must equal the remainder this closely
-# a plain decimal number with a point: no 'nan', 'inf', '1_000' or hex, which float() would take
-_NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 
 
-class RecipeError(InputError):
+class RecipeError(LocatedError):
     """A recipe that does not fit the plan; ``key`` names the row/column."""
-
-    def __init__(self, key: str, message: str):
-        self.key = key
-        self.message = message
-        super().__init__(f"{key}: {message}" if key else message)
 
 
 @dataclass(frozen=True)
@@ -216,115 +203,38 @@ def assemble_recipe(
     return Recipe(tuple(tubes), ids, vol, total)
 
 
+RECIPE = TableSpec(what="recipe", header_example="tube,<stock>,...", row_word="tube", error=RecipeError)
+
+
 def read_text_file(path: str | Path, what: str) -> str:
     """Text of a CSV the user named, or a RecipeError saying the file is missing, too large or unreadable."""
-    return read_user_text(
-        path,
-        what=what,
-        limit_bytes=MAX_CSV_BYTES,
-        error=RecipeError,
-        kind="a .csv file",
-        too_large_hint=f"a {what} holds at most {MAX_ROWS} tubes: check that this is the right file",
-        encoding="utf-8-sig",
-    )
+    return read_table_text(path, replace(RECIPE, what=what))
 
 
 def read_recipe_csv(path: str | Path, plan: Plan) -> Recipe:
     """Read a recipe CSV: column ``tube`` then one column per dispensed stock (mL)."""
-    return parse_recipe_csv(read_text_file(path, "recipe"), plan, source=str(path))
-
-
-def csv_rows(text: str, source: str) -> list[tuple[int, list[str]]]:
-    """The header and data rows of a CSV text as (line number, cells), by the module's rules.
-
-    Raises
-    ------
-    RecipeError
-        For more than :data:`MAX_ROWS` data rows, an over-long cell, or a semicolon- or tab-separated file.
-    """
-    text = text.removeprefix("\ufeff")
-    lines = text.splitlines(keepends=True)
-    skip = 0
-    while skip < len(lines) and (not lines[skip].strip() or lines[skip].startswith("#")):
-        skip += 1  # blank lines and comments above the header
-    reader = csv.reader(io.StringIO("".join(lines[skip:])))
-    rows: list[tuple[int, list[str]]] = []
-    last = 0  # the line the previous row ended on: a quoted cell may span lines
-    try:
-        for r in reader:
-            start, last = last + 1, reader.line_num
-            if not r or not any(c.strip() for c in r):
-                continue
-            if any("\n" in c or "\r" in c for c in r):
-                raise RecipeError(
-                    f"{source} line {skip + start}",
-                    "a quoted cell runs over several lines "
-                    "(an unclosed quote?): close the quote on that line",
-                )
-            rows.append((skip + start, r))
-            if len(rows) > MAX_ROWS + 1:
-                raise RecipeError(
-                    source, f"more than {MAX_ROWS} tubes: a recipe holds at most {MAX_ROWS} rows"
-                )
-    except csv.Error as exc:
-        line = skip + reader.line_num
-        if "field larger" in str(exc):
-            raise RecipeError(
-                f"{source} line {line}",
-                f"a cell is longer than {csv.field_size_limit()} "
-                "characters (an unclosed quote?): check the quotes on that line",
-            ) from None
-        raise RecipeError(f"{source} line {line}", f"not readable as CSV ({exc}): check the quotes") from None
-    if rows:
-        first = rows[0][1]
-        if len(first) == 1:
-            for sep, name in ((";", "semicolon"), ("\t", "tab")):
-                if sep in first[0]:
-                    raise RecipeError(
-                        f"{source} header",
-                        f"the file looks {name}-separated: kplan reads "
-                        "comma-separated values with a decimal point, e.g. 'tube,CU,DY' and "
-                        "'T1,1.50,0.25'; export it as CSV with commas",
-                    )
-    return rows
+    return parse_recipe_csv(read_table_text(path, RECIPE), plan, source=str(path))
 
 
 def parse_volume_cell(cell: str, where: str, what: str = "a volume in mL") -> float:
     """A finite decimal number from a CSV cell, or a RecipeError naming ``where``."""
-    c = cell.strip()
-    if not _NUMBER.fullmatch(c):
-        hint = (
-            "; write a decimal point (1.50, not 1,50)"
-            if re.fullmatch(r"[+-]?\d*,\d+", c)
-            else "; leave no blanks"
-            if not c
-            else ""
-        )
-        raise RecipeError(where, f"'{visible(c)}' is not {what}{hint}")
-    v = float(c)
-    if not math.isfinite(v):  # '1e400' is a plain decimal, but past the largest float
-        raise RecipeError(where, f"'{c}' is out of range for {what}")
-    return v
+    return parse_number(cell, where, what, error=RecipeError)
 
 
-def _volume(cell: str, where: str) -> float:
+def _volume(table: Table, row: Row, j: int) -> float:
     """A recipe volume: 0, or a volume a dispenser could deliver (the plan's volume bounds)."""
-    v = parse_volume_cell(cell, where)
+    v = table.number(row, j, "a volume in mL")
     if v != 0 and not MIN_VOLUME_ML <= abs(v) <= MAX_VOLUME_ML:  # negatives get their own message later
         raise RecipeError(
-            where, f"{v:g} mL: write 0 or a volume between {MIN_VOLUME_ML:g} and {MAX_VOLUME_ML:g} mL"
+            table.where(row.line, table.header[j]),
+            f"{v:g} mL: write 0 or a volume between {MIN_VOLUME_ML:g} and {MAX_VOLUME_ML:g} mL",
         )
     return v
 
 
 def parse_recipe_csv(text: str, plan: Plan, source: str = "<recipe>") -> Recipe:
-    """Parse recipe CSV text (see the module docstring for the rules)."""
-    rows = csv_rows(text, source)
-    if not rows:
-        raise RecipeError(
-            source, "the recipe is empty: expected a header 'tube,<stock>,...' and one row per tube"
-        )
-    return _recipe_from_rows(rows, plan, source)
+    """Parse recipe CSV text (see :mod:`planner.inputs.tables` for the rules)."""
+    return recipe_from_table(parse_table(text, RECIPE, source), plan)
 
 
 def parse_recipe_with_column(
@@ -342,79 +252,55 @@ def parse_recipe_with_column(
     recipe : the recipe of the other columns.
     values : (n,) the extra column, in tube order.
     """
-    rows = csv_rows(text, source)
-    if not rows:
-        raise RecipeError(
-            source, f"empty: expected a header 'tube,<stock>,...,{columns[0]}' and one row per tube"
-        )
-    header = [h.strip() for h in rows[0][1]]
-    col = next((h for h in header if h in columns), None)
-    if col is None:
-        raise RecipeError(f"{source} header", f"no {columns[0]} column: add one named {' or '.join(columns)}")
-    j = header.index(col)
-    values = []
-    for ln, r in rows[1:]:
-        _check_width(r, len(header), f"{source} line {ln}")
-        values.append(parse_volume_cell(r[j], f"{source} line {ln}, {col}", what=what))
-    rest = [(ln, [c for k, c in enumerate(r) if k != j]) for ln, r in rows]
-    return _recipe_from_rows(rest, plan, source), np.array(values, dtype=float)
+    table = parse_table(text, replace(RECIPE, header_example=f"tube,<stock>,...,{columns[0]}"), source)
+    j = table.index(*columns)
+    if j is None:
+        raise RecipeError(table.where(), f"no {columns[0]} column: add one named {' or '.join(columns)}")
+    values = np.array([table.number(r, j, what) for r in table.rows], dtype=float)
+    return recipe_from_table(table, plan, skip=(j,)), values
 
 
-def _check_width(row: list[str], width: int, where: str) -> None:
-    if len(row) != width:
-        hint = ""
-        if len(row) > width:
-            hint = (
-                "; a decimal comma? write volumes with a decimal point (1.50, not 1,50), and quote "
-                "labels that contain commas"
-            )
-        raise RecipeError(where, f"expected {width} fields, got {len(row)}{hint}")
-
-
-def _recipe_from_rows(rows: list[tuple[int, list[str]]], plan: Plan, source: str) -> Recipe:
-    """A recipe from :func:`csv_rows` output: the header row, then one row per tube."""
-    header = [h.strip() for h in rows[0][1]]
+def recipe_from_table(table: Table, plan: Plan, skip: tuple[int, ...] = ()) -> Recipe:
+    """The recipe in a table: the first column ``tube``, then one column per stock id (mL); the columns
+    at ``skip`` (an absorbance, a note) are not part of it."""
+    cols = [k for k in range(len(table.header)) if k not in skip]
+    header = [table.header[k] for k in cols]
     ids = [s.id for s in plan.stock]
     if header[0].lower() != "tube":
-        raise RecipeError(f"{source} header", f"first column must be 'tube', got '{visible(header[0])}'")
+        raise RecipeError(table.where(), f"first column must be 'tube', got '{visible(header[0])}'")
     if len(header) == 1:
         raise RecipeError(
-            f"{source} header",
+            table.where(),
             f"only a 'tube' column: add one column per dispensed stock ({', '.join(ids)}), volumes in mL",
         )
     for h in header[1:]:
         if h not in ids:
-            raise RecipeError(f"{source} column '{visible(h)}'", unknown_name("stock", visible(h), ids))
-    if len(set(header)) != len(header):
-        raise RecipeError(f"{source} header", "a column appears twice")
-    tubes, data = [], []
-    for ln, r in rows[1:]:
-        _check_width(r, len(header), f"{source} line {ln}")
-        label = r[0].strip()
+            raise RecipeError(table.where(column=h), unknown_name("stock", visible(h), ids))
+    tubes = []
+    for r in table.rows:
         try:
-            check_identifier(label, "tube label")
+            tubes.append(check_identifier(r.cells[cols[0]], "tube label"))
         except ValueError as exc:
-            raise RecipeError(f"{source} line {ln}, tube", str(exc)) from None
-        tubes.append(label)
-        data.append([_volume(c, f"{source} line {ln}, {h}") for h, c in zip(header[1:], r[1:], strict=True)])
+            raise RecipeError(table.where(r.line, "tube"), str(exc)) from None
     if not tubes:
-        raise RecipeError(source, "no tubes: add one row per tube")
+        raise RecipeError(table.source, "no tubes: add one row per tube")
     if len(set(tubes)) != len(tubes):
         dup = next(t for t in tubes if tubes.count(t) > 1)
-        raise RecipeError(source, f"tube label '{visible(dup)}' appears twice: tube labels must be unique")
-    arr = np.array(data, dtype=float).reshape(len(tubes), len(header) - 1)
+        raise RecipeError(
+            table.source, f"tube label '{visible(dup)}' appears twice: tube labels must be unique"
+        )
+    arr = np.array([[_volume(table, r, k) for k in cols[1:]] for r in table.rows], dtype=float)
     return make_recipe(plan, {h: arr[:, j] for j, h in enumerate(header[1:])}, tubes)
 
 
 def recipe_to_csv(recipe: Recipe, plan: Plan) -> str:
-    """CSV text with the dispensed stocks (the diluent too under make_up = 'added')."""
+    """CSV text with the dispensed stocks (the diluent too under make_up = 'added'); tube labels and
+    stock ids are written as data, never as spreadsheet formulas."""
     cols = recipe.dispensed_ids(plan)
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["tube", *cols])
-    for i, t in enumerate(recipe.tubes):
-        w.writerow([t, *(_fmt(recipe.column(c)[i]) for c in cols)])
-    return buf.getvalue()
+    return write_csv(
+        ["tube", *cols],
+        ([t, *(_fmt(recipe.column(c)[i]) for c in cols)] for i, t in enumerate(recipe.tubes)),
+    )
 
 
 def _fmt(v: float) -> str:

@@ -2,22 +2,24 @@
 or ``--count N`` for numbered students.
 
 A roster that cannot be used raises :class:`RosterError` (a :class:`~planner.inputs.plan.PlanError`,
-so the command line prints one line naming the row or column and the fix, and exits 2). Names are
-kept exactly as typed (any script); the printed sheets escape them.
+so the command line prints one line naming the line or column and the fix, and exits 2). Names are
+kept exactly as typed (any script, trimmed); the printed sheets escape them. A roster follows the rules
+of every table (:mod:`planner.inputs.tables`): what a recipe refuses (control and text-direction
+characters, quoted line breaks, over-long cells, a semicolon-separated file), a roster refuses too.
 """
 
 from __future__ import annotations
 
-import csv
-import io
 import unicodedata
 from dataclasses import dataclass
 from pathlib import Path
 
+from .limits import MAX_ROSTER_BYTES, MAX_STUDENT_ID, MAX_STUDENTS, MAX_TEXT, check_count
 from .plan import PlanError
+from .tables import Table, TableSpec, parse_table, read_table_text
+from .text import visible
 
 __all__ = [
-    "MAX_FIELD",
     "MAX_STUDENTS",
     "Roster",
     "RosterError",
@@ -28,9 +30,7 @@ __all__ = [
 
 REQUIRED = ("id", "name")
 OPTIONAL = ("section", "bench")
-MAX_STUDENTS = 2000  # a whole year's intake; far above any one lab
-MAX_FIELD = 20000  # characters per cell; longer text is surely not a name
-ID_MAX = 64  # characters of a student id (it names a row of the key)
+ID_MAX = MAX_STUDENT_ID  # older name
 
 
 class RosterError(PlanError):
@@ -70,137 +70,99 @@ class Roster:
         )
 
 
-def _clean(value: str) -> str:
-    return value.strip()
+ROSTER = TableSpec(
+    what="roster",
+    header_example="id,name,section,bench",
+    row_word="student",
+    max_rows=MAX_STUDENTS,
+    max_bytes=MAX_ROSTER_BYTES,
+    error=RosterError,
+)
 
 
 def _has_controls(text: str) -> bool:
-    """Control characters other than the bidirectional marks (which a name in a right-to-left script
-    may legitimately carry); they are printed as text anyway, but an id must stay plain."""
+    """Control or format characters (zero-width and direction marks included): an id must stay plain."""
     return any(unicodedata.category(ch) in ("Cc", "Cf") for ch in text)
 
 
-def parse_roster_csv(text: str, source: str = "<roster>") -> Roster:  # noqa: C901
-    """Parse a roster CSV (UTF-8; a byte-order mark is accepted).
+def parse_roster_csv(text: str, source: str = "<roster>") -> Roster:
+    """Parse a roster CSV (UTF-8; a byte-order mark is accepted), by the rules every table follows
+    (:mod:`planner.inputs.tables`: no control or text-direction characters, cells of limited length).
 
     Raises
     ------
     RosterError
         For a missing column, an empty id or name, a duplicate id, a semicolon-separated file, an
-        over-long cell or an empty roster; the message names the row (as a spreadsheet numbers it,
-        the header being row 1) or the column, and the fix.
+        over-long cell or an empty roster; the message names the file's line or the column, and the fix.
     """
-    if text.startswith("\ufeff"):
-        text = text[1:]
-    if not text.strip():
-        raise RosterError(
-            source, "the roster is empty: write a header line 'id,name' and one line per student"
-        )
-    first = text.splitlines()[0]
-    if ";" in first and "," not in first:
-        raise RosterError(
-            f"{source} row 1",
-            "the columns are separated by semicolons: save the roster as "
-            "comma-separated CSV (id,name,section,bench)",
-        )
-    if "\t" in first and "," not in first:
-        raise RosterError(
-            f"{source} row 1",
-            "the columns are separated by tabs: save the roster as "
-            "comma-separated CSV (id,name,section,bench)",
-        )
-    try:
-        rows = list(csv.reader(io.StringIO(text, newline="")))
-    except csv.Error as exc:
-        raise RosterError(source, f"not readable as CSV ({exc}): save it as comma-separated UTF-8") from None
-    header = [_clean(h).lower() for h in rows[0]]
-    for col in REQUIRED:
-        if col not in header:
-            raise RosterError(
-                f"{source} column '{col}'",
-                f"missing: the header must name the columns "
-                f"id and name (optional: section, bench); it has {', '.join(header) or 'nothing'}",
-            )
-    unknown = [h for h in header if h and h not in REQUIRED + OPTIONAL]
-    if unknown:
-        raise RosterError(
-            f"{source} column '{unknown[0]}'",
-            "unknown column: use id, name, section and bench (rename or delete the others)",
-        )
-    dup_cols = sorted({h for h in header if h and header.count(h) > 1})
-    if dup_cols:
-        raise RosterError(f"{source} column '{dup_cols[0]}'", "appears twice in the header: keep one")
-    col = {h: header.index(h) for h in REQUIRED + OPTIONAL if h in header}
+    table = parse_table(text, ROSTER, source)
+    col = _columns(table)
     ids: list[str] = []
-    names: list[str] = []
-    sections: list[str] = []
-    benches: list[str] = []
     seen: dict[str, int] = {}
-    for r, row in enumerate(rows[1:], start=2):
-        if not any(_clean(c) for c in row):
-            continue  # blank line
-        if len(row) > len(header):
-            raise RosterError(
-                f"{source} row {r}",
-                f"has {len(row)} cells but the header has {len(header)}: "
-                f'a name with a comma must be quoted ("Surname, Given")',
-            )
-        cells = {h: (_clean(row[j]) if j < len(row) else "") for h, j in col.items()}
-        for h, v in cells.items():
-            if len(v) > MAX_FIELD:
-                raise RosterError(
-                    f"{source} row {r} column '{h}'",
-                    f"{len(v)} characters: shorten it to at most {MAX_FIELD}",
-                )
-        sid, name = cells["id"], cells["name"]
-        if not sid:
-            raise RosterError(f"{source} row {r} column 'id'", "empty: give every student an id")
-        if len(sid) > ID_MAX or _has_controls(sid):
-            raise RosterError(
-                f"{source} row {r} column 'id'",
-                f"use a plain id of at most {ID_MAX} characters without control or direction characters",
-            )
-        if not name:
-            raise RosterError(
-                f"{source} row {r} column 'name'", f"empty for id {sid}: write the student's name"
-            )
+    people: list[tuple[str, str, str, str]] = []
+    for r in table.rows:
+        sid, name, section, bench = (r.cells[col[h]] if h in col else "" for h in REQUIRED + OPTIONAL)
+        _check_student(table, r.line, sid, name)
         if sid in seen:
             raise RosterError(
-                f"{source} row {r} column 'id'",
-                f"'{sid}' is already used in row {seen[sid]}: give every student a different id",
+                table.where(r.line, "id"),
+                f"'{visible(sid)}' is already used on line {seen[sid]}: give every student a different id",
             )
-        seen[sid] = r
+        seen[sid] = r.line
         ids.append(sid)
-        names.append(name)
-        sections.append(cells.get("section", ""))
-        benches.append(cells.get("bench", ""))
-        if len(ids) > MAX_STUDENTS:
-            raise RosterError(f"{source} row {r}", f"more than {MAX_STUDENTS} students: split the roster")
-    if not ids:
+        people.append((sid, name, section, bench))
+    if not people:
         raise RosterError(source, "no students: add one line per student under the header id,name")
-    return Roster(tuple(ids), tuple(names), tuple(sections), tuple(benches))
+    return Roster(*(tuple(p[k] for p in people) for k in range(4)))
+
+
+def _columns(table: Table) -> dict[str, int]:
+    """Column positions of id, name (required), section and bench (optional); nothing else allowed."""
+    header = [h.lower() for h in table.header]
+    for c in REQUIRED:
+        if c not in header:
+            raise RosterError(
+                table.where(column=c),
+                "missing: the header must name the columns id and name (optional: section, bench); "
+                f"it has {', '.join(visible(h) for h in header)}",
+            )
+    unknown = [h for h in table.header if h.lower() not in REQUIRED + OPTIONAL]
+    if unknown:
+        raise RosterError(
+            table.where(column=unknown[0]),
+            "unknown column: use id, name, section and bench (rename or delete the others)",
+        )
+    dup = next((h for h in header if header.count(h) > 1), None)
+    if dup is not None:
+        raise RosterError(table.where(column=dup), "appears twice in the header: keep one")
+    return {h: k for k, h in enumerate(header)}
+
+
+def _check_student(table: Table, line: int, sid: str, name: str) -> None:
+    if not sid:
+        raise RosterError(table.where(line, "id"), "empty: give every student an id")
+    if len(sid) > MAX_STUDENT_ID or _has_controls(sid):
+        raise RosterError(
+            table.where(line, "id"),
+            f"use a plain id of at most {MAX_STUDENT_ID} characters without control or direction characters",
+        )
+    if not name:
+        raise RosterError(table.where(line, "name"), f"empty for id {visible(sid)}: write the student's name")
+    if len(name) > MAX_TEXT:
+        raise RosterError(
+            table.where(line, "name"), f"{len(name)} characters: shorten it to at most {MAX_TEXT}"
+        )
 
 
 def read_roster_csv(path: str | Path) -> Roster:
-    """Read and parse a roster file (see :func:`parse_roster_csv`)."""
-    p = Path(path)
-    try:
-        data = p.read_bytes()
-    except OSError as exc:
-        raise RosterError(str(p), f"cannot read the roster ({exc.strerror or exc}): check the path") from None
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise RosterError(str(p), f"not UTF-8 (byte {exc.start}): save the roster as CSV UTF-8") from None
-    return parse_roster_csv(text, str(p))
+    """Read and parse a roster file (see :func:`parse_roster_csv`): a regular file of at most
+    :data:`MAX_ROSTER_BYTES` bytes."""
+    return parse_roster_csv(read_table_text(path, ROSTER), str(path))
 
 
 def roster_of_count(n: int) -> Roster:
     """``n`` numbered students (ids S01, S02, …; the name line is left for the student to fill)."""
-    if isinstance(n, bool) or not isinstance(n, int) or n < 1:
-        raise RosterError("--count", f"{n!r}: give a whole number of students ≥ 1")
-    if n > MAX_STUDENTS:
-        raise RosterError("--count", f"{n}: at most {MAX_STUDENTS} students")
+    n = check_count(n, "count (students)", MAX_STUDENTS)
     width = max(2, len(str(n)))
     ids = tuple(f"S{i:0{width}d}" for i in range(1, n + 1))
     return Roster(ids, tuple("" for _ in ids), tuple("" for _ in ids), tuple("" for _ in ids))

@@ -7,17 +7,16 @@ which also checks it against the cell and the dispenser.
 
 from __future__ import annotations
 
-import csv
-import io
-import math
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from .recipe import RecipeError, read_text_file
-
-MAX_STEPS = 200  # far beyond any cuvette titration; a longer file is a mistake, not a schedule
+from .limits import MAX_STEPS
+from .recipe import RecipeError
+from .tables import TableSpec, parse_table, read_table_text, write_csv
+from .text import visible
 
 
 @dataclass(frozen=True)
@@ -41,71 +40,57 @@ class Schedule:
         return np.cumsum(self.aliquot_mL)
 
 
+SCHEDULE = TableSpec(
+    what="schedule",
+    header_example="step,aliquot_mL[,absorbance]",
+    row_word="step",
+    max_rows=MAX_STEPS,
+    decimal_comma=True,
+    error=RecipeError,
+)
+
+
 def is_schedule_csv(text: str) -> bool:
     """True when the first non-comment line is a titration schedule's header."""
     first = next((ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")), "")
-    return first.split(",")[0].strip().lower() == "step"
+    return re.split("[,;]", first)[0].strip().lower() == "step"
 
 
 def parse_schedule_csv(text: str, source: str = "<schedule>", *, need_absorbance: bool = False) -> Schedule:
     """Read a schedule CSV (see the module docstring); every problem is one RecipeError naming the line."""
-    try:
-        rows = [r for r in csv.reader(io.StringIO(text)) if r and any(c.strip() for c in r)]
-    except csv.Error as exc:
-        raise RecipeError(source, f"not a readable CSV ({exc})") from None
-    rows = [r for r in rows if not r[0].lstrip().startswith("#")]
-    if not rows:
-        raise RecipeError(source, "empty: expected a header 'step,aliquot_mL[,absorbance]'")
-    header = [h.strip() for h in rows[0]]
-    if header[:2] != ["step", "aliquot_mL"]:
+    table = parse_table(text, SCHEDULE, source)
+    if list(table.header[:2]) != ["step", "aliquot_mL"]:
         raise RecipeError(
-            f"{source} header", f"a titration schedule starts 'step,aliquot_mL'; got '{','.join(header)}'"
+            table.where(),
+            f"a titration schedule starts 'step,aliquot_mL'; got '{visible(','.join(table.header))}'",
         )
-    has_a = "absorbance" in header
-    if need_absorbance and not has_a:
-        raise RecipeError(
-            f"{source} header", "no absorbance column: add one with the reading after each step"
-        )
-    if len(rows) - 1 > MAX_STEPS:
-        raise RecipeError(source, f"{len(rows) - 1} steps: at most {MAX_STEPS} are read")
-    ja = header.index("absorbance") if has_a else -1
-    steps, vols, reads = [], [], []
-    for ln, r in enumerate(rows[1:], start=2):
-        if len(r) != len(header):
-            raise RecipeError(f"{source} line {ln}", f"expected {len(header)} fields, got {len(r)}")
-        steps.append(r[0].strip())
-        for col, out in ((1, vols), (ja, reads)):
-            if col < 0:
-                continue
-            try:
-                x = float(r[col])
-            except ValueError:
-                raise RecipeError(
-                    f"{source} line {ln}, {header[col]}", f"'{r[col]}' is not a number"
-                ) from None
-            if not math.isfinite(x):
-                raise RecipeError(f"{source} line {ln}, {header[col]}", f"'{r[col]}' is not a finite number")
-            out.append(x)
-        if vols[-1] < 0:
-            raise RecipeError(f"{source} line {ln}, aliquot_mL", f"negative aliquot {vols[-1]:g} mL")
-    if not steps:
+    ja = table.index("absorbance")
+    if need_absorbance and ja is None:
+        raise RecipeError(table.where(), "no absorbance column: add one with the reading after each step")
+    if not table.rows:
         raise RecipeError(source, "no steps: add one row per addition")
+    steps = [r.cells[0] for r in table.rows]
+    vols = np.array([table.number(r, 1, "a volume in mL") for r in table.rows], dtype=float)
+    reads = None if ja is None else np.array([table.number(r, ja, "an absorbance") for r in table.rows])
+    bad = np.flatnonzero(vols < 0)
+    if bad.size:
+        r = table.rows[bad[0]]
+        raise RecipeError(table.where(r.line, "aliquot_mL"), f"negative aliquot {vols[bad[0]]:g} mL")
     if len(set(steps)) != len(steps):
         raise RecipeError(source, "step labels must be unique")
-    return Schedule(
-        tuple(steps), np.array(vols, dtype=float), np.array(reads, dtype=float) if has_a else None
-    )
+    return Schedule(tuple(steps), vols, reads)
 
 
 def read_schedule_csv(path: str | Path, *, need_absorbance: bool = False) -> Schedule:
-    return parse_schedule_csv(read_text_file(path, "schedule"), str(path), need_absorbance=need_absorbance)
+    return parse_schedule_csv(read_table_text(path, SCHEDULE), str(path), need_absorbance=need_absorbance)
 
 
 def schedule_to_csv(schedule: Schedule) -> str:
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["step", "aliquot_mL"] + (["absorbance"] if schedule.absorbance is not None else []))
-    for i, s in enumerate(schedule.steps):
-        v = f"{schedule.aliquot_mL[i]:.4f}".rstrip("0").rstrip(".") or "0"
-        w.writerow([s, v] + ([f"{schedule.absorbance[i]:.4f}"] if schedule.absorbance is not None else []))
-    return buf.getvalue()
+    """CSV text of a schedule (step labels written as data, never as spreadsheet formulas)."""
+    a = schedule.absorbance
+    rows = (
+        [s, f"{schedule.aliquot_mL[i]:.4f}".rstrip("0").rstrip(".") or "0"]
+        + ([f"{a[i]:.4f}"] if a is not None else [])
+        for i, s in enumerate(schedule.steps)
+    )
+    return write_csv(["step", "aliquot_mL"] + (["absorbance"] if a is not None else []), rows)

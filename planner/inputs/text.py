@@ -14,8 +14,7 @@ from __future__ import annotations
 
 import re
 
-MAX_TEXT = 200  # characters in a title, label, reagent name or formula
-MAX_IDENTIFIER = 40  # characters in a stock id, species name, ion name or tube label
+from .limits import MAX_IDENTIFIER, MAX_TEXT
 
 # C0 and C1 control characters (ESC starts terminal escape sequences, OSC 8 makes links), DEL, the
 # bidirectional embeddings/overrides/isolates and marks (they reorder what is shown, U+202E reverses a
@@ -63,3 +62,10 @@ def check_text(text: str, what: str = "text") -> str:
     if len(text) > MAX_TEXT:
         raise ValueError(f"{what} is {len(text)} characters long; at most {MAX_TEXT}: shorten it")
     return text
+
+
+def plural(n: int | float, word: str, many: str | None = None) -> str:
+    """``n`` with ``word`` in the number it takes: ``plural(1, "tube")`` → "1 tube", ``plural(3, "tube")``
+    → "3 tubes", ``plural(2, "copy", "copies")`` → "2 copies". Counts print as integers."""
+    k = int(n) if float(n) == int(n) else n
+    return f"{k} {word if k == 1 else (many or word + 's')}"

@@ -6,13 +6,20 @@ concentrations and mL for volumes. Everything past this module is a plain float 
 
 from __future__ import annotations
 
+import re
 from functools import cache
 
 import pint
 
 from .errors import InputError
+from .limits import MAX_QUANTITY_CHARS
 
-MAX_QUANTITY_CHARS = 60  # "0.0200 mol/L" is 12; pint's expression parser need not see a page of text
+# What a quantity may look like before pint sees it: a plain decimal number, then unit words joined by
+# '/', '*', '·' or spaces, each with at most a one-digit power. pint's parser evaluates arithmetic
+# ('9**9**9' would run for ever, '10**400' overflows): no arithmetic reaches it.
+_NUM = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
+_WORD = r"[A-Za-zµμ]+(?:\s*(?:\*\*|\^)\s*[+-]?\d)?"
+_QUANTITY = re.compile(rf"\s*{_NUM}\s*(?:{_WORD}(?:\s*[/*·]\s*{_WORD}|\s+{_WORD})*)?\s*")
 
 
 class UnitError(InputError):
@@ -65,7 +72,12 @@ def parse_quantity(value: object, kind: str) -> float:
     if isinstance(value, bool):
         raise UnitError(f"expected a {kind} such as '{example}', got {value!r}")
     if isinstance(value, (int, float)):
-        return float(value)
+        try:
+            return float(value)
+        except OverflowError:  # an integer of hundreds of digits
+            raise UnitError(
+                f"a {len(str(abs(value)))}-digit number is not a {kind}: write e.g. '{example}'"
+            ) from None
     if not isinstance(value, str):
         raise UnitError(f"expected a {kind} such as '{example}', got {value!r}")
     if len(value) > MAX_QUANTITY_CHARS:
@@ -73,7 +85,9 @@ def parse_quantity(value: object, kind: str) -> float:
             f"{value[:20]!r}... is {len(value)} characters long; a {kind} such as '{example}' "
             f"needs at most {MAX_QUANTITY_CHARS}"
         )
-    text = value.strip().replace("µ", "u").replace("μ", "u")
+    if not _QUANTITY.fullmatch(value):
+        raise UnitError(f"cannot read {value!r} as a {kind}: write a number and a unit, e.g. '{example}'")
+    text = value.strip().replace("µ", "u").replace("μ", "u").replace("·", "*")
     ureg = _registry()
     try:
         q = ureg.Quantity(text)

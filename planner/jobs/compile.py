@@ -9,12 +9,13 @@ together a :class:`~planner.inference.study.Study`. Nothing below this layer tak
 from __future__ import annotations
 
 from collections.abc import Mapping
+from dataclasses import replace
 
 import numpy as np
 
 from ..inference.precision import free_parameters
 from ..inference.study import Study
-from ..inputs.plan import Plan, PlanError, ion_charge, unknown_name
+from ..inputs.plan import PISTON_DISPENSERS, Dispenser, Plan, PlanError, ion_charge, unknown_name
 from ..inputs.recipe import Recipe, totals_M
 from ..model import optics
 from ..model.compiled import Model, TubeState, predict, tube_ions_M
@@ -29,6 +30,7 @@ __all__ = [
     "build_model",
     "compile_bench",
     "compile_study",
+    "dispenser_item",
     "error_budget",
     "expected_state",
     "make_up_min_mL",
@@ -111,11 +113,12 @@ def plan_devices(plan: Plan) -> Devices:
     items = []
     for j, d in enumerate(plan.glassware.dispenser):
         try:
-            items.append(catalogue.lookup(d.kind, d.capacity_mL, d.cls, d.tolerance_mL))
+            items.append(dispenser_item(d))
         except catalogue.GlasswareError as exc:
-            raise PlanError(
-                f"glassware.dispenser[{j}]", f"{exc}; or give tolerance = '...' to describe it"
-            ) from None
+            what = (
+                "systematic = '...' and repeatability = '...'" if d.kind in PISTON_DISPENSERS else "tolerance"
+            )
+            raise PlanError(f"glassware.dispenser[{j}]", f"{exc}; or give {what} to describe it") from None
     dev = np.full(len(plan.stock), -1, dtype=int)
     for k, s in enumerate(plan.stock):
         for j, d in enumerate(plan.glassware.dispenser):
@@ -127,7 +130,7 @@ def plan_devices(plan: Plan) -> Devices:
         f = plan.glassware.flask
         cap = f.capacity_mL if f else plan.glassware.tube_volume_mL
         try:
-            flask = catalogue.lookup("flask", cap, f.cls if f else "A", f.tolerance_mL if f else None)
+            flask = catalogue.lookup("flask", cap, f.cls if f else None, f.tolerance_mL if f else None)
         except catalogue.GlasswareError as exc:
             raise PlanError(
                 "glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}"
@@ -139,6 +142,28 @@ def plan_devices(plan: Plan) -> Devices:
                 f"tubes: make tube_volume and the flask capacity equal",
             )
     return Devices(tuple(items), dev, flask)
+
+
+def dispenser_item(d: Dispenser) -> catalogue.GlasswareItem:
+    """A plan's ``[[glassware.dispenser]]`` as a catalogue item, with the figures the plan states (its
+    graduation, a measured repeatability, a micropipette's or piston burette's systematic error).
+
+    Raises
+    ------
+    catalogue.GlasswareError
+        A size the catalogue lacks and the plan does not describe, or figures it cannot use.
+    """
+    item = catalogue.lookup(
+        d.kind,
+        d.capacity_mL,
+        d.cls,
+        d.limit_mL,
+        graduation_mL=d.graduation_mL,
+        repeatability_mL=d.repeatability_mL,
+    )
+    if d.systematic_mL is not None:  # the lab's own figure, not a catalogue or certificate tolerance
+        item = replace(item, source="systematic error measured by the lab (plan)")
+    return item
 
 
 def compile_bench(plan: Plan) -> Bench:

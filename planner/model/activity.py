@@ -7,7 +7,8 @@ state (I -> 0):
     log beta(I) = log beta0 + p log g_M + q log g_L + r log g_H - log g_s,
     z_s = p z_M + q z_L + r z_H,
 
-for a species M_p L_q H_r with overall constant beta = [s] / ([M]^p [L]^q [H]^r) (see planner.chemistry).
+for a species M_p L_q H_r with overall constant beta = [s] / ([M]^p [L]^q [H]^r) (see
+planner.model.speciation).
 All logs are base 10. Vectorised over ionic strengths (tubes) and species.
 """
 
@@ -34,7 +35,7 @@ __all__ = [
 
 # Davies (1962), *Ion Association*, Butterworths: A = 0.509 at 25 C (log10, (L/mol)^1/2).
 DAVIES_A_25C = 0.509
-# Above this the Davies equation is no longer a usable approximation (domain.md section 1: poor above
+# Above this the Davies equation is no longer a usable approximation (Davies 1962; poor above
 # 0.1-0.5 M); a warning is raised.
 DAVIES_MAX_I_M = 0.5
 # the activity models accepted by log_beta_at_ionic_strength / log_beta_to_zero_ionic_strength

@@ -14,7 +14,7 @@ import numpy as np
 
 from . import activity, closed_forms, optics, speciation
 
-IONIC_STRENGTH_WARN_M = 0.5  # Davies is poor above this [source: domain.md §1, Davies 1962]
+IONIC_STRENGTH_WARN_M = 0.5  # Davies is poor above this [source: Davies 1962, Ion Association]
 ACTIVITY_ITERATIONS = 4  # fixed-point passes I -> constants -> speciation -> I; converges in 2–3
 
 

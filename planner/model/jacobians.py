@@ -1,8 +1,8 @@
 """Jacobians of the expected absorbances and the Fisher information they carry.
 
 Derivatives are analytic: the equilibrium's sensitivities come from the implicit function theorem
-(:func:`planner.sensitivities.sensitivities`), then the chain rule through Beer–Lambert and the stray-light
-curve. All functions are vectorised over tubes (and any leading batch axes).
+(:func:`planner.model.sensitivities.sensitivities`), then the chain rule through Beer–Lambert and the
+stray-light curve. All functions are vectorised over tubes (and any leading batch axes).
 """
 
 from __future__ import annotations

@@ -1,5 +1,5 @@
 """The equilibrium solver's engine: Newton's method on the convex formulation, the p ≤ 1 elimination,
-the closed-form starting points and the bracketed fallback (see :mod:`planner.speciation`).
+the closed-form starting points and the bracketed fallback (see :mod:`planner.model.speciation`).
 """
 
 from __future__ import annotations

@@ -22,7 +22,7 @@ def beer_lambert(conc_M: np.ndarray, epsilon_M_cm: np.ndarray, path_cm: float) -
 def with_stray_light(absorbance: float | np.ndarray, stray_fraction: float) -> np.ndarray:
     """Observed absorbance with a stray-light fraction s of the incident light.
 
-    A_obs = −log10((10^−A + s) / (1 + s))  [source: ASTM E387; domain.md §2].
+    A_obs = −log10((10^−A + s) / (1 + s))  [source: ASTM E387].
     """
     a = np.asarray(absorbance, dtype=float)
     if stray_fraction <= 0:
@@ -86,7 +86,7 @@ def photometric_sd(
 def bandwidth_factor(instrument_bandwidth_nm: float | None, band_fwhm_nm: float | None) -> float:
     """Apparent/true ε for a Gaussian band read with a finite spectral bandwidth.
 
-    ε_app ≈ ε / √(1 + (bandwidth / band width)²) [derived, domain.md §2].
+    ε_app ≈ ε / √(1 + (bandwidth / band width)²) [derived].
     """
     if not instrument_bandwidth_nm or not band_fwhm_nm:
         return 1.0

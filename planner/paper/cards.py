@@ -13,13 +13,13 @@ WeasyPrint fetches nothing but inline ``data:`` URLs (:func:`planner.paper.rende
 
 from __future__ import annotations
 
-import csv
-import io
-
 from ..inputs.plan import Plan
+from ..inputs.tables import write_csv
+from ..inputs.text import plural
 from ..jobs.classroom.cards import ClassSet
 from ..jobs.classroom.stock_list import ClassStock
 from . import fmt, safety
+from .bench_volumes import reading_note
 from .render import PAPERS, html_to_pdf, render_html
 from .sheets import (
     RenderError,
@@ -30,7 +30,7 @@ from .sheets import (
     checklist,
     pretty_formula,
 )
-from .workbook import stable_xlsx
+from .workbook import append_row, stable_xlsx
 
 __all__ = [
     "KEY_COLUMNS",
@@ -146,7 +146,8 @@ def _card_shared(plan: Plan, cards) -> dict:
             for sid in seq
         ],
         "makeup": f"{plan.diluent.id} to the mark" if to_mark else None,
-        "step_text": fmt.sig(g.step_mL, 1),
+        "step_text": fmt.volume(g.step_mL, g.step_mL),
+        "reading_note": reading_note(plan, seq),
         "checklist": checklist(plan, blank_name),
         "safety": _student_safety(plan),
         "custom_order": g.order is not None,
@@ -238,37 +239,31 @@ def key_rows(plan: Plan, cs: ClassSet) -> list[dict]:
     return rows
 
 
-def _csv_safe(text: str) -> str:
-    """Text a spreadsheet will not run as a formula (OWASP CSV injection: a leading = + - @ tab or CR)."""
-    return "'" + text if text[:1] in ("=", "+", "-", "@", "\t", "\r") else text
-
-
 def key_csv(plan: Plan, cs: ClassSet) -> str:
     """``key.csv``: student, name, section, tube, one column per stock (mL), absorbance, band_low,
-    band_high."""
+    band_high; every text cell is data, never a spreadsheet formula (and reads back as written)."""
     ids = [s.id for s in plan.stock]
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow([*KEY_COLUMNS, *ids, *KEY_TAIL])
-    for r in key_rows(plan, cs):
-        w.writerow(
+    return write_csv(
+        [*KEY_COLUMNS, *ids, *KEY_TAIL],
+        (
             [
-                _csv_safe(r["student"]),
-                _csv_safe(r["name"]),
-                _csv_safe(r["section"]),
+                r["student"],
+                r["name"],
+                r["section"],
                 r["tube"],
                 *(f"{r['volumes_mL'][s]:.4f}" for s in ids),
                 f"{r['absorbance']:.4f}",
                 f"{r['band_low']:.4f}",
                 f"{r['band_high']:.4f}",
             ]
-        )
-    return buf.getvalue()
+            for r in key_rows(plan, cs)
+        ),
+    )
 
 
 def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
-    """``key.xlsx``: the key as a workbook (numbers as numbers), its timestamps fixed so the bytes
-    depend on the class set only."""
+    """``key.xlsx``: the key as a workbook (numbers as numbers, text as text), its timestamps fixed so
+    the bytes depend on the class set only."""
 
     from openpyxl import Workbook
 
@@ -276,9 +271,10 @@ def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
     wb = Workbook()
     ws = wb.active
     ws.title = "key"
-    ws.append([*KEY_COLUMNS, *ids, *KEY_TAIL])
+    append_row(ws, [*KEY_COLUMNS, *ids, *KEY_TAIL])
     for r in key_rows(plan, cs):
-        ws.append(
+        append_row(
+            ws,
             [
                 r["student"],
                 r["name"],
@@ -288,16 +284,15 @@ def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
                 round(r["absorbance"], 4),
                 round(r["band_low"], 4),
                 round(r["band_high"], 4),
-            ]
+            ],
         )
-    for row in ws.iter_rows(min_row=2, max_col=3):  # names as text, never formulas
-        for cell in row:
-            cell.data_type = "s"
     ws.freeze_panes = "E2"
     info = wb.create_sheet("about")
-    info.append(["title", plan.title])
-    info.append(["seed", cs.seed])
-    info.append(["band", f"±{BAND_SD:g} sd of each tube's full error budget (photometric, delivery, stock)"])
+    append_row(info, ["title", plan.title])
+    append_row(info, ["seed", cs.seed])
+    append_row(
+        info, ["band", f"±{BAND_SD:g} sd of each tube's full error budget (photometric, delivery, stock)"]
+    )
     return stable_xlsx(wb)
 
 
@@ -334,14 +329,14 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
         ("one student, this class's median card", se["cards_median"], None),
         ("one student, the best single recipe", se["best_single"], None),
         ("one student, the evenly spaced series", se["even_single"], None),
-        (f"the whole class pooled ({len(cs.cards)} cards, stocks shared)", se["pooled"], None),
+        (f"the whole class pooled ({plural(len(cs.cards), 'card')}, stocks shared)", se["pooled"], None),
         (
-            f"{len(cs.cards)} copies of the best single recipe",
+            f"{plural(len(cs.cards), 'copy', 'copies')} of the best single recipe",
             se["pooled_best_copies"],
             se["pooled_best_copies"] / se["pooled"],
         ),
         (
-            f"{len(cs.cards)} copies of the evenly spaced series",
+            f"{plural(len(cs.cards), 'copy', 'copies')} of the evenly spaced series",
             se["pooled_even_copies"],
             se["pooled_even_copies"] / se["pooled"],
         ),
@@ -511,12 +506,10 @@ def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
     """``stocks.csv``: one row per stock for the class (scope ``class``), then one per stock and section."""
     g = plan.glassware
     allow = g.rinse_mL + g.dead_volume_mL
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(STOCK_COLUMNS)
+    rows = []
     for s in stocks:
         p = s.preparation
-        w.writerow(
+        rows.append(
             [
                 s.id,
                 "class",
@@ -534,10 +527,10 @@ def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
     for s in stocks:
         preps = s.section_preparations or (None,) * len(s.sections)
         for (name, v, b, t), sp in zip(s.sections, preps, strict=True):
-            w.writerow(
+            rows.append(
                 [
                     s.id,
-                    f"section {_csv_safe(name)}" if name else "section",
+                    f"section {name}" if name else "section",
                     f"{v:.2f}",
                     b,
                     f"{b * allow:.2f}",
@@ -549,4 +542,4 @@ def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
                     "" if sp is None else sp[1],
                 ]
             )
-    return buf.getvalue()
+    return write_csv(STOCK_COLUMNS, rows)

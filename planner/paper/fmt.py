@@ -38,10 +38,36 @@ def conc(c_M: float) -> str:
     return f"{sig(c_M * 1e12, 3)} pM"
 
 
+MAX_STEP_DECIMALS = 6
+"""Most decimals a grid step is written with (1 nL in mL); a step with more is not a decimal grid."""
+
+
+def step_decimals(step: float) -> int:
+    """Decimals that write every multiple of ``step`` exactly: those of the step itself.
+
+    0.25 → 2, 0.05 → 2, 0.001 → 3, 0.2 → 1, 1 → 0, 0.125 → 3. The step's order of magnitude alone
+    (−floor(log10 step)) is not enough: it writes 0.75 on a 0.25 mL grid as "0.8" [derived: k·step
+    has no more decimals than step, and step·10^d is an integer for the smallest such d].
+    """
+    if not (step > 0 and math.isfinite(step)):
+        return 2
+    for d in range(MAX_STEP_DECIMALS + 1):
+        scaled = step * 10.0**d
+        if abs(scaled - round(scaled)) <= 1e-6 * max(scaled, 1.0):
+            return d
+    return MAX_STEP_DECIMALS
+
+
+def _to_step(x: float, step: float) -> str:
+    """``x`` rounded to the decimals of ``step`` (a reading resolution: a display, a balance)."""
+    return f"{x:.{step_decimals(step)}f}"
+
+
 def volume(v_mL: float, step_mL: float = 0.01) -> str:
-    """A volume written to the dispenser's reading precision (the decimals of ``step_mL``)."""
-    decimals = max(0, -int(math.floor(math.log10(step_mL) + 1e-9))) if step_mL > 0 else 2
-    return f"{v_mL:.{decimals}f}"
+    """A volume of a recipe written so that the text reads back as the volume: with the decimals of its
+    grid ``step_mL`` (:func:`step_decimals`; 0.75 mL on a 0.25 mL grid is "0.75", never "0.8"), and more
+    where the volume is off the grid (0.333 mL on a 0.01 mL grid stays "0.333", not a rounded "0.33")."""
+    return f"{v_mL:.{max(step_decimals(step_mL), step_decimals(abs(v_mL)) if v_mL else 0)}f}"
 
 
 # -- printed sheets (added for the prep sheet and the design report) -------------------------------
@@ -67,7 +93,7 @@ def conc_with_uncertainty(c_M: float, u_M: float | None) -> str:
 
 def mass(m_g: float, readability_g: float = 1e-4) -> str:
     """A mass to weigh, written to the balance's readability (``0.2440 g`` on a 0.1 mg balance)."""
-    return f"{volume(m_g, readability_g)} g"
+    return f"{_to_step(m_g, readability_g)} g"
 
 
 def percent(x: float | None, digits: int = 2) -> str:
@@ -84,7 +110,7 @@ def band(x: float, half_width: float) -> str:
 
 def fixed(x: float, step: float = 0.01) -> str:
     """``x`` with the decimals of ``step`` (a reading resolution), e.g. ``fixed(0.1, 0.01)`` → ``0.10``."""
-    return volume(x, step)
+    return _to_step(x, step)
 
 
 _SUB = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
@@ -113,7 +139,7 @@ def chem_text(text: str) -> str:
 def band_column(values, half_widths, step: float = 0.001) -> list[str]:
     """``x ± h`` for a whole column with the same decimals, those of ``step`` (the meter's display:
     0.001 A by default), so the column reads like the instrument does."""
-    return [f"{volume(x, step)} ± {volume(h, step)}" for x, h in zip(values, half_widths, strict=True)]
+    return [f"{_to_step(x, step)} ± {_to_step(h, step)}" for x, h in zip(values, half_widths, strict=True)]
 
 
 def conc_column(values_M, digits: int = 3) -> tuple[str, list[str]]:

@@ -7,14 +7,13 @@ fixed zip and document timestamps, so the same inputs give the same bytes.
 
 from __future__ import annotations
 
-import csv
-import io
-
 import numpy as np
 
+from ..inputs.tables import write_csv
+from ..inputs.text import plural
 from . import fmt
 from .figures import ACCENT, BAND, INK, WARN, _draw
-from .workbook import stable_xlsx
+from .workbook import append_row, stable_xlsx
 
 GRADE_COLUMNS = (
     "student",
@@ -61,36 +60,26 @@ def _cell(v) -> str:
 
 
 def grades_csv(summary: dict) -> str:
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(GRADE_COLUMNS)
-    for row in grade_rows(summary):
-        w.writerow([_cell(v) for v in row])
-    return buf.getvalue()
-
-
-def _safe_cell(v):
-    """Text that a spreadsheet would run as a formula is stored as text (a leading apostrophe)."""
-    if isinstance(v, str) and v[:1] in ("=", "+", "-", "@"):
-        return "'" + v
-    return v
+    """``grades.csv``: one row per student; every text cell is data, never a spreadsheet formula."""
+    return write_csv(GRADE_COLUMNS, ([_cell(v) for v in row] for row in grade_rows(summary)))
 
 
 def grades_xlsx(summary: dict) -> bytes:
-    """The grade book as an XLSX workbook (sheet "grades", and "pooled" with the class's constants)."""
+    """The grade book as an XLSX workbook (sheet "grades", and "pooled" with the class's constants);
+    numbers as numbers, every text as text (never a formula)."""
     from openpyxl import Workbook
 
     wb = Workbook()
     ws = wb.active
     ws.title = "grades"
-    ws.append(list(GRADE_COLUMNS))
+    append_row(ws, list(GRADE_COLUMNS))
     for row in grade_rows(summary):
-        ws.append([_safe_cell(v) for v in row])
+        append_row(ws, row)
     ps = wb.create_sheet("pooled")
-    ps.append(["parameter", "estimate", "se", "profile_ci95_low", "profile_ci95_high"])
+    append_row(ps, ["parameter", "estimate", "se", "profile_ci95_low", "profile_ci95_high"])
     for p in (summary.get("pooled") or {}).get("parameters", []):
         ci = p.get("profile_ci95") or [None, None]
-        ps.append([p["name"], p["estimate"], p["se"], ci[0], ci[1]])
+        append_row(ps, [p["name"], p["estimate"], p["se"], ci[0], ci[1]])
     return stable_xlsx(wb)
 
 
@@ -138,7 +127,9 @@ def grade_context(summary: dict, *, date: str, paper: str) -> dict:
     ]
     pooled_rows = []
     if pooled is not None:
-        facts.append(("Pooled from", f"{pooled['students']} students, {pooled['tubes']} tubes"))
+        facts.append(
+            ("Pooled from", f"{plural(pooled['students'], 'student')}, {plural(pooled['tubes'], 'tube')}")
+        )
         for p in pooled["parameters"]:
             ci = p.get("profile_ci95")
             pooled_rows.append(

@@ -1,7 +1,7 @@
 """Printed output: the prep sheet and the design report as HTML or PDF.
 
 Jinja2 templates (``templates/*.html.j2``, shipped as the package ``planner.templates``) lay out
-the strings :mod:`planner.sheets` prepares; WeasyPrint turns the HTML into PDF. Autoescaping is on,
+the strings :mod:`planner.paper.sheets` prepares; WeasyPrint turns the HTML into PDF. Autoescaping is on,
 so a title or label holding markup prints as the characters typed. WeasyPrint gets a URL fetcher
 that refuses everything but ``data:`` URLs: the stylesheet is inlined and figures are inline SVG,
 so nothing is read from the network or the file system while a sheet is made.
@@ -159,8 +159,9 @@ def prep_sheet(
     Parameters
     ----------
     plan, recipe : the validated plan and its recipe.
-    assessment : ``planner.assess.assess(plan, recipe, ...)``; its ``summary()`` supplies every number.
-    needs : ``planner.preparation.stock_needs(plan, recipe)``.
+    assessment : ``planner.jobs.plan.assess.assess(plan, recipe, ...)``; its ``summary()`` supplies
+        every number.
+    needs : ``planner.jobs.stocks.needs.stock_needs(plan, recipe)``.
     paper : "A4" or "Letter".
     fmt : "pdf" (bytes of the PDF) or "html" (UTF-8 bytes of the HTML).
     date : printed date (datetime.date or text); default today.

@@ -310,7 +310,7 @@ def statement_text(code: str) -> str:
     parts = code.split("+")
     if len(parts) > 1 and all(p in H_STATEMENTS for p in parts):
         return " ".join(H_STATEMENTS[p] for p in parts)
-    raise KeyError(f"hazard statement {code!r} has no text: add it to planner.safety.H_STATEMENTS")
+    raise KeyError(f"hazard statement {code!r} has no text: add it to planner.paper.safety.H_STATEMENTS")
 
 
 def _norm(name: str) -> str:

@@ -1,7 +1,7 @@
 """What goes on the printed prep sheet and design report, as plain strings (no HTML, no chemistry).
 
 These functions turn the plan, the recipe and the JSON summaries of the assessment and of the stock
-needs into template contexts. Every number is formatted here, by :mod:`planner.fmt`, from the
+needs into template contexts. Every number is formatted here, by :mod:`planner.paper.fmt`, from the
 values of the summaries, so the paper and ``--json`` agree digit for digit. The templates only lay
 the strings out.
 """
@@ -19,6 +19,7 @@ from ..inputs.plan import Plan
 from ..inputs.recipe import Recipe
 from ..jobs.plan.checks import SATURATION_WINDOW
 from . import fmt, safety
+from .bench_volumes import reading_note
 from .pictograms import pictogram_svg
 from .stock_text import conc_lines, needed_text, plan_notes, prep_lines, pretty_formula
 
@@ -156,10 +157,11 @@ def addition_steps(plan: Plan, recipe: Recipe, order: tuple[str, ...], custom: b
 # small texts
 # --------------------------------------------------------------------------------------------------
 def _dispenser_text(d) -> str:
-    if d.kind == "micropipette":  # read in µL, as their dials are
-        return f"{fmt.sig(d.capacity_mL * 1000, 3)} µL micropipette"
-    cap = f"{fmt.sig(d.capacity_mL * 1000, 3)} µL" if d.capacity_mL < 1 else f"{fmt.sig(d.capacity_mL, 3)} mL"
-    return f"{cap} {d.kind} (class {d.cls})"
+    """The plan's dispenser as the bench names it ("class A 10 mL burette", "1000 µL micropipette"); no
+    class where the plan gives the device by its tolerance alone."""
+    from ..jobs.compile import dispenser_item
+
+    return dispenser_item(d).label
 
 
 def blank_text(plan: Plan) -> tuple[str, str]:
@@ -412,7 +414,8 @@ def prep_context(
         "steps": [{"text": s.text, "why": s.why} for s in steps],
         "columns": [f"{sid}" for sid in seq],
         "column_units": "mL",
-        "step_text": fmt.sig(step, 1),
+        "step_text": fmt.volume(step, step),
+        "reading_note": reading_note(plan, seq),
         "makeup": f"{dil.id} to the mark / mL" if to_mark else None,
         "target": target,
         "target_label": fmt.species(target),

@@ -11,9 +11,19 @@ import re
 from collections.abc import Sequence
 
 from ..inputs.plan import Plan
+from ..uncertainty.stocks import USP41_READABILITY_FACTOR
 from . import fmt, safety
 
-__all__ = ["conc_lines", "needed_text", "plan_notes", "prep_lines", "pretty_formula"]
+__all__ = [
+    "conc_lines",
+    "mass_advice_text",
+    "mass_basis_text",
+    "mass_words",
+    "needed_text",
+    "plan_notes",
+    "prep_lines",
+    "pretty_formula",
+]
 
 
 _SUBSCRIPT = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
@@ -62,6 +72,36 @@ def _salt_text(x: dict, readability_g: float) -> str:
     )
 
 
+def _weighed_lines(prep: dict, need: dict, extra_txt: str, solvent: str, d: float) -> list[str]:
+    """The weighing (and any dilution chain) of a stock's metal or ligand salt, its u, what sets its mass."""
+    lines = []
+    assay = f", assay {fmt.percent(prep['purity'], 3)}" if prep["purity"] < 1 else ""
+    head = (
+        f"Weigh {fmt.mass(prep['mass_g'], d)} of {pretty_formula(prep['formula'])} "
+        f"(M = {fmt.sig(prep['formula_weight_g_mol'], 5)} g/mol{assay})"
+    )
+    if prep["steps"]:
+        lines.append(
+            f"{head}; dissolve in {solvent} and make up to the mark of a "
+            f"{prep['weighed_flask']['label']} ({fmt.conc(prep['weighed_conc_M'])})."
+        )
+        for j, st in enumerate(prep["steps"]):
+            last = j == len(prep["steps"]) - 1
+            add = f", add {extra_txt}," if last and extra_txt else ""
+            lines.append(
+                f"Pipette {fmt.sig(st['pipette_mL'], 3)} mL ({st['pipette']}) into a {st['flask']}"
+                f"{add} and make up to the mark with {solvent}: {fmt.conc(st['to_conc_M'])}."
+            )
+    else:
+        lines.append(
+            f"{head}{' and ' + extra_txt if extra_txt else ''}; dissolve in {solvent} and make up "
+            f"to the mark of a {prep['weighed_flask']['label']}."
+        )
+    lines.append(f"Weighing and glassware give u = {fmt.percent(prep['u_rel'])}.")
+    basis = mass_basis_text(need)
+    return [*lines, basis] if basis else lines
+
+
 def prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
     """(instructions, warnings) for making one stock: every solute, the solvent and the flask."""
     s = plan.stock_by_id(sid)
@@ -76,34 +116,12 @@ def prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
     warns: list[str] = []
     lines: list[str] = []
     if prep:
-        assay = f", assay {fmt.percent(prep['purity'], 3)}" if prep["purity"] < 1 else ""
-        head = (
-            f"Weigh {fmt.mass(prep['mass_g'], d)} of {pretty_formula(prep['formula'])} "
-            f"(M = {fmt.sig(prep['formula_weight_g_mol'], 5)} g/mol{assay})"
-        )
-        if prep["steps"]:
-            lines.append(
-                f"{head}; dissolve in {solvent} and make up to the mark of a "
-                f"{prep['weighed_flask']['label']} ({fmt.conc(prep['weighed_conc_M'])})."
-            )
-            for j, st in enumerate(prep["steps"]):
-                last = j == len(prep["steps"]) - 1
-                add = f", add {extra_txt}," if last and extra_txt else ""
-                lines.append(
-                    f"Pipette {fmt.sig(st['pipette_mL'], 3)} mL ({st['pipette']}) into a {st['flask']}"
-                    f"{add} and make up to the mark with {solvent}: {fmt.conc(st['to_conc_M'])}."
-                )
-        else:
-            lines.append(
-                f"{head}{' and ' + extra_txt if extra_txt else ''}; dissolve in {solvent} and make up "
-                f"to the mark of a {prep['weighed_flask']['label']}."
-            )
+        lines += _weighed_lines(prep, need, extra_txt, solvent, d)
         if prep["mass_g"] < prep["min_weight_g"]:
             warns.append(
                 f"{fmt.mass(prep['mass_g'], d)} is below the balance's minimum weight of "
                 f"{fmt.mass(prep['min_weight_g'], d)} (USP <41>): weigh more into a larger flask and dilute."
             )
-        lines.append(f"Weighing and glassware give u = {fmt.percent(prep['u_rel'])}.")
     else:
         comp = [x for x in solutes if x["role"] == "component"]
         parts = [
@@ -147,6 +165,64 @@ def prep_lines(plan: Plan, sid: str, need: dict) -> tuple[list[str], list[str]]:
     return lines, warns
 
 
+def mass_words(m_g: float) -> str:
+    """A mass in words for a sentence, in g, mg or µg to three significant figures ("214 mg")."""
+    for unit, f in (("g", 1.0), ("mg", 1e3), ("µg", 1e6)):
+        if abs(m_g) * f >= 1 or unit == "µg":
+            return f"{fmt.sig(m_g * f, 3)} {unit}"
+    return f"{m_g:g} g"  # pragma: no cover - the loop always returns
+
+
+_FLASK_WHY = {
+    "plan": "the flask chosen for this stock",
+    "on-hand": "enough to keep the stated volume on hand",
+    "default": "the usual smallest stock flask",
+    "recipe": "the smallest flask that holds what the tubes need",
+    "least-reagent": (
+        "the flask that lets the dilution reach the balance's minimum weight with the least reagent"
+    ),
+}
+
+
+def mass_basis_text(need: dict) -> str:
+    """What sets a stock's mass, in words for the bench (no plan keys): the recipe's need, the flask, or the
+    balance's minimum weight (USP <41>)."""
+    b = need.get("mass_set_by")
+    if not b:
+        return ""
+    flask = need.get("flask_mL")
+    needs = "" if b["recipe_mass_g"] is None else f"; the tubes need {mass_words(b['recipe_mass_g'])} of it"
+    if b["set_by"] == "recipe":
+        return f"Mass set by what the tubes need, in {_FLASK_WHY[b['flask_reason']]} ({flask:g} mL){needs}."
+    if b["set_by"] == "flask":
+        return f"Mass set by the flask ({flask:g} mL, {_FLASK_WHY[b['flask_reason']]}){needs}."
+    return (
+        f"Mass set by the balance's minimum weight ({mass_words(b['min_weight_g'])}, USP <41>): the "
+        f"{flask:g} mL flask would take only {mass_words(b['direct_mass_g'])}{needs}, so a concentrate "
+        "is weighed and diluted."
+    )
+
+
+def mass_advice_text(need: dict) -> str:
+    """How to weigh less of a stock's reagent: plan it as scarce, or a balance good enough to weigh the
+    flask's mass directly (USP <41>: minimum weight 2000·s, s at least 0.41 × the scale interval)."""
+    b = need.get("mass_set_by")
+    if not b:
+        return ""
+    out = []
+    least = b.get("least_mass_g")
+    if least is not None and not b["scarce"] and least < 0.95 * b["mass_g"]:
+        out.append(f"Planned as scarce it would weigh {mass_words(least)}.")
+    s = b.get("repeatability_to_weigh_directly_g")
+    if s:
+        out.append(
+            f"A balance with a repeatability of at most {mass_words(s)} (scale interval at most "
+            f"{mass_words(s / USP41_READABILITY_FACTOR)}) would weigh {mass_words(b['direct_mass_g'])} "
+            "directly."
+        )
+    return " ".join(out)
+
+
 def _min_weight_g(plan: Plan) -> float:
     from ..uncertainty.stocks import minimum_weight_g
 
@@ -171,6 +247,18 @@ def needed_text(plan: Plan, need: dict) -> tuple[str, list[str], bool | None]:
     return txt, sub, need.get("enough")
 
 
+def _scarce_note(sid: str, b: dict | None) -> str:
+    """A note for the author when planning the stock as scarce would weigh clearly less reagent."""
+    least = b.get("least_mass_g") if b else None
+    if not b or b["scarce"] or least is None or least >= 0.95 * b["mass_g"]:
+        return ""
+    need = "" if b["recipe_mass_g"] is None else f" where the tubes need {mass_words(b['recipe_mass_g'])}"
+    return (
+        f"stock {sid}: weighs {mass_words(b['mass_g'])}{need}; with scarce = true it would be made in the "
+        f"smallest flask that holds it and weigh {mass_words(least)}"
+    )
+
+
 def plan_notes(plan: Plan, needs: Sequence[dict]) -> list[str]:
     """Notes for the plan's author (plan-file keys named): they go on the report, never on the bench sheet."""
     notes = []
@@ -191,6 +279,9 @@ def plan_notes(plan: Plan, needs: Sequence[dict]) -> list[str]:
                 f"({fmt.conc(gap['conc_M'])}) to its ions, or the ionic strength is "
                 f"{fmt.percent(gap['ionic_strength_low'])} low"
             )
+        note = _scarce_note(s.id, n.get("mass_set_by"))
+        if note:
+            notes.append(note)
         comp = [c for c in ("M", "L") if c in s.conc]
         if comp and not s.formula:
             notes.append(

@@ -1,5 +1,6 @@
-"""Spreadsheets that are the same bytes for the same input: openpyxl stamps the save time into the
-workbook's properties and its zip entries; :func:`stable_xlsx` saves with fixed ones instead."""
+"""Spreadsheets the tool writes: every text cell data, never a formula, and the same bytes for the same
+input (openpyxl stamps the save time into the workbook's properties and its zip entries;
+:func:`stable_xlsx` saves with fixed ones instead)."""
 
 from __future__ import annotations
 
@@ -8,7 +9,26 @@ import io
 import re
 import zipfile
 
+from ..inputs.tables import formula_risk
+from ..inputs.text import visible
+
 FIXED_TIME = (2000, 1, 1, 0, 0, 0)  # the timestamps written (fixed: same input, same bytes)
+
+
+def append_row(ws, values) -> None:
+    """Append ``values`` to the worksheet ``ws``: numbers as numbers, every text as a text cell.
+
+    openpyxl stores a string that starts with ``=`` as a formula; here every string is stored as text
+    (cell type ``s``), with Excel's quote prefix where a spreadsheet would otherwise read it as a formula
+    once edited (source: OWASP, "CSV Injection"), and control characters, which XML cannot hold, written
+    as visible ``\\uXXXX`` escapes.
+    """
+    ws.append([visible(v) if isinstance(v, str) else v for v in values])
+    for cell in ws[ws.max_row]:
+        if isinstance(cell.value, str):
+            cell.data_type = "s"
+            if formula_risk(cell.value):
+                cell.quotePrefix = True
 
 
 def stable_xlsx(wb) -> bytes:

@@ -1,6 +1,6 @@
 """The error budget: covariance of the tubes' absorbances from every source, kept apart.
 
-Sources (domain.md §3):
+Sources:
 - photometric noise of each reading (three-term model), independent per tube;
 - each delivery's random error (reading, repeatability), independent per tube and delivery;
 - each device's calibration error, shared by every delivery from that device (burette, pipette);
@@ -8,7 +8,7 @@ Sources (domain.md §3):
 - each stock's concentration error, systematic: shared by every tube made from that stock.
 
 They are pushed through the model linearly, with the analytic derivatives of
-:func:`planner.information.absorbance_derivatives` and the chain rule to volumes and stock
+:func:`planner.model.jacobians.absorbance_derivatives` and the chain rule to volumes and stock
 concentrations (GUM JCGM 100:2008 §5, law of propagation of uncertainty).
 """
 

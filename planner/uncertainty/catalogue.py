@@ -1,8 +1,9 @@
 """The glassware catalogue (``planner/data/glassware.toml``): devices, their tolerances and sources.
 
 The catalogue stores class A tolerances; class B is computed as twice class A (ASTM E287 §1.1.2,
-ASTM E288 §1.1.2). Micropipettes have no class and carry the ISO 8655-2:2002 systematic and random
-limits instead.
+ASTM E288 §1.1.2). Piston-operated devices (micropipettes, ISO 8655-2; piston burettes, ISO 8655-3) have
+no class and carry a systematic and a random limit instead. A device the plan describes only by its
+tolerance has no class either: nobody vouched for one.
 """
 
 from __future__ import annotations
@@ -23,11 +24,24 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover - Python 3.10 fallback
     import tomli as tomllib
 
-KINDS = ("burette", "pipette", "graduated-pipette", "flask", "micropipette")
-"""Kind names, as the plan file spells them ("pipette" is one-mark, "flask" volumetric)."""
+KINDS = ("burette", "pipette", "graduated-pipette", "flask", "micropipette", "piston-burette")
+"""Kind names, as the plan file spells them ("pipette" is one-mark, "flask" volumetric, "piston-burette"
+a syringe or motor-driven piston burette)."""
 
 CLASSES = ("A", "B")
-"""Glassware classes; micropipettes have none."""
+"""Glassware classes; piston-operated devices have none."""
+
+PISTON_KINDS = ("micropipette", "piston-burette")
+"""Piston-operated devices (ISO 8655): no class; a systematic and a random limit instead."""
+
+READING_KINDS = ("burette", "graduated-pipette", "piston-burette")
+"""Devices whose delivery is the difference of two readings of a scale or a counter [common practice]."""
+
+TITRANT_READING_KINDS = ("burette", "piston-burette")
+"""Titrant dispensers read before the first addition and after each one, without refilling: the volume
+added by point k is R_k − R_0, so reading errors do not accumulate along a titration [common practice].
+Aliquot devices (micropipette, one-mark or graduated pipette filled for each aliquot) add independent
+deliveries instead, whose errors do."""
 
 CLASS_B_FACTOR = 2.0
 """Class B tolerance / class A tolerance [source: ASTM E287 §1.1.2, ASTM E288 §1.1.2]."""
@@ -40,10 +54,10 @@ WATER_EXPANSION_PER_C = 2.1e-4
 
 READING_FRACTION_OF_GRADUATION = 0.2
 """A meniscus is read to ±1/5 of the smallest subdivision [common practice]: ±0.02 mL on a 0.1 mL
-scale, ±0.01 mL on a 0.05 mL scale, the ±0.01–0.02 mL that domain.md quotes for a burette reading."""
+scale, ±0.01 mL on a 0.05 mL scale, the ±0.01–0.02 mL commonly quoted for a burette reading."""
 
 DEFAULT_READING_HALF_WIDTH_mL = 0.02
-"""Reading half-width when an item has no recorded graduation [common practice, domain.md §3]."""
+"""Reading half-width when an item has no recorded graduation [common practice]."""
 
 MICROPIPETTE_MIN_FRACTION = 0.1
 """Lower end of a variable micropipette's usable range, fraction of nominal [from memory: ISO 8655-2]."""
@@ -82,15 +96,18 @@ class GlasswareItem:
         ± limit of error at capacity, mL; for a micropipette the ISO 8655-2 maximum permissible
         systematic error.
     graduation_mL : float or None
-        Smallest subdivision, mL, for kinds that have one.
+        Smallest subdivision, mL, for kinds that have one (a piston device's display or setting step).
     random_mL : float or None
-        Micropipettes: ISO 8655-2 maximum permissible random error (a standard deviation), mL.
+        Piston-operated devices: ISO 8655 maximum permissible random error (a standard deviation), mL.
     source : str
         Standard the tolerance comes from.
     from_memory : bool
         True when the tolerance is recalled rather than read from the cited table.
     note : str
         Anything else worth knowing (for example, a recalled graduation).
+    repeatability_mL : float or None
+        A measured standard deviation of one delivery (e.g. from a gravimetric check, ISO 8655-6),
+        replacing the default random model; None when not measured.
     """
 
     kind: str
@@ -102,14 +119,21 @@ class GlasswareItem:
     source: str
     from_memory: bool
     note: str = ""
+    repeatability_mL: float | None = None
 
     @property
     def label(self) -> str:
-        """Human name for prep sheets, e.g. ``"class A 50 mL burette"``."""
+        """Human name for prep sheets, e.g. ``"class A 50 mL burette"``; no class where none is known."""
         if self.kind == "micropipette":
             return f"{_fmt(self.capacity_mL * 1000.0)} µL micropipette"
-        names = {"pipette": "one-mark pipette", "flask": "volumetric flask"}
-        return f"class {self.cls} {_fmt(self.capacity_mL)} mL {names.get(self.kind, self.kind)}"
+        names = {
+            "pipette": "one-mark pipette",
+            "graduated-pipette": "graduated pipette",
+            "flask": "volumetric flask",
+            "piston-burette": "piston burette",
+        }
+        what = f"{_fmt(self.capacity_mL)} mL {names.get(self.kind, self.kind)}"
+        return what if self.cls is None else f"class {self.cls} {what}"
 
     def summary(self) -> dict:
         """Plain JSON-safe description."""
@@ -120,6 +144,7 @@ class GlasswareItem:
             "tolerance_mL": float(self.tolerance_mL),
             "graduation_mL": None if self.graduation_mL is None else float(self.graduation_mL),
             "random_mL": None if self.random_mL is None else float(self.random_mL),
+            "repeatability_mL": None if self.repeatability_mL is None else float(self.repeatability_mL),
             "source": self.source,
             "from_memory": bool(self.from_memory),
             "note": self.note,
@@ -146,11 +171,11 @@ def _parse_catalogue(data: dict) -> tuple[GlasswareItem, ...]:
         if kind not in KINDS:
             raise GlasswareError(f"{where}: kind {kind!r} is not one of {', '.join(KINDS)}")
         cls = e.get("class")
-        if kind == "micropipette":
+        if kind in PISTON_KINDS:
             if cls is not None:
-                raise GlasswareError(f"{where}: micropipettes have no class; remove 'class'")
+                raise GlasswareError(f"{where}: a {kind} has no class; remove 'class'")
             if e.get("random_mL") is None:
-                raise GlasswareError(f"{where}: a micropipette needs random_mL (ISO 8655-2 random limit)")
+                raise GlasswareError(f"{where}: a {kind} needs random_mL (its ISO 8655 random limit)")
         elif cls != "A":
             raise GlasswareError(f"{where}: store class 'A' only (class B is computed as 2 × A)")
         for key in ("capacity_mL", "tolerance_mL"):
@@ -204,6 +229,46 @@ def _describe_capacities(kind: str) -> str:
     return ", ".join(_fmt(c) for c in caps) + " mL"
 
 
+def _checked_class(kind: str, cls: str | None, tolerance_mL: float | None) -> str | None:
+    """The class a looked-up device carries (see :func:`lookup`)."""
+    if kind not in KINDS:
+        raise GlasswareError(f"unknown glassware kind {kind!r}; use one of: {', '.join(KINDS)}")
+    if kind in PISTON_KINDS:
+        if cls not in (None, "A"):
+            raise GlasswareError(
+                f"a {kind} has no class (got cls={cls!r}); omit the class, it carries ISO 8655 "
+                "systematic and random limits instead"
+            )
+        return None
+    if cls is None:
+        return None if tolerance_mL is not None else "A"  # described by its tolerance alone: no class
+    if cls not in CLASSES:
+        raise GlasswareError(f"unknown glassware class {cls!r} for a {kind}; use 'A' or 'B'")
+    return cls
+
+
+def _check_figures(kind: str, capacity_mL, tolerance_mL, graduation_mL, random_mL, repeatability_mL) -> None:
+    if not (
+        isinstance(capacity_mL, (int, float, np.floating, np.integer))
+        and math.isfinite(capacity_mL)
+        and capacity_mL > 0
+    ):
+        raise GlasswareError(f"{kind} capacity must be a positive number of mL, got {capacity_mL!r}")
+    for name, value in (
+        ("tolerance_mL", tolerance_mL),
+        ("graduation_mL", graduation_mL),
+        ("random_mL", random_mL),
+        ("repeatability_mL", repeatability_mL),
+    ):
+        if value is not None and not (math.isfinite(value) and value > 0):
+            raise GlasswareError(f"{kind} {name} must be a positive number of mL, got {value!r}")
+    if graduation_mL is not None and graduation_mL > capacity_mL * (1 + 1e-9):
+        raise GlasswareError(
+            f"{kind} graduation_mL {_fmt(graduation_mL)} is more than its {_fmt(float(capacity_mL))} mL "
+            "capacity; give its smallest subdivision"
+        )
+
+
 def lookup(
     kind: str,
     capacity_mL: float,
@@ -212,6 +277,7 @@ def lookup(
     *,
     graduation_mL: float | None = None,
     random_mL: float | None = None,
+    repeatability_mL: float | None = None,
 ) -> GlasswareItem:
     """Find a device in the catalogue, or describe one the user owns.
 
@@ -222,13 +288,18 @@ def lookup(
     capacity_mL : float
         Capacity, mL (micropipettes: nominal volume in mL, e.g. 0.2 for a 200 µL pipette).
     cls : {"A", "B"} or None
-        Glassware class; class B tolerance = 2 × class A (ASTM E287 §1.1.2, E288 §1.1.2). Ignored for
-        micropipettes when "A" or None (they have no class); "B" is refused for them.
+        Glassware class; class B tolerance = 2 × class A (ASTM E287 §1.1.2, E288 §1.1.2). None means
+        "not stated": the catalogue's class A, or no class at all when ``tolerance_mL`` describes the
+        device. Piston-operated devices have no class: "A" or None is accepted, "B" refused.
     tolerance_mL : float, optional
-        Override the tolerance (± mL; a micropipette's systematic limit), e.g. from a calibration
+        Override the tolerance (± mL; a piston device's systematic limit), e.g. from a calibration
         certificate. With it, a capacity missing from the catalogue becomes a user-supplied item.
-    graduation_mL, random_mL : float, optional
-        For a user-supplied item: its smallest subdivision, its random limit (micropipettes).
+    graduation_mL : float, optional
+        The device's smallest subdivision (a piston device's display or setting step), mL.
+    random_mL : float, optional
+        For a user-supplied piston device: its random limit (a standard deviation), mL.
+    repeatability_mL : float, optional
+        A measured standard deviation of one delivery, mL (replaces the default random model).
 
     Returns
     -------
@@ -240,31 +311,8 @@ def lookup(
         Unknown kind or class, bad numbers, or a capacity the catalogue lacks (the message lists
         the capacities it has).
     """
-    if kind not in KINDS:
-        raise GlasswareError(f"unknown glassware kind {kind!r}; use one of: {', '.join(KINDS)}")
-    if kind == "micropipette":
-        if cls not in (None, "A"):
-            raise GlasswareError(
-                f"micropipettes have no class (got cls={cls!r}); omit the class, they carry ISO 8655-2 "
-                "systematic and random limits instead"
-            )
-        cls = None
-    elif cls not in CLASSES:
-        raise GlasswareError(f"unknown glassware class {cls!r} for a {kind}; use 'A' or 'B'")
-    if not (
-        isinstance(capacity_mL, (int, float, np.floating, np.integer))
-        and math.isfinite(capacity_mL)
-        and capacity_mL > 0
-    ):
-        raise GlasswareError(f"{kind} capacity must be a positive number of mL, got {capacity_mL!r}")
-    for name, value in (
-        ("tolerance_mL", tolerance_mL),
-        ("graduation_mL", graduation_mL),
-        ("random_mL", random_mL),
-    ):
-        if value is not None and not (math.isfinite(value) and value > 0):
-            raise GlasswareError(f"{kind} {name} must be a positive number of mL, got {value!r}")
-
+    cls = _checked_class(kind, cls, tolerance_mL)
+    _check_figures(kind, capacity_mL, tolerance_mL, graduation_mL, random_mL, repeatability_mL)
     base = next(
         (
             it
@@ -282,7 +330,7 @@ def lookup(
                 f"no {kind} of {shown} in the glassware catalogue; it has {_describe_capacities(kind)}. "
                 "Pick one of those, or give tolerance_mL for your own device"
             )
-        # A user-supplied device: the user vouches for the tolerance at the class asked for.
+        # A user-supplied device: the user vouches for the tolerance (and the class, if they name one).
         return GlasswareItem(
             kind=kind,
             capacity_mL=float(capacity_mL),
@@ -292,6 +340,7 @@ def lookup(
             random_mL=random_mL,
             source="user-supplied tolerance",
             from_memory=False,
+            repeatability_mL=repeatability_mL,
         )
 
     item = base
@@ -305,6 +354,7 @@ def lookup(
     changes: dict[str, Any] = {}
     if tolerance_mL is not None:
         changes.update(
+            cls=cls,
             tolerance_mL=float(tolerance_mL),
             from_memory=False,
             source=f"user-supplied tolerance (catalogue: {item.source})",
@@ -313,9 +363,20 @@ def lookup(
         changes["graduation_mL"] = float(graduation_mL)
     if random_mL is not None:
         changes["random_mL"] = float(random_mL)
+    if repeatability_mL is not None:
+        changes["repeatability_mL"] = float(repeatability_mL)
     return replace(item, **changes) if changes else item
 
 
-# --------------------------------------------------------------------------------------------------
-# standard uncertainties
-# --------------------------------------------------------------------------------------------------
+def reading_resolution_mL(item: GlasswareItem) -> float | None:
+    """How finely a volume is read on the device, mL, or None when it is not read (a one-mark pipette or
+    flask fills to its mark) or its graduation is unknown.
+
+    Glass scales (burette, graduated pipette) are read to ±1/5 of the smallest subdivision
+    (:data:`READING_FRACTION_OF_GRADUATION`, common practice); a piston device to its display or
+    setting step.
+    """
+    g = item.graduation_mL
+    if g is None or item.kind in SINGLE_VOLUME_KINDS:
+        return None
+    return READING_FRACTION_OF_GRADUATION * g if item.kind in ("burette", "graduated-pipette") else g

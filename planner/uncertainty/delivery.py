@@ -23,7 +23,9 @@ from .catalogue import (
     _MAX_GRID_POINTS,
     KINDS,
     MICROPIPETTE_MIN_FRACTION,
+    PISTON_KINDS,
     READING_FRACTION_OF_GRADUATION,
+    READING_KINDS,
     REPEATABILITY_PER_U_CALIBRATION,
     SINGLE_VOLUME_KINDS,
     WATER_EXPANSION_PER_C,
@@ -114,13 +116,53 @@ class DeliveryUncertainty:
         return np.hypot(self.random_mL, self.systematic_mL)
 
 
-def _reading_u_mL(item: GlasswareItem) -> float:
+def reading_u_mL(item: GlasswareItem) -> float:
+    """Standard uncertainty of one reading of a device read on a scale or a counter, mL.
+
+    A delivery is the difference of two readings [common practice], so one reading carries 1/√2 of a
+    delivery's random error: a measured repeatability (sd of one delivery) or a piston burette's ISO
+    8655-3 random limit gives ``s/√2``; a glass scale without a measurement is read to ±1/5 of its
+    smallest subdivision (:data:`READING_FRACTION_OF_GRADUATION`), rectangular, ``(g/5)/√3`` (GUM
+    JCGM 100:2008 4.3.7).
+    """
+    if item.repeatability_mL is not None:
+        return item.repeatability_mL / math.sqrt(2.0)
+    if item.kind == "piston-burette":
+        if item.random_mL is None:
+            raise GlasswareError(f"{item.label} has no random limit; give its measured repeatability")
+        return item.random_mL / math.sqrt(2.0)
     half = (
         READING_FRACTION_OF_GRADUATION * item.graduation_mL
         if item.graduation_mL is not None
         else DEFAULT_READING_HALF_WIDTH_mL
     )
     return float(u_rectangular(half))
+
+
+def _random_and_calibration(item: GlasswareItem, v: np.ndarray, repeatability_mL: float | None):
+    """(random sd per delivery, calibration sd of each volume) before the temperature term."""
+    rep = item.repeatability_mL if repeatability_mL is None else repeatability_mL
+    if item.kind in READING_KINDS:
+        random = math.sqrt(2.0) * reading_u_mL(item) if rep is None else rep
+        # a piston device's limit is a maximum permissible error (rectangular), glass a tolerance
+        u_cal = (
+            u_rectangular(item.tolerance_mL) if item.kind in PISTON_KINDS else u_triangular(item.tolerance_mL)
+        )
+        return random, u_cal * v / item.capacity_mL
+    if item.kind in SINGLE_VOLUME_KINDS:
+        u_cal = float(u_triangular(item.tolerance_mL))
+        return (REPEATABILITY_PER_U_CALIBRATION * u_cal if rep is None else rep), np.full_like(v, u_cal)
+    if item.kind == "micropipette":
+        r = item.random_mL if rep is None else rep
+        if r is None:
+            raise GlasswareError(
+                f"{item.label} has no random limit; give its measured repeatability "
+                "(or random_mL to lookup())"
+            )
+        return r, np.full_like(v, float(u_rectangular(item.tolerance_mL)))
+    raise GlasswareError(  # pragma: no cover - lookup() guards kinds
+        f"unknown glassware kind {item.kind!r}; use one of: {', '.join(KINDS)}"
+    )
 
 
 def delivery_uncertainty(
@@ -132,12 +174,13 @@ def delivery_uncertainty(
 
     Model, per kind:
 
-    - **burette**, **graduated-pipette**: a delivery is the difference of two readings [common
-      practice], each read to ±1/5 of a subdivision (rectangular, GUM 4.3.7), so
-      ``random = √2 · (g/5)/√3``. The calibration tolerance ``a`` is the limit at capacity; it is
-      scaled with the fraction of the scale used, ``systematic = (a/√6)·V/capacity`` (triangular,
-      QUAM A1–A3; the proportional scaling is an assumption: the error of a partial delivery grows
-      along the bore).
+    - **burette**, **graduated-pipette**, **piston-burette**: a delivery is the difference of two
+      readings [common practice], each with :func:`reading_u_mL`, so ``random = √2 · u_read`` (a
+      measured repeatability is the sd of one delivery and is used as it is). The calibration limit
+      ``a`` holds at capacity; it is scaled with the fraction of the scale used, ``systematic =
+      u(a)·V/capacity`` with ``u(a) = a/√6`` for glass (triangular, QUAM A1–A3) and ``a/√3`` for a
+      piston burette's maximum permissible error (rectangular, GUM 4.3.7); the proportional scaling is
+      an assumption: the error of a partial delivery grows along the bore or the piston's stroke.
     - **pipette** (one-mark), **flask**: only the capacity (volume 0 = not used); ``systematic =
       a/√6`` (QUAM A1); random = fill-to-mark repeatability, by default
       :data:`REPEATABILITY_PER_U_CALIBRATION` × ``a/√6`` (the QUAM A1 ratio).
@@ -146,9 +189,10 @@ def delivery_uncertainty(
       nominal. Systematic limit rectangular, ``a/√3`` (a maximum permissible error with no known
       distribution, GUM 4.3.7); the random limit is already a standard deviation.
 
-    The temperature term ``V·α·ΔT/√3`` (QUAM A1) goes into the **systematic** part: the lab's offset
-    from the 20 °C calibration temperature is the same for every delivery made in one session, so it
-    does not average out over replicates [derived].
+    A device's measured repeatability (``item.repeatability_mL``, or the argument) replaces the default
+    random part. The temperature term ``V·α·ΔT/√3`` (QUAM A1) goes into the **systematic** part: the
+    lab's offset from the 20 °C calibration temperature is the same for every delivery made in one
+    session, so it does not average out over replicates [derived].
 
     Parameters
     ----------
@@ -158,7 +202,7 @@ def delivery_uncertainty(
     delta_T_C : float
         Half-width of the band of lab temperatures around the calibration temperature, °C.
     repeatability_mL : float, optional
-        Measured per-delivery standard deviation, mL; replaces the default random model.
+        Measured per-delivery standard deviation, mL; replaces the device's random model.
 
     Returns
     -------
@@ -176,26 +220,7 @@ def delivery_uncertainty(
     if repeatability_mL is not None:
         repeatability_mL = float(_nonnegative(repeatability_mL, "repeatability_mL"))
     delivered = v > 0
-
-    if item.kind in ("burette", "graduated-pipette"):
-        random = math.sqrt(2.0) * _reading_u_mL(item) if repeatability_mL is None else repeatability_mL
-        calibration = u_triangular(item.tolerance_mL) * v / item.capacity_mL
-    elif item.kind in SINGLE_VOLUME_KINDS:
-        u_cal = float(u_triangular(item.tolerance_mL))
-        random = REPEATABILITY_PER_U_CALIBRATION * u_cal if repeatability_mL is None else repeatability_mL
-        calibration = np.full_like(v, u_cal)
-    elif item.kind == "micropipette":
-        if repeatability_mL is None and item.random_mL is None:
-            raise GlasswareError(
-                f"{item.label} has no random limit; pass repeatability_mL or random_mL to lookup()"
-            )
-        r = item.random_mL if repeatability_mL is None else repeatability_mL
-        assert r is not None  # checked above
-        random = r
-        calibration = np.full_like(v, float(u_rectangular(item.tolerance_mL)))
-    else:  # pragma: no cover - lookup() guards kinds
-        raise GlasswareError(f"unknown glassware kind {item.kind!r}; use one of: {', '.join(KINDS)}")
-
+    random, calibration = _random_and_calibration(item, v, repeatability_mL)
     temperature = u_temperature(v, delta_T_C)
     zero = np.zeros_like(v)
     calibration = np.where(delivered, calibration, zero)

@@ -1,9 +1,9 @@
 """Stock preparation: masses to weigh, dilution chains, and the stock's concentration uncertainty.
 
-The concentration of a weighed stock is ``c = m·P / (M·V)`` (mass, purity as a mass fraction, molar
-mass, flask volume); its relative standard uncertainty combines the relative uncertainties of the
-factors in quadrature [source: EURACHEM/CITAC QUAM, 3rd ed. 2012, example A1]. A stock's error is
-shared by every tube made from it (systematic); see :mod:`planner.glassware` for per-delivery errors.
+The concentration of a weighed stock is ``c = m·P / (M·V)`` (mass, purity as a mass fraction, molar mass,
+flask volume); its relative standard uncertainty combines the relative uncertainties of the factors in
+quadrature [source: EURACHEM/CITAC QUAM, 3rd ed. 2012, example A1]. A stock's error is shared by every tube
+made from it (systematic); see :mod:`planner.uncertainty.delivery` for per-delivery errors.
 
 When the mass to weigh falls below the balance's minimum weight (USP <41>: ``m ≥ 2000·s``), a
 dilution chain is proposed: weigh a more concentrated stock, then take aliquots with one-mark
@@ -21,13 +21,16 @@ from typing import Any
 import numpy as np
 
 from ..inputs.errors import InputError
+from ..inputs.formulas import formula_mass_g_mol
 from .catalogue import REPEATABILITY_PER_U_CALIBRATION, GlasswareError, GlasswareItem, catalogue, lookup
 from .delivery import delivery_uncertainty, flask_volume_uncertainty, u_rectangular, u_triangular
 
 __all__ = [
     "ACS_REAGENT_ASSAY_HALF_WIDTH",
     "CHAIN_U_SLACK",
+    "PREFERENCES",
     "PURITY_HALF_WIDTH_FLOOR",
+    "SCARCE_MASS_SLACK",
     "USP41_FACTOR",
     "DilutionStep",
     "StockError",
@@ -62,6 +65,14 @@ PIPETTE_DRAW_FRACTION = 0.5
 """An aliquot may use at most half of the solution it is drawn from, leaving enough to rinse the
 pipette with that solution first [common practice]."""
 
+PREFERENCES = ("precision", "reagent")
+"""What a dilution chain is chosen for: the best precision, or the least reagent (a scarce one)."""
+
+SCARCE_MASS_SLACK = 0.05
+"""For a scarce reagent, chains weighing within 5 % of the least mass count as equally frugal and the
+most precise of them is chosen [design choice: 5 % of a few hundred mg is below a weighing's scatter
+on a spatula]."""
+
 CHAIN_U_SLACK = 0.01
 """Dilution chains whose relative uncertainty is within 1 % (relative) of the best are treated as
 equally precise, and the one weighing the least reagent is chosen [design choice: a 1 % change in a
@@ -75,7 +86,6 @@ class StockError(InputError):
 # --------------------------------------------------------------------------------------------------
 # formula weights and weighing
 # --------------------------------------------------------------------------------------------------
-_HYDRATE_DOTS = ("·", "•", "∙", "⋅", "*")
 
 
 @functools.lru_cache(maxsize=512)
@@ -91,25 +101,10 @@ def formula_weight_g_mol(formula: str) -> float:
     StockError
         Empty formula, or one molmass cannot parse (the message carries its diagnosis).
     """
-    from molmass import Formula, FormulaError
-
-    if not isinstance(formula, str) or not formula.strip():
-        raise StockError(f"formula must be a non-empty string such as 'CuSO4.5H2O', got {formula!r}")
-    text = formula.strip()
-    for dot in _HYDRATE_DOTS:
-        text = text.replace(dot, ".")
-    text = text.replace(" ", "")
     try:
-        mass = float(Formula(text).mass)
-    except FormulaError as exc:
-        first = str(exc).splitlines()[0]
-        raise StockError(
-            f"cannot read the formula {formula!r}: {first}. Write it with element symbols, "
-            "e.g. 'Fe(NO3)3.9H2O' or 'CuSO4·5H2O'"
-        ) from None
-    if not mass > 0:
-        raise StockError(f"formula {formula!r} has no mass; write it with element symbols, e.g. 'KSCN'")
-    return mass
+        return formula_mass_g_mol(formula)
+    except ValueError as exc:
+        raise StockError(str(exc)) from None
 
 
 def minimum_weight_g(
@@ -234,6 +229,8 @@ class StockPreparation:
         Assay (mass fraction) and the half-width of its rectangular distribution.
     u_mass_g : float
         Standard uncertainty of the weighed mass, g.
+    direct_mass_g : float
+        The mass a direct weighing into ``flask`` would need, g (equal to ``mass_g`` without a chain).
     """
 
     conc_M: float
@@ -250,6 +247,7 @@ class StockPreparation:
     purity: float
     purity_half_width: float
     u_mass_g: float
+    direct_mass_g: float = float("nan")
 
     @property
     def u_rel(self) -> float:
@@ -267,6 +265,7 @@ class StockPreparation:
             "weighed_conc_M": self.weighed_conc_M,
             "mass_g": self.mass_g,
             "u_mass_g": self.u_mass_g,
+            "direct_mass_g": self.direct_mass_g,
             "min_weight_g": self.min_weight_g,
             "purity": self.purity,
             "purity_half_width": self.purity_half_width,
@@ -354,6 +353,7 @@ def prepare_stock(
     flask_repeatability_mL: float | None = None,
     flasks_mL: Sequence[float] | None = None,
     pipettes_mL: Sequence[float] | None = None,
+    prefer: str = "precision",
 ) -> StockPreparation:
     """Plan the weighing (and, if needed, the dilutions) for a stock of ``conc_M`` in ``flask``.
 
@@ -365,18 +365,21 @@ def prepare_stock(
     - purity: rectangular, ``u_P = h/√3`` (GUM 4.3.7). Default ``h``: when ``purity`` is left at 1.0
       the assay is taken as not stated, ACS reagent grade 98–102 % (``h = 0.02``); otherwise
       ``h = max(|1 − purity|, 1e-4)``, reading a certificate value such as 0.9999 as 0.9999 ± 0.0001.
-    - weighed flask: :func:`planner.glassware.flask_volume_uncertainty` with ``delta_T_C`` and
+    - weighed flask: :func:`planner.uncertainty.delivery.flask_volume_uncertainty` with ``delta_T_C`` and
       ``flask_repeatability_mL`` (default: the QUAM A1 repeatability ratio).
     - dilution steps: each one-mark pipette and flask, calibration + repeatability. No temperature
       term: aliquot and flask are filled at the same temperature, so the liquid's expansion cancels
       in their ratio [derived]; it is counted once, at the weighed flask.
     - the molar mass's uncertainty (standard atomic weights, ≲ 1e-5 relative) is neglected.
 
-    Dilution chain: proposed only when the direct mass is below the USP <41> minimum weight. Fewest
-    steps first; among chains of that length whose weighed mass reaches the minimum weight, those
-    whose ``u_c/c`` is within :data:`CHAIN_U_SLACK` (1 %) of the best, and of these the one that
-    weighs the least reagent (ties: smaller ``u_c/c``). Each aliquot is at most half of the solution
-    it is drawn from (room to rinse the pipette) and is diluted at least twofold.
+    Dilution chain: proposed only when the direct mass is below the USP <41> minimum weight. With
+    ``prefer="precision"``: fewest steps first; among chains of that length whose weighed mass reaches
+    the minimum weight, those whose ``u_c/c`` is within :data:`CHAIN_U_SLACK` (1 %) of the best, and of
+    these the one that weighs the least reagent (ties: smaller ``u_c/c``). With ``prefer="reagent"``
+    (a scarce reagent): chains of every length up to ``max_chain``; those weighing at most
+    :data:`SCARCE_MASS_SLACK` more than the least mass that still reaches the minimum weight, and of
+    these the most precise (ties: fewer steps). Each aliquot is at most half of the solution it is
+    drawn from (room to rinse the pipette) and is diluted at least twofold.
 
     Parameters
     ----------
@@ -403,6 +406,9 @@ def prepare_stock(
     flasks_mL, pipettes_mL : sequence of float, optional
         Capacities available for a chain (default: every catalogue flask / one-mark pipette), of the
         same class as ``flask``.
+    prefer : {"precision", "reagent"}
+        What a dilution chain is chosen for (see above): the fewest steps and the best ``u_c/c``, or the
+        least reagent weighed.
 
     Returns
     -------
@@ -425,6 +431,8 @@ def prepare_stock(
         )
     if not (isinstance(max_chain, (int, np.integer)) and max_chain >= 0):
         raise StockError(f"max_chain must be a whole number ≥ 0, got {max_chain!r}")
+    if prefer not in PREFERENCES:
+        raise StockError(f"prefer must be one of {', '.join(PREFERENCES)}, got {prefer!r}")
     hw = _purity_half_width(p, purity_half_width)
     fw = formula_weight_g_mol(formula)
     s_eff = _effective_repeatability_g(balance_repeatability_g, balance_readability_g)
@@ -452,6 +460,7 @@ def prepare_stock(
         purity=p,
         purity_half_width=hw,
         u_mass_g=u_m,
+        direct_mass_g=mass_direct,
     )
     if mass_direct >= min_wt:
         parts = {"balance": u_m / mass_direct, "purity": u_purity_rel, "flask": weighed_u_rel_final}
@@ -482,6 +491,7 @@ def prepare_stock(
         flasks,
         pipettes,
         max_chain,
+        prefer,
     )
     if chain is None:
         raise StockError(
@@ -493,7 +503,19 @@ def prepare_stock(
 
 
 def _best_chain(
-    conc, final, fw, purity, u_m, min_wt, u_purity_rel, delta_T_C, flask_rep, flasks, pipettes, max_chain
+    conc,
+    final,
+    fw,
+    purity,
+    u_m,
+    min_wt,
+    u_purity_rel,
+    delta_T_C,
+    flask_rep,
+    flasks,
+    pipettes,
+    max_chain,
+    prefer="precision",
 ):
     """Search every chain of 1..max_chain steps, vectorised per chain length; None if none fits."""
     V = np.array([f.capacity_mL for f in flasks])
@@ -506,6 +528,7 @@ def _best_chain(
     V_final = final.capacity_mL
     nF, nP = len(flasks), len(pipettes)
 
+    found = []  # prefer="reagent": (mass, u, k, index) of the best chain of each length
     for k in range(1, max_chain + 1):
         # Axes: V0 (weighed flask), then (pipette, flask) for each of the k-1 intermediate steps, then
         # the last pipette into the final flask. Broadcast index grids keep this a handful of arrays.
@@ -534,28 +557,45 @@ def _best_chain(
             continue
         u_rel = np.sqrt(u2 + (u_m / mass) ** 2).ravel()
         flat = np.flatnonzero(ok)
+        if prefer == "reagent":
+            # the least reagent that still reaches the minimum weight; of those within the slack, the
+            # most precise
+            m = mass.ravel()[flat]
+            near = flat[m <= (1.0 + SCARCE_MASS_SLACK) * m.min()]
+            i = near[np.argmin(u_rel[near])]
+            found.append((float(mass.ravel()[i]), float(u_rel[i]), k, np.unravel_index(i, shape)))
+            continue
         # Chains within CHAIN_U_SLACK of the best u are equally good in practice: of those, weigh the
         # least reagent (less waste, less exposure); then the smaller u.
         near = flat[u_rel[flat] <= (1.0 + CHAIN_U_SLACK) * u_rel[flat].min()]
         order = np.lexsort((u_rel[near], mass.ravel()[near]))
         best = np.unravel_index(near[order[0]], shape)
-        return _build_chain(
-            best,
-            k,
-            conc,
-            final,
-            fw,
-            purity,
-            u_m,
-            u_purity_rel,
-            flasks,
-            pipettes,
-            u_weighed,
-            u_flask,
-            u_pip,
-            u_final,
+        found.append((0.0, 0.0, k, best))
+        break
+    if not found:
+        return None
+    if prefer == "reagent":
+        least = min(f[0] for f in found)
+        found = sorted(
+            (f for f in found if f[0] <= (1.0 + SCARCE_MASS_SLACK) * least), key=lambda f: (f[1], f[2])
         )
-    return None
+    _, _, k, best = found[0]
+    return _build_chain(
+        best,
+        k,
+        conc,
+        final,
+        fw,
+        purity,
+        u_m,
+        u_purity_rel,
+        flasks,
+        pipettes,
+        u_weighed,
+        u_flask,
+        u_pip,
+        u_final,
+    )
 
 
 def _build_chain(

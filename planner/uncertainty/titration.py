@@ -4,16 +4,23 @@ A start volume V₀ of the cell's stock is put in the cuvette, then aliquots v�
 k holds V₀ of the cell stock and V_k = v₁ + … + v_k of the titrant in V₀ + V_k, so the totals follow the
 cumulative dilution c = Σ c_s V_s / V_total exactly as for a tube made with those volumes.
 
-The errors are not those of separate tubes:
-- the titrant delivered by point k is the sum of k deliveries, so its random errors accumulate along the
-  titration: cov(V_k, V_l) = Σ_{j ≤ min(k, l)} σ_j² (a random walk), and the dispenser's calibration error
-  (systematic, proportional to the volume) is shared by every aliquot: it adds s_k s_l with
-  s_k = Σ_{j ≤ k} s_j;
+The errors are not those of separate tubes, and how the titrant's errors correlate depends on the
+dispenser [derived from how each is used; common practice] (domain.md §4, in-cuvette titration):
+- aliquot devices (micropipette, one-mark or graduated pipette filled for each aliquot): the titrant added
+  by point k is the sum of k deliveries, so their random errors accumulate along the titration,
+  cov(V_k, V_l) = Σ_{j ≤ min(k, l)} σ_j² (a random walk);
+- a burette or piston (syringe) burette, read before the first addition and after each one: the titrant
+  added by point k is the difference of two readings, V_k = R_k − R_0, so the reading errors do not
+  accumulate: cov(V_k, V_l) = u_read² (1 + δ_kl), every point sharing the first reading's error;
+- the dispenser's calibration error (systematic, proportional to the volume for a burette, the same for
+  every aliquot of a fixed-volume pipette) is shared by every point: it adds S_k S_l;
 - the start volume's error (random and calibration) is shared by every point.
-Both are pushed through the same derivatives of the readings as the tube model (GUM JCGM 100:2008 §5).
+All are pushed through the same derivatives of the readings as the tube model (GUM JCGM 100:2008 §5).
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -21,7 +28,7 @@ from ..inputs.recipe import Recipe, RecipeError
 from ..inputs.schedule import Schedule
 from ..model.compiled import Model, TubeState
 from ..model.jacobians import absorbance_derivatives
-from . import delivery
+from . import catalogue, delivery
 from .bench import Bench, TitrationSetup
 from .covariance import ErrorBudget, volume_derivatives
 
@@ -101,6 +108,13 @@ def titration_recipe(bench: Bench, schedule: Schedule) -> Recipe:
             f"aliquot {v[k]:g} mL is more than the {tit_dev.label} "
             f"holds ({tit_dev.capacity_mL:g} mL): split it or use a larger dispenser",
         )
+    if reads_cumulatively(tit_dev) and added[-1] > tit_dev.capacity_mL * (1 + 1e-9):
+        raise RecipeError(
+            "schedule",
+            f"the titration adds {added[-1]:g} mL of titrant, more than the {tit_dev.label} holds "
+            f"({tit_dev.capacity_mL:g} mL) in one filling: use a larger burette, a more concentrated titrant "
+            "or fewer additions",
+        )
     off = np.flatnonzero(used & ~delivery.on_grid(v, t.step_mL))
     if off.size:
         k = off[0]
@@ -121,19 +135,66 @@ def aliquots_of(bench: Bench, recipe: Recipe) -> np.ndarray:
     return np.diff(np.concatenate([[0.0], recipe.volumes_mL[:, kt]]))
 
 
-def _parts(bench: Bench, recipe: Recipe, delta_T_C: float | None):
-    """(random sd, systematic sd) of each aliquot (n,) and of the start volume (scalars)."""
+def reads_cumulatively(item) -> bool:
+    """Whether the titrant's dispenser is read along the titration (burette, piston burette) rather than
+    delivering separate aliquots."""
+    return item is not None and item.kind in catalogue.TITRANT_READING_KINDS
+
+
+@dataclass(frozen=True)
+class TitrantErrors:
+    """Standard uncertainties of a titration's volumes (see the module docstring).
+
+    Attributes
+    ----------
+    cumulative : True when the titrant's dispenser is read along the titration (burette, piston burette).
+    aliquot_mL : (n,) random sd of each aliquot (aliquot devices; zeros for a burette).
+    reading_mL : sd of one reading of a burette (0 for aliquot devices).
+    reading_index : (n,) how many readings after the first point k's volume rests on (0: nothing added yet).
+    systematic_mL : (n,) calibration (and temperature) sd of the titrant added by each point, shared.
+    start_random_mL, start_systematic_mL : the start volume's random and calibration sd.
+    """
+
+    cumulative: bool
+    aliquot_mL: np.ndarray
+    reading_mL: float
+    reading_index: np.ndarray
+    systematic_mL: np.ndarray
+    start_random_mL: float
+    start_systematic_mL: float
+
+    def random_cov(self) -> np.ndarray:
+        """(n, n) covariance of the titrant added by each point from the random errors, mL²."""
+        n = self.aliquot_mL.size
+        if self.cumulative:
+            m = self.reading_index
+            pos = (m > 0).astype(float)
+            same = (m[:, None] == m[None, :]).astype(float)
+            return self.reading_mL**2 * np.outer(pos, pos) * (1.0 + same)
+        walk = np.cumsum(self.aliquot_mL**2)
+        return walk[np.minimum.outer(np.arange(n), np.arange(n))]  # Σ_{j ≤ min(k,l)} σ_j²
+
+
+def titrant_errors(bench: Bench, recipe: Recipe, delta_T_C: float | None = None) -> TitrantErrors:
+    """The standard uncertainties of a titration's volumes, by how they correlate."""
     t = _setup(bench)
     dT = bench.delta_T_C if delta_T_C is None else delta_T_C
     _, _, cell_dev, tit_dev = _devices(bench)
     v = aliquots_of(bench, recipe)
+    d0 = delivery.delivery_uncertainty(cell_dev, np.array([t.start_volume_mL]), delta_T_C=dT)
+    start = (float(d0.random_mL[0]), float(d0.systematic_mL[0]))
+    if reads_cumulatively(tit_dev):
+        added = np.cumsum(v)
+        du = delivery.delivery_uncertainty(tit_dev, np.minimum(added, tit_dev.capacity_mL), delta_T_C=dT)
+        return TitrantErrors(
+            True, np.zeros_like(v), delivery.reading_u_mL(tit_dev), np.cumsum(v > 0), du.systematic_mL, *start
+        )
     du = delivery.delivery_uncertainty(
         tit_dev, np.where(v > 0, np.maximum(v, delivery.smallest_delivery_mL(tit_dev)), 0.0), delta_T_C=dT
     )
     r = np.where(v > 0, du.random_mL, 0.0)
     s = np.where(v > 0, du.systematic_mL, 0.0)
-    d0 = delivery.delivery_uncertainty(cell_dev, np.array([t.start_volume_mL]), delta_T_C=dT)
-    return r, s, float(d0.random_mL[0]), float(d0.systematic_mL[0])
+    return TitrantErrors(False, r, 0.0, np.cumsum(v > 0), np.cumsum(s), *start)
 
 
 def titration_budget(
@@ -145,13 +206,11 @@ def titration_budget(
     dA_dtot = absorbance_derivatives(model, state).dA_dtotals
     dA_dV, _ = volume_derivatives(bench, recipe, dA_dtot, model.stock_conc_M)  # "added": dilution included
     d_start, d_tit = dA_dV[:, ks], dA_dV[:, kt]
-    r, s, r0, s0 = _parts(bench, recipe, delta_T_C)
-    n = recipe.n_tubes
-    walk = np.cumsum(r**2)
-    cov_rand_V = walk[np.minimum.outer(np.arange(n), np.arange(n))]  # Σ_{j ≤ min(k,l)} σ_j²
-    S = np.cumsum(s)
-    delivery_random = np.outer(d_tit, d_tit) * cov_rand_V + np.outer(d_start, d_start) * r0**2
-    J_dev = np.column_stack([d_tit * S, d_start * s0])  # calibration factors
+    e = titrant_errors(bench, recipe, delta_T_C)
+    delivery_random = (
+        np.outer(d_tit, d_tit) * e.random_cov() + np.outer(d_start, d_start) * e.start_random_mL**2
+    )
+    J_dev = np.column_stack([d_tit * e.systematic_mL, d_start * e.start_systematic_mL])  # calibration factors
     J_stock = (
         (dA_dtot @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T)
         * recipe.volumes_mL
@@ -177,18 +236,29 @@ def titration_volumes(
     z_start: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """T simulated titrations' volumes (T, n, k) and totals (T, n): one start volume and one calibration
-    error per titration, every aliquot's random error, accumulated along the points."""
+    error per titration; every aliquot's random error accumulated along the points (aliquot devices), or
+    every burette reading's error, the titrant added by point k being the difference of its reading and
+    the first (burette, piston burette)."""
     t = _setup(bench)
     ks, kt = bench.stock_index(t.cell), bench.stock_index(t.titrant)
     n, k = recipe.volumes_mL.shape
-    r, s, r0, s0 = _parts(bench, recipe, None)
-    z_alq = rng.standard_normal((T, n))
+    e = titrant_errors(bench, recipe)
+    z_alq = rng.standard_normal((T, n + 1 if e.cumulative else n))
     z_cal = rng.standard_normal((T, 1))
     z0 = rng.standard_normal((T, 2)) if z_start is None else z_start
     V = np.broadcast_to(recipe.volumes_mL, (T, n, k)).copy()
     if delivery_errors:
         v = aliquots_of(bench, recipe)
-        v_true = np.maximum(v + r * z_alq + s * z_cal, 0.0)
-        V[:, :, kt] = np.cumsum(v_true, axis=1)
-        V[:, :, ks] = np.maximum(t.start_volume_mL + r0 * z0[:, :1] + s0 * z0[:, 1:], 0.0)
+        if e.cumulative:  # readings R_0 … R_m, each with its own error; V_k = R_{m_k} − R_0
+            m = e.reading_index
+            read = e.reading_mL * (z_alq[:, m] - z_alq[:, :1])
+            added = np.cumsum(v) + np.where(m > 0, read, 0.0) + e.systematic_mL * z_cal
+            V[:, :, kt] = np.maximum(added, 0.0)
+        else:
+            S = np.diff(np.concatenate([[0.0], e.systematic_mL]))  # each aliquot's calibration sd
+            v_true = np.maximum(v + e.aliquot_mL * z_alq + S * z_cal, 0.0)
+            V[:, :, kt] = np.cumsum(v_true, axis=1)
+        V[:, :, ks] = np.maximum(
+            t.start_volume_mL + e.start_random_mL * z0[:, :1] + e.start_systematic_mL * z0[:, 1:], 0.0
+        )
     return V, V.sum(axis=-1)

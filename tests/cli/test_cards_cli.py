@@ -47,8 +47,8 @@ def test_json(tmp_path, capsys, monkeypatch):
 @pytest.mark.parametrize(
     "text, needle",
     [
-        ("id,name\nx1,Ama Oduya\nx1,Bertil Sand\n", "row 3 column 'id'"),  # duplicate id
-        ("id,name\nx1,\n", "row 2 column 'name'"),  # empty name
+        ("id,name\nx1,Ama Oduya\nx1,Bertil Sand\n", "line 3, id"),  # duplicate id (the file's line)
+        ("id,name\nx1,\n", "line 2, name"),  # empty name
         ("id,section\nx1,A\n", "column 'name'"),  # missing column
         ("id;name\nx1;Ama Oduya\n", "semicolons"),  # semicolons
         ("id,name,colour\nx1,Ama Oduya,red\n", "column 'colour'"),  # unknown column

@@ -45,24 +45,55 @@ def test_power_matches_a_simulated_noncentral_chi2():
     assert float(power_from_noncentrality(np.array(lam), dof)) == pytest.approx(simulated, abs=0.005)
 
 
-def test_guard_with_zero_weight_keeps_the_start():
-    # the compound criterion at w = 0 is the target criterion alone: nothing moves
+def test_guard_with_no_cost_allowed_keeps_the_start():
+    # derived: the ends-only design is the unique c-optimal design for a slope, so every move raises the
+    # slope's variance; with the cost capped at ×1 nothing may move
     x, F, R = _line_and_curvature()
     counts = np.zeros(x.size, dtype=int)
     counts[[0, 20]] = [4, 4]
-    g = guarded_design(F, R, None, 1, counts, 0.0)
+    g = guarded_design(F, R, None, 1, counts, 1.0)
     assert g.moves == 0 and np.array_equal(g.counts, counts)
 
 
 def test_guard_spreads_a_two_point_design_to_see_curvature():
     # derived: the c-optimal design for a slope puts half the points at each end, which cannot see a
-    # quadratic term (λ = 0); weighting the check moves tubes inside and makes λ positive (a quadratic
-    # term worth 20 reading sd at x = 1, so the check has something to find)
+    # quadratic term (λ = 0); allowing ×1.3 in the slope's SE moves tubes inside and makes λ positive (a
+    # quadratic term worth 20 reading sd at x = 1, so the check has something to find)
     x, F, R = _line_and_curvature(size=20.0)
     counts = np.zeros(x.size, dtype=int)
     counts[[0, 20]] = [4, 4]
     assert linear_noncentrality(F, R, None, counts)[0] == pytest.approx(0.0, abs=1e-9)
-    g = guarded_design(F, R, None, 1, counts, 0.3)
+    g = guarded_design(F, R, None, 1, counts, 1.3)
     assert g.counts.sum() == 8 and g.moves >= 1
     assert g.noncentrality[0] > 10.0
     assert np.count_nonzero(g.counts[1:20]) >= 1
+    # the reported variance and noncentrality are those of the design (direct evaluation)
+    rows = np.repeat(np.arange(x.size), g.counts)
+    var_direct = np.linalg.inv(F[rows].T @ F[rows])[1, 1]
+    assert g.var_target == pytest.approx(var_direct, rel=1e-6)
+    assert g.cost <= 1.3 + 1e-9 and g.cost == pytest.approx(np.sqrt(var_direct / 0.5), rel=1e-6)
+    assert g.noncentrality[0] == pytest.approx(linear_noncentrality(F, R, None, g.counts)[0], rel=1e-6)
+
+
+def test_guard_does_not_depend_on_the_units_of_a_parameter():
+    # derived: rescaling a column of F (a parameter in other units) rescales M and the relative ridge alike,
+    # so the variance ratio and λ — and the design — do not change
+    x, F, R = _line_and_curvature(size=20.0)
+    counts = np.zeros(x.size, dtype=int)
+    counts[[0, 20]] = [4, 4]
+    a = guarded_design(F, R, None, 1, counts, 1.3)
+    b = guarded_design(F * np.array([1.0, 1e4]), R, None, 1, counts, 1.3)
+    c = guarded_design(F * np.array([1e-5, 1.0]), R, None, 1, counts, 1.3)
+    assert np.array_equal(a.counts, b.counts) and np.array_equal(a.counts, c.counts)
+    assert b.cost == pytest.approx(a.cost, rel=1e-9)
+
+
+def test_guard_stops_adding_noncentrality_beyond_the_saturation():
+    # with the credit for λ capped, the exchange spends the rest on precision: a lower SE, λ still at the cap
+    x, F, R = _line_and_curvature(size=20.0)
+    counts = np.zeros(x.size, dtype=int)
+    counts[[0, 20]] = [4, 4]
+    free = guarded_design(F, R, None, 1, counts, np.inf)
+    capped = guarded_design(F, R, None, 1, counts, np.inf, lam_cap=12.0)
+    assert capped.noncentrality[0] >= 12.0 - 1e-9
+    assert capped.var_target < free.var_target

@@ -1,4 +1,4 @@
-"""Tests for planner.fitting, the batched Levenberg–Marquardt engine.
+"""Tests for planner.inference.lm, the batched Levenberg–Marquardt engine.
 
 External references:
 - NIST StRD nonlinear regression data sets, read at test time from the shared data folder; their
@@ -327,7 +327,7 @@ L_TOT_M = np.geomspace(1e-5, 3e-3, 10)
 
 
 def ml_conc_M(m_tot_M, l_tot_M, k):
-    """Exact [ML], cancellation-free root of K (M0 − c)(L0 − c) = c (derived; domain.md §1)."""
+    """Exact [ML], cancellation-free root of K (M0 − c)(L0 − c) = c (derived)."""
     s = m_tot_M + l_tot_M + 1.0 / k
     disc = (m_tot_M - l_tot_M) ** 2 + (2.0 * (m_tot_M + l_tot_M) + 1.0 / k) / k
     return 2.0 * m_tot_M * l_tot_M / (s + np.sqrt(disc))

@@ -1,4 +1,5 @@
-"""Tests of planner.optimal: published optimal designs, equivalence theorem, exchange invariants."""
+"""Tests of planner.inference (approximate, exchange, design_criteria): published optimal designs, equivalence
+theorem, exchange invariants."""
 
 from __future__ import annotations
 

@@ -222,3 +222,52 @@ def test_free_text_keeps_unicode_but_is_shown_visibly(teaching_text):
     p = parse_plan_text(teaching_text.replace('title = "Copper(II)', 'title = "Cu\\u202e(II) ±'))
     assert "\u202e" in p.title  # stored as written
     assert visible(p.title).startswith("Cu\\u202e(II) ±")  # shown as a visible escape, ± kept
+
+
+# --------------------------------------------------------------------------------------------------
+# a dispenser's own figures (issue 20, item 0)
+# --------------------------------------------------------------------------------------------------
+_BURETTE = 'kind = "burette"\ncapacity = "10 mL"\nclass = "A"\nstocks = ["CU", "DY"]'
+
+
+def _dispenser(teaching_text, body: str):
+    assert _BURETTE in teaching_text
+    return parse_plan_text(teaching_text.replace(_BURETTE, body))
+
+
+def test_dispenser_figures_are_read(teaching_text):
+    p = _dispenser(
+        teaching_text,
+        'kind = "burette"\ncapacity = "10 mL"\ngraduation = "0.02 mL"\nrepeatability = "0.006 mL"\n'
+        'stocks = ["CU", "DY"]',
+    )
+    d = p.glassware.dispenser[0]
+    assert (d.graduation_mL, d.repeatability_mL, d.cls) == (0.02, 0.006, None)
+    m = _dispenser(
+        teaching_text,
+        'kind = "micropipette"\ncapacity = "1000 uL"\nsystematic = "4 uL"\nrepeatability = "1.5 uL"\n'
+        'stocks = ["CU", "DY"]',
+    )
+    assert m.glassware.dispenser[0].limit_mL == pytest.approx(0.004)
+
+
+@pytest.mark.parametrize(
+    ("body", "key", "words"),
+    [
+        ('kind = "burette"\ncapacity = "10 mL"\nsystematic = "0.02 mL"', "systematic", "tolerance"),
+        ('kind = "micropipette"\ncapacity = "1000 uL"\nclass = "A"', "class", "no class"),
+        ('kind = "pipette"\ncapacity = "5 mL"\ngraduation = "0.1 mL"', "graduation", "no graduation"),
+        ('kind = "burette"\ncapacity = "10 mL"\ngraduation = "20 mL"', "graduation", "smallest subdivision"),
+        ('kind = "burette"\ncapacity = "10 mL"\nrepeatability = "2 mL"', "repeatability", "one delivery"),
+        (
+            'kind = "micropipette"\ncapacity = "1000 uL"\nsystematic = "4 uL"\ntolerance = "8 uL"',
+            "systematic",
+            "not both",
+        ),
+    ],
+)
+def test_dispenser_figures_are_validated(teaching_text, body, key, words):
+    with pytest.raises(PlanError) as err:
+        _dispenser(teaching_text, body + '\nstocks = ["CU", "DY"]')
+    assert err.value.key == f"glassware.dispenser[0].{key}"
+    assert words in err.value.message

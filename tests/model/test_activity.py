@@ -1,4 +1,4 @@
-"""Tests for planner.activity: ionic strength, Davies, extended Debye-Hueckel, constant conversion."""
+"""Tests for planner.model.activity: ionic strength, Davies, extended Debye-Hueckel, constant conversion."""
 
 import warnings
 
@@ -114,7 +114,7 @@ KIELLAND = [
 def test_extended_dh_reproduces_kielland_table(ion, z, a, table):
     I = np.array([0.001, 0.01, 0.1])
     gamma = 10.0 ** extended_dh_log_gamma(z, I, a)
-    # +-0.005 in gamma (domain.md), plus half a unit of the last printed digit of the table entry
+    # +-0.005 in gamma, plus half a unit of the last printed digit of the table entry
     # (the I = 0.1 column is printed to 2 decimals)  # common practice for rounded tables
     half_unit = np.array([0.0005, 0.0005, 0.005])
     assert np.all(np.abs(gamma - np.array(table)) <= 0.005 + half_unit), (ion, gamma)

@@ -1,4 +1,5 @@
-"""Tests for planner.chemistry: conditional constants, the 1:1 closed form, the equilibrium solver and
+"""Tests for planner.model (closed_forms, speciation, newton): conditional constants, the 1:1 closed form, the
+equilibrium solver and
 its analytic sensitivities."""
 
 import re
@@ -64,7 +65,7 @@ def test_conditional_log_beta_broadcasts_over_tubes_and_needs_pH():
 
 
 def test_stepwise_and_overall_constants():
-    # beta_n = K_1 ... K_n: log beta = cumulative sums of log K  # source: domain.md section 1
+    # beta_n = K_1 ... K_n: log beta = cumulative sums of log K  # derived: β_n = K_1 … K_n by definition
     log_K = np.array([7.32, 6.18, 4.10])
     log_beta = overall_from_stepwise(log_K)
     np.testing.assert_allclose(log_beta, [7.32, 13.50, 17.60], atol=1e-12)
@@ -96,7 +97,7 @@ def mp_one_to_one(M0, L0, K):
 
 def test_one_to_one_hand_worked():
     # M0 = L0 = 1 mM, K = 1000 /M: K x^2 - (K M0 + K L0 + 1) x + K M0 L0 = 0 is x^2 - 3e-3 x + 1e-6 = 0,
-    # x = 1e-3 (3 - sqrt 5) / 2 = 3.8197e-4 M  # derived by hand from the quadratic (domain.md section 1)
+    # x = 1e-3 (3 - sqrt 5) / 2 = 3.8197e-4 M  # derived by hand from the quadratic
     expected = 1e-3 * (3.0 - 5.0**0.5) / 2.0
     assert one_to_one(1e-3, 1e-3, 1e3) == pytest.approx(expected, rel=1e-14)
     assert expected == pytest.approx(3.8197e-4, rel=1e-4)

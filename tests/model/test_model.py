@@ -56,7 +56,7 @@ def test_davies_warning_above_half_molar(teaching_text):
 
 
 def test_bandwidth_correction(teaching_text):
-    # derived (domain.md §2): ε_app = ε/√(1 + (bandwidth/fwhm)²)
+    # derived: ε_app = ε/√(1 + (bandwidth/fwhm)²)
     text = teaching_text.replace("display_step = 0.001", "display_step = 0.001\nbandwidth_nm = 20").replace(
         "[[stock]]",
         "[optics.bands]\nML = { peak_nm = 580, fwhm_nm = 80, epsilon_max = 950.0 }\n\n[[stock]]",

@@ -1,4 +1,4 @@
-"""Absorbance model: Beer–Lambert, stray light, photometric noise (domain.md §2)."""
+"""Absorbance model: Beer–Lambert, stray light, photometric noise."""
 
 from __future__ import annotations
 
@@ -60,7 +60,7 @@ def test_ringbom_minimum_for_readout_noise():
 
 
 def test_shot_noise_minimum():
-    # derived (domain.md §2): k2 alone has its minimum at A ≈ 0.963
+    # derived: k2 alone has its minimum at A ≈ 0.963
     assert _rel_error_minimum(k1=0.0, k2=0.003) == pytest.approx(0.963, abs=2e-3)
 
 
@@ -83,7 +83,7 @@ def test_display_step_adds_rectangular_term():
 
 
 def test_bandwidth_factor():
-    # derived (domain.md §2): bandwidth/band width = 0.1 keeps ≥ 99.5 % of the peak
+    # derived: bandwidth/band width = 0.1 keeps ≥ 99.5 % of the peak
     assert optics.bandwidth_factor(10.0, 100.0) == pytest.approx(1 / np.sqrt(1.01))
     assert optics.bandwidth_factor(10.0, 100.0) > 0.995
     assert optics.bandwidth_factor(None, 100.0) == 1.0

@@ -96,6 +96,6 @@ def test_footnotes_stay_with_their_tables(n):
         plan, recipe, assess(plan, recipe, trials=0), stock_needs(plan, recipe), date="2026-12-01"
     )
     pages = [re.sub(r"\s+", " ", p.extract_text()) for p in pypdf.PdfReader(io.BytesIO(pdf)).pages]
-    for note, last_row in (("Volumes in mL, read to", f"T{n} "), ("Needed: what the tubes take", "BG ")):
+    for note, last_row in (("Volumes in mL, on a", f"T{n} "), ("Needed: what the tubes take", "BG ")):
         page = next(i for i, t in enumerate(pages) if note in t)
         assert last_row in pages[page].split(note)[0], note  # the table's last row is on the note's page

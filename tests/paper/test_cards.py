@@ -19,13 +19,15 @@ from planner.paper import cards as pc
 
 from ..conftest import scenario_text
 
-LONG = "Q" * 10000
-# invented roster, hostile on purpose: markup, template syntax, a right-to-left override, 10k characters
+LONG = "Q" * 200  # the longest name a roster takes (planner.inputs.limits.MAX_TEXT)
+RTL = "\u05e2\u05d3\u05d4 \u05e8\u05d5\u05e0\u05e1\u05e8"  # an invented name in Hebrew letters
+# invented roster, hostile on purpose: markup, template syntax, a right-to-left script, a long name
+# (a right-to-left override or a control character is refused by the roster reader: tests/inputs)
 HOSTILE = (
     "id,name,section\n"
     "h1,\"<img src='http://example.invalid/x.png'><script>alert(1)</script>\",A\n"
     'h2,"{{ 7*7 }} {% raw %}Ludovika{% endraw %}",A\n'
-    'h3,"\u202eAzadeh Ronsard\u202c",B\n'
+    f"h3,{RTL},B\n"
     f"h4,{LONG},B\n"
 )
 PLAN_KEYS = (
@@ -75,7 +77,7 @@ def test_hostile_roster_text_is_text(card_html):
     assert "{{ 7*7 }}" in card_html and "49" not in re.sub(
         r"\d+\.\d+", "", card_html.split("Ludovika")[0][-40:]
     )
-    assert "<bdi>\u202eAzadeh Ronsard\u202c</bdi>" in card_html  # the override stays inside its own box
+    assert f"<bdi>{RTL}</bdi>" in card_html  # right-to-left text stays inside its own box
     assert LONG not in card_html and ("Q" * (pc.NAME_MAX - 1) + "…") in card_html
 
 

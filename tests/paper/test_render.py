@@ -1,5 +1,5 @@
-"""Tests for the printed sheets: planner.render, planner.sheets, planner.figures and the fmt helpers
-they use. PDFs are read back with pypdf; page 1 is rasterised with pdftoppm where it exists."""
+"""Tests for the printed sheets: planner.paper.render, planner.paper.sheets, planner.paper.figures and the
+fmt helpers they use. PDFs are read back with pypdf; page 1 is rasterised with pdftoppm where it exists."""
 
 from __future__ import annotations
 
@@ -128,7 +128,7 @@ def test_stock_table(teaching, prep_txt):
     assert math.isclose(cu.preparation.mass_g, 0.0100 * 0.100 * 241.60 / 0.99, rel_tol=2e-4)
     assert "Weigh 0.2440 g" in prep_txt
     assert "Cu2+: 10.000 ± 0.050 mM" in prep_txt  # derived: conc_rsd 0.005 of 10.0 mM = 0.050 mM
-    assert "10.0 mL burette (class A)" in prep_txt  # the plan's dispenser for CU and DY
+    assert "class A 10 mL burette" in prep_txt  # the plan's dispenser for CU and DY
     assert "to the mark of each flask" in prep_txt  # BG under make_up = "to-mark"
 
 
@@ -175,7 +175,7 @@ def test_cmr_reagent_is_flagged():
     plan, recipe, a, needs = setup(patched_plan(stocks={"CU": {"reagent": "nickel(II) sulfate hexahydrate"}}))
     txt = pdf_text(render.prep_sheet(plan, recipe, a, needs, date=DATE))
     assert "CMR reagent in this plan" in txt
-    assert "CMR: H341, H350i, H360D" in txt  # from memory (domain.md §6): nickel salts
+    assert "CMR: H341, H350i, H360D" in txt  # from memory: nickel salts
     assert "substitute" in txt and "May cause cancer by inhalation." in txt
 
 

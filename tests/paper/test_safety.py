@@ -1,4 +1,4 @@
-"""Tests for planner.safety and the reagent library: statement texts, pictograms, CMR flag, lookup,
+"""Tests for planner.paper.safety and the reagent library: statement texts, pictograms, CMR flag, lookup,
 label inference, clashes and the plan-level hazard list."""
 
 from __future__ import annotations
@@ -152,7 +152,7 @@ def test_not_cmr(code):
 
 
 def test_cmr_entries():
-    # source: domain.md §6 — nickel(II) salts are CMR; salicylic acid carries H361d
+    # from memory: nickel(II) salts are CMR (harmonised CLP classification); salicylic acid carries H361d
     for name in (
         "nickel(II) sulfate hexahydrate",
         "nickel(II) nitrate hexahydrate",
@@ -168,21 +168,21 @@ def test_cmr_entries():
 
 
 # --------------------------------------------------------------------------------------------------
-# the library against domain.md §6, and its provenance
+# the library against recalled classifications, and its provenance
 # --------------------------------------------------------------------------------------------------
 @pytest.mark.parametrize(
     ("name", "codes"),
     [
         ("potassium thiocyanate", {"H302+H312+H332", "H412", "EUH032"}),  # source: CLP Annex VI 615-030-00-5
-        ("iron(III) nitrate nonahydrate", {"H272", "H315", "H319"}),  # from memory (domain.md §6)
-        ("nitric acid", {"H290", "H314"}),  # from memory (domain.md §6)
-        ("copper(II) sulfate pentahydrate", {"H302", "H315", "H319", "H410"}),  # from memory (domain.md §6)
+        ("iron(III) nitrate nonahydrate", {"H272", "H315", "H319"}),  # from memory
+        ("nitric acid", {"H290", "H314"}),  # from memory
+        ("copper(II) sulfate pentahydrate", {"H302", "H315", "H319", "H410"}),  # from memory
         (
             "ethylenediamine",
             {"H226", "H302", "H312", "H314", "H317", "H334"},
-        ),  # source: supplier SDS 2018 (domain.md §6)
-        ("ammonia solution", {"H314", "H335", "H400"}),  # from memory (domain.md §6)
-        ("salicylic acid", {"H302", "H318", "H361d"}),  # from memory (domain.md §6)
+        ),  # source: supplier SDS 2018
+        ("ammonia solution", {"H314", "H335", "H400"}),  # from memory
+        ("salicylic acid", {"H302", "H318", "H361d"}),  # from memory
     ],
 )
 def test_library_matches_domain_primer(name, codes):
@@ -190,7 +190,7 @@ def test_library_matches_domain_primer(name, codes):
 
 
 def test_nickel_salts_carry_the_domain_cmr_set():
-    # from memory (domain.md §6): nickel(II) salts H317, H334, H341, H350i, H360D, H372, H410
+    # from memory: nickel(II) salts H317, H334, H341, H350i, H360D, H372, H410
     want = {"H317", "H334", "H341", "H350i", "H360D", "H372", "H410"}
     for name in ("nickel(II) sulfate", "nickel(II) nitrate", "nickel(II) chloride"):
         assert want <= set(lookup(name).hazard_codes), name
@@ -223,7 +223,7 @@ def test_required_reagents_are_in_the_library(name):
 
 
 def test_every_entry_has_provenance():
-    with_source = {"potassium thiocyanate", "ethylenediamine"}  # domain.md §6 tags only these [source]
+    with_source = {"potassium thiocyanate", "ethylenediamine"}  # the only entries with a named source
     for e in LIB:
         assert e.checked == "2026-12-01"
         assert e.source.strip()
@@ -370,3 +370,16 @@ def test_summary_is_json_safe():
     assert {p["code"] for p in s["pictograms"]} == {"GHS07", "GHS08", "GHS09"}
     assert all(st_["text"] for st_ in s["statements"])
     assert safety.PlanReagent("x", ("A",), None, message=NO_DATA).summary()["message"] == NO_DATA
+
+
+def test_printed_provenance_cites_no_developer_document():
+    # the library's provenance is printed in the safety box of every prep sheet and card: it names
+    # public sources (CLP, a supplier SDS) or says "recalled", never the project's own notes
+    from importlib import resources
+
+    text = resources.files("planner.data").joinpath("reagents.toml").read_text(encoding="utf-8")
+    data = tomllib.loads(text)
+    for entry in data.get("reagent", []):
+        for key in ("source", "notes", "waste"):
+            value = str(entry.get(key, ""))
+            assert ".md" not in value and "domain" not in value.lower(), (entry.get("name"), key, value)

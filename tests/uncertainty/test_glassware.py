@@ -1,4 +1,5 @@
-"""Tests for planner.glassware: catalogue values, tolerance → uncertainty, deliveries, grids."""
+"""Tests for planner.uncertainty.catalogue and delivery: catalogue values, tolerance → uncertainty,
+deliveries, grids."""
 
 import math
 
@@ -22,26 +23,26 @@ from planner.uncertainty.delivery import (
 )
 
 # --------------------------------------------------------------------------------------------------
-# catalogue against domain.md §3 (kind, capacity_mL, tolerance_mL, from_memory as domain.md tags it)
+# catalogue against the standards (kind, capacity_mL, tolerance_mL, from_memory where recalled)
 # --------------------------------------------------------------------------------------------------
 DOMAIN_TABLE = [
-    ("pipette", 1.0, 0.006, False),  # source: ASTM E969 (domain.md §3)
-    ("pipette", 2.0, 0.006, False),  # source: ASTM E969 (domain.md §3)
-    ("pipette", 5.0, 0.01, False),  # source: ASTM E969 (domain.md §3)
-    ("pipette", 10.0, 0.02, True),  # from memory: ASTM E969 (domain.md §3)
-    ("pipette", 25.0, 0.03, True),  # from memory: ASTM E969 (domain.md §3)
-    ("flask", 25.0, 0.03, False),  # source: ASTM E288 (domain.md §3)
-    ("flask", 50.0, 0.05, False),  # source: ASTM E288 (domain.md §3)
-    ("flask", 100.0, 0.08, False),  # source: ASTM E288 (domain.md §3)
-    ("flask", 250.0, 0.12, False),  # source: ASTM E288 (domain.md §3)
-    ("flask", 10.0, 0.02, True),  # from memory: ASTM E288 (domain.md §3)
-    ("burette", 10.0, 0.02, True),  # from memory: ASTM E287 / ISO 385 (domain.md §3)
-    ("burette", 25.0, 0.03, True),  # from memory: ASTM E287 / ISO 385 (domain.md §3)
-    ("burette", 50.0, 0.05, False),  # source: ISO 385 50 mL class A ±0.05 (domain.md §3)
-    ("graduated-pipette", 2.0, 0.010, False),  # source: USP <31> (domain.md §3)
-    ("graduated-pipette", 5.0, 0.020, False),  # source: USP <31> (domain.md §3)
-    ("graduated-pipette", 10.0, 0.030, False),  # source: USP <31> (domain.md §3)
-    ("micropipette", 1.0, 0.008, False),  # source: ISO 8655-2:2002, 1000 µL systematic ±8 µL (domain.md §3)
+    ("pipette", 1.0, 0.006, False),  # source: ASTM E969
+    ("pipette", 2.0, 0.006, False),  # source: ASTM E969
+    ("pipette", 5.0, 0.01, False),  # source: ASTM E969
+    ("pipette", 10.0, 0.02, True),  # from memory: ASTM E969
+    ("pipette", 25.0, 0.03, True),  # from memory: ASTM E969
+    ("flask", 25.0, 0.03, False),  # source: ASTM E288
+    ("flask", 50.0, 0.05, False),  # source: ASTM E288
+    ("flask", 100.0, 0.08, False),  # source: ASTM E288
+    ("flask", 250.0, 0.12, False),  # source: ASTM E288
+    ("flask", 10.0, 0.02, True),  # from memory: ASTM E288
+    ("burette", 10.0, 0.02, True),  # from memory: ASTM E287 / ISO 385
+    ("burette", 25.0, 0.03, True),  # from memory: ASTM E287 / ISO 385
+    ("burette", 50.0, 0.05, False),  # source: ISO 385 50 mL class A ±0.05
+    ("graduated-pipette", 2.0, 0.010, False),  # source: USP <31>
+    ("graduated-pipette", 5.0, 0.020, False),  # source: USP <31>
+    ("graduated-pipette", 10.0, 0.030, False),  # source: USP <31>
+    ("micropipette", 1.0, 0.008, False),  # source: ISO 8655-2:2002, 1000 µL systematic ±8 µL
 ]
 
 
@@ -56,15 +57,15 @@ def test_catalogue_matches_domain_table(kind, capacity_mL, tolerance_mL, from_me
 def test_burette_subdivisions_from_domain_table():
     assert lookup("burette", 10).graduation_mL == pytest.approx(
         0.05
-    )  # from memory: domain.md §3 (10 mL, 0.05)
-    assert lookup("burette", 50).graduation_mL == pytest.approx(0.1)  # from memory: domain.md §3 (50 mL, 0.1)
+    )  # from memory: 10 mL burette graduated in 0.05 mL
+    assert lookup("burette", 50).graduation_mL == pytest.approx(
+        0.1
+    )  # from memory: 50 mL burette graduated in 0.1 mL
 
 
 def test_micropipette_random_limit_from_iso_8655():
     item = lookup("micropipette", 1.0)
-    assert item.random_mL == pytest.approx(
-        0.003
-    )  # source: ISO 8655-2:2002, 1000 µL random 3 µL (domain.md §3)
+    assert item.random_mL == pytest.approx(0.003)  # source: ISO 8655-2:2002, 1000 µL random 3 µL
     assert item.cls is None
 
 
@@ -72,10 +73,11 @@ def test_catalogue_sizes_the_brief_asks_for():
     sizes = {
         "burette": {10, 25, 50},
         "pipette": {1, 2, 5, 10, 25},
-        "flask": {10, 25, 50, 100, 250, 500, 1000},
+        "flask": {1, 2, 5, 10, 25, 50, 100, 250, 500, 1000},
         "graduated-pipette": {1, 2, 5, 10},
         "micropipette": {0.01, 0.02, 0.1, 0.2, 1.0, 5.0},
-    }  # source: the task brief's list of common sizes
+        "piston-burette": {1, 5, 10, 25, 50},
+    }  # source: the task brief's list of common sizes (issue 20 adds the 1, 2 and 5 mL flasks)
     have = {k: {it.capacity_mL for it in catalogue() if it.kind == k} for k in KINDS}
     for kind, caps in sizes.items():
         assert {round(c, 6) for c in have[kind]} == {round(float(c), 6) for c in caps}
@@ -156,7 +158,7 @@ def test_tolerance_override_and_user_item():
 def test_distribution_divisors():
     assert u_triangular(0.1) == pytest.approx(0.1 / math.sqrt(6))  # source: QUAM 3rd ed. A1 (a/√6)
     assert u_rectangular(0.1) == pytest.approx(0.1 / math.sqrt(3))  # source: GUM JCGM 100:2008 4.3.7
-    assert u_reading(0.001) == pytest.approx(0.001 / math.sqrt(12))  # source: GUM F.2.2.1 (domain.md §2)
+    assert u_reading(0.001) == pytest.approx(0.001 / math.sqrt(12))  # source: GUM F.2.2.1
     assert u_triangular(0.1) == pytest.approx(0.041, abs=5e-4)  # source: QUAM A1, 0.1/√6 = 0.04 mL
     with pytest.raises(GlasswareError):
         u_triangular(-1.0)
@@ -172,7 +174,7 @@ def test_temperature_term_quam_a1():
 def test_flask_volume_uncertainty_quam_a1():
     flask = lookup("flask", 100, tolerance_mL=0.1)  # source: QUAM A1, 100 mL flask ±0.1 mL
     u = flask_volume_uncertainty(flask, delta_T_C=4.0, repeatability_mL=0.02)  # source: QUAM A1
-    assert round(u, 4) == pytest.approx(0.0665)  # source: QUAM A1, u(V) = 0.0665 mL (domain.md §3)
+    assert round(u, 4) == pytest.approx(0.0665)  # source: QUAM A1, u(V) = 0.0665 mL
 
 
 def test_flask_volume_uncertainty_rejects_other_kinds():
@@ -184,7 +186,7 @@ def test_flask_volume_uncertainty_rejects_other_kinds():
 # deliveries
 # --------------------------------------------------------------------------------------------------
 def test_burette_reading_within_common_practice_range():
-    # common practice (domain.md §3): a burette reading is good to about ±0.01–0.02 mL; random part of
+    # common practice: a burette reading is good to about ±0.01–0.02 mL; random part of
     # a delivery is √2 × the rectangular u of that half-width (difference of two readings).
     for cap in (10, 25, 50):
         item = lookup("burette", cap)
@@ -328,3 +330,69 @@ def test_delivery_uncertainty_nonnegative_and_monotone(item, fractions, dT):
 def test_standard_uncertainties_nonnegative(a, V, dT):
     for u in (u_triangular(a), u_rectangular(a), u_reading(a), u_temperature(V, dT)):
         assert u >= 0
+
+
+# --------------------------------------------------------------------------------------------------
+# devices described by the plan (issue 20): no class without one, the lab's own figures
+# --------------------------------------------------------------------------------------------------
+def test_a_device_given_by_its_tolerance_alone_has_no_class():
+    flask = lookup("flask", 2.0, None, 0.02)
+    assert flask.cls is None and flask.label == "2 mL volumetric flask" and "class" not in flask.label
+    own = lookup("burette", 7.0, None, 0.02, graduation_mL=0.02)
+    assert own.cls is None and own.label == "7 mL burette"
+    assert (
+        lookup("flask", 2.0, None).label == "class A 2 mL volumetric flask"
+    )  # nothing stated: the catalogue's
+    assert lookup("flask", 2.0, "A", 0.02).cls == "A"  # a class the user names is kept
+
+
+def test_small_flasks_are_in_the_catalogue():
+    # from memory: ASTM E288 / E237 class A 1 mL ±0.010, 2 mL ±0.015, 5 mL ±0.020 (recalled, flagged so)
+    for cap, tol in ((1.0, 0.010), (2.0, 0.015), (5.0, 0.020)):
+        it = lookup("flask", cap)
+        assert it.tolerance_mL == pytest.approx(tol) and it.from_memory and "E288" in it.source
+
+
+def test_piston_burettes_have_no_class_and_read_to_their_display():
+    from planner.uncertainty.catalogue import reading_resolution_mL
+
+    it = lookup("piston-burette", 10.0)
+    assert it.cls is None and it.label == "10 mL piston burette" and it.from_memory
+    assert reading_resolution_mL(it) == it.graduation_mL
+    with pytest.raises(GlasswareError, match="no class"):
+        lookup("piston-burette", 10.0, "B")
+    # a piston burette's limit is a maximum permissible error: rectangular (GUM 4.3.7), scaled along
+    # the stroke like a burette's; its random limit is the sd of one delivery (ISO 8655)
+    du = delivery_uncertainty(it, np.array([5.0]))
+    assert du.calibration_mL[0] == pytest.approx(it.tolerance_mL / math.sqrt(3.0) * 0.5)
+    assert du.random_mL[0] == pytest.approx(it.random_mL)
+
+
+def test_measured_repeatability_replaces_the_reading_model():
+    from planner.uncertainty.delivery import reading_u_mL
+
+    plain = lookup("burette", 10.0)
+    # source: GUM 4.3.7 — read to ±1/5 of the 0.05 mL subdivision, rectangular: u = 0.01/√3
+    assert reading_u_mL(plain) == pytest.approx(0.01 / math.sqrt(3.0))
+    own = lookup("burette", 10.0, repeatability_mL=0.004)
+    # derived: a delivery is the difference of two readings, so one reading carries s/√2
+    assert reading_u_mL(own) == pytest.approx(0.004 / math.sqrt(2.0))
+    assert delivery_uncertainty(own, np.array([3.0])).random_mL[0] == pytest.approx(0.004)
+    mp = lookup("micropipette", 1.0, None, 0.004, repeatability_mL=0.0015)
+    du = delivery_uncertainty(mp, np.array([0.5]))
+    assert du.random_mL[0] == pytest.approx(0.0015)
+    assert du.calibration_mL[0] == pytest.approx(0.004 / math.sqrt(3.0))  # rectangular, GUM 4.3.7
+
+
+def test_the_plans_figures_reach_the_budget():
+    from planner.inputs.plan import parse_plan_text
+    from planner.jobs.compile import compile_study
+
+    from ..conftest import scenario_text
+
+    text = scenario_text("teaching").replace(
+        'kind = "burette"\ncapacity = "10 mL"\nclass = "A"\n',
+        'kind = "burette"\ncapacity = "10 mL"\nrepeatability = "0.004 mL"\ngraduation = "0.02 mL"\n',
+    )
+    item = compile_study(parse_plan_text(text)).bench.devices.items[0]
+    assert (item.repeatability_mL, item.graduation_mL, item.cls) == (0.004, 0.02, "A")

@@ -1,4 +1,5 @@
-"""Tests for planner.stocks: formula weights, USP <41>, QUAM A1, dilution chains, volumes on hand."""
+"""Tests for planner.uncertainty.stocks: formula weights, USP <41>, QUAM A1, dilution chains, volumes on
+hand."""
 
 import json
 import math
@@ -124,7 +125,7 @@ def test_summary_is_json_safe_and_parts_add_up():
 # --------------------------------------------------------------------------------------------------
 def test_purity_defaults():
     unstated = prepare_stock(0.1, 100, "KSCN")
-    # source: ACS Reagent Chemicals, 98–102 % assay → ±0.02, rectangular (domain.md §3)
+    # source: ACS Reagent Chemicals, 98–102 % assay → ±0.02, rectangular
     assert unstated.purity_half_width == ACS_REAGENT_ASSAY_HALF_WIDTH == 0.02
     assert unstated.u_parts["purity"] == pytest.approx(0.02 / math.sqrt(3))
     certified = prepare_stock(0.1, 100, "KSCN", purity=0.995)

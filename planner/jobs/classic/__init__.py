@@ -4,9 +4,10 @@ survey, planned on the plan's glassware and judged by the same model and error b
 from __future__ import annotations
 
 from ...inputs.choices import SERIES_METHOD_OPTIONS, SERIES_METHODS
+from ...inputs.limits import MAX_REPLICATES, MAX_TUBES, check_count
 from ._deps import Plan, plan_model
 from .calibration import conversion_tube
-from .common import ClassicSeries
+from .common import ClassicSeries, SeriesInfeasible, infeasible
 from .job import continuous_variation
 from .mole_ratio import mole_ratio_series
 from .survey import wavelength_survey
@@ -19,6 +20,7 @@ __all__ = [
     "METHODS",
     "METHOD_OPTIONS",
     "ClassicSeries",
+    "SeriesInfeasible",
     "continuous_variation",
     "conversion_tube",
     "mole_ratio_series",
@@ -41,7 +43,30 @@ def run_series(
     max_ratio: float | None = None,
     recipe=None,
 ) -> ClassicSeries:
-    """Plan and judge the classic series ``method`` (one of :data:`METHODS`)."""
+    """Plan and judge the classic series ``method`` (one of :data:`METHODS`).
+
+    ``points`` (tubes of a Job or mole-ratio series) and ``tubes`` (the calibration series' replicate
+    tubes) are checked against :data:`planner.inputs.limits.MAX_TUBES` and ``MAX_REPLICATES``. A series the
+    stocks and glassware cannot make at the method's defaults comes back with no tubes and a failing
+    "feasible" check saying what would (not as an input error: the plan is not wrong).
+    """
+    if points is not None:
+        points = check_count(points, "points", MAX_TUBES)
+    if tubes is not None:
+        tubes = check_count(tubes, "replicates", MAX_REPLICATES)
+    try:
+        return _run(plan, method, points, total_M, tubes, limiting, excess_M, vary, max_ratio, recipe)
+    except SeriesInfeasible as exc:
+        from .calibration import QUESTION as Q_CAL
+        from .job import QUESTION as Q_JOB
+        from .mole_ratio import QUESTION as Q_MR
+        from .survey import QUESTION as Q_SURVEY
+
+        q = {"job": Q_JOB, "calibration": Q_CAL, "mole-ratio": Q_MR, "survey": Q_SURVEY}[method]
+        return infeasible(method, plan, q, exc)
+
+
+def _run(plan, method, points, total_M, tubes, limiting, excess_M, vary, max_ratio, recipe) -> ClassicSeries:
     if method == "job":
         return continuous_variation(plan, points=points, total_M=total_M)
     if method == "calibration":

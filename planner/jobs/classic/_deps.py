@@ -13,6 +13,7 @@ from ...inference.precision import free_parameters as _free_parameters
 from ...inference.precision import whitening
 from ...inputs.plan import Epsilon, Plan, PlanError
 from ...inputs.recipe import Recipe, make_recipe, totals_M
+from ...inputs.text import plural
 from ...model.activity import ActivityWarning
 from ...model.compiled import Model, TubeState, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
@@ -20,7 +21,7 @@ from ...model.optics import bandwidth_factor
 from ...uncertainty import budget as _budget
 from ..compile import build_model, compile_bench, error_budget, make_up_min_mL, plan_devices
 from ..plan.assess import Assessment
-from ..plan.checks import Check
+from ..plan.checks import RANGE_RISK, SECOND_COMPLEX_SHARE, Check, blanks, hand_bias_summary, range_band
 from ..plan.even import even_series
 
 __all__ = [
@@ -31,20 +32,26 @@ __all__ = [
     "Model",
     "Plan",
     "PlanError",
+    "RANGE_RISK",
+    "SECOND_COMPLEX_SHARE",
     "Recipe",
     "TubeState",
     "absorbance_derivatives",
     "assess_tubes",
     "bandwidth_factor",
+    "blanks",
     "error_budget",
     "error_factors",
     "even_series",
     "free_parameters",
+    "hand_bias_summary",
     "make_recipe",
     "make_up_min_mL",
     "plan_devices",
     "plan_model",
+    "plural",
     "predict",
+    "range_band",
     "totals_M",
     "tube_ions_M",
     "whitening",

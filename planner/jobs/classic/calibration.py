@@ -28,24 +28,28 @@ from __future__ import annotations
 import numpy as np
 
 from ._deps import (
+    SECOND_COMPLEX_SHARE,
     Check,
     Plan,
     PlanError,
     assess_tubes,
+    hand_bias_summary,
     make_up_min_mL,
     plan_model,
     predict,
     tube_ions_M,
 )
 from .common import (
+    RANGE_RISK,
     ClassicSeries,
+    SeriesInfeasible,
     capacity_mL,
     fill_volumes,
     finish,
     fmt_conc,
     hypothetical,
-    predict_volumes,
     pure_stock,
+    screen,
     series_recipe,
     snap,
 )
@@ -91,7 +95,7 @@ def conversion_tube(
         )
     lim = limiting or ("L" if p >= q else "M")
     if lim not in ("M", "L"):
-        raise PlanError("--limiting", f"'{lim}': write M (metal limiting) or L (ligand limiting)")
+        raise PlanError("limiting", f"'{lim}': write M (metal limiting) or L (ligand limiting)")
     exc = "M" if lim == "L" else "L"
     nu_lim, nu_exc = (q, p) if lim == "L" else (p, q)
     eps_t = float(model.epsilon_M_cm[2 + j])
@@ -101,7 +105,7 @@ def conversion_tube(
             f"'{target}' has no absorptivity: give its ε guess (a calibration tube reads the complex)",
         )
     if tubes < 1:
-        raise PlanError("--tubes", "at least one calibration tube")
+        raise PlanError("replicates", "at least one calibration tube")
     _, lim_id, c_lim_stock = pure_stock(plan, lim)
     _, exc_id, c_exc_stock = pure_stock(plan, exc)
     g = plan.glassware
@@ -110,21 +114,7 @@ def conversion_tube(
     lo, hi = model.linear_range
 
     # the limiting reagent: full conversion reads in the middle of the linear range unless told
-    if total_M is None:
-        want = 0.5 * (lo + hi) * nu_lim / (b * eps_t)
-        v_lim = float(
-            np.clip(
-                snap(want * V / c_lim_stock, step), vmin, min(snap(V / 2, step), capacity_mL(plan, lim_id))
-            )
-        )
-    else:
-        v_lim = float(snap(total_M * V / c_lim_stock, step))
-        if v_lim < vmin or v_lim > V:
-            raise PlanError(
-                "--total",
-                f"{fmt_conc(total_M)} of {lim} needs {v_lim:g} mL of {lim_id}, outside "
-                f"{vmin:g}–{V:g} mL: choose another --total",
-            )
+    v_lim = _limiting_volume(plan, model, total_M, lim, lim_id, c_lim_stock, nu_lim / (b * eps_t))
     c_lim = c_lim_stock * v_lim / V
 
     # the excess that converts 99 % / 99.9 % at every node of the guess's range
@@ -167,13 +157,7 @@ def conversion_tube(
     cap = capacity_mL(plan, exc_id)
     room = min(V - v_lim - make_up_min_mL(plan), cap)
     if excess_M is not None:
-        v_exc = float(snap(excess_M * V / c_exc_stock, step))
-        if v_exc < vmin or v_exc > V - v_lim + 1e-9:
-            raise PlanError(
-                "--excess",
-                f"{fmt_conc(excess_M)} of {exc} needs {v_exc:g} mL of {exc_id}, outside "
-                f"{vmin:g}–{V - v_lim:g} mL (the tube holds {V:g} mL): choose another --excess",
-            )
+        v_exc = _given_excess(excess_M, exc, exc_id, c_exc_stock, V, v_lim, vmin, step)
     else:
         v_exc = _default_excess(plan, model, fraction, lb, lim_id, exc_id, v_lim, c_exc_stock, vmin, room)
     v_exc = float(snap(v_exc, step))
@@ -193,7 +177,7 @@ def conversion_tube(
     f_worst = float(f_nodes.min())
 
     checks = [
-        _conversion_check(f_nodes, f_guess, names[0], nodes, x_plan, c_lim),
+        _conversion_check(f_nodes, f_guess, names[0], nodes, x_plan / c_lim, rising),
         _fits_check(
             plan,
             model,
@@ -207,10 +191,12 @@ def conversion_tube(
             unreachable,
             optics_info=(b, eps_t, nu_lim, c_lim, exc),
         ),
-        _range_check(st.absorbance[:tubes], names[0], lo, hi),
     ]
-    bias = _hand_bias(f_guess) if (p, q) == (1, 1) else None
-    bias_worst = _hand_bias(f_worst) if (p, q) == (1, 1) else None
+    higher = _other_complexes(model, j, lim, c_lim, x_plan, ions_plan, nodes)
+    if higher is not None:
+        checks.append(_higher_check(higher, names[0], lim, exc, x_plan))
+    bias = hand_bias_summary(f_guess) if (p, q) == (1, 1) else None
+    bias_worst = hand_bias_summary(f_worst) if (p, q) == (1, 1) else None
     checks.append(_bias_check(bias, bias_worst, f_guess, f_worst, p, q))
     checks.append(_global_fit_check(f_worst))
     extra = {
@@ -233,10 +219,11 @@ def conversion_tube(
         },
         "hand_bias": bias,
         "hand_bias_worst": bias_worst,
+        "other_complexes": higher,
     }
     notes = [
         f"{names[0]}: {lim} at {fmt_conc(c_lim)} ({v_lim:g} mL {lim_id}), {exc} at {fmt_conc(x_plan)} "
-        f"({v_exc:g} mL {exc_id}, {x_plan / c_lim:.0f}-fold)",
+        f"({v_exc:g} mL {exc_id}, {x_plan / c_lim:.3g}-fold)",
         f"fraction of {lim} converted to {target}: {f_guess:.2%} at the guess, {f_worst:.2%} at "
         f"log β = {nodes.min():.2f} (guess − {RANGE_SD:g} sd)",
     ]
@@ -249,7 +236,12 @@ def conversion_tube(
     if bias is not None:
         notes.append(
             f"treating it as complete biases ε by {bias['epsilon']:+.2%} and K by "
-            f"{bias['K_dilute']:+.2%} (dilute tubes) to {bias['K_half_saturated']:+.2%} (half-saturated)"
+            f"{bias['K_dilute']:+.2%} (dilute tubes) to {_pct(bias['K_half_saturated'])} (half-saturated)"
+        )
+    if higher is not None:
+        notes.append(
+            f"{_pct_share(higher['share_at_guess'])} of {lim} ends in {', '.join(higher['species'])} at the "
+            f"guess, up to {_pct_share(higher['share_worst'])} over the guesses' range"
         )
     if blank:
         notes.append(f"B1 is the reagent blank: the same {exc_id} without {lim_id}, read and subtracted")
@@ -265,7 +257,93 @@ def conversion_tube(
         {"fraction": np.append(np.full(tubes, f_guess), [0.0] if blank else [])},
         ok,
         notes=tuple(notes),
+        range_fix=f"a lower {lim} concentration (total) or a shorter path",
     )
+
+
+def _other_complexes(model, j, lim, c_lim, x_plan, ions_row, nodes) -> dict | None:
+    """How much of the limiting reagent ends in complexes other than the target in the planned tube: at
+    the guess, and at worst over the target's range and ± 2 sd of every other complex's constant. None
+    when the plan has no other complex holding the limiting reagent."""
+    li = 0 if lim == "M" else 1
+    others = [
+        k for k in range(len(model.species)) if k != j and model.complex_mask[k] and model.stoich[k, li] > 0
+    ]
+    if not others:
+        return None
+    lb = np.repeat(model.log_beta[None, :], nodes.size, axis=0)
+    lb[:, j] = nodes
+    shifts = [lb]
+    for k in others:
+        for sgn in (-RANGE_SD, RANGE_SD):
+            s = lb.copy()
+            s[:, k] += sgn * model.log_beta_sd[k]
+            shifts.append(s)
+    lbs = np.concatenate([model.log_beta[None, :], *shifts])
+    tot = np.zeros((lbs.shape[0], 1, 2))
+    tot[..., li] = c_lim
+    tot[..., 1 - li] = x_plan
+    ions = np.broadcast_to(ions_row, (lbs.shape[0], 1, ions_row.size))
+    with hypothetical():
+        st = predict(model, tot, ions, log_beta=lbs, warn=False)
+    share = (st.species_M[:, 0, others] * model.stoich[others, li]).sum(axis=-1) / c_lim
+    return {
+        "species": [model.species[k] for k in others],
+        "share_at_guess": float(share[0]),
+        "share_worst": float(share.max()),
+    }
+
+
+def _higher_check(higher: dict, tube: str, lim: str, exc: str, x_plan: float) -> Check:
+    """Warn when the excess reagent turns the limiting one into other complexes (a 1:2 beside the 1:1):
+    the tube then reads a mixture, and no excess makes it 'complete'."""
+    names = ", ".join(higher["species"])
+    g, w = higher["share_at_guess"], higher["share_worst"]
+    msg = (
+        f"at {fmt_conc(x_plan)} of {exc}, {_pct_share(g)} of {lim} in {tube} ends in {names} at the guess "
+        f"(up to {_pct_share(w)} over the guesses' range)"
+    )
+    if w <= SECOND_COMPLEX_SHARE:
+        return Check("other-complexes", "pass", msg)
+    return Check(
+        "other-complexes",
+        "warn",
+        msg + f": the excess forms {names} too, so the tube reads a mixture and more excess makes it worse — "
+        f"ε from it is not that of the target; fit all complexes globally over a designed series instead",
+    )
+
+
+def _pct_share(x: float) -> str:
+    return f"{x:.1%}" if x >= 0.001 else f"{x:.2g}" if x > 0 else "0 %"
+
+
+def _limiting_volume(plan, model, total_M, lim, lim_id, c_lim_stock, conc_per_absorbance) -> float:
+    """Volume of the limiting stock: ``total_M`` if given, else what reads mid-range when fully converted."""
+    g = plan.glassware
+    V, step, vmin = g.tube_volume_mL, g.step_mL, max(g.min_volume_mL, g.step_mL)
+    if total_M is None:
+        want = 0.5 * sum(model.linear_range) * conc_per_absorbance
+        top = min(snap(V / 2, step), capacity_mL(plan, lim_id))
+        return float(np.clip(snap(want * V / c_lim_stock, step), vmin, top))
+    v_lim = float(snap(total_M * V / c_lim_stock, step))
+    if v_lim < vmin or v_lim > V:
+        raise PlanError(
+            "total",
+            f"{fmt_conc(total_M)} of {lim} needs {v_lim:g} mL of {lim_id}, outside "
+            f"{vmin:g}–{V:g} mL: choose another total",
+        )
+    return v_lim
+
+
+def _given_excess(excess_M, exc, exc_id, c_exc_stock, V, v_lim, vmin, step) -> float:
+    v_exc = float(snap(excess_M * V / c_exc_stock, step))
+    if v_exc < vmin or v_exc > V - v_lim + 1e-9:
+        raise PlanError(
+            "excess",
+            f"{fmt_conc(excess_M)} of {exc} needs {v_exc:g} mL of {exc_id}, outside "
+            f"{vmin:g}–{V - v_lim:g} mL (the tube holds {V:g} mL): choose another excess",
+        )
+    return v_exc
 
 
 def fraction_converted_1to1(M0: float, L0: float, K: float) -> float:
@@ -275,27 +353,32 @@ def fraction_converted_1to1(M0: float, L0: float, K: float) -> float:
 
 
 def _default_excess(plan, model, fraction, lb, lim_id, exc_id, v_lim, c_exc_stock, vmin, room) -> float:
-    """Grid volume of the excess stock for the planned tube (vectorised over every candidate volume)."""
+    """Grid volume of the excess stock for the planned tube (vectorised over every candidate volume): the
+    smallest converting 99.9 % (else 99 %) at every node of the guess's range with the reading in range
+    over the guess's uncertainty (assess's screen); else the one converting most; the same among those
+    inside at the guess when none stays in range over it."""
     step, V = plan.glassware.step_mL, plan.glassware.tube_volume_mL
     cand = snap(
         np.arange(int(np.ceil(vmin / step - 1e-9)), int(np.floor(room / step + 1e-9)) + 1) * step, step
     )
     if cand.size == 0:
-        raise PlanError(
-            "--total", f"no room for the excess stock {exc_id} beside {v_lim:g} mL of {lim_id}: lower --total"
+        raise SeriesInfeasible(
+            "total", f"no room for the excess stock {exc_id} beside {v_lim:g} mL of {lim_id}: lower total"
         )
     vol, tot = fill_volumes(plan, {lim_id: np.full(cand.size, v_lim), exc_id: cand})
-    a = predict_volumes(model, vol, tot).absorbance
+    worst, inside = screen(plan, model, vol[:, None, :], tot[:, None])
     f_worst = fraction(np.broadcast_to(cand * c_exc_stock / V, (lb.shape[0], cand.size)), lb[:, None, :]).min(
         axis=0
     )
-    inside = a <= model.linear_range[1]
-    for f_want in reversed(CONVERSIONS):
-        ok = np.flatnonzero(inside & (f_worst >= f_want))
-        if ok.size:
-            return float(cand[ok[0]])
-    ok = np.flatnonzero(inside)
-    return float(cand[ok[-1]] if ok.size else cand[0])
+    for mask in (worst <= RANGE_RISK + 1e-12, inside):
+        for f_want in reversed(CONVERSIONS):
+            ok = np.flatnonzero(mask & (f_worst >= f_want))
+            if ok.size:
+                return float(cand[ok[0]])
+        ok = np.flatnonzero(mask)
+        if ok.size:  # converts most: with a higher complex, more excess is not always better
+            return float(cand[ok[np.argmax(f_worst[ok])]])
+    return float(cand[np.argmax(f_worst)])
 
 
 def _smallest_excess(fraction, xs, f_grid, lb, f_want) -> float | None:
@@ -315,20 +398,10 @@ def _smallest_excess(fraction, xs, f_grid, lb, f_want) -> float | None:
     return float(np.exp(hi).max())
 
 
-def _hand_bias(f: float) -> dict:
-    """Relative biases of the 'complete conversion' hand analysis of a 1:1 complex [derived, see above]."""
-    y = 0.5
-    return {
-        "epsilon": f - 1.0,
-        "K_dilute": 1.0 / f - 1.0,
-        "K_half_saturated": (1 - y) / (f - y) - 1.0 if f > y else None,
-    }
-
-
-def _conversion_check(f_nodes, f_guess, tube, nodes, x_plan, c_lim) -> Check:
+def _conversion_check(f_nodes, f_guess, tube, nodes, fold: float, rising: bool) -> Check:
     worst = float(f_nodes.min())
     msg = (
-        f"{tube} ({x_plan / c_lim:.0f}-fold excess) converts {f_guess:.2%} at the guess and {worst:.2%} "
+        f"{tube} ({fold:.3g}-fold excess) converts {f_guess:.2%} at the guess and {worst:.2%} "
         f"at the weak end of its range (log β {nodes.min():.2f})"
     )
     if worst >= CONVERSIONS[0]:
@@ -337,8 +410,13 @@ def _conversion_check(f_nodes, f_guess, tube, nodes, x_plan, c_lim) -> Check:
     return Check(
         "conversion",
         status,
-        msg + f": below {CONVERSIONS[0]:.0%}, ε from this tube is low by "
-        f"{1 - worst:.1%}; raise the excess (see excess-fits) or fit all tubes globally",
+        msg
+        + f": below {CONVERSIONS[0]:.0%}, ε from this tube is low by {1 - worst:.1%}; "
+        + (
+            "raise the excess (see excess-fits) or fit all tubes globally"
+            if rising
+            else "more excess does not help (other complexes take the reagent): fit all tubes globally"
+        ),
     )
 
 
@@ -393,18 +471,6 @@ def _fits_check(
         f"no excess giving {CONVERSIONS[0]:.0%} fits ({detail}): a 'complete "
         f"conversion' tube cannot be made with these stocks — fit all tubes globally instead",
     )
-
-
-def _range_check(a, tube, lo, hi) -> Check:
-    if a.max() > hi:
-        return Check(
-            "linear-range",
-            "fail",
-            f"{tube} reads {a.max():.3f}, above {hi:g}: lower --total or use a shorter path",
-        )
-    if a.min() < lo:
-        return Check("linear-range", "fail", f"{tube} reads {a.min():.3f}, below {lo:g}: raise --total")
-    return Check("linear-range", "pass", f"{tube} reads {a.max():.3f}, inside {lo:g}–{hi:g}")
 
 
 def _bias_check(bias, bias_worst, f_guess, f_worst, p, q) -> Check:

@@ -15,6 +15,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from ._deps import (
+    RANGE_RISK,
     ActivityWarning,
     Assessment,
     Check,
@@ -23,15 +24,35 @@ from ._deps import (
     PlanError,
     Recipe,
     TubeState,
+    blanks,
+    free_parameters,
     make_recipe,
     predict,
+    range_band,
     tube_ions_M,
 )
 
 STATUSES = ("pass", "warn", "fail")
 # checks of kplan assess that keep their meaning for every classic series; the others (saturation
-# window, conversion, …) judge a binding-curve design and would mislead here
-KEPT_ASSESS_CHECKS = ("glassware", "stock-budget", "ionic-strength", "hydrolysis", "protonation")
+# window, conversion, …) judge a binding-curve design and would mislead here. The linear-range check is
+# assess's own, so a series and ``kplan assess`` of its recipe always agree.
+KEPT_ASSESS_CHECKS = (
+    "linear-range",
+    "glassware",
+    "stock-budget",
+    "ionic-strength",
+    "hydrolysis",
+    "protonation",
+)
+# cuvette path lengths on sale [common practice: 0.1–10 cm cells]
+PATHS_CM = (0.1, 0.2, 0.5, 1.0, 2.0, 4.0, 5.0, 10.0)
+# dilutions (and concentrations) of both stocks tried when no total keeps the readings in range
+SCALES = (0.5, 2.0, 0.25, 4.0, 0.2, 5.0, 0.1, 10.0, 0.05, 20.0, 0.02, 50.0, 0.01, 100.0)
+
+
+class SeriesInfeasible(PlanError):
+    """The series cannot be made with these stocks and this glassware at the method's defaults: not bad
+    input (exit 2) but a series that cannot answer its question (exit 1); the message says what would."""
 
 
 @dataclass(frozen=True)
@@ -43,8 +64,8 @@ class ClassicSeries:
     method : "job" | "calibration" | "mole-ratio" | "survey".
     title : the plan's title.
     question : what the series is meant to answer, one sentence.
-    recipe : the tubes (volumes in mL on the plan's grid).
-    assessment : expected tubes and error budget of the recipe (no precision analysis).
+    recipe : the tubes (volumes in mL on the plan's grid); none when the series cannot be made.
+    assessment : expected tubes and error budget of the recipe (no precision analysis), or None.
     checks : method checks followed by the kept checks of ``kplan assess``, worst first.
     answers : True when the series can answer its question (no check fails).
     verdict_reason : one sentence.
@@ -57,7 +78,7 @@ class ClassicSeries:
     title: str
     question: str
     recipe: Recipe
-    assessment: Assessment
+    assessment: Assessment | None
     checks: tuple[Check, ...]
     answers: bool
     verdict_reason: str
@@ -80,11 +101,21 @@ class ClassicSeries:
             "question": self.question,
             "answers": self.answers,
             "verdict_reason": self.verdict_reason,
-            "tubes": self.assessment.tube_rows(),
+            "tubes": self.assessment.tube_rows() if self.assessment is not None else [],
             "checks": [c.summary() for c in self.checks],
         }
         out.update(self.extra)
         return json_safe(out)
+
+
+def infeasible(method: str, plan: Plan, question: str, exc: SeriesInfeasible) -> ClassicSeries:
+    """The series that cannot be made: no tubes, one failing check that says why and what would."""
+    ids = tuple(st.id for st in plan.stock)
+    empty = Recipe((), ids, np.zeros((0, len(ids))), np.zeros(0))
+    check = Check("feasible", "fail", f"{exc.key}: {exc.message}" if exc.key else exc.message)
+    return ClassicSeries(
+        method, plan.title, question, empty, None, (check,), False, f"cannot be made: {exc.message}"
+    )
 
 
 def json_safe(x):
@@ -117,9 +148,19 @@ def finish(
     reason_ok: str,
     reason_bad: str | None = None,
     notes: tuple[str, ...] = (),
+    range_fix: str = "",
 ) -> ClassicSeries:
-    """Merge the method's checks with the kept assess checks, sort worst first and decide the verdict."""
-    kept = [c for c in a.checks if c.id in KEPT_ASSESS_CHECKS]
+    """Merge the method's checks with the kept assess checks, sort worst first and decide the verdict.
+
+    ``range_fix`` is what would keep the readings in range, added to assess's linear-range check when it
+    does not pass (its status stays assess's own)."""
+    kept = [
+        Check(c.id, c.status, f"{c.message}; {range_fix}")
+        if c.id == "linear-range" and c.status != "pass" and range_fix
+        else c
+        for c in a.checks
+        if c.id in KEPT_ASSESS_CHECKS
+    ]
     checks = sorted(own + kept, key=lambda c: -STATUSES.index(c.status))
     failed = [c for c in checks if c.status == "fail"]
     answers = not failed
@@ -200,7 +241,7 @@ def series_recipe(plan: Plan, dispensed: dict[str, np.ndarray], tubes: list[str]
 def hypothetical():
     """Silence activity-model warnings while exploring hypothetical tubes (a 10 M excess, a 1000-fold
     stock): the planned tubes are assessed, and warned about, without it."""
-    with warnings.catch_warnings():
+    with warnings.catch_warnings(), np.errstate(over="ignore", invalid="ignore"):
         warnings.simplefilter("ignore", ActivityWarning)
         yield
 
@@ -248,36 +289,84 @@ def scaled_in_range(model: Model, recipe: Recipe, scale: float) -> tuple[Model, 
     return ms, st
 
 
-def range_check(
-    model: Model,
-    state: TubeState,
-    tubes,
-    *,
-    low_is_warning: bool,
-    fix_high: str = "lower the total concentration (--total) or use a shorter path",
-) -> Check:
-    """Readings inside the linear range: above it always fails (the curve's shape is bent); below it
-    fails or, where small readings are inherent to the method (the ends of a Job series), warns."""
+def screen(plan: Plan, model: Model, vol: np.ndarray, total: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The linear-range screen of ``kplan assess`` for B candidate series at once.
+
+    Parameters
+    ----------
+    vol : (B, n, k) every stock's volume in each tube of each candidate; total : (B, n) tube volumes.
+
+    Returns
+    -------
+    worst : (B,) the largest chance of a reading leaving the window over the guesses' uncertainty.
+    inside : (B,) every reading inside the window at the guess (blanks held to the top only).
+    """
+    params = free_parameters(plan, model)
+    tot = (vol @ model.stock_conc_M) / total[..., None]
+    ions = tube_ions_M(model, vol, total)
+    B, n = tot.shape[:2]
     lo, hi = model.linear_range
-    a = state.absorbance
-    over, under = a > hi, a < lo
-    names = lambda m: ", ".join([t for t, x in zip(tubes, m, strict=True) if x][:6])  # noqa: E731
-    if over.any():
-        return Check(
-            "linear-range", "fail", f"{names(over)} read above {hi:g} (A up to {a.max():.3f}): {fix_high}"
-        )
-    if under.any():
-        return Check(
-            "linear-range",
-            "warn" if low_is_warning else "fail",
-            f"{names(under)} read below {lo:g} (A down to {a.min():.3f}): their relative precision is "
-            f"poor; raise the total concentration if the upper end allows",
-        )
-    return Check(
-        "linear-range",
-        "pass",
-        f"all {len(tubes)} tubes read between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
+    with hypothetical():
+        st = predict(model, tot, ions, warn=False)
+        a = st.absorbance
+        inside = np.all((a <= hi) & ((a >= lo) | blanks(tot)), axis=1)
+        if params.size:
+            risk, _, _ = range_band(model, params, tot.reshape(B * n, 2), ions.reshape(B * n, -1))
+            worst = risk.reshape(B, n).max(axis=1)
+        else:
+            worst = np.where(inside, 0.0, 1.0)
+    return worst, inside
+
+
+def pick(worst: np.ndarray, inside: np.ndarray) -> tuple[int, str]:
+    """The candidate to plan (candidates in rising concentration) and the linear-range status it gets:
+    the most concentrated that stays in range over the guess's uncertainty ("pass"); else, of those
+    inside at the guess, the least at risk ("warn"); else the least at risk ("fail")."""
+    ok = np.flatnonzero(worst <= RANGE_RISK + 1e-12)
+    if ok.size:
+        return int(ok[-1]), "pass"
+    idx = np.flatnonzero(inside)
+    if idx.size:
+        return int(idx[np.argmin(worst[idx])]), "warn"
+    return int(np.argmin(worst)), "fail"
+
+
+def what_would_fit(model: Model, fits, conc_label: str, comps=(0, 1)) -> str:
+    """What would keep every reading inside the range over the guess's uncertainty: the nearest cuvette
+    path on sale, and the nearest dilution (or concentration) of the stocks of ``comps`` (0 metal, 1
+    ligand), for which ``fits(model, scale)`` holds — it screens the method's candidate series with the
+    changed model, ``scale`` being the factor on those stocks' concentrations (1 for a path). Where only
+    the guess, not its whole range, can be kept inside, that is said instead."""
+    paths = sorted(
+        (p for p in PATHS_CM if abs(p - model.path_cm) > 1e-9), key=lambda p: abs(np.log(p / model.path_cm))
     )
+    for level, good in (("pass", ("pass",)), ("warn", ("pass", "warn"))):
+        ways = []
+        for path in paths:
+            if fits(replace(model, path_cm=path), 1.0) in good:
+                ways.append(f"a {path:g} cm cell instead of {model.path_cm:g} cm")
+                break
+        for sc in SCALES:
+            if fits(scaled_model(model, sc, comps), sc) in good:
+                how = f"diluted ×{1 / sc:g}" if sc < 1 else f"×{sc:g} as concentrated"
+                ways.append(f"{conc_label} {how}")
+                break
+        if ways and level == "pass":
+            return "what would keep every reading inside over the guess's range: " + ", or ".join(ways)
+        if ways:
+            return (
+                "no cell on sale and no dilution keeps every reading inside over the whole range of the "
+                "guess; inside at the guess at least: " + ", or ".join(ways)
+            )
+    return (
+        "no cell on sale and no dilution of the stocks keeps the readings inside: they span more of the "
+        "window than it holds — a narrower series (fewer points, a smaller ratio range)"
+    )
+
+
+def status_of(worst: np.ndarray, inside: np.ndarray) -> str:
+    """The best linear-range status any of the candidates screened reaches."""
+    return pick(worst, inside)[1] if worst.size else "fail"
 
 
 def fmt_conc(c_M: float) -> str:

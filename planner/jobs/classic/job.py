@@ -24,27 +24,35 @@ from ._deps import (
     make_up_min_mL,
     plan_devices,
     plan_model,
+    plural,
     predict,
     tube_ions_M,
     whitening,
 )
 from .common import (
+    RANGE_RISK,
     ClassicSeries,
+    SeriesInfeasible,
     capacity_mL,
     corrected,
     fill_volumes,
     finish,
     fmt_conc,
+    pick,
     predict_volumes,
     pure_stock,
-    range_check,
     scaled_in_range,
+    screen,
     series_recipe,
     snap,
+    status_of,
+    what_would_fit,
 )
 
 METHOD = "job"
 DEFAULT_POINTS = 9
+EXTREMUM_SHIFT = 0.02  # a peak 0.02 off 1/(n+1) misreads one stoichiometry as a mixture [common practice]
+MIN_DEFAULT_POINTS = 5  # the default series gives up points down to 5 to stay in range [common practice]
 EQUIMOLAR_RTOL = 0.005  # stocks within 0.5 % count as equimolar [common practice: within their stated rsd]
 CURVE_POINTS = 199
 SEARCH_SCALES = 2.0 ** np.arange(1, 8)  # totals tried when the planned one cannot separate: ×2 … ×128
@@ -66,9 +74,9 @@ def continuous_variation(
     _, m_id, cM = pure_stock(plan, "M")
     _, l_id, cL = pure_stock(plan, "L")
     _require_equimolar(plan, m_id, cM, l_id, cL)
-    n = DEFAULT_POINTS if points is None else int(points)
-    if n < 3:
-        raise PlanError("--points", f"{n} points cannot show an extremum: use at least 3 (9–11 is usual)")
+    if points is not None and int(points) < 3:
+        n_pts = plural(int(points), "point")
+        raise PlanError("points", f"{n_pts} cannot show an extremum: use at least 3 (9–11 is usual)")
     g = plan.glassware
     step, vmin = g.step_mL, max(g.min_volume_mL, g.step_mL)
     avail = (
@@ -76,27 +84,19 @@ def continuous_variation(
         - make_up_min_mL(plan)
         - sum(v for k, v in plan.design.fixed.items() if k not in (m_id, l_id))
     )
-    x = np.arange(1, n + 1) / (n + 1)
+    caps = (capacity_mL(plan, m_id), capacity_mL(plan, l_id))
     if total_M is not None:
-        if total_M <= 0:
-            raise PlanError("--total", "the total concentration must be positive, e.g. --total '2 mM'")
-        vs = float(snap(total_M * g.tube_volume_mL / cM, step))
-        if vs > avail + 1e-9:
-            raise PlanError(
-                "--total",
-                f"{fmt_conc(total_M)} needs {vs:g} mL of stock per tube, more than the "
-                f"{avail:g} mL available: lower --total or use more concentrated stocks",
-            )
-        caps = (capacity_mL(plan, m_id), capacity_mL(plan, l_id))
-        if not _valid(np.array([vs]), x, step, vmin, caps)[0]:
-            raise PlanError(
-                "--total",
-                f"at {fmt_conc(total_M)} ({vs:g} mL of stock per tube) the {n} mole fractions "
-                f"do not fit the {step:g} mL grid between min_volume {vmin:g} mL and the dispensers' "
-                f"capacity: change --total or use fewer --points",
-            )
+        n = DEFAULT_POINTS if points is None else int(points)
+        x = np.arange(1, n + 1) / (n + 1)
+        vs = _given_sum(total_M, cM, x, n, step, vmin, avail, caps, g.tube_volume_mL)
+        cand = np.array([vs])
     else:
-        vs = _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n)
+        n, vs, cand = _choose_sum(plan, model, m_id, l_id, points, step, vmin, avail, caps)
+        x = np.arange(1, n + 1) / (n + 1)
+    worst, inside = screen(plan, model, *_volumes(plan, m_id, l_id, x, np.array([vs]), step))
+    range_fix = ""
+    if not worst[0] <= RANGE_RISK + 1e-12:
+        range_fix = _range_fix(plan, model, (m_id, l_id), x, cand, (step, vmin, avail, caps), n)
     vm = snap(x * vs, step)
     recipe = series_recipe(plan, {m_id: vm, l_id: snap(vs - vm, step)}, [f"J{i + 1}" for i in range(n)])
     a = assess_tubes(plan, recipe)
@@ -124,7 +124,6 @@ def continuous_variation(
 
     checks = [
         Check("equimolar", "pass", f"{m_id} and {l_id} are both {fmt_conc(cM)}: equimolar"),
-        range_check(model, st, recipe.tubes, low_is_warning=True, fix_high=_fix_high(plan, n, vs, cM)),
         _extremum_check(model, x_ext, C),
     ]
     if fits:
@@ -170,7 +169,15 @@ def continuous_variation(
             f"a total of {fmt_conc(needed[0])}{cell} would separate the {kind} rivals by "
             f"≥ {rv.SEPARATION_WANTED:g} sd"
         )
-    return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
+    if points is None and n != DEFAULT_POINTS:
+        notes.insert(
+            0,
+            f"{DEFAULT_POINTS} mole fractions cannot all stay inside the linear range over the guess's "
+            f"range on this grid: planned {n}",
+        )
+    return finish(
+        METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=range_fix
+    )
 
 
 def corrected_curve(model, total_M: float, x: np.ndarray) -> np.ndarray:
@@ -195,22 +202,12 @@ def _require_equimolar(plan: Plan, m_id: str, cM: float, l_id: str, cL: float) -
     flask = 100.0
     take = flask * lo_c / hi_c
     dil = plan.diluent.id if plan.diluent is not None else "the medium"
-    raise PlanError(
+    raise SeriesInfeasible(
         f"stock[{k}].conc.{comp}",
         f"continuous variation needs equimolar stocks, but {m_id} is {fmt_conc(cM)} and {l_id} "
         f"{fmt_conc(cL)}: dilute {hi_id} — {take:.2f} mL made up to {flask:.0f} mL with {dil} gives "
         f"{fmt_conc(lo_c)} — and give that stock in the plan",
     )
-
-
-def _fix_high(plan: Plan, n: int, vs: float, c: float) -> str:
-    lowest = max(plan.glassware.min_volume_mL, plan.glassware.step_mL) * (n + 1)
-    if vs <= lowest + 1e-9:
-        return (
-            f"this is already the lowest total the grid allows with {n} points ({vs:g} mL of stock per "
-            f"tube): use fewer --points, dilute both stocks alike, or a shorter path"
-        )
-    return "lower the total concentration (--total) or use a shorter path"
 
 
 def _valid(vs: np.ndarray, x: np.ndarray, step: float, vmin: float, caps=(np.inf, np.inf)) -> np.ndarray:
@@ -228,21 +225,83 @@ def _valid(vs: np.ndarray, x: np.ndarray, step: float, vmin: float, caps=(np.inf
     )
 
 
-def _default_sum(plan, model, m_id, l_id, x, step, vmin, avail, n) -> float:
-    """The largest sum of stock volumes whose curve stays below the top of the linear range."""
-    cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
-    cand = cand[_valid(cand, x, step, vmin, (capacity_mL(plan, m_id), capacity_mL(plan, l_id)))]
-    if cand.size == 0:
+def _given_sum(total_M, cM, x, n, step, vmin, avail, caps, tube_mL) -> float:
+    """The sum of stock volumes per tube for ``total`` (checked against the grid and the tube)."""
+    if total_M <= 0:
+        raise PlanError("total", "the total concentration must be positive, e.g. total = '2 mM'")
+    vs = float(snap(total_M * tube_mL / cM, step))
+    if vs > avail + 1e-9:
         raise PlanError(
-            "--points",
-            f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube "
-            f"on the {step:g} mL grid above min_volume {vmin:g} mL: use fewer --points",
+            "total",
+            f"{fmt_conc(total_M)} needs {vs:g} mL of stock per tube, more than the "
+            f"{avail:g} mL available: lower total or use more concentrated stocks",
         )
-    xf = np.linspace(0.02, 0.98, 49)
-    vol, tot = fill_volumes(plan, {m_id: cand[:, None] * xf, l_id: cand[:, None] * (1 - xf)})
-    peak = predict_volumes(model, vol, tot).absorbance.max(axis=1)
-    inside = np.flatnonzero(peak <= model.linear_range[1])
-    return float(cand[inside[-1]] if inside.size else cand[0])
+    if not _valid(np.array([vs]), x, step, vmin, caps)[0]:
+        raise PlanError(
+            "total",
+            f"at {fmt_conc(total_M)} ({vs:g} mL of stock per tube) the {n} mole fractions "
+            f"do not fit the {step:g} mL grid between min_volume {vmin:g} mL and the dispensers' "
+            f"capacity: change total or use fewer points",
+        )
+    return vs
+
+
+def _sums(x, step, vmin, avail, caps) -> np.ndarray:
+    """Every sum of stock volumes per tube that puts the mole fractions ``x`` on the grid (rising)."""
+    cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
+    return cand[_valid(cand, x, step, vmin, caps)]
+
+
+def _volumes(plan, m_id, l_id, x, sums, step):
+    """(B, n, k) volumes and (B, n) tube volumes of the series at each sum of stock volumes."""
+    vm = snap(x[None, :] * sums[:, None], step)
+    return fill_volumes(plan, {m_id: vm, l_id: snap(sums[:, None] - vm, step)})
+
+
+def _choose_sum(plan, model, m_id, l_id, points, step, vmin, avail, caps):
+    """(points, sum of stock volumes, the sums tried) for the default series: the most concentrated sum
+    whose every reading stays in the linear range over the guess's uncertainty — by assess's own screen —
+    with the given points, or (not given) the most points from 9 down to 5 for which one does; else the
+    least risky series, which the linear-range check then flags with what would work."""
+    ns = [int(points)] if points is not None else list(range(DEFAULT_POINTS, MIN_DEFAULT_POINTS - 1, -2))
+    fallback = None
+    for n in ns:
+        x = np.arange(1, n + 1) / (n + 1)
+        cand = _sums(x, step, vmin, avail, caps)
+        if cand.size == 0:
+            continue
+        k, status = pick(*screen(plan, model, *_volumes(plan, m_id, l_id, x, cand, step)))
+        if status == "pass":
+            return n, float(cand[k]), cand
+        if fallback is None or (status == "warn" and fallback[3] == "fail"):
+            fallback = (n, float(cand[k]), cand, status)
+    if fallback is None:
+        n = ns[-1]
+        raise SeriesInfeasible(
+            "points",
+            f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube on the {step:g} mL "
+            f"grid above min_volume {vmin:g} mL within the dispensers' capacity: use fewer points, a "
+            f"smaller min_volume or a larger tube",
+        )
+    return fallback[:3]
+
+
+def _range_fix(plan, model, ids, x, cand, grid, n) -> str:
+    """What would keep this series (n points, the sums ``cand``) in range: a cell, a dilution, fewer points.
+    ``grid`` is (step, vmin, avail, caps)."""
+    m_id, l_id = ids
+    step, vmin, avail, caps = grid
+
+    def fits(m, _scale: float) -> str:  # both stocks alike: the same volumes
+        return status_of(*screen(plan, m, *_volumes(plan, m_id, l_id, x, cand, step)))
+
+    text = what_would_fit(model, fits, "both stocks")
+    for k in range(n - 2, 2, -2):
+        xk = np.arange(1, k + 1) / (k + 1)
+        ck = _sums(xk, step, vmin, avail, caps)
+        if ck.size and pick(*screen(plan, model, *_volumes(plan, m_id, l_id, xk, ck, step)))[1] == "pass":
+            return f"{text}; or {k} points instead of {n}"
+    return text
 
 
 def _extremum(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
@@ -309,12 +368,20 @@ def _extremum_check(model, x_ext: float, C: float) -> Check:
             f"extremum at x_M = {x_ext:.3f}; a single {p}:{q} complex puts it at "
             f"{want:.3f} (Job 1928) whatever K and ε",
         )
+    singles = ", ".join(f"{p / (p + q):.3f} ({p}:{q})" for p, q in pq)
+    x_lo, x_hi = extremum_at(model, C / 4), extremum_at(model, 4 * C)
+    msg = (
+        f"extremum at x_M = {x_ext:.3f} at C = {fmt_conc(C)}; the single complexes alone would put it at "
+        f"{singles}. With {rv.plan_label(model)} it moves with C: {x_lo:.3f} at C/4, {x_hi:.3f} at 4·C"
+    )
+    off = min(abs(x_ext - p / (p + q)) for p, q in pq)
+    if off <= EXTREMUM_SHIFT and abs(x_hi - x_lo) <= EXTREMUM_SHIFT:
+        return Check("extremum", "pass", msg + " — here one complex dominates the peak")
     return Check(
         "extremum",
-        "pass",
-        f"extremum at x_M = {x_ext:.3f} at C = {fmt_conc(C)}: with "
-        f"{rv.plan_label(model)} it lies between the single complexes' positions and moves with C — "
-        f"read the stoichiometry from the fit, not from the peak",
+        "warn",
+        msg + " — the second complex shifts the peak: read the stoichiometry from the fit of all complexes, "
+        "not from where the peak lies (Hibbert & Thordarson 2016)",
     )
 
 

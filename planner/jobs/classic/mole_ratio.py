@@ -30,6 +30,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._deps import (
+    SECOND_COMPLEX_SHARE,
     Check,
     Plan,
     PlanError,
@@ -38,23 +39,28 @@ from ._deps import (
     make_up_min_mL,
     plan_devices,
     plan_model,
+    plural,
     predict,
     tube_ions_M,
 )
 from .common import (
+    RANGE_RISK,
     ClassicSeries,
+    SeriesInfeasible,
     capacity_mL,
     corrected,
     fill_volumes,
     finish,
     fmt_conc,
     hypothetical,
-    predict_volumes,
+    pick,
     pure_stock,
-    range_check,
     scaled_in_range,
+    screen,
     series_recipe,
     snap,
+    status_of,
+    what_would_fit,
 )
 
 METHOD = "mole-ratio"
@@ -89,7 +95,7 @@ def mole_ratio_series(
     """
     if vary not in ("L", "M"):
         raise PlanError(
-            "--vary", f"'{vary}': write L (metal fixed, ligand rising) or M (ligand fixed, metal rising)"
+            "vary", f"'{vary}': write L (metal fixed, ligand rising) or M (ligand fixed, metal rising)"
         )
     model = plan_model(plan)
     fix = "M" if vary == "L" else "L"
@@ -108,7 +114,8 @@ def mole_ratio_series(
     highest = float(np.max(model.stoich[mask, vi] / model.stoich[mask, fi]))
     n = DEFAULT_POINTS if points is None else int(points)
     if n < 5:
-        raise PlanError("--points", f"{n} tubes cannot give two lines of at least two tubes: use 8–12")
+        n_tubes = plural(n, "tube")
+        raise PlanError("points", f"{n_tubes} cannot give two lines of at least two tubes: use 8–12")
     if max_ratio is None:
         # 2.5 × the richest complex's ratio, but low enough to leave two tubes before the break (with 5 %
         # to spare for the rounding of volumes to the grid)
@@ -117,7 +124,7 @@ def mole_ratio_series(
         r_max = float(max_ratio)
     if r_max <= expected * (1 + LINE_MARGIN):
         raise PlanError(
-            "--max-ratio",
+            "max_ratio",
             f"{r_max:g} does not reach past the break at {expected:g}: use at least {2 * expected:g}",
         )
     g = plan.glassware
@@ -132,15 +139,33 @@ def mole_ratio_series(
         if not _valid(np.array([v_fix]), r, c_fix, c_var, step, vmin, avail, caps)[0]:
             vv = snap(r * v_fix * c_fix / c_var, step)
             raise PlanError(
-                "--total",
+                "total",
                 f"{fmt_conc(total_M)} of {fix} is {v_fix:g} mL of {fix_id}; the {n} volumes "
                 f"of {var_id} up to ratio {r_max:g} would run {vv[0]:g}–{vv[-1]:g} mL, which must be "
                 f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most "
                 f"{min(caps[1], avail - v_fix):g} mL: "
-                f"choose another --total, fewer --points or another --max-ratio",
+                f"choose another total, fewer points or another max_ratio",
             )
+        cand = np.array([v_fix])
     else:
-        v_fix = _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n)
+        v_fix, cand = _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n)
+    worst, _ = screen(plan, model, *_volumes(plan, fix_id, var_id, r, c_fix / c_var, np.array([v_fix]), step))
+    range_fix = ""
+    if not worst[0] <= RANGE_RISK + 1e-12:
+        caps = (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
+
+        def fits(m, scale: float) -> str:  # the rising stock diluted by ``scale``: its volumes change
+            c = _valid(cand_all, r, c_fix, c_var * scale, step, vmin, avail, caps)
+            if not c.any():
+                return "fail"
+            return status_of(
+                *screen(
+                    plan, m, *_volumes(plan, fix_id, var_id, r, c_fix / (c_var * scale), cand_all[c], step)
+                )
+            )
+
+        cand_all = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
+        range_fix = what_would_fit(model, fits, f"the {var_id} stock", comps=(vi,))
     v_var = snap(r * v_fix * c_fix / c_var, step)
     recipe = series_recipe(plan, {fix_id: np.full(n, v_fix), var_id: v_var}, [f"R{i + 1}" for i in range(n)])
     a = assess_tubes(plan, recipe)
@@ -161,9 +186,14 @@ def mole_ratio_series(
     if not hand["resolvable"]:
         needed = _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions)
     checks = [
-        range_check(model, st, recipe.tubes, low_is_warning=True),
         _break_check(hand, expected, C, needed, model, fix),
     ]
+    ions_t = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    other = _other_complex_effect(
+        model, j, fi, (st.totals_M, ions_t, ratio, cov), (rf, curve_totals, curve_ions)
+    )
+    if other is not None:
+        checks.append(_other_check(other, hand, expected, target, fix))
     extra = {
         "fixed_reagent": fix,
         "varied_reagent": vary,
@@ -193,6 +223,7 @@ def mole_ratio_series(
             for i, t in enumerate(recipe.tubes)
         ],
         "curve": {"ratio": rf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
+        "other_complexes": other,
     }
     notes = [
         f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {fix_id}); {vary} rising to {r_max:g}× "
@@ -209,7 +240,55 @@ def mole_ratio_series(
         f"{expected:g} within {BREAK_TOLERANCE:.0%}"
     )
     columns = {"ratio": ratio, "Y": y, "±2sd": 2 * sd}
-    return finish(METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes))
+    return finish(
+        METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=range_fix
+    )
+
+
+def _other_complex_effect(model, j, fi, tubes, curve) -> dict | None:
+    """What the plan's other complexes of the fixed reagent do to the break: the break the same tubes
+    would give with the target complex alone (the others' constants set to nothing), and the share of
+    the fixed reagent in them at the expected ratio. None without such complexes."""
+    others = [
+        k for k in range(len(model.species)) if k != j and model.complex_mask[k] and model.stoich[k, fi] > 0
+    ]
+    if not others:
+        return None
+    totals, ions, ratio, cov = tubes
+    rf, curve_totals, curve_ions = curve
+    expected = float(model.stoich[j, 1 - fi] / model.stoich[j, fi])
+    lb = model.log_beta.copy()
+    lb[others] = -30.0  # not formed at any concentration a tube holds
+    with hypothetical():
+        y_alone = corrected(model, predict(model, totals, ions, log_beta=lb, warn=False))
+        yf_alone = corrected(model, predict(model, curve_totals, curve_ions, log_beta=lb, warn=False))
+        at = predict(model, curve_totals, curve_ions, warn=False)
+    alone = judge_break(ratio, y_alone, cov, rf, yf_alone, expected)
+    k = int(np.argmin(np.abs(rf - expected)))
+    share = float((at.species_M[k, others] * model.stoich[others, fi]).sum() / curve_totals[k, fi])
+    return {
+        "species": [model.species[i] for i in others],
+        "break_ratio_target_alone": alone["break_ratio"],
+        "share_at_expected_ratio": share,
+    }
+
+
+def _other_check(other: dict, hand: dict, expected: float, target: str, fix: str) -> Check:
+    names = ", ".join(other["species"])
+    share = other["share_at_expected_ratio"]
+    shift = hand["break_ratio"] - other["break_ratio_target_alone"]
+    here, alone = _num(hand["break_ratio"]), _num(other["break_ratio_target_alone"])
+    msg = (
+        f"at the ratio {expected:g} of {target}, {share:.0%} of {fix} is in {names}; with {names} forming "
+        f"the two-line break lands at {here} instead of {alone} with {target} alone"
+    )
+    if share <= SECOND_COMPLEX_SHARE and not abs(shift) > BREAK_TOLERANCE * expected / 2:
+        return Check("other-complexes", "pass", msg)
+    return Check(
+        "other-complexes",
+        "warn",
+        msg + ": the break reads neither complex's ratio cleanly — fit all complexes globally (kplan design)",
+    )
 
 
 def judge_break(ratio, y, cov, rf, yf, expected) -> dict:
@@ -303,8 +382,16 @@ def _valid(v_fix: np.ndarray, r, c_fix, c_var, step, vmin, avail, caps=(np.inf, 
     )
 
 
-def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n) -> float:
-    """The largest fixed volume whose series fits the tube and stays below the top of the linear range."""
+def _volumes(plan, fix_id, var_id, r, ratio_c, v_fix, step):
+    """(B, n, k) volumes and (B, n) tube volumes of the series at each fixed volume ``v_fix`` (B,)."""
+    vv = snap(v_fix[:, None] * r[None, :] * ratio_c, step)
+    return fill_volumes(plan, {fix_id: np.broadcast_to(v_fix[:, None], vv.shape), var_id: vv})
+
+
+def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n):
+    """(fixed volume, the volumes tried): the largest fixed volume whose series fits the tube and keeps
+    every reading in the linear range over the guess's uncertainty (assess's own screen); else the
+    least risky one, which the linear-range check flags with what would work."""
     cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
     cand = cand[
         _valid(
@@ -312,22 +399,15 @@ def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, ava
         )
     ]
     if cand.size == 0:
-        raise PlanError(
-            "--points",
-            f"{n} rising volumes do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
-            f"the {step:g} mL grid above min_volume: use fewer --points, a lower --max-ratio or a "
-            f"more concentrated {var_id}",
+        raise SeriesInfeasible(
+            "points",
+            f"{n} rising volumes of {var_id} do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
+            f"the {step:g} mL grid above min_volume {vmin:g} mL beside the fixed {fix_id}: use fewer "
+            f"points, a lower max_ratio, or a {var_id} stock nearer {fmt_conc(c_fix)} (the fixed stock's "
+            f"concentration) so that its volumes are on the grid",
         )
-    vol, tot = fill_volumes(
-        plan,
-        {
-            fix_id: np.broadcast_to(cand[:, None], (cand.size, r.size)),
-            var_id: cand[:, None] * r * c_fix / c_var,
-        },
-    )
-    peak = predict_volumes(model, vol, tot).absorbance.max(axis=1)
-    inside = np.flatnonzero(peak <= model.linear_range[1])
-    return float(cand[inside[-1]] if inside.size else cand[0])
+    k, _ = pick(*screen(plan, model, *_volumes(plan, fix_id, var_id, r, c_fix / c_var, cand, step)))
+    return float(cand[k]), cand
 
 
 def _conc_that_resolves(

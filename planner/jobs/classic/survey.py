@@ -9,7 +9,8 @@ stays fitted at every wavelength, a known one stays known). Free metal and ligan
 through the readings (they add noise and no information), and a wavelength whose readings leave the
 linear range is not recommended: so the answer is not simply the complex's band maximum.
 
-Reference: Cramér 1946 / Rao 1945 for the bound; the band shape and bandwidth factor as in domain.md §2.
+Reference: Cramér 1946 / Rao 1945 for the bound; the Gaussian band shape and the bandwidth factor are
+derived in planner.model.optics.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._deps import (
+    RANGE_RISK,
     Check,
     Epsilon,
     Plan,
@@ -31,13 +33,14 @@ from ._deps import (
     plan_devices,
     plan_model,
     predict,
+    range_band,
     totals_M,
     tube_ions_M,
 )
 from .common import (
     ClassicSeries,
     finish,
-    range_check,
+    hypothetical,
 )
 
 METHOD = "survey"
@@ -73,7 +76,16 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> ClassicSeries
     eps = _epsilon_by_wavelength(plan, model, lam)  # (Λ, 2 + S)
     se, a_max, a_min = _se_by_wavelength(plan, model, recipe, eps)
     lo, hi = model.linear_range
-    feasible = np.isfinite(se) & (a_max <= hi) & (a_max >= lo)
+    # every reading inside the window over the guesses' uncertainty, by assess's own screen
+    tot = totals_M(recipe, model.stock_conc_M)
+    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    params = free_parameters(plan, model)
+    if params.size:
+        with hypothetical():
+            risk = range_band(model, params, tot, ions, epsilon_M_cm=eps)[0].max(axis=-1)
+    else:
+        risk = np.where((a_max <= hi) & (a_min >= lo), 0.0, 1.0)
+    feasible = np.isfinite(se) & (risk <= RANGE_RISK + 1e-12)
     t = plan.target
     if feasible.any():
         k = int(np.flatnonzero(feasible)[np.argmin(se[feasible])])
@@ -85,16 +97,7 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> ClassicSeries
 
     surveyed = _plan_at(plan, model, best, eps[k])
     a = assess_tubes(surveyed, recipe)
-    checks = [
-        _wavelength_check(feasible, best, se[k], here, plan, t, peak_nm),
-        range_check(
-            model,
-            a.state,
-            recipe.tubes,
-            low_is_warning=False,
-            fix_high="use fewer absorbing reagent or a wavelength off the band maximum",
-        ),
-    ]
+    checks = [_wavelength_check(feasible, best, se[k], here, plan, t, peak_nm)]
     flat = [n for n, e in zip(model.absorbers, model.epsilon_M_cm, strict=True) if e > 0 and n not in bands]
     if flat:
         checks.append(
@@ -135,7 +138,10 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> ClassicSeries
         f"set optics.wavelength_nm = {best:g} and the ε guesses at that wavelength in the plan",
     ]
     ok = f"{best:g} nm gives SE(log β[{t}]) = {se[k]:.3g} with every reading inside {lo:g}–{hi:g}"
-    return finish(METHOD, surveyed, QUESTION, recipe, a, checks, extra, {}, ok, notes=tuple(notes))
+    fix = "survey other tubes (a recipe from kplan design), or change the path length"
+    return finish(
+        METHOD, surveyed, QUESTION, recipe, a, checks, extra, {}, ok, notes=tuple(notes), range_fix=fix
+    )
 
 
 def _grid(plan: Plan) -> np.ndarray:
@@ -245,8 +251,8 @@ def _wavelength_check(feasible, best, se_best, here, plan: Plan, t: str, peak_nm
         return Check(
             "wavelength",
             "fail",
-            f"no wavelength keeps every reading inside {lo:g}–{hi:g}: change the "
-            f"tubes (kplan design) or the path length",
+            f"no wavelength keeps every reading inside {lo:g}–{hi:g} over the guesses' uncertainty: change "
+            f"the tubes (kplan design) or the path length",
         )
     goal = plan.design.goal_se
     msg = (

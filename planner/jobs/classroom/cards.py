@@ -47,9 +47,11 @@ from ...inference import approximate, exchange
 from ...inference.design_criteria import DesignError
 from ...inference.priors import Nodes, prior_nodes
 from ...inference.study import Study
+from ...inputs.limits import check_class_size
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe, concat_recipes
 from ...inputs.roster import Roster
+from ...inputs.text import plural
 from ..compile import compile_study
 from ..plan.assess import Assessment, assess_study
 from ..plan.candidates import MAX_CANDIDATES, candidate_tubes
@@ -342,8 +344,7 @@ def class_set_study(  # noqa: C901
     DesignError
         When nothing can be designed (nothing fitted, no tube inside the linear range, too few tubes).
     """
-    n = int(tubes or study.tubes)
-    N = len(roster)
+    n, N = check_class_size(len(roster), tubes or study.tubes)
     params = study.params
     t = params.target
     if params.size == 0 or t < 0:
@@ -352,7 +353,7 @@ def class_set_study(  # noqa: C901
         )
     if n < params.size:
         raise DesignError(
-            f"{n} tubes cannot determine the {params.size} fitted parameters "
+            f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
             f"({', '.join(params.names)}): ask for at least {params.size} tubes per student"
         )
     rng = np.random.default_rng(seed)
@@ -447,7 +448,7 @@ def class_set_study(  # noqa: C901
     if not se["best_single"] <= goal:
         notes.insert(
             0,
-            f"even the best recipe of {n} tubes gives SE {se['best_single']:.3g} > goal {goal:g}: "
+            f"even the best recipe of {plural(n, 'tube')} gives SE {se['best_single']:.3g} > goal {goal:g}: "
             f"no card can pass; give each student more tubes (--tubes) or relax design.goal_se",
         )
     if grid.step_mL != study.bench.step_mL:

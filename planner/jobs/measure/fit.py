@@ -39,6 +39,7 @@ from ...inference.tails import chi2_cdf, chi2_sf
 from ...inputs.plan import Plan
 from ...inputs.readings import Readings
 from ...inputs.recipe import Recipe, RecipeError
+from ...inputs.text import plural
 from ...model.compiled import tube_ions_M
 from ...uncertainty.budget import error_budget
 from ..compile import compile_study, expected_state
@@ -239,7 +240,7 @@ def fit_study(
             keep,
             excluded,
             nan,
-            f"{rec.n_tubes} tubes left cannot determine {params.size} parameters: add tubes",
+            f"{plural(rec.n_tubes, 'tube')} left cannot determine {params.size} parameters: add tubes",
         )
     state = expected_state(model, rec)
     W0 = W = whitening_of(error_budget(bench, model, rec, state))

@@ -1,9 +1,10 @@
 """Assessment of a recipe: can it resolve K, and which assumptions of the planned analysis fail?
 
 Puts together the expected tube contents (:mod:`planner.model`), the error budget
-(:mod:`planner.errors`), the precision of the fitted parameters (:mod:`planner.precision`) and the
-checks (:mod:`planner.checks`) into a frozen :class:`Assessment` whose :meth:`Assessment.summary` has
-the baseline JSON keys (``title``, ``verdict``, ``parameters``, ``tubes``, ``checks``).
+(:mod:`planner.uncertainty.budget`), the precision of the fitted parameters
+(:mod:`planner.inference.precision`) and the checks (:mod:`planner.jobs.plan.checks`) into a frozen
+:class:`Assessment` whose :meth:`Assessment.summary` has the baseline JSON keys (``title``, ``verdict``,
+``parameters``, ``tubes``, ``checks``).
 """
 
 from __future__ import annotations
@@ -27,15 +28,18 @@ from ...inference.precision import (
     whitening_of,
 )
 from ...inference.study import Study
+from ...inputs.limits import MAX_TRIALS, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
-from ...model.compiled import Model, TubeState, predict, tube_ions_M
+from ...inputs.text import plural
+from ...model.compiled import Model, TubeState, tube_ions_M
 from ...uncertainty.bench import Bench
 from ...uncertainty.budget import ErrorBudget, error_budget, glassware_problems
 from ...uncertainty.stocks import volume_needed_mL
 from ..compile import compile_study, expected_state, true_constants
 from . import checks as chk
 from .checks import Check
+from .limits import Limits, precision_shares, what_would_help
 
 STATUSES = ("pass", "warn", "fail")
 VERDICTS = ("resolved", "bounded", "unresolved")
@@ -65,6 +69,9 @@ class Assessment:
     verdict_reason : one sentence explaining the verdict.
     goal_se : the plan's goal for SE(log β[target]).
     study : the compiled plan the recipe was judged against.
+    detection : per alternative model, how often the recipe's data would reveal it (model check).
+    limits : what limits the precision (shares of the target's variance by source, and the changes
+        priced when asked for), or None without a precision analysis.
     """
 
     title: str
@@ -83,6 +90,8 @@ class Assessment:
     goal_se: float | None = None
     extra: dict = field(default_factory=dict, hash=False)
     study: Study | None = field(default=None, repr=False, compare=False)
+    detection: tuple = field(default=(), repr=False, compare=False)
+    limits: Limits | None = field(default=None, repr=False, compare=False)
 
     def __repr__(self) -> str:
         worst = max((STATUSES.index(c.status) for c in self.checks), default=0)
@@ -171,6 +180,8 @@ class Assessment:
                 "low_unbounded": self.profile.low_unbounded,
                 "high_unbounded": self.profile.high_unbounded,
             }
+        if self.limits is not None:
+            out.update(self.limits.summary())
         out.update(self.extra)
         return out
 
@@ -222,11 +233,17 @@ def assess_study(
     precision: bool = True,
     profile_chi2: bool = True,
     model_check: bool = True,
+    detection_trials: int | None = None,
+    model_check_fix: str | None = None,
+    suggest: bool = False,
     progress: Callable[[int, int], None] | None = None,
 ) -> Assessment:
     """:func:`assess` on a compiled plan (``profile_chi2=False`` skips the χ² profile and
     ``model_check=False`` the detection power of the plan's alternative models, e.g. for the design's
-    comparisons, which use only the Cramér–Rao SE)."""
+    comparisons, which use only the Cramér–Rao SE). ``detection_trials`` simulated experiments per
+    alternative (default min(trials, 400)); ``model_check_fix`` what the model-check check advises;
+    ``suggest`` prices the changes that would improve the precision (:mod:`planner.jobs.plan.limits`)."""
+    trials = check_count(trials, "trials", MAX_TRIALS, least=0)
     model, bench = study.model, study.bench
     lb_true = true_constants(model, at)
     state = expected_state(model, recipe, log_beta=lb_true)
@@ -243,7 +260,6 @@ def assess_study(
         J = reading.jac(true_theta[None, :])[0]
         W = whitening_of(budget)  # diagonal + low rank for tubes: never an n × n matrix per trial
         cr = cramer_rao(J, W=W)
-        risk, spread = _range_risk_over_prior(model, params, reading)
         enough = recipe.n_tubes >= params.size
         if trials > 0 and enough:
             mc = monte_carlo(
@@ -259,11 +275,16 @@ def assess_study(
             )
         if profile_chi2 and params.target >= 0 and recipe.n_tubes >= params.size - 1 and recipe.n_tubes > 0:
             prof = profile(reading, W, true_theta)
+    if params.size and recipe.n_tubes:
+        ions_r = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+        risk, low, high = chk.range_band(model, params, state.totals_M, ions_r)
+        spread = (float(low.min()), float(high.max()))
     check_list.append(chk.linear_range(model, state, recipe.tubes, risk, spread))
     check_list.append(chk.saturation(state, recipe.tubes))
     if model.complex_mask[model.index(target)] and model.complex_mask.sum() == 1:
         # the 'complete conversion' shortcut only makes sense with a single M–L complex
-        check_list.append(chk.conversion(model, state, recipe.tubes, target))
+        hand = study.analysis in ("one-to-one", "double-reciprocal")
+        check_list.append(chk.conversion(model, state, recipe.tubes, target, hand_analysis=hand))
     if study.analysis == "double-reciprocal":
         check_list.append(chk.double_reciprocal(state, recipe.tubes))
     if study.analysis in ("one-to-one", "double-reciprocal"):
@@ -274,13 +295,23 @@ def assess_study(
     if cr is not None:
         check_list.append(_identifiability_check(params, cr, model, state))
     extra = {}
+    det: tuple = ()
     if model_check and precision and study.alternatives and params.size and params.target >= 0:
-        from .detection import POWER_TRIALS, model_check_result, recipe_detection
+        from .detection import ASSESS_FIX, POWER_TRIALS, model_check_result, recipe_detection
 
-        det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), min(trials, POWER_TRIALS))
-        check_list.append(model_check_result(det))
+        n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
+        det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), n_det)
+        check_list.append(model_check_result(det, model_check_fix or ASSESS_FIX))
         extra["model_check"] = [d.summary() for d in det]
-    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof), check_list)
+    limits = None
+    if cr is not None and params.target >= 0 and study.goal_se is not None:
+        se_t = float(cr.se[params.target])
+        limits = precision_shares(
+            study, recipe, state, budget, cr.jacobian, params, se_t, float(study.goal_se)
+        )
+        if suggest and limits is not None:
+            limits = what_would_help(study, recipe, limits, lb_true)
+    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof, precision), check_list)
     check_list.sort(key=lambda c: -STATUSES.index(c.status))
     return Assessment(
         study.title,
@@ -299,6 +330,8 @@ def assess_study(
         study.goal_se,
         extra,
         study=study,
+        detection=det,
+        limits=limits,
     )
 
 
@@ -312,29 +345,6 @@ def with_failed_checks(verdict: str | None, reason: str, checks) -> tuple[str | 
     if verdict == "resolved":
         return "unresolved", f"{reason}, but failed checks: {', '.join(failed)} — fix them and assess again"
     return verdict, f"{reason}; failed checks: {', '.join(failed)}"
-
-
-def _range_risk_over_prior(model: Model, params: Parameters, reading: ReadingModel):
-    """Each tube's chance of leaving the linear range over the guesses' uncertainty (as the design
-    screens its candidates), and the lowest/highest reading over ±2 sd."""
-    from ...inference.precision import unpack
-    from ...inference.priors import prior_nodes
-    from ...model.jacobians import absorbance_derivatives
-
-    nodes = prior_nodes(params, robust=True)
-    lb, eps, _ = unpack(model, params, nodes.theta)
-    G = nodes.theta.shape[0]
-    tot = np.broadcast_to(reading.totals_M, (G,) + reading.totals_M.shape)
-    ions = np.broadcast_to(reading.ions_M, (G,) + reading.ions_M.shape)
-    st = predict(model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False)
-    der = absorbance_derivatives(model, st, eps)
-    band = np.sqrt(np.sum((der.dA_depsilon * model.epsilon_M_cm * model.epsilon_rsd) ** 2, axis=-1))
-    lo, hi = model.linear_range
-    risk = chk.prior_range_risk(st.absorbance, band, nodes.weights, lo, hi)
-    inner = np.abs(nodes.theta - params.guess).max(axis=1) <= 2.0 * params.prior_sd.max() + 1e-12
-    a_lo = float(np.min((st.absorbance - 2 * band)[inner]))
-    a_hi = float(np.max((st.absorbance + 2 * band)[inner]))
-    return risk, (max(a_lo, 0.0), a_hi)
 
 
 def stock_shortfalls(bench: Bench, recipe: Recipe) -> list[tuple[str, float, float, float]]:
@@ -413,15 +423,22 @@ def _identifiability_check(params: Parameters, cr: CramerRao, model: Model, stat
     )
 
 
-def _verdict(study: Study, params: Parameters, cr, mc, prof) -> tuple[str | None, str]:
+def _verdict(study: Study, params: Parameters, cr, mc, prof, precision: bool) -> tuple[str | None, str]:
+    t = params.target
+    if precision and (params.size == 0 or t < 0):
+        # nothing the target depends on is fitted: no recipe resolves a constant it does not estimate
+        i = study.model.index(study.target)
+        return "unresolved", (
+            f"log_beta[{study.target}] is held fixed (species[{i}].log_beta_sd = 0), so the readings "
+            "would not estimate it: give the guess its uncertainty (log_beta_sd > 0) to assess a recipe "
+            "for it"
+        )
     if cr is None:
         return None, ""
-    t = params.target
-    if t < 0:
-        return None, f"log_beta[{study.target}] is held fixed (log_beta_sd = 0): nothing to resolve"
     if cr.jacobian.shape[0] < params.size:
         return "unresolved", (
-            f"{cr.jacobian.shape[0]} tubes cannot determine {params.size} fitted parameters: add tubes"
+            f"{plural(cr.jacobian.shape[0], 'tube')} cannot determine {params.size} fitted parameters: "
+            "add tubes"
         )
     goal = study.goal_se
     se = float(cr.se[t])

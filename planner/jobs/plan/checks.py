@@ -10,13 +10,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ...inputs.text import plural
 from ...model import closed_forms
 from ...model.compiled import Model, TubeState
 
 RANGE_RISK = (
     0.05  # a tube may leave the linear range for at most 5 % of the guess's uncertainty [common practice]
 )
-SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1; domain.md §4
+SATURATION_WINDOW = (0.2, 0.8)  # source: Weber 1975, Adv. Protein Chem. 29:1
 CALIBRATION_EXCESS = (
     20.0  # a tube with ≥ 20-fold excess is a "complete conversion" candidate [common practice]
 )
@@ -39,6 +40,10 @@ class Check:
 
     def summary(self) -> dict:
         return {"id": self.id, "status": self.status, "message": self.message}
+
+
+def _all_tubes(n: int) -> str:
+    return "the tube reads" if n == 1 else f"all {n} tubes read"
 
 
 def _tubes(labels, mask) -> str:
@@ -70,6 +75,63 @@ def prior_range_risk(
     return np.tensordot(weights, risk, axes=(0, 0))
 
 
+def blanks(totals_M: np.ndarray) -> np.ndarray:
+    """Tubes with only one of the two reagents: reagent blanks, read to be subtracted. Nothing binds in
+    them, so a low reading is what they are for; only the top of the linear range applies to them."""
+    tot = np.asarray(totals_M, dtype=float)
+    return (tot[..., 0] <= 0) | (tot[..., 1] <= 0)
+
+
+def range_band(
+    model: Model, params, totals_M: np.ndarray, ions_M: np.ndarray, epsilon_M_cm: np.ndarray | None = None
+):
+    """Each tube's chance of leaving the linear range over the guesses' uncertainty, and its lowest and
+    highest reading over ±2 sd of it — the one screen ``assess``, ``design`` and every classic series use.
+
+    The uncertain log β are integrated by the quadrature nodes of :func:`planner.inference.priors.prior_nodes`
+    (as the design screens its candidates); the absorptivities enter linearly, as a normal band of
+    sd Σ ∂A/∂ε · ε · rsd at each node (:func:`prior_range_risk`). A blank (a tube with one reagent only)
+    is held to the top of the window only (:func:`blanks`).
+
+    Parameters
+    ----------
+    params : the fitted parameters (:class:`planner.inference.precision.Parameters`).
+    totals_M : (N, 2) the tubes' totals; ions_M : (N, n_ions) their other ions.
+    epsilon_M_cm : optional (Λ, 2 + S) absorptivities, e.g. at Λ wavelengths; the result is then per row.
+
+    Returns
+    -------
+    risk : (N,) — or (Λ, N) — chance of a reading outside the window.
+    low, high : the same shape, lowest and highest reading over ±2 sd of the guesses (band included).
+    """
+    from ...inference.precision import unpack
+    from ...inference.priors import prior_nodes
+    from ...model.compiled import predict
+    from ...model.jacobians import absorbance_derivatives
+
+    nodes = prior_nodes(params, robust=True)
+    lb, eps, _ = unpack(model, params, nodes.theta)
+    G = nodes.theta.shape[0]
+    lead: tuple[int, ...] = (G,)
+    if epsilon_M_cm is not None:  # ε does not vary over the nodes (they move log β only)
+        eps_rows = np.asarray(epsilon_M_cm, dtype=float)
+        lead = (G, eps_rows.shape[0])
+        eps = np.broadcast_to(eps_rows, lead + eps_rows.shape[1:])
+        lb = lb[:, None, :]
+    tot = np.broadcast_to(totals_M, lead + np.shape(totals_M))
+    ions = np.broadcast_to(ions_M, lead + np.shape(ions_M))
+    st = predict(model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False)
+    der = absorbance_derivatives(model, st, eps)
+    eps_sd = (eps * model.epsilon_rsd)[..., None, :]
+    band = np.sqrt(np.sum((der.dA_depsilon * eps_sd) ** 2, axis=-1))
+    lo, hi = model.linear_range
+    risk = prior_range_risk(st.absorbance, band, nodes.weights, np.where(blanks(totals_M), -np.inf, lo), hi)
+    inner = np.all(np.abs(nodes.theta - params.guess) <= 2.0 * params.prior_sd + 1e-12, axis=1)
+    low = np.maximum(np.min((st.absorbance - 2 * band)[inner], axis=0), 0.0)
+    high = np.max((st.absorbance + 2 * band)[inner], axis=0)
+    return risk, low, high
+
+
 def linear_range(
     model: Model,
     state: TubeState,
@@ -81,11 +143,12 @@ def linear_range(
 
     ``risk`` (n,) is each tube's chance of leaving the window over the guesses' uncertainty
     (:func:`prior_range_risk`); a tube is at risk above RANGE_RISK. ``spread`` is the lowest and
-    highest reading over that uncertainty (about ±2 sd), for the message.
+    highest reading over that uncertainty (about ±2 sd), for the message. Blanks (:func:`blanks`) are held
+    to the top of the window only.
     """
     lo, hi = model.linear_range
     a = state.absorbance
-    out_hi, out_lo = a > hi, a < lo
+    out_hi, out_lo = a > hi, (a < lo) & ~blanks(state.totals_M)
     if out_hi.any() or out_lo.any():
         parts = []
         if out_hi.any():
@@ -109,10 +172,18 @@ def linear_range(
                 f"guess is off (up to {risk.max():.0%} risk{band}): move those tubes towards the "
                 f"middle of the range",
             )
+    blank = blanks(state.totals_M)
+    if blank.any() and not blank.all():
+        return Check(
+            "linear-range",
+            "pass",
+            f"{_all_tubes(int((~blank).sum()))} between {lo:g} and {hi:g} (A = {a[~blank].min():.3f}–"
+            f"{a[~blank].max():.3f}); the blanks {_tubes(tubes, blank)} read {a[blank].max():.3f} at most",
+        )
     return Check(
         "linear-range",
         "pass",
-        f"all {len(tubes)} tubes read between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
+        f"{_all_tubes(len(tubes))} between {lo:g} and {hi:g} (A = {a.min():.3f}–{a.max():.3f})",
     )
 
 
@@ -130,7 +201,7 @@ def saturation(state: TubeState, tubes) -> Check:
     span = float(s.max() - s.min()) if s.size else 0.0
     msg = (
         f"saturation {s.min():.2f}–{s.max():.2f} ({span:.0%} of the curve); {int(inside.sum())} of "
-        f"{s.size} tubes inside {lo}–{hi}"
+        f"{plural(s.size, 'tube')} inside {lo}–{hi}"
     )
     if inside.sum() == 0:
         fix = "raise the ligand (or metal) excess" if s.max() < lo else "lower the excess"
@@ -148,13 +219,44 @@ def saturation(state: TubeState, tubes) -> Check:
     return Check("saturation", "pass", msg)
 
 
-def conversion(model: Model, state: TubeState, tubes, target: str) -> Check:
-    """'Complete conversion' calibration tubes: the fraction converted and the bias of assuming 100 %.
+HALF_SATURATED = 0.5  # the tube a hand analysis typically rests on, for the bias quoted [common practice]
+
+
+def hand_bias(f, y):
+    """Relative bias of K from a "complete conversion" hand analysis of a 1:1 complex [derived].
+
+    The calibration tube is only a fraction f converted, so ε_hand = f·ε and a tube at saturation y (the
+    fraction of its limiting reagent bound, free excess ≈ total) is read as y/f:
+    K_hand/K = (y/f)/(1 − y/f) · (1 − y)/y = (1 − y)/(f − y). The bias is 1/f − 1 in dilute tubes
+    (y → 0), larger towards saturation, and undefined (NaN) for y ≥ f, where the hand analysis reads
+    the tube as complete or beyond. Vectorised over f and y. This is the one definition both the
+    calibration series and the conversion check of ``kplan assess`` use.
+    """
+    f = np.asarray(f, dtype=float)
+    y = np.asarray(y, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(y < f, (1.0 - y) / (f - y) - 1.0, np.nan)
+
+
+def hand_bias_summary(f: float) -> dict:
+    """ε bias, and K bias in dilute and half-saturated tubes (None where undefined), for a calibration
+    tube converted a fraction f (:func:`hand_bias`)."""
+    half = float(hand_bias(f, HALF_SATURATED))
+    return {
+        "epsilon": float(f) - 1.0,
+        "K_dilute": float(hand_bias(f, 0.0)),
+        "K_half_saturated": half if np.isfinite(half) else None,
+    }
+
+
+def conversion(model: Model, state: TubeState, tubes, target: str, *, hand_analysis: bool = True) -> Check:
+    """'Complete conversion' calibration tubes: the fraction converted and, where a hand analysis is
+    planned, the bias of assuming 100 %.
 
     A tube where one reagent is in ≥ 20-fold excess is what a hand analysis takes as fully complexed
-    to get ε. For a 1:1 target the hand analysis then takes ε_hand = A/(b·c_limiting) and computes
-    K in every other tube from [ML] = A/(b·ε_hand); the bias in K is the mean over those tubes,
-    computed from the model [derived].
+    to get ε. For a 1:1 target the bias in K of each other tube follows from its saturation y and the
+    calibration's conversion f by :func:`hand_bias`, the definition the calibration series uses. Under
+    a global fit (``hand_analysis`` False) ε is fitted and no tube is assumed complete: no bias.
     """
     tot = state.totals_M
     M0, L0 = tot[:, 0], tot[:, 1]
@@ -174,16 +276,21 @@ def conversion(model: Model, state: TubeState, tubes, target: str) -> Check:
     # the hand analysis calibrates on the tube with the largest excess
     worst = int(np.flatnonzero(cand)[np.argmax(ratio[cand])])
     f = float(frac[worst])
+    if not hand_analysis:
+        return Check(
+            "conversion",
+            "pass",
+            f"tube {tubes[worst]} (×{ratio[worst]:.0f} excess) is {f:.1%} converted; the planned global "
+            f"fit estimates ε with K and assumes no tube complete",
+        )
     if f >= CONVERSION_WANTED:
         return Check("conversion", "pass", f"calibration tube {tubes[worst]} is {f:.1%} converted")
     msg = f"tube {tubes[worst]} (×{ratio[worst]:.0f} excess) is only {f:.1%} converted"
     if (p, q) == (1, 1):
-        bias = hand_analysis_bias(model, state, worst, j)
+        msg += "; " + _bias_words(f, state.saturation, tubes, worst)
         K = 10.0 ** state.log_beta[worst, j]
         c_lim = min(M0[worst], L0[worst])
         excess_needed = CONVERSION_WANTED / ((1 - CONVERSION_WANTED) * K) + CONVERSION_WANTED * c_lim
-        if np.isfinite(bias):
-            msg += f"; a hand analysis assuming complete conversion biases K by {bias:+.1%}"
         msg += (
             f"; an excess of {excess_needed:.3g} M would give {CONVERSION_WANTED:.0%} — or fit all tubes "
             f"globally instead"
@@ -191,28 +298,24 @@ def conversion(model: Model, state: TubeState, tubes, target: str) -> Check:
     return Check("conversion", "warn" if f >= 0.95 else "fail", msg)
 
 
-def hand_analysis_bias(model: Model, state: TubeState, calib: int, j: int) -> float:
-    """Relative bias of K from the 'complete conversion' hand analysis of a 1:1 complex [derived].
-
-    ε_hand = A_calib/(b·c_lim) (absorbance of the complex alone), then in each other tube
-    [ML]_hand = A_ML/(b·ε_hand), K_hand = [ML]/(([M]0 − [ML])([L]0 − [ML])); the bias is
-    mean(K_hand)/K − 1 over tubes where the hand formula is defined.
-    """
-    tot = state.totals_M
-    M0, L0 = tot[:, 0], tot[:, 1]
-    c = state.species_M[:, j]
-    c_lim = min(M0[calib], L0[calib])
-    f = c[calib] / c_lim
-    ml_hand = c / f  # [ML] the hand analysis infers: absorbance of the complex / ε_hand
-    others = np.ones(M0.size, dtype=bool)
+def _bias_words(f: float, y: np.ndarray, tubes, calib: int) -> str:
+    """The hand analysis's bias in words: dilute and half-saturated tubes, and this recipe's tubes."""
+    b = hand_bias_summary(f)
+    half = "undefined" if b["K_half_saturated"] is None else f"{b['K_half_saturated']:+.1%}"
+    out = (
+        f"a hand analysis assuming complete conversion biases ε by {b['epsilon']:+.1%} and K by "
+        f"{b['K_dilute']:+.1%} in dilute tubes to {half} in half-saturated ones (K_hand/K = (1 − y)/(f − y))"
+    )
+    others = np.ones(y.size, dtype=bool)
     others[calib] = False
-    with np.errstate(divide="ignore", invalid="ignore"):
-        k_hand = ml_hand / ((M0 - ml_hand) * (L0 - ml_hand))
-    K = 10.0 ** state.log_beta[:, j]
-    ok = others & (ml_hand > 0) & (M0 > ml_hand) & (L0 > ml_hand) & np.isfinite(k_hand)
-    if not ok.any():
-        return float("nan")
-    return float(np.mean(k_hand[ok] / K[ok]) - 1.0)
+    per = hand_bias(f, y)
+    usable = others & np.isfinite(per)
+    if usable.any():
+        out += f"; in this recipe's tubes {np.min(per[usable]):+.1%} to {np.max(per[usable]):+.1%}"
+    beyond = others & ~np.isfinite(per)
+    if beyond.any():
+        out += f"; {_tubes(tubes, beyond)} (saturation ≥ {f:.0%}) cannot be analysed this way at all"
+    return out
 
 
 def fraction_converted(K: float, excess_free_M: float) -> float:

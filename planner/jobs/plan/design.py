@@ -19,8 +19,10 @@ import numpy as np
 from ...inference import approximate, exchange
 from ...inference.design_criteria import CRITERIA, DesignError
 from ...inference.study import Study
+from ...inputs.limits import MAX_TUBES, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
+from ...inputs.text import plural
 from ..compile import compile_study
 from .assess import assess_study, stock_shortfalls
 from .candidates import (
@@ -31,8 +33,10 @@ from .candidates import (
     recipe_from_counts,
     rows_with_prior,
 )
+from .detection import DESIGN_FIX, POWER_TRIALS
 from .even import even_series_for
-from .model_check import guard
+from .limits import target_se
+from .model_check import finish_check, guard
 
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
 
@@ -55,6 +59,9 @@ class Design:
     se_across : list of (true log β, SE of design, SE of even series) across the guess's range.
     notes : what the optimiser did that the user should know (coarse search, budget caps...).
     model_check : the model check (:class:`planner.jobs.plan.model_check.ModelCheck`), or None without one.
+    verdict, verdict_reason : the assessment's verdict on the design (Cramér–Rao), with, when it misses
+        ``goal_se``, by how much and what would reach it.
+    limits : what limits the precision and the changes priced (:class:`planner.jobs.plan.limits.Limits`).
     """
 
     recipe: Recipe
@@ -73,6 +80,9 @@ class Design:
     notes: tuple[str, ...] = field(default=())
     assessment_summary: dict = field(default_factory=dict, hash=False)
     model_check: object | None = field(default=None, compare=False)
+    verdict: str | None = None
+    verdict_reason: str = ""
+    limits: object | None = field(default=None, compare=False)
 
     def __repr__(self) -> str:
         return (
@@ -104,6 +114,8 @@ class Design:
                     {"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across
                 ],
                 "notes": list(self.notes),
+                "verdict": self.verdict,
+                "verdict_reason": self.verdict_reason,
             }
         )
         if self.model_check is not None:
@@ -164,7 +176,7 @@ def design_study(
     and nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete
     it (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.plan.sequential`.
     """
-    n = int(tubes or study.tubes)
+    n = check_count(tubes or study.tubes, "tubes", MAX_TUBES)
     crit = criterion or study.criterion
     if crit not in CRITERIA:
         raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
@@ -180,7 +192,7 @@ def design_study(
         )
     if n < params.size:
         raise DesignError(
-            f"{n} tubes cannot determine the {params.size} fitted parameters "
+            f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
             f"({', '.join(params.names)}): ask for at least {params.size} tubes"
         )
     nodes = study.nodes(rob)
@@ -198,7 +210,7 @@ def design_study(
             limits = ", ".join(f"{k} at most {v:.2f} mL per tube" for k, v in caps.items())
             raise DesignError(
                 f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
-                f"{n} tubes) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
+                f"{plural(n, 'tube')}) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
                 f"fewer tubes"
             ) from None
         if coarse:
@@ -219,29 +231,15 @@ def design_study(
             + ", ".join(_budget_overruns(study, rec))
             + " (on_hand) or use fewer tubes"
         )
-    check = None
-    use_check = study.check_weight > 0 if check_model is None else bool(check_model)
-    if use_check and study.alternatives and crit == "target":
-        check = guard(study, *final, rec, volumetric=volumetric, seed=seed, prior=prior_tubes)
-        if _budget_overruns(study, check.recipe):
-            notes.append("the model-check design would overrun a stock on hand: kept the target-only design")
-        else:
-            rec = check.recipe
-    a = assess_study(study, rec, trials=0)
+    rec, check, a = _check_and_assess(
+        study, rec, final, crit, check_model, volumetric, seed, prior_tubes, notes
+    )
     even = even_series_for(study, n)
     se_d = float(a.target_se) if a.target_se is not None else float("nan")
-    # the comparisons need only the Cramér–Rao SE: skip their χ² profiles
-    ae = assess_study(study, even, trials=0, profile_chi2=False, model_check=False)
-    se_e = float(ae.target_se) if ae.target_se is not None else float("nan")
-    t = study.target
-
-    def se_at(recipe: Recipe, at: dict) -> float:
-        return float(
-            assess_study(study, recipe, trials=0, at=at, profile_chi2=False, model_check=False).target_se
-        )
-
-    across = se_across_guess(study, se_at, rec, even)
+    se_e = target_se(study, even)
     eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
+    # with tubes in hand the new batch is judged together with them (planner.jobs.plan.sequential)
+    verdict, reason = _design_verdict(study, a, n) if prior_tubes is None else (None, "")
     return Design(
         rec,
         crit,
@@ -254,27 +252,81 @@ def design_study(
         min(eff, 1.0),
         se_d,
         se_e,
-        tuple(across),
-        t,
+        se_across_guess(study, rec, even),
+        study.target,
         tuple(notes),
         a.summary(),
         check,
+        verdict,
+        reason,
+        a.limits if prior_tubes is None else None,
     )
 
 
-def se_across_guess(study: Study, se_at, *recipes: Recipe) -> list[tuple[float, ...]]:
-    """(true log β, the SE of each recipe) with the target's true constant at the guess and ±1, ±2 sd
-    from it; ``se_at(recipe, {target: log β})`` gives one SE. Empty when the target is held fixed."""
-    model, t = study.model, study.target
-    j = model.index(t)
+def _check_and_assess(study: Study, rec, final, crit, check_model, volumetric, seed, prior, notes):
+    """The model check (when the plan asks for it) and the assessment of the recipe it leaves: the
+    assessment simulates the detection power of that recipe only, and prices what would help."""
+    use_check = study.check_weight > 0 if check_model is None else bool(check_model)
+    outcome = None
+    if use_check and study.alternatives and crit == "target":
+        outcome = guard(study, *final, rec, volumetric=volumetric, prior=prior)
+        if outcome.replaced and _budget_overruns(study, outcome.recipe):
+            notes.append("the model-check design would overrun a stock on hand: kept the target-only design")
+        else:
+            rec = outcome.recipe
+    a = assess_study(
+        study,
+        rec,
+        trials=0,
+        seed=seed,
+        detection_trials=POWER_TRIALS if outcome is not None else 0,
+        model_check_fix=DESIGN_FIX if outcome is not None else None,
+        suggest=prior is None,
+    )
+    check = (
+        finish_check(study, outcome, a.detection) if outcome is not None and rec is outcome.recipe else None
+    )
+    return rec, check, a
+
+
+def se_across_guess(
+    study: Study, rec: Recipe, even: Recipe, se=None
+) -> tuple[tuple[float, float, float], ...]:
+    """SE of the design and of the even series if the target's true log β is the guess ± 1, 2 sd;
+    ``se(study, recipe, log_beta)`` gives one SE (default :func:`target_se`, one wavelength)."""
+    se = target_se if se is None else se
+    model = study.model
+    j = model.index(study.target)
     sd = float(model.log_beta_sd[j])
-    if sd <= 0:
-        return []
     out = []
-    for k in (-2, -1, 0, 1, 2):
-        val = float(model.log_beta[j] + k * sd)
-        out.append((val, *(float(se_at(r, {t: val})) for r in recipes)))
-    return out
+    if sd > 0:
+        for k in (-2, -1, 0, 1, 2):
+            lb = model.log_beta.copy()
+            lb[j] = float(model.log_beta[j] + k * sd)
+            out.append((float(lb[j]), se(study, rec, lb), se(study, even, lb)))
+    return tuple(out)
+
+
+def _design_verdict(study: Study, a, n: int) -> tuple[str | None, str]:
+    """The assessment's verdict; when the SE misses the goal, by how much and what would reach it."""
+    if a.verdict is None or a.verdict == "resolved":
+        return a.verdict, a.verdict_reason
+    se, goal = a.target_se, study.goal_se
+    reason = a.verdict_reason
+    if se is not None and np.isfinite(se) and se > goal:
+        reason += f": the best design of {n} tubes on these candidates misses the goal by ×{se / goal:.3g}"
+        lim = a.limits
+        reach = lim.reaches_goal if lim is not None else ()
+        if reach:
+            reason += "; what would reach it: " + "; ".join(f"{c.change} (SE {c.se:.3g})" for c in reach[:3])
+        elif lim is not None and lim.best is not None:
+            reason += (
+                f"; no single change on the list reaches it — the best, {lim.best.change}, gives "
+                f"SE {lim.best.se:.3g}: combine changes, or relax design.goal_se"
+            )
+        else:
+            reason += "; no change on the list helps: relax design.goal_se or change the stocks"
+    return a.verdict, reason
 
 
 def _solve(study: Study, nodes, crit, n, seed, caps, volumetric, starts, prior=None):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ...inference.discrimination import POWER_GOAL, Detection, detection_power
+from ...inference.discrimination import POWER_GOAL, Detection, detection_powers
 from ...inference.precision import whitening_of
 from ...inference.study import Study
 from ...inputs.recipe import Recipe
@@ -20,8 +20,14 @@ def _f(x) -> float | None:
     return x if np.isfinite(x) else None
 
 
-def model_check_result(det: tuple[Detection, ...]) -> Check:
-    """The "model-check" check: would the recipe's data reject the main model if an alternative were true?"""
+ASSESS_FIX = "spread the tubes over more compositions, or let kplan design guard against it"
+DESIGN_FIX = "the model check above says how far any design on these candidates gets and what would reveal it"
+
+
+def model_check_result(det: tuple[Detection, ...], fix: str = ASSESS_FIX) -> Check:
+    """The "model-check" check: would the recipe's data reject the main model if an alternative were true?
+
+    ``fix`` is what to do about a weak check (the design, which already guarded, says something else)."""
     if not det:
         return Check("model-check", "pass", "no alternative model to check against")
     power = [d.power if np.isfinite(d.power) else d.power_noise_free for d in det]
@@ -39,8 +45,7 @@ def model_check_result(det: tuple[Detection, ...]) -> Check:
         "if the system also formed a complex the plan leaves out, the fit "
         "would reveal it in only "
         + "; ".join(f"{p:.0%} of experiments ({d.alternative})" for d, p in weak)
-        + f" (goal {POWER_GOAL:.0%}): spread the tubes over more compositions, or let kplan design "
-        "guard against it",
+        + f" (goal {POWER_GOAL:.0%}): {fix}",
     )
 
 
@@ -53,7 +58,4 @@ def recipe_detection(
         return ()
     state = expected_state(model, recipe)
     W = whitening_of(error_budget(study.bench, model, recipe, state))
-    return tuple(
-        detection_power(study.bench, model, params, recipe, name, alt, None, rng, trials, W=W)
-        for name, alt in study.alternatives
-    )
+    return detection_powers(study.bench, model, params, recipe, study.alternatives, rng, trials, W=W)

@@ -19,6 +19,7 @@ from ...inference.precision import free_parameters
 from ...inference.study import Study
 from ...inputs.readings import Readings
 from ...inputs.recipe import RecipeError, concat_recipes
+from ...inputs.text import plural
 from ..measure.fit import Fit, fit_study
 from .assess import assess_study
 from .design import Design, design_study
@@ -148,12 +149,13 @@ def next_batch(
             se_now,
             se_after,
             True,
-            f"the next {d.recipe.n_tubes} tubes would lower SE(log β) only from {se_now:.3g} to "
+            f"the next {plural(d.recipe.n_tubes, 'tube')} would lower SE(log β) only from {se_now:.3g} to "
             f"{se_after:.3g}: more tubes would not help (errors every tube shares, such as the "
             f"stock concentrations, set the floor)",
         )
     reason = (
-        f"SE(log β) {se_now:.3g} now, {se_after:.3g} expected after the next {d.recipe.n_tubes} tubes"
+        f"SE(log β) {se_now:.3g} now, {se_after:.3g} expected after the next "
+        f"{plural(d.recipe.n_tubes, 'tube')}"
         + ("" if se_after <= study.goal_se else f" (goal {study.goal_se:g}: plan another batch after)")
     )
     return NextBatch(fit, learned, d, se_now, se_after, False, reason)

@@ -84,7 +84,7 @@ def assess_spectra(
     if factors:
         fa = factor_check(study, recipe, sm, ex, lb_true, np.random.default_rng(seed + 2))
         checks.append(fa[0])
-    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof), checks)
+    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof, True), checks)
     checks.sort(key=lambda c: -STATUSES.index(c.status))
     extra = {"spectra": spectra_summary(sm, ex, cr, single, fa[1] if fa else None)}
     return Assessment(

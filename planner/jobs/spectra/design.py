@@ -145,7 +145,7 @@ def design_spectra(
     even = even_series_for(study, n)
     se_d = _se(study, rec)
     se_e = _se(study, even)
-    across = se_across_guess(study, lambda r, at: _se(study, r, at), rec, even)
+    across = se_across_guess(study, rec, even, se=_se)
     eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
     summary = a.summary()
     summary["spectra"].update(_single_wavelength_design(study, n, crit, rob, seed))
@@ -166,6 +166,8 @@ def design_spectra(
         tuple(notes),
         summary,
         None,
+        verdict=a.verdict,
+        verdict_reason=a.verdict_reason,
     )
 
 
@@ -213,12 +215,10 @@ def _exact(study: Study, cand: Candidates, nodes, crit: str, n: int, seed: int, 
     return ex, ap, rec, idx
 
 
-def _se(study: Study, recipe: Recipe, at: dict | None = None) -> float:
+def _se(study: Study, recipe: Recipe, log_beta: np.ndarray | None = None) -> float:
     """Exact whole-spectrum Cramér–Rao SE of the target for ``recipe`` (at other true constants)."""
-    from ..compile import true_constants
-
     sm = spectra_model(study, recipe)
-    lb = true_constants(study.model, at)
+    lb = study.model.log_beta if log_beta is None else log_beta
     ex = expected(study, recipe, sm, lb)
     cr = spectra_cramer_rao(sm, ex.weights, pack(study.model, sm.params, log_beta=lb))
     t = sm.params.target

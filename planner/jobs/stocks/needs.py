@@ -1,22 +1,25 @@
 """Stocks for a plan: how to make each one, how much a recipe needs, and whether there is enough.
 
-Plan-level glue over :mod:`planner.stocks` (weighing, dilution chains, uncertainty) and
-:mod:`planner.glassware`.
+Plan-level glue over :mod:`planner.uncertainty.stocks` (weighing, dilution chains, uncertainty) and
+:mod:`planner.uncertainty.catalogue`.
 """
 
 from __future__ import annotations
 
 import math
 import re
+from collections.abc import Collection
 from dataclasses import dataclass, replace
 
 import numpy as np
 
+from ...inputs.names import unknown_name
 from ...inputs.plan import Plan, PlanError, ion_charge
 from ...inputs.recipe import Recipe
 from ...uncertainty import catalogue
 from ...uncertainty import stocks as stk
 from ...uncertainty.catalogue import GlasswareError
+from .mass_basis import FlaskChoice, MassBasis, choose_flask, mass_basis
 
 # --------------------------------------------------------------------------------------------------
 # every solute of a stock: the M/L salt, the other ions paired into common salts, the charge balance
@@ -268,8 +271,11 @@ class StockNeed:
     solutes : every solute the stock's conc and ions imply (:func:`stock_solutes`), masses for ``flask_mL``.
     solvent : what it is dissolved in and made up with.
     flask_mL : the volumetric flask it is made up in (the preparation's, the plan's, or the smallest
-        that holds what is needed, at least 50 mL); None when none fits.
+        that holds what is needed, at least 50 mL unless the stock is scarce); None when none fits.
     charge_gap : the counter-ion its listed ions lack, or None when they balance.
+    mass_basis : what sets the mass weighed (:class:`~planner.jobs.stocks.mass_basis.MassBasis`), or
+        None when nothing is weighed for the stock's metal or ligand.
+    scarce : the stock was planned as scarce (the least reagent, the smallest flask).
     """
 
     id: str
@@ -286,6 +292,8 @@ class StockNeed:
     solvent: str = ""
     flask_mL: float | None = None
     charge_gap: ChargeGap | None = None
+    mass_basis: MassBasis | None = None
+    scarce: bool = False
 
     @property
     def enough(self) -> bool | None:
@@ -311,6 +319,8 @@ class StockNeed:
             "flask_mL": self.flask_mL,
             "charge_gap": self.charge_gap.summary() if self.charge_gap else None,
             "flask_label": _flask_label(self.flask_mL),
+            "mass_set_by": self.mass_basis.summary() if self.mass_basis else None,
+            "scarce": self.scarce,
         }
 
 
@@ -323,85 +333,149 @@ def _flask_label(flask_mL: float | None) -> str | None:
         return f"{flask_mL:g} mL volumetric flask"
 
 
-def stock_needs(plan: Plan, recipe: Recipe | None = None) -> tuple[StockNeed, ...]:
-    """Preparation and consumption of every stock in the plan."""
-    g = plan.glassware
+def stock_needs(
+    plan: Plan, recipe: Recipe | None = None, *, scarce: Collection[str] = ()
+) -> tuple[StockNeed, ...]:
+    """Preparation and consumption of every stock in the plan.
+
+    Parameters
+    ----------
+    recipe : the tubes, for the volumes needed (and, for a scarce stock, the flask that holds them).
+    scarce : ids of stocks to plan as scarce, besides those the plan marks ``scarce = true``: the smallest
+        flask that holds what the recipe needs, and a dilution chain chosen for the least reagent.
+
+    Raises
+    ------
+    PlanError
+        ``scarce`` names a stock the plan does not have.
+    """
+    ids = [s.id for s in plan.stock]
+    for sid in scarce:
+        if sid not in ids:
+            raise PlanError("scarce", unknown_name("stock id", sid, ids))
     out = []
     for k, s in enumerate(plan.stock):
-        comp = "M" if "M" in s.conc else ("L" if "L" in s.conc else None)
-        used = None
-        n_del = 0
-        need = None
-        if recipe is not None:
-            v = recipe.volumes_mL[:, k]
-            used = float(v.sum())
-            n_del = int(np.count_nonzero(v > 0))
-            need = float(
-                stk.volume_needed_mL(
-                    used,
-                    n_del,
-                    rinse_mL=g.rinse_mL if n_del else 0.0,
-                    dead_volume_mL=g.dead_volume_mL if n_del else 0.0,
-                )
-            )
-        prep, problem = None, None
-        if s.formula and comp is not None:
-            try:
-                flask_mL = _flask_choice(s, need)
-                prep = stk.prepare_stock(
-                    s.conc[comp],
-                    flask_mL,
-                    s.formula,
-                    purity=s.purity or 1.0,
-                    balance_readability_g=g.balance.readability_g,
-                    balance_repeatability_g=g.balance.repeatability_g,
-                    delta_T_C=g.delta_T_C,
-                )
-            except (stk.StockError, GlasswareError) as exc:
-                problem = str(exc)
-        flask, solutes, gap = None, (), None
-        try:
-            flask = prep.flask.capacity_mL if prep is not None else _flask_choice(s, need)
-        except PlanError as exc:
-            problem = problem or str(exc)
-        comps = {
-            c: (s.conc[c], getattr(plan.components, c).charge, getattr(plan.components, c).label or c)
-            for c in ("M", "L")
-            if c in s.conc
-        }
-        try:
-            solutes, gap = stock_solutes(
-                comps, {n: (c, ion_charge(n)) for n, c in s.ions.items()}, s.formula, flask
-            )
-        except stk.StockError as exc:  # a formula molmass cannot read
-            problem = problem or str(exc)
-        out.append(
-            StockNeed(
-                s.id,
-                s.label,
-                comp,
-                prep,
-                problem,
-                used,
-                n_del,
-                need,
-                s.on_hand,
-                s.conc_rsd,
-                solutes,
-                SOLVENT,
-                flask,
-                gap,
-            )
-        )
+        used, n_del, need = _consumption(plan, recipe, k)
+        out.append(_stock_need(plan, s, used, n_del, need, s.scarce or s.id in scarce))
     return tuple(out)
 
 
-def _flask_choice(s, need_mL: float | None) -> float:
-    """The plan's flask for the stock, else the smallest that holds what is needed (at least 50 mL)."""
-    if s.flask_mL:
-        return s.flask_mL
-    want = max(need_mL or 0.0, s.on_hand or 0.0, 50.0)
+def _consumption(plan: Plan, recipe: Recipe | None, k: int) -> tuple[float | None, int, float | None]:
+    """(volume in the tubes, tubes that take it, volume needed with rinse and dead volume) of stock k."""
+    if recipe is None:
+        return None, 0, None
+    g = plan.glassware
+    v = recipe.volumes_mL[:, k]
+    used = float(v.sum())
+    n_del = int(np.count_nonzero(v > 0))
+    need = float(
+        stk.volume_needed_mL(
+            used,
+            n_del,
+            rinse_mL=g.rinse_mL if n_del else 0.0,
+            dead_volume_mL=g.dead_volume_mL if n_del else 0.0,
+        )
+    )
+    return used, n_del, need
+
+
+def catalogue_flasks_mL() -> list[float]:
+    """Capacities of the catalogue's volumetric flasks, ascending."""
+    return [it.capacity_mL for it in catalogue.catalogue() if it.kind == "flask"]
+
+
+def prepare_plan_stock(
+    plan: Plan, s, flask_mL: float, comp: str, *, scarce: bool = False
+) -> stk.StockPreparation:
+    """:func:`planner.uncertainty.stocks.prepare_stock` for the plan's stock ``s`` (its component ``comp``)
+    in ``flask_mL``, with the plan's balance and temperature; ``scarce`` chooses a chain for the least
+    reagent. (The class stock list can make its stocks the same way.)"""
+    g = plan.glassware
+    return stk.prepare_stock(
+        s.conc[comp],
+        flask_mL,
+        s.formula,
+        purity=s.purity or 1.0,
+        balance_readability_g=g.balance.readability_g,
+        balance_repeatability_g=g.balance.repeatability_g,
+        delta_T_C=g.delta_T_C,
+        prefer="reagent" if scarce else "precision",
+    )
+
+
+def _least_reagent(plan: Plan, s, comp: str, need: float | None, upto_mL: float):
+    """(preparation, flask choice) of the scarce plan: over the catalogue flasks from the smallest that
+    holds what is needed up to ``upto_mL``, the one weighing the least reagent (within the slack of
+    :data:`planner.uncertainty.stocks.SCARCE_MASS_SLACK`: fewer dilution steps, then the better u)."""
+    first = choose_flask(s.flask_mL, need, s.on_hand, scarce=True)
+    if first.reason == "plan":
+        return prepare_plan_stock(plan, s, first.flask_mL, comp, scarce=True), first
+    sizes = [c for c in catalogue_flasks_mL() if first.flask_mL <= c <= max(upto_mL, first.flask_mL)]
+    preps = [(prepare_plan_stock(plan, s, c, comp, scarce=True), c) for c in sizes]  # a handful of flasks
+    least = min(p.mass_g for p, _ in preps)
+    near = [(p, c) for p, c in preps if p.mass_g <= (1 + stk.SCARCE_MASS_SLACK) * least]
+    prep, cap = min(near, key=lambda pc: (len(pc[0].steps), pc[0].u_rel))
+    return prep, FlaskChoice(cap, first.reason if cap == first.flask_mL else "least-reagent")
+
+
+def _weighing(plan: Plan, s, comp: str | None, need: float | None, scarce: bool):
+    """(preparation, mass basis, flask choice, problem) of a stock's metal or ligand salt."""
     try:
-        return stk.flask_for_volume(want).capacity_mL
+        usual = choose_flask(s.flask_mL, need, s.on_hand)
+    except stk.StockError as exc:
+        return None, None, None, str(PlanError(f"stock {s.id}.flask", str(exc)))
+    if not (s.formula and comp is not None):
+        return None, None, choose_flask(s.flask_mL, need, s.on_hand, scarce=scarce), None
+    try:
+        least, least_choice = _least_reagent(plan, s, comp, need, usual.flask_mL)
+        prep, choice = (
+            (least, least_choice) if scarce else (prepare_plan_stock(plan, s, usual.flask_mL, comp), usual)
+        )
+    except (stk.StockError, GlasswareError) as exc:
+        return None, None, usual, str(exc)
+    return prep, mass_basis(prep, choice, need, scarce=scarce, scarce_prep=least), choice, None
+
+
+def _flask_choice(s, need_mL: float | None) -> float:
+    """The plan's flask for the stock, else the smallest that holds what is needed (at least 50 mL); kept
+    for the class stock list."""
+    try:
+        return choose_flask(s.flask_mL, need_mL, s.on_hand).flask_mL
     except stk.StockError as exc:
         raise PlanError(f"stock {s.id}.flask", str(exc)) from None
+
+
+def _stock_need(plan: Plan, s, used, n_del, need, scarce: bool) -> StockNeed:
+    comp = "M" if "M" in s.conc else ("L" if "L" in s.conc else None)
+    prep, basis, choice, problem = _weighing(plan, s, comp, need, scarce)
+    flask = prep.flask.capacity_mL if prep is not None else (choice.flask_mL if choice else None)
+    comps = {
+        c: (s.conc[c], getattr(plan.components, c).charge, getattr(plan.components, c).label or c)
+        for c in ("M", "L")
+        if c in s.conc
+    }
+    solutes, gap = (), None
+    try:
+        solutes, gap = stock_solutes(
+            comps, {n: (c, ion_charge(n)) for n, c in s.ions.items()}, s.formula, flask
+        )
+    except stk.StockError as exc:  # a formula molmass cannot read
+        problem = problem or str(exc)
+    return StockNeed(
+        s.id,
+        s.label,
+        comp,
+        prep,
+        problem,
+        used,
+        n_del,
+        need,
+        s.on_hand,
+        s.conc_rsd,
+        solutes,
+        SOLVENT,
+        flask,
+        gap,
+        basis,
+        scarce,
+    )

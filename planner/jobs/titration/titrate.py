@@ -20,11 +20,13 @@ import numpy as np
 
 from ...inference.precision import ReadingModel, cramer_rao, unpack
 from ...inference.study import Study
+from ...inputs.limits import MAX_ADDITIONS, check_count
 from ...inputs.recipe import Recipe, RecipeError
 from ...inputs.schedule import Schedule
+from ...inputs.text import plural
 from ...model.compiled import predict, tube_ions_M
 from ...uncertainty import delivery
-from ...uncertainty.titration import titration_budget, titration_recipe
+from ...uncertainty.titration import reads_cumulatively, titration_budget, titration_recipe
 from ..plan.assess import assess_study
 
 GROWTH = (1.0, 1.1, 1.2, 1.3, 1.45, 1.6, 1.8, 2.0, 2.5)
@@ -110,6 +112,9 @@ def equal_schedule(study: Study, additions: int | None = None) -> Schedule:
     t = study.bench.titration
     n = int(additions or t.additions)
     room = t.max_volume_mL - t.start_volume_mL
+    k = study.bench.devices.stock_device[study.bench.stock_index(t.titrant)]
+    if k >= 0 and reads_cumulatively(study.bench.devices.items[k]):  # one filling of the burette
+        room = min(room, study.bench.devices.items[k].capacity_mL)
     v = np.floor(room / n / t.step_mL + 1e-9) * t.step_mL
     return Schedule(tuple(str(k + 1) for k in range(n)), np.full(n, np.round(v, 10)))
 
@@ -142,6 +147,8 @@ def _candidates(study: Study, n: int) -> list[np.ndarray]:
     t = study.bench.titration
     dev = study.bench.devices.items[study.bench.devices.stock_device[study.bench.stock_index(t.titrant)]]
     room = t.max_volume_mL - t.start_volume_mL
+    if reads_cumulatively(dev):  # a burette delivers the whole titration from one filling
+        room = min(room, dev.capacity_mL)
     vmin = max(delivery.smallest_delivery_mL(dev), t.step_mL)
     vmax = min(dev.capacity_mL, room)
     if vmin > vmax:
@@ -206,10 +213,10 @@ def design_titration(
         raise RecipeError("titration", "the plan has no [titration] table")
     if study.params.target < 0:
         raise RecipeError("design.target", f"the target {study.target} is held fixed (log_beta_sd = 0)")
-    n = int(additions or t.additions)
+    n = check_count(additions or t.additions, "additions", MAX_ADDITIONS)
     if n < study.params.size:
         raise RecipeError(
-            "titration.additions", f"{n} additions cannot determine {study.params.size} parameters"
+            "titration.additions", f"{plural(n, 'addition')} cannot determine {study.params.size} parameters"
         )
     rob = study.robust if robust is None else bool(robust)
     best = None

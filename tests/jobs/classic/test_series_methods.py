@@ -12,10 +12,20 @@ import numpy as np
 import pytest
 
 from planner.inputs.files import write_atomic
-from planner.inputs.plan import PlanError, parse_plan_text
+from planner.inputs.plan import parse_plan_text
 from planner.inputs.recipe import parse_recipe_csv
-from planner.jobs.classic import calibration, common, job, mole_ratio, plan_model, survey
+from planner.jobs.classic import (
+    SeriesInfeasible,
+    calibration,
+    common,
+    job,
+    mole_ratio,
+    plan_model,
+    run_series,
+    survey,
+)
 from planner.jobs.classic import rivals as rv
+from planner.jobs.plan.checks import hand_bias, hand_bias_summary
 from planner.model.compiled import predict, tube_ions_M
 
 from ...conftest import run_cli as run
@@ -147,7 +157,8 @@ def test_rival_fit_recovers_own_model():
     assert fit.epsilon_M_cm[0] == pytest.approx(1000.0, rel=1e-3)
 
 
-def test_job_needs_equimolar_stocks_exit_2(tmp_path, capsys, monkeypatch):
+def test_job_needs_equimolar_stocks_exit_1(tmp_path, capsys, monkeypatch):
+    # stocks that are not equimolar are no bad input: the series cannot be made, and says what would
     plan = tmp_path / "p.toml"
     write_atomic(
         plan,
@@ -159,10 +170,13 @@ def test_job_needs_equimolar_stocks_exit_2(tmp_path, capsys, monkeypatch):
         ),
     )
     code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "job")
-    assert code == 2 and "equimolar" in err and "dilute LS" in err and "50.00 mL" in err
-    assert len(err.strip().splitlines()) == 1
-    with pytest.raises(PlanError):
+    assert code == 1 and not err and "equimolar" in out and "dilute LS" in out and "50.00 mL" in out
+    with pytest.raises(SeriesInfeasible):
         job.continuous_variation(parse_plan_text(plan.read_text()))
+    r = run_series(parse_plan_text(plan.read_text()), "job")
+    assert not r.answers and r.recipe.n_tubes == 0 and r.checks[0].id == "feasible"
+    code, out, err = run(capsys, monkeypatch, "series", plan, "--method", "job", "--json")
+    assert code == 1 and strict_json(out)["tubes"] == []
 
 
 def test_job_cli_writes_recipe_that_assess_accepts(tmp_path, capsys, monkeypatch):
@@ -253,11 +267,12 @@ def test_domain_worked_case_and_hand_bias():
     # domain notes §5 (derived there from the 1:1 formula): K = 140 M⁻¹ with 0.1 M excess metal converts ~93 %
     f = calibration.fraction_converted_1to1(0.1, 1e-5, 140.0)
     assert f == pytest.approx(14 / 15, abs=2e-4)  # derived: K·x/(1 + K·x) in the excess limit
-    b = calibration._hand_bias(f)
+    b = hand_bias_summary(f)
     assert b["epsilon"] == pytest.approx(f - 1)  # derived: ε_hand = f·ε
     assert b["K_dilute"] == pytest.approx(1 / f - 1)  # derived: K_hand/K → 1/f as y → 0
     y = 0.2
-    assert (1 - y) / (f - y) - 1 == pytest.approx(0.09, abs=0.01)  # "about +9 %" [domain notes §5, derived]
+    assert float(hand_bias(f, y)) == pytest.approx(0.09, abs=0.01)  # "about +9 %" [domain notes §5, derived]
+    assert np.isnan(hand_bias(f, 0.95))  # beyond the calibration's conversion the hand formula has no answer
 
 
 def test_calibration_strong_complex_answers_and_weak_one_does_not(tmp_path, capsys, monkeypatch):

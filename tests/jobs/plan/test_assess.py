@@ -95,16 +95,18 @@ def test_strong_binding_is_only_bounded(teaching_plan):
     assert a.verdict == "bounded"
 
 
-def _calibration_plan():
+def _calibration_plan(analysis: str = "one-to-one"):
+    # a hand analysis is planned (the bias of a 'complete conversion' tube is reported only then)
     text = scenario_text("teaching")
     text = text.replace("log_beta = 3.30 ", f"log_beta = {math.log10(140.0)!r} ")
     text = text.replace('conc = { M = "10.0 mM" }', 'conc = { M = "1.000 M" }')
     text = text.replace('conc = { L = "10.0 mM" }', 'conc = { L = "1.00 mM" }')
+    text = text.replace("goal_se = 0.05", f'goal_se = 0.05\nanalysis = "{analysis}"')
     return parse_plan_text(text)
 
 
 def test_calibration_tube_fraction_converted():
-    # source: domain.md §5 (derived from the 1:1 formula): K = 140 M⁻¹ with 0.10 M free metal converts
+    # derived from the 1:1 closed form: K = 140 M⁻¹ with 0.10 M free metal converts
     # K[M]/(1 + K[M]) = 14/15 of the ligand, not all of it
     plan = _calibration_plan()
     L0 = 1e-4
@@ -128,8 +130,8 @@ def test_calibration_bias_limit():
     r = make_recipe(plan, {"CU": np.array([1e-5 * 10 / 1.0, M0 * 10.0]), "DY": np.array([1.0, 1.0])})
     a = assess(plan, r, trials=0, precision=False)
     conv = next(c for c in a.checks if c.id == "conversion")
-    bias = float(conv.message.split("biases K by ")[1].split("%")[0]) / 100
-    assert bias == pytest.approx(1 / 14, abs=0.003)
+    bias = float(conv.message.split(" and K by ")[1].split("%")[0]) / 100
+    assert bias == pytest.approx(1 / 14, abs=0.0006)
 
 
 def test_double_reciprocal_excess(teaching_text):

@@ -33,12 +33,13 @@ def test_guarded_design_catches_a_left_out_complex_at_a_small_cost(designs):
     # (detection at about the test's 5 % level); the guarded design reveals each in most experiments
     _, plain, guarded = designs
     mc = guarded.model_check
-    assert mc is not None and mc.moves >= 1
+    assert mc is not None and mc.replaced and 1 <= mc.moves <= guarded.recipe.n_tubes
     for g, t in mc.detection:
-        assert t.power < 0.2, (g.alternative, t.power)
+        assert t.power_noise_free < 0.2, (g.alternative, t.power_noise_free)
         assert g.power >= 0.8, (g.alternative, g.power)
         assert abs(g.power - g.power_noise_free) < 0.1  # simulation and noncentral χ² agree
-    assert 1.0 <= mc.se_guarded_over_target_only < 1.35
+    # the check_weight 0.25 of the plan caps the cost at ×1.25
+    assert 1.0 <= mc.se_guarded_over_target_only <= 1.25 + 1e-9
     assert mc.se_target_only == pytest.approx(plain.se_target, rel=1e-9)
     assert guarded.se_target == pytest.approx(mc.se_guarded, rel=1e-9)
     assert len({tuple(row) for row in guarded.recipe.volumes_mL}) > len(

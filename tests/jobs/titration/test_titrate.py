@@ -73,3 +73,17 @@ def test_titration_through_the_command_line(tmp_path, capsys, monkeypatch):
     )
     code, _, err = run(capsys, monkeypatch, "assess", EXAMPLE, over)
     assert code == 2 and "max_volume" in err and len(err.strip().splitlines()) == 1
+
+
+def test_a_burette_titration_is_designed_within_one_filling():
+    # the 10 mL burette holds less than the cell's room (20 mL): every schedule tried, and the equal
+    # portions it is compared with, stay within one filling [common practice: no refill mid-titration]
+    from planner.inputs.plan import parse_plan_text
+
+    text = (ROOT / "examples" / "titration-burette.toml").read_text(encoding="utf-8")
+    text = text.replace('tube_volume = "35.00 mL"', 'tube_volume = "45.00 mL"')  # max_volume ≤ the vessel
+    st = compile_study(parse_plan_text(text.replace('max_volume = "35.00 mL"', 'max_volume = "45.00 mL"')))
+    d = design_titration(st)
+    assert d.schedule.added_mL[-1] <= 10.0 + 1e-9
+    assert equal_schedule(st).added_mL[-1] <= 10.0 + 1e-9
+    assert np.isfinite(d.se_equal) and d.se_target <= d.se_equal * (1 + 1e-9)
