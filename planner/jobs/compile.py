@@ -23,7 +23,7 @@ from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
 from ..uncertainty import catalogue
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
-from .compile_spectra import build_spectra, table_epsilon_at
+from .compile_spectra import build_spectra, instrument_at_working_wavelength, table_epsilon_at
 
 __all__ = [
     "MAKE_UP_MIN_FRACTION",
@@ -71,7 +71,7 @@ def build_model(plan: Plan) -> Model:
     ion_z = np.array([ion_charge(i) for i in ion_names], dtype=float)
     stock_ion = np.array([[s.ions.get(i, 0.0) for i in ion_names] for s in plan.stock], dtype=float)
     stock_ion = stock_ion.reshape(len(plan.stock), len(ion_names))
-    n = plan.optics.noise
+    stray, noise_k = instrument_at_working_wavelength(plan)
     return Model(
         species=tuple(s.name for s in sp),
         stoich=stoich,
@@ -84,8 +84,8 @@ def build_model(plan: Plan) -> Model:
         epsilon_M_cm=eps,
         epsilon_rsd=rsd,
         path_cm=plan.optics.path_cm,
-        stray_light=plan.optics.stray_light,
-        noise_k=(n.k1, n.k2, n.k3),
+        stray_light=stray,
+        noise_k=noise_k,
         display_step=plan.optics.display_step,
         linear_range=tuple(plan.optics.linear_range),
         stock_ids=tuple(s.id for s in plan.stock),

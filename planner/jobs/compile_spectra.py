@@ -15,7 +15,7 @@ from ..inputs.plan import Plan
 from ..model import spectra as sp
 from ..model.compiled import Model
 
-__all__ = ["build_spectra", "table_epsilon_at", "window_grid"]
+__all__ = ["build_spectra", "instrument_at_working_wavelength", "table_epsilon_at", "window_grid"]
 
 
 def window_grid(plan: Plan) -> np.ndarray:
@@ -88,3 +88,17 @@ def table_epsilon_at(plan: Plan, name: str) -> tuple[float, float] | None:
     col = table.rsd[:, j]
     tab = np.interp(at, table.wavelength_nm, col) if np.all(np.isfinite(col)) else None
     return float(e), float(_rsd(plan, name, tab, 1)[0])
+
+
+def instrument_at_working_wavelength(plan: Plan) -> tuple[float, tuple[float, float, float]]:
+    """Stray light and noise terms at ``optics.wavelength_nm``: the plan's own values, or, when the plan
+    records a window, the window's instrument there (stray light and readout noise rise toward its ends,
+    :func:`planner.model.spectra.instrument`), so one wavelength and the whole spectrum agree on it."""
+    o = plan.optics
+    n = o.noise
+    if not o.has_spectra:
+        return o.stray_light, (n.k1, n.k2, n.k3)
+    grid = window_grid(plan)
+    stray, k = sp.instrument(grid, o.stray_light, (n.k1, n.k2, n.k3), o.edge_rise)
+    w = float(np.clip(o.wavelength_nm, grid[0], grid[-1]))
+    return float(np.interp(w, grid, stray)), tuple(float(np.interp(w, grid, k[:, j])) for j in range(3))

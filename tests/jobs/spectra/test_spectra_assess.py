@@ -118,3 +118,25 @@ def test_a_tube_reading_above_the_range_fails_the_check():
     check = {c.id: c for c in a.checks}["linear-range"]
     assert check.status == "fail" and "above" in check.message
     assert a.verdict != "resolved"
+
+
+def test_one_wavelength_of_the_spectrum_is_the_single_wavelength_assessment():
+    # the same recipe judged two ways: the whole-spectrum code's SE from one wavelength alone, and the
+    # single-wavelength assessment of the plan moved to that wavelength (ε from the table there, the
+    # window's instrument there, the stray-light curve kept rather than undone: Fisher information is
+    # unchanged by a known smooth transform of the readings [derived])
+    from planner.inputs.plan import parse_plan_text
+    from planner.jobs.compile import compile_study
+    from planner.jobs.plan.assess import assess_study
+
+    from .helpers import EXAMPLE
+
+    plan, study, _ = example()
+    rec = even_recipe(plan)
+    sp = assess_spectra(study, rec, trials=0, profile_chi2=False, factors=False).summary()["spectra"]
+    by = {r["wavelength_nm"]: r["se_single"] for r in sp["by_wavelength"]}
+    for wl in (431, 520, 600, 690):
+        text = EXAMPLE.read_text(encoding="utf-8").replace("wavelength_nm = 600", f"wavelength_nm = {wl}")
+        moved = compile_study(parse_plan_text(text, base_dir=EXAMPLE.parent))
+        se = assess_study(moved, rec, trials=0, profile_chi2=False, model_check=False).target_se
+        assert se == pytest.approx(by[float(wl)], rel=1e-6)
