@@ -80,7 +80,9 @@ def main() -> None:
     )
 
     t = time.perf_counter()
-    mc = spectra_monte_carlo(study.bench, rec, sm, ex.weights, np.random.default_rng(0), TRIALS, sm.params.guess)
+    mc = spectra_monte_carlo(
+        study.bench, rec, sm, ex.weights, np.random.default_rng(0), TRIALS, sm.params.guess
+    )
     t_spec = time.perf_counter() - t
     print(
         f"whole spectra:                {t_spec:6.2f} s   MC sd {mc.sd[sm.params.target]:.3g}, "
