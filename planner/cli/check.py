@@ -56,6 +56,8 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
         f"{o.linear_range[0]:g}–{o.linear_range[1]:g}, stray light {o.stray_light:g}, "
         f"noise k1={o.noise.k1:g} k2={o.noise.k2:g} k3={o.noise.k3:g}"
     )
+    if o.has_spectra:
+        _print_spectra_keys(p)
     t = Table(title="Stocks")
     for c in ("id", "label", "M", "L", "other ions", "rsd", "on hand", "dispenser"):
         t.add_column(c)
@@ -151,3 +153,26 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
         out.print("[yellow]plan OK, with the warning above[/yellow]")
         return
     out.print("[green]plan OK[/green]")
+
+
+def _print_spectra_keys(p) -> None:
+    """What the plan says about whole spectra: the window and where each absorber's spectrum comes from."""
+    from ..jobs.compile import compile_study
+
+    study = compile_study(p)
+    sp = study.spectra
+    o = p.optics
+    w = sp.wavelength_nm
+    table = p.spectra_table
+    parts = []
+    for k, name in enumerate(study.model.absorbers):
+        if not sp.absorbing[k]:
+            continue
+        src = "table" if table is not None and name in table.names else "band"
+        parts.append(f"{S(name)} ({src}, {'fitted' if sp.free[k] else 'known'})")
+    out.print(
+        f"Whole spectra: {w[0]:g}–{w[-1]:g} nm every {o.step_nm:g} nm ({w.size} wavelengths)"
+        + (f", bandwidth {o.bandwidth_nm:g} nm" if o.bandwidth_nm else "")
+        + f", stray light and readout noise ×{o.edge_rise:g} at the window's ends; spectra: "
+        + (", ".join(parts) or "none")
+    )

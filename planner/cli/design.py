@@ -63,7 +63,7 @@ def design(
     from ..inputs.plan import load_plan
     from ..inputs.recipe import recipe_to_csv
     from ..jobs.plan.design import design as run_design
-    from .show import print_design
+    from .show import print_design, print_spectra
 
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
@@ -86,7 +86,13 @@ def design(
         return _titration(p, out_dir, additions if additions is not None else tubes, robust, as_json)
     if additions is not None:
         raise UserError("--additions applies to titration plans ([titration]); use --tubes for tubes")
-    d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
+    if p.optics.has_spectra:
+        from ..jobs.compile import compile_study
+        from ..jobs.spectra.design import design_spectra
+
+        d = design_spectra(compile_study(p), tubes=tubes, criterion=criterion, robust=robust, seed=seed)
+    else:
+        d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
     summary = d.summary()
     if out_dir is not None:
         # one unit: a recipe.csv beside a design.json from another run would be worse than neither
@@ -100,6 +106,7 @@ def design(
         print(dump_json(summary))
     else:
         print_design(d, p)
+        print_spectra(summary, p.target, p.optics.wavelength_nm)
         if out_dir is not None:
             out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
     if d.verdict is not None and d.verdict != "resolved":

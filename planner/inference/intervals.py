@@ -180,3 +180,61 @@ def _illinois(g, inner, outer, found, *, tol):
         conv = (np.abs(b[act] - a[act]) <= tol[act]) | (np.abs(val) <= 1e-10)
         act = act[~conv]
     return x
+
+
+def profile_crossings_of(
+    chi2_at: Callable[[np.ndarray], np.ndarray],
+    centre: float,
+    se: float,
+    chi2_min: float,
+    lower: float,
+    upper: float,
+    *,
+    threshold: float = CHI2_95_1DOF,
+) -> tuple[float | None, float | None]:
+    """Profile interval ends of one parameter of one experiment, given its profile χ² as a function.
+
+    ``chi2_at(values)`` returns χ² with the parameter held at each of ``values`` (every other parameter
+    refitted), all values in one call. The ends are bracketed outwards from ``centre ± √threshold·se``
+    (doubling) and refined by Illinois regula falsi, both sides in every call, as
+    :func:`profile_interval` does for problems given by a model and its Jacobian. None on a side that
+    never crosses within the bound (Raue et al. 2009).
+    """
+    side = np.array([-1.0, 1.0])
+    edge = np.array([lower, upper], dtype=float)
+    step = np.full(2, np.sqrt(threshold) * (se if np.isfinite(se) and se > 0 else 1.0))
+
+    def g(x):
+        return np.asarray(chi2_at(np.clip(x, lower, upper)), dtype=float) - chi2_min - threshold
+
+    a = np.full(2, float(centre))
+    ga = np.full(2, -threshold)
+    b = np.clip(centre + side * step, lower, upper)
+    gb = g(b)
+    found = gb > 0
+    for _ in range(MAX_DOUBLINGS):
+        open_ = ~found & (b != edge)
+        if not open_.any():
+            break
+        a = np.where(open_, b, a)
+        ga = np.where(open_, gb, ga)
+        step = np.where(open_, 2 * step, step)
+        b = np.where(open_, np.clip(centre + side * step, lower, upper), b)
+        gb = np.where(open_, g(b), gb)
+        found = gb > 0
+    tol = RTOL * max(float(se) if np.isfinite(se) and se > 0 else 1.0, 1e-12)
+    last = np.zeros(2)
+    for _ in range(MAX_ITER):
+        if np.all(~found | (np.abs(b - a) <= tol)):
+            break
+        x = np.where(found, b - gb * (b - a) / np.where(gb != ga, gb - ga, 1.0), a)
+        gx = g(x)
+        left = np.sign(gx) == np.sign(ga)  # the root lies between x and b
+        ga = np.where(found & ~left & (last < 0), ga / 2, ga)  # Illinois: halve the stale end's value
+        gb = np.where(found & left & (last > 0), gb / 2, gb)
+        a, ga = np.where(found & left, x, a), np.where(found & left, gx, ga)
+        b, gb = np.where(found & ~left, x, b), np.where(found & ~left, gx, gb)
+        last = np.where(left, 1.0, -1.0)
+    ends = np.where(found, 0.5 * (a + b), np.nan)
+    lo, hi = (float(v) if np.isfinite(v) else None for v in ends)
+    return lo, hi

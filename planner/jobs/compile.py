@@ -21,6 +21,7 @@ from ..model.compiled import Model, TubeState, predict, tube_ions_M
 from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
+from .compile_spectra import build_spectra, instrument_at_working_wavelength, table_epsilon_at
 from .devices import dispenser_item, plan_devices
 
 __all__ = [
@@ -51,7 +52,10 @@ def build_model(plan: Plan) -> Model:
     rsd = np.zeros(len(absorbers))
     for j, name in enumerate(absorbers):
         e = plan.optics.epsilon.get(name)
-        if e is not None:
+        from_table = table_epsilon_at(plan, name) if e is None else None
+        if from_table is not None:  # a plan with an ε table reads it at wavelength_nm for one wavelength
+            eps[j], rsd[j] = from_table
+        elif e is not None:
             band = plan.optics.bands.get(name)
             factor = optics.bandwidth_factor(plan.optics.bandwidth_nm, band.fwhm_nm if band else None)
             band_ratio[name] = factor
@@ -66,7 +70,7 @@ def build_model(plan: Plan) -> Model:
     ion_z = np.array([ion_charge(i) for i in ion_names], dtype=float)
     stock_ion = np.array([[s.ions.get(i, 0.0) for i in ion_names] for s in plan.stock], dtype=float)
     stock_ion = stock_ion.reshape(len(plan.stock), len(ion_names))
-    n = plan.optics.noise
+    stray, noise_k = instrument_at_working_wavelength(plan)
     return Model(
         species=tuple(s.name for s in sp),
         stoich=stoich,
@@ -79,8 +83,8 @@ def build_model(plan: Plan) -> Model:
         epsilon_M_cm=eps,
         epsilon_rsd=rsd,
         path_cm=plan.optics.path_cm,
-        stray_light=plan.optics.stray_light,
-        noise_k=(n.k1, n.k2, n.k3),
+        stray_light=stray,
+        noise_k=noise_k,
         display_step=plan.optics.display_step,
         linear_range=tuple(plan.optics.linear_range),
         stock_ids=tuple(s.id for s in plan.stock),
@@ -162,6 +166,7 @@ def compile_study(plan: Plan) -> Study:
         ionic_strength_tolerance=d.ionic_strength_tolerance,
         alternatives=compile_alternatives(plan, model),
         check_weight=d.check_weight if d.check != "none" else 0.0,
+        spectra=build_spectra(plan, model),
     )
 
 

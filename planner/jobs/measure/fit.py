@@ -104,19 +104,7 @@ class Fit:
     @property
     def chi2_verdict(self) -> str:
         """One sentence on the scatter, judged on both tails of χ²(dof)."""
-        if self.dof < 1 or not np.isfinite(self.chi2):
-            return "no degrees of freedom left: χ² cannot test the fit (add tubes)"
-        if self.p_value < CHI2_TAIL:
-            return (
-                "the scatter is larger than the error model predicts: look for a bad tube, drift or a "
-                "wrong model"
-            )
-        if self.p_low < CHI2_TAIL:
-            return (
-                "the scatter is suspiciously small for the error model: it may be too pessimistic, or the "
-                "readings are not independent (copied or smoothed)"
-            )
-        return "the scatter matches the error model"
+        return chi2_verdict(self)
 
     @property
     def interval_note(self) -> str:
@@ -135,36 +123,12 @@ class Fit:
         return note
 
     def summary(self) -> dict:
-        def f(x):
-            x = float(x) if x is not None else float("nan")
-            return x if np.isfinite(x) else None
-
-        t = self.names.index(f"log_beta[{self.target}]") if f"log_beta[{self.target}]" in self.names else -1
-        params = []
-        for k, (n, e, s, s0, p) in enumerate(
-            zip(self.names, self.estimate, self.se, self.se_error_model, self.promised_se, strict=True)
-        ):
-            row = {"name": n, "estimate": f(e), "se": f(s), "se_error_model": f(s0), "promised_se": f(p)}
-            if k == t:
-                ci = self.profile_ci95
-                row["profile_ci95"] = [f(ci[0]), f(ci[1])] if ci is not None else None
-            params.append(row)
+        f = json_float
         return {
-            "title": self.title,
-            "target": self.target,
-            "converged": self.converged,
-            "determined": self.determined,
-            "reason": self.reason,
-            "parameters": params,
-            "chi2": f(self.chi2),
-            "dof": self.dof,
-            "p_value": f(self.p_value),
-            "p_low": f(self.p_low),
-            "chi2_verdict": self.chi2_verdict,
+            **fit_summary_head(self),
             "interval_scale": f(self.interval_scale),
             "interval_note": self.interval_note,
             "suspects": [{"tube": tb, "z": f(z), "shift": f(d)} for tb, z, d in self.suspects],
-            "excluded": [{"tube": tb, "reason": r} for tb, r in self.excluded],
             "tubes": [
                 {
                     "tube": tb,
@@ -199,6 +163,67 @@ def check_absorbances(values, labels, where: str) -> None:
             f"{where}, tube {labels[i]}: absorbance {a[i]:g} is not a reading: write a finite number between "
             f"{-MAX_ABSORBANCE:g} and {MAX_ABSORBANCE:g}"
         )
+
+
+def chi2_verdict(fit) -> str:
+    """One sentence on the scatter of any fit with ``dof``, ``chi2``, ``p_value`` and ``p_low``, judged on
+    both tails of χ²(dof)."""
+    if fit.dof < 1 or not np.isfinite(fit.chi2):
+        return "no degrees of freedom left: χ² cannot test the fit (add tubes)"
+    if fit.p_value < CHI2_TAIL:
+        return (
+            "the scatter is larger than the error model predicts: look for a bad tube, drift or a wrong model"
+        )
+    if fit.p_low < CHI2_TAIL:
+        return (
+            "the scatter is suspiciously small for the error model: it may be too pessimistic, or the "
+            "readings are not independent (copied or smoothed)"
+        )
+    return "the scatter matches the error model"
+
+
+def fit_summary_head(fit) -> dict:
+    """The keys every fit's JSON starts with: title, target, converged, determined, reason, parameters,
+    χ² with its dof, both tails and verdict, and the tubes left out."""
+    f = json_float
+    return {
+        "title": fit.title,
+        "target": fit.target,
+        "converged": fit.converged,
+        "determined": fit.determined,
+        "reason": fit.reason,
+        "parameters": parameter_rows(fit),
+        "chi2": f(fit.chi2),
+        "dof": fit.dof,
+        "p_value": f(fit.p_value),
+        "p_low": f(fit.p_low),
+        "chi2_verdict": fit.chi2_verdict,
+        "excluded": [{"tube": tb, "reason": r} for tb, r in fit.excluded],
+    }
+
+
+def json_float(x) -> float | None:
+    """A float for JSON: None for a missing or non-finite value."""
+    x = float(x) if x is not None else float("nan")
+    return x if np.isfinite(x) else None
+
+
+def parameter_rows(fit) -> list[dict]:
+    """The ``parameters`` of a fit's JSON (``name``, ``estimate``, ``se``, ``promised_se``, and for the target
+    ``profile_ci95``) from any fit with ``names``, ``estimate``, ``se``, ``promised_se``, ``target`` and
+    ``profile_ci95``."""
+    f = json_float
+    t = f"log_beta[{fit.target}]"
+    rows = []
+    for n, e, s, p in zip(fit.names, fit.estimate, fit.se, fit.promised_se, strict=True):
+        row = {"name": n, "estimate": f(e), "se": f(s), "promised_se": f(p)}
+        if getattr(fit, "se_error_model", None) is not None:
+            row["se_error_model"] = f(fit.se_error_model[len(rows)])
+        if n == t:
+            ci = fit.profile_ci95
+            row["profile_ci95"] = [f(ci[0]), f(ci[1])] if ci is not None else None
+        rows.append(row)
+    return rows
 
 
 def fit_readings(

@@ -264,7 +264,7 @@ def design_study(
         min(eff, 1.0),
         se_d,
         se_e,
-        _se_across(study, rec, even),
+        se_across_guess(study, rec, even),
         study.target,
         tuple(notes),
         a.summary(),
@@ -301,8 +301,12 @@ def _check_and_assess(study: Study, rec, final, crit, check_model, volumetric, s
     return rec, check, a
 
 
-def _se_across(study: Study, rec: Recipe, even: Recipe) -> tuple[tuple[float, float, float], ...]:
-    """SE of the design and of the even series if the target's true log β is the guess ± 1, 2 sd."""
+def se_across_guess(
+    study: Study, rec: Recipe, even: Recipe, se=None
+) -> tuple[tuple[float, float, float], ...]:
+    """SE of the design and of the even series if the target's true log β is the guess ± 1, 2 sd;
+    ``se(study, recipe, log_beta)`` gives one SE (default :func:`target_se`, one wavelength)."""
+    se = target_se if se is None else se
     model = study.model
     j = model.index(study.target)
     sd = float(model.log_beta_sd[j])
@@ -311,7 +315,7 @@ def _se_across(study: Study, rec: Recipe, even: Recipe) -> tuple[tuple[float, fl
         for k in (-2, -1, 0, 1, 2):
             lb = model.log_beta.copy()
             lb[j] = float(model.log_beta[j] + k * sd)
-            out.append((float(lb[j]), target_se(study, rec, lb), target_se(study, even, lb)))
+            out.append((float(lb[j]), se(study, rec, lb), se(study, even, lb)))
     return tuple(out)
 
 
