@@ -22,12 +22,12 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from ...inference.factors import FactorAnalysis, factor_analysis
+from ...inference.intervals import profile_crossings_of
 from ...inference.lm import fit_many
 from ...inference.precision import unpack
 from ...inference.study import Study
 from ...inference.tails import chi2_cdf, chi2_sf
 from ...inference.varpro import SeparableProblem, linear_parameters, solve
-from ...inference.intervals import profile_crossings_of
 from ...inputs.recipe import RecipeError, totals_M
 from ...inputs.spectra_readings import SpectraReadings
 from ...model.compiled import tube_ions_M
