@@ -29,6 +29,8 @@ from importlib import resources
 
 import numpy as np
 
+from planner.paper.json_out import to_json
+
 OFFSET = [0.1, 0.95]  # the truth: log β above the guess by this, ε(ML) times this
 SLIPS = ("swapped-tubes", "wrong-stock", "not-made-up", "misread-volume")
 # the starting point of issue 19 (commit 0cb2434), measured with this script on this shared 2-core machine:
@@ -128,7 +130,7 @@ def one_size(n_students: int) -> dict:
         upper=hi,
     )
     t_base = time.perf_counter() - t0
-    s = g.summary()
+    s = to_json(g)
     pooled = s["pooled"]["parameters"][0] if s["pooled"] else None
     return {
         "students": n_students,

@@ -26,6 +26,7 @@ from planner.jobs.classic.survey import _epsilon_by_wavelength, _grid, _plan_at,
 from planner.jobs.compile import expected_state
 from planner.jobs.plan.even import even_series
 from planner.model.compiled import tube_ions_M
+from planner.paper.json_out import to_json
 from planner.uncertainty.budget import error_budget
 
 GOAL_S = 2.0
@@ -67,7 +68,7 @@ def main() -> None:
     print(f"{'method':<12} {'time / s':>9} {'goal / s':>9}  result")
     for method, p in (("job", plan), ("calibration", plan), ("mole-ratio", plan), ("survey", banded)):
         t, r = best_of(lambda m=method, q=p: run_series(q, m))
-        s = r.summary()
+        s = to_json(r)
         what = describe(method, s)
         flag = "ok" if t <= GOAL_S else "SLOW"
         print(f"{method:<12} {t:9.3f} {GOAL_S:9.1f}  {flag}; {what} (exit {r.exit_code})")

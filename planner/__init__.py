@@ -88,6 +88,8 @@ _WHERE = {
     "ErrorBudget": "uncertainty.budget",
     "FitResult": "inference.fit_result",
     "fit_many": "inference.lm",
+    # the --json structure of any result
+    "to_json": "paper.json_out",
 }
 
 if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs
@@ -116,6 +118,7 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs
     from .model.closed_forms import EquilibriumError, one_to_one
     from .model.compiled import Model, TubeState, predict
     from .model.speciation import Speciation, speciate
+    from .paper.json_out import to_json
     from .uncertainty.budget import ErrorBudget
 
 
@@ -197,5 +200,6 @@ __all__ = [
     "run_series",
     "speciate",
     "stock_needs",
+    "to_json",
     "write_csv",
 ]

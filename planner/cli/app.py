@@ -4,7 +4,6 @@
 from __future__ import annotations
 
 import json
-import math
 import os
 from importlib import resources
 from pathlib import Path
@@ -128,29 +127,11 @@ def one_line(text: object) -> str:
     return safe_text(" ".join(str(text).replace("\r\n", "\n").split("\n")))
 
 
-def json_safe(obj: Any) -> Any:
-    """``obj`` with numpy scalars and arrays made plain and every NaN or ±inf replaced by None (null).
-
-    JSON has no NaN or Infinity; Python's json would write them as bare tokens that strict readers
-    refuse, so every JSON the command line prints or writes goes through :func:`dump_json`.
-    """
-    import numpy as np
-
-    if isinstance(obj, dict):
-        return {str(k): json_safe(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [json_safe(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return json_safe(obj.tolist())
-    if isinstance(obj, np.generic):
-        obj = obj.item()
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return None
-    return obj
-
-
 def dump_json(obj: Any) -> str:
-    """Strict JSON text (no NaN/Infinity, non-ASCII escaped) of a command's summary, indented."""
+    """Strict JSON text (no NaN/Infinity, non-ASCII escaped), indented, of a job's result (its documented
+    structure, :func:`planner.paper.json_out.to_json`) or of plain values."""
+    from ..paper.json_out import json_safe
+
     return json.dumps(json_safe(obj), indent=2, allow_nan=False)
 
 

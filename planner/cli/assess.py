@@ -65,9 +65,9 @@ def assess(
         tubes=r.n_tubes * (study.spectra.size // 20 + 1 if study.spectra is not None else 1),
     )
     if as_json:
-        print(dump_json(a.summary()))
+        print(dump_json(a))
     else:
         print_assessment(a, p)
-        print_spectra(a.summary(), p.target, p.optics.wavelength_nm)
+        print_spectra(a.spectra, p.target, p.optics.wavelength_nm)
     if a.verdict is not None and a.verdict != "resolved":
         raise typer.Exit(1)  # the recipe fails: unresolved or only bounded (exit codes in the README)

@@ -115,11 +115,10 @@ def cards(
         )
     # the cards, the key and the stock list belong together: all of them or none
     write_atomic_many({out_dir / name: files[name] for name in OUTPUTS})
-    summary = cs.summary()
-    summary["stocks"] = [s.summary() for s in stocks]
-    summary["files"] = [str(out_dir / n) for n in OUTPUTS]
     if as_json:
-        print(dump_json(summary))
+        from ..paper.json_out import cards_json
+
+        print(dump_json(cards_json(cs, stocks, [out_dir / n for n in OUTPUTS])))
     else:
         _print(cs, stocks, out_dir)
     if not cs.sound:

@@ -93,20 +93,20 @@ def design(
         d = design_spectra(compile_study(p), tubes=tubes, criterion=criterion, robust=robust, seed=seed)
     else:
         d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
-    summary = d.summary()
+    text = dump_json(d)
     if out_dir is not None:
         # one unit: a recipe.csv beside a design.json from another run would be worse than neither
         write_atomic_many(
             {
                 out_dir / "recipe.csv": recipe_to_csv(d.recipe, p),
-                out_dir / "design.json": dump_json(summary) + "\n",
+                out_dir / "design.json": text + "\n",
             }
         )
     if as_json:
-        print(dump_json(summary))
+        print(text)
     else:
         print_design(d, p)
-        print_spectra(summary, p.target, p.optics.wavelength_nm)
+        print_spectra(d.assessment.spectra, p.target, p.optics.wavelength_nm)
         if out_dir is not None:
             out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
     if d.verdict is not None and d.verdict != "resolved":
@@ -128,7 +128,7 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
     readings = read_readings_csv(after, p)
     check_absorbances(readings.absorbance, readings.recipe.tubes, str(after))
     nb = next_batch(study, readings, tubes=tubes, seed=seed, robust=robust)
-    summary = nb.design_summary()
+    text = dump_json(nb)
     going = nb.recipe is not None and not nb.stop
     if out_dir is not None and going:
         both = concat_recipes([readings.recipe, nb.recipe])
@@ -137,11 +137,11 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
             {
                 out_dir / "recipe.csv": recipe_to_csv(nb.recipe, p),
                 out_dir / "all-readings.csv": readings_to_csv(both, p, template),
-                out_dir / "design.json": dump_json(summary) + "\n",
+                out_dir / "design.json": text + "\n",
             }
         )
     if as_json:
-        print(dump_json(summary))
+        print(text)
         return
     _print_next(p, nb)
     if out_dir is not None and going:
@@ -166,13 +166,15 @@ def _print_next(p, nb) -> None:
     dispensed = nb.recipe.dispensed_ids(p)
     for c in ("tube", *(f"{S(x)} / mL" for x in dispensed), "A ± sd (at what was learned)"):
         t.add_column(c, justify="right")
-    rows = {r["tube"]: r for r in nb.assessment.tube_rows()}
+    a = nb.assessment
+    row = {tube: i for i, tube in enumerate(a.recipe.tubes)}
+    sd = a.absorbance_sd
     for i, tube in enumerate(nb.recipe.tubes):
-        r = rows[tube]
+        k = row[tube]
         t.add_row(
             S(tube),
             *(fmt.volume(nb.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
-            f"{r['absorbance']:.3f} ± {r['absorbance_sd']:.3f}",
+            f"{a.state.absorbance[k]:.3f} ± {sd[k]:.3f}",
         )
     out.print(t)
     target = S(p.target)
@@ -184,11 +186,11 @@ def _print_next(p, nb) -> None:
         f"these; with an evenly spaced batch instead: {fmt.sig(nb.se_after_even, 2)} (these are "
         f"×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})"
     )
-    bad = [c for c in nb.assessment.summary()["checks"] if c["status"] != "pass"]
+    bad = [c for c in nb.assessment.checks if c.status != "pass"]
     if bad:
         out.print("checks of all tubes together:")
         for c in bad:
-            out.print(f"  [yellow]{c['status']}[/yellow] {S(c['id'])}: {S(c['message'])}")
+            out.print(f"  [yellow]{c.status}[/yellow] {S(c.id)}: {S(c.message)}")
     else:
         out.print("every check passes for all tubes together")
 
@@ -204,16 +206,16 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
     from ..paper import fmt
 
     d = design_titration(compile_study(p), additions=additions, robust=robust)
-    summary = d.summary()
+    text = dump_json(d)
     if out_dir is not None:
         write_atomic_many(
             {
                 out_dir / "schedule.csv": schedule_to_csv(d.schedule),
-                out_dir / "design.json": dump_json(summary) + "\n",
+                out_dir / "design.json": text + "\n",
             }
         )
     if as_json:
-        print(dump_json(summary))
+        print(text)
         return
     t = d.study.bench.titration
     out.print(f"[bold]{S(p.title)}[/bold] — titration schedule")
@@ -226,7 +228,7 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
     tab = Table(title="Designed schedule")
     for c in ("step", "aliquot / mL", "added so far / mL", "cell / mL", "A ± sd"):
         tab.add_column(c, justify="right")
-    rows = summary["tubes"]
+    a, sd = d.assessment.state.absorbance, d.assessment.absorbance_sd
     cell_dec = max(fmt.step_decimals(t.step_mL), fmt.step_decimals(t.start_volume_mL))
     for i, step in enumerate(d.schedule.steps):
         tab.add_row(
@@ -234,7 +236,7 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
             fmt.volume(d.schedule.aliquot_mL[i], t.step_mL),
             fmt.volume(d.schedule.added_mL[i], t.step_mL),
             f"{t.start_volume_mL + d.schedule.added_mL[i]:.{cell_dec}f}",
-            f"{rows[i]['absorbance']:.3f} ± {rows[i]['absorbance_sd']:.3f}",
+            f"{a[i]:.3f} ± {sd[i]:.3f}",
         )
     out.print(tab)
     ratio = d.se_ratio_vs_equal

@@ -67,7 +67,7 @@ def fit(
     check_absorbances(data.absorbance, data.recipe.tubes, str(readings))
     f = fit_study(study, data, exclude=skip, keep_out_of_range=keep_out_of_range)
     if as_json:
-        print(dump_json(f.summary()))
+        print(dump_json(f))
     else:
         _print_fit(f, plan, readings, skip)
     if not f.determined:
@@ -99,7 +99,7 @@ def _fit_spectra(p, study, paths: tuple[Path, Path], recipe: Path | None, skip, 
         html = report.suffix.lower() in (".html", ".htm")
         write_atomic_bytes(report, fit_report(p, f, kind="html" if html else "pdf"))
     if as_json:
-        print(dump_json(f.summary()))
+        print(dump_json(f))
     else:
         _print_spectra_fit(f)
         if report is not None:

@@ -3,6 +3,7 @@ likely mix-up."""
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 from typing import Annotated
 
@@ -55,62 +56,67 @@ def grade(
     p = load_plan(plan)
     study = compile_study(p)
     g = grade_class(study, read_key(key_dir, p), read_results(results))
-    summary = g.summary()
     if out_dir is not None:
         report_name = "grades.html" if html else "grades.pdf"
         # one unit: every file is made before any is written, so a failure leaves none
-        report = grade_report(summary, paper=paper, fmt_="html" if html else "pdf")
+        report = grade_report(g, paper=paper, fmt_="html" if html else "pdf")
         write_atomic_many(
             {
-                out_dir / "grades.csv": grades_csv(summary),
-                out_dir / "grades.xlsx": grades_xlsx(summary),
+                out_dir / "grades.csv": grades_csv(g),
+                out_dir / "grades.xlsx": grades_xlsx(g),
                 out_dir / report_name: report,
             }
         )
     if as_json:
-        print(dump_json(summary))
+        print(dump_json(g))
         return
-    _print_grade(g, summary)
+    _print_grade(g)
     if out_dir is not None:
         out.print(f"wrote {S(out_dir / 'grades.csv')}, {S(out_dir / 'grades.xlsx')} and the class report")
 
 
-def _print_grade(g, summary: dict) -> None:
+def _finite(x) -> float | None:
+    x = float(x) if x is not None else float("nan")
+    return x if math.isfinite(x) else None
+
+
+def _print_grade(g) -> None:
     from rich.table import Table
 
     from ..paper import fmt
 
     out.print(f"[bold]{S(g.title)}[/bold] — {plural(len(g.students), 'student')}")
-    pooled = summary["pooled"]
-    if pooled is not None:
-        for prm in pooled["parameters"]:
-            ci = prm.get("profile_ci95")
+    if g.pooled is not None:
+        for prm in g.pooled_parameters:
+            ci = prm.profile_ci95 if prm.is_target else None
+            ci = (_finite(ci[0]), _finite(ci[1])) if ci is not None else None
             out.print(
-                f"class {S(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
+                f"class {S(prm.name)} = {fmt.sig(_finite(prm.estimate), 5)} ± {fmt.sig(_finite(prm.se), 2)}"
                 + (f" (95 % {fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)})" if ci and None not in ci else "")
-                + f"; the plan guessed {fmt.sig(prm['guess'], 4)}"
+                + f"; the plan guessed {fmt.sig(prm.guess, 4)}"
             )
-        out.print(f"from {plural(pooled['students'], 'student')}; {S(pooled['chi2_verdict'])}")
-        if summary["key_note"]:
-            out.print(f"[yellow]{S(summary['key_note'])}[/yellow]")
+        out.print(f"from {plural(int(g.pooled.used.sum()), 'student')}; {S(g.pooled_chi2_verdict)}")
+        if g.key_note:
+            out.print(f"[yellow]{S(g.key_note)}[/yellow]")
     else:
         out.print("[yellow]no student's readings could be pooled: judged against the plan's guess[/yellow]")
     t = Table(title="Students")
     for c in ("student", "name", "verdict", "in key band", "in class band", "own log β", "likely mix-up"):
         t.add_column(c)
-    for s in summary["students"]:
-        own = s["own_fit"]
-        verdict = s["verdict"] if s["verdict"] != "flagged" else "[red]flagged[/red]"
-        why = s["explanation"] or ""
-        if why == "unexplained" and s["candidate"]:
-            why = f"unexplained (candidate: {s['candidate']})"
+    for s in g.students:
+        own = s.own
+        verdict = s.verdict if s.verdict != "flagged" else "[red]flagged[/red]"
+        why = s.explanation or ""
+        if why == "unexplained" and s.candidate:
+            why = f"unexplained (candidate: {s.candidate})"
+        n = int(s.in_band.size)
         t.add_row(
-            S(s["student"]),
-            S(s["name"]),
+            S(s.card.student),
+            S(s.card.name),
             verdict,
-            f"{s['tubes_in_band']}/{s['tubes']}",
-            f"{s['tubes_in_class_band']}/{s['tubes']}",
-            f"{fmt.sig(own['log_beta'], 4)} ± {fmt.sig(own['se'], 2)}" if own else "—",
+            f"{s.tubes_in_band}/{n}",
+            f"{s.tubes_in_class_band}/{n}",
+            f"{fmt.sig(_finite(own[0]), 4)} ± {fmt.sig(_finite(own[1]), 2)}" if own is not None else "—",
             S(why),
         )
     out.print(t)

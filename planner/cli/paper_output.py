@@ -15,8 +15,9 @@ MAX_DESIGN_JSON_BYTES = 1_000_000  # a design.json is a few kB
 _DESIGN_KEYS = {"criterion": (str,), "efficiency_bound": (int, float), "se_ratio_vs_even": (int, float)}
 
 
-def read_design_json(path: Path) -> dict:
-    """The summary written by ``kplan design --out``, checked for what the report shows of it.
+def read_design_json(path: Path):
+    """What the report shows of the ``design.json`` written by ``kplan design --out``
+    (:class:`planner.paper.sheets.DesignFacts`), checked.
 
     Raises
     ------
@@ -54,7 +55,9 @@ def read_design_json(path: Path) -> dict:
                 f"{'string' if types == (str,) else 'number'}: "
                 "give the design.json kplan design wrote"
             )
-    return data
+    from ..paper.sheets import DesignFacts
+
+    return DesignFacts.from_json(data)
 
 
 PAPER_CHOICES = tuple(PAPERS)  # the same keys as planner.paper.render.PAPERS (one definition)
@@ -86,7 +89,7 @@ def _paper_output(
     fmt_ = "html" if html else "pdf"
     # every input and the output path are checked before the Monte Carlo, which may take a while
     check_output_file(out_path, inputs=(plan, recipe, design_json))
-    design_summary = read_design_json(design_json) if design_json is not None else None
+    design_facts = read_design_json(design_json) if design_json is not None else None
     p = load_plan(plan)
     study = compile_study(p)
     r = read_points(recipe, p, study)
@@ -108,6 +111,6 @@ def _paper_output(
     elif kind == "sheet":
         data = render_sheet(p, r, a, stock_needs(p, r), paper=paper, fmt=fmt_, order=p.glassware.order)
     else:
-        data = render_report(p, r, a, design=design_summary, paper=paper, fmt=fmt_)
+        data = render_report(p, r, a, design=design_facts, paper=paper, fmt=fmt_)
     write_atomic_bytes(out_path, data)
     out.print(f"wrote {S(out_path)} ({len(data) / 1024:.0f} kB, {paper})")

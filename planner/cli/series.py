@@ -145,7 +145,7 @@ def series(
 
         given = read_recipe_csv(recipe, p)
     r = _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given)
-    text = dump_json(r.summary())
+    text = dump_json(r)
     if out_dir is not None:
         _write(out_dir, r, p, text)
     if as_json:
@@ -218,7 +218,7 @@ def print_series(r, p) -> None:
         for c in r.checks:
             out.print(f"[{col[c.status]}]{S(c.id)}[/]: {S(c.message)}")
         return
-    rows = a.tube_rows()
+    sd = a.absorbance_sd
     dispensed = r.recipe.dispensed_ids(p)
     step = p.glassware.step_mL
     t = Table(title="Tubes")
@@ -226,8 +226,8 @@ def print_series(r, p) -> None:
         t.add_column(c, justify="right")
     lo, hi = a.model.linear_range
     for i, tube in enumerate(r.recipe.tubes):
-        A = rows[i]["absorbance"]
-        a_txt = f"{A:.3f} ± {rows[i]['absorbance_sd']:.3f}"
+        A = float(a.state.absorbance[i])
+        a_txt = f"{A:.3f} ± {sd[i]:.3f}"
         if not lo <= A <= hi:
             a_txt = f"[red]{a_txt} out[/red]"
         t.add_row(

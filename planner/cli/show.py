@@ -27,14 +27,14 @@ def print_assessment(a, p) -> None:  # noqa: C901
         for c in ("parameter", "guess", "assumed true", "SE (Cramér–Rao)", "MC sd", "MC bias", "MC 95 %"):
             t.add_column(c, justify="right")
         for q in a.parameters:
-            ci = q.get("mc_ci95")
+            ci = (_finite(q.mc_ci95[0]), _finite(q.mc_ci95[1])) if q.mc_ci95 is not None else None
             t.add_row(
-                S(q["name"]),
-                fmt.sig(q["guess"], 4),
-                fmt.sig(q["true"], 4),
-                fmt.sig(q["se"], 2),
-                fmt.sig(q.get("mc_sd"), 2),
-                fmt.sig(q.get("mc_bias"), 2),
+                S(q.name),
+                fmt.sig(q.guess, 4),
+                fmt.sig(q.true, 4),
+                fmt.sig(_finite(q.se), 2),
+                fmt.sig(_finite(q.mc_sd), 2),
+                fmt.sig(_finite(q.mc_bias), 2),
                 f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—",
             )
         out.print(t)
@@ -94,13 +94,13 @@ def print_assessment(a, p) -> None:  # noqa: C901
         "I / M",
     ):
         t.add_column(c, justify="right")
-    rows = a.tube_rows()
+    sd = a.absorbance_sd
     lo, hi = m.linear_range
     step = volume_step_mL(p)
     st = a.state
     for i, tube in enumerate(r.tubes):
-        A = rows[i]["absorbance"]
-        a_txt = f"{A:.3f} ± {rows[i]['absorbance_sd']:.3f}"
+        A = float(st.absorbance[i])
+        a_txt = f"{A:.3f} ± {sd[i]:.3f}"
         if not lo <= A <= hi:
             a_txt = f"[red]{a_txt} out[/red]"
         t.add_row(
@@ -118,7 +118,6 @@ def print_assessment(a, p) -> None:  # noqa: C901
 
 def print_design(d, p) -> None:
     """The designed recipe, its promise and the comparison with an evenly spaced series."""
-    s = d.summary()
     out.print(f"[bold]{S(p.title)}[/bold] — design")
     vcol = {"resolved": "green", "bounded": "yellow", "unresolved": "red"}
     if d.verdict:
@@ -135,12 +134,14 @@ def print_design(d, p) -> None:
     dispensed = d.recipe.dispensed_ids(p)
     for c in ("tube", *(f"{S(x)} / mL" for x in dispensed), "A ± sd", "saturation"):
         t.add_column(c, justify="right")
-    for i, row in enumerate(s["tubes"]):
+    da = d.assessment
+    sd = da.absorbance_sd
+    for i, tube in enumerate(da.recipe.tubes):
         t.add_row(
-            S(row["tube"]),
+            S(tube),
             *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
-            f"{row['absorbance']:.3f} ± {row['absorbance_sd']:.3f}",
-            f"{row['saturation']:.2f}",
+            f"{da.state.absorbance[i]:.3f} ± {sd[i]:.3f}",
+            f"{da.state.saturation[i]:.2f}",
         )
     out.print(t)
     target = S(p.target)
@@ -173,9 +174,9 @@ def print_design(d, p) -> None:
     mc = d.model_check
     if mc is not None:
         _print_model_check(mc, target)
-    bad = [c for c in s["checks"] if c["status"] != "pass"]
-    for c in bad:
-        out.print(f"[yellow]{S(c['id'])}[/yellow]: {S(c['message'])}")
+    for c in da.checks:
+        if c.status != "pass":
+            out.print(f"[yellow]{S(c.id)}[/yellow]: {S(c.message)}")
 
 
 def _print_model_check(mc, target: str) -> None:
@@ -223,10 +224,9 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
         conc = S(", ".join(f"{k} {fmt.conc(v)}" for k, v in s.conc.items()) or "—")
         # the same words as the prep sheet: every solute the stock's conc and ions imply, solvent, flask,
         # what sets the mass; then, for the author, how to weigh less
-        summary = n.summary()
-        lines, _ = prep_lines(p, n.id, summary)
+        lines, _ = prep_lines(p, n.id, n)
         how = S(" ".join(lines))
-        advice = mass_advice_text(summary)
+        advice = mass_advice_text(n)
         if advice:
             how += f" [cyan]{S(advice)}[/cyan]"
         if n.scarce:
@@ -264,36 +264,40 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
         out.print(t)
 
 
-def print_spectra(summary: dict, target: str, wavelength_nm: float = float("nan")) -> None:
-    """The whole-spectrum part of an assessment or design: against the best single wavelength, where the
-    information lies, and what a factor analysis would see."""
-    sp = summary.get("spectra")
-    if not sp:
+def _finite(x) -> float | None:
+    """A finite float, or None (shown as "—")."""
+    x = float(x) if x is not None else float("nan")
+    return x if math.isfinite(x) else None
+
+
+def print_spectra(sp, target: str, wavelength_nm: float = float("nan")) -> None:
+    """The whole-spectrum part of an assessment or design (its ``spectra`` facts, or None: nothing to
+    print): against the best single wavelength, where the information lies, and what a factor analysis
+    would see."""
+    if sp is None:
         return
-    lo, hi = sp["window_nm"]
+    w = sp.wavelength_nm
     t = S(target)
     out.print(
-        f"Whole spectra: {sp['wavelengths']} wavelengths {lo:g}–{hi:g} nm, {sp['readings_used']} of "
-        f"{sp['readings']} readings used; fitted spectra: {S(', '.join(sp['fitted_spectra'])) or 'none'}"
+        f"Whole spectra: {w.size} wavelengths {w[0]:g}–{w[-1]:g} nm, {sp.readings_used} of "
+        f"{sp.readings} readings used; fitted spectra: {S(', '.join(sp.fitted_spectra)) or 'none'}"
     )
-    best = sp.get("best_single_wavelength_nm")
-    ratio = sp.get("se_ratio_single_over_spectrum")
+    best = sp.best_single_wavelength_nm
+    ratio = _finite(sp.se_ratio_single_over_spectrum)
+    whole = _finite(sp.se_whole_spectrum)
     if best is not None and ratio is not None:
         out.print(
-            f"SE(log β[{t}]) from every wavelength: [bold]{fmt.sig(sp['se_whole_spectrum'], 2)}[/bold]; "
-            f"from the "
-            f"best single wavelength ({best:g} nm): {fmt.sig(sp['se_best_single_wavelength'], 2)} "
+            f"SE(log β[{t}]) from every wavelength: [bold]{fmt.sig(whole, 2)}[/bold]; from the "
+            f"best single wavelength ({best:g} nm): {fmt.sig(_finite(sp.se_best_single_wavelength), 2)} "
             f"(×{fmt.sig(ratio, 2)} {'better' if ratio >= 1 else 'worse'} with the whole spectrum)"
         )
-    alone = sp.get("se_single_wavelength_design")
+    alone = _finite(sp.se_single_wavelength_design) if sp.with_single_design else None
     if alone is not None:
         out.print(
             f"A design for one wavelength ({wavelength_nm:g} nm) alone would reach SE {fmt.sig(alone, 2)} "
-            f"there; "
-            f"this one, read as whole spectra: {fmt.sig(sp['se_whole_spectrum'], 2)}"
+            f"there; this one, read as whole spectra: {fmt.sig(whole, 2)}"
         )
-    rows = sp["by_wavelength"]
-    if rows:
+    if w.size:
         tab = Table(title=f"Where the information about log β[{t}] lies")
         for c in (
             "wavelength / nm",
@@ -301,20 +305,19 @@ def print_spectra(summary: dict, target: str, wavelength_nm: float = float("nan"
             "SE from that wavelength alone",
         ):
             tab.add_column(c, justify="right")
-        picks = np.unique(np.linspace(0, len(rows) - 1, min(11, len(rows))).round().astype(int))
+        picks = np.unique(np.linspace(0, w.size - 1, min(11, w.size)).round().astype(int))
         for k in picks:
-            r = rows[k]
-            share = r["information_share"]
+            share = _finite(sp.information_share[k]) if sp.information_share is not None else None
             tab.add_row(
-                f"{r['wavelength_nm']:g}",
+                f"{float(w[k]):g}",
                 f"{share * 100:.2f} %" if share is not None else "—",
-                fmt.sig(r["se_single"], 2) + ("" if r["eligible"] else " (out of range)"),
+                fmt.sig(_finite(sp.se_single[k]), 2) + ("" if sp.eligible[k] else " (out of range)"),
             )
         out.print(tab)
-    fa = sp.get("factors")
-    if fa and fa.get("found_share") is not None:
+    fa = sp.factors
+    if fa is not None and fa.found_share is not None:
         out.print(
-            f"Factor analysis of simulated data matrices: {fa['above_noise']} of the model's "
-            f"{fa['absorbing_species']} absorbing species stand above the noise; found in "
-            f"{fa['found_share']:.0%}"
+            f"Factor analysis of simulated data matrices: {fa.above_noise} of the model's "
+            f"{fa.absorbing_species} absorbing species stand above the noise; found in "
+            f"{fa.found_share:.0%}"
         )

@@ -38,6 +38,8 @@ def stocks(
     r = read_recipe_csv(recipe, p) if recipe else None
     needs = stock_needs(p, r, scarce=tuple(scarce or ()))
     if as_json:
-        print(dump_json({"title": p.title, "stocks": [n.summary() for n in needs]}))
+        from ..paper.json_out import stocks_json
+
+        print(dump_json(stocks_json(p.title, needs)))
         return
     print_stock_needs(p, needs, r is not None)

@@ -89,22 +89,6 @@ class ApproximateDesign:
         k = float(self.n_params) if self.criterion == "all" else 1.0
         return float(k / (k - self.bound + self.max_sensitivity))
 
-    def summary(self) -> dict:
-        """JSON-safe fields: support indices and weights, value, equivalence check."""
-        idx = self.support
-        return {
-            "criterion": self.criterion,
-            "target": self.target,
-            "support": [int(i) for i in idx],
-            "weights": [float(w) for w in self.weights[idx]],
-            "criterion_value": float(self.criterion_value),
-            "max_sensitivity": float(self.max_sensitivity),
-            "bound": float(self.bound),
-            "efficiency_lower_bound": self.efficiency_lower_bound,
-            "n_iter": int(self.n_iter),
-            "converged": bool(self.converged),
-        }
-
     def __repr__(self) -> str:
         idx = self.support
         pts = ", ".join(f"{i}: {w:.4f}" for i, w in zip(idx[:8], self.weights[idx[:8]], strict=True))

@@ -90,19 +90,6 @@ class Detection:
     dof: int
     trials: int
 
-    def summary(self) -> dict:
-        def f(x):
-            return float(x) if np.isfinite(x) else None
-
-        return {
-            "alternative": self.alternative,
-            "power": f(self.power),
-            "power_noise_free": f(self.power_noise_free),
-            "noncentrality": f(self.noncentrality),
-            "dof": self.dof,
-            "trials": self.trials,
-        }
-
 
 def detection_power(
     bench: Bench,

@@ -57,18 +57,6 @@ class ExactDesign:
     def n_tubes(self) -> int:
         return int(self.counts.sum())
 
-    def summary(self) -> dict:
-        """JSON-safe fields: support indices and counts, value, efficiency."""
-        idx = np.flatnonzero(self.counts)
-        return {
-            "support": [int(i) for i in idx],
-            "counts": [int(c) for c in self.counts[idx]],
-            "n_tubes": self.n_tubes,
-            "criterion_value": float(self.criterion_value),
-            "efficiency": float(self.efficiency),
-            "starts": int(self.starts),
-        }
-
     def __repr__(self) -> str:
         idx = np.flatnonzero(self.counts)
         pts = ", ".join(f"{i}: {c}" for i, c in zip(idx[:12], self.counts[idx[:12]], strict=True))

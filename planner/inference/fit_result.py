@@ -69,39 +69,6 @@ class FitResult:
     converged: np.ndarray
     status: np.ndarray | None = None
 
-    def summary(self) -> dict:
-        """Plain JSON-safe digest (lists, floats, ints; NaN and inf become None)."""
-        theta = np.atleast_2d(self.theta)
-        se = np.atleast_2d(self.se)
-        chi2 = np.atleast_1d(self.chi2)
-        conv = np.atleast_1d(self.converged)
-        n_iter = np.atleast_1d(self.n_iter)
-        good = theta[conv]
-        out: dict = {
-            "n_trials": int(theta.shape[0]),
-            "n_params": int(theta.shape[1]),
-            "dof": int(self.dof),
-            "n_converged": int(conv.sum()),
-            "n_iter_median": _json_float(np.median(n_iter)),
-            "n_iter_max": int(n_iter.max()),
-            "theta_mean": _json_list(good.mean(axis=0) if good.size else np.full(theta.shape[1], np.nan)),
-            "theta_sd": _json_list(
-                good.std(axis=0, ddof=1) if good.shape[0] > 1 else np.full(theta.shape[1], np.nan)
-            ),
-            "se_median": _json_list(
-                np.median(se[conv], axis=0) if good.size else np.full(theta.shape[1], np.nan)
-            ),
-            "chi2_median": _json_float(np.median(chi2[conv])) if good.size else None,
-        }
-        if self.status is not None:
-            codes, counts = np.unique(np.atleast_1d(self.status), return_counts=True)
-            out["status_counts"] = {str(int(c)): int(n) for c, n in zip(codes, counts, strict=True)}
-        if theta.shape[0] == 1:
-            out["theta"] = _json_list(theta[0])
-            out["se"] = _json_list(se[0])
-            out["chi2"] = _json_float(chi2[0])
-        return out
-
     def __repr__(self) -> str:
         theta = np.atleast_2d(self.theta)
         conv = np.atleast_1d(self.converged)
@@ -110,15 +77,6 @@ class FitResult:
             f"converged={int(conv.sum())}/{conv.size}, "
             f"median n_iter={float(np.median(np.atleast_1d(self.n_iter))):g})"
         )
-
-
-def _json_float(x) -> float | None:
-    x = float(x)
-    return x if np.isfinite(x) else None
-
-
-def _json_list(a) -> list:
-    return [_json_float(v) for v in np.asarray(a, dtype=float).ravel()]
 
 
 def _frozen(a) -> np.ndarray:

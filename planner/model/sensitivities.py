@@ -58,10 +58,6 @@ class Sensitivity:
     dfree_L_dMtot: np.ndarray
     dfree_L_dLtot: np.ndarray
 
-    def summary(self) -> dict:
-        """Plain JSON-safe values: every field as nested lists."""
-        return {name: np.asarray(value).tolist() for name, value in vars(self).items()}
-
     def __repr__(self) -> str:
         return (
             f"Sensitivity(batch shape {np.shape(self.dlnfree_M_dMtot)}, {np.shape(self.dc_dMtot)[-1]} "

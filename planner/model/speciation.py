@@ -62,16 +62,6 @@ class Speciation:
     M_tot_M: np.ndarray
     L_tot_M: np.ndarray
 
-    def summary(self) -> dict:
-        """Plain JSON-safe values: nested lists of concentrations in mol/L."""
-        return {
-            "free_M": np.asarray(self.free_M).tolist(),
-            "free_L": np.asarray(self.free_L).tolist(),
-            "species_M": np.asarray(self.species_M).tolist(),
-            "M_tot_M": np.asarray(self.M_tot_M).tolist(),
-            "L_tot_M": np.asarray(self.L_tot_M).tolist(),
-        }
-
     def __repr__(self) -> str:
         shape = np.shape(self.free_M)
         n_species = np.shape(self.species_M)[-1]

@@ -251,21 +251,27 @@ def key_rows(plan: Plan, cs: ClassSet) -> list[dict]:
     its acceptance band (±2 sd of the tube's full error budget), from each card's assessment."""
     rows = []
     for c in cs.cards:
-        for t in c.assessment.tube_rows():
-            a, sd = t["absorbance"], t["absorbance_sd"]
+        r = c.assessment.recipe
+        vols = r.volumes_mL.tolist()
+        for i, (t, a, sd) in enumerate(_tube_bands(c.assessment)):
             rows.append(
                 {
                     "student": c.student,
                     "name": c.name,
                     "section": c.section,
-                    "tube": t["tube"],
-                    "volumes_mL": t["volumes_mL"],
+                    "tube": t,
+                    "volumes_mL": dict(zip(r.stock_ids, vols[i], strict=True)),
                     "absorbance": a,
                     "band_low": a - BAND_SD * sd,
                     "band_high": a + BAND_SD * sd,
                 }
             )
     return rows
+
+
+def _tube_bands(a) -> list[tuple[str, float, float]]:
+    """(tube, expected absorbance, its sd from every error source) of an assessment's tubes."""
+    return list(zip(a.recipe.tubes, a.state.absorbance.tolist(), a.absorbance_sd.tolist(), strict=True))
 
 
 def key_csv(plan: Plan, cs: ClassSet) -> str:
@@ -338,8 +344,7 @@ def _key_students(plan: Plan, cs: ClassSet) -> list[dict]:
     students = []
     for c in cs.cards:
         cells = []
-        for t in c.assessment.tube_rows():
-            a, sd = t["absorbance"], t["absorbance_sd"]
+        for _, a, sd in _tube_bands(c.assessment):
             cells.append(
                 {
                     "a": fmt.fixed(a, 0.001),
@@ -403,7 +408,7 @@ def _key_notes(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...]) -> list
     from .stock_text import plan_notes
 
     notes = list(cs.notes)
-    notes.extend(plan_notes(plan, [n.summary() for n in stock_needs(plan)]))
+    notes.extend(plan_notes(plan, stock_needs(plan)))
     for r in safety.hazards_for(plan):
         if r.hazards is None and r.message:
             notes.append(f"safety: {r.message}")

@@ -22,10 +22,10 @@ def _how(plan: Plan, s: ClassStock) -> tuple[list[str], list[str]]:
     """(instructions, warnings) for the class's batch: the prep sheet's own sentences."""
     if s.need is None:
         return ["not used by any card"], []
-    need = s.need.summary()
+    need = s.need
     lines, warns = prep_lines(plan, s.id, need)
-    basis = need.get("mass_set_by")
-    if basis and basis["set_by"] in ("flask", "recipe"):  # the class's flask, not the plan's recipe
+    basis = need.mass_basis
+    if basis and basis.set_by in ("flask", "recipe"):  # the class's flask, not the plan's recipe
         said = mass_basis_text(need)
         whole = f"{s.batches} × {s.need.flask_mL:g} mL" if s.batches > 1 else f"{s.need.flask_mL:g} mL"
         lines = [

@@ -88,14 +88,14 @@ def _draw(prefix: str, paint) -> str:
 # --------------------------------------------------------------------------------------------------
 # expected absorbance of each tube in the linear range
 # --------------------------------------------------------------------------------------------------
-def absorbance_svg(tubes: list[dict], linear_range: tuple[float, float], *, prefix: str = "fa") -> str:
-    """Each tube's expected absorbance with a ±2 sd bar, over the linear-range band.
-
-    ``tubes`` are the assessment summary's tube rows (keys "tube", "absorbance", "absorbance_sd").
-    """
-    labels = [_plain(t["tube"]) for t in tubes]
-    a = np.array([t["absorbance"] for t in tubes], dtype=float)
-    sd = np.array([t["absorbance_sd"] for t in tubes], dtype=float)
+def absorbance_svg(
+    tubes, absorbance, absorbance_sd, linear_range: tuple[float, float], *, prefix: str = "fa"
+) -> str:
+    """Each tube's expected absorbance with a ±2 sd bar, over the linear-range band (``tubes`` the labels,
+    ``absorbance`` and ``absorbance_sd`` one value per tube)."""
+    labels = [_plain(t) for t in tubes]
+    a = np.array(absorbance, dtype=float)
+    sd = np.array(absorbance_sd, dtype=float)
     lo, hi = linear_range
     x = np.arange(len(a))
     inside = (a >= lo) & (a <= hi)

@@ -7,10 +7,14 @@ fixed zip and document timestamps, so the same inputs give the same bytes.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ..inputs.tables import write_csv
 from ..inputs.text import plural
+from ..jobs.classroom.grade import ClassGrade
+from ..jobs.classroom.grade_text import pretty
 from . import fmt
 from .figures import ACCENT, BAND, INK, WARN, _draw
 from .workbook import append_row, stable_xlsx
@@ -35,27 +39,39 @@ GRADE_COLUMNS = (
 )
 
 
-def grade_rows(summary: dict) -> list[list]:
+def _f(x) -> float | None:
+    """A finite float, or None."""
+    x = float(x) if x is not None else float("nan")
+    return x if math.isfinite(x) else None
+
+
+def _blank(x) -> float | str:
+    """A number for a table cell, "" where it is missing or not finite."""
+    v = _f(x)
+    return "" if v is None else v
+
+
+def grade_rows(g: ClassGrade) -> list[list]:
     """One row per student, in ``GRADE_COLUMNS`` order (numbers as numbers, blanks as "")."""
     out = []
-    for s in summary["students"]:
-        own = s["own_fit"] or {}
+    for s in g.students:
+        own = s.own
         out.append(
             [
-                s["student"],
-                s["name"],
-                s["section"],
-                s["verdict"],
-                s["tubes_in_band"],
-                s["tubes"],
-                s["chi2"] if s["chi2"] is not None else "",
-                s["p_value"] if s["p_value"] is not None else "",
-                own.get("log_beta", ""),
-                own.get("se", ""),
-                s["explanation"] or "",
-                s.get("tubes_in_class_band", ""),
-                s.get("judged_against") or "",
-                s.get("candidate") or "",
+                s.card.student,
+                s.card.name,
+                s.card.section,
+                s.verdict,
+                s.tubes_in_band,
+                int(s.in_band.size),
+                _blank(s.chi2),
+                _blank(s.p_value),
+                _f(own[0]) if own is not None else "",
+                _f(own[1]) if own is not None else "",
+                s.explanation or "",
+                s.tubes_in_class_band,
+                s.judged_against or "",
+                s.candidate or "",
             ]
         )
     return out
@@ -67,9 +83,9 @@ def _cell(v) -> str:
     return str(v)
 
 
-def grades_csv(summary: dict) -> str:
+def grades_csv(g: ClassGrade) -> str:
     """``grades.csv``: one row per student; every text cell is data, never a spreadsheet formula."""
-    return write_csv(GRADE_COLUMNS, ([_cell(v) for v in row] for row in grade_rows(summary)))
+    return write_csv(GRADE_COLUMNS, ([_cell(v) for v in row] for row in grade_rows(g)))
 
 
 POOLED_COLUMNS = (
@@ -96,7 +112,7 @@ READING_COLUMNS = (
 )
 
 
-def grades_xlsx(summary: dict) -> bytes:
+def grades_xlsx(g: ClassGrade) -> bytes:
     """The grade book as an XLSX workbook: sheet "grades", "pooled" with the class's constants beside the
     guess, and "readings" with every reading against the key's band and the class's; numbers as numbers,
     every text as text (never a formula)."""
@@ -106,61 +122,55 @@ def grades_xlsx(summary: dict) -> bytes:
     ws = wb.active
     ws.title = "grades"
     append_row(ws, list(GRADE_COLUMNS))
-    for row in grade_rows(summary):
+    for row in grade_rows(g):
         append_row(ws, row)
     ps = wb.create_sheet("pooled")
     append_row(ps, list(POOLED_COLUMNS))
-    for p in (summary.get("pooled") or {}).get("parameters", []):
-        ci = p.get("profile_ci95") or [None, None]
+    for p in g.pooled_parameters:
+        ci = (p.profile_ci95 if p.is_target else None) or (None, None)
         append_row(
-            ps,
-            [
-                p["name"],
-                p["estimate"],
-                p["se"],
-                ci[0],
-                ci[1],
-                p.get("guess"),
-                p.get("guess_sd"),
-                p.get("off_by"),
-            ],
+            ps, [p.name, _f(p.estimate), _f(p.se), _f(ci[0]), _f(ci[1]), p.guess, p.guess_sd, _f(p.off_by)]
         )
     rs = wb.create_sheet("readings")
     append_row(rs, list(READING_COLUMNS))
-    for s in summary["students"]:
-        for r in s.get("readings", []):
+    for s in g.students:
+        c = s.card
+        columns = (c.recipe.tubes, s.absorbance, c.expected, c.band_low, c.band_high)
+        for t, a, e, lo, hi, ce, cl, ch, ic in zip(
+            *columns, s.class_expected, s.class_band_low, s.class_band_high, s.in_class_band, strict=True
+        ):
             append_row(
-                rs,
-                [s["student"], r["tube"], r["absorbance"], r["expected"], r["band_low"], r["band_high"]]
-                + [r["class_expected"], r["class_band_low"], r["class_band_high"], r["in_class_band"]],
+                rs, [s.card.student, t, _f(a), _f(e), _f(lo), _f(hi), _f(ce), _f(cl), _f(ch), bool(ic)]
             )
     return stable_xlsx(wb)
 
 
-def readings_svg(summary: dict, *, against: str = "class", prefix: str = "fg") -> str:
+def _plotted_readings(g: ClassGrade, against: str):
+    """(expected, reading, band low, band high, flagged) of every reading the figure shows: the readings
+    of students whose numbers are absorbances, where both the reading and its expected value exist."""
+    parts: list[list[np.ndarray]] = [[], [], [], [], []]
+    for s in g.students:
+        a = np.asarray(s.absorbance, dtype=float)
+        if np.any(np.abs(np.nan_to_num(a)) > NOT_ABSORBANCE):
+            continue  # a student whose numbers are not absorbances (%T, typos)
+        if against == "class":
+            e, lo, hi = s.class_expected, s.class_band_low, s.class_band_high
+        else:
+            e, lo, hi = s.card.expected, s.card.band_low, s.card.band_high
+        e, lo, hi = (np.asarray(x, dtype=float) for x in (e, lo, hi))
+        keep = np.isfinite(a) & np.isfinite(e)
+        for out, x in zip(parts, (e, a, lo, hi, np.full(a.size, s.verdict == "flagged")), strict=True):
+            out.append(np.asarray(x, dtype=float)[keep])
+    return tuple(np.concatenate(x) if x else np.zeros(0) for x in parts)
+
+
+def readings_svg(g: ClassGrade, *, against: str = "class", prefix: str = "fg") -> str:
     """Every student's reading against the value expected for it — at the class's constants (``against =
     "class"``, with the bands recomputed there) or by the key made at the plan's guess (``"key"``) — with
     each tube's ±2 sd band; flagged students in red."""
-    exp_key, lo_key, hi_key = (
-        ("class_expected", "class_band_low", "class_band_high")
-        if against == "class"
-        else ("expected", "band_low", "band_high")
-    )
 
     def paint(fig, ax):
-        exp, got, lo, hi, flag = [], [], [], [], []
-        for s in summary["students"]:
-            if any(abs(r["absorbance"] or 0.0) > NOT_ABSORBANCE for r in s["readings"]):
-                continue  # a student whose numbers are not absorbances (%T, typos)
-            for r in s["readings"]:
-                if r["absorbance"] is None or r[exp_key] is None:
-                    continue
-                exp.append(r[exp_key])
-                got.append(r["absorbance"])
-                lo.append(r[lo_key] if r[lo_key] is not None else np.nan)
-                hi.append(r[hi_key] if r[hi_key] is not None else np.nan)
-                flag.append(s["verdict"] == "flagged")
-        exp, got, lo, hi, flag = (np.array(x, dtype=float) for x in (exp, got, lo, hi, flag))
+        exp, got, lo, hi, flag = _plotted_readings(g, against)
         if exp.size:
             order = np.argsort(exp)
             ax.fill_between(exp[order], lo[order], hi[order], color=BAND, lw=0, label="±2 sd band")
@@ -180,95 +190,102 @@ def readings_svg(summary: dict, *, against: str = "class", prefix: str = "fg") -
     return _draw(prefix, paint)
 
 
-def _pooled_rows(pooled: dict | None) -> list[dict]:
+def _pooled_rows(g: ClassGrade) -> list[dict]:
     rows = []
-    for p in (pooled or {}).get("parameters", []):
-        ci = p.get("profile_ci95")
-        is_lb = p["name"].startswith("log_beta")
+    for p in g.pooled_parameters:
+        ci = p.profile_ci95 if p.is_target else None
+        is_lb = p.name.startswith("log_beta")
         guess = (
-            f"{fmt.sig(p['guess'], 3)} ± {fmt.sig(p['guess_sd'], 2)}"
+            f"{fmt.sig(p.guess, 3)} ± {fmt.sig(p.guess_sd, 2)}"
             if is_lb
-            else f"{fmt.sig(p['guess'], 3)} ± {fmt.sig(100 * p['guess_sd'] / p['guess'], 2)} %"
+            else f"{fmt.sig(p.guess, 3)} ± {fmt.sig(100 * p.guess_sd / p.guess, 2)} %"
         )
+        est, off = _f(p.estimate), _f(p.off_by)
         rows.append(
             {
-                "name": p["name"].replace("log_beta[", "log β(").replace("epsilon[", "ε(").replace("]", ")"),
-                "estimate": fmt.sig(p["estimate"], 5),
-                "se": fmt.sig(p["se"], 2),
-                "ci": (f"{fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)}" if ci and None not in ci else "—"),
+                "name": pretty(p.name),
+                "estimate": fmt.sig(est, 5),
+                "se": fmt.sig(_f(p.se), 2),
+                "ci": (
+                    f"{fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)}"
+                    if ci and None not in (_f(ci[0]), _f(ci[1]))
+                    else "—"
+                ),
                 "guess": guess,
                 "off": (
-                    f"{p['off_by']:+.2f} ({abs(p['off_by_sd'] or 0):.1f} sd)"
+                    f"{off:+.2f} ({abs(_f(p.off_by_sd) or 0):.1f} sd)"
                     if is_lb
-                    else f"{100 * p['off_by'] / p['guess']:+.1f} %"
+                    else f"{100 * off / p.guess:+.1f} %"
                 ),
             }
         )
     return rows
 
 
-def _student_rows(summary: dict) -> list[dict]:
+def _student_rows(g: ClassGrade) -> list[dict]:
     rows = []
-    for s in summary["students"]:
-        own = s["own_fit"]
-        why = s["explanation"] or ""
-        if why == "unexplained" and s.get("candidate"):
-            why = f"unexplained (candidate: {s['candidate']})"
+    for s in g.students:
+        own = s.own
+        why = s.explanation or ""
+        if why == "unexplained" and s.candidate:
+            why = f"unexplained (candidate: {s.candidate})"
+        n = int(s.in_band.size)
+        chi2 = _f(s.chi2)
         rows.append(
             {
-                "student": s["student"],
-                "name": s["name"],
-                "section": s["section"],
-                "verdict": s["verdict"],
-                "band": f"{s['tubes_in_band']} / {s['tubes']}",
-                "class_band": f"{s['tubes_in_class_band']} / {s['tubes']}",
-                "chi2": fmt.sig(s["chi2"], 3) if s["chi2"] is not None else "—",
-                "own": (f"{fmt.sig(own['log_beta'], 4)} ± {fmt.sig(own['se'], 2)}" if own else "—"),
+                "student": s.card.student,
+                "name": s.card.name,
+                "section": s.card.section,
+                "verdict": s.verdict,
+                "band": f"{s.tubes_in_band} / {n}",
+                "class_band": f"{s.tubes_in_class_band} / {n}",
+                "chi2": fmt.sig(chi2, 3) if chi2 is not None else "—",
+                "own": (f"{fmt.sig(_f(own[0]), 4)} ± {fmt.sig(_f(own[1]), 2)}" if own is not None else "—"),
                 "explanation": why,
             }
         )
     return rows
 
 
-def grade_context(summary: dict, *, date: str, paper: str) -> dict:
+def grade_context(g: ClassGrade, *, date: str, paper: str) -> dict:
     """Template context of the class report (plain values only)."""
     from markupsafe import Markup
 
-    pooled = summary.get("pooled")
+    cm = g.pooled
     facts = [
-        ("Students", str(len(summary["students"]))),
-        ("Flagged", str(sum(s["verdict"] == "flagged" for s in summary["students"]))),
-        ("Incomplete", str(sum(s["verdict"] == "incomplete" for s in summary["students"]))),
+        ("Students", str(len(g.students))),
+        ("Flagged", str(sum(s.verdict == "flagged" for s in g.students))),
+        ("Incomplete", str(sum(s.verdict == "incomplete" for s in g.students))),
     ]
-    if pooled is not None:
+    if cm is not None:
         facts.append(
-            ("Class fit from", f"{plural(pooled['students'], 'student')}, {plural(pooled['tubes'], 'tube')}")
+            ("Class fit from", f"{plural(int(cm.used.sum()), 'student')}, {plural(cm.tubes, 'tube')}")
         )
-    judged = summary.get("judged_against") == "class"
+    judged = g.judged_against == "class"
     return {
-        "title": summary["title"],
+        "title": g.title,
         "date": date,
         "paper": paper,
-        "target": summary["target"],
+        "target": g.target,
         "facts": facts,
-        "pooled": pooled,
-        "pooled_rows": _pooled_rows(pooled),
-        "pooled_verdict": (pooled or {}).get("chi2_verdict", ""),
-        "guess_note": summary.get("guess_note", ""),
-        "key_note": summary.get("key_note", ""),
+        "pooled": cm is not None,
+        "pooled_rows": _pooled_rows(g),
+        "pooled_verdict": g.pooled_chi2_verdict,
+        "guess_note": g.guess_note,
+        "key_note": g.key_note,
         "judged_against_class": judged,
-        "excluded": summary["excluded"],
-        "unknown": summary["unknown_students"],
-        "rows": _student_rows(summary),
-        "figure_class": Markup(readings_svg(summary, against="class", prefix="fc")) if judged else "",
-        "figure_key": Markup(readings_svg(summary, against="key", prefix="fk")),
+        "excluded": [{"student": s, "reason": r} for s, r in g.excluded],
+        "unknown": list(g.unknown),
+        "rows": _student_rows(g),
+        "figure_class": Markup(readings_svg(g, against="class", prefix="fc")) if judged else "",
+        "figure_key": Markup(readings_svg(g, against="key", prefix="fk")),
     }
 
 
-def grade_report(summary: dict, *, paper: str = "A4", fmt_: str = "pdf", date=None) -> bytes:
+def grade_report(g: ClassGrade, *, paper: str = "A4", fmt_: str = "pdf", date=None) -> bytes:
     """The class report as PDF (or HTML)."""
     from .render import _check, _date_text, _out, render_html
 
     _check(paper, fmt_)
-    ctx = grade_context(summary, date=_date_text(date), paper=paper)
+    ctx = grade_context(g, date=_date_text(date), paper=paper)
     return _out(render_html("grades.html.j2", ctx), fmt_)

@@ -14,12 +14,12 @@ import datetime as _dt
 import functools
 import logging
 import urllib.parse
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from importlib import resources
 
 from ..inputs.errors import KplanError
 from . import fmt as _fmt
-from .sheets import RenderError, plan_notes, prep_context, report_context
+from .sheets import DesignFacts, RenderError, plan_notes, prep_context, report_context
 
 __all__ = [
     "FORMATS",
@@ -159,8 +159,7 @@ def prep_sheet(
     Parameters
     ----------
     plan, recipe : the validated plan and its recipe.
-    assessment : ``planner.jobs.plan.assess.assess(plan, recipe, ...)``; its ``summary()`` supplies
-        every number.
+    assessment : ``planner.jobs.plan.assess.assess(plan, recipe, ...)``: it supplies every number.
     needs : ``planner.jobs.stocks.needs.stock_needs(plan, recipe)``.
     paper : "A4" or "Letter".
     fmt : "pdf" (bytes of the PDF) or "html" (UTF-8 bytes of the HTML).
@@ -173,27 +172,18 @@ def prep_sheet(
         For an unknown paper or format, a bad date, or an order that does not list the stocks.
     """
     _check(paper, fmt)
-    ctx = prep_context(
-        plan,
-        recipe,
-        assessment.summary(),
-        [n.summary() for n in needs],
-        date=_date_text(date),
-        paper=paper,
-        order=order,
-    )
+    ctx = prep_context(plan, recipe, assessment, needs, date=_date_text(date), paper=paper, order=order)
     return _out(render_html("prep_sheet.html.j2", ctx), fmt)
 
 
-def report(
-    plan, recipe, assessment, *, design: dict | None = None, paper: str = "A4", fmt: str = "pdf", date=None
-) -> bytes:
+def report(plan, recipe, assessment, *, design=None, paper: str = "A4", fmt: str = "pdf", date=None) -> bytes:
     """The design report: verdict first, recipe, figures, checks, parameters and correlations.
 
     Parameters
     ----------
-    design : optional summary of a design run; its "criterion", "efficiency_bound" and
-        "se_ratio_vs_even" are shown when present.
+    design : optional design behind the recipe: a :class:`~planner.jobs.plan.design.Design`, or a
+        ``design.json`` (read as a mapping, or as :class:`~planner.paper.sheets.DesignFacts`); its
+        criterion, efficiency bound and SE ratio against the even series are shown.
     paper, fmt, date : as in :func:`prep_sheet`.
     """
     from . import figures as fig
@@ -201,18 +191,22 @@ def report(
     _check(paper, fmt)
     from ..jobs.stocks.needs import stock_needs
 
-    summary = assessment.summary()
-    if "spectra" in summary:
+    if isinstance(design, Mapping):  # a design.json read back
+        design = DesignFacts.from_json(design)
+    elif design is not None and not isinstance(design, DesignFacts):
+        design = DesignFacts.of(design)
+    spectra = assessment.spectra is not None
+    if spectra:
         from .spectra_report import report_facts, report_figures
 
-        figs = report_figures(assessment, summary)
+        figs = report_figures(assessment)
     else:
-        figs = _report_figures(plan, recipe, assessment, summary, fig)
-    notes = plan_notes(plan, [n.summary() for n in stock_needs(plan, recipe)])
+        figs = _report_figures(plan, recipe, assessment, fig)
+    notes = plan_notes(plan, stock_needs(plan, recipe))
     ctx = report_context(
-        plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design, notes=notes
+        plan, recipe, assessment, date=_date_text(date), paper=paper, figures=figs, design=design, notes=notes
     )
-    if "spectra" in summary:
+    if spectra:
         ctx["facts"] = report_facts(plan, ctx["facts"])
         ctx["a_heading"] = "Highest A in the window (±2 sd)"
     return _out(render_html("report.html.j2", ctx), fmt)
@@ -229,7 +223,7 @@ def fit_report(plan, fit, *, kind: str = "pdf", paper: str = "A4", date=None) ->
     )
 
 
-def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
+def _report_figures(plan, recipe, assessment, fig) -> list[dict]:
     from markupsafe import Markup
 
     from ..jobs.compile import compile_study
@@ -240,12 +234,19 @@ def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
 
     out = [
         {
-            "svg": Markup(fig.absorbance_svg(summary["tubes"], tuple(plan.optics.linear_range))),
+            "svg": Markup(
+                fig.absorbance_svg(
+                    assessment.recipe.tubes,
+                    assessment.state.absorbance,
+                    assessment.absorbance_sd,
+                    tuple(plan.optics.linear_range),
+                )
+            ),
             "caption": "Expected absorbance of each tube (bars: ±2 sd of one reading, every error source) "
             "inside the instrument's linear range.",
         }
     ]
-    curve = curves.binding_curve_data(study, recipe, summary)
+    curve = curves.binding_curve_data(study, assessment)
     names = {"M": _fmt.ion(plan.components.M.label or "M"), "L": _fmt.ion(plan.components.L.label or "L")}
     out.append(
         {

@@ -229,25 +229,6 @@ class ReagentHazards:
         """(code, text) for every hazard statement."""
         return tuple((c, statement_text(c)) for c in self.hazard_codes)
 
-    def summary(self) -> dict:
-        return {
-            "name": self.name,
-            "formula": self.formula,
-            "signal_word": self.signal_word,
-            "statements": [{"code": c, "text": t} for c, t in self.statements()],
-            "pictograms": [{"code": p, "name": PICTOGRAMS[p]} for p in self.pictograms],
-            "cmr": self.cmr,
-            "cmr_codes": list(self.cmr_codes),
-            "classes": list(self.classes),
-            "incompatible": list(self.incompatible),
-            "ppe": list(self.ppe),
-            "waste": self.waste,
-            "notes": self.notes,
-            "source": self.source,
-            "from_memory": self.from_memory,
-            "checked": self.checked,
-        }
-
 
 @dataclass(frozen=True)
 class PlanReagent:
@@ -268,15 +249,6 @@ class PlanReagent:
     inferred: bool = False
     message: str | None = None
 
-    def summary(self) -> dict:
-        return {
-            "name": self.name,
-            "stock_ids": list(self.stock_ids),
-            "inferred": self.inferred,
-            "message": self.message,
-            "hazards": self.hazards.summary() if self.hazards else None,
-        }
-
 
 @dataclass(frozen=True)
 class Clash:
@@ -285,9 +257,6 @@ class Clash:
     classes: tuple[str, str]
     reagents: tuple[str, ...]
     advice: str
-
-    def summary(self) -> dict:
-        return {"classes": list(self.classes), "reagents": list(self.reagents), "advice": self.advice}
 
 
 # --------------------------------------------------------------------------------------------------

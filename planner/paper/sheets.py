@@ -1,15 +1,15 @@
 """What goes on the printed prep sheet and design report, as plain strings (no HTML, no chemistry).
 
-These functions turn the plan, the recipe and the JSON summaries of the assessment and of the stock
-needs into template contexts. Every number is formatted here, by :mod:`planner.paper.fmt`, from the
-values of the summaries, so the paper and ``--json`` agree digit for digit. The templates only lay
-the strings out.
+These functions turn the plan, the recipe, the assessment (:class:`~planner.jobs.plan.assess.Assessment`)
+and the stock needs (:class:`~planner.jobs.stocks.needs.StockNeed`) into template contexts. Every number is
+formatted here, by :mod:`planner.paper.fmt`, from the same values ``--json`` prints, so the paper and the
+JSON agree digit for digit. The templates only lay the strings out.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 from markupsafe import Markup
@@ -17,7 +17,9 @@ from markupsafe import Markup
 from ..inputs.errors import KplanError
 from ..inputs.plan import Plan
 from ..inputs.recipe import Recipe
+from ..jobs.plan.assess import Assessment
 from ..jobs.plan.checks import SATURATION_WINDOW
+from ..jobs.stocks.needs import StockNeed
 from . import fmt, safety
 from .bench_volumes import reading_note
 from .pictograms import pictogram_svg
@@ -25,6 +27,7 @@ from .stock_text import conc_lines, needed_text, plan_notes, prep_lines, pretty_
 
 __all__ = [
     "DEFAULT_ADDITION",
+    "DesignFacts",
     "RenderError",
     "addition_order",
     "blank_text",
@@ -286,29 +289,36 @@ def safety_context(plan: Plan) -> dict:
 # --------------------------------------------------------------------------------------------------
 # prep sheet
 # --------------------------------------------------------------------------------------------------
-def _levelling_fact(plan: Plan, summary: dict) -> list[tuple[str, str]]:
+def _levelling_fact(plan: Plan, a: Assessment) -> list[tuple[str, str]]:
     """Header line saying the background-electrolyte volumes level the ionic strength (when they do)."""
     bg = plan.background
     if bg is None:
         return []
-    values = [t["ionic_strength_M"] for t in summary["tubes"] if t.get("ionic_strength_M") is not None]
+    values = a.state.ionic_strength_M.tolist()
     if not values:
         return []
     lo, hi = min(values), max(values)
     return [("Ionic strength", f"{fmt.sig(lo, 3)}–{fmt.sig(hi, 3)} M: the {bg.id} volumes level it")]
 
 
+def tube_columns(a: Assessment, species: str) -> tuple[list[float], list[float], list[float]]:
+    """Each tube's expected reading, the half-width of its ±2 sd band, and its concentration of
+    ``species`` (mol/L), as plain numbers for the tube tables."""
+    k = a.model.index(species)
+    return a.state.absorbance.tolist(), (2 * a.absorbance_sd).tolist(), a.state.species_M[:, k].tolist()
+
+
 def prep_context(
     plan: Plan,
     recipe: Recipe,
-    summary: dict,
-    needs: Sequence[dict],
+    a: Assessment,
+    needs: Sequence[StockNeed],
     *,
     date: str,
     paper: str,
     order: Sequence[str] | None = None,
 ) -> dict:
-    """Template context of the prep sheet from the assessment and stock-need summaries."""
+    """Template context of the prep sheet from the assessment and the stocks' needs."""
     g, o = plan.glassware, plan.optics
     step = g.step_mL
     dil = plan.diluent
@@ -316,7 +326,7 @@ def prep_context(
     seq = addition_order(plan, recipe, order)
     steps = addition_steps(plan, recipe, seq, custom=order is not None)
     blank_name, blank_sentence = blank_text(plan)
-    by_id = {n["id"]: n for n in needs}
+    by_id = {n.id: n for n in needs}
     missing = [s.id for s in plan.stock if s.id not in by_id]
     if missing:
         raise RenderError(
@@ -335,8 +345,8 @@ def prep_context(
         elif s.diluent and to_mark:
             disp = "to the mark of each flask"
         else:
-            disp = "not dispensed" if n.get("deliveries", 0) == 0 else "no dispenser in the plan"
-        on_hand = f"{fmt.sig(n['on_hand_mL'], 3)} mL" if n.get("on_hand_mL") is not None else "—"
+            disp = "not dispensed" if n.deliveries == 0 else "no dispenser in the plan"
+        on_hand = f"{fmt.sig(n.on_hand_mL, 3)} mL" if n.on_hand_mL is not None else "—"
         if enough is False:
             warns = [f"NOT ENOUGH on hand: make at least {needed}.", *warns]
         stocks.append(
@@ -359,29 +369,26 @@ def prep_context(
     target = plan.target
     lo, hi = o.linear_range
     rows = []
-    tubes = summary["tubes"]
     a_step = o.display_step if o.display_step > 0 else 0.001
-    bands = fmt.band_column([t["absorbance"] for t in tubes], [2 * t["absorbance_sd"] for t in tubes], a_step)
-    c_unit, c_txt = fmt.conc_column([t["species_M"][target] for t in tubes])
-    for i, t in enumerate(tubes):
-        vols = t["volumes_mL"]
-        cells = [("—" if vols[sid] == 0 else fmt.volume(vols[sid], step)) for sid in seq]
-        a = t["absorbance"]
+    absorbance, half, complex_M = tube_columns(a, target)
+    bands = fmt.band_column(absorbance, half, a_step)
+    c_unit, c_txt = fmt.conc_column(complex_M)
+    vols = {sid: a.recipe.column(sid).tolist() for sid in a.recipe.stock_ids}
+    for i, tube in enumerate(a.recipe.tubes):
+        cells = [("—" if vols[sid][i] == 0 else fmt.volume(vols[sid][i], step)) for sid in seq]
         # under to-mark the diluent is the remainder: say how much to expect, so a flask already
         # full before the diluent goes in is noticed at the bench
-        rest = fmt.volume(vols[dil.id], step) if to_mark else ""
+        rest = fmt.volume(vols[dil.id][i], step) if to_mark else ""
         rows.append(
             {
-                "tube": t["tube"],
+                "tube": tube,
                 "cells": cells,
                 "makeup": rest,
                 "absorbance": bands[i],
-                "out": not (lo <= a <= hi),
+                "out": not (lo <= absorbance[i] <= hi),
                 "complex": c_txt[i],
             }
         )
-    failing = [c for c in summary.get("checks", []) if c["status"] == "fail"]
-    verdict = summary.get("verdict")
     safe = safety_context(plan)
     spectra = o.has_spectra
     return {
@@ -403,13 +410,13 @@ def prep_context(
                 + (" volumetric flasks" if to_mark else ", every volume added"),
             ),
             ("Temperature", f"{fmt.sig(plan.temperature_C, 3)} °C"),
-            *_levelling_fact(plan, summary),
+            *_levelling_fact(plan, a),
         ],
         "blank": blank_sentence,
         "blank_name": blank_name,
-        "verdict": verdict,
-        "verdict_reason": summary.get("verdict_reason", ""),
-        "failing": [c["id"] for c in failing],
+        "verdict": a.verdict,
+        "verdict_reason": a.verdict_reason,
+        "failing": list(a.failed),
         "stocks": stocks,
         "steps": [{"text": s.text, "why": s.why} for s in steps],
         "columns": [f"{sid}" for sid in seq],
@@ -431,6 +438,26 @@ def prep_context(
 # --------------------------------------------------------------------------------------------------
 # design report
 # --------------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class DesignFacts:
+    """What the report says of the design behind a recipe: its criterion, the lower bound on its
+    efficiency and how many times smaller its SE is than the evenly spaced series' (None: not known)."""
+
+    criterion: str | None = None
+    efficiency_bound: float | None = None
+    se_ratio_vs_even: float | None = None
+
+    @classmethod
+    def of(cls, design) -> DesignFacts:
+        """The facts of a :class:`~planner.jobs.plan.design.Design`."""
+        return cls(design.criterion, design.efficiency_bound, design.se_even_over_design)
+
+    @classmethod
+    def from_json(cls, data: Mapping) -> DesignFacts:
+        """The facts of a ``design.json`` that ``kplan design --out`` wrote (keys missing or null: None)."""
+        return cls(data.get("criterion"), data.get("efficiency_bound"), data.get("se_ratio_vs_even"))
+
+
 _DESIGN_KEYS = (
     ("criterion", "criterion"),
     ("efficiency_bound", "efficiency bound (vs the best approximate design)"),
@@ -438,13 +465,13 @@ _DESIGN_KEYS = (
 )
 
 
-def _design_rows(design: dict | None) -> list[tuple[str, str]]:
-    if not design:
+def _design_rows(design: DesignFacts | None) -> list[tuple[str, str]]:
+    if design is None:
         return []
     rows = []
     for key, label in _DESIGN_KEYS:
-        if key in design and design[key] is not None:
-            v = design[key]
+        v = getattr(design, key)
+        if v is not None:
             rows.append((label, fmt.sig(float(v), 3) if isinstance(v, int | float) else str(v)))
     return rows
 
@@ -458,98 +485,116 @@ def _relative_se(name: str, true: float, se: float | None) -> str:
     return fmt.percent(se / abs(true)) if true else "—"
 
 
+def _finite(x) -> float | None:
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _parameter_rows(a: Assessment) -> list[dict]:
+    """The report's parameter table: guess, assumed truth, SE (also relative), Monte Carlo."""
+    params = []
+    for p in a.parameters:
+        se, true = _finite(p.se), p.true
+        ci = p.mc_ci95
+        params.append(
+            {
+                "name": fmt.param_label(p.name),
+                "guess": fmt.sig(p.guess, 4),
+                "true": fmt.sig(true, 4),
+                "se": fmt.sig(se, 2),
+                "rel": _relative_se(p.name, true, se),
+                "mc_sd": fmt.sig(_finite(p.mc_sd) if p.mc_sd is not None else None, 2),
+                "mc_bias": fmt.sig(_finite(p.mc_bias) if p.mc_bias is not None else None, 2),
+                "ci": (
+                    f"{fmt.sig(_finite(ci[0]), 4)} – {fmt.sig(_finite(ci[1]), 4)}"
+                    if ci and _finite(ci[0]) is not None
+                    else "—"
+                ),
+            }
+        )
+    return params
+
+
+def _report_rows(plan: Plan, a: Assessment, seq, sat_flag: bool) -> tuple[dict, list[dict]]:
+    """(concentration units, tube rows) of the report's recipe table."""
+    step = plan.glassware.step_mL
+    lo, hi = plan.optics.linear_range
+    o = plan.optics
+    absorbance, half, complex_M = tube_columns(a, plan.target)
+    bands = fmt.band_column(absorbance, half, o.display_step if o.display_step > 0 else 0.001)
+    units, cols = {}, {}
+    for key, values in (
+        ("M", a.state.totals_M[:, 0].tolist()),
+        ("L", a.state.totals_M[:, 1].tolist()),
+        ("complex", complex_M),
+    ):
+        units[key], cols[key] = fmt.conc_column(values)
+    vols = {sid: a.recipe.column(sid).tolist() for sid in a.recipe.stock_ids}
+    sat = a.state.saturation.tolist()
+    rows = []
+    for i, tube in enumerate(a.recipe.tubes):
+        rows.append(
+            {
+                "tube": tube,
+                "cells": [("—" if vols[s][i] == 0 else fmt.volume(vols[s][i], step)) for s in seq],
+                "M": cols["M"][i],
+                "L": cols["L"][i],
+                "complex": cols["complex"][i],
+                "saturation": fmt.fixed(sat[i], 0.01),
+                # coloured only when the saturation check itself is not passed: tubes near 0 or 1 are
+                # part of a good design (they fix ε and the ends of the curve)
+                "sat_out": sat_flag and not (SATURATION_WINDOW[0] <= sat[i] <= SATURATION_WINDOW[1]),
+                "absorbance": bands[i],
+                "out": not (lo <= absorbance[i] <= hi),
+            }
+        )
+    return units, rows
+
+
 def report_context(
     plan: Plan,
     recipe: Recipe,
-    summary: dict,
+    a: Assessment,
     *,
     date: str,
     paper: str,
     figures: dict[str, str],
-    design: dict | None = None,
+    design: DesignFacts | None = None,
     notes: Sequence[str] = (),
 ) -> dict:
-    """Template context of the design report (verdict first) from the assessment summary."""
+    """Template context of the design report (verdict first) from the assessment."""
     g = plan.glassware
-    step = g.step_mL
     seq = addition_order(plan, recipe)
     target = plan.target
     lo, hi = plan.optics.linear_range
-    sat_flag = any(c["id"] == "saturation" and c["status"] != "pass" for c in summary.get("checks", []))
-    rows = []
-    tubes = summary["tubes"]
+    sat_flag = any(c.id == "saturation" and c.status != "pass" for c in a.checks)
+    units, rows = _report_rows(plan, a, seq, sat_flag)
     o = plan.optics
-    bands = fmt.band_column(
-        [t["absorbance"] for t in tubes],
-        [2 * t["absorbance_sd"] for t in tubes],
-        o.display_step if o.display_step > 0 else 0.001,
-    )
-    units, cols = {}, {}
-    for key, get in (
-        ("M", lambda t: t["total_M"]["M"]),
-        ("L", lambda t: t["total_M"]["L"]),
-        ("complex", lambda t: t["species_M"][target]),
-    ):
-        units[key], cols[key] = fmt.conc_column([get(t) for t in tubes])
-    for i, t in enumerate(tubes):
-        a = t["absorbance"]
-        rows.append(
-            {
-                "tube": t["tube"],
-                "cells": [
-                    ("—" if t["volumes_mL"][s] == 0 else fmt.volume(t["volumes_mL"][s], step)) for s in seq
-                ],
-                "M": cols["M"][i],
-                "L": cols["L"][i],
-                "complex": cols["complex"][i],
-                "saturation": fmt.fixed(t["saturation"], 0.01),
-                # coloured only when the saturation check itself is not passed: tubes near 0 or 1 are
-                # part of a good design (they fix ε and the ends of the curve)
-                "sat_out": sat_flag and not (SATURATION_WINDOW[0] <= t["saturation"] <= SATURATION_WINDOW[1]),
-                "absorbance": bands[i],
-                "out": not (lo <= a <= hi),
-            }
-        )
-    params = []
-    for p in summary.get("parameters", []):
-        se, true = p.get("se"), p["true"]
-        ci = p.get("mc_ci95")
-        params.append(
-            {
-                "name": fmt.param_label(p["name"]),
-                "guess": fmt.sig(p["guess"], 4),
-                "true": fmt.sig(true, 4),
-                "se": fmt.sig(se, 2),
-                "rel": _relative_se(p["name"], true, se),
-                "mc_sd": fmt.sig(p.get("mc_sd"), 2),
-                "mc_bias": fmt.sig(p.get("mc_bias"), 2),
-                "ci": (f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—"),
-            }
-        )
-    corr = summary.get("correlation")
+    params = _parameter_rows(a)
+    names = list(a.params.names) if a.cramer_rao is not None and a.params is not None else []
     corr_rows = []
-    if corr and len(corr["names"]) > 1:
+    if len(names) > 1:
         corr_rows = [
             {"name": fmt.param_label(n), "cells": [fmt.fixed(x, 0.01) if x is not None else "—" for x in row]}
-            for n, row in zip(corr["names"], corr["matrix"], strict=True)
+            for n, row in zip(names, ([_finite(x) for x in r] for r in a.cramer_rao.corr), strict=True)
         ]
-    prof = summary.get("profile")
+    prof = a.profile
     prof_text = None
-    if prof:
-        d = prof["delta_chi2"]
+    if prof is not None:
+        d = [_finite(x) for x in prof.delta_chi2]
         prof_text = (
             f"Δχ² = {fmt.sig(d[0], 3)} towards K → 0 and {fmt.sig(d[-1], 3)} towards K → ∞ "
             f"(3.84 marks the 95 % limit)"
         )
-    mc = summary.get("monte_carlo")
+    mc = a.mc
     return {
         "kind": "report",
         "paper": paper,
         "title": plan.title,
         "date": date,
-        "verdict": summary.get("verdict"),
-        "verdict_reason": fmt.chem_text(summary.get("verdict_reason", "")),
-        "goal_se": fmt.sig(summary.get("goal_se"), 2),
+        "verdict": a.verdict,
+        "verdict_reason": fmt.chem_text(a.verdict_reason),
+        "goal_se": fmt.sig(a.goal_se, 2),
         "target": target,
         "target_label": fmt.species(target),
         "units": units,
@@ -557,27 +602,25 @@ def report_context(
         "facts": [
             (
                 "Target",
-                f"{fmt.param_label(f'log_beta[{target}]')}, goal SE ≤ {fmt.sig(summary.get('goal_se'), 2)}",
+                f"{fmt.param_label(f'log_beta[{target}]')}, goal SE ≤ {fmt.sig(a.goal_se, 2)}",
             ),
             ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm, path {fmt.fixed(o.path_cm, 0.001)} cm"),
             ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
             ("Tubes", f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL, make-up {g.make_up}"),
             (
                 "Monte Carlo",
-                f"{mc['trials']} simulated experiments, {fmt.percent(mc['failed_fraction'])} failed fits"
-                if mc
+                f"{int(mc.estimates.shape[0])} simulated experiments, "
+                f"{fmt.percent(mc.failed_fraction)} failed fits"
+                if mc is not None
                 else "not run",
             ),
         ],
         "columns": list(seq),
         "rows": rows,
         "figures": figures,
-        "checks": [
-            {"id": c["id"], "status": c["status"], "message": fmt.chem_text(c["message"])}
-            for c in summary.get("checks", [])
-        ],
+        "checks": [{"id": c.id, "status": c.status, "message": fmt.chem_text(c.message)} for c in a.checks],
         "params": params,
-        "corr_names": [fmt.param_label(n) for n in corr["names"]] if corr_rows else [],
+        "corr_names": [fmt.param_label(n) for n in names] if corr_rows else [],
         "corr_rows": corr_rows,
         "profile": prof_text,
         "design": _design_rows(design),

@@ -8,20 +8,22 @@ import numpy as np
 from . import fmt
 
 
-def report_figures(assessment, summary: dict) -> list[dict]:
-    """The design report's figures for whole spectra."""
+def report_figures(assessment) -> list[dict]:
+    """The design report's figures for whole spectra (from the assessment's ``spectra`` facts)."""
     from markupsafe import Markup
 
     from ..jobs.spectra.curves import spectra_curves
     from . import figures as fig
     from . import spectra_figures as sf
 
-    sp = summary["spectra"]
-    rows = sp["by_wavelength"]
+    sp = assessment.spectra
     curves = spectra_curves(assessment.study, assessment.recipe)
-    share = np.array([np.nan if r["information_share"] is None else r["information_share"] for r in rows])
-    se1 = np.array([np.inf if r["se_single"] is None else r["se_single"] for r in rows])
-    ok = np.array([r["eligible"] for r in rows])
+    w = sp.wavelength_nm.size
+    share = np.full(w, np.nan) if sp.information_share is None else np.asarray(sp.information_share, float)
+    share = np.where(np.isfinite(share), share, np.nan)
+    se1 = np.asarray(sp.se_single, dtype=float)
+    se1 = np.where(np.isfinite(se1), se1, np.inf)
+    ok = np.asarray(sp.eligible, dtype=bool)
     target = assessment.study.target
     label = fmt.param_label(f"log_beta[{target}]")
     out = [
@@ -34,7 +36,7 @@ def report_figures(assessment, summary: dict) -> list[dict]:
         },
         {
             "svg": Markup(
-                sf.single_wavelength_svg(curves.wavelength_nm, se1, ok, sp["se_whole_spectrum"] or np.nan)
+                sf.single_wavelength_svg(curves.wavelength_nm, se1, ok, _whole_se(sp.se_whole_spectrum))
             ),
             "caption": f"SE of {label} from one wavelength alone (where the highest reading is in the linear "
             f"range) "
@@ -50,6 +52,11 @@ def report_figures(assessment, summary: dict) -> list[dict]:
         "Monte-Carlo fits of simulated whole-spectrum experiments against the Cramér–Rao normal curve.",
     )
     return out + ([mc] if mc is not None else [])
+
+
+def _whole_se(se: float) -> float:
+    """The whole spectrum's SE for the figure (NaN where it is not finite or zero)."""
+    return float(se) if np.isfinite(se) and se != 0 else np.nan
 
 
 def report_facts(plan, facts: list) -> list:
@@ -68,7 +75,6 @@ def fit_context(plan, fit, *, paper: str, date: str) -> dict:
 
     from . import spectra_figures as sf
 
-    s = fit.summary()
     guess = None
     if plan is not None:
         from ..jobs.compile import compile_study
@@ -101,15 +107,16 @@ def fit_context(plan, fit, *, paper: str, date: str) -> dict:
                 "indicator function.",
             }
         )
+    target = f"log_beta[{fit.target}]"
     params = [
         {
-            "name": fmt_label(p["name"]),
-            "estimate": _num(p["estimate"], 4),
-            "se": _num(p["se"], 2),
-            "promised": _num(p["promised_se"], 2),
-            "ci": _ci(p.get("profile_ci95")),
+            "name": fmt_label(n),
+            "estimate": _num(e, 4),
+            "se": _num(se, 2),
+            "promised": _num(pr, 2),
+            "ci": _ci(fit.profile_ci95 if n == target else None),
         }
-        for p in s["parameters"]
+        for n, e, se, pr in zip(fit.names, fit.estimate, fit.se, fit.promised_se, strict=True)
     ]
     ctx = {
         "paper": paper,
@@ -118,7 +125,7 @@ def fit_context(plan, fit, *, paper: str, date: str) -> dict:
         "determined": fit.determined,
         "reason": fit.reason,
         "facts": [
-            ("Readings", f"{s['readings_used']} used, {s['readings_left_out']} left out"),
+            ("Readings", f"{int(fit.used.sum())} used, {fit.readings_left_out} left out"),
             ("Tubes × wavelengths", f"{len(fit.tubes)} × {fit.wavelength_nm.size}"),
             ("χ²", f"{fmt.sig(fit.chi2, 4)} on {fit.dof} degrees of freedom"),
         ],
@@ -127,15 +134,10 @@ def fit_context(plan, fit, *, paper: str, date: str) -> dict:
         "params": params,
         "figures": figs,
         "tubes": [
-            {
-                "tube": t["tube"],
-                "rms": _num(t["rms_standardised"], 3),
-                "p": _num(t["p_value"], 3),
-                "outlier": t["outlier"],
-            }
-            for t in s["tubes"]
+            {"tube": t, "rms": _num(rms, 3), "p": _num(p_, 3), "outlier": bool(o)}
+            for t, rms, p_, o in zip(fit.tubes, fit.tube_rms, fit.tube_p, fit.outlier_tubes, strict=True)
         ],
-        "excluded": s["excluded"],
+        "excluded": [{"tube": t, "reason": r} for t, r in fit.excluded],
     }
     return ctx
 
@@ -154,11 +156,12 @@ def fmt_label(name: str) -> str:
 
 
 def _num(x, digits: int) -> str:
-    return "—" if x is None else fmt.sig(x, digits)
+    """``x`` to ``digits`` significant figures; "—" where it is missing or not finite."""
+    return "—" if x is None or not np.isfinite(x) else fmt.sig(float(x), digits)
 
 
 def _ci(ci) -> str:
     if not ci:
         return "—"
-    lo, hi = ci
+    lo, hi = (None if x is None or not np.isfinite(x) else x for x in ci)
     return f"{_num(lo, 4) if lo is not None else '(open)'} – {_num(hi, 4) if hi is not None else '(open)'}"

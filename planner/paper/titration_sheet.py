@@ -29,7 +29,7 @@ def _titrant_step(t, tit, disp, item) -> str:
     )
 
 
-def titration_context(plan, recipe, summary: dict, *, date: str, paper: str) -> dict:
+def titration_context(plan, recipe, assessment, *, date: str, paper: str) -> dict:
     """Template context (plain values only) of the titration sheet for the schedule's points ``recipe``."""
     t = plan.titration
     cell = plan.stock_by_id(t.cell)
@@ -46,8 +46,8 @@ def titration_context(plan, recipe, summary: dict, *, date: str, paper: str) -> 
     cell_dec = max(fmt.step_decimals(step), fmt.step_decimals(t.start_volume_mL), 2)
     aliquots = np.diff(np.concatenate([[0.0], added]))
     rows = []
-    for i, row in enumerate(summary["tubes"]):
-        a, sd = row["absorbance"], row["absorbance_sd"]
+    absorbance, sd_all = assessment.state.absorbance.tolist(), assessment.absorbance_sd.tolist()
+    for i, (a, sd) in enumerate(zip(absorbance, sd_all, strict=True)):
         rows.append(
             {
                 "step": recipe.tubes[i],
@@ -106,5 +106,5 @@ def titration_sheet(plan, recipe, assessment, *, paper: str = "A4", fmt_: str = 
     from .render import _check, _date_text, _out, render_html
 
     _check(paper, fmt_)
-    ctx = titration_context(plan, recipe, assessment.summary(), date=_date_text(date), paper=paper)
+    ctx = titration_context(plan, recipe, assessment, date=_date_text(date), paper=paper)
     return _out(render_html("titration_sheet.html.j2", ctx), fmt_)

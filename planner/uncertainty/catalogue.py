@@ -135,22 +135,6 @@ class GlasswareItem:
         what = f"{_fmt(self.capacity_mL)} mL {names.get(self.kind, self.kind)}"
         return what if self.cls is None else f"class {self.cls} {what}"
 
-    def summary(self) -> dict:
-        """Plain JSON-safe description."""
-        return {
-            "kind": self.kind,
-            "capacity_mL": float(self.capacity_mL),
-            "class": self.cls,
-            "tolerance_mL": float(self.tolerance_mL),
-            "graduation_mL": None if self.graduation_mL is None else float(self.graduation_mL),
-            "random_mL": None if self.random_mL is None else float(self.random_mL),
-            "repeatability_mL": None if self.repeatability_mL is None else float(self.repeatability_mL),
-            "source": self.source,
-            "from_memory": bool(self.from_memory),
-            "note": self.note,
-            "label": self.label,
-        }
-
 
 def _fmt(x: float) -> str:
     return f"{x:g}"

@@ -181,19 +181,6 @@ class DilutionStep:
         """Dilution factor, flask / pipette volume."""
         return self.flask.capacity_mL / self.pipette.capacity_mL
 
-    def summary(self) -> dict:
-        """Plain JSON-safe description."""
-        return {
-            "pipette_mL": self.pipette.capacity_mL,
-            "flask_mL": self.flask.capacity_mL,
-            "pipette": self.pipette.label,
-            "flask": self.flask.label,
-            "factor": self.factor,
-            "from_conc_M": self.from_conc_M,
-            "to_conc_M": self.to_conc_M,
-            "u_rel": self.u_rel,
-        }
-
 
 @dataclass(frozen=True)
 class StockPreparation:
@@ -253,27 +240,6 @@ class StockPreparation:
     def u_rel(self) -> float:
         """Relative standard uncertainty of the final concentration."""
         return self.u_conc_M / self.conc_M
-
-    def summary(self) -> dict:
-        """Plain JSON-safe description (what ``--json`` and the prep-sheet templates read)."""
-        return {
-            "conc_M": self.conc_M,
-            "formula": self.formula,
-            "formula_weight_g_mol": self.formula_weight_g_mol,
-            "flask": self.flask.summary(),
-            "weighed_flask": self.weighed_flask.summary(),
-            "weighed_conc_M": self.weighed_conc_M,
-            "mass_g": self.mass_g,
-            "u_mass_g": self.u_mass_g,
-            "direct_mass_g": self.direct_mass_g,
-            "min_weight_g": self.min_weight_g,
-            "purity": self.purity,
-            "purity_half_width": self.purity_half_width,
-            "u_conc_M": self.u_conc_M,
-            "u_rel": self.u_rel,
-            "u_parts": {k: float(v) for k, v in self.u_parts.items()},
-            "steps": [s.summary() for s in self.steps],
-        }
 
     def __repr__(self) -> str:
         chain = " → ".join(f"{s.pipette.capacity_mL:g}→{s.flask.capacity_mL:g} mL" for s in self.steps)

@@ -25,6 +25,7 @@ from scipy.optimize import least_squares
 from planner.inference import lm
 from planner.inference.fit_result import STATUS_MESSAGES, FitError, FitResult
 from planner.inference.lm import fit_many, fit_one
+from planner.paper.json_out import to_json
 
 # ------------------------------------------------------------------------------------------------
 # NIST StRD: locating and parsing the files
@@ -776,7 +777,7 @@ def test_fit_one_shapes_summary_and_immutability():
     np.testing.assert_allclose(one.se, np.sqrt(np.diag(one.cov)))
     with pytest.raises(ValueError):
         one.theta[0] = 0.0
-    summ = json.loads(json.dumps(one.summary()))
+    summ = json.loads(json.dumps(to_json(one)))
     assert summ["n_trials"] == 1 and summ["theta"] == pytest.approx(list(one.theta))
     assert "converged=1/1" in repr(one)
     with pytest.raises(FitError, match="fit_many"):
@@ -787,7 +788,7 @@ def test_summary_is_json_safe_with_failures():
     x = np.linspace(1.0, 2.0, 8)
     res = fit_many(lambda th: (th[:, :1] + th[:, 1:]) * x, [[1.0, 1.0]] * 3, 2 * x + 0.01 * np.sin(9 * x))
     assert not res.converged.any()
-    text = json.dumps(res.summary(), allow_nan=False)
+    text = json.dumps(to_json(res), allow_nan=False)
     summ = json.loads(text)
     assert summ["n_converged"] == 0 and summ["theta_mean"] == [None, None]
     assert summ["status_counts"] == {"-2": 3}

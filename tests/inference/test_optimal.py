@@ -12,6 +12,7 @@ from planner.inference import design_criteria, exchange
 from planner.inference.approximate import ApproximateDesign, approximate_design, sensitivity
 from planner.inference.design_criteria import CRITERIA, DesignError, criterion_of_counts
 from planner.inference.exchange import ExactDesign, exact_design
+from planner.paper.json_out import to_json
 
 # --------------------------------------------------------------------------------------------------
 # Models (Jacobians written out by hand, independent of the module)
@@ -512,9 +513,9 @@ def test_results_summary_and_repr():
     ad = approximate_design(F, criterion="all")
     ex = exact_design(F, 4, criterion="all", rng=np.random.default_rng(0), approx=ad)
     assert isinstance(ad, ApproximateDesign) and isinstance(ex, ExactDesign)
-    s = ad.summary()
+    s = to_json(ad)
     assert sum(s["weights"]) == pytest.approx(1.0) and len(s["support"]) == len(s["weights"])
-    assert sum(ex.summary()["counts"]) == 4
+    assert sum(to_json(ex)["counts"]) == 4
     assert "converged=True" in repr(ad) and "n=4" in repr(ex)
     assert ex.starts == 8
 

@@ -20,6 +20,7 @@ from planner.model.closed_forms import (
 )
 from planner.model.sensitivities import sensitivities
 from planner.model.speciation import Speciation, speciate
+from planner.paper.json_out import to_json
 
 try:
     import mpmath
@@ -340,7 +341,7 @@ def test_results_do_not_depend_on_block_position():
 
 def test_speciation_summary_and_repr():
     spec = speciate([1e-3, 2e-3], [1e-3, 1e-3], [[1, 1], [1, 2]], [4.0, 7.0])
-    summ = spec.summary()
+    summ = to_json(spec)
     assert set(summ) == {"free_M", "free_L", "species_M", "M_tot_M", "L_tot_M"}
     assert summ["species_M"][1] == spec.species_M[1].tolist()
     assert "2 species" in repr(spec) and isinstance(spec, Speciation)
@@ -545,7 +546,7 @@ def test_sensitivities_shape_follows_the_batch():
     assert sens.dlnc_dlnbeta.shape == (3, 4, 2, 2)
     assert sens.dlnc_dMtot.shape == (3, 4, 2)
     assert sens.dlnfree_L_dLtot.shape == (3, 4)
-    assert set(sens.summary()) == set(vars(sens)) and len(sens.summary()["dc_dMtot"]) == 3
+    assert set(to_json(sens)) == set(vars(sens)) and len(to_json(sens)["dc_dMtot"]) == 3
     flat = sensitivities(speciate(M.ravel(), L.ravel(), [[1, 1], [1, 2]], lb), [[1, 1], [1, 2]], lb)
     np.testing.assert_allclose(sens.dlnc_dlnbeta.reshape(12, 2, 2), flat.dlnc_dlnbeta, rtol=1e-13)
     with pytest.raises(EquilibriumError, match="broadcast"):

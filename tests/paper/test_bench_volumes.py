@@ -86,8 +86,7 @@ def test_prep_sheet_and_cards_volumes_read_back(step):
     plan = _plan_on_grid(step)
     recipe = _grid_recipe(plan, step, np.random.default_rng(int(step * 1000)))
     a = assess(plan, recipe, trials=0, precision=False)
-    needs = [n.summary() for n in stock_needs(plan, recipe)]
-    ctx = prep_context(plan, recipe, a.summary(), needs, date="2026-12-01", paper="A4")
+    ctx = prep_context(plan, recipe, a, stock_needs(plan, recipe), date="2026-12-01", paper="A4")
     cols = ctx["columns"]
     for i, row in enumerate(ctx["rows"]):
         for sid, cell in zip(cols, row["cells"], strict=True):
@@ -151,7 +150,7 @@ def test_titration_sheets_print_the_schedule_as_designed():
         study = compile_study(plan)
         rec = read_points(path.with_suffix(".csv"), plan, study)
         a = assess_study(study, rec, trials=0, profile_chi2=False, model_check=False)
-        ctx = titration_context(plan, rec, a.summary(), date="2026-12-01", paper="A4")
+        ctx = titration_context(plan, rec, a, date="2026-12-01", paper="A4")
         added = rec.volumes_mL[:, rec.stock_ids.index(plan.titration.titrant)]
         portions = np.diff(np.concatenate([[0.0], added]))
         assert ctx["unit"] == ("µL" if unit == 1000.0 else "mL")

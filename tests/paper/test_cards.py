@@ -16,6 +16,7 @@ from planner.jobs.classroom.stock_list import class_stocks
 from planner.jobs.compile import compile_study
 from planner.jobs.plan.assess import assess_study
 from planner.paper import cards as pc
+from planner.paper.json_out import to_json
 
 from ..conftest import scenario_text
 
@@ -107,7 +108,7 @@ def test_key_equals_the_assessment(plan, study, cset):
     i = 0
     for c in cset.cards:
         a = assess_study(study, c.recipe, trials=0)
-        for t in a.tube_rows():
+        for t in to_json(a)["tubes"]:
             r = rows[i]
             assert r["student"] == c.student and r["tube"] == t["tube"]
             assert float(r["absorbance"]) == pytest.approx(t["absorbance"], abs=5e-5)

@@ -12,6 +12,7 @@ from planner.jobs.plan.assess import assess_study
 from planner.jobs.stocks.needs import stock_needs
 from planner.jobs.titration.titrate import read_points
 from planner.paper import render, safety
+from planner.paper.json_out import to_json
 from planner.paper.titration_sheet import titration_sheet
 from planner.uncertainty.budget import glassware_problems
 
@@ -34,7 +35,7 @@ def test_example_assesses_and_prints(plan_path):
     a = assess_study(study, recipe, trials=50, seed=0)
     # the CLI refuses to print a sheet whose volumes the glassware cannot deliver
     assert glassware_problems(a.study.bench, recipe) == [], plan_path.name
-    checks = {c["id"]: c["status"] for c in a.summary()["checks"]}
+    checks = {c["id"]: c["status"] for c in to_json(a)["checks"]}
     assert checks["glassware"] == "pass"
     if plan.titration is not None:
         sheet = titration_sheet(plan, recipe, a, fmt_="html", date="2026-12-01").decode("utf-8")
@@ -44,4 +45,4 @@ def test_example_assesses_and_prints(plan_path):
         ).decode("utf-8")
     assert str(escape(plan.title)) in sheet and str(escape(safety.ALWAYS)) in sheet  # the safety box stays
     rep = render.report(plan, recipe, a, fmt="html", date="2026-12-01").decode("utf-8")
-    assert "<svg" in rep and a.summary()["verdict"] in rep and str(escape(plan.title)) in rep
+    assert "<svg" in rep and to_json(a)["verdict"] in rep and str(escape(plan.title)) in rep

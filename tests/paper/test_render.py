@@ -24,6 +24,7 @@ from planner.jobs.plan import curves
 from planner.jobs.plan.assess import assess, assess_recipe
 from planner.jobs.stocks.needs import stock_needs
 from planner.paper import figures, fmt, render, safety, sheets
+from planner.paper.json_out import to_json
 
 from ..conftest import ROOT, scenario_text
 
@@ -84,7 +85,7 @@ def report_pdf(teaching):
 # --------------------------------------------------------------------------------------------------
 def test_tube_rows_carry_volumes_band_and_complex(teaching, prep_txt):
     plan, recipe, a, _ = teaching
-    summary = a.summary()
+    summary = to_json(a)
     order = sheets.addition_order(plan, recipe)
     assert order == ("DY", "CU")  # common practice: ligand before the metal, diluent first and last
     step = plan.glassware.step_mL
@@ -102,7 +103,7 @@ def test_tube_rows_carry_volumes_band_and_complex(teaching, prep_txt):
 
 def test_printed_absorbance_rounds_the_json_value(teaching, prep_txt):
     _, _, a, _ = teaching
-    for row in a.summary()["tubes"]:
+    for row in to_json(a)["tubes"]:
         m = re.search(rf"{re.escape(row['tube'])} [\d. —]+≈ [\d.]+ (\d+\.\d+) ± (\d+\.\d+)", prep_txt)
         assert m, row["tube"]
         x, u = m.group(1), m.group(2)
@@ -333,7 +334,7 @@ def test_hostile_html_cannot_read_files(fetch_log):
 # --------------------------------------------------------------------------------------------------
 def test_report_verdict_first_then_sections(teaching, report_pdf):
     _, _, a, _ = teaching
-    s = a.summary()
+    s = to_json(a)
     txt = pdf_text(report_pdf)
     assert (
         txt.index(s["verdict"].upper()) < txt.index("Recipe") < txt.index("Checks") < txt.index("Parameters")
@@ -352,7 +353,7 @@ def test_report_verdict_first_then_sections(teaching, report_pdf):
 def test_report_rows_match_json(teaching, report_pdf):
     _, _, a, _ = teaching
     txt = pdf_text(report_pdf)
-    for row in a.summary()["tubes"]:
+    for row in to_json(a)["tubes"]:
         # one precision rule per column: A to the 0.001 display, saturation to 0.01 [derived]
         assert f"{row['absorbance']:.3f} ± {2 * row['absorbance_sd']:.3f}" in txt
         assert f"{row['saturation']:.2f}" in txt
@@ -382,7 +383,7 @@ def test_report_without_precision(teaching):
 # --------------------------------------------------------------------------------------------------
 def test_binding_curve_is_the_one_to_one_isotherm(teaching):
     plan, recipe, a, _ = teaching
-    curve = curves.binding_curve_data(compile_study(plan), recipe, a.summary())
+    curve = curves.binding_curve_data(compile_study(plan), a)
     K = 10.0**3.3  # the teaching scenario's guess; no ionic-strength correction is configured
     # derived: for M + L ⇌ ML the limiting reagent's fraction bound is K·x/(1 + K·x), x the free excess
     # reagent, at any limiting total: every curve and every tube lie on the same isotherm
@@ -404,8 +405,8 @@ def test_saturation_is_one_number_in_table_check_and_figure():
     plan = patched_plan()
     recipe = parse_recipe_csv("tube,CU,DY\nT1,0.70,0.65\nT2,8.80,0.70\nT3,8.80,0.70\n", plan)
     a = assess(plan, recipe, trials=0)
-    summ = a.summary()
-    curve = curves.binding_curve_data(compile_study(plan), recipe, summ)
+    summ = to_json(a)
+    curve = curves.binding_curve_data(compile_study(plan), a)
     table = [t["saturation"] for t in summ["tubes"]]
     np.testing.assert_allclose(curve.tube_saturation, table)
     t2 = summ["tubes"][1]
@@ -425,7 +426,7 @@ def test_report_uses_chemical_notation_and_no_colour_beside_a_pass(teaching):
     html = render.report(plan, recipe, a, date=DATE, fmt="html").decode("utf-8")
     assert "log β(ML)" in html and "ε(ML)" in html
     assert "log_beta[" not in html.split("<body")[1]
-    if next(c for c in a.summary()["checks"] if c["id"] == "saturation")["status"] == "pass":
+    if next(c for c in to_json(a)["checks"] if c["id"] == "saturation")["status"] == "pass":
         assert 'class="num warn"' not in html  # a pass is not contradicted by coloured saturations
 
 
@@ -472,9 +473,9 @@ def test_se_scan_none_when_target_fixed():
 
 
 def test_svg_is_deterministic_and_literal():
-    tubes = [{"tube": "$x^2$ & <b>", "absorbance": 0.5, "absorbance_sd": 0.01}]
-    a = figures.absorbance_svg(tubes, (0.1, 1.0))
-    assert a == figures.absorbance_svg(tubes, (0.1, 1.0))
+    tubes = ["$x^2$ & <b>"]
+    a = figures.absorbance_svg(tubes, [0.5], [0.01], (0.1, 1.0))
+    assert a == figures.absorbance_svg(tubes, [0.5], [0.01], (0.1, 1.0))
     assert "&lt;b&gt;" in a and "<b>" not in a  # matplotlib escapes, and no mathtext on user labels
     assert a.startswith("<svg") and "<?xml" not in a
 

@@ -13,6 +13,7 @@ from hypothesis import strategies as st
 
 from planner.inputs.plan import parse_plan
 from planner.paper import safety
+from planner.paper.json_out import to_json
 from planner.paper.safety import (
     ALWAYS,
     CMR_CODES,
@@ -365,11 +366,11 @@ def test_perchlorate_with_organic_clash():
 def test_summary_is_json_safe():
     import json
 
-    s = lookup("nickel(II) sulfate").summary()
+    s = to_json(lookup("nickel(II) sulfate"))
     assert json.loads(json.dumps(s))["cmr"] is True
     assert {p["code"] for p in s["pictograms"]} == {"GHS07", "GHS08", "GHS09"}
     assert all(st_["text"] for st_ in s["statements"])
-    assert safety.PlanReagent("x", ("A",), None, message=NO_DATA).summary()["message"] == NO_DATA
+    assert to_json(safety.PlanReagent("x", ("A",), None, message=NO_DATA))["message"] == NO_DATA
 
 
 def test_printed_provenance_cites_no_developer_document():

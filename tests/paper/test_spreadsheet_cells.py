@@ -77,48 +77,38 @@ def test_key_and_stock_list_cells_are_values(plan, cset, people, title):
     assert_csv_values(pc.stocks_csv(plan, stocks))
 
 
+@pytest.fixture(scope="module")
+def graded(plan, cset):
+    """The class set graded on readings equal to the key's expected values."""
+    from planner.inputs.gradebook import parse_key_csv
+    from planner.jobs.classroom.grade import grade_class
+    from planner.jobs.compile import compile_study
+
+    cards = parse_key_csv(pc.key_csv(plan, cset), plan)
+    results = {k.student: dict(zip(k.recipe.tubes, k.expected.tolist(), strict=True)) for k in cards}
+    return grade_class(compile_study(plan), cards, results)
+
+
 @given(st.lists(st.tuples(HOSTILE, HOSTILE, HOSTILE), min_size=1, max_size=3), HOSTILE)
 @settings(max_examples=60, deadline=None)
-def test_grade_book_cells_are_values(people, parameter):
-    students = [
-        {
-            "student": s,
-            "name": n,
-            "section": "A",
-            "verdict": "flagged",
-            "tubes_in_band": 3,
-            "tubes": 5,
-            "chi2": 12.5,
-            "p_value": 0.01,
-            "own_fit": {"log_beta": 4.1, "se": 0.2},
-            "explanation": e,
-            "candidate": e,
-            "tubes_in_class_band": 4,
-            "judged_against": "class",
-            "readings": [
-                {
-                    "tube": n,
-                    "absorbance": 0.5,
-                    "expected": 0.4,
-                    "band_low": 0.38,
-                    "band_high": 0.42,
-                    "class_expected": 0.5,
-                    "class_band_low": 0.48,
-                    "class_band_high": 0.52,
-                    "in_class_band": True,
-                }
-            ],
-        }
-        for s, n, e in people
-    ]
-    summary = {
-        "students": students,
-        "pooled": {
-            "parameters": [{"name": parameter, "estimate": 4.0, "se": 0.1, "profile_ci95": [3.8, 4.2]}]
-        },
-    }
-    assert_csv_values(grades_csv(summary))
-    assert_xlsx_values(grades_xlsx(summary))
+def test_grade_book_cells_are_values(graded, people, parameter):
+    from planner.jobs.classroom.mixup import Diagnosis, Explanation
+
+    g = graded
+    students = tuple(
+        replace(
+            g.students[i % len(g.students)],
+            card=replace(g.students[i % len(g.students)].card, student=s, name=n),
+            verdict="flagged",
+            diagnosis=Diagnosis(None, (Explanation("noise", e, 1.0, 1.0),), 12.5),
+        )
+        for i, (s, n, e) in enumerate(people)
+    )
+    params = g.study.params
+    study = replace(g.study, params=replace(params, names=(parameter, *params.names[1:])))
+    hostile = replace(g, students=students, study=study)
+    assert_csv_values(grades_csv(hostile))
+    assert_xlsx_values(grades_xlsx(hostile))
 
 
 @given(st.lists(HOSTILE, min_size=1, max_size=4, unique=True))

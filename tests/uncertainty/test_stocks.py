@@ -9,6 +9,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from planner.paper.json_out import to_json
 from planner.uncertainty.catalogue import lookup
 from planner.uncertainty.stocks import (
     ACS_REAGENT_ASSAY_HALF_WIDTH,
@@ -113,7 +114,7 @@ def test_quam_a1_stock_uncertainty():
 
 def test_summary_is_json_safe_and_parts_add_up():
     prep, _ = _quam_a1()
-    s = json.loads(json.dumps(prep.summary()))
+    s = json.loads(json.dumps(to_json(prep)))
     assert s["mass_g"] == pytest.approx(prep.mass_g)
     # derived: relative parts combine in quadrature (QUAM A1 equation)
     assert prep.u_rel == pytest.approx(math.sqrt(sum(v * v for v in prep.u_parts.values())))

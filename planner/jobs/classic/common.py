@@ -7,7 +7,6 @@ included), so a move elsewhere in the package changes that one file.
 
 from __future__ import annotations
 
-import math
 import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
@@ -69,7 +68,8 @@ class ClassicSeries:
     checks : method checks followed by the kept checks of ``kplan assess``, worst first.
     answers : True when the series can answer its question (no check fails).
     verdict_reason : one sentence.
-    extra : method-specific JSON-safe values (``extremum_mole_fraction``, ``discrimination``, …).
+    extra : the method's own findings by their JSON key (``extremum_mole_fraction``, ``discrimination``, …),
+        plain values and result objects (:func:`planner.paper.json_out.to_json` makes them JSON).
     columns : per-tube values shown beside the volumes: name -> (n,) array.
     notes : the method's findings, one line each, for people (the JSON carries the numbers).
     """
@@ -93,20 +93,6 @@ class ClassicSeries:
     def exit_code(self) -> int:
         return 0 if self.answers else 1
 
-    def summary(self) -> dict:
-        """JSON-safe dict: ``method``, ``tubes`` (as ``kplan assess --json``), ``checks`` and the extras."""
-        out = {
-            "title": self.title,
-            "method": self.method,
-            "question": self.question,
-            "answers": self.answers,
-            "verdict_reason": self.verdict_reason,
-            "tubes": self.assessment.tube_rows() if self.assessment is not None else [],
-            "checks": [c.summary() for c in self.checks],
-        }
-        out.update(self.extra)
-        return json_safe(out)
-
 
 def infeasible(method: str, plan: Plan, question: str, exc: SeriesInfeasible) -> ClassicSeries:
     """The series that cannot be made: no tubes, one failing check that says why and what would."""
@@ -116,24 +102,6 @@ def infeasible(method: str, plan: Plan, question: str, exc: SeriesInfeasible) ->
     return ClassicSeries(
         method, plan.title, question, empty, None, (check,), False, f"cannot be made: {exc.message}"
     )
-
-
-def json_safe(x):
-    """Replace NaN/±inf by None and numpy scalars/arrays by plain Python values, recursively."""
-    if isinstance(x, dict):
-        return {str(k): json_safe(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [json_safe(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return json_safe(x.tolist())
-    if isinstance(x, (bool, np.bool_)):
-        return bool(x)
-    if isinstance(x, (int, np.integer)):
-        return int(x)
-    if isinstance(x, (float, np.floating)):
-        x = float(x)
-        return x if math.isfinite(x) else None
-    return x
 
 
 def finish(

@@ -134,7 +134,7 @@ def continuous_variation(
         "extremum_mole_fraction": x_ext,
         "extremum_corrected_absorbance": y_ext,
         "plan_model": rv.plan_label(model),
-        "discrimination": [f.summary() for f in fits],
+        "discrimination": list(fits),
         "separation_wanted_sd": rv.SEPARATION_WANTED,
         "total_needed_M": needed[0] if needed else None,
         "path_cm_at_total_needed": needed[1] if needed else None,

@@ -58,15 +58,6 @@ class RivalFit:
     epsilon_M_cm: tuple[float, ...]
     nested: bool = False
 
-    def summary(self) -> dict:
-        return {
-            "model": self.model,
-            "separation_sd": self.separation_sd,
-            "nested": self.nested,
-            "log_beta": list(self.log_beta),
-            "epsilon_M_cm": list(self.epsilon_M_cm),
-        }
-
 
 def plan_label(model: Model) -> str:
     """'1:1', '1:1+1:2', … for the plan's M–L complexes (metal first)."""

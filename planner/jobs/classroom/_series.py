@@ -84,15 +84,6 @@ class Spread:
     ratio_span: float
     saturation: tuple[tuple[float, float], tuple[float, float], tuple[float, float]]
 
-    def summary(self) -> dict:
-        lo, mid, hi = self.saturation
-        span = self.ratio_span if np.isfinite(self.ratio_span) else None
-        return {
-            "distinct_compositions": self.distinct,
-            "ratio_span": span,
-            "saturation": {"minus_1sd": list(lo), "guess": list(mid), "plus_1sd": list(hi)},
-        }
-
 
 def _state3(study: Study, recipe: Recipe) -> tuple[np.ndarray, np.ndarray]:
     """Saturation (3, T) of every tube at log β − 1 sd, the guess and + 1 sd of the target, and each

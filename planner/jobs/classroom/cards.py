@@ -30,7 +30,6 @@ in :mod:`planner.jobs.classroom._pooled`.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
@@ -183,52 +182,6 @@ class ClassSet:
 
     def failing(self) -> list[tuple[str, list[str]]]:
         return [(c.student, c.problems) for c in self.cards if not c.passes]
-
-    def summary(self) -> dict:
-        """JSON-safe description (``kplan cards --json``)."""
-        return {
-            "title": self.title,
-            "target": self.target,
-            "goal_se": self.goal_se,
-            "lab": self.lab,
-            "students": len(self.cards),
-            "tubes_per_student": self.best.n_tubes,
-            "seed": self.seed,
-            "sound": self.sound,
-            "distinct": self.distinct,
-            "jitter_steps": self.radius_steps,
-            "jitter_mL": self.radius_steps * self.step_mL,
-            "se": {k: _f(v) for k, v in self.se.items()},
-            "efficiency_vs_best_copies": _f(self.efficiency),
-            "efficiency_vs_best_copies_without_stock": _f(self.efficiency_without_stock),
-            "se_ratio_even_copies_vs_pooled": _f(self.se["pooled_even_copies"] / self.se["pooled"]),
-            "cards": [_card_summary(c) for c in self.cards],
-            "failing": [s for s, _ in self.failing()],
-            "notes": list(self.notes),
-        }
-
-
-def _card_summary(c: Card) -> dict:
-    out = {
-        "student": c.student,
-        "section": c.section,
-        "bench": c.bench,
-        "passes": c.passes,
-        "problems": c.problems,
-        "verdict": c.assessment.verdict,
-        "se": _f(c.assessment.target_se),
-        "series": None
-        if c.series is None
-        else {"kind": c.series.kind, "varied": c.series.varied, "partner": c.series.partner},
-    }
-    if c.spread is not None:
-        out.update(c.spread.summary())
-    return out
-
-
-def _f(x) -> float | None:
-    x = float(x) if x is not None else float("nan")
-    return x if math.isfinite(x) else None
 
 
 def _composition_key(recipe: Recipe) -> bytes:

@@ -34,13 +34,22 @@ from ...inputs.errors import InputError
 from ...inputs.gradebook import KeyCard
 from ...inputs.recipe import RecipeError
 from .consensus import FLAG_LEVEL, ClassModel, Judgement, Tubes, robust_class
-from .grade_text import class_summary, student_summary
+from .grade_text import (
+    BandShares,
+    PooledParameter,
+    band_shares,
+    chi2_verdict,
+    guess_note,
+    key_note,
+    pooled_parameters,
+    stock_factors,
+)
 from .mixup import NOT_ABSORBANCE, Baseline, Diagnosis, diagnose, guess_baseline
 from .own import own_fits
 
 PERCENT_MAX = 100.0  # beyond this a number is neither an absorbance nor a %T
 
-__all__ = ["FLAG_LEVEL", "ClassGrade", "StudentGrade", "grade_class"]
+__all__ = ["FLAG_LEVEL", "ClassGrade", "PooledParameter", "StudentGrade", "grade_class"]
 
 
 @dataclass(frozen=True)
@@ -77,8 +86,35 @@ class StudentGrade:
     def in_class_band(self) -> np.ndarray:
         return (self.absorbance >= self.class_band_low) & (self.absorbance <= self.class_band_high)
 
-    def summary(self, target: str) -> dict:
-        return student_summary(self)
+    @property
+    def tubes_in_band(self) -> int:
+        return int(np.sum(self.in_band))
+
+    @property
+    def tubes_in_class_band(self) -> int:
+        return int(np.sum(self.in_class_band))
+
+    @property
+    def judged_against(self) -> str | None:
+        """ "class", "plan's guess" (no class model), or None for an incomplete student (not judged)."""
+        if self.verdict == "incomplete":
+            return None
+        return "class" if bool(np.all(np.isfinite(self.class_expected))) else "plan's guess"
+
+    @property
+    def explanation(self) -> str | None:
+        """The likely mix-up ("unexplained" when none is named); None when not diagnosed."""
+        return self.diagnosis.text if self.diagnosis is not None else None
+
+    @property
+    def evidence(self) -> str | None:
+        return self.diagnosis.evidence if self.diagnosis is not None else None
+
+    @property
+    def candidate(self) -> str | None:
+        """The closest explanation when none is named (shown as a candidate only)."""
+        cand = self.diagnosis.candidate if self.diagnosis is not None else None
+        return cand.text if cand is not None else None
 
 
 @dataclass(frozen=True)
@@ -102,8 +138,38 @@ class ClassGrade:
     unknown: tuple[str, ...]
     study: Study
 
-    def summary(self) -> dict:
-        return class_summary(self)
+    @property
+    def judged_against(self) -> str:
+        return "class" if self.pooled is not None else "plan's guess"
+
+    @property
+    def pooled_parameters(self) -> tuple[PooledParameter, ...]:
+        """The class's constants and absorptivities beside the plan's guess (empty without a class model)."""
+        return pooled_parameters(self)
+
+    @property
+    def pooled_chi2_verdict(self) -> str:
+        cm = self.pooled
+        return chi2_verdict(cm.dof, cm.p_value, cm.p_low) if cm is not None else ""
+
+    @property
+    def stock_factors(self) -> tuple[tuple[str, float, float], ...]:
+        """(stock, fitted factor on its label, its sd) of the class's shared bottles."""
+        return stock_factors(self)
+
+    @property
+    def band_shares(self) -> BandShares:
+        return band_shares(self.students)
+
+    @property
+    def guess_note(self) -> str:
+        """How far the class's constants lie from the plan's guess, in one sentence ("" without a class)."""
+        return guess_note(self)
+
+    @property
+    def key_note(self) -> str:
+        """What the key's bands missed because the guess was off ("" when they did not)."""
+        return key_note(self.band_shares)
 
 
 def _readings(cards: tuple[KeyCard, ...], results: dict[str, dict[str, float]]) -> list[np.ndarray]:

@@ -1,7 +1,11 @@
-"""The grade as plain data (``kplan grade --json``, the grade book and the class report read it): every
-student, the class's constants beside the plan's guess, and what the key's bands missed because of it."""
+"""What a grade says beside each student's test: the class's constants against the plan's guess, the
+stock bottles the class fitted, the shares of readings inside the key's bands and the class's, and the
+sentences about them (``kplan grade`` prints them, the grade book and the class report show them; the JSON
+is :func:`planner.paper.json_out.class_grade_json`)."""
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -10,65 +14,50 @@ from ..measure.core import CHI2_TAIL
 KEY_NOTE_POINTS = 5.0  # the key's bands are said to be off when they hold this many % fewer readings
 
 
-def _f(x) -> float | None:
-    x = float(x) if x is not None else float("nan")
-    return x if np.isfinite(x) else None
+@dataclass(frozen=True)
+class PooledParameter:
+    """One constant or absorptivity of the class's fit beside the plan's guess.
+
+    Attributes
+    ----------
+    name : e.g. ``log_beta[ML]``.
+    estimate, se : the class's value and its SE.
+    guess, guess_sd : the plan's guess and its sd (log units for a constant, absolute for ε).
+    profile_ci95 : the profile 95 % interval (target only; None: not computed).
+    is_target : the plan's target constant.
+    """
+
+    name: str
+    estimate: float
+    se: float
+    guess: float
+    guess_sd: float
+    profile_ci95: tuple[float, float] | None = None
+    is_target: bool = False
+
+    @property
+    def off_by(self) -> float:
+        return self.estimate - self.guess
+
+    @property
+    def off_by_sd(self) -> float | None:
+        """How many of the guess's sd the class's value lies from it (None when the guess has none)."""
+        return (self.estimate - self.guess) / self.guess_sd if self.guess_sd > 0 else None
+
+
+@dataclass(frozen=True)
+class BandShares:
+    """Shares of the readings of the students judged ok inside the key's bands and inside the class's
+    (None without such readings)."""
+
+    key: float | None
+    in_class: float | None
+    readings: int
 
 
 def pretty(name: str) -> str:
     """log_beta[ML] → log β(ML), epsilon[ML] → ε(ML)."""
     return name.replace("log_beta[", "log β(").replace("epsilon[", "ε(").replace("]", ")")
-
-
-def student_summary(s) -> dict:
-    own = {"log_beta": _f(s.own[0]), "se": _f(s.own[1])} if s.own is not None else None
-    d = s.diagnosis
-    cand = d.candidate if d is not None else None
-    judged = bool(np.all(np.isfinite(s.class_expected)))
-    return {
-        "student": s.card.student,
-        "name": s.card.name,
-        "section": s.card.section,
-        "verdict": s.verdict,
-        "explanation": d.text if d else None,
-        "evidence": d.evidence if d else None,
-        "candidate": cand.text if cand else None,
-        "chi2": _f(s.chi2),
-        "dof": s.dof,
-        "p_value": _f(s.p_value),
-        "judged_against": ("class" if judged else "plan's guess") if s.verdict != "incomplete" else None,
-        "tubes_in_band": int(np.sum(s.in_band)),
-        "tubes_in_class_band": int(np.sum(s.in_class_band)),
-        "tubes": int(s.in_band.size),
-        "own_fit": own,
-        "readings": [
-            {
-                "tube": t,
-                "absorbance": _f(a),
-                "expected": _f(e),
-                "band_low": _f(lo),
-                "band_high": _f(hi),
-                "in_band": bool(ib),
-                "class_expected": _f(ce),
-                "class_band_low": _f(cl),
-                "class_band_high": _f(ch),
-                "in_class_band": bool(ic),
-            }
-            for t, a, e, lo, hi, ib, ce, cl, ch, ic in zip(
-                s.card.recipe.tubes,
-                s.absorbance,
-                s.card.expected,
-                s.card.band_low,
-                s.card.band_high,
-                s.in_band,
-                s.class_expected,
-                s.class_band_low,
-                s.class_band_high,
-                s.in_class_band,
-                strict=True,
-            )
-        ],
-    }
 
 
 def chi2_verdict(dof: int, p_high: float, p_low: float) -> str:
@@ -87,25 +76,41 @@ def chi2_verdict(dof: int, p_high: float, p_low: float) -> str:
     return "the class's readings scatter as the plan's error model predicts"
 
 
-def _parameters(g) -> list[dict]:
+def pooled_parameters(g) -> tuple[PooledParameter, ...]:
+    """The class's fitted parameters beside the plan's guess (empty without a class model)."""
     cm, params = g.pooled, g.study.params
-    out = []
-    for p, name in enumerate(params.names):
-        guess, sd = float(params.guess[p]), float(params.prior_sd[p])
-        est = float(cm.theta[p])
-        row = {
-            "name": name,
-            "estimate": _f(est),
-            "se": _f(cm.se[p]),
-            "guess": guess,
-            "guess_sd": sd,
-            "off_by": _f(est - guess),
-            "off_by_sd": _f((est - guess) / sd) if sd > 0 else None,
-        }
-        if p == params.target:
-            row["profile_ci95"] = [_f(cm.ci[0]), _f(cm.ci[1])] if cm.ci is not None else None
-        out.append(row)
-    return out
+    if cm is None:
+        return ()
+    return tuple(
+        PooledParameter(
+            name,
+            float(cm.theta[p]),
+            float(cm.se[p]),
+            float(params.guess[p]),
+            float(params.prior_sd[p]),
+            ((float(cm.ci[0]), float(cm.ci[1])) if cm.ci is not None else None)
+            if p == params.target
+            else None,
+            p == params.target,
+        )
+        for p, name in enumerate(params.names)
+    )
+
+
+def stock_factors(g) -> tuple[tuple[str, float, float], ...]:
+    """(stock, fitted factor on its label's concentration, its sd) of every stock with an uncertain
+    concentration, from the class's fit (empty without one)."""
+    cm = g.pooled
+    if cm is None:
+        return ()
+    ids = g.study.model.stock_conc_M.shape[0]
+    rsd = g.study.model.stock_conc_rsd
+    se_z = np.sqrt(np.maximum(np.diag(cm.cov)[g.study.params.size :], 0.0))
+    return tuple(
+        (sid, float(1 + rsd[j] * cm.z[j]), float(rsd[j] * se_z[j]))
+        for j, sid in enumerate(g.study.bench.stock_ids[:ids])
+        if rsd[j] > 0
+    )
 
 
 def guess_note(g) -> str:
@@ -113,39 +118,38 @@ def guess_note(g) -> str:
     if g.pooled is None:
         return ""
     parts = []
-    for row in _parameters(g):
-        nm = pretty(row["name"])
-        if row["name"].startswith("log_beta"):
+    for row in pooled_parameters(g):
+        nm = pretty(row.name)
+        if row.name.startswith("log_beta"):
             parts.append(
-                f"{nm} = {row['estimate']:.3f} ± {row['se']:.2g}; the plan guessed {row['guess']:.2f} ± "
-                f"{row['guess_sd']:.2g} (off by {row['off_by']:+.2f}, "
-                f"{abs(row['off_by_sd'] or 0):.1f} of its sd)"
+                f"{nm} = {row.estimate:.3f} ± {row.se:.2g}; the plan guessed {row.guess:.2f} ± "
+                f"{row.guess_sd:.2g} (off by {row.off_by:+.2f}, "
+                f"{abs(row.off_by_sd or 0):.1f} of its sd)"
             )
         else:
-            rel = row["off_by"] / row["guess"] if row["guess"] else float("nan")
+            rel = row.off_by / row.guess if row.guess else float("nan")
             parts.append(
-                f"{nm} = {row['estimate']:.4g} ± {row['se']:.2g}; the plan guessed {row['guess']:.4g} ± "
-                f"{row['guess_sd'] / row['guess']:.0%} (off by {rel:+.1%})"
+                f"{nm} = {row.estimate:.4g} ± {row.se:.2g}; the plan guessed {row.guess:.4g} ± "
+                f"{row.guess_sd / row.guess:.0%} (off by {rel:+.1%})"
             )
     return "the class measured " + "; ".join(parts)
 
 
-def band_shares(students: list[dict]) -> dict:
+def band_shares(students) -> BandShares:
     """Shares of the readings of students judged ok inside the key's bands and inside the class's."""
-    ok = [r for s in students if s["verdict"] == "ok" for r in s["readings"]]
-    if not ok:
-        return {"key": None, "class": None, "readings": 0}
-    return {
-        "key": sum(r["in_band"] for r in ok) / len(ok),
-        "class": sum(r["in_class_band"] for r in ok) / len(ok),
-        "readings": len(ok),
-    }
+    ok = [s for s in students if s.verdict == "ok"]
+    n = sum(int(s.in_band.size) for s in ok)
+    if not n:
+        return BandShares(None, None, 0)
+    in_key = sum(int(np.sum(s.in_band)) for s in ok)
+    in_class = sum(int(np.sum(s.in_class_band)) for s in ok)
+    return BandShares(in_key / n, in_class / n, n)
 
 
-def key_note(shares: dict) -> str:
-    if shares["key"] is None or shares["class"] is None:
+def key_note(shares: BandShares) -> str:
+    if shares.key is None or shares.in_class is None:
         return ""
-    k, c = 100 * shares["key"], 100 * shares["class"]
+    k, c = 100 * shares.key, 100 * shares.in_class
     if c - k < KEY_NOTE_POINTS:
         return ""
     return (
@@ -153,44 +157,3 @@ def key_note(shares: dict) -> str:
         f"of the students judged ok, the bands at the class's constants {c:.0f} % — the guess was off, not "
         f"the students"
     )
-
-
-def class_summary(g) -> dict:
-    students = [s.summary(g.target) for s in g.students]
-    pooled = None
-    cm = g.pooled
-    if cm is not None:
-        ids = g.study.model.stock_conc_M.shape[0]
-        rsd = g.study.model.stock_conc_rsd
-        se_z = np.sqrt(np.maximum(np.diag(cm.cov)[g.study.params.size :], 0.0))
-        pooled = {
-            "students": int(cm.used.sum()),
-            "tubes": cm.tubes,
-            "determined": cm.determined,
-            "reason": cm.reason,
-            "parameters": _parameters(g),
-            "chi2": _f(cm.chi2),
-            "dof": cm.dof,
-            "p_value": _f(cm.p_value),
-            "p_low": _f(cm.p_low),
-            "chi2_verdict": chi2_verdict(cm.dof, cm.p_value, cm.p_low),
-            "interval_scale": _f(cm.scale),
-            "stocks": [
-                {"stock": sid, "factor": _f(1 + rsd[j] * cm.z[j]), "factor_sd": _f(rsd[j] * se_z[j])}
-                for j, sid in enumerate(g.study.bench.stock_ids[:ids])
-                if rsd[j] > 0
-            ],
-        }
-    shares = band_shares(students)
-    return {
-        "title": g.title,
-        "target": g.target,
-        "judged_against": "class" if cm is not None else "plan's guess",
-        "students": students,
-        "pooled": pooled,
-        "guess_note": guess_note(g),
-        "band_shares": shares,
-        "key_note": key_note(shares),
-        "excluded": [{"student": s, "reason": r} for s, r in g.excluded],
-        "unknown_students": list(g.unknown),
-    }

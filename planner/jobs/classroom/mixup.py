@@ -90,16 +90,6 @@ class Explanation:
     passes: bool = False
     k: int = 0
 
-    def summary(self) -> dict:
-        return {
-            "kind": self.kind,
-            "text": self.text,
-            "delta_loglik": float(self.delta_loglik),
-            "score": float(self.score),
-            "chi2_after": float(self.chi2_after) if np.isfinite(self.chi2_after) else None,
-            "passes": bool(self.passes),
-        }
-
 
 @dataclass(frozen=True)
 class Diagnosis:
@@ -147,18 +137,6 @@ class Diagnosis:
             f"evidence 2Δln L − penalties = {self.best.score:.1f} ≥ {DECISIVE:g} against no mix-up, and the "
             f"readings pass after it (χ² = {self.best.chi2_after:.1f})"
         )
-
-    def summary(self) -> dict:
-        cand = self.candidate
-        return {
-            "explanation": self.text,
-            "kind": self.best.kind if self.best else None,
-            "evidence": self.evidence,
-            "candidate": cand.text if cand else None,
-            "as_likely": [e.summary() for e in self.ties],
-            "chi2": float(self.chi2),
-            "ranked": [e.summary() for e in self.ranked],
-        }
 
 
 @dataclass(frozen=True)

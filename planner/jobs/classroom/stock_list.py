@@ -83,34 +83,6 @@ class ClassStock:
             return 0.0
         return max(self.total_mL - self.on_hand_mL, 0.0)
 
-    def summary(self) -> dict:
-        return {
-            "id": self.id,
-            "label": self.label,
-            "tubes_mL": self.tubes_mL,
-            "benches": self.benches,
-            "allowance_mL": self.allowance_mL,
-            "total_mL": self.total_mL,
-            "sections": [
-                {"section": s, "tubes_mL": v, "benches": b, "total_mL": t} for s, v, b, t in self.sections
-            ],
-            "on_hand_mL": self.on_hand_mL,
-            "enough": self.enough,
-            "shortfall_mL": self.shortfall_mL,
-            "preparation": self.preparation.summary() if self.preparation else None,
-            "batches": self.batches,
-            "problem": self.problem,
-            "section_preparations": [
-                None if sp is None else {"preparation": sp[0].summary(), "batches": sp[1]}
-                for sp in self.section_preparations
-            ],
-            "make": self.need.summary() if self.need is not None else None,
-            "section_make": [
-                None if sn is None else {"make": sn[0].summary(), "batches": sn[1]}
-                for sn in self.section_needs
-            ],
-        }
-
 
 def _volumes(plan: Plan, recipes: list[Recipe], roster: Roster):
     """Per stock: tubes mL (k,), benches (k,), and per section rows (section, tubes, benches, total)."""

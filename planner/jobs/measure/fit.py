@@ -122,36 +122,6 @@ class Fit:
             note += ("; " if note else "") + f"the interval also holds the fit without {held}"
         return note
 
-    def summary(self) -> dict:
-        f = json_float
-        return {
-            **fit_summary_head(self),
-            "interval_scale": f(self.interval_scale),
-            "interval_note": self.interval_note,
-            "suspects": [{"tube": tb, "z": f(z), "shift": f(d)} for tb, z, d in self.suspects],
-            "tubes": [
-                {
-                    "tube": tb,
-                    "absorbance": f(a),
-                    "fitted": f(m),
-                    "residual": f(r),
-                    "standardised": f(z),
-                    "used": bool(u),
-                    "outlier": bool(o),
-                }
-                for tb, a, m, r, z, u, o in zip(
-                    self.recipe.tubes,
-                    self.absorbance,
-                    self.fitted,
-                    self.residual,
-                    self.standardised,
-                    self.used,
-                    self.outliers,
-                    strict=True,
-                )
-            ],
-        }
-
 
 def check_absorbances(values, labels, where: str) -> None:
     """Refuse a reading that is not a finite absorbance within ±MAX_ABSORBANCE, naming its tube."""
@@ -180,50 +150,6 @@ def chi2_verdict(fit) -> str:
             "readings are not independent (copied or smoothed)"
         )
     return "the scatter matches the error model"
-
-
-def fit_summary_head(fit) -> dict:
-    """The keys every fit's JSON starts with: title, target, converged, determined, reason, parameters,
-    χ² with its dof, both tails and verdict, and the tubes left out."""
-    f = json_float
-    return {
-        "title": fit.title,
-        "target": fit.target,
-        "converged": fit.converged,
-        "determined": fit.determined,
-        "reason": fit.reason,
-        "parameters": parameter_rows(fit),
-        "chi2": f(fit.chi2),
-        "dof": fit.dof,
-        "p_value": f(fit.p_value),
-        "p_low": f(fit.p_low),
-        "chi2_verdict": fit.chi2_verdict,
-        "excluded": [{"tube": tb, "reason": r} for tb, r in fit.excluded],
-    }
-
-
-def json_float(x) -> float | None:
-    """A float for JSON: None for a missing or non-finite value."""
-    x = float(x) if x is not None else float("nan")
-    return x if np.isfinite(x) else None
-
-
-def parameter_rows(fit) -> list[dict]:
-    """The ``parameters`` of a fit's JSON (``name``, ``estimate``, ``se``, ``promised_se``, and for the target
-    ``profile_ci95``) from any fit with ``names``, ``estimate``, ``se``, ``promised_se``, ``target`` and
-    ``profile_ci95``."""
-    f = json_float
-    t = f"log_beta[{fit.target}]"
-    rows = []
-    for n, e, s, p in zip(fit.names, fit.estimate, fit.se, fit.promised_se, strict=True):
-        row = {"name": n, "estimate": f(e), "se": f(s), "promised_se": f(p)}
-        if getattr(fit, "se_error_model", None) is not None:
-            row["se_error_model"] = f(fit.se_error_model[len(rows)])
-        if n == t:
-            ci = fit.profile_ci95
-            row["profile_ci95"] = [f(ci[0]), f(ci[1])] if ci is not None else None
-        rows.append(row)
-    return rows
 
 
 def fit_readings(

@@ -3,8 +3,8 @@
 Puts together the expected tube contents (:mod:`planner.model`), the error budget
 (:mod:`planner.uncertainty.budget`), the precision of the fitted parameters
 (:mod:`planner.inference.precision`) and the checks (:mod:`planner.jobs.plan.checks`) into a frozen
-:class:`Assessment` whose :meth:`Assessment.summary` has the baseline JSON keys (``title``, ``verdict``,
-``parameters``, ``tubes``, ``checks``).
+:class:`Assessment` (its JSON, with the baseline keys ``title``, ``verdict``, ``parameters``, ``tubes`` and
+``checks``, is made by :mod:`planner.paper.json_out`).
 """
 
 from __future__ import annotations
@@ -45,12 +45,34 @@ STATUSES = ("pass", "warn", "fail")
 VERDICTS = ("resolved", "bounded", "unresolved")
 DEFAULT_TRIALS = 2000
 
-__all__ = ["Assessment", "Check", "assess", "assess_recipe", "assess_study", "expected_state"]
+__all__ = ["Assessment", "Check", "ParameterRow", "assess", "assess_recipe", "assess_study", "expected_state"]
+
+
+@dataclass(frozen=True)
+class ParameterRow:
+    """One fitted parameter of an assessment.
+
+    Attributes
+    ----------
+    name : e.g. ``log_beta[ML]``, ``epsilon[ML]``.
+    guess, true : the plan's guess and the value assumed true (the guess, or an ``at`` value).
+    se : Cramér–Rao SE at the truth (NaN where singular).
+    mc_sd, mc_bias, mc_ci95 : the Monte-Carlo sd, bias and 95 % interval of the refitted values (None
+        without a Monte Carlo).
+    """
+
+    name: str
+    guess: float
+    true: float
+    se: float
+    mc_sd: float | None = None
+    mc_bias: float | None = None
+    mc_ci95: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True)
 class Assessment:
-    """A recipe judged against its plan.
+    """A recipe judged against its plan (its JSON: :func:`planner.paper.json_out.assessment_json`).
 
     Attributes
     ----------
@@ -69,9 +91,12 @@ class Assessment:
     verdict_reason : one sentence explaining the verdict.
     goal_se : the plan's goal for SE(log β[target]).
     study : the compiled plan the recipe was judged against.
-    detection : per alternative model, how often the recipe's data would reveal it (model check).
+    detection : per alternative model, how often the recipe's data would reveal it (the model check);
+        None when the model check was not run.
     limits : what limits the precision (shares of the target's variance by source, and the changes
         priced when asked for), or None without a precision analysis.
+    spectra : with whole spectra, what every wavelength together gives
+        (:class:`planner.jobs.spectra.facts.SpectraFacts`), else None.
     """
 
     title: str
@@ -88,10 +113,10 @@ class Assessment:
     verdict: str | None = None
     verdict_reason: str = ""
     goal_se: float | None = None
-    extra: dict = field(default_factory=dict, hash=False)
     study: Study | None = field(default=None, repr=False, compare=False)
-    detection: tuple = field(default=(), repr=False, compare=False)
+    detection: tuple | None = field(default=None, repr=False, compare=False)
     limits: Limits | None = field(default=None, repr=False, compare=False)
+    spectra: object | None = field(default=None, repr=False, compare=False)
 
     def __repr__(self) -> str:
         worst = max((STATUSES.index(c.status) for c in self.checks), default=0)
@@ -106,89 +131,41 @@ class Assessment:
         return float(self.cramer_rao.se[self.params.target])
 
     @property
-    def parameters(self) -> tuple[dict, ...]:
-        """Per-parameter entries with the baseline keys (name, guess, se, mc_sd, mc_bias, mc_ci95)."""
+    def parameters(self) -> tuple[ParameterRow, ...]:
+        """Every fitted parameter: guess, assumed truth, Cramér–Rao SE and the Monte Carlo's figures."""
         if self.params is None or self.cramer_rao is None:
             return ()
-        out = []
-        for p, name in enumerate(self.params.names):
-            mc = self.mc
-            out.append(
-                {
-                    "name": name,
-                    "guess": float(self.params.guess[p]),
-                    "true": float(self.true_theta[p]),
-                    "se": _f(self.cramer_rao.se[p]),
-                    "mc_sd": _f(mc.sd[p]) if mc else None,
-                    "mc_bias": _f(mc.bias[p]) if mc else None,
-                    "mc_ci95": [_f(mc.ci95[p, 0]), _f(mc.ci95[p, 1])] if mc else None,
-                }
+        mc = self.mc
+        return tuple(
+            ParameterRow(
+                name,
+                float(self.params.guess[p]),
+                float(self.true_theta[p]),
+                float(self.cramer_rao.se[p]),
+                float(mc.sd[p]) if mc else None,
+                float(mc.bias[p]) if mc else None,
+                (float(mc.ci95[p, 0]), float(mc.ci95[p, 1])) if mc else None,
             )
-        return tuple(out)
+            for p, name in enumerate(self.params.names)
+        )
 
-    def tube_rows(self) -> list[dict]:
-        st, r, m = self.state, self.recipe, self.model
-        parts = self.budget.sd_parts() if self.budget is not None else None
-        total_sd = np.sqrt(np.diag(self.budget.total)) if self.budget is not None else st.absorbance_sd
-        rows = []
-        for i, t in enumerate(r.tubes):
-            row = {
-                "tube": t,
-                "volumes_mL": {sid: float(r.volumes_mL[i, j]) for j, sid in enumerate(r.stock_ids)},
-                "total_M": {"M": float(st.totals_M[i, 0]), "L": float(st.totals_M[i, 1])},
-                "species_M": {
-                    "M": float(st.free_M[i]),
-                    "L": float(st.free_L[i]),
-                    **{s: float(st.species_M[i, k]) for k, s in enumerate(m.species)},
-                },
-                "absorbance": float(st.absorbance[i]),
-                "absorbance_sd": float(total_sd[i]),
-                "saturation": float(st.saturation[i]),
-                "ionic_strength_M": float(st.ionic_strength_M[i]),
-                "in_linear_range": bool(m.linear_range[0] <= st.absorbance[i] <= m.linear_range[1]),
-            }
-            if parts is not None:
-                row["absorbance_sd_parts"] = {k: float(v[i]) for k, v in parts.items()}
-            rows.append(row)
-        return rows
+    @property
+    def absorbance_sd(self) -> np.ndarray:
+        """(n,) sd of each tube's reading from every error source (the photometer's alone without a
+        budget)."""
+        if self.budget is not None:
+            return np.sqrt(np.diag(self.budget.total))
+        return self.state.absorbance_sd
 
-    def summary(self) -> dict:
-        """JSON-safe dict with the baseline keys of the plan format (and a few more)."""
-        out = {
-            "title": self.title,
-            "verdict": self.verdict,
-            "verdict_reason": self.verdict_reason,
-            "goal_se": self.goal_se,
-            "parameters": list(self.parameters),
-            "tubes": self.tube_rows(),
-            "checks": [c.summary() for c in self.checks],
-        }
-        if self.cramer_rao is not None and self.params is not None:
-            out["correlation"] = {
-                "names": list(self.params.names),
-                "matrix": [[_f(x) for x in row] for row in self.cramer_rao.corr],
-            }
-        if self.mc is not None:
-            out["monte_carlo"] = {
-                "trials": int(self.mc.estimates.shape[0]),
-                "failed_fraction": self.mc.failed_fraction,
-            }
-        if self.profile is not None:
-            out["profile"] = {
-                "log_beta": [float(x) for x in self.profile.log_beta],
-                "delta_chi2": [_f(x) for x in self.profile.delta_chi2],
-                "low_unbounded": self.profile.low_unbounded,
-                "high_unbounded": self.profile.high_unbounded,
-            }
-        if self.limits is not None:
-            out.update(self.limits.summary())
-        out.update(self.extra)
-        return out
+    @property
+    def absorbance_sd_parts(self) -> dict[str, np.ndarray] | None:
+        """The sd of each tube's reading by source (photometric, delivery, stock, …), or None."""
+        return self.budget.sd_parts() if self.budget is not None else None
 
-
-def _f(x) -> float | None:
-    x = float(x)
-    return x if np.isfinite(x) else None
+    @property
+    def failed(self) -> tuple[str, ...]:
+        """The ids of the failed checks."""
+        return tuple(c.id for c in self.checks if c.status == "fail")
 
 
 def assess_recipe(plan: Plan, recipe: Recipe) -> Assessment:
@@ -294,15 +271,13 @@ def assess_study(
     check_list.extend(_stock_and_glassware_checks(bench, recipe))
     if cr is not None:
         check_list.append(_identifiability_check(params, cr, model, state))
-    extra = {}
-    det: tuple = ()
+    det: tuple | None = None
     if model_check and precision and study.alternatives and params.size and params.target >= 0:
         from .detection import ASSESS_FIX, POWER_TRIALS, model_check_result, recipe_detection
 
         n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
         det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), n_det)
         check_list.append(model_check_result(det, model_check_fix or ASSESS_FIX))
-        extra["model_check"] = [d.summary() for d in det]
     limits = None
     if cr is not None and params.target >= 0 and study.goal_se is not None:
         se_t = float(cr.se[params.target])
@@ -328,7 +303,6 @@ def assess_study(
         verdict,
         reason,
         study.goal_se,
-        extra,
         study=study,
         detection=det,
         limits=limits,

@@ -38,9 +38,6 @@ class Check:
     status: str
     message: str
 
-    def summary(self) -> dict:
-        return {"id": self.id, "status": self.status, "message": self.message}
-
 
 def _all_tubes(n: int) -> str:
     return "the tube reads" if n == 1 else f"all {n} tubes read"

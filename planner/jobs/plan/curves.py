@@ -5,17 +5,17 @@ only draws them.
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass
 
 import numpy as np
 
-from ...inference.precision import ReadingModel, cramer_rao, pack
+from ...inference.precision import ReadingModel, cramer_rao, pack, unpack
 from ...inference.study import Study
 from ...inputs.recipe import Recipe
 from ...model.compiled import predict, saturation, tube_ions_M
 from ...uncertainty.budget import error_budget
 from ..compile import expected_state, true_constants
+from .assess import Assessment
 
 __all__ = [
     "SAME_CURVE",
@@ -75,30 +75,27 @@ SAME_CURVE = 0.01
 the saturation against the free excess reagent does not depend on the limiting total at all)."""
 
 
-def binding_curve_data(study: Study, recipe: Recipe, summary: dict, *, n_points: int = 240) -> BindingCurve:
-    """Speciate, for each distinct limiting total of the recipe, a log-spaced series of excess totals.
+def binding_curve_data(study: Study, a: Assessment, *, n_points: int = 240) -> BindingCurve:
+    """Speciate, for each distinct limiting total of the assessed recipe, a log-spaced series of excess
+    totals.
 
-    The constants are the ones the assessment assumed true (its parameters' "true" values); the other
-    ions are the average of the tubes of that curve, so activity corrections match theirs. Each curve
-    is the binding isotherm of the limiting reagent [source: Weber 1975, Adv. Protein Chem. 29:1, for
-    the 0.2–0.8 window drawn with it].
+    The constants are the ones the assessment assumed true (``a.true_theta``: the guess, or its ``at``
+    values); the other ions are the average of the tubes of that curve, so activity corrections match
+    theirs. Each curve is the binding isotherm of the limiting reagent [source: Weber 1975, Adv. Protein
+    Chem. 29:1, for the 0.2–0.8 window drawn with it].
     """
     model = study.model
-    lb = model.log_beta.copy()
-    for p in summary.get("parameters", []):
-        m = re.fullmatch(r"log_beta\[(.+)\]", p["name"])
-        if m and m.group(1) in model.species:
-            lb[model.index(m.group(1))] = p["true"]
-    rows = summary["tubes"]
-    tot = np.array([[t["total_M"]["M"], t["total_M"]["L"]] for t in rows], dtype=float).reshape(len(rows), 2)
-    free = np.array([[t["species_M"]["M"], t["species_M"]["L"]] for t in rows], dtype=float).reshape(
-        len(rows), 2
-    )
+    recipe = a.recipe
+    lb = true_log_beta(model, a)
+    st_a = a.state
+    n = recipe.n_tubes
+    tot = np.asarray(st_a.totals_M, dtype=float).reshape(n, 2)
+    free = np.stack([st_a.free_M, st_a.free_L], axis=-1).reshape(n, 2)
     lim = np.where(tot[:, 0] <= tot[:, 1], 0, 1)  # the same rule as saturation()
     ions_all = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     lines: list[CurveLine] = []
     groups: dict[tuple[int, float], list[int]] = {}
-    for i in range(len(rows)):  # a handful of tubes
+    for i in range(n):  # a handful of tubes
         if np.all(tot[i] > 0):
             groups.setdefault((int(lim[i]), float(f"{tot[i, lim[i]]:.4g}")), []).append(i)
     for (c, total), idx in sorted(groups.items()):
@@ -124,16 +121,23 @@ def binding_curve_data(study: Study, recipe: Recipe, summary: dict, *, n_points:
                 ln.limiting, (*ln.totals_M, total), xs[order], np.concatenate([ln.saturation, sat])[order]
             )
     reps: dict[tuple, list[str]] = {}
-    for i, t in enumerate(rows):
-        reps.setdefault(tuple(np.round(recipe.volumes_mL[i], 9)), []).append(t["tube"])
+    for i, t in enumerate(recipe.tubes):
+        reps.setdefault(tuple(np.round(recipe.volumes_mL[i], 9)), []).append(t)
     return BindingCurve(
         tuple(lines),
         tuple("ML"[c] for c in lim),
-        free[np.arange(len(rows)), 1 - lim],
-        np.array([t["saturation"] for t in rows], dtype=float),
-        tuple(t["tube"] for t in rows),
+        free[np.arange(n), 1 - lim],
+        np.asarray(st_a.saturation, dtype=float),
+        tuple(recipe.tubes),
         tuple(tuple(g) for g in reps.values()),
     )
+
+
+def true_log_beta(model, a: Assessment) -> np.ndarray:
+    """The model's log β with every constant the assessment fitted at the value it assumed true."""
+    if a.params is None or a.true_theta is None:
+        return model.log_beta.copy()
+    return unpack(model, a.params, a.true_theta)[0]
 
 
 def _coincide(line: CurveLine, x: np.ndarray, sat: np.ndarray) -> bool:

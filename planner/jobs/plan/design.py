@@ -29,7 +29,7 @@ from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
 from ...inputs.text import plural
 from ..compile import compile_study
-from .assess import assess_study, stock_shortfalls
+from .assess import Assessment, assess_study, stock_shortfalls
 from .candidates import (
     MAX_CANDIDATES,
     MAX_SAMPLED,
@@ -70,6 +70,7 @@ class Design:
     se_even : the same for the evenly spaced series of the same size.
     se_across : list of (true log β, SE of design, SE of even series) across the guess's range.
     notes : what the optimiser did that the user should know (coarse search, budget caps...).
+    assessment : the assessment of the designed recipe (Cramér–Rao, no Monte Carlo).
     model_check : the model check (:class:`planner.jobs.plan.model_check.ModelCheck`), or None without one.
     verdict, verdict_reason : the assessment's verdict on the design (Cramér–Rao), with, when it misses
         ``goal_se``, by how much and what would reach it.
@@ -90,7 +91,7 @@ class Design:
     se_across: tuple[tuple[float, float, float], ...]
     target: str
     notes: tuple[str, ...] = field(default=())
-    assessment_summary: dict = field(default_factory=dict, hash=False)
+    assessment: Assessment | None = field(default=None, repr=False, compare=False)
     model_check: object | None = field(default=None, compare=False)
     verdict: str | None = None
     verdict_reason: str = ""
@@ -105,34 +106,6 @@ class Design:
     @property
     def se_even_over_design(self) -> float:
         return self.se_even / self.se_target if self.se_target > 0 else float("nan")
-
-    def summary(self) -> dict:
-        """The design JSON: the assessment's baseline keys plus criterion and efficiency_bound."""
-        out = dict(self.assessment_summary)
-        out.update(
-            {
-                "criterion": self.criterion,
-                "robust": self.robust,
-                "seed": self.seed,
-                "target": self.target,
-                "efficiency_bound": self.efficiency_bound,
-                "exact_efficiency": float(self.exact.efficiency),
-                "candidates": self.n_candidates,
-                "candidates_feasible": self.n_feasible,
-                "se_target": self.se_target,
-                "se_even_series": self.se_even,
-                "se_ratio_vs_even": self.se_even_over_design,
-                "se_across_guess": [
-                    {"log_beta": a, "se_design": b, "se_even_series": c} for a, b, c in self.se_across
-                ],
-                "notes": list(self.notes),
-                "verdict": self.verdict,
-                "verdict_reason": self.verdict_reason,
-            }
-        )
-        if self.model_check is not None:
-            out["model_check"] = self.model_check.summary()
-        return out
 
 
 def design(
@@ -267,7 +240,7 @@ def design_study(
         se_across_guess(study, rec, even),
         study.target,
         tuple(notes),
-        a.summary(),
+        a,
         check,
         verdict,
         reason,

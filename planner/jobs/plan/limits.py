@@ -47,9 +47,6 @@ class Share:
     kind: str
     ref: str = ""  # the stock id (kind "stock")
 
-    def summary(self) -> dict:
-        return {"source": self.source, "share": float(self.share)}
-
 
 @dataclass(frozen=True)
 class Change:
@@ -58,9 +55,6 @@ class Change:
     change: str
     se: float
     kind: str
-
-    def summary(self) -> dict:
-        return {"change": self.change, "se": float(self.se), "kind": self.kind}
 
 
 @dataclass(frozen=True)
@@ -94,18 +88,10 @@ class Limits:
     def reaches_goal(self) -> tuple[Change, ...]:
         return tuple(c for c in self.changes if c.se <= self.goal)
 
-    def summary(self) -> dict:
-        out: dict = {"error_shares": [s.summary() for s in self.shares]}
-        if self.epsilon_names:
-            out["epsilon_fitted"] = {
-                "parameters": list(self.epsilon_names),
-                "variance_factor": float(self.epsilon_factor),
-                "se_if_known": float(self.se / np.sqrt(self.epsilon_factor)),
-            }
-        if self.changes:
-            out["best_change"] = {**self.changes[0].summary(), "se_now": float(self.se)}
-            out["changes"] = [c.summary() for c in self.changes]
-        return out
+    @property
+    def se_if_epsilon_known(self) -> float:
+        """SE(log β[target]) were the fitted absorptivities known."""
+        return float(self.se / np.sqrt(self.epsilon_factor))
 
     def lines(self) -> list[str]:
         """The findings for people, one line each."""
@@ -117,7 +103,7 @@ class Limits:
         if self.epsilon_names and self.epsilon_factor > 1.0 + 1e-9:
             out.append(
                 f"fitting {', '.join(self.epsilon_names)} alongside the constant multiplies its variance by "
-                f"×{self.epsilon_factor:.3g} (SE {self.se / np.sqrt(self.epsilon_factor):.3g} were ε known)"
+                f"×{self.epsilon_factor:.3g} (SE {self.se_if_epsilon_known:.3g} were ε known)"
             )
         best = self.best
         if best is not None:

@@ -43,7 +43,6 @@ from ...uncertainty.budget import error_budget
 from ..compile import expected_state
 from .assess import assess_study
 from .candidates import Candidates, recipe_from_counts, rows_with_prior
-from .detection import _f
 
 # a guarded design must raise the power against some alternative by 20 points (one experiment in five
 # more that reveals it) or lift it to the power goal [our choice, issue 20: a gain worth the change]
@@ -124,34 +123,6 @@ class ModelCheck:
     @property
     def se_guarded_over_target_only(self) -> float:
         return self.se_guarded / self.se_target_only if self.se_target_only > 0 else float("nan")
-
-    def summary(self) -> dict:
-        other = "power_target_only" if self.replaced else "power_best_guarded"
-        return {
-            "weight": self.weight,
-            "se_cost_cap": self.cost_cap,
-            "replaced": self.replaced,
-            "tubes_moved": self.moves,
-            "se_target_only": _f(self.se_target_only),
-            "se_guarded": _f(self.se_guarded),
-            "se_cost_ratio": _f(self.se_guarded_over_target_only),
-            "power_goal": POWER_GOAL,
-            "power_margin": MARGIN,
-            "reason": self.reason,
-            "advice": list(self.advice),
-            "alternatives": [
-                {
-                    **g.summary(),
-                    "power_target_only": _f(g.power if not self.replaced else t.power_noise_free),
-                    "power_noise_free_target_only": _f(
-                        g.power_noise_free if not self.replaced else t.power_noise_free
-                    ),
-                    other: _f(t.power_noise_free),
-                    "power_best_any_cost": _f(self.best_power[k]) if k < len(self.best_power) else None,
-                }
-                for k, (g, t) in enumerate(self.detection)
-            ],
-        }
 
 
 def guard(

@@ -75,48 +75,6 @@ class NextBatch:
     def censored(self) -> tuple[str, ...]:
         return tuple(t for t, c in zip(self.measured.recipe.tubes, self.fit.censored, strict=True) if c)
 
-    def summary(self) -> dict:
-        def f(x):
-            x = float(x)
-            return x if np.isfinite(x) else None
-
-        return {
-            "tubes_measured": self.measured.recipe.n_tubes,
-            "fitted": [
-                {"name": n, "estimate": f(e), "se": f(s)}
-                for n, e, s in zip(self.fit.names, self.fit.estimate, self.fit.se, strict=True)
-            ],
-            "se_now": f(self.se_now),
-            "se_after": f(self.se_after),
-            "se_after_even_batch": f(self.se_after_even),
-            "stop": self.stop,
-            "reason": self.reason,
-            "next_tubes": list(self.recipe.tubes) if self.recipe is not None else [],
-            "censored": list(self.censored),
-            "prior_carried": True,
-        }
-
-    def design_summary(self) -> dict:
-        """``design.json`` for the next batch: the assessment of all tubes together, the design's own keys,
-        the SEs of all tubes together and the ``sequential`` block."""
-        out: dict = dict(self.assessment.summary()) if self.assessment is not None else {}
-        if self.design is not None and not self.stop:
-            d = self.design.summary()
-            for key in ("criterion", "robust", "seed", "target", "efficiency_bound", "exact_efficiency"):
-                out[key] = d[key]
-            out.update(
-                {
-                    "candidates": d["candidates"],
-                    "candidates_feasible": d["candidates_feasible"],
-                    "se_target": self.se_after,
-                    "se_even_series": self.se_after_even,
-                    "se_ratio_vs_even": self.se_after_even / self.se_after if self.se_after > 0 else None,
-                    "notes": d["notes"],
-                }
-            )
-        out["sequential"] = self.summary()
-        return out
-
 
 def learned_study(study: Study, fit) -> Study:
     """``study`` with the fitted values as the new guess and their SEs as the new prior sd."""

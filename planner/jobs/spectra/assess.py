@@ -3,9 +3,9 @@
 The same verdict, checks and JSON keys as the single-wavelength assessment
 (:mod:`planner.jobs.plan.assess`), with the precision from the whole window (:mod:`.precision`): the
 parameters are the free constants (every unknown spectrum is eliminated), the tube table shows each
-tube's highest reading in the window, and ``summary()["spectra"]`` adds the comparison with the best
-single wavelength, each wavelength's share of the information about the target, and whether the
-factor analysis of simulated data matrices finds the model's number of absorbing species.
+tube's highest reading in the window, and the assessment's ``spectra`` (:mod:`.facts`) adds the comparison
+with the best single wavelength, each wavelength's share of the information about the target, and whether
+the factor analysis of simulated data matrices finds the model's number of absorbing species.
 """
 
 from __future__ import annotations
@@ -33,14 +33,14 @@ from ..plan.assess import (
     _verdict,
     with_failed_checks,
 )
+from .facts import FactorOutlook, spectra_facts
 from .precision import (
-    information_by_wavelength,
     spectra_cramer_rao,
     spectra_monte_carlo,
     spectra_profile,
 )
 from .reading import Expected, SpectraModel, expected, spectra_model
-from .single import SingleWavelengths, single_wavelengths
+from .single import single_wavelengths
 
 FACTOR_TRIALS = 200  # simulated data matrices for the factor-analysis check
 FACTOR_GOAL = 0.80  # the check passes when the factor analysis finds the species in 4 of 5 experiments
@@ -86,7 +86,6 @@ def assess_spectra(
         checks.append(fa[0])
     verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof, True), checks)
     checks.sort(key=lambda c: -STATUSES.index(c.status))
-    extra = {"spectra": spectra_summary(sm, ex, cr, single, fa[1] if fa else None)}
     return Assessment(
         study.title,
         recipe,
@@ -102,8 +101,8 @@ def assess_spectra(
         verdict,
         reason,
         study.goal_se,
-        extra,
         study=study,
+        spectra=spectra_facts(sm, ex, cr, single, fa[1] if fa else None),
     )
 
 
@@ -214,22 +213,20 @@ def factor_check(study: Study, recipe: Recipe, sm: SpectraModel, ex: Expected, l
     model = study.model
     n = recipe.n_tubes
     count, want = expected_factors(sm, ex)
-    info = {"absorbing_species": count, "above_noise": want}
     hidden = (
         f" (the other {count - want} within the noise: a weak absorber, or spectra too alike)"
         if want < count
         else ""
     )
     if n < 3 or want >= min(n, sm.spectra.size):
-        info.update(found_share=None, found_median=None)
         msg = f"{n} tubes cannot show {want} absorbing species by factor analysis: it needs more tubes"
-        return chk.Check("factors", "warn", msg), info
+        return chk.Check("factors", "warn", msg), FactorOutlook(count, want)
     exp = simulate(study.bench, model, recipe, rng, FACTOR_TRIALS, log_beta=log_beta, photometric=False)
     rd = spectra_readings(sm.spectra, exp.state.absorber_conc_M(), model.path_cm)
     y = rd.absorbance + rd.absorbance_sd * rng.standard_normal(rd.absorbance.shape)
     found = np.array([factor_analysis(y[t]).n_indicator for t in range(FACTOR_TRIALS)])
     share = float(np.mean(found == want))
-    info.update(found_share=share, found_median=float(np.median(found)))
+    info = FactorOutlook(count, want, share, float(np.median(found)))
     head = f"the model has {count} absorbing species, {want} above the noise{hidden}"
     if share >= FACTOR_GOAL:
         return chk.Check(
@@ -245,38 +242,3 @@ def factor_check(study: Study, recipe: Recipe, sm: SpectraModel, ex: Expected, l
         f"{np.median(found):g}): a minor species hides in the noise; add tubes where it dominates, or read "
         f"a longer path",
     ), info
-
-
-def spectra_summary(sm: SpectraModel, ex: Expected, cr, single: SingleWavelengths, fa) -> dict:
-    """The ``spectra`` part of the assessment JSON."""
-    wl = sm.spectra.wavelength_nm
-    t = sm.params.target
-    se = float(cr.se[t]) if cr is not None and t >= 0 else float("nan")
-    share = information_by_wavelength(cr, sm.totals_M.shape[0], wl.size, t) if cr is not None else None
-    best = single.best_se
-    return {
-        "wavelengths": int(wl.size),
-        "window_nm": [float(wl[0]), float(wl[-1])],
-        "fitted_spectra": list(sm.basis_names),
-        "readings_used": int(ex.used.sum()),
-        "readings": int(ex.used.size),
-        "se_whole_spectrum": _f(se),
-        "best_single_wavelength_nm": float(wl[single.best]) if single.best >= 0 else None,
-        "se_best_single_wavelength": _f(best),
-        "se_ratio_single_over_spectrum": _f(best / se) if se > 0 else None,
-        "factors": fa,
-        "by_wavelength": [
-            {
-                "wavelength_nm": float(w),
-                "information_share": _f(share[k]) if share is not None else None,
-                "se_single": _f(single.se[k]),
-                "eligible": bool(single.eligible[k]),
-            }
-            for k, w in enumerate(wl)
-        ],
-    }
-
-
-def _f(x) -> float | None:
-    x = float(x)
-    return x if np.isfinite(x) else None

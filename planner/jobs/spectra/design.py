@@ -19,6 +19,7 @@ Larntz 1989); every SE reported is the exact whole-spectrum Cramér–Rao bound 
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 
@@ -147,8 +148,14 @@ def design_spectra(
     se_e = _se(study, even)
     across = se_across_guess(study, rec, even, se=_se)
     eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
-    summary = a.summary()
-    summary["spectra"].update(_single_wavelength_design(study, n, crit, rob, seed))
+    a = replace(
+        a,
+        spectra=replace(
+            a.spectra,
+            se_single_wavelength_design=_single_wavelength_design(study, n, crit, rob, seed),
+            with_single_design=True,
+        ),
+    )
     return Design(
         rec,
         crit,
@@ -164,14 +171,14 @@ def design_spectra(
         tuple(across),
         study.target,
         tuple(notes),
-        summary,
+        a,
         None,
         verdict=a.verdict,
         verdict_reason=a.verdict_reason,
     )
 
 
-def _single_wavelength_design(study: Study, n: int, crit: str, rob: bool, seed: int) -> dict:
+def _single_wavelength_design(study: Study, n: int, crit: str, rob: bool, seed: int) -> float | None:
     """What designing for the working wavelength alone would give (the plan's ``optics.wavelength_nm``,
     the single-wavelength design without the model check): its SE there, for the comparison."""
     from ..plan.design import design_study
@@ -179,8 +186,8 @@ def _single_wavelength_design(study: Study, n: int, crit: str, rob: bool, seed: 
     try:
         d = design_study(study, tubes=n, criterion=crit, robust=rob, seed=seed, check_model=False)
     except DesignError:
-        return {"se_single_wavelength_design": None}
-    return {"se_single_wavelength_design": d.se_target if np.isfinite(d.se_target) else None}
+        return None
+    return d.se_target if np.isfinite(d.se_target) else None
 
 
 def _exact(study: Study, cand: Candidates, nodes, crit: str, n: int, seed: int, starts: int):

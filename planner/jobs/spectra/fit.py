@@ -33,7 +33,7 @@ from ...inputs.spectra_readings import SpectraReadings
 from ...model.compiled import tube_ions_M
 from ...model.spectra import linearise
 from ..measure.core import N_STARTS
-from ..measure.fit import chi2_verdict, fit_summary_head, json_float
+from ..measure.fit import chi2_verdict
 from ..measure.fit import not_determined as _not_determined
 from .assess import expected_factors
 from .precision import bounds, profile_chi2, spectra_cramer_rao
@@ -119,37 +119,6 @@ class SpectraFit:
     @property
     def outlier_tubes(self) -> np.ndarray:
         return self.tube_p < TUBE_OUTLIER_P
-
-    def summary(self) -> dict:
-        f = json_float
-        fa = self.factors
-        return {
-            **fit_summary_head(self),
-            "tubes": [
-                {"tube": tb, "rms_standardised": f(rms), "p_value": f(p), "outlier": bool(o)}
-                for tb, rms, p, o in zip(
-                    self.tubes, self.tube_rms, self.tube_p, self.outlier_tubes, strict=True
-                )
-            ],
-            "readings_used": int(self.used.sum()),
-            "readings_left_out": self.readings_left_out,
-            "wavelengths_left_out": self.wavelengths_left_out,
-            "spectra": {
-                "wavelength_nm": [float(w) for w in self.wavelength_nm],
-                "species": {
-                    n: {"epsilon": [f(x) for x in self.epsilon[k]], "se": [f(x) for x in self.epsilon_se[k]]}
-                    for k, n in enumerate(self.spectra_names)
-                },
-            },
-            "factors": {
-                "singular_values": [f(x) for x in fa.singular_values[:12]] if fa else [],
-                "significant_indicator": fa.n_indicator if fa else None,
-                "significant_f_test": fa.n_f_test if fa else None,
-                "absorbing_species": self.absorbing_species,
-                "above_noise": self.above_noise,
-                "verdict": self.factor_verdict,
-            },
-        }
 
 
 def _select(study: Study, readings: SpectraReadings, exclude) -> tuple[np.ndarray, tuple, np.ndarray]:

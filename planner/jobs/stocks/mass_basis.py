@@ -12,7 +12,6 @@ dilution chain is chosen for the least reagent weighed rather than the best prec
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 from ...uncertainty import stocks as stk
@@ -100,22 +99,6 @@ class MassBasis:
     repeatability_to_weigh_directly_g: float | None
     scarce: bool
     least_mass_g: float | None = None
-
-    def summary(self) -> dict:
-        def f(x):
-            return None if x is None or not math.isfinite(x) else float(x)
-
-        return {
-            "set_by": self.set_by,
-            "flask_reason": self.flask_reason,
-            "mass_g": f(self.mass_g),
-            "recipe_mass_g": f(self.recipe_mass_g),
-            "min_weight_g": f(self.min_weight_g),
-            "direct_mass_g": f(self.direct_mass_g),
-            "repeatability_to_weigh_directly_g": f(self.repeatability_to_weigh_directly_g),
-            "scarce": self.scarce,
-            "least_mass_g": f(self.least_mass_g),
-        }
 
 
 def mass_basis(

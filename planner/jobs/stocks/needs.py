@@ -80,17 +80,6 @@ class Solute:
     formula_weight_g_mol: float | None = None
     mass_g: float | None = None
 
-    def summary(self) -> dict:
-        return {
-            "role": self.role,
-            "formula": self.formula,
-            "name": self.name,
-            "conc_M": self.conc_M,
-            "ions": list(self.ions),
-            "formula_weight_g_mol": self.formula_weight_g_mol,
-            "mass_g": self.mass_g,
-        }
-
 
 @dataclass(frozen=True)
 class ChargeGap:
@@ -106,9 +95,6 @@ class ChargeGap:
     ion: str
     conc_M: float
     ionic_strength_low: float
-
-    def summary(self) -> dict:
-        return {"ion": self.ion, "conc_M": self.conc_M, "ionic_strength_low": self.ionic_strength_low}
 
 
 def ion_core(name: str, charge: int) -> str:
@@ -301,27 +287,10 @@ class StockNeed:
             return None
         return self.on_hand_mL >= self.needed_mL
 
-    def summary(self) -> dict:
-        return {
-            "id": self.id,
-            "label": self.label,
-            "component": self.component,
-            "preparation": self.preparation.summary() if self.preparation else None,
-            "problem": self.problem,
-            "recipe_mL": self.recipe_mL,
-            "deliveries": self.deliveries,
-            "needed_mL": self.needed_mL,
-            "on_hand_mL": self.on_hand_mL,
-            "enough": self.enough,
-            "plan_rsd": self.plan_rsd,
-            "solutes": [x.summary() for x in self.solutes],
-            "solvent": self.solvent,
-            "flask_mL": self.flask_mL,
-            "charge_gap": self.charge_gap.summary() if self.charge_gap else None,
-            "flask_label": _flask_label(self.flask_mL),
-            "mass_set_by": self.mass_basis.summary() if self.mass_basis else None,
-            "scarce": self.scarce,
-        }
+    @property
+    def flask_label(self) -> str | None:
+        """The flask as the bench names it ("100 mL volumetric flask, class A")."""
+        return _flask_label(self.flask_mL)
 
 
 def _flask_label(flask_mL: float | None) -> str | None:

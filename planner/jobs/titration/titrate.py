@@ -27,7 +27,7 @@ from ...inputs.text import plural
 from ...model.compiled import predict, tube_ions_M
 from ...uncertainty import delivery
 from ...uncertainty.titration import reads_cumulatively, titration_budget, titration_recipe
-from ..plan.assess import assess_study
+from ..plan.assess import Assessment, assess_study
 
 GROWTH = (1.0, 1.1, 1.2, 1.3, 1.45, 1.6, 1.8, 2.0, 2.5)
 N_FIRST = 24  # first-aliquot sizes tried, log-spaced over the dispenser's range
@@ -45,6 +45,7 @@ class TitrationDesign:
     se_target, se_equal : SE(log β[target]) at the guess of the design and of equal aliquots (same number).
     robust : whether the design averaged over the guess's uncertainty.
     candidates, feasible : schedules tried and those inside the linear range and the cell.
+    study : the compiled plan; assessment : the assessment of the designed schedule's points.
     """
 
     schedule: Schedule
@@ -56,35 +57,11 @@ class TitrationDesign:
     candidates: int
     feasible: int
     study: Study = field(repr=False, compare=False)
-    assessment_summary: dict = field(default_factory=dict, hash=False)
+    assessment: Assessment | None = field(default=None, repr=False, compare=False)
 
     @property
     def se_ratio_vs_equal(self) -> float:
         return self.se_equal / self.se_target if self.se_target > 0 else float("nan")
-
-    def summary(self) -> dict:
-        def f(x):
-            x = float(x)
-            return x if np.isfinite(x) else None
-
-        out = dict(self.assessment_summary)
-        t = self.study.bench.titration
-        out["titration"] = {
-            "cell": t.cell,
-            "titrant": self.titrant,
-            "start_volume_mL": t.start_volume_mL,
-            "max_volume_mL": t.max_volume_mL,
-            "additions": int(self.schedule.steps.__len__()),
-            "aliquots_mL": [float(x) for x in self.schedule.aliquot_mL],
-            "added_mL": [float(x) for x in self.schedule.added_mL],
-            "se_target": f(self.se_target),
-            "se_equal_aliquots": f(self.se_equal),
-            "se_ratio_vs_equal": f(self.se_ratio_vs_equal),
-            "robust": self.robust,
-            "candidates": self.candidates,
-            "candidates_feasible": self.feasible,
-        }
-        return out
 
 
 def schedule_points(study: Study, schedule: Schedule) -> Recipe:
@@ -263,5 +240,5 @@ def design_titration(
         n_cand,
         n_feas,
         st,
-        a.summary(),
+        a,
     )

@@ -27,6 +27,7 @@ from planner.jobs.classic import (
 from planner.jobs.classic import rivals as rv
 from planner.jobs.plan.checks import hand_bias, hand_bias_summary
 from planner.model.compiled import predict, tube_ions_M
+from planner.paper.json_out import to_json
 
 from ...conftest import run_cli as run
 
@@ -132,7 +133,7 @@ def test_job_single_ml2_keeps_one_third_when_weak():
 def test_job_series_on_grid_with_rivals_separated():
     plan = make_plan(species(("ML", 1, 1, 6.0, 0.3)), "ML = { value = 1000.0, rsd = 0.2 }")
     r = job.continuous_variation(plan, points=9)
-    s = r.summary()
+    s = to_json(r)
     vols = r.recipe.volumes_mL[:, :2]
     assert np.allclose(np.round(vols / 0.05), vols / 0.05)  # on the 0.05 mL grid
     assert np.ptp(vols.sum(axis=1)) < 1e-9  # constant total
@@ -238,7 +239,7 @@ def weak_plan(log_k: float = 2.5, sd: float = 0.2, cM: str = "0.5 M"):
 def test_fraction_converted_matches_closed_form():
     plan = weak_plan()
     r = calibration.conversion_tube(plan)
-    s = r.summary()
+    s = to_json(r)
     M0, L0, K = s["excess_conc_M"], s["limiting_conc_M"], 10**2.5
     # derived: f = ((M+L+1/K) − sqrt((M+L+1/K)² − 4ML))/(2L), ligand limiting
     sq = M0 + L0 + 1 / K
@@ -254,7 +255,7 @@ def test_fraction_converted_matches_closed_form():
 
 def test_excess_needed_over_the_guess_range_closed_form():
     plan = weak_plan()
-    s = calibration.conversion_tube(plan).summary()
+    s = to_json(calibration.conversion_tube(plan))
     L0 = s["limiting_conc_M"]
     K_lo = 10 ** (2.5 - 2 * 0.2)
     for f in (0.99, 0.999):
@@ -280,7 +281,7 @@ def test_calibration_strong_complex_answers_and_weak_one_does_not(tmp_path, caps
         species(("ML", 1, 1, 6.0, 0.3)), "ML = { value = 1000.0, rsd = 0.1 }", cM="20 mM", cL="2 mM"
     )
     r = calibration.conversion_tube(strong)
-    assert r.answers and r.summary()["fraction_converted"]["worst"] >= 0.99
+    assert r.answers and to_json(r)["fraction_converted"]["worst"] >= 0.99
     weak = calibration.conversion_tube(weak_plan(log_k=1.5, sd=0.3, cM="0.1 M"))
     assert not weak.answers
     ids = {c.id: c for c in weak.checks}
@@ -319,7 +320,7 @@ def test_mole_ratio_break_at_stoichiometric_ratio_for_strong_k(name, q, log_beta
         cM="2 mM",
         cL=f"{2 * q} mM",
     )
-    s = mole_ratio.mole_ratio_series(plan).summary()
+    s = to_json(mole_ratio.mole_ratio_series(plan))
     assert s["break_ratio"] == pytest.approx(q, rel=0.02)
     assert s["break_ratio_expected"] == q and s["resolvable"] is True and s["answers"] is True
 
@@ -345,7 +346,7 @@ def test_mole_ratio_shortfall_matches_one_over_sqrt_kc():
 def test_mole_ratio_weak_complex_not_resolvable_and_concentration_offered():
     plan = make_plan(species(("ML", 1, 1, 3.5, 0.2)), "ML = { value = 1000.0 }", cM="2 mM", cL="2 mM")
     r = mole_ratio.mole_ratio_series(plan)
-    s = r.summary()
+    s = to_json(r)
     assert not r.answers and s["resolvable"] is False and s["shortfall_fraction"] > 0.1
     # the concentration offered makes K·C of order 100 (derived: shortfall ≤ 10 % ⟺ K·C ≳ 80 for 1:1)
     kc = 10**3.5 * s["conc_needed_M"]
@@ -400,7 +401,7 @@ def test_survey_picks_band_maximum_when_readings_are_small():
     # derived: with only the complex absorbing and every reading well below 0.434 (where σ_A/A is smallest,
     # Ringbom 1939), SE(log β) ∝ σ_A/ε falls as ε rises, so the band maximum carries the most information
     r = survey.wavelength_survey(band_plan())
-    s = r.summary()
+    s = to_json(r)
     assert s["wavelength_nm"] == pytest.approx(520, abs=1)
     assert max(t["absorbance"] for t in s["tubes"]) < 0.434
     assert r.answers
@@ -410,7 +411,7 @@ def test_survey_moves_away_from_a_free_ligand_band():
     # derived: a free ligand absorbing on the short side adds readings (noise) without information about K,
     # and pushes the tubes out of the linear range there, so the best wavelength moves to the long side
     r = survey.wavelength_survey(band_plan("L = { peak_nm = 470, fwhm_nm = 80, epsilon_max = 100.0 }\n"))
-    s = r.summary()
+    s = to_json(r)
     assert s["wavelength_nm"] > 525
     best = min((d for d in s["se_by_wavelength"] if d["in_range"]), key=lambda d: d["se"])
     assert best["wavelength_nm"] == s["wavelength_nm"]
@@ -489,11 +490,11 @@ def test_job_total_offered_does_separate():
     plan = make_plan(
         species(("ML", 1, 1, 3.0, 0.3)), "ML = { value = 1000.0, rsd = 0.2 }", cM="0.2 mM", cL="0.2 mM"
     )
-    s = job.continuous_variation(plan, total_M=1e-4).summary()
+    s = to_json(job.continuous_variation(plan, total_M=1e-4))
     assert any(d["separation_sd"] < rv.SEPARATION_WANTED and not d["nested"] for d in s["discrimination"])
     need = s["total_needed_M"]
     assert need is not None and need > 1e-4
-    again = job.continuous_variation(plan, total_M=1.1 * need).summary()
+    again = to_json(job.continuous_variation(plan, total_M=1.1 * need))
     assert all(d["separation_sd"] >= rv.SEPARATION_WANTED for d in again["discrimination"] if not d["nested"])
 
 

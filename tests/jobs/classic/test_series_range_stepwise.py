@@ -18,6 +18,7 @@ from planner.jobs.classic import run_series
 from planner.jobs.compile import compile_study
 from planner.jobs.plan.assess import assess
 from planner.jobs.plan.checks import hand_bias, hand_bias_summary
+from planner.paper.json_out import to_json
 
 from ...conftest import ROOT, run_cli, scenario_text
 
@@ -135,7 +136,7 @@ def test_teaching_job_default_gives_up_points_to_stay_inside_at_the_guess():
     plan = parse_plan_text(scenario_text("teaching"))
     r = run_series(plan, "job")
     assert r.recipe.n_tubes < 9 and any("cannot all stay inside" in n for n in r.notes)
-    assert max(t["absorbance"] for t in r.summary()["tubes"]) <= 1.0
+    assert max(t["absorbance"] for t in to_json(r)["tubes"]) <= 1.0
     assert next(c for c in r.checks if c.id == "linear-range").status in ("pass", "warn")
 
 
@@ -175,7 +176,7 @@ def test_stepwise_plans_through_every_series_method(kind, tmp_path, capsys, monk
 def test_calibration_warns_when_the_excess_forms_the_higher_complex():
     plan = parse_plan_text(stepwise_text("ML2", "10 mM", "10 mM"))
     r = run_series(plan, "calibration", limiting="M")
-    s = r.summary()
+    s = to_json(r)
     other = s["other_complexes"]
     assert other["species"] == ["ML2"]
     check = next(c for c in r.checks if c.id == "other-complexes")
@@ -201,11 +202,11 @@ def test_job_and_mole_ratio_say_what_the_second_complex_does():
     ext = next(c for c in job.checks if c.id == "extremum")
     assert "moves with C" in ext.message and "0.333 (1:2)" in ext.message and "0.500 (1:1)" in ext.message
     mr = run_series(plan, "mole-ratio", total_M=2e-3, max_ratio=3.0)
-    other = mr.summary()["other_complexes"]
+    other = to_json(mr)["other_complexes"]
     # the break "with ML alone" is the break of the same tubes on a plan without ML2 (an independent run)
     alone_text = stepwise_text("", "10 mM", "10 mM")
     alone = run_series(parse_plan_text(alone_text), "mole-ratio", total_M=2e-3, max_ratio=3.0)
-    assert other["break_ratio_target_alone"] == pytest.approx(alone.summary()["break_ratio"], rel=1e-6)
+    assert other["break_ratio_target_alone"] == pytest.approx(to_json(alone)["break_ratio"], rel=1e-6)
     assert any(c.id == "other-complexes" for c in mr.checks)
 
 

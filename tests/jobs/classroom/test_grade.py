@@ -24,6 +24,7 @@ from planner.jobs.classroom.grade import grade_class
 from planner.jobs.classroom.practice import key_cards, simulate_class, student_recipes, world
 from planner.jobs.compile import compile_study
 from planner.jobs.plan.even import even_series_for
+from planner.paper.json_out import to_json
 
 from ...conftest import scenario_text
 
@@ -62,12 +63,12 @@ def classes():
 def test_class_constant_is_the_truth_not_the_guess(classes, world_):
     study, out = classes
     g, _, _, truth = out[world_]
-    p = g.summary()["pooled"]["parameters"][0]
+    p = to_json(g)["pooled"]["parameters"][0]
     assert p["name"] == "log_beta[ML]"
     assert abs(p["estimate"] - truth.log_beta[0]) <= 3 * p["se"]  # within 3 SE [derived: normal, 99.7 %]
     assert p["profile_ci95"][0] < p["estimate"] < p["profile_ci95"][1]
     assert p["guess"] == pytest.approx(3.3) and p["off_by"] == pytest.approx(p["estimate"] - 3.3)
-    assert "the plan guessed 3.30" in g.summary()["guess_note"]
+    assert "the plan guessed 3.30" in to_json(g)["guess_note"]
 
 
 def test_each_injected_mixup_is_found(classes):
@@ -131,7 +132,7 @@ def test_the_key_bands_are_explained_when_the_guess_was_off(classes):
     # the class's constants hold about 95 % of them (±2 sd) [derived]
     _, out = classes
     g, _, _, _ = out[(0.3, 1.08)]
-    s = g.summary()
+    s = to_json(g)
     assert s["band_shares"]["class"] > 0.9 > s["band_shares"]["key"]
     assert "the guess was off, not the students" in s["key_note"]
     r = s["students"][0]["readings"][0]
@@ -145,7 +146,7 @@ def test_without_a_usable_student_the_guess_is_used():
         results[sid].pop("T8")
     g = grade_class(study, cards, results)
     assert g.pooled is None and all(s.verdict == "incomplete" for s in g.students)
-    assert g.summary()["judged_against"] == "plan's guess"
+    assert to_json(g)["judged_against"] == "plan's guess"
 
 
 def test_not_a_reading_is_refused_naming_the_student():

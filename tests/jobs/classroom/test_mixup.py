@@ -11,6 +11,7 @@ from planner.jobs.classroom.practice import inject
 from planner.jobs.classroom.slips import transposed
 from planner.jobs.compile import compile_study
 from planner.jobs.plan.even import even_series_for
+from planner.paper.json_out import to_json
 
 from ...conftest import scenario_text
 
@@ -59,7 +60,7 @@ def test_clean_readings_are_unexplained(setup):
     )
     assert explained <= 2
     d = diagnose(study, recipe, inject(study, recipe, None, rng)[0])
-    assert d.summary()["explanation"] == "unexplained"
+    assert to_json(d)["explanation"] == "unexplained"
 
 
 def test_slips_outside_the_old_menu_get_no_decisive_wrong_name(setup):
@@ -96,7 +97,7 @@ def test_percent_t_is_recognised(setup):
     assert d.best is not None and d.best.kind == "percent-T" and "look like %T" in d.text
     junk = np.linspace(20.0, 90.0, recipe.n_tubes)  # rising %T: falling absorbance, no curve of this recipe
     d = diagnose(study, recipe, junk)
-    assert d.best is None and "not absorbances" in d.summary()["candidate"]
+    assert d.best is None and "not absorbances" in to_json(d)["candidate"]
 
 
 def test_the_named_explanation_leaves_the_readings_passing(setup):

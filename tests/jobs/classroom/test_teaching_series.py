@@ -54,7 +54,7 @@ def test_saturation_covers_the_curve_at_the_guess_and_one_sd_off(study, cset):
     for c in cset.cards[:12]:
         for shift in (-sd, 0.0, sd):
             a = assess_study(study, c.recipe, at={"ML": 3.3 + shift}, precision=False)
-            s = np.array([t["saturation"] for t in a.tube_rows()])
+            s = a.state.saturation
             inside = (s >= WINDOW[0]) & (s <= WINDOW[1])
             assert inside.sum() >= (2 if shift == 0 else 1), (c.student, shift, s)
             assert s.max() - s.min() >= 0.5 * (WINDOW[1] - WINDOW[0]) - 1e-9, (c.student, shift)

@@ -12,6 +12,7 @@ from planner.inputs.readings import Readings, parse_readings_csv
 from planner.inputs.recipe import RecipeError, make_recipe, recipe_to_csv
 from planner.jobs.compile import compile_study
 from planner.jobs.measure.fit import fit_readings
+from planner.paper.json_out import to_json
 
 from ...conftest import scenario_text
 
@@ -73,7 +74,7 @@ def test_saturated_readings_are_not_determined(plan):
     f = fit_readings(plan, _readings(plan, log_beta=12.0, noise=False))
     assert not f.determined and f.reason
     assert np.all(np.isnan(f.se))
-    assert f.summary()["determined"] is False
+    assert to_json(f)["determined"] is False
 
 
 def test_too_good_to_be_true_is_flagged(plan):

@@ -14,6 +14,7 @@ from scipy.stats import norm
 from planner.inputs.files import write_atomic
 from planner.inputs.plan import parse_plan_text
 from planner.jobs.plan.design import design
+from planner.paper.json_out import to_json
 
 from ...conftest import run_cli as run
 
@@ -106,7 +107,7 @@ def test_nothing_to_reveal_keeps_the_target_only_design_and_says_what_would():
     assert "stands" in mc.reason
     advice = " ".join(mc.advice)
     assert "M2L" in advice and "metal in excess" in advice and "design.fixed holds TM" in advice
-    s = guarded.summary()["model_check"]
+    s = to_json(guarded)["model_check"]
     assert s["replaced"] is False and s["se_cost_cap"] == pytest.approx(1.25) and s["tubes_moved"] == 0
 
 

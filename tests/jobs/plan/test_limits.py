@@ -20,6 +20,7 @@ from planner.jobs.plan.design import design
 from planner.jobs.plan.even import even_series, even_series_for
 from planner.jobs.plan.limits import target_se
 from planner.model.compiled import predict, tube_ions_M
+from planner.paper.json_out import to_json
 from planner.uncertainty import catalogue
 from planner.uncertainty.budget import delivery_sds
 from planner.uncertainty.sources import error_sources
@@ -43,7 +44,7 @@ def test_shares_sum_to_one_and_sources_add_up_to_the_budget(plan_path):
     csv = plan_path.with_suffix(".csv")
     recipe = read_points(csv, plan, study) if csv.exists() else even_series_for(study, study.tubes)
     a = assess_study(study, recipe, trials=0)
-    shares = a.summary()["error_shares"]
+    shares = to_json(a)["error_shares"]
     assert sum(s["share"] for s in shares) == pytest.approx(1.0, abs=1e-6)
     assert [s["share"] for s in shares] == sorted((s["share"] for s in shares), reverse=True)
     assert all(s["share"] >= -1e-12 for s in shares)
@@ -131,7 +132,7 @@ def test_shares_agree_with_a_monte_carlo_one_source_at_a_time():
     v_known = np.var(r_known.theta[:, known.target], ddof=1)
     assert v_free == pytest.approx(var, rel=0.11)
     assert v_free / v_known == pytest.approx(a.limits.epsilon_factor, rel=0.15)
-    assert a.summary()["epsilon_fitted"]["variance_factor"] == pytest.approx(a.limits.epsilon_factor)
+    assert to_json(a)["epsilon_fitted"]["variance_factor"] == pytest.approx(a.limits.epsilon_factor)
 
 
 PIPETTE_PLAN = (
@@ -201,7 +202,7 @@ def test_design_says_when_the_goal_is_out_of_reach_and_exits_1(tmp_path, capsys,
     text = scenario_text("teaching").replace("goal_se = 0.05", "goal_se = 0.002")
     d = design(parse_plan_text(text), seed=0, check_model=False)
     assert d.verdict == "unresolved" and "misses the goal by ×" in d.verdict_reason
-    s = d.summary()
+    s = to_json(d)
     assert s["verdict"] == "unresolved" and abs(sum(x["share"] for x in s["error_shares"]) - 1) < 1e-6
     assert "best_change" in s
     path = tmp_path / "p.toml"

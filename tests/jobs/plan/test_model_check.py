@@ -10,6 +10,7 @@ from planner.jobs.compile import compile_study
 from planner.jobs.plan.assess import assess
 from planner.jobs.plan.design import design, design_study
 from planner.jobs.plan.even import even_series
+from planner.paper.json_out import to_json
 
 from ...conftest import scenario_text
 
@@ -58,7 +59,7 @@ def test_zero_weight_gives_the_target_optimal_design():
 def test_assess_reports_detection_power_for_any_recipe():
     plan = parse_plan_text(scenario_text("teaching"))
     a = assess(plan, even_series(plan), trials=200, seed=1)
-    rows = a.summary()["model_check"]
+    rows = to_json(a)["model_check"]
     assert [r["alternative"] for r in rows] == ["ML2", "M2L"]
     assert all(0.0 <= r["power"] <= 1.0 and r["dof"] == 6 for r in rows)
     assert any(c.id == "model-check" for c in a.checks)

@@ -16,6 +16,7 @@ from planner.jobs.plan.candidates import Candidates, information_rows, rows_with
 from planner.jobs.plan.design import design_study
 from planner.jobs.plan.even import even_series_for
 from planner.jobs.plan.sequential import next_batch, next_labels, posterior_se
+from planner.paper.json_out import to_json
 
 from ...conftest import scenario_text
 
@@ -75,7 +76,7 @@ def test_the_next_batch_continues_the_experiment():
         nb.study, nb.everything, trials=0, profile_chi2=False, model_check=False
     ).target_se
     assert nb.se_after <= together < alone
-    assert {c["id"] for c in nb.design_summary()["checks"]} and len(nb.design_summary()["tubes"]) == 10
+    assert {c["id"] for c in to_json(nb)["checks"]} and len(to_json(nb)["tubes"]) == 10
     # the template of every tube, once its new absorbances are filled in, is one readings file for kplan fit
     both = concat_recipes([first, nb.recipe])
     template = readings_to_csv(

@@ -12,6 +12,7 @@ from planner.jobs.spectra.assess import assess_spectra
 from planner.jobs.spectra.precision import information_by_wavelength
 from planner.jobs.spectra.reading import expected, spectra_model
 from planner.model.jacobians import absorbance_derivatives
+from planner.paper.json_out import to_json
 from planner.uncertainty.budget import error_budget
 from planner.uncertainty.spectra_budget import totals_errors
 
@@ -57,7 +58,7 @@ def test_whole_spectrum_beats_every_single_wavelength():
     # nuisance ε), so its information about the target is at least any one wavelength's
     plan, study, rec = example()
     a = assess_spectra(study, even_recipe(plan), trials=0, profile_chi2=False, factors=False)
-    sp = a.summary()["spectra"]
+    sp = to_json(a)["spectra"]
     assert sp["se_whole_spectrum"] < sp["se_best_single_wavelength"]
     single = np.array([r["se_single"] or np.inf for r in sp["by_wavelength"]])
     assert np.all(sp["se_whole_spectrum"] <= single * (1 + 1e-9))
@@ -83,7 +84,7 @@ def test_information_shares_sum_the_targets_information():
 
 def test_assessment_json_keeps_the_baseline_keys_and_adds_spectra():
     plan, study, rec = example()
-    s = assess_spectra(study, rec, trials=50, seed=0).summary()
+    s = to_json(assess_spectra(study, rec, trials=50, seed=0))
     for key in (
         "title",
         "verdict",
@@ -133,7 +134,7 @@ def test_one_wavelength_of_the_spectrum_is_the_single_wavelength_assessment():
 
     plan, study, _ = example()
     rec = even_recipe(plan)
-    sp = assess_spectra(study, rec, trials=0, profile_chi2=False, factors=False).summary()["spectra"]
+    sp = to_json(assess_spectra(study, rec, trials=0, profile_chi2=False, factors=False))["spectra"]
     by = {r["wavelength_nm"]: r["se_single"] for r in sp["by_wavelength"]}
     for wl in (431, 520, 600, 690):
         text = EXAMPLE.read_text(encoding="utf-8").replace("wavelength_nm = 600", f"wavelength_nm = {wl}")

@@ -11,6 +11,7 @@ from planner.jobs.plan.candidates import Candidates
 from planner.jobs.spectra.design import concentration_rows, design_spectra
 from planner.jobs.spectra.precision import spectra_cramer_rao
 from planner.jobs.spectra.reading import expected, spectra_model
+from planner.paper.json_out import to_json
 
 from .helpers import DESIGNED, example, variant
 
@@ -39,7 +40,7 @@ def test_design_beats_the_even_series_and_a_single_wavelength_design_across_the_
     plan, study, _ = example()
     d = design_spectra(study, seed=0)
     assert d.se_target < d.se_even
-    sp = d.summary()["spectra"]
+    sp = to_json(d)["spectra"]
     assert sp["se_whole_spectrum"] == d.se_target
     assert sp["se_single_wavelength_design"] > d.se_target  # one wavelength, designed for it
     assert sp["se_best_single_wavelength"] > d.se_target  # these tubes at their best wavelength
@@ -47,5 +48,5 @@ def test_design_beats_the_even_series_and_a_single_wavelength_design_across_the_
     for _, se_d, se_e in d.se_across:
         assert np.isfinite(se_d) and se_d <= se_e * 1.05
     assert d.recipe.n_tubes == 12
-    assert {c["id"]: c["status"] for c in d.summary()["checks"]}["linear-range"] != "fail"
-    assert d.summary()["verdict"] == "resolved"
+    assert {c["id"]: c["status"] for c in to_json(d)["checks"]}["linear-range"] != "fail"
+    assert to_json(d)["verdict"] == "resolved"

@@ -11,6 +11,7 @@ from planner.inputs.plan import load_plan
 from planner.inputs.schedule import Schedule, parse_schedule_csv, schedule_to_csv
 from planner.jobs.compile import compile_study
 from planner.jobs.titration.titrate import design_titration, equal_schedule, schedule_points
+from planner.paper.json_out import to_json
 
 from ...cli.test_design_after import run
 from ...conftest import ROOT
@@ -24,7 +25,7 @@ def test_design_beats_or_matches_equal_aliquots():
     assert d.se_target <= d.se_equal * 1.001
     assert d.recipe.total_volume_mL.max() <= st.bench.titration.max_volume_mL + 1e-9
     lo, hi = st.model.linear_range
-    a = np.array([r["absorbance"] for r in d.summary()["tubes"]])
+    a = np.array([r["absorbance"] for r in to_json(d)["tubes"]])
     assert np.all((a >= lo) & (a <= hi))
     eq = equal_schedule(st)
     assert np.allclose(eq.aliquot_mL, eq.aliquot_mL[0]) and eq.added_mL[-1] <= 1.0 + 1e-9
