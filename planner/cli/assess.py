@@ -8,30 +8,21 @@ from typing import Annotated
 import typer
 
 from .app import app, dump_json
-from .options import MAX_TRIALS, _with_progress, parse_at, read_points
+from .options import JsonFlag, McSeed, PlanFile, _with_progress, parse_at, read_points, trials_option
 
 
 @app.command()
 def assess(
-    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    plan: PlanFile,
     recipe: Annotated[
         Path,
         typer.Argument(
             help="recipe CSV: tube, then one column per stock (mL); for a titration: step, aliquot_mL"
         ),
     ],
-    as_json: Annotated[
-        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
-    ] = False,
-    trials: Annotated[
-        int,
-        typer.Option(
-            help="Monte-Carlo experiments (0: Cramér–Rao only)", min=0, max=MAX_TRIALS, metavar="INTEGER"
-        ),
-    ] = 2000,
-    seed: Annotated[
-        int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0, metavar="INTEGER")
-    ] = 0,
+    as_json: JsonFlag = False,
+    trials: Annotated[int, trials_option("Monte-Carlo experiments (0: Cramér–Rao only)")] = 2000,
+    seed: McSeed = 0,
     at: Annotated[
         list[str] | None,
         typer.Option(

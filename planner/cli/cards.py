@@ -15,7 +15,7 @@ from ..inputs.limits import MAX_CARDS, MAX_TUBES
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, err, out
 from .app import safe_text as S
-from .options import count_option
+from .options import PlanFile, count_option
 
 OUTPUTS = ("cards.pdf", "key.pdf", "key.csv", "key.xlsx", "stocks.pdf", "stocks.csv")
 
@@ -37,7 +37,7 @@ def _sections(roster, k: int | None):
 
 @app.command()
 def cards(
-    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    plan: PlanFile,
     roster_path: Annotated[
         Path | None,
         typer.Option("--roster", help="class roster CSV: id, name (optional section, bench)", metavar="PATH"),

@@ -2,18 +2,14 @@
 
 from __future__ import annotations
 
-from pathlib import Path
-from typing import Annotated
-
-import typer
-
 from ..inputs.text import plural
 from .app import app, out
 from .app import safe_text as S
+from .options import PlanFile
 
 
 @app.command()
-def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> None:
+def check(plan: PlanFile) -> None:
     """Validate a plan and show what was understood: species, constants, stocks, glassware."""
     import numpy as np
     from rich.table import Table

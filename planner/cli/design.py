@@ -12,12 +12,12 @@ from ..inputs.limits import MAX_ADDITIONS
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import MAX_TUBES, count_option
+from .options import MAX_TUBES, PlanFile, count_option
 
 
 @app.command()
 def design(
-    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    plan: PlanFile,
     out_dir: Annotated[
         Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")
     ] = None,
@@ -153,30 +153,23 @@ def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, 
 
 
 def _print_next(p, nb) -> None:
-    from rich.table import Table
-
     from ..paper import fmt
+    from .show import reading_texts, tube_table
 
     out.print(f"[bold]{S(p.title)}[/bold] — after {plural(nb.measured.recipe.n_tubes, 'reading')}")
     out.print(S(nb.reason))
     if nb.stop or nb.recipe is None:
         out.print("[yellow]stop:[/yellow] no next batch")
         return
-    t = Table(title=f"The next {plural(nb.recipe.n_tubes, 'tube')}")
-    dispensed = nb.recipe.dispensed_ids(p)
-    for c in ("tube", *(f"{S(x)} / mL" for x in dispensed), "A ± sd (at what was learned)"):
-        t.add_column(c, justify="right")
     a = nb.assessment
     row = {tube: i for i, tube in enumerate(a.recipe.tubes)}
-    sd = a.absorbance_sd
-    for i, tube in enumerate(nb.recipe.tubes):
-        k = row[tube]
-        t.add_row(
-            S(tube),
-            *(fmt.volume(nb.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
-            f"{a.state.absorbance[k]:.3f} ± {sd[k]:.3f}",
+    readings = reading_texts(a, flag=False)
+    columns = {"A ± sd (at what was learned)": [readings[row[t]] for t in nb.recipe.tubes]}
+    out.print(
+        tube_table(
+            f"The next {plural(nb.recipe.n_tubes, 'tube')}", nb.recipe, p, p.glassware.step_mL, columns
         )
-    out.print(t)
+    )
     target = S(p.target)
     ratio = nb.se_after_even / nb.se_after if nb.se_after > 0 else float("nan")
     word = "better" if ratio >= 1 else "worse"

@@ -10,15 +10,14 @@ import typer
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
+from .options import JsonFlag, PlanFile
 
 
 @app.command()
 def fit(
-    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    plan: PlanFile,
     readings: Annotated[Path, typer.Argument(help="CSV: the recipe columns plus an 'absorbance' column")],
-    as_json: Annotated[
-        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
-    ] = False,
+    as_json: JsonFlag = False,
     exclude: Annotated[
         str | None,
         typer.Option("--exclude", metavar="TUBES", help="tubes to leave out, comma-separated, e.g. T3,T7"),

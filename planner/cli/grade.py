@@ -12,18 +12,17 @@ import typer
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
+from .options import JsonFlag, PlanFile
 
 
 @app.command()
 def grade(
-    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    plan: PlanFile,
     key_dir: Annotated[
         Path, typer.Argument(metavar="KEYDIR", help="the folder kplan cards wrote (its key.csv)")
     ],
     results: Annotated[Path, typer.Argument(help="CSV: student, tube, absorbance")],
-    as_json: Annotated[
-        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
-    ] = False,
+    as_json: JsonFlag = False,
     out_dir: Annotated[
         Path | None,
         typer.Option("--out", help="folder for grades.csv, grades.xlsx and the class report", metavar="PATH"),

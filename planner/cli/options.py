@@ -1,19 +1,35 @@
-"""Helpers shared by the commands: ``--at`` parsing, option limits, reading a recipe or a titration
-schedule, and the Monte-Carlo progress bar."""
+"""What the commands share: the arguments and options several of them take (one definition each),
+``--at`` parsing, option limits, reading a recipe or a titration schedule, and the Monte-Carlo progress
+bar."""
 
 from __future__ import annotations
 
 import math
+from pathlib import Path
+from typing import Annotated
 
+import typer
+
+from ..inputs.choices import PAPERS
 from ..inputs.limits import MAX_TRIALS as MAX_TRIALS  # the limits are defined once, in inputs/limits
 from ..inputs.limits import MAX_TUBES as MAX_TUBES
 from .app import UserError, err
 
+PlanFile = Annotated[Path, typer.Argument(help="plan file (TOML)")]
+RecipeFile = Annotated[Path, typer.Argument(help="recipe CSV")]
+JsonFlag = Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")]
+HtmlFlag = Annotated[bool, typer.Option("--html", help="write HTML instead of PDF", metavar="")]
+PaperSize = Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPERS)}", metavar="TEXT")]
+McSeed = Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0, metavar="INTEGER")]
+
+
+def trials_option(help: str):
+    """The number of Monte-Carlo experiments (0 to the limit of :mod:`planner.inputs.limits`)."""
+    return typer.Option(help=help, min=0, max=MAX_TRIALS, metavar="INTEGER")
+
 
 def count_option(help: str, limit: int, *, hidden: bool = False):
     """A whole-number option from 1 to ``limit`` (a bound from :mod:`planner.inputs.limits`)."""
-    import typer
-
     return typer.Option(help=help, min=1, max=limit, metavar="INTEGER", hidden=hidden)
 
 

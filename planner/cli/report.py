@@ -7,28 +7,21 @@ from typing import Annotated
 
 import typer
 
-from ..inputs.choices import PAPERS as PAPER_CHOICES
 from .app import app
-from .options import MAX_TRIALS
+from .options import HtmlFlag, McSeed, PaperSize, PlanFile, RecipeFile, trials_option
 
 
 @app.command()
 def report(
-    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
-    recipe: Annotated[Path, typer.Argument(help="recipe CSV")],
+    plan: PlanFile,
+    recipe: RecipeFile,
     out_path: Annotated[Path, typer.Option("--out", help="where to write the report", metavar="PATH")] = Path(
         "report.pdf"
     ),
-    html: Annotated[bool, typer.Option("--html", help="write HTML instead of PDF", metavar="")] = False,
-    paper: Annotated[
-        str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}", metavar="TEXT")
-    ] = "A4",
-    trials: Annotated[
-        int, typer.Option(help="Monte-Carlo experiments", min=0, max=MAX_TRIALS, metavar="INTEGER")
-    ] = 2000,
-    seed: Annotated[
-        int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0, metavar="INTEGER")
-    ] = 0,
+    html: HtmlFlag = False,
+    paper: PaperSize = "A4",
+    trials: Annotated[int, trials_option("Monte-Carlo experiments")] = 2000,
+    seed: McSeed = 0,
     design_json: Annotated[
         Path | None, typer.Option("--design", help="design.json from kplan design", metavar="PATH")
     ] = None,

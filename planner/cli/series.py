@@ -12,7 +12,7 @@ from ..inputs.choices import SERIES_METHODS as METHODS
 from ..inputs.limits import MAX_REPLICATES, MAX_TUBES
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import count_option
+from .options import JsonFlag, PlanFile, count_option
 
 # the series' parameters, as the options that set them
 OPTION_OF = {
@@ -28,14 +28,12 @@ OPTION_OF = {
 
 @app.command()
 def series(
-    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    plan: PlanFile,
     method: Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}", metavar="TEXT")],
     out_dir: Annotated[
         Path | None, typer.Option("--out", help="folder for recipe.csv and series.json", metavar="PATH")
     ] = None,
-    as_json: Annotated[
-        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
-    ] = False,
+    as_json: JsonFlag = False,
     points: Annotated[
         int | None,
         count_option(
@@ -199,9 +197,8 @@ def _write(out_dir: Path, r, p, text: str) -> None:
 
 def print_series(r, p) -> None:
     """Verdict, the method's findings, the tubes and the checks (every text through safe_text)."""
-    from rich.table import Table
-
     from ..paper import fmt
+    from .show import STATUS_COLOUR, print_checks, reading_texts, tube_table
 
     out.print(f"[bold]{S(r.title)}[/bold] — {S(r.method)} series")
     out.print(f"Question: {S(r.question)}")
@@ -213,35 +210,15 @@ def print_series(r, p) -> None:
     for line in r.notes:
         out.print(f"  • {S(line)}")
     a = r.assessment
-    col = {"pass": "green", "warn": "yellow", "fail": "red"}
     if a is None:
         for c in r.checks:
-            out.print(f"[{col[c.status]}]{S(c.id)}[/]: {S(c.message)}")
+            out.print(f"[{STATUS_COLOUR[c.status]}]{S(c.id)}[/]: {S(c.message)}")
         return
-    sd = a.absorbance_sd
-    dispensed = r.recipe.dispensed_ids(p)
-    step = p.glassware.step_mL
-    t = Table(title="Tubes")
-    for c in ("tube", *(f"{S(s)} / mL" for s in dispensed), "M tot", "L tot", "A ± sd", *map(S, r.columns)):
-        t.add_column(c, justify="right")
-    lo, hi = a.model.linear_range
-    for i, tube in enumerate(r.recipe.tubes):
-        A = float(a.state.absorbance[i])
-        a_txt = f"{A:.3f} ± {sd[i]:.3f}"
-        if not lo <= A <= hi:
-            a_txt = f"[red]{a_txt} out[/red]"
-        t.add_row(
-            S(tube),
-            *(fmt.volume(r.recipe.column(s)[i], step) for s in dispensed),
-            fmt.conc(a.state.totals_M[i, 0]),
-            fmt.conc(a.state.totals_M[i, 1]),
-            a_txt,
-            *(f"{float(v[i]):.3f}" for v in r.columns.values()),
-        )
-    out.print(t)
-    t = Table(title="Checks")
-    for c in ("check", "status", "what was found / what to do"):
-        t.add_column(c)
-    for c in r.checks:
-        t.add_row(S(c.id), f"[{col[c.status]}]{c.status}[/]", S(c.message))
-    out.print(t)
+    columns = {
+        "M tot": [fmt.conc(x) for x in a.state.totals_M[:, 0]],
+        "L tot": [fmt.conc(x) for x in a.state.totals_M[:, 1]],
+        "A ± sd": reading_texts(a),
+        **{S(k): [f"{float(x):.3f}" for x in v] for k, v in r.columns.items()},
+    }
+    out.print(tube_table("Tubes", r.recipe, p, p.glassware.step_mL, columns))
+    print_checks(r.checks)

@@ -13,115 +13,133 @@ from ..paper.bench_volumes import volume_step_mL
 from .app import out
 from .app import safe_text as S
 
+STATUS_COLOUR = {"pass": "green", "warn": "yellow", "fail": "red"}
+VERDICT_COLOUR = {"resolved": "green", "bounded": "yellow", "unresolved": "red"}
 
-def print_assessment(a, p) -> None:  # noqa: C901
-    """Rich tables of an assessment: verdict first, then parameters, checks and tubes."""
-    out.print(f"[bold]{S(a.title)}[/bold]")
-    vcol = {"resolved": "green", "bounded": "yellow", "unresolved": "red"}
+
+def print_checks(checks) -> None:
+    """The checks' table: each check's status and what was found or what to do."""
+    t = Table(title="Checks")
+    for c in ("check", "status", "what was found / what to do"):
+        t.add_column(c)
+    for c in checks:
+        t.add_row(S(c.id), f"[{STATUS_COLOUR[c.status]}]{c.status}[/]", S(c.message))
+    out.print(t)
+
+
+def reading_texts(a, *, flag: bool = True) -> list[str]:
+    """Each tube's expected reading "A ± sd" (every error source); with ``flag``, the readings outside the
+    linear range in red, marked "out"."""
+    lo, hi = a.model.linear_range
+    texts = []
+    for A, sd in zip(a.state.absorbance.tolist(), a.absorbance_sd.tolist(), strict=True):
+        txt = f"{A:.3f} ± {sd:.3f}"
+        texts.append(f"[red]{txt} out[/red]" if flag and not lo <= A <= hi else txt)
+    return texts
+
+
+def tube_table(title: str, recipe, p, step: float, columns: dict[str, list[str]]) -> Table:
+    """The tubes of ``recipe``: each label, the volume of every dispensed stock on the grid ``step``, then
+    ``columns`` (heading → one text per tube, already safe), all right-aligned."""
+    dispensed = recipe.dispensed_ids(p)
+    t = Table(title=title)
+    for c in ("tube", *(f"{S(s)} / mL" for s in dispensed), *columns):
+        t.add_column(c, justify="right")
+    vols = [recipe.column(s) for s in dispensed]
+    for i, tube in enumerate(recipe.tubes):
+        t.add_row(S(tube), *(fmt.volume(v[i], step) for v in vols), *(col[i] for col in columns.values()))
+    return t
+
+
+def print_verdict(a) -> None:
+    vcol = VERDICT_COLOUR
     if a.verdict:
         out.print(f"Verdict: [bold {vcol[a.verdict]}]{a.verdict}[/] — {S(a.verdict_reason)}")
     elif a.verdict_reason:
         out.print(S(a.verdict_reason))
+
+
+def print_assessment(a, p) -> None:
+    """Rich tables of an assessment: verdict first, then parameters, checks and tubes."""
+    out.print(f"[bold]{S(a.title)}[/bold]")
+    print_verdict(a)
     if a.parameters:
-        t = Table(title="Parameters")
-        for c in ("parameter", "guess", "assumed true", "SE (Cramér–Rao)", "MC sd", "MC bias", "MC 95 %"):
-            t.add_column(c, justify="right")
-        for q in a.parameters:
-            ci = (_finite(q.mc_ci95[0]), _finite(q.mc_ci95[1])) if q.mc_ci95 is not None else None
-            t.add_row(
-                S(q.name),
-                fmt.sig(q.guess, 4),
-                fmt.sig(q.true, 4),
-                fmt.sig(_finite(q.se), 2),
-                fmt.sig(_finite(q.mc_sd), 2),
-                fmt.sig(_finite(q.mc_bias), 2),
-                f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—",
-            )
-        out.print(t)
-        if a.cramer_rao is not None and len(a.parameters) > 1:
-            t = Table(title="Correlations")
-            t.add_column("")
-            for n in a.params.names:
-                t.add_column(S(n), justify="right")
-            for i, n in enumerate(a.params.names):
-                t.add_row(S(n), *(fmt.sig(x, 2) for x in a.cramer_rao.corr[i]))
-            out.print(t)
-        if a.mc is not None and a.mc.failed_fraction > 0:
-            out.print(f"Monte Carlo: {a.mc.failed_fraction:.1%} of fits failed")
+        _print_parameters(a)
     if a.profile is not None:
-        pr = a.profile
-        side = []
-        if pr.low_unbounded:
-            side.append("cannot be told from K → 0")
-        if pr.high_unbounded:
-            side.append("cannot be told from K → ∞")
-        out.print(
-            f"χ² profile of log β[{S(p.target)}] (other parameters refitted; 3.84 = 95 % threshold)"
-            + (f" — {'; '.join(side)}" if side else "")
-        )
-        t = Table(show_header=True, box=None, pad_edge=False)
-        picks = np.unique(np.linspace(0, pr.log_beta.size - 1, 9).round().astype(int))
-        t.add_column("log β", justify="right")
-        for k in picks:
-            t.add_column(
-                ("K→0 " if k == 0 else "K→∞ " if k == pr.log_beta.size - 1 else "") + f"{pr.log_beta[k]:.2f}",
-                justify="right",
-            )
-        t.add_row("Δχ²", *(fmt.sig(float(pr.delta_chi2[k]), 3) for k in picks))
-        out.print(t)
+        _print_profile(a.profile, p.target)
     if a.limits is not None:
         for line in a.limits.lines():
             out.print(S(line))
-    colour = {"pass": "green", "warn": "yellow", "fail": "red"}
-    t = Table(title="Checks")
-    for c in ("check", "status", "what was found / what to do"):
-        t.add_column(c)
-    for c in a.checks:
-        t.add_row(S(c.id), f"[{colour[c.status]}]{c.status}[/]", S(c.message))
-    out.print(t)
-    m = a.model
-    r = a.recipe
-    dispensed = r.dispensed_ids(p)
-    t = Table(title="Tubes")
-    for c in (
-        "tube",
-        *(f"{S(s)} / mL" for s in dispensed),
-        "M tot",
-        "L tot",
-        *(S(x) for x in m.species),
-        "A ± sd",
-        "saturation",
-        "I / M",
-    ):
+    print_checks(a.checks)
+    st, m = a.state, a.model
+    columns = {
+        "M tot": [fmt.conc(x) for x in st.totals_M[:, 0]],
+        "L tot": [fmt.conc(x) for x in st.totals_M[:, 1]],
+        **{S(x): [fmt.conc(c) for c in st.species_M[:, k]] for k, x in enumerate(m.species)},
+        "A ± sd": reading_texts(a),
+        "saturation": [f"{x:.2f}" for x in st.saturation],
+        "I / M": [f"{x:.3g}" for x in st.ionic_strength_M],
+    }
+    out.print(tube_table("Tubes", a.recipe, p, volume_step_mL(p), columns))
+
+
+def _print_parameters(a) -> None:
+    """Every fitted parameter (guess, assumed truth, SE, the Monte Carlo's figures) and the correlations."""
+    t = Table(title="Parameters")
+    for c in ("parameter", "guess", "assumed true", "SE (Cramér–Rao)", "MC sd", "MC bias", "MC 95 %"):
         t.add_column(c, justify="right")
-    sd = a.absorbance_sd
-    lo, hi = m.linear_range
-    step = volume_step_mL(p)
-    st = a.state
-    for i, tube in enumerate(r.tubes):
-        A = float(st.absorbance[i])
-        a_txt = f"{A:.3f} ± {sd[i]:.3f}"
-        if not lo <= A <= hi:
-            a_txt = f"[red]{a_txt} out[/red]"
+    for q in a.parameters:
+        ci = (_finite(q.mc_ci95[0]), _finite(q.mc_ci95[1])) if q.mc_ci95 is not None else None
         t.add_row(
-            S(tube),
-            *(fmt.volume(r.column(s)[i], step) for s in dispensed),
-            fmt.conc(st.totals_M[i, 0]),
-            fmt.conc(st.totals_M[i, 1]),
-            *(fmt.conc(st.species_M[i, k]) for k in range(len(m.species))),
-            a_txt,
-            f"{st.saturation[i]:.2f}",
-            f"{st.ionic_strength_M[i]:.3g}",
+            S(q.name),
+            fmt.sig(q.guess, 4),
+            fmt.sig(q.true, 4),
+            fmt.sig(_finite(q.se), 2),
+            fmt.sig(_finite(q.mc_sd), 2),
+            fmt.sig(_finite(q.mc_bias), 2),
+            f"{fmt.sig(ci[0], 4)} – {fmt.sig(ci[1], 4)}" if ci and ci[0] is not None else "—",
         )
+    out.print(t)
+    if a.cramer_rao is not None and len(a.parameters) > 1:
+        t = Table(title="Correlations")
+        t.add_column("")
+        for n in a.params.names:
+            t.add_column(S(n), justify="right")
+        for i, n in enumerate(a.params.names):
+            t.add_row(S(n), *(fmt.sig(x, 2) for x in a.cramer_rao.corr[i]))
+        out.print(t)
+    if a.mc is not None and a.mc.failed_fraction > 0:
+        out.print(f"Monte Carlo: {a.mc.failed_fraction:.1%} of fits failed")
+
+
+def _print_profile(pr, target: str) -> None:
+    """The χ² profile of the target's log β at a few values across its range."""
+    side = []
+    if pr.low_unbounded:
+        side.append("cannot be told from K → 0")
+    if pr.high_unbounded:
+        side.append("cannot be told from K → ∞")
+    out.print(
+        f"χ² profile of log β[{S(target)}] (other parameters refitted; 3.84 = 95 % threshold)"
+        + (f" — {'; '.join(side)}" if side else "")
+    )
+    t = Table(show_header=True, box=None, pad_edge=False)
+    picks = np.unique(np.linspace(0, pr.log_beta.size - 1, 9).round().astype(int))
+    t.add_column("log β", justify="right")
+    for k in picks:
+        t.add_column(
+            ("K→0 " if k == 0 else "K→∞ " if k == pr.log_beta.size - 1 else "") + f"{pr.log_beta[k]:.2f}",
+            justify="right",
+        )
+    t.add_row("Δχ²", *(fmt.sig(float(pr.delta_chi2[k]), 3) for k in picks))
     out.print(t)
 
 
 def print_design(d, p) -> None:
     """The designed recipe, its promise and the comparison with an evenly spaced series."""
     out.print(f"[bold]{S(p.title)}[/bold] — design")
-    vcol = {"resolved": "green", "bounded": "yellow", "unresolved": "red"}
     if d.verdict:
-        out.print(f"Verdict: [bold {vcol[d.verdict]}]{d.verdict}[/] — {S(d.verdict_reason)}")
+        out.print(f"Verdict: [bold {VERDICT_COLOUR[d.verdict]}]{d.verdict}[/] — {S(d.verdict_reason)}")
     out.print(
         f"criterion {d.criterion}, {'robust over the guess' if d.robust else 'at the guess only'}, "
         f"{plural(d.recipe.n_tubes, 'tube')}, seed {d.seed}; "
@@ -130,20 +148,12 @@ def print_design(d, p) -> None:
     )
     for note in d.notes:
         out.print(f"[yellow]note:[/yellow] {S(note)}")
-    t = Table(title="Designed recipe")
-    dispensed = d.recipe.dispensed_ids(p)
-    for c in ("tube", *(f"{S(x)} / mL" for x in dispensed), "A ± sd", "saturation"):
-        t.add_column(c, justify="right")
     da = d.assessment
-    sd = da.absorbance_sd
-    for i, tube in enumerate(da.recipe.tubes):
-        t.add_row(
-            S(tube),
-            *(fmt.volume(d.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
-            f"{da.state.absorbance[i]:.3f} ± {sd[i]:.3f}",
-            f"{da.state.saturation[i]:.2f}",
-        )
-    out.print(t)
+    columns = {
+        "A ± sd": reading_texts(da, flag=False),
+        "saturation": [f"{x:.2f}" for x in da.state.saturation],
+    }
+    out.print(tube_table("Designed recipe", d.recipe, p, p.glassware.step_mL, columns))
     target = S(p.target)
     ratio = d.se_even_over_design
     compare = (

@@ -8,15 +8,14 @@ from typing import Annotated
 import typer
 
 from .app import app, dump_json
+from .options import JsonFlag, PlanFile
 
 
 @app.command()
 def stocks(
-    plan: Annotated[Path, typer.Argument(help="plan file (TOML)")],
+    plan: PlanFile,
     recipe: Annotated[Path | None, typer.Argument(help="recipe CSV, for the volumes needed")] = None,
-    as_json: Annotated[
-        bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")
-    ] = False,
+    as_json: JsonFlag = False,
     scarce: Annotated[
         list[str] | None,
         typer.Option(

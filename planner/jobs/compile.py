@@ -12,7 +12,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from ..inference.precision import free_parameters
+from ..inference.precision import Parameters, free_parameters, unpack
 from ..inference.study import Study
 from ..inputs.plan import Plan, PlanError, ion_charge, unknown_name
 from ..inputs.recipe import Recipe, totals_M
@@ -219,6 +219,15 @@ def expected_state(model: Model, recipe: Recipe, *, batch: int | None = None, **
         tot = np.broadcast_to(tot, (batch,) + tot.shape)
         ions = np.broadcast_to(ions, (batch,) + ions.shape)
     return predict(model, tot, ions, **kw)
+
+
+def expected_at(
+    model: Model, params: Parameters, recipe: Recipe, theta: np.ndarray
+) -> tuple[TubeState, np.ndarray]:
+    """Every tube of ``recipe`` at each parameter vector of ``theta`` (G, P) at once: the states (G, n) and
+    the absorptivities (G, A) they were computed with."""
+    lb, eps, _ = unpack(model, params, theta)
+    return expected_state(model, recipe, batch=theta.shape[0], log_beta=lb, epsilon_M_cm=eps, warn=False), eps
 
 
 def true_constants(model: Model, at: Mapping[str, float] | None) -> np.ndarray:

@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import replace
 
 from ...inference.precision import free_parameters as _free_parameters
-from ...inference.precision import whitening
+from ...inference.precision import parameter_jacobian, whitening
 from ...inputs.plan import Epsilon, Plan, PlanError
 from ...inputs.recipe import Recipe, make_recipe, totals_M
 from ...inputs.text import plural
@@ -19,7 +19,8 @@ from ...model.compiled import Model, TubeState, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
 from ...model.optics import bandwidth_factor
 from ...uncertainty import budget as _budget
-from ..compile import build_model, compile_bench, error_budget, make_up_min_mL, plan_devices
+from ...uncertainty.delivery import snap_to_grid
+from ..compile import build_model, compile_bench, error_budget, expected_state, make_up_min_mL, plan_devices
 from ..plan.assess import Assessment
 from ..plan.checks import RANGE_RISK, SECOND_COMPLEX_SHARE, Check, blanks, hand_bias_summary, range_band
 from ..plan.even import even_series
@@ -43,15 +44,18 @@ __all__ = [
     "error_budget",
     "error_factors",
     "even_series",
+    "expected_state",
     "free_parameters",
     "hand_bias_summary",
     "make_recipe",
     "make_up_min_mL",
+    "parameter_jacobian",
     "plan_devices",
     "plan_model",
     "plural",
     "predict",
     "range_band",
+    "snap_to_grid",
     "totals_M",
     "tube_ions_M",
     "whitening",

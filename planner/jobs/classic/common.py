@@ -30,6 +30,7 @@ from ._deps import (
     range_band,
     tube_ions_M,
 )
+from ._deps import snap_to_grid as snap  # the one rounding to the grid (the methods call it snap)
 
 STATUSES = ("pass", "warn", "fail")
 # checks of kplan assess that keep their meaning for every classic series; the others (saturation
@@ -143,11 +144,6 @@ def finish(
 
 # ----------------------------------------------------------------------------------------------------
 # numbers shared by the methods
-
-
-def snap(v, step: float) -> np.ndarray:
-    """Round volumes to the grid (and to 10 decimals so 0.1 + 0.2 prints as 0.3)."""
-    return np.round(np.round(np.asarray(v, dtype=float) / step) * step, 10)
 
 
 def pure_stock(plan: Plan, comp: str) -> tuple[int, str, float]:

@@ -29,10 +29,11 @@ from ._deps import (
     bandwidth_factor,
     error_factors,
     even_series,
+    expected_state,
     free_parameters,
+    parameter_jacobian,
     plan_devices,
     plan_model,
-    predict,
     range_band,
     totals_M,
     tube_ions_M,
@@ -166,15 +167,7 @@ def _epsilon_by_wavelength(plan: Plan, model, lam: np.ndarray) -> np.ndarray:
 def _se_by_wavelength(plan: Plan, model, recipe: Recipe, eps: np.ndarray):
     """SE(log β[target]), highest and lowest reading at every wavelength, vectorised over wavelengths."""
     L = eps.shape[0]
-    tot = totals_M(recipe, model.stock_conc_M)
-    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-    st = predict(
-        model,
-        np.broadcast_to(tot, (L,) + tot.shape),
-        np.broadcast_to(ions, (L,) + ions.shape),
-        epsilon_M_cm=eps,
-        warn=False,
-    )
+    st = expected_state(model, recipe, batch=L, epsilon_M_cm=eps, warn=False)
     der = absorbance_derivatives(model, st, eps)
     params = free_parameters(plan, model)
     if params.target < 0:
@@ -183,17 +176,7 @@ def _se_by_wavelength(plan: Plan, model, recipe: Recipe, eps: np.ndarray):
             "the target constant is held fixed (log_beta_sd = 0): "
             "give its uncertainty so the survey has something to resolve",
         )
-    cols = []
-    for p in range(params.size):
-        k = params.kind[p]
-        cols.append(
-            der.dA_dlog_beta[..., params.index[p]]
-            if k == 0
-            else der.dA_depsilon[..., params.index[p]]
-            if k == 1
-            else np.ones(st.absorbance.shape)
-        )
-    J = np.stack(cols, axis=-1)  # (Λ, n, P)
+    J = parameter_jacobian(params, der)  # (Λ, n, P)
     f = error_factors(plan, model, recipe, st, plan_devices(plan), dA_dtotals=der.dA_dtotals)
     cov = (
         np.einsum("...i,ij->...ij", f.independent_var, np.eye(recipe.n_tubes))

@@ -25,13 +25,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...inference.precision import ReadingModel, unpack
+from ...inference.precision import ReadingModel
 from ...inference.priors import Nodes
 from ...inference.study import Study
-from ...inputs.recipe import Recipe, totals_M
-from ...model.compiled import predict, tube_ions_M
+from ...inputs.recipe import Recipe
+from ...model.compiled import tube_ions_M
 from ...model.jacobians import absorbance_derivatives
 from ...uncertainty.budget import error_factors
+from ..compile import expected_at
 
 __all__ = ["Rows", "pooled_target_se", "recipe_rows", "student_target_var"]
 
@@ -69,22 +70,12 @@ class Rows:
 def recipe_rows(study: Study, recipe: Recipe, nodes: Nodes) -> Rows:
     """Information rows of every tube of ``recipe`` at every node (vectorised over tubes)."""
     model, params = study.model, study.params
-    tot = totals_M(recipe, model.stock_conc_M)
+    st, eps = expected_at(model, params, recipe, nodes.theta)
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-    G = nodes.theta.shape[0]
-    lb, eps, _ = unpack(model, params, nodes.theta)
-    st = predict(
-        model,
-        np.broadcast_to(tot, (G,) + tot.shape),
-        np.broadcast_to(ions, (G,) + ions.shape),
-        log_beta=lb,
-        epsilon_M_cm=eps,
-        warn=False,
-    )
-    J = ReadingModel(model, params, tot, ions).jac(nodes.theta)  # (G, C, P)
+    J = ReadingModel(model, params, st.totals_M[0], ions).jac(nodes.theta)  # (G, C, P)
     der = absorbance_derivatives(model, st, eps)
     th, sk, dv = [], [], []
-    for g in range(G):  # a handful of nodes, each vectorised over the tubes
+    for g in range(nodes.theta.shape[0]):  # a handful of nodes, each vectorised over the tubes
         f = error_factors(study.bench, model, recipe, st[g], dA_dtotals=der.dA_dtotals[g])
         sd = np.sqrt(f.independent_var)[:, None]
         th.append(J[g] / sd)

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ...inference.design_criteria import DesignError
-from ...inference.precision import parameter_jacobian, unpack
+from ...inference.precision import parameter_jacobian
 from ...inference.priors import Nodes
 from ...inference.study import Study
 from ...inputs.recipe import Recipe, concat_recipes, totals_M
@@ -30,6 +30,7 @@ from ...model.compiled import Model, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
 from ...uncertainty import delivery
 from ...uncertainty.budget import delivery_sds, error_factors
+from ..compile import expected_at
 from .checks import RANGE_RISK, prior_range_risk
 
 __all__ = [
@@ -318,18 +319,8 @@ def information_rows(
     (an unused nuisance factor only adds a decoupled unit block to the information)."""
     model, params = study.model, study.params
     rec = cand.recipe
-    tot = totals_M(rec, model.stock_conc_M)
-    ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
     G = nodes.theta.shape[0]
-    lb, eps, _ = unpack(model, params, nodes.theta)
-    st = predict(
-        model,
-        np.broadcast_to(tot, (G,) + tot.shape),
-        np.broadcast_to(ions, (G,) + ions.shape),
-        log_beta=lb,
-        epsilon_M_cm=eps,
-        warn=False,
-    )
+    st, eps = expected_at(model, params, rec, nodes.theta)
     der = absorbance_derivatives(model, st, eps)
     J = parameter_jacobian(params, der)  # (G, C, P), as reading.jac(nodes.theta) without a second solve
     var = np.empty(st.absorbance.shape)

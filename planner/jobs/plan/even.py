@@ -12,11 +12,8 @@ from ...inference.study import Study
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe, stock_matrix
 from ...uncertainty.bench import Bench
+from ...uncertainty.delivery import snap_to_grid
 from ..compile import compile_bench
-
-
-def _snap(v: np.ndarray, step: float) -> np.ndarray:
-    return np.round(np.round(np.asarray(v) / step) * step, 10)
 
 
 def metal_and_ligand_stocks(plan: Plan) -> tuple[str, str]:
@@ -66,12 +63,14 @@ def _even(
     m_id, l_id = _metal_and_ligand(g.stock_ids, stock_conc_M)
     step = g.step_mL
     if metal_mL is None:
-        metal_mL = g.fixed_mL.get(m_id, max(float(_snap(0.1 * g.tube_volume_mL, step)), g.min_volume_mL))
+        metal_mL = g.fixed_mL.get(
+            m_id, max(float(snap_to_grid(0.1 * g.tube_volume_mL, step)), g.min_volume_mL)
+        )
     lo = max(g.min_volume_mL, step)
     hi = min(
         ligand_max_fraction * g.tube_volume_mL,
         g.tube_volume_mL - metal_mL - sum(v for k, v in g.fixed_mL.items() if k not in (m_id, l_id)),
     )
-    lig = _snap(np.linspace(lo, hi, n), step)
+    lig = snap_to_grid(np.linspace(lo, hi, n), step)
     vols = {m_id: np.full(n, metal_mL), l_id: lig}
     return g.make_recipe(vols)

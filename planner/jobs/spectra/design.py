@@ -27,11 +27,11 @@ from ...inference import approximate, exchange
 from ...inference.design_criteria import CRITERIA, DesignError
 from ...inference.precision import pack
 from ...inference.study import Study
-from ...inputs.recipe import Recipe, totals_M
-from ...model.compiled import predict, tube_ions_M
+from ...inputs.recipe import Recipe
 from ...model.jacobians import concentration_derivatives
 from ...model.spectra import spectra_readings
 from ...uncertainty.spectra_budget import totals_errors
+from ..compile import expected_at
 from ..plan import checks as chk
 from ..plan.candidates import Candidates, candidate_tubes, neighbourhood, recipe_from_counts
 from ..plan.design import Design, se_across_guess
@@ -50,18 +50,8 @@ def concentration_rows(study: Study, cand: Candidates, theta: np.ndarray, criter
     model, spectra = study.model, study.spectra
     params = spectral_parameters(study)
     rec = cand.recipe
-    tot = totals_M(rec, model.stock_conc_M)
-    ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
     G = theta.shape[0]
-    lb = np.broadcast_to(model.log_beta, (G, model.log_beta.size)).copy()
-    lb[:, params.index] = theta
-    st = predict(
-        model,
-        np.broadcast_to(tot, (G,) + tot.shape),
-        np.broadcast_to(ions, (G,) + ions.shape),
-        log_beta=lb,
-        warn=False,
-    )
+    st, _ = expected_at(model, params, rec, theta)
     cd = concentration_derivatives(model, st)
     ab = np.flatnonzero(spectra.absorbing)
     free = np.flatnonzero(spectra.free[ab])
