@@ -70,27 +70,27 @@ def best_of(fn, repeat=3):
 
 
 def multiplicative_baseline(F, M0, n, criterion, target, iterations):
-    prob = design_criteria._problem(F, criterion, target, M0, None, float(n), True)
+    prob = design_criteria.problem_of(F, criterion, target, M0, None, float(n), True)
     rho = 1.0 if criterion == "all" else 0.5
     idx = np.arange(prob.C)
     w = np.full(prob.C, 1.0 / prob.C)
     for _ in range(iterations):
-        Linv, _ = design_criteria._factor(design_criteria._moment(prob, n * w, idx))
-        d = design_criteria._sens(prob, Linv)
+        Linv, _ = design_criteria.factor(design_criteria.moment(prob, n * w, idx))
+        d = design_criteria.sensitivities(prob, Linv)
         w = w * (d / (w @ d)) ** rho
         w /= w.sum()
-    Linv, _ = design_criteria._factor(design_criteria._moment(prob, n * w, idx))
-    d = design_criteria._sens(prob, Linv)
+    Linv, _ = design_criteria.factor(design_criteria.moment(prob, n * w, idx))
+    d = design_criteria.sensitivities(prob, Linv)
     return (d.max() - w @ d) / prob.k
 
 
 def full_pool_baseline(F, M0, n, criterion, target, approx, seed, starts):
-    prob = design_criteria._problem(F, criterion, target, M0, None, float(n), True)
+    prob = design_criteria.problem_of(F, criterion, target, M0, None, float(n), True)
     rng = np.random.default_rng(seed)
     best = None
     for s in range(starts):
         x0 = (
-            exchange._efficient_rounding(approx.weights, n)
+            exchange.efficient_rounding(approx.weights, n)
             if s == 0
             else np.bincount(rng.integers(0, prob.C, size=n), minlength=prob.C).astype(np.int64)
         )
@@ -115,10 +115,10 @@ def run_case(F, M0, criterion, target, n, iters=200):
         )
     )
     t_full, st = best_of(lambda: full_pool_baseline(F, M0, n, criterion, target, ad, 1, 8), repeat=1)
-    prob = design_criteria._problem(F, criterion, target, M0, None, float(n), True)
+    prob = design_criteria.problem_of(F, criterion, target, M0, None, float(n), True)
     sup = np.flatnonzero(ad.weights)
-    Linv, logdet = design_criteria._factor(design_criteria._moment(prob, n * ad.weights[sup], sup))
-    eff_full = float(np.exp((design_criteria._loss(prob, Linv, logdet) - st.loss) / prob.k))
+    Linv, logdet = design_criteria.factor(design_criteria.moment(prob, n * ad.weights[sup], sup))
+    eff_full = float(np.exp((design_criteria.loss_of(prob, Linv, logdet) - st.loss) / prob.k))
     print(
         f"[{criterion:6s} n={n}] exact:       {t_ex * 1e3:7.1f} ms, efficiency {ex.efficiency:.5f}"
         f" | full-pool exchange: {t_full * 1e3:7.1f} ms, efficiency {eff_full:.5f}"

@@ -14,7 +14,7 @@ import warnings
 import typer
 
 from . import assess, cards, check, demo, design, fit, grade, new, report, series, sheet, stocks  # noqa: F401  (register commands)
-from .app import SCENARIOS, UserError, _user_errors, app, err, one_line
+from .app import SCENARIOS, UserError, app, err, one_line, user_errors
 from .paper_output import PAPER_CHOICES
 
 __all__ = ["PAPER_CHOICES", "SCENARIOS", "UserError", "app", "main"]
@@ -51,7 +51,7 @@ def main() -> None:
         sys.exit(EXIT_INTERRUPTED)
     except Exception as exc:
         # the error classes are imported only now, so that `kplan --help` does not load the numerics
-        if isinstance(exc, _user_errors()):
+        if isinstance(exc, user_errors()):
             _fail(str(exc), 2)
         if isinstance(exc, OSError):
             # the environment, not the input's content: a file that vanished, a full disk, a closed pipe

@@ -103,7 +103,7 @@ class UserError(InputError):
     """Raised by the shell for bad input that is not a plan or recipe problem."""
 
 
-def _user_errors() -> tuple[type[BaseException], ...]:
+def user_errors() -> tuple[type[BaseException], ...]:
     # every error the tool raises for its user derives from KplanError (planner.inputs.errors, which
     # imports nothing heavy, so `kplan --help` stays fast)
     from ..inputs.errors import KplanError

@@ -8,7 +8,7 @@ from typing import Annotated
 import typer
 
 from .app import app, dump_json
-from .options import JsonFlag, McSeed, PlanFile, _with_progress, parse_at, read_points, trials_option
+from .options import JsonFlag, McSeed, PlanFile, parse_at, read_points, trials_option, with_progress
 
 
 @app.command()
@@ -49,7 +49,7 @@ def assess(
 
         job = assess_spectra
     extra = {} if study.spectra is not None else {"suggest": True}  # what would help: one wavelength
-    a = _with_progress(
+    a = with_progress(
         lambda prog: job(study, r, trials=trials, seed=seed, at=at_values, progress=prog, **extra),
         trials,
         quiet=as_json,

@@ -100,14 +100,14 @@ def _fit_spectra(p, study, paths: tuple[Path, Path], recipe: Path | None, skip, 
     if as_json:
         print(dump_json(f))
     else:
-        _print_spectra_fit(f)
+        print_spectra_fit(f)
         if report is not None:
             out.print(f"wrote {S(report)}")
     if not f.determined:
         raise typer.Exit(1)
 
 
-def _print_spectra_fit(f) -> None:
+def print_spectra_fit(f) -> None:
     from rich.table import Table
 
     from ..paper import fmt

@@ -57,7 +57,7 @@ def parse_at(items: list[str]) -> dict[str, float]:
 PROGRESS_WORK = 40_000  # simulated tube readings above which a Monte Carlo takes about a second or more
 
 
-def _with_progress(run, trials: int, quiet: bool, tubes: int = 8):
+def with_progress(run, trials: int, quiet: bool, tubes: int = 8):
     """Run ``run(progress)`` with a rich progress bar when the Monte Carlo is long (trials × tubes)."""
     if quiet or trials * max(tubes, 1) < PROGRESS_WORK or not err.is_terminal:
         return run(None)

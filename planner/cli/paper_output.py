@@ -8,7 +8,7 @@ from pathlib import Path
 from ..inputs.choices import PAPERS
 from .app import UserError, out
 from .app import safe_text as S
-from .options import _with_progress, read_points
+from .options import read_points, with_progress
 
 MAX_DESIGN_JSON_BYTES = 1_000_000  # a design.json is a few kB
 # what the report shows of a design.json, with the JSON types each key may hold
@@ -63,7 +63,7 @@ def read_design_json(path: Path):
 PAPER_CHOICES = tuple(PAPERS)  # the same keys as planner.paper.render.PAPERS (one definition)
 
 
-def _paper_output(
+def paper_output(
     kind: str,
     plan: Path,
     recipe: Path,
@@ -98,7 +98,7 @@ def _paper_output(
     job = assess_study
     if study.spectra is not None:  # the sheet's design check and expected bands come from whole spectra
         from ..jobs.spectra.assess import assess_spectra as job
-    a = _with_progress(
+    a = with_progress(
         lambda prog: job(study, r, trials=trials, seed=seed, progress=prog),
         trials,
         quiet=False,

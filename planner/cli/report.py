@@ -27,6 +27,6 @@ def report(
     ] = None,
 ) -> None:
     """Print the design report: verdict, recipe, plots, checks with fixes, parameters and correlations."""
-    from .paper_output import _paper_output
+    from .paper_output import paper_output
 
-    _paper_output("report", plan, recipe, out_path, html, paper, trials, seed, design_json)
+    paper_output("report", plan, recipe, out_path, html, paper, trials, seed, design_json)

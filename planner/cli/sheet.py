@@ -25,6 +25,6 @@ def sheet(
 ) -> None:
     """Print the prep sheet: stocks and how to make them, each tube's volumes in order, expected
     absorbance with its band, a measurement checklist and the safety notes."""
-    from .paper_output import _paper_output
+    from .paper_output import paper_output
 
-    _paper_output("sheet", plan, recipe, out_path, html, paper, trials, seed)
+    paper_output("sheet", plan, recipe, out_path, html, paper, trials, seed)

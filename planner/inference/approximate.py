@@ -9,27 +9,33 @@ from dataclasses import dataclass
 import numpy as np
 
 from .design_criteria import (
-    _ACTIVE_KEEP,
-    _ACTIVE_MAX,
-    _ADD_PER_STEP,
-    _MULT_ITER,
-    _WATCH_MIN,
-    _WATCH_PER_PARAM,
     DesignError,
-    _as_F,
-    _design_vector,
-    _factor,
-    _loss,
-    _moment,
-    _Problem,
-    _problem,
-    _restrict,
-    _rows,
-    _sens,
-    _target_vec,
-    _top,
-    _value,
+    Problem,
+    as_rows,
+    design_vector,
+    factor,
+    loss_of,
+    moment,
+    problem_of,
+    restrict,
+    rows_of,
+    sensitivities,
+    target_vector,
+    top_k,
+    value_of,
 )
+
+# Approximate designs work on a watch list of the candidates of highest sensitivity (at least
+# _WATCH_MIN, or _WATCH_PER_PARAM per parameter), rescanning all candidates between rounds.
+_WATCH_MIN = 1000
+_WATCH_PER_PARAM = 100
+# Multiplicative iterations that seed the first round (they locate the support; Newton finishes).
+_MULT_ITER = 5
+# Active set handed to Newton: weights above this fraction of the largest, at most _ACTIVE_MAX points.
+_ACTIVE_KEEP = 1e-3
+_ACTIVE_MAX = 60
+# Candidates added per vertex-direction step.
+_ADD_PER_STEP = 3
 
 
 @dataclass(frozen=True, eq=False)
@@ -100,20 +106,20 @@ class ApproximateDesign:
         )
 
 
-def _grad_hess(prob: _Problem, Linv: np.ndarray, S: np.ndarray):
+def _grad_hess(prob: Problem, Linv: np.ndarray, S: np.ndarray):
     """Gradient and Hessian of the loss w.r.t. the weights on the active set S (Newton phase)."""
     G, _, R, P = prob.F.shape
     m = S.size
     n = prob.n
-    Z = np.matmul(_rows(prob, S), Linv.transpose(0, 2, 1))  # (G, mR, P)
+    Z = np.matmul(rows_of(prob, S), Linv.transpose(0, 2, 1))  # (G, mR, P)
     K = np.matmul(Z, Z.transpose(0, 2, 1))  # F_S M⁻¹ F_Sᵀ, (G, mR, mR)
     if prob.criterion == "all":
         q = np.diagonal(K, axis1=1, axis2=2).reshape(G, m, R).sum(axis=2)
         d = n * (prob.nu @ q)
         H = n * n * np.einsum("g,gab->ab", prob.nu, (K * K).reshape(G, m, R, m, R).sum(axis=(2, 4)))
         return -d, H
-    u, v = _target_vec(prob, Linv)
-    y = np.matmul(_rows(prob, S), u[:, :, None])[:, :, 0]  # (G, mR)
+    u, v = target_vector(prob, Linv)
+    y = np.matmul(rows_of(prob, S), u[:, :, None])[:, :, 0]  # (G, mR)
     b = (y * y).reshape(G, m, R).sum(axis=2)
     d = n * ((prob.nu / v) @ b)
     yKy = (y[:, :, None] * K * y[:, None, :]).reshape(G, m, R, m, R).sum(axis=(2, 4))
@@ -130,9 +136,9 @@ def _grad_hess(prob: _Problem, Linv: np.ndarray, S: np.ndarray):
 # --------------------------------------------------------------------------------------------------
 
 
-def _loss_at(prob: _Problem, w: np.ndarray, S: np.ndarray):
-    Linv, logdet = _factor(_moment(prob, prob.n * w, S))
-    return _loss(prob, Linv, logdet), Linv
+def _loss_at(prob: Problem, w: np.ndarray, S: np.ndarray):
+    Linv, logdet = factor(moment(prob, prob.n * w, S))
+    return loss_of(prob, Linv, logdet), Linv
 
 
 def _simplex_qp(H: np.ndarray, g: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -174,7 +180,7 @@ def _simplex_qp(H: np.ndarray, g: np.ndarray, w: np.ndarray) -> np.ndarray:
     return z / z.sum()
 
 
-def _newton(prob: _Problem, S: np.ndarray, w: np.ndarray, budget: int):
+def _newton(prob: Problem, S: np.ndarray, w: np.ndarray, budget: int):
     """Sequential-QP Newton on the weights of the active set S (in the spirit of Yang, Biedermann &
     Tang 2013, JASA 108:1411): each step minimises the quadratic model of the loss over the simplex
     (:func:`_simplex_qp`: points enter and leave the support freely), then an Armijo line search
@@ -209,21 +215,21 @@ def _newton(prob: _Problem, S: np.ndarray, w: np.ndarray, budget: int):
     return S[keep], w[keep] / w[keep].sum(), it
 
 
-def _vertex_newton(prob: _Problem, S: np.ndarray, w: np.ndarray, budget: int, tol: float):
+def _vertex_newton(prob: Problem, S: np.ndarray, w: np.ndarray, budget: int, tol: float):
     """Newton on the active set S, adding the candidates of largest sensitivity until the
     equivalence gap on ``prob``'s candidates is at most ``tol · k``. Returns (S, w, iterations)."""
     it = 0
     while True:
         S, w, used = _newton(prob, S, w, max(budget - it, 1))
         it += used
-        Linv, _ = _factor(_moment(prob, prob.n * w, S))
-        d = _sens(prob, Linv)
+        Linv, _ = factor(moment(prob, prob.n * w, S))
+        d = sensitivities(prob, Linv)
         bound = float(w @ d[S])
         if d.max() - bound <= tol * prob.k or it >= budget:
             return S, w, it
         it += 1
         d[S] = -np.inf
-        new = _top(d, _ADD_PER_STEP)
+        new = top_k(d, _ADD_PER_STEP)
         new = new[d[new] > bound]
         if new.size == 0:
             return S, w, it
@@ -232,7 +238,7 @@ def _vertex_newton(prob: _Problem, S: np.ndarray, w: np.ndarray, budget: int, to
         w = np.concatenate([w, np.zeros(new.size)])
 
 
-def _approximate(prob: _Problem, max_iter: int, tol: float):
+def _approximate(prob: Problem, max_iter: int, tol: float):
     """Rounds of: sensitivities on all candidates → watch list of the highest → multiplicative
     start (first round) and vertex-direction / Newton on the watch list. Sensitivities change
     smoothly as the design converges, so the candidates far below the bound rarely matter; the
@@ -244,29 +250,29 @@ def _approximate(prob: _Problem, max_iter: int, tol: float):
     it = 0
     first = True
     while True:
-        Linv, logdet = _factor(_moment(prob, prob.n * w, None if first else S))
-        d = _sens(prob, Linv)
+        Linv, logdet = factor(moment(prob, prob.n * w, None if first else S))
+        d = sensitivities(prob, Linv)
         bound = float(w @ d[S])
         gap = float(d.max() - bound)
         converged = gap <= tol * k
         if converged or it >= max_iter:
             break
         it += 1  # a round counts as an iteration, so max_iter always ends the loop
-        watch = _top(d, watch_size)
+        watch = top_k(d, watch_size)
         if not first:
             watch = np.concatenate([watch, np.setdiff1d(S, watch)])
-        sub = _restrict(prob, watch)
+        sub = restrict(prob, watch)
         if first:
             # Multiplicative algorithm (Silvey, Titterington & Torsney 1978) from the uniform design
             # on the watch list: a few iterations locate the support; Newton then converges fast.
             ws = np.full(watch.size, 1.0 / watch.size)
             for _ in range(min(_MULT_ITER, max_iter)):
                 it += 1
-                Ls, _ = _factor(_moment(sub, sub.n * ws, None))
-                ds = _sens(sub, Ls)
+                Ls, _ = factor(moment(sub, sub.n * ws, None))
+                ds = sensitivities(sub, Ls)
                 ws = ws * (np.maximum(ds, 0.0) / (ws @ ds)) ** rho
                 ws /= ws.sum()
-            order = _top(ws, _ACTIVE_MAX)
+            order = top_k(ws, _ACTIVE_MAX)
             local = order[ws[order] >= _ACTIVE_KEEP * ws[order[0]]]
             w_local = ws[local] / ws[local].sum()
             first = False
@@ -279,7 +285,7 @@ def _approximate(prob: _Problem, max_iter: int, tol: float):
         S, w = watch[local], w_local
     weights = np.zeros(C)
     weights[S] = w
-    return weights, _loss(prob, Linv, logdet), float(d.max()), bound, it, bool(converged), Linv
+    return weights, loss_of(prob, Linv, logdet), float(d.max()), bound, it, bool(converged), Linv
 
 
 def approximate_design(
@@ -323,7 +329,7 @@ def approximate_design(
     -------
     ApproximateDesign
     """
-    prob = _problem(
+    prob = problem_of(
         F,
         criterion,
         target,
@@ -338,7 +344,7 @@ def approximate_design(
         raise DesignError(f"tol must be positive (got {tol!r})")
     w, loss, max_d, bound, it, conv, Linv = _approximate(prob, int(max_iter), float(tol))
     return ApproximateDesign(
-        w, _value(prob, loss, Linv), max_d, bound, it, conv, criterion, prob.target, prob.n, prob.P
+        w, value_of(prob, loss, Linv), max_d, bound, it, conv, criterion, prob.target, prob.n, prob.P
     )
 
 
@@ -366,10 +372,10 @@ def sensitivity(
     local design with M0 = 0: the classic ``f_cᵀM⁻¹f_c ≤ p`` of Kiefer & Wolfowitz (1960) and
     ``(f_cᵀM⁻¹e_t)² ≤ e_tᵀM⁻¹e_t`` for c-optimality (Pukelsheim 1993, Optimal Design of Experiments, ch. 2).
     """
-    Fa = _as_F(F)
-    x = _design_vector(weights_or_counts, Fa.shape[1], "weights_or_counts")
+    Fa = as_rows(F)
+    x = design_vector(weights_or_counts, Fa.shape[1], "weights_or_counts")
     n = float(x.sum()) if n_tubes is None else float(n_tubes)
-    prob = _problem(Fa, criterion, target, M0, node_weights, n, True)
+    prob = problem_of(Fa, criterion, target, M0, node_weights, n, True)
     sup = np.flatnonzero(x)
-    Linv, _ = _factor(_moment(prob, n * x[sup] / x.sum(), sup))
-    return _sens(prob, Linv)
+    Linv, _ = factor(moment(prob, n * x[sup] / x.sum(), sup))
+    return sensitivities(prob, Linv)

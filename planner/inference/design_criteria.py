@@ -76,23 +76,6 @@ _RIDGE = 1e-10
 # Smallest eigenvalue of the scaled uniform-design information for the parameters to count as
 # identifiable (100 × the ridge).
 _IDENTIFIABLE = 1e-8
-# Approximate designs work on a watch list of the candidates of highest sensitivity (at least
-# _WATCH_MIN, or _WATCH_PER_PARAM per parameter), rescanning all candidates between rounds.
-_WATCH_MIN = 1000
-_WATCH_PER_PARAM = 100
-# Multiplicative iterations that seed the first round (they locate the support; Newton finishes).
-_MULT_ITER = 5
-# Active set handed to Newton: weights above this fraction of the largest, at most _ACTIVE_MAX points.
-_ACTIVE_KEEP = 1e-3
-_ACTIVE_MAX = 60
-# Candidates added per vertex-direction step.
-_ADD_PER_STEP = 3
-# The exchange searches the _POOL_MIN (or _POOL_PER_TUBE × n) candidates of highest sensitivity
-# under the approximate optimum before the final polish over all candidates.
-_POOL_MIN = 600
-_POOL_PER_TUBE = 40
-# An exchange is accepted when it lowers the internal loss (log units) by more than this.
-_IMPROVE = 1e-11
 
 
 class DesignError(KplanError):
@@ -110,7 +93,7 @@ class DesignError(KplanError):
 
 
 @dataclass(frozen=True, eq=False)
-class _Problem:
+class Problem:
     """Validated, rescaled problem. Internal loss L (minimised): D ``−Σν log det M̃``, target
     ``Σν log ṽ``, with ``M̃ = M_fixed + Σ x_c F̃_cᵀF̃_c`` in scaled parameters."""
 
@@ -120,7 +103,7 @@ class _Problem:
     n: float
     criterion: str
     target: int | None
-    offset: float  # reported value = sign · L + offset (see _value)
+    offset: float  # reported value = sign · L + offset (see value_of)
     has_prior: bool
 
     @property
@@ -144,7 +127,7 @@ class _Problem:
         return float(self.P) if self.criterion == "all" else 1.0
 
 
-def _as_F(F) -> np.ndarray:
+def as_rows(F) -> np.ndarray:
     F = np.asarray(F, dtype=float)
     if F.ndim == 3:
         F = F[None]
@@ -172,43 +155,41 @@ def _check_criterion(criterion: str, target, P: int) -> int | None:
     return None
 
 
-def _problem(F, criterion, target, M0, node_weights, n, n_given: bool) -> _Problem:  # noqa: C901
-    F = _as_F(F)
-    G, C, R, P = F.shape
-    t = _check_criterion(criterion, target, P)
+def _node_weights(node_weights, G: int) -> np.ndarray:
+    """The prior nodes' weights (uniform when not given), checked: G non-negative numbers summing to 1."""
     if node_weights is None:
-        nu = np.full(G, 1.0 / G)
-    else:
-        nu = np.asarray(node_weights, dtype=float).reshape(-1)
-        if nu.shape != (G,):
-            raise DesignError(f"node_weights has {nu.size} entries but F has {G} prior nodes")
-        if np.any(~np.isfinite(nu)) or np.any(nu < 0) or abs(nu.sum() - 1.0) > 1e-9:
-            raise DesignError("node_weights must be non-negative and sum to 1; normalise them")
+        return np.full(G, 1.0 / G)
+    nu = np.asarray(node_weights, dtype=float).reshape(-1)
+    if nu.shape != (G,):
+        raise DesignError(f"node_weights has {nu.size} entries but F has {G} prior nodes")
+    if np.any(~np.isfinite(nu)) or np.any(nu < 0) or abs(nu.sum() - 1.0) > 1e-9:
+        raise DesignError("node_weights must be non-negative and sum to 1; normalise them")
+    return nu
+
+
+def _prior_information(M0, G: int, P: int) -> tuple[np.ndarray, bool]:
+    """(M0 per node (G, P, P), whether it holds any information), checked: finite, symmetric, PSD."""
     if M0 is None:
-        M0 = np.zeros((G, P, P))
-        has_prior = False
-    else:
-        M0 = np.asarray(M0, dtype=float)
-        if M0.shape == (P, P):
-            M0 = np.broadcast_to(M0, (G, P, P))
-        if M0.shape != (G, P, P):
-            raise DesignError(f"M0 has shape {M0.shape}; expected ({P}, {P}) or ({G}, {P}, {P})")
-        if not np.all(np.isfinite(M0)):
-            raise DesignError("M0 contains NaN or infinite values")
-        scale = max(float(np.abs(M0).max()), 1e-300)
-        if np.abs(M0 - M0.transpose(0, 2, 1)).max() > 1e-10 * scale:
-            raise DesignError("M0 is not symmetric; pass an information matrix (e.g. a prior precision)")
-        if np.linalg.eigvalsh(M0).min() < -1e-10 * scale:
-            raise DesignError("M0 is not positive semi-definite; pass an information matrix")
-        has_prior = bool(np.abs(M0).max() > 0)
-    if has_prior and not n_given:
-        raise DesignError(
-            "n_tubes is required when M0 is given: the prior's weight relative to the tubes depends on "
-            "how many tubes there are"
-        )
-    if not (np.isfinite(n) and n > 0):
-        raise DesignError(f"n_tubes must be positive (got {n})")
-    # Per-tube information of the uniform design over all candidates, with the prior spread per tube.
+        return np.zeros((G, P, P)), False
+    M0 = np.asarray(M0, dtype=float)
+    if M0.shape == (P, P):
+        M0 = np.broadcast_to(M0, (G, P, P))
+    if M0.shape != (G, P, P):
+        raise DesignError(f"M0 has shape {M0.shape}; expected ({P}, {P}) or ({G}, {P}, {P})")
+    if not np.all(np.isfinite(M0)):
+        raise DesignError("M0 contains NaN or infinite values")
+    scale = max(float(np.abs(M0).max()), 1e-300)
+    if np.abs(M0 - M0.transpose(0, 2, 1)).max() > 1e-10 * scale:
+        raise DesignError("M0 is not symmetric; pass an information matrix (e.g. a prior precision)")
+    if np.linalg.eigvalsh(M0).min() < -1e-10 * scale:
+        raise DesignError("M0 is not positive semi-definite; pass an information matrix")
+    return M0, bool(np.abs(M0).max() > 0)
+
+
+def _parameter_scales(F: np.ndarray, M0: np.ndarray, n: float, criterion: str, t: int | None) -> np.ndarray:
+    """(G, P) scale of each parameter at each node: the root of its per-tube information under the uniform
+    design over all candidates (the prior spread per tube); refuses parameters no design can determine."""
+    G, C, R, P = F.shape
     F2 = F.reshape(G, C * R, P)
     avg = np.matmul(F2.transpose(0, 2, 1), F2) / C + M0 / n
     diag = np.diagonal(avg, axis1=1, axis2=2)
@@ -237,6 +218,24 @@ def _problem(F, criterion, target, M0, node_weights, n, n_given: bool) -> _Probl
                 f"parameter {t} cannot be determined from any design on these candidates (it is confounded "
                 "with other parameters); add candidates that separate it, or prior information in M0"
             )
+    return s
+
+
+def problem_of(F, criterion, target, M0, node_weights, n, n_given: bool) -> Problem:
+    """The checked, scaled design problem (see the module docstring) from the functions' arguments."""
+    F = as_rows(F)
+    G, C, R, P = F.shape
+    t = _check_criterion(criterion, target, P)
+    nu = _node_weights(node_weights, G)
+    M0, has_prior = _prior_information(M0, G, P)
+    if has_prior and not n_given:
+        raise DesignError(
+            "n_tubes is required when M0 is given: the prior's weight relative to the tubes depends on "
+            "how many tubes there are"
+        )
+    if not (np.isfinite(n) and n > 0):
+        raise DesignError(f"n_tubes must be positive (got {n})")
+    s = _parameter_scales(F, M0, n, criterion, t)
     Fs = F / s[:, None, None, :]
     M_fixed = M0 / (s[:, :, None] * s[:, None, :]) + n * _RIDGE * np.eye(P)
     # Nodes of zero weight do not enter the criterion: drop them (0 × log 0 would be NaN).
@@ -247,22 +246,22 @@ def _problem(F, criterion, target, M0, node_weights, n, n_given: bool) -> _Probl
         offset = float(nu @ (2.0 * logs.sum(axis=1))) - P * np.log(n)
     else:
         offset = float(nu @ (-2.0 * logs[:, t])) + np.log(n)
-    return _Problem(Fs, nu, M_fixed, float(n), criterion, t, offset, has_prior)
+    return Problem(Fs, nu, M_fixed, float(n), criterion, t, offset, has_prior)
 
 
-def _singular(prob: _Problem, Linv: np.ndarray) -> bool:
+def _singular(prob: Problem, Linv: np.ndarray) -> bool:
     """Whether the ridge, not the tubes, sets the criterion. The ridge's share of the criterion is
     ``d log φ / d log δ``: D ``n δ / λ`` per eigen-direction of M̃; target ``n δ ‖M̃⁻¹e_t‖² / ṽ``. It
     is ~δ/λ for a determinable quantity and → 1 for an undeterminable one; flag shares above 1 %."""
     if prob.criterion == "all":
         share = prob.n * _RIDGE * np.linalg.norm(Linv, 2, axis=(1, 2)) ** 2  # n δ λ_max(M̃⁻¹)
     else:
-        u, v = _target_vec(prob, Linv)
+        u, v = target_vector(prob, Linv)
         share = prob.n * _RIDGE * (u * u).sum(axis=1) / v
     return bool(np.any(share > 1e-2))
 
 
-def _value(prob: _Problem, loss: float, Linv: np.ndarray) -> float:
+def value_of(prob: Problem, loss: float, Linv: np.ndarray) -> float:
     """Reported per-tube criterion from the internal loss: −inf (D) or +inf (target) for a design
     that cannot determine what the criterion measures."""
     if _singular(prob, Linv):
@@ -275,36 +274,36 @@ def _value(prob: _Problem, loss: float, Linv: np.ndarray) -> float:
 # --------------------------------------------------------------------------------------------------
 
 
-def _moment(prob: _Problem, x: np.ndarray, idx: np.ndarray | None) -> np.ndarray:
+def moment(prob: Problem, x: np.ndarray, idx: np.ndarray | None) -> np.ndarray:
     """``M̃ = M_fixed + Σ_{c∈idx} x_c I_c`` for each node (idx None: all candidates), (G, P, P)."""
-    Fi = _rows(prob, idx)
+    Fi = rows_of(prob, idx)
     xw = np.repeat(x, prob.R)[:, None]
     # (x·F)ᵀF with the weights applied to a contiguous copy, so the product goes to BLAS.
     return prob.M_fixed + np.matmul((Fi * xw).transpose(0, 2, 1), Fi)
 
 
-def _factor(M: np.ndarray):
+def factor(M: np.ndarray):
     """Inverse Cholesky factor ``L⁻¹`` (M⁻¹ = L⁻ᵀL⁻¹) and log det per node."""
     L = np.linalg.cholesky(M)
     logdet = 2.0 * np.log(np.diagonal(L, axis1=1, axis2=2)).sum(axis=1)
     return np.linalg.inv(L), logdet
 
 
-def _loss(prob: _Problem, Linv: np.ndarray, logdet: np.ndarray) -> float:
+def loss_of(prob: Problem, Linv: np.ndarray, logdet: np.ndarray) -> float:
     if prob.criterion == "all":
         return float(-(prob.nu @ logdet))
     v = (Linv[:, :, prob.target] ** 2).sum(axis=1)
     return float(prob.nu @ np.log(v))
 
 
-def _target_vec(prob: _Problem, Linv: np.ndarray):
+def target_vector(prob: Problem, Linv: np.ndarray):
     """``u = M̃⁻¹ e_t`` (G, P) and ``ṽ = e_tᵀ M̃⁻¹ e_t`` (G,)."""
     col = Linv[:, :, prob.target]
     u = np.einsum("gqp,gq->gp", Linv, col)
     return u, (col**2).sum(axis=1)
 
 
-def _rows(prob: _Problem, idx) -> np.ndarray:
+def rows_of(prob: Problem, idx) -> np.ndarray:
     """Scaled rows of the candidates ``idx`` (or all), as (G, c·R, P) for batched BLAS."""
     G, C, R, P = prob.F.shape
     if idx is None:
@@ -312,27 +311,27 @@ def _rows(prob: _Problem, idx) -> np.ndarray:
     return prob.F[:, idx].reshape(G, len(idx) * R, P)
 
 
-def _sens(prob: _Problem, Linv: np.ndarray, idx=None) -> np.ndarray:
+def sensitivities(prob: Problem, Linv: np.ndarray, idx=None) -> np.ndarray:
     """Directional derivatives ``d_c`` (see :func:`sensitivity`) for candidates ``idx`` (all if None)."""
     G, _, R, P = prob.F.shape
-    rows = _rows(prob, idx)
+    rows = rows_of(prob, idx)
     c = rows.shape[1] // R
     if prob.criterion == "all":
         Z = np.matmul(rows, Linv.transpose(0, 2, 1))
         q = np.einsum("gkp,gkp->gk", Z, Z).reshape(G, c, R).sum(axis=2)
         return prob.n * (prob.nu @ q)
-    u, v = _target_vec(prob, Linv)
+    u, v = target_vector(prob, Linv)
     y = np.matmul(rows, u[:, :, None])[:, :, 0]
     b = (y * y).reshape(G, c, R).sum(axis=2)
     return prob.n * ((prob.nu / v) @ b)
 
 
-def _restrict(prob: _Problem, idx: np.ndarray) -> _Problem:
+def restrict(prob: Problem, idx: np.ndarray) -> Problem:
     """The same problem on the candidates ``idx`` only (rows copied once, contiguous)."""
     return replace(prob, F=np.ascontiguousarray(prob.F[:, idx]))
 
 
-def _top(values: np.ndarray, k: int) -> np.ndarray:
+def top_k(values: np.ndarray, k: int) -> np.ndarray:
     """Indices of the k largest values, largest first (ties: lower index first)."""
     if k >= values.size:
         return np.argsort(-values, kind="stable")
@@ -345,7 +344,7 @@ def _top(values: np.ndarray, k: int) -> np.ndarray:
 # --------------------------------------------------------------------------------------------------
 
 
-def _design_vector(design, C: int, name: str) -> np.ndarray:
+def design_vector(design, C: int, name: str) -> np.ndarray:
     x = np.asarray(design, dtype=float).reshape(-1)
     if x.shape != (C,):
         raise DesignError(f"{name} has {x.size} entries but there are {C} candidates")
@@ -361,9 +360,9 @@ def criterion_of_counts(
 
     ``counts`` may be real (an approximate design scaled to n tubes), e.g. ``n · weights``.
     """
-    Fa = _as_F(F)
-    x = _design_vector(counts, Fa.shape[1], "counts")
-    prob = _problem(Fa, criterion, target, M0, node_weights, float(x.sum()), True)
+    Fa = as_rows(F)
+    x = design_vector(counts, Fa.shape[1], "counts")
+    prob = problem_of(Fa, criterion, target, M0, node_weights, float(x.sum()), True)
     sup = np.flatnonzero(x)
-    Linv, logdet = _factor(_moment(prob, x[sup], sup))
-    return _value(prob, _loss(prob, Linv, logdet), Linv)
+    Linv, logdet = factor(moment(prob, x[sup], sup))
+    return value_of(prob, loss_of(prob, Linv, logdet), Linv)

@@ -12,22 +12,26 @@ import numpy as np
 from ..inputs.text import plural
 from .approximate import ApproximateDesign, approximate_design
 from .design_criteria import (
-    _IMPROVE,
-    _POOL_MIN,
-    _POOL_PER_TUBE,
     DesignError,
-    _factor,
-    _loss,
-    _moment,
-    _Problem,
-    _problem,
-    _restrict,
-    _rows,
-    _sens,
-    _target_vec,
-    _top,
-    _value,
+    Problem,
+    factor,
+    loss_of,
+    moment,
+    problem_of,
+    restrict,
+    rows_of,
+    sensitivities,
+    target_vector,
+    top_k,
+    value_of,
 )
+
+# The exchange searches the _POOL_MIN (or _POOL_PER_TUBE × n) candidates of highest sensitivity
+# under the approximate optimum before the final polish over all candidates.
+_POOL_MIN = 600
+_POOL_PER_TUBE = 40
+# An exchange is accepted when it lowers the internal loss (log units) by more than this.
+_IMPROVE = 1e-11
 
 
 @dataclass(frozen=True, eq=False)
@@ -106,7 +110,7 @@ def _small_quad_inv(K: np.ndarray, beta: np.ndarray) -> np.ndarray:
 class _State:
     """Current exact design with its factor; quantities for scoring a candidate pool."""
 
-    def __init__(self, prob: _Problem, x: np.ndarray, defer: bool = False):
+    def __init__(self, prob: Problem, x: np.ndarray, defer: bool = False):
         self.prob = prob
         self.x = x
         if not defer:
@@ -114,17 +118,17 @@ class _State:
 
     def refresh(self):
         sup = np.flatnonzero(self.x)
-        self.Linv, logdet = _factor(_moment(self.prob, self.x[sup].astype(float), sup))
-        self.loss = _loss(self.prob, self.Linv, logdet)
+        self.Linv, logdet = factor(moment(self.prob, self.x[sup].astype(float), sup))
+        self.loss = loss_of(self.prob, self.Linv, logdet)
         if self.prob.criterion == "target":
-            self.u, self.v = _target_vec(self.prob, self.Linv)
+            self.u, self.v = target_vector(self.prob, self.Linv)
 
     def parts(self, idx: np.ndarray | None = None):
         """For candidates idx (all if None): Z = F L⁻ᵀ (G, c, R, P), A = F M⁻¹ Fᵀ blocks
         (G, c, R, R), b = F u (G, c, R) (target only, else None)."""
         G, C, R, P = self.prob.F.shape
         c = C if idx is None else len(idx)
-        rows = _rows(self.prob, idx)
+        rows = rows_of(self.prob, idx)
         Zf = np.matmul(rows, self.Linv.transpose(0, 2, 1))
         Z = Zf.reshape(G, c, R, P)
         if R == 1:  # a stack of 1 × 1 blocks: a row sum beats 10⁵ tiny matrix products
@@ -209,7 +213,7 @@ class _State:
             return np.where(v_new > 0, np.log(np.where(v_new > 0, v_new, 1.0) / v), np.inf)
 
 
-def _exchange(prob: _Problem, x: np.ndarray, max_steps: int) -> _State:
+def _exchange(prob: Problem, x: np.ndarray, max_steps: int) -> _State:
     """Exchange over all of ``prob``'s candidates until no single move of one tube improves.
 
     Greedy steps while they improve: add the best candidate j, remove the tube whose loss is then
@@ -257,7 +261,7 @@ def _exchange(prob: _Problem, x: np.ndarray, max_steps: int) -> _State:
     return st
 
 
-def _efficient_rounding(w: np.ndarray, n: int) -> np.ndarray:
+def efficient_rounding(w: np.ndarray, n: int) -> np.ndarray:
     """Efficient apportionment of n tubes to weights w (Pukelsheim & Rieder 1992, Biometrika 79:763)."""
     sup = np.flatnonzero(w > 0)
     ws = w[sup]
@@ -338,7 +342,7 @@ def exact_design(
     """
     _check_exact_args(n_tubes, rng, starts, max_sweeps)
     n = int(n_tubes)
-    prob = _problem(F, criterion, target, M0, node_weights, float(n), True)
+    prob = problem_of(F, criterion, target, M0, node_weights, float(n), True)
     if criterion == "all":
         rank0 = (
             0
@@ -369,24 +373,24 @@ def exact_design(
     w = approx.weights
     # Reference: the approximate design's loss at this n (identical scaling and ridge).
     sup_w = np.flatnonzero(w)
-    Linv_a, logdet_a = _factor(_moment(prob, n * w[sup_w], sup_w))
-    loss_approx = _loss(prob, Linv_a, logdet_a)
+    Linv_a, logdet_a = factor(moment(prob, n * w[sup_w], sup_w))
+    loss_approx = loss_of(prob, Linv_a, logdet_a)
     # Candidate pool: highest sensitivity under the approximate optimum (ordered, so that a permutation
     # of the candidates permutes the pool), always including its support. The starts run on the
     # pool; the best is then polished on all candidates.
-    d = _sens(prob, Linv_a)
+    d = sensitivities(prob, Linv_a)
     size = min(prob.C, max(_POOL_MIN, _POOL_PER_TUBE * n))
-    pool = _top(d, size)
+    pool = top_k(d, size)
     pool = np.concatenate([pool, np.setdiff1d(sup_w, pool)])
     x_init = _initial_counts(initial, prob.C, n)
     if x_init is not None:
         pool = np.concatenate([pool, np.setdiff1d(np.flatnonzero(x_init), pool)])
-    sub = _restrict(prob, pool)
+    sub = restrict(prob, pool)
     max_steps = int(max_sweeps) * n
     best = None
     for s in range(int(starts) + (x_init is not None)):
         if s == 0:
-            x0 = _efficient_rounding(w[pool], n)
+            x0 = efficient_rounding(w[pool], n)
         elif s == int(starts):
             assert x_init is not None
             x0 = x_init[pool]
@@ -402,7 +406,7 @@ def exact_design(
         best = _exchange(prob, x, max_steps)
         x = best.x
     counts = x.astype(np.int64)
-    value = _value(prob, best.loss, best.Linv)
+    value = value_of(prob, best.loss, best.Linv)
     eff = float(np.exp((loss_approx - best.loss) / prob.k)) if np.isfinite(value) else 0.0
     return ExactDesign(counts, value, eff, int(starts))
 
@@ -502,7 +506,7 @@ def coordinate_exchange(
             m = var.shape[0] // n
             Fv, okv = info(var)
             # one problem holds the design's points and every variant; the design is counts on it
-            prob = _problem(
+            prob = problem_of(
                 np.concatenate([F_pts, Fv], axis=1), criterion, target, M0, node_weights, float(n), True
             )
             at = np.arange(n)  # where each point of the design sits among the problem's rows

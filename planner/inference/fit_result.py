@@ -22,7 +22,7 @@ STATUS_MESSAGES: dict[int, str] = {
     -1: "failed: the model or the Jacobian returned non-finite values",
     -2: "failed: singular Jacobian at the solution (parameters not identifiable from these data)",
 }
-_CONVERGED_CODES = (1, 2, 3, 4, 6, 7, 8)
+CONVERGED_CODES = (1, 2, 3, 4, 6, 7, 8)
 
 
 class FitError(KplanError):
@@ -79,7 +79,7 @@ class FitResult:
         )
 
 
-def _frozen(a) -> np.ndarray:
+def read_only(a) -> np.ndarray:
     """Read-only array (0-d stays 0-d), so a result cannot be edited after the fact."""
     a = np.asarray(a)
     if a.ndim and not a.flags.c_contiguous:
@@ -95,7 +95,7 @@ def _frozen(a) -> np.ndarray:
 # ----------------------------------------------------------------------------------------------
 
 
-def _batch_shapes(theta0, y) -> tuple[np.ndarray, np.ndarray]:
+def batch_shapes(theta0, y) -> tuple[np.ndarray, np.ndarray]:
     theta = np.array(theta0, dtype=float, ndmin=1)
     yy = np.array(y, dtype=float, ndmin=1)
     if theta.ndim > 2 or yy.ndim > 2:
@@ -120,66 +120,16 @@ def _batch_shapes(theta0, y) -> tuple[np.ndarray, np.ndarray]:
     return theta, yy
 
 
-def _weighting(sigma, whiten, n_trials: int, n_obs: int):  # noqa: C901
+def weighting(sigma, whiten, n_trials: int, n_obs: int):
     """Return (weigh_res, weigh_jac): maps of residuals (k, N) and Jacobians (k, N, P) of ``rows``."""
     if sigma is not None and whiten is not None:
         raise FitError("give either sigma (standard deviations) or whiten (a matrix), not both.")
     if sigma is not None:
-        sd = np.array(sigma, dtype=float, ndmin=1)
-        if sd.shape not in ((n_obs,), (n_trials, n_obs)):
-            raise FitError(f"sigma must have shape ({n_obs},) or ({n_trials}, {n_obs}); got {sd.shape}.")
-        if not np.all(np.isfinite(sd) & (sd > 0)):
-            raise FitError("sigma must be finite and > 0 for every observation; drop or fix the others.")
-        inv = 1.0 / sd
-
-        def weigh_res(res, rows):
-            return res * (inv.take(rows, axis=0) if inv.ndim == 2 else inv)
-
-        def weigh_jac(jac, rows):
-            # flattened (k, N·P) times the weights repeated P times: numpy broadcasts a long last axis
-            # several times faster than a trailing axis of length P
-            k, n, p = jac.shape
-            w = np.repeat(inv.take(rows, axis=0) if inv.ndim == 2 else inv, p, axis=-1)
-            return (np.ascontiguousarray(jac).reshape(k, n * p) * w).reshape(k, n, p)
-
-        return weigh_res, weigh_jac
-    if whiten is not None and hasattr(
-        whiten, "apply_jac"
-    ):  # a structured whitening (e.g. diagonal + low rank)
-
-        def weigh_res(res, rows):
-            return whiten.apply(res)
-
-        def weigh_jac(jac, rows):
-            return whiten.apply_jac(jac)
-
-        return weigh_res, weigh_jac
+        return _sd_weighting(sigma, n_trials, n_obs)
+    if whiten is not None and hasattr(whiten, "apply_jac"):  # a structured whitening (diagonal + low rank)
+        return (lambda res, rows: whiten.apply(res)), (lambda jac, rows: whiten.apply_jac(jac))
     if whiten is not None:
-        w = np.array(whiten, dtype=float)
-        if w.shape not in ((n_obs, n_obs), (n_trials, n_obs, n_obs)):
-            raise FitError(
-                f"whiten must be an ({n_obs}, {n_obs}) matrix, or one per trial "
-                f"({n_trials}, {n_obs}, {n_obs}); got {w.shape}."
-            )
-        if not np.all(np.isfinite(w)):
-            raise FitError("whiten contains NaN or inf; pass e.g. the inverse Cholesky factor of Σ.")
-        if w.ndim == 3:  # a different weighting for each trial (e.g. each student's own tubes)
-
-            def weigh_res(res, rows):
-                return np.einsum("kij,kj->ki", w.take(rows, axis=0), res)
-
-            def weigh_jac(jac, rows):
-                return np.matmul(w.take(rows, axis=0), jac)
-
-            return weigh_res, weigh_jac
-
-        def weigh_res(res, rows):
-            return res @ w.T
-
-        def weigh_jac(jac, rows):
-            return np.matmul(w, jac)
-
-        return weigh_res, weigh_jac
+        return _matrix_weighting(whiten, n_trials, n_obs)
 
     def identity(a, rows):
         return a
@@ -187,7 +137,58 @@ def _weighting(sigma, whiten, n_trials: int, n_obs: int):  # noqa: C901
     return identity, identity
 
 
-def _bounds(lower, upper, n_params: int):
+def _sd_weighting(sigma, n_trials: int, n_obs: int):
+    """Weighting by 1/σ of each observation (one σ per observation, or per trial and observation)."""
+    sd = np.array(sigma, dtype=float, ndmin=1)
+    if sd.shape not in ((n_obs,), (n_trials, n_obs)):
+        raise FitError(f"sigma must have shape ({n_obs},) or ({n_trials}, {n_obs}); got {sd.shape}.")
+    if not np.all(np.isfinite(sd) & (sd > 0)):
+        raise FitError("sigma must be finite and > 0 for every observation; drop or fix the others.")
+    inv = 1.0 / sd
+
+    def weigh_res(res, rows):
+        return res * (inv.take(rows, axis=0) if inv.ndim == 2 else inv)
+
+    def weigh_jac(jac, rows):
+        # flattened (k, N·P) times the weights repeated P times: numpy broadcasts a long last axis
+        # several times faster than a trailing axis of length P
+        k, n, p = jac.shape
+        w = np.repeat(inv.take(rows, axis=0) if inv.ndim == 2 else inv, p, axis=-1)
+        return (np.ascontiguousarray(jac).reshape(k, n * p) * w).reshape(k, n, p)
+
+    return weigh_res, weigh_jac
+
+
+def _matrix_weighting(whiten, n_trials: int, n_obs: int):
+    """Weighting by a whitening matrix W (Wᵀ W = Σ⁻¹), one for all trials or one per trial."""
+    w = np.array(whiten, dtype=float)
+    if w.shape not in ((n_obs, n_obs), (n_trials, n_obs, n_obs)):
+        raise FitError(
+            f"whiten must be an ({n_obs}, {n_obs}) matrix, or one per trial "
+            f"({n_trials}, {n_obs}, {n_obs}); got {w.shape}."
+        )
+    if not np.all(np.isfinite(w)):
+        raise FitError("whiten contains NaN or inf; pass e.g. the inverse Cholesky factor of Σ.")
+    if w.ndim == 3:  # a different weighting for each trial (e.g. each student's own tubes)
+
+        def weigh_res(res, rows):
+            return np.einsum("kij,kj->ki", w.take(rows, axis=0), res)
+
+        def weigh_jac(jac, rows):
+            return np.matmul(w.take(rows, axis=0), jac)
+
+        return weigh_res, weigh_jac
+
+    def weigh_res_all(res, rows):
+        return res @ w.T
+
+    def weigh_jac_all(jac, rows):
+        return np.matmul(w, jac)
+
+    return weigh_res_all, weigh_jac_all
+
+
+def bounds_of(lower, upper, n_params: int):
     lo = np.full(n_params, -np.inf) if lower is None else np.array(lower, dtype=float, ndmin=1)
     hi = np.full(n_params, np.inf) if upper is None else np.array(upper, dtype=float, ndmin=1)
     if lo.shape != (n_params,) or hi.shape != (n_params,):
@@ -197,7 +198,7 @@ def _bounds(lower, upper, n_params: int):
     return lo, hi
 
 
-def _checked(out, shape: tuple[int, ...], what: str) -> np.ndarray:
+def checked_shape(out, shape: tuple[int, ...], what: str) -> np.ndarray:
     a = np.asarray(out, dtype=float)
     if a.shape != shape:
         raise FitError(

@@ -66,15 +66,15 @@ def _column_dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 # Reductions over the short parameter axis of (k, P) arrays, column by column: numpy's reduce along a
 # short last axis is an order of magnitude slower on tall stacks.
-def _max_p(a: np.ndarray) -> np.ndarray:
+def max_over_params(a: np.ndarray) -> np.ndarray:
     return reduce(np.maximum, a.T)
 
 
-def _min_p(a: np.ndarray) -> np.ndarray:
+def min_over_params(a: np.ndarray) -> np.ndarray:
     return reduce(np.minimum, a.T)
 
 
-def _all_p(a: np.ndarray) -> np.ndarray:
+def all_over_params(a: np.ndarray) -> np.ndarray:
     return reduce(np.logical_and, a.T)
 
 
@@ -130,7 +130,7 @@ def _ldl_solve(a: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     x = np.empty((k, n))
     for i in reversed(range(n)):
         x[:, i] = z[:, i] - np.einsum("kp,kp->k", lower[:, i + 1 :, i], x[:, i + 1 :])
-    return x, _min_p(d / np.diagonal(a, axis1=1, axis2=2))
+    return x, min_over_params(d / np.diagonal(a, axis1=1, axis2=2))
 
 
 def scaled_inverse(jw: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -152,13 +152,13 @@ def scaled_inverse(jw: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return c, np.stack([x for x, _ in cols], axis=2), cols[0][1]
 
 
-def _get(a: np.ndarray, rows: np.ndarray) -> np.ndarray:
+def take_rows(a: np.ndarray, rows: np.ndarray) -> np.ndarray:
     """Rows of ``a`` for reading: ``take`` (several times faster than fancy indexing on tall stacks), or
     ``a`` itself when ``rows`` (sorted and unique, as from flatnonzero) is every row."""
     return a if rows.size == a.shape[0] else a.take(rows, axis=0)
 
 
-def _set(a: np.ndarray, rows: np.ndarray, values) -> None:
+def put_rows(a: np.ndarray, rows: np.ndarray, values) -> None:
     """``a[rows] = values`` (``rows`` sorted and unique)."""
     if rows.size == a.shape[0]:
         a[...] = values
@@ -182,18 +182,18 @@ def propose(b: Batch, act: np.ndarray, weigh_jac, lo, hi, gtol: float) -> tuple[
 
     Trials whose gradient already passes Moré's gtol test stop here (status 4) at their current point;
     trials whose step is not clean are returned for the trust-region iteration, unchanged."""
-    jw = weigh_jac(_get(b.jac, act), act)
-    fn0 = _get(b.fnorm, act)
-    c, a, g = _normal_equations(jw, _get(b.r, act))
+    jw = weigh_jac(take_rows(b.jac, act), act)
+    fn0 = take_rows(b.fnorm, act)
+    c, a, g = _normal_equations(jw, take_rows(b.r, act))
     # Moré's gtol: largest |cos| between the residual and a Jacobian column, at the current point
-    gnorm = np.where(fn0 > 0, _max_p(np.abs(g)) / np.where(fn0 > 0, fn0, 1.0), 0.0)
-    lam = _get(b.damping, act)
+    gnorm = np.where(fn0 > 0, max_over_params(np.abs(g)) / np.where(fn0 > 0, fn0, 1.0), 0.0)
+    lam = take_rows(b.damping, act)
     if lam.any():  # Marquardt's damping on the scaled normal matrix: A + λ diag(A) = A + λ I
         a = a + lam[:, None, None] * np.eye(a.shape[1])
     q, pivot = _ldl_solve(a, -g)
-    th1 = _get(b.theta, act) + q / np.where(c > 0, c, 1.0)
+    th1 = take_rows(b.theta, act) + q / np.where(c > 0, c, 1.0)
     # NaN fails every comparison, so a non-finite norm or step is not clean
-    clean = (pivot > PIVOT_MIN) & _all_p((c > 0) & (th1 >= lo) & (th1 <= hi))
+    clean = (pivot > PIVOT_MIN) & all_over_params((c > 0) & (th1 >= lo) & (th1 <= hi))
     stop_g = gnorm <= gtol
     if stop_g.any():
         b.status[act[stop_g]] = 4
@@ -229,14 +229,14 @@ def conclude(b: Batch, p: Proposal, f1: np.ndarray, r1: np.ndarray, tol) -> tupl
     act, q, g, c = p.act, p.q, p.g, p.c
     # every proposing trial has ‖r‖ > 0 and g ≠ 0 (else it stopped on gtol), so the predicted
     # reduction −(2 gᵀq + qᵀAq)/‖r‖² = (−gᵀq + λ qᵀq)/‖r‖² ((A + λI) q = −g) is positive
-    fn0 = _get(b.fnorm, act)
-    n_iter = _get(b.n_iter, act) + 1
-    _set(b.n_iter, act, n_iter)
+    fn0 = take_rows(b.fnorm, act)
+    n_iter = take_rows(b.n_iter, act) + 1
+    put_rows(b.n_iter, act, n_iter)
     fn1 = np.sqrt(np.einsum("kn,kn->k", r1, r1))
     shrink = fn1 / fn0
     actred = np.where(shrink < 10.0, 1.0 - shrink * shrink, -1.0)  # NaN: −1, as Moré
     qq = np.einsum("kp,kp->k", q, q)
-    prered = (_get(b.damping, act) * qq - np.einsum("kp,kp->k", g, q)) / (fn0 * fn0)
+    prered = (take_rows(b.damping, act) * qq - np.einsum("kp,kp->k", g, q)) / (fn0 * fn0)
     ratio = actred / prered
     accept = ratio >= _ACCEPT_RATIO
     dth = c * p.theta
@@ -250,14 +250,14 @@ def conclude(b: Batch, p: Proposal, f1: np.ndarray, r1: np.ndarray, tol) -> tupl
         code[(code == 0) & (n_iter >= max_iter)] = 5
     if accept.all():
         acc = act
-        _set(b.theta, acc, p.theta)
-        _set(b.f, acc, f1)
-        _set(b.r, acc, r1)
-        _set(b.fnorm, acc, fn1)
-        _set(b.jac_at, acc, False)
+        put_rows(b.theta, acc, p.theta)
+        put_rows(b.f, acc, f1)
+        put_rows(b.r, acc, r1)
+        put_rows(b.fnorm, acc, fn1)
+        put_rows(b.jac_at, acc, False)
     else:
         acc = act[accept]
         b.theta[acc], b.f[acc], b.r[acc], b.fnorm[acc] = p.theta[accept], f1[accept], r1[accept], fn1[accept]
         b.jac_at[acc] = False
-    _set(b.status, act, code)
+    put_rows(b.status, act, code)
     return acc, act[~accept & (code == 0)]

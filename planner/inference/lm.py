@@ -35,18 +35,18 @@ import numpy as np
 
 from . import gauss_newton
 from .fit_result import (
-    _CONVERGED_CODES,
+    CONVERGED_CODES,
     FitError,
     FitResult,
-    _batch_shapes,
-    _bounds,
-    _checked,
-    _frozen,
-    _weighting,
+    batch_shapes,
+    bounds_of,
+    checked_shape,
+    read_only,
+    weighting,
 )
-from .gauss_newton import Batch, _all_p, _max_p, _min_p
-from .gauss_newton import _get as _take
-from .gauss_newton import _set as _put
+from .gauss_newton import Batch, all_over_params, max_over_params, min_over_params
+from .gauss_newton import put_rows as put
+from .gauss_newton import take_rows as take
 
 _EPS = float(np.finfo(float).eps)
 _TINY = float(np.finfo(float).tiny)
@@ -195,7 +195,7 @@ def _lm_parameter(s, b, delta, par, keep):
     At λ = 0 singular values below the rank cut-off (``keep`` False) are dropped, as in a
     pseudo-inverse. Returns (λ, c).
     """
-    full_rank = _all_p(keep)
+    full_rank = all_over_params(keep)
     s2 = s * s
     s2_safe = np.where(keep, s2, 1.0)
     c = np.where(keep, b / s2_safe, 0.0)  # Gauss–Newton step
@@ -311,7 +311,7 @@ def fit_many(
         On inconsistent shapes, non-finite data, non-positive sigma, both sigma and whiten, fewer
         observations than parameters, or a start outside the bounds.
     """
-    theta, yy = _batch_shapes(theta0, y)
+    theta, yy = batch_shapes(theta0, y)
     n_trials, n_params = theta.shape
     n_obs = yy.shape[1]
     if n_obs < n_params:
@@ -327,10 +327,10 @@ def fit_many(
     for name, tol in (("xtol", xtol), ("ftol", ftol), ("gtol", gtol)):
         if not (np.isfinite(tol) and tol >= 0):
             raise FitError(f"{name} must be a finite number >= 0; got {tol}.")
-    lo, hi = _bounds(lower, upper, n_params)
+    lo, hi = bounds_of(lower, upper, n_params)
     if np.any((theta < lo) | (theta > hi)):
         raise FitError("theta0 lies outside [lower, upper]; start inside the bounds.")
-    weigh_res, weigh_jac = _weighting(sigma, whiten, n_trials, n_obs)
+    weigh_res, weigh_jac = weighting(sigma, whiten, n_trials, n_obs)
     if callable(jac):
         jac_kind = "analytic"
     elif jac in (None, "2-point", "3-point"):
@@ -373,7 +373,7 @@ class _Evaluator:
         return full
 
     def _call_model(self, th: np.ndarray) -> np.ndarray:
-        return _checked(self.model(th), (th.shape[0], self.n_obs), "model")
+        return checked_shape(self.model(th), (th.shape[0], self.n_obs), "model")
 
     def model_rows(self, th: np.ndarray, rows: np.ndarray) -> np.ndarray:
         if self.rowwise:
@@ -383,7 +383,7 @@ class _Evaluator:
         return full if rows.size == self.n_trials else full.take(rows, axis=0)
 
     def _call_model_whole(self, th: np.ndarray) -> np.ndarray:
-        return _checked(self.model(th), (self.n_trials, self.n_obs), "model")
+        return checked_shape(self.model(th), (self.n_trials, self.n_obs), "model")
 
     def jac_rows(self, th: np.ndarray, rows: np.ndarray, f_rows: np.ndarray) -> np.ndarray:
         if not self.rowwise:
@@ -391,7 +391,7 @@ class _Evaluator:
             th = self._full(th, rows, self.batch.theta)
             f_rows = self._full(f_rows, rows, self.batch.f)
         if self.kind == "analytic":
-            out = _checked(self.jac(th), (th.shape[0], self.n_obs, self.n_params), "jac")
+            out = checked_shape(self.jac(th), (th.shape[0], self.n_obs, self.n_params), "jac")
         else:
             call = self._call_model if self.rowwise else self._call_model_whole
             out = _finite_difference_jac(call, th, f_rows, self.lo, self.hi, central=self.kind == "3-point")
@@ -451,7 +451,7 @@ def _iterate(b: Batch, ev: _Evaluator, yy, weigh_res, weigh_jac, lo, hi, tol, rc
         if prop is None or not act.size:
             rows, th = (act, th_tr) if prop is None else (g_rows, prop.theta)
             f_new = ev.model_rows(th, rows)
-            y_rows = _take(yy, rows)
+            y_rows = take(yy, rows)
         else:  # both paths: one call, rows in batch order
             rows = np.concatenate([g_rows, act])
             order = np.argsort(rows, kind="stable")
@@ -468,8 +468,8 @@ def _iterate(b: Batch, ev: _Evaluator, yy, weigh_res, weigh_jac, lo, hi, tol, rc
             tr.conclude(act, th_tr, f_new[k:], r_new[k:])
         need = np.flatnonzero((b.status == 0) & ~b.jac_at)
         if need.size:
-            _put(b.jac, need, ev.jac_rows(_take(b.theta, need), need, _take(b.f, need)))
-            _put(b.jac_at, need, True)
+            put(b.jac, need, ev.jac_rows(take(b.theta, need), need, take(b.f, need)))
+            put(b.jac_at, need, True)
 
 
 class _TrustRegion:
@@ -496,68 +496,73 @@ class _TrustRegion:
         """SVD of the scaled Jacobians of trials that moved (or just joined), and Moré's gtol test."""
         b, lo, hi = self.b, self.lo, self.hi
         if rows.size:
-            jw = weigh_jac(_take(b.jac, rows), rows)
+            jw = weigh_jac(take(b.jac, rows), rows)
             colnorm = np.sqrt(np.einsum("knp,knp->kp", jw, jw))  # NaN/inf if any entry is
-            bad = ~_all_p(np.isfinite(colnorm))
+            bad = ~all_over_params(np.isfinite(colnorm))
             if bad.any():
                 b.status[rows[bad]] = -1
                 rows, jw, colnorm = rows[~bad], jw[~bad], colnorm[~bad]
         if not rows.size:
             return
-        new = _take(self.first, rows)
+        new = take(self.first, rows)
         d = np.where(
-            new[:, None], np.where(colnorm > 0, colnorm, 1.0), np.maximum(_take(self.diag, rows), colnorm)
+            new[:, None], np.where(colnorm > 0, colnorm, 1.0), np.maximum(take(self.diag, rows), colnorm)
         )
-        _put(self.diag, rows, d)
+        put(self.diag, rows, d)
         js = jw / d[:, None, :]
         if self.bounded:
             # a parameter on its bound whose descent direction points out of the box is held
             # fixed for this step (its column dropped), so the others take the step that is
             # optimal given it, instead of a clipped copy of the unconstrained step
-            th_rows, grad = _take(b.theta, rows), np.einsum("knp,kn->kp", js, _take(b.r, rows))
+            th_rows, grad = take(b.theta, rows), np.einsum("knp,kn->kp", js, take(b.r, rows))
             frozen = ((th_rows <= lo) & (grad > 0)) | ((th_rows >= hi) & (grad < 0))
             js = np.where(frozen[:, None, :], 0.0, js)
-        s, v_t, bb = _factorise(js, _take(b.r, rows))
-        _put(self.sv, rows, s)
-        _put(self.vt, rows, v_t)
-        _put(self.bvec, rows, bb)
-        _put(self.keep, rows, s > self.rcond * _max_p(s)[:, None])
-        xn = _row_norms(d * _take(b.theta, rows))
-        _put(self.xnorm, rows, xn)
-        dl = np.where(new, np.where(xn > 0, _FACTOR * xn, _FACTOR), _take(self.delta, rows))
-        _put(self.delta, rows, dl)
+        s, v_t, bb = _factorise(js, take(b.r, rows))
+        put(self.sv, rows, s)
+        put(self.vt, rows, v_t)
+        put(self.bvec, rows, bb)
+        put(self.keep, rows, s > self.rcond * max_over_params(s)[:, None])
+        xn = _row_norms(d * take(b.theta, rows))
+        put(self.xnorm, rows, xn)
+        dl = np.where(new, np.where(xn > 0, _FACTOR * xn, _FACTOR), take(self.delta, rows))
+        put(self.delta, rows, dl)
         # gtol: largest |cos| between the residual vector and a Jacobian column (Moré 1978);
         # Jᵀr = D Jsᵀr = D V b
         jtr = np.abs(d * np.einsum("kij,ki->kj", v_t, bb))
-        fn = _take(b.fnorm, rows)
+        fn = take(b.fnorm, rows)
         denom = np.where(colnorm > 0, colnorm, np.inf) * fn[:, None]
-        gnorm = np.where(fn > 0, _max_p(jtr / np.where(denom > 0, denom, np.inf)), 0.0)
+        gnorm = np.where(fn > 0, max_over_params(jtr / np.where(denom > 0, denom, np.inf)), 0.0)
         code = np.where(gnorm <= self.tol[3], 4, np.where(gnorm <= _EPS, 8, 0))
-        _put(b.status, rows, code)
-        _put(self.fresh, rows, False)
+        put(b.status, rows, code)
+        put(self.fresh, rows, False)
 
     def propose(self, act: np.ndarray) -> np.ndarray:
         """The trial points of the running trials ``act``: Moré's λ for the trust radius, projected
         onto the box."""
-        s, bb, dg = _take(self.sv, act), _take(self.bvec, act), _take(self.diag, act)
-        lam, c = _lm_parameter(s, bb, _take(self.delta, act), _take(self.par, act), _take(self.keep, act))
+        s, bb, dg = take(self.sv, act), take(self.bvec, act), take(self.diag, act)
+        lam, c = _lm_parameter(s, bb, take(self.delta, act), take(self.par, act), take(self.keep, act))
         self.lam = lam
-        q = -np.einsum("kij,ki->kj", _take(self.vt, act), c)  # scaled step D p = −V c
-        return np.clip(_take(self.b.theta, act) + q / dg, self.lo, self.hi)
+        q = -np.einsum("kij,ki->kj", take(self.vt, act), c)  # scaled step D p = −V c
+        return np.clip(take(self.b.theta, act) + q / dg, self.lo, self.hi)
 
     def conclude(self, act: np.ndarray, th_new: np.ndarray, f_act: np.ndarray, r_try: np.ndarray) -> None:
         """Accept or reject the steps to ``th_new`` (model ``f_act``, weighted residuals ``r_try``), update
         the trust radii and apply the convergence tests (Moré 1978; MINPACK lmder)."""
         b = self.b
         max_iter, xtol, ftol, _ = self.tol
-        s, bb, dg, lam = _take(self.sv, act), _take(self.bvec, act), _take(self.diag, act), self.lam
-        vt_act = _take(self.vt, act)
-        q = dg * (th_new - _take(b.theta, act))  # the projected step actually taken
+        s, bb, dg, lam = (
+            take(self.sv, act),
+            take(self.bvec, act),
+            take(self.diag, act),
+            self.lam,
+        )
+        vt_act = take(self.vt, act)
+        q = dg * (th_new - take(b.theta, act))  # the projected step actually taken
         pnorm = _row_norms(q)
-        d_act = _take(self.delta, act)
-        d_act = np.where(_take(self.first, act), np.minimum(d_act, pnorm), d_act)
+        d_act = take(self.delta, act)
+        d_act = np.where(take(self.first, act), np.minimum(d_act, pnorm), d_act)
         b.n_iter[act] += 1
-        fn0 = _take(b.fnorm, act)
+        fn0 = take(b.fnorm, act)
         fn1 = _row_norms(r_try)
         finite1 = np.isfinite(fn1)
         actred = np.where(finite1 & (0.1 * fn1 < fn0), 1.0 - (fn1 / fn0) ** 2, -1.0)
@@ -578,8 +583,8 @@ class _TrustRegion:
         mu = np.minimum(mu, 0.5)
         grow = ~shrink & ((lam == 0) | (ratio >= 0.75))
         new_delta = np.where(shrink, mu * np.minimum(d_act, pnorm / 0.1), np.where(grow, pnorm / 0.5, d_act))
-        _put(self.delta, act, new_delta)
-        _put(self.par, act, np.where(shrink, lam / mu, np.where(grow, 0.5 * lam, lam)))
+        put(self.delta, act, new_delta)
+        put(self.par, act, np.where(shrink, lam / mu, np.where(grow, 0.5 * lam, lam)))
         accept = (ratio >= _ACCEPT_RATIO) & finite1
         xn = self.xnorm.take(act, axis=0)
         if accept.all():
@@ -587,15 +592,15 @@ class _TrustRegion:
         else:
             acc, sel = act[accept], accept
         if acc.size:
-            _put(b.theta, acc, th_new[sel])
-            _put(b.f, acc, f_act[sel])
-            _put(b.r, acc, r_try[sel])
-            _put(b.fnorm, acc, fn1[sel])
+            put(b.theta, acc, th_new[sel])
+            put(b.f, acc, f_act[sel])
+            put(b.r, acc, r_try[sel])
+            put(b.fnorm, acc, fn1[sel])
             xn_acc = _row_norms(dg[sel] * th_new[sel])
-            _put(self.xnorm, acc, xn_acc)
+            put(self.xnorm, acc, xn_acc)
             xn[accept] = xn_acc  # xn is a copy (take)
-            _put(self.first, acc, False)
-            _put(self.fresh, acc, True)
+            put(self.first, acc, False)
+            put(self.fresh, acc, True)
             b.jac_at[acc] = False
         # --- convergence tests, on accepted and rejected steps ---
         half_ratio_ok = 0.5 * ratio <= 1.0
@@ -605,8 +610,8 @@ class _TrustRegion:
         f_eps = (np.abs(actred) <= _EPS) & (prered <= _EPS) & half_ratio_ok
         x_eps = new_delta <= _EPS * xn
         code = np.where(code == 0, np.where(f_eps, 6, np.where(x_eps, 7, 0)), code)
-        code = np.where((code == 0) & (_take(b.n_iter, act) >= max_iter), 5, code)
-        _put(b.status, act, code)
+        code = np.where((code == 0) & (take(b.n_iter, act) >= max_iter), 5, code)
+        put(b.status, act, code)
 
 
 def _finish(b: Batch, ev: _Evaluator, weigh_jac, dof: int, scale_cov: bool, rcond: float) -> FitResult:
@@ -614,50 +619,50 @@ def _finish(b: Batch, ev: _Evaluator, weigh_jac, dof: int, scale_cov: bool, rcon
     theta, status, n_trials, n_params = b.theta, b.status, ev.n_trials, ev.n_params
     chi2 = b.fnorm**2
     cov = np.full((n_trials, n_params, n_params), np.nan)
-    finite = _all_p(np.isfinite(theta)) & np.isfinite(chi2)
+    finite = all_over_params(np.isfinite(theta)) & np.isfinite(chi2)
     missing = np.flatnonzero(finite & ~b.jac_at)
     if missing.size:
-        b.jac[missing] = ev.jac_rows(_take(theta, missing), missing, _take(b.f, missing))
+        b.jac[missing] = ev.jac_rows(take(theta, missing), missing, take(b.f, missing))
     rows = np.flatnonzero(finite)
     if rows.size:
-        jw = weigh_jac(_take(b.jac, rows), rows)
+        jw = weigh_jac(take(b.jac, rows), rows)
         # well-conditioned rows (most of a Monte Carlo batch): the inverse of the column-scaled normal
         # matrix is accurate to ε / pivot; the others take the SVD route below
         c, inv, pivot = gauss_newton.scaled_inverse(jw)
-        easy = (pivot > _COV_PIVOT_MIN) & _all_p(c > 0)
+        easy = (pivot > _COV_PIVOT_MIN) & all_over_params(c > 0)
         if easy.any():
             e_rows, d = rows[easy], c[easy]
             unit = inv[easy] / (d[:, :, None] * d[:, None, :])
             if scale_cov:
-                unit = unit * (_take(chi2, e_rows) / dof)[:, None, None]
-            _put(cov, e_rows, unit)
+                unit = unit * (take(chi2, e_rows) / dof)[:, None, None]
+            put(cov, e_rows, unit)
         rows, jw, colnorm = rows[~easy], jw[~easy], c[~easy]
-        ok = _all_p(np.isfinite(colnorm))
+        ok = all_over_params(np.isfinite(colnorm))
         rows, jw, colnorm = rows[ok], jw[ok], colnorm[ok]
     if rows.size:
         # column equilibration before the SVD keeps the inverse accurate when parameters differ
         # in magnitude by many decades (van der Sluis 1969, Numer. Math. 14:14)
         d = np.where(colnorm > 0, colnorm, 1.0)
         s, v_t, _ = _factorise(jw / d[:, None, :], np.zeros(jw.shape[:2]))
-        regular = _min_p(s) > rcond * _max_p(s)
+        regular = min_over_params(s) > rcond * max_over_params(s)
         inv_s2 = np.where(regular[:, None], 1.0 / np.where(s > 0, s, 1.0) ** 2, np.nan)
         unit = np.einsum("kip,ki,kiq->kpq", v_t, inv_s2, v_t) / (d[:, :, None] * d[:, None, :])
         if scale_cov:
-            unit = unit * (_take(chi2, rows) / dof)[:, None, None]
-        _put(cov, rows, unit)
+            unit = unit * (take(chi2, rows) / dof)[:, None, None]
+        put(cov, rows, unit)
         singular = rows[~regular]
         status[singular] = np.where(status[singular] == 5, 5, -2)
     se = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))
-    converged = np.isin(status, _CONVERGED_CODES) & finite & _all_p(np.isfinite(se))
+    converged = np.isin(status, CONVERGED_CODES) & finite & all_over_params(np.isfinite(se))
     return FitResult(
-        theta=_frozen(theta),
-        cov=_frozen(cov),
-        se=_frozen(se),
-        chi2=_frozen(chi2),
+        theta=read_only(theta),
+        cov=read_only(cov),
+        se=read_only(se),
+        chi2=read_only(chi2),
         dof=int(dof),
-        n_iter=_frozen(b.n_iter),
-        converged=_frozen(converged),
-        status=_frozen(status),
+        n_iter=read_only(b.n_iter),
+        converged=read_only(converged),
+        status=read_only(status),
     )
 
 
@@ -694,12 +699,12 @@ def fit_one(model, theta0, y, **kwargs) -> FitResult:
     res = fit_many(model1, theta[None, :], y1[None, :], jac=jac, **kwargs)
     assert res.cov is not None and res.status is not None  # fit_many fills them
     return FitResult(
-        theta=_frozen(res.theta[0]),
-        cov=_frozen(res.cov[0]),
-        se=_frozen(res.se[0]),
-        chi2=_frozen(res.chi2[0]),
+        theta=read_only(res.theta[0]),
+        cov=read_only(res.cov[0]),
+        se=read_only(res.se[0]),
+        chi2=read_only(res.chi2[0]),
         dof=res.dof,
-        n_iter=_frozen(res.n_iter[0]),
-        converged=_frozen(res.converged[0]),
-        status=_frozen(res.status[0]),
+        n_iter=read_only(res.n_iter[0]),
+        converged=read_only(res.converged[0]),
+        status=read_only(res.status[0]),
     )

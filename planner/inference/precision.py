@@ -402,7 +402,7 @@ class Profile:
     Attributes
     ----------
     log_beta : (G,) grid of the target's log β, the "K → 0" and "K → ∞" ends included (see
-        :func:`_limit_ends`).
+        :func:`limit_ends`).
     delta_chi2 : (G,) Δχ² against the true value.
     low_unbounded, high_unbounded : True when the data cannot tell the truth from K -> 0 / K -> ∞
         (Δχ² below the 95 % threshold at the grid's end): K is then only bounded on the other side.
@@ -414,7 +414,7 @@ class Profile:
     high_unbounded: bool
 
 
-def _limit_ends(reading: ReadingModel, true_theta: np.ndarray) -> tuple[float, float]:
+def limit_ends(reading: ReadingModel, true_theta: np.ndarray) -> tuple[float, float]:
     """log β of the target standing for "K → 0" and "K → ∞" in these tubes.
 
     The guess ± PROFILE_SPAN, widened where that is not yet a limit at these concentrations: at the low
@@ -448,7 +448,7 @@ def profile(reading: ReadingModel, W: np.ndarray, true_theta: np.ndarray, *, n_g
     t = params.target
     centre = true_theta[t]
     inner = centre + np.linspace(-3.0, 3.0, n_grid)
-    low, high = _limit_ends(reading, true_theta)
+    low, high = limit_ends(reading, true_theta)
     grid = np.concatenate([[low], inner, [high]])
     y0 = reading.f(true_theta[None, :])[0]
     others = [p for p in range(params.size) if p != t]

@@ -59,13 +59,13 @@ from .plan_fields import (
     SpeciesName,
     StockId,
     Stoich,
+    StrictModel,
     Text,
     Volume,
     VolumeOrZero,
     Wavelength,
-    _int,
-    _num,
-    _Strict,
+    integer_in,
+    number_in,
 )
 from .plan_parts import Alternative, Titration, check_formula, check_spectra_keys
 from .spectra_table import SpectraTable, attach_spectra_table
@@ -85,7 +85,7 @@ MICROPIPETTE_RINSE_ML = 0.2  # pre-wetting the tip two or three times [common pr
 MICROPIPETTE_DEAD_ML = 0.1  # what a vial keeps below a micropipette tip's reach [common practice]
 
 
-class Component(_Strict):
+class Component(StrictModel):
     """A metal or ligand component: a label for people and its charge (for ionic strength)."""
 
     label: Text = ""
@@ -93,61 +93,61 @@ class Component(_Strict):
     size_angstrom: SizeA | None = Field(default=None, alias="size_A")
 
 
-class Protons(_Strict):
+class Protons(StrictModel):
     """Protons held at a buffered pH: folded into conditional constants."""
 
-    pH: _num(-2, 16)
+    pH: number_in(-2, 16)
     size_angstrom: SizeA = Field(default=9.0, alias="size_A")
 
 
-class Components(_Strict):
+class Components(StrictModel):
     M: Component
     L: Component
     H: Protons | None = None
 
 
-class Species(_Strict):
+class Species(StrictModel):
     name: SpeciesName
     formula: dict[str, Stoich]
     log_beta: LogBeta
-    log_beta_sd: _num(0, 10) = 0.0
+    log_beta_sd: number_in(0, 10) = 0.0
     size_angstrom: SizeA | None = Field(default=None, alias="size_A")
 
     _formula = field_validator("formula")(lambda v: check_formula(v))
 
 
-class Epsilon(_Strict):
+class Epsilon(StrictModel):
     value: Epsilon_
     rsd: RelSD = 0.0
 
 
-class Noise(_Strict):
+class Noise(StrictModel):
     k1: Fraction = 0.003
     k2: Fraction = 0.0
     k3: Fraction = 0.0
 
 
-class Band(_Strict):
+class Band(StrictModel):
     peak_nm: Wavelength
-    fwhm_nm: _num(0, 2000, "nm", lo_open=True)
+    fwhm_nm: number_in(0, 2000, "nm", lo_open=True)
     epsilon_max: Epsilon_
 
 
-class Optics(_Strict):
+class Optics(StrictModel):
     wavelength_nm: Wavelength
-    path_cm: _num(MIN_PATH_CM, 100, "cm") = 1.0
+    path_cm: number_in(MIN_PATH_CM, 100, "cm") = 1.0
     linear_range: tuple[Absorbance, Absorbance] = (0.1, 1.0)
     stray_light: FractionBelow1 = 0.0
     noise: Noise = Noise()
-    display_step: _num(0, 1) = 0.0
-    bandwidth_nm: _num(0, 500, "nm", lo_open=True) | None = None
+    display_step: number_in(0, 1) = 0.0
+    bandwidth_nm: number_in(0, 500, "nm", lo_open=True) | None = None
     epsilon: dict[str, Epsilon] = Field(default_factory=dict)
     bands: dict[str, Band] = Field(default_factory=dict)
     # whole spectra (planner.model.spectra): an ε table and/or the bands over an instrument window
     spectra: Text | None = None
     window_nm: tuple[Wavelength, Wavelength] | None = None
-    step_nm: _num(0, 100, "nm", lo_open=True) = 1.0
-    edge_rise: _num(1, 1000) = 2.0
+    step_nm: number_in(0, 100, "nm", lo_open=True) = 1.0
+    edge_rise: number_in(1, 1000) = 2.0
     spectra_rsd: dict[str, RelSD] = Field(default_factory=dict)
 
     @field_validator("window_nm")
@@ -178,7 +178,7 @@ class Optics(_Strict):
         return v
 
 
-class Stock(_Strict):
+class Stock(StrictModel):
     id: StockId
     label: Text = ""
     conc: dict[str, Conc] = Field(default_factory=dict)
@@ -187,7 +187,7 @@ class Stock(_Strict):
     on_hand: Volume | None = None
     reagent: Text | None = None
     formula: Text | None = None
-    purity: _num(MIN_PURITY, 1, what="an assay fraction ") | None = None
+    purity: number_in(MIN_PURITY, 1, what="an assay fraction ") | None = None
     flask_mL: Volume | None = Field(default=None, alias="flask")
     diluent: bool = False
     background: bool = False
@@ -224,14 +224,14 @@ class Stock(_Strict):
         return v
 
 
-class Flask(_Strict):
+class Flask(StrictModel):
     capacity_mL: Volume = Field(alias="capacity")
     # unset: the catalogue's class A, or no class when the flask is described by its tolerance alone
     cls: Literal["A", "B"] | None = Field(default=None, alias="class")
     tolerance_mL: VolumeOrZero | None = Field(default=None, alias="tolerance")
 
 
-class Balance(_Strict):
+class Balance(StrictModel):
     readability_g: Mass = Field(default=1e-4, alias="readability")
     repeatability_g: Mass = Field(default=1e-4, alias="repeatability")
 
@@ -245,7 +245,7 @@ class Balance(_Strict):
 REPEATABILITY_MAX_FRACTION = 0.1  # a delivery's sd above 10 % of capacity is a unit slip, not a device
 
 
-class Dispenser(_Strict):
+class Dispenser(StrictModel):
     kind: Literal["burette", "pipette", "graduated-pipette", "micropipette", "piston-burette"]
     capacity_mL: Volume = Field(alias="capacity")
     # unset: the catalogue's class A, or no class when the device is described by its tolerance alone
@@ -298,7 +298,7 @@ class Dispenser(_Strict):
         return self.systematic_mL if self.systematic_mL is not None else self.tolerance_mL
 
 
-class Glassware(_Strict):
+class Glassware(StrictModel):
     tube_volume_mL: Volume = Field(alias="tube_volume")
     make_up: Literal["to-mark", "added"] = "to-mark"
     flask: Flask | None = None
@@ -307,7 +307,7 @@ class Glassware(_Strict):
     rinse_mL: VolumeOrZero = Field(default=2.0, alias="rinse")
     dead_volume_mL: VolumeOrZero = Field(default=1.0, alias="dead_volume")
     make_up_min_mL: VolumeOrZero | None = Field(default=None, alias="make_up_min")
-    delta_T_C: _num(-30, 30, "°C") = 0.0
+    delta_T_C: number_in(-30, 30, "°C") = 0.0
     balance: Balance = Balance()
     order: list[str] | None = None
     dispenser: list[Dispenser] = Field(default_factory=list, max_length=MAX_DISPENSERS)
@@ -348,33 +348,33 @@ class Glassware(_Strict):
         return self
 
 
-class Medium(_Strict):
+class Medium(StrictModel):
     activity_model: Literal["davies", "extended-dh", "none"] = "davies"
     reference_ionic_strength_M: IonicStrength | None = Field(default=None, alias="reference_ionic_strength")
 
 
-class DesignSettings(_Strict):
-    tubes: _int(1, MAX_TUBES) = 8
+class DesignSettings(StrictModel):
+    tubes: integer_in(1, MAX_TUBES) = 8
     target: str | None = None
     criterion: Literal["target", "all"] = "target"
     robust: bool = True
-    goal_se: _num(0, 5, lo_open=True) = 0.05
+    goal_se: number_in(0, 5, lo_open=True) = 0.05
     fixed: dict[str, VolumeOrZero] = Field(default_factory=dict)
     blank_offset: bool = False
     ionic_strength_M: IonicStrengthTarget | None = Field(default=None, alias="ionic_strength")
-    ionic_strength_tolerance: _num(0, 1, lo_open=True, hi_open=True) = 0.02
+    ionic_strength_tolerance: number_in(0, 1, lo_open=True, hi_open=True) = 0.02
     analysis: Literal["global", "double-reciprocal", "one-to-one"] = "global"
     check: Literal["auto", "none"] = "auto"
-    check_weight: _num(0, 1, hi_open=True) = 0.25
+    check_weight: number_in(0, 1, hi_open=True) = 0.25
     alternative: list[Alternative] = Field(default_factory=list, max_length=MAX_ALTERNATIVES)
     card_series: Literal["binding-curve", "mole-ratio", "job"] = "binding-curve"
 
 
-class Plan(_Strict):
+class Plan(StrictModel):
     """A validated plan; quantities are floats in mol/L and mL (names carry the unit)."""
 
     title: Text = "untitled study"
-    temperature_C: _num(-20, 150, "°C") = 25.0
+    temperature_C: number_in(-20, 150, "°C") = 25.0
     components: Components
     species: list[Species] = Field(min_length=1, max_length=MAX_SPECIES)
     optics: Optics

@@ -125,11 +125,11 @@ def _quantity(kind: str) -> BeforeValidator:
     return BeforeValidator(parse)
 
 
-def _num(lo: float, hi: float, unit: str = "", **kw: Any) -> Any:
+def number_in(lo: float, hi: float, unit: str = "", **kw: Any) -> Any:
     return Annotated[float, BeforeValidator(_no_bool), _range(lo, hi, unit, **kw)]
 
 
-def _int(lo: int, hi: int) -> Any:
+def integer_in(lo: int, hi: int) -> Any:
     return Annotated[int, BeforeValidator(_no_bool), _range(lo, hi)]
 
 
@@ -161,20 +161,20 @@ def _zero_or(v: float) -> float:
 Volume = Annotated[float, _vol, _range(MIN_VOLUME_ML, MAX_VOLUME_ML, "mL")]
 VolumeOrZero = Annotated[float, _vol, AfterValidator(_zero_or)]
 Mass = Annotated[float, _quantity("mass"), _range(0, 1000, "g", lo_open=True)]
-Fraction = _num(0, 1)
-FractionBelow1 = _num(0, 1, hi_open=True)
-RelSD = _num(0, 5)
-SizeA = _num(0, 50, "Å", lo_open=True)
-Wavelength = _num(100, 2000, "nm")
-Epsilon_ = _num(0, 1e6, "L/mol/cm")
-Absorbance = _num(0, 10)
-LogBeta = _num(-50, 60)
-Stoich = _int(-20, 20)
-Charge = _int(-10, 10)
+Fraction = number_in(0, 1)
+FractionBelow1 = number_in(0, 1, hi_open=True)
+RelSD = number_in(0, 5)
+SizeA = number_in(0, 50, "Å", lo_open=True)
+Wavelength = number_in(100, 2000, "nm")
+Epsilon_ = number_in(0, 1e6, "L/mol/cm")
+Absorbance = number_in(0, 10)
+LogBeta = number_in(-50, 60)
+Stoich = integer_in(-20, 20)
+Charge = integer_in(-10, 10)
 Text = Annotated[str, AfterValidator(check_text)]
 SpeciesName = Annotated[str, _ident("species name")]
 StockId = Annotated[str, _ident("stock id")]
 
 
-class _Strict(BaseModel):
+class StrictModel(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)

@@ -13,10 +13,10 @@ from .plan_fields import (
     SpeciesName,
     StockId,
     Stoich,
+    StrictModel,
     Text,
     Volume,
-    _int,
-    _Strict,
+    integer_in,
 )
 
 COMPONENTS = ("M", "L", "H")
@@ -43,7 +43,7 @@ def check_formula(v: dict[str, int]) -> dict[str, int]:
     return v
 
 
-class Alternative(_Strict):
+class Alternative(StrictModel):
     """A species the main model leaves out, which the design should be able to detect (e.g. ML2)."""
 
     name: SpeciesName
@@ -54,14 +54,14 @@ class Alternative(_Strict):
     _formula = field_validator("formula")(lambda v: check_formula(v))
 
 
-class Titration(_Strict):
+class Titration(StrictModel):
     """An in-cuvette titration: a start volume of one stock in the cell, aliquots of another added to it."""
 
     cell: StockId
     titrant: StockId
     start_volume_mL: Volume = Field(alias="start_volume")
     max_volume_mL: Volume = Field(alias="max_volume")
-    additions: _int(1, MAX_ADDITIONS) = 12
+    additions: integer_in(1, MAX_ADDITIONS) = 12
     step_mL: Volume | None = Field(default=None, alias="step")
     equilibrate: Text = "mix, then wait 1 min before reading"
 

@@ -69,3 +69,9 @@ def plural(n: int | float, word: str, many: str | None = None) -> str:
     → "3 tubes", ``plural(2, "copy", "copies")`` → "2 copies". Counts print as integers."""
     k = int(n) if float(n) == int(n) else n
     return f"{k} {word if k == 1 else (many or word + 's')}"
+
+
+def tube_list(labels, mask, most: int = 6) -> str:
+    """The labels where ``mask`` is true, comma-separated, the first ``most`` of them ("T1, T2, …")."""
+    sel = [t for t, m in zip(labels, mask, strict=True) if m]
+    return ", ".join(sel[:most]) + (" …" if len(sel) > most else "")

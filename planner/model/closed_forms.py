@@ -13,7 +13,7 @@ class EquilibriumError(KplanError):
     """Raised when mass balances cannot be solved: invalid totals or constants, or non-convergence."""
 
 
-def _as_int(values, what, error=ValueError):
+def as_int_array(values, what, error=ValueError):
     arr = np.asarray(values)
     if arr.dtype.kind not in "iu":
         if arr.dtype.kind != "f" or not np.all(np.isfinite(arr)) or np.any(arr != np.round(arr)):
@@ -21,7 +21,7 @@ def _as_int(values, what, error=ValueError):
     return arr.astype(np.int64)
 
 
-def _where(bad):
+def bad_indices(bad):
     """Readable index list of the bad entries (at most 10)."""
     idx = np.argwhere(np.atleast_1d(bad))
     shown = [tuple(int(i) for i in row) if row.size > 1 else int(row[0]) for row in idx[:10]]
@@ -57,7 +57,7 @@ def conditional_log_beta(log_beta, stoich, pH=None) -> np.ndarray:
     stoich = np.asarray(stoich)
     if stoich.ndim != 2 or stoich.shape[1] != 3:
         raise ValueError(f"stoich must have shape (S, 3) with columns p, q, r; got shape {stoich.shape}")
-    r = _as_int(stoich[:, 2], "stoich column r")
+    r = as_int_array(stoich[:, 2], "stoich column r")
     log_beta = np.asarray(log_beta, dtype=float)
     if log_beta.shape[-1:] != (stoich.shape[0],):
         raise ValueError(
@@ -123,7 +123,7 @@ def one_to_one(M_tot_M, L_tot_M, K) -> np.ndarray:
     return 2.0 * K * M0 * L0 / (1.0 + u + np.sqrt(v * v + 2.0 * u + 1.0))
 
 
-def _one_to_one_free(M0, L0, K):
+def one_to_one_free(M0, L0, K):
     """Free [M] of the 1:1 system without cancellation (the free-metal quadratic).
 
     K m^2 + b m - M0 = 0 with b = 1 + K (L0 - M0): take m = 2 M0 / (b + sqrt(b^2 + 4 K M0)) when b >= 0
@@ -146,11 +146,11 @@ def _check_one_to_one(M_tot_M, L_tot_M, K):
         bad = ~(np.isfinite(arr) & (arr >= 0.0))
         if np.any(bad):
             raise EquilibriumError(
-                f"{name} must be finite and >= 0 (mol/L); bad entries at index {_where(bad)}"
+                f"{name} must be finite and >= 0 (mol/L); bad entries at index {bad_indices(bad)}"
             )
     bad = ~(np.isfinite(K) & (K >= 0.0))
     if np.any(bad):
-        raise EquilibriumError(f"K must be finite and >= 0 (L/mol); bad entries at index {_where(bad)}")
+        raise EquilibriumError(f"K must be finite and >= 0 (L/mol); bad entries at index {bad_indices(bad)}")
     return M0, L0, K
 
 

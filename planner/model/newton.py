@@ -6,13 +6,13 @@ from __future__ import annotations
 
 import numpy as np
 
-from .closed_forms import EquilibriumError, _one_to_one_free
+from .closed_forms import EquilibriumError, one_to_one_free
 
 LN10 = float(np.log(10.0))
 
 # ln(0) stand-in for a component whose total is zero: exp() of it, or of any multiple of it, is exactly 0,
-# and 0 * _LN_ZERO is 0 (with -inf it would be NaN), so species that need that component vanish exactly.
-_LN_ZERO = -1.0e300
+# and 0 * LN_ZERO is 0 (with -inf it would be NaN), so species that need that component vanish exactly.
+LN_ZERO = -1.0e300
 # Newton stops once both |ln(computed/given total)| are below this; the rounding floor of the residual
 # is about eps * |ln[s]| ~ 1e-14 (ln[s] is a sum of terms up to ~100), so this is reachable almost always.
 _TOL_RES = 2e-14
@@ -29,7 +29,7 @@ _ARMIJO = 1e-4
 _BLOCK = 16384
 
 
-class _System:
+class SolverSystem:
     """Stoichiometry and the weight vectors the solver needs (species-major: arrays are (S, n))."""
 
     def __init__(self, p, q):
@@ -65,13 +65,13 @@ class _System:
         self.one_one = int(one_one[0]) if one_one.size else None
 
 
-def _solve(lb10, p, q, M, L):
+def solve_free(lb10, p, q, M, L):
     """Free [M], free [L] (n,) and species (n, S) for flat arrays: lb10 (S, n) log10 constants, M, L (n,).
 
     Tubes are processed in blocks so that the working arrays stay in cache (the solver is memory bound;
     one pass over 1e6 tubes is ~10x slower per element than over 1.6e4).
     """
-    sy = _System(p, q)
+    sy = SolverSystem(p, q)
     n = M.size
     free_M = np.empty(n)
     free_L = np.empty(n)
@@ -165,7 +165,7 @@ def _solve_p1(lnb, sy, M, L):
         with np.errstate(over="ignore"):
             K = np.exp(lnb[sy.one_one])
         with np.errstate(divide="ignore", invalid="ignore"):
-            y = np.log(_one_to_one_free(L, M, K))
+            y = np.log(one_to_one_free(L, M, K))
         y = np.where(np.isfinite(y), np.minimum(np.maximum(y, lo), hi), hi)
     else:
         y = hi.copy()
@@ -218,8 +218,8 @@ def _solve_p1(lnb, sy, M, L):
 
 def _ln_totals(M, L):
     with np.errstate(divide="ignore"):
-        lnM = np.where(M > 0.0, np.log(M), _LN_ZERO)
-        lnL = np.where(L > 0.0, np.log(L), _LN_ZERO)
+        lnM = np.where(M > 0.0, np.log(M), LN_ZERO)
+        lnL = np.where(L > 0.0, np.log(L), LN_ZERO)
     return lnM, lnL
 
 
@@ -239,8 +239,8 @@ def _initial_guess(lnb, sy, M, L):
     zero = np.zeros(n)
     ln_aM = np.log1p(np.exp(lnb[sy.side_M]).sum(0)) if sy.side_M.size else zero
     ln_aL = np.log1p(np.exp(lnb[sy.side_L]).sum(0)) if sy.side_L.size else zero
-    weak_x = np.where(M > 0.0, lnM - ln_aM, _LN_ZERO)
-    weak_y = np.where(L > 0.0, lnL - ln_aL, _LN_ZERO)
+    weak_x = np.where(M > 0.0, lnM - ln_aM, LN_ZERO)
+    weak_y = np.where(L > 0.0, lnL - ln_aL, LN_ZERO)
     cands = [(weak_x, weak_y)]
     both = (M > 0.0) & (L > 0.0)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
@@ -321,7 +321,7 @@ def _state(lnb, sy, x, y, Mh, Lh, fixM, fixL):
     return [x, y, c, m, fl, TM, TL, rM, rL, rM * rM + rL * rL]
 
 
-def _jacobian(c, m, fl, fixM, fixL, sy):
+def balance_jacobian(c, m, fl, fixM, fixL, sy):
     """Entries a, b, d of the symmetric 2x2 Jacobian d(TM, TL)/d(ln[M], ln[L]) and its determinant.
 
     det = a d - b^2 expanded as m l + m Sum q^2 c + l Sum p^2 c + Sum_{s<t} c_s c_t (p_s q_t - p_t q_s)^2
@@ -385,7 +385,7 @@ def _newton(lnb, sy, M, L, x, y):
             if fixM is not None:
                 fixM, fixL = fixM[keep], fixL[keep]
         xa, ya, c, m, fl, TM, TL, rM, rL, psi = state
-        a, b, d, det = _jacobian(c, m, fl, fixM, fixL, sy)
+        a, b, d, det = balance_jacobian(c, m, fl, fixM, fixL, sy)
         gM = TM * rM
         gL = TL * rL
         dx = (b * gL - d * gM) / det
@@ -487,7 +487,7 @@ def _nested(lnb, sy, M, L):
             x = x - step
             if np.all(step <= 1e-15 * np.maximum(1.0, np.abs(x))):
                 break
-        return np.where(fixM, _LN_ZERO, x)
+        return np.where(fixM, LN_ZERO, x)
 
     for _ in range(120):
         mid = 0.5 * (y_lo + y_hi)
@@ -497,7 +497,7 @@ def _nested(lnb, sy, M, L):
         above = h > 0.0
         y_hi = np.where(above, mid, y_hi)
         y_lo = np.where(above, y_lo, mid)
-    y = np.where(fixL, _LN_ZERO, 0.5 * (y_lo + y_hi))
+    y = np.where(fixL, LN_ZERO, 0.5 * (y_lo + y_hi))
     return inner_x(y), y
 
 

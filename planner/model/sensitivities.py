@@ -7,8 +7,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .closed_forms import EquilibriumError
-from .newton import _LN_ZERO, LN10, _jacobian, _System
-from .speciation import Speciation, _as_stoich_pq, _prepare
+from .newton import LN10, LN_ZERO, SolverSystem, balance_jacobian
+from .speciation import Speciation, as_stoich_pq, prepare_totals
 
 
 @dataclass(frozen=True)
@@ -92,11 +92,11 @@ def sensitivities(spec: Speciation, stoich_pq, log_beta_cond) -> Sensitivity:
     -------
     Sensitivity
     """
-    p, q = _as_stoich_pq(stoich_pq)
-    sy = _System(p, q)
+    p, q = as_stoich_pq(stoich_pq)
+    sy = SolverSystem(p, q)
     S = p.size
     batch = np.shape(spec.free_M)
-    M, L, lb10, batch2 = _prepare(spec.M_tot_M, spec.L_tot_M, log_beta_cond, S)
+    M, L, lb10, batch2 = prepare_totals(spec.M_tot_M, spec.L_tot_M, log_beta_cond, S)
     lnb = lb10 * LN10
     if batch2 != batch:
         raise EquilibriumError(
@@ -114,7 +114,7 @@ def sensitivities(spec: Speciation, stoich_pq, log_beta_cond) -> Sensitivity:
     P = p[:, None]
     Q = q[:, None]
 
-    a, b, d, det = _jacobian(c, m, fl, zM.astype(float), zL.astype(float), sy)
+    a, b, d, det = balance_jacobian(c, m, fl, zM.astype(float), zL.astype(float), sy)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         inv = 1.0 / det
         pc = P * c
@@ -126,8 +126,8 @@ def sensitivities(spec: Speciation, stoich_pq, log_beta_cond) -> Sensitivity:
         dx_dL, dy_dL = -b * inv, a * inv
 
         # concentrations per unit of a zero component: beta [L]^q for p = 1 species, beta [M]^p for q = 1
-        lnm = np.where(m > 0.0, np.log(np.where(m > 0.0, m, 1.0)), _LN_ZERO)
-        lnl = np.where(fl > 0.0, np.log(np.where(fl > 0.0, fl, 1.0)), _LN_ZERO)
+        lnm = np.where(m > 0.0, np.log(np.where(m > 0.0, m, 1.0)), LN_ZERO)
+        lnl = np.where(fl > 0.0, np.log(np.where(fl > 0.0, fl, 1.0)), LN_ZERO)
         per_m = np.where(P == 1, np.exp(lnb + Q * lnl), 0.0)
         per_l = np.where(Q == 1, np.exp(lnb + P * lnm), 0.0)
         alpha_m = 1.0 + per_m.sum(0)

@@ -35,8 +35,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .closed_forms import EquilibriumError, _as_int, _one_to_one_free, _where, one_to_one
-from .newton import _solve
+from .closed_forms import EquilibriumError, as_int_array, bad_indices, one_to_one, one_to_one_free
+from .newton import solve_free
 
 # ----------------------------------------------------------------------------------------------------
 # Result types
@@ -117,19 +117,19 @@ def speciate(M_tot_M, L_tot_M, stoich_pq, log_beta_cond) -> Speciation:
         Negative or non-finite totals, NaN or +inf constants, invalid stoichiometry, or (should the
         fallback ever fail) the tubes that did not converge.
     """
-    p, q = _as_stoich_pq(stoich_pq)
-    M, L, lb10, batch = _prepare(M_tot_M, L_tot_M, log_beta_cond, p.size)
+    p, q = as_stoich_pq(stoich_pq)
+    M, L, lb10, batch = prepare_totals(M_tot_M, L_tot_M, log_beta_cond, p.size)
     if p.size == 1 and p[0] == 1 and q[0] == 1:
         with np.errstate(over="ignore"):
             K = 10.0 ** lb10[0]
         if not np.all(np.isfinite(K)):
             raise EquilibriumError("log_beta_cond of the 1:1 complex is too large (beta overflows)")
         ML = one_to_one(M, L, K)
-        free_M = _one_to_one_free(M, L, K)
-        free_L = _one_to_one_free(L, M, K)
+        free_M = one_to_one_free(M, L, K)
+        free_L = one_to_one_free(L, M, K)
         species = ML[:, None]
     else:
-        free_M, free_L, species = _solve(lb10, p, q, M, L)
+        free_M, free_L, species = solve_free(lb10, p, q, M, L)
     return Speciation(
         free_M=free_M.reshape(batch),
         free_L=free_L.reshape(batch),
@@ -139,13 +139,13 @@ def speciate(M_tot_M, L_tot_M, stoich_pq, log_beta_cond) -> Speciation:
     )
 
 
-def _as_stoich_pq(stoich_pq):
+def as_stoich_pq(stoich_pq):
     st = np.asarray(stoich_pq)
     if st.ndim != 2 or st.shape[1] != 2 or st.shape[0] == 0:
         raise EquilibriumError(
             f"stoich_pq must have shape (S, 2) with columns p, q and S >= 1; got shape {st.shape}"
         )
-    st = _as_int(st, "stoich_pq", EquilibriumError)
+    st = as_int_array(st, "stoich_pq", EquilibriumError)
     if np.any(st < 0):
         raise EquilibriumError(f"stoich_pq entries must be >= 0; got rows {st[(st < 0).any(1)].tolist()}")
     if np.any(st.sum(1) == 0):
@@ -155,7 +155,7 @@ def _as_stoich_pq(stoich_pq):
     return st[:, 0].astype(float), st[:, 1].astype(float)
 
 
-def _prepare(M_tot_M, L_tot_M, log_beta_cond, S):
+def prepare_totals(M_tot_M, L_tot_M, log_beta_cond, S):
     M = np.asarray(M_tot_M, dtype=float)
     L = np.asarray(L_tot_M, dtype=float)
     lb = np.asarray(log_beta_cond, dtype=float)
@@ -167,12 +167,12 @@ def _prepare(M_tot_M, L_tot_M, log_beta_cond, S):
         bad = ~(np.isfinite(arr) & (arr >= 0.0))
         if np.any(bad):
             raise EquilibriumError(
-                f"{name} must be finite and >= 0 (mol/L); bad tubes at index {_where(bad)}"
+                f"{name} must be finite and >= 0 (mol/L); bad tubes at index {bad_indices(bad)}"
             )
     bad = np.isnan(lb) | (lb == np.inf)
     if np.any(bad):
         raise EquilibriumError(
-            f"log_beta_cond must be finite (or -inf to drop a species); bad entries at {_where(bad)}"
+            f"log_beta_cond must be finite (or -inf to drop a species); bad entries at {bad_indices(bad)}"
         )
     try:
         batch = np.broadcast_shapes(M.shape, L.shape, lb.shape[:-1])

@@ -21,14 +21,13 @@ from ..jobs.classroom.stock_list import ClassStock
 from . import fmt, safety
 from .bench_volumes import reading_note
 from .class_stocks import stocks_csv, stocks_page
-from .render import PAPERS, html_to_pdf, render_html
+from .render import check_paper_format, output_bytes, render_html
 from .sheets import (
-    RenderError,
-    _dispenser_text,
     addition_order,
     addition_steps,
     blank_text,
     checklist,
+    dispenser_text,
     pretty_formula,
 )
 from .workbook import append_row, stable_xlsx
@@ -62,17 +61,6 @@ def short(text: str, limit: int = NAME_MAX) -> str:
     """Roster text for a page: at most ``limit`` characters (an ellipsis marks a cut), so a runaway cell
     cannot push a card onto a second page or stall the line breaker; the page wraps it onto two lines."""
     return text if len(text) <= limit else text[: limit - 1] + "…"
-
-
-def _check(paper: str, fmt_: str) -> None:
-    if paper not in PAPERS:
-        raise RenderError(f"paper = {paper!r}: choose one of {', '.join(PAPERS)}")
-    if fmt_ not in ("pdf", "html"):
-        raise RenderError(f"fmt = {fmt_!r}: choose pdf or html")
-
-
-def _out(html: str, fmt_: str) -> bytes:
-    return html.encode("utf-8") if fmt_ == "html" else html_to_pdf(html)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -113,7 +101,7 @@ def _student_safety(plan: Plan) -> dict:
 
 def _dispensed_with(plan: Plan, sid: str) -> str:
     d = plan.dispenser_for(sid)
-    return _dispenser_text(d) if d else "as your instructor shows"
+    return dispenser_text(d) if d else "as your instructor shows"
 
 
 def _card_shared(plan: Plan, cards) -> dict:
@@ -235,7 +223,7 @@ def card_layout(plan: Plan, cs, *, paper: str = "A4"):
 def cards_document(plan: Plan, cs, *, paper: str = "A4", fmt_: str = "pdf") -> bytes:
     """``cards.pdf``: one page per student (or the HTML at the first type size with ``fmt_="html"``);
     ``cs`` as in :func:`cards_context`; see :func:`card_layout`."""
-    _check(paper, fmt_)
+    check_paper_format(paper, fmt_)
     if fmt_ == "html":
         ctx = cards_context(plan, cs, paper=paper)
         return render_html("cards.html.j2", {**ctx, "density": FIRST_DENSITY.get(paper, 0)}).encode("utf-8")
@@ -480,8 +468,8 @@ def key_document(
     plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
 ) -> bytes:
     """``key.pdf``: the instructor's key."""
-    _check(paper, fmt_)
-    return _out(render_html("key.html.j2", key_context(plan, cs, stocks, paper=paper)), fmt_)
+    check_paper_format(paper, fmt_)
+    return output_bytes(render_html("key.html.j2", key_context(plan, cs, stocks, paper=paper)), fmt_)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -491,5 +479,5 @@ def stocks_document(
     plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
 ) -> bytes:
     """``stocks.pdf``: the class stock list."""
-    _check(paper, fmt_)
-    return _out(stocks_page(plan, len(cs.cards), stocks, paper=paper), fmt_)
+    check_paper_format(paper, fmt_)
+    return output_bytes(stocks_page(plan, len(cs.cards), stocks, paper=paper), fmt_)

@@ -55,7 +55,7 @@ def _figure():
     return fig, ax
 
 
-def _plain(label: str) -> str:
+def plain_label(label: str) -> str:
     """A user's label as literal text for matplotlib (no mathtext)."""
     return str(label).replace("$", r"\$")
 
@@ -76,7 +76,7 @@ def _svg(fig, prefix: str) -> str:
     return text
 
 
-def _draw(prefix: str, paint) -> str:
+def draw_svg(prefix: str, paint) -> str:
     import matplotlib
 
     with matplotlib.rc_context(_RC):
@@ -93,7 +93,7 @@ def absorbance_svg(
 ) -> str:
     """Each tube's expected absorbance with a ±2 sd bar, over the linear-range band (``tubes`` the labels,
     ``absorbance`` and ``absorbance_sd`` one value per tube)."""
-    labels = [_plain(t) for t in tubes]
+    labels = [plain_label(t) for t in tubes]
     a = np.array(absorbance, dtype=float)
     sd = np.array(absorbance_sd, dtype=float)
     lo, hi = linear_range
@@ -137,7 +137,7 @@ def absorbance_svg(
         ax.set_ylabel("absorbance")
         ax.legend(loc="upper left")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -167,7 +167,7 @@ def binding_svg(curve: BindingCurve, names: dict[str, str] | None = None, *, pre
                 color=INK,
                 lw=1.1,
                 ls=styles[k % len(styles)],
-                label=_plain(f"{names[ln.limiting]} limiting, {at}"),
+                label=plain_label(f"{names[ln.limiting]} limiting, {at}"),
             )
         points = _replicate_points(curve)
         if points:
@@ -180,11 +180,11 @@ def binding_svg(curve: BindingCurve, names: dict[str, str] | None = None, *, pre
             ax.set_xlim(*_log_limits([*(ln.free_excess_M[ln.free_excess_M > 0] for ln in curve.lines), xs]))
             _label_points(fig, ax, points)
         who = names[next(iter(excess))] if len(excess) == 1 else "reagent in excess"
-        ax.set_xlabel(_plain(f"free {who} / M"))
+        ax.set_xlabel(plain_label(f"free {who} / M"))
         ax.set_ylabel("saturation (limiting reagent bound)")
         ax.legend(loc="upper left")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)
 
 
 def _replicate_points(curve: BindingCurve) -> list[tuple[float, float, str]]:
@@ -209,7 +209,7 @@ def _tube_range(idx: list[int], labels) -> str:
             runs.append([i])
     parts = []
     for r in runs:
-        first, last = _plain(labels[r[0]]), _plain(labels[r[-1]])
+        first, last = plain_label(labels[r[0]]), plain_label(labels[r[-1]])
         parts.append(first if len(r) == 1 else f"{first}, {last}" if len(r) == 2 else f"{first}–{last}")
     return ", ".join(parts)
 
@@ -320,11 +320,11 @@ def mc_histogram_svg(
             )
         ax.axvline(true, color=WARN, lw=0.8, ls="--", label="assumed true")
         ax.set_ylim(0, ax.get_ylim()[1] * 1.3)  # headroom for the legend above the bars
-        ax.set_xlabel(_plain(name))
+        ax.set_xlabel(plain_label(name))
         ax.set_ylabel("density")
         ax.legend(loc="upper left")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)
 
 
 def assessment_mc_figure(assessment, caption: str) -> dict | None:
@@ -359,9 +359,9 @@ def se_scan_svg(scan: SeScan, *, prefix: str = "fs") -> str:
             ax.set_yscale("log")
         else:
             ax.set_ylim(0, max(float(np.nanmax(scan.se[ok])) if ok.any() else 0.0, scan.goal_se) * 1.15)
-        label = _plain(fmt.param_label(f"log_beta[{scan.target}]"))
+        label = plain_label(fmt.param_label(f"log_beta[{scan.target}]"))
         ax.set_xlabel(f"assumed true {label}")
         ax.set_ylabel(f"SE of {label}")
         ax.legend(loc="upper left")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)

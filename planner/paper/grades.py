@@ -16,7 +16,7 @@ from ..inputs.text import plural
 from ..jobs.classroom.grade import ClassGrade
 from ..jobs.classroom.grade_text import pretty
 from . import fmt
-from .figures import ACCENT, BAND, INK, WARN, _draw
+from .figures import ACCENT, BAND, INK, WARN, draw_svg
 from .workbook import append_row, stable_xlsx
 
 NOT_ABSORBANCE = 10.0  # numbers above this are not absorbances (%T or typos): left out of the figures
@@ -187,7 +187,7 @@ def readings_svg(g: ClassGrade, *, against: str = "class", prefix: str = "fg") -
         ax.set_ylabel("reading")
         ax.legend(loc="upper left")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)
 
 
 def _pooled_rows(g: ClassGrade) -> list[dict]:
@@ -284,8 +284,8 @@ def grade_context(g: ClassGrade, *, date: str, paper: str) -> dict:
 
 def grade_report(g: ClassGrade, *, paper: str = "A4", fmt_: str = "pdf", date=None) -> bytes:
     """The class report as PDF (or HTML)."""
-    from .render import _check, _date_text, _out, render_html
+    from .render import check_paper_format, date_text, output_bytes, render_html
 
-    _check(paper, fmt_)
-    ctx = grade_context(g, date=_date_text(date), paper=paper)
-    return _out(render_html("grades.html.j2", ctx), fmt_)
+    check_paper_format(paper, fmt_)
+    ctx = grade_context(g, date=date_text(date), paper=paper)
+    return output_bytes(render_html("grades.html.j2", ctx), fmt_)

@@ -104,14 +104,16 @@ def _stylesheet() -> str:
     return resources.files("planner.templates").joinpath("style.css").read_text(encoding="utf-8")
 
 
-def _check(paper: str, fmt: str) -> None:
+def check_paper_format(paper: str, fmt: str) -> None:
+    """Refuse a paper size or an output format the sheets do not know (:class:`RenderError`)."""
     if paper not in PAPERS:
         raise RenderError(f"paper = {paper!r}: choose one of {', '.join(PAPERS)}")
     if fmt not in FORMATS:
         raise RenderError(f"fmt = {fmt!r}: choose one of {', '.join(FORMATS)}")
 
 
-def _date_text(date) -> str:
+def date_text(date) -> str:
+    """The date a sheet prints: today, a ``datetime.date``, or a text given as is."""
     if date is None:
         date = _dt.date.today()
     if isinstance(date, _dt.date):
@@ -139,7 +141,8 @@ def html_to_pdf(html: str, *, fetcher=None) -> bytes:
     return doc.write_pdf()
 
 
-def _out(html: str, fmt: str) -> bytes:
+def output_bytes(html: str, fmt: str) -> bytes:
+    """The bytes of a sheet: its HTML as UTF-8, or the PDF WeasyPrint makes of it."""
     return html.encode("utf-8") if fmt == "html" else html_to_pdf(html)
 
 
@@ -171,9 +174,9 @@ def prep_sheet(
     RenderError
         For an unknown paper or format, a bad date, or an order that does not list the stocks.
     """
-    _check(paper, fmt)
-    ctx = prep_context(plan, recipe, assessment, needs, date=_date_text(date), paper=paper, order=order)
-    return _out(render_html("prep_sheet.html.j2", ctx), fmt)
+    check_paper_format(paper, fmt)
+    ctx = prep_context(plan, recipe, assessment, needs, date=date_text(date), paper=paper, order=order)
+    return output_bytes(render_html("prep_sheet.html.j2", ctx), fmt)
 
 
 def report(plan, recipe, assessment, *, design=None, paper: str = "A4", fmt: str = "pdf", date=None) -> bytes:
@@ -188,7 +191,7 @@ def report(plan, recipe, assessment, *, design=None, paper: str = "A4", fmt: str
     """
     from . import figures as fig
 
-    _check(paper, fmt)
+    check_paper_format(paper, fmt)
     from ..jobs.stocks.needs import stock_needs
 
     if isinstance(design, Mapping):  # a design.json read back
@@ -204,12 +207,12 @@ def report(plan, recipe, assessment, *, design=None, paper: str = "A4", fmt: str
         figs = _report_figures(plan, recipe, assessment, fig)
     notes = plan_notes(plan, stock_needs(plan, recipe))
     ctx = report_context(
-        plan, recipe, assessment, date=_date_text(date), paper=paper, figures=figs, design=design, notes=notes
+        plan, recipe, assessment, date=date_text(date), paper=paper, figures=figs, design=design, notes=notes
     )
     if spectra:
         ctx["facts"] = report_facts(plan, ctx["facts"])
         ctx["a_heading"] = "Highest A in the window (±2 sd)"
-    return _out(render_html("report.html.j2", ctx), fmt)
+    return output_bytes(render_html("report.html.j2", ctx), fmt)
 
 
 def fit_report(plan, fit, *, kind: str = "pdf", paper: str = "A4", date=None) -> bytes:
@@ -217,9 +220,9 @@ def fit_report(plan, fit, *, kind: str = "pdf", paper: str = "A4", date=None) ->
     singular values and each tube's residuals; ``kind`` "pdf" (bytes of the PDF) or "html"."""
     from .spectra_report import fit_context
 
-    _check(paper, kind)
-    return _out(
-        render_html("spectra_fit.html.j2", fit_context(plan, fit, paper=paper, date=_date_text(date))), kind
+    check_paper_format(paper, kind)
+    return output_bytes(
+        render_html("spectra_fit.html.j2", fit_context(plan, fit, paper=paper, date=date_text(date))), kind
     )
 
 

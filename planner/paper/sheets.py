@@ -138,7 +138,7 @@ def addition_steps(plan: Plan, recipe: Recipe, order: tuple[str, ...], custom: b
     for sid in order:
         role = stock_role(plan, sid)
         d = plan.dispenser_for(sid)
-        how = f" from the {_dispenser_text(d)}" if d else ""
+        how = f" from the {dispenser_text(d)}" if d else ""
         why = ""
         if not custom and role == "metal" and sid == order[-1]:
             why = "last, into the diluted medium, so it cannot precipitate or hydrolyse"
@@ -159,7 +159,7 @@ def addition_steps(plan: Plan, recipe: Recipe, order: tuple[str, ...], custom: b
 # --------------------------------------------------------------------------------------------------
 # small texts
 # --------------------------------------------------------------------------------------------------
-def _dispenser_text(d) -> str:
+def dispenser_text(d) -> str:
     """The plan's dispenser as the bench names it ("class A 10 mL burette", "1000 µL micropipette"); no
     class where the plan gives the device by its tolerance alone."""
     from ..jobs.compile import dispenser_item
@@ -341,7 +341,7 @@ def prep_context(
         needed, needed_sub, enough = needed_text(plan, n)
         d = plan.dispenser_for(s.id)
         if d is not None:
-            disp = _dispenser_text(d)
+            disp = dispenser_text(d)
         elif s.diluent and to_mark:
             disp = "to the mark of each flask"
         else:

@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import fmt
-from .figures import ACCENT, BAND, INK, WARN, _draw, _plain
+from .figures import ACCENT, BAND, INK, WARN, draw_svg, plain_label
 
 __all__ = [
     "fitted_spectra_svg",
@@ -29,7 +29,7 @@ def information_svg(curves, share: np.ndarray, *, prefix: str = "fi") -> str:
     def paint(fig, ax):
         for k, name in enumerate(curves.names):
             style = "-" if curves.fitted[k] else "--"
-            ax.plot(wl, curves.epsilon[k], style, color=PALETTE[k % len(PALETTE)], label=_plain(name))
+            ax.plot(wl, curves.epsilon[k], style, color=PALETTE[k % len(PALETTE)], label=plain_label(name))
         ax.set_xlabel("wavelength / nm")
         ax.set_ylabel("ε / L mol⁻¹ cm⁻¹")
         ax.set_ylim(bottom=0)
@@ -43,7 +43,7 @@ def information_svg(curves, share: np.ndarray, *, prefix: str = "fi") -> str:
         ax.patch.set_visible(False)
         ax.legend(loc="upper left", ncol=2)
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)
 
 
 def single_wavelength_svg(wl, se_single, eligible, se_whole: float, *, prefix: str = "fw") -> str:
@@ -62,7 +62,7 @@ def single_wavelength_svg(wl, se_single, eligible, se_whole: float, *, prefix: s
         ax.set_ylabel("SE of the target log β")
         ax.legend(loc="lower left")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)
 
 
 def tube_spectra_svg(curves, *, prefix: str = "ft") -> str:
@@ -84,7 +84,7 @@ def tube_spectra_svg(curves, *, prefix: str = "ft") -> str:
         ax.set_ylabel("expected absorbance")
         ax.legend(loc="upper left")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)
 
 
 def fitted_spectra_svg(wl, names, epsilon, se, guess=None, *, prefix: str = "fe") -> str:
@@ -94,14 +94,14 @@ def fitted_spectra_svg(wl, names, epsilon, se, guess=None, *, prefix: str = "fe"
         for k, name in enumerate(names):
             c = PALETTE[k % len(PALETTE)]
             ax.fill_between(wl, epsilon[k] - 2 * se[k], epsilon[k] + 2 * se[k], color=c, alpha=0.2, lw=0)
-            ax.plot(wl, epsilon[k], color=c, label=f"{_plain(name)} fitted ± 2 SE")
+            ax.plot(wl, epsilon[k], color=c, label=f"{plain_label(name)} fitted ± 2 SE")
             if guess is not None:
                 ax.plot(wl, guess[k], color=c, lw=0.8, ls="--")
         ax.set_xlabel("wavelength / nm")
         ax.set_ylabel("ε / L mol⁻¹ cm⁻¹")
         ax.legend(loc="upper left")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)
 
 
 def singular_values_svg(sv, n_factors: int, *, prefix: str = "fv") -> str:
@@ -118,4 +118,4 @@ def singular_values_svg(sv, n_factors: int, *, prefix: str = "fv") -> str:
         ax.set_ylabel("singular value")
         ax.legend(loc="upper right")
 
-    return _draw(prefix, paint)
+    return draw_svg(prefix, paint)

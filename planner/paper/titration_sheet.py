@@ -8,7 +8,7 @@ import numpy as np
 from ..uncertainty.catalogue import TITRANT_READING_KINDS
 from . import fmt
 from .bench_volumes import device_items, reading_how, titrant_unit
-from .sheets import _dispenser_text, safety_context
+from .sheets import dispenser_text, safety_context
 
 
 def _titrant_step(t, tit, disp, item) -> str:
@@ -24,7 +24,7 @@ def _titrant_step(t, tit, disp, item) -> str:
         )
     return (
         f"For each step below: add the portion of {who}"
-        + (f" with the {_dispenser_text(disp)}" if disp else "")
+        + (f" with the {dispenser_text(disp)}" if disp else "")
         + f" below the surface, {t.equilibrate}, then write the reading in the empty column."
     )
 
@@ -65,7 +65,7 @@ def titration_context(plan, recipe, assessment, *, date: str, paper: str) -> dic
         "Switch the spectrophotometer on early so the lamp is stable; set the wavelength to "
         f"{fmt.sig(o.wavelength_nm, 3)} nm and zero it on a cuvette of the medium the stocks are made in.",
         f"Deliver {start} mL of {cell.label or cell.id} into the clean, dry cell"
-        + (f" with the {_dispenser_text(start_disp)}" if start_disp else "")
+        + (f" with the {dispenser_text(start_disp)}" if start_disp else "")
         + ".",
         _titrant_step(t, tit, disp, item),
         f"Stop, and tell the person in charge, if a reading falls outside "
@@ -103,8 +103,8 @@ def titration_context(plan, recipe, assessment, *, date: str, paper: str) -> dic
 
 
 def titration_sheet(plan, recipe, assessment, *, paper: str = "A4", fmt_: str = "pdf", date=None) -> bytes:
-    from .render import _check, _date_text, _out, render_html
+    from .render import check_paper_format, date_text, output_bytes, render_html
 
-    _check(paper, fmt_)
-    ctx = titration_context(plan, recipe, assessment, date=_date_text(date), paper=paper)
-    return _out(render_html("titration_sheet.html.j2", ctx), fmt_)
+    check_paper_format(paper, fmt_)
+    ctx = titration_context(plan, recipe, assessment, date=date_text(date), paper=paper)
+    return output_bytes(render_html("titration_sheet.html.j2", ctx), fmt_)

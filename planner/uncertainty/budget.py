@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..inputs.recipe import Recipe, RecipeError
+from ..inputs.text import tube_list
 from ..model.compiled import Model, TubeState
 from ..model.jacobians import absorbance_derivatives
 from . import delivery
@@ -58,9 +59,10 @@ def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
             out.append(
                 (
                     "glassware.make_up_min",
-                    f"{_tubes(recipe.tubes, short)} leave {rest[short].min():g} mL of {bench.diluent_id} to "
-                    f"make up to the mark, less than make_up_min = {bench.make_up_min_mL:g} mL: dispense at "
-                    f"most {bench.room_mL:g} mL in all (more concentrated stocks or fewer mL of each)",
+                    f"{tube_list(recipe.tubes, short, 4)} leave {rest[short].min():g} mL of "
+                    f"{bench.diluent_id} to make up to the mark, less than make_up_min = "
+                    f"{bench.make_up_min_mL:g} mL: dispense at most {bench.room_mL:g} mL in all (more "
+                    "concentrated stocks or fewer mL of each)",
                 )
             )
     for sid in bench.dispensed_ids(recipe):
@@ -106,7 +108,7 @@ def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
                 (
                     f"stock {sid}",
                     f"below the smallest volume the {item.label} delivers ({vmin:g} mL) in "
-                    f"{_tubes(recipe.tubes, tiny)}: use a smaller device or a more dilute stock",
+                    f"{tube_list(recipe.tubes, tiny, 4)}: use a smaller device or a more dilute stock",
                 )
             )
         over = used & (v > item.capacity_mL * (1 + 1e-9))
@@ -131,11 +133,6 @@ def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
                     )
                 )
     return out
-
-
-def _tubes(labels, mask) -> str:
-    sel = [t for t, m in zip(labels, mask, strict=True) if m]
-    return ", ".join(sel[:4]) + (" …" if len(sel) > 4 else "")
 
 
 def require_glassware_fits(bench: Bench, recipe: Recipe) -> None:

@@ -71,9 +71,9 @@ about 0.49: the one published pair we have for class A glassware [derived]."""
 MIN_STEP_mL = 1e-6
 """Smallest grid step accepted (1 nL): below any real device; keeps 10-decimal rounding exact."""
 
-_GRID_DECIMALS = 10
-_GRID_ATOL_mL = 1e-10  # the resolution of the 10-decimal rounding
-_MAX_GRID_POINTS = 1_000_000
+GRID_DECIMALS = 10
+GRID_ATOL_mL = 1e-10  # the resolution of the 10-decimal rounding
+MAX_GRID_POINTS = 1_000_000
 
 
 class GlasswareError(InputError):
@@ -125,19 +125,15 @@ class GlasswareItem:
     def label(self) -> str:
         """Human name for prep sheets, e.g. ``"class A 50 mL burette"``; no class where none is known."""
         if self.kind == "micropipette":
-            return f"{_fmt(self.capacity_mL * 1000.0)} µL micropipette"
+            return f"{self.capacity_mL * 1000.0:g} µL micropipette"
         names = {
             "pipette": "one-mark pipette",
             "graduated-pipette": "graduated pipette",
             "flask": "volumetric flask",
             "piston-burette": "piston burette",
         }
-        what = f"{_fmt(self.capacity_mL)} mL {names.get(self.kind, self.kind)}"
+        what = f"{self.capacity_mL:g} mL {names.get(self.kind, self.kind)}"
         return what if self.cls is None else f"class {self.cls} {what}"
-
-
-def _fmt(x: float) -> str:
-    return f"{x:g}"
 
 
 # --------------------------------------------------------------------------------------------------
@@ -209,8 +205,8 @@ def _capacities(kind: str) -> list[float]:
 def _describe_capacities(kind: str) -> str:
     caps = _capacities(kind)
     if kind == "micropipette":
-        return ", ".join(_fmt(c * 1000.0) for c in caps) + " µL"
-    return ", ".join(_fmt(c) for c in caps) + " mL"
+        return ", ".join(f"{c * 1000.0:g}" for c in caps) + " µL"
+    return ", ".join(f"{c:g}" for c in caps) + " mL"
 
 
 def _checked_class(kind: str, cls: str | None, tolerance_mL: float | None) -> str | None:
@@ -248,7 +244,7 @@ def _check_figures(kind: str, capacity_mL, tolerance_mL, graduation_mL, random_m
             raise GlasswareError(f"{kind} {name} must be a positive number of mL, got {value!r}")
     if graduation_mL is not None and graduation_mL > capacity_mL * (1 + 1e-9):
         raise GlasswareError(
-            f"{kind} graduation_mL {_fmt(graduation_mL)} is more than its {_fmt(float(capacity_mL))} mL "
+            f"{kind} graduation_mL {graduation_mL:g} is more than its {float(capacity_mL):g} mL "
             "capacity; give its smallest subdivision"
         )
 
@@ -307,9 +303,7 @@ def lookup(
     )
     if base is None:
         if tolerance_mL is None:
-            shown = (
-                f"{_fmt(capacity_mL * 1000.0)} µL" if kind == "micropipette" else f"{_fmt(capacity_mL)} mL"
-            )
+            shown = f"{capacity_mL * 1000.0:g} µL" if kind == "micropipette" else f"{capacity_mL:g} mL"
             raise GlasswareError(
                 f"no {kind} of {shown} in the glassware catalogue; it has {_describe_capacities(kind)}. "
                 "Pick one of those, or give tolerance_mL for your own device"

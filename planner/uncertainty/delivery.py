@@ -19,9 +19,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from .catalogue import (
-    _GRID_DECIMALS,
-    _MAX_GRID_POINTS,
+    GRID_DECIMALS,
     KINDS,
+    MAX_GRID_POINTS,
     MICROPIPETTE_MIN_FRACTION,
     PISTON_KINDS,
     READING_FRACTION_OF_GRADUATION,
@@ -32,9 +32,8 @@ from .catalogue import (
     DEFAULT_READING_HALF_WIDTH_mL,
     GlasswareError,
     GlasswareItem,
+    GRID_ATOL_mL,
     MIN_STEP_mL,
-    _fmt,
-    _GRID_ATOL_mL,
 )
 
 
@@ -260,7 +259,7 @@ def flask_volume_uncertainty(
 # volume checks and grids
 # --------------------------------------------------------------------------------------------------
 def _shown(values: np.ndarray, limit: int = 5) -> str:
-    vals = [_fmt(float(x)) for x in np.ravel(values)[:limit]]
+    vals = [f"{float(x):g}" for x in np.ravel(values)[:limit]]
     more = " …" if np.size(values) > limit else ""
     return ", ".join(vals) + more
 
@@ -304,7 +303,7 @@ def check_volume(
     over = v > cap * (1.0 + 1e-9)
     if np.any(over):
         raise GlasswareError(
-            f"{label}: {_shown(v[over])} mL exceeds its {_fmt(cap)} mL capacity; "
+            f"{label}: {_shown(v[over])} mL exceeds its {cap:g} mL capacity; "
             "split the delivery or choose a larger device"
         )
     used = v > 0
@@ -312,7 +311,7 @@ def check_volume(
         off = used & ~np.isclose(v, cap, rtol=1e-9, atol=0.0)
         if np.any(off):
             raise GlasswareError(
-                f"{label} holds only its capacity, {_fmt(cap)} mL, but {_shown(v[off])} mL was asked; "
+                f"{label} holds only its capacity, {cap:g} mL, but {_shown(v[off])} mL was asked; "
                 "use a burette, graduated pipette or micropipette, or a one-mark pipette of that size"
             )
     if min_volume_mL is None and item.kind == "micropipette":
@@ -322,13 +321,13 @@ def check_volume(
         if np.any(low):
             raise GlasswareError(
                 f"{label}: {_shown(v[low])} mL is below the smallest volume allowed, "
-                f"{_fmt(min_volume_mL)} mL; use a smaller device or a more dilute stock"
+                f"{min_volume_mL:g} mL; use a smaller device or a more dilute stock"
             )
     if step_mL is not None:
         off = ~on_grid(v, step_mL)
         if np.any(off):
             raise GlasswareError(
-                f"{label}: {_shown(v[off])} mL is not a multiple of the {_fmt(step_mL)} mL step "
+                f"{label}: {_shown(v[off])} mL is not a multiple of the {step_mL:g} mL step "
                 f"(nearest: {_shown(snap_to_grid(v[off], step_mL))} mL); snap the recipe to the grid"
             )
 
@@ -349,14 +348,14 @@ def on_grid(volume_mL, step_mL: float, *, rtol: float = 1e-9) -> np.ndarray:
     step = _check_step(step_mL)
     v = np.asarray(volume_mL, dtype=float)
     gap = np.abs(v - np.rint(v / step) * step)
-    return gap <= np.maximum(rtol * np.maximum(np.abs(v), step), _GRID_ATOL_mL)
+    return gap <= np.maximum(rtol * np.maximum(np.abs(v), step), GRID_ATOL_mL)
 
 
 def snap_to_grid(volume_mL, step_mL: float) -> np.ndarray:
     """Nearest multiple of ``step_mL`` (built as integer × step, rounded to 10 decimals against drift)."""
     step = _check_step(step_mL)
     v = np.asarray(volume_mL, dtype=float)
-    return np.round(np.rint(v / step) * step, _GRID_DECIMALS)
+    return np.round(np.rint(v / step) * step, GRID_DECIMALS)
 
 
 def volume_grid(min_mL: float, max_mL: float, step_mL: float) -> np.ndarray:
@@ -375,18 +374,17 @@ def volume_grid(min_mL: float, max_mL: float, step_mL: float) -> np.ndarray:
         raise GlasswareError(
             f"volume grid needs 0 ≤ min_mL ≤ max_mL, got min_mL={min_mL!r}, max_mL={max_mL!r}"
         )
-    if (hi - lo) / step > _MAX_GRID_POINTS:
+    if (hi - lo) / step > MAX_GRID_POINTS:
         raise GlasswareError(
-            f"volume grid {_fmt(lo)}–{_fmt(hi)} mL in steps of {_fmt(step)} mL has more than "
-            f"{_MAX_GRID_POINTS} points; use a coarser step"
+            f"volume grid {lo:g}–{hi:g} mL in steps of {step:g} mL has more than "
+            f"{MAX_GRID_POINTS} points; use a coarser step"
         )
     k_lo = math.ceil(lo / step - 1e-9)
     k_hi = math.floor(hi / step + 1e-9)
     if k_hi < k_lo:
         raise GlasswareError(
-            f"no multiple of {_fmt(step)} mL lies in [{_fmt(lo)}, {_fmt(hi)}] mL; widen the range or "
-            "use a finer step"
+            f"no multiple of {step:g} mL lies in [{lo:g}, {hi:g}] mL; widen the range or use a finer step"
         )
-    grid = np.round(np.arange(k_lo, k_hi + 1, dtype=float) * step, _GRID_DECIMALS)
+    grid = np.round(np.arange(k_lo, k_hi + 1, dtype=float) * step, GRID_DECIMALS)
     # The 1e-9 slack may put an end point a hair outside the bounds; clipping moves it < 1e-9·step.
     return np.clip(grid, lo, hi)

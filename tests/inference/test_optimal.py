@@ -485,7 +485,7 @@ def test_update_formulas_match_direct_evaluation():
         F = g.normal(size=(2, 7, R, 3))
         x = np.array([2, 0, 1, 0, 1, 1, 0])
         for criterion, target in (("all", None), ("target", 1)):
-            prob = design_criteria._problem(F, criterion, target, None, None, float(x.sum()), True)
+            prob = design_criteria.problem_of(F, criterion, target, None, None, float(x.sum()), True)
             state = exchange._State(prob, x.astype(np.int64))
             parts = state.parts()
             sup = np.flatnonzero(x)

@@ -70,7 +70,7 @@ def _proposals(grid: Grid, alloc: np.ndarray, radius: int, K: int, rng: np.rando
 
 def _deal(ap: ApproximateDesign, N: int, n: int) -> np.ndarray:
     """The pooled design of N·n tubes dealt out: (N, n) feasible indices, tube i to student i mod N."""
-    pooled = exchange._efficient_rounding(ap.weights, N * n)
+    pooled = exchange.efficient_rounding(ap.weights, N * n)
     return np.repeat(np.arange(pooled.size), pooled).reshape(n, N).T
 
 

@@ -27,7 +27,7 @@ from ...inputs.recipe import Recipe
 from ...inputs.roster import Roster
 from ...uncertainty import stocks as stk
 from ...uncertainty.catalogue import catalogue
-from ..stocks.needs import StockNeed, _flask_choice, stock_needs
+from ..stocks.needs import StockNeed, flask_choice, stock_needs
 
 __all__ = ["ClassStock", "class_stocks"]
 
@@ -109,7 +109,7 @@ def _volumes(plan: Plan, recipes: list[Recipe], roster: Roster):
 def _flask_and_batches(s, volume_mL: float) -> tuple[float, int]:
     """The flask a volume is made up in and how many batches of it (module docstring)."""
     try:
-        flask_mL = _flask_choice(s, volume_mL)
+        flask_mL = flask_choice(s, volume_mL)
     except PlanError:  # more than the largest flask: repeated batches of the largest
         flask_mL = [it.capacity_mL for it in catalogue() if it.kind == "flask"][-1]
     return flask_mL, max(1, math.ceil(volume_mL / flask_mL - 1e-9))

@@ -268,7 +268,7 @@ def assess_study(
         check_list.append(chk.second_complex(model, state, recipe.tubes, target))
     check_list.append(chk.ionic_strength(state))
     check_list.extend(chk.side_reactions(model, state, recipe.tubes))
-    check_list.extend(_stock_and_glassware_checks(bench, recipe))
+    check_list.extend(stock_and_glassware_checks(bench, recipe))
     if cr is not None:
         check_list.append(_identifiability_check(params, cr, model, state))
     det: tuple | None = None
@@ -286,7 +286,9 @@ def assess_study(
         )
         if suggest and limits is not None:
             limits = what_would_help(study, recipe, limits, lb_true)
-    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof, precision), check_list)
+    verdict, reason = with_failed_checks(
+        *precision_verdict(study, params, cr, mc, prof, precision), check_list
+    )
     check_list.sort(key=lambda c: -STATUSES.index(c.status))
     return Assessment(
         study.title,
@@ -341,7 +343,7 @@ def stock_shortfalls(bench: Bench, recipe: Recipe) -> list[tuple[str, float, flo
     ]
 
 
-def _stock_and_glassware_checks(bench: Bench, recipe: Recipe) -> list[Check]:
+def stock_and_glassware_checks(bench: Bench, recipe: Recipe) -> list[Check]:
     out = []
     short = stock_shortfalls(bench, recipe)
     if short:
@@ -397,7 +399,9 @@ def _identifiability_check(params: Parameters, cr: CramerRao, model: Model, stat
     )
 
 
-def _verdict(study: Study, params: Parameters, cr, mc, prof, precision: bool) -> tuple[str | None, str]:
+def precision_verdict(
+    study: Study, params: Parameters, cr, mc, prof, precision: bool
+) -> tuple[str | None, str]:
     t = params.target
     if precision and (params.size == 0 or t < 0):
         # nothing the target depends on is fitted: no recipe resolves a constant it does not estimate

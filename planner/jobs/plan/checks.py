@@ -10,7 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...inputs.text import plural
+from ...inputs.text import plural, tube_list
 from ...model import closed_forms
 from ...model.compiled import Model, TubeState
 
@@ -41,11 +41,6 @@ class Check:
 
 def _all_tubes(n: int) -> str:
     return "the tube reads" if n == 1 else f"all {n} tubes read"
-
-
-def _tubes(labels, mask) -> str:
-    sel = [t for t, m in zip(labels, mask, strict=True) if m]
-    return ", ".join(sel[:6]) + (" …" if len(sel) > 6 else "")
 
 
 def range_risk(absorbance: np.ndarray, sd: np.ndarray, lo: float, hi: float) -> np.ndarray:
@@ -150,12 +145,12 @@ def linear_range(
         parts = []
         if out_hi.any():
             parts.append(
-                f"{_tubes(tubes, out_hi)} above {hi:g}: use less of the absorbing stock, a shorter path "
+                f"{tube_list(tubes, out_hi)} above {hi:g}: use less of the absorbing stock, a shorter path "
                 f"or a wavelength off the band maximum"
             )
         if out_lo.any():
             parts.append(
-                f"{_tubes(tubes, out_lo)} below {lo:g}: use more of the absorbing stock or a longer path"
+                f"{tube_list(tubes, out_lo)} below {lo:g}: use more of the absorbing stock or a longer path"
             )
         return Check("linear-range", "fail", "; ".join(parts))
     if risk is not None:
@@ -165,7 +160,7 @@ def linear_range(
             return Check(
                 "linear-range",
                 "warn",
-                f"inside {lo:g}–{hi:g} at the guess, but {_tubes(tubes, risky)} may leave it if the "
+                f"inside {lo:g}–{hi:g} at the guess, but {tube_list(tubes, risky)} may leave it if the "
                 f"guess is off (up to {risk.max():.0%} risk{band}): move those tubes towards the "
                 f"middle of the range",
             )
@@ -175,7 +170,7 @@ def linear_range(
             "linear-range",
             "pass",
             f"{_all_tubes(int((~blank).sum()))} between {lo:g} and {hi:g} (A = {a[~blank].min():.3f}–"
-            f"{a[~blank].max():.3f}); the blanks {_tubes(tubes, blank)} read {a[blank].max():.3f} at most",
+            f"{a[~blank].max():.3f}); the blanks {tube_list(tubes, blank)} read {a[blank].max():.3f} at most",
         )
     return Check(
         "linear-range",
@@ -311,7 +306,7 @@ def _bias_words(f: float, y: np.ndarray, tubes, calib: int) -> str:
         out += f"; in this recipe's tubes {np.min(per[usable]):+.1%} to {np.max(per[usable]):+.1%}"
     beyond = others & ~np.isfinite(per)
     if beyond.any():
-        out += f"; {_tubes(tubes, beyond)} (saturation ≥ {f:.0%}) cannot be analysed this way at all"
+        out += f"; {tube_list(tubes, beyond)} (saturation ≥ {f:.0%}) cannot be analysed this way at all"
     return out
 
 
@@ -335,7 +330,7 @@ def double_reciprocal(state: TubeState, tubes) -> Check:
     return Check(
         "double-reciprocal",
         status,
-        f"ligand excess only {np.min(ratio):.0f}× in {_tubes(tubes, low)}; a double-reciprocal "
+        f"ligand excess only {np.min(ratio):.0f}× in {tube_list(tubes, low)}; a double-reciprocal "
         f"plot needs about 100× (not 10×): lower the metal or raise the ligand, or fit globally",
     )
 

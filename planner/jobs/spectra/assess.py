@@ -21,6 +21,7 @@ from ...inference.priors import prior_nodes
 from ...inference.simulate import simulate
 from ...inference.study import Study
 from ...inputs.recipe import Recipe
+from ...inputs.text import tube_list
 from ...model.compiled import TubeState
 from ...model.spectra import spectra_readings
 from ..compile import true_constants
@@ -29,8 +30,8 @@ from ..plan.assess import (
     DEFAULT_TRIALS,
     STATUSES,
     Assessment,
-    _stock_and_glassware_checks,
-    _verdict,
+    precision_verdict,
+    stock_and_glassware_checks,
     with_failed_checks,
 )
 from .facts import FactorOutlook, spectra_facts
@@ -77,14 +78,14 @@ def assess_spectra(
     checks.append(chk.saturation(state, recipe.tubes))
     checks.append(chk.ionic_strength(state))
     checks.extend(chk.side_reactions(model, state, recipe.tubes))
-    checks.extend(_stock_and_glassware_checks(study.bench, recipe))
+    checks.extend(stock_and_glassware_checks(study.bench, recipe))
     if cr is not None:
         checks.append(_identifiability(cr))
     fa = None
     if factors:
         fa = factor_check(study, recipe, sm, ex, lb_true, np.random.default_rng(seed + 2))
         checks.append(fa[0])
-    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof, True), checks)
+    verdict, reason = with_failed_checks(*precision_verdict(study, params, cr, mc, prof, True), checks)
     checks.sort(key=lambda c: -STATUSES.index(c.status))
     return Assessment(
         study.title,
@@ -133,7 +134,7 @@ def spectra_range_check(study: Study, sm: SpectraModel, ex: Expected, recipe: Re
         return chk.Check(
             "linear-range",
             "fail",
-            f"{chk._tubes(recipe.tubes, over)} read above {hi:g} in part of the window (up to {top[i]:.3f} "
+            f"{tube_list(recipe.tubes, over)} read above {hi:g} in part of the window (up to {top[i]:.3f} "
             f"at "
             f"{wl[i]:g} nm); those readings would be left out: use less of the absorbing stock or a "
             f"shorter path",
@@ -144,14 +145,14 @@ def spectra_range_check(study: Study, sm: SpectraModel, ex: Expected, recipe: Re
         return chk.Check(
             "linear-range",
             "warn",
-            f"{chk._tubes(recipe.tubes, at_risk)} may read above {hi:g} if the constants or spectra are "
+            f"{tube_list(recipe.tubes, at_risk)} may read above {hi:g} if the constants or spectra are "
             f"off by their uncertainty (chance up to {risk.max():.0%}): use a little less absorbing stock",
         )
     if dim.any():
         return chk.Check(
             "linear-range",
             "warn",
-            f"{chk._tubes(recipe.tubes, dim)} read below {lo:g} at every wavelength: they add little "
+            f"{tube_list(recipe.tubes, dim)} read below {lo:g} at every wavelength: they add little "
             f"(more of the absorbing stock or a longer path)",
         )
     return chk.Check(

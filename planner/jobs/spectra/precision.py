@@ -24,8 +24,8 @@ from ...inference.precision import (
     CramerRao,
     MonteCarlo,
     Profile,
-    _limit_ends,
     cramer_rao,
+    limit_ends,
     unpack,
 )
 from ...inference.simulate import simulate
@@ -165,7 +165,7 @@ def spectra_profile(
     refitted (Raue et al. 2009, Bioinformatics 25:1923, as :func:`planner.inference.precision.profile`)."""
     t = sm.params.target
     inner = true_theta[t] + np.linspace(-3.0, 3.0, n_grid)
-    low, high = _limit_ends(_Reading(sm), true_theta)
+    low, high = limit_ends(_Reading(sm), true_theta)
     grid = np.concatenate([[low], inner, [high]])
     chi2 = profile_chi2(sm, weights, sm.linear_readings(true_theta[None])[0], true_theta, grid)
     return Profile(grid, chi2, bool(chi2[0] < CHI2_95_1DOF), bool(chi2[-1] < CHI2_95_1DOF))
@@ -173,7 +173,7 @@ def spectra_profile(
 
 @dataclass(frozen=True)
 class _Reading:
-    """What :func:`planner.inference.precision._limit_ends` reads of a reading model."""
+    """What :func:`planner.inference.precision.limit_ends` reads of a reading model."""
 
     sm: SpectraModel
 

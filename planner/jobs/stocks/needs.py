@@ -405,7 +405,7 @@ def _weighing(plan: Plan, s, comp: str | None, need: float | None, scarce: bool)
     return prep, mass_basis(prep, choice, need, scarce=scarce, scarce_prep=least), choice, None
 
 
-def _flask_choice(s, need_mL: float | None) -> float:
+def flask_choice(s, need_mL: float | None) -> float:
     """The plan's flask for the stock, else the smallest that holds what is needed (at least 50 mL); kept
     for the class stock list."""
     try:
