@@ -123,14 +123,7 @@ def print_spectra_fit(f) -> None:
         out.print(f"[yellow]left out[/yellow] {f.readings_left_out} readings above the linear range")
     if f.wavelengths_left_out:
         out.print(f"[yellow]left out[/yellow] {f.wavelengths_left_out} wavelengths outside the plan's window")
-    if not f.determined:
-        out.print(f"[red]not determined:[/red] {S(f.reason)}")
-    out.print(_parameter_table(f, "Fitted constants"))
-    if f.dof >= 1 and f.determined:
-        out.print(
-            f"χ² = {f.chi2:.1f} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, lower tail "
-            f"p = {f.p_low:.2f}): {f.chi2_verdict}"
-        )
+    _print_constants(f, "Fitted constants", ".1f")
     fa = f.factors
     if fa is not None:
         sv = ", ".join(fmt.sig(float(x), 3) for x in fa.singular_values[:6])
@@ -146,6 +139,18 @@ def print_spectra_fit(f) -> None:
     for tube, rms, p_, o in zip(f.tubes, f.tube_rms, f.tube_p, f.outlier_tubes, strict=True):
         t.add_row(S(tube), f"{rms:.2f}", f"{p_:.3g}", "[red]outlier[/red]" if o else "")
     out.print(t)
+
+
+def _print_constants(f, title: str, chi2_format: str) -> None:
+    """Whether the fit determined the constants, their table and the χ² test of the scatter."""
+    if not f.determined:
+        out.print(f"[red]not determined:[/red] {S(f.reason)}")
+    out.print(_parameter_table(f, title))
+    if f.dof >= 1 and f.determined:
+        out.print(
+            f"χ² = {f.chi2:{chi2_format}} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, "
+            f"lower tail p = {f.p_low:.2f}): {f.chi2_verdict}"
+        )
 
 
 def _parameter_table(f, title: str):
@@ -176,15 +181,8 @@ def _print_fit(f, plan: Path, readings: Path, skip: tuple[str, ...]) -> None:
     for tube, why in f.excluded:
         hint = " (--keep-out-of-range keeps it)" if "linear range" in why else ""
         out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}{hint}")
-    if not f.determined:
-        out.print(f"[red]not determined:[/red] {S(f.reason)}")
-    out.print(_parameter_table(f, "Fitted parameters"))
-    if f.dof >= 1 and f.determined:
-        out.print(
-            f"χ² = {f.chi2:.2f} on {f.dof} degrees of freedom (upper tail p = {f.p_value:.2f}, lower "
-            f"tail p = {f.p_low:.2f}): {f.chi2_verdict}"
-        )
-    elif f.determined:
+    _print_constants(f, "Fitted parameters", ".2f")
+    if f.determined and f.dof < 1:
         out.print(f.chi2_verdict)
     if f.interval_note:
         out.print(f"[yellow]{S(f.interval_note)}[/yellow]")

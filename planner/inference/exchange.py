@@ -10,21 +10,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..inputs.text import plural
+from . import design_criteria as dc
 from .approximate import ApproximateDesign, approximate_design
-from .design_criteria import (
-    DesignError,
-    Problem,
-    factor,
-    loss_of,
-    moment,
-    problem_of,
-    restrict,
-    rows_of,
-    sensitivities,
-    target_vector,
-    top_k,
-    value_of,
-)
+from .design_criteria import DesignError, Problem
 
 # The exchange searches the _POOL_MIN (or _POOL_PER_TUBE × n) candidates of highest sensitivity
 # under the approximate optimum before the final polish over all candidates.
@@ -118,17 +106,17 @@ class _State:
 
     def refresh(self):
         sup = np.flatnonzero(self.x)
-        self.Linv, logdet = factor(moment(self.prob, self.x[sup].astype(float), sup))
-        self.loss = loss_of(self.prob, self.Linv, logdet)
+        self.Linv, logdet = dc.factor(dc.moment(self.prob, self.x[sup].astype(float), sup))
+        self.loss = dc.loss_of(self.prob, self.Linv, logdet)
         if self.prob.criterion == "target":
-            self.u, self.v = target_vector(self.prob, self.Linv)
+            self.u, self.v = dc.target_vector(self.prob, self.Linv)
 
     def parts(self, idx: np.ndarray | None = None):
         """For candidates idx (all if None): Z = F L⁻ᵀ (G, c, R, P), A = F M⁻¹ Fᵀ blocks
         (G, c, R, R), b = F u (G, c, R) (target only, else None)."""
         G, C, R, P = self.prob.F.shape
         c = C if idx is None else len(idx)
-        rows = rows_of(self.prob, idx)
+        rows = dc.rows_of(self.prob, idx)
         Zf = np.matmul(rows, self.Linv.transpose(0, 2, 1))
         Z = Zf.reshape(G, c, R, P)
         if R == 1:  # a stack of 1 × 1 blocks: a row sum beats 10⁵ tiny matrix products
@@ -342,7 +330,7 @@ def exact_design(
     """
     _check_exact_args(n_tubes, rng, starts, max_sweeps)
     n = int(n_tubes)
-    prob = problem_of(F, criterion, target, M0, node_weights, float(n), True)
+    prob = dc.problem_of(F, criterion, target, M0, node_weights, float(n), True)
     if criterion == "all":
         rank0 = (
             0
@@ -373,19 +361,19 @@ def exact_design(
     w = approx.weights
     # Reference: the approximate design's loss at this n (identical scaling and ridge).
     sup_w = np.flatnonzero(w)
-    Linv_a, logdet_a = factor(moment(prob, n * w[sup_w], sup_w))
-    loss_approx = loss_of(prob, Linv_a, logdet_a)
+    Linv_a, logdet_a = dc.factor(dc.moment(prob, n * w[sup_w], sup_w))
+    loss_approx = dc.loss_of(prob, Linv_a, logdet_a)
     # Candidate pool: highest sensitivity under the approximate optimum (ordered, so that a permutation
     # of the candidates permutes the pool), always including its support. The starts run on the
     # pool; the best is then polished on all candidates.
-    d = sensitivities(prob, Linv_a)
+    d = dc.sensitivities(prob, Linv_a)
     size = min(prob.C, max(_POOL_MIN, _POOL_PER_TUBE * n))
-    pool = top_k(d, size)
+    pool = dc.top_k(d, size)
     pool = np.concatenate([pool, np.setdiff1d(sup_w, pool)])
     x_init = _initial_counts(initial, prob.C, n)
     if x_init is not None:
         pool = np.concatenate([pool, np.setdiff1d(np.flatnonzero(x_init), pool)])
-    sub = restrict(prob, pool)
+    sub = dc.restrict(prob, pool)
     max_steps = int(max_sweeps) * n
     best = None
     for s in range(int(starts) + (x_init is not None)):
@@ -406,7 +394,7 @@ def exact_design(
         best = _exchange(prob, x, max_steps)
         x = best.x
     counts = x.astype(np.int64)
-    value = value_of(prob, best.loss, best.Linv)
+    value = dc.value_of(prob, best.loss, best.Linv)
     eff = float(np.exp((loss_approx - best.loss) / prob.k)) if np.isfinite(value) else 0.0
     return ExactDesign(counts, value, eff, int(starts))
 
@@ -506,7 +494,7 @@ def coordinate_exchange(
             m = var.shape[0] // n
             Fv, okv = info(var)
             # one problem holds the design's points and every variant; the design is counts on it
-            prob = problem_of(
+            prob = dc.problem_of(
                 np.concatenate([F_pts, Fv], axis=1), criterion, target, M0, node_weights, float(n), True
             )
             at = np.arange(n)  # where each point of the design sits among the problem's rows

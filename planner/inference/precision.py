@@ -63,27 +63,19 @@ def free_parameters(model: Model, target: str, *, blank_offset: bool = False) ->
     target : the species whose log β must be resolved.
     blank_offset : fit an unknown blank offset as well.
     """
-    names, kind, idx, guess, sd = [], [], [], [], []
-    for j, s in enumerate(model.species):
-        if model.log_beta_sd[j] > 0:
-            names.append(f"log_beta[{s}]")
-            kind.append(0)
-            idx.append(j)
-            guess.append(model.log_beta[j])
-            sd.append(model.log_beta_sd[j])
-    for j, a in enumerate(model.absorbers):
-        if model.epsilon_rsd[j] > 0:
-            names.append(f"epsilon[{a}]")
-            kind.append(1)
-            idx.append(j)
-            guess.append(model.epsilon_M_cm[j])
-            sd.append(model.epsilon_rsd[j] * model.epsilon_M_cm[j])
+    rows = [
+        (f"log_beta[{s}]", 0, j, model.log_beta[j], model.log_beta_sd[j])
+        for j, s in enumerate(model.species)
+        if model.log_beta_sd[j] > 0
+    ] + [
+        (f"epsilon[{a}]", 1, j, model.epsilon_M_cm[j], model.epsilon_rsd[j] * model.epsilon_M_cm[j])
+        for j, a in enumerate(model.absorbers)
+        if model.epsilon_rsd[j] > 0
+    ]
     if blank_offset:
-        names.append("blank")
-        kind.append(2)
-        idx.append(0)
-        guess.append(0.0)
-        sd.append(0.01)  # a blank mismatch of about 0.01 A [common practice]
+        rows.append(("blank", 2, 0, 0.0, 0.01))  # a blank mismatch of about 0.01 A [common practice]
+    names = [r[0] for r in rows]
+    kind, idx, guess, sd = ([r[k] for r in rows] for k in range(1, 5))
     t = f"log_beta[{target}]"
     return Parameters(
         tuple(names),

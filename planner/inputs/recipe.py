@@ -126,6 +126,17 @@ def make_recipe(
     )
 
 
+def _refuse_overfull(tubes, total_mL: np.ndarray, tube_mL: float, what: str) -> None:
+    """Refuse the first tube whose ``what`` (its stocks, all its volumes) add up to more than the tube."""
+    over = np.flatnonzero(total_mL > tube_mL + 1e-9 * tube_mL)
+    if over.size:
+        i = over[0]
+        raise RecipeError(
+            f"tube {tubes[i]}",
+            f"{what} add up to {total_mL[i]:g} mL, more than the {tube_mL:g} mL tube: reduce them",
+        )
+
+
 def assemble_recipe(
     ids: tuple[str, ...],
     volumes: dict[str, np.ndarray] | np.ndarray,
@@ -163,17 +174,10 @@ def assemble_recipe(
         i, j = bad[0]
         raise RecipeError(f"tube {tubes[i]}, {ids[j]}", f"negative volume {vol[i, j]:g} mL")
     tube_mL = tube_volume_mL
-    tol = 1e-9 * tube_mL
     if to_mark:
         j = ids.index(diluent_id)
         others = vol.sum(axis=1) - vol[:, j]
-        over = np.flatnonzero(others > tube_mL + tol)
-        if over.size:
-            i = over[0]
-            raise RecipeError(
-                f"tube {tubes[i]}",
-                f"stocks add up to {others[i]:g} mL, more than the {tube_mL:g} mL tube: reduce them",
-            )
+        _refuse_overfull(tubes, others, tube_mL, "stocks")
         remainder = np.maximum(tube_mL - others, 0.0)
         if diluent_id in cols:
             # the diluent fills to the mark: a written volume is only a cross-check, never silently replaced
@@ -190,13 +194,7 @@ def assemble_recipe(
         total = np.full(n, tube_mL)
     else:
         total = vol.sum(axis=1)
-        over = np.flatnonzero(total > tube_mL + tol)
-        if over.size:
-            i = over[0]
-            raise RecipeError(
-                f"tube {tubes[i]}",
-                f"volumes add up to {total[i]:g} mL, more than the {tube_mL:g} mL tube: reduce them",
-            )
+        _refuse_overfull(tubes, total, tube_mL, "volumes")
         empty = np.flatnonzero(total <= 0)
         if empty.size:
             raise RecipeError(f"tube {tubes[empty[0]]}", "the tube is empty")

@@ -308,21 +308,11 @@ def log_beta_at_ionic_strength(
     return np.asarray(log_beta0, dtype=float) + corr
 
 
-def log_beta_to_zero_ionic_strength(
-    log_beta_I,
-    stoich_pqr,
-    charges_MLH,
-    I_M,
-    model="davies",
-    *,
-    A=None,
-    B=None,
-    temperature_C=25.0,
-    sizes_angstrom=None,
-) -> np.ndarray:
+def log_beta_to_zero_ionic_strength(log_beta_I, *conditions, **options) -> np.ndarray:
     """The inverse of :func:`log_beta_at_ionic_strength`: constants measured at I back to I -> 0.
 
-    log beta0 = log beta(I) - (p log g_M + q log g_L + r log g_H - log g_s); same parameters.
+    log beta0 = log beta(I) - (p log g_M + q log g_L + r log g_H - log g_s); ``conditions`` and
+    ``options`` as there (stoich_pqr, charges_MLH, I_M, model; A, B, temperature_C, sizes_angstrom).
     """
-    corr = _correction(stoich_pqr, charges_MLH, I_M, model, A, B, temperature_C, sizes_angstrom)
-    return np.asarray(log_beta_I, dtype=float) - corr
+    zero = np.zeros_like(np.asarray(log_beta_I, dtype=float))
+    return np.asarray(log_beta_I, dtype=float) - log_beta_at_ionic_strength(zero, *conditions, **options)

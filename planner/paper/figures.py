@@ -104,31 +104,23 @@ def absorbance_svg(
         ax.axhspan(
             lo, hi, color=BAND, lw=0, label=f"linear range {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"
         )
-        ax.errorbar(
-            x[inside],
-            a[inside],
-            yerr=2 * sd[inside],
-            fmt="o",
-            ms=3.5,
-            color=ACCENT,
-            ecolor=ACCENT,
-            elinewidth=0.9,
-            capsize=2,
-            label="expected A ± 2 sd",
-        )
-        if (~inside).any():
-            ax.errorbar(
-                x[~inside],
-                a[~inside],
-                yerr=2 * sd[~inside],
-                fmt="s",
-                ms=3.5,
-                color=WARN,
-                ecolor=WARN,
-                elinewidth=0.9,
-                capsize=2,
-                label="outside the range",
-            )
+        for group, marker, colour, label in (
+            (inside, "o", ACCENT, "expected A ± 2 sd"),
+            (~inside, "s", WARN, "outside the range"),
+        ):
+            if group.any() or marker == "o":  # the legend always names the tubes inside
+                ax.errorbar(
+                    x[group],
+                    a[group],
+                    yerr=2 * sd[group],
+                    fmt=marker,
+                    ms=3.5,
+                    color=colour,
+                    ecolor=colour,
+                    elinewidth=0.9,
+                    capsize=2,
+                    label=label,
+                )
         ax.set_xticks(x, labels, rotation=0 if len(x) <= 12 else 90)
         top = max(hi, float(np.max(a + 2 * sd))) if a.size else hi
         ax.set_ylim(0, top * 1.08)

@@ -30,6 +30,27 @@ def _floats(values) -> list[float | None]:
     return [_f(x) for x in values]
 
 
+def _table(**columns) -> list[dict]:
+    """One dict per row from equal-length columns, keys in the order given."""
+    keys = list(columns)
+    return [dict(zip(keys, row, strict=True)) for row in zip(*columns.values(), strict=True)]
+
+
+def _attrs(obj, names: str) -> dict:
+    """``{name: obj.name}`` for the space-separated ``names`` (values made JSON by :func:`json_safe`)."""
+    return {n: getattr(obj, n) for n in names.split()}
+
+
+def _finite(obj, names: str) -> dict:
+    """``{name: obj.name}`` as finite floats, None where missing or not finite."""
+    return {n: _f(getattr(obj, n)) for n in names.split()}
+
+
+def _float_or_none(obj, names: str) -> dict:
+    """``{name: float(obj.name)}``, None where the attribute is None."""
+    return {n: None if getattr(obj, n) is None else float(getattr(obj, n)) for n in names.split()}
+
+
 def json_safe(obj: Any) -> Any:
     """``obj`` as plain JSON values: dicts, lists, str, int, float, bool and None.
 
@@ -178,11 +199,8 @@ def detection_json(d) -> dict:
     """How often the data would reveal one alternative model."""
     return {
         "alternative": d.alternative,
-        "power": _f(d.power),
-        "power_noise_free": _f(d.power_noise_free),
-        "noncentrality": _f(d.noncentrality),
-        "dof": d.dof,
-        "trials": d.trials,
+        **_finite(d, "power power_noise_free noncentrality"),
+        **_attrs(d, "dof trials"),
     }
 
 
@@ -224,11 +242,7 @@ def design_json(d) -> dict:
     out = assessment_json(d.assessment)
     out.update(
         {
-            "criterion": d.criterion,
-            "robust": d.robust,
-            "seed": d.seed,
-            "target": d.target,
-            "efficiency_bound": d.efficiency_bound,
+            **_attrs(d, "criterion robust seed target efficiency_bound"),
             "exact_efficiency": float(d.exact.efficiency),
             "candidates": d.n_candidates,
             "candidates_feasible": d.n_feasible,
@@ -372,13 +386,7 @@ def classic_series_json(s) -> dict:
 
 def rival_json(f) -> dict:
     """A rival stoichiometry's best fit to a Job curve."""
-    return {
-        "model": f.model,
-        "separation_sd": f.separation_sd,
-        "nested": f.nested,
-        "log_beta": list(f.log_beta),
-        "epsilon_M_cm": list(f.epsilon_M_cm),
-    }
+    return _attrs(f, "model separation_sd nested log_beta epsilon_M_cm")
 
 
 # --------------------------------------------------------------------------------------------------
@@ -405,16 +413,11 @@ def fit_head(fit) -> dict:
     """The keys every fit's JSON starts with: title, target, converged, determined, reason, parameters,
     χ² with its dof, both tails and verdict, and the tubes left out."""
     return {
-        "title": fit.title,
-        "target": fit.target,
-        "converged": fit.converged,
-        "determined": fit.determined,
-        "reason": fit.reason,
+        **_attrs(fit, "title target converged determined reason"),
         "parameters": fit_parameter_rows(fit),
         "chi2": _f(fit.chi2),
         "dof": fit.dof,
-        "p_value": _f(fit.p_value),
-        "p_low": _f(fit.p_low),
+        **_finite(fit, "p_value p_low"),
         "chi2_verdict": fit.chi2_verdict,
         "excluded": [{"tube": tb, "reason": r} for tb, r in fit.excluded],
     }
@@ -427,27 +430,15 @@ def fit_json(fit) -> dict:
         "interval_scale": _f(fit.interval_scale),
         "interval_note": fit.interval_note,
         "suspects": [{"tube": tb, "z": _f(z), "shift": _f(d)} for tb, z, d in fit.suspects],
-        "tubes": [
-            {
-                "tube": tb,
-                "absorbance": _f(a),
-                "fitted": _f(m),
-                "residual": _f(r),
-                "standardised": _f(z),
-                "used": bool(u),
-                "outlier": bool(o),
-            }
-            for tb, a, m, r, z, u, o in zip(
-                fit.recipe.tubes,
-                fit.absorbance,
-                fit.fitted,
-                fit.residual,
-                fit.standardised,
-                fit.used,
-                fit.outliers,
-                strict=True,
-            )
-        ],
+        "tubes": _table(
+            tube=fit.recipe.tubes,
+            absorbance=_floats(fit.absorbance),
+            fitted=_floats(fit.fitted),
+            residual=_floats(fit.residual),
+            standardised=_floats(fit.standardised),
+            used=fit.used.astype(bool),
+            outlier=fit.outliers.astype(bool),
+        ),
     }
 
 
@@ -474,8 +465,7 @@ def spectra_fit_json(fit) -> dict:
             "singular_values": _floats(fa.singular_values[:12]) if fa else [],
             "significant_indicator": fa.n_indicator if fa else None,
             "significant_f_test": fa.n_f_test if fa else None,
-            "absorbing_species": fit.absorbing_species,
-            "above_noise": fit.above_noise,
+            **_attrs(fit, "absorbing_species above_noise"),
             "verdict": fit.factor_verdict,
         },
     }
@@ -490,14 +480,10 @@ def glassware_json(g) -> dict:
         "kind": g.kind,
         "capacity_mL": float(g.capacity_mL),
         "class": g.cls,
-        "tolerance_mL": float(g.tolerance_mL),
-        "graduation_mL": None if g.graduation_mL is None else float(g.graduation_mL),
-        "random_mL": None if g.random_mL is None else float(g.random_mL),
-        "repeatability_mL": None if g.repeatability_mL is None else float(g.repeatability_mL),
+        **_float_or_none(g, "tolerance_mL graduation_mL random_mL repeatability_mL"),
         "source": g.source,
         "from_memory": bool(g.from_memory),
-        "note": g.note,
-        "label": g.label,
+        **_attrs(g, "note label"),
     }
 
 
@@ -507,56 +493,31 @@ def dilution_step_json(s) -> dict:
         "flask_mL": s.flask.capacity_mL,
         "pipette": s.pipette.label,
         "flask": s.flask.label,
-        "factor": s.factor,
-        "from_conc_M": s.from_conc_M,
-        "to_conc_M": s.to_conc_M,
-        "u_rel": s.u_rel,
+        **_attrs(s, "factor from_conc_M to_conc_M u_rel"),
     }
 
 
 def preparation_json(p) -> dict:
     """How a stock's metal or ligand salt is weighed (and diluted), with its uncertainty."""
     return {
-        "conc_M": p.conc_M,
-        "formula": p.formula,
-        "formula_weight_g_mol": p.formula_weight_g_mol,
+        **_attrs(p, "conc_M formula formula_weight_g_mol"),
         "flask": glassware_json(p.flask),
         "weighed_flask": glassware_json(p.weighed_flask),
-        "weighed_conc_M": p.weighed_conc_M,
-        "mass_g": p.mass_g,
-        "u_mass_g": p.u_mass_g,
-        "direct_mass_g": p.direct_mass_g,
-        "min_weight_g": p.min_weight_g,
-        "purity": p.purity,
-        "purity_half_width": p.purity_half_width,
-        "u_conc_M": p.u_conc_M,
-        "u_rel": p.u_rel,
+        **_attrs(p, "weighed_conc_M mass_g u_mass_g direct_mass_g min_weight_g purity purity_half_width"),
+        **_attrs(p, "u_conc_M u_rel"),
         "u_parts": {k: float(v) for k, v in p.u_parts.items()},
         "steps": [dilution_step_json(s) for s in p.steps],
     }
 
 
 def solute_json(x) -> dict:
-    return {
-        "role": x.role,
-        "formula": x.formula,
-        "name": x.name,
-        "conc_M": x.conc_M,
-        "ions": list(x.ions),
-        "formula_weight_g_mol": x.formula_weight_g_mol,
-        "mass_g": x.mass_g,
-    }
+    return _attrs(x, "role formula name conc_M ions formula_weight_g_mol mass_g")
 
 
 def mass_basis_json(b) -> dict:
     return {
-        "set_by": b.set_by,
-        "flask_reason": b.flask_reason,
-        "mass_g": _f(b.mass_g),
-        "recipe_mass_g": _f(b.recipe_mass_g),
-        "min_weight_g": _f(b.min_weight_g),
-        "direct_mass_g": _f(b.direct_mass_g),
-        "repeatability_to_weigh_directly_g": _f(b.repeatability_to_weigh_directly_g),
+        **_attrs(b, "set_by flask_reason"),
+        **_finite(b, "mass_g recipe_mass_g min_weight_g direct_mass_g repeatability_to_weigh_directly_g"),
         "scarce": b.scarce,
         "least_mass_g": _f(b.least_mass_g),
     }
@@ -566,26 +527,13 @@ def stock_need_json(n) -> dict:
     """One stock of ``kplan stocks --json``: how to make it and how much is needed."""
     gap = n.charge_gap
     return {
-        "id": n.id,
-        "label": n.label,
-        "component": n.component,
+        **_attrs(n, "id label component"),
         "preparation": preparation_json(n.preparation) if n.preparation else None,
-        "problem": n.problem,
-        "recipe_mL": n.recipe_mL,
-        "deliveries": n.deliveries,
-        "needed_mL": n.needed_mL,
-        "on_hand_mL": n.on_hand_mL,
-        "enough": n.enough,
-        "plan_rsd": n.plan_rsd,
+        **_attrs(n, "problem recipe_mL deliveries needed_mL on_hand_mL enough plan_rsd"),
         "solutes": [solute_json(x) for x in n.solutes],
-        "solvent": n.solvent,
-        "flask_mL": n.flask_mL,
-        "charge_gap": (
-            {"ion": gap.ion, "conc_M": gap.conc_M, "ionic_strength_low": gap.ionic_strength_low}
-            if gap
-            else None
-        ),
-        "flask_label": n.flask_label,
+        **_attrs(n, "solvent flask_mL"),
+        "charge_gap": _attrs(gap, "ion conc_M ionic_strength_low") if gap else None,
+        **_attrs(n, "flask_label"),
         "mass_set_by": mass_basis_json(n.mass_basis) if n.mass_basis else None,
         "scarce": n.scarce,
     }
@@ -593,7 +541,7 @@ def stock_need_json(n) -> dict:
 
 def stocks_json(title: str, needs) -> dict:
     """``kplan stocks --json``."""
-    return {"title": title, "stocks": [stock_need_json(n) for n in needs]}
+    return json_safe({"title": title, "stocks": [stock_need_json(n) for n in needs]})
 
 
 # --------------------------------------------------------------------------------------------------
@@ -629,15 +577,10 @@ def card_json(c) -> dict:
 def class_set_json(cs) -> dict:
     """The class set of ``kplan cards --json`` (the command adds the stocks and the files it wrote)."""
     return {
-        "title": cs.title,
-        "target": cs.target,
-        "goal_se": cs.goal_se,
-        "lab": cs.lab,
+        **_attrs(cs, "title target goal_se lab"),
         "students": len(cs.cards),
         "tubes_per_student": cs.best.n_tubes,
-        "seed": cs.seed,
-        "sound": cs.sound,
-        "distinct": cs.distinct,
+        **_attrs(cs, "seed sound distinct"),
         "jitter_steps": cs.radius_steps,
         "jitter_mL": cs.radius_steps * cs.step_mL,
         "se": {k: _f(v) for k, v in cs.se.items()},
@@ -653,19 +596,11 @@ def class_set_json(cs) -> dict:
 def class_stock_json(s) -> dict:
     """One stock of the class stock list."""
     return {
-        "id": s.id,
-        "label": s.label,
-        "tubes_mL": s.tubes_mL,
-        "benches": s.benches,
-        "allowance_mL": s.allowance_mL,
-        "total_mL": s.total_mL,
+        **_attrs(s, "id label tubes_mL benches allowance_mL total_mL"),
         "sections": [{"section": a, "tubes_mL": v, "benches": b, "total_mL": t} for a, v, b, t in s.sections],
-        "on_hand_mL": s.on_hand_mL,
-        "enough": s.enough,
-        "shortfall_mL": s.shortfall_mL,
+        **_attrs(s, "on_hand_mL enough shortfall_mL"),
         "preparation": preparation_json(s.preparation) if s.preparation else None,
-        "batches": s.batches,
-        "problem": s.problem,
+        **_attrs(s, "batches problem"),
         "section_preparations": [
             None if sp is None else {"preparation": preparation_json(sp[0]), "batches": sp[1]}
             for sp in s.section_preparations
@@ -683,7 +618,7 @@ def cards_json(cs, stocks, files) -> dict:
     out = class_set_json(cs)
     out["stocks"] = [class_stock_json(s) for s in stocks]
     out["files"] = [str(f) for f in files]
-    return out
+    return json_safe(out)
 
 
 def student_json(s) -> dict:
@@ -691,58 +626,34 @@ def student_json(s) -> dict:
     against the key's band and the class's."""
     own = {"log_beta": _f(s.own[0]), "se": _f(s.own[1])} if s.own is not None else None
     return {
-        "student": s.card.student,
-        "name": s.card.name,
-        "section": s.card.section,
-        "verdict": s.verdict,
-        "explanation": s.explanation,
-        "evidence": s.evidence,
-        "candidate": s.candidate,
+        **_attrs(s.card, "student name section"),
+        **_attrs(s, "verdict explanation evidence candidate"),
         "chi2": _f(s.chi2),
         "dof": s.dof,
         "p_value": _f(s.p_value),
-        "judged_against": s.judged_against,
-        "tubes_in_band": s.tubes_in_band,
-        "tubes_in_class_band": s.tubes_in_class_band,
+        **_attrs(s, "judged_against tubes_in_band tubes_in_class_band"),
         "tubes": int(s.in_band.size),
         "own_fit": own,
-        "readings": [
-            {
-                "tube": t,
-                "absorbance": _f(a),
-                "expected": _f(e),
-                "band_low": _f(lo),
-                "band_high": _f(hi),
-                "in_band": bool(ib),
-                "class_expected": _f(ce),
-                "class_band_low": _f(cl),
-                "class_band_high": _f(ch),
-                "in_class_band": bool(ic),
-            }
-            for t, a, e, lo, hi, ib, ce, cl, ch, ic in zip(
-                s.card.recipe.tubes,
-                s.absorbance,
-                s.card.expected,
-                s.card.band_low,
-                s.card.band_high,
-                s.in_band,
-                s.class_expected,
-                s.class_band_low,
-                s.class_band_high,
-                s.in_class_band,
-                strict=True,
-            )
-        ],
+        "readings": _table(
+            tube=s.card.recipe.tubes,
+            absorbance=_floats(s.absorbance),
+            expected=_floats(s.card.expected),
+            band_low=_floats(s.card.band_low),
+            band_high=_floats(s.card.band_high),
+            in_band=s.in_band.astype(bool),
+            class_expected=_floats(s.class_expected),
+            class_band_low=_floats(s.class_band_low),
+            class_band_high=_floats(s.class_band_high),
+            in_class_band=s.in_class_band.astype(bool),
+        ),
     }
 
 
 def pooled_parameter_json(p) -> dict:
     row = {
         "name": p.name,
-        "estimate": _f(p.estimate),
-        "se": _f(p.se),
-        "guess": p.guess,
-        "guess_sd": p.guess_sd,
+        **_finite(p, "estimate se"),
+        **_attrs(p, "guess guess_sd"),
         "off_by": _f(p.off_by),
         "off_by_sd": _f(p.off_by_sd) if p.off_by_sd is not None else None,
     }
@@ -792,10 +703,8 @@ def class_grade_json(g) -> dict:
 
 def explanation_json(e) -> dict:
     return {
-        "kind": e.kind,
-        "text": e.text,
-        "delta_loglik": float(e.delta_loglik),
-        "score": float(e.score),
+        **_attrs(e, "kind text"),
+        **_float_or_none(e, "delta_loglik score"),
         "chi2_after": _f(e.chi2_after),
         "passes": bool(e.passes),
     }
@@ -869,13 +778,10 @@ def approximate_design_json(d) -> dict:
     """An approximate design: support indices and weights, criterion value, equivalence check."""
     idx = d.support
     return {
-        "criterion": d.criterion,
-        "target": d.target,
+        **_attrs(d, "criterion target"),
         "support": [int(i) for i in idx],
         "weights": [float(w) for w in d.weights[idx]],
-        "criterion_value": float(d.criterion_value),
-        "max_sensitivity": float(d.max_sensitivity),
-        "bound": float(d.bound),
+        **_float_or_none(d, "criterion_value max_sensitivity bound"),
         "efficiency_lower_bound": d.efficiency_lower_bound,
         "n_iter": int(d.n_iter),
         "converged": bool(d.converged),
@@ -900,36 +806,22 @@ def hazards_json(h) -> dict:
     from .safety import PICTOGRAMS
 
     return {
-        "name": h.name,
-        "formula": h.formula,
-        "signal_word": h.signal_word,
+        **_attrs(h, "name formula signal_word"),
         "statements": [{"code": c, "text": t} for c, t in h.statements()],
         "pictograms": [{"code": p, "name": PICTOGRAMS[p]} for p in h.pictograms],
-        "cmr": h.cmr,
-        "cmr_codes": list(h.cmr_codes),
-        "classes": list(h.classes),
-        "incompatible": list(h.incompatible),
-        "ppe": list(h.ppe),
-        "waste": h.waste,
-        "notes": h.notes,
-        "source": h.source,
-        "from_memory": h.from_memory,
-        "checked": h.checked,
+        **_attrs(h, "cmr cmr_codes classes incompatible ppe waste notes source from_memory checked"),
     }
 
 
 def plan_reagent_json(r) -> dict:
     return {
-        "name": r.name,
-        "stock_ids": list(r.stock_ids),
-        "inferred": r.inferred,
-        "message": r.message,
+        **_attrs(r, "name stock_ids inferred message"),
         "hazards": hazards_json(r.hazards) if r.hazards else None,
     }
 
 
 def clash_json(c) -> dict:
-    return {"classes": list(c.classes), "reagents": list(c.reagents), "advice": c.advice}
+    return _attrs(c, "classes reagents advice")
 
 
 # --------------------------------------------------------------------------------------------------

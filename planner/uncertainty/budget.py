@@ -80,59 +80,60 @@ def glassware_problems(bench: Bench, recipe: Recipe) -> list[tuple[str, str]]:
                 )
             )
             continue
-        item = devices.items[j]
-        off = used & ~delivery.on_grid(v, bench.step_mL)
-        if off.any():
-            bad = [f"{t} ({x:g} mL)" for t, x, o in zip(recipe.tubes, v, off, strict=True) if o]
-            out.append(
-                (
-                    f"stock {sid}",
-                    f"volumes off the {bench.step_mL:g} mL grid in {', '.join(bad[:4])}"
-                    f"{' …' if len(bad) > 4 else ''}: round them to the grid",
-                )
-            )
-        small = used & (v < bench.min_volume_mL - 1e-12)
-        if small.any():
-            bad = [t for t, s in zip(recipe.tubes, small, strict=True) if s]
-            out.append(
-                (
-                    f"stock {sid}",
-                    f"below min_volume = {bench.min_volume_mL:g} mL in {', '.join(bad[:4])}: "
-                    f"use a more dilute stock or a smaller dispenser",
-                )
-            )
-        vmin = delivery.smallest_delivery_mL(item)
-        tiny = used & (v < vmin * (1 - 1e-9))
-        if tiny.any():
-            out.append(
-                (
-                    f"stock {sid}",
-                    f"below the smallest volume the {item.label} delivers ({vmin:g} mL) in "
-                    f"{tube_list(recipe.tubes, tiny, 4)}: use a smaller device or a more dilute stock",
-                )
-            )
-        over = used & (v > item.capacity_mL * (1 + 1e-9))
-        if over.any():
-            bad = [t for t, o in zip(recipe.tubes, over, strict=True) if o]
-            out.append(
-                (
-                    f"stock {sid}",
-                    f"more than the {item.label} holds ({item.capacity_mL:g} mL) in "
-                    f"{', '.join(bad[:4])}: use a larger device or a more concentrated stock",
-                )
-            )
-        if item.kind == "pipette":
-            wrong = used & (np.abs(v - item.capacity_mL) > 1e-9 * item.capacity_mL)
-            if wrong.any():
-                bad = [t for t, w in zip(recipe.tubes, wrong, strict=True) if w]
-                out.append(
-                    (
-                        f"stock {sid}",
-                        f"a one-mark pipette delivers only {item.capacity_mL:g} mL "
-                        f"(asked otherwise in {', '.join(bad[:4])}): use a burette or graduated pipette",
-                    )
-                )
+        out.extend((f"stock {sid}", m) for m in _delivery_problems(bench, devices.items[j], recipe.tubes, v))
     return out
+
+
+def _delivery_problems(bench: Bench, item, labels, v: np.ndarray) -> list[str]:
+    """What the dispenser ``item`` cannot deliver of one stock's volumes ``v`` (one per tube)."""
+    used = v > 0
+
+    def first(mask) -> str:
+        return ", ".join([t for t, m in zip(labels, mask, strict=True) if m][:4])
+
+    off = used & ~delivery.on_grid(v, bench.step_mL)
+    off_txt = [f"{t} ({x:g} mL)" for t, x, o in zip(labels, v, off, strict=True) if o]
+    vmin = delivery.smallest_delivery_mL(item)
+    cap = item.capacity_mL
+    wrong = used & (np.abs(v - cap) > 1e-9 * cap) if item.kind == "pipette" else np.zeros_like(used)
+    tests = (
+        (
+            off,
+            lambda: (
+                f"volumes off the {bench.step_mL:g} mL grid in {', '.join(off_txt[:4])}"
+                f"{' …' if len(off_txt) > 4 else ''}: round them to the grid"
+            ),
+        ),
+        (
+            small := used & (v < bench.min_volume_mL - 1e-12),
+            lambda: (
+                f"below min_volume = {bench.min_volume_mL:g} mL in {first(small)}: use a more dilute "
+                "stock or a smaller dispenser"
+            ),
+        ),
+        (
+            tiny := used & (v < vmin * (1 - 1e-9)),
+            lambda: (
+                f"below the smallest volume the {item.label} delivers ({vmin:g} mL) in "
+                f"{tube_list(labels, tiny, 4)}: use a smaller device or a more dilute stock"
+            ),
+        ),
+        (
+            over := used & (v > cap * (1 + 1e-9)),
+            lambda: (
+                f"more than the {item.label} holds ({cap:g} mL) in {first(over)}: use a larger device "
+                "or a more concentrated stock"
+            ),
+        ),
+        (
+            wrong,
+            lambda: (
+                f"a one-mark pipette delivers only {cap:g} mL (asked otherwise in {first(wrong)}): use "
+                "a burette or graduated pipette"
+            ),
+        ),
+    )
+    return [message() for mask, message in tests if mask.any()]
 
 
 def require_glassware_fits(bench: Bench, recipe: Recipe) -> None:

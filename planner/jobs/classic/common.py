@@ -142,6 +142,25 @@ def finish(
     )
 
 
+def series_points(tubes, x_name: str, x, y, sd) -> list[dict]:
+    """Each tube's point of the series' plot: its ``x_name`` value, the corrected absorbance and that
+    reading's ±2 sd band (the method's ``series`` finding)."""
+    return [
+        {
+            "tube": t,
+            x_name: float(x[i]),
+            "corrected_absorbance": float(y[i]),
+            "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])],
+        }
+        for i, t in enumerate(tubes)
+    ]
+
+
+def curve_points(x_name: str, x, y) -> dict:
+    """The smooth curve between the tubes (every other point), as the method's ``curve`` finding."""
+    return {x_name: x[::2].tolist(), "corrected_absorbance": y[::2].tolist()}
+
+
 # ----------------------------------------------------------------------------------------------------
 # numbers shared by the methods
 

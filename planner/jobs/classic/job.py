@@ -35,6 +35,7 @@ from .common import (
     SeriesInfeasible,
     capacity_mL,
     corrected,
+    curve_points,
     fill_volumes,
     finish,
     fmt_conc,
@@ -43,6 +44,7 @@ from .common import (
     pure_stock,
     scaled_in_range,
     screen,
+    series_points,
     series_recipe,
     snap,
     status_of,
@@ -138,16 +140,8 @@ def continuous_variation(
         "separation_wanted_sd": rv.SEPARATION_WANTED,
         "total_needed_M": needed[0] if needed else None,
         "path_cm_at_total_needed": needed[1] if needed else None,
-        "series": [
-            {
-                "tube": t,
-                "mole_fraction": float(xm[i]),
-                "corrected_absorbance": float(y[i]),
-                "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])],
-            }
-            for i, t in enumerate(recipe.tubes)
-        ],
-        "curve": {"mole_fraction": xf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
+        "series": series_points(recipe.tubes, "mole_fraction", xm, y, sd),
+        "curve": curve_points("mole_fraction", xf, yf),
     }
     columns = {"x_M": xm, "Y": y, "±2sd": 2 * sd}
     far = [f for f in fits if not f.nested]

@@ -49,6 +49,7 @@ from .common import (
     SeriesInfeasible,
     capacity_mL,
     corrected,
+    curve_points,
     fill_volumes,
     finish,
     fmt_conc,
@@ -57,6 +58,7 @@ from .common import (
     pure_stock,
     scaled_in_range,
     screen,
+    series_points,
     series_recipe,
     snap,
     status_of,
@@ -213,16 +215,8 @@ def mole_ratio_series(
         },
         "conc_needed_M": needed[0] if needed else None,
         "path_cm_at_conc_needed": needed[1] if needed else None,
-        "series": [
-            {
-                "tube": t,
-                "ratio": float(ratio[i]),
-                "corrected_absorbance": float(y[i]),
-                "band_2sd": [float(y[i] - 2 * sd[i]), float(y[i] + 2 * sd[i])],
-            }
-            for i, t in enumerate(recipe.tubes)
-        ],
-        "curve": {"ratio": rf[::2].tolist(), "corrected_absorbance": yf[::2].tolist()},
+        "series": series_points(recipe.tubes, "ratio", ratio, y, sd),
+        "curve": curve_points("ratio", rf, yf),
         "other_complexes": other,
     }
     notes = [

@@ -173,31 +173,13 @@ def assess_recipe(plan: Plan, recipe: Recipe) -> Assessment:
     return assess(plan, recipe, trials=0, precision=False)
 
 
-def assess(
-    plan: Plan,
-    recipe: Recipe,
-    *,
-    trials: int = DEFAULT_TRIALS,
-    seed: int = 0,
-    at: Mapping[str, float] | None = None,
-    precision: bool = True,
-    progress: Callable[[int, int], None] | None = None,
-) -> Assessment:
+def assess(plan: Plan, recipe: Recipe, **options) -> Assessment:
     """Judge ``recipe``: expected tubes, error budget, precision of log K, checks and verdict.
 
-    Parameters
-    ----------
-    trials : Monte-Carlo experiments (0: Cramér–Rao only).
-    seed : seed of the numpy Generator for the Monte Carlo.
-    at : assumed true log β per species name (default: the plan's guesses).
-    precision : False skips Fisher information, Monte Carlo and profile.
-    progress : callback(done, total) for long Monte-Carlo runs.
-
-    The plan is compiled once (:func:`planner.jobs.compile.compile_study`); see :func:`assess_study`.
+    The plan is compiled once (:func:`planner.jobs.compile.compile_study`); ``options`` are those of
+    :func:`assess_study` (``trials``, ``seed``, ``at``, ``precision``, ``progress``, …).
     """
-    return assess_study(
-        compile_study(plan), recipe, trials=trials, seed=seed, at=at, precision=precision, progress=progress
-    )
+    return assess_study(compile_study(plan), recipe, **options)
 
 
 def assess_study(
@@ -215,11 +197,22 @@ def assess_study(
     suggest: bool = False,
     progress: Callable[[int, int], None] | None = None,
 ) -> Assessment:
-    """:func:`assess` on a compiled plan (``profile_chi2=False`` skips the χ² profile and
-    ``model_check=False`` the detection power of the plan's alternative models, e.g. for the design's
-    comparisons, which use only the Cramér–Rao SE). ``detection_trials`` simulated experiments per
-    alternative (default min(trials, 400)); ``model_check_fix`` what the model-check check advises;
-    ``suggest`` prices the changes that would improve the precision (:mod:`planner.jobs.plan.limits`)."""
+    """Judge ``recipe`` against the compiled plan: expected tubes, error budget, precision of log K, checks
+    and verdict.
+
+    Parameters
+    ----------
+    trials : Monte-Carlo experiments (0: Cramér–Rao only).
+    seed : seed of the numpy Generator for the Monte Carlo.
+    at : assumed true log β per species name (default: the plan's guesses).
+    precision : False skips Fisher information, Monte Carlo and profile.
+    profile_chi2 : False skips the χ² profile (the design's comparisons use the Cramér–Rao SE only).
+    model_check : False skips the detection power of the plan's alternative models; ``detection_trials``
+        simulated experiments per alternative (default min(trials, 400)); ``model_check_fix`` what the
+        model-check check advises.
+    suggest : price the changes that would improve the precision (:mod:`planner.jobs.plan.limits`).
+    progress : callback(done, total) for long Monte-Carlo runs.
+    """
     trials = check_count(trials, "trials", MAX_TRIALS, least=0)
     model, bench = study.model, study.bench
     lb_true = true_constants(model, at)

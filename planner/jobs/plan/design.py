@@ -108,39 +108,14 @@ class Design:
         return self.se_even / self.se_target if self.se_target > 0 else float("nan")
 
 
-def design(
-    plan: Plan,
-    *,
-    tubes: int | None = None,
-    criterion: str | None = None,
-    robust: bool | None = None,
-    seed: int = 0,
-    volumetric: bool = True,
-    starts: int = 8,
-    check_model: bool | None = None,
-) -> Design:
+def design(plan: Plan, **options) -> Design:
     """Choose each tube's volumes to resolve the target constant as precisely as possible.
 
-    Parameters
-    ----------
-    tubes, criterion, robust : override the plan's design keys.
-    seed : seed of the random starts of the exchange algorithm.
-    volumetric : include delivery and stock errors (False: photometric noise only — for analytic checks).
-    check_model : guard against the plan's alternative models (default: the plan's ``design.check``);
-        False gives the target-optimal design alone.
-
-    The plan is compiled once (:func:`planner.jobs.compile.compile_study`); see :func:`design_study`.
+    The plan is compiled once (:func:`planner.jobs.compile.compile_study`); ``options`` are those of
+    :func:`design_study` (``tubes``, ``criterion``, ``robust``, ``seed``, ``volumetric``, ``check_model``,
+    …).
     """
-    return design_study(
-        compile_study(plan),
-        tubes=tubes,
-        criterion=criterion,
-        robust=robust,
-        seed=seed,
-        volumetric=volumetric,
-        starts=starts,
-        check_model=check_model,
-    )
+    return design_study(compile_study(plan), **options)
 
 
 def design_study(
@@ -155,11 +130,20 @@ def design_study(
     check_model: bool | None = None,
     prior_tubes: Recipe | None = None,
 ) -> Design:
-    """:func:`design` on a compiled plan (``check_model`` overrides the plan's model check).
+    """Choose each tube's volumes on the compiled plan's grid to resolve the target constant as precisely
+    as possible.
 
-    ``prior_tubes`` are tubes measured before: their information (whitened rows in the same parameters
-    and nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete
-    it (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.plan.sequential`.
+    Parameters
+    ----------
+    tubes, criterion, robust : override the plan's design keys.
+    seed : seed of the random starts of the exchange algorithm.
+    volumetric : include delivery and stock errors (False: photometric noise only — for analytic checks).
+    starts : random starts of the exchange algorithm.
+    check_model : guard against the plan's alternative models (default: the plan's ``design.check``);
+        False gives the target-optimal design alone.
+    prior_tubes : tubes measured before: their information (whitened rows in the same parameters and
+        nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete it
+        (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.plan.sequential`.
     """
     n = check_count(tubes or study.tubes, "tubes", MAX_TUBES)
     crit = criterion or study.criterion
