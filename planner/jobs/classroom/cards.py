@@ -306,7 +306,7 @@ def class_set_study(
     cards, rescued = _assess_cards(study, grid, roster, drafts, recipes, progress)
     notes = list(drafts.notes)
     if rescued:
-        notes.append(f"{rescued} card(s) failed a check of the assessment and were drawn again")
+        notes.append(f"{plural(rescued, 'card')} failed a check of the assessment and were drawn again")
     even = even_series_for(study, n)
     se = _pooled_ses(study, cards, best, even, roster)
     notes = _class_notes(study, grid, se, n, notes)
