@@ -31,12 +31,13 @@ def _whole(plan, cs, paper: str):
     return cl.whole_cards(pc.cards_context(plan, cs, paper=paper))
 
 
-def _pixels(pdf: bytes, tmp_path, tag: str, dpi: int = 100) -> list[np.ndarray]:
+def _pixels(pdf: bytes, tmp_path, tag: str, last: int | None = None, dpi: int = 100) -> list[np.ndarray]:
     from PIL import Image
 
     src = tmp_path / f"{tag}.pdf"
     src.write_bytes(pdf)
-    subprocess.run(["pdftoppm", "-r", str(dpi), "-gray", str(src), str(tmp_path / tag)], check=True)
+    upto = ["-l", str(last)] if last else []
+    subprocess.run(["pdftoppm", "-r", str(dpi), "-gray", *upto, str(src), str(tmp_path / tag)], check=True)
     files = sorted(tmp_path.glob(f"{tag}-*.pgm"))
     return [np.asarray(Image.open(f), dtype=int) for f in files]
 
@@ -48,7 +49,8 @@ def _words(pdf: bytes) -> list[list[str]]:
 
 
 def _same_print(stamped: bytes, whole: bytes, tmp_path, pages=None) -> None:
-    a, b = _pixels(stamped, tmp_path, "stamped"), _pixels(whole, tmp_path, "whole")
+    last = max(pages) + 1 if pages is not None else None
+    a, b = _pixels(stamped, tmp_path, "stamped", last), _pixels(whole, tmp_path, "whole", last)
     assert len(a) == len(b)
     for i in pages if pages is not None else range(len(a)):
         assert a[i].shape == b[i].shape
