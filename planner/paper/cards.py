@@ -485,8 +485,9 @@ def key_document(
 # the class stock list (:mod:`planner.paper.class_stocks`)
 # --------------------------------------------------------------------------------------------------
 def stocks_document(
-    plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
+    plan: Plan, cs, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
 ) -> bytes:
-    """``stocks.pdf``: the class stock list."""
+    """``stocks.pdf``: the class stock list; ``cs`` a :class:`ClassSet` or the drafted cards."""
     _check(paper, fmt_)
-    return _out(stocks_page(plan, len(cs.cards), stocks, paper=paper), fmt_)
+    count = len(cs.cards) if isinstance(cs, ClassSet) else len(cs)
+    return _out(stocks_page(plan, count, stocks, paper=paper), fmt_)
