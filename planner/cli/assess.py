@@ -51,7 +51,7 @@ def assess(
     p = load_plan(plan)
     study = compile_study(p)
     r = read_points(recipe, p, study)
-    at_values = parse_at(at or [])
+    at_values = parse_at(at or [], list(study.model.species))
     a = _with_progress(
         lambda prog: assess_study(
             study, r, trials=trials, seed=seed, at=at_values, suggest=True, progress=prog
