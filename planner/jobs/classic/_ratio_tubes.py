@@ -154,11 +154,11 @@ def _candidates(fixed, layout: Layout, per_ratio: float) -> tuple[np.ndarray, np
 
     The rising volumes are a + b·i grid steps, i = 0 … n − 1 (at a fixed volume the ratios are then evenly
     spaced too): the first, a, from the least volume up to (1 − LINE_MARGIN) × the complex's ratio
-    (LOW_RATIOS values); the stride b from one step up to what reaches the top ratio (STRIDES values,
-    geometric), or the stride that reaches it when it was given. Kept when the volumes are within the
-    tube and the dispensers and leave at least two tubes on each side of the break for the hand lines
-    (the sides of :func:`two_line_break`). ``per_ratio`` is c_fix/c_var (a what-if dilutes the rising
-    stock)."""
+    (LOW_RATIOS values); the stride b from one step up to the most that stays within the top ratio
+    (STRIDES values, geometric), or the stride that reaches it when it was given. Kept when the volumes
+    are within the tube and the dispensers and leave at least two tubes on each side of the break for
+    the hand lines (the sides of :func:`two_line_break`). ``per_ratio`` is c_fix/c_var (a what-if
+    dilutes the rising stock)."""
     room, n = layout.room, layout.n
     step = room.step
     vf = np.asarray(fixed, dtype=float)[:, None, None]
@@ -170,7 +170,7 @@ def _candidates(fixed, layout: Layout, per_ratio: float) -> tuple[np.ndarray, np
         b = np.maximum(np.round((layout.top * unit - a) / (n - 1)), 1.0)
     else:
         b_max = np.maximum((layout.top * unit - a_min) / (n - 1), 1.0)
-        b = np.round(b_max ** np.linspace(0.0, 1.0, STRIDES)[None, :, None])
+        b = np.maximum(np.floor(b_max ** np.linspace(0.0, 1.0, STRIDES)[None, :, None] + 1e-9), 1.0)
     vf, a, b, a_max = (x.ravel() for x in np.broadcast_arrays(vf, a, b, a_max))
     vv = snap((a[:, None] + b[:, None] * np.arange(n)) * step, step)
     ok = (a <= a_max) & _valid(vf, vv, room)
