@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import argparse
 import time
-from dataclasses import replace
 from importlib import resources
 
 import numpy as np
@@ -60,9 +59,9 @@ def main(seeds: int) -> None:
         A = simulate(study.bench, study.model, rec, rng, 1, log_beta=lb).absorbance[0]
         while se_at_truth(study, rec) > GOAL and rec.n_tubes < MAX_TUBES:
             nb = next_batch(study, Readings(rec, A), tubes=BATCH, seed=seed)
-            if nb.design is None:
+            if nb.recipe is None:
                 break
-            new = replace(nb.design.recipe, tubes=tuple(f"B{rec.n_tubes}-{k}" for k in range(BATCH)))
+            new = nb.recipe  # numbered after the last measured tube
             rec = concat_recipes([rec, new])
             A = np.concatenate(
                 [A, simulate(study.bench, study.model, new, rng, 1, log_beta=lb).absorbance[0]]

@@ -14,12 +14,8 @@ import re
 from .conftest import ROOT
 
 FLAG = re.compile(r"--[A-Za-z]")
-# modules other helpers are still changing; their flags are theirs to replace (see the closing note)
-PENDING = {
-    "planner/jobs/measure/fit.py",
-    "planner/jobs/classroom/cards.py",
-    "planner/jobs/plan/sequential.py",
-}
+# a module whose owner still has to replace its flag ("more tubes (--tubes)" in the class set's refusal)
+PENDING = {"planner/jobs/classroom/cards.py"}
 
 
 def _documentation(tree: ast.AST) -> set[int]:

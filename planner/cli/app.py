@@ -7,6 +7,7 @@ import json
 import math
 import os
 from importlib import resources
+from pathlib import Path
 from typing import Any
 
 import typer
@@ -91,7 +92,10 @@ def _root(
     """Plan, check and fit absorbance experiments that measure metal–ligand formation constants."""
 
 
-SCENARIOS = ("teaching", "stepwise", "proton")
+SCENARIOS = ("teaching", "stepwise", "proton", "spectra")
+SCENARIO_FILES = {
+    "spectra": ("spectra-ml-ml2-epsilon.csv",)
+}  # files a scenario's plan names, written beside it
 
 DEMO_SCENARIO = "teaching"
 
@@ -155,6 +159,25 @@ def scenario_text(name: str) -> str:
     if name not in SCENARIOS:
         raise UserError(f"--scenario: unknown scenario '{name}'; choose one of {', '.join(SCENARIOS)}")
     return resources.files("planner.data").joinpath("scenarios", f"{name}.toml").read_text(encoding="utf-8")
+
+
+def scenario_files(name: str) -> dict[str, str]:
+    """The files a built-in scenario's plan names (e.g. its ε table), by file name, as text."""
+    folder = resources.files("planner.data").joinpath("scenarios")
+    return {f: folder.joinpath(f).read_text(encoding="utf-8") for f in SCENARIO_FILES.get(name, ())}
+
+
+def parse_scenario(name: str, text: str | None = None):
+    """A built-in scenario's plan, validated (its named files read from a temporary folder)."""
+    import tempfile
+
+    from ..inputs.plan import parse_plan_text
+
+    text = scenario_text(name) if text is None else text
+    with tempfile.TemporaryDirectory() as tmp:
+        for fname, body in scenario_files(name).items():
+            Path(tmp, fname).write_text(body, encoding="utf-8")
+        return parse_plan_text(text, source=f"scenario {name}", base_dir=tmp)
 
 
 # ----------------------------------------------------------------------------------------------------

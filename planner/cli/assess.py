@@ -46,23 +46,25 @@ def assess(
     from ..inputs.plan import load_plan
     from ..jobs.compile import compile_study
     from ..jobs.plan.assess import assess_study
-    from .show import print_assessment
+    from ..jobs.spectra.assess import assess_spectra
+    from .show import print_assessment, print_spectra
 
     p = load_plan(plan)
     study = compile_study(p)
     r = read_points(recipe, p, study)
     at_values = parse_at(at or [], list(study.model.species))
+    job = assess_spectra if study.spectra is not None else assess_study
+    extra = {} if study.spectra is not None else {"suggest": True}  # what would help: one wavelength
     a = _with_progress(
-        lambda prog: assess_study(
-            study, r, trials=trials, seed=seed, at=at_values, suggest=True, progress=prog
-        ),
+        lambda prog: job(study, r, trials=trials, seed=seed, at=at_values, progress=prog, **extra),
         trials,
         quiet=as_json,
-        tubes=r.n_tubes,
+        tubes=r.n_tubes * (study.spectra.size // 20 + 1 if study.spectra is not None else 1),
     )
     if as_json:
         print(dump_json(a.summary()))
     else:
         print_assessment(a, p)
+        print_spectra(a.summary(), p.target, p.optics.wavelength_nm)
     if a.verdict is not None and a.verdict != "resolved":
         raise typer.Exit(1)  # the recipe fails: unresolved or only bounded (exit codes in the README)

@@ -9,6 +9,7 @@ from typing import Annotated
 
 import typer
 
+from ..inputs.choices import CARD_SERIES
 from ..inputs.choices import PAPERS as PAPER_CHOICES
 from ..inputs.limits import MAX_CARDS, MAX_TUBES
 from ..inputs.text import plural
@@ -62,6 +63,23 @@ def cards(
             help="split the class into K sections (A, B, …) in roster order", min=1, metavar="INTEGER"
         ),
     ] = None,
+    series: Annotated[
+        str | None,
+        typer.Option(
+            help=f"the series on every card: {' | '.join(CARD_SERIES)} (default: the plan's "
+            "design.card_series, else binding-curve)",
+            metavar="TEXT",
+        ),
+    ] = None,
+    pooled: Annotated[
+        bool,
+        typer.Option(
+            "--pooled",
+            help="make the cards for the class's pooled fit alone (most efficient for K, but each card "
+            "holds two or three clusters of near-identical tubes, not a series to plot)",
+            metavar="",
+        ),
+    ] = False,
     paper: Annotated[
         str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}", metavar="TEXT")
     ] = "A4",
@@ -69,9 +87,10 @@ def cards(
         bool, typer.Option("--json", help="print the class summary as JSON", metavar="")
     ] = False,
 ) -> None:
-    """One recipe card per student — every card a different, individually sound recipe, together a good
-    pooled design — with the instructor's key (expected readings and acceptance bands) and the class
-    stock list. Exit 0 when every card passes, 1 when the class set cannot be made sound."""
+    """One recipe card per student — every card a series the student can plot and fit (a binding curve, a
+    mole-ratio or a Job series), all different, each individually sound, together efficient for the class's
+    pooled fit — with the instructor's key (expected readings and acceptance bands) and the class stock
+    list. Exit 0 when every card passes, 1 when the class set cannot be made sound."""
     from ..inputs.files import check_output_folder, write_atomic_many
     from ..inputs.plan import load_plan
     from ..inputs.roster import read_roster_csv, roster_of_count
@@ -80,6 +99,10 @@ def cards(
         raise UserError("give either --roster FILE or --count N (one of them)")
     if paper not in PAPER_CHOICES:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPER_CHOICES)}")
+    if series is not None and series not in CARD_SERIES:
+        raise UserError(f"--series {series}: choose one of {', '.join(CARD_SERIES)}")
+    if series is not None and pooled:
+        raise UserError("--series and --pooled: cards for the pooled fit hold no series; give one of them")
     check_output_folder(out_dir, OUTPUTS, (plan, roster_path))  # before the work, not after it
     p = load_plan(plan)
     roster = read_roster_csv(roster_path) if roster_path is not None else roster_of_count(count)
@@ -87,7 +110,9 @@ def cards(
 
     show = err.is_terminal and not as_json
     with _Bar(show, len(roster)) as bar:
-        cs, stocks, files = make_class_files(p, roster, tubes=tubes, seed=seed, paper=paper, bar=bar)
+        cs, stocks, files = make_class_files(
+            p, roster, tubes=tubes, seed=seed, paper=paper, series=series, pooled=pooled, bar=bar
+        )
     # the cards, the key and the stock list belong together: all of them or none
     write_atomic_many({out_dir / name: files[name] for name in OUTPUTS})
     summary = cs.summary()
@@ -101,7 +126,9 @@ def cards(
         raise typer.Exit(1)
 
 
-def make_class_files(p, roster, *, tubes: int | None, seed: int, paper: str, bar=None):
+def make_class_files(
+    p, roster, *, tubes: int | None, seed: int, paper: str, series=None, pooled: bool = False, bar=None
+):
     """The class set, its stock list and every output file's bytes (what ``kplan cards`` writes; the
     benchmark times this)."""
     from ..jobs.classroom.cards import class_set
@@ -110,7 +137,17 @@ def make_class_files(p, roster, *, tubes: int | None, seed: int, paper: str, bar
 
     bar = bar or _Bar(False, 0)
     with _CardsPrinter(p, paper, len(roster)) as printer:
-        cs = class_set(p, roster, tubes=tubes, seed=seed, progress=bar.assessed, drafted=printer.drafted)
+        bar.start()
+        cs = class_set(
+            p,
+            roster,
+            tubes=tubes,
+            seed=seed,
+            series=series,
+            pooled=pooled,
+            progress=bar.assessed,
+            drafted=printer.drafted,
+        )
         stocks = class_stocks(p, [c.recipe for c in cs.cards], roster)
         files: dict[str, bytes] = {}
         bar.stage("key.pdf")
@@ -136,8 +173,8 @@ def _print(cs, stocks, out_dir: Path) -> None:
         f"seed {cs.seed}"
     )
     out.print(
-        f"  SE of log β[{cs.target}]: one card {fmt.sig(se['cards_median'], 2)} (median; worst "
-        f"{fmt.sig(se['cards_max'], 2)}, goal {fmt.sig(cs.goal_se, 2)})"
+        f"  SE of log β[{cs.target}] from one card's own readings: {fmt.sig(se['cards_median'], 2)} "
+        f"(median; worst {fmt.sig(se['cards_max'], 2)}, goal {fmt.sig(cs.goal_se, 2)})"
     )
     out.print(
         f"  class pooled {fmt.sig(se['pooled'], 2)}; {plural(n, 'copy', 'copies')} of the best recipe "
@@ -145,6 +182,14 @@ def _print(cs, stocks, out_dir: Path) -> None:
         f"{fmt.sig(se['pooled_even_copies'], 2)}; stock errors left out "
         f"{fmt.sig(se['pooled_without_stock'], 2)}"
     )
+    out.print(
+        f"  efficiency against {plural(n, 'copy', 'copies')} of the best recipe "
+        f"{fmt.percent(cs.efficiency, 3)} ({fmt.percent(cs.efficiency_without_stock, 3)} with the stock "
+        f"errors left out)"
+    )
+    if cs.lab != "pooled":
+        low = min(c.spread.distinct for c in cs.cards)
+        out.print(f"  every card a {cs.lab} series of at least {low} distinct compositions")
     for s in stocks:
         if s.enough is False:
             out.print(
@@ -236,32 +281,64 @@ class _CardsPrinter:
 
 
 class _Bar:
-    """A rich progress bar on stderr for long runs (assessing the cards, then printing)."""
+    """A rich progress line on stderr, shown once a class set has taken more than ``DELAY_S`` (choosing
+    the cards, one line per card assessed, then each file printed)."""
+
+    DELAY_S = 2.0
 
     def __init__(self, show: bool, total: int):
-        self.show = show and total >= 10
+        self.show = show and total > 0
         self.total = total
         self.bar = None
         self.task = None
+        self.timer = None
+        self.what = "choosing the cards"
+        self.done = 0
+        self.closed = False
+        import threading
+
+        self.lock = threading.Lock()
 
     def __enter__(self):
-        if self.show:
-            from rich.progress import Progress
-
-            self.bar = Progress(console=err, transient=True)
-            self.bar.__enter__()
-            self.task = self.bar.add_task("assessing the cards", total=self.total + 3)
         return self
 
-    def assessed(self, done: int, total: int) -> None:
+    def start(self) -> None:
+        """Arm the delay (after any printing process is forked, so the child has no timer thread)."""
+        if self.show and self.timer is None:
+            import threading
+
+            self.timer = threading.Timer(self.DELAY_S, self._appear)
+            self.timer.daemon = True
+            self.timer.start()
+
+    def _appear(self) -> None:
+        from rich.progress import Progress
+
+        with self.lock:
+            if self.closed:
+                return
+            bar = Progress(console=err, transient=True)
+            self.task = bar.add_task(self.what, total=self.total + 3, completed=self.done)
+            bar.start()
+            self.bar = bar
+
+    def _update(self) -> None:
         if self.bar is not None:
-            self.bar.update(self.task, completed=done)
+            self.bar.update(self.task, description=self.what, completed=self.done)
+
+    def assessed(self, done: int, total: int) -> None:
+        self.done, self.what = done, f"card {done} of {total} assessed"
+        self._update()
 
     def stage(self, name: str) -> None:
-        if self.bar is not None:
-            self.bar.update(self.task, description=f"printing {name}", advance=1)
+        self.done, self.what = self.done + 1, f"printing {name}"
+        self._update()
 
     def __exit__(self, *exc):
-        if self.bar is not None:
-            self.bar.__exit__(*exc)
+        with self.lock:
+            self.closed = True
+            if self.timer is not None:
+                self.timer.cancel()
+            if self.bar is not None:
+                self.bar.stop()
         return False

@@ -56,10 +56,12 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
         f"{o.linear_range[0]:g}–{o.linear_range[1]:g}, stray light {o.stray_light:g}, "
         f"noise k1={o.noise.k1:g} k2={o.noise.k2:g} k3={o.noise.k3:g}"
     )
+    if o.has_spectra:
+        _print_spectra_keys(p)
     t = Table(title="Stocks")
     for c in ("id", "label", "M", "L", "other ions", "rsd", "on hand", "dispenser"):
         t.add_column(c)
-    from ..jobs.compile import plan_devices
+    from ..jobs.devices import plan_devices
     from ..paper.bench_volumes import grid_finer_than_reading
     from ..uncertainty.catalogue import reading_resolution_mL
     from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
@@ -125,17 +127,7 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
             f"({res:g} mL): the sheet's volumes ask for more than the device shows; use a step of at least "
             f"{res:g} mL or state the device's graduation"
         )
-    d = p.design
-    settings = (
-        f"target {S(p.target)}, criterion {d.criterion}, robust {'yes' if d.robust else 'no'}, "
-        f"goal SE {d.goal_se:g}"
-    )
-    if p.titration is not None:
-        out.print(_titration_line(p, by_stock))
-        out.print(f"Design: {settings}")
-    else:
-        fixed = ", ".join(f"{k} {fmt.volume(v, g.step_mL)} mL" for k, v in d.fixed.items())
-        out.print(f"Design: {plural(d.tubes, 'tube')}, {settings}" + (f", fixed {S(fixed)}" if fixed else ""))
+    _print_design(p, by_stock)
     # a stock that is measured out needs a dispenser (the diluent under to-mark is poured to the mark;
     # a titration's cell and titrant are checked by the schedule)
     missing = [
@@ -154,6 +146,23 @@ def check(plan: Annotated[Path, typer.Argument(help="plan file (TOML)")]) -> Non
     out.print("[green]plan OK[/green]")
 
 
+def _print_design(p, by_stock) -> None:
+    """The design settings; a titration plan's additions in place of the tubes of a series."""
+    from ..paper import fmt
+
+    d = p.design
+    settings = (
+        f"target {S(p.target)}, criterion {d.criterion}, robust {'yes' if d.robust else 'no'}, "
+        f"goal SE {d.goal_se:g}"
+    )
+    if p.titration is not None:
+        out.print(_titration_line(p, by_stock))
+        out.print(f"Design: {settings}")
+        return
+    fixed = ", ".join(f"{k} {fmt.volume(v, p.glassware.step_mL)} mL" for k, v in d.fixed.items())
+    out.print(f"Design: {plural(d.tubes, 'tube')}, {settings}" + (f", fixed {S(fixed)}" if fixed else ""))
+
+
 def _titration_line(p, by_stock) -> str:
     """What a titration plan adds, in place of the tubes of a series: the cell's start, the additions of
     the titrant and their grid, and what is done between readings."""
@@ -167,4 +176,27 @@ def _titration_line(p, by_stock) -> str:
         f"Titration: {fmt.volume(t.start_volume_mL, step)} mL of {S(t.cell)} in the cell, then "
         f"{plural(t.additions, 'addition')} of {S(t.titrant)}{device} on a {step:g} mL grid, up to "
         f"{fmt.volume(t.max_volume_mL, step)} mL in the cell; between readings: {S(t.equilibrate)}"
+    )
+
+
+def _print_spectra_keys(p) -> None:
+    """What the plan says about whole spectra: the window and where each absorber's spectrum comes from."""
+    from ..jobs.compile import compile_study
+
+    study = compile_study(p)
+    sp = study.spectra
+    o = p.optics
+    w = sp.wavelength_nm
+    table = p.spectra_table
+    parts = []
+    for k, name in enumerate(study.model.absorbers):
+        if not sp.absorbing[k]:
+            continue
+        src = "table" if table is not None and name in table.names else "band"
+        parts.append(f"{S(name)} ({src}, {'fitted' if sp.free[k] else 'known'})")
+    out.print(
+        f"Whole spectra: {w[0]:g}–{w[-1]:g} nm every {o.step_nm:g} nm ({w.size} wavelengths)"
+        + (f", bandwidth {o.bandwidth_nm:g} nm" if o.bandwidth_nm else "")
+        + f", stray light and readout noise ×{o.edge_rise:g} at the window's ends; spectra: "
+        + (", ".join(parts) or "none")
     )

@@ -49,6 +49,7 @@ def demo(
     print_assessment(a, p)
     written.append(write_atomic(out_dir / "assessment.json", dump_json(a.summary()) + "\n"))
     written.extend(_demo_paper(p, d, a, out_dir))
+    written.extend(_demo_spectra(out_dir))
     out.print("\n[bold]Wrote[/bold]")
     for w in written:
         out.print(f"  {S(w)}")
@@ -70,3 +71,56 @@ def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:
     )
     report_pdf = write_atomic_bytes(out_dir / "report.pdf", render_report(p, d.recipe, a, design=d.summary()))
     return [sheet_pdf, report_pdf]
+
+
+SPECTRA_TRIALS = 1000  # the whole-spectrum Monte Carlo of the demo (the assessment's default is 2000)
+
+
+def _demo_spectra(out_dir: Path) -> list[Path]:
+    """Whole spectra: the example with two overlapping bands designed, assessed against the best single
+    wavelength, measured (simulated) and fitted."""
+    import numpy as np
+
+    from ..inputs.files import write_atomic, write_atomic_bytes
+    from ..inputs.plan import parse_plan_text
+    from ..inputs.recipe import recipe_to_csv
+    from ..inputs.spectra_readings import spectra_readings_to_csv
+    from ..jobs.compile import compile_study
+    from ..jobs.spectra.assess import assess_spectra
+    from ..jobs.spectra.design import design_spectra
+    from ..jobs.spectra.fit import fit_spectra
+    from ..jobs.spectra.simulated import simulated_spectra
+    from ..paper.render import fit_report
+    from ..paper.render import report as render_report
+    from .app import scenario_files
+    from .fit import _print_spectra_fit
+    from .show import print_assessment, print_design, print_spectra
+
+    written = []
+    text = scenario_text("spectra")
+    for name, body in scenario_files("spectra").items():
+        written.append(write_atomic(out_dir / name, body))
+    written.append(write_atomic(out_dir / "spectra-plan.toml", text))
+    p = parse_plan_text(text, source="scenario spectra", base_dir=out_dir)
+    study = compile_study(p)
+    out.rule("4. whole spectra: two complexes with overlapping bands, every wavelength 400–700 nm")
+    d = design_spectra(study, seed=0)
+    print_design(d, p)
+    print_spectra(d.summary(), p.target, p.optics.wavelength_nm)
+    written.append(write_atomic(out_dir / "spectra-recipe.csv", recipe_to_csv(d.recipe, p)))
+    written.append(write_atomic(out_dir / "spectra-design.json", dump_json(d.summary()) + "\n"))
+    out.rule("5. the whole-spectrum design, assessed with Monte Carlo")
+    a = assess_spectra(study, d.recipe, trials=SPECTRA_TRIALS, seed=0)
+    print_assessment(a, p)
+    print_spectra(a.summary(), p.target, p.optics.wavelength_nm)
+    written.append(write_atomic(out_dir / "spectra-assessment.json", dump_json(a.summary()) + "\n"))
+    rep = render_report(p, d.recipe, a, design=d.summary())
+    written.append(write_atomic_bytes(out_dir / "spectra-report.pdf", rep))
+    out.rule("6. simulated spectra of those tubes (every error source), fitted globally")
+    readings = simulated_spectra(study, d.recipe, np.random.default_rng(1))
+    written.append(write_atomic(out_dir / "spectra-readings.csv", spectra_readings_to_csv(readings, p)))
+    f = fit_spectra(study, readings)
+    _print_spectra_fit(f)
+    written.append(write_atomic(out_dir / "spectra-fit.json", dump_json(f.summary()) + "\n"))
+    written.append(write_atomic_bytes(out_dir / "spectra-fit.pdf", fit_report(p, f)))
+    return written

@@ -63,14 +63,22 @@ def design(
     from ..inputs.plan import load_plan
     from ..inputs.recipe import recipe_to_csv
     from ..jobs.plan.design import design as run_design
-    from .show import print_design
+    from .show import print_design, print_spectra
 
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
     if out_dir is not None:
         # before the search, not after it; the outputs may not overwrite the plan or the readings
-        check_output_folder(out_dir, ("recipe.csv", "schedule.csv", "design.json"), (plan, after))
+        names = ("recipe.csv", "schedule.csv", "design.json", "all-readings.csv")
+        check_output_folder(out_dir, names, (plan, after))
     p = load_plan(plan)
+    if after is not None:
+        if p.titration is not None:
+            raise UserError(
+                "--after: a titration continues in its own cell, and sequential design is for separately "
+                "made tubes: design the titration again with the readings' lessons in the plan's guesses"
+            )
+        return _next_batch(p, after, out_dir, tubes, robust, seed, as_json)
     if p.titration is not None:
         if tubes is not None and additions is not None:
             raise UserError("--tubes and --additions: a titration plan takes --additions only")
@@ -78,9 +86,13 @@ def design(
         return _titration(p, out_dir, additions if additions is not None else tubes, robust, as_json)
     if additions is not None:
         raise UserError("--additions applies to titration plans ([titration]); use --tubes for tubes")
-    if after is not None:
-        return _next_batch(p, after, out_dir, tubes, robust, seed, as_json)
-    d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
+    if p.optics.has_spectra:
+        from ..jobs.compile import compile_study
+        from ..jobs.spectra.design import design_spectra
+
+        d = design_spectra(compile_study(p), tubes=tubes, criterion=criterion, robust=robust, seed=seed)
+    else:
+        d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
     summary = d.summary()
     if out_dir is not None:
         # one unit: a recipe.csv beside a design.json from another run would be worse than neither
@@ -94,6 +106,7 @@ def design(
         print(dump_json(summary))
     else:
         print_design(d, p)
+        print_spectra(summary, p.target, p.optics.wavelength_nm)
         if out_dir is not None:
             out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
     if d.verdict is not None and d.verdict != "resolved":
@@ -102,39 +115,82 @@ def design(
 
 def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, as_json: bool) -> None:
     """``kplan design --after``: fit the readings so far, then design the next tubes or say to stop."""
+    import numpy as np
+
     from ..inputs.files import write_atomic_many
-    from ..inputs.readings import read_readings_csv
-    from ..inputs.recipe import recipe_to_csv
+    from ..inputs.readings import read_readings_csv, readings_to_csv
+    from ..inputs.recipe import concat_recipes, recipe_to_csv
     from ..jobs.compile import compile_study
+    from ..jobs.measure.fit import check_absorbances
     from ..jobs.plan.sequential import next_batch
-    from ..paper import fmt
-    from .show import print_design
 
     study = compile_study(p)
-    nb = next_batch(study, read_readings_csv(after, p), tubes=tubes, seed=seed, robust=robust)
-    summary = nb.design.summary() if nb.design is not None and not nb.stop else {}
-    summary["sequential"] = nb.summary()
-    if out_dir is not None and nb.design is not None and not nb.stop:
+    readings = read_readings_csv(after, p)
+    check_absorbances(readings.absorbance, readings.recipe.tubes, str(after))
+    nb = next_batch(study, readings, tubes=tubes, seed=seed, robust=robust)
+    summary = nb.design_summary()
+    going = nb.recipe is not None and not nb.stop
+    if out_dir is not None and going:
+        both = concat_recipes([readings.recipe, nb.recipe])
+        template = np.concatenate([readings.absorbance, np.full(nb.recipe.n_tubes, np.nan)])
         write_atomic_many(
             {
-                out_dir / "recipe.csv": recipe_to_csv(nb.design.recipe, p),
+                out_dir / "recipe.csv": recipe_to_csv(nb.recipe, p),
+                out_dir / "all-readings.csv": readings_to_csv(both, p, template),
                 out_dir / "design.json": dump_json(summary) + "\n",
             }
         )
     if as_json:
         print(dump_json(summary))
         return
-    out.print(f"[bold]{S(p.title)}[/bold] — after {plural(nb.fit.recipe.n_tubes, 'reading')}")
-    for n, e, se_ in zip(nb.fit.names, nb.fit.estimate, nb.fit.se, strict=True):
-        out.print(f"  {S(n)} = {fmt.sig(float(e), 4)} ± {fmt.sig(float(se_), 2)}")
-    if nb.stop:
-        out.print(f"[yellow]stop:[/yellow] {S(nb.reason)}")
+    _print_next(p, nb)
+    if out_dir is not None and going:
+        out.print(
+            f"wrote {S(out_dir / 'recipe.csv')} (the next tubes), {S(out_dir / 'all-readings.csv')} (every "
+            f"tube: fill in the new absorbances, then kplan fit reads it as one file) and "
+            f"{S(out_dir / 'design.json')}"
+        )
+
+
+def _print_next(p, nb) -> None:
+    from rich.table import Table
+
+    from ..paper import fmt
+
+    out.print(f"[bold]{S(p.title)}[/bold] — after {plural(nb.measured.recipe.n_tubes, 'reading')}")
+    out.print(S(nb.reason))
+    if nb.stop or nb.recipe is None:
+        out.print("[yellow]stop:[/yellow] no next batch")
         return
-    out.print(f"[bold]{S(nb.reason)}[/bold]")
-    out.rule(f"the next {plural(nb.design.recipe.n_tubes, 'tube')}")
-    print_design(nb.design, p)
-    if out_dir is not None:
-        out.print(f"wrote {out_dir / 'recipe.csv'} and {out_dir / 'design.json'}")
+    t = Table(title=f"The next {plural(nb.recipe.n_tubes, 'tube')}")
+    dispensed = nb.recipe.dispensed_ids(p)
+    for c in ("tube", *(f"{S(x)} / mL" for x in dispensed), "A ± sd (at what was learned)"):
+        t.add_column(c, justify="right")
+    rows = {r["tube"]: r for r in nb.assessment.tube_rows()}
+    for i, tube in enumerate(nb.recipe.tubes):
+        r = rows[tube]
+        t.add_row(
+            S(tube),
+            *(fmt.volume(nb.recipe.column(x)[i], p.glassware.step_mL) for x in dispensed),
+            f"{r['absorbance']:.3f} ± {r['absorbance_sd']:.3f}",
+        )
+    out.print(t)
+    target = S(p.target)
+    ratio = nb.se_after_even / nb.se_after if nb.se_after > 0 else float("nan")
+    word = "better" if ratio >= 1 else "worse"
+    out.print(
+        f"SE(log β[{target}]) of all {nb.everything.n_tubes} tubes together: "
+        f"[bold]{fmt.sig(nb.se_now, 2)}[/bold] now → [bold]{fmt.sig(nb.se_after, 2)}[/bold] expected with "
+        f"these; with an evenly spaced batch instead: {fmt.sig(nb.se_after_even, 2)} (these are "
+        f"×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})"
+    )
+    bad = [c for c in nb.assessment.summary()["checks"] if c["status"] != "pass"]
+    if bad:
+        out.print("checks of all tubes together:")
+        for c in bad:
+            out.print(f"  [yellow]{c['status']}[/yellow] {S(c['id'])}: {S(c['message'])}")
+    else:
+        out.print("every check passes for all tubes together")
 
 
 def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> None:

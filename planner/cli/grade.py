@@ -1,5 +1,5 @@
-"""``kplan grade``: every student's readings against the key, the class's pooled constant, the likely
-mix-up."""
+"""``kplan grade``: the class's own constant, every student's readings against the class's model, the
+likely mix-up."""
 
 from __future__ import annotations
 
@@ -34,22 +34,21 @@ def grade(
         str, typer.Option(help="paper size of the class report: A4 | Letter", metavar="TEXT")
     ] = "A4",
 ) -> None:
-    """Grade a class: each student's readings against the key's bands, the pooled constant from every
-    student not flagged, and the likely mix-up behind each flagged student."""
-    from rich.table import Table
-
-    from ..inputs.files import check_output_folder, write_atomic, write_atomic_bytes
+    """Grade a class by consensus: the class's own constant (with how far the plan's guess was off), each
+    student's readings against the class's model, and the likely mix-up behind each flagged student."""
+    from ..inputs.files import write_atomic_many
     from ..inputs.gradebook import read_key, read_results
     from ..inputs.plan import load_plan
     from ..jobs.classroom.grade import grade_class
     from ..jobs.compile import compile_study
-    from ..paper import fmt
     from ..paper.grades import grade_report, grades_csv, grades_xlsx
     from ..paper.render import PAPERS
 
     if paper not in PAPERS:
         raise UserError(f"--paper {paper}: choose one of {', '.join(PAPERS)}")
     if out_dir is not None:  # before the work; the outputs may not overwrite an input
+        from ..inputs.files import check_output_folder
+
         names = ("grades.csv", "grades.xlsx", "grades.html" if html else "grades.pdf")
         key_file = key_dir / "key.csv" if key_dir.is_dir() else key_dir
         check_output_folder(out_dir, names, (plan, key_file, results))
@@ -59,38 +58,59 @@ def grade(
     summary = g.summary()
     if out_dir is not None:
         report_name = "grades.html" if html else "grades.pdf"
-        write_atomic(out_dir / "grades.csv", grades_csv(summary))
-        write_atomic_bytes(out_dir / "grades.xlsx", grades_xlsx(summary))
-        write_atomic_bytes(
-            out_dir / report_name, grade_report(summary, paper=paper, fmt_="html" if html else "pdf")
+        # one unit: every file is made before any is written, so a failure leaves none
+        report = grade_report(summary, paper=paper, fmt_="html" if html else "pdf")
+        write_atomic_many(
+            {
+                out_dir / "grades.csv": grades_csv(summary),
+                out_dir / "grades.xlsx": grades_xlsx(summary),
+                out_dir / report_name: report,
+            }
         )
     if as_json:
         print(dump_json(summary))
         return
+    _print_grade(g, summary)
+    if out_dir is not None:
+        out.print(f"wrote {S(out_dir / 'grades.csv')}, {S(out_dir / 'grades.xlsx')} and the class report")
+
+
+def _print_grade(g, summary: dict) -> None:
+    from rich.table import Table
+
+    from ..paper import fmt
+
     out.print(f"[bold]{S(g.title)}[/bold] — {plural(len(g.students), 'student')}")
     pooled = summary["pooled"]
     if pooled is not None:
         for prm in pooled["parameters"]:
             ci = prm.get("profile_ci95")
             out.print(
-                f"pooled {S(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
+                f"class {S(prm['name'])} = {fmt.sig(prm['estimate'], 5)} ± {fmt.sig(prm['se'], 2)}"
                 + (f" (95 % {fmt.sig(ci[0], 5)} – {fmt.sig(ci[1], 5)})" if ci and None not in ci else "")
-                + f" from {plural(pooled['students'], 'student')}; {S(pooled['chi2_verdict'])}"
+                + f"; the plan guessed {fmt.sig(prm['guess'], 4)}"
             )
+        out.print(f"from {plural(pooled['students'], 'student')}; {S(pooled['chi2_verdict'])}")
+        if summary["key_note"]:
+            out.print(f"[yellow]{S(summary['key_note'])}[/yellow]")
+    else:
+        out.print("[yellow]no student's readings could be pooled: judged against the plan's guess[/yellow]")
     t = Table(title="Students")
-    for c in ("student", "name", "verdict", "in band", "own log β", "likely mix-up"):
+    for c in ("student", "name", "verdict", "in key band", "in class band", "own log β", "likely mix-up"):
         t.add_column(c)
     for s in summary["students"]:
         own = s["own_fit"]
         verdict = s["verdict"] if s["verdict"] != "flagged" else "[red]flagged[/red]"
+        why = s["explanation"] or ""
+        if why == "unexplained" and s["candidate"]:
+            why = f"unexplained (candidate: {s['candidate']})"
         t.add_row(
             S(s["student"]),
             S(s["name"]),
             verdict,
             f"{s['tubes_in_band']}/{s['tubes']}",
+            f"{s['tubes_in_class_band']}/{s['tubes']}",
             f"{fmt.sig(own['log_beta'], 4)} ± {fmt.sig(own['se'], 2)}" if own else "—",
-            S(s["explanation"] or ""),
+            S(why),
         )
     out.print(t)
-    if out_dir is not None:
-        out.print(f"wrote {out_dir / 'grades.csv'}, {out_dir / 'grades.xlsx'} and the class report")

@@ -7,7 +7,7 @@ from typing import Annotated
 
 import typer
 
-from .app import DEMO_SCENARIO, SCENARIOS, UserError, app, out, scenario_text
+from .app import DEMO_SCENARIO, SCENARIOS, UserError, app, out, parse_scenario, scenario_files, scenario_text
 from .app import safe_text as S
 
 
@@ -20,13 +20,15 @@ def new(
     force: Annotated[bool, typer.Option(help="overwrite an existing file", metavar="")] = False,
 ) -> None:
     """Write a commented starter plan from a built-in scenario."""
-    from ..inputs.files import check_output_file, write_atomic
-    from ..inputs.plan import parse_plan_text
+    from ..inputs.files import check_output_file, write_atomic_many
 
     text = scenario_text(scenario)
     check_output_file(path)
-    if path.exists() and not force:
-        raise UserError(f"{path} exists: choose another path or pass --force")
-    parse_plan_text(text)  # the shipped scenarios must always validate
-    write_atomic(path, text)
-    out.print(f"wrote {S(path)} (scenario '{scenario}'); edit it, then run: kplan check {S(path)}")
+    extra = {path.parent / name: body for name, body in scenario_files(scenario).items()}
+    for p in (path, *extra):
+        if p.exists() and not force:
+            raise UserError(f"{p} exists: choose another path or pass --force")
+    parse_scenario(scenario, text)  # the shipped scenarios must always validate
+    write_atomic_many({path: text, **extra})  # the plan and the files it names, together or not at all
+    also = f" and {', '.join(S(p) for p in extra)}" if extra else ""
+    out.print(f"wrote {S(path)}{also} (scenario '{scenario}'); edit it, then run: kplan check {S(path)}")

@@ -92,8 +92,11 @@ def _paper_output(
     r = read_points(recipe, p, study)
     if kind == "sheet":
         require_glassware_fits(study.bench, r)  # followed at the bench: every volume must be deliverable
+    job = assess_study
+    if study.spectra is not None:  # the sheet's design check and expected bands come from whole spectra
+        from ..jobs.spectra.assess import assess_spectra as job
     a = _with_progress(
-        lambda prog: assess_study(study, r, trials=trials, seed=seed, progress=prog),
+        lambda prog: job(study, r, trials=trials, seed=seed, progress=prog),
         trials,
         quiet=False,
         tubes=r.n_tubes,

@@ -262,3 +262,59 @@ def print_stock_needs(p, needs, with_recipe: bool) -> None:
                 mark,
             )
         out.print(t)
+
+
+def print_spectra(summary: dict, target: str, wavelength_nm: float = float("nan")) -> None:
+    """The whole-spectrum part of an assessment or design: against the best single wavelength, where the
+    information lies, and what a factor analysis would see."""
+    sp = summary.get("spectra")
+    if not sp:
+        return
+    lo, hi = sp["window_nm"]
+    t = S(target)
+    out.print(
+        f"Whole spectra: {sp['wavelengths']} wavelengths {lo:g}–{hi:g} nm, {sp['readings_used']} of "
+        f"{sp['readings']} readings used; fitted spectra: {S(', '.join(sp['fitted_spectra'])) or 'none'}"
+    )
+    best = sp.get("best_single_wavelength_nm")
+    ratio = sp.get("se_ratio_single_over_spectrum")
+    if best is not None and ratio is not None:
+        out.print(
+            f"SE(log β[{t}]) from every wavelength: [bold]{fmt.sig(sp['se_whole_spectrum'], 2)}[/bold]; "
+            f"from the "
+            f"best single wavelength ({best:g} nm): {fmt.sig(sp['se_best_single_wavelength'], 2)} "
+            f"(×{fmt.sig(ratio, 2)} {'better' if ratio >= 1 else 'worse'} with the whole spectrum)"
+        )
+    alone = sp.get("se_single_wavelength_design")
+    if alone is not None:
+        out.print(
+            f"A design for one wavelength ({wavelength_nm:g} nm) alone would reach SE {fmt.sig(alone, 2)} "
+            f"there; "
+            f"this one, read as whole spectra: {fmt.sig(sp['se_whole_spectrum'], 2)}"
+        )
+    rows = sp["by_wavelength"]
+    if rows:
+        tab = Table(title=f"Where the information about log β[{t}] lies")
+        for c in (
+            "wavelength / nm",
+            "share of the information per wavelength",
+            "SE from that wavelength alone",
+        ):
+            tab.add_column(c, justify="right")
+        picks = np.unique(np.linspace(0, len(rows) - 1, min(11, len(rows))).round().astype(int))
+        for k in picks:
+            r = rows[k]
+            share = r["information_share"]
+            tab.add_row(
+                f"{r['wavelength_nm']:g}",
+                f"{share * 100:.2f} %" if share is not None else "—",
+                fmt.sig(r["se_single"], 2) + ("" if r["eligible"] else " (out of range)"),
+            )
+        out.print(tab)
+    fa = sp.get("factors")
+    if fa and fa.get("found_share") is not None:
+        out.print(
+            f"Factor analysis of simulated data matrices: {fa['above_noise']} of the model's "
+            f"{fa['absorbing_species']} absorbing species stand above the noise; found in "
+            f"{fa['found_share']:.0%}"
+        )

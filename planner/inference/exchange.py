@@ -284,6 +284,23 @@ def _efficient_rounding(w: np.ndarray, n: int) -> np.ndarray:
     return x
 
 
+def _check_exact_args(n_tubes, rng, starts, max_sweeps) -> None:
+    for name, v in (("n_tubes", n_tubes), ("starts", starts), ("max_sweeps", max_sweeps)):
+        if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < 1:
+            raise DesignError(f"{name} must be a positive integer (got {v!r})")
+    if not isinstance(rng, np.random.Generator):
+        raise DesignError("rng must be a numpy.random.Generator, e.g. numpy.random.default_rng(seed)")
+
+
+def _initial_counts(initial, C: int, n: int) -> np.ndarray | None:
+    if initial is None:
+        return None
+    x = np.asarray(initial, dtype=np.int64).reshape(-1)
+    if x.shape != (C,) or x.min() < 0 or x.sum() != n:
+        raise DesignError(f"initial must be {C} non-negative counts summing to {n}")
+    return x
+
+
 def exact_design(
     F,
     n_tubes: int,
@@ -296,6 +313,7 @@ def exact_design(
     starts: int = 8,
     max_sweeps: int = 100,
     approx: ApproximateDesign | None = None,
+    initial=None,
 ) -> ExactDesign:
     """Optimal exact design of ``n_tubes`` tubes (replicates allowed) by exchange.
 
@@ -322,19 +340,15 @@ def exact_design(
     approx : ApproximateDesign, optional
         The approximate optimum for the same F, criterion, target, M0, node weights and n
         (computed when omitted); ``efficiency`` is measured against it.
+    initial : array_like of int, (C,), optional
+        Counts of a design found otherwise (e.g. by :func:`coordinate_exchange`), run as one more
+        start: the result is then never worse than it.
 
     Returns
     -------
     ExactDesign
     """
-    if isinstance(n_tubes, bool) or not isinstance(n_tubes, (int, np.integer)) or n_tubes < 1:
-        raise DesignError(f"n_tubes must be a positive integer (got {n_tubes!r})")
-    if not isinstance(rng, np.random.Generator):
-        raise DesignError("rng must be a numpy.random.Generator, e.g. numpy.random.default_rng(seed)")
-    if isinstance(starts, bool) or not isinstance(starts, (int, np.integer)) or starts < 1:
-        raise DesignError(f"starts must be a positive integer (got {starts!r})")
-    if isinstance(max_sweeps, bool) or not isinstance(max_sweeps, (int, np.integer)) or max_sweeps < 1:
-        raise DesignError(f"max_sweeps must be a positive integer (got {max_sweeps!r})")
+    _check_exact_args(n_tubes, rng, starts, max_sweeps)
     n = int(n_tubes)
     prob = _problem(F, criterion, target, M0, node_weights, float(n), True)
     if criterion == "all":
@@ -376,12 +390,18 @@ def exact_design(
     size = min(prob.C, max(_POOL_MIN, _POOL_PER_TUBE * n))
     pool = _top(d, size)
     pool = np.concatenate([pool, np.setdiff1d(sup_w, pool)])
+    x_init = _initial_counts(initial, prob.C, n)
+    if x_init is not None:
+        pool = np.concatenate([pool, np.setdiff1d(np.flatnonzero(x_init), pool)])
     sub = _restrict(prob, pool)
     max_steps = int(max_sweeps) * n
     best = None
-    for s in range(int(starts)):
+    for s in range(int(starts) + (x_init is not None)):
         if s == 0:
             x0 = _efficient_rounding(w[pool], n)
+        elif s == int(starts):
+            assert x_init is not None
+            x0 = x_init[pool]
         else:
             x0 = np.bincount(rng.integers(0, pool.size, size=n), minlength=pool.size).astype(np.int64)
         st = _exchange(sub, x0, max_steps)
@@ -397,3 +417,123 @@ def exact_design(
     value = _value(prob, best.loss, best.Linv)
     eff = float(np.exp((loss_approx - best.loss) / prob.k)) if np.isfinite(value) else 0.0
     return ExactDesign(counts, value, eff, int(starts))
+
+
+# --------------------------------------------------------------------------------------------------
+# Coordinate exchange: exact designs without a candidate list
+# --------------------------------------------------------------------------------------------------
+
+
+def _variants(pts: np.ndarray, move, levels, shifts) -> np.ndarray:
+    """Every point's variants along one move, point after point: coordinate j at each of its levels (with
+    "swap", the other coordinates of its group at 0), or coordinates j and k shifted together (k by
+    ``sign`` times the shift)."""
+    n = pts.shape[0]
+    if move[0] in ("set", "swap"):
+        j = move[1]
+        lv = np.asarray(levels[j], dtype=float)
+        var = np.repeat(pts, lv.size, axis=0)
+        var[:, j] = np.tile(lv, n)
+        if move[0] == "swap":  # the coordinates j stands in for go to 0
+            var[:, [o for o in move[2] if o != j]] = 0.0
+        return var
+    _, j, k, sign = move
+    var = np.repeat(pts, shifts.size, axis=0)
+    var[:, j] += np.tile(shifts, n)
+    var[:, k] += sign * np.tile(shifts, n)
+    return var
+
+
+def coordinate_exchange(
+    info,
+    levels,
+    start,
+    *,
+    criterion: str,
+    target: int | None = None,
+    M0=None,
+    node_weights=None,
+    shifts=None,
+    groups=None,
+    max_sweeps: int = 20,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Improve an exact design one coordinate of one point at a time (Meyer & Nachtsheim 1995,
+    Technometrics 37:60), without ever listing the product of all coordinates' levels.
+
+    A sweep visits each coordinate j: every point's variants — the point with coordinate j at each of
+    its levels — are rated in one call of ``info``; then, point by point, the point moves to its best
+    variant when that lowers the loss (the rank-2R exchange update of :class:`_State`, the same scores
+    as :func:`exact_design`). With ``shifts``, a sweep also shifts neighbouring coordinates together
+    (j and j+1, cyclically; by the same amount, or by opposite amounts), diagonal moves a single
+    coordinate cannot make, as along a constraint on the total volume. With ``groups`` (coordinates that
+    stand in for one another), a sweep also tries each coordinate in place of the others of its group
+    (those set to 0, it at each of its levels). Sweeps repeat until none moves a
+    point. A sweep's work grows linearly with the number of coordinates and of levels, not with their
+    product.
+
+    Parameters
+    ----------
+    info : callable
+        ``info(points (m, d)) -> (F (G, m, R, P), ok (m,) bool)``: information rows of candidate points
+        and whether each is allowed (False rows are never moved to, whatever their rows hold).
+    levels : sequence of d arrays
+        The values each coordinate may take.
+    start : array_like, (n, d)
+        The starting design's points (each a tube; replicates are separate rows); they must be allowed.
+    criterion, target, M0, node_weights
+        As in :func:`exact_design`.
+    shifts : array_like, optional
+        Amounts by which neighbouring coordinates are shifted together (none: coordinate moves only).
+    groups : sequence of sequences of int, optional
+        Coordinates that can replace one another (e.g. stocks of the same reagent at other
+        concentrations).
+    max_sweeps : int
+        Cap on sweeps.
+
+    Returns
+    -------
+    (points (n, d), F (G, n, R, P)) of the improved design.
+    """
+    pts = np.array(start, dtype=float, ndmin=2)
+    n, d = pts.shape
+    F_pts, ok = info(pts)
+    if not np.all(ok):
+        raise DesignError("coordinate_exchange: every starting point must be allowed")
+    moves: list[tuple] = [("set", j) for j in range(d)]
+    sh = None if shifts is None else np.asarray(shifts, dtype=float)
+    if sh is not None and d >= 2:
+        pairs = [(j, (j + 1) % d) for j in range(d if d > 2 else 1)]
+        moves += [("move", j, k, sign) for j, k in pairs for sign in (-1.0, 1.0)]
+    for group in groups or ():
+        if len(group) > 1:
+            moves += [("swap", j, tuple(group)) for j in group]
+    for _ in range(int(max_sweeps)):
+        moved = False
+        for mv in moves:
+            var = _variants(pts, mv, levels, sh)
+            m = var.shape[0] // n
+            Fv, okv = info(var)
+            # one problem holds the design's points and every variant; the design is counts on it
+            prob = _problem(
+                np.concatenate([F_pts, Fv], axis=1), criterion, target, M0, node_weights, float(n), True
+            )
+            at = np.arange(n)  # where each point of the design sits among the problem's rows
+            x = np.zeros(prob.C, dtype=np.int64)
+            x[:n] = 1
+            st = _State(prob, x)
+            for i in range(n):
+                block = np.arange(n + i * m, n + (i + 1) * m)
+                delta = st.pair_delta(st.parts(block), st.parts(at[[i]]))[0]
+                delta = np.where(okv[i * m : (i + 1) * m], delta, np.inf)
+                b = int(np.argmin(delta))
+                if delta[b] < -_IMPROVE:
+                    x[at[i]] -= 1
+                    at[i] = block[b]
+                    x[at[i]] += 1
+                    st = _State(prob, x)
+                    moved = True
+            pts = np.where((at >= n)[:, None], var[np.maximum(at - n, 0)], pts)
+            F_pts = np.where((at >= n)[None, :, None, None], Fv[:, np.maximum(at - n, 0)], F_pts)
+        if not moved:
+            break
+    return pts, F_pts

@@ -178,7 +178,11 @@ def _weighting(sigma, whiten, n_trials: int, n_obs: int):  # noqa: C901
             return res * (inv.take(rows, axis=0) if inv.ndim == 2 else inv)
 
         def weigh_jac(jac, rows):
-            return jac * (inv.take(rows, axis=0) if inv.ndim == 2 else inv)[..., None]
+            # flattened (k, N·P) times the weights repeated P times: numpy broadcasts a long last axis
+            # several times faster than a trailing axis of length P
+            k, n, p = jac.shape
+            w = np.repeat(inv.take(rows, axis=0) if inv.ndim == 2 else inv, p, axis=-1)
+            return (np.ascontiguousarray(jac).reshape(k, n * p) * w).reshape(k, n, p)
 
         return weigh_res, weigh_jac
     if whiten is not None and hasattr(

@@ -18,17 +18,22 @@ convergence tests are those of Moré's implementation (ftol, xtol, gtol). Where 
 is then a closed form, so the λ search costs only O(P) per trial, and ``JᵀJ`` is never formed (its
 condition number would be the square of ``J``'s).
 
-The model is always evaluated on the whole batch, one call per iteration, so it may close over
-per-trial data; trials that have stopped are passed their final parameters unchanged.
+Before that, every trial takes plain Gauss–Newton passes (:mod:`planner.inference.gauss_newton`):
+trials that converge cleanly (each step confirmed by χ², a well-conditioned scaled normal matrix,
+inside the bounds) finish there without the trust-region bookkeeping, and only the others continue
+from their last accepted point through the iteration above.
+
+The model is evaluated once per pass, on the whole batch unless it is declared ``rowwise``, so it may
+close over per-trial data; trials that have stopped are passed their final parameters unchanged.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
-from functools import reduce
 
 import numpy as np
 
+from . import gauss_newton
 from .fit_result import (
     _CONVERGED_CODES,
     FitError,
@@ -39,6 +44,9 @@ from .fit_result import (
     _frozen,
     _weighting,
 )
+from .gauss_newton import Batch, _all_p, _max_p, _min_p
+from .gauss_newton import _get as _take
+from .gauss_newton import _set as _put
 
 _EPS = float(np.finfo(float).eps)
 _TINY = float(np.finfo(float).tiny)
@@ -49,6 +57,13 @@ _ACCEPT_RATIO = 1e-4
 # Moré's λ iteration stops when | ‖D p‖ − Δ | <= 0.1 Δ, or after 10 iterations (§5).
 _LAMBDA_SIGMA = 0.1
 _LAMBDA_MAX_ITER = 10
+# Trials first take plain Gauss–Newton passes (planner.inference.gauss_newton); only those that do not
+# converge cleanly there go through the trust-region iteration. False: every trial takes the
+# trust-region path (for comparing the two).
+_FAST_PATH = True
+# Covariances come from the inverse of the column-scaled normal matrix where its smallest pivot exceeds
+# this (relative error ≤ ε/1e-6 ≈ 2e-10), from the SVD of the scaled Jacobian elsewhere.
+_COV_PIVOT_MIN = 1e-6
 
 
 def _finite_difference_jac(call_model, theta, f0, lo, hi, central: bool) -> np.ndarray:
@@ -102,35 +117,8 @@ def _row_norms(a: np.ndarray) -> np.ndarray:
     return np.sqrt(np.einsum("...n,...n->...", a, a))
 
 
-# Reductions over the short parameter axis of (k, P) arrays, done column by column: numpy's
-# reduce along a short last axis is an order of magnitude slower on tall stacks.
-def _max_p(a: np.ndarray) -> np.ndarray:
-    return reduce(np.maximum, a.T)
-
-
-def _min_p(a: np.ndarray) -> np.ndarray:
-    return reduce(np.minimum, a.T)
-
-
-def _all_p(a: np.ndarray) -> np.ndarray:
-    return reduce(np.logical_and, a.T)
-
-
 def _dot_p(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.einsum("kp,kp->k", a, b)
-
-
-def _take(a: np.ndarray, rows: np.ndarray) -> np.ndarray:
-    """Rows of ``a`` (``take`` is several times faster than fancy indexing on tall stacks)."""
-    return a.take(rows, axis=0)
-
-
-def _put(a: np.ndarray, rows: np.ndarray, values) -> None:
-    """``a[rows] = values``; ``rows`` comes from flatnonzero, so full length means every row."""
-    if rows.size == a.shape[0]:
-        a[...] = values
-    else:
-        a[rows] = values
 
 
 def _jacobi_svd_rows(bt: np.ndarray, max_sweeps: int = 40) -> tuple[np.ndarray, np.ndarray]:
@@ -268,6 +256,7 @@ def fit_many(
     gtol: float = 1e-10,
     lower=None,
     upper=None,
+    rowwise: bool = False,
 ) -> FitResult:
     """Fit T independent nonlinear least-squares problems at once by Levenberg–Marquardt.
 
@@ -281,7 +270,7 @@ def fit_many(
     model : callable
         ``model(theta)`` maps parameters (T, P) to predictions (T, N). It is always called with the
         whole batch (rows of stopped trials held fixed), so it may close over per-trial data such
-        as each trial's own concentrations.
+        as each trial's own concentrations; see ``rowwise`` for models that do not.
     theta0 : array_like, (T, P) or (P,)
         Starting values (a single row is shared by every trial).
     y : array_like, (T, N) or (N,)
@@ -307,6 +296,10 @@ def fit_many(
         bound that the descent direction pushes against is held fixed for the step (a simple
         active-set rule, cf. Bertsekas 1982, SIAM J. Control Optim. 20:221). Covariances of
         estimates that end on a bound are not meaningful.
+    rowwise : bool
+        True when ``model`` (and ``jac``) compute each row from that row of θ alone, closing over no
+        per-trial data: they are then called with the rows of the trials still running only, which
+        saves the work on finished trials. False (default): always the whole batch.
 
     Returns
     -------
@@ -338,20 +331,10 @@ def fit_many(
     if np.any((theta < lo) | (theta > hi)):
         raise FitError("theta0 lies outside [lower, upper]; start inside the bounds.")
     weigh_res, weigh_jac = _weighting(sigma, whiten, n_trials, n_obs)
-
-    def call_model(th):
-        return _checked(model(th), (n_trials, n_obs), "model")
-
     if callable(jac):
         jac_kind = "analytic"
-
-        def call_jac(th, f0):
-            return _checked(jac(th), (n_trials, n_obs, n_params), "jac")
     elif jac in (None, "2-point", "3-point"):
         jac_kind = "3-point" if jac == "3-point" else "2-point"
-
-        def call_jac(th, f0):
-            return _finite_difference_jac(call_model, th, f0, lo, hi, central=jac_kind == "3-point")
     else:
         raise FitError(f"jac must be a callable, '2-point', '3-point' or None; got {jac!r}.")
     # Singular values below rcond·s_max are indistinguishable from zero given how accurately the
@@ -362,132 +345,219 @@ def fit_many(
         "2-point": 10.0 * np.sqrt(_EPS),
         "3-point": 10.0 * _EPS ** (2.0 / 3.0),
     }[jac_kind]
-
+    tols = (int(max_iter), float(xtol), float(ftol), float(gtol))
     with np.errstate(all="ignore"):  # wild trial points may overflow; such steps are rejected
-        return _drive(
-            call_model,
-            call_jac,
+        ev = _Evaluator(model, jac, jac_kind, bool(rowwise), (n_trials, n_obs, n_params), lo, hi)
+        b = ev.start(theta, yy, weigh_res)
+        _iterate(b, ev, yy, weigh_res, weigh_jac, lo, hi, tols, rcond)
+        return _finish(b, ev, weigh_jac, dof, bool(scale_cov), rcond)
+
+
+class _Evaluator:
+    """The model and its Jacobian at chosen rows of the batch.
+
+    ``rowwise`` models are called with those rows only; the others always with the whole batch, the
+    rows not asked for holding their current parameters (final ones for stopped trials)."""
+
+    def __init__(self, model, jac, kind: str, rowwise: bool, shape, lo, hi):
+        self.model, self.jac, self.kind, self.rowwise = model, jac, kind, rowwise
+        self.n_trials, self.n_obs, self.n_params = shape
+        self.lo, self.hi = lo, hi
+        self.batch: Batch | None = None
+
+    def _full(self, th: np.ndarray, rows: np.ndarray, current: np.ndarray) -> np.ndarray:
+        if rows.size == self.n_trials:
+            return th
+        full = current.copy()
+        full[rows] = th
+        return full
+
+    def _call_model(self, th: np.ndarray) -> np.ndarray:
+        return _checked(self.model(th), (th.shape[0], self.n_obs), "model")
+
+    def model_rows(self, th: np.ndarray, rows: np.ndarray) -> np.ndarray:
+        if self.rowwise:
+            return self._call_model(th)
+        assert self.batch is not None
+        full = self._call_model_whole(self._full(th, rows, self.batch.theta))
+        return full if rows.size == self.n_trials else full.take(rows, axis=0)
+
+    def _call_model_whole(self, th: np.ndarray) -> np.ndarray:
+        return _checked(self.model(th), (self.n_trials, self.n_obs), "model")
+
+    def jac_rows(self, th: np.ndarray, rows: np.ndarray, f_rows: np.ndarray) -> np.ndarray:
+        if not self.rowwise:
+            assert self.batch is not None
+            th = self._full(th, rows, self.batch.theta)
+            f_rows = self._full(f_rows, rows, self.batch.f)
+        if self.kind == "analytic":
+            out = _checked(self.jac(th), (th.shape[0], self.n_obs, self.n_params), "jac")
+        else:
+            call = self._call_model if self.rowwise else self._call_model_whole
+            out = _finite_difference_jac(call, th, f_rows, self.lo, self.hi, central=self.kind == "3-point")
+        return out if self.rowwise or rows.size == self.n_trials else out.take(rows, axis=0)
+
+    def start(self, theta: np.ndarray, yy: np.ndarray, weigh_res) -> Batch:
+        """Model, residuals and (for the running trials) the Jacobian at the starting values."""
+        n_trials = self.n_trials
+        all_rows = np.arange(n_trials)
+        f = self._call_model(theta) if self.rowwise else self._call_model_whole(theta)
+        r = weigh_res(f - yy, all_rows)
+        fnorm = _row_norms(r)
+        status = np.where(np.isfinite(fnorm), 0, -1)
+        b = Batch(
             theta,
-            yy,
-            weigh_res,
-            weigh_jac,
-            lo,
-            hi,
-            dof,
-            bool(scale_cov),
-            int(max_iter),
-            float(xtol),
-            float(ftol),
-            float(gtol),
-            rcond,
+            f,
+            r,
+            fnorm,
+            status,
+            np.zeros(n_trials, dtype=int),
+            np.zeros((n_trials, self.n_obs, self.n_params)),
+            np.zeros(n_trials, dtype=bool),
+            np.zeros(n_trials),
         )
-
-
-def _drive(
-    call_model,
-    call_jac,
-    theta,
-    yy,
-    weigh_res,
-    weigh_jac,
-    lo,
-    hi,
-    dof,
-    scale_cov,
-    max_iter,
-    xtol,
-    ftol,
-    gtol,
-    rcond,
-) -> FitResult:
-    """The batched Moré (1978) iteration; every per-trial quantity is an array over trials."""
-    n_trials, n_params = theta.shape
-    all_rows = np.arange(n_trials)
-    f = call_model(theta)
-    r = weigh_res(f - yy, all_rows)
-    fnorm = _row_norms(r)
-    status = np.zeros(n_trials, dtype=int)
-    status[~np.isfinite(fnorm)] = -1
-    n_iter = np.zeros(n_trials, dtype=int)
-    diag = np.ones((n_trials, n_params))  # Moré's D, grown as max of Jacobian column norms
-    delta = np.zeros(n_trials)  # trust radius, in the scaled variables D θ
-    xnorm = np.zeros(n_trials)  # ‖D θ‖
-    par = np.zeros(n_trials)  # λ of the last step, the next λ search starts from it
-    first = np.ones(n_trials, dtype=bool)  # no step accepted yet
-    fresh = np.ones(n_trials, dtype=bool)  # has a new Jacobian to factorise
-    sv = np.ones((n_trials, n_params))
-    bvec = np.zeros((n_trials, n_params))  # Vᵀ Jsᵀ r, the gradient in the singular basis
-    vt = np.broadcast_to(np.eye(n_params), (n_trials, n_params, n_params)).copy()
-    keep = np.ones((n_trials, n_params), dtype=bool)
-    bounded = bool(np.isfinite(lo).any() or np.isfinite(hi).any())
-    jac_raw = call_jac(theta, f) if np.any(status == 0) else None
-
-    while True:
-        # --- factorise the Jacobian of trials that moved (or just started) ---
-        rows = np.flatnonzero(fresh & (status == 0))
+        self.batch = b
+        rows = np.flatnonzero(status == 0)
         if rows.size:
-            assert jac_raw is not None  # computed whenever a trial is still running
-            jw = weigh_jac(_take(jac_raw, rows), rows)
+            b.jac[rows] = self.jac_rows(theta.take(rows, axis=0), rows, f.take(rows, axis=0))
+            b.jac_at[rows] = True
+        return b
+
+
+def _iterate(b: Batch, ev: _Evaluator, yy, weigh_res, weigh_jac, lo, hi, tol, rcond) -> None:
+    """Passes over the running trials until every one has stopped; updates ``b`` in place.
+
+    Each pass moves every running trial by one step, one model call for all of them: a Gauss–Newton
+    step for the trials on the fast path, a trust-region step (Moré 1978) for the others. A trial moves
+    to the trust-region path for good as soon as its Gauss–Newton step is not clean."""
+    n_trials = b.theta.shape[0]
+    tr = _TrustRegion(b, lo, hi, rcond, tol)
+    slow = np.full(n_trials, not _FAST_PATH)  # trials on the trust-region path
+    no_rows = np.zeros(0, dtype=int)
+    while True:
+        fast = np.flatnonzero((b.status == 0) & ~slow)
+        prop = None
+        if fast.size:
+            tired = b.n_iter[fast] >= gauss_newton.MAX_PASSES
+            slow[fast[tired]] = True
+            prop, out = gauss_newton.propose(b, fast[~tired], weigh_jac, lo, hi, tol[3])
+            slow[out] = True
+        tr.factorise(np.flatnonzero((b.status == 0) & slow & tr.fresh), weigh_jac)
+        act = np.flatnonzero((b.status == 0) & slow)
+        g_rows = no_rows if prop is None else prop.act
+        if act.size == 0 and g_rows.size == 0:
+            break
+        th_tr = tr.propose(act) if act.size else np.zeros((0, b.theta.shape[1]))
+        if prop is None or not act.size:
+            rows, th = (act, th_tr) if prop is None else (g_rows, prop.theta)
+            f_new = ev.model_rows(th, rows)
+            y_rows = _take(yy, rows)
+        else:  # both paths: one call, rows in batch order
+            rows = np.concatenate([g_rows, act])
+            order = np.argsort(rows, kind="stable")
+            back = np.empty_like(order)
+            back[order] = np.arange(order.size)
+            f_new = ev.model_rows(np.concatenate([prop.theta, th_tr])[order], rows[order])[back]
+            y_rows = yy.take(rows, axis=0)
+        r_new = weigh_res(f_new - y_rows, rows)
+        k = g_rows.size
+        if prop is not None and k:
+            moved, rejected = gauss_newton.conclude(b, prop, f_new[:k], r_new[:k], tol)
+            slow[gauss_newton.damp(b, moved, rejected)] = True
+        if act.size:
+            tr.conclude(act, th_tr, f_new[k:], r_new[k:])
+        need = np.flatnonzero((b.status == 0) & ~b.jac_at)
+        if need.size:
+            _put(b.jac, need, ev.jac_rows(_take(b.theta, need), need, _take(b.f, need)))
+            _put(b.jac_at, need, True)
+
+
+class _TrustRegion:
+    """The batched Moré (1978) iteration: per-trial scaling D, trust radius Δ and damping λ, for the
+    trials that leave the Gauss–Newton path. Every per-trial quantity is an array over all trials."""
+
+    def __init__(self, b: Batch, lo, hi, rcond: float, tol) -> None:
+        n_trials, n_params = b.theta.shape
+        self.b, self.lo, self.hi, self.rcond, self.tol = b, lo, hi, rcond, tol
+        self.diag = np.ones((n_trials, n_params))  # Moré's D, grown as max of Jacobian column norms
+        self.delta = np.zeros(n_trials)  # trust radius, in the scaled variables D θ
+        self.xnorm = np.zeros(n_trials)  # ‖D θ‖
+        self.par = np.zeros(n_trials)  # λ of the last step, the next λ search starts from it
+        self.first = np.ones(n_trials, dtype=bool)  # no step accepted yet
+        self.fresh = np.ones(n_trials, dtype=bool)  # has a new Jacobian to factorise
+        self.sv = np.ones((n_trials, n_params))
+        self.bvec = np.zeros((n_trials, n_params))  # Vᵀ Jsᵀ r, the gradient in the singular basis
+        self.vt = np.broadcast_to(np.eye(n_params), (n_trials, n_params, n_params)).copy()
+        self.keep = np.ones((n_trials, n_params), dtype=bool)
+        self.bounded = bool(np.isfinite(lo).any() or np.isfinite(hi).any())
+        self.lam = np.zeros(0)  # λ of the steps last proposed
+
+    def factorise(self, rows: np.ndarray, weigh_jac) -> None:
+        """SVD of the scaled Jacobians of trials that moved (or just joined), and Moré's gtol test."""
+        b, lo, hi = self.b, self.lo, self.hi
+        if rows.size:
+            jw = weigh_jac(_take(b.jac, rows), rows)
             colnorm = np.sqrt(np.einsum("knp,knp->kp", jw, jw))  # NaN/inf if any entry is
             bad = ~_all_p(np.isfinite(colnorm))
             if bad.any():
-                status[rows[bad]] = -1
+                b.status[rows[bad]] = -1
                 rows, jw, colnorm = rows[~bad], jw[~bad], colnorm[~bad]
-        if rows.size:
-            new = _take(first, rows)
-            d = np.where(
-                new[:, None], np.where(colnorm > 0, colnorm, 1.0), np.maximum(_take(diag, rows), colnorm)
-            )
-            _put(diag, rows, d)
-            js = jw / d[:, None, :]
-            if bounded:
-                # a parameter on its bound whose descent direction points out of the box is held
-                # fixed for this step (its column dropped), so the others take the step that is
-                # optimal given it, instead of a clipped copy of the unconstrained step
-                th_rows, grad = _take(theta, rows), np.einsum("knp,kn->kp", js, _take(r, rows))
-                frozen = ((th_rows <= lo) & (grad > 0)) | ((th_rows >= hi) & (grad < 0))
-                js = np.where(frozen[:, None, :], 0.0, js)
-            s, v_t, b = _factorise(js, _take(r, rows))
-            _put(sv, rows, s)
-            _put(vt, rows, v_t)
-            _put(bvec, rows, b)
-            _put(keep, rows, s > rcond * _max_p(s)[:, None])
-            xn = _row_norms(d * _take(theta, rows))
-            _put(xnorm, rows, xn)
-            dl = np.where(new, np.where(xn > 0, _FACTOR * xn, _FACTOR), _take(delta, rows))
-            _put(delta, rows, dl)
-            # gtol: largest |cos| between the residual vector and a Jacobian column (Moré 1978);
-            # Jᵀr = D Jsᵀr = D V b
-            jtr = np.abs(d * np.einsum("kij,ki->kj", v_t, b))
-            fn = _take(fnorm, rows)
-            denom = np.where(colnorm > 0, colnorm, np.inf) * fn[:, None]
-            gnorm = np.where(fn > 0, _max_p(jtr / np.where(denom > 0, denom, np.inf)), 0.0)
-            code = np.where(gnorm <= gtol, 4, np.where(gnorm <= _EPS, 8, 0))
-            _put(status, rows, code)
-            _put(fresh, rows, False)
-        act = np.flatnonzero(status == 0)
-        if act.size == 0:
-            break
+        if not rows.size:
+            return
+        new = _take(self.first, rows)
+        d = np.where(
+            new[:, None], np.where(colnorm > 0, colnorm, 1.0), np.maximum(_take(self.diag, rows), colnorm)
+        )
+        _put(self.diag, rows, d)
+        js = jw / d[:, None, :]
+        if self.bounded:
+            # a parameter on its bound whose descent direction points out of the box is held
+            # fixed for this step (its column dropped), so the others take the step that is
+            # optimal given it, instead of a clipped copy of the unconstrained step
+            th_rows, grad = _take(b.theta, rows), np.einsum("knp,kn->kp", js, _take(b.r, rows))
+            frozen = ((th_rows <= lo) & (grad > 0)) | ((th_rows >= hi) & (grad < 0))
+            js = np.where(frozen[:, None, :], 0.0, js)
+        s, v_t, bb = _factorise(js, _take(b.r, rows))
+        _put(self.sv, rows, s)
+        _put(self.vt, rows, v_t)
+        _put(self.bvec, rows, bb)
+        _put(self.keep, rows, s > self.rcond * _max_p(s)[:, None])
+        xn = _row_norms(d * _take(b.theta, rows))
+        _put(self.xnorm, rows, xn)
+        dl = np.where(new, np.where(xn > 0, _FACTOR * xn, _FACTOR), _take(self.delta, rows))
+        _put(self.delta, rows, dl)
+        # gtol: largest |cos| between the residual vector and a Jacobian column (Moré 1978);
+        # Jᵀr = D Jsᵀr = D V b
+        jtr = np.abs(d * np.einsum("kij,ki->kj", v_t, bb))
+        fn = _take(b.fnorm, rows)
+        denom = np.where(colnorm > 0, colnorm, np.inf) * fn[:, None]
+        gnorm = np.where(fn > 0, _max_p(jtr / np.where(denom > 0, denom, np.inf)), 0.0)
+        code = np.where(gnorm <= self.tol[3], 4, np.where(gnorm <= _EPS, 8, 0))
+        _put(b.status, rows, code)
+        _put(self.fresh, rows, False)
 
-        # --- trial step for every running trial ---
-        s, b, dg = _take(sv, act), _take(bvec, act), _take(diag, act)
-        d_act = _take(delta, act)
-        first_act = _take(first, act)
-        lam, c = _lm_parameter(s, b, d_act, _take(par, act), _take(keep, act))
-        vt_act = _take(vt, act)
-        q = -np.einsum("kij,ki->kj", vt_act, c)  # scaled step D p = −V c
-        th_old = _take(theta, act)
-        th_new = np.clip(th_old + q / dg, lo, hi)
-        q = dg * (th_new - th_old)  # the projected step actually taken
+    def propose(self, act: np.ndarray) -> np.ndarray:
+        """The trial points of the running trials ``act``: Moré's λ for the trust radius, projected
+        onto the box."""
+        s, bb, dg = _take(self.sv, act), _take(self.bvec, act), _take(self.diag, act)
+        lam, c = _lm_parameter(s, bb, _take(self.delta, act), _take(self.par, act), _take(self.keep, act))
+        self.lam = lam
+        q = -np.einsum("kij,ki->kj", _take(self.vt, act), c)  # scaled step D p = −V c
+        return np.clip(_take(self.b.theta, act) + q / dg, self.lo, self.hi)
+
+    def conclude(self, act: np.ndarray, th_new: np.ndarray, f_act: np.ndarray, r_try: np.ndarray) -> None:
+        """Accept or reject the steps to ``th_new`` (model ``f_act``, weighted residuals ``r_try``), update
+        the trust radii and apply the convergence tests (Moré 1978; MINPACK lmder)."""
+        b = self.b
+        max_iter, xtol, ftol, _ = self.tol
+        s, bb, dg, lam = _take(self.sv, act), _take(self.bvec, act), _take(self.diag, act), self.lam
+        vt_act = _take(self.vt, act)
+        q = dg * (th_new - _take(b.theta, act))  # the projected step actually taken
         pnorm = _row_norms(q)
-        d_act = np.where(first_act, np.minimum(d_act, pnorm), d_act)
-        theta_try = theta.copy()
-        _put(theta_try, act, th_new)
-        f_try = call_model(theta_try)
-        f_act = _take(f_try, act)
-        r_try = weigh_res(f_act - _take(yy, act), act)
-        n_iter[act] += 1
-        fn0 = _take(fnorm, act)
+        d_act = _take(self.delta, act)
+        d_act = np.where(_take(self.first, act), np.minimum(d_act, pnorm), d_act)
+        b.n_iter[act] += 1
+        fn0 = _take(b.fnorm, act)
         fn1 = _row_norms(r_try)
         finite1 = np.isfinite(fn1)
         actred = np.where(finite1 & (0.1 * fn1 < fn0), 1.0 - (fn1 / fn0) ** 2, -1.0)
@@ -496,7 +566,7 @@ def _drive(
         # projected step too)
         w = np.einsum("kij,kj->ki", vt_act, q)
         fn0_sq = np.where(fn0 > 0, fn0**2, 1.0)
-        bw = _dot_p(b, w)
+        bw = _dot_p(bb, w)
         sw = s * w
         prered = -(2.0 * bw + _dot_p(sw, sw)) / fn0_sq
         dirder = bw / fn0_sq
@@ -508,26 +578,26 @@ def _drive(
         mu = np.minimum(mu, 0.5)
         grow = ~shrink & ((lam == 0) | (ratio >= 0.75))
         new_delta = np.where(shrink, mu * np.minimum(d_act, pnorm / 0.1), np.where(grow, pnorm / 0.5, d_act))
-        _put(delta, act, new_delta)
-        _put(par, act, np.where(shrink, lam / mu, np.where(grow, 0.5 * lam, lam)))
+        _put(self.delta, act, new_delta)
+        _put(self.par, act, np.where(shrink, lam / mu, np.where(grow, 0.5 * lam, lam)))
         accept = (ratio >= _ACCEPT_RATIO) & finite1
-        xn = _take(xnorm, act)
+        xn = self.xnorm.take(act, axis=0)
         if accept.all():
             acc, sel = act, slice(None)
         else:
             acc, sel = act[accept], accept
         if acc.size:
-            _put(theta, acc, th_new[sel])
-            _put(f, acc, f_act[sel])
-            _put(r, acc, r_try[sel])
-            _put(fnorm, acc, fn1[sel])
+            _put(b.theta, acc, th_new[sel])
+            _put(b.f, acc, f_act[sel])
+            _put(b.r, acc, r_try[sel])
+            _put(b.fnorm, acc, fn1[sel])
             xn_acc = _row_norms(dg[sel] * th_new[sel])
-            _put(xnorm, acc, xn_acc)
+            _put(self.xnorm, acc, xn_acc)
             xn[accept] = xn_acc  # xn is a copy (take)
-            _put(first, acc, False)
-            _put(fresh, acc, True)
-
-        # --- convergence tests (Moré 1978; MINPACK lmder), on accepted and rejected steps ---
+            _put(self.first, acc, False)
+            _put(self.fresh, acc, True)
+            b.jac_at[acc] = False
+        # --- convergence tests, on accepted and rejected steps ---
         half_ratio_ok = 0.5 * ratio <= 1.0
         f_ok = (np.abs(actred) <= ftol) & (prered <= ftol) & half_ratio_ok
         x_ok = new_delta <= xtol * xn
@@ -535,19 +605,33 @@ def _drive(
         f_eps = (np.abs(actred) <= _EPS) & (prered <= _EPS) & half_ratio_ok
         x_eps = new_delta <= _EPS * xn
         code = np.where(code == 0, np.where(f_eps, 6, np.where(x_eps, 7, 0)), code)
-        code = np.where((code == 0) & (_take(n_iter, act) >= max_iter), 5, code)
-        _put(status, act, code)
-        if np.any(fresh & (status == 0)):
-            jac_raw = call_jac(theta, f)
+        code = np.where((code == 0) & (_take(b.n_iter, act) >= max_iter), 5, code)
+        _put(b.status, act, code)
 
-    # --- covariance from the Jacobian at the final estimates (one more batched call) ---
-    chi2 = fnorm**2
+
+def _finish(b: Batch, ev: _Evaluator, weigh_jac, dof: int, scale_cov: bool, rcond: float) -> FitResult:
+    """Covariance from the Jacobian at the final estimates (computed only where not yet in hand)."""
+    theta, status, n_trials, n_params = b.theta, b.status, ev.n_trials, ev.n_params
+    chi2 = b.fnorm**2
     cov = np.full((n_trials, n_params, n_params), np.nan)
     finite = _all_p(np.isfinite(theta)) & np.isfinite(chi2)
+    missing = np.flatnonzero(finite & ~b.jac_at)
+    if missing.size:
+        b.jac[missing] = ev.jac_rows(_take(theta, missing), missing, _take(b.f, missing))
     rows = np.flatnonzero(finite)
     if rows.size:
-        jw = weigh_jac(_take(call_jac(theta, f), rows), rows)
-        colnorm = np.sqrt(np.einsum("knp,knp->kp", jw, jw))
+        jw = weigh_jac(_take(b.jac, rows), rows)
+        # well-conditioned rows (most of a Monte Carlo batch): the inverse of the column-scaled normal
+        # matrix is accurate to ε / pivot; the others take the SVD route below
+        c, inv, pivot = gauss_newton.scaled_inverse(jw)
+        easy = (pivot > _COV_PIVOT_MIN) & _all_p(c > 0)
+        if easy.any():
+            e_rows, d = rows[easy], c[easy]
+            unit = inv[easy] / (d[:, :, None] * d[:, None, :])
+            if scale_cov:
+                unit = unit * (_take(chi2, e_rows) / dof)[:, None, None]
+            _put(cov, e_rows, unit)
+        rows, jw, colnorm = rows[~easy], jw[~easy], c[~easy]
         ok = _all_p(np.isfinite(colnorm))
         rows, jw, colnorm = rows[ok], jw[ok], colnorm[ok]
     if rows.size:
@@ -571,7 +655,7 @@ def _drive(
         se=_frozen(se),
         chi2=_frozen(chi2),
         dof=int(dof),
-        n_iter=_frozen(n_iter),
+        n_iter=_frozen(b.n_iter),
         converged=_frozen(converged),
         status=_frozen(status),
     )

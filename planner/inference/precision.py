@@ -139,6 +139,12 @@ class ReadingModel:
     totals_M: np.ndarray
     ions_M: np.ndarray
 
+    @property
+    def rowwise(self) -> bool:
+        """True when every trial reads the same tubes: ``f`` and ``jac`` then take any subset of the
+        trials' rows (see :func:`planner.inference.lm.fit_many`)."""
+        return self.totals_M.ndim == 2
+
     def bounds(self) -> tuple[np.ndarray, np.ndarray]:
         """Box for the fit: log β within LOG_BETA_RANGE, ε ≥ 0."""
         lo = np.full(self.params.size, -np.inf)
@@ -173,17 +179,23 @@ class ReadingModel:
     def jac(self, theta: np.ndarray) -> np.ndarray:
         theta = np.atleast_2d(theta)
         st, eps, _, _ = self._state(theta)
-        der = absorbance_derivatives(self.model, st, eps)
-        cols = []
-        for p in range(self.params.size):
-            k = self.params.kind[p]
-            if k == 0:
-                cols.append(der.dA_dlog_beta[..., self.params.index[p]])
-            elif k == 1:
-                cols.append(der.dA_depsilon[..., self.params.index[p]])
-            else:
-                cols.append(np.ones(st.absorbance.shape))
-        return np.stack(cols, axis=-1)
+        return parameter_jacobian(self.params, absorbance_derivatives(self.model, st, eps))
+
+
+def parameter_jacobian(params: Parameters, der) -> np.ndarray:
+    """dA/dθ (..., n, P) of the fitted parameters, from the absorbance derivatives ``der``
+    (:func:`planner.model.jacobians.absorbance_derivatives`) of the same state."""
+    shape = der.dA_dlog_beta.shape[:-1]
+    cols = []
+    for p in range(params.size):
+        k = params.kind[p]
+        if k == 0:
+            cols.append(der.dA_dlog_beta[..., params.index[p]])
+        elif k == 1:
+            cols.append(der.dA_depsilon[..., params.index[p]])
+        else:
+            cols.append(np.ones(shape))
+    return np.stack(cols, axis=-1) if cols else np.zeros(shape + (0,))
 
 
 def whitening(cov: np.ndarray) -> np.ndarray:
@@ -236,9 +248,8 @@ class Whitening:
         x = np.asarray(x, dtype=float)
         return self.apply(x) if x.ndim == 1 else self.apply_jac(x)
 
-    @property
-    def T(self) -> _WhiteningT:  # noqa: N802 - reads as the transpose, as for an array
-        return _WhiteningT(self)
+    # ``x @ W.T`` reads as for an array: the rows whitened
+    T = property(lambda self: _WhiteningT(self))
 
     def dense(self) -> np.ndarray:
         return self.apply_jac(np.eye(self.d.size))
@@ -357,7 +368,15 @@ def monte_carlo(
         theta0 = np.broadcast_to(params.guess, (m, params.size)).copy()
         lo, hi = reading.bounds()
         res = fit_many(
-            reading.f, theta0, sim.absorbance, jac=reading.jac, whiten=W, scale_cov=False, lower=lo, upper=hi
+            reading.f,
+            theta0,
+            sim.absorbance,
+            jac=reading.jac,
+            whiten=W,
+            scale_cov=False,
+            lower=lo,
+            upper=hi,
+            rowwise=reading.rowwise,
         )
         est[done : done + m] = np.where(res.converged[:, None], res.theta, np.nan)
         ok[done : done + m] = res.converged & np.all(np.isfinite(res.theta), axis=1)

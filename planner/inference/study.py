@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..model.compiled import Model
+from ..model.spectra import Spectra
 from ..uncertainty.bench import Bench
 from .precision import Parameters
 from .priors import Nodes, prior_nodes
@@ -42,6 +43,8 @@ class Study:
         should be able to tell from the main model (empty: no model check).
     check_weight : the SE cost the model check may spend: the guarded design's SE of the target at most
         ×(1 + check_weight) the target-only design's (0: no guard).
+    spectra : the species' spectra and the instrument over the window when the plan records whole
+        spectra (:class:`planner.model.spectra.Spectra`), else None (one wavelength).
     """
 
     title: str
@@ -58,6 +61,7 @@ class Study:
     ionic_strength_tolerance: float
     alternatives: tuple[tuple[str, Model], ...] = ()
     check_weight: float = 0.0
+    spectra: Spectra | None = None
 
     def __post_init__(self) -> None:
         # "frozen" holds for the arrays too: a job that changed the model in place would silently change

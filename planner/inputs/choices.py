@@ -21,5 +21,9 @@ SERIES_METHOD_OPTIONS = {
 }
 """Which options each series method takes (the command refuses the others rather than ignore them)."""
 
+CARD_SERIES = ("binding-curve", "mole-ratio", "job")
+"""The kinds of lab ``kplan cards`` makes a teaching series for (``design.card_series``): a binding curve
+(one reagent constant, the other rising), a mole-ratio series, or a Job (continuous-variation) series."""
+
 PAPERS = {"A4": "A4", "Letter": "letter"}
 """Paper names accepted (CSS page sizes: ISO 216 A4, 210 × 297 mm; US Letter, 8.5 × 11 in)."""

@@ -45,6 +45,11 @@ MAX_CLASS_ROWS = 100_000  # rows of a key or results file: 2000 students with 50
 MAX_CLASS_CSV_BYTES = 20_000_000  # a key or results file of MAX_CLASS_ROWS rows
 MAX_ROSTER_BYTES = 1_000_000  # a roster of MAX_STUDENTS students
 MAX_CELL_CHARS = 1000  # characters in one cell of any table
+MAX_WAVELENGTHS = 4001  # points of a spectrum: 400 nm at 0.1 nm, or 100–2000 nm at about 0.5 nm
+MAX_EPSILON_ROWS = 20_000  # wavelengths of an ε table: 100–2000 nm at 0.1 nm
+MAX_EPSILON_BYTES = 2_000_000  # an ε table of MAX_EPSILON_ROWS rows and a handful of species
+MAX_SPECTRA_ROWS = 500_000  # readings in a long spectra table: 200 tubes × 2500 wavelengths
+MAX_SPECTRA_BYTES = 16_000_000  # a long spectra table of MAX_SPECTRA_ROWS rows
 
 
 def check_count(value: object, name: str, limit: int, *, least: int = 1, fix: str = "") -> int:

@@ -22,6 +22,7 @@ import tomllib
 from pydantic import (
     BaseModel,
     Field,
+    PrivateAttr,
     ValidationError,
     field_validator,
     model_validator,
@@ -66,7 +67,8 @@ from .plan_fields import (
     _num,
     _Strict,
 )
-from .plan_parts import Alternative, Titration, check_formula
+from .plan_parts import Alternative, Titration, check_formula, check_spectra_keys
+from .spectra_table import SpectraTable, attach_spectra_table
 from .text import check_identifier
 
 COMPONENTS = ("M", "L", "H")
@@ -141,6 +143,24 @@ class Optics(_Strict):
     bandwidth_nm: _num(0, 500, "nm", lo_open=True) | None = None
     epsilon: dict[str, Epsilon] = Field(default_factory=dict)
     bands: dict[str, Band] = Field(default_factory=dict)
+    # whole spectra (planner.model.spectra): an ε table and/or the bands over an instrument window
+    spectra: Text | None = None
+    window_nm: tuple[Wavelength, Wavelength] | None = None
+    step_nm: _num(0, 100, "nm", lo_open=True) = 1.0
+    edge_rise: _num(1, 1000) = 2.0
+    spectra_rsd: dict[str, RelSD] = Field(default_factory=dict)
+
+    @field_validator("window_nm")
+    @classmethod
+    def _window(cls, v: tuple[float, float] | None) -> tuple[float, float] | None:
+        if v is not None and not v[0] < v[1]:
+            raise ValueError(f"{v[0]:g} nm must be below {v[1]:g} nm, e.g. window_nm = [400, 700]")
+        return v
+
+    @property
+    def has_spectra(self) -> bool:
+        """True when the plan describes whole spectra (an ε table or a window over the bands)."""
+        return self.spectra is not None or self.window_nm is not None
 
     @field_validator("linear_range")
     @classmethod
@@ -347,6 +367,7 @@ class DesignSettings(_Strict):
     check: Literal["auto", "none"] = "auto"
     check_weight: _num(0, 1, hi_open=True) = 0.25
     alternative: list[Alternative] = Field(default_factory=list, max_length=MAX_ALTERNATIVES)
+    card_series: Literal["binding-curve", "mole-ratio", "job"] = "binding-curve"
 
 
 class Plan(_Strict):
@@ -362,6 +383,12 @@ class Plan(_Strict):
     medium: Medium = Medium()
     design: DesignSettings = DesignSettings()
     titration: Titration | None = None
+    _spectra_table: SpectraTable | None = PrivateAttr(default=None)
+
+    @property
+    def spectra_table(self) -> SpectraTable | None:
+        """The ε table named by ``optics.spectra``, read when the plan was loaded (None without one)."""
+        return self._spectra_table
 
     # -- cross-field checks, each naming its key ---------------------------------------------------
     @model_validator(mode="after")
@@ -500,6 +527,7 @@ class Plan(_Strict):
                     f"{t.max_volume_mL:g} mL is more than the cuvette holds (glassware.tube_volume = "
                     f"{self.glassware.tube_volume_mL:g} mL): at most the tube volume",
                 )
+        check_spectra_keys(self, set(names) | reserved - {"H"})
 
     # -- convenience -------------------------------------------------------------------------------
     @property
@@ -642,11 +670,12 @@ def load_plan(path: str | Path) -> Plan:
         missing_hint=", or make one with 'kplan new'",
         too_large_hint="a plan is a short TOML file; check that this is the right file",
     )
-    return parse_plan_text(text, source=str(p))
+    return parse_plan_text(text, source=str(p), base_dir=p.parent)
 
 
-def parse_plan_text(text: str, source: str = "<plan>") -> Plan:
-    """Parse and validate the text of a plan; ``source`` names it in messages."""
+def parse_plan_text(text: str, source: str = "<plan>", *, base_dir: str | Path | None = None) -> Plan:
+    """Parse and validate the text of a plan; ``source`` names it in messages. Files the plan names
+    (``optics.spectra``) are read relative to ``base_dir`` (default: the working folder)."""
     # editors on some systems start UTF-8 files with a byte-order mark, which TOML does not allow
     text = text.removeprefix("\ufeff")
     try:
@@ -666,7 +695,7 @@ def parse_plan_text(text: str, source: str = "<plan>") -> Plan:
             f"{source}: arrays or tables nested {depth} levels deep; at most {MAX_DEPTH}: "
             "a plan needs only a few",
         )
-    return parse_plan(data)
+    return attach_spectra_table(parse_plan(data), Path(base_dir) if base_dir is not None else Path())
 
 
 def _depth(data: Any) -> int:

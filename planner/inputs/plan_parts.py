@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from pydantic import Field, field_validator, model_validator
 
-from .limits import MAX_ADDITIONS
+from .limits import MAX_ADDITIONS, MAX_WAVELENGTHS
 from .plan_fields import (
     Epsilon_,
     LogBeta,
@@ -74,3 +74,45 @@ class Titration(_Strict):
                 f"{self.start_volume_mL:g} mL: leave room for the additions",
             )
         return self
+
+
+def check_spectra_keys(plan, absorbers: set[str]) -> None:
+    """The whole-spectrum keys of ``[optics]`` against the rest of the plan, each error naming its key.
+
+    ``optics.window_nm`` without a table needs ``[optics.bands]``; ``spectra_rsd`` names absorbers; the
+    window holds at most :data:`MAX_WAVELENGTHS` points; spectra and an in-cuvette titration do not mix
+    (yet). The table itself is checked when it is read
+    (:func:`planner.inputs.spectra_table.attach_spectra_table`).
+    """
+    o = plan.optics
+    if not (o.spectra is not None or o.window_nm is not None):
+        if o.spectra_rsd:
+            raise PlanError(
+                "optics.spectra_rsd", "is for whole spectra: give optics.spectra or window_nm too"
+            )
+        return
+    if plan.titration is not None:
+        raise PlanError(
+            "optics.spectra" if o.spectra is not None else "optics.window_nm",
+            "whole spectra are planned for separately made tubes; an in-cuvette titration reads one "
+            "wavelength: remove the spectra keys or the [titration] table",
+        )
+    if o.spectra is None and not o.bands:
+        raise PlanError(
+            "optics.window_nm",
+            "a window needs the species' spectra: give optics.spectra = 'eps.csv' (an ε table) or "
+            "[optics.bands] with a Gaussian band per absorbing species",
+        )
+    for key in o.spectra_rsd:
+        if key not in absorbers:
+            raise PlanError(f"optics.spectra_rsd.{key}", f"'{key}' is not a species, M or L")
+    if o.window_nm is not None:
+        n = int(round((o.window_nm[1] - o.window_nm[0]) / o.step_nm)) + 1
+        if n > MAX_WAVELENGTHS:
+            raise PlanError(
+                "optics.step_nm",
+                f"the window holds {n} wavelengths at {o.step_nm:g} nm; at most {MAX_WAVELENGTHS}: "
+                f"take a larger step",
+            )
+        if n < 2:
+            raise PlanError("optics.step_nm", "the step is wider than the window: take a smaller step")

@@ -54,3 +54,14 @@ def parse_readings_csv(text: str, plan: Plan, source: str = "<readings>") -> Rea
 def read_readings_csv(path: str | Path, plan: Plan) -> Readings:
     """Read a readings CSV (see :func:`parse_readings_csv`)."""
     return parse_readings_csv(read_table_text(path, READINGS), plan, str(path))
+
+
+def readings_to_csv(recipe: Recipe, plan: Plan, absorbance: np.ndarray) -> str:
+    """A readings CSV (the recipe columns plus ``absorbance``) that :func:`parse_readings_csv` reads back;
+    a NaN absorbance is written as an empty cell, to be filled in (the file is refused until it is)."""
+    from .recipe import recipe_to_csv
+
+    lines = recipe_to_csv(recipe, plan).splitlines()
+    cells = ["" if not np.isfinite(a) else repr(float(a)) for a in np.asarray(absorbance, dtype=float)]
+    rows = [f"{ln},{c}" for ln, c in zip(lines[1:], cells, strict=True)]
+    return "\n".join([lines[0] + ",absorbance", *rows]) + "\n"

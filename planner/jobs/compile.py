@@ -9,20 +9,20 @@ together a :class:`~planner.inference.study.Study`. Nothing below this layer tak
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import replace
 
 import numpy as np
 
 from ..inference.precision import free_parameters
 from ..inference.study import Study
-from ..inputs.plan import PISTON_DISPENSERS, Dispenser, Plan, PlanError, ion_charge, unknown_name
+from ..inputs.plan import Plan, PlanError, ion_charge, unknown_name
 from ..inputs.recipe import Recipe, totals_M
 from ..model import optics
 from ..model.compiled import Model, TubeState, predict, tube_ions_M
 from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
-from ..uncertainty import catalogue
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
+from .compile_spectra import build_spectra, instrument_at_working_wavelength, table_epsilon_at
+from .devices import dispenser_item, plan_devices
 
 __all__ = [
     "MAKE_UP_MIN_FRACTION",
@@ -52,7 +52,10 @@ def build_model(plan: Plan) -> Model:
     rsd = np.zeros(len(absorbers))
     for j, name in enumerate(absorbers):
         e = plan.optics.epsilon.get(name)
-        if e is not None:
+        from_table = table_epsilon_at(plan, name) if e is None else None
+        if from_table is not None:  # a plan with an ε table reads it at wavelength_nm for one wavelength
+            eps[j], rsd[j] = from_table
+        elif e is not None:
             band = plan.optics.bands.get(name)
             factor = optics.bandwidth_factor(plan.optics.bandwidth_nm, band.fwhm_nm if band else None)
             band_ratio[name] = factor
@@ -67,7 +70,7 @@ def build_model(plan: Plan) -> Model:
     ion_z = np.array([ion_charge(i) for i in ion_names], dtype=float)
     stock_ion = np.array([[s.ions.get(i, 0.0) for i in ion_names] for s in plan.stock], dtype=float)
     stock_ion = stock_ion.reshape(len(plan.stock), len(ion_names))
-    n = plan.optics.noise
+    stray, noise_k = instrument_at_working_wavelength(plan)
     return Model(
         species=tuple(s.name for s in sp),
         stoich=stoich,
@@ -80,8 +83,8 @@ def build_model(plan: Plan) -> Model:
         epsilon_M_cm=eps,
         epsilon_rsd=rsd,
         path_cm=plan.optics.path_cm,
-        stray_light=plan.optics.stray_light,
-        noise_k=(n.k1, n.k2, n.k3),
+        stray_light=stray,
+        noise_k=noise_k,
         display_step=plan.optics.display_step,
         linear_range=tuple(plan.optics.linear_range),
         stock_ids=tuple(s.id for s in plan.stock),
@@ -96,70 +99,6 @@ def build_model(plan: Plan) -> Model:
         reference_ionic_strength_M=plan.medium.reference_ionic_strength_M,
         temperature_C=plan.temperature_C,
     )
-
-
-def plan_devices(plan: Plan) -> Devices:
-    """Look every dispenser (and the make-up flask) up in the glassware catalogue.
-
-    Raises
-    ------
-    PlanError
-        When the catalogue has no such device (naming the dispenser and the sizes it has).
-    """
-    items = []
-    for j, d in enumerate(plan.glassware.dispenser):
-        try:
-            items.append(dispenser_item(d))
-        except catalogue.GlasswareError as exc:
-            what = (
-                "systematic = '...' and repeatability = '...'" if d.kind in PISTON_DISPENSERS else "tolerance"
-            )
-            raise PlanError(f"glassware.dispenser[{j}]", f"{exc}; or give {what} to describe it") from None
-    dev = np.full(len(plan.stock), -1, dtype=int)
-    for k, s in enumerate(plan.stock):
-        for j, d in enumerate(plan.glassware.dispenser):
-            if s.id in d.stocks:
-                dev[k] = j
-                break
-    flask = None
-    if plan.glassware.make_up == "to-mark":
-        f = plan.glassware.flask
-        cap = f.capacity_mL if f else plan.glassware.tube_volume_mL
-        try:
-            flask = catalogue.lookup("flask", cap, f.cls if f else None, f.tolerance_mL if f else None)
-        except catalogue.GlasswareError as exc:
-            raise PlanError(
-                "glassware.flask", f"{exc}; give flask = {{ capacity = '...', tolerance = '...' }}"
-            ) from None
-        if abs(flask.capacity_mL - plan.glassware.tube_volume_mL) > 1e-9 * flask.capacity_mL:
-            raise PlanError(
-                "glassware.flask",
-                f"a {flask.capacity_mL:g} mL flask cannot make up {plan.glassware.tube_volume_mL:g} mL "
-                f"tubes: make tube_volume and the flask capacity equal",
-            )
-    return Devices(tuple(items), dev, flask)
-
-
-def dispenser_item(d: Dispenser) -> catalogue.GlasswareItem:
-    """A plan's ``[[glassware.dispenser]]`` as a catalogue item, with the figures the plan states (its
-    graduation, a measured repeatability, a micropipette's or piston burette's systematic error).
-
-    Raises
-    ------
-    catalogue.GlasswareError
-        A size the catalogue lacks and the plan does not describe, or figures it cannot use.
-    """
-    item = catalogue.lookup(
-        d.kind,
-        d.capacity_mL,
-        d.cls,
-        d.limit_mL,
-        graduation_mL=d.graduation_mL,
-        repeatability_mL=d.repeatability_mL,
-    )
-    if d.systematic_mL is not None:  # the lab's own figure, not a catalogue or certificate tolerance
-        item = replace(item, source="systematic error measured by the lab (plan)")
-    return item
 
 
 def compile_bench(plan: Plan) -> Bench:
@@ -227,6 +166,7 @@ def compile_study(plan: Plan) -> Study:
         ionic_strength_tolerance=d.ionic_strength_tolerance,
         alternatives=compile_alternatives(plan, model),
         check_weight=d.check_weight if d.check != "none" else 0.0,
+        spectra=build_spectra(plan, model),
     )
 
 
@@ -270,10 +210,14 @@ def error_budget(
     return _budget.error_budget(bench, model, recipe, state, delta_T_C=delta_T_C)
 
 
-def expected_state(model: Model, recipe: Recipe, **kw) -> TubeState:
-    """Speciation and readings of every tube of ``recipe`` (at the guesses unless overridden)."""
+def expected_state(model: Model, recipe: Recipe, *, batch: int | None = None, **kw) -> TubeState:
+    """Speciation and readings of every tube of ``recipe`` (at the guesses unless overridden); with
+    ``batch``, the same tubes at ``batch`` sets of constants at once (``log_beta`` (batch, S), …)."""
     tot = totals_M(recipe, model.stock_conc_M)
     ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    if batch is not None:
+        tot = np.broadcast_to(tot, (batch,) + tot.shape)
+        ions = np.broadcast_to(ions, (batch,) + ions.shape)
     return predict(model, tot, ions, **kw)
 
 

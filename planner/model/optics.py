@@ -65,7 +65,11 @@ def stray_light_limit(stray_fraction: float, deviation: float = 0.01) -> float:
 
 
 def photometric_sd(
-    absorbance: np.ndarray, k1: float, k2: float = 0.0, k3: float = 0.0, display_step: float = 0.0
+    absorbance: np.ndarray,
+    k1: float | np.ndarray,
+    k2: float | np.ndarray = 0.0,
+    k3: float | np.ndarray = 0.0,
+    display_step: float = 0.0,
 ) -> np.ndarray:
     """Standard deviation of one absorbance reading.
 

@@ -20,6 +20,7 @@ from ..jobs.classroom.cards import ClassSet
 from ..jobs.classroom.stock_list import ClassStock
 from . import fmt, safety
 from .bench_volumes import reading_note
+from .class_stocks import stocks_csv, stocks_page
 from .render import PAPERS, html_to_pdf, render_html
 from .sheets import (
     RenderError,
@@ -34,6 +35,7 @@ from .workbook import append_row, stable_xlsx
 
 __all__ = [
     "KEY_COLUMNS",
+    "card_layout",
     "cards_document",
     "key_csv",
     "key_document",
@@ -46,7 +48,10 @@ __all__ = [
 KEY_COLUMNS = ("student", "name", "section", "tube")  # then one column per stock, then the three below
 KEY_TAIL = ("absorbance", "band_low", "band_high")
 BAND_SD = 2.0  # acceptance band: ±2 sd of the full error budget [common practice: ~95 % coverage]
-NAME_MAX = 48  # characters of roster text printed on a page (the CSV and the workbook keep it whole)
+NAME_MAX = 80  # characters of a name printed on a page: two lines of the header box (the CSV and the
+# workbook keep it whole)
+ID_MAX = 24  # characters of an id, section or bench printed on a page
+LABEL_MAX = 60  # characters of a stock's label under its id in the tube table (two short lines)
 UNKNOWN_HAZARD = (
     "no hazard data on this card: read the supplier's safety data sheet and ask your "
     "instructor before you use it"
@@ -55,7 +60,7 @@ UNKNOWN_HAZARD = (
 
 def short(text: str, limit: int = NAME_MAX) -> str:
     """Roster text for a page: at most ``limit`` characters (an ellipsis marks a cut), so a runaway cell
-    cannot push a card onto a second page or stall the line breaker."""
+    cannot push a card onto a second page or stall the line breaker; the page wraps it onto two lines."""
     return text if len(text) <= limit else text[: limit - 1] + "…"
 
 
@@ -106,23 +111,23 @@ def _student_safety(plan: Plan) -> dict:
     }
 
 
+def _dispensed_with(plan: Plan, sid: str) -> str:
+    d = plan.dispenser_for(sid)
+    return _dispenser_text(d) if d else "as your instructor shows"
+
+
 def _card_shared(plan: Plan, cards) -> dict:
+    """What every card of the set says alike: the header facts, the stocks in the order of addition
+    (each with its label and dispenser), the columns of the tube table, the checklist and safety."""
     g, o = plan.glassware, plan.optics
     rec0 = cards[0].recipe
     seq = addition_order(plan, rec0, g.order)
     to_mark = g.make_up == "to-mark" and plan.diluent is not None
     blank_name, _ = blank_text(plan)
-    stocks = []
-    for sid in seq:
-        s = plan.stock_by_id(sid)
-        d = plan.dispenser_for(sid)
-        stocks.append(
-            {
-                "id": sid,
-                "label": s.label,
-                "dispenser": _dispenser_text(d) if d else "as your instructor shows",
-            }
-        )
+    stocks = [
+        {"id": sid, "label": plan.stock_by_id(sid).label, "dispenser": _dispensed_with(plan, sid)}
+        for sid in seq
+    ]
     if to_mark:
         dil = plan.diluent
         stocks.append(
@@ -141,10 +146,7 @@ def _card_shared(plan: Plan, cards) -> dict:
         ],
         "seq": seq,
         "stocks": stocks,
-        "columns": [
-            {"id": sid, "how": _dispenser_text(plan.dispenser_for(sid)) if plan.dispenser_for(sid) else ""}
-            for sid in seq
-        ],
+        "columns": [{"id": sid, "label": short(plan.stock_by_id(sid).label, LABEL_MAX)} for sid in seq],
         "makeup": f"{plan.diluent.id} to the mark" if to_mark else None,
         "step_text": fmt.volume(g.step_mL, g.step_mL),
         "reading_note": reading_note(plan, seq),
@@ -154,32 +156,51 @@ def _card_shared(plan: Plan, cards) -> dict:
     }
 
 
+def series_text(plan: Plan, series, recipe) -> str | None:
+    """What a card's tubes vary and what to plot, in students' words (None for cards without a series)."""
+    if series is None:
+        return None
+    step = plan.glassware.step_mL
+    v, w = recipe.column(series.varied), recipe.column(series.partner)
+    lo, hi = fmt.volume(float(v.min()), step), fmt.volume(float(v.max()), step)
+    if series.kind == "job":
+        total = fmt.volume(float((v + w)[0]), step)
+        return (
+            f"{series.varied} + {series.partner} make {total} mL in every tube; {series.varied} rises from "
+            f"{lo} to {hi} mL. Plot each reading against the fraction {series.varied} / ({series.varied} + "
+            f"{series.partner}) (Job's method)."
+        )
+    held = fmt.volume(float(w[0]), step)
+    head = (
+        f"{series.partner} is the same in every tube ({held} mL); {series.varied} rises from {lo} to {hi} mL."
+    )
+    if series.kind == "mole-ratio":
+        return f"{head} Plot each reading against the mole ratio of {series.varied} to {series.partner}."
+    return f"{head} Plot each reading against the volume of {series.varied}: the curve rises and levels off."
+
+
 def cards_context(plan: Plan, cs, *, paper: str = "A4") -> dict:
     """Template context of ``cards.pdf`` (one page per student); ``cs`` is a :class:`ClassSet` or the
-    drafted cards (anything with student, name, section, bench and recipe)."""
+    drafted cards (anything with student, name, section, bench, recipe and series)."""
     drafts = cs.cards if isinstance(cs, ClassSet) else tuple(cs)
     shared = _card_shared(plan, drafts)
     step = plan.glassware.step_mL
     cards = []
     for c in drafts:
         steps = addition_steps(plan, c.recipe, shared["seq"], custom=shared["custom_order"])
+        cols = [c.recipe.column(sid) for sid in shared["seq"]]
         rows = [
-            {
-                "tube": t,
-                "cells": [
-                    ("—" if c.recipe.column(sid)[i] == 0 else fmt.volume(c.recipe.column(sid)[i], step))
-                    for sid in shared["seq"]
-                ],
-            }
+            {"tube": t, "cells": ["—" if col[i] == 0 else fmt.volume(col[i], step) for col in cols]}
             for i, t in enumerate(c.recipe.tubes)
         ]
         cards.append(
             {
-                "student": short(c.student),
+                "student": short(c.student, ID_MAX),
                 "name": short(c.name),
-                "section": short(c.section),
-                "bench": short(c.bench),
+                "section": short(c.section, ID_MAX),
+                "bench": short(c.bench, ID_MAX),
                 "steps": [{"text": s.text, "why": s.why} for s in steps],
+                "series": series_text(plan, getattr(c, "series", None), c.recipe),
                 "rows": rows,
             }
         )
@@ -187,30 +208,38 @@ def cards_context(plan: Plan, cs, *, paper: str = "A4") -> dict:
 
 
 DENSITIES = 4  # type sizes tried until every card fits on one page (0: the normal size)
+FIRST_DENSITY = {"A4": 0, "Letter": 1}  # Letter is 18 mm shorter than A4: its cards start one size smaller
 
 
-def cards_document(plan: Plan, cs, *, paper: str = "A4", fmt_: str = "pdf") -> bytes:
-    """``cards.pdf``: one page per student (or the HTML with ``fmt_="html"``); ``cs`` as in
-    :func:`cards_context`.
+def card_layout(plan: Plan, cs, *, paper: str = "A4"):
+    """The laid-out cards (a WeasyPrint document, one page per card) and the type size used.
 
-    A card that runs onto a second page (many tubes, many reagents in the safety box) is set again
-    in smaller type, at most DENSITIES − 1 times; the laid-out pages are counted before the PDF is
-    written, so a card set that fits at once is laid out once.
+    A card that runs onto a second page (many tubes, many reagents in the safety box) is set again in
+    smaller type, at most DENSITIES − 1 times; the pages are counted before any PDF is written, so a set
+    that fits at once is laid out once (one layout pass for every card of the set).
     """
     import weasyprint
 
     from .render import DataOnlyFetcher
 
-    _check(paper, fmt_)
     ctx = cards_context(plan, cs, paper=paper)
     want = len(ctx["cards"])
-    for density in range(DENSITIES):
+    for density in range(FIRST_DENSITY.get(paper, 0), DENSITIES):
         html = render_html("cards.html.j2", {**ctx, "density": density})
-        if fmt_ == "html":
-            return html.encode("utf-8")
         doc = weasyprint.HTML(string=html, base_url=None, url_fetcher=DataOnlyFetcher()).render()
         if len(doc.pages) <= want:
             break
+    return doc, density
+
+
+def cards_document(plan: Plan, cs, *, paper: str = "A4", fmt_: str = "pdf") -> bytes:
+    """``cards.pdf``: one page per student (or the HTML at the first type size with ``fmt_="html"``);
+    ``cs`` as in :func:`cards_context`; see :func:`card_layout`."""
+    _check(paper, fmt_)
+    if fmt_ == "html":
+        ctx = cards_context(plan, cs, paper=paper)
+        return render_html("cards.html.j2", {**ctx, "density": FIRST_DENSITY.get(paper, 0)}).encode("utf-8")
+    doc, _ = card_layout(plan, cs, paper=paper)
     return doc.write_pdf()
 
 
@@ -296,11 +325,16 @@ def key_xlsx(plan: Plan, cs: ClassSet) -> bytes:
     return stable_xlsx(wb)
 
 
-def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4") -> dict:
-    """Template context of ``key.pdf``: the class's numbers, then one row per student with each tube's
-    expected absorbance and band."""
-    se = cs.se
-    n = cs.best.n_tubes
+def _series_short(plan: Plan, c) -> str:
+    """A card's series in a few words for the key ("CU 0.70–7.30"), or "—"."""
+    if c.series is None:
+        return "—"
+    v = c.recipe.column(c.series.varied)
+    step = plan.glassware.step_mL
+    return f"{c.series.varied} {fmt.volume(float(v.min()), step)}–{fmt.volume(float(v.max()), step)}"
+
+
+def _key_students(plan: Plan, cs: ClassSet) -> list[dict]:
     students = []
     for c in cs.cards:
         cells = []
@@ -312,50 +346,71 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
                     "band": f"{fmt.fixed(a - BAND_SD * sd, 0.001)}–{fmt.fixed(a + BAND_SD * sd, 0.001)}",
                 }
             )
+        sat = c.spread.saturation[1] if c.spread is not None else None
         students.append(
             {
-                "student": short(c.student),
-                "name": short(c.name, 40),
-                "section": short(c.section, 20),
-                "bench": short(c.bench, 20),
+                "student": short(c.student, ID_MAX),
+                "name": short(c.name),
+                "section": short(c.section, ID_MAX),
+                "series": _series_short(plan, c),
+                "distinct": c.spread.distinct if c.spread is not None else "",
+                "saturation": "" if sat is None else f"{fmt.fixed(sat[0], 0.01)}–{fmt.fixed(sat[1], 0.01)}",
                 "se": fmt.sig(c.assessment.target_se, 2),
-                "verdict": c.assessment.verdict or "—",
                 "passes": c.passes,
                 "problems": c.problems,
                 "cells": cells,
             }
         )
+    return students
+
+
+def _se_rows(cs: ClassSet) -> list[tuple[str, str, str]]:
+    se, N = cs.se, len(cs.cards)
     rows = [
         ("one student, this class's median card", se["cards_median"], None),
         ("one student, the best single recipe", se["best_single"], None),
         ("one student, the evenly spaced series", se["even_single"], None),
-        (f"the whole class pooled ({plural(len(cs.cards), 'card')}, stocks shared)", se["pooled"], None),
+        (f"the whole class pooled ({plural(N, 'card')}, stocks shared)", se["pooled"], None),
         (
-            f"{plural(len(cs.cards), 'copy', 'copies')} of the best single recipe",
+            f"{plural(N, 'copy', 'copies')} of the best single recipe",
             se["pooled_best_copies"],
             se["pooled_best_copies"] / se["pooled"],
         ),
         (
-            f"{plural(len(cs.cards), 'copy', 'copies')} of the evenly spaced series",
+            f"{plural(N, 'copy', 'copies')} of the evenly spaced series",
             se["pooled_even_copies"],
             se["pooled_even_copies"] / se["pooled"],
         ),
         ("the class pooled, each section making its own stocks", se["pooled_stock_per_section"], None),
         ("the class pooled, stock errors left out (stocks standardised)", se["pooled_without_stock"], None),
+        (
+            f"{plural(N, 'copy', 'copies')} of the best single recipe, stock errors left out",
+            se["pooled_best_copies_without_stock"],
+            se["pooled_best_copies_without_stock"] / se["pooled_without_stock"],
+        ),
     ]
-    notes = list(cs.notes)
-    # what the cards do not say to students goes to the instructor: the plan author's notes (plan keys
-    # named) and the reagents without hazard data
+    return [
+        (label, fmt.sig(v, 2), fmt.sig(r, 3) if r is not None else "")
+        for label, v, r in rows
+        if v is not None
+    ]
+
+
+def _key_notes(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...]) -> list[str]:
+    """What the cards do not say to students goes to the instructor: how the set was made, the plan
+    author's notes (plan keys named), the reagents without hazard data, stocks short or under-stated."""
     from ..jobs.stocks.needs import stock_needs
     from .stock_text import plan_notes
 
+    notes = list(cs.notes)
     notes.extend(plan_notes(plan, [n.summary() for n in stock_needs(plan)]))
     for r in safety.hazards_for(plan):
         if r.hazards is None and r.message:
             notes.append(f"safety: {r.message}")
     for s in stocks:
         st = plan.stock_by_id(s.id)
-        if s.preparation is not None and st.conc_rsd < s.preparation.u_rel * 0.999:
+        said = any(x.startswith(f"stock {s.id}: weighing and glassware give") for x in notes)
+        if s.preparation is not None and st.conc_rsd < s.preparation.u_rel * 0.999 and not said:
             notes.append(
                 f"stock {s.id}: the weighing gives u = {fmt.percent(s.preparation.u_rel)} but the plan "
                 f"assumes conc_rsd = {fmt.percent(st.conc_rsd)}: raise conc_rsd or standardise the stock"
@@ -366,6 +421,35 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
                 f"{fmt.sig(s.on_hand_mL, 3)} mL: make {fmt.fixed(s.shortfall_mL, 0.1)} mL more "
                 f"(or raise on_hand in the plan)"
             )
+    return notes
+
+
+LAB_TEXT = {
+    "binding-curve": "a binding curve: one reagent held, the other rising, saturation spread over 0.2–0.8 at "
+    "the guess and at log β ± 1 sd",
+    "mole-ratio": "a mole-ratio series: the metal held, the ligand rising past the complex's ratio",
+    "job": "a Job series: metal and ligand at a constant total, the metal's fraction rising past the "
+    "complex's",
+}
+
+
+def _how_made(cs: ClassSet) -> str:
+    if cs.lab == "pooled":
+        jitter = f"±{cs.radius_steps} grid step(s) (±{fmt.sig(cs.radius_steps * cs.step_mL, 2)} mL)"
+        return (
+            f"The cards were made for the pooled fit alone: the optimal design of the class's tubes, dealt "
+            f"out and moved at most {jitter} to make the cards different."
+        )
+    return (
+        f"Every card is a teaching series — {LAB_TEXT[cs.lab]} — with at least 5 distinct compositions; the "
+        f"cards were chosen together so that the class's pooled fit stays efficient for K."
+    )
+
+
+def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4") -> dict:
+    """Template context of ``key.pdf``: the class's numbers, then one row per student with each tube's
+    expected absorbance and band."""
+    n = cs.best.n_tubes
     return {
         "kind": "key",
         "paper": paper,
@@ -377,20 +461,14 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
         "count": len(cs.cards),
         "sound": cs.sound,
         "passing": sum(c.passes for c in cs.cards),
-        "jitter": f"±{cs.radius_steps} grid step(s) (±{fmt.sig(cs.radius_steps * cs.step_mL, 2)} mL)",
-        "se_rows": [
-            (label, fmt.sig(v, 2), fmt.sig(r, 3) if r is not None else "")
-            for label, v, r in se_rows_filter(rows)
-        ],
-        "efficiency": fmt.percent((se["pooled_best_copies"] / se["pooled"]) ** 2, 3),
-        "notes": notes,
-        "students": students,
+        "how_made": _how_made(cs),
+        "se_rows": _se_rows(cs),
+        "efficiency": fmt.percent(cs.efficiency, 3),
+        "efficiency_without_stock": fmt.percent(cs.efficiency_without_stock, 3),
+        "notes": _key_notes(plan, cs, stocks),
+        "students": _key_students(plan, cs),
         "tubes": [f"T{i + 1}" for i in range(n)],
     }
-
-
-def se_rows_filter(rows):
-    return [r for r in rows if r[1] is not None]
 
 
 def key_document(
@@ -402,144 +480,11 @@ def key_document(
 
 
 # --------------------------------------------------------------------------------------------------
-# the class stock list
+# the class stock list (:mod:`planner.paper.class_stocks`)
 # --------------------------------------------------------------------------------------------------
-def _how(plan: Plan, s: ClassStock) -> list[str]:
-    p = s.preparation
-    g = plan.glassware
-    if p is None:
-        if s.problem:
-            return [s.problem]
-        return ["make up as its description says (no formula in the plan, so no mass is computed)"]
-    times = f"{s.batches} × " if s.batches > 1 else ""
-    lines = [
-        f"{times}weigh {fmt.mass(p.mass_g, g.balance.readability_g)} of {pretty_formula(p.formula)} "
-        f"(M = {fmt.sig(p.formula_weight_g_mol, 5)} g/mol) and make up to the mark of a "
-        f"{p.weighed_flask.label}"
-    ]
-    for st in p.steps:
-        lines.append(
-            f"pipette {fmt.sig(st.pipette.capacity_mL, 3)} mL into a {st.flask.label} and make up to the mark"
-        )
-    if p.mass_g < p.min_weight_g:
-        lines.append(
-            f"{fmt.mass(p.mass_g, g.balance.readability_g)} is below the balance's minimum weight "
-            f"(USP <41>): weigh more into a larger flask and dilute"
-        )
-    return lines
-
-
-def stocks_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4") -> dict:
-    g = plan.glassware
-    sections = [name for name, *_ in stocks[0].sections] if stocks else []
-    rows = []
-    for s in stocks:
-        made = (s.preparation.flask.capacity_mL * s.batches) if s.preparation else None
-        rows.append(
-            {
-                "id": s.id,
-                "label": s.label,
-                "tubes": fmt.fixed(s.tubes_mL, 0.1),
-                "benches": s.benches,
-                "allowance": fmt.fixed(s.allowance_mL, 0.1),
-                "total": fmt.fixed(s.total_mL, 0.1),
-                "made": f"{fmt.sig(made, 4)} mL" if made else "—",
-                "on_hand": f"{fmt.sig(s.on_hand_mL, 4)} mL" if s.on_hand_mL is not None else "—",
-                "enough": s.enough,
-                "short": fmt.fixed(s.shortfall_mL, 0.1),
-                "how": _how(plan, s),
-                "sections": [
-                    {
-                        "name": name or "—",
-                        "tubes": fmt.fixed(v, 0.1),
-                        "benches": b,
-                        "total": fmt.fixed(t, 0.1),
-                        "weigh": None
-                        if sp is None
-                        else (f"{sp[1]} × " if sp[1] > 1 else "")
-                        + f"{fmt.mass(sp[0].mass_g, g.balance.readability_g)} "
-                        f"in {sp[0].flask.capacity_mL:g} mL",
-                    }
-                    for (name, v, b, t), sp in zip(
-                        s.sections, s.section_preparations or (None,) * len(s.sections), strict=True
-                    )
-                ],
-            }
-        )
-    return {
-        "kind": "stocks",
-        "paper": paper,
-        "title": plan.title,
-        "count": len(cs.cards),
-        "rinse": fmt.sig(g.rinse_mL, 3),
-        "dead": fmt.sig(g.dead_volume_mL, 3),
-        "rows": rows,
-        "sections": [s or "—" for s in sections],
-        "many_sections": len(sections) > 1,
-    }
-
-
 def stocks_document(
     plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
 ) -> bytes:
     """``stocks.pdf``: the class stock list."""
     _check(paper, fmt_)
-    return _out(render_html("class_stocks.html.j2", stocks_context(plan, cs, stocks, paper=paper)), fmt_)
-
-
-STOCK_COLUMNS = (
-    "stock",
-    "scope",
-    "tubes_mL",
-    "benches",
-    "allowance_mL",
-    "total_mL",
-    "on_hand_mL",
-    "enough",
-    "mass_g",
-    "flask_mL",
-    "batches",
-)
-
-
-def stocks_csv(plan: Plan, stocks: tuple[ClassStock, ...]) -> str:
-    """``stocks.csv``: one row per stock for the class (scope ``class``), then one per stock and section."""
-    g = plan.glassware
-    allow = g.rinse_mL + g.dead_volume_mL
-    rows = []
-    for s in stocks:
-        p = s.preparation
-        rows.append(
-            [
-                s.id,
-                "class",
-                f"{s.tubes_mL:.2f}",
-                s.benches,
-                f"{s.allowance_mL:.2f}",
-                f"{s.total_mL:.2f}",
-                "" if s.on_hand_mL is None else f"{s.on_hand_mL:.2f}",
-                "" if s.enough is None else ("yes" if s.enough else "no"),
-                "" if p is None else f"{p.mass_g:.4f}",
-                "" if p is None else f"{p.flask.capacity_mL:g}",
-                s.batches if p is not None else "",
-            ]
-        )
-    for s in stocks:
-        preps = s.section_preparations or (None,) * len(s.sections)
-        for (name, v, b, t), sp in zip(s.sections, preps, strict=True):
-            rows.append(
-                [
-                    s.id,
-                    f"section {name}" if name else "section",
-                    f"{v:.2f}",
-                    b,
-                    f"{b * allow:.2f}",
-                    f"{t:.2f}",
-                    "",
-                    "",
-                    "" if sp is None else f"{sp[0].mass_g:.4f}",
-                    "" if sp is None else f"{sp[0].flask.capacity_mL:g}",
-                    "" if sp is None else sp[1],
-                ]
-            )
-    return write_csv(STOCK_COLUMNS, rows)
+    return _out(stocks_page(plan, len(cs.cards), stocks, paper=paper), fmt_)

@@ -327,6 +327,23 @@ def mc_histogram_svg(
     return _draw(prefix, paint)
 
 
+def assessment_mc_figure(assessment, caption: str) -> dict | None:
+    """The Monte-Carlo histogram of an assessment's target as a report figure (None without one)."""
+    from markupsafe import Markup
+
+    params = assessment.params
+    t = params.target if params is not None else -1
+    if assessment.mc is None or t < 0 or assessment.cramer_rao is None:
+        return None
+    svg = mc_histogram_svg(
+        assessment.mc.estimates[:, t],
+        float(assessment.true_theta[t]),
+        float(assessment.cramer_rao.se[t]),
+        name=fmt.param_label(params.names[t]),
+    )
+    return {"svg": Markup(svg), "caption": caption}
+
+
 # --------------------------------------------------------------------------------------------------
 # SE against the true constant
 # --------------------------------------------------------------------------------------------------

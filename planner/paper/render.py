@@ -25,6 +25,7 @@ __all__ = [
     "FORMATS",
     "PAPERS",
     "DataOnlyFetcher",
+    "fit_report",
     "FetchRefused",
     "RenderError",
     "html_to_pdf",
@@ -201,12 +202,31 @@ def report(
     from ..jobs.stocks.needs import stock_needs
 
     summary = assessment.summary()
-    figs = _report_figures(plan, recipe, assessment, summary, fig)
+    if "spectra" in summary:
+        from .spectra_report import report_facts, report_figures
+
+        figs = report_figures(assessment, summary)
+    else:
+        figs = _report_figures(plan, recipe, assessment, summary, fig)
     notes = plan_notes(plan, [n.summary() for n in stock_needs(plan, recipe)])
     ctx = report_context(
         plan, recipe, summary, date=_date_text(date), paper=paper, figures=figs, design=design, notes=notes
     )
+    if "spectra" in summary:
+        ctx["facts"] = report_facts(plan, ctx["facts"])
+        ctx["a_heading"] = "Highest A in the window (±2 sd)"
     return _out(render_html("report.html.j2", ctx), fmt)
+
+
+def fit_report(plan, fit, *, kind: str = "pdf", paper: str = "A4", date=None) -> bytes:
+    """The fit report of whole spectra: fitted constants, the fitted spectra with their bands, the
+    singular values and each tube's residuals; ``kind`` "pdf" (bytes of the PDF) or "html"."""
+    from .spectra_report import fit_context
+
+    _check(paper, kind)
+    return _out(
+        render_html("spectra_fit.html.j2", fit_context(plan, fit, paper=paper, date=_date_text(date))), kind
+    )
 
 
 def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
@@ -237,21 +257,13 @@ def _report_figures(plan, recipe, assessment, summary, fig) -> list[dict]:
     )
     params = assessment.params
     t = params.target if params is not None else -1
-    if assessment.mc is not None and t >= 0 and assessment.cramer_rao is not None:
-        out.append(
-            {
-                "svg": Markup(
-                    fig.mc_histogram_svg(
-                        assessment.mc.estimates[:, t],
-                        float(assessment.true_theta[t]),
-                        float(assessment.cramer_rao.se[t]),
-                        name=_fmt.param_label(params.names[t]),
-                    )
-                ),
-                "caption": "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal "
-                "curve: matching shapes mean the asymptotic SE holds.",
-            }
-        )
+    mc = fig.assessment_mc_figure(
+        assessment,
+        "Monte-Carlo fits of simulated experiments against the Cramér–Rao normal curve: matching shapes "
+        "mean the asymptotic SE holds.",
+    )
+    if mc is not None:
+        out.append(mc)
     if t >= 0:
         scan = curves.se_scan_data(study, recipe)
         if scan is not None:

@@ -186,6 +186,8 @@ def checklist(plan: Plan, blank: str) -> list[str]:
     o = plan.optics
     wl = f"{fmt.sig(o.wavelength_nm, 3)} nm"
     lo, hi = (fmt.fixed(x, 0.01) for x in o.linear_range)
+    if o.has_spectra:
+        return _spectra_checklist(plan, blank, lo, hi)
     return [
         "Switch the spectrophotometer on early so the lamp is warm and stable before the first reading.",
         f"Set the wavelength to {wl}.",
@@ -195,6 +197,31 @@ def checklist(plan: Plan, blank: str) -> list[str]:
         "Read each tube and write the value in the empty “measured A” column of the tube table.",
         f"Re-read the blank every few tubes; re-zero if it has drifted. A reading outside {lo}–{hi} "
         "is outside the linear range: note it rather than dilute the tube.",
+    ]
+
+
+def spectrum_text(plan: Plan) -> str:
+    """The range the instrument records, e.g. "400–700 nm every 1 nm (bandwidth 2 nm)"."""
+    from ..jobs.compile_spectra import window_grid
+
+    o = plan.optics
+    w = window_grid(plan)
+    slit = f" (bandwidth {o.bandwidth_nm:g} nm)" if o.bandwidth_nm else ""
+    return f"{w[0]:g}–{w[-1]:g} nm every {o.step_nm:g} nm{slit}"
+
+
+def _spectra_checklist(plan: Plan, blank: str, lo: str, hi: str) -> list[str]:
+    span = spectrum_text(plan)
+    return [
+        "Switch the spectrophotometer on early so the lamp is warm and stable before the first reading.",
+        f"Set it to record the spectrum {span}.",
+        f"Fill a clean cuvette with the blank, {blank}, and record the baseline on it over that whole range.",
+        "For each tube: rinse the cuvette twice with a little of that tube's solution, fill it, wipe the "
+        "clear faces with lens tissue, and put it in the holder the same way round every time.",
+        "Record each tube's spectrum and save it under the tube's label; write its highest reading in the "
+        "empty “measured A” column of the tube table.",
+        f"Re-record the blank every few tubes; re-zero if it has drifted. Parts of a spectrum above {hi} are "
+        "outside the linear range: note them rather than dilute the tube.",
     ]
 
 
@@ -356,13 +383,18 @@ def prep_context(
     failing = [c for c in summary.get("checks", []) if c["status"] == "fail"]
     verdict = summary.get("verdict")
     safe = safety_context(plan)
+    spectra = o.has_spectra
     return {
         "kind": "prep",
+        "a_heading": "Highest A of the spectrum (±2 sd)" if spectra else "Expected A (±2 sd)",
+        "blank_where": "over the whole spectrum" if spectra else "at the working wavelength",
         "paper": paper,
         "title": plan.title,
         "date": date,
         "facts": [
-            ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"),
+            ("Spectrum", spectrum_text(plan))
+            if o.has_spectra
+            else ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"),
             ("Path length", f"{fmt.fixed(o.path_cm, 0.001)} cm"),
             ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
             (
@@ -551,4 +583,5 @@ def report_context(
         "design": _design_rows(design),
         "window": f"{fmt.sig(SATURATION_WINDOW[0], 1)}–{fmt.sig(SATURATION_WINDOW[1], 1)}",
         "sat_flag": sat_flag,
+        "a_heading": "Expected A (±2 sd)",
     }

@@ -227,12 +227,17 @@ def error_factors(
     *,
     delta_T_C: float | None = None,
     dA_dtotals: np.ndarray | None = None,
+    sds: DeliverySds | None = None,
 ) -> ErrorFactors:
-    """Per-tube variances and shared-error factors (see :class:`ErrorFactors`); vectorised over tubes."""
+    """Per-tube variances and shared-error factors (see :class:`ErrorFactors`); vectorised over tubes.
+
+    ``sds`` (:func:`delivery_sds` of the recipe) depends on the volumes only: a caller that evaluates
+    the same tubes at several parameter values computes it once."""
     if dA_dtotals is None:
         dA_dtotals = absorbance_derivatives(model, state).dA_dtotals
     dA_dV, dA_dVtot = volume_derivatives(bench, recipe, dA_dtotals, model.stock_conc_M)
-    sds = delivery_sds(bench, recipe, delta_T_C=delta_T_C)
+    if sds is None:
+        sds = delivery_sds(bench, recipe, delta_T_C=delta_T_C)
     devices = bench.devices
     var_rand = np.sum((dA_dV * sds.random_mL) ** 2, axis=-1) + (dA_dVtot * sds.flask_mL) ** 2
     nd = len(devices.items)

@@ -72,5 +72,5 @@ def volume_derivatives(bench: Bench, recipe: Recipe, dA_dtotals: np.ndarray, sto
     dA_dV = (dA_dtotals @ stock_conc_M.T) / V[:, None]  # (n, k)
     dA_dVtot = -np.sum(dA_dtotals * tot, axis=-1) / V  # (n,)
     if not bench.to_mark:
-        dA_dV = dA_dV + dA_dVtot[:, None]
+        dA_dV = dA_dV + dA_dVtot[..., None]
     return dA_dV, dA_dVtot

@@ -105,3 +105,62 @@ def test_cards_printed_in_a_second_process_are_the_same_bytes(tmp_path, capsys, 
     plan = load_plan(PLAN)
     here = cards_document(plan, class_set(plan, roster_of_count(8), tubes=5, seed=0))
     assert (tmp_path / "cards.pdf").read_bytes() == here
+
+
+def test_teaching_series_by_default_and_pooled_on_request(tmp_path, capsys, monkeypatch):
+    code, out, err = run(capsys, monkeypatch, "cards", PLAN, "--count", 4, "--out", tmp_path / "t", "--json")
+    assert code == 0, err
+    data = json.loads(out)
+    assert data["lab"] == "binding-curve" and data["efficiency_vs_best_copies"] >= 0.8
+    assert 0 < data["efficiency_vs_best_copies_without_stock"] <= 1
+    for c in data["cards"]:
+        assert c["distinct_compositions"] >= 5 and c["ratio_span"] >= 4
+        assert c["series"]["kind"] == "binding-curve" and c["series"]["varied"] in ("CU", "DY")
+        assert set(c["saturation"]) == {"minus_1sd", "guess", "plus_1sd"}
+    code, out, err = run(
+        capsys, monkeypatch, "cards", PLAN, "--count", 4, "--out", tmp_path / "p", "--json", "--pooled"
+    )
+    assert code == 0, err
+    data = json.loads(out)
+    assert data["lab"] == "pooled" and all(c["series"] is None for c in data["cards"])
+
+
+@pytest.mark.parametrize(
+    "args, needle",
+    [
+        (("--series", "foo"), "--series foo"),
+        (("--series", "job", "--pooled"), "--series and --pooled"),
+        (("--series", "mole-ratio"), "no mole-ratio card"),  # the teaching plan's range leaves no room
+    ],
+)
+def test_series_refusals_one_line_exit_2(tmp_path, capsys, monkeypatch, args, needle):
+    code, out, err = run(capsys, monkeypatch, "cards", PLAN, "--count", 2, "--out", tmp_path / "o", *args)
+    assert code == 2 and needle in err and len(err.strip().splitlines()) == 1, err
+    assert not (tmp_path / "o").exists()
+
+
+def test_job_cards_short_of_the_goal_exit_1(tmp_path, capsys, monkeypatch):
+    code, out, err = run(
+        capsys, monkeypatch, "cards", PLAN, "--count", 2, "--out", tmp_path / "o", "--series", "job"
+    )
+    assert code == 1 and "not sound" in err
+    assert "no job card of 8 tubes reaches design.goal_se" in out
+    assert (tmp_path / "o" / "key.pdf").exists()
+
+
+def test_progress_line_appears_after_the_delay(monkeypatch):
+    # a class set over 2 s shows one rich progress line, updated per card assessed
+    from planner.cli import cards as cli_cards
+
+    monkeypatch.setattr(cli_cards._Bar, "DELAY_S", 0.0)
+    with cli_cards._Bar(True, 3) as bar:
+        bar.start()
+        bar.timer.join()
+        bar.assessed(1, 3)
+        assert bar.bar is not None and bar.what == "card 1 of 3 assessed"
+        bar.stage("key.pdf")
+        assert bar.what == "printing key.pdf"
+    assert bar.closed
+    quiet = cli_cards._Bar(False, 3)
+    quiet.start()
+    assert quiet.timer is None  # not a terminal, or --json: no progress line

@@ -68,7 +68,7 @@ def test_cards_speak_to_students(card_html):
     for key in PLAN_KEYS:
         assert key not in low, key
     assert "expected" not in low and "band" not in low  # no expected absorbances on a student's card
-    assert "Measured A" in card_html and card_html.count('class="write"') == 4 * 8
+    assert "Measured A" in card_html and card_html.count('class="l write"') == 4 * 8
 
 
 def test_hostile_roster_text_is_text(card_html):
@@ -177,3 +177,94 @@ def test_plan_advice_goes_to_the_instructors_key(plan, cset, card_html):
     key = pc.key_document(plan, cset, st, fmt_="html").decode("utf-8")
     assert "raise conc_rsd" in key and "reagent = " in key  # the teaching plan leaves both to fix
     assert "raise conc_rsd" not in card_html and "add reagent" not in card_html
+
+
+# --------------------------------------------------------------------------------------------------
+# layout: columns aligned, stocks in the order of addition with their labels, names wrapped, the header
+# box holding every field at A4 and Letter
+# --------------------------------------------------------------------------------------------------
+LONG_NAME = (
+    "Maximiliane-Friederike Adelheid von Hohenzollern-Sigmaringen-Vöhringen"  # invented, 70 characters
+)
+WIDE_ROSTER = f"id,name,section,bench\nw1,{LONG_NAME},Monday-afternoon,12\nw2,Ana Li,Tue,3\n"
+
+
+@pytest.fixture(scope="module")
+def wide_set(study):
+    return class_set_study(study, parse_roster_csv(WIDE_ROSTER), seed=2)
+
+
+def _tube_table(html: str) -> str:
+    return html.split('<table class="t">', 1)[1].split("</table>", 1)[0]
+
+
+def _cell_classes(row_html: str, tag: str) -> list[str]:
+    return re.findall(rf'<{tag} class="([^"]*)"', row_html)  # class names of the row's cells
+
+
+def test_tube_table_headers_align_with_their_numbers(plan, wide_set):
+    html = pc.cards_document(plan, wide_set, fmt_="html").decode("utf-8")
+    table = _tube_table(html)
+    head = table.split("</thead>", 1)[0]
+    body_row = table.split("<tbody>", 1)[1].split("</tr>", 1)[0]
+    th = [c.split()[0] for c in _cell_classes(head, "th")]
+    td = [c.split()[0] for c in _cell_classes(body_row, "td")]
+    assert len(th) == len(td) and th == td  # each header aligned like the numbers under it
+    assert th.count("r") == len(wide_set.cards[0].recipe.dispensed_ids(plan))  # the stock columns
+
+
+def test_stock_columns_in_the_order_of_addition_with_labels(plan, wide_set):
+    from planner.paper.sheets import addition_order
+
+    html = pc.cards_document(plan, wide_set, fmt_="html").decode("utf-8")
+    head = _tube_table(html).split("</thead>", 1)[0]
+    ids = re.findall(r'<th class="r">([^ <]+) / mL<span class="lab">([^<]*)</span>', head)
+    order = addition_order(plan, wide_set.cards[0].recipe, plan.glassware.order)
+    assert [i for i, _ in ids] == list(order)
+    for sid, label in ids:
+        assert plan.stock_by_id(sid).label.startswith(label.rstrip("…"))
+
+
+def test_long_names_are_printed_whole(plan, study, wide_set):
+    html = pc.cards_document(plan, wide_set, fmt_="html").decode("utf-8")
+    assert LONG_NAME in html  # wrapped on two lines by the page, not cut
+    st = class_stocks(plan, [c.recipe for c in wide_set.cards], parse_roster_csv(WIDE_ROSTER))
+    key = pc.key_document(plan, wide_set, st, fmt_="html").decode("utf-8")
+    assert LONG_NAME in key
+
+
+def _boxes(page):
+    for b in page._page_box.descendants():
+        el = getattr(b, "element", None)
+        yield b, (el.get("class") or "") if el is not None else ""
+
+
+@pytest.mark.parametrize("paper", ["A4", "Letter"])
+def test_header_box_holds_every_field(plan, wide_set, paper):
+    doc, density = pc.card_layout(plan, wide_set, paper=paper)
+    assert len(doc.pages) == len(wide_set.cards) and density <= 1  # at most one size smaller
+    page = doc.pages[0]
+    who = next(b for b, cls in _boxes(page) if cls == "who" and type(b).__name__ == "TableBox")
+    left, right = who.border_box_x(), who.border_box_x() + who.border_width()
+    top, bottom = who.border_box_y(), who.border_box_y() + who.border_height()
+    inner = [
+        b for b, cls in _boxes(page) if cls in ("k", "v", "v nm", "line") or type(b).__name__ == "TextBox"
+    ]
+    inside = [
+        b
+        for b in inner
+        if b.position_y >= top - 0.5
+        and b.position_y + b.margin_height() <= bottom + 0.5
+        and b.position_x >= left
+    ]
+    assert inside, "no field found in the header box"
+    for b in inside:  # every field's box ends inside the header box (the date rule included)
+        assert b.position_x + b.margin_width() <= right + 0.5, (paper, type(b).__name__)
+    lines = [b for b, cls in _boxes(page) if cls == "line"]
+    assert lines and all(b.position_x + b.margin_width() <= right + 0.5 for b in lines)
+    # the long name wraps onto two lines inside the header box, every word of it printed
+    name = [
+        b for b in inside if type(b).__name__ == "TextBox" and b.text.strip() and b.text.strip() in LONG_NAME
+    ]
+    assert " ".join(b.text.strip() for b in name).replace("- ", "-") == LONG_NAME
+    assert len({round(b.position_y, 1) for b in name}) == 2

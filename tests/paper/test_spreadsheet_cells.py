@@ -92,6 +92,22 @@ def test_grade_book_cells_are_values(people, parameter):
             "p_value": 0.01,
             "own_fit": {"log_beta": 4.1, "se": 0.2},
             "explanation": e,
+            "candidate": e,
+            "tubes_in_class_band": 4,
+            "judged_against": "class",
+            "readings": [
+                {
+                    "tube": n,
+                    "absorbance": 0.5,
+                    "expected": 0.4,
+                    "band_low": 0.38,
+                    "band_high": 0.42,
+                    "class_expected": 0.5,
+                    "class_band_low": 0.48,
+                    "class_band_high": 0.52,
+                    "in_class_band": True,
+                }
+            ],
         }
         for s, n, e in people
     ]

@@ -43,6 +43,7 @@ from ._deps import (
     predict,
     tube_ions_M,
 )
+from ._ratio_tubes import LINE_MARGIN as LINE_MARGIN  # the hand lines' sides, also for the class cards
 from ._ratio_tubes import Layout, line_sides, plan_tubes, room_of, top_ratio
 from .common import (
     ClassicSeries,

@@ -1,32 +1,25 @@
-"""Class sets: one recipe card per student, every card individually sound, all cards different, and
-together a good pooled design.
+"""Class sets: one recipe card per student, every card a series the student can plot and fit, every card
+individually sound, all cards different, and together a design the class's pooled fit uses well.
 
-How the students are spread, and why
-------------------------------------
-The recipe a whole class should make, if its data are fitted together, is the optimal *approximate*
-design on the grid's candidate tubes (:func:`planner.inference.approximate.approximate_design`, the
-same robust target criterion, range screen and nuisance factors as ``kplan design``): as the number
-of tubes grows, the best exact design of N × n tubes converges to N·n times its weights. So:
+How the cards are made, and why
+-------------------------------
+By default (``design.card_series``, :mod:`._series`) every card is a *teaching series*: at least five
+distinct compositions spread over the binding curve — saturation 0.2–0.8 at the guess and at log β ± 1
+sd — or the ratios of a mole-ratio or Job series, its tubes in the order the student plots them. Many
+such series are drawn on the glassware's grid (seeded) and filtered; the class is then chosen among them
+by sequential optimal design (:mod:`._select`, Wynn 1970): each next card is one that adds the most
+information on the target to the class's pooled fit, so the class stays efficient for K while every
+card stays a series of its own. ``pooled=True`` (``kplan cards --pooled``) makes the cards for the
+pooled fit alone instead (:mod:`._jitter`): the optimal design of all the class's tubes, dealt out and
+nudged on the grid until the cards differ — more efficient, but two or three clusters of near-identical
+tubes per card.
 
-1. the pooled design is the efficient rounding of those weights to N·n tubes (Pukelsheim & Rieder
-   1992, Biometrika 79:763), and it is dealt out like cards, tube i of the sorted list to student
-   i mod N: each student's n tubes then follow the weights as closely as n tubes can, so every subset
-   is itself close to the single-student optimum (which is what makes it individually sound);
-2. copies of one subset are not allowed (no two cards may share the same set of compositions), so each
-   tube is moved to a random feasible grid neighbour of its composition (within ±r grid steps of every
-   designed stock, r = 1, 2, … only as far as needed), a dozen proposals per student, drawn from the
-   seeded generator in one vectorised batch. The information near an optimal support point is flat,
-   so the loss is small; it is measured and reported (pooled SE against N copies of the best recipe);
-3. each proposal is scored by its own Cramér–Rao SE of the target at the guess (full error budget,
-   shared errors as unit-prior nuisance factors — :mod:`planner.jobs.classroom._pooled`) and by the robust
-   criterion; each student takes their best proposal whose set of compositions no earlier card has
-   and whose SE meets ``design.goal_se``;
-4. every card is then judged by :func:`planner.jobs.plan.assess.assess_study` itself (checks, verdict,
-   χ² profile): a card passes when the verdict is ``resolved``, no check fails and the linear-range
-   check passes outright (every tube inside the range over the guess's uncertainty). A failing card
-   (a check neither the range screen nor the SE foresees, such as the complete-conversion shortcut)
-   falls back to that student's next proposals, then to fresh proposals at growing radius, each
-   assessed; a class that still has failing cards is reported as not sound.
+Every card is then judged by :func:`planner.jobs.plan.assess.assess_study` itself (checks, verdict): a
+card passes when the verdict is ``resolved``, no check fails and the linear-range check passes outright
+(every tube inside the range over the guess's uncertainty). The χ² profile is computed only for cards
+whose Cramér–Rao SE is too large for the asymptotic SE to be trusted (``TRUST_SE``); no output prints it.
+A failing card is replaced by the next spare card, each assessed; a class that still has failing cards is
+reported as not sound.
 
 The comparison baselines are N copies of the single best recipe (the exact design of n tubes by the
 exchange algorithm on the same candidates, as ``kplan design`` makes it, without its per-recipe stock
@@ -45,7 +38,7 @@ import numpy as np
 
 from ...inference import approximate, exchange
 from ...inference.design_criteria import DesignError
-from ...inference.priors import Nodes, prior_nodes
+from ...inference.priors import Nodes
 from ...inference.study import Study
 from ...inputs.limits import check_class_size
 from ...inputs.plan import Plan
@@ -54,33 +47,45 @@ from ...inputs.roster import Roster
 from ...inputs.text import plural
 from ..compile import compile_study
 from ..plan.assess import Assessment, assess_study
-from ..plan.candidates import MAX_CANDIDATES, candidate_tubes
-from ..plan.checks import RANGE_RISK, prior_range_risk
 from ..plan.even import even_series_for
+from ._drafts import Drafts, teaching_drafts
+from ._grid import Grid, design_inputs, feasible_grid, recipe_of, set_key
+from ._jitter import pooled_drafts
 from ._pooled import Rows, pooled_target_se, recipe_rows, student_target_var
+from ._series import Series, Spread, spreads
 
-__all__ = ["Card", "ClassSet", "Draft", "card_problems", "class_set", "class_set_study"]
+__all__ = [
+    "Card",
+    "ClassSet",
+    "Draft",
+    "Series",
+    "Spread",
+    "card_problems",
+    "class_set",
+    "class_set_study",
+]
 
-PROPOSALS = 12  # jittered proposals per student and radius
-MAX_RADIUS = 8  # grid steps a tube may move from its pooled composition
-FALLBACKS = 4  # proposals tried per student when assess fails a card
 STARTS = 8  # exchange starts for the single best recipe (as kplan design)
+ALTERNATIVES_TRIED = 12  # spare cards assessed for a student whose card fails, at most
+TRUST_SE = 0.0434  # SE(log10 K) of a 10 % relative SE of K: above it the profile is computed
+# [from memory: Tellinghuisen 2000, J. Phys. Chem. A 104:2834 — trust the asymptotic SE below ~10 %]
 
 
 @dataclass(frozen=True)
 class Draft:
-    """A card before its assessment: who and the recipe (what a student's card prints)."""
+    """A card before its assessment: who, the recipe (what a student's card prints) and what it varies."""
 
     student: str
     name: str
     section: str
     bench: str
     recipe: Recipe
+    series: Series | None = None
 
 
 @dataclass(frozen=True)
 class Card:
-    """One student's card: who, their recipe and its assessment."""
+    """One student's card: who, their recipe, what it varies, how it spreads, and its assessment."""
 
     student: str
     name: str
@@ -88,6 +93,8 @@ class Card:
     bench: str
     recipe: Recipe
     assessment: Assessment
+    series: Series | None = None
+    spread: Spread | None = None
 
     @property
     def problems(self) -> list[str]:
@@ -123,11 +130,13 @@ class ClassSet:
     best : the single best recipe (exact design of n tubes).
     even : the evenly spaced series of n tubes.
     seed : the seed used.
-    radius_steps : largest grid move any tube needed (0: no jitter was needed).
+    radius_steps : largest grid move any tube needed (cards for the pooled fit; 0 for teaching series).
+    lab : how the cards were made: a kind of ``design.card_series``, or "pooled".
     se : SEs of the target: "best_single", "even_single", "cards_median", "cards_max",
         "pooled" (all cards fitted together, one bottle of each stock for the class),
         "pooled_best_copies", "pooled_even_copies", "pooled_stock_per_section" (each section makes
-        its own stocks), "pooled_without_stock" (stock errors left out: standardised stocks).
+        its own stocks), "pooled_without_stock" (stock errors left out: standardised stocks),
+        "pooled_best_copies_without_stock".
     notes : what the builder did that the instructor should know.
     """
 
@@ -142,10 +151,11 @@ class ClassSet:
     step_mL: float
     se: dict = field(hash=False)
     notes: tuple[str, ...] = ()
+    lab: str = "binding-curve"
 
     def __repr__(self) -> str:
         return (
-            f"ClassSet({len(self.cards)} cards, {sum(c.passes for c in self.cards)} pass, "
+            f"ClassSet({len(self.cards)} {self.lab} cards, {sum(c.passes for c in self.cards)} pass, "
             f"pooled SE {self.se['pooled']:.3g} vs best copies {self.se['pooled_best_copies']:.3g}, "
             f"even copies {self.se['pooled_even_copies']:.3g})"
         )
@@ -159,6 +169,18 @@ class ClassSet:
         keys = {_composition_key(c.recipe) for c in self.cards}
         return len(keys) == len(self.cards)
 
+    @property
+    def efficiency(self) -> float:
+        """Efficiency of the class's pooled fit against N copies of the best single recipe,
+        (SE_copies / SE_pooled)², full error budget (one bottle of each stock for the class)."""
+        return (self.se["pooled_best_copies"] / self.se["pooled"]) ** 2
+
+    @property
+    def efficiency_without_stock(self) -> float:
+        """The same with the stock errors left out (standardised stocks): the price of the cards' shape
+        alone, without the stock errors that cards of different shapes let the pooled fit separate."""
+        return (self.se["pooled_best_copies_without_stock"] / self.se["pooled_without_stock"]) ** 2
+
     def failing(self) -> list[tuple[str, list[str]]]:
         return [(c.student, c.problems) for c in self.cards if not c.passes]
 
@@ -168,6 +190,7 @@ class ClassSet:
             "title": self.title,
             "target": self.target,
             "goal_se": self.goal_se,
+            "lab": self.lab,
             "students": len(self.cards),
             "tubes_per_student": self.best.n_tubes,
             "seed": self.seed,
@@ -176,23 +199,31 @@ class ClassSet:
             "jitter_steps": self.radius_steps,
             "jitter_mL": self.radius_steps * self.step_mL,
             "se": {k: _f(v) for k, v in self.se.items()},
-            "efficiency_vs_best_copies": _f((self.se["pooled_best_copies"] / self.se["pooled"]) ** 2),
+            "efficiency_vs_best_copies": _f(self.efficiency),
+            "efficiency_vs_best_copies_without_stock": _f(self.efficiency_without_stock),
             "se_ratio_even_copies_vs_pooled": _f(self.se["pooled_even_copies"] / self.se["pooled"]),
-            "cards": [
-                {
-                    "student": c.student,
-                    "section": c.section,
-                    "bench": c.bench,
-                    "passes": c.passes,
-                    "problems": c.problems,
-                    "verdict": c.assessment.verdict,
-                    "se": _f(c.assessment.target_se),
-                }
-                for c in self.cards
-            ],
+            "cards": [_card_summary(c) for c in self.cards],
             "failing": [s for s, _ in self.failing()],
             "notes": list(self.notes),
         }
+
+
+def _card_summary(c: Card) -> dict:
+    out = {
+        "student": c.student,
+        "section": c.section,
+        "bench": c.bench,
+        "passes": c.passes,
+        "problems": c.problems,
+        "verdict": c.assessment.verdict,
+        "se": _f(c.assessment.target_se),
+        "series": None
+        if c.series is None
+        else {"kind": c.series.kind, "varied": c.series.varied, "partner": c.series.partner},
+    }
+    if c.spread is not None:
+        out.update(c.spread.summary())
+    return out
 
 
 def _f(x) -> float | None:
@@ -212,129 +243,44 @@ def class_set(
     *,
     tubes: int | None = None,
     seed: int = 0,
+    series: str | None = None,
+    pooled: bool = False,
     progress: Callable[[int, int], None] | None = None,
     drafted: Callable[[tuple[Draft, ...]], None] | None = None,
 ) -> ClassSet:
-    """Cards for every student of ``roster`` (the plan compiled once; see :func:`class_set_study`)."""
+    """Cards for every student of ``roster`` (the plan compiled once; see :func:`class_set_study`);
+    ``series`` defaults to the plan's ``design.card_series``."""
     return class_set_study(
-        compile_study(plan), roster, tubes=tubes, seed=seed, progress=progress, drafted=drafted
+        compile_study(plan),
+        roster,
+        tubes=tubes,
+        seed=seed,
+        series=series or plan.design.card_series,
+        pooled=pooled,
+        progress=progress,
+        drafted=drafted,
     )
 
 
-@dataclass(frozen=True)
-class _Grid:
-    """The feasible candidates and their grid coordinates."""
-
-    recipe: Recipe  # all candidates
-    designed: tuple[str, ...]
-    idx: np.ndarray  # (C',) feasible candidate indices
-    coords: np.ndarray  # (C', d) integer grid coordinates of the designed volumes
-    step_mL: float
-    rows: Rows  # rows of the feasible candidates at the robust nodes
-    nodes: Nodes
-    guess: int  # index of the guess among the nodes
-    crit: np.ndarray  # node weights of the design criterion (robust or the guess alone)
-
-
-def _grid(study: Study) -> _Grid:
-    cand = candidate_tubes(study)
-    if cand.n_grid > MAX_CANDIDATES:  # as kplan design: a coarser multiple of the grid
-        factor = int(math.ceil((cand.n_grid / MAX_CANDIDATES) ** (1.0 / len(cand.designed_ids))))
-        cand = candidate_tubes(study, step_mL=study.bench.step_mL * factor)
-    params = study.params
-    nodes = prior_nodes(params, robust=True)
-    rows = recipe_rows(study, cand.recipe, nodes)
-    lo, hi = study.model.linear_range
-    risk = prior_range_risk(rows.absorbance, rows.band, nodes.weights, lo, hi)
-    gi = int(np.argmin(np.abs(nodes.theta - params.guess).sum(axis=1)))
-    a0 = rows.absorbance[gi]
-    ok = (risk <= RANGE_RISK + 1e-12) & (a0 >= lo) & (a0 <= hi)
-    if not ok.any():
-        raise DesignError(
-            f"no candidate tube keeps the absorbance inside optics.linear_range [{lo:g}, {hi:g}] "
-            f"over the guess's range: use more dilute or more concentrated stocks, or widen "
-            f"linear_range"
-        )
-    idx = np.flatnonzero(ok)
-    cols = [cand.recipe.stock_ids.index(s) for s in cand.designed_ids]
-    coords = np.rint(cand.recipe.volumes_mL[np.ix_(idx, cols)] / cand.step_mL).astype(np.int64)
-    crit = nodes.weights if study.robust else np.eye(len(nodes.weights))[gi]
-    return _Grid(cand.recipe, cand.designed_ids, idx, coords, cand.step_mL, rows.take(idx), nodes, gi, crit)
-
-
-def _nonzero_columns(rows: Rows) -> tuple[np.ndarray, np.ndarray]:
-    return (np.any(rows.stock != 0, axis=(0, 1)), np.any(rows.device != 0, axis=(0, 1)))
-
-
-def _design_inputs(grid: _Grid):
-    """F (G', C', 1, Q) and M0 (Q, Q) for the design algorithms: nodes with weight, shared-error
-    columns that are not identically zero."""
-    ks, kd = _nonzero_columns(grid.rows)
-    g = np.flatnonzero(grid.crit > 0)
-    r = grid.rows
-    F = np.concatenate([r.theta[g], r.stock[g][..., ks], r.device[g][..., kd]], axis=-1)
-    P = r.theta.shape[-1]
-    M0 = np.zeros((F.shape[-1],) * 2)
-    M0[P:, P:] = np.eye(F.shape[-1] - P)
-    return F[:, :, None, :], M0, grid.crit[g]
-
-
-def _neighbours(grid: _Grid, support: np.ndarray, radius: int) -> tuple[np.ndarray, np.ndarray]:
-    """Feasible grid neighbours (within ±radius steps per designed stock) of each support point:
-    a padded table (S, O) of feasible indices, valid entries first, and their counts (S,)."""
-    d = grid.coords.shape[1]
-    off = np.stack(
-        [m.ravel() for m in np.meshgrid(*([np.arange(-radius, radius + 1)] * d), indexing="ij")], axis=1
-    )
-    off = off[np.argsort(np.abs(off).sum(axis=1), kind="stable")]  # nearest first
-    shift = grid.coords.min(axis=0) - radius
-    span = grid.coords.max(axis=0) - shift + radius + 1
-    mult = np.concatenate([[1], np.cumprod(span[:-1])]).astype(np.int64)
-    keys = (grid.coords - shift) @ mult
-    order = np.argsort(keys)
-    skeys = keys[order]
-    want = ((grid.coords[support][:, None, :] + off[None, :, :]) - shift) @ mult  # (S, O)
-    pos = np.clip(np.searchsorted(skeys, want), 0, skeys.size - 1)
-    found = skeys[pos] == want
-    table = np.where(found, order[pos], -1)
-    first = np.argsort(~found, axis=1, kind="stable")  # valid entries first
-    table = np.take_along_axis(table, first, axis=1)
-    return table, found.sum(axis=1)
-
-
-def _score(grid: _Grid, props: np.ndarray, t: int) -> tuple[np.ndarray, np.ndarray]:
-    """(SE at the guess, robust loss) of proposals (B, n) of feasible indices."""
-    v = student_target_var(grid.rows.take(props), t)  # (G, B)
-    se = np.sqrt(v[grid.guess])
-    with np.errstate(divide="ignore"):
-        loss = grid.crit @ np.log(v)
-    return se, loss
-
-
-def _recipe(study: Study, grid: _Grid, tubes_idx: np.ndarray) -> Recipe:
-    """A student's recipe from feasible indices, tubes ordered by the designed volumes."""
-    rec = grid.recipe
-    chosen = grid.idx[tubes_idx]
-    vols = {sid: rec.column(sid)[chosen] for sid in study.bench.dispensed_ids(rec)}
-    order = np.lexsort([vols[s] for s in reversed(grid.designed)])
-    return study.bench.make_recipe({k: v[order] for k, v in vols.items()})
-
-
-def class_set_study(  # noqa: C901
+def class_set_study(
     study: Study,
     roster: Roster,
     *,
     tubes: int | None = None,
     seed: int = 0,
+    series: str = "binding-curve",
+    pooled: bool = False,
     progress: Callable[[int, int], None] | None = None,
     drafted: Callable[[tuple[Draft, ...]], None] | None = None,
 ) -> ClassSet:
-    """:func:`class_set` on a compiled plan (module docstring: how the students are spread).
+    """:func:`class_set` on a compiled plan (module docstring: how the cards are made).
 
     Parameters
     ----------
     tubes : tubes per student (default the plan's design.tubes).
-    seed : seeds the exchange starts and the jitter; same seed and roster → the same cards.
+    seed : seeds the draws and the exchange starts; same seed and roster → the same cards.
+    series : the kind of teaching series ("binding-curve", "mole-ratio", "job").
+    pooled : make the cards for the pooled fit alone instead of teaching series.
     progress : callback(done, total) while the cards are assessed.
     drafted : callback given the drafted cards before they are assessed (so the printing of the
         students' cards can start meanwhile); a card the assessment replaces differs from its draft.
@@ -342,12 +288,54 @@ def class_set_study(  # noqa: C901
     Raises
     ------
     DesignError
-        When nothing can be designed (nothing fitted, no tube inside the linear range, too few tubes).
+        When nothing can be designed (nothing fitted, no tube inside the linear range, too few tubes,
+        no teaching series of the kind fits).
     """
+    n, N = _sizes(study, roster, tubes)
+    rng = np.random.default_rng(seed)
+    grid = feasible_grid(study)
+    ap, best = _best_recipe(study, grid, n, seed)
+    t = study.params.target
+    if pooled:
+        drafts = pooled_drafts(grid, ap, n, N, study.goal_se, rng, t)
+    else:
+        drafts = teaching_drafts(study, grid, n, N, series, rng)
+    recipes = [_recipe(study, grid, c, s) for c, s in zip(drafts.cards, drafts.series, strict=True)]
+    if drafted is not None:
+        drafted(tuple(Draft(*_who(roster, s), recipes[s], drafts.series[s]) for s in range(N)))
+    cards, rescued = _assess_cards(study, grid, roster, drafts, recipes, progress)
+    notes = list(drafts.notes)
+    if rescued:
+        notes.append(f"{rescued} card(s) failed a check of the assessment and were drawn again")
+    even = even_series_for(study, n)
+    se = _pooled_ses(study, cards, best, even, roster)
+    notes = _class_notes(study, grid, se, n, notes)
+    return ClassSet(
+        study.title,
+        study.target,
+        study.goal_se,
+        tuple(cards),
+        best,
+        even,
+        seed,
+        drafts.radius,
+        grid.step_mL,
+        se,
+        tuple(notes),
+        "pooled" if pooled else series,
+    )
+
+
+def _sizes(study: Study, roster: Roster, tubes: int | None) -> tuple[int, int]:
+    """Tubes per student and students, refusing what cannot be designed."""
     n, N = check_class_size(len(roster), tubes or study.tubes)
     params = study.params
-    t = params.target
-    if params.size == 0 or t < 0:
+    if study.bench.titration is not None:
+        raise DesignError(
+            "this plan is an in-cuvette titration ([titration]): a class set gives each student a series "
+            "of tubes; remove [titration] to make tube cards"
+        )
+    if params.size == 0 or params.target < 0:
         raise DesignError(
             f"the target {study.target} is held fixed (log_beta_sd = 0): give it log_beta_sd > 0"
         )
@@ -356,160 +344,85 @@ def class_set_study(  # noqa: C901
             f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
             f"({', '.join(params.names)}): ask for at least {params.size} tubes per student"
         )
-    rng = np.random.default_rng(seed)
-    grid = _grid(study)
-    F, M0, nu = _design_inputs(grid)
-    kw = dict(criterion="target", target=t, M0=M0, node_weights=nu)
+    return n, N
+
+
+def _best_recipe(study: Study, grid: Grid, n: int, seed: int):
+    """The optimal approximate design of n tubes and the single best recipe (exact design by exchange)."""
+    F, M0, nu = design_inputs(grid)
+    kw = dict(criterion="target", target=study.params.target, M0=M0, node_weights=nu)
     ap = approximate.approximate_design(F, n_tubes=n, **kw)
     ex = exchange.exact_design(F, n, rng=np.random.default_rng(seed), starts=STARTS, approx=ap, **kw)
-    best = _recipe(study, grid, np.repeat(np.arange(ex.counts.size), ex.counts))
-    # 1. the pooled design, dealt out: tube i of the sorted list goes to student i mod N
-    pooled = exchange._efficient_rounding(ap.weights, N * n)
-    alloc = np.repeat(np.arange(pooled.size), pooled).reshape(n, N).T  # (N, n)
-    # 2–3. jittered proposals, scored, the best distinct sound one per student
-    goal = study.goal_se
-    chosen: list[np.ndarray | None] = [None] * N
-    spare: list[list[np.ndarray]] = [[] for _ in range(N)]
-    used: set[bytes] = set()
-    radius = 0
-    pending = np.arange(N)
-    notes: list[str] = []
-    while pending.size and radius <= MAX_RADIUS:
-        props, se, loss = _proposals(grid, alloc[pending], radius, 1 if radius == 0 else PROPOSALS, rng, t)
-        rank = np.argsort(np.where(se <= goal, loss, np.inf), axis=1, kind="stable")
-        left = []
-        for i, s in enumerate(pending):  # one entry per student and proposal: hashing, not arithmetic
-            for k in rank[i]:
-                if not se[i, k] <= goal:
-                    break
-                key = _set_key(grid, props[i, k])
-                if key in used:
-                    continue
-                if chosen[s] is None:
-                    chosen[s] = props[i, k]
-                    used.add(key)
-                elif len(spare[s]) < FALLBACKS:
-                    spare[s].append(props[i, k])
-            if chosen[s] is None:
-                left.append(s)
-        pending = np.array(left, dtype=int)
-        if pending.size:
-            radius += 1
-    radius_used = radius
-    unplaced = {int(s) for s in pending}
-    if pending.size:
-        notes.append(
-            f"{pending.size} student(s) got no distinct recipe meeting goal_se within ±{MAX_RADIUS} "
-            f"grid steps: their cards repeat the pooled allocation and are marked as failing"
-        )
-        for s in pending:
-            chosen[s] = alloc[s]
-    # 4. judge every card with the assessment itself
-    recipes = [_recipe(study, grid, chosen[s]) for s in range(N)]
-    if drafted is not None:
-        drafted(
-            tuple(
-                Draft(roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s], recipes[s])
-                for s in range(N)
-            )
-        )
-    cards = []
-    rescued = 0
-    for s in range(N):
-        rec = recipes[s]
-        a = assess_study(study, rec, trials=0, model_check=False)
-        if card_problems(a) and s not in unplaced:
-            for alt in spare[s]:  # the student's next proposals, while assess fails the card
-                key_new = _set_key(grid, alt)
-                if key_new in used:
-                    continue
-                rec2 = _recipe(study, grid, alt)
-                a2 = assess_study(study, rec2, trials=0, model_check=False)
-                if not card_problems(a2):
-                    used.discard(_set_key(grid, chosen[s]))
-                    used.add(key_new)
-                    chosen[s], rec, a = alt, rec2, a2
-                    break
-        if card_problems(a) and s not in unplaced:
-            found = _rescue(study, grid, alloc[s], goal, used, rng, t)
+    return ap, recipe_of(study, grid, np.repeat(np.arange(ex.counts.size), ex.counts))
+
+
+def _recipe(study: Study, grid: Grid, tubes_idx: np.ndarray, series: Series | None) -> Recipe:
+    return recipe_of(study, grid, tubes_idx, None if series is None else series.varied)
+
+
+def _who(roster: Roster, s: int) -> tuple[str, str, str, str]:
+    return roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s]
+
+
+def _assess(study: Study, recipe: Recipe) -> Assessment:
+    """The card's assessment: Cramér–Rao and checks; the χ² profile only where the asymptotic SE may not
+    be trusted (it decides a 'bounded' verdict; no output prints it)."""
+    a = assess_study(study, recipe, trials=0, model_check=False, profile_chi2=False)
+    se = a.target_se
+    if se is None or not np.isfinite(se) or se > TRUST_SE:
+        a = assess_study(study, recipe, trials=0, model_check=False)
+    return a
+
+
+def _assess_cards(study, grid, roster, drafts: Drafts, recipes, progress):
+    """Assess every drafted card; a failing card is replaced by the student's next alternatives."""
+    used = {set_key(grid, c) for c in drafts.cards}
+    cards, rescued = [], 0
+    for s in range(len(recipes)):  # one assessment per card
+        rec, ser, a = recipes[s], drafts.series[s], _assess(study, recipes[s])
+        if card_problems(a) and s not in drafts.unplaced:
+            found = _replace(study, grid, drafts, s, used)
             if found is not None:
-                used.discard(_set_key(grid, chosen[s]))
-                used.add(_set_key(grid, found[0]))
-                chosen[s], rec, a, r_found = found
-                radius_used = max(radius_used, r_found)
+                rec, ser, a = found
                 rescued += 1
-        cards.append(Card(roster.ids[s], roster.names[s], roster.sections[s], roster.benches[s], rec, a))
+        cards.append(Card(*_who(roster, s), rec, a, ser))
         if progress is not None:
-            progress(s + 1, N)
-    if rescued:
-        notes.append(f"{rescued} card(s) failed a check of the assessment and were drawn again")
-    even = even_series_for(study, n)
-    se = _pooled_ses(study, cards, best, even, roster)
+            progress(s + 1, len(recipes))
+    spread = spreads(study, [c.recipe for c in cards])
+    return [
+        Card(*_who(roster, s), c.recipe, c.assessment, c.series, spread[s]) for s, c in enumerate(cards)
+    ], rescued
+
+
+def _replace(study, grid, drafts: Drafts, s: int, used: set[bytes]):
+    """The first of the student's alternatives that the assessment passes (at most ALTERNATIVES_TRIED)."""
+    for k, (alt, ser) in enumerate(drafts.alternatives(s, used)):
+        if k >= ALTERNATIVES_TRIED:
+            break
+        rec = _recipe(study, grid, alt, ser)
+        a = _assess(study, rec)
+        if not card_problems(a):
+            used.discard(set_key(grid, drafts.cards[s]))
+            used.add(set_key(grid, alt))
+            drafts.cards[s] = alt
+            return rec, ser, a
+    return None
+
+
+def _class_notes(study: Study, grid: Grid, se: dict, n: int, notes: list[str]) -> list[str]:
+    goal = study.goal_se
     if not se["best_single"] <= goal:
         notes.insert(
             0,
-            f"even the best recipe of {plural(n, 'tube')} gives SE {se['best_single']:.3g} > goal {goal:g}: "
-            f"no card can pass; give each student more tubes (--tubes) or relax design.goal_se",
+            f"even the best recipe of {plural(n, 'tube')} gives SE {se['best_single']:.3g} > goal "
+            f"{goal:g}: no card can pass; give each student more tubes (--tubes) or relax design.goal_se",
         )
     if grid.step_mL != study.bench.step_mL:
         notes.append(
             f"the candidates were searched on a {grid.step_mL:g} mL grid (a multiple of the plan's "
             f"{study.bench.step_mL:g} mL) to keep the search small"
         )
-    return ClassSet(
-        study.title,
-        study.target,
-        goal,
-        tuple(cards),
-        best,
-        even,
-        seed,
-        radius_used,
-        grid.step_mL,
-        se,
-        tuple(notes),
-    )
-
-
-def _proposals(grid: _Grid, alloc: np.ndarray, radius: int, K: int, rng: np.random.Generator, t: int):
-    """K jittered proposals for each row of ``alloc`` (m, n): every tube moved to a uniformly drawn
-    feasible grid neighbour within ±radius steps, all at once. Returns the proposals (m, K, n) and
-    their SE at the guess and robust loss (m, K)."""
-    m, n = alloc.shape
-    sup = np.unique(alloc)
-    table, count = _neighbours(grid, sup, radius)
-    where = np.searchsorted(sup, alloc)  # (m, n) rows of the table
-    cnt = count[where][:, None, :]
-    pick = np.minimum((rng.random((m, K, n)) * cnt).astype(int), cnt - 1)
-    props = table[where[:, None, :], pick]  # (m, K, n) feasible indices
-    se, loss = _score(grid, props.reshape(-1, n), t)
-    return props, se.reshape(m, K), loss.reshape(m, K)
-
-
-RESCUE_TRIES = 3  # assessments per radius for a card that failed a check
-
-
-def _rescue(study: Study, grid: _Grid, alloc_row: np.ndarray, goal: float, used: set, rng, t: int):
-    """Fresh proposals for one student whose card failed a check (a check the range screen and the
-    SE cannot foresee, such as a hand-analysis shortcut): growing radius, best first, each assessed."""
-    for radius in range(1, MAX_RADIUS + 1):
-        props, se, loss = _proposals(grid, alloc_row[None, :], radius, PROPOSALS, rng, t)
-        tried = 0
-        for k in np.argsort(np.where(se[0] <= goal, loss[0], np.inf), kind="stable"):
-            if not se[0, k] <= goal or tried >= RESCUE_TRIES:
-                break
-            if _set_key(grid, props[0, k]) in used:
-                continue
-            tried += 1
-            rec = _recipe(study, grid, props[0, k])
-            a = assess_study(study, rec, trials=0, model_check=False)
-            if not card_problems(a):
-                return props[0, k], rec, a, radius
-    return None
-
-
-def _set_key(grid: _Grid, tubes_idx: np.ndarray) -> bytes:
-    return np.unique(grid.idx[tubes_idx]).tobytes()
+    return notes
 
 
 def _pooled_ses(study: Study, cards: list[Card], best: Recipe, even: Recipe, roster: Roster) -> dict:
@@ -553,4 +466,5 @@ def _pooled_ses(study: Study, cards: list[Card], best: Recipe, even: Recipe, ros
         "pooled_even_copies": pooled(re_, True),
         "pooled_stock_per_section": pooled(rc, False, group=np.array(roster.sections)),
         "pooled_without_stock": pooled(rc, False, shared=False),
+        "pooled_best_copies_without_stock": pooled(rb, True, shared=False),
     }

@@ -1,14 +1,24 @@
-"""Grading a class: every student's readings against the key, the class's pooled constant, and the likely
-mix-up behind each flagged student (``kplan grade``).
+"""Grading a class by consensus: every student's readings against the model the class measured, the class's
+constant with how far the guess was off, and the likely mix-up behind each flagged student (``kplan grade``).
 
-A student is flagged when their readings, taken together, are not what their recipe predicts: the χ² of
-the readings against the expected values with the full covariance of the error budget exceeds the 95 %
-point of χ²(n) (so a clean student is flagged 5 % of the time — the test's nominal rate — however many
-tubes they read); the key's per-tube bands are shown beside it. Each student's own constant is fitted
-where their tubes determine it. The class's constant comes from one global fit of every student not
-flagged (their tubes share the stock bottles, so the stock errors are shared in the fit's covariance).
-Flagged students get the likely mix-up (:mod:`planner.jobs.classroom.mixup`), judged with the pooled
-constants.
+1. Readings are screened: a student with a tube missing is "incomplete"; a number above 10 is not an
+   absorbance (no photometer reads it) — a whole student's readings between 0 and 100 are checked as %T —
+   and such students are flagged and left out of the class's fit. A number that is neither an absorbance
+   nor a %T (beyond ±100, or above 10 beside negative readings) is refused.
+2. Each student's own constant is fitted where their tubes determine it; their median starts the class's
+   fit.
+3. The class's model (:mod:`planner.jobs.classroom.consensus`): one fit of every usable student's
+   readings (constants, absorptivities and the class's stock factors fitted, not taken from the plan),
+   students whose readings fail against it set aside until the set settles.
+4. Each student is judged against the class's model with the class fit's own uncertainty carried into the
+   test: flagged when their χ² exceeds the 95 % point of χ²(n), so a clean student is flagged about one time
+   in twenty whatever the guess was. The key's bands (made before the lab, at the guess) are shown beside
+   bands recomputed at the class's constants.
+5. Flagged students get the likely mix-up judged against the class's model
+   (:mod:`planner.jobs.classroom.mixup`).
+
+Without a class model (no usable student, or the class's readings do not determine the constants) each
+student is judged against the plan's guess with the full error budget, and the grade says so.
 """
 
 from __future__ import annotations
@@ -17,18 +27,20 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...inference.precision import unpack, whitening
+from ...inference.precision import whitening
 from ...inference.study import Study
 from ...inference.tails import chi2_sf
+from ...inputs.errors import InputError
 from ...inputs.gradebook import KeyCard
-from ...inputs.readings import Readings
-from ...inputs.recipe import Recipe, RecipeError, concat_recipes
-from ...uncertainty.budget import error_budget
-from ..compile import expected_state
-from ..measure.fit import Fit, fit_study
-from .mixup import Diagnosis, diagnose
+from ...inputs.recipe import RecipeError
+from .consensus import FLAG_LEVEL, ClassModel, Judgement, Tubes, robust_class
+from .grade_text import class_summary, student_summary
+from .mixup import NOT_ABSORBANCE, Baseline, Diagnosis, diagnose, guess_baseline
+from .own import own_fits
 
-FLAG_LEVEL = 0.05  # the per-student χ² test's level: the share of clean students flagged [common practice]
+PERCENT_MAX = 100.0  # beyond this a number is neither an absorbance nor a %T
+
+__all__ = ["FLAG_LEVEL", "ClassGrade", "StudentGrade", "grade_class"]
 
 
 @dataclass(frozen=True)
@@ -39,11 +51,13 @@ class StudentGrade:
     ----------
     card : the key's card.
     absorbance : (n,) their readings (NaN where a tube was not reported).
-    in_band : (n,) reading inside the key's band.
-    chi2, dof, p_value : the readings against the expectations (full covariance).
+    in_band : (n,) reading inside the key's band (made at the guess).
+    chi2, dof, p_value : the readings against the class's model (NaN when not judged).
     verdict : "ok" | "flagged" | "incomplete".
     own : their own (log β, SE) of the target (None when their tubes cannot determine it).
     diagnosis : the likely mix-up (flagged students only).
+    class_expected, class_band_low, class_band_high : (n,) each tube's reading predicted by the class's
+        model and its ±2 sd band (NaN without a class model).
     """
 
     card: KeyCard
@@ -55,128 +69,79 @@ class StudentGrade:
     verdict: str
     own: tuple[float, float] | None
     diagnosis: Diagnosis | None
+    class_expected: np.ndarray
+    class_band_low: np.ndarray
+    class_band_high: np.ndarray
+
+    @property
+    def in_class_band(self) -> np.ndarray:
+        return (self.absorbance >= self.class_band_low) & (self.absorbance <= self.class_band_high)
 
     def summary(self, target: str) -> dict:
-        def f(x):
-            x = float(x)
-            return x if np.isfinite(x) else None
-
-        own = {"log_beta": f(self.own[0]), "se": f(self.own[1])} if self.own is not None else None
-        return {
-            "student": self.card.student,
-            "name": self.card.name,
-            "section": self.card.section,
-            "verdict": self.verdict,
-            "explanation": self.diagnosis.text if self.diagnosis else None,
-            "evidence": self.diagnosis.evidence if self.diagnosis else None,
-            "chi2": f(self.chi2),
-            "dof": self.dof,
-            "p_value": f(self.p_value),
-            "tubes_in_band": int(np.sum(self.in_band)),
-            "tubes": int(self.in_band.size),
-            "own_fit": own,
-            "readings": [
-                {
-                    "tube": t,
-                    "absorbance": f(a),
-                    "expected": f(e),
-                    "band_low": f(lo),
-                    "band_high": f(hi),
-                    "in_band": bool(ib),
-                }
-                for t, a, e, lo, hi, ib in zip(
-                    self.card.recipe.tubes,
-                    self.absorbance,
-                    self.card.expected,
-                    self.card.band_low,
-                    self.card.band_high,
-                    self.in_band,
-                    strict=True,
-                )
-            ],
-        }
+        return student_summary(self)
 
 
 @dataclass(frozen=True)
 class ClassGrade:
-    """The class: each student's grade and the pooled fit.
+    """The class: each student's grade and the class's model.
 
     Attributes
     ----------
     students : one :class:`StudentGrade` per key card, in key order.
-    pooled : the global fit of the students not flagged (None when none remain).
-    excluded : (student, reason) of those left out of the pooled fit.
+    pooled : the class's model (None when no student could be pooled).
+    excluded : (student, reason) of those left out of the class's fit.
     unknown : students in the results who are not in the key.
+    study : the compiled plan (for the guess the class is compared with).
     """
 
     title: str
     target: str
     students: tuple[StudentGrade, ...]
-    pooled: Fit | None
+    pooled: ClassModel | None
     excluded: tuple[tuple[str, str], ...]
     unknown: tuple[str, ...]
+    study: Study
 
     def summary(self) -> dict:
-        pooled = None
-        if self.pooled is not None:
-            p = self.pooled.summary()
-            pooled = {
-                "students": len(self.students) - len(self.excluded),
-                "tubes": int(self.pooled.used.sum()),
-                "determined": p["determined"],
-                "reason": p["reason"],
-                "parameters": p["parameters"],
-                "chi2": p["chi2"],
-                "dof": p["dof"],
-                "p_value": p["p_value"],
-                "chi2_verdict": p["chi2_verdict"],
-            }
-        return {
-            "title": self.title,
-            "target": self.target,
-            "students": [s.summary(self.target) for s in self.students],
-            "pooled": pooled,
-            "excluded": [{"student": s, "reason": r} for s, r in self.excluded],
-            "unknown_students": list(self.unknown),
-        }
+        return class_summary(self)
 
 
-def own_fits(
-    study: Study, recipes: list[Recipe], absorbance: np.ndarray, whiten: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Each student's own fit, all at once: recipes with the same number of tubes n, readings (S, n),
-    whitening matrices (S, n, n). Returns estimates and SEs (S, P) and whether each is determined (S,)."""
-    from ...inference.lm import fit_many
-    from ...inference.precision import ReadingModel
-    from ...model.compiled import tube_ions_M
-    from ..measure.fit import N_STARTS, _not_determined
+def _readings(cards: tuple[KeyCard, ...], results: dict[str, dict[str, float]]) -> list[np.ndarray]:
+    rows = []
+    for card in cards:  # bookkeeping per student; the numerics are batched over students
+        got = results.get(card.student, {})
+        for t in got:
+            if t not in card.recipe.tubes:
+                raise RecipeError(
+                    f"results, student {card.student}",
+                    f"tube '{t}' is not on their card ({', '.join(card.recipe.tubes)})",
+                )
+        a = np.array([got.get(t, np.nan) for t in card.recipe.tubes], dtype=float)
+        bad = np.flatnonzero(np.isinf(a) | (np.abs(np.nan_to_num(a)) > PERCENT_MAX))
+        if bad.size:
+            i = int(bad[0])
+            raise InputError(
+                f"results, student {card.student}, tube {card.recipe.tubes[i]}: {a[i]:g} is not a reading "
+                f"(neither an absorbance nor a %T): correct it or leave the tube out"
+            )
+        rows.append(a)
+    return rows
 
-    model, params = study.model, study.params
-    S = len(recipes)
-    tot = np.stack([(r.volumes_mL @ model.stock_conc_M) / r.total_volume_mL[:, None] for r in recipes])
-    ions = np.stack([tube_ions_M(model, r.volumes_mL, r.total_volume_mL) for r in recipes])
-    # several starts per student over the guess's range, as kplan fit does: tile the students
-    k = N_STARTS
-    reading = ReadingModel(model, params, np.repeat(tot, k, axis=0), np.repeat(ions, k, axis=0))
-    starts = np.tile(params.guess, (S * k, 1))
-    if params.target >= 0:
-        starts[:, params.target] += np.tile(np.linspace(-3, 3, k), S) * params.prior_sd[params.target]
-    lo, hi = reading.bounds()
-    res = fit_many(
-        reading.f,
-        starts,
-        np.repeat(absorbance, k, axis=0),
-        jac=reading.jac,
-        whiten=np.repeat(whiten, k, axis=0),
-        scale_cov=False,
-        lower=lo,
-        upper=hi,
-    )
-    chi = np.where(res.converged, res.chi2, np.inf).reshape(S, k)
-    best = np.argmin(chi, axis=1) + np.arange(S) * k
-    theta, se, conv = res.theta[best], res.se[best], res.converged[best]
-    ok = np.array([_not_determined(params, theta[i], se[i], bool(conv[i]), lo, hi) is None for i in range(S)])
-    return theta, se, ok
+
+def _screen(study: Study, cards, rows) -> tuple[np.ndarray, np.ndarray]:
+    """(complete, not absorbances) per student."""
+    complete = np.array([bool(np.all(np.isfinite(a))) for a in rows])
+    top = NOT_ABSORBANCE
+    odd = np.array([c and bool(np.any(a > top)) for a, c in zip(rows, complete, strict=True)])
+    for card, a, o in zip(cards, rows, odd, strict=True):
+        if o and np.any(a < 0):
+            i = int(np.argmax(a))
+            raise InputError(
+                f"results, student {card.student}, tube {card.recipe.tubes[i]}: {a[i]:g} is not an "
+                f"absorbance "
+                f"(above {top:g}) and other readings are negative, so not a %T either: correct the readings"
+            )
+    return complete, odd
 
 
 def grade_class(
@@ -186,78 +151,106 @@ def grade_class(
     *,
     diagnose_flagged: bool = True,
 ) -> ClassGrade:
-    """Grade every student of the key against their readings (see the module docstring)."""
-    model, params = study.model, study.params
+    """Grade every student of the key against the class's model (see the module docstring)."""
     known = {c.student for c in cards}
     unknown = tuple(sorted(s for s in results if s not in known))
-    rows = []
-    for card in cards:  # bookkeeping per student; the numerics below are batched over students
-        got = results.get(card.student, {})
-        for t in got:
-            if t not in card.recipe.tubes:
-                raise RecipeError(
-                    f"results, student {card.student}",
-                    f"tube '{t}' is not on their card ({', '.join(card.recipe.tubes)})",
-                )
-        a = np.array([got.get(t, np.nan) for t in card.recipe.tubes], dtype=float)
-        rows.append((card, a))
-    complete = [i for i, (_, a) in enumerate(rows) if np.all(np.isfinite(a))]
-    chi2 = np.full(len(rows), np.nan)
-    W: dict[int, np.ndarray] = {}
-    expected: dict[int, np.ndarray] = {}
-    for i in complete:  # one small error budget per student (their own tubes)
-        card, a = rows[i]
-        state = expected_state(model, card.recipe)
-        W[i] = whitening(error_budget(study.bench, model, card.recipe, state).total)
-        expected[i] = state.absorbance
-        r = W[i] @ (a - state.absorbance)
-        chi2[i] = float(r @ r)
-    own: dict[int, Fit | tuple[float, float] | None] = {}
-    by_n: dict[int, list[int]] = {}
-    for i in complete:
-        if rows[i][1].size > params.size:
-            by_n.setdefault(rows[i][1].size, []).append(i)
-    for _n, idx in by_n.items():
-        theta, se, ok = own_fits(
-            study,
-            [rows[i][0].recipe for i in idx],
-            np.stack([rows[i][1] for i in idx]),
-            np.stack([W[i] for i in idx]),
-        )
-        t = params.target
-        for j, i in enumerate(idx):
-            own[i] = (float(theta[j, t]), float(se[j, t])) if ok[j] and t >= 0 else None
-    verdicts = []
-    for i, (_card, a) in enumerate(rows):
-        if i not in W:
-            verdicts.append("incomplete")
-        else:
-            verdicts.append("flagged" if chi2_sf(chi2[i], a.size) < FLAG_LEVEL else "ok")
-    ok_idx = [i for i, v in enumerate(verdicts) if v == "ok"]
-    excluded = tuple(
-        (
-            rows[i][0].student,
-            "readings do not match the recipe (χ² test)" if v == "flagged" else "not every tube was reported",
-        )
-        for i, v in enumerate(verdicts)
-        if v != "ok"
+    rows = _readings(cards, results)
+    complete, odd = _screen(study, cards, rows)
+    graded = np.flatnonzero(complete)  # students with every tube read
+    tubes = (
+        Tubes.of(study.model, [cards[i].recipe for i in graded], [rows[i] for i in graded])
+        if graded.size
+        else None
     )
-    pooled = None
-    lb, eps = model.log_beta, model.epsilon_M_cm
-    if ok_idx:
-        rec = concat_recipes([rows[i][0].recipe for i in ok_idx], [rows[i][0].student for i in ok_idx])
-        pooled = fit_study(
-            study, Readings(rec, np.concatenate([rows[i][1] for i in ok_idx])), keep_out_of_range=True
-        )
-        if pooled.determined:
-            lb, eps, _ = unpack(model, params, pooled.estimate)
-    students = []
-    for i, (card, a) in enumerate(rows):
-        diag = None
-        if verdicts[i] == "flagged" and diagnose_flagged:
-            diag = diagnose(study, card.recipe, a, log_beta=lb, epsilon_M_cm=eps)
-        n = a.size if i in W else 0
-        p = float(chi2_sf(chi2[i], n)) if n else float("nan")
+    usable = ~odd[graded]
+    own = own_fits(study, tubes, usable) if tubes is not None else {}
+    cm, jd = None, None
+    if tubes is not None and usable.any():
+        cm, jd = robust_class(study, tubes, usable, _start(study, own))
+    students = _grades(study, cards, rows, graded, odd, own, cm, jd, tubes, diagnose_flagged)
+    excluded = tuple(
+        (s.card.student, _why_out(s, odd[i]))
+        for i, s in enumerate(students)
+        if not _in_fit(i, graded, cm, jd)
+    )
+    return ClassGrade(
+        study.title, study.target, tuple(students), cm if jd is not None else None, excluded, unknown, study
+    )
+
+
+def _start(study: Study, own: dict[int, tuple[np.ndarray, np.ndarray]]) -> np.ndarray:
+    """The median of the students' own fits (robust while fewer than half are wrong), else the guess."""
+    if len(own) >= 3:
+        return np.median(np.stack([theta for theta, _ in own.values()]), axis=0)
+    return study.params.guess.copy()
+
+
+def _in_fit(i: int, graded: np.ndarray, cm: ClassModel | None, jd: Judgement | None) -> bool:
+    if cm is None or jd is None:
+        return False
+    pos = np.flatnonzero(graded == i)
+    return bool(pos.size and cm.used[pos[0]])
+
+
+def _why_out(s: StudentGrade, odd: bool) -> str:
+    if s.verdict == "incomplete":
+        return "not every tube was reported"
+    if odd:
+        return "readings are not absorbances"
+    return "readings do not match the class's model (χ² test)"
+
+
+def _grades(study, cards, rows, graded, odd, own, cm, jd, tubes, diagnose_flagged) -> list[StudentGrade]:
+    pos = {int(i): k for k, i in enumerate(graded)}
+    starts = np.concatenate([[0], np.cumsum(tubes.sizes)[:-1]]) if tubes is not None else np.zeros(0, int)
+    out = []
+    t = study.params.target
+    for i, (card, a) in enumerate(zip(cards, rows, strict=True)):
+        n = a.size
+        nan = np.full(n, np.nan)
         in_band = (a >= card.band_low) & (a <= card.band_high)
-        students.append(StudentGrade(card, a, in_band, float(chi2[i]), n, p, verdicts[i], own.get(i), diag))
-    return ClassGrade(study.title, study.target, tuple(students), pooled, excluded, unknown)
+        o = own.get(pos.get(i, -1))
+        own_t = (float(o[0][t]), float(o[1][t])) if o is not None and t >= 0 else None
+        if i not in pos:
+            out.append(
+                StudentGrade(card, a, in_band, np.nan, 0, np.nan, "incomplete", own_t, None, nan, nan, nan)
+            )
+            continue
+        k = pos[i]
+        base, chi2, p = _judged(study, card, a, k, jd, starts, cm)
+        flagged = bool(odd[i]) or p < FLAG_LEVEL
+        diag = None
+        if flagged and diagnose_flagged:
+            diag = diagnose(study, card.recipe, a, baseline=base)
+        sd = np.sqrt(np.diag(base.cov)) if jd is not None else nan
+        exp = base.expected if jd is not None else nan
+        out.append(
+            StudentGrade(
+                card,
+                a,
+                in_band,
+                chi2,
+                n,
+                p,
+                "flagged" if flagged else "ok",
+                own_t,
+                diag,
+                exp,
+                exp - 2 * sd,
+                exp + 2 * sd,
+            )
+        )
+    return out
+
+
+def _judged(study, card, a, k, jd, starts, cm) -> tuple[Baseline, float, float]:
+    """The baseline a student is judged against, their χ² and its upper tail."""
+    n = a.size
+    if jd is None:  # no class model: the plan's guess with the full error budget
+        base = guess_baseline(study, card.recipe)
+        r = whitening(base.cov) @ (a - base.expected)
+        chi2 = float(r @ r)
+        return base, chi2, float(chi2_sf(chi2, n))
+    sl = slice(starts[k], starts[k] + n)
+    base = Baseline(cm.stock_model(study), jd.expected[sl], *jd.parts_of(k))
+    return base, float(jd.stat[k]), float(jd.p[k])

@@ -1,51 +1,71 @@
 """The likely mix-up: which slip at the bench best explains readings that do not match their recipe.
 
-Each explanation is a hypothesis about what was really in the tubes, or about the reading, and predicts
-every tube's absorbance with the known constants (the plan's, or the class's pooled fit):
+The readings are judged against a baseline: the class's own model (its constants, its stocks'
+fitted concentrations, and each student's covariance about it, :mod:`planner.jobs.classroom.consensus`),
+or, without a class, the plan's guess with the full error budget. Each explanation predicts every
+reading:
 
-- ``wrong-stock``: one reagent taken from another bottle of the plan, or from a 10× more concentrated or
-  10× more dilute bottle of the same reagent, in every tube;
+- the bench slips of :mod:`planner.jobs.classroom.slips` (a wrong or wrongly made stock, two dispensers
+  swapped, a misread delivery, a tube not made up to the mark), predicted with the baseline's model;
 - ``swapped-tubes``: two tubes read in each other's place;
-- ``misread-volume``: one delivery off by 1 mL or 0.1 mL (a burette read at the wrong mark) or with its
-  two last digits transposed (2.15 mL delivered as 2.51 mL);
-- ``not-made-up``: one tube not filled to the mark (its volume short by an unknown fraction);
-- ``wavelength``: every reading scaled by one factor (a wrong or uncalibrated wavelength scales ε);
-- ``blank``: every reading shifted by one offset (a missing or wrong blank).
+- ``wavelength``: every reading scaled by one factor (a wrong or uncalibrated wavelength scales ε; a
+  cuvette of another path does the same);
+- ``blank``: every reading shifted by one offset (a missing or wrong blank);
+- ``drift``: a baseline drifting by the same step from one reading to the next, in the card's order;
+- ``noise``: the readings scatter more than the error model allows (its scale fitted), no slip needed.
 
-Each is scored by its log-likelihood under the error budget's covariance Σ of the intended recipe,
-log L = −½ rᵀ Σ⁻¹ r, against "no mix-up", and ranked by the approximate log posterior odds
+Each is scored by its log-likelihood under the baseline's covariance Σ, log L = −½ rᵀ Σ⁻¹ r (the noise
+hypothesis: with Σ scaled by its fitted factor), against "no mix-up", and ranked by the approximate log
+posterior odds Δ = 2 Δlog L − k ln n − 2 ln N: the BIC penalty for its k fitted numbers (Schwarz 1978,
+Ann. Stat. 6:461) plus a look-elsewhere penalty for choosing the best of the N variants of its kind. An
+explanation is named only when Δ ≥ ``DECISIVE`` (10: "very strong" evidence on the 2 ln B scale of Kass
+& Raftery 1995, JASA 90:773) and, after it, the readings pass the χ² acceptance point (the 99 % point of
+χ²(n − k): the grade flags at 5 %, an explanation is named unless the readings contradict it at 1 %).
+Among the most likely explanations (within ``TIE`` of the best) only those that pass are named; when
+none does, the readings are "unexplained", with the best shown as a candidate: a slip that leaves the
+readings still failing explains nothing. Several are named together
+when the readings cannot decisively tell them apart — one reading per tube often cannot tell a delivery
+1 mL too large from a tube not made up to the mark, nor a scale error from a stock off its label.
 
-    Δ = 2 Δlog L − k ln n − 2 ln N,
-
-the BIC penalty for its k fitted numbers (Schwarz 1978, Ann. Stat. 6:461) plus a look-elsewhere penalty
-for choosing the best of the N variants of its kind (a uniform prior over them). An explanation is
-reported when Δ ≥ ``DECISIVE`` (10: "very strong" evidence on the 2 ln B scale of Kass & Raftery 1995,
-JASA 90:773); otherwise the readings are "unexplained". Everything is evaluated in one batch: all
-hypotheses' tubes are speciated together.
+Readings that are not absorbances (a number above 10, which no photometer shows) get one hypothesis
+only: ``percent-T``, readings written as %T, checked by converting them (A = −log10(%T/100)).
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from functools import lru_cache
 
 import numpy as np
 
 from ...inference.precision import whitening
 from ...inference.study import Study
+from ...inference.tails import chi2_ppf
 from ...inputs.recipe import Recipe
-from ...model.compiled import predict, tube_ions_M
+from ...model.compiled import Model, predict, tube_ions_M
+from ...model.optics import photometric_sd
 from ...uncertainty.budget import error_budget
 from ..compile import expected_state
+from .slips import bench_variants
 
 DECISIVE = 10.0  # 2 ln B ≥ 10: very strong evidence (Kass & Raftery 1995)
-# alternatives the readings cannot decisively rule out against the best (Δ < DECISIVE) are named with it:
-# one reading per tube often cannot tell a delivery 1 mL too large from a tube not made up to the mark
 TIE = DECISIVE
 MAX_TIES = 3
-MISREAD_STEPS_ML = (1.0, -1.0, 0.1, -0.1)
-STOCK_FACTORS = (10.0, 0.1)
-MAKE_UP_FRACTIONS = np.linspace(0.1, 0.9, 9)  # share of the diluent actually added (grid for the fit)
-KINDS = ("wrong-stock", "swapped-tubes", "misread-volume", "not-made-up", "wavelength", "blank")
+# after the explanation the readings must pass χ² at this level: the flag is raised at 5 %, an explanation
+# is named unless the readings contradict it at 1 % (so about one true slip in a hundred stays a candidate)
+ACCEPT_LEVEL = 0.01
+KINDS = (
+    "wrong-stock",
+    "swapped-tubes",
+    "misread-volume",
+    "not-made-up",
+    "wavelength",
+    "blank",
+    "drift",
+    "swapped-stocks",
+    "noise",
+    "percent-T",
+)
 
 
 @dataclass(frozen=True)
@@ -58,12 +78,17 @@ class Explanation:
     text : what happened, in words for the instructor.
     delta_loglik : log L(explanation) − log L(no mix-up).
     score : Δ = 2 Δlog L − k ln n − 2 ln N (the evidence, see the module docstring).
+    chi2_after : χ² of the readings once the explanation is applied; ``passes`` when it is within the
+        acceptance point.
     """
 
     kind: str
     text: str
     delta_loglik: float
     score: float
+    chi2_after: float = float("nan")
+    passes: bool = False
+    k: int = 0
 
     def summary(self) -> dict:
         return {
@@ -71,6 +96,8 @@ class Explanation:
             "text": self.text,
             "delta_loglik": float(self.delta_loglik),
             "score": float(self.score),
+            "chi2_after": float(self.chi2_after) if np.isfinite(self.chi2_after) else None,
+            "passes": bool(self.passes),
         }
 
 
@@ -80,18 +107,21 @@ class Diagnosis:
 
     Attributes
     ----------
-    best : the decisive explanation (score ≥ DECISIVE), or None ("unexplained").
-    ties : up to ``MAX_TIES`` other explanations the readings cannot decisively rule out against the best
-        (within ``TIE``): one reading per tube often cannot tell, say, a delivery 1 mL too large from a tube
-        not made up to the mark.
-    ranked : the top explanations, best first.
-    chi2 : χ² of the readings against the recipe's expectations (the full covariance).
+    best : the named explanation (decisive, and the readings pass after it), or None ("unexplained").
+    ranked : the top explanations by evidence, best first.
+    chi2 : χ² of the readings against the baseline.
+    ties : explanations the readings cannot decisively rule out against the best.
     """
 
     best: Explanation | None
     ranked: tuple[Explanation, ...]
     chi2: float
     ties: tuple[Explanation, ...] = ()
+
+    @property
+    def candidate(self) -> Explanation | None:
+        """The best-ranked explanation when none is named (shown as a candidate only)."""
+        return self.ranked[0] if self.best is None and self.ranked else None
 
     @property
     def text(self) -> str:
@@ -104,265 +134,286 @@ class Diagnosis:
     @property
     def evidence(self) -> str:
         if self.best is None:
-            top = self.ranked[0] if self.ranked else None
-            return "no single slip explains the readings decisively" + (
-                f" (best: {top.text}, evidence {top.score:.1f} < {DECISIVE:g})" if top else ""
+            top = self.candidate
+            if top is None:
+                return "no single slip explains the readings"
+            why = (
+                f"evidence {top.score:.1f} < {DECISIVE:g}"
+                if top.score < DECISIVE
+                else f"after it χ² = {top.chi2_after:.1f} still fails"
             )
-        return f"evidence 2Δln L − penalties = {self.best.score:.1f} ≥ {DECISIVE:g} against no mix-up"
+            return f"no single slip explains the readings (closest candidate: {top.text}; {why})"
+        return (
+            f"evidence 2Δln L − penalties = {self.best.score:.1f} ≥ {DECISIVE:g} against no mix-up, and the "
+            f"readings pass after it (χ² = {self.best.chi2_after:.1f})"
+        )
 
     def summary(self) -> dict:
+        cand = self.candidate
         return {
             "explanation": self.text,
             "kind": self.best.kind if self.best else None,
             "evidence": self.evidence,
+            "candidate": cand.text if cand else None,
             "as_likely": [e.summary() for e in self.ties],
             "chi2": float(self.chi2),
             "ranked": [e.summary() for e in self.ranked],
         }
 
 
-def _fmt_mL(v: float) -> str:
-    return f"{v:.2f} mL"
+@dataclass(frozen=True)
+class Baseline:
+    """What the readings are judged against: the model (constants and stock concentrations), each tube's
+    expected reading under it, and the covariance of the readings about it, in two parts: ``own``, the
+    errors of the student's own tubes and readings (photometric, deliveries, make-up: what a slip changes),
+    and ``shared`` (the stocks' errors, or the class fit's uncertainty)."""
+
+    model: Model
+    expected: np.ndarray
+    own: np.ndarray
+    shared: np.ndarray
+    stock_shared: bool = False  # the shared part is the stocks' errors (recomputed for a slip's tubes)
+
+    @property
+    def cov(self) -> np.ndarray:
+        return self.own + self.shared
 
 
-def _transposed(v: float) -> float | None:
-    """2.15 → 2.51: the last two digits of the volume written to 0.01 mL, swapped (None if unchanged)."""
-    s = f"{v:.2f}"
-    digits = [c for c in s if c.isdigit()]
-    if len(digits) < 2 or digits[-1] == digits[-2]:
-        return None
-    digits[-1], digits[-2] = digits[-2], digits[-1]
-    txt = "".join(digits)
-    return float(txt[:-2] + "." + txt[-2:])
+def slip_covariance(bench, base: Baseline, model: Model, recipe: Recipe) -> np.ndarray:
+    """The covariance of the readings of the tubes a slip describes: their own error budget (photometric,
+    deliveries, and the stocks' errors when the baseline carries them), plus the baseline's class part."""
+    b = error_budget(bench, model, recipe, expected_state(model, recipe))
+    if base.stock_shared:
+        return b.total
+    return b.photometric + b.delivery + base.shared
 
 
-def diagnose(  # noqa: C901
-    study: Study,
-    recipe: Recipe,
-    absorbance: np.ndarray,
-    *,
-    log_beta: np.ndarray | None = None,
-    epsilon_M_cm: np.ndarray | None = None,
-    top: int = 5,
+def guess_baseline(study: Study, recipe: Recipe) -> Baseline:
+    """The plan's guess with the full error budget (stock errors included): the baseline without a class."""
+    state = expected_state(study.model, recipe)
+    b = error_budget(study.bench, study.model, recipe, state)
+    return Baseline(study.model, state.absorbance, b.photometric + b.delivery, b.stock, stock_shared=True)
+
+
+@lru_cache(maxsize=256)
+def accept_point(dof: int) -> float:
+    """χ² acceptance point at ``ACCEPT_LEVEL`` for ``dof`` degrees of freedom."""
+    return float(chi2_ppf(1.0 - ACCEPT_LEVEL, max(int(dof), 1)))
+
+
+NOT_ABSORBANCE = 10.0  # no photometer reads beyond this: larger numbers are %T or typos (as kplan fit)
+
+
+def _fit_cost(a: np.ndarray, mu: np.ndarray, base: Baseline) -> tuple[np.ndarray, np.ndarray]:
+    """χ² + ln det Σ of the readings ``a`` against each prediction ``mu`` (H, n): Σ is the baseline's
+    covariance with its photometric part taken at the predicted readings (the noise of a reading grows
+    with its absorbance, so a slip that moves readings up or down changes their noise too)."""
+    m = base.model
+    phot0 = photometric_sd(base.expected, *m.noise_k, display_step=m.display_step) ** 2
+    phot = photometric_sd(mu, *m.noise_k, display_step=m.display_step) ** 2
+    cov = base.cov - np.diag(phot0)
+    cov = np.broadcast_to(cov, mu.shape[:-1] + cov.shape).copy()
+    idx = np.arange(mu.shape[-1])
+    cov[..., idx, idx] += phot
+    L = np.linalg.cholesky(cov)
+    r = np.linalg.solve(L, (a - mu)[..., None])[..., 0]
+    return np.sum(r * r, axis=-1), 2.0 * np.sum(np.log(np.einsum("...ii->...i", L)), axis=-1)
+
+
+def diagnose(
+    study: Study, recipe: Recipe, absorbance: np.ndarray, *, baseline: Baseline | None = None, top: int = 5
 ) -> Diagnosis:
-    """Rank the explanations of ``absorbance`` read from tubes meant to follow ``recipe``.
-
-    Parameters
-    ----------
-    log_beta, epsilon_M_cm : the constants taken as known (default: the plan's guesses).
-    """
-    model, bench = study.model, study.bench
+    """Rank the explanations of ``absorbance`` read from tubes meant to follow ``recipe`` (see the module
+    docstring); ``baseline`` defaults to the plan's guess."""
+    base = baseline or guess_baseline(study, recipe)
     a = np.asarray(absorbance, dtype=float)
-    n = recipe.n_tubes
-    lb = model.log_beta if log_beta is None else np.asarray(log_beta, dtype=float)
-    eps = model.epsilon_M_cm if epsilon_M_cm is None else np.asarray(epsilon_M_cm, dtype=float)
-    state = expected_state(model, recipe, log_beta=lb, epsilon_M_cm=eps)
-    W = whitening(error_budget(bench, model, recipe, state).total)
-    mu0 = state.absorbance
-    r0 = W @ (a - mu0)
-    chi0 = float(r0 @ r0)
-
-    V = recipe.volumes_mL
-    Vt = recipe.total_volume_mL
-    C = model.stock_conc_M
-    k = V.shape[1]
-    dispensed = [recipe.stock_ids.index(s) for s in bench.dispensed_ids(recipe)]
-    used = [j for j in dispensed if np.any(V[:, j] > 0)]
-    texts: list[tuple[str, str, int, int]] = []  # (kind, text, k params, N variants)
-    vols: list[np.ndarray] = []  # (n, k) volumes per hypothesis
-    concs: list[np.ndarray] = []  # (k, 2) stock concentrations per hypothesis
-    totals_vol: list[np.ndarray] = []  # (n,) total volume per hypothesis
-
-    # wrong stock: the same wrong bottle in every tube
-    subs = []
-    for j in used:
-        for j2 in range(k):
-            if j2 != j and not np.allclose(C[j2], C[j]):
-                subs.append((j, C[j2], f"{recipe.stock_ids[j2]} taken instead of {recipe.stock_ids[j]}"))
-        for fac in STOCK_FACTORS:
-            subs.append(
-                (j, C[j] * fac, f"{recipe.stock_ids[j]} taken from a bottle {fac:g}× as concentrated")
-            )
-    for j, row, text in subs:
-        Cj = C.copy()
-        Cj[j] = row
-        texts.append(("wrong-stock", text, 0, len(subs)))
-        vols.append(V)
-        concs.append(Cj)
-        totals_vol.append(Vt)
-    # one delivery misread
-    mis = []
-    for i in range(n):
-        for j in used:
-            v = V[i, j]
-            cands = [
-                (
-                    v + d,
-                    f"{recipe.tubes[i]}: {recipe.stock_ids[j]} {_fmt_mL(v + d)} delivered instead of "
-                    f"{_fmt_mL(v)}",
-                )
-                for d in MISREAD_STEPS_ML
-            ]
-            tv = _transposed(v) if v > 0 else None
-            if tv is not None:
-                cands.append(
-                    (
-                        tv,
-                        f"{recipe.tubes[i]}: {recipe.stock_ids[j]} {_fmt_mL(tv)} delivered instead of "
-                        f"{_fmt_mL(v)} (digits transposed)",
-                    )
-                )
-            for new, text in cands:
-                if new < 0:
-                    continue
-                Vi = V.copy()
-                Vi[i, j] = new
-                tot = Vt.copy()
-                if not bench.to_mark:
-                    tot[i] = Vi[i].sum()
-                elif (
-                    Vi[i].sum()
-                    - (Vi[i, recipe.stock_ids.index(bench.diluent_id)] if bench.diluent_id else 0.0)
-                    > bench.tube_volume_mL
-                ):
-                    continue
-                mis.append((Vi, tot, text))
-    for Vi, tot, text in mis:
-        texts.append(("misread-volume", text, 0, len(mis)))
-        vols.append(Vi)
-        concs.append(C)
-        totals_vol.append(tot)
-    # a tube not made up to the mark (to-mark only): its volume is the dispensed stocks plus part of the
-    # diluent; the fraction is fitted on a grid (one fitted number)
-    short = []
-    if bench.to_mark and bench.diluent_id is not None:
-        jd = recipe.stock_ids.index(bench.diluent_id)
-        for i in range(n):
-            rest = V[i, jd]
-            if rest <= 0:
-                continue
-            for fr in MAKE_UP_FRACTIONS:
-                tot = Vt.copy()
-                tot[i] = Vt[i] - (1.0 - fr) * rest
-                short.append((i, tot, fr))
-    for i, tot, fr in short:
-        texts.append(
-            (
-                "not-made-up",
-                f"{recipe.tubes[i]} not made up to the mark (about {fr:.0%} of the water added)",
-                1,
-                n,
-            )
-        )
-        vols.append(V)
-        concs.append(C)
-        totals_vol.append(tot)
-
-    H = len(vols)
-    mu = np.empty((H, n))
-    if H:
-        Vh = np.stack(vols)  # (H, n, k)
-        Ch = np.stack(concs)  # (H, k, 2)
-        Th = np.stack(totals_vol)  # (H, n)
-        tot = np.einsum("hnk,hkc->hnc", Vh, Ch) / Th[..., None]
-        ions = tube_ions_M(model, Vh, Th)
-        mu = predict(model, tot, ions, log_beta=lb, epsilon_M_cm=eps, warn=False).absorbance
-    # swapped tubes: readings exchanged (no new chemistry)
-    pairs = [(i, j) for i in range(n) for j in range(i + 1, n)]
-    sw = np.repeat(mu0[None, :], len(pairs), axis=0)
-    for p, (i, j) in enumerate(pairs):  # index bookkeeping only; the scoring below is batched
-        sw[p, i], sw[p, j] = mu0[j], mu0[i]
-    for i, j in pairs:
-        texts.append(("swapped-tubes", f"{recipe.tubes[i]} and {recipe.tubes[j]} swapped", 0, len(pairs)))
-    mu = np.concatenate([mu, sw]) if pairs else mu
-    # scores of the discrete hypotheses (the not-made-up grid keeps its best fraction per tube below)
-    R = (a[None, :] - mu) @ W.T
-    chi = np.sum(R * R, axis=1)
-    expl = []
-    for h, (kind, text, kpar, N) in enumerate(texts):
-        dl = 0.5 * (chi0 - chi[h])
-        expl.append(Explanation(kind, text, dl, 2 * dl - kpar * np.log(n) - 2 * np.log(max(N, 1))))
-    if short:  # one entry per tube: the best fraction
-        best_short: dict[str, Explanation] = {}
-        for e in [e for e in expl if e.kind == "not-made-up"]:
-            tube = e.text.split(" not made up")[0]
-            if tube not in best_short or e.score > best_short[tube].score:
-                best_short[tube] = e
-        expl = [e for e in expl if e.kind != "not-made-up"] + list(best_short.values())
-    # wavelength (scale) and blank (offset): one fitted number each, by generalised least squares
-    Wm, Wa, W1 = W @ mu0, W @ a, W @ np.ones(n)
-    scale = float(Wm @ Wa / (Wm @ Wm)) if Wm @ Wm > 0 else 1.0
-    chi_s = float(np.sum((Wa - scale * Wm) ** 2))
-    off = float(W1 @ (Wa - Wm) / (W1 @ W1))
-    chi_b = float(np.sum((Wa - Wm - off * W1) ** 2))
-    for kind, text, c in (
-        ("wavelength", f"every reading scaled by {scale:.3f} (wrong or uncalibrated wavelength)", chi_s),
-        ("blank", f"every reading shifted by {off:+.3f} (missing or wrong blank)", chi_b),
-    ):
-        dl = 0.5 * (chi0 - c)
-        expl.append(Explanation(kind, text, dl, 2 * dl - np.log(n)))
+    chi0, ld0 = (float(x[0]) for x in _fit_cost(a, base.expected[None, :], base))
+    if np.any(a > NOT_ABSORBANCE):
+        return _not_absorbances(a, base, chi0)
+    model = base.model
+    nominal = predict(
+        model,
+        _totals(recipe, model),
+        tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL),
+        warn=False,
+    ).absorbance
+    ref = _Ref(a, base, chi0, ld0, nominal)
+    tubes: dict[str, Recipe | Model] = {}
+    expl = _bench(study, recipe, ref, tubes) + _readings(ref)
     expl.sort(key=lambda e: -e.score)
-    best = expl[0] if expl and expl[0].score >= DECISIVE else None
-    ties = tuple(e for e in expl[1:] if best is not None and e.score >= best.score - TIE)[:MAX_TIES]
-    return Diagnosis(best, tuple(expl[:top]), chi0, ties)
+    expl = _refined(study, ref, expl, tubes)
+    # the most likely explanations (within TIE of the top): named only those after which the readings pass
+    lead = [e for e in expl if expl[0].score >= DECISIVE and e.score >= expl[0].score - TIE]
+    named = [e for e in lead if e.passes]
+    best = named[0] if named else None
+    return Diagnosis(best, tuple(expl[:top]), chi0, tuple(named[1 : 1 + MAX_TIES]))
 
 
-def inject(
-    study: Study, recipe: Recipe, kind: str | None, rng: np.random.Generator
-) -> tuple[np.ndarray, str, float]:
-    """Simulated readings of ``recipe`` with one slip of ``kind`` (None: a clean student), for tests and
-    benchmarks; returns (readings, a fragment the right explanation's text contains, the slip's size: the
-    whitened norm of the change it makes to the noise-free readings — below ~3 it hides in the noise)."""
-    from ...inference.simulate import simulate
+@dataclass(frozen=True)
+class _Ref:
+    """The readings and "no mix-up": its χ² and ln det Σ."""
 
-    model, bench = study.model, study.bench
+    a: np.ndarray
+    base: Baseline
+    chi0: float
+    logdet0: float
+    nominal: np.ndarray
+
+    def explain(self, kinds, texts: list[str], mu: np.ndarray, k, N) -> list[Explanation]:
+        """Score the predictions ``mu`` (H, n): Δ = 2 Δlog L − k ln n − 2 ln N (``kinds``, ``k`` and ``N`` one
+        for all or one per hypothesis)."""
+        n = self.a.size
+        H = mu.shape[0]
+        kinds = [kinds] * H if isinstance(kinds, str) else list(kinds)
+        k = np.broadcast_to(np.asarray(k, dtype=int), (H,))
+        N = np.broadcast_to(np.asarray(N, dtype=float), (H,))
+        chi, logdet = _fit_cost(self.a, mu, self.base)
+        dl = 0.5 * ((self.chi0 - chi) + (self.logdet0 - logdet))
+        score = 2 * dl - k * np.log(n) - 2 * np.log(np.maximum(N, 1.0))
+        ok = chi <= np.array([accept_point(n - kk) for kk in k])
+        return [
+            Explanation(kd, t, float(d), float(sc), float(c), bool(o), int(kk))
+            for kd, t, d, sc, c, o, kk in zip(kinds, texts, dl, score, chi, ok, k, strict=True)
+        ]
+
+
+REFINE = 4  # the leading bench slips are scored again with their own tubes' error budget
+
+
+def _refined(study: Study, ref: _Ref, expl: list[Explanation], tubes: dict) -> list[Explanation]:
+    """The leading bench slips scored with the error budget of the tubes they describe (a slip changes
+    the tubes, and with them the delivery and photometric errors), then ranked again."""
+    n = ref.a.size
+    out = list(expl)
+    for k, e in enumerate(expl[:REFINE]):  # a handful of small error budgets
+        if e.text not in tubes:
+            continue
+        rec, model = tubes[e.text]
+        mu = expected_state(model, rec).absorbance - ref.nominal + ref.base.expected
+        cov = slip_covariance(study.bench, ref.base, model, rec)
+        L = np.linalg.cholesky(cov)
+        r = np.linalg.solve(L, ref.a - mu)
+        chi = float(r @ r)
+        logdet = 2.0 * float(np.sum(np.log(np.diag(L))))
+        dl = 0.5 * ((ref.chi0 - chi) + (ref.logdet0 - logdet))
+        penalty = 2 * e.delta_loglik - e.score
+        out[k] = replace(
+            e, delta_loglik=dl, score=2 * dl - penalty, chi2_after=chi, passes=chi <= accept_point(n - e.k)
+        )
+    out.sort(key=lambda e: -e.score)
+    return out
+
+
+def _bench(study: Study, recipe: Recipe, ref: _Ref, tubes: dict) -> list[Explanation]:
+    """The slips of :mod:`planner.jobs.classroom.slips` and two tubes swapped, scored in one batch."""
+    base = ref.base
+    model = base.model
     n = recipe.n_tubes
-    V, Vt, C = recipe.volumes_mL.copy(), recipe.total_volume_mL.copy(), model.stock_conc_M.copy()
-    used = [recipe.stock_ids.index(s) for s in bench.dispensed_ids(recipe) if np.any(recipe.column(s) > 0)]
-    i = int(rng.integers(n))
-    j = used[int(rng.integers(len(used)))]
-    tag = ""
-    if kind == "wrong-stock":
-        fac = STOCK_FACTORS[int(rng.integers(len(STOCK_FACTORS)))]
-        C[j] = C[j] * fac
-        tag = f"{recipe.stock_ids[j]} taken from a bottle {fac:g}×"
-    elif kind == "misread-volume":
-        d = MISREAD_STEPS_ML[int(rng.integers(2))]  # the 1 mL slips (0.1 mL ones hide in the noise)
-        if V[i, j] + d < 0:
-            d = -d
-        V[i, j] += d
-        tag = f"{recipe.tubes[i]}: {recipe.stock_ids[j]} {_fmt_mL(V[i, j])}"
-    elif kind == "not-made-up":
-        jd = recipe.stock_ids.index(bench.diluent_id)
-        i = int(np.argmax(V[:, jd] * (1 + 0.01 * rng.random(n))))  # a tube with water to leave out
-        Vt[i] -= 0.5 * V[i, jd]
-        tag = f"{recipe.tubes[i]} not made up"
-    m = model if kind != "wrong-stock" else _with_stocks(model, C)
-    rec = Recipe(recipe.tubes, recipe.stock_ids, V, Vt)
-    sim = simulate(bench, m, rec, rng, 1)
-    a = sim.absorbance[0]
-    clean = expected_state(model, recipe)
-    W = whitening(error_budget(bench, model, recipe, clean).total)
-    shifted = expected_state(m, rec).absorbance
-    if kind == "swapped-tubes":
-        k = (i + 1 + int(rng.integers(n - 1))) % n
-        a[[i, k]] = a[[k, i]]
-        shifted = clean.absorbance.copy()
-        shifted[[i, k]] = shifted[[k, i]]
-        lo, hi = sorted((i, k))
-        tag = f"{recipe.tubes[lo]} and {recipe.tubes[hi]} swapped"
-    elif kind == "wavelength":
-        a = a * 0.85
-        shifted = clean.absorbance * 0.85
-        tag = "scaled"
-    elif kind == "blank":
-        a = a + 0.05
-        shifted = clean.absorbance + 0.05
-        tag = "shifted"
-    return a, tag, float(np.linalg.norm(W @ (shifted - clean.absorbance)))
+    var = bench_variants(study.bench, recipe, model.stock_conc_M)
+    out: list[Explanation] = []
+    if var.items:
+        Vh, Ch, Th = np.stack(var.volumes), np.stack(var.conc), np.stack(var.total)
+        tot = np.einsum("hnk,hkc->hnc", Vh, Ch) / Th[..., None]
+        mu = predict(model, tot, tube_ions_M(model, Vh, Th), warn=False).absorbance
+        mu = (
+            mu - ref.nominal + base.expected
+        )  # the change each slip makes, on the baseline's expected readings
+        for v, V, C, T in zip(var.items, var.volumes, var.conc, var.total, strict=True):
+            tubes[v.text] = (Recipe(recipe.tubes, recipe.stock_ids, V, T), replace(model, stock_conc_M=C))
+        best: dict[str, Explanation] = {}
+        scored = ref.explain(
+            [v.kind for v in var.items],
+            [v.text for v in var.items],
+            mu,
+            [v.k for v in var.items],
+            [v.N for v in var.items],
+        )
+        for v, e in zip(var.items, scored, strict=True):
+            if not v.group:  # keep the best entry of each fitted grid
+                out.append(e)
+            elif v.group not in best or e.score > best[v.group].score:
+                best[v.group] = e
+        out += list(best.values())
+    pairs = [(i, j) for i in range(n) for j in range(i + 1, n)]
+    if pairs:
+        idx = np.array(pairs)
+        rows = np.arange(len(pairs))
+        sw = np.repeat(base.expected[None, :], len(pairs), axis=0)
+        sw[rows, idx[:, 0]], sw[rows, idx[:, 1]] = base.expected[idx[:, 1]], base.expected[idx[:, 0]]
+        texts = [f"{recipe.tubes[i]} and {recipe.tubes[j]} swapped" for i, j in pairs]
+        out += ref.explain("swapped-tubes", texts, sw, 0, len(pairs))
+    return out
 
 
-def _with_stocks(model, conc):
-    from dataclasses import replace
+def _totals(recipe: Recipe, model: Model) -> np.ndarray:
+    return (recipe.volumes_mL @ model.stock_conc_M) / recipe.total_volume_mL[:, None]
 
-    return replace(model, stock_conc_M=conc)
+
+READING_SLIPS = (
+    (
+        "wavelength",
+        "every reading scaled by {x:.3f}: a wrong or uncalibrated wavelength, or a cuvette of another path",
+    ),
+    ("blank", "every reading shifted by {x:+.3f} (missing or wrong blank)"),
+    ("drift", "the baseline drifted {x:+.4f} per reading, in the card's order (re-blank between readings)"),
+)
+
+
+def _readings(ref: _Ref) -> list[Explanation]:
+    """Scale, offset and drift (one number each, by generalised least squares at the baseline's weights)
+    and a larger noise."""
+    a, base = ref.a, ref.base
+    n = a.size
+    W = whitening(base.cov)
+    Wm, Wa = W @ base.expected, W @ a
+    out = []
+    for kind, words in READING_SLIPS:
+        shape = {"wavelength": base.expected, "blank": np.ones(n), "drift": np.arange(1.0, n + 1.0)}[kind]
+        g = W @ shape
+        gg = float(g @ g)
+        if kind == "wavelength":
+            x = float(g @ Wa) / gg if gg > 0 else 1.0
+            mu = x * base.expected
+        else:
+            x = float(g @ (Wa - Wm)) / gg if gg > 0 else 0.0
+            mu = base.expected + x * shape
+        out += ref.explain(kind, [words.format(x=x)], mu[None, :], 1, 1)
+    if ref.chi0 > n:  # Σ scaled by λ = χ²/n: 2Δlog L = χ² − n − n ln(χ²/n)
+        lam = ref.chi0 / n
+        dl = 0.5 * (ref.chi0 - n - n * np.log(lam))
+        text = (
+            f"the readings scatter ×{np.sqrt(lam):.1f} more than the error model allows, and no single slip "
+            f"explains them (a noisy instrument, dirty cuvettes, careless deliveries)"
+        )
+        out.append(Explanation("noise", text, float(dl), float(2 * dl - np.log(n)), float(n), True))
+    return out
+
+
+PERCENT_T_LEVEL = 0.001  # converted %T readings are accepted unless they fail χ² at this level
+
+
+def _not_absorbances(a, base: Baseline, chi0) -> Diagnosis:
+    """Readings the instrument cannot show: %T, or not absorbances at all. Converted readings are judged
+    at a stricter level than slips: the finding is that they are not absorbances; the χ² only asks whether
+    %T is what they are."""
+    n = a.size
+    if np.all((a > 0) & (a <= 100)):
+        conv = -np.log10(a / 100.0)
+        r = whitening(base.cov) @ (conv - base.expected)
+        chi = float(r @ r)
+        ok = bool(chi <= float(chi2_ppf(1.0 - PERCENT_T_LEVEL, n)))
+        text = (
+            f"the readings look like %T (values {a.min():.3g}–{a.max():.3g}): as A = −log10(%T/100) they "
+            f"match the model (χ² = {chi:.1f} on {n})"
+        )
+        e = Explanation("percent-T", text, 0.5 * (chi0 - chi), chi0 - chi, chi, ok)
+        if ok:
+            return Diagnosis(e, (e,), chi0)
+        e = replace(
+            e,
+            text=f"readings are not absorbances (values up to {a.max():.3g}); as %T they do not match the "
+            f"model either (χ² = {chi:.1f} on {n})",
+        )
+        return Diagnosis(None, (e,), chi0)
+    e = Explanation("percent-T", f"readings are not absorbances (values up to {a.max():.3g})", 0.0, 0.0)
+    return Diagnosis(None, (e,), chi0)

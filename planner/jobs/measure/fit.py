@@ -2,8 +2,8 @@
 
 The readings are fitted by generalised least squares with the same error budget the assessment used
 (photometric, delivery and stock errors, correlated across tubes), from several starts over the guess's
-range so a poor guess does not trap the fit; the covariance of the estimates is (JᵀΣ⁻¹J)⁻¹ at the
-solution.
+range so a poor guess does not trap the fit (:mod:`planner.jobs.measure.core`, the same code the coverage
+checks run on hundreds of simulated experiments at once).
 
 A fit that cannot be fooled:
 - readings outside the instrument's linear range are left out by default (they follow no Beer–Lambert
@@ -11,12 +11,14 @@ A fit that cannot be fooled:
 - a constant that runs to the edge of the search box, or an information matrix that is (near) singular,
   gives "not determined" with the reason — never a number with an SE of 10¹²;
 - χ² is judged on both tails (dof = tubes used − parameters): too large means scatter beyond the error
-  model (a bad tube, drift, a wrong model); too small means readings closer to the model than the error
-  model allows (an error model too pessimistic, or readings that are not independent);
-- beside the Cramér–Rao SE, the profile-likelihood 95 % interval of the target's log β (Δχ² ≤ 3.84 with
-  the other parameters refitted; Venzon & Moolgavkar 1988, Appl. Stat. 37:87), which stays honest where
-  the likelihood is not quadratic;
-- standardised (whitened) residuals, with |z| > 3 marked as outliers.
+  model (a bad tube, drift, a wrong model), and then the SEs and the interval are widened by √(χ²/dof)
+  and the fit says so; too small means readings closer to the model than the error model allows;
+- the profile-likelihood 95 % interval of the target's log β (Δχ² ≤ 3.84 with the other parameters
+  refitted, its ends found by root-finding; Venzon & Moolgavkar 1988, Appl. Stat. 37:87), honest where
+  the likelihood is not quadratic and right at any precision;
+- a wild reading is named by a backward search on mean-shift statistics, so the clean tubes it pulls
+  along are not (:mod:`planner.jobs.measure.outliers`), with the label to exclude;
+- standardised residuals keep the sign of the raw ones.
 """
 
 from __future__ import annotations
@@ -25,30 +27,21 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ...inference.lm import fit_many
-from ...inference.precision import (
-    CHI2_95_1DOF,
-    LOG_BETA_RANGE,
-    ReadingModel,
-    cramer_rao,
-    unpack,
-    whitening_of,
-)
+from ...inference.precision import cramer_rao, whitening
 from ...inference.study import Study
-from ...inference.tails import chi2_cdf, chi2_sf
+from ...inputs.errors import InputError
 from ...inputs.plan import Plan
 from ...inputs.readings import Readings
 from ...inputs.recipe import Recipe, RecipeError
 from ...inputs.text import plural
-from ...model.compiled import tube_ions_M
 from ...uncertainty.budget import error_budget
 from ..compile import compile_study, expected_state
+from .core import CHI2_TAIL, N_STARTS, SE_LIMIT, covariance_at, fit_batch, reading_model
+from .outliers import standardised
 
-N_STARTS = 7  # starts spread over ±3 sd of the target's guess
-OUTLIER_Z = 3.0  # |standardised residual| beyond which a tube is marked [common practice]
-CHI2_TAIL = 0.05  # each tail of the χ² test [common practice]
-SE_LIMIT = 5.0  # log10 units: an SE beyond this is no determination at all
-PROFILE_HALF_WIDTH_SE = 5.0  # the profile grid spans the estimate ± 5 SE (at least ± 0.5)
+__all__ = ["N_STARTS", "Fit", "check_absorbances", "fit_readings", "fit_study", "not_determined"]
+
+MAX_ABSORBANCE = 10.0  # no photometer reads beyond this; a larger number is a typo or another quantity
 
 
 @dataclass(frozen=True)
@@ -57,16 +50,21 @@ class Fit:
 
     Attributes
     ----------
-    names, estimate, se : fitted parameters, their values and standard errors (error model absolute).
+    names, estimate : fitted parameters and their values.
+    se : standard errors, widened by ``interval_scale`` when the scatter exceeds the error model;
+        ``se_error_model`` the error model's own.
     promised_se : Cramér–Rao SE the plan predicted for the tubes used, at the guess.
     chi2, dof, p_value : goodness of fit against the error model; ``p_value`` is the upper tail,
         ``p_low`` the lower one.
     fitted, residual, standardised : per tube (all tubes, used or not), absorbance units; standardised
-        residuals (whitened) are NaN for tubes left out.
+        residuals are each residual over its own sd (same sign as the residual).
     converged : whether the best start met a convergence test.
     used : (n,) True for the tubes the fit used; ``excluded`` gives (tube, reason) for the others.
     determined : False when the data do not determine the constants; ``reason`` says why.
-    profile_ci95 : (lo, hi) profile-likelihood 95 % interval of the target's log β (None: open side).
+    profile_ci95 : (lo, hi) profile-likelihood 95 % interval of the target's log β (None: open side),
+        widened with the SEs.
+    suspects : (tube, z, shift) of each reading the backward search marks as wild, worst first.
+    interval_scale : √(χ²/dof) when the χ² test fails on the high side, else 1.
     """
 
     title: str
@@ -90,56 +88,47 @@ class Fit:
     reason: str = ""
     p_low: float = float("nan")
     profile_ci95: tuple[float | None, float | None] | None = None
+    suspects: tuple[tuple[str, float, float], ...] = ()
+    interval_scale: float = 1.0
+
+    @property
+    def se_error_model(self) -> np.ndarray:
+        return self.se / self.interval_scale
 
     @property
     def outliers(self) -> np.ndarray:
-        return np.abs(np.nan_to_num(self.standardised)) > OUTLIER_Z
+        """(n,) True for the suspects of the backward search."""
+        bad = {t for t, _, _ in self.suspects}
+        return np.array([t in bad for t in self.recipe.tubes], dtype=bool)
 
     @property
     def chi2_verdict(self) -> str:
         """One sentence on the scatter, judged on both tails of χ²(dof)."""
-        if self.dof < 1 or not np.isfinite(self.chi2):
-            return "no degrees of freedom left: χ² cannot test the fit (add tubes)"
-        if self.p_value < CHI2_TAIL:
-            return (
-                "the scatter is larger than the error model predicts: look for a bad tube, drift or a "
-                "wrong model"
+        return chi2_verdict(self)
+
+    @property
+    def interval_note(self) -> str:
+        """What was done to the SEs and the interval because of the scatter ("" when nothing)."""
+        if not self.determined:
+            return ""
+        note = ""
+        if self.interval_scale > 1.0:
+            note = (
+                f"SEs and the 95 % interval widened ×{self.interval_scale:.2f} = √(χ²/dof): the readings "
+                f"scatter more than the error model allows"
             )
-        if self.p_low < CHI2_TAIL:
-            return (
-                "the scatter is suspiciously small for the error model: it may be too pessimistic, or the "
-                "readings are not independent (copied or smoothed)"
-            )
-        return "the scatter matches the error model"
+        if self.suspects:
+            held = ", ".join(t for t, _, _ in self.suspects)
+            note += ("; " if note else "") + f"the interval also holds the fit without {held}"
+        return note
 
     def summary(self) -> dict:
-        def f(x):
-            x = float(x) if x is not None else float("nan")
-            return x if np.isfinite(x) else None
-
-        t = self.names.index(f"log_beta[{self.target}]") if f"log_beta[{self.target}]" in self.names else -1
-        params = []
-        for k, (n, e, s, p) in enumerate(
-            zip(self.names, self.estimate, self.se, self.promised_se, strict=True)
-        ):
-            row = {"name": n, "estimate": f(e), "se": f(s), "promised_se": f(p)}
-            if k == t:
-                ci = self.profile_ci95
-                row["profile_ci95"] = [f(ci[0]), f(ci[1])] if ci is not None else None
-            params.append(row)
+        f = json_float
         return {
-            "title": self.title,
-            "target": self.target,
-            "converged": self.converged,
-            "determined": self.determined,
-            "reason": self.reason,
-            "parameters": params,
-            "chi2": f(self.chi2),
-            "dof": self.dof,
-            "p_value": f(self.p_value),
-            "p_low": f(self.p_low),
-            "chi2_verdict": self.chi2_verdict,
-            "excluded": [{"tube": tb, "reason": r} for tb, r in self.excluded],
+            **fit_summary_head(self),
+            "interval_scale": f(self.interval_scale),
+            "interval_note": self.interval_note,
+            "suspects": [{"tube": tb, "z": f(z), "shift": f(d)} for tb, z, d in self.suspects],
             "tubes": [
                 {
                     "tube": tb,
@@ -164,6 +153,79 @@ class Fit:
         }
 
 
+def check_absorbances(values, labels, where: str) -> None:
+    """Refuse a reading that is not a finite absorbance within ±MAX_ABSORBANCE, naming its tube."""
+    a = np.asarray(values, dtype=float)
+    bad = np.flatnonzero(~np.isfinite(a) | (np.abs(a) > MAX_ABSORBANCE))
+    if bad.size:
+        i = int(bad[0])
+        raise InputError(
+            f"{where}, tube {labels[i]}: absorbance {a[i]:g} is not a reading: write a finite number between "
+            f"{-MAX_ABSORBANCE:g} and {MAX_ABSORBANCE:g}"
+        )
+
+
+def chi2_verdict(fit) -> str:
+    """One sentence on the scatter of any fit with ``dof``, ``chi2``, ``p_value`` and ``p_low``, judged on
+    both tails of χ²(dof)."""
+    if fit.dof < 1 or not np.isfinite(fit.chi2):
+        return "no degrees of freedom left: χ² cannot test the fit (add tubes)"
+    if fit.p_value < CHI2_TAIL:
+        return (
+            "the scatter is larger than the error model predicts: look for a bad tube, drift or a wrong model"
+        )
+    if fit.p_low < CHI2_TAIL:
+        return (
+            "the scatter is suspiciously small for the error model: it may be too pessimistic, or the "
+            "readings are not independent (copied or smoothed)"
+        )
+    return "the scatter matches the error model"
+
+
+def fit_summary_head(fit) -> dict:
+    """The keys every fit's JSON starts with: title, target, converged, determined, reason, parameters,
+    χ² with its dof, both tails and verdict, and the tubes left out."""
+    f = json_float
+    return {
+        "title": fit.title,
+        "target": fit.target,
+        "converged": fit.converged,
+        "determined": fit.determined,
+        "reason": fit.reason,
+        "parameters": parameter_rows(fit),
+        "chi2": f(fit.chi2),
+        "dof": fit.dof,
+        "p_value": f(fit.p_value),
+        "p_low": f(fit.p_low),
+        "chi2_verdict": fit.chi2_verdict,
+        "excluded": [{"tube": tb, "reason": r} for tb, r in fit.excluded],
+    }
+
+
+def json_float(x) -> float | None:
+    """A float for JSON: None for a missing or non-finite value."""
+    x = float(x) if x is not None else float("nan")
+    return x if np.isfinite(x) else None
+
+
+def parameter_rows(fit) -> list[dict]:
+    """The ``parameters`` of a fit's JSON (``name``, ``estimate``, ``se``, ``promised_se``, and for the target
+    ``profile_ci95``) from any fit with ``names``, ``estimate``, ``se``, ``promised_se``, ``target`` and
+    ``profile_ci95``."""
+    f = json_float
+    t = f"log_beta[{fit.target}]"
+    rows = []
+    for n, e, s, p in zip(fit.names, fit.estimate, fit.se, fit.promised_se, strict=True):
+        row = {"name": n, "estimate": f(e), "se": f(s), "promised_se": f(p)}
+        if getattr(fit, "se_error_model", None) is not None:
+            row["se_error_model"] = f(fit.se_error_model[len(rows)])
+        if n == t:
+            ci = fit.profile_ci95
+            row["profile_ci95"] = [f(ci[0]), f(ci[1])] if ci is not None else None
+        rows.append(row)
+    return rows
+
+
 def fit_readings(
     plan: Plan, readings: Readings, *, exclude: tuple[str, ...] = (), keep_out_of_range: bool = False
 ) -> Fit:
@@ -178,7 +240,7 @@ def _selection(study: Study, readings: Readings, exclude, keep_out_of_range: boo
     for label in exclude:
         if label not in rec.tubes:
             raise RecipeError(
-                f"--exclude {label}",
+                f"exclude {label}",
                 f"no tube '{label}' in the readings; tubes are "
                 + ", ".join(rec.tubes[:12])
                 + (" …" if rec.n_tubes > 12 else ""),
@@ -190,10 +252,7 @@ def _selection(study: Study, readings: Readings, exclude, keep_out_of_range: boo
         lo, hi = study.model.linear_range
         out = (readings.absorbance < lo) | (readings.absorbance > hi)
         for i in np.flatnonzero(out & keep):
-            why[int(i)] = (
-                f"reading {readings.absorbance[i]:.3f} outside the linear range {lo:g}–{hi:g} "
-                f"(keep it with --keep-out-of-range)"
-            )
+            why[int(i)] = f"reading {readings.absorbance[i]:.3f} outside the linear range {lo:g}–{hi:g}"
         keep &= ~out
     return keep, tuple((rec.tubes[i], why[i]) for i in sorted(why))
 
@@ -202,88 +261,75 @@ def fit_study(
     study: Study, readings: Readings, *, exclude: tuple[str, ...] = (), keep_out_of_range: bool = False
 ) -> Fit:
     """:func:`fit_readings` on a compiled plan."""
-    model, params, bench = study.model, study.params, study.bench
+    params = study.params
     full = readings.recipe
     if params.size == 0:
         raise RecipeError("plan", "nothing to fit: give the target log_beta_sd > 0 (or ε an rsd)")
+    check_absorbances(readings.absorbance, full.tubes, "readings")
     keep, excluded = _selection(study, readings, exclude, keep_out_of_range)
     rec = full.take(keep)
     y = readings.absorbance[keep]
-    nan = np.full(params.size, np.nan)
     if rec.n_tubes < params.size:
         return _undetermined(
             study,
             readings,
             keep,
             excluded,
-            nan,
             f"{plural(rec.n_tubes, 'tube')} left cannot determine {params.size} parameters: add tubes",
         )
-    state = expected_state(model, rec)
-    W0 = W = whitening_of(error_budget(bench, model, rec, state))
-    ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
-    reading = ReadingModel(model, params, state.totals_M, ions)
-    starts = np.repeat(params.guess[None, :], N_STARTS, axis=0)
-    if params.target >= 0:
-        starts[:, params.target] += np.linspace(-3, 3, N_STARTS) * params.prior_sd[params.target]
+    b = fit_batch(study, rec, y[None, :])
+    theta, se = b.theta[0], b.se[0]
+    reading = reading_model(study, rec)
     lo, hi = reading.bounds()
-    res = fit_many(reading.f, starts, y, jac=reading.jac, whiten=W, scale_cov=False, lower=lo, upper=hi)
-    chi2 = np.where(res.converged, res.chi2, np.inf)
-    best = int(np.argmin(chi2)) if np.isfinite(chi2).any() else int(np.argmin(res.chi2))
-    theta = res.theta[best]
-    # the photometric part of the error model depends on the readings: re-weight at the fit, refit once
-    lb, eps, _ = unpack(model, params, theta)
-    state_fit = expected_state(model, rec, log_beta=lb, epsilon_M_cm=eps)
-    W = whitening_of(error_budget(bench, model, rec, state_fit))
-    res = fit_many(reading.f, theta, y, jac=reading.jac, whiten=W, scale_cov=False, lower=lo, upper=hi)
-    theta, se = res.theta[0], res.se[0]
-    converged = bool(res.converged[0])
+    reason = not_determined(params, theta, se, bool(b.converged[0]), lo, hi)
+    W0 = whitening(error_budget(study.bench, study.model, rec, expected_state(study.model, rec)).total)
     promised = cramer_rao(reading.jac(params.guess[None, :])[0], W=W0).se
-    reason = _not_determined(params, theta, se, converged, lo, hi)
-    # every tube's fitted reading (those left out too, from the same constants)
-    ions_all = tube_ions_M(model, full.volumes_mL, full.total_volume_mL)
-    tot_all = expected_state(model, full).totals_M
-    fitted_all = ReadingModel(model, params, tot_all, ions_all).f(theta[None, :])[0]
+    fitted_all = reading_model(study, full).f(theta[None, :])[0]
     resid_all = readings.absorbance - fitted_all
     z = np.full(full.n_tubes, np.nan)
-    z[keep] = W @ (y - fitted_all[keep])
-    dof = rec.n_tubes - params.size
-    c2 = float(res.chi2[0])
-    p_hi = float(chi2_sf(c2, dof)) if dof > 0 else float("nan")
-    p_lo = float(chi2_cdf(c2, dof)) if dof > 0 else float("nan")
+    found: tuple[tuple[str, float, float], ...] = ()
+    if reason is None:
+        z = standardised(
+            covariance_at(study, full, theta)[0], reading_model(study, full).jac(theta)[0], keep, resid_all
+        )
+        found = tuple(
+            (rec.tubes[i], float(z), float(d))
+            for i, z, d in zip(b.suspects[0], b.suspect_z[0], b.suspect_shift[0], strict=True)
+            if i >= 0
+        )
+    scale = float(b.scale[0]) if reason is None else 1.0
     ci = None
     if reason is None and params.target >= 0:
-        ci = profile_interval(reading, W, y, theta, se, c2)
-    if reason is not None:
-        theta_out, se_out = theta, np.full(params.size, np.nan)
-    else:
-        theta_out, se_out = theta, se
+        lo_ci, hi_ci = b.ci[0]
+        ci = (float(lo_ci) if np.isfinite(lo_ci) else None, float(hi_ci) if np.isfinite(hi_ci) else None)
     return Fit(
-        study.title,
-        full,
-        readings.absorbance,
-        params.names,
-        theta_out,
-        se_out,
-        promised,
-        c2,
-        dof,
-        p_hi,
-        fitted_all,
-        resid_all,
-        z,
-        converged,
-        study.target,
-        keep,
-        excluded,
-        reason is None,
-        reason or "",
-        p_lo,
-        ci,
+        title=study.title,
+        recipe=full,
+        absorbance=readings.absorbance,
+        names=params.names,
+        estimate=theta,
+        se=se * scale if reason is None else np.full(params.size, np.nan),
+        promised_se=promised,
+        chi2=float(b.chi2[0]),
+        dof=b.dof,
+        p_value=float(b.p_high[0]),
+        fitted=fitted_all,
+        residual=resid_all,
+        standardised=z,
+        converged=bool(b.converged[0]),
+        target=study.target,
+        used=keep,
+        excluded=excluded,
+        determined=reason is None,
+        reason=reason or "",
+        p_low=float(b.p_low[0]),
+        profile_ci95=ci,
+        suspects=found,
+        interval_scale=scale,
     )
 
 
-def _not_determined(params, theta, se, converged: bool, lo, hi) -> str | None:
+def not_determined(params, theta, se, converged: bool, lo, hi) -> str | None:
     """Why the fit determines nothing, or None when it does."""
     if not converged:
         return "the fit did not converge: check the readings and the plan's guesses"
@@ -307,88 +353,28 @@ def _not_determined(params, theta, se, converged: bool, lo, hi) -> str | None:
     return None
 
 
-def _undetermined(study: Study, readings: Readings, keep, excluded, nan, reason: str) -> Fit:
+def _undetermined(study: Study, readings: Readings, keep, excluded, reason: str) -> Fit:
     n = readings.recipe.n_tubes
     empty = np.full(n, np.nan)
+    nan = np.full(study.params.size, np.nan)
     return Fit(
-        study.title,
-        readings.recipe,
-        readings.absorbance,
-        study.params.names,
-        nan,
-        nan,
-        nan,
-        float("nan"),
-        int(keep.sum()) - study.params.size,
-        float("nan"),
-        empty,
-        empty,
-        empty,
-        False,
-        study.target,
-        keep,
-        excluded,
-        False,
-        reason,
-        float("nan"),
-        None,
+        title=study.title,
+        recipe=readings.recipe,
+        absorbance=readings.absorbance,
+        names=study.params.names,
+        estimate=nan,
+        se=nan,
+        promised_se=nan,
+        chi2=float("nan"),
+        dof=int(keep.sum()) - study.params.size,
+        p_value=float("nan"),
+        fitted=empty,
+        residual=empty,
+        standardised=empty,
+        converged=False,
+        target=study.target,
+        used=keep,
+        excluded=excluded,
+        determined=False,
+        reason=reason,
     )
-
-
-def profile_interval(
-    reading: ReadingModel,
-    W: np.ndarray,
-    y: np.ndarray,
-    theta: np.ndarray,
-    se: np.ndarray,
-    chi2_min: float,
-    *,
-    n_grid: int = 41,
-) -> tuple[float | None, float | None]:
-    """Profile-likelihood 95 % interval of the target's log β: where χ²(log β, others refitted) − χ²_min
-    crosses 3.84 (linear interpolation between grid points); None on a side where it never does."""
-    params = reading.params
-    t = params.target
-    half = max(PROFILE_HALF_WIDTH_SE * float(se[t]), 0.5)
-    grid = np.clip(theta[t] + np.linspace(-half, half, n_grid), *LOG_BETA_RANGE)
-    others = [p for p in range(params.size) if p != t]
-    G = grid.size
-    if others:
-
-        def full(sub):
-            th = np.empty((G, params.size))
-            th[:, others] = sub
-            th[:, t] = grid
-            return th
-
-        lo, hi = reading.bounds()
-        res = fit_many(
-            lambda s: reading.f(full(s)),
-            np.broadcast_to(theta[others], (G, len(others))).copy(),
-            np.broadcast_to(y, (G, y.size)),
-            jac=lambda s: reading.jac(full(s))[..., others],
-            whiten=W,
-            scale_cov=False,
-            lower=lo[others],
-            upper=hi[others],
-        )
-        chi2 = np.where(np.isfinite(res.chi2), res.chi2, np.inf)
-    else:
-        th = np.broadcast_to(theta, (G, params.size)).copy()
-        th[:, t] = grid
-        r = (reading.f(th) - y) @ W.T
-        chi2 = np.sum(r * r, axis=1)
-    d = np.minimum(chi2 - min(chi2_min, float(np.min(chi2))), 1e300)
-    k0 = int(np.argmin(d))
-
-    def crossing(indices) -> float | None:
-        prev = k0
-        for k in indices:
-            if d[k] > CHI2_95_1DOF:
-                a, b = d[prev], d[k]
-                w = (CHI2_95_1DOF - a) / (b - a) if b > a else 0.0
-                return float(grid[prev] + w * (grid[k] - grid[prev]))
-            prev = k
-        return None
-
-    return crossing(range(k0 - 1, -1, -1)), crossing(range(k0 + 1, G))

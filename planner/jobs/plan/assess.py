@@ -311,16 +311,7 @@ def assess_study(
         )
         if suggest and limits is not None:
             limits = what_would_help(study, recipe, limits, lb_true)
-    verdict, reason = _verdict(study, params, cr, mc, prof, precision)
-    failed = [c.id for c in check_list if c.status == "fail"]
-    if failed and verdict is not None:
-        # a precise constant from a recipe that breaks an assumption (readings outside the linear range,
-        # volumes the glassware cannot deliver, not enough stock) is not a result to trust
-        if verdict == "resolved":
-            verdict = "unresolved"
-            reason = f"{reason}, but failed checks: {', '.join(failed)} — fix them and assess again"
-        else:
-            reason = f"{reason}; failed checks: {', '.join(failed)}"
+    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof, precision), check_list)
     check_list.sort(key=lambda c: -STATUSES.index(c.status))
     return Assessment(
         study.title,
@@ -342,6 +333,18 @@ def assess_study(
         detection=det,
         limits=limits,
     )
+
+
+def with_failed_checks(verdict: str | None, reason: str, checks) -> tuple[str | None, str]:
+    """The verdict once the checks are in: a precise constant from a recipe that breaks an assumption
+    (readings outside the linear range, volumes the glassware cannot deliver, not enough stock) is not a
+    result to trust, so "resolved" with a failed check becomes "unresolved"; the reason names them."""
+    failed = [c.id for c in checks if c.status == "fail"]
+    if not failed or verdict is None:
+        return verdict, reason
+    if verdict == "resolved":
+        return "unresolved", f"{reason}, but failed checks: {', '.join(failed)} — fix them and assess again"
+    return verdict, f"{reason}; failed checks: {', '.join(failed)}"
 
 
 def stock_shortfalls(bench: Bench, recipe: Recipe) -> list[tuple[str, float, float, float]]:

@@ -2,7 +2,12 @@
 
 The candidate set is every combination of the designed stocks' volumes on the plan's grid that fits the
 tube (fixed volumes, the background electrolyte that levels the ionic strength and the diluent follow
-from the others). Each candidate carries the whitened Jacobian of its reading at every quadrature node of
+from the others). Stocks that carry neither M nor L (a buffer, a salt) are not searched tube by tube:
+:mod:`planner.jobs.plan.design` gives each one volume for every tube. The grid is counted before it is
+built (:func:`grid_count`); when the product of several stocks' grids is too large to list, the design
+starts from a sample of it (:func:`sampled_candidates`) and refines by coordinate exchange instead.
+
+Each candidate carries the whitened Jacobian of its reading at every quadrature node of
 the guesses' uncertainty; errors shared across tubes (stock concentrations, device calibration) enter as
 nuisance parameters with a unit Gaussian prior, which keeps the information additive over tubes and is
 exactly equivalent to the full-covariance Fisher information for the target criterion (Woodbury
@@ -17,20 +22,26 @@ from dataclasses import dataclass
 import numpy as np
 
 from ...inference.design_criteria import DesignError
-from ...inference.precision import ReadingModel, unpack
+from ...inference.precision import parameter_jacobian, unpack
 from ...inference.priors import Nodes
 from ...inference.study import Study
 from ...inputs.recipe import Recipe, concat_recipes, totals_M
 from ...model.compiled import Model, predict, tube_ions_M
 from ...model.jacobians import absorbance_derivatives
 from ...uncertainty import delivery
-from ...uncertainty.budget import error_factors
+from ...uncertainty.budget import delivery_sds, error_factors
 from .checks import RANGE_RISK, prior_range_risk
 
 __all__ = [
     "MAX_CANDIDATES",
+    "MAX_SAMPLED",
     "Candidates",
     "candidate_tubes",
+    "complete_rows",
+    "designed_stocks",
+    "grid_count",
+    "sampled_candidates",
+    "stock_levels",
     "information_rows",
     "level_ionic_strength",
     "neighbourhood",
@@ -40,6 +51,7 @@ __all__ = [
 ]
 
 MAX_CANDIDATES = 40000  # above this the grid is searched coarsely first, then refined locally
+MAX_SAMPLED = 2000  # candidates sampled from a grid too large to list (three or more searched stocks)
 
 
 @dataclass(frozen=True)
@@ -67,6 +79,60 @@ def _levels(lo: float, hi: float, step: float, allow_zero: bool) -> np.ndarray:
     return np.concatenate([[0.0], lv]) if allow_zero else lv
 
 
+def designed_stocks(study: Study) -> tuple[list[str], list[str]]:
+    """(stocks whose volume is chosen tube by tube, medium stocks).
+
+    Not designed: the diluent, the background electrolyte (it levels the ionic strength) and the fixed
+    stocks. Medium stocks carry neither M nor L (a buffer, a salt): their volume changes no tube's
+    chemistry, only its medium, so the design gives each one volume in every tube."""
+    g = study.bench
+    conc = study.model.stock_conc_M
+    designed = [s for s in g.stock_ids if s not in (g.diluent_id, g.background_id) and s not in g.fixed_mL]
+    medium = [s for s in designed if not np.any(conc[study.model.stock_ids.index(s)] > 0)]
+    return [s for s in designed if s not in medium], medium
+
+
+def _room_mL(study: Study) -> float:
+    """Room for the designed volumes: under to-mark the flask keeps make_up_min for the diluent
+    (Bench.room_mL), and the fixed volumes come first."""
+    g = study.bench
+    return g.room_mL - sum(g.fixed_mL.values())
+
+
+def stock_levels(
+    study: Study, sid: str, step: float, caps_mL: dict[str, float] | None = None, *, allow_zero: bool = True
+) -> np.ndarray:
+    """The volumes of one stock a tube may take on the grid: from the smallest its dispenser delivers
+    (and ``min_volume``) to what the tube, the dispenser and the cap allow; 0 too with ``allow_zero``."""
+    g = study.bench
+    devices = g.devices
+    cap = _room_mL(study)
+    low = max(g.min_volume_mL, step)
+    j = devices.stock_device[g.stock_index(sid)]
+    if j >= 0:
+        cap = min(cap, devices.items[j].capacity_mL)
+        low = max(low, delivery.smallest_delivery_mL(devices.items[j]))
+    if caps_mL and sid in caps_mL:
+        cap = min(cap, caps_mL[sid])
+    return _levels(low, cap, step, allow_zero=allow_zero)
+
+
+def grid_count(levels: list[np.ndarray], room_mL: float, step: float) -> int:
+    """How many combinations of the levels fit the room (Σ volumes ≤ room), counted without listing
+    them: a convolution of each stock's level counts over the grid index of the running sum."""
+    top = int(math.floor(room_mL / step + 1e-9))
+    ways = np.zeros(top + 1, dtype=float)  # float: the count may pass int64 for many stocks
+    ways[0] = 1.0
+    for lv in levels:
+        idx = np.round(np.asarray(lv) / step).astype(int)
+        idx = idx[idx <= top]
+        new = np.zeros_like(ways)
+        for k in idx:  # a few hundred levels at most
+            new[k:] += ways[: top + 1 - k]
+        ways = new
+    return int(min(ways.sum(), 2.0**62))
+
+
 def candidate_tubes(
     study: Study, *, step_mL: float | None = None, caps_mL: dict[str, float] | None = None
 ) -> Candidates:
@@ -74,64 +140,115 @@ def candidate_tubes(
 
     Under ``make_up = "to-mark"`` the dispensed volumes (fixed and background ones included) add up to
     at most the tube less ``glassware.make_up_min``, so every flask still takes diluent to its mark.
+    Medium stocks (:func:`designed_stocks`) are varied like the others here; the design fixes them first.
 
     Parameters
     ----------
     step_mL : grid step (default the plan's; a multiple of it for a coarse search).
     caps_mL : per-stock upper limits on one tube's volume (e.g. from the stock budget).
+
+    Raises
+    ------
+    DesignError
+        When nothing is left to vary, or the grid has more than 50 × MAX_CANDIDATES combinations (count
+        it with :func:`grid_count` and sample it with :func:`sampled_candidates` instead).
     """
     g = study.bench
-    devices = g.devices
     step = step_mL or g.step_mL
-    fixed = g.fixed_mL
-    designed = [s for s in g.stock_ids if s not in (g.diluent_id, g.background_id) and s not in fixed]
+    chem, medium = designed_stocks(study)
+    designed = [s for s in g.stock_ids if s in chem or s in medium]
     if not designed:
         raise DesignError(
             "design.fixed fixes every stock: nothing is left to vary; remove a stock from fixed"
         )
-    # under to-mark the flask keeps make_up_min of room for the diluent (Bench.room_mL)
-    room = g.room_mL - sum(fixed.values())
-    levels = []
-    for sid in designed:
-        k = g.stock_index(sid)
-        cap = room
-        low = max(g.min_volume_mL, step)
-        j = devices.stock_device[k]
-        if j >= 0:
-            cap = min(cap, devices.items[j].capacity_mL)
-            low = max(low, delivery.smallest_delivery_mL(devices.items[j]))
-        if caps_mL and sid in caps_mL:
-            cap = min(cap, caps_mL[sid])
-        levels.append(_levels(low, cap, step, allow_zero=True))
-    # cartesian product, then keep what fits (vectorised over the grid)
-    mesh = np.stack([m.ravel() for m in np.meshgrid(*levels, indexing="ij")], axis=1)
-    fits = mesh.sum(axis=1) <= room + 1e-9
-    mesh = mesh[fits]
+    room = _room_mL(study)
+    levels = [stock_levels(study, sid, step, caps_mL) for sid in designed]
+    count = grid_count(levels, room, step)
+    if count > 50 * MAX_CANDIDATES:
+        raise DesignError(
+            f"{count:.3g} combinations of {len(designed)} stocks' volumes are too many to list: sample them"
+        )
+    # combinations that fit, built stock by stock (never the full product of every grid)
+    mesh = np.zeros((1, 0))
+    for lv in levels:
+        mesh = np.concatenate([np.repeat(mesh, lv.size, axis=0), np.tile(lv, mesh.shape[0])[:, None]], axis=1)
+        mesh = mesh[mesh.sum(axis=1) <= room + 1e-9]
     rec = _complete(study, designed, mesh, "c")
     return Candidates(rec, tuple(designed), rec.n_tubes, step)
+
+
+def sampled_candidates(
+    study: Study,
+    ids: list[str],
+    rng: np.random.Generator,
+    *,
+    size: int = MAX_SAMPLED,
+    caps_mL: dict[str, float] | None = None,
+) -> Candidates:
+    """A spread sample of the tubes the grid allows, for grids too large to list.
+
+    Optimal tubes use few stocks each (one metal and one ligand stock, say), so each sampled tube takes
+    one to three of the stocks (a third each), picked at random, with volumes uniform over the simplex
+    Σ v ≤ room (normalised exponentials; Devroye 1986, Non-Uniform Random Variate Generation, §V.2),
+    rounded to each stock's levels; duplicates dropped."""
+    room = _room_mL(study)
+    levels = [stock_levels(study, sid, study.bench.step_mL, caps_mL) for sid in ids]
+    d = len(ids)
+    k = rng.integers(1, min(d, 3) + 1, size=size)  # stocks per tube
+    pick = np.argsort(rng.random((size, d)), axis=1) < k[:, None]  # k of the d stocks, at random
+    e = rng.exponential(size=(size, d + 1)) * np.concatenate([pick, np.ones((size, 1), bool)], axis=1)
+    v = room * e[:, :d] / e.sum(axis=1, keepdims=True)
+    pts = np.column_stack([_nearest(lv, v[:, j]) for j, lv in enumerate(levels)])
+    pts = np.unique(pts[pts.sum(axis=1) <= room + 1e-9], axis=0)
+    rec = _complete(study, ids, pts, "s")
+    return Candidates(rec, tuple(ids), rec.n_tubes, study.bench.step_mL)
+
+
+def _nearest(levels: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """The level nearest to each value (levels sorted)."""
+    i = np.clip(np.searchsorted(levels, v), 1, levels.size - 1) if levels.size > 1 else np.zeros(v.size, int)
+    if levels.size == 1:
+        return levels[i]
+    lower, upper = levels[i - 1], levels[i]
+    return np.where(v - lower <= upper - v, lower, upper)
 
 
 def _complete(study: Study, designed, mesh: np.ndarray, prefix: str) -> Recipe:
     """Candidate recipe from designed volumes (C, d): fixed volumes, the background electrolyte that
     levels the ionic strength, and the diluent remainder under ``make_up = "added"``."""
+    rec, _ = complete_rows(study, designed, mesh, prefix)
+    return rec
+
+
+def complete_rows(study: Study, designed, mesh: np.ndarray, prefix: str) -> tuple[Recipe, np.ndarray]:
+    """:func:`_complete`, with the indices of the rows of ``mesh`` that became tubes (a row is dropped
+    when the background stock cannot level it, or the diluent remainder is below min_volume)."""
     g = study.bench
     vols = {sid: mesh[:, j] for j, sid in enumerate(designed)}
     for sid, v in g.fixed_mL.items():
         vols[sid] = np.full(mesh.shape[0], v)
+    kept = np.arange(mesh.shape[0])
     if g.background_id is not None and g.background_id not in g.fixed_mL:
-        vols = level_ionic_strength(study, vols)
+        vols, ok = _level_rows(study, vols)
+        kept = kept[ok]
     if not g.to_mark and g.diluent_id is not None:
         rest = g.tube_volume_mL - sum(vols.values())
         ok = (rest <= 1e-9) | (rest >= g.min_volume_mL - 1e-9)
         vols = {k: v[ok] for k, v in vols.items()}
         vols[g.diluent_id] = np.maximum(rest[ok], 0.0)
-    n = len(next(iter(vols.values())))
-    if n == 0:
+        kept = kept[ok]
+    if kept.size == 0:
         raise DesignError("no tube fits: the fixed volumes and min_volume leave no room in tube_volume")
-    return g.make_recipe(vols, [f"{prefix}{i}" for i in range(n)])
+    return g.make_recipe(vols, [f"{prefix}{i}" for i in range(kept.size)]), kept
 
 
 def level_ionic_strength(study: Study, vols: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Add the background-electrolyte volume that brings every tube to the same ionic strength (see
+    :func:`_level_rows`); the tubes that cannot be levelled are dropped."""
+    return _level_rows(study, vols)[0]
+
+
+def _level_rows(study: Study, vols: dict[str, np.ndarray]) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Add the background-electrolyte volume that brings every tube to the same ionic strength.
 
     The target is ``design.ionic_strength`` (default: the highest ionic strength among the tubes
@@ -180,7 +297,7 @@ def level_ionic_strength(study: Study, vols: dict[str, np.ndarray]) -> dict[str,
         )
     out = {k: v[ok] for k, v in vols.items()}
     out[bg] = v_bg[ok]
-    return out
+    return out, ok
 
 
 def information_rows(
@@ -191,14 +308,18 @@ def information_rows(
     *,
     volumetric: bool = True,
     with_sd: bool = False,
+    all_nuisance: bool = False,
 ):
     """Whitened Jacobian rows F (G, C, 1, P') and prior M0 (P', P') for every candidate and node (and,
-    with ``with_sd``, the independent sd (G, C) each row was whitened by)."""
+    with ``with_sd``, the independent sd (G, C) each row was whitened by).
+
+    A shared error no candidate depends on is left out of the nuisance columns, unless
+    ``all_nuisance``: then every call has the same columns, so rows of different calls can be combined
+    (an unused nuisance factor only adds a decoupled unit block to the information)."""
     model, params = study.model, study.params
     rec = cand.recipe
     tot = totals_M(rec, model.stock_conc_M)
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
-    reading = ReadingModel(model, params, tot, ions)
     G = nodes.theta.shape[0]
     lb, eps, _ = unpack(model, params, nodes.theta)
     st = predict(
@@ -209,13 +330,14 @@ def information_rows(
         epsilon_M_cm=eps,
         warn=False,
     )
-    J = reading.jac(nodes.theta)  # (G, C, P)
     der = absorbance_derivatives(model, st, eps)
+    J = parameter_jacobian(params, der)  # (G, C, P), as reading.jac(nodes.theta) without a second solve
     var = np.empty(st.absorbance.shape)
     shared = []
+    sds = delivery_sds(study.bench, rec)  # the volumes' uncertainties: the same at every node
     for gi in range(G):  # a handful of nodes; each vectorised over candidates
         sub = st[gi]
-        f = error_factors(study.bench, model, rec, sub, dA_dtotals=der.dA_dtotals[gi])
+        f = error_factors(study.bench, model, rec, sub, dA_dtotals=der.dA_dtotals[gi], sds=sds)
         var[gi] = f.photometric_var + (f.delivery_random_var if volumetric else 0.0)
         shared.append(
             np.concatenate([f.J_stock, f.J_device], axis=1) if volumetric else np.zeros((rec.n_tubes, 0))
@@ -227,6 +349,8 @@ def information_rows(
     Fth = J / sd[..., None]
     S = np.stack(shared)  # (G, C, k + d)
     keep = np.any(S != 0, axis=(0, 1)) if S.size else np.zeros(0, dtype=bool)
+    if all_nuisance:
+        keep = np.ones(S.shape[-1], dtype=bool)
     if criterion == "target" and keep.any():
         Fs = S[..., keep] / sd[..., None]
         F = np.concatenate([Fth, Fs], axis=-1)
@@ -256,11 +380,14 @@ def rows_with_prior(
     *,
     volumetric: bool = True,
     with_sd: bool = False,
+    all_nuisance: bool = False,
 ):
     """:func:`information_rows` of the candidates, with the information of tubes measured before
     (``prior``) added to M0. Both are computed in one call, so they share the nuisance columns."""
     if prior is None:
-        return information_rows(study, cand, nodes, crit, volumetric=volumetric, with_sd=with_sd)
+        return information_rows(
+            study, cand, nodes, crit, volumetric=volumetric, with_sd=with_sd, all_nuisance=all_nuisance
+        )
     C = cand.recipe.n_tubes
     r = cand.recipe
     union = concat_recipes([r, prior], ["candidate", "prior"])
@@ -271,6 +398,7 @@ def rows_with_prior(
         crit,
         volumetric=volumetric,
         with_sd=True,
+        all_nuisance=all_nuisance,
     )
     F, M0, st, band, sd = out
     Fp = F[:, C:, 0, :]

@@ -53,8 +53,10 @@ def test_an_out_of_range_reading_is_left_out(plan):
     assert [t for t, _ in f.excluded] == ["T4"] and "linear range" in f.excluded[0][1]
     assert f.estimate[0] == pytest.approx(good.estimate[0], abs=3 * good.se[0])
     kept = fit_readings(plan, bad, keep_out_of_range=True)
-    # kept in, it either gives a sane fit flagged by χ² and the residual, or says "not determined"
-    assert (not kept.determined) or (kept.se[0] < 1.0 and (kept.p_value < 0.05 or kept.outliers[3]))
+    # kept in, it is named as the one wild reading (alone), χ² fails and the SEs are widened by √(χ²/dof)
+    assert kept.determined and kept.p_value < 0.05 and list(kept.outliers) == [k == 3 for k in range(8)]
+    assert kept.interval_scale == pytest.approx(np.sqrt(kept.chi2 / kept.dof))
+    assert kept.se[0] == pytest.approx(kept.se_error_model[0] * kept.interval_scale)
 
 
 def test_exclude_by_label(plan):

@@ -284,3 +284,84 @@ def test_too_few_tubes_for_the_parameters(teaching_plan):
     # one tube cannot determine log β and ε together (the assessment calls it undeterminable): refuse
     with pytest.raises(DesignError, match="cannot determine the 2 fitted parameters"):
         design(teaching_plan, tubes=1)
+
+
+# ------------------------------------------------------------------------------------------------
+# many stocks (issue 22): no full product of the stocks' grids
+# ------------------------------------------------------------------------------------------------
+
+# Invented stocks added to the teaching scenario: a buffer and a salt (neither M nor L), a dilute metal
+# stock, a concentrated ligand stock, a concentrated metal stock, a dilute ligand stock, a second salt
+# and a second buffer.
+_EXTRA_STOCKS = [
+    ("BUF", "acetate buffer, 0.50 M", None, '"Na+" = "0.50 M", "OAc-" = "0.50 M"'),
+    ("SALT", "potassium nitrate, 1.00 M", None, '"K+" = "1.00 M", "NO3-" = "1.00 M"'),
+    ("CUD", "copper(II) nitrate, 1.00 mM", 'M = "1.00 mM"', '"NO3-" = "2.00 mM"'),
+    ("DYC", "dye ligand Dy, 50 mM", 'L = "50.0 mM"', '"Na+" = "50.0 mM"'),
+    ("CUC", "copper(II) nitrate, 50 mM", 'M = "50.0 mM"', '"NO3-" = "0.100 M"'),
+    ("DYD", "dye ligand Dy, 2.0 mM", 'L = "2.00 mM"', '"Na+" = "2.00 mM"'),
+    ("NAN", "sodium nitrate, 1.00 M", None, '"Na+" = "1.00 M", "NO3-" = "1.00 M"'),
+    ("BUB", "buffer B, 0.20 M", None, '"Na+" = "0.20 M", "B-" = "0.20 M"'),
+]
+
+
+def many_stocks_text(teaching_text: str, n_stocks: int) -> str:
+    """The teaching scenario with ``n_stocks`` stocks in all (3 to 11): the extra ones above, the metal
+    and ligand stocks on the burette, the buffers and salts on a graduated pipette."""
+    extra = _EXTRA_STOCKS[: n_stocks - 3]
+    block = ""
+    for sid, label, conc, ions in extra:
+        block += f'[[stock]]\nid = "{sid}"\nlabel = "{label}"\n'
+        block += (f"conc = {{ {conc} }}\n" if conc else "") + f"ions = {{ {ions} }}\n"
+        block += 'conc_rsd = 0.01\non_hand = "200 mL"\n\n'
+    chem = ["CU", "DY"] + [e[0] for e in extra if e[2] is not None]
+    medium = [e[0] for e in extra if e[2] is None]
+    text = teaching_text.replace('[[stock]]\nid = "BG"', block + '[[stock]]\nid = "BG"')
+    text = text.replace('stocks = ["CU", "DY"]', "stocks = [" + ", ".join(f'"{s}"' for s in chem) + "]")
+    if medium:
+        pipette = (
+            '[[glassware.dispenser]]\nkind = "graduated-pipette"\ncapacity = "5 mL"\nclass = "A"\n'
+            "stocks = [" + ", ".join(f'"{s}"' for s in medium) + "]\n\n"
+        )
+        text = text.replace("[design]", pipette + "[design]")
+    return text
+
+
+def test_grid_count_matches_the_listed_grid(teaching_text):
+    # derived: counting the combinations that fit must give the number the listing builds
+    from planner.jobs.plan.candidates import designed_stocks, grid_count, stock_levels
+
+    for n_stocks in (3, 5):
+        study = compile_study(parse_plan_text(many_stocks_text(teaching_text, n_stocks)))
+        chem, medium = designed_stocks(study)
+        ids = [s for s in study.bench.stock_ids if s in chem or s in medium]
+        levels = [stock_levels(study, s, 0.25) for s in ids]
+        room = study.bench.room_mL - sum(study.bench.fixed_mL.values())
+        assert grid_count(levels, room, 0.25) == candidate_tubes(study, step_mL=0.25).n_grid
+
+
+def test_medium_stocks_go_into_every_tube_at_one_volume(teaching_text):
+    # a buffer and a salt carry neither M nor L: each gets one volume in every tube (the smallest the
+    # pipette delivers, as no tube's chemistry depends on it in this plan), the rest is designed as usual
+    plan = parse_plan_text(many_stocks_text(teaching_text, 5))
+    d = design(plan, seed=0, check_model=False)
+    for sid in ("BUF", "SALT"):
+        v = d.recipe.column(sid)
+        assert np.all(v == v[0]) and v[0] > 0
+    assert any("one volume" in n for n in d.notes)
+    assert glassware_problems(compile_bench(plan), d.recipe) == []
+
+
+@pytest.mark.parametrize("n_stocks", [6, 11])
+def test_many_stocks_are_designed_without_the_full_grid(teaching_text, n_stocks):
+    # 6 stocks asked numpy for 1.45 TiB and 11 hit its dimension limit (issue 22); now the searched
+    # stocks are sampled and refined by coordinate exchange
+    plan = parse_plan_text(many_stocks_text(teaching_text, n_stocks))
+    d = design(plan, seed=0, check_model=False, starts=3)
+    assert any("coordinate exchange" in n for n in d.notes)
+    assert d.n_candidates > 40000  # the grid it did not list
+    assert glassware_problems(compile_bench(plan), d.recipe) == []
+    # derived: the extra stocks only add choices, so the design is at least as precise as the teaching
+    # scenario's two-stock design, apart from the room the buffer and salt take from every tube
+    five = design(parse_plan_text(many_stocks_text(teaching_text, 5)), seed=0, check_model=False)
+    assert d.se_target <= five.se_target * 1.001

@@ -1,0 +1,1 @@
+"""planner.jobs.spectra: plan, assess, design and fit with whole spectra."""

@@ -1,0 +1,282 @@
+"""Assessment of a recipe read as whole spectra: can every wavelength together resolve K?
+
+The same verdict, checks and JSON keys as the single-wavelength assessment
+(:mod:`planner.jobs.plan.assess`), with the precision from the whole window (:mod:`.precision`): the
+parameters are the free constants (every unknown spectrum is eliminated), the tube table shows each
+tube's highest reading in the window, and ``summary()["spectra"]`` adds the comparison with the best
+single wavelength, each wavelength's share of the information about the target, and whether the
+factor analysis of simulated data matrices finds the model's number of absorbing species.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+from dataclasses import replace
+
+import numpy as np
+
+from ...inference.factors import factor_analysis
+from ...inference.precision import pack
+from ...inference.priors import prior_nodes
+from ...inference.simulate import simulate
+from ...inference.study import Study
+from ...inputs.recipe import Recipe
+from ...model.compiled import TubeState
+from ...model.spectra import spectra_readings
+from ..compile import true_constants
+from ..plan import checks as chk
+from ..plan.assess import (
+    DEFAULT_TRIALS,
+    STATUSES,
+    Assessment,
+    _stock_and_glassware_checks,
+    _verdict,
+    with_failed_checks,
+)
+from .precision import (
+    information_by_wavelength,
+    spectra_cramer_rao,
+    spectra_monte_carlo,
+    spectra_profile,
+)
+from .reading import Expected, SpectraModel, expected, spectra_model
+from .single import SingleWavelengths, single_wavelengths
+
+FACTOR_TRIALS = 200  # simulated data matrices for the factor-analysis check
+FACTOR_GOAL = 0.80  # the check passes when the factor analysis finds the species in 4 of 5 experiments
+
+
+def assess_spectra(
+    study: Study,
+    recipe: Recipe,
+    *,
+    trials: int = DEFAULT_TRIALS,
+    seed: int = 0,
+    at: Mapping[str, float] | None = None,
+    profile_chi2: bool = True,
+    factors: bool = True,
+    progress: Callable[[int, int], None] | None = None,
+) -> Assessment:
+    """Judge ``recipe`` read at every wavelength of the plan's window (see the module docstring)."""
+    model = study.model
+    sm = spectra_model(study, recipe)
+    params = sm.params
+    lb_true = true_constants(model, at)
+    theta = pack(model, params, log_beta=lb_true)
+    ex = expected(study, recipe, sm, lb_true)
+    cr = spectra_cramer_rao(sm, ex.weights, theta) if params.size else None
+    mc = prof = None
+    rng = np.random.default_rng(seed)
+    if cr is not None and trials > 0:
+        mc = spectra_monte_carlo(study.bench, recipe, sm, ex.weights, rng, trials, theta, progress=progress)
+    if cr is not None and profile_chi2 and params.target >= 0:
+        prof = spectra_profile(sm, ex.weights, theta)
+    single = single_wavelengths(sm, ex, theta)
+    state = _tube_table_state(ex)
+    checks = [spectra_range_check(study, sm, ex, recipe)]
+    checks.append(chk.saturation(state, recipe.tubes))
+    checks.append(chk.ionic_strength(state))
+    checks.extend(chk.side_reactions(model, state, recipe.tubes))
+    checks.extend(_stock_and_glassware_checks(study.bench, recipe))
+    if cr is not None:
+        checks.append(_identifiability(cr))
+    fa = None
+    if factors:
+        fa = factor_check(study, recipe, sm, ex, lb_true, np.random.default_rng(seed + 2))
+        checks.append(fa[0])
+    verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof, True), checks)
+    checks.sort(key=lambda c: -STATUSES.index(c.status))
+    extra = {"spectra": spectra_summary(sm, ex, cr, single, fa[1] if fa else None)}
+    return Assessment(
+        study.title,
+        recipe,
+        model,
+        state,
+        tuple(checks),
+        None,
+        params,
+        theta,
+        cr,
+        mc,
+        prof,
+        verdict,
+        reason,
+        study.goal_se,
+        extra,
+        study=study,
+    )
+
+
+def _tube_table_state(ex: Expected) -> TubeState:
+    """The tubes' contents with each tube's highest reading in the window (and its sd, every source)."""
+    rd = ex.readings
+    k = np.argmax(rd.absorbance, axis=1)
+    rows = np.arange(k.size)
+    sd = ex.budget.total_sd * rd.slope  # back on the scale of the readings
+    return replace(
+        ex.state,
+        absorbance_true=rd.absorbance_true[rows, k],
+        absorbance=rd.absorbance[rows, k],
+        absorbance_sd=sd[rows, k],
+    )
+
+
+def spectra_range_check(study: Study, sm: SpectraModel, ex: Expected, recipe: Recipe):
+    """Every tube's highest reading in the window below the linear range's top, at the guess and over
+    its uncertainty (the readings above it are left out of the fit: they follow no Beer–Lambert line)."""
+    lo, hi = study.model.linear_range
+    top = ex.readings.absorbance.max(axis=1)
+    wl = sm.spectra.wavelength_nm[np.argmax(ex.readings.absorbance, axis=1)]
+    risk = prior_top_risk(sm, hi)
+    over = top > hi
+    if over.any():
+        i = int(np.argmax(top))
+        return chk.Check(
+            "linear-range",
+            "fail",
+            f"{chk._tubes(recipe.tubes, over)} read above {hi:g} in part of the window (up to {top[i]:.3f} "
+            f"at "
+            f"{wl[i]:g} nm); those readings would be left out: use less of the absorbing stock or a "
+            f"shorter path",
+        )
+    dim = top < lo
+    at_risk = risk > chk.RANGE_RISK
+    if at_risk.any():
+        return chk.Check(
+            "linear-range",
+            "warn",
+            f"{chk._tubes(recipe.tubes, at_risk)} may read above {hi:g} if the constants or spectra are "
+            f"off by their uncertainty (chance up to {risk.max():.0%}): use a little less absorbing stock",
+        )
+    if dim.any():
+        return chk.Check(
+            "linear-range",
+            "warn",
+            f"{chk._tubes(recipe.tubes, dim)} read below {lo:g} at every wavelength: they add little "
+            f"(more of the absorbing stock or a longer path)",
+        )
+    return chk.Check(
+        "linear-range", "pass", f"highest readings {top.min():.3f}–{top.max():.3f}, all below {hi:g}"
+    )
+
+
+def prior_top_risk(sm: SpectraModel, hi: float) -> np.ndarray:
+    """(n,) each tube's chance that its highest reading in the window passes ``hi`` over the guesses'
+    uncertainty (quadrature over log β, the spectra's rsd as a normal spread at each node)."""
+    nodes = prior_nodes(sm.params, robust=True)
+    st = sm.state(nodes.theta)
+    conc = st.absorber_conc_M()  # (G, n, A)
+    rd = spectra_readings(sm.spectra, conc, sm.model.path_cm)
+    spread = sm.model.path_cm * np.sqrt(
+        np.einsum("gna,wa->gnw", conc**2, (sm.spectra.epsilon_M_cm * sm.spectra.epsilon_rsd) ** 2)
+    )
+    k = np.argmax(rd.absorbance + 2 * spread, axis=-1)
+    a = np.take_along_axis(rd.absorbance, k[..., None], -1)[..., 0]
+    b = np.take_along_axis(spread, k[..., None], -1)[..., 0]
+    return chk.prior_range_risk(a, b, nodes.weights, -np.inf, hi)
+
+
+def _identifiability(cr) -> chk.Check:
+    if not np.all(np.isfinite(cr.se)):
+        return chk.Check(
+            "identifiability",
+            "fail",
+            "the spectra cannot all be told apart with the constants from these tubes (singular "
+            "information): widen the range of compositions so each species dominates some tubes",
+        )
+    return chk.Check(
+        "identifiability", "pass", "the constants and every fitted spectrum are determined by these tubes"
+    )
+
+
+def expected_factors(sm: SpectraModel, ex: Expected) -> tuple[int, int]:
+    """(absorbing species of the model, how many independent spectra stand above the noise).
+
+    A species is in the model when it has ε > 0 in the window and is present in some tube (a
+    fitted baseline counts too). The noise-free data matrix has that rank; a factor analysis can see
+    only the singular values above the noise's own largest, about σ(√n + √W) for n × W independent
+    errors of sd σ (Geman 1980, Ann. Probab. 8:252). The tubes' volumetric errors change the species'
+    concentrations, so they add no factor of their own."""
+    conc = ex.state.absorber_conc_M()
+    present = np.flatnonzero(np.any(conc > 0, axis=0) & sm.spectra.absorbing)
+    a = ex.readings.absorbance
+    n, W = a.shape
+    sigma = float(np.sqrt(np.mean(ex.readings.absorbance_sd**2)))
+    edge = sigma * (np.sqrt(n) + np.sqrt(W))
+    sv = np.linalg.svd(a, compute_uv=False)
+    model_count = present.size + int(sm.blank)
+    return model_count, int(np.sum(sv[:model_count] > edge))
+
+
+def factor_check(study: Study, recipe: Recipe, sm: SpectraModel, ex: Expected, log_beta: np.ndarray, rng):
+    """Would the factor analysis of a measured data matrix find the absorbing species that stand above
+    the noise? Simulated experiments (every error source), Malinowski's indicator function on each."""
+    model = study.model
+    n = recipe.n_tubes
+    count, want = expected_factors(sm, ex)
+    info = {"absorbing_species": count, "above_noise": want}
+    hidden = (
+        f" (the other {count - want} within the noise: a weak absorber, or spectra too alike)"
+        if want < count
+        else ""
+    )
+    if n < 3 or want >= min(n, sm.spectra.size):
+        info.update(found_share=None, found_median=None)
+        msg = f"{n} tubes cannot show {want} absorbing species by factor analysis: it needs more tubes"
+        return chk.Check("factors", "warn", msg), info
+    exp = simulate(study.bench, model, recipe, rng, FACTOR_TRIALS, log_beta=log_beta, photometric=False)
+    rd = spectra_readings(sm.spectra, exp.state.absorber_conc_M(), model.path_cm)
+    y = rd.absorbance + rd.absorbance_sd * rng.standard_normal(rd.absorbance.shape)
+    found = np.array([factor_analysis(y[t]).n_indicator for t in range(FACTOR_TRIALS)])
+    share = float(np.mean(found == want))
+    info.update(found_share=share, found_median=float(np.median(found)))
+    head = f"the model has {count} absorbing species, {want} above the noise{hidden}"
+    if share >= FACTOR_GOAL:
+        return chk.Check(
+            "factors",
+            "pass",
+            f"{head}; factor analysis of the data matrix (Malinowski's indicator function) finds {want} in "
+            f"{share:.0%} of simulated experiments",
+        ), info
+    return chk.Check(
+        "factors",
+        "warn",
+        f"{head}; factor analysis finds {want} in only {share:.0%} of simulated experiments (typically "
+        f"{np.median(found):g}): a minor species hides in the noise; add tubes where it dominates, or read "
+        f"a longer path",
+    ), info
+
+
+def spectra_summary(sm: SpectraModel, ex: Expected, cr, single: SingleWavelengths, fa) -> dict:
+    """The ``spectra`` part of the assessment JSON."""
+    wl = sm.spectra.wavelength_nm
+    t = sm.params.target
+    se = float(cr.se[t]) if cr is not None and t >= 0 else float("nan")
+    share = information_by_wavelength(cr, sm.totals_M.shape[0], wl.size, t) if cr is not None else None
+    best = single.best_se
+    return {
+        "wavelengths": int(wl.size),
+        "window_nm": [float(wl[0]), float(wl[-1])],
+        "fitted_spectra": list(sm.basis_names),
+        "readings_used": int(ex.used.sum()),
+        "readings": int(ex.used.size),
+        "se_whole_spectrum": _f(se),
+        "best_single_wavelength_nm": float(wl[single.best]) if single.best >= 0 else None,
+        "se_best_single_wavelength": _f(best),
+        "se_ratio_single_over_spectrum": _f(best / se) if se > 0 else None,
+        "factors": fa,
+        "by_wavelength": [
+            {
+                "wavelength_nm": float(w),
+                "information_share": _f(share[k]) if share is not None else None,
+                "se_single": _f(single.se[k]),
+                "eligible": bool(single.eligible[k]),
+            }
+            for k, w in enumerate(wl)
+        ],
+    }
+
+
+def _f(x) -> float | None:
+    x = float(x)
+    return x if np.isfinite(x) else None

@@ -1,0 +1,225 @@
+"""Designs for whole spectra: tube volumes on the glassware's grid that use the information of the whole
+window.
+
+The design criterion works in concentration space. A tube's spectrum determines its absorbers'
+concentrations m_i up to the unknown spectra; with every fitted spectrum free at every wavelength the
+data fix the concentrations only up to a linear map of the fitted species' columns, m_i = c_i(θ) +
+Nᵀ c_i,free (N: s × s_all nuisance parameters). Each tube then reads m_i (s_all numbers) with the
+covariance Γ_i⁻¹ + H_i B_i H_iᵀ: the photometric part Γ_i = E D_i⁻¹ Eᵀ (the spectra weighted by that
+tube's noise at every wavelength) and its own volumetric errors (H_i = ∂c_i/∂totals, B_i their
+covariance), while the errors shared across tubes (stocks, devices) enter as unit-prior nuisance factors.
+When every tube's photometric noise has the same shape over the window this is exactly the Fisher
+information of the whole-spectrum fit (the per-wavelength Schur complement over E reduces to
+tr(Ċᵀ P⊥ Ċ Γ) [derived]); otherwise it is a close approximation. The design itself is the exact design
+on the candidates by the same exchange algorithm as single-wavelength designs
+(:mod:`planner.inference.exchange`, Fedorov 1972), robust over the guess's uncertainty (Chaloner &
+Larntz 1989); every SE reported is the exact whole-spectrum Cramér–Rao bound (:mod:`.precision`).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ...inference import approximate, exchange
+from ...inference.design_criteria import CRITERIA, DesignError
+from ...inference.precision import pack
+from ...inference.study import Study
+from ...inputs.recipe import Recipe, totals_M
+from ...model.compiled import predict, tube_ions_M
+from ...model.jacobians import concentration_derivatives
+from ...model.spectra import spectra_readings
+from ...uncertainty.spectra_budget import totals_errors
+from ..plan import checks as chk
+from ..plan.candidates import Candidates, candidate_tubes, neighbourhood, recipe_from_counts
+from ..plan.design import Design, se_across_guess
+from ..plan.even import even_series_for
+from .assess import assess_spectra
+from .precision import spectra_cramer_rao
+from .reading import expected, spectra_model, spectral_parameters
+
+MAX_SPECTRA_CANDIDATES = 6000  # above this the grid is searched coarsely first, then refined locally
+
+
+def concentration_rows(study: Study, cand: Candidates, theta: np.ndarray, criterion: str):
+    """Whitened concentration-space rows F (G, C, s_all, P') of every candidate at every node θ (G, P),
+    the prior M0 (P', P') of the shared nuisance factors, and each candidate's highest reading (G, C)
+    with its spread from the spectra's uncertainty (see the module docstring)."""
+    model, spectra = study.model, study.spectra
+    params = spectral_parameters(study)
+    rec = cand.recipe
+    tot = totals_M(rec, model.stock_conc_M)
+    ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
+    G = theta.shape[0]
+    lb = np.broadcast_to(model.log_beta, (G, model.log_beta.size)).copy()
+    lb[:, params.index] = theta
+    st = predict(
+        model,
+        np.broadcast_to(tot, (G,) + tot.shape),
+        np.broadcast_to(ions, (G,) + ions.shape),
+        log_beta=lb,
+        warn=False,
+    )
+    cd = concentration_derivatives(model, st)
+    ab = np.flatnonzero(spectra.absorbing)
+    free = np.flatnonzero(spectra.free[ab])
+    conc = st.absorber_conc_M()
+    rd = spectra_readings(spectra, conc, model.path_cm)
+    used = rd.absorbance <= model.linear_range[1]
+    E = model.path_cm * spectra.epsilon_M_cm[:, ab]  # (W, a)
+    Gam = np.einsum("wa,gcw,wb->gcab", E, used / rd.linear_sd**2, E)
+    c = conc[..., ab]  # (G, C, a)
+    H = cd.dc_dtotals[..., ab, :]  # (G, C, a, 2)
+    errs = totals_errors(study.bench, model, rec)
+    V = np.linalg.pinv(Gam, hermitian=True) + np.einsum("gcai,cij,gcbj->gcab", H, errs.random_cov, H)
+    a, s = ab.size, free.size
+    Jth = cd.dc_dlog_beta[..., ab, :][..., params.index]  # (G, C, a, P)
+    Jn = np.einsum("xy,gcb->gcxby", np.eye(a), c[..., free]).reshape(G, c.shape[1], a, s * a)
+    Jsh = np.einsum("gcai,ciq->gcaq", H, errs.shared)
+    keep = (
+        np.any(errs.shared != 0, axis=(0, 1))
+        if criterion == "target"
+        else np.zeros(errs.shared.shape[-1], bool)
+    )
+    J = np.concatenate([Jth, Jn, Jsh[..., keep]], axis=-1)
+    w, U = np.linalg.eigh(V)
+    inv_sqrt = np.einsum("gcij,gcj,gckj->gcik", U, 1.0 / np.sqrt(np.maximum(w, 1e-300)), U)
+    F = inv_sqrt @ J
+    M0 = None
+    if keep.any():
+        M0 = np.zeros((F.shape[-1],) * 2)
+        M0[-int(keep.sum()) :, -int(keep.sum()) :] = np.eye(int(keep.sum()))
+    spread = model.path_cm * np.sqrt(
+        np.einsum("gca,wa->gcw", conc**2, (spectra.epsilon_M_cm * spectra.epsilon_rsd) ** 2)
+    )
+    k = np.argmax(rd.absorbance + 2 * spread, axis=-1)
+    top = np.take_along_axis(rd.absorbance, k[..., None], -1)[..., 0]
+    band = np.take_along_axis(spread, k[..., None], -1)[..., 0]
+    return F, M0, top, band
+
+
+def design_spectra(
+    study: Study,
+    *,
+    tubes: int | None = None,
+    criterion: str | None = None,
+    robust: bool | None = None,
+    seed: int = 0,
+    starts: int = 8,
+) -> Design:
+    """Choose each tube's volumes to resolve the target from whole spectra (see the module docstring)."""
+    n = int(tubes or study.tubes)
+    crit = criterion or study.criterion
+    if crit not in CRITERIA:
+        raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
+    rob = study.robust if robust is None else bool(robust)
+    params = spectral_parameters(study)
+    if params.size == 0 or (crit == "target" and params.target < 0):
+        raise DesignError(
+            f"the target {study.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0"
+        )
+    from ...inference.priors import prior_nodes
+
+    nodes = prior_nodes(params, rob)
+    notes = []
+    cand = candidate_tubes(study)
+    factor = 1
+    if cand.n_grid > MAX_SPECTRA_CANDIDATES:
+        factor = int(math.ceil((cand.n_grid / MAX_SPECTRA_CANDIDATES) ** (1.0 / len(cand.designed_ids))))
+        cand = candidate_tubes(study, step_mL=study.bench.step_mL * factor)
+        notes.append(
+            f"searched a {study.bench.step_mL * factor:g} mL grid first, then refined near the chosen tubes"
+        )
+    ex, ap, rec, idx = _exact(study, cand, nodes, crit, n, seed, starts)
+    n_grid, n_feas = cand.n_grid, idx.size
+    if factor > 1:
+        fine = neighbourhood(study, cand, idx[np.flatnonzero(ex.counts)], factor, None)
+        ex, ap, rec, idx = _exact(study, fine, nodes, crit, n, seed, starts)
+        n_grid, n_feas = fine.n_grid, idx.size
+    notes.append(
+        "the search weighs candidates by their concentration-space information (exact when every tube's "
+        "noise has the same shape over the window); every SE shown is the exact whole-spectrum bound"
+    )
+    a = assess_spectra(study, rec, trials=0, profile_chi2=False, factors=True)
+    even = even_series_for(study, n)
+    se_d = _se(study, rec)
+    se_e = _se(study, even)
+    across = se_across_guess(study, rec, even, se=_se)
+    eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
+    summary = a.summary()
+    summary["spectra"].update(_single_wavelength_design(study, n, crit, rob, seed))
+    return Design(
+        rec,
+        crit,
+        rob,
+        seed,
+        n_grid,
+        n_feas,
+        ex,
+        ap,
+        eff,
+        se_d,
+        se_e,
+        tuple(across),
+        study.target,
+        tuple(notes),
+        summary,
+        None,
+        verdict=a.verdict,
+        verdict_reason=a.verdict_reason,
+    )
+
+
+def _single_wavelength_design(study: Study, n: int, crit: str, rob: bool, seed: int) -> dict:
+    """What designing for the working wavelength alone would give (the plan's ``optics.wavelength_nm``,
+    the single-wavelength design without the model check): its SE there, for the comparison."""
+    from ..plan.design import design_study
+
+    try:
+        d = design_study(study, tubes=n, criterion=crit, robust=rob, seed=seed, check_model=False)
+    except DesignError:
+        return {"se_single_wavelength_design": None}
+    return {"se_single_wavelength_design": d.se_target if np.isfinite(d.se_target) else None}
+
+
+def _exact(study: Study, cand: Candidates, nodes, crit: str, n: int, seed: int, starts: int):
+    F, M0, top, band = concentration_rows(study, cand, nodes.theta, crit)
+    hi = study.model.linear_range[1]
+    risk = chk.prior_range_risk(top, band, nodes.weights, -np.inf, hi)
+    ok = (risk <= chk.RANGE_RISK + 1e-12) & np.all(np.isfinite(F), axis=(0, 2, 3))
+    if not ok.any():
+        raise DesignError(
+            f"no candidate tube keeps its highest reading in the window below optics.linear_range's top "
+            f"{hi:g} over the guess's range: use more dilute stocks or a shorter path"
+        )
+    idx = np.flatnonzero(ok)
+    params = spectral_parameters(study)
+    kw = dict(
+        criterion=crit,
+        target=params.target if crit == "target" else None,
+        M0=M0,
+        node_weights=nodes.weights,
+    )
+    Fk = F[:, idx]
+    try:
+        ap = approximate.approximate_design(Fk, n_tubes=n, **kw)
+        ex = exchange.exact_design(Fk, n, rng=np.random.default_rng(seed), starts=starts, approx=ap, **kw)
+    except DesignError as exc:
+        raise DesignError(
+            f"only {idx.size} of {cand.n_grid} candidate tubes stay below the linear range's top over the "
+            f"guess's range, and they cannot determine the constants with every fitted spectrum ({exc}): "
+            f"use more dilute stocks, or more tubes"
+        ) from None
+    rec = recipe_from_counts(study, cand, idx, ex.counts)
+    return ex, ap, rec, idx
+
+
+def _se(study: Study, recipe: Recipe, log_beta: np.ndarray | None = None) -> float:
+    """Exact whole-spectrum Cramér–Rao SE of the target for ``recipe`` (at other true constants)."""
+    sm = spectra_model(study, recipe)
+    lb = study.model.log_beta if log_beta is None else log_beta
+    ex = expected(study, recipe, sm, lb)
+    cr = spectra_cramer_rao(sm, ex.weights, pack(study.model, sm.params, log_beta=lb))
+    t = sm.params.target
+    return float(cr.se[t]) if t >= 0 else float("nan")
