@@ -46,14 +46,17 @@ def assess(
     from ..inputs.plan import load_plan
     from ..jobs.compile import compile_study
     from ..jobs.plan.assess import assess_study
-    from ..jobs.spectra.assess import assess_spectra
     from .show import print_assessment, print_spectra
 
     p = load_plan(plan)
     study = compile_study(p)
     r = read_points(recipe, p, study)
     at_values = parse_at(at or [], list(study.model.species))
-    job = assess_spectra if study.spectra is not None else assess_study
+    job = assess_study
+    if study.spectra is not None:  # imported only here: the factor analysis needs scipy.stats
+        from ..jobs.spectra.assess import assess_spectra
+
+        job = assess_spectra
     extra = {} if study.spectra is not None else {"suggest": True}  # what would help: one wavelength
     a = _with_progress(
         lambda prog: job(study, r, trials=trials, seed=seed, at=at_values, progress=prog, **extra),

@@ -89,7 +89,9 @@ def test_each_card_fits_on_its_own_at_the_guess(study, cset):
         t = list(f.names).index("log_beta[ML]")
         assert f.determined and f.converged, (c.student, f.reason)
         assert f.se[t] <= OWN_SE_MAX, (c.student, f.se[t])
-        assert f.se[t] == pytest.approx(c.assessment.target_se, rel=0.25)  # derived: Cramér–Rao at the fit
+        assert f.se_error_model[t] == pytest.approx(
+            c.assessment.target_se, rel=0.25
+        )  # derived: Cramér–Rao at the fit
     est = np.array([f.estimate[list(f.names).index("log_beta[ML]")] for f in fits])
     se = np.array([f.se[list(f.names).index("log_beta[ML]")] for f in fits])
     z = (est - 3.3) / se
