@@ -222,10 +222,10 @@ def expected_state(model: Model, recipe: Recipe, *, batch: int | None = None, **
 
 
 def true_constants(model: Model, at: Mapping[str, float] | None) -> np.ndarray:
-    """log β with the ``--at NAME=LOGBETA`` overrides applied."""
+    """log β with the overrides ``at`` (species name → log β) applied."""
     lb = model.log_beta.copy()
     for name, value in (at or {}).items():
         if name not in model.species:
-            raise PlanError(f"--at {name}", unknown_name("species", name, list(model.species)))
+            raise PlanError(f"at[{name}]", unknown_name("species", name, list(model.species)))
         lb[model.index(name)] = float(value)
     return lb
