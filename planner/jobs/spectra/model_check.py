@@ -24,8 +24,11 @@ parts; :func:`planner.inference.guard.guarded_design` exchanges candidates of k 
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
+from ...inference.discrimination import POWER_GOAL
 from ...inference.study import Study
 from ...inputs.recipe import Recipe, totals_M
 from ...model.compiled import predict, tube_ions_M
@@ -36,7 +39,9 @@ from .precision import target_se_spectra
 from .reading import expected, spectra_model, spectral_parameters
 from .rows import ConcentrationRows, concentration_parts
 
-OUTSIDE_SMALL = 0.05  # an added spectrum with < 5 % of its weighted square outside the model's is hidden
+# an added spectrum with less than 1 % of its weighted square outside the model's spectra is, for advice,
+# a combination of theirs [our choice]
+OUTSIDE_SMALL = 0.01
 
 
 def guard_rows(
@@ -116,11 +121,11 @@ def spectra_guard(
         if outside[k] >= OUTSIDE_SMALL:
             return []
         return [
-            f"a window where {name} absorbs unlike any combination of the model's spectra (here "
-            f"{outside[k]:.0%} of its spectrum lies outside them, so no factor analysis can see it)"
+            f"a window where {name}'s spectrum is no combination of the model's spectra (here "
+            f"{outside[k]:.1%} of it lies outside them)"
         ]
 
-    return decide(
+    outcome = decide(
         study,
         (F, R, M0),
         sm.params.target,
@@ -135,3 +140,9 @@ def spectra_guard(
         ),
         power_of=lambda lam: chi2_power(lam, dof),
     )
+    revealed = [t for t in outcome.exact_target_only if t.power_noise_free >= POWER_GOAL]
+    if not outcome.replaced and len(revealed) == len(study.alternatives):
+        # nothing to guard: say so, rather than compare a guarded design that adds nothing
+        said = ", ".join(f"{t.alternative} ({t.power_noise_free:.0%})" for t in revealed)
+        outcome = replace(outcome, reason=f"the target-only design stands: it already reveals {said}")
+    return outcome
