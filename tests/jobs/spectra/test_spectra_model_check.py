@@ -66,23 +66,27 @@ def test_default_alternatives_borrow_the_targets_spectrum(tmp_path):
         np.testing.assert_allclose(eps, ml, rtol=1e-12)
 
 
-def _direct_least_chi2(study, rec, sm, ex, Y):
-    """The main model (log β[ML] and ML's spectrum at every wavelength as explicit parameters) fitted
-    to the noise-free spectra Y (n, W) by generalised least squares with the dense covariance of every
-    reading: photometric variance plus the totals' covariance carried to every wavelength."""
+def _dense_covariance(study, rec, sm, ex) -> np.ndarray:
+    """(n W, n W) covariance of every reading (tube by tube, wavelength within): the photometric variance
+    plus the totals' covariance (planner.uncertainty.spectra_budget) carried to every wavelength by
+    ∂A/∂totals at the guess — the dense matrix varpro never forms."""
     model, spectra = study.model, study.spectra
-    n, W = Y.shape
+    n, W = rec.n_tubes, spectra.size
     st = predict(model, sm.totals_M, sm.ions_M, warn=False)
     dct = concentration_derivatives(model, st).dc_dtotals  # (n, A, 2)
     g = model.path_cm * np.einsum("nac,wa->nwc", dct, spectra.epsilon_M_cm)  # (n, W, 2)
     G = np.zeros((n * W, 2 * n))
     for i in range(n):
         G[i * W : (i + 1) * W, 2 * i : 2 * i + 2] = g[i]
-    cov = (
-        np.diag((ex.readings.linear_sd**2).ravel())
-        + G @ totals_errors(study.bench, model, rec).covariance() @ G.T
-    )
-    L = np.linalg.cholesky(cov)
+    photometric = np.diag((ex.readings.linear_sd**2).ravel())
+    return photometric + G @ totals_errors(study.bench, model, rec).covariance() @ G.T
+
+
+def _direct_least_chi2(study, rec, sm, ex, Y):
+    """The main model (log β[ML] and ML's spectrum at every wavelength as explicit parameters) fitted
+    to the noise-free spectra Y (n, W) by generalised least squares with the dense covariance."""
+    model, spectra = study.model, study.spectra
+    L = np.linalg.cholesky(_dense_covariance(study, rec, sm, ex))
     j_ml, j_m = model.absorbers.index("ML"), model.absorbers.index("M")
 
     def resid(x):
@@ -188,7 +192,7 @@ def test_concentration_space_noncentrality_is_exact_for_equal_noise():
     st = _BlockState(F, R, np.zeros((P, P)) if M0 is None else M0, np.ones(rec.n_tubes, dtype=int))
     _, lam_rows = st.var_lam(0)
     # the same from every reading: Jacobian in (log β, ML's spectrum), dense covariance
-    model, spectra = study.model, study.spectra
+    spectra = study.spectra
     n, W = rec.n_tubes, spectra.size
     Y = alternative_readings(study, sm)[0]
     main = sm.linear_readings(sm.params.guess[None])[0]
@@ -198,17 +202,7 @@ def test_concentration_space_noncentrality_is_exact_for_equal_noise():
     J[:, 0] = dA.ravel()
     for i in range(n):
         J[i * W : (i + 1) * W, 1:] = C[0, i, 0] * np.eye(W)
-    st0 = predict(model, sm.totals_M, sm.ions_M, warn=False)
-    dct = concentration_derivatives(model, st0).dc_dtotals
-    g = model.path_cm * np.einsum("nac,wa->nwc", dct, spectra.epsilon_M_cm)
-    G = np.zeros((n * W, 2 * n))
-    for i in range(n):
-        G[i * W : (i + 1) * W, 2 * i : 2 * i + 2] = g[i]
-    cov = (
-        np.diag((ex.readings.linear_sd**2).ravel())
-        + G @ totals_errors(study.bench, model, rec).covariance() @ G.T
-    )
-    cf = cho_factor(cov)
+    cf = cho_factor(_dense_covariance(study, rec, sm, ex))
     r = (Y - main).ravel()
     Sr, SJ = cho_solve(cf, r), cho_solve(cf, J)
     b = J.T @ Sr
