@@ -19,7 +19,8 @@ That rest can be absorbed only by changing the fitted spectra along ε⊥, which
 by c_free,i · Δ: one more block of parameters per alternative with rows ρ c_free,i and misfit ρ c_new,i
 (exact when every tube's noise has the same shape over the window, as the design's rows). The two parts
 are orthogonal, so each candidate gives k = (absorbers) + (alternatives) rows and λ is the sum of the
-parts; :func:`planner.inference.guard.guarded_design` exchanges candidates of k rows.
+parts; :func:`planner.inference.guard.guarded_design` exchanges candidates of k rows. A fitted baseline
+(``design.blank_offset``) is left out of these rows; the exact noncentrality that decides includes it.
 """
 
 from __future__ import annotations
