@@ -316,8 +316,13 @@ def spectra_model_check(det: tuple[SpectraDetection, ...], fix: str) -> Check:
 
     def detail(d: SpectraDetection) -> str:
         chi2 = d.power if np.isfinite(d.power) else d.power_noise_free
-        fa = f", an extra factor {d.power_factors:.0%}" if np.isfinite(d.power_factors) else ""
-        return f"{d.alternative}: χ² test {chi2:.0%}{fa}"
+        out = f"χ² test {chi2:.0%}"
+        if np.isfinite(d.power_factors):
+            out += f", an extra factor {d.power_factors:.0%}"
+        if np.isfinite(d.best_single_wavelength_nm):
+            nm, p1 = d.best_single_wavelength_nm, d.power_noise_free_single
+            out += f"; the best single wavelength ({nm:g} nm) {p1:.0%}"
+        return out
 
     weak = [d for d in det if not d.revealed >= POWER_GOAL]
     if not weak:
@@ -325,13 +330,13 @@ def spectra_model_check(det: tuple[SpectraDetection, ...], fix: str) -> Check:
             "model-check",
             "pass",
             "the whole-spectrum fit would reveal "
-            + ", ".join(f"{d.alternative} ({d.revealed:.0%} of experiments; {detail(d)})" for d in det),
+            + ", ".join(f"{d.alternative} in {d.revealed:.0%} of experiments ({detail(d)})" for d in det),
         )
     return Check(
         "model-check",
         "warn",
         "if the system also formed a complex the plan leaves out, the whole-spectrum fit would reveal it in "
         "only "
-        + "; ".join(f"{d.revealed:.0%} of experiments ({detail(d)})" for d in weak)
+        + "; ".join(f"{d.revealed:.0%} of experiments ({d.alternative}: {detail(d)})" for d in weak)
         + f" (goal {POWER_GOAL:.0%}): {fix}",
     )
