@@ -194,6 +194,10 @@ def _print_spectra_keys(p) -> None:
             continue
         src = "table" if table is not None and name in table.names else "band"
         parts.append(f"{S(name)} ({src}, {'fitted' if sp.free[k] else 'known'})")
+    for name, _ in study.alternatives:  # the model check's alternatives: their own spectrum or the target's
+        own = "table" if table is not None and name in table.names else "band" if name in o.bands else None
+        label = own or "the target's, scaled"
+        parts.append(f"{S(name)} (alternative: {label})")
     out.print(
         f"Whole spectra: {w[0]:g}–{w[-1]:g} nm every {o.step_nm:g} nm ({w.size} wavelengths)"
         + (f", bandwidth {o.bandwidth_nm:g} nm" if o.bandwidth_nm else "")
