@@ -350,6 +350,9 @@ def _reason(study, replaced, guarded, pays, within, exact_g, exact_t, cost, cap,
             f"the target-only design stands: the best guarded design would cost ×{cost:.3g} in "
             f"SE(log β[{t}]), more than the ×{cap:.3g} the plan allows (design.check_weight)"
         )
+    if all(t_.power_noise_free >= POWER_GOAL for t_ in exact_t):
+        said = ", ".join(f"{t_.alternative} ({t_.power_noise_free:.0%})" for t_ in exact_t)
+        return f"the target-only design stands: it already reveals {said}"
     return (
         f"the target-only design stands: within ×{cap:.3g} in SE(log β[{t}]) the best guarded design would "
         f"raise the power to reveal {gains} — less than {MARGIN * 100:.0f} points more and short of the "
