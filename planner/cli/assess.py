@@ -51,7 +51,7 @@ def assess(
     p = load_plan(plan)
     study = compile_study(p)
     r = read_points(recipe, p, study)
-    at_values = parse_at(at or [])
+    at_values = parse_at(at or [], list(study.model.species))
     job = assess_study
     if study.spectra is not None:  # imported only here: the factor analysis needs scipy.stats
         from ..jobs.spectra.assess import assess_spectra

@@ -318,3 +318,30 @@ def print_spectra(summary: dict, target: str, wavelength_nm: float = float("nan"
             f"{fa['absorbing_species']} absorbing species stand above the noise; found in "
             f"{fa['found_share']:.0%}"
         )
+    _print_spectra_model_check(summary.get("model_check"))
+
+
+def _print_spectra_model_check(mc) -> None:
+    """Per alternative: how the whole-spectrum fit would reveal it (χ² test, factor analysis), beside the
+    best single wavelength."""
+    rows = mc.get("alternatives", []) if isinstance(mc, dict) else (mc or [])
+    for r in rows:
+        if "power_factors" not in r:
+            continue
+        chi2 = r["power"] if r["power"] is not None else r["power_noise_free"]
+        sim = f"in {_pct(chi2)} of simulated experiments" if r["trials"] else f"with power {_pct(chi2)}"
+        line = (
+            f"Model check with whole spectra, if {S(r['alternative'])} formed too: the fit's χ² test "
+            f"rejects the plan's model {sim} (noise-free {_pct(r['power_noise_free'])}, λ = "
+            f"{fmt.sig(r['noncentrality'], 3)} on {r['dof']} degrees of freedom)"
+        )
+        if r["power_factors"] is not None:
+            line += f"; the factor analysis finds one factor more in {_pct(r['power_factors'])}"
+        if r["best_single_wavelength_nm"] is not None:
+            lam1 = fmt.sig(r["noncentrality_single_wavelength"], 3)
+            line += (
+                f"; the best single wavelength ({r['best_single_wavelength_nm']:g} nm) alone: "
+                f"{_pct(r['power_noise_free_single_wavelength'])} (λ = {lam1} on "
+                f"{r['dof_single_wavelength']} degrees of freedom)"
+            )
+        out.print(line)

@@ -415,7 +415,8 @@ def _class_notes(study: Study, grid: Grid, se: dict, n: int, notes: list[str]) -
         notes.insert(
             0,
             f"even the best recipe of {plural(n, 'tube')} gives SE {se['best_single']:.3g} > goal "
-            f"{goal:g}: no card can pass; give each student more tubes (--tubes) or relax design.goal_se",
+            f"{goal:g}: no card can pass; give each student more tubes (the tubes parameter) or relax "
+            "design.goal_se",
         )
     if grid.step_mL != study.bench.step_mL:
         notes.append(

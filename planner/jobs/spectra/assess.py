@@ -33,6 +33,8 @@ from ..plan.assess import (
     _verdict,
     with_failed_checks,
 )
+from ..plan.detection import ASSESS_FIX, POWER_TRIALS
+from .detection import spectra_detection, spectra_model_check
 from .precision import (
     information_by_wavelength,
     spectra_cramer_rao,
@@ -55,9 +57,16 @@ def assess_spectra(
     at: Mapping[str, float] | None = None,
     profile_chi2: bool = True,
     factors: bool = True,
+    model_check: bool = True,
+    detection_trials: int | None = None,
+    model_check_fix: str | None = None,
     progress: Callable[[int, int], None] | None = None,
 ) -> Assessment:
-    """Judge ``recipe`` read at every wavelength of the plan's window (see the module docstring)."""
+    """Judge ``recipe`` read at every wavelength of the plan's window (see the module docstring).
+
+    ``model_check`` adds the model check with whole spectra (:mod:`.detection`) when the plan has
+    alternatives: ``detection_trials`` simulated experiments per alternative (default min(trials, 400)),
+    ``model_check_fix`` what its check advises."""
     model = study.model
     sm = spectra_model(study, recipe)
     params = sm.params
@@ -84,9 +93,25 @@ def assess_spectra(
     if factors:
         fa = factor_check(study, recipe, sm, ex, lb_true, np.random.default_rng(seed + 2))
         checks.append(fa[0])
+    det: tuple = ()
+    extra: dict = {}
+    if model_check and cr is not None and study.alternatives and params.target >= 0:
+        n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
+        det = spectra_detection(
+            study,
+            recipe,
+            sm,
+            ex,
+            np.random.default_rng(seed + 1),
+            n_det,
+            above=expected_factors(sm, ex)[1],
+            eligible=single.eligible,
+        )
+        checks.append(spectra_model_check(det, model_check_fix or ASSESS_FIX))
+        extra["model_check"] = [d.summary() for d in det]
     verdict, reason = with_failed_checks(*_verdict(study, params, cr, mc, prof, True), checks)
     checks.sort(key=lambda c: -STATUSES.index(c.status))
-    extra = {"spectra": spectra_summary(sm, ex, cr, single, fa[1] if fa else None)}
+    extra["spectra"] = spectra_summary(sm, ex, cr, single, fa[1] if fa else None)
     return Assessment(
         study.title,
         recipe,
@@ -104,6 +129,7 @@ def assess_spectra(
         study.goal_se,
         extra,
         study=study,
+        detection=det,
     )
 
 
