@@ -42,7 +42,7 @@ def assess(
     p = load_plan(plan)
     study = compile_study(p)
     r = read_points(recipe, p, study)
-    at_values = parse_at(at or [])
+    at_values = parse_at(at or [], list(study.model.species))
     job = assess_study
     if study.spectra is not None:  # imported only here: the factor analysis needs scipy.stats
         from ..jobs.spectra.assess import assess_spectra
@@ -59,6 +59,6 @@ def assess(
         print(dump_json(a))
     else:
         print_assessment(a, p)
-        print_spectra(a.spectra, p.target, p.optics.wavelength_nm)
+        print_spectra(a.spectra, p.target, p.optics.wavelength_nm, a.detection)
     if a.verdict is not None and a.verdict != "resolved":
         raise typer.Exit(1)  # the recipe fails: unresolved or only bounded (exit codes in the README)

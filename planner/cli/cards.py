@@ -135,7 +135,7 @@ def make_class_files(
     from ..paper import cards as paper_cards
 
     bar = bar or _Bar(False, 0)
-    with _CardsPrinter(p, paper, len(roster)) as printer:
+    with _CardsPrinter(p, paper, roster) as printer:
         bar.start()
         cs = class_set(
             p,
@@ -153,11 +153,9 @@ def make_class_files(
         files["key.pdf"] = paper_cards.key_document(p, cs, stocks, paper=paper)
         files["key.csv"] = paper_cards.key_csv(p, cs).encode("utf-8")
         files["key.xlsx"] = paper_cards.key_xlsx(p, cs)
-        bar.stage("stocks.pdf")
-        files["stocks.pdf"] = paper_cards.stocks_document(p, cs, stocks, paper=paper)
         files["stocks.csv"] = paper_cards.stocks_csv(p, stocks).encode("utf-8")
-        bar.stage("cards.pdf")
-        files["cards.pdf"] = printer.result(cs)
+        bar.stage("cards.pdf and stocks.pdf")
+        files["cards.pdf"], files["stocks.pdf"] = printer.result(cs, stocks)
     return cs, stocks, files
 
 
@@ -218,36 +216,41 @@ def _warm_up() -> None:
     html_to_pdf("<p>kplan</p>")
 
 
-def _print_cards(plan, drafts, paper: str) -> bytes:
-    from ..paper.cards import cards_document
+def _print_cards(plan, drafts, paper: str, roster, stocks=None) -> tuple[bytes, bytes]:
+    """cards.pdf and stocks.pdf: both need only the cards' recipes (and the roster's benches)."""
+    from ..jobs.classroom.stock_list import class_stocks
+    from ..paper.cards import cards_document, stocks_document
 
-    return cards_document(plan, drafts, paper=paper)
+    if stocks is None:
+        stocks = class_stocks(plan, [d.recipe for d in drafts], roster)
+    return cards_document(plan, drafts, paper=paper), stocks_document(plan, drafts, stocks, paper=paper)
 
 
 class _CardsPrinter:
-    """Prints the students' cards in a second process while this one assesses them and prints the key
-    (the cards need only the recipes). Where the assessment replaced a drafted card, or the system
-    cannot fork, the cards are printed here instead; the bytes are the same either way."""
+    """Prints the students' cards and the class stock list in a second process while this one assesses
+    the cards and prints the key (they need only the recipes). Where the assessment replaced a drafted
+    card, or the system cannot fork, they are printed here instead; the bytes are the same either way."""
 
     MIN_CARDS = 8  # below this the second process is not worth starting
 
-    def __init__(self, plan, paper: str, students: int):
+    def __init__(self, plan, paper: str, roster):
         import multiprocessing
 
-        self.plan, self.paper = plan, paper
+        self.plan, self.paper, self.roster = plan, paper, roster
         self.drafts = None
         self.pool = None
         self.job = None
-        if students >= self.MIN_CARDS and "fork" in multiprocessing.get_all_start_methods():
+        if len(roster) >= self.MIN_CARDS and "fork" in multiprocessing.get_all_start_methods():
             self.pool = multiprocessing.get_context("fork").Pool(1)
             self.pool.apply_async(_warm_up)
 
     def drafted(self, drafts) -> None:
         self.drafts = drafts
         if self.pool is not None:
-            self.job = self.pool.apply_async(_print_cards, (self.plan, drafts, self.paper))
+            self.job = self.pool.apply_async(_print_cards, (self.plan, drafts, self.paper, self.roster))
 
-    def result(self, cs) -> bytes:
+    def result(self, cs, stocks) -> tuple[bytes, bytes]:
+        """(cards.pdf, stocks.pdf) of the class set ``cs`` and its stock list ``stocks``."""
         import numpy as np
 
         same = (
@@ -263,7 +266,7 @@ class _CardsPrinter:
             self._close()
             return data
         self._close()
-        return _print_cards(self.plan, cs, self.paper)
+        return _print_cards(self.plan, cs.cards, self.paper, self.roster, stocks)
 
     def _close(self) -> None:
         if self.pool is not None:
@@ -317,7 +320,7 @@ class _Bar:
             if self.closed:
                 return
             bar = Progress(console=err, transient=True)
-            self.task = bar.add_task(self.what, total=self.total + 3, completed=self.done)
+            self.task = bar.add_task(self.what, total=self.total + 2, completed=self.done)
             bar.start()
             self.bar = bar
 

@@ -83,8 +83,8 @@ def check(plan: PlanFile) -> None:
     out.print(t)
     g = p.glassware
     out.print(
-        f"Tubes: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid {g.step_mL:g} mL "
-        f"(volumes printed with {fmt.step_decimals(g.step_mL)} decimals), "
+        f"{'Cell' if p.titration else 'Tubes'}: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid "
+        f"{g.step_mL:g} mL (volumes printed with {fmt.step_decimals(g.step_mL)} decimals), "
         f"min {g.min_volume_mL:g} mL, rinse {g.rinse_mL:g} mL, dead volume {g.dead_volume_mL:g} mL"
     )
     t = Table(title="Glassware (from the catalogue and the plan)")
@@ -123,16 +123,7 @@ def check(plan: PlanFile) -> None:
             f"({res:g} mL): the sheet's volumes ask for more than the device shows; use a step of at least "
             f"{res:g} mL or state the device's graduation"
         )
-    d = p.design
-    out.print(
-        f"Design: {plural(d.tubes, 'tube')}, target {S(p.target)}, criterion {d.criterion}, "
-        f"robust {'yes' if d.robust else 'no'}, goal SE {d.goal_se:g}"
-        + (
-            f", fixed {S(', '.join(f'{k} {fmt.volume(v, g.step_mL)} mL' for k, v in d.fixed.items()))}"
-            if d.fixed
-            else ""
-        )
-    )
+    _print_design(p, by_stock)
     # a stock that is measured out needs a dispenser (the diluent under to-mark is poured to the mark;
     # a titration's cell and titrant are checked by the schedule)
     missing = [
@@ -151,6 +142,39 @@ def check(plan: PlanFile) -> None:
     out.print("[green]plan OK[/green]")
 
 
+def _print_design(p, by_stock) -> None:
+    """The design settings; a titration plan's additions in place of the tubes of a series."""
+    from ..paper import fmt
+
+    d = p.design
+    settings = (
+        f"target {S(p.target)}, criterion {d.criterion}, robust {'yes' if d.robust else 'no'}, "
+        f"goal SE {d.goal_se:g}"
+    )
+    if p.titration is not None:
+        out.print(_titration_line(p, by_stock))
+        out.print(f"Design: {settings}")
+        return
+    fixed = ", ".join(f"{k} {fmt.volume(v, p.glassware.step_mL)} mL" for k, v in d.fixed.items())
+    out.print(f"Design: {plural(d.tubes, 'tube')}, {settings}" + (f", fixed {S(fixed)}" if fixed else ""))
+
+
+def _titration_line(p, by_stock) -> str:
+    """What a titration plan adds, in place of the tubes of a series: the cell's start, the additions of
+    the titrant and their grid, and what is done between readings."""
+    from ..paper import fmt
+
+    t = p.titration
+    step = t.step_mL or p.glassware.step_mL
+    dev = by_stock.get(t.titrant)
+    device = f" from the {S(dev.label)}" if dev is not None else ""
+    return (
+        f"Titration: {fmt.volume(t.start_volume_mL, step)} mL of {S(t.cell)} in the cell, then "
+        f"{plural(t.additions, 'addition')} of {S(t.titrant)}{device} on a {step:g} mL grid, up to "
+        f"{fmt.volume(t.max_volume_mL, step)} mL in the cell; between readings: {S(t.equilibrate)}"
+    )
+
+
 def _print_spectra_keys(p) -> None:
     """What the plan says about whole spectra: the window and where each absorber's spectrum comes from."""
     from ..jobs.compile import compile_study
@@ -166,6 +190,10 @@ def _print_spectra_keys(p) -> None:
             continue
         src = "table" if table is not None and name in table.names else "band"
         parts.append(f"{S(name)} ({src}, {'fitted' if sp.free[k] else 'known'})")
+    for name, _ in study.alternatives:  # the model check's alternatives: their own spectrum or the target's
+        own = "table" if table is not None and name in table.names else "band" if name in o.bands else None
+        label = own or "the target's, scaled"
+        parts.append(f"{S(name)} (alternative: {label})")
     out.print(
         f"Whole spectra: {w[0]:g}–{w[-1]:g} nm every {o.step_nm:g} nm ({w.size} wavelengths)"
         + (f", bandwidth {o.bandwidth_nm:g} nm" if o.bandwidth_nm else "")

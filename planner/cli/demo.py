@@ -94,7 +94,7 @@ def _demo_spectra(out_dir: Path) -> list[Path]:
     from ..paper.render import report as render_report
     from .app import scenario_files
     from .fit import print_spectra_fit
-    from .show import print_assessment, print_design, print_spectra
+    from .show import model_check_alternatives, print_assessment, print_design, print_spectra
 
     written = []
     text = scenario_text("spectra")
@@ -106,13 +106,13 @@ def _demo_spectra(out_dir: Path) -> list[Path]:
     out.rule("4. whole spectra: two complexes with overlapping bands, every wavelength 400–700 nm")
     d = design_spectra(study, seed=0)
     print_design(d, p)
-    print_spectra(d.assessment.spectra, p.target, p.optics.wavelength_nm)
+    print_spectra(d.assessment.spectra, p.target, p.optics.wavelength_nm, model_check_alternatives(d))
     written.append(write_atomic(out_dir / "spectra-recipe.csv", recipe_to_csv(d.recipe, p)))
     written.append(write_atomic(out_dir / "spectra-design.json", dump_json(d) + "\n"))
     out.rule("5. the whole-spectrum design, assessed with Monte Carlo")
     a = assess_spectra(study, d.recipe, trials=SPECTRA_TRIALS, seed=0)
     print_assessment(a, p)
-    print_spectra(a.spectra, p.target, p.optics.wavelength_nm)
+    print_spectra(a.spectra, p.target, p.optics.wavelength_nm, a.detection)
     written.append(write_atomic(out_dir / "spectra-assessment.json", dump_json(a) + "\n"))
     rep = render_report(p, d.recipe, a, design=d)
     written.append(write_atomic_bytes(out_dir / "spectra-report.pdf", rep))

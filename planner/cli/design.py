@@ -63,7 +63,7 @@ def design(
     from ..inputs.plan import load_plan
     from ..inputs.recipe import recipe_to_csv
     from ..jobs.plan.design import design as run_design
-    from .show import print_design, print_spectra
+    from .show import model_check_alternatives, print_design, print_spectra
 
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
@@ -106,7 +106,7 @@ def design(
         print(text)
     else:
         print_design(d, p)
-        print_spectra(d.assessment.spectra, p.target, p.optics.wavelength_nm)
+        print_spectra(d.assessment.spectra, p.target, p.optics.wavelength_nm, model_check_alternatives(d))
         if out_dir is not None:
             out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
     if d.verdict is not None and d.verdict != "resolved":

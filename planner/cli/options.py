@@ -36,8 +36,10 @@ def count_option(help: str, limit: int, *, hidden: bool = False):
 LOG_BETA_RANGE = (-50.0, 60.0)  # the plan's bound on log_beta
 
 
-def parse_at(items: list[str]) -> dict[str, float]:
-    """'ML=4.3' pairs from repeated --at options."""
+def parse_at(items: list[str], species: list[str] | None = None) -> dict[str, float]:
+    """'ML=4.3' pairs from repeated --at options (names checked against ``species`` when given)."""
+    from ..inputs.names import unknown_name
+
     out = {}
     for item in items:
         name, sep, value = item.partition("=")
@@ -50,6 +52,8 @@ def parse_at(items: list[str]) -> dict[str, float]:
         lo, hi = LOG_BETA_RANGE
         if not (math.isfinite(x) and lo <= x <= hi):
             raise UserError(f"--at {item}: log β must be a finite number between {lo:g} and {hi:g}")
+        if species is not None and name.strip() not in species:
+            raise UserError(f"--at {item}: {unknown_name('species', name.strip(), species)}")
         out[name.strip()] = x
     return out
 

@@ -14,13 +14,13 @@ from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 from .options import JsonFlag, PlanFile, count_option
 
-# the series' parameters, as the options that set them
+# the parameters of planner.jobs.classic.run_series, as the options of this command that set them
 OPTION_OF = {
     "points": "--points",
-    "total": "--total",
-    "excess": "--excess",
+    "total_M": "--total",
+    "excess_M": "--excess",
     "limiting": "--limiting",
-    "replicates": "--replicates",
+    "tubes": "--replicates",
     "vary": "--vary",
     "max_ratio": "--max-ratio",
 }
@@ -177,8 +177,17 @@ def _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_r
         )
     except PlanError as exc:  # the series' parameters are this command's options
         if exc.key in OPTION_OF:
-            raise UserError(f"{OPTION_OF[exc.key]}: {exc.message}") from None
+            raise UserError(f"{OPTION_OF[exc.key]}: {as_options(exc.message)}") from None
         raise
+
+
+def as_options(message: str) -> str:
+    """A job's message with the parameter names that read as code (``total_M``, ``max_ratio``) written
+    as the options that set them; plain words (points, limiting) stay words."""
+    import re
+
+    names = [k for k in OPTION_OF if "_" in k]
+    return re.sub(r"\b(" + "|".join(names) + r")\b", lambda m: OPTION_OF[m.group(1)], message)
 
 
 def _write(out_dir: Path, r, p, text: str) -> None:

@@ -280,10 +280,11 @@ def _finite(x) -> float | None:
     return x if math.isfinite(x) else None
 
 
-def print_spectra(sp, target: str, wavelength_nm: float = float("nan")) -> None:
+def print_spectra(sp, target: str, wavelength_nm: float = float("nan"), detection=None) -> None:
     """The whole-spectrum part of an assessment or design (its ``spectra`` facts, or None: nothing to
-    print): against the best single wavelength, where the information lies, and what a factor analysis
-    would see."""
+    print): against the best single wavelength, where the information lies, what a factor analysis
+    would see and, with ``detection`` (the model check's results per alternative), how the whole-spectrum
+    fit would reveal each alternative."""
     if sp is None:
         return
     w = sp.wavelength_nm
@@ -331,3 +332,36 @@ def print_spectra(sp, target: str, wavelength_nm: float = float("nan")) -> None:
             f"{fa.absorbing_species} absorbing species stand above the noise; found in "
             f"{fa.found_share:.0%}"
         )
+    _print_spectra_model_check(detection or ())
+
+
+def model_check_alternatives(d) -> tuple:
+    """The design's model check per alternative (the chosen design's detection), or () without one."""
+    return tuple(g for g, _ in d.model_check.detection) if d.model_check is not None else ()
+
+
+def _print_spectra_model_check(detection) -> None:
+    """Per alternative: how the whole-spectrum fit would reveal it (χ² test, factor analysis), beside the
+    best single wavelength."""
+    from ..paper.json_out import to_json
+
+    for r in (to_json(d) for d in detection):
+        if "power_factors" not in r:
+            continue
+        chi2 = r["power"] if r["power"] is not None else r["power_noise_free"]
+        sim = f"in {_pct(chi2)} of simulated experiments" if r["trials"] else f"with power {_pct(chi2)}"
+        line = (
+            f"Model check with whole spectra, if {S(r['alternative'])} formed too: the fit's χ² test "
+            f"rejects the plan's model {sim} (noise-free {_pct(r['power_noise_free'])}, λ = "
+            f"{fmt.sig(r['noncentrality'], 3)} on {r['dof']} degrees of freedom)"
+        )
+        if r["power_factors"] is not None:
+            line += f"; the factor analysis finds one factor more in {_pct(r['power_factors'])}"
+        if r["best_single_wavelength_nm"] is not None:
+            lam1 = fmt.sig(r["noncentrality_single_wavelength"], 3)
+            line += (
+                f"; the best single wavelength ({r['best_single_wavelength_nm']:g} nm) alone: "
+                f"{_pct(r['power_noise_free_single_wavelength'])} (λ = {lam1} on "
+                f"{r['dof_single_wavelength']} degrees of freedom)"
+            )
+        out.print(line)

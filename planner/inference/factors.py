@@ -65,9 +65,7 @@ def factor_analysis(D: np.ndarray, *, level: float = LEVEL) -> FactorAnalysis:
     sv = np.linalg.svd(D, compute_uv=False)
     lam = sv**2
     k = np.arange(1, c)
-    tail = np.cumsum(lam[::-1])[::-1]  # tail[j] = Σ_{i ≥ j} λ_i (0-based)
-    re = np.sqrt(tail[k] / (r * (c - k)))
-    ind = re / (c - k) ** 2
+    tail, re, ind = _indicator(lam, r, c)
     j = np.arange(1, c + 1)
     weight = (r - j + 1.0) * (c - j + 1.0)
     rev = lam / weight
@@ -83,3 +81,25 @@ def factor_analysis(D: np.ndarray, *, level: float = LEVEL) -> FactorAnalysis:
             n_f = kk
             break
     return FactorAnalysis(sv, re, ind, rev, p, int(k[np.argmin(ind)]), n_f)
+
+
+def _indicator(lam: np.ndarray, r: int, c: int):
+    """Tail sums Σ_{i ≥ j} λ_i, RE(k) and IND(k) for eigenvalues ``lam`` (..., c), largest first."""
+    k = np.arange(1, c)
+    tail = np.cumsum(lam[..., ::-1], axis=-1)[..., ::-1]  # tail[j] = Σ_{i ≥ j} λ_i (0-based)
+    re = np.sqrt(tail[..., k] / (r * (c - k)))
+    return tail, re, re / (c - k) ** 2
+
+
+def indicator_factors(D: np.ndarray) -> np.ndarray:
+    """The number of factors by Malinowski's indicator function for each of a stack of data matrices
+    ``D`` (..., r, c), at least 3 × 3 (as :attr:`FactorAnalysis.n_indicator`, without the rest)."""
+    D = np.asarray(D, dtype=float)
+    if D.shape[-2] < D.shape[-1]:
+        D = np.swapaxes(D, -1, -2)
+    r, c = D.shape[-2:]
+    if c < 3:
+        raise ValueError(f"factor analysis needs at least 3 rows and 3 columns, got {D.shape[-2:]}")
+    lam = np.linalg.svd(D, compute_uv=False) ** 2
+    _, _, ind = _indicator(lam, r, c)
+    return np.argmin(ind, axis=-1) + 1

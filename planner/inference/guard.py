@@ -17,6 +17,11 @@ most while the constraint holds, until no move does. Every move from a support p
 candidates at once by rank-one updates (Sherman–Morrison) of M⁻¹, so a step costs O(C·P²) per support
 point, never a P × P solve per candidate.
 
+A candidate may also give several whitened rows at once (a tube read as a whole spectrum: its absorbers'
+concentrations in concentration space, see :mod:`planner.jobs.spectra.design`): F (C, k, P) and R (A, C,
+k). Then a move changes M by a rank-k term, and the same scores come from the Woodbury identity with one
+k × k solve per candidate (Woodbury 1950; Hager 1989, SIAM Rev. 31:221).
+
 Scale: the ridge that keeps designs with fewer distinct tubes than parameters finite is relative to
 each column's own information (its mean square over the candidates), so rescaling a parameter (ε in
 L mol⁻¹ cm⁻¹ against a ten times longer path) changes nothing [derived: M → S M S for a diagonal
@@ -62,8 +67,10 @@ class GuardedDesign:
 
 
 def column_ridge(F: np.ndarray, ridge: float = RIDGE) -> np.ndarray:
-    """(P, P) diagonal ridge, ``ridge`` × each column's mean square over the candidates (scale-free)."""
-    ms = np.einsum("cp,cp->p", F, F) / max(F.shape[0], 1)
+    """(P, P) diagonal ridge, ``ridge`` × each column's mean square over the candidates (scale-free);
+    F (C, P), or (C, k, P) with k rows per candidate."""
+    sq = np.einsum("cp,cp->p", F, F) if F.ndim == 2 else np.einsum("ckp,ckp->p", F, F)
+    ms = sq / max(F.shape[0], 1)
     return np.diag(ridge * np.where(ms > 0, ms, 1.0))
 
 
@@ -84,6 +91,49 @@ class _State:
     def var_lam(self, t: int):
         lam = self.s - np.einsum("ap,pq,aq->a", self.b, self.Minv, self.b)
         return float(self.Minv[t, t]), np.maximum(lam, 0.0)
+
+
+class _BlockState(_State):
+    """The same for candidates of k rows each: F (C, k, P), R (A, C, k)."""
+
+    def __init__(self, F, R, base, x):
+        xf = x.astype(float)
+        self.M = base + np.einsum("c,ckp,ckq->pq", xf, F, F)
+        self.Minv = np.linalg.inv(self.M)
+        self.b = np.einsum("c,ckp,ack->ap", xf, F, R)
+        self.s = np.einsum("c,ack,ack->a", xf, R, R)
+
+
+def _block_moves_from(st: _BlockState, F, R, i: int, t: int):
+    """:func:`_moves_from` for candidates of k rows: Woodbury for the removal of candidate i's rows and
+    for the addition of each candidate's, gᵀ(M_i + F_cᵀF_c)⁻¹g = gᵀM_i⁻¹g − (F_c M_i⁻¹ g)ᵀ S_c⁻¹ (F_c M_i⁻¹ g)
+    with S_c = I + F_c M_i⁻¹ F_cᵀ [derived]."""
+    k = F.shape[1]
+    fi, ri = F[i], R[:, i, :]  # (k, P), (A, k)
+    u = fi @ st.Minv  # (k, P)
+    Mi = st.Minv + u.T @ np.linalg.solve(np.eye(k) - u @ fi.T, u)  # (M − F_iᵀF_i)⁻¹
+    bi = st.b - ri @ fi  # (A, P)
+    si = st.s - np.einsum("ak,ak->a", ri, ri)
+    U = F @ Mi  # (C, k, P): F_c M_i⁻¹
+    Q = np.einsum("ckp,clp->ckl", U, F)  # F_c M_i⁻¹ F_cᵀ
+    S = Q + np.eye(k)
+    ut = U[:, :, t]  # (C, k)
+    var = Mi[t, t] - np.einsum("ck,ck->c", ut, np.linalg.solve(S, ut[..., None])[..., 0])
+    h = bi @ Mi  # (A, P)
+    rc = np.swapaxes(R, 0, 1)  # (C, A, k)
+    Fh = np.einsum("ckp,ap->cak", F, h)
+    Qr = np.einsum("ckl,cal->cak", Q, rc)
+    v = Fh + Qr
+    w = np.linalg.solve(S[:, None], v[..., None])[..., 0]  # (C, A, k)
+    base = np.einsum("ap,ap->a", h, bi)
+    quad = (
+        base[None, :]
+        + 2.0 * np.einsum("cak,cak->ca", rc, Fh)
+        + np.einsum("cak,cak->ca", rc, Qr)
+        - np.einsum("cak,cak->ca", v, w)
+    )
+    lam = si[None, :] + np.einsum("cak,cak->ca", rc, rc) - quad
+    return var, np.maximum(lam, 0.0)
 
 
 def _moves_from(st: _State, F, R, i: int, t: int):
@@ -122,8 +172,8 @@ def guarded_design(
 
     Parameters
     ----------
-    F : (C, P') whitened Jacobian rows (one reading per candidate).
-    R : (A, C) whitened misfit of each alternative at each candidate.
+    F : (C, P') whitened Jacobian rows (one reading per candidate), or (C, k, P') with k rows each.
+    R : (A, C) whitened misfit of each alternative at each candidate, or (A, C, k).
     M0 : (P', P') prior information, or None.
     target : index of the target parameter among the P' columns.
     counts0 : (C,) starting tube counts (e.g. the target-optimal exact design).
@@ -136,10 +186,11 @@ def guarded_design(
     """
     F = np.asarray(F, dtype=float)
     R = np.atleast_2d(np.asarray(R, dtype=float))
-    P = F.shape[1]
+    P = F.shape[-1]
     x = np.asarray(counts0, dtype=int).copy()
     base = (np.zeros((P, P)) if M0 is None else np.asarray(M0, dtype=float)) + column_ridge(F, ridge)
-    st = _State(F, R, base, x)
+    state, moves_from = (_BlockState, _block_moves_from) if F.ndim == 3 else (_State, _moves_from)
+    st = state(F, R, base, x)
     var0, lam = st.var_lam(target)
     if cost_cap < 1.0:
         return GuardedDesign(x, var0, var0, lam, float(_d_value(lam, lam_cap)), 0)
@@ -149,23 +200,23 @@ def guarded_design(
         for _ in range(MAX_MOVES):
             var, lam = st.var_lam(target)
             value = float(_d_value(lam, lam_cap))
-            move = _best_move(st, F, R, x, target, limit, lam_cap, value, var, phase)
+            move = _best_move(st, F, R, x, target, limit, lam_cap, value, var, phase, moves_from)
             if move is None:
                 break
             x[move[0]] -= 1
             x[move[1]] += 1
             moves += 1
-            st = _State(F, R, base, x)
+            st = state(F, R, base, x)
     var, lam = st.var_lam(target)
     return GuardedDesign(x, var, var0, lam, float(_d_value(lam, lam_cap)), moves)
 
 
-def _best_move(st, F, R, x, target, limit, lam_cap, value, var_now, phase):
+def _best_move(st, F, R, x, target, limit, lam_cap, value, var_now, phase, moves_from=_moves_from):
     """(from, to) of the best single-tube move, or None: in the "discriminate" phase the largest rise of D
     within the variance limit; in the "polish" phase the largest fall of the variance that keeps D."""
     best, found = (value + IMPROVE if phase == "discriminate" else var_now * (1.0 - 1e-9)), None
     for i in np.flatnonzero(x).tolist():  # the design's distinct tubes (a handful)
-        var, lam_c = _moves_from(st, F, R, i, target)
+        var, lam_c = moves_from(st, F, R, i, target)
         d = _d_value(lam_c, lam_cap)
         if phase == "discriminate":
             score = np.where(var <= limit, d, -np.inf)

@@ -45,6 +45,8 @@ class Study:
         ×(1 + check_weight) the target-only design's (0: no guard).
     spectra : the species' spectra and the instrument over the window when the plan records whole
         spectra (:class:`planner.model.spectra.Spectra`), else None (one wavelength).
+    alternative_spectra : with spectra, the (W,) spectrum of the species each alternative adds (in the
+        order of ``alternatives``), for the model check with whole spectra; else empty.
     """
 
     title: str
@@ -62,6 +64,7 @@ class Study:
     alternatives: tuple[tuple[str, Model], ...] = ()
     check_weight: float = 0.0
     spectra: Spectra | None = None
+    alternative_spectra: tuple[np.ndarray, ...] = ()
 
     def __post_init__(self) -> None:
         # "frozen" holds for the arrays too: a job that changed the model in place would silently change

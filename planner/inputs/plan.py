@@ -418,10 +418,12 @@ class Plan(StrictModel):
                     "uses H but the plan has no [components.H]: add H = { pH = ... } under [components]",
                 )
         absorbers = set(names) | {"M", "L"}
+        alternatives = {a.name for a in self.design.alternative}  # a band for the model check's spectra
         for table, keys in (("epsilon", self.optics.epsilon), ("bands", self.optics.bands)):
+            known = absorbers | alternatives if table == "bands" else absorbers
             for key in keys:
-                if key not in absorbers:
-                    raise PlanError(f"optics.{table}.{key}", unknown_name("species", key, sorted(absorbers)))
+                if key not in known:
+                    raise PlanError(f"optics.{table}.{key}", unknown_name("species", key, sorted(known)))
 
     def _cross_stocks(self, ids: list[str]) -> None:
         """Stock ids unique; one diluent at most (one needed under to-mark), one background stock at

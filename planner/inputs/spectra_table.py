@@ -127,13 +127,14 @@ def attach_spectra_table(plan, base_dir: Path):
         return plan
     path = Path(o.spectra)
     table = read_spectra_table(path if path.is_absolute() else base_dir / path)
-    absorbers = {"M", "L", *(s.name for s in plan.species)}
+    # an alternative of the model check ([[design.alternative]]) may have its spectrum in the table too
+    absorbers = {"M", "L", *(s.name for s in plan.species), *(a.name for a in plan.design.alternative)}
     for name in table.names:
         if name not in absorbers:
             raise PlanError(
                 KEY,
-                f"{table.source}: column '{visible(name)}' is not a species, M or L "
-                f"(known: {', '.join(sorted(absorbers))})",
+                f"{table.source}: column '{visible(name)}' is not a species, M, L or a "
+                f"[[design.alternative]] (known: {', '.join(sorted(absorbers))})",
             )
         if name in o.bands:
             raise PlanError(

@@ -21,7 +21,13 @@ from ..model.compiled import Model, TubeState, predict, tube_ions_M
 from ..model.variants import default_alternatives, with_species
 from ..uncertainty import budget as _budget
 from ..uncertainty.bench import Bench, Devices, TitrationSetup
-from .compile_spectra import build_spectra, instrument_at_working_wavelength, table_epsilon_at
+from .compile_spectra import (
+    alternative_spectra,
+    build_spectra,
+    instrument_at_working_wavelength,
+    own_spectrum,
+    table_epsilon_at,
+)
 from .devices import dispenser_item, plan_devices
 
 __all__ = [
@@ -151,6 +157,8 @@ def compile_study(plan: Plan) -> Study:
     """Compile ``plan`` into a :class:`Study` (model, bench, free parameters, design settings)."""
     model = build_model(plan)
     d = plan.design
+    alternatives = compile_alternatives(plan, model)
+    spectra = build_spectra(plan, model)
     return Study(
         title=plan.title,
         model=model,
@@ -164,9 +172,10 @@ def compile_study(plan: Plan) -> Study:
         robust=d.robust,
         ionic_strength_M=d.ionic_strength_M,
         ionic_strength_tolerance=d.ionic_strength_tolerance,
-        alternatives=compile_alternatives(plan, model),
+        alternatives=alternatives,
         check_weight=d.check_weight if d.check != "none" else 0.0,
-        spectra=build_spectra(plan, model),
+        spectra=spectra,
+        alternative_spectra=alternative_spectra(plan, model, spectra, alternatives),
     )
 
 
@@ -183,12 +192,21 @@ def compile_alternatives(plan: Plan, model: Model) -> tuple[tuple[str, Model], .
             a.name,
             (a.formula.get("M", 0), a.formula.get("L", 0), a.formula.get("H", 0)),
             a.log_beta,
-            target_eps if a.epsilon is None else a.epsilon,
+            _alternative_epsilon(plan, a.name, target_eps) if a.epsilon is None else a.epsilon,
         )
         for a in d.alternative
     ]
     specs = listed or default_alternatives(model, plan.target)
     return tuple((name, with_species(model, name, st, lb, eps)) for name, st, lb, eps in specs)
+
+
+def _alternative_epsilon(plan: Plan, name: str, target_eps: float) -> float:
+    """ε of a listed alternative without ``epsilon``: from its own spectrum at ``optics.wavelength_nm``
+    when a plan with whole spectra gives one (ε table column or band), else the target's."""
+    if not plan.optics.has_spectra:
+        return target_eps
+    own = own_spectrum(plan, name, np.array([plan.optics.wavelength_nm]))
+    return target_eps if own is None else float(own[0])
 
 
 def error_budget(
@@ -231,10 +249,10 @@ def expected_at(
 
 
 def true_constants(model: Model, at: Mapping[str, float] | None) -> np.ndarray:
-    """log β with the ``--at NAME=LOGBETA`` overrides applied."""
+    """log β with the overrides ``at`` (species name → log β) applied."""
     lb = model.log_beta.copy()
     for name, value in (at or {}).items():
         if name not in model.species:
-            raise PlanError(f"--at {name}", unknown_name("species", name, list(model.species)))
+            raise PlanError(f"at[{name}]", unknown_name("species", name, list(model.species)))
         lb[model.index(name)] = float(value)
     return lb

@@ -15,7 +15,14 @@ from ..inputs.plan import Plan
 from ..model import spectra as sp
 from ..model.compiled import Model
 
-__all__ = ["build_spectra", "instrument_at_working_wavelength", "table_epsilon_at", "window_grid"]
+__all__ = [
+    "alternative_spectra",
+    "build_spectra",
+    "instrument_at_working_wavelength",
+    "own_spectrum",
+    "table_epsilon_at",
+    "window_grid",
+]
 
 
 def window_grid(plan: Plan) -> np.ndarray:
@@ -53,11 +60,15 @@ def _absorber_spectra(plan: Plan, absorbers, grid: np.ndarray) -> tuple[np.ndarr
         smooth = sp.slit_smoothed(table.wavelength_nm, table.epsilon_M_cm, grid, o.bandwidth_nm)
         rsd_tab = sp.slit_smoothed(table.wavelength_nm, np.nan_to_num(table.rsd), grid, None)
         for j, name in enumerate(table.names):
+            if name not in absorbers:  # an alternative of the model check: alternative_spectra
+                continue
             a = absorbers.index(name)
             eps[:, a] = smooth[:, j]
             has = bool(np.all(np.isfinite(table.rsd[:, j])))
             rsd[:, a] = _rsd(plan, name, rsd_tab[:, j] if has else None, grid.size)
     for name, band in o.bands.items():
+        if name not in absorbers:
+            continue
         a = absorbers.index(name)
         eps[:, a] = sp.band_spectrum(grid, band.peak_nm, band.fwhm_nm, band.epsilon_max, o.bandwidth_nm)
         rsd[:, a] = _rsd(plan, name, None, grid.size)
@@ -102,3 +113,41 @@ def instrument_at_working_wavelength(plan: Plan) -> tuple[float, tuple[float, fl
     stray, k = sp.instrument(grid, o.stray_light, (n.k1, n.k2, n.k3), o.edge_rise)
     w = float(np.clip(o.wavelength_nm, grid[0], grid[-1]))
     return float(np.interp(w, grid, stray)), tuple(float(np.interp(w, grid, k[:, j])) for j in range(3))
+
+
+def own_spectrum(plan: Plan, name: str, grid: np.ndarray) -> np.ndarray | None:
+    """(W,) ε of ``name`` on ``grid`` from its column in the ε table or its band, or None without one."""
+    o = plan.optics
+    table = plan.spectra_table
+    if table is not None and name in table.names:
+        j = table.names.index(name)
+        return sp.slit_smoothed(table.wavelength_nm, table.epsilon_M_cm[:, [j]], grid, o.bandwidth_nm)[:, 0]
+    band = o.bands.get(name)
+    if band is not None:
+        return sp.band_spectrum(grid, band.peak_nm, band.fwhm_nm, band.epsilon_max, o.bandwidth_nm)
+    return None
+
+
+def alternative_spectra(
+    plan: Plan, model: Model, spectra: sp.Spectra | None, alternatives: tuple[tuple[str, Model], ...]
+) -> tuple[np.ndarray, ...]:
+    """(W,) spectrum of the species each alternative model adds, for the model check with whole spectra.
+
+    Its own column in the ε table or its band when the plan gives one; otherwise the target's spectrum
+    scaled to the alternative's ε at ``optics.wavelength_nm`` (the single-wavelength check's ε, which
+    defaults to the target's: then the same spectrum per complex). Empty without spectra.
+    """
+    if spectra is None:
+        return ()
+    grid = spectra.wavelength_nm
+    j = model.absorbers.index(plan.target)
+    target = spectra.epsilon_M_cm[:, j]
+    eps_t = float(model.epsilon_M_cm[j])
+    out = []
+    for name, alt in alternatives:
+        own = own_spectrum(plan, name, grid)
+        if own is None:
+            eps_a = float(alt.epsilon_M_cm[alt.absorbers.index(name)])
+            own = target * (eps_a / eps_t if eps_t > 0 else 1.0)
+        out.append(np.asarray(own, dtype=float))
+    return tuple(out)

@@ -187,48 +187,42 @@ def cards_context(plan: Plan, cs, *, paper: str = "A4") -> dict:
                 "name": short(c.name),
                 "section": short(c.section, ID_MAX),
                 "bench": short(c.bench, ID_MAX),
+                "label": " — ".join(
+                    x for x in (short(c.student, ID_MAX), short(c.name)) if x
+                ),  # its bookmark
                 "steps": [{"text": s.text, "why": s.why} for s in steps],
                 "series": series_text(plan, getattr(c, "series", None), c.recipe),
                 "rows": rows,
             }
         )
-    return {"kind": "cards", "paper": paper, **shared, "cards": cards}
-
-
-DENSITIES = 4  # type sizes tried until every card fits on one page (0: the normal size)
-FIRST_DENSITY = {"A4": 0, "Letter": 1}  # Letter is 18 mm shorter than A4: its cards start one size smaller
+    return {"kind": "cards", "paper": paper, **shared, "cards": cards, "mode": "full", "slot_height_px": {}}
 
 
 def card_layout(plan: Plan, cs, *, paper: str = "A4"):
-    """The laid-out cards (a WeasyPrint document, one page per card) and the type size used.
+    """The laid-out cards (:class:`planner.paper.card_layout.CardLayout`, one page per card; its
+    ``write_pdf()`` gives the PDF) and the type size used.
 
-    A card that runs onto a second page (many tubes, many reagents in the safety box) is set again in
-    smaller type, at most DENSITIES − 1 times; the pages are counted before any PDF is written, so a set
-    that fits at once is laid out once (one layout pass for every card of the set).
+    What repeats from card to card is laid out once and drawn on every page; a card that runs onto a
+    second page (many tubes, many reagents in the safety box) is set again in smaller type, at most
+    DENSITIES − 1 times (:mod:`planner.paper.card_layout`).
     """
-    import weasyprint
+    from .card_layout import lay_out
 
-    from .render import DataOnlyFetcher
-
-    ctx = cards_context(plan, cs, paper=paper)
-    want = len(ctx["cards"])
-    for density in range(FIRST_DENSITY.get(paper, 0), DENSITIES):
-        html = render_html("cards.html.j2", {**ctx, "density": density})
-        doc = weasyprint.HTML(string=html, base_url=None, url_fetcher=DataOnlyFetcher()).render()
-        if len(doc.pages) <= want:
-            break
-    return doc, density
+    lay = lay_out(cards_context(plan, cs, paper=paper))
+    return lay, lay.density
 
 
 def cards_document(plan: Plan, cs, *, paper: str = "A4", fmt_: str = "pdf") -> bytes:
-    """``cards.pdf``: one page per student (or the HTML at the first type size with ``fmt_="html"``);
-    ``cs`` as in :func:`cards_context`; see :func:`card_layout`."""
+    """``cards.pdf``: one page per student (or the HTML of the whole cards at the first type size with
+    ``fmt_="html"``); ``cs`` as in :func:`cards_context`; see :func:`card_layout`."""
+    from .card_layout import FIRST_DENSITY
+
     check_paper_format(paper, fmt_)
     if fmt_ == "html":
         ctx = cards_context(plan, cs, paper=paper)
         return render_html("cards.html.j2", {**ctx, "density": FIRST_DENSITY.get(paper, 0)}).encode("utf-8")
-    doc, _ = card_layout(plan, cs, paper=paper)
-    return doc.write_pdf()
+    lay, _ = card_layout(plan, cs, paper=paper)
+    return lay.write_pdf()
 
 
 # --------------------------------------------------------------------------------------------------
@@ -428,7 +422,7 @@ LAB_TEXT = {
 
 def _how_made(cs: ClassSet) -> str:
     if cs.lab == "pooled":
-        jitter = f"±{cs.radius_steps} grid step(s) (±{fmt.sig(cs.radius_steps * cs.step_mL, 2)} mL)"
+        jitter = f"±{plural(cs.radius_steps, 'grid step')} (±{fmt.sig(cs.radius_steps * cs.step_mL, 2)} mL)"
         return (
             f"The cards were made for the pooled fit alone: the optimal design of the class's tubes, dealt "
             f"out and moved at most {jitter} to make the cards different."
@@ -437,6 +431,11 @@ def _how_made(cs: ClassSet) -> str:
         f"Every card is a teaching series — {LAB_TEXT[cs.lab]} — with at least 5 distinct compositions; the "
         f"cards were chosen together so that the class's pooled fit stays efficient for K."
     )
+
+
+def _failing_text(n: int) -> str:
+    """ "1 card fails" / "3 cards fail": the count, its noun and the verb in agreement."""
+    return f"{plural(n, 'card')} {'fails' if n == 1 else 'fail'}"
 
 
 def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4") -> dict:
@@ -452,6 +451,9 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
         "seed": cs.seed,
         "n": n,
         "count": len(cs.cards),
+        "cards_text": plural(len(cs.cards), "card"),
+        "tubes_text": plural(n, "tube"),
+        "failing_text": _failing_text(len(cs.cards) - sum(c.passes for c in cs.cards)),
         "sound": cs.sound,
         "passing": sum(c.passes for c in cs.cards),
         "how_made": _how_made(cs),
@@ -476,8 +478,9 @@ def key_document(
 # the class stock list (:mod:`planner.paper.class_stocks`)
 # --------------------------------------------------------------------------------------------------
 def stocks_document(
-    plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
+    plan: Plan, cs, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
 ) -> bytes:
-    """``stocks.pdf``: the class stock list."""
+    """``stocks.pdf``: the class stock list; ``cs`` a :class:`ClassSet` or the drafted cards."""
     check_paper_format(paper, fmt_)
-    return output_bytes(stocks_page(plan, len(cs.cards), stocks, paper=paper), fmt_)
+    count = len(cs.cards) if isinstance(cs, ClassSet) else len(cs)
+    return output_bytes(stocks_page(plan, count, stocks, paper=paper), fmt_)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from ..inputs.plan import Plan
 from ..inputs.tables import write_csv
+from ..inputs.text import plural
 from ..jobs.classroom.stock_list import ClassStock
 from . import fmt
 from .render import render_html
@@ -106,6 +107,7 @@ def stocks_context(plan: Plan, count: int, stocks: tuple[ClassStock, ...], *, pa
         "paper": paper,
         "title": plan.title,
         "count": count,
+        "students_text": plural(count, "student"),
         "rinse": fmt.fixed(g.rinse_mL, 0.01),
         "dead": fmt.fixed(g.dead_volume_mL, 0.01),
         "rows": rows,

@@ -166,7 +166,7 @@ def assessment_json(a) -> dict:
     if a.limits is not None:
         out.update(limits_json(a.limits))
     if a.detection is not None:
-        out["model_check"] = [detection_json(d) for d in a.detection]
+        out["model_check"] = [to_json(d) for d in a.detection]
     if a.spectra is not None:
         out["spectra"] = spectra_facts_json(a.spectra)
     return out
@@ -204,6 +204,19 @@ def detection_json(d) -> dict:
     }
 
 
+def spectra_detection_json(d) -> dict:
+    """:func:`detection_json` of whole spectra: the factor analysis and the best single wavelength too."""
+    return {
+        **detection_json(d),
+        **_finite(d, "power_factors power_either"),
+        "factors_main": d.factors_main,
+        "best_single_wavelength_nm": _f(d.best_single_wavelength_nm),
+        "power_noise_free_single_wavelength": _f(d.power_noise_free_single),
+        "noncentrality_single_wavelength": _f(d.noncentrality_single),
+        "dof_single_wavelength": d.dof_single,
+    }
+
+
 def model_check_json(mc) -> dict:
     """The design's model check: the chosen design's power beside the other design's, per alternative."""
     from ..inference.discrimination import POWER_GOAL
@@ -224,7 +237,7 @@ def model_check_json(mc) -> dict:
         "advice": list(mc.advice),
         "alternatives": [
             {
-                **detection_json(g),
+                **to_json(g),
                 "power_target_only": _f(g.power if not mc.replaced else t.power_noise_free),
                 "power_noise_free_target_only": _f(
                     g.power_noise_free if not mc.replaced else t.power_noise_free
@@ -835,6 +848,7 @@ SHAPES: dict[str, Callable[[Any], dict]] = {
     "planner.jobs.plan.limits.Change": change_json,
     "planner.jobs.plan.limits.Limits": limits_json,
     "planner.inference.discrimination.Detection": detection_json,
+    "planner.jobs.spectra.detection.SpectraDetection": spectra_detection_json,
     "planner.jobs.plan.model_check.ModelCheck": model_check_json,
     "planner.jobs.plan.design.Design": design_json,
     "planner.jobs.titration.titrate.TitrationDesign": titration_json,

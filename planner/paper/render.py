@@ -30,8 +30,10 @@ __all__ = [
     "RenderError",
     "html_to_pdf",
     "prep_sheet",
+    "fit_layout",
     "render_html",
     "report",
+    "template_macros",
 ]
 
 from ..inputs.choices import PAPERS  # noqa: E402  (defined once, light for the command line)
@@ -133,6 +135,17 @@ def render_html(template: str, context: dict) -> str:
     return _environment().get_template(template).render(**ctx)
 
 
+def template_macros(template: str, context: dict):
+    """The macros of ``template`` bound to ``context`` (as :func:`render_html` would render it), callable
+    from Python: a page made of parts can render each part alone (each returns markup)."""
+    from markupsafe import Markup
+
+    ctx = dict(context)
+    ctx["css"] = Markup(_stylesheet())
+    ctx["page_size"] = PAPERS[ctx["paper"]]
+    return _environment().get_template(template).make_module(ctx)
+
+
 def html_to_pdf(html: str, *, fetcher=None) -> bytes:
     """PDF bytes of ``html``; ``fetcher`` defaults to :func:`DataOnlyFetcher` (data: URLs only)."""
     import weasyprint
@@ -176,7 +189,39 @@ def prep_sheet(
     """
     check_paper_format(paper, fmt)
     ctx = prep_context(plan, recipe, assessment, needs, date=date_text(date), paper=paper, order=order)
-    return output_bytes(render_html("prep_sheet.html.j2", ctx), fmt)
+    if fmt == "html":
+        return render_html("prep_sheet.html.j2", ctx).encode("utf-8")
+    return fit_layout("prep_sheet.html.j2", ctx).write_pdf()
+
+
+TABLE_FITS = ("", "dense", "wide")  # a table as it is, in smaller type, on a landscape page
+
+
+def _fits(n_columns: int):
+    """The ways of setting a table with a column per stock, tried in turn: as it is, in smaller type, on
+    a landscape page, then its stock columns split over 2, 3, … tables (each with the tube column)."""
+    for fit in TABLE_FITS:
+        yield fit, None
+    for k in range(2, n_columns + 1):
+        size = -(-n_columns // k)
+        yield "split", [list(range(i, min(i + size, n_columns))) for i in range(0, n_columns, size)]
+
+
+def fit_layout(template: str, ctx: dict):
+    """``template`` laid out (a WeasyPrint document) with every column of its tables marked ``data-fit``
+    (the prep sheet's tube table, the report's recipe) inside the page: a table wider than the page (many
+    stocks) is set in smaller type, then on a landscape page of its own, then split into tables of fewer
+    stocks (the template reads ``fit`` and ``parts``)."""
+    import weasyprint
+
+    from .boxes import overflowing
+
+    for fit, parts in _fits(len(ctx["columns"])):
+        html = render_html(template, {**ctx, "fit": fit, "parts": parts})
+        doc = weasyprint.HTML(string=html, base_url=None, url_fetcher=DataOnlyFetcher()).render()
+        if not overflowing(doc, "data-fit"):
+            break
+    return doc
 
 
 def report(plan, recipe, assessment, *, design=None, paper: str = "A4", fmt: str = "pdf", date=None) -> bytes:
@@ -212,7 +257,9 @@ def report(plan, recipe, assessment, *, design=None, paper: str = "A4", fmt: str
     if spectra:
         ctx["facts"] = report_facts(plan, ctx["facts"])
         ctx["a_heading"] = "Highest A in the window (±2 sd)"
-    return output_bytes(render_html("report.html.j2", ctx), fmt)
+    if fmt == "html":
+        return render_html("report.html.j2", ctx).encode("utf-8")
+    return fit_layout("report.html.j2", ctx).write_pdf()
 
 
 def fit_report(plan, fit, *, kind: str = "pdf", paper: str = "A4", date=None) -> bytes:

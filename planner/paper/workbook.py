@@ -23,12 +23,17 @@ def append_row(ws, values) -> None:
     once edited (source: OWASP, "CSV Injection"), and control characters, which XML cannot hold, written
     as visible ``\\uXXXX`` escapes.
     """
-    ws.append([visible(v) if isinstance(v, str) else v for v in values])
-    for cell in ws[ws.max_row]:
-        if isinstance(cell.value, str):
+    from openpyxl.cell import Cell
+
+    cells = []
+    for v in values:
+        cell = Cell(ws, value=visible(v) if isinstance(v, str) else v)
+        if isinstance(v, str):
             cell.data_type = "s"
             if formula_risk(cell.value):
                 cell.quotePrefix = True
+        cells.append(cell)
+    ws.append(cells)  # the cells made here: no look-up of the row just written (O(cells) in openpyxl)
 
 
 def stable_xlsx(wb) -> bytes:

@@ -98,13 +98,18 @@ def test_cards_printed_in_a_second_process_are_the_same_bytes(tmp_path, capsys, 
     from planner.inputs.plan import load_plan
     from planner.inputs.roster import roster_of_count
     from planner.jobs.classroom.cards import class_set
-    from planner.paper.cards import cards_document
+    from planner.jobs.classroom.stock_list import class_stocks
+    from planner.paper.cards import cards_document, stocks_document
 
     code, _, err = run(capsys, monkeypatch, "cards", PLAN, "--count", 8, "--tubes", 5, "--out", tmp_path)
     assert code == 0, err
     plan = load_plan(PLAN)
-    here = cards_document(plan, class_set(plan, roster_of_count(8), tubes=5, seed=0))
-    assert (tmp_path / "cards.pdf").read_bytes() == here
+    roster = roster_of_count(8)
+    cs = class_set(plan, roster, tubes=5, seed=0)
+    assert (tmp_path / "cards.pdf").read_bytes() == cards_document(plan, cs)
+    # the class stock list too is printed there
+    stocks = stocks_document(plan, cs, class_stocks(plan, [c.recipe for c in cs.cards], roster))
+    assert (tmp_path / "stocks.pdf").read_bytes() == stocks
 
 
 def test_teaching_series_by_default_and_pooled_on_request(tmp_path, capsys, monkeypatch):

@@ -28,6 +28,17 @@ def test_check_warns_about_a_stock_without_dispenser(tmp_path, capsys, monkeypat
     assert code == 0 and "no dispenser delivers DY" in out and "plan OK, with the warning" in out
 
 
+def test_check_shows_a_titration_s_additions_not_tubes(capsys, monkeypatch):
+    code, out, _ = run(capsys, monkeypatch, "check", ROOT / "examples/titration-burette.toml")
+    flat = " ".join(out.split())
+    assert code == 0 and "plan OK" in out
+    assert "Titration: 25.00 mL of ZN in the cell, then 12 additions of BQ" in flat
+    assert "on a 0.05 mL grid, up to 35.00 mL in the cell" in flat and "stir for 1 min" in flat
+    assert "Design: target ML" in flat and "tubes," not in flat and "Tubes:" not in flat
+    code, out, _ = run(capsys, monkeypatch, "check", ROOT / "planner/data/scenarios/teaching.toml")
+    assert code == 0 and "Design: 8 tubes, target ML" in " ".join(out.split()) and "Titration" not in out
+
+
 def test_piped_tables_keep_their_names(tmp_path):
     # a file or a pipe gets wide tables, not rich's 80 columns that cut the stock recipes into slivers
     env = {k: v for k, v in __import__("os").environ.items() if k != "COLUMNS"}

@@ -97,3 +97,59 @@ def test_guard_stops_adding_noncentrality_beyond_the_saturation():
     capped = guarded_design(F, R, None, 1, counts, np.inf, lam_cap=12.0)
     assert capped.noncentrality[0] >= 12.0 - 1e-9
     assert capped.var_target < free.var_target
+
+
+def _block_problem(seed: int = 0, C: int = 9, k: int = 3, P: int = 4, A: int = 2):
+    rng = np.random.default_rng(seed)
+    F = rng.standard_normal((C, k, P))
+    R = rng.standard_normal((A, C, k))
+    counts = np.zeros(C, dtype=int)
+    counts[[0, 3, 5]] = [2, 1, 2]
+    return F, R, counts
+
+
+def _direct(F, R, counts, target):
+    """Var of the target and λ of each alternative with every row of the design listed (no updates)."""
+    rows = np.repeat(np.arange(F.shape[0]), counts)
+    Fd = F[rows].reshape(-1, F.shape[-1])
+    M = Fd.T @ Fd
+    cov = np.linalg.inv(M)
+    lam = []
+    for a in range(R.shape[0]):
+        r = R[a, rows].reshape(-1)
+        b = Fd.T @ r
+        lam.append(r @ r - b @ cov @ b)
+    return cov[target, target], np.array(lam)
+
+
+def test_block_moves_match_a_direct_evaluation_of_every_move():
+    # derived: a candidate of k rows is k readings that move together; the Woodbury scores of every move
+    # from a support point equal the variance and λ of the moved design evaluated from its rows
+    from planner.inference.guard import _block_moves_from, _BlockState
+
+    F, R, counts = _block_problem()
+    st = _BlockState(F, R, np.zeros((4, 4)), counts)
+    var0, lam0 = st.var_lam(1)
+    v_direct, l_direct = _direct(F, R, counts, 1)
+    assert var0 == pytest.approx(v_direct, rel=1e-10)
+    np.testing.assert_allclose(lam0, l_direct, rtol=1e-9)
+    var, lam = _block_moves_from(st, F, R, 3, 1)
+    for c in range(F.shape[0]):
+        moved = counts.copy()
+        moved[3] -= 1
+        moved[c] += 1
+        v, lam_c = _direct(F, R, moved, 1)
+        assert var[c] == pytest.approx(v, rel=1e-8)
+        np.testing.assert_allclose(lam[c], lam_c, rtol=1e-7, atol=1e-9)
+
+
+def test_block_guard_with_one_row_per_candidate_is_the_single_row_guard():
+    # derived: k = 1 is the single-reading case; both exchanges make the same moves
+    x, F, R = _line_and_curvature(size=20.0)
+    counts = np.zeros(x.size, dtype=int)
+    counts[[0, 20]] = [4, 4]
+    a = guarded_design(F, R, None, 1, counts, 1.3)
+    b = guarded_design(F[:, None, :], R[:, :, None], None, 1, counts, 1.3)
+    assert np.array_equal(a.counts, b.counts) and a.moves == b.moves
+    assert b.var_target == pytest.approx(a.var_target, rel=1e-9)
+    np.testing.assert_allclose(b.noncentrality, a.noncentrality, rtol=1e-7)

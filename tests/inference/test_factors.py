@@ -62,3 +62,13 @@ def test_singular_values_are_those_of_the_matrix_either_way_round():
     assert np.allclose(a.indicator, b.indicator)
     with pytest.raises(ValueError):
         factor_analysis(np.ones((2, 10)))
+
+
+def test_the_batched_indicator_is_the_one_by_one_analysis():
+    # the stacked count (one SVD call for many matrices) equals factor_analysis on each matrix alone
+    from planner.inference.factors import indicator_factors
+
+    rng = np.random.default_rng(5)
+    stack = np.stack([_matrix(rng, k, W=41) for k in (1, 2, 3, 2, 4)])
+    np.testing.assert_array_equal(indicator_factors(stack), [factor_analysis(d).n_indicator for d in stack])
+    np.testing.assert_array_equal(indicator_factors(np.swapaxes(stack, 1, 2)), indicator_factors(stack))

@@ -79,3 +79,42 @@ def test_single_wavelength_plans_have_no_spectra():
 def test_table_rsd_columns():
     t = parse_spectra_table("wavelength_nm,ML,ML2,rsd,ML2_rsd\n400,1,2,0.1,0.5\n410,1,2,0.2,0.5\n")
     assert np.allclose(t.rsd[:, 0], [0.1, 0.2]) and np.allclose(t.rsd[:, 1], 0.5)
+
+
+def test_an_alternative_may_have_its_spectrum_in_the_table():
+    # the model check with whole spectra reads a listed alternative's spectrum like a species'; a column
+    # that names neither is still refused, and the message says an alternative would do
+    one = EXAMPLE.read_text(encoding="utf-8").replace(
+        '[[species]]\nname = "ML2"\nformula = { M = 1, L = 2 }\nlog_beta = 5.90\nlog_beta_sd = 0.60\n', ""
+    )
+    one = one.replace("spectra_rsd = { ML = 0.3, ML2 = 0.3 }", "spectra_rsd = { ML = 0.3 }")
+    with pytest.raises(PlanError) as exc:
+        parse_plan_text(one, base_dir=EXAMPLE.parent)
+    assert exc.value.key == "optics.spectra" and "[[design.alternative]]" in exc.value.message
+    listed = one + '\n[[design.alternative]]\nname = "ML2"\nformula = { M = 1, L = 2 }\nlog_beta = 4.0\n'
+    study = compile_study(parse_plan_text(listed, base_dir=EXAMPLE.parent))
+    assert study.model.absorbers == ("M", "L", "ML") and study.alternative_spectra[0].max() > 0
+
+
+def test_a_band_for_an_alternative(tmp_path):
+    text = EXAMPLE.read_text(encoding="utf-8")
+    start, end = text.index('spectra = "'), text.index("[[stock]]")
+    text = (
+        text[:start]
+        + "window_nm = [450, 750]\nstep_nm = 5\n[optics.bands]\n"
+        + "ML = { peak_nm = 600, fwhm_nm = 100, epsilon_max = 500 }\n"
+        + "ML2 = { peak_nm = 650, fwhm_nm = 100, epsilon_max = 500 }\n"
+        + "MLB = { peak_nm = 520, fwhm_nm = 80, epsilon_max = 300 }\n\n"
+        + text[end:]
+    )
+    alt = '\n[[design.alternative]]\nname = "MLB"\nformula = { M = 1, L = 3 }\nlog_beta = 7.0\n'
+    with pytest.raises(PlanError) as exc:
+        parse_plan_text(text)
+    assert exc.value.key == "optics.bands.MLB"
+    study = compile_study(parse_plan_text(text + alt))
+    eps = study.alternative_spectra[0]
+    w = study.spectra.wavelength_nm
+    assert w[np.argmax(eps)] == 520 and eps.max() == pytest.approx(300.0)
+    # the single-wavelength check reads the band at optics.wavelength_nm (600 nm)
+    mlb = dict(study.alternatives)["MLB"]
+    assert mlb.epsilon_M_cm[-1] == pytest.approx(eps[w == 600][0], rel=1e-12)

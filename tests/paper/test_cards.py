@@ -9,16 +9,12 @@ import re
 
 import pytest
 
-from planner.inputs.plan import parse_plan_text
 from planner.inputs.roster import parse_roster_csv
 from planner.jobs.classroom.cards import class_set_study
 from planner.jobs.classroom.stock_list import class_stocks
-from planner.jobs.compile import compile_study
 from planner.jobs.plan.assess import assess_study
 from planner.paper import cards as pc
 from planner.paper.json_out import to_json
-
-from ..conftest import scenario_text
 
 LONG = "Q" * 200  # the longest name a roster takes (planner.inputs.limits.MAX_TEXT)
 RTL = "\u05e2\u05d3\u05d4 \u05e8\u05d5\u05e0\u05e1\u05e8"  # an invented name in Hebrew letters
@@ -42,16 +38,6 @@ PLAN_KEYS = (
     "dead_volume",
     "epsilon",
 )
-
-
-@pytest.fixture(scope="module")
-def plan():
-    return parse_plan_text(scenario_text("teaching"))
-
-
-@pytest.fixture(scope="module")
-def study(plan):
-    return compile_study(plan)
 
 
 @pytest.fixture(scope="module")
@@ -234,38 +220,43 @@ def test_long_names_are_printed_whole(plan, study, wide_set):
     assert LONG_NAME in key
 
 
-def _boxes(page):
-    for b in page._page_box.descendants():
+def _boxes(page, dx: float = 0.0, dy: float = 0.0):
+    """(box, class, x, y) of every laid-out box of a page, into absolutely placed ones, moved by -dx, -dy."""
+    for b in page._page_box.descendants(placeholders=True):
         el = getattr(b, "element", None)
-        yield b, (el.get("class") or "") if el is not None else ""
+        yield b, (el.get("class") or "") if el is not None else "", b.position_x - dx, b.position_y - dy
 
 
 @pytest.mark.parametrize("paper", ["A4", "Letter"])
 def test_header_box_holds_every_field(plan, wide_set, paper):
-    doc, density = pc.card_layout(plan, wide_set, paper=paper)
-    assert len(doc.pages) == len(wide_set.cards) and density <= 1  # at most one size smaller
-    page = doc.pages[0]
-    who = next(b for b, cls in _boxes(page) if cls == "who" and type(b).__name__ == "TableBox")
+    lay, density = pc.card_layout(plan, wide_set, paper=paper)
+    assert lay.frames is not None  # the repeated parts laid out once (planner.paper.card_layout)
+    assert len(lay.pages.pages) == len(wide_set.cards) and density <= 1  # at most one size smaller
+    k, dx, dy = lay.stamps[0][0]  # the first card's top frame and where it is drawn
+    frame = lay.frames.pages[k]
+    who = next(b for b, cls, _, _ in _boxes(frame) if cls == "who" and type(b).__name__ == "TableBox")
     left, right = who.border_box_x(), who.border_box_x() + who.border_width()
     top, bottom = who.border_box_y(), who.border_box_y() + who.border_height()
-    inner = [
-        b for b, cls in _boxes(page) if cls in ("k", "v", "v nm", "line") or type(b).__name__ == "TextBox"
+    # the header's labels and rules (the frame) and the card's own values (its page, in frame coordinates)
+    mine = [
+        (b, cls, x, y)
+        for b, cls, x, y in [*_boxes(frame), *_boxes(lay.pages.pages[0], dx, dy)]
+        if cls in ("k", "line") or cls.startswith("v ") or type(b).__name__ == "TextBox"
     ]
     inside = [
-        b
-        for b in inner
-        if b.position_y >= top - 0.5
-        and b.position_y + b.margin_height() <= bottom + 0.5
-        and b.position_x >= left
+        (b, cls, x, y) for b, cls, x, y in mine if y >= top - 0.5 and y + b.margin_height() <= bottom + 0.5
     ]
+    inside = [(b, cls, x, y) for b, cls, x, y in inside if x >= left]
     assert inside, "no field found in the header box"
-    for b in inside:  # every field's box ends inside the header box (the date rule included)
-        assert b.position_x + b.margin_width() <= right + 0.5, (paper, type(b).__name__)
-    lines = [b for b, cls in _boxes(page) if cls == "line"]
-    assert lines and all(b.position_x + b.margin_width() <= right + 0.5 for b in lines)
+    for b, _, x, _ in inside:  # every field's box ends inside the header box (the date rule included)
+        assert x + b.margin_width() <= right + 0.5, (paper, type(b).__name__)
+    lines = [(b, x) for b, cls, x, _ in _boxes(frame) if cls == "line"]
+    assert lines and all(x + b.margin_width() <= right + 0.5 for b, x in lines)
     # the long name wraps onto two lines inside the header box, every word of it printed
     name = [
-        b for b in inside if type(b).__name__ == "TextBox" and b.text.strip() and b.text.strip() in LONG_NAME
+        (b, y)
+        for b, _, _, y in inside
+        if type(b).__name__ == "TextBox" and b.text.strip() and b.text.strip() in LONG_NAME
     ]
-    assert " ".join(b.text.strip() for b in name).replace("- ", "-") == LONG_NAME
-    assert len({round(b.position_y, 1) for b in name}) == 2
+    assert " ".join(b.text.strip() for b, _ in name).replace("- ", "-") == LONG_NAME
+    assert len({round(y, 1) for _, y in name}) == 2

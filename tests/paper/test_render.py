@@ -206,7 +206,7 @@ def test_custom_order_and_bad_order(teaching):
     with pytest.raises(sheets.RenderError, match="unknown: XX"):
         sheets.addition_order(plan, recipe, ["CU", "DY", "XX"])
     html = render.prep_sheet(*teaching, date=DATE, fmt="html", order=["CU", "DY"]).decode("utf-8")
-    assert html.index("CU / mL") < html.index("DY / mL")
+    assert html.index("CU /&nbsp;mL") < html.index("DY /&nbsp;mL")
     assert "cannot precipitate" not in html  # the metal-last reason belongs to the default order only
 
 

@@ -53,7 +53,7 @@ def run_series(
     if points is not None:
         points = check_count(points, "points", MAX_TUBES)
     if tubes is not None:
-        tubes = check_count(tubes, "replicates", MAX_REPLICATES)
+        tubes = check_count(tubes, "tubes", MAX_REPLICATES)
     try:
         return _run(plan, method, points, total_M, tubes, limiting, excess_M, vary, max_ratio, recipe)
     except SeriesInfeasible as exc:

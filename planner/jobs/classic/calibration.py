@@ -105,7 +105,7 @@ def conversion_tube(
             f"'{target}' has no absorptivity: give its ε guess (a calibration tube reads the complex)",
         )
     if tubes < 1:
-        raise PlanError("replicates", "at least one calibration tube")
+        raise PlanError("tubes", "at least one calibration tube")
     _, lim_id, c_lim_stock = pure_stock(plan, lim)
     _, exc_id, c_exc_stock = pure_stock(plan, exc)
     g = plan.glassware
@@ -257,7 +257,7 @@ def conversion_tube(
         {"fraction": np.append(np.full(tubes, f_guess), [0.0] if blank else [])},
         ok,
         notes=tuple(notes),
-        range_fix=f"a lower {lim} concentration (total) or a shorter path",
+        range_fix=f"a lower {lim} concentration (total_M) or a shorter path",
     )
 
 
@@ -328,9 +328,9 @@ def _limiting_volume(plan, model, total_M, lim, lim_id, c_lim_stock, conc_per_ab
     v_lim = float(snap(total_M * V / c_lim_stock, step))
     if v_lim < vmin or v_lim > V:
         raise PlanError(
-            "total",
+            "total_M",
             f"{fmt_conc(total_M)} of {lim} needs {v_lim:g} mL of {lim_id}, outside "
-            f"{vmin:g}–{V:g} mL: choose another total",
+            f"{vmin:g}–{V:g} mL: choose another total_M",
         )
     return v_lim
 
@@ -339,9 +339,9 @@ def _given_excess(excess_M, exc, exc_id, c_exc_stock, V, v_lim, vmin, step) -> f
     v_exc = float(snap(excess_M * V / c_exc_stock, step))
     if v_exc < vmin or v_exc > V - v_lim + 1e-9:
         raise PlanError(
-            "excess",
+            "excess_M",
             f"{fmt_conc(excess_M)} of {exc} needs {v_exc:g} mL of {exc_id}, outside "
-            f"{vmin:g}–{V - v_lim:g} mL (the tube holds {V:g} mL): choose another excess",
+            f"{vmin:g}–{V - v_lim:g} mL (the tube holds {V:g} mL): choose another excess_M",
         )
     return v_exc
 
@@ -363,7 +363,7 @@ def _default_excess(plan, model, fraction, lb, lim_id, exc_id, v_lim, c_exc_stoc
     )
     if cand.size == 0:
         raise SeriesInfeasible(
-            "total", f"no room for the excess stock {exc_id} beside {v_lim:g} mL of {lim_id}: lower total"
+            "total_M", f"no room for the excess stock {exc_id} beside {v_lim:g} mL of {lim_id}: lower total_M"
         )
     vol, tot = fill_volumes(plan, {lim_id: np.full(cand.size, v_lim), exc_id: cand})
     worst, inside = screen(plan, model, vol[:, None, :], tot[:, None])

@@ -347,6 +347,17 @@ def what_would_fit(model: Model, fits, conc_label: str, comps=(0, 1)) -> str:
     )
 
 
+def grid_between(screened: np.ndarray, v: float, step: float, upward: bool, limit: int = 200) -> np.ndarray:
+    """The grid volumes not screened yet between ``v`` and the next screened volume above it (``upward``:
+    ``v`` is in range and a larger one may be too), or between ``v``'s two neighbours (none is in range:
+    the least at risk may lie between); at most ``limit`` of them. ``screened`` is rising."""
+    i = int(np.searchsorted(screened, v - 1e-9))
+    lo = v if upward else (float(screened[i - 1]) if i > 0 else v)
+    hi = float(screened[i + 1]) if i + 1 < screened.size else v
+    grid = snap(np.arange(np.round(lo / step) + 1, np.round(hi / step)) * step, step)
+    return grid[~np.isin(grid, screened)][:limit]
+
+
 def status_of(worst: np.ndarray, inside: np.ndarray) -> str:
     """The best linear-range status any of the candidates screened reaches."""
     return pick(worst, inside)[1] if worst.size else "fail"

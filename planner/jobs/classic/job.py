@@ -12,6 +12,8 @@ rivals (1:1, 1:2, 2:1, 1:1+1:2) above the noise (:mod:`.rivals`), and if not, wh
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from . import rivals as rv
@@ -39,6 +41,7 @@ from .common import (
     fill_volumes,
     finish,
     fmt_conc,
+    grid_between,
     pick,
     predict_volumes,
     pure_stock,
@@ -55,6 +58,10 @@ METHOD = "job"
 DEFAULT_POINTS = 9
 EXTREMUM_SHIFT = 0.02  # a peak 0.02 off 1/(n+1) misreads one stoichiometry as a mixture [common practice]
 MIN_DEFAULT_POINTS = 5  # the default series gives up points down to 5 to stay in range [common practice]
+X_LO_MAX = 0.3  # the mole fractions span at least 0.3–0.7: the rise and fall at the peak [common practice]
+LOW_FRACTIONS = 6  # spans screened at each total, from the widest the grid allows to X_LO_MAX
+SUMS_SCREENED = 120  # totals screened first on a fine grid (then the grid next to the best)
+WHAT_IF_SERIES = 150  # series screened for each what-if (cell, dilution) when none is in range
 EQUIMOLAR_RTOL = 0.005  # stocks within 0.5 % count as equimolar [common practice: within their stated rsd]
 CURVE_POINTS = 199
 SEARCH_SCALES = 2.0 ** np.arange(1, 8)  # totals tried when the planned one cannot separate: ×2 … ×128
@@ -68,9 +75,15 @@ def continuous_variation(
 
     Parameters
     ----------
-    points : number of tubes (mole fractions i/(points + 1), i = 1 … points, on the volume grid).
+    points : number of tubes, their metal mole fractions evenly spaced and symmetric about 1/2 (default:
+        the most from 9 down to 5 that stay in the linear range).
     total_M : total concentration [M]₀ + [L]₀ in each tube, mol/L (default: the largest on the grid
         that keeps every reading inside the linear range).
+
+    The mole fractions run from x_lo to 1 − x_lo, x_lo from the usual 1/(points + 1) — or what the least
+    volume allows at the total — up to X_LO_MAX, keeping two tubes on each side of every complex's
+    extremum; of the series in range over the guess's uncertainty (assess's own screen) the one with the
+    most points, then the widest span, then the largest total.
     """
     model = plan_model(plan)
     _, m_id, cM = pure_stock(plan, "M")
@@ -80,26 +93,24 @@ def continuous_variation(
         n_pts = plural(int(points), "point")
         raise PlanError("points", f"{n_pts} cannot show an extremum: use at least 3 (9–11 is usual)")
     g = plan.glassware
-    step, vmin = g.step_mL, max(g.min_volume_mL, g.step_mL)
+    step = g.step_mL
     avail = (
         g.tube_volume_mL
         - make_up_min_mL(plan)
         - sum(v for k, v in plan.design.fixed.items() if k not in (m_id, l_id))
     )
-    caps = (capacity_mL(plan, m_id), capacity_mL(plan, l_id))
+    vmin = float(snap(np.ceil(max(g.min_volume_mL, step) / step - 1e-9) * step, step))
+    room = _Room(step, vmin, float(avail), (capacity_mL(plan, m_id), capacity_mL(plan, l_id)), _peaks(model))
+    ids = (m_id, l_id)
     if total_M is not None:
-        n = DEFAULT_POINTS if points is None else int(points)
-        x = np.arange(1, n + 1) / (n + 1)
-        vs = _given_sum(total_M, cM, x, n, step, vmin, avail, caps, g.tube_volume_mL)
-        cand = np.array([vs])
+        sums = np.array([_given_sum(total_M, cM, room, g.tube_volume_mL)])
     else:
-        n, vs, cand = _choose_sum(plan, model, m_id, l_id, points, step, vmin, avail, caps)
-        x = np.arange(1, n + 1) / (n + 1)
-    worst, inside = screen(plan, model, *_volumes(plan, m_id, l_id, x, np.array([vs]), step))
+        sums = _sums(room)
+    n, cand, k, status = _choose_series(plan, model, ids, points, sums, room, total_M)
+    vs, vm = float(cand[0][k]), cand[1][k]
     range_fix = ""
-    if not worst[0] <= RANGE_RISK + 1e-12:
-        range_fix = _range_fix(plan, model, (m_id, l_id), x, cand, (step, vmin, avail, caps), n)
-    vm = snap(x * vs, step)
+    if status != "pass":
+        range_fix = _range_fix(plan, model, ids, cand, room, n)
     recipe = series_recipe(plan, {m_id: vm, l_id: snap(vs - vm, step)}, [f"J{i + 1}" for i in range(n)])
     a = assess_tubes(plan, recipe)
     st = a.state
@@ -133,6 +144,7 @@ def continuous_variation(
     extra = {
         "stocks": {"metal": m_id, "ligand": l_id, "conc_M": cM},
         "total_M": C,
+        "mole_fraction_span": [float(xm.min()), float(xm.max())],
         "extremum_mole_fraction": x_ext,
         "extremum_corrected_absorbance": y_ext,
         "plan_model": rv.plan_label(model),
@@ -152,6 +164,7 @@ def continuous_variation(
     )
     notes = [
         f"total concentration C = [M]0 + [L]0 = {fmt_conc(C)} in every tube ({vs:g} mL of stock)",
+        *_span_note(vm, vs, n, room, status),
         f"extremum of the corrected absorbance at x_M = {x_ext:.3f} (Y = {y_ext:.3f})",
         "separation from rival models (whitened residual of their best fit): "
         + (", ".join(f"{f.model} {f.separation_sd:.1f} sd" for f in fits) or "none"),
@@ -163,7 +176,13 @@ def continuous_variation(
             f"a total of {fmt_conc(needed[0])}{cell} would separate the {kind} rivals by "
             f"≥ {rv.SEPARATION_WANTED:g} sd"
         )
-    if points is None and n != DEFAULT_POINTS:
+    if points is None and status != "pass":
+        notes.insert(
+            0,
+            f"no series of {DEFAULT_POINTS} down to {MIN_DEFAULT_POINTS} mole fractions can all stay inside "
+            f"the linear range over the guess's range on this grid: planned the least at risk, {n} points",
+        )
+    elif points is None and n != DEFAULT_POINTS:
         notes.insert(
             0,
             f"{DEFAULT_POINTS} mole fractions cannot all stay inside the linear range over the guess's "
@@ -204,96 +223,183 @@ def _require_equimolar(plan: Plan, m_id: str, cM: float, l_id: str, cL: float) -
     )
 
 
-def _valid(vs: np.ndarray, x: np.ndarray, step: float, vmin: float, caps=(np.inf, np.inf)) -> np.ndarray:
-    """Which sums of volumes put every mole fraction on the grid, distinct, above min_volume and within
-    each dispenser's capacity."""
-    vm = snap(x[None, :] * vs[:, None], step)
-    vl = snap(vs[:, None] - vm, step)
-    distinct = np.all(np.diff(vm, axis=1) > step / 2, axis=1)
-    return (
-        distinct
-        & (vm.min(axis=1) >= vmin - 1e-9)
-        & (vl.min(axis=1) >= vmin - 1e-9)
-        & (vm.max(axis=1) <= caps[0] + 1e-9)
-        & (vl.max(axis=1) <= caps[1] + 1e-9)
-    )
+@dataclass(frozen=True)
+class _Room:
+    """What the glassware leaves a Job series: the grid step, the least volume (on the grid), the room in
+    the tube for the two stocks, the capacity of the metal's and the ligand's dispensers, and where each
+    of the plan's complexes alone puts the extremum."""
+
+    step: float
+    vmin: float
+    avail: float
+    caps: tuple[float, float]
+    peaks: tuple[float, ...]
 
 
-def _given_sum(total_M, cM, x, n, step, vmin, avail, caps, tube_mL) -> float:
-    """The sum of stock volumes per tube for ``total`` (checked against the grid and the tube)."""
+def _peaks(model) -> tuple[float, ...]:
+    """Where each complex M_pL_q alone puts the extremum: x_M = p/(p + q) (Job 1928)."""
+    pq = [(float(p), float(q)) for (p, q, _), m in zip(model.stoich, model.complex_mask, strict=True) if m]
+    return tuple(sorted({p / (p + q) for p, q in pq}))
+
+
+def _given_sum(total_M: float, cM: float, room: _Room, tube_mL: float) -> float:
+    """The sum of stock volumes per tube for ``total_M`` (checked against the tube)."""
     if total_M <= 0:
-        raise PlanError("total", "the total concentration must be positive, e.g. total = '2 mM'")
-    vs = float(snap(total_M * tube_mL / cM, step))
-    if vs > avail + 1e-9:
+        raise PlanError("total_M", "the total concentration must be positive, e.g. total_M = 0.002 (2 mM)")
+    vs = float(snap(total_M * tube_mL / cM, room.step))
+    if vs > room.avail + 1e-9:
         raise PlanError(
-            "total",
+            "total_M",
             f"{fmt_conc(total_M)} needs {vs:g} mL of stock per tube, more than the "
-            f"{avail:g} mL available: lower total or use more concentrated stocks",
-        )
-    if not _valid(np.array([vs]), x, step, vmin, caps)[0]:
-        raise PlanError(
-            "total",
-            f"at {fmt_conc(total_M)} ({vs:g} mL of stock per tube) the {n} mole fractions "
-            f"do not fit the {step:g} mL grid between min_volume {vmin:g} mL and the dispensers' "
-            f"capacity: change total or use fewer points",
+            f"{room.avail:g} mL available: lower total_M or use more concentrated stocks",
         )
     return vs
 
 
-def _sums(x, step, vmin, avail, caps) -> np.ndarray:
-    """Every sum of stock volumes per tube that puts the mole fractions ``x`` on the grid (rising)."""
-    cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
-    return cand[_valid(cand, x, step, vmin, caps)]
+def _sums(room: _Room) -> np.ndarray:
+    """The sums of stock volumes per tube to screen first: every one on the grid from twice the least
+    volume to the room in the tube, or SUMS_SCREENED of them evenly in log on a finer grid."""
+    first = int(np.ceil(2 * room.vmin / room.step - 1e-9))
+    last = int(np.floor(room.avail / room.step + 1e-9))
+    if last < first:
+        return np.zeros(0)
+    if last - first + 1 <= SUMS_SCREENED:
+        return snap(np.arange(first, last + 1) * room.step, room.step)
+    return np.unique(snap(np.geomspace(first, last, SUMS_SCREENED) * room.step, room.step))
 
 
-def _volumes(plan, m_id, l_id, x, sums, step):
-    """(B, n, k) volumes and (B, n) tube volumes of the series at each sum of stock volumes."""
-    vm = snap(x[None, :] * sums[:, None], step)
-    return fill_volumes(plan, {m_id: vm, l_id: snap(sums[:, None] - vm, step)})
+def _candidates(sums, n: int, room: _Room) -> tuple[np.ndarray, np.ndarray]:
+    """(B,) sums of stock volumes and (B, n) metal volumes of every series of ``n`` points to screen.
+
+    At each sum, LOW_FRACTIONS spans x_lo … 1 − x_lo with evenly spaced mole fractions, x_lo from the usual
+    1/(n + 1) — or what the least volume allows at that sum — up to X_LO_MAX; the metal volumes x·sum on
+    the grid, the ligand's the rest. Kept when the volumes are distinct, at least the least volume, within
+    the dispensers, and leave two tubes (one below 5 points) on each side of every complex's extremum."""
+    S = np.asarray(sums, dtype=float)[:, None]
+    lo_min = np.maximum(1.0 / (n + 1), room.vmin / np.maximum(S, 1e-300))
+    x_lo = lo_min + np.linspace(0.0, 1.0, LOW_FRACTIONS)[None, :] * (X_LO_MAX - lo_min)
+    S, x_lo, lo_min = (a.ravel() for a in np.broadcast_arrays(S, x_lo, lo_min))
+    keep = lo_min <= X_LO_MAX + 1e-12
+    S, x_lo = S[keep], x_lo[keep]
+    x = x_lo[:, None] + (1 - 2 * x_lo)[:, None] * np.linspace(0.0, 1.0, n)[None, :]
+    vm = snap(x * S[:, None], room.step)
+    ok = _valid(S, vm, room) & _both_sides(vm / S[:, None], room.peaks, 2 if n >= 5 else 1)
+    if not ok.any():
+        return np.zeros(0), np.zeros((0, n))
+    rows = np.unique(np.column_stack([S[ok], vm[ok]]), axis=0)
+    return rows[:, 0], rows[:, 1:]
 
 
-def _choose_sum(plan, model, m_id, l_id, points, step, vmin, avail, caps):
-    """(points, sum of stock volumes, the sums tried) for the default series: the most concentrated sum
-    whose every reading stays in the linear range over the guess's uncertainty — by assess's own screen —
-    with the given points, or (not given) the most points from 9 down to 5 for which one does; else the
-    least risky series, which the linear-range check then flags with what would work."""
+def _valid(S: np.ndarray, vm: np.ndarray, room: _Room) -> np.ndarray:
+    """Which series have distinct metal volumes on the grid, every volume at least the least, each within
+    its dispenser's capacity and the sum within the tube."""
+    vl = snap(S[:, None] - vm, room.step)
+    distinct = np.all(np.diff(vm, axis=1) > room.step / 2, axis=1)
+    return (
+        distinct
+        & (vm.min(axis=1) >= room.vmin - 1e-9)
+        & (vl.min(axis=1) >= room.vmin - 1e-9)
+        & (vm.max(axis=1) <= room.caps[0] + 1e-9)
+        & (vl.max(axis=1) <= room.caps[1] + 1e-9)
+        & (S <= room.avail + 1e-9)
+    )
+
+
+def _both_sides(x: np.ndarray, peaks: tuple[float, ...], need: int) -> np.ndarray:
+    """(B,) whether each series (B, n) of mole fractions has ``need`` tubes below and above every peak."""
+    p = np.asarray(peaks, dtype=float)
+    below = (x[..., None] < p - 1e-9).sum(axis=-2)
+    above = (x[..., None] > p + 1e-9).sum(axis=-2)
+    return np.all((below >= need) & (above >= need), axis=-1)
+
+
+def _volumes(plan, ids, S: np.ndarray, vm: np.ndarray, step: float):
+    """(B, n, k) volumes and (B, n) tube volumes of the candidate series."""
+    m_id, l_id = ids
+    return fill_volumes(plan, {m_id: vm, l_id: snap(S[:, None] - vm, step)})
+
+
+def _best(worst: np.ndarray, inside: np.ndarray, cand) -> tuple[int, str]:
+    """Of the series in range over the guess's uncertainty, the widest span of mole fractions (to 0.01),
+    then the largest total; else the least at risk (:func:`.common.pick`)."""
+    ok = worst <= RANGE_RISK + 1e-12
+    if not ok.any():
+        return pick(worst, inside)
+    S, vm = cand
+    order = np.lexsort((S, -np.round(vm[:, 0] / S, 2)))  # the last key sorts first
+    return int(order[ok[order]][-1]), "pass"
+
+
+def _choose_series(plan, model, ids, points, sums, room: _Room, total_M):
+    """(points, candidates, index, linear-range status) of the series to plan: with the points given, or
+    the most from 9 down to 5 for which a series stays in range over the guess's uncertainty (assess's own
+    screen); else the least at risk of them all (of those inside at the guess, if any), which the
+    linear-range check then flags with what would work."""
     ns = [int(points)] if points is not None else list(range(DEFAULT_POINTS, MIN_DEFAULT_POINTS - 1, -2))
     fallback = None
     for n in ns:
-        x = np.arange(1, n + 1) / (n + 1)
-        cand = _sums(x, step, vmin, avail, caps)
-        if cand.size == 0:
+        cand = _candidates(sums, n, room)
+        if cand[0].size == 0:
             continue
-        k, status = pick(*screen(plan, model, *_volumes(plan, m_id, l_id, x, cand, step)))
+        worst, inside = screen(plan, model, *_volumes(plan, ids, *cand, room.step))
+        k, status = _best(worst, inside, cand)
+        more = _candidates(grid_between(sums, float(cand[0][k]), room.step, status == "pass"), n, room)
+        if more[0].size:  # the grid between the screened sums next to the best
+            w2, i2 = screen(plan, model, *_volumes(plan, ids, *more, room.step))
+            cand = (np.concatenate([cand[0], more[0]]), np.concatenate([cand[1], more[1]]))
+            worst, inside = np.concatenate([worst, w2]), np.concatenate([inside, i2])
+            k, status = _best(worst, inside, cand)
         if status == "pass":
-            return n, float(cand[k]), cand
-        if fallback is None or (status == "warn" and fallback[3] == "fail"):
-            fallback = (n, float(cand[k]), cand, status)
-    if fallback is None:
-        n = ns[-1]
-        raise SeriesInfeasible(
-            "points",
-            f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube on the {step:g} mL "
-            f"grid above min_volume {vmin:g} mL within the dispensers' capacity: use fewer points, a "
-            f"smaller min_volume or a larger tube",
+            return n, cand, k, status
+        rank = (status != "warn", float(worst[k]))
+        if fallback is None or rank < fallback[0]:
+            fallback = (rank, (n, cand, k, status))
+    if fallback is not None:
+        return fallback[1]
+    n = ns[-1]
+    if total_M is not None:
+        raise PlanError(
+            "total_M",
+            f"at {fmt_conc(total_M)} ({float(sums[0]):g} mL of stock per tube) {n} mole fractions do not fit "
+            f"the {room.step:g} mL grid between the least volume {room.vmin:g} mL and the dispensers' "
+            f"capacity: change total_M or use fewer points",
         )
-    return fallback[:3]
+    raise SeriesInfeasible(
+        "points",
+        f"{n} mole fractions do not fit a {plan.glassware.tube_volume_mL:g} mL tube on the {room.step:g} mL "
+        f"grid above min_volume {room.vmin:g} mL within the dispensers' capacity: use fewer points, a "
+        f"smaller min_volume or a larger tube",
+    )
 
 
-def _range_fix(plan, model, ids, x, cand, grid, n) -> str:
-    """What would keep this series (n points, the sums ``cand``) in range: a cell, a dilution, fewer points.
-    ``grid`` is (step, vmin, avail, caps)."""
-    m_id, l_id = ids
-    step, vmin, avail, caps = grid
+def _span_note(vm: np.ndarray, S: float, n: int, room: _Room, status: str) -> list[str]:
+    """A note when the mole fractions do not run from the usual 1/(n + 1) to n/(n + 1), saying why."""
+    lo, usual = float(vm[0] / S), 1.0 / (n + 1)
+    if lo <= usual + 0.005:
+        return []
+    if room.vmin / S > usual + 1e-9:
+        why = f"at this total the usual end tubes would hold less than the least volume, {room.vmin:g} mL"
+    elif status == "pass":
+        why = "chosen so that every reading stays inside the linear range over the guess's range"
+    else:
+        why = "the least at risk of leaving the linear range on this grid"
+    return [f"mole fractions {lo:.2f}–{1 - lo:.2f} instead of the usual {usual:.2f}–{1 - usual:.2f}: {why}"]
+
+
+def _range_fix(plan, model, ids, cand, room: _Room, n: int) -> str:
+    """What would keep this series (n points, the candidates ``cand``) in range: a cell, a dilution of
+    both stocks, fewer points (a subset of the candidates keeps each what-if quick)."""
+    every = max(1, cand[0].size // WHAT_IF_SERIES)
+    few = (cand[0][::every], cand[1][::every])
 
     def fits(m, _scale: float) -> str:  # both stocks alike: the same volumes
-        return status_of(*screen(plan, m, *_volumes(plan, m_id, l_id, x, cand, step)))
+        return status_of(*screen(plan, m, *_volumes(plan, ids, *few, room.step)))
 
     text = what_would_fit(model, fits, "both stocks")
+    sums = np.unique(few[0])
     for k in range(n - 2, 2, -2):
-        xk = np.arange(1, k + 1) / (k + 1)
-        ck = _sums(xk, step, vmin, avail, caps)
-        if ck.size and pick(*screen(plan, model, *_volumes(plan, m_id, l_id, xk, ck, step)))[1] == "pass":
+        ck = _candidates(sums, k, room)
+        if ck[0].size and pick(*screen(plan, model, *_volumes(plan, ids, *ck, room.step)))[1] == "pass":
             return f"{text}; or {k} points instead of {n}"
     return text
 

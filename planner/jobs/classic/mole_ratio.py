@@ -22,7 +22,8 @@ through the two least-squares lines. The break is *resolvable* when
 
 Both the bias (through K·C) and the sd (through the signal) improve with the fixed concentration, so the
 concentration that makes the break resolvable is searched upward; readings leaving the linear range
-are reported with it.
+are reported with it. The tubes themselves — fixed volume and rising volumes that the glassware allows
+and that keep every reading in range — are chosen in :mod:`._ratio_tubes`.
 """
 
 from __future__ import annotations
@@ -36,39 +37,30 @@ from ._deps import (
     PlanError,
     assess_tubes,
     error_budget,
-    make_up_min_mL,
     plan_devices,
     plan_model,
     plural,
     predict,
     tube_ions_M,
 )
+from ._ratio_tubes import LINE_MARGIN as LINE_MARGIN  # the hand lines' sides, also for the class cards
+from ._ratio_tubes import Layout, line_sides, plan_tubes, room_of, top_ratio
 from .common import (
-    RANGE_RISK,
     ClassicSeries,
-    SeriesInfeasible,
-    capacity_mL,
     corrected,
     curve_points,
     fill_volumes,
     finish,
     fmt_conc,
     hypothetical,
-    pick,
     pure_stock,
     scaled_in_range,
-    screen,
     series_points,
     series_recipe,
-    snap,
-    status_of,
-    what_would_fit,
 )
 
 METHOD = "mole-ratio"
 DEFAULT_POINTS = 10
-RATIO_SPAN = 2.5  # the series runs to 2.5 × the highest complex ratio [common practice: well past the break]
-LINE_MARGIN = 0.25  # the hand lines use tubes at ≤ 0.75 and ≥ 1.25 × the expected ratio [common practice]
 BREAK_TOLERANCE = 0.10  # |bias| + 2 sd ≤ 10 % of the ratio: 1:1 is not mistaken for 2:3 or 3:2 [derived]
 SHARP_SHORTFALL = 0.10  # ≤ 10 % short of the corner: K·C ≥ ~100 for 1:1 [derived: shortfall ≈ 1/√(KC)]
 INVISIBLE_SD = 2.0  # a rounding under 2 reading sd is invisible in the data [common practice: 2-sd band]
@@ -90,10 +82,17 @@ def mole_ratio_series(
     Parameters
     ----------
     vary : the rising reagent, "L" (metal fixed, the usual way) or "M" (ligand fixed).
-    points : number of tubes (ratios max_ratio·i/points, i = 1 … points, on the volume grid).
+    points : number of tubes, their ratios evenly spaced from the lowest to the highest (on the grid).
     total_M : the fixed reagent's concentration in every tube (default: the largest whose readings stay in
-        the linear range).
-    max_ratio : the highest ratio varied/fixed (default: 2.5 × the highest ratio among the complexes).
+        the linear range over the guess's uncertainty).
+    max_ratio : the highest ratio varied/fixed (default: the one, up to 2.5 × the highest ratio among the
+        complexes, that keeps the readings in range with tubes on both sides of the break).
+
+    The lowest ratio is chosen too, from the smallest the minimum volume of the rising stock allows up to
+    (1 − LINE_MARGIN) × the complex's ratio: every combination is screened by assess's own linear-range
+    screen (:func:`.common.screen`), keeping ≥ 2 tubes on each side of the break for the hand lines; of
+    those in range, the most concentrated, then the one with the most tubes on its shorter line, then
+    the widest span.
     """
     if vary not in ("L", "M"):
         raise PlanError(
@@ -118,89 +117,36 @@ def mole_ratio_series(
     if n < 5:
         n_tubes = plural(n, "tube")
         raise PlanError("points", f"{n_tubes} cannot give two lines of at least two tubes: use 8–12")
-    if max_ratio is None:
-        # 2.5 × the richest complex's ratio, but low enough to leave two tubes before the break (with 5 %
-        # to spare for the rounding of volumes to the grid)
-        r_max = min(RATIO_SPAN * highest, 0.95 * (1 - LINE_MARGIN) * expected * n / 2)
-    else:
-        r_max = float(max_ratio)
-    if r_max <= expected * (1 + LINE_MARGIN):
-        raise PlanError(
-            "max_ratio",
-            f"{r_max:g} does not reach past the break at {expected:g}: use at least {2 * expected:g}",
-        )
-    g = plan.glassware
-    step, vmin, V = g.step_mL, max(g.min_volume_mL, g.step_mL), g.tube_volume_mL
-    r = r_max * np.arange(1, n + 1) / n
-    avail = (
-        V - make_up_min_mL(plan) - sum(v for k, v in plan.design.fixed.items() if k not in (fix_id, var_id))
-    )
-    if total_M is not None:
-        v_fix = float(snap(total_M * V / c_fix, step))
-        caps = (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
-        if not _valid(np.array([v_fix]), r, c_fix, c_var, step, vmin, avail, caps)[0]:
-            vv = snap(r * v_fix * c_fix / c_var, step)
-            raise PlanError(
-                "total",
-                f"{fmt_conc(total_M)} of {fix} is {v_fix:g} mL of {fix_id}; the {n} volumes "
-                f"of {var_id} up to ratio {r_max:g} would run {vv[0]:g}–{vv[-1]:g} mL, which must be "
-                f"distinct on the {step:g} mL grid, at least {vmin:g} mL, at most "
-                f"{min(caps[1], avail - v_fix):g} mL: "
-                f"choose another total, fewer points or another max_ratio",
-            )
-        cand = np.array([v_fix])
-    else:
-        v_fix, cand = _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n)
-    worst, _ = screen(plan, model, *_volumes(plan, fix_id, var_id, r, c_fix / c_var, np.array([v_fix]), step))
-    range_fix = ""
-    if not worst[0] <= RANGE_RISK + 1e-12:
-        caps = (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
-
-        def fits(m, scale: float) -> str:  # the rising stock diluted by ``scale``: its volumes change
-            c = _valid(cand_all, r, c_fix, c_var * scale, step, vmin, avail, caps)
-            if not c.any():
-                return "fail"
-            return status_of(
-                *screen(
-                    plan, m, *_volumes(plan, fix_id, var_id, r, c_fix / (c_var * scale), cand_all[c], step)
-                )
-            )
-
-        cand_all = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
-        range_fix = what_would_fit(model, fits, f"the {var_id} stock", comps=(vi,))
-    v_var = snap(r * v_fix * c_fix / c_var, step)
+    top, given = top_ratio(expected, highest, max_ratio)
+    layout = Layout(fix_id, var_id, c_fix, c_var, expected, n, top, given, room_of(plan, fix_id, var_id))
+    v_fix, v_var, range_fix, spread_note = plan_tubes(plan, model, layout, total_M, vi)
     recipe = series_recipe(plan, {fix_id: np.full(n, v_fix), var_id: v_var}, [f"R{i + 1}" for i in range(n)])
     a = assess_tubes(plan, recipe)
+    hand, curve, cov = _hand_analysis(plan, model, a, layout, v_fix, fi, vi)
     st = a.state
     ratio = st.totals_M[:, vi] / st.totals_M[:, fi]
     C = float(np.median(st.totals_M[:, fi]))
-    cov = a.budget.total
-    y = corrected(model, st)
-    sd = np.sqrt(np.diag(cov))
-    rf = np.linspace(0.0, r_max, CURVE_POINTS)
-    vol, tot = fill_volumes(plan, {fix_id: np.full(rf.size, v_fix), var_id: rf * v_fix * c_fix / c_var})
-    curve_totals = (vol @ model.stock_conc_M) / tot[:, None]
-    curve_ions = tube_ions_M(model, vol, tot)
-    yf = corrected(model, predict(model, curve_totals, curve_ions, warn=False))
-    hand = judge_break(ratio, y, cov, rf, yf, expected)
-
-    needed = None
+    rf, curve_totals, curve_ions, yf = curve
+    needed, lines_short = None, False
     if not hand["resolvable"]:
-        needed = _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions)
-    checks = [
-        _break_check(hand, expected, C, needed, model, fix),
-    ]
+        needed, lines_short = _conc_that_resolves(
+            plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions
+        )
+    checks = [_break_check(hand, expected, C, needed if needed else lines_short, model, (fix, var_id))]
     ions_t = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
     other = _other_complex_effect(
         model, j, fi, (st.totals_M, ions_t, ratio, cov), (rf, curve_totals, curve_ions)
     )
     if other is not None:
         checks.append(_other_check(other, hand, expected, target, fix))
+    y = corrected(model, st)
+    sd = np.sqrt(np.diag(cov))
     extra = {
         "fixed_reagent": fix,
         "varied_reagent": vary,
         "stocks": {"fixed": fix_id, "varied": var_id},
         "fixed_conc_M": C,
+        "ratio_span": [float(ratio.min()), float(ratio.max())],
         "break_ratio": hand["break_ratio"],
         "break_ratio_sd": hand["break_ratio_sd"],
         "break_ratio_expected": expected,
@@ -219,9 +165,12 @@ def mole_ratio_series(
         "curve": curve_points("ratio", rf, yf),
         "other_complexes": other,
     }
+    nb, na = int(hand["before"].sum()), int(hand["after"].sum())
     notes = [
-        f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {fix_id}); {vary} rising to {r_max:g}× "
-        f"({v_var.min():g}–{v_var.max():g} mL {var_id})",
+        f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {fix_id}); {vary} rising from {ratio.min():.3g}× to "
+        f"{ratio.max():.3g}× ({v_var.min():g}–{v_var.max():g} mL {var_id}): {plural(nb, 'tube')} for the "
+        f"line before the break, {na} after",
+        *spread_note,
         f"two-line break at {vary}/{fix} = {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} "
         f"(expected {expected:g} for {target}); the curve falls {hand['shortfall_fraction']:.1%} "
         f"({hand['shortfall_sd']:.1f} sd) short of the asymptotes' corner there",
@@ -237,6 +186,25 @@ def mole_ratio_series(
     return finish(
         METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=range_fix
     )
+
+
+def _hand_analysis(plan, model, a, layout: Layout, v_fix: float, fi: int, vi: int):
+    """The hand two-line analysis of the planned tubes, the noise-free curve between them (ratios,
+    totals, ions, corrected absorbance) and the readings' covariance."""
+    st = a.state
+    ratio = st.totals_M[:, vi] / st.totals_M[:, fi]
+    cov = a.budget.total
+    y = corrected(model, st)
+    # the curve over the usual span whatever the tubes cover: its sharpness is the chemistry's (K·C)
+    rf = np.linspace(0.0, max(layout.top, float(ratio.max())), CURVE_POINTS)
+    vol, tot = fill_volumes(
+        plan, {layout.fix_id: np.full(rf.size, v_fix), layout.var_id: rf * v_fix * layout.per_ratio}
+    )
+    curve_totals = (vol @ model.stock_conc_M) / tot[:, None]
+    curve_ions = tube_ions_M(model, vol, tot)
+    yf = corrected(model, predict(model, curve_totals, curve_ions, warn=False))
+    hand = judge_break(ratio, y, cov, rf, yf, layout.expected)
+    return hand, (rf, curve_totals, curve_ions, yf), cov
 
 
 def _other_complex_effect(model, j, fi, tubes, curve) -> dict | None:
@@ -303,8 +271,7 @@ def two_line_break(ratio: np.ndarray, y: np.ndarray, cov: np.ndarray, expected: 
     """Intersection of the least-squares lines through the tubes before (≤ (1 − margin)·expected) and
     after (≥ (1 + margin)·expected) the expected break, its sd by linear propagation of ``cov`` and
     whether |bias| + 2 sd ≤ BREAK_TOLERANCE·expected."""
-    before = ratio <= expected * (1 - LINE_MARGIN) + 1e-12
-    after = ratio >= expected * (1 + LINE_MARGIN) - 1e-12
+    before, after = line_sides(ratio, expected)
     out = {
         "before": before,
         "after": after,
@@ -361,55 +328,14 @@ def _shortfall(rf, yf, expected, sd) -> tuple[float, float]:
     return float(gap / abs(corner)) if corner else float("nan"), float(gap / sd) if sd > 0 else float("nan")
 
 
-def _valid(v_fix: np.ndarray, r, c_fix, c_var, step, vmin, avail, caps=(np.inf, np.inf)) -> np.ndarray:
-    """Which fixed volumes give distinct rising volumes on the grid, above min_volume, inside the tube and
-    within each dispenser's capacity."""
-    vv = snap(r[None, :] * (v_fix[:, None] * c_fix / c_var), step)
-    distinct = np.all(np.diff(vv, axis=1) > step / 2, axis=1)
-    return (
-        distinct
-        & (vv[:, 0] >= vmin - 1e-9)
-        & (v_fix + vv[:, -1] <= avail + 1e-9)
-        & (v_fix >= vmin - 1e-9)
-        & (v_fix <= caps[0] + 1e-9)
-        & (vv[:, -1] <= caps[1] + 1e-9)
-    )
-
-
-def _volumes(plan, fix_id, var_id, r, ratio_c, v_fix, step):
-    """(B, n, k) volumes and (B, n) tube volumes of the series at each fixed volume ``v_fix`` (B,)."""
-    vv = snap(v_fix[:, None] * r[None, :] * ratio_c, step)
-    return fill_volumes(plan, {fix_id: np.broadcast_to(v_fix[:, None], vv.shape), var_id: vv})
-
-
-def _default_fixed(plan, model, fix_id, var_id, r, c_fix, c_var, step, vmin, avail, n):
-    """(fixed volume, the volumes tried): the largest fixed volume whose series fits the tube and keeps
-    every reading in the linear range over the guess's uncertainty (assess's own screen); else the
-    least risky one, which the linear-range check flags with what would work."""
-    cand = snap(np.arange(1, int(np.floor(avail / step + 1e-9)) + 1) * step, step)
-    cand = cand[
-        _valid(
-            cand, r, c_fix, c_var, step, vmin, avail, (capacity_mL(plan, fix_id), capacity_mL(plan, var_id))
-        )
-    ]
-    if cand.size == 0:
-        raise SeriesInfeasible(
-            "points",
-            f"{n} rising volumes of {var_id} do not fit a {plan.glassware.tube_volume_mL:g} mL tube on "
-            f"the {step:g} mL grid above min_volume {vmin:g} mL beside the fixed {fix_id}: use fewer "
-            f"points, a lower max_ratio, or a {var_id} stock nearer {fmt_conc(c_fix)} (the fixed stock's "
-            f"concentration) so that its volumes are on the grid",
-        )
-    k, _ = pick(*screen(plan, model, *_volumes(plan, fix_id, var_id, r, c_fix / c_var, cand, step)))
-    return float(cand[k]), cand
-
-
 def _conc_that_resolves(
     plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions
-) -> tuple[float, float] | None:
+) -> tuple[tuple[float, float] | None, bool]:
     """Smallest scale of both stocks (same volumes) at which the break is resolvable, with the path that
-    keeps the readings in range: (fixed concentration, path_cm), or None up to 1000×."""
+    keeps the readings in range: ((fixed concentration, path_cm) or None up to 1000×, whether the curve
+    is sharp at the largest scale tried — if so, the tubes on the lines, not the chemistry, fall short)."""
     devices = plan_devices(plan)
+    sharp = False
     for s in SEARCH_SCALES:
         ms, st = scaled_in_range(model, recipe, float(s))
         cov = error_budget(plan, ms, recipe, st, devices).total
@@ -418,17 +344,21 @@ def _conc_that_resolves(
         tot = st.totals_M
         hand = judge_break(tot[:, vi] / tot[:, fi], corrected(ms, st), cov, rf, yf, expected)
         if hand["resolvable"]:
-            return float(s) * C, float(ms.path_cm)
-    return None
+            return (float(s) * C, float(ms.path_cm)), True
+        sharp = hand["sharp"]
+    return None, sharp
 
 
 def _num(x) -> str:
     return "—" if x is None or not np.isfinite(x) else f"{x:.3g}"
 
 
-def _break_check(hand, expected, C, needed, model, fix) -> Check:
+def _break_check(hand, expected, C, needed, model, ids) -> Check:
+    """The break's verdict. ``needed`` is the (concentration, path) that would resolve it, or — none
+    found — whether the curve was sharp at the largest concentration tried (then the lines fall short)."""
     if "why" in hand:
         return Check("break", "fail", hand["why"])
+    fix, var_id = ids
     msg = (
         f"two-line break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} against the "
         f"expected {expected:g} (bias {hand['bias']:+.3f}); the curve falls {hand['shortfall_fraction']:.1%} "
@@ -442,22 +372,28 @@ def _break_check(hand, expected, C, needed, model, fix) -> Check:
     if hand["resolvable"]:
         return Check("break", "pass", msg + f": resolvable within {BREAK_TOLERANCE:.0%}")
     msg += f": not resolvable within {BREAK_TOLERANCE:.0%} at {fix} = {fmt_conc(C)}"
-    others = [n for n, m in zip(model.species, model.complex_mask, strict=True) if m][1:]
-    if needed is None and len(others):
-        names = ", ".join(n for n, m in zip(model.species, model.complex_mask, strict=True) if m)
-        msg += (
-            f"; no concentration up to 1000× does it — with {names} all forming, the lines need not meet at "
-            f"{expected:g}: fit all complexes globally (kplan design) instead"
-        )
-    elif needed is None:
-        msg += (
-            "; no concentration up to 1000× does it — the complex is too weak for a break: fit all tubes "
-            "globally (kplan design) instead"
-        )
-    else:
+    names = [n for n, m in zip(model.species, model.complex_mask, strict=True) if m]
+    if isinstance(needed, tuple):
         c, path = needed
         msg += f"; {fmt_conc(c)} would"
         if path < model.path_cm * 0.999:
             msg += f" (in a {path:.2g} cm cell, to keep the readings in the linear range)"
-        msg += " — or fit all tubes globally"
+        return Check("break", "fail", msg + " — or fit all tubes globally")
+    if len(names) > 1:
+        msg += (
+            f"; no concentration up to 1000× does it — with {', '.join(names)} all forming, the lines need "
+            f"not meet at {expected:g}: fit all complexes globally (kplan design) instead"
+        )
+    elif needed:  # sharp at the largest concentration, yet not resolved: too few tubes on the lines
+        nb, na = int(hand["before"].sum()), int(hand["after"].sum())
+        msg += (
+            f"; no concentration up to 1000× does it with {nb} tubes on the line before the break and {na} "
+            f"after — more tubes on the lines would (a more dilute {var_id} stock lets the series start at "
+            f"a lower ratio), or fit all tubes globally (kplan design) instead"
+        )
+    else:
+        msg += (
+            "; no concentration up to 1000× does it — the complex is too weak for a break: fit all tubes "
+            "globally (kplan design) instead"
+        )
     return Check("break", "fail", msg)

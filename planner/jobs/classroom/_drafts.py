@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ...inference.study import Study
+from ...inputs.text import plural
 from ._grid import Grid, set_key
 from ._select import card_information, sequential_selection
 from ._series import TIERS, Series, teaching_candidates
@@ -59,7 +60,7 @@ def teaching_drafts(study: Study, grid: Grid, n: int, N: int, kind: str, rng: np
     if unplaced:
         notes.append(
             f"only {len(cards)} distinct {kind} cards fit the glassware and the linear range: "
-            f"{len(unplaced)} student(s) repeat a card and are marked as failing; give each student "
+            f"{plural(len(unplaced), 'student')} repeat a card and are marked as failing; give each student "
             f"fewer tubes, or make the cards for the pooled fit alone"
         )
         for s in sorted(unplaced):

@@ -24,6 +24,7 @@ import numpy as np
 
 from ...inference import exchange
 from ...inference.approximate import ApproximateDesign
+from ...inputs.text import plural
 from ._drafts import Drafts
 from ._grid import Grid, set_key
 from ._pooled import student_target_var
@@ -92,7 +93,7 @@ def pooled_drafts(grid: Grid, ap: ApproximateDesign, n: int, N: int, goal: float
     unplaced = {int(s) for s in pending}
     if unplaced:
         notes.append(
-            f"{len(unplaced)} student(s) got no distinct recipe meeting goal_se within ±{MAX_RADIUS} "
+            f"{plural(len(unplaced), 'student')} got no distinct recipe meeting goal_se within ±{MAX_RADIUS} "
             f"grid steps: their cards repeat the pooled allocation and are marked as failing"
         )
         for s in unplaced:

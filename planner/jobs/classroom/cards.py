@@ -259,7 +259,7 @@ def class_set_study(
     cards, rescued = _assess_cards(study, grid, roster, drafts, recipes, progress)
     notes = list(drafts.notes)
     if rescued:
-        notes.append(f"{rescued} card(s) failed a check of the assessment and were drawn again")
+        notes.append(f"{plural(rescued, 'card')} failed a check of the assessment and were drawn again")
     even = even_series_for(study, n)
     se = _pooled_ses(study, cards, best, even, roster)
     notes = _class_notes(study, grid, se, n, notes)
@@ -368,7 +368,8 @@ def _class_notes(study: Study, grid: Grid, se: dict, n: int, notes: list[str]) -
         notes.insert(
             0,
             f"even the best recipe of {plural(n, 'tube')} gives SE {se['best_single']:.3g} > goal "
-            f"{goal:g}: no card can pass; give each student more tubes (--tubes) or relax design.goal_se",
+            f"{goal:g}: no card can pass; give each student more tubes (the tubes parameter) or relax "
+            "design.goal_se",
         )
     if grid.step_mL != study.bench.step_mL:
         notes.append(

@@ -19,6 +19,7 @@ printed, by the design's own assessment.
 from __future__ import annotations
 
 import functools
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -138,7 +139,6 @@ def guard(
     """Search the candidates ``idx`` of ``cand`` for a design that reveals the alternatives within the
     plan's SE cost, starting from the target-optimal ``counts``, and decide whether it replaces it."""
     model, params = study.model, study.params
-    cap = 1.0 + study.check_weight
     sub = Candidates(cand.recipe.take(idx), cand.designed_ids, idx.size, cand.step_mL)
     # tubes measured before count towards precision (their misfit is not tracked)
     F, M0, _, _, sd = rows_with_prior(
@@ -151,20 +151,60 @@ def guard(
     tot = totals_M(rec, model.stock_conc_M)
     ions = tube_ions_M(model, rec.volumes_mL, rec.total_volume_mL)
     R = np.stack([misfit_rows(model, params, alt, tot, ions, sd) for _, alt in study.alternatives])
+    return decide(
+        study,
+        (F, R, M0),
+        params.target,
+        counts,
+        target_recipe,
+        int(counts.sum()) - params.size,
+        to_recipe=lambda c: recipe_from_counts(study, cand, idx, c),
+        se_of=lambda r: _se(study, r),
+        exact_of=lambda r: _exact(study, r),
+        advise=lambda exact, best, cost, cap, n: what_would_reveal(study, exact, best, cost, cap, tot, n),
+    )
+
+
+def decide(
+    study: Study,
+    rows: tuple[np.ndarray, np.ndarray, np.ndarray | None],
+    target: int,
+    counts: np.ndarray,
+    target_recipe: Recipe,
+    dof: int,
+    *,
+    to_recipe: Callable[[np.ndarray], Recipe],
+    se_of: Callable[[Recipe], float],
+    exact_of: Callable[[Recipe], tuple[Detection, ...]],
+    advise: Callable[..., tuple[str, ...]],
+    power_of: Callable[[float], float] | None = None,
+) -> GuardOutcome:
+    """The guard's search and decision on given rows — (F, R, M0) of
+    :func:`planner.inference.guard.guarded_design` on the candidates, ``target`` the index of the target
+    parameter among their columns — shared by one wavelength and whole spectra.
+
+    ``dof`` of the χ² test (for the linearised powers), ``to_recipe`` turns tube counts into a recipe,
+    ``se_of`` gives its target SE, ``exact_of`` its noise-free detection of every alternative,
+    ``advise(exact, best_power, best_cost, cap, n)`` what would reveal the alternatives the chosen design
+    cannot, ``power_of(λ)`` the power at the linearised λ (default: the noncentral χ² on ``dof``)."""
+    F, R, M0 = rows
+    cap = 1.0 + study.check_weight
     n = int(counts.sum())
-    dof = n - params.size
     lam_cap = noncentrality_for_power(POWER_SATURATED, dof)
-    free = guarded_design(F, R, M0, params.target, counts, np.inf, lam_cap=lam_cap)
-    best_power = tuple(float(power_from_noncentrality(lam, dof)) for lam in free.noncentrality)
-    se_t = _se(study, target_recipe)
-    exact_t = _exact(study, target_recipe)
+    free = guarded_design(F, R, M0, target, counts, np.inf, lam_cap=lam_cap)
+    if power_of is None:
+        best_power = tuple(float(power_from_noncentrality(lam, dof)) for lam in free.noncentrality)
+    else:
+        best_power = tuple(power_of(lam) for lam in free.noncentrality)
+    se_t = se_of(target_recipe)
+    exact_t = exact_of(target_recipe)
 
     def search(rows):
-        g = guarded_design(F, R[rows], M0, params.target, counts, cap, lam_cap=lam_cap)
+        g = guarded_design(F, R[rows], M0, target, counts, cap, lam_cap=lam_cap)
         if not g.moves:
             return None
-        rec_g = recipe_from_counts(study, cand, idx, g.counts)
-        return rec_g, _se(study, rec_g), _exact(study, rec_g), tubes_moved(g.counts, counts)
+        rec_g = to_recipe(g.counts)
+        return rec_g, se_of(rec_g), exact_of(rec_g), tubes_moved(g.counts, counts)
 
     found = search(np.arange(len(study.alternatives)))
     if found is not None:
@@ -184,7 +224,7 @@ def guard(
     reason = _reason(study, replaced, guarded, pays, within, exact_g, exact_t, se_g / se_t, cap, moved, n)
     chosen = guarded if replaced and guarded is not None else target_recipe
     weak_exact = exact_g if replaced else exact_t
-    advice = _advice(study, weak_exact, best_power, free.cost, cap, tot, n)
+    advice = advise(weak_exact, best_power, free.cost, cap, n)
     return GuardOutcome(
         chosen,
         target_recipe,
@@ -281,6 +321,9 @@ def _reason(study, replaced, guarded, pays, within, exact_g, exact_t, cost, cap,
             f"the target-only design stands: the best guarded design would cost ×{cost:.3g} in "
             f"SE(log β[{t}]), more than the ×{cap:.3g} the plan allows (design.check_weight)"
         )
+    if all(t_.power_noise_free >= POWER_GOAL for t_ in exact_t):
+        said = ", ".join(f"{t_.alternative} ({t_.power_noise_free:.0%})" for t_ in exact_t)
+        return f"the target-only design stands: it already reveals {said}"
     return (
         f"the target-only design stands: within ×{cap:.3g} in SE(log β[{t}]) the best guarded design would "
         f"raise the power to reveal {gains} — less than {MARGIN * 100:.0f} points more and short of the "
@@ -288,10 +331,25 @@ def _reason(study, replaced, guarded, pays, within, exact_g, exact_t, cost, cap,
     )
 
 
-def _advice(study: Study, exact, best_power, best_cost, cap, tot, n) -> tuple[str, ...]:
+def what_would_reveal(
+    study: Study,
+    exact,
+    best_power,
+    best_cost,
+    cap,
+    tot,
+    n,
+    *,
+    dof: int | None = None,
+    other_ways: Callable[[int, str], list[str]] | None = None,
+) -> tuple[str, ...]:
     """For each alternative the chosen design cannot reveal: can any design on these candidates, and if
-    not, what would (from the alternative's stoichiometry against the target's and its absorptivity)."""
+    not, what would (from the alternative's stoichiometry against the target's and its absorptivity).
+
+    ``dof`` of the χ² test (default: tubes − fitted parameters); ``other_ways(k, name)`` replaces the
+    absorptivity rule (another wavelength) by other advice for alternative k (whole spectra)."""
     model, params = study.model, study.params
+    dof = n - params.size if dof is None else dof
     j = model.index(study.target)
     pt, qt = int(model.stoich[j, 0]), int(model.stoich[j, 1])
     eps_t = float(model.epsilon_M_cm[2 + j]) / max(pt, 1)
@@ -303,7 +361,7 @@ def _advice(study: Study, exact, best_power, best_cost, cap, tot, n) -> tuple[st
         p = d.power_noise_free
         if np.isfinite(p) and p >= POWER_GOAL:
             continue
-        if n - params.size < 1:
+        if dof < 1:
             out.append(
                 f"{name}: {plural(n, 'tube')} for {params.size} fitted parameters leave no degree of "
                 f"freedom for a χ² test — add tubes"
@@ -329,7 +387,9 @@ def _advice(study: Study, exact, best_power, best_cost, cap, tot, n) -> tuple[st
             free = f"; design.fixed holds {', '.join(fixed)}: let it vary" if fixed else ""
             ways.append(f"the metal in excess{low}{free}")
         eps_a = float(alt.epsilon_M_cm[2 + a_]) / max(pa, 1)
-        if abs(eps_a - eps_t) <= SAME_EPSILON * max(abs(eps_t), 1e-300):
+        if other_ways is not None:
+            ways.extend(other_ways(k, name))
+        elif abs(eps_a - eps_t) <= SAME_EPSILON * max(abs(eps_t), 1e-300):
             ways.append(f"another wavelength, where {name} and {study.target} absorb differently per metal")
         out.append(
             f"{name}: no design of {plural(n, 'tube')} on these candidates reveals it (at best {best:.0%} of "

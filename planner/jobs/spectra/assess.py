@@ -34,6 +34,8 @@ from ..plan.assess import (
     stock_and_glassware_checks,
     with_failed_checks,
 )
+from ..plan.detection import ASSESS_FIX, POWER_TRIALS
+from .detection import spectra_detection, spectra_model_check
 from .facts import FactorOutlook, spectra_facts
 from .precision import (
     spectra_cramer_rao,
@@ -56,9 +58,16 @@ def assess_spectra(
     at: Mapping[str, float] | None = None,
     profile_chi2: bool = True,
     factors: bool = True,
+    model_check: bool = True,
+    detection_trials: int | None = None,
+    model_check_fix: str | None = None,
     progress: Callable[[int, int], None] | None = None,
 ) -> Assessment:
-    """Judge ``recipe`` read at every wavelength of the plan's window (see the module docstring)."""
+    """Judge ``recipe`` read at every wavelength of the plan's window (see the module docstring).
+
+    ``model_check`` adds the model check with whole spectra (:mod:`.detection`) when the plan has
+    alternatives: ``detection_trials`` simulated experiments per alternative (default min(trials, 400)),
+    ``model_check_fix`` what its check advises."""
     model = study.model
     sm = spectra_model(study, recipe)
     params = sm.params
@@ -85,6 +94,20 @@ def assess_spectra(
     if factors:
         fa = factor_check(study, recipe, sm, ex, lb_true, np.random.default_rng(seed + 2))
         checks.append(fa[0])
+    det: tuple = ()
+    if model_check and cr is not None and study.alternatives and params.target >= 0:
+        n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
+        det = spectra_detection(
+            study,
+            recipe,
+            sm,
+            ex,
+            np.random.default_rng(seed + 1),
+            n_det,
+            above=expected_factors(sm, ex)[1],
+            eligible=single.eligible,
+        )
+        checks.append(spectra_model_check(det, model_check_fix or ASSESS_FIX))
     verdict, reason = with_failed_checks(*precision_verdict(study, params, cr, mc, prof, True), checks)
     checks.sort(key=lambda c: -STATUSES.index(c.status))
     return Assessment(
@@ -103,6 +126,7 @@ def assess_spectra(
         reason,
         study.goal_se,
         study=study,
+        detection=det or None,
         spectra=spectra_facts(sm, ex, cr, single, fa[1] if fa else None),
     )
 

@@ -25,69 +25,20 @@ import numpy as np
 
 from ...inference import approximate, exchange
 from ...inference.design_criteria import CRITERIA, DesignError
-from ...inference.precision import pack
 from ...inference.study import Study
-from ...inputs.recipe import Recipe
-from ...model.jacobians import concentration_derivatives
-from ...model.spectra import spectra_readings
-from ...uncertainty.spectra_budget import totals_errors
-from ..compile import expected_at
 from ..plan import checks as chk
 from ..plan.candidates import Candidates, candidate_tubes, neighbourhood, recipe_from_counts
 from ..plan.design import Design, se_across_guess
+from ..plan.detection import DESIGN_FIX, POWER_TRIALS
 from ..plan.even import even_series_for
+from ..plan.model_check import finish_check
 from .assess import assess_spectra
-from .precision import spectra_cramer_rao
-from .reading import expected, spectra_model, spectral_parameters
+from .model_check import spectra_guard
+from .precision import target_se_spectra
+from .reading import spectral_parameters
+from .rows import concentration_rows
 
 MAX_SPECTRA_CANDIDATES = 6000  # above this the grid is searched coarsely first, then refined locally
-
-
-def concentration_rows(study: Study, cand: Candidates, theta: np.ndarray, criterion: str):
-    """Whitened concentration-space rows F (G, C, s_all, P') of every candidate at every node θ (G, P),
-    the prior M0 (P', P') of the shared nuisance factors, and each candidate's highest reading (G, C)
-    with its spread from the spectra's uncertainty (see the module docstring)."""
-    model, spectra = study.model, study.spectra
-    params = spectral_parameters(study)
-    rec = cand.recipe
-    G = theta.shape[0]
-    st, _ = expected_at(model, params, rec, theta)
-    cd = concentration_derivatives(model, st)
-    ab = np.flatnonzero(spectra.absorbing)
-    free = np.flatnonzero(spectra.free[ab])
-    conc = st.absorber_conc_M()
-    rd = spectra_readings(spectra, conc, model.path_cm)
-    used = rd.absorbance <= model.linear_range[1]
-    E = model.path_cm * spectra.epsilon_M_cm[:, ab]  # (W, a)
-    Gam = np.einsum("wa,gcw,wb->gcab", E, used / rd.linear_sd**2, E)
-    c = conc[..., ab]  # (G, C, a)
-    H = cd.dc_dtotals[..., ab, :]  # (G, C, a, 2)
-    errs = totals_errors(study.bench, model, rec)
-    V = np.linalg.pinv(Gam, hermitian=True) + np.einsum("gcai,cij,gcbj->gcab", H, errs.random_cov, H)
-    a, s = ab.size, free.size
-    Jth = cd.dc_dlog_beta[..., ab, :][..., params.index]  # (G, C, a, P)
-    Jn = np.einsum("xy,gcb->gcxby", np.eye(a), c[..., free]).reshape(G, c.shape[1], a, s * a)
-    Jsh = np.einsum("gcai,ciq->gcaq", H, errs.shared)
-    keep = (
-        np.any(errs.shared != 0, axis=(0, 1))
-        if criterion == "target"
-        else np.zeros(errs.shared.shape[-1], bool)
-    )
-    J = np.concatenate([Jth, Jn, Jsh[..., keep]], axis=-1)
-    w, U = np.linalg.eigh(V)
-    inv_sqrt = np.einsum("gcij,gcj,gckj->gcik", U, 1.0 / np.sqrt(np.maximum(w, 1e-300)), U)
-    F = inv_sqrt @ J
-    M0 = None
-    if keep.any():
-        M0 = np.zeros((F.shape[-1],) * 2)
-        M0[-int(keep.sum()) :, -int(keep.sum()) :] = np.eye(int(keep.sum()))
-    spread = model.path_cm * np.sqrt(
-        np.einsum("gca,wa->gcw", conc**2, (spectra.epsilon_M_cm * spectra.epsilon_rsd) ** 2)
-    )
-    k = np.argmax(rd.absorbance + 2 * spread, axis=-1)
-    top = np.take_along_axis(rd.absorbance, k[..., None], -1)[..., 0]
-    band = np.take_along_axis(spread, k[..., None], -1)[..., 0]
-    return F, M0, top, band
 
 
 def design_spectra(
@@ -98,8 +49,12 @@ def design_spectra(
     robust: bool | None = None,
     seed: int = 0,
     starts: int = 8,
+    check_model: bool | None = None,
 ) -> Design:
-    """Choose each tube's volumes to resolve the target from whole spectra (see the module docstring)."""
+    """Choose each tube's volumes to resolve the target from whole spectra (see the module docstring).
+
+    ``check_model`` guards against the plan's alternative models (default: the plan's ``design.check``;
+    :mod:`.model_check`); False gives the target-optimal design alone."""
     n = int(tubes or study.tubes)
     crit = criterion or study.criterion
     if crit not in CRITERIA:
@@ -125,18 +80,31 @@ def design_spectra(
     ex, ap, rec, idx = _exact(study, cand, nodes, crit, n, seed, starts)
     n_grid, n_feas = cand.n_grid, idx.size
     if factor > 1:
-        fine = neighbourhood(study, cand, idx[np.flatnonzero(ex.counts)], factor, None)
-        ex, ap, rec, idx = _exact(study, fine, nodes, crit, n, seed, starts)
-        n_grid, n_feas = fine.n_grid, idx.size
+        cand = neighbourhood(study, cand, idx[np.flatnonzero(ex.counts)], factor, None)
+        ex, ap, rec, idx = _exact(study, cand, nodes, crit, n, seed, starts)
+        n_grid, n_feas = cand.n_grid, idx.size
     notes.append(
         "the search weighs candidates by their concentration-space information (exact when every tube's "
         "noise has the same shape over the window); every SE shown is the exact whole-spectrum bound"
     )
-    a = assess_spectra(study, rec, trials=0, profile_chi2=False, factors=True)
+    use_check = study.check_weight > 0 if check_model is None else bool(check_model)
+    outcome = None
+    if use_check and study.alternatives and crit == "target":
+        outcome = spectra_guard(study, cand, idx, ex.counts, rec)
+        rec = outcome.recipe
+    a = assess_spectra(
+        study,
+        rec,
+        trials=0,
+        profile_chi2=False,
+        factors=True,
+        detection_trials=POWER_TRIALS if outcome is not None else 0,
+        model_check_fix=DESIGN_FIX if outcome is not None else None,
+    )
     even = even_series_for(study, n)
-    se_d = _se(study, rec)
-    se_e = _se(study, even)
-    across = se_across_guess(study, rec, even, se=_se)
+    se_d = target_se_spectra(study, rec)
+    se_e = target_se_spectra(study, even)
+    across = se_across_guess(study, rec, even, se=target_se_spectra)
     eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
     a = replace(
         a,
@@ -162,7 +130,7 @@ def design_spectra(
         study.target,
         tuple(notes),
         a,
-        None,
+        finish_check(study, outcome, a.detection) if outcome is not None else None,
         verdict=a.verdict,
         verdict_reason=a.verdict_reason,
     )
@@ -210,13 +178,3 @@ def _exact(study: Study, cand: Candidates, nodes, crit: str, n: int, seed: int, 
         ) from None
     rec = recipe_from_counts(study, cand, idx, ex.counts)
     return ex, ap, rec, idx
-
-
-def _se(study: Study, recipe: Recipe, log_beta: np.ndarray | None = None) -> float:
-    """Exact whole-spectrum Cramér–Rao SE of the target for ``recipe`` (at other true constants)."""
-    sm = spectra_model(study, recipe)
-    lb = study.model.log_beta if log_beta is None else log_beta
-    ex = expected(study, recipe, sm, lb)
-    cr = spectra_cramer_rao(sm, ex.weights, pack(study.model, sm.params, log_beta=lb))
-    t = sm.params.target
-    return float(cr.se[t]) if t >= 0 else float("nan")

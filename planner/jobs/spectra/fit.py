@@ -127,7 +127,7 @@ def _select(study: Study, readings: SpectraReadings, exclude) -> tuple[np.ndarra
     why = []
     for label in exclude:
         if label not in readings.tubes:
-            raise RecipeError(f"--exclude {label}", f"no tube '{label}' in the readings")
+            raise RecipeError(f"exclude {label}", f"no tube '{label}' in the readings")
         keep[readings.tubes.index(label)] = False
         why.append((label, "excluded by request"))
     w = study.spectra.wavelength_nm

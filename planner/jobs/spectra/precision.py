@@ -26,14 +26,16 @@ from ...inference.precision import (
     Profile,
     cramer_rao,
     limit_ends,
+    pack,
     unpack,
 )
 from ...inference.simulate import simulate
+from ...inference.study import Study
 from ...inference.varpro import SeparableProblem, Weights
 from ...inputs.recipe import Recipe
 from ...model.spectra import linearise, spectra_readings
 from ...uncertainty.bench import Bench
-from .reading import SpectraModel
+from .reading import SpectraModel, expected, spectra_model
 
 MC_CHUNK = 250  # simulated experiments fitted at once (memory: ~ chunk × n × W × (r + 2 s) floats)
 
@@ -188,3 +190,13 @@ class _Reading:
     @property
     def totals_M(self):
         return self.sm.totals_M
+
+
+def target_se_spectra(study: Study, recipe: Recipe, log_beta: np.ndarray | None = None) -> float:
+    """Exact whole-spectrum Cramér–Rao SE of the target for ``recipe`` (at other true constants)."""
+    sm = spectra_model(study, recipe)
+    lb = study.model.log_beta if log_beta is None else log_beta
+    ex = expected(study, recipe, sm, lb)
+    cr = spectra_cramer_rao(sm, ex.weights, pack(study.model, sm.params, log_beta=lb))
+    t = sm.params.target
+    return float(cr.se[t]) if t >= 0 else float("nan")

@@ -37,9 +37,9 @@ class SingleWavelengths:
         return float(self.se[self.best]) if self.best >= 0 else float("nan")
 
 
-def single_wavelengths(sm: SpectraModel, ex: Expected, theta: np.ndarray) -> SingleWavelengths:
-    """SE of the target from every wavelength on its own, vectorised over wavelengths."""
-    t = sm.params.target
+def wavelength_rows(sm: SpectraModel, ex: Expected, theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """At every wavelength on its own: the Jacobian J (W, n, P + s) of its readings in the free constants
+    and the ε of each fitted spectrum there, and the readings' covariance (W, n, n) at that wavelength."""
     C, dC, K, dK = sm.basis(np.atleast_2d(theta))
     E = sm.true_spectra()
     dA = dK[0] + np.einsum("nsp,sw->nwp", dC[0], E)  # (n, W, P)
@@ -49,6 +49,13 @@ def single_wavelengths(sm: SpectraModel, ex: Expected, theta: np.ndarray) -> Sin
     S = np.swapaxes(b.factors(), 0, 1)  # (W, n, r)
     n = J.shape[1]
     cov = np.einsum("wn,nm->wnm", b.photometric_var.T, np.eye(n)) + S @ np.swapaxes(S, 1, 2)
+    return J, cov
+
+
+def single_wavelengths(sm: SpectraModel, ex: Expected, theta: np.ndarray) -> SingleWavelengths:
+    """SE of the target from every wavelength on its own, vectorised over wavelengths."""
+    t = sm.params.target
+    J, cov = wavelength_rows(sm, ex, theta)
     F = np.swapaxes(J, 1, 2) @ np.linalg.solve(cov, J)
     se = np.full(J.shape[0], np.inf)
     if t >= 0:

@@ -498,6 +498,34 @@ def test_job_total_offered_does_separate():
     assert all(d["separation_sd"] >= rv.SEPARATION_WANTED for d in again["discrimination"] if not d["nested"])
 
 
+def test_library_errors_name_parameters_and_the_command_its_options(tmp_path, capsys, monkeypatch):
+    # issue 23: below the command line a message names the parameter the caller passed (total_M, not
+    # --total); kplan series writes it as its option
+    from planner.inputs.plan import PlanError
+
+    text = PLAN.format(
+        species=species(("ML", 1, 1, 6.0, 0.3)), epsilon="ML = { value = 1000.0 }", cM="2.0 mM", cL="2.0 mM"
+    )
+    plan = parse_plan_text(text)
+    for method, kw, key in (
+        ("job", {"total_M": 0.05}, "total_M"),
+        ("calibration", {"excess_M": 5.0}, "excess_M"),
+        ("calibration", {"total_M": 1.0}, "total_M"),
+        ("mole-ratio", {"max_ratio": 1.1}, "max_ratio"),
+        ("mole-ratio", {"vary": "X"}, "vary"),
+    ):
+        with pytest.raises(PlanError) as info:
+            run_series(plan, method, **kw)
+        assert info.value.key == key and "--" not in str(info.value), str(info.value)
+    path = tmp_path / "p.toml"
+    write_atomic(path, text)
+    code, _, err = run(capsys, monkeypatch, "series", path, "--method", "job", "--total", "50 mM")
+    assert code == 2 and err.startswith("error: --total:") and "lower --total or" in err
+    assert "total_M" not in err
+    code, _, err = run(capsys, monkeypatch, "series", path, "--method", "mole-ratio", "--max-ratio", "1.1")
+    assert code == 2 and "--max-ratio: 1.1 does not reach past the break" in err
+
+
 def test_option_of_another_method_exit_2(tmp_path, capsys, monkeypatch):
     plan = tmp_path / "p.toml"
     write_atomic(

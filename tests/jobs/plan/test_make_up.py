@@ -76,6 +76,6 @@ def test_sheet_shows_the_diluent_to_expect():
     html = prep_sheet(
         plan, rec, assess(plan, rec, trials=0), stock_needs(plan, rec), fmt="html", date="2026-12-01"
     ).decode()
-    assert "BG to the mark / mL" in html
+    assert "BG to the mark /\u00a0mL" in html  # a heading may wrap, never between "/" and its unit
     assert "≈ 8.65" in html and "≈ 0.50" in html  # derived: 10.00 − 0.70 − 0.65; 10.00 − 8.80 − 0.70
     assert "dilute to the mark" not in html
