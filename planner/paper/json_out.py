@@ -424,9 +424,13 @@ def fit_parameter_rows(fit) -> list[dict]:
 
 def fit_head(fit) -> dict:
     """The keys every fit's JSON starts with: title, target, converged, determined, reason, parameters,
-    χ² with its dof, both tails and verdict, and the tubes left out."""
+    χ² with its dof, both tails and verdict, and the tubes left out; ``target_fitted`` is false when the
+    plan held the target's constant fixed (then the fit did not measure it)."""
+    from ..jobs.measure.fit import target_fitted
+
     return {
         **_attrs(fit, "title target converged determined reason"),
+        "target_fitted": target_fitted(fit),
         "parameters": fit_parameter_rows(fit),
         "chi2": _f(fit.chi2),
         "dof": fit.dof,
