@@ -185,13 +185,13 @@ def _print_next(p, nb) -> None:
         )
     )
     target = S(p.target)
-    ratio = nb.se_after_even / nb.se_after if nb.se_after > 0 else float("nan")
-    word = "better" if ratio >= 1 else "worse"
+    even_over_design = nb.se_after_even / nb.se_after if nb.se_after > 0 else float("nan")
+    word = "better" if even_over_design >= 1 else "worse"
     out.print(
         f"SE(log β[{target}]) of all {nb.everything.n_tubes} tubes together: "
         f"[bold]{fmt.sig(nb.se_now, 2)}[/bold] now → [bold]{fmt.sig(nb.se_after, 2)}[/bold] expected with "
         f"these; with an evenly spaced batch instead: {fmt.sig(nb.se_after_even, 2)} (these are "
-        f"×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})"
+        f"×{fmt.sig(_at_least_1(even_over_design), 2)} {word})"
     )
     bad = [c for c in nb.assessment.checks if c.status != "pass"]
     if bad:
@@ -246,11 +246,16 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
             f"{a[i]:.3f} ± {sd[i]:.3f}",
         )
     out.print(tab)
-    ratio = d.se_ratio_vs_equal
-    word = "better" if ratio >= 1 else "worse"
+    equal_over_design = d.se_equal_over_design
+    word = "better" if equal_over_design >= 1 else "worse"
     out.print(
         f"SE(log β[{S(d.study.target)}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; equal "
-        f"aliquots: {fmt.sig(d.se_equal, 2)} (×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})"
+        f"aliquots: {fmt.sig(d.se_equal, 2)} (×{fmt.sig(_at_least_1(equal_over_design), 2)} {word})"
     )
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'schedule.csv'} and {out_dir / 'design.json'}")
+
+
+def _at_least_1(ratio: float) -> float:
+    """A ratio of SEs written as "× r better" or "× r worse": r ≥ 1 either way."""
+    return ratio if ratio >= 1 else 1 / ratio

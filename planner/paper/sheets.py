@@ -466,7 +466,7 @@ class DesignFacts:
 
     criterion: str | None = None
     efficiency_bound: float | None = None
-    se_ratio_vs_even: float | None = None
+    se_even_over_design: float | None = None
 
     @classmethod
     def of(cls, design) -> DesignFacts:
@@ -476,13 +476,15 @@ class DesignFacts:
     @classmethod
     def from_json(cls, data: Mapping) -> DesignFacts:
         """The facts of a ``design.json`` that ``kplan design --out`` wrote (keys missing or null: None)."""
-        return cls(data.get("criterion"), data.get("efficiency_bound"), data.get("se_ratio_vs_even"))
+        return cls(
+            data.get("criterion"), data.get("efficiency_bound"), data.get("se_ratio_vs_even")
+        )  # the JSON key
 
 
 _DESIGN_KEYS = (
     ("criterion", "criterion"),
     ("efficiency_bound", "efficiency bound (vs the best approximate design)"),
-    ("se_ratio_vs_even", "SE ratio against the evenly spaced series"),
+    ("se_even_over_design", "SE ratio against the evenly spaced series"),
 )
 
 
