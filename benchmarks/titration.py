@@ -28,7 +28,7 @@ def main() -> None:
         dt = time.perf_counter() - t0
         print(
             f"{n} additions: designed in {dt:.2f} s ({d.candidates} schedules tried, {d.feasible} feasible); "
-            f"SE {d.se_target:.4f} vs equal aliquots {d.se_equal:.4f}: ratio {d.se_ratio_vs_equal:.2f}; "
+            f"SE {d.se_target:.4f} vs equal aliquots {d.se_equal:.4f}: ratio {d.se_equal_over_design:.2f}; "
             f"aliquots {', '.join(f'{v * 1000:.0f}' for v in d.schedule.aliquot_mL)} µL"
         )
 

@@ -15,7 +15,7 @@ from ..inputs.limits import MAX_CARDS, MAX_TUBES
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, err, out
 from .app import safe_text as S
-from .options import PlanFile, count_option
+from .options import PaperSize, PlanFile, count_option
 
 OUTPUTS = ("cards.pdf", "key.pdf", "key.csv", "key.xlsx", "stocks.pdf", "stocks.csv")
 
@@ -35,57 +35,58 @@ def _sections(roster, k: int | None):
     return replace(roster, sections=tuple(names[i // size] for i in range(len(roster))))
 
 
+RosterFile = Annotated[
+    Path | None,
+    typer.Option("--roster", help="class roster CSV: id, name (optional section, bench)", metavar="PATH"),
+]
+Count = Annotated[
+    int | None,
+    count_option(f"number of students, without a roster (ids S01, S02, …; at most {MAX_CARDS})", MAX_CARDS),
+]
+OutDir = Annotated[
+    Path, typer.Option("--out", help="folder for the cards, the key and the stock list", metavar="PATH")
+]
+CardSeed = Annotated[
+    int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")
+]
+Tubes = Annotated[int | None, count_option("tubes per student's card (overrides design.tubes)", MAX_TUBES)]
+Sections = Annotated[
+    int | None,
+    typer.Option(help="split the class into K sections (A, B, …) in roster order", min=1, metavar="INTEGER"),
+]
+Series = Annotated[
+    str | None,
+    typer.Option(
+        help=f"the series on every card: {' | '.join(CARD_SERIES)} (default: the plan's "
+        "design.card_series, else binding-curve)",
+        metavar="TEXT",
+    ),
+]
+Pooled = Annotated[
+    bool,
+    typer.Option(
+        "--pooled",
+        help="make the cards for the class's pooled fit alone (most efficient for K, but each card "
+        "holds two or three clusters of near-identical tubes, not a series to plot)",
+        metavar="",
+    ),
+]
+CardsJson = Annotated[bool, typer.Option("--json", help="print the class summary as JSON", metavar="")]
+
+
 @app.command()
 def cards(
     plan: PlanFile,
-    roster_path: Annotated[
-        Path | None,
-        typer.Option("--roster", help="class roster CSV: id, name (optional section, bench)", metavar="PATH"),
-    ] = None,
-    count: Annotated[
-        int | None,
-        count_option(
-            f"number of students, without a roster (ids S01, S02, …; at most {MAX_CARDS})", MAX_CARDS
-        ),
-    ] = None,
-    out_dir: Annotated[
-        Path, typer.Option("--out", help="folder for the cards, the key and the stock list", metavar="PATH")
-    ] = Path("kplan-cards"),
-    seed: Annotated[
-        int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")
-    ] = 0,
-    tubes: Annotated[
-        int | None, count_option("tubes per student's card (overrides design.tubes)", MAX_TUBES)
-    ] = None,
-    sections: Annotated[
-        int | None,
-        typer.Option(
-            help="split the class into K sections (A, B, …) in roster order", min=1, metavar="INTEGER"
-        ),
-    ] = None,
-    series: Annotated[
-        str | None,
-        typer.Option(
-            help=f"the series on every card: {' | '.join(CARD_SERIES)} (default: the plan's "
-            "design.card_series, else binding-curve)",
-            metavar="TEXT",
-        ),
-    ] = None,
-    pooled: Annotated[
-        bool,
-        typer.Option(
-            "--pooled",
-            help="make the cards for the class's pooled fit alone (most efficient for K, but each card "
-            "holds two or three clusters of near-identical tubes, not a series to plot)",
-            metavar="",
-        ),
-    ] = False,
-    paper: Annotated[
-        str, typer.Option(help=f"paper size: {' | '.join(PAPER_CHOICES)}", metavar="TEXT")
-    ] = "A4",
-    as_json: Annotated[
-        bool, typer.Option("--json", help="print the class summary as JSON", metavar="")
-    ] = False,
+    roster_path: RosterFile = None,
+    count: Count = None,
+    out_dir: OutDir = Path("kplan-cards"),
+    seed: CardSeed = 0,
+    tubes: Tubes = None,
+    sections: Sections = None,
+    series: Series = None,
+    pooled: Pooled = False,
+    paper: PaperSize = "A4",
+    as_json: CardsJson = False,
 ) -> None:
     """One recipe card per student — every card a series the student can plot and fit (a binding curve, a
     mole-ratio or a Job series), all different, each individually sound, together efficient for the class's
@@ -95,14 +96,7 @@ def cards(
     from ..inputs.plan import load_plan
     from ..inputs.roster import read_roster_csv, roster_of_count
 
-    if (roster_path is None) == (count is None):
-        raise UserError("give either --roster FILE or --count N (one of them)")
-    if paper not in PAPER_CHOICES:
-        raise UserError(f"--paper {paper}: choose one of {', '.join(PAPER_CHOICES)}")
-    if series is not None and series not in CARD_SERIES:
-        raise UserError(f"--series {series}: choose one of {', '.join(CARD_SERIES)}")
-    if series is not None and pooled:
-        raise UserError("--series and --pooled: cards for the pooled fit hold no series; give one of them")
+    _validate_options(roster_path, count, paper, series, pooled)
     check_output_folder(out_dir, OUTPUTS, (plan, roster_path))  # before the work, not after it
     p = load_plan(plan)
     roster = read_roster_csv(roster_path) if roster_path is not None else roster_of_count(count)
@@ -123,6 +117,18 @@ def cards(
         _print(cs, stocks, out_dir)
     if not cs.sound:
         raise typer.Exit(1)
+
+
+def _validate_options(roster_path, count, paper: str, series, pooled: bool) -> None:
+    """Refuse options that contradict each other or a choice outside its list."""
+    if (roster_path is None) == (count is None):
+        raise UserError("give either --roster FILE or --count N (one of them)")
+    if paper not in PAPER_CHOICES:
+        raise UserError(f"--paper {paper}: choose one of {', '.join(PAPER_CHOICES)}")
+    if series is not None and series not in CARD_SERIES:
+        raise UserError(f"--series {series}: choose one of {', '.join(CARD_SERIES)}")
+    if series is not None and pooled:
+        raise UserError("--series and --pooled: cards for the pooled fit hold no series; give one of them")
 
 
 def make_class_files(

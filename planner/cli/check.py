@@ -11,14 +11,27 @@ from .options import PlanFile
 @app.command()
 def check(plan: PlanFile) -> None:
     """Validate a plan and show what was understood: species, constants, stocks, glassware."""
-    import numpy as np
-    from rich.table import Table
-
     from ..inputs.plan import load_plan
-    from ..paper import fmt
+    from ..jobs.devices import plan_devices
 
     p = load_plan(plan)
     out.print(f"[bold]{S(p.title)}[/bold]  ({S(plan)})")
+    _print_components(p)
+    _print_species(p)
+    _print_optics(p)
+    devices = plan_devices(p)
+    by_stock = {
+        st.id: devices.items[j] for st, j in zip(p.stock, devices.stock_device, strict=True) if j >= 0
+    }
+    _print_stocks(p, by_stock)
+    _print_glassware(p, devices)
+    _print_design(p, by_stock)
+    _print_outcome(p)
+
+
+def _print_components(p) -> None:
+    from rich.table import Table
+
     t = Table(title="Components")
     for c in ("component", "label", "charge / pH"):
         t.add_column(c)
@@ -27,6 +40,12 @@ def check(plan: PlanFile) -> None:
     if p.components.H is not None:
         t.add_row("H", "H+", f"pH {p.components.H.pH:.2f} (buffered)")
     out.print(t)
+
+
+def _print_species(p) -> None:
+    """Each species' formula, guess, sd and ε, and whether it is fitted; the free components' ε."""
+    from rich.table import Table
+
     t = Table(title="Species and constants")
     for c in ("species", "formula", "log β (guess)", "± sd", "ε / L mol⁻¹ cm⁻¹", "fitted?"):
         t.add_column(c)
@@ -46,6 +65,9 @@ def check(plan: PlanFile) -> None:
         if e:
             t.add_row(f"{comp} (free)", comp, "—", "—", f"{e.value:g} ± {e.rsd:.0%}", "—")
     out.print(t)
+
+
+def _print_optics(p) -> None:
     o = p.optics
     out.print(
         f"Optics: {o.wavelength_nm:g} nm, path {o.path_cm:g} cm, linear range "
@@ -54,18 +76,17 @@ def check(plan: PlanFile) -> None:
     )
     if o.has_spectra:
         _print_spectra_keys(p)
+
+
+def _print_stocks(p, by_stock) -> None:
+    """Each stock's concentrations, ions, uncertainty, what is on hand and the dispenser that delivers it."""
+    from rich.table import Table
+
+    from ..paper import fmt
+
     t = Table(title="Stocks")
     for c in ("id", "label", "M", "L", "other ions", "rsd", "on hand", "dispenser"):
         t.add_column(c)
-    from ..jobs.devices import plan_devices
-    from ..paper.bench_volumes import grid_finer_than_reading
-    from ..uncertainty.catalogue import reading_resolution_mL
-    from ..uncertainty.delivery import delivery_uncertainty, flask_volume_uncertainty
-
-    devices = plan_devices(p)
-    by_stock = {
-        st.id: devices.items[j] for st, j in zip(p.stock, devices.stock_device, strict=True) if j >= 0
-    }
     for s in p.stock:
         # the catalogue's name: no class for piston devices or a device given by its tolerance alone
         item = by_stock.get(s.id)
@@ -81,6 +102,16 @@ def check(plan: PlanFile) -> None:
             disp,
         )
     out.print(t)
+
+
+def _print_glassware(p, devices) -> None:
+    """The tubes' settings, each dispenser's tolerance and uncertainty, the make-up flask; a warning for a
+    grid finer than a device is read."""
+    from rich.table import Table
+
+    from ..paper import fmt
+    from ..paper.bench_volumes import grid_finer_than_reading
+
     g = p.glassware
     out.print(
         f"{'Cell' if p.titration else 'Tubes'}: {g.tube_volume_mL:g} mL, make-up {g.make_up}, grid "
@@ -91,31 +122,9 @@ def check(plan: PlanFile) -> None:
     for c in ("device", "tolerance", "read to", "random sd", "u, full delivery", "source", "delivers"):
         t.add_column(c)
     for d, item in zip(p.glassware.dispenser, devices.items, strict=True):
-        du = delivery_uncertainty(item, np.array([item.capacity_mL]))
-        src = item.source + (" (from memory)" if item.from_memory else "")
-        res = reading_resolution_mL(item)
-        rand = f"{float(du.random_mL[0]):.2g} mL" + (" (measured)" if item.repeatability_mL else "")
-        t.add_row(
-            S(item.label),
-            f"± {item.tolerance_mL:g} mL",
-            f"{res:g} mL" if res else ("the mark" if item.kind == "pipette" else "—"),
-            rand,
-            f"{float(du.combined_mL[0]):.3g} mL",
-            S(src),
-            S(", ".join(d.stocks)),
-        )
+        t.add_row(*_dispenser_cells(item), S(", ".join(d.stocks)))
     if devices.flask is not None:
-        fl = devices.flask
-        src = fl.source + (" (from memory)" if fl.from_memory else "")
-        t.add_row(
-            S(fl.label),
-            f"± {fl.tolerance_mL:g} mL",
-            "the mark",
-            "—",
-            f"{flask_volume_uncertainty(fl):.3g} mL",
-            S(src),
-            "make-up of every tube",
-        )
+        t.add_row(*_flask_cells(devices.flask), "make-up of every tube")
     out.print(t)
     for label, step, res in grid_finer_than_reading(p):
         out.print(
@@ -123,13 +132,52 @@ def check(plan: PlanFile) -> None:
             f"({res:g} mL): the sheet's volumes ask for more than the device shows; use a step of at least "
             f"{res:g} mL or state the device's graduation"
         )
-    _print_design(p, by_stock)
+
+
+def _dispenser_cells(item) -> tuple[str, ...]:
+    """A dispenser's row of the glassware table, up to its source."""
+    import numpy as np
+
+    from ..uncertainty.catalogue import reading_resolution_mL
+    from ..uncertainty.delivery import delivery_uncertainty
+
+    du = delivery_uncertainty(item, np.array([item.capacity_mL]))
+    src = item.source + (" (from memory)" if item.from_memory else "")
+    res = reading_resolution_mL(item)
+    rand = f"{float(du.random_mL[0]):.2g} mL" + (" (measured)" if item.repeatability_mL else "")
+    return (
+        S(item.label),
+        f"± {item.tolerance_mL:g} mL",
+        f"{res:g} mL" if res else ("the mark" if item.kind == "pipette" else "—"),
+        rand,
+        f"{float(du.combined_mL[0]):.3g} mL",
+        S(src),
+    )
+
+
+def _flask_cells(fl) -> tuple[str, ...]:
+    """The make-up flask's row of the glassware table, up to its source."""
+    from ..uncertainty.delivery import flask_volume_uncertainty
+
+    src = fl.source + (" (from memory)" if fl.from_memory else "")
+    return (
+        S(fl.label),
+        f"± {fl.tolerance_mL:g} mL",
+        "the mark",
+        "—",
+        f"{flask_volume_uncertainty(fl):.3g} mL",
+        S(src),
+    )
+
+
+def _print_outcome(p) -> None:
+    """ "plan OK", or with a warning naming the stocks no dispenser delivers."""
     # a stock that is measured out needs a dispenser (the diluent under to-mark is poured to the mark;
     # a titration's cell and titrant are checked by the schedule)
     missing = [
         st.id
         for st in p.stock
-        if p.dispenser_for(st.id) is None and not (st.diluent and g.make_up == "to-mark")
+        if p.dispenser_for(st.id) is None and not (st.diluent and p.glassware.make_up == "to-mark")
     ]
     if missing:
         out.print(

@@ -120,7 +120,7 @@ def _demo_spectra(out_dir: Path) -> list[Path]:
     readings = simulated_spectra(study, d.recipe, np.random.default_rng(1))
     written.append(write_atomic(out_dir / "spectra-readings.csv", spectra_readings_to_csv(readings, p)))
     f = fit_spectra(study, readings)
-    print_spectra_fit(f)
+    print_spectra_fit(f, p)
     written.append(write_atomic(out_dir / "spectra-fit.json", dump_json(f) + "\n"))
     written.append(write_atomic_bytes(out_dir / "spectra-fit.pdf", fit_report(p, f)))
     return written

@@ -14,56 +14,61 @@ from .app import UserError, app, dump_json, out
 from .app import safe_text as S
 from .options import MAX_TUBES, PlanFile, count_option
 
+OutDir = Annotated[
+    Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")
+]
+Tubes = Annotated[int | None, count_option("number of tubes (overrides design.tubes)", MAX_TUBES)]
+Additions = Annotated[
+    int | None,
+    count_option("titration plans: number of additions (overrides titration.additions)", MAX_ADDITIONS),
+]
+Criterion = Annotated[
+    str | None,
+    typer.Option(
+        help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)",
+        metavar="TEXT",
+    ),
+]
+Robust = Annotated[
+    bool | None,
+    typer.Option(
+        "--robust/--no-robust",
+        help="average over the guesses' uncertainty (overrides design.robust)",
+        metavar="",
+    ),
+]
+ExchangeSeed = Annotated[
+    int, typer.Option(help="seed of the exchange algorithm's random starts", min=0, metavar="INTEGER")
+]
+DesignJson = Annotated[bool, typer.Option("--json", help="print the design summary as JSON", metavar="")]
+After = Annotated[
+    Path | None,
+    typer.Option(
+        "--after",
+        help="readings so far (recipe CSV + absorbance): fit them and design the next tubes",
+        metavar="PATH",
+    ),
+]
+
 
 @app.command()
 def design(
     plan: PlanFile,
-    out_dir: Annotated[
-        Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")
-    ] = None,
-    tubes: Annotated[int | None, count_option("number of tubes (overrides design.tubes)", MAX_TUBES)] = None,
-    additions: Annotated[
-        int | None,
-        count_option("titration plans: number of additions (overrides titration.additions)", MAX_ADDITIONS),
-    ] = None,
-    criterion: Annotated[
-        str | None,
-        typer.Option(
-            help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)",
-            metavar="TEXT",
-        ),
-    ] = None,
-    robust: Annotated[
-        bool | None,
-        typer.Option(
-            "--robust/--no-robust",
-            help="average over the guesses' uncertainty (overrides design.robust)",
-            metavar="",
-        ),
-    ] = None,
-    seed: Annotated[
-        int, typer.Option(help="seed of the exchange algorithm's random starts", min=0, metavar="INTEGER")
-    ] = 0,
-    as_json: Annotated[
-        bool, typer.Option("--json", help="print the design summary as JSON", metavar="")
-    ] = False,
-    after: Annotated[
-        Path | None,
-        typer.Option(
-            "--after",
-            help="readings so far (recipe CSV + absorbance): fit them and design the next tubes",
-            metavar="PATH",
-        ),
-    ] = None,
+    out_dir: OutDir = None,
+    tubes: Tubes = None,
+    additions: Additions = None,
+    criterion: Criterion = None,
+    robust: Robust = None,
+    seed: ExchangeSeed = 0,
+    as_json: DesignJson = False,
+    after: After = None,
 ) -> None:
     """Choose tube volumes on the glassware's grid that resolve K as precisely as possible
     (with --after: the next tubes, given what the readings so far taught)."""
     from ..inference.design_criteria import CRITERIA as DESIGN_CRITERIA
-    from ..inputs.files import check_output_folder, write_atomic_many
+    from ..inputs.files import check_output_folder
     from ..inputs.plan import load_plan
-    from ..inputs.recipe import recipe_to_csv
     from ..jobs.plan.design import design as run_design
-    from .show import model_check_alternatives, print_design, print_spectra
 
     if criterion is not None and criterion not in DESIGN_CRITERIA:
         raise UserError(f"--criterion {criterion}: choose one of {', '.join(DESIGN_CRITERIA)}")
@@ -93,6 +98,17 @@ def design(
         d = design_spectra(compile_study(p), tubes=tubes, criterion=criterion, robust=robust, seed=seed)
     else:
         d = run_design(p, tubes=tubes, criterion=criterion, robust=robust, seed=seed)
+    _emit(d, p, out_dir, as_json)
+    if d.verdict is not None and d.verdict != "resolved":
+        raise typer.Exit(1)  # the best design cannot reach goal_se (or fails a check): README, exit codes
+
+
+def _emit(d, p, out_dir: Path | None, as_json: bool) -> None:
+    """Write recipe.csv and design.json (with --out), then print the JSON or the design's tables."""
+    from ..inputs.files import write_atomic_many
+    from ..inputs.recipe import recipe_to_csv
+    from .show import model_check_alternatives, print_design, print_spectra
+
     text = dump_json(d)
     if out_dir is not None:
         # one unit: a recipe.csv beside a design.json from another run would be worse than neither
@@ -104,13 +120,11 @@ def design(
         )
     if as_json:
         print(text)
-    else:
-        print_design(d, p)
-        print_spectra(d.assessment.spectra, p.target, p.optics.wavelength_nm, model_check_alternatives(d))
-        if out_dir is not None:
-            out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
-    if d.verdict is not None and d.verdict != "resolved":
-        raise typer.Exit(1)  # the best design cannot reach goal_se (or fails a check): README, exit codes
+        return
+    print_design(d, p)
+    print_spectra(d.assessment.spectra, p.target, p.optics.wavelength_nm, model_check_alternatives(d))
+    if out_dir is not None:
+        out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'design.json')}")
 
 
 def _next_batch(p, after: Path, out_dir: Path | None, tubes, robust, seed: int, as_json: bool) -> None:
@@ -171,13 +185,13 @@ def _print_next(p, nb) -> None:
         )
     )
     target = S(p.target)
-    ratio = nb.se_after_even / nb.se_after if nb.se_after > 0 else float("nan")
-    word = "better" if ratio >= 1 else "worse"
+    even_over_design = nb.se_after_even / nb.se_after if nb.se_after > 0 else float("nan")
+    word = "better" if even_over_design >= 1 else "worse"
     out.print(
         f"SE(log β[{target}]) of all {nb.everything.n_tubes} tubes together: "
         f"[bold]{fmt.sig(nb.se_now, 2)}[/bold] now → [bold]{fmt.sig(nb.se_after, 2)}[/bold] expected with "
         f"these; with an evenly spaced batch instead: {fmt.sig(nb.se_after_even, 2)} (these are "
-        f"×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})"
+        f"×{fmt.sig(_at_least_1(even_over_design), 2)} {word})"
     )
     bad = [c for c in nb.assessment.checks if c.status != "pass"]
     if bad:
@@ -232,11 +246,16 @@ def _titration(p, out_dir: Path | None, additions, robust, as_json: bool) -> Non
             f"{a[i]:.3f} ± {sd[i]:.3f}",
         )
     out.print(tab)
-    ratio = d.se_ratio_vs_equal
-    word = "better" if ratio >= 1 else "worse"
+    equal_over_design = d.se_equal_over_design
+    word = "better" if equal_over_design >= 1 else "worse"
     out.print(
         f"SE(log β[{S(d.study.target)}]) at the guess: [bold]{fmt.sig(d.se_target, 2)}[/bold]; equal "
-        f"aliquots: {fmt.sig(d.se_equal, 2)} (×{fmt.sig(ratio if ratio >= 1 else 1 / ratio, 2)} {word})"
+        f"aliquots: {fmt.sig(d.se_equal, 2)} (×{fmt.sig(_at_least_1(equal_over_design), 2)} {word})"
     )
     if out_dir is not None:
         out.print(f"wrote {out_dir / 'schedule.csv'} and {out_dir / 'design.json'}")
+
+
+def _at_least_1(ratio: float) -> float:
+    """A ratio of SEs written as "× r better" or "× r worse": r ≥ 1 either way."""
+    return ratio if ratio >= 1 else 1 / ratio

@@ -68,9 +68,8 @@ def fit(
     if as_json:
         print(dump_json(f))
     else:
-        _print_fit(f, plan, readings, skip)
-    if not f.determined:
-        raise typer.Exit(1)
+        _print_fit(f, p, (plan, readings), skip)
+    _exit_code(f)
 
 
 def _fit_spectra(p, study, paths: tuple[Path, Path], recipe: Path | None, skip, keep, as_json: bool, report):
@@ -100,14 +99,38 @@ def _fit_spectra(p, study, paths: tuple[Path, Path], recipe: Path | None, skip, 
     if as_json:
         print(dump_json(f))
     else:
-        print_spectra_fit(f)
+        print_spectra_fit(f, p)
         if report is not None:
             out.print(f"wrote {S(report)}")
-    if not f.determined:
+    _exit_code(f)
+
+
+def _exit_code(f) -> None:
+    """Exit 1 when the readings do not determine the constants, or when the target's constant was held
+    at the plan's value (not fitted): either way the readings did not measure it (README, exit codes)."""
+    from ..jobs.measure.fit import target_fitted
+
+    if not f.determined or not target_fitted(f):
         raise typer.Exit(1)
 
 
-def print_spectra_fit(f) -> None:
+def _print_held_target(f, p) -> None:
+    """Say plainly that the target's constant was not fitted when the plan holds it fixed."""
+    from ..jobs.measure.fit import target_fitted
+
+    if target_fitted(f):
+        return
+    i = next(k for k, s in enumerate(p.species) if s.name == f.target)
+    out.print(
+        f"[red]target not fitted:[/red] log β[{S(f.target)}] was held at the plan's value "
+        f"{p.species[i].log_beta:.2f} (species[{i}].log_beta_sd = 0), not fitted: these readings did not "
+        "measure it, and the fit says nothing about it. To fit it, give the guess its uncertainty "
+        "(log_beta_sd > 0)"
+    )
+
+
+def print_spectra_fit(f, p=None) -> None:
+    """The whole-spectrum fit's tables (``p``, the plan, names the target's value when it was held)."""
     from rich.table import Table
 
     from ..paper import fmt
@@ -123,7 +146,7 @@ def print_spectra_fit(f) -> None:
         out.print(f"[yellow]left out[/yellow] {f.readings_left_out} readings above the linear range")
     if f.wavelengths_left_out:
         out.print(f"[yellow]left out[/yellow] {f.wavelengths_left_out} wavelengths outside the plan's window")
-    _print_constants(f, "Fitted constants", ".1f")
+    _print_constants(f, "Fitted constants", ".1f", p)
     fa = f.factors
     if fa is not None:
         sv = ", ".join(fmt.sig(float(x), 3) for x in fa.singular_values[:6])
@@ -141,10 +164,13 @@ def print_spectra_fit(f) -> None:
     out.print(t)
 
 
-def _print_constants(f, title: str, chi2_format: str) -> None:
-    """Whether the fit determined the constants, their table and the χ² test of the scatter."""
+def _print_constants(f, title: str, chi2_format: str, p) -> None:
+    """Whether the fit determined the constants (and fitted the target's), their table and the χ² test of
+    the scatter."""
     if not f.determined:
         out.print(f"[red]not determined:[/red] {S(f.reason)}")
+    if p is not None:
+        _print_held_target(f, p)
     out.print(_parameter_table(f, title))
     if f.dof >= 1 and f.determined:
         out.print(
@@ -174,14 +200,15 @@ def _parameter_table(f, title: str):
     return t
 
 
-def _print_fit(f, plan: Path, readings: Path, skip: tuple[str, ...]) -> None:
+def _print_fit(f, p, paths: tuple[Path, Path], skip: tuple[str, ...]) -> None:
+    plan, readings = paths
     out.print(
         f"[bold]{S(f.title)}[/bold] — fit of {int(f.used.sum())} of {plural(f.recipe.n_tubes, 'reading')}"
     )
     for tube, why in f.excluded:
         hint = " (--keep-out-of-range keeps it)" if "linear range" in why else ""
         out.print(f"[yellow]left out[/yellow] {S(tube)}: {S(why)}{hint}")
-    _print_constants(f, "Fitted parameters", ".2f")
+    _print_constants(f, "Fitted parameters", ".2f", p)
     if f.determined and f.dof < 1:
         out.print(f.chi2_verdict)
     if f.interval_note:

@@ -26,73 +26,86 @@ OPTION_OF = {
 }
 
 
+OutDir = Annotated[
+    Path | None, typer.Option("--out", help="folder for recipe.csv and series.json", metavar="PATH")
+]
+Method = Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}", metavar="TEXT")]
+Points = Annotated[
+    int | None,
+    count_option(
+        "job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", MAX_TUBES
+    ),
+]
+Total = Annotated[
+    str | None,
+    typer.Option(
+        help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest "
+        "in the "
+        "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range); "
+        "mole-ratio — the fixed reagent's (default: the largest in the linear range)",
+        metavar="TEXT",
+    ),
+]
+Limiting = Annotated[
+    str | None,
+    typer.Option(
+        help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)",
+        metavar="TEXT",
+    ),
+]
+Excess = Annotated[
+    str | None,
+    typer.Option(
+        help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts "
+        "99.9 %, "
+        "else 99 %, over the guess's range)",
+        metavar="TEXT",
+    ),
+]
+Replicates = Annotated[
+    int | None, count_option("calibration: replicate calibration tubes (default 1)", MAX_REPLICATES)
+]
+OldReplicates = Annotated[
+    int | None, count_option("older spelling of --replicates", MAX_REPLICATES, hidden=True)
+]
+Vary = Annotated[
+    str | None,
+    typer.Option(
+        help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)",
+        metavar="TEXT",
+    ),
+]
+MaxRatio = Annotated[
+    float | None,
+    typer.Option(
+        help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)",
+        metavar="FLOAT",
+    ),
+]
+SurveyRecipe = Annotated[
+    Path | None,
+    typer.Option(
+        help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)",
+        metavar="PATH",
+    ),
+]
+
+
 @app.command()
 def series(
     plan: PlanFile,
-    method: Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}", metavar="TEXT")],
-    out_dir: Annotated[
-        Path | None, typer.Option("--out", help="folder for recipe.csv and series.json", metavar="PATH")
-    ] = None,
+    method: Method,
+    out_dir: OutDir = None,
     as_json: JsonFlag = False,
-    points: Annotated[
-        int | None,
-        count_option(
-            "job: number of mole fractions (default 9); mole-ratio: number of tubes (default 10)", MAX_TUBES
-        ),
-    ] = None,
-    total: Annotated[
-        str | None,
-        typer.Option(
-            help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest "
-            "in the "
-            "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range); "
-            "mole-ratio — the fixed reagent's (default: the largest in the linear range)",
-            metavar="TEXT",
-        ),
-    ] = None,
-    limiting: Annotated[
-        str | None,
-        typer.Option(
-            help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)",
-            metavar="TEXT",
-        ),
-    ] = None,
-    excess: Annotated[
-        str | None,
-        typer.Option(
-            help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts "
-            "99.9 %, "
-            "else 99 %, over the guess's range)",
-            metavar="TEXT",
-        ),
-    ] = None,
-    replicates: Annotated[
-        int | None, count_option("calibration: replicate calibration tubes (default 1)", MAX_REPLICATES)
-    ] = None,
-    tubes: Annotated[
-        int | None, count_option("older spelling of --replicates", MAX_REPLICATES, hidden=True)
-    ] = None,
-    vary: Annotated[
-        str | None,
-        typer.Option(
-            help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)",
-            metavar="TEXT",
-        ),
-    ] = None,
-    max_ratio: Annotated[
-        float | None,
-        typer.Option(
-            help="mole-ratio: highest ratio rising/fixed (default 2.5 × the richest complex's ratio)",
-            metavar="FLOAT",
-        ),
-    ] = None,
-    recipe: Annotated[
-        Path | None,
-        typer.Option(
-            help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)",
-            metavar="PATH",
-        ),
-    ] = None,
+    points: Points = None,
+    total: Total = None,
+    limiting: Limiting = None,
+    excess: Excess = None,
+    replicates: Replicates = None,
+    tubes: OldReplicates = None,
+    vary: Vary = None,
+    max_ratio: MaxRatio = None,
+    recipe: SurveyRecipe = None,
 ) -> None:
     """Plan a classic series on the plan's glassware — Job's continuous variation (job), the 'complete
     conversion' tube (calibration), the mole-ratio series (mole-ratio), the wavelength survey over the
@@ -100,11 +113,8 @@ def series(
     cannot."""
     from ..inputs.files import check_output_folder
     from ..inputs.plan import load_plan
-    from ..inputs.units import UnitError, parse_quantity
-    from ..jobs.classic import METHOD_OPTIONS, METHODS
 
-    if method not in METHODS:
-        raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
+    _validate_method(method)
     if tubes is not None and replicates is not None:
         raise UserError("--tubes is the older spelling of --replicates: give one of them")
     replicates = replicates if replicates is not None else tubes
@@ -118,22 +128,8 @@ def series(
         "max-ratio": max_ratio,
         "recipe": recipe,
     }
-    for name, value in given_opts.items():
-        if value is not None and method not in METHOD_OPTIONS[name]:
-            raise UserError(
-                f"--{name} applies to --method {' / '.join(METHOD_OPTIONS[name])}, not to {method}: "
-                f"leave it out"
-            )
-
-    def conc(name: str, value: str | None) -> float | None:
-        if value is None:
-            return None
-        try:
-            return parse_quantity(value, "concentration")
-        except UnitError as exc:
-            raise UserError(f"{name} {value}: {exc}") from None
-
-    total_M, excess_M = conc("--total", total), conc("--excess", excess)
+    _validate_options(method, given_opts)
+    total_M, excess_M = _concentration("--total", total), _concentration("--excess", excess)
     if out_dir is not None:  # before the work; the outputs may not overwrite the plan or the recipe
         check_output_folder(out_dir, ("recipe.csv", "series.json"), (plan, recipe))
     p = load_plan(plan)
@@ -143,18 +139,54 @@ def series(
 
         given = read_recipe_csv(recipe, p)
     r = _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given)
+    _emit(r, p, out_dir, as_json)
+    sys.exit(r.exit_code)
+
+
+def _validate_method(method: str) -> None:
+    from ..jobs.classic import METHODS
+
+    if method not in METHODS:
+        raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
+
+
+def _validate_options(method: str, given_opts: dict) -> None:
+    """Refuse an option given to a method it does not apply to."""
+    from ..jobs.classic import METHOD_OPTIONS
+
+    for name, value in given_opts.items():
+        if value is not None and method not in METHOD_OPTIONS[name]:
+            raise UserError(
+                f"--{name} applies to --method {' / '.join(METHOD_OPTIONS[name])}, not to {method}: "
+                f"leave it out"
+            )
+
+
+def _concentration(option: str, value: str | None) -> float | None:
+    """The concentration an option gives, in mol/L (None when it is not given)."""
+    from ..inputs.units import UnitError, parse_quantity
+
+    if value is None:
+        return None
+    try:
+        return parse_quantity(value, "concentration")
+    except UnitError as exc:
+        raise UserError(f"{option} {value}: {exc}") from None
+
+
+def _emit(r, p, out_dir: Path | None, as_json: bool) -> None:
+    """Write the series' files (with --out), then print its JSON or its tables."""
     text = dump_json(r)
     if out_dir is not None:
         _write(out_dir, r, p, text)
     if as_json:
         print(text)
-    else:
-        print_series(r, p)
-        if out_dir is not None and r.recipe.n_tubes:
-            out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'series.json')}")
-        elif out_dir is not None:
-            out.print(f"wrote {S(out_dir / 'series.json')} (no tubes: the series cannot be made)")
-    sys.exit(r.exit_code)
+        return
+    print_series(r, p)
+    if out_dir is not None and r.recipe.n_tubes:
+        out.print(f"wrote {S(out_dir / 'recipe.csv')} and {S(out_dir / 'series.json')}")
+    elif out_dir is not None:
+        out.print(f"wrote {S(out_dir / 'series.json')} (no tubes: the series cannot be made)")
 
 
 def _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given):

@@ -181,30 +181,30 @@ def print_design(d, p) -> None:
     if d.limits is not None:
         for line in d.limits.lines():
             out.print(S(line))
-    mc = d.model_check
-    if mc is not None:
-        _print_model_check(mc, target)
+    if d.model_check is not None:
+        _print_model_check(d.model_check, target)
     for c in da.checks:
         if c.status != "pass":
             out.print(f"[yellow]{S(c.id)}[/yellow]: {S(c.message)}")
 
 
-def _print_model_check(mc, target: str) -> None:
+def _print_model_check(model_check, target: str) -> None:
     """The model check of a design: the chosen design's simulated power beside the other design's."""
     from ..jobs.plan.model_check import POWER_SATURATED
 
     t = Table(
-        title=f"Model check (SE may cost up to ×{mc.cost_cap:.3g}): would the data reveal a left-out complex?"
+        title=f"Model check (SE may cost up to ×{model_check.cost_cap:.3g}): would the data reveal a "
+        "left-out complex?"
     )
     other = (
         "target-only design"
-        if mc.replaced
-        else f"best guarded design (×{fmt.sig(mc.se_guarded_over_target_only, 3)})"
+        if model_check.replaced
+        else f"best guarded design (×{fmt.sig(model_check.se_guarded_over_target_only, 3)})"
     )
     for c in ("if the system also formed", "this design", other, "best on these candidates"):
         t.add_column(c, justify="right")
-    for k, (g, o) in enumerate(mc.detection):
-        best = mc.best_power[k] if k < len(mc.best_power) else float("nan")
+    for k, (g, o) in enumerate(model_check.detection):
+        best = model_check.best_power[k] if k < len(model_check.best_power) else float("nan")
         # the search stops adding noncentrality at 95 % power (it buys precision instead): "at least"
         best_txt = f"≥ {_pct(best)}" if best >= POWER_SATURATED - 5e-3 else _pct(best)
         t.add_row(S(g.alternative), _pct(g.power), _pct(o.power_noise_free), best_txt)
@@ -213,8 +213,8 @@ def _print_model_check(mc, target: str) -> None:
         "share of experiments whose χ² test (5 % level) rejects the main model: this design simulated, the "
         "others from the exact noncentrality"
     )
-    out.print(S(mc.reason))
-    for line in mc.advice:
+    out.print(S(model_check.reason))
+    for line in model_check.advice:
         out.print(f"[yellow]note:[/yellow] {S(line)}")
 
 

@@ -365,7 +365,15 @@ class DesignSettings(StrictModel):
     ionic_strength_tolerance: number_in(0, 1, lo_open=True, hi_open=True) = 0.02
     analysis: Literal["global", "double-reciprocal", "one-to-one"] = "global"
     check: Literal["auto", "none"] = "auto"
-    check_weight: number_in(0, 1, hi_open=True) = 0.25
+    # a cap on the SE cost of the model check, not a weight: the guarded design's SE of the target may be
+    # at most ×(1 + check_weight) the target-only design's (the key keeps its older name)
+    check_weight: number_in(
+        0,
+        1,
+        hi_open=True,
+        what="the model check's cap on the SE cost w (the guarded design's SE at most ×(1 + w) the "
+        "target-only one; 0: no guard), ",
+    ) = 0.25
     alternative: list[Alternative] = Field(default_factory=list, max_length=MAX_ALTERNATIVES)
     card_series: Literal["binding-curve", "mole-ratio", "job"] = "binding-curve"
 

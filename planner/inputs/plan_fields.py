@@ -40,7 +40,9 @@ min_volume, rinse, dead_volume, fixed        0, or 1e-6 … 10 000             m
 ``design.ionic_strength_tolerance``          0 … 1 (both excluded)           relative
 ``design.tubes``                             1 … 200                         integer
 ``species``, ``stock`` (counts)              ≤ 40, ≤ 20                      entries
-``design.check_weight``                      0 … 1 (excluded)                weight
+``design.check_weight``                      0 … 1 (excluded)                SE cost cap w:
+                                                                             guarded SE ≤
+                                                                             ×(1 + w)
 ``titration`` volumes                        1e-6 … 10 000                   mL
 ``titration.additions``                      1 … 60                          integer
 ===========================================  ==============================  =============

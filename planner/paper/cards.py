@@ -21,7 +21,7 @@ from ..jobs.classroom.stock_list import ClassStock
 from . import fmt, safety
 from .bench_volumes import reading_note
 from .class_stocks import stocks_csv, stocks_page
-from .render import check_paper_format, output_bytes, render_html
+from .render import output_bytes, render_html, validate_paper_format
 from .sheets import (
     addition_order,
     addition_steps,
@@ -217,7 +217,7 @@ def cards_document(plan: Plan, cs, *, paper: str = "A4", fmt_: str = "pdf") -> b
     ``fmt_="html"``); ``cs`` as in :func:`cards_context`; see :func:`card_layout`."""
     from .card_layout import FIRST_DENSITY
 
-    check_paper_format(paper, fmt_)
+    validate_paper_format(paper, fmt_)
     if fmt_ == "html":
         ctx = cards_context(plan, cs, paper=paper)
         return render_html("cards.html.j2", {**ctx, "density": FIRST_DENSITY.get(paper, 0)}).encode("utf-8")
@@ -470,7 +470,7 @@ def key_document(
     plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
 ) -> bytes:
     """``key.pdf``: the instructor's key."""
-    check_paper_format(paper, fmt_)
+    validate_paper_format(paper, fmt_)
     return output_bytes(render_html("key.html.j2", key_context(plan, cs, stocks, paper=paper)), fmt_)
 
 
@@ -481,6 +481,6 @@ def stocks_document(
     plan: Plan, cs, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
 ) -> bytes:
     """``stocks.pdf``: the class stock list; ``cs`` a :class:`ClassSet` or the drafted cards."""
-    check_paper_format(paper, fmt_)
+    validate_paper_format(paper, fmt_)
     count = len(cs.cards) if isinstance(cs, ClassSet) else len(cs)
     return output_bytes(stocks_page(plan, count, stocks, paper=paper), fmt_)

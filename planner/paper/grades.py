@@ -284,8 +284,8 @@ def grade_context(g: ClassGrade, *, date: str, paper: str) -> dict:
 
 def grade_report(g: ClassGrade, *, paper: str = "A4", fmt_: str = "pdf", date=None) -> bytes:
     """The class report as PDF (or HTML)."""
-    from .render import check_paper_format, date_text, output_bytes, render_html
+    from .render import date_text, output_bytes, render_html, validate_paper_format
 
-    check_paper_format(paper, fmt_)
+    validate_paper_format(paper, fmt_)
     ctx = grade_context(g, date=date_text(date), paper=paper)
     return output_bytes(render_html("grades.html.j2", ctx), fmt_)

@@ -217,35 +217,37 @@ def spectra_detection_json(d) -> dict:
     }
 
 
-def model_check_json(mc) -> dict:
+def model_check_json(model_check) -> dict:
     """The design's model check: the chosen design's power beside the other design's, per alternative."""
     from ..inference.discrimination import POWER_GOAL
     from ..jobs.plan.model_check import MARGIN
 
-    other = "power_target_only" if mc.replaced else "power_best_guarded"
+    other = "power_target_only" if model_check.replaced else "power_best_guarded"
     return {
-        "weight": mc.weight,
-        "se_cost_cap": mc.cost_cap,
-        "replaced": mc.replaced,
-        "tubes_moved": mc.moves,
-        "se_target_only": _f(mc.se_target_only),
-        "se_guarded": _f(mc.se_guarded),
-        "se_cost_ratio": _f(mc.se_guarded_over_target_only),
+        "weight": model_check.weight,
+        "se_cost_cap": model_check.cost_cap,
+        "replaced": model_check.replaced,
+        "tubes_moved": model_check.moves,
+        "se_target_only": _f(model_check.se_target_only),
+        "se_guarded": _f(model_check.se_guarded),
+        "se_cost_ratio": _f(model_check.se_guarded_over_target_only),
         "power_goal": POWER_GOAL,
         "power_margin": MARGIN,
-        "reason": mc.reason,
-        "advice": list(mc.advice),
+        "reason": model_check.reason,
+        "advice": list(model_check.advice),
         "alternatives": [
             {
                 **to_json(g),
-                "power_target_only": _f(g.power if not mc.replaced else t.power_noise_free),
+                "power_target_only": _f(g.power if not model_check.replaced else t.power_noise_free),
                 "power_noise_free_target_only": _f(
-                    g.power_noise_free if not mc.replaced else t.power_noise_free
+                    g.power_noise_free if not model_check.replaced else t.power_noise_free
                 ),
                 other: _f(t.power_noise_free),
-                "power_best_any_cost": _f(mc.best_power[k]) if k < len(mc.best_power) else None,
+                "power_best_any_cost": _f(model_check.best_power[k])
+                if k < len(model_check.best_power)
+                else None,
             }
-            for k, (g, t) in enumerate(mc.detection)
+            for k, (g, t) in enumerate(model_check.detection)
         ],
     }
 
@@ -289,7 +291,7 @@ def titration_json(d) -> dict:
         "added_mL": [float(x) for x in d.schedule.added_mL],
         "se_target": _f(d.se_target),
         "se_equal_aliquots": _f(d.se_equal),
-        "se_ratio_vs_equal": _f(d.se_ratio_vs_equal),
+        "se_ratio_vs_equal": _f(d.se_equal_over_design),
         "robust": d.robust,
         "candidates": d.candidates,
         "candidates_feasible": d.feasible,
@@ -424,9 +426,13 @@ def fit_parameter_rows(fit) -> list[dict]:
 
 def fit_head(fit) -> dict:
     """The keys every fit's JSON starts with: title, target, converged, determined, reason, parameters,
-    χ² with its dof, both tails and verdict, and the tubes left out."""
+    χ² with its dof, both tails and verdict, and the tubes left out; ``target_fitted`` is false when the
+    plan held the target's constant fixed (then the fit did not measure it)."""
+    from ..jobs.measure.fit import target_fitted
+
     return {
         **_attrs(fit, "title target converged determined reason"),
+        "target_fitted": target_fitted(fit),
         "parameters": fit_parameter_rows(fit),
         "chi2": _f(fit.chi2),
         "dof": fit.dof,

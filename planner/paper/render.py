@@ -106,7 +106,7 @@ def _stylesheet() -> str:
     return resources.files("planner.templates").joinpath("style.css").read_text(encoding="utf-8")
 
 
-def check_paper_format(paper: str, fmt: str) -> None:
+def validate_paper_format(paper: str, fmt: str) -> None:
     """Refuse a paper size or an output format the sheets do not know (:class:`RenderError`)."""
     if paper not in PAPERS:
         raise RenderError(f"paper = {paper!r}: choose one of {', '.join(PAPERS)}")
@@ -187,7 +187,7 @@ def prep_sheet(
     RenderError
         For an unknown paper or format, a bad date, or an order that does not list the stocks.
     """
-    check_paper_format(paper, fmt)
+    validate_paper_format(paper, fmt)
     ctx = prep_context(plan, recipe, assessment, needs, date=date_text(date), paper=paper, order=order)
     if fmt == "html":
         return render_html("prep_sheet.html.j2", ctx).encode("utf-8")
@@ -236,7 +236,7 @@ def report(plan, recipe, assessment, *, design=None, paper: str = "A4", fmt: str
     """
     from . import figures as fig
 
-    check_paper_format(paper, fmt)
+    validate_paper_format(paper, fmt)
     from ..jobs.stocks.needs import stock_needs
 
     if isinstance(design, Mapping):  # a design.json read back
@@ -267,7 +267,7 @@ def fit_report(plan, fit, *, kind: str = "pdf", paper: str = "A4", date=None) ->
     singular values and each tube's residuals; ``kind`` "pdf" (bytes of the PDF) or "html"."""
     from .spectra_report import fit_context
 
-    check_paper_format(paper, kind)
+    validate_paper_format(paper, kind)
     return output_bytes(
         render_html("spectra_fit.html.j2", fit_context(plan, fit, paper=paper, date=date_text(date))), kind
     )

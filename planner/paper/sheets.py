@@ -326,13 +326,71 @@ def prep_context(
     seq = addition_order(plan, recipe, order)
     steps = addition_steps(plan, recipe, seq, custom=order is not None)
     blank_name, blank_sentence = blank_text(plan)
+    stocks = _stock_rows(plan, needs, to_mark)
+    target = plan.target
+    a_step = o.display_step if o.display_step > 0 else 0.001
+    c_unit, rows = _tube_rows(plan, a, seq, a_step, to_mark)
+    safe = safety_context(plan)
+    spectra = o.has_spectra
+    return {
+        "kind": "prep",
+        "a_heading": "Highest A of the spectrum (±2 sd)" if spectra else "Expected A (±2 sd)",
+        "blank_where": "over the whole spectrum" if spectra else "at the working wavelength",
+        "paper": paper,
+        "title": plan.title,
+        "date": date,
+        "facts": _prep_facts(plan, recipe, a, to_mark),
+        "blank": blank_sentence,
+        "blank_name": blank_name,
+        "verdict": a.verdict,
+        "verdict_reason": a.verdict_reason,
+        "failing": list(a.failed),
+        "stocks": stocks,
+        "steps": [{"text": s.text, "why": s.why} for s in steps],
+        "columns": [f"{sid}" for sid in seq],
+        "column_units": "mL",
+        "step_text": fmt.volume(step, step),
+        "reading_note": reading_note(plan, seq),
+        "makeup": f"{dil.id} to the mark / mL" if to_mark else None,
+        "target": target,
+        "target_label": fmt.species(target),
+        "conc_unit": c_unit,
+        "a_step": fmt.sig(a_step, 1),
+        "rows": rows,
+        "checklist": checklist(plan, blank_name),
+        "safety": safe,
+        "cmr": bool(safe["cmr"]),
+    }
+
+
+def _prep_facts(plan: Plan, recipe: Recipe, a: Assessment, to_mark: bool) -> list[tuple[str, str]]:
+    """The sheet's header: wavelength (or spectrum), path, linear range, tubes, temperature."""
+    g, o = plan.glassware, plan.optics
+    lo, hi = o.linear_range
+    return [
+        ("Spectrum", spectrum_text(plan))
+        if o.has_spectra
+        else ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"),
+        ("Path length", f"{fmt.fixed(o.path_cm, 0.001)} cm"),
+        ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
+        (
+            "Tubes",
+            f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL"
+            + (" volumetric flasks" if to_mark else ", every volume added"),
+        ),
+        ("Temperature", f"{fmt.sig(plan.temperature_C, 3)} °C"),
+        *_levelling_fact(plan, a),
+    ]
+
+
+def _stock_rows(plan: Plan, needs: Sequence[StockNeed], to_mark: bool) -> list[dict]:
+    """Each stock: its concentration, how to make it, how much is needed and what delivers it."""
     by_id = {n.id: n for n in needs}
     missing = [s.id for s in plan.stock if s.id not in by_id]
     if missing:
         raise RenderError(
             f"needs: no entry for stock(s) {', '.join(missing)}: pass stock_needs(plan, recipe)"
         )
-
     stocks = []
     for s in plan.stock:
         n = by_id[s.id]
@@ -365,20 +423,26 @@ def prep_context(
                 "warnings": warns,
             }
         )
+    return stocks
 
-    target = plan.target
-    lo, hi = o.linear_range
-    rows = []
-    a_step = o.display_step if o.display_step > 0 else 0.001
-    absorbance, half, complex_M = tube_columns(a, target)
+
+def _tube_rows(
+    plan: Plan, a: Assessment, seq: tuple[str, ...], a_step: float, to_mark: bool
+) -> tuple[str, list[dict]]:
+    """The complex's concentration unit and each tube's row: volumes in the order of addition, the
+    diluent to expect under to-mark, the expected absorbance band and the complex's concentration."""
+    step = plan.glassware.step_mL
+    lo, hi = plan.optics.linear_range
+    absorbance, half, complex_M = tube_columns(a, plan.target)
     bands = fmt.band_column(absorbance, half, a_step)
     c_unit, c_txt = fmt.conc_column(complex_M)
     vols = {sid: a.recipe.column(sid).tolist() for sid in a.recipe.stock_ids}
+    rows = []
     for i, tube in enumerate(a.recipe.tubes):
         cells = [("—" if vols[sid][i] == 0 else fmt.volume(vols[sid][i], step)) for sid in seq]
         # under to-mark the diluent is the remainder: say how much to expect, so a flask already
         # full before the diluent goes in is noticed at the bench
-        rest = fmt.volume(vols[dil.id][i], step) if to_mark else ""
+        rest = fmt.volume(vols[plan.diluent.id][i], step) if to_mark else ""
         rows.append(
             {
                 "tube": tube,
@@ -389,50 +453,7 @@ def prep_context(
                 "complex": c_txt[i],
             }
         )
-    safe = safety_context(plan)
-    spectra = o.has_spectra
-    return {
-        "kind": "prep",
-        "a_heading": "Highest A of the spectrum (±2 sd)" if spectra else "Expected A (±2 sd)",
-        "blank_where": "over the whole spectrum" if spectra else "at the working wavelength",
-        "paper": paper,
-        "title": plan.title,
-        "date": date,
-        "facts": [
-            ("Spectrum", spectrum_text(plan))
-            if o.has_spectra
-            else ("Wavelength", f"{fmt.sig(o.wavelength_nm, 3)} nm"),
-            ("Path length", f"{fmt.fixed(o.path_cm, 0.001)} cm"),
-            ("Linear range", f"A {fmt.fixed(lo, 0.01)}–{fmt.fixed(hi, 0.01)}"),
-            (
-                "Tubes",
-                f"{recipe.n_tubes} × {fmt.sig(g.tube_volume_mL, 3)} mL"
-                + (" volumetric flasks" if to_mark else ", every volume added"),
-            ),
-            ("Temperature", f"{fmt.sig(plan.temperature_C, 3)} °C"),
-            *_levelling_fact(plan, a),
-        ],
-        "blank": blank_sentence,
-        "blank_name": blank_name,
-        "verdict": a.verdict,
-        "verdict_reason": a.verdict_reason,
-        "failing": list(a.failed),
-        "stocks": stocks,
-        "steps": [{"text": s.text, "why": s.why} for s in steps],
-        "columns": [f"{sid}" for sid in seq],
-        "column_units": "mL",
-        "step_text": fmt.volume(step, step),
-        "reading_note": reading_note(plan, seq),
-        "makeup": f"{dil.id} to the mark / mL" if to_mark else None,
-        "target": target,
-        "target_label": fmt.species(target),
-        "conc_unit": c_unit,
-        "a_step": fmt.sig(a_step, 1),
-        "rows": rows,
-        "checklist": checklist(plan, blank_name),
-        "safety": safe,
-        "cmr": bool(safe["cmr"]),
-    }
+    return c_unit, rows
 
 
 # --------------------------------------------------------------------------------------------------
@@ -445,7 +466,7 @@ class DesignFacts:
 
     criterion: str | None = None
     efficiency_bound: float | None = None
-    se_ratio_vs_even: float | None = None
+    se_even_over_design: float | None = None
 
     @classmethod
     def of(cls, design) -> DesignFacts:
@@ -455,13 +476,15 @@ class DesignFacts:
     @classmethod
     def from_json(cls, data: Mapping) -> DesignFacts:
         """The facts of a ``design.json`` that ``kplan design --out`` wrote (keys missing or null: None)."""
-        return cls(data.get("criterion"), data.get("efficiency_bound"), data.get("se_ratio_vs_even"))
+        return cls(
+            data.get("criterion"), data.get("efficiency_bound"), data.get("se_ratio_vs_even")
+        )  # the JSON key
 
 
 _DESIGN_KEYS = (
     ("criterion", "criterion"),
     ("efficiency_bound", "efficiency bound (vs the best approximate design)"),
-    ("se_ratio_vs_even", "SE ratio against the evenly spaced series"),
+    ("se_even_over_design", "SE ratio against the evenly spaced series"),
 )
 
 

@@ -103,8 +103,8 @@ def titration_context(plan, recipe, assessment, *, date: str, paper: str) -> dic
 
 
 def titration_sheet(plan, recipe, assessment, *, paper: str = "A4", fmt_: str = "pdf", date=None) -> bytes:
-    from .render import check_paper_format, date_text, output_bytes, render_html
+    from .render import date_text, output_bytes, render_html, validate_paper_format
 
-    check_paper_format(paper, fmt_)
+    validate_paper_format(paper, fmt_)
     ctx = titration_context(plan, recipe, assessment, date=date_text(date), paper=paper)
     return output_bytes(render_html("titration_sheet.html.j2", ctx), fmt_)

@@ -63,6 +63,7 @@ def test_fit_reads_wide_and_long_spectra_and_writes_its_report(tmp_path, capsys,
     assert code == 0, err
     s = json.loads(out)
     assert s["determined"] and s["factors"]["significant_indicator"] == s["factors"]["above_noise"]
+    assert s["target_fitted"] is True
     assert (tmp_path / "f.pdf").read_bytes()[:4] == b"%PDF"
     long = tmp_path / "long.csv"
     rows = ["tube,wavelength_nm,absorbance"] + [
@@ -102,3 +103,26 @@ def test_example_and_shipped_scenario_are_the_same():
     assert (data / "spectra-ml-ml2-epsilon.csv").read_text() == (
         EX / "spectra-ml-ml2-epsilon.csv"
     ).read_text()
+
+
+def test_fit_of_spectra_with_the_target_held_says_so_and_exits_1(tmp_path, capsys, monkeypatch):
+    """Only the spectra and K2 are fitted when the plan holds K1 (the target) fixed: the readings did not
+    measure it, so the fit says so and exits 1, as assess calls such a plan unresolved."""
+    plan_path = _copy(tmp_path)
+    text = plan_path.read_text(encoding="utf-8")
+    held = tmp_path / "held.toml"
+    held.write_text(text.replace("log_beta_sd = 0.50", "log_beta_sd = 0.0", 1), encoding="utf-8")
+    plan = load_plan(held)
+    assert plan.species[0].name == plan.target and plan.species[0].log_beta_sd == 0
+    study = compile_study(plan)
+    data = simulated_spectra(study, parse_recipe_csv(DESIGNED, plan), np.random.default_rng(4))
+    wide = tmp_path / "wide.csv"
+    wide.write_text(spectra_readings_to_csv(data, plan), encoding="utf-8")
+    code, out, err = run_cli(capsys, monkeypatch, "fit", held, wide, "--json")
+    s = json.loads(out)
+    assert code == 1, err
+    assert s["target_fitted"] is False and f"log_beta[{plan.target}]" not in [
+        q["name"] for q in s["parameters"]
+    ]
+    code, out, _ = run_cli(capsys, monkeypatch, "fit", held, wide)
+    assert code == 1 and "target not fitted" in out and "held at the plan's value 3.30" in out

@@ -39,7 +39,15 @@ from ..compile import compile_study, expected_state
 from .core import CHI2_TAIL, N_STARTS, SE_LIMIT, covariance_at, fit_batch, reading_model
 from .outliers import standardised
 
-__all__ = ["N_STARTS", "Fit", "check_absorbances", "fit_readings", "fit_study", "not_determined"]
+__all__ = [
+    "N_STARTS",
+    "Fit",
+    "check_absorbances",
+    "fit_readings",
+    "fit_study",
+    "not_determined",
+    "target_fitted",
+]
 
 MAX_ABSORBANCE = 10.0  # no photometer reads beyond this; a larger number is a typo or another quantity
 
@@ -107,6 +115,12 @@ class Fit:
         return chi2_verdict(self)
 
     @property
+    def target_fitted(self) -> bool:
+        """False when the plan holds the target's constant fixed: the fit then estimates only the other
+        parameters and says nothing about the target."""
+        return target_fitted(self)
+
+    @property
     def interval_note(self) -> str:
         """What was done to the SEs and the interval because of the scatter ("" when nothing)."""
         if not self.determined:
@@ -133,6 +147,12 @@ def check_absorbances(values, labels, where: str) -> None:
             f"{where}, tube {labels[i]}: absorbance {a[i]:g} is not a reading: write a finite number between "
             f"{-MAX_ABSORBANCE:g} and {MAX_ABSORBANCE:g}"
         )
+
+
+def target_fitted(fit) -> bool:
+    """Whether a fit (of single readings or of whole spectra) estimated the target's log β: False when
+    the plan holds it fixed (its ``log_beta_sd = 0``), so that only ε or other constants were fitted."""
+    return f"log_beta[{fit.target}]" in fit.names
 
 
 def chi2_verdict(fit) -> str:

@@ -266,11 +266,11 @@ def assess_study(
         check_list.append(_identifiability_check(params, cr, model, state))
     det: tuple | None = None
     if model_check and precision and study.alternatives and params.size and params.target >= 0:
-        from .detection import ASSESS_FIX, POWER_TRIALS, model_check_result, recipe_detection
+        from .detection import ASSESS_FIX, POWER_TRIALS, model_check_finding, recipe_detection
 
         n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
         det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), n_det)
-        check_list.append(model_check_result(det, model_check_fix or ASSESS_FIX))
+        check_list.append(model_check_finding(det, model_check_fix or ASSESS_FIX))
     limits = None
     if cr is not None and params.target >= 0 and study.goal_se is not None:
         se_t = float(cr.se[params.target])

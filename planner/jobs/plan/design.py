@@ -48,7 +48,7 @@ from .candidates import (
 from .detection import DESIGN_FIX, POWER_TRIALS
 from .even import even_series_for
 from .limits import target_se
-from .model_check import finish_check, guard
+from .model_check import finish_model_check, guard
 
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
 
@@ -200,7 +200,7 @@ def design_study(
             + ", ".join(_budget_overruns(study, rec))
             + " (on_hand) or use fewer tubes"
         )
-    rec, check, a = _check_and_assess(
+    rec, model_check, a = _guard_and_assess(
         study, rec, final, crit, check_model, volumetric, seed, prior_tubes, notes
     )
     even = even_series_for(study, n)
@@ -225,14 +225,14 @@ def design_study(
         study.target,
         tuple(notes),
         a,
-        check,
+        model_check,
         verdict,
         reason,
         a.limits if prior_tubes is None else None,
     )
 
 
-def _check_and_assess(study: Study, rec, final, crit, check_model, volumetric, seed, prior, notes):
+def _guard_and_assess(study: Study, rec, final, crit, check_model, volumetric, seed, prior, notes):
     """The model check (when the plan asks for it) and the assessment of the recipe it leaves: the
     assessment simulates the detection power of that recipe only, and prices what would help."""
     use_check = study.check_weight > 0 if check_model is None else bool(check_model)
@@ -252,10 +252,12 @@ def _check_and_assess(study: Study, rec, final, crit, check_model, volumetric, s
         model_check_fix=DESIGN_FIX if outcome is not None else None,
         suggest=prior is None,
     )
-    check = (
-        finish_check(study, outcome, a.detection) if outcome is not None and rec is outcome.recipe else None
+    model_check = (
+        finish_model_check(study, outcome, a.detection)
+        if outcome is not None and rec is outcome.recipe
+        else None
     )
-    return rec, check, a
+    return rec, model_check, a
 
 
 def se_across_guess(

@@ -24,7 +24,7 @@ ASSESS_FIX = "spread the tubes over more compositions, or let kplan design guard
 DESIGN_FIX = "the model check above says how far any design on these candidates gets and what would reveal it"
 
 
-def model_check_result(det: tuple[Detection, ...], fix: str = ASSESS_FIX) -> Check:
+def model_check_finding(det: tuple[Detection, ...], fix: str = ASSESS_FIX) -> Check:
     """The "model-check" check: would the recipe's data reject the main model if an alternative were true?
 
     ``fix`` is what to do about a weak check (the design, which already guarded, says something else)."""

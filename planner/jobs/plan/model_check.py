@@ -243,7 +243,9 @@ def decide(
     )
 
 
-def finish_check(study: Study, outcome: GuardOutcome, chosen_detection: tuple[Detection, ...]) -> ModelCheck:
+def finish_model_check(
+    study: Study, outcome: GuardOutcome, chosen_detection: tuple[Detection, ...]
+) -> ModelCheck:
     """The printed model check: the chosen design's simulated power beside the other design's exact one."""
     other = outcome.exact_target_only if outcome.replaced else outcome.exact_guarded
     return ModelCheck(

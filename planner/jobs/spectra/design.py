@@ -31,7 +31,7 @@ from ..plan.candidates import Candidates, candidate_tubes, neighbourhood, recipe
 from ..plan.design import Design, se_across_guess
 from ..plan.detection import DESIGN_FIX, POWER_TRIALS
 from ..plan.even import even_series_for
-from ..plan.model_check import finish_check
+from ..plan.model_check import finish_model_check
 from .assess import assess_spectra
 from .model_check import spectra_guard
 from .precision import target_se_spectra
@@ -130,7 +130,7 @@ def design_spectra(
         study.target,
         tuple(notes),
         a,
-        finish_check(study, outcome, a.detection) if outcome is not None else None,
+        finish_model_check(study, outcome, a.detection) if outcome is not None else None,
         verdict=a.verdict,
         verdict_reason=a.verdict_reason,
     )

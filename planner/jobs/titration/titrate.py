@@ -60,7 +60,8 @@ class TitrationDesign:
     assessment: Assessment | None = field(default=None, repr=False, compare=False)
 
     @property
-    def se_ratio_vs_equal(self) -> float:
+    def se_equal_over_design(self) -> float:
+        """SE(equal aliquots) / SE(designed schedule): above 1 the design is better."""
         return self.se_equal / self.se_target if self.se_target > 0 else float("nan")
 
 
