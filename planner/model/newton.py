@@ -408,7 +408,7 @@ def _newton(lnb, sy, M, L, x, y):
             lnb, Mh, Lh = _take(lnb, keep), Mh[keep], Lh[keep]
             if fixM is not None:
                 fixM, fixL = fixM[keep], fixL[keep]
-        xa, ya, c, m, fl, TM, TL, rM, rL, psi = state
+        xa, ya, psi = state[0], state[1], state[9]
         dx, dy, t = _newton_direction(state, sy, fixM, fixL)
         new = _state(lnb, sy, xa + t * dx, ya + t * dy, Mh, Lh, fixM, fixL)
         accept = new[9] <= psi * (1.0 - 2.0 * _ARMIJO * t)  # Armijo, slope -2 psi per unit step
@@ -429,7 +429,7 @@ def _newton(lnb, sy, M, L, x, y):
 def _newton_direction(state, sy, fixM, fixL):
     """The Newton step (dx, dy) solving J d = -diag(TM, TL) R, and the step length t capping it at
     _MAX_STEP."""
-    xa, ya, c, m, fl, TM, TL, rM, rL, psi = state
+    _, _, c, m, fl, TM, TL, rM, rL, _ = state
     a, b, d, det = balance_jacobian(c, m, fl, fixM, fixL, sy)
     gM = TM * rM
     gL = TL * rL

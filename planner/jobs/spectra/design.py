@@ -93,14 +93,8 @@ def design_spectra(
     se_e = target_se_spectra(study, even)
     across = se_across_guess(study, rec, even, se=target_se_spectra)
     eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
-    a = replace(
-        a,
-        spectra=replace(
-            a.spectra,
-            se_single_wavelength_design=_single_wavelength_design(study, n, crit, rob, seed),
-            with_single_design=True,
-        ),
-    )
+    single = _single_wavelength_design(study, n, crit, rob, seed)
+    a = replace(a, spectra=replace(a.spectra, se_single_wavelength_design=single, with_single_design=True))
     return Design(
         rec,
         crit,
