@@ -29,6 +29,17 @@ ALLOWED = {
     ),
 }
 
+# Long commands and sheet contexts being split in parallel on another branch (issue 23 item 5, the
+# command line and paper layers): each held to its present length until that work lands, when the entry
+# must go (the test says so).
+IN_PROGRESS = {
+    "planner/cli/check.py::check": 131,
+    "planner/cli/series.py::series": 128,
+    "planner/paper/sheets.py::prep_context": 125,
+    "planner/cli/design.py::design": 95,
+    "planner/cli/cards.py::cards": 87,
+}
+
 
 def functions(path: Path) -> Iterator[tuple[str, ast.FunctionDef | ast.AsyncFunctionDef]]:
     """Every function and method of one file, named ``file::name``."""
@@ -65,6 +76,14 @@ def all_functions() -> list[tuple[str, ast.FunctionDef | ast.AsyncFunctionDef]]:
     return [f for path in sorted(PACKAGE.rglob("*.py")) for f in functions(path)]
 
 
+def by_name() -> dict[str, list[ast.FunctionDef | ast.AsyncFunctionDef]]:
+    """Functions by ``file::name`` (a name can repeat in a file: nested functions, methods)."""
+    found: dict[str, list] = {}
+    for name, node in all_functions():
+        found.setdefault(name, []).append(node)
+    return found
+
+
 def test_the_count_is_def_to_last_line_with_the_docstring():
     # derived: 1 def line + 3 docstring lines + 2 body lines = 6, the blank lines after it not counted
     tree = ast.parse('def f(x):\n    """One.\n\n    Two."""\n    y = x\n    return y\n\n\nz = 1\n')
@@ -76,7 +95,7 @@ def test_no_function_in_planner_is_over_80_lines():
     long = [
         f"{name}: {length(node)} lines"
         for name, node in all_functions()
-        if length(node) > MAX_LINES and name not in ALLOWED
+        if length(node) > MAX_LINES and name not in ALLOWED and name not in IN_PROGRESS
     ]
     assert not long, (
         f"functions over {MAX_LINES} lines (split them along the algorithm's seams: a step, a check's "
@@ -85,9 +104,7 @@ def test_no_function_in_planner_is_over_80_lines():
 
 
 def test_each_allowed_function_is_long_only_for_its_signature_and_docstring():
-    found: dict[str, list] = {}
-    for name, node in all_functions():
-        found.setdefault(name, []).append(node)
+    found = by_name()
     for name, reason in ALLOWED.items():
         assert reason
         assert name in found, f"{name} no longer exists: remove it from ALLOWED"
@@ -95,3 +112,11 @@ def test_each_allowed_function_is_long_only_for_its_signature_and_docstring():
         assert length(node) > MAX_LINES, f"{name} is {length(node)} lines now: remove it from ALLOWED"
         body = body_lines(node)
         assert body <= MAX_BODY_LINES, f"{name} has {body} lines of statements: split it"
+
+
+def test_functions_in_progress_do_not_grow():
+    found = by_name()
+    for name, most in IN_PROGRESS.items():
+        now = max((length(node) for node in found.get(name, [])), default=0)
+        assert now <= most, f"{name} grew from {most} to {now} lines: split it"
+        assert now > MAX_LINES, f"{name} is {now} lines now: remove it from IN_PROGRESS"
