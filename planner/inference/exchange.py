@@ -332,62 +332,26 @@ def exact_design(
     n = int(n_tubes)
     prob = dc.problem_of(F, criterion, target, M0, node_weights, float(n), True)
     if criterion == "all":
-        rank0 = (
-            0
-            if not prob.has_prior
-            else int(np.linalg.matrix_rank(np.asarray(M0, dtype=float).reshape(-1, prob.P, prob.P)).min())
-        )
-        if rank0 + n * prob.R < prob.P:
-            raise DesignError(
-                f"{plural(n, 'tube')} × {plural(prob.R, 'reading')} cannot determine {prob.P} parameters; "
-                "use at least "
-                f"{plural(-(-(prob.P - rank0) // prob.R), 'tube')} or add prior information M0"
-            )
-    if approx is None:
-        approx = approximate_design(
-            F, criterion=criterion, target=target, M0=M0, node_weights=node_weights, n_tubes=n
-        )
-    else:
-        if approx.weights.shape != (prob.C,) or approx.criterion != criterion or approx.target != prob.target:
-            raise DesignError(
-                "approx was computed for another problem; pass the approximate design of this "
-                "F, criterion and target (or omit it)"
-            )
-        if prob.has_prior and not np.isclose(approx.n_tubes, n):
-            raise DesignError(
-                f"approx was computed for {approx.n_tubes:g} tubes but n_tubes={n}; with M0 the "
-                f"optimum depends on n: recompute it with n_tubes={n}"
-            )
+        _check_rank(prob, M0, n)
+    approx = _approximate_for(
+        prob, approx, n, F=F, criterion=criterion, target=target, M0=M0, node_weights=node_weights
+    )
     w = approx.weights
     # Reference: the approximate design's loss at this n (identical scaling and ridge).
     sup_w = np.flatnonzero(w)
     Linv_a, logdet_a = dc.factor(dc.moment(prob, n * w[sup_w], sup_w))
     loss_approx = dc.loss_of(prob, Linv_a, logdet_a)
-    # Candidate pool: highest sensitivity under the approximate optimum (ordered, so that a permutation
-    # of the candidates permutes the pool), always including its support. The starts run on the
-    # pool; the best is then polished on all candidates.
-    d = dc.sensitivities(prob, Linv_a)
-    size = min(prob.C, max(_POOL_MIN, _POOL_PER_TUBE * n))
-    pool = dc.top_k(d, size)
-    pool = np.concatenate([pool, np.setdiff1d(sup_w, pool)])
     x_init = _initial_counts(initial, prob.C, n)
-    if x_init is not None:
-        pool = np.concatenate([pool, np.setdiff1d(np.flatnonzero(x_init), pool)])
-    sub = dc.restrict(prob, pool)
+    pool = _candidate_pool(prob, Linv_a, sup_w, n, x_init)
     max_steps = int(max_sweeps) * n
-    best = None
-    for s in range(int(starts) + (x_init is not None)):
-        if s == 0:
-            x0 = efficient_rounding(w[pool], n)
-        elif s == int(starts):
-            assert x_init is not None
-            x0 = x_init[pool]
-        else:
-            x0 = np.bincount(rng.integers(0, pool.size, size=n), minlength=pool.size).astype(np.int64)
-        st = _exchange(sub, x0, max_steps)
-        if best is None or st.loss < best.loss - _IMPROVE:
-            best = st
-    assert best is not None  # starts >= 1
+    best = _best_start(
+        dc.restrict(prob, pool),
+        w[pool],
+        n,
+        x_init if x_init is None else x_init[pool],
+        (int(starts), rng),
+        max_steps,
+    )
     x = np.zeros(prob.C, dtype=np.int64)
     x[pool] = best.x
     if pool.size < prob.C:
@@ -397,6 +361,75 @@ def exact_design(
     value = dc.value_of(prob, best.loss, best.Linv)
     eff = float(np.exp((loss_approx - best.loss) / prob.k)) if np.isfinite(value) else 0.0
     return ExactDesign(counts, value, eff, int(starts))
+
+
+def _check_rank(prob: Problem, M0, n: int) -> None:
+    """Refuse a D-optimal ("all") problem that n tubes and the prior information cannot determine."""
+    rank0 = (
+        0
+        if not prob.has_prior
+        else int(np.linalg.matrix_rank(np.asarray(M0, dtype=float).reshape(-1, prob.P, prob.P)).min())
+    )
+    if rank0 + n * prob.R < prob.P:
+        raise DesignError(
+            f"{plural(n, 'tube')} × {plural(prob.R, 'reading')} cannot determine {prob.P} parameters; "
+            "use at least "
+            f"{plural(-(-(prob.P - rank0) // prob.R), 'tube')} or add prior information M0"
+        )
+
+
+def _approximate_for(prob: Problem, approx: ApproximateDesign | None, n: int, **problem) -> ApproximateDesign:
+    """The approximate optimum for this problem: computed when omitted, else checked to belong to it."""
+    if approx is None:
+        return approximate_design(**problem, n_tubes=n)
+    if (
+        approx.weights.shape != (prob.C,)
+        or approx.criterion != problem["criterion"]
+        or approx.target != prob.target
+    ):
+        raise DesignError(
+            "approx was computed for another problem; pass the approximate design of this "
+            "F, criterion and target (or omit it)"
+        )
+    if prob.has_prior and not np.isclose(approx.n_tubes, n):
+        raise DesignError(
+            f"approx was computed for {approx.n_tubes:g} tubes but n_tubes={n}; with M0 the "
+            f"optimum depends on n: recompute it with n_tubes={n}"
+        )
+    return approx
+
+
+def _candidate_pool(prob: Problem, Linv_a, sup_w: np.ndarray, n: int, x_init) -> np.ndarray:
+    """The candidates the starts run on: highest sensitivity under the approximate optimum (ordered, so
+    that a permutation of the candidates permutes the pool), always including its support and the
+    support of the given initial design."""
+    d = dc.sensitivities(prob, Linv_a)
+    size = min(prob.C, max(_POOL_MIN, _POOL_PER_TUBE * n))
+    pool = dc.top_k(d, size)
+    pool = np.concatenate([pool, np.setdiff1d(sup_w, pool)])
+    if x_init is not None:
+        pool = np.concatenate([pool, np.setdiff1d(np.flatnonzero(x_init), pool)])
+    return pool
+
+
+def _best_start(sub: Problem, w_pool, n: int, x_init_pool, runs, max_steps: int) -> _State:
+    """The best of the exchange runs on the pool: from the efficient rounding of the approximate design,
+    from ``starts − 1`` random designs and (when given) from the initial design; ``runs`` = (starts, rng)."""
+    starts, rng = runs
+    best = None
+    for s in range(starts + (x_init_pool is not None)):
+        if s == 0:
+            x0 = efficient_rounding(w_pool, n)
+        elif s == starts:
+            assert x_init_pool is not None
+            x0 = x_init_pool
+        else:
+            x0 = np.bincount(rng.integers(0, w_pool.size, size=n), minlength=w_pool.size).astype(np.int64)
+        st = _exchange(sub, x0, max_steps)
+        if best is None or st.loss < best.loss - _IMPROVE:
+            best = st
+    assert best is not None  # starts >= 1
+    return best
 
 
 # --------------------------------------------------------------------------------------------------
@@ -479,41 +512,61 @@ def coordinate_exchange(
     F_pts, ok = info(pts)
     if not np.all(ok):
         raise DesignError("coordinate_exchange: every starting point must be allowed")
-    moves: list[tuple] = [("set", j) for j in range(d)]
     sh = None if shifts is None else np.asarray(shifts, dtype=float)
+    moves = _moves(d, sh, groups)
+    problem = (criterion, target, M0, node_weights)
+    for _ in range(int(max_sweeps)):
+        moved = False
+        for mv in moves:
+            var = _variants(pts, mv, levels, sh)
+            pts, F_pts, moved_now = _move_points(info, pts, F_pts, var, problem)
+            moved = moved or moved_now
+        if not moved:
+            break
+    return pts, F_pts
+
+
+def _moves(d: int, sh, groups) -> list[tuple]:
+    """A sweep's moves: set each coordinate; with shifts, move neighbouring pairs together (both signs);
+    with groups, put each coordinate in place of the others of its group."""
+    moves: list[tuple] = [("set", j) for j in range(d)]
     if sh is not None and d >= 2:
         pairs = [(j, (j + 1) % d) for j in range(d if d > 2 else 1)]
         moves += [("move", j, k, sign) for j, k in pairs for sign in (-1.0, 1.0)]
     for group in groups or ():
         if len(group) > 1:
             moves += [("swap", j, tuple(group)) for j in group]
-    for _ in range(int(max_sweeps)):
-        moved = False
-        for mv in moves:
-            var = _variants(pts, mv, levels, sh)
-            m = var.shape[0] // n
-            Fv, okv = info(var)
-            # one problem holds the design's points and every variant; the design is counts on it
-            prob = dc.problem_of(
-                np.concatenate([F_pts, Fv], axis=1), criterion, target, M0, node_weights, float(n), True
-            )
-            at = np.arange(n)  # where each point of the design sits among the problem's rows
-            x = np.zeros(prob.C, dtype=np.int64)
-            x[:n] = 1
+    return moves
+
+
+def _move_points(info, pts: np.ndarray, F_pts: np.ndarray, var: np.ndarray, problem):
+    """Point by point, move each point to its best allowed variant (``var``: m per point, in order) when
+    that lowers the loss; returns the points, their rows and whether any moved. ``problem`` =
+    (criterion, target, M0, node_weights)."""
+    n = pts.shape[0]
+    m = var.shape[0] // n
+    Fv, okv = info(var)
+    # one problem holds the design's points and every variant; the design is counts on it
+    criterion, target, M0, node_weights = problem
+    prob = dc.problem_of(
+        np.concatenate([F_pts, Fv], axis=1), criterion, target, M0, node_weights, float(n), True
+    )
+    at = np.arange(n)  # where each point of the design sits among the problem's rows
+    x = np.zeros(prob.C, dtype=np.int64)
+    x[:n] = 1
+    st = _State(prob, x)
+    moved = False
+    for i in range(n):
+        block = np.arange(n + i * m, n + (i + 1) * m)
+        delta = st.pair_delta(st.parts(block), st.parts(at[[i]]))[0]
+        delta = np.where(okv[i * m : (i + 1) * m], delta, np.inf)
+        b = int(np.argmin(delta))
+        if delta[b] < -_IMPROVE:
+            x[at[i]] -= 1
+            at[i] = block[b]
+            x[at[i]] += 1
             st = _State(prob, x)
-            for i in range(n):
-                block = np.arange(n + i * m, n + (i + 1) * m)
-                delta = st.pair_delta(st.parts(block), st.parts(at[[i]]))[0]
-                delta = np.where(okv[i * m : (i + 1) * m], delta, np.inf)
-                b = int(np.argmin(delta))
-                if delta[b] < -_IMPROVE:
-                    x[at[i]] -= 1
-                    at[i] = block[b]
-                    x[at[i]] += 1
-                    st = _State(prob, x)
-                    moved = True
-            pts = np.where((at >= n)[:, None], var[np.maximum(at - n, 0)], pts)
-            F_pts = np.where((at >= n)[None, :, None, None], Fv[:, np.maximum(at - n, 0)], F_pts)
-        if not moved:
-            break
-    return pts, F_pts
+            moved = True
+    pts = np.where((at >= n)[:, None], var[np.maximum(at - n, 0)], pts)
+    F_pts = np.where((at >= n)[None, :, None, None], Fv[:, np.maximum(at - n, 0)], F_pts)
+    return pts, F_pts, moved

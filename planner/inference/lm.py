@@ -314,6 +314,23 @@ def fit_many(
     theta, yy = batch_shapes(theta0, y)
     n_trials, n_params = theta.shape
     n_obs = yy.shape[1]
+    dof = _checked_settings(n_obs, n_params, scale_cov, max_iter, {"xtol": xtol, "ftol": ftol, "gtol": gtol})
+    lo, hi = bounds_of(lower, upper, n_params)
+    if np.any((theta < lo) | (theta > hi)):
+        raise FitError("theta0 lies outside [lower, upper]; start inside the bounds.")
+    weigh_res, weigh_jac = weighting(sigma, whiten, n_trials, n_obs)
+    jac_kind = _jacobian_kind(jac)
+    rcond = _rank_cutoff(jac_kind, n_obs, n_params)
+    tols = (int(max_iter), float(xtol), float(ftol), float(gtol))
+    with np.errstate(all="ignore"):  # wild trial points may overflow; such steps are rejected
+        ev = _Evaluator(model, jac, jac_kind, bool(rowwise), (n_trials, n_obs, n_params), lo, hi)
+        b = ev.start(theta, yy, weigh_res)
+        _iterate(b, ev, yy, weigh_res, weigh_jac, lo, hi, tols, rcond)
+        return _finish(b, ev, weigh_jac, dof, bool(scale_cov), rcond)
+
+
+def _checked_settings(n_obs: int, n_params: int, scale_cov: bool, max_iter, tolerances: dict) -> int:
+    """The degrees of freedom, after refusing too few observations and bad iteration or tolerance settings."""
     if n_obs < n_params:
         raise FitError(f"{n_obs} observations cannot determine {n_params} parameters; add observations.")
     dof = n_obs - n_params
@@ -324,33 +341,31 @@ def fit_many(
         )
     if int(max_iter) < 1:
         raise FitError(f"max_iter must be >= 1; got {max_iter}.")
-    for name, tol in (("xtol", xtol), ("ftol", ftol), ("gtol", gtol)):
+    for name, tol in tolerances.items():
         if not (np.isfinite(tol) and tol >= 0):
             raise FitError(f"{name} must be a finite number >= 0; got {tol}.")
-    lo, hi = bounds_of(lower, upper, n_params)
-    if np.any((theta < lo) | (theta > hi)):
-        raise FitError("theta0 lies outside [lower, upper]; start inside the bounds.")
-    weigh_res, weigh_jac = weighting(sigma, whiten, n_trials, n_obs)
+    return dof
+
+
+def _jacobian_kind(jac) -> str:
+    """The Jacobian's kind: "analytic" for a callable, else the difference formula ("2-point" by default)."""
     if callable(jac):
-        jac_kind = "analytic"
-    elif jac in (None, "2-point", "3-point"):
-        jac_kind = "3-point" if jac == "3-point" else "2-point"
-    else:
-        raise FitError(f"jac must be a callable, '2-point', '3-point' or None; got {jac!r}.")
+        return "analytic"
+    if jac in (None, "2-point", "3-point"):
+        return "3-point" if jac == "3-point" else "2-point"
+    raise FitError(f"jac must be a callable, '2-point', '3-point' or None; got {jac!r}.")
+
+
+def _rank_cutoff(jac_kind: str, n_obs: int, n_params: int) -> float:
+    """Relative cut-off rcond of the singular values."""
     # Singular values below rcond·s_max are indistinguishable from zero given how accurately the
     # Jacobian is known: rounding for an analytic one (as in numpy.linalg.matrix_rank), the
     # truncation/rounding error of the difference formula otherwise.
-    rcond = {
+    return {
         "analytic": max(n_obs, n_params) * _EPS,
         "2-point": 10.0 * np.sqrt(_EPS),
         "3-point": 10.0 * _EPS ** (2.0 / 3.0),
     }[jac_kind]
-    tols = (int(max_iter), float(xtol), float(ftol), float(gtol))
-    with np.errstate(all="ignore"):  # wild trial points may overflow; such steps are rejected
-        ev = _Evaluator(model, jac, jac_kind, bool(rowwise), (n_trials, n_obs, n_params), lo, hi)
-        b = ev.start(theta, yy, weigh_res)
-        _iterate(b, ev, yy, weigh_res, weigh_jac, lo, hi, tols, rcond)
-        return _finish(b, ev, weigh_jac, dof, bool(scale_cov), rcond)
 
 
 class _Evaluator:

@@ -176,35 +176,9 @@ def predict(
     correct = model.activity_model != "none" and model.reference_ionic_strength_M is not None
     lb_tube = np.broadcast_to(lb, totals.shape[:-1] + (len(model.species),))
     if correct:
-        lb0 = activity.log_beta_to_zero_ionic_strength(
-            lb,
-            model.stoich,
-            model.charges,
-            model.reference_ionic_strength_M,
-            model=model.activity_model,
-            sizes_angstrom=model.sizes_angstrom,
-            temperature_C=model.temperature_C,
-        )
-        # start from the ions alone, then iterate I -> constants -> speciation -> I
-        I = ionic_strength_M(model, M0, L0, np.zeros(lb_tube.shape), ion_M)
-        for _ in range(ACTIVITY_ITERATIONS):
-            lb_tube = activity.log_beta_at_ionic_strength(
-                lb0,
-                model.stoich,
-                model.charges,
-                I,
-                model=model.activity_model,
-                sizes_angstrom=model.sizes_angstrom,
-                temperature_C=model.temperature_C,
-            )
-            spec = speciation.speciate(
-                M0, L0, model.stoich_pq, closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH)
-            )
-            I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
+        spec, I, lb_tube = _speciate_with_activity(model, M0, L0, lb, lb_tube, ion_M)
     else:
-        spec = speciation.speciate(
-            M0, L0, model.stoich_pq, closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH)
-        )
+        spec = _speciate_at(model, M0, L0, lb_tube)
         I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
     if warn and correct and model.activity_model == "davies" and np.any(I > IONIC_STRENGTH_WARN_M):
         warnings.warn(
@@ -232,6 +206,42 @@ def predict(
         absorbance_sd=sd,
         saturation=saturation(model, totals, spec.species_M),
     )
+
+
+def _speciate_at(model: Model, M0, L0, lb_tube):
+    """Speciation of every tube at its constants (conditional on the plan's pH)."""
+    return speciation.speciate(
+        M0, L0, model.stoich_pq, closed_forms.conditional_log_beta(lb_tube, model.stoich, model.pH)
+    )
+
+
+def _speciate_with_activity(model: Model, M0, L0, lb, lb_tube, ion_M):
+    """Speciation with the constants corrected to each tube's ionic strength: start from the ions alone,
+    then iterate I -> constants -> speciation -> I (ACTIVITY_ITERATIONS times). Returns the speciation,
+    the ionic strength and the constants used."""
+    lb0 = activity.log_beta_to_zero_ionic_strength(
+        lb,
+        model.stoich,
+        model.charges,
+        model.reference_ionic_strength_M,
+        model=model.activity_model,
+        sizes_angstrom=model.sizes_angstrom,
+        temperature_C=model.temperature_C,
+    )
+    I = ionic_strength_M(model, M0, L0, np.zeros(lb_tube.shape), ion_M)
+    for _ in range(ACTIVITY_ITERATIONS):
+        lb_tube = activity.log_beta_at_ionic_strength(
+            lb0,
+            model.stoich,
+            model.charges,
+            I,
+            model=model.activity_model,
+            sizes_angstrom=model.sizes_angstrom,
+            temperature_C=model.temperature_C,
+        )
+        spec = _speciate_at(model, M0, L0, lb_tube)
+        I = ionic_strength_M(model, spec.free_M, spec.free_L, spec.species_M, ion_M)
+    return spec, I, lb_tube
 
 
 def saturation(

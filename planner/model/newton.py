@@ -133,59 +133,24 @@ def _solve_p1(lnb, sy, M, L):
     """
     n = M.size
     S = sy.S
-    p, q = sy.p, sy.q
     ok = np.zeros(n, dtype=bool)
     c_out = np.zeros((S, n))
     m_out = np.zeros(n)
     l_out = np.zeros(n)
     lnM, lnL = _ln_totals(M, L)
     live = L > 0.0
-    # L_tot = 0: no ligand; [M] = M_tot / (1 + sum of (1, 0) side species), solved in closed form
     if not np.all(live):
-        dead = np.flatnonzero(~live)
-        lnd = lnb.take(dead, axis=1)
-        w = np.where((q == 0)[:, None], np.exp(lnd), 0.0)  # only q = 0 species survive without L
-        md = M[dead] / (1.0 + (p @ w))
-        _put(c_out, dead, w * md)
-        m_out[dead] = md
-        ok[dead] = True
+        _no_ligand(lnb, sy, M, ~live, (ok, c_out, m_out))
         idx = np.flatnonzero(live)
         lnb, M, L, lnM, lnL = lnb.take(idx, axis=1), M[idx], L[idx], lnM[idx], lnL[idx]
     else:
         idx = np.arange(n)
-    target = lnL - np.log(S + 1.0)
-    lo = target
-    with np.errstate(over="ignore", invalid="ignore"):
-        for s in range(S):  # loop over species, vectorised over tubes
-            if q[s] >= 1:
-                bound = (target - np.log(q[s]) - lnb[s] - (p[s] * lnM if p[s] else 0.0)) / q[s]
-                lo = np.minimum(lo, bound)
-    hi = lnL.copy()
-    if sy.one_one is not None:
-        with np.errstate(over="ignore"):
-            K = np.exp(lnb[sy.one_one])
-        with np.errstate(divide="ignore", invalid="ignore"):
-            y = np.log(one_to_one_free(L, M, K))
-        y = np.where(np.isfinite(y), np.minimum(np.maximum(y, lo), hi), hi)
-    else:
-        y = hi.copy()
+    lo, hi = _p1_bracket(lnb, sy, lnM, lnL)
+    y = _p1_start(lnb, sy, M, L, lo, hi)
     lnbB = lnb[sy.B]
     lnbA = lnb[sy.A] if sy.A.size else None
     for _ in range(_MAX_NEWTON):
-        fl = np.exp(y)
-        w = np.exp(lnbB + sy.qB[:, None] * y)
-        alpha = 1.0 + w.sum(0)
-        g = sy.qB @ w
-        lag = sy.qB2 @ w
-        for s, t, wt in sy.pairs_B:  # loop over species pairs, vectorised over tubes
-            lag += wt * (w[s] * w[t])
-        fm = M / alpha
-        TL = fl + fm * g
-        dTL = fl + fm * lag / alpha
-        if lnbA is not None:
-            cA = np.exp(lnbA + sy.qA[:, None] * y)
-            TL += sy.qA @ cA
-            dTL += sy.qA2 @ cA
+        fl, w, fm, cA, TL, dTL = _p1_balance(y, lnbB, lnbA, M, sy)
         r = np.log(TL / L)
         done = np.abs(r) <= _TOL_RES
         if done.any():
@@ -214,6 +179,65 @@ def _solve_p1(lnb, sy, M, L):
         yn = np.where((yn > lo) & (yn < hi), yn, 0.5 * (lo + hi))
         y = yn
     return ok, c_out, m_out, l_out
+
+
+def _no_ligand(lnb, sy, M, dead_mask, out) -> None:
+    """L_tot = 0: no ligand; [M] = M_tot / (1 + sum of (1, 0) side species), solved in closed form and
+    written into ``out`` = (ok, species, free [M])."""
+    ok, c_out, m_out = out
+    dead = np.flatnonzero(dead_mask)
+    lnd = lnb.take(dead, axis=1)
+    w = np.where((sy.q == 0)[:, None], np.exp(lnd), 0.0)  # only q = 0 species survive without L
+    md = M[dead] / (1.0 + (sy.p @ w))
+    _put(c_out, dead, w * md)
+    m_out[dead] = md
+    ok[dead] = True
+
+
+def _p1_bracket(lnb, sy, lnM, lnL):
+    """The bracket on y = ln[L]: [L] = L_tot above, and below the least [L] at which some term of TL
+    reaches L_tot/(S+1)."""
+    p, q = sy.p, sy.q
+    target = lnL - np.log(sy.S + 1.0)
+    lo = target
+    with np.errstate(over="ignore", invalid="ignore"):
+        for s in range(sy.S):  # loop over species, vectorised over tubes
+            if q[s] >= 1:
+                bound = (target - np.log(q[s]) - lnb[s] - (p[s] * lnM if p[s] else 0.0)) / q[s]
+                lo = np.minimum(lo, bound)
+    return lo, lnL.copy()
+
+
+def _p1_start(lnb, sy, M, L, lo, hi):
+    """The start: the exact 1:1 free ligand (inside the bracket) when a 1:1 complex is present, else L_tot."""
+    if sy.one_one is None:
+        return hi.copy()
+    with np.errstate(over="ignore"):
+        K = np.exp(lnb[sy.one_one])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        y = np.log(one_to_one_free(L, M, K))
+    return np.where(np.isfinite(y), np.minimum(np.maximum(y, lo), hi), hi)
+
+
+def _p1_balance(y, lnbB, lnbA, M, sy):
+    """The ligand balance TL(y) and its derivative dTL/dy (Lagrange's identity), with free [L], the
+    weights w of the species holding one M, free [M] and the p = 0 species' concentrations (or None)."""
+    fl = np.exp(y)
+    w = np.exp(lnbB + sy.qB[:, None] * y)
+    alpha = 1.0 + w.sum(0)
+    g = sy.qB @ w
+    lag = sy.qB2 @ w
+    for s, t, wt in sy.pairs_B:  # loop over species pairs, vectorised over tubes
+        lag += wt * (w[s] * w[t])
+    fm = M / alpha
+    TL = fl + fm * g
+    dTL = fl + fm * lag / alpha
+    cA = None
+    if lnbA is not None:
+        cA = np.exp(lnbA + sy.qA[:, None] * y)
+        TL += sy.qA @ cA
+        dTL += sy.qA2 @ cA
+    return fl, w, fm, cA, TL, dTL
 
 
 def _ln_totals(M, L):
@@ -384,37 +408,11 @@ def _newton(lnb, sy, M, L, x, y):
             lnb, Mh, Lh = _take(lnb, keep), Mh[keep], Lh[keep]
             if fixM is not None:
                 fixM, fixL = fixM[keep], fixL[keep]
-        xa, ya, c, m, fl, TM, TL, rM, rL, psi = state
-        a, b, d, det = balance_jacobian(c, m, fl, fixM, fixL, sy)
-        gM = TM * rM
-        gL = TL * rL
-        dx = (b * gL - d * gM) / det
-        dy = (b * gM - a * gL) / det
-        t = _MAX_STEP / np.maximum(np.maximum(np.abs(dx), np.abs(dy)), _MAX_STEP)  # step cap, no 0/0
+        xa, ya, psi = state[0], state[1], state[9]
+        dx, dy, t = _newton_direction(state, sy, fixM, fixL)
         new = _state(lnb, sy, xa + t * dx, ya + t * dy, Mh, Lh, fixM, fixL)
         accept = new[9] <= psi * (1.0 - 2.0 * _ARMIJO * t)  # Armijo, slope -2 psi per unit step
-        pending = np.flatnonzero(~accept)
-        for _ in range(_MAX_HALVINGS):  # halve the step of the tubes that fail, until Armijo holds
-            if pending.size == 0:
-                break
-            t[pending] *= 0.5
-            tp = t[pending]
-            trial = _state(
-                _take(lnb, pending),
-                sy,
-                xa[pending] + tp * dx[pending],
-                ya[pending] + tp * dy[pending],
-                Mh[pending],
-                Lh[pending],
-                None if fixM is None else fixM[pending],
-                None if fixL is None else fixL[pending],
-            )
-            good = np.flatnonzero(trial[9] <= psi[pending] * (1.0 - 2.0 * _ARMIJO * tp))
-            gi = pending[good]
-            for v, w in zip(new, trial, strict=True):
-                _put(v, gi, _take(w, good))
-            accept[gi] = True
-            pending = pending[~accept[pending]]
+        _backtrack(new, accept, t, psi, (lnb, sy, xa, ya, dx, dy, Mh, Lh, fixM, fixL))
         # a tube whose line search failed keeps its point and leaves at the next check
         stalled = ~accept
         if stalled.any():
@@ -426,6 +424,47 @@ def _newton(lnb, sy, M, L, x, y):
         for dst, v in zip((x_out, y_out, c_out, m_out, l_out), state[:5], strict=True):
             _put(dst, idx, v)
     return x_out, y_out, ok, c_out, m_out, l_out
+
+
+def _newton_direction(state, sy, fixM, fixL):
+    """The Newton step (dx, dy) solving J d = -diag(TM, TL) R, and the step length t capping it at
+    _MAX_STEP."""
+    _, _, c, m, fl, TM, TL, rM, rL, _ = state
+    a, b, d, det = balance_jacobian(c, m, fl, fixM, fixL, sy)
+    gM = TM * rM
+    gL = TL * rL
+    dx = (b * gL - d * gM) / det
+    dy = (b * gM - a * gL) / det
+    t = _MAX_STEP / np.maximum(np.maximum(np.abs(dx), np.abs(dy)), _MAX_STEP)  # step cap, no 0/0
+    return dx, dy, t
+
+
+def _backtrack(new, accept, t, psi, point) -> None:
+    """Halve the step of the tubes that fail the Armijo test until it holds (at most _MAX_HALVINGS times),
+    updating ``new`` (the trial state), ``accept`` and ``t`` in place."""
+    lnb, sy, xa, ya, dx, dy, Mh, Lh, fixM, fixL = point
+    pending = np.flatnonzero(~accept)
+    for _ in range(_MAX_HALVINGS):
+        if pending.size == 0:
+            break
+        t[pending] *= 0.5
+        tp = t[pending]
+        trial = _state(
+            _take(lnb, pending),
+            sy,
+            xa[pending] + tp * dx[pending],
+            ya[pending] + tp * dy[pending],
+            Mh[pending],
+            Lh[pending],
+            None if fixM is None else fixM[pending],
+            None if fixL is None else fixL[pending],
+        )
+        good = np.flatnonzero(trial[9] <= psi[pending] * (1.0 - 2.0 * _ARMIJO * tp))
+        gi = pending[good]
+        for v, w in zip(new, trial, strict=True):
+            _put(v, gi, _take(w, good))
+        accept[gi] = True
+        pending = pending[~accept[pending]]
 
 
 def _take(v, ix):

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -109,60 +110,21 @@ def sensitivities(spec: Speciation, stoich_pq, log_beta_cond) -> Sensitivity:
     fl = np.asarray(spec.free_L, dtype=float).reshape(n)
     zM = M == 0.0
     zL = L == 0.0
-    onlyM0 = zM & ~zL
-    onlyL0 = zL & ~zM
     P = p[:, None]
     Q = q[:, None]
 
     a, b, d, det = balance_jacobian(c, m, fl, zM.astype(float), zL.astype(float), sy)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        inv = 1.0 / det
-        pc = P * c
-        qc = Q * c
-        # regular tubes: J^-1 = [[d, -b], [-b, a]] / det
-        dx_db = (b * qc - d * pc) * inv  # (S, n): d ln[M] / d ln beta_j
-        dy_db = (b * pc - a * qc) * inv
-        dx_dM, dy_dM = d * inv, -b * inv
-        dx_dL, dy_dL = -b * inv, a * inv
-
-        # concentrations per unit of a zero component: beta [L]^q for p = 1 species, beta [M]^p for q = 1
-        lnm = np.where(m > 0.0, np.log(np.where(m > 0.0, m, 1.0)), LN_ZERO)
-        lnl = np.where(fl > 0.0, np.log(np.where(fl > 0.0, fl, 1.0)), LN_ZERO)
-        per_m = np.where(P == 1, np.exp(lnb + Q * lnl), 0.0)
-        per_l = np.where(Q == 1, np.exp(lnb + P * lnm), 0.0)
-        alpha_m = 1.0 + per_m.sum(0)
-        alpha_l = 1.0 + per_l.sum(0)
-        JLL = fl + sy.q2 @ c
-        JMM = m + sy.p2 @ c
-        # M_tot = 0 < L_tot (only p = 0 species are present)
-        dy_db = np.where(onlyM0, -qc / JLL, dy_db)
-        dy_dM = np.where(onlyM0, -(q @ per_m) / (alpha_m * JLL), dy_dM)
-        dy_dL = np.where(onlyM0, 1.0 / JLL, dy_dL)
-        # L_tot = 0 < M_tot (only q = 0 species are present)
-        dx_db = np.where(onlyL0, -pc / JMM, dx_db)
-        dx_dL = np.where(onlyL0, -(p @ per_l) / (alpha_l * JMM), dx_dL)
-        dx_dM = np.where(onlyL0, 1.0 / JMM, dx_dM)
+        du = _regular_derivatives(a, b, d, det, P * c, Q * c)
+        du, per_m, per_l, alpha_m, alpha_l = _zero_total_limits(
+            du, c, m, fl, lnb, p, q, sy, zM & ~zL, zL & ~zM
+        )
     # the log of a zero component has no derivative: report 0 (see Sensitivity, Notes)
-    dx_db = np.where(zM, 0.0, dx_db)
-    dx_dM = np.where(zM, 0.0, dx_dM)
-    dx_dL = np.where(zM, 0.0, dx_dL)
-    dy_db = np.where(zL, 0.0, dy_db)
-    dy_dM = np.where(zL, 0.0, dy_dM)
-    dy_dL = np.where(zL, 0.0, dy_dL)
-
-    present = c > 0.0
-    dlnc_db = np.eye(S)[:, :, None] + P[:, :, None] * dx_db[None] + Q[:, :, None] * dy_db[None]
-    dlnc_db = np.where(present[:, None, :], dlnc_db, 0.0)  # (S species, S constants, n)
-    dlnc_dM = np.where(present, P * dx_dM + Q * dy_dM, 0.0)
-    dlnc_dL = np.where(present, P * dx_dL + Q * dy_dL, 0.0)
-
-    # absolute first-order responses, including the limits at a zero total
-    dm_dM = np.where(zM, 1.0 / alpha_m, m * dx_dM)
-    dm_dL = np.where(zM, 0.0, m * dx_dL)
-    dl_dL = np.where(zL, 1.0 / alpha_l, fl * dy_dL)
-    dl_dM = np.where(zL, 0.0, fl * dy_dM)
-    dc_dM = c * dlnc_dM + np.where(zM, per_m / alpha_m, 0.0)
-    dc_dL = c * dlnc_dL + np.where(zL, per_l / alpha_l, 0.0)
+    du = _without_zero_logs(du, zM, zL)
+    dlnc_db, dlnc_dM, dlnc_dL = _species_log_derivatives(du, c, P, Q)
+    dc_dM, dc_dL, free = _absolute_responses(
+        du, c, m, fl, (dlnc_dM, dlnc_dL), zM, zL, (per_m, per_l), (alpha_m, alpha_l)
+    )
 
     def out(arr, tail=()):
         # (..., n) species-major -> batch + tail
@@ -172,16 +134,106 @@ def sensitivities(spec: Speciation, stoich_pq, log_beta_cond) -> Sensitivity:
         dlnc_dlnbeta=out(dlnc_db, (S, S)),
         dlnc_dMtot=out(dlnc_dM, (S,)),
         dlnc_dLtot=out(dlnc_dL, (S,)),
-        dlnfree_M_dlnbeta=out(dx_db, (S,)),
-        dlnfree_L_dlnbeta=out(dy_db, (S,)),
-        dlnfree_M_dMtot=out(dx_dM),
-        dlnfree_M_dLtot=out(dx_dL),
-        dlnfree_L_dMtot=out(dy_dM),
-        dlnfree_L_dLtot=out(dy_dL),
+        dlnfree_M_dlnbeta=out(du.dx_db, (S,)),
+        dlnfree_L_dlnbeta=out(du.dy_db, (S,)),
+        dlnfree_M_dMtot=out(du.dx_dM),
+        dlnfree_M_dLtot=out(du.dx_dL),
+        dlnfree_L_dMtot=out(du.dy_dM),
+        dlnfree_L_dLtot=out(du.dy_dL),
         dc_dMtot=out(dc_dM, (S,)),
         dc_dLtot=out(dc_dL, (S,)),
-        dfree_M_dMtot=out(dm_dM),
-        dfree_M_dLtot=out(dm_dL),
-        dfree_L_dMtot=out(dl_dM),
-        dfree_L_dLtot=out(dl_dL),
+        **{k: out(v) for k, v in free.items()},
+    )
+
+
+def _species_log_derivatives(du: _FreeLogDerivatives, c, P, Q):
+    """d ln[s] = delta_sj d ln beta_j + p_s dx + q_s dy, by ln β (S, S, n) and by each total (S, n); 0 for
+    absent species."""
+    present = c > 0.0
+    S = c.shape[0]
+    dlnc_db = np.eye(S)[:, :, None] + P[:, :, None] * du.dx_db[None] + Q[:, :, None] * du.dy_db[None]
+    dlnc_db = np.where(present[:, None, :], dlnc_db, 0.0)  # (S species, S constants, n)
+    dlnc_dM = np.where(present, P * du.dx_dM + Q * du.dy_dM, 0.0)
+    dlnc_dL = np.where(present, P * du.dx_dL + Q * du.dy_dL, 0.0)
+    return dlnc_db, dlnc_dM, dlnc_dL
+
+
+def _absolute_responses(du, c, m, fl, dlnc, zM, zL, per, alpha):
+    """Absolute first-order responses to the totals (species (S, n), free components (n,)), including the
+    limits at a zero total."""
+    dlnc_dM, dlnc_dL = dlnc
+    per_m, per_l = per
+    alpha_m, alpha_l = alpha
+    dc_dM = c * dlnc_dM + np.where(zM, per_m / alpha_m, 0.0)
+    dc_dL = c * dlnc_dL + np.where(zL, per_l / alpha_l, 0.0)
+    free = {
+        "dfree_M_dMtot": np.where(zM, 1.0 / alpha_m, m * du.dx_dM),
+        "dfree_M_dLtot": np.where(zM, 0.0, m * du.dx_dL),
+        "dfree_L_dMtot": np.where(zL, 0.0, fl * du.dy_dM),
+        "dfree_L_dLtot": np.where(zL, 1.0 / alpha_l, fl * du.dy_dL),
+    }
+    return dc_dM, dc_dL, free
+
+
+class _FreeLogDerivatives(NamedTuple):
+    """Derivatives of x = ln[M] and y = ln[L] by ln β_j (S, n) and by each total (n,)."""
+
+    dx_db: np.ndarray
+    dy_db: np.ndarray
+    dx_dM: np.ndarray
+    dy_dM: np.ndarray
+    dx_dL: np.ndarray
+    dy_dL: np.ndarray
+
+
+def _regular_derivatives(a, b, d, det, pc, qc) -> _FreeLogDerivatives:
+    """Tubes with both totals positive: J^-1 = [[d, -b], [-b, a]] / det applied to -dF/dθ."""
+    inv = 1.0 / det
+    return _FreeLogDerivatives(
+        dx_db=(b * qc - d * pc) * inv,  # (S, n): d ln[M] / d ln beta_j
+        dy_db=(b * pc - a * qc) * inv,
+        dx_dM=d * inv,
+        dy_dM=-b * inv,
+        dx_dL=-b * inv,
+        dy_dL=a * inv,
+    )
+
+
+def _zero_total_limits(du: _FreeLogDerivatives, c, m, fl, lnb, p, q, sy, onlyM0, onlyL0):
+    """The one-sided limits where one total is zero (the triangular systems of the docstring) in place of
+    the regular derivatives, with the concentrations per unit of a zero component and their sums α."""
+    P = p[:, None]
+    Q = q[:, None]
+    # concentrations per unit of a zero component: beta [L]^q for p = 1 species, beta [M]^p for q = 1
+    lnm = np.where(m > 0.0, np.log(np.where(m > 0.0, m, 1.0)), LN_ZERO)
+    lnl = np.where(fl > 0.0, np.log(np.where(fl > 0.0, fl, 1.0)), LN_ZERO)
+    per_m = np.where(P == 1, np.exp(lnb + Q * lnl), 0.0)
+    per_l = np.where(Q == 1, np.exp(lnb + P * lnm), 0.0)
+    alpha_m = 1.0 + per_m.sum(0)
+    alpha_l = 1.0 + per_l.sum(0)
+    JLL = fl + sy.q2 @ c
+    JMM = m + sy.p2 @ c
+    pc, qc = P * c, Q * c
+    du = _FreeLogDerivatives(
+        # L_tot = 0 < M_tot (only q = 0 species are present): the x row
+        dx_db=np.where(onlyL0, -pc / JMM, du.dx_db),
+        # M_tot = 0 < L_tot (only p = 0 species are present): the y row
+        dy_db=np.where(onlyM0, -qc / JLL, du.dy_db),
+        dx_dM=np.where(onlyL0, 1.0 / JMM, du.dx_dM),
+        dy_dM=np.where(onlyM0, -(q @ per_m) / (alpha_m * JLL), du.dy_dM),
+        dx_dL=np.where(onlyL0, -(p @ per_l) / (alpha_l * JMM), du.dx_dL),
+        dy_dL=np.where(onlyM0, 1.0 / JLL, du.dy_dL),
+    )
+    return du, per_m, per_l, alpha_m, alpha_l
+
+
+def _without_zero_logs(du: _FreeLogDerivatives, zM, zL) -> _FreeLogDerivatives:
+    """Zero where the component's total is zero: the log of a zero component has no derivative."""
+    return _FreeLogDerivatives(
+        dx_db=np.where(zM, 0.0, du.dx_db),
+        dy_db=np.where(zL, 0.0, du.dy_db),
+        dx_dM=np.where(zM, 0.0, du.dx_dM),
+        dy_dM=np.where(zL, 0.0, du.dy_dM),
+        dx_dL=np.where(zM, 0.0, du.dx_dL),
+        dy_dL=np.where(zL, 0.0, du.dy_dL),
     )

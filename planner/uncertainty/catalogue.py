@@ -301,27 +301,40 @@ def lookup(
         ),
         None,
     )
+    figures = (graduation_mL, random_mL, repeatability_mL)
     if base is None:
-        if tolerance_mL is None:
-            shown = f"{capacity_mL * 1000.0:g} µL" if kind == "micropipette" else f"{capacity_mL:g} mL"
-            raise GlasswareError(
-                f"no {kind} of {shown} in the glassware catalogue; it has {_describe_capacities(kind)}. "
-                "Pick one of those, or give tolerance_mL for your own device"
-            )
-        # A user-supplied device: the user vouches for the tolerance (and the class, if they name one).
-        return GlasswareItem(
-            kind=kind,
-            capacity_mL=float(capacity_mL),
-            cls=cls,
-            tolerance_mL=float(tolerance_mL),
-            graduation_mL=graduation_mL,
-            random_mL=random_mL,
-            source="user-supplied tolerance",
-            from_memory=False,
-            repeatability_mL=repeatability_mL,
-        )
+        return _user_device(kind, capacity_mL, cls, tolerance_mL, figures)
+    return _adapted(base, cls, tolerance_mL, figures)
 
-    item = base
+
+def _user_device(kind: str, capacity_mL: float, cls, tolerance_mL, figures) -> GlasswareItem:
+    """A device the catalogue lacks, described by the user's tolerance (refused without one).
+    ``figures`` = (graduation_mL, random_mL, repeatability_mL)."""
+    graduation_mL, random_mL, repeatability_mL = figures
+    if tolerance_mL is None:
+        shown = f"{capacity_mL * 1000.0:g} µL" if kind == "micropipette" else f"{capacity_mL:g} mL"
+        raise GlasswareError(
+            f"no {kind} of {shown} in the glassware catalogue; it has {_describe_capacities(kind)}. "
+            "Pick one of those, or give tolerance_mL for your own device"
+        )
+    # A user-supplied device: the user vouches for the tolerance (and the class, if they name one).
+    return GlasswareItem(
+        kind=kind,
+        capacity_mL=float(capacity_mL),
+        cls=cls,
+        tolerance_mL=float(tolerance_mL),
+        graduation_mL=graduation_mL,
+        random_mL=random_mL,
+        source="user-supplied tolerance",
+        from_memory=False,
+        repeatability_mL=repeatability_mL,
+    )
+
+
+def _adapted(item: GlasswareItem, cls, tolerance_mL, figures) -> GlasswareItem:
+    """A catalogue device in class B (twice class A's tolerance) and with the user's own figures, if given.
+    ``figures`` = (graduation_mL, random_mL, repeatability_mL)."""
+    graduation_mL, random_mL, repeatability_mL = figures
     if cls == "B":
         item = replace(
             item,

@@ -16,7 +16,7 @@ import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 
@@ -387,28 +387,12 @@ def prepare_stock(
         minimum weight.
     """
     final = _as_flask(flask)
-    conc = float(conc_M)
-    if not (math.isfinite(conc) and conc > 0):
-        raise StockError(f"stock concentration must be a positive number of mol/L, got {conc_M!r}")
-    p = float(purity)
-    if not (math.isfinite(p) and 0 < p <= MAX_PURITY):
-        raise StockError(
-            f"purity is a mass fraction in (0, {MAX_PURITY}], got {purity!r} (write 99.5 % as 0.995)"
-        )
-    if not (isinstance(max_chain, (int, np.integer)) and max_chain >= 0):
-        raise StockError(f"max_chain must be a whole number ≥ 0, got {max_chain!r}")
-    if prefer not in PREFERENCES:
-        raise StockError(f"prefer must be one of {', '.join(PREFERENCES)}, got {prefer!r}")
+    conc, p = _checked_request(conc_M, purity, max_chain, prefer)
     hw = _purity_half_width(p, purity_half_width)
     fw = formula_weight_g_mol(formula)
     s_eff = _effective_repeatability_g(balance_repeatability_g, balance_readability_g)
     min_wt = minimum_weight_g(balance_repeatability_g, readability_g=balance_readability_g)
-    if u_mass_g is not None:
-        if not (math.isfinite(u_mass_g) and u_mass_g >= 0):
-            raise StockError(f"u_mass_g must be ≥ 0 g, got {u_mass_g!r}")
-        u_m = float(u_mass_g)
-    else:
-        u_m = s_eff
+    u_m = _mass_u_g(u_mass_g, s_eff)
     u_purity_rel = float(u_rectangular(hw)) / p
 
     try:
@@ -429,17 +413,8 @@ def prepare_stock(
         direct_mass_g=mass_direct,
     )
     if mass_direct >= min_wt:
-        parts = {"balance": u_m / mass_direct, "purity": u_purity_rel, "flask": weighed_u_rel_final}
-        u_rel = math.sqrt(sum(v * v for v in parts.values()))
-        return StockPreparation(
-            mass_g=mass_direct,
-            u_conc_M=u_rel * conc,
-            u_parts=parts,
-            steps=(),
-            weighed_flask=final,
-            weighed_conc_M=conc,
-            **common,
-        )
+        direct = _weighed_directly(mass_direct, conc, final, u_m, u_purity_rel, weighed_u_rel_final)
+        return StockPreparation(**direct, **common)
 
     cls = final.cls or "A"
     flasks = _chain_items("flask", cls, flasks_mL)
@@ -468,6 +443,58 @@ def prepare_stock(
     return StockPreparation(**chain, **common)
 
 
+def _weighed_directly(mass_g, conc, final, u_m, u_purity_rel, flask_u_rel) -> dict[str, Any]:
+    """The preparation's fields when the reagent is weighed straight into the final flask."""
+    parts = {"balance": u_m / mass_g, "purity": u_purity_rel, "flask": flask_u_rel}
+    u_rel = math.sqrt(sum(v * v for v in parts.values()))
+    return dict(
+        mass_g=mass_g,
+        u_conc_M=u_rel * conc,
+        u_parts=parts,
+        steps=(),
+        weighed_flask=final,
+        weighed_conc_M=conc,
+    )
+
+
+def _checked_request(conc_M, purity, max_chain, prefer) -> tuple[float, float]:
+    """The stock's concentration and purity as floats, after refusing what cannot be prepared."""
+    conc = float(conc_M)
+    if not (math.isfinite(conc) and conc > 0):
+        raise StockError(f"stock concentration must be a positive number of mol/L, got {conc_M!r}")
+    p = float(purity)
+    if not (math.isfinite(p) and 0 < p <= MAX_PURITY):
+        raise StockError(
+            f"purity is a mass fraction in (0, {MAX_PURITY}], got {purity!r} (write 99.5 % as 0.995)"
+        )
+    if not (isinstance(max_chain, (int, np.integer)) and max_chain >= 0):
+        raise StockError(f"max_chain must be a whole number ≥ 0, got {max_chain!r}")
+    if prefer not in PREFERENCES:
+        raise StockError(f"prefer must be one of {', '.join(PREFERENCES)}, got {prefer!r}")
+    return conc, p
+
+
+def _mass_u_g(u_mass_g: float | None, s_eff: float) -> float:
+    """The weighed mass's standard uncertainty: a certificate's ``u_mass_g`` if given, else the balance's."""
+    if u_mass_g is None:
+        return s_eff
+    if not (math.isfinite(u_mass_g) and u_mass_g >= 0):
+        raise StockError(f"u_mass_g must be ≥ 0 g, got {u_mass_g!r}")
+    return float(u_mass_g)
+
+
+class _ChainItems(NamedTuple):
+    """Capacities (mL) and relative volume uncertainties of the glassware a dilution chain may use."""
+
+    V: np.ndarray  # flask capacities
+    v: np.ndarray  # pipette capacities
+    u_weighed: np.ndarray  # each flask as the weighed one (temperature counted there only)
+    u_flask: np.ndarray  # each flask as an intermediate one
+    u_pip: np.ndarray
+    u_final: float
+    V_final: float
+
+
 def _best_chain(
     conc,
     final,
@@ -484,60 +511,26 @@ def _best_chain(
     prefer="precision",
 ):
     """Search every chain of 1..max_chain steps, vectorised per chain length; None if none fits."""
-    V = np.array([f.capacity_mL for f in flasks])
-    v = np.array([q.capacity_mL for q in pipettes])
     # Per-item relative uncertainties, computed once (temperature only at the weighed flask).
-    u_weighed = np.array([_single_volume_u_rel(f, flask_rep, delta_T_C) for f in flasks])
-    u_flask = np.array([_single_volume_u_rel(f) for f in flasks])
-    u_pip = np.array([_single_volume_u_rel(q) for q in pipettes])
-    u_final = _single_volume_u_rel(final)
-    V_final = final.capacity_mL
-    nF, nP = len(flasks), len(pipettes)
-
+    items = _ChainItems(
+        V=np.array([f.capacity_mL for f in flasks]),
+        v=np.array([q.capacity_mL for q in pipettes]),
+        u_weighed=np.array([_single_volume_u_rel(f, flask_rep, delta_T_C) for f in flasks]),
+        u_flask=np.array([_single_volume_u_rel(f) for f in flasks]),
+        u_pip=np.array([_single_volume_u_rel(q) for q in pipettes]),
+        u_final=_single_volume_u_rel(final),
+        V_final=final.capacity_mL,
+    )
     found = []  # prefer="reagent": (mass, u, k, index) of the best chain of each length
     for k in range(1, max_chain + 1):
-        # Axes: V0 (weighed flask), then (pipette, flask) for each of the k-1 intermediate steps, then
-        # the last pipette into the final flask. Broadcast index grids keep this a handful of arrays.
-        shape = (nF,) + (nP, nF) * (k - 1) + (nP,)
-        idx = np.indices(shape, sparse=True)
-        i_flasks = [idx[0]] + [idx[2 + 2 * j] for j in range(k - 1)]  # V0, V1..V_{k-1}
-        i_pips = [idx[1 + 2 * j] for j in range(k - 1)] + [idx[-1]]  # v1..vk
-        vols_from = [V[i] for i in i_flasks]  # solution each aliquot comes from
-        vols_to = [V[i] for i in i_flasks[1:]] + [np.asarray(V_final)]  # flask each aliquot goes into
-        vols_pip = [v[i] for i in i_pips]
-
-        ok = np.ones(shape, dtype=bool)
-        log_factor = np.zeros(shape)
-        u2 = np.broadcast_to(u_weighed[idx[0]] ** 2 + u_purity_rel**2 + u_final**2, shape).copy()
-        for j in range(k):
-            ok &= vols_pip[j] <= PIPETTE_DRAW_FRACTION * vols_from[j]
-            ok &= vols_to[j] >= 2.0 * vols_pip[j]
-            log_factor = log_factor + np.log(vols_to[j] / vols_pip[j])
-            u2 = u2 + u_pip[i_pips[j]] ** 2
-        for j in range(1, k):
-            u2 = u2 + u_flask[i_flasks[j]] ** 2
-        weighed_conc = conc * np.exp(log_factor)
-        mass = weighed_conc * V[idx[0]] * 1e-3 * fw / purity
+        shape, ok, mass, u2 = _chains_of_length(k, items, conc, fw, purity, u_purity_rel)
         ok &= mass >= min_wt
         if not ok.any():
             continue
         u_rel = np.sqrt(u2 + (u_m / mass) ** 2).ravel()
-        flat = np.flatnonzero(ok)
-        if prefer == "reagent":
-            # the least reagent that still reaches the minimum weight; of those within the slack, the
-            # most precise
-            m = mass.ravel()[flat]
-            near = flat[m <= (1.0 + SCARCE_MASS_SLACK) * m.min()]
-            i = near[np.argmin(u_rel[near])]
-            found.append((float(mass.ravel()[i]), float(u_rel[i]), k, np.unravel_index(i, shape)))
-            continue
-        # Chains within CHAIN_U_SLACK of the best u are equally good in practice: of those, weigh the
-        # least reagent (less waste, less exposure); then the smaller u.
-        near = flat[u_rel[flat] <= (1.0 + CHAIN_U_SLACK) * u_rel[flat].min()]
-        order = np.lexsort((u_rel[near], mass.ravel()[near]))
-        best = np.unravel_index(near[order[0]], shape)
-        found.append((0.0, 0.0, k, best))
-        break
+        found.append(_pick_of_length(prefer, k, shape, np.flatnonzero(ok), mass.ravel(), u_rel))
+        if prefer != "reagent":
+            break
     if not found:
         return None
     if prefer == "reagent":
@@ -557,11 +550,59 @@ def _best_chain(
         u_purity_rel,
         flasks,
         pipettes,
-        u_weighed,
-        u_flask,
-        u_pip,
-        u_final,
+        items.u_weighed,
+        items.u_flask,
+        items.u_pip,
+        items.u_final,
     )
+
+
+def _chains_of_length(k: int, items: _ChainItems, conc, fw, purity, u_purity_rel):
+    """Every chain of ``k`` steps at once: its grid shape, which chains are allowed (aliquot ≤ half the
+    solution drawn from, at least twofold dilution), the mass weighed and the squared relative
+    uncertainty without the balance term."""
+    V, v = items.V, items.v
+    nF, nP = V.size, v.size
+    # Axes: V0 (weighed flask), then (pipette, flask) for each of the k-1 intermediate steps, then
+    # the last pipette into the final flask. Broadcast index grids keep this a handful of arrays.
+    shape = (nF,) + (nP, nF) * (k - 1) + (nP,)
+    idx = np.indices(shape, sparse=True)
+    i_flasks = [idx[0]] + [idx[2 + 2 * j] for j in range(k - 1)]  # V0, V1..V_{k-1}
+    i_pips = [idx[1 + 2 * j] for j in range(k - 1)] + [idx[-1]]  # v1..vk
+    vols_from = [V[i] for i in i_flasks]  # solution each aliquot comes from
+    vols_to = [V[i] for i in i_flasks[1:]] + [np.asarray(items.V_final)]  # flask each aliquot goes into
+    vols_pip = [v[i] for i in i_pips]
+
+    ok = np.ones(shape, dtype=bool)
+    log_factor = np.zeros(shape)
+    u2 = np.broadcast_to(items.u_weighed[idx[0]] ** 2 + u_purity_rel**2 + items.u_final**2, shape).copy()
+    for j in range(k):
+        ok &= vols_pip[j] <= PIPETTE_DRAW_FRACTION * vols_from[j]
+        ok &= vols_to[j] >= 2.0 * vols_pip[j]
+        log_factor = log_factor + np.log(vols_to[j] / vols_pip[j])
+        u2 = u2 + items.u_pip[i_pips[j]] ** 2
+    for j in range(1, k):
+        u2 = u2 + items.u_flask[i_flasks[j]] ** 2
+    weighed_conc = conc * np.exp(log_factor)
+    mass = weighed_conc * V[idx[0]] * 1e-3 * fw / purity
+    return shape, ok, mass, u2
+
+
+def _pick_of_length(prefer: str, k: int, shape, flat: np.ndarray, mass: np.ndarray, u_rel: np.ndarray):
+    """The best allowed chain of one length (``flat``: allowed chains' flat indices) as (mass, u, k,
+    index); for ``prefer="precision"`` mass and u are not needed later and are returned as 0."""
+    if prefer == "reagent":
+        # the least reagent that still reaches the minimum weight; of those within the slack, the
+        # most precise
+        m = mass[flat]
+        near = flat[m <= (1.0 + SCARCE_MASS_SLACK) * m.min()]
+        i = near[np.argmin(u_rel[near])]
+        return (float(mass[i]), float(u_rel[i]), k, np.unravel_index(i, shape))
+    # Chains within CHAIN_U_SLACK of the best u are equally good in practice: of those, weigh the
+    # least reagent (less waste, less exposure); then the smaller u.
+    near = flat[u_rel[flat] <= (1.0 + CHAIN_U_SLACK) * u_rel[flat].min()]
+    order = np.lexsort((u_rel[near], mass[near]))
+    return (0.0, 0.0, k, np.unravel_index(near[order[0]], shape))
 
 
 def _build_chain(

@@ -25,6 +25,8 @@ tube globally with ε free.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from ._deps import (
@@ -65,6 +67,25 @@ QUESTION = (
 )
 
 
+@dataclass(frozen=True)
+class _Reagents:
+    """The target complex, the reagent converted (``lim``), the one in excess (``exc``) and their stocks."""
+
+    target: str
+    j: int  # the target's species index
+    p: int  # metal count of the target
+    q: int  # ligand count of the target
+    lim: str
+    exc: str
+    nu_lim: int  # the limiting reagent's count in the target
+    nu_exc: int
+    eps_t: float  # the target's ε (M⁻¹ cm⁻¹)
+    lim_id: str
+    exc_id: str
+    c_lim_stock: float
+    c_exc_stock: float
+
+
 def conversion_tube(
     plan: Plan,
     *,
@@ -84,6 +105,76 @@ def conversion_tube(
     tubes : replicate calibration tubes.
     """
     model = plan_model(plan)
+    r = _reagents(plan, model, limiting, tubes)
+    g = plan.glassware
+    V, step, vmin = g.tube_volume_mL, g.step_mL, max(g.min_volume_mL, g.step_mL)
+
+    # the limiting reagent: full conversion reads in the middle of the linear range unless told
+    per_absorbance = r.nu_lim / (model.path_cm * r.eps_t)
+    v_lim = _limiting_volume(plan, model, total_M, r.lim, r.lim_id, r.c_lim_stock, per_absorbance)
+    c_lim = r.c_lim_stock * v_lim / V
+
+    # the excess that converts 99 % / 99.9 % at every node of the guess's range
+    nodes, lb = _guess_range(model, r.j)
+    vol0, tot0 = fill_volumes(plan, {r.lim_id: np.array([v_lim])})
+    ions0 = tube_ions_M(model, vol0, tot0)  # the medium the tube is made in (background ions)
+    fraction = _fraction_function(model, r, c_lim, ions0)
+    needed, rising, unreachable = _excess_needed(fraction, r, c_lim, lb)
+
+    # the planned tube's excess: the smallest grid volume converting 99.9 % (else 99 %) at every node
+    # with the reading in range; else the most that stays in range
+    cap = capacity_mL(plan, r.exc_id)
+    room = min(V - v_lim - make_up_min_mL(plan), cap)
+    if excess_M is not None:
+        v_exc = _given_excess(excess_M, r.exc, r.exc_id, r.c_exc_stock, V, v_lim, vmin, step)
+    else:
+        v_exc = _default_excess(
+            plan, model, fraction, lb, r.lim_id, r.exc_id, v_lim, r.c_exc_stock, vmin, room
+        )
+    v_exc = float(snap(v_exc, step))
+    recipe, names, blank = _calibration_recipe(plan, model, r, v_lim, v_exc, tubes)
+    a = assess_tubes(plan, recipe)
+    st = a.state
+    x_plan = float(st.totals_M[0, 0 if r.exc == "M" else 1])
+    ions_plan = tube_ions_M(model, recipe.volumes_mL[:1], recipe.total_volume_mL[:1])[0]
+    f_nodes = fraction(np.full(nodes.size, x_plan), lb, ions_plan)
+    f_guess = float(r.nu_lim * st.species_M[0, r.j] / st.totals_M[0, 0 if r.lim == "M" else 1])
+    f_worst = float(f_nodes.min())
+
+    higher = _other_complexes(model, r.j, r.lim, c_lim, x_plan, ions_plan, nodes)
+    one_to_one = (r.p, r.q) == (1, 1)
+    bias = hand_bias_summary(f_guess) if one_to_one else None
+    bias_worst = hand_bias_summary(f_worst) if one_to_one else None
+    found = _Found(c_lim, x_plan, f_guess, f_worst, f_nodes, nodes, needed, bias, bias_worst, higher)
+    checks = _calibration_checks(plan, model, r, found, names[0], (v_lim, tubes, cap), rising, unreachable)
+    extra = _calibration_extra(r, found, V)
+    notes = _calibration_notes(r, found, names, v_lim, v_exc, V, unreachable, blank)
+    ok = f"{names[0]} converts ≥ {f_worst:.2%} of {r.lim} over the whole range of the guess"
+    columns = {"fraction": np.append(np.full(tubes, f_guess), [0.0] if blank else [])}
+    fix = f"a lower {r.lim} concentration (total_M) or a shorter path"
+    return finish(
+        METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=fix
+    )
+
+
+@dataclass(frozen=True)
+class _Found:
+    """What the planned tube was found to do, for its JSON findings and its notes."""
+
+    c_lim: float  # the limiting reagent's concentration in the tube (M)
+    x_plan: float  # the excess reagent's concentration in the tube (M)
+    f_guess: float  # fraction converted at the guess
+    f_worst: float  # … at worst over the guess's range
+    f_nodes: np.ndarray  # … at each node of the range
+    nodes: np.ndarray  # the target's log β over the range
+    needed: dict  # conversion -> excess needed (M) or None
+    bias: dict | None  # hand-analysis bias at the guess (1:1 only)
+    bias_worst: dict | None
+    higher: dict | None  # other complexes holding the limiting reagent
+
+
+def _reagents(plan: Plan, model, limiting: str | None, tubes: int) -> _Reagents:
+    """The target, the limiting and excess reagents and their pure stocks; refuses what cannot be planned."""
     target = plan.target
     j = model.index(target)
     p, q = int(model.stoich[j, 0]), int(model.stoich[j, 1])
@@ -108,38 +199,44 @@ def conversion_tube(
         raise PlanError("tubes", "at least one calibration tube")
     _, lim_id, c_lim_stock = pure_stock(plan, lim)
     _, exc_id, c_exc_stock = pure_stock(plan, exc)
-    g = plan.glassware
-    V, step, vmin = g.tube_volume_mL, g.step_mL, max(g.min_volume_mL, g.step_mL)
-    b = model.path_cm
-    lo, hi = model.linear_range
+    return _Reagents(
+        target, j, p, q, lim, exc, nu_lim, nu_exc, eps_t, lim_id, exc_id, c_lim_stock, c_exc_stock
+    )
 
-    # the limiting reagent: full conversion reads in the middle of the linear range unless told
-    v_lim = _limiting_volume(plan, model, total_M, lim, lim_id, c_lim_stock, nu_lim / (b * eps_t))
-    c_lim = c_lim_stock * v_lim / V
 
-    # the excess that converts 99 % / 99.9 % at every node of the guess's range
+def _guess_range(model, j: int) -> tuple[np.ndarray, np.ndarray]:
+    """The target's log β at the nodes of the guess's range (± RANGE_SD sd) and every constant per node."""
     sd = float(model.log_beta_sd[j])
     nodes = model.log_beta[j] + np.linspace(-RANGE_SD, RANGE_SD, RANGE_NODES) * sd
     lb = np.repeat(model.log_beta[None, :], nodes.size, axis=0)
     lb[:, j] = nodes
-    vol0, tot0 = fill_volumes(plan, {lim_id: np.array([v_lim])})
-    ions0 = tube_ions_M(model, vol0, tot0)  # the medium the tube is made in (background ions)
+    return nodes, lb
+
+
+def _fraction_function(model, r: _Reagents, c_lim: float, ions0: np.ndarray):
+    """The fraction of the limiting reagent in the target as a function of the excess (vectorised)."""
 
     def fraction(x_M, lbs, ions_row=ions0[0]):
         """Fraction of the limiting reagent in the target at excess x_M (…,), constants lbs (…, S), in a
         medium with the other ions ``ions_row`` (default: the tube before the excess is added)."""
         x_M = np.asarray(x_M, dtype=float)
         tot = np.zeros(x_M.shape + (2,))
-        tot[..., 0 if lim == "M" else 1] = c_lim
-        tot[..., 0 if exc == "M" else 1] = x_M
+        tot[..., 0 if r.lim == "M" else 1] = c_lim
+        tot[..., 0 if r.exc == "M" else 1] = x_M
         ions = np.broadcast_to(ions_row, x_M.shape + ions0.shape[1:])
         with hypothetical():
             st = predict(model, tot, ions, log_beta=lbs, warn=False)
-        return nu_lim * st.species_M[..., j] / c_lim
+        return r.nu_lim * st.species_M[..., r.j] / c_lim
 
-    x0 = c_lim * nu_exc / nu_lim
+    return fraction
+
+
+def _excess_needed(fraction, r: _Reagents, c_lim: float, lb: np.ndarray) -> tuple[dict, bool, str]:
+    """The smallest excess converting each of CONVERSIONS at every node (None when out of reach), whether
+    the conversion still rises at the top of the excess grid, and why an unreachable one is out of reach."""
+    x0 = c_lim * r.nu_exc / r.nu_lim
     xs = np.geomspace(x0 * 1.001, max(10.0, 100 * x0), X_GRID)
-    f_grid = fraction(np.broadcast_to(xs, (nodes.size, xs.size)), lb[:, None, :])  # (nodes, X)
+    f_grid = fraction(np.broadcast_to(xs, (lb.shape[0], xs.size)), lb[:, None, :])  # (nodes, X)
     needed = {}
     for f_want in CONVERSIONS:
         needed[f_want] = _smallest_excess(fraction, xs, f_grid, lb, f_want)
@@ -147,92 +244,98 @@ def conversion_tube(
     # falling (other complexes take the reagent)
     rising = bool(np.all(f_grid[:, -1] >= f_grid[:, -2] - 1e-12))
     unreachable = (
-        f"more than {fmt_conc(xs[-1])} of {exc}"
+        f"more than {fmt_conc(xs[-1])} of {r.exc}"
         if rising
         else "not reachable: other complexes take the reagent as the excess grows"
     )
+    return needed, rising, unreachable
 
-    # the planned tube's excess: the smallest grid volume converting 99.9 % (else 99 %) at every node
-    # with the reading in range; else the most that stays in range
-    cap = capacity_mL(plan, exc_id)
-    room = min(V - v_lim - make_up_min_mL(plan), cap)
-    if excess_M is not None:
-        v_exc = _given_excess(excess_M, exc, exc_id, c_exc_stock, V, v_lim, vmin, step)
-    else:
-        v_exc = _default_excess(plan, model, fraction, lb, lim_id, exc_id, v_lim, c_exc_stock, vmin, room)
-    v_exc = float(snap(v_exc, step))
-    cols = {lim_id: np.array([v_lim] * tubes), exc_id: np.array([v_exc] * tubes)}
+
+def _calibration_recipe(plan: Plan, model, r: _Reagents, v_lim: float, v_exc: float, tubes: int):
+    """The replicate calibration tubes K1…, and the reagent blank B1 when the excess reagent absorbs."""
+    cols = {r.lim_id: np.array([v_lim] * tubes), r.exc_id: np.array([v_exc] * tubes)}
     names = [f"K{i + 1}" for i in range(tubes)]
-    blank = model.epsilon_M_cm[0 if exc == "M" else 1] > 0
+    blank = model.epsilon_M_cm[0 if r.exc == "M" else 1] > 0
     if blank:  # the excess reagent absorbs: a blank with the same excess is read and subtracted
-        cols = {k: np.append(v, 0.0 if k == lim_id else v_exc) for k, v in cols.items()}
+        cols = {k: np.append(v, 0.0 if k == r.lim_id else v_exc) for k, v in cols.items()}
         names.append("B1")
-    recipe = series_recipe(plan, cols, names)
-    a = assess_tubes(plan, recipe)
-    st = a.state
-    x_plan = float(st.totals_M[0, 0 if exc == "M" else 1])
-    ions_plan = tube_ions_M(model, recipe.volumes_mL[:1], recipe.total_volume_mL[:1])[0]
-    f_nodes = fraction(np.full(nodes.size, x_plan), lb, ions_plan)
-    f_guess = float(nu_lim * st.species_M[0, j] / st.totals_M[0, 0 if lim == "M" else 1])
-    f_worst = float(f_nodes.min())
+    return series_recipe(plan, cols, names), names, blank
 
+
+def _calibration_checks(plan: Plan, model, r: _Reagents, f: _Found, tube: str, amounts, rising, unreachable):
+    """The method's checks: conversion, whether the excess fits, other complexes (when any), the hand
+    analysis's bias and the global fit that needs no such tube. ``amounts``: the limiting stock's volume,
+    the number of tubes and the excess dispenser's capacity."""
+    v_lim, tubes, cap = amounts
     checks = [
-        _conversion_check(f_nodes, f_guess, names[0], nodes, x_plan / c_lim, rising),
+        _conversion_check(f.f_nodes, f.f_guess, tube, f.nodes, f.x_plan / f.c_lim, rising),
         _fits_check(
             plan,
             model,
-            needed,
-            lim_id,
-            exc_id,
+            f.needed,
+            r.lim_id,
+            r.exc_id,
             v_lim,
-            c_exc_stock,
+            r.c_exc_stock,
             tubes,
             cap,
             unreachable,
-            optics_info=(b, eps_t, nu_lim, c_lim, exc),
+            optics_info=(model.path_cm, r.eps_t, r.nu_lim, f.c_lim, r.exc),
         ),
     ]
-    higher = _other_complexes(model, j, lim, c_lim, x_plan, ions_plan, nodes)
-    if higher is not None:
-        checks.append(_higher_check(higher, names[0], lim, exc, x_plan))
-    bias = hand_bias_summary(f_guess) if (p, q) == (1, 1) else None
-    bias_worst = hand_bias_summary(f_worst) if (p, q) == (1, 1) else None
-    checks.append(_bias_check(bias, bias_worst, f_guess, f_worst, p, q))
-    checks.append(_global_fit_check(f_worst))
-    extra = {
-        "target": target,
-        "limiting": lim,
-        "excess_reagent": exc,
-        "limiting_conc_M": c_lim,
-        "excess_conc_M": x_plan,
-        "excess_ratio": x_plan / c_lim,
-        "log_beta_range": [float(nodes.min()), float(nodes.max())],
-        "excess_needed_M": {f"{f:g}": needed[f] for f in CONVERSIONS},
+    if f.higher is not None:
+        checks.append(_higher_check(f.higher, tube, r.lim, r.exc, f.x_plan))
+    checks.append(_bias_check(f.bias, f.bias_worst, f.f_guess, f.f_worst, r.p, r.q))
+    checks.append(_global_fit_check(f.f_worst))
+    return checks
+
+
+def _calibration_extra(r: _Reagents, f: _Found, V: float) -> dict:
+    """The method's findings by their JSON key."""
+    return {
+        "target": r.target,
+        "limiting": r.lim,
+        "excess_reagent": r.exc,
+        "limiting_conc_M": f.c_lim,
+        "excess_conc_M": f.x_plan,
+        "excess_ratio": f.x_plan / f.c_lim,
+        "log_beta_range": [float(f.nodes.min()), float(f.nodes.max())],
+        "excess_needed_M": {f"{c:g}": f.needed[c] for c in CONVERSIONS},
         "excess_needed_mL": {
-            f"{f:g}": (needed[f] * V / c_exc_stock if needed[f] is not None else None) for f in CONVERSIONS
+            f"{c:g}": (f.needed[c] * V / r.c_exc_stock if f.needed[c] is not None else None)
+            for c in CONVERSIONS
         },
         "fraction_converted": {
-            "at_guess": f_guess,
-            "low_log_beta": float(f_nodes[0]),
-            "high_log_beta": float(f_nodes[-1]),
-            "worst": f_worst,
+            "at_guess": f.f_guess,
+            "low_log_beta": float(f.f_nodes[0]),
+            "high_log_beta": float(f.f_nodes[-1]),
+            "worst": f.f_worst,
         },
-        "hand_bias": bias,
-        "hand_bias_worst": bias_worst,
-        "other_complexes": higher,
+        "hand_bias": f.bias,
+        "hand_bias_worst": f.bias_worst,
+        "other_complexes": f.higher,
     }
+
+
+def _calibration_notes(r: _Reagents, f: _Found, names, v_lim, v_exc, V, unreachable, blank) -> list[str]:
+    """The method's findings for people, one line each."""
     notes = [
-        f"{names[0]}: {lim} at {fmt_conc(c_lim)} ({v_lim:g} mL {lim_id}), {exc} at {fmt_conc(x_plan)} "
-        f"({v_exc:g} mL {exc_id}, {x_plan / c_lim:.3g}-fold)",
-        f"fraction of {lim} converted to {target}: {f_guess:.2%} at the guess, {f_worst:.2%} at "
-        f"log β = {nodes.min():.2f} (guess − {RANGE_SD:g} sd)",
+        f"{names[0]}: {r.lim} at {fmt_conc(f.c_lim)} ({v_lim:g} mL {r.lim_id}), {r.exc} at "
+        f"{fmt_conc(f.x_plan)} ({v_exc:g} mL {r.exc_id}, {f.x_plan / f.c_lim:.3g}-fold)",
+        f"fraction of {r.lim} converted to {r.target}: {f.f_guess:.2%} at the guess, {f.f_worst:.2%} at "
+        f"log β = {f.nodes.min():.2f} (guess − {RANGE_SD:g} sd)",
     ]
-    for f in CONVERSIONS:
-        x = needed[f]
+    for c in CONVERSIONS:
+        x = f.needed[c]
         notes.append(
-            f"excess for ≥ {f:.1%} over the whole range: "
-            + (f"{fmt_conc(x)} ({x * V / c_exc_stock:.3g} mL of {exc_id})" if x is not None else unreachable)
+            f"excess for ≥ {c:.1%} over the whole range: "
+            + (
+                f"{fmt_conc(x)} ({x * V / r.c_exc_stock:.3g} mL of {r.exc_id})"
+                if x is not None
+                else unreachable
+            )
         )
+    bias, higher = f.bias, f.higher
     if bias is not None:
         notes.append(
             f"treating it as complete biases ε by {bias['epsilon']:+.2%} and K by "
@@ -240,25 +343,12 @@ def conversion_tube(
         )
     if higher is not None:
         notes.append(
-            f"{_pct_share(higher['share_at_guess'])} of {lim} ends in {', '.join(higher['species'])} at the "
-            f"guess, up to {_pct_share(higher['share_worst'])} over the guesses' range"
+            f"{_pct_share(higher['share_at_guess'])} of {r.lim} ends in {', '.join(higher['species'])} at "
+            f"the guess, up to {_pct_share(higher['share_worst'])} over the guesses' range"
         )
     if blank:
-        notes.append(f"B1 is the reagent blank: the same {exc_id} without {lim_id}, read and subtracted")
-    ok = f"{names[0]} converts ≥ {f_worst:.2%} of {lim} over the whole range of the guess"
-    return finish(
-        METHOD,
-        plan,
-        QUESTION,
-        recipe,
-        a,
-        checks,
-        extra,
-        {"fraction": np.append(np.full(tubes, f_guess), [0.0] if blank else [])},
-        ok,
-        notes=tuple(notes),
-        range_fix=f"a lower {lim} concentration (total_M) or a shorter path",
-    )
+        notes.append(f"B1 is the reagent blank: the same {r.exc_id} without {r.lim_id}, read and subtracted")
+    return notes
 
 
 def _other_complexes(model, j, lim, c_lim, x_plan, ions_row, nodes) -> dict | None:

@@ -92,18 +92,11 @@ def continuous_variation(
     if points is not None and int(points) < 3:
         n_pts = plural(int(points), "point")
         raise PlanError("points", f"{n_pts} cannot show an extremum: use at least 3 (9–11 is usual)")
-    g = plan.glassware
-    step = g.step_mL
-    avail = (
-        g.tube_volume_mL
-        - make_up_min_mL(plan)
-        - sum(v for k, v in plan.design.fixed.items() if k not in (m_id, l_id))
-    )
-    vmin = float(snap(np.ceil(max(g.min_volume_mL, step) / step - 1e-9) * step, step))
-    room = _Room(step, vmin, float(avail), (capacity_mL(plan, m_id), capacity_mL(plan, l_id)), _peaks(model))
+    step = plan.glassware.step_mL
+    room = _room(plan, model, m_id, l_id)
     ids = (m_id, l_id)
     if total_M is not None:
-        sums = np.array([_given_sum(total_M, cM, room, g.tube_volume_mL)])
+        sums = np.array([_given_sum(total_M, cM, room, plan.glassware.tube_volume_mL)])
     else:
         sums = _sums(room)
     n, cand, k, status = _choose_series(plan, model, ids, points, sums, room, total_M)
@@ -118,29 +111,11 @@ def continuous_variation(
     xm = st.totals_M[:, 0] / st.totals_M.sum(axis=1)
     sd = np.sqrt(np.diag(a.budget.total))
     y = corrected(model, st)
-
-    # the curve between the tubes at the same total
-    xf = np.linspace(0.005, 0.995, CURVE_POINTS)
-    vol, tot = fill_volumes(plan, {m_id: xf * vs, l_id: (1 - xf) * vs})
-    yf = corrected(model, predict_volumes(model, vol, tot))
+    xf, yf = _curve_at_sum(plan, model, ids, vs)
     x_ext, y_ext = _extremum(xf, yf)
+    fits, close, needed = _rivals(plan, model, recipe, a, C)
 
-    # rivals at the planned total, then (if needed) the total that would separate them
-    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-    fits = _rival_fits(model, st.totals_M, ions, st.absorbance_true, a.budget.total)
-    needed = None
-    close = [f for f in fits if f.separation_sd < rv.SEPARATION_WANTED]
-    if close:
-        # search for the stoichiometric rivals first: the nested one may never separate at one wavelength
-        nested = all(f.nested for f in close)
-        needed = _total_that_separates(plan, model, recipe, ions, C, nested)
-
-    checks = [
-        Check("equimolar", "pass", f"{m_id} and {l_id} are both {fmt_conc(cM)}: equimolar"),
-        _extremum_check(model, x_ext, C),
-    ]
-    if fits:
-        checks.append(_discrimination_check(model, fits, C, needed))
+    checks = _job_checks(model, ids, cM, x_ext, C, fits, needed)
     extra = {
         "stocks": {"metal": m_id, "ligand": l_id, "conc_M": cM},
         "total_M": C,
@@ -156,12 +131,7 @@ def continuous_variation(
         "curve": curve_points("mole_fraction", xf, yf),
     }
     columns = {"x_M": xm, "Y": y, "±2sd": 2 * sd}
-    far = [f for f in fits if not f.nested]
-    ok = (
-        f"the curve tells {rv.plan_label(model)} from "
-        + (", ".join(f.model for f in far) or "its rivals")
-        + f" by ≥ {rv.SEPARATION_WANTED:g} sd at C = {fmt_conc(C)}; extremum at x_M = {x_ext:.3f}"
-    )
+    ok = _ok_sentence(model, fits, C, x_ext)
     notes = [
         f"total concentration C = [M]0 + [L]0 = {fmt_conc(C)} in every tube ({vs:g} mL of stock)",
         *_span_note(vm, vs, n, room, status),
@@ -169,27 +139,95 @@ def continuous_variation(
         "separation from rival models (whitened residual of their best fit): "
         + (", ".join(f"{f.model} {f.separation_sd:.1f} sd" for f in fits) or "none"),
     ]
-    if needed:
-        cell = f" in a {needed[1]:.2g} cm cell" if needed[1] < model.path_cm * 0.999 else ""
-        kind = "nested" if all(f.nested for f in close) else "stoichiometric"
-        notes.append(
-            f"a total of {fmt_conc(needed[0])}{cell} would separate the {kind} rivals by "
-            f"≥ {rv.SEPARATION_WANTED:g} sd"
-        )
-    if points is None and status != "pass":
-        notes.insert(
-            0,
-            f"no series of {DEFAULT_POINTS} down to {MIN_DEFAULT_POINTS} mole fractions can all stay inside "
-            f"the linear range over the guess's range on this grid: planned the least at risk, {n} points",
-        )
-    elif points is None and n != DEFAULT_POINTS:
-        notes.insert(
-            0,
-            f"{DEFAULT_POINTS} mole fractions cannot all stay inside the linear range over the guess's "
-            f"range on this grid: planned {n}",
-        )
+    notes += _needed_note(model, close, needed)
+    notes = _count_note(points, status, n) + notes
     return finish(
         METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=range_fix
+    )
+
+
+def _room(plan: Plan, model, m_id: str, l_id: str) -> _Room:
+    """The grid, least volume and room for the two stocks in a tube (after the make-up and fixed volumes)."""
+    g = plan.glassware
+    step = g.step_mL
+    avail = (
+        g.tube_volume_mL
+        - make_up_min_mL(plan)
+        - sum(v for k, v in plan.design.fixed.items() if k not in (m_id, l_id))
+    )
+    vmin = float(snap(np.ceil(max(g.min_volume_mL, step) / step - 1e-9) * step, step))
+    return _Room(step, vmin, float(avail), (capacity_mL(plan, m_id), capacity_mL(plan, l_id)), _peaks(model))
+
+
+def _curve_at_sum(plan: Plan, model, ids, vs: float) -> tuple[np.ndarray, np.ndarray]:
+    """The corrected absorbance between the tubes, at the same total stock volume ``vs``."""
+    m_id, l_id = ids
+    xf = np.linspace(0.005, 0.995, CURVE_POINTS)
+    vol, tot = fill_volumes(plan, {m_id: xf * vs, l_id: (1 - xf) * vs})
+    return xf, corrected(model, predict_volumes(model, vol, tot))
+
+
+def _rivals(plan: Plan, model, recipe, a, C: float):
+    """Rival models fitted at the planned total; those too close; and (if any) the total and path that
+    would separate them."""
+    st = a.state
+    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    fits = _rival_fits(model, st.totals_M, ions, st.absorbance_true, a.budget.total)
+    needed = None
+    close = [f for f in fits if f.separation_sd < rv.SEPARATION_WANTED]
+    if close:
+        # search for the stoichiometric rivals first: the nested one may never separate at one wavelength
+        nested = all(f.nested for f in close)
+        needed = _total_that_separates(plan, model, recipe, ions, C, nested)
+    return fits, close, needed
+
+
+def _needed_note(model, close, needed) -> list[str]:
+    """The total (and cell) that would separate the close rivals, when one was found."""
+    if not needed:
+        return []
+    cell = f" in a {needed[1]:.2g} cm cell" if needed[1] < model.path_cm * 0.999 else ""
+    kind = "nested" if all(f.nested for f in close) else "stoichiometric"
+    return [
+        f"a total of {fmt_conc(needed[0])}{cell} would separate the {kind} rivals by "
+        f"≥ {rv.SEPARATION_WANTED:g} sd"
+    ]
+
+
+def _count_note(points: int | None, status: str, n: int) -> list[str]:
+    """Why the default number of mole fractions was not kept, when it was not."""
+    if points is None and status != "pass":
+        return [
+            f"no series of {DEFAULT_POINTS} down to {MIN_DEFAULT_POINTS} mole fractions can all stay inside "
+            f"the linear range over the guess's range on this grid: planned the least at risk, {n} points"
+        ]
+    if points is None and n != DEFAULT_POINTS:
+        return [
+            f"{DEFAULT_POINTS} mole fractions cannot all stay inside the linear range over the guess's "
+            f"range on this grid: planned {n}"
+        ]
+    return []
+
+
+def _job_checks(model, ids, cM: float, x_ext: float, C: float, fits, needed) -> list[Check]:
+    """The method's checks: equimolar stocks, the extremum, and the rivals when there are any."""
+    m_id, l_id = ids
+    checks = [
+        Check("equimolar", "pass", f"{m_id} and {l_id} are both {fmt_conc(cM)}: equimolar"),
+        _extremum_check(model, x_ext, C),
+    ]
+    if fits:
+        checks.append(_discrimination_check(model, fits, C, needed))
+    return checks
+
+
+def _ok_sentence(model, fits, C: float, x_ext: float) -> str:
+    """The verdict's sentence when the series answers its question."""
+    far = [f for f in fits if not f.nested]
+    return (
+        f"the curve tells {rv.plan_label(model)} from "
+        + (", ".join(f.model for f in far) or "its rivals")
+        + f" by ≥ {rv.SEPARATION_WANTED:g} sd at C = {fmt_conc(C)}; extremum at x_M = {x_ext:.3f}"
     )
 
 

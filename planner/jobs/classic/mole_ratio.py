@@ -104,15 +104,7 @@ def mole_ratio_series(
     _, fix_id, c_fix = pure_stock(plan, fix)
     _, var_id, c_var = pure_stock(plan, vary)
     target = plan.target
-    j = model.index(target)
-    if not model.complex_mask[j]:
-        raise PlanError(
-            "design.target",
-            f"'{target}' is not a metal–ligand complex: name the complex whose ratio the series should find",
-        )
-    expected = float(model.stoich[j, vi] / model.stoich[j, fi])
-    mask = model.complex_mask
-    highest = float(np.max(model.stoich[mask, vi] / model.stoich[mask, fi]))
+    j, expected, highest = _ratios(model, target, fi, vi)
     n = DEFAULT_POINTS if points is None else int(points)
     if n < 5:
         n_tubes = plural(n, "tube")
@@ -126,17 +118,11 @@ def mole_ratio_series(
     st = a.state
     ratio = st.totals_M[:, vi] / st.totals_M[:, fi]
     C = float(np.median(st.totals_M[:, fi]))
-    rf, curve_totals, curve_ions, yf = curve
-    needed, lines_short = None, False
-    if not hand["resolvable"]:
-        needed, lines_short = _conc_that_resolves(
-            plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions
-        )
+    rf, _, _, yf = curve
+    needed, lines_short = _if_unresolved(plan, model, recipe, hand, (fi, vi), expected, C, curve)
     checks = [_break_check(hand, expected, C, needed if needed else lines_short, model, (fix, var_id))]
     ions_t = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-    other = _other_complex_effect(
-        model, j, fi, (st.totals_M, ions_t, ratio, cov), (rf, curve_totals, curve_ions)
-    )
+    other = _other_complex_effect(model, j, fi, (st.totals_M, ions_t, ratio, cov), curve[:3])
     if other is not None:
         checks.append(_other_check(other, hand, expected, target, fix))
     y = corrected(model, st)
@@ -147,6 +133,49 @@ def mole_ratio_series(
         "stocks": {"fixed": fix_id, "varied": var_id},
         "fixed_conc_M": C,
         "ratio_span": [float(ratio.min()), float(ratio.max())],
+        **_break_findings(hand, expected, recipe.tubes),
+        "conc_needed_M": needed[0] if needed else None,
+        "path_cm_at_conc_needed": needed[1] if needed else None,
+        "series": series_points(recipe.tubes, "ratio", ratio, y, sd),
+        "curve": curve_points("ratio", rf, yf),
+        "other_complexes": other,
+    }
+    notes, ok = _texts(
+        model, layout, hand, (fix, vary, target), C, ratio, (v_fix, v_var), spread_note, needed
+    )
+    columns = {"ratio": ratio, "Y": y, "±2sd": 2 * sd}
+    return finish(
+        METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=range_fix
+    )
+
+
+def _if_unresolved(plan, model, recipe, hand: dict, axes, expected: float, C: float, curve):
+    """When the break is not resolvable: the fixed concentration (and path) that would resolve it, or
+    whether the lines are too short; (None, False) when it is resolvable."""
+    if hand["resolvable"]:
+        return None, False
+    fi, vi = axes
+    rf, curve_totals, curve_ions, _ = curve
+    return _conc_that_resolves(plan, model, recipe, fi, vi, expected, C, rf, curve_totals, curve_ions)
+
+
+def _ratios(model, target: str, fi: int, vi: int) -> tuple[int, float, float]:
+    """The target's index, its ratio varied/fixed and the highest such ratio among the plan's complexes."""
+    j = model.index(target)
+    if not model.complex_mask[j]:
+        raise PlanError(
+            "design.target",
+            f"'{target}' is not a metal–ligand complex: name the complex whose ratio the series should find",
+        )
+    expected = float(model.stoich[j, vi] / model.stoich[j, fi])
+    mask = model.complex_mask
+    highest = float(np.max(model.stoich[mask, vi] / model.stoich[mask, fi]))
+    return j, expected, highest
+
+
+def _break_findings(hand: dict, expected: float, tubes) -> dict:
+    """The hand analysis's break and lines by their JSON keys."""
+    return {
         "break_ratio": hand["break_ratio"],
         "break_ratio_sd": hand["break_ratio_sd"],
         "break_ratio_expected": expected,
@@ -156,23 +185,24 @@ def mole_ratio_series(
         "shortfall_fraction": hand["shortfall_fraction"],
         "shortfall_sd": hand["shortfall_sd"],
         "lines_tubes": {
-            "before": [t for t, m in zip(recipe.tubes, hand["before"], strict=True) if m],
-            "after": [t for t, m in zip(recipe.tubes, hand["after"], strict=True) if m],
+            "before": [t for t, m in zip(tubes, hand["before"], strict=True) if m],
+            "after": [t for t, m in zip(tubes, hand["after"], strict=True) if m],
         },
-        "conc_needed_M": needed[0] if needed else None,
-        "path_cm_at_conc_needed": needed[1] if needed else None,
-        "series": series_points(recipe.tubes, "ratio", ratio, y, sd),
-        "curve": curve_points("ratio", rf, yf),
-        "other_complexes": other,
     }
+
+
+def _texts(model, layout: Layout, hand: dict, names, C: float, ratio, volumes, spread_note, needed):
+    """The method's findings for people, one line each, and the verdict's sentence when it answers."""
+    fix, vary, target = names
+    v_fix, v_var = volumes
     nb, na = int(hand["before"].sum()), int(hand["after"].sum())
     notes = [
-        f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {fix_id}); {vary} rising from {ratio.min():.3g}× to "
-        f"{ratio.max():.3g}× ({v_var.min():g}–{v_var.max():g} mL {var_id}): {plural(nb, 'tube')} for the "
-        f"line before the break, {na} after",
+        f"{fix} fixed at {fmt_conc(C)} ({v_fix:g} mL {layout.fix_id}); {vary} rising from "
+        f"{ratio.min():.3g}× to {ratio.max():.3g}× ({v_var.min():g}–{v_var.max():g} mL {layout.var_id}): "
+        f"{plural(nb, 'tube')} for the line before the break, {na} after",
         *spread_note,
         f"two-line break at {vary}/{fix} = {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} "
-        f"(expected {expected:g} for {target}); the curve falls {hand['shortfall_fraction']:.1%} "
+        f"(expected {layout.expected:g} for {target}); the curve falls {hand['shortfall_fraction']:.1%} "
         f"({hand['shortfall_sd']:.1f} sd) short of the asymptotes' corner there",
     ]
     if needed:
@@ -180,12 +210,9 @@ def mole_ratio_series(
         notes.append(f"a fixed concentration of {fmt_conc(needed[0])}{cell} would make the break resolvable")
     ok = (
         f"the break at {_num(hand['break_ratio'])} ± {_num(hand['break_ratio_sd'])} reads the {target} ratio "
-        f"{expected:g} within {BREAK_TOLERANCE:.0%}"
+        f"{layout.expected:g} within {BREAK_TOLERANCE:.0%}"
     )
-    columns = {"ratio": ratio, "Y": y, "±2sd": 2 * sd}
-    return finish(
-        METHOD, plan, QUESTION, recipe, a, checks, extra, columns, ok, notes=tuple(notes), range_fix=range_fix
-    )
+    return notes, ok
 
 
 def _hand_analysis(plan, model, a, layout: Layout, v_fix: float, fi: int, vi: int):

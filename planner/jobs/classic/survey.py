@@ -77,40 +77,16 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> ClassicSeries
     eps = _epsilon_by_wavelength(plan, model, lam)  # (Λ, 2 + S)
     se, a_max, a_min = _se_by_wavelength(plan, model, recipe, eps)
     lo, hi = model.linear_range
-    # every reading inside the window over the guesses' uncertainty, by assess's own screen
-    tot = totals_M(recipe, model.stock_conc_M)
-    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-    params = free_parameters(plan, model)
-    if params.size:
-        with hypothetical():
-            risk = range_band(model, params, tot, ions, epsilon_M_cm=eps)[0].max(axis=-1)
-    else:
-        risk = np.where((a_max <= hi) & (a_min >= lo), 0.0, 1.0)
-    feasible = np.isfinite(se) & (risk <= RANGE_RISK + 1e-12)
+    feasible = np.isfinite(se) & (_range_risk(plan, model, recipe, eps, a_max, a_min) <= RANGE_RISK + 1e-12)
     t = plan.target
-    if feasible.any():
-        k = int(np.flatnonzero(feasible)[np.argmin(se[feasible])])
-    else:
-        k = int(np.nanargmin(np.where(np.isfinite(se), se, np.nan))) if np.isfinite(se).any() else 0
+    k = _best_index(se, feasible)
     best = float(lam[k])
     here = _se_at(plan, model, recipe, float(plan.optics.wavelength_nm))
     peak_nm = float(bands[t].peak_nm) if t in bands else None
 
     surveyed = _plan_at(plan, model, best, eps[k])
     a = assess_tubes(surveyed, recipe)
-    checks = [_wavelength_check(feasible, best, se[k], here, plan, t, peak_nm)]
-    flat = [n for n, e in zip(model.absorbers, model.epsilon_M_cm, strict=True) if e > 0 and n not in bands]
-    if flat:
-        checks.append(
-            Check(
-                "bands",
-                "warn",
-                f"{', '.join(flat)} absorb but have no band: taken as flat at "
-                f"their ε at {plan.optics.wavelength_nm:g} nm — add their bands to [optics.bands]",
-            )
-        )
-    else:
-        checks.append(Check("bands", "pass", f"every absorber has a band ({', '.join(bands)})"))
+    checks = [_wavelength_check(feasible, best, se[k], here, plan, t, peak_nm), _bands_check(plan, model)]
     extra = {
         "target": t,
         "wavelength_nm": best,
@@ -118,16 +94,7 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> ClassicSeries
         "plan_wavelength_nm": float(plan.optics.wavelength_nm),
         "se_at_plan_wavelength": here,
         "target_band_peak_nm": peak_nm,
-        "se_by_wavelength": [
-            {
-                "wavelength_nm": float(w),
-                "se": float(s),
-                "absorbance_max": float(x),
-                "absorbance_min": float(y),
-                "in_range": bool(f),
-            }
-            for w, s, x, y, f in zip(lam, se, a_max, a_min, feasible, strict=True)
-        ],
+        "se_by_wavelength": _se_rows(lam, se, a_max, a_min, feasible),
         "epsilon_at_wavelength": {n: float(e) for n, e in zip(model.absorbers, eps[k], strict=True) if e > 0},
     }
     notes = [
@@ -143,6 +110,54 @@ def wavelength_survey(plan: Plan, recipe: Recipe | None = None) -> ClassicSeries
     return finish(
         METHOD, surveyed, QUESTION, recipe, a, checks, extra, {}, ok, notes=tuple(notes), range_fix=fix
     )
+
+
+def _range_risk(plan: Plan, model, recipe: Recipe, eps: np.ndarray, a_max, a_min) -> np.ndarray:
+    """Per wavelength, the risk that a reading leaves the linear range over the guesses' uncertainty (by
+    assess's own screen; 0 or 1 from the readings at the guess when nothing is free)."""
+    lo, hi = model.linear_range
+    tot = totals_M(recipe, model.stock_conc_M)
+    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    params = free_parameters(plan, model)
+    if params.size:
+        with hypothetical():
+            return range_band(model, params, tot, ions, epsilon_M_cm=eps)[0].max(axis=-1)
+    return np.where((a_max <= hi) & (a_min >= lo), 0.0, 1.0)
+
+
+def _best_index(se: np.ndarray, feasible: np.ndarray) -> int:
+    """The wavelength with the smallest SE among the feasible ones (else among all with a finite SE)."""
+    if feasible.any():
+        return int(np.flatnonzero(feasible)[np.argmin(se[feasible])])
+    return int(np.nanargmin(np.where(np.isfinite(se), se, np.nan))) if np.isfinite(se).any() else 0
+
+
+def _bands_check(plan: Plan, model) -> Check:
+    """Does every absorber have a band? Those without one are taken as flat."""
+    bands = plan.optics.bands
+    flat = [n for n, e in zip(model.absorbers, model.epsilon_M_cm, strict=True) if e > 0 and n not in bands]
+    if flat:
+        return Check(
+            "bands",
+            "warn",
+            f"{', '.join(flat)} absorb but have no band: taken as flat at "
+            f"their ε at {plan.optics.wavelength_nm:g} nm — add their bands to [optics.bands]",
+        )
+    return Check("bands", "pass", f"every absorber has a band ({', '.join(bands)})")
+
+
+def _se_rows(lam, se, a_max, a_min, feasible) -> list[dict]:
+    """The survey by wavelength, one row each, by their JSON keys."""
+    return [
+        {
+            "wavelength_nm": float(w),
+            "se": float(s),
+            "absorbance_max": float(x),
+            "absorbance_min": float(y),
+            "in_range": bool(f),
+        }
+        for w, s, x, y, f in zip(lam, se, a_max, a_min, feasible, strict=True)
+    ]
 
 
 def _grid(plan: Plan) -> np.ndarray:

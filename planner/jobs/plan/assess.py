@@ -218,67 +218,23 @@ def assess_study(
     lb_true = true_constants(model, at)
     state = expected_state(model, recipe, log_beta=lb_true)
     budget = error_budget(bench, model, recipe, state)
-    target = study.target
-    check_list: list[Check] = []
     params = study.params
     true_theta = pack(model, params, log_beta=lb_true)
     cr = mc = prof = None
-    risk = spread = None
     if precision and params.size:
-        ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-        reading = ReadingModel(model, params, state.totals_M, ions)
-        J = reading.jac(true_theta[None, :])[0]
-        W = whitening_of(budget)  # diagonal + low rank for tubes: never an n × n matrix per trial
-        cr = cramer_rao(J, W=W)
-        enough = recipe.n_tubes >= params.size
-        if trials > 0 and enough:
-            mc = monte_carlo(
-                bench,
-                model,
-                recipe,
-                reading,
-                W,
-                np.random.default_rng(seed),
-                trials,
-                true_theta,
-                progress=progress,
-            )
-        if profile_chi2 and params.target >= 0 and recipe.n_tubes >= params.size - 1 and recipe.n_tubes > 0:
-            prof = profile(reading, W, true_theta)
-    if params.size and recipe.n_tubes:
-        ions_r = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
-        risk, low, high = chk.range_band(model, params, state.totals_M, ions_r)
-        spread = (float(low.min()), float(high.max()))
-    check_list.append(chk.linear_range(model, state, recipe.tubes, risk, spread))
-    check_list.append(chk.saturation(state, recipe.tubes))
-    if model.complex_mask[model.index(target)] and model.complex_mask.sum() == 1:
-        # the 'complete conversion' shortcut only makes sense with a single M–L complex
-        hand = study.analysis in ("one-to-one", "double-reciprocal")
-        check_list.append(chk.conversion(model, state, recipe.tubes, target, hand_analysis=hand))
-    if study.analysis == "double-reciprocal":
-        check_list.append(chk.double_reciprocal(state, recipe.tubes))
-    if study.analysis in ("one-to-one", "double-reciprocal"):
-        check_list.append(chk.second_complex(model, state, recipe.tubes, target))
-    check_list.append(chk.ionic_strength(state))
-    check_list.extend(chk.side_reactions(model, state, recipe.tubes))
-    check_list.extend(stock_and_glassware_checks(bench, recipe))
+        cr, mc, prof = _precision(
+            study, recipe, state, budget, true_theta, (trials, seed), profile_chi2, progress
+        )
+    check_list = _recipe_checks(study, recipe, state)
     if cr is not None:
         check_list.append(_identifiability_check(params, cr, model, state))
     det: tuple | None = None
     if model_check and precision and study.alternatives and params.size and params.target >= 0:
-        from .detection import ASSESS_FIX, POWER_TRIALS, model_check_finding, recipe_detection
-
-        n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
-        det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), n_det)
-        check_list.append(model_check_finding(det, model_check_fix or ASSESS_FIX))
+        det, found = _detection(study, recipe, seed, (trials, detection_trials), model_check_fix)
+        check_list.append(found)
     limits = None
     if cr is not None and params.target >= 0 and study.goal_se is not None:
-        se_t = float(cr.se[params.target])
-        limits = precision_shares(
-            study, recipe, state, budget, cr.jacobian, params, se_t, float(study.goal_se)
-        )
-        if suggest and limits is not None:
-            limits = what_would_help(study, recipe, limits, lb_true)
+        limits = _limits(study, recipe, state, budget, cr, lb_true, suggest)
     verdict, reason = with_failed_checks(
         *precision_verdict(study, params, cr, mc, prof, precision), check_list
     )
@@ -302,6 +258,75 @@ def assess_study(
         detection=det,
         limits=limits,
     )
+
+
+def _detection(study: Study, recipe: Recipe, seed: int, counts, fix: str | None):
+    """The detection power of the plan's alternative models, and the model-check check advising ``fix``;
+    ``counts`` = (trials, detection_trials): detection_trials simulated experiments per alternative
+    (default min(trials, POWER_TRIALS))."""
+    from .detection import ASSESS_FIX, POWER_TRIALS, model_check_finding, recipe_detection
+
+    trials, detection_trials = counts
+    n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
+    det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), n_det)
+    return det, model_check_finding(det, fix or ASSESS_FIX)
+
+
+def _limits(study: Study, recipe: Recipe, state, budget, cr, lb_true, suggest: bool) -> Limits | None:
+    """What limits the target's precision against the goal, and (``suggest``) what would help."""
+    params = study.params
+    se_t = float(cr.se[params.target])
+    limits = precision_shares(study, recipe, state, budget, cr.jacobian, params, se_t, float(study.goal_se))
+    if suggest and limits is not None:
+        limits = what_would_help(study, recipe, limits, lb_true)
+    return limits
+
+
+def _precision(study: Study, recipe: Recipe, state, budget, true_theta, runs, profile_chi2: bool, progress):
+    """Cramér–Rao, Monte Carlo (``runs`` = (trials, seed); when there are trials and enough tubes) and
+    the χ² profile of the target (when asked and the tubes allow) at the true constants."""
+    model, bench, params = study.model, study.bench, study.params
+    trials, seed = runs
+    mc = prof = None
+    ions = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+    reading = ReadingModel(model, params, state.totals_M, ions)
+    J = reading.jac(true_theta[None, :])[0]
+    W = whitening_of(budget)  # diagonal + low rank for tubes: never an n × n matrix per trial
+    cr = cramer_rao(J, W=W)
+    enough = recipe.n_tubes >= params.size
+    if trials > 0 and enough:
+        rng = np.random.default_rng(seed)
+        mc = monte_carlo(bench, model, recipe, reading, W, rng, trials, true_theta, progress=progress)
+    if profile_chi2 and params.target >= 0 and recipe.n_tubes >= params.size - 1 and recipe.n_tubes > 0:
+        prof = profile(reading, W, true_theta)
+    return cr, mc, prof
+
+
+def _recipe_checks(study: Study, recipe: Recipe, state: TubeState) -> list[Check]:
+    """The checks of the recipe itself: linear range (over the guesses' uncertainty), saturation, the
+    hand analysis's assumptions, ionic strength, side reactions, stocks and glassware."""
+    model, params, target = study.model, study.params, study.target
+    risk = spread = None
+    if params.size and recipe.n_tubes:
+        ions_r = tube_ions_M(model, recipe.volumes_mL, recipe.total_volume_mL)
+        risk, low, high = chk.range_band(model, params, state.totals_M, ions_r)
+        spread = (float(low.min()), float(high.max()))
+    check_list = [
+        chk.linear_range(model, state, recipe.tubes, risk, spread),
+        chk.saturation(state, recipe.tubes),
+    ]
+    if model.complex_mask[model.index(target)] and model.complex_mask.sum() == 1:
+        # the 'complete conversion' shortcut only makes sense with a single M–L complex
+        hand = study.analysis in ("one-to-one", "double-reciprocal")
+        check_list.append(chk.conversion(model, state, recipe.tubes, target, hand_analysis=hand))
+    if study.analysis == "double-reciprocal":
+        check_list.append(chk.double_reciprocal(state, recipe.tubes))
+    if study.analysis in ("one-to-one", "double-reciprocal"):
+        check_list.append(chk.second_complex(model, state, recipe.tubes, target))
+    check_list.append(chk.ionic_strength(state))
+    check_list.extend(chk.side_reactions(model, state, recipe.tubes))
+    check_list.extend(stock_and_glassware_checks(study.bench, recipe))
+    return check_list
 
 
 def with_failed_checks(verdict: str | None, reason: str, checks) -> tuple[str | None, str]:

@@ -145,61 +145,12 @@ def design_study(
         nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete it
         (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.plan.sequential`.
     """
-    n = check_count(tubes or study.tubes, "tubes", MAX_TUBES)
-    crit = criterion or study.criterion
-    if crit not in CRITERIA:
-        raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
-    rob = study.robust if robust is None else bool(robust)
-    params = study.params
-    if params.size == 0:
-        raise DesignError(
-            "nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)"
-        )
-    if crit == "target" and params.target < 0:
-        raise DesignError(
-            f"the target {study.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0"
-        )
-    if n < params.size:
-        raise DesignError(
-            f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
-            f"({', '.join(params.names)}): ask for at least {params.size} tubes"
-        )
+    n, crit, rob = _checked_request(study, tubes, criterion, robust)
     nodes = study.nodes(rob)
     notes: list[str] = []
-    caps: dict[str, float] = {}
-    for _attempt in range(4):
-        try:
-            rec, ex, ap, n_grid, n_feas, coarse, final = _solve(
-                study, nodes, crit, n, seed, caps, volumetric, starts, prior_tubes
-            )
-        except DesignError as exc:
-            if not caps:
-                raise
-            # the caps came from the stock on hand: that is what binds, not the linear range
-            limits = ", ".join(f"{k} at most {v:.2f} mL per tube" for k, v in caps.items())
-            raise DesignError(
-                f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
-                f"{plural(n, 'tube')}) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
-                f"fewer tubes"
-            ) from None
-        if coarse:
-            notes.append(coarse)
-        over = _budget_overruns(study, rec)
-        if not over:
-            break
-        for sid, (used, avail) in over.items():
-            per_tube = max(avail, 0.0) / n
-            caps[sid] = min(caps.get(sid, math.inf), per_tube)
-            notes.append(
-                f"stock {sid}: the first design used {used:.1f} mL but only {avail:.1f} mL is usable "
-                f"(on hand less rinse and dead volume); capped at {per_tube:.2f} mL per tube"
-            )
-    else:
-        raise DesignError(
-            "the stock budget cannot be met: make more of "
-            + ", ".join(_budget_overruns(study, rec))
-            + " (on_hand) or use fewer tubes"
-        )
+    rec, ex, ap, n_grid, n_feas, final = _solve_within_budget(
+        study, nodes, crit, n, (seed, volumetric, starts), prior_tubes, notes
+    )
     rec, model_check, a = _guard_and_assess(
         study, rec, final, crit, check_model, volumetric, seed, prior_tubes, notes
     )
@@ -229,6 +180,74 @@ def design_study(
         verdict,
         reason,
         a.limits if prior_tubes is None else None,
+    )
+
+
+def _checked_request(study: Study, tubes, criterion, robust) -> tuple[int, str, bool]:
+    """The number of tubes, the criterion and robustness asked for, after refusing what cannot be designed."""
+    n = check_count(tubes or study.tubes, "tubes", MAX_TUBES)
+    crit = criterion or study.criterion
+    if crit not in CRITERIA:
+        raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
+    rob = study.robust if robust is None else bool(robust)
+    params = study.params
+    if params.size == 0:
+        raise DesignError(
+            "nothing is fitted: give the target species log_beta_sd > 0 (and ε an rsd if unknown)"
+        )
+    if crit == "target" and params.target < 0:
+        raise DesignError(
+            f"the target {study.target} has log_beta_sd = 0 (held fixed): give it log_beta_sd > 0"
+        )
+    if n < params.size:
+        raise DesignError(
+            f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
+            f"({', '.join(params.names)}): ask for at least {params.size} tubes"
+        )
+    return n, crit, rob
+
+
+def _solve_within_budget(study: Study, nodes, crit: str, n: int, search, prior_tubes, notes: list[str]):
+    """Solve the design, and again with per-tube caps on each stock whose budget (on hand less rinse and
+    dead volume) the design overran, up to four times; notes on the way are appended to ``notes``.
+    ``search`` = (seed, volumetric, starts)."""
+    seed, volumetric, starts = search
+    caps: dict[str, float] = {}
+    for _attempt in range(4):
+        try:
+            rec, ex, ap, n_grid, n_feas, coarse, final = _solve(
+                study, nodes, crit, n, seed, caps, volumetric, starts, prior_tubes
+            )
+        except DesignError as exc:
+            if not caps:
+                raise
+            raise _stock_binds(caps, n, exc) from None
+        if coarse:
+            notes.append(coarse)
+        over = _budget_overruns(study, rec)
+        if not over:
+            return rec, ex, ap, n_grid, n_feas, final
+        for sid, (used, avail) in over.items():
+            per_tube = max(avail, 0.0) / n
+            caps[sid] = min(caps.get(sid, math.inf), per_tube)
+            notes.append(
+                f"stock {sid}: the first design used {used:.1f} mL but only {avail:.1f} mL is usable "
+                f"(on hand less rinse and dead volume); capped at {per_tube:.2f} mL per tube"
+            )
+    raise DesignError(
+        "the stock budget cannot be met: make more of "
+        + ", ".join(_budget_overruns(study, rec))
+        + " (on_hand) or use fewer tubes"
+    )
+
+
+def _stock_binds(caps: dict[str, float], n: int, exc: DesignError) -> DesignError:
+    """The error when no sound recipe fits under the caps: the stock on hand binds, not the linear range."""
+    limits = ", ".join(f"{k} at most {v:.2f} mL per tube" for k, v in caps.items())
+    return DesignError(
+        f"the stock on hand binds: {limits} (on hand less rinse and dead volume, shared by "
+        f"{plural(n, 'tube')}) leaves no sound recipe ({exc}); make more of it (on_hand) or ask for "
+        f"fewer tubes"
     )
 
 

@@ -68,21 +68,8 @@ def design_spectra(
     from ...inference.priors import prior_nodes
 
     nodes = prior_nodes(params, rob)
-    notes = []
-    cand = candidate_tubes(study)
-    factor = 1
-    if cand.n_grid > MAX_SPECTRA_CANDIDATES:
-        factor = int(math.ceil((cand.n_grid / MAX_SPECTRA_CANDIDATES) ** (1.0 / len(cand.designed_ids))))
-        cand = candidate_tubes(study, step_mL=study.bench.step_mL * factor)
-        notes.append(
-            f"searched a {study.bench.step_mL * factor:g} mL grid first, then refined near the chosen tubes"
-        )
-    ex, ap, rec, idx = _exact(study, cand, nodes, crit, n, seed, starts)
-    n_grid, n_feas = cand.n_grid, idx.size
-    if factor > 1:
-        cand = neighbourhood(study, cand, idx[np.flatnonzero(ex.counts)], factor, None)
-        ex, ap, rec, idx = _exact(study, cand, nodes, crit, n, seed, starts)
-        n_grid, n_feas = cand.n_grid, idx.size
+    notes: list[str] = []
+    cand, ex, ap, rec, idx, n_grid, n_feas = _search(study, nodes, crit, n, (seed, starts), notes)
     notes.append(
         "the search weighs candidates by their concentration-space information (exact when every tube's "
         "noise has the same shape over the window); every SE shown is the exact whole-spectrum bound"
@@ -106,14 +93,8 @@ def design_spectra(
     se_e = target_se_spectra(study, even)
     across = se_across_guess(study, rec, even, se=target_se_spectra)
     eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
-    a = replace(
-        a,
-        spectra=replace(
-            a.spectra,
-            se_single_wavelength_design=_single_wavelength_design(study, n, crit, rob, seed),
-            with_single_design=True,
-        ),
-    )
+    single = _single_wavelength_design(study, n, crit, rob, seed)
+    a = replace(a, spectra=replace(a.spectra, se_single_wavelength_design=single, with_single_design=True))
     return Design(
         rec,
         crit,
@@ -134,6 +115,29 @@ def design_spectra(
         verdict=a.verdict,
         verdict_reason=a.verdict_reason,
     )
+
+
+def _search(study: Study, nodes, crit: str, n: int, search, notes: list[str]):
+    """The exact design over the candidate grid — above MAX_SPECTRA_CANDIDATES a coarser grid first, then
+    the fine grid near the tubes it chose (noted in ``notes``). ``search`` = (seed, starts). Returns the
+    candidates, the exact and approximate designs, the recipe, the feasible candidates' indices and the
+    grid's and the feasible counts."""
+    seed, starts = search
+    cand = candidate_tubes(study)
+    factor = 1
+    if cand.n_grid > MAX_SPECTRA_CANDIDATES:
+        factor = int(math.ceil((cand.n_grid / MAX_SPECTRA_CANDIDATES) ** (1.0 / len(cand.designed_ids))))
+        cand = candidate_tubes(study, step_mL=study.bench.step_mL * factor)
+        notes.append(
+            f"searched a {study.bench.step_mL * factor:g} mL grid first, then refined near the chosen tubes"
+        )
+    ex, ap, rec, idx = _exact(study, cand, nodes, crit, n, seed, starts)
+    n_grid, n_feas = cand.n_grid, idx.size
+    if factor > 1:
+        cand = neighbourhood(study, cand, idx[np.flatnonzero(ex.counts)], factor, None)
+        ex, ap, rec, idx = _exact(study, cand, nodes, crit, n, seed, starts)
+        n_grid, n_feas = cand.n_grid, idx.size
+    return cand, ex, ap, rec, idx, n_grid, n_feas
 
 
 def _single_wavelength_design(study: Study, n: int, crit: str, rob: bool, seed: int) -> float | None:
