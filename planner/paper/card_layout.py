@@ -96,13 +96,9 @@ class CardLayout:
 
 def render_cards(ctx: dict, density: int, mode: str = "full", fonts=None, **extra):
     """One WeasyPrint layout of ``templates/cards.html.j2`` in ``mode`` (full, frames or overlay)."""
-    import weasyprint
+    from .render import lay_out_template
 
-    from .render import DataOnlyFetcher, render_html
-
-    html = render_html(TEMPLATE, {**ctx, "density": density, "mode": mode, **extra})
-    doc = weasyprint.HTML(string=html, base_url=None, url_fetcher=DataOnlyFetcher())
-    return doc.render(font_config=fonts)
+    return lay_out_template(TEMPLATE, {**ctx, "density": density, "mode": mode, **extra}, fonts)
 
 
 def lay_out(ctx: dict) -> CardLayout:

@@ -6,6 +6,10 @@ the same stocks, checklist and safety box cost thirty times the same work. Here 
 stream drawn by reference, as many times as wanted [source: ISO 32000-1:2008, §8.10 "Form XObjects"] —
 and every page that shows it draws it at the offset of its slot. The file holds each frame once.
 
+:func:`write_runs` does the same for text made of a few glyphs (the instructor's key's numbers): each
+glyph is laid out once, on a page of its own, and every line of such text is written as one run of those
+glyphs in the document's own font, so it prints as WeasyPrint's own lines and reads back as text.
+
 The slots' positions come from WeasyPrint's laid-out boxes (:mod:`planner.paper.boxes`), the layout the
 PDF is drawn from, so a slot and its frame line up to the CSS pixel; the layout tests compare the pages.
 """
@@ -13,9 +17,10 @@ PDF is drawn from, so a slot and its frame line up to the CSS pixel; the layout 
 from __future__ import annotations
 
 import functools
+import re
 from collections.abc import Sequence
 
-__all__ = ["PT_PER_PX", "write_stamped"]
+__all__ = ["PT_PER_PX", "write_runs", "write_stamped"]
 
 PT_PER_PX = 0.75  # PDF points per CSS pixel (72 / 96) [source: CSS Values and Units Level 3, §5.2]
 FRAME_NAME = "KplanFrame{}"  # the XObject names: WeasyPrint names its own images otherwise
@@ -86,3 +91,89 @@ def _stamp(n_frames: int, stamps: list, document, pdf) -> None:
         stream.stream.append(b"Q")
     pdf.pages["Kids"] = pydyf.Array(kids[3 * n_frames :])
     pdf.pages["Count"] = len(numbers) - n_frames
+
+
+# --------------------------------------------------------------------------------------------------
+# lines of text set from the glyphs of a document laid out with one glyph a page
+# --------------------------------------------------------------------------------------------------
+_GLYPH = re.compile(
+    rb"(?P<state>(?:/\S+ gs\n)?[\d.]+ [\d.]+ [\d.]+ rg\n)BT\n1 0 0 -1 (?P<x>-?[\d.]+) (?P<y>-?[\d.]+) Tm\n"
+    rb"(?P<font>/\S+ [\d.]+ Tf)\n\[<(?P<gid>[0-9a-f]+)>-?\d*\] TJ\nET"
+)
+
+
+def write_runs(glyphs, pages, runs: Sequence[Sequence[tuple[Sequence[int], float, float]]]) -> bytes:
+    """The PDF of ``pages`` with lines of text written on them from the glyphs of ``glyphs``.
+
+    Parameters
+    ----------
+    glyphs : WeasyPrint document holding one glyph a page (drawn as WeasyPrint draws a line of text: its
+        colour, font and size, a text matrix at its origin).
+    pages : WeasyPrint document, the pages to print, laid out with the same ``FontConfiguration``.
+    runs : for each page of ``pages``, its lines as ``(glyph pages, dx, dy)``: the glyphs of those pages,
+        all of one colour, font and size, written as one run of text whose origin is the first glyph's
+        origin moved by (dx, dy) CSS px. Within a run each glyph follows the one before by its width in
+        the embedded font, as in the lines WeasyPrint writes itself, so a line prints as WeasyPrint would
+        print it, and reads back as one word.
+
+    The glyphs' pages are left out of the file; the fonts hold their glyphs. The bytes depend on the
+    inputs only.
+    """
+    if len(runs) != len(pages.pages):
+        raise ValueError(f"{len(runs)} lists of runs for {len(pages.pages)} pages")
+    doc = pages.copy([*glyphs.pages, *pages.pages])
+    finish = functools.partial(_write_runs, len(glyphs.pages), [tuple(r) for r in runs])
+    return doc.write_pdf(finisher=finish)
+
+
+def _glyph_ops(page, pdf) -> dict:
+    """A glyph page's drawing state, origin and glyph id, read from its content stream (one glyph, drawn in
+    the page's own coordinates: nothing moved but by the page's two transforms)."""
+    stream = pdf.objects[_number(page["Contents"])]
+    text = b"\n".join(op if isinstance(op, bytes) else str(op).encode("latin-1") for op in stream.stream)
+    found = list(_GLYPH.finditer(text))
+    if len(found) != 1 or text.count(b" cm\n") != 2:
+        raise ValueError("a glyph page does not hold one glyph drawn as expected")
+    m = found[0]
+    return {"state": m["state"], "font": m["font"], "gid": m["gid"], "x": float(m["x"]), "y": float(m["y"])}
+
+
+def _num(value: float) -> str:
+    return f"{round(value, 6) + 0.0:.6f}"  # as WeasyPrint writes its own; + 0.0: no "-0.0"
+
+
+def _write_runs(n_glyphs: int, runs: list, document, pdf) -> None:
+    """WeasyPrint finisher: the first ``n_glyphs`` pages are read for their glyphs and left out; each
+    other page gets its runs of text, drawn under its own content."""
+    import pydyf
+
+    kids = list(pdf.pages["Kids"])
+    numbers = kids[::3]
+    if len(numbers) != n_glyphs + len(runs):
+        raise ValueError("the PDF does not hold the pages laid out")
+    glyph_pages = [pdf.objects[n] for n in numbers[:n_glyphs]]
+    resources = pdf.objects[numbers[0]]["Resources"]
+    if any(pdf.objects[n]["Resources"] != resources for n in numbers):
+        raise ValueError("pages with resources of their own")
+    glyph = [_glyph_ops(p, pdf) for p in glyph_pages]
+    for p in glyph_pages:
+        p.clear()  # an orphan now (pydyf writes every object it holds)
+    for number, lines in zip(numbers[n_glyphs:], runs, strict=True):
+        page = pdf.objects[number]
+        # the page's coordinates as WeasyPrint sets them: CSS px from the top-left corner, y downwards
+        ops = [b"q", f"1 0 0 -1 0 {_num(float(page['MediaBox'][3]))} cm".encode("ascii")]
+        ops.append(f"{PT_PER_PX:g} 0 0 {PT_PER_PX:g} 0 0 cm".encode("ascii"))
+        for ks, dx, dy in lines:
+            g0 = glyph[ks[0]]
+            if any(glyph[k]["state"] != g0["state"] or glyph[k]["font"] != g0["font"] for k in ks):
+                raise ValueError("a run of glyphs of more than one colour, font or size")
+            x, y = _num(g0["x"] + dx), _num(g0["y"] + dy)
+            hexes = b"".join(glyph[k]["gid"] for k in ks)
+            ops += [b"q", g0["state"].rstrip(b"\n"), b"BT", f"1 0 0 -1 {x} {y} Tm".encode("ascii")]
+            ops += [g0["font"], b"<" + hexes + b"> Tj", b"ET", b"Q"]
+        ops.append(b"Q")
+        stream = pdf.objects[_number(page["Contents"])]
+        stream.stream[:0] = [*ops, b"q"]  # the runs first: the page's own content is drawn over them
+        stream.stream.append(b"Q")
+    pdf.pages["Kids"] = pydyf.Array(kids[3 * n_glyphs :])
+    pdf.pages["Count"] = len(numbers) - n_glyphs

@@ -5,12 +5,9 @@ repeated part once."""
 from __future__ import annotations
 
 import io
-import re
 import shutil
-import subprocess
 from types import SimpleNamespace
 
-import numpy as np
 import pytest
 
 from planner.inputs.recipe import parse_recipe_csv
@@ -18,6 +15,9 @@ from planner.inputs.roster import parse_roster_csv, roster_of_count
 from planner.jobs.classroom.cards import class_set_study
 from planner.paper import card_layout as cl
 from planner.paper import cards as pc
+
+from ._print import same_print as _same_print
+from ._print import words as _words
 
 pytestmark = pytest.mark.skipif(shutil.which("pdftoppm") is None, reason="pdftoppm (poppler-utils) missing")
 
@@ -29,36 +29,6 @@ ROSTER = f"id,name,section,bench\nw1,{LONG_NAME},Monday-afternoon,12\nw2,{RTL},T
 def _whole(plan, cs, paper: str):
     """The same cards laid out whole, every card complete (the reference)."""
     return cl.whole_cards(pc.cards_context(plan, cs, paper=paper))
-
-
-def _pixels(pdf: bytes, tmp_path, tag: str, last: int | None = None, dpi: int = 100) -> list[np.ndarray]:
-    from PIL import Image
-
-    src = tmp_path / f"{tag}.pdf"
-    src.write_bytes(pdf)
-    upto = ["-l", str(last)] if last else []
-    subprocess.run(["pdftoppm", "-r", str(dpi), "-gray", *upto, str(src), str(tmp_path / tag)], check=True)
-    files = sorted(tmp_path.glob(f"{tag}-*.pgm"))
-    return [np.asarray(Image.open(f), dtype=int) for f in files]
-
-
-def _words(pdf: bytes) -> list[list[str]]:
-    from pypdf import PdfReader
-
-    return [sorted(re.split(r"\s+", p.extract_text().strip())) for p in PdfReader(io.BytesIO(pdf)).pages]
-
-
-def _same_print(stamped: bytes, whole: bytes, tmp_path, pages=None) -> None:
-    last = max(pages) + 1 if pages is not None else None
-    a, b = _pixels(stamped, tmp_path, "stamped", last), _pixels(whole, tmp_path, "whole", last)
-    assert len(a) == len(b)
-    for i in pages if pages is not None else range(len(a)):
-        assert a[i].shape == b[i].shape
-        differ = np.abs(a[i] - b[i]) > 32  # a quarter of the grey scale: a glyph moved, not antialiasing
-        assert differ.mean() < 1e-4, (i, np.unique(np.nonzero(differ)[0])[:20])
-    wa, wb = _words(stamped), _words(whole)
-    for i in pages if pages is not None else range(len(wa)):
-        assert wa[i] == wb[i], i
 
 
 @pytest.mark.parametrize("paper", ["A4", "Letter"])
