@@ -286,7 +286,7 @@ class _Bar:
     """A rich progress line on stderr, shown once a class set has taken more than ``DELAY_S`` (choosing
     the cards, one line per card assessed, then each file printed)."""
 
-    DELAY_S = 2.0
+    DELAY_S = 1.0  # a class set that takes longer than this shows its progress (issue 21: ~1 s)
 
     def __init__(self, show: bool, total: int):
         self.show = show and total > 0
@@ -314,12 +314,14 @@ class _Bar:
             self.timer.start()
 
     def _appear(self) -> None:
-        from rich.progress import Progress
+        from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 
         with self.lock:
             if self.closed:
                 return
-            bar = Progress(console=err, transient=True)
+            # the time so far, not a time left: printing the files has no steps to count
+            columns = (SpinnerColumn(), TextColumn("{task.description}"), BarColumn(), TimeElapsedColumn())
+            bar = Progress(*columns, console=err, transient=True)
             self.task = bar.add_task(self.what, total=self.total + 2, completed=self.done)
             bar.start()
             self.bar = bar
@@ -333,7 +335,8 @@ class _Bar:
         self._update()
 
     def stage(self, name: str) -> None:
-        self.done, self.what = self.done + 1, f"printing {name}"
+        # one step a file, never the last: the line keeps turning until the files are written
+        self.done, self.what = min(self.done + 1, self.total + 1), f"printing {name}"
         self._update()
 
     def __exit__(self, *exc):
