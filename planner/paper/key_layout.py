@@ -28,6 +28,7 @@ from __future__ import annotations
 import logging
 
 from .boxes import boxes_of, content_rect
+from .glyphs import GLYPHS, NotSettable, atlas_glyphs, read_atlas, run
 from .stamp import write_runs
 
 __all__ = ["GLYPHS", "key_pdf", "whole_key"]
@@ -35,20 +36,15 @@ __all__ = ["GLYPHS", "key_pdf", "whole_key"]
 _log = logging.getLogger(__name__)
 
 TEMPLATE = "key.html.j2"
-GLYPHS = "0123456789.–−-+e—"  # what the numbers are written with; anything else is laid out as text
 STAMP_ERRORS = (AttributeError, KeyError, TypeError, ValueError, IndexError)  # boxes or PDF not as read here
-TOL_PX = 1e-3  # advances and line heights agree to a thousandth of a CSS pixel
-
-
-class _Whole(Exception):
-    """The key cannot be stamped: lay it out whole."""
+TOL_PX = 1e-3  # line heights agree to a thousandth of a CSS pixel
 
 
 def key_pdf(ctx: dict) -> bytes:
     """``key.pdf`` from the key's template context (:func:`planner.paper.cards.key_context`)."""
     try:
         return _stamped(ctx)
-    except (_Whole, *STAMP_ERRORS) as e:
+    except STAMP_ERRORS as e:  # NotSettable among them
         _log.info("key laid out whole: %s", e)
         return whole_key(ctx).write_pdf()
 
@@ -80,70 +76,31 @@ def _stamped(ctx: dict) -> bytes:
     from .render import lay_out_template
 
     rows = _rows(ctx)
-    used: dict[str, set[str]] = {}
-    for row in rows:
-        for col in row:
-            for text, style in col:
-                used.setdefault(style, set()).update(text)
-    if any(ch not in GLYPHS for chars in used.values() for ch in chars):
-        raise _Whole(f"a number holds a character other than {GLYPHS}")
-    glyphs = [{"char": ch, "style": st} for st, chars in sorted(used.items()) for ch in sorted(chars)]
-    # every ordered pair of each style's glyphs on one line: its width is the sum of theirs if none is kerned
-    probes = [(st, "".join(a + b for a in sorted(ch) for b in sorted(ch))) for st, ch in sorted(used.items())]
+    glyphs, probes = atlas_glyphs(line for row in rows for col in row for line in col)
     fonts = FontConfiguration()  # one for both documents: their fonts are embedded together
     atlas = lay_out_template(TEMPLATE, {**ctx, "mode": "atlas", "glyphs": glyphs, "probes": probes}, fonts)
-    place, line_h = _atlas(atlas, glyphs, probes)
+    place, line_h = read_atlas(atlas, glyphs, probes)
     frame = lay_out_template(TEMPLATE, {**ctx, "mode": "frame"}, fonts)
     runs = [_page_runs(page, rows, place, line_h) for page in frame.pages]
     return write_runs(atlas.copy(atlas.pages[: len(glyphs)]), frame, runs)
 
 
-def _text_boxes(box) -> list:
-    from weasyprint.formatting_structure.boxes import TextBox
-
-    return [d for d in box.descendants() if isinstance(d, TextBox)]
-
-
-def _atlas(atlas, glyphs: list[dict], probes: list[tuple[str, str]]):
-    """Each glyph's place on its page — (page, left of its text, top of its line, advance), keyed by
-    (char, style) — and the height of a line of each style; raises :class:`_Whole` where a probe line
-    shows a kerned pair."""
-    if len(atlas.pages) != len(glyphs) + 1:
-        raise _Whole("the atlas does not hold one page per glyph")
-    place, line_h = {}, {}
-    for k, g in enumerate(glyphs):
-        (line,) = boxes_of(atlas.pages[k], "data-line")["data-line"].values()
-        (text,) = _text_boxes(line)
-        r = content_rect(line)
-        place[g["char"], g["style"]] = (k, text.position_x, r.y, text.width)
-        line_h.setdefault(g["style"], r.h)
-    found = boxes_of(atlas.pages[-1], "data-probe")["data-probe"]
-    widths = {el.get("data-probe"): sum(t.width for t in _text_boxes(box)) for el, box in found.items()}
-    for style, probe in probes:
-        if abs(widths[style] - sum(place[ch, style][3] for ch in probe)) > TOL_PX:
-            raise _Whole("the font kerns a pair of the numbers' glyphs")
-    return place, line_h
-
-
 def _page_runs(page, rows, place: dict, line_h: dict) -> tuple[tuple[tuple[int, ...], float, float], ...]:
-    """The runs of text on a frame page: for each line of each student's numbers, (its glyphs' atlas
-    pages, dx, dy), the move in CSS px from the first glyph's place in the atlas. A column's lines are
+    """The runs of text on a frame page, one for each line of each student's numbers: a column's lines
     right-aligned on the content box of its heading, one under the other from the top of the row's
     content box."""
     found = boxes_of(page, "data-col", "data-row", "data-ph")
     cols = {int(el.get("data-col")): content_rect(th) for el, th in found["data-col"].items()}
     tall = line_h["value"] + line_h.get("band", 0.0)
     if any(abs(b.border_height() - tall) > TOL_PX for b in found["data-ph"].values()):
-        raise _Whole("the placeholder is not as tall as a tube's lines")
+        raise NotSettable("the placeholder is not as tall as a tube's lines")
     runs = []
     for el, td in found["data-row"].items():
         top0 = content_rect(td).y
         for j, lines in enumerate(rows[int(el.get("data-row"))]):
-            right, top = cols[j].x + cols[j].w, top0
+            top = top0
             for text, style in lines:
                 if text:
-                    k, x0, y0, _ = place[text[0], style]
-                    x = right - sum(place[ch, style][3] for ch in text)  # right-aligned, as the cell's text
-                    runs.append((tuple(place[ch, style][0] for ch in text), x - x0, top - y0))
+                    runs.append(run(text, style, cols[j].x + cols[j].w, top, place))
                 top += line_h[style]
     return tuple(runs)
