@@ -26,8 +26,9 @@ PT_PER_PX = 0.75  # PDF points per CSS pixel (72 / 96) [source: CSS Values and U
 FRAME_NAME = "KplanFrame{}"  # the XObject names: WeasyPrint names its own images otherwise
 
 
-def write_stamped(frames, pages, stamps: Sequence[Sequence[tuple[int, float, float]]]) -> bytes:
-    """The PDF of ``pages`` (a WeasyPrint document) with the frames drawn on them.
+def write_stamped(frames, pages, stamps, glyphs=None, runs=None) -> bytes:
+    """The PDF of ``pages`` (a WeasyPrint document) with the frames drawn on them, and runs of text
+    written from ``glyphs`` (:func:`write_runs`) where given.
 
     Parameters
     ----------
@@ -35,71 +36,24 @@ def write_stamped(frames, pages, stamps: Sequence[Sequence[tuple[int, float, flo
     pages : WeasyPrint document, the pages to print.
     stamps : for each page of ``pages``, the frames it shows as ``(frame, dx, dy)``: frame ``frame``'s
         page is drawn shifted by (dx, dy) CSS px, under the page's own content.
+    glyphs, runs : as in :func:`write_runs` (``runs`` one list a page), or None.
 
-    The two documents must have been laid out with one ``FontConfiguration`` (their fonts are embedded
-    once, subset to the glyphs of both). The bytes depend on the inputs only.
+    The documents must have been laid out with one ``FontConfiguration`` (their fonts are embedded
+    once, subset to the glyphs of all). The bytes depend on the inputs only.
     """
-    if len(stamps) != len(pages.pages):
-        raise ValueError(f"{len(stamps)} stamp lists for {len(pages.pages)} pages")
-    doc = pages.copy([*frames.pages, *pages.pages])
-    finish = functools.partial(_stamp, len(frames.pages), [tuple(s) for s in stamps])
+    n = len(pages.pages)
+    if len(stamps) != n or (runs is not None and len(runs) != n):
+        raise ValueError(f"{len(stamps)} stamp lists for {n} pages")
+    extra = [] if glyphs is None else list(glyphs.pages)
+    doc = pages.copy([*frames.pages, *extra, *pages.pages])
+    finish = functools.partial(
+        _finish,
+        len(frames.pages),
+        [tuple(s) for s in stamps],
+        len(extra),
+        [tuple(r) for r in runs] if runs is not None else [()] * n,
+    )
     return doc.write_pdf(finisher=finish)
-
-
-def _number(reference) -> int:
-    """The object number of an indirect reference as pydyf writes it (b"12 0 R")."""
-    return int(bytes(reference).split()[0])
-
-
-def _offset(value_px: float) -> str:
-    pt = round(value_px * PT_PER_PX, 4) + 0.0  # + 0.0: no "-0.0" in the file
-    return f"{pt:.4f}"
-
-
-def _stamp(n_frames: int, stamps: list, document, pdf) -> None:
-    """WeasyPrint finisher: the first ``n_frames`` pages become form XObjects drawn on the other pages.
-
-    WeasyPrint writes one content stream per page and one resources dictionary for every page; a
-    frame's stream keeps those resources as the form's own and its page's media box as the form's
-    bounding box. The frames' page objects are emptied and left out of the page tree.
-    """
-    import pydyf
-
-    kids = list(pdf.pages["Kids"])
-    numbers = kids[::3]
-    if len(numbers) != n_frames + len(stamps):
-        raise ValueError("the PDF does not hold the pages laid out")
-    frame_pages = [pdf.objects[n] for n in numbers[:n_frames]]
-    resources_ref = frame_pages[0]["Resources"] if frame_pages else None
-    xobjects = pdf.objects[_number(resources_ref)]["XObject"] if frame_pages else {}
-    for k, page in enumerate(frame_pages):
-        if page["Resources"] != resources_ref:
-            raise ValueError("frames with resources of their own")
-        form = pdf.objects[_number(page["Contents"])]
-        form.extra.update({"Type": "/XObject", "Subtype": "/Form", "BBox": page["MediaBox"]})
-        form.extra["Resources"] = resources_ref
-        xobjects[FRAME_NAME.format(k)] = form.reference
-        page.clear()  # an orphan now (pydyf writes every object it holds)
-    for number, marks in zip(numbers[n_frames:], stamps, strict=True):
-        stream = pdf.objects[_number(pdf.objects[number]["Contents"])]
-        head: list[bytes] = []
-        for k, dx, dy in marks:
-            # PDF space runs upwards: a frame moved dy px down the page is translated by -dy
-            move = f"1 0 0 1 {_offset(dx)} {_offset(-dy)} cm"
-            head += [b"q", move.encode("ascii"), f"/{FRAME_NAME.format(k)} Do".encode("ascii"), b"Q"]
-        stream.stream[:0] = [*head, b"q"]  # the frames first: the page's own content is drawn over them
-        stream.stream.append(b"Q")
-    pdf.pages["Kids"] = pydyf.Array(kids[3 * n_frames :])
-    pdf.pages["Count"] = len(numbers) - n_frames
-
-
-# --------------------------------------------------------------------------------------------------
-# lines of text set from the glyphs of a document laid out with one glyph a page
-# --------------------------------------------------------------------------------------------------
-_GLYPH = re.compile(
-    rb"(?P<state>(?:/\S+ gs\n)?[\d.]+ [\d.]+ [\d.]+ rg\n)BT\n1 0 0 -1 (?P<x>-?[\d.]+) (?P<y>-?[\d.]+) Tm\n"
-    rb"(?P<font>/\S+ [\d.]+ Tf)\n\[<(?P<gid>[0-9a-f]+)>-?\d*\] TJ\nET"
-)
 
 
 def write_runs(glyphs, pages, runs: Sequence[Sequence[tuple[Sequence[int], float, float]]]) -> bytes:
@@ -119,11 +73,72 @@ def write_runs(glyphs, pages, runs: Sequence[Sequence[tuple[Sequence[int], float
     The glyphs' pages are left out of the file; the fonts hold their glyphs. The bytes depend on the
     inputs only.
     """
-    if len(runs) != len(pages.pages):
-        raise ValueError(f"{len(runs)} lists of runs for {len(pages.pages)} pages")
-    doc = pages.copy([*glyphs.pages, *pages.pages])
-    finish = functools.partial(_write_runs, len(glyphs.pages), [tuple(r) for r in runs])
-    return doc.write_pdf(finisher=finish)
+    from types import SimpleNamespace
+
+    return write_stamped(SimpleNamespace(pages=[]), pages, [()] * len(pages.pages), glyphs, runs)
+
+
+def _number(reference) -> int:
+    """The object number of an indirect reference as pydyf writes it (b"12 0 R")."""
+    return int(bytes(reference).split()[0])
+
+
+def _offset(value_px: float) -> str:
+    pt = round(value_px * PT_PER_PX, 4) + 0.0  # + 0.0: no "-0.0" in the file
+    return f"{pt:.4f}"
+
+
+def _num(value: float) -> str:
+    return f"{round(value, 6) + 0.0:.6f}"  # as WeasyPrint writes its own; + 0.0: no "-0.0"
+
+
+def _finish(n_frames: int, stamps: list, n_glyphs: int, runs: list, document, pdf) -> None:
+    """WeasyPrint finisher: the first ``n_frames`` pages become form XObjects drawn on the pages after
+    the glyphs; the next ``n_glyphs`` pages are read for their glyphs; both are left out of the page tree.
+
+    WeasyPrint writes one content stream per page and one resources dictionary for every page; a
+    frame's stream keeps those resources as the form's own and its page's media box as the form's
+    bounding box, and the runs use the fonts in them.
+    """
+    import pydyf
+
+    kids = list(pdf.pages["Kids"])
+    numbers = kids[::3]
+    skip = n_frames + n_glyphs
+    if len(numbers) != skip + len(stamps):
+        raise ValueError("the PDF does not hold the pages laid out")
+    resources_ref = pdf.objects[numbers[0]]["Resources"]
+    if any(pdf.objects[n]["Resources"] != resources_ref for n in numbers):
+        raise ValueError("pages with resources of their own")
+    for k, n in enumerate(numbers[:n_frames]):
+        page = pdf.objects[n]
+        form = pdf.objects[_number(page["Contents"])]
+        form.extra.update({"Type": "/XObject", "Subtype": "/Form", "BBox": page["MediaBox"]})
+        form.extra["Resources"] = resources_ref
+        pdf.objects[_number(resources_ref)]["XObject"][FRAME_NAME.format(k)] = form.reference
+    glyph = [_glyph_ops(pdf.objects[n], pdf) for n in numbers[n_frames:skip]]
+    for n in numbers[:skip]:
+        pdf.objects[n].clear()  # an orphan now (pydyf writes every object it holds)
+    for number, marks, lines in zip(numbers[skip:], stamps, runs, strict=True):
+        page = pdf.objects[number]
+        head: list[bytes] = []
+        for k, dx, dy in marks:
+            # PDF space runs upwards: a frame moved dy px down the page is translated by -dy
+            move = f"1 0 0 1 {_offset(dx)} {_offset(-dy)} cm"
+            head += [b"q", move.encode("ascii"), f"/{FRAME_NAME.format(k)} Do".encode("ascii"), b"Q"]
+        if lines:
+            head += _run_ops(glyph, lines, float(page["MediaBox"][3]))
+        stream = pdf.objects[_number(page["Contents"])]
+        stream.stream[:0] = [*head, b"q"]  # the frames and runs first: the page's own content over them
+        stream.stream.append(b"Q")
+    pdf.pages["Kids"] = pydyf.Array(kids[3 * skip :])
+    pdf.pages["Count"] = len(numbers) - skip
+
+
+_GLYPH = re.compile(
+    rb"(?P<state>(?:/\S+ gs\n)?[\d.]+ [\d.]+ [\d.]+ rg\n)BT\n1 0 0 -1 (?P<x>-?[\d.]+) (?P<y>-?[\d.]+) Tm\n"
+    rb"(?P<font>/\S+ [\d.]+ Tf)\n\[<(?P<gid>[0-9a-f]+)>-?\d*\] TJ\nET"
+)
 
 
 def _glyph_ops(page, pdf) -> dict:
@@ -138,42 +153,18 @@ def _glyph_ops(page, pdf) -> dict:
     return {"state": m["state"], "font": m["font"], "gid": m["gid"], "x": float(m["x"]), "y": float(m["y"])}
 
 
-def _num(value: float) -> str:
-    return f"{round(value, 6) + 0.0:.6f}"  # as WeasyPrint writes its own; + 0.0: no "-0.0"
-
-
-def _write_runs(n_glyphs: int, runs: list, document, pdf) -> None:
-    """WeasyPrint finisher: the first ``n_glyphs`` pages are read for their glyphs and left out; each
-    other page gets its runs of text, drawn under its own content."""
-    import pydyf
-
-    kids = list(pdf.pages["Kids"])
-    numbers = kids[::3]
-    if len(numbers) != n_glyphs + len(runs):
-        raise ValueError("the PDF does not hold the pages laid out")
-    glyph_pages = [pdf.objects[n] for n in numbers[:n_glyphs]]
-    resources = pdf.objects[numbers[0]]["Resources"]
-    if any(pdf.objects[n]["Resources"] != resources for n in numbers):
-        raise ValueError("pages with resources of their own")
-    glyph = [_glyph_ops(p, pdf) for p in glyph_pages]
-    for p in glyph_pages:
-        p.clear()  # an orphan now (pydyf writes every object it holds)
-    for number, lines in zip(numbers[n_glyphs:], runs, strict=True):
-        page = pdf.objects[number]
-        # the page's coordinates as WeasyPrint sets them: CSS px from the top-left corner, y downwards
-        ops = [b"q", f"1 0 0 -1 0 {_num(float(page['MediaBox'][3]))} cm".encode("ascii")]
-        ops.append(f"{PT_PER_PX:g} 0 0 {PT_PER_PX:g} 0 0 cm".encode("ascii"))
-        for ks, dx, dy in lines:
-            g0 = glyph[ks[0]]
-            if any(glyph[k]["state"] != g0["state"] or glyph[k]["font"] != g0["font"] for k in ks):
-                raise ValueError("a run of glyphs of more than one colour, font or size")
-            x, y = _num(g0["x"] + dx), _num(g0["y"] + dy)
-            hexes = b"".join(glyph[k]["gid"] for k in ks)
-            ops += [b"q", g0["state"].rstrip(b"\n"), b"BT", f"1 0 0 -1 {x} {y} Tm".encode("ascii")]
-            ops += [g0["font"], b"<" + hexes + b"> Tj", b"ET", b"Q"]
-        ops.append(b"Q")
-        stream = pdf.objects[_number(page["Contents"])]
-        stream.stream[:0] = [*ops, b"q"]  # the runs first: the page's own content is drawn over them
-        stream.stream.append(b"Q")
-    pdf.pages["Kids"] = pydyf.Array(kids[3 * n_glyphs :])
-    pdf.pages["Count"] = len(numbers) - n_glyphs
+def _run_ops(glyph: list[dict], lines, height_pt: float) -> list[bytes]:
+    """The operators writing ``lines`` (runs of glyphs) on a page ``height_pt`` tall."""
+    # the page's coordinates as WeasyPrint sets them: CSS px from the top-left corner, y downwards
+    ops = [b"q", f"1 0 0 -1 0 {_num(height_pt)} cm".encode("ascii")]
+    ops.append(f"{PT_PER_PX:g} 0 0 {PT_PER_PX:g} 0 0 cm".encode("ascii"))
+    for ks, dx, dy in lines:
+        g0 = glyph[ks[0]]
+        if any(glyph[k]["state"] != g0["state"] or glyph[k]["font"] != g0["font"] for k in ks):
+            raise ValueError("a run of glyphs of more than one colour, font or size")
+        x, y = _num(g0["x"] + dx), _num(g0["y"] + dy)
+        hexes = b"".join(glyph[k]["gid"] for k in ks)
+        ops += [b"q", g0["state"].rstrip(b"\n"), b"BT", f"1 0 0 -1 {x} {y} Tm".encode("ascii")]
+        ops += [g0["font"], b"<" + hexes + b"> Tj", b"ET", b"Q"]
+    ops.append(b"Q")
+    return ops

@@ -119,7 +119,7 @@ def test_a_pdf_writer_that_does_not_take_the_frames_gets_whole_cards(plan, study
     def refuse(*args):
         raise ValueError("the PDF does not hold the pages laid out")
 
-    monkeypatch.setattr(stamp, "_stamp", refuse)
+    monkeypatch.setattr(stamp, "_finish", refuse)
     reader = PdfReader(io.BytesIO(lay.write_pdf()))
     assert len(reader.pages) == 2
     assert not any("/KplanFrame" in str(p["/Resources"].get("/XObject", {})) for p in reader.pages)

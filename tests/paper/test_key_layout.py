@@ -110,5 +110,5 @@ def test_a_pdf_writer_that_does_not_take_the_runs_gets_the_key_laid_out_whole(pl
     def refuse(*args):
         raise ValueError("a glyph page does not hold one glyph drawn as expected")
 
-    monkeypatch.setattr(stamp, "_write_runs", refuse)
+    monkeypatch.setattr(stamp, "_finish", refuse)
     assert kl.key_pdf(ctx) == kl.whole_key(ctx).write_pdf()
