@@ -123,3 +123,23 @@ def test_a_pdf_writer_that_does_not_take_the_frames_gets_whole_cards(plan, study
     reader = PdfReader(io.BytesIO(lay.write_pdf()))
     assert len(reader.pages) == 2
     assert not any("/KplanFrame" in str(p["/Resources"].get("/XObject", {})) for p in reader.pages)
+
+
+def test_the_volumes_are_runs_of_glyphs_and_blocks_of_lines_where_they_cannot_be(
+    plan, study, monkeypatch, tmp_path
+):
+    # the volumes are written from one layout of their glyphs (no line of them laid out on any card);
+    # where a glyph is not one the numbers are set from, each column is a block of lines as before:
+    # the same print either way
+    from planner.paper import glyphs
+
+    cs = class_set_study(study, roster_of_count(4), seed=1)
+    lay, _ = pc.card_layout(plan, cs, paper="A4")
+    assert lay.glyphs is not None and len(lay.runs) == 4
+    stocks = len(pc.cards_context(plan, cs)["seq"])
+    assert all(len(r) == cs.best.n_tubes * stocks for r in lay.runs)  # a run for every volume
+    monkeypatch.setattr(glyphs, "GLYPHS", glyphs.GLYPHS.replace(".", ""))
+    blocks, _ = pc.card_layout(plan, cs, paper="A4")
+    assert blocks.glyphs is None and blocks.frames is not None
+    _same_print(lay.write_pdf(), blocks.write_pdf(), tmp_path)
+    _same_print(lay.write_pdf(), _whole(plan, cs, "A4").write_pdf(), tmp_path)
