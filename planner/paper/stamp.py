@@ -8,7 +8,10 @@ and every page that shows it draws it at the offset of its slot. The file holds 
 
 :func:`write_runs` does the same for text made of a few glyphs (the instructor's key's numbers): each
 glyph is laid out once, on a page of its own, and every line of such text is written as one run of those
-glyphs in the document's own font, so it prints as WeasyPrint's own lines and reads back as text.
+glyphs in the document's own font — a text object placing its first glyph with the text matrix and
+advancing each glyph by its width in the font's widths array [source: ISO 32000-1:2008, §9.4 "Text
+objects", §9.2.4 "Glyph positioning and metrics", §9.7.4.3 "Glyph metrics in CIDFonts"] — so it prints
+as WeasyPrint's own lines and reads back as text.
 
 The slots' positions come from WeasyPrint's laid-out boxes (:mod:`planner.paper.boxes`), the layout the
 PDF is drawn from, so a slot and its frame line up to the CSS pixel; the layout tests compare the pages.
