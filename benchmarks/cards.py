@@ -8,9 +8,11 @@ output file (cards.pdf, key.pdf, key.csv, key.xlsx, stocks.pdf, stocks.csv); the
 out in a second process while the first assesses them and prints the key. Also the same with ``--pooled``.
 
 Two clocks, both against the prep sheet on the same clock: wall seconds (what the user waits for; on a
-shared machine they move with its load) and CPU seconds of this process and its children (the work done;
-steadier under load). Then a breakdown of one process's CPU, with the cards laid out whole (every card's
-text laid out on every page, as before the repeated parts were stamped) beside the stamped layout.
+shared machine they move with its load, printed before and after) and CPU seconds of this process and its
+children (the work done; steadier under load). Then a breakdown of one process's CPU, with the cards laid
+out whole (every card's text laid out on every page, as before the repeated parts were stamped) beside the
+stamped layout, and the key laid out whole (every number a line of text) beside the key whose numbers are
+written from one layout of their glyphs.
 
 The first WeasyPrint call (fonts) is made before timing. Aim (issue "Cards that teach"): 30 cards ≤ 3 ×
 one prep sheet.
@@ -21,6 +23,7 @@ Run: ``python benchmarks/cards.py [--counts 30 200] [--repeats 1]``.
 from __future__ import annotations
 
 import argparse
+import os
 import resource
 import statistics
 import time
@@ -52,7 +55,7 @@ def _parts(plan, n: int, seed: int) -> dict[str, float]:
     from planner.inputs.roster import roster_of_count
     from planner.jobs.classroom.cards import class_set
     from planner.jobs.classroom.stock_list import class_stocks
-    from planner.paper import card_layout
+    from planner.paper import card_layout, key_layout
     from planner.paper import cards as pc
 
     out = {}
@@ -65,6 +68,9 @@ def _parts(plan, n: int, seed: int) -> dict[str, float]:
     st = class_stocks(plan, [c.recipe for c in cs.cards], roster)
     pc.key_document(plan, cs, st)
     out["key.pdf"] = clock() - t
+    t = clock()
+    key_layout.whole_key(pc.key_context(plan, cs, st)).write_pdf()
+    out["key.pdf laid out whole"] = clock() - t
     t = clock()
     pc.key_csv(plan, cs)
     pc.key_xlsx(plan, cs)
@@ -113,6 +119,7 @@ def main() -> None:
         a = assess_study(study, recipe, trials=0)
         return render.prep_sheet(plan, recipe, a, stock_needs(plan, recipe), date="2026-12-01")
 
+    print("load average (1, 5, 15 min) before: " + ", ".join(f"{x:.2f}" for x in os.getloadavg()))
     w_sheet, c_sheet, _ = timed(one_sheet, max(args.repeats, 3))
     print(f"baseline: one prep sheet (assessment + PDF): {w_sheet:.2f} s wall, {c_sheet:.2f} s CPU")
     for n in args.counts:
@@ -140,6 +147,7 @@ def main() -> None:
             )
         cpu_parts = _parts(plan, n, args.seed)
         print("      CPU s, one process: " + ", ".join(f"{k} {v:.2f}" for k, v in cpu_parts.items()))
+    print("load average (1, 5, 15 min) after: " + ", ".join(f"{x:.2f}" for x in os.getloadavg()))
 
 
 if __name__ == "__main__":

@@ -141,6 +141,7 @@ def make_class_files(
     from ..paper import cards as paper_cards
 
     bar = bar or _Bar(False, 0)
+    _warm_up()  # here, not in the printing process: it inherits what this one loaded, and the key needs it
     with _CardsPrinter(p, paper, roster) as printer:
         bar.start()
         cs = class_set(
@@ -216,7 +217,8 @@ def _print(cs, stocks, out_dir: Path) -> None:
 
 
 def _warm_up() -> None:
-    """Load WeasyPrint and the fonts in the printing process while the class set is designed."""
+    """Load WeasyPrint and the fonts (~0.8 s of CPU the first time) before the printing process is forked:
+    loaded once for both processes, not once in each."""
     from ..paper.render import html_to_pdf
 
     html_to_pdf("<p>kplan</p>")
@@ -248,7 +250,6 @@ class _CardsPrinter:
         self.job = None
         if len(roster) >= self.MIN_CARDS and "fork" in multiprocessing.get_all_start_methods():
             self.pool = multiprocessing.get_context("fork").Pool(1)
-            self.pool.apply_async(_warm_up)
 
     def drafted(self, drafts) -> None:
         self.drafts = drafts
@@ -292,7 +293,7 @@ class _Bar:
     """A rich progress line on stderr, shown once a class set has taken more than ``DELAY_S`` (choosing
     the cards, one line per card assessed, then each file printed)."""
 
-    DELAY_S = 2.0
+    DELAY_S = 1.0  # a class set that takes longer than this shows its progress (issue 21: ~1 s)
 
     def __init__(self, show: bool, total: int):
         self.show = show and total > 0
@@ -320,12 +321,14 @@ class _Bar:
             self.timer.start()
 
     def _appear(self) -> None:
-        from rich.progress import Progress
+        from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 
         with self.lock:
             if self.closed:
                 return
-            bar = Progress(console=err, transient=True)
+            # the time so far, not a time left: printing the files has no steps to count
+            columns = (SpinnerColumn(), TextColumn("{task.description}"), BarColumn(), TimeElapsedColumn())
+            bar = Progress(*columns, console=err, transient=True)
             self.task = bar.add_task(self.what, total=self.total + 2, completed=self.done)
             bar.start()
             self.bar = bar
@@ -339,7 +342,8 @@ class _Bar:
         self._update()
 
     def stage(self, name: str) -> None:
-        self.done, self.what = self.done + 1, f"printing {name}"
+        # one step a file, never the last: the line keeps turning until the files are written
+        self.done, self.what = min(self.done + 1, self.total + 1), f"printing {name}"
         self._update()
 
     def __exit__(self, *exc):

@@ -4,17 +4,21 @@ A card is mostly the same for every student: the title, the header box's labels,
 of addition, the tube table's headings and rules, the checklist, the safety box and the footer. Its own
 values are few: the name, id, section and bench, the volumes in the tube table and the sentence on its
 series. Laying out all that text again on every page was ~0.13 s a card; so the set is laid out in two
-WeasyPrint documents drawn from one template (``templates/cards.html.j2``):
+(three) WeasyPrint documents drawn from one template (``templates/cards.html.j2``):
 
 - the *frames*, one page each, each distinct part laid out and measured once: the head (title, header
   box with its value slots empty, stocks), the order of addition (cards differ only where their first
   step does), the tube table with its volumes left out, the bottom (measuring and safety), the footer;
 - the *cards*, one page each: a slot as tall as each frame, the card's values placed at the positions
-  measured in the frame (each stock's volumes as one block of lines at the table's row pitch), and the
-  card's series in the flow between the table and the bottom.
+  measured in the frame, and the card's series in the flow between the table and the bottom. The
+  volumes are not laid out at all: a third document, the *atlas*, holds each of their glyphs once, and
+  each volume is written as a run of those glyphs where the frame's cell puts its text
+  (:mod:`planner.paper.glyphs`); where a volume holds another character, or the font kerns a pair of
+  them, each stock's volumes are placed as one block of lines at the table's row pitch instead.
 
-:func:`planner.paper.stamp.write_stamped` then draws each frame in its slots, so the PDF shows every card
-whole — the same pixels as the card laid out whole (tested) — and holds the repeated text once. A value
+:func:`planner.paper.stamp.write_stamped` then draws each frame in its slots and writes the runs, so the
+PDF shows every card whole — the same pixels as the card laid out whole (tested) — and holds the
+repeated text once. A value
 slot of the header box is as tall as its tallest value in the set (a second layout where a name runs
 onto two lines). Where the tube table's rows are not evenly spaced (a tube name that wraps), or a card
 does not fit its page at any type size, the cards are laid out whole instead. Everything is a pure
@@ -61,6 +65,7 @@ class Column:
     w: float
     top: float
     pitch: float
+    text_top: float = 0.0  # the top of the first row's text (its placeholder's), relative to the frame
 
 
 @dataclass(frozen=True)
@@ -81,12 +86,14 @@ class CardLayout:
     stamps: tuple[tuple[tuple[int, float, float], ...], ...]
     density: int
     whole: Callable[[], CardLayout] | None = field(default=None, compare=False, repr=False)
+    glyphs: object | None = None  # the volumes' glyphs, one a page, where the volumes are runs of them
+    runs: tuple | None = None  # for each page, its volumes as runs of glyphs (planner.paper.glyphs.run)
 
     def write_pdf(self) -> bytes:
         if self.frames is None:
             return self.pages.write_pdf()
         try:
-            return write_stamped(self.frames, self.pages, self.stamps)
+            return write_stamped(self.frames, self.pages, self.stamps, self.glyphs, self.runs)
         except STAMP_ERRORS as e:  # a WeasyPrint whose PDF is built otherwise: the same cards, unstamped
             if self.whole is None:
                 raise
@@ -96,13 +103,9 @@ class CardLayout:
 
 def render_cards(ctx: dict, density: int, mode: str = "full", fonts=None, **extra):
     """One WeasyPrint layout of ``templates/cards.html.j2`` in ``mode`` (full, frames or overlay)."""
-    import weasyprint
+    from .render import lay_out_template
 
-    from .render import DataOnlyFetcher, render_html
-
-    html = render_html(TEMPLATE, {**ctx, "density": density, "mode": mode, **extra})
-    doc = weasyprint.HTML(string=html, base_url=None, url_fetcher=DataOnlyFetcher())
-    return doc.render(font_config=fonts)
+    return lay_out_template(TEMPLATE, {**ctx, "density": density, "mode": mode, **extra}, fonts)
 
 
 def lay_out(ctx: dict) -> CardLayout:
@@ -144,13 +147,17 @@ def whole_cards(ctx: dict, first: int | None = None, fonts=None) -> CardLayout:
 def _stamped(ctx: dict, density: int, fonts) -> CardLayout:
     """Frames and cards at one type size; raises _Overflow or _Irregular."""
     heights: dict[str, float] = {}
+    atlas = _atlas(ctx, density, fonts)
     for _ in range(2):  # a second pass only where a value needs a taller slot than one line
         frames, index = _frames(ctx, density, heights)
         fdoc = render_cards(ctx, density, "frames", fonts, frames=frames, slot_height_px=_px(heights))
         if len(fdoc.pages) != len(frames) + 1:  # and the footer
             raise _Overflow
         geo = [_measure(page, k) for k, page in enumerate(fdoc.pages)]
-        cards = [_overlay(c, geo, k, i > 0) for i, (c, k) in enumerate(zip(ctx["cards"], index, strict=True))]
+        cards = [
+            _overlay(c, geo, k, i > 0, columns=atlas is None)
+            for i, (c, k) in enumerate(zip(ctx["cards"], index, strict=True))
+        ]
         pages = render_cards(ctx, density, "overlay", fonts, cards=cards)
         if len(pages.pages) != len(cards):
             raise _Overflow
@@ -159,9 +166,48 @@ def _stamped(ctx: dict, density: int, fonts) -> CardLayout:
             s: h for s, h in tallest.items() if any(h > g.slots[s].h + TOL_PX for g in geo if s in g.slots)
         }
         if not short:
-            return CardLayout(pages, fdoc, stamps, density)
+            if atlas is None:
+                return CardLayout(pages, fdoc, stamps, density)
+            runs = _runs(ctx, geo, index, stamps, atlas[1])
+            return CardLayout(pages, fdoc, stamps, density, glyphs=atlas[0], runs=runs)
         heights.update(short)
     raise _Irregular  # taller slots still too short: lay the cards out whole
+
+
+def _atlas(ctx: dict, density: int, fonts):
+    """The tube tables' volumes' glyphs laid out one a page (the document) and where each sits
+    (:func:`planner.paper.glyphs.read_atlas`), or None where the volumes must be laid out as text."""
+    from .glyphs import NotSettable, atlas_glyphs, read_atlas
+
+    try:
+        cells = ((v, "volume") for c in ctx["cards"] for r in c["rows"] for v in r["cells"])
+        glyphs, probes = atlas_glyphs(cells)
+        doc = render_cards(ctx, density, "atlas", fonts, glyphs=glyphs, probes=probes)
+        place, _ = read_atlas(doc, glyphs, probes)
+    except NotSettable as e:
+        _log.info("the cards' volumes laid out as text: %s", e)
+        return None
+    return doc.copy(doc.pages[: len(glyphs)]), place
+
+
+def _runs(ctx: dict, geo: list[Frame], index, stamps, place: dict) -> tuple:
+    """Each card page's volumes as runs of glyphs: right-aligned on its table frame's cells, each row's
+    text where the frame's placeholder put it."""
+    from .glyphs import run
+
+    out = []
+    for card, parts, marks in zip(ctx["cards"], index, stamps, strict=True):
+        k = parts["table"]
+        g = geo[k]
+        dx, dy = next((mx, my) for f, mx, my in marks if f == k)
+        lines = []
+        for j, col in enumerate(g.columns):
+            right, top = g.rect.x + dx + col.x + col.w, g.rect.y + dy + col.text_top
+            for i, row in enumerate(card["rows"]):
+                if row["cells"][j]:
+                    lines.append(run(row["cells"][j], "volume", right, top + i * col.pitch, place))
+        out.append(tuple(lines))
+    return tuple(out)
 
 
 def _px(heights: dict[str, float]) -> dict[str, str]:
@@ -213,23 +259,24 @@ def _column(rows: list, seg: Rect) -> Column:
         even = abs(tops[i] - tops[0] - i * pitch) <= TOL_PX and abs(ph.height - h) <= TOL_PX
         if not even or abs(td.content_box_x() - x) > TOL_PX or abs(td.width - w) > TOL_PX:
             raise _Irregular
-    return Column(x - seg.x, w, tops[0] - (pitch - h) / 2 - seg.y, pitch)
+    return Column(x - seg.x, w, tops[0] - (pitch - h) / 2 - seg.y, pitch, tops[0] - seg.y)
 
 
 def _f(v: float) -> str:
     return f"{round(v, 4) + 0.0:.4f}"
 
 
-def _values(card: dict, g: Frame, dy: float) -> list[dict]:
-    """A card's values in frame ``g`` drawn ``dy`` below its slot's top: the header's fields, each stock's
-    volumes as a block of lines."""
+def _values(card: dict, g: Frame, dy: float, columns: bool = True) -> list[dict]:
+    """A card's values in frame ``g`` drawn ``dy`` below its slot's top: the header's fields, and unless
+    ``columns`` is False (the volumes are written as runs of glyphs), each stock's volumes as a block of
+    lines."""
     values = [
         {"slot": s, "cls": VALUE_CLASS[s], "text": card[s], "bdi": True, "lh": None}
         | {"x": _f(r.x), "y": _f(r.y + dy), "w": _f(r.w), "label": card["label"] if s == "student" else None}
         for s, r in g.slots.items()
         if card[s]
     ]
-    for j, col in enumerate(g.columns):
+    for j, col in enumerate(g.columns if columns else ()):
         values.append(
             {
                 "slot": f"col{j}",
@@ -246,11 +293,11 @@ def _values(card: dict, g: Frame, dy: float) -> list[dict]:
     return values
 
 
-def _slot(card: dict, geo: list[Frame], frames: list[int], first: bool) -> dict:
+def _slot(card: dict, geo: list[Frame], frames: list[int], first: bool, columns: bool = True) -> dict:
     """One slot for frames drawn one under the other, with the card's values in them."""
     values, dy = [], 0.0
     for k in frames:
-        values += _values(card, geo[k], dy)
+        values += _values(card, geo[k], dy, columns)
         dy += geo[k].rect.h
     return {
         "frames": " ".join(map(str, frames)),
@@ -261,11 +308,11 @@ def _slot(card: dict, geo: list[Frame], frames: list[int], first: bool) -> dict:
     }
 
 
-def _overlay(card: dict, geo: list[Frame], index: dict[str, int], first: bool) -> dict:
+def _overlay(card: dict, geo: list[Frame], index: dict[str, int], first: bool, columns: bool = True) -> dict:
     """A card's page: one slot for the frames of its parts with the card's values in them, the card's
     series, then the bottom's slot (the footer's frame is drawn on the page as it is); ``first``: the
     card is not the set's first, so its page starts here."""
-    slots = [_slot(card, geo, [index[part] for part in PARTS], first)]
+    slots = [_slot(card, geo, [index[part] for part in PARTS], first, columns)]
     if card["series"]:
         slots.append({"frames": None, "series": card["series"]})
     slots.append(_slot(card, geo, [len(geo) - 2], False))

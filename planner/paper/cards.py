@@ -444,6 +444,7 @@ def key_context(plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, pap
     n = cs.best.n_tubes
     return {
         "kind": "key",
+        "mode": "full",
         "paper": paper,
         "title": plan.title,
         "target": cs.target,
@@ -470,8 +471,13 @@ def key_document(
     plan: Plan, cs: ClassSet, stocks: tuple[ClassStock, ...], *, paper: str = "A4", fmt_: str = "pdf"
 ) -> bytes:
     """``key.pdf``: the instructor's key."""
+    from .key_layout import key_pdf
+
     validate_paper_format(paper, fmt_)
-    return output_bytes(render_html("key.html.j2", key_context(plan, cs, stocks, paper=paper)), fmt_)
+    ctx = key_context(plan, cs, stocks, paper=paper)
+    if fmt_ == "html":
+        return render_html("key.html.j2", ctx).encode("utf-8")
+    return key_pdf(ctx)
 
 
 # --------------------------------------------------------------------------------------------------

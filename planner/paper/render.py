@@ -29,6 +29,7 @@ __all__ = [
     "FetchRefused",
     "RenderError",
     "html_to_pdf",
+    "lay_out_template",
     "prep_sheet",
     "fit_layout",
     "render_html",
@@ -144,6 +145,16 @@ def template_macros(template: str, context: dict):
     ctx["css"] = Markup(_stylesheet())
     ctx["page_size"] = PAPERS[ctx["paper"]]
     return _environment().get_template(template).make_module(ctx)
+
+
+def lay_out_template(template: str, context: dict, fonts=None):
+    """``template`` rendered with ``context`` and laid out by WeasyPrint (a document, fetching data: URLs
+    only); ``fonts``: a ``FontConfiguration`` shared with other documents whose pages are drawn together."""
+    import weasyprint
+
+    html = render_html(template, context)
+    doc = weasyprint.HTML(string=html, base_url=None, url_fetcher=DataOnlyFetcher())
+    return doc.render(font_config=fonts)
 
 
 def html_to_pdf(html: str, *, fetcher=None) -> bytes:

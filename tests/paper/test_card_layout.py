@@ -5,12 +5,9 @@ repeated part once."""
 from __future__ import annotations
 
 import io
-import re
 import shutil
-import subprocess
 from types import SimpleNamespace
 
-import numpy as np
 import pytest
 
 from planner.inputs.recipe import parse_recipe_csv
@@ -18,6 +15,9 @@ from planner.inputs.roster import parse_roster_csv, roster_of_count
 from planner.jobs.classroom.cards import class_set_study
 from planner.paper import card_layout as cl
 from planner.paper import cards as pc
+
+from ._print import same_print as _same_print
+from ._print import words as _words
 
 pytestmark = pytest.mark.skipif(shutil.which("pdftoppm") is None, reason="pdftoppm (poppler-utils) missing")
 
@@ -29,36 +29,6 @@ ROSTER = f"id,name,section,bench\nw1,{LONG_NAME},Monday-afternoon,12\nw2,{RTL},T
 def _whole(plan, cs, paper: str):
     """The same cards laid out whole, every card complete (the reference)."""
     return cl.whole_cards(pc.cards_context(plan, cs, paper=paper))
-
-
-def _pixels(pdf: bytes, tmp_path, tag: str, last: int | None = None, dpi: int = 100) -> list[np.ndarray]:
-    from PIL import Image
-
-    src = tmp_path / f"{tag}.pdf"
-    src.write_bytes(pdf)
-    upto = ["-l", str(last)] if last else []
-    subprocess.run(["pdftoppm", "-r", str(dpi), "-gray", *upto, str(src), str(tmp_path / tag)], check=True)
-    files = sorted(tmp_path.glob(f"{tag}-*.pgm"))
-    return [np.asarray(Image.open(f), dtype=int) for f in files]
-
-
-def _words(pdf: bytes) -> list[list[str]]:
-    from pypdf import PdfReader
-
-    return [sorted(re.split(r"\s+", p.extract_text().strip())) for p in PdfReader(io.BytesIO(pdf)).pages]
-
-
-def _same_print(stamped: bytes, whole: bytes, tmp_path, pages=None) -> None:
-    last = max(pages) + 1 if pages is not None else None
-    a, b = _pixels(stamped, tmp_path, "stamped", last), _pixels(whole, tmp_path, "whole", last)
-    assert len(a) == len(b)
-    for i in pages if pages is not None else range(len(a)):
-        assert a[i].shape == b[i].shape
-        differ = np.abs(a[i] - b[i]) > 32  # a quarter of the grey scale: a glyph moved, not antialiasing
-        assert differ.mean() < 1e-4, (i, np.unique(np.nonzero(differ)[0])[:20])
-    wa, wb = _words(stamped), _words(whole)
-    for i in pages if pages is not None else range(len(wa)):
-        assert wa[i] == wb[i], i
 
 
 @pytest.mark.parametrize("paper", ["A4", "Letter"])
@@ -149,7 +119,27 @@ def test_a_pdf_writer_that_does_not_take_the_frames_gets_whole_cards(plan, study
     def refuse(*args):
         raise ValueError("the PDF does not hold the pages laid out")
 
-    monkeypatch.setattr(stamp, "_stamp", refuse)
+    monkeypatch.setattr(stamp, "_finish", refuse)
     reader = PdfReader(io.BytesIO(lay.write_pdf()))
     assert len(reader.pages) == 2
     assert not any("/KplanFrame" in str(p["/Resources"].get("/XObject", {})) for p in reader.pages)
+
+
+def test_the_volumes_are_runs_of_glyphs_and_blocks_of_lines_where_they_cannot_be(
+    plan, study, monkeypatch, tmp_path
+):
+    # the volumes are written from one layout of their glyphs (no line of them laid out on any card);
+    # where a glyph is not one the numbers are set from, each column is a block of lines as before:
+    # the same print either way
+    from planner.paper import glyphs
+
+    cs = class_set_study(study, roster_of_count(4), seed=1)
+    lay, _ = pc.card_layout(plan, cs, paper="A4")
+    assert lay.glyphs is not None and len(lay.runs) == 4
+    stocks = len(pc.cards_context(plan, cs)["seq"])
+    assert all(len(r) == cs.best.n_tubes * stocks for r in lay.runs)  # a run for every volume
+    monkeypatch.setattr(glyphs, "GLYPHS", glyphs.GLYPHS.replace(".", ""))
+    blocks, _ = pc.card_layout(plan, cs, paper="A4")
+    assert blocks.glyphs is None and blocks.frames is not None
+    _same_print(lay.write_pdf(), blocks.write_pdf(), tmp_path)
+    _same_print(lay.write_pdf(), _whole(plan, cs, "A4").write_pdf(), tmp_path)

@@ -319,11 +319,12 @@ def _who(roster: Roster, s: int) -> tuple[str, str, str, str]:
 
 def _assess(study: Study, recipe: Recipe) -> Assessment:
     """The card's assessment: Cramér–Rao and checks; the χ² profile only where the asymptotic SE may not
-    be trusted (it decides a 'bounded' verdict; no output prints it)."""
-    a = assess_study(study, recipe, trials=0, model_check=False, profile_chi2=False)
+    be trusted (it decides a 'bounded' verdict; no output prints it); not what limits the precision (no
+    output prints it either)."""
+    a = assess_study(study, recipe, trials=0, model_check=False, profile_chi2=False, shares=False)
     se = a.target_se
     if se is None or not np.isfinite(se) or se > TRUST_SE:
-        a = assess_study(study, recipe, trials=0, model_check=False)
+        a = assess_study(study, recipe, trials=0, model_check=False, shares=False)
     return a
 
 

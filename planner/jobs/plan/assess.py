@@ -195,6 +195,7 @@ def assess_study(
     detection_trials: int | None = None,
     model_check_fix: str | None = None,
     suggest: bool = False,
+    shares: bool = True,
     progress: Callable[[int, int], None] | None = None,
 ) -> Assessment:
     """Judge ``recipe`` against the compiled plan: expected tubes, error budget, precision of log K, checks
@@ -211,6 +212,8 @@ def assess_study(
         simulated experiments per alternative (default min(trials, 400)); ``model_check_fix`` what the
         model-check check advises.
     suggest : price the changes that would improve the precision (:mod:`planner.jobs.plan.limits`).
+    shares : False skips what limits the precision (``limits`` is None): for callers that print none of
+        it (the cards of a class set); the verdict does not read it.
     progress : callback(done, total) for long Monte-Carlo runs.
     """
     trials = check_count(trials, "trials", MAX_TRIALS, least=0)
@@ -233,7 +236,7 @@ def assess_study(
         det, found = _detection(study, recipe, seed, (trials, detection_trials), model_check_fix)
         check_list.append(found)
     limits = None
-    if cr is not None and params.target >= 0 and study.goal_se is not None:
+    if shares and cr is not None and params.target >= 0 and study.goal_se is not None:
         limits = _limits(study, recipe, state, budget, cr, lb_true, suggest)
     verdict, reason = with_failed_checks(
         *precision_verdict(study, params, cr, mc, prof, precision), check_list

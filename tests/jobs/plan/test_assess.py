@@ -181,3 +181,18 @@ def test_too_few_tubes_is_unresolved_not_a_crash(teaching_plan):
     r = make_recipe(teaching_plan, {"CU": np.array([1.0]), "DY": np.array([1.0])})
     a = assess(teaching_plan, r, trials=100)
     assert a.verdict == "unresolved" and "add tubes" in a.verdict_reason
+
+
+def test_without_the_shares_the_same_verdict_checks_and_numbers(teaching_plan):
+    # the class set's cards skip what limits the precision (no card prints it): everything else is the
+    # assessment's own
+    recipe = _well_posed_recipe(teaching_plan)
+    full = assess(teaching_plan, recipe, trials=0, model_check=False)
+    lean = assess(teaching_plan, recipe, trials=0, model_check=False, shares=False)
+    assert full.limits is not None and lean.limits is None
+    assert (lean.verdict, lean.verdict_reason) == (full.verdict, full.verdict_reason)
+    assert [(c.id, c.status, c.message) for c in lean.checks] == [
+        (c.id, c.status, c.message) for c in full.checks
+    ]
+    assert lean.target_se == full.target_se
+    assert np.array_equal(lean.absorbance_sd, full.absorbance_sd)
