@@ -40,6 +40,12 @@ def run_cli(capsys, monkeypatch, *args) -> tuple[int, str, str]:
 
     monkeypatch.setattr(sys, "argv", ["kplan", *map(str, args)])
     monkeypatch.setenv("COLUMNS", "200")
+    # the consoles read COLUMNS when first imported, which may be before this test: set their width too
+    import importlib
+
+    consoles = importlib.import_module("planner.cli.app")
+    for console in (consoles.out, consoles.err):
+        monkeypatch.setattr(console, "width", 200)
     code = 0
     try:
         cli.main()
