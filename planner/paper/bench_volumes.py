@@ -27,7 +27,7 @@ __all__ = [
 
 def device_items(plan: Plan) -> dict[str, GlasswareItem]:
     """Stock id → the catalogue item (with the plan's own figures) that dispenses it."""
-    from ..jobs.compile import plan_devices
+    from ..jobs.devices import plan_devices  # light: `kplan check` prints these without the numerics
 
     devices = plan_devices(plan)
     return {
