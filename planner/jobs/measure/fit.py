@@ -42,6 +42,7 @@ from .outliers import standardised
 __all__ = [
     "N_STARTS",
     "Fit",
+    "FittedConstants",
     "check_absorbances",
     "fit_readings",
     "fit_study",
@@ -53,8 +54,31 @@ MAX_ABSORBANCE = 10.0  # no photometer reads beyond this; a larger number is a t
 
 
 @dataclass(frozen=True)
-class Fit:
-    """The fitted constants and how they compare with the plan.
+class FittedConstants:
+    """What every fit of a plan's constants reports, of single readings or of whole spectra.
+
+    Attributes
+    ----------
+    title, target : the plan's title and target species.
+    names, estimate, se : fitted parameters, their values and standard errors.
+    promised_se : Cramér–Rao SE the plan predicted for what was fitted, at the guess.
+    chi2, dof, p_value : goodness of fit against the error model (``p_value`` the upper tail).
+    """
+
+    title: str
+    target: str
+    names: tuple[str, ...]
+    estimate: np.ndarray
+    se: np.ndarray
+    promised_se: np.ndarray
+    chi2: float
+    dof: int
+    p_value: float
+
+
+@dataclass(frozen=True)
+class Fit(FittedConstants):
+    """The fitted constants and how they compare with the plan (:class:`FittedConstants` and below).
 
     Attributes
     ----------
@@ -75,21 +99,12 @@ class Fit:
     interval_scale : √(χ²/dof) when the χ² test fails on the high side, else 1.
     """
 
-    title: str
     recipe: Recipe
     absorbance: np.ndarray
-    names: tuple[str, ...]
-    estimate: np.ndarray
-    se: np.ndarray
-    promised_se: np.ndarray
-    chi2: float
-    dof: int
-    p_value: float
     fitted: np.ndarray
     residual: np.ndarray
     standardised: np.ndarray
     converged: bool
-    target: str
     used: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
     excluded: tuple[tuple[str, str], ...] = ()
     determined: bool = True

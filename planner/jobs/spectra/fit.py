@@ -33,7 +33,7 @@ from ...inputs.spectra_readings import SpectraReadings
 from ...model.compiled import tube_ions_M
 from ...model.spectra import linearise
 from ..measure.core import N_STARTS
-from ..measure.fit import chi2_verdict
+from ..measure.fit import FittedConstants, chi2_verdict
 from ..measure.fit import not_determined as _not_determined
 from .assess import expected_factors
 from .precision import bounds, profile_chi2, spectra_cramer_rao
@@ -43,8 +43,9 @@ TUBE_OUTLIER_P = 0.001  # a tube whose readings' χ² is this improbable is mark
 
 
 @dataclass(frozen=True)
-class SpectraFit:
-    """The fitted constants and spectra, and how they compare with the plan.
+class SpectraFit(FittedConstants):
+    """The fitted constants and spectra, and how they compare with the plan (:class:`FittedConstants`
+    and below).
 
     Attributes
     ----------
@@ -59,15 +60,6 @@ class SpectraFit:
         and how many stand above the noise.
     """
 
-    title: str
-    target: str
-    names: tuple[str, ...]
-    estimate: np.ndarray
-    se: np.ndarray
-    promised_se: np.ndarray
-    chi2: float
-    dof: int
-    p_value: float
     p_low: float
     converged: bool
     determined: bool
