@@ -82,6 +82,9 @@ def without_check(plan: Path, tmp: Path) -> Path:
     text = plan.read_text(encoding="utf-8")
     text = re.sub(r"^check\s*=.*$", "", text, flags=re.M)
     out = tmp / f"{plan.stem}-nocheck.toml"
+    for table in plan.parent.glob("*.csv"):  # the files a plan names (an ε table) sit beside the copy
+        if not (tmp / table.name).exists():
+            (tmp / table.name).write_bytes(table.read_bytes())
     out.write_text(text.replace("[design]\n", '[design]\ncheck = "none"\n', 1), encoding="utf-8")
     return out
 

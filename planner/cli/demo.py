@@ -16,6 +16,14 @@ def demo(
     out_dir: Annotated[
         Path, typer.Option("--out", help="folder for the demo's files", metavar="PATH")
     ] = Path("kplan-demo"),
+    spectra: Annotated[
+        bool,
+        typer.Option(
+            "--spectra",
+            help="also plan, assess, simulate and fit the whole-spectrum example (every wavelength of the "
+            "window; about twice as long)",
+        ),
+    ] = False,
 ) -> None:
     """Run the built-in scenario through everything the tool does and say what it wrote."""
     from ..inputs.files import check_output_folder, write_atomic
@@ -49,7 +57,8 @@ def demo(
     print_assessment(a, p)
     written.append(write_atomic(out_dir / "assessment.json", dump_json(a) + "\n"))
     written.extend(_demo_paper(p, d, a, out_dir))
-    written.extend(_demo_spectra(out_dir))
+    if spectra:
+        written.extend(_demo_spectra(out_dir))
     out.print("\n[bold]Wrote[/bold]")
     for w in written:
         out.print(f"  {S(w)}")
@@ -57,6 +66,8 @@ def demo(
         f"Try: kplan check {S(out_dir / 'plan.toml')}   kplan assess {S(out_dir / 'plan.toml')} "
         f"{S(out_dir / 'recipe.csv')}"
     )
+    if not spectra:
+        out.print("Whole spectra (every wavelength an instrument records): kplan demo --spectra")
 
 
 def _demo_paper(p, d, a, out_dir: Path) -> list[Path]:

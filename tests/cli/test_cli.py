@@ -36,6 +36,20 @@ def test_demo_writes_files(tmp_path, capsys, monkeypatch):
     data = json.loads((tmp_path / "d" / "assessment.json").read_text())
     assert data["tubes"] and data["verdict"] in ("resolved", "bounded", "unresolved")
     assert "Wrote" in out
+    # the whole-spectrum example only on request, and the output says how to ask
+    assert not list((tmp_path / "d").glob("spectra-*")) and "kplan demo --spectra" in out
+
+
+def test_demo_with_spectra_plans_assesses_and_fits_whole_spectra(tmp_path, capsys, monkeypatch):
+    code, out, err = run(capsys, monkeypatch, "demo", "--out", tmp_path / "d", "--spectra")
+    assert code == 0, err
+    d = tmp_path / "d"
+    for name in ("spectra-plan.toml", "spectra-recipe.csv", "spectra-readings.csv", "spectra-report.pdf"):
+        assert (d / name).is_file(), name
+    a = json.loads((d / "spectra-assessment.json").read_text())
+    assert a["verdict"] in ("resolved", "bounded", "unresolved") and a["spectra"]["wavelengths"] > 1
+    f = json.loads((d / "spectra-fit.json").read_text())
+    assert f["parameters"] and f["target_fitted"] and "Whole spectra" in out and "kplan demo --spectra" not in out
 
 
 def test_new_then_check(tmp_path, capsys, monkeypatch):
