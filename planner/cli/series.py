@@ -40,9 +40,8 @@ Total = Annotated[
     str | None,
     typer.Option(
         help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest "
-        "in the "
-        "linear range); calibration — the limiting reagent's (default: full conversion reads mid-range); "
-        "mole-ratio — the fixed reagent's (default: the largest in the linear range)",
+        "in the linear range); calibration — the limiting reagent's (default: full conversion reads "
+        "mid-range); mole-ratio — the fixed reagent's (default: the largest in the linear range)",
         metavar="TEXT",
     ),
 ]
@@ -57,8 +56,7 @@ Excess = Annotated[
     str | None,
     typer.Option(
         help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts "
-        "99.9 %, "
-        "else 99 %, over the guess's range)",
+        "99.9 %, else 99 %, over the guess's range)",
         metavar="TEXT",
     ),
 ]

@@ -47,16 +47,12 @@ from .fit_result import (
 from .gauss_newton import Batch, all_over_params, max_over_params, min_over_params
 from .gauss_newton import put_rows as put
 from .gauss_newton import take_rows as take
+from .lm_steps import EPS, dot_p, factorise, finite_difference_jac, lm_parameter, row_norms
 
-_EPS = float(np.finfo(float).eps)
-_TINY = float(np.finfo(float).tiny)
 # Initial trust radius = _FACTOR * ‖D θ0‖: Moré's (1978) recommended factor.
 _FACTOR = 100.0
 # A step is accepted when actual/predicted reduction >= 1e-4 (Moré 1978, §4).
 _ACCEPT_RATIO = 1e-4
-# Moré's λ iteration stops when | ‖D p‖ − Δ | <= 0.1 Δ, or after 10 iterations (§5).
-_LAMBDA_SIGMA = 0.1
-_LAMBDA_MAX_ITER = 10
 # Trials first take plain Gauss–Newton passes (planner.inference.gauss_newton); only those that do not
 # converge cleanly there go through the trust-region iteration. False: every trial takes the
 # trust-region path (for comparing the two).
@@ -64,177 +60,6 @@ _FAST_PATH = True
 # Covariances come from the inverse of the column-scaled normal matrix where its smallest pivot exceeds
 # this (relative error ≤ ε/1e-6 ≈ 2e-10), from the SVD of the scaled Jacobian elsewhere.
 _COV_PIVOT_MIN = 1e-6
-
-
-def _finite_difference_jac(call_model, theta, f0, lo, hi, central: bool) -> np.ndarray:
-    """Forward (2-point) or central (3-point) differences, P or 2P model calls on the whole batch.
-
-    Steps are relative to each parameter, h = eps^(1/2) |θ| forward and eps^(1/3) |θ| central
-    (|θ| → 1 when θ = 0), as in MINPACK's fdjac2 (Moré, Garbow & Hillstrom 1980, ANL-80-74) and
-    Dennis & Schnabel (1983, Numerical Methods for Unconstrained Optimization, §5.4), so that a
-    parameter of size 1e-4 gets the same relative step as one of size 1e4. A step that would cross
-    a bound is taken on the other side instead.
-    """
-    n_trials, n_params = theta.shape
-    scale = np.where(theta != 0, np.abs(theta), 1.0)
-    h = (_EPS ** (1.0 / 3.0) if central else np.sqrt(_EPS)) * scale
-    room_up = theta + h <= hi
-    room_down = theta - h >= lo
-    if central:
-        h_up = np.where(room_up, h, 0.0)
-        h_down = np.where(room_down, h, 0.0)
-        # both sides blocked cannot happen for a sensible h unless hi − lo < 2h: fall back to forward
-        h_up = np.where(~room_up & ~room_down, h, h_up)
-    else:
-        h_up = np.where(room_up, h, 0.0)
-        h_down = np.where(room_up, 0.0, h)
-    jac = np.empty((n_trials, f0.shape[1], n_params))
-    for j in range(n_params):  # loop over parameters only; each call covers every trial
-        th_up = theta.copy()
-        th_up[:, j] += h_up[:, j]
-        th_down = theta.copy()
-        th_down[:, j] -= h_down[:, j]
-        # the representable step, not the nominal one, divides the difference
-        dh = th_up[:, j] - th_down[:, j]
-        f_up = call_model(th_up) if np.any(h_up[:, j] > 0) else f0
-        f_down = call_model(th_down) if np.any(h_down[:, j] > 0) else f0
-        jac[:, :, j] = (f_up - f_down) / dh[:, None]
-    return jac
-
-
-# ----------------------------------------------------------------------------------------------
-# batched SVD of the scaled Jacobians
-# ----------------------------------------------------------------------------------------------
-
-# Up to this many parameters the SVD is taken by vectorised one-sided Jacobi rotations (a few
-# numpy operations on the whole stack per column pair); beyond it LAPACK's per-matrix SVD is the
-# cheaper of the two.
-_JACOBI_MAX_PARAMS = 3
-
-
-def _row_norms(a: np.ndarray) -> np.ndarray:
-    """Euclidean norms along the last axis (einsum: faster than numpy.linalg.norm on stacks)."""
-    return np.sqrt(np.einsum("...n,...n->...", a, a))
-
-
-def _dot_p(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    return np.einsum("kp,kp->k", a, b)
-
-
-def _jacobi_svd_rows(bt: np.ndarray, max_sweeps: int = 40) -> tuple[np.ndarray, np.ndarray]:
-    """One-sided Jacobi SVD of stacked matrices given column-wise: ``bt[:, i]`` is column i.
-
-    Plane rotations of column pairs until all are mutually orthogonal, ``B V = U S`` (Hestenes
-    1958, J. SIAM 6:51), each rotation applied to the whole stack at once. The method is accurate to
-    high relative precision even for ill-conditioned B (Demmel & Veselić 1992, SIAM J. Matrix Anal.
-    Appl. 13:1204); rotation angles by Rutishauser's stable formula.
-
-    Returns (rotated columns ``(B V)ᵀ``, ``Vᵀ``); the rotated columns have norms s.
-    """
-    b = np.array(bt, dtype=float, order="C", copy=True)  # each column contiguous
-    k, p, _ = b.shape
-    vt = np.zeros((k, p, p))
-    for i in range(p):
-        vt[:, i, i] = 1.0
-    tol = max(p, 2) * _EPS
-    for _ in range(max_sweeps):
-        rotated = False
-        for i in range(p - 1):
-            for j in range(i + 1, p):
-                bi, bj = b[:, i], b[:, j]
-                alpha = np.einsum("kn,kn->k", bi, bi)
-                beta = np.einsum("kn,kn->k", bj, bj)
-                gamma = np.einsum("kn,kn->k", bi, bj)
-                rot = np.abs(gamma) > tol * np.sqrt(alpha * beta)
-                if not rot.any():
-                    continue
-                rotated = True
-                gamma[~rot] = 1.0
-                zeta = (beta - alpha) / (2.0 * gamma)
-                t = np.copysign(1.0, zeta) / (np.abs(zeta) + np.hypot(1.0, zeta))
-                t[~rot] = 0.0
-                c = 1.0 / np.sqrt(1.0 + t * t)
-                sn = (c * t)[:, None]
-                c = c[:, None]
-                for m in (b, vt):  # same rotation on the columns and on V
-                    mi, mj = m[:, i], m[:, j]
-                    new_i = c * mi - sn * mj
-                    mj *= c
-                    mj += sn * mi
-                    mi[...] = new_i
-        # two columns are made orthogonal by a single rotation: no confirming sweep needed
-        if not rotated or p == 2:
-            break
-    return b, vt
-
-
-def _factorise(js: np.ndarray, r: np.ndarray):
-    """SVD data of scaled Jacobians Js (k, N, P) and residuals r (k, N) for the LM subproblem.
-
-    ``Js = U S Vᵀ`` by one-sided Jacobi (few parameters) or LAPACK ``gesdd`` (more). Returns
-    s (k, P), Vᵀ (k, P, P) and ``b = Vᵀ Jsᵀ r = S Uᵀ r`` (k, P): everything the step and the
-    predicted reduction need, for any damping λ. ``JᵀJ`` is never formed.
-    """
-    if js.shape[2] <= _JACOBI_MAX_PARAMS:
-        rotated, vt = _jacobi_svd_rows(np.swapaxes(js, 1, 2))
-        return _row_norms(rotated), vt, np.einsum("kin,kn->ki", rotated, r)
-    u, s, vt = np.linalg.svd(js, full_matrices=False)
-    return s, vt, s * np.einsum("kni,kn->ki", u, r)
-
-
-# ----------------------------------------------------------------------------------------------
-# Moré's λ (trust-region) subproblem on the SVD of the scaled Jacobian
-# ----------------------------------------------------------------------------------------------
-
-
-def _lm_parameter(s, b, delta, par, keep):
-    """Damping λ ≥ 0 with ‖q(λ)‖ ≈ Δ, by Moré's (1978, §5) safeguarded Newton iteration.
-
-    With ``Js = U S Vᵀ`` and ``b = Vᵀ Jsᵀ r``, the scaled step is ``q(λ) = −V c`` with
-    ``c = b / (s² + λ)``, so ``‖q(λ)‖² = Σ b²/(s² + λ)²`` and each Newton step costs O(P) per trial.
-    At λ = 0 singular values below the rank cut-off (``keep`` False) are dropped, as in a
-    pseudo-inverse. Returns (λ, c).
-    """
-    full_rank = all_over_params(keep)
-    s2 = s * s
-    s2_safe = np.where(keep, s2, 1.0)
-    c = np.where(keep, b / s2_safe, 0.0)  # Gauss–Newton step
-    dxnorm = _row_norms(c)
-    fp = dxnorm - delta
-    gauss_newton = fp <= _LAMBDA_SIGMA * delta
-    # lower bound: Newton step from λ = 0 (valid only when J has full rank; Moré 1978, §5)
-    curv0 = _dot_p(c, np.where(keep, c / s2_safe, 0.0))
-    parl = np.where(full_rank & (curv0 > 0), fp * dxnorm**2 / (delta * np.where(curv0 > 0, curv0, 1.0)), 0.0)
-    parl = np.maximum(parl, 0.0)
-    gnorm = _row_norms(b)
-    paru = gnorm / delta
-    paru = np.where(paru == 0, _TINY / np.minimum(delta, 0.1), paru)
-    lam = np.minimum(np.maximum(par, parl), paru)
-    lam = np.where(lam == 0, gnorm / np.where(dxnorm > 0, dxnorm, 1.0), lam)
-    todo = ~gauss_newton
-    lam_out = np.zeros_like(lam)
-    c_out = c
-    for it in range(_LAMBDA_MAX_ITER):  # a fixed handful of iterations, each vectorised over trials
-        if not todo.any():
-            break
-        lam = np.where(lam == 0, np.maximum(_TINY, 1e-3 * paru), lam)
-        denom = s2 + lam[:, None]
-        ck = b / denom
-        qn = _row_norms(ck)
-        fp_prev, fp = fp, qn - delta
-        lam_out = np.where(todo, lam, lam_out)
-        c_out = np.where(todo[:, None], ck, c_out)
-        done = (np.abs(fp) <= _LAMBDA_SIGMA * delta) | ((parl == 0) & (fp <= fp_prev) & (fp_prev < 0))
-        if it == _LAMBDA_MAX_ITER - 1:
-            break
-        todo = todo & ~done
-        curv = _dot_p(b, b / denom**3)
-        parc = fp * qn**2 / (delta * np.where(curv > 0, curv, np.inf))
-        parl = np.where(todo & (fp > 0), np.maximum(parl, lam), parl)
-        paru = np.where(todo & (fp < 0), np.minimum(paru, lam), paru)
-        lam = np.where(todo, np.maximum(parl, lam + parc), lam)
-    return lam_out, c_out
-
 
 # ----------------------------------------------------------------------------------------------
 # the batched driver
@@ -362,9 +187,9 @@ def _rank_cutoff(jac_kind: str, n_obs: int, n_params: int) -> float:
     # Jacobian is known: rounding for an analytic one (as in numpy.linalg.matrix_rank), the
     # truncation/rounding error of the difference formula otherwise.
     return {
-        "analytic": max(n_obs, n_params) * _EPS,
-        "2-point": 10.0 * np.sqrt(_EPS),
-        "3-point": 10.0 * _EPS ** (2.0 / 3.0),
+        "analytic": max(n_obs, n_params) * EPS,
+        "2-point": 10.0 * np.sqrt(EPS),
+        "3-point": 10.0 * EPS ** (2.0 / 3.0),
     }[jac_kind]
 
 
@@ -409,7 +234,7 @@ class _Evaluator:
             out = checked_shape(self.jac(th), (th.shape[0], self.n_obs, self.n_params), "jac")
         else:
             call = self._call_model if self.rowwise else self._call_model_whole
-            out = _finite_difference_jac(call, th, f_rows, self.lo, self.hi, central=self.kind == "3-point")
+            out = finite_difference_jac(call, th, f_rows, self.lo, self.hi, central=self.kind == "3-point")
         return out if self.rowwise or rows.size == self.n_trials else out.take(rows, axis=0)
 
     def start(self, theta: np.ndarray, yy: np.ndarray, weigh_res) -> Batch:
@@ -418,7 +243,7 @@ class _Evaluator:
         all_rows = np.arange(n_trials)
         f = self._call_model(theta) if self.rowwise else self._call_model_whole(theta)
         r = weigh_res(f - yy, all_rows)
-        fnorm = _row_norms(r)
+        fnorm = row_norms(r)
         status = np.where(np.isfinite(fnorm), 0, -1)
         b = Batch(
             theta,
@@ -532,12 +357,12 @@ class _TrustRegion:
             th_rows, grad = take(b.theta, rows), np.einsum("knp,kn->kp", js, take(b.r, rows))
             frozen = ((th_rows <= lo) & (grad > 0)) | ((th_rows >= hi) & (grad < 0))
             js = np.where(frozen[:, None, :], 0.0, js)
-        s, v_t, bb = _factorise(js, take(b.r, rows))
+        s, v_t, bb = factorise(js, take(b.r, rows))
         put(self.sv, rows, s)
         put(self.vt, rows, v_t)
         put(self.bvec, rows, bb)
         put(self.keep, rows, s > self.rcond * max_over_params(s)[:, None])
-        xn = _row_norms(d * take(b.theta, rows))
+        xn = row_norms(d * take(b.theta, rows))
         put(self.xnorm, rows, xn)
         dl = np.where(new, np.where(xn > 0, _FACTOR * xn, _FACTOR), take(self.delta, rows))
         put(self.delta, rows, dl)
@@ -547,7 +372,7 @@ class _TrustRegion:
         fn = take(b.fnorm, rows)
         denom = np.where(colnorm > 0, colnorm, np.inf) * fn[:, None]
         gnorm = np.where(fn > 0, max_over_params(jtr / np.where(denom > 0, denom, np.inf)), 0.0)
-        code = np.where(gnorm <= self.tol[3], 4, np.where(gnorm <= _EPS, 8, 0))
+        code = np.where(gnorm <= self.tol[3], 4, np.where(gnorm <= EPS, 8, 0))
         put(b.status, rows, code)
         put(self.fresh, rows, False)
 
@@ -555,7 +380,7 @@ class _TrustRegion:
         """The trial points of the running trials ``act``: Moré's λ for the trust radius, projected
         onto the box."""
         s, bb, dg = take(self.sv, act), take(self.bvec, act), take(self.diag, act)
-        lam, c = _lm_parameter(s, bb, take(self.delta, act), take(self.par, act), take(self.keep, act))
+        lam, c = lm_parameter(s, bb, take(self.delta, act), take(self.par, act), take(self.keep, act))
         self.lam = lam
         q = -np.einsum("kij,ki->kj", take(self.vt, act), c)  # scaled step D p = −V c
         return np.clip(take(self.b.theta, act) + q / dg, self.lo, self.hi)
@@ -573,12 +398,12 @@ class _TrustRegion:
         )
         vt_act = take(self.vt, act)
         q = dg * (th_new - take(b.theta, act))  # the projected step actually taken
-        pnorm = _row_norms(q)
+        pnorm = row_norms(q)
         d_act = take(self.delta, act)
         d_act = np.where(take(self.first, act), np.minimum(d_act, pnorm), d_act)
         b.n_iter[act] += 1
         fn0 = take(b.fnorm, act)
-        fn1 = _row_norms(r_try)
+        fn1 = row_norms(r_try)
         finite1 = np.isfinite(fn1)
         actred = np.where(finite1 & (0.1 * fn1 < fn0), 1.0 - (fn1 / fn0) ** 2, -1.0)
         # predicted reduction of the linear model, ‖r‖² − ‖r + Js q‖² = −(2 rᵀJs q + ‖Js q‖²),
@@ -586,9 +411,9 @@ class _TrustRegion:
         # projected step too)
         w = np.einsum("kij,kj->ki", vt_act, q)
         fn0_sq = np.where(fn0 > 0, fn0**2, 1.0)
-        bw = _dot_p(bb, w)
+        bw = dot_p(bb, w)
         sw = s * w
-        prered = -(2.0 * bw + _dot_p(sw, sw)) / fn0_sq
+        prered = -(2.0 * bw + dot_p(sw, sw)) / fn0_sq
         dirder = bw / fn0_sq
         ratio = np.where(prered != 0, actred / prered, 0.0)
         # trust-radius update (Moré 1978, §4, with the quadratic-interpolation factor μ)
@@ -611,7 +436,7 @@ class _TrustRegion:
             put(b.f, acc, f_act[sel])
             put(b.r, acc, r_try[sel])
             put(b.fnorm, acc, fn1[sel])
-            xn_acc = _row_norms(dg[sel] * th_new[sel])
+            xn_acc = row_norms(dg[sel] * th_new[sel])
             put(self.xnorm, acc, xn_acc)
             xn[accept] = xn_acc  # xn is a copy (take)
             put(self.first, acc, False)
@@ -622,8 +447,8 @@ class _TrustRegion:
         f_ok = (np.abs(actred) <= ftol) & (prered <= ftol) & half_ratio_ok
         x_ok = new_delta <= xtol * xn
         code = np.where(f_ok & x_ok, 3, np.where(x_ok, 2, np.where(f_ok, 1, 0)))
-        f_eps = (np.abs(actred) <= _EPS) & (prered <= _EPS) & half_ratio_ok
-        x_eps = new_delta <= _EPS * xn
+        f_eps = (np.abs(actred) <= EPS) & (prered <= EPS) & half_ratio_ok
+        x_eps = new_delta <= EPS * xn
         code = np.where(code == 0, np.where(f_eps, 6, np.where(x_eps, 7, 0)), code)
         code = np.where((code == 0) & (take(b.n_iter, act) >= max_iter), 5, code)
         put(b.status, act, code)
@@ -658,7 +483,7 @@ def _finish(b: Batch, ev: _Evaluator, weigh_jac, dof: int, scale_cov: bool, rcon
         # column equilibration before the SVD keeps the inverse accurate when parameters differ
         # in magnitude by many decades (van der Sluis 1969, Numer. Math. 14:14)
         d = np.where(colnorm > 0, colnorm, 1.0)
-        s, v_t, _ = _factorise(jw / d[:, None, :], np.zeros(jw.shape[:2]))
+        s, v_t, _ = factorise(jw / d[:, None, :], np.zeros(jw.shape[:2]))
         regular = min_over_params(s) > rcond * max_over_params(s)
         inv_s2 = np.where(regular[:, None], 1.0 / np.where(s > 0, s, 1.0) ** 2, np.nan)
         unit = np.einsum("kip,ki,kiq->kpq", v_t, inv_s2, v_t) / (d[:, :, None] * d[:, None, :])

@@ -8,22 +8,40 @@ made from it (systematic); see :mod:`planner.uncertainty.delivery` for per-deliv
 When the mass to weigh falls below the balance's minimum weight (USP <41>: ``m ≥ 2000·s``), a
 dilution chain is proposed: weigh a more concentrated stock, then take aliquots with one-mark
 pipettes into volumetric flasks. Every step's pipette and flask add to the uncertainty.
+
+The weighing itself is in :mod:`planner.uncertainty.weighing`, the chain search in
+:mod:`planner.uncertainty.stock_chains`; their public names are importable from here too.
 """
 
 from __future__ import annotations
 
-import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any, NamedTuple
+from typing import Any
 
 import numpy as np
 
-from ..inputs.errors import InputError
-from ..inputs.formulas import formula_mass_g_mol
-from .catalogue import REPEATABILITY_PER_U_CALIBRATION, GlasswareError, GlasswareItem, catalogue, lookup
-from .delivery import delivery_uncertainty, flask_volume_uncertainty, u_rectangular, u_triangular
+from .catalogue import GlasswareError, GlasswareItem, catalogue, lookup
+from .delivery import u_rectangular
+from .stock_chains import (
+    CHAIN_U_SLACK,
+    PIPETTE_DRAW_FRACTION,
+    SCARCE_MASS_SLACK,
+    DilutionStep,
+    best_chain,
+    single_volume_u_rel,
+)
+from .weighing import (
+    USP41_FACTOR,
+    USP41_READABILITY_FACTOR,
+    StockError,
+    conc_from_weighing_M,
+    effective_repeatability_g,
+    formula_weight_g_mol,
+    mass_for_conc_g,
+    minimum_weight_g,
+)
 
 __all__ = [
     "ACS_REAGENT_ASSAY_HALF_WIDTH",
@@ -31,7 +49,9 @@ __all__ = [
     "PREFERENCES",
     "PURITY_HALF_WIDTH_FLOOR",
     "SCARCE_MASS_SLACK",
+    "PIPETTE_DRAW_FRACTION",
     "USP41_FACTOR",
+    "USP41_READABILITY_FACTOR",
     "DilutionStep",
     "StockError",
     "StockPreparation",
@@ -44,14 +64,6 @@ __all__ = [
     "volume_needed_mL",
 ]
 
-USP41_FACTOR = 2000.0
-"""USP <41>: repeatability is satisfactory when 2·s/m ≤ 0.10 %, i.e. m ≥ 2000·s [source: USP <41>]."""
-
-USP41_READABILITY_FACTOR = 0.41
-"""USP <41>: a repeatability sd below 0.41·d (d the scale interval) is replaced by 0.41·d
-[from memory: USP <41>, 2013 revision]. 0.41 ≈ √2/√12, the sd of the difference of two readings
-rounded to d (GUM F.2.2.1) [derived]."""
-
 ACS_REAGENT_ASSAY_HALF_WIDTH = 0.02
 """Reagent-grade salts assay 98–102 % [source: ACS Reagent Chemicals]: ±0.02 as a mass fraction."""
 
@@ -61,127 +73,13 @@ PURITY_HALF_WIDTH_FLOOR = 1e-4
 MAX_PURITY = 1.05
 """Upper bound accepted for an assay (hydrates can assay above 100 %, e.g. ACS 98–102 %)."""
 
-PIPETTE_DRAW_FRACTION = 0.5
-"""An aliquot may use at most half of the solution it is drawn from, leaving enough to rinse the
-pipette with that solution first [common practice]."""
-
 PREFERENCES = ("precision", "reagent")
 """What a dilution chain is chosen for: the best precision, or the least reagent (a scarce one)."""
-
-SCARCE_MASS_SLACK = 0.05
-"""For a scarce reagent, chains weighing within 5 % of the least mass count as equally frugal and the
-most precise of them is chosen [design choice: 5 % of a few hundred mg is below a weighing's scatter
-on a spatula]."""
-
-CHAIN_U_SLACK = 0.01
-"""Dilution chains whose relative uncertainty is within 1 % (relative) of the best are treated as
-equally precise, and the one weighing the least reagent is chosen [design choice: a 1 % change in a
-stock's u is invisible next to the other terms of a fit]."""
-
-
-class StockError(InputError):
-    """A stock cannot be prepared as asked; the message names what was wrong and a fix."""
-
-
-# --------------------------------------------------------------------------------------------------
-# formula weights and weighing
-# --------------------------------------------------------------------------------------------------
-
-
-@functools.lru_cache(maxsize=512)
-def formula_weight_g_mol(formula: str) -> float:
-    """Molar mass (average, from standard atomic weights) of a formula, g/mol.
-
-    Computed by the ``molmass`` library. Hydrates may be written ``"Cu(NO3)2.3H2O"`` or
-    ``"CuSO4·5H2O"`` (also ``•``, ``∙``, ``⋅``, ``*``); the number after the dot multiplies the
-    group that follows it.
-
-    Raises
-    ------
-    StockError
-        Empty formula, or one molmass cannot parse (the message carries its diagnosis).
-    """
-    try:
-        return formula_mass_g_mol(formula)
-    except ValueError as exc:
-        raise StockError(str(exc)) from None
-
-
-def minimum_weight_g(
-    repeatability_g: float, factor: float = USP41_FACTOR, *, readability_g: float | None = None
-) -> float:
-    """Smallest net mass a balance weighs accurately enough, ``m_min = factor · s``, g.
-
-    USP <41>: repeatability is satisfactory when ``2·s / m ≤ 0.10 %``, so ``m ≥ 2000·s``; when
-    ``readability_g`` (the scale interval d) is given, ``s`` is raised to at least ``0.41·d``
-    [source: USP <41>; the 0.41·d floor from memory].
-    """
-    s = _effective_repeatability_g(repeatability_g, readability_g)
-    if not (math.isfinite(factor) and factor > 0):
-        raise StockError(f"minimum-weight factor must be positive, got {factor!r}")
-    return factor * s
-
-
-def _effective_repeatability_g(repeatability_g: float, readability_g: float | None) -> float:
-    s = float(repeatability_g)
-    if not (math.isfinite(s) and s >= 0):
-        raise StockError(f"balance repeatability must be ≥ 0 g, got {repeatability_g!r}")
-    if readability_g is not None:
-        d = float(readability_g)
-        if not (math.isfinite(d) and d >= 0):
-            raise StockError(f"balance readability must be ≥ 0 g, got {readability_g!r}")
-        s = max(s, USP41_READABILITY_FACTOR * d)
-    return s
-
-
-def mass_for_conc_g(
-    conc_M: float, volume_mL: float, formula_weight_g_mol: float, purity: float = 1.0
-) -> float:
-    """Mass of reagent to weigh for ``conc_M`` in ``volume_mL``, corrected for purity, g.
-
-    ``m = c·V·M / P`` (V in L).
-    """
-    return conc_M * volume_mL * 1e-3 * formula_weight_g_mol / purity
-
-
-def conc_from_weighing_M(
-    mass_g: float, formula_weight_g_mol: float, volume_mL: float, purity: float = 1.0
-) -> float:
-    """Concentration of a weighed stock, ``c = m·P / (M·V)``, mol/L [source: QUAM example A1]."""
-    return mass_g * purity / (formula_weight_g_mol * volume_mL * 1e-3)
 
 
 # --------------------------------------------------------------------------------------------------
 # results
 # --------------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class DilutionStep:
-    """One aliquot: ``pipette`` of ``from_conc_M`` made up to the mark of ``flask``.
-
-    Attributes
-    ----------
-    pipette : GlasswareItem
-        One-mark pipette delivering the aliquot.
-    flask : GlasswareItem
-        Volumetric flask the aliquot is made up in.
-    from_conc_M, to_conc_M : float
-        Concentration drawn from and obtained, mol/L.
-    u_rel : float
-        Relative standard uncertainty of this step's dilution factor (pipette and flask, combined).
-    """
-
-    pipette: GlasswareItem
-    flask: GlasswareItem
-    from_conc_M: float
-    to_conc_M: float
-    u_rel: float
-
-    @property
-    def factor(self) -> float:
-        """Dilution factor, flask / pipette volume."""
-        return self.flask.capacity_mL / self.pipette.capacity_mL
-
-
 @dataclass(frozen=True)
 class StockPreparation:
     """How to make a stock, and how well its concentration is known.
@@ -254,21 +152,6 @@ class StockPreparation:
 # --------------------------------------------------------------------------------------------------
 # preparation
 # --------------------------------------------------------------------------------------------------
-def _single_volume_u_rel(
-    item: GlasswareItem, repeatability_mL: float | None = None, delta_T_C: float = 0.0
-) -> float:
-    """Relative combined u of one fill (flask) or one delivery (one-mark pipette)."""
-    if item.kind == "flask":
-        rep = (
-            REPEATABILITY_PER_U_CALIBRATION * float(u_triangular(item.tolerance_mL))
-            if repeatability_mL is None
-            else repeatability_mL
-        )
-        return flask_volume_uncertainty(item, delta_T_C=delta_T_C, repeatability_mL=rep) / item.capacity_mL
-    d = delivery_uncertainty(item, item.capacity_mL, delta_T_C=delta_T_C, repeatability_mL=repeatability_mL)
-    return float(d.combined_mL) / item.capacity_mL
-
-
 def _as_flask(flask) -> GlasswareItem:
     if isinstance(flask, GlasswareItem):
         if flask.kind != "flask":
@@ -390,13 +273,13 @@ def prepare_stock(
     conc, p = _checked_request(conc_M, purity, max_chain, prefer)
     hw = _purity_half_width(p, purity_half_width)
     fw = formula_weight_g_mol(formula)
-    s_eff = _effective_repeatability_g(balance_repeatability_g, balance_readability_g)
+    s_eff = effective_repeatability_g(balance_repeatability_g, balance_readability_g)
     min_wt = minimum_weight_g(balance_repeatability_g, readability_g=balance_readability_g)
     u_m = _mass_u_g(u_mass_g, s_eff)
     u_purity_rel = float(u_rectangular(hw)) / p
 
     try:
-        weighed_u_rel_final = _single_volume_u_rel(final, flask_repeatability_mL, delta_T_C)
+        weighed_u_rel_final = single_volume_u_rel(final, flask_repeatability_mL, delta_T_C)
     except GlasswareError as exc:
         raise StockError(str(exc)) from None
 
@@ -419,7 +302,7 @@ def prepare_stock(
     cls = final.cls or "A"
     flasks = _chain_items("flask", cls, flasks_mL)
     pipettes = _chain_items("pipette", cls, pipettes_mL)
-    chain = _best_chain(
+    chain = best_chain(
         conc,
         final,
         fw,
@@ -481,164 +364,6 @@ def _mass_u_g(u_mass_g: float | None, s_eff: float) -> float:
     if not (math.isfinite(u_mass_g) and u_mass_g >= 0):
         raise StockError(f"u_mass_g must be ≥ 0 g, got {u_mass_g!r}")
     return float(u_mass_g)
-
-
-class _ChainItems(NamedTuple):
-    """Capacities (mL) and relative volume uncertainties of the glassware a dilution chain may use."""
-
-    V: np.ndarray  # flask capacities
-    v: np.ndarray  # pipette capacities
-    u_weighed: np.ndarray  # each flask as the weighed one (temperature counted there only)
-    u_flask: np.ndarray  # each flask as an intermediate one
-    u_pip: np.ndarray
-    u_final: float
-    V_final: float
-
-
-def _best_chain(
-    conc,
-    final,
-    fw,
-    purity,
-    u_m,
-    min_wt,
-    u_purity_rel,
-    delta_T_C,
-    flask_rep,
-    flasks,
-    pipettes,
-    max_chain,
-    prefer="precision",
-):
-    """Search every chain of 1..max_chain steps, vectorised per chain length; None if none fits."""
-    # Per-item relative uncertainties, computed once (temperature only at the weighed flask).
-    items = _ChainItems(
-        V=np.array([f.capacity_mL for f in flasks]),
-        v=np.array([q.capacity_mL for q in pipettes]),
-        u_weighed=np.array([_single_volume_u_rel(f, flask_rep, delta_T_C) for f in flasks]),
-        u_flask=np.array([_single_volume_u_rel(f) for f in flasks]),
-        u_pip=np.array([_single_volume_u_rel(q) for q in pipettes]),
-        u_final=_single_volume_u_rel(final),
-        V_final=final.capacity_mL,
-    )
-    found = []  # prefer="reagent": (mass, u, k, index) of the best chain of each length
-    for k in range(1, max_chain + 1):
-        shape, ok, mass, u2 = _chains_of_length(k, items, conc, fw, purity, u_purity_rel)
-        ok &= mass >= min_wt
-        if not ok.any():
-            continue
-        u_rel = np.sqrt(u2 + (u_m / mass) ** 2).ravel()
-        found.append(_pick_of_length(prefer, k, shape, np.flatnonzero(ok), mass.ravel(), u_rel))
-        if prefer != "reagent":
-            break
-    if not found:
-        return None
-    if prefer == "reagent":
-        least = min(f[0] for f in found)
-        found = sorted(
-            (f for f in found if f[0] <= (1.0 + SCARCE_MASS_SLACK) * least), key=lambda f: (f[1], f[2])
-        )
-    _, _, k, best = found[0]
-    return _build_chain(
-        best,
-        k,
-        conc,
-        final,
-        fw,
-        purity,
-        u_m,
-        u_purity_rel,
-        flasks,
-        pipettes,
-        items.u_weighed,
-        items.u_flask,
-        items.u_pip,
-        items.u_final,
-    )
-
-
-def _chains_of_length(k: int, items: _ChainItems, conc, fw, purity, u_purity_rel):
-    """Every chain of ``k`` steps at once: its grid shape, which chains are allowed (aliquot ≤ half the
-    solution drawn from, at least twofold dilution), the mass weighed and the squared relative
-    uncertainty without the balance term."""
-    V, v = items.V, items.v
-    nF, nP = V.size, v.size
-    # Axes: V0 (weighed flask), then (pipette, flask) for each of the k-1 intermediate steps, then
-    # the last pipette into the final flask. Broadcast index grids keep this a handful of arrays.
-    shape = (nF,) + (nP, nF) * (k - 1) + (nP,)
-    idx = np.indices(shape, sparse=True)
-    i_flasks = [idx[0]] + [idx[2 + 2 * j] for j in range(k - 1)]  # V0, V1..V_{k-1}
-    i_pips = [idx[1 + 2 * j] for j in range(k - 1)] + [idx[-1]]  # v1..vk
-    vols_from = [V[i] for i in i_flasks]  # solution each aliquot comes from
-    vols_to = [V[i] for i in i_flasks[1:]] + [np.asarray(items.V_final)]  # flask each aliquot goes into
-    vols_pip = [v[i] for i in i_pips]
-
-    ok = np.ones(shape, dtype=bool)
-    log_factor = np.zeros(shape)
-    u2 = np.broadcast_to(items.u_weighed[idx[0]] ** 2 + u_purity_rel**2 + items.u_final**2, shape).copy()
-    for j in range(k):
-        ok &= vols_pip[j] <= PIPETTE_DRAW_FRACTION * vols_from[j]
-        ok &= vols_to[j] >= 2.0 * vols_pip[j]
-        log_factor = log_factor + np.log(vols_to[j] / vols_pip[j])
-        u2 = u2 + items.u_pip[i_pips[j]] ** 2
-    for j in range(1, k):
-        u2 = u2 + items.u_flask[i_flasks[j]] ** 2
-    weighed_conc = conc * np.exp(log_factor)
-    mass = weighed_conc * V[idx[0]] * 1e-3 * fw / purity
-    return shape, ok, mass, u2
-
-
-def _pick_of_length(prefer: str, k: int, shape, flat: np.ndarray, mass: np.ndarray, u_rel: np.ndarray):
-    """The best allowed chain of one length (``flat``: allowed chains' flat indices) as (mass, u, k,
-    index); for ``prefer="precision"`` mass and u are not needed later and are returned as 0."""
-    if prefer == "reagent":
-        # the least reagent that still reaches the minimum weight; of those within the slack, the
-        # most precise
-        m = mass[flat]
-        near = flat[m <= (1.0 + SCARCE_MASS_SLACK) * m.min()]
-        i = near[np.argmin(u_rel[near])]
-        return (float(mass[i]), float(u_rel[i]), k, np.unravel_index(i, shape))
-    # Chains within CHAIN_U_SLACK of the best u are equally good in practice: of those, weigh the
-    # least reagent (less waste, less exposure); then the smaller u.
-    near = flat[u_rel[flat] <= (1.0 + CHAIN_U_SLACK) * u_rel[flat].min()]
-    order = np.lexsort((u_rel[near], mass[near]))
-    return (0.0, 0.0, k, np.unravel_index(near[order[0]], shape))
-
-
-def _build_chain(
-    best, k, conc, final, fw, purity, u_m, u_purity_rel, flasks, pipettes, u_weighed, u_flask, u_pip, u_final
-) -> dict:
-    i_flasks = [int(best[0])] + [int(best[2 + 2 * j]) for j in range(k - 1)]
-    i_pips = [int(best[1 + 2 * j]) for j in range(k - 1)] + [int(best[-1])]
-    to_items = [flasks[i] for i in i_flasks[1:]] + [final]
-    to_u = [u_flask[i] for i in i_flasks[1:]] + [u_final]
-    # Work backwards from the final concentration so the chain's last step lands exactly on conc_M.
-    concs = [conc]
-    for j in reversed(range(k)):
-        concs.insert(0, concs[0] * to_items[j].capacity_mL / pipettes[i_pips[j]].capacity_mL)
-    steps = tuple(
-        DilutionStep(
-            pipette=pipettes[i_pips[j]],
-            flask=to_items[j],
-            from_conc_M=concs[j],
-            to_conc_M=concs[j + 1],
-            u_rel=math.hypot(u_pip[i_pips[j]], to_u[j]),
-        )
-        for j in range(k)
-    )
-    weighed_flask = flasks[i_flasks[0]]
-    mass = mass_for_conc_g(concs[0], weighed_flask.capacity_mL, fw, purity)
-    parts = {"balance": u_m / mass, "purity": u_purity_rel, "flask": float(u_weighed[i_flasks[0]])}
-    parts.update({f"dilution_{j + 1}": s.u_rel for j, s in enumerate(steps)})
-    u_rel = math.sqrt(sum(x * x for x in parts.values()))
-    return dict(
-        mass_g=mass,
-        u_conc_M=u_rel * conc,
-        u_parts=parts,
-        steps=steps,
-        weighed_flask=weighed_flask,
-        weighed_conc_M=concs[0],
-    )
 
 
 # --------------------------------------------------------------------------------------------------

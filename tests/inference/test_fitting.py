@@ -800,7 +800,7 @@ def test_factorisation_matches_lapack_svd(n_obs, n_params):
     rng = np.random.default_rng(n_params)
     js = rng.normal(size=(50, n_obs, n_params)) * np.logspace(0, -6, n_params)  # cond up to ~1e6
     r = rng.normal(size=(50, n_obs))
-    s, vt, b = lm._factorise(js, r)
+    s, vt, b = lm.factorise(js, r)
     u_ref, s_ref, _ = np.linalg.svd(js, full_matrices=False)
     np.testing.assert_allclose(np.sort(s, axis=1), np.sort(s_ref, axis=1), rtol=1e-9)
     # Vᵀ is orthogonal and reproduces JsᵀJs and Jsᵀr
