@@ -1,6 +1,7 @@
 """Tables: one reader for every CSV the tool reads, one writer for every CSV it writes.
 
-The rules, the same for recipes, readings, titration schedules, rosters, keys and results:
+The rules, the same for every kind of table (:data:`KINDS`: recipes, readings, titration schedules,
+spectra, rosters, ε tables, keys and results):
 
 - UTF-8 text (a byte-order mark is accepted) from a regular file, at most ``spec.max_bytes`` bytes;
 - blank lines are skipped anywhere; a line starting with ``#`` is a comment above the header only —
