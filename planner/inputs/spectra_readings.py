@@ -17,23 +17,14 @@ from pathlib import Path
 
 import numpy as np
 
-from .limits import MAX_SPECTRA_BYTES, MAX_SPECTRA_ROWS
 from .plan import Plan
 from .recipe import Recipe, RecipeError, recipe_from_table
-from .tables import Table, TableSpec, parse_table, read_table_text, write_csv
+from .tables import Table, parse_table, read_table_text, table_spec, write_csv
 from .text import visible
 
 MAX_READING = 10.0  # no photometer reads beyond this: a larger number is a typo or another quantity
 LONG_COLUMNS = ("tube", "wavelength_nm", "absorbance")
-SPECTRA = TableSpec(
-    what="spectra",
-    header_example="tube,wavelength_nm,absorbance",
-    row_word="reading",
-    max_rows=MAX_SPECTRA_ROWS,
-    max_bytes=MAX_SPECTRA_BYTES,
-    decimal_comma=True,
-    error=RecipeError,
-)
+SPECTRA = table_spec("spectra", RecipeError)
 
 
 @dataclass(frozen=True)
