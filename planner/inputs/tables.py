@@ -330,9 +330,19 @@ def _clean_row(
     return tuple(unguard_cell(c) if c[:1] == "'" else c for c in out)
 
 
+_COMMA_NUMBER = re.compile(r"[+-]?\d+,\d+(\s*nm)?")  # a number with a decimal comma, as a column name
+
+
 def _dialect(first: str, spec: TableSpec, where: str) -> tuple[str, bool]:
     """The field separator from the header line (the one that splits it, quotes respected), and
     whether numbers have decimal commas."""
+    semi = _split(first, ";")
+    if (
+        spec.decimal_comma
+        and len(semi) > 1
+        and all(_COMMA_NUMBER.fullmatch(c.strip()) for c in semi if "," in c)
+    ):
+        return ";", True  # a wide spectra header: its column names are wavelengths with decimal commas
     comma = _split(first, ",")
     if len(comma) > 1:
         if spec.decimal_comma and any(";" in c for c in comma):

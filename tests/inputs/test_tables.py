@@ -102,6 +102,13 @@ def test_semicolons_where_allowed_and_refused_elsewhere(plan):
     assert parse_schedule_csv("step;aliquot_mL\n0;0\n1;0,015\n").aliquot_mL[1] == 0.015
     spectra = parse_spectra_readings("tube;wavelength_nm;absorbance\nT1;450;0,25\n", plan)
     assert spectra.wavelength_nm[0] == 450 and spectra.absorbance[0, 0] == 0.25
+    # a wavelength with a decimal comma, in a cell (long form) and as a column name (wide form)
+    spectra = parse_spectra_readings("tube;wavelength_nm;absorbance\nT1;450,5;0,25\n", plan)
+    assert spectra.wavelength_nm[0] == 450.5
+    spectra = parse_spectra_readings("tube;450,5 nm;451,5\nT1;0,25;0,5\n", plan)
+    assert list(spectra.wavelength_nm) == [450.5, 451.5] and spectra.absorbance[0, 1] == 0.5
+    with pytest.raises(RecipeError, match="'450,5' is not a wavelength in nm; write a decimal point"):
+        parse_spectra_readings("tube,wavelength_nm,absorbance\nT1,\"450,5\",0.25\n", plan)
     with pytest.raises(PlanError, match="semicolon-separated"):
         parse_spectra_table("wavelength_nm;ML\n400;1,5\n410;2,5\n")
     with pytest.raises(RecipeError, match="semicolon-separated"):
