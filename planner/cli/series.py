@@ -213,8 +213,7 @@ def _write(out_dir: Path, r, p, text: str) -> None:
 
 def print_series(r, p) -> None:
     """Verdict, the method's findings, the tubes and the checks (every text through safe_text)."""
-    from ..paper import fmt
-    from .show import STATUS_COLOUR, print_checks, reading_texts, tube_table
+    from .show import STATUS_COLOUR, print_checks, reading_texts, totals_columns, tube_table
 
     out.print(f"[bold]{S(r.title)}[/bold] — {S(r.method)} series")
     out.print(f"Question: {S(r.question)}")
@@ -231,8 +230,7 @@ def print_series(r, p) -> None:
             out.print(f"[{STATUS_COLOUR[c.status]}]{S(c.id)}[/]: {S(c.message)}")
         return
     columns = {
-        "M tot": [fmt.conc(x) for x in a.state.totals_M[:, 0]],
-        "L tot": [fmt.conc(x) for x in a.state.totals_M[:, 1]],
+        **totals_columns(a.state),
         "A ± sd": reading_texts(a),
         **{S(k): [f"{float(x):.3f}" for x in v] for k, v in r.columns.items()},
     }
