@@ -15,7 +15,7 @@ from ..inputs.limits import MAX_CARDS, MAX_TUBES
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, err, out
 from .app import safe_text as S
-from .options import PaperSize, PlanFile, count_option, flag_option, path_option, text_option
+from .options import PaperSize, PlanFile, count_option, flag_option, path_option, seed_option, text_option
 
 OUTPUTS = ("cards.pdf", "key.pdf", "key.csv", "key.xlsx", "stocks.pdf", "stocks.csv")
 
@@ -43,9 +43,7 @@ Count = Annotated[
     count_option(f"number of students, without a roster (ids S01, S02, …; at most {MAX_CARDS})", MAX_CARDS),
 ]
 OutDir = Annotated[Path, path_option("folder for the cards, the key and the stock list", "--out")]
-CardSeed = Annotated[
-    int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")
-]
+CardSeed = Annotated[int, seed_option("seed: the same seed and roster give the same files")]
 Tubes = Annotated[int | None, count_option("tubes per student's card (overrides design.tubes)", MAX_TUBES)]
 Sections = Annotated[
     int | None,
