@@ -108,7 +108,7 @@ def test_semicolons_where_allowed_and_refused_elsewhere(plan):
     spectra = parse_spectra_readings("tube;450,5 nm;451,5\nT1;0,25;0,5\n", plan)
     assert list(spectra.wavelength_nm) == [450.5, 451.5] and spectra.absorbance[0, 1] == 0.5
     with pytest.raises(RecipeError, match="'450,5' is not a wavelength in nm; write a decimal point"):
-        parse_spectra_readings("tube,wavelength_nm,absorbance\nT1,\"450,5\",0.25\n", plan)
+        parse_spectra_readings('tube,wavelength_nm,absorbance\nT1,"450,5",0.25\n', plan)
     with pytest.raises(PlanError, match="semicolon-separated"):
         parse_spectra_table("wavelength_nm;ML\n400;1,5\n410;2,5\n")
     with pytest.raises(RecipeError, match="semicolon-separated"):
