@@ -154,12 +154,43 @@ def design_study(
     rec, model_check, a = _guard_and_assess(
         study, rec, final, crit, check_model, volumetric, seed, prior_tubes, notes
     )
-    even = even_series_for(study, n)
     se_d = float(a.target_se) if a.target_se is not None else float("nan")
-    se_e = target_se(study, even)
-    eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
     # with tubes in hand the new batch is judged together with them (planner.jobs.plan.sequential)
     verdict, reason = _design_verdict(study, a, n) if prior_tubes is None else (None, "")
+    return designed(
+        study,
+        rec,
+        (n, crit, rob, seed),
+        (n_grid, n_feas, ex, ap),
+        a,
+        se_d,
+        notes,
+        model_check=model_check,
+        verdict=verdict,
+        verdict_reason=reason,
+        limits=a.limits if prior_tubes is None else None,
+    )
+
+
+def designed(
+    study: Study,
+    rec: Recipe,
+    asked: tuple[int, str, bool, int],
+    found: tuple,
+    a: Assessment,
+    se_design: float,
+    notes: list[str],
+    se=None,
+    **judged,
+) -> Design:
+    """The :class:`Design` of ``rec`` beside the even series of as many tubes, at the guess and across its
+    range. ``asked`` = (tubes, criterion, robust, seed); ``found`` = (n_candidates, n_feasible, exact,
+    approx) from the search; ``se(study, recipe, log_beta)`` one SE (default :func:`target_se`, one
+    wavelength); ``judged``: the model check, verdict, verdict_reason and limits."""
+    se = target_se if se is None else se
+    n, crit, rob, seed = asked
+    n_grid, n_feas, ex, ap = found
+    even = even_series_for(study, n)
     return Design(
         rec,
         crit,
@@ -169,17 +200,14 @@ def design_study(
         n_feas,
         ex,
         ap,
-        min(eff, 1.0),
-        se_d,
-        se_e,
-        se_across_guess(study, rec, even),
+        min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0),
+        se_design,
+        se(study, even),
+        se_across_guess(study, rec, even, se=se),
         study.target,
         tuple(notes),
         a,
-        model_check,
-        verdict,
-        reason,
-        a.limits if prior_tubes is None else None,
+        **judged,
     )
 
 

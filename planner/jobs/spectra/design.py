@@ -28,9 +28,8 @@ from ...inference.design_criteria import CRITERIA, DesignError
 from ...inference.study import Study
 from ..plan import checks as chk
 from ..plan.candidates import Candidates, candidate_tubes, neighbourhood, recipe_from_counts
-from ..plan.design import Design, se_across_guess
+from ..plan.design import Design, designed
 from ..plan.detection import DESIGN_FIX, POWER_TRIALS
-from ..plan.even import even_series_for
 from ..plan.model_check import finish_model_check
 from .assess import assess_spectra
 from .model_check import spectra_guard
@@ -88,30 +87,18 @@ def design_spectra(
         detection_trials=POWER_TRIALS if outcome is not None else 0,
         model_check_fix=DESIGN_FIX if outcome is not None else None,
     )
-    even = even_series_for(study, n)
-    se_d = target_se_spectra(study, rec)
-    se_e = target_se_spectra(study, even)
-    across = se_across_guess(study, rec, even, se=target_se_spectra)
-    eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
     single = _single_wavelength_design(study, n, crit, rob, seed)
     a = replace(a, spectra=replace(a.spectra, se_single_wavelength_design=single, with_single_design=True))
-    return Design(
+    return designed(
+        study,
         rec,
-        crit,
-        rob,
-        seed,
-        n_grid,
-        n_feas,
-        ex,
-        ap,
-        eff,
-        se_d,
-        se_e,
-        tuple(across),
-        study.target,
-        tuple(notes),
+        (n, crit, rob, seed),
+        (n_grid, n_feas, ex, ap),
         a,
-        finish_model_check(study, outcome, a.detection) if outcome is not None else None,
+        target_se_spectra(study, rec),
+        notes,
+        se=target_se_spectra,
+        model_check=finish_model_check(study, outcome, a.detection) if outcome is not None else None,
         verdict=a.verdict,
         verdict_reason=a.verdict_reason,
     )
