@@ -37,9 +37,9 @@ from ...uncertainty.budget import ErrorBudget, error_budget, glassware_problems
 from ...uncertainty.stocks import volume_needed_mL
 from ..compile import compile_study, expected_state, true_constants
 from . import checks as chk
-from .assess_options import STUDY_DEFAULTS, AssessOptions, StudyAssessOptions, with_defaults
 from .checks import Check
 from .limits import Limits, precision_shares, what_would_help
+from .options import STUDY_ASSESS_DEFAULTS, AssessOptions, StudyAssessOptions, assess_run
 
 STATUSES = ("pass", "warn", "fail")
 VERDICTS = ("resolved", "bounded", "unresolved")
@@ -184,12 +184,12 @@ def assess_study(study: Study, recipe: Recipe, **options: Unpack[StudyAssessOpti
     """Judge ``recipe`` against the compiled plan: expected tubes, error budget, precision of log K, checks
     and verdict.
 
-    ``options`` (:class:`planner.jobs.plan.assess_options.StudyAssessOptions`, each optional): ``trials``,
+    ``options`` (:class:`planner.jobs.plan.options.StudyAssessOptions`, each optional): ``trials``,
     ``seed``, ``at``, ``profile_chi2``, ``model_check``, ``detection_trials``, ``model_check_fix`` and
     ``progress`` as for every assessment; ``precision`` (False: no Fisher information, Monte Carlo or
     profile), ``suggest`` (price what would help) and ``shares`` (False: no ``limits``).
     """
-    run = with_defaults(options, STUDY_DEFAULTS)
+    run = assess_run(options, STUDY_ASSESS_DEFAULTS)
     trials, seed, precision = run["trials"], run["seed"], run["precision"]
     model, bench = study.model, study.bench
     lb_true = true_constants(model, run["at"])

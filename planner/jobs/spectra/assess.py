@@ -27,8 +27,8 @@ from ...model.spectra import spectra_readings
 from ..compile import true_constants
 from ..plan import checks as chk
 from ..plan.assess import Assessment, detection_count, judged, stock_and_glassware_checks
-from ..plan.assess_options import ASSESS_DEFAULTS, AssessOptions, with_defaults
 from ..plan.detection import ASSESS_FIX
+from ..plan.options import ASSESS_DEFAULTS, AssessOptions, assess_run
 from .detection import spectra_detection, spectra_model_check
 from .facts import FactorOutlook, spectra_facts
 from .precision import (
@@ -50,7 +50,7 @@ class SpectraAssessOptions(AssessOptions, total=False):
     factors: bool
 
 
-SPECTRA_DEFAULTS: SpectraAssessOptions = {**ASSESS_DEFAULTS, "factors": True}
+SPECTRA_ASSESS_DEFAULTS: SpectraAssessOptions = {**ASSESS_DEFAULTS, "factors": True}
 
 
 def assess_spectra(study: Study, recipe: Recipe, **options: Unpack[SpectraAssessOptions]) -> Assessment:
@@ -58,9 +58,9 @@ def assess_spectra(study: Study, recipe: Recipe, **options: Unpack[SpectraAssess
 
     ``options`` (:class:`SpectraAssessOptions`, each optional): ``trials``, ``seed``, ``at``,
     ``profile_chi2``, ``model_check``, ``detection_trials``, ``model_check_fix`` and ``progress`` as for
-    every assessment (:class:`planner.jobs.plan.assess_options.AssessOptions`; the model check uses whole
+    every assessment (:class:`planner.jobs.plan.options.AssessOptions`; the model check uses whole
     spectra, :mod:`.detection`), and ``factors``."""
-    run = with_defaults(options, SPECTRA_DEFAULTS)
+    run = assess_run(options, SPECTRA_ASSESS_DEFAULTS)
     trials, seed = run["trials"], run["seed"]
     model = study.model
     sm = spectra_model(study, recipe)
