@@ -44,6 +44,18 @@ class _Commands(typer.core.TyperGroup):
             cmd._kplan_plain = True
         return cmd
 
+    def get_params(self, ctx):
+        params = super().get_params(ctx)
+        for param in params:  # the group's own options (--version, completion, --help)
+            if not getattr(param, "_kplan_plain", False):
+                _plain_type_name(param)
+                param._kplan_plain = True
+        return params
+
+    def list_commands(self, ctx):
+        # alphabetical, whatever order the command modules were imported in (see planner.cli.register)
+        return sorted(super().list_commands(ctx))
+
 
 app = typer.Typer(
     name="kplan",

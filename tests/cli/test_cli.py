@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import json
+import os
+import re
 import sys
 from pathlib import Path
 
@@ -18,6 +20,30 @@ from ..conftest import run_cli as run
 def test_help(capsys, monkeypatch):
     code, out, _ = run(capsys, monkeypatch, "--help")
     assert code == 0 and "assess" in out and "demo" in out
+
+
+def test_fresh_process_registers_what_the_line_needs(tmp_path):
+    """In a fresh interpreter (as installed), help lists every command in alphabetical order, a command
+    named on the line runs with only its own module registered, and a misspelt name gets typer's
+    suggestion from the whole list."""
+    import subprocess
+    import sys
+
+    from planner.cli import COMMANDS
+
+    def kplan(*args):
+        env = {**os.environ, "COLUMNS": "200"}
+        return subprocess.run(
+            [sys.executable, "-m", "planner", *args], capture_output=True, text=True, cwd=tmp_path, env=env
+        )
+
+    shown = kplan("--help").stdout.split("Commands", 1)[1]
+    listed = [m.group(1) for m in re.finditer(r"^│ (\w+)  ", shown, flags=re.M)]
+    assert listed == sorted(COMMANDS)
+    sub = kplan("check", "--help")
+    assert sub.returncode == 0 and "Validate a plan" in sub.stdout
+    typo = kplan("chek")
+    assert typo.returncode == 2 and "Did you mean 'check'" in typo.stderr
 
 
 def test_demo_writes_files(tmp_path, capsys, monkeypatch):

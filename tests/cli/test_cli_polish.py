@@ -18,6 +18,8 @@ def test_help_shows_plain_metavars(capsys, monkeypatch):
     code, out, _ = run(capsys, monkeypatch, "assess", "--help")
     assert code == 0 and "INTEGER" in out and "NAME=LOGBETA" in out
     assert "<list" not in out and "<bool>" not in out and "<path>" not in out and "PATH" in out
+    code, out, _ = run(capsys, monkeypatch, "--help")  # the app's own options too
+    assert code == 0 and "--version" in out and "<bool>" not in out
 
 
 def test_check_warns_about_a_stock_without_dispenser(tmp_path, capsys, monkeypatch):

@@ -14,6 +14,7 @@ import pytest
 
 from ..conftest import ROOT
 
+OTHER_COMMANDS = tuple(f"planner.cli.{c}" for c in ("assess", "cards", "design", "fit", "grade", "series"))
 HEAVY = ("scipy", "matplotlib", "weasyprint", "jinja2", "pandas", "openpyxl", "pint")
 EX = ROOT / "examples"
 
@@ -21,8 +22,14 @@ EX = ROOT / "examples"
 # uses molmass (a stock's solid formula is checked), so only --help must do without it.
 CASES = {
     "--help": ("numpy", "molmass", *HEAVY),
-    # check prints what the plan says and the glassware's figures: none of the numerics' layers
-    f"check {EX / 'cuvette-1to1.toml'}": (*HEAVY, "planner.inference", "planner.jobs.compile"),
+    # check prints what the plan says and the glassware's figures: none of the numerics' layers, and no
+    # other command's module (only the command named on the line is registered)
+    f"check {EX / 'cuvette-1to1.toml'}": (
+        *HEAVY,
+        "planner.inference",
+        "planner.jobs.compile",
+        *OTHER_COMMANDS,
+    ),
     f"assess {EX / 'cuvette-1to1.toml'} {EX / 'cuvette-1to1.csv'} --trials 20": HEAVY,
     f"design {EX / 'stepwise-weak.toml'} --json": HEAVY,
 }
