@@ -15,7 +15,7 @@ from ..inputs.limits import MAX_CARDS, MAX_TUBES
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, err, out
 from .app import safe_text as S
-from .options import PaperSize, PlanFile, count_option
+from .options import PaperSize, PlanFile, count_option, flag_option, path_option, seed_option, text_option
 
 OUTPUTS = ("cards.pdf", "key.pdf", "key.csv", "key.xlsx", "stocks.pdf", "stocks.csv")
 
@@ -36,19 +36,14 @@ def _sections(roster, k: int | None):
 
 
 RosterFile = Annotated[
-    Path | None,
-    typer.Option("--roster", help="class roster CSV: id, name (optional section, bench)", metavar="PATH"),
+    Path | None, path_option("class roster CSV: id, name (optional section, bench)", "--roster")
 ]
 Count = Annotated[
     int | None,
     count_option(f"number of students, without a roster (ids S01, S02, …; at most {MAX_CARDS})", MAX_CARDS),
 ]
-OutDir = Annotated[
-    Path, typer.Option("--out", help="folder for the cards, the key and the stock list", metavar="PATH")
-]
-CardSeed = Annotated[
-    int, typer.Option(help="seed: the same seed and roster give the same files", metavar="INTEGER")
-]
+OutDir = Annotated[Path, path_option("folder for the cards, the key and the stock list", "--out")]
+CardSeed = Annotated[int, seed_option("seed: the same seed and roster give the same files")]
 Tubes = Annotated[int | None, count_option("tubes per student's card (overrides design.tubes)", MAX_TUBES)]
 Sections = Annotated[
     int | None,
@@ -56,22 +51,20 @@ Sections = Annotated[
 ]
 Series = Annotated[
     str | None,
-    typer.Option(
-        help=f"the series on every card: {' | '.join(CARD_SERIES)} (default: the plan's "
-        "design.card_series, else binding-curve)",
-        metavar="TEXT",
+    text_option(
+        f"the series on every card: {' | '.join(CARD_SERIES)} (default: the plan's "
+        "design.card_series, else binding-curve)"
     ),
 ]
 Pooled = Annotated[
     bool,
-    typer.Option(
-        "--pooled",
-        help="make the cards for the class's pooled fit alone (most efficient for K, but each card "
+    flag_option(
+        "make the cards for the class's pooled fit alone (most efficient for K, but each card "
         "holds two or three clusters of near-identical tubes, not a series to plot)",
-        metavar="",
+        "--pooled",
     ),
 ]
-CardsJson = Annotated[bool, typer.Option("--json", help="print the class summary as JSON", metavar="")]
+CardsJson = Annotated[bool, flag_option("print the class summary as JSON", "--json")]
 
 
 @app.command()

@@ -9,13 +9,12 @@ import typer
 
 from .app import DEMO_SCENARIO, app, dump_json, out, scenario_text
 from .app import safe_text as S
+from .options import path_option
 
 
 @app.command()
 def demo(
-    out_dir: Annotated[
-        Path, typer.Option("--out", help="folder for the demo's files", metavar="PATH")
-    ] = Path("kplan-demo"),
+    out_dir: Annotated[Path, path_option("folder for the demo's files", "--out")] = Path("kplan-demo"),
     spectra: Annotated[
         bool,
         typer.Option(

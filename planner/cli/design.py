@@ -12,42 +12,26 @@ from ..inputs.limits import MAX_ADDITIONS
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import MAX_TUBES, PlanFile, count_option
+from .options import MAX_TUBES, PlanFile, count_option, flag_option, path_option, seed_option, text_option
 
-OutDir = Annotated[
-    Path | None, typer.Option("--out", help="folder for recipe.csv and design.json", metavar="PATH")
-]
+OutDir = Annotated[Path | None, path_option("folder for recipe.csv and design.json", "--out")]
 Tubes = Annotated[int | None, count_option("number of tubes (overrides design.tubes)", MAX_TUBES)]
 Additions = Annotated[
     int | None,
     count_option("titration plans: number of additions (overrides titration.additions)", MAX_ADDITIONS),
 ]
 Criterion = Annotated[
-    str | None,
-    typer.Option(
-        help=f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)",
-        metavar="TEXT",
-    ),
+    str | None, text_option(f"what to optimise: {' | '.join(DESIGN_CRITERIA)} (overrides design.criterion)")
 ]
 Robust = Annotated[
     bool | None,
-    typer.Option(
-        "--robust/--no-robust",
-        help="average over the guesses' uncertainty (overrides design.robust)",
-        metavar="",
-    ),
+    flag_option("average over the guesses' uncertainty (overrides design.robust)", "--robust/--no-robust"),
 ]
-ExchangeSeed = Annotated[
-    int, typer.Option(help="seed of the exchange algorithm's random starts", min=0, metavar="INTEGER")
-]
-DesignJson = Annotated[bool, typer.Option("--json", help="print the design summary as JSON", metavar="")]
+ExchangeSeed = Annotated[int, seed_option("seed of the exchange algorithm's random starts")]
+DesignJson = Annotated[bool, flag_option("print the design summary as JSON", "--json")]
 After = Annotated[
     Path | None,
-    typer.Option(
-        "--after",
-        help="readings so far (recipe CSV + absorbance): fit them and design the next tubes",
-        metavar="PATH",
-    ),
+    path_option("readings so far (recipe CSV + absorbance): fit them and design the next tubes", "--after"),
 ]
 
 

@@ -10,7 +10,7 @@ import typer
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import JsonFlag, PlanFile
+from .options import JsonFlag, PlanFile, flag_option, path_option
 
 
 @app.command()
@@ -24,26 +24,17 @@ def fit(
     ] = None,
     keep_out_of_range: Annotated[
         bool,
-        typer.Option(
-            "--keep-out-of-range",
-            help="fit readings outside the linear range too (left out by default)",
-            metavar="",
-        ),
+        flag_option("fit readings outside the linear range too (left out by default)", "--keep-out-of-range"),
     ] = False,
     recipe: Annotated[
         Path | None,
-        typer.Option(
-            "--recipe",
-            help="with whole spectra: the recipe CSV of the tubes read (unless the spectra carry the stock "
-            "columns)",
-            metavar="PATH",
+        path_option(
+            "with whole spectra: the recipe CSV of the tubes read (unless the spectra carry the stock "
+            "columns)"
         ),
     ] = None,
     report: Annotated[
-        Path | None,
-        typer.Option(
-            "--report", help="with whole spectra: write a PDF (or .html) of the fit", metavar="PATH"
-        ),
+        Path | None, path_option("with whole spectra: write a PDF (or .html) of the fit")
     ] = None,
 ) -> None:
     """Fit measured readings with the plan's model, and compare the result with the plan's promise.

@@ -12,7 +12,7 @@ import typer
 from ..inputs.text import plural
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import JsonFlag, PlanFile
+from .options import JsonFlag, PlanFile, flag_option, path_option, text_option
 
 
 @app.command()
@@ -24,15 +24,10 @@ def grade(
     results: Annotated[Path, typer.Argument(help="CSV: student, tube, absorbance")],
     as_json: JsonFlag = False,
     out_dir: Annotated[
-        Path | None,
-        typer.Option("--out", help="folder for grades.csv, grades.xlsx and the class report", metavar="PATH"),
+        Path | None, path_option("folder for grades.csv, grades.xlsx and the class report", "--out")
     ] = None,
-    html: Annotated[
-        bool, typer.Option("--html", help="write the class report as HTML instead of PDF", metavar="")
-    ] = False,
-    paper: Annotated[
-        str, typer.Option(help="paper size of the class report: A4 | Letter", metavar="TEXT")
-    ] = "A4",
+    html: Annotated[bool, flag_option("write the class report as HTML instead of PDF", "--html")] = False,
+    paper: Annotated[str, text_option("paper size of the class report: A4 | Letter")] = "A4",
 ) -> None:
     """Grade a class by consensus: the class's own constant (with how far the plan's guess was off), each
     student's readings against the class's model, and the likely mix-up behind each flagged student."""

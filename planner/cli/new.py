@@ -9,15 +9,14 @@ import typer
 
 from .app import DEMO_SCENARIO, SCENARIOS, UserError, app, out, parse_scenario, scenario_files, scenario_text
 from .app import safe_text as S
+from .options import flag_option, text_option
 
 
 @app.command()
 def new(
     path: Annotated[Path, typer.Argument(help="where to write the starter plan")],
-    scenario: Annotated[
-        str, typer.Option(help=f"built-in scenario: {', '.join(SCENARIOS)}", metavar="TEXT")
-    ] = DEMO_SCENARIO,
-    force: Annotated[bool, typer.Option(help="overwrite an existing file", metavar="")] = False,
+    scenario: Annotated[str, text_option(f"built-in scenario: {', '.join(SCENARIOS)}")] = DEMO_SCENARIO,
+    force: Annotated[bool, flag_option("overwrite an existing file")] = False,
 ) -> None:
     """Write a commented starter plan from a built-in scenario."""
     from ..inputs.files import check_output_file, write_atomic_many

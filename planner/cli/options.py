@@ -1,6 +1,6 @@
-"""What the commands share: the arguments and options several of them take (one definition each),
-``--at`` parsing, option limits, reading a recipe or a titration schedule, and the Monte-Carlo progress
-bar."""
+"""What the commands share: the kinds of option (flag, text, path, seed, count: one way each to declare
+them), the arguments and options several commands take (one definition each), ``--at`` parsing, option
+limits, reading a recipe or a titration schedule, and the Monte-Carlo progress bar."""
 
 from __future__ import annotations
 
@@ -15,22 +15,48 @@ from ..inputs.limits import MAX_TRIALS as MAX_TRIALS  # the limits are defined o
 from ..inputs.limits import MAX_TUBES as MAX_TUBES
 from .app import UserError, err
 
-PlanFile = Annotated[Path, typer.Argument(help="plan file (TOML)")]
-RecipeFile = Annotated[Path, typer.Argument(help="recipe CSV")]
-JsonFlag = Annotated[bool, typer.Option("--json", help="print one JSON object instead of tables", metavar="")]
-HtmlFlag = Annotated[bool, typer.Option("--html", help="write HTML instead of PDF", metavar="")]
-PaperSize = Annotated[str, typer.Option(help=f"paper size: {' | '.join(PAPERS)}", metavar="TEXT")]
-McSeed = Annotated[int, typer.Option(help="seed of the Monte-Carlo random numbers", min=0, metavar="INTEGER")]
+
+def _option(metavar: str, help: str, name: str | None = None, **bounds):
+    """An option shown in ``--help`` as ``name METAVAR`` (typer's name from the parameter without one)."""
+    return typer.Option(*((name,) if name else ()), help=help, metavar=metavar, **bounds)
+
+
+def flag_option(help: str, name: str | None = None):
+    """An on/off option (``--json``, ``--html``): nothing after it in ``--help``."""
+    return _option("", help, name)
+
+
+def text_option(help: str, name: str | None = None):
+    """An option that takes a word or a quantity with its unit (a choice, a concentration, a reagent)."""
+    return _option("TEXT", help, name)
+
+
+def path_option(help: str, name: str | None = None):
+    """An option that takes a file or a folder (``--out``, ``--after``, ``--recipe``)."""
+    return _option("PATH", help, name)
+
+
+def seed_option(help: str):
+    """A random seed (0 or more)."""
+    return _option("INTEGER", help, min=0)
 
 
 def trials_option(help: str):
     """The number of Monte-Carlo experiments (0 to the limit of :mod:`planner.inputs.limits`)."""
-    return typer.Option(help=help, min=0, max=MAX_TRIALS, metavar="INTEGER")
+    return _option("INTEGER", help, min=0, max=MAX_TRIALS)
 
 
 def count_option(help: str, limit: int, *, hidden: bool = False):
     """A whole-number option from 1 to ``limit`` (a bound from :mod:`planner.inputs.limits`)."""
-    return typer.Option(help=help, min=1, max=limit, metavar="INTEGER", hidden=hidden)
+    return _option("INTEGER", help, min=1, max=limit, hidden=hidden)
+
+
+PlanFile = Annotated[Path, typer.Argument(help="plan file (TOML)")]
+RecipeFile = Annotated[Path, typer.Argument(help="recipe CSV")]
+JsonFlag = Annotated[bool, flag_option("print one JSON object instead of tables", "--json")]
+HtmlFlag = Annotated[bool, flag_option("write HTML instead of PDF", "--html")]
+PaperSize = Annotated[str, text_option(f"paper size: {' | '.join(PAPERS)}")]
+McSeed = Annotated[int, seed_option("seed of the Monte-Carlo random numbers")]
 
 
 LOG_BETA_RANGE = (-50.0, 60.0)  # the plan's bound on log_beta

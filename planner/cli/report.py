@@ -5,26 +5,20 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Annotated
 
-import typer
-
 from .app import app
-from .options import HtmlFlag, McSeed, PaperSize, PlanFile, RecipeFile, trials_option
+from .options import HtmlFlag, McSeed, PaperSize, PlanFile, RecipeFile, path_option, trials_option
 
 
 @app.command()
 def report(
     plan: PlanFile,
     recipe: RecipeFile,
-    out_path: Annotated[Path, typer.Option("--out", help="where to write the report", metavar="PATH")] = Path(
-        "report.pdf"
-    ),
+    out_path: Annotated[Path, path_option("where to write the report", "--out")] = Path("report.pdf"),
     html: HtmlFlag = False,
     paper: PaperSize = "A4",
     trials: Annotated[int, trials_option("Monte-Carlo experiments")] = 2000,
     seed: McSeed = 0,
-    design_json: Annotated[
-        Path | None, typer.Option("--design", help="design.json from kplan design", metavar="PATH")
-    ] = None,
+    design_json: Annotated[Path | None, path_option("design.json from kplan design", "--design")] = None,
 ) -> None:
     """Print the design report: verdict, recipe, plots, checks with fixes, parameters and correlations."""
     from .paper_output import paper_output

@@ -12,7 +12,7 @@ from ..inputs.choices import SERIES_METHODS as METHODS
 from ..inputs.limits import MAX_REPLICATES, MAX_TUBES
 from .app import UserError, app, dump_json, out
 from .app import safe_text as S
-from .options import JsonFlag, PlanFile, count_option
+from .options import JsonFlag, PlanFile, count_option, path_option, text_option
 
 # the parameters of planner.jobs.classic.run_series, as the options of this command that set them
 OPTION_OF = {
@@ -26,10 +26,8 @@ OPTION_OF = {
 }
 
 
-OutDir = Annotated[
-    Path | None, typer.Option("--out", help="folder for recipe.csv and series.json", metavar="PATH")
-]
-Method = Annotated[str, typer.Option(help=f"which classic series: {' | '.join(METHODS)}", metavar="TEXT")]
+OutDir = Annotated[Path | None, path_option("folder for recipe.csv and series.json", "--out")]
+Method = Annotated[str, text_option(f"which classic series: {' | '.join(METHODS)}")]
 Points = Annotated[
     int | None,
     count_option(
@@ -38,26 +36,21 @@ Points = Annotated[
 ]
 Total = Annotated[
     str | None,
-    typer.Option(
-        help="the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest "
+    text_option(
+        "the concentration the method holds: job — [M]0 + [L]0 per tube (default: the largest "
         "in the linear range); calibration — the limiting reagent's (default: full conversion reads "
-        "mid-range); mole-ratio — the fixed reagent's (default: the largest in the linear range)",
-        metavar="TEXT",
+        "mid-range); mole-ratio — the fixed reagent's (default: the largest in the linear range)"
     ),
 ]
 Limiting = Annotated[
     str | None,
-    typer.Option(
-        help="calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)",
-        metavar="TEXT",
-    ),
+    text_option("calibration: the reagent converted, M or L (default: L, or M for complexes richer in L)"),
 ]
 Excess = Annotated[
     str | None,
-    typer.Option(
-        help="calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts "
-        "99.9 %, else 99 %, over the guess's range)",
-        metavar="TEXT",
+    text_option(
+        "calibration: the other reagent's concentration, e.g. '0.1 M' (default: what converts "
+        "99.9 %, else 99 %, over the guess's range)"
     ),
 ]
 Replicates = Annotated[
@@ -67,11 +60,7 @@ OldReplicates = Annotated[
     int | None, count_option("older spelling of --replicates", MAX_REPLICATES, hidden=True)
 ]
 Vary = Annotated[
-    str | None,
-    typer.Option(
-        help="mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)",
-        metavar="TEXT",
-    ),
+    str | None, text_option("mole-ratio: the rising reagent, L (metal fixed, default) or M (ligand fixed)")
 ]
 MaxRatio = Annotated[
     float | None,
@@ -82,10 +71,7 @@ MaxRatio = Annotated[
 ]
 SurveyRecipe = Annotated[
     Path | None,
-    typer.Option(
-        help="survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)",
-        metavar="PATH",
-    ),
+    path_option("survey: the tubes to choose the wavelength for (default: the evenly stepped ligand series)"),
 ]
 
 
@@ -116,18 +102,19 @@ def series(
     if tubes is not None and replicates is not None:
         raise UserError("--tubes is the older spelling of --replicates: give one of them")
     replicates = replicates if replicates is not None else tubes
-    given_opts = {
+    # run_series' parameters as the options give them (in the order their errors are reported)
+    params = {
         "points": points,
-        "total": total,
+        "total_M": total,
         "limiting": limiting,
-        "excess": excess,
-        "replicates": replicates,
+        "excess_M": excess,
+        "tubes": replicates,
         "vary": vary,
-        "max-ratio": max_ratio,
-        "recipe": recipe,
+        "max_ratio": max_ratio,
     }
-    _validate_options(method, given_opts)
-    total_M, excess_M = _concentration("--total", total), _concentration("--excess", excess)
+    _validate_options(method, params, recipe)
+    for key in ("total_M", "excess_M"):
+        params[key] = _concentration(OPTION_OF[key], params[key])
     if out_dir is not None:  # before the work; the outputs may not overwrite the plan or the recipe
         check_output_folder(out_dir, ("recipe.csv", "series.json"), (plan, recipe))
     p = load_plan(plan)
@@ -136,7 +123,7 @@ def series(
         from ..inputs.recipe import read_recipe_csv
 
         given = read_recipe_csv(recipe, p)
-    r = _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given)
+    r = _run(p, method, params, given)
     _emit(r, p, out_dir, as_json)
     sys.exit(r.exit_code)
 
@@ -148,11 +135,12 @@ def _validate_method(method: str) -> None:
         raise UserError(f"--method {method}: choose one of {', '.join(METHODS)}")
 
 
-def _validate_options(method: str, given_opts: dict) -> None:
-    """Refuse an option given to a method it does not apply to."""
+def _validate_options(method: str, params: dict, recipe: Path | None) -> None:
+    """Refuse an option given to a method it does not apply to (``params`` named as run_series names them)."""
     from ..jobs.classic import METHOD_OPTIONS
 
-    for name, value in given_opts.items():
+    given = {OPTION_OF[k].removeprefix("--"): v for k, v in params.items()} | {"recipe": recipe}
+    for name, value in given.items():
         if value is not None and method not in METHOD_OPTIONS[name]:
             raise UserError(
                 f"--{name} applies to --method {' / '.join(METHOD_OPTIONS[name])}, not to {method}: "
@@ -187,24 +175,13 @@ def _emit(r, p, out_dir: Path | None, as_json: bool) -> None:
         out.print(f"wrote {S(out_dir / 'series.json')} (no tubes: the series cannot be made)")
 
 
-def _run(p, method, points, total_M, replicates, limiting, excess_M, vary, max_ratio, given):
+def _run(p, method: str, params: dict, given):
     """The series job, its parameter errors named by this command's options."""
     from ..inputs.plan import PlanError
     from ..jobs.classic import run_series
 
     try:
-        return run_series(
-            p,
-            method,
-            points=points,
-            total_M=total_M,
-            tubes=replicates,
-            limiting=limiting,
-            excess_M=excess_M,
-            vary=vary,
-            max_ratio=max_ratio,
-            recipe=given,
-        )
+        return run_series(p, method, recipe=given, **params)
     except PlanError as exc:  # the series' parameters are this command's options
         if exc.key in OPTION_OF:
             raise UserError(f"{OPTION_OF[exc.key]}: {as_options(exc.message)}") from None
@@ -236,8 +213,7 @@ def _write(out_dir: Path, r, p, text: str) -> None:
 
 def print_series(r, p) -> None:
     """Verdict, the method's findings, the tubes and the checks (every text through safe_text)."""
-    from ..paper import fmt
-    from .show import STATUS_COLOUR, print_checks, reading_texts, tube_table
+    from .show import STATUS_COLOUR, print_checks, reading_texts, totals_columns, tube_table
 
     out.print(f"[bold]{S(r.title)}[/bold] — {S(r.method)} series")
     out.print(f"Question: {S(r.question)}")
@@ -254,8 +230,7 @@ def print_series(r, p) -> None:
             out.print(f"[{STATUS_COLOUR[c.status]}]{S(c.id)}[/]: {S(c.message)}")
         return
     columns = {
-        "M tot": [fmt.conc(x) for x in a.state.totals_M[:, 0]],
-        "L tot": [fmt.conc(x) for x in a.state.totals_M[:, 1]],
+        **totals_columns(a.state),
         "A ± sd": reading_texts(a),
         **{S(k): [f"{float(x):.3f}" for x in v] for k, v in r.columns.items()},
     }

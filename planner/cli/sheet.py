@@ -5,19 +5,15 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Annotated
 
-import typer
-
 from .app import app
-from .options import HtmlFlag, McSeed, PaperSize, PlanFile, RecipeFile, trials_option
+from .options import HtmlFlag, McSeed, PaperSize, PlanFile, RecipeFile, path_option, trials_option
 
 
 @app.command()
 def sheet(
     plan: PlanFile,
     recipe: RecipeFile,
-    out_path: Annotated[
-        Path, typer.Option("--out", help="where to write the prep sheet", metavar="PATH")
-    ] = Path("prep.pdf"),
+    out_path: Annotated[Path, path_option("where to write the prep sheet", "--out")] = Path("prep.pdf"),
     html: HtmlFlag = False,
     paper: PaperSize = "A4",
     trials: Annotated[int, trials_option("Monte-Carlo experiments behind the bands")] = 500,

@@ -38,6 +38,11 @@ def reading_texts(a, *, flag: bool = True) -> list[str]:
     return texts
 
 
+def totals_columns(state) -> dict[str, list[str]]:
+    """The metal's and the ligand's total concentration in each tube, as ``tube_table`` columns."""
+    return {name: [fmt.conc(x) for x in state.totals_M[:, k]] for k, name in enumerate(("M tot", "L tot"))}
+
+
 def tube_table(title: str, recipe, p, step: float, columns: dict[str, list[str]]) -> Table:
     """The tubes of ``recipe``: each label, the volume of every dispensed stock on the grid ``step``, then
     ``columns`` (heading → one text per tube, already safe), all right-aligned."""
@@ -73,8 +78,7 @@ def print_assessment(a, p) -> None:
     print_checks(a.checks)
     st, m = a.state, a.model
     columns = {
-        "M tot": [fmt.conc(x) for x in st.totals_M[:, 0]],
-        "L tot": [fmt.conc(x) for x in st.totals_M[:, 1]],
+        **totals_columns(st),
         **{S(x): [fmt.conc(c) for c in st.species_M[:, k]] for k, x in enumerate(m.species)},
         "A ± sd": reading_texts(a),
         "saturation": [f"{x:.2f}" for x in st.saturation],

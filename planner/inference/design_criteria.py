@@ -92,6 +92,16 @@ class DesignError(KplanError):
 # --------------------------------------------------------------------------------------------------
 
 
+class _Axis:
+    """The length of one axis of a :class:`Problem`'s rows ``F`` (G, C, R, P), read as an attribute."""
+
+    def __init__(self, index: int) -> None:
+        self.index = index
+
+    def __get__(self, problem: Problem, owner: type | None = None) -> int:
+        return int(problem.F.shape[self.index])
+
+
 @dataclass(frozen=True, eq=False)
 class Problem:
     """Validated, rescaled problem. Internal loss L (minimised): D ``−Σν log det M̃``, target
@@ -106,21 +116,10 @@ class Problem:
     offset: float  # reported value = sign · L + offset (see value_of)
     has_prior: bool
 
-    @property
-    def G(self) -> int:
-        return self.F.shape[0]
-
-    @property
-    def C(self) -> int:
-        return self.F.shape[1]
-
-    @property
-    def R(self) -> int:
-        return self.F.shape[2]
-
-    @property
-    def P(self) -> int:
-        return self.F.shape[3]
+    G = _Axis(0)  # prior nodes averaged over (1 for a local design)
+    C = _Axis(1)  # candidate tubes
+    R = _Axis(2)  # readings per tube
+    P = _Axis(3)  # parameters
 
     @property
     def k(self) -> float:

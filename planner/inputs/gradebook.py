@@ -10,15 +10,15 @@ read back without it, so it matches the same student in the results.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from .limits import MAX_CLASS_CSV_BYTES, MAX_CLASS_ROWS, MAX_STUDENT_ID, MAX_STUDENTS
+from .limits import MAX_CLASS_ROWS, MAX_STUDENT_ID, MAX_STUDENTS
 from .plan import Plan
 from .recipe import Recipe, RecipeError, make_recipe
-from .tables import Row, Table, TableSpec, parse_table, read_table_text
+from .tables import Row, Table, parse_table, read_table_text, table_spec
 from .text import check_identifier, visible
 
 KEY_FIXED = ("student", "name", "section", "tube")
@@ -46,15 +46,8 @@ class KeyCard:
     band_high: np.ndarray
 
 
-KEY = TableSpec(
-    what="key",
-    header_example="student,name,section,tube,<stock>,...,absorbance,band_low,band_high",
-    max_rows=MAX_CLASS_ROWS,
-    max_bytes=MAX_CLASS_CSV_BYTES,
-    decimal_comma=True,
-    error=RecipeError,
-)
-RESULTS = replace(KEY, what="results", header_example="student,tube,absorbance", row_word="reading")
+KEY = table_spec("key", RecipeError)
+RESULTS = table_spec("results", RecipeError)
 
 
 def _student(table: Table, row: Row, j: int) -> str:

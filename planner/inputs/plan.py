@@ -21,9 +21,9 @@ from .files import read_user_text
 from .limits import MAX_DEPTH, MAX_PLAN_BYTES
 from .names import ion_charge, unknown_name
 from .plan_fields import PlanError, StrictModel
+from .plan_parts import COMPONENTS
 from .plan_schema import (
     ACTIVITY_MODELS,
-    COMPONENTS,
     CRITERIA,
     DISPENSER_KINDS,
     MAKE_UP_MODES,

@@ -1,5 +1,5 @@
-"""Parts of the plan schema beside the main tables: the formula check shared by species, the
-alternative species of the model check, and the in-cuvette titration table."""
+"""Parts of the plan schema beside the main tables: what every species declares (its formula checked
+once), the alternative species of the model check, and the in-cuvette titration table."""
 
 from __future__ import annotations
 
@@ -43,15 +43,21 @@ def check_formula(v: dict[str, int]) -> dict[str, int]:
     return v
 
 
-class Alternative(StrictModel):
-    """A species the main model leaves out, which the design should be able to detect (e.g. ML2)."""
+class SpeciesCore(StrictModel):
+    """What every species declares, in the model (``[[species]]``) or as an alternative of the model
+    check: its name, its stoichiometry (checked by :func:`check_formula`) and log β."""
 
     name: SpeciesName
     formula: dict[str, Stoich]
     log_beta: LogBeta
-    epsilon: Epsilon_ | None = None
 
     _formula = field_validator("formula")(lambda v: check_formula(v))
+
+
+class Alternative(SpeciesCore):
+    """A species the main model leaves out, which the design should be able to detect (e.g. ML2)."""
+
+    epsilon: Epsilon_ | None = None
 
 
 class Titration(StrictModel):

@@ -37,14 +37,11 @@ from .plan_fields import (
     FractionBelow1,
     IonicStrength,
     IonicStrengthTarget,
-    LogBeta,
     Mass,
     PlanError,
     RelSD,
     SizeA,
-    SpeciesName,
     StockId,
-    Stoich,
     StrictModel,
     Text,
     Volume,
@@ -53,11 +50,10 @@ from .plan_fields import (
     integer_in,
     number_in,
 )
-from .plan_parts import Alternative, Titration, check_formula, check_spectra_keys
+from .plan_parts import Alternative, SpeciesCore, Titration, check_spectra_keys
 from .spectra_table import SpectraTable
 from .text import check_identifier
 
-COMPONENTS = ("M", "L", "H")
 DISPENSER_KINDS = ("burette", "pipette", "graduated-pipette", "micropipette", "piston-burette")
 PISTON_DISPENSERS = ("micropipette", "piston-burette")  # ISO 8655 devices: no class, a systematic limit
 MAKE_UP_MODES = ("to-mark", "added")
@@ -92,14 +88,9 @@ class Components(StrictModel):
     H: Protons | None = None
 
 
-class Species(StrictModel):
-    name: SpeciesName
-    formula: dict[str, Stoich]
-    log_beta: LogBeta
+class Species(SpeciesCore):
     log_beta_sd: number_in(0, 10) = 0.0
     size_angstrom: SizeA | None = Field(default=None, alias="size_A")
-
-    _formula = field_validator("formula")(lambda v: check_formula(v))
 
 
 class Epsilon(StrictModel):

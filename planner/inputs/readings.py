@@ -13,17 +13,11 @@ import numpy as np
 
 from .plan import Plan
 from .recipe import Recipe, RecipeError, recipe_from_table
-from .tables import TableSpec, parse_table, read_table_text
+from .tables import parse_table, read_table_text, table_spec
 
 ABSORBANCE_COLUMNS = ("absorbance", "A", "measured_A")
 NOTE_COLUMNS = ("note", "notes", "comment", "comments")
-READINGS = TableSpec(
-    what="readings",
-    header_example="tube,<stock>,...,absorbance",
-    row_word="tube",
-    decimal_comma=True,
-    error=RecipeError,
-)
+READINGS = table_spec("readings", RecipeError)
 
 
 @dataclass(frozen=True)

@@ -18,7 +18,7 @@ from .limits import MAX_ROWS as MAX_ROWS
 from .names import unknown_name
 from .plan import Plan
 from .plan_fields import MAX_VOLUME_ML, MIN_VOLUME_ML
-from .tables import Row, Table, TableSpec, parse_number, parse_table, read_table_text, write_csv
+from .tables import Row, Table, parse_number, parse_table, read_table_text, table_spec, write_csv
 from .text import check_identifier, visible
 
 VOLUME_DECIMALS = 4  # mL; far below any dispenser's resolution, so round trips are exact
@@ -201,7 +201,7 @@ def assemble_recipe(
     return Recipe(tuple(tubes), ids, vol, total)
 
 
-RECIPE = TableSpec(what="recipe", header_example="tube,<stock>,...", row_word="tube", error=RecipeError)
+RECIPE = table_spec("recipe", RecipeError)
 
 
 def read_text_file(path: str | Path, what: str) -> str:

@@ -14,9 +14,9 @@ import unicodedata
 from dataclasses import dataclass
 from pathlib import Path
 
-from .limits import MAX_ROSTER_BYTES, MAX_STUDENT_ID, MAX_STUDENTS, MAX_TEXT, check_count
+from .limits import MAX_STUDENT_ID, MAX_STUDENTS, MAX_TEXT, check_count
 from .plan import PlanError
-from .tables import Table, TableSpec, parse_table, read_table_text
+from .tables import Table, parse_table, read_table_text, table_spec
 from .text import visible
 
 __all__ = [
@@ -70,14 +70,7 @@ class Roster:
         )
 
 
-ROSTER = TableSpec(
-    what="roster",
-    header_example="id,name,section,bench",
-    row_word="student",
-    max_rows=MAX_STUDENTS,
-    max_bytes=MAX_ROSTER_BYTES,
-    error=RosterError,
-)
+ROSTER = table_spec("roster", RosterError)
 
 
 def _has_controls(text: str) -> bool:
@@ -156,7 +149,7 @@ def _check_student(table: Table, line: int, sid: str, name: str) -> None:
 
 def read_roster_csv(path: str | Path) -> Roster:
     """Read and parse a roster file (see :func:`parse_roster_csv`): a regular file of at most
-    :data:`MAX_ROSTER_BYTES` bytes."""
+    :data:`~planner.inputs.limits.MAX_ROSTER_BYTES` bytes."""
     return parse_roster_csv(read_table_text(path, ROSTER), str(path))
 
 

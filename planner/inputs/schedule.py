@@ -13,9 +13,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .limits import MAX_STEPS
 from .recipe import RecipeError
-from .tables import TableSpec, parse_table, read_table_text, write_csv
+from .tables import parse_table, read_table_text, table_spec, write_csv
 from .text import visible
 
 
@@ -40,14 +39,7 @@ class Schedule:
         return np.cumsum(self.aliquot_mL)
 
 
-SCHEDULE = TableSpec(
-    what="schedule",
-    header_example="step,aliquot_mL[,absorbance]",
-    row_word="step",
-    max_rows=MAX_STEPS,
-    decimal_comma=True,
-    error=RecipeError,
-)
+SCHEDULE = table_spec("schedule", RecipeError)
 
 
 def is_schedule_csv(text: str) -> bool:

@@ -17,23 +17,14 @@ from pathlib import Path
 
 import numpy as np
 
-from .limits import MAX_SPECTRA_BYTES, MAX_SPECTRA_ROWS
 from .plan import Plan
 from .recipe import Recipe, RecipeError, recipe_from_table
-from .tables import Table, TableSpec, parse_table, read_table_text, write_csv
+from .tables import Table, parse_number, parse_table, read_table_text, table_spec, write_csv
 from .text import visible
 
 MAX_READING = 10.0  # no photometer reads beyond this: a larger number is a typo or another quantity
 LONG_COLUMNS = ("tube", "wavelength_nm", "absorbance")
-SPECTRA = TableSpec(
-    what="spectra",
-    header_example="tube,wavelength_nm,absorbance",
-    row_word="reading",
-    max_rows=MAX_SPECTRA_ROWS,
-    max_bytes=MAX_SPECTRA_BYTES,
-    decimal_comma=True,
-    error=RecipeError,
-)
+SPECTRA = table_spec("spectra", RecipeError)
 
 
 @dataclass(frozen=True)
@@ -82,12 +73,10 @@ def _absorbance(t: Table, row, j: int, where: str | None = None) -> float:
     return v
 
 
-def _wavelength(cell: str, where: str) -> float:
-    c = cell.removesuffix("nm").strip()
-    try:
-        v = float(c)
-    except ValueError:
-        raise RecipeError(where, f"'{visible(cell)}' is not a wavelength in nm") from None
+def _wavelength(t: Table, cell: str, where: str) -> float:
+    """A wavelength in nm from a cell or a column name (``450``, ``450 nm``, ``450,5`` in a ``;`` file)."""
+    c = cell.strip().removesuffix("nm")
+    v = parse_number(c, where, "a wavelength in nm", error=RecipeError, decimal_comma=t.decimal_comma)
     if not 100.0 <= v <= 2000.0:
         raise RecipeError(where, f"{v:g} nm is outside 100–2000 nm")
     return v
@@ -102,7 +91,7 @@ def _long(t: Table) -> SpectraReadings:
         tube = r.cells[jt]
         if not tube:
             raise RecipeError(t.where(r.line, "tube"), "the tube label is empty")
-        w = _wavelength(r.cells[jw], t.where(r.line, "wavelength_nm"))
+        w = _wavelength(t, r.cells[jw], t.where(r.line, "wavelength_nm"))
         if (tube, w) in seen:
             raise RecipeError(
                 t.where(r.line), f"tube {visible(tube)} at {w:g} nm is read twice (line {seen[tube, w]})"
@@ -140,7 +129,7 @@ def _wide(t: Table, plan: Plan) -> SpectraReadings:
     wl_cols = [k for k in range(1, len(t.header)) if k not in stock_cols]
     if not wl_cols:
         raise RecipeError(t.where(), "no wavelength columns: name each by its wavelength in nm, e.g. 450")
-    wl = np.array([_wavelength(t.header[k], t.where(column=t.header[k])) for k in wl_cols])
+    wl = np.array([_wavelength(t, t.header[k], t.where(column=t.header[k])) for k in wl_cols])
     if np.any(np.diff(wl) <= 0):
         raise RecipeError(t.where(), "wavelength columns must rise from left to right")
     A = np.array(

@@ -14,9 +14,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .limits import MAX_EPSILON_BYTES, MAX_EPSILON_ROWS, MAX_WAVELENGTHS
+from .limits import MAX_WAVELENGTHS
 from .plan_fields import PlanError
-from .tables import Table, TableSpec, parse_table, read_table_text
+from .tables import Table, parse_table, read_table_text, table_spec
 from .text import visible
 
 MAX_EPSILON = 1e6  # L mol⁻¹ cm⁻¹, as for optics.epsilon
@@ -29,14 +29,7 @@ def _error(key: str, message: str) -> PlanError:
     return PlanError(KEY, f"{key}: {message}" if key else message)
 
 
-EPSILON_TABLE = TableSpec(
-    what="ε table",
-    header_example="wavelength_nm,<species>,...",
-    row_word="wavelength",
-    max_rows=MAX_EPSILON_ROWS,
-    max_bytes=MAX_EPSILON_BYTES,
-    error=_error,
-)
+EPSILON_TABLE = table_spec("ε table", _error)
 
 
 @dataclass(frozen=True)

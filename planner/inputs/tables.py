@@ -1,6 +1,7 @@
 """Tables: one reader for every CSV the tool reads, one writer for every CSV it writes.
 
-The rules, the same for recipes, readings, titration schedules, rosters, keys and results:
+The rules, the same for every kind of table (:data:`KINDS`: recipes, readings, titration schedules,
+spectra, rosters, ε tables, keys and results):
 
 - UTF-8 text (a byte-order mark is accepted) from a regular file, at most ``spec.max_bytes`` bytes;
 - blank lines are skipped anywhere; a line starting with ``#`` is a comment above the header only —
@@ -8,11 +9,12 @@ The rules, the same for recipes, readings, titration schedules, rosters, keys an
 - the header is the first other line; fields are separated by ``,`` and quoted with ``"`` as in
   RFC 4180 (a quote inside a quoted cell is doubled; a quoted cell may not run over lines);
 - a ``;``-separated file with decimal commas, as spreadsheets write it in such locales, is read as it was
-  meant where the kind of table allows it (``spec.decimal_comma``: readings, schedules, keys, results);
-  elsewhere it is refused with the fix, and a tab-separated file always is;
+  meant where the kind of table allows it (``spec.decimal_comma``: the measured data — readings,
+  schedules, spectra, keys, results); elsewhere it is refused with the fix, and a tab-separated file
+  always is;
 - every row has as many cells as the header; cells are trimmed, at most :data:`MAX_CELL_CHARS`
   characters, and hold no control or text-direction character;
-- at most ``spec.max_rows`` rows;
+- at most ``spec.max_rows`` rows and ``spec.max_bytes`` bytes (every kind's limits: :data:`KINDS`);
 - a cell the tool wrote with a leading apostrophe so that a spreadsheet keeps it as text (OWASP, "CSV
   Injection") is read back as it was before: :func:`guard_cell` and :func:`unguard_cell` are inverses.
 
@@ -27,12 +29,25 @@ import csv
 import math
 import re
 from collections.abc import Callable, Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from .errors import LocatedError
 from .files import read_user_text
-from .limits import MAX_CELL_CHARS, MAX_CSV_BYTES, MAX_ROWS
+from .limits import (
+    MAX_CELL_CHARS,
+    MAX_CLASS_CSV_BYTES,
+    MAX_CLASS_ROWS,
+    MAX_CSV_BYTES,
+    MAX_EPSILON_BYTES,
+    MAX_EPSILON_ROWS,
+    MAX_ROSTER_BYTES,
+    MAX_ROWS,
+    MAX_SPECTRA_BYTES,
+    MAX_SPECTRA_ROWS,
+    MAX_STEPS,
+    MAX_STUDENTS,
+)
 from .text import first_unsafe, visible
 
 # A plain decimal number with a point: no 'nan', 'inf', '1_000' or hex, which float() would take.
@@ -73,6 +88,29 @@ class TableSpec:
     max_bytes: int = MAX_CSV_BYTES
     decimal_comma: bool = False
     error: Callable[[str, str], Exception] = TableError
+
+
+KEY_HEADER = "student,name,section,tube,<stock>,...,absorbance,band_low,band_high"  # kplan cards' key.csv
+
+# Every kind of table the tool reads: the words its messages use and its limits. The measured data come
+# from spreadsheets, so their decimal commas are read as meant; recipes, rosters and ε tables are not.
+_KINDS = (
+    # what, header to suggest, one row is a, at most rows, at most bytes, decimal commas read
+    ("recipe", "tube,<stock>,...", "tube", MAX_ROWS, MAX_CSV_BYTES, False),
+    ("readings", "tube,<stock>,...,absorbance", "tube", MAX_ROWS, MAX_CSV_BYTES, True),
+    ("schedule", "step,aliquot_mL[,absorbance]", "step", MAX_STEPS, MAX_CSV_BYTES, True),
+    ("spectra", "tube,wavelength_nm,absorbance", "reading", MAX_SPECTRA_ROWS, MAX_SPECTRA_BYTES, True),
+    ("roster", "id,name,section,bench", "student", MAX_STUDENTS, MAX_ROSTER_BYTES, False),
+    ("ε table", "wavelength_nm,<species>,...", "wavelength", MAX_EPSILON_ROWS, MAX_EPSILON_BYTES, False),
+    ("key", KEY_HEADER, "row", MAX_CLASS_ROWS, MAX_CLASS_CSV_BYTES, True),
+    ("results", "student,tube,absorbance", "reading", MAX_CLASS_ROWS, MAX_CLASS_CSV_BYTES, True),
+)
+KINDS: dict[str, TableSpec] = {kind[0]: TableSpec(*kind) for kind in _KINDS}
+
+
+def table_spec(what: str, error: Callable[[str, str], Exception]) -> TableSpec:
+    """The spec of the kind of table ``what`` (a key of :data:`KINDS`) whose every problem is ``error``."""
+    return replace(KINDS[what], error=error)
 
 
 @dataclass(frozen=True)
@@ -292,9 +330,19 @@ def _clean_row(
     return tuple(unguard_cell(c) if c[:1] == "'" else c for c in out)
 
 
+_COMMA_NUMBER = re.compile(r"[+-]?\d+,\d+(\s*nm)?")  # a number with a decimal comma, as a column name
+
+
 def _dialect(first: str, spec: TableSpec, where: str) -> tuple[str, bool]:
     """The field separator from the header line (the one that splits it, quotes respected), and
     whether numbers have decimal commas."""
+    semi = _split(first, ";")
+    if (
+        spec.decimal_comma
+        and len(semi) > 1
+        and all(_COMMA_NUMBER.fullmatch(c.strip()) for c in semi if "," in c)
+    ):
+        return ";", True  # a wide spectra header: its column names are wavelengths with decimal commas
     comma = _split(first, ",")
     if len(comma) > 1:
         if spec.decimal_comma and any(";" in c for c in comma):
@@ -407,6 +455,7 @@ def _width_message(width: int, got: int, spec: TableSpec) -> str:
 
 __all__ = [
     "FORMULA_TRIGGERS",
+    "KINDS",
     "NUMBER",
     "Row",
     "Table",
@@ -419,6 +468,7 @@ __all__ = [
     "parse_table",
     "read_table",
     "read_table_text",
+    "table_spec",
     "unguard_cell",
     "write_csv",
 ]

@@ -77,9 +77,8 @@ def exact_design_json(d) -> dict:
     return {
         "support": [int(i) for i in idx],
         "counts": [int(c) for c in d.counts[idx]],
-        "n_tubes": d.n_tubes,
-        "criterion_value": float(d.criterion_value),
-        "efficiency": float(d.efficiency),
+        **attrs(d, "n_tubes"),
+        **float_or_none(d, "criterion_value efficiency"),
         "starts": int(d.starts),
     }
 

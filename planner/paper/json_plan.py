@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from .json_fields import attrs, finite, num, nums
+from .json_fields import attrs, finite, float_or_none, num, nums
 
 
 # --------------------------------------------------------------------------------------------------
@@ -16,12 +16,9 @@ def parameter_json(q) -> dict:
     """One fitted parameter of an assessment (:class:`~planner.jobs.plan.assess.ParameterRow`)."""
     return {
         "name": q.name,
-        "guess": float(q.guess),
-        "true": float(q.true),
-        "se": num(q.se),
-        "mc_sd": num(q.mc_sd) if q.mc_sd is not None else None,
-        "mc_bias": num(q.mc_bias) if q.mc_bias is not None else None,
-        "mc_ci95": [num(q.mc_ci95[0]), num(q.mc_ci95[1])] if q.mc_ci95 is not None else None,
+        **float_or_none(q, "guess true"),
+        **finite(q, "se mc_sd mc_bias"),  # the Monte-Carlo's are None without trials
+        "mc_ci95": None if q.mc_ci95 is None else nums(q.mc_ci95),
     }
 
 

@@ -24,7 +24,7 @@ from ..model.compiled import Model, TubeState
 from ..model.jacobians import absorbance_derivatives
 from . import delivery
 from .bench import Bench
-from .covariance import ErrorBudget, volume_derivatives
+from .covariance import ErrorBudget, stock_factors, volume_derivatives
 from .titration import titration_budget
 
 __all__ = [
@@ -241,12 +241,7 @@ def error_factors(
     nd = len(devices.items)
     onehot = (devices.stock_device[:, None] == np.arange(nd)[None, :]).astype(float)  # (k, d)
     J_dev = (dA_dV * sds.systematic_mL) @ onehot
-    # stock concentration factors: dA/dC_k · C_k · rsd_k
-    J_stock = (
-        (dA_dtotals @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T)
-        * recipe.volumes_mL
-        / recipe.total_volume_mL[:, None]
-    )
+    J_stock = stock_factors(model, recipe, dA_dtotals)
     return ErrorFactors(state.absorbance_sd**2, var_rand, J_stock, J_dev)
 
 
@@ -262,11 +257,4 @@ def error_budget(
     if bench.titration is not None:  # cumulative additions: correlated along the titration
         return titration_budget(bench, model, recipe, state, delta_T_C=delta_T_C)
     f = error_factors(bench, model, recipe, state, delta_T_C=delta_T_C)
-    return ErrorBudget(
-        photometric=np.diag(f.photometric_var),
-        delivery_random=np.diag(f.delivery_random_var),
-        delivery_systematic=f.J_device @ f.J_device.T,
-        stock=f.J_stock @ f.J_stock.T,
-        J_stock=f.J_stock,
-        J_device=f.J_device,
-    )
+    return ErrorBudget.from_factors(f.photometric_var, np.diag(f.delivery_random_var), f.J_stock, f.J_device)

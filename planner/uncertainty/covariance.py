@@ -11,6 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..inputs.recipe import Recipe
+from ..model.compiled import Model
 from .bench import Bench
 
 
@@ -34,6 +35,24 @@ class ErrorBudget:
     stock: np.ndarray
     J_stock: np.ndarray
     J_device: np.ndarray
+
+    @classmethod
+    def from_factors(
+        cls,
+        photometric_var: np.ndarray,
+        delivery_random: np.ndarray,
+        J_stock: np.ndarray,
+        J_device: np.ndarray,
+    ) -> ErrorBudget:
+        """The budget whose shared parts are the outer products of their factors (S Sᵀ per source)."""
+        return cls(
+            photometric=np.diag(photometric_var),
+            delivery_random=delivery_random,
+            delivery_systematic=J_device @ J_device.T,
+            stock=J_stock @ J_stock.T,
+            J_stock=J_stock,
+            J_device=J_device,
+        )
 
     @property
     def delivery(self) -> np.ndarray:
@@ -74,3 +93,13 @@ def volume_derivatives(bench: Bench, recipe: Recipe, dA_dtotals: np.ndarray, sto
     if not bench.to_mark:
         dA_dV = dA_dV + dA_dVtot[..., None]
     return dA_dV, dA_dVtot
+
+
+def stock_factors(model: Model, recipe: Recipe, dA_dtotals: np.ndarray) -> np.ndarray:
+    """(n, k) dA_i per 1-sd error of stock k's concentration: dA/dC_k · C_k · rsd_k, C_k entering tube i
+    diluted by V_ik / V_i."""
+    return (
+        (dA_dtotals @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T)
+        * recipe.volumes_mL
+        / recipe.total_volume_mL[:, None]
+    )

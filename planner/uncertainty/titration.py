@@ -30,7 +30,7 @@ from ..model.compiled import Model, TubeState
 from ..model.jacobians import absorbance_derivatives
 from . import catalogue, delivery
 from .bench import Bench, TitrationSetup
-from .covariance import ErrorBudget, volume_derivatives
+from .covariance import ErrorBudget, stock_factors, volume_derivatives
 
 
 def _setup(bench: Bench) -> TitrationSetup:
@@ -211,19 +211,8 @@ def titration_budget(
         np.outer(d_tit, d_tit) * e.random_cov() + np.outer(d_start, d_start) * e.start_random_mL**2
     )
     J_dev = np.column_stack([d_tit * e.systematic_mL, d_start * e.start_systematic_mL])  # calibration factors
-    J_stock = (
-        (dA_dtot @ (model.stock_conc_M * model.stock_conc_rsd[:, None]).T)
-        * recipe.volumes_mL
-        / recipe.total_volume_mL[:, None]
-    )
-    return ErrorBudget(
-        photometric=np.diag(state.absorbance_sd**2),
-        delivery_random=delivery_random,
-        delivery_systematic=J_dev @ J_dev.T,
-        stock=J_stock @ J_stock.T,
-        J_stock=J_stock,
-        J_device=J_dev,
-    )
+    J_stock = stock_factors(model, recipe, dA_dtot)
+    return ErrorBudget.from_factors(state.absorbance_sd**2, delivery_random, J_stock, J_dev)
 
 
 def titration_volumes(

@@ -385,6 +385,7 @@ OPTION_CASES = [
     ("design-too-many-tubes", ["design", PLAN, "--tubes", "500"], "--tubes"),
     ("assess-too-many-trials", ["assess", PLAN, RECIPE, "--trials", "100000000"], "--trials"),
     ("assess-negative-seed", ["assess", PLAN, RECIPE, "--seed", "-1"], "--seed"),
+    ("cards-negative-seed", ["cards", PLAN, "--count", "3", "--seed", "-1"], "--seed"),
     ("assess-at-nan", ["assess", PLAN, RECIPE, "--at", "ML=nan"], "--at ML=nan"),
     ("assess-at-huge", ["assess", PLAN, RECIPE, "--at", "ML=1e9"], "--at ML=1e9"),
     ("unknown-option", ["check", PLAN, "--bogus"], "--bogus"),

@@ -13,11 +13,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from planner.inputs.gradebook import parse_key_csv, parse_results_csv
-from planner.inputs.plan import parse_plan_text
+from planner.inputs.plan import PlanError, parse_plan_text
 from planner.inputs.readings import parse_readings_csv
 from planner.inputs.recipe import RecipeError, make_recipe, parse_recipe_csv, recipe_to_csv
 from planner.inputs.roster import RosterError, parse_roster_csv, read_roster_csv
 from planner.inputs.schedule import Schedule, parse_schedule_csv, schedule_to_csv
+from planner.inputs.spectra_readings import parse_spectra_readings
+from planner.inputs.spectra_table import parse_spectra_table
 from planner.inputs.tables import (
     TableError,
     TableSpec,
@@ -98,6 +100,17 @@ def test_semicolons_where_allowed_and_refused_elsewhere(plan):
     assert a.absorbance[0] == 0.312 and a.recipe.column("CU")[0] == 1.5
     assert parse_results_csv("student;tube;absorbance\nS1;T1;0,25\n") == {"S1": {"T1": 0.25}}
     assert parse_schedule_csv("step;aliquot_mL\n0;0\n1;0,015\n").aliquot_mL[1] == 0.015
+    spectra = parse_spectra_readings("tube;wavelength_nm;absorbance\nT1;450;0,25\n", plan)
+    assert spectra.wavelength_nm[0] == 450 and spectra.absorbance[0, 0] == 0.25
+    # a wavelength with a decimal comma, in a cell (long form) and as a column name (wide form)
+    spectra = parse_spectra_readings("tube;wavelength_nm;absorbance\nT1;450,5;0,25\n", plan)
+    assert spectra.wavelength_nm[0] == 450.5
+    spectra = parse_spectra_readings("tube;450,5 nm;451,5\nT1;0,25;0,5\n", plan)
+    assert list(spectra.wavelength_nm) == [450.5, 451.5] and spectra.absorbance[0, 1] == 0.5
+    with pytest.raises(RecipeError, match="'450,5' is not a wavelength in nm; write a decimal point"):
+        parse_spectra_readings("tube,wavelength_nm,absorbance\nT1,\"450,5\",0.25\n", plan)
+    with pytest.raises(PlanError, match="semicolon-separated"):
+        parse_spectra_table("wavelength_nm;ML\n400;1,5\n410;2,5\n")
     with pytest.raises(RecipeError, match="semicolon-separated"):
         parse_recipe_csv("tube;CU;DY\nT1;1,5;0,5\n", plan)
     with pytest.raises(RosterError, match="semicolon-separated"):

@@ -283,7 +283,7 @@ def _peaks(model) -> tuple[float, ...]:
 def _given_sum(total_M: float, cM: float, room: _Room, tube_mL: float) -> float:
     """The sum of stock volumes per tube for ``total_M`` (checked against the tube)."""
     if total_M <= 0:
-        raise PlanError("total_M", "the total concentration must be positive, e.g. total_M = 0.002 (2 mM)")
+        raise PlanError("total_M", "the total concentration must be positive, e.g. 0.002 mol/L (2 mM)")
     vs = float(snap(total_M * tube_mL / cM, room.step))
     if vs > room.avail + 1e-9:
         raise PlanError(
