@@ -9,8 +9,8 @@ Puts together the expected tube contents (:mod:`planner.model`), the error budge
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
+from typing import Unpack
 
 import numpy as np
 
@@ -28,7 +28,6 @@ from ...inference.precision import (
     whitening_of,
 )
 from ...inference.study import Study
-from ...inputs.limits import MAX_TRIALS, check_count
 from ...inputs.plan import Plan
 from ...inputs.recipe import Recipe
 from ...inputs.text import plural
@@ -40,11 +39,10 @@ from ..compile import compile_study, expected_state, true_constants
 from . import checks as chk
 from .checks import Check
 from .limits import Limits, precision_shares, what_would_help
+from .options import STUDY_ASSESS_DEFAULTS, AssessOptions, StudyAssessOptions, assess_run
 
 STATUSES = ("pass", "warn", "fail")
 VERDICTS = ("resolved", "bounded", "unresolved")
-DEFAULT_TRIALS = 2000
-
 __all__ = ["Assessment", "Check", "ParameterRow", "assess", "assess_recipe", "assess_study", "expected_state"]
 
 
@@ -173,7 +171,7 @@ def assess_recipe(plan: Plan, recipe: Recipe) -> Assessment:
     return assess(plan, recipe, trials=0, precision=False)
 
 
-def assess(plan: Plan, recipe: Recipe, **options) -> Assessment:
+def assess(plan: Plan, recipe: Recipe, **options: Unpack[StudyAssessOptions]) -> Assessment:
     """Judge ``recipe``: expected tubes, error budget, precision of log K, checks and verdict.
 
     The plan is compiled once (:func:`planner.jobs.compile.compile_study`); ``options`` are those of
@@ -182,43 +180,19 @@ def assess(plan: Plan, recipe: Recipe, **options) -> Assessment:
     return assess_study(compile_study(plan), recipe, **options)
 
 
-def assess_study(
-    study: Study,
-    recipe: Recipe,
-    *,
-    trials: int = DEFAULT_TRIALS,
-    seed: int = 0,
-    at: Mapping[str, float] | None = None,
-    precision: bool = True,
-    profile_chi2: bool = True,
-    model_check: bool = True,
-    detection_trials: int | None = None,
-    model_check_fix: str | None = None,
-    suggest: bool = False,
-    shares: bool = True,
-    progress: Callable[[int, int], None] | None = None,
-) -> Assessment:
+def assess_study(study: Study, recipe: Recipe, **options: Unpack[StudyAssessOptions]) -> Assessment:
     """Judge ``recipe`` against the compiled plan: expected tubes, error budget, precision of log K, checks
     and verdict.
 
-    Parameters
-    ----------
-    trials : Monte-Carlo experiments (0: Cramér–Rao only).
-    seed : seed of the numpy Generator for the Monte Carlo.
-    at : assumed true log β per species name (default: the plan's guesses).
-    precision : False skips Fisher information, Monte Carlo and profile.
-    profile_chi2 : False skips the χ² profile (the design's comparisons use the Cramér–Rao SE only).
-    model_check : False skips the detection power of the plan's alternative models; ``detection_trials``
-        simulated experiments per alternative (default min(trials, 400)); ``model_check_fix`` what the
-        model-check check advises.
-    suggest : price the changes that would improve the precision (:mod:`planner.jobs.plan.limits`).
-    shares : False skips what limits the precision (``limits`` is None): for callers that print none of
-        it (the cards of a class set); the verdict does not read it.
-    progress : callback(done, total) for long Monte-Carlo runs.
+    ``options`` (:class:`planner.jobs.plan.options.StudyAssessOptions`, each optional): ``trials``,
+    ``seed``, ``at``, ``profile_chi2``, ``model_check``, ``detection_trials``, ``model_check_fix`` and
+    ``progress`` as for every assessment; ``precision`` (False: no Fisher information, Monte Carlo or
+    profile), ``suggest`` (price what would help) and ``shares`` (False: no ``limits``).
     """
-    trials = check_count(trials, "trials", MAX_TRIALS, least=0)
+    run = assess_run(options, STUDY_ASSESS_DEFAULTS)
+    trials, seed, precision = run["trials"], run["seed"], run["precision"]
     model, bench = study.model, study.bench
-    lb_true = true_constants(model, at)
+    lb_true = true_constants(model, run["at"])
     state = expected_state(model, recipe, log_beta=lb_true)
     budget = error_budget(bench, model, recipe, state)
     params = study.params
@@ -226,28 +200,56 @@ def assess_study(
     cr = mc = prof = None
     if precision and params.size:
         cr, mc, prof = _precision(
-            study, recipe, state, budget, true_theta, (trials, seed), profile_chi2, progress
+            study, recipe, state, budget, true_theta, (trials, seed), run["profile_chi2"], run["progress"]
         )
     check_list = _recipe_checks(study, recipe, state)
     if cr is not None:
         check_list.append(_identifiability_check(params, cr, model, state))
     det: tuple | None = None
-    if model_check and precision and study.alternatives and params.size and params.target >= 0:
-        det, found = _detection(study, recipe, seed, (trials, detection_trials), model_check_fix)
-        check_list.append(found)
+    if run["model_check"] and precision and study.alternatives and params.size and params.target >= 0:
+        det, finding = _detection(study, recipe, seed, detection_count(run), run["model_check_fix"])
+        check_list.append(finding)
     limits = None
-    if shares and cr is not None and params.target >= 0 and study.goal_se is not None:
-        limits = _limits(study, recipe, state, budget, cr, lb_true, suggest)
-    verdict, reason = with_failed_checks(
-        *precision_verdict(study, params, cr, mc, prof, precision), check_list
+    if run["shares"] and cr is not None and params.target >= 0 and study.goal_se is not None:
+        limits = _limits(study, recipe, state, budget, cr, lb_true, run["suggest"])
+    found = (params, true_theta, cr, mc, prof)
+    return judged(
+        study,
+        recipe,
+        state,
+        check_list,
+        found,
+        precision=precision,
+        budget=budget,
+        detection=det,
+        limits=limits,
     )
-    check_list.sort(key=lambda c: -STATUSES.index(c.status))
+
+
+def judged(
+    study: Study,
+    recipe: Recipe,
+    state: TubeState,
+    checks: list[Check],
+    found: tuple,
+    *,
+    precision: bool = True,
+    budget: ErrorBudget | None = None,
+    detection: tuple | None = None,
+    limits: Limits | None = None,
+    spectra: object | None = None,
+) -> Assessment:
+    """The assessment once every check is in: the verdict (:func:`precision_verdict`, then
+    :func:`with_failed_checks`) and the checks worst first. ``found`` = (params, true_theta, cramer_rao,
+    mc, profile); the keywords are the :class:`Assessment`'s fields of the same name."""
+    params, true_theta, cr, mc, prof = found
+    verdict, reason = with_failed_checks(*precision_verdict(study, params, cr, mc, prof, precision), checks)
     return Assessment(
         study.title,
         recipe,
-        model,
+        study.model,
         state,
-        tuple(check_list),
+        tuple(sorted(checks, key=lambda c: -STATUSES.index(c.status))),
         budget,
         params,
         true_theta,
@@ -258,21 +260,28 @@ def assess_study(
         reason,
         study.goal_se,
         study=study,
-        detection=det,
+        detection=detection,
         limits=limits,
+        spectra=spectra,
     )
 
 
-def _detection(study: Study, recipe: Recipe, seed: int, counts, fix: str | None):
-    """The detection power of the plan's alternative models, and the model-check check advising ``fix``;
-    ``counts`` = (trials, detection_trials): detection_trials simulated experiments per alternative
-    (default min(trials, POWER_TRIALS))."""
-    from .detection import ASSESS_FIX, POWER_TRIALS, model_check_finding, recipe_detection
+def _detection(study: Study, recipe: Recipe, seed: int, n_det: int, fix: str | None):
+    """The detection power of the plan's alternative models (``n_det`` simulated experiments per
+    alternative), and the model-check check advising ``fix``."""
+    from .detection import ASSESS_FIX, model_check_finding, recipe_detection
 
-    trials, detection_trials = counts
-    n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
     det = recipe_detection(study, recipe, np.random.default_rng(seed + 1), n_det)
     return det, model_check_finding(det, fix or ASSESS_FIX)
+
+
+def detection_count(run: AssessOptions) -> int:
+    """Simulated experiments per alternative model: ``detection_trials``, by default
+    min(trials, POWER_TRIALS)."""
+    from .detection import POWER_TRIALS
+
+    n = run["detection_trials"]
+    return min(run["trials"], POWER_TRIALS) if n is None else int(n)
 
 
 def _limits(study: Study, recipe: Recipe, state, budget, cr, lb_true, suggest: bool) -> Limits | None:

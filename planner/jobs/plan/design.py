@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, replace
+from typing import Unpack
 
 import numpy as np
 
@@ -49,6 +50,7 @@ from .detection import DESIGN_FIX, POWER_TRIALS
 from .even import even_series_for
 from .limits import target_se
 from .model_check import finish_model_check, guard
+from .options import STUDY_DESIGN_DEFAULTS, DesignOptions, StudyDesignOptions, with_defaults
 
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
 
@@ -108,7 +110,7 @@ class Design:
         return self.se_even / self.se_target if self.se_target > 0 else float("nan")
 
 
-def design(plan: Plan, **options) -> Design:
+def design(plan: Plan, **options: Unpack[StudyDesignOptions]) -> Design:
     """Choose each tube's volumes to resolve the target constant as precisely as possible.
 
     The plan is compiled once (:func:`planner.jobs.compile.compile_study`); ``options`` are those of
@@ -118,48 +120,64 @@ def design(plan: Plan, **options) -> Design:
     return design_study(compile_study(plan), **options)
 
 
-def design_study(
-    study: Study,
-    *,
-    tubes: int | None = None,
-    criterion: str | None = None,
-    robust: bool | None = None,
-    seed: int = 0,
-    volumetric: bool = True,
-    starts: int = 8,
-    check_model: bool | None = None,
-    prior_tubes: Recipe | None = None,
-) -> Design:
+def design_study(study: Study, **options: Unpack[StudyDesignOptions]) -> Design:
     """Choose each tube's volumes on the compiled plan's grid to resolve the target constant as precisely
     as possible.
 
-    Parameters
-    ----------
-    tubes, criterion, robust : override the plan's design keys.
-    seed : seed of the random starts of the exchange algorithm.
-    volumetric : include delivery and stock errors (False: photometric noise only — for analytic checks).
-    starts : random starts of the exchange algorithm.
-    check_model : guard against the plan's alternative models (default: the plan's ``design.check``);
-        False gives the target-optimal design alone.
-    prior_tubes : tubes measured before: their information (whitened rows in the same parameters and
-        nuisance factors as the candidates, at every prior node) is in hand, and the new tubes complete it
-        (Chaloner & Verdinelli 1995, Stat. Sci. 10:273); see :mod:`planner.jobs.plan.sequential`.
+    ``options`` (:class:`planner.jobs.plan.options.StudyDesignOptions`, each optional): ``tubes``,
+    ``criterion``, ``robust`` (the plan's design keys overridden), ``seed``, ``starts`` and
+    ``check_model`` as for every design; ``volumetric`` (False: photometric noise only) and
+    ``prior_tubes`` (tubes measured before, whose information the new tubes complete).
     """
-    n, crit, rob = _checked_request(study, tubes, criterion, robust)
+    run = with_defaults(options, STUDY_DESIGN_DEFAULTS)
+    seed, volumetric, prior_tubes = run["seed"], run["volumetric"], run["prior_tubes"]
+    n, crit, rob = design_request(study, run)
+    _check_fitted(study, n, crit)
     nodes = study.nodes(rob)
     notes: list[str] = []
     rec, ex, ap, n_grid, n_feas, final = _solve_within_budget(
-        study, nodes, crit, n, (seed, volumetric, starts), prior_tubes, notes
+        study, nodes, crit, n, (seed, volumetric, run["starts"]), prior_tubes, notes
     )
     rec, model_check, a = _guard_and_assess(
-        study, rec, final, crit, check_model, volumetric, seed, prior_tubes, notes
+        study, rec, final, crit, run["check_model"], volumetric, seed, prior_tubes, notes
     )
-    even = even_series_for(study, n)
     se_d = float(a.target_se) if a.target_se is not None else float("nan")
-    se_e = target_se(study, even)
-    eff = float(ex.efficiency) * float(ap.efficiency_lower_bound)
     # with tubes in hand the new batch is judged together with them (planner.jobs.plan.sequential)
     verdict, reason = _design_verdict(study, a, n) if prior_tubes is None else (None, "")
+    return designed(
+        study,
+        rec,
+        (n, crit, rob, seed),
+        (n_grid, n_feas, ex, ap),
+        a,
+        se_d,
+        notes,
+        model_check=model_check,
+        verdict=verdict,
+        verdict_reason=reason,
+        limits=a.limits if prior_tubes is None else None,
+    )
+
+
+def designed(
+    study: Study,
+    rec: Recipe,
+    asked: tuple[int, str, bool, int],
+    found: tuple,
+    a: Assessment,
+    se_design: float,
+    notes: list[str],
+    se=None,
+    **judged,
+) -> Design:
+    """The :class:`Design` of ``rec`` beside the even series of as many tubes, at the guess and across its
+    range. ``asked`` = (tubes, criterion, robust, seed); ``found`` = (n_candidates, n_feasible, exact,
+    approx) from the search; ``se(study, recipe, log_beta)`` one SE (default :func:`target_se`, one
+    wavelength); ``judged``: the model check, verdict, verdict_reason and limits."""
+    se = target_se if se is None else se
+    n, crit, rob, seed = asked
+    n_grid, n_feas, ex, ap = found
+    even = even_series_for(study, n)
     return Design(
         rec,
         crit,
@@ -169,27 +187,30 @@ def design_study(
         n_feas,
         ex,
         ap,
-        min(eff, 1.0),
-        se_d,
-        se_e,
-        se_across_guess(study, rec, even),
+        min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0),
+        se_design,
+        se(study, even),
+        se_across_guess(study, rec, even, se=se),
         study.target,
         tuple(notes),
         a,
-        model_check,
-        verdict,
-        reason,
-        a.limits if prior_tubes is None else None,
+        **judged,
     )
 
 
-def _checked_request(study: Study, tubes, criterion, robust) -> tuple[int, str, bool]:
-    """The number of tubes, the criterion and robustness asked for, after refusing what cannot be designed."""
-    n = check_count(tubes or study.tubes, "tubes", MAX_TUBES)
-    crit = criterion or study.criterion
+def design_request(study: Study, run: DesignOptions) -> tuple[int, str, bool]:
+    """The number of tubes, the criterion and the robustness asked for (the plan's where ``run`` leaves
+    them None), after refusing a number of tubes out of range or an unknown criterion."""
+    n = check_count(run["tubes"] or study.tubes, "tubes", MAX_TUBES)
+    crit = run["criterion"] or study.criterion
     if crit not in CRITERIA:
         raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
-    rob = study.robust if robust is None else bool(robust)
+    rob = study.robust if run["robust"] is None else bool(run["robust"])
+    return n, crit, rob
+
+
+def _check_fitted(study: Study, n: int, crit: str) -> None:
+    """Refuse a design for nothing fitted, for a target held fixed, or with fewer tubes than parameters."""
     params = study.params
     if params.size == 0:
         raise DesignError(
@@ -204,7 +225,6 @@ def _checked_request(study: Study, tubes, criterion, robust) -> tuple[int, str, 
             f"{plural(n, 'tube')} cannot determine the {params.size} fitted parameters "
             f"({', '.join(params.names)}): ask for at least {params.size} tubes"
         )
-    return n, crit, rob
 
 
 def _solve_within_budget(study: Study, nodes, crit: str, n: int, search, prior_tubes, notes: list[str]):

@@ -10,8 +10,8 @@ the factor analysis of simulated data matrices finds the model's number of absor
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
 from dataclasses import replace
+from typing import Unpack
 
 import numpy as np
 
@@ -26,15 +26,9 @@ from ...model.compiled import TubeState
 from ...model.spectra import spectra_readings
 from ..compile import true_constants
 from ..plan import checks as chk
-from ..plan.assess import (
-    DEFAULT_TRIALS,
-    STATUSES,
-    Assessment,
-    precision_verdict,
-    stock_and_glassware_checks,
-    with_failed_checks,
-)
-from ..plan.detection import ASSESS_FIX, POWER_TRIALS
+from ..plan.assess import Assessment, detection_count, judged, stock_and_glassware_checks
+from ..plan.detection import ASSESS_FIX
+from ..plan.options import ASSESS_DEFAULTS, AssessOptions, assess_run
 from .detection import spectra_detection, spectra_model_check
 from .facts import FactorOutlook, spectra_facts
 from .precision import (
@@ -49,37 +43,39 @@ FACTOR_TRIALS = 200  # simulated data matrices for the factor-analysis check
 FACTOR_GOAL = 0.80  # the check passes when the factor analysis finds the species in 4 of 5 experiments
 
 
-def assess_spectra(
-    study: Study,
-    recipe: Recipe,
-    *,
-    trials: int = DEFAULT_TRIALS,
-    seed: int = 0,
-    at: Mapping[str, float] | None = None,
-    profile_chi2: bool = True,
-    factors: bool = True,
-    model_check: bool = True,
-    detection_trials: int | None = None,
-    model_check_fix: str | None = None,
-    progress: Callable[[int, int], None] | None = None,
-) -> Assessment:
+class SpectraAssessOptions(AssessOptions, total=False):
+    """The options of a whole-spectrum assessment: those of every assessment and ``factors`` (False
+    skips the factor-analysis check; default True)."""
+
+    factors: bool
+
+
+SPECTRA_ASSESS_DEFAULTS: SpectraAssessOptions = {**ASSESS_DEFAULTS, "factors": True}
+
+
+def assess_spectra(study: Study, recipe: Recipe, **options: Unpack[SpectraAssessOptions]) -> Assessment:
     """Judge ``recipe`` read at every wavelength of the plan's window (see the module docstring).
 
-    ``model_check`` adds the model check with whole spectra (:mod:`.detection`) when the plan has
-    alternatives: ``detection_trials`` simulated experiments per alternative (default min(trials, 400)),
-    ``model_check_fix`` what its check advises."""
+    ``options`` (:class:`SpectraAssessOptions`, each optional): ``trials``, ``seed``, ``at``,
+    ``profile_chi2``, ``model_check``, ``detection_trials``, ``model_check_fix`` and ``progress`` as for
+    every assessment (:class:`planner.jobs.plan.options.AssessOptions`; the model check uses whole
+    spectra, :mod:`.detection`), and ``factors``."""
+    run = assess_run(options, SPECTRA_ASSESS_DEFAULTS)
+    trials, seed = run["trials"], run["seed"]
     model = study.model
     sm = spectra_model(study, recipe)
     params = sm.params
-    lb_true = true_constants(model, at)
+    lb_true = true_constants(model, run["at"])
     theta = pack(model, params, log_beta=lb_true)
     ex = expected(study, recipe, sm, lb_true)
     cr = spectra_cramer_rao(sm, ex.weights, theta) if params.size else None
     mc = prof = None
     rng = np.random.default_rng(seed)
     if cr is not None and trials > 0:
-        mc = spectra_monte_carlo(study.bench, recipe, sm, ex.weights, rng, trials, theta, progress=progress)
-    if cr is not None and profile_chi2 and params.target >= 0:
+        mc = spectra_monte_carlo(
+            study.bench, recipe, sm, ex.weights, rng, trials, theta, progress=run["progress"]
+        )
+    if cr is not None and run["profile_chi2"] and params.target >= 0:
         prof = spectra_profile(sm, ex.weights, theta)
     single = single_wavelengths(sm, ex, theta)
     state = _tube_table_state(ex)
@@ -91,12 +87,12 @@ def assess_spectra(
     if cr is not None:
         checks.append(_identifiability(cr))
     fa = None
-    if factors:
+    if run["factors"]:
         fa = factor_check(study, recipe, sm, ex, lb_true, np.random.default_rng(seed + 2))
         checks.append(fa[0])
     det: tuple = ()
-    if model_check and cr is not None and study.alternatives and params.target >= 0:
-        n_det = min(trials, POWER_TRIALS) if detection_trials is None else int(detection_trials)
+    if run["model_check"] and cr is not None and study.alternatives and params.target >= 0:
+        n_det = detection_count(run)
         det = spectra_detection(
             study,
             recipe,
@@ -107,27 +103,10 @@ def assess_spectra(
             above=expected_factors(sm, ex)[1],
             eligible=single.eligible,
         )
-        checks.append(spectra_model_check(det, model_check_fix or ASSESS_FIX))
-    verdict, reason = with_failed_checks(*precision_verdict(study, params, cr, mc, prof, True), checks)
-    checks.sort(key=lambda c: -STATUSES.index(c.status))
-    return Assessment(
-        study.title,
-        recipe,
-        model,
-        state,
-        tuple(checks),
-        None,
-        params,
-        theta,
-        cr,
-        mc,
-        prof,
-        verdict,
-        reason,
-        study.goal_se,
-        study=study,
-        detection=det or None,
-        spectra=spectra_facts(sm, ex, cr, single, fa[1] if fa else None),
+        checks.append(spectra_model_check(det, run["model_check_fix"] or ASSESS_FIX))
+    facts = spectra_facts(sm, ex, cr, single, fa[1] if fa else None)
+    return judged(
+        study, recipe, state, checks, (params, theta, cr, mc, prof), detection=det or None, spectra=facts
     )
 
 

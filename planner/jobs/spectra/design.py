@@ -20,18 +20,19 @@ from __future__ import annotations
 
 import math
 from dataclasses import replace
+from typing import Unpack
 
 import numpy as np
 
 from ...inference import approximate, exchange
-from ...inference.design_criteria import CRITERIA, DesignError
+from ...inference.design_criteria import DesignError
 from ...inference.study import Study
 from ..plan import checks as chk
 from ..plan.candidates import Candidates, candidate_tubes, neighbourhood, recipe_from_counts
-from ..plan.design import Design, se_across_guess
+from ..plan.design import Design, design_request, designed
 from ..plan.detection import DESIGN_FIX, POWER_TRIALS
-from ..plan.even import even_series_for
 from ..plan.model_check import finish_model_check
+from ..plan.options import DESIGN_DEFAULTS, DesignOptions, with_defaults
 from .assess import assess_spectra
 from .model_check import spectra_guard
 from .precision import target_se_spectra
@@ -41,25 +42,16 @@ from .rows import concentration_rows
 MAX_SPECTRA_CANDIDATES = 6000  # above this the grid is searched coarsely first, then refined locally
 
 
-def design_spectra(
-    study: Study,
-    *,
-    tubes: int | None = None,
-    criterion: str | None = None,
-    robust: bool | None = None,
-    seed: int = 0,
-    starts: int = 8,
-    check_model: bool | None = None,
-) -> Design:
+def design_spectra(study: Study, **options: Unpack[DesignOptions]) -> Design:
     """Choose each tube's volumes to resolve the target from whole spectra (see the module docstring).
 
-    ``check_model`` guards against the plan's alternative models (default: the plan's ``design.check``;
-    :mod:`.model_check`); False gives the target-optimal design alone."""
-    n = int(tubes or study.tubes)
-    crit = criterion or study.criterion
-    if crit not in CRITERIA:
-        raise DesignError(f"criterion '{crit}': choose one of {', '.join(CRITERIA)}")
-    rob = study.robust if robust is None else bool(robust)
+    ``options`` (:class:`planner.jobs.plan.options.DesignOptions`, each optional): ``tubes``,
+    ``criterion``, ``robust``, ``seed``, ``starts`` as for every design; ``check_model`` guards against the
+    plan's alternative models (default: the plan's ``design.check``; :mod:`.model_check`), False gives
+    the target-optimal design alone."""
+    run = with_defaults(options, DESIGN_DEFAULTS)
+    seed = run["seed"]
+    n, crit, rob = design_request(study, run)
     params = spectral_parameters(study)
     if params.size == 0 or (crit == "target" and params.target < 0):
         raise DesignError(
@@ -69,11 +61,12 @@ def design_spectra(
 
     nodes = prior_nodes(params, rob)
     notes: list[str] = []
-    cand, ex, ap, rec, idx, n_grid, n_feas = _search(study, nodes, crit, n, (seed, starts), notes)
+    cand, ex, ap, rec, idx, n_grid, n_feas = _search(study, nodes, crit, n, (seed, run["starts"]), notes)
     notes.append(
         "the search weighs candidates by their concentration-space information (exact when every tube's "
         "noise has the same shape over the window); every SE shown is the exact whole-spectrum bound"
     )
+    check_model = run["check_model"]
     use_check = study.check_weight > 0 if check_model is None else bool(check_model)
     outcome = None
     if use_check and study.alternatives and crit == "target":
@@ -88,30 +81,18 @@ def design_spectra(
         detection_trials=POWER_TRIALS if outcome is not None else 0,
         model_check_fix=DESIGN_FIX if outcome is not None else None,
     )
-    even = even_series_for(study, n)
-    se_d = target_se_spectra(study, rec)
-    se_e = target_se_spectra(study, even)
-    across = se_across_guess(study, rec, even, se=target_se_spectra)
-    eff = min(float(ex.efficiency) * float(ap.efficiency_lower_bound), 1.0)
     single = _single_wavelength_design(study, n, crit, rob, seed)
     a = replace(a, spectra=replace(a.spectra, se_single_wavelength_design=single, with_single_design=True))
-    return Design(
+    return designed(
+        study,
         rec,
-        crit,
-        rob,
-        seed,
-        n_grid,
-        n_feas,
-        ex,
-        ap,
-        eff,
-        se_d,
-        se_e,
-        tuple(across),
-        study.target,
-        tuple(notes),
+        (n, crit, rob, seed),
+        (n_grid, n_feas, ex, ap),
         a,
-        finish_model_check(study, outcome, a.detection) if outcome is not None else None,
+        target_se_spectra(study, rec),
+        notes,
+        se=target_se_spectra,
+        model_check=finish_model_check(study, outcome, a.detection) if outcome is not None else None,
         verdict=a.verdict,
         verdict_reason=a.verdict_reason,
     )

@@ -46,12 +46,12 @@ _ANIONS = {
     "so4": ("SO4", -2, "sulfate"),
     "oh": ("OH", -1, "hydroxide"),
     "oac": ("CH3COO", -1, "acetate"),
-    "ac": ("CH3COO", -1, "acetate"),
-    "ch3coo": ("CH3COO", -1, "acetate"),
     "clac": ("ClCH2COO", -1, "chloroacetate"),
-    "clch2coo": ("ClCH2COO", -1, "chloroacetate"),
     "hepes": ("C8H17N2O4S", -1, "HEPES"),
 }
+_SPELLINGS = {"ac": "oac", "ch3coo": "oac", "clch2coo": "clac"}
+"""Other ways plans write an anion of the table -> the table's core."""
+_ANIONS |= {spelling: _ANIONS[core] for spelling, core in _SPELLINGS.items()}
 _AS_SOLD = {("Na", "ClO4"): "NaClO4.H2O"}
 """Salts usually sold as a hydrate, weighed as such [common practice: sodium perchlorate monohydrate]."""
 _SOLUTIONS = {"H", "OH"}

@@ -71,6 +71,18 @@ def test_balanced_stocks_have_no_gap_and_pair_organic_salts():
     assert gap is None and solutes[0].formula == "CH3COONa"
 
 
+@pytest.mark.parametrize(
+    ("spelling", "written"),
+    [("OAc-", "OAc-"), ("Ac-", "OAc-"), ("CH3COO-", "OAc-"), ("ClCH2COO-", "ClAc-")],
+)
+def test_every_spelling_of_an_anion_makes_the_same_salt(spelling, written):
+    one, _ = stock_solutes({}, {"Na+": (0.10, 1), spelling: (0.10, -1)}, None, 50.0)
+    other, _ = stock_solutes({}, {"Na+": (0.10, 1), written: (0.10, -1)}, None, 50.0)
+    assert len(one) == len(other) == 1 and one[0].role == "salt"
+    # the same salt, weighed the same; only the ions keep the plan's spelling
+    assert (one[0].formula, one[0].name, one[0].mass_g) == (other[0].formula, other[0].name, other[0].mass_g)
+
+
 def test_acid_is_added_from_a_solution_not_weighed():
     solutes, gap = stock_solutes({}, {"H+": (0.50, 1), "NO3-": (0.50, -1)}, None, 100.0)
     assert gap is None and solutes[0].role == "solution" and solutes[0].name == "nitric acid"
