@@ -39,7 +39,7 @@ from ..compile import compile_study, expected_state, true_constants
 from . import checks as chk
 from .checks import Check
 from .limits import Limits, precision_shares, what_would_help
-from .options import STUDY_ASSESS_DEFAULTS, AssessOptions, StudyAssessOptions, assess_run
+from .options import STUDY_ASSESS_DEFAULTS, AssessOptions, StudyAssessOptions, assess_run, shows_keywords
 
 STATUSES = ("pass", "warn", "fail")
 VERDICTS = ("resolved", "bounded", "unresolved")
@@ -171,6 +171,7 @@ def assess_recipe(plan: Plan, recipe: Recipe) -> Assessment:
     return assess(plan, recipe, trials=0, precision=False)
 
 
+@shows_keywords(StudyAssessOptions, STUDY_ASSESS_DEFAULTS)
 def assess(plan: Plan, recipe: Recipe, **options: Unpack[StudyAssessOptions]) -> Assessment:
     """Judge ``recipe``: expected tubes, error budget, precision of log K, checks and verdict.
 
@@ -180,6 +181,7 @@ def assess(plan: Plan, recipe: Recipe, **options: Unpack[StudyAssessOptions]) ->
     return assess_study(compile_study(plan), recipe, **options)
 
 
+@shows_keywords(StudyAssessOptions, STUDY_ASSESS_DEFAULTS)
 def assess_study(study: Study, recipe: Recipe, **options: Unpack[StudyAssessOptions]) -> Assessment:
     """Judge ``recipe`` against the compiled plan: expected tubes, error budget, precision of log K, checks
     and verdict.

@@ -50,7 +50,7 @@ from .detection import DESIGN_FIX, POWER_TRIALS
 from .even import even_series_for
 from .limits import target_se
 from .model_check import finish_model_check, guard
-from .options import STUDY_DESIGN_DEFAULTS, DesignOptions, StudyDesignOptions, with_defaults
+from .options import STUDY_DESIGN_DEFAULTS, DesignOptions, StudyDesignOptions, shows_keywords, with_defaults
 
 __all__ = ["CRITERIA", "Design", "DesignError", "candidate_tubes", "design"]
 
@@ -110,6 +110,7 @@ class Design:
         return self.se_even / self.se_target if self.se_target > 0 else float("nan")
 
 
+@shows_keywords(StudyDesignOptions, STUDY_DESIGN_DEFAULTS)
 def design(plan: Plan, **options: Unpack[StudyDesignOptions]) -> Design:
     """Choose each tube's volumes to resolve the target constant as precisely as possible.
 
@@ -120,6 +121,7 @@ def design(plan: Plan, **options: Unpack[StudyDesignOptions]) -> Design:
     return design_study(compile_study(plan), **options)
 
 
+@shows_keywords(StudyDesignOptions, STUDY_DESIGN_DEFAULTS)
 def design_study(study: Study, **options: Unpack[StudyDesignOptions]) -> Design:
     """Choose each tube's volumes on the compiled plan's grid to resolve the target constant as precisely
     as possible.

@@ -5,13 +5,15 @@ spectra.
 :func:`planner.jobs.plan.design.design_study` and :func:`planner.jobs.spectra.design.design_spectra` take
 ``**options: Unpack[...]`` of these typed dicts, so a type checker or an editor sees every keyword with
 its type; :func:`with_defaults` fills in what the caller left out and refuses a keyword that is not
-there, as Python refuses one (TypeError).
+there, as Python refuses one (TypeError); :func:`shows_keywords` gives each function the signature that
+``help()``, ``inspect.signature`` and a notebook's completion show, every keyword with its default.
 """
 
 from __future__ import annotations
 
+import inspect
 from collections.abc import Callable, Mapping
-from typing import TypedDict, TypeVar, cast
+from typing import Any, TypedDict, TypeVar, cast
 
 from ...inputs.limits import MAX_TRIALS, check_count
 from ...inputs.recipe import Recipe
@@ -139,3 +141,29 @@ def assess_run(options: Options, defaults: Options) -> Options:
     run = dict(with_defaults(options, defaults))
     run["trials"] = check_count(run["trials"], "trials", MAX_TRIALS, least=0)
     return cast(Options, run)
+
+
+F = TypeVar("F", bound=Callable[..., Any])
+
+
+def shows_keywords(options: type, defaults: Mapping[str, object]) -> Callable[[F], F]:
+    """Decorator: the function's ``**options`` shown as the keyword-only parameters of ``options`` (a
+    typed dict) with their ``defaults``, so that ``help()`` and completion list them. Calls are unchanged."""
+
+    def show(func: F) -> F:
+        sig = inspect.signature(func)
+        kept = [p for p in sig.parameters.values() if p.kind is not inspect.Parameter.VAR_KEYWORD]
+        # a typed dict holds its annotations as forward references: shown as their text, like the rest
+        types = {
+            k: getattr(t, "__forward_arg__", t) for k, t in getattr(options, "__annotations__", {}).items()
+        }
+        keywords = [
+            inspect.Parameter(
+                k, inspect.Parameter.KEYWORD_ONLY, default=v, annotation=types.get(k, inspect.Parameter.empty)
+            )
+            for k, v in defaults.items()
+        ]
+        func.__signature__ = sig.replace(parameters=[*kept, *keywords])  # type: ignore[attr-defined]
+        return func
+
+    return show

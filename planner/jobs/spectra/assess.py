@@ -28,7 +28,7 @@ from ..compile import true_constants
 from ..plan import checks as chk
 from ..plan.assess import Assessment, detection_count, judged, stock_and_glassware_checks
 from ..plan.detection import ASSESS_FIX
-from ..plan.options import ASSESS_DEFAULTS, AssessOptions, assess_run
+from ..plan.options import ASSESS_DEFAULTS, AssessOptions, assess_run, shows_keywords
 from .detection import spectra_detection, spectra_model_check
 from .facts import FactorOutlook, spectra_facts
 from .precision import (
@@ -53,6 +53,7 @@ class SpectraAssessOptions(AssessOptions, total=False):
 SPECTRA_ASSESS_DEFAULTS: SpectraAssessOptions = {**ASSESS_DEFAULTS, "factors": True}
 
 
+@shows_keywords(SpectraAssessOptions, SPECTRA_ASSESS_DEFAULTS)
 def assess_spectra(study: Study, recipe: Recipe, **options: Unpack[SpectraAssessOptions]) -> Assessment:
     """Judge ``recipe`` read at every wavelength of the plan's window (see the module docstring).
 

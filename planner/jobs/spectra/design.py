@@ -32,7 +32,7 @@ from ..plan.candidates import Candidates, candidate_tubes, neighbourhood, recipe
 from ..plan.design import Design, design_request, designed
 from ..plan.detection import DESIGN_FIX, POWER_TRIALS
 from ..plan.model_check import finish_model_check
-from ..plan.options import DESIGN_DEFAULTS, DesignOptions, with_defaults
+from ..plan.options import DESIGN_DEFAULTS, DesignOptions, shows_keywords, with_defaults
 from .assess import assess_spectra
 from .model_check import spectra_guard
 from .precision import target_se_spectra
@@ -42,6 +42,7 @@ from .rows import concentration_rows
 MAX_SPECTRA_CANDIDATES = 6000  # above this the grid is searched coarsely first, then refined locally
 
 
+@shows_keywords(DesignOptions, DESIGN_DEFAULTS)
 def design_spectra(study: Study, **options: Unpack[DesignOptions]) -> Design:
     """Choose each tube's volumes to resolve the target from whole spectra (see the module docstring).
 

@@ -70,3 +70,24 @@ def test_both_designs_refuse_a_misspelt_keyword_or_a_bad_request(teaching_plan):
         design_spectra(study, tubes=-3)
     with pytest.raises(KplanError, match="criterion 'best'"):
         design_spectra(study, criterion="best")
+
+
+@pytest.mark.parametrize(
+    "func,defaults,first",
+    [
+        (assess, STUDY_ASSESS_DEFAULTS, ["plan", "recipe"]),
+        (assess_study, STUDY_ASSESS_DEFAULTS, ["study", "recipe"]),
+        (design_study, STUDY_DESIGN_DEFAULTS, ["study"]),
+        (assess_spectra, SPECTRA_ASSESS_DEFAULTS, ["study", "recipe"]),
+        (design_spectra, DESIGN_DEFAULTS, ["study"]),
+    ],
+)
+def test_help_and_completion_show_every_keyword_with_its_default(func, defaults, first):
+    """help(), inspect.signature and a notebook's completion list the keywords, not ``**options``."""
+    import inspect
+
+    params = inspect.signature(func).parameters
+    assert list(params)[: len(first)] == first and "options" not in params
+    shown = {k: p.default for k, p in params.items() if p.kind is inspect.Parameter.KEYWORD_ONLY}
+    assert shown == dict(defaults)
+    assert params["seed"].annotation == "int"
