@@ -132,9 +132,12 @@ def spectra_detection_json(d) -> dict:
 def alternative_json(d) -> dict:
     """One alternative model's detection: :func:`spectra_detection_json` for whole spectra, else
     :func:`detection_json` (as :data:`~planner.paper.json_out.SHAPES` picks by the class)."""
-    from ..jobs.spectra.detection import SpectraDetection
-
-    return spectra_detection_json(d) if isinstance(d, SpectraDetection) else detection_json(d)
+    # by the class's name, as SHAPES picks: importing the class would load the factor analysis and, with
+    # it, scipy (0.8 s of CPU) in every design of one wavelength
+    whole = (
+        f"{type(d).__module__}.{type(d).__qualname__}" == "planner.jobs.spectra.detection.SpectraDetection"
+    )
+    return spectra_detection_json(d) if whole else detection_json(d)
 
 
 def model_check_json(model_check) -> dict:

@@ -32,6 +32,8 @@ CASES = {
     ),
     f"assess {EX / 'cuvette-1to1.toml'} {EX / 'cuvette-1to1.csv'} --trials 20": HEAVY,
     f"design {EX / 'stepwise-weak.toml'} --json": HEAVY,
+    # a design with a model check: its JSON names each alternative's detection
+    f"design {EX / 'cuvette-1to1.toml'} --json": HEAVY,
 }
 
 
