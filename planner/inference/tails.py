@@ -88,14 +88,24 @@ def chi2_ppf(q, dof):
 
 
 def ncx2_sf(x, dof, nc):
-    """P(χ²_dof(nc) > x): the Poisson(nc/2) mixture of central χ²_(dof+2j) tails."""
+    """P(χ²_dof(nc) > x): the Poisson(nc/2) mixture of central χ²_(dof+2j) tails (A&S 26.4.25), every
+    term at once; the central tails by the recurrence Q(x | ν+2) = Q(x | ν) + (x/2)^(ν/2) e^(−x/2) /
+    Γ(ν/2 + 1) (A&S 26.4.8), a cumulative sum of positive terms."""
     k = _whole(dof)
     lam = 0.5 * float(nc)
     if lam <= 0:
         return chi2_sf(x, k)
-    jmax = int(lam + 12.0 * math.sqrt(lam) + 30)
-    out = np.zeros_like(np.asarray(x, dtype=float))
-    for j in range(jmax + 1):  # the Poisson weights are negligible beyond jmax
-        w = math.exp(j * math.log(lam) - lam - math.lgamma(j + 1))
-        out = out + w * chi2_sf(x, k + 2 * j)
-    return np.clip(out, 0.0, 1.0)
+    jmax = int(lam + 12.0 * math.sqrt(lam) + 30)  # the Poisson weights are negligible beyond jmax
+    j = np.arange(jmax + 1)
+    log_fact = np.concatenate([[0.0], np.cumsum(np.log(j[1:]))])  # log j!
+    weight = np.exp(j * math.log(lam) - lam - log_fact)
+    a = k / 2.0 + j[:-1]  # ν/2 of the tail each increment starts from
+    log_gamma = math.lgamma(k / 2.0 + 1.0) + np.concatenate([[0.0], np.cumsum(np.log(a[1:]))])  # log Γ(a+1)
+    y = np.maximum(np.asarray(x, dtype=float), 0.0)[..., None] / 2.0
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore", under="ignore"):
+        ly = np.log(np.where(y > 0, y, 1.0))
+        step = np.where(y > 0, np.exp(a * ly - y - log_gamma), 0.0)
+    tails = np.asarray(chi2_sf(x, k))[..., None] + np.concatenate(
+        [np.zeros(step.shape[:-1] + (1,)), np.cumsum(step, axis=-1)], axis=-1
+    )
+    return np.clip(np.sum(np.minimum(tails, 1.0) * weight, axis=-1), 0.0, 1.0)

@@ -30,3 +30,17 @@ def test_normal_cdf_matches_scipy():
 
     x = np.linspace(-8, 8, 33)
     np.testing.assert_allclose(norm_cdf(x), norm.cdf(x), rtol=1e-12, atol=1e-300)
+
+
+@pytest.mark.parametrize("dof", [1, 2, 3, 7, 40, 233])
+@pytest.mark.parametrize("nc", [0.01, 0.7, 9.0, 60.0, 400.0])
+def test_noncentral_tail_matches_scipy_stats_over_the_range_the_model_check_uses(dof, nc):
+    """The power of the χ² test: dof from 1 (one alternative, one reading) to a few hundred (whole
+    spectra), noncentrality from barely detectable to certain (the bisection of the model check spans
+    1e-2 … 1e3)."""
+    # source: scipy.stats.ncx2.sf, the reference implementation of the noncentral χ² distribution
+    crit = float(chi2.ppf(0.95, dof))
+    x = np.array([0.2 * crit, crit, 3.0 * crit + nc])
+    np.testing.assert_allclose(ncx2_sf(x, dof, nc), ncx2.sf(x, dof, nc), rtol=1e-8, atol=1e-13)
+    assert np.ndim(ncx2_sf(crit, dof, nc)) == 0
+    assert float(ncx2_sf(crit, dof, nc)) == pytest.approx(float(ncx2.sf(crit, dof, nc)), rel=1e-8, abs=1e-13)
