@@ -22,6 +22,15 @@ def test_help(capsys, monkeypatch):
     assert code == 0 and "assess" in out and "demo" in out
 
 
+def test_every_command_module_is_named_in_commands():
+    """A command module left out of COMMANDS would never be registered."""
+    from planner.cli import COMMANDS
+
+    cli_dir = ROOT / "planner" / "cli"
+    with_command = {f.stem for f in cli_dir.glob("*.py") if "@app.command" in f.read_text(encoding="utf-8")}
+    assert with_command == set(COMMANDS)
+
+
 def test_fresh_process_registers_what_the_line_needs(tmp_path):
     """In a fresh interpreter (as installed), help lists every command in alphabetical order, a command
     named on the line runs with only its own module registered, and a misspelt name gets typer's
