@@ -165,8 +165,14 @@ def project(C: np.ndarray, weights: Weights) -> Projection:
     A = weights.w.T[None, :, None, :] * np.swapaxes(C, 1, 2)[:, None, :, :]  # (T, W, s, n)
     Q, Rf = _orthonormalise(A)
     if r:
-        Y = (Q[..., None] * weights.h[None, :, None, :, :]).reshape(T, W * s, -1)
-        PS = weights.R.T @ np.matmul(np.swapaxes(Y, 1, 2), Y) @ weights.R
+        m = weights.h.shape[-1]
+        Y = np.empty((T, W, s, m * n))  # Y_λ with the causes c-major (contiguous products) ...
+        for c in range(m):
+            np.multiply(Q, weights.h[None, :, None, :, c], out=Y[..., c * n : (c + 1) * n])
+        Y = Y.reshape(T, W * s, m * n)
+        back = (np.arange(m)[None, :] * n + np.arange(n)[:, None]).ravel()  # ... and (i, c) again
+        G = np.matmul(np.swapaxes(Y, 1, 2), Y)[:, back][:, :, back]
+        PS = weights.R.T @ G @ weights.R
         L = np.linalg.cholesky(np.eye(r) + weights.StS - PS)
     else:
         L = np.zeros((T, 0, 0))
@@ -184,17 +190,17 @@ def _cho_solve(L: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.linalg.solve(np.swapaxes(Lx, -1, -2), y)[..., 0]
 
 
-def _projected(proj: Projection, weights: Weights, V: np.ndarray, causes: bool = True):
-    """For whitened data V (T, ..., W, n): QV, a = P⊥V (the per-column projection) and b = S̃ᵀ a
-    (None with ``causes`` False).
+def _projected(proj: Projection, weights: Weights, V: np.ndarray, out: np.ndarray | None = None):
+    """For whitened data V (T, ..., W, n): QV, a = P⊥V (the per-column projection, into ``out`` if given)
+    and b = S̃ᵀ a (None when ``out`` is given: the caller takes b of the whole stack).
 
     The augmented projection of [V; 0] is [a − P⊥S̃ M⁻¹ b; −M⁻¹ b], so inner products of two such vectors
     are aᵀa' − bᵀ M⁻¹ b' (the r × r system replaces every residual of length W n)."""
     extra = V.ndim - 3
     Q = proj.Q.reshape(proj.Q.shape[:1] + (1,) * extra + proj.Q.shape[1:])
     QV = np.einsum("...sn,...n->...s", Q, V)
-    a = V - np.einsum("...sn,...s->...n", Q, QV)
-    return QV, a, weights.causes(a) if causes else None
+    a = np.subtract(V, np.einsum("...sn,...s->...n", Q, QV), out=out)
+    return QV, a, weights.causes(a) if out is None else None
 
 
 @dataclass(frozen=True)
@@ -245,11 +251,13 @@ def linear_parameters(proj: Projection, coef: np.ndarray) -> np.ndarray:
     return np.swapaxes(E, 1, 2)
 
 
-def _at(parts: tuple, Yw: np.ndarray, weights: Weights, wT: np.ndarray) -> dict:
+def _at(
+    parts: tuple, Yw: np.ndarray, weights: Weights, wT: np.ndarray, proj: Projection | None = None
+) -> dict:
     """Everything at one θ batch from the basis ``parts`` (C, ∂C/∂θ, K, ∂K/∂θ) and the whitened data
-    Yw (T, W, n): projection, the data's projection (QV, a, b), z and χ²."""
+    Yw (T, W, n): projection (unless given), the data's projection (QV, a, b), z and χ²."""
     C, dC, K, dK = parts
-    proj = project(C, weights)
+    proj = project(C, weights) if proj is None else proj
     V = Yw - np.swapaxes(K, 1, 2) * wT
     QV, a, b = _projected(proj, weights, V)
     z = _cho_solve(proj.M_chol, b)
@@ -270,13 +278,12 @@ def _information(c: dict, weights: Weights, wT: np.ndarray) -> tuple[np.ndarray,
     :func:`_at` computed (one parameter at a time: P is a handful)."""
     E = _spectra(c, weights)
     dC, dK = c["dC"], c["dK"]
-    s, P = dC.shape[2:]
-    a_all = []
+    T, n, s, P = dC.shape
+    # a (T, P, W, n) laid out (T, W, P, n): the sums below run in the same order as over one stacked array
+    a = np.empty((T, wT.shape[0], P, n)).transpose(0, 2, 1, 3)
     for k in range(P):
         v = np.swapaxes(dK[..., k], 1, 2) + sum(E[:, j, :, None] * dC[:, None, :, j, k] for j in range(s))
-        a_all.append(_projected(c["proj"], weights, v * wT, causes=False)[1])  # (T, W, n)
-    # (T, P, W, n) laid out (T, W, P, n): the sums below run in the same order as over one stacked array
-    a = np.stack(a_all, axis=2).transpose(0, 2, 1, 3)
+        _projected(c["proj"], weights, v * wT, out=a[:, k])
     b = weights.causes(a)  # (T, P, r)
     Mb = _cho_solve(c["proj"].M_chol, b)
     H = np.einsum("tkwn,tlwn->tkl", a, a) - np.einsum("tkr,tlr->tkl", b, Mb)
@@ -386,12 +393,26 @@ class SeparableProblem:
         slot = self._rows.lookup(theta)
         new = np.flatnonzero(slot < 0)
         if new.size:
-            th = theta[new]
-            parts = self.basis(th) if self.rowwise else tuple(x[new] for x in self.basis(theta))
-            c = _at(parts, self._Yw[new], self.weights, self._wT)
-            self._rows.store(new, th, c["chi2"], *_information(c, self.weights, self._wT))
+            parts, proj = self._basis(theta, new)
+            c = _at(parts, self._Yw[new], self.weights, self._wT, proj)
+            self._rows.store(new, theta[new], c["chi2"], *_information(c, self.weights, self._wT))
             slot[new] = self._rows.newest[new]
         return self._rows.get(slot)
+
+    def _basis(self, theta: np.ndarray, rows: np.ndarray) -> tuple[tuple, Projection | None]:
+        """The basis at the rows ``rows`` of θ, and its projection when several rows share their θ (as
+        every trial does at the start): the basis and its projection depend on θ alone, so they are
+        computed once per distinct θ."""
+        if not self.rowwise:
+            return tuple(x[rows] for x in self.basis(theta)), None
+        th = theta[rows]
+        uniq, inv = np.unique(th, axis=0, return_inverse=True)
+        if 2 * uniq.shape[0] > th.shape[0]:
+            return self.basis(th), None
+        inv = inv.reshape(-1)
+        parts = self.basis(uniq)
+        p = project(parts[0], self.weights)
+        return tuple(x[inv] for x in parts), Projection(p.Q[inv], p.R[inv], p.M_chol[inv], p.rank[inv])
 
     def f(self, theta: np.ndarray) -> np.ndarray:
         chi2, _, _ = self._search(theta)
