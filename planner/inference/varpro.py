@@ -35,7 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-BLOCK = 64  # trials computed together: their temporaries stay in cache
+_BLOCK = 64  # trials computed together: their temporaries stay in cache
 _RANK_TOL = 1e-10  # a basis column whose remainder is below this share of its norm adds nothing new
 
 Basis = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]
@@ -393,8 +393,8 @@ class SeparableProblem:
             self._rows = _RowCache(T, P)
         slot = self._rows.lookup(theta)
         new = np.flatnonzero(slot < 0)
-        for start in range(0, new.size, BLOCK):
-            rows = new[start : start + BLOCK]
+        for start in range(0, new.size, _BLOCK):
+            rows = new[start : start + _BLOCK]
             parts, proj = self._basis(theta, rows)
             c = _at(parts, self._Yw[rows], self.weights, self._wT, proj)
             self._rows.store(rows, theta[rows], c["chi2"], *_information(c, self.weights, self._wT))
