@@ -222,6 +222,12 @@ def put_rows(a: np.ndarray, rows: np.ndarray, values) -> None:
     """``a[rows] = values`` (``rows`` sorted and unique)."""
     if rows.size == a.shape[0]:
         a[...] = values
+    elif a.ndim > 1 and a.flags.c_contiguous and rows.size:
+        # each row copied as one opaque item: numpy's fancy assignment of whole rows of a few numbers
+        # is several times slower than copying rows as single items of their byte length
+        row = np.dtype((np.void, a.itemsize * (a.size // a.shape[0])))
+        v = np.ascontiguousarray(np.broadcast_to(values, (rows.size,) + a.shape[1:]), dtype=a.dtype)
+        a.reshape(a.shape[0], -1).view(row)[rows, 0] = v.reshape(rows.size, -1).view(row)[:, 0]
     else:
         a[rows] = values
 
@@ -318,9 +324,11 @@ def conclude(b: Batch, p: Proposal, f1: np.ndarray, r1: np.ndarray, tol) -> tupl
         put_rows(b.jac_at, acc, False)
     else:
         acc = act[accept]
-        b.theta[acc], b.r[acc], b.fnorm[acc] = p.theta[accept], r1[accept], fn1[accept]
+        put_rows(b.theta, acc, p.theta[accept])
+        put_rows(b.r, acc, r1[accept])
+        b.fnorm[acc] = fn1[accept]
         if b.keep_f:
-            b.f[acc] = f1[accept]
+            put_rows(b.f, acc, f1[accept])
         b.jac_at[acc] = False
     put_rows(b.status, act, code)
     return acc, act[~accept & (code == 0)]

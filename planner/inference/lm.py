@@ -258,7 +258,7 @@ class _Evaluator:
             gauss_newton.store_normal(b, rows, weigh_jac(jac, rows))
             return
         tr_rows = rows[on_tr]
-        b.jac[tr_rows] = jac[on_tr]
+        put(b.jac, tr_rows, jac[on_tr])
         b.jac_at[tr_rows] = True
         if not on_tr.all():
             fast_rows = rows[~on_tr]
