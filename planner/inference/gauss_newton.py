@@ -44,8 +44,12 @@ class Batch:
     """The mutable state of one batched fit, shared by the fast path and the trust-region driver.
 
     theta (T, P), f (T, N) model values, r (T, N) weighted residuals, fnorm (T,) ‖r‖, status (T,)
-    (0 running, else a STATUS_MESSAGES code), n_iter (T,), jac (T, N, P) the raw Jacobian,
-    jac_at (T,) True where ``jac`` holds the Jacobian at the current theta, and damping (T,).
+    (0 running, else a STATUS_MESSAGES code), n_iter (T,), jac (T, N, P) the raw Jacobian of the
+    trust-region trials, jac_at (T,) True where the Jacobian at the current theta is in hand, and
+    damping (T,). A trial on the fast path keeps no Jacobian, only what its steps and covariance need
+    (the normal equations of :func:`store_normal`: colnorm (T, P), normal (T, P, P), grad (T, P)); the
+    trust-region path computes the Jacobian again for a trial it takes over. ``f`` is kept up to date
+    only where the model is evaluated on the whole batch or differentiated numerically (``keep_f``).
     """
 
     theta: np.ndarray
@@ -57,6 +61,30 @@ class Batch:
     jac: np.ndarray
     jac_at: np.ndarray
     damping: np.ndarray  # (T,) Marquardt's λ of the fast path, 0 for a Gauss–Newton step
+    colnorm: np.ndarray  # (T, P) column norms D of the weighted Jacobian (fast path)
+    normal: np.ndarray  # (T, P, P) scaled normal matrix D⁻¹ JᵀJ D⁻¹ (fast path)
+    grad: np.ndarray  # (T, P) scaled gradient D⁻¹ Jᵀ r (fast path)
+    keep_f: bool = True
+
+    @classmethod
+    def empty(cls, theta, f, r, fnorm, status, n_obs: int, keep_f: bool) -> Batch:
+        """A batch at its starting values, no step taken and no Jacobian in hand."""
+        n_trials, n_params = theta.shape
+        return cls(
+            theta,
+            f,
+            r,
+            fnorm,
+            status,
+            np.zeros(n_trials, dtype=int),
+            np.zeros((n_trials, n_obs, n_params)),
+            np.zeros(n_trials, dtype=bool),
+            np.zeros(n_trials),
+            np.ones((n_trials, n_params)),
+            np.zeros((n_trials, n_params, n_params)),
+            np.zeros((n_trials, n_params)),
+            keep_f,
+        )
 
 
 def _column_dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -78,15 +106,24 @@ def all_over_params(a: np.ndarray) -> np.ndarray:
     return reduce(np.logical_and, a.T)
 
 
-def _normal_equations(jw: np.ndarray, r: np.ndarray):
-    """Column norms c (k, P), scaled normal matrix A (k, P, P) (unit diagonal) and gradient g = Jsᵀr."""
+def dot_p(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Row dot products of (k, P) stacks: column by column for P ≤ 2 (several times faster than einsum,
+    and the same sum in the same order), einsum above (whose summation order differs)."""
+    if a.shape[-1] <= 2:
+        return reduce(np.add, (a * b).T)
+    return np.einsum("kp,kp->k", a, b)
+
+
+def _normal_equations(jw: np.ndarray, r: np.ndarray | None):
+    """Column norms c (k, P), scaled normal matrix A (k, P, P) (unit diagonal) and gradient g = Jsᵀr
+    (zeros when r is None)."""
     k, _, n_params = jw.shape
     cols = [jw[:, :, p] for p in range(n_params)]
     c = np.empty((k, n_params))
     g = np.empty((k, n_params))
     for p, x in enumerate(cols):  # column by column: einsum over the short axis beats a reduction
         c[:, p] = _column_dots(x, x)
-        g[:, p] = _column_dots(x, r)
+        g[:, p] = 0.0 if r is None else _column_dots(x, r)
     np.sqrt(c, out=c)
     safe = np.where(c > 0, c, 1.0)
     g /= safe
@@ -139,17 +176,40 @@ def scaled_inverse(jw: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     ``(JᵀJ)⁻¹ = D⁻¹ A⁻¹ D⁻¹`` with ``A = D⁻¹ JᵀJ D⁻¹``; the inverse has relative error about
     ε / pivot (Higham 2002, Accuracy and Stability of Numerical Algorithms, §10.1), so the caller uses
     it only where the pivot is comfortably large."""
-    c, a, _ = _normal_equations(jw, jw[:, :, 0])
-    k, n_params = c.shape
+    c, a, _ = _normal_equations(jw, None)
+    inv, piv = inverse_of(a)
+    return c, inv, piv
+
+
+def inverse_of(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(inverse (k, P, P), smallest LDLᵀ pivot (k,)) of scaled normal matrices A (unit diagonal)."""
+    k, n_params = a.shape[:2]
     if n_params == 2:
         a01 = a[:, 0, 1]
         piv = 1.0 - a01 * a01
         inv = np.empty((k, 2, 2))
         inv[:, 0, 0] = inv[:, 1, 1] = 1.0 / np.where(piv > 0, piv, 1.0)
         inv[:, 0, 1] = inv[:, 1, 0] = -a01 * inv[:, 0, 0]
-        return c, inv, piv
+        return inv, piv
     cols = [_ldl_solve(a, np.broadcast_to(np.eye(n_params)[j], (k, n_params))) for j in range(n_params)]
-    return c, np.stack([x for x, _ in cols], axis=2), cols[0][1]
+    return np.stack([x for x, _ in cols], axis=2), cols[0][1]
+
+
+def normal_matrix(jw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(column norms c (k, P), scaled normal matrix A (k, P, P)) of weighted Jacobians."""
+    c, a, _ = _normal_equations(jw, None)
+    return c, a
+
+
+def store_normal(b: Batch, rows: np.ndarray, jw: np.ndarray) -> None:
+    """Keep the normal equations of the weighted Jacobians ``jw`` of fast trials ``rows`` at their current
+    point: all their Gauss–Newton steps (while χ² refuses a step, the point and these stay) and their
+    covariance need."""
+    c, a, g = _normal_equations(jw, take_rows(b.r, rows))
+    put_rows(b.colnorm, rows, c)
+    put_rows(b.normal, rows, a)
+    put_rows(b.grad, rows, g)
+    put_rows(b.jac_at, rows, True)
 
 
 def take_rows(a: np.ndarray, rows: np.ndarray) -> np.ndarray:
@@ -162,6 +222,12 @@ def put_rows(a: np.ndarray, rows: np.ndarray, values) -> None:
     """``a[rows] = values`` (``rows`` sorted and unique)."""
     if rows.size == a.shape[0]:
         a[...] = values
+    elif a.ndim > 1 and a.flags.c_contiguous and rows.size:
+        # each row copied as one opaque item: numpy's fancy assignment of whole rows of a few numbers
+        # is several times slower than copying rows as single items of their byte length
+        row = np.dtype((np.void, a.itemsize * (a.size // a.shape[0])))
+        v = np.ascontiguousarray(np.broadcast_to(values, (rows.size,) + a.shape[1:]), dtype=a.dtype)
+        a.reshape(a.shape[0], -1).view(row)[rows, 0] = v.reshape(rows.size, -1).view(row)[:, 0]
     else:
         a[rows] = values
 
@@ -177,14 +243,14 @@ class Proposal:
     c: np.ndarray  # column norms D
 
 
-def propose(b: Batch, act: np.ndarray, weigh_jac, lo, hi, gtol: float) -> tuple[Proposal, np.ndarray]:
-    """Gauss–Newton steps for the fast trials ``act``; returns (the clean proposals, rows handed over).
+def propose(b: Batch, act: np.ndarray, lo, hi, gtol: float) -> tuple[Proposal, np.ndarray]:
+    """Gauss–Newton steps for the fast trials ``act`` (from their stored normal equations); returns (the
+    clean proposals, rows handed over).
 
     Trials whose gradient already passes Moré's gtol test stop here (status 4) at their current point;
     trials whose step is not clean are returned for the trust-region iteration, unchanged."""
-    jw = weigh_jac(take_rows(b.jac, act), act)
     fn0 = take_rows(b.fnorm, act)
-    c, a, g = _normal_equations(jw, take_rows(b.r, act))
+    c, a, g = take_rows(b.colnorm, act), take_rows(b.normal, act), take_rows(b.grad, act)
     # Moré's gtol: largest |cos| between the residual and a Jacobian column, at the current point
     gnorm = np.where(fn0 > 0, max_over_params(np.abs(g)) / np.where(fn0 > 0, fn0, 1.0), 0.0)
     lam = take_rows(b.damping, act)
@@ -235,13 +301,13 @@ def conclude(b: Batch, p: Proposal, f1: np.ndarray, r1: np.ndarray, tol) -> tupl
     fn1 = np.sqrt(np.einsum("kn,kn->k", r1, r1))
     shrink = fn1 / fn0
     actred = np.where(shrink < 10.0, 1.0 - shrink * shrink, -1.0)  # NaN: −1, as Moré
-    qq = np.einsum("kp,kp->k", q, q)
-    prered = (take_rows(b.damping, act) * qq - np.einsum("kp,kp->k", g, q)) / (fn0 * fn0)
+    qq = dot_p(q, q)
+    prered = (take_rows(b.damping, act) * qq - dot_p(g, q)) / (fn0 * fn0)
     ratio = actred / prered
     accept = ratio >= _ACCEPT_RATIO
     dth = c * p.theta
     # Moré's xtol test for an accepted undamped step with ratio >= 3/4: Δ = 2‖D p‖ <= xtol ‖D θ‖
-    x_ok = (ratio >= 0.75) & (4.0 * qq <= xtol**2 * np.einsum("kp,kp->k", dth, dth))
+    x_ok = (ratio >= 0.75) & (4.0 * qq <= xtol**2 * dot_p(dth, dth))
     small = (np.abs(actred) <= ftol) & (prered <= ftol) & (ratio <= 2.0)
     code = np.where(small, np.where(x_ok, 3, 1), np.where(x_ok, 2, 0))
     rest = code == 0
@@ -251,13 +317,18 @@ def conclude(b: Batch, p: Proposal, f1: np.ndarray, r1: np.ndarray, tol) -> tupl
     if accept.all():
         acc = act
         put_rows(b.theta, acc, p.theta)
-        put_rows(b.f, acc, f1)
+        if b.keep_f:
+            put_rows(b.f, acc, f1)
         put_rows(b.r, acc, r1)
         put_rows(b.fnorm, acc, fn1)
         put_rows(b.jac_at, acc, False)
     else:
         acc = act[accept]
-        b.theta[acc], b.f[acc], b.r[acc], b.fnorm[acc] = p.theta[accept], f1[accept], r1[accept], fn1[accept]
+        put_rows(b.theta, acc, p.theta[accept])
+        put_rows(b.r, acc, r1[accept])
+        b.fnorm[acc] = fn1[accept]
+        if b.keep_f:
+            put_rows(b.f, acc, f1[accept])
         b.jac_at[acc] = False
     put_rows(b.status, act, code)
     return acc, act[~accept & (code == 0)]

@@ -150,8 +150,8 @@ def fit_many(
     with np.errstate(all="ignore"):  # wild trial points may overflow; such steps are rejected
         ev = _Evaluator(model, jac, jac_kind, bool(rowwise), (n_trials, n_obs, n_params), lo, hi)
         b = ev.start(theta, yy, weigh_res)
-        _iterate(b, ev, yy, weigh_res, weigh_jac, lo, hi, tols, rcond)
-        return _finish(b, ev, weigh_jac, dof, bool(scale_cov), rcond)
+        slow = _iterate(b, ev, yy, weigh_res, weigh_jac, lo, hi, tols, rcond)
+        return _finish(b, ev, slow, weigh_jac, dof, bool(scale_cov), rcond)
 
 
 def _checked_settings(n_obs: int, n_params: int, scale_cov: bool, max_iter, tolerances: dict) -> int:
@@ -238,55 +238,66 @@ class _Evaluator:
         return out if self.rowwise or rows.size == self.n_trials else out.take(rows, axis=0)
 
     def start(self, theta: np.ndarray, yy: np.ndarray, weigh_res) -> Batch:
-        """Model, residuals and (for the running trials) the Jacobian at the starting values."""
-        n_trials = self.n_trials
-        all_rows = np.arange(n_trials)
+        """Model and residuals at the starting values (the Jacobians follow in ``refresh``)."""
         f = self._call_model(theta) if self.rowwise else self._call_model_whole(theta)
-        r = weigh_res(f - yy, all_rows)
+        r = weigh_res(f - yy, np.arange(self.n_trials))
         fnorm = row_norms(r)
         status = np.where(np.isfinite(fnorm), 0, -1)
-        b = Batch(
-            theta,
-            f,
-            r,
-            fnorm,
-            status,
-            np.zeros(n_trials, dtype=int),
-            np.zeros((n_trials, self.n_obs, self.n_params)),
-            np.zeros(n_trials, dtype=bool),
-            np.zeros(n_trials),
-        )
-        self.batch = b
-        rows = np.flatnonzero(status == 0)
-        if rows.size:
-            b.jac[rows] = self.jac_rows(theta.take(rows, axis=0), rows, f.take(rows, axis=0))
-            b.jac_at[rows] = True
-        return b
+        keep_f = not self.rowwise or self.kind != "analytic"  # f is read back only then
+        self.batch = Batch.empty(theta, f, r, fnorm, status, self.n_obs, keep_f)
+        return self.batch
+
+    def refresh(self, rows: np.ndarray, slow: np.ndarray, weigh_jac) -> None:
+        """The Jacobian at the current point of trials ``rows``, in one call: kept whole for the
+        trust-region trials, as its normal equations for those on the fast path."""
+        b = self.batch
+        assert b is not None
+        jac = self.jac_rows(take(b.theta, rows), rows, take(b.f, rows))
+        on_tr = take(slow, rows)
+        if not on_tr.any():
+            gauss_newton.store_normal(b, rows, weigh_jac(jac, rows))
+            return
+        tr_rows = rows[on_tr]
+        put(b.jac, tr_rows, jac[on_tr])
+        b.jac_at[tr_rows] = True
+        if not on_tr.all():
+            fast_rows = rows[~on_tr]
+            gauss_newton.store_normal(b, fast_rows, weigh_jac(jac[~on_tr], fast_rows))
 
 
-def _iterate(b: Batch, ev: _Evaluator, yy, weigh_res, weigh_jac, lo, hi, tol, rcond) -> None:
-    """Passes over the running trials until every one has stopped; updates ``b`` in place.
+def _iterate(b: Batch, ev: _Evaluator, yy, weigh_res, weigh_jac, lo, hi, tol, rcond) -> np.ndarray:
+    """Passes over the running trials until every one has stopped; updates ``b`` in place and returns
+    which trials ended on the trust-region path.
 
     Each pass moves every running trial by one step, one model call for all of them: a Gauss–Newton
     step for the trials on the fast path, a trust-region step (Moré 1978) for the others. A trial moves
-    to the trust-region path for good as soon as its Gauss–Newton step is not clean."""
+    to the trust-region path for good as soon as its Gauss–Newton step is not clean; it sits out the
+    pass while its Jacobian is computed (the steps it takes, and so its result, are the same)."""
     n_trials = b.theta.shape[0]
     tr = _TrustRegion(b, lo, hi, rcond, tol)
     slow = np.full(n_trials, not _FAST_PATH)  # trials on the trust-region path
     no_rows = np.zeros(0, dtype=int)
+    need = np.flatnonzero(b.status == 0)
     while True:
+        if need.size:  # Jacobians at the points the last pass moved to (all, on the first pass)
+            ev.refresh(need, slow, weigh_jac)
         fast = np.flatnonzero((b.status == 0) & ~slow)
         prop = None
         if fast.size:
             tired = b.n_iter[fast] >= gauss_newton.MAX_PASSES
-            slow[fast[tired]] = True
-            prop, out = gauss_newton.propose(b, fast[~tired], weigh_jac, lo, hi, tol[3])
+            out = fast[tired]
+            prop, unclean = gauss_newton.propose(b, fast[~tired], lo, hi, tol[3])
+            out = np.union1d(out, unclean) if out.size else unclean
             slow[out] = True
-        tr.factorise(np.flatnonzero((b.status == 0) & slow & tr.fresh), weigh_jac)
-        act = np.flatnonzero((b.status == 0) & slow)
+            b.jac_at[out] = False  # the trust-region path needs the Jacobian itself
+        tr.factorise(np.flatnonzero((b.status == 0) & slow & tr.fresh & b.jac_at), weigh_jac)
+        act = np.flatnonzero((b.status == 0) & slow & b.jac_at)
         g_rows = no_rows if prop is None else prop.act
         if act.size == 0 and g_rows.size == 0:
-            break
+            need = np.flatnonzero((b.status == 0) & ~b.jac_at)
+            if need.size:
+                continue
+            return slow
         th_tr = tr.propose(act) if act.size else np.zeros((0, b.theta.shape[1]))
         if prop is None or not act.size:
             rows, th = (act, th_tr) if prop is None else (g_rows, prop.theta)
@@ -303,13 +314,12 @@ def _iterate(b: Batch, ev: _Evaluator, yy, weigh_res, weigh_jac, lo, hi, tol, rc
         k = g_rows.size
         if prop is not None and k:
             moved, rejected = gauss_newton.conclude(b, prop, f_new[:k], r_new[:k], tol)
-            slow[gauss_newton.damp(b, moved, rejected)] = True
+            handed = gauss_newton.damp(b, moved, rejected)
+            slow[handed] = True
+            b.jac_at[handed] = False
         if act.size:
             tr.conclude(act, th_tr, f_new[k:], r_new[k:])
         need = np.flatnonzero((b.status == 0) & ~b.jac_at)
-        if need.size:
-            put(b.jac, need, ev.jac_rows(take(b.theta, need), need, take(b.f, need)))
-            put(b.jac_at, need, True)
 
 
 class _TrustRegion:
@@ -454,7 +464,7 @@ class _TrustRegion:
         put(b.status, act, code)
 
 
-def _finish(b: Batch, ev: _Evaluator, weigh_jac, dof: int, scale_cov: bool, rcond: float) -> FitResult:
+def _finish(b: Batch, ev: _Evaluator, slow, weigh_jac, dof: int, scale_cov: bool, rcond: float) -> FitResult:
     """Covariance from the Jacobian at the final estimates (computed only where not yet in hand)."""
     theta, status, n_trials, n_params = b.theta, b.status, ev.n_trials, ev.n_params
     chi2 = b.fnorm**2
@@ -462,13 +472,19 @@ def _finish(b: Batch, ev: _Evaluator, weigh_jac, dof: int, scale_cov: bool, rcon
     finite = all_over_params(np.isfinite(theta)) & np.isfinite(chi2)
     missing = np.flatnonzero(finite & ~b.jac_at)
     if missing.size:
-        b.jac[missing] = ev.jac_rows(take(theta, missing), missing, take(b.f, missing))
+        ev.refresh(missing, slow, weigh_jac)
     rows = np.flatnonzero(finite)
+    colnorm = np.zeros((0, n_params))
     if rows.size:
-        jw = weigh_jac(take(b.jac, rows), rows)
+        # the scaled normal matrices: kept by the fast path, from the Jacobian for the trust-region trials
+        c, a = take(b.colnorm, rows), take(b.normal, rows)
+        on_tr = take(slow, rows)
+        if on_tr.any():
+            c, a = c.copy(), a.copy()
+            c[on_tr], a[on_tr] = gauss_newton.normal_matrix(weigh_jac(b.jac[rows[on_tr]], rows[on_tr]))
         # well-conditioned rows (most of a Monte Carlo batch): the inverse of the column-scaled normal
         # matrix is accurate to ε / pivot; the others take the SVD route below
-        c, inv, pivot = gauss_newton.scaled_inverse(jw)
+        inv, pivot = gauss_newton.inverse_of(a)
         easy = (pivot > _COV_PIVOT_MIN) & all_over_params(c > 0)
         if easy.any():
             e_rows, d = rows[easy], c[easy]
@@ -476,9 +492,14 @@ def _finish(b: Batch, ev: _Evaluator, weigh_jac, dof: int, scale_cov: bool, rcon
             if scale_cov:
                 unit = unit * (take(chi2, e_rows) / dof)[:, None, None]
             put(cov, e_rows, unit)
-        rows, jw, colnorm = rows[~easy], jw[~easy], c[~easy]
+        rows, colnorm = rows[~easy], c[~easy]
         ok = all_over_params(np.isfinite(colnorm))
-        rows, jw, colnorm = rows[ok], jw[ok], colnorm[ok]
+        rows, colnorm = rows[ok], colnorm[ok]
+    if rows.size:
+        fast = rows[~slow[rows]]  # ill-conditioned on the fast path (rare): the Jacobian itself
+        if fast.size:
+            b.jac[fast] = ev.jac_rows(take(theta, fast), fast, take(b.f, fast))
+        jw = weigh_jac(b.jac[rows], rows)
     if rows.size:
         # column equilibration before the SVD keeps the inverse accurate when parameters differ
         # in magnitude by many decades (van der Sluis 1969, Numer. Math. 14:14)

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .gauss_newton import all_over_params
+from .gauss_newton import all_over_params, dot_p
 
 EPS = float(np.finfo(float).eps)
 TINY = float(np.finfo(float).tiny)
@@ -65,8 +65,7 @@ def row_norms(a: np.ndarray) -> np.ndarray:
     return np.sqrt(np.einsum("...n,...n->...", a, a))
 
 
-def dot_p(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    return np.einsum("kp,kp->k", a, b)
+__all__ = ["EPS", "TINY", "dot_p", "factorise", "finite_difference_jac", "lm_parameter", "row_norms"]
 
 
 def jacobi_svd_rows(bt: np.ndarray, max_sweeps: int = 40) -> tuple[np.ndarray, np.ndarray]:

@@ -22,7 +22,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import least_squares
 
-from planner.inference import lm
+from planner.inference import gauss_newton, lm
 from planner.inference.fit_result import STATUS_MESSAGES, FitError, FitResult
 from planner.inference.lm import fit_many, fit_one
 from planner.paper.json_out import to_json
@@ -452,6 +452,39 @@ def test_fast_path_gives_the_trust_region_answers(monkeypatch, start, sd, tol):
     assert np.abs(fast.theta[:, 0] - slow.theta[:, 0]).max() <= 1e-8
     np.testing.assert_allclose(fast.se, slow.se, rtol=1e-6)
     np.testing.assert_allclose(fast.chi2, slow.chi2, rtol=1e-9)
+
+
+def test_covariance_is_that_of_the_jacobian_at_the_estimates():
+    # source: numpy.linalg.inv of s² JᵀJ, J the analytic Jacobian evaluated afresh at the returned
+    # estimates (the covariance's definition, NIST StRD convention). Half the trials start near (they
+    # finish on the fast path), half far off (they outlast its passes and finish on the trust-region
+    # path), so the covariances kept by both paths are checked.
+    sd = 0.003
+    _, y = _binding_batch(400, (2.0, 12000.0), sd, seed=8)
+    theta0 = np.where(np.arange(400)[:, None] % 2, [2.0, 12000.0], [1.0, 30000.0])
+    res = fit_many(isotherm, theta0, y, jac=isotherm_jac, sigma=np.full(L_TOT_M.size, sd), rowwise=True)
+    assert res.converged.all()
+    on_tr = res.n_iter > gauss_newton.MAX_PASSES
+    assert on_tr[::2].all() and not on_tr[1::2].any()
+    jw = isotherm_jac(res.theta) / sd
+    ref = np.linalg.inv(np.einsum("tnp,tnq->tpq", jw, jw)) * (res.chi2 / res.dof)[:, None, None]
+    np.testing.assert_allclose(res.cov, ref, rtol=1e-9)
+
+
+@pytest.mark.parametrize("shape", [(40,), (40, 8), (40, 8, 3), (40, 2, 2)])
+def test_put_rows_equals_fancy_assignment(shape):
+    # source: numpy's own fancy-index assignment a[rows] = values, the reference
+    rng = np.random.default_rng(3)
+    rows = np.flatnonzero(rng.random(shape[0]) < 0.6)
+    for values in (rng.standard_normal((rows.size,) + shape[1:]), 7.5):
+        a = rng.standard_normal(shape)
+        ref = a.copy()
+        ref[rows] = values
+        gauss_newton.put_rows(a, rows, values)
+        np.testing.assert_array_equal(a, ref)
+    flags = np.zeros(shape[0], dtype=bool)
+    gauss_newton.put_rows(flags, rows, True)
+    np.testing.assert_array_equal(flags, np.isin(np.arange(shape[0]), rows))
 
 
 def test_rowwise_evaluates_only_running_trials():
