@@ -167,10 +167,9 @@ def project(C: np.ndarray, weights: Weights) -> Projection:
     Q, Rf = _orthonormalise(A)
     if r:
         m = weights.h.shape[-1]
-        Y = np.empty((T, W, s, m * n))  # Y_λ with the causes c-major (contiguous products) ...
-        for c in range(m):
-            np.multiply(Q, weights.h[None, :, None, :, c], out=Y[..., c * n : (c + 1) * n])
-        Y = Y.reshape(T, W * s, m * n)
+        h_cm = np.ascontiguousarray(weights.h.transpose(0, 2, 1))  # (W, m, n)
+        # Y_λ with the causes c-major (contiguous products) ...
+        Y = (Q[:, :, :, None, :] * h_cm[None, :, None, :, :]).reshape(T, W * s, m * n)
         back = (np.arange(m)[None, :] * n + np.arange(n)[:, None]).ravel()  # ... and (i, c) again
         G = np.matmul(np.swapaxes(Y, 1, 2), Y)[:, back][:, :, back]
         PS = weights.R.T @ G @ weights.R
