@@ -35,6 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+_BLOCK = 64  # trials computed together: their temporaries stay in cache
 _RANK_TOL = 1e-10  # a basis column whose remainder is below this share of its norm adds nothing new
 
 Basis = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]
@@ -165,8 +166,13 @@ def project(C: np.ndarray, weights: Weights) -> Projection:
     A = weights.w.T[None, :, None, :] * np.swapaxes(C, 1, 2)[:, None, :, :]  # (T, W, s, n)
     Q, Rf = _orthonormalise(A)
     if r:
-        Y = (Q[..., None] * weights.h[None, :, None, :, :]).reshape(T, W * s, -1)
-        PS = weights.R.T @ np.matmul(np.swapaxes(Y, 1, 2), Y) @ weights.R
+        m = weights.h.shape[-1]
+        h_cm = np.ascontiguousarray(weights.h.transpose(0, 2, 1))  # (W, m, n)
+        # Y_λ with the causes c-major (contiguous products) ...
+        Y = (Q[:, :, :, None, :] * h_cm[None, :, None, :, :]).reshape(T, W * s, m * n)
+        back = (np.arange(m)[None, :] * n + np.arange(n)[:, None]).ravel()  # ... and (i, c) again
+        G = np.matmul(np.swapaxes(Y, 1, 2), Y)[:, back][:, :, back]
+        PS = weights.R.T @ G @ weights.R
         L = np.linalg.cholesky(np.eye(r) + weights.StS - PS)
     else:
         L = np.zeros((T, 0, 0))
@@ -184,16 +190,17 @@ def _cho_solve(L: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.linalg.solve(np.swapaxes(Lx, -1, -2), y)[..., 0]
 
 
-def _projected(proj: Projection, weights: Weights, V: np.ndarray):
-    """For whitened data V (T, ..., W, n): QV, a = P⊥V (the per-column projection) and b = S̃ᵀ a.
+def _projected(proj: Projection, weights: Weights, V: np.ndarray, out: np.ndarray | None = None):
+    """For whitened data V (T, ..., W, n): QV, a = P⊥V (the per-column projection, into ``out`` if given)
+    and b = S̃ᵀ a (None when ``out`` is given: the caller takes b of the whole stack).
 
     The augmented projection of [V; 0] is [a − P⊥S̃ M⁻¹ b; −M⁻¹ b], so inner products of two such vectors
     are aᵀa' − bᵀ M⁻¹ b' (the r × r system replaces every residual of length W n)."""
     extra = V.ndim - 3
     Q = proj.Q.reshape(proj.Q.shape[:1] + (1,) * extra + proj.Q.shape[1:])
     QV = np.einsum("...sn,...n->...s", Q, V)
-    a = V - np.einsum("...sn,...s->...n", Q, QV)
-    return QV, a, weights.causes(a)
+    a = np.subtract(V, np.einsum("...sn,...s->...n", Q, QV), out=out)
+    return QV, a, weights.causes(a) if out is None else None
 
 
 @dataclass(frozen=True)
@@ -244,6 +251,79 @@ def linear_parameters(proj: Projection, coef: np.ndarray) -> np.ndarray:
     return np.swapaxes(E, 1, 2)
 
 
+def _at(
+    parts: tuple, Yw: np.ndarray, weights: Weights, wT: np.ndarray, proj: Projection | None = None
+) -> dict:
+    """Everything at one θ batch from the basis ``parts`` (C, ∂C/∂θ, K, ∂K/∂θ) and the whitened data
+    Yw (T, W, n): projection (unless given), the data's projection (QV, a, b), z and χ²."""
+    C, dC, K, dK = parts
+    proj = project(C, weights) if proj is None else proj
+    V = Yw - np.swapaxes(K, 1, 2) * wT
+    QV, a, b = _projected(proj, weights, V)
+    z = _cho_solve(proj.M_chol, b)
+    chi2 = np.einsum("twn,twn->t", a, a) - np.einsum("tr,tr->t", b, z)
+    return dict(proj=proj, V=V, a=a, b=b, z=z, QV=QV, chi2=np.maximum(chi2, 0.0), dC=dC, dK=dK)
+
+
+def _spectra(c: dict, weights: Weights) -> np.ndarray:
+    """E (T, s, W) from what :func:`_at` computed (stored in ``c`` on first use)."""
+    if "E" not in c:
+        coef = c["QV"] - np.einsum("twsn,twn->tws", c["proj"].Q, weights.spread(c["z"]))
+        c["E"] = linear_parameters(c["proj"], coef)
+    return c["E"]
+
+
+def _information(c: dict, weights: Weights, wT: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(JᵀJ (T, P, P), Jᵀr (T, P)) with Kaufman's Jacobian J = P⊥_aug[w ∘ ∂(K + C E)/∂θ; 0], from what
+    :func:`_at` computed (one parameter at a time: P is a handful)."""
+    E = _spectra(c, weights)
+    dC, dK = c["dC"], c["dK"]
+    T, n, s, P = dC.shape
+    # a (T, P, W, n) laid out (T, W, P, n): the sums below run in the same order as over one stacked array
+    a = np.empty((T, wT.shape[0], P, n)).transpose(0, 2, 1, 3)
+    for k in range(P):
+        v = np.swapaxes(dK[..., k], 1, 2) + sum(E[:, j, :, None] * dC[:, None, :, j, k] for j in range(s))
+        _projected(c["proj"], weights, v * wT, out=a[:, k])
+    b = weights.causes(a)  # (T, P, r)
+    Mb = _cho_solve(c["proj"].M_chol, b)
+    H = np.einsum("tkwn,tlwn->tkl", a, a) - np.einsum("tkr,tlr->tkl", b, Mb)
+    g = np.einsum("tkwn,twn->tk", a, c["a"]) - np.einsum("tkr,tr->tk", Mb, c["b"])
+    return 0.5 * (H + np.swapaxes(H, 1, 2)), g
+
+
+class _RowCache:
+    """χ², JᵀJ and Jᵀr of every trial at the last two θ rows it was evaluated at.
+
+    fit_many calls the model and the Jacobian with the whole batch, the rows of stopped trials (and of
+    trials whose step was refused) held at θ already seen: those rows are looked up, only the others
+    computed. Two entries per trial cover a refused step (back at the θ before the trial point)."""
+
+    def __init__(self, T: int, P: int):
+        self.theta = np.full((2, T, P), np.nan)  # NaN matches nothing
+        self.chi2 = np.zeros((2, T))
+        self.H = np.zeros((2, T, P, P))
+        self.g = np.zeros((2, T, P))
+        self.newest = np.zeros(T, dtype=int)
+
+    def lookup(self, theta: np.ndarray) -> np.ndarray:
+        """(T,) the entry holding each row of θ (T, P), −1 where neither does."""
+        hit = np.all(self.theta == theta[None], axis=2)  # (2, T)
+        return np.where(hit[0], 0, np.where(hit[1], 1, -1))
+
+    def store(self, rows: np.ndarray, theta, chi2, H, g) -> None:
+        """Put the rows' new values in place of their older entry."""
+        slot = 1 - self.newest[rows]
+        self.theta[slot, rows], self.chi2[slot, rows] = theta, chi2
+        self.H[slot, rows], self.g[slot, rows] = H, g
+        self.newest[rows] = slot
+
+    def get(self, slot: np.ndarray):
+        """(χ², JᵀJ, Jᵀr) of every row from its entry ``slot`` (T,), which becomes its newest."""
+        t = np.arange(slot.size)
+        self.newest = slot.copy()
+        return self.chi2[slot, t], self.H[slot, t], self.g[slot, t]
+
+
 class SeparableProblem:
     """A batch of separable problems as the model and Jacobian :func:`planner.inference.lm.fit_many`
     wants over θ alone: ``fit_many(problem.f, theta0, problem.y, jac=problem.jac, scale_cov=False)``.
@@ -255,73 +335,97 @@ class SeparableProblem:
     length W n is ever formed in the search. fit_many's χ², gradient tests and covariance (JᵀJ)⁻¹ are
     those of the full problem. The full residuals at a solution: :meth:`residuals`.
 
+    :meth:`f` computes χ², JᵀJ and Jᵀr together, once per trial and θ (one projection serves both), and
+    only for the rows of θ that changed (:class:`_RowCache`); :meth:`jac` then finds them in the cache.
+
     Parameters
     ----------
     basis : θ (T, P) → (C, ∂C/∂θ, K, ∂K/∂θ), see :data:`Basis`.
     Y : (T, n, W) data of every trial.
     weights : the error model (:class:`Weights`).
+    rowwise : True when ``basis`` computes each row from that row of θ alone (then it is called with the
+        changed rows only); False: always with the whole batch.
     """
 
-    def __init__(self, basis: Basis, Y: np.ndarray, weights: Weights):
+    def __init__(self, basis: Basis, Y: np.ndarray, weights: Weights, *, rowwise: bool = True):
         self.basis = basis
         self.weights = weights
+        self.rowwise = rowwise
         Y = np.asarray(Y, dtype=float)
         self._wT = np.ascontiguousarray(weights.w.T)
         self._Yw = np.ascontiguousarray(np.swapaxes(Y, 1, 2)) * self._wT  # (T, W, n)
         self._key: bytes | None = None
         self._cache: dict = {}
+        self._rows: _RowCache | None = None
 
     def y(self, n_params: int) -> np.ndarray:
         """The observations fit_many compares with :meth:`f`: zeros, (T, P + 1)."""
         return np.zeros((self._Yw.shape[0], n_params + 1))
 
     def evaluate(self, theta: np.ndarray) -> dict:
-        """Everything at θ (T, P), cached for the Jacobian that follows: projection, the data's
+        """Everything at θ (T, P), cached for the calls that follow at the same θ: projection, the data's
         projection (a, b), χ² and the linear parameters."""
         theta = np.ascontiguousarray(np.atleast_2d(theta), dtype=float)
         key = theta.tobytes()
         if key != self._key:
-            C, dC, K, dK = self.basis(theta)
-            proj = project(C, self.weights)
-            V = self._Yw - np.swapaxes(K, 1, 2) * self._wT
-            QV, a, b = _projected(proj, self.weights, V)
-            z = _cho_solve(proj.M_chol, b)
-            chi2 = np.einsum("twn,twn->t", a, a) - np.einsum("tr,tr->t", b, z)
-            self._cache = dict(proj=proj, V=V, a=a, b=b, z=z, QV=QV, chi2=np.maximum(chi2, 0.0), dC=dC, dK=dK)
+            self._cache = _at(self.basis(theta), self._Yw, self.weights, self._wT)
             self._key = key
         return self._cache
 
     def linear_parameters(self, theta: np.ndarray) -> np.ndarray:
         """E (T, s, W) at θ."""
-        c = self.evaluate(theta)
-        if "E" not in c:
-            coef = c["QV"] - np.einsum("twsn,twn->tws", c["proj"].Q, self.weights.spread(c["z"]))
-            c["E"] = linear_parameters(c["proj"], coef)
-        return c["E"]
-
-    def f(self, theta: np.ndarray) -> np.ndarray:
-        c = self.evaluate(theta)
-        T, P = np.atleast_2d(theta).shape
-        out = np.zeros((T, P + 1))
-        out[:, 0] = -np.sqrt(c["chi2"])
-        return np.where(np.isfinite(out), out, np.nan)
+        return _spectra(self.evaluate(theta), self.weights)
 
     def information(self, theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(JᵀJ (T, P, P), Jᵀr (T, P)) with Kaufman's Jacobian J = P⊥_aug[w ∘ ∂(K + C E)/∂θ; 0]."""
-        c = self.evaluate(theta)
-        E = self.linear_parameters(theta)
-        dC, dK = c["dC"], c["dK"]
-        v = (np.moveaxis(dK, -1, 1).swapaxes(-1, -2) + np.einsum("tsw,tnsp->tpwn", E, dC)) * self._wT
-        _, a, b = _projected(c["proj"], self.weights, v)  # (T, P, W, n), (T, P, r)
-        Mb = _cho_solve(c["proj"].M_chol, b)
-        H = np.einsum("tkwn,tlwn->tkl", a, a) - np.einsum("tkr,tlr->tkl", b, Mb)
-        g = np.einsum("tkwn,twn->tk", a, c["a"]) - np.einsum("tkr,tr->tk", Mb, c["b"])
-        return 0.5 * (H + np.swapaxes(H, 1, 2)), g
+        return _information(self.evaluate(theta), self.weights, self._wT)
+
+    def _search(self, theta: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(χ², JᵀJ, Jᵀr) at θ (T, P), computed only for the rows not in the row cache."""
+        theta = np.ascontiguousarray(np.atleast_2d(theta), dtype=float)
+        T, P = theta.shape
+        if T != self._Yw.shape[0]:  # one data set for many θ: nothing to reuse
+            Yw = np.broadcast_to(self._Yw, (T,) + self._Yw.shape[1:])
+            c = _at(self.basis(theta), Yw, self.weights, self._wT)
+            return (c["chi2"],) + _information(c, self.weights, self._wT)
+        if self._rows is None or self._rows.theta.shape[2] != P:
+            self._rows = _RowCache(T, P)
+        slot = self._rows.lookup(theta)
+        new = np.flatnonzero(slot < 0)
+        for start in range(0, new.size, _BLOCK):
+            rows = new[start : start + _BLOCK]
+            parts, proj = self._basis(theta, rows)
+            c = _at(parts, self._Yw[rows], self.weights, self._wT, proj)
+            self._rows.store(rows, theta[rows], c["chi2"], *_information(c, self.weights, self._wT))
+            slot[rows] = self._rows.newest[rows]
+        return self._rows.get(slot)
+
+    def _basis(self, theta: np.ndarray, rows: np.ndarray) -> tuple[tuple, Projection | None]:
+        """The basis at the rows ``rows`` of θ, and its projection when several rows share their θ (as
+        every trial does at the start): the basis and its projection depend on θ alone, so they are
+        computed once per distinct θ."""
+        if not self.rowwise:
+            return tuple(x[rows] for x in self.basis(theta)), None
+        th = theta[rows]
+        uniq, inv = np.unique(th, axis=0, return_inverse=True)
+        if 2 * uniq.shape[0] > th.shape[0]:
+            return self.basis(th), None
+        inv = inv.reshape(-1)
+        parts = self.basis(uniq)
+        p = project(parts[0], self.weights)
+        return tuple(x[inv] for x in parts), Projection(p.Q[inv], p.R[inv], p.M_chol[inv], p.rank[inv])
+
+    def f(self, theta: np.ndarray) -> np.ndarray:
+        chi2, _, _ = self._search(theta)
+        T, P = np.atleast_2d(theta).shape
+        out = np.zeros((T, P + 1))
+        out[:, 0] = -np.sqrt(chi2)
+        return np.where(np.isfinite(out), out, np.nan)
 
     def jac(self, theta: np.ndarray) -> np.ndarray:
         """The compressed Jacobian of :meth:`f` (see the class docstring), (T, P + 1, P)."""
-        H, g = self.information(theta)
-        rho = np.sqrt(self.evaluate(theta)["chi2"])
+        chi2, H, g = self._search(theta)
+        rho = np.sqrt(chi2)
         T, P = g.shape
         out = np.zeros((T, P + 1, P))
         safe = rho > 0

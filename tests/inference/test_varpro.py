@@ -118,3 +118,90 @@ def test_left_out_entries_carry_no_weight():
     a = SeparableProblem(basis, Y[None], Weights.low_rank(sd, S, used)).evaluate(th)["chi2"]
     b = SeparableProblem(basis, Y2[None], Weights.low_rank(sd, S, used)).evaluate(th)["chi2"]
     assert np.isclose(a, b, rtol=1e-12)
+
+
+class _Counting:
+    """The test basis, recording the rows of θ it is asked for."""
+
+    def __init__(self):
+        self.calls: list[np.ndarray] = []
+
+    def __call__(self, th):
+        self.calls.append(np.array(th, copy=True))
+        return basis(th)
+
+
+def _many(T=6):
+    """T data sets from one truth (different noise) and the exact whole-batch answers at θ."""
+    Ys = np.stack([data()[0] for _ in range(T)])
+    _, _, sd, S = data()
+    return Ys, Weights.low_rank(sd, S)
+
+
+def test_row_cache_computes_only_the_changed_rows_and_returns_the_batch_answers():
+    # derived: χ², JᵀJ and Jᵀr of a trial depend on its own θ and data alone, so rows looked up in the cache
+    # must equal a fresh whole-batch computation (SeparableProblem.evaluate / information, no cache)
+    Ys, w = _many()
+    counting = _Counting()
+    prob = SeparableProblem(counting, Ys, w)
+    th0 = np.tile([0.45, 2.2], (6, 1)) + np.linspace(0.0, 0.05, 6)[:, None]
+    th1 = th0.copy()
+    th1[[1, 4]] += [0.03, -0.1]  # two trials take a step, the others stay (stopped or refused)
+    th2 = th0.copy()
+    th2[4] = th1[4]  # trial 1's step is refused (back at th0), trial 4's is kept
+    for th, changed in ((th0, 6), (th1, 2), (th2, 0), (th1, 0)):
+        before = len(counting.calls)
+        f, J = prob.f(th), prob.jac(th)
+        asked = sum(c.shape[0] for c in counting.calls[before:])
+        assert asked == changed  # only rows at a θ not seen in the last two calls are computed
+        fresh = SeparableProblem(basis, Ys, w)
+        H, g = fresh.information(th)
+        assert np.allclose(f[:, 0] ** 2, fresh.evaluate(th)["chi2"], rtol=1e-12)
+        assert np.allclose(np.einsum("tik,til->tkl", J, J), H, rtol=1e-10)
+        assert np.allclose(-J[:, 0, :] * f[:, :1], g, rtol=1e-10, atol=1e-12)
+
+
+def test_rows_at_one_theta_share_one_basis_and_projection():
+    # every trial of a Monte Carlo starts at the guess: the basis (and its projection) depend on θ alone,
+    # so it is computed once for all of them; the answers stay those of a plain batch
+    Ys, w = _many()
+    counting = _Counting()
+    prob = SeparableProblem(counting, Ys, w)
+    th = np.tile([0.45, 2.2], (6, 1))
+    th[[1, 4, 5]] = [0.6, 1.5]  # two starts, interleaved
+    f, J = prob.f(th), prob.jac(th)
+    assert [c.shape[0] for c in counting.calls] == [2]
+    fresh = SeparableProblem(basis, Ys, w)
+    assert np.allclose(f[:, 0] ** 2, fresh.evaluate(th)["chi2"], rtol=1e-12)
+    H, g = fresh.information(th)
+    assert np.allclose(np.einsum("tik,til->tkl", J, J), H, rtol=1e-10)
+    assert np.allclose(-J[:, 0, :] * f[:, :1], g, rtol=1e-10, atol=1e-12)
+
+
+def test_a_basis_that_is_not_rowwise_is_asked_for_the_whole_batch():
+    Ys, w = _many()
+    counting = _Counting()
+    prob = SeparableProblem(counting, Ys, w, rowwise=False)
+    th = np.tile([0.45, 2.2], (6, 1))
+    prob.f(th)
+    th[2] += 0.01
+    prob.f(th)
+    assert [c.shape[0] for c in counting.calls] == [6, 6]
+
+
+def test_cached_search_lands_where_the_uncached_one_does():
+    # the same fits with every row recomputed at every call (a fresh problem per call) and with the cache
+    Ys, w = _many()
+    th0 = np.tile([0.45, 2.2], (6, 1))
+    cached = SeparableProblem(basis, Ys, w)
+    a = fit_many(cached.f, th0, cached.y(2), jac=cached.jac, scale_cov=False)
+
+    def f(th):
+        return SeparableProblem(basis, Ys, w).f(th)
+
+    def jac(th):
+        return SeparableProblem(basis, Ys, w).jac(th)
+
+    b = fit_many(f, th0, cached.y(2), jac=jac, scale_cov=False)
+    assert np.all(a.converged) and np.all(b.converged)
+    assert np.allclose(a.theta, b.theta, rtol=1e-9, atol=0.0)

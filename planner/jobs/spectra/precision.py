@@ -149,7 +149,7 @@ def profile_chi2(sm: SpectraModel, weights: Weights, Y: np.ndarray, theta: np.nd
         C, dC, K, dK = sm.basis(full(sub))
         return C, dC[..., others], K, dK[..., others]
 
-    prob = SeparableProblem(basis, np.broadcast_to(Y, (G,) + Y.shape), weights)
+    prob = SeparableProblem(basis, np.broadcast_to(Y, (G,) + Y.shape), weights, rowwise=False)
     sub0 = np.broadcast_to(theta[others], (G, len(others))).copy()
     if not others:
         return prob.evaluate(sub0)["chi2"]
